@@ -1,0 +1,35 @@
+"""Inputs, conventions and references shared by several declarations."""
+
+from ..registry import ECCENTRICITY, INCLINATION, POSITIVE, Input
+
+HILDITCH_2001 = ("R. W. Hilditch (2001), An Introduction to Close Binary Stars, "
+                 "Cambridge University Press, ch. 2")
+IAU_2015_B3 = "IAU 2015 Resolution B3 on nominal solar and planetary conversion constants (Prsa et al. 2016, AJ 152, 41)"
+IAU_2012_B2 = "IAU 2012 Resolution B2 on the re-definition of the astronomical unit"
+
+CONVENTIONS = {
+    "radial_velocity": "positive when receding",
+    "omega": "argument of periastron of the primary's orbit (spectroscopic convention); "
+             "the relative orbit of the secondary about the primary has omega + 180 deg",
+    "inclination": "0 to 180 deg, above 90 deg retrograde on the sky; masses depend on sin i only",
+    "mass_ratio": "q = M2/M1 = K1/K2; star 1 is the primary, the star whose semi-amplitude is k1",
+    "time": "Julian Date (days) unless another format is given",
+}
+
+
+def period(**kw) -> Input:
+    return Input("period", "d", "orbital period", POSITIVE, example=kw.pop("example", 41.6), **kw)
+
+
+def eccentricity(**kw) -> Input:
+    return Input("eccentricity", "", "orbital eccentricity", ECCENTRICITY, example=kw.pop("example", 0.31), **kw)
+
+
+def inclination(required=False, isotropic=True, **kw) -> Input:
+    return Input("inclination", "deg", "orbital inclination (0 < i < 180 deg), or \"isotropic\" for random "
+                 "orientations (cos i uniform, Monte Carlo)" if isotropic else "orbital inclination",
+                 INCLINATION, required=required, isotropic=isotropic, example=kw.pop("example", 71.0), **kw)
+
+
+def semi_amplitude(name: str, star: str, example: float) -> Input:
+    return Input(name, "km/s", f"radial-velocity semi-amplitude of star {star}", POSITIVE, example=example)

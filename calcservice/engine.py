@@ -1,0 +1,414 @@
+"""The uncertainty engine: measured inputs in, measured outputs out.
+
+It knows nothing about binaries.  Given a :class:`~calcservice.registry.Calculation`
+and its inputs as :class:`Measured` arrays over N systems, it propagates uncertainty
+
+* linearly, through a Jacobian taken by a five-point central difference (one-sided
+  second-order stencils where a step would leave an input's domain) with the input
+  covariance built from sigmas and correlations, or
+* by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
+  when correlated), the user's own samples paired index by index, isotropic
+  orientations (cos i uniform); draws outside an input's domain or giving a
+  non-finite output are rejected and counted; summaries are the median, the standard
+  deviation and the central 68.27 % interval.
+
+Either way the physics function is called once, on arrays of shape (N, P): P = 1 + 4 m
+perturbed copies for m uncertain inputs (linear), or P = 1 + S draws (Monte Carlo,
+column 0 being the nominal point).  Nothing loops over systems in Python.
+"""
+
+from __future__ import annotations
+
+import secrets
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+from scipy.special import ndtr, ndtri
+
+from .registry import Calculation, Warning
+
+ONE_SIGMA_LOW = float(ndtr(-1.0))    # 0.158655...
+ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
+RELATIVE_STEP = 1e-4
+LINEAR_TRUST_LIMIT = 0.2             # relative sigma above which linear propagation is suspect
+
+
+class EngineError(ValueError):
+    """An input problem the engine found, keyed by field like a validation error."""
+
+    def __init__(self, errors: Mapping[str, list[str]], detail: str | None = None):
+        super().__init__(detail or "; ".join(f"{k}: {' '.join(v)}" for k, v in errors.items()))
+        self.errors = dict(errors)
+        self.detail = detail
+
+
+@dataclass
+class Measured:
+    """A quantity over N systems in its canonical unit.
+
+    ``value`` is the nominal value (for samples, their median); ``sigma_minus`` and
+    ``sigma_plus`` are the one-sigma errors (equal for a normal error, zero for an
+    exact number); ``samples`` (N, S) are the user's own draws; ``isotropic`` marks an
+    inclination drawn from random orientations.
+    """
+
+    value: np.ndarray
+    sigma_minus: np.ndarray
+    sigma_plus: np.ndarray
+    samples: np.ndarray | None = None
+    isotropic: bool = False
+
+    @classmethod
+    def exact(cls, value) -> "Measured":
+        v = np.atleast_1d(np.asarray(value, dtype=float))
+        z = np.zeros_like(v)
+        return cls(v, z, z)
+
+    @classmethod
+    def normal(cls, value, sigma) -> "Measured":
+        v = np.atleast_1d(np.asarray(value, dtype=float))
+        s = np.broadcast_to(np.asarray(sigma, dtype=float), v.shape).copy()
+        return cls(v, s, s)
+
+    @classmethod
+    def from_samples(cls, samples) -> "Measured":
+        s = np.atleast_2d(np.asarray(samples, dtype=float))
+        med = np.median(s, axis=1)
+        sd = s.std(axis=1, ddof=1) if s.shape[1] > 1 else np.zeros(s.shape[0])
+        return cls(med, sd, sd, samples=s)
+
+    @property
+    def sigma(self) -> np.ndarray:
+        """The symmetric sigma used by linear propagation (mean of the two sides)."""
+        return 0.5 * (self.sigma_minus + self.sigma_plus)
+
+    @property
+    def asymmetric(self) -> bool:
+        return bool(np.any(self.sigma_minus != self.sigma_plus)) and self.samples is None
+
+    @property
+    def uncertain(self) -> bool:
+        return self.isotropic or self.samples is not None or bool(np.any(self.sigma_plus > 0) or np.any(self.sigma_minus > 0))
+
+
+@dataclass
+class Options:
+    method: str = "linear"          # "linear" | "monte_carlo"
+    samples: int = 10000
+    seed: int | None = None
+    correlations: Mapping[tuple[str, str], float] = field(default_factory=dict)
+    keep_draws: bool = False
+
+
+@dataclass
+class Result:
+    """Measured outputs over N systems; arrays have shape (N,) plus any series axis."""
+
+    outputs: dict[str, dict[str, np.ndarray]]
+    method: str
+    samples: int | None = None
+    seed: int | None = None
+    rejected_fraction: np.ndarray | None = None
+    warnings: list[Warning] = field(default_factory=list)
+    failed: dict[int, dict[str, list[str]]] = field(default_factory=dict)   # system index -> errors
+    draws: dict[str, np.ndarray] | None = None
+    nominal_inputs: dict[str, Any] = field(default_factory=dict)
+
+
+def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], float]) -> np.ndarray:
+    """The correlation matrix over ``names``; 422 unless it is positive definite."""
+    m = len(names)
+    r = np.eye(m)
+    index = {n: k for k, n in enumerate(names)}
+    for (a, b), rho in correlations.items():
+        if a in index and b in index:
+            r[index[a], index[b]] = r[index[b], index[a]] = rho
+    if m:
+        try:
+            np.linalg.cholesky(r)
+        except np.linalg.LinAlgError:
+            raise EngineError({"correlations": ["the correlation matrix is not positive definite"]}) from None
+    return r
+
+
+def _wrap(d: np.ndarray, period: float | None) -> np.ndarray:
+    if period is None:
+        return d
+    return (d + 0.5 * period) % period - 0.5 * period
+
+
+def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
+    kwargs: dict[str, Any] = {i.name: None for i in calc.inputs}
+    kwargs.update(statics)
+    kwargs.update(arrays)
+    with np.errstate(all="ignore"):
+        raw = calc.function(**kwargs)
+    out = {}
+    for o in calc.outputs:
+        y = raw.get(o.name)
+        if y is None:
+            continue
+        out[o.name] = np.broadcast_to(np.asarray(y, dtype=float), shape)
+    return out
+
+
+def _series_shape(calc: Calculation, statics: Mapping[str, Any]) -> tuple:
+    trail = ()
+    for i in calc.inputs:
+        if i.kind == "series" and statics.get(i.name) is not None:
+            trail = trail + (len(statics[i.name]),)
+    return trail
+
+
+def _nominal_failures(calc, nominal: Mapping[str, np.ndarray], n: int) -> dict[int, dict[str, list[str]]]:
+    """Rows whose nominal inputs violate a declared constraint."""
+    failed: dict[int, dict[str, list[str]]] = {}
+    for c in calc.constraints:
+        args = {i.name: nominal.get(i.name) for i in calc.inputs}
+        with np.errstate(all="ignore"):
+            ok = np.broadcast_to(np.asarray(c.test(**args), dtype=bool), (n,))
+        for k in np.flatnonzero(~ok):
+            for f in c.fields:
+                failed.setdefault(int(k), {}).setdefault(f, []).append(c.message)
+    return failed
+
+
+def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Mapping[str, Any] | None = None,
+             options: Options | None = None) -> Result:
+    """Propagate the uncertainty of ``quantities`` through ``calc``."""
+    statics = dict(statics or {})
+    options = options or Options()
+    n = max((len(q.value) for q in quantities.values()), default=1)
+    trail = _series_shape(calc, statics)
+    nominal = {k: np.broadcast_to(q.value, (n,)) for k, q in quantities.items()}
+
+    method = options.method
+    switched = None
+    if method == "linear" and any(q.isotropic or q.samples is not None for q in quantities.values()):
+        method = "monte_carlo"
+        switched = ("method_switched", "inputs given as samples or as 'isotropic' need Monte Carlo; "
+                    "the Monte Carlo method was used")
+    if method == "linear":
+        result = _linear(calc, quantities, statics, options, n, trail)
+    else:
+        result = _monte_carlo(calc, quantities, statics, options, n, trail)
+    if switched:
+        result.warnings.insert(0, Warning(*switched))
+
+    for k, errs in _nominal_failures(calc, nominal, n).items():
+        result.failed.setdefault(k, {}).update(errs)
+    result.nominal_inputs = nominal
+    if calc.check is not None:
+        nominal_out = {name: o["value"] for name, o in result.outputs.items()}
+        args = {i.name: statics.get(i.name, nominal.get(i.name)) for i in calc.inputs}
+        with np.errstate(all="ignore"):
+            result.warnings.extend(calc.check(inputs=args, outputs=nominal_out))
+    return result
+
+
+def _linear(calc, quantities, statics, options, n, trail) -> Result:
+    perturbed = [name for name, q in quantities.items() if q.uncertain]
+    m = len(perturbed)
+    p = 1 + 4 * m
+    offsets = np.array([-2.0, -1.0, 1.0, 2.0])
+    steps: dict[str, np.ndarray] = {}
+    arrays = {}
+    for name, q in quantities.items():
+        x = np.broadcast_to(q.value, (n,)).astype(float)
+        cols = np.repeat(x[:, None], p, axis=1)
+        if name in perturbed:
+            j = perturbed.index(name)
+            scale = np.maximum(np.abs(x), np.broadcast_to(q.sigma, (n,)))
+            h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
+            steps[name] = h
+            sl = slice(1 + 4 * j, 5 + 4 * j)
+            cols[:, sl] = x[:, None] + h[:, None] * offsets
+            dom = calc.input(name).domain
+            block = cols[:, sl]
+            block[~dom.contains(block)] = np.nan
+        arrays[name] = cols.reshape((n, p) + (1,) * len(trail))
+    ys = _call(calc, arrays, statics, (n, p) + trail)
+
+    sig = np.stack([np.broadcast_to(quantities[nm].sigma, (n,)) for nm in perturbed], axis=1) if m else np.zeros((n, 0))
+    r = correlation_matrix(perturbed, options.correlations)
+    cov = sig[:, :, None] * r[None, :, :] * sig[:, None, :]          # (n, m, m)
+    expand = (slice(None),) + (None,) * len(trail)
+
+    outputs: dict[str, dict[str, np.ndarray]] = {}
+    warnings: list[Warning] = []
+    failed: dict[int, dict[str, list[str]]] = {}
+    for o in calc.outputs:
+        if o.name not in ys:
+            continue
+        y = ys[o.name]
+        f0 = y[:, 0]
+        jac = np.zeros((n, m) + trail)
+        for j, name in enumerate(perturbed):
+            h = steps[name][expand]
+            d = [_wrap(y[:, 1 + 4 * j + k] - f0, o.period) for k in range(4)]   # f(x+kh) - f(x)
+            central = (d[0] - 8.0 * d[1] + 8.0 * d[2] - d[3]) / (12.0 * h)
+            forward = (4.0 * d[2] - d[3]) / (2.0 * h)
+            backward = (d[0] - 4.0 * d[1]) / (2.0 * h)
+            jj = np.where(np.isfinite(central), central, np.where(np.isfinite(forward), forward, backward))
+            # an exact input in a row does not count, even if its derivative is undefined there
+            jj = np.where((sig[:, j] > 0)[expand], jj, 0.0)
+            jac[:, j] = jj
+        var = np.einsum("nj...,njk,nk...->n...", jac, cov, jac) if m else np.zeros_like(f0)
+        sigma = np.sqrt(np.maximum(var, 0.0))
+        if o.period is not None:
+            f0 = f0 % o.period
+        outputs[o.name] = {"value": f0, "sigma": sigma}
+        bad = ~np.isfinite(f0)
+        bad_rows = np.flatnonzero(bad.reshape(n, -1).any(axis=1)) if f0.size else []
+        for k in bad_rows:
+            failed.setdefault(int(k), {}).setdefault("_inputs", []).append(
+                f"these inputs give no finite value of {o.name}")
+        with np.errstate(all="ignore"):
+            rel = np.abs(sigma / f0)
+        loose = (rel > LINEAR_TRUST_LIMIT) & np.isfinite(rel)
+        if o.period is None and np.any(loose):
+            where = loose.reshape(n, -1).any(axis=1)
+            warnings.append(Warning("linear_untrustworthy",
+                                    f"{o.name} has a relative sigma above {LINEAR_TRUST_LIMIT:.0%}: first-order "
+                                    "propagation may be poor; consider the Monte Carlo method", where))
+        undefined = ~np.isfinite(sigma) & np.isfinite(f0)
+        if np.any(undefined):
+            warnings.append(Warning("sigma_undefined", f"the uncertainty of {o.name} could not be propagated "
+                                    "linearly at these inputs; use the Monte Carlo method",
+                                    undefined.reshape(n, -1).any(axis=1)))
+
+    for name in perturbed:
+        q = quantities[name]
+        dom = calc.input(name).domain
+        x = np.broadcast_to(q.value, (n,))
+        crosses = ~(dom.contains(x - q.sigma_minus) & dom.contains(x + q.sigma_plus))
+        if np.any(crosses):
+            warnings.append(Warning("interval_crosses_domain",
+                                    f"the 1-sigma interval of {name} crosses its physical domain "
+                                    f"({dom.describe()}); consider the Monte Carlo method, which truncates draws "
+                                    "to the domain", crosses))
+        if q.asymmetric:
+            warnings.append(Warning("asymmetric_linearised",
+                                    f"{name} has asymmetric errors; linear propagation used their mean; the Monte "
+                                    "Carlo method draws a split normal"))
+    return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
+
+
+def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
+    """Draws of every quantity, shape (n, s); returns them and the seed used."""
+    seed = options.seed if options.seed is not None else secrets.randbelow(2**31)
+    rng = np.random.default_rng(seed)
+    drawn = [name for name, q in quantities.items()
+             if q.samples is None and not q.isotropic and q.uncertain]
+    r = correlation_matrix(drawn, options.correlations)
+    z = rng.standard_normal((n, s, len(drawn)))
+    if len(drawn) > 1 and not np.allclose(r, np.eye(len(drawn))):
+        z = z @ np.linalg.cholesky(r).T
+    out = {}
+    for name, q in quantities.items():
+        x = np.broadcast_to(q.value, (n,))[:, None]
+        if q.samples is not None:
+            out[name] = np.broadcast_to(q.samples, (n, s))
+        elif q.isotropic:
+            cos_i = rng.uniform(0.0, 1.0, size=(n, s))
+            out[name] = np.degrees(np.arccos(cos_i))
+        elif name in drawn:
+            zj = z[:, :, drawn.index(name)]
+            sm = np.broadcast_to(q.sigma_minus, (n,))[:, None]
+            sp = np.broadcast_to(q.sigma_plus, (n,))[:, None]
+            if np.all(sm == sp):
+                out[name] = x + sm * zj
+            else:
+                # split normal by its inverse CDF; z keeps any correlation (Gaussian copula)
+                u = ndtr(zj)
+                tot = sm + sp
+                pl = np.where(tot > 0, sm / np.where(tot > 0, tot, 1.0), 0.5)
+                with np.errstate(all="ignore"):
+                    low = x + sm * ndtri(np.clip(u * tot / (2 * sm), 0, 1))
+                    high = x + sp * ndtri(np.clip(0.5 + (u - pl) * tot / (2 * sp), 0, 1))
+                out[name] = np.where(u < pl, low, high)
+                out[name] = np.where(tot > 0, out[name], x)
+        else:
+            out[name] = np.broadcast_to(x, (n, s))
+    return out, seed
+
+
+def quantiles(y: np.ndarray, valid: np.ndarray, qs) -> list[np.ndarray]:
+    """Linear-interpolation quantiles along axis 1 over the valid draws only."""
+    ys = np.sort(np.where(valid.reshape(valid.shape + (1,) * (y.ndim - 2)), y, np.nan), axis=1)
+    count = valid.sum(axis=1).reshape((-1, 1) + (1,) * (y.ndim - 2))
+    res = []
+    for q in qs:
+        pos = q * np.maximum(count - 1, 0)
+        lo = np.floor(pos).astype(np.intp)
+        hi = np.minimum(lo + 1, np.maximum(count - 1, 0)).astype(np.intp)
+        frac = pos - lo
+        a = np.take_along_axis(ys, lo, axis=1)
+        b = np.take_along_axis(ys, hi, axis=1)
+        v = (a + (b - a) * frac)[:, 0]
+        res.append(np.where(count[:, 0] > 0, v, np.nan))
+    return res
+
+
+def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
+    sample_lengths = {q.samples.shape[1] for q in quantities.values() if q.samples is not None}
+    if len(sample_lengths) > 1:
+        raise EngineError({name: ["all sample inputs of one request must have the same length"]
+                           for name, q in quantities.items() if q.samples is not None})
+    s = sample_lengths.pop() if sample_lengths else int(options.samples)
+    for name, q in quantities.items():
+        if q.samples is not None and any(name in pair for pair in options.correlations):
+            raise EngineError({"correlations": [f"{name} is given as samples, which carry their own "
+                                                "correlations; do not also correlate it"]})
+    draws, seed = _draw(calc, quantities, options, n, s)
+    valid = np.ones((n, s), dtype=bool)
+    arrays = {}
+    for name, q in quantities.items():
+        d = draws[name]
+        inside = calc.input(name).domain.contains(d)
+        valid &= inside
+        d = np.where(inside, d, np.nan)
+        col0 = np.broadcast_to(q.value, (n,))[:, None]
+        arrays[name] = np.concatenate([col0, d], axis=1).reshape((n, s + 1) + (1,) * len(trail))
+    ys = _call(calc, arrays, statics, (n, s + 1) + trail)
+    for y in ys.values():
+        valid &= np.isfinite(y[:, 1:]).reshape(n, s, -1).all(axis=2)
+    nvalid = valid.sum(axis=1)
+    rejected = 1.0 - nvalid / s
+
+    outputs: dict[str, dict[str, np.ndarray]] = {}
+    failed: dict[int, dict[str, list[str]]] = {}
+    for k in np.flatnonzero(nvalid == 0):
+        failed[int(k)] = {"_inputs": ["every Monte Carlo draw fell outside the inputs' physical domains or "
+                                      "gave a non-finite result"]}
+    kept = {}
+    for o in calc.outputs:
+        if o.name not in ys:
+            continue
+        y = ys[o.name]
+        nominal = y[:, :1]
+        d = y[:, 1:]
+        if o.period is not None:
+            ref = np.where(np.isfinite(nominal), nominal, 0.0)
+            d = ref + _wrap(d - ref, o.period)
+        mask = valid.reshape(valid.shape + (1,) * len(trail))
+        med, low, high = quantiles(d, valid, (0.5, ONE_SIGMA_LOW, ONE_SIGMA_HIGH))
+        with np.errstate(all="ignore"):
+            cnt = np.maximum(nvalid.reshape((-1,) + (1,) * len(trail)), 1)
+            mean = np.where(mask, d, 0.0).sum(axis=1) / cnt
+            var = np.where(mask, (d - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
+        if o.period is not None:
+            shift = np.floor(med / o.period) * o.period
+            med, low, high = med - shift, low - shift, high - shift
+        outputs[o.name] = {"value": med, "sigma": np.sqrt(var), "low": low, "high": high}
+        if options.keep_draws:
+            kept[o.name] = np.where(mask, d, np.nan)
+    warnings = []
+    heavy = rejected > 0.05
+    if np.any(heavy):
+        warnings.append(Warning("draws_rejected", "more than 5 % of the Monte Carlo draws fell outside the inputs' "
+                                "physical domains or gave no finite result; the summary describes the "
+                                "truncated distribution", heavy))
+    return Result(outputs=outputs, method="monte_carlo", samples=s, seed=seed, rejected_fraction=rejected,
+                  warnings=warnings, failed=failed, draws=kept if options.keep_draws else None)

@@ -1,0 +1,123 @@
+"""Spectroscopic binaries: mass functions, projected orbits and masses.
+
+Canonical units: period P in days, semi-amplitudes K in km/s, inclination i in degrees,
+masses in solar masses, lengths in au.  Formulas follow R. W. Hilditch (2001), *An
+Introduction to Close Binary Stars*, Cambridge University Press, ch. 2, with the
+coefficients built from the IAU 2015 nominal solar mass parameter GM_sun rather than
+the rounded textbook numbers (1.0361e-7 and 1.3751e4).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..constants import AU_KM, GM_SUN, SECONDS_PER_DAY, TWO_PI
+
+#: f(M) = MASS_FUNCTION_COEFFICIENT * (1 - e^2)^{3/2} K^3 P  [solMass, K in km/s, P in d]
+MASS_FUNCTION_COEFFICIENT = SECONDS_PER_DAY * 1e9 / (TWO_PI * GM_SUN)
+#: a sin i = PROJECTED_AXIS_COEFFICIENT_KM * (1 - e^2)^{1/2} K P  [km]
+PROJECTED_AXIS_COEFFICIENT_KM = SECONDS_PER_DAY / TWO_PI
+
+
+def mass_function(period, k1, eccentricity):
+    """Spectroscopic mass function f(M) = M2^3 sin^3 i / (M1 + M2)^2 (solMass).
+
+    f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G)   (Hilditch 2001, eq. 2.51).
+    """
+    return MASS_FUNCTION_COEFFICIENT * (1.0 - eccentricity**2) ** 1.5 * k1**3 * period
+
+
+def projected_semimajor_axis(period, k, eccentricity):
+    """a sin i of one star's orbit about the centre of mass (au).
+
+    a1 sin i = K1 P (1 - e^2)^{1/2} / (2 pi)   (Hilditch 2001, eq. 2.49).
+    """
+    return PROJECTED_AXIS_COEFFICIENT_KM * np.sqrt(1.0 - eccentricity**2) * k * period / AU_KM
+
+
+def minimum_masses(period, k1, k2, eccentricity):
+    """M1 sin^3 i and M2 sin^3 i (solMass) of a double-lined binary.
+
+    M1,2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2,1 / (2 pi G)   (Hilditch 2001, eq. 2.52-2.53).
+    """
+    common = MASS_FUNCTION_COEFFICIENT * (1.0 - eccentricity**2) ** 1.5 * (k1 + k2) ** 2 * period
+    return common * k2, common * k1
+
+
+def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
+    """The companion mass M2 (solMass) solving M2^3 sin^3 i / (M1 + M2)^2 = f(M).
+
+    The cubic has exactly one positive root (one sign change, Descartes).  We solve
+    F(y) = ln sin i + y - (2/3) ln(M1 + e^y) - (1/3) ln f = 0 for y = ln M2 by Newton's
+    method: F is increasing (F' = 1 - (2/3) M2/(M1+M2) >= 1/3) and concave, so after the
+    first step the iterates approach the root monotonically from below: convergence is
+    guaranteed for every f > 0, M1 > 0, 0 < sin i <= 1, vectorised over all systems.
+    """
+    f = np.asarray(mass_function_value, dtype=float)
+    m1 = np.asarray(primary_mass, dtype=float)
+    s = np.asarray(sin_i, dtype=float)
+    target = np.log(f) / 3.0 - np.log(s)
+    # start at the larger of the small-companion (M2 << M1) and large-companion limits
+    y = np.maximum(target + (2.0 / 3.0) * np.log(m1), 3.0 * target)
+    for _ in range(iterations):
+        m2 = np.exp(y)
+        g = y - (2.0 / 3.0) * np.log(m1 + m2) - target
+        dg = 1.0 - (2.0 / 3.0) * m2 / (m1 + m2)
+        step = g / dg
+        y = y - step
+        if np.all(~np.isfinite(step) | (np.abs(step) < 1e-15)):
+            break
+    return np.exp(y)
+
+
+def kepler_semimajor_axis(period, total_mass):
+    """Relative semi-major axis a (au) from Kepler's third law, a^3 = G M P^2 / (4 pi^2)."""
+    seconds = period * SECONDS_PER_DAY
+    return np.cbrt(GM_SUN * total_mass * seconds**2 / TWO_PI**2) / (AU_KM * 1e3)
+
+
+def sb1(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
+    """Single-lined binary: f(M), a1 sin i; with M1: M2,min; with M1 and i: M2 and a."""
+    out = {
+        "mass_function": mass_function(period, k1, eccentricity),
+        "a1_sin_i": projected_semimajor_axis(period, k1, eccentricity),
+    }
+    if primary_mass is not None:
+        f = out["mass_function"]
+        out["m2_min"] = companion_mass(f, primary_mass, 1.0)
+        if inclination is not None:
+            sin_i = np.sin(np.radians(inclination))
+            m2 = companion_mass(f, primary_mass, sin_i)
+            out["m2"] = m2
+            out["mass_ratio"] = m2 / primary_mass
+            out["semimajor_axis"] = kepler_semimajor_axis(period, primary_mass + m2)
+            out["a1"] = out["a1_sin_i"] / sin_i
+    return out
+
+
+def sb2(period, k1, k2, eccentricity, inclination=None, **_):
+    """Double-lined binary: q, M1,2 sin^3 i, a sin i; with i: M1, M2, a, periastron, apastron."""
+    a1 = projected_semimajor_axis(period, k1, eccentricity)
+    a2 = projected_semimajor_axis(period, k2, eccentricity)
+    m1s, m2s = minimum_masses(period, k1, k2, eccentricity)
+    out = {
+        "mass_ratio": k1 / k2,
+        "m1_sin3i": m1s,
+        "m2_sin3i": m2s,
+        "a_sin_i": a1 + a2,
+        "a1_sin_i": a1,
+        "a2_sin_i": a2,
+    }
+    if inclination is not None:
+        sin_i = np.sin(np.radians(inclination))
+        sin3 = sin_i**3
+        a = (a1 + a2) / sin_i
+        out.update({
+            "m1": m1s / sin3,
+            "m2": m2s / sin3,
+            "total_mass": (m1s + m2s) / sin3,
+            "semimajor_axis": a,
+            "periastron_distance": a * (1.0 - eccentricity),
+            "apastron_distance": a * (1.0 + eccentricity),
+        })
+    return out

@@ -1,0 +1,221 @@
+"""The registry of calculations: the spine of calcservice.
+
+A calculation is declared once, with :class:`Calculation`; its HTTP endpoint, request
+schema, OpenAPI entry, batch support, report and web form are all derived from the
+declaration.  Physics functions are pure: they take numpy arrays (or ``None`` for an
+optional input that was not given, a string for a choice) in each input's canonical
+unit and return a dict of output arrays in each output's canonical unit, omitting the
+outputs that the given inputs do not determine.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any, Callable, Mapping, Sequence
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Domain:
+    """A physical interval for an input, e.g. ``Domain(0, 1, high_open=True)`` for 0 <= e < 1."""
+
+    low: float = -math.inf
+    high: float = math.inf
+    low_open: bool = False
+    high_open: bool = False
+
+    def contains(self, x: np.ndarray) -> np.ndarray:
+        x = np.asarray(x, dtype=float)
+        ok = np.isfinite(x)
+        ok &= (x > self.low) if self.low_open else (x >= self.low)
+        ok &= (x < self.high) if self.high_open else (x <= self.high)
+        return ok
+
+    def describe(self) -> str:
+        parts = []
+        if self.low != -math.inf:
+            parts.append(f"{'>' if self.low_open else '>='} {self.low:g}")
+        if self.high != math.inf:
+            parts.append(f"{'<' if self.high_open else '<='} {self.high:g}")
+        return "must be " + " and ".join(parts) if parts else "must be finite"
+
+    def as_dict(self) -> dict:
+        d: dict[str, Any] = {}
+        if self.low != -math.inf:
+            d["exclusiveMinimum" if self.low_open else "minimum"] = self.low
+        if self.high != math.inf:
+            d["exclusiveMaximum" if self.high_open else "maximum"] = self.high
+        return d
+
+
+POSITIVE = Domain(0.0, math.inf, low_open=True)
+NON_NEGATIVE = Domain(0.0, math.inf)
+ANY = Domain()
+ECCENTRICITY = Domain(0.0, 1.0, high_open=True)
+INCLINATION = Domain(0.0, 180.0, low_open=True, high_open=True)
+ANGLE = Domain(-360.0, 360.0)
+FRACTION = Domain(0.0, 1.0)
+
+
+@dataclass(frozen=True)
+class Input:
+    """One input of a calculation.
+
+    kind:
+      ``"quantity"`` a measured number (any form of the wire contract);
+      ``"choice"`` one string of ``choices`` (no uncertainty);
+      ``"series"`` a list of exact numbers that becomes an extra trailing axis of
+      every output (e.g. the times of an ephemeris).
+    ``unit`` is the canonical unit the physics function receives; ``"time"`` inputs
+    also take ISO 8601 strings (``time=True``).  ``isotropic`` lets an inclination be
+    given as the string ``"isotropic"`` (random orientations, cos i uniform).
+    """
+
+    name: str
+    unit: str
+    description: str
+    domain: Domain = ANY
+    required: bool = True
+    default: Any = None
+    kind: str = "quantity"
+    choices: tuple[str, ...] = ()
+    isotropic: bool = False
+    time: bool = False
+    example: Any = None
+
+    def as_dict(self) -> dict:
+        d: dict[str, Any] = {"name": self.name, "kind": self.kind, "description": self.description,
+                             "required": self.required}
+        if self.kind != "choice":
+            d["unit"] = self.unit
+            d["domain"] = self.domain.describe()
+            d["bounds"] = self.domain.as_dict()
+        if self.default is not None:
+            d["default"] = self.default
+        if self.choices:
+            d["choices"] = list(self.choices)
+        if self.isotropic:
+            d["accepts"] = ["isotropic"]
+        if self.time:
+            d["time"] = True
+        if self.example is not None:
+            d["example"] = self.example
+        return d
+
+
+@dataclass(frozen=True)
+class Output:
+    """One output: name, canonical unit, description, its formula and reference keys.
+
+    ``period`` marks an angle that wraps (e.g. 360.0 for a position angle); the engine
+    then takes differences and intervals on the circle.
+    """
+
+    name: str
+    unit: str
+    description: str
+    formula: str = ""
+    period: float | None = None
+
+    def as_dict(self) -> dict:
+        d = {"name": self.name, "unit": self.unit, "description": self.description, "formula": self.formula}
+        if self.period is not None:
+            d["period"] = self.period
+        return d
+
+
+@dataclass(frozen=True)
+class Warning:
+    """A warning raised by a calculation's ``check``: ``where`` selects the systems it applies to."""
+
+    code: str
+    message: str
+    where: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class Constraint:
+    """A condition on the nominal inputs that must hold, reported as 422 against ``fields``."""
+
+    fields: tuple[str, ...]
+    message: str
+    test: Callable[..., np.ndarray]
+
+
+@dataclass(frozen=True)
+class Calculation:
+    """The single declaration from which a calculation's every surface is derived."""
+
+    name: str
+    path: str
+    title: str
+    summary: str
+    inputs: tuple[Input, ...]
+    outputs: tuple[Output, ...]
+    function: Callable[..., Mapping[str, np.ndarray]]
+    references: tuple[str, ...] = ()
+    constants: tuple[str, ...] = ()
+    conventions: Mapping[str, str] = field(default_factory=dict)
+    constraints: tuple[Constraint, ...] = ()
+    exclusive: tuple[tuple[str, ...], ...] = ()   # exactly one of each group must be given
+    check: Callable[..., Sequence[Warning]] | None = None
+    extra: Callable[..., Mapping[str, Any]] | None = None   # extra response members (e.g. events)
+    example: Mapping[str, Any] | None = None
+
+    def input(self, name: str) -> Input:
+        return self._inputs[name]
+
+    def output(self, name: str) -> Output:
+        return self._outputs[name]
+
+    @cached_property
+    def _inputs(self) -> dict[str, Input]:
+        return {i.name: i for i in self.inputs}
+
+    @cached_property
+    def _outputs(self) -> dict[str, Output]:
+        return {o.name: o for o in self.outputs}
+
+    def as_dict(self) -> dict:
+        return {
+            "name": self.name,
+            "path": self.path,
+            "title": self.title,
+            "summary": self.summary,
+            "inputs": [i.as_dict() for i in self.inputs],
+            "exactly_one_of": [list(g) for g in self.exclusive],
+            "outputs": [o.as_dict() for o in self.outputs],
+            "references": list(self.references),
+            "constants": list(self.constants),
+            "conventions": dict(self.conventions),
+            "example": self.example,
+        }
+
+
+REGISTRY: dict[str, Calculation] = {}
+
+
+def register(calc: Calculation) -> Calculation:
+    """Add a declaration to the registry (names and paths must be unique)."""
+    if calc.name in REGISTRY:
+        raise ValueError(f"calculation {calc.name!r} is declared twice")
+    if any(c.path == calc.path for c in REGISTRY.values()):
+        raise ValueError(f"path {calc.path!r} is declared twice")
+    names = [i.name for i in calc.inputs]
+    if len(set(names)) != len(names):
+        raise ValueError(f"{calc.name}: duplicate input names")
+    REGISTRY[calc.name] = calc
+    return calc
+
+
+def calculations() -> dict[str, Calculation]:
+    """All declared calculations (importing the declaration modules on first use)."""
+    from . import calculations as _declarations  # noqa: F401  (registers on import)
+    return REGISTRY
+
+
+def get(name: str) -> Calculation:
+    return calculations()[name]
