@@ -68,7 +68,8 @@ class Input:
       ``"quantity"`` a measured number (any form of the wire contract);
       ``"choice"`` one string of ``choices`` (no uncertainty);
       ``"series"`` a list of exact numbers that becomes an extra trailing axis of
-      every output (e.g. the times of an ephemeris).
+      every output (e.g. the times of an ephemeris);
+      ``"integer"`` an exact whole number within ``domain`` (e.g. a count), passed as int.
     ``unit`` is the canonical unit the physics function receives; ``"time"`` inputs
     also take ISO 8601 strings (``time=True``).  ``isotropic`` lets an inclination be
     given as the string ``"isotropic"`` (random orientations, cos i uniform).
@@ -161,6 +162,7 @@ class Calculation:
     conventions: Mapping[str, str] = field(default_factory=dict)
     constraints: tuple[Constraint, ...] = ()
     exclusive: tuple[tuple[str, ...], ...] = ()   # exactly one of each group must be given
+    at_most_one: tuple[tuple[str, ...], ...] = ()  # at most one of each group may be given
     check: Callable[..., Sequence[Warning]] | None = None
     extra: Callable[..., Mapping[str, Any]] | None = None   # extra response members (e.g. events)
     example: Mapping[str, Any] | None = None
@@ -187,6 +189,7 @@ class Calculation:
             "summary": self.summary,
             "inputs": [i.as_dict() for i in self.inputs],
             "exactly_one_of": [list(g) for g in self.exclusive],
+            "at_most_one_of": [list(g) for g in self.at_most_one],
             "outputs": [o.as_dict() for o in self.outputs],
             "references": list(self.references),
             "constants": list(self.constants),
