@@ -146,7 +146,7 @@ class Constraint:
     test: Callable[..., np.ndarray]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Calculation:
     """The single declaration from which a calculation's every surface is derived."""
 

@@ -1,0 +1,35 @@
+"""One POST endpoint per declared calculation, derived from the registry."""
+
+from __future__ import annotations
+
+from flask import Blueprint, current_app, request
+
+from ..registry import calculations
+from .edge import json_body, json_response
+from .problems import Problem
+from .service import compute
+
+bp = Blueprint("calculations", __name__)
+
+
+def _endpoint(name: str):
+    def view():
+        body = json_body()
+        fmt = request.args.get("format", "json")
+        settings = current_app.config["CALCSERVICE_SETTINGS"]
+        if fmt == "json":
+            return json_response(compute(name, body, settings.limits))
+        try:
+            from .render import FORMATS, render
+        except ImportError:
+            FORMATS = ()
+        if fmt not in FORMATS:
+            raise Problem(400, f"format must be one of: {', '.join(('json',) + tuple(FORMATS))}",
+                          {"format": [f"unknown format {fmt[:40]!r}"]})
+        return render(name, body, fmt, settings.limits, request.args)
+    view.__name__ = f"calculate_{name.replace('-', '_')}"
+    return view
+
+
+for _calc in calculations().values():
+    bp.add_url_rule(_calc.path, view_func=_endpoint(_calc.name), methods=["POST"])

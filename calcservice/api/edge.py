@@ -1,0 +1,144 @@
+"""The edge of the house: strict JSON in, JSON or problem+json out, headers on every response."""
+
+from __future__ import annotations
+
+import json
+import logging
+import re
+import time
+import uuid
+
+import numpy as np
+from flask import Flask, Response, current_app, g, request
+from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
+
+from .problems import Problem
+
+log = logging.getLogger("calcservice.access")
+_REQUEST_ID = re.compile(r"^[A-Za-z0-9._\-]{1,64}$")
+
+
+def _reject_constant(name: str):
+    raise ValueError(f"{name} is not allowed: numbers must be finite")
+
+
+def _finite_float(text: str) -> float:
+    x = float(text)
+    if not np.isfinite(x):
+        raise ValueError(f"the number {text[:20]} overflows a double")
+    return x
+
+
+def _depth_exceeds(data: bytes, limit: int) -> bool:
+    """Whether JSON nesting may exceed ``limit``: a fast byte scan (brackets inside strings
+    can only over-count, so a hit is confirmed on the parsed document)."""
+    b = np.frombuffer(data, dtype=np.uint8)
+    step = np.zeros(b.shape, dtype=np.int32)
+    step[(b == 0x5B) | (b == 0x7B)] = 1
+    step[(b == 0x5D) | (b == 0x7D)] = -1
+    return b.size > 0 and int(np.cumsum(step).max(initial=0)) > limit
+
+
+def _true_depth(obj, limit: int) -> int:
+    stack = [(obj, 1)]
+    deepest = 0
+    while stack:
+        o, d = stack.pop()
+        if isinstance(o, (dict, list)):
+            deepest = max(deepest, d)
+            if deepest > limit:
+                return deepest
+            stack.extend((v, d + 1) for v in (o.values() if isinstance(o, dict) else o))
+    return deepest
+
+
+def json_body():
+    """The request body as JSON: 415 unless JSON, 400 unless well-formed, finite and not too deep."""
+    mimetype = request.mimetype or ""
+    if not (mimetype == "application/json" or (mimetype.startswith("application/") and mimetype.endswith("+json"))):
+        raise Problem(415, "send the request body as JSON with Content-Type: application/json")
+    limits = current_app.config["CALCSERVICE_SETTINGS"].limits
+    data = request.get_data(cache=False)
+    if len(data) > limits.max_body_bytes:
+        raise Problem(413, f"the request body is over {limits.max_body_bytes} bytes")
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise Problem(400, f"the request body is not valid UTF-8 (byte {e.start})") from None
+    try:
+        body = json.loads(text, parse_constant=_reject_constant, parse_float=_finite_float)
+    except RecursionError:
+        raise Problem(400, "the JSON body is nested too deeply") from None
+    except ValueError as e:
+        raise Problem(400, f"the request body is not valid JSON: {str(e)[:200]}") from None
+    if _depth_exceeds(data, limits.max_json_depth) and _true_depth(body, limits.max_json_depth) > limits.max_json_depth:
+        raise Problem(400, f"the JSON body is nested deeper than {limits.max_json_depth} levels")
+    return body
+
+
+def _json(obj, status=200, mimetype="application/json") -> Response:
+    return Response(json.dumps(obj, allow_nan=False, separators=(",", ":")), status=status, mimetype=mimetype)
+
+
+def problem_response(p: Problem) -> Response:
+    return _json(p.as_dict(), p.status, "application/problem+json")
+
+
+def install(app: Flask) -> None:
+    """Error handlers, request ids, CORS, security headers and the access log."""
+    settings = app.config["CALCSERVICE_SETTINGS"]
+
+    @app.errorhandler(Problem)
+    def _problem(p: Problem):
+        return problem_response(p)
+
+    @app.errorhandler(RequestEntityTooLarge)
+    def _too_large(e):
+        limit = settings.limits.max_body_bytes
+        return problem_response(Problem(413, f"the request body is over the limit of {limit} bytes"))
+
+    @app.errorhandler(HTTPException)
+    def _http(e: HTTPException):
+        if e.code == 404:
+            p = Problem(404, f"there is nothing at {request.path}; GET /v1/calculations lists the calculations")
+        elif e.code == 405:
+            p = Problem(405, f"{request.method} is not allowed on {request.path}")
+        else:
+            p = Problem(e.code or 500, e.description or "error")
+        r = problem_response(p)
+        if e.code == 405 and hasattr(e, "valid_methods") and e.valid_methods:
+            r.headers["Allow"] = ", ".join(e.valid_methods)
+        return r
+
+    @app.errorhandler(Exception)
+    def _unexpected(e: Exception):
+        logging.getLogger("calcservice").exception("unexpected error (request id %s)", getattr(g, "request_id", "-"))
+        return problem_response(Problem(500, "the service failed on this request; it has been logged with "
+                                             f"request id {getattr(g, 'request_id', '-')}"))
+
+    @app.before_request
+    def _start():
+        g.t0 = time.perf_counter()
+        rid = request.headers.get("X-Request-ID", "")
+        g.request_id = rid if settings.trust_request_id and _REQUEST_ID.match(rid) else uuid.uuid4().hex
+
+    @app.after_request
+    def _headers(response: Response):
+        response.headers["X-Request-ID"] = getattr(g, "request_id", "-")
+        response.headers["X-Content-Type-Options"] = "nosniff"
+        origin = request.headers.get("Origin")
+        if origin and origin in settings.cors_origins:
+            response.headers["Access-Control-Allow-Origin"] = origin
+            response.headers["Vary"] = "Origin"
+            response.headers["Access-Control-Allow-Methods"] = "GET, POST, OPTIONS"
+            response.headers["Access-Control-Allow-Headers"] = "Content-Type, X-Request-ID"
+            response.headers["Access-Control-Expose-Headers"] = "X-Request-ID"
+        if log.isEnabledFor(logging.INFO):
+            ms = (time.perf_counter() - g.get("t0", time.perf_counter())) * 1e3
+            # never the body: method, path, status, size and time only
+            log.info("%s %s %s %d %dB %.1fms", g.get("request_id", "-"), request.method, request.path,
+                     response.status_code, response.calculate_content_length() or 0, ms)
+        return response
+
+
+json_response = _json

@@ -1,0 +1,47 @@
+"""Service metadata: health, constants, the registry of calculations and the OpenAPI spec."""
+
+from __future__ import annotations
+
+from flask import Blueprint, Response
+
+from .. import __version__
+from ..constants import CONSTANTS
+from ..registry import calculations
+from .edge import json_response
+
+bp = Blueprint("meta", __name__)
+
+
+@bp.get("/v1/health")
+def health():
+    return json_response({"status": "ok", "version": __version__})
+
+
+@bp.get("/v1/ready")
+def ready():
+    # ready once the registry is importable and the spec builds: the worker can serve calculations
+    from ..openapi import spec_yaml
+    return json_response({"status": "ready", "version": __version__, "calculations": len(calculations()),
+                          "spec_bytes": len(spec_yaml())})
+
+
+@bp.get("/v1/constants")
+def constants():
+    return json_response({"constants": {k: c.as_dict() for k, c in CONSTANTS.items()}})
+
+
+@bp.get("/v1/calculations")
+def list_calculations():
+    return json_response({"calculations": [c.as_dict() for c in calculations().values()]})
+
+
+@bp.get("/v1/calculations/<name>")
+def one_calculation(name: str):
+    from .service import find
+    return json_response(find(name).as_dict())
+
+
+@bp.get("/openapi.yaml")
+def openapi():
+    from ..openapi import spec_yaml
+    return Response(spec_yaml(), mimetype="application/yaml")

@@ -1,0 +1,42 @@
+"""RFC 9457 problem details: the one error type every layer raises and the edge renders."""
+
+from __future__ import annotations
+
+from typing import Mapping
+
+PROBLEM_TYPES = {
+    400: ("malformed-request", "Malformed request"),
+    404: ("not-found", "Not found"),
+    405: ("method-not-allowed", "Method not allowed"),
+    413: ("too-large", "Request or work too large"),
+    415: ("unsupported-media-type", "Unsupported media type"),
+    422: ("invalid-input", "Invalid input"),
+    500: ("internal-error", "Internal error"),
+}
+
+
+class Problem(Exception):
+    """An error for the caller: HTTP status, detail and per-field messages."""
+
+    def __init__(self, status: int, detail: str, errors: Mapping[str, list[str]] | None = None,
+                 title: str | None = None):
+        super().__init__(detail)
+        self.status = status
+        self.detail = detail
+        self.errors = {k: list(v) for k, v in (errors or {}).items()}
+        self.title = title or PROBLEM_TYPES.get(status, ("error", "Error"))[1]
+
+    def as_dict(self) -> dict:
+        slug = PROBLEM_TYPES.get(self.status, ("error", ""))[0]
+        d = {"type": f"/problems/{slug}", "title": self.title, "status": self.status, "detail": self.detail}
+        if self.errors:
+            d["errors"] = self.errors
+        return d
+
+
+def invalid(errors: Mapping[str, list[str]], detail: str | None = None) -> Problem:
+    """A 422 naming the offending fields."""
+    if detail is None:
+        names = ", ".join(sorted(errors))
+        detail = f"invalid value for {names}" if names else "invalid input"
+    return Problem(422, detail, errors)

@@ -1,0 +1,316 @@
+"""Request schemas, generated from each calculation's declaration (marshmallow).
+
+A schema parses and checks the *form* of a request: numbers, objects of the wire
+contract, units, choices, options.  It returns raw quantities; :mod:`.service` turns
+them into canonical-unit :class:`~calcservice.engine.Measured` arrays.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import Any
+
+import numpy as np
+from marshmallow import RAISE, Schema, ValidationError, fields, validates_schema
+
+from ..config import Limits
+from ..registry import Calculation, Input
+from ..units import UnitError, factor
+
+MEASURED_KEYS = {"value", "sigma", "sigma_minus", "sigma_plus", "samples", "unit"}
+FORM_HINT = ('must be a number, or an object such as {"value": 1.2, "sigma": 0.1}, '
+             '{"value": 1.2, "sigma_minus": 0.1, "sigma_plus": 0.2} or {"samples": [...]}')
+
+
+def number(x: Any, what: str = "value") -> float:
+    """A finite float from a JSON number; booleans, strings and overflowing numbers are refused."""
+    if isinstance(x, bool) or not isinstance(x, (int, float)):
+        raise ValidationError(f"{what} must be a number")
+    try:
+        f = float(x)
+    except OverflowError:
+        raise ValidationError(f"{what} is too large") from None
+    if not math.isfinite(f):
+        raise ValidationError(f"{what} must be finite")
+    return f
+
+
+def number_array(x: Any, what: str, limit: int) -> np.ndarray:
+    if not isinstance(x, list):
+        raise ValidationError(f"{what} must be a list of numbers")
+    if not x:
+        raise ValidationError(f"{what} must not be empty")
+    if len(x) > limit:
+        raise ValidationError(f"{what} has {len(x)} entries; the limit is {limit}")
+    try:
+        arr = np.array(x, dtype=float)
+    except (TypeError, ValueError, OverflowError):
+        arr = None
+    if arr is None or arr.ndim != 1 or any(isinstance(v, bool) for v in x):
+        for v in x:
+            number(v, f"each entry of {what}")
+        raise ValidationError(f"{what} must be a list of numbers")
+    if not np.all(np.isfinite(arr)):
+        raise ValidationError(f"{what} must contain finite numbers only")
+    return arr
+
+
+def _calendar_jd(text: str, limits: Limits) -> float:
+    if len(text) > limits.max_string_length:
+        raise ValidationError("time string is too long")
+    from astropy.time import Time
+    try:
+        return float(Time(text, scale="utc").jd)
+    except Exception:
+        raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
+
+
+@dataclass
+class RawQuantity:
+    """A quantity as the request gave it, before unit conversion (arrays over N systems)."""
+
+    value: np.ndarray
+    sigma_minus: np.ndarray
+    sigma_plus: np.ndarray
+    samples: np.ndarray | None = None
+    isotropic: bool = False
+    unit: str | None = None
+    calendar: bool = False            # a time given as a calendar (ISO) string, already a JD
+
+
+class MeasuredField(fields.Field):
+    """One measured quantity in any form of the wire contract."""
+
+    def __init__(self, spec: Input, limits: Limits, **kw):
+        super().__init__(**kw)
+        self.spec = spec
+        self.limits = limits
+
+    def _deserialize(self, value, attr, data, **kwargs) -> RawQuantity:
+        spec = self.spec
+        one = np.zeros(1)
+        if isinstance(value, (int, float)) and not isinstance(value, bool) and not spec.time:
+            x = number(value)
+            if not spec.domain.contains(np.array([x]))[0]:
+                raise ValidationError(spec.domain.describe() + (f" (in {spec.unit})" if spec.unit else ""))
+            return RawQuantity(np.array([x]), one, one)
+        if isinstance(value, str):
+            if spec.isotropic and value == "isotropic":
+                return RawQuantity(np.array([90.0]), one, one, isotropic=True)
+            if spec.time:
+                return RawQuantity(np.array([_calendar_jd(value, self.limits)]), one, one, calendar=True)
+            raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            return RawQuantity(np.array([number(value)]), one, one)
+        if not isinstance(value, dict):
+            raise ValidationError(FORM_HINT)
+        unknown = set(value) - MEASURED_KEYS
+        if unknown:
+            raise ValidationError(f"unknown key(s) {', '.join(sorted(map(str, unknown)))}; " + FORM_HINT)
+        unit = value.get("unit")
+        if unit is not None and not isinstance(unit, str):
+            raise ValidationError("unit must be a string")
+        if unit is not None and len(unit) > self.limits.max_string_length:
+            raise ValidationError("unit is too long")
+        k = self._factor(unit)
+        if "samples" in value:
+            if set(value) - {"samples", "unit"}:
+                raise ValidationError("samples cannot be combined with value or sigma")
+            s = number_array(value["samples"], "samples", self.limits.max_sample_array)
+            if len(s) < 2:
+                raise ValidationError("samples must hold at least 2 draws")
+            s = s * (1.0 if spec.time else k)
+            med = np.median(s)
+            sd = s.std(ddof=1)
+            return RawQuantity(np.array([med]), np.array([sd]), np.array([sd]), samples=s[None, :], unit=unit)
+        if "value" not in value:
+            raise ValidationError("value is missing; " + FORM_HINT)
+        v = value["value"]
+        calendar = False
+        if isinstance(v, str) and spec.time:
+            x = _calendar_jd(v, self.limits)
+            calendar = True
+        else:
+            x = number(v, "value")
+        if "sigma" in value and ("sigma_minus" in value or "sigma_plus" in value):
+            raise ValidationError("give either sigma or sigma_minus and sigma_plus, not both")
+        if ("sigma_minus" in value) != ("sigma_plus" in value):
+            raise ValidationError("sigma_minus and sigma_plus go together")
+        if "sigma" in value:
+            sm = sp = number(value["sigma"], "sigma")
+        elif "sigma_minus" in value:
+            sm, sp = number(value["sigma_minus"], "sigma_minus"), number(value["sigma_plus"], "sigma_plus")
+        else:
+            sm = sp = 0.0
+        if sm < 0 or sp < 0:
+            raise ValidationError("sigma must be >= 0")
+        if not spec.time:
+            x = x * k
+            if not spec.domain.contains(np.array([x]))[0]:
+                raise ValidationError(spec.domain.describe() + (f" (in {spec.unit})" if spec.unit else ""))
+        return RawQuantity(np.array([x]), np.array([sm * k]), np.array([sp * k]), unit=unit, calendar=calendar)
+
+    def _factor(self, unit: str | None) -> float:
+        if unit is None:
+            return 1.0
+        try:
+            return factor(unit, self.spec.unit)
+        except UnitError as e:
+            raise ValidationError(str(e)) from None
+
+
+class SeriesField(fields.Field):
+    """A list of exact numbers (or, for times, ISO 8601 strings)."""
+
+    def __init__(self, spec: Input, limits: Limits, **kw):
+        super().__init__(**kw)
+        self.spec = spec
+        self.limits = limits
+
+    def _deserialize(self, value, attr, data, **kwargs) -> RawQuantity:
+        if isinstance(value, dict):
+            unknown = set(value) - {"value", "unit"}
+            if unknown or "value" not in value:
+                raise ValidationError('must be a list, or an object {"value": [...], "unit": "..."}')
+            unit, value = value.get("unit"), value["value"]
+            if unit is not None and not isinstance(unit, str):
+                raise ValidationError("unit must be a string")
+        else:
+            unit = None
+        if not isinstance(value, list) or not value:
+            raise ValidationError("must be a non-empty list")
+        if len(value) > self.limits.max_series:
+            raise ValidationError(f"has {len(value)} entries; the limit is {self.limits.max_series}")
+        calendar = np.zeros(len(value), dtype=bool)
+        if self.spec.time and any(isinstance(v, str) for v in value):
+            out = np.empty(len(value))
+            for k, v in enumerate(value):
+                if isinstance(v, str):
+                    out[k] = _calendar_jd(v, self.limits)
+                    calendar[k] = True
+                else:
+                    out[k] = number(v, "each entry")
+        else:
+            out = number_array(value, "the list", self.limits.max_series)
+        if unit is not None:
+            if self.spec.time:
+                raise ValidationError("times take no unit: give Julian Dates, or MJD with time_format")
+            try:
+                out = out * factor(unit, self.spec.unit)
+            except UnitError as e:
+                raise ValidationError(str(e)) from None
+        if not np.all(self.spec.domain.contains(out)):
+            raise ValidationError(self.spec.domain.describe())
+        z = np.zeros(1)
+        raw = RawQuantity(out, z, z, unit=unit)
+        raw.calendar = calendar
+        return raw
+
+
+class ChoiceField(fields.Field):
+    def __init__(self, spec: Input, **kw):
+        super().__init__(**kw)
+        self.spec = spec
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if not isinstance(value, str) or value not in self.spec.choices:
+            raise ValidationError(f"must be one of: {', '.join(self.spec.choices)}")
+        return value
+
+
+class IntegerField(fields.Field):
+    def __init__(self, spec: Input, **kw):
+        super().__init__(**kw)
+        self.spec = spec
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if isinstance(value, bool) or not isinstance(value, int):
+            if isinstance(value, float) and value.is_integer():
+                value = int(value)
+            else:
+                raise ValidationError("must be a whole number")
+        if not self.spec.domain.contains(np.array([float(value)]))[0]:
+            raise ValidationError(self.spec.domain.describe())
+        return int(value)
+
+
+class CorrelationSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    between = fields.List(fields.String(validate=lambda s: len(s) <= 64), required=True)
+    rho = fields.Float(required=True, allow_nan=False)
+
+    @validates_schema
+    def _check(self, data, **kwargs):
+        if len(data["between"]) != 2 or data["between"][0] == data["between"][1]:
+            raise ValidationError("between must name two different inputs", "between")
+        if not -1.0 <= data["rho"] <= 1.0:
+            raise ValidationError("rho must be between -1 and 1", "rho")
+
+
+class UncertaintySchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    method = fields.String(validate=lambda m: m in ("linear", "monte_carlo", "monte-carlo"))
+    samples = fields.Integer(strict=True)
+    seed = fields.Integer(strict=True, validate=lambda s: 0 <= s < 2**63)
+
+
+def _field_for(spec: Input, limits: Limits) -> fields.Field:
+    kw = {"required": spec.required and spec.default is None}
+    if spec.kind == "choice":
+        return ChoiceField(spec, **kw)
+    if spec.kind == "integer":
+        return IntegerField(spec, **kw)
+    if spec.kind == "series":
+        return SeriesField(spec, limits, **kw)
+    return MeasuredField(spec, limits, **kw)
+
+
+class RequestSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+
+@lru_cache(maxsize=None)
+def request_schema(calc: Calculation, limits: Limits) -> Schema:
+    """The marshmallow schema of one calculation's request body (built once)."""
+    members: dict[str, fields.Field] = {spec.name: _field_for(spec, limits) for spec in calc.inputs}
+    members["correlations"] = fields.List(fields.Nested(CorrelationSchema))
+    members["uncertainty"] = fields.Nested(UncertaintySchema)
+    members["units"] = fields.Dict(keys=fields.String(validate=lambda s: len(s) <= 64),
+                                   values=fields.String(validate=lambda s: len(s) <= limits.max_string_length))
+    if any(spec.time for spec in calc.inputs):
+        members["time_format"] = fields.String(validate=lambda s: s in ("jd", "mjd"))
+    schema_class = RequestSchema.from_dict(members, name=f"{calc.name}_request")
+    return schema_class()
+
+
+def error_messages(err: ValidationError) -> dict[str, list[str]]:
+    """marshmallow's nested messages flattened to {"field": ["message", ...]}."""
+    out: dict[str, list[str]] = {}
+
+    def walk(prefix: str, msg):
+        if isinstance(msg, dict):
+            for k, v in msg.items():
+                key = f"{prefix}.{k}" if prefix else str(k)
+                if k == "_schema":
+                    key = prefix or "_schema"
+                walk(key, v)
+        elif isinstance(msg, list):
+            for m in msg:
+                if isinstance(m, (dict, list)):
+                    walk(prefix, m)
+                else:
+                    out.setdefault(prefix or "_schema", []).append(str(m))
+        else:
+            out.setdefault(prefix or "_schema", []).append(str(msg))
+
+    walk("", err.messages)
+    return {k: [m.replace("Unknown field.", "unknown field").replace("Missing data for required field.",
+                                                                      "is required") for m in v]
+            for k, v in out.items()}

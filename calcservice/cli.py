@@ -1,0 +1,45 @@
+"""The ``calcservice`` command: ``serve`` runs the HTTP service, ``compute`` calculates in-process."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+
+def _serve(args) -> int:
+    from .server import serve
+    serve(args.host, args.port, args.workers, args.timeout)
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from . import __version__
+    p = argparse.ArgumentParser(prog="calcservice", description="Binary-star orbital elements to physical "
+                                "numbers with honest uncertainties.")
+    p.add_argument("--version", action="version", version=f"calcservice {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    s = sub.add_parser("serve", help="run the HTTP service under gunicorn (embedded defaults)")
+    s.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
+    s.add_argument("--port", type=int, default=8000, help="port (default 8000)")
+    s.add_argument("--workers", type=int, default=None, help="worker processes (default: max(2, CPUs))")
+    s.add_argument("--timeout", type=int, default=None, help="seconds before a stuck worker is replaced (default 60)")
+    s.set_defaults(func=_serve)
+    try:
+        from .commandline import add_compute
+        add_compute(sub)
+    except ImportError:
+        pass
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    return args.func(args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,58 @@
+"""Configuration in one place: embedded safe defaults, overridable by environment variables.
+
+Every limit is read from ``CALCSERVICE_<NAME>`` (e.g. ``CALCSERVICE_MAX_BODY_BYTES``) when set,
+or from the ``config`` mapping given to :func:`calcservice.create_app`.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, fields, replace
+from typing import Mapping
+
+
+@dataclass(frozen=True)
+class Limits:
+    max_body_bytes: int = 16 * 1024 * 1024      # request body (413 beyond)
+    max_samples: int = 1_000_000                 # Monte Carlo draws per request
+    default_samples: int = 10_000                # Monte Carlo draws when the request does not say
+    max_sample_array: int = 1_000_000            # length of a user's samples array
+    max_series: int = 100_000                    # e.g. ephemeris times per request
+    max_batch_rows: int = 100_000                # systems in one batch
+    max_batch_draws: int = 20_000_000            # systems x draws in one batch
+    max_json_depth: int = 32                     # nesting of the JSON body
+    max_string_length: int = 256                 # any string value (units, times, choices)
+
+
+@dataclass(frozen=True)
+class Settings:
+    limits: Limits = Limits()
+    cors_origins: tuple[str, ...] = ()           # allowed browser origins (default: none)
+    trust_request_id: bool = True                # echo a caller's X-Request-ID when it looks sane
+
+
+def _coerce(kind, text: str):
+    if kind is int:
+        return int(text)
+    if kind is bool:
+        return text.strip().lower() in ("1", "true", "yes", "on")
+    return text
+
+
+def load_settings(config: Mapping | None = None, environ: Mapping[str, str] | None = None) -> Settings:
+    """Defaults, then ``CALCSERVICE_*`` environment variables, then the explicit ``config`` mapping."""
+    environ = os.environ if environ is None else environ
+    config = dict(config or {})
+    values = {}
+    for f in fields(Limits):
+        key = f"CALCSERVICE_{f.name.upper()}"
+        if key in environ:
+            values[f.name] = _coerce(int, environ[key])
+        if f.name.upper() in config:
+            values[f.name] = int(config[f.name.upper()])
+    limits = replace(Limits(), **values)
+    origins = environ.get("CALCSERVICE_CORS_ORIGINS", "")
+    origins = config.get("CORS_ORIGINS", origins)
+    if isinstance(origins, str):
+        origins = tuple(o.strip() for o in origins.split(",") if o.strip())
+    return Settings(limits=limits, cors_origins=tuple(origins))

@@ -1,0 +1,202 @@
+"""The OpenAPI 3.1 document, generated from the registry (openapi.yaml in the repository is its dump)."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import yaml
+
+from . import __version__
+from .registry import Calculation, Input, calculations
+
+NUMBER = {"type": "number"}
+
+
+def _quantity_schema(spec: Input) -> dict:
+    bounds = spec.domain.as_dict()
+    value = {"type": "number", **bounds}
+    if spec.time:
+        value = {"oneOf": [{"type": "number"}, {"type": "string", "description": "ISO 8601 time (UTC)"}]}
+    unit = {"type": "string", "description": f"astropy unit string; default {spec.unit or 'dimensionless'}"}
+    forms = [
+        value,
+        {"type": "object", "additionalProperties": False, "required": ["value"],
+         "properties": {"value": value, "sigma": {"type": "number", "minimum": 0}, "unit": unit}},
+        {"type": "object", "additionalProperties": False, "required": ["value", "sigma_minus", "sigma_plus"],
+         "properties": {"value": value, "sigma_minus": {"type": "number", "minimum": 0},
+                        "sigma_plus": {"type": "number", "minimum": 0}, "unit": unit}},
+        {"type": "object", "additionalProperties": False, "required": ["samples"],
+         "properties": {"samples": {"type": "array", "items": NUMBER, "minItems": 2}, "unit": unit}},
+    ]
+    if spec.isotropic:
+        forms.append({"type": "string", "enum": ["isotropic"]})
+    return {"description": f"{spec.description} [{spec.unit or 'dimensionless'}]; {spec.domain.describe()}",
+            "oneOf": forms}
+
+
+def _input_schema(spec: Input) -> dict:
+    if spec.kind == "choice":
+        d = {"type": "string", "enum": list(spec.choices), "description": spec.description}
+    elif spec.kind == "integer":
+        d = {"type": "integer", "description": spec.description, **spec.domain.as_dict()}
+    elif spec.kind == "series":
+        item = {"oneOf": [NUMBER, {"type": "string"}]} if spec.time else NUMBER
+        d = {"type": "array", "items": item, "minItems": 1,
+             "description": f"{spec.description} [{spec.unit or 'dimensionless'}]"}
+    else:
+        d = _quantity_schema(spec)
+    if spec.default is not None:
+        d["default"] = spec.default
+    return d
+
+
+def request_schema(calc: Calculation) -> dict:
+    props = {spec.name: _input_schema(spec) for spec in calc.inputs}
+    props["correlations"] = {"$ref": "#/components/schemas/Correlations"}
+    props["uncertainty"] = {"$ref": "#/components/schemas/UncertaintyOptions"}
+    props["units"] = {"type": "object", "additionalProperties": {"type": "string"},
+                      "description": "output name -> astropy unit for the response",
+                      "propertyNames": {"enum": [o.name for o in calc.outputs]}}
+    if any(spec.time for spec in calc.inputs):
+        props["time_format"] = {"type": "string", "enum": ["jd", "mjd"], "default": "jd"}
+    required = [s.name for s in calc.inputs if s.required and s.default is None]
+    d = {"type": "object", "additionalProperties": False, "properties": props}
+    if required:
+        d["required"] = required
+    if calc.example:
+        d["example"] = calc.example
+    return d
+
+
+def _result_schema(calc: Calculation) -> dict:
+    props = {o.name: {"$ref": "#/components/schemas/MeasuredResult", "description": f"{o.description} [{o.unit}]"}
+             for o in calc.outputs}
+    if any(s.kind == "series" for s in calc.inputs):
+        props["series"] = {"type": "object", "additionalProperties": {"$ref": "#/components/schemas/SeriesResult"}}
+    return {"type": "object", "properties": props, "additionalProperties": True}
+
+
+def _response_schema(calc: Calculation) -> dict:
+    return {"type": "object", "required": ["calculation", "results", "uncertainty", "inputs", "warnings", "provenance"],
+            "properties": {
+                "calculation": {"type": "string", "enum": [calc.name]},
+                "results": _result_schema(calc),
+                "uncertainty": {"$ref": "#/components/schemas/UncertaintyReport"},
+                "inputs": {"type": "object"},
+                "warnings": {"type": "array", "items": {"$ref": "#/components/schemas/Warning"}},
+                "provenance": {"$ref": "#/components/schemas/Provenance"},
+            }}
+
+
+def _problem_responses(*codes: int) -> dict:
+    text = {400: "malformed JSON", 404: "unknown path", 405: "wrong method", 413: "body or work over the limits",
+            415: "not JSON", 422: "values that parse but are not physical or are inconsistent"}
+    return {str(c): {"description": text[c], "content": {"application/problem+json": {
+        "schema": {"$ref": "#/components/schemas/Problem"}}}} for c in codes}
+
+
+COMPONENTS = {
+    "MeasuredResult": {"type": "object", "required": ["value", "unit"], "properties": {
+        "value": {"type": ["number", "null"]}, "sigma": {"type": ["number", "null"]},
+        "low": {"type": ["number", "null"]}, "high": {"type": ["number", "null"]}, "unit": {"type": "string"}}},
+    "SeriesResult": {"type": "object", "required": ["value", "unit"], "properties": {
+        "value": {"type": "array", "items": {"type": ["number", "null"]}},
+        "sigma": {"type": "array", "items": {"type": ["number", "null"]}},
+        "low": {"type": "array", "items": {"type": ["number", "null"]}},
+        "high": {"type": "array", "items": {"type": ["number", "null"]}},
+        "unit": {"type": "string"}}},
+    "Correlations": {"type": "array", "items": {"type": "object", "additionalProperties": False,
+                                                "required": ["between", "rho"], "properties": {
+        "between": {"type": "array", "items": {"type": "string"}, "minItems": 2, "maxItems": 2},
+        "rho": {"type": "number", "minimum": -1, "maximum": 1}}}},
+    "UncertaintyOptions": {"type": "object", "additionalProperties": False, "properties": {
+        "method": {"type": "string", "enum": ["linear", "monte_carlo", "monte-carlo"], "default": "linear"},
+        "samples": {"type": "integer", "minimum": 1},
+        "seed": {"type": "integer", "minimum": 0}}},
+    "UncertaintyReport": {"type": "object", "required": ["method"], "properties": {
+        "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
+        "samples": {"type": "integer"}, "seed": {"type": "integer"},
+        "rejected_fraction": {"type": "number", "minimum": 0, "maximum": 1}}},
+    "Warning": {"type": "object", "required": ["code", "message"], "properties": {
+        "code": {"type": "string"}, "message": {"type": "string"}}},
+    "Provenance": {"type": "object", "required": ["version", "constants", "references", "conventions"],
+                   "properties": {"version": {"type": "string"}, "calculation": {"type": "string"},
+                                  "formulas": {"type": "object"}, "constants": {"type": "object"},
+                                  "references": {"type": "array", "items": {"type": "string"}},
+                                  "conventions": {"type": "object"}}},
+    "Problem": {"type": "object", "required": ["type", "title", "status", "detail"], "properties": {
+        "type": {"type": "string"}, "title": {"type": "string"}, "status": {"type": "integer"},
+        "detail": {"type": "string"},
+        "errors": {"type": "object", "additionalProperties": {"type": "array", "items": {"type": "string"}}}}},
+}
+
+
+def _get(summary: str, schema: dict | None = None, content_type: str = "application/json") -> dict:
+    return {"get": {"summary": summary, "responses": {
+        "200": {"description": summary, "content": {content_type: {"schema": schema or {"type": "object"}}}},
+        **_problem_responses(404)}}}
+
+
+EXTRA_PATH_BUILDERS = []   # callables (spec dict) -> None, for blueprints that add paths (e.g. batch)
+
+
+def build_spec() -> dict:
+    paths: dict[str, dict] = {
+        "/v1/health": _get("liveness: the worker answers", {"type": "object", "required": ["status", "version"],
+                                                             "properties": {"status": {"type": "string"},
+                                                                            "version": {"type": "string"}}}),
+        "/v1/ready": _get("readiness: the registry and spec load"),
+        "/v1/constants": _get("every constant with value, unit and source"),
+        "/v1/calculations": _get("every calculation: inputs, units, domains, outputs, references"),
+        "/v1/calculations/{name}": {"get": {
+            "summary": "one calculation's declaration",
+            "parameters": [{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}],
+            "responses": {"200": {"description": "the declaration",
+                                  "content": {"application/json": {"schema": {"type": "object"}}}},
+                          **_problem_responses(404)}}},
+        "/openapi.yaml": _get("this document", {"type": "string"}, "application/yaml"),
+    }
+    schemas = dict(COMPONENTS)
+    for calc in calculations().values():
+        key = calc.name.replace("-", "_")
+        schemas[f"{key}_request"] = request_schema(calc)
+        schemas[f"{key}_response"] = _response_schema(calc)
+        paths[calc.path] = {"post": {
+            "operationId": f"calculate_{key}",
+            "summary": calc.title,
+            "description": calc.summary,
+            "parameters": [{"name": "format", "in": "query", "required": False,
+                            "schema": {"type": "string", "enum": ["json"], "default": "json"}}],
+            "requestBody": {"required": True, "content": {"application/json": {
+                "schema": {"$ref": f"#/components/schemas/{key}_request"}}}},
+            "responses": {"200": {"description": "the derived quantities with uncertainties and provenance",
+                                  "content": {"application/json": {
+                                      "schema": {"$ref": f"#/components/schemas/{key}_response"}}}},
+                          **_problem_responses(400, 413, 415, 422)},
+        }}
+    spec = {
+        "openapi": "3.1.0",
+        "info": {"title": "calcservice", "version": __version__,
+                 "description": "Binary-star orbital elements to physical numbers with propagated uncertainties. "
+                                "Conventions: radial velocity positive when receding; omega is the primary's "
+                                "argument of periastron; q = M2/M1 = K1/K2; times are Julian Dates."},
+        "paths": paths,
+        "components": {"schemas": schemas},
+    }
+    for builder in EXTRA_PATH_BUILDERS:
+        builder(spec)
+    return spec
+
+
+@lru_cache(maxsize=1)
+def spec_yaml() -> str:
+    return yaml.safe_dump(build_spec(), sort_keys=False, allow_unicode=True, width=110)
+
+
+def main() -> None:
+    """Write the spec to the repository's openapi.yaml: ``python -m calcservice.openapi > openapi.yaml``."""
+    print(spec_yaml(), end="")
+
+
+if __name__ == "__main__":
+    main()
