@@ -219,7 +219,11 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
         cols = np.repeat(x[:, None], p, axis=1)
         if name in perturbed:
             j = perturbed.index(name)
-            scale = np.maximum(np.abs(x), np.broadcast_to(q.sigma, (n,)))
+            if calc.input(name).time:
+                # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it varies
+                scale = np.maximum(np.broadcast_to(q.sigma, (n,)), 1.0)
+            else:
+                scale = np.maximum(np.abs(x), np.broadcast_to(q.sigma, (n,)))
             h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
             steps[name] = h
             sl = slice(1 + 4 * j, 5 + 4 * j)
