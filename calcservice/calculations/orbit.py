@@ -1,0 +1,382 @@
+"""Declarations: orbit ephemerides (series and dates of events) and orbit geometry (sizes, speeds, Roche lobes)."""
+
+from __future__ import annotations
+
+import warnings as _warnings
+from functools import lru_cache
+
+import numpy as np
+
+from ..physics import orbit as phys
+from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
+from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, period
+
+EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
+MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
+HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, Reidel, ch. 4"
+MURRAY_DERMOTT_1999 = "C. D. Murray & S. F. Dermott (1999), Solar System Dynamics, Cambridge University Press, ch. 2"
+ASTROPY_TIME = "Astropy Collaboration (2022), ApJ 935, 167: astropy.time for calendar dates and leap seconds"
+
+#: The most events of each kind one request may ask for.
+MAX_EVENT_COUNT = 100
+
+EVENT_LISTS = {
+    "periastron": ("periastron",),
+    "apastron": ("apastron",),
+    "conjunctions": ("conjunction_star2_in_front", "conjunction_star1_in_front"),
+    "rv_extrema": ("rv1_maximum", "rv1_minimum"),
+}
+EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega")
+
+ORBIT_CONVENTIONS = {
+    **CONVENTIONS,
+    "phase": "orbital phase (t - t_periastron)/period mod 1, zero at periastron",
+    "position_angle": "of star 2 relative to star 1, from north through east; node is the position angle of the "
+                      "ascending node, where star 2 recedes from the observer; the relative orbit has omega + 180 deg",
+    "events": "the first `count` events of each kind at or after `after` (default: the earliest of `times`), in time "
+              "order; conjunctions and rv_extrema list `count` of each of their two kinds; an event's sigma is the "
+              "linear propagation of the uncertainties of t_periastron, period (with their correlation), "
+              "eccentricity and omega, through the cycles elapsed since t_periastron",
+    "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
+           "for leap seconds",
+}
+
+
+# --------------------------------------------------------------------------- time helpers
+@lru_cache(maxsize=1)
+def leap_second_span() -> tuple[float, float]:
+    """JDs between which leap seconds are known: the start of UTC (1960) to the expiry of astropy's table."""
+    from astropy.time import Time
+    from astropy.utils import iers
+    table = iers.LeapSeconds.open(iers.IERS_LEAP_SECOND_FILE)
+    return float(Time("1960-01-01", scale="utc").jd), float(Time(table.expires, scale="utc").jd)
+
+
+def iso_dates(jd: np.ndarray) -> np.ndarray:
+    """ISO 8601 strings of Julian Dates (None where not finite), by astropy.time."""
+    from astropy.time import Time
+    jd = np.asarray(jd, dtype=float)
+    out = np.full(jd.shape, None, dtype=object)
+    # astropy.time calendar dates run from year -4712 to 9999 in ISO form
+    ok = np.isfinite(jd) & (jd > 0.0) & (jd < 5373484.5)
+    if np.any(ok):
+        with _warnings.catch_warnings():
+            # dates without known leap seconds get our own warning (see _ephemeris_check)
+            _warnings.simplefilter("ignore")
+            out[ok] = Time(jd[ok], format="jd", scale="utc", precision=0).isot
+    return out
+
+
+def _outside_leap_seconds(jd: np.ndarray) -> np.ndarray:
+    lo, hi = leap_second_span()
+    jd = np.asarray(jd, dtype=float)
+    return np.isfinite(jd) & ((jd < lo) | (jd > hi))
+
+
+# --------------------------------------------------------------------------- ephemeris
+def _value(quantities, name):
+    q = quantities.get(name)
+    return None if q is None else np.asarray(q.value, dtype=float)
+
+
+def _after(quantities, statics, n):
+    after = quantities.get("after")
+    if after is not None:
+        return np.broadcast_to(np.asarray(after.value, dtype=float), (n,))
+    if statics.get("after") is not None:
+        return np.broadcast_to(np.asarray(statics["after"], dtype=float), (n,))
+    times = statics.get("times")
+    return np.full(n, float(np.min(times)) if times is not None and len(times) else np.nan)
+
+
+def _element_covariance(quantities, correlations, n) -> np.ndarray:
+    """Covariance (N, 4, 4) of t_periastron, period, eccentricity, omega.
+
+    Sigmas with the request's correlations; inputs given as samples bring their own sample
+    covariance with each other (paired draws keep, e.g., the P-T0 correlation of a fit).
+    """
+    k = len(EVENT_ELEMENTS)
+    cov = np.zeros((n, k, k))
+    sig = [np.broadcast_to(quantities[name].sigma, (n,)) if name in quantities else np.zeros(n)
+           for name in EVENT_ELEMENTS]
+    dev = {}
+    for name in EVENT_ELEMENTS:
+        q = quantities.get(name)
+        if q is not None and q.samples is not None:
+            s = np.broadcast_to(q.samples, (n, q.samples.shape[-1]))
+            dev[name] = s - s.mean(axis=1, keepdims=True)
+    for i, a in enumerate(EVENT_ELEMENTS):
+        for j, b in enumerate(EVENT_ELEMENTS):
+            if i == j:
+                cov[:, i, i] = sig[i] ** 2
+            elif a in dev and b in dev and dev[a].shape == dev[b].shape:
+                cov[:, i, j] = (dev[a] * dev[b]).sum(axis=1) / max(dev[a].shape[1] - 1, 1)
+            else:
+                rho = correlations.get((a, b), correlations.get((b, a), 0.0))
+                cov[:, i, j] = rho * sig[i] * sig[j]
+    return cov
+
+
+def _event_entries(jd, sigma, cycle, extra_fields=None):
+    iso = iso_dates(jd)
+    entries = []
+    for k in range(len(jd)):
+        if not np.isfinite(jd[k]):
+            continue
+        e = {"value": float(jd[k]), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
+             "iso": iso[k], "cycle": float(cycle[k])}
+        if extra_fields:
+            e.update({key: v[k] for key, v in extra_fields.items()})
+        entries.append(e)
+    return entries
+
+
+def ephemeris_events(quantities, statics, options) -> list[dict]:
+    """The ``events`` member per system: dates of periastron, apastron, conjunctions and RV extrema with sigmas."""
+    names = ("period", "t_periastron", "eccentricity", "omega")
+    n = max(len(np.atleast_1d(quantities[k].value)) for k in names if k in quantities)
+    p, t0, e, w = (np.broadcast_to(_value(quantities, k), (n,)) for k in names)
+    count = int(statics.get("count") or 3)
+    after = _after(quantities, statics, n)
+    cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
+    k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
+
+    per_system: list[dict] = [{"events": {}} for _ in range(n)]
+    kinds_all: dict[str, list] = {}
+    with np.errstate(all="ignore"):
+        for list_name, kinds in EVENT_LISTS.items():
+            parts = []
+            for kind in kinds:
+                ev = phys.event_times(kind, p, t0, e, w, after, count)
+                sigma = phys.event_sigma(ev, cov, EVENT_ELEMENTS)
+                parts.append((kind, ev, sigma))
+            kinds_all[list_name] = parts
+        extrema = kinds_all["rv_extrema"]
+        separations = {}
+        if k2 is not None:
+            for kind, ev, _s in extrema:
+                vs = phys.velocity_separation(e, w, np.broadcast_to(k1, (n,)), np.broadcast_to(k2, (n,)), kind)
+                separations[kind] = np.broadcast_to(vs[:, None], ev["time"].shape)
+    for i in range(n):
+        events = per_system[i]["events"]
+        for list_name, parts in kinds_all.items():
+            rows = []
+            for kind, ev, sigma in parts:
+                fields = {"kind": np.full(count, kind, dtype=object)} if len(parts) > 1 else None
+                rows.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields))
+            rows.sort(key=lambda r: r["value"])
+            events[list_name] = rows
+        # the lines of an SB2 are split most at the radial-velocity extrema: both are listed, with |v1 - v2|
+        mvs = []
+        for kind, ev, sigma in extrema:
+            fields = {"kind": np.full(count, kind, dtype=object)}
+            if kind in separations:
+                fields["velocity_separation"] = [float(x) for x in separations[kind][i]]
+            mvs.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields))
+        mvs.sort(key=lambda r: r["value"])
+        events["max_velocity_separation"] = mvs
+        events["unit"] = "d"
+    return per_system
+
+
+def _ephemeris_check(inputs, outputs):
+    out = []
+    times = inputs.get("times")
+    p, t0 = inputs.get("period"), inputs.get("t_periastron")
+    if p is None or t0 is None:
+        return out
+    n = np.size(p)
+    count = int(inputs.get("count") or 3)
+    after = inputs.get("after")
+    if after is None:
+        after = np.full(n, float(np.min(times)) if times is not None and len(times) else np.nan)
+    after = np.broadcast_to(np.asarray(after, dtype=float), (n,))
+    # the last event listed is at most count + 1 periods after `after`
+    dates = [after, after + (count + 1) * np.asarray(p, dtype=float)]
+    bad = np.zeros(n, dtype=bool)
+    for d in dates:
+        bad |= _outside_leap_seconds(d)
+    if times is not None and np.any(_outside_leap_seconds(times)):
+        bad |= True
+    if np.any(bad):
+        lo, hi = leap_second_span()
+        from astropy.time import Time
+        span = f"{Time(lo, format='jd', scale='utc').iso[:10]} to {Time(hi, format='jd', scale='utc').iso[:10]}"
+        out.append(Warning("leap_seconds_unknown",
+                           f"some times or event dates lie outside {span}, where UTC leap seconds are not known; "
+                           "their ISO dates (as UTC) may be off by the leap seconds yet to be announced",
+                           bad))
+    return out
+
+
+def _ephemeris_consistent_masses(m1=None, m2=None, **_):
+    return np.asarray((m1 is None) == (m2 is None))
+
+
+def _ephemeris_visual_needs_inclination(angular_semimajor_axis=None, node=None, inclination=None, **_):
+    return np.asarray(inclination is not None or (angular_semimajor_axis is None and node is None))
+
+
+register(Calculation(
+    name="ephemeris",
+    path="/v1/orbit/ephemeris",
+    title="Orbit ephemeris",
+    summary="Phase, anomalies, separation and radial velocities of both stars at given times, the position on the "
+            "sky when visual elements are given, and the dates of the next periastron passages, apastrons, "
+            "conjunctions and radial-velocity extrema, each with its propagated uncertainty.",
+    inputs=(
+        period(example=2037.4),
+        eccentricity(example=0.873),
+        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=243.6),
+        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
+              example=2458712.3),
+        Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", POSITIVE, example=61.2),
+        Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", POSITIVE, required=False, example=142.8),
+        Input("gamma", "km/s", "systemic velocity", ANY, required=False, default=0.0, example=-7.4),
+        Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", ANY, kind="series",
+              time=True, example=[2460400.5, 2460500.5, 2460600.5]),
+        Input("angular_semimajor_axis", "mas", "angular semi-major axis of the relative visual orbit", POSITIVE,
+              required=False, example=11.8),
+        Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, required=False,
+              example=58.0),
+        Input("node", "deg", "position angle of the ascending node", ANGLE, required=False, example=112.0),
+        Input("m1", "solMass", "mass of star 1 (with m2, for the physical separation)", POSITIVE, required=False,
+              example=31.0),
+        Input("m2", "solMass", "mass of star 2 (with m1, for the physical separation)", POSITIVE, required=False,
+              example=13.3),
+        Input("semimajor_axis", "au", "relative semi-major axis (for the physical separation)", POSITIVE,
+              required=False, example=16.4),
+        Input("after", "d", "list events at or after this time (default: the earliest of times)", ANY,
+              required=False, time=True, example=2460400.5),
+        Input("count", "", "how many events of each kind to list", Domain(1, MAX_EVENT_COUNT), default=3,
+              kind="integer", example=3),
+    ),
+    outputs=(
+        Output("phase", "", "orbital phase since periastron", "phi = (t - T0)/P mod 1", period=1.0),
+        Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi (t - T0)/P", period=360.0),
+        Output("true_anomaly", "deg", "true anomaly", "tan(nu/2) = sqrt((1 + e)/(1 - e)) tan(E/2), "
+               "E - e sin E = M", period=360.0),
+        Output("separation", "", "separation of the stars in units of the semi-major axis",
+               "r/a = 1 - e cos E = (1 - e^2)/(1 + e cos nu)"),
+        Output("rv1", "km/s", "radial velocity of star 1", "v1 = gamma + K1 [cos(nu + omega) + e cos omega]"),
+        Output("rv2", "km/s", "radial velocity of star 2", "v2 = gamma - K2 [cos(nu + omega) + e cos omega]"),
+        Output("separation_au", "au", "separation of the stars",
+               "r = a (1 - e cos E), a given or a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+        Output("projected_separation", "mas", "angular separation of the stars on the sky",
+               "rho = a'' (r/a) sqrt(cos^2 u + sin^2 u cos^2 i), u = nu + omega + 180 deg"),
+        Output("position_angle", "deg", "position angle of star 2 relative to star 1",
+               "tan(theta - Omega) = tan u cos i, u = nu + omega + 180 deg", period=360.0),
+    ),
+    function=phys.ephemeris,
+    references=(MIKKOLA_1987, MURRAY_DERMOTT_1999, HILDITCH_2001, HEINTZ_1978, ASTROPY_TIME, IAU_2015_B3,
+                IAU_2012_B2),
+    constants=("GM_sun", "au", "day"),
+    conventions=ORBIT_CONVENTIONS,
+    constraints=(
+        Constraint(("m1", "m2"), "m1 and m2 go together (both give the physical separation)",
+                   _ephemeris_consistent_masses),
+        Constraint(("inclination",), "angular_semimajor_axis and node need an inclination",
+                   _ephemeris_visual_needs_inclination),
+    ),
+    at_most_one=(("semimajor_axis", "m1"), ("semimajor_axis", "m2")),
+    check=_ephemeris_check,
+    extra=ephemeris_events,
+    example={"period": {"value": 2037.4, "sigma": 1.2}, "eccentricity": {"value": 0.873, "sigma": 0.004},
+             "omega": {"value": 243.6, "sigma": 1.5}, "t_periastron": {"value": 2458712.3, "sigma": 0.8},
+             "k1": {"value": 61.2, "sigma": 1.1}, "k2": {"value": 142.8, "sigma": 3.0}, "gamma": -7.4,
+             "times": [2460400.5, 2460500.5, 2460600.5, 2460700.5, 2460750.5], "count": 2,
+             "correlations": [{"between": ["period", "t_periastron"], "rho": -0.4}]},
+))
+
+
+# --------------------------------------------------------------------------- geometry
+def _geometry_check(inputs, outputs):
+    out = []
+    for star in ("1", "2"):
+        fill = outputs.get("fill_factor" + star)
+        if fill is not None and np.any(fill > 1.0):
+            out.append(Warning(f"roche_lobe_overflow{star}",
+                               f"star {star} is larger than its Roche lobe at periastron (fill factor > 1): "
+                               "mass transfer is expected there, and the point-mass orbit is only approximate",
+                               np.broadcast_to(fill > 1.0, np.shape(fill))))
+    r1, r2, peri = inputs.get("radius1"), inputs.get("radius2"), outputs.get("periastron_distance")
+    if r1 is not None and r2 is not None and peri is not None:
+        touching = (np.asarray(r1) + np.asarray(r2)) >= peri * phys.AU_IN_SOLAR_RADII
+        if np.any(touching):
+            out.append(Warning("stars_touch_at_periastron",
+                               "radius1 + radius2 reaches the periastron distance: the stars would touch",
+                               np.broadcast_to(touching, np.shape(peri))))
+    return out
+
+
+def _geometry_m1_needs_partner(m1=None, m2=None, mass_ratio=None, **_):
+    return np.asarray(m1 is None or m2 is not None or mass_ratio is not None)
+
+
+def _geometry_radii_need_masses(m1=None, semimajor_axis=None, mass_ratio=None, radius1=None, radius2=None, **_):
+    splittable = m1 is not None or (semimajor_axis is not None and mass_ratio is not None)
+    return np.asarray(splittable or (radius1 is None and radius2 is None))
+
+
+register(Calculation(
+    name="geometry",
+    path="/v1/orbit/geometry",
+    title="Orbit geometry",
+    summary="Semi-major axis from Kepler's third law (or the total mass from a), periastron and apastron distances, "
+            "relative orbital speeds there, Roche-lobe radii of both stars at periastron and apastron (Eggleton "
+            "1983) and the stars' Roche-lobe fill factors.",
+    inputs=(
+        period(example=118.3),
+        eccentricity(example=0.62),
+        Input("m1", "solMass", "mass of star 1", POSITIVE, required=False, example=8.4),
+        Input("m2", "solMass", "mass of star 2", POSITIVE, required=False, example=5.1),
+        Input("semimajor_axis", "au", "relative semi-major axis (instead of m1 and m2)", POSITIVE, required=False,
+              example=1.6),
+        Input("mass_ratio", "", "q = M2/M1 (with semimajor_axis or m1, instead of m2)", POSITIVE, required=False,
+              example=0.6),
+        Input("radius1", "solRad", "radius of star 1", POSITIVE, required=False, example=4.3),
+        Input("radius2", "solRad", "radius of star 2", POSITIVE, required=False, example=2.9),
+    ),
+    outputs=(
+        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+        Output("total_mass", "solMass", "total mass", "M1 + M2 = 4 pi^2 a^3 / (G P^2)"),
+        Output("m1", "solMass", "mass of star 1", "M1 = (M1 + M2)/(1 + q)"),
+        Output("m2", "solMass", "mass of star 2", "M2 = q M1"),
+        Output("mass_ratio", "", "mass ratio q = M2/M1", "q = M2 / M1"),
+        Output("periastron_distance", "au", "separation at periastron", "a (1 - e)"),
+        Output("apastron_distance", "au", "separation at apastron", "a (1 + e)"),
+        Output("speed_periastron", "km/s", "relative orbital speed at periastron",
+               "v^2 = G (M1 + M2) (2/r - 1/a), r = a (1 - e)"),
+        Output("speed_apastron", "km/s", "relative orbital speed at apastron",
+               "v^2 = G (M1 + M2) (2/r - 1/a), r = a (1 + e)"),
+        Output("roche_lobe1", "solRad", "Roche-lobe radius of star 1 at periastron",
+               "r_L = a (1 - e) 0.49 q1^{2/3} / (0.6 q1^{2/3} + ln(1 + q1^{1/3})), q1 = M1/M2"),
+        Output("roche_lobe2", "solRad", "Roche-lobe radius of star 2 at periastron",
+               "r_L = a (1 - e) 0.49 q2^{2/3} / (0.6 q2^{2/3} + ln(1 + q2^{1/3})), q2 = M2/M1"),
+        Output("roche_lobe1_apastron", "solRad", "Roche-lobe radius of star 1 at apastron",
+               "r_L = a (1 + e) 0.49 q1^{2/3} / (0.6 q1^{2/3} + ln(1 + q1^{1/3})), q1 = M1/M2"),
+        Output("roche_lobe2_apastron", "solRad", "Roche-lobe radius of star 2 at apastron",
+               "r_L = a (1 + e) 0.49 q2^{2/3} / (0.6 q2^{2/3} + ln(1 + q2^{1/3})), q2 = M2/M1"),
+        Output("fill_factor1", "", "radius of star 1 over its Roche lobe at periastron", "R1 / r_L1"),
+        Output("fill_factor2", "", "radius of star 2 over its Roche lobe at periastron", "R2 / r_L2"),
+    ),
+    function=phys.geometry,
+    references=(EGGLETON_1983, HILDITCH_2001, MURRAY_DERMOTT_1999, IAU_2015_B3, IAU_2012_B2),
+    constants=("GM_sun", "au", "R_sun", "day"),
+    conventions={**CONVENTIONS,
+                 "roche_lobe": "Eggleton (1983) volume-equivalent radius with the instantaneous separation in place "
+                               "of a (an approximation for eccentric orbits)",
+                 "speeds": "relative orbital speed of the two stars (vis-viva), not of either star about the "
+                           "centre of mass"},
+    exclusive=(("m1", "semimajor_axis"),),
+    at_most_one=(("m2", "mass_ratio"), ("m2", "semimajor_axis")),
+    constraints=(
+        Constraint(("m2", "mass_ratio"), "m1 needs m2 or mass_ratio", _geometry_m1_needs_partner),
+        Constraint(("radius1", "radius2"), "Roche-lobe fill factors need the masses of both stars: give m1 with m2 "
+                   "(or mass_ratio), or semimajor_axis with mass_ratio", _geometry_radii_need_masses),
+    ),
+    check=_geometry_check,
+    example={"period": {"value": 118.3, "sigma": 0.2}, "eccentricity": {"value": 0.62, "sigma": 0.02},
+             "m1": {"value": 8.4, "sigma": 0.5}, "m2": {"value": 5.1, "sigma": 0.3},
+             "radius1": {"value": 4.3, "sigma": 0.3}, "radius2": {"value": 2.9, "sigma": 0.2}},
+))

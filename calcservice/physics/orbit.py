@@ -1,0 +1,272 @@
+"""Orbit geometry and ephemerides of a Keplerian binary.
+
+Canonical units: times JD (days), period d, angles deg at the interface (radians
+inside), speeds km/s, masses solMass, separations au (stellar radii and Roche lobes
+solRad), angular sizes mas.  Every function is elementwise numpy and broadcasts: the
+ephemeris gets inputs of shape (N, P, 1) and ``times`` of shape (T,), and returns
+series of shape (N, P, T).
+
+Conventions (the spectroscopic ones): ``omega`` is the argument of periastron of the
+primary's orbit; star 2 has omega + 180 deg, and so has the relative orbit of star 2
+about star 1 that a visual observer measures; radial velocity is positive when
+receding; ``node`` is the position angle of the ascending node (where star 2 recedes
+from us), the position angle is counted from north through east.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..constants import AU, GM_SUN, R_SUN, SECONDS_PER_DAY, TWO_PI
+from . import kepler
+from .spectroscopic import kepler_semimajor_axis
+
+AU_IN_SOLAR_RADII = AU / R_SUN
+
+
+# --------------------------------------------------------------------------- phases
+def orbital_phase(time, period, t_periastron):
+    """Orbital phase (t - T0)/P mod 1, zero at periastron passage."""
+    return np.mod((np.asarray(time, dtype=float) - t_periastron) / period, 1.0)
+
+
+def radial_velocities(true_anomaly_rad, eccentricity, omega_rad, k1, k2=None, gamma=0.0):
+    """Radial velocities (km/s) of both stars of a Keplerian orbit.
+
+    v1 = gamma + K1 [cos(nu + omega) + e cos omega],
+    v2 = gamma - K2 [cos(nu + omega) + e cos omega]   (Hilditch 2001, eq. 2.45),
+    with omega the primary's argument of periastron; star 2 has omega + 180 deg, hence the sign.
+    Returns (v1, v2), v2 None without K2.
+    """
+    shape = np.cos(true_anomaly_rad + omega_rad) + eccentricity * np.cos(omega_rad)
+    v1 = gamma + k1 * shape
+    v2 = None if k2 is None else gamma - k2 * shape
+    return v1, v2
+
+
+def sky_position(true_anomaly_rad, separation_over_a, omega_rad, inclination_rad, node_deg, angular_semimajor_axis=None):
+    """Projected separation (mas, or None) and position angle (deg) of star 2 relative to star 1.
+
+    With u = nu + omega_2 the argument of latitude of the relative orbit (omega_2 = omega + 180 deg),
+    rho = a'' (r/a) sqrt(cos^2 u + sin^2 u cos^2 i) and tan(theta - Omega) = tan u cos i
+    (W. D. Heintz 1978, *Double Stars*, ch. 4; the quadrant from atan2).
+    """
+    u = true_anomaly_rad + omega_rad + np.pi
+    cos_i = np.cos(inclination_rad)
+    position_angle = np.mod(node_deg + np.degrees(np.arctan2(np.sin(u) * cos_i, np.cos(u))), 360.0)
+    rho = None
+    if angular_semimajor_axis is not None:
+        rho = angular_semimajor_axis * separation_over_a * np.hypot(np.cos(u), np.sin(u) * cos_i)
+    return rho, position_angle
+
+
+def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gamma=None,
+              angular_semimajor_axis=None, inclination=None, node=None, m1=None, m2=None,
+              semimajor_axis=None, **_):
+    """Series of orbital quantities at ``times`` (JD): phase, anomalies, separation, radial velocities.
+
+    M = 2 pi (t - T0)/P; E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial
+    velocities as in :func:`radial_velocities`; with a (given, or from Kepler's third law and
+    m1 + m2) the separation in au; with the visual elements the projected separation and
+    position angle (:func:`sky_position`).
+    """
+    e = eccentricity
+    omega_rad = np.radians(omega)
+    mean = kepler.mean_anomaly(times, period, t_periastron)
+    ecc = kepler.eccentric_anomaly(mean, e)
+    nu = kepler.true_from_eccentric(ecc, e)
+    r_over_a = kepler.separation_from_eccentric(ecc, e)
+    v1, v2 = radial_velocities(nu, e, omega_rad, k1, k2, 0.0 if gamma is None else gamma)
+    out = {
+        "phase": orbital_phase(times, period, t_periastron),
+        "mean_anomaly": np.mod(np.degrees(mean), 360.0),
+        "true_anomaly": np.mod(np.degrees(nu), 360.0),
+        "separation": r_over_a,
+        "rv1": v1,
+    }
+    if v2 is not None:
+        out["rv2"] = v2
+    a = semimajor_axis
+    if a is None and m1 is not None and m2 is not None:
+        a = kepler_semimajor_axis(period, m1 + m2)
+    if a is not None:
+        out["separation_au"] = a * r_over_a
+    if inclination is not None and node is not None:
+        rho, pa = sky_position(nu, r_over_a, omega_rad, np.radians(inclination), node, angular_semimajor_axis)
+        out["position_angle"] = pa
+        if rho is not None:
+            out["projected_separation"] = rho
+    elif inclination is not None and angular_semimajor_axis is not None:
+        rho, _pa = sky_position(nu, r_over_a, omega_rad, np.radians(inclination), 0.0, angular_semimajor_axis)
+        out["projected_separation"] = rho
+    return out
+
+
+# --------------------------------------------------------------------------- events
+#: Event kinds and the true anomaly nu(omega) (rad) at which each happens.
+#: Conjunctions: nu + omega = 90 deg puts star 1 farthest from us (z = r1 sin(nu + omega) sin i,
+#: z positive away from the observer), so star 2 is in front; 270 deg puts star 1 in front.
+#: Radial-velocity extrema: cos(nu + omega) = +1 (star 1 recedes fastest) or -1.
+EVENT_TRUE_ANOMALY = {
+    "periastron": lambda w: np.zeros_like(w),
+    "apastron": lambda w: np.full_like(w, np.pi),
+    "conjunction_star2_in_front": lambda w: 0.5 * np.pi - w,
+    "conjunction_star1_in_front": lambda w: 1.5 * np.pi - w,
+    "rv1_maximum": lambda w: -w,
+    "rv1_minimum": lambda w: np.pi - w,
+}
+
+
+def mean_anomaly_derivatives(true_anomaly_rad, eccentricity):
+    """Partial derivatives of M(nu, e): (dM/dnu at fixed e, dM/de at fixed nu).
+
+    dM/dnu = (1 - e^2)^{3/2} / (1 + e cos nu)^2 (Kepler's second law, r^2 dnu = n a^2 sqrt(1 - e^2) dt);
+    dM/de = -sqrt(1 - e^2) sin nu (2 + e cos nu) / (1 + e cos nu)^2, from cos E = (e + cos nu)/(1 + e cos nu)
+    and M = E - e sin E (e.g. Murray & Dermott 1999, *Solar System Dynamics*, ch. 2).
+    """
+    e = np.asarray(eccentricity, dtype=float)
+    c = 1.0 + e * np.cos(true_anomaly_rad)
+    d_nu = (1.0 - e * e) ** 1.5 / c**2
+    d_e = -np.sqrt(1.0 - e * e) * np.sin(true_anomaly_rad) * (2.0 + e * np.cos(true_anomaly_rad)) / c**2
+    return d_nu, d_e
+
+
+def event_phase(kind, eccentricity, omega_deg):
+    """Phase (0 <= phase < 1 after periastron) of an event and its derivatives d phase/de, d phase/d omega (per deg)."""
+    w = np.radians(np.asarray(omega_deg, dtype=float))
+    nu = EVENT_TRUE_ANOMALY[kind](w)
+    phase = np.mod(kepler.mean_from_true(nu, eccentricity) / TWO_PI, 1.0)
+    if kind in ("periastron", "apastron"):
+        zero = np.zeros_like(phase)
+        return phase, zero, zero
+    d_nu, d_e = mean_anomaly_derivatives(nu, eccentricity)
+    # every nu(omega) above has d nu / d omega = -1
+    return phase, d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI
+
+
+def event_times(kind, period, t_periastron, eccentricity, omega, after, count):
+    """The first ``count`` dates (JD) of an event at or after ``after``, and the partial derivatives.
+
+    t_n = T0 + (n + phi) P with phi the event's phase and n the whole number of cycles since T0,
+    the smallest n with t_n >= after.  Inputs are arrays over N systems; returns a dict of
+    (N, count) arrays: ``time``, ``cycle`` (n + phi, the cycles elapsed since T0) and the
+    derivatives ``d_t_periastron`` (= 1), ``d_period`` (= n + phi), ``d_eccentricity`` and
+    ``d_omega`` (days per deg).
+    """
+    p = np.asarray(period, dtype=float)[..., None]
+    t0 = np.asarray(t_periastron, dtype=float)[..., None]
+    phi, dphi_de, dphi_dw = (np.asarray(x)[..., None] for x in event_phase(kind, eccentricity, omega))
+    first = np.ceil((np.asarray(after, dtype=float)[..., None] - t0) / p - phi)
+    n = first + np.arange(count)
+    cycles = n + phi
+    time = t0 + cycles * p
+    # guard against the rounding of (after - T0)/P landing one cycle early
+    early = time < np.asarray(after, dtype=float)[..., None]
+    cycles = np.where(early, cycles + 1.0, cycles)
+    time = t0 + cycles * p
+    return {
+        "time": time,
+        "cycle": cycles,
+        "d_t_periastron": np.ones_like(time),
+        "d_period": cycles,
+        "d_eccentricity": np.broadcast_to(p * dphi_de, time.shape),
+        "d_omega": np.broadcast_to(p * dphi_dw, time.shape),
+    }
+
+
+def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccentricity", "omega")):
+    """Linear sigma (days) of event dates: sigma^2 = J C J^T with J the partial derivatives.
+
+    For a periastron passage n cycles after T0 this is
+    sigma^2 = sigma_T0^2 + n^2 sigma_P^2 + 2 n rho sigma_P sigma_T0.
+    ``covariance`` is (N, 4, 4) over ``names``.
+    """
+    jac = np.stack([derivatives["d_" + k] for k in names], axis=-1)   # (N, count, 4)
+    var = np.einsum("nci,nij,ncj->nc", jac, covariance, jac)
+    return np.sqrt(np.maximum(var, 0.0))
+
+
+def velocity_separation(eccentricity, omega_deg, k1, k2, kind):
+    """|v1 - v2| (km/s) at a radial-velocity extremum: (K1 + K2)(1 + e cos omega) or (K1 + K2)(1 - e cos omega)."""
+    ecw = eccentricity * np.cos(np.radians(omega_deg))
+    return (k1 + k2) * (1.0 + ecw if kind == "rv1_maximum" else 1.0 - ecw)
+
+
+# --------------------------------------------------------------------------- geometry
+def roche_lobe_fraction(mass_ratio):
+    """Eggleton (1983, ApJ 268, 368) Roche-lobe radius over the separation.
+
+    r_L / a = 0.49 q^{2/3} / (0.6 q^{2/3} + ln(1 + q^{1/3})), q = M_star / M_companion;
+    better than 1 % for 0 < q < infinity.
+    """
+    q = np.asarray(mass_ratio, dtype=float)
+    q13 = np.cbrt(q)
+    q23 = q13 * q13
+    return 0.49 * q23 / (0.6 * q23 + np.log1p(q13))
+
+
+def total_mass_from_semimajor_axis(period, semimajor_axis):
+    """M1 + M2 (solMass) from Kepler's third law, G M = 4 pi^2 a^3 / P^2."""
+    a_m = np.asarray(semimajor_axis, dtype=float) * AU
+    seconds = np.asarray(period, dtype=float) * SECONDS_PER_DAY
+    return TWO_PI**2 * a_m**3 / (GM_SUN * seconds**2)
+
+
+def vis_viva_speed(total_mass, distance, semimajor_axis):
+    """Relative orbital speed (km/s) at distance r: v^2 = G M (2/r - 1/a) (vis-viva equation)."""
+    gm = GM_SUN * np.asarray(total_mass, dtype=float)
+    return np.sqrt(gm * (2.0 / (distance * AU) - 1.0 / (semimajor_axis * AU))) / 1e3
+
+
+def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_ratio=None,
+             radius1=None, radius2=None, **_):
+    """Size, extreme distances, speeds and Roche lobes of a binary orbit.
+
+    a from Kepler's third law with m1 + m2 (or M1 + M2 from a); periastron a(1 - e), apastron
+    a(1 + e); vis-viva speeds there; Roche lobes by Eggleton (1983) at the instantaneous
+    separations; fill factors R / r_L at periastron.  ``mass_ratio`` (M2/M1) splits a total
+    mass obtained from a into m1 and m2.
+    """
+    e = eccentricity
+    out = {}
+    if semimajor_axis is not None:
+        a = semimajor_axis
+        total = total_mass_from_semimajor_axis(period, a)
+        if mass_ratio is not None:
+            m1 = total / (1.0 + mass_ratio)
+            m2 = total - m1
+    elif m1 is not None and (m2 is not None or mass_ratio is not None):
+        if m2 is None:
+            m2 = mass_ratio * m1
+        total = m1 + m2
+        a = kepler_semimajor_axis(period, total)
+    else:
+        return out
+    peri = a * (1.0 - e)
+    apo = a * (1.0 + e)
+    out.update({
+        "semimajor_axis": a,
+        "total_mass": total,
+        "periastron_distance": peri,
+        "apastron_distance": apo,
+        "speed_periastron": vis_viva_speed(total, peri, a),
+        "speed_apastron": vis_viva_speed(total, apo, a),
+    })
+    if m1 is None or m2 is None:
+        return out
+    lobe1 = roche_lobe_fraction(m1 / m2)
+    lobe2 = roche_lobe_fraction(m2 / m1)
+    out.update({
+        "m1": m1,
+        "m2": m2,
+        "mass_ratio": m2 / m1,
+        "roche_lobe1": lobe1 * peri * AU_IN_SOLAR_RADII,
+        "roche_lobe2": lobe2 * peri * AU_IN_SOLAR_RADII,
+        "roche_lobe1_apastron": lobe1 * apo * AU_IN_SOLAR_RADII,
+        "roche_lobe2_apastron": lobe2 * apo * AU_IN_SOLAR_RADII,
+    })
+    if radius1 is not None:
+        out["fill_factor1"] = radius1 / out["roche_lobe1"]
+    if radius2 is not None:
+        out["fill_factor2"] = radius2 / out["roche_lobe2"]
+    return out
