@@ -94,3 +94,12 @@ assert abs((1 * _u.au).to_value(_u.m) - AU) == 0.0
 def constants_used(symbols) -> dict:
     """The published form of the named constants (for a response's provenance)."""
     return {s: CONSTANTS[s].as_dict() for s in symbols}
+
+
+# Stellar winds (issue 5): 1 au per Julian year in km/s, the 4.74047 of proper motions and
+# expansion parallaxes, derived rather than typed so it follows the au and the year above.
+CONSTANTS["au_per_julian_year"] = Constant(
+    "au_per_julian_year", AU_KM / JULIAN_YEAR, "km s^-1",
+    "1 au per Julian year (4.74047 km/s): converts a proper motion in arcsec/yr at 1 pc to km/s",
+    "IAU 2012 Resolution B2 au divided by the Julian year of 365.25 d (IAU 1976)")
+KM_S_PER_AU_PER_YEAR = CONSTANTS["au_per_julian_year"].value   # km s^-1
