@@ -9,6 +9,9 @@ from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccent
 
 def _sb1_check(inputs, outputs):
     out = []
+    if inputs.get("inclination") is not None and inputs.get("primary_mass") is None:
+        out.append(Warning("inclination_unused", "an inclination without a primary_mass determines no companion "
+                           "mass; give primary_mass to get m2 and the semi-major axis"))
     m2 = outputs.get("m2")
     m1 = inputs.get("primary_mass")
     if m2 is not None and m1 is not None and np.any(m2 > m1):
