@@ -225,6 +225,10 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
             else:
                 scale = np.maximum(np.abs(x), np.broadcast_to(q.sigma, (n,)))
             h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
+            # a step that x + h represents exactly, so rounding does not bias the difference quotient
+            # (Press et al., Numerical Recipes, sec. 5.7); matters for dates, where ulp(JD) ~ 5e-10 d
+            exact_h = (x + h) - x
+            h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
             steps[name] = h
             sl = slice(1 + 4 * j, 5 + 4 * j)
             cols[:, sl] = x[:, None] + h[:, None] * offsets

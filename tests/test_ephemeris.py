@@ -1,0 +1,345 @@
+"""Ephemeris series and event dates, against textbook formulas, hand calculations, scipy and astropy.time."""
+
+import warnings
+
+import numpy as np
+import pytest
+from astropy.time import Time
+from scipy.optimize import brentq
+
+from calcservice.calculations.orbit import ephemeris_events, iso_dates, leap_second_span
+from calcservice.engine import Measured, Options, evaluate
+from calcservice.physics import orbit
+from calcservice.registry import get
+
+from .conftest import post
+
+EPHEMERIS = get("ephemeris")
+PATH = "/v1/orbit/ephemeris"
+
+# a fictional eccentric binary for the checks
+P, E, W, T0, K1, K2, GAMMA = 813.7, 0.71, 37.0, 2455123.4, 33.0, 71.0, 12.5
+
+
+def run(times, statics=None, options=None, **kw):
+    q = {"period": P, "eccentricity": E, "omega": W, "t_periastron": T0, "k1": K1, "gamma": GAMMA}
+    q.update(kw)
+    quantities = {k: v if isinstance(v, Measured) else Measured.exact(v) for k, v in q.items() if v is not None}
+    st = {"times": np.asarray(times, dtype=float), "count": 3}
+    st.update(statics or {})
+    return evaluate(EPHEMERIS, quantities, st, options or Options()), quantities, st
+
+
+def events_of(quantities, statics, options=None):
+    return ephemeris_events(quantities, statics, options or Options())[0]["events"]
+
+
+# ------------------------------------------------------------------ radial velocities
+def test_rv_extrema_are_gamma_plus_k_one_plus_e_cos_omega():
+    # Hilditch (2001) ch. 2: max v1 = gamma + K1 (1 + e cos w), min v1 = gamma - K1 (1 - e cos w)
+    times = T0 + np.linspace(0, P, 200001)
+    r, _, _ = run(times, k2=K2)
+    v1 = r.outputs["rv1"]["value"][0]
+    v2 = r.outputs["rv2"]["value"][0]
+    ecw = E * np.cos(np.radians(W))
+    assert v1.max() == pytest.approx(GAMMA + K1 * (1 + ecw), abs=1e-5)
+    assert v1.min() == pytest.approx(GAMMA - K1 * (1 - ecw), abs=1e-5)
+    # star 2 moves opposite to star 1, scaled by K2/K1 (q = K1/K2 = M2/M1)
+    assert v2.max() == pytest.approx(GAMMA + K2 * (1 - ecw), abs=1e-4)
+    assert v2.min() == pytest.approx(GAMMA - K2 * (1 + ecw), abs=1e-4)
+    assert np.allclose(v2 - GAMMA, -(K2 / K1) * (v1 - GAMMA), atol=1e-10)
+
+
+def test_circular_orbit_is_a_sinusoid():
+    # e = 0: v1 = gamma + K1 cos(2 pi (t - T0)/P + omega), a pure sinusoid (Hilditch 2001, eq. 2.45 with e = 0)
+    times = T0 + np.linspace(-P, 2 * P, 301)
+    r, _, _ = run(times, eccentricity=0.0)
+    expected = GAMMA + K1 * np.cos(2 * np.pi * (times - T0) / P + np.radians(W))
+    assert np.allclose(r.outputs["rv1"]["value"][0], expected, atol=1e-9)
+
+
+def test_omega_90_curve_is_antisymmetric_about_periastron():
+    # omega = 90 deg: v1 - gamma = -K1 sin nu, and nu(T0 - x) = -nu(T0 + x), for any e
+    x = np.linspace(0, P / 2, 101)
+    times = np.concatenate([T0 + x, T0 - x])
+    r, _, _ = run(times, omega=90.0, eccentricity=0.93)
+    v = r.outputs["rv1"]["value"][0] - GAMMA
+    assert np.allclose(v[:101], -v[101:], atol=1e-8)
+
+
+def test_phase_and_mean_anomaly():
+    times = np.array([T0, T0 + P / 4, T0 + P / 2, T0 - P / 4, T0 + 7 * P + 0.1 * P])
+    r, _, _ = run(times)
+    # phase 0 at periastron, (t - T0)/P mod 1 (definition)
+    assert np.allclose(r.outputs["phase"]["value"][0], [0.0, 0.25, 0.5, 0.75, 0.1], atol=1e-9)
+    assert np.allclose(r.outputs["mean_anomaly"]["value"][0], [0.0, 90.0, 180.0, 270.0, 36.0], atol=1e-6)
+    # periastron and apastron: nu = 0, 180 deg; r/a = 1 -+ e
+    assert r.outputs["separation"]["value"][0][0] == pytest.approx(1 - E)
+    assert r.outputs["separation"]["value"][0][2] == pytest.approx(1 + E)
+    assert r.outputs["true_anomaly"]["value"][0][2] == pytest.approx(180.0)
+
+
+def test_rv_sigma_from_t_periastron_matches_analytic_derivative():
+    # e = 0: dv1/dT0 = K1 sin(2 pi (t - T0)/P + omega) 2 pi / P; linear sigma = |dv1/dT0| sigma_T0.
+    # The dates are JD ~ 2.46e6: this also checks that a time input is stepped by its sigma, not its size.
+    times = T0 + np.array([10.0, 150.0, 333.0, 700.0])
+    sigma_t0 = 0.3
+    r, _, _ = run(times, eccentricity=0.0, t_periastron=Measured.normal(T0, sigma_t0))
+    expected = np.abs(K1 * np.sin(2 * np.pi * (times - T0) / P + np.radians(W)) * 2 * np.pi / P) * sigma_t0
+    assert np.allclose(r.outputs["rv1"]["sigma"][0], expected, rtol=1e-6)
+
+
+def test_series_sigma_near_periastron_at_high_e_agrees_with_monte_carlo():
+    # a small sigma_T0 keeps the problem linear; the two methods then agree (common practice check)
+    times = T0 + np.array([0.5, 3.0, 200.0])
+    t0 = Measured.normal(T0, 0.02)
+    lin, _, _ = run(times, eccentricity=0.95, t_periastron=t0)
+    mc, _, _ = run(times, eccentricity=0.95, t_periastron=t0,
+                   options=Options(method="monte_carlo", samples=4000, seed=3))
+    assert np.allclose(lin.outputs["rv1"]["sigma"][0], mc.outputs["rv1"]["sigma"][0], rtol=0.08)
+
+
+# ------------------------------------------------------------------ separations and the sky
+def test_physical_separation_from_kepler_third_law_with_astropy():
+    import astropy.units as u
+    from astropy.constants import GM_sun
+    m1, m2 = 14.0, 9.0
+    times = np.array([T0, T0 + P / 2])
+    r, _, _ = run(times, m1=m1, m2=m2)
+    # Kepler's third law with astropy's IAU 2015 GM_sun: a^3 = G M P^2 / (4 pi^2)
+    a = ((GM_sun * (m1 + m2) * (P * u.day) ** 2 / (4 * np.pi**2)) ** (1 / 3)).to_value(u.au)
+    assert np.allclose(r.outputs["separation_au"]["value"][0], [a * (1 - E), a * (1 + E)], rtol=1e-12)
+    r2, _, _ = run(times, semimajor_axis=3.2)
+    assert np.allclose(r2.outputs["separation_au"]["value"][0], [3.2 * (1 - E), 3.2 * (1 + E)], rtol=1e-12)
+
+
+def test_sky_position_against_thiele_innes_constants():
+    # Thiele-Innes (Heintz 1978, Double Stars; Binnendijk 1960): for the relative orbit (omega_2 = omega + 180)
+    # A = a(cos w cos O - sin w sin O cos i), B = a(cos w sin O + sin w cos O cos i),
+    # F = a(-sin w cos O - cos w sin O cos i), G = a(-sin w sin O + cos w cos O cos i),
+    # X = cos E - e, Y = sqrt(1 - e^2) sin E, north x = A X + F Y, east y = B X + G Y
+    a_mas, inc, node = 23.0, 131.0, 301.0
+    times = T0 + np.linspace(0, P, 37)
+    r, _, _ = run(times, angular_semimajor_axis=a_mas, inclination=inc, node=node)
+    w2, o, i = np.radians(W + 180.0), np.radians(node), np.radians(inc)
+    A = a_mas * (np.cos(w2) * np.cos(o) - np.sin(w2) * np.sin(o) * np.cos(i))
+    B = a_mas * (np.cos(w2) * np.sin(o) + np.sin(w2) * np.cos(o) * np.cos(i))
+    F = a_mas * (-np.sin(w2) * np.cos(o) - np.cos(w2) * np.sin(o) * np.cos(i))
+    G = a_mas * (-np.sin(w2) * np.sin(o) + np.cos(w2) * np.cos(o) * np.cos(i))
+    m = 2 * np.pi * (times - T0) / P
+    big_e = np.array([brentq(lambda x, mm=mm: x - E * np.sin(x) - mm, mm - 1, mm + 1, xtol=1e-14) for mm in m])
+    x = A * (np.cos(big_e) - E) + F * np.sqrt(1 - E**2) * np.sin(big_e)
+    y = B * (np.cos(big_e) - E) + G * np.sqrt(1 - E**2) * np.sin(big_e)
+    rho = np.hypot(x, y)
+    theta = np.degrees(np.arctan2(y, x)) % 360.0
+    assert np.allclose(r.outputs["projected_separation"]["value"][0], rho, rtol=1e-9)
+    dpa = (r.outputs["position_angle"]["value"][0] - theta + 180.0) % 360.0 - 180.0
+    assert np.max(np.abs(dpa)) < 1e-7
+
+
+def test_ascending_node_is_where_star2_recedes():
+    # convention: at the ascending node (u = nu + omega_2 = 0) star 2 has its largest positive z velocity,
+    # i.e. v2 = gamma + K2 (1 + e cos omega_2) is near its maximum, and the position angle equals the node
+    nu_node = np.radians(-(W + 180.0))
+    m = orbit.kepler.mean_from_true(nu_node, E) % (2 * np.pi)
+    t = T0 + P * m / (2 * np.pi)
+    r, _, _ = run([t], k2=K2, inclination=60.0, node=40.0, angular_semimajor_axis=5.0)
+    assert r.outputs["position_angle"]["value"][0][0] == pytest.approx(40.0, abs=1e-7)
+    ecw2 = E * np.cos(np.radians(W + 180.0))
+    assert r.outputs["rv2"]["value"][0][0] == pytest.approx(GAMMA + K2 * (1 + ecw2), abs=1e-9)
+
+
+# ------------------------------------------------------------------ events
+def test_periastron_dates_and_sigmas_by_hand():
+    # hand calculation: t_n = T0 + n P, sigma^2 = sT0^2 + n^2 sP^2 + 2 n rho sP sT0
+    sp, st0, rho = 0.35, 1.7, -0.6
+    after = T0 + 12.3 * P
+    q = {"period": Measured.normal(P, sp), "t_periastron": Measured.normal(T0, st0),
+         "eccentricity": Measured.normal(E, 0.01), "omega": Measured.normal(W, 2.0), "k1": Measured.exact(K1)}
+    ev = events_of(q, {"times": np.array([after]), "count": 4},
+                   Options(correlations={("period", "t_periastron"): rho}))
+    for k, event in enumerate(ev["periastron"]):
+        n = 13 + k
+        assert event["value"] == pytest.approx(T0 + n * P, abs=1e-6)
+        assert event["sigma"] == pytest.approx(np.sqrt(st0**2 + n**2 * sp**2 + 2 * n * rho * sp * st0), rel=1e-12)
+        assert event["cycle"] == n
+    # apastron half a cycle later, same propagation with n + 1/2 (e and omega do not move it)
+    for k, event in enumerate(ev["apastron"]):
+        n = 12.5 + k
+        assert event["value"] == pytest.approx(T0 + n * P, abs=1e-6)
+        assert event["sigma"] == pytest.approx(np.sqrt(st0**2 + n**2 * sp**2 + 2 * n * rho * sp * st0), rel=1e-12)
+
+
+def test_events_start_at_after_and_are_time_ordered():
+    after = T0 + 3.999 * P
+    q = {"period": Measured.exact(P), "t_periastron": Measured.exact(T0), "eccentricity": Measured.exact(E),
+         "omega": Measured.exact(W), "k1": Measured.exact(K1), "after": Measured.exact(after)}
+    ev = events_of(q, {"times": np.array([T0]), "count": 3})
+    for name in ("periastron", "apastron", "conjunctions", "rv_extrema", "max_velocity_separation"):
+        values = [x["value"] for x in ev[name]]
+        assert values == sorted(values)
+        assert values[0] >= after
+    assert len(ev["periastron"]) == 3 and len(ev["conjunctions"]) == 6
+    assert ev["periastron"][0]["value"] == pytest.approx(T0 + 4 * P)
+
+
+def _root(fun, lo, hi):
+    return brentq(fun, lo, hi, xtol=1e-10)
+
+
+def _conjunction_time(e, w, cycle_start, front):
+    # independent: solve nu(t) + omega = 90 deg (star 2 in front) by brentq on the ephemeris series
+    target = 90.0 if front == 2 else 270.0
+
+    def f(t):
+        nu = orbit.ephemeris(P, e, w, T0, K1, np.array([t]))["true_anomaly"][0]
+        return np.sin(np.radians(nu + w - target))
+
+    ts = T0 + P * (cycle_start + np.linspace(0, 1, 4001))
+    vals = np.array([f(t) for t in ts[::40]])
+    # bracket the crossing where sin goes from - to + through cos > 0 side: scan for sign changes
+    for a, b, fa, fb in zip(ts[::40][:-1], ts[::40][1:], vals[:-1], vals[1:]):
+        if fa <= 0 < fb:
+            return _root(f, a, b)
+    raise AssertionError("no conjunction found")
+
+
+def test_conjunction_dates_and_sigma_against_root_finding():
+    q = {"period": Measured.exact(P), "t_periastron": Measured.exact(T0),
+         "eccentricity": Measured.normal(E, 0.004), "omega": Measured.normal(W, 0.8), "k1": Measured.exact(K1)}
+    ev = events_of(q, {"times": np.array([T0 + 2 * P]), "count": 1})
+    by_kind = {x["kind"]: x for x in ev["conjunctions"]}
+    t2 = _conjunction_time(E, W, 2, front=2)
+    assert by_kind["conjunction_star2_in_front"]["value"] == pytest.approx(t2, abs=1e-6)
+    # sigma by finite differences of the root-found date (scipy brentq), omega and e independent
+    h_e, h_w = 1e-5, 1e-4
+    dt_de = (_conjunction_time(E + h_e, W, 2, 2) - _conjunction_time(E - h_e, W, 2, 2)) / (2 * h_e)
+    dt_dw = (_conjunction_time(E, W + h_w, 2, 2) - _conjunction_time(E, W - h_w, 2, 2)) / (2 * h_w)
+    expected = np.hypot(dt_de * 0.004, dt_dw * 0.8)
+    assert by_kind["conjunction_star2_in_front"]["sigma"] == pytest.approx(expected, rel=1e-4)
+    t1 = _conjunction_time(E, W, 2, front=1)
+    assert by_kind["conjunction_star1_in_front"]["value"] == pytest.approx(t1, abs=1e-6)
+
+
+def test_rv_extrema_dates_give_the_extreme_velocities():
+    q = {"period": Measured.exact(P), "t_periastron": Measured.exact(T0), "eccentricity": Measured.exact(E),
+         "omega": Measured.exact(W), "k1": Measured.exact(K1), "k2": Measured.exact(K2)}
+    ev = events_of(q, {"times": np.array([T0 + 0.3 * P]), "count": 2})
+    ecw = E * np.cos(np.radians(W))
+    for x in ev["rv_extrema"]:
+        v1 = orbit.ephemeris(P, E, W, T0, K1, np.array([x["value"]]), gamma=GAMMA)["rv1"][0]
+        # Hilditch (2001): extrema gamma + K(1 + e cos w) and gamma - K(1 - e cos w)
+        expected = GAMMA + K1 * (1 + ecw) if x["kind"] == "rv1_maximum" else GAMMA - K1 * (1 - ecw)
+        assert v1 == pytest.approx(expected, abs=1e-9)
+    for x in ev["max_velocity_separation"]:
+        sep = (K1 + K2) * (1 + ecw if x["kind"] == "rv1_maximum" else 1 - ecw)
+        assert x["velocity_separation"] == pytest.approx(sep)
+
+
+def test_event_sigma_from_paired_samples_is_the_sample_spread():
+    # posterior samples of P and T0 carry their own correlation: the date T0 + n P of each draw has the
+    # spread sqrt(var T0 + n^2 var P + 2 n cov); compare with numpy on the draws themselves
+    rng = np.random.default_rng(11)
+    z = rng.standard_normal((2, 5000))
+    p_s = P + 0.2 * z[0]
+    t_s = T0 + 1.1 * (-0.8 * z[0] + 0.6 * z[1])
+    q = {"period": Measured.from_samples(p_s[None]), "t_periastron": Measured.from_samples(t_s[None]),
+         "eccentricity": Measured.exact(E), "omega": Measured.exact(W), "k1": Measured.exact(K1)}
+    ev = events_of(q, {"times": np.array([np.median(t_s) + 20.5 * np.median(p_s)]), "count": 1})
+    first = ev["periastron"][0]
+    n = first["cycle"]
+    assert first["sigma"] == pytest.approx(np.std(t_s + n * p_s, ddof=1), rel=1e-9)
+
+
+def test_iso_dates_match_astropy_time():
+    jd = np.array([2451545.0, 2460000.25, 2440587.5])
+    iso = iso_dates(jd)
+    # astropy.time: JD 2451545.0 is 2000-01-01T12:00:00 (J2000.0, common practice); 2440587.5 is the Unix epoch
+    assert list(iso) == [Time(x, format="jd", scale="utc").isot[:19] for x in jd]
+    assert iso[0] == "2000-01-01T12:00:00" and iso[2] == "1970-01-01T00:00:00"
+    assert iso_dates(np.array([np.nan]))[0] is None
+
+
+def test_leap_second_span_is_astropy_table():
+    lo, hi = leap_second_span()
+    assert lo == pytest.approx(Time("1960-01-01", scale="utc").jd)
+    # the table ends no earlier than the last leap second so far (2016-12-31, IERS Bulletin C 52, from memory)
+    assert hi > Time("2017-01-01", scale="utc").jd
+
+
+def test_check_flags_dates_without_known_leap_seconds():
+    _, hi = leap_second_span()
+    r, _, _ = run([T0], statics={"count": 2})
+    assert not any(w.code == "leap_seconds_unknown" for w in r.warnings)
+    r, _, _ = run([hi + 4000.0])
+    assert any(w.code == "leap_seconds_unknown" for w in r.warnings)
+
+
+# ------------------------------------------------------------------ HTTP
+def _body(**kw):
+    b = {"period": {"value": P, "sigma": 0.3}, "eccentricity": {"value": E, "sigma": 0.01}, "omega": W,
+         "t_periastron": {"value": T0, "sigma": 0.9}, "k1": K1, "k2": K2, "gamma": GAMMA,
+         "times": [T0 + 10.0, T0 + 100.0, T0 + 300.0]}
+    b.update(kw)
+    return b
+
+
+def test_http_series_and_events(client):
+    status, body = post(client, PATH, _body(count=2))
+    assert status == 200, body
+    series = body["results"]["series"]
+    assert series["times"]["value"] == [T0 + 10.0, T0 + 100.0, T0 + 300.0]
+    for name in ("phase", "true_anomaly", "rv1", "rv2", "separation"):
+        assert len(series[name]["value"]) == 3 and len(series[name]["sigma"]) == 3
+    ev = body["results"]["events"]
+    assert len(ev["periastron"]) == 2 and ev["periastron"][0]["value"] == pytest.approx(T0 + P)
+    assert ev["periastron"][0]["sigma"] == pytest.approx(np.hypot(0.9, 0.3))
+
+
+def test_http_time_formats_agree(client):
+    # astropy.time: ISO 8601 (UTC) and MJD = JD - 2400000.5 name the same instants
+    jd = [T0 + 10.0, T0 + 100.25]
+    iso = [Time(x, format="jd", scale="utc").isot for x in jd]
+    _, by_jd = post(client, PATH, _body(times=jd, t_periastron=T0))
+    _, by_iso = post(client, PATH, _body(times=iso, t_periastron=Time(T0, format="jd", scale="utc").isot))
+    _, by_mjd = post(client, PATH, _body(times=[x - 2400000.5 for x in jd], t_periastron=T0 - 2400000.5,
+                                         time_format="mjd"))
+    for other in (by_iso, by_mjd):
+        assert np.allclose(other["results"]["series"]["rv1"]["value"], by_jd["results"]["series"]["rv1"]["value"],
+                           atol=1e-6)
+
+
+def test_http_bad_inputs_name_the_field(client):
+    for field, value in (("eccentricity", 1.0), ("eccentricity", -0.2), ("period", 0.0), ("count", 0),
+                         ("count", 10_000), ("times", ["next tuesday"]), ("times", [])):
+        status, body = post(client, PATH, _body(**{field: value}))
+        assert status == 422, (field, value, body)
+        assert field in body["errors"], body
+    status, body = post(client, PATH, _body(m1=10.0))
+    assert status == 422 and "m2" in body["errors"]
+    status, body = post(client, PATH, _body(m1=10.0, m2=5.0, semimajor_axis=3.0))
+    assert status == 422 and "semimajor_axis" in body["errors"]
+    status, body = post(client, PATH, _body(m1=-10.0, m2=5.0))
+    assert status == 422 and "m1" in body["errors"]
+    status, body = post(client, PATH, _body(node=40.0))
+    assert status == 422 and "inclination" in body["errors"]
+
+
+@pytest.mark.xfail(strict=True, reason="issue 4 asks for 413 on too many times; the API answers 422 (lead)")
+def test_http_too_many_times_is_413():
+    from calcservice import create_app
+    client = create_app({"TESTING": True, "MAX_SERIES": 5}).test_client()
+    status, body = post(client, PATH, _body(times=[T0 + k for k in range(6)]))
+    assert status == 413 and "times" in body["errors"]
+
+
+def test_http_linear_and_monte_carlo_event_sigmas_are_linear(client):
+    status, body = post(client, PATH, _body(uncertainty={"method": "monte_carlo", "samples": 500, "seed": 1}))
+    assert status == 200
+    assert body["results"]["events"]["periastron"][0]["sigma"] == pytest.approx(np.hypot(0.9, 0.3))
+
+
+def test_no_warnings_leak_from_astropy():
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        iso_dates(np.array([2470000.5, 2400000.5]))
