@@ -1,0 +1,294 @@
+"""Astrometric and combined orbits: dynamical masses, Thiele–Innes constants, photocentres,
+orbital parallaxes.
+
+Canonical units: period P in days, angles on the sky (semi-major axes, parallaxes) in
+milliarcseconds, distances in parsecs, orbital angles in degrees, masses in solar masses,
+lengths in au.  Angle-to-length conversions need no constant beyond the definition of the
+parsec (1 au at 1 pc subtends 1 arcsec, IAU 2015 Resolution B2), so
+a [au] = a [mas] / parallax [mas] = a [mas] * distance [pc] / 1000.
+
+Kepler's third law is written with the IAU 2015 nominal solar mass parameter GM_sun
+(not the Gaussian constant, not a^3 = M P^2 in years): M = 4 pi^2 a^3 / (GM_sun P^2).
+
+Sky-plane conventions (W. D. Heintz 1978, *Double Stars*, Reidel; L. Binnendijk
+1960, *Properties of Double Stars*, University of Pennsylvania Press): x points north,
+y east, position angles count from north through east; the relative orbit of the
+secondary about the primary is x = A X + F Y, y = B X + G Y with X = cos E - e,
+Y = sqrt(1 - e^2) sin E, and its argument of periastron omega is the relative orbit's
+(omega_primary + 180 deg).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..constants import AU, GM_SUN, SECONDS_PER_DAY, TWO_PI
+from .spectroscopic import companion_mass, mass_function, projected_semimajor_axis
+
+MAS_PER_ARCSEC = 1000.0
+
+
+# ----------------------------------------------------------------------------- distances
+
+def parallax_from_distance(distance):
+    """Parallax (mas) of a distance (pc): parallax = 1000 / d."""
+    return MAS_PER_ARCSEC / distance
+
+
+def distance_from_parallax(parallax):
+    """Distance (pc) of a parallax (mas): d = 1000 / parallax."""
+    return MAS_PER_ARCSEC / parallax
+
+
+def linear_size(angle, parallax):
+    """A length in au from its angle (mas) and the parallax (mas): a = a'' / parallax."""
+    return angle / parallax
+
+
+# ----------------------------------------------------------------------------- Kepler
+
+def kepler_total_mass(semimajor_axis, period):
+    """Total mass (solMass) from Kepler's third law, M = 4 pi^2 a^3 / (GM_sun P^2).
+
+    a in au, P in days (Hilditch 2001, *An Introduction to Close Binary Stars*, ch. 2,
+    with the IAU 2015 nominal GM_sun).
+    """
+    a = semimajor_axis * AU
+    seconds = period * SECONDS_PER_DAY
+    return TWO_PI**2 * a**3 / (GM_SUN * seconds**2)
+
+
+def kepler_semimajor_axis(period, total_mass):
+    """Relative semi-major axis a (au) from Kepler's third law, a^3 = GM_sun M P^2 / (4 pi^2)."""
+    seconds = period * SECONDS_PER_DAY
+    return np.cbrt(GM_SUN * total_mass * seconds**2 / TWO_PI**2) / AU
+
+
+# ----------------------------------------------------------------------------- visual orbits
+
+def individual_masses(total_mass, mass_ratio=None, fractional_mass=None):
+    """M1 and M2 from the total mass and q = M2/M1 or B = M2/(M1 + M2).
+
+    M2 = B M, M1 = (1 - B) M, with B = q / (1 + q).  Returns (m1, m2, B).
+    """
+    b = fractional_mass if fractional_mass is not None else mass_ratio / (1.0 + mass_ratio)
+    return (1.0 - b) * total_mass, b * total_mass, b
+
+
+def visual(period, angular_semimajor_axis, parallax=None, distance=None, mass_ratio=None,
+           fractional_mass=None, **_):
+    """Visual orbit + parallax (or distance): a, M1 + M2 and, with q or B, M1 and M2."""
+    plx = parallax if parallax is not None else parallax_from_distance(distance)
+    a = linear_size(angular_semimajor_axis, plx)
+    total = kepler_total_mass(a, period)
+    out = {
+        "semimajor_axis": a,
+        "total_mass": total,
+        "parallax": plx,
+        "distance": distance_from_parallax(plx),
+    }
+    if mass_ratio is not None or fractional_mass is not None:
+        m1, m2, b = individual_masses(total, mass_ratio, fractional_mass)
+        out.update({"m1": m1, "m2": m2, "fractional_mass": b, "mass_ratio": m2 / m1,
+                    "a1": b * a, "a2": (1.0 - b) * a})
+    return out
+
+
+# ----------------------------------------------------------------------------- Thiele–Innes
+
+def thiele_innes_constants(angular_semimajor_axis, inclination, omega, node):
+    """Thiele–Innes constants A, B, F, G from the Campbell elements (a, i, omega, node).
+
+    A = a ( cos w cos W - sin w sin W cos i)
+    B = a ( cos w sin W + sin w cos W cos i)
+    F = a (-sin w cos W - cos w sin W cos i)
+    G = a (-sin w sin W + cos w cos W cos i)
+    with w = omega of the relative orbit, W = node (Heintz 1978; Binnendijk 1960).
+    """
+    a = angular_semimajor_axis
+    w = np.radians(omega)
+    n = np.radians(node)
+    cos_i = np.cos(np.radians(inclination))
+    cw, sw, cn, sn = np.cos(w), np.sin(w), np.cos(n), np.sin(n)
+    return (a * (cw * cn - sw * sn * cos_i),
+            a * (cw * sn + sw * cn * cos_i),
+            a * (-sw * cn - cw * sn * cos_i),
+            a * (-sw * sn + cw * cn * cos_i))
+
+
+def campbell_elements(A, B, F, G):
+    """Campbell elements (a, i, omega, node) from the Thiele–Innes constants.
+
+    From the constants' sums and differences (Heintz 1978):
+      p = |(A + G, B - F)| = a (1 + cos i),   m = |(A - G, B + F)| = a (1 - cos i),
+      a = (p + m) / 2,   tan^2(i/2) = m / p,
+      omega + node = atan2(B - F, A + G),   omega - node = atan2(-B - F, A - G).
+    The half-angle forms stay accurate near i = 0 and 90 deg, where the textbook
+    a^2 = u + (u^2 - v^2)^{1/2} (u = (A^2+B^2+F^2+G^2)/2, v = AG - BF) loses digits.
+    The sky-projected orbit is unchanged by (omega, node) -> (omega + 180, node + 180); we
+    resolve it by taking node in [0, 180) deg.  omega is returned in [0, 360) deg, and is
+    the relative orbit's.  a = 0 gives NaN throughout.
+    """
+    p = np.hypot(A + G, B - F)
+    m = np.hypot(A - G, B + F)
+    a = 0.5 * (p + m)
+    a = np.where(a > 0, a, np.nan)
+    inclination = np.degrees(2.0 * np.arctan2(np.sqrt(m), np.sqrt(p)))
+    total = np.arctan2(B - F, A + G)
+    difference = np.arctan2(-B - F, A - G)
+    omega = np.degrees(0.5 * (total + difference))
+    node = np.degrees(0.5 * (total - difference))
+    # the 180-deg ambiguity: move node into [0, 180) and omega with it
+    turns = np.floor(node / 180.0)
+    node = node - 180.0 * turns
+    omega = (omega - 180.0 * turns) % 360.0
+    finite = np.isfinite(a)
+    return (a, np.where(finite, inclination, np.nan), np.where(finite, omega, np.nan),
+            np.where(finite, node, np.nan))
+
+
+def relative_omega(omega_primary):
+    """omega of the relative orbit (secondary about primary) from the primary's: omega + 180 deg."""
+    return (omega_primary + 180.0) % 360.0
+
+
+def primary_omega(omega_relative):
+    """omega of the primary's orbit about the centre of mass from the relative orbit's: omega - 180 deg."""
+    return (omega_relative + 180.0) % 360.0
+
+
+def thiele_innes(angular_semimajor_axis, inclination, node, omega=None, omega_primary=None, **_):
+    """Campbell elements -> Thiele–Innes constants (omega of the relative orbit, or the primary's + 180)."""
+    w = omega if omega is not None else relative_omega(omega_primary)
+    A, B, F, G = thiele_innes_constants(angular_semimajor_axis, inclination, w, node)
+    return {"A": A, "B": B, "F": F, "G": G}
+
+
+def campbell(A, B, F, G, **_):
+    """Thiele–Innes constants -> Campbell elements, node in [0, 180) deg."""
+    a, i, w, n = campbell_elements(A, B, F, G)
+    return {"angular_semimajor_axis": a, "inclination": i, "omega": w, "node": n,
+            "omega_primary": primary_omega(w)}
+
+
+# ----------------------------------------------------------------------------- photocentre
+
+def astrometric_mass_function(photocentre_semimajor_axis, period):
+    """Astrometric mass function (solMass) of a photocentric orbit, alpha in au, P in days.
+
+    f_ast = 4 pi^2 alpha^3 / (GM_sun P^2) = (M1 + M2) (B - beta)^3, with B = M2/(M1 + M2)
+    and beta = L2/(L1 + L2), since alpha = a (B - beta) (P. van de Kamp 1967, *Principles
+    of Astrometry*, Freeman); for a dark companion it is M2^3 / (M1 + M2)^2.
+    """
+    return kepler_total_mass(photocentre_semimajor_axis, period)
+
+
+def fractional_mass_from_photocentre(astrometric_mass_function_value, primary_mass, luminosity_fraction=0.0,
+                                     iterations=60):
+    """The fractional mass B = M2/(M1 + M2) that solves (B - beta)^3 / (1 - B) = f_ast / M1.
+
+    Writing B = beta + (1 - beta) s maps the root to s in (0, 1) with
+    s^3 / (1 - s) = r, r = f_ast / (M1 (1 - beta)^2).  The left side rises from 0 to
+    infinity, so for beta < 1 there is exactly one root, and it has B > beta: the branch
+    where the photocentre moves with the primary.  We solve
+    F(y) = 3 ln s - ln(1 - s) - ln r = 0 for y = logit s by Newton's method: F' = 3 - 2 s
+    lies in (1, 3) and F is concave, so the iterates converge from any start (after one
+    step they rise monotonically to the root) for every system at once.  1 - s is kept
+    as 1 / (1 + e^y) so that M2 >> M1 loses no digits.  Returns (B, 1 - B); NaN where no
+    root exists (beta >= 1, f_ast <= 0, M1 <= 0).
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        f = np.asarray(astrometric_mass_function_value, dtype=float)
+        m1 = np.asarray(primary_mass, dtype=float)
+        beta = np.asarray(luminosity_fraction, dtype=float)
+        ok = (f > 0) & (m1 > 0) & (beta >= 0) & (beta < 1)
+        dark = np.where(ok, 1.0 - beta, np.nan)
+        log_r = np.log(np.where(ok, f, np.nan)) - np.log(np.where(ok, m1, np.nan)) - 2.0 * np.log(dark)
+        # s ~ r^(1/3) for a light companion, 1 - s ~ 1/r for a heavy one
+        y = np.maximum(log_r / 3.0, log_r)
+        for _ in range(iterations):
+            log_s = -np.logaddexp(0.0, -y)
+            log_1ms = -np.logaddexp(0.0, y)
+            s = np.exp(log_s)
+            step = (3.0 * log_s - log_1ms - log_r) / (3.0 - 2.0 * s)
+            y = y - step
+            if np.all(~np.isfinite(step) | (np.abs(step) < 1e-14)):
+                break
+        s = np.exp(-np.logaddexp(0.0, -y))
+        one_minus_s = np.exp(-np.logaddexp(0.0, y))
+        return beta + dark * s, dark * one_minus_s
+
+
+def photocentre(photocentre_semimajor_axis, period, primary_mass, parallax=None, distance=None,
+                luminosity_fraction=None, **_):
+    """Photocentric orbit + parallax + M1 (+ beta) -> f_ast, M2, a (relative orbit)."""
+    beta = 0.0 if luminosity_fraction is None else luminosity_fraction
+    plx = parallax if parallax is not None else parallax_from_distance(distance)
+    alpha = linear_size(photocentre_semimajor_axis, plx)
+    f = astrometric_mass_function(alpha, period)
+    b, one_minus_b = fractional_mass_from_photocentre(f, primary_mass, beta)
+    m2 = primary_mass * b / one_minus_b
+    total = primary_mass + m2
+    a = kepler_semimajor_axis(period, total)
+    return {
+        "astrometric_mass_function": f,
+        "m2": m2,
+        "semimajor_axis": a,
+        "total_mass": total,
+        "mass_ratio": m2 / primary_mass,
+        "fractional_mass": b,
+        "photocentre_semimajor_axis_au": alpha,
+        "a1": b * a,
+        "parallax": plx,
+        "distance": distance_from_parallax(plx),
+    }
+
+
+# ----------------------------------------------------------------------------- orbital parallax
+
+def orbital_parallax(angular_size, linear_size_au):
+    """Parallax (mas) from one and the same orbit measured as an angle (mas) and a length (au)."""
+    return angular_size / linear_size_au
+
+
+def combined(period, k1, eccentricity, inclination, k2=None, angular_semimajor_axis=None,
+             photocentre_semimajor_axis=None, primary_mass=None, luminosity_fraction=None, omega=None, **_):
+    """Orbital parallax and masses from a spectroscopic orbit and an astrometric one.
+
+    SB2 + visual orbit: a = (a1 + a2) sin i / sin i, parallax = a'' / a,
+    M1,2 = M1,2 sin^3 i / sin^3 i (Hilditch 2001, ch. 2; Heintz 1978).
+    SB1 + photocentric orbit: a1 = a1 sin i / sin i.  A dark companion (beta = 0) puts the
+    photocentre on the primary, alpha = a1, so parallax = alpha'' / a1 needs no masses; a
+    luminous one (beta > 0) has alpha = a (B - beta) = a1 (1 - beta / B), which needs B
+    and hence M1: M2 solves the mass function at the given i.  NaN where beta >= B.
+    """
+    sin_i = np.sin(np.radians(inclination))
+    a1 = projected_semimajor_axis(period, k1, eccentricity) / sin_i
+    out = {}
+    if k2 is not None:
+        a2 = projected_semimajor_axis(period, k2, eccentricity) / sin_i
+        a = a1 + a2
+        total = kepler_total_mass(a, period)
+        m1 = total * k2 / (k1 + k2)
+        plx = orbital_parallax(angular_semimajor_axis, a)
+        out.update({"m1": m1, "m2": total - m1, "total_mass": total, "mass_ratio": k1 / k2,
+                    "semimajor_axis": a, "a1": a1, "a2": a2})
+    else:
+        beta = 0.0 if luminosity_fraction is None else luminosity_fraction
+        if primary_mass is not None:
+            m2 = companion_mass(mass_function(period, k1, eccentricity), primary_mass, sin_i)
+            total = primary_mass + m2
+            b = m2 / total
+            out.update({"m1": primary_mass * np.ones_like(m2), "m2": m2, "total_mass": total,
+                        "mass_ratio": m2 / primary_mass, "semimajor_axis": a1 / b, "a1": a1})
+            alpha_au = a1 * (1.0 - beta / b)
+        else:
+            alpha_au = a1   # a dark companion: the declaration requires primary_mass for any beta
+        alpha_au = np.where(alpha_au > 0, alpha_au, np.nan)
+        plx = orbital_parallax(photocentre_semimajor_axis, alpha_au)
+        out["photocentre_semimajor_axis_au"] = alpha_au
+    out["parallax"] = plx
+    out["distance"] = distance_from_parallax(plx)
+    if omega is not None:
+        out["omega_relative"] = relative_omega(omega)
+    return out
