@@ -134,6 +134,14 @@ def test_semimajor_axis_with_mass_ratio_splits_the_masses():
     assert "roche_lobe1" in r.outputs
 
 
+def test_m1_with_mass_ratio_equals_m1_with_m2():
+    # q = M2/M1 (the contract's convention): m1 = 8, q = 0.5 is the same binary as m1 = 8, m2 = 4
+    a = run(period=40.0, eccentricity=0.2, m1=8.0, mass_ratio=0.5)
+    b = run(period=40.0, eccentricity=0.2, m1=8.0, m2=4.0)
+    for name in ("semimajor_axis", "m2", "roche_lobe1", "roche_lobe2", "speed_periastron"):
+        assert value(a, name) == pytest.approx(value(b, name), rel=1e-14)
+
+
 def test_semimajor_axis_alone_gives_no_roche_lobes():
     r = run(period=200.0, eccentricity=0.3, semimajor_axis=2.5)
     assert "total_mass" in r.outputs and "roche_lobe1" not in r.outputs
