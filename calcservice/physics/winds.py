@@ -8,6 +8,7 @@ GHz, distances in kpc (radio) or pc (shell parallax), luminosities in solLum.
 Every function is elementwise numpy: it broadcasts over arrays of any shape, never loops
 over systems and lets NaN pass through.  Choices (a recipe, a mode) arrive as strings and
 are branched on with ``np.where`` so an unknown string gives NaN, never an exception.
+Equation numbers of the cited papers are quoted from memory: check them against the papers.
 """
 
 from __future__ import annotations
