@@ -257,6 +257,13 @@ def test_http_period_change_refuses_bad_input(client, change):
     assert status == 422 and next(iter(change)) in doc["errors"]
 
 
+def test_conservative_equal_masses_constraint_names_the_masses():
+    assert _failing_fields("mass-loss-period-change", mode="conservative", period=10.0, period_derivative=0.5,
+                           m1=15.0, m2=15.0) == {"m1", "m2"}
+    assert _failing_fields("mass-loss-period-change", mode="jeans", period=10.0, period_derivative=0.5,
+                           m1=15.0, m2=15.0) == set()
+
+
 def test_http_conservative_equal_masses_is_refused(client):
     status, doc = post(client, "/v1/winds/mass-loss/period-change",
                        {"period": 10.0, "period_derivative": 0.5, "m1": 15.0, "m2": 15.0, "mode": "conservative"})

@@ -343,6 +343,12 @@ register(Calculation(
     conventions={"mass_loss_rate": "jeans: mass leaving the system is positive (a lengthening period); "
                                    "conservative: transfer from star 1 to star 2 is positive",
                  "period_derivative": "dP/dt, positive when the period lengthens; s/yr by default"},
+    # the mode is a choice: this constraint acts where constraints are shown the choices; otherwise the
+    # division by M1 - M2 = 0 gives no finite rate and the row is refused all the same
+    constraints=(Constraint(("m1", "m2"), "the conservative mode needs m1 != m2: at equal masses the period "
+                            "does not change to first order whatever the transfer rate",
+                            lambda m1=None, m2=None, mode=None, **_:
+                            _rows(True) if mode != "conservative" or m1 is None or m2 is None else m1 != m2),),
     check=_period_change_check,
     example={"period": 6.3, "period_derivative": {"value": 0.21, "sigma": 0.04}, "m1": {"value": 27.0, "sigma": 2.0},
              "m2": {"value": 11.0, "sigma": 1.0}, "mode": "jeans"},
