@@ -161,11 +161,12 @@ def _series_shape(calc: Calculation, statics: Mapping[str, Any]) -> tuple:
     return trail
 
 
-def _nominal_failures(calc, nominal: Mapping[str, np.ndarray], n: int) -> dict[int, dict[str, list[str]]]:
-    """Rows whose nominal inputs violate a declared constraint."""
+def _nominal_failures(calc, nominal: Mapping[str, np.ndarray], statics: Mapping[str, Any],
+                      n: int) -> dict[int, dict[str, list[str]]]:
+    """Rows whose nominal inputs (choices included) violate a declared constraint."""
     failed: dict[int, dict[str, list[str]]] = {}
+    args = {i.name: statics.get(i.name, nominal.get(i.name)) for i in calc.inputs}
     for c in calc.constraints:
-        args = {i.name: nominal.get(i.name) for i in calc.inputs}
         with np.errstate(all="ignore"):
             ok = np.broadcast_to(np.asarray(c.test(**args), dtype=bool), (n,))
         for k in np.flatnonzero(~ok):
@@ -196,7 +197,7 @@ def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Map
     if switched:
         result.warnings.insert(0, Warning(*switched))
 
-    for k, errs in _nominal_failures(calc, nominal, n).items():
+    for k, errs in _nominal_failures(calc, nominal, statics, n).items():
         result.failed.setdefault(k, {}).update(errs)
     result.nominal_inputs = nominal
     if calc.check is not None:
