@@ -86,6 +86,7 @@ class Input:
     isotropic: bool = False
     time: bool = False
     example: Any = None
+    label: str | None = None       # key of a series input's values in the response (default: its name)
 
     def as_dict(self) -> dict:
         d: dict[str, Any] = {"name": self.name, "kind": self.kind, "description": self.description,

@@ -288,7 +288,7 @@ def test_http_series_and_events(client):
     status, body = post(client, PATH, _body(count=2))
     assert status == 200, body
     series = body["results"]["series"]
-    assert series["times"]["value"] == [T0 + 10.0, T0 + 100.0, T0 + 300.0]
+    assert series["time"]["value"] == [T0 + 10.0, T0 + 100.0, T0 + 300.0]
     for name in ("phase", "true_anomaly", "rv1", "rv2", "separation"):
         assert len(series[name]["value"]) == 3 and len(series[name]["sigma"]) == 3
     ev = body["results"]["events"]

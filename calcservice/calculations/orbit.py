@@ -234,7 +234,7 @@ register(Calculation(
         Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", POSITIVE, required=False, example=142.8),
         Input("gamma", "km/s", "systemic velocity", ANY, required=False, default=0.0, example=-7.4),
         Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", ANY, kind="series",
-              time=True, example=[2460400.5, 2460500.5, 2460600.5]),
+              time=True, label="time", example=[2460400.5, 2460500.5, 2460600.5]),
         Input("angular_semimajor_axis", "mas", "angular semi-major axis of the relative visual orbit", POSITIVE,
               required=False, example=11.8),
         Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, required=False,
