@@ -148,3 +148,17 @@ def test_cors_is_off_by_default_and_allowlisted_when_configured():
     app = create_app({"CORS_ORIGINS": "https://example.org"})
     r = app.test_client().get("/v1/health", headers={"Origin": "https://example.org"})
     assert r.headers["Access-Control-Allow-Origin"] == "https://example.org"
+
+
+def test_readme_lists_every_calculation():
+    readme = (ROOT / "README.md").read_text()
+    for calc in calculations().values():
+        assert f"`POST {calc.path}`" in readme, calc.path
+
+
+def test_every_declaration_example_computes():
+    from calcservice.api.service import compute
+    for calc in calculations().values():
+        assert calc.example, f"{calc.name} has no example"
+        r = compute(calc.name, calc.example)
+        assert r["results"], calc.name
