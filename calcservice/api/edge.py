@@ -14,6 +14,15 @@ from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from .problems import Problem
 
+try:    # optional: an order of magnitude faster at formatting floats, and numpy-aware
+    import orjson
+except ImportError:  # pragma: no cover - the standard library does the same job, slower
+    orjson = None
+
+# orjson reads a long integer literal as a float and refuses lone surrogates; such bodies
+# (rare) go through the standard library so that every body means exactly the same thing
+_ORJSON_UNSAFE = re.compile(rb"\d{19}|\\u[dD][89a-fA-F]")
+
 log = logging.getLogger("calcservice.access")
 _REQUEST_ID = re.compile(r"^[A-Za-z0-9._\-]{1,64}$")
 
@@ -61,6 +70,12 @@ def json_body():
     data = request.get_data(cache=False)
     if len(data) > limits.max_body_bytes:
         raise Problem(413, f"the request body is over {limits.max_body_bytes} bytes")
+    body = _fast_loads(data)
+    if body is not _UNPARSED:
+        if _depth_exceeds(data, limits.max_json_depth) and \
+                _true_depth(body, limits.max_json_depth) > limits.max_json_depth:
+            raise Problem(400, f"the JSON body is nested deeper than {limits.max_json_depth} levels")
+        return body
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as e:
@@ -76,8 +91,38 @@ def json_body():
     return body
 
 
+_UNPARSED = object()
+
+
+def _fast_loads(data: bytes):
+    """The body parsed by orjson when it means the same as under :func:`json.loads` (else ``_UNPARSED``:
+    errors, long integers and odd escapes are left to the standard library and its messages)."""
+    if orjson is None or _ORJSON_UNSAFE.search(data):
+        return _UNPARSED
+    try:
+        return orjson.loads(data)
+    except orjson.JSONDecodeError:
+        return _UNPARSED
+
+
+def dumps(obj) -> bytes:
+    """Compact JSON; numpy arrays and scalars are written as numbers (non-finite floats must be
+    cleaned to None beforehand, as :func:`calcservice.api.service._clean` does)."""
+    if orjson is not None:
+        return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY)
+    return json.dumps(obj, allow_nan=False, separators=(",", ":"), default=_numpy_default).encode()
+
+
+def _numpy_default(o):
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, (np.floating, np.integer, np.bool_)):
+        return o.item()
+    raise TypeError(f"{type(o).__name__} is not JSON serialisable")
+
+
 def _json(obj, status=200, mimetype="application/json") -> Response:
-    return Response(json.dumps(obj, allow_nan=False, separators=(",", ":")), status=status, mimetype=mimetype)
+    return Response(dumps(obj), status=status, mimetype=mimetype)
 
 
 def problem_response(p: Problem) -> Response:

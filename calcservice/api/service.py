@@ -35,6 +35,10 @@ class Parsed:
     output_units: dict[str, str]
     echo: dict[str, dict]
     series: dict[str, np.ndarray] = field(default_factory=dict)
+    echo_rows: list[dict] | None = None       # one echo per system when N > 1 (a batch group)
+
+    def echo_at(self, index: int) -> dict:
+        return self.echo if self.echo_rows is None else self.echo_rows[index]
 
 
 def find(name: str) -> Calculation:
@@ -45,7 +49,13 @@ def find(name: str) -> Calculation:
 
 
 def _convert(spec, raw: RawQuantity, time_format: str) -> tuple[Measured, dict]:
-    """A parsed quantity (already in canonical units) as the engine's Measured, and its echo.
+    """A parsed quantity (already in canonical units) as the engine's Measured, and its echo."""
+    m = _measured(spec, raw, time_format)
+    return m, _echo(spec, m)
+
+
+def _measured(spec, raw: RawQuantity, time_format: str) -> Measured:
+    """A parsed quantity (already in canonical units) as the engine's Measured.
 
     Times are dates: an MJD given with ``time_format: mjd`` becomes a JD here; the unit
     of a time applies to its sigma only.
@@ -53,24 +63,30 @@ def _convert(spec, raw: RawQuantity, time_format: str) -> tuple[Measured, dict]:
     offset = MJD_OFFSET if spec.time and time_format == "mjd" else 0.0
     value = raw.value + np.where(raw.calendar, 0.0, offset) if spec.time else raw.value
     if raw.samples is not None:
-        m = Measured(value, raw.sigma_minus, raw.sigma_plus, samples=raw.samples + offset)
-    else:
-        m = Measured(value, raw.sigma_minus, raw.sigma_plus, isotropic=raw.isotropic)
-    return m, _echo(spec, m)
+        return Measured(value, raw.sigma_minus, raw.sigma_plus, samples=raw.samples + offset)
+    return Measured(value, raw.sigma_minus, raw.sigma_plus, isotropic=raw.isotropic)
 
 
 def _echo(spec, m: Measured) -> dict:
+    return _echo_rows(spec, m)[0]
+
+
+def _echo_rows(spec, m: Measured) -> list[dict]:
+    """The echo of a quantity for each of its N systems."""
     if m.isotropic:
-        return {"value": "isotropic", "unit": spec.unit}
-    d: dict[str, Any] = {"value": float(m.value[0])}
+        return [{"value": "isotropic", "unit": spec.unit} for _ in range(len(m.value))]
+    values = m.value.tolist()
     if m.samples is not None:
-        d.update(sigma=float(m.sigma[0]), samples=int(m.samples.shape[1]))
-    elif m.asymmetric:
-        d.update(sigma_minus=float(m.sigma_minus[0]), sigma_plus=float(m.sigma_plus[0]))
-    else:
-        d["sigma"] = float(m.sigma[0])
-    d["unit"] = spec.unit
-    return d
+        count = int(m.samples.shape[1])
+        return [{"value": v, "sigma": s, "samples": count, "unit": spec.unit}
+                for v, s in zip(values, m.sigma.tolist())]
+    out = []
+    for v, lo, hi in zip(values, m.sigma_minus.tolist(), m.sigma_plus.tolist()):
+        if lo != hi:
+            out.append({"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit})
+        else:
+            out.append({"value": v, "sigma": lo, "unit": spec.unit})     # lo == hi (their mean may overflow)
+    return out
 
 
 def check_groups(calc: Calculation, given: set[str]) -> dict[str, list[str]]:
@@ -92,17 +108,32 @@ def check_groups(calc: Calculation, given: set[str]) -> dict[str, list[str]]:
 
 def parse(calc: Calculation, body: Any, limits: Limits) -> Parsed:
     """Validate a request body against the calculation's schema and convert it."""
+    return build(calc, load(calc, body, limits), limits)
+
+
+def load(calc: Calculation, body: Any, limits: Limits, partial: bool = False) -> dict:
+    """The request body checked by the calculation's schema (forms, units, choices, options).
+
+    ``partial`` skips the required-input checks (a batch's shared options alone)."""
     if not isinstance(body, dict):
         raise Problem(422, "the request body must be a JSON object", {"_body": ["must be a JSON object"]})
     try:
-        data = request_schema(calc, limits).load(body)
+        return request_schema(calc, limits).load(body, partial=partial)
     except ValidationError as err:
         raise invalid(error_messages(err)) from None
+
+
+def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
+    """Loaded request data to canonical-unit :class:`Measured` inputs, options and output units.
+
+    The quantities may hold N systems at once (a batch group sharing one form): the rules are
+    the same for one system or many."""
     errors = check_groups(calc, set(data))
     time_format = data.get("time_format", "jd")
     quantities: dict[str, Measured] = {}
     statics: dict[str, Any] = {}
     echo: dict[str, dict] = {}
+    echo_columns: dict[str, list[dict]] = {}
     series: dict[str, np.ndarray] = {}
     for spec in calc.inputs:
         if spec.name not in data:
@@ -118,20 +149,52 @@ def parse(calc: Calculation, body: Any, limits: Limits) -> Parsed:
             statics[spec.name] = raw
             echo[spec.name] = {"value": raw}
             continue
-        m, e = _convert(spec, raw, time_format)
+        m = _measured(spec, raw, time_format)
         if spec.kind == "series":
             statics[spec.name] = m.value
             series[spec.name] = m.value
             echo[spec.name] = {"count": int(len(m.value)), "unit": spec.unit}
             continue
         quantities[spec.name] = m
-        echo[spec.name] = e
+        echo_columns[spec.name] = rows = _echo_rows(spec, m)
+        echo[spec.name] = rows[0]
 
     options = _options(calc, data, quantities, limits, errors)
     units = _output_units(calc, data.get("units", {}), errors)
     if errors:
         raise invalid(errors)
-    return Parsed(quantities, statics, options, units, echo, series)
+    parsed = Parsed(quantities, statics, options, units, echo, series)
+    n = max((len(m.value) for m in quantities.values()), default=1)
+    work = evaluations(parsed, n) if series else 0
+    if work > limits.max_series_evaluations:
+        # refused before computing: the engine would hold systems x draws x points floats at once
+        message = (f"{work} evaluations (systems x draws or perturbations x points) is over the limit of "
+                   f"{limits.max_series_evaluations}: ask for fewer points or fewer Monte Carlo draws")
+        raise Problem(413, message + " (CALCSERVICE_MAX_SERIES_EVALUATIONS)", {name: [message] for name in series})
+    if n > 1:
+        # a batch group: one echo per system (inputs given once, e.g. defaults, repeat)
+        parsed.echo_rows = [{name: e if name not in echo_columns else
+                             echo_columns[name][k if len(echo_columns[name]) > 1 else 0]
+                             for name, e in echo.items()} for k in range(n)]
+    return parsed
+
+
+def _monte_carlo(parsed: Parsed) -> bool:
+    qs = parsed.quantities.values()
+    return parsed.options.method == "monte_carlo" or any(q.samples is not None or q.isotropic for q in qs)
+
+
+def evaluations(parsed: Parsed, n: int) -> int:
+    """The physics evaluations one engine call makes: systems x columns x series points, where the
+    columns are the nominal point and the draws (Monte Carlo) or the 4 m perturbations (linear)."""
+    qs = list(parsed.quantities.values())
+    if _monte_carlo(parsed):
+        lengths = [q.samples.shape[1] for q in qs if q.samples is not None]
+        columns = 1 + (max(lengths) if lengths else int(parsed.options.samples))
+    else:
+        columns = 1 + 4 * sum(1 for q in qs if q.uncertain)
+    points = math.prod(len(v) for v in parsed.series.values())
+    return n * columns * points
 
 
 def _options(calc, data, quantities, limits: Limits, errors) -> Options:
@@ -186,17 +249,39 @@ def _clean(x) -> Any:
     return x
 
 
-def render_outputs(calc: Calculation, result: Result, index: int, units: Mapping[str, str]) -> dict:
-    """The ``results`` member for system ``index``; series outputs go under ``series``."""
-    results: dict[str, Any] = {}
-    series: dict[str, Any] = {}
+def clean_array(a: np.ndarray) -> list:
+    """An array as (nested) lists of JSON-safe floats: non-finite numbers become null."""
+    a = np.asarray(a, dtype=float)
+    finite = np.isfinite(a)
+    if finite.all():
+        return a.tolist()
+    obj = a.astype(object)
+    obj[~finite] = None
+    return obj.tolist()
+
+
+def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) -> list[tuple]:
+    """Each output as (name, unit, is_series, {"value": [...per system], "sigma": [...], ...}) in the
+    requested unit, converted and cleaned once for all systems of an engine call."""
+    table = []
     for name, o in result.outputs.items():
         canonical = calc.output(name).unit
         unit = units.get(name, canonical)
         k = factor(canonical, unit) if unit != canonical else 1.0
-        entry = {key: _clean(arr[index] * k) for key, arr in o.items()}
+        table.append((name, unit, np.ndim(o["value"]) > 1,
+                      {key: clean_array(arr * k if k != 1.0 else arr) for key, arr in o.items()}))
+    return table
+
+
+def render_outputs(calc: Calculation, result: Result, index: int, units: Mapping[str, str],
+                   table: list[tuple] | None = None) -> dict:
+    """The ``results`` member for system ``index``; series outputs go under ``series``."""
+    results: dict[str, Any] = {}
+    series: dict[str, Any] = {}
+    for name, unit, is_series, columns in (table if table is not None else output_table(calc, result, units)):
+        entry = {key: values[index] for key, values in columns.items()}
         entry["unit"] = unit
-        target = series if np.ndim(o["value"]) > 1 else results
+        target = series if is_series else results
         target[name] = {"value": entry.pop("value"), **entry}
     if series:
         results["series"] = series
@@ -214,17 +299,27 @@ def provenance(calc: Calculation) -> dict:
     }
 
 
-def warnings_for(result: Result, index: int) -> list[dict]:
+def warnings_for(result: Result, index: int, masks: list | None = None) -> list[dict]:
+    """The warnings that apply to system ``index`` (``masks`` from :func:`warning_masks`, if at hand)."""
     out = []
     seen = set()
-    for w in result.warnings:
-        if w.where is not None and not bool(np.asarray(w.where).reshape(-1)[index % np.size(w.where)]):
+    for k, w in enumerate(result.warnings):
+        if masks is not None:
+            if masks[k] is not None and not masks[k][index % len(masks[k])]:
+                continue
+        elif w.where is not None and not bool(np.asarray(w.where).reshape(-1)[index % np.size(w.where)]):
             continue
         key = (w.code, w.message)
         if key not in seen:
             seen.add(key)
             out.append({"code": w.code, "message": w.message})
     return out
+
+
+def warning_masks(result: Result) -> list:
+    """Each warning's systems as a list of booleans (None: every system)."""
+    return [None if w.where is None else np.asarray(w.where, dtype=bool).reshape(-1).tolist()
+            for w in result.warnings]
 
 
 def uncertainty_for(result: Result, index: int) -> dict:
@@ -234,39 +329,64 @@ def uncertainty_for(result: Result, index: int) -> dict:
             "rejected_fraction": float(result.rejected_fraction[index])}
 
 
+def run(calc: Calculation, parsed: Parsed) -> Result:
+    """The engine on parsed inputs; an input problem it finds becomes a 422."""
+    try:
+        return evaluate(calc, parsed.quantities, parsed.statics, parsed.options)
+    except EngineError as e:
+        raise invalid(e.errors, e.detail) from None
+
+
+def failure(result: Result, index: int) -> Problem | None:
+    """The 422 for system ``index`` if its inputs failed a constraint or gave no finite result."""
+    errors = result.failed.get(index)
+    return None if errors is None else invalid(errors, "the inputs are not physically consistent")
+
+
 def compute(name: str, body: Any, limits: Limits | None = None, keep_draws: bool = False) -> dict:
     """One calculation, one system: the response of the wire contract (raises :class:`Problem`)."""
     calc = find(name)
     limits = limits or Limits()
     parsed = parse(calc, body, limits)
     parsed.options.keep_draws = keep_draws
-    try:
-        result = evaluate(calc, parsed.quantities, parsed.statics, parsed.options)
-    except EngineError as e:
-        raise invalid(e.errors, e.detail) from None
-    if result.failed:
-        raise invalid(result.failed[0], "the inputs are not physically consistent")
+    result = run(calc, parsed)
+    problem = failure(result, 0)
+    if problem is not None:
+        raise problem
     response = respond(calc, parsed, result, 0)
     if keep_draws and result.draws is not None:
         response["_draws"] = {k: v[0] for k, v in result.draws.items()}
     return response
 
 
+class Rendering:
+    """What every system's response of one engine call shares, computed once (outputs converted
+    and cleaned, warnings, extras, provenance); :meth:`row` picks one system's response."""
+
+    def __init__(self, calc: Calculation, parsed: Parsed, result: Result):
+        self.calc, self.parsed, self.result = calc, parsed, result
+        self.table = output_table(calc, result, parsed.output_units)
+        self.masks = warning_masks(result)
+        self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
+        self.series = {calc.input(name).label or name: {"value": _clean(values), "unit": calc.input(name).unit}
+                       for name, values in parsed.series.items()}
+        self.provenance = provenance(calc)
+
+    def row(self, index: int, echo: dict | None = None) -> dict:
+        results = render_outputs(self.calc, self.result, index, self.parsed.output_units, self.table)
+        if "series" in results:
+            results["series"] = {**self.series, **results["series"]}
+        if self.extras:
+            results.update(self.extras[index])
+        return {
+            "calculation": self.calc.name,
+            "results": results,
+            "uncertainty": uncertainty_for(self.result, index),
+            "inputs": echo if echo is not None else self.parsed.echo_at(index),
+            "warnings": warnings_for(self.result, index, self.masks),
+            "provenance": self.provenance,
+        }
+
+
 def respond(calc: Calculation, parsed: Parsed, result: Result, index: int, echo: dict | None = None) -> dict:
-    results = render_outputs(calc, result, index, parsed.output_units)
-    if "series" in results:
-        for name, values in parsed.series.items():
-            spec = calc.input(name)
-            results["series"] = {name: {"value": _clean(values), "unit": spec.unit}, **results["series"]}
-    if calc.extra is not None:
-        extras = calc.extra(parsed.quantities, parsed.statics, parsed.options)
-        if extras:
-            results.update(extras[index])
-    return {
-        "calculation": calc.name,
-        "results": results,
-        "uncertainty": uncertainty_for(result, index),
-        "inputs": echo if echo is not None else parsed.echo,
-        "warnings": warnings_for(result, index),
-        "provenance": provenance(calc),
-    }
+    return Rendering(calc, parsed, result).row(index, echo)

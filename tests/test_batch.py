@@ -1,0 +1,302 @@
+"""Batch requests, rows and columns: the same answers as single requests, bad systems in place, limits."""
+
+import copy
+import math
+
+import numpy as np
+import pytest
+from astropy import constants as const
+from astropy import units as u
+
+from calcservice import create_app
+from calcservice.registry import calculations
+
+from .conftest import post
+
+OPTIONS = ("correlations", "uncertainty", "units", "time_format")
+WITH_EXAMPLE = [c for c in calculations().values() if c.example]
+
+
+def _variants(calc, count=4):
+    """The declaration's example and nearby systems: values nudged, sigmas scaled (some variants may
+    leave the physical domain; then the single request's error is what the batch must give)."""
+    out = []
+    for k in range(count):
+        body = copy.deepcopy(dict(calc.example))
+        for name, v in body.items():
+            if name in OPTIONS or calc.input(name).kind != "quantity" or calc.input(name).time:
+                continue
+            if isinstance(v, dict) and isinstance(v.get("value"), (int, float)) and not isinstance(v["value"], bool):
+                v["value"] = v["value"] * (1.0 + 0.003 * k)
+                for s in ("sigma", "sigma_minus", "sigma_plus"):
+                    if s in v:
+                        v[s] = v[s] * (1.0 + 0.5 * k)
+            elif isinstance(v, (int, float)) and not isinstance(v, bool):
+                body[name] = v * (1.0 + 0.003 * k)
+        out.append(body)
+    # two systems that must fail as single requests do: a value below its domain, a value of the wrong type
+    quantity = [s for s in calc.inputs if s.kind == "quantity" and not s.time and s.name in calc.example]
+    bounded = next((s for s in quantity if math.isfinite(s.domain.low)), None)
+    if bounded is not None:
+        out.insert(1, {**copy.deepcopy(dict(calc.example)), bounded.name: bounded.domain.low - 1.0})
+    if quantity:
+        out.insert(3, {**copy.deepcopy(dict(calc.example)), quantity[0].name: {"value": "many"}})
+    return out
+
+
+def _single(client, calc, body):
+    status, answer = post(client, calc.path, body)
+    return (answer if status == 200 else {"error": answer}), status
+
+
+def _shared(calc):
+    return {k: v for k, v in calc.example.items() if k in OPTIONS}
+
+
+def _rows(calc, bodies):
+    return [{k: v for k, v in b.items() if k not in OPTIONS} for b in bodies]
+
+
+@pytest.mark.parametrize("calc", WITH_EXAMPLE, ids=lambda c: c.name)
+def test_rows_match_single_requests(client, calc):
+    bodies = _variants(calc)
+    status, got = post(client, f"/v1/batch/{calc.name}", {"systems": _rows(calc, bodies), **_shared(calc)})
+    assert status == 200, got
+    assert len(got["results"]) == len(bodies)
+    for body, row in zip(bodies, got["results"]):
+        want, _ = _single(client, calc, body)
+        if "error" in want:
+            assert row == want
+            continue
+        assert row.keys() == want.keys()
+        for key in ("calculation", "uncertainty", "inputs", "warnings", "provenance"):
+            assert row[key] == want[key], key
+        _assert_results_equal(row["results"], want["results"])
+
+
+def _assert_results_equal(a, b):
+    assert a.keys() == b.keys()
+    for name in a:
+        if isinstance(a[name], dict) and "value" in a[name]:
+            for key in a[name]:
+                x, y = a[name][key], b[name][key]
+                if isinstance(x, (float, list)) and not isinstance(x, bool):
+                    np.testing.assert_allclose(np.array(x, dtype=float), np.array(y, dtype=float),
+                                               rtol=1e-12, atol=0, err_msg=f"{name}.{key}")
+                else:
+                    assert x == y, f"{name}.{key}"
+        elif name == "series":
+            _assert_results_equal(a[name], b[name])
+        else:
+            assert a[name] == b[name], name
+
+
+def _columns_of(calc, bodies):
+    """The bodies' inputs as columns: value and sigma arrays per input (null where not given)."""
+    cols = {}
+    for spec in calc.inputs:
+        entries = [b.get(spec.name) for b in bodies]
+        if all(e is None for e in entries):
+            continue
+        if spec.kind == "series":
+            cols[spec.name] = entries[0]
+        elif spec.kind != "quantity" or all(not isinstance(e, dict) for e in entries):
+            cols[spec.name] = entries
+        else:
+            entries = [e if isinstance(e, dict) or e is None else {"value": e} for e in entries]
+            col = {"value": [None if e is None else e.get("value") for e in entries]}
+            for key in ("sigma", "sigma_minus", "sigma_plus"):
+                if any(e is not None and key in e for e in entries):
+                    col[key] = [None if e is None else e.get(key) for e in entries]
+            units = {e.get("unit") for e in entries if e is not None}
+            if units - {None}:
+                col["unit"] = units.pop()
+            cols[spec.name] = col
+    return cols
+
+
+@pytest.mark.parametrize("calc", WITH_EXAMPLE, ids=lambda c: c.name)
+def test_columns_match_single_requests(client, calc):
+    bodies = _variants(calc)
+    status, got = post(client, f"/v1/batch/{calc.name}", {"columns": _columns_of(calc, bodies), **_shared(calc)})
+    assert status == 200, got
+    assert got["count"] == len(bodies)
+    errors = {e["index"]: e for e in got["errors"]}
+    for i, body in enumerate(bodies):
+        want, status = _single(client, calc, body)
+        if "error" in want:
+            assert {k: v for k, v in errors[i].items() if k != "index"} == want["error"]
+            assert all(col["value"][i] is None for col in got["columns"].values() if isinstance(col, dict)
+                       and "value" in col)
+            continue
+        assert i not in errors
+        results = dict(want["results"])
+        results.update(results.pop("series", {}))
+        for name, entry in results.items():
+            if isinstance(entry, dict) and "value" in entry and name in got["columns"]:
+                col = got["columns"][name]
+                assert col["unit"] == entry["unit"]
+                for key in entry:
+                    if key != "unit" and key in col:
+                        np.testing.assert_allclose(np.array(col[key][i], dtype=float),
+                                                   np.array(entry[key], dtype=float), rtol=1e-12, atol=0,
+                                                   err_msg=f"{name}.{key}[{i}]")
+            elif name in got["columns"]:
+                assert got["columns"][name][i] == entry, name
+        for w in want["warnings"]:
+            assert any(w["code"] == x["code"] and i in x["rows"] for x in got["warnings"]), w
+
+
+SB2 = {"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 38.2, "sigma": 0.4},
+       "k2": {"value": 51.7, "sigma": 0.6}, "eccentricity": {"value": 0.31, "sigma": 0.01},
+       "inclination": {"value": 71.0, "sigma": 2.0}}
+
+
+def test_a_bad_row_is_answered_in_place(client):
+    rows = [SB2, {**SB2, "eccentricity": 1.2}, {**SB2, "k1": "fast"}, 7, {**SB2, "bogus": 1}, SB2]
+    status, got = post(client, "/v1/batch/sb2", {"systems": rows})
+    assert status == 200
+    r = got["results"]
+    assert "results" in r[0] and "results" in r[5]
+    assert r[1]["error"]["status"] == 422 and "eccentricity" in r[1]["error"]["errors"]
+    assert "k1" in r[2]["error"]["errors"]
+    assert r[3]["error"]["errors"] == {"_body": ["must be a JSON object"]}
+    assert r[4]["error"]["errors"] == {"bogus": ["unknown field"]}
+    assert r[0] == r[5]
+
+
+def test_a_bad_row_in_columns_is_listed_with_its_index_and_null_everywhere(client):
+    cols = {"period": {"value": [41.6, 10.0, 41.6], "sigma": 0.02}, "k1": [38.2, 30.0, 38.2],
+            "k2": [51.7, 40.0, -51.7], "eccentricity": [0.31, 1.5, 0.31]}
+    status, got = post(client, "/v1/batch/sb2", {"columns": cols})
+    assert status == 200
+    assert [e["index"] for e in got["errors"]] == [1, 2]
+    assert "eccentricity" in got["errors"][0]["errors"] and "k2" in got["errors"][1]["errors"]
+    assert got["errors"][0]["status"] == 422
+    for col in got["columns"].values():
+        assert col["value"][0] is not None and col["value"][1] is None and col["value"][2] is None
+    # Hilditch (2001) eq. 2.52, M1 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2 / (2 pi G), with astropy
+    # constants (G M_sun from IAU 2015 B3 via astropy's GM_sun)
+    p, k1, k2, e = 41.6 * u.d, 38.2 * u.km / u.s, 51.7 * u.km / u.s, 0.31
+    m1 = (p * (1 - e**2) ** 1.5 * (k1 + k2) ** 2 * k2 / (2 * math.pi * const.GM_sun)).decompose().value
+    assert got["columns"]["m1_sin3i"]["value"][0] == pytest.approx(m1, rel=1e-9)
+
+
+def test_asymmetric_columns_and_a_unit_per_column(client):
+    cols = {"period": {"value": [41.6 / 365.25, 12.0 / 365.25], "sigma": [0.02 / 365.25, 0.01 / 365.25],
+                       "unit": "yr"},
+            "k1": {"value": [38.2, 20.0], "sigma": [0.4, 0.3]},
+            "k2": {"value": [51.7, 25.0], "sigma": [0.6, 0.3]},
+            "eccentricity": {"value": [0.31, 0.05], "sigma_minus": [0.01, 0.02], "sigma_plus": [0.02, 0.03]},
+            "inclination": {"value": [71.0, 80.0], "sigma": [2.0, 1.0], "unit": "deg"}}
+    status, got = post(client, "/v1/batch/sb2", {"columns": cols, "units": {"m1": "kg"}})
+    assert status == 200 and not got["errors"]
+    for i in range(2):
+        single = {"period": {"value": cols["period"]["value"][i] * 365.25, "sigma": cols["period"]["sigma"][i] * 365.25},
+                  "k1": {"value": cols["k1"]["value"][i], "sigma": cols["k1"]["sigma"][i]},
+                  "k2": {"value": cols["k2"]["value"][i], "sigma": cols["k2"]["sigma"][i]},
+                  "eccentricity": {"value": cols["eccentricity"]["value"][i],
+                                   "sigma_minus": cols["eccentricity"]["sigma_minus"][i],
+                                   "sigma_plus": cols["eccentricity"]["sigma_plus"][i]},
+                  "inclination": {"value": cols["inclination"]["value"][i], "sigma": cols["inclination"]["sigma"][i]},
+                  "units": {"m1": "kg"}}
+        _, want = post(client, "/v1/spectroscopic/sb2", single)
+        assert got["columns"]["m1"]["unit"] == "kg" == want["results"]["m1"]["unit"]
+        for name in ("m1", "m2", "semimajor_axis"):
+            for key in ("value", "sigma"):
+                assert got["columns"][name][key][i] == pytest.approx(want["results"][name][key], rel=1e-12)
+        assert any(w["code"] == "asymmetric_linearised" and i in w["rows"] for w in got["warnings"])
+
+
+def test_null_in_a_column_leaves_the_input_out_for_that_system(client):
+    cols = {"period": [41.6, 41.6], "k1": [38.2, 38.2], "k2": [51.7, 51.7], "eccentricity": [0.31, 0.31],
+            "inclination": [71.0, None]}
+    status, got = post(client, "/v1/batch/sb2", {"columns": cols})
+    assert status == 200 and not got["errors"]
+    assert got["columns"]["m1"]["value"][0] > 0 and got["columns"]["m1"]["value"][1] is None
+    assert got["columns"]["m1_sin3i"]["value"][0] == got["columns"]["m1_sin3i"]["value"][1]
+
+
+def test_one_engine_call_per_shape(client, monkeypatch):
+    from calcservice.api import batch
+    calls = []
+    real = batch.run
+
+    def counting(calc, parsed):
+        calls.append(max(len(q.value) for q in parsed.quantities.values()))
+        return real(calc, parsed)
+
+    monkeypatch.setattr(batch, "run", counting)
+    no_i = {k: v for k, v in SB2.items() if k != "inclination"}
+    rows = [SB2] * 50 + [no_i] * 30 + [{**SB2, "period": {"value": "41.6"}}] + [SB2] * 20
+    status, got = post(client, "/v1/batch/sb2", {"systems": rows})
+    assert status == 200
+    assert sorted(calls) == [30, 70]
+    assert "error" in got["results"][80]
+
+
+def test_monte_carlo_batch_is_seeded_once_and_reproducible(client):
+    body = {"systems": [SB2, {**SB2, "inclination": "isotropic"}, SB2], "uncertainty": {"method": "monte_carlo",
+                                                                                         "samples": 2000}}
+    status, a = post(client, "/v1/batch/sb2", body)
+    assert status == 200
+    seeds = {r["uncertainty"]["seed"] for r in a["results"]}
+    assert len(seeds) == 1
+    _, b = post(client, "/v1/batch/sb2", {**body, "uncertainty": {**body["uncertainty"], "seed": seeds.pop()}})
+    assert a["results"] == b["results"]
+    # small errors: Monte Carlo agrees with linear propagation (common practice: ~1/sqrt(samples) noise)
+    _, lin = post(client, "/v1/spectroscopic/sb2", SB2)
+    assert a["results"][0]["results"]["m1"]["value"] == pytest.approx(lin["results"]["m1"]["value"], rel=0.01)
+
+
+@pytest.fixture()
+def small_limits_client():
+    return create_app({"TESTING": True, "MAX_BATCH_ROWS": 5, "MAX_BATCH_DRAWS": 10_000}).test_client()
+
+
+def test_too_many_rows_is_413(small_limits_client):
+    status, got = post(small_limits_client, "/v1/batch/sb2", {"systems": [SB2] * 6})
+    assert status == 413 and "systems" in got["errors"]
+    status, got = post(small_limits_client, "/v1/batch/sb2",
+                       {"columns": {"period": [41.6] * 6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.3}})
+    assert status == 413
+
+
+def test_monte_carlo_over_the_draw_budget_is_413_before_computing(small_limits_client, monkeypatch):
+    from calcservice.api import batch
+    monkeypatch.setattr(batch, "run", lambda *a: pytest.fail("computed before checking the budget"))
+    body = {"systems": [SB2] * 3, "uncertainty": {"method": "monte_carlo", "samples": 4000}}
+    status, got = post(small_limits_client, "/v1/batch/sb2", body)
+    assert status == 413 and "uncertainty.samples" in got["errors"]
+    cols = {"period": {"value": [41.6] * 3, "sigma": 0.1}, "k1": 38.2, "k2": 51.7, "eccentricity": 0.3,
+            "inclination": "isotropic"}
+    status, got = post(small_limits_client, "/v1/batch/sb2", {"columns": cols})   # isotropic: Monte Carlo
+    assert status == 413
+
+
+def test_malformed_batches(client):
+    assert post(client, "/v1/batch/no-such-thing", {"systems": [SB2]})[0] == 404
+    assert post(client, "/v1/batch/sb2", {"systems": []})[0] == 422
+    assert post(client, "/v1/batch/sb2", {"systems": SB2})[0] == 422
+    assert post(client, "/v1/batch/sb2", {"systems": [SB2], "columns": {"period": 1}})[0] == 422
+    assert post(client, "/v1/batch/sb2", {"rows": [SB2]})[0] == 422
+    status, got = post(client, "/v1/batch/sb2", {"columns": {"period": [1.0, 2.0], "k1": [1.0, 2.0, 3.0],
+                                                             "k2": 3.0, "eccentricity": 0.1}})
+    assert status == 422 and "columns.k1" in got["errors"]
+    status, got = post(client, "/v1/batch/sb2", {"columns": {"period": {"value": [1.0], "unit": "furlong"},
+                                                             "k1": 1.0, "k2": 3.0, "eccentricity": 0.1}})
+    assert status == 422 and "columns.period.unit" in got["errors"]
+    status, got = post(client, "/v1/batch/sb2", {"columns": {"period": [1.0], "k1": 1.0, "k2": 3.0}})
+    assert status == 422 and "columns.eccentricity" in got["errors"]
+    status, got = post(client, "/v1/batch/sb2", {"systems": [SB2], "uncertainty": {"method": "guess"}})
+    assert status == 422 and "uncertainty.method" in got["errors"]
+    assert client.get("/v1/batch/sb2").status_code == 405
+
+
+def test_library_use_without_http():
+    from calcservice.api.batch import compute_batch
+    out = compute_batch("sb1", {"columns": {"period": [10.0, 20.0], "k1": 30.0, "eccentricity": 0.0}})
+    # Hilditch (2001) eq. 2.51: f(M) = P K^3 (1 - e^2)^{3/2} / (2 pi G), with astropy constants
+    want = (10 * u.d * (30 * u.km / u.s) ** 3 / (2 * math.pi * const.GM_sun)).decompose().value
+    assert out["columns"]["mass_function"]["value"][0] == pytest.approx(want, rel=1e-9)
+    assert out["columns"]["mass_function"]["value"][1] == pytest.approx(2 * want, rel=1e-9)
