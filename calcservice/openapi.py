@@ -137,6 +137,105 @@ def _get(summary: str, schema: dict | None = None, content_type: str = "applicat
         **_problem_responses(404)}}}
 
 
+ANY_ITEMS = {"type": "array", "minItems": 1, "items": {}}
+BATCH_OPTIONS = {
+    "correlations": {"$ref": "#/components/schemas/Correlations"},
+    "uncertainty": {"$ref": "#/components/schemas/UncertaintyOptions"},
+    "units": {"type": "object", "additionalProperties": {"type": "string"},
+              "description": "output name -> astropy unit for the response"},
+    "time_format": {"type": "string", "enum": ["jd", "mjd"], "default": "jd"},
+}
+
+
+def _batch_column_schema(spec: Input) -> dict:
+    """One input's column: entries that are wrong for one system are answered in its place, so the
+    entries themselves are not constrained here (the single request's rules apply to each)."""
+    if spec.kind == "series":
+        return _input_schema(spec)
+    if spec.kind != "quantity":
+        return {"description": f"{spec.description}: one value for every system, or an array of one per system "
+                               "(null: not given)"}
+    return {"description": f"{spec.description} [{spec.unit or 'dimensionless'}]",
+            "$ref": "#/components/schemas/BatchQuantityColumn"}
+
+
+_PER_SYSTEM = {"oneOf": [NUMBER, ANY_ITEMS, {"type": "string"}]}
+BATCH_QUANTITY_COLUMN = {
+    "description": "one number for every system, an array of exact values (null: not given for that system), or "
+                   "an object of value and sigma (or sigma_minus and sigma_plus) arrays or numbers with one unit "
+                   "for the column; samples as one list of draws per system",
+    "oneOf": [NUMBER, ANY_ITEMS, {"type": "string"},
+              {"type": "object", "additionalProperties": False, "properties": {
+                  "value": _PER_SYSTEM, "sigma": _PER_SYSTEM, "sigma_minus": _PER_SYSTEM, "sigma_plus": _PER_SYSTEM,
+                  "unit": {"type": "string"}, "samples": {"type": "array", "items": {"type": "array"}}}}],
+}
+
+
+def _batch_paths(calc: Calculation, key: str, schemas: dict, paths: dict) -> None:
+    """``POST /v1/batch/<name>``: rows (a list of request bodies) or columns (one array per input)."""
+    options = {k: v for k, v in BATCH_OPTIONS.items() if k != "time_format" or any(s.time for s in calc.inputs)}
+    options["units"] = {**options["units"], "propertyNames": {"enum": [o.name for o in calc.outputs]}}
+    rows = {"type": "object", "additionalProperties": False, "required": ["systems"], "properties": {
+        "systems": {"type": "array", "minItems": 1, "items": {},
+                    "description": f"request bodies of {calc.path} (#/components/schemas/{key}_request), one per "
+                                   "system; the top-level options apply to each unless it gives its own; a system "
+                                   "that is not valid is answered in its place"},
+        **options}}
+    columns = {"type": "object", "additionalProperties": False, "required": ["columns"], "properties": {
+        "columns": {"type": "object", "minProperties": 1, "additionalProperties": False,
+                    "properties": {spec.name: _batch_column_schema(spec) for spec in calc.inputs}},
+        **options}}
+    if calc.example:
+        shared = {k: v for k, v in calc.example.items() if k in BATCH_OPTIONS}
+        rows["example"] = {"systems": [{k: v for k, v in calc.example.items() if k not in BATCH_OPTIONS}], **shared}
+    schemas["BatchQuantityColumn"] = BATCH_QUANTITY_COLUMN
+    schemas[f"{key}_batch_request"] = {"oneOf": [rows, columns]}
+    column_result = {"type": "object", "required": ["value", "unit"], "properties": {
+        "value": {"type": "array", "items": {}}, "sigma": {"type": "array", "items": {}},
+        "low": {"type": "array", "items": {}}, "high": {"type": "array", "items": {}}, "unit": {"type": "string"}}}
+    schemas[f"{key}_batch_response"] = {"oneOf": [
+        {"type": "object", "required": ["calculation", "results"], "properties": {
+            "calculation": {"type": "string", "enum": [calc.name]},
+            "results": {"type": "array", "description": "one per system, in input order", "items": {"anyOf": [
+                {"$ref": f"#/components/schemas/{key}_response"},
+                {"type": "object", "required": ["error"], "additionalProperties": False,
+                 "properties": {"error": {"$ref": "#/components/schemas/Problem"}}}]}}}},
+        {"type": "object", "required": ["calculation", "count", "columns", "errors", "uncertainty", "warnings",
+                                        "provenance"], "properties": {
+            "calculation": {"type": "string", "enum": [calc.name]},
+            "count": {"type": "integer", "minimum": 1},
+            "columns": {"type": "object", "description": "each output: value, sigma (low, high) arrays over the "
+                                                         "systems and its unit, null where a system failed; extra "
+                                                         "members (e.g. events) as one entry per system",
+                        "properties": {o.name: column_result for o in calc.outputs},
+                        "additionalProperties": {"type": "array"}},
+            "errors": {"type": "array", "items": {"allOf": [
+                {"$ref": "#/components/schemas/Problem"},
+                {"type": "object", "required": ["index"], "properties": {"index": {"type": "integer", "minimum": 0}}}]}},
+            "uncertainty": {"type": "object", "required": ["method"], "properties": {
+                "method": {"oneOf": [{"type": "string"}, {"type": "array"}]}}},
+            "warnings": {"type": "array", "items": {"type": "object", "required": ["code", "message", "rows"],
+                                                    "properties": {"code": {"type": "string"},
+                                                                   "message": {"type": "string"},
+                                                                   "rows": {"type": "array",
+                                                                            "items": {"type": "integer"}}}}},
+            "provenance": {"$ref": "#/components/schemas/Provenance"}}},
+    ]}
+    paths[f"/v1/batch/{calc.name}"] = {"post": {
+        "operationId": f"batch_{key}",
+        "summary": f"{calc.title}: many systems at once",
+        "description": "Rows ({\"systems\": [...]}) are answered with one full response (or {\"error\": problem}) per "
+                       "system, in input order; columns ({\"columns\": {input: {\"value\": [...], \"sigma\": [...]}}}) "
+                       "with one array per output and the failed systems in errors with their index. Systems of one "
+                       "shape are computed together. Monte Carlo draws (systems x samples) are limited per batch.",
+        "requestBody": {"required": True, "content": {"application/json": {
+            "schema": {"$ref": f"#/components/schemas/{key}_batch_request"}}}},
+        "responses": {"200": {"description": "one answer per system", "content": {"application/json": {
+            "schema": {"$ref": f"#/components/schemas/{key}_batch_response"}}}},
+                      **_problem_responses(400, 413, 415, 422)},
+    }}
+
+
 EXTRA_PATH_BUILDERS = []   # callables (spec dict) -> None, for blueprints that add paths (e.g. batch)
 
 
@@ -161,6 +260,7 @@ def build_spec() -> dict:
         key = calc.name.replace("-", "_")
         schemas[f"{key}_request"] = request_schema(calc)
         schemas[f"{key}_response"] = _response_schema(calc)
+        _batch_paths(calc, key, schemas, paths)
         paths[calc.path] = {"post": {
             "operationId": f"calculate_{key}",
             "summary": calc.title,

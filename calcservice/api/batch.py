@@ -38,7 +38,7 @@ from ..units import UnitError, factor
 from .edge import json_body, json_response
 from .problems import Problem, invalid
 from .schemas import MEASURED_KEYS, RawQuantity
-from .service import Parsed, Rendering, build, clean_array, failure, find, load, parse, provenance, run
+from .service import Parsed, _output_units, Rendering, build, clean_array, failure, find, load, parse, provenance, run
 
 bp = Blueprint("batch", __name__)
 
@@ -118,6 +118,10 @@ def _shared(calc: Calculation, body: dict, limits: Limits) -> tuple[dict, dict]:
     """The batch's shared options, raw and loaded by the request schema (422/413 for the batch)."""
     raw = {k: body[k] for k in OPTION_KEYS if k in body}
     data = load(calc, raw, limits, partial=True)
+    errors: dict[str, list[str]] = {}
+    _output_units(calc, data.get("units", {}), errors)
+    if errors:
+        raise invalid(errors)
     samples = data.get("uncertainty", {}).get("samples")
     if samples is not None and samples > limits.max_samples:
         raise Problem(413, f"{samples} Monte Carlo draws asked for; the limit is {limits.max_samples} per system",
@@ -504,6 +508,9 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
         return _Column(value, zeros, zeros, 1.0, bad), lambda i: raw[i]
     if isinstance(raw, str) and spec.isotropic and raw == "isotropic":
         return _Column(np.full(n, 90.0), zeros, zeros, 1.0, np.zeros(n, dtype=bool), isotropic=True), lambda i: raw
+    if not isinstance(raw, (dict, str)):
+        raise invalid({where: ["must be a number, an array with one entry per system, or an object of value and "
+                               "sigma arrays"]})
     if not isinstance(raw, dict):
         # e.g. one ISO 8601 time for every system: the single-request parser takes (or words) it
         return _Column(np.full(n, np.nan), zeros, zeros, 1.0, np.ones(n, dtype=bool)), lambda i: raw
@@ -537,6 +544,9 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
         return _Column(np.full(n, np.nan), zeros, zeros, k, np.ones(n, dtype=bool)), view
     if "value" not in raw:
         raise invalid({where: ["value is missing"]})
+    for key in ("value", "sigma", "sigma_minus", "sigma_plus"):
+        if key in raw and (type(raw[key]) not in (int, float, str, list)):
+            raise invalid({f"{where}.{key}": ["must be a number or an array with one entry per system"]})
     values = spread("value")
     value, bad = _floats(values)
     keys = [key for key in ("sigma", "sigma_minus", "sigma_plus") if key in raw]
