@@ -19,7 +19,8 @@ class Limits:
     max_sample_array: int = 1_000_000            # length of a user's samples array
     max_series: int = 100_000                    # e.g. ephemeris times per request
     max_batch_rows: int = 100_000                # systems in one batch
-    max_batch_draws: int = 20_000_000            # systems x draws in one batch
+    max_batch_draws: int = 5_000_000             # systems x draws in one batch (~25 s for the slowest physics)
+    max_series_evaluations: int = 4_000_000      # systems x draws (or linear perturbations) x series points
     max_json_depth: int = 32                     # nesting of the JSON body
     max_string_length: int = 256                 # any string value (units, times, choices)
 
@@ -31,9 +32,15 @@ class Settings:
     trust_request_id: bool = True                # echo a caller's X-Request-ID when it looks sane
 
 
-def _coerce(kind, text: str):
+def _coerce(kind, text: str, name: str = "value"):
     if kind is int:
-        return int(text)
+        try:
+            number = int(str(text).strip().replace("_", ""))
+        except ValueError:
+            raise ValueError(f"{name} must be a whole number, not {text!r}") from None
+        if number < 1:
+            raise ValueError(f"{name} must be at least 1, not {number}")
+        return number
     if kind is bool:
         return text.strip().lower() in ("1", "true", "yes", "on")
     return text
@@ -47,10 +54,12 @@ def load_settings(config: Mapping | None = None, environ: Mapping[str, str] | No
     for f in fields(Limits):
         key = f"CALCSERVICE_{f.name.upper()}"
         if key in environ:
-            values[f.name] = _coerce(int, environ[key])
+            values[f.name] = _coerce(int, environ[key], key)
         if f.name.upper() in config:
-            values[f.name] = int(config[f.name.upper()])
+            values[f.name] = _coerce(int, config[f.name.upper()], f.name.upper())
     limits = replace(Limits(), **values)
+    if limits.default_samples > limits.max_samples:     # a lowered ceiling lowers the default with it
+        limits = replace(limits, default_samples=limits.max_samples)
     origins = environ.get("CALCSERVICE_CORS_ORIGINS", "")
     origins = config.get("CORS_ORIGINS", origins)
     if isinstance(origins, str):

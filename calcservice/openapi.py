@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from functools import lru_cache
+from itertools import combinations
 
 import yaml
 
@@ -63,6 +64,11 @@ def request_schema(calc: Calculation) -> dict:
     d = {"type": "object", "additionalProperties": False, "properties": props}
     if required:
         d["required"] = required
+    # exactly one of each exclusive group, at most one of each at-most-one group
+    groups = [{"oneOf": [{"required": [name]} for name in group]} for group in calc.exclusive]
+    groups += [{"not": {"required": [a, b]}} for group in calc.at_most_one for a, b in combinations(group, 2)]
+    if groups:
+        d["allOf"] = groups
     if calc.example:
         d["example"] = calc.example
     return d
@@ -107,12 +113,13 @@ COMPONENTS = {
         "unit": {"type": "string"}}},
     "Correlations": {"type": "array", "items": {"type": "object", "additionalProperties": False,
                                                 "required": ["between", "rho"], "properties": {
-        "between": {"type": "array", "items": {"type": "string"}, "minItems": 2, "maxItems": 2},
+        "between": {"type": "array", "items": {"type": "string", "maxLength": 64}, "minItems": 2, "maxItems": 2,
+                    "uniqueItems": True},
         "rho": {"type": "number", "minimum": -1, "maximum": 1}}}},
     "UncertaintyOptions": {"type": "object", "additionalProperties": False, "properties": {
         "method": {"type": "string", "enum": ["linear", "monte_carlo", "monte-carlo"], "default": "linear"},
         "samples": {"type": "integer", "minimum": 1},
-        "seed": {"type": "integer", "minimum": 0}}},
+        "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1}}},
     "UncertaintyReport": {"type": "object", "required": ["method"], "properties": {
         "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
         "samples": {"type": "integer"}, "seed": {"type": "integer"},
