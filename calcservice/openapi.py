@@ -144,6 +144,33 @@ def _get(summary: str, schema: dict | None = None, content_type: str = "applicat
         **_problem_responses(404)}}}
 
 
+RENDERED_CONTENT = {
+    "text/x-tex": {"schema": {"type": "string", "description": "LaTeX derivation report (format=latex)"}},
+    "text/markdown": {"schema": {"type": "string", "description": "Markdown derivation report (format=markdown)"}},
+    "image/svg+xml": {"schema": {"type": "string", "description": "figure (format=svg)"}},
+    "image/png": {"schema": {"type": "string", "contentMediaType": "image/png", "description": "figure (format=png)"}},
+}
+
+
+def _format_parameters(calc: Calculation) -> list[dict]:
+    """The ``format`` and ``plot`` query parameters of a calculation's endpoint."""
+    from .api.render import FORMATS
+    from .plots import has_curve
+    curve = ("without plot, svg and png draw the radial-velocity curves of both stars with the requested times "
+             "marked (and the relative orbit when visual elements are given); " if has_curve(calc) else "")
+    return [
+        {"name": "format", "in": "query", "required": False,
+         "description": "json (default): the response; latex or markdown: the derivation report (inputs, formulas "
+                        "with references, constants with sources, conventions, uncertainty method), numbers rounded "
+                        "by the Particle Data Group rule; svg or png: a figure",
+         "schema": {"type": "string", "enum": ["json", *FORMATS], "default": "json"}},
+        {"name": "plot", "in": "query", "required": False,
+         "description": f"with format=svg or png: {curve}plot=NAME draws the histogram of output NAME's Monte Carlo "
+                        "draws with the median and the central 68.27 % interval (needs the Monte Carlo method)",
+         "schema": {"type": "string", "enum": [o.name for o in calc.outputs]}},
+    ]
+
+
 ANY_ITEMS = {"type": "array", "minItems": 1, "items": {}}
 BATCH_OPTIONS = {
     "correlations": {"$ref": "#/components/schemas/Correlations"},
@@ -272,13 +299,15 @@ def build_spec() -> dict:
             "operationId": f"calculate_{key}",
             "summary": calc.title,
             "description": calc.summary,
-            "parameters": [{"name": "format", "in": "query", "required": False,
-                            "schema": {"type": "string", "enum": ["json"], "default": "json"}}],
+            "parameters": _format_parameters(calc),
             "requestBody": {"required": True, "content": {"application/json": {
                 "schema": {"$ref": f"#/components/schemas/{key}_request"}}}},
-            "responses": {"200": {"description": "the derived quantities with uncertainties and provenance",
+            "responses": {"200": {"description": "the derived quantities with uncertainties and provenance "
+                                                 "(JSON), the derivation report (format=latex|markdown) or a "
+                                                 "figure (format=svg|png)",
                                   "content": {"application/json": {
-                                      "schema": {"$ref": f"#/components/schemas/{key}_response"}}}},
+                                      "schema": {"$ref": f"#/components/schemas/{key}_response"}},
+                                      **RENDERED_CONTENT}},
                           **_problem_responses(400, 413, 415, 422)},
         }}
     spec = {

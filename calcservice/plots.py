@@ -1,0 +1,310 @@
+"""Figures of a response: radial-velocity curves (and the relative orbit) of a time series,
+and histograms of Monte Carlo draws.
+
+Rendering is headless (matplotlib's Agg and SVG canvases through the object-oriented
+API, never pyplot, so no global backend state and no display).  matplotlib is imported
+only when a figure is asked for.
+
+The functions here know nothing about HTTP.  A time-series figure needs the calculation
+re-evaluated on a fine time grid: the caller passes ``evaluate(body) -> response``.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from typing import Any, Callable, Mapping
+
+import numpy as np
+
+from .registry import Calculation
+from .units import factor
+
+MIMETYPES = {"svg": "image/svg+xml", "png": "image/png"}
+#: Points per orbital period of the dense curve (spaced evenly in eccentric anomaly, so an
+#: eccentric orbit's quick periastron passage is as well sampled as its slow apastron).
+POINTS_PER_PERIOD = 720
+#: A series spanning more periods than this is plotted against orbital phase.
+MAX_CYCLES_IN_TIME = 3.0
+MAX_BINS = 80
+STAR_COLOURS = ("#1f5aa6", "#c8501e")
+
+
+class PlotError(ValueError):
+    """A figure that cannot be drawn for this request; ``field`` names what to change."""
+
+    def __init__(self, field: str, message: str):
+        super().__init__(message)
+        self.field = field
+        self.message = message
+
+
+def _new_figure(width: float, height: float):
+    from matplotlib.figure import Figure
+    return Figure(figsize=(width, height), dpi=100, layout="constrained")
+
+
+def figure_bytes(fig, fmt: str) -> bytes:
+    """The figure as SVG (text kept as text, no timestamp, stable ids) or PNG."""
+    import matplotlib
+    buf = io.BytesIO()
+    with matplotlib.rc_context({"svg.fonttype": "none", "svg.hashsalt": "calcservice"}):
+        if fmt == "svg":
+            fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": "calcservice"})
+        elif fmt == "png":
+            fig.savefig(buf, format="png", dpi=120, metadata={"Software": "calcservice"})
+        else:
+            raise ValueError(f"unknown figure format {fmt!r}")
+    return buf.getvalue()
+
+
+def _label(name: str, unit: str) -> str:
+    return f"{name} [{unit}]" if unit else f"{name} [dimensionless]"
+
+
+# --------------------------------------------------------------------------- histograms
+def histogram(name: str, draws: np.ndarray, entry: Mapping[str, Any], fmt: str, description: str = "",
+              canonical_unit: str | None = None) -> bytes:
+    """Histogram of the Monte Carlo draws of one output, with the median and the 68.27 % interval marked.
+
+    ``draws`` are in the output's canonical unit; ``entry`` is the response's result (in the
+    unit the response gives, which may differ when the request asked for other units).
+    """
+    unit = entry.get("unit", "")
+    d = np.asarray(draws, dtype=float).reshape(-1)
+    if canonical_unit is not None and unit != canonical_unit:
+        d = d * factor(canonical_unit, unit)
+    d = d[np.isfinite(d)]
+    if d.size == 0:
+        raise PlotError("plot", f"{name} has no finite Monte Carlo draws to plot")
+    fig = _new_figure(7.0, 4.4)
+    ax = fig.add_subplot()
+    edges = np.histogram_bin_edges(d, bins="fd") if d.size > 1 and np.ptp(d) > 0 else 10
+    if not np.isscalar(edges) and len(edges) > MAX_BINS + 1:
+        edges = MAX_BINS
+    ax.hist(d, bins=edges, color="#9db7d5", edgecolor="#4d6f96", linewidth=0.4)
+    median, low, high = entry.get("value"), entry.get("low"), entry.get("high")
+    if all(isinstance(x, (int, float)) and math.isfinite(x) for x in (low, high)):
+        ax.axvspan(low, high, color="#f0b45a", alpha=0.25, zorder=0, label="central 68.27 % interval")
+        ax.axvline(low, color="#b87a1e", linestyle="--", linewidth=1.0)
+        ax.axvline(high, color="#b87a1e", linestyle="--", linewidth=1.0)
+    if isinstance(median, (int, float)) and math.isfinite(median):
+        from .report import STYLES, printed_entry
+        ax.axvline(median, color="#7a1e1e", linewidth=1.6,
+                   label=f"median {STYLES['text'].number(printed_entry(entry))}")
+    ax.set_xlabel(_label(name, unit))
+    ax.set_ylabel("number of draws")
+    title = f"{name}: {d.size} Monte Carlo draws"
+    ax.set_title(title + (f"\n{description}" if description else ""), fontsize=10)
+    ax.legend(loc="best", fontsize=8, frameon=False)
+    return figure_bytes(fig, fmt)
+
+
+# --------------------------------------------------------------------------- time series
+def time_series_input(calc: Calculation) -> str | None:
+    """The name of the calculation's series input of times, if it has one."""
+    for spec in calc.inputs:
+        if spec.kind == "series" and spec.time:
+            return spec.name
+    return None
+
+
+def series_key(calc: Calculation) -> str | None:
+    """The key under which a response's ``series`` holds the time series input's values."""
+    name = time_series_input(calc)
+    if name is None:
+        return None
+    return getattr(calc.input(name), "label", None) or name
+
+
+def has_curve(calc: Calculation) -> bool:
+    """Whether the calculation gives radial velocities along a time series (e.g. an ephemeris)."""
+    return time_series_input(calc) is not None and any(o.name == "rv1" for o in calc.outputs)
+
+
+def _value(inputs: Mapping[str, Any], name: str) -> float | None:
+    entry = inputs.get(name)
+    v = entry.get("value") if isinstance(entry, dict) else None
+    return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) else None
+
+
+def nominal_body(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, Any] | None,
+                 times: np.ndarray) -> dict:
+    """A request for the nominal values of the response's inputs at ``times`` (exact inputs, linear).
+
+    The inputs echoed by a response are in canonical units (times as JD), so the new
+    request gives no units and no time format.
+    """
+    series_name = time_series_input(calc)
+    body: dict[str, Any] = {}
+    isotropic = False
+    for spec in calc.inputs:
+        entry = response.get("inputs", {}).get(spec.name)
+        if spec.name == series_name:
+            body[spec.name] = [float(t) for t in times]
+            continue
+        if not isinstance(entry, dict) or entry.get("default"):
+            continue
+        if spec.kind in ("choice", "integer"):
+            body[spec.name] = entry["value"]
+        elif entry.get("value") == "isotropic":
+            body[spec.name] = "isotropic"
+            isotropic = True
+        elif spec.kind == "quantity":
+            body[spec.name] = entry["value"]
+    if request and isinstance(request.get("units"), dict):
+        body["units"] = dict(request["units"])
+    if isotropic:
+        # random orientations need draws; a handful is enough for the median curve
+        body["uncertainty"] = {"method": "monte_carlo", "samples": 64, "seed": 1}
+    return body
+
+
+def dense_times(times: np.ndarray, period: float | None, t_periastron: float | None,
+                eccentricity: float | None) -> tuple[np.ndarray, str]:
+    """A fine time grid for the curve and the x-axis mode ("time" or "phase").
+
+    Over a few periods the grid spans the requested times (at least one full period);
+    over many it is one period from periastron and the figure is drawn against phase.
+    Points are spaced evenly in eccentric anomaly E: t = T0 + P (E - e sin E) / (2 pi).
+    """
+    times = np.asarray(times, dtype=float)
+    lo, hi = float(np.min(times)), float(np.max(times))
+    if period is None or not period > 0:
+        pad = max(hi - lo, 1.0) * 0.05
+        return np.linspace(lo - pad, hi + pad, 1200), "time"
+    t0 = lo if t_periastron is None else t_periastron
+    e = 0.0 if eccentricity is None else min(max(eccentricity, 0.0), 0.999)
+    span = hi - lo
+    if span > MAX_CYCLES_IN_TIME * period:
+        ecc = np.linspace(0.0, 2.0 * np.pi, POINTS_PER_PERIOD + 1)
+        return t0 + period * (ecc - e * np.sin(ecc)) / (2.0 * np.pi), "phase"
+    if span < period:
+        mid = 0.5 * (lo + hi)
+        lo, hi = mid - 0.5 * period, mid + 0.5 * period
+    else:
+        pad = 0.03 * span
+        lo, hi = lo - pad, hi + pad
+    first, last = math.floor((lo - t0) / period), math.ceil((hi - t0) / period)
+    ecc = np.linspace(0.0, 2.0 * np.pi, POINTS_PER_PERIOD, endpoint=False)
+    cycles = np.arange(first, last + 1)[:, None]
+    grid = (t0 + period * (cycles + (ecc - e * np.sin(ecc)) / (2.0 * np.pi))).reshape(-1)
+    grid = np.concatenate([grid, np.linspace(lo, hi, 400)])
+    grid = np.unique(grid[(grid >= lo) & (grid <= hi)])
+    return grid, "time"
+
+
+def _series(response: Mapping[str, Any]) -> dict:
+    return response.get("results", {}).get("series", {}) or {}
+
+
+def _arr(entry: Mapping[str, Any] | None, key: str = "value") -> np.ndarray | None:
+    if not entry or entry.get(key) is None:
+        return None
+    return np.array([np.nan if v is None else v for v in entry[key]], dtype=float)
+
+
+def _errors(entry: Mapping[str, Any]) -> np.ndarray | None:
+    v = _arr(entry)
+    low, high = _arr(entry, "low"), _arr(entry, "high")
+    if low is not None and high is not None:
+        return np.vstack([v - low, high - v])
+    return _arr(entry, "sigma")
+
+
+def curve(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, Any] | None, fmt: str,
+          evaluate: Callable[[dict], Mapping[str, Any]]) -> bytes:
+    """Radial-velocity curves of both stars with the requested times marked; the relative orbit
+    on the sky beside them when the response has position angles and projected separations."""
+    series_name = series_key(calc)
+    points = _series(response)
+    times = _arr(points.get(series_name))
+    if times is None or "rv1" not in points:
+        raise PlotError("format", f"{calc.name} gave no radial velocities to plot for these inputs")
+    inputs = response.get("inputs", {})
+    period = _value(inputs, "period")
+    grid, mode = dense_times(times, period, _value(inputs, "t_periastron"), _value(inputs, "eccentricity"))
+    dense = _series(evaluate(nominal_body(calc, response, request, grid)))
+    orbit = all(k in dense and k in points for k in ("position_angle", "projected_separation"))
+
+    fig = _new_figure(12.0 if orbit else 8.0, 4.8)
+    axes = fig.subplots(1, 2, width_ratios=(1.6, 1.0)) if orbit else [fig.add_subplot()]
+    ax = axes[0]
+    if mode == "phase":
+        x_dense, x_points = _arr(dense["phase"]), _arr(points["phase"])
+        order = np.argsort(x_dense)
+        ax.set_xlabel("orbital phase since periastron [dimensionless]")
+        ax.set_xlim(0.0, 1.0)
+    else:
+        offset = math.floor(float(np.min(grid)) / 1e4) * 1e4 if np.min(grid) > 1e5 else 0.0
+        x_dense, x_points = _arr(dense[series_name]) - offset, times - offset
+        order = np.arange(len(x_dense))
+        unit = points[series_name].get("unit", "d")
+        ax.set_xlabel(f"JD − {offset:.0f} [{unit}]" if offset else f"JD [{unit}]")
+        periastra = response.get("results", {}).get("events", {})
+        periastra = periastra.get("periastron", []) if isinstance(periastra, dict) else []
+        shown = False
+        for ev in periastra:
+            t = ev.get("value")
+            if isinstance(t, (int, float)) and float(np.min(grid)) <= t <= float(np.max(grid)):
+                ax.axvline(t - offset, color="#888888", linestyle=":", linewidth=1.0,
+                           label=None if shown else "periastron")
+                shown = True
+    rv_unit = points["rv1"].get("unit", "")
+    for k, (key, colour) in enumerate(zip(("rv1", "rv2"), STAR_COLOURS)):
+        if key not in dense or key not in points:
+            continue
+        y = _arr(dense[key])
+        ax.plot(x_dense[order], y[order], color=colour, linewidth=1.4, label=f"star {k + 1} ({key})")
+        ax.errorbar(x_points, _arr(points[key]), yerr=_errors(points[key]), fmt="o", color=colour,
+                    markersize=5, markeredgecolor="white", markeredgewidth=0.6, capsize=2.5, elinewidth=1.0,
+                    label=f"requested times ({key})")
+    gamma = _value(inputs, "gamma")
+    if gamma is not None and "gamma" in inputs:
+        g_unit = inputs["gamma"].get("unit", rv_unit)
+        try:
+            g = gamma * (factor(g_unit, rv_unit) if g_unit and rv_unit and g_unit != rv_unit else 1.0)
+            ax.axhline(g, color="#555555", linewidth=0.8, linestyle="--", label="systemic velocity")
+        except Exception:
+            pass
+    ax.set_ylabel(f"radial velocity [{rv_unit}]")
+    ax.set_title(f"{calc.title}: radial velocities (positive receding)", fontsize=10)
+    ax.legend(loc="best", fontsize=8, frameon=False)
+    ax.grid(True, linewidth=0.3, alpha=0.5)
+
+    if orbit:
+        _relative_orbit(axes[1], dense, points)
+    return figure_bytes(fig, fmt)
+
+
+def _sky(entry_rho, entry_pa) -> tuple[np.ndarray, np.ndarray]:
+    rho, pa = _arr(entry_rho), np.radians(_arr(entry_pa))
+    # position angle from north through east: east offset rho sin(theta), north offset rho cos(theta)
+    return rho * np.sin(pa), rho * np.cos(pa)
+
+
+def _relative_orbit(ax, dense: Mapping[str, Any], points: Mapping[str, Any]) -> None:
+    unit = dense["projected_separation"].get("unit", "")
+    east, north = _sky(dense["projected_separation"], dense["position_angle"])
+    ax.plot(east, north, color="#3b7a3b", linewidth=1.3, label="star 2 about star 1")
+    pe, pn = _sky(points["projected_separation"], points["position_angle"])
+    ax.plot(pe, pn, "o", color="#3b7a3b", markersize=5, markeredgecolor="white", label="requested times")
+    ax.plot([0.0], [0.0], marker="*", color="#222222", markersize=11, linestyle="none", label="star 1")
+    sep = _arr(dense.get("separation"))
+    if sep is not None and np.any(np.isfinite(sep)):
+        k = int(np.nanargmin(sep))
+        ax.plot([east[k]], [north[k]], marker="s", color="#c8501e", markersize=5, linestyle="none",
+                label="periastron")
+    finite = np.flatnonzero(np.isfinite(east) & np.isfinite(north))
+    if finite.size > 8:
+        a, b = finite[finite.size // 4], finite[finite.size // 4 + 2]
+        ax.annotate("", xy=(east[b], north[b]), xytext=(east[a], north[a]),
+                    arrowprops={"arrowstyle": "->", "color": "#3b7a3b", "lw": 1.4})
+    ax.set_aspect("equal", adjustable="datalim")
+    if not ax.xaxis_inverted():
+        ax.invert_xaxis()               # east to the left, as on the sky
+    ax.set_xlabel(f"east offset [{unit}]")
+    ax.set_ylabel(f"north offset [{unit}]")
+    ax.set_title("relative orbit on the sky (north up, east left)", fontsize=10)
+    ax.legend(loc="best", fontsize=8, frameon=False)
+    ax.grid(True, linewidth=0.3, alpha=0.5)

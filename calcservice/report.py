@@ -1,0 +1,604 @@
+"""The derivation report: a response printed for a paper or a referee, in LaTeX, Markdown or plain text.
+
+Numbers are rounded for print by the Particle Data Group rule (Review of Particle
+Physics, introduction, "Rounding"): the three highest-order digits of the uncertainty
+decide how many significant digits it keeps —
+
+* 100 to 354: two significant digits;
+* 355 to 949: one significant digit;
+* 950 to 999: round up to 1000 and keep two significant digits
+
+— and the value is rounded to the same decimal place.  The JSON response keeps full
+precision; only this printed form is rounded.
+
+The report is built from the response (which already carries inputs, results,
+provenance and the uncertainty method) and the calculation's declaration (for the
+descriptions of inputs and outputs), so every calculation in the registry gets one
+without extra code.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from decimal import ROUND_HALF_UP, Context, Decimal, localcontext
+from typing import Any, Iterable, Mapping
+
+from .registry import Calculation
+
+#: Beyond this many significant digits a double carries no information; an uncertainty far smaller
+#: than the value's last representable digit is then treated as negligible for print.
+MAX_SIGNIFICANT = 16
+#: Significant digits printed for exact numbers (no uncertainty).
+EXACT_DIGITS = 6
+#: Values outside [1e-3, 1e7) (Julian Dates stay plain) are printed with a common power of ten.
+PLAIN_RANGE = (-3, 6)
+#: Series longer than this are summarised in the report instead of tabulated.
+MAX_SERIES_ROWS = 200
+
+_CONTEXT = Context(prec=800, Emax=10_000, Emin=-10_000)
+
+
+def _decimal(x: float) -> Decimal:
+    # repr gives the shortest string that round-trips, so 0.354 is 0.354 and not 0.35399999...
+    return Decimal(repr(float(x)))
+
+
+def leading_digits(sigma: float) -> tuple[int, int]:
+    """The three highest-order digits of ``sigma`` (100..999) and the power of ten of the first one."""
+    d = _decimal(abs(sigma))
+    if d == 0:
+        raise ValueError("an uncertainty of zero has no leading digits")
+    digits = "".join(map(str, d.as_tuple().digits)).lstrip("0")
+    return int((digits + "000")[:3]), d.adjusted()
+
+
+def pdg_place(sigma: float) -> int:
+    """The power of ten of the last digit kept when printing a number with uncertainty ``sigma``.
+
+    The three highest-order digits decide: 100-354 keep two significant digits, 355-949 one,
+    950-999 are rounded up to 1000 and keep two (so the last digit is that of the old leading one).
+    """
+    three, lead = leading_digits(sigma)
+    if three <= 354:
+        return lead - 1
+    return lead
+
+
+def round_at(x: float | Decimal, place: int) -> Decimal:
+    """``x`` rounded (half away from zero) at the digit of 10**place; never a negative zero."""
+    with localcontext(_CONTEXT):
+        d = x if isinstance(x, Decimal) else _decimal(x)
+        q = d.quantize(Decimal(1).scaleb(place), rounding=ROUND_HALF_UP)
+        return abs(q) if q == 0 else q
+
+
+def round_sigma(sigma: float) -> Decimal:
+    """The uncertainty as printed: one or two significant digits by the PDG rule (950-999 -> 1000)."""
+    three, lead = leading_digits(sigma)
+    if three >= 950:
+        with localcontext(_CONTEXT):
+            return Decimal(1).scaleb(lead + 1).quantize(Decimal(1).scaleb(lead))
+    return round_at(sigma, pdg_place(sigma))
+
+
+def pdg_round(value: float, sigma: float) -> tuple[str, str]:
+    """``value`` and ``sigma`` as printed by the PDG rule, in plain decimal notation.
+
+    >>> pdg_round(1.2345, 0.827)
+    ('1.2', '0.8')
+    """
+    place = pdg_place(sigma)
+    return _plain(round_at(value, place)), _plain(round_sigma(sigma))
+
+
+def _plain(d: Decimal, shift: int = 0) -> str:
+    with localcontext(_CONTEXT):
+        return format(d.scaleb(-shift), "f")
+
+
+@dataclass(frozen=True)
+class Printed:
+    """A number ready to print: digits as strings and a common power of ten (0 when none)."""
+
+    value: str
+    sigma: str | None = None
+    plus: str | None = None
+    minus: str | None = None
+    exponent: int = 0
+
+    @property
+    def exact(self) -> bool:
+        return self.sigma is None and self.plus is None
+
+
+def _finite(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def _exponent_for(largest: float) -> int:
+    if largest == 0 or not math.isfinite(largest):
+        return 0
+    e = _decimal(abs(largest)).adjusted()
+    return 0 if PLAIN_RANGE[0] <= e <= PLAIN_RANGE[1] else e
+
+
+def _exact(value: float, digits: int = EXACT_DIGITS) -> Printed:
+    if value == 0:
+        return Printed("0")
+    lead = _decimal(abs(value)).adjusted()
+    exponent = _exponent_for(value)
+    d = round_at(value, lead - digits + 1).normalize(_CONTEXT)
+    text = _plain(d, exponent)
+    if "." in text:
+        text = text.rstrip("0").rstrip(".")
+    return Printed(text, exponent=exponent)
+
+
+def _bounded_place(value: float, place: int) -> int:
+    """Never print more digits than a double holds (an uncertainty far below the value's precision)."""
+    if value != 0 and math.isfinite(value):
+        lead = _decimal(abs(value)).adjusted()
+        return max(place, lead - MAX_SIGNIFICANT + 1)
+    return place
+
+
+def printed(value, sigma=None, minus=None, plus=None, digits: int = EXACT_DIGITS) -> Printed | None:
+    """A measured number rounded for print: symmetric ``sigma``, or asymmetric ``minus``/``plus``.
+
+    With asymmetric errors the smaller one sets the decimal place (so neither is printed with
+    fewer digits than the rule asks of it), and both are rounded there.  Without a positive,
+    finite uncertainty the value is printed with ``digits`` significant digits.
+    """
+    if not _finite(value):
+        return None
+    value = float(value)
+    if _finite(minus) and _finite(plus) and (minus > 0 or plus > 0):
+        small = min(x for x in (minus, plus) if x > 0)
+        place = _bounded_place(value, pdg_place(small))
+        if math.isclose(minus, plus, rel_tol=1e-12):
+            return printed(value, sigma=minus, digits=digits)
+        exponent = _exponent_for(max(abs(value), plus, minus))
+        lo = round_sigma(minus) if minus == small else round_at(minus, place)
+        hi = round_sigma(plus) if plus == small else round_at(plus, place)
+        place = min(place, lo.as_tuple().exponent, hi.as_tuple().exponent)
+        if _plain(lo) == _plain(hi):
+            return Printed(_plain(round_at(value, place), exponent), sigma=_plain(hi, exponent), exponent=exponent)
+        return Printed(_plain(round_at(value, place), exponent), plus=_plain(hi, exponent),
+                       minus=_plain(lo, exponent), exponent=exponent)
+    if _finite(sigma) and sigma > 0:
+        place = pdg_place(sigma)
+        bounded = _bounded_place(value, place)
+        if bounded != place:
+            return _exact(value, MAX_SIGNIFICANT)
+        exponent = _exponent_for(max(abs(value), sigma))
+        return Printed(_plain(round_at(value, place), exponent), sigma=_plain(round_sigma(sigma), exponent),
+                       exponent=exponent)
+    return _exact(value, digits)
+
+
+def printed_entry(entry: Mapping[str, Any], digits: int = EXACT_DIGITS) -> Printed | None:
+    """A response's measured entry ({"value", "sigma"[, "low", "high"]}) rounded for print.
+
+    Monte Carlo entries print the median with the central 68.27 % interval as +/- errors.
+    """
+    value = entry.get("value")
+    low, high = entry.get("low"), entry.get("high")
+    if _finite(value) and _finite(low) and _finite(high):
+        return printed(value, minus=value - low, plus=high - value, digits=digits)
+    if "sigma_minus" in entry and "sigma_plus" in entry:
+        return printed(value, minus=entry["sigma_minus"], plus=entry["sigma_plus"], digits=digits)
+    return printed(value, sigma=entry.get("sigma"), digits=digits)
+
+
+# --------------------------------------------------------------------------- styles
+class Style:
+    """How one output format writes numbers, units, names and tables."""
+
+    name = "text"
+    pm = "+-"
+
+    def text(self, s: str) -> str:
+        return s
+
+    def code(self, s: str) -> str:
+        return s
+
+    def unit(self, unit: str) -> str:
+        return unit or ""
+
+    def number(self, p: Printed | None) -> str:
+        if p is None:
+            return "-"
+        if p.exact:
+            core = p.value
+        elif p.sigma is not None:
+            core = f"{p.value} {self.pm} {p.sigma}"
+        else:
+            core = f"{p.value} +{p.plus} -{p.minus}"
+        if p.exponent:
+            return f"({core}) x 10^{p.exponent}" if not p.exact else f"{core} x 10^{p.exponent}"
+        return core
+
+
+class Text(Style):
+    pm = "±"
+
+    def number(self, p):
+        s = super().number(p)
+        return s.replace(" x 10^", " × 10^").replace(" -", " −") if p is not None else s
+
+
+class Markdown(Style):
+    name = "markdown"
+    pm = "±"
+
+    def text(self, s: str) -> str:
+        out = str(s)
+        for ch in "\\`*_<>|":
+            out = out.replace(ch, "\\" + ch)
+        return out
+
+    def code(self, s: str) -> str:
+        return f"`{str(s).replace('`', '')}`"
+
+    def unit(self, unit: str) -> str:
+        return self.text(unit) if unit else ""
+
+    def number(self, p):
+        if p is None:
+            return "–"
+        if p.exact:
+            core = p.value
+        elif p.sigma is not None:
+            core = f"{p.value} ± {p.sigma}"
+        else:
+            core = f"{p.value} +{p.plus} / −{p.minus}"
+        if p.exponent:
+            return f"{core} × 10<sup>{p.exponent}</sup>" if p.exact else f"({core}) × 10<sup>{p.exponent}</sup>"
+        return core
+
+
+_LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
+                  "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}",
+                  "<": r"\textless{}", ">": r"\textgreater{}", "|": r"\textbar{}"}
+
+
+class Latex(Style):
+    name = "latex"
+
+    def text(self, s: str) -> str:
+        return "".join(_LATEX_SPECIAL.get(ch, ch) for ch in str(s))
+
+    def code(self, s: str) -> str:
+        return r"\texttt{" + self.text(s) + "}"
+
+    def unit(self, unit: str) -> str:
+        if not unit:
+            return ""
+        try:
+            from astropy import units as u
+            return u.Unit(unit).to_string("latex_inline")
+        except Exception:
+            return self.text(unit)
+
+    def number(self, p):
+        if p is None:
+            return "--"
+        if p.exact:
+            core = p.value
+        elif p.sigma is not None:
+            core = rf"{p.value} \pm {p.sigma}"
+        else:
+            core = rf"{p.value}^{{+{p.plus}}}_{{-{p.minus}}}"
+        if p.exponent:
+            core = (rf"{core} \times 10^{{{p.exponent}}}" if p.exact
+                    else rf"({core}) \times 10^{{{p.exponent}}}")
+        return f"${core}$"
+
+
+STYLES = {"text": Text(), "markdown": Markdown(), "latex": Latex()}
+
+
+# --------------------------------------------------------------------------- the report's content
+def is_measured(x: Any) -> bool:
+    return isinstance(x, dict) and "value" in x and "unit" in x and not isinstance(x.get("value"), (list, dict))
+
+
+def _given(entry: Mapping[str, Any], style: Style) -> str:
+    """An input as the request gave it (not rounded: these are the caller's own numbers)."""
+    v = entry.get("value")
+    if v == "isotropic":
+        return style.text("isotropic (cos i uniform)")
+    if "count" in entry and "value" not in entry:
+        return style.text(f"{entry['count']} values")
+    if not _finite(v):
+        return style.code(str(v))
+    if entry.get("samples"):
+        p = printed(v, sigma=entry.get("sigma"))
+        return style.number(p) + style.text(f" (median and sd of {entry['samples']} samples)")
+    full = 10
+    if "sigma_minus" in entry:
+        p = Printed(_exact(v, full).value, plus=_exact(entry["sigma_plus"], full).value,
+                    minus=_exact(entry["sigma_minus"], full).value)
+        return style.number(p)
+    s = entry.get("sigma")
+    if _finite(s) and s > 0:
+        return style.number(Printed(format(v, ".12g"), sigma=format(s, ".12g")))
+    text = style.number(Printed(format(v, ".12g")))
+    return text + (style.text(" (default)") if entry.get("default") else "")
+
+
+def _references_of(calc: Calculation | None, output_name: str, references: list[str]) -> list[int]:
+    """1-based indices into ``references`` of the sources of one output (all of them unless declared)."""
+    declared = None
+    if calc is not None:
+        try:
+            declared = getattr(calc.output(output_name), "references", None)
+        except KeyError:
+            declared = None
+    if declared:
+        idx = []
+        for r in declared:
+            if isinstance(r, int):
+                idx.append(r + 1)
+            elif r in references:
+                idx.append(references.index(r) + 1)
+        if idx:
+            return idx
+    return list(range(1, len(references) + 1))
+
+
+def _cite(indices: list[int], dash: str = "–") -> str:
+    if not indices:
+        return ""
+    if indices == list(range(indices[0], indices[-1] + 1)) and len(indices) > 2:
+        return f"[{indices[0]}{dash}{indices[-1]}]"
+    return "[" + ", ".join(map(str, indices)) + "]"
+
+
+def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str, Any]] = ()) -> list[str]:
+    lines = []
+    if unc.get("method") == "monte_carlo":
+        lines.append(f"Monte Carlo with {unc.get('samples')} draws, seed {unc.get('seed')}; "
+                     f"rejected fraction {unc.get('rejected_fraction', 0):.4g}; results are the median with the "
+                     "central 68.27 % interval, inputs drawn normal (split normal when asymmetric), "
+                     "truncated to their physical domains")
+    else:
+        lines.append("linear (first-order) propagation through a numerical Jacobian, with the input covariance "
+                     "built from the sigmas and correlations")
+    corr = [c for c in correlations or () if isinstance(c, Mapping) and "between" in c]
+    if corr:
+        lines.append("correlations: " + ", ".join(f"rho({c['between'][0]}, {c['between'][1]}) = {c['rho']}"
+                                                  for c in corr))
+    return lines
+
+
+def series_rows(series: Mapping[str, Any]) -> tuple[list[str], list[str], list[list[Any]]]:
+    names = [k for k, v in series.items() if isinstance(v, dict) and isinstance(v.get("value"), list)]
+    units = [series[k].get("unit", "") for k in names]
+    length = max((len(series[k]["value"]) for k in names), default=0)
+    rows = []
+    for i in range(length):
+        row = []
+        for k in names:
+            s = series[k]
+            entry = {key: (s[key][i] if isinstance(s.get(key), list) and i < len(s[key]) else None)
+                     for key in ("value", "sigma", "low", "high")}
+            row.append(entry)
+        rows.append(row)
+    return names, units, rows
+
+
+def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]:
+    """Extra members of the results made of lists of dated/measured entries (e.g. an ephemeris's events)."""
+    out = []
+    for key, member in members.items():
+        if isinstance(member, dict):
+            unit = member.get("unit", "")
+            for sub, entries in member.items():
+                if isinstance(entries, list) and entries and all(isinstance(e, dict) for e in entries):
+                    out.append((f"{key}: {sub}", unit, entries))
+        elif isinstance(member, list) and member and all(isinstance(e, dict) for e in member):
+            out.append((key, "", member))
+    return out
+
+
+class _Doc:
+    """A report document being written in one style: headings, paragraphs, tables, lists."""
+
+    def __init__(self, style: Style):
+        self.style = style
+        self.lines: list[str] = []
+
+    def heading(self, text: str):
+        s = self.style
+        if s.name == "latex":
+            self.lines += [rf"\paragraph{{{s.text(text)}}}", ""]
+        elif s.name == "markdown":
+            self.lines += [f"### {s.text(text)}", ""]
+        else:
+            self.lines += [text, "-" * len(text)]
+
+    def para(self, text: str):
+        self.lines += [text, ""]
+
+    def items(self, entries: list[str], numbered: bool = False):
+        s = self.style
+        if not entries:
+            return
+        if s.name == "latex":
+            env = "enumerate" if numbered else "itemize"
+            self.lines.append(rf"\begin{{{env}}}")
+            self.lines += [rf"  \item {e}" for e in entries]
+            self.lines += [rf"\end{{{env}}}", ""]
+        else:
+            for k, e in enumerate(entries, 1):
+                self.lines.append(f"{k}. {e}" if numbered else f"- {e}")
+            self.lines.append("")
+
+    def table(self, header: list[str], rows: list[list[str]], align: str | None = None):
+        s = self.style
+        align = align or "l" * len(header)
+        if s.name == "latex":
+            self.lines.append(rf"\begin{{tabular}}{{{align}}}")
+            self.lines.append(r"\hline")
+            self.lines.append(" & ".join(header) + r" \\")
+            self.lines.append(r"\hline")
+            self.lines += [" & ".join(r) + r" \\" for r in rows]
+            self.lines.append(r"\hline")
+            self.lines += [r"\end{tabular}", ""]
+        elif s.name == "markdown":
+            self.lines.append("| " + " | ".join(header) + " |")
+            self.lines.append("|" + "|".join(":---" if a == "l" else "---:" for a in align) + "|")
+            self.lines += ["| " + " | ".join(r) + " |" for r in rows]
+            self.lines.append("")
+        else:
+            widths = [max(len(str(c)) for c in col) for col in zip(header, *rows)]
+            fmt = lambda r: "  ".join(str(c).ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
+            self.lines += [fmt(header), fmt(["-" * w for w in widths])] + [fmt(r) for r in rows] + [""]
+
+    def text(self) -> str:
+        return "\n".join(self.lines).rstrip() + "\n"
+
+
+def report(response: Mapping[str, Any], calc: Calculation | None = None, style: str = "markdown",
+           request: Mapping[str, Any] | None = None) -> str:
+    """The derivation report of one response in ``style`` ("latex", "markdown" or "text")."""
+    s = STYLES[style]
+    doc = _Doc(s)
+    prov = response.get("provenance", {})
+    version = prov.get("version", "")
+    name = response.get("calculation", "")
+    title = calc.title if calc is not None else name
+    references = list(prov.get("references", []))
+    formulas = prov.get("formulas", {})
+
+    if s.name == "latex":
+        doc.lines += [f"% Derivation report by calcservice {version}: {name}",
+                      "% Numbers rounded for print by the Particle Data Group rule; the JSON response keeps full "
+                      "precision.", "% Units use astropy's LaTeX forms (\\mathrm, \\odot): plain LaTeX, no packages.",
+                      ""]
+        doc.lines += [rf"\subsection*{{{s.text(title)} ({s.code(name)})}}", ""]
+    elif s.name == "markdown":
+        doc.lines += [f"## {s.text(title)} ({s.code(name)})", ""]
+    else:
+        head = f"{title} ({name})"
+        doc.lines += [head, "=" * len(head), ""]
+
+    doc.heading("Inputs")
+    rows = []
+    for key, entry in response.get("inputs", {}).items():
+        desc = ""
+        if calc is not None:
+            try:
+                desc = calc.input(key).description
+            except KeyError:
+                pass
+        unit = entry.get("unit", "") if isinstance(entry, dict) else ""
+        rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
+                     s.unit(unit), s.text(desc)])
+    doc.table(["input", "value", "unit", "description"], rows)
+
+    results = response.get("results", {})
+    measured = {k: v for k, v in results.items() if is_measured(v)}
+    rows = []
+    for key, entry in measured.items():
+        desc = ""
+        if calc is not None:
+            try:
+                desc = calc.output(key).description
+            except KeyError:
+                pass
+        rows.append([s.code(key), s.number(printed_entry(entry)), s.unit(entry.get("unit", "")), s.text(desc)])
+    if rows:
+        doc.heading("Results")
+        doc.table(["result", "value", "unit", "description"], rows)
+
+    series = results.get("series")
+    if isinstance(series, dict):
+        names, units, srows = series_rows(series)
+        doc.heading("Series")
+        if len(srows) > MAX_SERIES_ROWS:
+            doc.para(s.text(f"{len(srows)} rows: too many to print here; the JSON response (or the CSV batch path) "
+                            "has them all."))
+        else:
+            header = [s.code(k) + (f" [{s.unit(u)}]" if u else "") for k, u in zip(names, units)]
+            body = []
+            for row in srows:
+                cells = []
+                for k, entry in zip(names, row):
+                    p = printed_entry(entry, digits=12) if k in ("times", "time") else printed_entry(entry)
+                    cells.append(s.number(p))
+                body.append(cells)
+            doc.table(header, body, "r" * len(header))
+
+    for label, unit, entries in event_lists({k: v for k, v in results.items()
+                                              if k != "series" and not is_measured(v)}):
+        doc.heading(label.replace("_", " ").capitalize())
+        keys = [k for k in entries[0] if k not in ("value", "sigma", "low", "high")]
+        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [s.text(k) for k in keys]
+        body = []
+        for e in entries:
+            v = e.get("value")
+            sig = e.get("sigma")
+            p = printed(v, sigma=sig, digits=12) if _finite(v) else None
+            body.append([s.number(p)] + [s.text(_short(e.get(k))) for k in keys])
+        doc.table(header, body)
+
+    doc.heading("Formulas")
+    entries = []
+    for key in list(measured) + ([k for k in series if k in formulas] if isinstance(series, dict) else []):
+        f = formulas.get(key)
+        if f:
+            cite = _cite(_references_of(calc, key, references), "--" if s.name == "latex" else "–")
+            entries.append(f"{s.code(key)}: {s.code(f)} {cite}")
+    doc.items(entries)
+
+    doc.heading("References")
+    doc.items([s.text(r) for r in references], numbered=True)
+
+    constants = prov.get("constants", {})
+    if constants:
+        doc.heading("Constants")
+        rows = [[s.code(c.get("symbol", k)), s.text(repr(c.get("value"))), s.unit(c.get("unit", "")),
+                 s.text(c.get("source", ""))] for k, c in constants.items()]
+        doc.table(["constant", "value", "unit", "source"], rows)
+
+    conventions = prov.get("conventions", {})
+    if conventions:
+        doc.heading("Conventions")
+        doc.items([f"{s.code(k)}: {s.text(v)}" for k, v in conventions.items()])
+
+    doc.heading("Uncertainty")
+    corr = (request or {}).get("correlations", ()) if isinstance(request, Mapping) else ()
+    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr)])
+
+    warnings = response.get("warnings", [])
+    if warnings:
+        doc.heading("Warnings")
+        doc.items([f"{s.code(w.get('code', ''))}: {s.text(w.get('message', ''))}" for w in warnings])
+
+    doc.para(s.text(f"calcservice {version}. Numbers rounded for print by the Particle Data Group rule (Review of "
+                    "Particle Physics, introduction); the JSON response keeps full precision."))
+    return doc.text()
+
+
+def _short(x: Any) -> str:
+    if isinstance(x, float):
+        return format(x, ".6g")
+    if x is None:
+        return ""
+    return str(x)
+
+
+def latex(response, calc=None, request=None) -> str:
+    return report(response, calc, "latex", request)
+
+
+def markdown(response, calc=None, request=None) -> str:
+    return report(response, calc, "markdown", request)
+
+
+def text(response, calc=None, request=None) -> str:
+    return report(response, calc, "text", request)

@@ -1,0 +1,210 @@
+"""The web form at GET /: its headers and assets, and the page driven in Debian's headless chromium.
+
+The browser tests skip when chromium (or selenium) is missing, except in CI (env CI=true), where
+they must run and so fail instead.  Screenshots go to screenshots/ (gitignored) for a person to look at.
+"""
+
+import math
+import os
+import re
+import shutil
+import tempfile
+import threading
+from pathlib import Path
+
+import pytest
+
+from calcservice import create_app
+
+from .conftest import post
+
+ROOT = Path(__file__).resolve().parents[1]
+SHOTS = ROOT / "screenshots"
+CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
+CHROMEDRIVER = shutil.which("chromedriver") or "/usr/bin/chromedriver"
+FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage", "--no-first-run",
+         "--disable-background-networking", "--disable-component-update", "--disable-sync",
+         "--window-size=1400,1900"]
+# a fictional double-lined binary (not a real star's numbers)
+FICTIONAL_SB2 = {"period": ("23.91", "0.004", ""), "k1": ("44.2", "0.5", ""), "k2": ("61.8", "0.7", ""),
+                 "eccentricity": ("0.187", "0.006", ""), "inclination": ("83.5", "1.1", "")}
+
+
+# ----------------------------------------------------------------------------- without a browser
+def test_page_has_a_strict_content_security_policy(client):
+    r = client.get("/")
+    assert r.status_code == 200 and r.mimetype == "text/html"
+    csp = r.headers["Content-Security-Policy"]
+    assert "default-src 'self'" in csp and "script-src 'self'" in csp and "style-src 'self'" in csp
+    assert "unsafe-inline" not in csp and "unsafe-eval" not in csp
+    assert r.headers["X-Content-Type-Options"] == "nosniff"
+    html = r.get_data(as_text=True)
+    # nothing inline and nothing from elsewhere
+    assert not re.search(r"<script(?![^>]*\bsrc=)", html) and "<style" not in html
+    assert not re.search(r"\sstyle=", html) and not re.search(r"\son[a-z]+=", html)
+    assert not re.search(r"(src|href)=\"(https?:)?//", html)
+
+
+def test_assets_are_served_with_their_types(client):
+    for path, mimetype in (("/static/form.js", "text/javascript"), ("/static/form.css", "text/css"),
+                           ("/static/favicon.svg", "image/svg+xml")):
+        r = client.get(path)
+        assert r.status_code == 200 and r.mimetype == mimetype, path
+    assert client.get("/static/../api/form.py").status_code == 404
+    assert client.get("/static/secret.txt").status_code == 404
+    js = client.get("/static/form.js").get_data(as_text=True)
+    # text goes into the page as text: no HTML parsing of anything the service (or a user) sends
+    assert "innerHTML" not in js and "eval(" not in js and "insertAdjacentHTML" not in js
+
+
+# ----------------------------------------------------------------------------- in the browser
+def _browser_or_skip():
+    missing = []
+    try:
+        import selenium  # noqa: F401
+    except ImportError:
+        missing.append("selenium")
+    for path in (CHROMIUM, CHROMEDRIVER):
+        if not os.path.exists(path):
+            missing.append(path)
+    if missing:
+        message = f"browser test needs {', '.join(missing)} (apt-get install -y chromium chromium-driver)"
+        if os.environ.get("CI") == "true":
+            pytest.fail(message)
+        pytest.skip(message)
+
+
+@pytest.fixture(scope="module")
+def base_url():
+    from werkzeug.serving import make_server
+    srv = make_server("127.0.0.1", 0, create_app({"TESTING": True}), threaded=True)
+    thread = threading.Thread(target=srv.serve_forever, daemon=True)
+    thread.start()
+    yield f"http://127.0.0.1:{srv.server_port}"
+    srv.shutdown()
+    thread.join(5)
+
+
+@pytest.fixture(scope="module")
+def browser():
+    _browser_or_skip()
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+    profile = tempfile.mkdtemp(prefix="calcservice-chromium-")
+    options = webdriver.ChromeOptions()
+    options.binary_location = CHROMIUM
+    for flag in FLAGS + [f"--user-data-dir={profile}"]:
+        options.add_argument(flag)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    driver = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
+    driver.set_page_load_timeout(30)
+    yield driver
+    driver.quit()
+    shutil.rmtree(profile, ignore_errors=True)
+
+
+def _wait(driver, test, seconds=30):
+    from selenium.webdriver.support.ui import WebDriverWait
+    return WebDriverWait(driver, seconds).until(lambda d: test(d))
+
+
+def _open(driver, url):
+    from selenium.webdriver.common.by import By
+    driver.get(url)
+    _wait(driver, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-ready") == "true")
+
+
+def _type(driver, element_id, text):
+    from selenium.webdriver.common.by import By
+    e = driver.find_element(By.ID, element_id)
+    e.clear()
+    if text:
+        e.send_keys(text)
+
+
+def _shot(driver, name):
+    SHOTS.mkdir(exist_ok=True)
+    driver.execute_script("window.scrollTo(0, 0)")
+    path = SHOTS / f"{name}.png"
+    driver.save_screenshot(str(path))
+    return path
+
+
+def _csp_violations(driver):
+    return [e["message"] for e in driver.get_log("browser") if "Content Security Policy" in e["message"]]
+
+
+def _pdg(value, sigma):
+    """PDG rounding by Python's float formatting (rule as in tests/test_report.py)."""
+    lead = math.floor(math.log10(sigma))
+    three = int(sigma / 10 ** (lead - 2))
+    place = lead if 355 <= three <= 949 else lead - 1
+    decimals = max(0, -place)
+    return f"{round(value, -place):.{decimals}f} ± {round(sigma, -place):.{decimals}f}"
+
+
+@pytest.mark.browser
+def test_fictional_sb2_result_and_an_error_beside_its_field(browser, base_url, client):
+    from selenium.webdriver.common.by import By
+    _open(browser, f"{base_url}/#sb2")
+    for name, (value, sigma, unit) in FICTIONAL_SB2.items():
+        _type(browser, f"in-{name}", value)
+        _type(browser, f"sigma-{name}", sigma)
+        _type(browser, f"unit-{name}", unit)
+    browser.find_element(By.ID, "compute").click()
+    cell = _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, '#results-table tr[data-output="m1"] td.value'))
+    shown = cell[0].text
+    body = {k: {"value": float(v), "sigma": float(s)} for k, (v, s, _) in FICTIONAL_SB2.items()}
+    m1 = post(client, "/v1/spectroscopic/sb2", body)[1]["results"]["m1"]
+    assert shown == _pdg(m1["value"], m1["sigma"])
+    assert str(m1["value"]) in cell[0].get_attribute("title")          # full precision on hover
+    _shot(browser, "form-sb2-result")
+
+    # the report can be fetched and copied
+    browser.find_element(By.ID, "report-latex").click()
+    area = _wait(browser, lambda d: d.find_element(By.ID, "report") if d.find_element(By.ID, "report").is_displayed()
+                 else None)
+    assert r"\begin{tabular}" in area.get_attribute("value") and "Hilditch" in area.get_attribute("value")
+    browser.find_element(By.ID, "copy-report").click()
+    _wait(browser, lambda d: d.find_element(By.ID, "copy-status").text.strip() != "")
+
+    # an unphysical eccentricity: the service's message appears beside the field
+    _type(browser, "in-eccentricity", "1.4")
+    browser.find_element(By.ID, "compute").click()
+    error = _wait(browser, lambda d: d.find_element(By.ID, "error-eccentricity")
+                  if d.find_element(By.ID, "error-eccentricity").is_displayed() else None)
+    assert "must be >= 0 and < 1" in error.text
+    assert browser.find_element(By.ID, "in-eccentricity").get_attribute("aria-invalid") == "true"
+    assert "Invalid input" in browser.find_element(By.ID, "problem").text
+    assert not browser.find_element(By.ID, "error-period").is_displayed()
+    _shot(browser, "form-sb2-error")
+    assert not _csp_violations(browser)
+
+
+@pytest.mark.browser
+def test_ephemeris_draws_the_rv_curve_and_relative_orbit(browser, base_url):
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+    _open(browser, base_url + "/")
+    Select(browser.find_element(By.ID, "calculation")).select_by_value("ephemeris")
+    browser.find_element(By.ID, "example").click()
+    for name, value in (("angular_semimajor_axis", "9.3"), ("inclination", "62"), ("node", "48")):
+        _type(browser, f"in-{name}", value)
+    _type(browser, "in-times", "2460100.5, 2460180.5, 2460260.5, 2460420.5, 2024-09-01T00:00:00")
+    browser.find_element(By.ID, "method-mc").click()
+    _type(browser, "samples", "400")
+    _type(browser, "seed", "3")
+    browser.find_element(By.ID, "compute").click()
+    _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "#rv-plot path.curve.star2"))
+    _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "#orbit-plot path.curve.sky"))
+    points = browser.find_elements(By.CSS_SELECTOR, "#rv-plot circle.point.star1")
+    assert len(points) >= 5                         # the five requested times (plus the legend's marker)
+    curve = browser.find_element(By.CSS_SELECTOR, "#rv-plot path.curve.star1").get_attribute("d")
+    assert curve.count("L") > 300                   # a dense curve, not the five points joined
+    labels = browser.find_element(By.ID, "rv-plot").text
+    assert "radial velocity [km/s]" in labels and "JD −" in labels
+    assert "east offset [mas]" in browser.find_element(By.ID, "orbit-plot").text
+    assert "Monte Carlo: 400 draws, seed 3" in browser.find_element(By.ID, "status").text
+    assert browser.find_elements(By.CSS_SELECTOR, "#series-table tbody tr")
+    _shot(browser, "form-ephemeris")
+    assert not _csp_violations(browser)
