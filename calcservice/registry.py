@@ -103,6 +103,8 @@ class Input:
             d["accepts"] = ["isotropic"]
         if self.time:
             d["time"] = True
+        if self.label:
+            d["label"] = self.label
         if self.example is not None:
             d["example"] = self.example
         return d
