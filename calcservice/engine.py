@@ -225,71 +225,107 @@ def _within(domains, x: np.ndarray) -> np.ndarray:
         return (np.isfinite(x) & np.where(low_open, x > low, x >= low) & np.where(high_open, x < high, x <= high))
 
 
-def _linear(calc, quantities, statics, options, n, trail) -> Result:
-    perturbed = [name for name, q in quantities.items() if q.uncertain]
+def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: slice, trail):
+    """Nominal outputs and their linear sigmas for the systems ``rows``: the outputs given, f0 and
+    sigma of shape (systems,) + trail + (outputs,)."""
+    n = rows.stop - rows.start
     m = len(perturbed)
     p = 1 + 4 * m
     offsets = np.array([-2.0, -1.0, 1.0, 2.0])
-    steps: dict[str, np.ndarray] = {}
-    arrays = {}
-    for name, q in quantities.items():
-        x = _broadcast(q.value, (n,)).astype(float)
-        cols = np.repeat(x[:, None], p, axis=1)
-        if name in perturbed:
-            j = perturbed.index(name)
-            if calc.input(name).time:
-                # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it varies
-                scale = np.maximum(_broadcast(q.sigma, (n,)), 1.0)
-            else:
-                scale = np.maximum(np.abs(x), _broadcast(q.sigma, (n,)))
-            h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
-            # a step that x + h represents exactly, so rounding does not bias the difference quotient
-            # (Press et al., Numerical Recipes, sec. 5.7); matters for dates, where ulp(JD) ~ 5e-10 d
-            exact_h = (x + h) - x
-            h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
-            steps[name] = h
-            sl = slice(1 + 4 * j, 5 + 4 * j)
-            cols[:, sl] = x[:, None] + h[:, None] * offsets
-            dom = calc.input(name).domain
-            block = cols[:, sl]
-            block[~dom.contains(block)] = np.nan
-        arrays[name] = cols.reshape((n, p) + (1,) * len(trail))
+    names = list(quantities)
+    x = np.stack([values[name][rows] for name in names], axis=1).astype(float)     # (n, Q)
+    cols = np.repeat(x[:, None, :], p, axis=1)                                     # (n, p, Q)
+    h = None
+    if m:
+        j = [names.index(name) for name in perturbed]
+        xj = x[:, j]
+        sj = np.stack([sigmas[name][rows] for name in perturbed], axis=1)          # (n, m)
+        time = np.array([calc.input(name).time for name in perturbed])
+        # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
+        # varies: a time input is stepped by its sigma (at least 1 d)
+        scale = np.where(time, np.maximum(sj, 1.0), np.maximum(np.abs(xj), sj))
+        h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
+        # a step that x + h represents exactly, so rounding does not bias the difference quotient
+        # (Press et al., Numerical Recipes, sec. 5.7); matters for dates, where ulp(JD) ~ 5e-10 d
+        exact_h = (xj + h) - xj
+        h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
+        block = xj[:, None, :] + h[:, None, :] * offsets[None, :, None]           # (n, 4, m)
+        block[~_within([calc.input(name).domain for name in perturbed], block)] = np.nan
+        # column 1 + 4 j + k holds input j stepped by offsets[k]
+        stepped = 1 + 4 * np.arange(m)[:, None] + np.arange(4)[None, :]            # (m, 4)
+        cols[:, stepped, np.array(j)[:, None]] = block.transpose(0, 2, 1)
+    arrays = {name: cols[:, :, k].reshape((n, p) + (1,) * len(trail)) for k, name in enumerate(names)}
     ys = _call(calc, arrays, statics, (n, p) + trail)
+    given = [o for o in calc.outputs if o.name in ys]
+    if not given:
+        return given, None, None
+    # every output at once, on a trailing axis: a handful of array operations per call
+    # instead of a dozen per output and uncertain input (the cost of a small request)
+    nout = len(given)
+    period = np.array([np.nan if o.period is None else o.period for o in given])
+    wraps = np.isfinite(period)
+    period = np.where(wraps, period, 1.0)
+    # outputs first: each output's (systems, perturbations) block is copied whole, and the
+    # stencil below runs along contiguous rows
+    y = np.stack([ys[o.name] for o in given])                         # (nout, n, p) + trail
+    f0 = np.moveaxis(y[:, :, 0], 0, -1)                                # (n,) + trail + (nout,)
+    if not m:
+        return given, f0, np.zeros_like(f0)
+    sig = np.stack([sigmas[name][rows] for name in perturbed], axis=1)
+    lead = (slice(None),) * 3 + (None,) * len(trail)
+    d = y[:, :, 1:].reshape((nout, n, m, 4) + trail) - y[:, :, :1, None]      # f(x+kh) - f(x)
+    if wraps.any():
+        per = period.reshape((nout,) + (1,) * (d.ndim - 1))
+        d = np.where(wraps.reshape(per.shape), (d + 0.5 * per) % per - 0.5 * per, d)
+    h = h[(None,) + lead[1:]]                                          # (1, n, m) + trail
+    d0, d1, d2, d3 = d[:, :, :, 0], d[:, :, :, 1], d[:, :, :, 2], d[:, :, :, 3]
+    jac = (d0 - 8.0 * d1 + 8.0 * d2 - d3) / (12.0 * h)               # (nout, n, m) + trail
+    central = np.isfinite(jac)
+    if not central.all():
+        # one-sided second-order stencils where a step left the domain
+        forward = (4.0 * d2 - d3) / (2.0 * h)
+        backward = (d0 - 4.0 * d1) / (2.0 * h)
+        jac = np.where(central, jac, np.where(np.isfinite(forward), forward, backward))
+    exact = ~(sig > 0)
+    if exact.any():
+        # an exact input in a row does not count, even if its derivative is undefined there
+        jac = np.where(exact[(None,) + lead[1:]], 0.0, jac)
+    if np.array_equal(r, np.eye(m)) and np.isfinite(jac).all():
+        # uncorrelated inputs: the quadratic form is a sum of squares
+        var = np.square(jac * sig[(None,) + lead[1:]]).sum(axis=2)
+    else:
+        cov = sig[:, :, None] * r[None, :, :] * sig[:, None, :]      # (n, m, m)
+        var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
+    return given, f0, np.moveaxis(np.sqrt(np.maximum(var, 0.0)), 0, -1)
 
-    sig = np.stack([_broadcast(quantities[nm].sigma, (n,)) for nm in perturbed], axis=1) if m else np.zeros((n, 0))
+
+LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x perturbations x outputs)
+                      # arrays then stay in cache, however long the catalogue
+
+
+def _linear(calc, quantities, statics, options, n, trail) -> Result:
+    perturbed = [name for name, q in quantities.items() if q.uncertain]
+    m = len(perturbed)
     r = correlation_matrix(perturbed, options.correlations)
-    cov = sig[:, :, None] * r[None, :, :] * sig[:, None, :]          # (n, m, m)
-    expand = (slice(None),) + (None,) * len(trail)
+    values = {name: _broadcast(q.value, (n,)) for name, q in quantities.items()}
+    sigmas = {name: _broadcast(quantities[name].sigma, (n,)) for name in perturbed}
+    parts = [_propagate(calc, quantities, statics, perturbed, r, values, sigmas, slice(a, min(a + LINEAR_CHUNK, n)),
+                        trail) for a in range(0, n, LINEAR_CHUNK)]
+    given = parts[0][0]
+    if len(parts) == 1:
+        f0, sigma = parts[0][1], parts[0][2]
+    elif given:
+        f0 = np.concatenate([p[1] for p in parts])
+        sigma = np.concatenate([p[2] for p in parts])
 
     outputs: dict[str, dict[str, np.ndarray]] = {}
     warnings: list[Warning] = []
     failed: dict[int, dict[str, list[str]]] = {}
-    given = [o for o in calc.outputs if o.name in ys]
     if given:
-        # every output at once, on a trailing axis: a handful of array operations per call
-        # instead of a dozen per output and uncertain input (the cost of a small request)
         nout = len(given)
         period = np.array([np.nan if o.period is None else o.period for o in given])
         wraps = np.isfinite(period)
         period = np.where(wraps, period, 1.0)
-        y = np.stack([ys[o.name] for o in given], axis=-1)                # (n, p) + trail + (nout,)
-        f0 = y[:, 0]
-        if m:
-            d = y[:, 1:].reshape((n, m, 4) + trail + (nout,)) - f0[:, None, None]   # f(x+kh) - f(x)
-            if wraps.any():
-                d = np.where(wraps, (d + 0.5 * period) % period - 0.5 * period, d)
-            h = np.stack([steps[name] for name in perturbed], axis=1).reshape((n, m) + (1,) * (len(trail) + 1))
-            d0, d1, d2, d3 = d[:, :, 0], d[:, :, 1], d[:, :, 2], d[:, :, 3]
-            central = (d0 - 8.0 * d1 + 8.0 * d2 - d3) / (12.0 * h)
-            forward = (4.0 * d2 - d3) / (2.0 * h)
-            backward = (d0 - 4.0 * d1) / (2.0 * h)
-            jac = np.where(np.isfinite(central), central, np.where(np.isfinite(forward), forward, backward))
-            # an exact input in a row does not count, even if its derivative is undefined there
-            jac = np.where((sig > 0).reshape((n, m) + (1,) * (len(trail) + 1)), jac, 0.0)
-            var = np.einsum("nj...,njk,nk...->n...", jac, cov, jac)
-        else:
-            var = np.zeros_like(f0)
-        sigma = np.sqrt(np.maximum(var, 0.0))
         if wraps.any():
             f0 = np.where(wraps, f0 % period, f0)
         with np.errstate(all="ignore"):

@@ -38,7 +38,7 @@ from ..units import UnitError, factor
 from .edge import json_body, json_response
 from .problems import Problem, invalid
 from .schemas import MEASURED_KEYS, RawQuantity
-from .service import Parsed, _output_units, Rendering, build, clean_array, failure, find, load, parse, provenance, run
+from .service import Parsed, _monte_carlo, _output_units, Rendering, evaluations, build, clean_array, failure, find, load, parse, provenance, run
 
 bp = Blueprint("batch", __name__)
 
@@ -54,12 +54,15 @@ ABSENT, EXACT, NORMAL, ASYMMETRIC, ISOTROPIC = 0, 1, 2, 3, 4
 @bp.post("/v1/batch/<name>")
 def batch(name: str):
     body = json_body()
-    return json_response(compute_batch(name, body, current_app.config["CALCSERVICE_SETTINGS"].limits))
+    # numpy arrays straight to the JSON encoder: no Python float per number on the way out
+    return json_response(compute_batch(name, body, current_app.config["CALCSERVICE_SETTINGS"].limits, arrays=True))
 
 
-def compute_batch(name: str, body: Any, limits: Limits | None = None) -> dict:
+def compute_batch(name: str, body: Any, limits: Limits | None = None, arrays: bool = False) -> dict:
     """A batch request (rows or columns) to its response; raises :class:`Problem` only for the
-    batch as a whole (unknown calculation, malformed body, limits)."""
+    batch as a whole (unknown calculation, malformed body, limits).  With ``arrays`` the columns
+    of a columns response are numpy float arrays, NaN where a system has no value (null in JSON);
+    otherwise lists with None, as the JSON reads."""
     calc = find(name)
     limits = limits or Limits()
     if not isinstance(body, dict):
@@ -72,7 +75,16 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None) -> dict:
         raise invalid({k: ["unknown field"] for k in sorted(unknown)})
     if "systems" in body:
         return compute_rows(calc, body, limits)
-    return compute_columns(calc, body, limits)
+    response = compute_columns(calc, body, limits)
+    if not arrays:
+        for entry in response["columns"].values():
+            if isinstance(entry, dict):
+                for key, v in entry.items():
+                    if isinstance(v, np.ndarray):
+                        entry[key] = clean_array(v)
+        if isinstance(response["uncertainty"].get("rejected_fraction"), np.ndarray):
+            response["uncertainty"]["rejected_fraction"] = clean_array(response["uncertainty"]["rejected_fraction"])
+    return response
 
 
 # ----------------------------------------------------------------------------- shapes and groups
@@ -111,7 +123,6 @@ class _Batch:
     n: int
     groups: list[_Group] = field(default_factory=list)
     problems: dict[int, Problem] = field(default_factory=dict)    # system index -> its problem
-    where: dict[int, tuple[int, int]] = field(default_factory=dict)  # system -> (group, index in group)
 
 
 def _shared(calc: Calculation, body: dict, limits: Limits) -> tuple[dict, dict]:
@@ -204,10 +215,21 @@ def _evaluate(calc: Calculation, n: int, columns: dict[str, _Column], choices: d
     fast = np.flatnonzero(~slow)
     if fast.size:
         keys = np.stack(codes + [np.zeros(n, dtype=int)], axis=1)[fast]
-        shapes, inverse = np.unique(keys, axis=0, return_inverse=True)
-        inverse = inverse.reshape(-1)
-        order = np.argsort(inverse, kind="stable")
-        bounds = np.searchsorted(inverse[order], np.arange(len(shapes) + 1))
+        # one integer per shape (mixed radix): a sort of integers, not of rows of codes
+        radix = keys.max(axis=0) + 1
+        if float(np.prod(radix.astype(float))) < 2.0**62:
+            flat = np.zeros(len(fast), dtype=np.int64)
+            for j in range(keys.shape[1]):
+                flat = flat * int(radix[j]) + keys[:, j]
+        else:
+            flat = np.unique(keys, axis=0, return_inverse=True)[1].reshape(-1)
+        if (flat == flat[0]).all():                     # the usual catalogue: one shape
+            shapes, order, bounds = keys[:1], np.arange(len(fast)), np.array([0, len(fast)])
+        else:
+            _, first, inverse = np.unique(flat, return_index=True, return_inverse=True)
+            shapes = keys[first]
+            order = np.argsort(inverse, kind="stable")
+            bounds = np.searchsorted(inverse[order], np.arange(len(shapes) + 1))
         names = list(columns)
         for g, shape in enumerate(shapes):
             rows = fast[order[bounds[g]:bounds[g + 1]]]
@@ -257,21 +279,12 @@ def _evaluate(calc: Calculation, n: int, columns: dict[str, _Column], choices: d
                 group.result = run(calc, group.parsed)
             except Problem as p:
                 group.problem = p
-        for k, i in enumerate(group.rows.tolist()):
-            if group.problem is not None:
-                out.problems[i] = group.problem
-                continue
-            problem = failure(group.result, k)
-            if problem is not None:
-                out.problems[i] = problem
-            else:
-                out.where[i] = (g, k)
+        if group.problem is not None:
+            out.problems.update(dict.fromkeys(group.rows.tolist(), group.problem))
+        else:
+            for k in group.result.failed:
+                out.problems[int(group.rows[k])] = failure(group.result, k)
     return out
-
-
-def _monte_carlo(parsed: Parsed) -> bool:
-    return parsed.options.method == "monte_carlo" or any(
-        q.samples is not None or q.isotropic for q in parsed.quantities.values())
 
 
 def _check_budget(groups: list[_Group], limits: Limits) -> None:
@@ -285,6 +298,14 @@ def _check_budget(groups: list[_Group], limits: Limits) -> None:
         raise Problem(413, f"the batch asks for {draws} Monte Carlo draws (systems x samples); the limit is "
                            f"{limits.max_batch_draws}: send fewer systems or samples per request",
                       {"uncertainty.samples": [f"systems x samples must be <= {limits.max_batch_draws}"]})
+    # series (e.g. ephemeris times): each system passed the per-request limit, the batch must too
+    series = [g for g in groups if g.problem is None and g.parsed.series]
+    work = sum(evaluations(g.parsed, len(g.rows)) for g in series)
+    if work > limits.max_series_evaluations:
+        message = (f"{work} evaluations (systems x draws or perturbations x points) is over the limit of "
+                   f"{limits.max_series_evaluations}: send fewer systems, points or Monte Carlo draws per batch")
+        raise Problem(413, message + " (CALCSERVICE_MAX_SERIES_EVALUATIONS)",
+                      {name: [message] for name in series[0].parsed.series})
 
 
 def _form(q: Measured) -> int:
@@ -398,13 +419,15 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
         return {**raw_shared, **row} if isinstance(row, dict) else row
 
     done = _evaluate(calc, n, columns, choices, shared, row_body, limits)
-    results = []
-    for i in range(n):
-        if i in done.problems:
-            results.append({"error": done.problems[i].as_dict()})
-        else:
-            g, k = done.where[i]
-            results.append(_rendering(calc, done.groups[g]).row(k))
+    results: list = [None] * n
+    for i, problem in done.problems.items():
+        results[i] = {"error": problem.as_dict()}
+    for group in done.groups:
+        if group.problem is None:
+            rendering = _rendering(calc, group)
+            for k, i in enumerate(group.rows.tolist()):
+                if results[i] is None:
+                    results[i] = rendering.row(k)
     return {"calculation": calc.name, "results": results}
 
 
@@ -581,6 +604,8 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
 
 
 def _columns_response(calc: Calculation, done: _Batch) -> dict:
+    """The columns response; its arrays are numpy float arrays, NaN where a system has no value
+    (written as null in JSON by :func:`calcservice.api.edge.dumps`)."""
     n = done.n
     ok = [g for g in done.groups if g.problem is None]
     units = ok[0].parsed.output_units if ok else {}
@@ -605,11 +630,13 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
     for entry in columns.values():
         for key, arr in entry.items():
             if key != "unit":
-                arr[failed] = np.nan
-                entry[key] = values = clean_array(arr)
-                if arr.ndim > 1:
-                    for i in done.problems:     # a failed system's series is null, not a list of nulls
+                arr[failed] = np.nan            # numpy arrays: the JSON encoder writes NaN as null
+                if arr.ndim > 1 and done.problems:
+                    # a failed system's series is null, not a list of nulls
+                    values = clean_array(arr)
+                    for i in done.problems:
                         values[i] = None
+                    entry[key] = values
 
     extras: dict[str, list] = {}
     warnings: dict[tuple[str, str], set[int]] = {}
@@ -643,7 +670,7 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
     if seeds:
         uncertainty["samples"] = samples.pop() if len(samples) == 1 else sorted(samples)
         uncertainty["seed"] = seeds.pop() if len(seeds) == 1 else sorted(seeds)
-        uncertainty["rejected_fraction"] = clean_array(rejected)
+        uncertainty["rejected_fraction"] = rejected
     response = {
         "calculation": calc.name,
         "count": n,

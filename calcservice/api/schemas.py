@@ -109,6 +109,15 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
     return out
 
 
+def _in_domain(domain, x: float) -> bool:
+    """``Domain.contains`` for one number, without the cost of an array (every field of every request)."""
+    if not math.isfinite(x):
+        return False
+    if (x <= domain.low) if domain.low_open else (x < domain.low):
+        return False
+    return not ((x >= domain.high) if domain.high_open else (x > domain.high))
+
+
 @dataclass
 class RawQuantity:
     """A quantity as the request gave it, before unit conversion (arrays over N systems)."""
@@ -135,7 +144,7 @@ class MeasuredField(fields.Field):
         one = np.zeros(1)
         if isinstance(value, (int, float)) and not isinstance(value, bool) and not spec.time:
             x = number(value)
-            if not spec.domain.contains(np.array([x]))[0]:
+            if not _in_domain(spec.domain, x):
                 raise ValidationError(spec.domain.describe() + (f" (in {spec.unit})" if spec.unit else ""))
             return RawQuantity(np.array([x]), one, one)
         if isinstance(value, str):
@@ -197,7 +206,7 @@ class MeasuredField(fields.Field):
             x = x * k
             if not math.isfinite(x) or not math.isfinite(sp * k):
                 raise ValidationError(f"overflows a double when converted to {spec.unit or 'dimensionless'}")
-            if not spec.domain.contains(np.array([x]))[0]:
+            if not _in_domain(spec.domain, x):
                 raise ValidationError(spec.domain.describe() + (f" (in {spec.unit})" if spec.unit else ""))
         return RawQuantity(np.array([x]), np.array([sm * k]), np.array([sp * k]), unit=unit, calendar=calendar)
 
@@ -281,7 +290,7 @@ class IntegerField(fields.Field):
                 value = int(value)
             else:
                 raise ValidationError("must be a whole number")
-        if not self.spec.domain.contains(np.array([float(value)]))[0]:
+        if not _in_domain(self.spec.domain, float(value)):
             raise ValidationError(self.spec.domain.describe())
         return int(value)
 

@@ -36,8 +36,11 @@ class Parsed:
     echo: dict[str, dict]
     series: dict[str, np.ndarray] = field(default_factory=dict)
     echo_rows: list[dict] | None = None       # one echo per system when N > 1 (a batch group)
+    calc: Calculation | None = None           # to build echo_rows when first asked for
 
     def echo_at(self, index: int) -> dict:
+        if self.echo_rows is None and self.calc is not None and index > 0:
+            self.echo_rows = _echo_table(self.calc, self)
         return self.echo if self.echo_rows is None else self.echo_rows[index]
 
 
@@ -71,17 +74,27 @@ def _echo(spec, m: Measured) -> dict:
     return _echo_rows(spec, m)[0]
 
 
-def _echo_rows(spec, m: Measured) -> list[dict]:
-    """The echo of a quantity for each of its N systems."""
+def _echo_table(calc: Calculation, parsed: "Parsed") -> list[dict]:
+    """The echo of each system of a batch group (inputs given once for all, e.g. defaults, repeat)."""
+    n = max((len(m.value) for m in parsed.quantities.values()), default=1)
+    columns = {name: _echo_rows(calc.input(name), m) for name, m in parsed.quantities.items()
+               if len(m.value) > 1 and name in parsed.echo}
+    return [{name: e if name not in columns else columns[name][k] for name, e in parsed.echo.items()}
+            for k in range(n)]
+
+
+def _echo_rows(spec, m: Measured, count: int | None = None) -> list[dict]:
+    """The echo of a quantity for each of its N systems (the first ``count`` only, if given)."""
+    k = len(m.value) if count is None else min(count, len(m.value))
     if m.isotropic:
-        return [{"value": "isotropic", "unit": spec.unit} for _ in range(len(m.value))]
-    values = m.value.tolist()
+        return [{"value": "isotropic", "unit": spec.unit} for _ in range(k)]
+    values = m.value[:k].tolist()
     if m.samples is not None:
-        count = int(m.samples.shape[1])
-        return [{"value": v, "sigma": s, "samples": count, "unit": spec.unit}
-                for v, s in zip(values, m.sigma.tolist())]
+        draws = int(m.samples.shape[1])
+        return [{"value": v, "sigma": s, "samples": draws, "unit": spec.unit}
+                for v, s in zip(values, m.sigma[:k].tolist())]
     out = []
-    for v, lo, hi in zip(values, m.sigma_minus.tolist(), m.sigma_plus.tolist()):
+    for v, lo, hi in zip(values, m.sigma_minus[:k].tolist(), m.sigma_plus[:k].tolist()):
         if lo != hi:
             out.append({"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit})
         else:
@@ -118,7 +131,10 @@ def load(calc: Calculation, body: Any, limits: Limits, partial: bool = False) ->
     if not isinstance(body, dict):
         raise Problem(422, "the request body must be a JSON object", {"_body": ["must be a JSON object"]})
     try:
-        return request_schema(calc, limits).load(body, partial=partial)
+        # partial for the inputs only: marshmallow's partial=True would also waive the required
+        # members of nested options (a correlation without "between" would then crash the service)
+        names = tuple(spec.name for spec in calc.inputs) if partial else False
+        return request_schema(calc, limits).load(body, partial=names)
     except ValidationError as err:
         raise invalid(error_messages(err)) from None
 
@@ -133,7 +149,6 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
     quantities: dict[str, Measured] = {}
     statics: dict[str, Any] = {}
     echo: dict[str, dict] = {}
-    echo_columns: dict[str, list[dict]] = {}
     series: dict[str, np.ndarray] = {}
     for spec in calc.inputs:
         if spec.name not in data:
@@ -156,14 +171,13 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
             echo[spec.name] = {"count": int(len(m.value)), "unit": spec.unit}
             continue
         quantities[spec.name] = m
-        echo_columns[spec.name] = rows = _echo_rows(spec, m)
-        echo[spec.name] = rows[0]
+        echo[spec.name] = _echo_rows(spec, m, 1)[0]
 
     options = _options(calc, data, quantities, limits, errors)
     units = _output_units(calc, data.get("units", {}), errors)
     if errors:
         raise invalid(errors)
-    parsed = Parsed(quantities, statics, options, units, echo, series)
+    parsed = Parsed(quantities, statics, options, units, echo, series, calc=calc)
     n = max((len(m.value) for m in quantities.values()), default=1)
     work = evaluations(parsed, n) if series else 0
     if work > limits.max_series_evaluations:
@@ -171,11 +185,6 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
         message = (f"{work} evaluations (systems x draws or perturbations x points) is over the limit of "
                    f"{limits.max_series_evaluations}: ask for fewer points or fewer Monte Carlo draws")
         raise Problem(413, message + " (CALCSERVICE_MAX_SERIES_EVALUATIONS)", {name: [message] for name in series})
-    if n > 1:
-        # a batch group: one echo per system (inputs given once, e.g. defaults, repeat)
-        parsed.echo_rows = [{name: e if name not in echo_columns else
-                             echo_columns[name][k if len(echo_columns[name]) > 1 else 0]
-                             for name, e in echo.items()} for k in range(n)]
     return parsed
 
 
@@ -261,15 +270,35 @@ def clean_array(a: np.ndarray) -> list:
 
 
 def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) -> list[tuple]:
-    """Each output as (name, unit, is_series, {"value": [...per system], "sigma": [...], ...}) in the
-    requested unit, converted and cleaned once for all systems of an engine call."""
-    table = []
-    for name, o in result.outputs.items():
+    """Each output as (name, is_series, [{"value": ..., "sigma": ..., "unit": ...} per system]) in
+    the requested unit, converted and cleaned once for all systems of an engine call."""
+    names = list(result.outputs)
+    out_units, factors = [], []
+    for name in names:
         canonical = calc.output(name).unit
-        unit = units.get(name, canonical)
-        k = factor(canonical, unit) if unit != canonical else 1.0
-        table.append((name, unit, np.ndim(o["value"]) > 1,
-                      {key: clean_array(arr * k if k != 1.0 else arr) for key, arr in o.items()}))
+        out_units.append(units.get(name, canonical))
+        factors.append(factor(canonical, out_units[-1]) if out_units[-1] != canonical else 1.0)
+    # one conversion and one clean per member over all outputs of one shape: a dozen outputs
+    # cost a few array operations, not a few dozen
+    alike: dict[tuple, list[int]] = {}
+    for i, name in enumerate(names):
+        o = result.outputs[name]
+        alike.setdefault((np.shape(o["value"]), tuple(o)), []).append(i)
+    columns: list = [None] * len(names)
+    for (shape, keys), members in alike.items():
+        k = np.array([factors[i] for i in members]).reshape((-1,) + (1,) * len(shape))
+        cleaned = {key: clean_array(np.stack([result.outputs[names[i]][key] for i in members]) * k) for key in keys}
+        for pos, i in enumerate(members):
+            columns[i] = {key: cleaned[key][pos] for key in keys}
+    table = []
+    for name, unit, o in zip(names, out_units, columns):
+        keys = ["value", *(key for key in o if key != "value")]
+        lists = [o[key] for key in keys]
+        if keys == ["value", "sigma"]:
+            entries = [{"value": v, "sigma": s, "unit": unit} for v, s in zip(*lists)]
+        else:
+            entries = [{**dict(zip(keys, values)), "unit": unit} for values in zip(*lists)]
+        table.append((name, np.ndim(result.outputs[name]["value"]) > 1, entries))
     return table
 
 
@@ -278,11 +307,8 @@ def render_outputs(calc: Calculation, result: Result, index: int, units: Mapping
     """The ``results`` member for system ``index``; series outputs go under ``series``."""
     results: dict[str, Any] = {}
     series: dict[str, Any] = {}
-    for name, unit, is_series, columns in (table if table is not None else output_table(calc, result, units)):
-        entry = {key: values[index] for key, values in columns.items()}
-        entry["unit"] = unit
-        target = series if is_series else results
-        target[name] = {"value": entry.pop("value"), **entry}
+    for name, is_series, entries in (table if table is not None else output_table(calc, result, units)):
+        (series if is_series else results)[name] = entries[index]
     if series:
         results["series"] = series
     return results
