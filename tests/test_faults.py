@@ -191,9 +191,6 @@ class Load:
             time.sleep(0.02)
 
 
-FIGURES: dict[str, object] = {}
-
-
 def test_killed_worker_is_replaced_and_only_in_flight_requests_fail(server):
     before = server.wait_workers(lambda w: len(w) == 2)
     with Load(server.port) as load:
@@ -203,7 +200,6 @@ def test_killed_worker_is_replaced_and_only_in_flight_requests_fail(server):
         at_kill = load.count()
         after = server.wait_workers(lambda w: len(w) == 2 and victim not in w)
         load.wait_for(at_kill + 60)
-    FIGURES["kill"] = {"requests": load.count(), "failed": len(load.failed), "reasons": load.failed[:5]}
     print(f"\nSIGKILL of one worker: {load.count()} requests, {len(load.failed)} failed {load.failed[:5]}")
     assert after - before, "the master started a new worker"
     assert len(load.failed) <= CLIENT_THREADS, load.failed
@@ -221,7 +217,6 @@ def test_graceful_reload_drops_nothing(server):
         at_hup = load.count()
         after = server.wait_workers(lambda w: len(w) == 2 and not (w & before))
         load.wait_for(at_hup + 60)
-    FIGURES["hup"] = {"requests": load.count(), "failed": len(load.failed)}
     print(f"\nSIGHUP (graceful reload): {load.count()} requests, {len(load.failed)} failed {load.failed[:5]}")
     assert not (after & before), "all workers were replaced"
     assert load.failed == []

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import logging
+import math
 import re
 import time
 import uuid
@@ -34,10 +35,43 @@ def _reject_constant(name: str):
     raise ValueError(f"{name} is not allowed: numbers must be finite")
 
 
-def _finite_float(text: str) -> float:
-    # A literal beyond a double (1e999) parses to infinity here so that the field it sits in
-    # refuses it by name (422); every field's validation rejects non-finite numbers.
-    return float(text)
+DOUBLE_MAX = 1.7976931348623157e308
+
+
+def _overflows(x) -> bool:
+    return isinstance(x, float) and abs(x) > DOUBLE_MAX
+
+
+def _overflow_paths(body) -> list[str]:
+    """Where in the parsed body the numbers beyond a double are, as "k1.sigma" or "correlations.0.rho"."""
+    found, stack = [], [(body, "")]
+    while stack and len(found) < 20:
+        obj, path = stack.pop()
+        if isinstance(obj, dict):
+            stack.extend((v, f"{path}.{k}" if path else str(k)) for k, v in obj.items())
+        elif isinstance(obj, list):
+            stack.extend((v, f"{path}.{k}" if path else str(k)) for k, v in enumerate(obj))
+        elif _overflows(obj):
+            found.append(path[:200] or "_body")
+    return sorted(found)
+
+
+def _loads_checked(text: str):
+    """json.loads, refusing NaN/Infinity (not JSON) and, naming where they are, decimals beyond a double (1e999)."""
+    overflowed = []
+
+    def parse_float(s: str) -> float:
+        x = float(s)
+        if x in (math.inf, -math.inf):
+            overflowed.append(s)
+        return x
+
+    # an integer beyond a double parses exactly; the field it sits in refuses it (422)
+    body = json.loads(text, parse_constant=_reject_constant, parse_float=parse_float)
+    if overflowed:
+        raise Problem(400, "a number in the request body is beyond the range of a double (about 1.8e308)",
+                      {path: ["the number overflows a double"] for path in _overflow_paths(body)})
+    return body
 
 
 def _depth_exceeds(data: bytes, limit: int) -> bool:
@@ -96,7 +130,7 @@ def json_body():
     except UnicodeDecodeError as e:
         raise Problem(400, f"the request body is not valid UTF-8 (byte {e.start})") from None
     try:
-        body = json.loads(text, parse_constant=_reject_constant, parse_float=_finite_float)
+        body = _loads_checked(text)
     except RecursionError:
         raise Problem(400, "the JSON body is nested too deeply") from None
     except ValueError as e:
