@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import secrets
 from dataclasses import dataclass, field
+from functools import lru_cache
 from typing import Any, Mapping
 
 import numpy as np
@@ -128,10 +129,12 @@ def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], 
     m = len(names)
     r = np.eye(m)
     index = {n: k for k, n in enumerate(names)}
+    correlated = False
     for (a, b), rho in correlations.items():
         if a in index and b in index:
             r[index[a], index[b]] = r[index[b], index[a]] = rho
-    if m:
+            correlated = True
+    if correlated:                      # the identity needs no test
         try:
             np.linalg.cholesky(r)
         except np.linalg.LinAlgError:
@@ -215,12 +218,15 @@ def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Map
     return result
 
 
+@lru_cache(maxsize=1024)
+def _bounds(domains: tuple) -> tuple[np.ndarray, ...]:
+    return (np.array([d.low for d in domains]), np.array([d.high for d in domains]),
+            np.array([d.low_open for d in domains]), np.array([d.high_open for d in domains]))
+
+
 def _within(domains, x: np.ndarray) -> np.ndarray:
     """``Domain.contains`` for several inputs at once: column j of ``x`` against ``domains[j]``."""
-    low = np.array([d.low for d in domains])
-    high = np.array([d.high for d in domains])
-    low_open = np.array([d.low_open for d in domains])
-    high_open = np.array([d.high_open for d in domains])
+    low, high, low_open, high_open = _bounds(tuple(domains))
     with np.errstate(invalid="ignore"):
         return (np.isfinite(x) & np.where(low_open, x > low, x >= low) & np.where(high_open, x < high, x <= high))
 
@@ -356,13 +362,14 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
         sp = np.stack([_broadcast(quantities[nm].sigma_plus, (n,)) for nm in perturbed], axis=1)
         crosses = ~(_within(doms, x - sm) & _within(doms, x + sp))           # (n, m)
         crosses_any = crosses.any(axis=0)
+        asymmetric = (sm != sp).any(axis=0)
         for j, name in enumerate(perturbed):
             if crosses_any[j]:
                 warnings.append(Warning("interval_crosses_domain",
                                         f"the 1-sigma interval of {name} crosses its physical domain "
                                         f"({doms[j].describe()}); consider the Monte Carlo method, which truncates "
                                         "draws to the domain", crosses[:, j]))
-            if quantities[name].asymmetric:
+            if asymmetric[j] and quantities[name].samples is None:
                 warnings.append(Warning("asymmetric_linearised",
                                         f"{name} has asymmetric errors; linear propagation used their mean; the "
                                         "Monte Carlo method draws a split normal"))
