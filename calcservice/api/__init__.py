@@ -9,6 +9,8 @@ from ..config import load_settings
 
 def create_app(config=None) -> Flask:
     """Build the calcservice application: configure, register blueprints, return the app."""
+    from ..memory import keep_freed_memory
+    keep_freed_memory()          # catalogue-sized arrays reuse freed heap instead of faulting pages in
     app = Flask(__name__, static_folder=None)
     settings = load_settings(config)
     app.config.update(
