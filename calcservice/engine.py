@@ -248,8 +248,12 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
         sj = np.stack([sigmas[name][rows] for name in perturbed], axis=1)          # (n, m)
         time = np.array([calc.input(name).time for name in perturbed])
         # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
-        # varies: a time input is stepped by its sigma (at least 1 d)
-        scale = np.where(time, np.maximum(sj, 1.0), np.maximum(np.abs(xj), sj))
+        # varies: a time input is stepped by its sigma (at least 1 d).  Other inputs are stepped
+        # by their sigma held within [1e-3 |x|, |x|]: a step tied to |x| alone is far too coarse
+        # where a function amplifies it (a period's step grows by the number of elapsed cycles),
+        # one tied to a tiny sigma alone would drown in rounding.
+        ax = np.abs(xj)
+        scale = np.where(time, np.maximum(sj, 1.0), np.where(ax > 0, np.clip(sj, 1e-3 * ax, ax), sj))
         h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
         # a step that x + h represents exactly, so rounding does not bias the difference quotient
         # (Press et al., Numerical Recipes, sec. 5.7); matters for dates, where ulp(JD) ~ 5e-10 d

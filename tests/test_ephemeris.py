@@ -325,7 +325,6 @@ def test_http_bad_inputs_name_the_field(client):
     assert status == 422 and "inclination" in body["errors"]
 
 
-@pytest.mark.xfail(strict=True, reason="issue 4 asks for 413 on too many times; the API answers 422 (lead)")
 def test_http_too_many_times_is_413():
     from calcservice import create_app
     client = create_app({"TESTING": True, "MAX_SERIES": 5}).test_client()
