@@ -353,11 +353,13 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
                         f"these inputs give no finite value of {o.name}")
             if o.period is None and loose_any[k]:
                 warnings.append(Warning("linear_untrustworthy",
-                                        f"{o.name} has a relative sigma above {LINEAR_TRUST_LIMIT:.0%}: first-order "
-                                        "propagation may be poor; consider the Monte Carlo method", loose[:, k]))
+                                        "{subject}: relative sigma above " f"{LINEAR_TRUST_LIMIT:.0%}; first-order "
+                                        "propagation may be poor; consider the Monte Carlo method", loose[:, k],
+                                        o.name))
             if undefined_any[k]:
-                warnings.append(Warning("sigma_undefined", f"the uncertainty of {o.name} could not be propagated "
-                                        "linearly at these inputs; use the Monte Carlo method", undefined[:, k]))
+                warnings.append(Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated "
+                                        "linearly at these inputs; use the Monte Carlo method", undefined[:, k],
+                                        o.name))
 
     if m:
         doms = [calc.input(name).domain for name in perturbed]
@@ -375,8 +377,9 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
                                         "draws to the domain", crosses[:, j]))
             if asymmetric[j] and quantities[name].samples is None:
                 warnings.append(Warning("asymmetric_linearised",
-                                        f"{name} has asymmetric errors; linear propagation used their mean; the "
-                                        "Monte Carlo method draws a split normal"))
+                                        "{subject}: asymmetric errors; linear propagation used the mean of "
+                                        "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal",
+                                        None, name))
     return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
 
 

@@ -125,7 +125,8 @@ COMPONENTS = {
         "samples": {"type": "integer"}, "seed": {"type": "integer"},
         "rejected_fraction": {"type": "number", "minimum": 0, "maximum": 1}}},
     "Warning": {"type": "object", "required": ["code", "message"], "properties": {
-        "code": {"type": "string"}, "message": {"type": "string"}}},
+        "code": {"type": "string"}, "message": {"type": "string"},
+        "fields": {"type": "array", "items": {"type": "string"}}}},
     "Provenance": {"type": "object", "required": ["version", "constants", "references", "conventions"],
                    "properties": {"version": {"type": "string"}, "calculation": {"type": "string"},
                                   "formulas": {"type": "object"}, "constants": {"type": "object"},

@@ -133,11 +133,16 @@ class Output:
 
 @dataclass(frozen=True)
 class Warning:
-    """A warning raised by a calculation's ``check``: ``where`` selects the systems it applies to."""
+    """A warning raised by a calculation's ``check``: ``where`` selects the systems it applies to.
+
+    ``subject`` names the field the warning is about; warnings of one code and message that
+    differ only in subject are reported once, the message's ``{subject}`` naming them all.
+    """
 
     code: str
     message: str
     where: np.ndarray | None = None
+    subject: str | None = None
 
 
 @dataclass(frozen=True)

@@ -327,18 +327,23 @@ def provenance(calc: Calculation) -> dict:
 
 def warnings_for(result: Result, index: int, masks: list | None = None) -> list[dict]:
     """The warnings that apply to system ``index`` (``masks`` from :func:`warning_masks`, if at hand)."""
-    out = []
-    seen = set()
+    grouped: dict[tuple[str, str], list[str]] = {}
     for k, w in enumerate(result.warnings):
         if masks is not None:
             if masks[k] is not None and not masks[k][index % len(masks[k])]:
                 continue
         elif w.where is not None and not bool(np.asarray(w.where).reshape(-1)[index % np.size(w.where)]):
             continue
-        key = (w.code, w.message)
-        if key not in seen:
-            seen.add(key)
-            out.append({"code": w.code, "message": w.message})
+        subjects = grouped.setdefault((w.code, w.message), [])
+        if w.subject is not None and w.subject not in subjects:
+            subjects.append(w.subject)
+    out = []
+    for (code, message), subjects in grouped.items():
+        if subjects:
+            out.append({"code": code, "message": message.replace("{subject}", ", ".join(subjects)),
+                        "fields": subjects})
+        else:
+            out.append({"code": code, "message": message})
     return out
 
 
