@@ -17,6 +17,8 @@ from calcservice.registry import get
 
 from .conftest import post
 
+from .engine_helpers import codes, nominal, sigma
+
 
 def run(name, quantities, statics=None, **options):
     q = {k: Measured.normal(*v) if isinstance(v, tuple) else Measured.exact(v) for k, v in quantities.items()}
@@ -29,18 +31,6 @@ def run(name, quantities, statics=None, **options):
             else:
                 q[spec.name] = Measured.exact(spec.default)
     return evaluate(calc, q, statics, Options(**options))
-
-
-def nominal(result, name):
-    return float(result.outputs[name]["value"][0])
-
-
-def sigma(result, name):
-    return float(result.outputs[name]["sigma"][0])
-
-
-def codes(result):
-    return {x.code for x in result.warnings}
 
 
 # ================================================================ radio free-free emission

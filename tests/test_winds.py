@@ -18,23 +18,13 @@ from calcservice.registry import get
 
 from .conftest import post
 
+from .engine_helpers import codes, nominal, sigma
+
 
 def run(name, quantities, statics=None, **options):
     """Evaluate a calculation on one system: quantities as value or (value, sigma)."""
     q = {k: Measured.normal(*v) if isinstance(v, tuple) else Measured.exact(v) for k, v in quantities.items()}
     return evaluate(get(name), q, statics or {}, Options(**options))
-
-
-def nominal(result, name):
-    return float(result.outputs[name]["value"][0])
-
-
-def sigma(result, name):
-    return float(result.outputs[name]["sigma"][0])
-
-
-def codes(result):
-    return {x.code for x in result.warnings}
 
 
 WINDS = {"mdot1": 2.0e-5, "mdot2": 1.0e-6, "vinf1": 2000.0, "vinf2": 2000.0}
