@@ -86,11 +86,12 @@ class Measured:
 
     @property
     def asymmetric(self) -> bool:
-        return bool(np.any(self.sigma_minus != self.sigma_plus)) and self.samples is None
+        return bool((self.sigma_minus != self.sigma_plus).any()) and self.samples is None
 
     @property
     def uncertain(self) -> bool:
-        return self.isotropic or self.samples is not None or bool(np.any(self.sigma_plus > 0) or np.any(self.sigma_minus > 0))
+        return (self.isotropic or self.samples is not None
+                or bool((self.sigma_plus > 0).any() or (self.sigma_minus > 0).any()))
 
 
 @dataclass
@@ -218,17 +219,30 @@ def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Map
     return result
 
 
-@lru_cache(maxsize=1024)
-def _bounds(domains: tuple) -> tuple[np.ndarray, ...]:
-    return (np.array([d.low for d in domains]), np.array([d.high for d in domains]),
-            np.array([d.low_open for d in domains]), np.array([d.high_open for d in domains]))
+@lru_cache(maxsize=4096)
+def _bounds(calc: Calculation, names: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Closed bounds equivalent to the inputs' domains: x > a is x >= nextafter(a, inf) in floats."""
+    doms = [calc.input(name).domain for name in names]
+    low = np.array([np.nextafter(d.low, np.inf) if d.low_open else d.low for d in doms])
+    high = np.array([np.nextafter(d.high, -np.inf) if d.high_open else d.high for d in doms])
+    return low, high
 
 
-def _within(domains, x: np.ndarray) -> np.ndarray:
-    """``Domain.contains`` for several inputs at once: column j of ``x`` against ``domains[j]``."""
-    low, high, low_open, high_open = _bounds(tuple(domains))
+def _within(calc: Calculation, names, x: np.ndarray) -> np.ndarray:
+    """``Domain.contains`` for several inputs at once: column j of ``x`` against input ``names[j]``."""
+    low, high = _bounds(calc, tuple(names))
     with np.errstate(invalid="ignore"):
-        return (np.isfinite(x) & np.where(low_open, x > low, x >= low) & np.where(high_open, x < high, x <= high))
+        return np.isfinite(x) & (x >= low) & (x <= high)
+
+
+def _side_by_side(arrays: list) -> np.ndarray:
+    """Equal-shaped (n,) arrays as the columns of an (n, k) array (one C call, unlike np.stack)."""
+    return np.array(arrays, dtype=float).T
+
+
+def _last(a: np.ndarray) -> np.ndarray:
+    """The first axis moved to the end (np.moveaxis(a, 0, -1) without its overhead)."""
+    return a.transpose(tuple(range(1, a.ndim)) + (0,))
 
 
 def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: slice, trail):
@@ -239,13 +253,13 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
     p = 1 + 4 * m
     offsets = np.array([-2.0, -1.0, 1.0, 2.0])
     names = list(quantities)
-    x = np.stack([values[name][rows] for name in names], axis=1).astype(float)     # (n, Q)
+    x = _side_by_side([values[name][rows] for name in names])                     # (n, Q)
     cols = np.repeat(x[:, None, :], p, axis=1)                                     # (n, p, Q)
     h = None
     if m:
         j = [names.index(name) for name in perturbed]
         xj = x[:, j]
-        sj = np.stack([sigmas[name][rows] for name in perturbed], axis=1)          # (n, m)
+        sj = _side_by_side([sigmas[name][rows] for name in perturbed])            # (n, m)
         time = np.array([calc.input(name).time for name in perturbed])
         # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
         # varies: a time input is stepped by its sigma (at least 1 d).  Other inputs are stepped
@@ -260,7 +274,7 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
         exact_h = (xj + h) - xj
         h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
         block = xj[:, None, :] + h[:, None, :] * offsets[None, :, None]           # (n, 4, m)
-        block[~_within([calc.input(name).domain for name in perturbed], block)] = np.nan
+        block[~_within(calc, perturbed, block)] = np.nan
         # column 1 + 4 j + k holds input j stepped by offsets[k]
         stepped = 1 + 4 * np.arange(m)[:, None] + np.arange(4)[None, :]            # (m, 4)
         cols[:, stepped, np.array(j)[:, None]] = block.transpose(0, 2, 1)
@@ -277,11 +291,11 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
     period = np.where(wraps, period, 1.0)
     # outputs first: each output's (systems, perturbations) block is copied whole, and the
     # stencil below runs along contiguous rows
-    y = np.stack([ys[o.name] for o in given])                         # (nout, n, p) + trail
-    f0 = np.moveaxis(y[:, :, 0], 0, -1)                                # (n,) + trail + (nout,)
+    y = np.array([ys[o.name] for o in given])                         # (nout, n, p) + trail
+    f0 = _last(y[:, :, 0])                                             # (n,) + trail + (nout,)
     if not m:
         return given, f0, np.zeros_like(f0)
-    sig = np.stack([sigmas[name][rows] for name in perturbed], axis=1)
+    sig = _side_by_side([sigmas[name][rows] for name in perturbed])
     lead = (slice(None),) * 3 + (None,) * len(trail)
     d = y[:, :, 1:].reshape((nout, n, m, 4) + trail) - y[:, :, :1, None]      # f(x+kh) - f(x)
     if wraps.any():
@@ -300,13 +314,13 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
     if exact.any():
         # an exact input in a row does not count, even if its derivative is undefined there
         jac = np.where(exact[(None,) + lead[1:]], 0.0, jac)
-    if np.array_equal(r, np.eye(m)) and np.isfinite(jac).all():
+    if np.count_nonzero(r) == m and (central.all() or np.isfinite(jac).all()):
         # uncorrelated inputs: the quadratic form is a sum of squares
         var = np.square(jac * sig[(None,) + lead[1:]]).sum(axis=2)
     else:
         cov = sig[:, :, None] * r[None, :, :] * sig[:, None, :]      # (n, m, m)
         var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
-    return given, f0, np.moveaxis(np.sqrt(np.maximum(var, 0.0)), 0, -1)
+    return given, f0, _last(np.sqrt(np.maximum(var, 0.0)))
 
 
 LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x perturbations x outputs)
@@ -363,10 +377,11 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
 
     if m:
         doms = [calc.input(name).domain for name in perturbed]
-        x = np.stack([_broadcast(quantities[nm].value, (n,)) for nm in perturbed], axis=1)
-        sm = np.stack([_broadcast(quantities[nm].sigma_minus, (n,)) for nm in perturbed], axis=1)
-        sp = np.stack([_broadcast(quantities[nm].sigma_plus, (n,)) for nm in perturbed], axis=1)
-        crosses = ~(_within(doms, x - sm) & _within(doms, x + sp))           # (n, m)
+        x = _side_by_side([_broadcast(quantities[nm].value, (n,)) for nm in perturbed])
+        sm = _side_by_side([_broadcast(quantities[nm].sigma_minus, (n,)) for nm in perturbed])
+        sp = _side_by_side([_broadcast(quantities[nm].sigma_plus, (n,)) for nm in perturbed])
+        ends = _within(calc, perturbed, np.array([x - sm, x + sp]))         # (2, n, m)
+        crosses = ~(ends[0] & ends[1])                                      # (n, m)
         crosses_any = crosses.any(axis=0)
         asymmetric = (sm != sp).any(axis=0)
         for j, name in enumerate(perturbed):
