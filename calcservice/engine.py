@@ -289,15 +289,20 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
     period = np.array([np.nan if o.period is None else o.period for o in given])
     wraps = np.isfinite(period)
     period = np.where(wraps, period, 1.0)
-    # outputs first: each output's (systems, perturbations) block is copied whole, and the
-    # stencil below runs along contiguous rows
-    y = np.array([ys[o.name] for o in given])                         # (nout, n, p) + trail
-    f0 = _last(y[:, :, 0])                                             # (n,) + trail + (nout,)
+    # outputs first, so that the stencil below runs along contiguous rows
+    f0 = _last(np.array([ys[o.name][:, 0] for o in given]))           # (n,) + trail + (nout,)
     if not m:
         return given, f0, np.zeros_like(f0)
     sig = _side_by_side([sigmas[name][rows] for name in perturbed])
     lead = (slice(None),) * 3 + (None,) * len(trail)
-    d = y[:, :, 1:].reshape((nout, n, m, 4) + trail) - y[:, :, :1, None]      # f(x+kh) - f(x)
+    if n < 64:                          # a few systems: fewest numpy calls
+        y = np.array([ys[o.name] for o in given])                     # (nout, n, p) + trail
+        d = y[:, :, 1:].reshape((nout, n, m, 4) + trail) - y[:, :, :1, None]   # f(x+kh) - f(x)
+    else:                               # many: no stacked copy of every output
+        d = np.empty((nout, n, m, 4) + trail)
+        for k, o in enumerate(given):
+            y = ys[o.name]
+            np.subtract(y[:, 1:].reshape((n, m, 4) + trail), y[:, :1, None], out=d[k])
     if wraps.any():
         per = period.reshape((nout,) + (1,) * (d.ndim - 1))
         d = np.where(wraps.reshape(per.shape), (d + 0.5 * per) % per - 0.5 * per, d)
