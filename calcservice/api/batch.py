@@ -552,9 +552,14 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     if ("sigma_minus" in raw) != ("sigma_plus" in raw):
         raise invalid({where: ["sigma_minus and sigma_plus go together"]})
 
-    def spread(key):
-        v = raw.get(key)
-        return v if isinstance(v, list) else [v] * n
+    def member(key):
+        """One member as floats over the systems, the entries it cannot take, and entry i's JSON."""
+        v = raw[key]
+        if isinstance(v, list):
+            return (*_floats(v), v.__getitem__)
+        if type(v) in (int, float) and abs(v) < 1e308:   # one number for every system: no list built
+            return np.full(n, float(v)), np.zeros(n, dtype=bool), lambda i: v
+        return np.full(n, np.nan), np.ones(n, dtype=bool), lambda i: v
 
     if "samples" in raw:
         samples = raw["samples"]
@@ -570,12 +575,11 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     for key in ("value", "sigma", "sigma_minus", "sigma_plus"):
         if key in raw and (type(raw[key]) not in (int, float, str, list)):
             raise invalid({f"{where}.{key}": ["must be a number or an array with one entry per system"]})
-    values = spread("value")
-    value, bad = _floats(values)
+    value, bad, value_at = member("value")
     keys = [key for key in ("sigma", "sigma_minus", "sigma_plus") if key in raw]
-    lists = {key: spread(key) for key in keys}
     # a null sigma in one system means none given; a null value means the input is not given there
-    sigmas = {key: _floats(v) for key, v in lists.items()}
+    members = {key: member(key) for key in keys}
+    sigmas = {key: (a, b) for key, (a, b, _) in members.items()}
     for _, b in sigmas.values():
         bad |= b
     if "sigma" in sigmas:
@@ -592,13 +596,13 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
         bad |= absent & ~np.isnan(sigmas[key][0])       # a sigma without a value: the parser says so
 
     def view(i):
-        entry = {"value": values[i]}
+        entry = {"value": value_at(i)}
         for key in keys:
-            if lists[key][i] is not None:
-                entry[key] = lists[key][i]
+            if members[key][2](i) is not None:
+                entry[key] = members[key][2](i)
         if unit is not None:
             entry["unit"] = unit
-        return None if values[i] is None and len(entry) == 1 + (unit is not None) else entry
+        return None if entry["value"] is None and len(entry) == 1 + (unit is not None) else entry
 
     return _Column(value, sm, sp, k, bad), view
 
