@@ -260,7 +260,8 @@ def _clean(x) -> Any:
 
 def clean_array(a: np.ndarray) -> list:
     """An array as (nested) lists of JSON-safe floats: non-finite numbers become null."""
-    a = np.asarray(a, dtype=float)
+    if type(a) is not np.ndarray or a.dtype != np.float64:
+        a = np.asarray(a, dtype=float)
     finite = np.isfinite(a)
     if finite.all():
         return a.tolist()
@@ -287,7 +288,7 @@ def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) ->
     columns: list = [None] * len(names)
     for (shape, keys), members in alike.items():
         k = np.array([factors[i] for i in members]).reshape((-1,) + (1,) * len(shape))
-        cleaned = {key: clean_array(np.stack([result.outputs[names[i]][key] for i in members]) * k) for key in keys}
+        cleaned = {key: clean_array(np.array([result.outputs[names[i]][key] for i in members]) * k) for key in keys}
         for pos, i in enumerate(members):
             columns[i] = {key: cleaned[key][pos] for key in keys}
     table = []
