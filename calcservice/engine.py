@@ -245,22 +245,35 @@ def _last(a: np.ndarray) -> np.ndarray:
     return a.transpose(tuple(range(1, a.ndim)) + (0,))
 
 
-def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: slice, trail):
+OFFSETS = np.array([-2.0, -1.0, 1.0, 2.0])     # the five-point stencil, in steps h
+
+
+@lru_cache(maxsize=4096)
+def _layout(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]):
+    """Where the perturbed inputs sit: their indices among the inputs, which are times, and the
+    stencil columns (1 + 4 j + k holds input j stepped by OFFSETS[k])."""
+    j = [names.index(name) for name in perturbed]
+    time = np.array([calc.input(name).time for name in perturbed], dtype=bool)
+    stepped = 1 + 4 * np.arange(len(perturbed))[:, None] + np.arange(4)[None, :]   # (m, 4)
+    return j, np.array(j, dtype=np.intp)[:, None], time, stepped
+
+
+def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: slice, trail):
     """Nominal outputs and their linear sigmas for the systems ``rows``: the outputs given, f0 and
-    sigma of shape (systems,) + trail + (outputs,)."""
+    sigma of shape (systems,) + trail + (outputs,).  ``spread`` (systems, perturbed) holds the
+    symmetric sigmas of the perturbed inputs."""
     n = rows.stop - rows.start
     m = len(perturbed)
     p = 1 + 4 * m
-    offsets = np.array([-2.0, -1.0, 1.0, 2.0])
+    offsets = OFFSETS
     names = list(quantities)
     x = _side_by_side([values[name][rows] for name in names])                     # (n, Q)
     cols = np.repeat(x[:, None, :], p, axis=1)                                     # (n, p, Q)
     h = None
     if m:
-        j = [names.index(name) for name in perturbed]
+        j, column_of, time, stepped = _layout(calc, tuple(names), tuple(perturbed))
         xj = x[:, j]
-        sj = _side_by_side([sigmas[name][rows] for name in perturbed])            # (n, m)
-        time = np.array([calc.input(name).time for name in perturbed])
+        sj = spread[rows]                                                          # (n, m)
         # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
         # varies: a time input is stepped by its sigma (at least 1 d).  Other inputs are stepped
         # by their sigma held within [1e-3 |x|, |x|]: a step tied to |x| alone is far too coarse
@@ -275,9 +288,7 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
         h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
         block = xj[:, None, :] + h[:, None, :] * offsets[None, :, None]           # (n, 4, m)
         block[~_within(calc, perturbed, block)] = np.nan
-        # column 1 + 4 j + k holds input j stepped by offsets[k]
-        stepped = 1 + 4 * np.arange(m)[:, None] + np.arange(4)[None, :]            # (m, 4)
-        cols[:, stepped, np.array(j)[:, None]] = block.transpose(0, 2, 1)
+        cols[:, stepped, column_of] = block.transpose(0, 2, 1)
     arrays = {name: cols[:, :, k].reshape((n, p) + (1,) * len(trail)) for k, name in enumerate(names)}
     ys = _call(calc, arrays, statics, (n, p) + trail)
     given = [o for o in calc.outputs if o.name in ys]
@@ -293,7 +304,7 @@ def _propagate(calc, quantities, statics, perturbed, r, values, sigmas, rows: sl
     f0 = _last(np.array([ys[o.name][:, 0] for o in given]))           # (n,) + trail + (nout,)
     if not m:
         return given, f0, np.zeros_like(f0)
-    sig = _side_by_side([sigmas[name][rows] for name in perturbed])
+    sig = spread[rows]
     lead = (slice(None),) * 3 + (None,) * len(trail)
     if n < 64:                          # a few systems: fewest numpy calls
         y = np.array([ys[o.name] for o in given])                     # (nout, n, p) + trail
@@ -337,8 +348,10 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
     m = len(perturbed)
     r = correlation_matrix(perturbed, options.correlations)
     values = {name: _broadcast(q.value, (n,)) for name, q in quantities.items()}
-    sigmas = {name: _broadcast(quantities[name].sigma, (n,)) for name in perturbed}
-    parts = [_propagate(calc, quantities, statics, perturbed, r, values, sigmas, slice(a, min(a + LINEAR_CHUNK, n)),
+    sm = _side_by_side([_broadcast(quantities[nm].sigma_minus, (n,)) for nm in perturbed]) if m else None
+    sp = _side_by_side([_broadcast(quantities[nm].sigma_plus, (n,)) for nm in perturbed]) if m else None
+    spread = 0.5 * (sm + sp) if m else np.zeros((n, 0))        # Measured.sigma, for all at once
+    parts = [_propagate(calc, quantities, statics, perturbed, r, values, spread, slice(a, min(a + LINEAR_CHUNK, n)),
                         trail) for a in range(0, n, LINEAR_CHUNK)]
     given = parts[0][0]
     if len(parts) == 1:
@@ -382,9 +395,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
 
     if m:
         doms = [calc.input(name).domain for name in perturbed]
-        x = _side_by_side([_broadcast(quantities[nm].value, (n,)) for nm in perturbed])
-        sm = _side_by_side([_broadcast(quantities[nm].sigma_minus, (n,)) for nm in perturbed])
-        sp = _side_by_side([_broadcast(quantities[nm].sigma_plus, (n,)) for nm in perturbed])
+        x = _side_by_side([values[nm] for nm in perturbed])
         ends = _within(calc, perturbed, np.array([x - sm, x + sp]))         # (2, n, m)
         crosses = ~(ends[0] & ends[1])                                      # (n, m)
         crosses_any = crosses.any(axis=0)
