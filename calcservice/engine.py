@@ -231,8 +231,7 @@ def _bounds(calc: Calculation, names: tuple[str, ...]) -> tuple[np.ndarray, np.n
 def _within(calc: Calculation, names, x: np.ndarray) -> np.ndarray:
     """``Domain.contains`` for several inputs at once: column j of ``x`` against input ``names[j]``."""
     low, high = _bounds(calc, tuple(names))
-    with np.errstate(invalid="ignore"):
-        return np.isfinite(x) & (x >= low) & (x <= high)
+    return np.isfinite(x) & (x >= low) & (x <= high)        # comparisons with NaN do not warn
 
 
 def _side_by_side(arrays: list) -> np.ndarray:
