@@ -300,3 +300,30 @@ def test_library_use_without_http():
     want = (10 * u.d * (30 * u.km / u.s) ** 3 / (2 * math.pi * const.GM_sun)).decompose().value
     assert out["columns"]["mass_function"]["value"][0] == pytest.approx(want, rel=1e-9)
     assert out["columns"]["mass_function"]["value"][1] == pytest.approx(2 * want, rel=1e-9)
+
+
+def test_a_system_with_its_own_options_is_answered_as_its_own_request(client):
+    own = {**SB2, "uncertainty": {"method": "monte_carlo", "samples": 3000, "seed": 11}, "units": {"m1": "kg"}}
+    status, got = post(client, "/v1/batch/sb2", {"systems": [SB2, own], "units": {"m2": "kg"}})
+    assert status == 200
+    _, shared = post(client, "/v1/spectroscopic/sb2", {**SB2, "units": {"m2": "kg"}})
+    _, alone = post(client, "/v1/spectroscopic/sb2", own)
+    assert got["results"][0]["results"]["m2"]["unit"] == "kg"
+    # the system's own members replace the shared ones whole (its units: m1 in kg, m2 in solMass)
+    assert got["results"][1]["results"]["m2"]["unit"] == "solMass"
+    assert got["results"][1] == alone
+    _assert_results_equal(got["results"][0]["results"], shared["results"])
+
+
+def test_samples_in_a_column_are_one_list_of_draws_per_system(client):
+    rng = np.random.default_rng(4)
+    draws = [list(41.6 + 0.02 * rng.standard_normal(500)), list(12.3 + 0.01 * rng.standard_normal(500))]
+    cols = {"period": {"samples": draws}, "k1": [38.2, 20.0], "k2": [51.7, 25.0], "eccentricity": 0.2}
+    status, got = post(client, "/v1/batch/sb2", {"columns": cols})
+    assert status == 200 and not got["errors"] and got["uncertainty"]["method"] == "monte_carlo"
+    for i in range(2):
+        one = {"period": {"samples": draws[i]}, "k1": cols["k1"][i], "k2": cols["k2"][i], "eccentricity": 0.2}
+        _, want = post(client, "/v1/spectroscopic/sb2", one)
+        for key in ("value", "sigma", "low", "high"):
+            # the user's draws alone (every other input exact): no random numbers, the same answer
+            assert got["columns"]["m1_sin3i"][key][i] == pytest.approx(want["results"]["m1_sin3i"][key], rel=1e-12)
