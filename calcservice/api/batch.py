@@ -37,7 +37,7 @@ from ..registry import Calculation, Input
 from ..units import UnitError, factor
 from .edge import json_body, json_response
 from .problems import Problem, invalid
-from .schemas import MEASURED_KEYS, RawQuantity
+from .schemas import MEASURED_KEYS, RawQuantity, _in_domain
 from .service import Parsed, _monte_carlo, _output_units, Rendering, evaluations, build, clean_array, failure, find, load, parse, provenance, run
 
 bp = Blueprint("batch", __name__)
@@ -438,7 +438,7 @@ def _bad_choices(spec: Input, values: list) -> np.ndarray:
         return np.array([not (v is None or (type(v) is str and v in ok)) for v in values], dtype=bool)
     out = np.zeros(len(values), dtype=bool)
     for k, v in enumerate(values):
-        if v is not None and (type(v) is not int or not spec.domain.contains(np.array([float(v)]))[0]):
+        if v is not None and (type(v) is not int or abs(v) > 2**53 or not _in_domain(spec.domain, float(v))):
             out[k] = True
     return out
 

@@ -290,7 +290,7 @@ class IntegerField(fields.Field):
                 value = int(value)
             else:
                 raise ValidationError("must be a whole number")
-        if not _in_domain(self.spec.domain, float(value)):
+        if abs(value) > 2**63 or not _in_domain(self.spec.domain, float(value)):     # 10**400: no float
             raise ValidationError(self.spec.domain.describe())
         return int(value)
 
