@@ -162,3 +162,10 @@ def test_every_declaration_example_computes():
         assert calc.example, f"{calc.name} has no example"
         r = compute(calc.name, calc.example)
         assert r["results"], calc.name
+
+
+@pytest.mark.parametrize("query", ["plot=nope&format=svg", "plot=m1", "plot=m1&format=latex", "format=xml"])
+def test_bad_query_parameters(client, query):
+    r = client.post(f"/v1/spectroscopic/sb2?{query}", json=SB2)
+    assert r.status_code == 400 and r.content_type == "application/problem+json"
+    assert set(r.get_json()["errors"]) <= {"plot", "format"}
