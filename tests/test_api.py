@@ -164,7 +164,7 @@ def test_every_declaration_example_computes():
         assert r["results"], calc.name
 
 
-@pytest.mark.parametrize("query", ["plot=nope&format=svg", "plot=m1", "plot=m1&format=latex", "format=xml"])
+@pytest.mark.parametrize("query", ["plot=nope&format=svg", "plot=nope", "plot=nope&format=latex", "format=xml"])
 def test_bad_query_parameters(client, query):
     r = client.post(f"/v1/spectroscopic/sb2?{query}", json=SB2)
     assert r.status_code == 400 and r.content_type == "application/problem+json"
