@@ -3,8 +3,8 @@
 It knows nothing about binaries.  Given a :class:`~calcservice.registry.Calculation`
 and its inputs as :class:`Measured` arrays over N systems, it propagates uncertainty
 
-* linearly, through a Jacobian taken by a five-point central difference (one-sided
-  second-order stencils where a step would leave an input's domain) with the input
+* linearly, through a Jacobian taken by central differences with a step of ~1e-5 of each
+  input's scale (one-sided where a step would leave an input's domain) and the input
   covariance built from sigmas and correlations, or
 * by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
   when correlated), the user's own samples paired index by index, isotropic
@@ -12,7 +12,7 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
   non-finite output are rejected and counted; summaries are the median, the standard
   deviation and the central 68.27 % interval.
 
-Either way the physics function is called once, on arrays of shape (N, P): P = 1 + 4 m
+Either way the physics function is called once, on arrays of shape (N, P): P = 1 + 2 m
 perturbed copies for m uncertain inputs (linear), or P = 1 + S draws (Monte Carlo,
 column 0 being the nominal point).  Nothing loops over systems in Python.
 """
@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import secrets
 from dataclasses import dataclass, field
-from functools import lru_cache
+from functools import cached_property, lru_cache
 from typing import Any, Mapping
 
 import numpy as np
@@ -31,7 +31,8 @@ from .registry import Calculation, Warning
 
 ONE_SIGMA_LOW = float(ndtr(-1.0))    # 0.158655...
 ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
-RELATIVE_STEP = 1e-4
+RELATIVE_STEP = 1e-5                 # central step ~ eps^(1/3) of the input's scale
+TIME_STEP = 1e-4                     # days per day of a time input's sigma (at least 1 d)
 LINEAR_TRUST_LIMIT = 0.2             # relative sigma above which linear propagation is suspect
 
 
@@ -84,11 +85,11 @@ class Measured:
         """The symmetric sigma used by linear propagation (mean of the two sides)."""
         return 0.5 * (self.sigma_minus + self.sigma_plus)
 
-    @property
+    @cached_property
     def asymmetric(self) -> bool:
         return bool((self.sigma_minus != self.sigma_plus).any()) and self.samples is None
 
-    @property
+    @cached_property
     def uncertain(self) -> bool:
         return (self.isotropic or self.samples is not None
                 or bool((self.sigma_plus > 0).any() or (self.sigma_minus > 0).any()))
@@ -244,16 +245,17 @@ def _last(a: np.ndarray) -> np.ndarray:
     return a.transpose(tuple(range(1, a.ndim)) + (0,))
 
 
-OFFSETS = np.array([-2.0, -1.0, 1.0, 2.0])     # the five-point stencil, in steps h
+OFFSETS = np.array([-1.0, 1.0])     # the central three-point stencil, in steps h
+WIDTH = len(OFFSETS)
 
 
 @lru_cache(maxsize=4096)
 def _layout(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]):
     """Where the perturbed inputs sit: their indices among the inputs, which are times, and the
-    stencil columns (1 + 4 j + k holds input j stepped by OFFSETS[k])."""
+    stencil columns (1 + WIDTH j + k holds input j stepped by OFFSETS[k])."""
     j = [names.index(name) for name in perturbed]
     time = np.array([calc.input(name).time for name in perturbed], dtype=bool)
-    stepped = 1 + 4 * np.arange(len(perturbed))[:, None] + np.arange(4)[None, :]   # (m, 4)
+    stepped = 1 + WIDTH * np.arange(len(perturbed))[:, None] + np.arange(WIDTH)[None, :]   # (m, WIDTH)
     return j, np.array(j, dtype=np.intp)[:, None], time, stepped
 
 
@@ -263,7 +265,7 @@ def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: sl
     symmetric sigmas of the perturbed inputs."""
     n = rows.stop - rows.start
     m = len(perturbed)
-    p = 1 + 4 * m
+    p = 1 + WIDTH * m
     offsets = OFFSETS
     names = list(quantities)
     x = _side_by_side([values[name][rows] for name in names])                     # (n, Q)
@@ -279,13 +281,13 @@ def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: sl
         # where a function amplifies it (a period's step grows by the number of elapsed cycles),
         # one tied to a tiny sigma alone would drown in rounding.
         ax = np.abs(xj)
-        scale = np.where(time, np.maximum(sj, 1.0), np.where(ax > 0, np.clip(sj, 1e-3 * ax, ax), sj))
-        h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
+        scale = np.where(ax > 0, np.clip(sj, 1e-3 * ax, ax), sj)
+        h = np.where(time, TIME_STEP * np.maximum(sj, 1.0), RELATIVE_STEP * np.where(scale > 0, scale, 1.0))
         # a step that x + h represents exactly, so rounding does not bias the difference quotient
         # (Press et al., Numerical Recipes, sec. 5.7); matters for dates, where ulp(JD) ~ 5e-10 d
         exact_h = (xj + h) - xj
         h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
-        block = xj[:, None, :] + h[:, None, :] * offsets[None, :, None]           # (n, 4, m)
+        block = xj[:, None, :] + h[:, None, :] * offsets[None, :, None]           # (n, WIDTH, m)
         block[~_within(calc, perturbed, block)] = np.nan
         cols[:, stepped, column_of] = block.transpose(0, 2, 1)
     arrays = {name: cols[:, :, k].reshape((n, p) + (1,) * len(trail)) for k, name in enumerate(names)}
@@ -307,24 +309,23 @@ def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: sl
     lead = (slice(None),) * 3 + (None,) * len(trail)
     if n < 64:                          # a few systems: fewest numpy calls
         y = np.array([ys[o.name] for o in given])                     # (nout, n, p) + trail
-        d = y[:, :, 1:].reshape((nout, n, m, 4) + trail) - y[:, :, :1, None]   # f(x+kh) - f(x)
+        d = y[:, :, 1:].reshape((nout, n, m, WIDTH) + trail) - y[:, :, :1, None]   # f(x+kh) - f(x)
     else:                               # many: no stacked copy of every output
-        d = np.empty((nout, n, m, 4) + trail)
+        d = np.empty((nout, n, m, WIDTH) + trail)
         for k, o in enumerate(given):
             y = ys[o.name]
-            np.subtract(y[:, 1:].reshape((n, m, 4) + trail), y[:, :1, None], out=d[k])
+            np.subtract(y[:, 1:].reshape((n, m, WIDTH) + trail), y[:, :1, None], out=d[k])
     if wraps.any():
         per = period.reshape((nout,) + (1,) * (d.ndim - 1))
         d = np.where(wraps.reshape(per.shape), (d + 0.5 * per) % per - 0.5 * per, d)
     h = h[(None,) + lead[1:]]                                          # (1, n, m) + trail
-    d0, d1, d2, d3 = d[:, :, :, 0], d[:, :, :, 1], d[:, :, :, 2], d[:, :, :, 3]
-    jac = (d0 - 8.0 * d1 + 8.0 * d2 - d3) / (12.0 * h)               # (nout, n, m) + trail
+    below, above = d[:, :, :, 0], d[:, :, :, 1]                      # f(x-h) - f(x), f(x+h) - f(x)
+    jac = (above - below) / (2.0 * h)                                # (nout, n, m) + trail
     central = np.isfinite(jac)
     if not central.all():
-        # one-sided second-order stencils where a step left the domain
-        forward = (4.0 * d2 - d3) / (2.0 * h)
-        backward = (d0 - 4.0 * d1) / (2.0 * h)
-        jac = np.where(central, jac, np.where(np.isfinite(forward), forward, backward))
+        # one-sided differences where a step left the domain (first order in h, which is
+        # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
+        jac = np.where(central, jac, np.where(np.isfinite(above), above / h, -below / h))
     exact = ~(sig > 0)
     if exact.any():
         # an exact input in a row does not count, even if its derivative is undefined there

@@ -279,6 +279,11 @@ def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) ->
         canonical = calc.output(name).unit
         out_units.append(units.get(name, canonical))
         factors.append(factor(canonical, out_units[-1]) if out_units[-1] != canonical else 1.0)
+    if all(np.shape(result.outputs[name]["value"]) == (1,) for name in names):
+        # one system, no series: plain floats are cheaper than any array operation
+        return [(name, False, [{**{key: _clean(float(arr[0]) * k) for key, arr in result.outputs[name].items()},
+                                "unit": unit}])
+                for name, unit, k in zip(names, out_units, factors)]
     # one conversion and one clean per member over all outputs of one shape: a dozen outputs
     # cost a few array operations, not a few dozen
     alike: dict[tuple, list[int]] = {}
