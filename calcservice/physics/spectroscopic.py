@@ -96,10 +96,19 @@ def sb1(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
 
 
 def sb2(period, k1, k2, eccentricity, inclination=None, **_):
-    """Double-lined binary: q, M1,2 sin^3 i, a sin i; with i: M1, M2, a, periastron, apastron."""
-    a1 = projected_semimajor_axis(period, k1, eccentricity)
-    a2 = projected_semimajor_axis(period, k2, eccentricity)
-    m1s, m2s = minimum_masses(period, k1, k2, eccentricity)
+    """Double-lined binary: q, M1,2 sin^3 i, a sin i; with i: M1, M2, a, periastron, apastron.
+
+    The formulas of :func:`projected_semimajor_axis` and :func:`minimum_masses`, sharing
+    (1 - e^2)^{1/2} and (1 - e^2)^{3/2} = (1 - e^2)(1 - e^2)^{1/2} (catalogues: no pow per element).
+    """
+    one_minus_e2 = 1.0 - eccentricity**2
+    root = np.sqrt(one_minus_e2)
+    axis_per_k = (PROJECTED_AXIS_COEFFICIENT_KM / AU_KM) * root * period
+    a1 = axis_per_k * k1
+    a2 = axis_per_k * k2
+    ksum = k1 + k2
+    common = MASS_FUNCTION_COEFFICIENT * one_minus_e2 * root * ksum * ksum * period
+    m1s, m2s = common * k2, common * k1
     out = {
         "mass_ratio": k1 / k2,
         "m1_sin3i": m1s,
@@ -110,7 +119,7 @@ def sb2(period, k1, k2, eccentricity, inclination=None, **_):
     }
     if inclination is not None:
         sin_i = np.sin(np.radians(inclination))
-        sin3 = sin_i**3
+        sin3 = sin_i * sin_i * sin_i
         a = (a1 + a2) / sin_i
         out.update({
             "m1": m1s / sin3,
