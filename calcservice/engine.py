@@ -144,10 +144,21 @@ def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], 
     return r
 
 
-def _wrap(d: np.ndarray, period: float | None) -> np.ndarray:
+def _wrap(d: np.ndarray, period) -> np.ndarray:
+    """``d`` reduced to [-period/2, period/2) (``period`` a number, an array, or None for no wrap)."""
     if period is None:
         return d
     return (d + 0.5 * period) % period - 0.5 * period
+
+
+@lru_cache(maxsize=1024)
+def _periods(given: tuple) -> tuple[np.ndarray, np.ndarray]:
+    """The wrap period of each output (1 where it does not wrap) and which outputs wrap."""
+    period = np.array([np.nan if o.period is None else o.period for o in given])
+    wraps = np.isfinite(period)
+    period = np.where(wraps, period, 1.0)
+    period.flags.writeable = wraps.flags.writeable = False
+    return period, wraps
 
 
 def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
@@ -298,9 +309,7 @@ def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: sl
     # every output at once, on a trailing axis: a handful of array operations per call
     # instead of a dozen per output and uncertain input (the cost of a small request)
     nout = len(given)
-    period = np.array([np.nan if o.period is None else o.period for o in given])
-    wraps = np.isfinite(period)
-    period = np.where(wraps, period, 1.0)
+    period, wraps = _periods(tuple(given))
     # outputs first, so that the stencil below runs along contiguous rows
     f0 = _last(np.array([ys[o.name][:, 0] for o in given]))           # (n,) + trail + (nout,)
     if not m:
@@ -317,7 +326,7 @@ def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: sl
             np.subtract(y[:, 1:].reshape((n, m, WIDTH) + trail), y[:, :1, None], out=d[k])
     if wraps.any():
         per = period.reshape((nout,) + (1,) * (d.ndim - 1))
-        d = np.where(wraps.reshape(per.shape), (d + 0.5 * per) % per - 0.5 * per, d)
+        d = np.where(wraps.reshape(per.shape), _wrap(d, per), d)
     h = h[(None,) + lead[1:]]                                          # (1, n, m) + trail
     below, above = d[:, :, :, 0], d[:, :, :, 1]                      # f(x-h) - f(x), f(x+h) - f(x)
     jac = (above - below) / (2.0 * h)                                # (nout, n, m) + trail
@@ -365,9 +374,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
     failed: dict[int, dict[str, list[str]]] = {}
     if given:
         nout = len(given)
-        period = np.array([np.nan if o.period is None else o.period for o in given])
-        wraps = np.isfinite(period)
-        period = np.where(wraps, period, 1.0)
+        period, wraps = _periods(tuple(given))
         if wraps.any():
             f0 = np.where(wraps, f0 % period, f0)
         with np.errstate(all="ignore"):
