@@ -22,8 +22,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..constants import AU, GM_SUN, SECONDS_PER_DAY, TWO_PI
-from .spectroscopic import companion_mass, mass_function, projected_semimajor_axis
+from .spectroscopic import (companion_mass, kepler_semimajor_axis, kepler_total_mass, mass_function,
+                            projected_semimajor_axis)
 
 MAS_PER_ARCSEC = 1000.0
 
@@ -43,25 +43,6 @@ def distance_from_parallax(parallax):
 def linear_size(angle, parallax):
     """A length in au from its angle (mas) and the parallax (mas): a = a'' / parallax."""
     return angle / parallax
-
-
-# ----------------------------------------------------------------------------- Kepler
-
-def kepler_total_mass(semimajor_axis, period):
-    """Total mass (solMass) from Kepler's third law, M = 4 pi^2 a^3 / (GM_sun P^2).
-
-    a in au, P in days (Hilditch 2001, *An Introduction to Close Binary Stars*, ch. 2,
-    with the IAU 2015 nominal GM_sun).
-    """
-    a = semimajor_axis * AU
-    seconds = period * SECONDS_PER_DAY
-    return TWO_PI**2 * a**3 / (GM_SUN * seconds**2)
-
-
-def kepler_semimajor_axis(period, total_mass):
-    """Relative semi-major axis a (au) from Kepler's third law, a^3 = GM_sun M P^2 / (4 pi^2)."""
-    seconds = period * SECONDS_PER_DAY
-    return np.cbrt(GM_SUN * total_mass * seconds**2 / TWO_PI**2) / AU
 
 
 # ----------------------------------------------------------------------------- visual orbits

@@ -17,9 +17,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..constants import AU, GM_SUN, R_SUN, SECONDS_PER_DAY, TWO_PI
+from ..constants import AU, GM_SUN, R_SUN, TWO_PI
 from . import kepler
-from .spectroscopic import kepler_semimajor_axis
+from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
 AU_IN_SOLAR_RADII = AU / R_SUN
 
@@ -205,13 +205,6 @@ def roche_lobe_fraction(mass_ratio):
     return 0.49 * q23 / (0.6 * q23 + np.log1p(q13))
 
 
-def total_mass_from_semimajor_axis(period, semimajor_axis):
-    """M1 + M2 (solMass) from Kepler's third law, G M = 4 pi^2 a^3 / P^2."""
-    a_m = np.asarray(semimajor_axis, dtype=float) * AU
-    seconds = np.asarray(period, dtype=float) * SECONDS_PER_DAY
-    return TWO_PI**2 * a_m**3 / (GM_SUN * seconds**2)
-
-
 def vis_viva_speed(total_mass, distance, semimajor_axis):
     """Relative orbital speed (km/s) at distance r: v^2 = G M (2/r - 1/a) (vis-viva equation)."""
     gm = GM_SUN * np.asarray(total_mass, dtype=float)
@@ -231,7 +224,7 @@ def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_r
     out = {}
     if semimajor_axis is not None:
         a = semimajor_axis
-        total = total_mass_from_semimajor_axis(period, a)
+        total = kepler_total_mass(a, period)
         if mass_ratio is not None:
             m1 = total / (1.0 + mass_ratio)
             m2 = total - m1

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..constants import AU_KM, GM_SUN, SECONDS_PER_DAY, TWO_PI
+from ..constants import AU, AU_KM, GM_SUN, SECONDS_PER_DAY, TWO_PI
 
 #: f(M) = MASS_FUNCTION_COEFFICIENT * (1 - e^2)^{3/2} K^3 P  [solMass, K in km/s, P in d]
 MASS_FUNCTION_COEFFICIENT = SECONDS_PER_DAY * 1e9 / (TWO_PI * GM_SUN)
@@ -71,9 +71,20 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
 
 
 def kepler_semimajor_axis(period, total_mass):
-    """Relative semi-major axis a (au) from Kepler's third law, a^3 = G M P^2 / (4 pi^2)."""
+    """Relative semi-major axis a (au) from Kepler's third law, a^3 = GM_sun M P^2 / (4 pi^2)."""
     seconds = period * SECONDS_PER_DAY
-    return np.cbrt(GM_SUN * total_mass * seconds**2 / TWO_PI**2) / (AU_KM * 1e3)
+    return np.cbrt(GM_SUN * total_mass * seconds**2 / TWO_PI**2) / AU
+
+
+def kepler_total_mass(semimajor_axis, period):
+    """Total mass (solMass) from Kepler's third law, M = 4 pi^2 a^3 / (GM_sun P^2).
+
+    a in au, P in days (Hilditch 2001, *An Introduction to Close Binary Stars*, ch. 2,
+    with the IAU 2015 nominal GM_sun).
+    """
+    a = semimajor_axis * AU
+    seconds = period * SECONDS_PER_DAY
+    return TWO_PI**2 * a**3 / (GM_SUN * seconds**2)
 
 
 def sb1(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
