@@ -165,8 +165,7 @@ def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, An
     kwargs: dict[str, Any] = {i.name: None for i in calc.inputs}
     kwargs.update(statics)
     kwargs.update(arrays)
-    with np.errstate(all="ignore"):
-        raw = calc.function(**kwargs)
+    raw = calc.function(**kwargs)          # under evaluate's np.errstate(all="ignore")
     out = {}
     for o in calc.outputs:
         y = raw.get(o.name)
@@ -184,25 +183,29 @@ def _series_shape(calc: Calculation, statics: Mapping[str, Any]) -> tuple:
     return trail
 
 
-def _nominal_failures(calc, nominal: Mapping[str, np.ndarray], statics: Mapping[str, Any],
-                      n: int) -> dict[int, dict[str, list[str]]]:
-    """Rows whose nominal inputs (choices included) violate a declared constraint."""
+def _nominal_failures(calc, args: Mapping[str, Any], n: int) -> dict[int, dict[str, list[str]]]:
+    """Rows whose nominal inputs (``args``, choices included) violate a declared constraint."""
     failed: dict[int, dict[str, list[str]]] = {}
-    args = {i.name: statics.get(i.name, nominal.get(i.name)) for i in calc.inputs}
     for c in calc.constraints:
-        with np.errstate(all="ignore"):
-            ok = _broadcast(np.asarray(c.test(**args), dtype=bool), (n,))
-        for k in np.flatnonzero(~ok):
+        ok = _broadcast(np.asarray(c.test(**args), dtype=bool), (n,))
+        for k in np.flatnonzero(~ok).tolist():
             for f in c.fields:
-                failed.setdefault(int(k), {}).setdefault(f, []).append(c.message)
+                failed.setdefault(k, {}).setdefault(f, []).append(c.message)
     return failed
 
 
 def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Mapping[str, Any] | None = None,
              options: Options | None = None) -> Result:
-    """Propagate the uncertainty of ``quantities`` through ``calc``."""
-    statics = dict(statics or {})
-    options = options or Options()
+    """Propagate the uncertainty of ``quantities`` through ``calc``.
+
+    Floating-point warnings are off throughout: a physics function may meet inputs where it
+    has no value (a NaN there is the answer, which the engine flags), and a perturbed or drawn
+    input may leave the region where the formula is defined."""
+    with np.errstate(all="ignore"):
+        return _evaluate(calc, quantities, dict(statics or {}), options or Options())
+
+
+def _evaluate(calc, quantities, statics, options) -> Result:
     n = max((len(q.value) for q in quantities.values()), default=1)
     trail = _series_shape(calc, statics)
     nominal = {k: _broadcast(q.value, (n,)) for k, q in quantities.items()}
@@ -220,13 +223,13 @@ def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Map
     if switched:
         result.warnings.insert(0, Warning(*switched))
 
-    for k, errs in _nominal_failures(calc, nominal, statics, n).items():
-        result.failed.setdefault(k, {}).update(errs)
     result.nominal_inputs = nominal
-    if calc.check is not None:
-        nominal_out = {name: o["value"] for name, o in result.outputs.items()}
+    if calc.constraints or calc.check is not None:
         args = {i.name: statics.get(i.name, nominal.get(i.name)) for i in calc.inputs}
-        with np.errstate(all="ignore"):
+        for k, errs in _nominal_failures(calc, args, n).items():
+            result.failed.setdefault(k, {}).update(errs)
+        if calc.check is not None:
+            nominal_out = {name: o["value"] for name, o in result.outputs.items()}
             result.warnings.extend(calc.check(inputs=args, outputs=nominal_out))
     return result
 
@@ -240,112 +243,119 @@ def _bounds(calc: Calculation, names: tuple[str, ...]) -> tuple[np.ndarray, np.n
     return low, high
 
 
-def _within(calc: Calculation, names, x: np.ndarray) -> np.ndarray:
-    """``Domain.contains`` for several inputs at once: column j of ``x`` against input ``names[j]``."""
-    low, high = _bounds(calc, tuple(names))
-    return np.isfinite(x) & (x >= low) & (x <= high)        # comparisons with NaN do not warn
-
-
-def _side_by_side(arrays: list) -> np.ndarray:
-    """Equal-shaped (n,) arrays as the columns of an (n, k) array (one C call, unlike np.stack)."""
-    return np.array(arrays, dtype=float).T
-
-
-def _last(a: np.ndarray) -> np.ndarray:
-    """The first axis moved to the end (np.moveaxis(a, 0, -1) without its overhead)."""
-    return a.transpose(tuple(range(1, a.ndim)) + (0,))
-
-
 OFFSETS = np.array([-1.0, 1.0])     # the central three-point stencil, in steps h
 WIDTH = len(OFFSETS)
 
 
+@dataclass(frozen=True)
+class _Stencil:
+    """Where the perturbed inputs of one calculation sit, built once per set of inputs: their rows
+    among the inputs, which are times, their closed domains, and the stencil columns they fill
+    (column 1 + WIDTH j + k holds perturbed input j stepped by OFFSETS[k])."""
+
+    rows: np.ndarray            # (m,) index of each perturbed input among the inputs
+    time: np.ndarray            # (m, 1) which are dates
+    any_time: bool
+    low: np.ndarray             # (m, 1) closed domain bounds
+    high: np.ndarray
+    fill_rows: np.ndarray       # (WIDTH m,) input row of each stepped column
+    fill_cols: np.ndarray       # (WIDTH m,) its column
+
+
 @lru_cache(maxsize=4096)
-def _layout(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]):
-    """Where the perturbed inputs sit: their indices among the inputs, which are times, and the
-    stencil columns (1 + WIDTH j + k holds input j stepped by OFFSETS[k])."""
-    j = [names.index(name) for name in perturbed]
-    time = np.array([calc.input(name).time for name in perturbed], dtype=bool)
-    stepped = 1 + WIDTH * np.arange(len(perturbed))[:, None] + np.arange(WIDTH)[None, :]   # (m, WIDTH)
-    return j, np.array(j, dtype=np.intp)[:, None], time, stepped
+def _stencil(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) -> _Stencil:
+    rows = np.array([names.index(name) for name in perturbed], dtype=np.intp)
+    time = np.array([calc.input(name).time for name in perturbed], dtype=bool)[:, None]
+    low, high = _bounds(calc, perturbed)
+    s = _Stencil(rows, time, bool(time.any()), low[:, None], high[:, None], np.repeat(rows, WIDTH),
+                 1 + np.arange(WIDTH * len(perturbed)))
+    for a in (s.rows, s.time, s.low, s.high, s.fill_rows, s.fill_cols):
+        a.flags.writeable = False
+    return s
 
 
-def _propagate(calc, quantities, statics, perturbed, r, values, spread, rows: slice, trail):
-    """Nominal outputs and their linear sigmas for the systems ``rows``: the outputs given, f0 and
-    sigma of shape (systems,) + trail + (outputs,).  ``spread`` (systems, perturbed) holds the
-    symmetric sigmas of the perturbed inputs."""
-    n = rows.stop - rows.start
-    m = len(perturbed)
+@lru_cache(maxsize=4096)
+def _output_periods(calc: Calculation, names: tuple[str, ...], ndim: int) -> tuple[np.ndarray, np.ndarray, bool]:
+    """The wrap period of each output (1 where it does not wrap), which wrap, and whether any does;
+    shaped (outputs,) + (1,) * (ndim - 1) to broadcast against (outputs, systems, ...) arrays."""
+    period, wraps = _periods(tuple(calc.output(name) for name in names))
+    shape = (len(names),) + (1,) * (ndim - 1)
+    return period.reshape(shape), wraps.reshape(shape), bool(wraps.any())
+
+
+def _steps(x: np.ndarray, spread: np.ndarray, st: _Stencil) -> np.ndarray:
+    """The difference step of each perturbed input (m, n).
+
+    A date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
+    varies: a time input is stepped by its sigma (at least 1 d).  Other inputs are stepped by
+    their sigma held within [1e-3 |x|, |x|]: a step tied to |x| alone is far too coarse where a
+    function amplifies it (a period's step grows by the number of elapsed cycles), one tied to a
+    tiny sigma alone would drown in rounding.  The step is then one that x + h represents
+    exactly, so rounding does not bias the difference quotient (Press et al., Numerical Recipes,
+    sec. 5.7); it matters for dates, where ulp(JD) ~ 5e-10 d."""
+    ax = np.abs(x)
+    scale = np.where(ax > 0, np.minimum(np.maximum(spread, 1e-3 * ax), ax), spread)
+    h = RELATIVE_STEP * np.where(scale > 0, scale, 1.0)
+    if st.any_time:
+        h = np.where(st.time, TIME_STEP * np.maximum(spread, 1.0), h)
+    exact = (x + h) - x
+    return np.where((exact > 0) & (exact < np.inf), exact, h)
+
+
+def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
+    """Nominal outputs and their linear sigmas for a block of systems: ``x`` (inputs, n) holds the
+    inputs' values, ``spread`` (m, n) the symmetric sigmas of the perturbed ones.  Returns the
+    outputs given and f0, sigma of shape (outputs, n) + trail."""
+    q, n = x.shape
+    m = len(st.rows)
     p = 1 + WIDTH * m
-    offsets = OFFSETS
-    names = list(quantities)
-    x = _side_by_side([values[name][rows] for name in names])                     # (n, Q)
-    cols = np.repeat(x[:, None, :], p, axis=1)                                     # (n, p, Q)
-    h = None
+    cols = np.repeat(x[:, :, None], p, axis=2)                                      # (Q, n, p)
     if m:
-        j, column_of, time, stepped = _layout(calc, tuple(names), tuple(perturbed))
-        xj = x[:, j]
-        sj = spread[rows]                                                          # (n, m)
-        # a date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
-        # varies: a time input is stepped by its sigma (at least 1 d).  Other inputs are stepped
-        # by their sigma held within [1e-3 |x|, |x|]: a step tied to |x| alone is far too coarse
-        # where a function amplifies it (a period's step grows by the number of elapsed cycles),
-        # one tied to a tiny sigma alone would drown in rounding.
-        ax = np.abs(xj)
-        scale = np.where(ax > 0, np.clip(sj, 1e-3 * ax, ax), sj)
-        h = np.where(time, TIME_STEP * np.maximum(sj, 1.0), RELATIVE_STEP * np.where(scale > 0, scale, 1.0))
-        # a step that x + h represents exactly, so rounding does not bias the difference quotient
-        # (Press et al., Numerical Recipes, sec. 5.7); matters for dates, where ulp(JD) ~ 5e-10 d
-        exact_h = (xj + h) - xj
-        h = np.where(np.isfinite(exact_h) & (exact_h > 0), exact_h, h)
-        block = xj[:, None, :] + h[:, None, :] * offsets[None, :, None]           # (n, WIDTH, m)
-        block[~_within(calc, perturbed, block)] = np.nan
-        cols[:, stepped, column_of] = block.transpose(0, 2, 1)
-    arrays = {name: cols[:, :, k].reshape((n, p) + (1,) * len(trail)) for k, name in enumerate(names)}
-    ys = _call(calc, arrays, statics, (n, p) + trail)
-    given = [o for o in calc.outputs if o.name in ys]
+        xj = x[st.rows]                                                              # (m, n)
+        h = _steps(xj, spread, st)
+        block = xj[:, None, :] + h[:, None, :] * OFFSETS[:, None]                    # (m, WIDTH, n)
+        inside = np.isfinite(block) & (block >= st.low[:, :, None]) & (block <= st.high[:, :, None])
+        if not inside.all():
+            block[~inside] = np.nan
+        cols[st.fill_rows, :, st.fill_cols] = block.reshape(WIDTH * m, n)
+    ones = (1,) * len(trail)
+    ys = _call(calc, {name: cols[k].reshape((n, p) + ones) if trail else cols[k] for k, name in enumerate(names)},
+               statics, (n, p) + trail)
+    given = tuple(ys)
     if not given:
         return given, None, None
-    # every output at once, on a trailing axis: a handful of array operations per call
-    # instead of a dozen per output and uncertain input (the cost of a small request)
-    nout = len(given)
-    period, wraps = _periods(tuple(given))
-    # outputs first, so that the stencil below runs along contiguous rows
-    f0 = _last(np.array([ys[o.name][:, 0] for o in given]))           # (n,) + trail + (nout,)
+    y = np.array(list(ys.values()))                                                 # (outputs, n, p) + trail
+    f0 = y[:, :, 0]
     if not m:
         return given, f0, np.zeros_like(f0)
-    sig = spread[rows]
-    lead = (slice(None),) * 3 + (None,) * len(trail)
-    if n < 64:                          # a few systems: fewest numpy calls
-        y = np.array([ys[o.name] for o in given])                     # (nout, n, p) + trail
-        d = y[:, :, 1:].reshape((nout, n, m, WIDTH) + trail) - y[:, :, :1, None]   # f(x+kh) - f(x)
-    else:                               # many: no stacked copy of every output
-        d = np.empty((nout, n, m, WIDTH) + trail)
-        for k, o in enumerate(given):
-            y = ys[o.name]
-            np.subtract(y[:, 1:].reshape((n, m, WIDTH) + trail), y[:, :1, None], out=d[k])
-    if wraps.any():
-        per = period.reshape((nout,) + (1,) * (d.ndim - 1))
-        d = np.where(wraps.reshape(per.shape), _wrap(d, per), d)
-    h = h[(None,) + lead[1:]]                                          # (1, n, m) + trail
-    below, above = d[:, :, :, 0], d[:, :, :, 1]                      # f(x-h) - f(x), f(x+h) - f(x)
-    jac = (above - below) / (2.0 * h)                                # (nout, n, m) + trail
-    central = np.isfinite(jac)
-    if not central.all():
+    nout = len(given)
+    period, wraps, any_wrap = _output_periods(calc, given, y.ndim)
+    pairs = y[:, :, 1:].reshape((nout, n, m, WIDTH) + trail)
+    below, above = pairs[:, :, :, 0], pairs[:, :, :, 1]                             # f(x - h), f(x + h)
+    diff = above - below
+    if any_wrap:
+        diff = np.where(wraps, _wrap(diff, period), diff)
+    h = h.T.reshape((1, n, m) + ones)
+    jac = diff / (2.0 * h)                                                           # (outputs, n, m) + trail
+    if not np.isfinite(jac).all():
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
-        jac = np.where(central, jac, np.where(np.isfinite(above), above / h, -below / h))
+        ref = f0[:, :, None]
+        up, down = above - ref, below - ref
+        if any_wrap:
+            up, down = np.where(wraps, _wrap(up, period), up), np.where(wraps, _wrap(down, period), down)
+        jac = np.where(np.isfinite(jac), jac, np.where(np.isfinite(up), up / h, -down / h))
+    sig = spread.T.reshape((1, n, m) + ones)
     exact = ~(sig > 0)
     if exact.any():
         # an exact input in a row does not count, even if its derivative is undefined there
-        jac = np.where(exact[(None,) + lead[1:]], 0.0, jac)
-    if np.count_nonzero(r) == m and (central.all() or np.isfinite(jac).all()):
+        jac = np.where(exact, 0.0, jac)
+    if r is None or np.count_nonzero(r) == m:
         # uncorrelated inputs: the quadratic form is a sum of squares
-        var = np.square(jac * sig[(None,) + lead[1:]]).sum(axis=2)
-    else:
-        cov = sig[:, :, None] * r[None, :, :] * sig[:, None, :]      # (n, m, m)
-        var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
-    return given, f0, _last(np.sqrt(np.maximum(var, 0.0)))
+        return given, f0, np.sqrt(np.square(jac * sig).sum(axis=2))
+    cov = spread.T[:, :, None] * r[None, :, :] * spread.T[:, None, :]               # (n, m, m)
+    var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
+    return given, f0, np.sqrt(np.maximum(var, 0.0))
 
 
 LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x perturbations x outputs)
@@ -353,71 +363,78 @@ LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x pe
 
 
 def _linear(calc, quantities, statics, options, n, trail) -> Result:
-    perturbed = [name for name, q in quantities.items() if q.uncertain]
+    names = tuple(quantities)
+    qs = quantities.values()
+    x = np.array([_broadcast(q.value, (n,)) for q in qs], dtype=float)              # (Q, n)
+    sides = np.array([[_broadcast(q.sigma_minus, (n,)) for q in qs],
+                      [_broadcast(q.sigma_plus, (n,)) for q in qs]], dtype=float)   # (2, Q, n)
+    uncertain = np.flatnonzero((sides > 0).any(axis=(0, 2)))
+    perturbed = tuple(names[k] for k in uncertain.tolist())
     m = len(perturbed)
-    r = correlation_matrix(perturbed, options.correlations)
-    values = {name: _broadcast(q.value, (n,)) for name, q in quantities.items()}
-    sm = _side_by_side([_broadcast(quantities[nm].sigma_minus, (n,)) for nm in perturbed]) if m else None
-    sp = _side_by_side([_broadcast(quantities[nm].sigma_plus, (n,)) for nm in perturbed]) if m else None
-    spread = 0.5 * (sm + sp) if m else np.zeros((n, 0))        # Measured.sigma, for all at once
-    parts = [_propagate(calc, quantities, statics, perturbed, r, values, spread, slice(a, min(a + LINEAR_CHUNK, n)),
-                        trail) for a in range(0, n, LINEAR_CHUNK)]
+    st = _stencil(calc, names, perturbed)
+    r = correlation_matrix(list(perturbed), options.correlations) if options.correlations else None
+    sm, sp = sides[0, st.rows], sides[1, st.rows]                                   # (m, n)
+    spread = 0.5 * (sm + sp)                                                         # Measured.sigma, for all at once
+    parts = [_propagate(calc, names, x[:, a:a + LINEAR_CHUNK], spread[:, a:a + LINEAR_CHUNK], st, r, statics, trail)
+             for a in range(0, n, LINEAR_CHUNK)]
     given = parts[0][0]
     if len(parts) == 1:
         f0, sigma = parts[0][1], parts[0][2]
     elif given:
-        f0 = np.concatenate([p[1] for p in parts])
-        sigma = np.concatenate([p[2] for p in parts])
+        f0 = np.concatenate([p[1] for p in parts], axis=1)
+        sigma = np.concatenate([p[2] for p in parts], axis=1)
 
     outputs: dict[str, dict[str, np.ndarray]] = {}
     warnings: list[Warning] = []
     failed: dict[int, dict[str, list[str]]] = {}
     if given:
-        nout = len(given)
-        period, wraps = _periods(tuple(given))
-        if wraps.any():
+        period, wraps, any_wrap = _output_periods(calc, given, f0.ndim)
+        if any_wrap:
             f0 = np.where(wraps, f0 % period, f0)
-        with np.errstate(all="ignore"):
-            rel = np.abs(sigma / f0)
-        per_row = (n, -1, nout)
-        bad = (~np.isfinite(f0)).reshape(per_row).any(axis=1)              # (n, nout)
-        loose = ((rel > LINEAR_TRUST_LIMIT) & np.isfinite(rel)).reshape(per_row).any(axis=1)
-        undefined = (~np.isfinite(sigma) & np.isfinite(f0)).reshape(per_row).any(axis=1)
-        bad_any, loose_any, undefined_any = bad.any(axis=0), loose.any(axis=0), undefined.any(axis=0)
-        for k, o in enumerate(given):
-            outputs[o.name] = {"value": f0[..., k], "sigma": sigma[..., k]}
-            if bad_any[k]:
-                for row in np.flatnonzero(bad[:, k]):
-                    failed.setdefault(int(row), {}).setdefault("_inputs", []).append(
-                        f"these inputs give no finite value of {o.name}")
-            if o.period is None and loose_any[k]:
+        rel = np.abs(sigma / f0)
+        loose = (rel > LINEAR_TRUST_LIMIT) & np.isfinite(rel)                        # (outputs, n) + trail
+        finite = np.isfinite(f0)
+        defined = np.isfinite(sigma) | ~finite
+        flagged = loose.any() or not finite.all() or not defined.all()
+        if flagged:
+            per_row = (len(given), n, -1)
+            bad = ~finite.reshape(per_row).all(axis=2)                               # (outputs, n)
+            loose = loose.reshape(per_row).any(axis=2)
+            undefined = ~defined.reshape(per_row).all(axis=2)
+        for k, name in enumerate(given):
+            outputs[name] = {"value": f0[k], "sigma": sigma[k]}
+            if not flagged:
+                continue
+            if bad[k].any():
+                for row in np.flatnonzero(bad[k]).tolist():
+                    failed.setdefault(row, {}).setdefault("_inputs", []).append(
+                        f"these inputs give no finite value of {name}")
+            if not wraps.flat[k] and loose[k].any():
                 warnings.append(Warning("linear_untrustworthy",
                                         "{subject}: relative sigma above " f"{LINEAR_TRUST_LIMIT:.0%}; first-order "
-                                        "propagation may be poor; consider the Monte Carlo method", loose[:, k],
-                                        o.name))
-            if undefined_any[k]:
+                                        "propagation may be poor; consider the Monte Carlo method", loose[k], name))
+            if undefined[k].any():
                 warnings.append(Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated "
-                                        "linearly at these inputs; use the Monte Carlo method", undefined[:, k],
-                                        o.name))
+                                        "linearly at these inputs; use the Monte Carlo method", undefined[k], name))
 
     if m:
-        doms = [calc.input(name).domain for name in perturbed]
-        x = _side_by_side([values[nm] for nm in perturbed])
-        ends = _within(calc, perturbed, np.array([x - sm, x + sp]))         # (2, n, m)
-        crosses = ~(ends[0] & ends[1])                                      # (n, m)
-        crosses_any = crosses.any(axis=0)
-        asymmetric = (sm != sp).any(axis=0)
-        for j, name in enumerate(perturbed):
-            if crosses_any[j]:
-                warnings.append(Warning("interval_crosses_domain",
-                                        f"the 1-sigma interval of {name} crosses its physical domain "
-                                        f"({doms[j].describe()}); consider the Monte Carlo method, which truncates "
-                                        "draws to the domain", crosses[:, j]))
-            if asymmetric[j] and quantities[name].samples is None:
-                warnings.append(Warning("asymmetric_linearised",
-                                        "{subject}: asymmetric errors; linear propagation used the mean of "
-                                        "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal",
-                                        None, name))
+        xj = x[st.rows]
+        ends = np.array([xj - sm, xj + sp])                                          # (2, m, n)
+        crosses = ~(np.isfinite(ends) & (ends >= st.low) & (ends <= st.high)).all(axis=0)
+        asymmetric = sm != sp
+        if crosses.any() or asymmetric.any():
+            doms = [calc.input(name).domain for name in perturbed]
+            for j, name in enumerate(perturbed):
+                if crosses[j].any():
+                    warnings.append(Warning("interval_crosses_domain",
+                                            f"the 1-sigma interval of {name} crosses its physical domain "
+                                            f"({doms[j].describe()}); consider the Monte Carlo method, which "
+                                            "truncates draws to the domain", crosses[j]))
+                if asymmetric[j].any() and quantities[name].samples is None:
+                    warnings.append(Warning("asymmetric_linearised",
+                                            "{subject}: asymmetric errors; linear propagation used the mean of "
+                                            "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal",
+                                            None, name))
     return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
 
 
@@ -450,9 +467,8 @@ def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
                 u = ndtr(zj)
                 tot = sm + sp
                 pl = np.where(tot > 0, sm / np.where(tot > 0, tot, 1.0), 0.5)
-                with np.errstate(all="ignore"):
-                    low = x + sm * ndtri(np.clip(u * tot / (2 * sm), 0, 1))
-                    high = x + sp * ndtri(np.clip(0.5 + (u - pl) * tot / (2 * sp), 0, 1))
+                low = x + sm * ndtri(np.clip(u * tot / (2 * sm), 0, 1))
+                high = x + sp * ndtri(np.clip(0.5 + (u - pl) * tot / (2 * sp), 0, 1))
                 out[name] = np.where(u < pl, low, high)
                 out[name] = np.where(tot > 0, out[name], x)
         else:
@@ -520,10 +536,9 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
             d = ref + _wrap(d - ref, o.period)
         mask = valid.reshape(valid.shape + (1,) * len(trail))
         med, low, high = quantiles(d, valid, (0.5, ONE_SIGMA_LOW, ONE_SIGMA_HIGH))
-        with np.errstate(all="ignore"):
-            cnt = np.maximum(nvalid.reshape((-1,) + (1,) * len(trail)), 1)
-            mean = np.where(mask, d, 0.0).sum(axis=1) / cnt
-            var = np.where(mask, (d - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
+        cnt = np.maximum(nvalid.reshape((-1,) + (1,) * len(trail)), 1)
+        mean = np.where(mask, d, 0.0).sum(axis=1) / cnt
+        var = np.where(mask, (d - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
         if o.period is not None:
             shift = np.floor(med / o.period) * o.period
             med, low, high = med - shift, low - shift, high - shift
