@@ -14,11 +14,16 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
 
 Either way the physics function is called once, on arrays of shape (N, P): P = 1 + 2 m
 perturbed copies for m uncertain inputs (linear), or P = 1 + S draws (Monte Carlo,
-column 0 being the nominal point).  Nothing loops over systems in Python.
+column 0 being the nominal point).  Nothing loops over systems in Python.  For a single
+system the linear method's bookkeeping around that one call (steps, differences, the
+quadratic form, the checks) runs on Python floats (:func:`_linear_one`), where numpy's
+per-call cost would outweigh the arithmetic many times; tests hold it to the vector
+method (:func:`_linear`) over every calculation.
 """
 
 from __future__ import annotations
 
+import math
 import secrets
 from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
@@ -144,6 +149,11 @@ def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], 
     return r
 
 
+def _wrap_one(d: float, period: float) -> float:
+    """:func:`_wrap` of one float (Python's % and numpy's agree: the sign of the divisor)."""
+    return (d + 0.5 * period) % period - 0.5 * period
+
+
 def _wrap(d: np.ndarray, period) -> np.ndarray:
     """``d`` reduced to [-period/2, period/2) (``period`` a number, an array, or None for no wrap)."""
     if period is None:
@@ -216,7 +226,9 @@ def _evaluate(calc, quantities, statics, options) -> Result:
         method = "monte_carlo"
         switched = ("method_switched", "inputs given as samples or as 'isotropic' need Monte Carlo; "
                     "the Monte Carlo method was used")
-    if method == "linear":
+    if method == "linear" and n == 1 and not trail:
+        result = _linear_one(calc, quantities, statics, options)
+    elif method == "linear":
         result = _linear(calc, quantities, statics, options, n, trail)
     else:
         result = _monte_carlo(calc, quantities, statics, options, n, trail)
@@ -244,7 +256,10 @@ def _bounds(calc: Calculation, names: tuple[str, ...]) -> tuple[np.ndarray, np.n
 
 
 OFFSETS = np.array([-1.0, 1.0])     # the central three-point stencil, in steps h
+OFFSETS_LIST = OFFSETS.tolist()
 WIDTH = len(OFFSETS)
+_TRUE = np.ones(1, dtype=bool)      # "this system", as the mask of a one-system warning
+_TRUE.flags.writeable = False
 
 
 @dataclass(frozen=True)
@@ -260,6 +275,9 @@ class _Stencil:
     high: np.ndarray
     fill_rows: np.ndarray       # (WIDTH m,) input row of each stepped column
     fill_cols: np.ndarray       # (WIDTH m,) its column
+    time_list: list             # the same as plain Python values, for one system (_linear_one)
+    low_list: list
+    high_list: list
 
 
 @lru_cache(maxsize=4096)
@@ -268,7 +286,7 @@ def _stencil(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ..
     time = np.array([calc.input(name).time for name in perturbed], dtype=bool)[:, None]
     low, high = _bounds(calc, perturbed)
     s = _Stencil(rows, time, bool(time.any()), low[:, None], high[:, None], np.repeat(rows, WIDTH),
-                 1 + np.arange(WIDTH * len(perturbed)))
+                 1 + np.arange(WIDTH * len(perturbed)), time[:, 0].tolist(), low.tolist(), high.tolist())
     for a in (s.rows, s.time, s.low, s.high, s.fill_rows, s.fill_cols):
         a.flags.writeable = False
     return s
@@ -356,6 +374,121 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
     cov = spread.T[:, :, None] * r[None, :, :] * spread.T[:, None, :]               # (n, m, m)
     var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
     return given, f0, np.sqrt(np.maximum(var, 0.0))
+
+
+def _step(x: float, s: float, time: bool) -> float:
+    """:func:`_steps` for one input of one system, on floats (the same operations, so the same bits)."""
+    ax = abs(x)
+    scale = min(max(s, 1e-3 * ax), ax) if ax > 0 else s
+    h = RELATIVE_STEP * (scale if scale > 0 else 1.0)
+    if time:
+        h = TIME_STEP * max(s, 1.0)
+    exact = (x + h) - x
+    return exact if 0 < exact < math.inf else h
+
+
+def _linear_one(calc, quantities, statics, options) -> Result:
+    """The linear method for one system without a series axis, on Python floats.
+
+    The same method, steps and checks as :func:`_propagate` and :func:`_linear`, which it must
+    match to rounding (tests hold the two together over every calculation): for one system the
+    Jacobian is a few dozen numbers, and each numpy call on such tiny arrays costs more than all
+    of its arithmetic, so a single request would otherwise spend most of its time in overhead."""
+    names = tuple(quantities)
+    qs = list(quantities.values())
+    x = [float(q.value[0]) for q in qs]
+    sm_all = [float(q.sigma_minus[0]) for q in qs]
+    sp_all = [float(q.sigma_plus[0]) for q in qs]
+    rows = [k for k in range(len(qs)) if sm_all[k] > 0 or sp_all[k] > 0]
+    perturbed = tuple(names[k] for k in rows)
+    m = len(rows)
+    st = _stencil(calc, names, perturbed)
+    r = correlation_matrix(list(perturbed), options.correlations) if options.correlations else None
+    rho = None if r is None or np.count_nonzero(r) == m else r.tolist()
+    sm = [sm_all[k] for k in rows]
+    sp = [sp_all[k] for k in rows]
+    spread = [0.5 * (a + b) for a, b in zip(sm, sp)]
+    p = 1 + WIDTH * m
+    grid = [[v] * p for v in x]                                     # (inputs, points): the stencil
+    h = []
+    for j, k in enumerate(rows):
+        hj = _step(x[k], spread[j], st.time_list[j])
+        h.append(hj)
+        for c, off in enumerate(OFFSETS_LIST):
+            v = x[k] + hj * off
+            grid[k][1 + WIDTH * j + c] = v if st.low_list[j] <= v <= st.high_list[j] and v - v == 0 else math.nan
+    if 0.0 in h:
+        # a step that underflowed (a sigma near the smallest double): numpy's inf and nan
+        # quotients, and the one-sided fallback they lead to, are the vector method's business
+        return _linear(calc, quantities, statics, options, 1, ())
+    cols = np.array(grid)
+    ys = _call(calc, {name: cols[i:i + 1] for i, name in enumerate(names)}, statics, (1, p))
+    given = tuple(ys)
+    outputs: dict[str, dict[str, np.ndarray]] = {}
+    warnings: list[Warning] = []
+    failed: dict[int, dict[str, list[str]]] = {}
+    if given:
+        period, wraps, _ = _output_periods(calc, given, 1)
+        period, wraps = period.tolist(), wraps.tolist()
+        ys_rows = np.array(list(ys.values())).reshape(len(given), p).tolist()
+        f0s, sigmas = [], []
+        for k, (name, y) in enumerate(zip(given, ys_rows)):
+            f0, wrap = y[0], wraps[k]
+            jac = []
+            for j in range(m):
+                below, above = y[1 + WIDTH * j], y[2 + WIDTH * j]
+                d = above - below
+                if wrap:
+                    d = _wrap_one(d, period[k])
+                g = d / (2.0 * h[j])
+                if not g - g == 0:
+                    up, down = above - f0, below - f0
+                    if wrap:
+                        up, down = _wrap_one(up, period[k]), _wrap_one(down, period[k])
+                    g = up / h[j] if up - up == 0 else -down / h[j]
+                jac.append(g if spread[j] > 0 else 0.0)
+            if rho is None:
+                var = 0.0
+                for g, s in zip(jac, spread):
+                    t = g * s
+                    var += t * t
+                sigma = math.sqrt(var)
+            else:
+                var = sum(jac[a] * spread[a] * rho[a][b] * spread[b] * jac[b] for a in range(m) for b in range(m))
+                sigma = math.sqrt(max(var, 0.0))
+            if wrap:
+                f0 = f0 % period[k]
+            f0s.append(f0)
+            sigmas.append(sigma)
+            finite = f0 - f0 == 0
+            if not finite:
+                failed.setdefault(0, {}).setdefault("_inputs", []).append(f"these inputs give no finite value of {name}")
+            # |sigma / f0| > limit, where numpy's quotient is finite (f0 = 0 gives inf or nan there)
+            if not wrap and f0 != 0 and LINEAR_TRUST_LIMIT < abs(sigma / f0) < math.inf:
+                warnings.append(Warning("linear_untrustworthy",
+                                        "{subject}: relative sigma above " f"{LINEAR_TRUST_LIMIT:.0%}; first-order "
+                                        "propagation may be poor; consider the Monte Carlo method", _TRUE, name))
+            if finite and not sigma - sigma == 0:
+                warnings.append(Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated "
+                                        "linearly at these inputs; use the Monte Carlo method", _TRUE, name))
+        both = np.array([f0s, sigmas])
+        for k, name in enumerate(given):
+            outputs[name] = {"value": both[0, k:k + 1], "sigma": both[1, k:k + 1]}
+    for j, k in enumerate(rows):
+        lo, hi = x[k] - sm[j], x[k] + sp[j]
+        name = perturbed[j]
+        if not (lo - lo == 0 and hi - hi == 0 and st.low_list[j] <= lo <= st.high_list[j]
+                and st.low_list[j] <= hi <= st.high_list[j]):
+            warnings.append(Warning("interval_crosses_domain",
+                                    f"the 1-sigma interval of {name} crosses its physical domain "
+                                    f"({calc.input(name).domain.describe()}); consider the Monte Carlo method, which "
+                                    "truncates draws to the domain", _TRUE))
+        if sm[j] != sp[j] and quantities[name].samples is None:
+            warnings.append(Warning("asymmetric_linearised",
+                                    "{subject}: asymmetric errors; linear propagation used the mean of "
+                                    "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal",
+                                    None, name))
+    return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
 
 
 LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x perturbations x outputs)

@@ -190,3 +190,95 @@ def test_engine_is_vectorised_over_systems():
     for name in ("m1", "m2", "semimajor_axis"):
         assert r.outputs[name]["value"][7] == one.outputs[name]["value"][0]
         assert r.outputs[name]["sigma"][7] == pytest.approx(one.outputs[name]["sigma"][0], rel=1e-12)
+
+
+# --- the one-system linear method (Python floats) against the vector method (numpy) ----------
+# A single request goes through engine._linear_one, a batch through engine._linear: the same
+# method written twice for speed, so every calculation's example and its awkward variants
+# (large sigmas, exact inputs, asymmetric errors, correlations, inputs on a domain edge, where
+# the steps turn one-sided) must give the same numbers, warnings and failures by both.
+
+def _variants(calc):
+    from calcservice.api.service import build, load
+    from calcservice.config import Limits
+    limits = Limits()
+    example = calc.example
+    uncertain = [k for k, v in example.items() if isinstance(v, dict) and v.get("sigma")]
+    bodies = [("example", example)]
+    bodies.append(("sigmas x40", {k: {**v, "sigma": v["sigma"] * 40} if k in uncertain else v
+                                  for k, v in example.items()}))
+    if uncertain:
+        first = uncertain[0]
+        bodies.append(("one exact", {**example, first: {**example[first], "sigma": 0.0}}))
+        bodies.append(("asymmetric", {**example, first: {"value": example[first]["value"],
+                                                         "sigma_minus": example[first]["sigma"],
+                                                         "sigma_plus": 3 * example[first]["sigma"]}}))
+    if len(uncertain) >= 2:
+        bodies.append(("correlated", {**example, "correlations": [{"between": uncertain[:2], "rho": 0.45}]}))
+    for k in uncertain:
+        d = calc.input(k).domain
+        # on a domain edge (or the last double inside an open one) a step leaves the domain
+        if np.isfinite(d.low):
+            low = float(np.nextafter(d.low, np.inf)) if d.low_open else d.low
+            bodies.append((f"{k} on its lower edge", {**example, k: {**example[k], "value": low}}))
+        if np.isfinite(d.high):
+            high = float(np.nextafter(d.high, -np.inf)) if d.high_open else d.high
+            bodies.append((f"{k} on its upper edge", {**example, k: {**example[k], "value": high}}))
+    out = []
+    for label, body in bodies:
+        try:
+            parsed = build(calc, load(calc, body, limits), limits)
+        except Problem:
+            continue                       # a variant the calculation refuses (a constraint) is no case
+        out.append((label, parsed))
+    return out
+
+
+def _cases():
+    from calcservice.registry import calculations
+    for name, calc in calculations().items():
+        if any(i.kind == "series" for i in calc.inputs):
+            continue                       # a series axis always takes the vector method
+        for label, parsed in _variants(calc):
+            if parsed.options.method == "linear":
+                yield pytest.param(calc, parsed, id=f"{name}: {label}")
+
+
+def _same(a, b):
+    a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
+    return a.shape == b.shape and np.allclose(a, b, rtol=1e-12, atol=0.0, equal_nan=True)
+
+
+@pytest.mark.parametrize("calc, parsed", list(_cases()))
+def test_one_system_method_matches_the_vector_method(calc, parsed):
+    from calcservice import engine
+    with np.errstate(all="ignore"):
+        one = engine._linear_one(calc, parsed.quantities, parsed.statics, parsed.options)
+        vec = engine._linear(calc, parsed.quantities, parsed.statics, parsed.options, 1, ())
+    assert list(one.outputs) == list(vec.outputs)
+    for name in vec.outputs:
+        for key in ("value", "sigma"):
+            assert _same(one.outputs[name][key], vec.outputs[name][key]), (name, key)
+    assert one.failed == vec.failed
+    summary = [(w.code, w.message, w.subject, None if w.where is None else np.asarray(w.where).tolist())
+               for w in vec.warnings]
+    assert [(w.code, w.message, w.subject, None if w.where is None else np.asarray(w.where).tolist())
+            for w in one.warnings] == summary
+
+
+def test_the_variants_reach_the_awkward_branches():
+    # the comparison above is only worth something if its cases flag, correlate and step one-sidedly
+    from calcservice import engine
+    codes, on_edge, correlated = set(), 0, 0
+    for param in _cases():
+        calc, parsed = param.values
+        with np.errstate(all="ignore"):
+            result = engine._linear(calc, parsed.quantities, parsed.statics, parsed.options, 1, ())
+        codes |= {w.code for w in result.warnings}
+        correlated += bool(parsed.options.correlations)
+        # a stencil point below a closed lower bound is refused, so the step there is one-sided
+        on_edge += any(q.sigma[0] > 0 and (q.value[0] <= np.nextafter(calc.input(name).domain.low, np.inf) or
+                                           q.value[0] >= np.nextafter(calc.input(name).domain.high, -np.inf))
+                       for name, q in parsed.quantities.items())
+    assert {"linear_untrustworthy", "interval_crosses_domain", "asymmetric_linearised"} <= codes
+    assert on_edge >= 5 and correlated >= 5
