@@ -14,15 +14,18 @@ bp = Blueprint("calculations", __name__)
 
 def _endpoint(name: str):
     def view():
-        body = json_body()
-        fmt = request.args.get("format", "json")
-        plot = request.args.get("plot")      # chooses the histogram of a figure; other formats ignore it
+        settings = current_app.config["CALCSERVICE_SETTINGS"]
+        body = json_body(settings.limits)
+        if request.environ.get("QUERY_STRING"):
+            fmt = request.args.get("format", "json")
+            plot = request.args.get("plot")  # chooses the histogram of a figure; other formats ignore it
+        else:
+            fmt, plot = "json", None
         if plot is not None:
             outputs = [o.name for o in calculations()[name].outputs]
             if plot not in outputs:
                 raise Problem(400, f"plot must name an output of {name}",
                               {"plot": [f"{name} has no output {plot[:40]!r}; outputs are {', '.join(outputs)}"]})
-        settings = current_app.config["CALCSERVICE_SETTINGS"]
         if fmt == "json":
             return json_response(compute(name, body, settings.limits))
         try:

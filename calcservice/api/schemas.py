@@ -27,6 +27,8 @@ FORM_HINT = ('must be a number, or an object such as {"value": 1.2, "sigma": 0.1
 
 def number(x: Any, what: str = "value") -> float:
     """A finite float from a JSON number; booleans, strings and overflowing numbers are refused."""
+    if type(x) is float and x - x == 0:          # the common case: a finite float
+        return x
     if isinstance(x, bool) or not isinstance(x, (int, float)):
         raise ValidationError(f"{what} must be a number")
     try:
@@ -157,8 +159,8 @@ class MeasuredField(fields.Field):
             return RawQuantity(np.array([number(value)]), one, one)
         if not isinstance(value, dict):
             raise ValidationError(FORM_HINT)
-        unknown = set(value) - MEASURED_KEYS
-        if unknown:
+        if not MEASURED_KEYS.issuperset(value):
+            unknown = set(value) - MEASURED_KEYS
             raise ValidationError(f"unknown key(s) {', '.join(sorted(map(str, unknown)))}; " + FORM_HINT)
         unit = value.get("unit")
         if unit is not None and not isinstance(unit, str):

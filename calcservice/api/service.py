@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 from typing import Any, Mapping
 
 import numpy as np
@@ -86,6 +87,11 @@ def _echo_table(calc: Calculation, parsed: "Parsed") -> list[dict]:
 def _echo_rows(spec, m: Measured, count: int | None = None) -> list[dict]:
     """The echo of a quantity for each of its N systems (the first ``count`` only, if given)."""
     k = len(m.value) if count is None else min(count, len(m.value))
+    if k == 1 and not m.isotropic and m.samples is None:
+        v, lo, hi = float(m.value[0]), float(m.sigma_minus[0]), float(m.sigma_plus[0])
+        if lo != hi:
+            return [{"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit}]
+        return [{"value": v, "sigma": lo, "unit": spec.unit}]
     if m.isotropic:
         return [{"value": "isotropic", "unit": spec.unit} for _ in range(k)]
     values = m.value[:k].tolist()
@@ -230,7 +236,9 @@ def _options(calc, data, quantities, limits: Limits, errors) -> Options:
 
 
 def _output_units(calc, units: Mapping[str, str], errors) -> dict[str, str]:
-    out = {}
+    out: dict[str, str] = {}
+    if not units:
+        return out
     known = {o.name: o for o in calc.outputs}
     for name, unit in units.items():
         if name not in known:
@@ -279,11 +287,19 @@ def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) ->
         canonical = calc.output(name).unit
         out_units.append(units.get(name, canonical))
         factors.append(factor(canonical, out_units[-1]) if out_units[-1] != canonical else 1.0)
-    if all(np.shape(result.outputs[name]["value"]) == (1,) for name in names):
-        # one system, no series: plain floats are cheaper than any array operation
-        return [(name, False, [{**{key: _clean(float(arr[0]) * k) for key, arr in result.outputs[name].items()},
-                                "unit": unit}])
-                for name, unit, k in zip(names, out_units, factors)]
+    members = [result.outputs[name] for name in names]
+    if all(o["value"].shape == (1,) for o in members):
+        # one system, no series: every number at once as plain floats, cheaper than any array operation
+        numbers = iter(np.concatenate([arr for o in members for arr in o.values()]).tolist())
+        table = []
+        for name, unit, k, o in zip(names, out_units, factors, members):
+            entry = {}
+            for key in o:
+                x = next(numbers) * k
+                entry[key] = x if x - x == 0 else None          # non-finite: null
+            entry["unit"] = unit
+            table.append((name, False, [entry]))
+        return table
     # one conversion and one clean per member over all outputs of one shape: a dozen outputs
     # cost a few array operations, not a few dozen
     alike: dict[tuple, list[int]] = {}
@@ -321,14 +337,23 @@ def render_outputs(calc: Calculation, result: Result, index: int, units: Mapping
 
 
 def provenance(calc: Calculation) -> dict:
+    """Version, formulas, constants, references and conventions of a calculation: built from the
+    declaration once, copied per response (a caller may change its copy)."""
+    formulas, constants, references, conventions = _provenance_parts(calc)
     return {
         "version": __version__,
         "calculation": calc.name,
-        "formulas": {o.name: o.formula for o in calc.outputs if o.formula},
-        "constants": constants_used(calc.constants),
-        "references": list(calc.references),
-        "conventions": dict(calc.conventions),
+        "formulas": dict(formulas),
+        "constants": {k: dict(v) for k, v in constants.items()},
+        "references": list(references),
+        "conventions": dict(conventions),
     }
+
+
+@lru_cache(maxsize=None)
+def _provenance_parts(calc: Calculation) -> tuple:
+    return ({o.name: o.formula for o in calc.outputs if o.formula}, constants_used(calc.constants),
+            tuple(calc.references), dict(calc.conventions))
 
 
 def warnings_for(result: Result, index: int, masks: list | None = None) -> list[dict]:
