@@ -266,7 +266,8 @@ _TRUE.flags.writeable = False
 class _Stencil:
     """Where the perturbed inputs of one calculation sit, built once per set of inputs: their rows
     among the inputs, which are times, their closed domains, and the stencil columns they fill
-    (column 1 + WIDTH j + k holds perturbed input j stepped by OFFSETS[k])."""
+    (column 1 + k m + j holds perturbed input j stepped by OFFSETS[k]: each offset's columns side
+    by side, so that f(x + h) - f(x - h) is one subtraction of contiguous blocks)."""
 
     rows: np.ndarray            # (m,) index of each perturbed input among the inputs
     time: np.ndarray            # (m, 1) which are dates
@@ -285,7 +286,7 @@ def _stencil(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ..
     rows = np.array([names.index(name) for name in perturbed], dtype=np.intp)
     time = np.array([calc.input(name).time for name in perturbed], dtype=bool)[:, None]
     low, high = _bounds(calc, perturbed)
-    s = _Stencil(rows, time, bool(time.any()), low[:, None], high[:, None], np.repeat(rows, WIDTH),
+    s = _Stencil(rows, time, bool(time.any()), low[:, None], high[:, None], np.tile(rows, WIDTH),
                  1 + np.arange(WIDTH * len(perturbed)), time[:, 0].tolist(), low.tolist(), high.tolist())
     for a in (s.rows, s.time, s.low, s.high, s.fill_rows, s.fill_cols):
         a.flags.writeable = False
@@ -331,8 +332,8 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
     if m:
         xj = x[st.rows]                                                              # (m, n)
         h = _steps(xj, spread, st)
-        block = xj[:, None, :] + h[:, None, :] * OFFSETS[:, None]                    # (m, WIDTH, n)
-        inside = np.isfinite(block) & (block >= st.low[:, :, None]) & (block <= st.high[:, :, None])
+        block = xj[None, :, :] + h[None, :, :] * OFFSETS[:, None, None]              # (WIDTH, m, n)
+        inside = np.isfinite(block) & (block >= st.low) & (block <= st.high)
         if not inside.all():
             block[~inside] = np.nan
         cols[st.fill_rows, :, st.fill_cols] = block.reshape(WIDTH * m, n)
@@ -342,15 +343,15 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
     given = tuple(ys)
     if not given:
         return given, None, None
-    y = np.array(list(ys.values()))                                                 # (outputs, n, p) + trail
-    f0 = y[:, :, 0]
+    nout = len(given)
+    f0 = np.empty((nout, n) + trail)
+    diff = np.empty((nout, n, m) + trail)
+    for k, y in enumerate(ys.values()):
+        f0[k] = y[:, 0]
+        np.subtract(y[:, 1 + m:], y[:, 1:1 + m], out=diff[k])                        # f(x + h) - f(x - h)
     if not m:
         return given, f0, np.zeros_like(f0)
-    nout = len(given)
-    period, wraps, any_wrap = _output_periods(calc, given, y.ndim)
-    pairs = y[:, :, 1:].reshape((nout, n, m, WIDTH) + trail)
-    below, above = pairs[:, :, :, 0], pairs[:, :, :, 1]                             # f(x - h), f(x + h)
-    diff = above - below
+    period, wraps, any_wrap = _output_periods(calc, given, diff.ndim)
     if any_wrap:
         diff = np.where(wraps, _wrap(diff, period), diff)
     h = h.T.reshape((1, n, m) + ones)
@@ -359,7 +360,8 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
         ref = f0[:, :, None]
-        up, down = above - ref, below - ref
+        up = np.array([y[:, 1 + m:] for y in ys.values()]) - ref                   # f(x + h) - f(x)
+        down = np.array([y[:, 1:1 + m] for y in ys.values()]) - ref                 # f(x - h) - f(x)
         if any_wrap:
             up, down = np.where(wraps, _wrap(up, period), up), np.where(wraps, _wrap(down, period), down)
         jac = np.where(np.isfinite(jac), jac, np.where(np.isfinite(up), up / h, -down / h))
@@ -369,8 +371,14 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
         # an exact input in a row does not count, even if its derivative is undefined there
         jac = np.where(exact, 0.0, jac)
     if r is None or np.count_nonzero(r) == m:
-        # uncorrelated inputs: the quadratic form is a sum of squares
-        return given, f0, np.sqrt(np.square(jac * sig).sum(axis=2))
+        # uncorrelated inputs: the quadratic form is a sum of squares, added input by input (in
+        # the order of _linear_one's loop; a reduction along the short last axis is far slower)
+        terms = jac * sig
+        terms *= terms
+        var = terms[:, :, 0].copy()
+        for j in range(1, m):
+            var += terms[:, :, j]
+        return given, f0, np.sqrt(var)
     cov = spread.T[:, :, None] * r[None, :, :] * spread.T[:, None, :]               # (n, m, m)
     var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
     return given, f0, np.sqrt(np.maximum(var, 0.0))
@@ -416,7 +424,7 @@ def _linear_one(calc, quantities, statics, options) -> Result:
         h.append(hj)
         for c, off in enumerate(OFFSETS_LIST):
             v = x[k] + hj * off
-            grid[k][1 + WIDTH * j + c] = v if st.low_list[j] <= v <= st.high_list[j] and v - v == 0 else math.nan
+            grid[k][1 + c * m + j] = v if st.low_list[j] <= v <= st.high_list[j] and v - v == 0 else math.nan
     if 0.0 in h:
         # a step that underflowed (a sigma near the smallest double): numpy's inf and nan
         # quotients, and the one-sided fallback they lead to, are the vector method's business
@@ -436,7 +444,7 @@ def _linear_one(calc, quantities, statics, options) -> Result:
             f0, wrap = y[0], wraps[k]
             jac = []
             for j in range(m):
-                below, above = y[1 + WIDTH * j], y[2 + WIDTH * j]
+                below, above = y[1 + j], y[1 + m + j]
                 d = above - below
                 if wrap:
                     d = _wrap_one(d, period[k])

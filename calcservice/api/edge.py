@@ -156,8 +156,10 @@ _UNPARSED = object()
 def _fast_loads(data: bytes):
     """The body parsed by orjson when it means the same as under :func:`json.loads` (else ``_UNPARSED``:
     errors, long integers and odd escapes are left to the standard library and its messages)."""
-    if orjson is None or b"\\u" in data and re.search(rb"\\u[dD][89a-fA-F]", data) or \
-            _LONG_INTEGER in b" " + data.translate(_DIGIT_RUNS):
+    if orjson is None or b"\\u" in data and re.search(rb"\\u[dD][89a-fA-F]", data):
+        return _UNPARSED
+    digits = data.translate(_DIGIT_RUNS)
+    if _LONG_INTEGER in digits or digits.startswith(_LONG_INTEGER[1:]):
         return _UNPARSED
     try:
         return orjson.loads(data)

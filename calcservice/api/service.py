@@ -433,6 +433,19 @@ class Rendering:
         self.series = {calc.input(name).label or name: {"value": _clean(values), "unit": calc.input(name).unit}
                        for name, values in parsed.series.items()}
         self.provenance = provenance(calc)
+        self._warnings: dict[tuple, list[dict]] = {}
+
+    def warnings(self, index: int) -> list[dict]:
+        """:func:`warnings_for` system ``index``, built once per distinct set of warnings that apply
+        (a catalogue's systems share a handful); systems with the same set share the entries, as
+        they share the provenance."""
+        if not self.result.warnings:
+            return []
+        key = tuple(m is None or m[index % len(m)] for m in self.masks)
+        entries = self._warnings.get(key)
+        if entries is None:
+            entries = self._warnings[key] = warnings_for(self.result, index, self.masks)
+        return list(entries)
 
     def row(self, index: int, echo: dict | None = None) -> dict:
         results = render_outputs(self.calc, self.result, index, self.parsed.output_units, self.table)
@@ -445,7 +458,7 @@ class Rendering:
             "results": results,
             "uncertainty": uncertainty_for(self.result, index),
             "inputs": echo if echo is not None else self.parsed.echo_at(index),
-            "warnings": warnings_for(self.result, index, self.masks),
+            "warnings": self.warnings(index),
             "provenance": self.provenance,
         }
 
