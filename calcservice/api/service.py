@@ -428,27 +428,43 @@ class Rendering:
     def __init__(self, calc: Calculation, parsed: Parsed, result: Result):
         self.calc, self.parsed, self.result = calc, parsed, result
         self.table = output_table(calc, result, parsed.output_units)
+        self._plain = None if any(is_series for _, is_series, _ in self.table) else \
+            [(name, entries) for name, _, entries in self.table]
         self.masks = warning_masks(result)
         self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
         self.series = {calc.input(name).label or name: {"value": _clean(values), "unit": calc.input(name).unit}
                        for name, values in parsed.series.items()}
         self.provenance = provenance(calc)
-        self._warnings: dict[tuple, list[dict]] = {}
+        self._kinds: list | None = None               # per system: which set of warnings applies
+        self._warnings: dict[int, list[dict]] = {}
 
     def warnings(self, index: int) -> list[dict]:
         """:func:`warnings_for` system ``index``, built once per distinct set of warnings that apply
         (a catalogue's systems share a handful); systems with the same set share the entries, as
         they share the provenance."""
-        if not self.result.warnings:
+        masks = self.masks
+        if not masks:
             return []
-        key = tuple(m is None or m[index % len(m)] for m in self.masks)
-        entries = self._warnings.get(key)
+        systems = max((len(m) for m in masks if m is not None), default=1)
+        if systems == 1:
+            return warnings_for(self.result, index, masks)
+        if self._kinds is None:
+            applies = np.ones((len(masks), systems), dtype=bool)
+            for k, m in enumerate(masks):
+                if m is not None:
+                    applies[k] = m
+            self._kinds = np.unique(applies.T, axis=0, return_inverse=True)[1].reshape(-1).tolist()
+        kind = self._kinds[index]
+        entries = self._warnings.get(kind)
         if entries is None:
-            entries = self._warnings[key] = warnings_for(self.result, index, self.masks)
+            entries = self._warnings[kind] = warnings_for(self.result, index, masks)
         return list(entries)
 
     def row(self, index: int, echo: dict | None = None) -> dict:
-        results = render_outputs(self.calc, self.result, index, self.parsed.output_units, self.table)
+        if self._plain is not None:           # no series: each output's entry for this system
+            results = {name: entries[index] for name, entries in self._plain}
+        else:
+            results = render_outputs(self.calc, self.result, index, self.parsed.output_units, self.table)
         if "series" in results:
             results["series"] = {**self.series, **results["series"]}
         if self.extras:
