@@ -30,6 +30,7 @@ from a seeded generator.
 from __future__ import annotations
 
 import argparse
+import gc
 import http.client
 import json
 import math
@@ -281,6 +282,8 @@ def main(argv=None) -> int:
     sub = {k: v[:n_rows] for k, v in cat.items()}
     rows_payload = dumps({"systems": row_bodies(sub)})
     singles = [dumps(b) for b in row_bodies({k: v[:n_single] for k, v in cat.items()})]
+
+    gc.freeze()         # as `calcservice serve` does once the app is loaded (calcservice/server.py)
 
     def post(path, data):
         r = client.post(path, data=data, content_type="application/json")

@@ -445,10 +445,10 @@ class Rendering:
         masks = self.masks
         if not masks:
             return []
-        systems = max((len(m) for m in masks if m is not None), default=1)
-        if systems == 1:
-            return warnings_for(self.result, index, masks)
         if self._kinds is None:
+            systems = max((len(m) for m in masks if m is not None), default=1)
+            if systems == 1:
+                return warnings_for(self.result, index, masks)
             applies = np.ones((len(masks), systems), dtype=bool)
             for k, m in enumerate(masks):
                 if m is not None:
