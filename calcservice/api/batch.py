@@ -614,6 +614,8 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
     ok = [g for g in done.groups if g.problem is None]
     units = ok[0].parsed.output_units if ok else {}
     present = [o for o in calc.outputs if any(o.name in g.result.outputs for g in ok)]
+    # one engine call for the whole catalogue, in order (the usual case): its arrays need no scatter
+    whole = ok[0] if len(ok) == 1 and len(ok[0].rows) == n and (ok[0].rows == np.arange(n)).all() else None
     columns: dict[str, dict] = {}
     for o in present:
         unit = units.get(o.name, o.unit)
@@ -622,10 +624,13 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
         trail = next(g.result.outputs[o.name]["value"].shape[1:] for g in ok if o.name in g.result.outputs)
         entry: dict[str, Any] = {}
         for key in keys:
-            full = np.full((n,) + trail, np.nan)
-            for g in ok:
-                if o.name in g.result.outputs:
-                    full[g.rows] = g.result.outputs[o.name][key]
+            if whole is not None and o.name in whole.result.outputs:
+                full = np.array(whole.result.outputs[o.name][key], dtype=float)      # every system, in order
+            else:
+                full = np.full((n,) + trail, np.nan)
+                for g in ok:
+                    if o.name in g.result.outputs:
+                        full[g.rows] = g.result.outputs[o.name][key]
             entry[key] = full * k if k != 1.0 else full
         columns[o.name] = {"value": entry.pop("value"), **entry, "unit": unit}
 
@@ -643,8 +648,7 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
                     entry[key] = values
 
     extras: dict[str, list] = {}
-    warnings: dict[tuple[str, str], set[int]] = {}
-    method: list = [None] * n
+    warned: dict[tuple[str, str], np.ndarray] = {}
     seeds, samples = set(), set()
     rejected = np.full(n, np.nan)
     for g in ok:
@@ -658,19 +662,29 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
         for w in g.result.warnings:
             mask = np.ones(len(rows), dtype=bool) if w.where is None else \
                 np.resize(np.asarray(w.where, dtype=bool).reshape(-1), len(rows))
-            hit = [i for i in rows[mask].tolist() if i not in done.problems]
-            if hit:
-                warnings.setdefault((w.code, w.message), set()).update(hit)
-        for i in rows.tolist():
-            if i not in done.problems:
-                method[i] = g.result.method
+            hit = rows[mask]
+            hit = hit[~failed[hit]]
+            if len(hit):
+                key = (w.code, w.message)
+                warned.setdefault(key, np.zeros(n, dtype=bool))[hit] = True
         if g.result.method == "monte_carlo":
             seeds.add(g.result.seed)
             samples.add(g.result.samples)
             rejected[rows] = g.result.rejected_fraction
     rejected[failed] = np.nan
-    methods = {m for m in method if m is not None}
-    uncertainty: dict[str, Any] = {"method": methods.pop() if len(methods) == 1 else method}
+    answered = np.zeros(n, dtype=bool)
+    for g in ok:
+        answered[g.rows] = True
+    answered &= ~failed
+    methods = {g.result.method for g in ok if answered[g.rows].any()}
+    if len(methods) == 1:
+        uncertainty: dict[str, Any] = {"method": methods.pop()}
+    else:                                       # a method per system (None where none answered)
+        method = np.full(n, None, dtype=object)
+        for g in ok:
+            method[g.rows] = g.result.method
+        method[~answered] = None
+        uncertainty = {"method": method.tolist()}
     if seeds:
         uncertainty["samples"] = samples.pop() if len(samples) == 1 else sorted(samples)
         uncertainty["seed"] = seeds.pop() if len(seeds) == 1 else sorted(seeds)
@@ -681,8 +695,8 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
         "columns": {**columns, **extras},
         "errors": [{"index": i, **done.problems[i].as_dict()} for i in sorted(done.problems)],
         "uncertainty": uncertainty,
-        "warnings": [{"code": code, "message": message, "rows": sorted(rows)}
-                     for (code, message), rows in warnings.items()],
+        "warnings": [{"code": code, "message": message, "rows": np.flatnonzero(rows).tolist()}
+                     for (code, message), rows in warned.items()],
         "provenance": provenance(calc),
     }
     return response
