@@ -395,6 +395,20 @@ def _step(x: float, s: float, time: bool) -> float:
     return exact if 0 < exact < math.inf else h
 
 
+def _one_sided(jac: list, above: list, below: list, f0: float, h: list, period) -> list:
+    """One system's Jacobian row with one-sided differences where a central one is not finite
+    (a step left the domain), as :func:`_propagate` takes them."""
+    out = []
+    for g, a, b, hj in zip(jac, above, below, h):
+        if not g - g == 0:
+            up, down = a - f0, b - f0
+            if period is not None:
+                up, down = _wrap_one(up, period), _wrap_one(down, period)
+            g = up / hj if up - up == 0 else -down / hj
+        out.append(g)
+    return out
+
+
 def _linear_one(calc, quantities, statics, options) -> Result:
     """The linear method for one system without a series axis, on Python floats.
 
@@ -440,21 +454,20 @@ def _linear_one(calc, quantities, statics, options) -> Result:
         period, wraps = period.tolist(), wraps.tolist()
         ys_rows = np.array(list(ys.values())).reshape(len(given), p).tolist()
         f0s, sigmas = [], []
+        steps2 = [2.0 * hj for hj in h]                          # 2 h, exactly
+        exact = [j for j, sj in enumerate(spread) if not sj > 0]  # a sigma that underflowed to 0
         for k, (name, y) in enumerate(zip(given, ys_rows)):
             f0, wrap = y[0], wraps[k]
-            jac = []
-            for j in range(m):
-                below, above = y[1 + j], y[1 + m + j]
-                d = above - below
-                if wrap:
-                    d = _wrap_one(d, period[k])
-                g = d / (2.0 * h[j])
-                if not g - g == 0:
-                    up, down = above - f0, below - f0
-                    if wrap:
-                        up, down = _wrap_one(up, period[k]), _wrap_one(down, period[k])
-                    g = up / h[j] if up - up == 0 else -down / h[j]
-                jac.append(g if spread[j] > 0 else 0.0)
+            below, above = y[1:1 + m], y[1 + m:]                  # f(x - h), f(x + h) of each input
+            if wrap:
+                jac = [_wrap_one(a - b, period[k]) / t for a, b, t in zip(above, below, steps2)]
+            else:
+                jac = [(a - b) / t for a, b, t in zip(above, below, steps2)]
+            total = sum(jac)
+            if not total - total == 0:                            # some quotient is not finite
+                jac = _one_sided(jac, above, below, f0, h, period[k] if wrap else None)
+            for j in exact:
+                jac[j] = 0.0
             if rho is None:
                 var = 0.0
                 for g, s in zip(jac, spread):

@@ -221,9 +221,18 @@ def _variants(calc):
         if np.isfinite(d.low):
             low = float(np.nextafter(d.low, np.inf)) if d.low_open else d.low
             bodies.append((f"{k} on its lower edge", {**example, k: {**example[k], "value": low}}))
+            if k in uncertain[:2] and len(uncertain) >= 2:
+                bodies.append((f"correlated, {k} on its lower edge",
+                               {**example, k: {**example[k], "value": low},
+                                "correlations": [{"between": uncertain[:2], "rho": 0.45}]}))
         if np.isfinite(d.high):
             high = float(np.nextafter(d.high, -np.inf)) if d.high_open else d.high
             bodies.append((f"{k} on its upper edge", {**example, k: {**example[k], "value": high}}))
+            if k in uncertain[:2] and len(uncertain) >= 2:
+                # the sign of a one-sided derivative matters only where inputs are correlated
+                bodies.append((f"correlated, {k} on its upper edge",
+                               {**example, k: {**example[k], "value": high},
+                                "correlations": [{"between": uncertain[:2], "rho": -0.45}]}))
     out = []
     for label, body in bodies:
         try:
