@@ -133,7 +133,16 @@ class RawQuantity:
     calendar: bool = False            # a time given as a calendar (ISO) string, already a JD
 
 
-class MeasuredField(fields.Field):
+class _CheckedField(fields.Field):
+    """A field whose checks all live in its ``_deserialize``: with no validators given, marshmallow's
+    composition of the empty list (an ``And`` built for every value of every request) is skipped."""
+
+    def _validate(self, value) -> None:
+        if self.validators:
+            super()._validate(value)
+
+
+class MeasuredField(_CheckedField):
     """One measured quantity in any form of the wire contract."""
 
     def __init__(self, spec: Input, limits: Limits, **kw):
@@ -221,7 +230,7 @@ class MeasuredField(fields.Field):
             raise ValidationError(str(e)) from None
 
 
-class SeriesField(fields.Field):
+class SeriesField(_CheckedField):
     """A list of exact numbers (or, for times, ISO 8601 strings)."""
 
     def __init__(self, spec: Input, limits: Limits, **kw):
@@ -270,7 +279,7 @@ class SeriesField(fields.Field):
         return raw
 
 
-class ChoiceField(fields.Field):
+class ChoiceField(_CheckedField):
     def __init__(self, spec: Input, **kw):
         super().__init__(**kw)
         self.spec = spec
@@ -281,7 +290,7 @@ class ChoiceField(fields.Field):
         return value
 
 
-class IntegerField(fields.Field):
+class IntegerField(_CheckedField):
     def __init__(self, spec: Input, **kw):
         super().__init__(**kw)
         self.spec = spec
