@@ -39,6 +39,7 @@ ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
 RELATIVE_STEP = 1e-5                 # central step ~ eps^(1/3) of the input's scale
 TIME_STEP = 1e-4                     # days per day of a time input's sigma (at least 1 d)
 LINEAR_TRUST_LIMIT = 0.2             # relative sigma above which linear propagation is suspect
+_FLOAT = np.dtype(float)
 
 
 class EngineError(ValueError):
@@ -181,7 +182,9 @@ def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, An
         y = raw.get(o.name)
         if y is None:
             continue
-        out[o.name] = _broadcast(np.asarray(y, dtype=float), shape)
+        if type(y) is not np.ndarray or y.dtype != _FLOAT or y.shape != shape:     # else as it is
+            y = np.broadcast_to(np.asarray(y, dtype=float), shape)
+        out[o.name] = y
     return out
 
 
