@@ -152,6 +152,8 @@ class MeasuredField(_CheckedField):
 
     def _deserialize(self, value, attr, data, **kwargs) -> RawQuantity:
         spec = self.spec
+        if type(value) is dict:                 # the usual form first
+            return self._from_object(value)
         one = np.zeros(1)
         if isinstance(value, (int, float)) and not isinstance(value, bool) and not spec.time:
             x = number(value)
@@ -168,6 +170,11 @@ class MeasuredField(_CheckedField):
             return RawQuantity(np.array([number(value)]), one, one)
         if not isinstance(value, dict):
             raise ValidationError(FORM_HINT)
+        return self._from_object(value)
+
+    def _from_object(self, value: dict) -> RawQuantity:
+        """The object forms: value with sigma or sigma_minus and sigma_plus, or samples; a unit."""
+        spec = self.spec
         if not MEASURED_KEYS.issuperset(value):
             unknown = set(value) - MEASURED_KEYS
             raise ValidationError(f"unknown key(s) {', '.join(sorted(map(str, unknown)))}; " + FORM_HINT)
