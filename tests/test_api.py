@@ -169,3 +169,18 @@ def test_bad_query_parameters(client, query):
     r = client.post(f"/v1/spectroscopic/sb2?{query}", json=SB2)
     assert r.status_code == 400 and r.content_type == "application/problem+json"
     assert set(r.get_json()["errors"]) <= {"plot", "format"}
+
+
+@pytest.mark.parametrize("text", [
+    '"\\ud83d\\ude00"',                 # a surrogate pair: one character
+    '"\\ud800"', '"\\udc00x"', '"\\ud800\\u0041"',     # lone surrogates: the standard library keeps them
+    '12345678901234567890123',          # an integer beyond 64 bits: exact, not a float
+    '-9223372036854775809', '[1234567890123456789, 0.12345678901234567890123]',
+])
+def test_bodies_mean_what_the_standard_library_reads(text):
+    # reference: Python's json module, the meaning the service promises (orjson only where it agrees)
+    import json
+    from calcservice.api.edge import _UNPARSED, _fast_loads, _loads_checked
+    fast = _fast_loads(text.encode())
+    got = _loads_checked(text) if fast is _UNPARSED else fast
+    assert got == json.loads(text) and type(got) is type(json.loads(text))

@@ -20,8 +20,9 @@ try:    # optional: an order of magnitude faster at formatting floats, and numpy
 except ImportError:  # pragma: no cover - the standard library does the same job, slower
     orjson = None
 
-# orjson reads an integer literal of 19 digits or more as a float, and refuses lone surrogates:
-# such bodies (rare) go through the standard library so that every body means exactly the same.
+# orjson reads an integer literal beyond 64 bits as a float (19 digits or more are looked for),
+# and refuses a lone surrogate escape (its error sends the body on): such bodies (rare) go through
+# the standard library so that every body means exactly the same.
 # A byte translation finds them faster than a regular expression (bodies can be megabytes).
 _DIGIT_RUNS = bytes.maketrans(b"0123456789.eE", b"dddddddddd.ee")
 _DIGIT_RUNS = bytes(c if c in b"d.e" else 32 for c in _DIGIT_RUNS)
@@ -156,7 +157,7 @@ _UNPARSED = object()
 def _fast_loads(data: bytes):
     """The body parsed by orjson when it means the same as under :func:`json.loads` (else ``_UNPARSED``:
     errors, long integers and odd escapes are left to the standard library and its messages)."""
-    if orjson is None or b"\\u" in data and re.search(rb"\\u[dD][89a-fA-F]", data):
+    if orjson is None:
         return _UNPARSED
     digits = data.translate(_DIGIT_RUNS)
     if _LONG_INTEGER in digits or digits.startswith(_LONG_INTEGER[1:]):
