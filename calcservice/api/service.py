@@ -278,15 +278,21 @@ def clean_array(a: np.ndarray) -> list:
     return obj.tolist()
 
 
+@lru_cache(maxsize=4096)
+def _output_factors(calc: Calculation, names: tuple[str, ...], units: tuple) -> tuple[tuple, tuple]:
+    """The unit of each output as asked for (else its canonical one) and the factor to it."""
+    asked = dict(units)
+    out_units = tuple(asked.get(name, calc.output(name).unit) for name in names)
+    factors = tuple(factor(calc.output(name).unit, unit) if unit != calc.output(name).unit else 1.0
+                    for name, unit in zip(names, out_units))
+    return out_units, factors
+
+
 def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) -> list[tuple]:
     """Each output as (name, is_series, [{"value": ..., "sigma": ..., "unit": ...} per system]) in
     the requested unit, converted and cleaned once for all systems of an engine call."""
     names = list(result.outputs)
-    out_units, factors = [], []
-    for name in names:
-        canonical = calc.output(name).unit
-        out_units.append(units.get(name, canonical))
-        factors.append(factor(canonical, out_units[-1]) if out_units[-1] != canonical else 1.0)
+    out_units, factors = _output_factors(calc, tuple(names), tuple(sorted(units.items())))
     members = [result.outputs[name] for name in names]
     if all(o["value"].shape == (1,) for o in members):
         # one system, no series: every number at once as plain floats, cheaper than any array operation
