@@ -15,10 +15,9 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
 Either way the physics function is called once, on arrays of shape (N, P): P = 1 + 2 m
 perturbed copies for m uncertain inputs (linear), or P = 1 + S draws (Monte Carlo,
 column 0 being the nominal point).  Nothing loops over systems in Python.  For a single
-system the linear method's bookkeeping around that one call (steps, differences, the
-quadratic form, the checks) runs on Python floats (:func:`_linear_one`), where numpy's
-per-call cost would outweigh the arithmetic many times; tests hold it to the vector
-method (:func:`_linear`) over every calculation.
+system the linear method's steps, stencil and checks run on Python floats
+(:func:`_linear_one`), where numpy's per-call cost would outweigh the arithmetic many times;
+tests hold it to the vector method (:func:`_linear`) over every calculation.
 """
 
 from __future__ import annotations
@@ -148,11 +147,6 @@ def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], 
         except np.linalg.LinAlgError:
             raise EngineError({"correlations": ["the correlation matrix is not positive definite"]}) from None
     return r
-
-
-def _wrap_one(d: float, period: float) -> float:
-    """:func:`_wrap` of one float (Python's % and numpy's agree: the sign of the divisor)."""
-    return (d + 0.5 * period) % period - 0.5 * period
 
 
 def _wrap(d: np.ndarray, period) -> np.ndarray:
@@ -354,6 +348,20 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
         np.subtract(y[:, 1 + m:], y[:, 1:1 + m], out=diff[k])                        # f(x + h) - f(x - h)
     if not m:
         return given, f0, np.zeros_like(f0)
+
+    def sides():
+        return (np.array([y[:, 1:1 + m] for y in ys.values()]), np.array([y[:, 1 + m:] for y in ys.values()]))
+
+    return given, f0, _sigmas(calc, given, f0, diff, sides, h, spread, r)
+
+
+def _sigmas(calc, given, f0, diff, sides, h, spread, r) -> np.ndarray:
+    """Linear sigmas (outputs, n) + trail from the stencil's differences ``diff`` = f(x + h) -
+    f(x - h), (outputs, n, m) + trail, with the steps ``h`` and symmetric sigmas ``spread`` (m, n)
+    of the m perturbed inputs and their correlation ``r`` (None: uncorrelated).  ``sides()`` gives
+    f(x - h) and f(x + h) apart, for one-sided differences where a central one is not finite."""
+    nout, n, m = diff.shape[:3]
+    ones = (1,) * (diff.ndim - 3)
     period, wraps, any_wrap = _output_periods(calc, given, diff.ndim)
     if any_wrap:
         diff = np.where(wraps, _wrap(diff, period), diff)
@@ -362,9 +370,9 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
     if not np.isfinite(jac).all():
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
+        below, above = sides()
         ref = f0[:, :, None]
-        up = np.array([y[:, 1 + m:] for y in ys.values()]) - ref                   # f(x + h) - f(x)
-        down = np.array([y[:, 1:1 + m] for y in ys.values()]) - ref                 # f(x - h) - f(x)
+        up, down = above - ref, below - ref                                          # f(x +- h) - f(x)
         if any_wrap:
             up, down = np.where(wraps, _wrap(up, period), up), np.where(wraps, _wrap(down, period), down)
         jac = np.where(np.isfinite(jac), jac, np.where(np.isfinite(up), up / h, -down / h))
@@ -374,17 +382,17 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
         # an exact input in a row does not count, even if its derivative is undefined there
         jac = np.where(exact, 0.0, jac)
     if r is None or np.count_nonzero(r) == m:
-        # uncorrelated inputs: the quadratic form is a sum of squares, added input by input (in
-        # the order of _linear_one's loop; a reduction along the short last axis is far slower)
+        # uncorrelated inputs: the quadratic form is a sum of squares, added input by input
+        # (a reduction along the short last axis is far slower)
         terms = jac * sig
         terms *= terms
         var = terms[:, :, 0].copy()
         for j in range(1, m):
             var += terms[:, :, j]
-        return given, f0, np.sqrt(var)
+        return np.sqrt(var)
     cov = spread.T[:, :, None] * r[None, :, :] * spread.T[:, None, :]               # (n, m, m)
     var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
-    return given, f0, np.sqrt(np.maximum(var, 0.0))
+    return np.sqrt(np.maximum(var, 0.0))
 
 
 def _step(x: float, s: float, time: bool) -> float:
@@ -398,27 +406,13 @@ def _step(x: float, s: float, time: bool) -> float:
     return exact if 0 < exact < math.inf else h
 
 
-def _one_sided(jac: list, above: list, below: list, f0: float, h: list, period) -> list:
-    """One system's Jacobian row with one-sided differences where a central one is not finite
-    (a step left the domain), as :func:`_propagate` takes them."""
-    out = []
-    for g, a, b, hj in zip(jac, above, below, h):
-        if not g - g == 0:
-            up, down = a - f0, b - f0
-            if period is not None:
-                up, down = _wrap_one(up, period), _wrap_one(down, period)
-            g = up / hj if up - up == 0 else -down / hj
-        out.append(g)
-    return out
-
-
 def _linear_one(calc, quantities, statics, options) -> Result:
-    """The linear method for one system without a series axis, on Python floats.
+    """The linear method for one system without a series axis.
 
-    The same method, steps and checks as :func:`_propagate` and :func:`_linear`, which it must
-    match to rounding (tests hold the two together over every calculation): for one system the
-    Jacobian is a few dozen numbers, and each numpy call on such tiny arrays costs more than all
-    of its arithmetic, so a single request would otherwise spend most of its time in overhead."""
+    The same method as :func:`_propagate` and :func:`_linear`, which it must match to rounding
+    (tests hold the two together over every calculation): the steps, the stencil and the checks
+    on Python floats, where for a few dozen numbers each numpy call would cost more than all of
+    its arithmetic; the differences and the quadratic form through the same :func:`_sigmas`."""
     names = tuple(quantities)
     qs = list(quantities.values())
     x = [float(q.value[0]) for q in qs]
@@ -429,7 +423,6 @@ def _linear_one(calc, quantities, statics, options) -> Result:
     m = len(rows)
     st = _stencil(calc, names, perturbed)
     r = correlation_matrix(list(perturbed), options.correlations) if options.correlations else None
-    rho = None if r is None or np.count_nonzero(r) == m else r.tolist()
     sm = [sm_all[k] for k in rows]
     sp = [sp_all[k] for k in rows]
     spread = [0.5 * (a + b) for a, b in zip(sm, sp)]
@@ -442,10 +435,6 @@ def _linear_one(calc, quantities, statics, options) -> Result:
         for c, off in enumerate(OFFSETS_LIST):
             v = x[k] + hj * off
             grid[k][1 + c * m + j] = v if st.low_list[j] <= v <= st.high_list[j] and v - v == 0 else math.nan
-    if 0.0 in h:
-        # a step that underflowed (a sigma near the smallest double): numpy's inf and nan
-        # quotients, and the one-sided fallback they lead to, are the vector method's business
-        return _linear(calc, quantities, statics, options, 1, ())
     cols = np.array(grid)
     ys = _call(calc, {name: cols[i:i + 1] for i, name in enumerate(names)}, statics, (1, p))
     given = tuple(ys)
@@ -453,37 +442,22 @@ def _linear_one(calc, quantities, statics, options) -> Result:
     warnings: list[Warning] = []
     failed: dict[int, dict[str, list[str]]] = {}
     if given:
-        period, wraps, _ = _output_periods(calc, given, 1)
-        period, wraps = period.tolist(), wraps.tolist()
-        ys_rows = np.array(list(ys.values())).reshape(len(given), p).tolist()
-        f0s, sigmas = [], []
-        steps2 = [2.0 * hj for hj in h]                          # 2 h, exactly
-        exact = [j for j, sj in enumerate(spread) if not sj > 0]  # a sigma that underflowed to 0
-        for k, (name, y) in enumerate(zip(given, ys_rows)):
-            f0, wrap = y[0], wraps[k]
-            below, above = y[1:1 + m], y[1 + m:]                  # f(x - h), f(x + h) of each input
-            if wrap:
-                jac = [_wrap_one(a - b, period[k]) / t for a, b, t in zip(above, below, steps2)]
-            else:
-                jac = [(a - b) / t for a, b, t in zip(above, below, steps2)]
-            total = sum(jac)
-            if not total - total == 0:                            # some quotient is not finite
-                jac = _one_sided(jac, above, below, f0, h, period[k] if wrap else None)
-            for j in exact:
-                jac[j] = 0.0
-            if rho is None:
-                var = 0.0
-                for g, s in zip(jac, spread):
-                    t = g * s
-                    var += t * t
-                sigma = math.sqrt(var)
-            else:
-                var = sum(jac[a] * spread[a] * rho[a][b] * spread[b] * jac[b] for a in range(m) for b in range(m))
-                sigma = math.sqrt(max(var, 0.0))
-            if wrap:
-                f0 = f0 % period[k]
-            f0s.append(f0)
-            sigmas.append(sigma)
+        nout = len(given)
+        y = np.array(list(ys.values())).reshape(nout, p)                           # (outputs, points)
+        values = y[:, :1]                                                            # (outputs, 1 system)
+        if m:
+            diff = (y[:, 1 + m:] - y[:, 1:1 + m])[:, None, :]                       # f(x + h) - f(x - h)
+            sigmas = _sigmas(calc, given, values, diff, lambda: (y[:, None, 1:1 + m], y[:, None, 1 + m:]),
+                             np.array(h)[:, None], np.array(spread)[:, None], r)
+        else:
+            sigmas = np.zeros_like(values)
+        period, wraps, any_wrap = _output_periods(calc, given, 2)
+        if any_wrap:
+            values = np.where(wraps, values % period, values)
+        for k, name in enumerate(given):
+            outputs[name] = {"value": values[k], "sigma": sigmas[k]}
+        # the checks on plain floats: a dozen numbers
+        for name, f0, sigma, wrap in zip(given, values[:, 0].tolist(), sigmas[:, 0].tolist(), wraps[:, 0].tolist()):
             finite = f0 - f0 == 0
             if not finite:
                 failed.setdefault(0, {}).setdefault("_inputs", []).append(f"these inputs give no finite value of {name}")
@@ -495,9 +469,6 @@ def _linear_one(calc, quantities, statics, options) -> Result:
             if finite and not sigma - sigma == 0:
                 warnings.append(Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated "
                                         "linearly at these inputs; use the Monte Carlo method", _TRUE, name))
-        both = np.array([f0s, sigmas])
-        for k, name in enumerate(given):
-            outputs[name] = {"value": both[0, k:k + 1], "sigma": both[1, k:k + 1]}
     for j, k in enumerate(rows):
         lo, hi = x[k] - sm[j], x[k] + sp[j]
         name = perturbed[j]
