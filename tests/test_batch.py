@@ -327,3 +327,34 @@ def test_samples_in_a_column_are_one_list_of_draws_per_system(client):
         for key in ("value", "sigma", "low", "high"):
             # the user's draws alone (every other input exact): no random numbers, the same answer
             assert got["columns"]["m1_sin3i"][key][i] == pytest.approx(want["results"]["m1_sin3i"][key], rel=1e-12)
+
+
+def _reference_floats(items):
+    # reference: Python's own float() entry by entry (None: not given; a bool, string, list or
+    # object, or an integer beyond a double: not a number)
+    out, bad = [], []
+    for v in items:
+        if v is None:
+            out.append(float("nan")); bad.append(False)
+        elif type(v) in (int, float):
+            try:
+                out.append(float(v)); bad.append(False)
+            except OverflowError:
+                out.append(float("nan")); bad.append(True)
+        else:
+            out.append(float("nan")); bad.append(True)
+    return out, bad
+
+
+@pytest.mark.parametrize("items", [
+    [1.5, 2, 3.25], [1, 2, 3], [True, 1.0], [1.0, False], [False, True], [None, 1.0], [None], ["1.5", 2.0],
+    [2**64, 1.5], [10**400, 1.0], [[1.0], 2.0], [{"a": 1}], [0.0, 1.0, 1], [2**63, 1], [2**53 + 1, 0.5],
+    [-0.0, 1e308, -1e-320], [0, 1, True, 0.0],
+])
+def test_columns_read_numbers_as_python_float_does(items):
+    from calcservice.api.batch import _floats
+    values, bad = _floats(items)
+    want, want_bad = _reference_floats(items)
+    assert bad.tolist() == want_bad
+    assert np.array_equal(values, np.array(want), equal_nan=True)
+    assert [math.copysign(1, v) for v in values.tolist() if v == 0] == [math.copysign(1, v) for v in want if v == 0]

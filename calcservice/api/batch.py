@@ -143,7 +143,16 @@ def _shared(calc: Calculation, body: dict, limits: Limits) -> tuple[dict, dict]:
 def _floats(items: list) -> tuple[np.ndarray, np.ndarray]:
     """A list of JSON numbers (None: not given) as floats, and which entries are not numbers."""
     n = len(items)
-    if set(map(type, items)) <= _NUMBER_TYPES:
+    try:
+        arr = np.array(items)              # numbers only: numpy infers float64 (or int64) itself
+    except (OverflowError, TypeError, ValueError):
+        arr = None
+    if arr is not None and arr.shape == (n,) and arr.dtype.kind in "fi":
+        arr = arr.astype(float, copy=False)
+        # a JSON true or false would have been read as 1.0 or 0.0: only those entries need a look
+        if not any(type(items[k]) is bool for k in np.flatnonzero((arr == 0.0) | (arr == 1.0)).tolist()):
+            return arr, np.zeros(n, dtype=bool)
+    if set(map(type, items)) <= _NUMBER_TYPES:       # numbers and nulls
         try:
             return np.array(items, dtype=float), np.zeros(n, dtype=bool)
         except OverflowError:
