@@ -321,11 +321,14 @@ def _steps(x: np.ndarray, spread: np.ndarray, st: _Stencil) -> np.ndarray:
 def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
     """Nominal outputs and their linear sigmas for a block of systems: ``x`` (inputs, n) holds the
     inputs' values, ``spread`` (m, n) the symmetric sigmas of the perturbed ones.  Returns the
-    outputs given and f0, sigma of shape (outputs, n) + trail."""
+    outputs given and f0, sigma of shape (outputs, n) + trail.
+
+    The physics sees arrays of shape (points, n) + trail: the stencil's points first, so that
+    each point is a contiguous row of systems and f(x + h) - f(x - h) one subtraction of blocks."""
     q, n = x.shape
     m = len(st.rows)
     p = 1 + WIDTH * m
-    cols = np.repeat(x[:, :, None], p, axis=2)                                      # (Q, n, p)
+    cols = np.repeat(x[:, None, :], p, axis=1)                                      # (Q, p, n)
     if m:
         xj = x[st.rows]                                                              # (m, n)
         h = _steps(xj, spread, st)
@@ -333,65 +336,64 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
         inside = np.isfinite(block) & (block >= st.low) & (block <= st.high)
         if not inside.all():
             block[~inside] = np.nan
-        cols[st.fill_rows, :, st.fill_cols] = block.reshape(WIDTH * m, n)
+        cols[st.fill_rows, st.fill_cols, :] = block.reshape(WIDTH * m, n)
     ones = (1,) * len(trail)
-    ys = _call(calc, {name: cols[k].reshape((n, p) + ones) if trail else cols[k] for k, name in enumerate(names)},
-               statics, (n, p) + trail)
+    ys = _call(calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k] for k, name in enumerate(names)},
+               statics, (p, n) + trail)
     given = tuple(ys)
     if not given:
         return given, None, None
     nout = len(given)
     f0 = np.empty((nout, n) + trail)
-    diff = np.empty((nout, n, m) + trail)
+    diff = np.empty((nout, m, n) + trail)
     for k, y in enumerate(ys.values()):
-        f0[k] = y[:, 0]
-        np.subtract(y[:, 1 + m:], y[:, 1:1 + m], out=diff[k])                        # f(x + h) - f(x - h)
+        f0[k] = y[0]
+        np.subtract(y[1 + m:], y[1:1 + m], out=diff[k])                              # f(x + h) - f(x - h)
     if not m:
         return given, f0, np.zeros_like(f0)
 
     def sides():
-        return (np.array([y[:, 1:1 + m] for y in ys.values()]), np.array([y[:, 1 + m:] for y in ys.values()]))
+        return np.array([y[1:1 + m] for y in ys.values()]), np.array([y[1 + m:] for y in ys.values()])
 
     return given, f0, _sigmas(calc, given, f0, diff, sides, h, spread, r)
 
 
 def _sigmas(calc, given, f0, diff, sides, h, spread, r) -> np.ndarray:
     """Linear sigmas (outputs, n) + trail from the stencil's differences ``diff`` = f(x + h) -
-    f(x - h), (outputs, n, m) + trail, with the steps ``h`` and symmetric sigmas ``spread`` (m, n)
+    f(x - h), (outputs, m, n) + trail, with the steps ``h`` and symmetric sigmas ``spread`` (m, n)
     of the m perturbed inputs and their correlation ``r`` (None: uncorrelated).  ``sides()`` gives
     f(x - h) and f(x + h) apart, for one-sided differences where a central one is not finite."""
-    nout, n, m = diff.shape[:3]
+    nout, m, n = diff.shape[:3]
     ones = (1,) * (diff.ndim - 3)
     period, wraps, any_wrap = _output_periods(calc, given, diff.ndim)
     if any_wrap:
         diff = np.where(wraps, _wrap(diff, period), diff)
-    h = h.T.reshape((1, n, m) + ones)
-    jac = diff / (2.0 * h)                                                           # (outputs, n, m) + trail
+    h = h.reshape((1, m, n) + ones)
+    jac = diff / (2.0 * h)                                                           # (outputs, m, n) + trail
     if not np.isfinite(jac).all():
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
         below, above = sides()
-        ref = f0[:, :, None]
+        ref = f0[:, None]
         up, down = above - ref, below - ref                                          # f(x +- h) - f(x)
         if any_wrap:
             up, down = np.where(wraps, _wrap(up, period), up), np.where(wraps, _wrap(down, period), down)
         jac = np.where(np.isfinite(jac), jac, np.where(np.isfinite(up), up / h, -down / h))
-    sig = spread.T.reshape((1, n, m) + ones)
+    sig = spread.reshape((1, m, n) + ones)
     exact = ~(sig > 0)
     if exact.any():
         # an exact input in a row does not count, even if its derivative is undefined there
         jac = np.where(exact, 0.0, jac)
     if r is None or np.count_nonzero(r) == m:
         # uncorrelated inputs: the quadratic form is a sum of squares, added input by input
-        # (a reduction along the short last axis is far slower)
         terms = jac * sig
         terms *= terms
-        var = terms[:, :, 0].copy()
+        var = terms[:, 0].copy()
         for j in range(1, m):
-            var += terms[:, :, j]
+            var += terms[:, j]
         return np.sqrt(var)
     cov = spread.T[:, :, None] * r[None, :, :] * spread.T[:, None, :]               # (n, m, m)
-    var = np.einsum("onj...,njk,onk...->on...", jac, cov, jac)
+    var = np.einsum("ojn...,njk,okn...->on...", jac, cov, jac)
     return np.sqrt(np.maximum(var, 0.0))
 
 
@@ -435,8 +437,8 @@ def _linear_one(calc, quantities, statics, options) -> Result:
         for c, off in enumerate(OFFSETS_LIST):
             v = x[k] + hj * off
             grid[k][1 + c * m + j] = v if st.low_list[j] <= v <= st.high_list[j] and v - v == 0 else math.nan
-    cols = np.array(grid)
-    ys = _call(calc, {name: cols[i:i + 1] for i, name in enumerate(names)}, statics, (1, p))
+    cols = np.array(grid)[:, :, None]                                                # (inputs, points, 1)
+    ys = _call(calc, {name: cols[i] for i, name in enumerate(names)}, statics, (p, 1))
     given = tuple(ys)
     outputs: dict[str, dict[str, np.ndarray]] = {}
     warnings: list[Warning] = []
@@ -446,8 +448,8 @@ def _linear_one(calc, quantities, statics, options) -> Result:
         y = np.array(list(ys.values())).reshape(nout, p)                           # (outputs, points)
         values = y[:, :1]                                                            # (outputs, 1 system)
         if m:
-            diff = (y[:, 1 + m:] - y[:, 1:1 + m])[:, None, :]                       # f(x + h) - f(x - h)
-            sigmas = _sigmas(calc, given, values, diff, lambda: (y[:, None, 1:1 + m], y[:, None, 1 + m:]),
+            diff = (y[:, 1 + m:] - y[:, 1:1 + m])[:, :, None]                       # f(x + h) - f(x - h)
+            sigmas = _sigmas(calc, given, values, diff, lambda: (y[:, 1:1 + m, None], y[:, 1 + m:, None]),
                              np.array(h)[:, None], np.array(spread)[:, None], r)
         else:
             sigmas = np.zeros_like(values)
