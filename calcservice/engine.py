@@ -12,9 +12,10 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
   non-finite output are rejected and counted; summaries are the median, the standard
   deviation and the central 68.27 % interval.
 
-Either way the physics function is called once, on arrays of shape (N, P): P = 1 + 2 m
-perturbed copies for m uncertain inputs (linear), or P = 1 + S draws (Monte Carlo,
-column 0 being the nominal point).  Nothing loops over systems in Python.  For a single
+Either way the physics function is called once per batch of systems: on arrays of shape
+(P, N) for the linear method, P = 1 + 2 m stencil points for m uncertain inputs (row 0 the
+nominal point; points first, so that each is a contiguous row of systems), or (N, 1 + S) for
+Monte Carlo, S draws (column 0 the nominal point); physics is elementwise, so either serves.  Nothing loops over systems in Python.  For a single
 system the linear method's steps, stencil and checks run on Python floats
 (:func:`_linear_one`), where numpy's per-call cost would outweigh the arithmetic many times;
 tests hold it to the vector method (:func:`_linear`) over every calculation.
