@@ -15,10 +15,11 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
 Either way the physics function is called once per batch of systems: on arrays of shape
 (P, N) for the linear method, P = 1 + 2 m stencil points for m uncertain inputs (row 0 the
 nominal point; points first, so that each is a contiguous row of systems), or (N, 1 + S) for
-Monte Carlo, S draws (column 0 the nominal point); physics is elementwise, so either serves.  Nothing loops over systems in Python.  For a single
-system the linear method's steps, stencil and checks run on Python floats
-(:func:`_linear_one`), where numpy's per-call cost would outweigh the arithmetic many times;
-tests hold it to the vector method (:func:`_linear`) over every calculation.
+Monte Carlo, S draws (column 0 the nominal point); physics is elementwise, so either serves.
+Nothing loops over systems in Python.  For a single system the linear method's steps, stencil
+and checks run on Python floats (:func:`_linear_one`), where numpy's per-call cost would
+outweigh the arithmetic many times; tests hold it to the vector method (:func:`_linear`) over
+every calculation.
 """
 
 from __future__ import annotations
