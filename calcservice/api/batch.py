@@ -386,27 +386,30 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
     slow = np.zeros(n, dtype=bool)
 
     # gather the systems' JSON into columns: the only per-system Python work before the arrays
+    slots = {nm: (values[nm], minus[nm], plus[nm], units[nm]) for nm in quantity}
     for i, row in enumerate(systems):
         if type(row) is not dict or not row.keys() <= fast_keys:
             slow[i] = True
             continue
         for name, v in row.items():
-            t = type(v)
             if name in is_choice:
                 chosen[name][i] = v
-            elif t is float or t is int:
-                values[name][i] = v
+                continue
+            t = type(v)
+            value_of, minus_of, plus_of, unit_of = slots[name]
+            if t is float or t is int:
+                value_of[i] = v
             elif t is dict and v.keys() <= SIMPLE_KEYS and v.get("value") is not None:
-                values[name][i] = v["value"]
+                value_of[i] = v["value"]
                 if "sigma" in v:
                     if "sigma_minus" in v or "sigma_plus" in v:
                         slow[i] = True
                         break
-                    minus[name][i] = plus[name][i] = v["sigma"]
+                    minus_of[i] = plus_of[i] = v["sigma"]
                 elif "sigma_minus" in v or "sigma_plus" in v:
-                    minus[name][i] = v.get("sigma_minus")
-                    plus[name][i] = v.get("sigma_plus")
-                units[name][i] = v.get("unit")
+                    minus_of[i] = v.get("sigma_minus")
+                    plus_of[i] = v.get("sigma_plus")
+                unit_of[i] = v.get("unit")
             else:
                 slow[i] = True
                 break
