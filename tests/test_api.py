@@ -184,3 +184,14 @@ def test_bodies_mean_what_the_standard_library_reads(text):
     fast = _fast_loads(text.encode())
     got = _loads_checked(text) if fast is _UNPARSED else fast
     assert got == json.loads(text) and type(got) is type(json.loads(text))
+
+
+def test_a_body_shorter_than_its_declared_length_is_refused(client):
+    # RFC 9110 sec. 8.6: Content-Length is the body's length; a body that ends early is incomplete
+    body = b'{"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31}'
+    r = client.post("/v1/spectroscopic/sb2", data=body, content_type="application/json",
+                    environ_overrides={"CONTENT_LENGTH": str(len(body) + 10)})
+    assert r.status_code == 400 and r.content_type == "application/problem+json"
+    assert f"ended after {len(body)} of its declared {len(body) + 10} bytes" in r.get_json()["detail"]
+    exact = client.post("/v1/spectroscopic/sb2", data=body, content_type="application/json")
+    assert exact.status_code == 200

@@ -122,6 +122,8 @@ def json_body(limits=None):
         # a declared length within the limit: read exactly that (what werkzeug's stream would do,
         # without its wrappers, a good part of a small request's cost)
         data = environ["wsgi.input"].read(int(length))
+        if len(data) < int(length):
+            raise Problem(400, f"the request body ended after {len(data)} of its declared {length} bytes")
     else:
         data = request.get_data(cache=False)   # 413 before reading when Content-Length is over the limit
     if len(data) > limits.max_body_bytes or (len(data) == limits.max_body_bytes and request.content_length is None
