@@ -158,16 +158,6 @@ def _wrap(d: np.ndarray, period) -> np.ndarray:
     return (d + 0.5 * period) % period - 0.5 * period
 
 
-@lru_cache(maxsize=1024)
-def _periods(given: tuple) -> tuple[np.ndarray, np.ndarray]:
-    """The wrap period of each output (1 where it does not wrap) and which outputs wrap."""
-    period = np.array([np.nan if o.period is None else o.period for o in given])
-    wraps = np.isfinite(period)
-    period = np.where(wraps, period, 1.0)
-    period.flags.writeable = wraps.flags.writeable = False
-    return period, wraps
-
-
 def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
     kwargs: dict[str, Any] = {i.name: None for i in calc.inputs}
     kwargs.update(statics)
@@ -296,9 +286,12 @@ def _stencil(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ..
 def _output_periods(calc: Calculation, names: tuple[str, ...], ndim: int) -> tuple[np.ndarray, np.ndarray, bool]:
     """The wrap period of each output (1 where it does not wrap), which wrap, and whether any does;
     shaped (outputs,) + (1,) * (ndim - 1) to broadcast against (outputs, systems, ...) arrays."""
-    period, wraps = _periods(tuple(calc.output(name) for name in names))
+    period = np.array([np.nan if calc.output(name).period is None else calc.output(name).period for name in names])
+    wraps = np.isfinite(period)
     shape = (len(names),) + (1,) * (ndim - 1)
-    return period.reshape(shape), wraps.reshape(shape), bool(wraps.any())
+    period, wraps = np.where(wraps, period, 1.0).reshape(shape), wraps.reshape(shape)
+    period.flags.writeable = wraps.flags.writeable = False
+    return period, wraps, bool(wraps.any())
 
 
 def _steps(x: np.ndarray, spread: np.ndarray, st: _Stencil) -> np.ndarray:
@@ -327,7 +320,7 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
 
     The physics sees arrays of shape (points, n) + trail: the stencil's points first, so that
     each point is a contiguous row of systems and f(x + h) - f(x - h) one subtraction of blocks."""
-    q, n = x.shape
+    n = x.shape[1]
     m = len(st.rows)
     p = 1 + WIDTH * m
     cols = np.repeat(x[:, None, :], p, axis=1)                                      # (Q, p, n)
@@ -399,6 +392,28 @@ def _sigmas(calc, given, f0, diff, sides, h, spread, r) -> np.ndarray:
     return np.sqrt(np.maximum(var, 0.0))
 
 
+# the linear method's warnings, one place for both its paths
+def _untrustworthy(name: str, where) -> Warning:
+    return Warning("linear_untrustworthy", "{subject}: relative sigma above " f"{LINEAR_TRUST_LIMIT:.0%}; first-order "
+                   "propagation may be poor; consider the Monte Carlo method", where, name)
+
+
+def _undefined(name: str, where) -> Warning:
+    return Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated linearly at these "
+                   "inputs; use the Monte Carlo method", where, name)
+
+
+def _crosses(calc: Calculation, name: str, where) -> Warning:
+    return Warning("interval_crosses_domain", f"the 1-sigma interval of {name} crosses its physical domain "
+                   f"({calc.input(name).domain.describe()}); consider the Monte Carlo method, which truncates "
+                   "draws to the domain", where)
+
+
+def _asymmetric(name: str) -> Warning:
+    return Warning("asymmetric_linearised", "{subject}: asymmetric errors; linear propagation used the mean of "
+                   "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal", None, name)
+
+
 def _step(x: float, s: float, time: bool) -> float:
     """:func:`_steps` for one input of one system, on floats (the same operations, so the same bits)."""
     ax = abs(x)
@@ -467,26 +482,17 @@ def _linear_one(calc, quantities, statics, options) -> Result:
                 failed.setdefault(0, {}).setdefault("_inputs", []).append(f"these inputs give no finite value of {name}")
             # |sigma / f0| > limit, where numpy's quotient is finite (f0 = 0 gives inf or nan there)
             if not wrap and f0 != 0 and LINEAR_TRUST_LIMIT < abs(sigma / f0) < math.inf:
-                warnings.append(Warning("linear_untrustworthy",
-                                        "{subject}: relative sigma above " f"{LINEAR_TRUST_LIMIT:.0%}; first-order "
-                                        "propagation may be poor; consider the Monte Carlo method", _TRUE, name))
+                warnings.append(_untrustworthy(name, _TRUE))
             if finite and not sigma - sigma == 0:
-                warnings.append(Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated "
-                                        "linearly at these inputs; use the Monte Carlo method", _TRUE, name))
+                warnings.append(_undefined(name, _TRUE))
     for j, k in enumerate(rows):
         lo, hi = x[k] - sm[j], x[k] + sp[j]
         name = perturbed[j]
         if not (lo - lo == 0 and hi - hi == 0 and st.low_list[j] <= lo <= st.high_list[j]
                 and st.low_list[j] <= hi <= st.high_list[j]):
-            warnings.append(Warning("interval_crosses_domain",
-                                    f"the 1-sigma interval of {name} crosses its physical domain "
-                                    f"({calc.input(name).domain.describe()}); consider the Monte Carlo method, which "
-                                    "truncates draws to the domain", _TRUE))
+            warnings.append(_crosses(calc, name, _TRUE))
         if sm[j] != sp[j] and quantities[name].samples is None:
-            warnings.append(Warning("asymmetric_linearised",
-                                    "{subject}: asymmetric errors; linear propagation used the mean of "
-                                    "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal",
-                                    None, name))
+            warnings.append(_asymmetric(name))
     return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
 
 
@@ -542,12 +548,9 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
                     failed.setdefault(row, {}).setdefault("_inputs", []).append(
                         f"these inputs give no finite value of {name}")
             if not wraps.flat[k] and loose[k].any():
-                warnings.append(Warning("linear_untrustworthy",
-                                        "{subject}: relative sigma above " f"{LINEAR_TRUST_LIMIT:.0%}; first-order "
-                                        "propagation may be poor; consider the Monte Carlo method", loose[k], name))
+                warnings.append(_untrustworthy(name, loose[k]))
             if undefined[k].any():
-                warnings.append(Warning("sigma_undefined", "the uncertainty of {subject} could not be propagated "
-                                        "linearly at these inputs; use the Monte Carlo method", undefined[k], name))
+                warnings.append(_undefined(name, undefined[k]))
 
     if m:
         xj = x[st.rows]
@@ -555,18 +558,11 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
         crosses = ~(np.isfinite(ends) & (ends >= st.low) & (ends <= st.high)).all(axis=0)
         asymmetric = sm != sp
         if crosses.any() or asymmetric.any():
-            doms = [calc.input(name).domain for name in perturbed]
             for j, name in enumerate(perturbed):
                 if crosses[j].any():
-                    warnings.append(Warning("interval_crosses_domain",
-                                            f"the 1-sigma interval of {name} crosses its physical domain "
-                                            f"({doms[j].describe()}); consider the Monte Carlo method, which "
-                                            "truncates draws to the domain", crosses[j]))
+                    warnings.append(_crosses(calc, name, crosses[j]))
                 if asymmetric[j].any() and quantities[name].samples is None:
-                    warnings.append(Warning("asymmetric_linearised",
-                                            "{subject}: asymmetric errors; linear propagation used the mean of "
-                                            "sigma_minus and sigma_plus; the Monte Carlo method draws a split normal",
-                                            None, name))
+                    warnings.append(_asymmetric(name))
     return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
 
 

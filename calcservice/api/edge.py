@@ -118,12 +118,13 @@ def json_body(limits=None):
             raise Problem(415, "send the request body as JSON with Content-Type: application/json")
     limits = limits or current_app.config["CALCSERVICE_SETTINGS"].limits
     length = environ.get("CONTENT_LENGTH", "")
-    if length.isdigit() and int(length) <= limits.max_body_bytes and "HTTP_TRANSFER_ENCODING" not in environ:
+    declared = int(length) if length.isdigit() else None
+    if declared is not None and declared <= limits.max_body_bytes and "HTTP_TRANSFER_ENCODING" not in environ:
         # a declared length within the limit: read exactly that (what werkzeug's stream would do,
         # without its wrappers, a good part of a small request's cost)
-        data = environ["wsgi.input"].read(int(length))
-        if len(data) < int(length):
-            raise Problem(400, f"the request body ended after {len(data)} of its declared {length} bytes")
+        data = environ["wsgi.input"].read(declared)
+        if len(data) < declared:
+            raise Problem(400, f"the request body ended after {len(data)} of its declared {declared} bytes")
     else:
         data = request.get_data(cache=False)   # 413 before reading when Content-Length is over the limit
     if len(data) > limits.max_body_bytes or (len(data) == limits.max_body_bytes and request.content_length is None

@@ -87,11 +87,6 @@ def _echo_table(calc: Calculation, parsed: "Parsed") -> list[dict]:
 def _echo_rows(spec, m: Measured, count: int | None = None) -> list[dict]:
     """The echo of a quantity for each of its N systems (the first ``count`` only, if given)."""
     k = len(m.value) if count is None else min(count, len(m.value))
-    if k == 1 and not m.isotropic and m.samples is None:
-        v, lo, hi = float(m.value[0]), float(m.sigma_minus[0]), float(m.sigma_plus[0])
-        if lo != hi:
-            return [{"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit}]
-        return [{"value": v, "sigma": lo, "unit": spec.unit}]
     if m.isotropic:
         return [{"value": "isotropic", "unit": spec.unit} for _ in range(k)]
     values = m.value[:k].tolist()
