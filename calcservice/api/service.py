@@ -14,6 +14,11 @@ from typing import Any, Mapping
 import numpy as np
 from marshmallow import ValidationError
 
+try:    # optional (see .edge): with it, the parts of a response that go straight to JSON unchanged
+    import orjson   # are encoded once, as fragments the encoder copies
+except ImportError:  # pragma: no cover
+    orjson = None
+
 from .. import __version__
 from ..config import Limits
 from ..constants import constants_used
@@ -131,13 +136,45 @@ def load(calc: Calculation, body: Any, limits: Limits, partial: bool = False) ->
     ``partial`` skips the required-input checks (a batch's shared options alone)."""
     if not isinstance(body, dict):
         raise Problem(422, "the request body must be a JSON object", {"_body": ["must be a JSON object"]})
+    schema = request_schema(calc, limits)
+    if not partial:
+        loaded = _load_fields(schema, body)
+        if loaded is not None:
+            return loaded
     try:
         # partial for the inputs only: marshmallow's partial=True would also waive the required
         # members of nested options (a correlation without "between" would then crash the service)
         names = tuple(spec.name for spec in calc.inputs) if partial else False
-        return request_schema(calc, limits).load(body, partial=names)
+        return schema.load(body, partial=names)
     except ValidationError as err:
         raise invalid(error_messages(err)) from None
+
+
+def _load_fields(schema, body: dict) -> dict | None:
+    """What ``schema.load(body)`` returns, for a body it will accept, field by field with the
+    schema's own fields and without the schema's per-load machinery (its error store, hooks
+    and unknown-key pass: a fifth of a small request's parse).  None when anything is amiss
+    (an unknown or missing key, a null, a field's error): the schema's full load then says
+    what, with every message.  The request schemas have no hooks or schema validators."""
+    fields = schema.load_fields
+    if not body.keys() <= fields.keys() or not _required(schema) <= body.keys():
+        return None
+    out = {}
+    try:
+        for name, f in fields.items():
+            if name in body:
+                value = body[name]
+                if value is None:
+                    return None
+                out[name] = f.deserialize(value, name, body, partial=False)
+    except ValidationError:
+        return None
+    return out
+
+
+@lru_cache(maxsize=None)
+def _required(schema) -> frozenset:
+    return frozenset(name for name, f in schema.load_fields.items() if f.required)
 
 
 def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
@@ -406,8 +443,12 @@ def failure(result: Result, index: int) -> Problem | None:
     return None if errors is None else invalid(errors, "the inputs are not physically consistent")
 
 
-def compute(name: str, body: Any, limits: Limits | None = None, keep_draws: bool = False) -> dict:
-    """One calculation, one system: the response of the wire contract (raises :class:`Problem`)."""
+def compute(name: str, body: Any, limits: Limits | None = None, keep_draws: bool = False,
+            encoded: bool = False) -> dict:
+    """One calculation, one system: the response of the wire contract (raises :class:`Problem`).
+
+    ``encoded``: the response goes straight to the JSON encoder (its provenance may then be a
+    pre-encoded fragment rather than a dict)."""
     calc = find(name)
     limits = limits or Limits()
     parsed = parse(calc, body, limits)
@@ -416,7 +457,7 @@ def compute(name: str, body: Any, limits: Limits | None = None, keep_draws: bool
     problem = failure(result, 0)
     if problem is not None:
         raise problem
-    response = respond(calc, parsed, result, 0)
+    response = respond(calc, parsed, result, 0, encoded=encoded)
     if keep_draws and result.draws is not None:
         response["_draws"] = {k: v[0] for k, v in result.draws.items()}
     return response
@@ -424,48 +465,65 @@ def compute(name: str, body: Any, limits: Limits | None = None, keep_draws: bool
 
 class Rendering:
     """What every system's response of one engine call shares, computed once (outputs converted
-    and cleaned, warnings, extras, provenance); :meth:`row` picks one system's response."""
+    and cleaned, warnings, extras, provenance); :meth:`row` picks one system's response.
 
-    def __init__(self, calc: Calculation, parsed: Parsed, result: Result):
+    ``encoded``: the responses go straight to the JSON encoder (orjson), so their constant parts
+    may be pre-encoded fragments, and :meth:`fragments` may give whole rows as fragments."""
+
+    def __init__(self, calc: Calculation, parsed: Parsed, result: Result, encoded: bool = False):
         self.calc, self.parsed, self.result = calc, parsed, result
-        self.table = output_table(calc, result, parsed.output_units)
-        self._plain = None if any(is_series for _, is_series, _ in self.table) else \
-            [(name, entries) for name, _, entries in self.table]
+        self.encoded = encoded and orjson is not None
+        self._table: list[tuple] | None = None
+        self._plain = False                            # no series output (known with the table)
         self.masks = warning_masks(result)
         self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
         self.series = {calc.input(name).label or name: {"value": _clean(values), "unit": calc.input(name).unit}
                        for name, values in parsed.series.items()}
-        self.provenance = provenance(calc)
+        self.provenance = _provenance_fragment(calc) if self.encoded else provenance(calc)
         self._kinds: list | None = None               # per system: which set of warnings applies
         self._warnings: dict[int, list[dict]] = {}
 
-    def warnings(self, index: int) -> list[dict]:
-        """:func:`warnings_for` system ``index``, built once per distinct set of warnings that apply
-        (a catalogue's systems share a handful); systems with the same set share the entries, as
-        they share the provenance."""
-        masks = self.masks
-        if not masks:
-            return []
+    @property
+    def table(self) -> list[tuple]:
+        if self._table is None:
+            self._table = output_table(self.calc, self.result, self.parsed.output_units)
+            self._plain = not any(is_series for _, is_series, _ in self._table)
+        return self._table
+
+    def _kind(self, index: int) -> int | None:
+        """Which distinct set of warnings applies to system ``index`` (None: one system, no sets)."""
         if self._kinds is None:
+            masks = self.masks
             systems = max((len(m) for m in masks if m is not None), default=1)
             if systems == 1:
-                return warnings_for(self.result, index, masks)
+                return None
             applies = np.ones((len(masks), systems), dtype=bool)
             for k, m in enumerate(masks):
                 if m is not None:
                     applies[k] = m
             self._kinds = np.unique(applies.T, axis=0, return_inverse=True)[1].reshape(-1).tolist()
-        kind = self._kinds[index]
+        return self._kinds[index]
+
+    def warnings(self, index: int) -> list[dict]:
+        """:func:`warnings_for` system ``index``, built once per distinct set of warnings that apply
+        (a catalogue's systems share a handful); systems with the same set share the entries, as
+        they share the provenance."""
+        if not self.masks:
+            return []
+        kind = self._kind(index)
+        if kind is None:
+            return warnings_for(self.result, index, self.masks)
         entries = self._warnings.get(kind)
         if entries is None:
-            entries = self._warnings[kind] = warnings_for(self.result, index, masks)
+            entries = self._warnings[kind] = warnings_for(self.result, index, self.masks)
         return list(entries)
 
     def row(self, index: int, echo: dict | None = None) -> dict:
-        if self._plain is not None:           # no series: each output's entry for this system
-            results = {name: entries[index] for name, entries in self._plain}
+        table = self.table
+        if self._plain:                        # no series: each output's entry for this system
+            results = {name: entries[index] for name, _, entries in table}
         else:
-            results = render_outputs(self.calc, self.result, index, self.parsed.output_units, self.table)
+            results = render_outputs(self.calc, self.result, index, self.parsed.output_units, table)
         if "series" in results:
             results["series"] = {**self.series, **results["series"]}
         if self.extras:
@@ -479,6 +537,116 @@ class Rendering:
             "provenance": self.provenance,
         }
 
+    def fragments(self) -> list | None:
+        """Every system's :meth:`row` as one pre-encoded JSON fragment, the bytes the encoder would
+        write for the row's dict (a test holds the two byte for byte), without building the dozens
+        of small dicts per system: constant parts encoded once, each number column by orjson in
+        one call.  None where this path does not apply (no encoder, one system, series or extras)."""
+        result, calc = self.result, self.calc
+        names = list(result.outputs)
+        if not self.encoded or self.extras or not names:
+            return None
+        n = len(result.outputs[names[0]]["value"])
+        if n < 2 or any(np.shape(o["value"]) != (n,) for o in result.outputs.values()):
+            return None
+        out_units, factors = _output_factors(calc, tuple(names), tuple(sorted(self.parsed.output_units.items())))
+        parts = _Template()
+        parts.text(b'{"calculation":' + _encode(calc.name) + b',"results":{')
+        for i, (name, unit, k) in enumerate(zip(names, out_units, factors)):
+            o = result.outputs[name]
+            parts.text((b"," if i else b"") + _encode(name) + b":{")
+            for j, key in enumerate(["value", *(key for key in o if key != "value")]):
+                parts.text((b"," if j else b"") + _encode(key) + b":")
+                parts.slot(_number_texts(np.multiply(o[key], k, dtype=float)))     # as output_table converts
+            parts.text(b',"unit":' + _encode(unit) + b"}")
+        parts.text(b'},"uncertainty":')
+        if result.method == "linear":
+            parts.text(_encode(uncertainty_for(result, 0)))
+        else:
+            head = _encode({"method": "monte_carlo", "samples": result.samples, "seed": result.seed})
+            parts.text(head[:-1] + b',"rejected_fraction":')
+            parts.slot(_number_texts(np.asarray(result.rejected_fraction, dtype=float)))
+            parts.text(b"}")
+        parts.text(b',"inputs":')
+        self._echo_parts(parts, n)
+        parts.text(b',"warnings":')
+        if not self.masks or self._kind(0) is None:          # the same warnings for every system
+            parts.text(_encode(self.warnings(0)))
+        else:
+            encoded: dict[int, bytes] = {}
+            for index, kind in enumerate(self._kinds):
+                if kind not in encoded:
+                    encoded[kind] = _encode(self.warnings(index))
+            parts.slot([encoded[kind] for kind in self._kinds])
+        parts.text(b',"provenance":' + _encode(self.provenance) + b"}")
+        return [orjson.Fragment(row) for row in parts.fill(n)]
 
-def respond(calc: Calculation, parsed: Parsed, result: Result, index: int, echo: dict | None = None) -> dict:
-    return Rendering(calc, parsed, result).row(index, echo)
+    def _echo_parts(self, parts: "_Template", n: int) -> None:
+        """The ``inputs`` member of every row: a template of columns where the group's systems give
+        each input in one form, else each system's echo encoded on its own."""
+        parsed = self.parsed
+        if parsed.echo_rows is None:
+            columns = []
+            for name, e in parsed.echo.items():
+                m = parsed.quantities.get(name)
+                if m is None or len(m.value) == 1:
+                    columns.append((name, e, None))
+                    continue
+                if m.isotropic or m.samples is not None or not (m.sigma_minus == m.sigma_plus).all():
+                    columns = None              # forms that may differ from system to system
+                    break
+                columns.append((name, e, m))
+            if columns is not None:
+                parts.text(b"{")
+                for i, (name, e, m) in enumerate(columns):
+                    head = (b"," if i else b"") + _encode(name) + b":"
+                    if m is None:
+                        parts.text(head + _encode(e))
+                        continue
+                    parts.text(head + b'{"value":')
+                    parts.slot(_number_texts(m.value))
+                    parts.text(b',"sigma":')
+                    parts.slot(_number_texts(m.sigma_minus))
+                    parts.text(b',"unit":' + _encode(e["unit"]) + b"}")
+                parts.text(b"}")
+                return
+        parts.slot([_encode(parsed.echo_at(index)) for index in range(n)])
+
+def respond(calc: Calculation, parsed: Parsed, result: Result, index: int, echo: dict | None = None,
+            encoded: bool = False) -> dict:
+    return Rendering(calc, parsed, result, encoded).row(index, echo)
+
+
+class _Template:
+    """A JSON text with slots: constant bytes and, per slot, one piece of bytes per system."""
+
+    def __init__(self):
+        self.template = b""
+        self.slots: list[list[bytes]] = []
+
+    def text(self, b: bytes) -> None:
+        self.template += b.replace(b"%", b"%%")
+
+    def slot(self, texts: list[bytes]) -> None:
+        self.slots.append(texts)
+        self.template += b"%s"
+
+    def fill(self, n: int) -> list[bytes]:
+        if not self.slots:
+            return [self.template % ()] * n
+        return [self.template % values for values in zip(*self.slots)]
+
+
+def _encode(obj) -> bytes:
+    return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY)     # as .edge.dumps encodes
+
+
+def _number_texts(a: np.ndarray) -> list[bytes]:
+    """Each number of a float array as the JSON encoder writes it (non-finite: null), in one call."""
+    return _encode(np.ascontiguousarray(a, dtype=float))[1:-1].split(b",")
+
+
+@lru_cache(maxsize=None)
+def _provenance_fragment(calc: Calculation):
+    """The provenance of a calculation encoded once, for the responses that go straight to JSON."""
+    return orjson.Fragment(_encode(provenance(calc)))
