@@ -300,7 +300,7 @@ def main(argv=None) -> int:
         "single": (lambda: [post("/v1/spectroscopic/sb2", b) for b in singles], n_single),
         "rows": (lambda: post("/v1/batch/sb2", rows_payload), n_rows),
         "cols": (lambda: post("/v1/batch/sb2", cols_payload), n_cols),
-        "core": (lambda: compute_batch("sb2", parsed_cols, arrays=True), n_cols),
+        "core": (lambda: compute_batch("sb2", parsed_cols, for_json=True), n_cols),
         "lab": (lambda: lab_loop(lab_cat), n_lab),
         "numpy": (lambda: min(timed(lambda: bare_numpy(cat)) for _ in range(3)), n_cols),
     }

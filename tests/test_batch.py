@@ -358,3 +358,58 @@ def test_columns_read_numbers_as_python_float_does(items):
     assert bad.tolist() == want_bad
     assert np.array_equal(values, np.array(want), equal_nan=True)
     assert [math.copysign(1, v) for v in values.tolist() if v == 0] == [math.copysign(1, v) for v in want if v == 0]
+
+
+def _mixed_rows(calc):
+    """Rows of one calculation in several forms and options: a few systems per engine group, so
+    that groups share nothing by accident (asymmetric sigmas, units, exact values, output units,
+    Monte Carlo, differing warnings)."""
+    bodies = _variants(calc, 6)
+    extra = []
+    for body in bodies[:3]:
+        b = copy.deepcopy(body)
+        for name, v in list(b.items()):
+            if name in OPTIONS or calc.input(name).kind != "quantity" or calc.input(name).time:
+                continue
+            if isinstance(v, dict) and isinstance(v.get("value"), float) and "sigma" in v:
+                b[name] = {"value": v["value"], "sigma_minus": v["sigma"], "sigma_plus": 2 * v["sigma"]}
+                break
+        extra += [b, b]
+    return _rows(calc, bodies + extra)
+
+
+@pytest.mark.parametrize("calc", WITH_EXAMPLE, ids=lambda c: c.name)
+def test_rows_as_fragments_are_the_bytes_of_the_rows_as_dicts(calc):
+    # the HTTP path encodes each engine group's rows from a template (Rendering.fragments): its JSON
+    # must be, byte for byte, what the encoder writes for the library's dict rows
+    import orjson
+
+    from calcservice.api.batch import compute_batch
+    from calcservice.api.edge import dumps
+    outputs = [o.name for o in calc.outputs]
+    options = [{}, {"uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 3}}]
+    if any(o.unit == "au" for o in calc.outputs):
+        options.append({"units": {next(o.name for o in calc.outputs if o.unit == "au"): "km"}})
+    fragments = 0
+    for extra in options:
+        body = {"systems": _mixed_rows(calc), **_shared(calc), **extra}
+        as_dicts = compute_batch(calc.name, copy.deepcopy(body))
+        as_json = compute_batch(calc.name, copy.deepcopy(body), for_json=True)
+        assert dumps(as_json) == dumps(as_dicts)
+        fragments += sum(isinstance(r, orjson.Fragment) for r in as_json["results"])
+        assert all(isinstance(r, dict) for r in as_dicts["results"])
+    # series outputs and extras are left to the dict rows; every other calculation takes the template
+    assert outputs and (fragments > 0) == (not calc.extra and all(i.kind != "series" for i in calc.inputs))
+
+
+def test_fragments_cover_warnings_that_differ_between_systems():
+    # sb2: star 1 the less massive (q > 1) in some systems only; exact and normal inputs mixed
+    from calcservice.api.batch import compute_batch
+    from calcservice.api.edge import dumps
+    systems = [{"period": 10.0 + k, "k1": {"value": 30.0 + 10 * k, "sigma": 0.5}, "k2": {"value": 50.0, "sigma": 0.5},
+                "eccentricity": 0.1} for k in range(6)]
+    body = {"systems": systems}
+    as_json = compute_batch("sb2", copy.deepcopy(body), for_json=True)
+    codes = [[w["code"] for w in r["warnings"]] for r in compute_batch("sb2", copy.deepcopy(body))["results"]]
+    assert ["primary_less_massive"] in codes and [] in codes
+    assert dumps(as_json) == dumps(compute_batch("sb2", copy.deepcopy(body)))

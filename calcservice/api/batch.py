@@ -55,14 +55,15 @@ ABSENT, EXACT, NORMAL, ASYMMETRIC, ISOTROPIC = 0, 1, 2, 3, 4
 def batch(name: str):
     body = json_body()
     # numpy arrays straight to the JSON encoder: no Python float per number on the way out
-    return json_response(compute_batch(name, body, current_app.config["CALCSERVICE_SETTINGS"].limits, arrays=True))
+    return json_response(compute_batch(name, body, current_app.config["CALCSERVICE_SETTINGS"].limits, for_json=True))
 
 
-def compute_batch(name: str, body: Any, limits: Limits | None = None, arrays: bool = False) -> dict:
+def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False) -> dict:
     """A batch request (rows or columns) to its response; raises :class:`Problem` only for the
-    batch as a whole (unknown calculation, malformed body, limits).  With ``arrays`` the columns
-    of a columns response are numpy float arrays, NaN where a system has no value (null in JSON);
-    otherwise lists with None, as the JSON reads."""
+    batch as a whole (unknown calculation, malformed body, limits).  ``for_json``: the response
+    goes straight to the JSON encoder (:func:`.edge.dumps`), so the columns of a columns response
+    are numpy float arrays, NaN where a system has no value (null in JSON), and the rows of a rows
+    response may be pre-encoded fragments; otherwise plain dicts and lists with None, as the JSON reads."""
     calc = find(name)
     limits = limits or Limits()
     if not isinstance(body, dict):
@@ -74,9 +75,9 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, arrays: bo
     if unknown:
         raise invalid({k: ["unknown field"] for k in sorted(unknown)})
     if "systems" in body:
-        return compute_rows(calc, body, limits)
+        return compute_rows(calc, body, limits, for_json)
     response = compute_columns(calc, body, limits)
-    if not arrays:
+    if not for_json:
         for entry in response["columns"].values():
             if isinstance(entry, dict):
                 for key, v in entry.items():
@@ -356,16 +357,17 @@ def _stack(members: list[Parsed]) -> Parsed:
     return stacked
 
 
-def _rendering(calc: Calculation, group: _Group) -> Rendering:
+def _rendering(calc: Calculation, group: _Group, encoded: bool = False) -> Rendering:
     if group.rendering is None:
-        group.rendering = Rendering(calc, group.parsed, group.result)
+        group.rendering = Rendering(calc, group.parsed, group.result, encoded)
     return group.rendering
 
 
 # ----------------------------------------------------------------------------- rows
 
-def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
-    """``{"systems": [...]}`` to ``{"results": [...]}``: each a full single response or ``{"error": ...}``."""
+def compute_rows(calc: Calculation, body: dict, limits: Limits, encoded: bool = False) -> dict:
+    """``{"systems": [...]}`` to ``{"results": [...]}``: each a full single response or ``{"error": ...}``
+    (with ``encoded``, a response may be a pre-encoded fragment of the same JSON)."""
     systems = body["systems"]
     if not isinstance(systems, list) or not systems:
         raise invalid({"systems": ["must be a non-empty list of request bodies"]})
@@ -436,10 +438,11 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
         results[i] = {"error": problem.as_dict()}
     for group in done.groups:
         if group.problem is None:
-            rendering = _rendering(calc, group)
+            rendering = _rendering(calc, group, encoded)
+            rows = rendering.fragments() if encoded else None
             for k, i in enumerate(group.rows.tolist()):
                 if results[i] is None:
-                    results[i] = rendering.row(k)
+                    results[i] = rows[k] if rows is not None else rendering.row(k)
     return {"calculation": calc.name, "results": results}
 
 

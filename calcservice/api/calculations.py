@@ -27,7 +27,7 @@ def _endpoint(name: str):
                 raise Problem(400, f"plot must name an output of {name}",
                               {"plot": [f"{name} has no output {plot[:40]!r}; outputs are {', '.join(outputs)}"]})
         if fmt == "json":
-            return json_response(compute(name, body, settings.limits))
+            return json_response(compute(name, body, settings.limits, encoded=True))
         try:
             from .render import FORMATS, render
         except ImportError:
