@@ -124,6 +124,9 @@ class Result:
     failed: dict[int, dict[str, list[str]]] = field(default_factory=dict)   # system index -> errors
     draws: dict[str, np.ndarray] | None = None
     nominal_inputs: dict[str, Any] = field(default_factory=dict)
+    # one system: the outputs' names with their values and sigmas as Python floats (what the
+    # arrays of ``outputs`` hold), for the renderer; None otherwise
+    floats: tuple | None = None
 
 
 def _broadcast(a, shape) -> np.ndarray:
@@ -473,10 +476,11 @@ def _linear_one(calc, quantities, statics, options) -> Result:
         period, wraps, any_wrap = _output_periods(calc, given, 2)
         if any_wrap:
             values = np.where(wraps, values % period, values)
-        for k, name in enumerate(given):
-            outputs[name] = {"value": values[k], "sigma": sigmas[k]}
+        for name, value, sigma in zip(given, values, sigmas):
+            outputs[name] = {"value": value, "sigma": sigma}
+        floats = (given, values[:, 0].tolist(), sigmas[:, 0].tolist())
         # the checks on plain floats: a dozen numbers
-        for name, f0, sigma, wrap in zip(given, values[:, 0].tolist(), sigmas[:, 0].tolist(), wraps[:, 0].tolist()):
+        for name, f0, sigma, wrap in zip(given, floats[1], floats[2], wraps[:, 0].tolist()):
             finite = f0 - f0 == 0
             if not finite:
                 failed.setdefault(0, {}).setdefault("_inputs", []).append(f"these inputs give no finite value of {name}")
@@ -493,7 +497,8 @@ def _linear_one(calc, quantities, statics, options) -> Result:
             warnings.append(_crosses(calc, name, _TRUE))
         if sm[j] != sp[j] and quantities[name].samples is None:
             warnings.append(_asymmetric(name))
-    return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed)
+    return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed,
+                  floats=floats if given else None)
 
 
 LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x perturbations x outputs)

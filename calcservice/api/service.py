@@ -26,7 +26,7 @@ from ..engine import EngineError, Measured, Options, Result, evaluate
 from ..registry import Calculation, calculations
 from ..units import UnitError, factor
 from .problems import Problem, invalid
-from .schemas import RawQuantity, error_messages, request_schema
+from .schemas import RawQuantity, _CheckedField, error_messages, request_schema
 
 MJD_OFFSET = 2400000.5
 
@@ -157,7 +157,8 @@ def _load_fields(schema, body: dict) -> dict | None:
     (an unknown or missing key, a null, a field's error): the schema's full load then says
     what, with every message.  The request schemas have no hooks or schema validators."""
     fields = schema.load_fields
-    if not body.keys() <= fields.keys() or not _required(schema) <= body.keys():
+    required, direct = _field_kinds(schema)
+    if not body.keys() <= fields.keys() or not required <= body.keys():
         return None
     out = {}
     try:
@@ -166,15 +167,22 @@ def _load_fields(schema, body: dict) -> dict | None:
                 value = body[name]
                 if value is None:
                     return None
-                out[name] = f.deserialize(value, name, body, partial=False)
+                # for a field whose checks all live in _deserialize (no validators, no hooks),
+                # _deserialize of a value that is there and not null is deserialize's whole work
+                out[name] = f._deserialize(value, name, body) if name in direct else \
+                    f.deserialize(value, name, body, partial=False)
     except ValidationError:
         return None
     return out
 
 
 @lru_cache(maxsize=None)
-def _required(schema) -> frozenset:
-    return frozenset(name for name, f in schema.load_fields.items() if f.required)
+def _field_kinds(schema) -> tuple[frozenset, frozenset]:
+    """The required fields of a request schema, and those whose deserialize is their _deserialize."""
+    fields = schema.load_fields
+    return (frozenset(name for name, f in fields.items() if f.required),
+            frozenset(name for name, f in fields.items() if isinstance(f, _CheckedField)
+                      and not f.validators and not f.pre_load and not f.post_load))
 
 
 def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
@@ -326,6 +334,15 @@ def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) ->
     names = list(result.outputs)
     out_units, factors = _output_factors(calc, tuple(names), tuple(sorted(units.items())))
     members = [result.outputs[name] for name in names]
+    floats = result.floats
+    if floats is not None and floats[0] == tuple(names) and all(o.keys() == {"value", "sigma"} for o in members):
+        # one system, linear: the engine's numbers as floats already
+        table = []
+        for name, unit, k, value, sigma in zip(names, out_units, factors, floats[1], floats[2]):
+            value, sigma = value * k, sigma * k
+            table.append((name, False, [{"value": value if value - value == 0 else None,      # non-finite: null
+                                         "sigma": sigma if sigma - sigma == 0 else None, "unit": unit}]))
+        return table
     if all(o["value"].shape == (1,) for o in members):
         # one system, no series: every number at once as plain floats, cheaper than any array operation
         numbers = iter(np.concatenate([arr for o in members for arr in o.values()]).tolist())
