@@ -18,7 +18,8 @@ propagation unless it says Monte Carlo):
            hand-derived logarithmic derivatives, on arrays already in memory (the limit);
 * gunicorn ``calcservice serve`` on a free loopback port with 2 workers, a bounded load generator
            (a few threads, one http.client connection each, a fixed number of requests): requests
-           per second of one sb2 request against ``GET /v1/health``;
+           per second of one sb2 request against ``GET /v1/health``, in 16 short alternating runs
+           of each (the order swapped every round), the ratio the median of the 16 per-round ratios;
 * Monte Carlo one sb2 request with 10^5 draws (test client) against the same draws, formulas and
            summaries (median, standard deviation, 68.27 % interval) in bare numpy.
 
@@ -273,7 +274,7 @@ def main(argv=None) -> int:
     quick = args.quick
     repeats = 3 if quick else 5
     n_single, n_rows, n_cols, n_lab = (100, 500, 20_000, 100) if quick else (300, 2000, 100_000, 300)
-    n_http = 300 if quick else 1500
+    n_http, http_rounds = (300, 4) if quick else (500, 16)
 
     app = create_app()
     client = app.test_client()
@@ -347,9 +348,13 @@ def main(argv=None) -> int:
         rates_health, rates_sb2 = [], []
         load(port, "GET", "/v1/health", None, 100, 4)                    # warm both workers
         load(port, "POST", "/v1/spectroscopic/sb2", sb2_body, 100, 4)
-        for _ in range(repeats):                                      # health and sb2 in turn
-            rates_health.append(load(port, "GET", "/v1/health", None, n_http, 4))
-            rates_sb2.append(load(port, "POST", "/v1/spectroscopic/sb2", sb2_body, n_http, 4))
+        # health and sb2 in turn, in short runs (the machine's speed drifts within seconds), the
+        # order swapped every round so that a drift favours neither side
+        for k in range(http_rounds):
+            runs = [("health", "GET", "/v1/health", None), ("sb2", "POST", "/v1/spectroscopic/sb2", sb2_body)]
+            for subject, method, path, data in (runs if k % 2 == 0 else runs[::-1]):
+                rate = load(port, method, path, data, n_http, 4)
+                (rates_health if subject == "health" else rates_sb2).append(rate)
     finally:
         stop_server(proc)
     r_health, r_sb2 = statistics.median(rates_health), statistics.median(rates_sb2)
