@@ -230,8 +230,9 @@ def _evaluate(calc, quantities, statics, options) -> Result:
     result.nominal_inputs = nominal
     if calc.constraints or calc.check is not None:
         args = {i.name: statics.get(i.name, nominal.get(i.name)) for i in calc.inputs}
-        for k, errs in _nominal_failures(calc, args, n).items():
-            result.failed.setdefault(k, {}).update(errs)
+        if calc.constraints:
+            for k, errs in _nominal_failures(calc, args, n).items():
+                result.failed.setdefault(k, {}).update(errs)
         if calc.check is not None:
             nominal_out = {name: o["value"] for name, o in result.outputs.items()}
             result.warnings.extend(calc.check(inputs=args, outputs=nominal_out))

@@ -94,6 +94,11 @@ def _echo_rows(spec, m: Measured, count: int | None = None) -> list[dict]:
     k = len(m.value) if count is None else min(count, len(m.value))
     if m.isotropic:
         return [{"value": "isotropic", "unit": spec.unit} for _ in range(k)]
+    if k == 1 and m.samples is None:         # one system (every single request): no array slices
+        v, lo, hi = m.value.item(0), m.sigma_minus.item(0), m.sigma_plus.item(0)
+        if lo != hi:
+            return [{"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit}]
+        return [{"value": v, "sigma": lo, "unit": spec.unit}]
     values = m.value[:k].tolist()
     if m.samples is not None:
         draws = int(m.samples.shape[1])
