@@ -357,11 +357,12 @@ def _propagate(calc, names, x, spread, st: _Stencil, r, statics, trail):
     return given, f0, _sigmas(calc, given, f0, diff, sides, h, spread, r)
 
 
-def _sigmas(calc, given, f0, diff, sides, h, spread, r) -> np.ndarray:
+def _sigmas(calc, given, f0, diff, sides, h, spread, r, all_uncertain: bool = False) -> np.ndarray:
     """Linear sigmas (outputs, n) + trail from the stencil's differences ``diff`` = f(x + h) -
     f(x - h), (outputs, m, n) + trail, with the steps ``h`` and symmetric sigmas ``spread`` (m, n)
     of the m perturbed inputs and their correlation ``r`` (None: uncorrelated).  ``sides()`` gives
-    f(x - h) and f(x + h) apart, for one-sided differences where a central one is not finite."""
+    f(x - h) and f(x + h) apart, for one-sided differences where a central one is not finite.
+    ``all_uncertain``: the caller knows every spread is > 0 (no exact input to zero out)."""
     nout, m, n = diff.shape[:3]
     ones = (1,) * (diff.ndim - 3)
     period, wraps, any_wrap = _output_periods(calc, given, diff.ndim)
@@ -379,8 +380,8 @@ def _sigmas(calc, given, f0, diff, sides, h, spread, r) -> np.ndarray:
             up, down = np.where(wraps, _wrap(up, period), up), np.where(wraps, _wrap(down, period), down)
         jac = np.where(np.isfinite(jac), jac, np.where(np.isfinite(up), up / h, -down / h))
     sig = spread.reshape((1, m, n) + ones)
-    exact = ~(sig > 0)
-    if exact.any():
+    exact = None if all_uncertain else ~(sig > 0)
+    if exact is not None and exact.any():
         # an exact input in a row does not count, even if its derivative is undefined there
         jac = np.where(exact, 0.0, jac)
     if r is None or np.count_nonzero(r) == m:
@@ -466,12 +467,12 @@ def _linear_one(calc, quantities, statics, options) -> Result:
     failed: dict[int, dict[str, list[str]]] = {}
     if given:
         nout = len(given)
-        y = np.array(list(ys.values())).reshape(nout, p)                           # (outputs, points)
+        y = np.concatenate(list(ys.values())).reshape(nout, p)                     # (outputs, points)
         values = y[:, :1]                                                            # (outputs, 1 system)
         if m:
             diff = (y[:, 1 + m:] - y[:, 1:1 + m])[:, :, None]                       # f(x + h) - f(x - h)
             sigmas = _sigmas(calc, given, values, diff, lambda: (y[:, 1:1 + m, None], y[:, 1 + m:, None]),
-                             np.array(h)[:, None], np.array(spread)[:, None], r)
+                             np.array(h)[:, None], np.array(spread)[:, None], r, min(spread) > 0)
         else:
             sigmas = np.zeros_like(values)
         period, wraps, any_wrap = _output_periods(calc, given, 2)

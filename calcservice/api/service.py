@@ -340,8 +340,8 @@ def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) ->
     out_units, factors = _output_factors(calc, tuple(names), tuple(sorted(units.items())))
     members = [result.outputs[name] for name in names]
     floats = result.floats
-    if floats is not None and floats[0] == tuple(names) and all(o.keys() == {"value", "sigma"} for o in members):
-        # one system, linear: the engine's numbers as floats already
+    if floats is not None and floats[0] == tuple(names):
+        # one system, linear: the engine's numbers (value and sigma of each output) as floats already
         table = []
         for name, unit, k, value, sigma in zip(names, out_units, factors, floats[1], floats[2]):
             value, sigma = value * k, sigma * k
