@@ -465,6 +465,7 @@ def _linear_one(calc, quantities, statics, options) -> Result:
     outputs: dict[str, dict[str, np.ndarray]] = {}
     warnings: list[Warning] = []
     failed: dict[int, dict[str, list[str]]] = {}
+    floats = None
     if given:
         nout = len(given)
         y = np.concatenate(list(ys.values())).reshape(nout, p)                     # (outputs, points)
@@ -499,8 +500,7 @@ def _linear_one(calc, quantities, statics, options) -> Result:
             warnings.append(_crosses(calc, name, _TRUE))
         if sm[j] != sp[j] and quantities[name].samples is None:
             warnings.append(_asymmetric(name))
-    return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed,
-                  floats=floats if given else None)
+    return Result(outputs=outputs, method="linear", warnings=warnings, failed=failed, floats=floats)
 
 
 LINEAR_CHUNK = 2048   # systems per pass of the linear method: its (systems x perturbations x outputs)

@@ -25,6 +25,7 @@ from ..constants import constants_used
 from ..engine import EngineError, Measured, Options, Result, evaluate
 from ..registry import Calculation, calculations
 from ..units import UnitError, factor
+from .edge import dumps
 from .problems import Problem, invalid
 from .schemas import RawQuantity, _CheckedField, error_messages, request_schema
 
@@ -573,34 +574,34 @@ class Rendering:
             return None
         out_units, factors = _output_factors(calc, tuple(names), tuple(sorted(self.parsed.output_units.items())))
         parts = _Template()
-        parts.text(b'{"calculation":' + _encode(calc.name) + b',"results":{')
+        parts.text(b'{"calculation":' + dumps(calc.name) + b',"results":{')
         for i, (name, unit, k) in enumerate(zip(names, out_units, factors)):
             o = result.outputs[name]
-            parts.text((b"," if i else b"") + _encode(name) + b":{")
+            parts.text((b"," if i else b"") + dumps(name) + b":{")
             for j, key in enumerate(["value", *(key for key in o if key != "value")]):
-                parts.text((b"," if j else b"") + _encode(key) + b":")
+                parts.text((b"," if j else b"") + dumps(key) + b":")
                 parts.slot(_number_texts(np.multiply(o[key], k, dtype=float)))     # as output_table converts
-            parts.text(b',"unit":' + _encode(unit) + b"}")
+            parts.text(b',"unit":' + dumps(unit) + b"}")
         parts.text(b'},"uncertainty":')
         if result.method == "linear":
-            parts.text(_encode(uncertainty_for(result, 0)))
+            parts.text(dumps(uncertainty_for(result, 0)))
         else:
-            head = _encode({"method": "monte_carlo", "samples": result.samples, "seed": result.seed})
+            head = dumps({"method": "monte_carlo", "samples": result.samples, "seed": result.seed})
             parts.text(head[:-1] + b',"rejected_fraction":')
-            parts.slot(_number_texts(np.asarray(result.rejected_fraction, dtype=float)))
+            parts.slot(_number_texts(result.rejected_fraction))
             parts.text(b"}")
         parts.text(b',"inputs":')
         self._echo_parts(parts, n)
         parts.text(b',"warnings":')
         if not self.masks or self._kind(0) is None:          # the same warnings for every system
-            parts.text(_encode(self.warnings(0)))
+            parts.text(dumps(self.warnings(0)))
         else:
             encoded: dict[int, bytes] = {}
             for index, kind in enumerate(self._kinds):
                 if kind not in encoded:
-                    encoded[kind] = _encode(self.warnings(index))
+                    encoded[kind] = dumps(self.warnings(index))
             parts.slot([encoded[kind] for kind in self._kinds])
-        parts.text(b',"provenance":' + _encode(self.provenance) + b"}")
+        parts.text(b',"provenance":' + dumps(self.provenance) + b"}")
         return [orjson.Fragment(row) for row in parts.fill(n)]
 
     def _echo_parts(self, parts: "_Template", n: int) -> None:
@@ -621,18 +622,19 @@ class Rendering:
             if columns is not None:
                 parts.text(b"{")
                 for i, (name, e, m) in enumerate(columns):
-                    head = (b"," if i else b"") + _encode(name) + b":"
+                    head = (b"," if i else b"") + dumps(name) + b":"
                     if m is None:
-                        parts.text(head + _encode(e))
+                        parts.text(head + dumps(e))
                         continue
                     parts.text(head + b'{"value":')
                     parts.slot(_number_texts(m.value))
                     parts.text(b',"sigma":')
                     parts.slot(_number_texts(m.sigma_minus))
-                    parts.text(b',"unit":' + _encode(e["unit"]) + b"}")
+                    parts.text(b',"unit":' + dumps(e["unit"]) + b"}")
                 parts.text(b"}")
                 return
-        parts.slot([_encode(parsed.echo_at(index)) for index in range(n)])
+        parts.slot([dumps(parsed.echo_at(index)) for index in range(n)])
+
 
 def respond(calc: Calculation, parsed: Parsed, result: Result, index: int, echo: dict | None = None,
             encoded: bool = False) -> dict:
@@ -659,16 +661,12 @@ class _Template:
         return [self.template % values for values in zip(*self.slots)]
 
 
-def _encode(obj) -> bytes:
-    return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY)     # as .edge.dumps encodes
-
-
 def _number_texts(a: np.ndarray) -> list[bytes]:
     """Each number of a float array as the JSON encoder writes it (non-finite: null), in one call."""
-    return _encode(np.ascontiguousarray(a, dtype=float))[1:-1].split(b",")
+    return dumps(np.ascontiguousarray(a, dtype=float))[1:-1].split(b",")
 
 
 @lru_cache(maxsize=None)
 def _provenance_fragment(calc: Calculation):
     """The provenance of a calculation encoded once, for the responses that go straight to JSON."""
-    return orjson.Fragment(_encode(provenance(calc)))
+    return orjson.Fragment(dumps(provenance(calc)))
