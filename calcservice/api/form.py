@@ -2,7 +2,9 @@
 
 The page, its style sheet and its script ship inside the package (calcservice/static/);
 nothing is loaded from elsewhere, and a strict Content-Security-Policy says so to the
-browser: no inline scripts or styles, no other origins.
+browser: no inline scripts or styles, no other origins.  Images may also be ``blob:`` URLs, the
+page's own copies of the figures it fetched from this service (a Monte Carlo histogram is shown
+as an image so that its SVG keeps its own styles without the page allowing inline styles).
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ from flask import Blueprint, Response, abort
 
 bp = Blueprint("form", __name__)
 
-CONTENT_SECURITY_POLICY = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self'; "
+CONTENT_SECURITY_POLICY = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' blob:; "
                            "connect-src 'self'; object-src 'none'; base-uri 'none'; form-action 'self'; "
                            "frame-ancestors 'none'")
 ASSETS = {

@@ -56,6 +56,75 @@
     return { status: r.status, ok: r.ok, data, ctype };
   }
 
+  // ------------------------------------------------------------------ maths as maths
+  // The declarations write formulas as plain text ("M1 sin^3 i", "(1 - e^2)^{3/2}", "Mdot2", "Gamma_e");
+  // here they become text nodes with real superscripts, subscripts and Greek letters (no HTML parsing).
+  const GREEK = {
+    alpha: "α", beta: "β", gamma: "γ", Gamma: "Γ", delta: "δ", Delta: "Δ", epsilon: "ε", zeta: "ζ", eta: "η",
+    theta: "θ", kappa: "κ", lambda: "λ", mu: "μ", nu: "ν", xi: "ξ", pi: "π", rho: "ρ", sigma: "σ", tau: "τ",
+    phi: "φ", chi: "χ", psi: "ψ", omega: "ω", Omega: "Ω",
+  };
+  const WORDS = { Mdot: "Ṁ", Pdot: "Ṗ", sqrt: "√", sun: "⊙" };
+  const SYMBOLS = [["<=", "≤"], [">=", "≥"], [">~", "≳"], ["<~", "≲"], ["''", "″"], ["+-", "±"]];
+  function mathNodes(text) {
+    const out = [];
+    let plain = "";
+    const flush = () => { if (plain) { out.push(document.createTextNode(plain)); plain = ""; } };
+    let i = 0;
+    const group = (start) => {
+      // the argument of ^ or _: {...} or (...) balanced, else a run of letters/digits (one word)
+      const open = text[start];
+      if (open === "{" || open === "(") {
+        const close = open === "{" ? "}" : ")";
+        let depth = 0;
+        for (let j = start; j < text.length; j++) {
+          if (text[j] === open) depth++;
+          else if (text[j] === close && --depth === 0) return { inner: text.slice(start + 1, j), end: j + 1 };
+        }
+        return null;
+      }
+      const m = text.slice(start).match(/^(-?[0-9.]+|[A-Za-z]+)/);
+      return m ? { inner: m[1], end: start + m[1].length } : null;
+    };
+    while (i < text.length) {
+      const c = text[i];
+      if ((c === "^" || c === "_") && i > 0) {
+        const g = group(i + 1);
+        if (g) {
+          flush();
+          out.push(el(c === "^" ? "sup" : "sub", {}, mathNodes(g.inner)));
+          i = g.end;
+          continue;
+        }
+      }
+      const sym = SYMBOLS.find(([a]) => text.startsWith(a, i));
+      if (sym) { plain += sym[1]; i += sym[0].length; continue; }
+      if (c === "-" && (i === 0 || /[\s({=^]/.test(text[i - 1])) && /[\s\d.(A-Za-z]/.test(text[i + 1] || "")) {
+        plain += "−"; i++; continue;
+      }
+      const prev = i > 0 ? text[i - 1] : " ";
+      if (/[A-Za-z]/.test(c) && !/[A-Za-z0-9_]/.test(prev)) {
+        const m = text.slice(i).match(/^([A-Za-z]+)(\d*)(?![A-Za-z])/);
+        if (m) {
+          const [word, letters, digits] = m;
+          const symbol = GREEK[letters] || WORDS[letters];
+          const short = symbol || letters.length === 1 || letters === "log";
+          plain += symbol || letters;
+          if (digits && short) { flush(); out.push(el("sub", { text: digits })); }
+          else plain += digits;
+          i += word.length;
+          continue;
+        }
+        const w = text.slice(i).match(/^[A-Za-z]+/)[0];   // a word run into digits and letters (e.g. "vink-2001a")
+        plain += w; i += w.length; continue;
+      }
+      plain += c; i++;
+    }
+    flush();
+    return out;
+  }
+  function math(text, cls) { return el("span", { class: "math" + (cls ? " " + cls : ""), title: text }, mathNodes(text)); }
+
   // ------------------------------------------------------------------ numbers for print (PDG rule)
   // The three highest digits of the uncertainty: 100-354 keep two significant digits, 355-949 one,
   // 950-999 round up to 1000 and keep two; the value to the same decimal place.  (The server's report
@@ -209,14 +278,17 @@
       row.append(unit, dl);
     }
     const unitNote = spec.kind === "choice" || !spec.unit ? "" : ` [${spec.unit}]`;
-    row.append(el("p", { class: "desc", id: `desc-${name}`, text: `${spec.description}${unitNote} · ${domainText(spec)}` }));
+    const domain = domainText(spec);
+    row.append(el("p", { class: "desc", id: `desc-${name}` },
+      [math(spec.description), document.createTextNode(`${unitNote}${domain ? " · " + domain : ""}`)]));
     row.append(el("p", { class: "field-error", id: `error-${name}`, hidden: true }));
     return row;
   }
 
   function buildForm(calc) {
     state.calc = calc;
-    $("summary").textContent = calc.summary;
+    clear($("summary"));
+    $("summary").append(math(calc.summary));
     const groups = [];
     for (const g of calc.exactly_one_of || []) groups.push("give exactly one of " + g.join(", "));
     for (const g of calc.at_most_one_of || []) groups.push("at most one of " + g.join(", "));
@@ -226,19 +298,19 @@
     clear(rows);
     for (const spec of calc.inputs) rows.append(inputRow(spec));
     show($("time-format-row"), calc.inputs.some((i) => i.time));
+    show($("observed"), hasCurve(calc));
+    for (const k of ["rv1", "rv2"]) $(`obs-${k}`).value = "";
+    resetCatalogue();
     $("correlations").value = "";
     clearProblem();
-    clear($("results"));
-    clear($("plots"));
-    show($("warnings"), false);
-    show($("report-tools"), false);
+    forgetResults();
     $("status").textContent = "Fill the inputs and press Compute.";
   }
 
-  function selectCalculation(name) {
+  function selectCalculation(name, keepAddress) {
     const calc = state.byName[name] || state.calcs[0];
     $("calculation").value = calc.name;
-    if (location.hash !== "#" + calc.name) history.replaceState(null, "", "#" + calc.name);
+    if (!keepAddress && location.hash !== "#" + calc.name) history.replaceState(null, "", "#" + calc.name);
     buildForm(calc);
   }
 
@@ -299,6 +371,17 @@
       body.uncertainty = unc;
     }
     if (calc.inputs.some((i) => i.time) && $("time_format").value === "mjd") body.time_format = "mjd";
+    if ($("budget").checked) body.budget = true;
+    const observed = {};
+    if (hasCurve(calc)) {
+      for (const key of ["rv1", "rv2"]) {
+        const text = $(`obs-${key}`).value.trim();
+        if (!text) continue;
+        const parsed = parseObserved(text);
+        if (typeof parsed === "string") local[`obs-${key}`] = [parsed];
+        else observed[key] = parsed;
+      }
+    }
     const corr = $("correlations").value.trim();
     if (corr) {
       const list = [];
@@ -309,7 +392,24 @@
       }
       body.correlations = list;
     }
-    return { body, local };
+    return { body, local, observed };
+  }
+
+  // measured radial velocities typed by the visitor: "12.4 ± 0.6, -8.1 +- 0.5, 3.0" (one per time; a
+  // value alone has no error bar; "-" or "nan" keeps a time without a measurement)
+  function parseObserved(text) {
+    const out = [];
+    for (const part of text.split(/[,;\n]+/).map((p) => p.trim()).filter(Boolean)) {
+      if (part === "-" || /^nan$/i.test(part)) { out.push(null); continue; }
+      const m = part.match(new RegExp("^([+-]?" + UNUM + ")(?:\\s*(?:±|\\+-|\\+\\/-)\\s*(" + UNUM + "))?$"));
+      if (!m) return `${part}: write a value, or value ± error (numbers in km/s)`;
+      out.push({ value: Number(m[1]), error: m[2] !== undefined ? Number(m[2]) : 0 });
+    }
+    return out;
+  }
+
+  function hasCurve(calc) {
+    return calc.outputs.some((o) => o.name === "rv1") && calc.inputs.some((i) => i.kind === "series" && i.time);
   }
 
   function clearProblem() {
@@ -319,79 +419,137 @@
     for (const e of document.querySelectorAll("[aria-invalid]")) e.removeAttribute("aria-invalid");
   }
 
-  function showProblem(problem) {
+  // the kind of quantity each canonical unit measures, to say what fits when a unit is refused
+  const UNIT_KINDS = {
+    "d": "time", "km/s": "speed", "deg": "angle", "solMass": "mass", "au": "length", "mas": "angle",
+    "pc": "length", "kpc": "length", "solRad": "length", "solMass/yr": "mass per time", "mJy": "spectral flux density",
+    "GHz": "frequency", "K": "temperature", "s/yr": "time per time",
+  };
+  function unitHint(spec, text) {
+    if (!spec || !spec.unit || !/unit/i.test(text)) return "";
+    const kind = UNIT_KINDS[spec.unit];
+    const fits = (UNIT_SUGGESTIONS[spec.unit] || [spec.unit]).join(", ");
+    return ` Units that fit${kind ? ` (a ${kind})` : ""}: ${fits}, or any astropy unit convertible to ${spec.unit}.`;
+  }
+
+  function showProblem(problem, target) {
+    // the reason in the banner (the problem's detail and each field's message), and each message
+    // again beside its field
     const errors = problem.errors || {};
-    const general = [];
+    const calc = state.calc;
+    const listed = [];
     let first = null;
     for (const [key, messages] of Object.entries(errors)) {
       const base = key.split(".")[0];
-      const text = [].concat(messages).join(" ");
-      const target = $(`error-${base}`);
-      if (target && state.calc.inputs.some((i) => i.name === base)) {
-        target.textContent = key === base ? text : `${key.slice(base.length + 1)}: ${text}`;
-        target.hidden = false;
-        for (const prefix of ["in", "sigma", "unit"]) {
+      const spec = calc ? calc.inputs.find((i) => i.name === base) : null;
+      let text = [].concat(messages).map((m) => (typeof m === "string" ? m : JSON.stringify(m))).join("; ");
+      text += unitHint(spec, text);
+      const where = key === base ? "" : `${key.slice(base.length + 1)}: `;
+      const box = $(`error-${base}`);
+      let control = null;
+      if (box && (spec || ["uncertainty", "correlations", "budget", "obs-rv1", "obs-rv2"].includes(base))) {
+        box.textContent = (box.hidden || !box.textContent ? "" : box.textContent + " ") + where + text;
+        box.hidden = false;
+        control = spec ? $(`in-${base}`) : $({ uncertainty: "samples" }[base] || base);
+        if (spec) for (const prefix of ["in", "sigma", "unit"]) {
           const c = $(`${prefix}-${base}`);
           if (c) c.setAttribute("aria-invalid", "true");
-        }
-        first = first || $(`in-${base}`);
-      } else if (base === "uncertainty" || base === "correlations") {
-        const box = $(`error-${base}`);
-        box.textContent = (box.hidden ? "" : box.textContent + " ") + (key === base ? text : `${key}: ${text}`);
-        box.hidden = false;
-        first = first || $(base === "correlations" ? "correlations" : "samples");
-      } else {
-        general.push(`${key}: ${text}`);
+        } else if (control) control.setAttribute("aria-invalid", "true");
+        first = first || control;
       }
+      listed.push({ key, text, control });
     }
-    const box = $("problem");
+    const box = target || $("problem");
     clear(box);
-    box.append(el("strong", { text: problem.title || "Error" }), document.createTextNode(" " + (problem.detail || "")));
-    if (general.length) box.append(el("ul", {}, general.map((g) => el("li", { text: g }))));
+    const detail = problem.detail || "";
+    box.append(el("strong", { text: problem.title || "Error" }), document.createTextNode(detail ? ": " + detail : ""));
+    if (listed.length) {
+      box.append(el("ul", {}, listed.map(({ key, text, control }) => {
+        const name = control
+          ? el("button", { type: "button", class: "link", text: key, title: `go to ${key}` })
+          : el("code", { text: key });
+        if (control) name.addEventListener("click", () => control.focus());
+        return el("li", {}, [name, document.createTextNode(": " + text)]);
+      })));
+    }
     show(box, true);
-    if (first) first.focus({ preventScroll: false });
+    if (first && !target) first.focus({ preventScroll: false });
+  }
+
+  function forgetResults() {
+    clear($("results"));
+    clear($("plots"));
+    show($("warnings"), false);
+    show($("report-tools"), false);
+    show($("downloads"), false);
+    show($("link-status"), false);
+    state.response = null;
   }
 
   async function compute(event) {
     if (event) event.preventDefault();
     clearProblem();
-    const { body, local } = collect();
+    const { body, local, observed } = collect();
     if (Object.keys(local).length) {
       showProblem({ title: "Invalid input", detail: "fix the marked fields", errors: local });
       $("status").textContent = "Not sent: some fields need fixing.";
       return;
     }
     state.body = body;
+    state.observed = observed;
+    rememberInAddress();
     $("status").textContent = "Computing";
     $("status").classList.add("busy");
     $("compute").disabled = true;
+    document.body.dataset.computed = "false";
     try {
       const r = await request("POST", state.calc.path, body);
       if (!r.ok) {
         const problem = typeof r.data === "object" ? r.data : { title: `HTTP ${r.status}`, detail: String(r.data) };
         showProblem(problem);
-        clear($("results"));
-        clear($("plots"));
-        show($("warnings"), false);
-        show($("report-tools"), false);
+        forgetResults();
         $("status").textContent = `The service refused the request (${r.status}).`;
         return;
       }
       state.response = r.data;
       renderResponse(state.calc, r.data);
-      await drawPlots(state.calc, r.data, body);
+      await drawPlots(state.calc, r.data, body, observed);
     } catch (err) {
       showProblem({ title: "No answer", detail: String(err) });
       $("status").textContent = "The service could not be reached.";
     } finally {
       $("status").classList.remove("busy");
       $("compute").disabled = false;
+      document.body.dataset.computed = "true";
     }
   }
 
   // ------------------------------------------------------------------ results
   function isMeasured(x) {
     return x && typeof x === "object" && "value" in x && "unit" in x && !Array.isArray(x.value) && typeof x.value !== "object";
+  }
+  const finiteNumber = (x) => typeof x === "number" && isFinite(x);
+
+  function valueCell(entry) {
+    // a null sigma (heavy-tailed Monte Carlo draws): the median and its central 68.27 % interval
+    const td = el("td", { class: "value", title: fullPrecision(entry) });
+    if (entry.sigma === null && finiteNumber(entry.low) && finiteNumber(entry.high)) {
+      td.append(document.createTextNode(exact(entry.value, 4) + " "),
+        el("span", { class: "interval", text: `(68.27 % interval ${exact(entry.low, 4)} … ${exact(entry.high, 4)}; sigma undefined)` }));
+      td.dataset.interval = "true";
+    } else td.textContent = measured(entry);
+    return td;
+  }
+
+  function budgetTable(name, budget) {
+    // the shares of the output's variance, largest first; a correlation term ("k1,k2") may be negative
+    const terms = Object.entries(budget).filter(([, v]) => finiteNumber(v)).sort((a, b) => Math.abs(b[1]) - Math.abs(a[1]));
+    const rows = terms.map(([term, share]) => el("tr", { "data-term": term }, [
+      el("td", { text: term.includes(",") ? `${term.replace(",", " × ")} (correlation)` : term }),
+      el("td", { class: "share", text: `${(100 * share).toFixed(Math.abs(share) < 0.001 ? 3 : 1)} %` }),
+    ]));
+    return el("table", { class: "budget", "data-budget": name }, [
+      el("caption", { text: `share of the variance of ${name}` }), el("tbody", {}, rows)]);
   }
 
   function renderResponse(calc, response) {
@@ -405,24 +563,30 @@
     const outputs = Object.fromEntries(calc.outputs.map((o) => [o.name, o]));
     const results = response.results || {};
     const rows = [];
+    const columns = mc ? 5 : 4;
     for (const [name, entry] of Object.entries(results)) {
       if (!isMeasured(entry)) continue;
+      const spec = outputs[name];
+      const desc = el("td", { class: "desc" }, spec ? [math(spec.description)] : []);
+      if (spec && spec.formula) desc.append(math(spec.formula, "formula"));
       const tr = el("tr", { "data-output": name }, [
-        el("td", { class: "name", text: name }),
-        el("td", { class: "value", title: fullPrecision(entry), text: measured(entry) }),
-        el("td", { class: "unit", text: entry.unit || "" }),
-        el("td", { class: "desc", text: outputs[name] ? outputs[name].description : "" }),
-      ]);
-      if (mc) {
-        const b = el("button", { type: "button", class: "histogram", text: "histogram", title: `download the histogram of ${name} (SVG)` });
-        b.addEventListener("click", () => downloadFigure("svg", name));
-        tr.append(el("td", {}, b));
-      }
+        el("td", { class: "name", text: name }), valueCell(entry), el("td", { class: "unit", text: entry.unit || "" }), desc]);
       rows.push(tr);
+      const extra = [];
+      if (entry.budget && typeof entry.budget === "object") extra.push(budgetTable(name, entry.budget));
+      const holder = el("tr", { class: "extra", "data-extra": name, hidden: true }, el("td", { colspan: columns }, extra));
+      if (mc) {
+        const b = el("button", { type: "button", class: "histogram", text: "histogram", "aria-expanded": "false",
+          title: `show the histogram of the Monte Carlo draws of ${name}` });
+        b.addEventListener("click", () => toggleHistogram(name, b, holder));
+        tr.append(el("td", { class: "hist" }, b));
+      }
+      show(holder, extra.length > 0);
+      rows.push(holder);
     }
     if (rows.length) {
       const head = el("tr", {}, ["result", "value", "unit", "description"].concat(mc ? [""] : []).map((h) => el("th", { text: h })));
-      out.append(el("table", { class: "results", id: "results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
+      out.append(el("table", { class: "results cards", id: "results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
     if (results.series) out.append(seriesTable(results.series));
     for (const [key, member] of Object.entries(results)) {
@@ -435,13 +599,92 @@
       warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" " + w.message)]));
     }
     show(warnings, (response.warnings || []).length > 0);
+    show($("downloads"), true);
+    show($("link-status"), false);
     show($("report-tools"), true);
     show($("report"), false);
     $("copy-report").disabled = true;
     show($("copy-status"), false);
-    const figures = calc.outputs.some((o) => o.name === "rv1") && calc.inputs.some((i) => i.kind === "series");
+    const figures = hasCurve(calc);
     show($("figure-svg"), figures);
     show($("figure-png"), figures);
+  }
+
+  async function toggleHistogram(name, button, holder) {
+    // the service's SVG of the draws, shown in place under the output's row
+    const shown = holder.querySelector("figure.histogram");
+    if (shown) {
+      shown.remove();
+      button.setAttribute("aria-expanded", "false");
+      button.textContent = "histogram";
+      show(holder, holder.querySelector("td").childNodes.length > 0);
+      return;
+    }
+    button.disabled = true;
+    try {
+      const r = await request("POST", state.calc.path, state.body, { format: "svg", plot: name });
+      if (!r.ok) { showProblem(typeof r.data === "object" ? r.data : { title: "Error", detail: String(r.data) }); return; }
+      const blob = r.data instanceof Blob ? r.data : new Blob([r.data], { type: "image/svg+xml" });
+      const url = URL.createObjectURL(blob);
+      const img = el("img", { src: url, alt: `histogram of the Monte Carlo draws of ${name}`, "data-plot": name });
+      const save = el("button", { type: "button", text: "download (SVG)" });
+      save.addEventListener("click", () => saveBlob(blob, `${state.calc.name}-${name}.svg`));
+      holder.querySelector("td").append(el("figure", { class: "histogram", id: `histogram-${name}` }, [img,
+        el("figcaption", {}, [document.createTextNode(`Monte Carlo draws of ${name}: the median and the central 68.27 % interval marked. `), save])]));
+      show(holder, true);
+      button.setAttribute("aria-expanded", "true");
+      button.textContent = "hide";
+    } finally {
+      button.disabled = false;
+    }
+  }
+
+  function saveBlob(blob, filename) {
+    const url = URL.createObjectURL(blob);
+    const a = el("a", { href: url, download: filename });
+    document.body.append(a);
+    a.click();
+    a.remove();
+    setTimeout(() => URL.revokeObjectURL(url), 10000);
+  }
+
+  // ------------------------------------------------------------------ downloads: the answer as JSON and CSV
+  function csvCell(x) {
+    if (x === null || x === undefined) return "";
+    const t = String(x);
+    return /[",\n\r]/.test(t) ? `"${t.replace(/"/g, '""')}"` : t;
+  }
+  function csvText(rows) { return rows.map((r) => r.map(csvCell).join(",")).join("\r\n") + "\r\n"; }
+
+  function resultsCsv(response) {
+    // one line per single-valued output (value, sigma, low, high, unit); a series follows as its own table
+    const rows = [["output", "value", "sigma", "low", "high", "unit"]];
+    const results = response.results || {};
+    for (const [name, e] of Object.entries(results)) {
+      if (isMeasured(e)) rows.push([name, e.value, e.sigma, e.low, e.high, e.unit]);
+    }
+    let text = csvText(rows);
+    if (results.series) {
+      const names = Object.keys(results.series).filter((k) => Array.isArray((results.series[k] || {}).value));
+      const head = [], cols = [];
+      for (const k of names) {
+        const s = results.series[k];
+        head.push(s.unit ? `${k}[${s.unit}]` : k); cols.push(s.value);
+        for (const m of ["sigma", "low", "high"]) if (Array.isArray(s[m])) { head.push(`${k}_${m}`); cols.push(s[m]); }
+      }
+      const n = Math.max(0, ...cols.map((c) => c.length));
+      const lines = [head];
+      for (let i = 0; i < n; i++) lines.push(cols.map((c) => c[i]));
+      text += "\r\n" + csvText(lines);
+    }
+    return text;
+  }
+
+  function downloadResults(kind) {
+    if (!state.response) return;
+    const name = state.calc.name;
+    if (kind === "json") saveBlob(new Blob([JSON.stringify(state.response, null, 2) + "\n"], { type: "application/json" }), `${name}-results.json`);
+    else saveBlob(new Blob([resultsCsv(state.response)], { type: "text/csv" }), `${name}-results.csv`);
   }
 
   function seriesTable(series) {
@@ -484,29 +727,31 @@
     return e && typeof e.value === "number" && isFinite(e.value) ? e.value : null;
   }
 
-  function denseTimes(times, period, t0, ecc) {
+  // The dense curves: one cycle evenly spaced in eccentric anomaly (a quick periastron passage is as
+  // well sampled as the slow apastron) for the phase plot, and the span of the requested times for the
+  // date plot (while it covers few enough cycles for a curve to be readable).
+  const MAX_CYCLES_BY_DATE = 12;
+  function denseGrids(times, period, t0, ecc) {
     const lo = Math.min(...times), hi = Math.max(...times);
     if (!(period > 0)) {
       const pad = Math.max(hi - lo, 1) * 0.05;
-      return { grid: linspace(lo - pad, hi + pad, 800), mode: "time" };
+      return { phase: [], date: linspace(lo - pad, hi + pad, 800) };
     }
     t0 = t0 === null ? lo : t0;
     const e = Math.min(Math.max(ecc || 0, 0), 0.999);
-    // points evenly spaced in eccentric anomaly sample a quick periastron passage as well as apastron
     const atE = (cycle, E) => t0 + period * (cycle + (E - e * Math.sin(E)) / (2 * Math.PI));
-    if (hi - lo > 3 * period) {
-      return { grid: linspace(0, 2 * Math.PI, 481).map((E) => atE(0, E)), mode: "phase" };
-    }
+    const phase = linspace(0, 2 * Math.PI, 361).map((E) => atE(0, E));
     let a = lo, b = hi;
     if (b - a < period) { const mid = (a + b) / 2; a = mid - period / 2; b = mid + period / 2; }
     else { const pad = 0.03 * (b - a); a -= pad; b += pad; }
-    const grid = [];
+    if ((b - a) / period > MAX_CYCLES_BY_DATE) return { phase, date: [] };
+    const date = [];
     for (let c = Math.floor((a - t0) / period); c <= Math.ceil((b - t0) / period); c++) {
-      for (const E of linspace(0, 2 * Math.PI, 360, false)) { const t = atE(c, E); if (t >= a && t <= b) grid.push(t); }
+      for (const E of linspace(0, 2 * Math.PI, 180, false)) { const t = atE(c, E); if (t >= a && t <= b) date.push(t); }
     }
-    for (const t of linspace(a, b, 200)) grid.push(t);
-    grid.sort((x, y) => x - y);
-    return { grid, mode: "time" };
+    for (const t of linspace(a, b, 100)) date.push(t);
+    date.sort((x, y) => x - y);
+    return { phase, date };
   }
   function linspace(a, b, n, endpoint = true) {
     const out = [];
@@ -529,9 +774,18 @@
     return b;
   }
 
-  async function drawPlots(calc, response, body) {
+  function pick(series, indices) {
+    const out = {};
+    for (const [k, s] of Object.entries(series)) if (s && Array.isArray(s.value)) out[k] = { unit: s.unit, value: indices.map((i) => s.value[i]) };
+    return out;
+  }
+
+  async function drawPlots(calc, response, body, observed) {
     const box = $("plots");
     clear(box);
+    // figures drawn at the width they are shown at (text stays readable on a phone), 300-640 units
+    const W = Math.round(Math.min(640, Math.max(300, box.clientWidth || 640)));
+    const H = Math.max(240, Math.round(W * 0.53));
     const series = (response.results || {}).series;
     const timeInput = calc.inputs.find((i) => i.kind === "series" && i.time);
     if (!series || !timeInput || !series.rv1) return;
@@ -541,51 +795,86 @@
     const times = series[key].value;
     const inputs = response.inputs || {};
     const period = value(inputs, "period");
-    const { grid, mode } = denseTimes(times, period, value(inputs, "t_periastron"), value(inputs, "eccentricity"));
-    const r = await request("POST", calc.path, nominalBody(calc, response, grid, body));
+    const grids = denseGrids(times, period, value(inputs, "t_periastron"), value(inputs, "eccentricity"));
+    const r = await request("POST", calc.path, nominalBody(calc, response, grids.phase.concat(grids.date), body));
     if (!r.ok || !r.data.results || !r.data.results.series) return;
-    const dense = r.data.results.series;
-    let xDense, xPoints, xlabel, xlim = null;
-    if (mode === "phase") {
-      const order = dense.phase.value.map((p, i) => [p, i]).sort((a, b) => a[0] - b[0]).map((x) => x[1]);
-      for (const k of Object.keys(dense)) dense[k].value = order.map((i) => dense[k].value[i]);
-      xDense = dense.phase.value;
-      xPoints = series.phase.value;
-      xlabel = "orbital phase since periastron";
-      xlim = [0, 1];
-    } else {
-      const offset = Math.min(...grid) > 1e5 ? Math.floor(Math.min(...grid) / 1e4) * 1e4 : 0;
-      xDense = dense[key].value.map((t) => t - offset);
-      xPoints = times.map((t) => t - offset);
-      xlabel = offset ? `JD − ${offset} [d]` : "JD [d]";
-    }
-    const lines = [], points = [];
-    ["rv1", "rv2"].forEach((key, k) => {
-      if (!dense[key] || !series[key]) return;
-      const cls = `star${k + 1}`;
-      lines.push({ x: xDense, y: dense[key].value, cls, label: `star ${k + 1} (${key})` });
-      points.push({ x: xPoints, y: series[key].value, err: errorsOf(series[key]), cls, label: `requested (${key})` });
-    });
+    const all = r.data.results.series;
+    const nPhase = grids.phase.length;
+    const byPhase = pick(all, grids.phase.map((_, i) => i));
+    const byDate = pick(all, grids.date.map((_, i) => nPhase + i));
     const rvUnit = series.rv1.unit || "";
     const gamma = value(inputs, "gamma");
     const hlines = gamma !== null && !inputs.gamma.default && (inputs.gamma.unit || rvUnit) === rvUnit ? [{ y: gamma, cls: "gamma", label: "systemic velocity" }] : [];
-    const fig1 = chart({ width: 640, height: 360, xlabel, ylabel: `radial velocity [${rvUnit}]`, lines, points, hlines, xlim,
-      title: "radial velocities (positive receding)", id: "rv-plot" });
-    box.append(el("figure", { class: "wide" }, [fig1, el("figcaption", { text: `${calc.title}: curves from the nominal elements; points at the requested times with their 1σ errors.` })]));
+    // the visitor's measured velocities at the requested times, and their residuals from the model there
+    const measuredRv = {}, residuals = {};
+    for (const k of ["rv1", "rv2"]) {
+      if (!observed || !observed[k] || !series[k]) continue;
+      measuredRv[k] = observed[k];
+      residuals[k] = times.map((_, i) => (observed[k][i] && finiteNumber(series[k].value[i]) ? observed[k][i].value - series[k].value[i] : null));
+    }
+    const layers = (x, xPoints, dense) => {
+      const lines = [], points = [];
+      ["rv1", "rv2"].forEach((k, n) => {
+        if (!series[k]) return;
+        const cls = `star${n + 1}`;
+        if (dense[k]) lines.push({ x, y: dense[k].value, cls, label: `star ${n + 1} (${k})` });
+        if (measuredRv[k]) {
+          points.push({ x: xPoints, y: measuredRv[k].map((m) => (m ? m.value : null)), err: measuredRv[k].map((m) => (m ? [m.error, m.error] : null)),
+            cls: `${cls} measured`, label: `measured (${k})` });
+        } else points.push({ x: xPoints, y: series[k].value, err: errorsOf(series[k]), cls, label: `at the times (${k})` });
+      });
+      return { lines, points };
+    };
+    const caption = Object.keys(measuredRv).length
+      ? `${calc.title}: radial velocities (positive receding), curves from the nominal elements; points are the measured velocities with their errors.`
+      : `${calc.title}: radial velocities (positive receding), curves from the nominal elements; points at the requested times with their 1σ errors.`;
+    const phaseOf = (t) => (period > 0 ? (((t - (value(inputs, "t_periastron") ?? Math.min(...times))) / period) % 1 + 1) % 1 : null);
+    if (nPhase && byPhase.phase) {
+      const order = byPhase.phase.value.map((p, i) => [p, i]).sort((a, b) => a[0] - b[0]).map((x) => x[1]);
+      const sorted = pick(byPhase, order);
+      const xPoints = series.phase ? series.phase.value : times.map(phaseOf);
+      const { lines, points } = layers(sorted.phase.value, xPoints, sorted);
+      const fig = chart({ width: W, height: H, xlabel: "orbital phase since periastron", ylabel: `radial velocity [${rvUnit}]`,
+        lines, points, hlines, xlim: [0, 1], title: "radial velocities by phase", id: "rv-phase-plot" });
+      box.append(el("figure", { class: "wide" }, [fig, el("figcaption", { text: caption })]));
+      if (Object.keys(residuals).length) box.append(residualFigure("rv-residuals-phase", W, xPoints, residuals, rvUnit, "orbital phase since periastron", [0, 1]));
+    }
+    if (grids.date.length && byDate[key]) {
+      const offset = Math.min(...grids.date) > 1e5 ? Math.floor(Math.min(...grids.date) / 1e4) * 1e4 : 0;
+      const x = byDate[key].value.map((t) => t - offset);
+      const xPoints = times.map((t) => t - offset);
+      const xlabel = offset ? `JD − ${offset} [d]` : "JD [d]";
+      const { lines, points } = layers(x, xPoints, byDate);
+      const fig = chart({ width: W, height: H, xlabel, ylabel: `radial velocity [${rvUnit}]`, lines, points, hlines,
+        title: "radial velocities by date", id: "rv-plot" });
+      box.append(el("figure", { class: "wide" }, [fig, el("figcaption", { text: caption })]));
+      if (Object.keys(residuals).length) box.append(residualFigure("rv-residuals", W, xPoints, residuals, rvUnit, xlabel, null));
+    } else if (period > 0) {
+      box.append(el("p", { class: "hint", text: `The times span more than ${MAX_CYCLES_BY_DATE} periods: the curve is drawn by phase only.` }));
+    }
+    const dense = byDate.projected_separation ? byDate : byPhase;
     if (dense.position_angle && dense.projected_separation && series.position_angle && series.projected_separation) {
       const sky = (s) => s.projected_separation.value.map((rho, i) => {
         const pa = (s.position_angle.value[i] * Math.PI) / 180;
         return [rho * Math.sin(pa), rho * Math.cos(pa)];
       });
-      const d = sky(dense), p = sky(series);
+      const d = sky(byPhase.projected_separation ? byPhase : dense), p = sky(series);
       const unit = dense.projected_separation.unit || "";
-      const fig2 = chart({ width: 360, height: 360, xlabel: `east offset [${unit}]`, ylabel: `north offset [${unit}]`,
+      const fig2 = chart({ width: Math.min(W, 360), height: Math.min(W, 360), xlabel: `east offset [${unit}]`, ylabel: `north offset [${unit}]`,
         lines: [{ x: d.map((q) => q[0]), y: d.map((q) => q[1]), cls: "sky", label: "star 2 about star 1" }],
         points: [{ x: p.map((q) => q[0]), y: p.map((q) => q[1]), cls: "sky", label: "requested" }],
-        marks: periastronMark(dense, d),
+        marks: periastronMark(byPhase.projected_separation ? byPhase : dense, d),
         origin: true, invertX: true, equal: true, title: "relative orbit (north up, east left)", id: "orbit-plot" });
       box.append(el("figure", { class: "square" }, [fig2, el("figcaption", { text: "Star 2 relative to star 1 on the sky; the square marks periastron." })]));
     }
+  }
+
+  function residualFigure(id, W, x, residuals, unit, xlabel, xlim) {
+    const points = Object.entries(residuals).map(([k, y]) => ({ x, y, cls: k === "rv1" ? "star1 measured" : "star2 measured", label: `measured − model (${k})`,
+      err: (state.observed[k] || []).map((m) => (m ? [m.error, m.error] : null)) }));
+    const fig = chart({ width: W, height: 190, xlabel, ylabel: `O − C [${unit}]`, lines: [], points, xlim,
+      hlines: [{ y: 0, cls: "gamma", label: "model" }], title: "residuals", id });
+    return el("figure", { class: "residuals" }, [fig]);
   }
 
   function periastronMark(dense, sky) {
@@ -755,6 +1044,343 @@
     setTimeout(() => URL.revokeObjectURL(url), 10000);
   }
 
+  // ------------------------------------------------------------------ a catalogue from a file
+  // A CSV (header NAME or NAME[unit]) or ECSV file (units from its YAML header) becomes the JSON columns
+  // body of POST v1/batch/<name>; the answer is shown row by row and can be saved as CSV.
+  const PREVIEW_ROWS = 10;
+  const SHOWN_ROWS = 500;
+
+  function splitLine(line, delimiter) {
+    // one line of delimited text; double quotes group (and "" is a quote); a space delimiter is any run of blanks
+    const cells = [];
+    let cell = "", quoted = false, had = false, i = 0;
+    const push = () => { cells.push(had ? cell : cell.trim() === "" ? null : cell.trim()); cell = ""; had = false; };
+    while (i < line.length) {
+      const c = line[i];
+      if (quoted) {
+        if (c === '"' && line[i + 1] === '"') { cell += '"'; i += 2; continue; }
+        if (c === '"') { quoted = false; i++; continue; }
+        cell += c; i++; continue;
+      }
+      if (c === '"') { quoted = true; had = true; i++; continue; }
+      if (delimiter === " " ? /\s/.test(c) : c === delimiter) {
+        if (delimiter === " ") { if (cell !== "" || had) push(); while (/\s/.test(line[i] || "x")) i++; continue; }
+        push(); i++; continue;
+      }
+      cell += c; i++;
+    }
+    if (delimiter !== " " || cell !== "" || had) push();
+    return cells.map((x) => (x === "" ? null : x));
+  }
+
+  function ecsvHeader(lines) {
+    // the units (and the delimiter) from an ECSV header's "datatype" list, in flow or block style
+    const yaml = lines.map((l) => l.replace(/^#\s?/, ""));
+    const units = {};
+    let delimiter = " ", current = null, inTypes = false;
+    const unquote = (v) => v.trim().replace(/^['"](.*)['"]$/, "$1");
+    for (const line of yaml) {
+      const d = line.match(/^delimiter:\s*(.+)$/);
+      if (d) { delimiter = unquote(d[1]) || " "; continue; }
+      if (/^datatype:\s*$/.test(line)) { inTypes = true; continue; }
+      if (inTypes && /^\S/.test(line) && !line.startsWith("-")) inTypes = false;
+      if (!inTypes) continue;
+      const flow = line.match(/^\s*-\s*\{(.*)\}\s*$/);
+      if (flow) {
+        const entry = {};
+        for (const part of flow[1].split(/,(?![^{]*\})/)) {
+          const kv = part.match(/^\s*([\w]+)\s*:\s*(.*)$/);
+          if (kv) entry[kv[1]] = unquote(kv[2]);
+        }
+        if (entry.name) units[entry.name] = entry.unit || "";
+        current = null;
+        continue;
+      }
+      const item = line.match(/^\s*-\s*([\w]+)\s*:\s*(.*)$/);
+      const more = line.match(/^\s+([\w]+)\s*:\s*(.*)$/);
+      if (item) { current = {}; current[item[1]] = unquote(item[2]); }
+      else if (more && current) current[more[1]] = unquote(more[2]);
+      if (current && current.name) units[current.name] = current.unit || units[current.name] || "";
+    }
+    return { units, delimiter };
+  }
+
+  function parseTable(text) {
+    const lines = text.replace(/^\uFEFF/, "").split(/\r?\n/);
+    const ecsv = /^#\s*%ECSV/.test(lines[0] || "");
+    const comments = lines.filter((l) => l.startsWith("#"));
+    const body = lines.filter((l) => !l.startsWith("#") && l.trim() !== "");
+    if (!body.length) return { error: "the file has no header line" };
+    let units = {}, delimiter = ",";
+    if (ecsv) ({ units, delimiter } = ecsvHeader(comments));
+    const header = splitLine(body[0], delimiter).map((h) => h || "");
+    const columns = header.map((h) => {
+      const m = h.match(/^\s*([^[\]]+?)\s*\[\s*([^\]]*?)\s*\]\s*$/);
+      const name = m ? m[1] : h.trim();
+      return { label: h, name, unit: m ? m[2] : units[name] };
+    });
+    const rows = body.slice(1).map((l) => splitLine(l, delimiter));
+    const bad = rows.findIndex((r) => r.length !== columns.length);
+    if (bad >= 0) return { error: `line ${bad + 2} of the table has ${rows[bad].length} cells for ${columns.length} columns` };
+    return { ecsv, columns, rows };
+  }
+
+  function cellValue(x) {
+    if (x === null || x === undefined) return null;
+    return NUMBER.test(x) ? Number(x) : /^nan$/i.test(x) ? null : x;
+  }
+
+  function catalogueBody(calc, table) {
+    // the JSON columns body: NAME (value), NAME_sigma / NAME_sigma_minus / NAME_sigma_plus, units per column
+    const inputs = Object.fromEntries(calc.inputs.map((i) => [i.name, i]));
+    const columns = {}, ignored = [], problems = [];
+    const col = (k) => table.rows.map((r) => cellValue(r[k]));
+    table.columns.forEach((c, k) => {
+      if (inputs[c.name]) {
+        columns[c.name] = Object.assign(columns[c.name] || {}, { value: col(k) });
+        if (c.unit) columns[c.name].unit = c.unit;
+        return;
+      }
+      const m = c.name.match(/^(.+)_(sigma|sigma_minus|sigma_plus)$/);
+      if (m && inputs[m[1]]) {
+        columns[m[1]] = Object.assign(columns[m[1]] || {}, { [m[2]]: col(k) });
+        if (c.unit) columns[m[1]][`${m[2]}_unit`] = c.unit;
+        return;
+      }
+      ignored.push(c.name);
+    });
+    for (const [name, c] of Object.entries(columns)) {
+      for (const part of ["sigma", "sigma_minus", "sigma_plus"]) {
+        const u = c[`${part}_unit`];
+        delete c[`${part}_unit`];
+        if (u !== undefined && u !== (c.unit || inputs[name].unit || "")) problems.push(`${name}_${part} is in ${u}: give it in the unit of ${name} (${c.unit || inputs[name].unit})`);
+      }
+      if (!c.value) problems.push(`${name}: a sigma column without the column ${name}`);
+    }
+    const body = { columns };
+    const { body: options } = collect();
+    for (const k of ["uncertainty", "correlations", "time_format"]) if (options[k]) body[k] = options[k];
+    return { body, ignored, problems };
+  }
+
+  function resetCatalogue() {
+    state.catalogue = null;
+    clear($("catalogue-preview"));
+    clear($("catalogue-results"));
+    show($("catalogue-problem"), false);
+    $("catalogue-compute").disabled = true;
+    $("catalogue-download").disabled = true;
+    $("catalogue-file").value = "";
+    $("catalogue-status").textContent = state.calc ? `For ${state.calc.title} (${state.calc.name}): its inputs are ${state.calc.inputs.map((i) => i.name).join(", ")}.` : "";
+  }
+
+  function unitLabel(unit) { return unit === undefined ? "" : ` [${unit || "dimensionless"}]`; }
+
+  async function readCatalogue(file) {
+    resetCatalogue();
+    const text = await file.text();
+    const table = parseTable(text);
+    if (table.error) {
+      showProblem({ title: "Cannot read the file", detail: `${file.name}: ${table.error}` }, $("catalogue-problem"));
+      return;
+    }
+    const inputs = Object.fromEntries(state.calc.inputs.map((i) => [i.name, i]));
+    const { body, ignored, problems } = catalogueBody(state.calc, table);
+    state.catalogue = { file: file.name, table, body };
+    const head = el("tr", {}, [el("th", { text: "#" })].concat(table.columns.map((c) => {
+      const stem = c.name.replace(/_sigma(_minus|_plus)?$/, "");
+      const unit = c.unit !== undefined ? c.unit : inputs[stem] ? inputs[stem].unit : undefined;
+      return el("th", { "data-column": c.name }, [document.createTextNode(c.name),
+        el("span", { class: "unit", text: unitLabel(unit) + (c.unit === undefined && unit !== undefined ? " (default)" : "") })]);
+    })));
+    const rows = table.rows.slice(0, PREVIEW_ROWS).map((r, i) => el("tr", {}, [el("td", { text: String(i + 1) })]
+      .concat(r.map((x) => el("td", { text: x === null ? "—" : x })))));
+    $("catalogue-preview").append(el("h3", { text: `${file.name}: the first ${Math.min(PREVIEW_ROWS, table.rows.length)} of ${table.rows.length} rows, as read` }),
+      el("table", { class: "catalogue", id: "catalogue-preview-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
+    const notes = [`${table.rows.length} systems, ${table.ecsv ? "ECSV (units from its header)" : "CSV"}.`];
+    if (ignored.length) notes.push(`Columns that are not inputs of ${state.calc.name}, left out: ${ignored.join(", ")}.`);
+    $("catalogue-status").textContent = notes.join(" ");
+    if (problems.length) {
+      showProblem({ title: "Cannot send this table", detail: problems.join("; ") }, $("catalogue-problem"));
+      return;
+    }
+    $("catalogue-compute").disabled = table.rows.length === 0;
+  }
+
+  function rowErrorText(problem) {
+    const fields = Object.entries(problem.errors || {}).map(([k, v]) => `${k}: ${[].concat(v).join(" ")}`);
+    return fields.length ? fields.join("; ") : problem.detail || problem.title || "error";
+  }
+
+  async function computeCatalogue() {
+    const cat = state.catalogue;
+    if (!cat) return;
+    show($("catalogue-problem"), false);
+    clear($("catalogue-results"));
+    $("catalogue-compute").disabled = true;
+    $("catalogue-status").textContent = `Computing ${cat.table.rows.length} systems…`;
+    try {
+      const r = await request("POST", `v1/batch/${state.calc.name}`, catalogueBody(state.calc, cat.table).body);
+      if (!r.ok) {
+        showProblem(typeof r.data === "object" ? r.data : { title: `HTTP ${r.status}`, detail: String(r.data) }, $("catalogue-problem"));
+        $("catalogue-status").textContent = `The service refused the table (${r.status}).`;
+        return;
+      }
+      cat.answer = r.data;
+      renderCatalogue(cat);
+    } catch (err) {
+      showProblem({ title: "No answer", detail: String(err) }, $("catalogue-problem"));
+    } finally {
+      $("catalogue-compute").disabled = false;
+    }
+  }
+
+  function catalogueRows(answer) {
+    // per row: its problem (if any) and its warning codes
+    const n = answer.count;
+    const errors = new Array(n).fill(null), warnings = Array.from({ length: n }, () => []);
+    for (const e of answer.errors || []) errors[e.index] = e;
+    for (const w of answer.warnings || []) for (const i of w.rows || []) if (warnings[i] && !warnings[i].includes(w.code)) warnings[i].push(w.code);
+    return { errors, warnings };
+  }
+
+  function renderCatalogue(cat) {
+    const answer = cat.answer;
+    const cols = answer.columns || {};
+    const names = Object.keys(cols).filter((k) => cols[k] && Array.isArray(cols[k].value) && !Array.isArray(cols[k].value[0]));
+    const { errors, warnings } = catalogueRows(answer);
+    const head = el("tr", {}, [el("th", { text: "#" })].concat(names.map((k) => el("th", {}, [document.createTextNode(k),
+      el("span", { class: "unit", text: unitLabel(cols[k].unit) })])), [el("th", { text: "error" }), el("th", { text: "warnings" })]));
+    const rows = [];
+    for (let i = 0; i < Math.min(answer.count, SHOWN_ROWS); i++) {
+      const cells = [el("td", { text: String(i + 1) })];
+      for (const k of names) {
+        const entry = { value: cols[k].value[i] };
+        for (const m of ["sigma", "low", "high"]) if (Array.isArray(cols[k][m])) entry[m] = cols[k][m][i];
+        cells.push(el("td", { title: entry.value === null ? "" : fullPrecision(entry), text: entry.value === null ? "" : measured(entry) }));
+      }
+      cells.push(el("td", { class: "row-error", text: errors[i] ? `${errors[i].status}: ${rowErrorText(errors[i])}` : "" }));
+      cells.push(el("td", { text: warnings[i].join("; ") }));
+      rows.push(el("tr", { class: errors[i] ? "failed" : "", "data-row": i }, cells));
+    }
+    const failed = errors.filter(Boolean).length;
+    $("catalogue-results").append(el("h3", { text: `Results: ${answer.count - failed} of ${answer.count} systems answered` + (failed ? `, ${failed} refused (their reasons in the error column)` : "") }),
+      el("table", { class: "catalogue", id: "catalogue-results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
+    if (answer.count > SHOWN_ROWS) $("catalogue-results").append(el("p", { class: "hint", text: `The first ${SHOWN_ROWS} rows are shown; the download has them all.` }));
+    const unc = answer.uncertainty || {};
+    $("catalogue-status").textContent = `${cat.file}: ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples} draws, seed ${unc.seed})` : "linear propagation"}.`;
+    $("catalogue-download").disabled = false;
+  }
+
+  function catalogueCsv(answer) {
+    // the answer table: NAME[unit], NAME_sigma (Monte Carlo: NAME_low, NAME_high), error_status, error, warnings
+    const cols = answer.columns || {};
+    const names = Object.keys(cols).filter((k) => cols[k] && Array.isArray(cols[k].value) && !Array.isArray(cols[k].value[0]));
+    const head = [], data = [];
+    for (const k of names) {
+      head.push(cols[k].unit ? `${k}[${cols[k].unit}]` : k); data.push(cols[k].value);
+      for (const m of ["sigma", "low", "high"]) if (Array.isArray(cols[k][m])) { head.push(`${k}_${m}`); data.push(cols[k][m]); }
+    }
+    const { errors, warnings } = catalogueRows(answer);
+    head.push("error_status", "error", "warnings");
+    const lines = [head];
+    for (let i = 0; i < answer.count; i++) {
+      lines.push(data.map((c) => c[i]).concat([errors[i] ? errors[i].status : "", errors[i] ? rowErrorText(errors[i]) : "", warnings[i].join(";")]));
+    }
+    return csvText(lines);
+  }
+
+  function wireCatalogue() {
+    const zone = $("dropzone");
+    $("catalogue-file").addEventListener("change", (e) => { if (e.target.files[0]) readCatalogue(e.target.files[0]); });
+    zone.addEventListener("dragover", (e) => { e.preventDefault(); zone.classList.add("over"); });
+    zone.addEventListener("dragleave", () => zone.classList.remove("over"));
+    zone.addEventListener("drop", (e) => {
+      e.preventDefault();
+      zone.classList.remove("over");
+      if (e.dataTransfer.files[0]) readCatalogue(e.dataTransfer.files[0]);
+    });
+    $("catalogue-compute").addEventListener("click", computeCatalogue);
+    $("catalogue-download").addEventListener("click", () => {
+      if (state.catalogue && state.catalogue.answer) {
+        saveBlob(new Blob([catalogueCsv(state.catalogue.answer)], { type: "text/csv" }), `${state.calc.name}-${state.catalogue.file.replace(/\.\w+$/, "")}-results.csv`);
+      }
+    });
+  }
+
+  // ------------------------------------------------------------------ the computation in the address
+  // "#sb2?period=41.6&period.sigma=0.02&period.unit=d&uncertainty=monte_carlo&samples=400&seed=3": the
+  // fields as typed (a link reproduces the form and, opened, computes it again)
+  function formState() {
+    const q = new URLSearchParams();
+    for (const spec of state.calc.inputs) {
+      const v = $(`in-${spec.name}`).value.trim();
+      if (v) q.set(spec.name, v);
+      for (const part of ["sigma", "unit"]) {
+        const c = $(`${part}-${spec.name}`);
+        if (c && c.value.trim()) q.set(`${spec.name}.${part}`, c.value.trim());
+      }
+    }
+    if ($("method-mc").checked) {
+      q.set("uncertainty", "monte_carlo");
+      if ($("samples").value.trim()) q.set("samples", $("samples").value.trim());
+      if ($("seed").value.trim()) q.set("seed", $("seed").value.trim());
+    }
+    if ($("correlations").value.trim()) q.set("correlations", $("correlations").value.trim());
+    if (!$("time-format-row").hidden && $("time_format").value !== "jd") q.set("time_format", $("time_format").value);
+    if ($("budget").checked) q.set("budget", "1");
+    if (hasCurve(state.calc)) for (const k of ["rv1", "rv2"]) if ($(`obs-${k}`).value.trim()) q.set(`observed.${k}`, $(`obs-${k}`).value.trim());
+    return q;
+  }
+
+  function rememberInAddress() {
+    const hash = `#${state.calc.name}?${formState().toString()}`;
+    if (location.hash !== hash) history.replaceState(null, "", hash);
+  }
+
+  function applyState(q) {
+    for (const spec of state.calc.inputs) {
+      if (q.has(spec.name)) $(`in-${spec.name}`).value = q.get(spec.name);
+      for (const part of ["sigma", "unit"]) {
+        const c = $(`${part}-${spec.name}`);
+        if (c && q.has(`${spec.name}.${part}`)) c.value = q.get(`${spec.name}.${part}`);
+      }
+    }
+    const mc = q.get("uncertainty") === "monte_carlo";
+    $(mc ? "method-mc" : "method-linear").checked = true;
+    toggleMethod();
+    if (q.has("samples")) $("samples").value = q.get("samples");
+    $("seed").value = q.get("seed") || "";
+    $("correlations").value = q.get("correlations") || "";
+    if (q.has("time_format")) $("time_format").value = q.get("time_format");
+    $("budget").checked = q.get("budget") === "1";
+    for (const k of ["rv1", "rv2"]) $(`obs-${k}`).value = q.get(`observed.${k}`) || "";
+  }
+
+  function openAddress() {
+    // the calculation before "?", the fields after it; with fields, compute at once
+    const [name, query] = location.hash.slice(1).split(/\?(.*)/s);
+    const calcName = decodeURIComponent(name || "");
+    if (!state.calc || state.calc.name !== calcName || query) selectCalculation(calcName, Boolean(query));
+    if (query && state.calc.name === calcName) {
+      applyState(new URLSearchParams(query));
+      compute();
+    }
+  }
+
+  async function copyLink() {
+    rememberInAddress();
+    const link = location.href;
+    let done = false;
+    try {
+      if (navigator.clipboard && window.isSecureContext) { await navigator.clipboard.writeText(link); done = true; }
+    } catch (e) { done = false; }
+    $("link-status").textContent = done ? "Link copied: it reopens this form and computes it again."
+      : `Copy this link (it reopens this form and computes it again): ${link}`;
+    $("link-status").dataset.link = link;
+    show($("link-status"), true);
+  }
+
   // ------------------------------------------------------------------ example and wiring
   function fillExample() {
     const calc = state.calc;
@@ -800,22 +1426,26 @@
     $("copy-report").addEventListener("click", copyReport);
     $("figure-svg").addEventListener("click", () => downloadFigure("svg"));
     $("figure-png").addEventListener("click", () => downloadFigure("png"));
-    window.addEventListener("hashchange", () => {
-      const name = location.hash.slice(1);
-      if (state.byName[name] && (!state.calc || state.calc.name !== name)) selectCalculation(name);
-    });
+    $("download-csv").addEventListener("click", () => downloadResults("csv"));
+    $("download-json").addEventListener("click", () => downloadResults("json"));
+    $("copy-link").addEventListener("click", copyLink);
+    wireCatalogue();
+    window.addEventListener("hashchange", openAddress);
     try {
       const [health, listing] = await Promise.all([request("GET", "v1/health"), request("GET", "v1/calculations")]);
       if (health.ok) $("version").textContent = `version ${health.data.version}`;
       state.calcs = listing.data.calculations;
       state.byName = Object.fromEntries(state.calcs.map((c) => [c.name, c]));
       fillCalculations();
-      selectCalculation(location.hash.slice(1));
+      openAddress();
       document.body.dataset.ready = "true";
     } catch (err) {
       showProblem({ title: "No answer", detail: `cannot load the calculations: ${err}` });
     }
   }
+
+  // for the browser tests: show a response of the documented shape as the page would (no request made)
+  window.calcserviceForm = { show: (response) => renderResponse(state.calc, response), mathNodes };
 
   document.addEventListener("DOMContentLoaded", init);
 })();
