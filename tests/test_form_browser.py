@@ -175,7 +175,9 @@ def test_fictional_sb2_result_and_an_error_beside_its_field(browser, base_url, c
                   if d.find_element(By.ID, "error-eccentricity").is_displayed() else None)
     assert "must be >= 0 and < 1" in error.text
     assert browser.find_element(By.ID, "in-eccentricity").get_attribute("aria-invalid") == "true"
-    assert "Invalid input" in browser.find_element(By.ID, "problem").text
+    banner = browser.find_element(By.ID, "problem").text
+    # the banner gives the reason, not only "invalid value for eccentricity"
+    assert "Invalid input" in banner and "eccentricity" in banner and "must be >= 0 and < 1" in banner
     assert not browser.find_element(By.ID, "error-period").is_displayed()
     _shot(browser, "form-sb2-error")
     assert not _csp_violations(browser)
@@ -196,6 +198,8 @@ def test_ephemeris_draws_the_rv_curve_and_relative_orbit(browser, base_url):
     _type(browser, "seed", "3")
     browser.find_element(By.ID, "compute").click()
     _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "#rv-plot path.curve.star2"))
+    _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "#rv-phase-plot path.curve.star2"))
+    assert "orbital phase since periastron" in browser.find_element(By.ID, "rv-phase-plot").text
     _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "#orbit-plot path.curve.sky"))
     points = browser.find_elements(By.CSS_SELECTOR, "#rv-plot circle.point.star1")
     assert len(points) >= 5                         # the five requested times (plus the legend's marker)
@@ -208,3 +212,168 @@ def test_ephemeris_draws_the_rv_curve_and_relative_orbit(browser, base_url):
     assert browser.find_elements(By.CSS_SELECTOR, "#series-table tbody tr")
     _shot(browser, "form-ephemeris")
     assert not _csp_violations(browser)
+
+
+def _computed(driver):
+    from selenium.webdriver.common.by import By
+    _wait(driver, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-computed") == "true")
+
+
+def _fill(driver, fields):
+    for element_id, text in fields.items():
+        _type(driver, element_id, text)
+
+
+@pytest.mark.browser
+def test_measured_velocities_are_overplotted_with_their_residuals(browser, base_url, client):
+    """The visitor's RVs at the times: drawn with their error bars, by date and by phase, and O − C
+    equal to the measured value minus the service's model RV at that time."""
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+    browser.set_window_size(1280, 1400)
+    _open(browser, base_url + "/")
+    Select(browser.find_element(By.ID, "calculation")).select_by_value("ephemeris")
+    browser.find_element(By.ID, "example").click()
+    calc = client.get("/v1/calculations").get_json()
+    example = next(c for c in calc["calculations"] if c["name"] == "ephemeris")["example"]
+    measured = ["-20.5 ± 1.2", "-31.0 ± 0.8", "-47 ± 2", "-74.4 ± 1.0", "-"]     # a fictional night log; no RV at the last time
+    _type(browser, "obs-rv1", ", ".join(measured))
+    browser.find_element(By.ID, "compute").click()
+    _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "#rv-residuals circle.point.star1"))
+    model = post(client, "/v1/orbit/ephemeris", example)[1]["results"]["series"]["rv1"]["value"]
+    for plot in ("rv-residuals", "rv-residuals-phase"):
+        shown = [float(c.get_attribute("data-y")) for c in
+                 browser.find_elements(By.CSS_SELECTOR, f"#{plot} g.points circle.point.star1")]
+        expected = [float(m.split("±")[0]) - rv for m, rv in zip(measured[:4], model[:4])]
+        assert shown == pytest.approx(expected, abs=1e-9), plot
+    for plot in ("rv-plot", "rv-phase-plot"):
+        points = browser.find_elements(By.CSS_SELECTOR, f"#{plot} g.points circle.point.measured.star1")
+        assert [float(p.get_attribute("data-y")) for p in points] == [-20.5, -31.0, -47.0, -74.4]
+        assert len(browser.find_elements(By.CSS_SELECTOR, f"#{plot} path.errbar.star1")) == 4
+    # a typing mistake is caught beside the box, before anything is sent
+    _type(browser, "obs-rv1", "12.1 ± 0.4, twelve")
+    browser.find_element(By.ID, "compute").click()
+    error = _wait(browser, lambda d: d.find_element(By.ID, "error-obs-rv1") if d.find_element(By.ID, "error-obs-rv1").is_displayed() else None)
+    assert "twelve" in error.text
+    assert not _csp_violations(browser)
+
+
+@pytest.mark.browser
+def test_histogram_is_drawn_in_the_page(browser, base_url):
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb1")
+    browser.find_element(By.ID, "example").click()
+    browser.find_element(By.ID, "method-mc").click()
+    _fill(browser, {"samples": "600", "seed": "4"})
+    browser.find_element(By.ID, "compute").click()
+    _computed(browser)
+    button = browser.find_element(By.CSS_SELECTOR, 'tr[data-output="m2"] button.histogram')
+    button.click()
+    _wait(browser, lambda d: d.execute_script(
+        "const i = document.querySelector('#histogram-m2 img'); return i && i.complete && i.naturalWidth > 0"))
+    image = browser.find_element(By.CSS_SELECTOR, "#histogram-m2 img")
+    panel = browser.find_element(By.ID, "output").rect
+    assert 200 < image.rect["width"] <= panel["width"] and image.rect["height"] > 100
+    assert image.get_attribute("src").startswith("blob:")
+    assert button.get_attribute("aria-expanded") == "true"
+    button.click()                                   # and hidden again
+    _wait(browser, lambda d: not d.find_elements(By.CSS_SELECTOR, "#histogram-m2"))
+    assert not _csp_violations(browser)
+
+
+@pytest.mark.browser
+def test_unit_error_says_what_fits_and_maths_is_typeset(browser, base_url):
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb2")
+    browser.find_element(By.ID, "example").click()
+    _type(browser, "unit-period", "furlong")
+    browser.find_element(By.ID, "compute").click()
+    error = _wait(browser, lambda d: d.find_element(By.ID, "error-period") if d.find_element(By.ID, "error-period").is_displayed() else None)
+    assert "furlong" in error.text and "Units that fit (a time)" in error.text and "yr" in error.text
+    banner = browser.find_element(By.ID, "problem").text
+    assert "period" in banner and "furlong" in banner
+    _type(browser, "unit-period", "d")
+    browser.find_element(By.ID, "compute").click()
+    _computed(browser)
+    # "M1 sin^3 i": the 3 is a superscript, the 1 a subscript; nothing typed as ^ or _{ is left
+    desc = browser.find_element(By.CSS_SELECTOR, 'tr[data-output="m1_sin3i"] td.desc')
+    assert [e.text for e in desc.find_elements(By.TAG_NAME, "sup")][:2] == ["3", "3"]
+    assert "1" in [e.text for e in desc.find_elements(By.TAG_NAME, "sub")]
+    shown = browser.find_element(By.ID, "results-table").text
+    assert "^" not in shown and "_{" not in shown and " pi" not in shown and "π" in shown
+    # the page's own typesetting of a few declaration texts
+    cases = browser.execute_script("""
+        const f = window.calcserviceForm.mathNodes;
+        const html = (t) => { const s = document.createElement('span'); s.append(...f(t)); return s.outerHTML; };
+        return ['f^{1/2}', 'Gamma_e', 'Mdot2 >~ 1e12 cm', 'with semimajor_axis', 'tan^2(i/2)', '(1 - e^2)'].map(html);""")
+    assert cases == ["<span>f<sup>1/2</sup></span>", "<span>Γ<sub>e</sub></span>",
+                     "<span>Ṁ<sub>2</sub> ≳ 10<sup>12</sup> cm</span>", "<span>with semimajor_axis</span>",
+                     "<span>tan<sup>2</sup>(i/2)</span>", "<span>(1 − e<sup>2</sup>)</span>"]
+    assert not _csp_violations(browser)
+
+
+@pytest.mark.browser
+def test_a_link_reproduces_the_computation(browser, base_url, client):
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb2")
+    for name, (value, sigma, unit) in FICTIONAL_SB2.items():
+        _fill(browser, {f"in-{name}": value, f"sigma-{name}": sigma, f"unit-{name}": unit})
+    _fill(browser, {"unit-period": "h", "in-period": str(23.91 * 24), "sigma-period": str(0.004 * 24),
+                    "correlations": "k1,k2=0.2"})
+    browser.find_element(By.ID, "method-mc").click()
+    _fill(browser, {"samples": "500", "seed": "9"})
+    browser.find_element(By.ID, "compute").click()
+    _computed(browser)
+    first = browser.find_element(By.ID, "results-table").text
+    link = browser.current_url
+    assert "#sb2?" in link and "period.unit=h" in link and "seed=9" in link
+    browser.find_element(By.ID, "copy-link").click()
+    _wait(browser, lambda d: d.find_element(By.ID, "link-status").is_displayed())
+    # a fresh page at the link fills the form and computes the same numbers
+    browser.get("about:blank")
+    _open(browser, link)
+    _computed(browser)
+    assert browser.find_element(By.ID, "in-period").get_attribute("value") == str(23.91 * 24)
+    assert browser.find_element(By.ID, "correlations").get_attribute("value") == "k1,k2=0.2"
+    assert browser.find_element(By.ID, "results-table").text == first
+    # and they are the service's numbers for that request
+    body = {k: {"value": float(v), "sigma": float(s)} for k, (v, s, _) in FICTIONAL_SB2.items()}
+    body["period"] = {"value": 23.91 * 24, "sigma": 0.004 * 24, "unit": "h"}
+    body.update(correlations=[{"between": ["k1", "k2"], "rho": 0.2}],
+                uncertainty={"method": "monte_carlo", "samples": 500, "seed": 9})
+    m1 = post(client, "/v1/spectroscopic/sb2", body)[1]["results"]["m1"]
+    cell = browser.find_element(By.CSS_SELECTOR, '#results-table tr[data-output="m1"] td.value')
+    assert f"value {m1['value']}" in cell.get_attribute("title")
+    assert not _csp_violations(browser)
+
+
+@pytest.mark.browser
+def test_results_download_as_csv_and_json(browser, base_url, client, tmp_path):
+    import csv
+    import json
+    import time
+    from selenium.webdriver.common.by import By
+    browser.execute_cdp_cmd("Page.setDownloadBehavior", {"behavior": "allow", "downloadPath": str(tmp_path)})
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb1")
+    browser.find_element(By.ID, "example").click()
+    browser.find_element(By.ID, "compute").click()
+    _computed(browser)
+    browser.find_element(By.ID, "download-json").click()
+    browser.find_element(By.ID, "download-csv").click()
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and not ((tmp_path / "sb1-results.json").exists() and (tmp_path / "sb1-results.csv").exists()):
+        time.sleep(0.2)
+    calc = client.get("/v1/calculations").get_json()
+    example = next(c for c in calc["calculations"] if c["name"] == "sb1")["example"]
+    expected = post(client, "/v1/spectroscopic/sb1", example)[1]
+    saved = json.loads((tmp_path / "sb1-results.json").read_text())
+    assert saved["results"] == expected["results"] and saved["inputs"] == expected["inputs"]
+    rows = list(csv.DictReader((tmp_path / "sb1-results.csv").read_text().splitlines()))
+    assert [r["output"] for r in rows] == list(expected["results"])
+    for r in rows:
+        e = expected["results"][r["output"]]
+        assert float(r["value"]) == e["value"] and float(r["sigma"]) == e["sigma"] and r["unit"] == e["unit"]

@@ -88,7 +88,10 @@
     };
     while (i < text.length) {
       const c = text[i];
-      if ((c === "^" || c === "_") && i > 0) {
+      // "_" subscripts a symbol ("T_periastron", "Gamma_e", "GM_sun"), not a word ("semimajor_axis")
+      const base = c === "_" ? text.slice(0, i).match(/(?:^|[^A-Za-z])([A-Za-z]+)$/) : null;
+      const symbolic = c === "^" || (base && (base[1].length <= 2 || GREEK[base[1]] || WORDS[base[1]]));
+      if ((c === "^" || c === "_") && i > 0 && symbolic) {
         const g = group(i + 1);
         if (g) {
           flush();
@@ -96,6 +99,15 @@
           i = g.end;
           continue;
         }
+      }
+      const power = /[\d]/.test(c) && !/[A-Za-z0-9_.]/.test(i > 0 ? text[i - 1] : " ")
+        ? text.slice(i).match(/^(\d+(?:\.\d+)?)e([+-]?\d+)(?![\w.])/) : null;
+      if (power) {          // 1e12 -> 10¹², 2.5e-7 -> 2.5 × 10⁻⁷
+        plain += (power[1] === "1" ? "" : power[1] + " × ") + "10";
+        flush();
+        out.push(el("sup", { text: power[2].replace(/^\+/, "").replace("-", "−") }));
+        i += power[0].length;
+        continue;
       }
       const sym = SYMBOLS.find(([a]) => text.startsWith(a, i));
       if (sym) { plain += sym[1]; i += sym[0].length; continue; }
@@ -585,7 +597,8 @@
       rows.push(holder);
     }
     if (rows.length) {
-      const head = el("tr", {}, ["result", "value", "unit", "description"].concat(mc ? [""] : []).map((h) => el("th", { text: h })));
+      const head = el("tr", {}, [["name", "result"], ["value", "value"], ["unit", "unit"], ["desc", "description"]]
+        .concat(mc ? [["hist", ""]] : []).map(([cls, h]) => el("th", { class: cls, text: h })));
       out.append(el("table", { class: "results cards", id: "results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
     if (results.series) out.append(seriesTable(results.series));
@@ -747,9 +760,9 @@
     if ((b - a) / period > MAX_CYCLES_BY_DATE) return { phase, date: [] };
     const date = [];
     for (let c = Math.floor((a - t0) / period); c <= Math.ceil((b - t0) / period); c++) {
-      for (const E of linspace(0, 2 * Math.PI, 180, false)) { const t = atE(c, E); if (t >= a && t <= b) date.push(t); }
+      for (const E of linspace(0, 2 * Math.PI, 360, false)) { const t = atE(c, E); if (t >= a && t <= b) date.push(t); }
     }
-    for (const t of linspace(a, b, 100)) date.push(t);
+    for (const t of linspace(a, b, 200)) date.push(t);
     date.sort((x, y) => x - y);
     return { phase, date };
   }
@@ -966,7 +979,7 @@
         if (e && (e[0] > 0 || e[1] > 0)) {
           g.append(svgEl("path", { class: `errbar ${p.cls}`, d: `M${X(x)},${Y(y - e[0])}V${Y(y + e[1])}M${X(x) - 3},${Y(y - e[0])}h6M${X(x) - 3},${Y(y + e[1])}h6` }));
         }
-        g.append(svgEl("circle", { class: `point ${p.cls}`, cx: X(x), cy: Y(y), r: 4 }));
+        g.append(svgEl("circle", { class: `point ${p.cls}`, cx: X(x), cy: Y(y), r: 4, "data-x": x, "data-y": y }));
       });
       plot.append(g);
     }
@@ -1386,6 +1399,8 @@
     const calc = state.calc;
     buildForm(calc);
     const ex = calc.example || {};
+    $("method-linear").checked = true;           // the example's own method, linear unless it says otherwise
+    toggleMethod();
     for (const [name, v] of Object.entries(ex)) {
       if (name === "uncertainty" && v && v.method) {
         $(v.method.startsWith("monte") ? "method-mc" : "method-linear").checked = true;
