@@ -553,6 +553,9 @@
     return td;
   }
 
+  // a long output name may wrap after its underscores (a <wbr> adds no text)
+  function breakable(name) { return name.split(/(?<=_)/).flatMap((part, i) => (i ? [el("wbr"), part] : [part])); }
+
   function budgetTable(name, budget) {
     // the shares of the output's variance, largest first; a correlation term ("k1,k2") may be negative
     const terms = Object.entries(budget).filter(([, v]) => finiteNumber(v)).sort((a, b) => Math.abs(b[1]) - Math.abs(a[1]));
@@ -582,7 +585,7 @@
       const desc = el("td", { class: "desc" }, spec ? [math(spec.description)] : []);
       if (spec && spec.formula) desc.append(math(spec.formula, "formula"));
       const tr = el("tr", { "data-output": name }, [
-        el("td", { class: "name", text: name }), valueCell(entry), el("td", { class: "unit", text: entry.unit || "" }), desc]);
+        el("td", { class: "name" }, breakable(name)), valueCell(entry), el("td", { class: "unit", text: entry.unit || "" }), desc]);
       rows.push(tr);
       const extra = [];
       if (entry.budget && typeof entry.budget === "object") extra.push(budgetTable(name, entry.budget));
@@ -609,7 +612,7 @@
     const warnings = $("warnings");
     clear(warnings);
     for (const w of response.warnings || []) {
-      warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" " + w.message)]));
+      warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" "), math(w.message)]));
     }
     show(warnings, (response.warnings || []).length > 0);
     show($("downloads"), true);
@@ -1105,7 +1108,7 @@
           const kv = part.match(/^\s*([\w]+)\s*:\s*(.*)$/);
           if (kv) entry[kv[1]] = unquote(kv[2]);
         }
-        if (entry.name) units[entry.name] = entry.unit || "";
+        if (entry.name && entry.unit !== undefined) units[entry.name] = entry.unit;
         current = null;
         continue;
       }
@@ -1113,7 +1116,7 @@
       const more = line.match(/^\s+([\w]+)\s*:\s*(.*)$/);
       if (item) { current = {}; current[item[1]] = unquote(item[2]); }
       else if (more && current) current[more[1]] = unquote(more[2]);
-      if (current && current.name) units[current.name] = current.unit || units[current.name] || "";
+      if (current && current.name && current.unit !== undefined) units[current.name] = current.unit;
     }
     return { units, delimiter };
   }
@@ -1168,7 +1171,11 @@
         delete c[`${part}_unit`];
         if (u !== undefined && u !== (c.unit || inputs[name].unit || "")) problems.push(`${name}_${part} is in ${u}: give it in the unit of ${name} (${c.unit || inputs[name].unit})`);
       }
-      if (!c.value) problems.push(`${name}: a sigma column without the column ${name}`);
+      if (!c.value) { problems.push(`${name}: a sigma column without the column ${name}`); continue; }
+      // an empty value cell means "not given for this system": its sigma cells go with it
+      for (const part of ["sigma", "sigma_minus", "sigma_plus"]) {
+        if (c[part]) c[part] = c[part].map((x, i) => (c.value[i] === null ? null : x));
+      }
     }
     const body = { columns };
     const { body: options } = collect();
@@ -1176,21 +1183,21 @@
     return { body, ignored, problems };
   }
 
-  function resetCatalogue() {
+  function resetCatalogue(keepFile) {
     state.catalogue = null;
     clear($("catalogue-preview"));
     clear($("catalogue-results"));
     show($("catalogue-problem"), false);
     $("catalogue-compute").disabled = true;
     $("catalogue-download").disabled = true;
-    $("catalogue-file").value = "";
+    if (!keepFile) $("catalogue-file").value = "";
     $("catalogue-status").textContent = state.calc ? `For ${state.calc.title} (${state.calc.name}): its inputs are ${state.calc.inputs.map((i) => i.name).join(", ")}.` : "";
   }
 
   function unitLabel(unit) { return unit === undefined ? "" : ` [${unit || "dimensionless"}]`; }
 
   async function readCatalogue(file) {
-    resetCatalogue();
+    resetCatalogue(true);
     const text = await file.text();
     const table = parseTable(text);
     if (table.error) {
@@ -1262,17 +1269,18 @@
     const cols = answer.columns || {};
     const names = Object.keys(cols).filter((k) => cols[k] && Array.isArray(cols[k].value) && !Array.isArray(cols[k].value[0]));
     const { errors, warnings } = catalogueRows(answer);
-    const head = el("tr", {}, [el("th", { text: "#" })].concat(names.map((k) => el("th", {}, [document.createTextNode(k),
-      el("span", { class: "unit", text: unitLabel(cols[k].unit) })])), [el("th", { text: "error" }), el("th", { text: "warnings" })]));
+    // the error column first after the row number: on a phone the reason is seen without scrolling
+    const head = el("tr", {}, [el("th", { text: "#" }), el("th", { text: "error" })].concat(names.map((k) => el("th", {}, [document.createTextNode(k),
+      el("span", { class: "unit", text: unitLabel(cols[k].unit) })])), [el("th", { text: "warnings" })]));
     const rows = [];
     for (let i = 0; i < Math.min(answer.count, SHOWN_ROWS); i++) {
-      const cells = [el("td", { text: String(i + 1) })];
+      const cells = [el("td", { text: String(i + 1) }),
+        el("td", { class: "row-error", text: errors[i] ? `${errors[i].status}: ${rowErrorText(errors[i])}` : "" })];
       for (const k of names) {
         const entry = { value: cols[k].value[i] };
         for (const m of ["sigma", "low", "high"]) if (Array.isArray(cols[k][m])) entry[m] = cols[k][m][i];
         cells.push(el("td", { title: entry.value === null ? "" : fullPrecision(entry), text: entry.value === null ? "" : measured(entry) }));
       }
-      cells.push(el("td", { class: "row-error", text: errors[i] ? `${errors[i].status}: ${rowErrorText(errors[i])}` : "" }));
       cells.push(el("td", { text: warnings[i].join("; ") }));
       rows.push(el("tr", { class: errors[i] ? "failed" : "", "data-row": i }, cells));
     }
@@ -1281,7 +1289,7 @@
       el("table", { class: "catalogue", id: "catalogue-results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     if (answer.count > SHOWN_ROWS) $("catalogue-results").append(el("p", { class: "hint", text: `The first ${SHOWN_ROWS} rows are shown; the download has them all.` }));
     const unc = answer.uncertainty || {};
-    $("catalogue-status").textContent = `${cat.file}: ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples} draws, seed ${unc.seed})` : "linear propagation"}.`;
+    $("catalogue-status").textContent = `${cat.file}: ${answer.count} systems, ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples} draws, seed ${unc.seed})` : "linear propagation"}.`;
     $("catalogue-download").disabled = false;
   }
 
