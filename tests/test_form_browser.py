@@ -225,7 +225,7 @@ def _fill(driver, fields):
 
 
 @pytest.mark.browser
-def test_measured_velocities_are_overplotted_with_their_residuals(browser, base_url, client):
+def test_measured_velocities_are_overplotted_with_their_residuals(browser, base_url, client, tmp_path):
     """The visitor's RVs at the times: drawn with their error bars, by date and by phase, and O − C
     equal to the measured value minus the service's model RV at that time."""
     from selenium.webdriver.common.by import By
@@ -250,6 +250,20 @@ def test_measured_velocities_are_overplotted_with_their_residuals(browser, base_
         points = browser.find_elements(By.CSS_SELECTOR, f"#{plot} g.points circle.point.measured.star1")
         assert [float(p.get_attribute("data-y")) for p in points] == [-20.5, -31.0, -47.0, -74.4]
         assert len(browser.find_elements(By.CSS_SELECTOR, f"#{plot} path.errbar.star1")) == 4
+    # the figure as shown saves as an SVG file of its own: well-formed, colours on the elements
+    import time
+    import xml.etree.ElementTree as ET
+    browser.execute_cdp_cmd("Page.setDownloadBehavior", {"behavior": "allow", "downloadPath": str(tmp_path)})
+    browser.find_element(By.XPATH, '//*[@id="rv-phase-plot"]/ancestor::figure//button[contains(@class, "save-figure")]').click()
+    saved = tmp_path / "ephemeris-rv-phase-plot.svg"
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and not saved.exists():
+        time.sleep(0.2)
+    root = ET.fromstring(saved.read_bytes())
+    ns = {"svg": "http://www.w3.org/2000/svg"}
+    assert "radial velocity [km/s]" in " ".join(root.itertext())
+    curves = root.findall(".//svg:path[@stroke='rgb(31, 90, 166)']", ns)     # star 1's colour (form.css --star1)
+    assert curves and all(c.get("fill") == "none" for c in curves if len(c.get("d", "")) > 1000)
     # a typing mistake is caught beside the box, before anything is sent
     _type(browser, "obs-rv1", "12.1 ± 0.4, twelve")
     browser.find_element(By.ID, "compute").click()

@@ -621,9 +621,6 @@
     show($("report"), false);
     $("copy-report").disabled = true;
     show($("copy-status"), false);
-    const figures = hasCurve(calc);
-    show($("figure-svg"), figures);
-    show($("figure-png"), figures);
   }
 
   async function toggleHistogram(name, button, holder) {
@@ -852,7 +849,7 @@
       const { lines, points } = layers(sorted.phase.value, xPoints, sorted);
       const fig = chart({ width: W, height: H, xlabel: "orbital phase since periastron", ylabel: `radial velocity [${rvUnit}]`,
         lines, points, hlines, xlim: [0, 1], title: "radial velocities by phase", id: "rv-phase-plot" });
-      box.append(el("figure", { class: "wide" }, [fig, el("figcaption", { text: caption })]));
+      box.append(plotFigure(fig, "wide", caption));
       if (Object.keys(residuals).length) box.append(residualFigure("rv-residuals-phase", W, xPoints, residuals, rvUnit, "orbital phase since periastron", [0, 1]));
     }
     if (grids.date.length && byDate[key]) {
@@ -863,7 +860,7 @@
       const { lines, points } = layers(x, xPoints, byDate);
       const fig = chart({ width: W, height: H, xlabel, ylabel: `radial velocity [${rvUnit}]`, lines, points, hlines,
         title: "radial velocities by date", id: "rv-plot" });
-      box.append(el("figure", { class: "wide" }, [fig, el("figcaption", { text: caption })]));
+      box.append(plotFigure(fig, "wide", caption));
       if (Object.keys(residuals).length) box.append(residualFigure("rv-residuals", W, xPoints, residuals, rvUnit, xlabel, null));
     } else if (period > 0) {
       box.append(el("p", { class: "hint", text: `The times span more than ${MAX_CYCLES_BY_DATE} periods: the curve is drawn by phase only.` }));
@@ -881,7 +878,7 @@
         points: [{ x: p.map((q) => q[0]), y: p.map((q) => q[1]), cls: "sky", label: "requested" }],
         marks: periastronMark(byPhase.projected_separation ? byPhase : dense, d),
         origin: true, invertX: true, equal: true, title: "relative orbit (north up, east left)", id: "orbit-plot" });
-      box.append(el("figure", { class: "square" }, [fig2, el("figcaption", { text: "Star 2 relative to star 1 on the sky; the square marks periastron." })]));
+      box.append(plotFigure(fig2, "square", "Star 2 relative to star 1 on the sky; the square marks periastron."));
     }
   }
 
@@ -890,7 +887,7 @@
       err: (state.observed[k] || []).map((m) => (m ? [m.error, m.error] : null)) }));
     const fig = chart({ width: W, height: 190, xlabel, ylabel: `O − C [${unit}]`, lines: [], points, xlim,
       hlines: [{ y: 0, cls: "gamma", label: "model" }], title: "residuals", id });
-    return el("figure", { class: "residuals" }, [fig]);
+    return plotFigure(fig, "residuals", "");
   }
 
   function periastronMark(dense, sky) {
@@ -1046,18 +1043,30 @@
     show($("copy-status"), true);
   }
 
-  async function downloadFigure(format, plot) {
-    if (!state.body) return;
-    const query = { format };
-    if (plot) query.plot = plot;
-    const r = await request("POST", state.calc.path, state.body, query);
-    if (!r.ok) { showProblem(typeof r.data === "object" ? r.data : { title: "Error", detail: String(r.data) }); return; }
-    const url = URL.createObjectURL(r.data);
-    const a = el("a", { href: url, download: `${state.calc.name}${plot ? "-" + plot : ""}.${format}` });
-    document.body.append(a);
-    a.click();
-    a.remove();
-    setTimeout(() => URL.revokeObjectURL(url), 10000);
+  // A drawn figure saved as a file of its own: the SVG as shown, its style-sheet colours and strokes
+  // written onto each element as presentation attributes (no style sheet or style attribute needed).
+  const SVG_PROPERTIES = ["fill", "fill-opacity", "stroke", "stroke-width", "stroke-dasharray", "opacity",
+    "font-family", "font-size", "font-weight"];
+  function standaloneSvg(svg) {
+    const copy = svg.cloneNode(true);
+    const from = [svg, ...svg.querySelectorAll("*")], to = [copy, ...copy.querySelectorAll("*")];
+    from.forEach((node, i) => {
+      const cs = getComputedStyle(node);
+      for (const p of SVG_PROPERTIES) { const v = cs.getPropertyValue(p); if (v) to[i].setAttribute(p, v); }
+      to[i].removeAttribute("class");
+    });
+    const [, , w, h] = svg.getAttribute("viewBox").split(" ");
+    copy.setAttribute("xmlns", SVGNS);
+    copy.setAttribute("width", w);
+    copy.setAttribute("height", h);
+    copy.removeAttribute("id");
+    return '<?xml version="1.0" encoding="utf-8"?>\n' + new XMLSerializer().serializeToString(copy) + "\n";
+  }
+  function plotFigure(svg, cls, caption) {
+    const save = el("button", { type: "button", class: "save-figure", text: "save (SVG)", title: "save this figure as an SVG file" });
+    save.addEventListener("click", () => saveBlob(new Blob([standaloneSvg(svg)], { type: "image/svg+xml" }),
+      `${state.calc.name}-${svg.id}.svg`));
+    return el("figure", { class: cls }, [svg, el("figcaption", {}, [document.createTextNode(caption ? caption + " " : ""), save])]);
   }
 
   // ------------------------------------------------------------------ a catalogue from a file
@@ -1442,13 +1451,14 @@
     $("calc-form").addEventListener("submit", compute);
     $("calculation").addEventListener("change", (e) => selectCalculation(e.target.value));
     $("example").addEventListener("click", fillExample);
-    $("clear").addEventListener("click", () => buildForm(state.calc));
+    $("clear").addEventListener("click", () => {
+      buildForm(state.calc);
+      history.replaceState(null, "", "#" + state.calc.name);      // the address forgets the inputs too
+    });
     for (const r of document.querySelectorAll('input[name="method"]')) r.addEventListener("change", toggleMethod);
     $("report-latex").addEventListener("click", () => loadReport("latex"));
     $("report-markdown").addEventListener("click", () => loadReport("markdown"));
     $("copy-report").addEventListener("click", copyReport);
-    $("figure-svg").addEventListener("click", () => downloadFigure("svg"));
-    $("figure-png").addEventListener("click", () => downloadFigure("png"));
     $("download-csv").addEventListener("click", () => downloadResults("csv"));
     $("download-json").addEventListener("click", () => downloadResults("json"));
     $("copy-link").addEventListener("click", copyLink);
