@@ -250,6 +250,9 @@ def test_measured_velocities_are_overplotted_with_their_residuals(browser, base_
         points = browser.find_elements(By.CSS_SELECTOR, f"#{plot} g.points circle.point.measured.star1")
         assert [float(p.get_attribute("data-y")) for p in points] == [-20.5, -31.0, -47.0, -74.4]
         assert len(browser.find_elements(By.CSS_SELECTOR, f"#{plot} path.errbar.star1")) == 4
+    browser.set_window_size(1280, min(browser.execute_script("return document.documentElement.scrollHeight") + 140, 7000))
+    _shot(browser, "form-ephemeris-measured-1280")
+    browser.set_window_size(1280, 1400)
     # the figure as shown saves as an SVG file of its own: well-formed, colours on the elements
     import time
     import xml.etree.ElementTree as ET

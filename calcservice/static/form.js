@@ -917,7 +917,19 @@
   }
 
   function chart(o) {
-    const W = o.width, H = o.height, m = { l: 62, r: 14, t: 26, b: 44 };
+    const W = o.width, m = { l: 62, r: 14, t: 26, b: 44 };
+    // the legend sits in rows above the plotting area, so that it never hides a point or a curve
+    const entries = o.lines.map((l) => ({ cls: l.cls, label: l.label, kind: "line" }))
+      .concat(o.points.map((p) => ({ cls: p.cls, label: p.label, kind: "point" })))
+      .concat((o.hlines || []).map((h) => ({ cls: h.cls, label: h.label, kind: "hline" })));
+    let lx = 0, rows = entries.length ? 1 : 0;
+    for (const e of entries) {
+      const width = 30 + e.label.length * 6.1;
+      if (lx > 0 && lx + width > W - m.l - m.r) { rows += 1; lx = 0; }
+      e.row = rows - 1; e.dx = lx; lx += width;
+    }
+    m.t = 26 + rows * 15;
+    const H = o.height + rows * 15;
     const finite = (a) => a.filter((v) => typeof v === "number" && isFinite(v));
     let xs = [], ys = [];
     for (const l of o.lines) { xs = xs.concat(finite(l.x)); ys = ys.concat(finite(l.y)); }
@@ -990,12 +1002,8 @@
     svg.append(svgEl("text", { class: "label", x: 14, y: m.t + ph / 2, "text-anchor": "middle", transform: `rotate(-90 14 ${m.t + ph / 2})` }, o.ylabel));
     svg.append(svgEl("text", { class: "label", x: m.l, y: 16 }, o.title));
     const legend = svgEl("g", { class: "legend" });
-    const entries = o.lines.map((l) => ({ cls: l.cls, label: l.label, kind: "line" }))
-      .concat(o.points.map((p) => ({ cls: p.cls, label: p.label, kind: "point" })))
-      .concat((o.hlines || []).map((h) => ({ cls: h.cls, label: h.label, kind: "hline" })));
-    legend.append(svgEl("rect", { class: "legend-box", x: m.l + pw - 156, y: m.t + 3, width: 152, height: entries.length * 14 + 6, rx: 3 }));
-    entries.forEach((e, i) => {
-      const y = m.t + 12 + i * 14, x = m.l + pw - 150;
+    entries.forEach((e) => {
+      const y = 26 + e.row * 15 + 6, x = m.l + e.dx;
       if (e.kind === "point") legend.append(svgEl("circle", { class: `point ${e.cls}`, cx: x + 9, cy: y - 4, r: 3.5 }));
       else legend.append(svgEl("line", { class: e.kind === "hline" ? e.cls : `curve ${e.cls}`, x1: x, x2: x + 18, y1: y - 4, y2: y - 4 }));
       legend.append(svgEl("text", { x: x + 24, y }, e.label));
