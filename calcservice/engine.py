@@ -128,11 +128,13 @@ class Result:
     failed: dict[int, dict[str, list[str]]] = field(default_factory=dict)   # system index -> errors
     draws: dict[str, np.ndarray] | None = None
     nominal_inputs: dict[str, Any] = field(default_factory=dict)
-    # the correlation matrices of the scalar outputs that have a sigma: (their names, array
-    # (N, m, m)), NaN where an output's sigma is zero or undefined in a system; with Options.covariance
+    # with Options.covariance: the correlation matrices of the scalar outputs that have a sigma
+    # somewhere, (their names, array (N, m, m)), NaN where an output's sigma is zero or undefined in
+    # a system; linear from J C J^T (an angle's derivatives taken on the circle), Monte Carlo from
+    # the draws (an angle unwrapped about its nominal value); None for series outputs
     correlation: tuple[list[str], np.ndarray] | None = None
-    # output -> input name (or "a,b" for a correlated pair) -> share of the output's variance (N,);
-    # with Options.budget
+    # with Options.budget: output -> input name (or "a,b" for a correlated pair) -> share of the
+    # output's variance (N,), scalar outputs only; see _linear_budget and _monte_carlo_budget
     budget: dict[str, dict[str, np.ndarray]] | None = None
 
 
@@ -319,7 +321,7 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     h = RELATIVE_STEP * np.where(scale > 0, scale, np.where(spread > 0, spread, 1.0))
     if pl.any_time:
         h = np.where(pl.time, TIME_STEP * np.maximum(spread, 1.0), h)
-    exact = (x + h) - x                  # > 0, as h >= 1e-8 |x| is far above x's rounding
+    exact = (x + h) - x                  # > 0: h is far above the rounding of x, even for a date
     return np.where(exact < np.inf, exact, h)
 
 
@@ -414,7 +416,8 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
         if len(parts) == 1:
             f0, jac, bend = parts[0][1:4]
         else:
-            f0, jac = (np.concatenate([p[k] for p in parts], axis=k) for k in (1, 2))
+            f0 = np.concatenate([p[1] for p in parts], axis=1)                      # (outputs, n) + trail
+            jac = np.concatenate([p[2] for p in parts], axis=2)                     # (outputs, m, n) + trail
             bend = None if parts[0][3] is None else np.concatenate([p[3] for p in parts], axis=2)
         ones = (1,) * len(trail)
         sig = spread.reshape((1, m, n) + ones)
@@ -431,7 +434,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
             f0 = np.where(wraps, f0 % period, f0)
         rel = np.abs(sigma / f0)
         loose = (LINEAR_TRUST_LIMIT < rel) & (rel < np.inf)                           # (outputs, n) + trail
-        if any_wrap:
+        if bend is not None:
             # an angle's size says nothing of its error: there the two one-sided differences
             # are compared instead (a branch or kink between them, or strong curvature)
             curved = np.sqrt((bend * bend).sum(axis=1)) > LINEAR_TRUST_LIMIT * sigma
@@ -456,14 +459,12 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
                 warnings.append(_untrustworthy(name, loose[k], bool(wraps.flat[k])))
             if undefined[k].any():
                 warnings.append(_not_linear(name, undefined[k]))
-        if options.covariance or options.budget:
-            scalar = [k for k, name in enumerate(given) if not trail]
-            if options.covariance and scalar:
-                t = terms[scalar]
-                cov = (np.einsum("ojn,pjn->nop", t, t) if r is None else np.einsum("ojn,jk,pkn->nop", t, r, t))
-                result.correlation = _correlation([given[k] for k in scalar], cov)
-            if options.budget:
-                result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
+        if options.covariance and not trail:         # over scalar outputs only: a series has no single value
+            cov = (np.einsum("ojn,pjn->nop", terms, terms) if r is None
+                   else np.einsum("ojn,jk,pkn->nop", terms, r, terms))                # (n, outputs, outputs)
+            result.correlation = _correlation(list(given), cov)
+        if options.budget:
+            result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
 
     if m:
         crosses = parts[0][4] if len(parts) == 1 else np.concatenate([p[4] for p in parts], axis=1)
@@ -534,7 +535,7 @@ def _not_linear(name: str, where) -> Warning:
                    "inputs; use the Monte Carlo method", where, name)
 
 
-def _heavy_tailed(name: str, where) -> Warning:
+def _no_sigma(name: str, where) -> Warning:
     return Warning("sigma_undefined", "{subject}: the standard deviation of the draws is dominated by a few extreme "
                    "draws (a distribution without a finite variance, e.g. masses from random orientations); "
                    "sigma is not given: use the median and the 68.27 % interval (low, high)", where, name)
@@ -653,7 +654,7 @@ def _spread(d: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return mean, var
 
 
-def _heavy(d: np.ndarray, mask: np.ndarray, median: np.ndarray) -> np.ndarray:
+def heavy_tailed(d: np.ndarray, mask: np.ndarray, median: np.ndarray) -> np.ndarray:
     """Where the spread of the draws is carried by a few of them, so that their standard deviation
     describes those draws rather than the distribution (n,) + trail.
 
@@ -700,10 +701,10 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
         d = _draws_of(o, ys[o.name])
         med, low, high = quantiles(d, valid, (0.5, ONE_SIGMA_LOW, ONE_SIGMA_HIGH))
         _, var = _spread(d, mask)
-        heavy = _heavy(d, mask, med)
+        heavy = heavy_tailed(d, mask, med)
         if heavy.any():
             var = np.where(heavy, np.nan, var)
-            result.warnings.append(_heavy_tailed(o.name, heavy.reshape(n, -1).any(axis=1)))
+            result.warnings.append(_no_sigma(o.name, heavy.reshape(n, -1).any(axis=1)))
         if o.period is not None:
             shift = np.floor(med / o.period) * o.period
             med, low, high = med - shift, low - shift, high - shift

@@ -7,7 +7,7 @@ from scipy import stats
 from uncertainties import umath
 
 from calcservice.engine import Measured, Options, evaluate
-from calcservice.engine import _heavy as heavy_tailed   # the test itself, on plain draws
+from calcservice.engine import heavy_tailed
 from calcservice.physics.spectroscopic import MASS_FUNCTION_COEFFICIENT
 from calcservice.registry import Calculation, Input, Output, get
 
