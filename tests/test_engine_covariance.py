@@ -190,3 +190,20 @@ def test_monte_carlo_budget_not_given_for_correlated_or_isotropic_inputs():
     assert mc.budget is None
     named = {w.subject for w in mc.warnings if w.code == "budget_not_given"}
     assert {"m1", "m2", "mass_ratio"} <= named
+
+
+def test_linear_budget_uses_the_mean_of_asymmetric_sigmas():
+    # the convention of the linear method: an asymmetric error enters as the mean of its two sides,
+    # in the sigma and in the budget alike (so the shares still sum to 1); reference: uncertainties
+    # with K1 = 38.2 +- 0.6, the mean of -0.3 / +0.9
+    x = {k: uncertainties.ufloat(v, s, tag=k) for k, (v, s) in SB2.items()}
+    x["k1"] = uncertainties.ufloat(38.2, 0.6, tag="k1")
+    ref = _sb2_reference(x)
+    q = _measured(SB2)
+    q["k1"] = Measured(np.array([38.2]), np.array([0.3]), np.array([0.9]))
+    result = evaluate(get("sb2"), q, options=Options(budget=True))
+    for name in ("m1", "mass_ratio"):
+        assert float(result.outputs[name]["sigma"][0]) == pytest.approx(ref[name].std_dev, rel=1e-6)
+        expected = _shares(ref[name], SB2)
+        for k in expected:
+            assert float(result.budget[name][k][0]) == pytest.approx(expected[k], abs=1e-7), (name, k)
