@@ -10,7 +10,8 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
   when correlated), the user's own samples paired index by index, isotropic
   orientations (cos i uniform); draws outside an input's domain or giving a
   non-finite output are rejected and counted; summaries are the median, the standard
-  deviation and the central 68.27 % interval.
+  deviation (NaN where a few draws carry most of the spread: :func:`heavy_tailed`) and the
+  central 68.27 % interval.
 
 Either way the physics function is called once per batch of systems: on arrays of shape
 (P, N) for the linear method, P = 1 + 2 m stencil points for m uncertain inputs (row 0 the
@@ -41,7 +42,8 @@ ONE_SIGMA_LOW = float(ndtr(-1.0))    # 0.158655...
 ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
 RELATIVE_STEP = 1e-5                 # central step ~ eps^(1/3) of the input's scale
 TIME_STEP = 1e-4                     # days per day of a time input's sigma (at least 1 d)
-LINEAR_TRUST_LIMIT = 0.2             # relative sigma above which linear propagation is suspect
+LINEAR_TRUST_LIMIT = 0.2             # relative sigma (an angle: second-order over first-order term)
+                                     # above which linear propagation is suspect
 _FLOAT = np.dtype(float)
 
 
