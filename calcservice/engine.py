@@ -615,6 +615,7 @@ def quantiles(y: np.ndarray, valid: np.ndarray, qs) -> list[np.ndarray]:
     return res
 
 
+COVARIANCE_BLOCK = 4_000_000   # draws x outputs held at once while the draws' covariance is summed
 TAIL_FRACTION = 1e-3     # the extreme draws whose weight in the spread is tested: the top 0.1 %
 TAIL_SHARE = 0.5         # above this share of the squared deviations in them, sigma is undefined
 
@@ -735,12 +736,16 @@ def _draw_correlation(scalar: Mapping[str, tuple[np.ndarray, np.ndarray]], valid
     unwrapped about its nominal value, as its sigma does (the correlation in the plane tangent to
     the circle there); an output whose sigma is undefined gets NaN."""
     names = list(scalar)
-    centred = np.empty(valid.shape + (len(names),))
-    for k, (d, var) in enumerate(scalar.values()):
-        mean, _ = _spread(d, valid)
-        centred[:, :, k] = np.where(valid, d - mean[:, None], 0.0)
-    cnt = np.maximum(valid.sum(axis=1), 2)[:, None, None]
-    cov = np.einsum("nsi,nsj->nij", centred, centred) / (cnt - 1)
+    n, s = valid.shape
+    cov = np.empty((n, len(names), len(names)))
+    means = [_spread(d, valid)[0] for d, _ in scalar.values()]
+    rows = max(1, COVARIANCE_BLOCK // (s * len(names)))     # systems per block: a bounded copy of the draws
+    for a in range(0, n, rows):
+        v = valid[a:a + rows]
+        centred = np.stack([np.where(v, d[a:a + rows] - mean[a:a + rows, None], 0.0)
+                            for (d, _), mean in zip(scalar.values(), means)], axis=2)     # (rows, s, outputs)
+        cov[a:a + rows] = np.einsum("nsi,nsj->nij", centred, centred)
+    cov /= np.maximum(valid.sum(axis=1) - 1, 1)[:, None, None]
     undefined = np.array([~np.isfinite(var) for _, var in scalar.values()]).T       # (n, k)
     diagonal = np.arange(len(names))
     cov[:, diagonal, diagonal] = np.where(undefined, np.nan, cov[:, diagonal, diagonal])

@@ -207,3 +207,25 @@ def test_linear_budget_uses_the_mean_of_asymmetric_sigmas():
         expected = _shares(ref[name], SB2)
         for k in expected:
             assert float(result.budget[name][k][0]) == pytest.approx(expected[k], abs=1e-7), (name, k)
+
+
+def test_monte_carlo_correlation_summed_in_blocks_of_systems(monkeypatch):
+    # a long catalogue's draws are summed a few systems at a time; the answer must not depend on it
+    from calcservice import engine
+    rng = np.random.default_rng(0)
+    n = 7
+    q = {"period": Measured.normal(rng.uniform(10, 50, n), 0.1), "k1": Measured.normal(rng.uniform(20, 50, n), 1.0),
+         "k2": Measured.normal(rng.uniform(50, 80, n), 1.0), "eccentricity": Measured.normal(0.2, 0.02),
+         "inclination": Measured.normal(70.0, 2.0)}
+    options = dict(method="monte_carlo", samples=3000, seed=1, covariance=True)
+    whole = evaluate(get("sb2"), q, options=Options(**options)).correlation
+    monkeypatch.setattr(engine, "COVARIANCE_BLOCK", 3000 * 12 * 2)          # two systems per block
+    blocks = evaluate(get("sb2"), q, options=Options(**options)).correlation
+    assert whole[0] == blocks[0]
+    np.testing.assert_allclose(blocks[1], whole[1], rtol=1e-12)
+    # each system's matrix is that system's own: the sample correlation of its draws (numpy.corrcoef)
+    one = evaluate(get("sb2"), {k: Measured(v.value[3:4] if v.value.size > 1 else v.value, v.sigma_minus[:1],
+                                            v.sigma_plus[:1]) for k, v in q.items()},
+                   options=Options(**options, keep_draws=True))
+    draws = np.array([one.draws[name][0] for name in whole[0]])
+    np.testing.assert_allclose(one.correlation[1][0], np.corrcoef(draws), atol=1e-12)
