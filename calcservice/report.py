@@ -305,6 +305,18 @@ def is_measured(x: Any) -> bool:
     return isinstance(x, dict) and "value" in x and "unit" in x and not isinstance(x.get("value"), (list, dict))
 
 
+def _measured_cell(entry: Mapping[str, Any], style: Style) -> str:
+    """An output's value for the results table; where its sigma is undefined (null: a Monte Carlo
+    distribution without a finite variance) the 68.27 % interval is written out as such."""
+    p = printed_entry(entry)
+    low, high = entry.get("low"), entry.get("high")
+    if p is None or "sigma" not in entry or entry["sigma"] is not None or not (_finite(low) and _finite(high)):
+        return style.number(p)
+    return (style.number(Printed(p.value, exponent=p.exponent)) + style.text(" (sigma undefined; 68.27 % interval ")
+            + style.number(printed(low, digits=3)) + style.text(" to ") + style.number(printed(high, digits=3))
+            + style.text(")"))
+
+
 def _given(entry: Mapping[str, Any], style: Style) -> str:
     """An input as the request gave it (not rounded: these are the caller's own numbers)."""
     v = entry.get("value")
@@ -510,7 +522,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.output(key).description
             except KeyError:
                 pass
-        rows.append([s.code(key), s.number(printed_entry(entry)), s.unit(entry.get("unit", "")), s.text(desc)])
+        rows.append([s.code(key), _measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows)

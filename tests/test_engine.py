@@ -192,102 +192,80 @@ def test_engine_is_vectorised_over_systems():
         assert r.outputs[name]["sigma"][7] == pytest.approx(one.outputs[name]["sigma"][0], rel=1e-12)
 
 
-# --- the one-system linear method (Python floats) against the vector method (numpy) ----------
-# A single request goes through engine._linear_one, a batch through engine._linear: the same
-# method written twice for speed, so every calculation's example and its awkward variants
-# (large sigmas, exact inputs, asymmetric errors, correlations, inputs on a domain edge, where
-# the steps turn one-sided) must give the same numbers, warnings and failures by both.
+# --- one path for one system and for many -------------------------------------------------------
+# Every calculation's example and its awkward variants (large sigmas, an exact input, asymmetric
+# errors, an input on its domain edge, where a step turns one-sided), stacked as the systems of one
+# call, must give each system exactly what it gets alone: the exact-input mask, the one-sided
+# steps and the warnings' masks work row by row.
 
-def _variants(calc):
-    from calcservice.api.service import build, load
-    from calcservice.config import Limits
-    limits = Limits()
-    example = calc.example
-    uncertain = [k for k, v in example.items() if isinstance(v, dict) and v.get("sigma")]
-    bodies = [("example", example)]
-    bodies.append(("sigmas x40", {k: {**v, "sigma": v["sigma"] * 40} if k in uncertain else v
-                                  for k, v in example.items()}))
+def _example_quantities(calc):
+    """The example's quantity inputs as {name: (value, sigma)} and its other inputs as statics, or None."""
+    quantities, statics = {}, {}
+    for i in calc.inputs:
+        v = (calc.example or {}).get(i.name)
+        if v is None:
+            continue
+        if i.kind == "quantity":
+            if isinstance(v, dict):
+                if "value" not in v or not isinstance(v["value"], (int, float)) or "sigma" not in v:
+                    return None
+                quantities[i.name] = (float(v["value"]), float(v["sigma"]))
+            elif isinstance(v, (int, float)):
+                quantities[i.name] = (float(v), 0.0)
+            else:
+                return None
+        elif i.kind == "series":
+            return None
+        else:
+            statics[i.name] = v
+    return quantities, statics
+
+
+def _rows(calc, quantities):
+    """Rows of (value, sigma_minus, sigma_plus) per input: the example and its variants."""
+    base = {k: (v, s, s) for k, (v, s) in quantities.items()}
+    rows = [base, {k: (v, 40 * sm, 40 * sp) for k, (v, sm, sp) in base.items()}]
+    uncertain = [k for k, (_, s, _) in base.items() if s > 0]
     if uncertain:
         first = uncertain[0]
-        bodies.append(("one exact", {**example, first: {**example[first], "sigma": 0.0}}))
-        bodies.append(("asymmetric", {**example, first: {"value": example[first]["value"],
-                                                         "sigma_minus": example[first]["sigma"],
-                                                         "sigma_plus": 3 * example[first]["sigma"]}}))
-    if len(uncertain) >= 2:
-        bodies.append(("correlated", {**example, "correlations": [{"between": uncertain[:2], "rho": 0.45}]}))
+        rows.append({**base, first: (base[first][0], 0.0, 0.0)})
+        rows.append({**base, first: (base[first][0], base[first][1], 3 * base[first][1])})
     for k in uncertain:
         d = calc.input(k).domain
-        # on a domain edge (or the last double inside an open one) a step leaves the domain
         if np.isfinite(d.low):
-            low = float(np.nextafter(d.low, np.inf)) if d.low_open else d.low
-            bodies.append((f"{k} on its lower edge", {**example, k: {**example[k], "value": low}}))
-            if k in uncertain[:2] and len(uncertain) >= 2:
-                bodies.append((f"correlated, {k} on its lower edge",
-                               {**example, k: {**example[k], "value": low},
-                                "correlations": [{"between": uncertain[:2], "rho": 0.45}]}))
+            rows.append({**base, k: (float(np.nextafter(d.low, np.inf)) if d.low_open else d.low, *base[k][1:])})
         if np.isfinite(d.high):
-            high = float(np.nextafter(d.high, -np.inf)) if d.high_open else d.high
-            bodies.append((f"{k} on its upper edge", {**example, k: {**example[k], "value": high}}))
-            if k in uncertain[:2] and len(uncertain) >= 2:
-                # the sign of a one-sided derivative matters only where inputs are correlated
-                bodies.append((f"correlated, {k} on its upper edge",
-                               {**example, k: {**example[k], "value": high},
-                                "correlations": [{"between": uncertain[:2], "rho": -0.45}]}))
-    out = []
-    for label, body in bodies:
-        try:
-            parsed = build(calc, load(calc, body, limits), limits)
-        except Problem:
-            continue                       # a variant the calculation refuses (a constraint) is no case
-        out.append((label, parsed))
-    return out
+            rows.append({**base, k: (float(np.nextafter(d.high, -np.inf)) if d.high_open else d.high, *base[k][1:])})
+    return rows
 
 
-def _cases():
+def _batch_cases():
     from calcservice.registry import calculations
     for name, calc in calculations().items():
-        if any(i.kind == "series" for i in calc.inputs):
-            continue                       # a series axis always takes the vector method
-        for label, parsed in _variants(calc):
-            if parsed.options.method == "linear":
-                yield pytest.param(calc, parsed, id=f"{name}: {label}")
+        found = _example_quantities(calc) if calc.example else None
+        if found and any(s > 0 for _, s in found[0].values()):
+            yield pytest.param(calc, *found, id=name)
 
 
-def _same(a, b):
-    a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
-    return a.shape == b.shape and np.allclose(a, b, rtol=1e-12, atol=0.0, equal_nan=True)
-
-
-@pytest.mark.parametrize("calc, parsed", list(_cases()))
-def test_one_system_method_matches_the_vector_method(calc, parsed):
-    from calcservice import engine
-    with np.errstate(all="ignore"):
-        one = engine._linear_one(calc, parsed.quantities, parsed.statics, parsed.options)
-        vec = engine._linear(calc, parsed.quantities, parsed.statics, parsed.options, 1, ())
-    assert list(one.outputs) == list(vec.outputs)
-    for name in vec.outputs:
-        for key in ("value", "sigma"):
-            assert _same(one.outputs[name][key], vec.outputs[name][key]), (name, key)
-    assert one.failed == vec.failed
-    summary = [(w.code, w.message, w.subject, None if w.where is None else np.asarray(w.where).tolist())
-               for w in vec.warnings]
-    assert [(w.code, w.message, w.subject, None if w.where is None else np.asarray(w.where).tolist())
-            for w in one.warnings] == summary
-
-
-def test_the_variants_reach_the_awkward_branches():
-    # the comparison above is only worth something if its cases flag, correlate and step one-sidedly
-    from calcservice import engine
-    codes, on_edge, correlated = set(), 0, 0
-    for param in _cases():
-        calc, parsed = param.values
-        with np.errstate(all="ignore"):
-            result = engine._linear(calc, parsed.quantities, parsed.statics, parsed.options, 1, ())
-        codes |= {w.code for w in result.warnings}
-        correlated += bool(parsed.options.correlations)
-        # a stencil point below a closed lower bound is refused, so the step there is one-sided
-        on_edge += any(q.sigma[0] > 0 and (q.value[0] <= np.nextafter(calc.input(name).domain.low, np.inf) or
-                                           q.value[0] >= np.nextafter(calc.input(name).domain.high, -np.inf))
-                       for name, q in parsed.quantities.items())
-    assert {"linear_untrustworthy", "interval_crosses_domain", "asymmetric_linearised"} <= codes
-    assert on_edge >= 5 and correlated >= 5
+@pytest.mark.parametrize("calc, quantities, statics", list(_batch_cases()))
+def test_each_system_of_a_batch_gets_what_it_gets_alone(calc, quantities, statics):
+    rows = _rows(calc, quantities)
+    batch = {k: Measured(*(np.array([row[k][c] for row in rows]) for c in range(3))) for k in quantities}
+    together = evaluate(calc, batch, statics)
+    assert len(rows) >= 3
+    for r, row in enumerate(rows):
+        alone = evaluate(calc, {k: Measured(*(np.array([row[k][c]]) for c in range(3))) for k in quantities}, statics)
+        assert (r in together.failed) == (0 in alone.failed), r
+        if r in together.failed:
+            continue
+        for out, member in alone.outputs.items():
+            for key in ("value", "sigma"):
+                # 1e-9: a vectorised root finder iterates until every system of its call converges
+                np.testing.assert_allclose(together.outputs[out][key][r], member[key][0], rtol=1e-9, atol=0,
+                                           err_msg=f"row {r} {out} {key}")
+        codes_alone = {(w.code, w.subject) for w in alone.warnings if w.where is None or np.asarray(w.where).any()}
+        codes_here = {(w.code, w.subject) for w in together.warnings
+                      if w.where is None or np.asarray(w.where).reshape(-1)[r % np.size(w.where)]}
+        # a warning about an input that is not asymmetric in this row may still be listed for the batch
+        assert {c for c in codes_alone if c[0] != "asymmetric_linearised"} == \
+               {c for c in codes_here if c[0] != "asymmetric_linearised"}, r

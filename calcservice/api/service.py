@@ -340,15 +340,6 @@ def output_table(calc: Calculation, result: Result, units: Mapping[str, str]) ->
     names = list(result.outputs)
     out_units, factors = _output_factors(calc, tuple(names), tuple(sorted(units.items())))
     members = [result.outputs[name] for name in names]
-    floats = result.floats
-    if floats is not None and floats[0] == tuple(names):
-        # one system, linear: the engine's numbers (value and sigma of each output) as floats already
-        table = []
-        for name, unit, k, value, sigma in zip(names, out_units, factors, floats[1], floats[2]):
-            value, sigma = value * k, sigma * k
-            table.append((name, False, [{"value": value if value - value == 0 else None,      # non-finite: null
-                                         "sigma": sigma if sigma - sigma == 0 else None, "unit": unit}]))
-        return table
     if all(o["value"].shape == (1,) for o in members):
         # one system, no series: every number at once as plain floats, cheaper than any array operation
         numbers = iter(np.concatenate([arr for o in members for arr in o.values()]).tolist())
