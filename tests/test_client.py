@@ -145,28 +145,28 @@ def _free_port() -> int:
 def test_connection_errors_are_retried(server):
     svc = Client(server[0], timeout=10, retries=2, backoff=0.0)
     calls = []
-    real = svc._opener.open
+    real = svc._send
 
-    def flaky(req, timeout=None):
-        calls.append(req.full_url)
+    def flaky(method, target, data, headers):
+        calls.append(target)
         if len(calls) <= 2:
             raise ConnectionRefusedError("refused (simulated)")
-        return real(req, timeout=timeout)
+        return real(method, target, data, headers)
 
-    svc._opener.open = flaky
+    svc._send = flaky
     assert svc.health()["status"] == "ok" and len(calls) == 3
 
 
 def test_http_errors_are_not_retried(server):
     svc = Client(server[0], timeout=10, retries=3, backoff=0.0)
     calls = []
-    real = svc._opener.open
+    real = svc._send
 
-    def counting(req, timeout=None):
-        calls.append(req.full_url)
-        return real(req, timeout=timeout)
+    def counting(method, target, data, headers):
+        calls.append(target)
+        return real(method, target, data, headers)
 
-    svc._opener.open = counting
+    svc._send = counting
     svc.calculations()
     calls.clear()
     with pytest.raises(CalcServiceError):
