@@ -1,0 +1,265 @@
+"""The client with the lab's own tables: astropy Tables, DataFrames and Quantities in; QTables,
+DataFrames, Quantities and ``uncertainties`` values out; catalogues split to the published limits."""
+
+import socket
+import threading
+
+import numpy as np
+import pandas as pd
+import pytest
+from astropy import units as u
+from astropy.table import MaskedColumn, QTable, Table
+from astropy.utils.masked import Masked
+
+from calcservice import create_app
+from calcservice.client import CalcServiceError, Client
+
+from .conftest import post
+
+# Fictional systems of our own demo scenario.
+PERIOD = [41.6, 12.3, 5.07, 230.0]
+K1 = [23.4, 18.1, 41.0, 9.7]
+ECC = [0.31, 0.05, 0.0, 0.62]
+
+
+def _local(config):
+    """An in-process client of an app with these limits, published as WIRE.md's ``GET /v1/limits`` says
+    (added here while the app of this branch does not publish them itself)."""
+    from dataclasses import fields
+    app = create_app(config)
+    if not any(rule.rule == "/v1/limits" for rule in app.url_map.iter_rules()):
+        limits = app.config["CALCSERVICE_SETTINGS"].limits
+        app.add_url_rule("/v1/limits", "test_limits", lambda: {"limits": {
+            f.name: {"value": getattr(limits, f.name), "env": f"CALCSERVICE_{f.name.upper()}"} for f in fields(limits)}})
+    return Client(app=app)
+
+
+@pytest.fixture(scope="module")
+def svc():
+    return Client("local")
+
+
+def _http_columns(client, columns):
+    return post(client, "/v1/batch/sb1", {"columns": columns})[1]
+
+
+def test_qtable_with_units_masks_and_sigma_in_other_units(svc, client):
+    t = QTable()
+    t["star"] = ["A", "B", "C", "D"]
+    t["period"] = np.array(PERIOD) * 24.0 * u.h                       # astropy: 1 d = 24 h
+    t["period_sigma"] = [0.02, 0.01, 0.01, 0.5] * u.d
+    t["k1"] = Masked(np.array(K1) * 1000.0 * u.m / u.s, mask=[False, False, True, False])
+    t["eccentricity"] = MaskedColumn(ECC, mask=[False, False, False, True])
+    out = svc.batch("sb1", t, keep=["star"])
+    http = _http_columns(client, {"period": {"value": PERIOD, "sigma": [0.02, 0.01, 0.01, 0.5]},
+                                  "k1": {"value": [K1[0], K1[1], None, K1[3]]},
+                                  "eccentricity": {"value": [ECC[0], ECC[1], ECC[2], None]}})
+    expected = np.array([np.nan if v is None else v for v in http["columns"]["mass_function"]["value"]])
+    np.testing.assert_allclose(out["mass_function"], expected, rtol=1e-12)
+    assert out.failed == [2, 3]
+    table = out.to_table()
+    assert isinstance(table, QTable) and list(table["star"]) == ["A", "B", "C", "D"]
+    assert table["mass_function"].unit == u.solMass and table["a1_sin_i_sigma"].unit == u.au
+    assert list(table["mass_function"].mask) == [False, False, True, True]
+    assert table["error"][2].startswith("k1:") and table["error"][3].startswith("eccentricity:")
+    assert table["error"][0] == ""
+    assert table["mass_function"].unmasked.to_value(u.kg)[0] == pytest.approx(expected[0] * u.solMass.to(u.kg), rel=1e-12)
+
+
+def test_dataframe_without_units_is_refused_before_sending(svc):
+    calls = []
+    real = svc._send
+    svc._send = lambda *a: calls.append(a) or real(*a)
+    try:
+        svc.calculations()
+        calls.clear()
+        df = pd.DataFrame({"period": PERIOD, "k1": K1, "eccentricity": ECC})
+        with pytest.raises(ValueError) as info:
+            svc.batch("sb1", df)
+        assert str(info.value).startswith("period:") and "unit" in str(info.value)
+        assert calls == []
+    finally:
+        svc._send = real
+
+
+def test_dataframe_units_from_mapping_from_headers_and_from_its_own_answer(svc):
+    df = pd.DataFrame({"period": PERIOD, "k1": np.array(K1) * 1000.0, "eccentricity": ECC})
+    by_mapping = svc.batch("sb1", df, units={"period": "d", "k1": "m/s"})
+    named = df.rename(columns={"period": "period[d]", "k1": "k1[m/s]"})
+    by_header = svc.batch("sb1", named)
+    reference = svc.batch("sb1", {"period": PERIOD, "k1": K1, "eccentricity": ECC})    # default units: d, km/s
+    np.testing.assert_allclose(by_mapping["mass_function"], reference["mass_function"], rtol=1e-12)
+    np.testing.assert_allclose(by_header["mass_function"], reference["mass_function"], rtol=1e-12)
+    # a DataFrame of the client's own making carries its units in attrs, and reads back
+    back = reference.to_pandas()
+    assert back.attrs["units"]["a1_sin_i"] == "AU" or u.Unit(back.attrs["units"]["a1_sin_i"]) == u.au
+
+
+def test_one_nan_is_that_systems_error_not_the_batchs(svc):
+    df = pd.DataFrame({"period[d]": PERIOD, "k1[km/s]": [K1[0], np.nan, K1[2], K1[3]],
+                       "k1_sigma": [0.3, 0.2, None, 0.1], "eccentricity": ECC})
+    out = svc.batch("sb1", df)
+    assert out.failed == [1] and "k1" in out.errors[0]["errors"]
+    assert np.isfinite(out["mass_function"][[0, 2, 3]]).all()
+    # k1's sigma missing for system 2: computed as exact there
+    assert out.sigma["mass_function"][2] == 0.0 and out.sigma["mass_function"][0] > 0.0
+
+
+def test_mapping_of_quantities_with_sigma_in_another_unit(svc):
+    out = svc.batch("sb1", {"period": np.array(PERIOD) * u.d, "period_sigma": [24.0, 12.0, 12.0, 48.0] * u.h,
+                            "k1": np.array(K1) * u.km / u.s, "eccentricity": ECC})
+    ref = svc.batch("sb1", {"period": (PERIOD, [1.0, 0.5, 0.5, 2.0]), "k1": K1, "eccentricity": ECC})
+    np.testing.assert_allclose(out.sigma["mass_function"], ref.sigma["mass_function"], rtol=1e-12)
+    q = out.quantity("a1_sin_i")
+    assert q.unit == u.au and q.shape == (4,)
+
+
+def test_unknown_column_is_refused_unless_not_strict(svc):
+    t = Table({"period": PERIOD * u.d, "k1": K1 * u.km / u.s, "eccentricity": ECC, "ra": [1.0, 2, 3, 4]})
+    with pytest.raises(ValueError, match="^ra:"):
+        svc.batch("sb1", t)
+    assert len(svc.batch("sb1", t, strict=False)["mass_function"]) == 4
+
+
+def test_a_catalogue_is_split_to_the_published_limit_and_put_back_in_order(client):
+    small = _local({"MAX_BATCH_ROWS": 300})
+    n = 2000
+    rng = np.random.default_rng(5)
+    t = QTable({"period": rng.uniform(2.0, 400.0, n) * u.d, "k1": rng.uniform(5.0, 80.0, n) * u.km / u.s,
+                "eccentricity": MaskedColumn(rng.uniform(0.0, 0.8, n), mask=np.arange(n) % 97 == 5)})
+    calls = []
+    real = small._send
+    small._send = lambda m, target, data, h: calls.append(target) or real(m, target, data, h)
+    small.limits()
+    out = small.batch("sb1", t)
+    posts = [c for c in calls if c.startswith("/v1/batch/")]
+    assert len(posts) == 7                         # ceil(2000 / 300)
+    assert out.failed == [i for i in range(n) if i % 97 == 5]
+    # the same numbers as one request to an app without the lowered limit
+    whole = post(client, "/v1/batch/sb1", {"columns": {
+        "period": list(t["period"].value), "k1": list(t["k1"].value),
+        "eccentricity": [None if m else v for v, m in zip(t["eccentricity"].data, t["eccentricity"].mask)]}})[1]
+    expected = np.array([np.nan if v is None else v for v in whole["columns"]["mass_function"]["value"]])
+    np.testing.assert_array_equal(out["mass_function"], expected)
+    assert out.to_table()["mass_function"].mask.sum() == len(out.failed)
+
+
+def test_limits_published_by_the_service_are_read(svc):
+    limits = svc.limits(refresh=True)
+    assert limits["max_batch_rows"] >= 1 and limits["max_body_bytes"] >= 1
+
+
+def test_monte_carlo_catalogue_is_split_by_systems_times_draws():
+    svc = _local({"MAX_BATCH_DRAWS": 2000})
+    svc.limits()
+    assert svc._rows_per_request({"uncertainty": {"method": "monte_carlo", "samples": 500}}) == 4
+    out = svc.batch("sb1", {"period": (PERIOD, [0.1] * 4), "k1": K1, "eccentricity": ECC}, samples=500, seed=3)
+    assert out.count == 4 and np.isfinite(out.low["mass_function"]).all()
+
+
+def test_rows_of_systems_are_split_too():
+    svc = _local({"MAX_BATCH_ROWS": 3})
+    rows = [{"period": p, "k1": k, "eccentricity": e} for p, k, e in zip(PERIOD * 2, K1 * 2, ECC * 2)]
+    rows[4]["eccentricity"] = 1.5
+    out = svc.batch("sb1", rows)
+    assert out.count == 8 and out.failed == [4]
+    whole = Client("local").batch("sb1", rows)
+    np.testing.assert_array_equal(out["mass_function"], whole["mass_function"])
+    np.testing.assert_allclose(out["mass_function"][[5, 6, 7]], out["mass_function"][[1, 2, 3]], rtol=1e-15)
+
+
+# --------------------------------------------------------------------------- 413, not retried
+class _Refuser:
+    """A server that answers 413 on reading the headers and closes without reading the body."""
+
+    def __init__(self):
+        self.sock = socket.socket()
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(8)
+        self.accepted = 0
+        self.thread = threading.Thread(target=self._serve, daemon=True)
+        self.thread.start()
+
+    @property
+    def url(self):
+        return f"http://127.0.0.1:{self.sock.getsockname()[1]}"
+
+    def _serve(self):
+        body = (b'{"type":"/problems/too-large","title":"Request or work too large","status":413,'
+                b'"detail":"the request body is over the limit of 1000 bytes",'
+                b'"limit":{"name":"max_body_bytes","value":1000}}')
+        while True:
+            try:
+                conn, _ = self.sock.accept()
+            except OSError:
+                return
+            self.accepted += 1
+            data = b""
+            while b"\r\n\r\n" not in data:
+                chunk = conn.recv(65536)
+                if not chunk:
+                    break
+                data += chunk
+            conn.sendall(b"HTTP/1.1 413 Request Entity Too Large\r\nContent-Type: application/problem+json\r\n"
+                         + f"Content-Length: {len(body)}\r\nConnection: close\r\n\r\n".encode() + body)
+            conn.close()
+
+    def close(self):
+        self.sock.close()
+
+
+def test_a_413_is_raised_with_its_limit_and_never_resent():
+    server = _Refuser()
+    try:
+        svc = Client(server.url, timeout=10, retries=3, backoff=0.0)
+        with pytest.raises(CalcServiceError) as info:
+            svc._request("POST", "/v1/batch/sb1", b"x" * 8_000_000)
+        assert info.value.status == 413 and server.accepted == 1
+        assert info.value.limit == {"name": "max_body_bytes", "value": 1000}
+        assert "max_body_bytes" in str(info.value) or "limit of 1000 bytes" in str(info.value)
+    finally:
+        server.close()
+
+
+# --------------------------------------------------------------------------- results out
+def test_single_result_as_quantity_and_ufloat(svc):
+    r = svc.calculate("sb1", period=(41.6, 0.02), k1=(23.4, 0.3), eccentricity=0.31)
+    m = r["results"]["mass_function"]
+    assert r.quantity("mass_function") == m["value"] * u.solMass
+    x = r.ufloat("mass_function")
+    assert (x.nominal_value, x.std_dev) == (m["value"], m["sigma"])
+    html = r._repr_html_()
+    assert "<table>" in html and "mass_function" in html and "±" in html and "solMass" in html
+
+
+def test_batch_repr_html_is_a_small_table(svc):
+    out = svc.batch("sb1", {"period": PERIOD, "k1": K1, "eccentricity": [0.3, 0.1, 2.0, 0.2]})
+    html = out._repr_html_()
+    assert html.count("<tr>") == 5 and "eccentricity" in html and "1 failed" in html
+
+
+def test_correlated_outputs_agree_with_uncertainties(svc):
+    """Needs the service's output correlation (``covariance: true``, WIRE.md)."""
+    from uncertainties import correlation_matrix, ufloat
+    from uncertainties import umath
+    P, K1_, K2, e, i = (ufloat(41.6, 0.02), ufloat(38.2, 0.4), ufloat(51.7, 0.6), ufloat(0.31, 0.01),
+                        ufloat(71.0, 2.0))
+    # Hilditch (2001) eq. 2.51-2.52: M1,2 sin^3 i proportional to (1-e^2)^{3/2} (K1+K2)^2 K2,1 P; the constant
+    # cancels in correlations and relative sigmas, which is all that is compared here
+    s3 = umath.sin(umath.radians(i)) ** 3
+    m1 = (1 - e ** 2) ** 1.5 * (K1_ + K2) ** 2 * K2 * P / s3
+    m2 = (1 - e ** 2) ** 1.5 * (K1_ + K2) ** 2 * K1_ * P / s3
+    r = svc.calculate("sb2", period=(41.6, 0.02), k1=(38.2, 0.4), k2=(51.7, 0.6), eccentricity=(0.31, 0.01),
+                      inclination=(71.0, 2.0), covariance=True)
+    values = r.ufloats()
+    np.testing.assert_allclose(correlation_matrix([values["m1"], values["m2"]]), correlation_matrix([m1, m2]),
+                               rtol=1e-5, atol=1e-6)
+    total = values["m1"] + values["m2"]
+    assert total.std_dev / total.nominal_value == pytest.approx((m1 + m2).std_dev / (m1 + m2).nominal_value,
+                                                                rel=1e-5)
+
+
+def test_ufloats_without_covariance_says_how_to_ask(svc):
+    r = svc.calculate("sb1", period=(41.6, 0.02), k1=(23.4, 0.3), eccentricity=0.31)
+    with pytest.raises(ValueError, match="covariance=True"):
+        r.ufloats()
