@@ -494,13 +494,7 @@ class Client:
         return self._batch_columns(path, table, opts, show)
 
     def _rows_per_request(self, opts: Mapping[str, Any]) -> int:
-        limits = self.limits()
-        rows = limits["max_batch_rows"]
-        unc = opts.get("uncertainty") or {}
-        if unc.get("method") == "monte_carlo":
-            draws = int(unc.get("samples") or limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
-            rows = min(rows, max(1, limits["max_batch_draws"] // max(1, draws)))
-        return max(1, rows)
+        return rows_per_request(self.limits(), opts)
 
     def _chunks(self, n: int, encode, opts) -> Iterable[tuple[int, int, bytes]]:
         """(start, stop, body) for consecutive slices of ``n`` systems, each within the row and body limits."""
@@ -543,7 +537,7 @@ class Client:
         finally:
             if bar is not None:
                 bar.close()
-        out = _merge([(start, stop, _from_columns(answer, stop - start)) for start, stop, answer in parts], n)
+        out = merge_results([(start, stop, from_columns_answer(answer, stop - start)) for start, stop, answer in parts], n)
         out.kept = table.kept
         return out
 
@@ -561,7 +555,18 @@ class Client:
         finally:
             if bar is not None:
                 bar.close()
-        return _merge(parts, len(rows))
+        return merge_results(parts, len(rows))
+
+
+def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
+    """How many systems one batch request may hold under ``limits`` with these options (rows, and for
+    Monte Carlo systems x draws)."""
+    rows = int(limits.get("max_batch_rows", DEFAULT_LIMITS["max_batch_rows"]))
+    unc = opts.get("uncertainty") or {}
+    if unc.get("method") == "monte_carlo":
+        draws = int(unc.get("samples") or limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
+        rows = min(rows, int(limits.get("max_batch_draws", DEFAULT_LIMITS["max_batch_draws"])) // max(1, draws))
+    return max(1, rows)
 
 
 # --------------------------------------------------------------------------- tables in
@@ -612,19 +617,30 @@ def _to_array(col) -> np.ndarray:
     if arr.dtype.kind in "biuf":
         arr = arr.astype(float)
     elif arr.dtype.kind in "USO":
-        arr = np.array([_missing_to_none(v) for v in arr.tolist()], dtype=object)
-        try:
-            as_float = np.array([np.nan if v is None else v for v in arr.tolist()], dtype=float)
-            if not any(isinstance(v, str) for v in arr.tolist()):
-                arr = as_float
-        except (TypeError, ValueError):
-            pass
+        # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
+        items = [_number_or_text(_missing_to_none(v)) for v in arr.tolist()]
+        if all(v is None or (isinstance(v, float)) for v in items):
+            arr = np.array([np.nan if v is None else v for v in items], dtype=float)
+        else:
+            arr = np.array(items, dtype=object)
     else:
         arr = arr.astype(object)
     if mask is not None and mask.any():
         arr = arr.astype(float if arr.dtype.kind == "f" else object, copy=True)
         arr[mask] = np.nan if arr.dtype.kind == "f" else None
     return arr
+
+
+def _number_or_text(v):
+    if isinstance(v, str):
+        try:
+            x = float(v)
+        except ValueError:
+            return v
+        return x if math.isfinite(x) else v
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return float(v)
+    return v
 
 
 def _missing_to_none(v):
@@ -657,10 +673,15 @@ class InputTable:
 
     @classmethod
     def from_data(cls, data: Any, decl: Mapping[str, Any], units: Mapping[str, str] | None = None,
-                  keep: Sequence[str] = (), strict: bool = True) -> "InputTable":
+                  keep: Sequence[str] = (), strict: bool = True, require_units: bool | None = None) -> "InputTable":
+        """``data`` (see :meth:`Client.batch`) for the calculation declared by ``decl`` (its entry of
+        ``/v1/calculations``).  ``require_units``: refuse a dimensional column with no unit (default: for
+        Tables and DataFrames; a file read by the command line takes the input's default unit instead)."""
         inputs = {i["name"]: i for i in decl["inputs"]}
         units = dict(units or {})
         is_table = _is_astropy_table(data) or _is_dataframe(data)
+        if require_units is None:
+            require_units = is_table
         if _is_astropy_table(data):
             items = [(str(k), data[k]) for k in data.colnames]
         elif _is_dataframe(data):
@@ -717,7 +738,7 @@ class InputTable:
                 raise ValueError(f"{next(iter(members.values()))[0]}: sigmas given without the column {base}")
             label, col, unit = members["value"]
             spec = inputs[base]
-            entry = _column_entry(spec, label, col, unit, is_table)
+            entry = _column_entry(spec, label, col, unit, require_units)
             n = len(entry["value"])
             if count is not None and n != count:
                 raise ValueError(f"{label}: {n} values where the other columns have {count}")
@@ -771,7 +792,7 @@ def _is_missing(arr: np.ndarray) -> np.ndarray:
     return np.array([v is None for v in arr.tolist()], dtype=bool)
 
 
-def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | None, is_table: bool) -> dict:
+def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | None, require_unit: bool) -> dict:
     entry: dict[str, Any] = {}
     if isinstance(col, tuple):          # (values, sigmas[, sigma_plus][, unit])
         parts = list(col)
@@ -797,7 +818,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
     if kind == "integer" and values.dtype.kind == "f":
         values = np.array([None if math.isnan(v) else int(v) for v in values.tolist()], dtype=object)
     # a time is a Julian Date (or MJD with time_format) without a unit: nothing to guess there
-    if (is_table and unit is None and kind == "quantity" and spec.get("unit") and not spec.get("time")
+    if (require_unit and unit is None and kind == "quantity" and spec.get("unit") and not spec.get("time")
             and not (values.dtype == object and all(v is None or isinstance(v, str) for v in values.tolist()))):
         raise ValueError(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
                          "table gives it no unit: give the column a unit, name it "
@@ -913,7 +934,7 @@ def _array(values) -> np.ndarray:
     return np.array(values, dtype=float)        # null (None) becomes NaN
 
 
-def _from_columns(answer: Mapping[str, Any], n: int) -> BatchResult:
+def from_columns_answer(answer: Mapping[str, Any], n: int) -> BatchResult:
     values, sigma, low, high, unit = {}, {}, {}, {}, {}
     for name, col in (answer.get("columns") or {}).items():
         if not isinstance(col, Mapping) or not isinstance(col.get("value"), list):
@@ -964,7 +985,7 @@ def _from_rows(answer: Mapping[str, Any], decl: Mapping[str, Any]) -> BatchResul
     return BatchResult(values, sigma, low, high, unit, errors, [answer], warnings, correlation, count=n)
 
 
-def _merge(parts: list[tuple[int, int, BatchResult]], n: int) -> BatchResult:
+def merge_results(parts: list[tuple[int, int, BatchResult]], n: int) -> BatchResult:
     """The answers to consecutive slices as one result over all ``n`` systems, in input order."""
     if len(parts) == 1 and parts[0][:2] == (0, n):
         return parts[0][2]
@@ -1025,4 +1046,5 @@ def _problem_error(status: int, payload: bytes, method: str, path: str, sent: in
 
 
 __all__ = ["Client", "CalcServiceError", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
-           "DEFAULT_LIMITS", "problem_text", "dumps"]
+           "DEFAULT_LIMITS", "problem_text", "dumps",
+           "rows_per_request", "from_columns_answer", "merge_results"]
