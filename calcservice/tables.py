@@ -270,7 +270,7 @@ def encode_request(body: Mapping, media_type: str) -> bytes:
     lengths = {len(v) for entry in columns.values() for v in (entry.values() if isinstance(entry, dict) else [entry])
                if isinstance(v, (list, np.ndarray))}
     n = lengths.pop() if len(lengths) == 1 else 1
-    cols: list[tuple[str, Any, str | None]] = []
+    cols: list[tuple[str, Any, str, str | None]] = []     # name, values, kind, unit
     for name, entry in columns.items():
         if not isinstance(entry, dict):
             entry = {"value": entry}
@@ -280,19 +280,17 @@ def encode_request(body: Mapping, media_type: str) -> bytes:
                 v = entry[key]
                 if not isinstance(v, (list, np.ndarray)):
                     v = [v] * n
-                cols.append((name if key == "value" else f"{name}_{key}", _column_values(v), unit))
+                cols.append((name if key == "value" else f"{name}_{key}", *_column_values(v), unit))
     return _encode(cols, {}, media_type)
 
 
-def _column_values(v):
-    """Numbers as a float array (NaN for None), anything else as a list."""
+def _column_values(v) -> tuple[Any, str]:
+    """Numbers as a float array (NaN for None), anything else as text."""
     if isinstance(v, np.ndarray) and v.dtype.kind in "fiu":
-        return v.astype(float, copy=False)
-    try:
-        return np.array([np.nan if x is None else x for x in v], dtype=float) \
-            if all(x is None or (type(x) in (int, float)) for x in v) else list(v)
-    except (TypeError, ValueError):
-        return list(v)
+        return v.astype(float, copy=False), "float"
+    if all(x is None or (type(x) in (int, float)) for x in v):
+        return np.array([np.nan if x is None else x for x in v], dtype=float), "float"
+    return [None if x is None else str(x) for x in v], "text"
 
 
 # ----------------------------------------------------------------------------- answer: columns answer -> table
@@ -301,8 +299,13 @@ def encode_answer(response: Mapping, media_type: str) -> bytes:
     """A columns answer of ``compute_batch`` (numpy arrays with NaN, or lists with None) as an Arrow
     IPC stream, CSV or ECSV table; raises :class:`TableError` (406) for series outputs in CSV/ECSV."""
     n = int(response["count"])
-    cols: list[tuple[str, Any, str | None]] = []
-    extras: list[tuple[str, Any, str | None]] = []
+    if media_type != ARROW:
+        series = [name for name, entry in response["columns"].items() if isinstance(entry, dict) and
+                  _is_series(entry.get("value"))]
+        if series:
+            raise series_refused(series)
+    cols: list[tuple[str, Any, str, str | None]] = []        # name, values, kind, unit
+    extras = []
     for name, entry in response["columns"].items():
         if isinstance(entry, dict) and "value" in entry:
             unit = entry.get("unit") or None
@@ -311,36 +314,32 @@ def encode_answer(response: Mapping, media_type: str) -> bytes:
                     continue
                 col = name if key == "value" else f"{name}_{key}"
                 if isinstance(v, dict):             # e.g. terms of a variance budget: a column each
-                    cols.extend((f"{col}_{term}", _answer_values(a, n), None) for term, a in v.items())
+                    cols.extend((f"{col}_{term}", *_answer_values(a), None) for term, a in v.items())
                 else:
-                    cols.append((col, _answer_values(v, n), unit if key in UNIT_KEYS else None))
+                    cols.append((col, *_answer_values(v), unit if key in UNIT_KEYS else None))
         else:                                       # a member per system (an ephemeris' events): JSON text
-            extras.append((name, [None if x is None else json.dumps(x, separators=(",", ":")) for x in entry], "json"))
+            extras.append((name, [None if x is None else json.dumps(x, separators=(",", ":")) for x in entry],
+                           "json", None))
     status = np.zeros(n, dtype=np.int64)
-    failed = np.zeros(n, dtype=bool)
-    error: list[str | None] = [None] * n
+    failed = np.ones(n, dtype=bool)
+    error = np.full(n, None, dtype=object)
     for problem in response.get("errors", []):
         i = problem["index"]
-        status[i], failed[i] = problem["status"], True
+        status[i], failed[i] = problem["status"], False
         error[i] = error_text(problem)
-    cols.append(("error_status", np.ma.array(status, mask=~failed), None))
-    cols.append(("error", error, None))
-    cols.append(("warnings", warning_codes(response.get("warnings", []), n), None))
+    cols.append(("error_status", np.ma.array(status, mask=failed), "int", None))
+    cols.append(("error", error, "text", None))
+    cols.append(("warnings", warning_codes(response.get("warnings", []), n), "text", None))
     cols.extend(extras)
     meta_uncertainty = {}
     for key, v in (response.get("uncertainty") or {}).items():
         if isinstance(v, (np.ndarray, list)) and len(v) == n and key in ("rejected_fraction", "method"):
-            cols.append((UNCERTAINTY_PREFIX + key, _answer_values(v, n), None))
+            cols.append((UNCERTAINTY_PREFIX + key, *_answer_values(v), None))
         else:
             meta_uncertainty[key] = v.tolist() if isinstance(v, np.ndarray) else v
     meta = {"calculation": response.get("calculation"), "uncertainty": meta_uncertainty}
     if "provenance" in response:
         meta["provenance"] = response["provenance"]
-    if media_type != ARROW:
-        series = [name for name, entry in response["columns"].items() if isinstance(entry, dict) and
-                  _is_series(entry.get("value"))]
-        if series:
-            raise series_refused(series)
     return _encode(cols, meta, media_type)
 
 
@@ -367,23 +366,25 @@ def error_text(problem: Mapping) -> str:
 def warning_codes(warnings: list[Mapping], n: int) -> np.ndarray:
     """Each system's warning codes joined by ``;`` ("" for none), from columnar warnings (``rows``)."""
     codes = np.full(n, "", dtype=object)
-    rows_of: dict[str, set] = {}
+    rows_of: dict[str, np.ndarray] = {}
     for w in warnings:
-        rows_of.setdefault(w["code"], set()).update(w.get("rows", range(n)))
-    for code, rows in rows_of.items():
-        idx = np.fromiter(rows, dtype=np.int64, count=len(rows))
-        codes[idx] = np.where(codes[idx] == "", code, codes[idx] + ";" + code)
+        mask = rows_of.setdefault(w["code"], np.zeros(n, dtype=bool))
+        mask[np.asarray(w["rows"], dtype=np.int64) if "rows" in w else slice(None)] = True
+    for code, mask in rows_of.items():
+        codes[mask] = np.where(codes[mask] == "", code, codes[mask] + ";" + code)
     return codes
 
 
-def _answer_values(v, n: int):
-    """An answer member as a float array (NaN: null), an array (N, T) for a series without nulls,
-    or a list (strings, or a series with a null system)."""
-    if isinstance(v, np.ndarray):
-        return v if v.dtype.kind != "O" else list(v)
+def _answer_values(v) -> tuple[Any, str]:
+    """An answer member and its kind: "float" (an array, NaN: null), "series" (an array (N, T), or a
+    list with None for a system without one) or "text"."""
+    if isinstance(v, np.ndarray) and v.dtype.kind in "fiu":
+        return v, "float" if v.ndim == 1 else "series"
+    if _is_series(v):
+        return v, "series"
     if all(x is None or type(x) in (int, float) for x in v):
-        return np.array([np.nan if x is None else x for x in v], dtype=float)
-    return list(v)
+        return np.array([np.nan if x is None else x for x in v], dtype=float), "float"
+    return v, "text"
 
 
 def _encode(cols: list[tuple[str, Any, str | None]], meta: dict, media_type: str) -> bytes:
@@ -398,13 +399,11 @@ def _arrow(cols, meta: dict) -> bytes:
     import pyarrow as pa
 
     arrays, fields = [], []
-    for name, v, unit in cols:
-        field_meta = {}
-        if unit == "json":
-            field_meta, unit = {"content": "application/json"}, None
+    for name, v, kind, unit in cols:
+        field_meta = {"content": "application/json"} if kind == "json" else {}
         if unit:
             field_meta["unit"] = unit
-        arr = _arrow_array(pa, v)
+        arr = _arrow_array(pa, v, kind)
         arrays.append(arr)
         fields.append(pa.field(name, arr.type, metadata=field_meta or None))
     schema = pa.schema(fields, metadata={k: json.dumps(v, separators=(",", ":"), default=_json_default)
@@ -416,20 +415,18 @@ def _arrow(cols, meta: dict) -> bytes:
     return sink.getvalue().to_pybytes()
 
 
-def _arrow_array(pa, v):
-    if isinstance(v, np.ma.MaskedArray):
+def _arrow_array(pa, v, kind: str):
+    if kind == "int":
         return pa.array(v.data, mask=np.ma.getmaskarray(v))
-    if isinstance(v, np.ndarray) and v.dtype.kind == "f":
-        if v.ndim == 1:
-            return pa.array(v, from_pandas=True)          # NaN -> null
-        flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
-        return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
-    if isinstance(v, np.ndarray):
-        return pa.array(v.tolist())
-    if any(isinstance(x, (list, np.ndarray)) for x in v):          # a series with null systems
+    if kind == "float":
+        return pa.array(v, from_pandas=True)          # NaN -> null
+    if kind == "series":
+        if isinstance(v, np.ndarray):
+            flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
+            return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
         return pa.array([None if x is None else [None if y is None or y != y else float(y) for y in x] for x in v],
                         type=pa.list_(pa.float64()))
-    return pa.array(v)
+    return pa.array(v, type=pa.string(), from_pandas=True)
 
 
 def _json_default(o):
@@ -445,18 +442,16 @@ def _text(cols, meta: dict, ecsv: bool) -> bytes:
     from astropy.table import Column, MaskedColumn, Table
 
     table = Table()
-    for name, v, unit in cols:
-        if unit == "json":
-            unit = None
-        if isinstance(v, np.ma.MaskedArray):
+    for name, v, kind, unit in cols:
+        if kind == "int":
             data, mask = v.data, np.ma.getmaskarray(v)
-        elif isinstance(v, np.ndarray) and v.dtype.kind != "O":
-            data, mask = v, np.isnan(v) if v.dtype.kind == "f" else None
+        elif kind == "float":
+            data, mask = v, np.isnan(v)
         else:
             mask = np.array([x is None for x in v], dtype=bool)
             data = np.array(["" if x is None else str(x) for x in v], dtype=str)
         header = name if ecsv or not unit else f"{name}[{unit}]"
-        if mask is not None and mask.any():     # a masked column only where needed: it writes far slower
+        if mask.any():                          # a masked column only where needed: it writes far slower
             col = MaskedColumn(data, name=header, mask=mask)
         else:
             col = Column(data, name=header)
