@@ -181,12 +181,26 @@ class BatchResult(dict):
     def failed(self) -> list[int]:
         return sorted(e["index"] for e in self.errors if isinstance(e.get("index"), int))
 
-    def error_text(self) -> list[str]:
-        """For each system, what was wrong (the problem's field errors, ``field: message; ...``), or ""."""
+    def error_text(self, short: bool = False) -> list[str]:
+        """For each system, what was wrong (``detail; field: message; ...``; ``short``: the field errors
+        only), or "" when it was answered."""
         out = [""] * self.count
         for e in self.errors:
             if isinstance(e.get("index"), int) and 0 <= e["index"] < self.count:
-                out[e["index"]] = problem_text(e)
+                out[e["index"]] = problem_reason(e) if short else problem_text(e)
+        return out
+
+    def warning_codes(self) -> list[list[str]]:
+        """For each system, the codes of its warnings."""
+        out: list[list[str]] = [[] for _ in range(self.count)]
+        for k, w in enumerate(self.warnings or []):
+            if isinstance(w, Mapping):              # a columns answer: a warning names its rows (none: all)
+                rows = w["rows"] if "rows" in w else range(self.count)
+                for i in rows:
+                    if 0 <= i < self.count and w.get("code") not in out[i]:
+                        out[i].append(str(w.get("code")))
+            elif k < self.count:                    # rows, or an answer table: one list per system
+                out[k] = [str(c.get("code") if isinstance(c, Mapping) else c) for c in w]
         return out
 
     def quantity(self, name: str):
@@ -221,6 +235,7 @@ class BatchResult(dict):
                     arr = np.asarray(store[name], dtype=float)
                     t[column_name(name, member)] = Masked(arr * unit, mask=np.isnan(arr))
         t["error"] = self.error_text()
+        t["warnings"] = [";".join(codes) for codes in self.warning_codes()]
         t.meta["calculation"] = (self.response or {}).get("calculation")
         return t
 
@@ -237,6 +252,7 @@ class BatchResult(dict):
                     data[key] = np.asarray(store[name], dtype=float)
                     units[key] = self.unit.get(name, "")
         data["error"] = self.error_text()
+        data["warnings"] = [";".join(codes) for codes in self.warning_codes()]
         df = pd.DataFrame(data)
         df.attrs["units"] = units
         return df
@@ -256,10 +272,18 @@ class BatchResult(dict):
 
 
 def problem_text(problem: Mapping[str, Any]) -> str:
-    """A problem's field errors as ``field: message; ...`` (its detail when it names no field)."""
+    """A problem as the ``error`` column of the service's answer tables: ``detail; field: message; ...``."""
+    parts = [str(problem.get("detail", ""))] if problem.get("detail") else []
+    parts += [f"{k}: {' '.join(map(str, v)) if isinstance(v, list) else v}"
+              for k, v in (problem.get("errors") or {}).items()]
+    return "; ".join(parts)
+
+
+def problem_reason(problem: Mapping[str, Any]) -> str:
+    """What was wrong, shortly: the field errors ``field: message; ...`` (the detail when it names no field)."""
     errs = problem.get("errors") or {}
     if errs:
-        return "; ".join(f"{k}: {' '.join(v) if isinstance(v, list) else v}" for k, v in errs.items())
+        return "; ".join(f"{k}: {' '.join(map(str, v)) if isinstance(v, list) else v}" for k, v in errs.items())
     return str(problem.get("detail", ""))
 
 
@@ -287,12 +311,13 @@ class Client:
     network), as does ``app=`` with an app of your own.  ``timeout`` is seconds per request;
     connection errors are retried ``retries`` times with exponential back-off starting at
     ``backoff`` seconds.  ``progress`` shows a progress bar on catalogues sent in several
-    requests (default: when standard error is a terminal).
+    requests (default: when standard error is a terminal).  ``transport`` is how catalogues
+    travel: "arrow" (Apache Arrow IPC streams; the default when pyarrow is installed) or "json".
     """
 
     def __init__(self, base_url: str = "http://127.0.0.1:8000", timeout: float = 60.0, retries: int = 3,
                  backoff: float = 0.25, headers: Mapping[str, str] | None = None, *, app=None,
-                 progress: bool | None = None):
+                 progress: bool | None = None, transport: str | None = None):
         if base_url == "local" and app is None:
             from . import create_app
             app = create_app()
@@ -302,6 +327,15 @@ class Client:
         self.retries = max(0, int(retries))
         self.backoff = backoff
         self.progress = progress
+        if transport is None:
+            try:
+                import pyarrow  # noqa: F401
+                transport = "arrow"
+            except ImportError:
+                transport = "json"
+        if transport not in ("arrow", "json"):
+            raise ValueError(f"transport is 'arrow' or 'json', not {transport!r}")
+        self.transport = transport
         self.headers = {"User-Agent": USER_AGENT, **dict(headers or {})}
         self._catalogue: dict[str, dict] | None = None
         self._limits: dict[str, int] | None = None
@@ -527,17 +561,37 @@ class Client:
 
     def _batch_columns(self, path: str, table: "InputTable", opts: dict, show) -> BatchResult:
         n = table.count
+        # the outputs' correlation travels in JSON answers only
+        arrow = self.transport == "arrow" and not opts.get("covariance")
+        if arrow:
+            from .tables import decode_answer, encode_request
+            encode = lambda a, b: encode_request({"columns": table.json(a, b)}, ARROW)  # noqa: E731
+            query = {"options": dumps(opts).decode("utf-8")} if opts else None
+        else:
+            encode = lambda a, b: dumps({"columns": table.json(a, b), **opts})  # noqa: E731
         parts = []
         bar = self._bar(n, show, opts)
         try:
-            for start, stop, body in self._chunks(n, lambda a, b: dumps({"columns": table.json(a, b), **opts}), opts):
-                parts.append((start, stop, self._json("POST", path, body)))
+            for start, stop, body in self._chunks(n, encode, opts):
+                if arrow:
+                    try:
+                        _, _, payload = self._request("POST", path, body, query, accept=ARROW, content_type=ARROW)
+                    except CalcServiceError as e:
+                        if e.status not in (406, 415) or parts:
+                            raise
+                        # a service that does not take tables: the catalogue goes as JSON (a new request, not a retry)
+                        self.transport = "json"
+                        return self._batch_columns(path, table, opts, show)
+                    answer = decode_answer(payload, ARROW)
+                else:
+                    answer = self._json("POST", path, body)
+                parts.append((start, stop, from_columns_answer(answer, stop - start)))
                 if bar is not None:
                     bar.update(stop - start)
         finally:
             if bar is not None:
                 bar.close()
-        out = merge_results([(start, stop, from_columns_answer(answer, stop - start)) for start, stop, answer in parts], n)
+        out = merge_results(parts, n)
         out.kept = table.kept
         return out
 
@@ -931,21 +985,24 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
 
 # --------------------------------------------------------------------------- decoding
 def _array(values) -> np.ndarray:
-    return np.array(values, dtype=float)        # null (None) becomes NaN
+    return np.array(values, dtype=float)        # null (None) becomes NaN; an Arrow answer's arrays as they are
 
 
 def from_columns_answer(answer: Mapping[str, Any], n: int) -> BatchResult:
     values, sigma, low, high, unit = {}, {}, {}, {}, {}
     for name, col in (answer.get("columns") or {}).items():
-        if not isinstance(col, Mapping) or not isinstance(col.get("value"), list):
+        if not isinstance(col, Mapping) or not isinstance(col.get("value"), (list, np.ndarray)):
             continue
         try:
             values[name] = _array(col["value"])
         except (TypeError, ValueError):
             continue            # not numeric (e.g. nested series)
+        if values[name].ndim != 1:
+            del values[name]    # a series per system
+            continue
         unit[name] = col.get("unit", "")
         for store, key in ((sigma, "sigma"), (low, "low"), (high, "high")):
-            if isinstance(col.get(key), list):
+            if isinstance(col.get(key), (list, np.ndarray)):
                 store[name] = _array(col[key])
     return BatchResult(values, sigma, low, high, unit, list(answer.get("errors") or []), [answer],
                        list(answer.get("warnings") or []), answer.get("correlation"), count=n)
@@ -1005,12 +1062,14 @@ def merge_results(parts: list[tuple[int, int, BatchResult]], n: int) -> BatchRes
     errors = [{**e, "index": e["index"] + start} for start, _, r in parts for e in r.errors
               if isinstance(e.get("index"), int)]
     warnings: list = []
-    for start, _, r in parts:
-        for w in r.warnings or []:
-            if isinstance(w, Mapping):          # columns: each warning names its rows
-                warnings.append({**w, "rows": [i + start for i in w.get("rows", [])]})
-            else:                               # rows: one list per system
-                warnings.append(w)
+    if any(isinstance(w, Mapping) for _, _, r in parts for w in r.warnings or []):
+        for start, stop, r in parts:            # columns: each warning names its rows (none: all of its request)
+            warnings += [{**w, "rows": [i + start for i in w.get("rows", range(stop - start))]}
+                         for w in r.warnings or []]
+    else:
+        for start, stop, r in parts:            # rows, or answer tables: one list per system
+            own = list(r.warnings or [])
+            warnings += own + [[] for _ in range(stop - start - len(own))]
     correlation = None
     outputs = next((r.correlation["outputs"] for _, _, r in parts if r.correlation), None)
     if outputs:
@@ -1046,5 +1105,5 @@ def _problem_error(status: int, payload: bytes, method: str, path: str, sent: in
 
 
 __all__ = ["Client", "CalcServiceError", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
-           "DEFAULT_LIMITS", "problem_text", "dumps",
+           "DEFAULT_LIMITS", "problem_text", "problem_reason", "dumps",
            "rows_per_request", "from_columns_answer", "merge_results"]

@@ -417,7 +417,7 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
 def failure_summary(result) -> str:
     """How many systems failed and why, grouped by reason (the most frequent first)."""
     from collections import Counter
-    reasons = Counter(text for text in result.error_text() if text)
+    reasons = Counter(text for text in result.error_text(short=True) if text)
     failed = sum(reasons.values())
     if not failed:
         return "none failed"
@@ -440,11 +440,7 @@ def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None,
     for e in result.errors:
         if isinstance(e.get("index"), int):
             status[e["index"]] = int(e.get("status") or 422)
-    table["error_status"] = MaskedColumn(status, mask=status == 0)
-    error = table["error"]
-    table.remove_column("error")
-    table["error"] = error
-    table["warnings"] = _row_warnings(result)
+    table.add_column(MaskedColumn(status, mask=status == 0), name="error_status", index=table.colnames.index("error"))
     if ids is not None:
         table.add_column(ids, name=id_column, index=0)
     table.meta = {"calculation": calc.name}
@@ -470,17 +466,6 @@ def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None,
     except OSError as e:
         raise UsageError("--out", f"cannot write {path}: {e.strerror or e}") from None
     return len(result.failed)
-
-
-def _row_warnings(result) -> list[str]:
-    """Each system's warning codes joined by ``;`` ("" when none)."""
-    out: list[list[str]] = [[] for _ in range(result.count)]
-    for w in result.warnings or []:
-        if isinstance(w, dict):
-            for i in w.get("rows", []):
-                if 0 <= i < result.count and w.get("code") not in out[i]:
-                    out[i].append(str(w.get("code")))
-    return [";".join(codes) for codes in out]
 
 
 # --------------------------------------------------------------------------- the subcommand
