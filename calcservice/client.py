@@ -653,6 +653,11 @@ def _to_array(col) -> np.ndarray:
         if mask.any():
             col[mask] = None
         return col
+    if type(col).__module__.startswith("pandas"):              # a Series (nullable dtypes: pd.NA is missing)
+        try:
+            return col.to_numpy(dtype=float, na_value=np.nan)
+        except (TypeError, ValueError):
+            col = col.to_numpy(dtype=object)
     if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
         mask = np.asarray(col.mask)
         col = col.unmasked
@@ -661,13 +666,7 @@ def _to_array(col) -> np.ndarray:
         col = np.ma.getdata(col)
     if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, Mapping):
         col = col.value
-    if hasattr(col, "to_numpy") and not isinstance(col, np.ndarray):        # a pandas Series
-        try:
-            arr = col.to_numpy(dtype=float, na_value=np.nan)
-        except (TypeError, ValueError):
-            arr = col.to_numpy(dtype=object)
-    else:
-        arr = np.asarray(col)
+    arr = np.asarray(col)
     if arr.dtype.kind in "biuf":
         arr = arr.astype(float)
     elif arr.dtype.kind in "USO":

@@ -128,3 +128,9 @@ def test_a_long_catalogue_is_split_to_the_limit_with_a_progress_bar(tmp_path, ca
     whole = Client("local").batch("sb1", t, keep=["star"])          # one request: the default limit
     got = np.where(back["m2_min"].mask, np.nan, back["m2_min"].unmasked.to_value(u.solMass))
     np.testing.assert_array_equal(got, whole["m2_min"])
+
+
+def test_an_unreadable_file_is_one_line(tmp_path, capsys):
+    (tmp_path / "bad.fits").write_bytes(b"not a FITS file\x00\x01")
+    code, _, err = run(capsys, "sb1", "--in", str(tmp_path / "bad.fits"), "--out", str(tmp_path / "o.csv"))
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "--in" in err and "bad.fits" in err
