@@ -301,3 +301,75 @@ def test_a_service_without_tables_is_sent_json():
     svc = Client(app=app, transport="arrow")
     out = svc.batch("sb1", {"period": PERIOD, "k1": K1, "eccentricity": ECC})
     assert svc.transport == "json" and np.isfinite(out["mass_function"]).all()
+
+
+def test_pandas_nullable_columns_are_missing_where_na():
+    df = pd.DataFrame({"period[d]": pd.array([41.6, None, 12.3], dtype="Float64"), "k1[km/s]": K1[:3],
+                       "eccentricity": pd.array([0.31, 0.05, pd.NA], dtype="Float64")})
+    out = Client("local").batch("sb1", df)
+    assert out.failed == [1, 2]
+    assert "period: is required" in out.error_text()[1] and "eccentricity: is required" in out.error_text()[2]
+
+
+def test_a_catalogue_is_split_to_the_body_limit(client):
+    svc = _local({"MAX_BODY_BYTES": 20_000})
+    n = 2000
+    rng = np.random.default_rng(8)
+    t = QTable({"period": rng.uniform(2.0, 400.0, n) * u.d, "k1": rng.uniform(5.0, 80.0, n) * u.km / u.s,
+                "eccentricity": rng.uniform(0.0, 0.8, n)})
+    sizes = []
+    real = svc._send
+    svc._send = lambda m, target, data, h: (sizes.append(len(data)) if data else None) or real(m, target, data, h)
+    out = svc.batch("sb1", t)
+    assert len(sizes) > 2 and max(sizes) <= 20_000
+    whole = Client("local").batch("sb1", t)
+    np.testing.assert_array_equal(out["mass_function"], whole["mass_function"])
+
+
+def test_campbell_elements_correlated_as_uncertainties_says(svc):
+    """Needs the service's output correlation (``covariance: true``, WIRE.md)."""
+    from uncertainties import correlation_matrix, ufloat
+    from uncertainties import umath
+    # fictional Thiele-Innes constants (mas)
+    A, B, F, G = ufloat(2.1, 0.05), ufloat(8.3, 0.06), ufloat(-9.4, 0.07), ufloat(1.7, 0.05)
+    # Heintz (1978), Double Stars: u = (A^2+B^2+F^2+G^2)/2, v = AG - BF, a^2 = u + sqrt(u^2 - v^2),
+    # cos i = v / a^2 (from memory)
+    uu = (A ** 2 + B ** 2 + F ** 2 + G ** 2) / 2
+    v = A * G - B * F
+    a = umath.sqrt(uu + umath.sqrt(uu ** 2 - v ** 2))
+    i = umath.degrees(umath.acos(v / a ** 2))
+    r = svc.calculate("campbell", A=(2.1, 0.05), B=(8.3, 0.06), F=(-9.4, 0.07), G=(1.7, 0.05), covariance=True)
+    assert r.quantity("angular_semimajor_axis").value == pytest.approx(a.nominal_value, rel=1e-9)
+    values = r.ufloats()
+    ours = correlation_matrix([values["angular_semimajor_axis"], values["inclination"]])
+    np.testing.assert_allclose(ours, correlation_matrix([a, i]), rtol=1e-5, atol=1e-6)
+
+
+def test_batch_ufloats_per_system(svc):
+    """Needs the service's output correlation in a columns answer (WIRE.md)."""
+    cols = {"period": (PERIOD, [0.02] * 4), "k1": (K1, [0.3] * 4), "k2": ([30.2, 25.0, 50.0, 12.0], [0.4] * 4),
+            "eccentricity": [0.31, 0.05, 1.5, 0.62], "inclination": ([71.0, 80.0, 65.0, 88.0], [2.0] * 4)}
+    out = svc.batch("sb2", cols, covariance=True)
+    one = svc.calculate("sb2", period=(PERIOD[0], 0.02), k1=(K1[0], 0.3), k2=(30.2, 0.4), eccentricity=0.31,
+                        inclination=(71.0, 2.0), covariance=True).ufloats()
+    many = out.ufloats(0)
+    total, ref = many["m1"] + many["m2"], one["m1"] + one["m2"]
+    assert total.std_dev == pytest.approx(ref.std_dev, rel=1e-9)
+    with pytest.raises(ValueError, match="not answered"):
+        out.ufloats(2)
+
+
+def test_ufloats_rebuild_the_covariance_of_a_wire_answer():
+    # an answer of WIRE.md's shape, its correlation taken from uncertainties' own propagation
+    from uncertainties import correlation_matrix, covariance_matrix, ufloat
+
+    from calcservice.client import Result
+    x, y = ufloat(2.0, 0.1), ufloat(3.0, 0.2)
+    s, d = x + y, x * y
+    answer = Result({"calculation": "demo", "results": {
+        "s": {"value": s.nominal_value, "sigma": s.std_dev, "unit": "solMass"},
+        "d": {"value": d.nominal_value, "sigma": d.std_dev, "unit": "solMass2"}},
+        "correlation": {"outputs": ["s", "d"], "matrix": correlation_matrix([s, d]).tolist()}})
+    values = answer.ufloats()
+    np.testing.assert_allclose(covariance_matrix([values["s"], values["d"]]), covariance_matrix([s, d]), rtol=1e-12)
+    assert (values["s"] - values["d"]).std_dev == pytest.approx((s - d).std_dev, rel=1e-12)
