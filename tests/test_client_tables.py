@@ -373,3 +373,12 @@ def test_ufloats_rebuild_the_covariance_of_a_wire_answer():
     values = answer.ufloats()
     np.testing.assert_allclose(covariance_matrix([values["s"], values["d"]]), covariance_matrix([s, d]), rtol=1e-12)
     assert (values["s"] - values["d"]).std_dev == pytest.approx((s - d).std_dev, rel=1e-12)
+
+
+def test_progress_bar_when_asked(capsys):
+    svc = _local({"MAX_BATCH_ROWS": 2})
+    svc.batch("sb1", {"period": PERIOD, "k1": K1, "eccentricity": ECC}, progress=True)
+    err = capsys.readouterr().err
+    assert "/4" in err and "system" in err                 # tqdm's bar on standard error
+    svc.batch("sb1", {"period": PERIOD, "k1": K1, "eccentricity": ECC})
+    assert capsys.readouterr().err == ""                    # not a terminal, not asked: no bar
