@@ -447,9 +447,8 @@ def _text(cols, meta: dict, ecsv: bool) -> bytes:
             data, mask = v.data, np.ma.getmaskarray(v)
         elif kind == "float":
             data, mask = v, np.isnan(v)
-        else:
-            mask = np.array([x is None for x in v], dtype=bool)
-            data = np.array(["" if x is None else str(x) for x in v], dtype=str)
+        else:       # text: empty where there is none (astropy writes masked entries one by one, far slower)
+            data, mask = np.array(["" if x is None else str(x) for x in v], dtype=str), np.zeros(len(v), dtype=bool)
         header = name if ecsv or not unit else f"{name}[{unit}]"
         if mask.any():                          # a masked column only where needed: it writes far slower
             col = MaskedColumn(data, name=header, mask=mask)
