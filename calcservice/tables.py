@@ -178,10 +178,11 @@ def _quantity_values(values):
     numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word."""
     if isinstance(values, np.ndarray):
         return values
-    try:
-        return np.array([np.nan if v is None else v for v in values], dtype=float)
-    except (TypeError, ValueError):
-        pass
+    if all(v is None or type(v) is str for v in values):      # not booleans: true is no number here
+        try:
+            return np.array([np.nan if v is None else v for v in values], dtype=float)
+        except ValueError:
+            pass
     out = []
     for v in values:
         if isinstance(v, str):
@@ -226,7 +227,7 @@ def _read_text(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | Non
     from astropy.table import Table
 
     try:
-        text = data.decode("utf-8")
+        text = data.decode("utf-8-sig")         # a spreadsheet's byte order mark is no part of a name
     except UnicodeDecodeError as e:
         raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
     ecsv = is_ecsv(text)
@@ -447,9 +448,8 @@ def _text(cols, meta: dict, ecsv: bool) -> bytes:
             data, mask = v.data, np.ma.getmaskarray(v)
         elif kind == "float":
             data, mask = v, np.isnan(v)
-        else:
-            mask = np.array([x is None for x in v], dtype=bool)
-            data = np.array(["" if x is None else str(x) for x in v], dtype=str)
+        else:       # text: empty where there is none (astropy writes masked entries one by one, far slower)
+            data, mask = np.array(["" if x is None else str(x) for x in v], dtype=str), np.zeros(len(v), dtype=bool)
         header = name if ecsv or not unit else f"{name}[{unit}]"
         if mask.any():                          # a masked column only where needed: it writes far slower
             col = MaskedColumn(data, name=header, mask=mask)

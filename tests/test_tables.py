@@ -346,3 +346,27 @@ def test_isotropic_inclination_and_choices_travel_as_strings(client):
     csv = b"flux_density,frequency,distance,vinf,wind_type\n1.8,8.4,2.1,1700,wn\n1.8,8.4,2.1,1700,oops\n"
     answer = tables.decode_answer(post_table(client, "mass-loss-radio", csv, tables.CSV).data, tables.CSV)
     assert [e["index"] for e in answer["errors"]] == [1] and "wind_type" in answer["errors"][0]["detail"]
+
+
+def test_spreadsheet_csv_and_odd_columns(client):
+    # a byte order mark (spreadsheets write one), a sigma column with its own unit in the header
+    csv = "\ufeffperiod,period_sigma[h],k1,k2,eccentricity\n41.6,0.48,38.2,51.7,0.31\n".encode("utf-8")
+    r = post_table(client, "sb2", csv, tables.CSV, accept="application/json")
+    assert r.status_code == 200, r.get_json()
+    reference = json_answer(client, "sb2", {"period": {"value": [41.6], "sigma": [0.02]}, "k1": [38.2],
+                                            "k2": [51.7], "eccentricity": [0.31]}, {})
+    # 0.48 h = 0.02 d exactly in decimal, not in binary: the same to rounding
+    np.testing.assert_allclose(r.get_json()["columns"]["m1_sin3i"]["sigma"],
+                               reference["columns"]["m1_sin3i"]["sigma"], rtol=1e-12)
+    # booleans are not numbers (as in JSON): that system's error, in place
+    t = pa.table({"period": [41.6, 41.6], "k1": [38.2, 38.2], "k2": [51.7, 51.7], "eccentricity": [0.3, 0.3],
+                  "inclination": pa.array([True, None])})
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, t.schema) as w:
+        w.write_table(t)
+    answer = tables.decode_answer(post_table(client, "sb2", sink.getvalue().to_pybytes(), tables.ARROW).data,
+                                  tables.ARROW)
+    assert [e["index"] for e in answer["errors"]] == [0] and "inclination" in answer["errors"][0]["detail"]
+    # no rows at all
+    r = post_table(client, "sb2", b"period,k1,k2,eccentricity\n", tables.CSV)
+    assert r.status_code == 422
