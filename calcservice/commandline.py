@@ -455,13 +455,15 @@ def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None,
     table.meta = {"calculation": calc.name}
     if fmt == "ascii.csv":
         # plain CSV has no unit metadata: the unit goes into the header, as the reader takes it
+        # (in the service's own spelling of the unit: "au", not astropy's "AU")
+        from .columns import column_name
+        spelled = {column_name(name, member): result.unit.get(name) or ""
+                   for name in result for member in ("value", "sigma", "low", "high")}
         plain = Table(masked=True)
         for name in table.colnames:
             col = table[name]
-            unit = getattr(col, "unit", None)
-            if unit is not None and hasattr(col, "unmasked"):
-                plain[f"{name}[{unit.to_string()}]" if unit.to_string() else name] = MaskedColumn(
-                    col.unmasked.value, mask=col.mask)
+            if name in spelled and hasattr(col, "unmasked"):
+                plain[column_name(name, "value", spelled[name])] = MaskedColumn(col.unmasked.value, mask=col.mask)
             else:
                 plain[name] = col
         table = plain

@@ -23,15 +23,8 @@ ECC = [0.31, 0.05, 0.0, 0.62]
 
 
 def _local(config):
-    """An in-process client of an app with these limits, published as WIRE.md's ``GET /v1/limits`` says
-    (added here while the app of this branch does not publish them itself)."""
-    from dataclasses import fields
-    app = create_app(config)
-    if not any(rule.rule == "/v1/limits" for rule in app.url_map.iter_rules()):
-        limits = app.config["CALCSERVICE_SETTINGS"].limits
-        app.add_url_rule("/v1/limits", "test_limits", lambda: {"limits": {
-            f.name: {"value": getattr(limits, f.name), "env": f"CALCSERVICE_{f.name.upper()}"} for f in fields(limits)}})
-    return Client(app=app)
+    """An in-process client of an app with these limits (published at ``GET /v1/limits``)."""
+    return Client.local(config)
 
 
 @pytest.fixture(scope="module")
