@@ -66,7 +66,8 @@ class CalcServiceError(Exception):
     def __str__(self) -> str:
         head = f"{self.status} {self.detail}" if self.status else str(self.args[0])
         if self.limit and str(self.limit.get("name")) not in head:
-            head += f" (limit {self.limit.get('name')} = {self.limit.get('value')})"
+            head += f" (limit {self.limit.get('name')}" + (
+                f" = {self.limit['value']})" if self.limit.get("value") is not None else ")")
         if self.errors:
             head += " (" + "; ".join(f"{k}: {' '.join(v)}" for k, v in self.errors.items()) + ")"
         return head
@@ -1095,11 +1096,13 @@ def _problem_error(status: int, payload: bytes, method: str, path: str, sent: in
     problem = problem or {"status": status, "detail": detail}
     if status == 413 and not isinstance(problem.get("limit"), dict) and "body" in detail:
         # a service that does not yet name the limit it applied: the body's is the one in question
-        value = (limits or {}).get("max_body_bytes")
-        problem["limit"] = {"name": "max_body_bytes", "value": value, "sent": sent}
+        problem["limit"] = {"name": "max_body_bytes", "sent": sent}
+        if (limits or {}).get("max_body_bytes") is not None:
+            problem["limit"]["value"] = limits["max_body_bytes"]
     message = f"{method} {path}: {status} {detail}"
-    if status == 413 and isinstance(problem.get("limit"), dict) and problem["limit"].get("name") not in detail:
-        message += f" (limit {problem['limit'].get('name')} = {problem['limit'].get('value')})"
+    limit = problem.get("limit")
+    if status == 413 and isinstance(limit, dict) and limit.get("name") not in detail:
+        message += f" (limit {limit.get('name')}" + (f" = {limit['value']})" if "value" in limit else ")")
     return CalcServiceError(message, status, problem)
 
 

@@ -375,3 +375,29 @@ def test_progress_bar_when_asked(capsys):
     assert "/4" in err and "system" in err                 # tqdm's bar on standard error
     svc.batch("sb1", {"period": PERIOD, "k1": K1, "eccentricity": ECC})
     assert capsys.readouterr().err == ""                    # not a terminal, not asked: no bar
+
+
+def test_one_catalogue_as_ecsv_file_qtable_and_dataframe_in_one_call_each(tmp_path):
+    # issue 14's check, scaled down: the limit lowered to 300 systems so that 2,000 are split
+    svc = _local({"MAX_BATCH_ROWS": 300})
+    n = 2000
+    rng = np.random.default_rng(21)
+    t = QTable()
+    t["star"] = [f"Fict-{k}" for k in range(n)]
+    t["period"] = rng.uniform(2.0, 900.0, n) * u.d
+    t["period_sigma"] = rng.uniform(0.5, 5.0, n) * u.h
+    t["k1"] = MaskedColumn(rng.uniform(5.0, 90.0, n), unit=u.km / u.s, mask=np.arange(n) % 111 == 3)
+    t["eccentricity"] = MaskedColumn(rng.uniform(0.0, 0.8, n), mask=np.arange(n) % 97 == 5)
+    t["primary_mass"] = rng.uniform(0.8, 3.0, n) * u.solMass
+    t.write(tmp_path / "cat.ecsv")
+    from_file = svc.batch("sb1", QTable.read(tmp_path / "cat.ecsv"), keep=["star"]).to_table()
+    from_qtable = svc.batch("sb1", t, keep=["star"]).to_table()
+    df = t.to_pandas()
+    df.attrs["units"] = {"period": "d", "period_sigma": "h", "k1": "km/s", "primary_mass": "solMass"}
+    from_pandas = svc.batch("sb1", df, keep=["star"]).to_table()
+    failed = sorted({k for k in range(n) if k % 111 == 3 or k % 97 == 5})
+    for out in (from_file, from_qtable, from_pandas):
+        assert out["m2_min"].unit == u.solMass and len(out) == n
+        assert np.flatnonzero(out["m2_min"].mask).tolist() == failed
+        assert all(out["error"][k] for k in failed) and not any(out["error"][k] for k in (0, 1, 2, 4))
+        np.testing.assert_array_equal(out["m2_min"].unmasked.value, from_file["m2_min"].unmasked.value)
