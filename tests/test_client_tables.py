@@ -12,7 +12,7 @@ from astropy.table import MaskedColumn, QTable, Table
 from astropy.utils.masked import Masked
 
 from calcservice import create_app
-from calcservice.client import CalcServiceError, Client
+from calcservice.client import CalcServiceError, Client, rows_per_request
 
 from .conftest import post
 
@@ -56,7 +56,8 @@ def test_qtable_with_units_masks_and_sigma_in_other_units(svc, client):
     assert list(table["mass_function"].mask) == [False, False, True, True]
     assert "k1: is required" in table["error"][2] and "eccentricity: is required" in table["error"][3]
     assert table["error"][0] == ""
-    assert table["mass_function"].unmasked.to_value(u.kg)[0] == pytest.approx(expected[0] * u.solMass.to(u.kg), rel=1e-12)
+    kg = table["mass_function"].unmasked.to_value(u.kg)[0]
+    assert kg == pytest.approx(expected[0] * u.solMass.to(u.kg), rel=1e-12)
 
 
 def test_dataframe_without_units_is_refused_before_sending(svc):
@@ -145,7 +146,7 @@ def test_limits_published_by_the_service_are_read(svc):
 def test_monte_carlo_catalogue_is_split_by_systems_times_draws():
     svc = _local({"MAX_BATCH_DRAWS": 2000})
     svc.limits()
-    assert svc._rows_per_request({"uncertainty": {"method": "monte_carlo", "samples": 500}}) == 4
+    assert rows_per_request(svc.limits(), {"uncertainty": {"method": "monte_carlo", "samples": 500}}) == 4
     out = svc.batch("sb1", {"period": (PERIOD, [0.1] * 4), "k1": K1, "eccentricity": ECC}, samples=500, seed=3)
     assert out.count == 4 and np.isfinite(out.low["mass_function"]).all()
 

@@ -10,7 +10,8 @@ from .conftest import post
 SB1 = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31, "primary_mass": 1.9, "inclination": 71.0}
 
 
-@pytest.mark.parametrize("text", ["%", "µas", "μas", "°", "″", "′", "Å", "M☉", "km s-1", "mas yr^-1", "solMass / yr"])
+@pytest.mark.parametrize("text", ["%", "µas", "μas", "°", "″", "′", "Å", "M☉", "km s-1", "mas yr^-1",
+                                  "solMass / yr"])
 def test_every_unit_astropy_reads_is_accepted(text):
     # astropy itself is the reference: what it parses, we parse, to the same unit
     assert parse_unit(text) == u.Unit(text)
