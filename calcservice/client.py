@@ -156,11 +156,12 @@ class BatchResult(dict):
     ({"index": i, "status": ..., "detail": ..., "errors": {...}}), ``warnings`` the warnings
     (columns: each with the ``rows`` it applies to), ``correlation`` the outputs' correlation
     ({"outputs": [...], "matrix": [m x m or None per system]}, with ``covariance=True``),
-    ``kept`` the caller's columns carried along (``keep=``), ``responses`` the raw answers (one per request).
+    ``kept`` the caller's columns carried along (``keep=``), ``extras`` other members per system (an
+    ephemeris' events), ``responses`` the raw answers (one per request).  A series output is (N, T).
     """
 
     def __init__(self, values, sigma, low, high, unit, errors, responses, warnings=None, correlation=None,
-                 count=None, kept=None):
+                 count=None, kept=None, extras=None):
         super().__init__(values)
         self.sigma = sigma
         self.low = low
@@ -172,6 +173,7 @@ class BatchResult(dict):
         self.responses = responses
         self.count = count if count is not None else (len(next(iter(values.values()))) if values else 0)
         self.kept = dict(kept or {})
+        self.extras = dict(extras or {})
 
     @property
     def response(self):
@@ -235,6 +237,8 @@ class BatchResult(dict):
                 if name in store:
                     arr = np.asarray(store[name], dtype=float)
                     t[column_name(name, member)] = Masked(arr * unit, mask=np.isnan(arr))
+        for name, entries in self.extras.items():
+            t[name] = [_json_text(x) for x in entries]
         t["error"] = self.error_text()
         t["warnings"] = [";".join(codes) for codes in self.warning_codes()]
         t.meta["calculation"] = (self.response or {}).get("calculation")
@@ -250,8 +254,11 @@ class BatchResult(dict):
             for member, store in (("value", self), ("sigma", self.sigma), ("low", self.low), ("high", self.high)):
                 if name in store:
                     key = column_name(name, member)
-                    data[key] = np.asarray(store[name], dtype=float)
+                    arr = np.asarray(store[name], dtype=float)
+                    data[key] = arr if arr.ndim == 1 else list(arr)     # a series: an array per system
                     units[key] = self.unit.get(name, "")
+        for name, entries in self.extras.items():
+            data[name] = [_json_text(x) for x in entries]
         data["error"] = self.error_text()
         data["warnings"] = [";".join(codes) for codes in self.warning_codes()]
         df = pd.DataFrame(data)
@@ -259,7 +266,7 @@ class BatchResult(dict):
         return df
 
     def _repr_html_(self, limit: int = 20) -> str:
-        names = list(self)
+        names = [n for n in self if np.ndim(self[n]) == 1]
         rows = []
         errors = self.error_text()
         for i in range(min(self.count, limit)):
@@ -270,6 +277,10 @@ class BatchResult(dict):
         title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
                  f"{len(self.failed)} failed{more}")
         return _html_table(title, header, rows)
+
+
+def _json_text(x) -> str:
+    return "" if x is None else orjson.dumps(x, option=orjson.OPT_SERIALIZE_NUMPY).decode("utf-8")
 
 
 def problem_text(problem: Mapping[str, Any]) -> str:
@@ -566,8 +577,13 @@ class Client:
         arrow = self.transport == "arrow" and not opts.get("covariance")
         if arrow:
             from .tables import decode_answer, encode_request
-            encode = lambda a, b: encode_request({"columns": table.json(a, b)}, ARROW)  # noqa: E731
-            query = {"options": dumps(opts).decode("utf-8")} if opts else None
+            # one value for every system (and a series) goes with the options, as a table holds a value per system
+            shared = table.shared()
+
+            def encode(a, b):
+                return encode_request({"columns": {k: v for k, v in table.json(a, b).items() if k not in shared}},
+                                      ARROW)
+            query = {"options": dumps({**opts, **shared}).decode("utf-8")} if opts or shared else None
         else:
             encode = lambda a, b: dumps({"columns": table.json(a, b), **opts})  # noqa: E731
         parts = []
@@ -772,7 +788,8 @@ class InputTable:
             unit = _unit_of(col) or label_unit or units.get(label) or units.get(name)
             if member == "value" and unit is None:
                 unit = units.get(base)
-            if not is_table and member == "value" and not _is_column(col):
+            # in a mapping, a series input's list is the series, the same for every system
+            if not is_table and member == "value" and (not _is_column(col) or spec.get("kind") == "series"):
                 scalars[base] = col
                 continue
             parts.setdefault(base, {})[member] = (label, col, unit)
@@ -815,6 +832,11 @@ class InputTable:
             if len(col) != count:
                 raise ValueError(f"{label}: {len(col)} values where the inputs have {count}")
         return cls(count, columns, kept)
+
+    def shared(self) -> dict:
+        """The inputs given once for every system (as the JSON of the wire contract)."""
+        return {k: v for k, v in self.columns.items()
+                if not (isinstance(v, dict) and isinstance(v.get("value"), np.ndarray))}
 
     def json(self, start: int, stop: int) -> dict:
         """Systems ``start:stop`` as the ``columns`` member of a JSON batch body (NaN as null)."""
@@ -989,23 +1011,43 @@ def _array(values) -> np.ndarray:
 
 
 def from_columns_answer(answer: Mapping[str, Any], n: int) -> BatchResult:
-    values, sigma, low, high, unit = {}, {}, {}, {}, {}
+    """A columns answer (JSON, or an answer table decoded by :func:`calcservice.tables.decode_answer`) of
+    ``n`` systems as a :class:`BatchResult`."""
+    values, sigma, low, high, unit, extras = {}, {}, {}, {}, {}, {}
     for name, col in (answer.get("columns") or {}).items():
+        if isinstance(col, list) and len(col) == n:
+            extras[name] = col                      # a member per system (an ephemeris' events)
+            continue
         if not isinstance(col, Mapping) or not isinstance(col.get("value"), (list, np.ndarray)):
             continue
-        try:
-            values[name] = _array(col["value"])
-        except (TypeError, ValueError):
-            continue            # not numeric (e.g. nested series)
-        if values[name].ndim != 1:
-            del values[name]    # a series per system
+        arr = _numbers(col["value"])
+        if arr is None:
             continue
+        values[name] = arr                          # (N,), or (N, T) for a series per system
         unit[name] = col.get("unit", "")
         for store, key in ((sigma, "sigma"), (low, "low"), (high, "high")):
             if isinstance(col.get(key), (list, np.ndarray)):
-                store[name] = _array(col[key])
+                member = _numbers(col[key])
+                if member is not None:
+                    store[name] = member
     return BatchResult(values, sigma, low, high, unit, list(answer.get("errors") or []), [answer],
-                       list(answer.get("warnings") or []), answer.get("correlation"), count=n)
+                       list(answer.get("warnings") or []), answer.get("correlation"), count=n, extras=extras)
+
+
+def _numbers(values) -> np.ndarray | None:
+    """Numbers per system as a float array, NaN where null: (N,) or, for series, (N, T); None if not numbers."""
+    try:
+        return np.array(values, dtype=float)
+    except (TypeError, ValueError):
+        pass
+    rows = [v for v in values if v is not None]
+    if not rows or not all(isinstance(v, (list, np.ndarray)) for v in rows):
+        return None
+    width = len(rows[0])
+    try:
+        return np.array([np.full(width, np.nan) if v is None else v for v in values], dtype=float)
+    except (TypeError, ValueError):
+        return None
 
 
 def _from_rows(answer: Mapping[str, Any], decl: Mapping[str, Any]) -> BatchResult:
@@ -1051,7 +1093,8 @@ def merge_results(parts: list[tuple[int, int, BatchResult]], n: int) -> BatchRes
         names = {k: None for _, _, r in parts for k in store_of(r)}
         out = {}
         for k in names:
-            arr = np.full(n, np.nan)
+            shape = next(np.shape(store_of(r)[k])[1:] for _, _, r in parts if k in store_of(r))
+            arr = np.full((n, *shape), np.nan)
             for start, stop, r in parts:
                 if k in store_of(r):
                     arr[start:stop] = store_of(r)[k]
@@ -1078,9 +1121,12 @@ def merge_results(parts: list[tuple[int, int, BatchResult]], n: int) -> BatchRes
             same = r.correlation and list(r.correlation["outputs"]) == list(outputs)
             matrix += list(r.correlation["matrix"]) if same else [None] * (stop - start)
         correlation = {"outputs": list(outputs), "matrix": matrix}
+    extras: dict[str, list] = {}
+    for name in {k: None for _, _, r in parts for k in r.extras}:
+        extras[name] = [x for start, stop, r in parts for x in r.extras.get(name, [None] * (stop - start))]
     return BatchResult(stitched(lambda r: r), stitched(lambda r: r.sigma), stitched(lambda r: r.low),
                        stitched(lambda r: r.high), unit, errors, [a for _, _, r in parts for a in r.responses],
-                       warnings, correlation, count=n)
+                       warnings, correlation, count=n, extras=extras)
 
 
 def _problem_error(status: int, payload: bytes, method: str, path: str, sent: int,

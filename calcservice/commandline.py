@@ -462,7 +462,11 @@ def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None,
         plain = Table(masked=True)
         for name in table.colnames:
             col = table[name]
-            if name in spelled and hasattr(col, "unmasked"):
+            if name in spelled and hasattr(col, "unmasked") and col.ndim > 1:
+                # a series per system: one JSON list per cell, as CSV has no arrays
+                plain[column_name(name, "value", spelled[name])] = [
+                    "" if np.isnan(row).all() else json.dumps(row.tolist()) for row in col.unmasked.value]
+            elif name in spelled and hasattr(col, "unmasked"):
                 plain[column_name(name, "value", spelled[name])] = MaskedColumn(col.unmasked.value, mask=col.mask)
             else:
                 plain[name] = col

@@ -1,6 +1,8 @@
 """``calcservice compute --in FILE --out FILE``: catalogues in CSV, ECSV, FITS and VOTable through astropy's
 table I/O, units from the file, masked entries answered in place, split to the limits, a summary by reason."""
 
+import json
+
 import numpy as np
 import pytest
 from astropy import units as u
@@ -134,3 +136,19 @@ def test_an_unreadable_file_is_one_line(tmp_path, capsys):
     (tmp_path / "bad.fits").write_bytes(b"not a FITS file\x00\x01")
     code, _, err = run(capsys, "sb1", "--in", str(tmp_path / "bad.fits"), "--out", str(tmp_path / "o.csv"))
     assert code == 2 and len(err.strip().splitlines()) == 1 and "--in" in err and "bad.fits" in err
+
+
+@pytest.mark.parametrize("fmt", ["csv", "ecsv"])
+def test_a_catalogue_of_ephemerides_keeps_its_series_and_events(tmp_path, capsys, fmt):
+    src = tmp_path / "eph.csv"
+    src.write_text("period,eccentricity,omega,t_periastron,k1\n812.5,0.64,131,2459870.4,22.5\n"
+                   "300,0.2,40,2459000.5,10\n")
+    code, _, err = run(capsys, "ephemeris", "--in", str(src), "--out", str(tmp_path / f"o.{fmt}"),
+                       "times=2460100.5,2460180.5")
+    assert code == 0, err
+    back = Table.read(tmp_path / f"o.{fmt}", format=FORMATS[fmt])
+    one = Client("local").calculate("ephemeris", period=812.5, eccentricity=0.64, omega=131.0,
+                                    t_periastron=2459870.4, k1=22.5, times=[2460100.5, 2460180.5])
+    rv1 = json.loads(back["rv1[km/s]"][0]) if fmt == "csv" else list(back["rv1"][0])
+    np.testing.assert_allclose(rv1, one["results"]["series"]["rv1"]["value"], rtol=1e-12)
+    assert json.loads(back["events"][0])

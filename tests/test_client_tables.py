@@ -402,3 +402,17 @@ def test_one_catalogue_as_ecsv_file_qtable_and_dataframe_in_one_call_each(tmp_pa
         assert np.flatnonzero(out["m2_min"].mask).tolist() == failed
         assert all(out["error"][k] for k in failed) and not any(out["error"][k] for k in (0, 1, 2, 4))
         np.testing.assert_array_equal(out["m2_min"].unmasked.value, from_file["m2_min"].unmasked.value)
+
+
+def test_series_outputs_and_events_come_back_per_system(client):
+    cols = {"period": [812.5, 300.0, -1.0], "eccentricity": [0.64, 0.2, 0.1], "omega": [131.0, 40.0, 1.0],
+            "t_periastron": [2459870.4, 2459000.5, 2459000.5], "k1": [22.5, 10.0, 1.0],
+            "times": [2460100.5, 2460180.5, 2460200.5]}
+    http = post(client, "/v1/batch/ephemeris", {"columns": cols})[1]
+    outs = {t: Client("local", transport=t).batch("ephemeris", cols) for t in ("arrow", "json")}
+    for out in outs.values():
+        assert out["rv1"].shape == (3, 3) and out.failed == [2] and np.isnan(out["rv1"][2]).all()
+        np.testing.assert_allclose(out["rv1"][:2], http["columns"]["rv1"]["value"][:2], rtol=1e-12)
+        assert out.extras["events"][:2] == http["columns"]["events"][:2]
+    table = outs["arrow"].to_table()
+    assert table["rv1"].shape == (3, 3) and table["rv1"].unit == u.km / u.s and table["events"][2] == ""
