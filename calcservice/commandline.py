@@ -36,7 +36,9 @@ _PM = r"(?:\+-|\+/-|±)"
 _SYMMETRIC = re.compile(rf"^\s*(?P<value>{_NUM})\s*(?:{_PM}\s*(?P<sigma>{_UNUM}))?\s*(?P<unit>.*?)\s*$")
 _PLUS_MINUS = re.compile(rf"^\s*(?P<value>{_NUM})\s*\+\s*(?P<plus>{_UNUM})\s*-\s*(?P<minus>{_UNUM})\s*(?P<unit>.*?)\s*$")
 _MINUS_PLUS = re.compile(rf"^\s*(?P<value>{_NUM})\s*-\s*(?P<minus>{_UNUM})\s*\+\s*(?P<plus>{_UNUM})\s*(?P<unit>.*?)\s*$")
-_UNIT = re.compile(r"^[A-Za-z(][A-Za-z0-9_ ./*^()+\-]*$")
+# a unit is any text astropy may read ("km/s", "°", "%", "µas"), judged by the service; it cannot begin like
+# a number, a sign or a date's next field, so that "2024-03-01" stays a date and "1.2+0.3-0.1" asymmetric
+_UNIT = re.compile(r"^[^\d\s+\-.,±=][^=]*$")
 EXAMPLE_FORMS = "e.g. 61.4, 61.4+-0.9, 61.4±0.9km/s, 2.5yr or 1.2+0.3-0.1"
 
 EXIT_REJECTED = 1     # the inputs parse but the calculation refuses them (the API's 4xx)
