@@ -255,6 +255,8 @@ def _numpy_default(o):
 
 # ----------------------------------------------------------------------------- tables and negotiation
 
+ECSV_AS_CSV = "text/csv+ecsv"      # an ECSV answer to an ECSV body that asked for text/csv: labelled text/csv
+
 def body_media_type() -> str:
     """The request body's media type among :data:`calcservice.tables.MEDIA_TYPES` (415 otherwise);
     ``text/csv`` stays CSV until its text shows the ECSV signature."""
@@ -302,7 +304,7 @@ def batch_body(calc, limits):
     if body_type == tables.CSV and tables.is_ecsv(data):
         body_type = tables.ECSV
         if answer_type == tables.CSV:
-            answer_type = "text/csv+ecsv"
+            answer_type = ECSV_AS_CSV
     try:
         parsed = {} if options is None else _loads_checked(options)
     except ValueError as e:
@@ -326,12 +328,12 @@ def batch_response(response: dict, answer_type: str) -> Response:
     if answer_type == tables.JSON:
         r = _json(response)
     else:
-        table_type = tables.ECSV if answer_type == "text/csv+ecsv" else answer_type
+        table_type = tables.ECSV if answer_type == ECSV_AS_CSV else answer_type
         try:
             data = tables.encode_answer(response, table_type)
         except tables.TableError as e:
             raise Problem(e.status, e.detail, e.errors) from None
-        label = tables.CSV if answer_type == "text/csv+ecsv" else answer_type
+        label = tables.CSV if answer_type == ECSV_AS_CSV else answer_type
         r = Response(data, mimetype=label)
     r.vary.add("Accept")
     return r
