@@ -1,46 +1,58 @@
-"""A Python client for a running calcservice, standard library only (plus numpy for batches).
+"""A Python client for calcservice, over HTTP or in-process, with the lab's own tables in and out.
 
     >>> from calcservice.client import Client
-    >>> svc = Client("http://127.0.0.1:8000", timeout=30)
+    >>> svc = Client("http://127.0.0.1:8000", timeout=30)        # or Client("local"): the service in-process
     >>> r = svc.calculate("sb1", period=(41.6, 0.02), k1=(23.4, 0.3), eccentricity=0.31)
-    >>> r["results"]["mass_function"]["value"]
-    >>> cat = svc.batch("sb1", {"period": [41.6, 12.3], "k1": ([23.4, 8.1], [0.3, 0.2]), "eccentricity": 0.1})
-    >>> cat["mass_function"], cat.sigma["mass_function"], cat.errors
+    >>> r.quantity("mass_function"), r.ufloat("mass_function")
+    >>> out = svc.batch("sb1", catalogue)          # an astropy Table/QTable, a DataFrame, a mapping of columns
+    >>> out.to_table()                             # a QTable: units, NAME_sigma, masked failures, an error column
 
-Inputs may be numbers, ``(value, sigma)`` or ``(value, sigma_minus, sigma_plus)`` tuples,
-objects of the wire contract (``{"value": 1.2, "sigma": 0.1, "unit": "yr"}``), astropy
-quantities, strings ("isotropic", ISO 8601 dates, choices), ``datetime`` objects for times,
-and lists or arrays: the user's own draws for a measured input, the list itself for a
-series input (such as an ephemeris's ``times``).
+Inputs of one system may be numbers, ``(value, sigma)`` or ``(value, sigma_minus, sigma_plus)``
+tuples, objects of the wire contract (``{"value": 1.2, "sigma": 0.1, "unit": "yr"}``), astropy
+quantities, strings ("isotropic", ISO 8601 dates, choices), ``datetime`` objects for times, and
+lists or arrays: the user's own draws for a measured input, the list itself for a series input.
 
-Paths come from ``GET /v1/calculations``, so every calculation of the service is
-reachable without a client update.  Errors raise :class:`CalcServiceError` carrying the
-RFC 9457 problem details; connection failures (refused, reset) are retried, nothing else is.
+A catalogue is split to the service's published limits (``GET /v1/limits``) and put back
+together in input order.  Paths come from ``GET /v1/calculations``, so every calculation of the
+service is reachable without a client update.  Errors raise :class:`CalcServiceError` carrying
+the RFC 9457 problem details; connection failures (refused, reset before an answer) are retried,
+nothing else is.  JSON is decoded with orjson; astropy, pandas, pyarrow, tqdm and uncertainties
+are used when the caller's data or the asked-for conversion needs them.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
-import json
+import html
+import http.client
 import math
 import platform
 import socket
+import sys
 import time
-import urllib.error
 import urllib.parse
-import urllib.request
-from typing import Any, Mapping, Sequence
+from typing import Any, Iterable, Mapping, Sequence
+
+import numpy as np
+import orjson
 
 from . import __version__
+from .columns import column_name, column_role, split_unit
 
 USER_AGENT = f"calcservice-client/{__version__} (calcservice {__version__}; Python {platform.python_version()})"
+ARROW = "application/vnd.apache.arrow.stream"
+
+# What the service allowed before it published its limits (calcservice.config.Limits defaults).
+DEFAULT_LIMITS = {"max_body_bytes": 16 * 1024 * 1024, "max_batch_rows": 100_000, "max_batch_draws": 5_000_000,
+                  "default_samples": 10_000}
 
 
 class CalcServiceError(Exception):
     """A request the service refused (or could not be reached for).
 
     ``status`` is the HTTP status (None when no answer came), ``problem`` the RFC 9457
-    problem details as sent, ``errors`` the per-field messages ({field: [message, ...]}).
+    problem details as sent, ``errors`` the per-field messages ({field: [message, ...]}),
+    ``limit`` the limit a 413 names ({"name": ..., "value": ...}) when it names one.
     """
 
     def __init__(self, message: str, status: int | None = None, problem: Mapping[str, Any] | None = None):
@@ -48,10 +60,14 @@ class CalcServiceError(Exception):
         self.problem = dict(problem or {})
         self.errors: dict[str, list[str]] = dict(self.problem.get("errors") or {})
         self.detail = self.problem.get("detail", message)
+        self.limit: dict | None = self.problem.get("limit") if isinstance(self.problem.get("limit"), dict) else None
         super().__init__(message)
 
     def __str__(self) -> str:
         head = f"{self.status} {self.detail}" if self.status else str(self.args[0])
+        if self.limit and str(self.limit.get("name")) not in head:
+            head += f" (limit {self.limit.get('name')}" + (
+                f" = {self.limit['value']})" if self.limit.get("value") is not None else ")")
         if self.errors:
             head += " (" + "; ".join(f"{k}: {' '.join(v)}" for k, v in self.errors.items()) + ")"
         return head
@@ -62,32 +78,90 @@ class ServiceUnavailable(CalcServiceError):
 
 
 def _is_connection_error(e: BaseException) -> bool:
-    """Refused, reset or dropped before an answer came (worth another try); not timeouts or HTTP errors."""
-    if isinstance(e, urllib.error.HTTPError):
-        return False
-    if isinstance(e, urllib.error.URLError):
-        e = e.reason if isinstance(e.reason, BaseException) else e
+    """Refused, reset or dropped before an answer came (worth another try); not timeouts."""
     if isinstance(e, (socket.timeout, TimeoutError)):
         return False
     # RemoteDisconnected is a ConnectionResetError: the server closed a kept-alive socket
-    return isinstance(e, (ConnectionError, socket.gaierror))
+    return isinstance(e, (ConnectionError, socket.gaierror, http.client.BadStatusLine))
 
 
 def _is_timeout(e: BaseException) -> bool:
-    if isinstance(e, urllib.error.URLError) and isinstance(e.reason, BaseException):
-        e = e.reason
     return isinstance(e, (socket.timeout, TimeoutError))
 
 
-class BatchResult(dict):
-    """Batch results as numpy arrays, one per output, in input order (NaN where a row failed).
+# --------------------------------------------------------------------------- results
+class Result(dict):
+    """One system's answer: the response dict of the wire contract, plus conversions.
 
-    ``sigma``, ``low`` and ``high`` hold the uncertainties (``low``/``high`` for Monte
-    Carlo), ``unit`` the unit of each output, ``errors`` the problem details of the
-    failed rows ({"index": i, "detail": ..., "errors": {...}}), ``response`` the raw answer.
+    ``quantity(name)`` an astropy Quantity, ``ufloat(name)`` an ``uncertainties`` number,
+    ``ufloats()`` every output as correlated ``uncertainties`` numbers (ask with ``covariance=True``).
     """
 
-    def __init__(self, values, sigma, low, high, unit, errors, response, warnings=None):
+    def _entry(self, name: str) -> Mapping[str, Any]:
+        results = self.get("results") or {}
+        if name not in results or not isinstance(results[name], Mapping):
+            raise KeyError(f"no output {name!r}; this answer has {', '.join(results)}")
+        return results[name]
+
+    def quantity(self, name: str):
+        """Output ``name`` as an astropy Quantity in its unit (the value; Monte Carlo: the median)."""
+        from astropy import units as u
+        e = self._entry(name)
+        return _float(e.get("value")) * u.Unit(e.get("unit") or "")
+
+    def ufloat(self, name: str):
+        """Output ``name`` as ``uncertainties.ufloat(value, sigma)`` (independent of the other outputs)."""
+        from uncertainties import ufloat
+        e = self._entry(name)
+        return ufloat(_float(e.get("value")), _float(e.get("sigma", 0.0)), name)
+
+    def ufloats(self) -> dict:
+        """Every output in the correlation matrix as correlated ``uncertainties`` numbers, by name.
+
+        Needs the outputs' correlation (``covariance=True`` in the request): sums and ratios of
+        outputs then carry the right sigma (m1 + m2 agrees with the service's total mass).
+        """
+        corr = self.get("correlation")
+        if not isinstance(corr, Mapping):
+            raise ValueError("this answer has no correlation of its outputs: ask with covariance=True")
+        names = list(corr["outputs"])
+        return _correlated(names, [_float(self._entry(n).get("value")) for n in names],
+                           [_float(self._entry(n).get("sigma")) for n in names], corr["matrix"])
+
+    def _repr_html_(self) -> str:
+        rows = []
+        for name, e in (self.get("results") or {}).items():
+            if isinstance(e, Mapping) and isinstance(e.get("value"), (int, float)):
+                rows.append((name, _pm(e.get("value"), e.get("sigma")), e.get("unit", "")))
+        title = f"{self.get('calculation', '')} ({(self.get('uncertainty') or {}).get('method', '')})"
+        return _html_table(title, ("output", "value ± sigma", "unit"), rows)
+
+
+def _float(x) -> float:
+    return math.nan if x is None else float(x)
+
+
+def _correlated(names, values, sigmas, matrix) -> dict:
+    from uncertainties import correlated_values
+    s = np.asarray(sigmas, dtype=float)
+    cov = np.asarray(matrix, dtype=float) * np.outer(s, s)
+    return dict(zip(names, correlated_values(np.asarray(values, dtype=float), cov, tags=list(names))))
+
+
+class BatchResult(dict):
+    """Batch results as numpy arrays, one per output, in input order (NaN where a system failed).
+
+    ``sigma``, ``low`` and ``high`` hold the uncertainties (``low``/``high`` for Monte Carlo),
+    ``unit`` the unit of each output, ``errors`` the problem details of the failed systems
+    ({"index": i, "status": ..., "detail": ..., "errors": {...}}), ``warnings`` the warnings
+    (columns: each with the ``rows`` it applies to), ``correlation`` the outputs' correlation
+    ({"outputs": [...], "matrix": [m x m or None per system]}, with ``covariance=True``),
+    ``kept`` the caller's columns carried along (``keep=``), ``extras`` other members per system (an
+    ephemeris' events), ``responses`` the raw answers (one per request).  A series output is (N, T).
+    """
+
+    def __init__(self, values, sigma, low, high, unit, errors, responses, warnings=None, correlation=None,
+                 count=None, kept=None, extras=None):
         super().__init__(values)
         self.sigma = sigma
         self.low = low
@@ -95,68 +169,255 @@ class BatchResult(dict):
         self.unit = unit
         self.errors = errors
         self.warnings = warnings
-        self.response = response
+        self.correlation = correlation
+        self.responses = responses
+        self.count = count if count is not None else (len(next(iter(values.values()))) if values else 0)
+        self.kept = dict(kept or {})
+        self.extras = dict(extras or {})
+
+    @property
+    def response(self):
+        """The service's answer (the first one when the catalogue went in several requests)."""
+        return self.responses[0] if self.responses else {}
 
     @property
     def failed(self) -> list[int]:
         return sorted(e["index"] for e in self.errors if isinstance(e.get("index"), int))
 
+    def error_text(self, short: bool = False) -> list[str]:
+        """For each system, what was wrong (``detail; field: message; ...``; ``short``: the field errors
+        only), or "" when it was answered."""
+        out = [""] * self.count
+        for e in self.errors:
+            if isinstance(e.get("index"), int) and 0 <= e["index"] < self.count:
+                out[e["index"]] = problem_reason(e) if short else problem_text(e)
+        return out
 
+    def warning_codes(self) -> list[list[str]]:
+        """For each system, the codes of its warnings."""
+        out: list[list[str]] = [[] for _ in range(self.count)]
+        for k, w in enumerate(self.warnings or []):
+            if isinstance(w, Mapping):              # a columns answer: a warning names its rows (none: all)
+                rows = w["rows"] if "rows" in w else range(self.count)
+                for i in rows:
+                    if 0 <= i < self.count and w.get("code") not in out[i]:
+                        out[i].append(str(w.get("code")))
+            elif k < self.count:                    # rows, or an answer table: one list per system
+                out[k] = [str(c.get("code") if isinstance(c, Mapping) else c) for c in w]
+        return out
+
+    def quantity(self, name: str):
+        """Output ``name`` as an astropy Quantity array (NaN where a system failed)."""
+        from astropy import units as u
+        return self[name] * u.Unit(self.unit.get(name) or "")
+
+    def ufloats(self, index: int) -> dict:
+        """System ``index``'s outputs as correlated ``uncertainties`` numbers (ask with ``covariance=True``)."""
+        if not self.correlation:
+            raise ValueError("this answer has no correlation of its outputs: ask with covariance=True")
+        names = list(self.correlation["outputs"])
+        matrix = self.correlation["matrix"][index]
+        if matrix is None:
+            raise ValueError(f"system {index} was not answered: {self.error_text()[index]}")
+        return _correlated(names, [self[n][index] for n in names], [self.sigma[n][index] for n in names], matrix)
+
+    def to_table(self):
+        """An astropy ``QTable``: the caller's kept columns, then per output ``NAME`` (a Quantity), ``NAME_sigma``
+        (``NAME_low``, ``NAME_high`` for Monte Carlo), masked where there is no number (a failed system), then
+        ``error`` (what was wrong, "" when answered)."""
+        from astropy import units as u
+        from astropy.table import QTable
+        from astropy.utils.masked import Masked
+        t = QTable()
+        for name, col in self.kept.items():
+            t[name] = col
+        for name, values in self.items():
+            unit = u.Unit(self.unit.get(name) or "")
+            for member, store in (("value", self), ("sigma", self.sigma), ("low", self.low), ("high", self.high)):
+                if name in store:
+                    arr = np.asarray(store[name], dtype=float)
+                    t[column_name(name, member)] = Masked(arr * unit, mask=np.isnan(arr))
+        for name, entries in self.extras.items():
+            t[name] = [_json_text(x) for x in entries]
+        t["error"] = self.error_text()
+        t["warnings"] = [";".join(codes) for codes in self.warning_codes()]
+        t.meta["calculation"] = (self.response or {}).get("calculation")
+        return t
+
+    def to_pandas(self):
+        """A pandas ``DataFrame`` with the columns of :meth:`to_table` (NaN where a system failed); the units
+        are in ``df.attrs["units"]`` ({column: unit}), which :meth:`Client.batch` reads back."""
+        import pandas as pd
+        data: dict[str, Any] = dict(self.kept)
+        units = {}
+        for name, values in self.items():
+            for member, store in (("value", self), ("sigma", self.sigma), ("low", self.low), ("high", self.high)):
+                if name in store:
+                    key = column_name(name, member)
+                    arr = np.asarray(store[name], dtype=float)
+                    data[key] = arr if arr.ndim == 1 else list(arr)     # a series: an array per system
+                    units[key] = self.unit.get(name, "")
+        for name, entries in self.extras.items():
+            data[name] = [_json_text(x) for x in entries]
+        data["error"] = self.error_text()
+        data["warnings"] = [";".join(codes) for codes in self.warning_codes()]
+        df = pd.DataFrame(data)
+        df.attrs["units"] = units
+        return df
+
+    def _repr_html_(self, limit: int = 20) -> str:
+        names = [n for n in self if np.ndim(self[n]) == 1]
+        rows = []
+        errors = self.error_text()
+        for i in range(min(self.count, limit)):
+            rows.append([str(i)] + [_pm(self[n][i], self.sigma.get(n, [None] * self.count)[i]) for n in names]
+                        + [errors[i]])
+        header = ["#"] + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names] + ["error"]
+        more = f", first {limit} shown" if self.count > limit else ""
+        title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
+                 f"{len(self.failed)} failed{more}")
+        return _html_table(title, header, rows)
+
+
+def _json_text(x) -> str:
+    return "" if x is None else orjson.dumps(x, option=orjson.OPT_SERIALIZE_NUMPY).decode("utf-8")
+
+
+def problem_text(problem: Mapping[str, Any]) -> str:
+    """A problem as the ``error`` column of the service's answer tables: ``detail; field: message; ...``."""
+    parts = [str(problem.get("detail", ""))] if problem.get("detail") else []
+    parts += [f"{k}: {' '.join(map(str, v)) if isinstance(v, list) else v}"
+              for k, v in (problem.get("errors") or {}).items()]
+    return "; ".join(parts)
+
+
+def problem_reason(problem: Mapping[str, Any]) -> str:
+    """What was wrong, shortly: the field errors ``field: message; ...`` (the detail when it names no field)."""
+    errs = problem.get("errors") or {}
+    if errs:
+        return "; ".join(f"{k}: {' '.join(map(str, v)) if isinstance(v, list) else v}" for k, v in errs.items())
+    return str(problem.get("detail", ""))
+
+
+def _pm(value, sigma) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "—"
+    if sigma is None or (isinstance(sigma, float) and math.isnan(sigma)) or sigma == 0:
+        return f"{value:.6g}"
+    return f"{value:.6g} ± {sigma:.2g}"
+
+
+def _html_table(title: str, header: Sequence[str], rows: Iterable[Sequence[str]]) -> str:
+    esc = html.escape
+    head = "".join(f"<th>{esc(str(h))}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{esc(str(c))}</td>" for c in r) + "</tr>" for r in rows)
+    return f"<table><caption>{esc(title)}</caption><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+# --------------------------------------------------------------------------- the client
 class Client:
-    """calcservice over HTTP.
+    """calcservice over HTTP, or in-process.
 
-    ``base_url`` is where the service answers (``GET {base_url}/v1/health``); ``timeout``
-    is seconds per request; connection errors are retried ``retries`` times with
-    exponential back-off starting at ``backoff`` seconds.
+    ``base_url`` is where the service answers (``GET {base_url}/v1/health``); ``"local"``
+    runs the service in this process (a Flask app of :func:`calcservice.create_app`, no
+    network), as does ``app=`` with an app of your own.  ``timeout`` is seconds per request;
+    connection errors are retried ``retries`` times with exponential back-off starting at
+    ``backoff`` seconds.  ``progress`` shows a progress bar on catalogues sent in several
+    requests (default: when standard error is a terminal).  ``transport`` is how catalogues
+    travel: "arrow" (Apache Arrow IPC streams; the default when pyarrow is installed) or "json".
     """
 
     def __init__(self, base_url: str = "http://127.0.0.1:8000", timeout: float = 60.0, retries: int = 3,
-                 backoff: float = 0.25, headers: Mapping[str, str] | None = None):
-        self.base_url = base_url.rstrip("/")
+                 backoff: float = 0.25, headers: Mapping[str, str] | None = None, *, app=None,
+                 progress: bool | None = None, transport: str | None = None):
+        if base_url == "local" and app is None:
+            from . import create_app
+            app = create_app()
+        self.app = app
+        self.base_url = "local" if app is not None else base_url.rstrip("/")
         self.timeout = timeout
         self.retries = max(0, int(retries))
         self.backoff = backoff
+        self.progress = progress
+        if transport is None:
+            try:
+                import pyarrow  # noqa: F401
+                transport = "arrow"
+            except ImportError:
+                transport = "json"
+        if transport not in ("arrow", "json"):
+            raise ValueError(f"transport is 'arrow' or 'json', not {transport!r}")
+        self.transport = transport
         self.headers = {"User-Agent": USER_AGENT, **dict(headers or {})}
         self._catalogue: dict[str, dict] | None = None
-        self._opener = urllib.request.build_opener()
+        self._limits: dict[str, int] | None = None
+        self._local = app.test_client() if app is not None else None
+
+    @classmethod
+    def local(cls, config: Mapping[str, Any] | None = None, **kwargs) -> "Client":
+        """The service in this process, configured like :func:`calcservice.create_app` (limits and all)."""
+        from . import create_app
+        return cls(app=create_app(dict(config or {})), **kwargs)
 
     def __repr__(self) -> str:
         return f"Client({self.base_url!r}, timeout={self.timeout})"
 
     # ------------------------------------------------------------------ transport
+    def _send(self, method: str, target: str, data: bytes | None, headers: Mapping[str, str]) -> tuple[int, str, bytes]:
+        """One exchange: (status, content type, body).  Raises what the socket raises."""
+        if self._local is not None:
+            r = self._local.open(target, method=method, data=data, headers=dict(headers))
+            return r.status_code, r.headers.get("Content-Type", ""), r.get_data()
+        url = urllib.parse.urlsplit(self.base_url)
+        cls = http.client.HTTPSConnection if url.scheme == "https" else http.client.HTTPConnection
+        conn = cls(url.hostname, url.port, timeout=self.timeout)
+        try:
+            try:
+                conn.request(method, url.path + target, body=data, headers=dict(headers))
+            except (BrokenPipeError, ConnectionResetError):
+                # a server may answer (413) and close before reading a large body: its answer is still there
+                try:
+                    r = conn.getresponse()
+                except Exception:       # noqa: BLE001 - no answer after all: the send's own error is the story
+                    raise ConnectionResetError("the connection closed while the request was sent") from None
+            else:
+                r = conn.getresponse()
+            return r.status, r.getheader("Content-Type", ""), r.read()
+        finally:
+            conn.close()
+
     def _request(self, method: str, path: str, body: Any = None, query: Mapping[str, str] | None = None,
-                 accept: str = "application/json") -> tuple[int, str, bytes]:
-        url = self.base_url + path + ("?" + urllib.parse.urlencode(query) if query else "")
+                 accept: str = "application/json", content_type: str = "application/json") -> tuple[int, str, bytes]:
+        target = path + ("?" + urllib.parse.urlencode(query) if query else "")
         data = None
         headers = {**self.headers, "Accept": accept}
         if body is not None:
-            data = json.dumps(body, allow_nan=False, default=_json_default).encode("utf-8")
-            headers["Content-Type"] = "application/json"
+            data = body if isinstance(body, bytes) else dumps(body)
+            headers["Content-Type"] = content_type
         attempt = 0
         while True:
-            req = urllib.request.Request(url, data=data, method=method, headers=headers)
             try:
-                with self._opener.open(req, timeout=self.timeout) as r:
-                    return r.status, r.headers.get("Content-Type", ""), r.read()
-            except urllib.error.HTTPError as e:
-                payload = e.read()
-                raise _problem_error(e.code, e.headers.get("Content-Type", ""), payload, method, path) from None
+                status, ctype, payload = self._send(method, target, data, headers)
             except Exception as e:          # noqa: BLE001 - sorted into retry / timeout / other below
                 if _is_timeout(e):
                     raise ServiceUnavailable(f"{method} {path}: no answer within {self.timeout} s") from e
-                if not _is_connection_error(e) or attempt >= self.retries:
-                    if _is_connection_error(e):
-                        raise ServiceUnavailable(f"{method} {url}: cannot connect after {attempt + 1} "
-                                                 f"attempt(s): {_reason(e)}") from e
+                if not _is_connection_error(e):
                     raise
+                if attempt >= self.retries:
+                    raise ServiceUnavailable(f"{method} {self.base_url}{target}: cannot connect after {attempt + 1} "
+                                             f"attempt(s): {type(e).__name__}: {e}") from e
                 time.sleep(self.backoff * (2 ** attempt))
                 attempt += 1
+                continue
+            if status >= 400:
+                raise _problem_error(status, payload, method, path, len(data or b""), self._limits)
+            return status, ctype, payload
 
     def _json(self, method: str, path: str, body: Any = None, query=None) -> Any:
         status, ctype, payload = self._request(method, path, body, query)
         try:
-            return json.loads(payload.decode("utf-8"))
-        except (UnicodeDecodeError, json.JSONDecodeError):
+            return orjson.loads(payload)
+        except orjson.JSONDecodeError:
             raise CalcServiceError(f"{method} {path}: the answer is not JSON ({ctype})", status) from None
 
     # ------------------------------------------------------------------ metadata
@@ -165,6 +426,24 @@ class Client:
 
     def constants(self) -> dict:
         return self._json("GET", "/v1/constants")["constants"]
+
+    def limits(self, refresh: bool = False) -> dict[str, int]:
+        """The service's published limits by name (``GET /v1/limits``), fetched once; the defaults of a
+        service that does not publish them."""
+        if self._limits is None or refresh:
+            limits = dict(DEFAULT_LIMITS)
+            try:
+                published = self._json("GET", "/v1/limits").get("limits") or {}
+            except CalcServiceError as e:
+                if e.status != 404:
+                    raise
+                published = {}
+            for name, entry in published.items():
+                value = entry.get("value") if isinstance(entry, Mapping) else entry
+                if isinstance(value, int) and not isinstance(value, bool):
+                    limits[name] = value
+            self._limits = limits
+        return self._limits
 
     def calculations(self, refresh: bool = False) -> dict[str, dict]:
         """Every calculation's declaration by name (fetched once, then cached)."""
@@ -194,16 +473,19 @@ class Client:
 
     def calculate(self, name: str, /, *, uncertainty: Any = None, correlations: Any = None,
                   units: Mapping[str, str] | None = None, time_format: str | None = None, method: str | None = None,
-                  samples: int | None = None, seed: int | None = None, **inputs) -> dict:
-        """One calculation on one system: the response dict of the wire contract.
+                  samples: int | None = None, seed: int | None = None, covariance: bool = False,
+                  **inputs) -> Result:
+        """One calculation on one system: the response dict of the wire contract (a :class:`Result`).
 
         ``uncertainty`` is the contract's object (or give ``method``/``samples``/``seed``);
         ``correlations`` a list of {"between": [a, b], "rho": r} or a mapping {(a, b): r};
-        ``units`` asks for outputs in other units.
+        ``units`` asks for outputs in other units; ``covariance=True`` for the outputs'
+        correlation (then ``.ufloats()`` gives correlated values).
         """
         body = self.request_body(name, inputs, uncertainty=uncertainty, correlations=correlations, units=units,
-                                 time_format=time_format, method=method, samples=samples, seed=seed)
-        return self._json("POST", self.declaration(name)["path"], body)
+                                 time_format=time_format, method=method, samples=samples, seed=seed,
+                                 covariance=covariance)
+        return Result(self._json("POST", self.declaration(name)["path"], body))
 
     def report(self, name: str, /, format: str = "latex", **kwargs) -> str:
         """The derivation report (``format`` "latex" or "markdown") as text."""
@@ -224,44 +506,434 @@ class Client:
         return self.request_body(name, kwargs, **opts), self.declaration(name)["path"]
 
     # ------------------------------------------------------------------ many systems
-    def batch(self, name: str, data: Mapping[str, Any] | Sequence[Mapping[str, Any]], /, *,
-              uncertainty: Any = None, correlations: Any = None, units: Mapping[str, str] | None = None,
+    def batch(self, name: str, data: Any, /, *, units: Mapping[str, str] | None = None,
+              output_units: Mapping[str, str] | None = None, uncertainty: Any = None, correlations: Any = None,
               time_format: str | None = None, method: str | None = None, samples: int | None = None,
-              seed: int | None = None) -> BatchResult:
-        """Many systems at once: ``data`` is columns ({input: values}) or rows ([{input: value}, ...]).
+              seed: int | None = None, covariance: bool = False, keep: Sequence[str] = (), strict: bool = True,
+              progress: bool | None = None) -> BatchResult:
+        """Many systems in one call; the catalogue is split to the service's limits and put back in order.
 
-        A column is a list or array of values, a ``(values, sigmas)`` tuple, a contract
-        column object ({"value": [...], "sigma": [...], "unit": ...}) or one value for all
-        rows; keys ``NAME_sigma`` add sigmas to column ``NAME`` (as in a CSV catalogue;
-        a pandas DataFrame works too).  Returns numpy arrays per output.
+        ``data`` is an astropy ``Table``/``QTable`` (units from the columns, masked entries missing),
+        a pandas ``DataFrame`` (units from ``units=``, from ``NAME[unit]`` column names or from
+        ``df.attrs["units"]``), a mapping of columns (Quantity arrays, plain arrays in the inputs'
+        default units, ``(values, sigmas)`` tuples, contract column objects, or one value for all),
+        or a list of rows (one mapping per system).  ``NAME_sigma`` (``NAME_sigma_minus`` and
+        ``NAME_sigma_plus``) columns hold uncertainties, in NAME's unit unless they carry their own.
+        A table that gives no unit for a dimensional input is refused before anything is sent.
+        Missing values (NaN, masked, None) are sent as missing: that system's error comes back in place.
+
+        ``units`` gives the unit of a table's columns ({column: unit}); ``output_units`` asks
+        for outputs in other units (the contract's ``units`` option).  ``keep`` names columns of
+        the caller's table to carry into the result (an identifier); other columns that are no
+        input are refused unless ``strict=False``.  ``covariance=True`` adds the outputs' correlation.
         """
         decl = self.declaration(name)
+        opts = _options(uncertainty=uncertainty, correlations=correlations, units=output_units,
+                        time_format=time_format, method=method, samples=samples, seed=seed, covariance=covariance)
         path = "/v1/batch/" + name
-        opts = _options(uncertainty=uncertainty, correlations=correlations, units=units, time_format=time_format,
-                        method=method, samples=samples, seed=seed)
+        show = self.progress if progress is None else progress
+        if _is_rows(data):
+            if units or keep:
+                raise ValueError("units= and keep= apply to a table of columns, not to a list of rows")
+            return self._batch_rows(path, decl, list(data), opts, show)
+        table = InputTable.from_data(data, decl, units=units, keep=keep, strict=strict)
+        return self._batch_columns(path, table, opts, show)
+
+    def _rows_per_request(self, opts: Mapping[str, Any]) -> int:
+        return rows_per_request(self.limits(), opts)
+
+    def _chunks(self, n: int, encode, opts) -> Iterable[tuple[int, int, bytes]]:
+        """(start, stop, body) for consecutive slices of ``n`` systems, each within the row and body limits."""
+        per = self._rows_per_request(opts)
+        max_bytes = self.limits()["max_body_bytes"]
+        start = 0
+        while start < n:
+            stop = min(n, start + per)
+            body = encode(start, stop)
+            while len(body) > max_bytes and stop - start > 1:
+                # shrink to what fits, with a margin for rows longer than the average
+                per = max(1, min(stop - start - 1, int((stop - start) * 0.9 * max_bytes / len(body))))
+                stop = start + per
+                body = encode(start, stop)
+            yield start, stop, body
+            start = stop
+
+    def _bar(self, n: int, show: bool | None, opts: Mapping[str, Any]):
+        """A tqdm bar when asked for, or by default on a terminal for a catalogue of several requests."""
+        if show is None:
+            show = (n > self._rows_per_request(opts) and sys.stderr is not None
+                    and hasattr(sys.stderr, "isatty") and sys.stderr.isatty())
+        if not show:
+            return None
+        try:
+            from tqdm.auto import tqdm
+        except ImportError:
+            return None
+        return tqdm(total=n, unit="system", desc="calcservice", leave=False)
+
+    def _batch_columns(self, path: str, table: "InputTable", opts: dict, show) -> BatchResult:
+        n = table.count
+        # the outputs' correlation travels in JSON answers only
+        arrow = self.transport == "arrow" and not opts.get("covariance")
+        if arrow:
+            from .tables import decode_answer, encode_request
+            # one value for every system (and a series) goes with the options, as a table holds a value per system
+            shared = table.shared()
+
+            def encode(a, b):
+                return encode_request({"columns": {k: v for k, v in table.json(a, b).items() if k not in shared}},
+                                      ARROW)
+            query = {"options": dumps({**opts, **shared}).decode("utf-8")} if opts or shared else None
+        else:
+            encode = lambda a, b: dumps({"columns": table.json(a, b), **opts})  # noqa: E731
+        parts = []
+        bar = self._bar(n, show, opts)
+        try:
+            for start, stop, body in self._chunks(n, encode, opts):
+                if arrow:
+                    try:
+                        _, _, payload = self._request("POST", path, body, query, accept=ARROW, content_type=ARROW)
+                    except CalcServiceError as e:
+                        if e.status not in (406, 415) or parts:
+                            raise
+                        # a service that does not take tables: the catalogue goes as JSON (a new request, not a retry)
+                        self.transport = "json"
+                        return self._batch_columns(path, table, opts, show)
+                    answer = decode_answer(payload, ARROW)
+                else:
+                    answer = self._json("POST", path, body)
+                parts.append((start, stop, from_columns_answer(answer, stop - start)))
+                if bar is not None:
+                    bar.update(stop - start)
+        finally:
+            if bar is not None:
+                bar.close()
+        out = merge_results(parts, n)
+        out.kept = table.kept
+        return out
+
+    def _batch_rows(self, path: str, decl: Mapping, rows: list, opts: dict, show) -> BatchResult:
         kinds = {i["name"]: i for i in decl["inputs"]}
-        if isinstance(data, Mapping) or hasattr(data, "columns") and hasattr(data, "to_dict"):
-            columns = _columns_body(data, kinds)
-            answer = self._json("POST", path, {"columns": columns, **opts})
-            return _from_columns(answer)
-        rows = [{k: _encode(v, kinds.get(k)) for k, v in row.items()} for row in data]
-        answer = self._json("POST", path, {"systems": rows, **opts})
-        return _from_rows(answer, decl)
+        encoded = [{k: _encode(v, kinds.get(k)) for k, v in row.items()} for row in rows]
+        parts = []
+        bar = self._bar(len(rows), show, opts)
+        try:
+            for start, stop, body in self._chunks(len(rows), lambda a, b: dumps({"systems": encoded[a:b], **opts}),
+                                                  opts):
+                parts.append((start, stop, _from_rows(self._json("POST", path, body), decl)))
+                if bar is not None:
+                    bar.update(stop - start)
+        finally:
+            if bar is not None:
+                bar.close()
+        return merge_results(parts, len(rows))
+
+
+def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
+    """How many systems one batch request may hold under ``limits`` with these options (rows, and for
+    Monte Carlo systems x draws)."""
+    rows = int(limits.get("max_batch_rows", DEFAULT_LIMITS["max_batch_rows"]))
+    unc = opts.get("uncertainty") or {}
+    if unc.get("method") == "monte_carlo":
+        draws = int(unc.get("samples") or limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
+        rows = min(rows, int(limits.get("max_batch_draws", DEFAULT_LIMITS["max_batch_draws"])) // max(1, draws))
+    return max(1, rows)
+
+
+# --------------------------------------------------------------------------- tables in
+def _is_rows(data) -> bool:
+    return (isinstance(data, Sequence) and not isinstance(data, (str, bytes, Mapping))
+            and all(isinstance(r, Mapping) for r in data))
+
+
+def _is_astropy_table(data) -> bool:
+    return hasattr(data, "colnames") and hasattr(data, "columns") and hasattr(data, "meta")
+
+
+def _is_dataframe(data) -> bool:
+    return hasattr(data, "columns") and hasattr(data, "dtypes") and hasattr(data, "to_numpy") and hasattr(data, "attrs")
+
+
+def _unit_of(col) -> str | None:
+    unit = getattr(col, "unit", None)
+    if unit is None:
+        return None
+    return unit.to_string() if hasattr(unit, "to_string") else str(unit)
+
+
+def _to_array(col) -> np.ndarray:
+    """A column as a float array with NaN where missing, or an object array (strings, None where missing)."""
+    mask = None
+    if hasattr(col, "isot") and hasattr(col, "jd"):             # an astropy Time column: ISO 8601 in UTC
+        mask = np.asarray(getattr(col, "mask", False))
+        col = np.asarray(col.utc.isot, dtype=object)
+        if mask.any():
+            col[mask] = None
+        return col
+    if type(col).__module__.startswith("pandas"):              # a Series (nullable dtypes: pd.NA is missing)
+        try:
+            return col.to_numpy(dtype=float, na_value=np.nan)
+        except (TypeError, ValueError):
+            col = col.to_numpy(dtype=object)
+    if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
+        mask = np.asarray(col.mask)
+        col = col.unmasked
+    elif hasattr(col, "mask") and not np.isscalar(getattr(col, "mask")):   # MaskedColumn, numpy masked array
+        mask = np.ma.getmaskarray(col)
+        col = np.ma.getdata(col)
+    if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, Mapping):
+        col = col.value
+    arr = np.asarray(col)
+    if arr.dtype.kind in "biuf":
+        arr = arr.astype(float)
+    elif arr.dtype.kind in "USO":
+        # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
+        items = [_number_or_text(_missing_to_none(v)) for v in arr.tolist()]
+        if all(v is None or (isinstance(v, float)) for v in items):
+            arr = np.array([np.nan if v is None else v for v in items], dtype=float)
+        else:
+            arr = np.array(items, dtype=object)
+    else:
+        arr = arr.astype(object)
+    if mask is not None and mask.any():
+        arr = arr.astype(float if arr.dtype.kind == "f" else object, copy=True)
+        arr[mask] = np.nan if arr.dtype.kind == "f" else None
+    return arr
+
+
+def _number_or_text(v):
+    if isinstance(v, str):
+        try:
+            x = float(v)
+        except ValueError:
+            return v
+        return x if math.isfinite(x) else v
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return float(v)
+    return v
+
+
+def _missing_to_none(v):
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return None
+    if isinstance(v, bytes):
+        v = v.decode("utf-8")
+    if isinstance(v, str) and v.strip() == "":
+        return None
+    try:
+        import pandas as pd
+        if v is pd.NA or v is pd.NaT:
+            return None
+    except ImportError:
+        pass
+    return v
+
+
+class InputTable:
+    """A catalogue in the service's columns, ready to be sent in slices.
+
+    ``columns`` maps each input to {"value": array, "sigma"/"sigma_minus"/"sigma_plus": float array,
+    "unit": str} (NaN or None where missing), or to one value for every system.
+    """
+
+    def __init__(self, count: int, columns: dict[str, Any], kept: dict[str, Any] | None = None):
+        self.count = count
+        self.columns = columns
+        self.kept = kept or {}
+
+    @classmethod
+    def from_data(cls, data: Any, decl: Mapping[str, Any], units: Mapping[str, str] | None = None,
+                  keep: Sequence[str] = (), strict: bool = True, require_units: bool | None = None) -> "InputTable":
+        """``data`` (see :meth:`Client.batch`) for the calculation declared by ``decl`` (its entry of
+        ``/v1/calculations``).  ``require_units``: refuse a dimensional column with no unit (default: for
+        Tables and DataFrames; a file read by the command line takes the input's default unit instead)."""
+        inputs = {i["name"]: i for i in decl["inputs"]}
+        units = dict(units or {})
+        is_table = _is_astropy_table(data) or _is_dataframe(data)
+        if require_units is None:
+            require_units = is_table
+        if _is_astropy_table(data):
+            items = [(str(k), data[k]) for k in data.colnames]
+        elif _is_dataframe(data):
+            items = [(str(k), data[k]) for k in data.columns]
+            units = {**dict(data.attrs.get("units") or {}), **units}
+        elif isinstance(data, Mapping):
+            items = [(str(k), v) for k, v in data.items()]
+        else:
+            raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
+                            f"not {type(data).__name__}")
+        for label in units:
+            if split_unit(label)[0] not in inputs and column_role(split_unit(label)[0], inputs) is None:
+                raise ValueError(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
+                                 "ask for outputs in other units with output_units=")
+        kept: dict[str, Any] = {}
+        parts: dict[str, dict[str, tuple[str, Any, str | None]]] = {}
+        scalars: dict[str, Any] = {}
+        unknown = []
+        for label, col in items:
+            if label in keep:
+                kept[label] = col
+                continue
+            name, label_unit = split_unit(label)
+            role = column_role(name, inputs)
+            if role is None:
+                unknown.append(label)
+                continue
+            base, member = role
+            if member in parts.get(base, {}):
+                raise ValueError(f"{label}: the column {column_name(base, member)!r} is given twice")
+            spec = inputs[base]
+            if member != "value" and spec.get("kind", "quantity") != "quantity":
+                raise ValueError(f"{label}: {base} takes no uncertainty")
+            unit = _unit_of(col) or label_unit or units.get(label) or units.get(name)
+            if member == "value" and unit is None:
+                unit = units.get(base)
+            # in a mapping, a series input's list is the series, the same for every system
+            if not is_table and member == "value" and (not _is_column(col) or spec.get("kind") == "series"):
+                scalars[base] = col
+                continue
+            parts.setdefault(base, {})[member] = (label, col, unit)
+        missing_keep = [k for k in keep if k not in kept]
+        if missing_keep:
+            raise ValueError(f"keep: the table has no column {missing_keep[0]!r}")
+        if unknown and strict:
+            raise ValueError(f"{unknown[0]}: {decl['name']} has no input {split_unit(unknown[0])[0]!r} "
+                             f"(inputs: {', '.join(inputs)}; NAME_sigma for uncertainties; keep= to carry a column "
+                             "along, strict=False to leave the others out)")
+        count = None
+        columns: dict[str, Any] = {}
+        for base, members in parts.items():
+            if "value" not in members:
+                if base in scalars:
+                    raise ValueError(f"{base}: sigmas of a column need the column itself, not one value for all")
+                raise ValueError(f"{next(iter(members.values()))[0]}: sigmas given without the column {base}")
+            label, col, unit = members["value"]
+            spec = inputs[base]
+            entry = _column_entry(spec, label, col, unit, require_units)
+            n = len(entry["value"])
+            if count is not None and n != count:
+                raise ValueError(f"{label}: {n} values where the other columns have {count}")
+            count = n
+            missing = _is_missing(entry["value"])
+            for member in ("sigma", "sigma_minus", "sigma_plus"):
+                if member in members:
+                    s_label, s_col, s_unit = members[member]
+                    sig = _sigma_array(s_label, s_col, s_unit, entry.get("unit"))
+                    if len(sig) != n:
+                        raise ValueError(f"{s_label}: {len(sig)} values where {label} has {n}")
+                    sig[missing] = np.nan     # no sigma without a value: the service then says the value is missing
+                    entry[member] = sig
+            columns[base] = entry
+        for base, value in scalars.items():
+            columns[base] = _encode(value, inputs[base])
+        if count is None:
+            raise ValueError(f"no column of {decl['name']}'s inputs in the table ({', '.join(inputs)})")
+        for label, col in kept.items():
+            if len(col) != count:
+                raise ValueError(f"{label}: {len(col)} values where the inputs have {count}")
+        return cls(count, columns, kept)
+
+    def shared(self) -> dict:
+        """The inputs given once for every system (as the JSON of the wire contract)."""
+        return {k: v for k, v in self.columns.items()
+                if not (isinstance(v, dict) and isinstance(v.get("value"), np.ndarray))}
+
+    def json(self, start: int, stop: int) -> dict:
+        """Systems ``start:stop`` as the ``columns`` member of a JSON batch body (NaN as null)."""
+        out = {}
+        for name, entry in self.columns.items():
+            if not isinstance(entry, dict) or not isinstance(entry.get("value"), np.ndarray):
+                out[name] = entry
+                continue
+            col = {k: (v[start:stop] if isinstance(v, np.ndarray) else v) for k, v in entry.items()}
+            if col["value"].dtype == object:
+                col["value"] = col["value"].tolist()
+            out[name] = col
+        return out
+
+
+def _is_column(col) -> bool:
+    if isinstance(col, (str, bytes, Mapping)):
+        return isinstance(col, Mapping) and isinstance(col.get("value"), (list, np.ndarray))
+    if isinstance(col, tuple):
+        return len(col) > 0 and _is_column(col[0])
+    if hasattr(col, "shape"):
+        return len(getattr(col, "shape")) >= 1
+    return isinstance(col, (list, Sequence))
+
+
+def _is_missing(arr: np.ndarray) -> np.ndarray:
+    if arr.dtype.kind == "f":
+        return np.isnan(arr)
+    return np.array([v is None for v in arr.tolist()], dtype=bool)
+
+
+def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | None, require_unit: bool) -> dict:
+    entry: dict[str, Any] = {}
+    if isinstance(col, tuple):          # (values, sigmas[, sigma_plus][, unit])
+        parts = list(col)
+        if parts and isinstance(parts[-1], str):
+            unit = parts.pop()
+        if len(parts) not in (1, 2, 3):
+            raise ValueError(f"{label}: a tuple column is (values, sigmas) or (values, sigma_minus, sigma_plus)")
+        col = parts[0]
+        unit = _unit_of(col) or unit
+        for member, extra in zip(("sigma", ) if len(parts) == 2 else ("sigma_minus", "sigma_plus"), parts[1:]):
+            entry[member] = _sigma_array(label, extra, _unit_of(extra), unit)
+    elif isinstance(col, Mapping):       # a contract column object
+        entry = {k: (_to_array(v) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
+        if "value" not in entry:
+            raise ValueError(f"{label}: a column object needs \"value\"")
+        return entry
+    values = _to_array(col)
+    if values.ndim != 1:
+        raise ValueError(f"{label}: a column is one value per system (got shape {values.shape})")
+    kind = spec.get("kind", "quantity")
+    if kind == "series":
+        raise ValueError(f"{label}: {spec['name']} is a list for each system; give it as one value for all")
+    if kind == "integer" and values.dtype.kind == "f":
+        values = np.array([None if math.isnan(v) else int(v) for v in values.tolist()], dtype=object)
+    # a time is a Julian Date (or MJD with time_format) without a unit: nothing to guess there
+    if (require_unit and unit is None and kind == "quantity" and spec.get("unit") and not spec.get("time")
+            and not (values.dtype == object and all(v is None or isinstance(v, str) for v in values.tolist()))):
+        raise ValueError(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
+                         "table gives it no unit: give the column a unit, name it "
+                         f"{spec['name']}[{spec['unit']}], or pass units={{{spec['name']!r}: ...}}")
+    entry["value"] = values
+    if unit is not None and kind == "quantity":
+        entry["unit"] = unit
+    return entry
+
+
+def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
+    arr = _to_array(col)
+    if arr.dtype.kind != "f":
+        raise ValueError(f"{label}: a sigma column holds numbers")
+    arr = np.array(arr, dtype=float)
+    if unit is not None and unit != (value_unit or ""):
+        from astropy import units as u
+        try:
+            arr = arr * u.Unit(unit).to(u.Unit(value_unit or ""))
+        except u.UnitConversionError:
+            raise ValueError(f"{label}: its unit {unit!r} does not convert to the value's "
+                             f"{value_unit or 'dimensionless'!r}") from None
+    return arr
 
 
 # --------------------------------------------------------------------------- encoding
 def _json_default(o):
-    try:
-        import numpy as np
-        if isinstance(o, np.generic):
-            return o.item()
-        if isinstance(o, np.ndarray):
-            return o.tolist()
-    except ImportError:
-        pass
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, np.generic):
+        return o.item()
     if isinstance(o, (_dt.datetime, _dt.date)):
         return o.isoformat()
     raise TypeError(f"cannot send {type(o).__name__} as JSON")
+
+
+def dumps(body: Any) -> bytes:
+    """A request body as JSON bytes: numpy arrays as lists, NaN as null (a missing value)."""
+    return orjson.dumps(body, default=_json_default, option=orjson.OPT_SERIALIZE_NUMPY | orjson.OPT_NON_STR_KEYS)
 
 
 def _plain(x):
@@ -299,13 +971,15 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
             out["unit"] = unit
         return out
     value = _plain(value)
+    if isinstance(value, float) and math.isnan(value):
+        return None
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     return value
 
 
 def _options(uncertainty=None, correlations=None, units=None, time_format=None, method=None, samples=None,
-             seed=None) -> dict:
+             seed=None, covariance=False) -> dict:
     out: dict[str, Any] = {}
     unc = dict(uncertainty or {})
     if method is not None:
@@ -326,87 +1000,77 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
         out["units"] = dict(units)
     if time_format:
         out["time_format"] = time_format
+    if covariance:
+        out["covariance"] = True
     return out
 
 
-def _columns_body(data: Any, kinds: Mapping[str, Any]) -> dict:
-    if hasattr(data, "columns") and hasattr(data, "to_dict") and not isinstance(data, Mapping):
-        data = {str(k): data[k].to_numpy() for k in data.columns}     # a pandas DataFrame
-    columns: dict[str, Any] = {}
-    sigmas: dict[str, Any] = {}
-    for key, col in data.items():
-        base = key
-        for suffix in ("_sigma_minus", "_sigma_plus", "_sigma"):
-            if key not in kinds and key.endswith(suffix) and key[: -len(suffix)] in kinds:
-                sigmas.setdefault(key[: -len(suffix)], {})[suffix[1:]] = _plain(col)
-                base = None
-                break
-        if base is None:
-            continue
-        if isinstance(col, tuple):
-            parts = [_plain(p) for p in col]
-            unit = parts.pop() if parts and isinstance(parts[-1], str) else None
-            entry = {"value": parts[0]}
-            if len(parts) == 2:
-                entry["sigma"] = parts[1]
-            elif len(parts) == 3:
-                entry["sigma_minus"], entry["sigma_plus"] = parts[1], parts[2]
-            if unit:
-                entry["unit"] = unit
-            columns[key] = entry
-        elif isinstance(col, Mapping):
-            columns[key] = {k: _plain(v) for k, v in col.items()}
-        elif hasattr(col, "unit") and hasattr(col, "value"):
-            columns[key] = {"value": _plain(col.value), "unit": col.unit.to_string()}
-        else:
-            v = _plain(col)
-            columns[key] = {"value": v} if isinstance(v, list) else v
-    for base, extra in sigmas.items():
-        if base not in columns:
-            raise ValueError(f"{base}: sigmas given without the column {base}")
-        if not isinstance(columns[base], dict):
-            columns[base] = {"value": columns[base]}
-        columns[base].update(extra)
-    return columns
-
-
 # --------------------------------------------------------------------------- decoding
-def _array(values):
-    import numpy as np
-    return np.array([np.nan if v is None else v for v in values], dtype=float)
+def _array(values) -> np.ndarray:
+    return np.array(values, dtype=float)        # null (None) becomes NaN; an Arrow answer's arrays as they are
 
 
-def _from_columns(answer: Mapping[str, Any]) -> BatchResult:
-    values, sigma, low, high, unit = {}, {}, {}, {}, {}
+def from_columns_answer(answer: Mapping[str, Any], n: int) -> BatchResult:
+    """A columns answer (JSON, or an answer table decoded by :func:`calcservice.tables.decode_answer`) of
+    ``n`` systems as a :class:`BatchResult`."""
+    values, sigma, low, high, unit, extras = {}, {}, {}, {}, {}, {}
     for name, col in (answer.get("columns") or {}).items():
-        if not isinstance(col, Mapping) or not isinstance(col.get("value"), list):
+        if isinstance(col, list) and len(col) == n:
+            extras[name] = col                      # a member per system (an ephemeris' events)
             continue
-        try:
-            values[name] = _array(col["value"])
-        except (TypeError, ValueError):
-            continue            # not numeric (e.g. nested series)
+        if not isinstance(col, Mapping) or not isinstance(col.get("value"), (list, np.ndarray)):
+            continue
+        arr = _numbers(col["value"])
+        if arr is None:
+            continue
+        values[name] = arr                          # (N,), or (N, T) for a series per system
         unit[name] = col.get("unit", "")
         for store, key in ((sigma, "sigma"), (low, "low"), (high, "high")):
-            if isinstance(col.get(key), list):
-                store[name] = _array(col[key])
-    return BatchResult(values, sigma, low, high, unit, list(answer.get("errors") or []), answer,
-                       answer.get("warnings"))
+            if isinstance(col.get(key), (list, np.ndarray)):
+                member = _numbers(col[key])
+                if member is not None:
+                    store[name] = member
+    return BatchResult(values, sigma, low, high, unit, list(answer.get("errors") or []), [answer],
+                       list(answer.get("warnings") or []), answer.get("correlation"), count=n, extras=extras)
+
+
+def _numbers(values) -> np.ndarray | None:
+    """Numbers per system as a float array, NaN where null: (N,) or, for series, (N, T); None if not numbers."""
+    try:
+        return np.array(values, dtype=float)
+    except (TypeError, ValueError):
+        pass
+    rows = [v for v in values if v is not None]
+    if not rows or not all(isinstance(v, (list, np.ndarray)) for v in rows):
+        return None
+    width = len(rows[0])
+    try:
+        return np.array([np.full(width, np.nan) if v is None else v for v in values], dtype=float)
+    except (TypeError, ValueError):
+        return None
 
 
 def _from_rows(answer: Mapping[str, Any], decl: Mapping[str, Any]) -> BatchResult:
-    import numpy as np
     results = answer.get("results") or []
     n = len(results)
     names = [o["name"] for o in decl["outputs"]]
     values = {k: np.full(n, np.nan) for k in names}
     sigma, low, high, unit = {}, {}, {}, {}
-    errors, warnings = [], []
+    errors, warnings, matrices = [], [], []
+    outputs = None
     for i, r in enumerate(results):
         if "error" in r:
             errors.append({"index": i, **r["error"]})
             warnings.append([])
+            matrices.append(None)
             continue
         warnings.append(r.get("warnings", []))
+        corr = r.get("correlation")
+        if isinstance(corr, Mapping):
+            outputs = outputs or list(corr["outputs"])
+            matrices.append(corr["matrix"] if list(corr["outputs"]) == outputs else None)
+        else:
+            matrices.append(None)
         for k, entry in (r.get("results") or {}).items():
             if k not in values or not isinstance(entry, Mapping) or isinstance(entry.get("value"), list):
                 continue
@@ -416,27 +1080,78 @@ def _from_rows(answer: Mapping[str, Any], decl: Mapping[str, Any]) -> BatchResul
                 if key in entry:
                     store.setdefault(k, np.full(n, np.nan))[i] = math.nan if entry[key] is None else entry[key]
     values = {k: v for k, v in values.items() if k in unit}
-    return BatchResult(values, sigma, low, high, unit, errors, answer, warnings)
+    correlation = {"outputs": outputs, "matrix": matrices} if outputs else None
+    return BatchResult(values, sigma, low, high, unit, errors, [answer], warnings, correlation, count=n)
 
 
-def _problem_error(status: int, ctype: str, payload: bytes, method: str, path: str) -> CalcServiceError:
-    problem: dict = {}
+def merge_results(parts: list[tuple[int, int, BatchResult]], n: int) -> BatchResult:
+    """The answers to consecutive slices as one result over all ``n`` systems, in input order."""
+    if len(parts) == 1 and parts[0][:2] == (0, n):
+        return parts[0][2]
+
+    def stitched(store_of) -> dict:
+        names = {k: None for _, _, r in parts for k in store_of(r)}
+        out = {}
+        for k in names:
+            shape = next(np.shape(store_of(r)[k])[1:] for _, _, r in parts if k in store_of(r))
+            arr = np.full((n, *shape), np.nan)
+            for start, stop, r in parts:
+                if k in store_of(r):
+                    arr[start:stop] = store_of(r)[k]
+            out[k] = arr
+        return out
+
+    unit = {k: v for _, _, r in parts for k, v in r.unit.items()}
+    errors = [{**e, "index": e["index"] + start} for start, _, r in parts for e in r.errors
+              if isinstance(e.get("index"), int)]
+    warnings: list = []
+    if any(isinstance(w, Mapping) for _, _, r in parts for w in r.warnings or []):
+        for start, stop, r in parts:            # columns: each warning names its rows (none: all of its request)
+            warnings += [{**w, "rows": [i + start for i in w.get("rows", range(stop - start))]}
+                         for w in r.warnings or []]
+    else:
+        for start, stop, r in parts:            # rows, or answer tables: one list per system
+            own = list(r.warnings or [])
+            warnings += own + [[] for _ in range(stop - start - len(own))]
+    correlation = None
+    outputs = next((r.correlation["outputs"] for _, _, r in parts if r.correlation), None)
+    if outputs:
+        matrix: list = []
+        for start, stop, r in parts:
+            same = r.correlation and list(r.correlation["outputs"]) == list(outputs)
+            matrix += list(r.correlation["matrix"]) if same else [None] * (stop - start)
+        correlation = {"outputs": list(outputs), "matrix": matrix}
+    extras: dict[str, list] = {}
+    for name in {k: None for _, _, r in parts for k in r.extras}:
+        extras[name] = [x for start, stop, r in parts for x in r.extras.get(name, [None] * (stop - start))]
+    return BatchResult(stitched(lambda r: r), stitched(lambda r: r.sigma), stitched(lambda r: r.low),
+                       stitched(lambda r: r.high), unit, errors, [a for _, _, r in parts for a in r.responses],
+                       warnings, correlation, count=n, extras=extras)
+
+
+def _problem_error(status: int, payload: bytes, method: str, path: str, sent: int,
+                   limits: Mapping[str, int] | None) -> CalcServiceError:
+    problem: Any = {}
     try:
-        problem = json.loads(payload.decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError):
+        problem = orjson.loads(payload)
+    except orjson.JSONDecodeError:
         pass
     if not isinstance(problem, dict):
         problem = {}
     detail = problem.get("detail") or payload[:200].decode("utf-8", "replace") or f"HTTP {status}"
-    return CalcServiceError(f"{method} {path}: {status} {detail}", status, problem or {"status": status,
-                                                                                        "detail": detail})
+    problem = problem or {"status": status, "detail": detail}
+    if status == 413 and not isinstance(problem.get("limit"), dict) and "body" in detail:
+        # a service that does not yet name the limit it applied: the body's is the one in question
+        problem["limit"] = {"name": "max_body_bytes", "sent": sent}
+        if (limits or {}).get("max_body_bytes") is not None:
+            problem["limit"]["value"] = limits["max_body_bytes"]
+    message = f"{method} {path}: {status} {detail}"
+    limit = problem.get("limit")
+    if status == 413 and isinstance(limit, dict) and limit.get("name") not in detail:
+        message += f" (limit {limit.get('name')}" + (f" = {limit['value']})" if "value" in limit else ")")
+    return CalcServiceError(message, status, problem)
 
 
-def _reason(e: BaseException) -> str:
-    if isinstance(e, urllib.error.URLError) and e.reason is not None:
-        return str(e.reason)
-    return f"{type(e).__name__}: {e}"
-
-
-__all__ = ["Client", "CalcServiceError", "ServiceUnavailable", "BatchResult", "USER_AGENT"]
-
+__all__ = ["Client", "CalcServiceError", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
+           "DEFAULT_LIMITS", "problem_text", "problem_reason", "dumps",
+           "rows_per_request", "from_columns_answer", "merge_results"]

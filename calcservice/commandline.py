@@ -3,7 +3,7 @@
     calcservice compute sb1 period=41.6+-0.02 k1=23.4+-0.3km/s eccentricity=0.31
     calcservice compute sb2 ... --method monte-carlo --samples 20000 --seed 7
     calcservice compute sb2 ... --format latex > table.tex
-    calcservice compute sb1 --csv catalogue.csv --out results.csv --id star
+    calcservice compute sb1 --in catalogue.ecsv --out results.fits --id star
 
 Values are ``NAME=VALUE[+-SIGMA][UNIT]`` (``±`` and ``+/-`` also work), asymmetric
 ``NAME=VALUE+PLUS-MINUS[UNIT]``, ``inclination=isotropic``, ISO 8601 dates for times,
@@ -17,8 +17,6 @@ HTTP API, so ``--json`` prints exactly the response the service gives.
 from __future__ import annotations
 
 import argparse
-import csv
-import io
 import json
 import math
 import re
@@ -26,6 +24,8 @@ import sys
 import types
 from pathlib import Path
 from typing import Any
+
+import numpy as np
 
 from . import report
 from .registry import Calculation, calculations
@@ -36,9 +36,9 @@ _PM = r"(?:\+-|\+/-|±)"
 _SYMMETRIC = re.compile(rf"^\s*(?P<value>{_NUM})\s*(?:{_PM}\s*(?P<sigma>{_UNUM}))?\s*(?P<unit>.*?)\s*$")
 _PLUS_MINUS = re.compile(rf"^\s*(?P<value>{_NUM})\s*\+\s*(?P<plus>{_UNUM})\s*-\s*(?P<minus>{_UNUM})\s*(?P<unit>.*?)\s*$")
 _MINUS_PLUS = re.compile(rf"^\s*(?P<value>{_NUM})\s*-\s*(?P<minus>{_UNUM})\s*\+\s*(?P<plus>{_UNUM})\s*(?P<unit>.*?)\s*$")
-_UNIT = re.compile(r"^[A-Za-z(][A-Za-z0-9_ ./*^()+\-]*$")
-_HEADER_UNIT = re.compile(r"^\s*(?P<name>[^\[\]]+?)\s*(?:\[(?P<unit>[^\[\]]*)\])?\s*$")
-SIGMA_SUFFIXES = ("_sigma_minus", "_sigma_plus", "_sigma")
+# a unit is any text astropy may read ("km/s", "°", "%", "µas"), judged by the service; it cannot begin like
+# a number, a sign or a date's next field, so that "2024-03-01" stays a date and "1.2+0.3-0.1" asymmetric
+_UNIT = re.compile(r"^[^\d\s+\-.,±=][^=]*$")
 EXAMPLE_FORMS = "e.g. 61.4, 61.4+-0.9, 61.4±0.9km/s, 2.5yr or 1.2+0.3-0.1"
 
 EXIT_REJECTED = 1     # the inputs parse but the calculation refuses them (the API's 4xx)
@@ -282,102 +282,100 @@ def _assignment(name: str, value: Any) -> str:
     return f"{name}={text}"
 
 
-# --------------------------------------------------------------------------- catalogue (CSV) through the batch path
-def read_catalogue(calc: Calculation, path: str, id_column: str | None) -> tuple[dict, list[str] | None, int]:
-    """A CSV catalogue as the ``columns`` member of a batch request, the identifiers and the row count.
+# --------------------------------------------------------------------------- catalogues through astropy's table I/O
+TABLE_FORMATS = {".csv": "ascii.csv", ".ecsv": "ascii.ecsv", ".fits": "fits", ".fit": "fits", ".fts": "fits",
+                 ".vot": "votable", ".votable": "votable", ".xml": "votable"}
+FORMAT_NAMES = {"ascii.csv": "CSV", "ascii.ecsv": "ECSV", "fits": "FITS", "votable": "VOTable"}
+PROGRESS_ROWS = 20_000          # a catalogue this long shows a progress bar on a terminal
 
-    Columns are named after inputs (optionally with a unit in brackets, ``period[yr]``);
-    ``NAME_sigma`` (or ``NAME_sigma_minus`` and ``NAME_sigma_plus``) hold uncertainties in
-    the unit of NAME.  Any other column is refused unless it is the ``--id`` column.
+
+def table_format(path: str, option: str) -> str:
+    """The astropy table format a file's extension names (``.csv``, ``.ecsv``, ``.fits``, ``.vot``/``.xml``)."""
+    suffix = Path(path).suffix.lower()
+    if suffix not in TABLE_FORMATS:
+        raise UsageError(option, f"{path}: unknown table format {suffix or '(no extension)'!r}; "
+                                 "use .csv, .ecsv, .fits or .vot (VOTable)")
+    return TABLE_FORMATS[suffix]
+
+
+def declaration(calc: Calculation) -> dict:
+    """The calculation's inputs as ``/v1/calculations`` declares them (what the client reads tables by)."""
+    return {"name": calc.name, "inputs": [{"name": i.name, "kind": i.kind, "unit": i.unit, "time": bool(i.time)}
+                                          for i in calc.inputs]}
+
+
+def read_catalogue(calc: Calculation, path: str, id_column: str | None):
+    """A catalogue file as the client's :class:`~calcservice.client.InputTable`, the identifiers and the row count.
+
+    CSV, ECSV, FITS or VOTable by extension, read by ``astropy.table.Table.read``.  Columns are named
+    after inputs, in the unit the file gives (ECSV, FITS and VOTable units; ``period[yr]`` in a CSV
+    header), else the input's default unit; ``NAME_sigma`` (or ``NAME_sigma_minus`` and
+    ``NAME_sigma_plus``) hold uncertainties in the unit of NAME.  Empty cells and masked entries are
+    missing: that system's error, in place.  Any other column is refused unless it is the ``--id`` column.
     """
+    from astropy.table import Table
+
+    from .client import InputTable
+    from .columns import column_role, split_unit
+    fmt = table_format(path, "--in")
+    options: dict[str, Any] = {}
+    if fmt == "ascii.csv":
+        options = {"encoding": "utf-8-sig", "delimiter": _delimiter(path)}
+    elif fmt == "ascii.ecsv" and _has("pandas"):
+        # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
+        fmt, options = "ecsv", {"engine": "pandas"}
     try:
-        text = Path(path).read_text(encoding="utf-8-sig")
+        table = Table.read(path, format=fmt, **options)
+    except FileNotFoundError:
+        raise UsageError("--in", f"cannot read {path}: no such file") from None
     except OSError as e:
-        raise UsageError("--csv", f"cannot read {path}: {e.strerror}") from None
-    except UnicodeDecodeError:
-        raise UsageError("--csv", f"{path} is not UTF-8 text") from None
-    try:
-        dialect = csv.Sniffer().sniff(text[:4096], delimiters=",;\t")
-    except csv.Error:
-        dialect = csv.excel
-    reader = csv.reader(io.StringIO(text), dialect)
-    try:
-        header = next(reader)
-    except StopIteration:
-        raise UsageError("--csv", f"{path} is empty") from None
-    rows = [r for r in reader if any(c.strip() for c in r)]
-    if not rows:
-        raise UsageError("--csv", f"{path} has a header but no rows")
-    inputs = {i.name: i for i in calc.inputs}
-    plan: list[tuple[int, str, str]] = []          # (column index, input name, member)
-    units: dict[str, str] = {}
-    ids_at = None
-    for k, cell in enumerate(header):
-        m = _HEADER_UNIT.match(cell)
-        name = m.group("name") if m else cell.strip()
-        if id_column is not None and cell.strip() == id_column:
-            ids_at = k
-            continue
-        member = "value"
-        base = name
-        if name not in inputs:
-            for suffix in SIGMA_SUFFIXES:
-                if name.endswith(suffix) and name[: -len(suffix)] in inputs:
-                    base, member = name[: -len(suffix)], suffix[1:]
-                    break
-        if base not in inputs:
-            raise UsageError(cell.strip() or f"column {k + 1}",
-                             f"unknown column in {path}: {calc.name} takes {_input_names(calc)} "
-                             "(NAME_sigma for uncertainties; --id COLUMN for an identifier)")
-        spec = inputs[base]
-        if spec.kind == "series":
-            raise UsageError(base, f"{base} is a list for each system and cannot be a CSV column; "
-                                   f"give it as {base}=v1,v2,... on the command line")
-        if member != "value" and spec.kind != "quantity":
-            raise UsageError(name, f"{base} takes no uncertainty")
-        if any(p[1] == base and p[2] == member for p in plan):
-            raise UsageError(name, f"column {name!r} appears twice")
-        if m and m.group("unit") is not None and member == "value":
-            units[base] = m.group("unit").strip()
-        plan.append((k, base, member))
-    if id_column is not None and ids_at is None:
+        raise UsageError("--in", f"cannot read {path}: {e.strerror or e}") from None
+    except Exception as e:           # noqa: BLE001 - astropy's readers raise many kinds; one line says which file
+        reason = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+        raise UsageError("--in", f"{path} is not a readable {FORMAT_NAMES[table_format(path, '--in')]} table: "
+                                 f"{reason}") from None
+    if len(table) == 0:
+        raise UsageError("--in", f"{path} has a header but no rows")
+    if id_column is not None and id_column not in table.colnames:
         raise UsageError("--id", f"{path} has no column {id_column!r}")
-    columns: dict[str, dict] = {}
-    for k, base, member in plan:
-        spec = inputs[base]
-        values = []
-        for r_index, row in enumerate(rows, 2):
-            cell = row[k].strip() if k < len(row) else ""
-            values.append(_cell(spec, cell, base if member == "value" else f"{base}_{member}", r_index))
-        columns.setdefault(base, {})[member] = values
-    for base, unit in units.items():
-        if unit:
-            columns[base]["unit"] = unit
-    for base, col in columns.items():
-        if "value" not in col:
-            raise UsageError(base, f"{path} has uncertainties for {base} but no column {base}")
-    ids = [row[ids_at].strip() if ids_at < len(row) else "" for row in rows] if ids_at is not None else None
-    return columns, ids, len(rows)
-
-
-def _cell(spec, cell: str, column: str, line: int):
-    if cell == "":
-        return None
-    if spec.kind == "choice":
-        return cell
+    inputs = {i.name: i for i in calc.inputs}
+    for label in table.colnames:
+        if label == id_column:
+            continue
+        role = column_role(split_unit(label)[0], inputs)
+        if role is None:
+            raise UsageError(label, f"unknown column in {path}: {calc.name} takes {_input_names(calc)} "
+                                    "(NAME_sigma for uncertainties; --id COLUMN for an identifier)")
+        if inputs[role[0]].kind == "series":
+            raise UsageError(role[0], f"{role[0]} is a list for each system and cannot be a column; "
+                                      f"give it as {role[0]}=v1,v2,... on the command line")
     try:
-        x = float(cell)
-    except ValueError:
-        if spec.time:
-            return cell                  # an ISO 8601 date, judged by the service
-        raise UsageError(column, f"line {line}: {cell!r} is not a number") from None
-    if not math.isfinite(x):
-        raise UsageError(column, f"line {line}: {cell!r} is not a finite number")
-    if spec.kind == "integer":
-        if not x.is_integer():
-            raise UsageError(column, f"line {line}: {cell!r} is not a whole number")
-        return int(x)
-    return x
+        data = InputTable.from_data(table, declaration(calc), keep=[id_column] if id_column else [],
+                                    require_units=False)
+    except ValueError as e:
+        field, _, message = str(e).partition(": ")
+        raise UsageError(field, f"{message} ({path})") from None
+    ids = None
+    if id_column is not None:
+        col = data.kept[id_column]
+        mask = getattr(col, "mask", None)
+        ids = ["" if mask is not None and bool(np.asarray(mask)[k]) else str(v) for k, v in enumerate(col)]
+    return data, ids, data.count
+
+
+def _has(module: str) -> bool:
+    import importlib.util
+    return importlib.util.find_spec(module) is not None
+
+
+def _delimiter(path: str) -> str:
+    """Comma, semicolon or tab: whichever the header line uses most."""
+    try:
+        with open(path, encoding="utf-8-sig", errors="replace") as fh:
+            header = fh.readline()
+    except OSError:
+        return ","
+    return max((",", ";", "\t"), key=header.count)
 
 
 def run_batch(name: str, body: dict, limits) -> dict:
@@ -387,59 +385,104 @@ def run_batch(name: str, body: dict, limits) -> dict:
     return compute_batch(name, body, limits)
 
 
-def _cell_text(v: Any) -> str:
-    if v is None:
-        return ""
-    if isinstance(v, bool):
-        return str(v).lower()
-    if isinstance(v, (int, float)):
-        return repr(float(v))
-    if isinstance(v, str):
-        return v
-    return json.dumps(v, allow_nan=False, separators=(",", ":"))
+def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, progress: bool | None = None):
+    """Every system of ``data`` (an InputTable) through :func:`run_batch`, in slices the limits allow,
+    as one :class:`~calcservice.client.BatchResult` in input order.  ``shared`` holds inputs given once
+    for all systems; ``progress`` shows a bar (default: on a terminal for a long catalogue)."""
+    from dataclasses import asdict
+
+    import orjson
+
+    from .client import dumps, from_columns_answer, merge_results, rows_per_request
+    n = data.count
+    per = rows_per_request(asdict(limits), options)
+    if progress is None:
+        progress = n >= PROGRESS_ROWS and sys.stderr.isatty()
+    monte_carlo = (options.get("uncertainty") or {}).get("method") == "monte_carlo"
+    if progress and not monte_carlo:
+        # slices small enough for the bar to move; linear answers do not depend on the slicing
+        per = min(per, max(1000, n // 20))
+    bar = None
+    if progress:
+        try:
+            from tqdm import tqdm
+            bar = tqdm(total=n, unit="system", desc=calc.name, file=sys.stderr, leave=False)
+        except ImportError:
+            pass
+    parts = []
+    try:
+        for start in range(0, n, per):
+            stop = min(n, start + per)
+            # the JSON forms of the wire contract (NaN as null), as an HTTP body would bring them
+            columns = orjson.loads(dumps(data.json(start, stop)))
+            answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits)
+            parts.append((start, stop, from_columns_answer(answer, stop - start)))
+            if bar is not None:
+                bar.update(stop - start)
+    finally:
+        if bar is not None:
+            bar.close()
+    return merge_results(parts, n)
 
 
-def write_catalogue(out, result: dict, calc: Calculation, ids: list[str] | None, id_column: str | None,
-                    rows: int) -> int:
-    """The batch result as CSV, one row per system in input order: per output ``NAME[unit]``,
-    ``NAME_sigma`` (and ``NAME_low``, ``NAME_high`` for Monte Carlo) in full precision, extra members
-    (e.g. events) as JSON, then ``warnings`` and ``error`` (what was wrong with a refused row).
-    Returns the number of refused rows."""
-    cols = result.get("columns", {})
-    outputs = {o.name for o in calc.outputs}
-    header: list[str] = [id_column] if ids is not None else []
-    getters: list[list] = []
-    for name in [o.name for o in calc.outputs if o.name in cols] + [k for k in cols if k not in outputs]:
-        col = cols[name]
-        if isinstance(col, dict) and isinstance(col.get("value"), list):
-            unit = col.get("unit", "")
-            for member in ("value", "sigma", "low", "high"):
-                if isinstance(col.get(member), list):
-                    label = name if member == "value" else f"{name}_{member}"
-                    header.append(f"{label}[{unit}]" if unit else label)
-                    getters.append(col[member])
-        elif isinstance(col, list) and len(col) == rows:
-            header.append(name)
-            getters.append(col)
-    errors = {}
-    for e in result.get("errors", []) or []:
-        idx = e.get("index")
-        if isinstance(idx, int):
-            errs = e.get("errors") or {}
-            errors[idx] = "; ".join(f"{k}: {' '.join(v)}" for k, v in errs.items()) if errs else e.get("detail", "")
-    row_warnings: dict[int, list[str]] = {}
-    for w in result.get("warnings", []) or []:
-        for i in w.get("rows", []):
-            row_warnings.setdefault(i, []).append(f"{w.get('code')}: {w.get('message')}")
-    header += ["warnings", "error"]
-    writer = csv.writer(out, lineterminator="\n")
-    writer.writerow(header)
-    for i in range(rows):
-        line = [ids[i]] if ids is not None else []
-        line += [_cell_text(g[i] if i < len(g) else None) for g in getters]
-        line += ["; ".join(row_warnings.get(i, [])), errors.get(i, "")]
-        writer.writerow(line)
-    return len(errors)
+def failure_summary(result) -> str:
+    """How many systems failed and why, grouped by reason (the most frequent first)."""
+    from collections import Counter
+    reasons = Counter(text for text in result.error_text(short=True) if text)
+    failed = sum(reasons.values())
+    if not failed:
+        return "none failed"
+    shown = [f"{reason} ({count})" for reason, count in reasons.most_common(5)]
+    if len(reasons) > 5:
+        shown.append(f"{len(reasons) - 5} other reasons ({sum(c for _, c in reasons.most_common()[5:])})")
+    return f"{failed} failed: " + "; ".join(shown)
+
+
+def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None, id_column: str | None) -> int:
+    """The batch result as a table, one row per system in input order, in the format ``path``'s extension
+    names ("-": CSV on standard output): per output ``NAME``, ``NAME_sigma`` (and ``NAME_low``,
+    ``NAME_high`` for Monte Carlo) with units (``NAME[unit]`` headers in CSV), empty or masked where a
+    system failed, then ``error_status``, ``error`` (what was wrong) and ``warnings`` (codes joined by
+    ``;``).  Returns the number of failed systems."""
+    from astropy.table import MaskedColumn, Table
+    fmt = "ascii.csv" if path == "-" else table_format(path, "--out")
+    table = result.to_table()
+    status = np.zeros(result.count, dtype=int)
+    for e in result.errors:
+        if isinstance(e.get("index"), int):
+            status[e["index"]] = int(e.get("status") or 422)
+    table.add_column(MaskedColumn(status, mask=status == 0), name="error_status", index=table.colnames.index("error"))
+    if ids is not None:
+        table.add_column(ids, name=id_column, index=0)
+    table.meta = {"calculation": calc.name}
+    if fmt == "ascii.csv":
+        # plain CSV has no unit metadata: the unit goes into the header, as the reader takes it
+        # (in the service's own spelling of the unit: "au", not astropy's "AU")
+        from .columns import column_name
+        spelled = {column_name(name, member): result.unit.get(name) or ""
+                   for name in result for member in ("value", "sigma", "low", "high")}
+        plain = Table(masked=True)
+        for name in table.colnames:
+            col = table[name]
+            if name in spelled and hasattr(col, "unmasked") and col.ndim > 1:
+                # a series per system: one JSON list per cell, as CSV has no arrays
+                plain[column_name(name, "value", spelled[name])] = [
+                    "" if np.isnan(row).all() else json.dumps(row.tolist()) for row in col.unmasked.value]
+            elif name in spelled and hasattr(col, "unmasked"):
+                plain[column_name(name, "value", spelled[name])] = MaskedColumn(col.unmasked.value, mask=col.mask)
+            else:
+                plain[name] = col
+        table = plain
+    elif fmt == "fits":
+        table.meta = {"CALC": calc.name}
+    try:
+        if path == "-":
+            table.write(sys.stdout, format=fmt)
+        else:
+            table.write(path, format=fmt, overwrite=True)
+    except OSError as e:
+        raise UsageError("--out", f"cannot write {path}: {e.strerror or e}") from None
+    return len(result.failed)
 
 
 # --------------------------------------------------------------------------- the subcommand
@@ -477,32 +520,28 @@ def _compute_or_raise(args, limits) -> int:
     fmt = "json" if args.json else (args.format or "table")
     body = build_body(calc, args)
 
-    if args.csv or args.out:
-        if not (args.csv and args.out):
-            raise UsageError("--out" if args.csv else "--csv", "--csv IN and --out OUT go together")
+    if args.input or args.out:
+        if not (args.input and args.out):
+            raise UsageError("--out" if args.input else "--in", "--in FILE and --out FILE go together")
         if fmt not in ("table", "json"):
-            raise UsageError("--format", "a catalogue is written as CSV; --format applies to one system")
-        columns, ids, rows = read_catalogue(calc, args.csv, args.id)
-        for name in list(body):
-            if name in columns:
-                raise UsageError(name, "given both as a CSV column and on the command line")
-            if name in {i.name for i in calc.inputs}:
-                columns[name] = body.pop(name)        # one value (or measured object) for every row
-        batch_body = {"columns": columns, **body}
-        result = run_batch(calc.name, batch_body, limits)
-        if fmt == "json":
-            print(json.dumps(result, indent=2, allow_nan=False))
-        out = sys.stdout if args.out == "-" else None
-        try:
-            if out is None:
-                with open(args.out, "w", newline="", encoding="utf-8") as fh:
-                    failed = write_catalogue(fh, result, calc, ids, args.id, rows)
-            else:
-                failed = write_catalogue(out, result, calc, ids, args.id, rows)
-        except OSError as e:
-            raise UsageError("--out", f"cannot write {args.out}: {e.strerror}") from None
+            raise UsageError("--format", "a catalogue is written in the format of --out's extension; "
+                                         "--format applies to one system")
         if args.out != "-":
-            print(f"{rows - failed} of {rows} systems computed; {failed} refused (see the error column) -> {args.out}",
+            table_format(args.out, "--out")          # refused before any work
+        data, ids, rows = read_catalogue(calc, args.input, args.id)
+        shared = {}
+        for name in list(body):
+            if name in data.columns:
+                raise UsageError(name, "given both as a catalogue column and on the command line")
+            if name in {i.name for i in calc.inputs}:
+                shared[name] = body.pop(name)        # one value (or measured object) for every row
+        result = run_catalogue(calc, data, shared, body, limits, args.progress)
+        if fmt == "json":
+            answers = result.responses
+            print(json.dumps(answers[0] if len(answers) == 1 else answers, indent=2, allow_nan=False))
+        failed = write_catalogue(args.out, result, calc, ids, args.id)
+        if args.out != "-":
+            print(f"{rows - failed} of {rows} systems computed; {failure_summary(result)} -> {args.out}",
                   file=sys.stderr)
         return EXIT_REJECTED if failed == rows else 0
 
@@ -560,9 +599,13 @@ def add_compute(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--unit", action="append", metavar="OUTPUT=UNIT", help="unit of an output in the answer, "
                    "e.g. semimajor_axis=solRad (repeatable)")
     p.add_argument("--time-format", choices=("jd", "mjd"), help="read time numbers as JD (default) or MJD")
-    p.add_argument("--csv", metavar="IN", help="a catalogue: one system per row, columns named after inputs "
-                   "(period[yr] gives a unit), NAME_sigma for sigmas")
-    p.add_argument("--out", metavar="OUT", help="where to write the catalogue's results as CSV ('-' for stdout)")
+    p.add_argument("--in", "--csv", dest="input", metavar="FILE", help="a catalogue (.csv, .ecsv, .fits, .vot): one "
+                   "system per row, columns named after inputs (units from the file, or period[yr] in a CSV "
+                   "header), NAME_sigma for sigmas, empty or masked cells missing")
+    p.add_argument("--out", metavar="FILE", help="where to write the catalogue's results, in the format its "
+                   "extension names (.csv, .ecsv, .fits, .vot; '-' for CSV on stdout)")
+    p.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                   help="a progress bar for the catalogue (default: on a terminal, from 20000 systems)")
     p.add_argument("--id", metavar="COLUMN", help="an identifier column of the catalogue, copied to the results")
     p.add_argument("--describe", action="store_true", help="show the calculation's inputs and outputs")
     p.add_argument("--list", action="store_true", help="list the calculations")

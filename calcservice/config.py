@@ -6,8 +6,11 @@ or from the ``config`` mapping given to :func:`calcservice.create_app`.
 
 from __future__ import annotations
 
+import inspect
 import os
+import re
 from dataclasses import dataclass, fields, replace
+from functools import lru_cache
 from typing import Mapping
 
 
@@ -23,6 +26,7 @@ class Limits:
     max_series_evaluations: int = 4_000_000      # systems x draws (or linear perturbations) x series points
     max_json_depth: int = 32                     # nesting of the JSON body
     max_string_length: int = 256                 # any string value (units, times, choices)
+    min_gzip_bytes: int = 2048                   # answers this large or larger are gzipped for callers that accept it
 
 
 @dataclass(frozen=True)
@@ -65,3 +69,25 @@ def load_settings(config: Mapping | None = None, environ: Mapping[str, str] | No
     if isinstance(origins, str):
         origins = tuple(o.strip() for o in origins.split(",") if o.strip())
     return Settings(limits=limits, cors_origins=tuple(origins))
+
+
+def describe_limits(limits: Limits) -> dict:
+    """Every field of ``limits`` with its value, its environment variable and its description (the
+    comment beside the field in this module's source: a new field is described where it is declared)."""
+    described = _field_comments()
+    return {f.name: {"value": getattr(limits, f.name), "env": f"CALCSERVICE_{f.name.upper()}",
+                     "description": described.get(f.name, f.name.replace("_", " "))} for f in fields(Limits)}
+
+
+@lru_cache(maxsize=1)
+def _field_comments() -> dict[str, str]:
+    try:
+        source = inspect.getsource(Limits)
+    except (OSError, TypeError):        # no source at hand (a frozen build): the names say enough
+        return {}
+    out = {}
+    for line in source.splitlines():
+        m = re.match(r"^\s+(\w+)\s*:[^#]*#\s*(.+?)\s*$", line)
+        if m:
+            out[m.group(1)] = m.group(2)
+    return out

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
-import re
 from functools import lru_cache
 
 from astropy import units as u
 
-_UNIT_TEXT = re.compile(r"^[A-Za-z0-9_ ./*^()+\-]{0,64}$")
+# A bound on what reaches astropy's parser (its cost grows with the text), not a second grammar:
+# any printable text astropy reads is a unit ("%", "µas", "°", "km s-1", "M☉"), control characters are not.
+MAX_UNIT_LENGTH = 64
 
 
 class UnitError(ValueError):
@@ -16,21 +17,33 @@ class UnitError(ValueError):
 
 @lru_cache(maxsize=4096)
 def parse_unit(text: str) -> u.UnitBase:
-    if not isinstance(text, str) or not _UNIT_TEXT.match(text):
-        raise UnitError(f"{text!r} is not a unit astropy can read")
+    if not isinstance(text, str) or len(text) > MAX_UNIT_LENGTH or not text.isprintable():
+        raise UnitError(f"{text!r} is not a unit astropy can read" if isinstance(text, str) and len(text) <= 80
+                        else "not a unit astropy can read")
     try:
         return u.Unit(text, parse_strict="raise")
     except Exception:
         raise UnitError(f"unknown unit {text!r}") from None
 
 
+def needed(unit: u.UnitBase) -> str:
+    """The kind of unit that converts to ``unit``, in words: "a length unit", "a dimensionless unit"."""
+    name = str(unit.physical_type)
+    if name == "unknown":
+        # astropy has no word for many composite units (solMass / yr): name the unit itself
+        return f"a unit convertible to {unit.to_string()!r}"
+    return f"a {name} unit"
+
+
 @lru_cache(maxsize=4096)
 def factor(from_unit: str, to_unit: str) -> float:
-    """The number that turns a value in ``from_unit`` into ``to_unit`` (a plain scale factor)."""
+    """The number that turns a value in ``from_unit`` into ``to_unit`` (a plain scale factor).
+
+    The error names the kind of unit ``to_unit`` is: callers put the unit they need there.
+    """
     a, b = parse_unit(from_unit), parse_unit(to_unit)
     try:
         return float(a.to(b))
     except u.UnitConversionError:
-        want = str(b.physical_type) if b != u.dimensionless_unscaled else "dimensionless"
         raise UnitError(f"unit {from_unit!r} cannot be converted to {to_unit or 'dimensionless'!r} "
-                        f"(a {want} unit is needed)") from None
+                        f"({needed(b)} is needed)") from None

@@ -38,6 +38,9 @@ def run(capsys, *argv):
     ("-7.4", -7.4),
     ("1.5e-6+-2e-7solMass/yr", {"value": 1.5e-6, "sigma": 2e-7, "unit": "solMass/yr"}),
     ("3.2erg", {"value": 3.2, "unit": "erg"}),              # a unit beginning with e is not an exponent
+    ("71°", {"value": 71.0, "unit": "°"}),                  # astropy reads °, % and µas: so does the command line
+    ("31%", {"value": 31.0, "unit": "%"}),
+    ("2.1+-0.1µas", {"value": 2.1, "sigma": 0.1, "unit": "µas"}),
     ("isotropic", "isotropic"),
     ("2024-03-01T12:00:00", "2024-03-01T12:00:00"),
 ])
@@ -176,3 +179,10 @@ def test_the_installed_command_exits_cleanly_on_bad_input():
     r = subprocess.run([sys.executable, "-m", "calcservice", "compute", "sb1", "period=41.6", "k1=23.4",
                         "eccentricity=-0.2"], capture_output=True, text=True, timeout=120)
     assert r.returncode == 1 and "eccentricity" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_degree_sign_on_the_command_line_is_degrees(capsys, client):
+    # astropy: 71° is 71 deg
+    code, out, err = run(capsys, "sb2", *SB2_ARGS[:-1], "inclination=71+-2°", "--json")
+    assert code == 0, err
+    assert json.loads(out)["results"]["m1"] == post(client, "/v1/spectroscopic/sb2", SB2_BODY)[1]["results"]["m1"]

@@ -8,7 +8,7 @@ import pytest
 from werkzeug.serving import make_server
 
 from calcservice import __version__, create_app
-from calcservice.client import CalcServiceError, Client, ServiceUnavailable
+from calcservice.client import CalcServiceError, Client, ServiceUnavailable, problem_text
 
 from .conftest import post
 
@@ -102,7 +102,9 @@ def test_paths_come_from_the_listing(svc, client):
     assert r == post(client, "/v1/orbit/ephemeris", example)[1]
 
 
-def test_batch_columns_give_numpy_arrays(svc, client):
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_batch_columns_give_numpy_arrays(server, client, transport):
+    svc = Client(server[0], timeout=30, transport=transport)
     columns = {"period": [41.6, 12.3, -5.0], "k1": ([23.4, 8.1, 8.1], [0.3, 0.2, 0.2]), "eccentricity": 0.1,
                "primary_mass": [1.9, None, 1.2]}
     out = svc.batch("sb1", columns)
@@ -113,7 +115,8 @@ def test_batch_columns_give_numpy_arrays(svc, client):
     expected = np.array([np.nan if v is None else v for v in http["columns"]["mass_function"]["value"]])
     np.testing.assert_array_equal(out["mass_function"], expected)
     assert np.isnan(out["m2_min"][1]) and np.isfinite(out["m2_min"][0])
-    assert out.failed == [2] and "period" in out.errors[0]["errors"]
+    assert out.failed == [2] and "period: must be > 0" in problem_text(out.errors[0])
+    assert out.error_text()[2] == "invalid value for period; period: must be > 0 (in d)"
     assert out.unit["a1_sin_i"] == "au" and out.sigma["mass_function"].shape == (3,)
 
 
@@ -145,28 +148,28 @@ def _free_port() -> int:
 def test_connection_errors_are_retried(server):
     svc = Client(server[0], timeout=10, retries=2, backoff=0.0)
     calls = []
-    real = svc._opener.open
+    real = svc._send
 
-    def flaky(req, timeout=None):
-        calls.append(req.full_url)
+    def flaky(method, target, data, headers):
+        calls.append(target)
         if len(calls) <= 2:
             raise ConnectionRefusedError("refused (simulated)")
-        return real(req, timeout=timeout)
+        return real(method, target, data, headers)
 
-    svc._opener.open = flaky
+    svc._send = flaky
     assert svc.health()["status"] == "ok" and len(calls) == 3
 
 
 def test_http_errors_are_not_retried(server):
     svc = Client(server[0], timeout=10, retries=3, backoff=0.0)
     calls = []
-    real = svc._opener.open
+    real = svc._send
 
-    def counting(req, timeout=None):
-        calls.append(req.full_url)
-        return real(req, timeout=timeout)
+    def counting(method, target, data, headers):
+        calls.append(target)
+        return real(method, target, data, headers)
 
-    svc._opener.open = counting
+    svc._send = counting
     svc.calculations()
     calls.clear()
     with pytest.raises(CalcServiceError):

@@ -35,7 +35,7 @@ from ..config import Limits
 from ..engine import Measured, Result
 from ..registry import Calculation, Input
 from ..units import UnitError, factor
-from .edge import json_body, json_response
+from .edge import batch_body, batch_response
 from .problems import Problem, invalid
 from .schemas import MEASURED_KEYS, RawQuantity, _in_domain
 from .service import Parsed, _monte_carlo, _output_units, Rendering, evaluations, build, clean_array, failure, find, load, parse, provenance, run
@@ -53,9 +53,10 @@ ABSENT, EXACT, NORMAL, ASYMMETRIC, ISOTROPIC = 0, 1, 2, 3, 4
 
 @bp.post("/v1/batch/<name>")
 def batch(name: str):
-    body = json_body()
-    # numpy arrays straight to the JSON encoder: no Python float per number on the way out
-    return json_response(compute_batch(name, body, current_app.config["CALCSERVICE_SETTINGS"].limits, for_json=True))
+    limits = current_app.config["CALCSERVICE_SETTINGS"].limits
+    body, answer_type = batch_body(find(name), limits)          # JSON, Arrow, CSV or ECSV
+    # numpy arrays straight to the encoder: no Python float per number on the way out
+    return batch_response(compute_batch(name, body, limits, for_json=True), answer_type)
 
 
 def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False) -> dict:
@@ -464,7 +465,7 @@ def _column_length(name: str, raw) -> int | None:
     if isinstance(raw, list):
         return len(raw)
     if isinstance(raw, dict):
-        lengths = {len(v) for key, v in raw.items() if key != "unit" and isinstance(v, list)}
+        lengths = {len(v) for key, v in raw.items() if key != "unit" and isinstance(v, (list, np.ndarray))}
         if len(lengths) > 1:
             raise invalid({f"columns.{name}": ["its arrays have different lengths"]})
         return lengths.pop() if lengths else None
@@ -572,6 +573,8 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
         v = raw[key]
         if isinstance(v, list):
             return (*_floats(v), v.__getitem__)
+        if isinstance(v, np.ndarray) and v.dtype == float and v.shape == (n,):     # a table's column: NaN not given
+            return v, np.zeros(n, dtype=bool), lambda i: None if np.isnan(v[i]) else float(v[i])
         if type(v) in (int, float) and abs(v) < 1e308:   # one number for every system: no list built
             return np.full(n, float(v)), np.zeros(n, dtype=bool), lambda i: v
         return np.full(n, np.nan), np.ones(n, dtype=bool), lambda i: v
@@ -588,7 +591,7 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     if "value" not in raw:
         raise invalid({where: ["value is missing"]})
     for key in ("value", "sigma", "sigma_minus", "sigma_plus"):
-        if key in raw and (type(raw[key]) not in (int, float, str, list)):
+        if key in raw and (type(raw[key]) not in (int, float, str, list, np.ndarray)):
             raise invalid({f"{where}.{key}": ["must be a number or an array with one entry per system"]})
     value, bad, value_at = member("value")
     keys = [key for key in ("sigma", "sigma_minus", "sigma_plus") if key in raw]

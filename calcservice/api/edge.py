@@ -2,17 +2,20 @@
 
 from __future__ import annotations
 
+import gzip
 import json
 import logging
 import math
 import re
 import time
 import uuid
+import zlib
 
 import numpy as np
 from flask import Flask, Response, current_app, g, request
 from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
+from .. import tables
 from .problems import Problem
 
 try:    # optional: an order of magnitude faster at formatting floats, and numpy-aware
@@ -117,6 +120,21 @@ def json_body(limits=None):
         if not (mimetype == "application/json" or (mimetype.startswith("application/") and mimetype.endswith("+json"))):
             raise Problem(415, "send the request body as JSON with Content-Type: application/json")
     limits = limits or current_app.config["CALCSERVICE_SETTINGS"].limits
+    data = read_body(limits)
+    return parse_json(data, limits)
+
+
+def read_body(limits=None) -> bytes:
+    """The request body's bytes, gunzipped when ``Content-Encoding: gzip`` (415 for another coding);
+    413 when the body, or what it decompresses to, is over ``max_body_bytes``."""
+    environ = request.environ
+    limits = limits or current_app.config["CALCSERVICE_SETTINGS"].limits
+    coding = environ.get("HTTP_CONTENT_ENCODING", "").strip().lower()
+    if coding and coding != "identity":
+        if coding not in ("gzip", "x-gzip"):
+            raise Problem(415, f"Content-Encoding {coding} is not supported: send the body as it is or with gzip",
+                          {"Content-Encoding": ["must be gzip or identity"]})
+        return gunzip(request.stream, limits.max_body_bytes)
     length = environ.get("CONTENT_LENGTH", "")
     declared = int(length) if length.isdigit() else None
     if declared is not None and declared <= limits.max_body_bytes and "HTTP_TRANSFER_ENCODING" not in environ:
@@ -130,7 +148,45 @@ def json_body(limits=None):
     if len(data) > limits.max_body_bytes or (len(data) == limits.max_body_bytes and request.content_length is None
                                              and _more(request.stream)):
         # werkzeug cuts a streamed (chunked) body at the limit without a word: one more byte tells
-        raise Problem(413, f"the request body is over {limits.max_body_bytes} bytes")
+        raise Problem(413, f"the request body is over {limits.max_body_bytes} bytes (max_body_bytes)")
+    return data
+
+
+GZIP_CHUNK = 64 * 1024
+
+
+def gunzip(stream, limit: int) -> bytes:
+    """A gzip stream's content, read and inflated a chunk at a time and never past ``limit`` bytes of
+    output (413 beyond: a small body inflating to gigabytes stops there); several members are one
+    body, as RFC 1952 allows."""
+    inflate = zlib.decompressobj(16 + zlib.MAX_WBITS)
+    out, total, pending, fed = [], 0, b"", False
+    while True:
+        if not pending:
+            pending = stream.read(GZIP_CHUNK)
+            if not pending:
+                break
+        try:
+            piece = inflate.decompress(pending, limit + 1 - total)
+        except zlib.error as e:
+            raise Problem(400, f"the gzip request body is corrupt ({e})") from None
+        fed = True
+        total += len(piece)
+        if total > limit:
+            raise Problem(413, f"the request body inflates to over {limit} bytes (max_body_bytes)")
+        out.append(piece)
+        if inflate.eof:
+            pending = inflate.unused_data
+            inflate, fed = zlib.decompressobj(16 + zlib.MAX_WBITS), False
+        else:
+            pending = inflate.unconsumed_tail
+    if fed and not inflate.eof:
+        raise Problem(400, "the gzip request body ends before its end")
+    return b"".join(out)
+
+
+def parse_json(data: bytes, limits):
+    """Bytes to JSON: 400 unless well-formed, finite and not too deep."""
     body = _fast_loads(data)
     if body is not _UNPARSED:
         if _depth_exceeds(data, limits.max_json_depth) and \
@@ -197,12 +253,116 @@ def _numpy_default(o):
     raise TypeError(f"{type(o).__name__} is not JSON serialisable")
 
 
+# ----------------------------------------------------------------------------- tables and negotiation
+
+ECSV_AS_CSV = "text/csv+ecsv"      # an ECSV answer to an ECSV body that asked for text/csv: labelled text/csv
+
+def body_media_type() -> str:
+    """The request body's media type among :data:`calcservice.tables.MEDIA_TYPES` (415 otherwise);
+    ``text/csv`` stays CSV until its text shows the ECSV signature."""
+    mimetype = request.mimetype or ""
+    if mimetype == tables.JSON or (mimetype.startswith("application/") and mimetype.endswith("+json")):
+        return tables.JSON
+    if mimetype in tables.TABLE_TYPES:
+        return mimetype
+    raise Problem(415, f"send the request body as one of {', '.join(tables.MEDIA_TYPES)} "
+                       f"(Content-Type{': ' + mimetype if mimetype else ' is missing'})",
+                  {"Content-Type": [f"must be one of {', '.join(tables.MEDIA_TYPES)}"]})
+
+
+def answer_media_type(body_type: str) -> str:
+    """The answer's media type from ``Accept`` (none, or a wildcard: the body's own type); 406
+    with the list of types when none fits.  ``text/csv`` answers ECSV to an ECSV body."""
+    accept = request.accept_mimetypes
+    if not accept:
+        return body_type
+    offered = list(dict.fromkeys((body_type, *tables.MEDIA_TYPES)))
+    best = accept.best_match(offered)
+    if best is None:
+        raise Problem(406, f"the answer can be given as {', '.join(tables.MEDIA_TYPES)}; Accept lists none of them",
+                      {"Accept": [f"must accept one of {', '.join(tables.MEDIA_TYPES)}"]})
+    return best
+
+
+def batch_body(calc, limits):
+    """A batch request in any media type as the JSON body :func:`compute_batch` takes, and the
+    answer's media type; a table's options come from the ``options`` query parameter."""
+    body_type = body_media_type()
+    answer_type = answer_media_type(body_type)
+    options = request.args.get("options")
+    if body_type == tables.JSON:
+        if options is not None:
+            raise Problem(400, "a JSON body carries its options itself: the options query parameter is for tables",
+                          {"options": ["put the options in the JSON body"]})
+        body = parse_json(read_body(limits), limits)
+        if isinstance(body, dict) and "systems" in body and answer_type != tables.JSON:
+            raise Problem(406, f"a rows batch (systems) answers in {tables.JSON}; send columns (a JSON columns "
+                               f"body or a table) for an answer as {answer_type}",
+                          {"Accept": [f"must accept {tables.JSON} for a rows batch"]})
+        return body, answer_type
+    data = read_body(limits)
+    if body_type == tables.CSV and tables.is_ecsv(data):
+        body_type = tables.ECSV
+        if answer_type == tables.CSV:
+            answer_type = ECSV_AS_CSV
+    try:
+        parsed = {} if options is None else _loads_checked(options)
+    except ValueError as e:
+        raise Problem(400, f"the options query parameter is not JSON: {str(e)[:200]}",
+                      {"options": ["must be a URL-encoded JSON object"]}) from None
+    if not isinstance(parsed, dict):
+        raise Problem(400, "the options query parameter must be a JSON object", {"options": ["must be a JSON object"]})
+    try:
+        body = tables.read_request(data, body_type, calc, parsed)
+    except tables.TableError as e:
+        raise Problem(e.status, e.detail, e.errors) from None
+    series = [spec.name for spec in calc.inputs if spec.kind == "series" and spec.name in body["columns"]]
+    if series and answer_type not in (tables.JSON, tables.ARROW):     # before the work, not after
+        e = tables.series_refused([f"the outputs over {', '.join(series)}"])
+        raise Problem(e.status, e.detail, e.errors)
+    return body, answer_type
+
+
+def batch_response(response: dict, answer_type: str) -> Response:
+    """A batch answer in its media type (ECSV asked for as text/csv is labelled text/csv)."""
+    if answer_type == tables.JSON:
+        r = _json(response)
+    else:
+        table_type = tables.ECSV if answer_type == ECSV_AS_CSV else answer_type
+        try:
+            data = tables.encode_answer(response, table_type)
+        except tables.TableError as e:
+            raise Problem(e.status, e.detail, e.errors) from None
+        label = tables.CSV if answer_type == ECSV_AS_CSV else answer_type
+        r = Response(data, mimetype=label)
+    r.vary.add("Accept")
+    return r
+
+
 def _json(obj, status=200, mimetype="application/json") -> Response:
     return Response(dumps(obj), status=status, mimetype=mimetype)
 
 
 def problem_response(p: Problem) -> Response:
     return _json(p.as_dict(), p.status, "application/problem+json")
+
+
+GZIP_LEVEL = 1      # numbers in text compress ~2.5x at level 1, barely better at 6 for 3-4x the time
+
+
+def compress(response: Response, threshold: int) -> None:
+    """Gzip an answer of ``threshold`` bytes or more when the caller accepts gzip."""
+    if response.direct_passthrough or response.is_streamed or "Content-Encoding" in response.headers \
+            or response.status_code < 200 or response.status_code in (204, 304):
+        return
+    size = response.calculate_content_length()
+    if size is None or size < threshold:
+        return
+    response.vary.add("Accept-Encoding")
+    if request.method == "HEAD" or not request.accept_encodings["gzip"]:
+        return
+    response.set_data(gzip.compress(response.get_data(), compresslevel=GZIP_LEVEL, mtime=0))
+    response.headers["Content-Encoding"] = "gzip"
 
 
 def install(app: Flask) -> None:
@@ -250,10 +410,12 @@ def install(app: Flask) -> None:
         origin = request.headers.get("Origin")
         if origin and origin in settings.cors_origins:
             response.headers["Access-Control-Allow-Origin"] = origin
-            response.headers["Vary"] = "Origin"
+            response.vary.add("Origin")
             response.headers["Access-Control-Allow-Methods"] = "GET, POST, OPTIONS"
             response.headers["Access-Control-Allow-Headers"] = "Content-Type, X-Request-ID"
             response.headers["Access-Control-Expose-Headers"] = "X-Request-ID"
+        if settings.limits.min_gzip_bytes:
+            compress(response, settings.limits.min_gzip_bytes)
         if log.isEnabledFor(logging.INFO):
             ms = (time.perf_counter() - g.get("t0", time.perf_counter())) * 1e3
             # never the body: method, path, status, size and time only

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, Response
+from flask import Blueprint, Response, current_app
 
 from .. import __version__
 from ..constants import CONSTANTS
@@ -23,6 +23,13 @@ def ready():
     from ..openapi import spec_yaml
     return json_response({"status": "ready", "version": __version__, "calculations": len(calculations()),
                           "spec_bytes": len(spec_yaml())})
+
+
+@bp.get("/v1/limits")
+def limits():
+    # the limits in force, so that a client can split a catalogue before sending it
+    from ..config import describe_limits
+    return json_response({"limits": describe_limits(current_app.config["CALCSERVICE_SETTINGS"].limits)})
 
 
 @bp.get("/v1/constants")

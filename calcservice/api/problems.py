@@ -8,6 +8,7 @@ PROBLEM_TYPES = {
     400: ("malformed-request", "Malformed request"),
     404: ("not-found", "Not found"),
     405: ("method-not-allowed", "Method not allowed"),
+    406: ("not-acceptable", "Not acceptable"),
     413: ("too-large", "Request or work too large"),
     415: ("unsupported-media-type", "Unsupported media type"),
     422: ("invalid-input", "Invalid input"),

@@ -291,7 +291,7 @@ def _output_units(calc, units: Mapping[str, str], errors) -> dict[str, str]:
             errors.setdefault(f"units.{name}", []).append(f"{calc.name} has no output {name!r}")
             continue
         try:
-            factor(known[name].unit, unit)
+            factor(unit, known[name].unit)      # this way round the error names the kind the output needs
         except UnitError as e:
             errors.setdefault(f"units.{name}", []).append(str(e))
             continue

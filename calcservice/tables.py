@@ -1,0 +1,571 @@
+"""Catalogue tables on the wire: Apache Arrow IPC streams, CSV and ECSV.
+
+Pure conversions, no HTTP: a request table's bytes to the JSON columns body of
+``POST /v1/batch/<calculation>`` (:func:`read_request`), a columns answer to table bytes
+(:func:`encode_answer`), and the two other directions for callers (:func:`encode_request`,
+:func:`decode_answer`).  Arrow goes through ``pyarrow``, CSV and ECSV through astropy's table I/O.
+
+A request table has a column ``NAME`` per input (its unit in the Arrow field metadata ``unit``,
+in the ECSV header, or as ``NAME[unit]`` in a plain CSV header; none means the input's default
+unit), sigma columns ``NAME_sigma`` or ``NAME_sigma_minus`` and ``NAME_sigma_plus`` in NAME's unit
+(a sigma column with a unit of its own is converted), choices as strings.  A missing entry (Arrow
+null, empty CSV cell, masked ECSV entry, NaN) means "not given for this system", as ``null`` in a
+JSON columns body.  Float columns travel as numpy arrays (NaN: not given), other columns as lists.
+
+An answer table has, for each output, ``NAME`` (the value; Monte Carlo: the median), ``NAME_sigma``
+and, for Monte Carlo, ``NAME_low`` and ``NAME_high``, then ``error_status``, ``error`` and
+``warnings`` (a system's warning codes joined by ``;``); extra members per system (the events of an
+ephemeris) follow as JSON text, and per-system parts of the uncertainty as ``uncertainty_<key>``.
+The calculation, the batch's uncertainty and the provenance are table metadata (JSON text in the
+Arrow schema metadata, a mapping in the ECSV header; plain CSV has no place for them).  Series
+outputs are Arrow list columns; CSV and ECSV cannot hold them.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import re
+from typing import Any, Mapping
+
+import numpy as np
+
+from .registry import Calculation
+from .units import UnitError, factor
+
+JSON = "application/json"
+ARROW = "application/vnd.apache.arrow.stream"
+CSV = "text/csv"
+ECSV = "text/x-ecsv"
+TABLE_TYPES = (ARROW, CSV, ECSV)
+MEDIA_TYPES = (JSON, *TABLE_TYPES)
+
+SIGMA_KEYS = ("sigma_minus", "sigma_plus", "sigma")       # longest suffix first
+UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
+ERROR_COLUMNS = ("error_status", "error", "warnings")
+UNCERTAINTY_PREFIX = "uncertainty_"
+_HEADER_UNIT = re.compile(r"^\s*(?P<name>[^\[\]]+?)\s*\[(?P<unit>[^\]]*)\]\s*$")
+_ECSV_SIGNATURE = "# %ECSV"
+
+
+class TableError(ValueError):
+    """A table that cannot be taken or given: an HTTP status, a detail and errors by column."""
+
+    def __init__(self, status: int, detail: str, errors: Mapping[str, list[str]] | None = None):
+        super().__init__(detail)
+        self.status = status
+        self.detail = detail
+        self.errors = {k: list(v) for k, v in (errors or {}).items()}
+
+
+def is_ecsv(data: bytes | str) -> bool:
+    """Whether CSV text is ECSV (it starts with astropy's ``# %ECSV`` signature line)."""
+    head = data[:64].lstrip()
+    return (head.decode("utf-8", "replace") if isinstance(head, bytes) else head).startswith(_ECSV_SIGNATURE)
+
+
+# ----------------------------------------------------------------------------- request: table -> columns body
+
+def read_request(data: bytes, media_type: str, calc: Calculation, options: Mapping | None = None) -> dict:
+    """A request table (Arrow IPC stream, CSV or ECSV bytes) to the JSON columns body of ``calc``:
+    ``{"columns": {name: {"value": ..., "sigma": ..., "unit": ...}}, **options}``.
+
+    ``options`` are the batch's options (``uncertainty``, ``units``, ``correlations``...); a member
+    named after an input (a series such as an ephemeris' ``times``, or one value for every system)
+    joins the columns.  Raises :class:`TableError` (400 unreadable, 422 a column that does not fit)."""
+    if media_type == ARROW:
+        read = _read_arrow(data, calc)
+    elif media_type in (CSV, ECSV):
+        read = _read_text(data, calc)
+    else:
+        raise TableError(415, f"a request table is one of {', '.join(TABLE_TYPES)}, not {media_type}")
+    return request_body(calc, read, options)
+
+
+def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], options: Mapping | None = None) -> dict:
+    """Named columns ``(name, values, unit)`` (values: float array with NaN where not given, or a
+    list with None) to the JSON columns body; sigma columns joined to their input's column."""
+    inputs = {spec.name: spec for spec in calc.inputs}
+    given: dict[str, tuple[Any, str | None]] = {}
+    sigmas: dict[str, dict[str, tuple[Any, str | None, str]]] = {}
+    errors: dict[str, list[str]] = {}
+    for name, values, unit in read:
+        if name in given or any(name == col for d in sigmas.values() for *_, col in d.values()):
+            errors.setdefault(name, []).append("the column appears twice")
+        elif name in inputs:
+            given[name] = (values, unit)
+        else:
+            base, key = _sigma_of(name)
+            if base in inputs:
+                sigmas.setdefault(base, {})[key] = (values, unit, name)
+            else:
+                errors[name] = [f"{calc.name} has no input {name!r} (columns: inputs, NAME_sigma, "
+                                "NAME_sigma_minus, NAME_sigma_plus)"]
+    for base, members in sigmas.items():
+        spec = inputs[base]
+        for key, (_, _, col) in members.items():
+            if base not in given:
+                errors[col] = [f"a sigma column needs the column {base}"]
+            elif spec.kind != "quantity":
+                errors[col] = [f"{base} is a {spec.kind}: it has no uncertainty"]
+        if "sigma" in members and len(members) > 1:
+            errors[members["sigma"][2]] = [f"give either {base}_sigma or {base}_sigma_minus and {base}_sigma_plus"]
+        elif ("sigma_minus" in members) != ("sigma_plus" in members):
+            errors[next(col for *_, col in members.values())] = [f"{base}_sigma_minus and {base}_sigma_plus go together"]
+    for name, (values, unit) in given.items():
+        if inputs[name].kind == "series":
+            errors[name] = [f"{name} is a series, the same for every system: give it in the options "
+                            f'(?options={{"{name}": [...]}})']
+        elif inputs[name].kind != "quantity" and unit:
+            errors[name] = [f"{name} is a {inputs[name].kind}: it has no unit"]
+    columns: dict[str, Any] = {}
+    for name, (values, unit) in given.items():
+        if name in errors:
+            continue
+        spec = inputs[name]
+        if spec.kind != "quantity":
+            columns[name] = values.tolist() if isinstance(values, np.ndarray) else values
+            continue
+        entry: dict[str, Any] = {"value": _quantity_values(values)}
+        if isinstance(entry["value"], list) and spec.isotropic and all(v == "isotropic" for v in entry["value"]) \
+                and name not in sigmas:
+            columns[name] = "isotropic"           # random orientations for every system
+            continue
+        for key, (sigma, sigma_unit, col) in sigmas.get(name, {}).items():
+            sigma = _quantity_values(sigma)
+            if sigma_unit and sigma_unit != (unit or spec.unit):
+                try:
+                    k = factor(sigma_unit, unit or spec.unit)
+                except UnitError as e:
+                    errors[col] = [str(e)]
+                    continue
+                if isinstance(sigma, np.ndarray):
+                    sigma = sigma * k
+                else:
+                    errors[col] = ["a sigma column with a unit of its own must hold numbers only"]
+                    continue
+            entry[key] = sigma
+        if unit:
+            entry["unit"] = unit
+        columns[name] = entry
+    body: dict[str, Any] = {}
+    for key, value in (options or {}).items():
+        if key in ("columns", "systems"):
+            errors[f"options.{key}"] = ["the table holds the systems: options carry the batch's options only"]
+        elif key in inputs:
+            if key in given:
+                errors[f"options.{key}"] = [f"{key} is a column of the table too"]
+            columns[key] = value
+        else:
+            body[key] = value
+    if errors:
+        raise TableError(422, "the table's columns do not fit " + calc.name + ": " +
+                         "; ".join(f"{k}: {' '.join(v)}" for k, v in sorted(errors.items())), errors)
+    if not columns:
+        raise TableError(422, "the table has no columns", {"_table": ["give one column per input"]})
+    return {"columns": columns, **body}
+
+
+def _sigma_of(name: str) -> tuple[str, str]:
+    for key in SIGMA_KEYS:
+        if name.endswith("_" + key):
+            return name[: -len(key) - 1], key
+    return name, "value"
+
+
+def _quantity_values(values):
+    """A quantity's column as floats (NaN: not given) when it holds numbers only; else a list whose
+    numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word."""
+    if isinstance(values, np.ndarray):
+        return values
+    if all(v is None or type(v) is str for v in values):      # not booleans: true is no number here
+        try:
+            return np.array([np.nan if v is None else v for v in values], dtype=float)
+        except ValueError:
+            pass
+    out = []
+    for v in values:
+        if isinstance(v, str):
+            try:
+                v = float(v)
+            except ValueError:
+                pass
+        out.append(v)
+    return out
+
+
+def _read_arrow(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | None]]:
+    import pyarrow as pa
+
+    try:
+        table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
+        raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
+    kinds = {spec.name: spec.kind for spec in calc.inputs}
+    out = []
+    for field, column in zip(table.schema, table.columns):
+        meta = field.metadata or {}
+        unit = meta.get(b"unit", b"").decode("utf-8", "replace").strip() or None
+        kind = kinds.get(_sigma_of(field.name)[0] if field.name not in kinds else field.name, "quantity")
+        t = field.type
+        if pa.types.is_dictionary(t):
+            column, t = column.cast(t.value_type), t.value_type
+        if (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity":
+            values = column.cast(pa.float64()).to_numpy()       # nulls become NaN
+        elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
+                or pa.types.is_large_string(t) or pa.types.is_boolean(t):
+            values = column.to_pylist()
+        else:
+            raise TableError(422, f"column {field.name} is of type {t}; give numbers or strings, one per system",
+                             {field.name: [f"a column of numbers or strings, not {t}"]})
+        out.append((field.name, values, unit))
+    return out
+
+
+def _read_text(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | None]]:
+    from astropy.io.ascii import InconsistentTableError
+    from astropy.table import Table
+
+    try:
+        text = data.decode("utf-8-sig")         # a spreadsheet's byte order mark is no part of a name
+    except UnicodeDecodeError as e:
+        raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
+    ecsv = is_ecsv(text)
+    try:
+        table = Table.read(text, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+    except (InconsistentTableError, ValueError, TypeError, KeyError, IndexError, AttributeError) as e:
+        raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
+    except Exception as e:          # the YAML header of ECSV raises its own errors
+        if type(e).__module__.startswith(("yaml", "astropy")):
+            raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
+        raise
+    kinds = {spec.name: spec.kind for spec in calc.inputs}
+    out = []
+    for name in table.colnames:
+        col = table[name]
+        unit = None
+        if ecsv:
+            unit = col.unit.to_string() if col.unit is not None else None
+        else:
+            m = _HEADER_UNIT.match(name)
+            if m:
+                name, unit = m.group("name"), m.group("unit").strip() or None
+        if col.ndim != 1:
+            raise TableError(422, f"column {name} has more than one value per system", {name: ["one value per system"]})
+        kind = kinds.get(name, kinds.get(_sigma_of(name)[0], "quantity"))
+        masked = np.ma.asarray(col)
+        if masked.dtype.kind in "fiu" and kind == "quantity":
+            values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
+        else:
+            values = masked.tolist()            # masked entries become None
+        out.append((name, values, unit or None))
+    return out
+
+
+# ----------------------------------------------------------------------------- request: columns body -> table
+
+def encode_request(body: Mapping, media_type: str) -> bytes:
+    """A JSON columns body (``{"columns": {...}}``; its options are not part of a table: send them as
+    the ``options`` query parameter) as an Arrow IPC stream, CSV or ECSV table."""
+    columns = body["columns"] if "columns" in body else body
+    lengths = {len(v) for entry in columns.values() for v in (entry.values() if isinstance(entry, dict) else [entry])
+               if isinstance(v, (list, np.ndarray))}
+    n = lengths.pop() if len(lengths) == 1 else 1
+    cols: list[tuple[str, Any, str, str | None]] = []     # name, values, kind, unit
+    for name, entry in columns.items():
+        if not isinstance(entry, dict):
+            entry = {"value": entry}
+        unit = entry.get("unit")
+        for key in ("value", *SIGMA_KEYS):
+            if key in entry:
+                v = entry[key]
+                if not isinstance(v, (list, np.ndarray)):
+                    v = [v] * n
+                cols.append((name if key == "value" else f"{name}_{key}", *_column_values(v), unit))
+    return _encode(cols, {}, media_type)
+
+
+def _column_values(v) -> tuple[Any, str]:
+    """Numbers as a float array (NaN for None), anything else as text."""
+    if isinstance(v, np.ndarray) and v.dtype.kind in "fiu":
+        return v.astype(float, copy=False), "float"
+    if all(x is None or (type(x) in (int, float)) for x in v):
+        return np.array([np.nan if x is None else x for x in v], dtype=float), "float"
+    return [None if x is None else str(x) for x in v], "text"
+
+
+# ----------------------------------------------------------------------------- answer: columns answer -> table
+
+def encode_answer(response: Mapping, media_type: str) -> bytes:
+    """A columns answer of ``compute_batch`` (numpy arrays with NaN, or lists with None) as an Arrow
+    IPC stream, CSV or ECSV table; raises :class:`TableError` (406) for series outputs in CSV/ECSV."""
+    n = int(response["count"])
+    if media_type != ARROW:
+        series = [name for name, entry in response["columns"].items() if isinstance(entry, dict) and
+                  _is_series(entry.get("value"))]
+        if series:
+            raise series_refused(series)
+    cols: list[tuple[str, Any, str, str | None]] = []        # name, values, kind, unit
+    extras = []
+    for name, entry in response["columns"].items():
+        if isinstance(entry, dict) and "value" in entry:
+            unit = entry.get("unit") or None
+            for key, v in entry.items():
+                if key == "unit":
+                    continue
+                col = name if key == "value" else f"{name}_{key}"
+                if isinstance(v, dict):             # e.g. terms of a variance budget: a column each
+                    cols.extend((f"{col}_{term}", *_answer_values(a), None) for term, a in v.items())
+                else:
+                    cols.append((col, *_answer_values(v), unit if key in UNIT_KEYS else None))
+        else:                                       # a member per system (an ephemeris' events): JSON text
+            extras.append((name, [None if x is None else json.dumps(x, separators=(",", ":")) for x in entry],
+                           "json", None))
+    status = np.zeros(n, dtype=np.int64)
+    failed = np.ones(n, dtype=bool)
+    error = np.full(n, None, dtype=object)
+    for problem in response.get("errors", []):
+        i = problem["index"]
+        status[i], failed[i] = problem["status"], False
+        error[i] = error_text(problem)
+    cols.append(("error_status", np.ma.array(status, mask=failed), "int", None))
+    cols.append(("error", error, "text", None))
+    cols.append(("warnings", warning_codes(response.get("warnings", []), n), "text", None))
+    cols.extend(extras)
+    meta_uncertainty = {}
+    for key, v in (response.get("uncertainty") or {}).items():
+        if isinstance(v, (np.ndarray, list)) and len(v) == n and key in ("rejected_fraction", "method"):
+            cols.append((UNCERTAINTY_PREFIX + key, *_answer_values(v), None))
+        else:
+            meta_uncertainty[key] = v.tolist() if isinstance(v, np.ndarray) else v
+    meta = {"calculation": response.get("calculation"), "uncertainty": meta_uncertainty}
+    if "provenance" in response:
+        meta["provenance"] = response["provenance"]
+    return _encode(cols, meta, media_type)
+
+
+def series_refused(names) -> TableError:
+    """The 406 for series (a list of numbers per system) asked for as CSV or ECSV."""
+    return TableError(406, f"{', '.join(names)} hold a series per system, which CSV and ECSV cannot carry: "
+                           f"ask for {JSON} or {ARROW}", {"Accept": [f"ask for {JSON} or {ARROW}"]})
+
+
+def _is_series(v) -> bool:
+    if isinstance(v, np.ndarray):
+        return v.ndim > 1
+    return isinstance(v, list) and any(isinstance(x, (list, np.ndarray)) for x in v)
+
+
+def error_text(problem: Mapping) -> str:
+    """A problem's detail and its field errors, ``detail; field: message; ...``."""
+    parts = [str(problem.get("detail", ""))]
+    for field, messages in (problem.get("errors") or {}).items():
+        parts.append(f"{field}: {' '.join(map(str, messages))}")
+    return "; ".join(parts)
+
+
+def warning_codes(warnings: list[Mapping], n: int) -> np.ndarray:
+    """Each system's warning codes joined by ``;`` ("" for none), from columnar warnings (``rows``)."""
+    codes = np.full(n, "", dtype=object)
+    rows_of: dict[str, np.ndarray] = {}
+    for w in warnings:
+        mask = rows_of.setdefault(w["code"], np.zeros(n, dtype=bool))
+        mask[np.asarray(w["rows"], dtype=np.int64) if "rows" in w else slice(None)] = True
+    for code, mask in rows_of.items():
+        codes[mask] = np.where(codes[mask] == "", code, codes[mask] + ";" + code)
+    return codes
+
+
+def _answer_values(v) -> tuple[Any, str]:
+    """An answer member and its kind: "float" (an array, NaN: null), "series" (an array (N, T), or a
+    list with None for a system without one) or "text"."""
+    if isinstance(v, np.ndarray) and v.dtype.kind in "fiu":
+        return v, "float" if v.ndim == 1 else "series"
+    if _is_series(v):
+        return v, "series"
+    if all(x is None or type(x) in (int, float) for x in v):
+        return np.array([np.nan if x is None else x for x in v], dtype=float), "float"
+    return v, "text"
+
+
+def _encode(cols: list[tuple[str, Any, str | None]], meta: dict, media_type: str) -> bytes:
+    if media_type == ARROW:
+        return _arrow(cols, meta)
+    if media_type in (CSV, ECSV):
+        return _text(cols, meta, ecsv=media_type == ECSV)
+    raise TableError(406, f"a table is one of {', '.join(TABLE_TYPES)}, not {media_type}")
+
+
+def _arrow(cols, meta: dict) -> bytes:
+    import pyarrow as pa
+
+    arrays, fields = [], []
+    for name, v, kind, unit in cols:
+        field_meta = {"content": "application/json"} if kind == "json" else {}
+        if unit:
+            field_meta["unit"] = unit
+        arr = _arrow_array(pa, v, kind)
+        arrays.append(arr)
+        fields.append(pa.field(name, arr.type, metadata=field_meta or None))
+    schema = pa.schema(fields, metadata={k: json.dumps(v, separators=(",", ":"), default=_json_default)
+                                         for k, v in meta.items()} or None)
+    table = pa.Table.from_arrays(arrays, schema=schema)
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, schema) as writer:
+        writer.write_table(table)
+    return sink.getvalue().to_pybytes()
+
+
+def _arrow_array(pa, v, kind: str):
+    if kind == "int":
+        return pa.array(v.data, mask=np.ma.getmaskarray(v))
+    if kind == "float":
+        return pa.array(v, from_pandas=True)          # NaN -> null
+    if kind == "series":
+        if isinstance(v, np.ndarray):
+            flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
+            return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
+        return pa.array([None if x is None else [None if y is None or y != y else float(y) for y in x] for x in v],
+                        type=pa.list_(pa.float64()))
+    return pa.array(v, type=pa.string(), from_pandas=True)
+
+
+def _json_default(o):
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, np.generic):
+        return o.item()
+    raise TypeError(f"{type(o).__name__} is not JSON serialisable")
+
+
+def _text(cols, meta: dict, ecsv: bool) -> bytes:
+    from astropy import units as u
+    from astropy.table import Column, MaskedColumn, Table
+
+    table = Table()
+    for name, v, kind, unit in cols:
+        if kind == "int":
+            data, mask = v.data, np.ma.getmaskarray(v)
+        elif kind == "float":
+            data, mask = v, np.isnan(v)
+        else:       # text: empty where there is none (astropy writes masked entries one by one, far slower)
+            data, mask = np.array(["" if x is None else str(x) for x in v], dtype=str), np.zeros(len(v), dtype=bool)
+        header = name if ecsv or not unit else f"{name}[{unit}]"
+        if mask.any():                          # a masked column only where needed: it writes far slower
+            col = MaskedColumn(data, name=header, mask=mask)
+        else:
+            col = Column(data, name=header)
+        if ecsv and unit:
+            col.unit = u.Unit(unit)
+        table.add_column(col)
+    out = io.StringIO()
+    if ecsv:
+        table.meta.update(json.loads(json.dumps(meta, default=_json_default)))    # plain mappings for the YAML
+        table.write(out, format="ascii.ecsv")
+    else:
+        table.write(out, format="ascii.csv")
+    return out.getvalue().encode("utf-8")
+
+
+# ----------------------------------------------------------------------------- answer: table -> columns answer
+
+def decode_answer(data: bytes, media_type: str) -> dict:
+    """An answer table back to the shape of a JSON columns answer: ``calculation``, ``count``,
+    ``columns`` (``{name: {"value": array, "sigma": array, ..., "unit": ...}}``, NaN where null;
+    series as arrays (N, T) or lists), ``errors`` (``[{"index", "status", "detail"}]``),
+    ``warnings`` (per system, a list of codes), ``uncertainty`` and ``provenance`` where the
+    format holds them."""
+    if media_type == ARROW:
+        cols, meta = _decode_arrow(data)
+    elif media_type in (CSV, ECSV):
+        cols, meta = _decode_text(data)
+    else:
+        raise TableError(415, f"an answer table is one of {', '.join(TABLE_TYPES)}, not {media_type}")
+    names = [name for name, _, _ in cols]
+    values = {name: (v, unit) for name, v, unit in cols}
+    n = len(cols[0][1]) if cols else 0
+    columns: dict[str, Any] = {}
+    uncertainty = dict(meta.get("uncertainty") or {})
+    taken = set(ERROR_COLUMNS)
+    for name in names:
+        if name.startswith(UNCERTAINTY_PREFIX):
+            v = values[name][0]
+            uncertainty[name[len(UNCERTAINTY_PREFIX):]] = v
+            taken.add(name)
+    for name in names:
+        if name in taken:
+            continue
+        v, unit = values[name]
+        if unit == "json":
+            columns[name] = [None if x is None else json.loads(x) for x in v]
+            taken.add(name)
+            continue
+        entry = {"value": v}
+        taken.add(name)
+        for other in names:
+            if other not in taken and other.startswith(name + "_") and (other[len(name) + 1:] in UNIT_KEYS):
+                entry[other[len(name) + 1:]] = values[other][0]
+                taken.add(other)
+        entry["unit"] = unit or ""
+        columns[name] = entry
+    status = values.get("error_status", (None,))[0]
+    detail = values.get("error", (None,))[0]
+    errors = []
+    if status is not None:
+        st = np.asarray(status, dtype=float)
+        for i in np.flatnonzero(~np.isnan(st)).tolist():
+            errors.append({"index": i, "status": int(st[i]), "detail": detail[i] if detail is not None else None})
+    codes = values.get("warnings", (None,))[0]
+    warnings = [[c for c in (x or "").split(";") if c] for x in codes] if codes is not None else [[] for _ in range(n)]
+    out = {"calculation": meta.get("calculation"), "count": n, "columns": columns, "errors": errors,
+           "warnings": warnings, "uncertainty": uncertainty}
+    if "provenance" in meta:
+        out["provenance"] = meta["provenance"]
+    return out
+
+
+def _decode_arrow(data: bytes):
+    import pyarrow as pa
+
+    table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
+    meta = {k.decode(): json.loads(v) for k, v in (table.schema.metadata or {}).items()}
+    cols = []
+    for field, column in zip(table.schema, table.columns):
+        fm = field.metadata or {}
+        unit = "json" if fm.get(b"content") == b"application/json" else fm.get(b"unit", b"").decode() or None
+        t = field.type
+        if pa.types.is_floating(t):
+            v = column.to_numpy()
+        elif pa.types.is_fixed_size_list(t) and column.null_count == 0:
+            v = column.combine_chunks().flatten().to_numpy(zero_copy_only=False).reshape(len(column), t.list_size)
+        else:
+            v = column.to_pylist()
+        cols.append((field.name, v, unit))
+    return cols, meta
+
+
+def _decode_text(data: bytes):
+    from astropy.table import Table
+
+    text = data.decode("utf-8")
+    ecsv = is_ecsv(text)
+    table = Table.read(text, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+    cols = []
+    for name in table.colnames:
+        col = table[name]
+        masked = np.ma.asarray(col)
+        unit = col.unit.to_string() if ecsv and col.unit is not None else None
+        if not ecsv:
+            m = _HEADER_UNIT.match(name)
+            if m:
+                name, unit = m.group("name"), m.group("unit").strip() or None
+        if name in ("error", "warnings"):           # text; a column of empty cells reads as numbers
+            v = [None if x is None or masked.dtype.kind != "U" else x for x in masked.tolist()]
+            if name == "warnings":
+                v = ["" if x is None else x for x in v]
+        elif masked.dtype.kind in "fiu":
+            v = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
+        else:
+            v = masked.tolist()
+        cols.append((name, v, unit))
+    return cols, dict(table.meta) if ecsv else {}

@@ -1,0 +1,64 @@
+"""Unit strings: every one astropy reads is accepted, and a wrong kind of unit says which kind is needed."""
+
+import pytest
+from astropy import units as u
+
+from calcservice.units import UnitError, factor, parse_unit
+
+from .conftest import post
+
+SB1 = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31, "primary_mass": 1.9, "inclination": 71.0}
+
+
+@pytest.mark.parametrize("text", ["%", "µas", "μas", "°", "″", "′", "Å", "M☉", "km s-1", "mas yr^-1",
+                                  "solMass / yr"])
+def test_every_unit_astropy_reads_is_accepted(text):
+    # astropy itself is the reference: what it parses, we parse, to the same unit
+    assert parse_unit(text) == u.Unit(text)
+
+
+@pytest.mark.parametrize("text", ["fortnights", "km/s\n", "m" * 65, "\x00"])
+def test_what_astropy_cannot_read_is_refused(text):
+    with pytest.raises(UnitError):
+        parse_unit(text)
+
+
+def test_degree_sign_and_microarcseconds_over_http(client):
+    # astropy: 1° = 3600 arcsec, 1 µas = 1e-3 mas
+    deg = post(client, "/v1/spectroscopic/sb1", {**SB1, "inclination": {"value": 71.0, "unit": "°"}})
+    plain = post(client, "/v1/spectroscopic/sb1", SB1)
+    assert deg[0] == 200 and deg[1]["results"]["m2"] == plain[1]["results"]["m2"]
+    status, body = post(client, "/v1/astrometric/campbell", {k: {"value": v * 1000.0, "unit": "µas"} for k, v in
+                                                             {"A": 2.1, "B": 8.3, "F": -9.4, "G": 1.7}.items()})
+    ref = post(client, "/v1/astrometric/campbell", {"A": 2.1, "B": 8.3, "F": -9.4, "G": 1.7})[1]
+    assert status == 200
+    assert body["results"]["angular_semimajor_axis"]["value"] == pytest.approx(
+        ref["results"]["angular_semimajor_axis"]["value"], rel=1e-12)
+
+
+def test_percent_is_a_dimensionless_unit(client):
+    # astropy: 31 % = 0.31 (dimensionless)
+    status, body = post(client, "/v1/spectroscopic/sb1", {**SB1, "eccentricity": {"value": 31.0, "unit": "%"}})
+    assert status == 200
+    assert body["results"]["mass_function"] == post(client, "/v1/spectroscopic/sb1", SB1)[1]["results"]["mass_function"]
+    assert factor("%", "") == pytest.approx(0.01, rel=1e-15)
+
+
+def test_output_unit_error_names_the_kind_the_output_needs(client):
+    status, body = post(client, "/v1/spectroscopic/sb1", {**SB1, "units": {"semimajor_axis": "km/s"}})
+    assert status == 422
+    message = " ".join(body["errors"]["units.semimajor_axis"])
+    # astropy: au is a length, km/s a speed/velocity
+    assert str(u.au.physical_type) == "length"
+    assert "a length unit is needed" in message and "velocity" not in message.split("(")[-1]
+
+
+def test_input_unit_error_names_the_kind_the_input_needs(client):
+    status, body = post(client, "/v1/spectroscopic/sb1", {**SB1, "period": {"value": 41.6, "unit": "km/s"}})
+    assert status == 422 and "a time unit is needed" in " ".join(body["errors"]["period"])
+
+
+def test_unit_astropy_has_no_word_for_is_named_itself():
+    with pytest.raises(UnitError) as info:
+        factor("km", "solMass / yr")
+    assert "convertible to 'solMass / yr'" in str(info.value)
