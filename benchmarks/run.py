@@ -50,7 +50,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from calcservice import create_app  # noqa: E402
-from calcservice.api.batch import compute_batch  # noqa: E402
+from calcservice.core import compute_batch  # noqa: E402
 from calcservice.api.edge import dumps  # noqa: E402
 from calcservice.constants import AU_KM, GM_SUN, SECONDS_PER_DAY  # noqa: E402
 

@@ -6,8 +6,8 @@ import uncertainties
 from scipy import stats
 from uncertainties import umath
 
-from calcservice.api.problems import Problem
-from calcservice.api.service import compute
+from calcservice.core import Problem
+from calcservice.core import compute
 from calcservice.engine import Measured, Options, evaluate
 from calcservice.physics.spectroscopic import MASS_FUNCTION_COEFFICIENT, PROJECTED_AXIS_COEFFICIENT_KM
 from calcservice.constants import AU_KM
@@ -199,7 +199,7 @@ def test_engine_is_vectorised_over_systems():
 # the steps turn one-sided) must give the same numbers, warnings and failures by both.
 
 def _variants(calc):
-    from calcservice.api.service import build, load
+    from calcservice.core.parse import build, load
     from calcservice.config import Limits
     limits = Limits()
     example = calc.example

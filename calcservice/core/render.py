@@ -1,0 +1,166 @@
+"""The engine's result as the wire contract's dicts: one system's response, or the parts of a
+batch's rows (results, warnings, uncertainty) picked by system from one engine call."""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+from typing import Any, Mapping
+
+import numpy as np
+
+from .. import __version__
+from ..constants import constants_used
+from ..engine import Result
+from ..registry import Calculation, Warning
+from ..units import factor
+from .parse import Parsed
+
+
+def provenance(calc: Calculation) -> dict:
+    """Version, formulas, constants, references and conventions of a calculation: built from the
+    declaration once, copied per answer (a caller may change its copy)."""
+    formulas, constants, references, conventions = _provenance_parts(calc)
+    return {
+        "version": __version__,
+        "calculation": calc.name,
+        "formulas": dict(formulas),
+        "constants": {k: dict(v) for k, v in constants.items()},
+        "references": list(references),
+        "conventions": dict(conventions),
+    }
+
+
+@lru_cache(maxsize=None)
+def _provenance_parts(calc: Calculation) -> tuple:
+    return ({o.name: o.formula for o in calc.outputs if o.formula}, constants_used(calc.constants),
+            tuple(calc.references), dict(calc.conventions))
+
+
+def clean(x) -> Any:
+    """JSON-safe numbers: non-finite floats become None, numpy arrays nested lists."""
+    if isinstance(x, np.ndarray):
+        return clean_array(x) if x.ndim else clean(x.item())
+    if isinstance(x, float):
+        return x if math.isfinite(x) else None
+    if isinstance(x, (np.floating, np.integer)):
+        return clean(x.item())
+    return x
+
+
+def clean_array(a: np.ndarray) -> list:
+    """An array as (nested) lists of JSON-safe floats: non-finite numbers become None."""
+    a = np.asarray(a, dtype=float)
+    finite = np.isfinite(a)
+    if finite.all():
+        return a.tolist()
+    obj = a.astype(object)
+    obj[~finite] = None
+    return obj.tolist()
+
+
+@lru_cache(maxsize=4096)
+def output_factors(calc: Calculation, names: tuple[str, ...], units: tuple) -> tuple[tuple, tuple]:
+    """The unit of each output as asked for (else its canonical one) and the factor to it."""
+    asked = dict(units)
+    out_units = tuple(asked.get(name, calc.output(name).unit) for name in names)
+    factors = tuple(factor(calc.output(name).unit, unit) if unit != calc.output(name).unit else 1.0
+                    for name, unit in zip(names, out_units))
+    return out_units, factors
+
+
+def output_entries(calc: Calculation, result: Result, units: Mapping[str, str]) -> list[tuple[str, bool, list[dict]]]:
+    """Each output as (name, is_series, [its entry {"value", "sigma", ..., "unit"} for each system]),
+    in the unit asked for: converted and cleaned once for all systems of an engine call."""
+    names = tuple(result.outputs)
+    out_units, factors = output_factors(calc, names, tuple(sorted(units.items())))
+    table = []
+    for name, unit, k in zip(names, out_units, factors):
+        members = result.outputs[name]
+        keys = ["value", *(key for key in members if key != "value")]
+        columns = [clean_array(np.multiply(members[key], k, dtype=float)) for key in keys]
+        entries = [{**dict(zip(keys, numbers)), "unit": unit} for numbers in zip(*columns)]
+        table.append((name, np.ndim(members["value"]) > 1, entries))
+    return table
+
+
+def warning_entries(warnings: list[Warning], applies: tuple[bool, ...]) -> list[dict]:
+    """The warnings that apply to one system, those of one code and message that differ only in
+    the field they are about reported once, naming every such field."""
+    grouped: dict[tuple[str, str], list[str]] = {}
+    for w, hit in zip(warnings, applies):
+        if hit:
+            subjects = grouped.setdefault((w.code, w.message), [])
+            if w.subject is not None and w.subject not in subjects:
+                subjects.append(w.subject)
+    return [{"code": code, "message": message.replace("{subject}", ", ".join(subjects)), "fields": subjects}
+            if subjects else {"code": code, "message": message} for (code, message), subjects in grouped.items()]
+
+
+def warning_mask(w: Warning, n: int) -> np.ndarray:
+    """The systems (of an engine call over ``n``) a warning applies to."""
+    if w.where is None:
+        return np.ones(n, dtype=bool)
+    return np.resize(np.asarray(w.where, dtype=bool).reshape(-1), n)
+
+
+def uncertainty_of(result: Result, index: int) -> dict:
+    """How system ``index``'s uncertainty was found: the method, and for Monte Carlo its draws."""
+    if result.method == "linear":
+        return {"method": "linear"}
+    return {"method": "monte_carlo", "samples": result.samples, "seed": result.seed,
+            "rejected_fraction": float(result.rejected_fraction[index])}
+
+
+class Rendering:
+    """What every system of one engine call shares, computed once (outputs converted and cleaned,
+    warnings, extras); the methods pick one system's part."""
+
+    def __init__(self, parsed: Parsed, result: Result):
+        calc = parsed.calc
+        self.parsed, self.result = parsed, result
+        self.n = parsed.count
+        self.table = output_entries(calc, result, parsed.output_units)
+        self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
+        self.series = {calc.input(name).label or name: {"value": clean_array(parsed.times.get(name, values)),
+                                                        "unit": calc.input(name).unit}
+                       for name, values in parsed.series.items()}
+        masks = [warning_mask(w, self.n).tolist() for w in result.warnings]
+        self.applies = list(zip(*masks)) if masks else [()] * self.n
+        self._warnings: dict[tuple, list[dict]] = {}
+
+    def results(self, index: int) -> dict:
+        results: dict[str, Any] = {}
+        series: dict[str, Any] = {}
+        for name, is_series, entries in self.table:
+            (series if is_series else results)[name] = entries[index]
+        if series:
+            results["series"] = {**self.series, **series}
+        if self.extras:
+            results.update(self.extras[index])
+        return results
+
+    def warnings(self, index: int) -> list[dict]:
+        """System ``index``'s warnings, built once per distinct set (a catalogue's systems share a few)."""
+        applies = self.applies[index]
+        entries = self._warnings.get(applies)
+        if entries is None:
+            entries = self._warnings[applies] = warning_entries(self.result.warnings, applies)
+        return list(entries)
+
+    def uncertainty(self, index: int) -> dict:
+        return uncertainty_of(self.result, index)
+
+    def response(self, index: int = 0) -> dict:
+        """One system's full answer, as a single request gets it."""
+        out = {
+            "calculation": self.parsed.calc.name,
+            "results": self.results(index),
+            "uncertainty": self.uncertainty(index),
+            "inputs": self.parsed.echo(index),
+            "warnings": self.warnings(index),
+            "provenance": provenance(self.parsed.calc),
+        }
+        if self.parsed.time_format == "mjd":
+            out["time_format"] = "mjd"
+        return out
