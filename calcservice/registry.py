@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from functools import cached_property
+from functools import cached_property, lru_cache
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
@@ -50,6 +50,7 @@ class Domain:
         high = float(np.nextafter(self.high, -np.inf)) if self.high_open else self.high
         return low, high
 
+    @lru_cache(maxsize=None)
     def message(self, unit: str = "") -> str:
         """The 422 message for a value outside the domain, with the unit it is judged in."""
         return self.describe() + (f" (in {unit})" if unit else "")

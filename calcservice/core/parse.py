@@ -78,22 +78,24 @@ def _echo_column(spec: Input, m: Measured, n: int, given: Any = None) -> list[di
     """One input's echo for each of N systems (a time as given: its number or its ISO 8601 text)."""
     if m.isotropic:
         return [{"value": "isotropic", "unit": spec.unit}] * n
-    if isinstance(given, str):
-        values = [given] * n
-    else:
-        values = np.broadcast_to(m.value if given is None else given, (n,)).tolist()
+    values = [given] * n if isinstance(given, str) else _per_system(m.value if given is None else given, n)
     if m.samples is not None:
         draws = int(m.samples.shape[1])
         return [{"value": v, "sigma": s, "samples": draws, "unit": spec.unit}
-                for v, s in zip(values, np.broadcast_to(m.sigma, (n,)).tolist())]
+                for v, s in zip(values, _per_system(m.sigma, n))]
     out = []
-    for v, lo, hi in zip(values, np.broadcast_to(m.sigma_minus, (n,)).tolist(),
-                         np.broadcast_to(m.sigma_plus, (n,)).tolist()):
+    for v, lo, hi in zip(values, _per_system(m.sigma_minus, n), _per_system(m.sigma_plus, n)):
         if lo != hi:
             out.append({"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit})
         else:
             out.append({"value": v, "sigma": lo, "unit": spec.unit})     # lo == hi (their mean may overflow)
     return out
+
+
+def _per_system(a: np.ndarray, n: int) -> list:
+    """An array over N systems (or one value for all) as a list of N numbers."""
+    values = a.tolist()
+    return values * n if len(values) == 1 else values
 
 
 def check_groups(calc: Calculation, given: set[str]) -> dict[str, list[str]]:

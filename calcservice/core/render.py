@@ -74,13 +74,23 @@ def output_entries(calc: Calculation, result: Result, units: Mapping[str, str]) 
     in the unit asked for: converted and cleaned once for all systems of an engine call."""
     names = tuple(result.outputs)
     out_units, factors = output_factors(calc, names, tuple(sorted(units.items())))
-    table = []
-    for name, unit, k in zip(names, out_units, factors):
+    # the outputs of one shape and one set of members as one block: a few array operations, not a few dozen
+    alike: dict[tuple, list[int]] = {}
+    for i, name in enumerate(names):
         members = result.outputs[name]
-        keys = ["value", *(key for key in members if key != "value")]
-        columns = [clean_array(np.multiply(members[key], k, dtype=float)) for key in keys]
-        entries = [{**dict(zip(keys, numbers)), "unit": unit} for numbers in zip(*columns)]
-        table.append((name, np.ndim(members["value"]) > 1, entries))
+        keys = ("value", *(key for key in members if key != "value"))
+        alike.setdefault((np.shape(members["value"]), keys), []).append(i)
+    table: list = [None] * len(names)
+    for (shape, keys), outputs in alike.items():
+        block = np.array([[result.outputs[names[i]][key] for key in keys] for i in outputs], dtype=float)
+        block *= np.array([factors[i] for i in outputs]).reshape((-1,) + (1,) * (block.ndim - 1))
+        for i, numbers in zip(outputs, clean_array(block)):
+            unit = out_units[i]
+            if keys == ("value", "sigma"):
+                entries = [{"value": v, "sigma": s, "unit": unit} for v, s in zip(*numbers)]
+            else:
+                entries = [{**dict(zip(keys, row)), "unit": unit} for row in zip(*numbers)]
+            table[i] = (names[i], len(shape) > 1, entries)
     return table
 
 

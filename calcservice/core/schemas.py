@@ -114,16 +114,17 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
     return out
 
 
-def faults(spec: Input, x: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray) -> list[tuple[np.ndarray, str]]:
-    """The rules a measured quantity's numbers obey, over N systems in canonical units: for each
-    rule, in the order a caller should hear of them, the systems that break it and its message.
-    (Times are dates, outside any domain; an isotropic inclination is drawn, never checked.)"""
-    with np.errstate(invalid="ignore"):
-        rules = [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
-                 (~(np.isfinite(x) & np.isfinite(sigma_minus) & np.isfinite(sigma_plus)),
-                  f"overflows a double when converted to {spec.unit or 'dimensionless'}")]
+def faults(spec: Input, x, sigma_minus, sigma_plus) -> list[tuple[Any, str]]:
+    """The rules a measured quantity's numbers obey, in canonical units: for each rule, in the order
+    a caller should hear of them, where it is broken and its message.  The numbers are floats for
+    one system (the rules then give booleans) or arrays over N systems (boolean arrays); a batch
+    calls this under ``np.errstate(invalid="ignore")``.  Times are dates, outside any domain."""
+    rules = [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
+             ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
+              f"overflows a double when converted to {spec.unit or 'dimensionless'}")]
     if not spec.time:
-        rules.append((~spec.domain.contains(x), spec.domain.message(spec.unit)))
+        inside = spec.domain.holds(x) if type(x) is float else spec.domain.contains(x)
+        rules.append((np.logical_not(inside), spec.domain.message(spec.unit)))
     return rules
 
 
@@ -229,14 +230,12 @@ class MeasuredField(_CheckedField):
             sm, sp = number(value["sigma_minus"], "sigma_minus"), number(value["sigma_plus"], "sigma_plus")
         else:
             sm = sp = 0.0
-        with np.errstate(over="ignore"):
-            # the unit of a time applies to its sigma only
-            numbers = np.array([x if spec.time else x * k, sm * k, sp * k])    # one array, three views
-        raw = RawQuantity(numbers[0:1], numbers[1:2], numbers[2:3], unit=unit, calendar=text is not None, text=text)
-        for where, message in faults(spec, raw.value, raw.sigma_minus, raw.sigma_plus):
-            if where[0]:
+        x, sm, sp = x if spec.time else x * k, sm * k, sp * k      # the unit of a time applies to its sigma only
+        for broken_here, message in faults(spec, x, sm, sp):
+            if broken_here:
                 raise ValidationError(message)
-        return raw
+        numbers = np.array([x, sm, sp])          # one array, three views: cheaper than three arrays
+        return RawQuantity(numbers[0:1], numbers[1:2], numbers[2:3], unit=unit, calendar=text is not None, text=text)
 
     def _factor(self, unit: str | None) -> float:
         if unit is None:
