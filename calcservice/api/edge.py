@@ -173,7 +173,7 @@ def _fast_loads(data: bytes):
 
 def dumps(obj) -> bytes:
     """Compact JSON; numpy arrays and scalars are written as numbers (non-finite floats must be
-    cleaned to None beforehand, as :func:`calcservice.core.render.clean` does)."""
+    cleaned to None beforehand, as :func:`calcservice.core.render.clean_array` does)."""
     if orjson is not None:
         return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY, default=_orjson_default)
     return json.dumps(obj, allow_nan=False, separators=(",", ":"), default=_numpy_default).encode()

@@ -3,7 +3,6 @@ batch's rows (results, warnings, uncertainty) picked by system from one engine c
 
 from __future__ import annotations
 
-import math
 from functools import lru_cache
 from typing import Any, Mapping
 
@@ -35,17 +34,6 @@ def provenance(calc: Calculation) -> dict:
 def _provenance_parts(calc: Calculation) -> tuple:
     return ({o.name: o.formula for o in calc.outputs if o.formula}, constants_used(calc.constants),
             tuple(calc.references), dict(calc.conventions))
-
-
-def clean(x) -> Any:
-    """JSON-safe numbers: non-finite floats become None, numpy arrays nested lists."""
-    if isinstance(x, np.ndarray):
-        return clean_array(x) if x.ndim else clean(x.item())
-    if isinstance(x, float):
-        return x if math.isfinite(x) else None
-    if isinstance(x, (np.floating, np.integer)):
-        return clean(x.item())
-    return x
 
 
 def clean_array(a: np.ndarray) -> list:
