@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any, Mapping
 
 import numpy as np
@@ -35,7 +36,7 @@ class Parsed:
     given: frozenset = frozenset()                           # the inputs the request gave (not defaults)
     echoes: list[dict] | None = None                         # each system's echo, built when first asked for
 
-    @property
+    @cached_property
     def count(self) -> int:
         return max((len(m.value) for m in self.quantities.values()), default=1)
 

@@ -62,24 +62,38 @@ def output_entries(calc: Calculation, result: Result, units: Mapping[str, str]) 
     in the unit asked for: converted and cleaned once for all systems of an engine call."""
     names = tuple(result.outputs)
     out_units, factors = output_factors(calc, names, tuple(sorted(units.items())))
-    # the outputs of one shape and one set of members as one block: a few array operations, not a few dozen
+    table: list = [None] * len(names)
+    # the single-valued outputs with one set of members as one flat array: one conversion and one
+    # clean for a dozen outputs, not a few dozen array operations
     alike: dict[tuple, list[int]] = {}
     for i, name in enumerate(names):
         members = result.outputs[name]
-        keys = ("value", *(key for key in members if key != "value"))
-        alike.setdefault((np.shape(members["value"]), keys), []).append(i)
-    table: list = [None] * len(names)
-    for (shape, keys), outputs in alike.items():
-        block = np.array([[result.outputs[names[i]][key] for key in keys] for i in outputs], dtype=float)
-        block *= np.array([factors[i] for i in outputs]).reshape((-1,) + (1,) * (block.ndim - 1))
-        for i, numbers in zip(outputs, clean_array(block)):
-            unit = out_units[i]
-            if keys == ("value", "sigma"):
-                entries = [{"value": v, "sigma": s, "unit": unit} for v, s in zip(*numbers)]
-            else:
-                entries = [{**dict(zip(keys, row)), "unit": unit} for row in zip(*numbers)]
-            table[i] = (names[i], len(shape) > 1, entries)
+        if members["value"].ndim == 1:
+            alike.setdefault(("value", *(key for key in members if key != "value")), []).append(i)
+    for keys, outputs in alike.items():
+        n = len(result.outputs[names[outputs[0]]]["value"])
+        block = np.concatenate([result.outputs[names[i]][key] for i in outputs for key in keys])
+        scale = [factors[i] for i in outputs]
+        if any(k != 1.0 for k in scale):                  # an output unit asked for
+            block = block * np.repeat(scale, len(keys) * n)
+        numbers = clean_array(block)
+        width = len(keys) * n
+        for j, i in enumerate(outputs):
+            columns = [numbers[j * width + q * n:j * width + (q + 1) * n] for q in range(len(keys))]
+            table[i] = (names[i], False, _entries(keys, columns, out_units[i]))
+    for i, name in enumerate(names):
+        if table[i] is None:                  # a series output: each system's entry holds lists
+            members = result.outputs[name]
+            keys = ("value", *(key for key in members if key != "value"))
+            columns = [clean_array(np.multiply(members[key], factors[i], dtype=float)) for key in keys]
+            table[i] = (name, True, _entries(keys, columns, out_units[i]))
     return table
+
+
+def _entries(keys: tuple, columns: list[list], unit: str) -> list[dict]:
+    if keys == ("value", "sigma"):
+        return [{"value": v, "sigma": s, "unit": unit} for v, s in zip(*columns)]
+    return [{**dict(zip(keys, numbers)), "unit": unit} for numbers in zip(*columns)]
 
 
 def warning_entries(warnings: list[Warning], applies: tuple[bool, ...]) -> list[dict]:
