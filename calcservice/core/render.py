@@ -67,26 +67,22 @@ def output_entries(calc: Calculation, result: Result, units: Mapping[str, str]) 
     # clean for a dozen outputs, not a few dozen array operations
     alike: dict[tuple, list[int]] = {}
     for i, name in enumerate(names):
-        members = result.outputs[name]
+        members = result.outputs[name]             # the engine gives "value" first
         if members["value"].ndim == 1:
-            alike.setdefault(("value", *(key for key in members if key != "value")), []).append(i)
+            alike.setdefault(tuple(members), []).append(i)
     for keys, outputs in alike.items():
         n = len(result.outputs[names[outputs[0]]]["value"])
         block = np.concatenate([result.outputs[names[i]][key] for i in outputs for key in keys])
         scale = [factors[i] for i in outputs]
         if any(k != 1.0 for k in scale):                  # an output unit asked for
             block = block * np.repeat(scale, len(keys) * n)
-        numbers = clean_array(block)
-        width = len(keys) * n
-        for j, i in enumerate(outputs):
-            columns = [numbers[j * width + q * n:j * width + (q + 1) * n] for q in range(len(keys))]
+        for i, columns in zip(outputs, clean_array(block.reshape(len(outputs), len(keys), n))):
             table[i] = (names[i], False, _entries(keys, columns, out_units[i]))
     for i, name in enumerate(names):
         if table[i] is None:                  # a series output: each system's entry holds lists
             members = result.outputs[name]
-            keys = ("value", *(key for key in members if key != "value"))
-            columns = [clean_array(np.multiply(members[key], factors[i], dtype=float)) for key in keys]
-            table[i] = (name, True, _entries(keys, columns, out_units[i]))
+            columns = [clean_array(np.multiply(members[key], factors[i], dtype=float)) for key in members]
+            table[i] = (name, True, _entries(tuple(members), columns, out_units[i]))
     return table
 
 

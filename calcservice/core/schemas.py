@@ -123,8 +123,8 @@ def faults(spec: Input, x, sigma_minus, sigma_plus) -> list[tuple[Any, str]]:
              ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
               f"overflows a double when converted to {spec.unit or 'dimensionless'}")]
     if not spec.time:
-        inside = spec.domain.holds(x) if type(x) is float else spec.domain.contains(x)
-        rules.append((np.logical_not(inside), spec.domain.message(spec.unit)))
+        outside = not spec.domain.holds(x) if type(x) is float else ~spec.domain.contains(x)
+        rules.append((outside, spec.domain.message(spec.unit)))
     return rules
 
 
