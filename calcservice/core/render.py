@@ -128,7 +128,12 @@ class Rendering:
         calc = parsed.calc
         self.parsed, self.result = parsed, result
         self.n = parsed.count
-        self.table = output_entries(calc, result, parsed.output_units)
+        table = output_entries(calc, result, parsed.output_units)
+        scalars = [(name, entries) for name, is_series, entries in table if not is_series]
+        self.series_outputs = [(name, entries) for name, is_series, entries in table if is_series]
+        # every system's results at once: one zip per system rather than a loop over the outputs
+        self.scalars = [dict(zip([name for name, _ in scalars], row))
+                        for row in zip(*[entries for _, entries in scalars])] if scalars else [{} for _ in range(self.n)]
         self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
         self.series = {calc.input(name).label or name: {"value": clean_array(parsed.times.get(name, values)),
                                                         "unit": calc.input(name).unit}
@@ -138,12 +143,10 @@ class Rendering:
         self._warnings: dict[tuple, list[dict]] = {}
 
     def results(self, index: int) -> dict:
-        results: dict[str, Any] = {}
-        series: dict[str, Any] = {}
-        for name, is_series, entries in self.table:
-            (series if is_series else results)[name] = entries[index]
-        if series:
-            results["series"] = {**self.series, **series}
+        """System ``index``'s results: each output's entry, series outputs under ``series``, extras."""
+        results = self.scalars[index]
+        if self.series_outputs:
+            results["series"] = {**self.series, **{name: entries[index] for name, entries in self.series_outputs}}
         if self.extras:
             results.update(self.extras[index])
         return results
