@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from .commandline import add_compute
+
 
 def _serve(args) -> int:
     from .server import serve
@@ -24,11 +26,7 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--workers", type=int, default=None, help="worker processes (default: max(2, CPUs))")
     s.add_argument("--timeout", type=int, default=None, help="seconds before a stuck worker is replaced (default 60)")
     s.set_defaults(func=_serve)
-    try:
-        from .commandline import add_compute
-        add_compute(sub)
-    except ImportError:
-        pass
+    add_compute(sub)
     return p
 
 

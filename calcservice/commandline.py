@@ -10,7 +10,7 @@ Values are ``NAME=VALUE[+-SIGMA][UNIT]`` (``±`` and ``+/-`` also work), asymmet
 comma-separated lists for series (``times=2460400.5,2460500.5``) and ``NAME=@FILE`` for
 the caller's own draws (numbers separated by spaces, commas or new lines).
 
-Everything goes through :func:`calcservice.api.service.compute`, the same core as the
+Everything goes through :func:`calcservice.core.compute`, the same core as the
 HTTP API, so ``--json`` prints exactly the response the service gives.
 """
 
@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from . import report
+from .core import Problem, compute, compute_batch
 from .registry import Calculation, calculations
 
 _NUM = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
@@ -379,9 +380,8 @@ def _delimiter(path: str) -> str:
 
 
 def run_batch(name: str, body: dict, limits) -> dict:
-    """A batch request through the service core (:func:`calcservice.api.batch.compute_batch`), the same
+    """A batch request through the core (:func:`calcservice.core.compute_batch`), the same
     code the HTTP path ``POST /v1/batch/<calculation>`` runs."""
-    from .api.batch import compute_batch
     return compute_batch(name, body, limits)
 
 
@@ -495,12 +495,9 @@ def _compute(args) -> int:
         return EXIT_USAGE
     except BrokenPipeError:
         return 0
-    except Exception as e:
-        from .api.problems import Problem
-        if isinstance(e, Problem):
-            print(f"calcservice compute: {_problem_line(e)}", file=sys.stderr)
-            return EXIT_REJECTED
-        raise
+    except Problem as e:
+        print(f"calcservice compute: {_problem_line(e)}", file=sys.stderr)
+        return EXIT_REJECTED
 
 
 def _compute_or_raise(args, limits) -> int:
@@ -545,7 +542,6 @@ def _compute_or_raise(args, limits) -> int:
                   file=sys.stderr)
         return EXIT_REJECTED if failed == rows else 0
 
-    from .api.service import compute
     response = compute(calc.name, body, limits)
     if fmt == "json":
         print(json.dumps(response, indent=2, allow_nan=False))

@@ -179,6 +179,7 @@ BATCH_OPTIONS = {
     "units": {"type": "object", "additionalProperties": {"type": "string"},
               "description": "output name -> astropy unit for the response"},
     "time_format": {"type": "string", "enum": ["jd", "mjd"], "default": "jd"},
+    "echo": {"type": "boolean", "default": False, "description": "rows: each row echoes its inputs"},
 }
 
 
@@ -229,10 +230,16 @@ def _batch_paths(calc: Calculation, key: str, schemas: dict, paths: dict) -> Non
         "value": {"type": "array", "items": {}}, "sigma": {"type": "array", "items": {}},
         "low": {"type": "array", "items": {}}, "high": {"type": "array", "items": {}}, "unit": {"type": "string"}}}
     schemas[f"{key}_batch_response"] = {"oneOf": [
-        {"type": "object", "required": ["calculation", "results"], "properties": {
+        {"type": "object", "required": ["calculation", "count", "uncertainty", "provenance", "results"], "properties": {
             "calculation": {"type": "string", "enum": [calc.name]},
+            "count": {"type": "integer", "minimum": 1},
+            "uncertainty": {"type": "object", "required": ["method"]},
+            "provenance": {"$ref": "#/components/schemas/Provenance"},
             "results": {"type": "array", "description": "one per system, in input order", "items": {"anyOf": [
-                {"$ref": f"#/components/schemas/{key}_response"},
+                {"type": "object", "required": ["results", "warnings"], "additionalProperties": False,
+                 "properties": {"results": {"type": "object"}, "warnings": {"type": "array"},
+                                "uncertainty": {"type": "object"}, "inputs": {"type": "object"},
+                                "time_format": {"type": "string"}}},
                 {"type": "object", "required": ["error"], "additionalProperties": False,
                  "properties": {"error": {"$ref": "#/components/schemas/Problem"}}}]}}}},
         {"type": "object", "required": ["calculation", "count", "columns", "errors", "uncertainty", "warnings",

@@ -132,8 +132,8 @@ def nominal_body(calc: Calculation, response: Mapping[str, Any], request: Mappin
                  times: np.ndarray) -> dict:
     """A request for the nominal values of the response's inputs at ``times`` (exact inputs, linear).
 
-    The inputs echoed by a response are in canonical units (times as JD), so the new
-    request gives no units and no time format.
+    The inputs echoed by a response are in canonical units, times in the response's time format,
+    so the new request gives no units and the response's time format.
     """
     series_name = time_series_input(calc)
     body: dict[str, Any] = {}
@@ -154,6 +154,8 @@ def nominal_body(calc: Calculation, response: Mapping[str, Any], request: Mappin
             body[spec.name] = entry["value"]
     if request and isinstance(request.get("units"), dict):
         body["units"] = dict(request["units"])
+    if response.get("time_format") == "mjd":       # the echoed times (and so the grid) are MJD
+        body["time_format"] = "mjd"
     if isotropic:
         # random orientations need draws; a handful is enough for the median curve
         body["uncertainty"] = {"method": "monte_carlo", "samples": 64, "seed": 1}

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from functools import cached_property
+from functools import cached_property, lru_cache
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
@@ -28,11 +28,32 @@ class Domain:
     high_open: bool = False
 
     def contains(self, x: np.ndarray) -> np.ndarray:
+        """Which of the values (an array over systems or draws) lie in the domain; non-finite never."""
         x = np.asarray(x, dtype=float)
         ok = np.isfinite(x)
         ok &= (x > self.low) if self.low_open else (x >= self.low)
         ok &= (x < self.high) if self.high_open else (x <= self.high)
         return ok
+
+    def holds(self, x: float) -> bool:
+        """:meth:`contains` for one number, without building an array (each field of a request)."""
+        if not math.isfinite(x):
+            return False
+        if (x <= self.low) if self.low_open else (x < self.low):
+            return False
+        return not ((x >= self.high) if self.high_open else (x > self.high))
+
+    def closed_bounds(self) -> tuple[float, float]:
+        """The same interval as closed bounds in floats (x > a is x >= nextafter(a, inf)), for the
+        engine's steps and checks on arrays."""
+        low = float(np.nextafter(self.low, np.inf)) if self.low_open else self.low
+        high = float(np.nextafter(self.high, -np.inf)) if self.high_open else self.high
+        return low, high
+
+    @lru_cache(maxsize=None)
+    def message(self, unit: str = "") -> str:
+        """The 422 message for a value outside the domain, with the unit it is judged in."""
+        return self.describe() + (f" (in {unit})" if unit else "")
 
     def describe(self) -> str:
         parts = []

@@ -14,6 +14,7 @@ from calcservice.registry import calculations
 from .conftest import post
 
 OPTIONS = ("correlations", "uncertainty", "units", "time_format")
+TOP = ("calculation", "count", "uncertainty", "provenance", "results")
 WITH_EXAMPLE = [c for c in calculations().values() if c.example]
 
 
@@ -60,18 +61,65 @@ def _rows(calc, bodies):
 @pytest.mark.parametrize("calc", WITH_EXAMPLE, ids=lambda c: c.name)
 def test_rows_match_single_requests(client, calc):
     bodies = _variants(calc)
-    status, got = post(client, f"/v1/batch/{calc.name}", {"systems": _rows(calc, bodies), **_shared(calc)})
+    status, got = post(client, f"/v1/batch/{calc.name}", {"systems": _rows(calc, bodies), **_shared(calc),
+                                                          "echo": True})
     assert status == 200, got
-    assert len(got["results"]) == len(bodies)
+    assert list(got) == [*TOP[:3], *(["time_format"] if "time_format" in got else []), *TOP[3:]]
+    assert got["count"] == len(bodies) == len(got["results"])
+    assert got["provenance"] == _single(client, calc, calc.example)[0]["provenance"]
     for body, row in zip(bodies, got["results"]):
         want, _ = _single(client, calc, body)
         if "error" in want:
             assert row == want
             continue
-        assert row.keys() == want.keys()
-        for key in ("calculation", "uncertainty", "inputs", "warnings", "provenance"):
-            assert row[key] == want[key], key
+        # a row carries what is its own; with the batch's, it is the single response
+        assert set(row) <= {"results", "warnings", "uncertainty", "inputs"} and "provenance" not in row
+        assert {**got["uncertainty"], **row.get("uncertainty", {})} == want["uncertainty"]
+        assert row["inputs"] == want["inputs"] and row["warnings"] == want["warnings"]
         _assert_results_equal(row["results"], want["results"])
+
+
+def test_rows_are_lean_and_echo_only_when_asked(client):
+    rows = [SB2, {**SB2, "inclination": "isotropic"}]
+    status, got = post(client, "/v1/batch/sb2", {"systems": rows})
+    assert status == 200
+    assert got["uncertainty"] == {"method": "linear"} and got["provenance"]["calculation"] == "sb2"
+    assert set(got["results"][0]) == {"results", "warnings"}                 # linear like the batch
+    own = got["results"][1]["uncertainty"]                                   # isotropic: its own method
+    assert own["method"] == "monte_carlo" and set(own) == {"method", "samples", "seed", "rejected_fraction"}
+    status, mc = post(client, "/v1/batch/sb2", {"systems": [SB2] * 2,
+                                                "uncertainty": {"method": "monte_carlo", "samples": 500}})
+    assert mc["uncertainty"]["method"] == "monte_carlo" and mc["uncertainty"]["samples"] == 500
+    assert isinstance(mc["uncertainty"]["seed"], int)
+    assert all(set(r["uncertainty"]) == {"rejected_fraction"} for r in mc["results"])
+    status, bad = post(client, "/v1/batch/sb2", {"systems": [SB2], "echo": "yes"})
+    assert status == 422 and "echo" in bad["errors"]
+
+
+@pytest.mark.parametrize("options, field", [
+    ({"uncertainty": {"samples": 0}}, "uncertainty.samples"),
+    ({"uncertainty": {"method": "monte_carlo", "samples": -3}}, "uncertainty.samples"),
+    ({"correlations": [{"between": ["k1", "nothing"], "rho": 0.3}]}, "correlations.0.between"),
+    ({"correlations": [{"between": ["k1", "k2"], "rho": 0.3}, {"between": ["k2", "k1"], "rho": 0.2}]},
+     "correlations.1.between"),
+    ({"correlations": [{"between": ["k1", "k2"], "rho": 0.99}, {"between": ["k2", "period"], "rho": 0.99},
+                       {"between": ["k1", "period"], "rho": -0.99}]}, "correlations"),
+    ({"units": {"m1": "km/s"}}, "units.m1"),
+    ({"time_format": "gregorian"}, "time_format"),
+])
+@pytest.mark.parametrize("shape", ["systems", "columns"])
+def test_a_bad_batch_wide_option_refuses_the_whole_batch(client, options, field, shape):
+    # an option of the whole batch is the batch's error (422), never an error in every row
+    body = {"systems": [SB2] * 2} if shape == "systems" else \
+        {"columns": {"period": [41.6, 12.0], "k1": 38.2, "k2": 51.7, "eccentricity": 0.3}}
+    if field == "time_format":
+        status, got = post(client, "/v1/batch/ephemeris", {"columns": {
+            "period": 100.0, "eccentricity": 0.1, "omega": 30.0, "t_periastron": 2460000.0, "k1": 20.0,
+            "times": [2460001.0]}, **options})
+    else:
+        status, got = post(client, "/v1/batch/sb2", {**body, **options})
+    assert status == 422, got
+    assert field in got["errors"], got["errors"]
 
 
 def _assert_results_equal(a, b):
@@ -163,6 +211,7 @@ def test_a_bad_row_is_answered_in_place(client):
     assert r[3]["error"]["errors"] == {"_body": ["must be a JSON object"]}
     assert r[4]["error"]["errors"] == {"bogus": ["unknown field"]}
     assert r[0] == r[5]
+    assert got["count"] == 6 and "provenance" in got and all("provenance" not in row for row in r)
 
 
 def test_a_bad_row_in_columns_is_listed_with_its_index_and_null_everywhere(client):
@@ -218,13 +267,13 @@ def test_null_in_a_column_leaves_the_input_out_for_that_system(client):
 
 
 def test_one_engine_call_per_shape(client, monkeypatch):
-    from calcservice.api import batch
+    from calcservice.core import batch
     calls = []
     real = batch.run
 
-    def counting(calc, parsed):
+    def counting(parsed):
         calls.append(max(len(q.value) for q in parsed.quantities.values()))
-        return real(calc, parsed)
+        return real(parsed)
 
     monkeypatch.setattr(batch, "run", counting)
     no_i = {k: v for k, v in SB2.items() if k != "inclination"}
@@ -240,9 +289,8 @@ def test_monte_carlo_batch_is_seeded_once_and_reproducible(client):
                                                                                          "samples": 2000}}
     status, a = post(client, "/v1/batch/sb2", body)
     assert status == 200
-    seeds = {r["uncertainty"]["seed"] for r in a["results"]}
-    assert len(seeds) == 1
-    _, b = post(client, "/v1/batch/sb2", {**body, "uncertainty": {**body["uncertainty"], "seed": seeds.pop()}})
+    assert all("seed" not in r["uncertainty"] for r in a["results"])      # the batch's one seed, at the top
+    _, b = post(client, "/v1/batch/sb2", {**body, "uncertainty": {**body["uncertainty"], "seed": a["uncertainty"]["seed"]}})
     assert a["results"] == b["results"]
     # small errors: Monte Carlo agrees with linear propagation (common practice: ~1/sqrt(samples) noise)
     _, lin = post(client, "/v1/spectroscopic/sb2", SB2)
@@ -257,17 +305,19 @@ def small_limits_client():
 def test_too_many_rows_is_413(small_limits_client):
     status, got = post(small_limits_client, "/v1/batch/sb2", {"systems": [SB2] * 6})
     assert status == 413 and "systems" in got["errors"]
+    assert got["limit"] == {"name": "max_batch_rows", "value": 5} and "max_batch_rows" in got["detail"]
     status, got = post(small_limits_client, "/v1/batch/sb2",
                        {"columns": {"period": [41.6] * 6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.3}})
     assert status == 413
 
 
 def test_monte_carlo_over_the_draw_budget_is_413_before_computing(small_limits_client, monkeypatch):
-    from calcservice.api import batch
+    from calcservice.core import batch
     monkeypatch.setattr(batch, "run", lambda *a: pytest.fail("computed before checking the budget"))
     body = {"systems": [SB2] * 3, "uncertainty": {"method": "monte_carlo", "samples": 4000}}
     status, got = post(small_limits_client, "/v1/batch/sb2", body)
     assert status == 413 and "uncertainty.samples" in got["errors"]
+    assert got["limit"] == {"name": "max_batch_draws", "value": 10_000} and "max_batch_draws" in got["detail"]
     cols = {"period": {"value": [41.6] * 3, "sigma": 0.1}, "k1": 38.2, "k2": 51.7, "eccentricity": 0.3,
             "inclination": "isotropic"}
     status, got = post(small_limits_client, "/v1/batch/sb2", {"columns": cols})   # isotropic: Monte Carlo
@@ -294,7 +344,7 @@ def test_malformed_batches(client):
 
 
 def test_library_use_without_http():
-    from calcservice.api.batch import compute_batch
+    from calcservice.core import compute_batch
     out = compute_batch("sb1", {"columns": {"period": [10.0, 20.0], "k1": 30.0, "eccentricity": 0.0}})
     # Hilditch (2001) eq. 2.51: f(M) = P K^3 (1 - e^2)^{3/2} / (2 pi G), with astropy constants
     want = (10 * u.d * (30 * u.km / u.s) ** 3 / (2 * math.pi * const.GM_sun)).decompose().value
@@ -311,7 +361,8 @@ def test_a_system_with_its_own_options_is_answered_as_its_own_request(client):
     assert got["results"][0]["results"]["m2"]["unit"] == "kg"
     # the system's own members replace the shared ones whole (its units: m1 in kg, m2 in solMass)
     assert got["results"][1]["results"]["m2"]["unit"] == "solMass"
-    assert got["results"][1] == alone
+    assert {**got["results"][1], "uncertainty": {**got["uncertainty"], **got["results"][1]["uncertainty"]}} == \
+        {k: alone[k] for k in ("results", "warnings", "uncertainty")}
     _assert_results_equal(got["results"][0]["results"], shared["results"])
 
 
@@ -352,64 +403,22 @@ def _reference_floats(items):
     [-0.0, 1e308, -1e-320], [0, 1, True, 0.0],
 ])
 def test_columns_read_numbers_as_python_float_does(items):
-    from calcservice.api.batch import _floats
-    values, bad = _floats(items)
+    from calcservice.core.batch import number_column
+    values, bad = number_column(items)
     want, want_bad = _reference_floats(items)
     assert bad.tolist() == want_bad
     assert np.array_equal(values, np.array(want), equal_nan=True)
     assert [math.copysign(1, v) for v in values.tolist() if v == 0] == [math.copysign(1, v) for v in want if v == 0]
 
 
-def _mixed_rows(calc):
-    """Rows of one calculation in several forms and options: a few systems per engine group, so
-    that groups share nothing by accident (asymmetric sigmas, units, exact values, output units,
-    Monte Carlo, differing warnings)."""
-    bodies = _variants(calc, 6)
-    extra = []
-    for body in bodies[:3]:
-        b = copy.deepcopy(body)
-        for name, v in list(b.items()):
-            if name in OPTIONS or calc.input(name).kind != "quantity" or calc.input(name).time:
-                continue
-            if isinstance(v, dict) and isinstance(v.get("value"), float) and "sigma" in v:
-                b[name] = {"value": v["value"], "sigma_minus": v["sigma"], "sigma_plus": 2 * v["sigma"]}
-                break
-        extra += [b, b]
-    return _rows(calc, bodies + extra)
-
-
-@pytest.mark.parametrize("calc", WITH_EXAMPLE, ids=lambda c: c.name)
-def test_rows_as_fragments_are_the_bytes_of_the_rows_as_dicts(calc):
-    # the HTTP path encodes each engine group's rows from a template (Rendering.fragments): its JSON
-    # must be, byte for byte, what the encoder writes for the library's dict rows
-    import orjson
-
-    from calcservice.api.batch import compute_batch
-    from calcservice.api.edge import dumps
-    outputs = [o.name for o in calc.outputs]
-    options = [{}, {"uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 3}}]
-    if any(o.unit == "au" for o in calc.outputs):
-        options.append({"units": {next(o.name for o in calc.outputs if o.unit == "au"): "km"}})
-    fragments = 0
-    for extra in options:
-        body = {"systems": _mixed_rows(calc), **_shared(calc), **extra}
-        as_dicts = compute_batch(calc.name, copy.deepcopy(body))
-        as_json = compute_batch(calc.name, copy.deepcopy(body), for_json=True)
-        assert dumps(as_json) == dumps(as_dicts)
-        fragments += sum(isinstance(r, orjson.Fragment) for r in as_json["results"])
-        assert all(isinstance(r, dict) for r in as_dicts["results"])
-    # series outputs and extras are left to the dict rows; every other calculation takes the template
-    assert outputs and (fragments > 0) == (not calc.extra and all(i.kind != "series" for i in calc.inputs))
-
-
-def test_fragments_cover_warnings_that_differ_between_systems():
-    # sb2: star 1 the less massive (q > 1) in some systems only; exact and normal inputs mixed
-    from calcservice.api.batch import compute_batch
-    from calcservice.api.edge import dumps
-    systems = [{"period": 10.0 + k, "k1": {"value": 30.0 + 10 * k, "sigma": 0.5}, "k2": {"value": 50.0, "sigma": 0.5},
-                "eccentricity": 0.1} for k in range(6)]
-    body = {"systems": systems}
-    as_json = compute_batch("sb2", copy.deepcopy(body), for_json=True)
-    codes = [[w["code"] for w in r["warnings"]] for r in compute_batch("sb2", copy.deepcopy(body))["results"]]
-    assert ["primary_less_massive"] in codes and [] in codes
-    assert dumps(as_json) == dumps(compute_batch("sb2", copy.deepcopy(body)))
+def test_columnar_warnings_name_their_fields_and_rows(client):
+    # asymmetric errors in k1 for system 0 and in eccentricity for system 1: one warning per field
+    cols = {"period": [41.6, 12.0], "k2": 51.7,
+            "k1": {"value": [38.2, 30.0], "sigma_minus": [0.4, 0.3], "sigma_plus": [0.8, 0.3]},
+            "eccentricity": {"value": [0.31, 0.2], "sigma_minus": [0.01, 0.01], "sigma_plus": [0.01, 0.03]}}
+    status, got = post(client, "/v1/batch/sb2", {"columns": cols})
+    assert status == 200
+    asymmetric = {tuple(w["fields"]): w for w in got["warnings"] if w["code"] == "asymmetric_linearised"}
+    assert asymmetric[("k1",)]["rows"] == [0] and asymmetric[("eccentricity",)]["rows"] == [1]
+    assert all("{" not in w["message"] for w in got["warnings"])
+    assert asymmetric[("k1",)]["message"].startswith("k1:")

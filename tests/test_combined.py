@@ -10,7 +10,7 @@ from astropy import units as u
 from uncertainties import correlated_values_norm, ufloat, umath
 
 from calcservice import registry
-from calcservice.api.service import compute
+from calcservice.core import compute
 from calcservice.engine import Measured, Options, evaluate
 
 ORBITAL_PARALLAX = registry.get("orbital-parallax")

@@ -6,8 +6,8 @@ import uncertainties
 from scipy import stats
 from uncertainties import umath
 
-from calcservice.api.problems import Problem
-from calcservice.api.service import compute
+from calcservice.core import Problem
+from calcservice.core import compute
 from calcservice.engine import Measured, Options, evaluate
 from calcservice.physics.spectroscopic import MASS_FUNCTION_COEFFICIENT, PROJECTED_AXIS_COEFFICIENT_KM
 from calcservice.constants import AU_KM

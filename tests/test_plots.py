@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from calcservice.api.service import compute
+from calcservice.core import compute
 from calcservice.plots import dense_times, nominal_body
 from calcservice.registry import calculations
 

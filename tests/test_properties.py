@@ -16,7 +16,7 @@ from hypothesis import strategies as st
 
 from astropy import units as u
 
-from calcservice.api.service import compute
+from calcservice.core import compute
 from calcservice.registry import calculations
 
 FAST = settings(max_examples=40, deadline=None, derandomize=True, database=None,

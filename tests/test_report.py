@@ -169,7 +169,7 @@ def test_unknown_format_is_refused(client):
 
 
 def test_report_of_a_time_series_lists_events():
-    from calcservice.api.service import compute
+    from calcservice.core import compute
     calc = calculations()["ephemeris"]
     response = compute("ephemeris", calc.example)
     text = report(response, calc, "text")

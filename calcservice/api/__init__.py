@@ -4,12 +4,14 @@ from __future__ import annotations
 
 from flask import Flask
 
+from .. import registry
 from ..config import load_settings
+from ..memory import keep_freed_memory
+from . import batch, calculations, edge, form, meta
 
 
 def create_app(config=None) -> Flask:
     """Build the calcservice application: configure, register blueprints, return the app."""
-    from ..memory import keep_freed_memory
     keep_freed_memory()          # catalogue-sized arrays reuse freed heap instead of faulting pages in
     app = Flask(__name__, static_folder=None)
     settings = load_settings(config)
@@ -23,18 +25,8 @@ def create_app(config=None) -> Flask:
     app.config["DEBUG"] = False
     app.config["PROPAGATE_EXCEPTIONS"] = False
 
-    from . import calculations, edge, meta
+    registry.calculations()      # every declaration registered (and any broken one loud) before serving
     edge.install(app)
-    app.register_blueprint(meta.bp)
-    app.register_blueprint(calculations.bp)
-    try:
-        from . import batch
-        app.register_blueprint(batch.bp)
-    except ImportError:
-        pass
-    try:
-        from . import form
-        app.register_blueprint(form.bp)
-    except ImportError:
-        pass
+    for blueprint in (meta.bp, calculations.bp, batch.bp, form.bp):
+        app.register_blueprint(blueprint)
     return app

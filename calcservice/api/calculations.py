@@ -5,9 +5,9 @@ from __future__ import annotations
 from flask import Blueprint, current_app, request
 
 from ..registry import calculations
+from ..core import Problem, compute
 from .edge import json_body, json_response
-from .problems import Problem
-from .service import compute
+from .render import FORMATS, render
 
 bp = Blueprint("calculations", __name__)
 
@@ -27,11 +27,7 @@ def _endpoint(name: str):
                 raise Problem(400, f"plot must name an output of {name}",
                               {"plot": [f"{name} has no output {plot[:40]!r}; outputs are {', '.join(outputs)}"]})
         if fmt == "json":
-            return json_response(compute(name, body, settings.limits, encoded=True))
-        try:
-            from .render import FORMATS, render
-        except ImportError:
-            FORMATS = ()
+            return json_response(compute(name, body, settings.limits))
         if fmt not in FORMATS:
             raise Problem(400, f"format must be one of: {', '.join(('json',) + tuple(FORMATS))}",
                           {"format": [f"unknown format {fmt[:40]!r}"]})

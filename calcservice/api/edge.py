@@ -16,7 +16,7 @@ from flask import Flask, Response, current_app, g, request
 from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from .. import tables
-from .problems import Problem
+from ..core.problems import Problem
 
 try:    # optional: an order of magnitude faster at formatting floats, and numpy-aware
     import orjson
@@ -229,7 +229,7 @@ def _fast_loads(data: bytes):
 
 def dumps(obj) -> bytes:
     """Compact JSON; numpy arrays and scalars are written as numbers (non-finite floats must be
-    cleaned to None beforehand, as :func:`calcservice.api.service._clean` does)."""
+    cleaned to None beforehand, as :func:`calcservice.core.render.clean_array` does)."""
     if orjson is not None:
         return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY, default=_orjson_default)
     return json.dumps(obj, allow_nan=False, separators=(",", ":"), default=_numpy_default).encode()

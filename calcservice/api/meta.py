@@ -44,7 +44,7 @@ def list_calculations():
 
 @bp.get("/v1/calculations/<name>")
 def one_calculation(name: str):
-    from .service import find
+    from ..core import find
     return json_response(find(name).as_dict())
 
 

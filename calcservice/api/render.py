@@ -10,8 +10,7 @@ from flask import Response
 
 from .. import plots, report
 from ..config import Limits
-from .problems import Problem
-from .service import compute, find
+from ..core import Problem, compute, find
 
 FORMATS = ("latex", "markdown", "svg", "png")
 MIMETYPES = {

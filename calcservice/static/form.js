@@ -784,6 +784,7 @@
       else if (spec.kind === "quantity") b[spec.name] = e.value;
     }
     if (requestBody.units) b.units = requestBody.units;
+    if (response.time_format) b.time_format = response.time_format;   // the echoed times are in it
     return b;
   }
 

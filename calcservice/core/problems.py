@@ -1,4 +1,4 @@
-"""RFC 9457 problem details: the one error type every layer raises and the edge renders."""
+"""RFC 9457 problem details: the one error type every layer raises and the HTTP edge renders."""
 
 from __future__ import annotations
 
@@ -17,21 +17,24 @@ PROBLEM_TYPES = {
 
 
 class Problem(Exception):
-    """An error for the caller: HTTP status, detail and per-field messages."""
+    """An error for the caller: HTTP status, detail, per-field messages and, for a 413, the limit."""
 
     def __init__(self, status: int, detail: str, errors: Mapping[str, list[str]] | None = None,
-                 title: str | None = None):
+                 title: str | None = None, limit: Mapping[str, object] | None = None):
         super().__init__(detail)
         self.status = status
         self.detail = detail
         self.errors = {k: list(v) for k, v in (errors or {}).items()}
         self.title = title or PROBLEM_TYPES.get(status, ("error", "Error"))[1]
+        self.limit = dict(limit) if limit else None
 
     def as_dict(self) -> dict:
         slug = PROBLEM_TYPES.get(self.status, ("error", ""))[0]
         d = {"type": f"/problems/{slug}", "title": self.title, "status": self.status, "detail": self.detail}
         if self.errors:
             d["errors"] = self.errors
+        if self.limit:
+            d["limit"] = self.limit
         return d
 
 
@@ -41,3 +44,10 @@ def invalid(errors: Mapping[str, list[str]], detail: str | None = None) -> Probl
         names = ", ".join(sorted(errors))
         detail = f"invalid value for {names}" if names else "invalid input"
     return Problem(422, detail, errors)
+
+
+def too_large(limit: str, value: int, detail: str, fields: Mapping[str, str]) -> Problem:
+    """A 413 for work over the configured limit ``limit`` (a field of :class:`calcservice.config.Limits`):
+    the detail names the limit and its environment variable, so an operator knows what to change."""
+    return Problem(413, f"{detail} (limit {limit} = {value}, CALCSERVICE_{limit.upper()})",
+                   {name: [message] for name, message in fields.items()}, limit={"name": limit, "value": value})

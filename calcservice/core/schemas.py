@@ -1,8 +1,10 @@
 """Request schemas, generated from each calculation's declaration (marshmallow).
 
-A schema parses and checks the *form* of a request: numbers, objects of the wire
-contract, units, choices, options.  It returns raw quantities; :mod:`.service` turns
-them into canonical-unit :class:`~calcservice.engine.Measured` arrays.
+A schema parses and checks the *form* of one request body: numbers, objects of the wire
+contract, units, choices, options.  It returns raw quantities in canonical units;
+:mod:`.parse` turns them into :class:`~calcservice.engine.Measured` arrays.  The rules a
+quantity's numbers obey (:func:`faults`) are written once over arrays: a request checks its
+one system with them, a batch its N systems at once.
 """
 
 from __future__ import annotations
@@ -18,7 +20,7 @@ from marshmallow import RAISE, Schema, ValidationError, fields, validate, valida
 from ..config import Limits
 from ..registry import Calculation, Input
 from ..units import UnitError, factor
-from .problems import Problem
+from .problems import too_large
 
 MEASURED_KEYS = {"value", "sigma", "sigma_minus", "sigma_plus", "samples", "unit"}
 FORM_HINT = ('must be a number, or an object such as {"value": 1.2, "sigma": 0.1}, '
@@ -62,11 +64,12 @@ def number_array(x: Any, what: str, limit: int) -> np.ndarray:
     return arr
 
 
-def _within(name: str, what: str, items: Any, limit: int, env: str) -> None:
+def within(name: str, what: str, items: Any, limits: Limits, limit: str) -> None:
     """A list over a configured length is work over the limits: 413, before anything is converted."""
-    if isinstance(items, list) and len(items) > limit:
-        raise Problem(413, f"{name}: {what} has {len(items)} entries; the limit is {limit} ({env})",
-                      {name: [f"at most {limit} entries"]})
+    value = getattr(limits, limit)
+    if isinstance(items, list) and len(items) > value:
+        raise too_large(limit, value, f"{name}: {what} has {len(items)} entries",
+                        {name: f"at most {value} entries"})
 
 
 def _calendar_jd(text: str, limits: Limits) -> float:
@@ -85,8 +88,8 @@ MAX_TIME_PARSES = 64      # astropy calls for one list of time strings (each cal
 def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None = None) -> np.ndarray:
     """The JDs of many ISO 8601 strings.
 
-    astropy parses a list a thousand times faster than string by string (0.4 ms each), so
-    100 000 times cost 0.1 s, not 40 s.  A list that fails is halved until the bad entry (or
+    One astropy call parses a whole list, where string by string would take minutes for a long
+    one; a list that fails is halved until the bad entry (or
     the runs of differently formatted strings) are found, in a bounded number of parses."""
     from astropy.time import Time
     positions = positions if positions is not None else list(range(len(texts)))
@@ -111,13 +114,23 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
     return out
 
 
-def _in_domain(domain, x: float) -> bool:
-    """``Domain.contains`` for one number, without the cost of an array (every field of every request)."""
-    if not math.isfinite(x):
-        return False
-    if (x <= domain.low) if domain.low_open else (x < domain.low):
-        return False
-    return not ((x >= domain.high) if domain.high_open else (x > domain.high))
+def faults(spec: Input, x, sigma_minus, sigma_plus) -> list[tuple[Any, str]]:
+    """The rules a measured quantity's numbers obey, in canonical units: for each rule, in the order
+    a caller should hear of them, where it is broken and its message.  The numbers are floats for
+    one system (the rules then give booleans) or arrays over N systems (boolean arrays); a batch
+    calls this under ``np.errstate(invalid="ignore")``.  Times are dates, outside any domain."""
+    rules = [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
+             ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
+              f"overflows a double when converted to {spec.unit or 'dimensionless'}")]
+    if not spec.time:
+        outside = not spec.domain.holds(x) if type(x) is float else ~spec.domain.contains(x)
+        rules.append((outside, spec.domain.message(spec.unit)))
+    return rules
+
+
+def broken(spec: Input, x: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray) -> np.ndarray:
+    """Which of N systems break any rule of :func:`faults`."""
+    return np.logical_or.reduce([where for where, _ in faults(spec, x, sigma_minus, sigma_plus)])
 
 
 @dataclass
@@ -131,6 +144,7 @@ class RawQuantity:
     isotropic: bool = False
     unit: str | None = None
     calendar: bool = False            # a time given as a calendar (ISO) string, already a JD
+    text: str | None = None           # that string, echoed as given
 
 
 class _CheckedField(fields.Field):
@@ -157,14 +171,14 @@ class MeasuredField(_CheckedField):
         one = np.zeros(1)
         if isinstance(value, (int, float)) and not isinstance(value, bool) and not spec.time:
             x = number(value)
-            if not _in_domain(spec.domain, x):
-                raise ValidationError(spec.domain.describe() + (f" (in {spec.unit})" if spec.unit else ""))
+            if not spec.domain.holds(x):
+                raise ValidationError(spec.domain.message(spec.unit))
             return RawQuantity(np.array([x]), one, one)
         if isinstance(value, str):
             if spec.isotropic and value == "isotropic":
                 return RawQuantity(np.array([90.0]), one, one, isotropic=True)
             if spec.time:
-                return RawQuantity(np.array([_calendar_jd(value, self.limits)]), one, one, calendar=True)
+                return RawQuantity(np.array([_calendar_jd(value, self.limits)]), one, one, calendar=True, text=value)
             raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
         if isinstance(value, (int, float)) and not isinstance(value, bool):
             return RawQuantity(np.array([number(value)]), one, one)
@@ -187,8 +201,7 @@ class MeasuredField(_CheckedField):
         if "samples" in value:
             if set(value) - {"samples", "unit"}:
                 raise ValidationError("samples cannot be combined with value or sigma")
-            _within(spec.name, "samples", value["samples"], self.limits.max_sample_array,
-                    "CALCSERVICE_MAX_SAMPLE_ARRAY")
+            within(spec.name, "samples", value["samples"], self.limits, "max_sample_array")
             s = number_array(value["samples"], "samples", self.limits.max_sample_array)
             if len(s) < 2:
                 raise ValidationError("samples must hold at least 2 draws")
@@ -202,10 +215,9 @@ class MeasuredField(_CheckedField):
         if "value" not in value:
             raise ValidationError("value is missing; " + FORM_HINT)
         v = value["value"]
-        calendar = False
-        if isinstance(v, str) and spec.time:
+        text = v if isinstance(v, str) and spec.time else None
+        if text is not None:
             x = _calendar_jd(v, self.limits)
-            calendar = True
         else:
             x = number(v, "value")
         if "sigma" in value and ("sigma_minus" in value or "sigma_plus" in value):
@@ -218,16 +230,12 @@ class MeasuredField(_CheckedField):
             sm, sp = number(value["sigma_minus"], "sigma_minus"), number(value["sigma_plus"], "sigma_plus")
         else:
             sm = sp = 0.0
-        if sm < 0 or sp < 0:
-            raise ValidationError("sigma must be >= 0")
-        if not spec.time:
-            x = x * k
-            if not math.isfinite(x) or not math.isfinite(sp * k):
-                raise ValidationError(f"overflows a double when converted to {spec.unit or 'dimensionless'}")
-            if not _in_domain(spec.domain, x):
-                raise ValidationError(spec.domain.describe() + (f" (in {spec.unit})" if spec.unit else ""))
-        numbers = np.array([x, sm * k, sp * k])          # one array, three views: cheaper than three arrays
-        return RawQuantity(numbers[0:1], numbers[1:2], numbers[2:3], unit=unit, calendar=calendar)
+        x, sm, sp = x if spec.time else x * k, sm * k, sp * k      # the unit of a time applies to its sigma only
+        for broken_here, message in faults(spec, x, sm, sp):
+            if broken_here:
+                raise ValidationError(message)
+        numbers = np.array([x, sm, sp])          # one array, three views: cheaper than three arrays
+        return RawQuantity(numbers[0:1], numbers[1:2], numbers[2:3], unit=unit, calendar=text is not None, text=text)
 
     def _factor(self, unit: str | None) -> float:
         if unit is None:
@@ -258,7 +266,7 @@ class SeriesField(_CheckedField):
             unit = None
         if not isinstance(value, list) or not value:
             raise ValidationError("must be a non-empty list")
-        _within(self.spec.name, "the list", value, self.limits.max_series, "CALCSERVICE_MAX_SERIES")
+        within(self.spec.name, "the list", value, self.limits, "max_series")
         calendar = np.zeros(len(value), dtype=bool)
         if self.spec.time and any(isinstance(v, str) for v in value):
             out = np.empty(len(value))
@@ -309,7 +317,7 @@ class IntegerField(_CheckedField):
                 value = int(value)
             else:
                 raise ValidationError("must be a whole number")
-        if abs(value) > 2**63 or not _in_domain(self.spec.domain, float(value)):     # 10**400: no float
+        if abs(value) > 2**63 or not self.spec.domain.holds(float(value)):     # 10**400: no float
             raise ValidationError(self.spec.domain.describe())
         return int(value)
 

@@ -1,0 +1,270 @@
+"""A request body to the engine's inputs: the wire contract parsed for N systems (N = 1 for a
+single request, the systems of one engine group for a batch), in canonical units."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any, Mapping
+
+import numpy as np
+from marshmallow import ValidationError
+
+from ..config import Limits
+from ..engine import Measured, Options
+from ..registry import Calculation, Input, calculations
+from ..units import UnitError, factor
+from .problems import Problem, invalid, too_large
+from .schemas import RawQuantity, error_messages, request_schema
+
+MJD_OFFSET = 2400000.5
+
+
+@dataclass
+class Parsed:
+    """A request parsed and converted to canonical units, ready for the engine (N systems)."""
+
+    calc: Calculation
+    quantities: dict[str, Measured]
+    statics: dict[str, Any]
+    options: Options
+    output_units: dict[str, str]
+    time_format: str = "jd"
+    series: dict[str, np.ndarray] = field(default_factory=dict)
+    times: dict[str, Any] = field(default_factory=dict)     # time inputs as given (JD or MJD numbers, ISO text)
+    given: frozenset = frozenset()                           # the inputs the request gave (not defaults)
+    echoes: list[dict] | None = None                         # each system's echo, built when first asked for
+
+    @cached_property
+    def count(self) -> int:
+        return max((len(m.value) for m in self.quantities.values()), default=1)
+
+    def echo(self, index: int) -> dict:
+        """The inputs of system ``index`` as the answer echoes them (in canonical units; times in the
+        request's time format, an ISO 8601 string as given)."""
+        if self.echoes is None:
+            self.echoes = echo_systems(self)
+        return self.echoes[index]
+
+
+def find(name: str) -> Calculation:
+    calcs = calculations()
+    if name not in calcs:
+        raise Problem(404, f"there is no calculation {name!r}; GET /v1/calculations lists them")
+    return calcs[name]
+
+
+def echo_systems(parsed: Parsed) -> list[dict]:
+    """The echo of every system's inputs: one column of entries per input, then one dict per system."""
+    calc, n = parsed.calc, parsed.count
+    columns: dict[str, list[dict]] = {}
+    for spec in calc.inputs:
+        name = spec.name
+        if name in parsed.series:
+            values = parsed.series[name]
+            columns[name] = [{"count": int(len(values)), "unit": spec.unit}] * n
+        elif name in parsed.statics and name in parsed.given:
+            columns[name] = [{"value": parsed.statics[name]}] * n
+        elif name in parsed.quantities:
+            m = parsed.quantities[name]
+            if name not in parsed.given:
+                columns[name] = [{"value": spec.default, "sigma": 0.0, "unit": spec.unit, "default": True}] * n
+            else:
+                columns[name] = _echo_column(spec, m, n, parsed.times.get(name))
+    return [{name: column[k] for name, column in columns.items()} for k in range(n)]
+
+
+def _echo_column(spec: Input, m: Measured, n: int, given: Any = None) -> list[dict]:
+    """One input's echo for each of N systems (a time as given: its number or its ISO 8601 text)."""
+    if m.isotropic:
+        return [{"value": "isotropic", "unit": spec.unit}] * n
+    values = [given] * n if isinstance(given, str) else _per_system(m.value if given is None else given, n)
+    if m.samples is not None:
+        draws = int(m.samples.shape[1])
+        return [{"value": v, "sigma": s, "samples": draws, "unit": spec.unit}
+                for v, s in zip(values, _per_system(m.sigma, n))]
+    out = []
+    for v, lo, hi in zip(values, _per_system(m.sigma_minus, n), _per_system(m.sigma_plus, n)):
+        if lo != hi:
+            out.append({"value": v, "sigma_minus": lo, "sigma_plus": hi, "unit": spec.unit})
+        else:
+            out.append({"value": v, "sigma": lo, "unit": spec.unit})     # lo == hi (their mean may overflow)
+    return out
+
+
+def _per_system(a: np.ndarray, n: int) -> list:
+    """An array over N systems (or one value for all) as a list of N numbers."""
+    values = a.tolist()
+    return values * n if len(values) == 1 else values
+
+
+def check_groups(calc: Calculation, given: set[str]) -> dict[str, list[str]]:
+    """Exactly-one-of and at-most-one-of groups of the declaration."""
+    errors: dict[str, list[str]] = {}
+    for group in calc.exclusive:
+        present = [g for g in group if g in given]
+        if len(present) != 1:
+            msg = f"give exactly one of {', '.join(group)}" + (f" (got {len(present)})" if present else "")
+            for g in (present or group):
+                errors.setdefault(g, []).append(msg)
+    for group in calc.at_most_one:
+        present = [g for g in group if g in given]
+        if len(present) > 1:
+            for g in present:
+                errors.setdefault(g, []).append(f"give at most one of {', '.join(group)}")
+    return errors
+
+
+def parse(calc: Calculation, body: Any, limits: Limits) -> Parsed:
+    """Validate a request body against the calculation's schema and convert it."""
+    return build(calc, load(calc, body, limits), limits)
+
+
+def load(calc: Calculation, body: Any, limits: Limits, options_only: bool = False) -> dict:
+    """The request body checked by the calculation's schema (forms, units, choices, options).
+
+    ``options_only``: the body holds options (and perhaps some inputs) shared by a batch, so the
+    required inputs are not asked for."""
+    if not isinstance(body, dict):
+        raise Problem(422, "the request body must be a JSON object", {"_body": ["must be a JSON object"]})
+    try:
+        # partial for the inputs only: marshmallow's partial=True would also waive the required
+        # members of nested options (a correlation without "between" would then crash the service)
+        names = tuple(spec.name for spec in calc.inputs) if options_only else False
+        return request_schema(calc, limits).load(body, partial=names)
+    except ValidationError as err:
+        raise invalid(error_messages(err)) from None
+
+
+def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
+    """Loaded request data to canonical-unit :class:`Measured` inputs, options and output units.
+
+    The quantities may hold N systems at once (a batch group sharing one form): the rules are
+    the same for one system or many."""
+    errors = check_groups(calc, set(data))
+    time_format = data.get("time_format", "jd")
+    quantities: dict[str, Measured] = {}
+    statics: dict[str, Any] = {}
+    series: dict[str, np.ndarray] = {}
+    times: dict[str, Any] = {}
+    for spec in calc.inputs:
+        if spec.name not in data:
+            if spec.default is not None:
+                if spec.kind in ("choice", "integer"):
+                    statics[spec.name] = spec.default
+                else:
+                    quantities[spec.name] = Measured.exact(spec.default)
+            continue
+        raw = data[spec.name]
+        if spec.kind in ("choice", "integer"):
+            statics[spec.name] = raw
+            continue
+        m = measured(spec, raw, time_format)
+        if spec.time:
+            times[spec.name] = raw.text if raw.text is not None else raw.value
+        if spec.kind == "series":
+            statics[spec.name] = m.value
+            series[spec.name] = m.value
+            continue
+        quantities[spec.name] = m
+
+    options = options_of(calc, data, quantities, limits, errors)
+    units = output_units(calc, data.get("units", {}), errors)
+    if errors:
+        raise invalid(errors)
+    given = frozenset(spec.name for spec in calc.inputs if spec.name in data)
+    parsed = Parsed(calc, quantities, statics, options, units, time_format, series, times, given)
+    if series:
+        within_series_budget([parsed], [parsed.count], limits, "ask for fewer points or fewer Monte Carlo draws")
+    return parsed
+
+
+def measured(spec: Input, raw: RawQuantity, time_format: str) -> Measured:
+    """A parsed quantity (already in canonical units) as the engine's Measured.
+
+    Times are dates: an MJD given with ``time_format: mjd`` becomes a JD here; the unit
+    of a time applies to its sigma only.
+    """
+    offset = MJD_OFFSET if spec.time and time_format == "mjd" else 0.0
+    value = raw.value + np.where(raw.calendar, 0.0, offset) if spec.time else raw.value
+    if raw.samples is not None:
+        return Measured(value, raw.sigma_minus, raw.sigma_plus, samples=raw.samples + offset)
+    return Measured(value, raw.sigma_minus, raw.sigma_plus, isotropic=raw.isotropic)
+
+
+def draws_monte_carlo(parsed: Parsed) -> bool:
+    """Whether the engine will draw for these inputs (asked for, or inputs that need it)."""
+    qs = parsed.quantities.values()
+    return parsed.options.method == "monte_carlo" or any(q.samples is not None or q.isotropic for q in qs)
+
+
+def draws_per_system(parsed: Parsed) -> int:
+    """The Monte Carlo draws of each system (the user's samples fix their number)."""
+    lengths = [q.samples.shape[1] for q in parsed.quantities.values() if q.samples is not None]
+    return lengths[0] if lengths else int(parsed.options.samples)
+
+
+def evaluations(parsed: Parsed, n: int) -> int:
+    """The physics evaluations one engine call makes: systems x columns x series points, where the
+    columns are the nominal point and the draws (Monte Carlo) or the 4 m perturbations (linear)."""
+    if draws_monte_carlo(parsed):
+        columns = 1 + draws_per_system(parsed)
+    else:
+        columns = 1 + 4 * sum(1 for q in parsed.quantities.values() if q.uncertain)
+    return n * columns * math.prod(len(v) for v in parsed.series.values())
+
+
+def within_series_budget(groups: list[Parsed], counts: list[int], limits: Limits, advice: str) -> None:
+    """413 before computing when the engine would hold systems x draws x points floats at once."""
+    series = [(p, n) for p, n in zip(groups, counts) if p.series]
+    work = sum(evaluations(p, n) for p, n in series)
+    if work > limits.max_series_evaluations:
+        message = f"{work} evaluations (systems x draws or perturbations x points) is over the limit: {advice}"
+        raise too_large("max_series_evaluations", limits.max_series_evaluations, message,
+                        dict.fromkeys(series[0][0].series, message))
+
+
+def within_draw_limit(samples: int, limits: Limits) -> None:
+    if samples > limits.max_samples:
+        raise too_large("max_samples", limits.max_samples, f"{samples} Monte Carlo draws asked for per system",
+                        {"uncertainty.samples": f"must be <= {limits.max_samples}"})
+
+
+def options_of(calc: Calculation, data: Mapping[str, Any], quantities: Mapping[str, Measured], limits: Limits,
+               errors: dict[str, list[str]]) -> Options:
+    unc = data.get("uncertainty", {})
+    method = unc.get("method", "linear").replace("-", "_")
+    samples = unc.get("samples", limits.default_samples)
+    if not 1 <= samples:
+        errors.setdefault("uncertainty.samples", []).append("must be >= 1")
+    else:
+        within_draw_limit(samples, limits)
+    correlations: dict[tuple[str, str], float] = {}
+    for k, c in enumerate(data.get("correlations", [])):
+        a, b = c["between"]
+        for name in (a, b):
+            if name not in quantities:
+                errors.setdefault(f"correlations.{k}.between", []).append(
+                    f"{name!r} is not an input given in this request")
+        key = tuple(sorted((a, b)))
+        if key in correlations:
+            errors.setdefault(f"correlations.{k}.between", []).append(f"{a} and {b} are correlated twice")
+        correlations[key] = c["rho"]
+    return Options(method=method, samples=samples, seed=unc.get("seed"), correlations=correlations)
+
+
+def output_units(calc: Calculation, units: Mapping[str, str], errors: dict[str, list[str]]) -> dict[str, str]:
+    """The output units a request asks for, each checked against its output's canonical unit."""
+    out: dict[str, str] = {}
+    for name, unit in units.items():
+        if name not in {o.name for o in calc.outputs}:
+            errors.setdefault(f"units.{name}", []).append(f"{calc.name} has no output {name!r}")
+            continue
+        try:
+            factor(unit, calc.output(name).unit)      # this way round the error names the kind the output needs
+        except UnitError as e:
+            errors.setdefault(f"units.{name}", []).append(str(e))
+            continue
+        out[name] = unit
+    return out
