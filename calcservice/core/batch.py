@@ -40,7 +40,7 @@ from .render import Rendering, clean_array, provenance, warning_mask
 from .schemas import MEASURED_KEYS, RawQuantity, broken
 from .single import failure, run
 
-OPTION_KEYS = ("correlations", "uncertainty", "units", "time_format", "echo")
+OPTION_KEYS = ("correlations", "uncertainty", "units", "time_format", "echo", "covariance", "budget")
 SIMPLE_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "unit"})
 _NUMBER_TYPES = frozenset({int, float, type(None)})
 _BAD = object()
@@ -73,6 +73,11 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: 
                 for key, v in entry.items():
                     if isinstance(v, np.ndarray):
                         entry[key] = clean_array(v)
+        if "correlation" in response:
+            response["correlation"]["matrix"] = clean_array(response["correlation"]["matrix"])
+        for terms in response.get("budget", {}).values():
+            for term, shares in terms.items():
+                terms[term] = clean_array(shares)
         if isinstance(response["uncertainty"].get("rejected_fraction"), np.ndarray):
             response["uncertainty"]["rejected_fraction"] = clean_array(response["uncertainty"]["rejected_fraction"])
     return response
@@ -459,6 +464,8 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
 def _row(rendering: Rendering, k: int, uncertainty: dict, time_format: str, echo: bool) -> dict:
     """One system's row of a rows answer: only what is its own."""
     row = {"results": rendering.results(k), "warnings": rendering.warnings(k)}
+    if rendering.result.correlation is not None:
+        row["correlation"] = rendering.correlation(k)
     own = {key: v for key, v in rendering.uncertainty(k).items() if uncertainty.get(key) != v}
     if own:
         row["uncertainty"] = own
@@ -740,7 +747,39 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
                      for (code, message, subject), rows in warned.items()],
         "provenance": provenance(calc),
     }
+    if any(g.result.correlation is not None for g in ok):
+        response["correlation"] = _columns_correlation(calc, ok, n, failed)
+    if any(g.result.budget for g in ok):
+        response["budget"] = _columns_budget(ok, n, failed)
     return response
+
+
+def _columns_correlation(calc: Calculation, ok: list, n: int, failed: np.ndarray) -> dict:
+    """Every system's correlation matrix over the outputs any group correlates (NaN: not given)."""
+    given = {name for g in ok if g.result.correlation is not None for name in g.result.correlation[0]}
+    names = [o.name for o in calc.outputs if o.name in given]
+    index = {name: k for k, name in enumerate(names)}
+    matrix = np.full((n, len(names), len(names)), np.nan)
+    for g in ok:
+        if g.result.correlation is not None:
+            own, matrices = g.result.correlation
+            at = [index[name] for name in own]
+            matrix[np.ix_(g.rows, at, at)] = matrices
+    matrix[failed] = np.nan
+    return {"outputs": names, "matrix": matrix}
+
+
+def _columns_budget(ok: list, n: int, failed: np.ndarray) -> dict:
+    """Each output's variance shares by term over every system (NaN: not given)."""
+    budget: dict[str, dict[str, np.ndarray]] = {}
+    for g in ok:
+        for name, terms in (g.result.budget or {}).items():
+            for term, shares in terms.items():
+                budget.setdefault(name, {}).setdefault(term, np.full(n, np.nan))[g.rows] = shares
+    for terms in budget.values():
+        for shares in terms.values():
+            shares[failed] = np.nan
+    return budget
 
 
 def _columns_warning(code: str, message: str, subject: str | None, rows: list[int]) -> dict:

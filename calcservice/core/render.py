@@ -130,6 +130,12 @@ class Rendering:
         self.n = parsed.count
         table = output_entries(calc, result, parsed.output_units)
         scalars = [(name, entries) for name, is_series, entries in table if not is_series]
+        for name, entries in scalars:
+            if result.budget and name in result.budget:
+                terms = list(result.budget[name])
+                shares = clean_array(np.stack([result.budget[name][t] for t in terms], axis=-1)) if terms else []
+                for entry, row in zip(entries, shares or [[]] * len(entries)):
+                    entry["budget"] = dict(zip(terms, row))
         self.series_outputs = [(name, entries) for name, is_series, entries in table if is_series]
         # every system's results at once: one zip per system rather than a loop over the outputs
         self.scalars = [dict(zip([name for name, _ in scalars], row))
@@ -162,6 +168,11 @@ class Rendering:
     def uncertainty(self, index: int) -> dict:
         return uncertainty_of(self.result, index)
 
+    def correlation(self, index: int) -> dict:
+        """System ``index``'s correlation matrix of its outputs (null where an output has no sigma)."""
+        names, matrices = self.result.correlation
+        return {"outputs": list(names), "matrix": clean_array(matrices[index])}
+
     def response(self, index: int = 0) -> dict:
         """One system's full answer, as a single request gets it."""
         out = {
@@ -172,6 +183,8 @@ class Rendering:
             "warnings": self.warnings(index),
             "provenance": provenance(self.parsed.calc),
         }
+        if self.result.correlation is not None:
+            out["correlation"] = self.correlation(index)
         if self.parsed.time_format == "mjd":
             out["time_format"] = "mjd"
         return out

@@ -295,6 +295,15 @@ class SeriesField(_CheckedField):
         return raw
 
 
+class FlagField(_CheckedField):
+    """A JSON boolean, and nothing that merely reads as one (1, "true")."""
+
+    def _deserialize(self, value, attr, data, **kwargs) -> bool:
+        if type(value) is not bool:
+            raise ValidationError("must be true or false")
+        return value
+
+
 class ChoiceField(_CheckedField):
     def __init__(self, spec: Input, **kw):
         super().__init__(**kw)
@@ -374,6 +383,8 @@ def request_schema(calc: Calculation, limits: Limits) -> Schema:
     members["uncertainty"] = fields.Nested(UncertaintySchema)
     members["units"] = fields.Dict(keys=fields.String(validate=validate.Length(max=64)),
                                    values=fields.String(validate=validate.Length(max=limits.max_string_length)))
+    members["covariance"] = FlagField()
+    members["budget"] = FlagField()
     if any(spec.time for spec in calc.inputs):
         members["time_format"] = fields.String(validate=validate.OneOf(("jd", "mjd")))
     schema_class = RequestSchema.from_dict(members, name=f"{calc.name}_request")
