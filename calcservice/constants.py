@@ -84,6 +84,7 @@ K_B = CONSTANTS["k_B"].value                  # J K^-1
 C_LIGHT = CONSTANTS["c"].value                # m s^-1
 JULIAN_YEAR = CONSTANTS["julian_year"].value  # s
 AU_KM = AU / 1e3                              # km
+C_LIGHT_KM_S = C_LIGHT / 1e3                  # km s^-1
 R_SUN_KM = R_SUN / 1e3                        # km
 TWO_PI = 2.0 * math.pi
 

@@ -9,7 +9,8 @@ import numpy as np
 
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, period
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, eccentricity, period,
+                     with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
@@ -230,8 +231,8 @@ register(Calculation(
         Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=243.6),
         Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
               example=2458712.3),
-        Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", POSITIVE, example=61.2),
-        Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", POSITIVE, required=False, example=142.8),
+        Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", SPEED, example=61.2),
+        Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", SPEED, required=False, example=142.8),
         Input("gamma", "km/s", "systemic velocity", ANY, required=False, default=0.0, example=-7.4),
         Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", ANY, kind="series",
               time=True, label="time", example=[2460400.5, 2460500.5, 2460600.5]),
@@ -279,7 +280,7 @@ register(Calculation(
                    _ephemeris_visual_needs_inclination),
     ),
     at_most_one=(("semimajor_axis", "m1"), ("semimajor_axis", "m2")),
-    check=_ephemeris_check,
+    check=with_speed_check(_ephemeris_check, ("k1", "k2")),
     extra=ephemeris_events,
     example={"period": {"value": 2037.4, "sigma": 1.2}, "eccentricity": {"value": 0.873, "sigma": 0.004},
              "omega": {"value": 243.6, "sigma": 1.5}, "t_periastron": {"value": 2458712.3, "sigma": 0.8},
