@@ -43,6 +43,8 @@ def _from_astropy(symbol: str, const, description: str, source: str) -> Constant
 
 SECONDS_PER_DAY = 86400.0
 DAYS_PER_JULIAN_YEAR = 365.25
+#: MJD = JD - 2400000.5 (the Modified Julian Date, IAU 1973; astropy.time's "mjd" format)
+MJD_ZERO_JD = 2400000.5
 
 _CONSTANTS = [
     _from_astropy("GM_sun", _c.GM_sun, "nominal solar mass parameter",

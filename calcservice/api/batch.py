@@ -352,7 +352,8 @@ def _stack(members: list[Parsed]) -> Parsed:
                                     np.concatenate([m.sigma_minus for m in qs]),
                                     np.concatenate([m.sigma_plus for m in qs]), samples=samples,
                                     isotropic=q.isotropic)
-    stacked = Parsed(quantities, first.statics, first.options, first.output_units, first.echo, first.series)
+    stacked = Parsed(quantities, first.statics, first.options, first.output_units, first.echo, first.series,
+                     time_format=first.time_format)
     stacked.echo_rows = [m.echo for m in members]
     return stacked
 
@@ -669,7 +670,8 @@ def _columns_response(calc: Calculation, done: _Batch) -> dict:
     for g in ok:
         rows = g.rows
         if calc.extra is not None:
-            per_system = calc.extra(g.parsed.quantities, g.parsed.statics, g.parsed.options) or []
+            per_system = calc.extra(g.parsed.quantities, g.parsed.statics, g.parsed.options,
+                                    time_format=g.parsed.time_format) or []
             for k, i in enumerate(rows.tolist()):
                 if i not in done.problems and k < len(per_system):
                     for key, v in per_system[k].items():

@@ -44,6 +44,7 @@ class Parsed:
     series: dict[str, np.ndarray] = field(default_factory=dict)
     echo_rows: list[dict] | None = None       # one echo per system when N > 1 (a batch group)
     calc: Calculation | None = None           # to build echo_rows when first asked for
+    time_format: str = "jd"                   # the caller's format of dates, for the dates a calculation adds
 
     def echo_at(self, index: int) -> dict:
         if self.echo_rows is None and self.calc is not None and index > 0:
@@ -229,7 +230,7 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
     units = _output_units(calc, data.get("units", {}), errors)
     if errors:
         raise invalid(errors)
-    parsed = Parsed(quantities, statics, options, units, echo, series, calc=calc)
+    parsed = Parsed(quantities, statics, options, units, echo, series, calc=calc, time_format=time_format)
     n = max((len(m.value) for m in quantities.values()), default=1)
     work = evaluations(parsed, n) if series else 0
     if work > limits.max_series_evaluations:
@@ -499,7 +500,8 @@ class Rendering:
         self._table: list[tuple] | None = None
         self._plain = False                            # no series output (known with the table)
         self.masks = warning_masks(result)
-        self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
+        self.extras = (calc.extra(parsed.quantities, parsed.statics, parsed.options, time_format=parsed.time_format)
+                       if calc.extra else None)
         self.series = {calc.input(name).label or name: {"value": _clean(values), "unit": calc.input(name).unit}
                        for name, values in parsed.series.items()}
         self.provenance = _provenance_fragment(calc) if self.encoded else provenance(calc)

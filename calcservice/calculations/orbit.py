@@ -7,6 +7,7 @@ from functools import lru_cache
 
 import numpy as np
 
+from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
 from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, eccentricity, period,
@@ -37,7 +38,9 @@ ORBIT_CONVENTIONS = {
     "events": "the first `count` events of each kind at or after `after` (default: the earliest of `times`), in time "
               "order; conjunctions and rv_extrema list `count` of each of their two kinds; an event's sigma is the "
               "linear propagation of the uncertainties of t_periastron, period (with their correlation), "
-              "eccentricity and omega, through the cycles elapsed since t_periastron",
+              "eccentricity and omega, through the cycles elapsed since t_periastron; event dates are in the "
+              "request's time_format (JD by default, MJD = JD - 2400000.5 with time_format mjd), which the events' "
+              "time_format member names, each with its ISO 8601 date",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
            "for leap seconds",
 }
@@ -118,13 +121,14 @@ def _element_covariance(quantities, correlations, n) -> np.ndarray:
     return cov
 
 
-def _event_entries(jd, sigma, cycle, extra_fields=None):
+def _event_entries(jd, sigma, cycle, extra_fields=None, offset=0.0):
+    """One entry per finite date: its value in the caller's format (JD - ``offset``), sigma, ISO date, cycle."""
     iso = iso_dates(jd)
     entries = []
     for k in range(len(jd)):
         if not np.isfinite(jd[k]):
             continue
-        e = {"value": float(jd[k]), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
+        e = {"value": float(jd[k] - offset), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
              "iso": iso[k], "cycle": float(cycle[k])}
         if extra_fields:
             e.update({key: v[k] for key, v in extra_fields.items()})
@@ -132,12 +136,17 @@ def _event_entries(jd, sigma, cycle, extra_fields=None):
     return entries
 
 
-def ephemeris_events(quantities, statics, options) -> list[dict]:
-    """The ``events`` member per system: dates of periastron, apastron, conjunctions and RV extrema with sigmas."""
+def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dict]:
+    """The ``events`` member per system: dates of periastron, apastron, conjunctions and RV extrema with sigmas.
+
+    Dates are in the caller's ``time_format`` ("jd", or "mjd" = JD - 2400000.5), named by the
+    events' ``time_format`` member; each entry also carries its ISO 8601 date.
+    """
     names = ("period", "t_periastron", "eccentricity", "omega")
     n = max(len(np.atleast_1d(quantities[k].value)) for k in names if k in quantities)
     p, t0, e, w = (np.broadcast_to(_value(quantities, k), (n,)) for k in names)
     count = int(statics.get("count") or 3)
+    offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
     cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
     k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
@@ -164,7 +173,7 @@ def ephemeris_events(quantities, statics, options) -> list[dict]:
             rows = []
             for kind, ev, sigma in parts:
                 fields = {"kind": np.full(count, kind, dtype=object)} if len(parts) > 1 else None
-                rows.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields))
+                rows.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields, offset))
             rows.sort(key=lambda r: r["value"])
             events[list_name] = rows
         # the lines of an SB2 are split most at the radial-velocity extrema: both are listed, with |v1 - v2|
@@ -173,10 +182,11 @@ def ephemeris_events(quantities, statics, options) -> list[dict]:
             fields = {"kind": np.full(count, kind, dtype=object)}
             if kind in separations:
                 fields["velocity_separation"] = [float(x) for x in separations[kind][i]]
-            mvs.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields))
+            mvs.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields, offset))
         mvs.sort(key=lambda r: r["value"])
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
+        events["time_format"] = time_format
     return per_system
 
 
