@@ -93,24 +93,24 @@ def _after(quantities, statics, n):
     return np.full(n, float(np.min(times)) if times is not None and len(times) else np.nan)
 
 
-def _element_covariance(quantities, correlations, n) -> np.ndarray:
-    """Covariance (N, 4, 4) of t_periastron, period, eccentricity, omega.
+def _element_covariance(quantities, correlations, n, elements=EVENT_ELEMENTS) -> np.ndarray:
+    """Covariance (N, k, k) of the ``elements`` (by default t_periastron, period, eccentricity, omega).
 
     Sigmas with the request's correlations; inputs given as samples bring their own sample
     covariance with each other (paired draws keep, e.g., the P-T0 correlation of a fit).
     """
-    k = len(EVENT_ELEMENTS)
+    k = len(elements)
     cov = np.zeros((n, k, k))
     sig = [np.broadcast_to(quantities[name].sigma, (n,)) if name in quantities else np.zeros(n)
-           for name in EVENT_ELEMENTS]
+           for name in elements]
     dev = {}
-    for name in EVENT_ELEMENTS:
+    for name in elements:
         q = quantities.get(name)
         if q is not None and q.samples is not None:
             s = np.broadcast_to(q.samples, (n, q.samples.shape[-1]))
             dev[name] = s - s.mean(axis=1, keepdims=True)
-    for i, a in enumerate(EVENT_ELEMENTS):
-        for j, b in enumerate(EVENT_ELEMENTS):
+    for i, a in enumerate(elements):
+        for j, b in enumerate(elements):
             if i == j:
                 cov[:, i, i] = sig[i] ** 2
             elif a in dev and b in dev and dev[a].shape == dev[b].shape:
@@ -390,4 +390,151 @@ register(Calculation(
     example={"period": {"value": 118.3, "sigma": 0.2}, "eccentricity": {"value": 0.62, "sigma": 0.02},
              "m1": {"value": 8.4, "sigma": 0.5}, "m2": {"value": 5.1, "sigma": 0.3},
              "radius1": {"value": 4.3, "sigma": 0.3}, "radius2": {"value": 2.9, "sigma": 0.2}},
+))
+
+
+# --------------------------------------------------------------------------- mid-eclipse
+MID_ECLIPSE_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "inclination")
+#: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
+#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
+_PHASE_STEPS = (1e-6, 1e-4, 1e-4)
+
+
+def _phase_derivatives(star, e, w, i):
+    """d phase / d(e, omega, i) of a mid-eclipse, by central differences (per unit e, per deg)."""
+    out = []
+    for k, h in enumerate(_PHASE_STEPS):
+        up = [e, w, i]
+        down = [e, w, i]
+        up[k] = up[k] + h
+        down[k] = down[k] - h
+        d = phys.mid_eclipse_phase(star, *up)[0] - phys.mid_eclipse_phase(star, *down)[0]
+        out.append((np.mod(d + 0.5, 1.0) - 0.5) / (2.0 * h))
+    return out
+
+
+def mid_eclipse_events(quantities, statics, options, time_format="jd") -> list[dict]:
+    """The ``events`` member per system: dates of mid-eclipse of each star after ``after``, with linear sigmas.
+
+    t_n = T0 + (n + phi) P, phi the mid-eclipse phase; sigma^2 = J C J^T over T0, P, e, omega, i with
+    J = (1, n + phi, P dphi/de, P dphi/domega, P dphi/di).
+    """
+    n = max(len(np.atleast_1d(quantities[k].value)) for k in MID_ECLIPSE_ELEMENTS if k in quantities)
+    t0, p, e, w, i = (np.broadcast_to(_value(quantities, k), (n,)) for k in MID_ECLIPSE_ELEMENTS)
+    count = int(statics.get("count") or 3)
+    offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
+    after = _after(quantities, statics, n)
+    cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, MID_ECLIPSE_ELEMENTS)
+    per_system: list[dict] = [{"events": {}} for _ in range(n)]
+    with np.errstate(all="ignore"):
+        for star in (1, 2):
+            phase = phys.mid_eclipse_phase(star, e, w, i)[0]
+            d_e, d_w, d_i = _phase_derivatives(star, e, w, i)
+            time, cycles = phys.dates_after(phase, p, t0, after, count)
+            jac = np.stack([np.ones_like(time), cycles, *(np.broadcast_to((p * d)[:, None], time.shape)
+                                                          for d in (d_e, d_w, d_i))], axis=-1)
+            sigma = np.sqrt(np.maximum(np.einsum("nci,nij,ncj->nc", jac, cov, jac), 0.0))
+            for k in range(n):
+                per_system[k]["events"][f"eclipse_of_star{star}"] = _event_entries(time[k], sigma[k], cycles[k],
+                                                                                   None, offset)
+        sizes = {name: _value(quantities, name) for name in ("semimajor_axis", "total_mass", "radius1", "radius2")}
+        if sizes["radius1"] is not None and sizes["radius2"] is not None:
+            geometry = phys.mid_eclipse(p, e, w, i, **sizes)
+            for star in (1, 2):
+                overlap = np.broadcast_to(geometry.get(f"eclipse_parameter{star}", np.nan), (n,))
+                for k in range(n):
+                    per_system[k].setdefault("eclipse_possible", {})[f"star{star}"] = (
+                        bool(overlap[k] < 1.0) if np.isfinite(overlap[k]) else None)
+    for k in range(n):
+        per_system[k]["events"]["unit"] = "d"
+        per_system[k]["events"]["time_format"] = time_format
+    return per_system
+
+
+def _mid_eclipse_check(inputs, outputs):
+    out = []
+    for star in ("1", "2"):
+        ratio = outputs.get(f"eclipse_parameter{star}")
+        if ratio is not None and np.any(ratio >= 1.0):
+            out.append(Warning(f"no_eclipse_of_star{star}", f"at their closest on the sky near this conjunction the "
+                               f"discs of the stars do not overlap (minimum_separation{star} >= radius1 + radius2): "
+                               f"star {star} is not eclipsed; the dates are those of closest approach",
+                               ratio >= 1.0))
+    return out
+
+
+def _mid_eclipse_radii_need_size(semimajor_axis=None, total_mass=None, radius1=None, radius2=None, **_):
+    return np.asarray((radius1 is None and radius2 is None)
+                      or (radius1 is not None and radius2 is not None
+                          and (semimajor_axis is not None or total_mass is not None)))
+
+
+register(Calculation(
+    name="mid-eclipse",
+    path="/v1/orbit/mid-eclipse",
+    title="Mid-eclipse times of an eccentric, inclined orbit",
+    summary="The times of minimum projected separation near each conjunction (mid-eclipse, which differs from the "
+            "conjunction when e > 0 and i < 90 deg), with propagated uncertainties, their offsets from the "
+            "conjunctions, the separation on the sky at minimum and, with both radii, whether the discs overlap.",
+    inputs=(
+        period(example=9.73),
+        eccentricity(example=0.28),
+        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=61.0),
+        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
+              example=2460811.42),
+        Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, example=84.6),
+        Input("after", "d", "list mid-eclipses at or after this time (JD, or ISO 8601)", ANY, time=True,
+              example=2461000.5),
+        Input("count", "", "how many mid-eclipses of each star to list", Domain(1, MAX_EVENT_COUNT), default=3,
+              kind="integer", example=3),
+        Input("semimajor_axis", "au", "relative semi-major axis (for the separation in solar radii; or give "
+              "total_mass)", POSITIVE, required=False, example=0.118),
+        Input("total_mass", "solMass", "M1 + M2 (for the semi-major axis by Kepler's third law; or give "
+              "semimajor_axis)", POSITIVE, required=False, example=3.9),
+        Input("radius1", "solRad", "radius of star 1 (with radius2, to tell whether the discs overlap)", POSITIVE,
+              required=False, example=2.1),
+        Input("radius2", "solRad", "radius of star 2 (with radius1)", POSITIVE, required=False, example=1.6),
+    ),
+    outputs=(
+        *(o for star, whom in (("1", "star 1 eclipsed, star 2 in front"), ("2", "star 2 eclipsed, star 1 in front"))
+          for o in (
+              Output(f"mid_eclipse_phase{star}", "", f"phase after periastron of mid-eclipse ({whom})",
+                     "phi = M(nu_min) / 2 pi, nu_min: d rho^2/d nu = 0 next to nu + omega = "
+                     + ("90" if star == "1" else "270") + " deg", period=1.0),
+              Output(f"conjunction_offset{star}", "d", f"mid-eclipse minus conjunction ({whom})",
+                     "(M(nu_min) - M(nu_conj)) P / 2 pi"),
+              Output(f"minimum_separation{star}_over_a", "", f"projected separation at mid-eclipse over a ({whom})",
+                     "rho/a = (1 - e^2)/(1 + e cos nu) sqrt(1 - sin^2 i sin^2(nu + omega))"),
+              Output(f"minimum_separation{star}", "solRad", f"projected separation at mid-eclipse ({whom})",
+                     "rho = a (rho/a)"),
+              Output(f"eclipse_parameter{star}", "", f"minimum projected separation over R1 + R2 ({whom}): the discs "
+                     "overlap, an eclipse happens, where it is below 1", "rho_min / (R1 + R2)"),
+          )),
+        Output("semimajor_axis", "au", "relative semi-major axis (as given, or from Kepler's third law)",
+               "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+    ),
+    function=phys.mid_eclipse,
+    references=(HILDITCH_2001, HEINTZ_1978, MURRAY_DERMOTT_1999, MIKKOLA_1987, ASTROPY_TIME, IAU_2015_B3,
+                IAU_2012_B2),
+    constants=("GM_sun", "au", "R_sun", "day"),
+    conventions={**ORBIT_CONVENTIONS,
+                 "mid_eclipse": "the time of minimum projected separation of the two centres near a conjunction "
+                                "(spherical stars, no light-travel time); eclipse_of_star1 is the conjunction with "
+                                "star 2 in front (nu + omega = 90 deg), eclipse_of_star2 the other; which one is the "
+                                "deeper (primary) eclipse depends on the surface brightnesses",
+                 "events": "the first `count` mid-eclipses of each star at or after `after`, with the linear sigma "
+                           "of t_periastron, period (with their correlation), eccentricity, omega and inclination "
+                           "through the cycles elapsed since t_periastron; dates in the request's time_format (the "
+                           "events' time_format member), each with its ISO 8601 date",
+                 "eclipse_possible": "given with both radii: true where the discs overlap at the minimum separation"},
+    constraints=(Constraint(("radius1", "radius2"), "whether the discs overlap needs both radii and the orbit's size "
+                            "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),),
+    at_most_one=(("semimajor_axis", "total_mass"),),
+    check=_mid_eclipse_check,
+    extra=mid_eclipse_events,
+    example={"period": {"value": 9.73, "sigma": 0.0004}, "eccentricity": {"value": 0.28, "sigma": 0.01},
+             "omega": {"value": 61.0, "sigma": 2.0}, "t_periastron": {"value": 2460811.42, "sigma": 0.05},
+             "inclination": {"value": 84.6, "sigma": 0.4}, "after": 2461000.5, "count": 3,
+             "total_mass": {"value": 3.9, "sigma": 0.2}, "radius1": {"value": 2.1, "sigma": 0.1},
+             "radius2": {"value": 1.6, "sigma": 0.1}},
 ))

@@ -263,3 +263,103 @@ def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_r
     if radius2 is not None:
         out["fill_factor2"] = radius2 / out["roche_lobe2"]
     return out
+
+
+# --------------------------------------------------------------------------- eclipses
+#: the true anomaly (rad) of each conjunction from omega (rad): star 2 in front of star 1 (an
+#: eclipse of star 1) at nu + omega = 90 deg, star 1 in front (an eclipse of star 2) at 270 deg
+CONJUNCTION_ARGUMENT = {1: 0.5 * np.pi, 2: 1.5 * np.pi}
+_MID_ECLIPSE_STEPS = 40
+_MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
+
+
+def projected_separation(true_anomaly_rad, eccentricity, omega_rad, inclination_rad):
+    """Separation of the stars on the sky in units of a: rho/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega)).
+
+    From rho = r sqrt(cos^2 u + sin^2 u cos^2 i) with u = nu + omega (+ 180 deg for the relative orbit, which
+    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2).
+    """
+    s2 = np.sin(inclination_rad) ** 2
+    return kepler.separation(true_anomaly_rad, eccentricity) * np.sqrt(
+        np.maximum(1.0 - s2 * np.sin(true_anomaly_rad + omega_rad) ** 2, 0.0))
+
+
+def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad):
+    """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``.
+
+    Minimising rho^2 = r^2 (1 - sin^2 i sin^2 u), u = nu + omega, sets its derivative to zero:
+    g(nu) = 2 e sin nu (1 - sin^2 i sin^2 u) / (1 + e cos nu) - sin^2 i sin 2u = 0
+    (with r'/r = e sin nu / (1 + e cos nu) from the ellipse; e.g. Hilditch 2001, ch. 2 on eclipse
+    timing in eccentric orbits).  Newton's method on g from the conjunction (nu + omega = 90 deg or
+    270 deg), where it starts within a small angle of the root whenever an eclipse is possible; the
+    root is the conjunction itself when e = 0 or i = 90 deg.
+    """
+    e = np.asarray(eccentricity, dtype=float)
+    s2 = np.sin(inclination_rad) ** 2
+    start = CONJUNCTION_ARGUMENT[star] - omega_rad
+    nu = start + np.zeros_like(e * s2)
+    for _ in range(_MID_ECLIPSE_STEPS):
+        sin_nu, cos_nu = np.sin(nu), np.cos(nu)
+        c = 1.0 + e * cos_nu
+        u = nu + omega_rad
+        shape = 1.0 - s2 * np.sin(u) ** 2
+        h = 2.0 * e * sin_nu / c
+        g = h * shape - s2 * np.sin(2.0 * u)
+        dg = 2.0 * e * (cos_nu + e) / c**2 * shape - h * s2 * np.sin(2.0 * u) - 2.0 * s2 * np.cos(2.0 * u)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            step = np.where(dg > 0.0, g / dg, 0.0)
+        nu = nu - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP)
+    return nu
+
+
+def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg):
+    """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, and that of its conjunction (cycles)."""
+    w = np.radians(omega_deg)
+    nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg))
+    mid = kepler.mean_from_true(nu, eccentricity) / TWO_PI
+    conjunction = kepler.mean_from_true(CONJUNCTION_ARGUMENT[star] - w, eccentricity) / TWO_PI
+    return np.mod(mid, 1.0), mid - conjunction, nu
+
+
+def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,
+                radius1=None, radius2=None, **_):
+    """Phases of mid-eclipse (minimum projected separation), their offsets from conjunction, the separations.
+
+    For each eclipse (star 1 eclipsed: star 2 in front; star 2 eclipsed) the phase of the minimum
+    projected separation (:func:`mid_eclipse_true_anomaly`), its offset from the conjunction in days,
+    the minimum separation in units of a and, with a (given, or from Kepler's third law and the total
+    mass), in solar radii; with both radii, that separation over R1 + R2: the discs overlap (an eclipse
+    happens) where it is below 1.
+    """
+    out = {}
+    a = semimajor_axis
+    if a is None and total_mass is not None:
+        a = kepler_semimajor_axis(period, total_mass)
+    if a is not None:
+        out["semimajor_axis"] = a
+    for star in (1, 2):
+        phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination)
+        rho = projected_separation(nu, eccentricity, np.radians(omega), np.radians(inclination))
+        out[f"mid_eclipse_phase{star}"] = phase
+        out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
+        out[f"minimum_separation{star}_over_a"] = rho
+        if a is not None:
+            out[f"minimum_separation{star}"] = rho * a * AU_IN_SOLAR_RADII
+            if radius1 is not None and radius2 is not None:
+                out[f"eclipse_parameter{star}"] = out[f"minimum_separation{star}"] / (radius1 + radius2)
+    return out
+
+
+def dates_after(phase, period, t_periastron, after, count):
+    """The first ``count`` dates t_n = T0 + (n + phase) P at or after ``after``, and the cycles n + phase.
+
+    Arrays over N systems in, (N, count) arrays out.
+    """
+    p = np.asarray(period, dtype=float)[..., None]
+    t0 = np.asarray(t_periastron, dtype=float)[..., None]
+    phi = np.asarray(phase, dtype=float)[..., None]
+    start = np.asarray(after, dtype=float)[..., None]
+    cycles = np.ceil((start - t0) / p - phi) + phi + np.arange(count)
+    # guard against the rounding of (after - T0)/P landing one cycle early
+    cycles = np.where(t0 + cycles * p < start, cycles + 1.0, cycles)
+    return t0 + cycles * p, cycles
