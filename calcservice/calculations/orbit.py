@@ -28,7 +28,8 @@ EVENT_LISTS = {
     "conjunctions": ("conjunction_star2_in_front", "conjunction_star1_in_front"),
     "rv_extrema": ("rv1_maximum", "rv1_minimum"),
 }
-EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega")
+EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "omega_dot", "period_derivative")
+LIGHT_TRAVEL_CHOICES = ("none", "star1", "star2")
 
 ORBIT_CONVENTIONS = {
     **CONVENTIONS,
@@ -38,9 +39,22 @@ ORBIT_CONVENTIONS = {
     "events": "the first `count` events of each kind at or after `after` (default: the earliest of `times`), in time "
               "order; conjunctions and rv_extrema list `count` of each of their two kinds; an event's sigma is the "
               "linear propagation of the uncertainties of t_periastron, period (with their correlation), "
-              "eccentricity and omega, through the cycles elapsed since t_periastron; event dates are in the "
+              "eccentricity, omega, omega_dot and period_derivative, through the cycles elapsed since "
+              "t_periastron; event dates are in the "
               "request's time_format (JD by default, MJD = JD - 2400000.5 with time_format mjd), which the events' "
               "time_format member names, each with its ISO 8601 date",
+    "apsidal_motion": "omega(t) = omega + omega_dot (t - t_periastron), omega_dot in deg per Julian year; period is "
+                      "the anomalistic period (periastron to periastron), t_periastron the epoch of omega; "
+                      "conjunctions then recur with the sidereal period, about P (1 - omega_dot P / 360 deg)",
+    "period_derivative": "quadratic ephemeris: periastron n at t_periastron + P (n + Pdot n^2 / 2), Pdot = dP/dt "
+                         "(s/yr by default), applied to the series and to every event date",
+    "light_travel_time": "with star1 or star2 each event date is when it is seen in that star's light: t + z/c, "
+                         "z = (a sin i)(1 - e^2) sin(nu + omega_star)/(1 + e cos nu) the star's distance behind "
+                         "the centre of mass (positive receding), so a star beyond the centre of mass is seen late; "
+                         "the series are not corrected, nor are the other light-travel terms of eclipse timing "
+                         "(the motion of the front star while the light crosses the orbit). The amplitudes a sin i / c = K P sqrt(1 - e^2)/(2 pi c) of "
+                         "both stars are always given in events.light_travel_time (days); the correction's own "
+                         "uncertainty is not propagated",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
            "for leap seconds",
 }
@@ -145,11 +159,18 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
     names = ("period", "t_periastron", "eccentricity", "omega")
     n = max(len(np.atleast_1d(quantities[k].value)) for k in names if k in quantities)
     p, t0, e, w = (np.broadcast_to(_value(quantities, k), (n,)) for k in names)
+    w_dot, p_dot = (None if _value(quantities, k) is None else np.broadcast_to(_value(quantities, k), (n,))
+                    for k in ("omega_dot", "period_derivative"))
     count = int(statics.get("count") or 3)
     offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
     cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
     k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
+    with np.errstate(all="ignore"):
+        amplitudes = {star: None if k is None else np.broadcast_to(phys.light_travel_amplitude(k, p, e), (n,))
+                      for star, k in (("star1", k1), ("star2", k2))}
+    chosen = statics.get("light_travel_time") or "none"
+    light = None if chosen == "none" or amplitudes.get(chosen) is None else (amplitudes[chosen], int(chosen[-1]))
 
     per_system: list[dict] = [{"events": {}} for _ in range(n)]
     kinds_all: dict[str, list] = {}
@@ -157,7 +178,7 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         for list_name, kinds in EVENT_LISTS.items():
             parts = []
             for kind in kinds:
-                ev = phys.event_times(kind, p, t0, e, w, after, count)
+                ev = phys.event_times(kind, p, t0, e, w, after, count, w_dot, p_dot, light)
                 sigma = phys.event_sigma(ev, cov, EVENT_ELEMENTS)
                 parts.append((kind, ev, sigma))
             kinds_all[list_name] = parts
@@ -187,6 +208,10 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
         events["time_format"] = time_format
+        events["light_travel_time"] = {
+            "applied": chosen if light is not None else "none",
+            **{f"amplitude_{star}": (float(a[i]) if a is not None and np.isfinite(a[i]) else None)
+               for star, a in amplitudes.items()}}
     return per_system
 
 
@@ -261,16 +286,27 @@ register(Calculation(
               required=False, time=True, example=2460400.5),
         Input("count", "", "how many events of each kind to list", Domain(1, MAX_EVENT_COUNT), default=3,
               kind="integer", example=3),
+        Input("omega_dot", "deg/yr", "apsidal motion: rate of advance of omega (omega is its value at t_periastron; "
+              "period is then the anomalistic period)", ANY, required=False, example=0.8),
+        Input("period_derivative", "s/yr", "rate of change of the period dP/dt (quadratic ephemeris; any "
+              "time-per-time unit)", ANY, required=False, example=0.0),
+        Input("light_travel_time", "", "correct the event dates for the light-travel time across the orbit (the "
+              "a sin i / c term of the Roemer delay) as seen in the light of star1 or star2 (star2 needs k2), or "
+              "none", kind="choice", choices=LIGHT_TRAVEL_CHOICES, required=False, default="none",
+              example="none"),
     ),
     outputs=(
-        Output("phase", "", "orbital phase since periastron", "phi = (t - T0)/P mod 1", period=1.0),
-        Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi (t - T0)/P", period=360.0),
+        Output("phase", "", "orbital phase since periastron", "phi = n(t) mod 1, n(t) = (t - T0)/P without "
+               "a period derivative", period=1.0),
+        Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi n(t), t = T0 + P (n + Pdot n^2 / 2)", period=360.0),
         Output("true_anomaly", "deg", "true anomaly", "tan(nu/2) = sqrt((1 + e)/(1 - e)) tan(E/2), "
                "E - e sin E = M", period=360.0),
         Output("separation", "", "separation of the stars in units of the semi-major axis",
                "r/a = 1 - e cos E = (1 - e^2)/(1 + e cos nu)"),
-        Output("rv1", "km/s", "radial velocity of star 1", "v1 = gamma + K1 [cos(nu + omega) + e cos omega]"),
-        Output("rv2", "km/s", "radial velocity of star 2", "v2 = gamma - K2 [cos(nu + omega) + e cos omega]"),
+        Output("rv1", "km/s", "radial velocity of star 1", "v1 = gamma + K1 [cos(nu + omega) + e cos omega], "
+               "omega = omega0 + omega_dot (t - T0)"),
+        Output("rv2", "km/s", "radial velocity of star 2", "v2 = gamma - K2 [cos(nu + omega) + e cos omega], "
+               "omega = omega0 + omega_dot (t - T0)"),
         Output("separation_au", "au", "separation of the stars",
                "r = a (1 - e cos E), a given or a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
         Output("projected_separation", "mas", "angular separation of the stars on the sky",
@@ -288,6 +324,9 @@ register(Calculation(
                    _ephemeris_consistent_masses),
         Constraint(("inclination",), "angular_semimajor_axis and node need an inclination",
                    _ephemeris_visual_needs_inclination),
+        Constraint(("k2",), "light_travel_time star2 needs k2 (its a sin i comes from k2)",
+                   lambda k2=None, light_travel_time=None, **_: np.asarray(light_travel_time != "star2"
+                                                                           or k2 is not None)),
     ),
     at_most_one=(("semimajor_axis", "m1"), ("semimajor_axis", "m2")),
     check=with_speed_check(_ephemeris_check, ("k1", "k2")),

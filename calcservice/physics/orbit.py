@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..constants import AU, GM_SUN, R_SUN, TWO_PI
+from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, R_SUN, TWO_PI
 from . import kepler
 from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
@@ -28,6 +28,59 @@ AU_IN_SOLAR_RADII = AU / R_SUN
 def orbital_phase(time, period, t_periastron):
     """Orbital phase (t - T0)/P mod 1, zero at periastron passage."""
     return np.mod((np.asarray(time, dtype=float) - t_periastron) / period, 1.0)
+
+
+def period_change_rate(period_derivative):
+    """dP/dt as a pure number (days per day) from dP/dt in s/yr (the unit of the period-change calculation)."""
+    return 0.0 if period_derivative is None else np.asarray(period_derivative, dtype=float) / JULIAN_YEAR
+
+
+def elapsed_cycles(time, period, t_periastron, period_derivative=None):
+    """Anomalistic cycles n elapsed since T0 in the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2).
+
+    The period of cycle n is P (1 + Pdot n) to first order, so periastron n falls at
+    T_n = T0 + n P + n^2 P Pdot / 2 (the quadratic ephemeris of eclipse timing; e.g. Hilditch 2001,
+    ch. 4 on O - C diagrams), Pdot dimensionless (days per day; from s/yr).  Inverted as
+    n = 2 x / (1 + sqrt(1 + 2 Pdot x)), x = (t - T0)/P, which is x itself when Pdot = 0.
+    """
+    x = (np.asarray(time, dtype=float) - t_periastron) / period
+    rate = period_change_rate(period_derivative)
+    return 2.0 * x / (1.0 + np.sqrt(1.0 + 2.0 * rate * x))
+
+
+def cycle_time(cycles, period, t_periastron, period_derivative=None):
+    """The date of ``cycles`` anomalistic cycles after T0: T0 + P (n + Pdot n^2 / 2) (quadratic ephemeris)."""
+    rate = period_change_rate(period_derivative)
+    return t_periastron + period * (cycles + 0.5 * rate * cycles * cycles)
+
+
+def omega_at(time, omega, t_periastron, omega_dot=None):
+    """Argument of periastron (deg) at ``time`` with apsidal motion: omega + omega_dot (t - T0), omega_dot in deg/yr.
+
+    omega is its value at T0; the year is the Julian year (365.25 d).  Without omega_dot, omega itself.
+    """
+    if omega_dot is None:
+        return omega
+    return omega + omega_dot * (np.asarray(time, dtype=float) - t_periastron) / DAYS_PER_JULIAN_YEAR
+
+
+def light_travel_amplitude(k, period, eccentricity):
+    """a sin i / c in days of a star's orbit about the centre of mass: K P sqrt(1 - e^2) / (2 pi c).
+
+    From a sin i = K P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, eq. 2.50), K in km/s, P in days.
+    """
+    return k * period * np.sqrt(1.0 - eccentricity * eccentricity) / (TWO_PI * C_LIGHT_KM_S)
+
+
+def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
+    """Roemer delay (days) of a star's light: z / c = (a sin i / c) (1 - e^2) sin(nu + omega) / (1 + e cos nu).
+
+    z = r sin(nu + omega) sin i is the star's distance behind the centre of mass along the line of sight
+    (positive receding, the sign of the radial velocity, whose time derivative it is; Hilditch 2001,
+    ch. 2), so an event seen in that star's light is observed z / c after the centre of mass would show it.
+    """
+    return amplitude * (1.0 - eccentricity * eccentricity) * np.sin(true_anomaly_rad + omega_rad) / (
+        1.0 + eccentricity * np.cos(true_anomaly_rad))
 
 
 def radial_velocities(true_anomaly_rad, eccentricity, omega_rad, k1, k2=None, gamma=0.0):
@@ -62,23 +115,25 @@ def sky_position(true_anomaly_rad, separation_over_a, omega_rad, inclination_rad
 
 def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gamma=None,
               angular_semimajor_axis=None, inclination=None, node=None, m1=None, m2=None,
-              semimajor_axis=None, **_):
+              semimajor_axis=None, omega_dot=None, period_derivative=None, **_):
     """Series of orbital quantities at ``times`` (JD): phase, anomalies, separation, radial velocities.
 
-    M = 2 pi (t - T0)/P; E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial
-    velocities as in :func:`radial_velocities`; with a (given, or from Kepler's third law and
-    m1 + m2) the separation in au; with the visual elements the projected separation and
-    position angle (:func:`sky_position`).
+    M = 2 pi n(t), n the cycles since T0 (:func:`elapsed_cycles`: (t - T0)/P without a period
+    derivative); E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial velocities as in
+    :func:`radial_velocities` with omega(t) (:func:`omega_at`, apsidal motion); with a (given, or
+    from Kepler's third law and m1 + m2) the separation in au; with the visual elements the
+    projected separation and position angle (:func:`sky_position`).
     """
     e = eccentricity
-    omega_rad = np.radians(omega)
-    mean = kepler.mean_anomaly(times, period, t_periastron)
+    omega_rad = np.radians(omega_at(times, omega, t_periastron, omega_dot))
+    cycles = elapsed_cycles(times, period, t_periastron, period_derivative)
+    mean = TWO_PI * cycles
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
     r_over_a = kepler.separation_from_eccentric(ecc, e)
     v1, v2 = radial_velocities(nu, e, omega_rad, k1, k2, 0.0 if gamma is None else gamma)
     out = {
-        "phase": orbital_phase(times, period, t_periastron),
+        "phase": np.mod(cycles, 1.0),
         "mean_anomaly": np.mod(np.degrees(mean), 360.0),
         "true_anomaly": np.mod(np.degrees(nu), 360.0),
         "separation": r_over_a,
@@ -144,34 +199,78 @@ def event_phase(kind, eccentricity, omega_deg):
     return phase, d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI
 
 
-def event_times(kind, period, t_periastron, eccentricity, omega, after, count):
+_APSIDAL_ITERATIONS = 4   # omega moves by omega_dot P / 360 deg per cycle: each pass gains that factor in accuracy
+
+
+def event_times(kind, period, t_periastron, eccentricity, omega, after, count, omega_dot=None,
+                period_derivative=None, light_travel=None):
     """The first ``count`` dates (JD) of an event at or after ``after``, and the partial derivatives.
 
-    t_n = T0 + (n + phi) P with phi the event's phase and n the whole number of cycles since T0,
-    the smallest n with t_n >= after.  Inputs are arrays over N systems; returns a dict of
-    (N, count) arrays: ``time``, ``cycle`` (n + phi, the cycles elapsed since T0) and the
-    derivatives ``d_t_periastron`` (= 1), ``d_period`` (= n + phi), ``d_eccentricity`` and
-    ``d_omega`` (days per deg).
+    t = T0 + P (c + Pdot c^2 / 2) with c = n + phi the cycles since T0 (:func:`cycle_time`), phi the
+    event's phase at omega(t) (:func:`omega_at`; found by fixed-point iteration with apsidal motion,
+    since the date moves omega) and n the whole number of cycles, the smallest with t >= after.
+    ``light_travel`` = (amplitude in days, star 1 or 2): the dates are those seen in that star's light,
+    t + z / c (:func:`light_travel_delay`), returned as ``light_time`` too.  Inputs are arrays over N
+    systems; returns a dict of (N, count) arrays: ``time``, ``cycle`` and the derivatives of the date
+    ``d_t_periastron``, ``d_period``, ``d_eccentricity``, ``d_omega`` (per deg), ``d_omega_dot`` (per
+    deg/yr) and ``d_period_derivative`` (per s/yr), by implicit differentiation of
+    t = F(elements, omega(t)); the light-time correction's own uncertainty is not propagated.
     """
     p = np.asarray(period, dtype=float)[..., None]
     t0 = np.asarray(t_periastron, dtype=float)[..., None]
-    phi, dphi_de, dphi_dw = (np.asarray(x)[..., None] for x in event_phase(kind, eccentricity, omega))
-    first = np.ceil((np.asarray(after, dtype=float)[..., None] - t0) / p - phi)
-    n = first + np.arange(count)
-    cycles = n + phi
-    time = t0 + cycles * p
-    # guard against the rounding of (after - T0)/P landing one cycle early
-    early = time < np.asarray(after, dtype=float)[..., None]
-    cycles = np.where(early, cycles + 1.0, cycles)
-    time = t0 + cycles * p
-    return {
+    e = np.asarray(eccentricity, dtype=float)[..., None]
+    w0 = np.asarray(omega, dtype=float)[..., None]
+    start = np.asarray(after, dtype=float)[..., None]
+    wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
+    pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
+    rate = period_change_rate(pdot)
+
+    def raw_phase(w):
+        return kepler.mean_from_true(EVENT_TRUE_ANOMALY[kind](np.radians(w)), e) / TWO_PI
+
+    base = np.floor(raw_phase(w0))
+    phi = raw_phase(w0) - base
+    n = np.ceil(elapsed_cycles(start, p, t0, pdot) - phi) + np.arange(count)
+    for _ in range(2):    # the second pass: n one cycle on where rounding left the first date before `after`
+        cycles = n + phi
+        time = cycle_time(cycles, p, t0, pdot)
+        w_t = w0 + np.zeros_like(time)
+        if wdot is not None:
+            for _ in range(_APSIDAL_ITERATIONS):
+                w_t = omega_at(time, w0, t0, wdot)
+                cycles = n + raw_phase(w_t) - base
+                time = cycle_time(cycles, p, t0, pdot)
+        early = time < start
+        if not np.any(early):
+            break
+        n = np.where(early[..., :1], n + 1.0, n)
+    nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
+    if kind in ("periastron", "apastron"):
+        dphi_de = dphi_dw = np.zeros_like(time)
+    else:
+        d_nu, d_e = mean_anomaly_derivatives(nu, e)
+        dphi_de, dphi_dw = d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI   # d nu / d omega = -1
+    slope = p * (1.0 + rate * cycles)                       # dt/dc
+    years = (time - t0) / DAYS_PER_JULIAN_YEAR
+    w_rate = 0.0 if wdot is None else wdot / DAYS_PER_JULIAN_YEAR
+    feedback = 1.0 / (1.0 - slope * dphi_dw * w_rate)        # t appears on both sides through omega(t)
+    out = {
         "time": time,
         "cycle": cycles,
-        "d_t_periastron": np.ones_like(time),
-        "d_period": cycles,
-        "d_eccentricity": np.broadcast_to(p * dphi_de, time.shape),
-        "d_omega": np.broadcast_to(p * dphi_dw, time.shape),
+        "d_t_periastron": np.ones_like(time),                # omega is omega(T0): the whole ephemeris moves with T0
+        "d_period": feedback * (cycles + 0.5 * rate * cycles * cycles),
+        "d_eccentricity": feedback * slope * dphi_de,
+        "d_omega": feedback * slope * dphi_dw,
+        "d_omega_dot": feedback * slope * dphi_dw * years,
+        "d_period_derivative": feedback * 0.5 * p * cycles * cycles / JULIAN_YEAR,
     }
+    if light_travel is not None:
+        amplitude, star = light_travel
+        w_star = np.radians(w_t) + (np.pi if star == 2 else 0.0)
+        delay = light_travel_delay(np.asarray(amplitude, dtype=float)[..., None], nu, e, w_star)
+        out["time"] = time + delay
+        out["light_time"] = np.broadcast_to(delay, time.shape)
+    return out
 
 
 def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccentricity", "omega")):
