@@ -610,6 +610,68 @@ register(Calculation(
                            "changes the result)",
                  "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)"},
     exclusive=(("expansion_speed", "distance", "parallax"),),
+    check=with_speed_check(None, ("expansion_speed",)),
     example={"period": {"value": 2950.0, "sigma": 15.0}, "shell_spacing": {"value": 410.0, "sigma": 12.0},
              "expansion_speed": {"value": 1100.0, "sigma": 60.0}},
+))
+
+
+# ----------------------------------------------------------------------- shell forecast
+
+def _whole_shells(shells=None, **_):
+    return _rows(shells is None or bool(np.all(np.asarray(shells) == np.round(shells))))
+
+
+def _shells_formed(shells=None, period=None, formation_epoch=None, observation_date=None, **_):
+    if shells is None or period is None or formation_epoch is None or observation_date is None:
+        return _rows(True)
+    last = np.max(shells)
+    return np.asarray(observation_date) >= np.asarray(formation_epoch) + last * np.asarray(period)
+
+
+register(Calculation(
+    name="shell-forecast",
+    path="/v1/winds/shell-forecast",
+    title="Where periodic dust shells will be: angular radii at a date",
+    summary="The angular radius of each dust shell made once per orbit at an observation date, from the formation "
+            "period, the date of one formation event, the expansion speed and the distance or parallax (the "
+            "inverse of the expansion parallax of shell-distance).",
+    inputs=(
+        Input("period", "d", "formation period: one shell per orbit", POSITIVE, example=3120.0),
+        Input("formation_epoch", "d", "date of one shell-formation event, shell 0 (JD, or ISO 8601)", ANY, time=True,
+              example=2457310.0),
+        Input("expansion_speed", "km/s", "expansion speed of the shells", SPEED, example=980.0),
+        Input("distance", "pc", "distance (give this or parallax)", POSITIVE, required=False, example=1850.0),
+        Input("parallax", "mas", "parallax (give this or distance)", POSITIVE, required=False, example=0.54),
+        Input("observation_date", "d", "date of the planned observation (JD, or ISO 8601)", ANY, time=True,
+              example=2461400.5),
+        Input("shells", "", "shell numbers n: shell n forms at formation_epoch + n period (0 the given event, -1 the "
+              "one before, 1 the next); each must have formed by observation_date", ANY, kind="series",
+              label="shell", example=[-3, -2, -1, 0, 1]),
+    ),
+    outputs=(
+        Output("angular_radius", "mas", "angular radius of the shell at observation_date",
+               "theta = v (t_obs - t_n) / D; theta (arcsec) = v (km/s) age (yr) / (4.74047 D (pc))"),
+        Output("radius", "au", "linear radius of the shell at observation_date", "R = v (t_obs - t_n)"),
+        Output("age", "yr", "time since the shell formed", "t_obs - (formation_epoch + n P)"),
+    ),
+    function=phys.shell_forecast,
+    references=(IAU_2012_B2,),
+    constants=("au", "julian_year", "au_per_julian_year", "pc"),
+    conventions={"shells": "one shell per orbit, formed at formation_epoch + n period and expanding at constant "
+                           "speed from the star; the edge of a spherical shell moves across the sky at the full "
+                           "expansion speed (for a cone or spiral the projection changes the result)",
+                 "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)",
+                 "time": "Julian Dates (days) unless another format is given; ages in Julian years"},
+    exclusive=(("distance", "parallax"),),
+    constraints=(
+        Constraint(("shells",), "shell numbers are whole numbers", _whole_shells),
+        Constraint(("shells",), "every listed shell must have formed by observation_date (shell n forms at "
+                   "formation_epoch + n period)", _shells_formed),
+    ),
+    check=with_speed_check(None, ("expansion_speed",)),
+    example={"period": {"value": 3120.0, "sigma": 20.0}, "formation_epoch": {"value": 2457310.0, "sigma": 15.0},
+             "expansion_speed": {"value": 980.0, "sigma": 50.0}, "distance": {"value": 1850.0, "sigma": 120.0},
+             "observation_date": 2461400.5, "shells": [-3, -2, -1, 0, 1],
+             "correlations": [{"between": ["period", "formation_epoch"], "rho": -0.3}]},
 ))

@@ -17,8 +17,8 @@ import math
 
 import numpy as np
 
-from ..constants import (AU, C_LIGHT, GM_SUN, JULIAN_YEAR, K_B, KM_S_PER_AU_PER_YEAR, L_SUN, M_H, M_SUN, R_SUN,
-                         SECONDS_PER_DAY, TWO_PI)
+from ..constants import (AU, C_LIGHT, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, K_B, KM_S_PER_AU_PER_YEAR, L_SUN, M_H,
+                         M_SUN, R_SUN, SECONDS_PER_DAY, TWO_PI)
 from . import kepler
 from .spectroscopic import kepler_semimajor_axis
 
@@ -519,3 +519,18 @@ def shell_distance(period, shell_spacing, expansion_speed=None, distance=None, p
         return {}
     speed = KM_S_PER_AU_PER_YEAR * spacing_arcsec * distance / years
     return {"distance": distance, "parallax": 1.0e3 / distance, "expansion_speed": speed}
+
+
+def shell_forecast(period, formation_epoch, expansion_speed, observation_date, shells, distance=None, parallax=None,
+                   **_):
+    """Angular radius at ``observation_date`` of each shell made once per orbit: the inverse of :func:`shell_distance`.
+
+    Shell n forms at t_n = formation_epoch + n P and expands at v, so at t its radius is
+    R = v (t - t_n) and its angular radius theta = R / D, i.e.
+    theta (arcsec) = v (km/s) (t - t_n) (yr) / (4.74047 D (pc)) with 1 au/yr = 4.74047 km/s (IAU 2012 au,
+    Julian year).  Times in JD (days), ``shells`` the whole numbers n (an extra trailing axis).
+    """
+    d = distance if distance is not None else 1.0e3 / parallax
+    years = (observation_date - (formation_epoch + shells * period)) / DAYS_PER_JULIAN_YEAR
+    radius = expansion_speed * years / KM_S_PER_AU_PER_YEAR
+    return {"angular_radius": 1.0e3 * radius / d, "radius": radius, "age": years}
