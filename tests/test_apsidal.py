@@ -146,3 +146,11 @@ def test_http_rates_in_other_units(client):
                                     period_derivative={"value": 40.0 / S_PER_YEAR, "unit": ""}))
     assert b["results"]["series"]["rv1"]["value"] == pytest.approx(a["results"]["series"]["rv1"]["value"],
                                                                    abs=1e-9)
+
+
+def test_period_derivative_that_ends_the_orbit_is_refused(client):
+    # P (1 + Pdot n) reaches zero before the times asked for: no date exists there, and the field is named
+    status, doc = post(client, PATH, _body(period_derivative=-1e6, times=[T0 + 1e5]))
+    assert status == 422 and "period_derivative" in doc["errors"]
+    status, doc = post(client, PATH, _body(period_derivative=-10.0))
+    assert status == 200

@@ -245,6 +245,22 @@ def _ephemeris_check(inputs, outputs):
     return out
 
 
+def _quadratic_ephemeris_defined(period=None, t_periastron=None, period_derivative=None, times=None, after=None,
+                                 count=None, **_):
+    """Where the period would shrink to zero before a time asked for, the quadratic ephemeris has no date."""
+    if period_derivative is None or period is None or t_periastron is None:
+        return np.asarray(True)
+    rate = phys.period_change_rate(period_derivative)
+    p, t0 = np.asarray(period, dtype=float), np.asarray(t_periastron, dtype=float)
+    ends = [np.min(times), np.max(times)] if times is not None and len(times) else []
+    if after is not None:
+        ends += [np.asarray(after, dtype=float), np.asarray(after, dtype=float) + (int(count or 3) + 1) * p]
+    ok = np.ones(np.shape(p), dtype=bool)
+    for t in ends:
+        ok &= 1.0 + 2.0 * rate * (t - t0) / p > 0.0
+    return ok
+
+
 def _ephemeris_consistent_masses(m1=None, m2=None, **_):
     return np.asarray((m1 is None) == (m2 is None))
 
@@ -324,6 +340,9 @@ register(Calculation(
                    _ephemeris_consistent_masses),
         Constraint(("inclination",), "angular_semimajor_axis and node need an inclination",
                    _ephemeris_visual_needs_inclination),
+        Constraint(("period_derivative",), "with this period derivative the period reaches zero before some of the "
+                   "times (or event dates) asked for: the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2) has no "
+                   "date there", _quadratic_ephemeris_defined),
         Constraint(("k2",), "light_travel_time star2 needs k2 (its a sin i comes from k2)",
                    lambda k2=None, light_travel_time=None, **_: np.asarray(light_travel_time != "star2"
                                                                            or k2 is not None)),
