@@ -144,3 +144,36 @@ def test_mid_eclipse_dates_in_mjd_and_iso(client):
     for a, b in zip(jd["results"]["events"]["eclipse_of_star1"], mjd["results"]["events"]["eclipse_of_star1"]):
         assert b["value"] == pytest.approx(Time(a["value"], format="jd").mjd, abs=1e-6)
         assert b["iso"] == a["iso"]
+
+
+def test_mid_eclipse_with_apsidal_motion_and_period_derivative():
+    # omega(t) = omega + omega_dot (t - T0) and T_n = T0 + P (n + Pdot n^2 / 2): the minimum of the sky
+    # separation from a direct Kepler solve at omega(t), found by scipy about the conjunction, years later
+    e, w, i, wdot, pdot_s_yr = 0.35, 140.0, 83.0, 12.0, 300.0
+    pdot = pdot_s_yr / (365.25 * 86400.0)
+    after = T0 + 3000.0
+    r = compute("mid-eclipse", {"period": P, "eccentricity": e, "omega": w, "t_periastron": T0, "inclination": i,
+                                "after": after, "count": 2, "omega_dot": wdot,
+                                "period_derivative": pdot_s_yr})["results"]["events"]
+
+    def cycles_at(t):
+        return brentq(lambda n: T0 + P * (n + 0.5 * pdot * n * n) - t, -1e4, 1e4, xtol=1e-14)
+
+    def separation(t):
+        w_t = w + wdot * (t - T0) / 365.25
+        # the separation at omega(t), with the mean anomaly of the quadratic ephemeris
+        return _sky_separation(T0 + cycles_at(t) * P, P, e, w_t, i, T0)
+
+    for star in (1, 2):
+        for entry in r[f"eclipse_of_star{star}"]:
+            t = entry["value"]
+            # offsets from t: scipy's bounded search has a tolerance relative to |x|, too coarse for a JD
+            grid = np.linspace(-0.3, 0.3, 601)
+            best = grid[np.argmin([separation(t + x) for x in grid])]
+            res = minimize_scalar(lambda x: separation(t + x), bounds=(best - 0.001, best + 0.001), method="bounded",
+                                  options={"xatol": 1e-10})
+            assert res.x == pytest.approx(0.0, abs=2e-6), star
+    # without the rates the dates differ by far more than that
+    plain = compute("mid-eclipse", {"period": P, "eccentricity": e, "omega": w, "t_periastron": T0,
+                                    "inclination": i, "after": after, "count": 2})["results"]["events"]
+    assert abs(plain["eclipse_of_star1"][0]["value"] - r["eclipse_of_star1"][0]["value"]) > 0.01

@@ -452,33 +452,20 @@ register(Calculation(
 
 
 # --------------------------------------------------------------------------- mid-eclipse
-MID_ECLIPSE_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "inclination")
-#: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
-#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
-_PHASE_STEPS = (1e-6, 1e-4, 1e-4)
-
-
-def _phase_derivatives(star, e, w, i):
-    """d phase / d(e, omega, i) of a mid-eclipse, by central differences (per unit e, per deg)."""
-    out = []
-    for k, h in enumerate(_PHASE_STEPS):
-        up = [e, w, i]
-        down = [e, w, i]
-        up[k] = up[k] + h
-        down[k] = down[k] - h
-        d = phys.mid_eclipse_phase(star, *up)[0] - phys.mid_eclipse_phase(star, *down)[0]
-        out.append((np.mod(d + 0.5, 1.0) - 0.5) / (2.0 * h))
-    return out
+MID_ECLIPSE_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "inclination", "omega_dot",
+                        "period_derivative")
 
 
 def mid_eclipse_events(quantities, statics, options, time_format="jd") -> list[dict]:
     """The ``events`` member per system: dates of mid-eclipse of each star after ``after``, with linear sigmas.
 
-    t_n = T0 + (n + phi) P, phi the mid-eclipse phase; sigma^2 = J C J^T over T0, P, e, omega, i with
-    J = (1, n + phi, P dphi/de, P dphi/domega, P dphi/di).
+    t = T0 + P (c + Pdot c^2 / 2), c = n + phi with phi the mid-eclipse phase at omega(t); sigma^2 = J C J^T
+    over the elements (:func:`calcservice.physics.orbit.mid_eclipse_dates`).
     """
     n = max(len(np.atleast_1d(quantities[k].value)) for k in MID_ECLIPSE_ELEMENTS if k in quantities)
-    t0, p, e, w, i = (np.broadcast_to(_value(quantities, k), (n,)) for k in MID_ECLIPSE_ELEMENTS)
+    t0, p, e, w, i = (np.broadcast_to(_value(quantities, k), (n,)) for k in MID_ECLIPSE_ELEMENTS[:5])
+    w_dot, p_dot = (None if _value(quantities, k) is None else np.broadcast_to(_value(quantities, k), (n,))
+                    for k in ("omega_dot", "period_derivative"))
     count = int(statics.get("count") or 3)
     offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
@@ -486,15 +473,11 @@ def mid_eclipse_events(quantities, statics, options, time_format="jd") -> list[d
     per_system: list[dict] = [{"events": {}} for _ in range(n)]
     with np.errstate(all="ignore"):
         for star in (1, 2):
-            phase = phys.mid_eclipse_phase(star, e, w, i)[0]
-            d_e, d_w, d_i = _phase_derivatives(star, e, w, i)
-            time, cycles = phys.dates_after(phase, p, t0, after, count)
-            jac = np.stack([np.ones_like(time), cycles, *(np.broadcast_to((p * d)[:, None], time.shape)
-                                                          for d in (d_e, d_w, d_i))], axis=-1)
-            sigma = np.sqrt(np.maximum(np.einsum("nci,nij,ncj->nc", jac, cov, jac), 0.0))
+            ev = phys.mid_eclipse_dates(star, p, t0, e, w, i, after, count, w_dot, p_dot)
+            sigma = phys.event_sigma(ev, cov, MID_ECLIPSE_ELEMENTS)
             for k in range(n):
-                per_system[k]["events"][f"eclipse_of_star{star}"] = _event_entries(time[k], sigma[k], cycles[k],
-                                                                                   None, offset)
+                per_system[k]["events"][f"eclipse_of_star{star}"] = _event_entries(ev["time"][k], sigma[k],
+                                                                                   ev["cycle"][k], None, offset)
         sizes = {name: _value(quantities, name) for name in ("semimajor_axis", "total_mass", "radius1", "radius2")}
         if sizes["radius1"] is not None and sizes["radius2"] is not None:
             geometry = phys.mid_eclipse(p, e, w, i, **sizes)
@@ -552,6 +535,10 @@ register(Calculation(
         Input("radius1", "solRad", "radius of star 1 (with radius2, to tell whether the discs overlap)", POSITIVE,
               required=False, example=2.1),
         Input("radius2", "solRad", "radius of star 2 (with radius1)", POSITIVE, required=False, example=1.6),
+        Input("omega_dot", "deg/yr", "apsidal motion: rate of advance of omega (omega is its value at t_periastron; "
+              "period is then the anomalistic period)", ANY, required=False, example=0.8),
+        Input("period_derivative", "s/yr", "rate of change of the period dP/dt (quadratic ephemeris; any "
+              "time-per-time unit)", ANY, required=False, example=0.0),
     ),
     outputs=(
         *(o for star, whom in (("1", "star 1 eclipsed, star 2 in front"), ("2", "star 2 eclipsed, star 1 in front"))
@@ -581,12 +568,19 @@ register(Calculation(
                                 "star 2 in front (nu + omega = 90 deg), eclipse_of_star2 the other; which one is the "
                                 "deeper (primary) eclipse depends on the surface brightnesses",
                  "events": "the first `count` mid-eclipses of each star at or after `after`, with the linear sigma "
-                           "of t_periastron, period (with their correlation), eccentricity, omega and inclination "
+                           "of t_periastron, period (with their correlation), eccentricity, omega, inclination, "
+                           "omega_dot and period_derivative "
                            "through the cycles elapsed since t_periastron; dates in the request's time_format (the "
                            "events' time_format member), each with its ISO 8601 date",
-                 "eclipse_possible": "given with both radii: true where the discs overlap at the minimum separation"},
+                 "eclipse_possible": "given with both radii: true where the discs overlap at the minimum separation",
+                 "apsidal_motion": ORBIT_CONVENTIONS["apsidal_motion"] + "; the phases, offsets and separations "
+                                   "are those at t_periastron, the event dates follow omega(t)",
+                 "period_derivative": ORBIT_CONVENTIONS["period_derivative"]},
     constraints=(Constraint(("radius1", "radius2"), "whether the discs overlap needs both radii and the orbit's size "
-                            "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),),
+                            "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),
+                 Constraint(("period_derivative",), "with this period derivative the period reaches zero before the "
+                            "mid-eclipses asked for: the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2) has no "
+                            "date there", _quadratic_ephemeris_defined)),
     at_most_one=(("semimajor_axis", "total_mass"),),
     check=_mid_eclipse_check,
     extra=mid_eclipse_events,

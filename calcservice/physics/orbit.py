@@ -202,19 +202,72 @@ def event_phase(kind, eccentricity, omega_deg):
 _APSIDAL_ITERATIONS = 4   # omega moves by omega_dot P / 360 deg per cycle: each pass gains that factor in accuracy
 
 
+def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot=None, period_derivative=None):
+    """The first ``count`` dates (JD) at or after ``after`` of an event whose phase depends on omega.
+
+    t = T0 + P (c + Pdot c^2 / 2) with c = n + phi the cycles since T0 (:func:`cycle_time`);
+    phi = raw_phase(omega(t)) - floor(raw_phase(omega)), continuous in omega, at omega(t) of the
+    apsidal motion (:func:`omega_at`), found by fixed-point iteration since the date moves omega; n is
+    the whole number of cycles, the smallest with t >= after.  Arrays over N systems with a trailing
+    axis of 1 in, (N, count) arrays out: (time, cycles, omega at each date in deg).
+    """
+    wdot, pdot = omega_dot, period_derivative
+    base = np.floor(raw_phase(omega))
+    phi = raw_phase(omega) - base
+    n = np.ceil(elapsed_cycles(after, period, t_periastron, pdot) - phi) + np.arange(count)
+    for _ in range(2):    # the second pass: n one cycle on where rounding left the first date before `after`
+        cycles = n + phi
+        time = cycle_time(cycles, period, t_periastron, pdot)
+        w_t = omega + np.zeros_like(time)
+        if wdot is not None:
+            for _ in range(_APSIDAL_ITERATIONS):
+                w_t = omega_at(time, omega, t_periastron, wdot)
+                cycles = n + raw_phase(w_t) - base
+                time = cycle_time(cycles, period, t_periastron, pdot)
+        early = time < after
+        if not np.any(early):
+            break
+        n = np.where(early[..., :1], n + 1.0, n)
+    return time, cycles, w_t
+
+
+def date_derivatives(time, cycles, period, t_periastron, dphi, omega_dot=None, period_derivative=None):
+    """Partial derivatives of event dates t = T0 + P (c + Pdot c^2/2), c = n + phi(elements, omega(t)).
+
+    ``dphi`` maps element names to d phi / d element (omega per deg) at the date.  Implicit
+    differentiation, since t enters omega(t) = omega + omega_dot (t - T0): with D = dt/dc = P (1 + Pdot c)
+    and F = 1 / (1 - D dphi/domega omega_dot), dt/dx = F D dphi/dx for each element x, dt/dP =
+    F (c + Pdot c^2/2), dt/d omega_dot = F D dphi/domega (t - T0) (per deg/yr), dt/dPdot = F P c^2 / 2
+    (per s/yr) and dt/dT0 = 1 (omega is omega(T0): the whole ephemeris moves with T0).
+    """
+    rate = period_change_rate(period_derivative)
+    slope = period * (1.0 + rate * cycles)
+    w_rate = 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR
+    dphi_dw = dphi.get("omega", 0.0)
+    feedback = 1.0 / (1.0 - slope * dphi_dw * w_rate)
+    out = {
+        "d_t_periastron": np.ones_like(time),
+        "d_period": feedback * (cycles + 0.5 * rate * cycles * cycles),
+        "d_omega_dot": np.broadcast_to(feedback * slope * dphi_dw * (time - t_periastron) / DAYS_PER_JULIAN_YEAR,
+                                       time.shape),
+        "d_period_derivative": feedback * 0.5 * period * cycles * cycles / JULIAN_YEAR,
+    }
+    for name, d in dphi.items():
+        out["d_" + name] = np.broadcast_to(feedback * slope * d, time.shape)
+    return out
+
+
 def event_times(kind, period, t_periastron, eccentricity, omega, after, count, omega_dot=None,
                 period_derivative=None, light_travel=None):
     """The first ``count`` dates (JD) of an event at or after ``after``, and the partial derivatives.
 
-    t = T0 + P (c + Pdot c^2 / 2) with c = n + phi the cycles since T0 (:func:`cycle_time`), phi the
-    event's phase at omega(t) (:func:`omega_at`; found by fixed-point iteration with apsidal motion,
-    since the date moves omega) and n the whole number of cycles, the smallest with t >= after.
-    ``light_travel`` = (amplitude in days, star 1 or 2): the dates are those seen in that star's light,
-    t + z / c (:func:`light_travel_delay`), returned as ``light_time`` too.  Inputs are arrays over N
-    systems; returns a dict of (N, count) arrays: ``time``, ``cycle`` and the derivatives of the date
-    ``d_t_periastron``, ``d_period``, ``d_eccentricity``, ``d_omega`` (per deg), ``d_omega_dot`` (per
-    deg/yr) and ``d_period_derivative`` (per s/yr), by implicit differentiation of
-    t = F(elements, omega(t)); the light-time correction's own uncertainty is not propagated.
+    The event's phase is that of its true anomaly nu(omega) (``EVENT_TRUE_ANOMALY``) at omega(t),
+    the dates those of :func:`dated_events`, their derivatives those of :func:`date_derivatives`
+    (``d_t_periastron``, ``d_period``, ``d_eccentricity``, ``d_omega`` per deg, ``d_omega_dot`` per
+    deg/yr, ``d_period_derivative`` per s/yr).  ``light_travel`` = (amplitude in days, star 1 or 2):
+    the dates are those seen in that star's light, t + z / c (:func:`light_travel_delay`), returned as
+    ``light_time`` too; the correction's own uncertainty is not propagated.  Inputs are arrays over N
+    systems; the outputs (N, count) arrays, with ``time`` and ``cycle``.
     """
     p = np.asarray(period, dtype=float)[..., None]
     t0 = np.asarray(t_periastron, dtype=float)[..., None]
@@ -223,47 +276,18 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
     start = np.asarray(after, dtype=float)[..., None]
     wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
-    rate = period_change_rate(pdot)
 
     def raw_phase(w):
         return kepler.mean_from_true(EVENT_TRUE_ANOMALY[kind](np.radians(w)), e) / TWO_PI
 
-    base = np.floor(raw_phase(w0))
-    phi = raw_phase(w0) - base
-    n = np.ceil(elapsed_cycles(start, p, t0, pdot) - phi) + np.arange(count)
-    for _ in range(2):    # the second pass: n one cycle on where rounding left the first date before `after`
-        cycles = n + phi
-        time = cycle_time(cycles, p, t0, pdot)
-        w_t = w0 + np.zeros_like(time)
-        if wdot is not None:
-            for _ in range(_APSIDAL_ITERATIONS):
-                w_t = omega_at(time, w0, t0, wdot)
-                cycles = n + raw_phase(w_t) - base
-                time = cycle_time(cycles, p, t0, pdot)
-        early = time < start
-        if not np.any(early):
-            break
-        n = np.where(early[..., :1], n + 1.0, n)
+    time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
     nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
     if kind in ("periastron", "apastron"):
-        dphi_de = dphi_dw = np.zeros_like(time)
+        dphi = {"eccentricity": np.zeros_like(time), "omega": np.zeros_like(time)}
     else:
         d_nu, d_e = mean_anomaly_derivatives(nu, e)
-        dphi_de, dphi_dw = d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI   # d nu / d omega = -1
-    slope = p * (1.0 + rate * cycles)                       # dt/dc
-    years = (time - t0) / DAYS_PER_JULIAN_YEAR
-    w_rate = 0.0 if wdot is None else wdot / DAYS_PER_JULIAN_YEAR
-    feedback = 1.0 / (1.0 - slope * dphi_dw * w_rate)        # t appears on both sides through omega(t)
-    out = {
-        "time": time,
-        "cycle": cycles,
-        "d_t_periastron": np.ones_like(time),                # omega is omega(T0): the whole ephemeris moves with T0
-        "d_period": feedback * (cycles + 0.5 * rate * cycles * cycles),
-        "d_eccentricity": feedback * slope * dphi_de,
-        "d_omega": feedback * slope * dphi_dw,
-        "d_omega_dot": feedback * slope * dphi_dw * years,
-        "d_period_derivative": feedback * 0.5 * p * cycles * cycles / JULIAN_YEAR,
-    }
+        dphi = {"eccentricity": d_e / TWO_PI, "omega": -d_nu * np.radians(1.0) / TWO_PI}   # d nu / d omega = -1
+    out = {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
     if light_travel is not None:
         amplitude, star = light_travel
         w_star = np.radians(w_t) + (np.pi if star == 2 else 0.0)
@@ -383,15 +407,17 @@ def projected_separation(true_anomaly_rad, eccentricity, omega_rad, inclination_
         np.maximum(1.0 - s2 * np.sin(true_anomaly_rad + omega_rad) ** 2, 0.0))
 
 
-def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad):
+def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
     """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``.
 
-    Minimising rho^2 = r^2 (1 - sin^2 i sin^2 u), u = nu + omega, sets its derivative to zero:
-    g(nu) = 2 e sin nu (1 - sin^2 i sin^2 u) / (1 + e cos nu) - sin^2 i sin 2u = 0
+    Minimising rho^2 = r^2 (1 - sin^2 i sin^2 u), u = nu + omega, in time sets its derivative to zero:
+    g(nu) = 2 e sin nu (1 - sin^2 i sin^2 u) / (1 + e cos nu) - sin^2 i sin 2u (1 + kappa) = 0
     (with r'/r = e sin nu / (1 + e cos nu) from the ellipse; e.g. Hilditch 2001, ch. 2 on eclipse
-    timing in eccentric orbits).  Newton's method on g from the conjunction (nu + omega = 90 deg or
-    270 deg), where it starts within a small angle of the root whenever an eclipse is possible; the
-    root is the conjunction itself when e = 0 or i = 90 deg.
+    timing in eccentric orbits), kappa = (d omega/dt)/(d nu/dt) = omega_rate (1 - e^2)^{3/2} / (1 + e cos nu)^2
+    for apsidal motion, ``omega_rate`` = d omega / dM = omega_dot P / 360 deg (0 without).  Newton's
+    method on g from the conjunction (nu + omega = 90 deg or 270 deg), where it starts within a small
+    angle of the root whenever an eclipse is possible; the root is the conjunction itself when e = 0
+    or i = 90 deg.
     """
     e = np.asarray(eccentricity, dtype=float)
     s2 = np.sin(inclination_rad) ** 2
@@ -403,25 +429,33 @@ def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad):
         u = nu + omega_rad
         shape = 1.0 - s2 * np.sin(u) ** 2
         h = 2.0 * e * sin_nu / c
-        g = h * shape - s2 * np.sin(2.0 * u)
-        dg = 2.0 * e * (cos_nu + e) / c**2 * shape - h * s2 * np.sin(2.0 * u) - 2.0 * s2 * np.cos(2.0 * u)
+        kappa = omega_rate * (1.0 - e * e) ** 1.5 / c**2
+        g = h * shape - s2 * np.sin(2.0 * u) * (1.0 + kappa)
+        dg = (2.0 * e * (cos_nu + e) / c**2 * shape - h * s2 * np.sin(2.0 * u)
+              - 2.0 * s2 * np.cos(2.0 * u) * (1.0 + kappa) - s2 * np.sin(2.0 * u) * kappa * h)
         with np.errstate(invalid="ignore", divide="ignore"):
             step = np.where(dg > 0.0, g / dg, 0.0)
         nu = nu - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP)
     return nu
 
 
-def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg):
-    """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, and that of its conjunction (cycles)."""
+def apsidal_rate_per_mean_anomaly(omega_dot, period):
+    """d omega / dM = omega_dot P / 360 deg (omega_dot in deg/yr, P in days); 0 without apsidal motion."""
+    return 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR * period / 360.0
+
+
+def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate=0.0):
+    """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, its offset from the conjunction (cycles),
+    and its true anomaly (rad)."""
     w = np.radians(omega_deg)
-    nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg))
+    nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg), omega_rate)
     mid = kepler.mean_from_true(nu, eccentricity) / TWO_PI
     conjunction = kepler.mean_from_true(CONJUNCTION_ARGUMENT[star] - w, eccentricity) / TWO_PI
     return np.mod(mid, 1.0), mid - conjunction, nu
 
 
 def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,
-                radius1=None, radius2=None, **_):
+                radius1=None, radius2=None, omega_dot=None, **_):
     """Phases of mid-eclipse (minimum projected separation), their offsets from conjunction, the separations.
 
     For each eclipse (star 1 eclipsed: star 2 in front; star 2 eclipsed) the phase of the minimum
@@ -437,7 +471,8 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
     if a is not None:
         out["semimajor_axis"] = a
     for star in (1, 2):
-        phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination)
+        phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination,
+                                                                apsidal_rate_per_mean_anomaly(omega_dot, period))
         rho = projected_separation(nu, eccentricity, np.radians(omega), np.radians(inclination))
         out[f"mid_eclipse_phase{star}"] = phase
         out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
@@ -449,16 +484,43 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
     return out
 
 
-def dates_after(phase, period, t_periastron, after, count):
-    """The first ``count`` dates t_n = T0 + (n + phase) P at or after ``after``, and the cycles n + phase.
+#: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
+#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
+MID_ECLIPSE_PHASE_STEPS = {"eccentricity": 1e-6, "omega": 1e-4, "inclination": 1e-4}
 
-    Arrays over N systems in, (N, count) arrays out.
+
+def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclination, after, count, omega_dot=None,
+                      period_derivative=None):
+    """The first ``count`` mid-eclipse dates (JD) of ``star`` at or after ``after``, and the partial derivatives.
+
+    The phase is M(nu_min)/2 pi of :func:`mid_eclipse_true_anomaly` at omega(t) (apsidal motion),
+    the dates those of :func:`dated_events`, the derivatives those of :func:`date_derivatives` with
+    d phi / d(e, omega, i) by central differences.  Returns (N, count) arrays ``time``, ``cycle`` and
+    ``d_<element>`` for t_periastron, period, eccentricity, omega, inclination, omega_dot,
+    period_derivative.
     """
     p = np.asarray(period, dtype=float)[..., None]
     t0 = np.asarray(t_periastron, dtype=float)[..., None]
-    phi = np.asarray(phase, dtype=float)[..., None]
+    e = np.asarray(eccentricity, dtype=float)[..., None]
+    w0 = np.asarray(omega, dtype=float)[..., None]
+    inc = np.asarray(inclination, dtype=float)[..., None]
     start = np.asarray(after, dtype=float)[..., None]
-    cycles = np.ceil((start - t0) / p - phi) + phi + np.arange(count)
-    # guard against the rounding of (after - T0)/P landing one cycle early
-    cycles = np.where(t0 + cycles * p < start, cycles + 1.0, cycles)
-    return t0 + cycles * p, cycles
+    wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
+    pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
+
+    rate = apsidal_rate_per_mean_anomaly(wdot, p)
+
+    def raw_phase(w, e=e, inc=inc):     # continuous in its arguments (no reduction mod 1)
+        nu = mid_eclipse_true_anomaly(star, e, np.radians(w), np.radians(inc), rate)
+        return kepler.mean_from_true(nu, e) / TWO_PI
+
+    time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
+    dphi = {}
+    for name, h in MID_ECLIPSE_PHASE_STEPS.items():
+        args = {"w": w_t, "e": e, "inc": inc}
+        key = {"eccentricity": "e", "omega": "w", "inclination": "inc"}[name]
+        up, down = dict(args), dict(args)
+        up[key] = args[key] + h
+        down[key] = args[key] - h
+        dphi[name] = (raw_phase(**up) - raw_phase(**down)) / (2.0 * h)
+    return {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
