@@ -164,9 +164,9 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
     count = int(statics.get("count") or 3)
     offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
-    cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
     k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
-    with np.errstate(all="ignore"):
+    with np.errstate(all="ignore"):     # an infinite sigma or element gives a null date, not a warning
+        cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
         amplitudes = {star: None if k is None else np.broadcast_to(phys.light_travel_amplitude(k, p, e), (n,))
                       for star, k in (("star1", k1), ("star2", k2))}
     chosen = statics.get("light_travel_time") or "none"
@@ -469,9 +469,9 @@ def mid_eclipse_events(quantities, statics, options, time_format="jd") -> list[d
     count = int(statics.get("count") or 3)
     offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
-    cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, MID_ECLIPSE_ELEMENTS)
     per_system: list[dict] = [{"events": {}} for _ in range(n)]
     with np.errstate(all="ignore"):
+        cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, MID_ECLIPSE_ELEMENTS)
         for star in (1, 2):
             ev = phys.mid_eclipse_dates(star, p, t0, e, w, i, after, count, w_dot, p_dot)
             sigma = phys.event_sigma(ev, cov, MID_ECLIPSE_ELEMENTS)
