@@ -177,3 +177,13 @@ def test_mid_eclipse_with_apsidal_motion_and_period_derivative():
     plain = compute("mid-eclipse", {"period": P, "eccentricity": e, "omega": w, "t_periastron": T0,
                                     "inclination": i, "after": after, "count": 2})["results"]["events"]
     assert abs(plain["eclipse_of_star1"][0]["value"] - r["eclipse_of_star1"][0]["value"]) > 0.01
+
+
+def test_mid_eclipse_stays_on_its_half_of_the_orbit():
+    # nearly face-on the sky separation is smallest at periastron, which may lie on the other star's side: the
+    # minimum is sought only where star 1 (2) is the farther star, |nu + omega - 90 (270) deg| < 90 deg
+    for star, centre in ((1, 90.0), (2, 270.0)):
+        for w in (0.0, 45.0, 170.0, 300.0):
+            nu = orbit.mid_eclipse_true_anomaly(star, 0.6, math.radians(w), math.radians(3.0))
+            off = math.remainder(math.degrees(nu) + w - centre, 360.0)
+            assert abs(off) <= 90.0

@@ -393,6 +393,7 @@ def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_r
 #: eclipse of star 1) at nu + omega = 90 deg, star 1 in front (an eclipse of star 2) at 270 deg
 CONJUNCTION_ARGUMENT = {1: 0.5 * np.pi, 2: 1.5 * np.pi}
 _MID_ECLIPSE_STEPS = 40
+_HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
 _MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
 
 
@@ -435,7 +436,9 @@ def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, ome
               - 2.0 * s2 * np.cos(2.0 * u) * (1.0 + kappa) - s2 * np.sin(2.0 * u) * kappa * h)
         with np.errstate(invalid="ignore", divide="ignore"):
             step = np.where(dg > 0.0, g / dg, 0.0)
-        nu = nu - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP)
+        # kept within the half-orbit where ``star`` is the farther one: beyond it the other star is in front
+        nu = np.clip(nu - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), start - _HALF_ORBIT,
+                     start + _HALF_ORBIT)
     return nu
 
 
