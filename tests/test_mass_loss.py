@@ -620,6 +620,10 @@ def test_speeds_in_other_units_are_held_to_c(client):
     status, doc = post(client, "/v1/spectroscopic/sb1", {"period": 3.0, "eccentricity": 0.1,
                                                          "k1": {"value": 1.1 * const.c.value, "unit": "m/s"}})
     assert status == 422 and "k1" in doc["errors"]
+    # the bound is said in full: c = 299792.458 km/s exactly (SI definition of the metre)
+    assert "299792.458" in doc["errors"]["k1"][0]
+    status, doc = post(client, "/v1/spectroscopic/sb1", {"period": 3.0, "eccentricity": 0.1, "k1": 299792.3})
+    assert status == 200
 
 
 @pytest.mark.parametrize("name,inputs,field", [

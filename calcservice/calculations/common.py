@@ -5,8 +5,15 @@ import numpy as np
 from ..constants import C_LIGHT_KM_S
 from ..registry import ECCENTRICITY, INCLINATION, POSITIVE, Domain, Input, Warning
 
+class SpeedDomain(Domain):
+    """A speed of matter: above 0 and below the speed of light, said in full (not rounded to 6 digits)."""
+
+    def describe(self) -> str:
+        return f"must be > 0 and < {self.high:.9g}, the speed of light"
+
+
 #: a speed of matter: above 0 and below the speed of light (CODATA, exact), refused otherwise
-SPEED = Domain(0.0, C_LIGHT_KM_S, low_open=True, high_open=True)
+SPEED = SpeedDomain(0.0, C_LIGHT_KM_S, low_open=True, high_open=True)
 #: above this fraction of c the Newtonian formulas lose accuracy: their relative corrections are of
 #: order (v/c)^2, 1 % at 0.1 c (common practice for where special relativity starts to matter)
 RELATIVISTIC_FRACTION = 0.1
@@ -54,7 +61,7 @@ def relativistic_speeds(inputs, names) -> list:
             continue
         fast = np.asarray(v) > RELATIVISTIC_FRACTION * C_LIGHT_KM_S
         if np.any(fast):
-            out.append(Warning("relativistic_speed", "{subject} above 0.1 c: the Newtonian formulas used here lose "
+            out.append(Warning("relativistic_speed", f"{name} above 0.1 c: the Newtonian formulas used here lose "
                                "accuracy (relative corrections of order (v/c)^2, 1 % at 0.1 c and growing)",
                                fast, subject=name))
     return out
