@@ -640,3 +640,13 @@ def test_speeds_above_a_tenth_of_light_are_warned(name, inputs, field):
     assert len(hits) == 1 and hits[0].subject == field
     slow = run(name, {k: (v if k != field else 0.09 * C_KM_S) for k, v in inputs.items()})
     assert "relativistic_speed" not in codes(slow)
+
+
+def test_systemic_velocity_is_held_to_c(client):
+    # |gamma| >= c is impossible: refused, naming the field; a large but possible one is computed
+    body = {"period": 10.0, "eccentricity": 0.1, "omega": 30.0, "t_periastron": 2460000.0, "k1": 20.0,
+            "times": [2460001.0]}
+    status, doc = post(client, "/v1/orbit/ephemeris", {**body, "gamma": -C_KM_S})
+    assert status == 422 and "gamma" in doc["errors"] and "-299792.458" in doc["errors"]["gamma"][0]
+    status, doc = post(client, "/v1/orbit/ephemeris", {**body, "gamma": -3000.0})
+    assert status == 200

@@ -6,14 +6,16 @@ from ..constants import C_LIGHT_KM_S
 from ..registry import ECCENTRICITY, INCLINATION, POSITIVE, Domain, Input, Warning
 
 class SpeedDomain(Domain):
-    """A speed of matter: above 0 and below the speed of light, said in full (not rounded to 6 digits)."""
+    """A speed of matter, bounded by the speed of light, said in full (not rounded to 6 digits)."""
 
     def describe(self) -> str:
-        return f"must be > 0 and < {self.high:.9g}, the speed of light"
+        return f"must be > {self.low:.9g} and < {self.high:.9g}, the speed of light"
 
 
 #: a speed of matter: above 0 and below the speed of light (CODATA, exact), refused otherwise
 SPEED = SpeedDomain(0.0, C_LIGHT_KM_S, low_open=True, high_open=True)
+#: a line-of-sight velocity of matter (either sign), slower than light
+VELOCITY = SpeedDomain(-C_LIGHT_KM_S, C_LIGHT_KM_S, low_open=True, high_open=True)
 #: above this fraction of c the Newtonian formulas lose accuracy: their relative corrections are of
 #: order (v/c)^2, 1 % at 0.1 c (common practice for where special relativity starts to matter)
 RELATIVISTIC_FRACTION = 0.1

@@ -10,7 +10,7 @@ import numpy as np
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, eccentricity, period,
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity, period,
                      with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
@@ -284,7 +284,7 @@ register(Calculation(
               example=2458712.3),
         Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", SPEED, example=61.2),
         Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", SPEED, required=False, example=142.8),
-        Input("gamma", "km/s", "systemic velocity", ANY, required=False, default=0.0, example=-7.4),
+        Input("gamma", "km/s", "systemic velocity", VELOCITY, required=False, default=0.0, example=-7.4),
         Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", ANY, kind="series",
               time=True, label="time", example=[2460400.5, 2460500.5, 2460600.5]),
         Input("angular_semimajor_axis", "mas", "angular semi-major axis of the relative visual orbit", POSITIVE,
