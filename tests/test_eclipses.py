@@ -187,3 +187,14 @@ def test_mid_eclipse_stays_on_its_half_of_the_orbit():
             nu = orbit.mid_eclipse_true_anomaly(star, 0.6, math.radians(w), math.radians(3.0))
             off = math.remainder(math.degrees(nu) + w - centre, 360.0)
             assert abs(off) <= 90.0
+
+
+def test_report_names_mjd_dates(client):
+    # the derivation report labels the event dates with the caller's format
+    body = {"period": P, "eccentricity": E, "omega": W, "t_periastron": T0 - 2400000.5, "inclination": I,
+            "after": AFTER - 2400000.5, "time_format": "mjd", "count": 1}
+    text = client.post(PATH + "?format=markdown", json=body).get_data(as_text=True)
+    assert "date [d, MJD]" in text
+    text = client.post(PATH + "?format=markdown", json={**body, "time_format": "jd", "t_periastron": T0,
+                                                         "after": AFTER}).get_data(as_text=True)
+    assert "date [d]" in text and "MJD" not in text.split("### Events")[1].split("###")[0]
