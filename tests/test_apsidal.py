@@ -3,7 +3,6 @@ computations (a direct Kepler solve with scipy, root finding for event dates, as
 
 import math
 
-import numpy as np
 import pytest
 from astropy import constants as const
 from astropy import units as u

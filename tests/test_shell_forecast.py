@@ -1,7 +1,6 @@
 """Dust-shell forecasts: angular radii at a date, against astropy units, the IAU au and Julian year, and a round
 trip with the shell-distance calculation."""
 
-import math
 
 import numpy as np
 import pytest

@@ -10,8 +10,8 @@ import numpy as np
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity, period,
-                     with_speed_check)
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity,
+                     period, with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
@@ -52,7 +52,8 @@ ORBIT_CONVENTIONS = {
                          "z = (a sin i)(1 - e^2) sin(nu + omega_star)/(1 + e cos nu) the star's distance behind "
                          "the centre of mass (positive receding), so a star beyond the centre of mass is seen late; "
                          "the series are not corrected, nor are the other light-travel terms of eclipse timing "
-                         "(the motion of the front star while the light crosses the orbit). The amplitudes a sin i / c = K P sqrt(1 - e^2)/(2 pi c) of "
+                         "(the motion of the front star while the light crosses the orbit). The amplitudes "
+                         "a sin i / c = K P sqrt(1 - e^2)/(2 pi c) of "
                          "both stars are always given in events.light_travel_time (days); the correction's own "
                          "uncertainty is not propagated",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
