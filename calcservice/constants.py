@@ -43,6 +43,8 @@ def _from_astropy(symbol: str, const, description: str, source: str) -> Constant
 
 SECONDS_PER_DAY = 86400.0
 DAYS_PER_JULIAN_YEAR = 365.25
+#: MJD = JD - 2400000.5 (the Modified Julian Date, IAU 1973; astropy.time's "mjd" format)
+MJD_ZERO_JD = 2400000.5
 
 _CONSTANTS = [
     _from_astropy("GM_sun", _c.GM_sun, "nominal solar mass parameter",
@@ -84,6 +86,7 @@ K_B = CONSTANTS["k_B"].value                  # J K^-1
 C_LIGHT = CONSTANTS["c"].value                # m s^-1
 JULIAN_YEAR = CONSTANTS["julian_year"].value  # s
 AU_KM = AU / 1e3                              # km
+C_LIGHT_KM_S = C_LIGHT / 1e3                  # km s^-1
 R_SUN_KM = R_SUN / 1e3                        # km
 TWO_PI = 2.0 * math.pi
 

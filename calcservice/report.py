@@ -408,6 +408,8 @@ def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]
     for key, member in members.items():
         if isinstance(member, dict):
             unit = member.get("unit", "")
+            if member.get("time_format") == "mjd":     # dates given back as the caller gave them: say so
+                unit = f"{unit}, MJD"
             for sub, entries in member.items():
                 if isinstance(entries, list) and entries and all(isinstance(e, dict) for e in entries):
                     out.append((f"{key}: {sub}", unit, entries))

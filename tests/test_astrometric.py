@@ -475,3 +475,52 @@ def test_http_listed_in_calculations_and_openapi(client):
     for path in ("/v1/astrometric/visual", "/v1/astrometric/campbell", "/v1/astrometric/thiele-innes",
                  "/v1/astrometric/photocentre"):
         assert path in text and path in spec
+
+
+# ----------------------------------------------------------------------------- branch property (issue 15)
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+BOUNDED = settings(max_examples=50, deadline=None, derandomize=True, database=None)
+QUADRANT_ANGLES = st.sampled_from([-360.0, -270.0, -180.0, -90.0, 0.0, 90.0, 180.0, 270.0, 360.0])
+# on the boundary, a rounding error away, and a little further: where a node computed as -1e-15 deg used to
+# wrap to 180.0 and then to 0 without omega following it
+NUDGES = st.sampled_from([0.0, 1e-15, -1e-15, 4e-15, -4e-15, 1e-13, -1e-13, 1e-9, -1e-9, 1e-3, -1e-3])
+INCLINATIONS = st.sampled_from([0.5, 45.0, 89.999999, 90.0, 90.000001, 135.0, 179.5]) | st.floats(1.0, 179.0)
+
+
+def _sky_turn_free(constants_in, constants_out, scale):
+    # the service's answer must give back the same constants, not all four with their signs reversed
+    np.testing.assert_allclose(np.asarray(constants_out, float), np.asarray(constants_in, float),
+                               rtol=0, atol=1e-9 * scale)
+
+
+@BOUNDED
+@given(w=QUADRANT_ANGLES, dw=NUDGES, n=QUADRANT_ANGLES, dn=NUDGES, i=INCLINATIONS)
+def test_campbell_round_trip_on_quadrant_boundaries(w, dw, n, dn, i):
+    # Campbell -> Thiele–Innes -> Campbell (through the service) -> Thiele–Innes: the recomputed constants are
+    # the input's (Heintz 1978: (omega, node) and (omega + 180, node + 180) are the same sky orbit, nothing else)
+    a = 300.0
+    t = ast.thiele_innes_constants(a, i, w + dw, n + dn)
+    r = compute("campbell", dict(zip("ABFG", (float(x) for x in t))))["results"]
+    back = ast.thiele_innes_constants(r["angular_semimajor_axis"]["value"], r["inclination"]["value"],
+                                      r["omega"]["value"], r["node"]["value"])
+    _sky_turn_free(t, back, a)
+    assert 0.0 <= r["node"]["value"] < 180.0
+    assert r["angular_semimajor_axis"]["value"] == pytest.approx(a, rel=1e-12)
+    assert r["inclination"]["value"] == pytest.approx(i, abs=1e-6)
+    # omega and node: the input's, or both turned by 180 deg
+    turn = 0.0 if abs((r["node"]["value"] - (n + dn) + 180.0) % 360.0 - 180.0) < 90.0 else 180.0
+    assert (r["omega"]["value"] - (w + dw) - turn + 180.0) % 360.0 - 180.0 == pytest.approx(0.0, abs=1e-6)
+
+
+@BOUNDED
+@given(w=QUADRANT_ANGLES, dw=NUDGES, n=QUADRANT_ANGLES, dn=NUDGES, i=INCLINATIONS)
+def test_thiele_innes_round_trip_on_quadrant_boundaries(w, dw, n, dn, i):
+    # Thiele–Innes -> Campbell -> Thiele–Innes, both through the service
+    t = ast.thiele_innes_constants(250.0, i, w + dw, n + dn)
+    c = compute("campbell", dict(zip("ABFG", (float(x) for x in t))))["results"]
+    back = compute("thiele-innes", {k: c[k]["value"] for k in ("angular_semimajor_axis", "inclination", "omega",
+                                                                 "node")})["results"]
+    _sky_turn_free(t, [back[k]["value"] for k in "ABFG"], 250.0)

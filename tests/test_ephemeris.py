@@ -342,3 +342,20 @@ def test_no_warnings_leak_from_astropy():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         iso_dates(np.array([2470000.5, 2400000.5]))
+
+
+def test_http_event_dates_in_the_callers_time_format(client):
+    # MJD = JD - 2400000.5 (astropy.time's mjd format): the same events, named as MJD, with the same sigmas
+    # and ISO dates; JD requests are labelled jd
+    _, by_jd = post(client, PATH, _body(count=2))
+    _, by_mjd = post(client, PATH, _body(count=2, times=[T0 - 2400000.5 + x for x in (10.0, 100.0, 300.0)],
+                                         t_periastron={"value": T0 - 2400000.5, "sigma": 0.9}, time_format="mjd"))
+    ev_jd, ev_mjd = by_jd["results"]["events"], by_mjd["results"]["events"]
+    assert ev_jd["time_format"] == "jd" and ev_mjd["time_format"] == "mjd"
+    for kind in ("periastron", "apastron", "conjunctions", "rv_extrema", "max_velocity_separation"):
+        assert len(ev_mjd[kind]) == len(ev_jd[kind]) > 0
+        for a, b in zip(ev_jd[kind], ev_mjd[kind]):
+            assert b["value"] == pytest.approx(Time(a["value"], format="jd").mjd, abs=1e-6)
+            assert b["sigma"] == pytest.approx(a["sigma"], rel=1e-9)
+            assert b["iso"] == a["iso"]
+    assert ev_mjd["periastron"][0]["value"] == pytest.approx(T0 + P - 2400000.5, abs=1e-6)

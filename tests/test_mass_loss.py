@@ -396,10 +396,11 @@ def test_vink_rule_of_thumb_and_jump():
 
 
 def test_vink_outside_calibration_warnings():
-    for teff, z in ((60e3, 1.0), (10e3, 1.0), (35e3, 10.0)):
+    for teff, z, code in ((60e3, 1.0, "vink_fit_out_of_range"), (10e3, 1.0, "vink_fit_out_of_range"),
+                          (35e3, 10.0, "outside_calibration")):
         r = run("mass-loss-recipe", {"luminosity": 3e5, "mass": 40.0, "teff": teff, "metallicity": z},
                 {"recipe": "vink-2001"})
-        assert "outside_calibration" in codes(r)
+        assert code in codes(r)
     r = run("mass-loss-recipe", {"luminosity": 3e5, "mass": 40.0, "teff": 38e3}, {"recipe": "vink-2001"})
     assert "outside_calibration" not in codes(r)
 
@@ -494,3 +495,158 @@ def test_http_recipe_inputs_of_the_other_recipe_only(client):
     status, doc = post(client, "/v1/winds/mass-loss/recipe",
                        {"recipe": "vink-2001", "luminosity": 1e5, "helium_fraction": 0.9, "metal_fraction": 0.05})
     assert status == 422
+
+
+# ================================================================ validity guards (issue 15)
+
+def test_vink_refuses_super_eddington_star(client):
+    # Gamma_e = sigma_e L / (4 pi c G M) with sigma_e = 0.325 cm^2/g, i.e. 7.66e-5 sigma_e L/M in solar units
+    # (Vink et al. 2001, sect. 5): L = 1e6 L_sun, M = 20 M_sun gives 1.24 -> no line-driven wind, refused
+    gamma = 0.325 * 0.1 * 1e6 * const.L_sun.value / (4 * math.pi * const.c.value * const.GM_sun.value * 20.0)
+    assert gamma == pytest.approx(7.66e-5 * 0.325 * 1e6 / 20.0, rel=2e-3) and gamma > 1
+    status, doc = post(client, "/v1/winds/mass-loss/recipe",
+                       {"recipe": "vink-2001", "luminosity": 1e6, "mass": 20.0, "teff": 4e4})
+    assert status == 422 and {"luminosity", "mass"} <= set(doc["errors"]), doc
+    assert "Eddington" in doc["errors"]["mass"][0]
+    # just below the limit the rate is given
+    status, doc = post(client, "/v1/winds/mass-loss/recipe",
+                       {"recipe": "vink-2001", "luminosity": 1e6, "mass": 26.0, "teff": 4e4})
+    assert status == 200
+    # the Wolf-Rayet recipe has no mass and is not concerned
+    assert _failing_fields("mass-loss-recipe", recipe="nugis-lamers-2000", luminosity=1e6, helium_fraction=0.9,
+                           metal_fraction=0.05) == set()
+
+
+@pytest.mark.parametrize("teff,warned", [
+    (26.0e3, True),    # above the jump of this star (~24 kK) -> hot-side fit, below its 27.5 kK lower edge
+    (30.0e3, False),   # hot-side fit inside 27.5-50 kK
+    (52.0e3, True),    # hot-side fit above 50 kK
+    (20.0e3, False),   # cool-side fit inside 12.5-22.5 kK
+    (23.5e3, True),    # below the jump -> cool-side fit, above its 22.5 kK upper edge
+    (11.0e3, True),    # cool-side fit below 12.5 kK
+])
+def test_vink_each_fit_warns_outside_its_temperature_range(teff, warned):
+    # Vink, de Koter & Lamers (2001), A&A 369, 574: eq. 24 fitted for 27.5 <= Teff <= 50 kK, eq. 25 for
+    # 12.5 <= Teff <= 22.5 kK (from memory)
+    star = {"luminosity": 10**5.5, "mass": 40.0}
+    assert 23.8e3 < w.vink_jump_temperature(10**5.5, 40.0, 1.0) < 24.5e3
+    r = run("mass-loss-recipe", {**star, "teff": teff}, {"recipe": "vink-2001"})
+    assert ("vink_fit_out_of_range" in codes(r)) is warned
+    if warned:
+        message = next(x.message for x in r.warnings if x.code == "vink_fit_out_of_range")
+        assert "Vink et al. (2001)" in message and ("eq. 24" in message) is (teff >= 24e3)
+
+
+def test_radio_photosphere_radius_against_numerical_optical_depth():
+    # Independent: the line-of-sight free-free optical depth tau(p) = int alpha dz with the Rayleigh-Jeans
+    # alpha = 0.018 T^{-3/2} Z^2 n_e n_i nu^{-2} g (Rybicki & Lightman 1979, eq. 5.19b), integrated numerically
+    # with scipy.quad through an r^-2 wind of the rate the service derives, and tau(p) = 1 solved with brentq
+    vals = {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700.0, "stellar_radius": 8.5}
+    r = run("mass-loss-radio", vals, {"wind_type": "wn"})
+    mu, z, gamma_e, t = w.WIND_TYPES["wn"]
+    g = nominal(r, "gaunt_factor")
+    mdot = nominal(r, "mass_loss_rate")
+    m_h = (const.m_p + const.m_e).cgs.value
+    n_r2 = mdot * (u.Msun / u.yr).to(u.g / u.s) / (4 * math.pi * 1700.0e5 * mu * m_h)
+    nu = 8.4e9
+
+    r_sun_cm = const.R_sun.cgs.value
+
+    def tau(p):   # p and the path s along the line of sight in R_sun; alpha in cm^-1 times R_sun in cm
+        alpha = lambda s: (0.018 * t**-1.5 * z**2 * gamma_e * (n_r2 / ((p * p + s * s) * r_sun_cm**2)) ** 2 * g
+                           / nu**2 * r_sun_cm)
+        # s = p tan(theta) maps the infinite path onto a finite interval
+        return 2 * quad(lambda th: alpha(p * math.tan(th)) * p / math.cos(th) ** 2, 0, math.pi / 2,
+                        epsrel=1e-11)[0]
+
+    expected = brentq(lambda p: tau(p) - 1.0, 1.0, 1e6, rtol=1e-12)
+    assert nominal(r, "radio_photosphere_radius") == pytest.approx(expected, rel=1e-6)
+    assert nominal(r, "radio_photosphere_stellar_radii") == pytest.approx(expected / 8.5, rel=1e-6)
+    # and the photosphere gives back the observed flux: S = B_nu pi R^2 int (1 - exp(-x^-3)) 2 x dx / D^2 with the
+    # Rayleigh-Jeans B_nu = 2 k T nu^2 / c^2 (Wright & Barlow 1975), within the rounding of their 0.095 (3 %)
+    shape = quad(lambda x: (1 - math.exp(-(x**-3))) * 2 * x, 0, np.inf, limit=200)[0]
+    b_nu = 2 * const.k_B.cgs.value * t * nu**2 / const.c.cgs.value**2
+    flux_jy = b_nu * math.pi * (expected * r_sun_cm) ** 2 * shape / (2.1 * u.kpc.to(u.cm)) ** 2 / 1e-23
+    assert flux_jy == pytest.approx(1.8e-3, rel=0.03)
+
+
+def test_radio_photosphere_is_a_property_of_the_flux_not_the_clumping():
+    # the emission measure fixes the photosphere: clumping changes the rate, not the tau = 1 radius
+    base = {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700.0}
+    smooth = run("mass-loss-radio", base)
+    clumped = run("mass-loss-radio", {**base, "clumping": 0.1})
+    assert nominal(clumped, "radio_photosphere_radius") == pytest.approx(nominal(smooth, "radio_photosphere_radius"),
+                                                                         rel=1e-12)
+    # R(tau = 1) ~ S^{1/2} D nu^{-1} ... at fixed Gaunt factor: four times the flux, twice the radius
+    four = run("mass-loss-radio", {**base, "flux_density": 7.2})
+    assert nominal(four, "radio_photosphere_radius") == pytest.approx(2 * nominal(smooth, "radio_photosphere_radius"),
+                                                                      rel=1e-12)
+
+
+def test_radio_photosphere_close_to_the_star_is_warned():
+    # threshold 10 R_star, where a beta = 1 law v = v_inf (1 - R/r) reaches 90 % of v_inf (common practice)
+    mm = {"flux_density": 5.0, "frequency": 230.0, "distance": 1.0, "vinf": 2000.0}
+    r = run("mass-loss-radio", {**mm, "stellar_radius": 20.0})
+    ratio = nominal(r, "radio_photosphere_stellar_radii")
+    assert ratio < 10 and "radio_photosphere_in_accelerating_wind" in codes(r)
+    r = run("mass-loss-radio", {**mm, "stellar_radius": nominal(r, "radio_photosphere_radius") / 11.0})
+    assert "radio_photosphere_in_accelerating_wind" not in codes(r)
+    r = run("mass-loss-radio", mm)   # no radius: the photosphere is given, nothing to compare it with
+    assert "radio_photosphere_stellar_radii" not in r.outputs and "radio_photosphere_radius" in r.outputs
+    assert "radio_photosphere_in_accelerating_wind" not in codes(r)
+
+
+C_KM_S = const.c.to_value(u.km / u.s)   # CODATA, exact: 299792.458 km/s
+
+
+@pytest.mark.parametrize("path,body,field", [
+    ("/v1/spectroscopic/sb1", {"period": 3.0, "k1": C_KM_S, "eccentricity": 0.1}, "k1"),
+    ("/v1/spectroscopic/sb2", {"period": 3.0, "k1": 100.0, "k2": 3.1e5, "eccentricity": 0.1}, "k2"),
+    ("/v1/winds/collision", {"mdot1": 1e-5, "mdot2": 1e-6, "vinf1": 3.0e5, "vinf2": 2000.0, "separation": 3.0},
+     "vinf1"),
+    ("/v1/winds/mass-loss/radio", {"flux_density": 1.0, "frequency": 5.0, "distance": 1.0, "vinf": 4e5}, "vinf"),
+    ("/v1/winds/mass-loss/momentum-ratio", {"momentum_ratio": 0.1, "mdot1": 1e-5, "vinf1": 2000.0, "vinf2": C_KM_S},
+     "vinf2"),
+    ("/v1/winds/shell-distance", {"period": 3000.0, "shell_spacing": 400.0, "expansion_speed": C_KM_S * 1.01},
+     "expansion_speed"),
+])
+def test_speeds_at_or_above_light_are_refused(client, path, body, field):
+    status, doc = post(client, path, body)
+    assert status == 422 and field in doc["errors"], doc
+
+
+def test_speeds_in_other_units_are_held_to_c(client):
+    # 1.1 c given in m/s is refused as well: the domain is checked in the canonical unit
+    status, doc = post(client, "/v1/spectroscopic/sb1", {"period": 3.0, "eccentricity": 0.1,
+                                                         "k1": {"value": 1.1 * const.c.value, "unit": "m/s"}})
+    assert status == 422 and "k1" in doc["errors"]
+    # the bound is said in full: c = 299792.458 km/s exactly (SI definition of the metre)
+    assert "299792.458" in doc["errors"]["k1"][0]
+    status, doc = post(client, "/v1/spectroscopic/sb1", {"period": 3.0, "eccentricity": 0.1, "k1": 299792.3})
+    assert status == 200
+
+
+@pytest.mark.parametrize("name,inputs,field", [
+    ("sb1", {"period": 3.0, "k1": 0.2 * C_KM_S, "eccentricity": 0.1}, "k1"),
+    ("sb2", {"period": 3.0, "k1": 0.05 * C_KM_S, "k2": 0.11 * C_KM_S, "eccentricity": 0.1}, "k2"),
+    ("mass-loss-radio", {"flux_density": 1.0, "frequency": 5.0, "distance": 1.0, "vinf": 0.15 * C_KM_S}, "vinf"),
+    ("mass-loss-momentum-ratio", {"momentum_ratio": 0.1, "mdot1": 1e-5, "vinf1": 0.2 * C_KM_S, "vinf2": 2e3},
+     "vinf1"),
+    ("collision", {"mdot1": 1e-5, "mdot2": 1e-6, "vinf1": 2e3, "vinf2": 0.3 * C_KM_S, "separation": 3.0}, "vinf2"),
+])
+def test_speeds_above_a_tenth_of_light_are_warned(name, inputs, field):
+    fast = run(name, inputs)
+    hits = [x for x in fast.warnings if x.code == "relativistic_speed"]
+    assert len(hits) == 1 and hits[0].subject == field
+    slow = run(name, {k: (v if k != field else 0.09 * C_KM_S) for k, v in inputs.items()})
+    assert "relativistic_speed" not in codes(slow)
+
+
+def test_systemic_velocity_is_held_to_c(client):
+    # |gamma| >= c is impossible: refused, naming the field; a large but possible one is computed
+    body = {"period": 10.0, "eccentricity": 0.1, "omega": 30.0, "t_periastron": 2460000.0, "k1": 20.0,
+            "times": [2460001.0]}
+    status, doc = post(client, "/v1/orbit/ephemeris", {**body, "gamma": -C_KM_S})
+    assert status == 422 and "gamma" in doc["errors"] and "-299792.458" in doc["errors"]["gamma"][0]
+    status, doc = post(client, "/v1/orbit/ephemeris", {**body, "gamma": -3000.0})
+    assert status == 200

@@ -6,7 +6,8 @@ from ..physics import astrometric as phys
 from ..physics.spectroscopic import companion_mass, mass_function
 from ..registry import ANGLE, INCLINATION, POSITIVE, Calculation, Constraint, Input, Output, Warning, register
 from .astrometric import HEINTZ_1978, IAU_2015_B2, LUMINOSITY_FRACTION, SKY, VAN_DE_KAMP_1967
-from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, period, semi_amplitude
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, eccentricity, period,
+                     semi_amplitude, with_speed_check)
 
 
 def _beta_needs_primary_mass(luminosity_fraction, primary_mass, **_):
@@ -44,7 +45,7 @@ register(Calculation(
         period(),
         semi_amplitude("k1", "1 (the primary)", 24.6),
         Input("k2", "km/s", "radial-velocity semi-amplitude of star 2 (double-lined case: give this with "
-              "angular_semimajor_axis, or photocentre_semimajor_axis instead)", POSITIVE, required=False,
+              "angular_semimajor_axis, or photocentre_semimajor_axis instead)", SPEED, required=False,
               example=31.9),
         eccentricity(),
         Input("inclination", "deg", "inclination of the astrometric orbit (0 < i < 180 deg); masses depend on "
@@ -103,7 +104,7 @@ register(Calculation(
     ),
     exclusive=(("k2", "photocentre_semimajor_axis"), ("angular_semimajor_axis", "photocentre_semimajor_axis")),
     at_most_one=(("k2", "primary_mass"), ("k2", "luminosity_fraction")),
-    check=_check,
+    check=with_speed_check(_check, ("k1", "k2")),
     example={"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 24.6, "sigma": 0.3},
              "k2": {"value": 31.9, "sigma": 0.4}, "eccentricity": {"value": 0.31, "sigma": 0.01},
              "inclination": {"value": 58.0, "sigma": 0.8}, "angular_semimajor_axis": {"value": 9.84, "sigma": 0.07}},

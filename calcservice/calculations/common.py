@@ -1,6 +1,24 @@
 """Inputs, conventions and references shared by several declarations."""
 
-from ..registry import ECCENTRICITY, INCLINATION, POSITIVE, Input
+import numpy as np
+
+from ..constants import C_LIGHT_KM_S
+from ..registry import ECCENTRICITY, INCLINATION, POSITIVE, Domain, Input, Warning
+
+class SpeedDomain(Domain):
+    """A speed of matter, bounded by the speed of light, said in full (not rounded to 6 digits)."""
+
+    def describe(self) -> str:
+        return f"must be > {self.low:.9g} and < {self.high:.9g}, the speed of light"
+
+
+#: a speed of matter: above 0 and below the speed of light (CODATA, exact), refused otherwise
+SPEED = SpeedDomain(0.0, C_LIGHT_KM_S, low_open=True, high_open=True)
+#: a line-of-sight velocity of matter (either sign), slower than light
+VELOCITY = SpeedDomain(-C_LIGHT_KM_S, C_LIGHT_KM_S, low_open=True, high_open=True)
+#: above this fraction of c the Newtonian formulas lose accuracy: their relative corrections are of
+#: order (v/c)^2, 1 % at 0.1 c (common practice for where special relativity starts to matter)
+RELATIVISTIC_FRACTION = 0.1
 
 HILDITCH_2001 = ("R. W. Hilditch (2001), An Introduction to Close Binary Stars, "
                  "Cambridge University Press, ch. 2")
@@ -32,4 +50,27 @@ def inclination(required=False, isotropic=True, **kw) -> Input:
 
 
 def semi_amplitude(name: str, star: str, example: float) -> Input:
-    return Input(name, "km/s", f"radial-velocity semi-amplitude of star {star}", POSITIVE, example=example)
+    return Input(name, "km/s", f"radial-velocity semi-amplitude of star {star} (below the speed of light)", SPEED,
+                 example=example)
+
+
+def relativistic_speeds(inputs, names) -> list:
+    """A warning for each speed input of ``names`` above 0.1 c in some system."""
+    out = []
+    for name in names:
+        v = inputs.get(name)
+        if v is None:
+            continue
+        fast = np.asarray(v) > RELATIVISTIC_FRACTION * C_LIGHT_KM_S
+        if np.any(fast):
+            out.append(Warning("relativistic_speed", f"{name} above 0.1 c: the Newtonian formulas used here lose "
+                               "accuracy (relative corrections of order (v/c)^2, 1 % at 0.1 c and growing)",
+                               fast, subject=name))
+    return out
+
+
+def with_speed_check(check, names):
+    """``check`` followed by the relativistic-speed warnings on the inputs ``names``."""
+    def combined(inputs, outputs):
+        return [*(check(inputs, outputs) if check is not None else ()), *relativistic_speeds(inputs, names)]
+    return combined

@@ -7,9 +7,11 @@ from functools import lru_cache
 
 import numpy as np
 
+from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, period
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity,
+                     period, with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
@@ -26,7 +28,8 @@ EVENT_LISTS = {
     "conjunctions": ("conjunction_star2_in_front", "conjunction_star1_in_front"),
     "rv_extrema": ("rv1_maximum", "rv1_minimum"),
 }
-EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega")
+EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "omega_dot", "period_derivative")
+LIGHT_TRAVEL_CHOICES = ("none", "star1", "star2")
 
 ORBIT_CONVENTIONS = {
     **CONVENTIONS,
@@ -36,7 +39,23 @@ ORBIT_CONVENTIONS = {
     "events": "the first `count` events of each kind at or after `after` (default: the earliest of `times`), in time "
               "order; conjunctions and rv_extrema list `count` of each of their two kinds; an event's sigma is the "
               "linear propagation of the uncertainties of t_periastron, period (with their correlation), "
-              "eccentricity and omega, through the cycles elapsed since t_periastron",
+              "eccentricity, omega, omega_dot and period_derivative, through the cycles elapsed since "
+              "t_periastron; event dates are in the "
+              "request's time_format (JD by default, MJD = JD - 2400000.5 with time_format mjd), which the events' "
+              "time_format member names, each with its ISO 8601 date",
+    "apsidal_motion": "omega(t) = omega + omega_dot (t - t_periastron), omega_dot in deg per Julian year; period is "
+                      "the anomalistic period (periastron to periastron), t_periastron the epoch of omega; "
+                      "conjunctions then recur with the sidereal period, about P (1 - omega_dot P / 360 deg)",
+    "period_derivative": "quadratic ephemeris: periastron n at t_periastron + P (n + Pdot n^2 / 2), Pdot = dP/dt "
+                         "(s/yr by default), applied to the series and to every event date",
+    "light_travel_time": "with star1 or star2 each event date is when it is seen in that star's light: t + z/c, "
+                         "z = (a sin i)(1 - e^2) sin(nu + omega_star)/(1 + e cos nu) the star's distance behind "
+                         "the centre of mass (positive receding), so a star beyond the centre of mass is seen late; "
+                         "the series are not corrected, nor are the other light-travel terms of eclipse timing "
+                         "(the motion of the front star while the light crosses the orbit). The amplitudes "
+                         "a sin i / c = K P sqrt(1 - e^2)/(2 pi c) of "
+                         "both stars are always given in events.light_travel_time (days); the correction's own "
+                         "uncertainty is not propagated",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
            "for leap seconds",
 }
@@ -89,24 +108,24 @@ def _after(quantities, statics, n):
     return np.full(n, float(np.min(times)) if times is not None and len(times) else np.nan)
 
 
-def _element_covariance(quantities, correlations, n) -> np.ndarray:
-    """Covariance (N, 4, 4) of t_periastron, period, eccentricity, omega.
+def _element_covariance(quantities, correlations, n, elements=EVENT_ELEMENTS) -> np.ndarray:
+    """Covariance (N, k, k) of the ``elements`` (by default t_periastron, period, eccentricity, omega).
 
     Sigmas with the request's correlations; inputs given as samples bring their own sample
     covariance with each other (paired draws keep, e.g., the P-T0 correlation of a fit).
     """
-    k = len(EVENT_ELEMENTS)
+    k = len(elements)
     cov = np.zeros((n, k, k))
     sig = [np.broadcast_to(quantities[name].sigma, (n,)) if name in quantities else np.zeros(n)
-           for name in EVENT_ELEMENTS]
+           for name in elements]
     dev = {}
-    for name in EVENT_ELEMENTS:
+    for name in elements:
         q = quantities.get(name)
         if q is not None and q.samples is not None:
             s = np.broadcast_to(q.samples, (n, q.samples.shape[-1]))
             dev[name] = s - s.mean(axis=1, keepdims=True)
-    for i, a in enumerate(EVENT_ELEMENTS):
-        for j, b in enumerate(EVENT_ELEMENTS):
+    for i, a in enumerate(elements):
+        for j, b in enumerate(elements):
             if i == j:
                 cov[:, i, i] = sig[i] ** 2
             elif a in dev and b in dev and dev[a].shape == dev[b].shape:
@@ -117,13 +136,14 @@ def _element_covariance(quantities, correlations, n) -> np.ndarray:
     return cov
 
 
-def _event_entries(jd, sigma, cycle, extra_fields=None):
+def _event_entries(jd, sigma, cycle, extra_fields=None, offset=0.0):
+    """One entry per finite date: its value in the caller's format (JD - ``offset``), sigma, ISO date, cycle."""
     iso = iso_dates(jd)
     entries = []
     for k in range(len(jd)):
         if not np.isfinite(jd[k]):
             continue
-        e = {"value": float(jd[k]), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
+        e = {"value": float(jd[k] - offset), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
              "iso": iso[k], "cycle": float(cycle[k])}
         if extra_fields:
             e.update({key: v[k] for key, v in extra_fields.items()})
@@ -131,15 +151,27 @@ def _event_entries(jd, sigma, cycle, extra_fields=None):
     return entries
 
 
-def ephemeris_events(quantities, statics, options) -> list[dict]:
-    """The ``events`` member per system: dates of periastron, apastron, conjunctions and RV extrema with sigmas."""
+def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dict]:
+    """The ``events`` member per system: dates of periastron, apastron, conjunctions and RV extrema with sigmas.
+
+    Dates are in the caller's ``time_format`` ("jd", or "mjd" = JD - 2400000.5), named by the
+    events' ``time_format`` member; each entry also carries its ISO 8601 date.
+    """
     names = ("period", "t_periastron", "eccentricity", "omega")
     n = max(len(np.atleast_1d(quantities[k].value)) for k in names if k in quantities)
     p, t0, e, w = (np.broadcast_to(_value(quantities, k), (n,)) for k in names)
+    w_dot, p_dot = (None if _value(quantities, k) is None else np.broadcast_to(_value(quantities, k), (n,))
+                    for k in ("omega_dot", "period_derivative"))
     count = int(statics.get("count") or 3)
+    offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
-    cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
     k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
+    with np.errstate(all="ignore"):     # an infinite sigma or element gives a null date, not a warning
+        cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
+        amplitudes = {star: None if k is None else np.broadcast_to(phys.light_travel_amplitude(k, p, e), (n,))
+                      for star, k in (("star1", k1), ("star2", k2))}
+    chosen = statics.get("light_travel_time") or "none"
+    light = None if chosen == "none" or amplitudes.get(chosen) is None else (amplitudes[chosen], int(chosen[-1]))
 
     per_system: list[dict] = [{"events": {}} for _ in range(n)]
     kinds_all: dict[str, list] = {}
@@ -147,7 +179,7 @@ def ephemeris_events(quantities, statics, options) -> list[dict]:
         for list_name, kinds in EVENT_LISTS.items():
             parts = []
             for kind in kinds:
-                ev = phys.event_times(kind, p, t0, e, w, after, count)
+                ev = phys.event_times(kind, p, t0, e, w, after, count, w_dot, p_dot, light)
                 sigma = phys.event_sigma(ev, cov, EVENT_ELEMENTS)
                 parts.append((kind, ev, sigma))
             kinds_all[list_name] = parts
@@ -163,7 +195,7 @@ def ephemeris_events(quantities, statics, options) -> list[dict]:
             rows = []
             for kind, ev, sigma in parts:
                 fields = {"kind": np.full(count, kind, dtype=object)} if len(parts) > 1 else None
-                rows.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields))
+                rows.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields, offset))
             rows.sort(key=lambda r: r["value"])
             events[list_name] = rows
         # the lines of an SB2 are split most at the radial-velocity extrema: both are listed, with |v1 - v2|
@@ -172,10 +204,15 @@ def ephemeris_events(quantities, statics, options) -> list[dict]:
             fields = {"kind": np.full(count, kind, dtype=object)}
             if kind in separations:
                 fields["velocity_separation"] = [float(x) for x in separations[kind][i]]
-            mvs.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields))
+            mvs.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields, offset))
         mvs.sort(key=lambda r: r["value"])
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
+        events["time_format"] = time_format
+        events["light_travel_time"] = {
+            "applied": chosen if light is not None else "none",
+            **{f"amplitude_{star}": (float(a[i]) if a is not None and np.isfinite(a[i]) else None)
+               for star, a in amplitudes.items()}}
     return per_system
 
 
@@ -209,6 +246,22 @@ def _ephemeris_check(inputs, outputs):
     return out
 
 
+def _quadratic_ephemeris_defined(period=None, t_periastron=None, period_derivative=None, times=None, after=None,
+                                 count=None, **_):
+    """Where the period would shrink to zero before a time asked for, the quadratic ephemeris has no date."""
+    if period_derivative is None or period is None or t_periastron is None:
+        return np.asarray(True)
+    rate = phys.period_change_rate(period_derivative)
+    p, t0 = np.asarray(period, dtype=float), np.asarray(t_periastron, dtype=float)
+    ends = [np.min(times), np.max(times)] if times is not None and len(times) else []
+    if after is not None:
+        ends += [np.asarray(after, dtype=float), np.asarray(after, dtype=float) + (int(count or 3) + 1) * p]
+    ok = np.ones(np.shape(p), dtype=bool)
+    for t in ends:
+        ok &= 1.0 + 2.0 * rate * (t - t0) / p > 0.0
+    return ok
+
+
 def _ephemeris_consistent_masses(m1=None, m2=None, **_):
     return np.asarray((m1 is None) == (m2 is None))
 
@@ -230,9 +283,9 @@ register(Calculation(
         Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=243.6),
         Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
               example=2458712.3),
-        Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", POSITIVE, example=61.2),
-        Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", POSITIVE, required=False, example=142.8),
-        Input("gamma", "km/s", "systemic velocity", ANY, required=False, default=0.0, example=-7.4),
+        Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", SPEED, example=61.2),
+        Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", SPEED, required=False, example=142.8),
+        Input("gamma", "km/s", "systemic velocity", VELOCITY, required=False, default=0.0, example=-7.4),
         Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", ANY, kind="series",
               time=True, label="time", example=[2460400.5, 2460500.5, 2460600.5]),
         Input("angular_semimajor_axis", "mas", "angular semi-major axis of the relative visual orbit", POSITIVE,
@@ -250,16 +303,27 @@ register(Calculation(
               required=False, time=True, example=2460400.5),
         Input("count", "", "how many events of each kind to list", Domain(1, MAX_EVENT_COUNT), default=3,
               kind="integer", example=3),
+        Input("omega_dot", "deg/yr", "apsidal motion: rate of advance of omega (omega is its value at t_periastron; "
+              "period is then the anomalistic period)", ANY, required=False, example=0.8),
+        Input("period_derivative", "s/yr", "rate of change of the period dP/dt (quadratic ephemeris; any "
+              "time-per-time unit)", ANY, required=False, example=0.0),
+        Input("light_travel_time", "", "correct the event dates for the light-travel time across the orbit (the "
+              "a sin i / c term of the Roemer delay) as seen in the light of star1 or star2 (star2 needs k2), or "
+              "none", kind="choice", choices=LIGHT_TRAVEL_CHOICES, required=False, default="none",
+              example="none"),
     ),
     outputs=(
-        Output("phase", "", "orbital phase since periastron", "phi = (t - T0)/P mod 1", period=1.0),
-        Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi (t - T0)/P", period=360.0),
+        Output("phase", "", "orbital phase since periastron", "phi = n(t) mod 1, n(t) = (t - T0)/P without "
+               "a period derivative", period=1.0),
+        Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi n(t), t = T0 + P (n + Pdot n^2 / 2)", period=360.0),
         Output("true_anomaly", "deg", "true anomaly", "tan(nu/2) = sqrt((1 + e)/(1 - e)) tan(E/2), "
                "E - e sin E = M", period=360.0),
         Output("separation", "", "separation of the stars in units of the semi-major axis",
                "r/a = 1 - e cos E = (1 - e^2)/(1 + e cos nu)"),
-        Output("rv1", "km/s", "radial velocity of star 1", "v1 = gamma + K1 [cos(nu + omega) + e cos omega]"),
-        Output("rv2", "km/s", "radial velocity of star 2", "v2 = gamma - K2 [cos(nu + omega) + e cos omega]"),
+        Output("rv1", "km/s", "radial velocity of star 1", "v1 = gamma + K1 [cos(nu + omega) + e cos omega], "
+               "omega = omega0 + omega_dot (t - T0)"),
+        Output("rv2", "km/s", "radial velocity of star 2", "v2 = gamma - K2 [cos(nu + omega) + e cos omega], "
+               "omega = omega0 + omega_dot (t - T0)"),
         Output("separation_au", "au", "separation of the stars",
                "r = a (1 - e cos E), a given or a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
         Output("projected_separation", "mas", "angular separation of the stars on the sky",
@@ -277,9 +341,15 @@ register(Calculation(
                    _ephemeris_consistent_masses),
         Constraint(("inclination",), "angular_semimajor_axis and node need an inclination",
                    _ephemeris_visual_needs_inclination),
+        Constraint(("period_derivative",), "with this period derivative the period reaches zero before some of the "
+                   "times (or event dates) asked for: the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2) has no "
+                   "date there", _quadratic_ephemeris_defined),
+        Constraint(("k2",), "light_travel_time star2 needs k2 (its a sin i comes from k2)",
+                   lambda k2=None, light_travel_time=None, **_: np.asarray(light_travel_time != "star2"
+                                                                           or k2 is not None)),
     ),
     at_most_one=(("semimajor_axis", "m1"), ("semimajor_axis", "m2")),
-    check=_ephemeris_check,
+    check=with_speed_check(_ephemeris_check, ("k1", "k2")),
     extra=ephemeris_events,
     example={"period": {"value": 2037.4, "sigma": 1.2}, "eccentricity": {"value": 0.873, "sigma": 0.004},
              "omega": {"value": 243.6, "sigma": 1.5}, "t_periastron": {"value": 2458712.3, "sigma": 0.8},
@@ -379,4 +449,145 @@ register(Calculation(
     example={"period": {"value": 118.3, "sigma": 0.2}, "eccentricity": {"value": 0.62, "sigma": 0.02},
              "m1": {"value": 8.4, "sigma": 0.5}, "m2": {"value": 5.1, "sigma": 0.3},
              "radius1": {"value": 4.3, "sigma": 0.3}, "radius2": {"value": 2.9, "sigma": 0.2}},
+))
+
+
+# --------------------------------------------------------------------------- mid-eclipse
+MID_ECLIPSE_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "inclination", "omega_dot",
+                        "period_derivative")
+
+
+def mid_eclipse_events(quantities, statics, options, time_format="jd") -> list[dict]:
+    """The ``events`` member per system: dates of mid-eclipse of each star after ``after``, with linear sigmas.
+
+    t = T0 + P (c + Pdot c^2 / 2), c = n + phi with phi the mid-eclipse phase at omega(t); sigma^2 = J C J^T
+    over the elements (:func:`calcservice.physics.orbit.mid_eclipse_dates`).
+    """
+    n = max(len(np.atleast_1d(quantities[k].value)) for k in MID_ECLIPSE_ELEMENTS if k in quantities)
+    t0, p, e, w, i = (np.broadcast_to(_value(quantities, k), (n,)) for k in MID_ECLIPSE_ELEMENTS[:5])
+    w_dot, p_dot = (None if _value(quantities, k) is None else np.broadcast_to(_value(quantities, k), (n,))
+                    for k in ("omega_dot", "period_derivative"))
+    count = int(statics.get("count") or 3)
+    offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
+    after = _after(quantities, statics, n)
+    per_system: list[dict] = [{"events": {}} for _ in range(n)]
+    with np.errstate(all="ignore"):
+        cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, MID_ECLIPSE_ELEMENTS)
+        for star in (1, 2):
+            ev = phys.mid_eclipse_dates(star, p, t0, e, w, i, after, count, w_dot, p_dot)
+            sigma = phys.event_sigma(ev, cov, MID_ECLIPSE_ELEMENTS)
+            for k in range(n):
+                per_system[k]["events"][f"eclipse_of_star{star}"] = _event_entries(ev["time"][k], sigma[k],
+                                                                                   ev["cycle"][k], None, offset)
+        sizes = {name: _value(quantities, name) for name in ("semimajor_axis", "total_mass", "radius1", "radius2")}
+        if sizes["radius1"] is not None and sizes["radius2"] is not None:
+            geometry = phys.mid_eclipse(p, e, w, i, **sizes)
+            for star in (1, 2):
+                overlap = np.broadcast_to(geometry.get(f"eclipse_parameter{star}", np.nan), (n,))
+                for k in range(n):
+                    per_system[k].setdefault("eclipse_possible", {})[f"star{star}"] = (
+                        bool(overlap[k] < 1.0) if np.isfinite(overlap[k]) else None)
+    for k in range(n):
+        per_system[k]["events"]["unit"] = "d"
+        per_system[k]["events"]["time_format"] = time_format
+    return per_system
+
+
+def _mid_eclipse_check(inputs, outputs):
+    out = []
+    for star in ("1", "2"):
+        ratio = outputs.get(f"eclipse_parameter{star}")
+        if ratio is not None and np.any(ratio >= 1.0):
+            out.append(Warning(f"no_eclipse_of_star{star}", f"at their closest on the sky near this conjunction the "
+                               f"discs of the stars do not overlap (minimum_separation{star} >= radius1 + radius2): "
+                               f"star {star} is not eclipsed; the dates are those of closest approach",
+                               ratio >= 1.0))
+    return out
+
+
+def _mid_eclipse_radii_need_size(semimajor_axis=None, total_mass=None, radius1=None, radius2=None, **_):
+    return np.asarray((radius1 is None and radius2 is None)
+                      or (radius1 is not None and radius2 is not None
+                          and (semimajor_axis is not None or total_mass is not None)))
+
+
+register(Calculation(
+    name="mid-eclipse",
+    path="/v1/orbit/mid-eclipse",
+    title="Mid-eclipse times of an eccentric, inclined orbit",
+    summary="The times of minimum projected separation near each conjunction (mid-eclipse, which differs from the "
+            "conjunction when e > 0 and i < 90 deg), with propagated uncertainties, their offsets from the "
+            "conjunctions, the separation on the sky at minimum and, with both radii, whether the discs overlap.",
+    inputs=(
+        period(example=9.73),
+        eccentricity(example=0.28),
+        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=61.0),
+        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
+              example=2460811.42),
+        Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, example=84.6),
+        Input("after", "d", "list mid-eclipses at or after this time (JD, or ISO 8601)", ANY, time=True,
+              example=2461000.5),
+        Input("count", "", "how many mid-eclipses of each star to list", Domain(1, MAX_EVENT_COUNT), default=3,
+              kind="integer", example=3),
+        Input("semimajor_axis", "au", "relative semi-major axis (for the separation in solar radii; or give "
+              "total_mass)", POSITIVE, required=False, example=0.118),
+        Input("total_mass", "solMass", "M1 + M2 (for the semi-major axis by Kepler's third law; or give "
+              "semimajor_axis)", POSITIVE, required=False, example=3.9),
+        Input("radius1", "solRad", "radius of star 1 (with radius2, to tell whether the discs overlap)", POSITIVE,
+              required=False, example=2.1),
+        Input("radius2", "solRad", "radius of star 2 (with radius1)", POSITIVE, required=False, example=1.6),
+        Input("omega_dot", "deg/yr", "apsidal motion: rate of advance of omega (omega is its value at t_periastron; "
+              "period is then the anomalistic period)", ANY, required=False, example=0.8),
+        Input("period_derivative", "s/yr", "rate of change of the period dP/dt (quadratic ephemeris; any "
+              "time-per-time unit)", ANY, required=False, example=0.0),
+    ),
+    outputs=(
+        *(o for star, whom in (("1", "star 1 eclipsed, star 2 in front"), ("2", "star 2 eclipsed, star 1 in front"))
+          for o in (
+              Output(f"mid_eclipse_phase{star}", "", f"phase after periastron of mid-eclipse ({whom})",
+                     "phi = M(nu_min) / 2 pi, nu_min: d rho^2/d nu = 0 next to nu + omega = "
+                     + ("90" if star == "1" else "270") + " deg", period=1.0),
+              Output(f"conjunction_offset{star}", "d", f"mid-eclipse minus conjunction ({whom})",
+                     "(M(nu_min) - M(nu_conj)) P / 2 pi"),
+              Output(f"minimum_separation{star}_over_a", "", f"projected separation at mid-eclipse over a ({whom})",
+                     "rho/a = (1 - e^2)/(1 + e cos nu) sqrt(1 - sin^2 i sin^2(nu + omega))"),
+              Output(f"minimum_separation{star}", "solRad", f"projected separation at mid-eclipse ({whom})",
+                     "rho = a (rho/a)"),
+              Output(f"eclipse_parameter{star}", "", f"minimum projected separation over R1 + R2 ({whom}): the discs "
+                     "overlap, an eclipse happens, where it is below 1", "rho_min / (R1 + R2)"),
+          )),
+        Output("semimajor_axis", "au", "relative semi-major axis (as given, or from Kepler's third law)",
+               "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+    ),
+    function=phys.mid_eclipse,
+    references=(HILDITCH_2001, HEINTZ_1978, MURRAY_DERMOTT_1999, MIKKOLA_1987, ASTROPY_TIME, IAU_2015_B3,
+                IAU_2012_B2),
+    constants=("GM_sun", "au", "R_sun", "day"),
+    conventions={**ORBIT_CONVENTIONS,
+                 "mid_eclipse": "the time of minimum projected separation of the two centres near a conjunction "
+                                "(spherical stars, no light-travel time); eclipse_of_star1 is the conjunction with "
+                                "star 2 in front (nu + omega = 90 deg), eclipse_of_star2 the other; which one is the "
+                                "deeper (primary) eclipse depends on the surface brightnesses",
+                 "events": "the first `count` mid-eclipses of each star at or after `after`, with the linear sigma "
+                           "of t_periastron, period (with their correlation), eccentricity, omega, inclination, "
+                           "omega_dot and period_derivative "
+                           "through the cycles elapsed since t_periastron; dates in the request's time_format (the "
+                           "events' time_format member), each with its ISO 8601 date",
+                 "eclipse_possible": "given with both radii: true where the discs overlap at the minimum separation",
+                 "apsidal_motion": ORBIT_CONVENTIONS["apsidal_motion"] + "; the phases, offsets and separations "
+                                   "are those at t_periastron, the event dates follow omega(t)",
+                 "period_derivative": ORBIT_CONVENTIONS["period_derivative"]},
+    constraints=(Constraint(("radius1", "radius2"), "whether the discs overlap needs both radii and the orbit's size "
+                            "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),
+                 Constraint(("period_derivative",), "with this period derivative the period reaches zero before the "
+                            "mid-eclipses asked for: the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2) has no "
+                            "date there", _quadratic_ephemeris_defined)),
+    at_most_one=(("semimajor_axis", "total_mass"),),
+    check=_mid_eclipse_check,
+    extra=mid_eclipse_events,
+    example={"period": {"value": 9.73, "sigma": 0.0004}, "eccentricity": {"value": 0.28, "sigma": 0.01},
+             "omega": {"value": 61.0, "sigma": 2.0}, "t_periastron": {"value": 2460811.42, "sigma": 0.05},
+             "inclination": {"value": 84.6, "sigma": 0.4}, "after": 2461000.5, "count": 3,
+             "total_mass": {"value": 3.9, "sigma": 0.2}, "radius1": {"value": 2.1, "sigma": 0.1},
+             "radius2": {"value": 1.6, "sigma": 0.1}},
 ))

@@ -4,7 +4,8 @@ import numpy as np
 
 from ..physics import spectroscopic as phys
 from ..registry import POSITIVE, Calculation, Input, Output, Warning, register
-from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, inclination, period, semi_amplitude
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, inclination, period,
+                     semi_amplitude, with_speed_check)
 
 
 def _sb1_check(inputs, outputs):
@@ -60,7 +61,7 @@ register(Calculation(
     references=(HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day"),
     conventions=CONVENTIONS,
-    check=_sb1_check,
+    check=with_speed_check(_sb1_check, ("k1",)),
     example={"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma": 0.3},
              "eccentricity": {"value": 0.31, "sigma": 0.01}, "primary_mass": {"value": 1.9, "sigma": 0.1},
              "inclination": {"value": 71.0, "sigma": 2.0}},
@@ -99,7 +100,7 @@ register(Calculation(
     references=(HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day"),
     conventions=CONVENTIONS,
-    check=_sb2_check,
+    check=with_speed_check(_sb2_check, ("k1", "k2")),
     example={"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 38.2, "sigma": 0.4},
              "k2": {"value": 51.7, "sigma": 0.6}, "eccentricity": {"value": 0.31, "sigma": 0.01},
              "inclination": {"value": 71.0, "sigma": 2.0}},

@@ -4,7 +4,7 @@ import numpy as np
 
 from ..physics import winds as phys
 from ..registry import ANY, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, with_speed_check
 
 EICHLER_USOV_1993 = "D. Eichler & V. Usov (1993), ApJ 402, 271 (shock-cone opening angle)"
 CANTO_RAGA_WILKIN_1996 = "J. Cantó, A. C. Raga & F. P. Wilkin (1996), ApJ 469, 729 (thin-shell colliding winds)"
@@ -15,6 +15,8 @@ LEITHERER_ROBERT_1991 = "C. Leitherer & C. Robert (1991), ApJ 377, 629 (radio Ga
 VINK_2001 = "J. S. Vink, A. de Koter & H. J. G. L. M. Lamers (2001), A&A 369, 574 (O/B-star mass-loss recipe)"
 NUGIS_LAMERS_2000 = "T. Nugis & H. J. G. L. M. Lamers (2000), A&A 360, 227 (Wolf-Rayet mass-loss rates)"
 HUANG_1963 = "S.-S. Huang (1963), ApJ 138, 471 (modes of mass ejection and the orbital period)"
+RYBICKI_LIGHTMAN_1979 = ("G. B. Rybicki & A. P. Lightman (1979), Radiative Processes in Astrophysics, Wiley, "
+                         "eq. 5.19b (Rayleigh-Jeans free-free absorption coefficient)")
 JEANS_1924 = "J. H. Jeans (1924), MNRAS 85, 2 (secular change of an orbit losing mass)"
 
 POSITIVE_BELOW_ONE = Domain(0.0, 1.0, low_open=True)
@@ -164,7 +166,7 @@ def _mdot(name, star, example, required=True, extra=""):
 
 
 def _vinf(name, star, example):
-    return Input(name, "km/s", f"terminal wind speed of star {star}", POSITIVE, example=example)
+    return Input(name, "km/s", f"terminal wind speed of star {star}", SPEED, example=example)
 
 
 register(Calculation(
@@ -213,7 +215,7 @@ register(Calculation(
     # "exactly one of separation, eccentricity" is a constraint so that a phase given alone is named too
     at_most_one=(("separation", "eccentricity"), ("phase", "true_anomaly"), ("semimajor_axis", "period"), ("semimajor_axis", "m1"),
                  ("semimajor_axis", "m2")),
-    check=_collision_check,
+    check=with_speed_check(_collision_check, ("vinf1", "vinf2")),
     example={"mdot1": {"value": 2.4e-5, "sigma": 0.6e-5}, "mdot2": {"value": 1.1e-6, "sigma": 0.4e-6},
              "vinf1": {"value": 2300.0, "sigma": 100.0}, "vinf2": {"value": 1900.0, "sigma": 150.0},
              "eccentricity": {"value": 0.64, "sigma": 0.02}, "period": {"value": 2950.0, "sigma": 15.0},
@@ -230,6 +232,15 @@ def _radio_check(inputs, outputs):
                    "synchrotron emission from the wind-collision region, which makes this rate an upper limit; a "
                    "thermal wind has a spectral index near +0.6 (S ~ nu^0.6) and a steady flux",
                    np.ones(n, dtype=bool))]
+    ratio = outputs.get("radio_photosphere_stellar_radii")
+    if ratio is not None:
+        close = ratio < phys.RADIO_PHOTOSPHERE_MIN_STELLAR_RADII
+        if np.any(close):
+            out.append(Warning("radio_photosphere_in_accelerating_wind", "the radio photosphere lies within "
+                               f"{phys.RADIO_PHOTOSPHERE_MIN_STELLAR_RADII:g} stellar radii, where the wind has not "
+                               "reached its terminal speed (a beta = 1 law is below 90 % of v_inf there): Wright & "
+                               "Barlow (1975) assume a constant speed, so the rate is biased (common practice: "
+                               "observe at a lower frequency)", close))
     g = outputs.get("gaunt_factor")
     if g is not None:
         bad = (g < 1.0) | (inputs["frequency"] > 1000.0)
@@ -251,7 +262,7 @@ register(Calculation(
         Input("flux_density", "mJy", "observed flux density", POSITIVE, example=1.8),
         Input("frequency", "GHz", "observing frequency", POSITIVE, example=8.4),
         Input("distance", "kpc", "distance", POSITIVE, example=2.1),
-        Input("vinf", "km/s", "terminal wind speed", POSITIVE, example=1700.0),
+        Input("vinf", "km/s", "terminal wind speed", SPEED, example=1700.0),
         Input("wind_type", "", "composition whose defaults fill mu, z_rms, gamma_e and temperature when not given: "
               "o-star (H and He, n(He)/n(H) = 0.1, H+ He+, mu 1.28, Z 1, gamma 1, T 2e4 K), wn (He+, mu 4.00, "
               "Z 1, gamma 1, T 1e4 K), wc (He+ and C2+ with n(C)/n(He) = 0.2, mu 5.34, Z 1.22, gamma 1.17, "
@@ -266,6 +277,8 @@ register(Calculation(
               POSITIVE, required=False, example=1.0e4),
         Input("clumping", "", "volume filling factor f of a clumped wind (1 = smooth); the rate scales as f^{1/2}",
               POSITIVE_BELOW_ONE, required=False, default=1.0, example=0.25),
+        Input("stellar_radius", "solRad", "radius of the star (to give the radio photosphere in stellar radii and "
+              "warn when it lies in the accelerating wind)", POSITIVE, required=False, example=8.5),
     ),
     outputs=(
         Output("mass_loss_rate", "solMass/yr", "mass-loss rate",
@@ -273,20 +286,31 @@ register(Calculation(
                "(v km/s, S Jy, D kpc, nu Hz)"),
         Output("gaunt_factor", "", "free-free Gaunt factor at the observing frequency",
                "g = 9.77 (1 + 0.13 log10(T^{3/2} / (Z nu)))"),
+        Output("radio_photosphere_radius", "solRad", "radius of the radio photosphere: the impact parameter at "
+               "which the line-of-sight free-free optical depth of the smooth wind is 1",
+               "R(tau = 1) = (pi C / 2)^{1/3}, C = 0.018 T^{-3/2} Z^2 gamma g nu^{-2} (Mdot / (4 pi v mu m_H))^2 "
+               "(cgs, Mdot the smooth-wind rate)"),
+        Output("radio_photosphere_stellar_radii", "", "radius of the radio photosphere in stellar radii",
+               "R(tau = 1) / R_star"),
     ),
     function=phys.radio_mass_loss,
-    references=(WRIGHT_BARLOW_1975, PANAGIA_FELLI_1975, LEITHERER_ROBERT_1991),
+    references=(WRIGHT_BARLOW_1975, PANAGIA_FELLI_1975, LEITHERER_ROBERT_1991, RYBICKI_LIGHTMAN_1979),
+    constants=("M_sun", "m_H", "R_sun", "julian_year"),
     conventions={"mass_loss_rate": WIND_CONVENTIONS["mass_loss_rate"],
                  "wind": "spherical, isothermal, fully ionised wind at constant speed (the radio photosphere lies "
                          "far out, where the wind has reached v_inf); an unresolved source",
+                 "radio_photosphere": "the impact parameter where the line-of-sight free-free optical depth of "
+                                      "the smooth wind is 1; with stellar_radius a warning when it lies within 10 "
+                                      "stellar radii (a beta = 1 law has not reached 90 % of v_inf there; common "
+                                      "practice)",
                  "clumping": "volume filling factor f: clumps f^-1 times denser than the mean, empty between; a "
                              "density-squared diagnostic then overestimates the smooth-wind rate by f^-1/2",
                  "defaults": "wind_type defaults derive mu, Z and gamma from the stated composition "
                              "(mu = sum n_i A_i / sum n_i, Z^2 = sum n_i Z_i^2 / sum n_i, "
                              "gamma = sum n_i Z_i / sum n_i); compositions and temperatures are common practice"},
-    check=_radio_check,
+    check=with_speed_check(_radio_check, ("vinf",)),
     example={"flux_density": {"value": 1.8, "sigma": 0.1}, "frequency": 8.4, "distance": {"value": 2.1, "sigma": 0.3},
-             "vinf": {"value": 1700.0, "sigma": 100.0}, "wind_type": "wn"},
+             "vinf": {"value": 1700.0, "sigma": 100.0}, "wind_type": "wn", "stellar_radius": 8.5},
 ))
 
 
@@ -407,7 +431,7 @@ register(Calculation(
     | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle always gives "
                          "eta <= 1, the cone wrapping star 2"},
     exclusive=(("momentum_ratio", "opening_half_angle"), ("mdot1", "mdot2")),
-    check=_momentum_check,
+    check=with_speed_check(_momentum_check, ("vinf1", "vinf2")),
     example={"opening_half_angle": {"value": 38.0, "sigma": 4.0}, "opening_angle_formula": "crw96",
              "mdot1": {"value": 2.0e-5, "sigma": 0.5e-5}, "vinf1": {"value": 2500.0, "sigma": 150.0},
              "vinf2": {"value": 1500.0, "sigma": 200.0}},
@@ -453,6 +477,12 @@ _RECIPE_CONSTRAINTS = (
       for owner, names in _ONLY.items() for name in names),
     *(_needs(name, _recipe_missing(name, owner), f"is required by {owner}")
       for owner, names in _NEEDS.items() for name in names),
+    Constraint(("luminosity", "mass"), "the star is at or above its Eddington limit (Gamma_e = sigma_e L / "
+               "(4 pi c G M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists there",
+               lambda **kw:
+               _rows(True) if _chosen_recipe(kw) != "vink-2001" or not (_given(kw.get("luminosity"))
+                                                                      and _given(kw.get("mass")))
+               else ~(phys.eddington_factor(kw["luminosity"], kw["mass"]) >= 1.0)),
     Constraint(("helium_fraction", "metal_fraction"), "helium_fraction + metal_fraction must not exceed 1",
                lambda helium_fraction=None, metal_fraction=None, **_:
                _rows(True) if not (_given(helium_fraction) and _given(metal_fraction))
@@ -472,8 +502,15 @@ def _recipe_check(inputs, outputs):
         teff = inputs["teff"]
         z = inputs.get("metallicity")
         z = np.ones_like(teff) if z is None else z
+        hot = teff >= phys.vink_jump_temperature(lum, inputs["mass"], z)
+        for fit, low, high, which in ((hot, *phys.VINK_HOT_RANGE, "hot-side fit (their eq. 24)"),
+                                      (~hot, *phys.VINK_COOL_RANGE, "cool-side fit (their eq. 25)")):
+            bad = fit & _out_of(teff, low, high)
+            if np.any(bad):
+                out.append(Warning("vink_fit_out_of_range", f"teff is outside {low / 1e3:g}-{high / 1e3:g} kK, the "
+                                   f"range of the Vink et al. (2001) {which} used at this temperature: the rate is "
+                                   "extrapolated", bad))
         for bad, message in (
-            (_out_of(teff, 12.5e3, 50.0e3), "teff is outside 12.5-50 kK, the range of the Vink et al. (2001) fits"),
             (_out_of(z, 1.0 / 30.0, 3.0), "metallicity is outside 1/30-3 Z_sun, the range of the Vink et al. (2001) "
                                           "models"),
             (_out_of(lum, 10**4.5, 10**6.25), "luminosity is outside log L/L_sun = 4.5-6.25, about the range of the "
@@ -552,7 +589,7 @@ register(Calculation(
     inputs=(
         Input("period", "d", "orbital period (one shell per orbit)", POSITIVE, example=2950.0),
         Input("shell_spacing", "mas", "angular spacing of successive shells on the sky", POSITIVE, example=410.0),
-        Input("expansion_speed", "km/s", "expansion speed of the shells (give this, distance or parallax)", POSITIVE,
+        Input("expansion_speed", "km/s", "expansion speed of the shells (give this, distance or parallax)", SPEED,
               required=False, example=1100.0),
         Input("distance", "pc", "distance (give this, expansion_speed or parallax)", POSITIVE, required=False,
               example=2200.0),
@@ -573,6 +610,68 @@ register(Calculation(
                            "changes the result)",
                  "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)"},
     exclusive=(("expansion_speed", "distance", "parallax"),),
+    check=with_speed_check(None, ("expansion_speed",)),
     example={"period": {"value": 2950.0, "sigma": 15.0}, "shell_spacing": {"value": 410.0, "sigma": 12.0},
              "expansion_speed": {"value": 1100.0, "sigma": 60.0}},
+))
+
+
+# ----------------------------------------------------------------------- shell forecast
+
+def _whole_shells(shells=None, **_):
+    return _rows(shells is None or bool(np.all(np.asarray(shells) == np.round(shells))))
+
+
+def _shells_formed(shells=None, period=None, formation_epoch=None, observation_date=None, **_):
+    if shells is None or period is None or formation_epoch is None or observation_date is None:
+        return _rows(True)
+    last = np.max(shells)
+    return np.asarray(observation_date) >= np.asarray(formation_epoch) + last * np.asarray(period)
+
+
+register(Calculation(
+    name="shell-forecast",
+    path="/v1/winds/shell-forecast",
+    title="Where periodic dust shells will be: angular radii at a date",
+    summary="The angular radius of each dust shell made once per orbit at an observation date, from the formation "
+            "period, the date of one formation event, the expansion speed and the distance or parallax (the "
+            "inverse of the expansion parallax of shell-distance).",
+    inputs=(
+        Input("period", "d", "formation period: one shell per orbit", POSITIVE, example=3120.0),
+        Input("formation_epoch", "d", "date of one shell-formation event, shell 0 (JD, or ISO 8601)", ANY, time=True,
+              example=2457310.0),
+        Input("expansion_speed", "km/s", "expansion speed of the shells", SPEED, example=980.0),
+        Input("distance", "pc", "distance (give this or parallax)", POSITIVE, required=False, example=1850.0),
+        Input("parallax", "mas", "parallax (give this or distance)", POSITIVE, required=False, example=0.54),
+        Input("observation_date", "d", "date of the planned observation (JD, or ISO 8601)", ANY, time=True,
+              example=2461400.5),
+        Input("shells", "", "shell numbers n: shell n forms at formation_epoch + n period (0 the given event, -1 the "
+              "one before, 1 the next); each must have formed by observation_date", ANY, kind="series",
+              label="shell", example=[-3, -2, -1, 0, 1]),
+    ),
+    outputs=(
+        Output("angular_radius", "mas", "angular radius of the shell at observation_date",
+               "theta = v (t_obs - t_n) / D; theta (arcsec) = v (km/s) age (yr) / (4.74047 D (pc))"),
+        Output("radius", "au", "linear radius of the shell at observation_date", "R = v (t_obs - t_n)"),
+        Output("age", "yr", "time since the shell formed", "t_obs - (formation_epoch + n P)"),
+    ),
+    function=phys.shell_forecast,
+    references=(IAU_2012_B2,),
+    constants=("au", "julian_year", "au_per_julian_year", "pc"),
+    conventions={"shells": "one shell per orbit, formed at formation_epoch + n period and expanding at constant "
+                           "speed from the star; the edge of a spherical shell moves across the sky at the full "
+                           "expansion speed (for a cone or spiral the projection changes the result)",
+                 "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)",
+                 "time": "Julian Dates (days) unless another format is given; ages in Julian years"},
+    exclusive=(("distance", "parallax"),),
+    constraints=(
+        Constraint(("shells",), "shell numbers are whole numbers", _whole_shells),
+        Constraint(("shells",), "every listed shell must have formed by observation_date (shell n forms at "
+                   "formation_epoch + n period)", _shells_formed),
+    ),
+    check=with_speed_check(None, ("expansion_speed",)),
+    example={"period": {"value": 3120.0, "sigma": 20.0}, "formation_epoch": {"value": 2457310.0, "sigma": 15.0},
+             "expansion_speed": {"value": 980.0, "sigma": 50.0}, "distance": {"value": 1850.0, "sigma": 120.0},
+             "observation_date": 2461400.5, "shells": [-3, -2, -1, 0, 1],
+             "correlations": [{"between": ["period", "formation_epoch"], "rho": -0.3}]},
 ))

@@ -705,7 +705,8 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
     for g in ok:
         rows = g.rows
         if calc.extra is not None:
-            per_system = calc.extra(g.parsed.quantities, g.parsed.statics, g.parsed.options) or []
+            per_system = calc.extra(g.parsed.quantities, g.parsed.statics, g.parsed.options,
+                                    time_format=g.parsed.time_format) or []
             for k, i in enumerate(rows.tolist()):
                 if i not in done.problems and k < len(per_system):
                     for key, v in per_system[k].items():

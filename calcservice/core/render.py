@@ -140,7 +140,8 @@ class Rendering:
         # every system's results at once: one zip per system rather than a loop over the outputs
         self.scalars = [dict(zip([name for name, _ in scalars], row))
                         for row in zip(*[entries for _, entries in scalars])] if scalars else [{} for _ in range(self.n)]
-        self.extras = calc.extra(parsed.quantities, parsed.statics, parsed.options) if calc.extra else None
+        self.extras = (calc.extra(parsed.quantities, parsed.statics, parsed.options, time_format=parsed.time_format)
+                       if calc.extra else None)
         self.series = {calc.input(name).label or name: {"value": clean_array(parsed.times.get(name, values)),
                                                         "unit": calc.input(name).unit}
                        for name, values in parsed.series.items()}

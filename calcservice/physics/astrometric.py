@@ -119,10 +119,14 @@ def campbell_elements(A, B, F, G):
     difference = np.arctan2(-B - F, A - G)
     omega = np.degrees(0.5 * (total + difference))
     node = np.degrees(0.5 * (total - difference))
-    # the 180-deg ambiguity: move node into [0, 180) and omega with it
+    # the 180-deg ambiguity: move node into [0, 180) and omega with it.  A node a rounding error
+    # below 0 comes out of the first step as exactly 180.0: that is node 0 with omega turned back,
+    # never 180.0 (a caller reducing node mod 180 would then turn the orbit by 180 deg on the sky).
     turns = np.floor(node / 180.0)
     node = node - 180.0 * turns
-    omega = (omega - 180.0 * turns) % 360.0
+    over = node >= 180.0
+    node = np.where(over, node - 180.0, node)
+    omega = (omega - 180.0 * (turns + over)) % 360.0
     finite = np.isfinite(a)
     return (a, np.where(finite, inclination, np.nan), np.where(finite, omega, np.nan),
             np.where(finite, node, np.nan))

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..constants import AU, GM_SUN, R_SUN, TWO_PI
+from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, R_SUN, TWO_PI
 from . import kepler
 from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
@@ -28,6 +28,59 @@ AU_IN_SOLAR_RADII = AU / R_SUN
 def orbital_phase(time, period, t_periastron):
     """Orbital phase (t - T0)/P mod 1, zero at periastron passage."""
     return np.mod((np.asarray(time, dtype=float) - t_periastron) / period, 1.0)
+
+
+def period_change_rate(period_derivative):
+    """dP/dt as a pure number (days per day) from dP/dt in s/yr (the unit of the period-change calculation)."""
+    return 0.0 if period_derivative is None else np.asarray(period_derivative, dtype=float) / JULIAN_YEAR
+
+
+def elapsed_cycles(time, period, t_periastron, period_derivative=None):
+    """Anomalistic cycles n elapsed since T0 in the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2).
+
+    The period of cycle n is P (1 + Pdot n) to first order, so periastron n falls at
+    T_n = T0 + n P + n^2 P Pdot / 2 (the quadratic ephemeris of eclipse timing; e.g. Hilditch 2001,
+    ch. 4 on O - C diagrams), Pdot dimensionless (days per day; from s/yr).  Inverted as
+    n = 2 x / (1 + sqrt(1 + 2 Pdot x)), x = (t - T0)/P, which is x itself when Pdot = 0.
+    """
+    x = (np.asarray(time, dtype=float) - t_periastron) / period
+    rate = period_change_rate(period_derivative)
+    return 2.0 * x / (1.0 + np.sqrt(1.0 + 2.0 * rate * x))
+
+
+def cycle_time(cycles, period, t_periastron, period_derivative=None):
+    """The date of ``cycles`` anomalistic cycles after T0: T0 + P (n + Pdot n^2 / 2) (quadratic ephemeris)."""
+    rate = period_change_rate(period_derivative)
+    return t_periastron + period * (cycles + 0.5 * rate * cycles * cycles)
+
+
+def omega_at(time, omega, t_periastron, omega_dot=None):
+    """Argument of periastron (deg) at ``time`` with apsidal motion: omega + omega_dot (t - T0), omega_dot in deg/yr.
+
+    omega is its value at T0; the year is the Julian year (365.25 d).  Without omega_dot, omega itself.
+    """
+    if omega_dot is None:
+        return omega
+    return omega + omega_dot * (np.asarray(time, dtype=float) - t_periastron) / DAYS_PER_JULIAN_YEAR
+
+
+def light_travel_amplitude(k, period, eccentricity):
+    """a sin i / c in days of a star's orbit about the centre of mass: K P sqrt(1 - e^2) / (2 pi c).
+
+    From a sin i = K P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, eq. 2.50), K in km/s, P in days.
+    """
+    return k * period * np.sqrt(1.0 - eccentricity * eccentricity) / (TWO_PI * C_LIGHT_KM_S)
+
+
+def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
+    """Roemer delay (days) of a star's light: z / c = (a sin i / c) (1 - e^2) sin(nu + omega) / (1 + e cos nu).
+
+    z = r sin(nu + omega) sin i is the star's distance behind the centre of mass along the line of sight
+    (positive receding, the sign of the radial velocity, whose time derivative it is; Hilditch 2001,
+    ch. 2), so an event seen in that star's light is observed z / c after the centre of mass would show it.
+    """
+    return amplitude * (1.0 - eccentricity * eccentricity) * np.sin(true_anomaly_rad + omega_rad) / (
+        1.0 + eccentricity * np.cos(true_anomaly_rad))
 
 
 def radial_velocities(true_anomaly_rad, eccentricity, omega_rad, k1, k2=None, gamma=0.0):
@@ -62,23 +115,25 @@ def sky_position(true_anomaly_rad, separation_over_a, omega_rad, inclination_rad
 
 def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gamma=None,
               angular_semimajor_axis=None, inclination=None, node=None, m1=None, m2=None,
-              semimajor_axis=None, **_):
+              semimajor_axis=None, omega_dot=None, period_derivative=None, **_):
     """Series of orbital quantities at ``times`` (JD): phase, anomalies, separation, radial velocities.
 
-    M = 2 pi (t - T0)/P; E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial
-    velocities as in :func:`radial_velocities`; with a (given, or from Kepler's third law and
-    m1 + m2) the separation in au; with the visual elements the projected separation and
-    position angle (:func:`sky_position`).
+    M = 2 pi n(t), n the cycles since T0 (:func:`elapsed_cycles`: (t - T0)/P without a period
+    derivative); E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial velocities as in
+    :func:`radial_velocities` with omega(t) (:func:`omega_at`, apsidal motion); with a (given, or
+    from Kepler's third law and m1 + m2) the separation in au; with the visual elements the
+    projected separation and position angle (:func:`sky_position`).
     """
     e = eccentricity
-    omega_rad = np.radians(omega)
-    mean = kepler.mean_anomaly(times, period, t_periastron)
+    omega_rad = np.radians(omega_at(times, omega, t_periastron, omega_dot))
+    cycles = elapsed_cycles(times, period, t_periastron, period_derivative)
+    mean = TWO_PI * cycles
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
     r_over_a = kepler.separation_from_eccentric(ecc, e)
     v1, v2 = radial_velocities(nu, e, omega_rad, k1, k2, 0.0 if gamma is None else gamma)
     out = {
-        "phase": orbital_phase(times, period, t_periastron),
+        "phase": np.mod(cycles, 1.0),
         "mean_anomaly": np.mod(np.degrees(mean), 360.0),
         "true_anomaly": np.mod(np.degrees(nu), 360.0),
         "separation": r_over_a,
@@ -144,34 +199,102 @@ def event_phase(kind, eccentricity, omega_deg):
     return phase, d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI
 
 
-def event_times(kind, period, t_periastron, eccentricity, omega, after, count):
+_APSIDAL_ITERATIONS = 4   # omega moves by omega_dot P / 360 deg per cycle: each pass gains that factor in accuracy
+
+
+def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot=None, period_derivative=None):
+    """The first ``count`` dates (JD) at or after ``after`` of an event whose phase depends on omega.
+
+    t = T0 + P (c + Pdot c^2 / 2) with c = n + phi the cycles since T0 (:func:`cycle_time`);
+    phi = raw_phase(omega(t)) - floor(raw_phase(omega)), continuous in omega, at omega(t) of the
+    apsidal motion (:func:`omega_at`), found by fixed-point iteration since the date moves omega; n is
+    the whole number of cycles, the smallest with t >= after.  Arrays over N systems with a trailing
+    axis of 1 in, (N, count) arrays out: (time, cycles, omega at each date in deg).
+    """
+    wdot, pdot = omega_dot, period_derivative
+    base = np.floor(raw_phase(omega))
+    phi = raw_phase(omega) - base
+    n = np.ceil(elapsed_cycles(after, period, t_periastron, pdot) - phi) + np.arange(count)
+    for _ in range(2):    # the second pass: n one cycle on where rounding left the first date before `after`
+        cycles = n + phi
+        time = cycle_time(cycles, period, t_periastron, pdot)
+        w_t = omega + np.zeros_like(time)
+        if wdot is not None:
+            for _ in range(_APSIDAL_ITERATIONS):
+                w_t = omega_at(time, omega, t_periastron, wdot)
+                cycles = n + raw_phase(w_t) - base
+                time = cycle_time(cycles, period, t_periastron, pdot)
+        early = time < after
+        if not np.any(early):
+            break
+        n = np.where(early[..., :1], n + 1.0, n)
+    return time, cycles, w_t
+
+
+def date_derivatives(time, cycles, period, t_periastron, dphi, omega_dot=None, period_derivative=None):
+    """Partial derivatives of event dates t = T0 + P (c + Pdot c^2/2), c = n + phi(elements, omega(t)).
+
+    ``dphi`` maps element names to d phi / d element (omega per deg) at the date.  Implicit
+    differentiation, since t enters omega(t) = omega + omega_dot (t - T0): with D = dt/dc = P (1 + Pdot c)
+    and F = 1 / (1 - D dphi/domega omega_dot), dt/dx = F D dphi/dx for each element x, dt/dP =
+    F (c + Pdot c^2/2), dt/d omega_dot = F D dphi/domega (t - T0) (per deg/yr), dt/dPdot = F P c^2 / 2
+    (per s/yr) and dt/dT0 = 1 (omega is omega(T0): the whole ephemeris moves with T0).
+    """
+    rate = period_change_rate(period_derivative)
+    slope = period * (1.0 + rate * cycles)
+    w_rate = 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR
+    dphi_dw = dphi.get("omega", 0.0)
+    feedback = 1.0 / (1.0 - slope * dphi_dw * w_rate)
+    out = {
+        "d_t_periastron": np.ones_like(time),
+        "d_period": feedback * (cycles + 0.5 * rate * cycles * cycles),
+        "d_omega_dot": np.broadcast_to(feedback * slope * dphi_dw * (time - t_periastron) / DAYS_PER_JULIAN_YEAR,
+                                       time.shape),
+        "d_period_derivative": feedback * 0.5 * period * cycles * cycles / JULIAN_YEAR,
+    }
+    for name, d in dphi.items():
+        out["d_" + name] = np.broadcast_to(feedback * slope * d, time.shape)
+    return out
+
+
+def event_times(kind, period, t_periastron, eccentricity, omega, after, count, omega_dot=None,
+                period_derivative=None, light_travel=None):
     """The first ``count`` dates (JD) of an event at or after ``after``, and the partial derivatives.
 
-    t_n = T0 + (n + phi) P with phi the event's phase and n the whole number of cycles since T0,
-    the smallest n with t_n >= after.  Inputs are arrays over N systems; returns a dict of
-    (N, count) arrays: ``time``, ``cycle`` (n + phi, the cycles elapsed since T0) and the
-    derivatives ``d_t_periastron`` (= 1), ``d_period`` (= n + phi), ``d_eccentricity`` and
-    ``d_omega`` (days per deg).
+    The event's phase is that of its true anomaly nu(omega) (``EVENT_TRUE_ANOMALY``) at omega(t),
+    the dates those of :func:`dated_events`, their derivatives those of :func:`date_derivatives`
+    (``d_t_periastron``, ``d_period``, ``d_eccentricity``, ``d_omega`` per deg, ``d_omega_dot`` per
+    deg/yr, ``d_period_derivative`` per s/yr).  ``light_travel`` = (amplitude in days, star 1 or 2):
+    the dates are those seen in that star's light, t + z / c (:func:`light_travel_delay`), returned as
+    ``light_time`` too; the correction's own uncertainty is not propagated.  Inputs are arrays over N
+    systems; the outputs (N, count) arrays, with ``time`` and ``cycle``.
     """
     p = np.asarray(period, dtype=float)[..., None]
     t0 = np.asarray(t_periastron, dtype=float)[..., None]
-    phi, dphi_de, dphi_dw = (np.asarray(x)[..., None] for x in event_phase(kind, eccentricity, omega))
-    first = np.ceil((np.asarray(after, dtype=float)[..., None] - t0) / p - phi)
-    n = first + np.arange(count)
-    cycles = n + phi
-    time = t0 + cycles * p
-    # guard against the rounding of (after - T0)/P landing one cycle early
-    early = time < np.asarray(after, dtype=float)[..., None]
-    cycles = np.where(early, cycles + 1.0, cycles)
-    time = t0 + cycles * p
-    return {
-        "time": time,
-        "cycle": cycles,
-        "d_t_periastron": np.ones_like(time),
-        "d_period": cycles,
-        "d_eccentricity": np.broadcast_to(p * dphi_de, time.shape),
-        "d_omega": np.broadcast_to(p * dphi_dw, time.shape),
-    }
+    e = np.asarray(eccentricity, dtype=float)[..., None]
+    w0 = np.asarray(omega, dtype=float)[..., None]
+    start = np.asarray(after, dtype=float)[..., None]
+    wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
+    pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
+
+    def raw_phase(w):
+        return kepler.mean_from_true(EVENT_TRUE_ANOMALY[kind](np.radians(w)), e) / TWO_PI
+
+    time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
+    nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
+    if kind in ("periastron", "apastron"):
+        dphi = {"eccentricity": np.zeros_like(time), "omega": np.zeros_like(time)}
+    else:
+        d_nu, d_e = mean_anomaly_derivatives(nu, e)
+        dphi = {"eccentricity": d_e / TWO_PI, "omega": -d_nu * np.radians(1.0) / TWO_PI}   # d nu / d omega = -1
+    out = {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
+    if light_travel is not None:
+        amplitude, star = light_travel
+        w_star = np.radians(w_t) + (np.pi if star == 2 else 0.0)
+        delay = light_travel_delay(np.asarray(amplitude, dtype=float)[..., None], nu, e, w_star)
+        out["time"] = time + delay
+        out["light_time"] = np.broadcast_to(delay, time.shape)
+    return out
 
 
 def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccentricity", "omega")):
@@ -263,3 +386,144 @@ def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_r
     if radius2 is not None:
         out["fill_factor2"] = radius2 / out["roche_lobe2"]
     return out
+
+
+# --------------------------------------------------------------------------- eclipses
+#: the true anomaly (rad) of each conjunction from omega (rad): star 2 in front of star 1 (an
+#: eclipse of star 1) at nu + omega = 90 deg, star 1 in front (an eclipse of star 2) at 270 deg
+CONJUNCTION_ARGUMENT = {1: 0.5 * np.pi, 2: 1.5 * np.pi}
+_MID_ECLIPSE_STEPS = 40
+_HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
+_MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
+
+
+def projected_separation(true_anomaly_rad, eccentricity, omega_rad, inclination_rad):
+    """Separation of the stars on the sky in units of a: rho/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega)).
+
+    From rho = r sqrt(cos^2 u + sin^2 u cos^2 i) with u = nu + omega (+ 180 deg for the relative orbit, which
+    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2).
+    """
+    s2 = np.sin(inclination_rad) ** 2
+    return kepler.separation(true_anomaly_rad, eccentricity) * np.sqrt(
+        np.maximum(1.0 - s2 * np.sin(true_anomaly_rad + omega_rad) ** 2, 0.0))
+
+
+def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
+    """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``.
+
+    Minimising rho^2 = r^2 (1 - sin^2 i sin^2 u), u = nu + omega, in time sets its derivative to zero:
+    g(nu) = 2 e sin nu (1 - sin^2 i sin^2 u) / (1 + e cos nu) - sin^2 i sin 2u (1 + kappa) = 0
+    (with r'/r = e sin nu / (1 + e cos nu) from the ellipse; e.g. Hilditch 2001, ch. 2 on eclipse
+    timing in eccentric orbits), kappa = (d omega/dt)/(d nu/dt) = omega_rate (1 - e^2)^{3/2} / (1 + e cos nu)^2
+    for apsidal motion, ``omega_rate`` = d omega / dM = omega_dot P / 360 deg (0 without).  Newton's
+    method on g from the conjunction (nu + omega = 90 deg or 270 deg), where it starts within a small
+    angle of the root whenever an eclipse is possible; the root is the conjunction itself when e = 0
+    or i = 90 deg.
+    """
+    e = np.asarray(eccentricity, dtype=float)
+    s2 = np.sin(inclination_rad) ** 2
+    start = CONJUNCTION_ARGUMENT[star] - omega_rad
+    nu = start + np.zeros_like(e * s2)
+    for _ in range(_MID_ECLIPSE_STEPS):
+        sin_nu, cos_nu = np.sin(nu), np.cos(nu)
+        c = 1.0 + e * cos_nu
+        u = nu + omega_rad
+        shape = 1.0 - s2 * np.sin(u) ** 2
+        h = 2.0 * e * sin_nu / c
+        kappa = omega_rate * (1.0 - e * e) ** 1.5 / c**2
+        g = h * shape - s2 * np.sin(2.0 * u) * (1.0 + kappa)
+        dg = (2.0 * e * (cos_nu + e) / c**2 * shape - h * s2 * np.sin(2.0 * u)
+              - 2.0 * s2 * np.cos(2.0 * u) * (1.0 + kappa) - s2 * np.sin(2.0 * u) * kappa * h)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            step = np.where(dg > 0.0, g / dg, 0.0)
+        # kept within the half-orbit where ``star`` is the farther one: beyond it the other star is in front
+        nu = np.clip(nu - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), start - _HALF_ORBIT,
+                     start + _HALF_ORBIT)
+    return nu
+
+
+def apsidal_rate_per_mean_anomaly(omega_dot, period):
+    """d omega / dM = omega_dot P / 360 deg (omega_dot in deg/yr, P in days); 0 without apsidal motion."""
+    return 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR * period / 360.0
+
+
+def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate=0.0):
+    """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, its offset from the conjunction (cycles),
+    and its true anomaly (rad)."""
+    w = np.radians(omega_deg)
+    nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg), omega_rate)
+    mid = kepler.mean_from_true(nu, eccentricity) / TWO_PI
+    conjunction = kepler.mean_from_true(CONJUNCTION_ARGUMENT[star] - w, eccentricity) / TWO_PI
+    return np.mod(mid, 1.0), mid - conjunction, nu
+
+
+def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,
+                radius1=None, radius2=None, omega_dot=None, **_):
+    """Phases of mid-eclipse (minimum projected separation), their offsets from conjunction, the separations.
+
+    For each eclipse (star 1 eclipsed: star 2 in front; star 2 eclipsed) the phase of the minimum
+    projected separation (:func:`mid_eclipse_true_anomaly`), its offset from the conjunction in days,
+    the minimum separation in units of a and, with a (given, or from Kepler's third law and the total
+    mass), in solar radii; with both radii, that separation over R1 + R2: the discs overlap (an eclipse
+    happens) where it is below 1.
+    """
+    out = {}
+    a = semimajor_axis
+    if a is None and total_mass is not None:
+        a = kepler_semimajor_axis(period, total_mass)
+    if a is not None:
+        out["semimajor_axis"] = a
+    for star in (1, 2):
+        phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination,
+                                                                apsidal_rate_per_mean_anomaly(omega_dot, period))
+        rho = projected_separation(nu, eccentricity, np.radians(omega), np.radians(inclination))
+        out[f"mid_eclipse_phase{star}"] = phase
+        out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
+        out[f"minimum_separation{star}_over_a"] = rho
+        if a is not None:
+            out[f"minimum_separation{star}"] = rho * a * AU_IN_SOLAR_RADII
+            if radius1 is not None and radius2 is not None:
+                out[f"eclipse_parameter{star}"] = out[f"minimum_separation{star}"] / (radius1 + radius2)
+    return out
+
+
+#: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
+#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
+MID_ECLIPSE_PHASE_STEPS = {"eccentricity": 1e-6, "omega": 1e-4, "inclination": 1e-4}
+
+
+def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclination, after, count, omega_dot=None,
+                      period_derivative=None):
+    """The first ``count`` mid-eclipse dates (JD) of ``star`` at or after ``after``, and the partial derivatives.
+
+    The phase is M(nu_min)/2 pi of :func:`mid_eclipse_true_anomaly` at omega(t) (apsidal motion),
+    the dates those of :func:`dated_events`, the derivatives those of :func:`date_derivatives` with
+    d phi / d(e, omega, i) by central differences.  Returns (N, count) arrays ``time``, ``cycle`` and
+    ``d_<element>`` for t_periastron, period, eccentricity, omega, inclination, omega_dot,
+    period_derivative.
+    """
+    p = np.asarray(period, dtype=float)[..., None]
+    t0 = np.asarray(t_periastron, dtype=float)[..., None]
+    e = np.asarray(eccentricity, dtype=float)[..., None]
+    w0 = np.asarray(omega, dtype=float)[..., None]
+    inc = np.asarray(inclination, dtype=float)[..., None]
+    start = np.asarray(after, dtype=float)[..., None]
+    wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
+    pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
+
+    rate = apsidal_rate_per_mean_anomaly(wdot, p)
+
+    def raw_phase(w, e=e, inc=inc):     # continuous in its arguments (no reduction mod 1)
+        nu = mid_eclipse_true_anomaly(star, e, np.radians(w), np.radians(inc), rate)
+        return kepler.mean_from_true(nu, e) / TWO_PI
+
+    time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
+    dphi = {}
+    for name, h in MID_ECLIPSE_PHASE_STEPS.items():
+        args = {"w": w_t, "e": e, "inc": inc}
+        key = {"eccentricity": "e", "omega": "w", "inclination": "inc"}[name]
+        up, down = dict(args), dict(args)
+        up[key] = args[key] + h
+        down[key] = args[key] - h
+        dphi[name] = (raw_phase(**up) - raw_phase(**down)) / (2.0 * h)
+    return {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}

@@ -17,8 +17,8 @@ import math
 
 import numpy as np
 
-from ..constants import (AU, C_LIGHT, GM_SUN, JULIAN_YEAR, K_B, KM_S_PER_AU_PER_YEAR, L_SUN, M_H, R_SUN,
-                         SECONDS_PER_DAY, TWO_PI)
+from ..constants import (AU, C_LIGHT, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, K_B, KM_S_PER_AU_PER_YEAR, L_SUN, M_H,
+                         M_SUN, R_SUN, SECONDS_PER_DAY, TWO_PI)
 from . import kepler
 from .spectroscopic import kepler_semimajor_axis
 
@@ -28,6 +28,8 @@ _HALF_PI = 0.5 * math.pi
 #: centimetres per au, for the cooling parameter's d_12 = d / (10^12 cm)
 _CM_PER_AU = AU * 100.0
 AU_IN_SOLAR_RADII = AU / R_SUN
+#: grams in a solar mass (IAU 2015 nominal GM_sun over CODATA G), for the cgs free-free opacity
+M_SUN_G = M_SUN * 1.0e3
 
 # ---------------------------------------------------------------------------------------
 # The collision of two winds
@@ -307,13 +309,36 @@ def wright_barlow_mass_loss(flux_density_jy, frequency_hz, distance_kpc, vinf, m
             / (z_rms * np.sqrt(gamma_e * gaunt * frequency_hz)))
 
 
+#: Rayleigh-Jeans free-free absorption, alpha = 0.018 T^{-3/2} Z^2 n_e n_i nu^{-2} g cm^-1 in cgs
+#: (G. B. Rybicki & A. P. Lightman 1979, Radiative Processes in Astrophysics, eq. 5.19b)
+FREE_FREE_ABSORPTION_CGS = 0.018
+#: the radio photosphere should lie where the wind coasts at v_inf: a beta = 1 velocity law
+#: v = v_inf (1 - R/r) reaches 90 % of v_inf at 10 R (common practice)
+RADIO_PHOTOSPHERE_MIN_STELLAR_RADII = 10.0
+
+
+def radio_photosphere_radius(mdot_smooth, frequency_hz, vinf, mu, z_rms, gamma_e, temperature, gaunt):
+    """Radius (solRad) of the radio photosphere: the impact parameter where the free-free tau is 1.
+
+    In a smooth wind at constant speed n_i = Mdot / (4 pi r^2 v mu m_H), n_e = gamma n_i, and
+    alpha = 0.018 T^{-3/2} Z^2 n_e n_i nu^{-2} g = C / r^4 (Rybicki & Lightman 1979, eq. 5.19b);
+    along the line of sight at impact parameter p, tau(p) = int C / (p^2 + z^2)^2 dz = pi C / (2 p^3)
+    (Wright & Barlow 1975, MNRAS 170, 41), so tau = 1 at p = (pi C / 2)^{1/3}.  Mdot is the
+    smooth-wind rate that gives the observed flux (a clumped wind has the same emission measure).
+    """
+    n_r2 = (mdot_smooth * M_SUN_G / JULIAN_YEAR) / (4.0 * _PI * vinf * 1.0e5 * mu * M_H * 1.0e3)
+    c = FREE_FREE_ABSORPTION_CGS * temperature**-1.5 * z_rms**2 * gamma_e * n_r2**2 * gaunt / frequency_hz**2
+    return np.cbrt(0.5 * _PI * c) / (R_SUN * 100.0)
+
+
 def radio_mass_loss(flux_density, frequency, distance, vinf, wind_type=None, mu=None, z_rms=None, gamma_e=None,
-                    temperature=None, clumping=None, **_):
+                    temperature=None, clumping=None, stellar_radius=None, **_):
     """Thermal radio mass-loss rate with the wind type's defaults for what is not given.
 
     A clumped wind of volume filling factor f (clumps of density 1/f times the mean, empty
     between) emits like a smooth wind f^{-1/2} times denser, so Mdot = Mdot_smooth f^{1/2}
-    (common practice for density-squared diagnostics).
+    (common practice for density-squared diagnostics).  The radius of the radio photosphere
+    is always given, and in stellar radii when the star's radius is.
     """
     d_mu, d_z, d_gamma, d_t = WIND_TYPES.get(wind_type or "o-star", (np.nan,) * 4)
     mu = d_mu if mu is None else mu
@@ -324,7 +349,11 @@ def radio_mass_loss(flux_density, frequency, distance, vinf, wind_type=None, mu=
     nu = frequency * 1.0e9
     g = radio_gaunt_factor(temperature, nu, z_rms)
     mdot = wright_barlow_mass_loss(flux_density * 1.0e-3, nu, distance, vinf, mu, z_rms, gamma_e, g)
-    return {"mass_loss_rate": mdot * np.sqrt(f), "gaunt_factor": g}
+    photosphere = radio_photosphere_radius(mdot, nu, vinf, mu, z_rms, gamma_e, temperature, g)
+    out = {"mass_loss_rate": mdot * np.sqrt(f), "gaunt_factor": g, "radio_photosphere_radius": photosphere}
+    if stellar_radius is not None:
+        out["radio_photosphere_stellar_radii"] = photosphere / stellar_radius
+    return out
 
 
 # ---------------------------------------------------------------------------------------
@@ -375,6 +404,10 @@ VINK_ELECTRON_OPACITY = 0.325
 #: v_inf / v_esc on each side of the bi-stability jump (Vink, de Koter & Lamers 2001, sect. 7)
 VINK_RATIO_HOT = 2.6
 VINK_RATIO_COOL = 1.3
+#: Teff ranges (K) of the model grids behind each fit (Vink, de Koter & Lamers 2001, eqs. 24-25; from memory):
+#: hot side 27.5-50 kK, cool side 12.5-22.5 kK; between them lies the bi-stability jump
+VINK_HOT_RANGE = (27.5e3, 50.0e3)
+VINK_COOL_RANGE = (12.5e3, 22.5e3)
 
 
 def eddington_factor(luminosity, mass, opacity_cgs=VINK_ELECTRON_OPACITY):
@@ -486,3 +519,18 @@ def shell_distance(period, shell_spacing, expansion_speed=None, distance=None, p
         return {}
     speed = KM_S_PER_AU_PER_YEAR * spacing_arcsec * distance / years
     return {"distance": distance, "parallax": 1.0e3 / distance, "expansion_speed": speed}
+
+
+def shell_forecast(period, formation_epoch, expansion_speed, observation_date, shells, distance=None, parallax=None,
+                   **_):
+    """Angular radius at ``observation_date`` of each shell made once per orbit: the inverse of :func:`shell_distance`.
+
+    Shell n forms at t_n = formation_epoch + n P and expands at v, so at t its radius is
+    R = v (t - t_n) and its angular radius theta = R / D, i.e.
+    theta (arcsec) = v (km/s) (t - t_n) (yr) / (4.74047 D (pc)) with 1 au/yr = 4.74047 km/s (IAU 2012 au,
+    Julian year).  Times in JD (days), ``shells`` the whole numbers n (an extra trailing axis).
+    """
+    d = distance if distance is not None else 1.0e3 / parallax
+    years = (observation_date - (formation_epoch + shells * period)) / DAYS_PER_JULIAN_YEAR
+    radius = expansion_speed * years / KM_S_PER_AU_PER_YEAR
+    return {"angular_radius": 1.0e3 * radius / d, "radius": radius, "age": years}
