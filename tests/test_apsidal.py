@@ -8,7 +8,7 @@ from astropy import constants as const
 from astropy import units as u
 from scipy.optimize import brentq
 
-from calcservice.api.service import compute
+from calcservice.core import compute
 
 from .conftest import post
 

@@ -7,7 +7,7 @@ import pytest
 from astropy.time import Time
 from scipy.optimize import brentq, minimize_scalar
 
-from calcservice.api.service import compute
+from calcservice.core import compute
 from calcservice.physics import orbit
 
 from .conftest import post

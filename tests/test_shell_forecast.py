@@ -7,7 +7,7 @@ import pytest
 from astropy import units as u
 from astropy.time import Time
 
-from calcservice.api.service import compute
+from calcservice.core import compute
 
 from .conftest import post
 

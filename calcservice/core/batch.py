@@ -73,8 +73,6 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: 
                 for key, v in entry.items():
                     if isinstance(v, np.ndarray):
                         entry[key] = clean_array(v)
-        if "correlation" in response:
-            response["correlation"]["matrix"] = clean_array(response["correlation"]["matrix"])
         for terms in response.get("budget", {}).values():
             for term, shares in terms.items():
                 terms[term] = clean_array(shares)
@@ -766,8 +764,10 @@ def _columns_correlation(calc: Calculation, ok: list, n: int, failed: np.ndarray
             own, matrices = g.result.correlation
             at = [index[name] for name in own]
             matrix[np.ix_(g.rows, at, at)] = matrices
-    matrix[failed] = np.nan
-    return {"outputs": names, "matrix": matrix}
+    matrices = clean_array(matrix)
+    for i in np.flatnonzero(failed).tolist():
+        matrices[i] = None                      # a failed system has no matrix, not one of nulls
+    return {"outputs": names, "matrix": matrices}
 
 
 def _columns_budget(ok: list, n: int, failed: np.ndarray) -> dict:
