@@ -108,7 +108,7 @@ class _Address:
 
 
 class _Conn:
-    READING, QUEUED, WRITING, LINGERING = range(4)
+    READING, QUEUED, WRITING, LINGERING, CLOSED = range(5)
 
     def __init__(self, sock: socket.socket, addr, server, deadline: float):
         self.sock = sock
@@ -122,6 +122,8 @@ class _Conn:
         self.length = None             # the body's length once known (Content-Length)
         self.chunked = False
         self.chunk_pos = 0             # where the next chunk-size line starts, in a chunked body
+        self.events = 0                # what the selector watches for on this socket (0: not registered)
+        self.whole = False             # the request was read to its end (nothing left unread)
         self.expects_continue = False
         self.continued = False
         self.out: deque[memoryview] = deque()
@@ -186,8 +188,15 @@ class BufferingWorker(SyncWorker):
     # ------------------------------------------------------------------ the loop
 
     def run(self):
+        self.addresses = {}
         for s in self.sockets:
             s.setblocking(False)
+            self.addresses[s] = s.getsockname()
+            if s.family in (socket.AF_INET, socket.AF_INET6) and hasattr(socket, "TCP_DEFER_ACCEPT"):
+                # a connection is handed over once its first bytes are in: the worker that accepts it
+                # usually has the whole request at once and computes it, so the next connection goes
+                # to another worker, as with sync workers (and a connection that never sends costs nothing)
+                s.setsockopt(socket.IPPROTO_TCP, socket.TCP_DEFER_ACCEPT, self.limits.header_timeout_seconds)
             self.selector.register(s, selectors.EVENT_READ, None)
         self.listeners_open = True
         self.accepting = True
@@ -255,14 +264,23 @@ class BufferingWorker(SyncWorker):
                 return
             raise
         sock.setblocking(False)
-        try:
-            server = listener.getsockname()
-        except OSError:
-            server = ("", 0)
-        conn = _Conn(sock, addr, server, time.monotonic() + self.limits.header_timeout_seconds)
+        conn = _Conn(sock, addr, self.addresses.get(listener, ("", 0)),
+                     time.monotonic() + self.limits.header_timeout_seconds)
         self.conns[sock.fileno()] = conn
-        self.selector.register(sock, selectors.EVENT_READ, conn)
-        self.read(conn)                 # the request is often there already
+        self.read(conn)                 # the request is often whole already: then it never needs the selector
+        if conn.state == _Conn.READING:
+            self.watch(conn, selectors.EVENT_READ)
+
+    def watch(self, conn: _Conn, events: int):
+        if events == conn.events:
+            return
+        if not conn.events:
+            self.selector.register(conn.sock, events, conn)
+        elif not events:
+            self.selector.unregister(conn.sock)
+        else:
+            self.selector.modify(conn.sock, events, conn)
+        conn.events = events
 
     def on_event(self, conn: _Conn, mask: int):
         if conn.state == _Conn.WRITING and mask & selectors.EVENT_WRITE:
@@ -317,6 +335,7 @@ class BufferingWorker(SyncWorker):
             self.refuse_before_app(conn, e)
             return
         if complete:
+            conn.whole = True
             self.queue(conn)
             return
         if conn.expects_continue and not conn.continued:
@@ -384,7 +403,7 @@ class BufferingWorker(SyncWorker):
 
     def queue(self, conn: _Conn):
         conn.state = _Conn.QUEUED
-        self.selector.unregister(conn.sock)
+        self.watch(conn, 0)
         self.queued.append(conn)
 
     def expire(self):
@@ -456,16 +475,18 @@ class BufferingWorker(SyncWorker):
     def refuse(self, conn: _Conn, answer: bytes):
         if conn.state == _Conn.QUEUED:
             return
-        self.selector.unregister(conn.sock)
+        self.watch(conn, 0)
         conn.buf = bytearray()
         self.write(conn, [answer])
 
     def write(self, conn: _Conn, chunks):
+        if len(chunks) > 1 and sum(map(len, chunks)) <= READ_SIZE:
+            chunks = [b"".join(chunks)]     # head and body of a small answer in one segment
         conn.out = deque(memoryview(c) for c in chunks if c)
         conn.state = _Conn.WRITING
         conn.deadline = time.monotonic() + self.timeout
         if not self.flush(conn) and conn.state == _Conn.WRITING:
-            self.selector.register(conn.sock, selectors.EVENT_WRITE, conn)
+            self.watch(conn, selectors.EVENT_WRITE)
 
     def flush(self, conn: _Conn) -> bool:
         """Send what the socket takes now; True once everything is sent."""
@@ -485,8 +506,11 @@ class BufferingWorker(SyncWorker):
         return True
 
     def finish(self, conn: _Conn):
-        # half-close, then drain what the client still sends, so that closing does not reset the
-        # connection under the answer (RFC 9112 section 9.6)
+        if conn.whole:
+            self.close(conn)            # nothing unread: the close sends a plain FIN after the answer
+            return
+        # answered before the request was read to its end: half-close, then drain what the client
+        # still sends, so that closing does not reset the connection under the answer (RFC 9112 9.6)
         try:
             conn.sock.shutdown(socket.SHUT_WR)
         except OSError:
@@ -494,10 +518,7 @@ class BufferingWorker(SyncWorker):
             return
         conn.state = _Conn.LINGERING
         conn.deadline = time.monotonic() + LINGER_SECONDS
-        try:
-            self.selector.modify(conn.sock, selectors.EVENT_READ, conn)
-        except KeyError:
-            self.selector.register(conn.sock, selectors.EVENT_READ, conn)
+        self.watch(conn, selectors.EVENT_READ)
 
     def linger(self, conn: _Conn):
         try:
@@ -512,13 +533,11 @@ class BufferingWorker(SyncWorker):
     def close(self, conn: _Conn):
         fd = conn.sock.fileno()
         if fd >= 0:
-            try:
-                self.selector.unregister(conn.sock)
-            except (KeyError, ValueError):
-                pass
+            self.watch(conn, 0)
             self.conns.pop(fd, None)
-        if conn in self.queued:
+        if conn.state == _Conn.QUEUED and conn in self.queued:
             self.queued.remove(conn)
+        conn.state = _Conn.CLOSED
         conn.sock.close()
 
 
