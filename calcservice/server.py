@@ -202,6 +202,7 @@ class BufferingWorker(SyncWorker):
         self.accepting = True
         self.selector.register(self.PIPE[0], selectors.EVENT_READ, "wakeup")
         stop_at = None
+        self.next_sweep = 0.0
         while True:
             self.notify()
             if not self.alive:
@@ -227,7 +228,8 @@ class BufferingWorker(SyncWorker):
                         pass
                 else:
                     self.on_event(key.data, mask)
-            self.expire()
+            if time.monotonic() >= self.next_sweep:
+                self.expire()
             if self.queued:
                 self.serve(self.queued.popleft())
         for conn in list(self.conns.values()):
@@ -408,6 +410,7 @@ class BufferingWorker(SyncWorker):
 
     def expire(self):
         now = time.monotonic()
+        self.next_sweep = now + 0.05
         for conn in [c for c in self.conns.values() if c.deadline <= now and c.state != _Conn.QUEUED]:
             if conn.state == _Conn.READING and conn.buf:
                 what = "headers" if conn.head_end < 0 else "body"
@@ -493,6 +496,9 @@ class BufferingWorker(SyncWorker):
         try:
             while conn.out:
                 sent = conn.sock.send(conn.out[0])
+                if sent:
+                    # a client taking its answer has the worker timeout between two sends, however large the answer
+                    conn.deadline = time.monotonic() + self.timeout
                 if sent < len(conn.out[0]):
                     conn.out[0] = conn.out[0][sent:]
                     return False
