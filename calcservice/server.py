@@ -123,7 +123,6 @@ class _Conn:
         self.chunked = False
         self.chunk_pos = 0             # where the next chunk-size line starts, in a chunked body
         self.events = 0                # what the selector watches for on this socket (0: not registered)
-        self.whole = False             # the request was read to its end (nothing left unread)
         self.expects_continue = False
         self.continued = False
         self.out: deque[memoryview] = deque()
@@ -232,6 +231,11 @@ class BufferingWorker(SyncWorker):
                 self.expire()
             if self.queued:
                 self.serve(self.queued.popleft())
+                if not self.queued and self.alive and self.accepting:
+                    # as a sync worker does: take a waiting connection straight away, without a
+                    # turn through the selector (which would wake every idle worker for it too)
+                    for listener in self.sockets:
+                        self.accept(listener)
         for conn in list(self.conns.values()):
             self.close(conn)
         self.selector.close()
@@ -337,7 +341,6 @@ class BufferingWorker(SyncWorker):
             self.refuse_before_app(conn, e)
             return
         if complete:
-            conn.whole = True
             self.queue(conn)
             return
         if conn.expects_continue and not conn.continued:
@@ -512,11 +515,9 @@ class BufferingWorker(SyncWorker):
         return True
 
     def finish(self, conn: _Conn):
-        if conn.whole:
-            self.close(conn)            # nothing unread: the close sends a plain FIN after the answer
-            return
-        # answered before the request was read to its end: half-close, then drain what the client
-        # still sends, so that closing does not reset the connection under the answer (RFC 9112 9.6)
+        # half-close, then wait for the client to close (draining anything it still sends): closing
+        # first would reset a connection with unread bytes under its answer (RFC 9112 section 9.6),
+        # and would leave this side holding the TIME_WAIT of every connection
         try:
             conn.sock.shutdown(socket.SHUT_WR)
         except OSError:
