@@ -206,6 +206,21 @@ def test_a_whole_request_sent_in_pieces_is_answered(served):
 
 
 @pytest.mark.server
+def test_a_client_that_waits_for_100_continue_gets_it_once(served):
+    # RFC 9110 10.1.1: the client sends its body only after the interim answer
+    body = json.dumps(SB2).encode()
+    with socket.create_connection(("127.0.0.1", served.port), timeout=10) as s:
+        s.sendall(b"POST /v1/spectroscopic/sb2 HTTP/1.1\r\nHost: localhost\r\nContent-Type: application/json\r\n"
+                  b"Expect: 100-continue\r\nContent-Length: %d\r\n\r\n" % len(body))
+        assert s.recv(100) == b"HTTP/1.1 100 Continue\r\n\r\n"
+        s.sendall(body)
+        reply = read_all(s)
+    status, _, got = parse(reply)
+    assert status == 200 and b"100 Continue" not in reply
+    assert json.loads(got)["results"]["m1_sin3i"]["unit"] == "solMass"
+
+
+@pytest.mark.server
 def test_the_servers_own_errors_are_problem_documents(served):
     port = served.port
     # a bad request line: 400
