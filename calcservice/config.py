@@ -27,6 +27,9 @@ class Limits:
     max_json_depth: int = 32                     # nesting of the JSON body
     max_string_length: int = 256                 # any string value (units, times, choices)
     min_gzip_bytes: int = 2048                   # answers this large or larger are gzipped for callers that accept it
+    max_header_bytes: int = 64 * 1024            # request line and headers together (431 beyond)
+    header_timeout_seconds: int = 10             # for a client to send its request line and headers (408 beyond)
+    body_timeout_seconds: int = 60               # for a client to send its body once the headers are in (408 beyond)
 
 
 @dataclass(frozen=True)

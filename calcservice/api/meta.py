@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, Response, current_app
+from flask import Blueprint, Response, current_app, request
 
 from .. import __version__
 from ..constants import CONSTANTS
@@ -19,7 +19,10 @@ def health():
 
 @bp.get("/v1/ready")
 def ready():
-    # ready once the registry is importable and the spec builds: the worker can serve calculations
+    # ready once the registry is importable and the spec builds: the worker can serve calculations;
+    # not ready from the moment the server begins to drain (TERM), so that a balancer stops sending
+    if request.environ.get("calcservice.draining"):
+        return json_response({"status": "draining", "version": __version__}, 503)
     from ..openapi import spec_yaml
     return json_response({"status": "ready", "version": __version__, "calculations": len(calculations()),
                           "spec_bytes": len(spec_yaml())})
