@@ -27,6 +27,8 @@ def create_app(config=None) -> Flask:
     edge.install(app)
     app.register_blueprint(meta.bp)
     app.register_blueprint(calculations.bp)
+    from . import docs
+    app.register_blueprint(docs.bp)
     try:
         from . import batch
         app.register_blueprint(batch.bp)

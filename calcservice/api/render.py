@@ -10,16 +10,9 @@ from flask import Response
 
 from .. import plots, report
 from ..config import Limits
+from ..media import FORMATS, MIMETYPES
 from .problems import Problem
 from .service import compute, find
-
-FORMATS = ("latex", "markdown", "svg", "png")
-MIMETYPES = {
-    "latex": "text/x-tex; charset=utf-8",
-    "markdown": "text/markdown; charset=utf-8",
-    "svg": "image/svg+xml",
-    "png": "image/png",
-}
 
 
 def render(name: str, body: Any, fmt: str, limits: Limits, args: Mapping[str, str] | None = None) -> Response:
