@@ -14,6 +14,7 @@ import math
 from dataclasses import fields
 from functools import lru_cache
 from itertools import combinations
+from types import SimpleNamespace
 from typing import Any
 
 import yaml
@@ -24,12 +25,17 @@ from .plots import has_curve
 from .registry import Calculation, Input, calculations
 
 
-def _service():
-    """The library's entry points that compute the examples (the one place openapi.py imports them)."""
-    from .api.batch import compute_batch
+@lru_cache(maxsize=1)
+def _service() -> SimpleNamespace:
+    """The library's entry points: they compute the examples and say which request members the
+    service takes (the one place openapi.py imports them)."""
+    from .api.batch import OPTION_KEYS, compute_batch
     from .api.problems import Problem
+    from .api.schemas import request_schema
     from .api.service import compute
-    return compute, compute_batch, Problem
+    return SimpleNamespace(compute=compute, compute_batch=compute_batch, Problem=Problem,
+                           members=lambda calc: set(request_schema(calc, DEFAULTS).fields),
+                           batch_options=set(OPTION_KEYS))
 
 
 def _ref(name: str) -> dict:
@@ -45,6 +51,7 @@ def _unit(spec) -> str:
 
 
 DEFAULTS = Limits()
+ECHO = {"type": "boolean", "default": False, "description": "rows: each answer repeats its inputs as understood"}
 NULLABLE_NUMBER = {"type": ["number", "null"]}
 STRING = {"type": "string", "maxLength": DEFAULTS.max_string_length}
 UNIT = {"type": "string", "maxLength": DEFAULTS.max_string_length,
@@ -282,33 +289,33 @@ def _input_schema(spec: Input, schemas: dict) -> dict:
     return d
 
 
-def _engine_options() -> set[str]:
-    from .engine import Options
-    return {f.name for f in fields(Options)}
-
-
-def _options(calc: Calculation) -> dict:
-    """The members of a request that are not inputs (shared by every system of a batch)."""
+def _options(calc: Calculation, batch: bool = False) -> dict:
+    """The members of a request that are not inputs (in a batch, shared by every system): those the
+    service takes, each described here."""
     measured = [s.name for s in calc.inputs if s.kind == "quantity"]
-    d = {
+    known = {
         "correlations": {"type": "array", "items": {"allOf": [_ref("Correlation")], "properties": {
             "between": {"items": {"enum": measured}}}}},
         "uncertainty": _ref("Uncertainty"),
         "units": {"type": "object", "description": "output name -> astropy unit for the answer",
                   "propertyNames": {"enum": [o.name for o in calc.outputs]},
                   "additionalProperties": {"type": "string", "maxLength": DEFAULTS.max_string_length}},
+        "time_format": {"type": "string", "enum": ["jd", "mjd"], "default": "jd",
+                        "description": "how numeric times are read and written"},
+        "covariance": {"type": "boolean", "default": False,
+                       "description": "add the correlation matrix of the outputs (correlation)"},
+        "budget": {"type": "boolean", "default": False,
+                   "description": "add each output's uncertainty budget (budget)"},
+        "echo": ECHO,
     }
-    if any(s.time for s in calc.inputs):
-        d["time_format"] = {"type": "string", "enum": ["jd", "mjd"], "default": "jd",
-                            "description": "how numeric times are read and written"}
-    engine = _engine_options()
-    if "covariance" in engine:
-        d["covariance"] = {"type": "boolean", "default": False,
-                           "description": "add the correlation matrix of the outputs (correlation)"}
-    if "budget" in engine:
-        d["budget"] = {"type": "boolean", "default": False,
-                       "description": "add each output's uncertainty budget (budget)"}
-    return d
+    service = _service()
+    taken = service.members(calc) - {s.name for s in calc.inputs}
+    if batch:
+        taken = service.batch_options if any(s.time for s in calc.inputs) else service.batch_options - {"time_format"}
+    unknown = taken - set(known)
+    if unknown:
+        raise ValueError(f"{calc.name}: the service takes {sorted(unknown)}, which openapi.py does not describe")
+    return {k: v for k, v in known.items() if k in taken}
 
 
 def request_schema(calc: Calculation, schemas: dict) -> dict:
@@ -403,18 +410,33 @@ RESPONSE_NAMES = {400: "Malformed", 404: "NotFound", 405: "MethodNotAllowed", 40
 
 REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields for: a value outside its domain "
             "once converted from the unit given; a unit that does not convert to the input's (or, in units, to the "
-            "output's); correlations naming an input not given, or a correlation matrix that is not positive "
-            "definite; samples inputs of different lengths; plot=NAME without the Monte Carlo method, or for an "
+            "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
+            "that are not ISO 8601 times (or mix too many formats); correlations naming an input not given, a pair "
+            "correlated twice, an input given as samples (they carry their own correlations), or a correlation "
+            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output has no finite value (not "
+            "physically consistent); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 
 
 def _refusals(calc: Calculation) -> str:
     """The conditions of this calculation the schema cannot say, from the declaration."""
-    reasons = [c.message for c in calc.constraints]
+    reasons = list(dict.fromkeys(f"{', '.join(c.fields)}: {c.message}" for c in calc.constraints))
     if calc.exclusive:
         reasons.append("exactly one of " + "; ".join(" or ".join(g) for g in calc.exclusive))
     own = ("; its own conditions: " + "; ".join(reasons)) if reasons else ""
     return PROBLEM_TEXT[422] + own + " (and the general reasons of the calculations tag)"
+
+
+def _malformed(calc: Calculation) -> str:
+    """The 400s of a calculation's route: malformed bodies, and the figure parameters it cannot draw."""
+    series = any(s.kind == "series" for s in calc.inputs)
+    if series:
+        plot = "plot naming a series output (without plot the figure draws the series)"
+    elif not has_curve(calc):
+        plot = "format=svg or png without plot (this calculation draws no curve: plot names the output to draw)"
+    else:
+        plot = ""
+    return PROBLEM_TEXT[400] + (f"; {plot}" if plot else "")
 
 
 def _break(calc: Calculation, example: dict) -> dict:
@@ -445,7 +467,8 @@ def _plain(obj) -> Example:
 
 def _examples(calc: Calculation) -> dict:
     """The declaration's fictional example, and the service's own answers to it."""
-    compute, compute_batch, Problem = _service()
+    service = _service()
+    compute, compute_batch, Problem = service.compute, service.compute_batch, service.Problem
     body = dict(calc.example)
     out = {"request": _plain(body), "response": _plain(compute(calc.name, body))}
     try:
@@ -506,7 +529,8 @@ def _calculation_path(calc: Calculation, ex: dict) -> dict:
                                    "(format=latex|markdown) or a figure (format=svg|png)",
                     "content": {media.JSON: {"schema": _ref(f"{key}_response"), "example": ex["response"]},
                                 **RENDERED}},
-            **_problems(400, 413, 415, 422, described={422: _refusals(calc)}, examples={422: ex.get("422")})}}}
+            **_problems(400, 413, 415, 422, described={400: _malformed(calc), 422: _refusals(calc)},
+                        examples={422: ex.get("422")})}}}
 
 
 BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in input order: its results, warnings "
@@ -559,7 +583,6 @@ def _batch_path(calc: Calculation, ex: dict) -> dict:
                         examples={422: ex.get("batch_422")})}}}
 
 
-ECHO = {"type": "boolean", "default": False, "description": "rows: each answer repeats its inputs as understood"}
 COMPONENTS["BatchOptions"] = {
     "type": "object", "additionalProperties": False,
     "description": "the options of a batch (the members of a JSON batch body besides systems and columns)",
@@ -592,8 +615,7 @@ def _batch_schemas(calc: Calculation, schemas: dict) -> None:
                         "description": "columns: one entry per input; every array has one entry per system; an "
                                        "entry that is not valid is answered with an error for its system",
                         "properties": {spec.name: _column_schema(spec) for spec in calc.inputs}},
-            **_options(calc),
-            "echo": ECHO}}
+            **_options(calc, batch=True)}}
     series = any(s.kind == "series" for s in calc.inputs)
     row = {"allOf": [_ref("BatchRow")], "properties": {"results": _ref(f"{key}_results")}}
     schemas[f"{key}_batch_response"] = {"oneOf": [
@@ -668,7 +690,8 @@ def _service_paths() -> dict:
             "responses": {"200": {"description": "the declaration", "content": {media.JSON: {
                 "schema": declaration, "example": _plain(sb.as_dict())}}},
                           **_problems(404)}}},
-        "/openapi.yaml": _get("this document", {"type": "string"}, content_type="application/yaml"),
+        "/openapi.yaml": _get("this document", {"type": "object", "required": ["openapi", "paths"]},
+                              content_type="application/yaml"),
         "/docs": _get("the reference page: every calculation with its inputs, outputs, formulas, references, "
                       "conventions and examples", {"type": "string"}, content_type="text/html", tag="pages"),
         "/": _get("the web form", {"type": "string"}, content_type="text/html", tag="pages"),
@@ -677,7 +700,7 @@ def _service_paths() -> dict:
 
 def _too_large() -> Example:
     """A 413 of the service's own: more Monte Carlo draws than the limit."""
-    compute, _, Problem = _service()
+    compute, Problem = _service().compute, _service().Problem
     calc = next(iter(calculations().values()))
     try:
         compute(calc.name, {**calc.example, "uncertainty": {"method": "monte_carlo",
