@@ -465,12 +465,31 @@ def _plain(obj) -> Example:
     return Example(json.loads(text, parse_constant=lambda c: None))
 
 
+PROVENANCE_KEPT = ("version", "calculation")
+ANSWER = {"summary": "the service's answer to the example",
+          "description": "Computed by the service when this document was built; its provenance abridged to the "
+                         "version: the formulas, constants with their sources, references and conventions of "
+                         "each calculation are in GET /v1/calculations/{name} and on /docs."}
+
+
+def abridged(answer: Example) -> Example:
+    """An answer with its provenance (and its rows') cut to the version and the calculation's name."""
+    def cut(node):
+        if isinstance(node, dict):
+            return type(node)({k: ({kk: vv for kk, vv in v.items() if kk in PROVENANCE_KEPT}
+                                   if k == "provenance" and isinstance(v, dict) else cut(v)) for k, v in node.items()})
+        if isinstance(node, list):
+            return [cut(v) for v in node]
+        return node
+    return cut(answer)
+
+
 def _examples(calc: Calculation) -> dict:
     """The declaration's fictional example, and the service's own answers to it."""
     service = _service()
     compute, compute_batch, Problem = service.compute, service.compute_batch, service.Problem
     body = dict(calc.example)
-    out = {"request": _plain(body), "response": _plain(compute(calc.name, body))}
+    out = {"request": _plain(body), "response": abridged(_plain(compute(calc.name, body)))}
     try:
         compute(calc.name, _break(calc, body))
     except Problem as p:
@@ -479,7 +498,7 @@ def _examples(calc: Calculation) -> dict:
     system = {k: v for k, v in body.items() if k not in shared}
     rows = {"systems": [system, _break(calc, system)], **shared}
     out["batch_request"] = _plain(rows)
-    out["batch_response"] = _plain(compute_batch(calc.name, rows))
+    out["batch_response"] = abridged(_plain(compute_batch(calc.name, rows)))
     try:
         compute_batch(calc.name, {**rows, "columns": {}})
     except Problem as p:
@@ -492,18 +511,19 @@ def _examples(calc: Calculation) -> dict:
 FORMAT = {"name": "format", "in": "query", "required": False,
           "description": "json (default): the answer; latex or markdown: the derivation report (inputs, formulas with "
                          "references, constants with sources, conventions, uncertainty method), numbers rounded by the "
-                         "Particle Data Group rule; svg or png: a figure (the radial-velocity curves of a calculation "
-                         "with times, or with plot=NAME a histogram)",
+                         "Particle Data Group rule; svg or png: a figure: the radial-velocity curves of a calculation "
+                         "that has them, or with plot=NAME the histogram of output NAME's Monte Carlo draws with the "
+                         "median and the central 68.27 % interval. plot needs the Monte Carlo method (\"uncertainty\": "
+                         "{\"method\": \"monte_carlo\"}, or samples inputs): without it the answer is a 422 naming "
+                         "plot. Other formats ignore plot.",
           "schema": {"type": "string", "enum": ["json", *media.FORMATS], "default": "json"}}
 
 
 def _plot_parameter(calc: Calculation) -> dict:
-    curve = " (without plot: the radial-velocity curves with the requested times marked)" if has_curve(calc) else ""
+    curve = "; without plot: the radial-velocity curves" if has_curve(calc) else ""
     return {"name": "plot", "in": "query", "required": False,
-            "description": f"with format=svg or png{curve}: the histogram of output NAME's Monte Carlo draws with the "
-                           "median and the central 68.27 % interval. It needs the Monte Carlo method (\"uncertainty\": "
-                           "{\"method\": \"monte_carlo\"}, or samples inputs): without it the answer is a 422 naming "
-                           "plot. Other formats ignore it.",
+            "description": f"with format=svg or png: the histogram of this output's Monte Carlo draws (it needs the Monte "
+                           f"Carlo method: without it, 422){curve}",
             "schema": {"type": "string", "enum": [o.name for o in calc.outputs]}}
 
 
@@ -527,7 +547,8 @@ def _calculation_path(calc: Calculation, ex: dict) -> dict:
         "responses": {
             "200": {"description": "the outputs with uncertainties and provenance (JSON), the derivation report "
                                    "(format=latex|markdown) or a figure (format=svg|png)",
-                    "content": {media.JSON: {"schema": _ref(f"{key}_response"), "example": ex["response"]},
+                    "content": {media.JSON: {"schema": _ref(f"{key}_response"),
+                                             "examples": {"fictional": {**ANSWER, "value": ex["response"]}}},
                                 **RENDERED}},
             **_problems(400, 413, 415, 422, described={400: _malformed(calc), 422: _refusals(calc)},
                         examples={422: ex.get("422")})}}}
@@ -574,7 +595,8 @@ def _batch_path(calc: Calculation, ex: dict) -> dict:
             "200": {"description": "one answer per system",
                     "headers": {"Content-Encoding": {"$ref": "#/components/headers/Content-Encoding"}},
                     "content": {media.JSON: {"schema": _ref(f"{key}_batch_response"),
-                                             "example": ex["batch_response"]}, **TABLES}},
+                                             "examples": {"rows": {**ANSWER, "value": ex["batch_response"]}}},
+                                **TABLES}},
             **_problems(400, 406, 413, 415, 422,
                         described={400: PROBLEM_TEXT[400] + ", or a table that cannot be read",
                                    422: PROBLEM_TEXT[422] + ", for the batch as a whole: neither or both of systems "
@@ -600,6 +622,30 @@ COMPONENTS["BatchRow"] = {
                    "correlation": _ref("OutputCorrelation")}}
 
 
+COMPONENTS["BatchRowsAnswer"] = {
+    "title": "rows", "type": "object", "required": ["calculation", "results"],
+    "description": "the answer to rows: provenance, count and uncertainty once, then one entry per system",
+    "properties": {"calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
+                   "uncertainty": _ref("UncertaintyReport"), "provenance": _ref("Provenance"),
+                   "results": {"type": "array", "description": "one per system, in input order",
+                               "items": {"type": "object"}}}}
+COMPONENTS["BatchColumnsAnswer"] = {
+    "title": "columns", "type": "object", "required": ["calculation", "count", "columns", "errors"],
+    "description": "the answer to columns: one array per output over the systems, the failed systems in errors",
+    "properties": {
+        "calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
+        "columns": {"type": "object", "additionalProperties": {
+            "type": "array", "items": {"type": ["object", "null"]},
+            "description": "extra members (e.g. events), one entry per system"}},
+        "errors": {"type": "array", "items": _ref("ColumnError")},
+        "uncertainty": {"type": "object", "properties": {
+            "method": {"oneOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
+            "rejected_fraction": {"oneOf": [{"type": "number"}, NULLABLE_NUMBERS]}}},
+        "warnings": {"type": "array", "items": _ref("ColumnWarning")},
+        "provenance": _ref("Provenance"),
+        "correlation": _ref("ColumnsCorrelation")}}
+
+
 def _batch_schemas(calc: Calculation, schemas: dict) -> None:
     """``POST /v1/batch/<name>``: rows (a list of request bodies) or columns (one array per input)."""
     key = _key(calc)
@@ -619,28 +665,13 @@ def _batch_schemas(calc: Calculation, schemas: dict) -> None:
     series = any(s.kind == "series" for s in calc.inputs)
     row = {"allOf": [_ref("BatchRow")], "properties": {"results": _ref(f"{key}_results")}}
     schemas[f"{key}_batch_response"] = {"oneOf": [
-        {"title": "rows", "type": "object", "required": ["calculation", "results"], "properties": {
+        {"allOf": [_ref("BatchRowsAnswer")], "properties": {
             "calculation": {"const": calc.name},
-            "count": {"type": "integer", "minimum": 1},
-            "uncertainty": _ref("UncertaintyReport"),
-            "provenance": _ref("Provenance"),
-            "results": {"type": "array", "description": "one per system, in input order",
-                        "items": {"anyOf": [row, _ref("RowError")]}}}},
-        {"title": "columns", "type": "object", "required": ["calculation", "count", "columns", "errors"],
-         "properties": {
-             "calculation": {"const": calc.name},
-             "count": {"type": "integer", "minimum": 1},
-             "columns": {"type": "object", "properties": {
-                 o.name: _ref("SeriesColumnResult" if series else "ColumnResult") for o in calc.outputs},
-                 "additionalProperties": {"type": "array", "items": {"type": ["object", "null"]},
-                                          "description": "extra members (e.g. events), one entry per system"}},
-             "errors": {"type": "array", "items": _ref("ColumnError")},
-             "uncertainty": {"type": "object", "properties": {
-                 "method": {"oneOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
-                 "rejected_fraction": {"oneOf": [{"type": "number"}, NULLABLE_NUMBERS]}}},
-             "warnings": {"type": "array", "items": _ref("ColumnWarning")},
-             "provenance": _ref("Provenance"),
-             "correlation": _ref("ColumnsCorrelation")}},
+            "results": {"items": {"anyOf": [row, _ref("RowError")]}}}},
+        {"allOf": [_ref("BatchColumnsAnswer")], "properties": {
+            "calculation": {"const": calc.name},
+            "columns": {"properties": {
+                o.name: _ref("SeriesColumnResult" if series else "ColumnResult") for o in calc.outputs}}}},
     ]}
 
 

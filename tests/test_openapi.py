@@ -14,7 +14,7 @@ import yaml
 from openapi_spec_validator import validate
 
 from calcservice.config import Limits
-from calcservice.openapi import build_spec, dump_yaml, spec_yaml
+from calcservice.openapi import abridged, build_spec, dump_yaml, spec_yaml
 from calcservice.registry import calculations
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -153,8 +153,12 @@ def test_every_post_path_answers_its_example_as_documented(client, path):
         documented = _documented(op, 200)["content"][r.mimetype]
         answer = r.get_json()
         assert not _schema_errors(documented["schema"], answer), path
-        # the example answer is the service's own answer (computed when the spec was built)
-        assert documented["example"] == answer, path
+        # the example answer is the service's own answer (computed when the spec was built), its
+        # provenance abridged to the version
+        (shown,) = documented["examples"].values()
+        assert shown["value"] == abridged(answer), path
+        if "provenance" in answer:
+            assert answer["provenance"]["version"] == shown["value"]["provenance"]["version"]
     problem = _documented(op, 422)["content"]["application/problem+json"].get("example")
     if problem is not None:
         assert problem["status"] == 422 and problem["errors"]
@@ -204,7 +208,7 @@ def test_a_new_calculation_needs_no_change_to_the_generator(monkeypatch):
     monkeypatch.setattr(registry, "REGISTRY", {**calcs, "twice": doubled})
     spec = build_spec()
     op = spec["paths"]["/v1/test/twice"]["post"]
-    answer = op["responses"]["200"]["content"]["application/json"]["example"]
+    (answer,) = [e["value"] for e in op["responses"]["200"]["content"]["application/json"]["examples"].values()]
     assert answer["results"]["y"]["value"] == pytest.approx(6.0)      # y = 2 x at x = 3
     assert answer["results"]["y"]["sigma"] == pytest.approx(0.2)      # linear: 2 sigma_x
     assert "/v1/batch/twice" in spec["paths"] and "twice_request" in spec["components"]["schemas"]
