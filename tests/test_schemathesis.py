@@ -156,7 +156,13 @@ def test_the_service_does_what_the_spec_says(case):
     # their place: for a batch, negative rejection is checked below, with that allowance)
     case.validate_response(response, excluded_checks=[negative_data_rejection] if batch else [])
     assert status < 500, response.text[:300]
-    body = json.loads(response.content) if response.headers.get("content-type", [""])[0].endswith("json") else None
+    headers = {k.lower(): v[0] for k, v in response.headers.items()}
+    assert headers.get("x-request-id") and headers.get("x-content-type-options") == "nosniff"
+    body = json.loads(response.content) if headers.get("content-type", "").split(";")[0].endswith("json") else None
+    if status >= 400:         # RFC 9457 problem details, without a traceback; a 422 names the fields
+        assert headers.get("content-type", "").startswith("application/problem+json")
+        assert body["status"] == status and "Traceback" not in body["detail"]
+        assert status != 422 or body.get("errors")
     if _mode(case) == "positive":
         if status >= 400:
             assert _refusal_is_documented(case, status, body or {}), (status, response.text[:400])
