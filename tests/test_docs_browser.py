@@ -181,9 +181,14 @@ def test_docs_page_shows_every_calculation_and_its_links_land_in_the_form(browse
     assert urlsplit(browser.current_url).path == "/"
     _wait(browser, lambda d: d.find_element(By.ID, "calculation").get_attribute("value") == name)
 
-    # the example's link fills the form with the example (once the form reads its fields from the address)
-    browser.get(base_url + "/docs")
+
+
+@pytest.mark.browser
+def test_an_example_link_fills_the_form_with_the_example(browser, base_url):
+    from selenium.webdriver.common.by import By
+    name = list(calculations())[1]
     calc = calculations()[name]
+    browser.get(base_url + "/docs")
     browser.find_element(By.ID, name).find_element(By.CSS_SELECTOR, "a.form-link").click()
     _wait(browser, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-ready") == "true")
     form_js = browser.execute_script("return fetch('/static/form.js').then(r => r.text())")
