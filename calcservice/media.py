@@ -21,5 +21,5 @@ JSON = "application/json"
 PROBLEM = "application/problem+json"
 ARROW = "application/vnd.apache.arrow.stream"
 CSV = "text/csv"
-ECSV = "text/x-ecsv"                      # accepted on the way in; ECSV goes out as text/csv
-TABLES = (JSON, ARROW, CSV)               # the answer types of a batch, by Accept
+ECSV = "text/x-ecsv"                      # accepted too; an ECSV body's answer goes out as text/csv
+ANSWERS = (JSON, ARROW, CSV, ECSV)        # the answer types of a batch, by Accept

@@ -166,9 +166,7 @@ COMPONENTS: dict[str, dict] = {
                     "errors": {"type": "object", "description": "messages by field (dotted for nested members)",
                                "additionalProperties": {"type": "array", "items": {"type": "string"}}},
                     "limit": {"type": "object", "description": "413: the limit that was reached",
-                              "properties": {"name": {"type": "string"}, "value": {"type": "integer"}}},
-                    "types": {"type": "array", "items": {"type": "string"},
-                              "description": "406: the media types that can be answered"}}},
+                              "properties": {"name": {"type": "string"}, "value": {"type": "integer"}}}}},
     "RowError": {"type": "object", "required": ["error"], "additionalProperties": False,
                  "description": "a system of a rows batch that could not be answered, in its place",
                  "properties": {"error": _ref("Problem")}},
@@ -364,7 +362,8 @@ PROBLEM_TEXT = {
     400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot",
     404: "unknown path",
     405: "wrong method (the Allow header lists the right ones)",
-    406: "none of the media types in Accept can be answered (the problem lists those that can)",
+    406: "none of the media types in Accept can be answered (the problem lists those that can); a rows batch "
+         "answers in JSON only; series outputs need JSON or Arrow",
     413: "the body or the work is over a configured limit (GET /v1/limits; the problem names it)",
     415: "the body is not of a media type the route takes",
     422: "values that parse but are not physical or are inconsistent (the problem names the fields)",
@@ -375,9 +374,8 @@ EDGE_EXAMPLES = {
     404: {"type": "/problems/not-found", "title": "Not found", "status": 404,
           "detail": "there is nothing at /v1/nothing; GET /v1/calculations lists the calculations"},
     406: {"type": "/problems/not-acceptable", "title": "Not acceptable", "status": 406,
-          "detail": "cannot answer text/html; ask for one of application/json, "
-                    "application/vnd.apache.arrow.stream, text/csv",
-          "types": list(media.TABLES)},
+          "detail": f"the answer can be given as {', '.join(media.ANSWERS)}; Accept lists none of them",
+          "errors": {"Accept": [f"must accept one of {', '.join(media.ANSWERS)}"]}},
     413: {"type": "/problems/too-large", "title": "Request or work too large", "status": 413,
           "detail": f"the request body is over {DEFAULTS.max_body_bytes} bytes (max_body_bytes)",
           "limit": {"name": "max_body_bytes", "value": DEFAULTS.max_body_bytes}},
@@ -563,8 +561,8 @@ BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in
          "the whole request. Monte Carlo draws (systems x samples) are limited per batch.\n\n"
          "Bodies and answers may be JSON, an Apache Arrow IPC stream (application/vnd.apache.arrow.stream), CSV or "
          "ECSV (text/csv, ECSV when the text starts with '# %ECSV'; text/x-ecsv accepted too). Content-Type says "
-         "the body's type, Accept picks the answer's (default: the body's own; 406 when none fits; 415 for an "
-         "unknown body type). Content-Encoding: gzip on the body and Accept-Encoding: gzip on the answer work for "
+         "the body's type, Accept picks the answer's (default: the body's own; 406 when none fits, and for a rows "
+         "batch asked for as a table; 415 for an unknown body type). Content-Encoding: gzip on the body and Accept-Encoding: gzip on the answer work for "
          "every type. A table has one column NAME per input in its unit (Arrow field metadata {\"unit\": ...}, the "
          "ECSV header, or NAME[unit] as a CSV header; else the input's default unit), NAME_sigma (or "
          "NAME_sigma_minus and NAME_sigma_plus) in NAME's unit, choices as strings, an isotropic inclination as the "
@@ -574,7 +572,7 @@ BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in
          "calculation, uncertainty and provenance in the table metadata. Tables carry no correlation. Series outputs "
          "need JSON or Arrow (CSV/ECSV: 406).")
 TABLES = {media.ARROW: {"schema": {"type": "string", "format": "binary", "contentMediaType": media.ARROW}},
-          media.CSV: {"schema": {"type": "string"}}}
+          media.CSV: {"schema": {"type": "string"}}, media.ECSV: {"schema": {"type": "string"}}}
 
 
 def _batch_path(calc: Calculation, ex: dict) -> dict:
@@ -590,7 +588,7 @@ def _batch_path(calc: Calculation, ex: dict) -> dict:
                          "examples": {"rows": {"summary": "the fictional system, and a copy with an input out of "
                                                           "its domain (answered in its place)",
                                                "value": ex["batch_request"]}}},
-            **TABLES, media.ECSV: {"schema": {"type": "string"}}}},
+            **TABLES}},
         "responses": {
             "200": {"description": "one answer per system",
                     "headers": {"Content-Encoding": {"$ref": "#/components/headers/Content-Encoding"}},
@@ -598,7 +596,8 @@ def _batch_path(calc: Calculation, ex: dict) -> dict:
                                              "examples": {"rows": {**ANSWER, "value": ex["batch_response"]}}},
                                 **TABLES}},
             **_problems(400, 406, 413, 415, 422,
-                        described={400: PROBLEM_TEXT[400] + ", or a table that cannot be read",
+                        described={400: PROBLEM_TEXT[400] + ", a table that cannot be read, or the options "
+                                                            "parameter with a JSON body",
                                    422: PROBLEM_TEXT[422] + ", for the batch as a whole: neither or both of systems "
                                                             "and columns, columns of different lengths, a bad "
                                                             "option"},
@@ -791,7 +790,8 @@ def build_spec() -> dict:
                 "format": FORMAT,
                 "options": {"name": "options", "in": "query", "required": False,
                             "description": "with a table body (Arrow, CSV, ECSV): the options of the whole batch, "
-                                           "a URL-encoded JSON object with the members of a JSON body's options",
+                                           "a URL-encoded JSON object with the members of a JSON body's options "
+                                           "(a JSON body carries its own: with one, this parameter is a 400)",
                             "content": {media.JSON: {"schema": _ref("BatchOptions")}}}},
             "headers": {"Content-Encoding": {"description": "gzip when the request's Accept-Encoding asks for it",
                                              "schema": {"type": "string", "enum": ["gzip"]}}},
