@@ -1,67 +1,326 @@
-"""The OpenAPI 3.1 document, generated from the registry (openapi.yaml in the repository is its dump)."""
+"""The OpenAPI 3.1 document, generated from the registry (openapi.yaml in the repository is its dump).
+
+Everything a calculation's entry says comes from its declaration: inputs with their units and
+domains, outputs, the cross-field conditions that answer 422, and the examples.  The example
+answers are computed by the service itself when the document is built, so they cannot drift.
+Shared shapes (a measured input's forms, a measured result, a problem, batch columns and rows)
+are written once under ``components`` and referenced.
+"""
 
 from __future__ import annotations
 
+import json
+import math
+from dataclasses import fields
 from functools import lru_cache
 from itertools import combinations
+from types import SimpleNamespace
+from typing import Any
 
 import yaml
 
-from . import __version__
+from . import __version__, media
+from .config import Limits
+from .plots import has_curve
 from .registry import Calculation, Input, calculations
 
-NUMBER = {"type": "number"}
+
+@lru_cache(maxsize=1)
+def _service() -> SimpleNamespace:
+    """The library's entry points: they compute the examples and say which request members the
+    service takes (the one place openapi.py imports them)."""
+    from .core import Problem, compute, compute_batch
+    from .core.batch import OPTION_KEYS
+    from .core.schemas import request_schema
+    return SimpleNamespace(compute=compute, compute_batch=compute_batch, Problem=Problem,
+                           members=lambda calc: set(request_schema(calc, DEFAULTS).fields),
+                           batch_options=set(OPTION_KEYS))
 
 
-def _quantity_schema(spec: Input) -> dict:
-    bounds = spec.domain.as_dict()
-    value = {"type": "number", **bounds}
-    if spec.time:
-        value = {"oneOf": [{"type": "number"}, {"type": "string", "description": "ISO 8601 time (UTC)"}]}
-    unit = {"type": "string", "description": f"astropy unit string; default {spec.unit or 'dimensionless'}"}
+def _ref(name: str) -> dict:
+    return {"$ref": f"#/components/schemas/{name}"}
+
+
+def _key(calc: Calculation) -> str:
+    return calc.name.replace("-", "_")
+
+
+def _unit(spec) -> str:
+    return spec.unit or "dimensionless"
+
+
+DEFAULTS = Limits()
+ECHO = {"type": "boolean", "default": False, "description": "rows: each answer repeats its inputs as understood"}
+NULLABLE_NUMBER = {"type": ["number", "null"]}
+STRING = {"type": "string", "maxLength": DEFAULTS.max_string_length}
+UNIT = {"type": "string", "maxLength": DEFAULTS.max_string_length,
+        "description": "an astropy unit string (d, yr, km/s, deg, mas, solMass, ...); without it the input's "
+                       "default unit applies"}
+SIGMA = {"type": "number", "minimum": 0}
+ISO_TIME = {"type": "string", "maxLength": DEFAULTS.max_string_length, "description": "ISO 8601 time (UTC)"}
+
+
+def _measured(value: dict, note: str) -> dict:
+    """The forms of a measured quantity of the wire contract, its value being ``value``."""
+    return {
+        "description": note,
+        "oneOf": [
+            {**value, "title": "exact value"},
+            {"title": "value with a normal 1-sigma", "type": "object", "additionalProperties": False,
+             "required": ["value"], "properties": {"value": value, "sigma": SIGMA, "unit": UNIT}},
+            {"title": "value with asymmetric 1-sigma (split normal)", "type": "object",
+             "additionalProperties": False, "required": ["value", "sigma_minus", "sigma_plus"],
+             "properties": {"value": value, "sigma_minus": SIGMA, "sigma_plus": SIGMA, "unit": UNIT}},
+            _ref("Samples"),
+        ]}
+
+
+SAMPLES = {"title": "the caller's own draws", "type": "object", "additionalProperties": False,
+           "required": ["samples"],
+           "description": "e.g. an orbit fit's posterior; every samples input of a request has one length and "
+                          "they are paired index by index",
+           "properties": {"samples": {"type": "array", "items": {"type": "number"}, "minItems": 2},
+                          "unit": UNIT}}
+
+# the nominal (or median) value and its spread, per output; Monte Carlo adds the central 68.27 % interval
+MEASURED_RESULT = {
+    "type": "object", "required": ["value", "unit"],
+    "properties": {
+        "value": {**NULLABLE_NUMBER, "description": "nominal value (Monte Carlo: the median)"},
+        "sigma": {**NULLABLE_NUMBER, "description": "1-sigma (Monte Carlo: the standard deviation of the draws; "
+                                                    "null where it is not defined, with a sigma_undefined warning)"},
+        "low": {**NULLABLE_NUMBER, "description": "Monte Carlo: lower end of the central 68.27 % interval"},
+        "high": {**NULLABLE_NUMBER, "description": "Monte Carlo: upper end of the central 68.27 % interval"},
+        "unit": {"type": "string"},
+        "budget": {"$ref": "#/components/schemas/Budget"}}}
+
+NULLABLE_NUMBERS = {"type": "array", "items": NULLABLE_NUMBER}
+
+COMPONENTS: dict[str, dict] = {
+    "MeasuredInput": _measured({"type": "number"}, "a measured number: exact, with a normal or asymmetric 1-sigma, "
+                                                   "or as the caller's own draws, in the input's default unit "
+                                                   "unless a unit is given"),
+    "MeasuredTime": _measured({"oneOf": [{"type": "number", "description": "Julian Date (or MJD with time_format)"},
+                                         ISO_TIME]},
+                              "a measured time: a Julian Date (MJD with time_format) or an ISO 8601 string, exact, "
+                              "with a 1-sigma in days, or as draws"),
+    "Samples": SAMPLES,
+    "Series": {"description": "a list of exact numbers in the input's default unit, or an object with the list "
+                              "and its unit",
+               "oneOf": [{"type": "array", "minItems": 1, "items": {"type": "number"}},
+                         {"type": "object", "additionalProperties": False, "required": ["value"],
+                          "properties": {"value": {"type": "array", "minItems": 1, "items": {"type": "number"}},
+                                         "unit": UNIT}}]},
+    "TimeSeries": {"description": "a list of times: Julian Dates (MJD with time_format) or ISO 8601 strings",
+                   "type": "array", "minItems": 1, "items": {"oneOf": [{"type": "number"}, ISO_TIME]}},
+    "Correlation": {"type": "object", "additionalProperties": False, "required": ["between", "rho"],
+                    "description": "the correlation coefficient of two measured inputs given in the request",
+                    "properties": {
+                        "between": {"type": "array", "items": {"type": "string", "maxLength": 64},
+                                    "minItems": 2, "maxItems": 2, "uniqueItems": True},
+                        "rho": {"type": "number", "minimum": -1, "maximum": 1}}},
+    "Uncertainty": {"type": "object", "additionalProperties": False,
+                    "description": "how uncertainties are propagated; any request with samples inputs is Monte Carlo",
+                    "properties": {
+                        "method": {"type": "string", "enum": ["linear", "monte_carlo", "monte-carlo"],
+                                   "default": "linear"},
+                        "samples": {"type": "integer", "minimum": 1,
+                                    "description": f"Monte Carlo draws (default {DEFAULTS.default_samples}; over "
+                                                   "the configured max_samples: 413)"},
+                        "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1}}},
+    "UncertaintyReport": {"type": "object", "properties": {
+        "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
+        "samples": {"type": "integer"}, "seed": {"type": "integer"},
+        "rejected_fraction": {"type": "number", "minimum": 0, "maximum": 1,
+                              "description": "share of the draws outside the inputs' domains or without an answer"}}},
+    "MeasuredResult": MEASURED_RESULT,
+    "SeriesResult": {"type": "object", "required": ["value", "unit"], "properties": {
+        "value": NULLABLE_NUMBERS, "sigma": NULLABLE_NUMBERS, "low": NULLABLE_NUMBERS, "high": NULLABLE_NUMBERS,
+        "unit": {"type": "string"}}},
+    "Budget": {"type": "object", "additionalProperties": {"type": "number"},
+               "description": "with \"budget\": true: the share of the output's variance from each input (they sum "
+                              "to 1); a correlation term is keyed by the two inputs joined by a comma and may be "
+                              "negative. Monte Carlo: an estimate, or absent with a budget_not_given warning"},
+    "OutputCorrelation": {"type": "object", "required": ["outputs", "matrix"],
+                          "description": "with \"covariance\": true: the correlation matrix of the scalar outputs "
+                                         "that have a sigma (linear: from J Σ Jᵀ; Monte Carlo: from the draws)",
+                          "properties": {"outputs": {"type": "array", "items": {"type": "string"}},
+                                         "matrix": {"type": "array", "items": NULLABLE_NUMBERS}}},
+    "Warning": {"type": "object", "required": ["code", "message"], "properties": {
+        "code": {"type": "string"}, "message": {"type": "string"},
+        "fields": {"type": "array", "items": {"type": "string"}}}},
+    "Provenance": {"type": "object", "properties": {
+        "version": {"type": "string"}, "calculation": {"type": "string"},
+        "formulas": {"type": "object", "additionalProperties": {"type": "string"}},
+        "constants": {"type": "object", "additionalProperties": {"type": "object", "properties": {
+            "symbol": {"type": "string"}, "value": {"type": "number"}, "unit": {"type": "string"},
+            "description": {"type": "string"}, "source": {"type": "string"}}}},
+        "references": {"type": "array", "items": {"type": "string"}},
+        "conventions": {"type": "object", "additionalProperties": {"type": "string"}}}},
+    "Problem": {"type": "object", "required": ["type", "title", "status", "detail"],
+                "description": "RFC 9457 problem details",
+                "properties": {
+                    "type": {"type": "string"}, "title": {"type": "string"}, "status": {"type": "integer"},
+                    "detail": {"type": "string"},
+                    "errors": {"type": "object", "description": "messages by field (dotted for nested members)",
+                               "additionalProperties": {"type": "array", "items": {"type": "string"}}},
+                    "limit": {"type": "object", "description": "413: the limit that was reached",
+                              "properties": {"name": {"type": "string"}, "value": {"type": "integer"}}}}},
+    "RowError": {"type": "object", "required": ["error"], "additionalProperties": False,
+                 "description": "a system of a rows batch that could not be answered, in its place",
+                 "properties": {"error": _ref("Problem")}},
+    "ColumnError": {"allOf": [_ref("Problem"), {"type": "object", "required": ["index"], "properties": {
+        "index": {"type": "integer", "minimum": 0, "description": "the system's position in the batch"}}}]},
+    "ColumnWarning": {"type": "object", "required": ["code", "message"], "properties": {
+        "code": {"type": "string"}, "message": {"type": "string"},
+        "fields": {"type": "array", "items": {"type": "string"}},
+        "rows": {"type": "array", "items": {"type": "integer"}, "description": "the systems it applies to"}}},
+    "ColumnResult": {"type": "object", "required": ["value", "unit"],
+                     "description": "one output over the systems; null where a system failed",
+                     "properties": {"value": NULLABLE_NUMBERS, "sigma": NULLABLE_NUMBERS, "low": NULLABLE_NUMBERS,
+                                    "high": NULLABLE_NUMBERS, "unit": {"type": "string"}}},
+    "SeriesColumnResult": {"type": "object", "required": ["value", "unit"],
+                           "description": "one series output over the systems: a list per system (null where it "
+                                          "failed)",
+                           "properties": {k: {"type": "array", "items": {"type": ["array", "null"],
+                                                                        "items": NULLABLE_NUMBER}}
+                                          for k in ("value", "sigma", "low", "high")} | {"unit": {"type": "string"}}},
+    "ColumnsCorrelation": {"type": "object", "required": ["outputs", "matrix"],
+                           "description": "with \"covariance\": true: one matrix per system (null for a failed one)",
+                           "properties": {"outputs": {"type": "array", "items": {"type": "string"}},
+                                          "matrix": {"type": "array", "items": {"type": ["array", "null"], "items":
+                                                                                NULLABLE_NUMBERS}}}},
+    "Limit": {"type": "object", "required": ["value", "env"], "properties": {
+        "value": {"type": "integer"}, "env": {"type": "string"}, "description": {"type": "string"}}},
+}
+
+
+def _column(time: bool, isotropic: bool) -> dict:
+    """A quantity's column in a columns batch: one value for every system, an array with one entry per
+    system (null: not given there; any form of a single request), or value and sigma arrays with one unit."""
+    one = {"oneOf": [{"type": "number"}, ISO_TIME]} if time else {"type": "number"}
+    entry = [{"type": "null"}, _ref("MeasuredTime" if time else "MeasuredInput")]
+    per_system = {"oneOf": [one, {"type": "array", "minItems": 1, "items": {
+        "oneOf": [NULLABLE_NUMBER, ISO_TIME]} if time else NULLABLE_NUMBER}]}
     forms = [
-        value,
+        one,
+        {"type": "array", "minItems": 1, "items": {"anyOf": entry + ([{"const": "isotropic"}] if isotropic else [])}},
         {"type": "object", "additionalProperties": False, "required": ["value"],
-         "properties": {"value": value, "sigma": {"type": "number", "minimum": 0}, "unit": unit}},
+         "properties": {"value": per_system, "sigma": per_system, "unit": UNIT}},
         {"type": "object", "additionalProperties": False, "required": ["value", "sigma_minus", "sigma_plus"],
-         "properties": {"value": value, "sigma_minus": {"type": "number", "minimum": 0},
-                        "sigma_plus": {"type": "number", "minimum": 0}, "unit": unit}},
+         "properties": {"value": per_system, "sigma_minus": per_system, "sigma_plus": per_system, "unit": UNIT}},
         {"type": "object", "additionalProperties": False, "required": ["samples"],
-         "properties": {"samples": {"type": "array", "items": NUMBER, "minItems": 2}, "unit": unit}},
+         "properties": {"samples": {"type": "array", "minItems": 1, "items": {
+             "type": "array", "minItems": 2, "items": {"type": "number"}}}, "unit": UNIT}},
     ]
-    if spec.isotropic:
-        forms.append({"type": "string", "enum": ["isotropic"]})
-    return {"description": f"{spec.description} [{spec.unit or 'dimensionless'}]; {spec.domain.describe()}",
-            "oneOf": forms}
+    if isotropic:
+        forms.append({"const": "isotropic"})
+    return {"oneOf": forms}
 
 
-def _input_schema(spec: Input) -> dict:
+COMPONENTS["QuantityColumn"] = _column(False, False)
+COMPONENTS["IsotropicColumn"] = _column(False, True)
+COMPONENTS["TimeColumn"] = _column(True, False)
+
+
+def _column_schema(spec: Input) -> dict:
+    """One input's column in a columns batch."""
+    note = f"in {_unit(spec)}"
+    if spec.kind == "series":
+        return {"description": "one list for every system",
+                **_ref("TimeSeries" if spec.time else "Series")}
+    if spec.kind in ("choice", "integer"):
+        one = {"type": "string", "enum": list(spec.choices)} if spec.kind == "choice" else \
+            {"type": "integer", **spec.domain.as_dict()}
+        return {"description": note, "oneOf": [one, {"type": "array", "minItems": 1,
+                                                     "items": {"anyOf": [{"type": "null"}, one]}}]}
+    column = "TimeColumn" if spec.time else "IsotropicColumn" if spec.isotropic else "QuantityColumn"
+    return {"description": note, **_ref(column)}
+
+
+def _domain_name(domain) -> str:
+    """The component of a measured input on ``domain``, named after its bounds (e.g. MeasuredInput_gt0_lt180)."""
+    parts = []
+    if domain.low != -math.inf:
+        parts.append(f"{'gt' if domain.low_open else 'ge'}{domain.low:g}")
+    if domain.high != math.inf:
+        parts.append(f"{'lt' if domain.high_open else 'le'}{domain.high:g}")
+    return "_".join(["MeasuredInput", *parts])
+
+
+def _bounded(spec: Input, schemas: dict) -> dict:
+    """A quantity input: the shared forms, with the domain on the bare number and on a value given
+    without a unit (with a unit the domain applies after conversion, and the answer is a 422).
+    Inputs of one domain share one component."""
+    if spec.time:
+        return _ref("MeasuredTime")
+    bounds = spec.domain.as_dict()
+    if not bounds:
+        return _ref("MeasuredInput")
+    name = _domain_name(spec.domain)
+    schemas.setdefault(name, {
+        "description": f"a measured input that {spec.domain.describe()} (in its default unit; with a unit of its "
+                       "own, once converted)",
+        "allOf": [_ref("MeasuredInput")], **bounds,
+        "anyOf": [{"required": ["unit"]}, {"properties": {"value": dict(bounds)}}]})
+    return _ref(name)
+
+
+def _input_schema(spec: Input, schemas: dict) -> dict:
+    unit = f" [{_unit(spec)}]"
     if spec.kind == "choice":
         d = {"type": "string", "enum": list(spec.choices), "description": spec.description}
     elif spec.kind == "integer":
-        d = {"type": "integer", "description": spec.description, **spec.domain.as_dict()}
+        d = {"type": "integer", "description": f"{spec.description}; {spec.domain.describe()}",
+             **spec.domain.as_dict()}
     elif spec.kind == "series":
-        item = {"oneOf": [NUMBER, {"type": "string"}]} if spec.time else NUMBER
-        d = {"type": "array", "items": item, "minItems": 1,
-             "description": f"{spec.description} [{spec.unit or 'dimensionless'}]"}
+        d = {"description": spec.description + ("" if spec.time else unit),
+             **_ref("TimeSeries" if spec.time else "Series")}
     else:
-        d = _quantity_schema(spec)
+        d = {"description": f"{spec.description}{unit}; {spec.domain.describe()}", **_bounded(spec, schemas)}
+        if spec.isotropic:
+            d = {"description": d.pop("description") + '; or "isotropic" (random orientations, cos i uniform)',
+                 "anyOf": [d, {"const": "isotropic"}]}
     if spec.default is not None:
         d["default"] = spec.default
     return d
 
 
-def request_schema(calc: Calculation) -> dict:
-    props = {spec.name: _input_schema(spec) for spec in calc.inputs}
-    props["correlations"] = {"$ref": "#/components/schemas/Correlations"}
-    props["uncertainty"] = {"$ref": "#/components/schemas/UncertaintyOptions"}
-    props["units"] = {"type": "object", "additionalProperties": {"type": "string"},
-                      "description": "output name -> astropy unit for the response",
-                      "propertyNames": {"enum": [o.name for o in calc.outputs]}}
-    if any(spec.time for spec in calc.inputs):
-        props["time_format"] = {"type": "string", "enum": ["jd", "mjd"], "default": "jd"}
+def _options(calc: Calculation, batch: bool = False) -> dict:
+    """The members of a request that are not inputs (in a batch, shared by every system): those the
+    service takes, each described here."""
+    measured = [s.name for s in calc.inputs if s.kind == "quantity"]
+    known = {
+        "correlations": {"type": "array", "items": {"allOf": [_ref("Correlation")], "properties": {
+            "between": {"items": {"enum": measured}}}}},
+        "uncertainty": _ref("Uncertainty"),
+        "units": {"type": "object", "description": "output name -> astropy unit for the answer",
+                  "propertyNames": {"enum": [o.name for o in calc.outputs]},
+                  "additionalProperties": {"type": "string", "maxLength": DEFAULTS.max_string_length}},
+        "time_format": {"type": "string", "enum": ["jd", "mjd"], "default": "jd",
+                        "description": "how numeric times are read and written"},
+        "covariance": {"type": "boolean", "default": False,
+                       "description": "add the correlation matrix of the outputs (correlation)"},
+        "budget": {"type": "boolean", "default": False,
+                   "description": "add each output's uncertainty budget (budget)"},
+        "echo": ECHO,
+    }
+    service = _service()
+    taken = service.members(calc) - {s.name for s in calc.inputs}
+    if batch:
+        taken = service.batch_options if any(s.time for s in calc.inputs) else service.batch_options - {"time_format"}
+    unknown = taken - set(known)
+    if unknown:
+        raise ValueError(f"{calc.name}: the service takes {sorted(unknown)}, which openapi.py does not describe")
+    return {k: v for k, v in known.items() if k in taken}
+
+
+def request_schema(calc: Calculation, schemas: dict) -> dict:
+    """A calculation's request body: its inputs (units and domains), and the options."""
+    props = {spec.name: _input_schema(spec, schemas) for spec in calc.inputs}
+    props.update(_options(calc))
     required = [s.name for s in calc.inputs if s.required and s.default is None]
-    d = {"type": "object", "additionalProperties": False, "properties": props}
+    d: dict[str, Any] = {"type": "object", "additionalProperties": False, "properties": props}
     if required:
         d["required"] = required
     # exactly one of each exclusive group, at most one of each at-most-one group
@@ -69,272 +328,514 @@ def request_schema(calc: Calculation) -> dict:
     groups += [{"not": {"required": [a, b]}} for group in calc.at_most_one for a, b in combinations(group, 2)]
     if groups:
         d["allOf"] = groups
-    if calc.example:
-        d["example"] = calc.example
     return d
 
 
-def _result_schema(calc: Calculation) -> dict:
-    props = {o.name: {"$ref": "#/components/schemas/MeasuredResult", "description": f"{o.description} [{o.unit}]"}
-             for o in calc.outputs}
-    if any(s.kind == "series" for s in calc.inputs):
-        props["series"] = {"type": "object", "additionalProperties": {"$ref": "#/components/schemas/SeriesResult"}}
-    return {"type": "object", "properties": props, "additionalProperties": True}
+def _results_schema(calc: Calculation) -> dict:
+    series = any(s.kind == "series" for s in calc.inputs)
+    outputs = {o.name: {"description": f"{o.description} [{o.unit or 'dimensionless'}]",
+                        **_ref("SeriesResult" if series else "MeasuredResult")} for o in calc.outputs}
+    if series:
+        label = next(s.label or s.name for s in calc.inputs if s.kind == "series")
+        outputs[label] = {"description": "the series' own values", **_ref("SeriesResult")}
+        return {"type": "object", "description": "the outputs the given inputs determine",
+                "properties": {"series": {"type": "object", "properties": outputs}}}
+    return {"type": "object", "description": "the outputs the given inputs determine", "properties": outputs}
 
 
 def _response_schema(calc: Calculation) -> dict:
-    return {"type": "object", "required": ["calculation", "results", "uncertainty", "inputs", "warnings", "provenance"],
+    return {"type": "object", "required": ["calculation", "results", "uncertainty", "warnings", "provenance"],
             "properties": {
-                "calculation": {"type": "string", "enum": [calc.name]},
-                "results": _result_schema(calc),
-                "uncertainty": {"$ref": "#/components/schemas/UncertaintyReport"},
-                "inputs": {"type": "object"},
-                "warnings": {"type": "array", "items": {"$ref": "#/components/schemas/Warning"}},
-                "provenance": {"$ref": "#/components/schemas/Provenance"},
-            }}
+                "calculation": {"const": calc.name},
+                "results": _ref(f"{_key(calc)}_results"),
+                "uncertainty": _ref("UncertaintyReport"),
+                "inputs": {"type": "object", "description": "the inputs as understood, in their default units"},
+                "warnings": {"type": "array", "items": _ref("Warning")},
+                "provenance": _ref("Provenance"),
+                "correlation": _ref("OutputCorrelation")}}
 
 
-def _problem_responses(*codes: int) -> dict:
-    text = {400: "malformed JSON", 404: "unknown path", 405: "wrong method", 413: "body or work over the limits",
-            415: "not JSON", 422: "values that parse but are not physical or are inconsistent"}
-    return {str(c): {"description": text[c], "content": {"application/problem+json": {
-        "schema": {"$ref": "#/components/schemas/Problem"}}}} for c in codes}
+# ----------------------------------------------------------------------------- problems
 
-
-COMPONENTS = {
-    "MeasuredResult": {"type": "object", "required": ["value", "unit"], "properties": {
-        "value": {"type": ["number", "null"]}, "sigma": {"type": ["number", "null"]},
-        "low": {"type": ["number", "null"]}, "high": {"type": ["number", "null"]}, "unit": {"type": "string"}}},
-    "SeriesResult": {"type": "object", "required": ["value", "unit"], "properties": {
-        "value": {"type": "array", "items": {"type": ["number", "null"]}},
-        "sigma": {"type": "array", "items": {"type": ["number", "null"]}},
-        "low": {"type": "array", "items": {"type": ["number", "null"]}},
-        "high": {"type": "array", "items": {"type": ["number", "null"]}},
-        "unit": {"type": "string"}}},
-    "Correlations": {"type": "array", "items": {"type": "object", "additionalProperties": False,
-                                                "required": ["between", "rho"], "properties": {
-        "between": {"type": "array", "items": {"type": "string", "maxLength": 64}, "minItems": 2, "maxItems": 2,
-                    "uniqueItems": True},
-        "rho": {"type": "number", "minimum": -1, "maximum": 1}}}},
-    "UncertaintyOptions": {"type": "object", "additionalProperties": False, "properties": {
-        "method": {"type": "string", "enum": ["linear", "monte_carlo", "monte-carlo"], "default": "linear"},
-        "samples": {"type": "integer", "minimum": 1},
-        "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1}}},
-    "UncertaintyReport": {"type": "object", "required": ["method"], "properties": {
-        "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
-        "samples": {"type": "integer"}, "seed": {"type": "integer"},
-        "rejected_fraction": {"type": "number", "minimum": 0, "maximum": 1}}},
-    "Warning": {"type": "object", "required": ["code", "message"], "properties": {
-        "code": {"type": "string"}, "message": {"type": "string"},
-        "fields": {"type": "array", "items": {"type": "string"}}}},
-    "Provenance": {"type": "object", "required": ["version", "constants", "references", "conventions"],
-                   "properties": {"version": {"type": "string"}, "calculation": {"type": "string"},
-                                  "formulas": {"type": "object"}, "constants": {"type": "object"},
-                                  "references": {"type": "array", "items": {"type": "string"}},
-                                  "conventions": {"type": "object"}}},
-    "Problem": {"type": "object", "required": ["type", "title", "status", "detail"], "properties": {
-        "type": {"type": "string"}, "title": {"type": "string"}, "status": {"type": "integer"},
-        "detail": {"type": "string"},
-        "errors": {"type": "object", "additionalProperties": {"type": "array", "items": {"type": "string"}}}}},
+PROBLEM_TEXT = {
+    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot",
+    404: "unknown path",
+    405: "wrong method (the Allow header lists the right ones)",
+    406: "none of the media types in Accept can be answered (the problem lists those that can); a rows batch "
+         "answers in JSON only; series outputs need JSON or Arrow",
+    413: "the body or the work is over a configured limit (GET /v1/limits; the problem names it)",
+    415: "the body is not of a media type the route takes",
+    422: "values that parse but are not physical or are inconsistent (the problem names the fields)",
+}
+EDGE_EXAMPLES = {
+    400: {"type": "/problems/malformed-request", "title": "Malformed request", "status": 400,
+          "detail": "the request body is not valid JSON: Expecting value: line 1 column 1 (char 0)"},
+    404: {"type": "/problems/not-found", "title": "Not found", "status": 404,
+          "detail": "there is nothing at /v1/nothing; GET /v1/calculations lists the calculations"},
+    406: {"type": "/problems/not-acceptable", "title": "Not acceptable", "status": 406,
+          "detail": f"the answer can be given as {', '.join(media.ANSWERS)}; Accept lists none of them",
+          "errors": {"Accept": [f"must accept one of {', '.join(media.ANSWERS)}"]}},
+    413: {"type": "/problems/too-large", "title": "Request or work too large", "status": 413,
+          "detail": f"the request body is over {DEFAULTS.max_body_bytes} bytes (max_body_bytes)",
+          "limit": {"name": "max_body_bytes", "value": DEFAULTS.max_body_bytes}},
+    415: {"type": "/problems/unsupported-media-type", "title": "Unsupported media type", "status": 415,
+          "detail": "send the request body as JSON with Content-Type: application/json"},
 }
 
 
-def _get(summary: str, schema: dict | None = None, content_type: str = "application/json") -> dict:
-    return {"get": {"summary": summary, "responses": {
-        "200": {"description": summary, "content": {content_type: {"schema": schema or {"type": "object"}}}},
-        **_problem_responses(404)}}}
+def _problems(*codes: int, described: dict[int, str] | None = None, examples: dict[int, dict] | None = None) -> dict:
+    """Problem responses: a shared one (components/responses) unless this operation has its own words or example."""
+    out = {}
+    for code in codes:
+        example = (examples or {}).get(code)
+        if example is None and code not in (described or {}):
+            out[str(code)] = {"$ref": f"#/components/responses/{RESPONSE_NAMES[code]}"}
+            continue
+        content = {"schema": _ref("Problem")}
+        if example is not None:
+            content["example"] = example
+        elif code in EDGE_EXAMPLES:
+            content["examples"] = {"problem": {"$ref": f"#/components/examples/problem_{code}"}}
+        out[str(code)] = {"description": (described or {}).get(code, PROBLEM_TEXT[code]),
+                          "content": {media.PROBLEM: content}}
+    return out
 
 
-RENDERED_CONTENT = {
-    "text/x-tex": {"schema": {"type": "string", "description": "LaTeX derivation report (format=latex)"}},
-    "text/markdown": {"schema": {"type": "string", "description": "Markdown derivation report (format=markdown)"}},
-    "image/svg+xml": {"schema": {"type": "string", "description": "figure (format=svg)"}},
-    "image/png": {"schema": {"type": "string", "contentMediaType": "image/png", "description": "figure (format=png)"}},
-}
+RESPONSE_NAMES = {400: "Malformed", 404: "NotFound", 405: "MethodNotAllowed", 406: "NotAcceptable", 413: "TooLarge",
+                  415: "UnsupportedMediaType", 422: "Invalid"}
 
 
-def _format_parameters(calc: Calculation) -> list[dict]:
-    """The ``format`` and ``plot`` query parameters of a calculation's endpoint."""
-    from .api.render import FORMATS
-    from .plots import has_curve
-    curve = ("without plot, svg and png draw the radial-velocity curves of both stars with the requested times "
-             "marked (and the relative orbit when visual elements are given); " if has_curve(calc) else "")
-    return [
-        {"name": "format", "in": "query", "required": False,
-         "description": "json (default): the response; latex or markdown: the derivation report (inputs, formulas "
-                        "with references, constants with sources, conventions, uncertainty method), numbers rounded "
-                        "by the Particle Data Group rule; svg or png: a figure",
-         "schema": {"type": "string", "enum": ["json", *FORMATS], "default": "json"}},
-        {"name": "plot", "in": "query", "required": False,
-         "description": f"with format=svg or png: {curve}plot=NAME draws the histogram of output NAME's Monte Carlo "
-                        "draws with the median and the central 68.27 % interval (needs the Monte Carlo method)",
-         "schema": {"type": "string", "enum": [o.name for o in calc.outputs]}},
-    ]
+REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields for: a value outside its domain "
+            "once converted from the unit given; a unit that does not convert to the input's (or, in units, to the "
+            "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
+            "that are not ISO 8601 times (or mix too many formats); correlations naming an input not given, a pair "
+            "correlated twice, an input given as samples (they carry their own correlations), or a correlation "
+            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output has no finite value (not "
+            "physically consistent); plot=NAME without the Monte Carlo method, or for an "
+            "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 
 
-ANY_ITEMS = {"type": "array", "minItems": 1, "items": {}}
-BATCH_OPTIONS = {
-    "correlations": {"$ref": "#/components/schemas/Correlations"},
-    "uncertainty": {"$ref": "#/components/schemas/UncertaintyOptions"},
-    "units": {"type": "object", "additionalProperties": {"type": "string"},
-              "description": "output name -> astropy unit for the response"},
-    "time_format": {"type": "string", "enum": ["jd", "mjd"], "default": "jd"},
-    "echo": {"type": "boolean", "default": False, "description": "rows: each row echoes its inputs"},
-}
+def _refusals(calc: Calculation) -> str:
+    """The conditions of this calculation the schema cannot say, from the declaration."""
+    reasons = list(dict.fromkeys(f"{', '.join(c.fields)}: {c.message}" for c in calc.constraints))
+    if calc.exclusive:
+        reasons.append("exactly one of " + "; ".join(" or ".join(g) for g in calc.exclusive))
+    own = ("; its own conditions: " + "; ".join(reasons)) if reasons else ""
+    return PROBLEM_TEXT[422] + own + " (and the general reasons of the calculations tag)"
 
 
-def _batch_column_schema(spec: Input) -> dict:
-    """One input's column: entries that are wrong for one system are answered in its place, so the
-    entries themselves are not constrained here (the single request's rules apply to each)."""
-    if spec.kind == "series":
-        return _input_schema(spec)
-    if spec.kind != "quantity":
-        return {"description": f"{spec.description}: one value for every system, or an array of one per system "
-                               "(null: not given)"}
-    return {"description": f"{spec.description} [{spec.unit or 'dimensionless'}]",
-            "$ref": "#/components/schemas/BatchQuantityColumn"}
+def _malformed(calc: Calculation) -> str:
+    """The 400s of a calculation's route: malformed bodies, and the figure parameters it cannot draw."""
+    series = any(s.kind == "series" for s in calc.inputs)
+    if series:
+        plot = "plot naming a series output (without plot the figure draws the series)"
+    elif not has_curve(calc):
+        plot = "format=svg or png without plot (this calculation draws no curve: plot names the output to draw)"
+    else:
+        plot = ""
+    return PROBLEM_TEXT[400] + (f"; {plot}" if plot else "")
 
 
-_PER_SYSTEM = {"oneOf": [NUMBER, ANY_ITEMS, {"type": "string"}]}
-BATCH_QUANTITY_COLUMN = {
-    "description": "one number for every system, an array of exact values (null: not given for that system), or "
-                   "an object of value and sigma (or sigma_minus and sigma_plus) arrays or numbers with one unit "
-                   "for the column; samples as one list of draws per system",
-    "oneOf": [NUMBER, ANY_ITEMS, {"type": "string"},
-              {"type": "object", "additionalProperties": False, "properties": {
-                  "value": _PER_SYSTEM, "sigma": _PER_SYSTEM, "sigma_minus": _PER_SYSTEM, "sigma_plus": _PER_SYSTEM,
-                  "unit": {"type": "string"}, "samples": {"type": "array", "items": {"type": "array"}}}}],
-}
+def _break(calc: Calculation, example: dict) -> dict:
+    """The example with one input moved out of its domain, given in its default unit named (the schema
+    lets a value with a unit through: the domain applies once converted, and the answer is a 422)."""
+    for spec in calc.inputs:
+        bounds = spec.domain
+        if spec.kind == "quantity" and not spec.time and spec.name in example:
+            if bounds.low != -math.inf:
+                return {**example, spec.name: {"value": bounds.low - 1.0, "unit": spec.unit}}
+            if bounds.high != math.inf:
+                return {**example, spec.name: {"value": bounds.high + 1.0, "unit": spec.unit}}
+    for spec in calc.inputs:          # no bounded input: a unit that does not convert
+        if spec.kind == "quantity" and not spec.time and spec.name in example:
+            return {**example, spec.name: {"value": 1.0, "unit": "kg" if spec.unit != "solMass" else "km"}}
+    return {**example, "colour": "blue"}
 
 
-def _batch_paths(calc: Calculation, key: str, schemas: dict, paths: dict) -> None:
-    """``POST /v1/batch/<name>``: rows (a list of request bodies) or columns (one array per input)."""
-    options = {k: v for k, v in BATCH_OPTIONS.items() if k != "time_format" or any(s.time for s in calc.inputs)}
-    options["units"] = {**options["units"], "propertyNames": {"enum": [o.name for o in calc.outputs]}}
-    rows = {"type": "object", "additionalProperties": False, "required": ["systems"], "properties": {
-        "systems": {"type": "array", "minItems": 1, "items": {},
-                    "description": f"request bodies of {calc.path} (#/components/schemas/{key}_request), one per "
-                                   "system; the top-level options apply to each unless it gives its own; a system "
-                                   "that is not valid is answered in its place"},
-        **options}}
-    columns = {"type": "object", "additionalProperties": False, "required": ["columns"], "properties": {
-        "columns": {"type": "object", "minProperties": 1, "additionalProperties": False,
-                    "properties": {spec.name: _batch_column_schema(spec) for spec in calc.inputs}},
-        **options}}
-    if calc.example:
-        shared = {k: v for k, v in calc.example.items() if k in BATCH_OPTIONS}
-        rows["example"] = {"systems": [{k: v for k, v in calc.example.items() if k not in BATCH_OPTIONS}], **shared}
-    schemas["BatchQuantityColumn"] = BATCH_QUANTITY_COLUMN
-    schemas[f"{key}_batch_request"] = {"oneOf": [rows, columns]}
-    column_result = {"type": "object", "required": ["value", "unit"], "properties": {
-        "value": {"type": "array", "items": {}}, "sigma": {"type": "array", "items": {}},
-        "low": {"type": "array", "items": {}}, "high": {"type": "array", "items": {}}, "unit": {"type": "string"}}}
-    schemas[f"{key}_batch_response"] = {"oneOf": [
-        {"type": "object", "required": ["calculation", "count", "uncertainty", "provenance", "results"], "properties": {
-            "calculation": {"type": "string", "enum": [calc.name]},
-            "count": {"type": "integer", "minimum": 1},
-            "uncertainty": {"type": "object", "required": ["method"]},
-            "provenance": {"$ref": "#/components/schemas/Provenance"},
-            "results": {"type": "array", "description": "one per system, in input order", "items": {"anyOf": [
-                {"type": "object", "required": ["results", "warnings"], "additionalProperties": False,
-                 "properties": {"results": {"type": "object"}, "warnings": {"type": "array"},
-                                "uncertainty": {"type": "object"}, "inputs": {"type": "object"},
-                                "time_format": {"type": "string"}}},
-                {"type": "object", "required": ["error"], "additionalProperties": False,
-                 "properties": {"error": {"$ref": "#/components/schemas/Problem"}}}]}}}},
-        {"type": "object", "required": ["calculation", "count", "columns", "errors", "uncertainty", "warnings",
-                                        "provenance"], "properties": {
-            "calculation": {"type": "string", "enum": [calc.name]},
-            "count": {"type": "integer", "minimum": 1},
-            "columns": {"type": "object", "description": "each output: value, sigma (low, high) arrays over the "
-                                                         "systems and its unit, null where a system failed; extra "
-                                                         "members (e.g. events) as one entry per system",
-                        "properties": {o.name: column_result for o in calc.outputs},
-                        "additionalProperties": {"type": "array"}},
-            "errors": {"type": "array", "items": {"allOf": [
-                {"$ref": "#/components/schemas/Problem"},
-                {"type": "object", "required": ["index"], "properties": {"index": {"type": "integer", "minimum": 0}}}]}},
-            "uncertainty": {"type": "object", "required": ["method"], "properties": {
-                "method": {"oneOf": [{"type": "string"}, {"type": "array"}]}}},
-            "warnings": {"type": "array", "items": {"type": "object", "required": ["code", "message", "rows"],
-                                                    "properties": {"code": {"type": "string"},
-                                                                   "message": {"type": "string"},
-                                                                   "rows": {"type": "array",
-                                                                            "items": {"type": "integer"}}}}},
-            "provenance": {"$ref": "#/components/schemas/Provenance"}}},
-    ]}
-    paths[f"/v1/batch/{calc.name}"] = {"post": {
+def _plain(obj) -> Example:
+    """A computed answer as the JSON reads (numpy values as numbers, non-finite as null)."""
+    def default(o):
+        if hasattr(o, "tolist"):
+            return o.tolist()
+        raise TypeError(type(o).__name__)
+    text = json.dumps(obj, default=default, allow_nan=True)
+    return Example(json.loads(text, parse_constant=lambda c: None))
+
+
+PROVENANCE_KEPT = ("version", "calculation")
+ANSWER = {"summary": "the service's answer to the example",
+          "description": "Computed by the service when this document was built; its provenance abridged to the "
+                         "version: the formulas, constants with their sources, references and conventions of "
+                         "each calculation are in GET /v1/calculations/{name} and on /docs."}
+
+
+def abridged(answer: Example) -> Example:
+    """An answer with its provenance (and its rows') cut to the version and the calculation's name."""
+    def cut(node):
+        if isinstance(node, dict):
+            return type(node)({k: ({kk: vv for kk, vv in v.items() if kk in PROVENANCE_KEPT}
+                                   if k == "provenance" and isinstance(v, dict) else cut(v)) for k, v in node.items()})
+        if isinstance(node, list):
+            return [cut(v) for v in node]
+        return node
+    return cut(answer)
+
+
+def _examples(calc: Calculation) -> dict:
+    """The declaration's fictional example, and the service's own answers to it."""
+    service = _service()
+    compute, compute_batch, Problem = service.compute, service.compute_batch, service.Problem
+    body = dict(calc.example)
+    out = {"request": _plain(body), "response": abridged(_plain(compute(calc.name, body)))}
+    try:
+        compute(calc.name, _break(calc, body))
+    except Problem as p:
+        out["422"] = _plain(p.as_dict())
+    shared = {k: v for k, v in body.items() if k in _options(calc)}
+    system = {k: v for k, v in body.items() if k not in shared}
+    rows = {"systems": [system, _break(calc, system)], **shared}
+    out["batch_request"] = _plain(rows)
+    out["batch_response"] = abridged(_plain(compute_batch(calc.name, rows)))
+    try:
+        compute_batch(calc.name, {**rows, "columns": {}})
+    except Problem as p:
+        out["batch_422"] = _plain(p.as_dict())
+    return out
+
+
+# ----------------------------------------------------------------------------- operations
+
+FORMAT = {"name": "format", "in": "query", "required": False,
+          "description": "json (default): the answer; latex or markdown: the derivation report (inputs, formulas with "
+                         "references, constants with sources, conventions, uncertainty method), numbers rounded by the "
+                         "Particle Data Group rule; svg or png: a figure: the radial-velocity curves of a calculation "
+                         "that has them, or with plot=NAME the histogram of output NAME's Monte Carlo draws with the "
+                         "median and the central 68.27 % interval. plot needs the Monte Carlo method (\"uncertainty\": "
+                         "{\"method\": \"monte_carlo\"}, or samples inputs): without it the answer is a 422 naming "
+                         "plot. Other formats ignore plot.",
+          "schema": {"type": "string", "enum": ["json", *media.FORMATS], "default": "json"}}
+
+
+def _plot_parameter(calc: Calculation) -> dict:
+    curve = "; without plot: the radial-velocity curves" if has_curve(calc) else ""
+    return {"name": "plot", "in": "query", "required": False,
+            "description": f"with format=svg or png: the histogram of this output's Monte Carlo draws (it needs the Monte "
+                           f"Carlo method: without it, 422){curve}",
+            "schema": {"type": "string", "enum": [o.name for o in calc.outputs]}}
+
+
+RENDERED = {media.REPORTS["latex"].split(";")[0]: {"schema": {"type": "string"}},
+            media.REPORTS["markdown"].split(";")[0]: {"schema": {"type": "string"}},
+            media.FIGURES["svg"]: {"schema": {"type": "string"}},
+            media.FIGURES["png"]: {"schema": {"type": "string", "contentMediaType": "image/png"}}}
+
+
+def _calculation_path(calc: Calculation, ex: dict) -> dict:
+    key = _key(calc)
+    return {"post": {
+        "operationId": f"calculate_{key}",
+        "summary": calc.title,
+        "description": calc.summary,
+        "tags": ["calculations"],
+        "parameters": [{"$ref": "#/components/parameters/format"}, _plot_parameter(calc)],
+        "requestBody": {"required": True, "content": {media.JSON: {
+            "schema": _ref(f"{key}_request"),
+            "examples": {"fictional": {"summary": "a fictional system", "value": ex["request"]}}}}},
+        "responses": {
+            "200": {"description": "the outputs with uncertainties and provenance (JSON), the derivation report "
+                                   "(format=latex|markdown) or a figure (format=svg|png)",
+                    "content": {media.JSON: {"schema": _ref(f"{key}_response"),
+                                             "examples": {"fictional": {**ANSWER, "value": ex["response"]}}},
+                                **RENDERED}},
+            **_problems(400, 413, 415, 422, described={400: _malformed(calc), 422: _refusals(calc)},
+                        examples={422: ex.get("422")})}}}
+
+
+BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in input order: its results, warnings "
+         "and what differs from the batch's uncertainty (its inputs with \"echo\": true), or {\"error\": problem} "
+         "in its place; provenance once, at the top. Columns ({\"columns\": {input: {\"value\": [...], \"sigma\": "
+         "[...]}}}) are answered with one array per output and the failed systems in errors with their index. A "
+         "system that is not valid never fails the batch; the options that apply to the whole batch (uncertainty, "
+         "units, correlations, time_format, echo, covariance, budget) are checked once, and a bad one is a 422 for "
+         "the whole request. Monte Carlo draws (systems x samples) are limited per batch.\n\n"
+         "Bodies and answers may be JSON, an Apache Arrow IPC stream (application/vnd.apache.arrow.stream), CSV or "
+         "ECSV (text/csv, ECSV when the text starts with '# %ECSV'; text/x-ecsv accepted too). Content-Type says "
+         "the body's type, Accept picks the answer's (default: the body's own; 406 when none fits, and for a rows "
+         "batch asked for as a table; 415 for an unknown body type). Content-Encoding: gzip on the body and Accept-Encoding: gzip on the answer work for "
+         "every type. A table has one column NAME per input in its unit (Arrow field metadata {\"unit\": ...}, the "
+         "ECSV header, or NAME[unit] as a CSV header; else the input's default unit), NAME_sigma (or "
+         "NAME_sigma_minus and NAME_sigma_plus) in NAME's unit, choices as strings, an isotropic inclination as the "
+         "string isotropic; a missing value (Arrow null, empty CSV cell, masked ECSV entry) means not given for that "
+         "system. The options of a table body go in the query parameter options. An answer table has, per output, "
+         "NAME, NAME_sigma (Monte Carlo also NAME_low, NAME_high), then error_status, error and warnings; "
+         "calculation, uncertainty and provenance in the table metadata. Tables carry no correlation. Series outputs "
+         "need JSON or Arrow (CSV/ECSV: 406).")
+TABLES = {media.ARROW: {"schema": {"type": "string", "format": "binary", "contentMediaType": media.ARROW}},
+          media.CSV: {"schema": {"type": "string"}}, media.ECSV: {"schema": {"type": "string"}}}
+
+
+def _batch_path(calc: Calculation, ex: dict) -> dict:
+    key = _key(calc)
+    return {"post": {
         "operationId": f"batch_{key}",
         "summary": f"{calc.title}: many systems at once",
-        "description": "Rows ({\"systems\": [...]}) are answered with one full response (or {\"error\": problem}) per "
-                       "system, in input order; columns ({\"columns\": {input: {\"value\": [...], \"sigma\": [...]}}}) "
-                       "with one array per output and the failed systems in errors with their index. Systems of one "
-                       "shape are computed together. Monte Carlo draws (systems x samples) are limited per batch.",
-        "requestBody": {"required": True, "content": {"application/json": {
-            "schema": {"$ref": f"#/components/schemas/{key}_batch_request"}}}},
-        "responses": {"200": {"description": "one answer per system", "content": {"application/json": {
-            "schema": {"$ref": f"#/components/schemas/{key}_batch_response"}}}},
-                      **_problem_responses(400, 413, 415, 422)},
-    }}
+        "description": f"{calc.title} for many systems (see the batch tag for rows, columns and tables).",
+        "tags": ["batch"],
+        "parameters": [{"$ref": "#/components/parameters/options"}],
+        "requestBody": {"required": True, "content": {
+            media.JSON: {"schema": _ref(f"{key}_batch_request"),
+                         "examples": {"rows": {"summary": "the fictional system, and a copy with an input out of "
+                                                          "its domain (answered in its place)",
+                                               "value": ex["batch_request"]}}},
+            **TABLES}},
+        "responses": {
+            "200": {"description": "one answer per system",
+                    "headers": {"Content-Encoding": {"$ref": "#/components/headers/Content-Encoding"}},
+                    "content": {media.JSON: {"schema": _ref(f"{key}_batch_response"),
+                                             "examples": {"rows": {**ANSWER, "value": ex["batch_response"]}}},
+                                **TABLES}},
+            **_problems(400, 406, 413, 415, 422,
+                        described={400: PROBLEM_TEXT[400] + ", a table that cannot be read, or the options "
+                                                            "parameter with a JSON body",
+                                   422: PROBLEM_TEXT[422] + ", for the batch as a whole: neither or both of systems "
+                                                            "and columns, columns of different lengths, a bad "
+                                                            "option"},
+                        examples={422: ex.get("batch_422")})}}}
 
 
-EXTRA_PATH_BUILDERS = []   # callables (spec dict) -> None, for blueprints that add paths (e.g. batch)
+COMPONENTS["BatchOptions"] = {
+    "type": "object", "additionalProperties": False,
+    "description": "the options of a batch (the members of a JSON batch body besides systems and columns)",
+    "properties": {"correlations": {"type": "array", "items": _ref("Correlation")}, "uncertainty": _ref("Uncertainty"),
+                   "units": {"type": "object", "additionalProperties": {"type": "string"}},
+                   "time_format": {"type": "string", "enum": ["jd", "mjd"]}, "echo": ECHO,
+                   "covariance": {"type": "boolean"}, "budget": {"type": "boolean"}}}
+
+
+COMPONENTS["BatchRow"] = {
+    "type": "object", "required": ["results"], "description": "one system's answer in a rows batch",
+    "properties": {"results": {"type": "object"}, "warnings": {"type": "array", "items": _ref("Warning")},
+                   "uncertainty": {**_ref("UncertaintyReport"), "description": "only what differs from the batch's"},
+                   "inputs": {"type": "object", "description": "with echo"},
+                   "correlation": _ref("OutputCorrelation")}}
+
+
+COMPONENTS["BatchRowsAnswer"] = {
+    "title": "rows", "type": "object", "required": ["calculation", "results"],
+    "description": "the answer to rows: provenance, count and uncertainty once, then one entry per system",
+    "properties": {"calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
+                   "uncertainty": _ref("UncertaintyReport"), "provenance": _ref("Provenance"),
+                   "results": {"type": "array", "description": "one per system, in input order",
+                               "items": {"type": "object"}}}}
+COMPONENTS["BatchColumnsAnswer"] = {
+    "title": "columns", "type": "object", "required": ["calculation", "count", "columns", "errors"],
+    "description": "the answer to columns: one array per output over the systems, the failed systems in errors",
+    "properties": {
+        "calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
+        "columns": {"type": "object", "additionalProperties": {
+            "type": "array", "items": {"type": ["object", "null"]},
+            "description": "extra members (e.g. events), one entry per system"}},
+        "errors": {"type": "array", "items": _ref("ColumnError")},
+        "uncertainty": {"type": "object", "properties": {
+            "method": {"oneOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
+            "rejected_fraction": {"oneOf": [{"type": "number"}, NULLABLE_NUMBERS]}}},
+        "warnings": {"type": "array", "items": _ref("ColumnWarning")},
+        "provenance": _ref("Provenance"),
+        "correlation": _ref("ColumnsCorrelation")}}
+
+
+def _batch_schemas(calc: Calculation, schemas: dict) -> None:
+    """``POST /v1/batch/<name>``: rows (a list of request bodies) or columns (one array per input)."""
+    key = _key(calc)
+    schemas[f"{key}_batch_request"] = {
+        "type": "object", "additionalProperties": False,
+        "oneOf": [{"title": "rows", "required": ["systems"]}, {"title": "columns", "required": ["columns"]}],
+        "properties": {
+            "systems": {"type": "array", "minItems": 1, "items": _ref(f"{key}_request"),
+                        "description": "rows: one request body per system; the top-level options apply to each "
+                                       "unless it gives its own; a system that is not valid is answered with its "
+                                       "error in its place"},
+            "columns": {"type": "object", "minProperties": 1, "additionalProperties": False,
+                        "description": "columns: one entry per input; every array has one entry per system; an "
+                                       "entry that is not valid is answered with an error for its system",
+                        "properties": {spec.name: _column_schema(spec) for spec in calc.inputs}},
+            **_options(calc, batch=True)}}
+    series = any(s.kind == "series" for s in calc.inputs)
+    row = {"allOf": [_ref("BatchRow")], "properties": {"results": _ref(f"{key}_results")}}
+    schemas[f"{key}_batch_response"] = {"oneOf": [
+        {"allOf": [_ref("BatchRowsAnswer")], "properties": {
+            "calculation": {"const": calc.name},
+            "results": {"items": {"anyOf": [row, _ref("RowError")]}}}},
+        {"allOf": [_ref("BatchColumnsAnswer")], "properties": {
+            "calculation": {"const": calc.name},
+            "columns": {"properties": {
+                o.name: _ref("SeriesColumnResult" if series else "ColumnResult") for o in calc.outputs}}}},
+    ]}
+
+
+def _get(summary: str, schema: dict, example: Any = None, content_type: str = media.JSON, tag: str = "service") -> dict:
+    content = {"schema": schema}
+    if example is not None:
+        content["example"] = Example(example) if isinstance(example, dict) else example
+    return {"get": {"summary": summary, "tags": [tag], "responses": {
+        "200": {"description": summary, "content": {content_type: content}}}}}
+
+
+def _limits_example() -> dict:
+    return {"limits": {f.name: {"value": getattr(DEFAULTS, f.name), "env": f"CALCSERVICE_{f.name.upper()}"}
+                       for f in fields(Limits)}}
+
+
+def _service_paths() -> dict:
+    from .constants import CONSTANTS
+    sb = min(calculations().values(), key=lambda c: len(json.dumps(c.as_dict())))    # the shortest declaration
+    declaration = {"type": "object", "required": ["name", "path", "inputs", "outputs"]}
+    return {
+        "/v1/health": _get("liveness: the worker answers",
+                           {"type": "object", "required": ["status", "version"],
+                            "properties": {"status": {"const": "ok"}, "version": {"type": "string"}}},
+                           {"status": "ok", "version": __version__}),
+        "/v1/ready": _get("readiness: the registry and the spec load",
+                          {"type": "object", "required": ["status"], "properties": {
+                              "status": {"type": "string"}, "version": {"type": "string"},
+                              "calculations": {"type": "integer"}, "spec_bytes": {"type": "integer"}}},
+                          {"status": "ready", "version": __version__, "calculations": len(calculations())}),
+        "/v1/constants": _get("every constant with value, unit and source",
+                              {"type": "object", "required": ["constants"], "properties": {"constants": {
+                                  "type": "object", "additionalProperties": {"type": "object"}}}},
+                              {"constants": {k: c.as_dict() for k, c in list(CONSTANTS.items())[:2]}}),
+        "/v1/limits": _get("every limit in force: its value, its environment variable and what it bounds "
+                           "(LIMITS.md)",
+                           {"type": "object", "required": ["limits"], "properties": {"limits": {
+                               "type": "object", "additionalProperties": _ref("Limit")}}}, _limits_example()),
+        "/v1/calculations": _get("every calculation: inputs, units, domains, outputs, references",
+                                 {"type": "object", "required": ["calculations"], "properties": {
+                                     "calculations": {"type": "array", "items": declaration}}},
+                                 {"calculations": [_plain(sb.as_dict())]}),
+        "/v1/calculations/{name}": {"get": {
+            "summary": "one calculation's declaration", "tags": ["service"],
+            "parameters": [{"name": "name", "in": "path", "required": True,
+                            "schema": {"type": "string", "enum": list(calculations())}, "example": sb.name}],
+            "responses": {"200": {"description": "the declaration", "content": {media.JSON: {
+                "schema": declaration, "example": _plain(sb.as_dict())}}},
+                          **_problems(404)}}},
+        "/openapi.yaml": _get("this document", {"type": "object", "required": ["openapi", "paths"]},
+                              content_type="application/yaml"),
+        "/docs": _get("the reference page: every calculation with its inputs, outputs, formulas, references, "
+                      "conventions and examples", {"type": "string"}, content_type="text/html", tag="pages"),
+        "/": _get("the web form", {"type": "string"}, content_type="text/html", tag="pages"),
+    }
+
+
+def _too_large() -> Example:
+    """A 413 of the service's own: more Monte Carlo draws than the limit."""
+    compute, Problem = _service().compute, _service().Problem
+    calc = next(iter(calculations().values()))
+    try:
+        compute(calc.name, {**calc.example, "uncertainty": {"method": "monte_carlo",
+                                                            "samples": DEFAULTS.max_samples + 1}})
+    except Problem as p:
+        return _plain(p.as_dict())
+    return Example(EDGE_EXAMPLES[413])
+
+
+def _shared_responses() -> dict:
+    examples = {**EDGE_EXAMPLES, 413: _too_large()}
+    out = {}
+    for code, name in RESPONSE_NAMES.items():
+        content = {"schema": _ref("Problem")}
+        if code in examples:
+            content["example"] = Example(examples[code])
+        out[name] = {"description": PROBLEM_TEXT.get(code, name), "content": {media.PROBLEM: content}}
+    return out
+
+
+TAGS = [
+    {"name": "calculations", "description": "One system per request. Every numeric input takes the forms of "
+                                            "MeasuredInput (exact, normal, asymmetric, samples) in its default unit or "
+                                            "with its own. " + REFUSALS},
+    {"name": "batch", "description": BATCH},
+    {"name": "service", "description": "Health, readiness, constants, limits, the declarations and this document."},
+    {"name": "pages", "description": "Pages for a person: the form and the reference."},
+]
 
 
 def build_spec() -> dict:
-    paths: dict[str, dict] = {
-        "/v1/health": _get("liveness: the worker answers", {"type": "object", "required": ["status", "version"],
-                                                             "properties": {"status": {"type": "string"},
-                                                                            "version": {"type": "string"}}}),
-        "/v1/ready": _get("readiness: the registry and spec load"),
-        "/v1/constants": _get("every constant with value, unit and source"),
-        "/v1/calculations": _get("every calculation: inputs, units, domains, outputs, references"),
-        "/v1/calculations/{name}": {"get": {
-            "summary": "one calculation's declaration",
-            "parameters": [{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}],
-            "responses": {"200": {"description": "the declaration",
-                                  "content": {"application/json": {"schema": {"type": "object"}}}},
-                          **_problem_responses(404)}}},
-        "/openapi.yaml": _get("this document", {"type": "string"}, "application/yaml"),
-    }
+    paths = _service_paths()
     schemas = dict(COMPONENTS)
     for calc in calculations().values():
-        key = calc.name.replace("-", "_")
-        schemas[f"{key}_request"] = request_schema(calc)
+        key = _key(calc)
+        ex = _examples(calc)
+        schemas[f"{key}_request"] = request_schema(calc, schemas)
+        schemas[f"{key}_results"] = _results_schema(calc)
         schemas[f"{key}_response"] = _response_schema(calc)
-        _batch_paths(calc, key, schemas, paths)
-        paths[calc.path] = {"post": {
-            "operationId": f"calculate_{key}",
-            "summary": calc.title,
-            "description": calc.summary,
-            "parameters": _format_parameters(calc),
-            "requestBody": {"required": True, "content": {"application/json": {
-                "schema": {"$ref": f"#/components/schemas/{key}_request"}}}},
-            "responses": {"200": {"description": "the derived quantities with uncertainties and provenance "
-                                                 "(JSON), the derivation report (format=latex|markdown) or a "
-                                                 "figure (format=svg|png)",
-                                  "content": {"application/json": {
-                                      "schema": {"$ref": f"#/components/schemas/{key}_response"}},
-                                      **RENDERED_CONTENT}},
-                          **_problem_responses(400, 413, 415, 422)},
-        }}
-    spec = {
+        _batch_schemas(calc, schemas)
+        paths[calc.path] = _calculation_path(calc, ex)
+        paths[f"/v1/batch/{calc.name}"] = _batch_path(calc, ex)
+    return {
         "openapi": "3.1.0",
         "info": {"title": "calcservice", "version": __version__,
                  "description": "Binary-star orbital elements to physical numbers with propagated uncertainties. "
                                 "Conventions: radial velocity positive when receding; omega is the primary's "
-                                "argument of periastron; q = M2/M1 = K1/K2; times are Julian Dates."},
+                                "argument of periastron; q = M2/M1 = K1/K2; times are Julian Dates. "
+                                "Every error is an RFC 9457 problem (application/problem+json). The examples are "
+                                "fictional systems, answered by the service when this document was built. "
+                                "A person's reference: GET /docs."},
+        "tags": TAGS,
         "paths": paths,
-        "components": {"schemas": schemas},
+        "components": {
+            "schemas": schemas,
+            "parameters": {
+                "format": FORMAT,
+                "options": {"name": "options", "in": "query", "required": False,
+                            "description": "with a table body (Arrow, CSV, ECSV): the options of the whole batch, "
+                                           "a URL-encoded JSON object with the members of a JSON body's options "
+                                           "(a JSON body carries its own: with one, this parameter is a 400)",
+                            "content": {media.JSON: {"schema": _ref("BatchOptions")}}}},
+            "headers": {"Content-Encoding": {"description": "gzip when the request's Accept-Encoding asks for it",
+                                             "schema": {"type": "string", "enum": ["gzip"]}}},
+            "responses": _shared_responses(),
+            "examples": {f"problem_{code}": {"value": Example(example)} for code, example in EDGE_EXAMPLES.items()},
+        },
     }
-    for builder in EXTRA_PATH_BUILDERS:
-        builder(spec)
-    return spec
+
+
+class _Dumper(yaml.SafeDumper):
+    """A YAML dumper that writes every node out in full: no anchors, no aliases."""
+
+    def ignore_aliases(self, data) -> bool:
+        return True
+
+
+class Example(dict):
+    """An example value: written in YAML's flow style (it reads as the JSON on the wire)."""
+
+
+SHORT = 96        # a mapping or list whose JSON is this short is written on one line, in flow style
+
+
+def _short(data) -> bool:
+    if isinstance(data, list) and not any(isinstance(x, (dict, list)) for x in data):
+        return True     # a list of names or numbers (an enum, required) reads well on a line, wrapped
+    return len(json.dumps(data, default=str)) <= SHORT
+
+
+_Dumper.add_representer(Example, lambda dumper, data: dumper.represent_mapping(
+    "tag:yaml.org,2002:map", data.items(), flow_style=True))
+_Dumper.add_representer(dict, lambda dumper, data: dumper.represent_mapping(
+    "tag:yaml.org,2002:map", data.items(), flow_style=_short(data)))
+_Dumper.add_representer(list, lambda dumper, data: dumper.represent_sequence(
+    "tag:yaml.org,2002:seq", data, flow_style=_short(data)))
+
+
+def dump_yaml(document) -> str:
+    """YAML as the spec is written: short mappings and lists on one line, no anchors or aliases."""
+    return yaml.dump(document, Dumper=_Dumper, sort_keys=False, allow_unicode=True, width=110)
 
 
 @lru_cache(maxsize=1)
 def spec_yaml() -> str:
-    return yaml.safe_dump(build_spec(), sort_keys=False, allow_unicode=True, width=110)
+    return dump_yaml(build_spec())
 
 
 def main() -> None:

@@ -80,9 +80,11 @@ def histogram(name: str, draws: np.ndarray, entry: Mapping[str, Any], fmt: str, 
     fig = _new_figure(7.0, 4.4)
     ax = fig.add_subplot()
     edges = np.histogram_bin_edges(d, bins="fd") if d.size > 1 and np.ptp(d) > 0 else 10
+    # draws all equal: numpy's default bar of +-0.5 around them vanishes beside a value such as 1e45
+    span = (d[0] - max(abs(d[0]) * 1e-6, 0.5), d[0] + max(abs(d[0]) * 1e-6, 0.5)) if np.isscalar(edges) else None
     if not np.isscalar(edges) and len(edges) > MAX_BINS + 1:
         edges = MAX_BINS
-    ax.hist(d, bins=edges, color="#9db7d5", edgecolor="#4d6f96", linewidth=0.4)
+    ax.hist(d, bins=edges, range=span, color="#9db7d5", edgecolor="#4d6f96", linewidth=0.4)
     median, low, high = entry.get("value"), entry.get("low"), entry.get("high")
     if all(isinstance(x, (int, float)) and math.isfinite(x) for x in (low, high)):
         ax.axvspan(low, high, color="#f0b45a", alpha=0.25, zorder=0, label="central 68.27 % interval")

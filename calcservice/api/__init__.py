@@ -7,7 +7,7 @@ from flask import Flask
 from .. import registry
 from ..config import load_settings
 from ..memory import keep_freed_memory
-from . import batch, calculations, edge, form, meta
+from . import batch, calculations, docs, edge, form, meta
 
 
 def create_app(config=None) -> Flask:
@@ -27,6 +27,6 @@ def create_app(config=None) -> Flask:
 
     registry.calculations()      # every declaration registered (and any broken one loud) before serving
     edge.install(app)
-    for blueprint in (meta.bp, calculations.bp, batch.bp, form.bp):
+    for blueprint in (meta.bp, calculations.bp, batch.bp, form.bp, docs.bp):
         app.register_blueprint(blueprint)
     return app

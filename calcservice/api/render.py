@@ -11,14 +11,7 @@ from flask import Response
 from .. import plots, report
 from ..config import Limits
 from ..core import Problem, compute, find
-
-FORMATS = ("latex", "markdown", "svg", "png")
-MIMETYPES = {
-    "latex": "text/x-tex; charset=utf-8",
-    "markdown": "text/markdown; charset=utf-8",
-    "svg": "image/svg+xml",
-    "png": "image/png",
-}
+from ..media import FORMATS, MIMETYPES
 
 
 def render(name: str, body: Any, fmt: str, limits: Limits, args: Mapping[str, str] | None = None) -> Response:

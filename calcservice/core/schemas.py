@@ -350,13 +350,22 @@ class CorrelationSchema(Schema):
             raise ValidationError("rho must be between -1 and 1", "rho")
 
 
+class WholeNumber(fields.Integer):
+    """A whole-number option: 7 or 7.0 (JSON has no separate integer type), never 7.5, "7" or true."""
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if type(value) is float and value.is_integer():
+            value = int(value)
+        return super()._deserialize(value, attr, data, **kwargs)
+
+
 class UncertaintySchema(Schema):
     class Meta:
         unknown = RAISE
 
     method = fields.String(validate=validate.OneOf(("linear", "monte_carlo", "monte-carlo")))
-    samples = fields.Integer(strict=True)
-    seed = fields.Integer(strict=True, validate=validate.Range(0, 2**63, max_inclusive=False))
+    samples = WholeNumber(strict=True)
+    seed = WholeNumber(strict=True, validate=validate.Range(0, 2**63, max_inclusive=False))
 
 
 def _field_for(spec: Input, limits: Limits) -> fields.Field:
