@@ -282,7 +282,7 @@ def encode_request(body: Mapping, media_type: str) -> bytes:
                 if not isinstance(v, (list, np.ndarray)):
                     v = [v] * n
                 cols.append((name if key == "value" else f"{name}_{key}", *_column_values(v), unit))
-    return bytes(_encode(cols, {}, media_type))
+    return _encode(cols, {}, media_type)
 
 
 def _column_values(v) -> tuple[Any, str]:
@@ -296,7 +296,7 @@ def _column_values(v) -> tuple[Any, str]:
 
 # ----------------------------------------------------------------------------- answer: columns answer -> table
 
-def encode_answer(response: Mapping, media_type: str) -> bytes | bytearray:
+def encode_answer(response: Mapping, media_type: str) -> bytes:
     """A columns answer of ``compute_batch`` (numpy arrays with NaN, or lists with None) as an Arrow
     IPC stream, CSV or ECSV table; raises :class:`TableError` (406) for series outputs in CSV/ECSV."""
     n = int(response["count"])
@@ -418,7 +418,7 @@ def _arrow(cols, meta: dict) -> bytes:
     out = bytearray(mock.size())
     with pa.ipc.new_stream(pa.FixedSizeBufferWriter(pa.py_buffer(out)), schema) as writer:
         writer.write_table(table)
-    return out
+    return bytes(out)           # WSGI servers (gunicorn) send bytes only
 
 
 def _arrow_array(pa, v, kind: str):
