@@ -410,23 +410,35 @@ def _arrow(cols, meta: dict) -> bytes:
     schema = pa.schema(fields, metadata={k: json.dumps(v, separators=(",", ":"), default=_json_default)
                                          for k, v in meta.items()} or None)
     table = pa.Table.from_arrays(arrays, schema=schema)
-    sink = pa.BufferOutputStream()
-    with pa.ipc.new_stream(sink, schema) as writer:
+    # sized first (a pass that writes nothing), then written once into its own buffer: half the
+    # time of a stream that grows and is copied out
+    mock = pa.MockOutputStream()
+    with pa.ipc.new_stream(mock, schema) as writer:
         writer.write_table(table)
-    return sink.getvalue().to_pybytes()
+    out = bytearray(mock.size())
+    with pa.ipc.new_stream(pa.FixedSizeBufferWriter(pa.py_buffer(out)), schema) as writer:
+        writer.write_table(table)
+    return bytes(out)           # WSGI servers (gunicorn) send bytes only
 
 
 def _arrow_array(pa, v, kind: str):
     if kind == "int":
         return pa.array(v.data, mask=np.ma.getmaskarray(v))
-    if kind == "float":
-        return pa.array(v, from_pandas=True)          # NaN -> null
+    if kind == "float":                             # NaN -> null, a validity bitmap only where there is one
+        null = np.isnan(v)
+        return pa.array(v, mask=null) if null.any() else pa.array(v)
     if kind == "series":
         if isinstance(v, np.ndarray):
             flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
             return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
         return pa.array([None if x is None else [None if y is None or y != y else float(y) for y in x] for x in v],
                         type=pa.list_(pa.float64()))
+    if isinstance(v, np.ndarray) and not v.any():    # no text at all (None or ""): no entry to look at
+        if (v == "").all():
+            return pa.Array.from_buffers(pa.string(), len(v), [None, pa.py_buffer(np.zeros(len(v) + 1, np.int32)),
+                                                               pa.py_buffer(b"")])
+        if not (v == "").any():
+            return pa.nulls(len(v), pa.string())
     return pa.array(v, type=pa.string(), from_pandas=True)
 
 
