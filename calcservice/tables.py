@@ -462,13 +462,19 @@ def _text(cols, meta: dict, ecsv: bool) -> bytes:
             data, mask = v, np.isnan(v)
         else:       # text: empty where there is none (astropy writes masked entries one by one, far slower)
             data, mask = np.array(["" if x is None else str(x) for x in v], dtype=str), np.zeros(len(v), dtype=bool)
-        header = name if ecsv or not unit else f"{name}[{unit}]"
+        if kind == "json":                      # a member per system as JSON text, marked so a reader can tell
+            unit = None
+            header = name if ecsv else f"{name}[json]"
+        else:
+            header = name if ecsv or not unit else f"{name}[{unit}]"
         if mask.any():                          # a masked column only where needed: it writes far slower
             col = MaskedColumn(data, name=header, mask=mask)
         else:
             col = Column(data, name=header)
         if ecsv and unit:
             col.unit = u.Unit(unit)
+        if ecsv and kind == "json":
+            col.description = JSON_TEXT
         table.add_column(col)
     out = io.StringIO()
     if ecsv:
@@ -556,6 +562,9 @@ def _decode_arrow(data: bytes):
     return cols, meta
 
 
+JSON_TEXT = "JSON text"      # the description of an ECSV column whose cells are JSON (e.g. an ephemeris' events)
+
+
 def _decode_text(data: bytes):
     from astropy.table import Table
 
@@ -567,6 +576,8 @@ def _decode_text(data: bytes):
         col = table[name]
         masked = np.ma.asarray(col)
         unit = col.unit.to_string() if ecsv and col.unit is not None else None
+        if ecsv and col.description == JSON_TEXT:
+            unit = "json"
         if not ecsv:
             m = _HEADER_UNIT.match(name)
             if m:
