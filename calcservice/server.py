@@ -25,6 +25,8 @@ from gunicorn.app.base import BaseApplication
 from gunicorn.http.errors import ChunkMissingTerminator, InvalidChunkSize, LimitRequestHeaders, LimitRequestLine
 from gunicorn.workers.sync import SyncWorker
 
+from .core.problems import Problem
+
 DEFAULTS = {
     "bind": "127.0.0.1:8000",
     "workers": max(2, os.cpu_count() or 1),
@@ -50,18 +52,12 @@ READ_SIZE = 65536
 LINGER_SECONDS = 2.0                 # after an answer, unread request bytes are drained this long before closing
 CONTINUE = b"HTTP/1.1 100 Continue\r\n\r\n"
 
-# the problem type slugs of the statuses gunicorn and this worker answer before the application
-PROBLEM_SLUGS = {400: "malformed-request", 403: "forbidden", 408: "request-timeout", 413: "too-large",
-                 414: "uri-too-long", 417: "expectation-failed", 431: "header-too-large",
-                 500: "internal-error", 501: "not-implemented"}
 
-
-def problem_bytes(status: int, reason: str, detail: str, extra: dict | None = None) -> bytes:
+def problem_bytes(problem: Problem) -> bytes:
     """A whole HTTP/1.1 answer carrying an RFC 9457 problem document; the connection then closes."""
-    doc = {"type": f"/problems/{PROBLEM_SLUGS.get(status, 'error')}", "title": reason, "status": status,
-           "detail": detail, **(extra or {})}
+    doc = problem.as_dict()
     body = json.dumps(doc).encode()
-    head = (f"HTTP/1.1 {status} {reason}\r\nConnection: close\r\nContent-Type: application/problem+json\r\n"
+    head = (f"HTTP/1.1 {problem.status} {problem.title}\r\nConnection: close\r\nContent-Type: application/problem+json\r\n"
             f"Content-Length: {len(body)}\r\nX-Content-Type-Options: nosniff\r\n\r\n")
     return head.encode("latin-1") + body
 
@@ -351,10 +347,9 @@ class BufferingWorker(SyncWorker):
             except OSError:
                 pass
         if conn.chunked and len(conn.buf) - conn.head_end > limits.max_body_bytes + READ_SIZE:
-            self.refuse(conn, problem_bytes(
-                413, "Request or work too large",
-                f"the request body is over the limit of {limits.max_body_bytes} bytes",
-                {"limit": {"name": "max_body_bytes", "value": limits.max_body_bytes}}))
+            self.refuse(conn, problem_bytes(Problem(
+                413, f"the request body is over the limit of {limits.max_body_bytes} bytes",
+                limit={"name": "max_body_bytes", "value": limits.max_body_bytes})))
             return
 
     def read_framing(self, conn: _Conn) -> bool:
@@ -421,10 +416,9 @@ class BufferingWorker(SyncWorker):
                            else self.limits.body_timeout_seconds)
                 self.log.warning("Request timeout from ip=%s: %s not complete within %d s",
                                  conn.addr[0] if conn.addr else "", what, seconds)
-                self.refuse(conn, problem_bytes(
-                    408, "Request Timeout", f"the request {what} did not arrive within {seconds} s",
-                    {"limit": {"name": f"{'header' if conn.head_end < 0 else 'body'}_timeout_seconds",
-                               "value": seconds}}))
+                self.refuse(conn, problem_bytes(Problem(
+                    408, f"the request {what} did not arrive within {seconds} s",
+                    limit={"name": f"{'header' if conn.head_end < 0 else 'body'}_timeout_seconds", "value": seconds})))
             else:
                 self.close(conn)        # idle, or an answer not taken in time
 
@@ -459,7 +453,7 @@ class BufferingWorker(SyncWorker):
             detail = str(exc) or reason
         else:
             detail = "the server failed on this request; it has been logged"
-        client.sendall(problem_bytes(status, reason or "Error", detail))
+        client.sendall(problem_bytes(Problem(status, detail)))
 
     def refuse_before_app(self, conn: _Conn, exc: Exception):
         out = _Output()
@@ -468,15 +462,10 @@ class BufferingWorker(SyncWorker):
 
     def refuse_head(self, conn: _Conn):
         limit = self.limits.max_header_bytes
-        out = _Output()
-        self.handle_error(None, out, conn.addr, LimitRequestHeaders(
-            f"the request line and headers are over the limit of {limit} bytes"))
-        data = b"".join(out.chunks)
         # the limit is named as in a 413 problem, so that a client can tell which one it met
-        doc_at = data.index(b"\r\n\r\n") + 4
-        doc = json.loads(data[doc_at:])
-        self.refuse(conn, problem_bytes(doc["status"], doc["title"], doc["detail"],
-                                        {"limit": {"name": "max_header_bytes", "value": limit}}))
+        self.refuse(conn, problem_bytes(Problem(
+            431, f"the request line and headers are over the limit of {limit} bytes",
+            limit={"name": "max_header_bytes", "value": limit})))
 
     def refuse(self, conn: _Conn, answer: bytes):
         if conn.state == _Conn.QUEUED:

@@ -20,7 +20,7 @@ from flask import Blueprint, Response, request
 from .. import __version__
 from ..constants import CONSTANTS
 from ..registry import Calculation, Input, calculations
-from .form import CONTENT_SECURITY_POLICY
+from .form import secure
 
 bp = Blueprint("docs", __name__)
 
@@ -192,18 +192,11 @@ gives the derivation report, <code>svg</code> or <code>png</code> a figure.
 """
 
 
-def _secure(r: Response) -> Response:
-    r.headers["Content-Security-Policy"] = CONTENT_SECURITY_POLICY
-    r.headers["Referrer-Policy"] = "no-referrer"
-    r.headers["X-Frame-Options"] = "DENY"
-    return r
-
-
 @bp.get("/docs")
 def page():
     r = Response(page_html(request.host_url), content_type="text/html; charset=utf-8")
     r.headers["Cache-Control"] = "no-cache"
-    return _secure(r)
+    return secure(r)
 
 
 @bp.get("/docs/docs.css")
@@ -211,4 +204,4 @@ def style():
     css = resources.files("calcservice").joinpath("static", "docs.css").read_bytes()
     r = Response(css, content_type="text/css; charset=utf-8")
     r.headers["Cache-Control"] = "no-cache"
-    return _secure(r)
+    return secure(r)

@@ -29,7 +29,8 @@ def _asset(name: str) -> bytes:
     return resources.files("calcservice").joinpath("static", name).read_bytes()
 
 
-def _secure(r: Response) -> Response:
+def secure(r: Response) -> Response:
+    """A page's headers: the strict policy (nothing from elsewhere), no referrer, no framing."""
     r.headers["Content-Security-Policy"] = CONTENT_SECURITY_POLICY
     r.headers["Referrer-Policy"] = "no-referrer"
     r.headers["X-Frame-Options"] = "DENY"
@@ -40,7 +41,7 @@ def _secure(r: Response) -> Response:
 def page():
     r = Response(_asset("index.html"), content_type="text/html; charset=utf-8")
     r.headers["Cache-Control"] = "no-cache"
-    return _secure(r)
+    return secure(r)
 
 
 @bp.get("/favicon.ico")
@@ -56,4 +57,4 @@ def asset(name: str):
         abort(404)
     r = Response(_asset(name), content_type=ASSETS[name])
     r.headers["Cache-Control"] = "no-cache"
-    return _secure(r)
+    return secure(r)

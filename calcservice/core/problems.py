@@ -6,13 +6,19 @@ from typing import Mapping
 
 PROBLEM_TYPES = {
     400: ("malformed-request", "Malformed request"),
+    403: ("forbidden", "Forbidden"),
     404: ("not-found", "Not found"),
     405: ("method-not-allowed", "Method not allowed"),
     406: ("not-acceptable", "Not acceptable"),
+    408: ("request-timeout", "Request timeout"),
     413: ("too-large", "Request or work too large"),
+    414: ("uri-too-long", "URI too long"),
     415: ("unsupported-media-type", "Unsupported media type"),
+    417: ("expectation-failed", "Expectation failed"),
     422: ("invalid-input", "Invalid input"),
+    431: ("header-too-large", "Request header fields too large"),
     500: ("internal-error", "Internal error"),
+    501: ("not-implemented", "Not implemented"),
 }
 
 
