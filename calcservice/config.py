@@ -6,30 +6,32 @@ or from the ``config`` mapping given to :func:`calcservice.create_app`.
 
 from __future__ import annotations
 
-import inspect
 import os
-import re
-from dataclasses import dataclass, fields, replace
-from functools import lru_cache
+from dataclasses import dataclass, field, fields, replace
 from typing import Mapping
+
+
+def _limit(default: int, description: str):
+    """A limit's default and what it bounds (published by ``GET /v1/limits``)."""
+    return field(default=default, metadata={"description": description})
 
 
 @dataclass(frozen=True)
 class Limits:
-    max_body_bytes: int = 16 * 1024 * 1024      # request body (413 beyond)
-    max_samples: int = 1_000_000                 # Monte Carlo draws per request
-    default_samples: int = 10_000                # Monte Carlo draws when the request does not say
-    max_sample_array: int = 1_000_000            # length of a user's samples array
-    max_series: int = 100_000                    # e.g. ephemeris times per request
-    max_batch_rows: int = 100_000                # systems in one batch
-    max_batch_draws: int = 5_000_000             # systems x draws in one batch (~25 s for the slowest physics)
-    max_series_evaluations: int = 4_000_000      # systems x draws (or linear perturbations) x series points
-    max_json_depth: int = 32                     # nesting of the JSON body
-    max_string_length: int = 256                 # any string value (units, times, choices)
-    min_gzip_bytes: int = 2048                   # answers this large or larger are gzipped for callers that accept it
-    max_header_bytes: int = 64 * 1024            # request line and headers together (431 beyond)
-    header_timeout_seconds: int = 10             # for a client to send its request line and headers (408 beyond)
-    body_timeout_seconds: int = 60               # for a client to send its body once the headers are in (408 beyond)
+    max_body_bytes: int = _limit(16 * 1024 * 1024, "request body (413 beyond)")
+    max_samples: int = _limit(1_000_000, "Monte Carlo draws per request")
+    default_samples: int = _limit(10_000, "Monte Carlo draws when the request does not say")
+    max_sample_array: int = _limit(1_000_000, "length of a user's samples array")
+    max_series: int = _limit(100_000, "e.g. ephemeris times per request")
+    max_batch_rows: int = _limit(100_000, "systems in one batch")
+    max_batch_draws: int = _limit(5_000_000, "systems x draws in one batch (~25 s for the slowest physics)")
+    max_series_evaluations: int = _limit(4_000_000, "systems x draws (or linear perturbations) x series points")
+    max_json_depth: int = _limit(32, "nesting of the JSON body")
+    max_string_length: int = _limit(256, "any string value (units, times, choices)")
+    min_gzip_bytes: int = _limit(2048, "answers this large or larger are gzipped for callers that accept it")
+    max_header_bytes: int = _limit(64 * 1024, "request line and headers together (431 beyond)")
+    header_timeout_seconds: int = _limit(10, "for a client to send its request line and headers (408 beyond)")
+    body_timeout_seconds: int = _limit(60, "for a client to send its body once the headers are in (408 beyond)")
 
 
 @dataclass(frozen=True)
@@ -75,22 +77,6 @@ def load_settings(config: Mapping | None = None, environ: Mapping[str, str] | No
 
 
 def describe_limits(limits: Limits) -> dict:
-    """Every field of ``limits`` with its value, its environment variable and its description (the
-    comment beside the field in this module's source: a new field is described where it is declared)."""
-    described = _field_comments()
+    """Every field of ``limits`` with its value, its environment variable and its description."""
     return {f.name: {"value": getattr(limits, f.name), "env": f"CALCSERVICE_{f.name.upper()}",
-                     "description": described.get(f.name, f.name.replace("_", " "))} for f in fields(Limits)}
-
-
-@lru_cache(maxsize=1)
-def _field_comments() -> dict[str, str]:
-    try:
-        source = inspect.getsource(Limits)
-    except (OSError, TypeError):        # no source at hand (a frozen build): the names say enough
-        return {}
-    out = {}
-    for line in source.splitlines():
-        m = re.match(r"^\s+(\w+)\s*:[^#]*#\s*(.+?)\s*$", line)
-        if m:
-            out[m.group(1)] = m.group(2)
-    return out
+                     "description": f.metadata["description"]} for f in fields(Limits)}

@@ -95,15 +95,6 @@ def test_gunicorn_has_a_worker_timeout_as_the_last_line_of_defence():
     assert DEFAULTS["graceful_timeout"] > 0
 
 
-def test_every_limit_is_documented():
-    """The limits table names every limit's environment variable and default."""
-    docs = (ROOT / "README.md").read_text()
-    for f in dataclasses.fields(Limits):
-        assert f"CALCSERVICE_{f.name.upper()}" in docs, f.name
-        default = f.default
-        assert any(form in docs for form in (f"{default:,}", f"{default:_}", str(default))), (f.name, default)
-
-
 # --- body size --------------------------------------------------------------------------------
 
 class Untouchable(io.RawIOBase):
