@@ -198,7 +198,7 @@ COMPONENTS: dict[str, dict] = {
 }
 
 
-def _column(time: bool, isotropic: bool) -> dict:
+def _column(time: bool) -> dict:
     """A quantity's column in a columns batch: one value for every system, an array with one entry per
     system (null: not given there; any form of a single request), or value and sigma arrays with one unit."""
     one = {"oneOf": [{"type": "number"}, ISO_TIME]} if time else {"type": "number"}
@@ -206,7 +206,7 @@ def _column(time: bool, isotropic: bool) -> dict:
     per_system = _ref("TimeValues" if time else "Values")
     forms = [
         one,
-        {"type": "array", "minItems": 1, "items": {"anyOf": entry + ([{"const": "isotropic"}] if isotropic else [])}},
+        {"type": "array", "minItems": 1, "items": {"anyOf": entry}},
         {"type": "object", "additionalProperties": False, "required": ["value"],
          "properties": {"value": per_system, "sigma": per_system, "unit": UNIT}},
         {"type": "object", "additionalProperties": False, "required": ["value", "sigma_minus", "sigma_plus"],
@@ -215,8 +215,6 @@ def _column(time: bool, isotropic: bool) -> dict:
          "properties": {"samples": {"type": "array", "minItems": 1, "items": {
              "type": "array", "minItems": 2, "items": {"type": "number"}}}, "unit": UNIT}},
     ]
-    if isotropic:
-        forms.append({"const": "isotropic"})
     return {"oneOf": forms}
 
 
@@ -225,9 +223,12 @@ COMPONENTS["Values"] = {"description": "one number for every system, or one per 
 COMPONENTS["TimeValues"] = {"description": "one time for every system, or one per system (null: not given there)",
                             "oneOf": [{"oneOf": [{"type": "number"}, ISO_TIME]},
                                       {"type": "array", "minItems": 1, "items": {"oneOf": [NULLABLE_NUMBER, ISO_TIME]}}]}
-COMPONENTS["QuantityColumn"] = _column(False, False)
-COMPONENTS["IsotropicColumn"] = _column(False, True)
-COMPONENTS["TimeColumn"] = _column(True, False)
+COMPONENTS["QuantityColumn"] = _column(False)
+COMPONENTS["IsotropicColumn"] = {
+    "description": "an inclination's column: a quantity's, or isotropic for every system or for some",
+    "anyOf": [_ref("QuantityColumn"), {"const": "isotropic"}, {"type": "array", "minItems": 1, "items": {
+        "anyOf": [{"type": "null"}, _ref("MeasuredInput"), {"const": "isotropic"}]}}]}
+COMPONENTS["TimeColumn"] = _column(True)
 
 
 def _column_schema(spec: Input) -> dict:
@@ -351,14 +352,14 @@ def _results_schema(calc: Calculation) -> dict:
     if series:
         label = next(s.label or s.name for s in calc.inputs if s.kind == "series")
         outputs[label] = {"description": "the series' own values", **_ref("SeriesResult")}
-        return {"type": "object", "description": "the outputs the given inputs determine",
-                "properties": {"series": {"type": "object", "properties": outputs}}}
-    return {"type": "object", "description": "the outputs the given inputs determine", "properties": outputs}
+        return {"type": "object", "properties": {"series": {"type": "object", "properties": outputs}}}
+    return {"type": "object", "properties": outputs}
 
 
 COMPONENTS["Answer"] = {
     "type": "object", "required": ["calculation", "results", "uncertainty", "warnings", "provenance"],
-    "description": "the answer to one system (a calculation's own schema names its results)",
+    "description": "the answer to one system; results: the outputs the given inputs determine (a calculation's own "
+                   "schema names them)",
     "properties": {"calculation": {"type": "string"}, "results": {"type": "object"},
                    "uncertainty": _ref("UncertaintyReport"),
                    "inputs": {"type": "object", "description": "the inputs as understood, in their default units"},
@@ -635,7 +636,7 @@ COMPONENTS["BatchRowsAnswer"] = {
     "properties": {"calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
                    "uncertainty": _ref("UncertaintyReport"), "provenance": _ref("Provenance"),
                    "results": {"type": "array", "description": "one per system, in input order",
-                               "items": {"type": "object"}}}}
+                               "items": {"anyOf": [_ref("BatchRow"), _ref("RowError")]}}}}
 COMPONENTS["BatchColumnsAnswer"] = {
     "title": "columns", "type": "object", "required": ["calculation", "count", "columns", "errors"],
     "description": "the answer to columns: one array per output over the systems, the failed systems in errors",
@@ -652,6 +653,9 @@ COMPONENTS["BatchColumnsAnswer"] = {
         "correlation": _ref("ColumnsCorrelation")}}
 
 
+COMPONENTS["BatchAnswer"] = {
+    "description": "the answer to a batch: rows or columns (a calculation's own schema names the results of a row "
+                   "and the columns)", "oneOf": [_ref("BatchRowsAnswer"), _ref("BatchColumnsAnswer")]}
 COMPONENTS["ExtraColumn"] = {"type": "array", "items": {"type": ["object", "null"]},
                              "description": "an extra member of a columns answer (e.g. events), one entry per system"}
 COMPONENTS["RowsOrColumns"] = {
@@ -681,15 +685,12 @@ def _batch_schemas(calc: Calculation, schemas: dict) -> None:
             "columns": _columns(calc),
             **_options(calc, batch=True)}}
     series = any(s.kind == "series" for s in calc.inputs)
-    row = {"allOf": [_ref("BatchRow")], "properties": {"results": _ref(f"{key}_results")}}
     column = _ref("SeriesColumnResult" if series else "ColumnResult")
     # the outputs by name; a calculation with extra members (events) has them beside its outputs
     columns = {"additionalProperties": {"anyOf": [column, _ref("ExtraColumn")]}} if calc.extra is not None else \
         {"propertyNames": _ref(f"{key}_output"), "additionalProperties": column}
-    schemas[f"{key}_batch_response"] = {"oneOf": [
-        {"allOf": [_ref("BatchRowsAnswer")], "properties": {"results": {"items": {"anyOf": [row, _ref("RowError")]}}}},
-        {"allOf": [_ref("BatchColumnsAnswer")], "properties": {"columns": columns}},
-    ]}
+    schemas[f"{key}_batch_response"] = {"allOf": [_ref("BatchAnswer")], "properties": {
+        "results": {"items": {"properties": {"results": _ref(f"{key}_results")}}}, "columns": columns}}
 
 
 def _get(summary: str, schema: dict, example: Any = None, content_type: str = media.JSON, tag: str = "service") -> dict:
@@ -849,7 +850,7 @@ class Example(dict):
     """An example value: written in YAML's flow style (it reads as the JSON on the wire)."""
 
 
-SHORT = 120       # a mapping or list whose JSON is this short is written on one line, in flow style
+SHORT = 200       # a mapping or list whose JSON is this short is written on one line, in flow style
 
 
 def _short(data) -> bool:
@@ -868,7 +869,7 @@ _Dumper.add_representer(list, lambda dumper, data: dumper.represent_sequence(
 
 def dump_yaml(document) -> str:
     """YAML as the spec is written: short mappings and lists on one line, no anchors or aliases."""
-    return yaml.dump(document, Dumper=_Dumper, sort_keys=False, allow_unicode=True, width=120)
+    return yaml.dump(document, Dumper=_Dumper, sort_keys=False, allow_unicode=True, width=140)
 
 
 @lru_cache(maxsize=1)
