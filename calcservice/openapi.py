@@ -433,8 +433,8 @@ def _refusals(calc: Calculation) -> str:
     reasons = list(dict.fromkeys(f"{', '.join(c.fields)}: {c.message}" for c in calc.constraints))
     if calc.exclusive:
         reasons.append("exactly one of " + "; ".join(" or ".join(g) for g in calc.exclusive))
-    own = ("; its own conditions: " + "; ".join(reasons)) if reasons else ""
-    return "invalid values, the fields named (the general reasons: the calculations tag)" + own
+    own = ("; its own: " + "; ".join(reasons)) if reasons else ""
+    return "the general reasons of the calculations tag" + own
 
 
 def _malformed(calc: Calculation) -> str:
@@ -471,8 +471,8 @@ def _plain(obj) -> Example:
 
 
 PROVENANCE_KEPT = ("version",)
-ANSWERS_NOTE = ("The example answers are the service's own, computed when this document was built, written "
-                "compactly: numbers to 6 significant digits (times to 4 decimals), the provenance cut to the "
+ANSWERS_NOTE = ("The examples are fictional systems; their answers are the service's own, computed when this "
+                "document was built, written compactly: numbers to 6 significant digits (times to 4 decimals), the provenance cut to the "
                 "version (formulas, constants with sources, references and conventions are in "
                 "GET /v1/calculations/{name} and on /docs), without the echo of the inputs, and in a batch answer "
                 "each answered row with its first output only (the others as in the calculation's own example).")
@@ -540,7 +540,7 @@ FORMAT = {"name": "format", "in": "query", "required": False,
 def _plot_parameter(calc: Calculation) -> dict:
     curve = "; without it, the radial-velocity curves" if has_curve(calc) else ""
     return {"name": "plot", "in": "query", "required": False,
-            "description": f"with format=svg or png: the output whose Monte Carlo draws to draw (see format){curve}",
+            "description": f"with format=svg or png: the output to draw (see format){curve}",
             "schema": _ref(f"{_key(calc)}_output")}
 
 
@@ -817,8 +817,7 @@ def build_spec() -> dict:
                  "description": "Binary-star orbital elements to physical numbers with propagated uncertainties. "
                                 "Conventions: radial velocity positive when receding; omega is the primary's "
                                 "argument of periastron; q = M2/M1 = K1/K2; times are Julian Dates. "
-                                "Every error is an RFC 9457 problem (application/problem+json). The examples are "
-                                "fictional systems, answered by the service when this document was built. "
+                                "Every error is an RFC 9457 problem (application/problem+json). "
                                 "A person's reference: GET /docs. " + ANSWERS_NOTE},
         "tags": TAGS,
         "paths": paths,
@@ -856,6 +855,9 @@ SHORT = 200       # a mapping or list whose JSON is this short is written on one
 def _short(data) -> bool:
     if isinstance(data, list) and not any(isinstance(x, (dict, list)) for x in data):
         return True     # a list of names or numbers (an enum, required) reads well on a line, wrapped
+    if isinstance(data, dict) and any(isinstance(v, Example) or (isinstance(v, dict) and not _short(v))
+                                      for v in data.values()):
+        return False    # an example starts a line of its own
     return len(json.dumps(data, default=str)) <= SHORT
 
 
