@@ -133,7 +133,8 @@ COMPONENTS: dict[str, dict] = {
     "UncertaintyReport": {"type": "object", "properties": {
         "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
         "samples": {"type": "integer"},
-        "seed": {"type": ["integer", "null"], "description": "null in a batch whose systems drew with seeds of their own"},
+        "seed": {"type": ["integer", "null"],
+                 "description": "null in a batch whose systems drew with seeds of their own"},
         "rejected_fraction": {"type": "number", "minimum": 0, "maximum": 1,
                               "description": "share of the draws outside the inputs' domains or without an answer"}}},
     "MeasuredResult": MEASURED_RESULT,
@@ -222,7 +223,8 @@ COMPONENTS["Values"] = {"description": "one number for every system, or one per 
                         "oneOf": [{"type": "number"}, {"type": "array", "minItems": 1, "items": NULLABLE_NUMBER}]}
 COMPONENTS["TimeValues"] = {"description": "one time for every system, or one per system (null: not given there)",
                             "oneOf": [{"oneOf": [{"type": "number"}, ISO_TIME]},
-                                      {"type": "array", "minItems": 1, "items": {"oneOf": [NULLABLE_NUMBER, ISO_TIME]}}]}
+                                      {"type": "array", "minItems": 1,
+                                       "items": {"oneOf": [NULLABLE_NUMBER, ISO_TIME]}}]}
 COMPONENTS["QuantityColumn"] = _column(False)
 COMPONENTS["IsotropicColumn"] = {
     "description": "an inclination's column: a quantity's, or isotropic for every system or for some",
@@ -297,7 +299,8 @@ def _options(calc: Calculation, batch: bool = False) -> dict:
     service takes, each described here."""
     key = _key(calc)
     known = {"correlations": _ref(f"{key}_correlations"), "uncertainty": _ref("Uncertainty"),
-             "units": {"allOf": [_ref("Units")], "propertyNames": _ref(f"{key}_output")}, "time_format": _ref("TimeFormat"),
+             "units": {"allOf": [_ref("Units")], "propertyNames": _ref(f"{key}_output")},
+             "time_format": _ref("TimeFormat"),
              "covariance": _ref("CovarianceOption"), "budget": _ref("BudgetOption"), "echo": _ref("Echo")}
     service = _service()
     taken = service.members(calc) - {s.name for s in calc.inputs}
@@ -423,8 +426,8 @@ REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields
             "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
             "that are not ISO 8601 times (or mix too many formats); correlations naming an input not given, a pair "
             "correlated twice, an input given as samples (they carry their own correlations), or a correlation "
-            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output has no finite value (not "
-            "physically consistent); plot=NAME without the Monte Carlo method, or for an "
+            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output "
+            "has no finite value (not physically consistent); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 
 
@@ -472,14 +475,16 @@ def _plain(obj) -> Example:
 
 PROVENANCE_KEPT = ("version",)
 ANSWERS_NOTE = ("The examples are fictional systems; their answers are the service's own, computed when this "
-                "document was built, written compactly: numbers to 6 significant digits (times to 4 decimals), the provenance cut to the "
-                "version (formulas, constants with sources, references and conventions are in "
-                "GET /v1/calculations/{name} and on /docs), without the echo of the inputs, and in a batch answer "
-                "each answered row with its first output only (the others as in the calculation's own example).")
+                "document was built, written compactly: numbers to 6 significant digits (from 1e4 to 1e8, as Julian "
+                "Dates, to 4 decimals), the provenance cut to the version (formulas, constants with sources, "
+                "references and conventions are in GET /v1/calculations/{name} and on /docs), without the echo of "
+                "the inputs, and in a batch answer each answered row with its first output only (the others as in "
+                "the calculation's own example).")
 
 
 def _round(x: float) -> float:
-    """A number of an example answer to 6 significant digits; a time (a Julian Date, an MJD) to 4 decimals."""
+    """A number of an example answer to 6 significant digits; from 1e4 to 1e8 (a Julian Date, an MJD) to
+    4 decimals, so that a time keeps its fraction of a day."""
     if not math.isfinite(x) or x == 0:
         return x
     exponent = math.floor(math.log10(abs(x)))
