@@ -409,7 +409,7 @@ def _problems(*codes: int) -> dict:
 
 
 RESPONSE_NAMES = {400: "Malformed", 404: "NotFound", 405: "MethodNotAllowed", 406: "NotAcceptable", 413: "TooLarge",
-                  415: "UnsupportedMediaType", 422: "Invalid"}
+                  415: "UnsupportedMediaType"}
 # the 400s of a calculation's route: malformed bodies, and the figure parameters it cannot draw
 PLOT_400 = {"MalformedSeriesPlot": "plot naming a series output (without plot the figure draws the series)",
             "MalformedNoCurve": "format=svg or png without plot (this calculation draws no curve: plot names the "
