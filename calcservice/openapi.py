@@ -53,11 +53,9 @@ DEFAULTS = Limits()
 ECHO = {"type": "boolean", "default": False, "description": "rows: each answer repeats its inputs as understood"}
 NULLABLE_NUMBER = {"type": ["number", "null"]}
 STRING = {"type": "string", "maxLength": DEFAULTS.max_string_length}
-UNIT = {"type": "string", "maxLength": DEFAULTS.max_string_length,
-        "description": "an astropy unit string (d, yr, km/s, deg, mas, solMass, ...); without it the input's "
-                       "default unit applies"}
+UNIT = _ref("Unit")
 SIGMA = {"type": "number", "minimum": 0}
-ISO_TIME = {"type": "string", "maxLength": DEFAULTS.max_string_length, "description": "ISO 8601 time (UTC)"}
+ISO_TIME = _ref("IsoTime")
 
 
 def _measured(value: dict, note: str) -> dict:
@@ -97,6 +95,10 @@ MEASURED_RESULT = {
 NULLABLE_NUMBERS = {"type": "array", "items": NULLABLE_NUMBER}
 
 COMPONENTS: dict[str, dict] = {
+    "Unit": {"type": "string", "maxLength": DEFAULTS.max_string_length,
+             "description": "an astropy unit string (d, yr, km/s, deg, mas, solMass, ...); without it the input's "
+                            "default unit applies"},
+    "IsoTime": {"type": "string", "maxLength": DEFAULTS.max_string_length, "description": "ISO 8601 time (UTC)"},
     "MeasuredInput": _measured({"type": "number"}, "a measured number: exact, with a normal or asymmetric 1-sigma, "
                                                    "or as the caller's own draws, in the input's default unit "
                                                    "unless a unit is given"),
@@ -130,7 +132,9 @@ COMPONENTS: dict[str, dict] = {
                         "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1}}},
     "UncertaintyReport": {"type": "object", "properties": {
         "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
-        "samples": {"type": "integer"}, "seed": {"type": "integer"},
+        "samples": {"type": "integer"},
+        "seed": {"type": ["integer", "null"],
+                 "description": "null in a batch whose systems drew with seeds of their own"},
         "rejected_fraction": {"type": "number", "minimum": 0, "maximum": 1,
                               "description": "share of the draws outside the inputs' domains or without an answer"}}},
     "MeasuredResult": MEASURED_RESULT,
@@ -195,16 +199,15 @@ COMPONENTS: dict[str, dict] = {
 }
 
 
-def _column(time: bool, isotropic: bool) -> dict:
+def _column(time: bool) -> dict:
     """A quantity's column in a columns batch: one value for every system, an array with one entry per
     system (null: not given there; any form of a single request), or value and sigma arrays with one unit."""
     one = {"oneOf": [{"type": "number"}, ISO_TIME]} if time else {"type": "number"}
     entry = [{"type": "null"}, _ref("MeasuredTime" if time else "MeasuredInput")]
-    per_system = {"oneOf": [one, {"type": "array", "minItems": 1, "items": {
-        "oneOf": [NULLABLE_NUMBER, ISO_TIME]} if time else NULLABLE_NUMBER}]}
+    per_system = _ref("TimeValues" if time else "Values")
     forms = [
         one,
-        {"type": "array", "minItems": 1, "items": {"anyOf": entry + ([{"const": "isotropic"}] if isotropic else [])}},
+        {"type": "array", "minItems": 1, "items": {"anyOf": entry}},
         {"type": "object", "additionalProperties": False, "required": ["value"],
          "properties": {"value": per_system, "sigma": per_system, "unit": UNIT}},
         {"type": "object", "additionalProperties": False, "required": ["value", "sigma_minus", "sigma_plus"],
@@ -213,29 +216,32 @@ def _column(time: bool, isotropic: bool) -> dict:
          "properties": {"samples": {"type": "array", "minItems": 1, "items": {
              "type": "array", "minItems": 2, "items": {"type": "number"}}}, "unit": UNIT}},
     ]
-    if isotropic:
-        forms.append({"const": "isotropic"})
     return {"oneOf": forms}
 
 
-COMPONENTS["QuantityColumn"] = _column(False, False)
-COMPONENTS["IsotropicColumn"] = _column(False, True)
-COMPONENTS["TimeColumn"] = _column(True, False)
+COMPONENTS["Values"] = {"description": "one number for every system, or one per system (null: not given there)",
+                        "oneOf": [{"type": "number"}, {"type": "array", "minItems": 1, "items": NULLABLE_NUMBER}]}
+COMPONENTS["TimeValues"] = {"description": "one time for every system, or one per system (null: not given there)",
+                            "oneOf": [{"oneOf": [{"type": "number"}, ISO_TIME]},
+                                      {"type": "array", "minItems": 1,
+                                       "items": {"oneOf": [NULLABLE_NUMBER, ISO_TIME]}}]}
+COMPONENTS["QuantityColumn"] = _column(False)
+COMPONENTS["IsotropicColumn"] = {
+    "description": "an inclination's column: a quantity's, or isotropic for every system or for some",
+    "anyOf": [_ref("QuantityColumn"), {"const": "isotropic"}, {"type": "array", "minItems": 1, "items": {
+        "anyOf": [{"type": "null"}, _ref("MeasuredInput"), {"const": "isotropic"}]}}]}
+COMPONENTS["TimeColumn"] = _column(True)
 
 
 def _column_schema(spec: Input) -> dict:
     """One input's column in a columns batch."""
-    note = f"in {_unit(spec)}"
     if spec.kind == "series":
-        return {"description": "one list for every system",
-                **_ref("TimeSeries" if spec.time else "Series")}
+        return _ref("TimeSeries" if spec.time else "Series")
     if spec.kind in ("choice", "integer"):
         one = {"type": "string", "enum": list(spec.choices)} if spec.kind == "choice" else \
             {"type": "integer", **spec.domain.as_dict()}
-        return {"description": note, "oneOf": [one, {"type": "array", "minItems": 1,
-                                                     "items": {"anyOf": [{"type": "null"}, one]}}]}
-    column = "TimeColumn" if spec.time else "IsotropicColumn" if spec.isotropic else "QuantityColumn"
-    return {"description": note, **_ref(column)}
+        return {"oneOf": [one, {"type": "array", "minItems": 1, "items": {"anyOf": [{"type": "null"}, one]}}]}
+    return _ref("TimeColumn" if spec.time else "IsotropicColumn" if spec.isotropic else "QuantityColumn")
 
 
 def _domain_name(domain) -> str:
@@ -277,10 +283,12 @@ def _input_schema(spec: Input, schemas: dict) -> dict:
         d = {"description": spec.description + ("" if spec.time else unit),
              **_ref("TimeSeries" if spec.time else "Series")}
     else:
-        d = {"description": f"{spec.description}{unit}; {spec.domain.describe()}", **_bounded(spec, schemas)}
+        # the domain is said by the component referenced
+        d = {"description": f"{spec.description}{unit}", **_bounded(spec, schemas)}
         if spec.isotropic:
-            d = {"description": d.pop("description") + '; or "isotropic" (random orientations, cos i uniform)',
-                 "anyOf": [d, {"const": "isotropic"}]}
+            note = "" if "isotropic" in spec.description else '; or "isotropic" (random orientations, cos i uniform)'
+            d = {"description": d.pop("description") + note, "anyOf": [d]}
+            d["anyOf"].append({"const": "isotropic"})
     if spec.default is not None:
         d["default"] = spec.default
     return d
@@ -289,22 +297,11 @@ def _input_schema(spec: Input, schemas: dict) -> dict:
 def _options(calc: Calculation, batch: bool = False) -> dict:
     """The members of a request that are not inputs (in a batch, shared by every system): those the
     service takes, each described here."""
-    measured = [s.name for s in calc.inputs if s.kind == "quantity"]
-    known = {
-        "correlations": {"type": "array", "items": {"allOf": [_ref("Correlation")], "properties": {
-            "between": {"items": {"enum": measured}}}}},
-        "uncertainty": _ref("Uncertainty"),
-        "units": {"type": "object", "description": "output name -> astropy unit for the answer",
-                  "propertyNames": {"enum": [o.name for o in calc.outputs]},
-                  "additionalProperties": {"type": "string", "maxLength": DEFAULTS.max_string_length}},
-        "time_format": {"type": "string", "enum": ["jd", "mjd"], "default": "jd",
-                        "description": "how numeric times are read and written"},
-        "covariance": {"type": "boolean", "default": False,
-                       "description": "add the correlation matrix of the outputs (correlation)"},
-        "budget": {"type": "boolean", "default": False,
-                   "description": "add each output's uncertainty budget (budget)"},
-        "echo": ECHO,
-    }
+    key = _key(calc)
+    known = {"correlations": _ref(f"{key}_correlations"), "uncertainty": _ref("Uncertainty"),
+             "units": {"allOf": [_ref("Units")], "propertyNames": _ref(f"{key}_output")},
+             "time_format": _ref("TimeFormat"),
+             "covariance": _ref("CovarianceOption"), "budget": _ref("BudgetOption"), "echo": _ref("Echo")}
     service = _service()
     taken = service.members(calc) - {s.name for s in calc.inputs}
     if batch:
@@ -313,6 +310,26 @@ def _options(calc: Calculation, batch: bool = False) -> dict:
     if unknown:
         raise ValueError(f"{calc.name}: the service takes {sorted(unknown)}, which openapi.py does not describe")
     return {k: v for k, v in known.items() if k in taken}
+
+
+def _correlations(calc: Calculation) -> dict:
+    """The correlations option of a calculation: pairs of its measured inputs."""
+    measured = [s.name for s in calc.inputs if s.kind == "quantity"]
+    return {"type": "array", "items": {"allOf": [_ref("Correlation")], "properties": {
+        "between": {"items": {"enum": measured}}}}}
+
+
+COMPONENTS.update({
+    "Units": {"type": "object", "description": "output name -> astropy unit for the answer",
+              "additionalProperties": {"type": "string", "maxLength": DEFAULTS.max_string_length}},
+    "TimeFormat": {"type": "string", "enum": ["jd", "mjd"], "default": "jd",
+                   "description": "how numeric times are read and written"},
+    "CovarianceOption": {"type": "boolean", "default": False,
+                         "description": "add the correlation matrix of the outputs (correlation)"},
+    "BudgetOption": {"type": "boolean", "default": False,
+                     "description": "add each output's uncertainty budget (budget)"},
+    "Echo": ECHO,
+})
 
 
 def request_schema(calc: Calculation, schemas: dict) -> dict:
@@ -338,21 +355,24 @@ def _results_schema(calc: Calculation) -> dict:
     if series:
         label = next(s.label or s.name for s in calc.inputs if s.kind == "series")
         outputs[label] = {"description": "the series' own values", **_ref("SeriesResult")}
-        return {"type": "object", "description": "the outputs the given inputs determine",
-                "properties": {"series": {"type": "object", "properties": outputs}}}
-    return {"type": "object", "description": "the outputs the given inputs determine", "properties": outputs}
+        return {"type": "object", "properties": {"series": {"type": "object", "properties": outputs}}}
+    return {"type": "object", "properties": outputs}
+
+
+COMPONENTS["Answer"] = {
+    "type": "object", "required": ["calculation", "results", "uncertainty", "warnings", "provenance"],
+    "description": "the answer to one system; results: the outputs the given inputs determine (a calculation's own "
+                   "schema names them)",
+    "properties": {"calculation": {"type": "string"}, "results": {"type": "object"},
+                   "uncertainty": _ref("UncertaintyReport"),
+                   "inputs": {"type": "object", "description": "the inputs as understood, in their default units"},
+                   "warnings": {"type": "array", "items": _ref("Warning")}, "provenance": _ref("Provenance"),
+                   "correlation": _ref("OutputCorrelation")}}
 
 
 def _response_schema(calc: Calculation) -> dict:
-    return {"type": "object", "required": ["calculation", "results", "uncertainty", "warnings", "provenance"],
-            "properties": {
-                "calculation": {"const": calc.name},
-                "results": _ref(f"{_key(calc)}_results"),
-                "uncertainty": _ref("UncertaintyReport"),
-                "inputs": {"type": "object", "description": "the inputs as understood, in their default units"},
-                "warnings": {"type": "array", "items": _ref("Warning")},
-                "provenance": _ref("Provenance"),
-                "correlation": _ref("OutputCorrelation")}}
+    return {"allOf": [_ref("Answer")], "properties": {"calculation": {"const": calc.name},
+                                                      "results": _ref(f"{_key(calc)}_results")}}
 
 
 # ----------------------------------------------------------------------------- problems
@@ -383,26 +403,22 @@ EDGE_EXAMPLES = {
 }
 
 
-def _problems(*codes: int, described: dict[int, str] | None = None, examples: dict[int, dict] | None = None) -> dict:
-    """Problem responses: a shared one (components/responses) unless this operation has its own words or example."""
-    out = {}
-    for code in codes:
-        example = (examples or {}).get(code)
-        if example is None and code not in (described or {}):
-            out[str(code)] = {"$ref": f"#/components/responses/{RESPONSE_NAMES[code]}"}
-            continue
-        content = {"schema": _ref("Problem")}
-        if example is not None:
-            content["example"] = example
-        elif code in EDGE_EXAMPLES:
-            content["examples"] = {"problem": {"$ref": f"#/components/examples/problem_{code}"}}
-        out[str(code)] = {"description": (described or {}).get(code, PROBLEM_TEXT[code]),
-                          "content": {media.PROBLEM: content}}
-    return out
+def _problems(*codes: int) -> dict:
+    """Problem responses, the shared ones of components/responses."""
+    return {str(code): {"$ref": f"#/components/responses/{RESPONSE_NAMES[code]}"} for code in codes}
 
 
 RESPONSE_NAMES = {400: "Malformed", 404: "NotFound", 405: "MethodNotAllowed", 406: "NotAcceptable", 413: "TooLarge",
-                  415: "UnsupportedMediaType", 422: "Invalid"}
+                  415: "UnsupportedMediaType"}
+# the 400s of a calculation's route: malformed bodies, and the figure parameters it cannot draw
+PLOT_400 = {"MalformedSeriesPlot": "plot naming a series output (without plot the figure draws the series)",
+            "MalformedNoCurve": "format=svg or png without plot (this calculation draws no curve: plot names the "
+                                "output to draw)"}
+BATCH_400 = PROBLEM_TEXT[400] + ", a table that cannot be read, or the options parameter with a JSON body"
+BATCH_422 = PROBLEM_TEXT[422] + (", for the batch as a whole: neither or both of systems and columns, columns of "
+                                 "different lengths, a bad option")
+BATCH_RESPONSES = {400: "BatchMalformed", 406: "NotAcceptable", 413: "TooLarge", 415: "UnsupportedMediaType",
+                   422: "BatchInvalid"}
 
 
 REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields for: a value outside its domain "
@@ -410,8 +426,8 @@ REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields
             "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
             "that are not ISO 8601 times (or mix too many formats); correlations naming an input not given, a pair "
             "correlated twice, an input given as samples (they carry their own correlations), or a correlation "
-            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output has no finite value (not "
-            "physically consistent); plot=NAME without the Monte Carlo method, or for an "
+            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output "
+            "has no finite value (not physically consistent); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 
 
@@ -420,20 +436,15 @@ def _refusals(calc: Calculation) -> str:
     reasons = list(dict.fromkeys(f"{', '.join(c.fields)}: {c.message}" for c in calc.constraints))
     if calc.exclusive:
         reasons.append("exactly one of " + "; ".join(" or ".join(g) for g in calc.exclusive))
-    own = ("; its own conditions: " + "; ".join(reasons)) if reasons else ""
-    return PROBLEM_TEXT[422] + own + " (and the general reasons of the calculations tag)"
+    own = ("; its own: " + "; ".join(reasons)) if reasons else ""
+    return "the general reasons of the calculations tag" + own
 
 
 def _malformed(calc: Calculation) -> str:
-    """The 400s of a calculation's route: malformed bodies, and the figure parameters it cannot draw."""
-    series = any(s.kind == "series" for s in calc.inputs)
-    if series:
-        plot = "plot naming a series output (without plot the figure draws the series)"
-    elif not has_curve(calc):
-        plot = "format=svg or png without plot (this calculation draws no curve: plot names the output to draw)"
-    else:
-        plot = ""
-    return PROBLEM_TEXT[400] + (f"; {plot}" if plot else "")
+    """The name of the 400 response of a calculation's route (the figure parameters it cannot draw differ)."""
+    if any(s.kind == "series" for s in calc.inputs):
+        return "MalformedSeriesPlot"
+    return "Malformed" if has_curve(calc) else "MalformedNoCurve"
 
 
 def _break(calc: Calculation, example: dict) -> dict:
@@ -462,23 +473,42 @@ def _plain(obj) -> Example:
     return Example(json.loads(text, parse_constant=lambda c: None))
 
 
-PROVENANCE_KEPT = ("version", "calculation")
-ANSWER = {"summary": "the service's answer to the example",
-          "description": "Computed by the service when this document was built; its provenance abridged to the "
-                         "version: the formulas, constants with their sources, references and conventions of "
-                         "each calculation are in GET /v1/calculations/{name} and on /docs."}
+PROVENANCE_KEPT = ("version",)
+ANSWERS_NOTE = ("The examples are fictional systems; their answers are the service's own, computed when this "
+                "document was built, written compactly: numbers to 6 significant digits (from 1e4 to 1e8, as Julian "
+                "Dates, to 4 decimals), the provenance cut to the version (formulas, constants with sources, "
+                "references and conventions are in GET /v1/calculations/{name} and on /docs), without the echo of "
+                "the inputs, and in a batch answer each answered row with its first output only (the others as in "
+                "the calculation's own example).")
+
+
+def _round(x: float) -> float:
+    """A number of an example answer to 6 significant digits; from 1e4 to 1e8 (a Julian Date, an MJD) to
+    4 decimals, so that a time keeps its fraction of a day."""
+    if not math.isfinite(x) or x == 0:
+        return x
+    exponent = math.floor(math.log10(abs(x)))
+    return float(f"{x:.{exponent + 5 if 4 <= exponent < 8 else 6}g}")
 
 
 def abridged(answer: Example) -> Example:
-    """An answer with its provenance (and its rows') cut to the version and the calculation's name."""
-    def cut(node):
+    """An answer as its example shows it (ANSWERS_NOTE): provenance cut to the version, no echo of the inputs
+    at the top level, a batch's rows with their first output, numbers rounded (``_round``)."""
+    def cut(node, top=False):
         if isinstance(node, dict):
+            if top and isinstance(node.get("results"), list):
+                node = type(node)({**node, "results": [{**row, "results": dict(list(row["results"].items())[:1])}
+                                            if isinstance(row.get("results"), dict) else row
+                                            for row in node["results"]]})
             return type(node)({k: ({kk: vv for kk, vv in v.items() if kk in PROVENANCE_KEPT}
-                                   if k == "provenance" and isinstance(v, dict) else cut(v)) for k, v in node.items()})
+                                   if k == "provenance" and isinstance(v, dict) else cut(v))
+                               for k, v in node.items() if not (top and k == "inputs")})
         if isinstance(node, list):
             return [cut(v) for v in node]
+        if isinstance(node, float):
+            return _round(node)
         return node
-    return cut(answer)
+    return cut(answer, top=True)
 
 
 def _examples(calc: Calculation) -> dict:
@@ -496,10 +526,6 @@ def _examples(calc: Calculation) -> dict:
     rows = {"systems": [system, _break(calc, system)], **shared}
     out["batch_request"] = _plain(rows)
     out["batch_response"] = abridged(_plain(compute_batch(calc.name, rows)))
-    try:
-        compute_batch(calc.name, {**rows, "columns": {}})
-    except Problem as p:
-        out["batch_422"] = _plain(p.as_dict())
     return out
 
 
@@ -517,16 +543,16 @@ FORMAT = {"name": "format", "in": "query", "required": False,
 
 
 def _plot_parameter(calc: Calculation) -> dict:
-    curve = "; without plot: the radial-velocity curves" if has_curve(calc) else ""
+    curve = "; without it, the radial-velocity curves" if has_curve(calc) else ""
     return {"name": "plot", "in": "query", "required": False,
-            "description": f"with format=svg or png: the histogram of this output's Monte Carlo draws (it needs the Monte "
-                           f"Carlo method: without it, 422){curve}",
-            "schema": {"type": "string", "enum": [o.name for o in calc.outputs]}}
+            "description": f"with format=svg or png: the output to draw (see format){curve}",
+            "schema": _ref(f"{_key(calc)}_output")}
 
 
-RENDERED = {media.REPORTS["latex"].split(";")[0]: {"schema": {"type": "string"}},
-            media.REPORTS["markdown"].split(";")[0]: {"schema": {"type": "string"}},
-            media.FIGURES["svg"]: {"schema": {"type": "string"}},
+TEXT = {"type": "string"}
+RENDERED = {media.REPORTS["latex"].split(";")[0]: {"schema": TEXT},
+            media.REPORTS["markdown"].split(";")[0]: {"schema": TEXT},
+            media.FIGURES["svg"]: {"schema": TEXT},
             media.FIGURES["png"]: {"schema": {"type": "string", "contentMediaType": "image/png"}}}
 
 
@@ -539,16 +565,15 @@ def _calculation_path(calc: Calculation, ex: dict) -> dict:
         "tags": ["calculations"],
         "parameters": [{"$ref": "#/components/parameters/format"}, _plot_parameter(calc)],
         "requestBody": {"required": True, "content": {media.JSON: {
-            "schema": _ref(f"{key}_request"),
-            "examples": {"fictional": {"summary": "a fictional system", "value": ex["request"]}}}}},
+            "schema": _ref(f"{key}_request"), "example": ex["request"]}}},
         "responses": {
-            "200": {"description": "the outputs with uncertainties and provenance (JSON), the derivation report "
-                                   "(format=latex|markdown) or a figure (format=svg|png)",
-                    "content": {media.JSON: {"schema": _ref(f"{key}_response"),
-                                             "examples": {"fictional": {**ANSWER, "value": ex["response"]}}},
+            "200": {"description": "the answer; with format, a report or a figure",
+                    "content": {media.JSON: {"schema": _ref(f"{key}_response"), "example": ex["response"]},
                                 **RENDERED}},
-            **_problems(400, 413, 415, 422, described={400: _malformed(calc), 422: _refusals(calc)},
-                        examples={422: ex.get("422")})}}}
+            "400": {"$ref": f"#/components/responses/{_malformed(calc)}"},
+            **_problems(413, 415),
+            "422": {"description": _refusals(calc), "content": {media.PROBLEM: {
+                "schema": _ref("Problem"), **({"example": ex["422"]} if "422" in ex else {})}}}}}}
 
 
 BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in input order: its results, warnings "
@@ -561,7 +586,8 @@ BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in
          "Bodies and answers may be JSON, an Apache Arrow IPC stream (application/vnd.apache.arrow.stream), CSV or "
          "ECSV (text/csv, ECSV when the text starts with '# %ECSV'; text/x-ecsv accepted too). Content-Type says "
          "the body's type, Accept picks the answer's (default: the body's own; 406 when none fits, and for a rows "
-         "batch asked for as a table; 415 for an unknown body type). Content-Encoding: gzip on the body and Accept-Encoding: gzip on the answer work for "
+         "batch asked for as a table; 415 for an unknown body type). Content-Encoding: gzip on the body and "
+         "Accept-Encoding: gzip on the answer work for "
          "every type. A table has one column NAME per input in its unit (Arrow field metadata {\"unit\": ...}, the "
          "ECSV header, or NAME[unit] as a CSV header; else the input's default unit), NAME_sigma (or "
          "NAME_sigma_minus and NAME_sigma_plus) in NAME's unit, choices as strings, an isotropic inclination as the "
@@ -569,47 +595,36 @@ BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in
          "system. The options of a table body go in the query parameter options. An answer table has, per output, "
          "NAME, NAME_sigma (Monte Carlo also NAME_low, NAME_high), then error_status, error and warnings; "
          "calculation, uncertainty and provenance in the table metadata. Tables carry no correlation. Series outputs "
-         "need JSON or Arrow (CSV/ECSV: 406).")
-TABLES = {media.ARROW: {"schema": {"type": "string", "format": "binary", "contentMediaType": media.ARROW}},
-          media.CSV: {"schema": {"type": "string"}}, media.ECSV: {"schema": {"type": "string"}}}
+         "need JSON or Arrow (CSV/ECSV: 406).\n\n"
+         "The example of each batch route: the calculation's fictional system, and a copy with an input out of its "
+         "domain, answered in its place.")
+TABLES = {media.ARROW: {"schema": _ref("ArrowStream")}, media.CSV: {"schema": TEXT}, media.ECSV: {"schema": TEXT}}
+COMPONENTS["ArrowStream"] = {"type": "string", "format": "binary", "contentMediaType": media.ARROW}
 
 
 def _batch_path(calc: Calculation, ex: dict) -> dict:
     key = _key(calc)
     return {"post": {
         "operationId": f"batch_{key}",
-        "summary": f"{calc.title}: many systems at once",
-        "description": f"{calc.title} for many systems (see the batch tag for rows, columns and tables).",
+        "summary": f"{calc.title}: many systems",
         "tags": ["batch"],
         "parameters": [{"$ref": "#/components/parameters/options"}],
         "requestBody": {"required": True, "content": {
-            media.JSON: {"schema": _ref(f"{key}_batch_request"),
-                         "examples": {"rows": {"summary": "the fictional system, and a copy with an input out of "
-                                                          "its domain (answered in its place)",
-                                               "value": ex["batch_request"]}}},
-            **TABLES}},
+            media.JSON: {"schema": _ref(f"{key}_batch_request"), "example": ex["batch_request"]}, **TABLES}},
         "responses": {
             "200": {"description": "one answer per system",
                     "headers": {"Content-Encoding": {"$ref": "#/components/headers/Content-Encoding"}},
                     "content": {media.JSON: {"schema": _ref(f"{key}_batch_response"),
-                                             "examples": {"rows": {**ANSWER, "value": ex["batch_response"]}}},
-                                **TABLES}},
-            **_problems(400, 406, 413, 415, 422,
-                        described={400: PROBLEM_TEXT[400] + ", a table that cannot be read, or the options "
-                                                            "parameter with a JSON body",
-                                   422: PROBLEM_TEXT[422] + ", for the batch as a whole: neither or both of systems "
-                                                            "and columns, columns of different lengths, a bad "
-                                                            "option"},
-                        examples={422: ex.get("batch_422")})}}}
+                                             "example": ex["batch_response"]}, **TABLES}},
+            **{str(code): {"$ref": f"#/components/responses/{name}"} for code, name in BATCH_RESPONSES.items()}}}}
 
 
 COMPONENTS["BatchOptions"] = {
     "type": "object", "additionalProperties": False,
     "description": "the options of a batch (the members of a JSON batch body besides systems and columns)",
     "properties": {"correlations": {"type": "array", "items": _ref("Correlation")}, "uncertainty": _ref("Uncertainty"),
-                   "units": {"type": "object", "additionalProperties": {"type": "string"}},
-                   "time_format": {"type": "string", "enum": ["jd", "mjd"]}, "echo": ECHO,
-                   "covariance": {"type": "boolean"}, "budget": {"type": "boolean"}}}
+                   "units": _ref("Units"), "time_format": _ref("TimeFormat"), "echo": _ref("Echo"),
+                   "covariance": _ref("CovarianceOption"), "budget": _ref("BudgetOption")}}
 
 
 COMPONENTS["BatchRow"] = {
@@ -626,15 +641,14 @@ COMPONENTS["BatchRowsAnswer"] = {
     "properties": {"calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
                    "uncertainty": _ref("UncertaintyReport"), "provenance": _ref("Provenance"),
                    "results": {"type": "array", "description": "one per system, in input order",
-                               "items": {"type": "object"}}}}
+                               "items": {"anyOf": [_ref("BatchRow"), _ref("RowError")]}}}}
 COMPONENTS["BatchColumnsAnswer"] = {
     "title": "columns", "type": "object", "required": ["calculation", "count", "columns", "errors"],
     "description": "the answer to columns: one array per output over the systems, the failed systems in errors",
     "properties": {
         "calculation": {"type": "string"}, "count": {"type": "integer", "minimum": 1},
-        "columns": {"type": "object", "additionalProperties": {
-            "type": "array", "items": {"type": ["object", "null"]},
-            "description": "extra members (e.g. events), one entry per system"}},
+        "columns": {"type": "object", "description": "one member per output (a calculation's own schema names "
+                                                      "them), and extra members (e.g. events)"},
         "errors": {"type": "array", "items": _ref("ColumnError")},
         "uncertainty": {"type": "object", "properties": {
             "method": {"oneOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
@@ -644,33 +658,44 @@ COMPONENTS["BatchColumnsAnswer"] = {
         "correlation": _ref("ColumnsCorrelation")}}
 
 
+COMPONENTS["BatchAnswer"] = {
+    "description": "the answer to a batch: rows or columns (a calculation's own schema names the results of a row "
+                   "and the columns)", "oneOf": [_ref("BatchRowsAnswer"), _ref("BatchColumnsAnswer")]}
+COMPONENTS["ExtraColumn"] = {"type": "array", "items": {"type": ["object", "null"]},
+                             "description": "an extra member of a columns answer (e.g. events), one entry per system"}
+COMPONENTS["RowsOrColumns"] = {
+    "description": "rows: systems, one request body per system (the top-level options apply to each unless it "
+                   "gives its own); columns: one entry per input, every array with one entry per system. A system "
+                   "(or column entry) that is not valid is answered with its error in its place",
+    "oneOf": [{"title": "rows", "required": ["systems"]}, {"title": "columns", "required": ["columns"]}]}
+
+
+def _columns(calc: Calculation) -> dict:
+    """The columns of a columns batch: one per input, named; a plain quantity's is a QuantityColumn."""
+    special = {spec.name: _column_schema(spec) for spec in calc.inputs}
+    special = {name: schema for name, schema in special.items() if schema != _ref("QuantityColumn")}
+    d = {"type": "object", "minProperties": 1, "propertyNames": {"enum": [s.name for s in calc.inputs]}}
+    if special:
+        d["properties"] = special
+    return {**d, "additionalProperties": _ref("QuantityColumn")}
+
+
 def _batch_schemas(calc: Calculation, schemas: dict) -> None:
     """``POST /v1/batch/<name>``: rows (a list of request bodies) or columns (one array per input)."""
     key = _key(calc)
     schemas[f"{key}_batch_request"] = {
-        "type": "object", "additionalProperties": False,
-        "oneOf": [{"title": "rows", "required": ["systems"]}, {"title": "columns", "required": ["columns"]}],
+        "type": "object", "additionalProperties": False, "allOf": [_ref("RowsOrColumns")],
         "properties": {
-            "systems": {"type": "array", "minItems": 1, "items": _ref(f"{key}_request"),
-                        "description": "rows: one request body per system; the top-level options apply to each "
-                                       "unless it gives its own; a system that is not valid is answered with its "
-                                       "error in its place"},
-            "columns": {"type": "object", "minProperties": 1, "additionalProperties": False,
-                        "description": "columns: one entry per input; every array has one entry per system; an "
-                                       "entry that is not valid is answered with an error for its system",
-                        "properties": {spec.name: _column_schema(spec) for spec in calc.inputs}},
+            "systems": {"type": "array", "minItems": 1, "items": _ref(f"{key}_request")},
+            "columns": _columns(calc),
             **_options(calc, batch=True)}}
     series = any(s.kind == "series" for s in calc.inputs)
-    row = {"allOf": [_ref("BatchRow")], "properties": {"results": _ref(f"{key}_results")}}
-    schemas[f"{key}_batch_response"] = {"oneOf": [
-        {"allOf": [_ref("BatchRowsAnswer")], "properties": {
-            "calculation": {"const": calc.name},
-            "results": {"items": {"anyOf": [row, _ref("RowError")]}}}},
-        {"allOf": [_ref("BatchColumnsAnswer")], "properties": {
-            "calculation": {"const": calc.name},
-            "columns": {"properties": {
-                o.name: _ref("SeriesColumnResult" if series else "ColumnResult") for o in calc.outputs}}}},
-    ]}
+    column = _ref("SeriesColumnResult" if series else "ColumnResult")
+    # the outputs by name; a calculation with extra members (events) has them beside its outputs
+    columns = {"additionalProperties": {"anyOf": [column, _ref("ExtraColumn")]}} if calc.extra is not None else \
+        {"propertyNames": _ref(f"{key}_output"), "additionalProperties": column}
+    schemas[f"{key}_batch_response"] = {"allOf": [_ref("BatchAnswer")], "properties": {
+        "results": {"items": {"properties": {"results": _ref(f"{key}_results")}}}, "columns": columns}}
 
 
 def _get(summary: str, schema: dict, example: Any = None, content_type: str = media.JSON, tag: str = "service") -> dict:
@@ -678,7 +703,7 @@ def _get(summary: str, schema: dict, example: Any = None, content_type: str = me
     if example is not None:
         content["example"] = Example(example) if isinstance(example, dict) else example
     return {"get": {"summary": summary, "tags": [tag], "responses": {
-        "200": {"description": summary, "content": {content_type: content}}}}}
+        "200": {"description": "the answer", "content": {content_type: content}}}}}
 
 
 def _limits_example() -> dict:
@@ -690,6 +715,7 @@ def _service_paths() -> dict:
     from .constants import CONSTANTS
     sb = min(calculations().values(), key=lambda c: len(json.dumps(c.as_dict())))    # the shortest declaration
     declaration = {"type": "object", "required": ["name", "path", "inputs", "outputs"]}
+    declared = sb.as_dict()
     return {
         "/v1/health": _get("liveness: the worker answers",
                            {"type": "object", "required": ["status", "version"],
@@ -708,10 +734,12 @@ def _service_paths() -> dict:
                            "(LIMITS.md)",
                            {"type": "object", "required": ["limits"], "properties": {"limits": {
                                "type": "object", "additionalProperties": _ref("Limit")}}}, _limits_example()),
-        "/v1/calculations": _get("every calculation: inputs, units, domains, outputs, references",
+        "/v1/calculations": _get("every calculation: inputs, units, domains, outputs, references (the example: "
+                                 "one, with its first input and output)",
                                  {"type": "object", "required": ["calculations"], "properties": {
                                      "calculations": {"type": "array", "items": declaration}}},
-                                 {"calculations": [_plain(sb.as_dict())]}),
+                                 {"calculations": [_plain({**declared, "inputs": declared["inputs"][:1],
+                                                           "outputs": declared["outputs"][:1]})]}),
         "/v1/calculations/{name}": {"get": {
             "summary": "one calculation's declaration", "tags": ["service"],
             "parameters": [{"name": "name", "in": "path", "required": True,
@@ -739,14 +767,27 @@ def _too_large() -> Example:
     return Example(EDGE_EXAMPLES[413])
 
 
-def _shared_responses() -> dict:
-    examples = {**EDGE_EXAMPLES, 413: _too_large()}
-    out = {}
-    for code, name in RESPONSE_NAMES.items():
+def _problem_examples() -> dict:
+    """The problems the shared responses show: the edge's own, a 413 of the service's and a batch's 422."""
+    calc = next(iter(calculations().values()))
+    out = {f"problem_{code}": example for code, example in {**EDGE_EXAMPLES, 413: _too_large()}.items()}
+    try:
+        _service().compute_batch(calc.name, {"systems": [calc.example], "columns": {}})
+    except _service().Problem as p:
+        out["batch_422"] = _plain(p.as_dict())
+    return {name: {"value": Example(value)} for name, value in out.items()}
+
+
+def _shared_responses(examples: dict) -> dict:
+    def response(text: str, example: str | None) -> dict:
         content = {"schema": _ref("Problem")}
-        if code in examples:
-            content["example"] = Example(examples[code])
-        out[name] = {"description": PROBLEM_TEXT.get(code, name), "content": {media.PROBLEM: content}}
+        if example in examples:
+            content["examples"] = {example: {"$ref": f"#/components/examples/{example}"}}
+        return {"description": text, "content": {media.PROBLEM: content}}
+    out = {name: response(PROBLEM_TEXT.get(code, name), f"problem_{code}") for code, name in RESPONSE_NAMES.items()}
+    out.update({name: response(f"{PROBLEM_TEXT[400]}; {text}", "problem_400") for name, text in PLOT_400.items()})
+    out["BatchMalformed"] = response(BATCH_400, "problem_400")
+    out["BatchInvalid"] = response(BATCH_422, "batch_422")
     return out
 
 
@@ -762,10 +803,13 @@ TAGS = [
 
 def build_spec() -> dict:
     paths = _service_paths()
+    examples = _problem_examples()
     schemas = dict(COMPONENTS)
     for calc in calculations().values():
         key = _key(calc)
         ex = _examples(calc)
+        schemas[f"{key}_output"] = {"type": "string", "enum": [o.name for o in calc.outputs]}
+        schemas[f"{key}_correlations"] = _correlations(calc)
         schemas[f"{key}_request"] = request_schema(calc, schemas)
         schemas[f"{key}_results"] = _results_schema(calc)
         schemas[f"{key}_response"] = _response_schema(calc)
@@ -778,9 +822,8 @@ def build_spec() -> dict:
                  "description": "Binary-star orbital elements to physical numbers with propagated uncertainties. "
                                 "Conventions: radial velocity positive when receding; omega is the primary's "
                                 "argument of periastron; q = M2/M1 = K1/K2; times are Julian Dates. "
-                                "Every error is an RFC 9457 problem (application/problem+json). The examples are "
-                                "fictional systems, answered by the service when this document was built. "
-                                "A person's reference: GET /docs."},
+                                "Every error is an RFC 9457 problem (application/problem+json). "
+                                "A person's reference: GET /docs. " + ANSWERS_NOTE},
         "tags": TAGS,
         "paths": paths,
         "components": {
@@ -794,8 +837,8 @@ def build_spec() -> dict:
                             "content": {media.JSON: {"schema": _ref("BatchOptions")}}}},
             "headers": {"Content-Encoding": {"description": "gzip when the request's Accept-Encoding asks for it",
                                              "schema": {"type": "string", "enum": ["gzip"]}}},
-            "responses": _shared_responses(),
-            "examples": {f"problem_{code}": {"value": Example(example)} for code, example in EDGE_EXAMPLES.items()},
+            "responses": _shared_responses(examples),
+            "examples": examples,
         },
     }
 
@@ -811,12 +854,15 @@ class Example(dict):
     """An example value: written in YAML's flow style (it reads as the JSON on the wire)."""
 
 
-SHORT = 96        # a mapping or list whose JSON is this short is written on one line, in flow style
+SHORT = 200       # a mapping or list whose JSON is this short is written on one line, in flow style
 
 
 def _short(data) -> bool:
     if isinstance(data, list) and not any(isinstance(x, (dict, list)) for x in data):
         return True     # a list of names or numbers (an enum, required) reads well on a line, wrapped
+    if isinstance(data, dict) and any(isinstance(v, Example) or (isinstance(v, dict) and not _short(v))
+                                      for v in data.values()):
+        return False    # an example starts a line of its own
     return len(json.dumps(data, default=str)) <= SHORT
 
 
@@ -830,7 +876,7 @@ _Dumper.add_representer(list, lambda dumper, data: dumper.represent_sequence(
 
 def dump_yaml(document) -> str:
     """YAML as the spec is written: short mappings and lists on one line, no anchors or aliases."""
-    return yaml.dump(document, Dumper=_Dumper, sort_keys=False, allow_unicode=True, width=110)
+    return yaml.dump(document, Dumper=_Dumper, sort_keys=False, allow_unicode=True, width=140)
 
 
 @lru_cache(maxsize=1)

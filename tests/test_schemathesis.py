@@ -105,7 +105,10 @@ def _refusal_is_documented(case, status: int, problem: dict) -> bool:
     if status == 413:
         return True
     errors = problem.get("errors") or {}
-    description = op["responses"][str(status)].get("description", "")
+    response = op["responses"][str(status)]
+    if "$ref" in response:
+        response = RAW["components"]["responses"][response["$ref"].rsplit("/", 1)[1]]
+    description = response.get("description", "")
     if status == 400:         # only the figure parameters the operation's 400 names (never the body's form)
         return set(errors) == {"plot"} and "plot" in description
     body = case.body if isinstance(case.body, dict) else {}
