@@ -191,8 +191,6 @@ def test_budget_table_and_undefined_sigma_as_the_page_shows_them(browser, base_u
     assert not _csp_violations(browser)
 
 
-@pytest.mark.xfail(reason="the service's side of \"budget\": true arrives with the core and engine branches; "
-                          "until then the service refuses the option (422 budget: unknown field)", strict=False)
 def test_budget_asked_from_the_page_matches_the_uncertainties_package(browser, base_url, client):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)

@@ -556,13 +556,27 @@
   // a long output name may wrap after its underscores (a <wbr> adds no text)
   function breakable(name) { return name.split(/(?<=_)/).flatMap((part, i) => (i ? [el("wbr"), part] : [part])); }
 
+  function budgetShare(share) {
+    // one decimal, or two significant digits below 0.1 % (as the derivation report prints it)
+    const pct = 100 * share;
+    return `${pct !== 0 && Math.abs(pct) < 0.1 ? pct.toPrecision(2) : pct.toFixed(1)} %`;
+  }
+
   function budgetTable(name, budget) {
-    // the shares of the output's variance, largest first; a correlation term ("k1,k2") may be negative
-    const terms = Object.entries(budget).filter(([, v]) => finiteNumber(v)).sort((a, b) => Math.abs(b[1]) - Math.abs(a[1]));
-    const rows = terms.map(([term, share]) => el("tr", { "data-term": term }, [
-      el("td", { text: term.includes(",") ? `${term.replace(",", " × ")} (correlation)` : term }),
-      el("td", { class: "share", text: `${(100 * share).toFixed(Math.abs(share) < 0.001 ? 3 : 1)} %` }),
-    ]));
+    // the shares of the output's variance: inputs largest first, then each correlation term ("k1,k2",
+    // which may be negative) on its own line; an exact zero (an input the output does not depend on) is left out
+    const finite = Object.entries(budget).filter(([, v]) => finiteNumber(v) && v !== 0);
+    const terms = finite.filter(([t]) => !t.includes(",")).sort((a, b) => b[1] - a[1])
+      .concat(finite.filter(([t]) => t.includes(",")));
+    const rows = terms.map(([term, share]) => {
+      const bar = el("span", { class: share < 0 ? "bar negative" : "bar" });
+      bar.style.width = `${Math.min(100, Math.abs(100 * share)).toFixed(1)}%`;   // CSSOM: allowed by the CSP
+      return el("tr", { "data-term": term }, [
+        el("td", { text: term.includes(",") ? `${term.replace(",", " × ")} (correlation)` : term }),
+        el("td", { class: "share", text: budgetShare(share) }),
+        el("td", { class: "bar-cell", "aria-hidden": "true" }, bar),
+      ]);
+    });
     return el("table", { class: "budget", "data-budget": name }, [
       el("caption", { text: `share of the variance of ${name}` }), el("tbody", {}, rows)]);
   }
