@@ -667,7 +667,7 @@ def _budget_section(doc: _Doc, results: Mapping[str, Any], unc: Mapping[str, Any
         if monte_carlo:
             doc.para(s.text("Share of each output's variance from each input, estimated from the draws as the "
                             "fall in variance when that input is held at its nominal value (the shares need not "
-                            "sum to 100 %)."))
+                            "sum to 100 %, and sampling noise can put a small share slightly below 0)."))
         else:
             doc.para(s.text("Share of each output's linear variance from each input, (df/dx sigma)^2 / sigma_f^2; "
                             "a correlated pair's term 2 rho (df/dx sigma_x)(df/dy sigma_y) / sigma_f^2 is a line of "
@@ -675,7 +675,8 @@ def _budget_section(doc: _Doc, results: Mapping[str, Any], unc: Mapping[str, Any
                             "listed."))
         for name, terms in shown:
             doc.table([s.code(name), s.text("share of variance [%]")],
-                      [[s.text("correlation " + t.replace(",", ", ")) if "," in t else s.code(t), _share(v)]
+                      [[s.text("correlation " + t.replace(",", ", ")) if "," in t else s.code(t),
+                        f"${_share(v)}$" if s.name == "latex" else _share(v)]      # a true minus sign in LaTeX
                        for t, v in terms], "lr")
     parts = []
     if missing:

@@ -82,7 +82,7 @@ def test_budget_table_in_latex_and_from_the_command_line(capsys):
     assert r"\paragraph{Uncertainty budget}" in tex
     block = tex[tex.index(r"\texttt{m1} & share of variance [\%]"):]
     row = next(line for line in block.splitlines() if line.startswith(r"\texttt{inclination} &"))
-    share = float(row.split("&")[1].strip(" \\"))
+    share = float(row.split("&")[1].strip(" \\$"))
     assert share == pytest.approx(_reference()[0]["inclination"], abs=0.06)
     assert tex.count(r"\begin{") == tex.count(r"\end{")
 
