@@ -162,3 +162,18 @@ def test_report_states_the_time_scale_of_inputs_and_events(client, time_format, 
     assert f"{round(first, 2):.2f}" in md
     if time_format == "mjd":
         assert 60000 < first < 70000                                # an MJD of this decade, not a JD
+
+
+def test_wind_momentum_ratio_budget_matches_uncertainties_error_components(client):
+    """A wind calculation: eta = Mdot2 v2 / (Mdot1 v1) (Eichler & Usov 1993, eq. 1, from memory), its shares of
+    variance by the `uncertainties` package against the report's table for the collision example."""
+    calc = calculations()["collision"]
+    example = calc.example
+    x = {n: ufloat(example[n]["value"], example[n]["sigma"], n) for n in ("mdot1", "mdot2", "vinf1", "vinf2")}
+    eta = x["mdot2"] * x["vinf2"] / (x["mdot1"] * x["vinf1"])
+    expected = {var.tag: 100 * c ** 2 / eta.std_dev ** 2 for var, c in eta.error_components().items()}
+    md = client.post(calc.path + "?format=markdown", json=example).get_data(as_text=True)
+    table = _table(md, "momentum_ratio")
+    assert set(table) == set(expected)
+    for term, share in expected.items():
+        assert table[term] == pytest.approx(share, abs=0.06, rel=0.02), term
