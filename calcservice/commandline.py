@@ -542,7 +542,7 @@ def _compute_or_raise(args, limits) -> int:
                   file=sys.stderr)
         return EXIT_REJECTED if failed == rows else 0
 
-    response = compute(calc.name, body, limits)
+    response = compute(calc.name, report.asking_budget(body) if fmt in ("latex", "markdown") else body, limits)
     if fmt == "json":
         print(json.dumps(response, indent=2, allow_nan=False))
     elif fmt in ("latex", "markdown"):

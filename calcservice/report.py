@@ -301,6 +301,15 @@ STYLES = {"text": Text(), "markdown": Markdown(), "latex": Latex()}
 
 
 # --------------------------------------------------------------------------- the report's content
+def asking_budget(body: Any) -> Any:
+    """The request ``body`` with the uncertainty budget asked for, since the report always shows it.
+    A body that is not an object, or whose ``budget`` is not a boolean, is left for the parser to refuse."""
+    if isinstance(body, Mapping) and isinstance(body.get("budget", False), bool):
+        return {**body, "budget": True}
+    return body
+
+
+
 def is_measured(x: Any) -> bool:
     return isinstance(x, dict) and "value" in x and "unit" in x and not isinstance(x.get("value"), (list, dict))
 
@@ -408,14 +417,47 @@ def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]
     for key, member in members.items():
         if isinstance(member, dict):
             unit = member.get("unit", "")
-            if member.get("time_format") == "mjd":     # dates given back as the caller gave them: say so
-                unit = f"{unit}, MJD"
+            # dates given back in the caller's format: say which
+            if "time_format" in member:
+                unit = f"{unit}, {'MJD' if member['time_format'] == 'mjd' else 'JD'}"
             for sub, entries in member.items():
                 if isinstance(entries, list) and entries and all(isinstance(e, dict) for e in entries):
                     out.append((f"{key}: {sub}", unit, entries))
         elif isinstance(member, list) and member and all(isinstance(e, dict) for e in member):
             out.append((key, "", member))
     return out
+
+
+def _share(x: float) -> str:
+    """A share of variance as a percentage: one decimal, or two significant digits below 0.1 %."""
+    pct = 100.0 * x
+    if pct != 0 and abs(pct) < 0.1:
+        return format(pct, ".2g")
+    return format(pct, ".1f")
+
+
+def budget_rows(results: Mapping[str, Any]) -> tuple[list[tuple[str, list[tuple[str, float]]]], list[str]]:
+    """Each output with a sigma and its uncertainty budget: [(output, [(term, share), ...])], inputs
+    by decreasing share then the correlation terms ("a,b") on their own lines, terms of exactly zero
+    (an input the output does not depend on) left out; and the outputs with a sigma but no budget."""
+    shown, missing = [], []
+    for name, entry in results.items():
+        if not is_measured(entry) or not (_finite(entry.get("sigma")) and entry["sigma"] > 0):
+            continue
+        terms = entry.get("budget")
+        finite = {k: v for k, v in (terms or {}).items() if _finite(v)}
+        if not finite:
+            missing.append(name)
+            continue
+        inputs = sorted(((k, v) for k, v in finite.items() if "," not in k and v != 0), key=lambda kv: -kv[1])
+        pairs = [(k, v) for k, v in finite.items() if "," in k and v != 0]
+        shown.append((name, inputs + pairs))
+    return shown, missing
+
+
+def _series_names(results: Mapping[str, Any]) -> list[str]:
+    series = results.get("series")
+    return series_rows(series)[0] if isinstance(series, dict) else []
 
 
 class _Doc:
@@ -500,6 +542,10 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         head = f"{title} ({name})"
         doc.lines += [head, "=" * len(head), ""]
 
+    # dates are JD unless the request said "time_format": "mjd" (the answer then says so too)
+    scale = "MJD" if response.get("time_format") == "mjd" else "JD"
+    dates = ({n for i in calc.inputs if getattr(i, "time", False) for n in (i.name, i.label) if n}
+             if calc is not None else set())
     doc.heading("Inputs")
     rows = []
     for key, entry in response.get("inputs", {}).items():
@@ -510,8 +556,11 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             except KeyError:
                 pass
         unit = entry.get("unit", "") if isinstance(entry, dict) else ""
+        shown_unit = s.unit(unit)
+        if key in dates:                            # a date: say whether the numbers are JD or MJD
+            shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
-                     s.unit(unit), s.text(desc)])
+                     shown_unit, s.text(desc)])
     doc.table(["input", "value", "unit", "description"], rows)
 
     results = response.get("results", {})
@@ -537,7 +586,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             doc.para(s.text(f"{len(srows)} rows: too many to print here; the JSON response (or the CSV batch path) "
                             "has them all."))
         else:
-            header = [s.code(k) + (f" [{s.unit(u)}]" if u else "") for k, u in zip(names, units)]
+            header = [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in dates else ''}]" if u else "")
+                      for k, u in zip(names, units)]
             body = []
             for row in srows:
                 cells = []
@@ -588,7 +638,10 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     corr = (request or {}).get("correlations", ()) if isinstance(request, Mapping) else ()
     doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr)])
 
-    warnings = response.get("warnings", [])
+    _budget_section(doc, results, response.get("uncertainty", {}))
+
+    # the budget section says where the budget is not given; the warning would say it twice
+    warnings = [w for w in response.get("warnings", []) if w.get("code") != "budget_not_given"]
     if warnings:
         doc.heading("Warnings")
         doc.items([f"{s.code(w.get('code', ''))}: {s.text(w.get('message', ''))}" for w in warnings])
@@ -596,6 +649,44 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     doc.para(s.text(f"calcservice {version}. Numbers rounded for print by the Particle Data Group rule (Review of "
                     "Particle Physics, introduction); the JSON response keeps full precision."))
     return doc.text()
+
+
+def _budget_section(doc: _Doc, results: Mapping[str, Any], unc: Mapping[str, Any]) -> None:
+    """The uncertainty budget: a small table per output with a sigma (its share of variance from each
+    input, the correlation terms on their own lines), and one line naming the outputs without one."""
+    s = doc.style
+    shown, missing = budget_rows(results)
+    series = results.get("series") if isinstance(results.get("series"), dict) else {}
+    series_out = [k for k in _series_names(results)
+                  if any(_finite(x) and x > 0 for x in (series[k].get("sigma") or []))]
+    if not (shown or missing or series_out):
+        return
+    doc.heading("Uncertainty budget")
+    monte_carlo = unc.get("method") == "monte_carlo"
+    if shown:
+        if monte_carlo:
+            doc.para(s.text("Share of each output's variance from each input, estimated from the draws as the "
+                            "fall in variance when that input is held at its nominal value (the shares need not "
+                            "sum to 100 %, and sampling noise can put a small share slightly below 0)."))
+        else:
+            doc.para(s.text("Share of each output's linear variance from each input, (df/dx sigma)^2 / sigma_f^2; "
+                            "a correlated pair's term 2 rho (df/dx sigma_x)(df/dy sigma_y) / sigma_f^2 is a line of "
+                            "its own and may be negative; the shares sum to 100 %. Inputs with no share are not "
+                            "listed."))
+        for name, terms in shown:
+            doc.table([s.code(name), s.text("share of variance [%]")],
+                      [[s.text("correlation " + t.replace(",", ", ")) if "," in t else s.code(t),
+                        f"${_share(v)}$" if s.name == "latex" else _share(v)]      # a true minus sign in LaTeX
+                       for t, v in terms], "lr")
+    parts = []
+    if missing:
+        reason = ("Monte Carlo draws of correlated, sampled or isotropic inputs have no share of their own to "
+                  "hold fixed" if monte_carlo else "its variance could not be split by input")
+        parts.append(", ".join(missing) + f" ({reason})")
+    if series_out:
+        parts.append(", ".join(series_out) + " (series outputs)")
+    if parts:
+        doc.para(s.text("Uncertainty budget not given for " + "; and for ".join(parts) + "."))
 
 
 def _short(x: Any) -> str:

@@ -197,4 +197,4 @@ def test_report_names_mjd_dates(client):
     assert "date [d, MJD]" in text
     text = client.post(PATH + "?format=markdown", json={**body, "time_format": "jd", "t_periastron": T0,
                                                          "after": AFTER}).get_data(as_text=True)
-    assert "date [d]" in text and "MJD" not in text.split("### Events")[1].split("###")[0]
+    assert "date [d, JD]" in text and "MJD" not in text.split("### Events")[1].split("###")[0]

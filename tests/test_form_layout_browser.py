@@ -17,10 +17,13 @@ NAMES = sorted(calculations())
 SHOWN = ("sb2", "ephemeris", "collision", "mass-loss-radio")
 
 
-def _compute_example(driver, base, name, monte_carlo=False):
+def _compute_example(driver, base, name, monte_carlo=False, budget=False):
     from selenium.webdriver.common.by import By
     _open(driver, f"{base}/#{name}")
     driver.find_element(By.ID, "example").click()
+    box = driver.find_element(By.ID, "budget")
+    if box.is_selected() != budget:         # the address may carry the last computation's choice
+        box.click()
     if monte_carlo:
         driver.find_element(By.ID, "method-mc").click()
         for field, text in (("samples", "400"), ("seed", "5")):
@@ -85,7 +88,9 @@ def test_screenshots_at_phone_and_desktop_widths(browser, base_url):  # noqa: F8
     for width in (390, 1280):
         for name in SHOWN:
             browser.set_window_size(width, 900)
-            _compute_example(browser, base_url, name, monte_carlo=name == "collision")
+            _compute_example(browser, base_url, name, monte_carlo=name == "collision", budget=name == "sb2")
+            if name == "sb2":
+                assert browser.find_elements(By.CSS_SELECTOR, 'table.budget[data-budget="m1"] tr[data-term]')
             if name == "collision":
                 browser.find_element(By.CSS_SELECTOR, 'tr[data-output="momentum_ratio"] button.histogram').click()
                 _wait(browser, lambda d: d.execute_script(

@@ -19,7 +19,7 @@ def render(name: str, body: Any, fmt: str, limits: Limits, args: Mapping[str, st
     calc = find(name)
     args = args or {}
     if fmt in ("latex", "markdown"):
-        response = compute(name, body, limits)
+        response = compute(name, report.asking_budget(body), limits)
         text = report.report(response, calc, fmt, body if isinstance(body, dict) else None)
         return Response(text, content_type=MIMETYPES[fmt])
     if fmt not in ("svg", "png"):

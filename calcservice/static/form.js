@@ -556,13 +556,27 @@
   // a long output name may wrap after its underscores (a <wbr> adds no text)
   function breakable(name) { return name.split(/(?<=_)/).flatMap((part, i) => (i ? [el("wbr"), part] : [part])); }
 
+  function budgetShare(share) {
+    // one decimal, or two significant digits below 0.1 % (as the derivation report prints it)
+    const pct = 100 * share;
+    return `${pct !== 0 && Math.abs(pct) < 0.1 ? pct.toPrecision(2) : pct.toFixed(1)} %`;
+  }
+
   function budgetTable(name, budget) {
-    // the shares of the output's variance, largest first; a correlation term ("k1,k2") may be negative
-    const terms = Object.entries(budget).filter(([, v]) => finiteNumber(v)).sort((a, b) => Math.abs(b[1]) - Math.abs(a[1]));
-    const rows = terms.map(([term, share]) => el("tr", { "data-term": term }, [
-      el("td", { text: term.includes(",") ? `${term.replace(",", " × ")} (correlation)` : term }),
-      el("td", { class: "share", text: `${(100 * share).toFixed(Math.abs(share) < 0.001 ? 3 : 1)} %` }),
-    ]));
+    // the shares of the output's variance: inputs largest first, then each correlation term ("k1,k2",
+    // which may be negative) on its own line; an exact zero (an input the output does not depend on) is left out
+    const finite = Object.entries(budget).filter(([, v]) => finiteNumber(v) && v !== 0);
+    const terms = finite.filter(([t]) => !t.includes(",")).sort((a, b) => b[1] - a[1])
+      .concat(finite.filter(([t]) => t.includes(",")));
+    const rows = terms.map(([term, share]) => {
+      const bar = el("span", { class: share < 0 ? "bar negative" : "bar" });
+      bar.style.width = `${Math.min(100, Math.abs(100 * share)).toFixed(1)}%`;   // CSSOM: allowed by the CSP
+      return el("tr", { "data-term": term }, [
+        el("td", { text: term.includes(",") ? `${term.replace(",", " × ")} (correlation)` : term }),
+        el("td", { class: "share", text: budgetShare(share) }),
+        el("td", { class: "bar-cell", "aria-hidden": "true" }, bar),
+      ]);
+    });
     return el("table", { class: "budget", "data-budget": name }, [
       el("caption", { text: `share of the variance of ${name}` }), el("tbody", {}, rows)]);
   }
@@ -1079,8 +1093,8 @@
   }
 
   // ------------------------------------------------------------------ a catalogue from a file
-  // A CSV (header NAME or NAME[unit]) or ECSV file (units from its YAML header) becomes the JSON columns
-  // body of POST v1/batch/<name>; the answer is shown row by row and can be saved as CSV.
+  // A CSV (header NAME or NAME[unit]) or ECSV file (units from its YAML header) is read here only for its
+  // preview; the file's text itself goes to POST v1/batch/<name>, whose answer table is shown and saved as it came.
   const PREVIEW_ROWS = 10;
   const SHOWN_ROWS = 500;
 
@@ -1156,49 +1170,48 @@
     const rows = body.slice(1).map((l) => splitLine(l, delimiter));
     const bad = rows.findIndex((r) => r.length !== columns.length);
     if (bad >= 0) return { error: `line ${bad + 2} of the table has ${rows[bad].length} cells for ${columns.length} columns` };
-    return { ecsv, columns, rows };
+    return { ecsv, columns, rows, delimiter };
   }
 
-  function cellValue(x) {
-    if (x === null || x === undefined) return null;
-    return NUMBER.test(x) ? Number(x) : /^nan$/i.test(x) ? null : x;
-  }
-
-  function catalogueBody(calc, table) {
-    // the JSON columns body: NAME (value), NAME_sigma / NAME_sigma_minus / NAME_sigma_plus, units per column
-    const inputs = Object.fromEntries(calc.inputs.map((i) => [i.name, i]));
-    const columns = {}, ignored = [], problems = [];
-    const col = (k) => table.rows.map((r) => cellValue(r[k]));
-    table.columns.forEach((c, k) => {
-      if (inputs[c.name]) {
-        columns[c.name] = Object.assign(columns[c.name] || {}, { value: col(k) });
-        if (c.unit) columns[c.name].unit = c.unit;
-        return;
-      }
-      const m = c.name.match(/^(.+)_(sigma|sigma_minus|sigma_plus)$/);
-      if (m && inputs[m[1]]) {
-        columns[m[1]] = Object.assign(columns[m[1]] || {}, { [m[2]]: col(k) });
-        if (c.unit) columns[m[1]][`${m[2]}_unit`] = c.unit;
-        return;
-      }
-      ignored.push(c.name);
-    });
-    for (const [name, c] of Object.entries(columns)) {
-      for (const part of ["sigma", "sigma_minus", "sigma_plus"]) {
-        const u = c[`${part}_unit`];
-        delete c[`${part}_unit`];
-        if (u !== undefined && u !== (c.unit || inputs[name].unit || "")) problems.push(`${name}_${part} is in ${u}: give it in the unit of ${name} (${c.unit || inputs[name].unit})`);
-      }
-      if (!c.value) { problems.push(`${name}: a sigma column without the column ${name}`); continue; }
-      // an empty value cell means "not given for this system": its sigma cells go with it
-      for (const part of ["sigma", "sigma_minus", "sigma_plus"]) {
-        if (c[part]) c[part] = c[part].map((x, i) => (c.value[i] === null ? null : x));
+  function rawCells(line, delimiter) {
+    // one line cut into its cells as written (quotes kept), to drop whole columns without rewriting any cell
+    const cells = [];
+    let start = 0, quoted = false;
+    for (let i = 0; i < line.length; i++) {
+      const c = line[i];
+      if (c === '"') quoted = !quoted;
+      else if (!quoted && (delimiter === " " ? /\s/.test(c) : c === delimiter)) {
+        cells.push(line.slice(start, i));
+        if (delimiter === " ") while (/\s/.test(line[i + 1] || "x")) i++;
+        start = i + 1;
       }
     }
-    const body = { columns };
-    const { body: options } = collect();
-    for (const k of ["uncertainty", "correlations", "time_format"]) if (options[k]) body[k] = options[k];
-    return { body, ignored, problems };
+    cells.push(line.slice(start));
+    return cells;
+  }
+
+  function withoutColumns(text, table, dropped) {
+    // the file's own text less the columns that are not inputs (the service refuses unknown columns):
+    // their cells, and in an ECSV header their datatype entries (astropy's one-line form)
+    if (!dropped.size) return text;
+    const delimiter = table.delimiter;
+    const keep = table.columns.map((c) => !dropped.has(c.name));
+    return text.replace(/^\uFEFF/, "").split(/\r?\n/).filter((line) => {
+      const m = line.match(/^#\s*-\s*\{\s*name:\s*['"]?([^,'"}]+?)['"]?\s*,/);
+      return !(m && dropped.has(m[1]));
+    }).map((line) => {
+      if (line.startsWith("#") || line.trim() === "") return line;
+      const cells = rawCells(delimiter === " " ? line.trim() : line, delimiter);
+      return cells.filter((_, k) => keep[k]).join(delimiter);
+    }).join("\n");
+  }
+
+  function catalogueOptions() {
+    // the options of the whole batch, from the form: the query parameter "options" (a JSON object)
+    const { body } = collect();
+    const options = {};
+    for (const k of ["uncertainty", "correlations", "time_format"]) if (body[k]) options[k] = body[k];
+    return options;
   }
 
   function resetCatalogue(keepFile) {
@@ -1214,6 +1227,11 @@
 
   function unitLabel(unit) { return unit === undefined ? "" : ` [${unit || "dimensionless"}]`; }
 
+  function inputColumn(inputs, name) {
+    const stem = name.replace(/_sigma(_minus|_plus)?$/, "");
+    return inputs[stem] ? stem : null;
+  }
+
   async function readCatalogue(file) {
     resetCatalogue(true);
     const text = await file.text();
@@ -1223,11 +1241,11 @@
       return;
     }
     const inputs = Object.fromEntries(state.calc.inputs.map((i) => [i.name, i]));
-    const { body, ignored, problems } = catalogueBody(state.calc, table);
-    state.catalogue = { file: file.name, table, body };
+    const ignored = table.columns.map((c) => c.name).filter((n) => !inputColumn(inputs, n));
+    state.catalogue = { file: file.name, table, text: withoutColumns(text, table, new Set(ignored)) };
     const head = el("tr", {}, [el("th", { text: "#" })].concat(table.columns.map((c) => {
-      const stem = c.name.replace(/_sigma(_minus|_plus)?$/, "");
-      const unit = c.unit !== undefined ? c.unit : inputs[stem] ? inputs[stem].unit : undefined;
+      const stem = inputColumn(inputs, c.name);
+      const unit = c.unit !== undefined ? c.unit : stem ? inputs[stem].unit : undefined;
       return el("th", { "data-column": c.name }, [document.createTextNode(c.name),
         el("span", { class: "unit", text: unitLabel(unit) + (c.unit === undefined && unit !== undefined ? " (default)" : "") })]);
     })));
@@ -1238,33 +1256,35 @@
     const notes = [`${table.rows.length} systems, ${table.ecsv ? "ECSV (units from its header)" : "CSV"}.`];
     if (ignored.length) notes.push(`Columns that are not inputs of ${state.calc.name}, left out: ${ignored.join(", ")}.`);
     $("catalogue-status").textContent = notes.join(" ");
-    if (problems.length) {
-      showProblem({ title: "Cannot send this table", detail: problems.join("; ") }, $("catalogue-problem"));
-      return;
-    }
     $("catalogue-compute").disabled = table.rows.length === 0;
   }
 
-  function rowErrorText(problem) {
-    const fields = Object.entries(problem.errors || {}).map(([k, v]) => `${k}: ${[].concat(v).join(" ")}`);
-    return fields.length ? fields.join("; ") : problem.detail || problem.title || "error";
-  }
-
   async function computeCatalogue() {
+    // the file itself to the batch endpoint (CSV in, CSV out; ECSV in, ECSV out), its answer shown and saved as sent
     const cat = state.catalogue;
     if (!cat) return;
     show($("catalogue-problem"), false);
     clear($("catalogue-results"));
     $("catalogue-compute").disabled = true;
+    $("catalogue-download").disabled = true;
     $("catalogue-status").textContent = `Computing ${cat.table.rows.length} systems…`;
     try {
-      const r = await request("POST", `v1/batch/${state.calc.name}`, catalogueBody(state.calc, cat.table).body);
+      const options = catalogueOptions();
+      const query = Object.keys(options).length ? `?options=${encodeURIComponent(JSON.stringify(options))}` : "";
+      const r = await fetch(`v1/batch/${state.calc.name}${query}`, {
+        method: "POST", headers: { "Content-Type": "text/csv", Accept: "text/csv" }, body: cat.text });
+      const ctype = r.headers.get("Content-Type") || "";
+      const text = await r.text();
       if (!r.ok) {
-        showProblem(typeof r.data === "object" ? r.data : { title: `HTTP ${r.status}`, detail: String(r.data) }, $("catalogue-problem"));
+        let problem = { title: `HTTP ${r.status}`, detail: text };
+        if (ctype.includes("json")) try { problem = JSON.parse(text); } catch (e) { /* the text as it came */ }
+        showProblem(problem, $("catalogue-problem"));
         $("catalogue-status").textContent = `The service refused the table (${r.status}).`;
         return;
       }
-      cat.answer = r.data;
+      const answer = parseTable(text);
+      if (answer.error) throw new Error(`the answer table: ${answer.error}`);
+      cat.answer = { text, table: answer, options };
       renderCatalogue(cat);
     } catch (err) {
       showProblem({ title: "No answer", detail: String(err) }, $("catalogue-problem"));
@@ -1273,60 +1293,39 @@
     }
   }
 
-  function catalogueRows(answer) {
-    // per row: its problem (if any) and its warning codes
-    const n = answer.count;
-    const errors = new Array(n).fill(null), warnings = Array.from({ length: n }, () => []);
-    for (const e of answer.errors || []) errors[e.index] = e;
-    for (const w of answer.warnings || []) for (const i of w.rows || []) if (warnings[i] && !warnings[i].includes(w.code)) warnings[i].push(w.code);
-    return { errors, warnings };
-  }
-
   function renderCatalogue(cat) {
-    const answer = cat.answer;
-    const cols = answer.columns || {};
-    const names = Object.keys(cols).filter((k) => cols[k] && Array.isArray(cols[k].value) && !Array.isArray(cols[k].value[0]));
-    const { errors, warnings } = catalogueRows(answer);
-    // the error column first after the row number: on a phone the reason is seen without scrolling
+    // the answer table's columns: NAME, NAME_sigma (Monte Carlo: NAME_low, NAME_high), error_status, error, warnings
+    const { table } = cat.answer;
+    const index = Object.fromEntries(table.columns.map((c, k) => [c.name, k]));
+    const names = table.columns.map((c) => c.name).filter((n) => !/_(sigma|low|high)$/.test(n) && !["error_status", "error", "warnings"].includes(n));
+    const cell = (row, name) => (index[name] === undefined ? null : row[index[name]]);
+    const number = (x) => (x === null || x === undefined || !NUMBER.test(x) ? null : Number(x));
     const head = el("tr", {}, [el("th", { text: "#" }), el("th", { text: "error" })].concat(names.map((k) => el("th", {}, [document.createTextNode(k),
-      el("span", { class: "unit", text: unitLabel(cols[k].unit) })])), [el("th", { text: "warnings" })]));
+      el("span", { class: "unit", text: unitLabel(table.columns[index[k]].unit) })])), [el("th", { text: "warnings" })]));
     const rows = [];
-    for (let i = 0; i < Math.min(answer.count, SHOWN_ROWS); i++) {
+    let failed = 0;
+    table.rows.forEach((row, i) => {
+      const error = cell(row, "error"), status = cell(row, "error_status");
+      if (error || status) failed++;
+      if (i >= SHOWN_ROWS) return;
       const cells = [el("td", { text: String(i + 1) }),
-        el("td", { class: "row-error", text: errors[i] ? `${errors[i].status}: ${rowErrorText(errors[i])}` : "" })];
+        el("td", { class: "row-error", text: error || status ? `${status || ""}: ${error || ""}` : "" })];
       for (const k of names) {
-        const entry = { value: cols[k].value[i] };
-        for (const m of ["sigma", "low", "high"]) if (Array.isArray(cols[k][m])) entry[m] = cols[k][m][i];
+        const entry = { value: number(cell(row, k)) };
+        for (const m of ["sigma", "low", "high"]) if (index[`${k}_${m}`] !== undefined) entry[m] = number(cell(row, `${k}_${m}`));
         cells.push(el("td", { title: entry.value === null ? "" : fullPrecision(entry), text: entry.value === null ? "" : measured(entry) }));
       }
-      cells.push(el("td", { text: warnings[i].join("; ") }));
-      rows.push(el("tr", { class: errors[i] ? "failed" : "", "data-row": i }, cells));
-    }
-    const failed = errors.filter(Boolean).length;
-    $("catalogue-results").append(el("h3", { text: `Results: ${answer.count - failed} of ${answer.count} systems answered` + (failed ? `, ${failed} refused (their reasons in the error column)` : "") }),
+      cells.push(el("td", { text: (cell(row, "warnings") || "").split(";").filter(Boolean).join("; ") }));
+      rows.push(el("tr", { class: error || status ? "failed" : "", "data-row": i }, cells));
+    });
+    const count = table.rows.length;
+    $("catalogue-results").append(el("h3", { text: `Results: ${count - failed} of ${count} systems answered` + (failed ? `, ${failed} refused (their reasons in the error column)` : "") }),
       el("table", { class: "catalogue", id: "catalogue-results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
-    if (answer.count > SHOWN_ROWS) $("catalogue-results").append(el("p", { class: "hint", text: `The first ${SHOWN_ROWS} rows are shown; the download has them all.` }));
-    const unc = answer.uncertainty || {};
-    $("catalogue-status").textContent = `${cat.file}: ${answer.count} systems, ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples} draws, seed ${unc.seed})` : "linear propagation"}.`;
+    if (count > SHOWN_ROWS) $("catalogue-results").append(el("p", { class: "hint", text: `The first ${SHOWN_ROWS} rows are shown; the download has them all.` }));
+    const unc = cat.answer.options.uncertainty || {};
+    $("catalogue-status").textContent = `${cat.file}: ${count} systems, ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples || "default"} draws${unc.seed !== undefined ? `, seed ${unc.seed}` : ""})` : "linear propagation"}.`;
     $("catalogue-download").disabled = false;
-  }
-
-  function catalogueCsv(answer) {
-    // the answer table: NAME[unit], NAME_sigma (Monte Carlo: NAME_low, NAME_high), error_status, error, warnings
-    const cols = answer.columns || {};
-    const names = Object.keys(cols).filter((k) => cols[k] && Array.isArray(cols[k].value) && !Array.isArray(cols[k].value[0]));
-    const head = [], data = [];
-    for (const k of names) {
-      head.push(cols[k].unit ? `${k}[${cols[k].unit}]` : k); data.push(cols[k].value);
-      for (const m of ["sigma", "low", "high"]) if (Array.isArray(cols[k][m])) { head.push(`${k}_${m}`); data.push(cols[k][m]); }
-    }
-    const { errors, warnings } = catalogueRows(answer);
-    head.push("error_status", "error", "warnings");
-    const lines = [head];
-    for (let i = 0; i < answer.count; i++) {
-      lines.push(data.map((c) => c[i]).concat([errors[i] ? errors[i].status : "", errors[i] ? rowErrorText(errors[i]) : "", warnings[i].join(";")]));
-    }
-    return csvText(lines);
+    $("catalogue-download").textContent = `Download the results (${cat.table.ecsv ? "ECSV" : "CSV"})`;
   }
 
   function wireCatalogue() {
@@ -1341,8 +1340,10 @@
     });
     $("catalogue-compute").addEventListener("click", computeCatalogue);
     $("catalogue-download").addEventListener("click", () => {
-      if (state.catalogue && state.catalogue.answer) {
-        saveBlob(new Blob([catalogueCsv(state.catalogue.answer)], { type: "text/csv" }), `${state.calc.name}-${state.catalogue.file.replace(/\.\w+$/, "")}-results.csv`);
+      const cat = state.catalogue;
+      if (cat && cat.answer) {
+        const suffix = cat.table.ecsv ? "ecsv" : "csv";
+        saveBlob(new Blob([cat.answer.text], { type: "text/csv" }), `${state.calc.name}-${cat.file.replace(/\.\w+$/, "")}-results.${suffix}`);
       }
     });
   }
