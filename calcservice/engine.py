@@ -409,7 +409,8 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
 def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
     """sigma_f^2 = t R t^T over the inputs' first-order terms t (outputs, m, n) + trail."""
     if r is None:
-        return np.einsum("ojn...,ojn...->on...", terms, terms)
+        # summed in the order of the inputs whatever n is, so a system gets the same sigma alone or in a batch
+        return (terms * terms).sum(axis=1)
     return np.maximum(np.einsum("ojn...,jk,okn...->on...", terms, r, terms), 0.0)
 
 
