@@ -327,17 +327,19 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     return np.where(exact < np.inf, exact, h)
 
 
-def _differentiate(pl: Plan, x, sm, sp, spread, statics, trail):
-    """Nominal outputs and their Jacobian for a block of systems: ``x`` (inputs, n) holds the
-    inputs' values, ``sm``, ``sp`` and ``spread`` (m, n) the perturbed ones' sigmas (below, above,
-    and their mean).
+def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: bool):
+    """Nominal outputs and their first-order variance for a block of systems: ``x`` (inputs, n)
+    holds the inputs' values, ``sm``, ``sp`` and ``spread`` (m, n) the perturbed ones' sigmas (below,
+    above, and their mean), ``r`` their correlation matrix (None for the identity).
 
-    Returns the outputs given, f0 (outputs, n) + trail, the Jacobian (outputs, m, n) + trail,
-    ``bend`` (outputs, m, n) + trail for wrapping outputs: the second-order term over one sigma,
-    |f''| sigma^2 / 2, from the two one-sided differences (zero for outputs that do not wrap; None
-    when none wraps), and ``crosses`` (m, n): where an input's 1-sigma interval leaves its domain.
-    The physics sees arrays of shape (points, n) + trail: the stencil's points first, so that each
-    point is a contiguous row of systems."""
+    Returns the outputs given, f0 (outputs, n) + trail, var (outputs, n) + trail, ``terms``
+    (outputs, m, n) + trail, each input's first-order term df/dx_j sigma_j (only with ``keep_terms``,
+    else None), ``curvature`` (outputs, n) + trail for wrapping outputs: the norm over the inputs of
+    the second-order term over one sigma, |f''| sigma^2 / 2, from the two one-sided differences
+    (zero for outputs that do not wrap; None when none wraps), and ``crosses`` (m, n): where an
+    input's 1-sigma interval leaves its domain.  The physics sees arrays of shape (points, n) + trail:
+    the stencil's points first, so that each point is a contiguous row of systems; everything
+    after it stays within the block, so a long catalogue's (outputs x m x n) arrays are never held."""
     n = x.shape[1]
     m = len(pl.rows)
     p = 1 + WIDTH * m
@@ -359,33 +361,57 @@ def _differentiate(pl: Plan, x, sm, sp, spread, statics, trail):
                          for k, name in enumerate(pl.names)}, statics, (p, n) + trail)
     given = tuple(ys)
     if not given:
-        return given, None, None, None, crosses
+        return given, None, None, None, None, crosses
     y = np.array(list(ys.values()))                                                  # (outputs, p, n) + trail
     f0 = y[:, 0]
     if not m:
-        return given, f0, np.zeros((len(given), 0, n) + trail), None, crosses
-    ref = y[:, :1]
-    up = y[:, 1 + m:] - ref                                                          # f(x + h) - f(x)
-    down = ref - y[:, 1:1 + m]                                                       # f(x) - f(x - h)
-    period, wraps, any_wrap = pl.periods(given, up.ndim)
+        return given, f0, np.zeros_like(f0), np.zeros((len(given), 0, n) + trail), None, crosses
+    ahead, behind = y[:, 1 + m:], y[:, 1:1 + m]                                     # f(x + h), f(x - h)
+    period, wraps, any_wrap = pl.periods(given, ahead.ndim)
+    hh = h.reshape((1, m, n) + ones)
+    # the Jacobian times each input's sigma in one product: (f(x+h) - f(x-h)) sigma / 2h
+    scale = (spread / (2.0 * h)).reshape((1, m, n) + ones)
+    up = down = None
     if any_wrap:
         # on the circle at each step, so a branch cut between the points is no jump
-        up = np.where(wraps, _wrap(up, period), up)
-        down = np.where(wraps, _wrap(down, period), down)
-    hh = h.reshape((1, m, n) + ones)
-    jac = (up + down) / (2.0 * hh)
-    if not np.isfinite(jac).all():
+        ref = y[:, :1]
+        up = np.where(wraps, _wrap(ahead - ref, period), ahead - ref)
+        down = np.where(wraps, _wrap(ref - behind, period), ref - behind)
+        terms = (up + down) * scale
+    else:
+        terms = (ahead - behind) * scale
+    exact = not (spread > 0).all()
+    if exact:
+        terms = np.where(scale > 0, terms, 0.0)   # an exact input in a row does not count, even where f' is undefined
+    var = _quadratic(terms, r)
+    if not np.isfinite(var).all():
+        if up is None:
+            ref = y[:, :1]
+            up, down = ahead - ref, ref - behind
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
-        jac = np.where(np.isfinite(jac), jac, np.where(np.isfinite(up), up / hh, down / hh))
-    bend = None
+        sig = spread.reshape((1, m, n) + ones)
+        terms = np.where(np.isfinite(terms), terms, np.where(np.isfinite(up), up / hh, down / hh) * sig)
+        if exact:
+            terms = np.where(scale > 0, terms, 0.0)
+        var = _quadratic(terms, r)
+    curvature = None
     if any_wrap:
         # rounding of the three values sets a floor below which the two sides cannot differ
-        noise = 8 * np.finfo(float).eps * (np.abs(ref) + period)
+        noise = 8 * np.finfo(float).eps * (np.abs(y[:, :1]) + period)
         gap = np.maximum(np.abs(up - down) - noise, 0.0)
         ratio = spread.reshape((1, m, n) + ones) / hh
         bend = np.where(wraps, 0.5 * gap * ratio * ratio, 0.0)
-    return given, f0, jac, bend, crosses
+        curvature = np.sqrt((bend * bend).sum(axis=1))
+    return given, f0, var, terms if keep_terms else None, curvature, crosses
+
+
+def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
+    """sigma_f^2 = t R t^T over the inputs' first-order terms t (outputs, m, n) + trail."""
+    if r is None:
+        # summed in the order of the inputs whatever n is, so a system gets the same sigma alone or in a batch
+        return (terms * terms).sum(axis=1)
+    return np.maximum(np.einsum("ojn...,jk,okn...->on...", terms, r, terms), 0.0)
 
 
 def _linear(calc, quantities, statics, options, n, trail) -> Result:
@@ -405,42 +431,34 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
         r = None                                                                     # the identity
     sm, sp = sides[0, pl.rows], sides[1, pl.rows]                                   # (m, n)
     spread = 0.5 * (sm + sp)                                                         # Measured.sigma, for all at once
+    keep = (options.covariance and not trail) or options.budget
     if n <= LINEAR_CHUNK:
-        parts = [_differentiate(pl, x, sm, sp, spread, statics, trail)]
+        parts = [_differentiate(pl, x, sm, sp, spread, r, statics, trail, keep)]
     else:
-        parts = [_differentiate(pl, *(a[:, k:k + LINEAR_CHUNK] for a in (x, sm, sp, spread)), statics, trail)
+        parts = [_differentiate(pl, *(a[:, k:k + LINEAR_CHUNK] for a in (x, sm, sp, spread)), r, statics, trail,
+                                keep)
                  for k in range(0, n, LINEAR_CHUNK)]
     given = parts[0][0]
+
+    def joined(k: int, axis: int):
+        if parts[0][k] is None or len(parts) == 1:
+            return parts[0][k]
+        return np.concatenate([part[k] for part in parts], axis=axis)
 
     result = Result(outputs={}, method="linear")
     warnings, failed = result.warnings, result.failed
     if given:
-        if len(parts) == 1:
-            f0, jac, bend = parts[0][1:4]
-        else:
-            f0 = np.concatenate([p[1] for p in parts], axis=1)                      # (outputs, n) + trail
-            jac = np.concatenate([p[2] for p in parts], axis=2)                     # (outputs, m, n) + trail
-            bend = None if parts[0][3] is None else np.concatenate([p[3] for p in parts], axis=2)
-        ones = (1,) * len(trail)
-        sig = spread.reshape((1, m, n) + ones)
-        if not (spread > 0).all():
-            jac = np.where(sig > 0, jac, 0.0)    # an exact input in a row does not count, even where f' is undefined
-        terms = jac * sig                        # (outputs, m, n) + trail: each input's first-order term
-        if r is None:
-            var = (terms * terms).sum(axis=1)
-        else:
-            var = np.maximum(np.einsum("ojn...,jk,okn...->on...", terms, r, terms), 0.0)
+        f0, var, terms, curvature = joined(1, 1), joined(2, 1), joined(3, 2), joined(4, 1)
         sigma = np.sqrt(var)
         period, wraps, any_wrap = pl.periods(given, f0.ndim)
         if any_wrap:
             f0 = np.where(wraps, f0 % period, f0)
         rel = np.abs(sigma / f0)
         loose = (LINEAR_TRUST_LIMIT < rel) & (rel < np.inf)                           # (outputs, n) + trail
-        if bend is not None:
+        if curvature is not None:
             # an angle's size says nothing of its error: there the two one-sided differences
             # are compared instead (a branch or kink between them, or strong curvature)
-            curved = np.sqrt((bend * bend).sum(axis=1)) > LINEAR_TRUST_LIMIT * sigma
-            loose = np.where(wraps, curved, loose)
+            loose = np.where(wraps, curvature > LINEAR_TRUST_LIMIT * sigma, loose)
         # f0 + sigma is finite exactly where both are (sigma >= 0 or NaN)
         flagged = np.count_nonzero(loose) or not np.isfinite(f0 + sigma).all()
         if flagged:
@@ -469,7 +487,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
             result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
 
     if m:
-        crosses = parts[0][4] if len(parts) == 1 else np.concatenate([p[4] for p in parts], axis=1)
+        crosses = joined(5, 1)
         asymmetric = sm != sp
         if crosses.any() or asymmetric.any():
             for j, name in enumerate(perturbed):

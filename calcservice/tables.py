@@ -330,7 +330,7 @@ def encode_answer(response: Mapping, media_type: str) -> bytes:
         error[i] = error_text(problem)
     cols.append(("error_status", np.ma.array(status, mask=failed), "int", None))
     cols.append(("error", error, "text", None))
-    cols.append(("warnings", warning_codes(response.get("warnings", []), n), "text", None))
+    cols.append(("warnings", warning_index(response.get("warnings", []), n), "codes", None))
     cols.extend(extras)
     meta_uncertainty = {}
     for key, v in (response.get("uncertainty") or {}).items():
@@ -364,16 +364,32 @@ def error_text(problem: Mapping) -> str:
     return "; ".join(parts)
 
 
+def warning_index(warnings: list[Mapping], n: int) -> tuple[list[str], np.ndarray]:
+    """Each system's warning codes joined by ``;`` ("" for none), from columnar warnings (``rows``),
+    as the distinct texts and each system's index into them: a catalogue's systems share a few sets
+    of codes, so each text is built once, never a string per system."""
+    order: dict[str, int] = {}
+    for w in warnings:
+        order.setdefault(w["code"], len(order))
+    # a system's set of codes as the bits of one integer: the service has a few dozen codes at most
+    words = [np.zeros(n, dtype=np.int64) for _ in range(0, len(order), 62)] or [np.zeros(n, dtype=np.int64)]
+    for w in warnings:
+        k = order[w["code"]]
+        words[k // 62][np.asarray(w["rows"], dtype=np.int64) if "rows" in w else slice(None)] |= 1 << (k % 62)
+    key = words[0] if len(words) == 1 else np.rec.fromarrays(words)
+    sets, index = np.unique(key, return_inverse=True)
+    codes = list(order)
+    texts = []
+    for s in sets.tolist():
+        bits = s if isinstance(s, tuple) else (s,)
+        texts.append(";".join(code for k, code in enumerate(codes) if bits[k // 62] >> (k % 62) & 1))
+    return texts, index.reshape(n)
+
+
 def warning_codes(warnings: list[Mapping], n: int) -> np.ndarray:
     """Each system's warning codes joined by ``;`` ("" for none), from columnar warnings (``rows``)."""
-    codes = np.full(n, "", dtype=object)
-    rows_of: dict[str, np.ndarray] = {}
-    for w in warnings:
-        mask = rows_of.setdefault(w["code"], np.zeros(n, dtype=bool))
-        mask[np.asarray(w["rows"], dtype=np.int64) if "rows" in w else slice(None)] = True
-    for code, mask in rows_of.items():
-        codes[mask] = np.where(codes[mask] == "", code, codes[mask] + ";" + code)
-    return codes
+    texts, index = warning_index(warnings, n)
+    return np.array(texts, dtype=object)[index]
 
 
 def _answer_values(v) -> tuple[Any, str]:
@@ -422,6 +438,10 @@ def _arrow(cols, meta: dict) -> bytes:
 
 
 def _arrow_array(pa, v, kind: str):
+    if kind == "codes":                             # distinct texts and each system's index into them
+        texts, index = v
+        return pa.DictionaryArray.from_arrays(pa.array(index.astype(np.int32)), pa.array(texts, type=pa.string())) \
+            .cast(pa.string())
     if kind == "int":
         return pa.array(v.data, mask=np.ma.getmaskarray(v))
     if kind == "float":                             # NaN -> null, a validity bitmap only where there is one
@@ -460,6 +480,9 @@ def _text(cols, meta: dict, ecsv: bool) -> bytes:
             data, mask = v.data, np.ma.getmaskarray(v)
         elif kind == "float":
             data, mask = v, np.isnan(v)
+        elif kind == "codes":
+            texts, index = v
+            data, mask = np.array(texts, dtype=str)[index], np.zeros(len(index), dtype=bool)
         else:       # text: empty where there is none (astropy writes masked entries one by one, far slower)
             data, mask = np.array(["" if x is None else str(x) for x in v], dtype=str), np.zeros(len(v), dtype=bool)
         if kind == "json":                      # a member per system as JSON text, marked so a reader can tell
