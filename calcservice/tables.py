@@ -25,11 +25,11 @@ from __future__ import annotations
 
 import io
 import json
-import re
 from typing import Any, Mapping
 
 import numpy as np
 
+from .columns import MEMBERS, column_role, split_unit
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -40,11 +40,9 @@ ECSV = "text/x-ecsv"
 TABLE_TYPES = (ARROW, CSV, ECSV)
 MEDIA_TYPES = (JSON, *TABLE_TYPES)
 
-SIGMA_KEYS = ("sigma_minus", "sigma_plus", "sigma")       # longest suffix first
 UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
 ERROR_COLUMNS = ("error_status", "error", "warnings")
 UNCERTAINTY_PREFIX = "uncertainty_"
-_HEADER_UNIT = re.compile(r"^\s*(?P<name>[^\[\]]+?)\s*\[(?P<unit>[^\]]*)\]\s*$")
 _ECSV_SIGNATURE = "# %ECSV"
 
 
@@ -95,8 +93,9 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
         elif name in inputs:
             given[name] = (values, unit)
         else:
-            base, key = _sigma_of(name)
-            if base in inputs:
+            role = column_role(name, inputs)
+            if role is not None:
+                base, key = role
                 sigmas.setdefault(base, {})[key] = (values, unit, name)
             else:
                 errors[name] = [f"{calc.name} has no input {name!r} (columns: inputs, NAME_sigma, "
@@ -166,13 +165,6 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
     return {"columns": columns, **body}
 
 
-def _sigma_of(name: str) -> tuple[str, str]:
-    for key in SIGMA_KEYS:
-        if name.endswith("_" + key):
-            return name[: -len(key) - 1], key
-    return name, "value"
-
-
 def _quantity_values(values):
     """A quantity's column as floats (NaN: not given) when it holds numbers only; else a list whose
     numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word."""
@@ -206,7 +198,7 @@ def _read_arrow(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | No
     for field, column in zip(table.schema, table.columns):
         meta = field.metadata or {}
         unit = meta.get(b"unit", b"").decode("utf-8", "replace").strip() or None
-        kind = kinds.get(_sigma_of(field.name)[0] if field.name not in kinds else field.name, "quantity")
+        kind = kinds.get((column_role(field.name, kinds) or (field.name,))[0], "quantity")
         t = field.type
         if pa.types.is_dictionary(t):
             column, t = column.cast(t.value_type), t.value_type
@@ -247,12 +239,10 @@ def _read_text(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | Non
         if ecsv:
             unit = col.unit.to_string() if col.unit is not None else None
         else:
-            m = _HEADER_UNIT.match(name)
-            if m:
-                name, unit = m.group("name"), m.group("unit").strip() or None
+            name, unit = split_unit(name)
         if col.ndim != 1:
             raise TableError(422, f"column {name} has more than one value per system", {name: ["one value per system"]})
-        kind = kinds.get(name, kinds.get(_sigma_of(name)[0], "quantity"))
+        kind = kinds.get((column_role(name, kinds) or (name,))[0], "quantity")
         masked = np.ma.asarray(col)
         if masked.dtype.kind in "fiu" and kind == "quantity":
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
@@ -276,7 +266,7 @@ def encode_request(body: Mapping, media_type: str) -> bytes:
         if not isinstance(entry, dict):
             entry = {"value": entry}
         unit = entry.get("unit")
-        for key in ("value", *SIGMA_KEYS):
+        for key in MEMBERS:
             if key in entry:
                 v = entry[key]
                 if not isinstance(v, (list, np.ndarray)):
@@ -602,9 +592,8 @@ def _decode_text(data: bytes):
         if ecsv and col.description == JSON_TEXT:
             unit = "json"
         if not ecsv:
-            m = _HEADER_UNIT.match(name)
-            if m:
-                name, unit = m.group("name"), m.group("unit").strip() or None
+            name, header_unit = split_unit(name)
+            unit = header_unit or unit
         if name in ("error", "warnings"):           # text; a column of empty cells reads as numbers
             v = [None if x is None or masked.dtype.kind != "U" else x for x in masked.tolist()]
             if name == "warnings":
