@@ -8,24 +8,15 @@ from __future__ import annotations
 
 import html
 import json
-import os
 import re
-import shutil
-import tempfile
-import threading
 from urllib.parse import parse_qsl, unquote, urlsplit
 
 import pytest
 
-from calcservice import create_app
 from calcservice.api.docs import form_link, python_call
 from calcservice.registry import calculations
 
-CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
-CHROMEDRIVER = shutil.which("chromedriver") or "/usr/bin/chromedriver"
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         "--window-size=1300,1600"]
+from .test_form_browser import _wait, base_url, browser  # noqa: F401  (fixtures)
 
 
 def _sections(page: str) -> dict[str, str]:
@@ -111,56 +102,8 @@ def test_the_form_link_carries_the_example():
 
 
 # ----------------------------------------------------------------------------- in the browser
-def _browser_or_skip():
-    missing = []
-    try:
-        import selenium  # noqa: F401
-    except ImportError:
-        missing.append("selenium")
-    missing += [p for p in (CHROMIUM, CHROMEDRIVER) if not os.path.exists(p)]
-    if missing:
-        message = f"browser test needs {', '.join(missing)} (apt-get install -y chromium chromium-driver)"
-        if os.environ.get("CI") == "true":
-            pytest.fail(message)
-        pytest.skip(message)
-
-
-@pytest.fixture(scope="module")
-def base_url():
-    from werkzeug.serving import make_server
-    srv = make_server("127.0.0.1", 0, create_app({"TESTING": True}), threaded=True)
-    thread = threading.Thread(target=srv.serve_forever, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{srv.server_port}"
-    srv.shutdown()
-    thread.join(5)
-
-
-@pytest.fixture(scope="module")
-def browser():
-    _browser_or_skip()
-    from selenium import webdriver
-    from selenium.webdriver.chrome.service import Service
-    profile = tempfile.mkdtemp(prefix="calcservice-chromium-")
-    options = webdriver.ChromeOptions()
-    options.binary_location = CHROMIUM
-    for flag in FLAGS + [f"--user-data-dir={profile}"]:
-        options.add_argument(flag)
-    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
-    driver = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
-    driver.set_page_load_timeout(30)
-    yield driver
-    driver.quit()
-    shutil.rmtree(profile, ignore_errors=True)
-
-
-def _wait(driver, test, seconds=30):
-    from selenium.webdriver.support.ui import WebDriverWait
-    return WebDriverWait(driver, seconds).until(lambda d: test(d))
-
-
 @pytest.mark.browser
-def test_docs_page_shows_every_calculation_and_its_links_land_in_the_form(browser, base_url):
+def test_docs_page_shows_every_calculation_and_its_links_land_in_the_form(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.get(base_url + "/docs")
     sections = browser.find_elements(By.CSS_SELECTOR, "section.calculation")
@@ -184,7 +127,7 @@ def test_docs_page_shows_every_calculation_and_its_links_land_in_the_form(browse
 
 
 @pytest.mark.browser
-def test_an_example_link_fills_the_form_with_the_example(browser, base_url):
+def test_an_example_link_fills_the_form_with_the_example(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     name = list(calculations())[1]
     calc = calculations()[name]
