@@ -13,6 +13,8 @@ from calcservice.physics.spectroscopic import MASS_FUNCTION_COEFFICIENT, PROJECT
 from calcservice.constants import AU_KM
 from calcservice.registry import get
 
+from .engine_helpers import correlated_ufloats
+
 C_F = MASS_FUNCTION_COEFFICIENT
 C_A = PROJECTED_AXIS_COEFFICIENT_KM / AU_KM
 
@@ -26,19 +28,10 @@ def _body(values, **extra):
     return body
 
 
-def _ufloats(values, corr):
-    names = list(values)
-    cov = np.diag([values[n][1] ** 2 for n in names])
-    for (a, b), rho in corr.items():
-        i, j = names.index(a), names.index(b)
-        cov[i, j] = cov[j, i] = rho * values[a][1] * values[b][1]
-    return dict(zip(names, uncertainties.correlated_values([values[n][0] for n in names], cov)))
-
-
 @pytest.mark.parametrize("corr", [{}, {("k1", "k2"): 0.3}, {("k1", "k2"): -0.6, ("period", "eccentricity"): 0.4}])
 def test_linear_sb2_against_uncertainties(corr):
     # reference: the `uncertainties` package (first-order propagation with its own analytic derivatives)
-    x = _ufloats(SB2, corr)
+    x = correlated_ufloats(SB2, corr)
     P, k1, k2, e, i = x["period"], x["k1"], x["k2"], x["eccentricity"], x["inclination"]
     s = umath.sin(umath.radians(i))
     m1s = C_F * (1 - e**2) ** 1.5 * (k1 + k2) ** 2 * k2 * P
@@ -56,7 +49,7 @@ def test_linear_sb2_against_uncertainties(corr):
 
 def test_linear_sb1_mass_function_against_uncertainties():
     vals = {"period": (3.4172, 0.0004), "k1": (61.4, 0.9), "eccentricity": (0.05, 0.02)}
-    x = _ufloats(vals, {("period", "k1"): 0.2})
+    x = correlated_ufloats(vals, {("period", "k1"): 0.2})
     f = C_F * (1 - x["eccentricity"] ** 2) ** 1.5 * x["k1"] ** 3 * x["period"]
     got = compute("sb1", _body(vals, correlations=[{"between": ["period", "k1"], "rho": 0.2}]))["results"]
     assert got["mass_function"]["sigma"] == pytest.approx(f.std_dev, rel=1e-6)
@@ -70,7 +63,7 @@ def test_linear_companion_mass_against_wrapped_root():
         return brentq(lambda m: (m * s) ** 3 - f * (m1 + m) ** 2, 1e-9, 1e6, xtol=1e-15, rtol=1e-15)
     vals = {"period": (41.6, 0.02), "k1": (23.4, 0.3), "eccentricity": (0.31, 0.01),
             "primary_mass": (1.9, 0.1), "inclination": (71.0, 2.0)}
-    x = _ufloats(vals, {})
+    x = correlated_ufloats(vals, {})
     f = C_F * (1 - x["eccentricity"] ** 2) ** 1.5 * x["k1"] ** 3 * x["period"]
     s = umath.sin(umath.radians(x["inclination"]))
     m2 = uncertainties.wrap(m2_of)(f, x["primary_mass"], s)

@@ -10,6 +10,8 @@ from calcservice.engine import Measured, Options, evaluate
 from calcservice.physics.spectroscopic import MASS_FUNCTION_COEFFICIENT, PROJECTED_AXIS_COEFFICIENT_KM
 from calcservice.registry import get
 
+from .engine_helpers import correlated_ufloats
+
 C_F = MASS_FUNCTION_COEFFICIENT
 C_A = PROJECTED_AXIS_COEFFICIENT_KM / AU_KM
 
@@ -19,15 +21,6 @@ SB2 = {"period": (41.6, 0.02), "k1": (38.2, 0.4), "k2": (51.7, 0.6), "eccentrici
 
 def _measured(values):
     return {k: Measured.normal(v, s) for k, (v, s) in values.items()}
-
-
-def _ufloats(values, corr):
-    names = list(values)
-    cov = np.diag([values[n][1] ** 2 for n in names])
-    for (a, b), rho in corr.items():
-        i, j = names.index(a), names.index(b)
-        cov[i, j] = cov[j, i] = rho * values[a][1] * values[b][1]
-    return dict(zip(names, uncertainties.correlated_values([values[n][0] for n in names], cov)))
 
 
 def _sb2_reference(x):
@@ -48,7 +41,7 @@ def _matrix(result, names):
 @pytest.mark.parametrize("corr", [{}, {("k1", "k2"): 0.3}, {("k1", "k2"): -0.6, ("period", "eccentricity"): 0.4}])
 def test_linear_correlation_of_sb2_outputs_against_uncertainties(corr):
     # reference: uncertainties.correlation_matrix of the same formulas on correlated ufloats
-    ref = _sb2_reference(_ufloats(SB2, corr))
+    ref = _sb2_reference(correlated_ufloats(SB2, corr))
     names = ["m1", "m2", "mass_ratio", "total_mass"]
     result = evaluate(get("sb2"), _measured(SB2), options=Options(correlations=corr, covariance=True))
     expected = np.array(uncertainties.correlation_matrix([ref[n] for n in names]))
@@ -71,7 +64,7 @@ def test_linear_correlation_of_campbell_elements_against_uncertainties():
     ex = calc.example
     values = {k: (ex[k]["value"], ex[k]["sigma"]) for k in "ABFG"}
     corr = {tuple(c["between"]): c["rho"] for c in ex["correlations"]}
-    x = _ufloats(values, corr)
+    x = correlated_ufloats(values, corr)
     A, B, F, G = x["A"], x["B"], x["F"], x["G"]
     plus, minus = umath.atan2(B - F, A + G), umath.atan2(-B - F, A - G)
     u, v = (A**2 + B**2 + F**2 + G**2) / 2, A * G - B * F
@@ -141,7 +134,7 @@ def test_linear_budget_correlation_terms():
     # uncertainties), and the terms still sum to 1
     corr = {("k1", "k2"): 0.3}
     independent = _sb2_reference({k: uncertainties.ufloat(v, s, tag=k) for k, (v, s) in SB2.items()})
-    correlated = _sb2_reference(_ufloats(SB2, corr))
+    correlated = _sb2_reference(correlated_ufloats(SB2, corr))
     result = evaluate(get("sb2"), _measured(SB2), options=Options(correlations=corr, budget=True))
     for name in ("m1", "mass_ratio"):
         u = independent[name]
