@@ -383,51 +383,28 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
     n = len(systems)
     quantity = [s.name for s in calc.inputs if s.kind == "quantity"]
     choice = [s.name for s in calc.inputs if s.kind in ("choice", "integer")]
-    is_choice = frozenset(choice)
-    fast_keys = frozenset(quantity) | is_choice
-    values = {nm: [None] * n for nm in quantity}
-    minus = {nm: [0.0] * n for nm in quantity}
-    plus = {nm: [0.0] * n for nm in quantity}
-    units = {nm: [None] * n for nm in quantity}
-    chosen = {nm: [None] * n for nm in choice}
-    slow = np.zeros(n, dtype=bool)
+    fast_keys = frozenset(quantity) | frozenset(choice)
 
-    # gather the systems' JSON into columns: the only per-system Python work before the arrays
-    slots = {nm: (values[nm], minus[nm], plus[nm], units[nm]) for nm in quantity}
-    for i, row in enumerate(systems):
-        if type(row) is not dict or not row.keys() <= fast_keys:
-            slow[i] = True
-            continue
-        for name, v in row.items():
-            if name in is_choice:
-                chosen[name][i] = v
-                continue
-            t = type(v)
-            value_of, minus_of, plus_of, unit_of = slots[name]
-            if t is float or t is int:
-                value_of[i] = v
-            elif t is dict and v.keys() <= SIMPLE_KEYS and v.get("value") is not None:
-                value_of[i] = v["value"]
-                if "sigma" in v:
-                    if "sigma_minus" in v or "sigma_plus" in v:
-                        slow[i] = True
-                        break
-                    minus_of[i] = plus_of[i] = v["sigma"]
-                elif "sigma_minus" in v or "sigma_plus" in v:
-                    minus_of[i] = v.get("sigma_minus")
-                    plus_of[i] = v.get("sigma_plus")
-                unit_of[i] = v.get("unit")
-            else:
-                slow[i] = True
-                break
+    # gather the systems' JSON into columns, one pass per input and member: the only per-system
+    # Python work before the arrays.  A system that is not an object of inputs is parsed on its own.
+    plain = [type(row) is dict and row.keys() <= fast_keys for row in systems]
+    slow = ~np.array(plain, dtype=bool)
+    rows = systems if not slow.any() else [row if ok else {} for row, ok in zip(systems, plain)]
+    chosen = {name: [row.get(name) for row in rows] for name in choice}
+    entries = {}
+    for name in quantity:
+        values, minus, plus, units, odd = quantity_entries([row.get(name) for row in rows])
+        entries[name] = values, minus, plus, units
+        slow |= odd
 
     columns = {}
     for name in quantity:
         spec = calc.input(name)
-        value, bad_value = number_column(values[name])
-        sm, bad_minus = number_column(minus[name])
-        sp, bad_plus = number_column(plus[name])
-        k = _unit_factors(spec, units[name], limits)
+        values, minus, plus, units = entries[name]
+        value, bad_value = number_column(values)
+        sm, bad_minus = number_column(minus)
+        sp, bad_plus = (sm, bad_minus) if plus is minus else number_column(plus)
+        k = _unit_factors(spec, units, limits)
         bad = slow | bad_value | bad_minus | bad_plus | ~np.isfinite(k)
         columns[name] = _Column(value, sm, sp, k, bad)
     choices = {name: _Choice(chosen[name], slow | _bad_choices(calc.input(name), chosen[name]))
@@ -448,10 +425,10 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
         results[i] = {"error": problem.as_dict()}
     for group in done.groups:
         if group.problem is None:
-            rendering = Rendering(group.parsed, group.result)
-            for k, i in enumerate(group.rows.tolist()):
+            rows = Rendering(group.parsed, group.result).rows(uncertainty, time_format, shared.echo)
+            for i, row in zip(group.rows.tolist(), rows):
                 if results[i] is None:
-                    results[i] = _row(rendering, k, uncertainty, time_format, shared.echo)
+                    results[i] = row
     answer = {"calculation": calc.name, "count": n, "uncertainty": uncertainty}
     if time_format == "mjd":
         answer["time_format"] = "mjd"
@@ -459,19 +436,40 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
     return answer
 
 
-def _row(rendering: Rendering, k: int, uncertainty: dict, time_format: str, echo: bool) -> dict:
-    """One system's row of a rows answer: only what is its own."""
-    row = {"results": rendering.results(k), "warnings": rendering.warnings(k)}
-    if rendering.result.correlation is not None:
-        row["correlation"] = rendering.correlation(k)
-    own = {key: v for key, v in rendering.uncertainty(k).items() if uncertainty.get(key) != v}
-    if own:
-        row["uncertainty"] = own
-    if echo:
-        row["inputs"] = rendering.parsed.echo(k)
-        if rendering.parsed.time_format != time_format:
-            row["time_format"] = rendering.parsed.time_format
-    return row
+def quantity_entries(entries: list) -> tuple[list, list, list, list, np.ndarray]:
+    """One quantity input over a batch's systems as given in their JSON (None: not given) to its
+    values, sigmas below and above (0 where none is given) and units as lists, and which systems
+    the array path does not take as they stand (an entry that is neither a number nor a plain
+    object of value, sigmas and unit, or one whose sigmas contradict each other)."""
+    n = len(entries)
+    kinds = set(map(type, entries))
+    if kinds == {dict} and all(e.keys() <= SIMPLE_KEYS for e in entries):
+        values = [e.get("value") for e in entries]
+        units = [e.get("unit") for e in entries]
+        if not any("sigma_minus" in e or "sigma_plus" in e for e in entries):
+            sigmas = [e.get("sigma", 0.0) for e in entries]
+            return values, sigmas, sigmas, units, np.array([v is None for v in values], dtype=bool)
+    elif kinds <= {float, int, type(None)}:
+        return entries, [0.0] * n, [0.0] * n, [None] * n, np.zeros(n, dtype=bool)
+    values, minus, plus, units = [None] * n, [0.0] * n, [0.0] * n, [None] * n
+    odd = np.zeros(n, dtype=bool)
+    for i, e in enumerate(entries):
+        t = type(e)
+        if e is None:
+            continue
+        if t is float or t is int:
+            values[i] = e
+        elif t is dict and e.keys() <= SIMPLE_KEYS and e.get("value") is not None:
+            values[i] = e["value"]
+            if "sigma" in e:
+                odd[i] = "sigma_minus" in e or "sigma_plus" in e
+                minus[i] = plus[i] = e["sigma"]
+            elif "sigma_minus" in e or "sigma_plus" in e:
+                minus[i], plus[i] = e.get("sigma_minus"), e.get("sigma_plus")
+            units[i] = e.get("unit")
+        else:
+            odd[i] = True
+    return values, minus, plus, units, odd
 
 
 def _bad_choices(spec: Input, values: list) -> np.ndarray:

@@ -138,8 +138,9 @@ class Rendering:
                     entry["budget"] = dict(zip(terms, row))
         self.series_outputs = [(name, entries) for name, is_series, entries in table if is_series]
         # every system's results at once: one zip per system rather than a loop over the outputs
-        self.scalars = [dict(zip([name for name, _ in scalars], row))
-                        for row in zip(*[entries for _, entries in scalars])] if scalars else [{} for _ in range(self.n)]
+        names = [name for name, _ in scalars]
+        self.scalars = ([dict(zip(names, row)) for row in zip(*[entries for _, entries in scalars])] if scalars
+                        else [{} for _ in range(self.n)])
         self.extras = (calc.extra(parsed.quantities, parsed.statics, parsed.options, time_format=parsed.time_format)
                        if calc.extra else None)
         self.series = {calc.input(name).label or name: {"value": clean_array(parsed.times.get(name, values)),
@@ -168,6 +169,31 @@ class Rendering:
 
     def uncertainty(self, index: int) -> dict:
         return uncertainty_of(self.result, index)
+
+    def rows(self, shared: dict, time_format: str, echo: bool) -> list[dict]:
+        """Every system's row of a rows batch: its results and warnings, its uncertainty where it
+        differs from the batch's ``shared`` one, its inputs when ``echo`` asks for them."""
+        whole = self.series_outputs or self.extras
+        results = [self.results(k) for k in range(self.n)] if whole else self.scalars
+        warned = self._warnings
+        for applies in set(self.applies) - warned.keys():
+            warned[applies] = warning_entries(self.result.warnings, applies)
+        rows = [{"results": r, "warnings": list(warned[a])} for r, a in zip(results, self.applies)]
+        if self.result.correlation is not None:
+            for k, row in enumerate(rows):
+                row["correlation"] = self.correlation(k)
+        linear = self.result.method == "linear"         # then one uncertainty for every system
+        for k in range(min(self.n, 1) if linear else self.n):
+            own = {key: v for key, v in self.uncertainty(k).items() if shared.get(key) != v}
+            if own:
+                for row in (rows if linear else rows[k:k + 1]):
+                    row["uncertainty"] = dict(own)
+        if echo:
+            for k, row in enumerate(rows):
+                row["inputs"] = self.parsed.echo(k)
+                if self.parsed.time_format != time_format:
+                    row["time_format"] = self.parsed.time_format
+        return rows
 
     def correlation(self, index: int) -> dict:
         """System ``index``'s correlation matrix of its outputs (null where an output has no sigma)."""
