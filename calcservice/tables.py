@@ -367,7 +367,10 @@ def warning_index(warnings: list[Mapping], n: int) -> tuple[list[str], np.ndarra
         k = order[w["code"]]
         words[k // 62][np.asarray(w["rows"], dtype=np.int64) if "rows" in w else slice(None)] |= 1 << (k % 62)
     key = words[0] if len(words) == 1 else np.rec.fromarrays(words)
-    sets, index = np.unique(key, return_inverse=True)
+    if n and (key == key[0]).all():             # the usual catalogue: one set for every system
+        sets, index = key[:1], np.zeros(n, dtype=np.intp)
+    else:
+        sets, index = np.unique(key, return_inverse=True)
     codes = list(order)
     texts = []
     for s in sets.tolist():
@@ -443,12 +446,6 @@ def _arrow_array(pa, v, kind: str):
             return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
         return pa.array([None if x is None else [None if y is None or y != y else float(y) for y in x] for x in v],
                         type=pa.list_(pa.float64()))
-    if isinstance(v, np.ndarray) and not v.any():    # no text at all (None or ""): no entry to look at
-        if (v == "").all():
-            return pa.Array.from_buffers(pa.string(), len(v), [None, pa.py_buffer(np.zeros(len(v) + 1, np.int32)),
-                                                               pa.py_buffer(b"")])
-        if not (v == "").any():
-            return pa.nulls(len(v), pa.string())
     return pa.array(v, type=pa.string(), from_pandas=True)
 
 

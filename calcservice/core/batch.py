@@ -245,8 +245,12 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
         codes.append(np.array([distinct[v] for v in values]))
 
     fast = np.flatnonzero(~slow)
-    if fast.size:
-        keys = np.stack(codes + [np.zeros(n, dtype=int)], axis=1)[fast]
+    every = fast.size == n
+    codes = [c if every else c[fast] for c in codes]
+    if fast.size and all((c == c[0]).all() for c in codes):        # the usual catalogue: one shape
+        shapes, members = [[int(c[0]) for c in codes]], [fast]
+    elif fast.size:
+        keys = np.stack(codes + [np.zeros(len(fast), dtype=int)], axis=1)
         # one integer per shape (mixed radix): a sort of integers, not of rows of codes
         radix = keys.max(axis=0) + 1
         if float(np.prod(radix.astype(float))) < 2.0**62:
@@ -255,36 +259,35 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
                 flat = flat * int(radix[j]) + keys[:, j]
         else:
             flat = np.unique(keys, axis=0, return_inverse=True)[1].reshape(-1)
-        if (flat == flat[0]).all():                     # the usual catalogue: one shape
-            shapes, order, bounds = keys[:1], np.arange(len(fast)), np.array([0, len(fast)])
-        else:
-            _, first, inverse = np.unique(flat, return_index=True, return_inverse=True)
-            shapes = keys[first]
-            order = np.argsort(inverse, kind="stable")
-            bounds = np.searchsorted(inverse[order], np.arange(len(shapes) + 1))
-        names = list(columns)
-        for g, shape in enumerate(shapes):
-            rows = fast[order[bounds[g]:bounds[g + 1]]]
-            data = dict(shared)
-            for j, name in enumerate(names):
-                if shape[j] == ABSENT:
-                    continue
-                x, sm, sp = converted[name]
-                if shape[j] == ISOTROPIC:
-                    z = np.zeros(len(rows))
-                    data[name] = RawQuantity(np.full(len(rows), 90.0), z, z, isotropic=True)
-                else:
-                    data[name] = RawQuantity(x[rows], sm[rows], sp[rows])
-            for j, name in enumerate(choices, start=len(names)):
-                value = levels[name][shape[j]]
-                if value is not None:
-                    data[name] = value
-            group = Group(rows)
-            try:
-                group.parsed = build(calc, data, limits)
-            except Problem as p:
-                group.problem = p
-            out.groups.append(group)
+        _, first, inverse = np.unique(flat, return_index=True, return_inverse=True)
+        order = np.argsort(inverse, kind="stable")
+        bounds = np.searchsorted(inverse[order], np.arange(len(first) + 1))
+        shapes, members = keys[first].tolist(), [fast[order[bounds[g]:bounds[g + 1]]] for g in range(len(first))]
+    else:
+        shapes, members = [], []
+    names = list(columns)
+    for shape, rows in zip(shapes, members):
+        whole = len(rows) == n                          # every system, in order: no copies
+        data = dict(shared)
+        for j, name in enumerate(names):
+            if shape[j] == ABSENT:
+                continue
+            x, sm, sp = converted[name]
+            if shape[j] == ISOTROPIC:
+                z = np.zeros(len(rows))
+                data[name] = RawQuantity(np.full(len(rows), 90.0), z, z, isotropic=True)
+            else:
+                data[name] = RawQuantity(x, sm, sp) if whole else RawQuantity(x[rows], sm[rows], sp[rows])
+        for j, name in enumerate(choices, start=len(names)):
+            value = levels[name][shape[j]]
+            if value is not None:
+                data[name] = value
+        group = Group(rows)
+        try:
+            group.parsed = build(calc, data, limits)
+        except Problem as p:
+            group.problem = p
+        out.groups.append(group)
 
     # the systems the array path left to the single-request parser, then grouped by shape alike
     alike: dict[tuple, list[tuple[int, Parsed]]] = {}

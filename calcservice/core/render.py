@@ -4,7 +4,7 @@ batch's rows (results, warnings, uncertainty) picked by system from one engine c
 from __future__ import annotations
 
 from functools import lru_cache
-from typing import Any, Mapping
+from typing import Mapping
 
 import numpy as np
 
