@@ -89,7 +89,6 @@ def evaluate_dask(name: str | Calculation, values: Mapping[str, Any], sigmas: Ma
     arrays = [v for v in values.values() if isinstance(v, da.Array)]
     if not arrays:
         raise ValueError("give at least one input as a dask array (the systems to spread over workers)")
-    n = arrays[0].shape[0]
     chunks = arrays[0].chunks[:1]
 
     names = list(values)

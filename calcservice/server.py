@@ -22,7 +22,7 @@ from collections import deque
 
 from gunicorn import arbiter, http
 from gunicorn.app.base import BaseApplication
-from gunicorn.http.errors import ChunkMissingTerminator, InvalidChunkSize, LimitRequestHeaders, LimitRequestLine
+from gunicorn.http.errors import ChunkMissingTerminator, InvalidChunkSize, LimitRequestLine
 from gunicorn.workers.sync import SyncWorker
 
 from .core.problems import Problem
