@@ -668,11 +668,18 @@ def _draws_of(output, y: np.ndarray) -> np.ndarray:
 
 
 def _spread(d: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The mean and the variance (ddof 1) of the draws ``d`` (n, s) + trail where ``mask``."""
+    """The mean and the variance (ddof 1) of the draws ``d`` (n, s) + trail where ``mask``.
+
+    Taken about one of the draws (the first valid one), the shifted-data algorithm (Chan, Golub &
+    LeVeque 1983, Am. Stat. 37, 242): draws that are all equal (an output no uncertain input moves)
+    then have a variance of exactly 0, not the square of the rounding of their sum."""
+    mask = np.broadcast_to(mask, d.shape)
     cnt = np.maximum(mask.sum(axis=1), 1)
-    mean = np.where(mask, d, 0.0).sum(axis=1) / cnt
-    var = np.where(mask, (d - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
-    return mean, var
+    ref = np.take_along_axis(d, np.argmax(mask, axis=1)[:, None], axis=1)
+    dev = np.where(mask, d - ref, 0.0)
+    shift = dev.sum(axis=1) / cnt
+    var = np.where(mask, (dev - shift[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
+    return ref[:, 0] + shift, var
 
 
 def heavy_tailed(d: np.ndarray, mask: np.ndarray, median: np.ndarray) -> np.ndarray:
