@@ -314,6 +314,9 @@
     for (const k of ["rv1", "rv2"]) $(`obs-${k}`).value = "";
     resetCatalogue();
     $("correlations").value = "";
+    // the example names two of this calculation's own measured inputs
+    const measured = calc.inputs.filter((i) => i.kind === "quantity").map((i) => i.name);
+    $("correlations").placeholder = measured.length > 1 ? `${measured[0]},${measured[1]}=0.3` : "";
     clearProblem();
     forgetResults();
     $("status").textContent = "Fill the inputs and press Compute.";
