@@ -399,15 +399,14 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     if not m:
         return given, f0, None, crosses
     derivatives = pl.calc.jacobian(**_arguments(pl.calc, arrays, statics))
-    terms = np.zeros((len(given), m, n))
-    for o, name in enumerate(given):
-        if name not in derivatives:
-            raise ValueError(f"{pl.calc.name}: the declared Jacobian gives no derivatives of {name}")
-        of = derivatives[name]
-        for j, wrt in enumerate(pl.perturbed):
-            d = of.get(wrt)
-            if d is not None:            # absent: the output does not depend on that input
-                terms[o, j] = d
+    missing = [name for name in given if name not in derivatives]
+    if missing:
+        raise ValueError(f"{pl.calc.name}: the declared Jacobian gives no derivatives of {', '.join(missing)}")
+    zero = np.zeros(n)                   # an input absent from an output's mapping: it does not depend on it
+    # each derivative an array shaped like the inputs (n,), as the declaration promises: any other
+    # shape is a declaration's bug, which numpy refuses here (an inhomogeneous shape)
+    terms = np.array([[derivatives[name].get(wrt, zero) for wrt in pl.perturbed] for name in given],
+                     dtype=float)                                                    # (outputs, m, n)
     terms *= spread
     return given, f0, terms, crosses
 

@@ -196,9 +196,10 @@ class Calculation:
     extra: Callable[..., Mapping[str, Any]] | None = None   # extra response members (e.g. events)
     example: Mapping[str, Any] | None = None
     # optional analytic Jacobian for the linear method: called with the keyword arguments of
-    # ``function``, it returns {output: {input: d output / d input}} in canonical units (per degree
-    # for an angle in degrees) for every output ``function`` returns; an input absent from an
-    # output's mapping is one the output does not depend on.  Without it the engine differences.
+    # ``function``, it returns {output: {input: d output / d input}}, arrays shaped like the inputs,
+    # in canonical units (per degree for an angle in degrees), for every output ``function`` returns;
+    # an input absent from an output's mapping is one the output does not depend on.  Without it
+    # the engine takes central differences.
     jacobian: Callable[..., Mapping[str, Mapping[str, np.ndarray]]] | None = None
 
     def input(self, name: str) -> Input:
