@@ -51,7 +51,8 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
     F(y) = ln sin i + y - (2/3) ln(M1 + e^y) - (1/3) ln f = 0 for y = ln M2 by Newton's
     method: F is increasing (F' = 1 - (2/3) M2/(M1+M2) >= 1/3) and concave, so after the
     first step the iterates approach the root monotonically from below: convergence is
-    guaranteed for every f > 0, M1 > 0, 0 < sin i <= 1, vectorised over all systems.
+    guaranteed for every f > 0, M1 > 0, 0 < sin i <= 1, vectorised over all systems.  A system
+    stops at its own convergence, so its M2 does not depend on the other systems of the call.
     """
     f = np.asarray(mass_function_value, dtype=float)
     m1 = np.asarray(primary_mass, dtype=float)
@@ -59,13 +60,15 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
     target = np.log(f) / 3.0 - np.log(s)
     # start at the larger of the small-companion (M2 << M1) and large-companion limits
     y = np.maximum(target + (2.0 / 3.0) * np.log(m1), 3.0 * target)
+    done = np.zeros(y.shape, dtype=bool)
     for _ in range(iterations):
         m2 = np.exp(y)
         g = y - (2.0 / 3.0) * np.log(m1 + m2) - target
         dg = 1.0 - (2.0 / 3.0) * m2 / (m1 + m2)
         step = g / dg
-        y = y - step
-        if np.all(~np.isfinite(step) | (np.abs(step) < 1e-15)):
+        y = np.where(done, y, y - step)
+        done |= ~np.isfinite(step) | (np.abs(step) < 1e-15)
+        if done.all():
             break
     return np.exp(y)
 
