@@ -350,7 +350,7 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
     (:func:`_stencil_terms`); everything after them is one path."""
     n = x.shape[1]
     m = len(pl.rows)
-    if pl.calc.jacobian is not None:
+    if pl.calc.jacobian is not None and not trail:       # register() allows no series input beside one
         given, f0, terms, crosses = _declared_terms(pl, x, sm, sp, spread, statics)
         one_sided = curvature = None
     else:
@@ -383,8 +383,8 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     exact, so an infinite slope there means first-order propagation has no answer at that point,
     which the engine then reports (``sigma_undefined``) rather than the step-dependent finite
     slope a one-sided difference would make of it.  Where a domain's edge is an ordinary point of
-    the formula (e = 0 for (1 - e^2)^{1/2}, whose slope is 0 there) the declared value is the
-    derivative that one-sided differences only approximate, to first order in their step."""
+    the formula (x = 0 for (1 - x^2)^{1/2} on 0 <= x < 1, whose slope is 0 there) the declared value
+    is the derivative that one-sided differences only approximate, to first order in their step."""
     n = x.shape[1]
     m = len(pl.rows)
     crosses = None
