@@ -184,7 +184,7 @@ def _arguments(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[st
 
 
 def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
-    raw = calc.function(**_arguments(calc, arrays, statics))          # under evaluate's np.errstate(all="ignore")
+    raw = calc.function(**_arguments(calc, arrays, statics))     # under evaluate's np.errstate(all="ignore")
     out = {}
     for o in calc.outputs:
         y = raw.get(o.name)
