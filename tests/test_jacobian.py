@@ -523,3 +523,14 @@ def test_companion_mass_of_a_system_does_not_depend_on_the_others_in_its_call():
     together = sp.companion_mass(f, m1, sin_i)
     alone = np.array([sp.companion_mass(f[k:k + 1], m1[k:k + 1], sin_i[k:k + 1])[0] for k in range(500)])
     np.testing.assert_array_equal(together, alone)
+
+
+def test_the_derivation_report_names_the_jacobian_used():
+    from calcservice import report
+    from calcservice.core import compute
+    sb2 = get("sb2")
+    text = report.markdown(compute("sb2", dict(sb2.example)), sb2)
+    assert "analytic Jacobian" in text and "central-difference" not in text
+    visual = get("visual")
+    text = report.markdown(compute("visual", dict(visual.example)), visual)
+    assert "central-difference" in text and "analytic Jacobian" not in text
