@@ -171,8 +171,10 @@ def sb2_jacobian(period, k1, k2, eccentricity, inclination=None, **_):
     half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
     per_p, per_k1, per_k2 = 1.0 / period, 1.0 / k1, 1.0 / k2
     per_sum = 1.0 / (k1 + k2)
-    m1s = {"period": per_p, "k1": 2.0 * per_sum, "k2": 2.0 * per_sum + per_k2, "eccentricity": 3.0 * half}
-    m2s = {"period": per_p, "k1": 2.0 * per_sum + per_k1, "k2": 2.0 * per_sum, "eccentricity": 3.0 * half}
+    three_halves = 3.0 * half                                # d ln (1 - e^2)^{3/2} / de
+    sum_squared = 2.0 * per_sum                              # d ln (K1 + K2)^2 / dK1,2
+    m1s = {"period": per_p, "k1": sum_squared, "k2": sum_squared + per_k2, "eccentricity": three_halves}
+    m2s = {"period": per_p, "k1": sum_squared + per_k1, "k2": sum_squared, "eccentricity": three_halves}
     asi = {"period": per_p, "k1": per_sum, "k2": per_sum, "eccentricity": half}
     logarithmic = {
         "mass_ratio": {"k1": per_k1, "k2": -per_k2},
@@ -184,12 +186,14 @@ def sb2_jacobian(period, k1, k2, eccentricity, inclination=None, **_):
     }
     if inclination is not None:
         cot = np.radians(1.0) / np.tan(np.radians(inclination))     # d ln sin i / di, per degree
+        per_sin3 = -3.0 * cot                                        # d ln (1 / sin^3 i) / di
+        sum_cubed = 3.0 * per_sum                                   # d ln (K1 + K2)^3 / dK1,2
         a = {**asi, "inclination": -cot}
         logarithmic.update({
-            "m1": {**m1s, "inclination": -3.0 * cot},
-            "m2": {**m2s, "inclination": -3.0 * cot},
-            "total_mass": {"period": per_p, "k1": 3.0 * per_sum, "k2": 3.0 * per_sum, "eccentricity": 3.0 * half,
-                           "inclination": -3.0 * cot},
+            "m1": {**m1s, "inclination": per_sin3},
+            "m2": {**m2s, "inclination": per_sin3},
+            "total_mass": {"period": per_p, "k1": sum_cubed, "k2": sum_cubed, "eccentricity": three_halves,
+                           "inclination": per_sin3},
             "semimajor_axis": a,
             "periastron_distance": {**a, "eccentricity": half - 1.0 / (1.0 - eccentricity)},
             "apastron_distance": {**a, "eccentricity": half + 1.0 / (1.0 + eccentricity)},
