@@ -3,9 +3,10 @@
 It knows nothing about binaries.  Given a :class:`~calcservice.registry.Calculation`
 and its inputs as :class:`Measured` arrays over N systems, it propagates uncertainty
 
-* linearly, through a Jacobian taken by central differences with a step of ~1e-5 of each
-  input's scale (one-sided where a step would leave an input's domain) and the input
-  covariance built from sigmas and correlations, or
+* linearly, through the calculation's declared Jacobian (``Calculation.jacobian``) or else a
+  Jacobian taken by central differences with a step of ~1e-5 of each input's scale (one-sided
+  where a step would leave an input's domain), and the input covariance built from sigmas and
+  correlations, or
 * by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
   when correlated), the user's own samples paired index by index, isotropic
   orientations (cos i uniform); draws outside an input's domain or giving a
@@ -15,7 +16,8 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
 
 Either way the physics function is called once per batch of systems: on arrays of shape
 (P, N) for the linear method, P = 1 + 2 m stencil points for m uncertain inputs (row 0 the
-nominal point; points first, so that each is a contiguous row of systems), or (N, 1 + S) for
+nominal point; points first, so that each is a contiguous row of systems; P = 1 with a declared
+Jacobian, which is called once beside it), or (N, 1 + S) for
 Monte Carlo, S draws (column 0 the nominal point); physics is elementwise, so either serves.
 Nothing loops over systems in Python; one system is the case N = 1.  The linear method's
 stencil, bounds and wrap periods are compiled once per (calculation, inputs) into a
@@ -172,11 +174,17 @@ def _wrap(d: np.ndarray, period) -> np.ndarray:
     return (d + 0.5 * period) % period - 0.5 * period
 
 
-def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
+def _arguments(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any]) -> dict[str, Any]:
+    """The keyword arguments of the physics function (and of a declared Jacobian): every input,
+    None where not given."""
     kwargs: dict[str, Any] = {i.name: None for i in calc.inputs}
     kwargs.update(statics)
     kwargs.update(arrays)
-    raw = calc.function(**kwargs)          # under evaluate's np.errstate(all="ignore")
+    return kwargs
+
+
+def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
+    raw = calc.function(**_arguments(calc, arrays, statics))     # under evaluate's np.errstate(all="ignore")
     out = {}
     for o in calc.outputs:
         y = raw.get(o.name)
@@ -337,9 +345,80 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
     else None), ``curvature`` (outputs, n) + trail for wrapping outputs: the norm over the inputs of
     the second-order term over one sigma, |f''| sigma^2 / 2, from the two one-sided differences
     (zero for outputs that do not wrap; None when none wraps), and ``crosses`` (m, n): where an
-    input's 1-sigma interval leaves its domain.  The physics sees arrays of shape (points, n) + trail:
-    the stencil's points first, so that each point is a contiguous row of systems; everything
-    after it stays within the block, so a long catalogue's (outputs x m x n) arrays are never held."""
+    input's 1-sigma interval leaves its domain.  The terms come from the calculation's declared
+    Jacobian where it has one (:func:`_declared_terms`), else from the central-difference stencil
+    (:func:`_stencil_terms`); everything after them is one path."""
+    n = x.shape[1]
+    m = len(pl.rows)
+    if pl.calc.jacobian is not None and not trail:       # register() allows no series input beside one
+        given, f0, terms, crosses = _declared_terms(pl, x, sm, sp, spread, statics)
+        one_sided = curvature = None
+    else:
+        given, f0, terms, one_sided, curvature, crosses = _stencil_terms(pl, x, sm, sp, spread, statics, trail)
+    if not given:
+        return given, None, None, None, None, crosses
+    if not m:
+        return given, f0, np.zeros_like(f0), np.zeros((len(given), 0, n) + trail), None, crosses
+    exact = not (spread > 0).all()
+    if exact:
+        # an exact input in a row does not count, even where f' is undefined
+        counts = (spread > 0).reshape((1, m, n) + (1,) * len(trail))
+        terms = np.where(counts, terms, 0.0)
+    var = _quadratic(terms, r)
+    if one_sided is not None and not np.isfinite(var).all():
+        terms = one_sided(terms)
+        if exact:
+            terms = np.where(counts, terms, 0.0)
+        var = _quadratic(terms, r)
+    return given, f0, var, terms if keep_terms else None, curvature, crosses
+
+
+def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
+    """The outputs given, f0 (outputs, n), the terms df/dx_j sigma_j (outputs, m, n) from the
+    calculation's declared Jacobian, and ``crosses`` (m, n), for a block of systems: one physics
+    call at the nominal point and one call of the Jacobian there (None for the terms when no
+    output is given or no input is uncertain).
+
+    A derivative that is not finite at a nominal point is kept as it is: a declared Jacobian is
+    exact, so an infinite slope there means first-order propagation has no answer at that point,
+    which the engine then reports (``sigma_undefined``) rather than the step-dependent finite
+    slope a one-sided difference would make of it.  Where a domain's edge is an ordinary point of
+    the formula (x = 0 for (1 - x^2)^{1/2} on 0 <= x < 1, whose slope is 0 there) the declared value
+    is the derivative that one-sided differences only approximate, to first order in their step."""
+    n = x.shape[1]
+    m = len(pl.rows)
+    crosses = None
+    if m:
+        crosses = ~pl.inside(x[pl.rows] + np.array([-sm, sp])).all(axis=0)
+    arrays = {name: x[k] for k, name in enumerate(pl.names)}
+    ys = _call(pl.calc, arrays, statics, (n,))
+    given = tuple(ys)
+    if not given:
+        return given, None, None, crosses
+    f0 = np.array(list(ys.values()))                                                # (outputs, n)
+    if not m:
+        return given, f0, None, crosses
+    derivatives = pl.calc.jacobian(**_arguments(pl.calc, arrays, statics))
+    missing = [name for name in given if name not in derivatives]
+    if missing:
+        raise ValueError(f"{pl.calc.name}: the declared Jacobian gives no derivatives of {', '.join(missing)}")
+    zero = np.zeros(n)                   # an input absent from an output's mapping: it does not depend on it
+    # each derivative an array shaped like the inputs (n,), as the declaration promises: any other
+    # shape is a declaration's bug, which numpy refuses here (an inhomogeneous shape)
+    terms = np.array([[derivatives[name].get(wrt, zero) for wrt in pl.perturbed] for name in given],
+                     dtype=float)                                                    # (outputs, m, n)
+    terms *= spread
+    return given, f0, terms, crosses
+
+
+def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
+    """The outputs given, f0 (outputs, n) + trail, the terms df/dx_j sigma_j (outputs, m, n) + trail
+    by central differences, a function that fills the terms a step outside the domain left
+    undefined with one-sided differences, the ``curvature`` of wrapping outputs (see
+    :func:`_differentiate`) and ``crosses`` (m, n), for a block of systems.  The physics sees
+    arrays of shape (points, n) + trail: the stencil's points first, so that each point is a
+    contiguous row of systems; everything after it stays within the block, so a long catalogue's
+    (outputs x m x n) arrays are never held."""
     n = x.shape[1]
     m = len(pl.rows)
     p = 1 + WIDTH * m
@@ -365,7 +444,7 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
     y = np.array(list(ys.values()))                                                  # (outputs, p, n) + trail
     f0 = y[:, 0]
     if not m:
-        return given, f0, np.zeros_like(f0), np.zeros((len(given), 0, n) + trail), None, crosses
+        return given, f0, None, None, None, crosses
     ahead, behind = y[:, 1 + m:], y[:, 1:1 + m]                                     # f(x + h), f(x - h)
     period, wraps, any_wrap = pl.periods(given, ahead.ndim)
     hh = h.reshape((1, m, n) + ones)
@@ -380,21 +459,15 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
         terms = (up + down) * scale
     else:
         terms = (ahead - behind) * scale
-    exact = not (spread > 0).all()
-    if exact:
-        terms = np.where(scale > 0, terms, 0.0)   # an exact input in a row does not count, even where f' is undefined
-    var = _quadratic(terms, r)
-    if not np.isfinite(var).all():
-        if up is None:
-            ref = y[:, :1]
-            up, down = ahead - ref, ref - behind
+
+    def one_sided(terms):
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
+        ref = y[:, :1]
+        forward, backward = (ahead - ref, ref - behind) if up is None else (up, down)
         sig = spread.reshape((1, m, n) + ones)
-        terms = np.where(np.isfinite(terms), terms, np.where(np.isfinite(up), up / hh, down / hh) * sig)
-        if exact:
-            terms = np.where(scale > 0, terms, 0.0)
-        var = _quadratic(terms, r)
+        return np.where(np.isfinite(terms), terms, np.where(np.isfinite(forward), forward / hh, backward / hh) * sig)
+
     curvature = None
     if any_wrap:
         # rounding of the three values sets a floor below which the two sides cannot differ
@@ -403,7 +476,7 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
         ratio = spread.reshape((1, m, n) + ones) / hh
         bend = np.where(wraps, 0.5 * gap * ratio * ratio, 0.0)
         curvature = np.sqrt((bend * bend).sum(axis=1))
-    return given, f0, var, terms if keep_terms else None, curvature, crosses
+    return given, f0, terms, one_sided, curvature, crosses
 
 
 def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
@@ -415,8 +488,8 @@ def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
 
 
 def _linear(calc, quantities, statics, options, n, trail) -> Result:
-    """First-order propagation: sigma_f^2 = J C J^T with J the central-difference Jacobian and C the
-    input covariance (sigma_i rho_ij sigma_j, asymmetric errors by the mean of their two sides)."""
+    """First-order propagation: sigma_f^2 = J C J^T with J the declared or else the central-difference
+    Jacobian and C the input covariance (sigma_i rho_ij sigma_j, asymmetric errors by the mean of their two sides)."""
     names = tuple(quantities)
     qs = quantities.values()
     x = np.array([_broadcast(q.value, (n,)) for q in qs], dtype=float)              # (Q, n)

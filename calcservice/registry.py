@@ -195,6 +195,12 @@ class Calculation:
     check: Callable[..., Sequence[Warning]] | None = None
     extra: Callable[..., Mapping[str, Any]] | None = None   # extra response members (e.g. events)
     example: Mapping[str, Any] | None = None
+    # optional analytic Jacobian for the linear method: called with the keyword arguments of
+    # ``function``, it returns {output: {input: d output / d input}}, arrays shaped like the inputs,
+    # in canonical units (per degree for an angle in degrees), for every output ``function`` returns;
+    # an input absent from an output's mapping is one the output does not depend on.  Without it
+    # the engine takes central differences.
+    jacobian: Callable[..., Mapping[str, Mapping[str, np.ndarray]]] | None = None
 
     def input(self, name: str) -> Input:
         return self._inputs[name]
@@ -239,6 +245,15 @@ def register(calc: Calculation) -> Calculation:
     names = [i.name for i in calc.inputs]
     if len(set(names)) != len(names):
         raise ValueError(f"{calc.name}: duplicate input names")
+    if calc.jacobian is not None:
+        # for a wrapping output or a series input the linear method does more than take first
+        # derivatives (the two one-sided differences on the circle measure the curvature behind
+        # its trust check); a declared Jacobian would silently drop that
+        wrapping = [o.name for o in calc.outputs if o.period is not None]
+        series = [i.name for i in calc.inputs if i.kind == "series"]
+        if wrapping or series:
+            raise ValueError(f"{calc.name}: a declared jacobian needs outputs that do not wrap and no series "
+                             f"inputs (wrapping: {wrapping}, series: {series}); leave it to finite differences")
     REGISTRY[calc.name] = calc
     return calc
 

@@ -378,7 +378,8 @@ def _cite(indices: list[int], dash: str = "–") -> str:
     return "[" + ", ".join(map(str, indices)) + "]"
 
 
-def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str, Any]] = ()) -> list[str]:
+def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str, Any]] = (),
+                      calc: Calculation | None = None) -> list[str]:
     lines = []
     if unc.get("method") == "monte_carlo":
         lines.append(f"Monte Carlo with {unc.get('samples')} draws, seed {unc.get('seed')}; "
@@ -386,7 +387,9 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
                      "central 68.27 % interval, inputs drawn normal (split normal when asymmetric), "
                      "truncated to their physical domains")
     else:
-        lines.append("linear (first-order) propagation through a numerical Jacobian, with the input covariance "
+        jacobian = ("the calculation's analytic Jacobian" if calc is not None and calc.jacobian is not None
+                    else "a numerical (central-difference) Jacobian")
+        lines.append(f"linear (first-order) propagation through {jacobian}, with the input covariance "
                      "built from the sigmas and correlations")
     corr = [c for c in correlations or () if isinstance(c, Mapping) and "between" in c]
     if corr:
@@ -636,7 +639,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
 
     doc.heading("Uncertainty")
     corr = (request or {}).get("correlations", ()) if isinstance(request, Mapping) else ()
-    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr)])
+    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr, calc)])
 
     _budget_section(doc, results, response.get("uncertainty", {}))
 

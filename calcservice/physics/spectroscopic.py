@@ -51,7 +51,8 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
     F(y) = ln sin i + y - (2/3) ln(M1 + e^y) - (1/3) ln f = 0 for y = ln M2 by Newton's
     method: F is increasing (F' = 1 - (2/3) M2/(M1+M2) >= 1/3) and concave, so after the
     first step the iterates approach the root monotonically from below: convergence is
-    guaranteed for every f > 0, M1 > 0, 0 < sin i <= 1, vectorised over all systems.
+    guaranteed for every f > 0, M1 > 0, 0 < sin i <= 1, vectorised over all systems.  A system
+    stops at its own convergence, so its M2 does not depend on the other systems of the call.
     """
     f = np.asarray(mass_function_value, dtype=float)
     m1 = np.asarray(primary_mass, dtype=float)
@@ -59,13 +60,15 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
     target = np.log(f) / 3.0 - np.log(s)
     # start at the larger of the small-companion (M2 << M1) and large-companion limits
     y = np.maximum(target + (2.0 / 3.0) * np.log(m1), 3.0 * target)
+    done = np.zeros(y.shape, dtype=bool)
     for _ in range(iterations):
         m2 = np.exp(y)
         g = y - (2.0 / 3.0) * np.log(m1 + m2) - target
         dg = 1.0 - (2.0 / 3.0) * m2 / (m1 + m2)
         step = g / dg
-        y = y - step
-        if np.all(~np.isfinite(step) | (np.abs(step) < 1e-15)):
+        y = np.where(done, y, y - step)
+        done |= ~np.isfinite(step) | (np.abs(step) < 1e-15)
+        if done.all():
             break
     return np.exp(y)
 
@@ -141,3 +144,117 @@ def sb2(period, k1, k2, eccentricity, inclination=None, **_):
             "apastron_distance": a * (1.0 + eccentricity),
         })
     return out
+
+
+def _scaled(values, logarithmic):
+    """{output: {input: d f / d x}} from the values f and the logarithmic derivatives d ln f / d x."""
+    return {name: {x: values[name] * d for x, d in of.items()} for name, of in logarithmic.items()}
+
+
+def sb2_jacobian(period, k1, k2, eccentricity, inclination=None, **_):
+    """The derivatives of :func:`sb2`'s outputs with respect to its inputs, {output: {input: df/dx}}
+    (canonical units; per degree for the inclination), as f times the logarithmic derivative.
+
+    The outputs are products of powers (Hilditch 2001, eq. 2.49-2.53), so with s = 1 - e^2 and
+    Sigma = K1 + K2, ordinary calculus gives
+
+        d ln P / dP = 1/P            d ln (1 - e^2)^{n/2} / de = -n e / s
+        d ln q / dK1 = 1/K1          d ln q / dK2 = -1/K2
+        d ln (M1 sin^3 i) / dK1 = 2/Sigma,  / dK2 = 2/Sigma + 1/K2    (M2 sin^3 i: K1 and K2 swapped)
+        d ln (a sin i) / dK1,2 = 1/Sigma    d ln (a1,2 sin i) / dK1,2 = 1/K1,2
+        d ln (M1 + M2) / dK1,2 = 3/Sigma
+        d ln (1 / sin^n i) / di = -n cot i (pi / 180)  per degree
+        d ln (a (1 - e)) / de = -e/s - 1/(1 - e)      d ln (a (1 + e)) / de = -e/s + 1/(1 + e)
+
+    an input absent from an output's mapping being one it does not depend on."""
+    values = sb2(period, k1, k2, eccentricity, inclination)
+    half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
+    per_p, per_k1, per_k2 = 1.0 / period, 1.0 / k1, 1.0 / k2
+    per_sum = 1.0 / (k1 + k2)
+    three_halves = 3.0 * half                                # d ln (1 - e^2)^{3/2} / de
+    sum_squared = 2.0 * per_sum                              # d ln (K1 + K2)^2 / dK1,2
+    m1s = {"period": per_p, "k1": sum_squared, "k2": sum_squared + per_k2, "eccentricity": three_halves}
+    m2s = {"period": per_p, "k1": sum_squared + per_k1, "k2": sum_squared, "eccentricity": three_halves}
+    asi = {"period": per_p, "k1": per_sum, "k2": per_sum, "eccentricity": half}
+    logarithmic = {
+        "mass_ratio": {"k1": per_k1, "k2": -per_k2},
+        "m1_sin3i": m1s,
+        "m2_sin3i": m2s,
+        "a_sin_i": asi,
+        "a1_sin_i": {"period": per_p, "k1": per_k1, "eccentricity": half},
+        "a2_sin_i": {"period": per_p, "k2": per_k2, "eccentricity": half},
+    }
+    if inclination is not None:
+        cot = np.radians(1.0) / np.tan(np.radians(inclination))     # d ln sin i / di, per degree
+        per_sin3 = -3.0 * cot                                        # d ln (1 / sin^3 i) / di
+        sum_cubed = 3.0 * per_sum                                   # d ln (K1 + K2)^3 / dK1,2
+        a = {**asi, "inclination": -cot}
+        logarithmic.update({
+            "m1": {**m1s, "inclination": per_sin3},
+            "m2": {**m2s, "inclination": per_sin3},
+            "total_mass": {"period": per_p, "k1": sum_cubed, "k2": sum_cubed, "eccentricity": three_halves,
+                           "inclination": per_sin3},
+            "semimajor_axis": a,
+            "periastron_distance": {**a, "eccentricity": half - 1.0 / (1.0 - eccentricity)},
+            "apastron_distance": {**a, "eccentricity": half + 1.0 / (1.0 + eccentricity)},
+        })
+    return _scaled(values, logarithmic)
+
+
+def sb1_jacobian(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
+    """The derivatives of :func:`sb1`'s outputs with respect to its inputs, {output: {input: df/dx}}
+    (canonical units; per degree for the inclination), as f times the logarithmic derivative.
+
+    f(M) and a1 sin i are products of powers (Hilditch 2001, eq. 2.49, 2.51): with s = 1 - e^2,
+    d ln f / dP = 1/P, d ln f / dK1 = 3/K1, d ln f / de = -3 e/s; d ln (a1 sin i) / dP = 1/P,
+    / dK1 = 1/K1, / de = -e/s.
+
+    M2 is defined implicitly by M2^3 sin^3 i / (M1 + M2)^2 = f(M) (:func:`companion_mass`), i.e. by
+    g = ln f - 3 ln M2 - 3 ln sin i + 2 ln(M1 + M2) = 0.  By the implicit function theorem
+    dM2/dx = -(dg/dx) / (dg/dM2), with dg/dM2 = -3/M2 + 2/(M1 + M2); with mu = M2 / (M1 + M2),
+
+        d ln M2 / dx = (dg/dx) / (3 - 2 mu),   dg/dx = d ln f / dx  for x = P, K1, e,
+                                               dg/dM1 = 2 / (M1 + M2),
+                                               dg/di = -3 cot i (pi / 180)  per degree
+
+    (3 - 2 mu lies in (1, 3]: no singularity; for M2 << M1, d ln M2 / d ln M1 -> 2/3, and for
+    M2 >> M1, d ln M2 / d ln f -> 1, the two limits of the cubic).  m2_min is the case sin i = 1.
+    The derived outputs follow by the chain rule: q = M2/M1 adds -1/M1 to d ln M2 / dM1;
+    a = (G (M1 + M2) P^2 / 4 pi^2)^{1/3} (Kepler's third law) has
+    d ln a / dx = (1/3)(M2 d ln M2/dx + [x = M1]) / (M1 + M2) + (2/3)[x = P] / P;
+    a1 = a1 sin i / sin i adds -cot i (pi / 180) per degree."""
+    values = sb1(period, k1, eccentricity, primary_mass, inclination)
+    half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
+    per_p = 1.0 / period
+    ln_f = {"period": per_p, "k1": 3.0 / k1, "eccentricity": 3.0 * half}
+    logarithmic = {
+        "mass_function": ln_f,
+        "a1_sin_i": {"period": per_p, "k1": 1.0 / k1, "eccentricity": half},
+    }
+    if primary_mass is not None:
+        def companion(m2, cot=None):
+            """d ln M2 / dx by the implicit function theorem (``cot``: d ln sin i / di, None for sin i = 1)."""
+            total = primary_mass + m2
+            slope = 1.0 / (3.0 - 2.0 * m2 / total)          # 1 / (-M2 dg/dM2)
+            out = {x: d * slope for x, d in ln_f.items()}
+            out["primary_mass"] = 2.0 / total * slope
+            if cot is not None:
+                out["inclination"] = -3.0 * cot * slope
+            return out
+
+        logarithmic["m2_min"] = companion(values["m2_min"])
+        if inclination is not None:
+            cot = np.radians(1.0) / np.tan(np.radians(inclination))     # d ln sin i / di, per degree
+            m2 = values["m2"]
+            total = primary_mass + m2
+            ln_m2 = companion(m2, cot)
+            ln_a = {x: m2 * d / (3.0 * total) for x, d in ln_m2.items()}
+            ln_a["primary_mass"] = ln_a["primary_mass"] + 1.0 / (3.0 * total)
+            ln_a["period"] = ln_a["period"] + 2.0 / 3.0 * per_p
+            logarithmic.update({
+                "m2": ln_m2,
+                "mass_ratio": {**ln_m2, "primary_mass": ln_m2["primary_mass"] - 1.0 / primary_mass},
+                "semimajor_axis": ln_a,
+                "a1": {**logarithmic["a1_sin_i"], "inclination": -cot},
+            })
+    return _scaled(values, logarithmic)
