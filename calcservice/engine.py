@@ -398,15 +398,16 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     f0 = np.array(list(ys.values()))                                                # (outputs, n)
     if not m:
         return given, f0, None, crosses
-    derivatives = pl.calc.jacobian(**_arguments(pl.calc, arrays, statics))
-    missing = [name for name in given if name not in derivatives]
+    logarithmic = pl.calc.jacobian(ys, **_arguments(pl.calc, arrays, statics))
+    missing = [name for name in given if name not in logarithmic]
     if missing:
         raise ValueError(f"{pl.calc.name}: the declared Jacobian gives no derivatives of {', '.join(missing)}")
     zero = np.zeros(n)                   # an input absent from an output's mapping: it does not depend on it
     # each derivative an array shaped like the inputs (n,), as the declaration promises: any other
     # shape is a declaration's bug, which numpy refuses here (an inhomogeneous shape)
-    terms = np.array([[derivatives[name].get(wrt, zero) for wrt in pl.perturbed] for name in given],
+    terms = np.array([[logarithmic[name].get(wrt, zero) for wrt in pl.perturbed] for name in given],
                      dtype=float)                                                    # (outputs, m, n)
+    terms *= f0[:, None, :]              # df/dx = f d ln f / dx, for every output and input at once
     terms *= spread
     return given, f0, terms, crosses
 

@@ -195,11 +195,13 @@ class Calculation:
     check: Callable[..., Sequence[Warning]] | None = None
     extra: Callable[..., Mapping[str, Any]] | None = None   # extra response members (e.g. events)
     example: Mapping[str, Any] | None = None
-    # optional analytic Jacobian for the linear method: called with the keyword arguments of
-    # ``function``, it returns {output: {input: d output / d input}}, arrays shaped like the inputs,
-    # in canonical units (per degree for an angle in degrees), for every output ``function`` returns;
-    # an input absent from an output's mapping is one the output does not depend on.  Without it
-    # the engine takes central differences.
+    # optional analytic Jacobian for the linear method, as logarithmic derivatives: called with the
+    # outputs of ``function`` and its keyword arguments (the same point), it returns
+    # {output: {input: d ln output / d input}}, arrays shaped like the inputs, in canonical units
+    # (per degree for an angle in degrees), for every output ``function`` returns; an input absent
+    # from an output's mapping is one the output does not depend on.  The engine forms
+    # df/dx = f d ln f / dx for all outputs in one product, so it suits outputs that are products
+    # of powers (never 0 on the domain).  Without it the engine takes central differences.
     jacobian: Callable[..., Mapping[str, Mapping[str, np.ndarray]]] | None = None
 
     def input(self, name: str) -> Input:

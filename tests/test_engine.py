@@ -253,7 +253,8 @@ def test_each_system_of_a_batch_gets_what_it_gets_alone(calc, quantities, static
             continue
         for out, member in alone.outputs.items():
             for key in ("value", "sigma"):
-                # 1e-9: a vectorised root finder iterates until every system of its call converges
+                # 1e-9: a vectorised root finder (the photocentre's) iterates until every system of
+                # its call converges, so a system among others may take an extra step
                 np.testing.assert_allclose(together.outputs[out][key][r], member[key][0], rtol=1e-9, atol=0,
                                            err_msg=f"row {r} {out} {key}")
         codes_alone = {(w.code, w.subject) for w in alone.warnings if w.where is None or np.asarray(w.where).any()}

@@ -146,14 +146,9 @@ def sb2(period, k1, k2, eccentricity, inclination=None, **_):
     return out
 
 
-def _scaled(values, logarithmic):
-    """{output: {input: d f / d x}} from the values f and the logarithmic derivatives d ln f / d x."""
-    return {name: {x: values[name] * d for x, d in of.items()} for name, of in logarithmic.items()}
-
-
-def sb2_jacobian(period, k1, k2, eccentricity, inclination=None, **_):
-    """The derivatives of :func:`sb2`'s outputs with respect to its inputs, {output: {input: df/dx}}
-    (canonical units; per degree for the inclination), as f times the logarithmic derivative.
+def sb2_jacobian(outputs, period, k1, k2, eccentricity, inclination=None, **_):
+    """The logarithmic derivatives of :func:`sb2`'s ``outputs`` with respect to its inputs,
+    {output: {input: d ln f / dx}} (canonical units; per degree for the inclination).
 
     The outputs are products of powers (Hilditch 2001, eq. 2.49-2.53), so with s = 1 - e^2 and
     Sigma = K1 + K2, ordinary calculus gives
@@ -167,7 +162,6 @@ def sb2_jacobian(period, k1, k2, eccentricity, inclination=None, **_):
         d ln (a (1 - e)) / de = -e/s - 1/(1 - e)      d ln (a (1 + e)) / de = -e/s + 1/(1 + e)
 
     an input absent from an output's mapping being one it does not depend on."""
-    values = sb2(period, k1, k2, eccentricity, inclination)
     half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
     per_p, per_k1, per_k2 = 1.0 / period, 1.0 / k1, 1.0 / k2
     per_sum = 1.0 / (k1 + k2)
@@ -198,12 +192,12 @@ def sb2_jacobian(period, k1, k2, eccentricity, inclination=None, **_):
             "periastron_distance": {**a, "eccentricity": half - 1.0 / (1.0 - eccentricity)},
             "apastron_distance": {**a, "eccentricity": half + 1.0 / (1.0 + eccentricity)},
         })
-    return _scaled(values, logarithmic)
+    return logarithmic
 
 
-def sb1_jacobian(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
-    """The derivatives of :func:`sb1`'s outputs with respect to its inputs, {output: {input: df/dx}}
-    (canonical units; per degree for the inclination), as f times the logarithmic derivative.
+def sb1_jacobian(outputs, period, k1, eccentricity, primary_mass=None, inclination=None, **_):
+    """The logarithmic derivatives of :func:`sb1`'s ``outputs`` with respect to its inputs,
+    {output: {input: d ln f / dx}} (canonical units; per degree for the inclination).
 
     f(M) and a1 sin i are products of powers (Hilditch 2001, eq. 2.49, 2.51): with s = 1 - e^2,
     d ln f / dP = 1/P, d ln f / dK1 = 3/K1, d ln f / de = -3 e/s; d ln (a1 sin i) / dP = 1/P,
@@ -223,7 +217,6 @@ def sb1_jacobian(period, k1, eccentricity, primary_mass=None, inclination=None, 
     a = (G (M1 + M2) P^2 / 4 pi^2)^{1/3} (Kepler's third law) has
     d ln a / dx = (1/3)(M2 d ln M2/dx + [x = M1]) / (M1 + M2) + (2/3)[x = P] / P;
     a1 = a1 sin i / sin i adds -cot i (pi / 180) per degree."""
-    values = sb1(period, k1, eccentricity, primary_mass, inclination)
     half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
     per_p = 1.0 / period
     ln_f = {"period": per_p, "k1": 3.0 / k1, "eccentricity": 3.0 * half}
@@ -242,10 +235,10 @@ def sb1_jacobian(period, k1, eccentricity, primary_mass=None, inclination=None, 
                 out["inclination"] = -3.0 * cot * slope
             return out
 
-        logarithmic["m2_min"] = companion(values["m2_min"])
+        logarithmic["m2_min"] = companion(outputs["m2_min"])
         if inclination is not None:
             cot = np.radians(1.0) / np.tan(np.radians(inclination))     # d ln sin i / di, per degree
-            m2 = values["m2"]
+            m2 = outputs["m2"]
             total = primary_mass + m2
             ln_m2 = companion(m2, cot)
             ln_a = {x: m2 * d / (3.0 * total) for x, d in ln_m2.items()}
@@ -257,4 +250,4 @@ def sb1_jacobian(period, k1, eccentricity, primary_mass=None, inclination=None, 
                 "semimajor_axis": ln_a,
                 "a1": {**logarithmic["a1_sin_i"], "inclination": -cot},
             })
-    return _scaled(values, logarithmic)
+    return logarithmic
