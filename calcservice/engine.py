@@ -42,6 +42,7 @@ from .registry import Calculation, Warning
 
 ONE_SIGMA_LOW = float(ndtr(-1.0))    # 0.158655...
 ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
+_TINY = np.finfo(float).tiny           # the smallest normal float
 RELATIVE_STEP = 1e-5                 # central step ~ eps^(1/3) of the input's scale
 TIME_STEP = 1e-4                     # days per day of a time input's sigma (at least 1 d)
 LINEAR_TRUST_LIMIT = 0.2             # relative sigma (an angle: second-order over first-order term)
@@ -328,6 +329,8 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     sec. 5.7); it matters for dates, where ulp(JD) ~ 5e-10 d."""
     ax = np.abs(x)
     scale = np.minimum(np.maximum(spread, 1e-3 * ax), ax)                       # 0 where x = 0
+    # a subnormal x (5e-324) is x = 0 for this purpose: a step tied to it would underflow to 0
+    scale = np.where(scale >= _TINY, scale, 0.0)
     h = RELATIVE_STEP * np.where(scale > 0, scale, np.where(spread > 0, spread, 1.0))
     if pl.any_time:
         h = np.where(pl.time, TIME_STEP * np.maximum(spread, 1.0), h)

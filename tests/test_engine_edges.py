@@ -149,3 +149,18 @@ def test_monte_carlo_of_light_tails_keeps_its_sigma():
     r = evaluate(calc, q, options=Options(method="monte_carlo", samples=10000, seed=9))
     assert np.isfinite(r.outputs["m1"]["sigma"][0])
     assert not [w for w in r.warnings if w.code == "sigma_undefined"]
+
+
+def test_a_subnormal_input_is_differenced_as_zero():
+    # e = 5e-324 (the smallest subnormal) with a sigma: a step of 1e-5 |e| would underflow to 0 and
+    # every difference quotient be 0/0.  Central differences (sb2 without its declared Jacobian) must
+    # answer as at e = 0: q = K1/K2 does not depend on e (exact here, sigma 0), and
+    # d (1 - e^2)^{3/2} / de = -3 e (1 - e^2)^{1/2} ~ 1e-323, so M1 sin^3 i's sigma is ~0 as well
+    import dataclasses
+    calc = dataclasses.replace(get("sb2"), jacobian=None)
+    q = {"period": Measured.exact(1.0), "k1": Measured.exact(1.0), "k2": Measured.exact(1.0),
+         "eccentricity": Measured.normal(5e-324, 0.25)}
+    r = evaluate(calc, q)
+    assert r.outputs["mass_ratio"]["sigma"][0] == 0.0
+    assert r.outputs["m1_sin3i"]["sigma"][0] == pytest.approx(0.0, abs=1e-12)
+    assert "sigma_undefined" not in {w.code for w in r.warnings}
