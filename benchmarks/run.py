@@ -18,9 +18,10 @@ into numpy arrays of every output's value and sigma.  On the double-lined spectr
 * numpy    the bare vectorised numpy expression: values and first-order sigmas from hand-derived
            logarithmic derivatives, on arrays already in memory (the floor).
 
-Method: every subject is timed once per round, the rounds one after another; each figure is the
-median over the rounds and each ratio the median of its per-round ratios, so a slow spell of the
-shared machine weighs on both sides of a ratio alike.  The gunicorn request rates (one sb2 request
+Method: every subject is timed once per round, right after an untimed call of the same subject
+(so that no subject pays for what the one before it left in either process), the rounds one after
+another; each figure is the median over the rounds and each ratio the median of its per-round
+ratios, so a slow spell of the shared machine weighs on both sides of a ratio alike.  The gunicorn request rates (one sb2 request
 against ``GET /v1/health``, a bounded load generator of 4 threads) come from short alternating runs,
 the order swapped every round.  A Monte Carlo request of 10^5 draws is set against the same draws
 in bare numpy.  The benchmark checks that the lab loop, the bare numpy and every format agree with
@@ -87,14 +88,16 @@ def timed(fn) -> float:
 
 
 def rounds(subjects: dict, repeats: int) -> dict[str, list[float]]:
-    """Per-system seconds of each subject in each of ``repeats`` rounds (after one warm-up call
-    each).  A subject is (function, systems); a function that returns a float has timed itself
-    (a best of several short calls), otherwise the call is timed."""
-    for fn, _ in subjects.values():
-        fn()
+    """Per-system seconds of each subject in each of ``repeats`` rounds.  A subject is (function,
+    systems); a function that returns a float has timed itself (a best of several short calls),
+    otherwise the call is timed.  Each timed call follows an untimed call of the same subject, as
+    a script going through a catalogue calls the same thing again and again: what the subject
+    before it left behind (a heap grown by another format's tables, caches filled by astropy's
+    ECSV reader, which slowed the next subject by up to a third) is not charged to it."""
     out: dict[str, list[float]] = {k: [] for k in subjects}
     for _ in range(repeats):
         for k, (fn, systems) in subjects.items():
+            fn()
             t0 = time.perf_counter()
             got = fn()
             elapsed = got if isinstance(got, float) else time.perf_counter() - t0

@@ -446,12 +446,14 @@ def quantity_entries(entries: list) -> tuple[list, list, list, list, np.ndarray]
     object of value, sigmas and unit, or one whose sigmas contradict each other)."""
     n = len(entries)
     kinds = set(map(type, entries))
-    if kinds == {dict} and all(e.keys() <= SIMPLE_KEYS for e in entries):
+    keys = set().union(*entries) if kinds == {dict} else None        # every member name used, at C speed
+    if keys is not None and keys <= SIMPLE_KEYS:
         values = [e.get("value") for e in entries]
-        units = [e.get("unit") for e in entries]
-        if not any("sigma_minus" in e or "sigma_plus" in e for e in entries):
-            sigmas = [e.get("sigma", 0.0) for e in entries]
-            return values, sigmas, sigmas, units, np.array([v is None for v in values], dtype=bool)
+        units = [e.get("unit") for e in entries] if "unit" in keys else [None] * n
+        if "sigma_minus" not in keys and "sigma_plus" not in keys:
+            sigmas = [e.get("sigma", 0.0) for e in entries] if "sigma" in keys else [0.0] * n
+            odd = np.array([v is None for v in values], dtype=bool) if None in values else np.zeros(n, dtype=bool)
+            return values, sigmas, sigmas, units, odd
     elif kinds <= {float, int, type(None)}:
         return entries, [0.0] * n, [0.0] * n, [None] * n, np.zeros(n, dtype=bool)
     values, minus, plus, units = [None] * n, [0.0] * n, [0.0] * n, [None] * n
