@@ -367,9 +367,7 @@ def warning_index(warnings: list[Mapping], n: int) -> tuple[list[str], np.ndarra
         k = order[w["code"]]
         words[k // 62][np.asarray(w["rows"], dtype=np.int64) if "rows" in w else slice(None)] |= 1 << (k % 62)
     key = words[0] if len(words) == 1 else np.rec.fromarrays(words)
-    if n and (key == key[0]).all():             # the usual catalogue: one set for every system
-        sets, index = key[:1], np.zeros(n, dtype=np.intp)
-    elif len(words) == 1 and key.max() < 1 << 16:  # a few codes: counted, not sorted
+    if len(words) == 1 and n and key.max() < 1 << 16:  # a few codes: counted, not sorted
         present = np.bincount(key) > 0
         sets, index = np.flatnonzero(present), (np.cumsum(present) - 1)[key]
     else:

@@ -175,25 +175,27 @@ class Rendering:
         differs from the batch's ``shared`` one, its inputs when ``echo`` asks for them."""
         whole = self.series_outputs or self.extras
         results = [self.results(k) for k in range(self.n)] if whole else self.scalars
-        warned = self._warnings
-        for applies in set(self.applies) - warned.keys():
-            warned[applies] = warning_entries(self.result.warnings, applies)
-        rows = [{"results": r, "warnings": list(warned[a])} for r, a in zip(results, self.applies)]
+        rows = [{"results": r, "warnings": self.warnings(k)} for k, r in enumerate(results)]
         if self.result.correlation is not None:
             for k, row in enumerate(rows):
                 row["correlation"] = self.correlation(k)
-        linear = self.result.method == "linear"         # then one uncertainty for every system
-        for k in range(min(self.n, 1) if linear else self.n):
-            own = {key: v for key, v in self.uncertainty(k).items() if shared.get(key) != v}
+        # a linear result's uncertainty is the same for every system: compared with the batch's once
+        linear = self.result.method == "linear"
+        first = self._own_uncertainty(0, shared) if linear else None
+        for k, row in enumerate(rows):
+            own = dict(first) if linear else self._own_uncertainty(k, shared)
             if own:
-                for row in (rows if linear else rows[k:k + 1]):
-                    row["uncertainty"] = dict(own)
+                row["uncertainty"] = own
         if echo:
             for k, row in enumerate(rows):
                 row["inputs"] = self.parsed.echo(k)
                 if self.parsed.time_format != time_format:
                     row["time_format"] = self.parsed.time_format
         return rows
+
+    def _own_uncertainty(self, index: int, shared: dict) -> dict:
+        """What of system ``index``'s uncertainty differs from the batch's ``shared`` one."""
+        return {key: v for key, v in self.uncertainty(index).items() if shared.get(key) != v}
 
     def correlation(self, index: int) -> dict:
         """System ``index``'s correlation matrix of its outputs (null where an output has no sigma)."""
