@@ -184,14 +184,16 @@ def _arguments(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[st
     return kwargs
 
 
-def _call(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
-    raw = calc.function(**_arguments(calc, arrays, statics))     # under evaluate's np.errstate(all="ignore")
+def _call(calc: Calculation, arguments: Mapping[str, Any], shape: tuple) -> dict[str, np.ndarray]:
+    """The physics function on ``arguments`` (see :func:`_arguments`): its outputs, in the declared
+    order, as float arrays of ``shape``."""
+    raw = calc.function(**arguments)     # under evaluate's np.errstate(all="ignore")
     out = {}
     for o in calc.outputs:
         y = raw.get(o.name)
         if y is None:
             continue
-        if type(y) is not np.ndarray or y.dtype != _FLOAT or y.shape != shape:     # else as it is
+        if type(y) is not np.ndarray or y.dtype is not _FLOAT or y.shape != shape:     # else as it is
             y = np.broadcast_to(np.asarray(y, dtype=float), shape)
         out[o.name] = y
     return out
@@ -362,7 +364,7 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
         return given, None, None, None, None, crosses
     if not m:
         return given, f0, np.zeros_like(f0), np.zeros((len(given), 0, n) + trail), None, crosses
-    exact = not (spread > 0).all()
+    exact = np.count_nonzero(spread > 0) < spread.size
     if exact:
         # an exact input in a row does not count, even where f' is undefined
         counts = (spread > 0).reshape((1, m, n) + (1,) * len(trail))
@@ -393,23 +395,25 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     crosses = None
     if m:
         crosses = ~pl.inside(x[pl.rows] + np.array([-sm, sp])).all(axis=0)
-    arrays = {name: x[k] for k, name in enumerate(pl.names)}
-    ys = _call(pl.calc, arrays, statics, (n,))
+    arguments = _arguments(pl.calc, {name: x[k] for k, name in enumerate(pl.names)}, statics)
+    ys = _call(pl.calc, arguments, (n,))
     given = tuple(ys)
     if not given:
         return given, None, None, crosses
     f0 = np.array(list(ys.values()))                                                # (outputs, n)
     if not m:
         return given, f0, None, crosses
-    logarithmic = pl.calc.jacobian(ys, **_arguments(pl.calc, arrays, statics))
-    missing = [name for name in given if name not in logarithmic]
-    if missing:
-        raise ValueError(f"{pl.calc.name}: the declared Jacobian gives no derivatives of {', '.join(missing)}")
+    logarithmic = pl.calc.jacobian(ys, **arguments)
     zero = np.zeros(n)                   # an input absent from an output's mapping: it does not depend on it
-    # each derivative an array shaped like the inputs (n,), as the declaration promises: any other
-    # shape is a declaration's bug, which numpy refuses here (an inhomogeneous shape)
-    terms = np.array([[logarithmic[name].get(wrt, zero) for wrt in pl.perturbed] for name in given],
-                     dtype=float)                                                    # (outputs, m, n)
+    try:
+        # each derivative an array shaped like the inputs (n,), as the declaration promises: any
+        # other shape is a declaration's bug, which numpy refuses here (a 0-d array or a wrong size)
+        terms = np.concatenate([logarithmic[name].get(wrt, zero) for name in given for wrt in pl.perturbed],
+                               dtype=float).reshape(len(given), m, n)                # (outputs, m, n)
+    except KeyError:
+        missing = [name for name in given if name not in logarithmic]
+        raise ValueError(f"{pl.calc.name}: the declared Jacobian gives no derivatives of {', '.join(missing)}") \
+            from None
     terms *= f0[:, None, :]              # df/dx = f d ln f / dx, for every output and input at once
     terms *= spread
     return given, f0, terms, crosses
@@ -440,8 +444,8 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
         cols[pl.fill_rows, pl.fill_cols, :] = block.reshape(WIDTH * m, n)
         crosses = ~inside[WIDTH:].all(axis=0)
     ones = (1,) * len(trail)
-    ys = _call(pl.calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k]
-                         for k, name in enumerate(pl.names)}, statics, (p, n) + trail)
+    ys = _call(pl.calc, _arguments(pl.calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k]
+                                             for k, name in enumerate(pl.names)}, statics), (p, n) + trail)
     given = tuple(ys)
     if not given:
         return given, None, None, None, None, crosses
@@ -499,14 +503,14 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
     x = np.array([_broadcast(q.value, (n,)) for q in qs], dtype=float)              # (Q, n)
     sides = np.array([[_broadcast(q.sigma_minus, (n,)) for q in qs],
                       [_broadcast(q.sigma_plus, (n,)) for q in qs]], dtype=float)   # (2, Q, n)
-    uncertain = np.flatnonzero((sides > 0).any(axis=(0, 2)))
+    uncertain = (sides > 0).any(axis=(0, 2)).nonzero()[0]
     perturbed = tuple(names[k] for k in uncertain.tolist())
     m = len(perturbed)
     pl = plan(calc, names, perturbed)
     r = correlation_matrix(list(perturbed), options.correlations) if options.correlations else None
     if r is not None and np.count_nonzero(r) == m:
         r = None                                                                     # the identity
-    sm, sp = sides[0, pl.rows], sides[1, pl.rows]                                   # (m, n)
+    sm, sp = sides[:, pl.rows]                                                       # (m, n) each
     spread = 0.5 * (sm + sp)                                                         # Measured.sigma, for all at once
     keep = (options.covariance and not trail) or options.budget
     if n <= LINEAR_CHUNK:
@@ -537,7 +541,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
             # are compared instead (a branch or kink between them, or strong curvature)
             loose = np.where(wraps, curvature > LINEAR_TRUST_LIMIT * sigma, loose)
         # f0 + sigma is finite exactly where both are (sigma >= 0 or NaN)
-        flagged = np.count_nonzero(loose) or not np.isfinite(f0 + sigma).all()
+        flagged = np.count_nonzero(loose) or np.count_nonzero(np.isfinite(f0 + sigma)) < f0.size
         if flagged:
             finite = np.isfinite(f0)
             defined = np.isfinite(sigma) | ~finite
@@ -566,7 +570,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
     if m:
         crosses = joined(5, 1)
         asymmetric = sm != sp
-        if crosses.any() or asymmetric.any():
+        if np.count_nonzero(crosses) or np.count_nonzero(asymmetric):
             for j, name in enumerate(perturbed):
                 if crosses[j].any():
                     warnings.append(_crosses(calc, name, crosses[j]))
@@ -727,7 +731,7 @@ def _run(calc, quantities, draws, statics, n, s, trail) -> tuple[dict[str, np.nd
         d = np.where(inside, d, np.nan)
         col0 = _broadcast(q.value, (n,))[:, None]
         arrays[name] = np.concatenate([col0, d], axis=1).reshape((n, s + 1) + (1,) * len(trail))
-    ys = _call(calc, arrays, statics, (n, s + 1) + trail)
+    ys = _call(calc, _arguments(calc, arrays, statics), (n, s + 1) + trail)
     for y in ys.values():
         valid &= np.isfinite(y[:, 1:]).reshape(n, s, -1).all(axis=2)
     return ys, valid
