@@ -414,7 +414,7 @@ RESPONSE_NAMES = {400: "Malformed", 404: "NotFound", 405: "MethodNotAllowed", 40
 PLOT_400 = {"MalformedSeriesPlot": "plot naming a series output (without plot the figure draws the series)",
             "MalformedNoCurve": "format=svg or png without plot (this calculation draws no curve: plot names the "
                                 "output to draw)"}
-BATCH_400 = PROBLEM_TEXT[400] + ", a table that cannot be read, or the options parameter with a JSON body"
+BATCH_400 = PROBLEM_TEXT[400] + ", a table that cannot be read, or the options or keep parameter with a JSON body"
 BATCH_422 = PROBLEM_TEXT[422] + (", for the batch as a whole: neither or both of systems and columns, columns of "
                                  "different lengths, a bad option")
 BATCH_RESPONSES = {400: "BatchMalformed", 406: "NotAcceptable", 413: "TooLarge", 415: "UnsupportedMediaType",
@@ -608,7 +608,7 @@ def _batch_path(calc: Calculation, ex: dict) -> dict:
         "operationId": f"batch_{key}",
         "summary": f"{calc.title}: many systems",
         "tags": ["batch"],
-        "parameters": [{"$ref": "#/components/parameters/options"}],
+        "parameters": [{"$ref": "#/components/parameters/options"}, {"$ref": "#/components/parameters/keep"}],
         "requestBody": {"required": True, "content": {
             media.JSON: {"schema": _ref(f"{key}_batch_request"), "example": ex["batch_request"]}, **TABLES}},
         "responses": {
@@ -655,7 +655,9 @@ COMPONENTS["BatchColumnsAnswer"] = {
             "rejected_fraction": {"oneOf": [{"type": "number"}, NULLABLE_NUMBERS]}}},
         "warnings": {"type": "array", "items": _ref("ColumnWarning")},
         "provenance": _ref("Provenance"),
-        "correlation": _ref("ColumnsCorrelation")}}
+        "correlation": _ref("ColumnsCorrelation"),
+        "kept": {"type": "object", "description": "a table request's columns named in keep, as they were sent",
+                 "additionalProperties": {"type": "array", "items": {"type": ["number", "string", "null"]}}}}}
 
 
 COMPONENTS["BatchAnswer"] = {
@@ -834,7 +836,14 @@ def build_spec() -> dict:
                             "description": "with a table body (Arrow, CSV, ECSV): the options of the whole batch, "
                                            "a URL-encoded JSON object with the members of a JSON body's options "
                                            "(a JSON body carries its own: with one, this parameter is a 400)",
-                            "content": {media.JSON: {"schema": _ref("BatchOptions")}}}},
+                            "content": {media.JSON: {"schema": _ref("BatchOptions")}}},
+                "keep": {"name": "keep", "in": "query", "required": False,
+                         "description": "with a table body (Arrow, CSV, ECSV): columns of your own (a name, a "
+                                        "catalogue number), comma-separated, carried as they are into the answer: "
+                                        "first in an answer table, under kept in a JSON answer (a JSON body: 400; "
+                                        "an input's column, one the table lacks or one named like an answer "
+                                        "column: 422)",
+                         "schema": {"type": "string", "examples": ["name,hip"]}}},
             "headers": {"Content-Encoding": {"description": "gzip when the request's Accept-Encoding asks for it",
                                              "schema": {"type": "string", "enum": ["gzip"]}}},
             "responses": _shared_responses(examples),

@@ -18,14 +18,15 @@ and, for Monte Carlo, ``NAME_low`` and ``NAME_high``, then ``error_status``, ``e
 ephemeris) follow as JSON text, and per-system parts of the uncertainty as ``uncertainty_<key>``.
 The calculation, the batch's uncertainty and the provenance are table metadata (JSON text in the
 Arrow schema metadata, a mapping in the ECSV header; plain CSV has no place for them).  Series
-outputs are Arrow list columns; CSV and ECSV cannot hold them.
+outputs are Arrow list columns; CSV and ECSV cannot hold them.  Columns of the caller's own (a
+name, a catalogue number) named in ``keep`` come first, as they were sent (:func:`kept_columns`).
 """
 
 from __future__ import annotations
 
 import io
 import json
-from typing import Any, Mapping
+from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
@@ -41,6 +42,7 @@ TABLE_TYPES = (ARROW, CSV, ECSV)
 MEDIA_TYPES = (JSON, *TABLE_TYPES)
 
 UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
+ANSWER_MEMBERS = frozenset({"sigma", "low", "high", "budget"})     # an output's columns NAME_<member>...
 ERROR_COLUMNS = ("error_status", "error", "warnings")
 UNCERTAINTY_PREFIX = "uncertainty_"
 _ECSV_SIGNATURE = "# %ECSV"
@@ -71,13 +73,51 @@ def read_request(data: bytes, media_type: str, calc: Calculation, options: Mappi
     ``options`` are the batch's options (``uncertainty``, ``units``, ``correlations``...); a member
     named after an input (a series such as an ephemeris' ``times``, or one value for every system)
     joins the columns.  Raises :class:`TableError` (400 unreadable, 422 a column that does not fit)."""
+    return request_body(calc, read_table(data, media_type, calc), options)
+
+
+def read_table(data: bytes, media_type: str, calc: Calculation, keep: Container[str] = ()) \
+        -> list[tuple[str, Any, str | None]]:
+    """A request table's columns as ``(name, values, unit)`` (see :func:`request_body`); those named
+    in ``keep`` as read (numbers stay numbers, text text), for :func:`kept_columns`."""
     if media_type == ARROW:
-        read = _read_arrow(data, calc)
-    elif media_type in (CSV, ECSV):
-        read = _read_text(data, calc)
-    else:
-        raise TableError(415, f"a request table is one of {', '.join(TABLE_TYPES)}, not {media_type}")
-    return request_body(calc, read, options)
+        return _read_arrow(data, calc, keep)
+    if media_type in (CSV, ECSV):
+        return _read_text(data, calc, keep)
+    raise TableError(415, f"a request table is one of {', '.join(TABLE_TYPES)}, not {media_type}")
+
+
+def kept_columns(calc: Calculation, read: list[tuple[str, Any, str | None]], keep: Sequence[str]) \
+        -> tuple[list[tuple[str, Any, str | None]], list[tuple[str, Any, str | None]]]:
+    """The columns of :func:`read_table` named in ``keep`` (the caller's own: a name, a catalogue
+    number), which :func:`encode_answer` carries into the answer, and the others; raises
+    :class:`TableError` (422) when ``keep`` names a column the table lacks, an input's, or one named
+    like a column of the answer."""
+    keep = list(dict.fromkeys(keep))
+    refused = kept_name_errors(calc, keep)
+    names = {name for name, _, _ in read}
+    absent = [name for name in keep if name not in names]
+    if absent:
+        refused.append(f"the table has no column {', '.join(map(repr, absent))}")
+    if refused:
+        raise TableError(422, "keep: " + " ".join(refused), {"keep": refused})
+    return [c for c in read if c[0] in keep], [c for c in read if c[0] not in keep]
+
+
+def kept_name_errors(calc: Calculation, keep: Sequence[str]) -> list[str]:
+    """Why columns named in ``keep`` cannot be carried (an input's column, or one whose name an
+    answer column has: an output's, ``error``, ``warnings``...); empty when they can."""
+    inputs = {spec.name for spec in calc.inputs}
+    outputs = [o.name for o in calc.outputs]
+    errors = []
+    for name in keep:
+        if column_role(name, inputs) is not None:
+            errors.append(f"{name!r} is a column of an input of {calc.name}, not one of your own")
+        elif name in ERROR_COLUMNS or name.startswith(UNCERTAINTY_PREFIX) or \
+                any(name == o or (name.startswith(o + "_") and name[len(o) + 1:].split("_")[0] in ANSWER_MEMBERS)
+                    for o in outputs):
+            errors.append(f"{name!r} is the name of a column of the answer: rename it")
+    return errors
 
 
 def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], options: Mapping | None = None) -> dict:
@@ -99,7 +139,8 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
                 sigmas.setdefault(base, {})[key] = (values, unit, name)
             else:
                 errors[name] = [f"{calc.name} has no input {name!r} (columns: inputs, NAME_sigma, "
-                                "NAME_sigma_minus, NAME_sigma_plus)"]
+                                "NAME_sigma_minus, NAME_sigma_plus; name a column of your own in keep to "
+                                "carry it into the answer)"]
     for base, members in sigmas.items():
         spec = inputs[base]
         for key, (_, _, col) in members.items():
@@ -186,7 +227,7 @@ def _quantity_values(values):
     return out
 
 
-def _read_arrow(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | None]]:
+def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
     import pyarrow as pa
 
     try:
@@ -202,7 +243,8 @@ def _read_arrow(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | No
         t = field.type
         if pa.types.is_dictionary(t):
             column, t = column.cast(t.value_type), t.value_type
-        if (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity":
+        if (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
+                and field.name not in keep:
             values = column.cast(pa.float64()).to_numpy()       # nulls become NaN
         elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
                 or pa.types.is_large_string(t) or pa.types.is_boolean(t):
@@ -214,7 +256,7 @@ def _read_arrow(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | No
     return out
 
 
-def _read_text(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | None]]:
+def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
     from astropy.io.ascii import InconsistentTableError
     from astropy.table import Table
 
@@ -244,7 +286,7 @@ def _read_text(data: bytes, calc: Calculation) -> list[tuple[str, Any, str | Non
             raise TableError(422, f"column {name} has more than one value per system", {name: ["one value per system"]})
         kind = kinds.get((column_role(name, kinds) or (name,))[0], "quantity")
         masked = np.ma.asarray(col)
-        if masked.dtype.kind in "fiu" and kind == "quantity":
+        if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
         else:
             values = masked.tolist()            # masked entries become None
@@ -286,16 +328,17 @@ def _column_values(v) -> tuple[Any, str]:
 
 # ----------------------------------------------------------------------------- answer: columns answer -> table
 
-def encode_answer(response: Mapping, media_type: str) -> bytes:
+def encode_answer(response: Mapping, media_type: str, kept: Sequence[tuple[str, Any, str | None]] = ()) -> bytes:
     """A columns answer of ``compute_batch`` (numpy arrays with NaN, or lists with None) as an Arrow
-    IPC stream, CSV or ECSV table; raises :class:`TableError` (406) for series outputs in CSV/ECSV."""
+    IPC stream, CSV or ECSV table, the ``kept`` columns of the request (see :func:`read_request`)
+    first; raises :class:`TableError` (406) for series outputs in CSV/ECSV."""
     n = int(response["count"])
     if media_type != ARROW:
         series = [name for name, entry in response["columns"].items() if isinstance(entry, dict) and
                   _is_series(entry.get("value"))]
         if series:
             raise series_refused(series)
-    cols: list[tuple[str, Any, str, str | None]] = []        # name, values, kind, unit
+    cols: list[tuple[str, Any, str, str | None]] = [(name, *_kept_values(v), unit) for name, v, unit in kept]
     extras = []
     for name, entry in response["columns"].items():
         if isinstance(entry, dict) and "value" in entry:
@@ -396,6 +439,22 @@ def _answer_values(v) -> tuple[Any, str]:
     if all(x is None or type(x) in (int, float) for x in v):
         return np.array([np.nan if x is None else x for x in v], dtype=float), "float"
     return v, "text"
+
+
+def _kept_values(v) -> tuple[Any, str]:
+    """A kept request column and its kind, as read: whole numbers (a catalogue number) "int", other
+    numbers "float", anything else "text"."""
+    if isinstance(v, np.ndarray) and v.dtype.kind == "f":
+        return v, "float"
+    kinds = set(map(type, v)) - {type(None)}
+    if kinds == {int}:
+        try:
+            return np.ma.array([0 if x is None else x for x in v], mask=[x is None for x in v], dtype=np.int64), "int"
+        except OverflowError:
+            pass
+    elif kinds and kinds <= {int, float}:
+        return np.array([np.nan if x is None else x for x in v], dtype=float), "float"
+    return [None if x is None else str(x) for x in v], "text"
 
 
 def _encode(cols: list[tuple[str, Any, str | None]], meta: dict, media_type: str) -> bytes:

@@ -371,3 +371,71 @@ def test_spreadsheet_csv_and_odd_columns(client):
     # no rows at all
     r = post_table(client, "sb2", b"period,k1,k2,eccentricity\n", tables.CSV)
     assert r.status_code == 422
+
+
+# ----------------------------------------------------------------------------- keep: the caller's own columns
+
+KEPT_CSV = ("name,hip,period,period_sigma,k1,k2,eccentricity\n"
+            "Fictional A,101,12.3,0.01,50,70,0.2\n"
+            "Fictional B,,40,0.1,30,,0.1\n"           # k2 missing: answered with an error, still named
+            "Fictional C,103,7.5,0.02,80,95,0.0\n")
+
+
+@pytest.mark.parametrize("fmt", FORMATS)
+def test_keep_carries_the_callers_columns_into_the_answer(client, fmt):
+    """A catalogue's name and number come back first, as sent (a whole number stays one), beside the
+    outputs of the same system, a failed system included; the numbers are those of the same table
+    sent without them."""
+    source = Table.read(KEPT_CSV, format="ascii.csv")
+    without = source.copy()
+    without.remove_columns(["name", "hip"])
+    bodies = {}
+    for key, table in (("kept", source), ("bare", without)):
+        if fmt == tables.ARROW:
+            arrow = pa.Table.from_pandas(table.to_pandas(), preserve_index=False)
+            sink = pa.BufferOutputStream()
+            with pa.ipc.new_stream(sink, arrow.schema) as writer:
+                writer.write_table(arrow)
+            bodies[key] = sink.getvalue().to_pybytes()
+        else:
+            out = io.StringIO()
+            table.write(out, format="ascii.ecsv" if fmt == tables.ECSV else "ascii.csv")
+            bodies[key] = out.getvalue().encode()
+    kept = client.post("/v1/batch/sb2?keep=name,hip", data=bodies["kept"], content_type=fmt, headers={"Accept": fmt})
+    bare = client.post("/v1/batch/sb2", data=bodies["bare"], content_type=fmt, headers={"Accept": fmt})
+    assert kept.status_code == 200 and bare.status_code == 200, kept.get_data(as_text=True)[:300]
+    got, ref = tables.decode_answer(kept.get_data(), fmt), tables.decode_answer(bare.get_data(), fmt)
+    if fmt == tables.ARROW:
+        answer = pa.ipc.open_stream(kept.get_data()).read_all()
+        assert answer.schema.names[:2] == ["name", "hip"]
+        assert answer.column("name").to_pylist() == ["Fictional A", "Fictional B", "Fictional C"]
+        assert pa.types.is_integer(answer.column("hip").type) or pa.types.is_floating(answer.column("hip").type)
+        hips = answer.column("hip").to_pylist()
+    else:
+        answer = Table.read(kept.get_data(as_text=True), format="ascii.ecsv" if fmt == tables.ECSV else "ascii.csv")
+        assert answer.colnames[:2] == ["name", "hip"]
+        assert list(answer["name"]) == ["Fictional A", "Fictional B", "Fictional C"]
+        assert answer["hip"].dtype.kind == "i"                     # 101, not 101.0
+        hips = np.ma.filled(answer["hip"].astype(float), np.nan).tolist()
+    assert hips[0] == 101 and hips[2] == 103 and (hips[1] is None or math.isnan(hips[1]))
+    assert got["errors"] == ref["errors"] and [e["index"] for e in got["errors"]] == [1]
+    for name, entry in ref["columns"].items():
+        for key, values in entry.items():
+            if key != "unit":
+                np.testing.assert_array_equal(got["columns"][name][key], values)
+
+
+def test_keep_in_a_json_answer_and_its_refusals(client):
+    answer = client.post("/v1/batch/sb2?keep=name,hip", data=KEPT_CSV, content_type="text/csv",
+                         headers={"Accept": "application/json"})
+    assert answer.status_code == 200
+    assert answer.get_json()["kept"] == {"name": ["Fictional A", "Fictional B", "Fictional C"], "hip": [101, None, 103]}
+    refused = client.post("/v1/batch/sb2", data=KEPT_CSV, content_type="text/csv")
+    assert refused.status_code == 422 and set(refused.get_json()["errors"]) == {"name", "hip"}
+    assert "keep" in refused.get_json()["errors"]["name"][0]             # the way out is named
+    for keep, why in (("nam", "no column 'nam'"), ("period", "an input"), ("m1_sigma", "a column of the answer"),
+                      ("error", "a column of the answer")):
+        r = client.post(f"/v1/batch/sb2?keep=name,hip,{keep}", data=KEPT_CSV, content_type="text/csv")
+        assert r.status_code == 422 and why in r.get_json()["errors"]["keep"][0], (keep, r.get_json())
+    r = client.post("/v1/batch/sb2?keep=name", json={"columns": {"period": [1.0]}})
+    assert r.status_code == 400 and "keep" in r.get_json()["errors"]

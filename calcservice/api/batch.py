@@ -13,6 +13,6 @@ bp = Blueprint("batch", __name__)
 @bp.post("/v1/batch/<name>")
 def batch(name: str):
     limits = current_app.config["CALCSERVICE_SETTINGS"].limits
-    body, answer_type = batch_body(find(name), limits)          # JSON, Arrow, CSV or ECSV
+    body, answer_type, kept = batch_body(find(name), limits)    # JSON, Arrow, CSV or ECSV
     # numpy arrays straight to the encoder: no Python float per number on the way out
-    return batch_response(compute_batch(name, body, limits, for_json=True), answer_type)
+    return batch_response(compute_batch(name, body, limits, for_json=True), answer_type, kept)

@@ -285,21 +285,30 @@ def answer_media_type(body_type: str) -> str:
 
 
 def batch_body(calc, limits):
-    """A batch request in any media type as the JSON body :func:`compute_batch` takes, and the
-    answer's media type; a table's options come from the ``options`` query parameter."""
+    """A batch request in any media type as the JSON body :func:`compute_batch` takes, the answer's
+    media type, and the request table's columns the answer carries along (the ``keep`` query
+    parameter); a table's options come from the ``options`` query parameter."""
     body_type = body_media_type()
     answer_type = answer_media_type(body_type)
     options = request.args.get("options")
+    keep = request.args.get("keep")
     if body_type == tables.JSON:
         if options is not None:
             raise Problem(400, "a JSON body carries its options itself: the options query parameter is for tables",
                           {"options": ["put the options in the JSON body"]})
+        if keep is not None:
+            raise Problem(400, "keep carries columns of a request table (Arrow, CSV, ECSV) into its answer: "
+                               "a JSON body's caller keeps its own", {"keep": ["is for table bodies"]})
         body = parse_json(read_body(limits), limits)
         if isinstance(body, dict) and "systems" in body and answer_type != tables.JSON:
             raise Problem(406, f"a rows batch (systems) answers in {tables.JSON}; send columns (a JSON columns "
                                f"body or a table) for an answer as {answer_type}",
                           {"Accept": [f"must accept {tables.JSON} for a rows batch"]})
-        return body, answer_type
+        return body, answer_type, []
+    names = [name.strip() for name in (keep or "").split(",") if name.strip()]
+    if any(len(name) > limits.max_string_length for name in names):
+        raise Problem(400, f"keep names columns of at most {limits.max_string_length} characters",
+                      {"keep": [f"a column name is longer than {limits.max_string_length} characters"]})
     data = read_body(limits)
     if body_type == tables.CSV and tables.is_ecsv(data):
         body_type = tables.ECSV
@@ -313,24 +322,28 @@ def batch_body(calc, limits):
     if not isinstance(parsed, dict):
         raise Problem(400, "the options query parameter must be a JSON object", {"options": ["must be a JSON object"]})
     try:
-        body = tables.read_request(data, body_type, calc, parsed)
+        kept, read = tables.kept_columns(calc, tables.read_table(data, body_type, calc, names), names)
+        body = tables.request_body(calc, read, parsed)
     except tables.TableError as e:
         raise Problem(e.status, e.detail, e.errors) from None
     series = [spec.name for spec in calc.inputs if spec.kind == "series" and spec.name in body["columns"]]
     if series and answer_type not in (tables.JSON, tables.ARROW):     # before the work, not after
         e = tables.series_refused([f"the outputs over {', '.join(series)}"])
         raise Problem(e.status, e.detail, e.errors)
-    return body, answer_type
+    return body, answer_type, kept
 
 
-def batch_response(response: dict, answer_type: str) -> Response:
-    """A batch answer in its media type (ECSV asked for as text/csv is labelled text/csv)."""
+def batch_response(response: dict, answer_type: str, kept=()) -> Response:
+    """A batch answer in its media type (ECSV asked for as text/csv is labelled text/csv), with the
+    request table's ``kept`` columns: first in a table, under ``kept`` in JSON."""
     if answer_type == tables.JSON:
+        if kept:
+            response["kept"] = {name: values for name, values, _ in kept}
         r = _json(response)
     else:
         table_type = tables.ECSV if answer_type == ECSV_AS_CSV else answer_type
         try:
-            data = tables.encode_answer(response, table_type)
+            data = tables.encode_answer(response, table_type, kept)
         except tables.TableError as e:
             raise Problem(e.status, e.detail, e.errors) from None
         label = tables.CSV if answer_type == ECSV_AS_CSV else answer_type
