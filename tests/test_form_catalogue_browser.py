@@ -65,7 +65,7 @@ def test_csv_catalogue_round_trip(browser, base_url, client, tmp_path):  # noqa:
     headers = _headers(browser, "catalogue-preview-table")
     assert headers["period"] == "period [d]" and headers["k1"] == "k1 [km/s] (default)"
     assert headers["eccentricity"] == "eccentricity [dimensionless] (default)"
-    assert "left out: name" in browser.find_element(By.ID, "catalogue-status").text
+    assert "carried into the results: name" in browser.find_element(By.ID, "catalogue-status").text
     rows = _compute(browser)
     assert len(rows) == 3
     # the failed row says why, in the table; the others carry the service's numbers for that system
@@ -74,6 +74,8 @@ def test_csv_catalogue_round_trip(browser, base_url, client, tmp_path):  # noqa:
     assert "2 of 3 systems answered" in browser.find_element(By.ID, "catalogue-results").text
     names = [th.text.split(" [")[0] for th in browser.find_elements(By.CSS_SELECTOR, "#catalogue-results-table thead th")]
     m1 = names.index("m1_sin3i")
+    assert names[1] == "name"           # the file's own column comes back beside each system's results (keep)
+    assert [r.find_elements(By.TAG_NAME, "td")[1].text for r in rows] == [s["name"] for s in SYSTEMS]
     for i in (0, 1):
         expected = _single(client, SYSTEMS[i])[1]["results"]["m1_sin3i"]
         cell = rows[i].find_elements(By.TAG_NAME, "td")[m1]
@@ -88,7 +90,7 @@ def test_csv_catalogue_round_trip(browser, base_url, client, tmp_path):  # noqa:
     while time.monotonic() < deadline and not saved.exists():
         time.sleep(0.2)
     table = list(csv.DictReader(io.StringIO(saved.read_text())))
-    assert len(table) == 3
+    assert len(table) == 3 and [row["name"] for row in table] == [s["name"] for s in SYSTEMS]
     for i in (0, 1):
         expected = _single(client, SYSTEMS[i])[1]["results"]
         assert float(table[i]["m1_sin3i[solMass]"]) == expected["m1_sin3i"]["value"]

@@ -1194,7 +1194,7 @@
   }
 
   function withoutColumns(text, table, dropped) {
-    // the file's own text less the columns that are not inputs (the service refuses unknown columns):
+    // the file's own text less the columns the service would refuse (see answerColumn):
     // their cells, and in an ECSV header their datatype entries (astropy's one-line form)
     if (!dropped.size) return text;
     const delimiter = table.delimiter;
@@ -1235,6 +1235,14 @@
     return inputs[stem] ? stem : null;
   }
 
+  function answerColumn(name) {
+    // a column named like one of the answer's, which the service will not carry along (keep): the
+    // rule of calcservice.tables.kept_name_errors; a name with a comma cannot be listed in keep
+    return name.includes(",") || ["error_status", "error", "warnings"].includes(name) || name.startsWith("uncertainty_") ||
+      state.calc.outputs.some((o) => name === o.name || (name.startsWith(o.name + "_") &&
+        ["sigma", "low", "high", "budget"].includes(name.slice(o.name.length + 1).split("_")[0])));
+  }
+
   async function readCatalogue(file) {
     resetCatalogue(true);
     const text = await file.text();
@@ -1244,8 +1252,10 @@
       return;
     }
     const inputs = Object.fromEntries(state.calc.inputs.map((i) => [i.name, i]));
-    const ignored = table.columns.map((c) => c.name).filter((n) => !inputColumn(inputs, n));
-    state.catalogue = { file: file.name, table, text: withoutColumns(text, table, new Set(ignored)) };
+    // the file's own columns (a name, a catalogue number) travel with it and come back beside the results
+    const own = table.columns.map((c) => c.name).filter((n) => !inputColumn(inputs, n));
+    const kept = own.filter((n) => !answerColumn(n)), dropped = own.filter(answerColumn);
+    state.catalogue = { file: file.name, table, kept, text: withoutColumns(text, table, new Set(dropped)) };
     const head = el("tr", {}, [el("th", { text: "#" })].concat(table.columns.map((c) => {
       const stem = inputColumn(inputs, c.name);
       const unit = c.unit !== undefined ? c.unit : stem ? inputs[stem].unit : undefined;
@@ -1257,7 +1267,8 @@
     $("catalogue-preview").append(el("h3", { text: `${file.name}: the first ${Math.min(PREVIEW_ROWS, table.rows.length)} of ${table.rows.length} rows, as read` }),
       el("table", { class: "catalogue", id: "catalogue-preview-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     const notes = [`${table.rows.length} systems, ${table.ecsv ? "ECSV (units from its header)" : "CSV"}.`];
-    if (ignored.length) notes.push(`Columns that are not inputs of ${state.calc.name}, left out: ${ignored.join(", ")}.`);
+    if (kept.length) notes.push(`Columns of your own, carried into the results: ${kept.join(", ")}.`);
+    if (dropped.length) notes.push(`Columns named like columns of the results, left out: ${dropped.join(", ")}.`);
     $("catalogue-status").textContent = notes.join(" ");
     $("catalogue-compute").disabled = table.rows.length === 0;
   }
@@ -1273,7 +1284,10 @@
     $("catalogue-status").textContent = `Computing ${cat.table.rows.length} systems…`;
     try {
       const options = catalogueOptions();
-      const query = Object.keys(options).length ? `?options=${encodeURIComponent(JSON.stringify(options))}` : "";
+      const params = [];
+      if (Object.keys(options).length) params.push(`options=${encodeURIComponent(JSON.stringify(options))}`);
+      if (cat.kept.length) params.push(`keep=${encodeURIComponent(cat.kept.join(","))}`);
+      const query = params.length ? `?${params.join("&")}` : "";
       const r = await fetch(`v1/batch/${state.calc.name}${query}`, {
         method: "POST", headers: { "Content-Type": "text/csv", Accept: "text/csv" }, body: cat.text });
       const ctype = r.headers.get("Content-Type") || "";
@@ -1297,13 +1311,14 @@
   }
 
   function renderCatalogue(cat) {
-    // the answer table's columns: NAME, NAME_sigma (Monte Carlo: NAME_low, NAME_high), error_status, error, warnings
+    // the answer table's columns: the kept ones (the file's own), NAME, NAME_sigma (Monte Carlo: NAME_low, NAME_high), error_status, error, warnings
     const { table } = cat.answer;
     const index = Object.fromEntries(table.columns.map((c, k) => [c.name, k]));
-    const names = table.columns.map((c) => c.name).filter((n) => !/_(sigma|low|high)$/.test(n) && !["error_status", "error", "warnings"].includes(n));
+    const kept = new Set(cat.kept);
+    const names = table.columns.map((c) => c.name).filter((n) => !kept.has(n) && !/_(sigma|low|high)$/.test(n) && !["error_status", "error", "warnings"].includes(n));
     const cell = (row, name) => (index[name] === undefined ? null : row[index[name]]);
     const number = (x) => (x === null || x === undefined || !NUMBER.test(x) ? null : Number(x));
-    const head = el("tr", {}, [el("th", { text: "#" }), el("th", { text: "error" })].concat(names.map((k) => el("th", {}, [document.createTextNode(k),
+    const head = el("tr", {}, [el("th", { text: "#" })].concat(cat.kept.map((k) => el("th", { text: k })), [el("th", { text: "error" })], names.map((k) => el("th", {}, [document.createTextNode(k),
       el("span", { class: "unit", text: unitLabel(table.columns[index[k]].unit) })])), [el("th", { text: "warnings" })]));
     const rows = [];
     let failed = 0;
@@ -1311,8 +1326,8 @@
       const error = cell(row, "error"), status = cell(row, "error_status");
       if (error || status) failed++;
       if (i >= SHOWN_ROWS) return;
-      const cells = [el("td", { text: String(i + 1) }),
-        el("td", { class: "row-error", text: error || status ? `${status || ""}: ${error || ""}` : "" })];
+      const cells = [el("td", { text: String(i + 1) })].concat(cat.kept.map((k) => el("td", { class: "kept", text: cell(row, k) ?? "" })),
+        [el("td", { class: "row-error", text: error || status ? `${status || ""}: ${error || ""}` : "" })]);
       for (const k of names) {
         const entry = { value: number(cell(row, k)) };
         for (const m of ["sigma", "low", "high"]) if (index[`${k}_${m}`] !== undefined) entry[m] = number(cell(row, `${k}_${m}`));
