@@ -439,3 +439,19 @@ def test_keep_in_a_json_answer_and_its_refusals(client):
         assert r.status_code == 422 and why in r.get_json()["errors"]["keep"][0], (keep, r.get_json())
     r = client.post("/v1/batch/sb2?keep=name", json={"columns": {"period": [1.0]}})
     assert r.status_code == 400 and "keep" in r.get_json()["errors"]
+
+
+def test_a_missing_value_with_its_sigma_given_is_called_missing(client):
+    """An empty cell (a masked ECSV entry, an Arrow null) under a sigma that is given: the system's
+    error says the value is missing, not that it is no number."""
+    table = Table({"period": [12.3, 12.3], "k1": [50.0, 50.0], "k2": MaskedColumn([0.0, 70.0], mask=[True, False]),
+                   "k2_sigma": [0.5, 0.5], "eccentricity": [0.2, 0.2]})
+    out = io.StringIO()
+    table.write(out, format="ascii.ecsv")
+    answer = client.post("/v1/batch/sb2", data=out.getvalue(), content_type="text/csv",
+                         headers={"Accept": "application/json"}).get_json()
+    assert [e["index"] for e in answer["errors"]] == [0]
+    assert "missing" in answer["errors"][0]["errors"]["k2"][0]
+    single = client.post("/v1/spectroscopic/sb2", json={"period": 12.3, "k1": 50, "k2": {"value": None, "sigma": 0.5},
+                                                        "eccentricity": 0.2})
+    assert single.status_code == 422 and "missing" in single.get_json()["errors"]["k2"][0]

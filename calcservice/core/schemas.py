@@ -31,6 +31,8 @@ def number(x: Any, what: str = "value") -> float:
     """A finite float from a JSON number; booleans, strings and overflowing numbers are refused."""
     if type(x) is float and x - x == 0:          # the common case: a finite float
         return x
+    if x is None:
+        raise ValidationError(f"{what} is missing (null or an empty cell): give a number")
     if isinstance(x, bool) or not isinstance(x, (int, float)):
         raise ValidationError(f"{what} must be a number")
     try:
