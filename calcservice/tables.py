@@ -139,8 +139,8 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
                 sigmas.setdefault(base, {})[key] = (values, unit, name)
             else:
                 errors[name] = [f"{calc.name} has no input {name!r} (columns: inputs, NAME_sigma, "
-                                "NAME_sigma_minus, NAME_sigma_plus; name a column of your own in keep to "
-                                "carry it into the answer)"]
+                                f"NAME_sigma_minus, NAME_sigma_plus); a column of your own: ?keep={name} "
+                                "carries it into the answer"]
     for base, members in sigmas.items():
         spec = inputs[base]
         for key, (_, _, col) in members.items():
