@@ -182,7 +182,9 @@ the machine-readable description is <a href="/openapi.yaml">openapi.yaml</a>; li
 (Monte Carlo: the median, and <code>low</code>/<code>high</code> of the central 68.27 % interval).
 Errors are RFC 9457 problem details naming the fields. <code>?format=latex</code> or <code>markdown</code>
 gives the derivation report, <code>svg</code> or <code>png</code> a figure.
-<code>POST /v1/batch/NAME</code> takes many systems as rows or columns (JSON, Arrow, CSV or ECSV).</p>
+<code>POST /v1/batch/NAME</code> takes many systems as rows or columns (JSON, Arrow, CSV or ECSV); with a
+table, <code>?options=</code> carries the batch's options as JSON and <code>?keep=name,hip</code> brings columns of
+your own back beside each system's results.</p>
 </section>
 <nav><h2>Calculations</h2><ul class="index">{index}</ul></nav>
 {body}
