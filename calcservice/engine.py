@@ -364,10 +364,11 @@ def _differentiate(pl: Plan, x, sm, sp, spread, r, statics, trail, keep_terms: b
         return given, None, None, None, None, crosses
     if not m:
         return given, f0, np.zeros_like(f0), np.zeros((len(given), 0, n) + trail), None, crosses
-    exact = np.count_nonzero(spread > 0) < spread.size
+    counts = spread > 0
+    exact = np.count_nonzero(counts) < counts.size
     if exact:
         # an exact input in a row does not count, even where f' is undefined
-        counts = (spread > 0).reshape((1, m, n) + (1,) * len(trail))
+        counts = counts.reshape((1, m, n) + (1,) * len(trail))
         terms = np.where(counts, terms, 0.0)
     var = _quadratic(terms, r)
     if one_sided is not None and not np.isfinite(var).all():
