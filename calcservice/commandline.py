@@ -3,7 +3,7 @@
     calcservice compute sb1 period=41.6+-0.02 k1=23.4+-0.3km/s eccentricity=0.31
     calcservice compute sb2 ... --method monte-carlo --samples 20000 --seed 7
     calcservice compute sb2 ... --format latex > table.tex
-    calcservice compute sb1 --in catalogue.ecsv --out results.fits --id star
+    calcservice compute sb1 --in catalogue.ecsv --out results.fits --keep star,hip
 
 Values are ``NAME=VALUE[+-SIGMA][UNIT]`` (``±`` and ``+/-`` also work), asymmetric
 ``NAME=VALUE+PLUS-MINUS[UNIT]``, ``inclination=isotropic``, ISO 8601 dates for times,
@@ -22,6 +22,7 @@ import math
 import re
 import sys
 import types
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -305,14 +306,14 @@ def declaration(calc: Calculation) -> dict:
                                           for i in calc.inputs]}
 
 
-def read_catalogue(calc: Calculation, path: str, id_column: str | None):
-    """A catalogue file as the client's :class:`~calcservice.client.InputTable`, the identifiers and the row count.
+def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
+    """A catalogue file as the client's :class:`~calcservice.client.InputTable` (its ``kept`` columns: ``keep``).
 
     CSV, ECSV, FITS or VOTable by extension, read by ``astropy.table.Table.read``.  Columns are named
     after inputs, in the unit the file gives (ECSV, FITS and VOTable units; ``period[yr]`` in a CSV
     header), else the input's default unit; ``NAME_sigma`` (or ``NAME_sigma_minus`` and
     ``NAME_sigma_plus``) hold uncertainties in the unit of NAME.  Empty cells and masked entries are
-    missing: that system's error, in place.  Any other column is refused unless it is the ``--id`` column.
+    missing: that system's error, in place.  Any other column is refused unless ``--keep`` names it.
     """
     from astropy.table import Table
 
@@ -337,31 +338,25 @@ def read_catalogue(calc: Calculation, path: str, id_column: str | None):
                                  f"{reason}") from None
     if len(table) == 0:
         raise UsageError("--in", f"{path} has a header but no rows")
-    if id_column is not None and id_column not in table.colnames:
-        raise UsageError("--id", f"{path} has no column {id_column!r}")
+    absent = [name for name in keep if name not in table.colnames]
+    if absent:
+        raise UsageError("--keep", f"{path} has no column {absent[0]!r}")
     inputs = {i.name: i for i in calc.inputs}
     for label in table.colnames:
-        if label == id_column:
+        if label in keep:
             continue
         role = column_role(split_unit(label)[0], inputs)
         if role is None:
             raise UsageError(label, f"unknown column in {path}: {calc.name} takes {_input_names(calc)} "
-                                    "(NAME_sigma for uncertainties; --id COLUMN for an identifier)")
+                                    "(NAME_sigma for uncertainties; --keep COLUMN to copy a column to the results)")
         if inputs[role[0]].kind == "series":
             raise UsageError(role[0], f"{role[0]} is a list for each system and cannot be a column; "
                                       f"give it as {role[0]}=v1,v2,... on the command line")
     try:
-        data = InputTable.from_data(table, declaration(calc), keep=[id_column] if id_column else [],
-                                    require_units=False)
+        return InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
     except ValueError as e:
         field, _, message = str(e).partition(": ")
         raise UsageError(field, f"{message} ({path})") from None
-    ids = None
-    if id_column is not None:
-        col = data.kept[id_column]
-        mask = getattr(col, "mask", None)
-        ids = ["" if mask is not None and bool(np.asarray(mask)[k]) else str(v) for k, v in enumerate(col)]
-    return data, ids, data.count
 
 
 def _has(module: str) -> bool:
@@ -438,9 +433,9 @@ def failure_summary(result) -> str:
     return f"{failed} failed: " + "; ".join(shown)
 
 
-def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None, id_column: str | None) -> int:
+def write_catalogue(path: str, result, calc: Calculation) -> int:
     """The batch result as a table, one row per system in input order, in the format ``path``'s extension
-    names ("-": CSV on standard output): per output ``NAME``, ``NAME_sigma`` (and ``NAME_low``,
+    names ("-": CSV on standard output): the kept columns as read, per output ``NAME``, ``NAME_sigma`` (and ``NAME_low``,
     ``NAME_high`` for Monte Carlo) with units (``NAME[unit]`` headers in CSV), empty or masked where a
     system failed, then ``error_status``, ``error`` (what was wrong) and ``warnings`` (codes joined by
     ``;``).  Returns the number of failed systems."""
@@ -452,8 +447,6 @@ def write_catalogue(path: str, result, calc: Calculation, ids: list[str] | None,
         if isinstance(e.get("index"), int):
             status[e["index"]] = int(e.get("status") or 422)
     table.add_column(MaskedColumn(status, mask=status == 0), name="error_status", index=table.colnames.index("error"))
-    if ids is not None:
-        table.add_column(ids, name=id_column, index=0)
     table.meta = {"calculation": calc.name}
     if fmt == "ascii.csv":
         # plain CSV has no unit metadata: the unit goes into the header, as the reader takes it
@@ -525,7 +518,8 @@ def _compute_or_raise(args, limits) -> int:
                                          "--format applies to one system")
         if args.out != "-":
             table_format(args.out, "--out")          # refused before any work
-        data, ids, rows = read_catalogue(calc, args.input, args.id)
+        data = read_catalogue(calc, args.input, [name for names in args.keep or () for name in names])
+        rows = data.count
         shared = {}
         for name in list(body):
             if name in data.columns:
@@ -536,7 +530,8 @@ def _compute_or_raise(args, limits) -> int:
         if fmt == "json":
             answers = result.responses
             print(json.dumps(answers[0] if len(answers) == 1 else answers, indent=2, allow_nan=False))
-        failed = write_catalogue(args.out, result, calc, ids, args.id)
+        result.kept = data.kept
+        failed = write_catalogue(args.out, result, calc)
         if args.out != "-":
             print(f"{rows - failed} of {rows} systems computed; {failure_summary(result)} -> {args.out}",
                   file=sys.stderr)
@@ -550,6 +545,14 @@ def _compute_or_raise(args, limits) -> int:
     else:
         sys.stdout.write(table(response, calc))
     return 0
+
+
+def _names(text: str) -> list[str]:
+    """``--keep star,hip``: the column names, in order."""
+    names = [name.strip() for name in text.split(",")]
+    if not all(names):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a comma-separated list of column names")
+    return names
 
 
 def _one_line_error(self, message: str):
@@ -602,7 +605,9 @@ def add_compute(subparsers) -> argparse.ArgumentParser:
                    "extension names (.csv, .ecsv, .fits, .vot; '-' for CSV on stdout)")
     p.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                    help="a progress bar for the catalogue (default: on a terminal, from 20000 systems)")
-    p.add_argument("--id", metavar="COLUMN", help="an identifier column of the catalogue, copied to the results")
+    p.add_argument("--keep", "--id", dest="keep", action="append", type=_names, metavar="COLUMN[,COLUMN]",
+                   help="columns of the catalogue that are no input (a name, a catalogue number), copied to the "
+                        "results as they are (repeatable)")
     p.add_argument("--describe", action="store_true", help="show the calculation's inputs and outputs")
     p.add_argument("--list", action="store_true", help="list the calculations")
     p.set_defaults(func=_compute)

@@ -79,6 +79,42 @@ def test_every_format_in_and_out(tmp_path, capsys, reference, fmt_in, fmt_out):
     assert f"{60 - len(failed)} of 60 systems computed" in err
 
 
+@pytest.mark.parametrize("fmt", ["csv", "fits"])
+def test_kept_columns_come_back_as_they_were(tmp_path, capsys, reference, fmt):
+    # --keep (alias --id) carries any number of columns, as ?keep= does over HTTP: a name stays text, a
+    # catalogue number an integer, and the numbers are those of the same table without them
+    t, expected = reference
+    t = t.copy()
+    t["hip"] = np.arange(60, dtype=np.int64) * 1000 + 17
+    src, dst = tmp_path / f"cat.{fmt}", tmp_path / f"results.{fmt}"
+    write_input(t, src, fmt)
+    code, _, err = run(capsys, "sb1", "--in", str(src), "--out", str(dst), "--keep", "star,hip")
+    assert code == 0, err
+    back = Table.read(dst, format=FORMATS[fmt])
+    assert back.colnames[:2] == ["star", "hip"]
+    assert list(back["star"]) == list(t["star"]) and back["hip"].dtype.kind == "i"
+    assert list(back["hip"]) == list(t["hip"])
+    m2_min = back["m2_min[solMass]"] if fmt == "csv" else back["m2_min"]
+    got = np.ma.filled(np.ma.asarray(m2_min, dtype=float), np.nan)
+    np.testing.assert_allclose(got, expected["m2_min"], rtol=1e-12, equal_nan=True)
+    # the same with the option given twice, the old name for one of them
+    code, _, err = run(capsys, "sb1", "--in", str(src), "--out", str(dst), "--id", "star", "--keep", "hip")
+    assert code == 0, err
+    assert Table.read(dst, format=FORMATS[fmt]).colnames[:2] == ["star", "hip"]
+
+
+def test_a_kept_column_the_file_lacks_is_one_line(tmp_path, capsys):
+    fictional_catalogue(5).write(tmp_path / "cat.ecsv")
+    code, _, err = run(capsys, "sb1", "--in", str(tmp_path / "cat.ecsv"), "--out", str(tmp_path / "o.csv"),
+                       "--keep", "star,hd")
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "--keep" in err and "'hd'" in err
+    assert not (tmp_path / "o.csv").exists()
+    with pytest.raises(SystemExit) as stop:                   # argparse's own error, one line
+        run(capsys, "sb1", "--in", str(tmp_path / "cat.ecsv"), "--out", str(tmp_path / "o.csv"), "--keep", "star,,hd")
+    err = capsys.readouterr().err
+    assert stop.value.code == 2 and "--keep" in err and "comma-separated" in err
+
+
 def test_units_come_from_the_file(tmp_path, capsys):
     # astropy: 41.6 d = 998.4 h; 23.4 km/s = 23400 m/s
     t = QTable({"period": [998.4] * u.h, "k1": [23400.0] * u.m / u.s, "eccentricity": [0.31]})
