@@ -79,6 +79,48 @@ def test_apsidal_motion_in_the_event_dates():
     assert [x["value"] for x in r["periastron"]] == pytest.approx([x["value"] for x in base], abs=1e-9)
 
 
+def _event_roots(target, lo, hi, **orbit):
+    """Every date in [lo, hi] with nu(t) + omega(t) = target (deg), by brentq on a fine grid (independent)."""
+    def x(t):
+        _, nu, w = _rv1_direct(t, **orbit)
+        return nu + w - math.radians(target)
+
+    def f(t):
+        return math.sin(x(t))          # continuous where nu wraps; zero at the event and half a turn from it
+
+    grid = [lo + (hi - lo) * k / 4000 for k in range(4001)]
+    values = [f(t) for t in grid]
+    roots = [brentq(f, a, b, xtol=1e-12) for a, b, fa, fb in zip(grid, grid[1:], values, values[1:]) if fa * fb < 0]
+    return [t for t in roots if math.cos(x(t)) > 0]
+
+
+@pytest.mark.parametrize("wdot, years", [(10.0, 100.0), (-10.0, 100.0), (3.6, 2000.0)])
+def test_events_after_many_turns_of_the_apsides_are_the_first_after_after(wdot, years):
+    # omega has turned by 1000 deg or more since T0: the conjunctions and RV extrema listed are still the
+    # first ones at or after `after`, as a root search over the cycles around it finds them
+    after = T0 + years * JULIAN_YEAR_D + 0.37
+    r = compute("ephemeris", _body(omega_dot=wdot, after=after, count=2))["results"]["events"]
+    for group, kinds in (("conjunctions", {"conjunction_star2_in_front": 90.0, "conjunction_star1_in_front": 270.0}),
+                         ("rv_extrema", {"rv1_maximum": 0.0, "rv1_minimum": 180.0})):
+        for kind, target in kinds.items():
+            got = [x["value"] for x in r[group] if x["kind"] == kind]
+            roots = [t for t in _event_roots(target, after - 2 * P, after + 3 * P, wdot=wdot) if t >= after]
+            assert got == pytest.approx(roots[:2], abs=1e-7), kind
+
+
+def test_fast_apsidal_motion_dates_to_the_last_digit():
+    # omega_dot P = 16 deg per cycle (a test of the iteration, not a real system): each date solves
+    # nu(t) + omega(t) = 90 or 270 deg to the root finder's precision, not to a fixed number of passes
+    orbit_ = {"p": 30.0, "e": 0.3, "w0": 50.0, "wdot": 200.0}
+    after = T0 + 500.0
+    r = compute("ephemeris", _body(period=30.0, eccentricity=0.3, omega=50.0, omega_dot=200.0, after=after,
+                                   count=3))["results"]["events"]["conjunctions"]
+    for entry in r:
+        target = 90.0 if entry["kind"] == "conjunction_star2_in_front" else 270.0
+        roots = _event_roots(target, entry["value"] - 1.0, entry["value"] + 1.0, **orbit_)
+        assert len(roots) == 1 and entry["value"] == pytest.approx(roots[0], abs=2e-9)
+
+
 def test_apsidal_motion_uncertainty_moves_the_conjunctions():
     # sigma of a conjunction date from sigma(omega_dot) alone: |d t / d omega_dot| sigma, with the derivative
     # by an independent central difference of the service's own dates

@@ -183,6 +183,18 @@ def test_events_start_at_after_and_are_time_ordered():
     assert ev["periastron"][0]["value"] == pytest.approx(T0 + 4 * P)
 
 
+def test_an_event_on_after_itself_is_the_first():
+    # "at or after": a periastron that falls on `after` to the last bit is listed, although the elapsed
+    # cycles (after - T0)/P round to 3750.0000000000005 (the date itself, T0 + 3750 P, is exact here)
+    period, t0 = 2.8, 2450000.0
+    after = t0 + 3750 * period
+    assert after == 2460500.0 and (after - t0) / period > 3750
+    q = {"period": Measured.exact(period), "t_periastron": Measured.exact(t0), "eccentricity": Measured.exact(0.1),
+         "omega": Measured.exact(30.0), "k1": Measured.exact(10.0), "after": Measured.exact(after)}
+    ev = events_of(q, {"times": np.array([after]), "count": 2})
+    assert [x["value"] for x in ev["periastron"]] == [after, after + period]
+
+
 def _root(fun, lo, hi):
     return brentq(fun, lo, hi, xtol=1e-10)
 

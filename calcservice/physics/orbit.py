@@ -199,7 +199,7 @@ def event_phase(kind, eccentricity, omega_deg):
     return phase, d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI
 
 
-_APSIDAL_ITERATIONS = 4   # omega moves by omega_dot P / 360 deg per cycle: each pass gains that factor in accuracy
+_APSIDAL_PASSES = 200   # each pass gains about the factor P omega_dot dphi/domega (~ omega_dot P / 360 deg) in accuracy
 
 
 def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot=None, period_derivative=None):
@@ -207,23 +207,29 @@ def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot
 
     t = T0 + P (c + Pdot c^2 / 2) with c = n + phi the cycles since T0 (:func:`cycle_time`);
     phi = raw_phase(omega(t)) - floor(raw_phase(omega)), continuous in omega, at omega(t) of the
-    apsidal motion (:func:`omega_at`), found by fixed-point iteration since the date moves omega; n is
-    the whole number of cycles, the smallest with t >= after.  Arrays over N systems with a trailing
-    axis of 1 in, (N, count) arrays out: (time, cycles, omega at each date in deg).
+    apsidal motion (:func:`omega_at`), found by fixed-point iteration to the last digit since the
+    date moves omega; n is the whole number of cycles, the smallest with t >= after.  Arrays over N
+    systems with a trailing axis of 1 in, (N, count) arrays out: (time, cycles, omega at each date in deg).
     """
     wdot, pdot = omega_dot, period_derivative
     base = np.floor(raw_phase(omega))
     phi = raw_phase(omega) - base
-    n = np.ceil(elapsed_cycles(after, period, t_periastron, pdot) - phi) + np.arange(count)
-    for _ in range(2):    # the second pass: n one cycle on where rounding left the first date before `after`
+    # n from the phase at omega(after): apsidal motion since T0 may have moved the event by many
+    # cycles, but by less than one between `after` and the event.  One cycle early, since rounding
+    # can put the estimate one past the event that falls on `after` itself; the passes below move on.
+    phi_after = raw_phase(omega_at(after, omega, t_periastron, wdot)) - base
+    n = np.ceil(elapsed_cycles(after, period, t_periastron, pdot) - phi_after) - 1.0 + np.arange(count)
+    for _ in range(3):
         cycles = n + phi
         time = cycle_time(cycles, period, t_periastron, pdot)
         w_t = omega + np.zeros_like(time)
         if wdot is not None:
-            for _ in range(_APSIDAL_ITERATIONS):
+            for _ in range(_APSIDAL_PASSES):
                 w_t = omega_at(time, omega, t_periastron, wdot)
                 cycles = n + raw_phase(w_t) - base
-                time = cycle_time(cycles, period, t_periastron, pdot)
+                last, time = time, cycle_time(cycles, period, t_periastron, pdot)
+                if not np.any(np.abs(time - last) > 2.0 * np.spacing(np.abs(time))):    # NaN: a failed system
+                    break
         early = time < after
         if not np.any(early):
             break
