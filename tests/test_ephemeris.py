@@ -321,6 +321,20 @@ def test_http_time_formats_agree(client):
                            atol=1e-6)
 
 
+def test_provenance_names_the_speed_of_light_and_the_julian_year(client):
+    # the light-travel time divides by c, and omega_dot (deg/yr) and Pdot (s/yr) use the Julian year: both
+    # are among the constants an answer states, at their defined values (SI: c = 299792458 m/s; IAU: 365.25 d)
+    body = {"period": P, "eccentricity": E, "omega": W, "t_periastron": T0, "k1": K1, "times": [T0],
+            "light_travel_time": "star1", "omega_dot": 1.0, "period_derivative": 0.5}
+    constants = post(client, "/v1/orbit/ephemeris", body)[1]["provenance"]["constants"]
+    assert constants["c"]["value"] == 299792458.0
+    assert constants["julian_year"]["value"] == 365.25 * 86400
+    eclipse = {"period": P, "eccentricity": E, "omega": W, "t_periastron": T0, "inclination": 88.0,
+               "after": T0, "omega_dot": 1.0}
+    constants = post(client, "/v1/orbit/mid-eclipse", eclipse)[1]["provenance"]["constants"]
+    assert constants["julian_year"]["value"] == 365.25 * 86400
+
+
 def test_http_bad_inputs_name_the_field(client):
     for field, value in (("eccentricity", 1.0), ("eccentricity", -0.2), ("period", 0.0), ("count", 0),
                          ("count", 10_000), ("times", ["next tuesday"]), ("times", [])):

@@ -334,7 +334,7 @@ register(Calculation(
     function=phys.ephemeris,
     references=(MIKKOLA_1987, MURRAY_DERMOTT_1999, HILDITCH_2001, HEINTZ_1978, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
-    constants=("GM_sun", "au", "day"),
+    constants=("GM_sun", "au", "day", "c", "julian_year"),
     conventions=ORBIT_CONVENTIONS,
     constraints=(
         Constraint(("m1", "m2"), "m1 and m2 go together (both give the physical separation)",
@@ -562,7 +562,7 @@ register(Calculation(
     function=phys.mid_eclipse,
     references=(HILDITCH_2001, HEINTZ_1978, MURRAY_DERMOTT_1999, MIKKOLA_1987, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
-    constants=("GM_sun", "au", "R_sun", "day"),
+    constants=("GM_sun", "au", "R_sun", "day", "julian_year"),
     conventions={**ORBIT_CONVENTIONS,
                  "mid_eclipse": "the time of minimum projected separation of the two centres near a conjunction "
                                 "(spherical stars, no light-travel time); eclipse_of_star1 is the conjunction with "
