@@ -152,6 +152,20 @@ def test_period_derivative_quadratic_ephemeris():
         assert x["sigma"] == pytest.approx(0.5 * n * n * P * 5.0 / S_PER_YEAR, rel=1e-9)
 
 
+def test_period_derivative_sigma_of_the_phase_keeps_its_digits():
+    # after ~1000 cycles the phase's share from Pdot is ~1e-3 of a cycle: its linear sigma against the
+    # `uncertainties` package on n = 2x / (1 + sqrt(1 + 2 Pdot x)) (Pdot in s/yr over astropy's Julian year)
+    from uncertainties import ufloat, umath
+    t = T0 + 5500.3
+    body = _body(times=[t], period_derivative={"value": -0.5, "sigma": 0.05})
+    phase = compute("ephemeris", body)["results"]["series"]["phase"]
+    rate = ufloat(-0.5, 0.05) / S_PER_YEAR
+    x = (t - T0) / P
+    n = 2 * x / (1 + umath.sqrt(1 + 2 * rate * x))
+    assert phase["sigma"][0] == pytest.approx(n.std_dev, rel=1e-8)
+    assert phase["value"][0] == pytest.approx(n.nominal_value % 1, abs=1e-12)
+
+
 def test_light_travel_time_size_and_sign(client):
     # a1 sin i / c = K1 P sqrt(1 - e^2) / (2 pi c) (Hilditch 2001, eq. 2.50), with astropy's c
     amp1 = (K1 * u.km / u.s * P * u.day * math.sqrt(1 - E * E) / (2 * math.pi) / const.c).to_value(u.day)

@@ -48,6 +48,21 @@ def elapsed_cycles(time, period, t_periastron, period_derivative=None):
     return 2.0 * x / (1.0 + np.sqrt(1.0 + 2.0 * rate * x))
 
 
+def cycle_phase(time, period, t_periastron, period_derivative=None):
+    """The fraction of a cycle since the last periastron, n(t) mod 1, of :func:`elapsed_cycles`' n.
+
+    Taken as frac(x) - d with d = x - n = 2 Pdot x^2 / (1 + sqrt(1 + 2 Pdot x))^2 (the same n, no
+    cancellation), so that what Pdot adds keeps its own digits beside the whole cycles elapsed: after
+    a thousand cycles n itself rounds at 1e-13, where Pdot's share of the phase may be 1e-8.
+    """
+    x = (np.asarray(time, dtype=float) - t_periastron) / period
+    if period_derivative is None:
+        return np.mod(x, 1.0)
+    rate = period_change_rate(period_derivative)
+    root = 1.0 + np.sqrt(1.0 + 2.0 * rate * x)
+    return np.mod(np.mod(x, 1.0) - 2.0 * rate * x * x / (root * root), 1.0)
+
+
 def cycle_time(cycles, period, t_periastron, period_derivative=None):
     """The date of ``cycles`` anomalistic cycles after T0: T0 + P (n + Pdot n^2 / 2) (quadratic ephemeris)."""
     rate = period_change_rate(period_derivative)
@@ -119,21 +134,21 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     """Series of orbital quantities at ``times`` (JD): phase, anomalies, separation, radial velocities.
 
     M = 2 pi n(t), n the cycles since T0 (:func:`elapsed_cycles`: (t - T0)/P without a period
-    derivative); E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial velocities as in
+    derivative), taken modulo one cycle (:func:`cycle_phase`); E from Kepler's equation; nu from E; r/a = 1 - e cos E; radial velocities as in
     :func:`radial_velocities` with omega(t) (:func:`omega_at`, apsidal motion); with a (given, or
     from Kepler's third law and m1 + m2) the separation in au; with the visual elements the
     projected separation and position angle (:func:`sky_position`).
     """
     e = eccentricity
     omega_rad = np.radians(omega_at(times, omega, t_periastron, omega_dot))
-    cycles = elapsed_cycles(times, period, t_periastron, period_derivative)
-    mean = TWO_PI * cycles
+    phase = cycle_phase(times, period, t_periastron, period_derivative)
+    mean = TWO_PI * phase
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
     r_over_a = kepler.separation_from_eccentric(ecc, e)
     v1, v2 = radial_velocities(nu, e, omega_rad, k1, k2, 0.0 if gamma is None else gamma)
     out = {
-        "phase": np.mod(cycles, 1.0),
+        "phase": phase,
         "mean_anomaly": np.mod(np.degrees(mean), 360.0),
         "true_anomaly": np.mod(np.degrees(nu), 360.0),
         "separation": r_over_a,
