@@ -266,7 +266,9 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
     ecsv = is_ecsv(text)
     try:
-        table = Table.read(text, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+        # the lines, split as astropy splits a table's text: a string without a line break it would
+        # take for the name of a file on the server's disk
+        table = Table.read(text.splitlines(), format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
     except (InconsistentTableError, ValueError, TypeError, KeyError, IndexError, AttributeError) as e:
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
@@ -640,7 +642,7 @@ def _decode_text(data: bytes):
 
     text = data.decode("utf-8")
     ecsv = is_ecsv(text)
-    table = Table.read(text, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+    table = Table.read(text.splitlines(), format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)    # never a path
     cols = []
     for name in table.colnames:
         col = table[name]

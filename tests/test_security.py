@@ -245,3 +245,18 @@ def test_the_form_page_has_a_strict_content_security_policy():
 def test_server_header_does_not_name_versions():
     r = create_app().test_client().get("/v1/health")
     assert "Werkzeug" not in r.headers.get("Server", "") and "Python" not in r.headers.get("Server", "")
+
+
+@pytest.mark.parametrize("media_type", ["text/csv", "text/x-ecsv"])
+def test_a_table_body_is_never_read_as_a_path_on_the_server(client, tmp_path, media_type):
+    # astropy's Table.read takes a string without a line break for a file name: a body that is a path
+    # must be parsed as the (one-line) table it is, never open that file and echo its first line
+    secret = tmp_path / "secret.csv"
+    secret.write_text("confidential_column,another\n1,2\n")
+    for body in (str(secret), str(tmp_path / "missing.csv"), "/etc/hostname", "http://example.invalid/a.csv"):
+        r = client.post("/v1/batch/sb2", data=body.encode(), content_type=media_type)
+        assert r.status_code == 422, (body, r.status_code)
+        assert "confidential" not in r.get_data(as_text=True)
+        assert body in r.get_json()["errors"]           # the body's own text is the unknown column
+    r = client.post("/v1/batch/sb2", data=b"", content_type=media_type)
+    assert r.status_code == 422 and r.is_json
