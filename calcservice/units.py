@@ -21,9 +21,13 @@ def parse_unit(text: str) -> u.UnitBase:
         raise UnitError(f"{text!r} is not a unit astropy can read" if isinstance(text, str) and len(text) <= 80
                         else "not a unit astropy can read")
     try:
-        return u.Unit(text, parse_strict="raise")
+        unit = u.Unit(text, parse_strict="raise")
     except Exception:
         raise UnitError(f"unknown unit {text!r}") from None
+    if isinstance(unit, u.FunctionUnitBase):
+        # dex(km/s), mag(AB): a logarithm of a quantity, not a scale of it
+        raise UnitError(f"{text!r} is a logarithmic unit: give the quantity itself, in {unit.physical_unit.to_string()!r}")
+    return unit
 
 
 def needed(unit: u.UnitBase) -> str:
@@ -43,7 +47,12 @@ def factor(from_unit: str, to_unit: str) -> float:
     """
     a, b = parse_unit(from_unit), parse_unit(to_unit)
     try:
-        return float(a.to(b))
+        k = float(a.to(b))
     except u.UnitConversionError:
         raise UnitError(f"unit {from_unit!r} cannot be converted to {to_unit or 'dimensionless'!r} "
                         f"({needed(b)} is needed)") from None
+    if not 0.0 < k < float("inf"):
+        # '-1*au' would flip signs, '1e400*au' is infinite: no unit a measurement is given in
+        raise UnitError(f"unit {from_unit!r} is {k:g} {to_unit or 'dimensionless'!r}: a unit must be a positive, "
+                        "finite multiple of another")
+    return k

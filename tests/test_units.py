@@ -62,3 +62,33 @@ def test_unit_astropy_has_no_word_for_is_named_itself():
     with pytest.raises(UnitError) as info:
         factor("km", "solMass / yr")
     assert "convertible to 'solMass / yr'" in str(info.value)
+
+
+@pytest.mark.parametrize("text", ["dex(km/s)", "mag(AB)", "dB(mW)"])
+def test_logarithmic_units_are_refused_not_taken_for_scales(text):
+    # astropy reads these as function units: 1.58 dex(km/s) is 10**1.58 = 38.0 km/s, which a plain scale
+    # factor would turn into 15.8; the service asks for the quantity itself
+    assert isinstance(u.Unit(text), u.FunctionUnitBase)
+    with pytest.raises(UnitError, match="logarithmic"):
+        parse_unit(text)
+
+
+@pytest.mark.parametrize("text", ["-1*AU", "1e400*AU"])
+def test_a_unit_must_be_a_positive_finite_multiple(text):
+    # astropy accepts both (scales -1 and inf); neither is a unit a measurement is given or wanted in
+    with pytest.raises(UnitError, match="positive, finite"):
+        factor(text, "au")
+    with pytest.raises(UnitError, match="positive, finite"):
+        factor("au", text)
+
+
+def test_logarithmic_and_negative_units_over_http_name_the_field(client):
+    body = {"period": 41.6, "k1": {"value": 1.58, "unit": "dex(km/s)"}, "k2": 51.7, "eccentricity": 0.31}
+    status, doc = post(client, "/v1/spectroscopic/sb2", body)
+    assert status == 422 and "logarithmic" in doc["errors"]["k1"][0]
+    body = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31, "units": {"a_sin_i": "-1*AU"}}
+    status, doc = post(client, "/v1/spectroscopic/sb2", body)
+    assert status == 422 and "units.a_sin_i" in doc["errors"]
+    rows = {"systems": [{"period": {"value": 1.6, "unit": "dex(d)"}, "k1": 38.2, "k2": 51.7, "eccentricity": 0.3}]}
+    status, doc = post(client, "/v1/batch/sb2", rows)
+    assert status == 200 and "logarithmic" in doc["results"][0]["error"]["errors"]["period"][0]
