@@ -314,3 +314,21 @@ def test_bad_request_on_every_endpoint(client, name, path, body, status, field):
 def test_every_calculation_is_in_the_generated_catalogue():
     names = {row[0].rsplit("-unknown-field", 1)[0] for row in GENERATED if row[0].endswith("-unknown-field")}
     assert names == {c.name for c in calculations().values() if c.example}
+
+
+@pytest.mark.parametrize("path, body, field", [
+    ("/v1/spectroscopic/sb2", b'{"\\ud800": 1, "period": 1, "k1": 2, "k2": 3, "eccentricity": 0}', "\\ud800"),
+    ("/v1/spectroscopic/sb2", b'{"period": {"\\udfff": 1}, "k1": 2, "k2": 3, "eccentricity": 0}', "period"),
+    ("/v1/spectroscopic/sb2", b'{"period": 1, "k1": 2, "k2": 3, "eccentricity": 0, "units": {"\\ud800": "au"}}',
+     "units.\\ud800"),
+])
+def test_a_lone_surrogate_in_a_field_name_is_named_not_a_500(client, path, body, field):
+    # json.loads keeps a lone surrogate escape (RFC 8259 sec. 8.2 leaves it to the parser); UTF-8 cannot
+    # carry it back, so the answer names the field by the escape the caller wrote
+    r = client.post(path, data=body, content_type="application/json")
+    assert r.status_code == 422 and r.mimetype == "application/problem+json"
+    errors = r.get_json()["errors"]
+    assert field in errors or any(field in k or field in " ".join(v) for k, v in errors.items()), errors
+    # in a batch the system's error comes back in place, the batch answered
+    r = client.post("/v1/batch/sb2", data=b'{"systems": [' + body + b']}', content_type="application/json")
+    assert r.status_code == 200 and "error" in r.get_json()["results"][0]

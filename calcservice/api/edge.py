@@ -230,9 +230,26 @@ def _fast_loads(data: bytes):
 def dumps(obj) -> bytes:
     """Compact JSON; numpy arrays and scalars are written as numbers (non-finite floats must be
     cleaned to None beforehand, as :func:`calcservice.core.render.clean_array` does)."""
-    if orjson is not None:
-        return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY, default=_orjson_default)
-    return json.dumps(obj, allow_nan=False, separators=(",", ":"), default=_numpy_default).encode()
+    try:
+        if orjson is not None:
+            return orjson.dumps(obj, option=orjson.OPT_SERIALIZE_NUMPY, default=_orjson_default)
+        return json.dumps(obj, allow_nan=False, separators=(",", ":"), default=_numpy_default).encode()
+    except (TypeError, UnicodeEncodeError) as e:
+        if "surrogate" not in str(e):
+            raise
+        # json.loads keeps a lone surrogate escape ("\ud800"), which UTF-8 cannot carry: a field name
+        # echoed in an error is written back as the escape the caller sent
+        return dumps(_without_surrogates(obj))
+
+
+def _without_surrogates(obj):
+    if isinstance(obj, str):
+        return obj.encode("utf-8", "backslashreplace").decode("utf-8")
+    if isinstance(obj, dict):
+        return {_without_surrogates(k): _without_surrogates(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_without_surrogates(v) for v in obj]
+    return obj
 
 
 def _orjson_default(o):
