@@ -74,6 +74,7 @@ def test_a_small_bomb_is_413_on_its_inflated_size():
                     headers={"Content-Encoding": "gzip"})
     assert r.status_code == 413
     assert "1000000" in r.get_json()["detail"]
+    assert r.get_json()["limit"] == {"name": "max_body_bytes", "value": 1_000_000}     # as every 413 names it
     # the same JSON under the limit is read (the limit is on the inflated size, not refused for gzip)
     ok = gzip.compress(json.dumps(SB2).encode() + b" " * 900_000)
     r = client.post("/v1/spectroscopic/sb2", data=ok, content_type="application/json",
@@ -83,6 +84,9 @@ def test_a_small_bomb_is_413_on_its_inflated_size():
     r = client.post("/v1/spectroscopic/sb2", data=bytes(1_000_001), content_type="application/json",
                     headers={"Content-Encoding": "gzip"})
     assert r.status_code == 413
+    assert r.get_json()["limit"] == {"name": "max_body_bytes", "value": 1_000_000}
+    r = client.post("/v1/spectroscopic/sb2", data=bytes(1_000_001), content_type="application/json")
+    assert r.status_code == 413 and r.get_json()["limit"] == {"name": "max_body_bytes", "value": 1_000_000}
 
 
 def gigabyte_of_zeros() -> bytes:

@@ -148,7 +148,7 @@ def read_body(limits=None) -> bytes:
     if len(data) > limits.max_body_bytes or (len(data) == limits.max_body_bytes and request.content_length is None
                                              and _more(request.stream)):
         # werkzeug cuts a streamed (chunked) body at the limit without a word: one more byte tells
-        raise Problem(413, f"the request body is over {limits.max_body_bytes} bytes (max_body_bytes)")
+        raise body_too_large(limits.max_body_bytes)
     return data
 
 
@@ -173,7 +173,7 @@ def gunzip(stream, limit: int) -> bytes:
         fed = True
         total += len(piece)
         if total > limit:
-            raise Problem(413, f"the request body inflates to over {limit} bytes (max_body_bytes)")
+            raise body_too_large(limit, "inflates to")
         out.append(piece)
         if inflate.eof:
             pending = inflate.unused_data
@@ -183,6 +183,12 @@ def gunzip(stream, limit: int) -> bytes:
     if fed and not inflate.eof:
         raise Problem(400, "the gzip request body ends before its end")
     return b"".join(out)
+
+
+def body_too_large(limit: int, verb: str = "is") -> Problem:
+    """The 413 of a body (or what it inflates to) over ``max_body_bytes``, naming the limit as every 413 does."""
+    return Problem(413, f"the request body {verb} over {limit} bytes (limit max_body_bytes = {limit}, "
+                        "CALCSERVICE_MAX_BODY_BYTES)", limit={"name": "max_body_bytes", "value": limit})
 
 
 def parse_json(data: bytes, limits):
@@ -406,7 +412,7 @@ def install(app: Flask) -> None:
     @app.errorhandler(RequestEntityTooLarge)
     def _too_large(e):
         limit = settings.limits.max_body_bytes
-        return problem_response(Problem(413, f"the request body is over the limit of {limit} bytes"))
+        return problem_response(body_too_large(limit))
 
     @app.errorhandler(HTTPException)
     def _http(e: HTTPException):
