@@ -22,7 +22,7 @@ import yaml
 from . import __version__, media
 from .config import Limits
 from .plots import has_curve
-from .registry import Calculation, Input, calculations
+from .registry import DATE, Calculation, Input, calculations
 
 
 @lru_cache(maxsize=1)
@@ -102,7 +102,8 @@ COMPONENTS: dict[str, dict] = {
     "MeasuredInput": _measured({"type": "number"}, "a measured number: exact, with a normal or asymmetric 1-sigma, "
                                                    "or as the caller's own draws, in the input's default unit "
                                                    "unless a unit is given"),
-    "MeasuredTime": _measured({"oneOf": [{"type": "number", "description": "Julian Date (or MJD with time_format)"},
+    "MeasuredTime": _measured({"oneOf": [{"type": "number", **DATE.as_dict(),
+                                          "description": "Julian Date (or MJD with time_format), within 1e8 d of 0"},
                                          ISO_TIME]},
                               "a measured time: a Julian Date (MJD with time_format) or an ISO 8601 string, exact, "
                               "with a 1-sigma in days, or as draws"),
@@ -114,7 +115,7 @@ COMPONENTS: dict[str, dict] = {
                           "properties": {"value": {"type": "array", "minItems": 1, "items": {"type": "number"}},
                                          "unit": UNIT}}]},
     "TimeSeries": {"description": "a list of times: Julian Dates (MJD with time_format) or ISO 8601 strings",
-                   "type": "array", "minItems": 1, "items": {"oneOf": [{"type": "number"}, ISO_TIME]}},
+                   "type": "array", "minItems": 1, "items": {"oneOf": [{"type": "number", **DATE.as_dict()}, ISO_TIME]}},
     "Correlation": {"type": "object", "additionalProperties": False, "required": ["between", "rho"],
                     "description": "the correlation coefficient of two measured inputs given in the request",
                     "properties": {

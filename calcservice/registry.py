@@ -75,6 +75,9 @@ class Domain:
 POSITIVE = Domain(0.0, math.inf, low_open=True)
 NON_NEGATIVE = Domain(0.0, math.inf)
 ANY = Domain()
+# a date as a Julian Date (MJD converted): within about 270,000 years of JD 0, where a double still
+# resolves 15 ms; far beyond it a date is a typing slip and its cycles count would be rounding noise
+DATE = Domain(-1e8, 1e8)
 ECCENTRICITY = Domain(0.0, 1.0, high_open=True)
 INCLINATION = Domain(0.0, 180.0, low_open=True, high_open=True)
 ANGLE = Domain(-360.0, 360.0)

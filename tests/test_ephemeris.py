@@ -385,3 +385,15 @@ def test_http_event_dates_in_the_callers_time_format(client):
             assert b["sigma"] == pytest.approx(a["sigma"], rel=1e-9)
             assert b["iso"] == a["iso"]
     assert ev_mjd["periastron"][0]["value"] == pytest.approx(T0 + P - 2400000.5, abs=1e-6)
+
+
+@pytest.mark.parametrize("field, value", [("after", 1e20), ("t_periastron", 1e308), ("t_periastron", -2e8),
+                                          ("times", [T0, 1e300])])
+def test_a_date_beyond_any_epoch_is_refused_naming_it(client, field, value):
+    # at JD 1e20 a double's spacing is 16384 d: the cycles since T0 would be rounding noise, answered as
+    # dates; the service takes dates within 1e8 d of JD 0 (about 270,000 years), where the spacing is 15 ms
+    body = {"period": P, "eccentricity": E, "omega": W, "t_periastron": T0, "k1": K1, "times": [T0 + 1.0],
+            field: value}
+    status, doc = post(client, "/v1/orbit/ephemeris", body)
+    assert status == 422 and list(doc["errors"]) == [field]
+    assert float(np.spacing(1e8)) < 2e-8 and float(np.spacing(1e20)) == 16384.0        # numpy's own spacing

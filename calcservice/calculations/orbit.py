@@ -9,7 +9,7 @@ import numpy as np
 
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
-from ..registry import ANGLE, ANY, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
+from ..registry import ANGLE, ANY, DATE, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
 from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity,
                      period, with_speed_check)
 
@@ -281,12 +281,12 @@ register(Calculation(
         period(example=2037.4),
         eccentricity(example=0.873),
         Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=243.6),
-        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
+        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", DATE, time=True,
               example=2458712.3),
         Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", SPEED, example=61.2),
         Input("k2", "km/s", "radial-velocity semi-amplitude of star 2", SPEED, required=False, example=142.8),
         Input("gamma", "km/s", "systemic velocity", VELOCITY, required=False, default=0.0, example=-7.4),
-        Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", ANY, kind="series",
+        Input("times", "d", "times of the series (JD numbers, or ISO 8601 strings)", DATE, kind="series",
               time=True, label="time", example=[2460400.5, 2460500.5, 2460600.5]),
         Input("angular_semimajor_axis", "mas", "angular semi-major axis of the relative visual orbit", POSITIVE,
               required=False, example=11.8),
@@ -299,7 +299,7 @@ register(Calculation(
               example=13.3),
         Input("semimajor_axis", "au", "relative semi-major axis (for the physical separation)", POSITIVE,
               required=False, example=16.4),
-        Input("after", "d", "list events at or after this time (default: the earliest of times)", ANY,
+        Input("after", "d", "list events at or after this time (default: the earliest of times)", DATE,
               required=False, time=True, example=2460400.5),
         Input("count", "", "how many events of each kind to list", Domain(1, MAX_EVENT_COUNT), default=3,
               kind="integer", example=3),
@@ -522,10 +522,10 @@ register(Calculation(
         period(example=9.73),
         eccentricity(example=0.28),
         Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=61.0),
-        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", ANY, time=True,
+        Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", DATE, time=True,
               example=2460811.42),
         Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, example=84.6),
-        Input("after", "d", "list mid-eclipses at or after this time (JD, or ISO 8601)", ANY, time=True,
+        Input("after", "d", "list mid-eclipses at or after this time (JD, or ISO 8601)", DATE, time=True,
               example=2461000.5),
         Input("count", "", "how many mid-eclipses of each star to list", Domain(1, MAX_EVENT_COUNT), default=3,
               kind="integer", example=3),

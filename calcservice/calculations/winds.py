@@ -3,7 +3,7 @@
 import numpy as np
 
 from ..physics import winds as phys
-from ..registry import ANY, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
+from ..registry import ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
 from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, with_speed_check
 
 EICHLER_USOV_1993 = "D. Eichler & V. Usov (1993), ApJ 402, 271 (shock-cone opening angle)"
@@ -638,12 +638,12 @@ register(Calculation(
             "inverse of the expansion parallax of shell-distance).",
     inputs=(
         Input("period", "d", "formation period: one shell per orbit", POSITIVE, example=3120.0),
-        Input("formation_epoch", "d", "date of one shell-formation event, shell 0 (JD, or ISO 8601)", ANY, time=True,
+        Input("formation_epoch", "d", "date of one shell-formation event, shell 0 (JD, or ISO 8601)", DATE, time=True,
               example=2457310.0),
         Input("expansion_speed", "km/s", "expansion speed of the shells", SPEED, example=980.0),
         Input("distance", "pc", "distance (give this or parallax)", POSITIVE, required=False, example=1850.0),
         Input("parallax", "mas", "parallax (give this or distance)", POSITIVE, required=False, example=0.54),
-        Input("observation_date", "d", "date of the planned observation (JD, or ISO 8601)", ANY, time=True,
+        Input("observation_date", "d", "date of the planned observation (JD, or ISO 8601)", DATE, time=True,
               example=2461400.5),
         Input("shells", "", "shell numbers n: shell n forms at formation_epoch + n period (0 the given event, -1 the "
               "one before, 1 the next); each must have formed by observation_date", ANY, kind="series",

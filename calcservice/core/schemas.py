@@ -120,14 +120,12 @@ def faults(spec: Input, x, sigma_minus, sigma_plus) -> list[tuple[Any, str]]:
     """The rules a measured quantity's numbers obey, in canonical units: for each rule, in the order
     a caller should hear of them, where it is broken and its message.  The numbers are floats for
     one system (the rules then give booleans) or arrays over N systems (boolean arrays); a batch
-    calls this under ``np.errstate(invalid="ignore")``.  Times are dates, outside any domain."""
-    rules = [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
-             ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
-              f"overflows a double when converted to {spec.unit or 'dimensionless'}")]
-    if not spec.time:
-        outside = not spec.domain.holds(x) if type(x) is float else ~spec.domain.contains(x)
-        rules.append((outside, spec.domain.message(spec.unit)))
-    return rules
+    calls this under ``np.errstate(invalid="ignore")``.  A time's domain holds its number as given (JD or MJD)."""
+    outside = not spec.domain.holds(x) if type(x) is float else ~spec.domain.contains(x)
+    return [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
+            ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
+             f"overflows a double when converted to {spec.unit or 'dimensionless'}"),
+            (outside, spec.domain.message(spec.unit))]
 
 
 def broken(spec: Input, x: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray) -> np.ndarray:
@@ -183,7 +181,10 @@ class MeasuredField(_CheckedField):
                 return RawQuantity(np.array([_calendar_jd(value, self.limits)]), one, one, calendar=True, text=value)
             raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
         if isinstance(value, (int, float)) and not isinstance(value, bool):
-            return RawQuantity(np.array([number(value)]), one, one)
+            x = number(value)
+            if not spec.domain.holds(x):
+                raise ValidationError(spec.domain.message(spec.unit))
+            return RawQuantity(np.array([x]), one, one)
         if not isinstance(value, dict):
             raise ValidationError(FORM_HINT)
         return self._from_object(value)
