@@ -151,6 +151,10 @@ CATALOGUE = [
                                    {"between": ["k2", "period"], "rho": -0.9}]), JSON, 422, "correlations"),
     ("correlation-rho-above-1", "POST", SB2, with_(GOOD_SB2, correlations=[{"between": ["k1", "k2"], "rho": 1.5}]),
      JSON, 422, "correlations"),
+    ("correlation-rho-as-text", "POST", SB2, with_(GOOD_SB2, correlations=[{"between": ["k1", "k2"], "rho": "0.3"}]),
+     JSON, 422, "correlations.0.rho"),
+    ("correlation-rho-boolean", "POST", SB2, with_(GOOD_SB2, correlations=[{"between": ["k1", "k2"], "rho": True}]),
+     JSON, 422, "correlations.0.rho"),
     ("correlation-rho-infinite", "POST", SB2,
      b'{"period": 41.6, "k1": {"value": 38.2, "sigma": 0.4}, "k2": {"value": 51.7, "sigma": 0.6}, '
      b'"eccentricity": 0.3, "correlations": [{"between": ["k1", "k2"], "rho": 1e999}]}', JSON, 400,

@@ -343,7 +343,7 @@ class CorrelationSchema(Schema):
         unknown = RAISE
 
     between = fields.List(fields.String(validate=validate.Length(max=64)), required=True)
-    rho = fields.Float(required=True, allow_nan=False)
+    rho = fields.Function(deserialize=lambda v: number(v, "rho"), required=True)      # a JSON number, never "0.3"
 
     @validates_schema
     def _check(self, data, **kwargs):
