@@ -531,12 +531,11 @@ def test_isotropic_in_a_value_array_with_sigmas_and_a_unit(client):
 
 
 def test_a_bad_entry_beside_isotropic_says_what_the_column_may_hold(client):
-    cols = {name: v[:3] for name, v in ISO_SYSTEMS.items()}
-    inclination = {"value": ["isotropic", "edge-on", "isotropic"], "sigma": [None, None, 1.0]}
-    status, got = post(client, "/v1/batch/sb2", {"columns": {**cols, "inclination": inclination}})
+    inclination = {"value": ["isotropic", "edge-on", "isotropic", "isotropic"], "sigma": [None, None, 1.0, "wide"]}
+    status, got = post(client, "/v1/batch/sb2", {"columns": {**ISO_SYSTEMS, "inclination": inclination}})
     assert status == 200, got
     errors = {e["index"]: e["errors"] for e in got["errors"]}
-    assert set(errors) == {1, 2}
+    assert set(errors) == {1, 2, 3}
     assert errors[1] == {"inclination": ['value must be a number or "isotropic"']}
-    assert "no sigma" in errors[2]["inclination"][0]
+    assert "no sigma" in errors[2]["inclination"][0] and "no sigma" in errors[3]["inclination"][0]
     assert got["columns"]["m1"]["value"][0] is not None and got["columns"]["m1"]["value"][1] is None

@@ -659,7 +659,8 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     if iso.any():
         # random orientations have no sigma: a system that gives one is worded by the parser (an empty
         # or zero sigma beside "isotropic", as a float column must hold something there, is none)
-        with_sigma = iso & ((sm != 0) | (sp != 0))
+        unreadable = np.logical_or.reduce([b for _, b in sigmas.values()]) if sigmas else False
+        with_sigma = iso & (unreadable | (sm != 0) | (sp != 0))
         bad |= with_sigma
         iso &= ~with_sigma
         sm = np.where(iso, 0.0, sm)

@@ -188,7 +188,7 @@ class MeasuredField(_CheckedField):
         if isinstance(value, (int, float)) and not isinstance(value, bool):
             return RawQuantity(np.array([number(value)]), one, one)
         if not isinstance(value, dict):
-            raise ValidationError(FORM_HINT)
+            raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
         return self._from_object(value)
 
     def _from_object(self, value: dict) -> RawQuantity:
