@@ -228,9 +228,15 @@ COMPONENTS["TimeValues"] = {"description": "one time for every system, or one pe
                                        "items": {"oneOf": [NULLABLE_NUMBER, ISO_TIME]}}]}
 COMPONENTS["QuantityColumn"] = _column(False)
 COMPONENTS["IsotropicColumn"] = {
-    "description": "an inclination's column: a quantity's, or isotropic for every system or for some",
+    "description": "an inclination's column: a quantity's, or isotropic for every system or for some (a system "
+                   "given isotropic is answered by Monte Carlo, the others by the batch's method; isotropic takes no "
+                   "sigma: null or 0 there)",
     "anyOf": [_ref("QuantityColumn"), {"const": "isotropic"}, {"type": "array", "minItems": 1, "items": {
-        "anyOf": [{"type": "null"}, _ref("MeasuredInput"), {"const": "isotropic"}]}}]}
+        "anyOf": [{"type": "null"}, _ref("MeasuredInput"), {"const": "isotropic"}]}},
+        {"type": "object", "additionalProperties": False, "required": ["value"],
+         "properties": {"value": {"type": "array", "minItems": 1,
+                                  "items": {"anyOf": [NULLABLE_NUMBER, {"const": "isotropic"}]}},
+                        **dict.fromkeys(("sigma", "sigma_minus", "sigma_plus"), _ref("Values")), "unit": UNIT}}]}
 COMPONENTS["TimeColumn"] = _column(True)
 
 
@@ -652,7 +658,10 @@ COMPONENTS["BatchColumnsAnswer"] = {
                                                       "them), and extra members (e.g. events)"},
         "errors": {"type": "array", "items": _ref("ColumnError")},
         "uncertainty": {"type": "object", "properties": {
-            "method": {"oneOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
+            "method": {"description": "the batch's method, or one per system (null for a failed one) where they "
+                                      "differ (an isotropic inclination is answered by Monte Carlo beside linear "
+                                      "systems; their low and high are null)",
+                       "oneOf": [{"type": "string"}, {"type": "array", "items": {"type": ["string", "null"]}}]},
             "rejected_fraction": {"oneOf": [{"type": "number"}, NULLABLE_NUMBERS]}}},
         "warnings": {"type": "array", "items": _ref("ColumnWarning")},
         "provenance": _ref("Provenance"),

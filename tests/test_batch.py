@@ -422,3 +422,120 @@ def test_columnar_warnings_name_their_fields_and_rows(client):
     assert asymmetric[("k1",)]["rows"] == [0] and asymmetric[("eccentricity",)]["rows"] == [1]
     assert all("{" not in w["message"] for w in got["warnings"])
     assert asymmetric[("k1",)]["message"].startswith("k1:")
+
+
+# ----------------------------------------------------------------------------- isotropic beside numbers
+
+# fictional systems of our demo scenario, exact elements: only the inclination is uncertain
+ISO_SYSTEMS = {"period": [41.6, 10.0, 23.9, 7.31], "k1": [38.2, 20.0, 44.0, 61.5], "k2": [51.7, 30.0, 52.5, 70.2],
+               "eccentricity": [0.31, 0.1, 0.2, 0.05]}
+MC = {"method": "monte_carlo", "samples": 4000, "seed": 7}
+
+
+def _sin3(cos_i):
+    return (1.0 - cos_i**2) ** 1.5
+
+
+def _system(k, inclination):
+    return {**{name: v[k] for name, v in ISO_SYSTEMS.items()}, **({} if inclination is None else
+                                                                   {"inclination": inclination})}
+
+
+def _rows_reference(client, inclinations, uncertainty):
+    """The rows form and the single requests of the same systems, one answer per system."""
+    systems = [_system(k, inc) for k, inc in enumerate(inclinations)]
+    status, rows = post(client, "/v1/batch/sb2", {"systems": systems, "uncertainty": uncertainty})
+    assert status == 200, rows
+    singles = []
+    for body in systems:
+        status, single = post(client, "/v1/spectroscopic/sb2", {**body, "uncertainty": uncertainty})
+        assert status == 200, single
+        singles.append(single)
+    return rows["results"], singles
+
+
+def _column_system(got, k):
+    """System k of a columns answer, as a single answer's results (null members left out)."""
+    out = {}
+    for name, entry in got["columns"].items():
+        if entry["value"][k] is not None:
+            out[name] = {key: v[k] for key, v in entry.items() if key != "unit" and v[k] is not None}
+    return out
+
+
+@pytest.mark.parametrize("second", [80, None, {"value": 80, "sigma": 2}])
+def test_isotropic_beside_a_number_in_a_columns_batch_answers_each_system_by_its_own_method(client, second):
+    # the audit's case: a 500 before (the linear system has no low/high to scatter)
+    cols = {name: v[:2] for name, v in ISO_SYSTEMS.items()}
+    status, got = post(client, "/v1/batch/sb2", {"columns": {**cols, "inclination": ["isotropic", second]},
+                                                 "uncertainty": {"seed": 7}})
+    assert status == 200, got
+    assert got["errors"] == []
+    assert got["uncertainty"]["method"] == ["monte_carlo", "linear"]
+    assert got["uncertainty"]["seed"] == 7 and got["uncertainty"]["rejected_fraction"] == [0.0, None]
+    rows, singles = _rows_reference(client, ["isotropic", second], {"seed": 7})
+    for k in range(2):
+        system = _column_system(got, k)
+        # the single request of the same system (the one isotropic system draws as it would alone)
+        assert system == {name: {key: v for key, v in entry.items() if key != "unit" and v is not None}
+                          for name, entry in singles[k]["results"].items()}, k
+        assert rows[k]["results"] == singles[k]["results"], k
+    assert rows[0]["uncertainty"]["method"] == "monte_carlo" and "uncertainty" not in rows[1]
+    assert got["columns"]["m1"]["low"][1] is None and got["columns"]["m1"]["high"][1] is None
+    switched = [w for w in got["warnings"] if w["code"] == "method_switched"]
+    assert [w["rows"] for w in switched] == [[0]]
+
+
+def test_several_isotropic_systems_among_numbers_against_the_analytic_distribution(client):
+    # cos i uniform on [0, 1] (isotropic orientations): the median of M1 is M1 sin^3 i / sin^3 i at cos i = 1/2,
+    # the 68.27 % interval M1 sin^3 i / sin^3 i at cos i = 0.158655 and 0.841345 (a standard result)
+    inclinations = ["isotropic", 80.0, "isotropic", {"value": 70.0, "sigma": 2.0}]
+    cols = {**ISO_SYSTEMS, "inclination": inclinations}
+    status, got = post(client, "/v1/batch/sb2", {"columns": cols, "uncertainty": MC})
+    assert status == 200, got
+    assert got["uncertainty"]["method"] == "monte_carlo" and got["uncertainty"]["samples"] == 4000
+    rows, singles = _rows_reference(client, inclinations, MC)
+    for k in (1, 3):                           # the angles: Monte Carlo as asked, one group, seeded alike
+        assert rows[k]["results"]["m1"]["value"] == got["columns"]["m1"]["value"][k]
+    for k in (0, 2):
+        m1 = {key: got["columns"]["m1"][key][k] for key in ("value", "low", "high")}
+        assert m1 == {key: rows[k]["results"]["m1"][key] for key in m1}          # rows and columns: the same group
+        m1s = got["columns"]["m1_sin3i"]["value"][k]
+        # 4000 draws: the median's cos i is within 0.5/sqrt(4000) = 0.008 (1 sigma), about 1.6 % in sin^3 i
+        assert m1["value"] == pytest.approx(m1s / _sin3(0.5), rel=0.08)
+        assert m1["low"] == pytest.approx(m1s / _sin3(0.158655), rel=0.08)
+        assert m1["high"] == pytest.approx(m1s / _sin3(0.841345), rel=0.15)
+        assert m1["value"] == pytest.approx(singles[k]["results"]["m1"]["value"], rel=0.1)
+    # the first isotropic system draws what it would alone
+    assert got["columns"]["m1"]["value"][0] == singles[0]["results"]["m1"]["value"]
+
+
+def test_isotropic_in_a_value_array_with_sigmas_and_a_unit(client):
+    # the form a table's text column arrives in: value array with "isotropic" entries, a sigma array beside
+    cols = {name: v[:2] for name, v in ISO_SYSTEMS.items()}
+    list_form = {**cols, "inclination": ["isotropic", {"value": 80.0, "sigma": 2.0}]}
+    status, reference = post(client, "/v1/batch/sb2", {"columns": list_form, "uncertainty": {"seed": 3}})
+    assert status == 200, reference
+    for inclination in ({"value": ["isotropic", 80.0], "sigma": [None, 2.0]},
+                        {"value": ["isotropic", 80.0], "sigma": [0.0, 2.0]},          # a float column's 0: no sigma
+                        {"value": ["isotropic", math.radians(80.0)], "sigma": [None, math.radians(2.0)],
+                         "unit": "rad"}):
+        status, got = post(client, "/v1/batch/sb2", {"columns": {**cols, "inclination": inclination},
+                                                     "uncertainty": {"seed": 3}})
+        assert status == 200, got
+        assert got["errors"] == [] and got["uncertainty"] == reference["uncertainty"]
+        for name, entry in reference["columns"].items():
+            for key in ("value", "low", "high"):
+                x, y = (np.array(e[key], dtype=float) for e in (got["columns"][name], entry))     # null: NaN
+                np.testing.assert_allclose(x, y, rtol=1e-12, err_msg=f"{name} {key}")
+
+
+def test_a_bad_entry_beside_isotropic_says_what_the_column_may_hold(client):
+    inclination = {"value": ["isotropic", "edge-on", "isotropic", "isotropic"], "sigma": [None, None, 1.0, "wide"]}
+    status, got = post(client, "/v1/batch/sb2", {"columns": {**ISO_SYSTEMS, "inclination": inclination}})
+    assert status == 200, got
+    errors = {e["index"]: e["errors"] for e in got["errors"]}
+    assert set(errors) == {1, 2, 3}
+    assert errors[1] == {"inclination": ['value must be a number or "isotropic"']}
+    assert "no sigma" in errors[2]["inclination"][0] and "no sigma" in errors[3]["inclination"][0]
+    assert got["columns"]["m1"]["value"][0] is not None and got["columns"]["m1"]["value"][1] is None

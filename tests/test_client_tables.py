@@ -416,3 +416,38 @@ def test_series_outputs_and_events_come_back_per_system(client):
         assert out.extras["events"][:2] == http["columns"]["events"][:2]
     table = outs["arrow"].to_table()
     assert table["rv1"].shape == (3, 3) and table["rv1"].unit == u.km / u.s and table["events"][2] == ""
+
+
+def test_an_inclination_column_mixing_isotropic_and_angles_in_a_table_and_a_dataframe(client):
+    # fictional systems of our demo scenario: random orientations for the first and third, angles for the others
+    period, k1, k2, ecc = [41.6, 10.0, 23.9, 7.31], [38.2, 20.0, 44.0, 61.5], [51.7, 30.0, 52.5, 70.2], \
+        [0.31, 0.1, 0.2, 0.05]
+    inclination = ["isotropic", 80.0, "isotropic", 65.0]
+    sigma = [None, 2.0, None, None]
+    options = {"samples": 2000, "seed": 5}
+    systems = [{"period": p, "k1": a, "k2": b, "eccentricity": e,
+                "inclination": i if s is None else {"value": i, "sigma": s}}
+               for p, a, b, e, i, s in zip(period, k1, k2, ecc, inclination, sigma)]
+    status, rows = post(client, "/v1/batch/sb2", {"systems": systems, "uncertainty": options})
+    assert status == 200, rows
+    reference = {key: np.array([r["results"]["m1"].get(key, np.nan) for r in rows["results"]], dtype=float)
+                 for key in ("value", "sigma", "low", "high")}
+    table = Table({"period": period, "k1": k1, "k2": k2, "eccentricity": ecc})
+    table["period"].unit, table["k1"].unit, table["k2"].unit = "d", "km/s", "km/s"
+    table["inclination"] = [str(i) for i in inclination]
+    table["inclination"].unit = "deg"
+    table["inclination_sigma"] = MaskedColumn([s or 0.0 for s in sigma], mask=[s is None for s in sigma], unit="deg")
+    frame = pd.DataFrame({"period[d]": period, "k1[km/s]": k1, "k2[km/s]": k2, "eccentricity": ecc,
+                          "inclination[deg]": pd.Series(inclination, dtype=object),
+                          "inclination_sigma[deg]": [np.nan if s is None else s for s in sigma]})
+    for transport in ("arrow", "json"):
+        svc = Client("local", transport=transport)
+        for data in (table, frame):
+            out = svc.batch("sb2", data, uncertainty=options)
+            assert out.failed == [], (transport, type(data).__name__)
+            got = out.to_table()
+            for key, want in reference.items():
+                column = got["m1" if key == "value" else f"m1_{key}"]
+                values = np.where(np.ma.getmaskarray(column), np.nan, np.ma.getdata(column.value))
+                # the same floats as the JSON rows form of the same systems (NaN: not given there)
+                np.testing.assert_array_equal(values, want, err_msg=f"{transport} {type(data).__name__} {key}")

@@ -455,3 +455,81 @@ def test_a_missing_value_with_its_sigma_given_is_called_missing(client):
     single = client.post("/v1/spectroscopic/sb2", json={"period": 12.3, "k1": 50, "k2": {"value": None, "sigma": 0.5},
                                                         "eccentricity": 0.2})
     assert single.status_code == 422 and "missing" in single.get_json()["errors"]["k2"][0]
+
+
+# fictional systems of our demo scenario: random orientations for two, measured angles for the others
+MIXED = [({"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31}, "isotropic", None),
+         ({"period": 10.0, "k1": 20.0, "k2": 30.0, "eccentricity": 0.1}, "80", "2"),
+         ({"period": 23.9, "k1": 44.0, "k2": 52.5, "eccentricity": 0.2}, "isotropic", None),
+         ({"period": 7.31, "k1": 61.5, "k2": 70.2, "eccentricity": 0.05}, "65", None)]
+MIXED_OPTIONS = {"uncertainty": {"samples": 2000, "seed": 5}}
+
+
+def _mixed_tables(systems=MIXED) -> dict[str, bytes]:
+    """The systems as a CSV, an ECSV (text column with a unit) and an Arrow table (string column)."""
+    names = ("period", "k1", "k2", "eccentricity")
+    csv = ",".join(names) + ",inclination,inclination_sigma\n" + "".join(
+        ",".join(str(s[n]) for n in names) + f",{inc},{sigma or ''}\n" for s, inc, sigma in systems)
+    t = Table({n: [s[n] for s, _, _ in systems] for n in names})
+    t["inclination"] = [inc for _, inc, _ in systems]
+    t["inclination"].unit = "deg"
+    t["inclination_sigma"] = MaskedColumn([float(sigma or 0) for _, _, sigma in systems],
+                                          mask=[sigma is None for _, _, sigma in systems], unit="deg")
+    ecsv = io.StringIO()
+    t.write(ecsv, format="ascii.ecsv")
+    arrow = pa.table({**{n: [s[n] for s, _, _ in systems] for n in names},
+                      "inclination": [inc for _, inc, _ in systems],
+                      "inclination_sigma": pa.array([None if sigma is None else float(sigma) for _, _, sigma in systems],
+                                                    type=pa.float64())})
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, arrow.schema) as w:
+        w.write_table(arrow)
+    return {tables.CSV: csv.encode(), tables.ECSV: ecsv.getvalue().encode(), tables.ARROW: sink.getvalue().to_pybytes()}
+
+
+def _mixed_rows_reference(client):
+    """The JSON rows form of the same systems, and each system as a single request."""
+    systems = []
+    for s, inc, sigma in MIXED:
+        systems.append({**s, "inclination": inc if inc == "isotropic" else
+                        {"value": float(inc), "sigma": float(sigma or 0)}})
+    r = client.post("/v1/batch/sb2", json={"systems": systems, **MIXED_OPTIONS})
+    assert r.status_code == 200, r.get_json()
+    singles = [client.post("/v1/spectroscopic/sb2", json={**body, **MIXED_OPTIONS}).get_json() for body in systems]
+    return [row["results"] for row in r.get_json()["results"]], singles
+
+
+@pytest.mark.parametrize("fmt", FORMATS)
+def test_an_inclination_column_mixing_isotropic_and_angles_answers_each_row_as_it_says(client, fmt):
+    data = _mixed_tables()[fmt]
+    rows, singles = _mixed_rows_reference(client)
+    r = post_table(client, "sb2", data, fmt, MIXED_OPTIONS, accept="application/json")
+    assert r.status_code == 200, r.get_json()
+    got = r.get_json()
+    assert got["errors"] == [], got["errors"]
+    assert got["uncertainty"]["method"] == ["monte_carlo", "linear", "monte_carlo", "linear"]
+    for k, reference in enumerate(rows):
+        for name, entry in reference.items():
+            for key in ("value", "sigma", "low", "high"):
+                # the same floats as the rows form of the same systems (null where a member is absent)
+                assert same([got["columns"][name][key][k]], [entry.get(key)]), (k, name, key)
+    for k in (1, 3):                            # the angles: linear, exactly as alone
+        assert {n: got["columns"][n]["value"][k] for n in rows[k]} == \
+            {n: e["value"] for n, e in singles[k]["results"].items()}
+    assert got["columns"]["m1"]["value"][0] == singles[0]["results"]["m1"]["value"]    # the first draws as alone
+    # 2000 draws of cos i uniform: the median M1 is M1 sin^3 i / (sqrt(3)/2)^3 (a standard result), about 2 %
+    m1s = got["columns"]["m1_sin3i"]["value"][2]
+    assert got["columns"]["m1"]["value"][2] == pytest.approx(m1s / 0.75 ** 1.5, rel=0.1)
+    # answered as a table: low and high empty for the linear systems, the method per system
+    answer = tables.decode_answer(post_table(client, "sb2", data, fmt, MIXED_OPTIONS).data, fmt)
+    assert np.isnan(answer["columns"]["m1"]["low"][[1, 3]]).all() and not np.isnan(answer["columns"]["m1"]["low"][[0, 2]]).any()
+    assert list(answer["uncertainty"]["method"]) == ["monte_carlo", "linear", "monte_carlo", "linear"]
+
+
+@pytest.mark.parametrize("fmt", FORMATS)
+def test_a_cell_neither_a_number_nor_isotropic_is_that_systems_error_naming_the_column(client, fmt):
+    data = _mixed_tables([*MIXED[:3], (MIXED[3][0], "edge-on", None)])[fmt]
+    answer = tables.decode_answer(post_table(client, "sb2", data, fmt, MIXED_OPTIONS).data, fmt)
+    assert [e["index"] for e in answer["errors"]] == [3]
+    assert 'inclination: value must be a number or "isotropic"' in answer["errors"][0]["detail"]
+    assert not np.isnan(answer["columns"]["m1"]["value"][:3]).any()

@@ -98,7 +98,7 @@ class _Column:
     sigma_plus: np.ndarray
     factor: np.ndarray | float
     slow: np.ndarray                      # systems the array path does not take as they are
-    isotropic: bool = False
+    isotropic: np.ndarray | None = None   # systems given as "isotropic" (random orientations; value 90 there)
 
 
 @dataclass
@@ -223,16 +223,18 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
         for name, c in columns.items():
             spec = calc.input(name)
             given = ~np.isnan(c.value)
+            iso = c.isotropic if c.isotropic is not None else np.zeros(n, dtype=bool)
             k = c.factor
             x = c.value if spec.time else c.value * k
             sm, sp = c.sigma_minus * k, c.sigma_plus * k
-            bad = c.slow | (given & broken(spec, x, sm, sp))
+            # an isotropic system's value is a stand-in, not in the column's unit: no rule applies to it
+            bad = c.slow | (given & ~iso & broken(spec, x, sm, sp))
             if spec.required and spec.default is None:
                 bad |= ~given
             slow |= bad
             converted[name] = (x, sm, sp)
             code = np.where(sm != sp, ASYMMETRIC, np.where(sm > 0, NORMAL, EXACT))
-            codes.append(np.where(given, ISOTROPIC if c.isotropic else code, ABSENT))
+            codes.append(np.where(given, np.where(iso, ISOTROPIC, code), ABSENT))
     levels: dict[str, list] = {}
     for name, ch in choices.items():
         spec = calc.input(name)
@@ -578,9 +580,12 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
         return _Column(value, zeros, zeros, 1.0, bad), lambda i: raw
     if isinstance(raw, list):
         value, bad = number_column(raw)
-        return _Column(value, zeros, zeros, 1.0, bad), lambda i: raw[i]
+        iso = _isotropic_entries(spec, raw, bad)
+        value = np.where(iso, 90.0, value) if iso.any() else value
+        return _Column(value, zeros, zeros, 1.0, bad & ~iso, iso), lambda i: raw[i]
     if isinstance(raw, str) and spec.isotropic and raw == "isotropic":
-        return _Column(np.full(n, 90.0), zeros, zeros, 1.0, np.zeros(n, dtype=bool), isotropic=True), lambda i: raw
+        return _Column(np.full(n, 90.0), zeros, zeros, 1.0, np.zeros(n, dtype=bool), np.ones(n, dtype=bool)), \
+            lambda i: raw
     if not isinstance(raw, (dict, str)):
         raise invalid({where: ["must be a number, an array with one entry per system, or an object of value and "
                                "sigma arrays"]})
@@ -628,6 +633,11 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
         if key in raw and (type(raw[key]) not in (int, float, str, list, np.ndarray)):
             raise invalid({f"{where}.{key}": ["must be a number or an array with one entry per system"]})
     value, bad, value_at = member("value")
+    # a table's text column may say "isotropic" in some systems and give angles in the others
+    iso = _isotropic_entries(spec, raw["value"], bad) if isinstance(raw["value"], list) else np.zeros(n, dtype=bool)
+    if iso.any():                       # (a table's float column may be read-only: not written in place)
+        value = np.where(iso, 90.0, value)
+        bad = bad & ~iso
     keys = [key for key in ("sigma", "sigma_minus", "sigma_plus") if key in raw]
     # a null sigma in one system means none given; a null value means the input is not given there
     members = {key: member(key) for key in keys}
@@ -646,8 +656,19 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     absent = np.isnan(value) & ~bad
     for key in keys:
         bad |= absent & ~np.isnan(sigmas[key][0])       # a sigma without a value: the parser says so
+    if iso.any():
+        # random orientations have no sigma: a system that gives one is worded by the parser (an empty
+        # or zero sigma beside "isotropic", as a float column must hold something there, is none)
+        unreadable = np.logical_or.reduce([b for _, b in sigmas.values()]) if sigmas else False
+        with_sigma = iso & (unreadable | (sm != 0) | (sp != 0))
+        bad |= with_sigma
+        iso &= ~with_sigma
+        sm = np.where(iso, 0.0, sm)
+        sp = np.where(iso, 0.0, sp)
 
     def view(i):
+        if iso[i]:
+            return "isotropic"
         entry = {"value": value_at(i)}
         for key in keys:
             if members[key][2](i) is not None:
@@ -656,7 +677,17 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
             entry["unit"] = unit
         return None if entry["value"] is None and len(entry) == 1 + (unit is not None) else entry
 
-    return _Column(value, sm, sp, k, bad), view
+    return _Column(value, sm, sp, k, bad, iso if iso.any() else None), view
+
+
+def _isotropic_entries(spec: Input, items: list, bad: np.ndarray) -> np.ndarray:
+    """Which entries of a column's list are the string "isotropic" (for an input that takes it);
+    only the entries that are not numbers are looked at."""
+    iso = np.zeros(len(items), dtype=bool)
+    if spec.isotropic:
+        for k in np.flatnonzero(bad).tolist():
+            iso[k] = type(items[k]) is str and items[k] == "isotropic"
+    return iso
 
 
 def columns_answer(calc: Calculation, done: Evaluated) -> dict:
@@ -681,7 +712,8 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
             else:
                 full = np.full((n,) + trail, np.nan)
                 for g in ok:
-                    if o.name in g.result.outputs:
+                    # a linear group has no low/high where a Monte Carlo one has: null for its systems
+                    if key in g.result.outputs.get(o.name, ()):
                         full[g.rows] = g.result.outputs[o.name][key]
             entry[key] = full * k if k != 1.0 else full
         columns[o.name] = {"value": entry.pop("value"), **entry, "unit": unit}

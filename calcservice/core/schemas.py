@@ -26,6 +26,9 @@ MEASURED_KEYS = {"value", "sigma", "sigma_minus", "sigma_plus", "samples", "unit
 FORM_HINT = ('must be a number, or an object such as {"value": 1.2, "sigma": 0.1}, '
              '{"value": 1.2, "sigma_minus": 0.1, "sigma_plus": 0.2} or {"samples": [...]}')
 
+ISOTROPIC_ALONE = ('"isotropic" (random orientations, cos i uniform) takes no sigma or unit: give the string '
+                   '"isotropic" alone (in a table, leave that system\'s sigma empty)')
+
 
 def number(x: Any, what: str = "value") -> float:
     """A finite float from a JSON number; booleans, strings and overflowing numbers are refused."""
@@ -186,7 +189,7 @@ class MeasuredField(_CheckedField):
                 raise ValidationError(spec.domain.message(spec.unit))
             return RawQuantity(np.array([x]), one, one)
         if not isinstance(value, dict):
-            raise ValidationError(FORM_HINT)
+            raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
         return self._from_object(value)
 
     def _from_object(self, value: dict) -> RawQuantity:
@@ -221,6 +224,9 @@ class MeasuredField(_CheckedField):
         text = v if isinstance(v, str) and spec.time else None
         if text is not None:
             x = _calendar_jd(v, self.limits)
+        elif spec.isotropic and isinstance(v, str):
+            # e.g. a table's cell: say what the column may hold
+            raise ValidationError(ISOTROPIC_ALONE if v == "isotropic" else 'value must be a number or "isotropic"')
         else:
             x = number(v, "value")
         if "sigma" in value and ("sigma_minus" in value or "sigma_plus" in value):
