@@ -785,7 +785,8 @@ def _spread(d: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 def heavy_tailed(d: np.ndarray, mask: np.ndarray, median: np.ndarray) -> np.ndarray:
     """Where the spread of the draws is carried by a few of them, so that their standard deviation
-    describes those draws rather than the distribution (n,) + trail.
+    describes those draws rather than the distribution (n,) + trail.  Meaningful from ``MIN_DRAWS``
+    draws on: below, one draw of a normal often carries half the spread, and the engine does not ask.
 
     The test: the top ``TAIL_FRACTION`` (0.1 %, at least one draw) of the squared deviations from
     the median hold more than ``TAIL_SHARE`` (half) of their sum.  A normal distribution puts about
