@@ -653,6 +653,12 @@ def _few_draws(s: int, sampled: list[str]) -> list[Warning]:
     return [Warning("few_draws", "the samples of {subject} hold" + message, None, name) for name in sampled]
 
 
+def _few_kept(s: int, where) -> Warning:
+    return Warning("few_draws", f"fewer than {MIN_DRAWS} of the {s} Monte Carlo draws were kept (inside the inputs' "
+                   "physical domains, with a finite result): the median, sigma and the 68.27 % interval (low, high) are rough, and whether "
+                   "sigma exists (sigma_undefined) is not tested", where)
+
+
 def _no_budget(name: str) -> Warning:
     return Warning("budget_not_given", "{subject}: no uncertainty budget is given for this output (a series output, "
                    "or Monte Carlo draws of correlated, sampled or isotropic inputs, which have no share of their "
@@ -735,7 +741,8 @@ TAIL_SHARE = 0.5         # above this share of the squared deviations in them, s
 # holds half the squared deviations about 1 time in 5, one in 20 about 1 in 100, one in 100 never
 # (measured: 0 of 100,000), while one in 100 draws of 1/sin^3 i (isotropic orientations) still does
 # about 4 times in 5.  A request may not ask for fewer; the user's own samples may be fewer (their
-# length is theirs), and are then answered with a few_draws warning and without the heavy-tail test.
+# length is theirs), and so may the draws kept after rejection: these are answered with a few_draws
+# warning and without the heavy-tail test.
 MIN_DRAWS = 100
 
 
@@ -824,6 +831,7 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
         result.failed[int(k)] = {"_inputs": ["every Monte Carlo draw fell outside the inputs' physical domains or "
                                              "gave a non-finite result"]}
     mask = valid.reshape(valid.shape + (1,) * len(trail))
+    enough = (nvalid >= MIN_DRAWS).reshape((n,) + (1,) * len(trail))      # where the heavy-tail test can tell
     kept, scalar = {}, {}
     for o in calc.outputs:
         if o.name not in ys:
@@ -831,7 +839,7 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
         d = _draws_of(o, ys[o.name])
         med, low, high = quantiles(d, valid, (0.5, ONE_SIGMA_LOW, ONE_SIGMA_HIGH))
         _, var = _spread(d, mask)
-        heavy = heavy_tailed(d, mask, med) if s >= MIN_DRAWS else np.zeros(med.shape, dtype=bool)
+        heavy = heavy_tailed(d, mask, med) & enough if s >= MIN_DRAWS else np.zeros(med.shape, dtype=bool)
         if heavy.any():
             var = np.where(heavy, np.nan, var)
             result.warnings.append(_no_sigma(o.name, heavy.reshape(n, -1).any(axis=1)))
@@ -852,6 +860,8 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
                                             n, s, trail, result.warnings)
     if s < MIN_DRAWS:
         result.warnings[:0] = _few_draws(s, [name for name, q in quantities.items() if q.samples is not None])
+    elif not enough.all():
+        result.warnings.insert(0, _few_kept(s, (nvalid < MIN_DRAWS) & (nvalid > 0)))
     heavy = rejected > 0.05
     if np.any(heavy):
         result.warnings.append(Warning("draws_rejected", "more than 5 % of the Monte Carlo draws fell outside the "

@@ -157,6 +157,22 @@ def test_too_few_draws_are_not_taken_for_a_heavy_tail(draws):
         assert r.outputs["mass_function"]["sigma"][0] == pytest.approx(np.std(f, ddof=1), rel=1e-12)
 
 
+def test_too_few_kept_draws_are_not_taken_for_a_heavy_tail():
+    # 150 draws of an eccentricity of 0.995 +- 0.05: about half leave [0, 1) and are rejected, which
+    # leaves fewer than MIN_DRAWS to summarise; the second system (e = 0.3) keeps all of its draws
+    calc = get("sb1")
+    q = {"period": Measured.normal(41.6, 0.02), "k1": Measured.normal(23.4, 0.3),
+         "eccentricity": Measured.normal(np.array([0.995, 0.3]), np.array([0.05, 0.01]))}
+    r = evaluate(calc, q, options=Options(method="monte_carlo", samples=150, seed=1, keep_draws=True))
+    kept = 150 * (1 - r.rejected_fraction)
+    assert kept[0] < MIN_DRAWS <= kept[1] == 150
+    few = [w for w in r.warnings if w.code == "few_draws"]
+    assert len(few) == 1 and few[0].where.tolist() == [True, False]
+    assert "sigma_undefined" not in [w.code for w in r.warnings]
+    f = r.draws["mass_function"][0]
+    assert r.outputs["mass_function"]["sigma"][0] == pytest.approx(np.nanstd(f, ddof=1), rel=1e-12)
+
+
 def test_the_heavy_tail_test_still_decides_at_the_fewest_draws():
     # from MIN_DRAWS on the test applies: isotropic masses (no finite variance) lose their sigma for
     # most seeds, a nearly normal output keeps it for every seed
