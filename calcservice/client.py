@@ -634,7 +634,8 @@ def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
     Monte Carlo systems x draws)."""
     rows = int(limits.get("max_batch_rows", DEFAULT_LIMITS["max_batch_rows"]))
     unc = opts.get("uncertainty") or {}
-    if unc.get("method") == "monte_carlo":
+    implied = "monte_carlo" if "samples" in unc or "seed" in unc else "linear"     # as the service reads it
+    if unc.get("method", implied).replace("-", "_") == "monte_carlo":
         draws = int(unc.get("samples") or limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
         rows = min(rows, int(limits.get("max_batch_draws", DEFAULT_LIMITS["max_batch_draws"])) // max(1, draws))
     return max(1, rows)

@@ -21,6 +21,7 @@ import yaml
 
 from . import __version__, media
 from .config import Limits
+from .engine import MIN_DRAWS
 from .plots import has_curve
 from .registry import DATE, Calculation, Input, calculations
 
@@ -123,14 +124,20 @@ COMPONENTS: dict[str, dict] = {
                                     "minItems": 2, "maxItems": 2, "uniqueItems": True},
                         "rho": {"type": "number", "minimum": -1, "maximum": 1}}},
     "Uncertainty": {"type": "object", "additionalProperties": False,
-                    "description": "how uncertainties are propagated; any request with samples inputs is Monte Carlo",
+                    "description": "how uncertainties are propagated; any request with samples inputs is Monte Carlo; "
+                                   "samples or seed without a method mean Monte Carlo, and with the linear method "
+                                   "they are refused (422 naming uncertainty.samples or uncertainty.seed)",
                     "properties": {
                         "method": {"type": "string", "enum": ["linear", "monte_carlo", "monte-carlo"],
-                                   "default": "linear"},
-                        "samples": {"type": "integer", "minimum": 1,
-                                    "description": f"Monte Carlo draws (default {DEFAULTS.default_samples}; over "
+                                   "description": "linear by default; monte_carlo when samples or seed is given"},
+                        "samples": {"type": "integer", "minimum": MIN_DRAWS,
+                                    "description": f"Monte Carlo draws (default {DEFAULTS.default_samples}; at least "
+                                                   f"{MIN_DRAWS}, for a trustworthy sigma and 68.27 % interval; over "
                                                    "the configured max_samples: 413)"},
-                        "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1}}},
+                        "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1}},
+                    # a method other than linear, or neither samples nor seed
+                    "anyOf": [{"properties": {"method": {"enum": ["monte_carlo", "monte-carlo"]}}},
+                              {"not": {"anyOf": [{"required": ["samples"]}, {"required": ["seed"]}]}}]},
     "UncertaintyReport": {"type": "object", "properties": {
         "method": {"type": "string", "enum": ["linear", "monte_carlo"]},
         "samples": {"type": "integer"},

@@ -159,8 +159,8 @@ def nominal_body(calc: Calculation, response: Mapping[str, Any], request: Mappin
     if response.get("time_format") == "mjd":       # the echoed times (and so the grid) are MJD
         body["time_format"] = "mjd"
     if isotropic:
-        # random orientations need draws; a handful is enough for the median curve
-        body["uncertainty"] = {"method": "monte_carlo", "samples": 64, "seed": 1}
+        # random orientations need draws; the fewest a request may ask for serve the median curve
+        body["uncertainty"] = {"method": "monte_carlo", "samples": 100, "seed": 1}
     return body
 
 

@@ -105,7 +105,11 @@ def test_isotropic_inclinations_against_the_analytic_distribution():
 
 def test_isotropic_switches_linear_to_monte_carlo():
     body = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31, "inclination": "isotropic",
-            "uncertainty": {"samples": 2000, "seed": 1}}
+            "uncertainty": {"method": "linear"}}
     resp = compute("sb2", body)
     assert resp["uncertainty"]["method"] == "monte_carlo"
     assert [w["code"] for w in resp["warnings"]][0] == "method_switched"
+    # draws and a seed without a method ask for Monte Carlo: nothing to switch
+    resp = compute("sb2", {**body, "uncertainty": {"samples": 2000, "seed": 1}})
+    assert resp["uncertainty"]["method"] == "monte_carlo" and resp["uncertainty"]["samples"] == 2000
+    assert "method_switched" not in [w["code"] for w in resp["warnings"]]

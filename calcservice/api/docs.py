@@ -177,7 +177,7 @@ the machine-readable description is <a href="/openapi.yaml">openapi.yaml</a>; li
 <code>{{"samples": [...]}}</code> (your own draws, paired index by index across inputs); an object may add
 <code>"unit"</code> (an astropy unit string), otherwise the input's default unit applies. Options:
 <code>correlations</code>, <code>uncertainty</code> (<code>linear</code> or <code>monte_carlo</code>, with
-<code>samples</code> and <code>seed</code>), <code>units</code> (of the outputs), <code>covariance</code>,
+<code>samples</code>, at least 100, and <code>seed</code>, which without a method mean Monte Carlo), <code>units</code> (of the outputs), <code>covariance</code>,
 <code>budget</code>. Each output answers <code>value</code>, <code>sigma</code> and its <code>unit</code>
 (Monte Carlo: the median, and <code>low</code>/<code>high</code> of the central 68.27 % interval).
 Errors are RFC 9457 problem details naming the fields. <code>?format=latex</code> or <code>markdown</code>

@@ -12,7 +12,7 @@ import numpy as np
 from marshmallow import ValidationError
 
 from ..config import Limits
-from ..engine import Measured, Options
+from ..engine import MIN_DRAWS, Measured, Options
 from ..registry import Calculation, Input, calculations
 from ..units import UnitError, factor
 from .problems import Problem, invalid, too_large
@@ -234,12 +234,12 @@ def within_draw_limit(samples: int, limits: Limits) -> None:
 def options_of(calc: Calculation, data: Mapping[str, Any], quantities: Mapping[str, Measured], limits: Limits,
                errors: dict[str, list[str]]) -> Options:
     unc = data.get("uncertainty", {})
-    method = unc.get("method", "linear").replace("-", "_")
+    method = unc.get("method", "linear")        # the schema implies monte_carlo from samples or a seed
     samples = unc.get("samples", limits.default_samples)
-    if not 1 <= samples:
-        errors.setdefault("uncertainty.samples", []).append("must be >= 1")
-    else:
-        within_draw_limit(samples, limits)
+    within_draw_limit(samples, limits)
+    if "samples" in unc and samples < MIN_DRAWS:
+        errors.setdefault("uncertainty.samples", []).append(
+            f"must be >= {MIN_DRAWS}: fewer Monte Carlo draws give no trustworthy sigma or 68.27 % interval")
     correlations: dict[tuple[str, str], float] = {}
     for k, c in enumerate(data.get("correlations", [])):
         a, b = c["between"]

@@ -15,7 +15,7 @@ from functools import lru_cache
 from typing import Any
 
 import numpy as np
-from marshmallow import RAISE, Schema, ValidationError, fields, validate, validates_schema
+from marshmallow import RAISE, Schema, ValidationError, fields, post_load, validate, validates_schema
 
 from ..config import Limits
 from ..registry import Calculation, Input
@@ -375,6 +375,22 @@ class UncertaintySchema(Schema):
     method = fields.String(validate=validate.OneOf(("linear", "monte_carlo", "monte-carlo")))
     samples = WholeNumber(strict=True)
     seed = WholeNumber(strict=True, validate=validate.Range(0, 2**63, max_inclusive=False))
+
+    @validates_schema
+    def _check(self, data, **kwargs):
+        # draws and a seed contradict the linear method: answering linear would silently drop them
+        if data.get("method") == "linear":
+            errors = {key: [f"{key} is for the Monte Carlo method, not the linear one: drop it, or ask for "
+                            '"method": "monte_carlo"'] for key in ("samples", "seed") if key in data}
+            if errors:
+                raise ValidationError(errors)
+
+    @post_load
+    def _method(self, data, **kwargs):
+        """The method spelt one way; draws or a seed without a method ask for Monte Carlo (as the
+        command line's --samples and --seed do)."""
+        implied = "monte_carlo" if "samples" in data or "seed" in data else "linear"
+        return {**data, "method": data.get("method", implied).replace("-", "_")}
 
 
 def _field_for(spec: Input, limits: Limits) -> fields.Field:

@@ -797,7 +797,7 @@
       if (spec.kind === "series" && spec.time) { b[spec.name] = grid; continue; }
       if (!e || e.default) continue;
       if (spec.kind === "choice" || spec.kind === "integer") b[spec.name] = e.value;
-      else if (e.value === "isotropic") { b[spec.name] = "isotropic"; b.uncertainty = { method: "monte_carlo", samples: 64, seed: 1 }; }
+      else if (e.value === "isotropic") { b[spec.name] = "isotropic"; b.uncertainty = { method: "monte_carlo", samples: 100, seed: 1 }; }
       else if (spec.kind === "quantity") b[spec.name] = e.value;
     }
     if (requestBody.units) b.units = requestBody.units;
