@@ -269,7 +269,11 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
         table = Table.read(text.splitlines(), format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
-    except (InconsistentTableError, ValueError, TypeError, KeyError, IndexError, AttributeError) as e:
+    except KeyError as e:           # astropy's ECSV reader looks up each column's keys
+        raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
+                              f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "
+                              "datatype)") from None
+    except (InconsistentTableError, ValueError, TypeError, IndexError, AttributeError) as e:
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
         if type(e).__module__.startswith(("yaml", "astropy")):

@@ -441,14 +441,18 @@ def _system(k, inclination):
                                                                    {"inclination": inclination})}
 
 
-def _rows_reference(client, inclinations, uncertainty):
-    """The rows form and the single requests of the same systems, one answer per system."""
+def _rows_reference(client, inclinations, uncertainty, own=None):
+    """The rows form and the single requests of the same systems, one answer per system; ``own`` gives
+    systems their own uncertainty options (by index)."""
     systems = [_system(k, inc) for k, inc in enumerate(inclinations)]
-    status, rows = post(client, "/v1/batch/sb2", {"systems": systems, "uncertainty": uncertainty})
+    for k, options in (own or {}).items():
+        systems[k]["uncertainty"] = options
+    shared = {} if uncertainty is None else {"uncertainty": uncertainty}
+    status, rows = post(client, "/v1/batch/sb2", {"systems": systems, **shared})
     assert status == 200, rows
     singles = []
     for body in systems:
-        status, single = post(client, "/v1/spectroscopic/sb2", {**body, "uncertainty": uncertainty})
+        status, single = post(client, "/v1/spectroscopic/sb2", {**shared, **body})
         assert status == 200, single
         singles.append(single)
     return rows["results"], singles
@@ -467,13 +471,15 @@ def _column_system(got, k):
 def test_isotropic_beside_a_number_in_a_columns_batch_answers_each_system_by_its_own_method(client, second):
     # the audit's case: a 500 before (the linear system has no low/high to scatter)
     cols = {name: v[:2] for name, v in ISO_SYSTEMS.items()}
-    status, got = post(client, "/v1/batch/sb2", {"columns": {**cols, "inclination": ["isotropic", second]},
-                                                 "uncertainty": {"seed": 7}})
+    # linear by default (a seed would ask for Monte Carlo for all): the isotropic system is drawn with
+    # the batch's seed, which the answer states
+    status, got = post(client, "/v1/batch/sb2", {"columns": {**cols, "inclination": ["isotropic", second]}})
     assert status == 200, got
     assert got["errors"] == []
     assert got["uncertainty"]["method"] == ["monte_carlo", "linear"]
-    assert got["uncertainty"]["seed"] == 7 and got["uncertainty"]["rejected_fraction"] == [0.0, None]
-    rows, singles = _rows_reference(client, ["isotropic", second], {"seed": 7})
+    assert got["uncertainty"]["rejected_fraction"] == [0.0, None]
+    drawn = {"method": "monte_carlo", "seed": got["uncertainty"]["seed"]}
+    rows, singles = _rows_reference(client, ["isotropic", second], None, own={0: drawn})
     for k in range(2):
         system = _column_system(got, k)
         # the single request of the same system (the one isotropic system draws as it would alone)

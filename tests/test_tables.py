@@ -462,7 +462,7 @@ MIXED = [({"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31}, "isotr
          ({"period": 10.0, "k1": 20.0, "k2": 30.0, "eccentricity": 0.1}, "80", "2"),
          ({"period": 23.9, "k1": 44.0, "k2": 52.5, "eccentricity": 0.2}, "isotropic", None),
          ({"period": 7.31, "k1": 61.5, "k2": 70.2, "eccentricity": 0.05}, "65", None)]
-MIXED_OPTIONS = {"uncertainty": {"samples": 2000, "seed": 5}}
+MIXED_OPTIONS = {}           # linear by default: the isotropic systems are drawn, with the seed the answer states
 
 
 def _mixed_tables(systems=MIXED) -> dict[str, bytes]:
@@ -487,12 +487,13 @@ def _mixed_tables(systems=MIXED) -> dict[str, bytes]:
     return {tables.CSV: csv.encode(), tables.ECSV: ecsv.getvalue().encode(), tables.ARROW: sink.getvalue().to_pybytes()}
 
 
-def _mixed_rows_reference(client):
-    """The JSON rows form of the same systems, and each system as a single request."""
+def _mixed_rows_reference(client, seed):
+    """The JSON rows form of the same systems, and each system as a single request: the isotropic ones
+    drawn with ``seed``, the batch's."""
     systems = []
     for s, inc, sigma in MIXED:
-        systems.append({**s, "inclination": inc if inc == "isotropic" else
-                        {"value": float(inc), "sigma": float(sigma or 0)}})
+        systems.append({**s, "inclination": "isotropic", "uncertainty": {"method": "monte_carlo", "seed": seed}}
+                       if inc == "isotropic" else {**s, "inclination": {"value": float(inc), "sigma": float(sigma or 0)}})
     r = client.post("/v1/batch/sb2", json={"systems": systems, **MIXED_OPTIONS})
     assert r.status_code == 200, r.get_json()
     singles = [client.post("/v1/spectroscopic/sb2", json={**body, **MIXED_OPTIONS}).get_json() for body in systems]
@@ -502,10 +503,10 @@ def _mixed_rows_reference(client):
 @pytest.mark.parametrize("fmt", FORMATS)
 def test_an_inclination_column_mixing_isotropic_and_angles_answers_each_row_as_it_says(client, fmt):
     data = _mixed_tables()[fmt]
-    rows, singles = _mixed_rows_reference(client)
     r = post_table(client, "sb2", data, fmt, MIXED_OPTIONS, accept="application/json")
     assert r.status_code == 200, r.get_json()
     got = r.get_json()
+    rows, singles = _mixed_rows_reference(client, got["uncertainty"]["seed"])
     assert got["errors"] == [], got["errors"]
     assert got["uncertainty"]["method"] == ["monte_carlo", "linear", "monte_carlo", "linear"]
     for k, reference in enumerate(rows):
@@ -517,7 +518,7 @@ def test_an_inclination_column_mixing_isotropic_and_angles_answers_each_row_as_i
         assert {n: got["columns"][n]["value"][k] for n in rows[k]} == \
             {n: e["value"] for n, e in singles[k]["results"].items()}
     assert got["columns"]["m1"]["value"][0] == singles[0]["results"]["m1"]["value"]    # the first draws as alone
-    # 2000 draws of cos i uniform: the median M1 is M1 sin^3 i / (sqrt(3)/2)^3 (a standard result), about 2 %
+    # draws of cos i uniform: the median M1 is M1 sin^3 i / (sqrt(3)/2)^3 (a standard result), within a few %
     m1s = got["columns"]["m1_sin3i"]["value"][2]
     assert got["columns"]["m1"]["value"][2] == pytest.approx(m1s / 0.75 ** 1.5, rel=0.1)
     # answered as a table: low and high empty for the linear systems, the method per system
@@ -533,3 +534,11 @@ def test_a_cell_neither_a_number_nor_isotropic_is_that_systems_error_naming_the_
     assert [e["index"] for e in answer["errors"]] == [3]
     assert 'inclination: value must be a number or "isotropic"' in answer["errors"][0]["detail"]
     assert not np.isnan(answer["columns"]["m1"]["value"][:3]).any()
+
+
+def test_an_ecsv_header_without_a_datatype_says_so(client):
+    # the ECSV standard (astropy APE 6) gives every column a name and a datatype; one without says which key
+    body = (b"# %ECSV 1.0\n# ---\n# datatype:\n# - {name: period, unit: d}\n# - {name: k1, datatype: float64}\n"
+            b"period k1\n41.6 38.2\n")
+    r = client.post("/v1/batch/sb2", data=body, content_type="text/csv", headers={"Accept": "application/json"})
+    assert r.status_code == 400 and "lacks the key 'datatype'" in r.get_json()["detail"]
