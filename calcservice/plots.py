@@ -9,9 +9,9 @@ The functions here know nothing about HTTP.  A time-series figure needs the calc
 re-evaluated on a fine time grid: the caller passes ``evaluate(body) -> response``.
 
 A figure's cost does not grow with the size of the request: the model curves are drawn on their
-own grid, a layer of more than :data:`MAX_MARKERS` requested points keeps one marker (with the
-longest error bars) per cell of half a marker's size, and the histogram's bins are counted before
-they are made.
+own grid, a layer of more than :data:`MAX_MARKERS` requested points keeps one marker per cell
+smaller than a marker (with the cell's extreme error-bar ends), and the histogram's bins are
+counted before they are made.
 """
 
 from __future__ import annotations
@@ -34,8 +34,8 @@ MAX_CYCLES_IN_TIME = 3.0
 MAX_BINS = 80
 #: Diameter of a requested point's marker [pt].
 MARKER_SIZE = 5.0
-#: Requested points of one layer drawn one by one; more are thinned to one per half-marker cell,
-#: and a layer still larger is rasterized in SVG.
+#: Requested points of one layer drawn one by one; more are thinned to one per cell whose diagonal
+#: is a marker's radius, and a layer still larger is rasterized in SVG.
 MAX_MARKERS = 1000
 STAR_COLOURS = ("#1f5aa6", "#c8501e")
 
@@ -129,10 +129,10 @@ def marker_subset(x: np.ndarray, y: np.ndarray, dx: float, dy: float,
                   lower: np.ndarray | None = None, upper: np.ndarray | None = None) -> np.ndarray:
     """Indices of the points to draw so that the figure shows what all of them would.
 
-    The plane is cut into cells ``dx`` by ``dy`` (data units; the caller makes them at most half a
-    marker on the page) and each occupied cell keeps the point whose error bar reaches lowest and
-    the one whose bar reaches highest (``lower``/``upper``: the bars' ends; without bars, the
-    cell's first point).  Every point then lies within half a marker of a drawn one and every
+    The plane is cut into cells ``dx`` by ``dy`` (data units; the caller makes a cell's diagonal at
+    most a marker's radius on the page) and each occupied cell keeps the point whose error bar
+    reaches lowest and the one whose bar reaches highest (``lower``/``upper``: the bars' ends;
+    without bars, the cell's first point).  Every point then lies under a drawn marker and every
     bar within the span drawn at its cell; the count is bounded by the number of cells, not of
     points.  Points with a non-finite coordinate are dropped (they are never drawn).
     """
@@ -277,9 +277,10 @@ def curve(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, 
     return figure_bytes(curve_figure(calc, response, request, evaluate), fmt)
 
 
-def _half_marker_cells(width_in: float, height_in: float) -> tuple[int, int]:
-    # cells across a figure this size, each half a marker: an axes inside it has smaller ones
-    return (math.ceil(width_in * 72.0 / (MARKER_SIZE / 2.0)), math.ceil(height_in * 72.0 / (MARKER_SIZE / 2.0)))
+def _marker_cells(width_in: float, height_in: float) -> tuple[int, int]:
+    # cells across a figure this size whose diagonal is a marker's radius (an axes inside it has smaller ones)
+    side = MARKER_SIZE / 2.0 / math.sqrt(2.0)
+    return math.ceil(width_in * 72.0 / side), math.ceil(height_in * 72.0 / side)
 
 
 def _span(*arrays: np.ndarray | None) -> float:
@@ -293,7 +294,8 @@ def _thinning_note(n: int, drawn: Mapping[str, int]) -> str:
     if all(count == n for count in drawn.values()):
         return ""
     counts = ", ".join(f"{label} {count:,}" for label, count in drawn.items())
-    return f"{n:,} requested times, {counts} markers drawn: one per half-marker cell, its extreme error bars kept"
+    return (f"{n:,} requested times, {counts} markers drawn: the others lie under these, "
+            "within the error bars drawn beside them")
 
 
 def curve_figure(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, Any] | None,
@@ -335,7 +337,7 @@ def curve_figure(calc: Calculation, response: Mapping[str, Any], request: Mappin
                            label=None if shown else "periastron")
                 shown = True
     rv_unit = points["rv1"].get("unit", "")
-    columns, rows = _half_marker_cells(*size)
+    columns, rows = _marker_cells(*size)
     drawn: dict[str, int] = {}
     for k, (key, colour) in enumerate(zip(("rv1", "rv2"), STAR_COLOURS)):
         if key not in dense or key not in points:
@@ -343,17 +345,17 @@ def curve_figure(calc: Calculation, response: Mapping[str, Any], request: Mappin
         y = _arr(dense[key])
         ax.plot(x_dense[order], y[order], color=colour, linewidth=1.4, label=f"star {k + 1} ({key})")
         v, err = _arr(points[key]), _errors(points[key])
-        shown = np.arange(v.size)
+        marked = np.arange(v.size)
         if v.size > MAX_MARKERS:
             minus, plus = (err[0], err[1]) if err is not None and err.ndim == 2 else (err, err)
             lower, upper = (None, None) if err is None else (v - minus, v + plus)
-            shown = marker_subset(x_points, v, _span(x_points) / columns, _span(v, lower, upper) / rows, lower, upper)
+            marked = marker_subset(x_points, v, _span(x_points) / columns, _span(v, lower, upper) / rows, lower, upper)
             if err is not None:
-                err = err[..., shown]
-        ax.errorbar(x_points[shown], v[shown], yerr=err, fmt="o", color=colour, markersize=MARKER_SIZE,
+                err = err[..., marked]
+        ax.errorbar(x_points[marked], v[marked], yerr=err, fmt="o", color=colour, markersize=MARKER_SIZE,
                     markeredgecolor="white", markeredgewidth=0.6, capsize=2.5, elinewidth=1.0,
-                    rasterized=shown.size > MAX_MARKERS, label=f"requested times ({key})")
-        drawn[key] = shown.size
+                    rasterized=marked.size > MAX_MARKERS, label=f"requested times ({key})")
+        drawn[key] = marked.size
     gamma = _value(inputs, "gamma")
     if gamma is not None and "gamma" in inputs:
         g_unit = inputs["gamma"].get("unit", rv_unit)
@@ -386,13 +388,13 @@ def _relative_orbit(ax, dense: Mapping[str, Any], points: Mapping[str, Any], hei
     east, north = _sky(dense["projected_separation"], dense["position_angle"])
     ax.plot(east, north, color="#3b7a3b", linewidth=1.3, label="star 2 about star 1")
     pe, pn = _sky(points["projected_separation"], points["position_angle"])
-    shown = np.arange(pe.size)
+    marked = np.arange(pe.size)
     if pe.size > MAX_MARKERS:
-        # equal aspect: a cell is square, its side half a marker at most along the wider span
-        side = max(_span(pe), _span(pn)) / _half_marker_cells(height_in, height_in)[0]
-        shown = marker_subset(pe, pn, side, side)
-    ax.plot(pe[shown], pn[shown], "o", color="#3b7a3b", markersize=MARKER_SIZE, markeredgecolor="white",
-            rasterized=shown.size > MAX_MARKERS, label="requested times")
+        # equal aspect: square cells, the wider span across at most the axes' height
+        side = max(_span(pe), _span(pn)) / _marker_cells(height_in, height_in)[0]
+        marked = marker_subset(pe, pn, side, side)
+    ax.plot(pe[marked], pn[marked], "o", color="#3b7a3b", markersize=MARKER_SIZE, markeredgecolor="white",
+            rasterized=marked.size > MAX_MARKERS, label="requested times")
     ax.plot([0.0], [0.0], marker="*", color="#222222", markersize=11, linestyle="none", label="star 1")
     sep = _arr(dense.get("separation"))
     if sep is not None and np.any(np.isfinite(sep)):
@@ -412,4 +414,4 @@ def _relative_orbit(ax, dense: Mapping[str, Any], points: Mapping[str, Any], hei
     ax.set_title("relative orbit on the sky (north up, east left)", fontsize=10)
     ax.legend(loc="best", fontsize=8, frameon=False)
     ax.grid(True, linewidth=0.3, alpha=0.5)
-    return int(shown.size)
+    return int(marked.size)
