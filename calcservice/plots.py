@@ -118,10 +118,14 @@ def histogram_bins(draws: np.ndarray) -> np.ndarray | int:
     nearly face-on isotropic inclination) would otherwise ask numpy for 1e7 to 1e18 edges.
     For draws that are all equal, 10 (numpy's default count)."""
     d = np.asarray(draws, dtype=float)
-    if d.size < 2 or not np.ptp(d) > 0:
+    with np.errstate(over="ignore"):
+        spread = np.ptp(d) if d.size else 0.0
+    if not np.isfinite(spread):
+        raise PlotError("plot", "the draws span more than a floating-point number holds: no histogram can bin them")
+    if d.size < 2 or not spread > 0:
         return 10
     width = 2.0 * np.subtract(*np.percentile(d, [75, 25])) * d.size ** (-1.0 / 3.0)
-    count = np.ptp(d) / width if width > 0 else 1.0
+    count = spread / width if width > 0 else 1.0
     return np.histogram_bin_edges(d, bins=math.ceil(count) if count <= MAX_BINS else MAX_BINS)
 
 

@@ -9,7 +9,7 @@ import pytest
 from scipy.optimize import brentq
 
 from calcservice.core import compute
-from calcservice.plots import dense_times, nominal_body
+from calcservice.plots import PlotError, dense_times, nominal_body
 from calcservice.registry import calculations
 
 SB1_MC = {"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma": 0.3},
@@ -226,3 +226,7 @@ def test_histogram_bins_of_heavy_tailed_draws_are_counted_before_they_are_made()
              "high": float(np.percentile(heavy, 84.135)), "unit": "solMass"}
     svg = histogram("m2", heavy, entry, "svg")
     assert "200000 Monte Carlo draws" in svg_text(svg)
+    # draws wider than a float can span: a problem naming plot (numpy overflowed into a 500 before)
+    with pytest.raises(PlotError) as e:
+        histogram_bins(np.array([-1e308, 0.0, 1e308]))
+    assert e.value.field == "plot"
