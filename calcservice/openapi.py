@@ -22,7 +22,7 @@ import yaml
 from . import __version__, media
 from .config import Limits
 from .engine import MIN_DRAWS
-from .plots import has_curve
+from .plots import MAX_BINS, MAX_MARKERS, has_curve
 from .registry import DATE, Calculation, Input, calculations
 
 
@@ -550,7 +550,12 @@ FORMAT = {"name": "format", "in": "query", "required": False,
                          "references, constants with sources, conventions, uncertainty method), numbers rounded by the "
                          "Particle Data Group rule; svg or png: a figure: the radial-velocity curves of a calculation "
                          "that has them, or with plot=NAME the histogram of output NAME's Monte Carlo draws with the "
-                         "median and the central 68.27 % interval. plot needs the Monte Carlo method (\"uncertainty\": "
+                         f"median and the central 68.27 % interval (at most {MAX_BINS} bins). Beyond {MAX_MARKERS} requested "
+                         "times a curve's layer of points keeps one marker per cell whose diagonal is a marker's "
+                         "radius, with the cell's lowest and highest error-bar ends (rasterized in SVG if still above "
+                         f"{MAX_MARKERS}), and a footnote "
+                         "says how many were drawn: a figure's size and cost do not grow with the number of times. "
+                         "plot needs the Monte Carlo method (\"uncertainty\": "
                          "{\"method\": \"monte_carlo\"}, or samples inputs): without it the answer is a 422 naming "
                          "plot. Other formats ignore plot.",
           "schema": {"type": "string", "enum": ["json", *media.FORMATS], "default": "json"}}

@@ -7,6 +7,11 @@ only when a figure is asked for.
 
 The functions here know nothing about HTTP.  A time-series figure needs the calculation
 re-evaluated on a fine time grid: the caller passes ``evaluate(body) -> response``.
+
+A figure's cost does not grow with the size of the request: the model curves are drawn on their
+own grid, a layer of more than :data:`MAX_MARKERS` requested points keeps one marker per cell
+smaller than a marker (with the cell's extreme error-bar ends), and the histogram's bins are
+counted before they are made.
 """
 
 from __future__ import annotations
@@ -27,6 +32,11 @@ POINTS_PER_PERIOD = 720
 #: A series spanning more periods than this is plotted against orbital phase.
 MAX_CYCLES_IN_TIME = 3.0
 MAX_BINS = 80
+#: Diameter of a requested point's marker [pt].
+MARKER_SIZE = 5.0
+#: Requested points of one layer drawn one by one; more are thinned to one per cell whose diagonal
+#: is a marker's radius, and a layer still larger is rasterized in SVG.
+MAX_MARKERS = 1000
 STAR_COLOURS = ("#1f5aa6", "#c8501e")
 
 
@@ -79,11 +89,9 @@ def histogram(name: str, draws: np.ndarray, entry: Mapping[str, Any], fmt: str, 
         raise PlotError("plot", f"{name} has no finite Monte Carlo draws to plot")
     fig = _new_figure(7.0, 4.4)
     ax = fig.add_subplot()
-    edges = np.histogram_bin_edges(d, bins="fd") if d.size > 1 and np.ptp(d) > 0 else 10
+    edges = histogram_bins(d)
     # draws all equal: numpy's default bar of +-0.5 around them vanishes beside a value such as 1e45
     span = (d[0] - max(abs(d[0]) * 1e-6, 0.5), d[0] + max(abs(d[0]) * 1e-6, 0.5)) if np.isscalar(edges) else None
-    if not np.isscalar(edges) and len(edges) > MAX_BINS + 1:
-        edges = MAX_BINS
     ax.hist(d, bins=edges, range=span, color="#9db7d5", edgecolor="#4d6f96", linewidth=0.4)
     median, low, high = entry.get("value"), entry.get("low"), entry.get("high")
     if all(isinstance(x, (int, float)) and math.isfinite(x) for x in (low, high)):
@@ -100,6 +108,56 @@ def histogram(name: str, draws: np.ndarray, entry: Mapping[str, Any], fmt: str, 
     ax.set_title(title + (f"\n{description}" if description else ""), fontsize=10)
     ax.legend(loc="best", fontsize=8, frameon=False)
     return figure_bytes(fig, fmt)
+
+
+def histogram_bins(draws: np.ndarray) -> np.ndarray | int:
+    """Bin edges by the Freedman–Diaconis rule (width 2 IQR n^(-1/3); Freedman & Diaconis 1981,
+    Z. Wahrscheinlichkeitstheorie verw. Gebiete 57, 453), at most :data:`MAX_BINS` bins.
+
+    The number of bins is counted before any edge is made: heavy-tailed draws (a mass from a
+    nearly face-on isotropic inclination) would otherwise ask numpy for 1e7 to 1e18 edges.
+    For draws that are all equal, 10 (numpy's default count)."""
+    d = np.asarray(draws, dtype=float)
+    with np.errstate(over="ignore"):
+        spread = np.ptp(d) if d.size else 0.0
+    if not np.isfinite(spread):
+        raise PlotError("plot", "the draws span more than a floating-point number holds: no histogram can bin them")
+    if d.size < 2 or not spread > 0:
+        return 10
+    width = 2.0 * np.subtract(*np.percentile(d, [75, 25])) * d.size ** (-1.0 / 3.0)
+    count = spread / width if width > 0 else 1.0
+    return np.histogram_bin_edges(d, bins=math.ceil(count) if count <= MAX_BINS else MAX_BINS)
+
+
+def marker_subset(x: np.ndarray, y: np.ndarray, dx: float, dy: float,
+                  lower: np.ndarray | None = None, upper: np.ndarray | None = None) -> np.ndarray:
+    """Indices of the points to draw so that the figure shows what all of them would.
+
+    The plane is cut into cells ``dx`` by ``dy`` (data units; the caller makes a cell's diagonal at
+    most a marker's radius on the page) and each occupied cell keeps the point whose error bar
+    reaches lowest and the one whose bar reaches highest (``lower``/``upper``: the bars' ends;
+    without bars, the cell's first point).  Every point then lies under a drawn marker and every
+    bar within the span drawn at its cell; the count is bounded by the number of cells, not of
+    points.  Points with a non-finite coordinate are dropped (they are never drawn).
+    """
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    kept = np.flatnonzero(np.isfinite(x) & np.isfinite(y))
+    if kept.size == 0:
+        return kept
+    cx = np.floor((x[kept] - x[kept].min()) / (dx if dx > 0 else 1.0)).astype(np.int64)
+    cy = np.floor((y[kept] - y[kept].min()) / (dy if dy > 0 else 1.0)).astype(np.int64)
+    cell = cx * (int(cy.max()) + 1) + cy
+    if lower is None or upper is None:
+        return kept[np.unique(cell, return_index=True)[1]]
+    yk = y[kept]
+    low = np.where(np.isfinite(lower[kept]), lower[kept], yk)
+    high = np.where(np.isfinite(upper[kept]), upper[kept], yk)
+    chosen = []
+    for key in (low, -high):
+        order = np.lexsort((key, cell))         # by cell, then lowest end (highest) first
+        first = np.flatnonzero(np.r_[True, np.diff(cell[order]) != 0])
+        chosen.append(order[first])
+    return kept[np.unique(np.concatenate(chosen))]
 
 
 # --------------------------------------------------------------------------- time series
@@ -205,7 +263,7 @@ def _series(response: Mapping[str, Any]) -> dict:
 def _arr(entry: Mapping[str, Any] | None, key: str = "value") -> np.ndarray | None:
     if not entry or entry.get(key) is None:
         return None
-    return np.array([np.nan if v is None else v for v in entry[key]], dtype=float)
+    return np.array(entry[key], dtype=float)          # null -> NaN
 
 
 def _errors(entry: Mapping[str, Any]) -> np.ndarray | None:
@@ -220,6 +278,33 @@ def curve(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, 
           evaluate: Callable[[dict], Mapping[str, Any]]) -> bytes:
     """Radial-velocity curves of both stars with the requested times marked; the relative orbit
     on the sky beside them when the response has position angles and projected separations."""
+    return figure_bytes(curve_figure(calc, response, request, evaluate), fmt)
+
+
+def _marker_cells(width_in: float, height_in: float) -> tuple[int, int]:
+    # cells across a figure this size whose diagonal is a marker's radius (an axes inside it has smaller ones)
+    side = MARKER_SIZE / 2.0 / math.sqrt(2.0)
+    return math.ceil(width_in * 72.0 / side), math.ceil(height_in * 72.0 / side)
+
+
+def _span(*arrays: np.ndarray | None) -> float:
+    values = np.concatenate([np.ravel(a) for a in arrays if a is not None])
+    values = values[np.isfinite(values)]
+    return float(np.ptp(values)) if values.size else 0.0
+
+
+def _thinning_note(n: int, drawn: Mapping[str, int]) -> str:
+    """A line saying how many of ``n`` requested points each layer draws, when one is thinned."""
+    if all(count == n for count in drawn.values()):
+        return ""
+    counts = ", ".join(f"{label} {count:,}" for label, count in drawn.items())
+    return (f"{n:,} requested times, {counts} markers drawn: the others lie under these, "
+            "within the error bars drawn beside them")
+
+
+def curve_figure(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, Any] | None,
+                 evaluate: Callable[[dict], Mapping[str, Any]]):
+    """The matplotlib Figure drawn by :func:`curve` (its first axes: the radial velocities)."""
     series_name = series_key(calc)
     points = _series(response)
     times = _arr(points.get(series_name))
@@ -231,7 +316,8 @@ def curve(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, 
     dense = _series(evaluate(nominal_body(calc, response, request, grid)))
     orbit = all(k in dense and k in points for k in ("position_angle", "projected_separation"))
 
-    fig = _new_figure(12.0 if orbit else 8.0, 4.8)
+    size = (12.0 if orbit else 8.0, 4.8)
+    fig = _new_figure(*size)
     axes = fig.subplots(1, 2, width_ratios=(1.6, 1.0)) if orbit else [fig.add_subplot()]
     ax = axes[0]
     if mode == "phase":
@@ -255,14 +341,25 @@ def curve(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, 
                            label=None if shown else "periastron")
                 shown = True
     rv_unit = points["rv1"].get("unit", "")
+    columns, rows = _marker_cells(*size)
+    drawn: dict[str, int] = {}
     for k, (key, colour) in enumerate(zip(("rv1", "rv2"), STAR_COLOURS)):
         if key not in dense or key not in points:
             continue
         y = _arr(dense[key])
         ax.plot(x_dense[order], y[order], color=colour, linewidth=1.4, label=f"star {k + 1} ({key})")
-        ax.errorbar(x_points, _arr(points[key]), yerr=_errors(points[key]), fmt="o", color=colour,
-                    markersize=5, markeredgecolor="white", markeredgewidth=0.6, capsize=2.5, elinewidth=1.0,
-                    label=f"requested times ({key})")
+        v, err = _arr(points[key]), _errors(points[key])
+        marked = np.arange(v.size)
+        if v.size > MAX_MARKERS:
+            minus, plus = (err[0], err[1]) if err is not None and err.ndim == 2 else (err, err)
+            lower, upper = (None, None) if err is None else (v - minus, v + plus)
+            marked = marker_subset(x_points, v, _span(x_points) / columns, _span(v, lower, upper) / rows, lower, upper)
+            if err is not None:
+                err = err[..., marked]
+        ax.errorbar(x_points[marked], v[marked], yerr=err, fmt="o", color=colour, markersize=MARKER_SIZE,
+                    markeredgecolor="white", markeredgewidth=0.6, capsize=2.5, elinewidth=1.0,
+                    rasterized=marked.size > MAX_MARKERS, label=f"requested times ({key})")
+        drawn[key] = marked.size
     gamma = _value(inputs, "gamma")
     if gamma is not None and "gamma" in inputs:
         g_unit = inputs["gamma"].get("unit", rv_unit)
@@ -272,13 +369,15 @@ def curve(calc: Calculation, response: Mapping[str, Any], request: Mapping[str, 
         except Exception:
             pass
     ax.set_ylabel(f"radial velocity [{rv_unit}]")
-    ax.set_title(f"{calc.title}: radial velocities (positive receding)", fontsize=10)
     ax.legend(loc="best", fontsize=8, frameon=False)
     ax.grid(True, linewidth=0.3, alpha=0.5)
-
     if orbit:
-        _relative_orbit(axes[1], dense, points)
-    return figure_bytes(fig, fmt)
+        drawn["sky"] = _relative_orbit(axes[1], dense, points, size[1])
+    ax.set_title(f"{calc.title}: radial velocities (positive receding)", fontsize=10)
+    note = _thinning_note(times.size, drawn)
+    if note:
+        fig.supxlabel(note, fontsize=8, color="#444444")      # a footnote under the whole figure
+    return fig
 
 
 def _sky(entry_rho, entry_pa) -> tuple[np.ndarray, np.ndarray]:
@@ -287,12 +386,19 @@ def _sky(entry_rho, entry_pa) -> tuple[np.ndarray, np.ndarray]:
     return rho * np.sin(pa), rho * np.cos(pa)
 
 
-def _relative_orbit(ax, dense: Mapping[str, Any], points: Mapping[str, Any]) -> None:
+def _relative_orbit(ax, dense: Mapping[str, Any], points: Mapping[str, Any], height_in: float) -> int:
+    """Draws the relative orbit on ``ax``; returns the number of requested points marked."""
     unit = dense["projected_separation"].get("unit", "")
     east, north = _sky(dense["projected_separation"], dense["position_angle"])
     ax.plot(east, north, color="#3b7a3b", linewidth=1.3, label="star 2 about star 1")
     pe, pn = _sky(points["projected_separation"], points["position_angle"])
-    ax.plot(pe, pn, "o", color="#3b7a3b", markersize=5, markeredgecolor="white", label="requested times")
+    marked = np.arange(pe.size)
+    if pe.size > MAX_MARKERS:
+        # equal aspect: square cells, the wider span across at most the axes' height
+        side = max(_span(pe), _span(pn)) / _marker_cells(height_in, height_in)[0]
+        marked = marker_subset(pe, pn, side, side)
+    ax.plot(pe[marked], pn[marked], "o", color="#3b7a3b", markersize=MARKER_SIZE, markeredgecolor="white",
+            rasterized=marked.size > MAX_MARKERS, label="requested times")
     ax.plot([0.0], [0.0], marker="*", color="#222222", markersize=11, linestyle="none", label="star 1")
     sep = _arr(dense.get("separation"))
     if sep is not None and np.any(np.isfinite(sep)):
@@ -312,3 +418,4 @@ def _relative_orbit(ax, dense: Mapping[str, Any], points: Mapping[str, Any]) -> 
     ax.set_title("relative orbit on the sky (north up, east left)", fontsize=10)
     ax.legend(loc="best", fontsize=8, frameon=False)
     ax.grid(True, linewidth=0.3, alpha=0.5)
+    return int(marked.size)

@@ -398,10 +398,15 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
     return lines
 
 
-def series_rows(series: Mapping[str, Any]) -> tuple[list[str], list[str], list[list[Any]]]:
+def series_columns(series: Mapping[str, Any]) -> tuple[list[str], list[str], int]:
+    """The names and units of a response's series and its number of rows, without building them."""
     names = [k for k, v in series.items() if isinstance(v, dict) and isinstance(v.get("value"), list)]
     units = [series[k].get("unit", "") for k in names]
-    length = max((len(series[k]["value"]) for k in names), default=0)
+    return names, units, max((len(series[k]["value"]) for k in names), default=0)
+
+
+def series_rows(series: Mapping[str, Any]) -> tuple[list[str], list[str], list[list[Any]]]:
+    names, units, length = series_columns(series)
     rows = []
     for i in range(length):
         row = []
@@ -460,7 +465,7 @@ def budget_rows(results: Mapping[str, Any]) -> tuple[list[tuple[str, list[tuple[
 
 def _series_names(results: Mapping[str, Any]) -> list[str]:
     series = results.get("series")
-    return series_rows(series)[0] if isinstance(series, dict) else []
+    return series_columns(series)[0] if isinstance(series, dict) else []
 
 
 class _Doc:
@@ -583,12 +588,13 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
 
     series = results.get("series")
     if isinstance(series, dict):
-        names, units, srows = series_rows(series)
+        names, units, length = series_columns(series)
         doc.heading("Series")
-        if len(srows) > MAX_SERIES_ROWS:
-            doc.para(s.text(f"{len(srows)} rows: too many to print here; the JSON response (or the CSV batch path) "
+        if length > MAX_SERIES_ROWS:
+            doc.para(s.text(f"{length} rows: too many to print here; the JSON response (or the CSV batch path) "
                             "has them all."))
         else:
+            srows = series_rows(series)[2]
             header = [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in dates else ''}]" if u else "")
                       for k, u in zip(names, units)]
             body = []

@@ -9,7 +9,7 @@ import pytest
 from scipy.optimize import brentq
 
 from calcservice.core import compute
-from calcservice.plots import dense_times, nominal_body
+from calcservice.plots import PlotError, dense_times, nominal_body
 from calcservice.registry import calculations
 
 SB1_MC = {"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma": 0.3},
@@ -113,3 +113,120 @@ def test_dense_curve_passes_through_the_requested_points():
     for key in ("rv1", "rv2"):
         assert nominal["results"]["series"][key]["value"] == pytest.approx(
             response["results"]["series"][key]["value"], rel=1e-12)
+
+
+# --------------------------------------------------------------------------- cost bounded by the figure, not the request
+LONG_SERIES = 100_000       # the limit max_series allows by default
+
+
+def _long_ephemeris() -> dict:
+    # two periods of the fictional binary, sampled far more densely than any figure can show
+    return {**EPHEMERIS, "times": list(np.linspace(2460000.5, 2460000.5 + 2 * 812.5, LONG_SERIES))}
+
+
+def test_svg_of_a_long_ephemeris_stays_small(client):
+    r = client.post("/v1/orbit/ephemeris?format=svg", json=_long_ephemeris())
+    assert r.status_code == 200, r.get_data(as_text=True)[:300]
+    assert len(r.data) < 2_000_000                      # 102 MB when every requested point was drawn
+    text = svg_text(r.data)
+    assert "star 1 (rv1)" in text and "requested times (rv1)" in text
+    assert re.search(r"100,000 requested times, rv1 [\d,]+, rv2 [\d,]+ markers drawn", text)   # said, not hidden
+
+
+def _by_label(ax, label):
+    return next(line for line in ax.get_lines() if line.get_label() == label)
+
+
+def test_long_ephemeris_figure_shows_every_requested_point():
+    from scipy.spatial import cKDTree
+
+    from calcservice.plots import MARKER_SIZE, MAX_MARKERS, curve_figure
+
+    calc = calculations()["ephemeris"]
+    body = _long_ephemeris()
+    response = compute("ephemeris", body)
+    fig = curve_figure(calc, response, body, lambda b: compute("ephemeris", b))
+    fig.draw_without_rendering()
+    ax = fig.axes[0]
+    offset = float(re.search(r"JD − (\d+)", ax.get_xlabel()).group(1))
+    series = response["results"]["series"]
+    times = np.array(series["time"]["value"]) - offset
+    radius = MARKER_SIZE / 2 * fig.dpi / 72                 # half a marker, in display pixels
+    for k, key in enumerate(("rv1", "rv2")):
+        rv = np.array(series[key]["value"])
+        sigma = np.array(series[key]["sigma"])
+        # the model curve passes through the service's own values at the requested times, periastron included
+        x, y = _by_label(ax, f"star {k + 1} ({key})").get_data()
+        picks = np.r_[np.linspace(0, LONG_SERIES - 1, 9).astype(int), np.argmax(rv), np.argmin(rv)]
+        amplitude = np.ptp(rv)
+        assert np.interp(times[picks], x, y) == pytest.approx(rv[picks], abs=2e-3 * amplitude)
+        # the requested points are thinned, and each one lies under a drawn marker
+        bars = next(c for c in ax.containers if c.get_label() == f"requested times ({key})")
+        drawn_x, drawn_y = bars.lines[0].get_data()
+        assert 0 < len(drawn_x) < LONG_SERIES / 10
+        assert bars.lines[0].get_rasterized() == (len(drawn_x) > MAX_MARKERS)
+        drawn = ax.transData.transform(np.column_stack([drawn_x, drawn_y]))
+        every = ax.transData.transform(np.column_stack([times, rv]))
+        distance, _ = cKDTree(drawn).query(every)
+        assert distance.max() <= radius
+        # the error bars drawn reach as far as all the requested points' bars
+        segments = np.concatenate(bars.lines[2][0].get_segments())
+        assert segments[:, 1].max() == pytest.approx((rv + sigma).max(), rel=1e-12)
+        assert segments[:, 1].min() == pytest.approx((rv - sigma).min(), rel=1e-12)
+
+
+def test_few_requested_points_are_all_drawn(client):
+    from calcservice.plots import curve_figure
+
+    calc = calculations()["ephemeris"]
+    response = compute("ephemeris", EPHEMERIS)
+    fig = curve_figure(calc, response, EPHEMERIS, lambda b: compute("ephemeris", b))
+    bars = next(c for c in fig.axes[0].containers if c.get_label() == "requested times (rv1)")
+    assert len(bars.lines[0].get_xdata()) == len(EPHEMERIS["times"]) and not bars.lines[0].get_rasterized()
+    assert fig.get_supxlabel() == ""                    # no thinning, no footnote
+
+
+def test_marker_subset_keeps_each_cells_extremes():
+    from calcservice.plots import marker_subset
+
+    rng = np.random.default_rng(5)
+    x, y = rng.uniform(0, 10, 3000), rng.normal(0, 3, 3000)
+    lower, upper = y - rng.uniform(0, 1, 3000), y + rng.uniform(0, 1, 3000)
+    y[7] = np.nan                                       # never drawn, so never kept
+    kept = marker_subset(x, y, 0.5, 0.25, lower, upper)
+    assert 7 not in kept and len(kept) == len(set(kept))
+    # reference: the cells grouped one point at a time, in plain Python
+    cells = {}
+    for i in range(len(x)):
+        if np.isfinite(y[i]):
+            cells.setdefault((int((x[i] - x.min()) // 0.5), int((y[i] - np.nanmin(y)) // 0.25)), []).append(i)
+    assert len(kept) <= 2 * len(cells)
+    kept_cells = {}
+    for i in kept:
+        kept_cells.setdefault((int((x[i] - x.min()) // 0.5), int((y[i] - np.nanmin(y)) // 0.25)), []).append(i)
+    assert kept_cells.keys() == cells.keys()
+    for cell, members in cells.items():
+        assert min(lower[i] for i in kept_cells[cell]) == min(lower[i] for i in members)
+        assert max(upper[i] for i in kept_cells[cell]) == max(upper[i] for i in members)
+
+
+def test_histogram_bins_of_heavy_tailed_draws_are_counted_before_they_are_made():
+    from calcservice.plots import MAX_BINS, histogram, histogram_bins
+
+    rng = np.random.default_rng(8)
+    normal = rng.normal(3.0, 0.2, 5000)
+    # within the cap the bins are numpy's own Freedman-Diaconis bins
+    assert np.array_equal(histogram_bins(normal), np.histogram_bin_edges(normal, bins="fd"))
+    # a tail like a mass at a nearly face-on inclination (m ~ 1/sin^3 i): numpy's rule would ask
+    # for ~1e18 edges; here the bins are capped before any is made
+    heavy = 1.0 / rng.uniform(0.0, 1.0, 200_000) ** 3
+    edges = histogram_bins(heavy)
+    assert len(edges) == MAX_BINS + 1 and edges[0] == heavy.min() and edges[-1] == heavy.max()
+    entry = {"value": float(np.median(heavy)), "low": float(np.percentile(heavy, 15.865)),
+             "high": float(np.percentile(heavy, 84.135)), "unit": "solMass"}
+    svg = histogram("m2", heavy, entry, "svg")
+    assert "200000 Monte Carlo draws" in svg_text(svg)
+    # draws wider than a float can span: a problem naming plot (numpy overflowed into a 500 before)
+    with pytest.raises(PlotError) as e:
+        histogram_bins(np.array([-1e308, 0.0, 1e308]))
+    assert e.value.field == "plot"
