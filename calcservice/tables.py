@@ -256,6 +256,26 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     return out
 
 
+def _check_header(lines: list[str]) -> None:
+    """A CSV header's names as written: astropy would call a second ``period`` ``period_1`` and an empty
+    name ``col3``, names the caller never wrote."""
+    import csv
+    header = next((line for line in lines if line.strip()), None)
+    if header is None:
+        return
+    names = [name.strip() for name in next(csv.reader([header]))]
+    errors: dict[str, list[str]] = {}
+    for k, name in enumerate(names):
+        if not name:
+            errors.setdefault("_body", []).append(f"column {k + 1} of the header has no name")
+        elif name in names[:k]:
+            errors.setdefault(name[:80], []).append("the column appears twice")
+    if errors:
+        parts = (["a column named twice"] if set(errors) - {"_body"} else []) + \
+                (["a column without a name"] if "_body" in errors else [])
+        raise TableError(422, "the table's header has " + " and ".join(parts), errors)
+
+
 def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
     from astropy.io.ascii import InconsistentTableError
     from astropy.table import Table
@@ -265,10 +285,13 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     except UnicodeDecodeError as e:
         raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
     ecsv = is_ecsv(text)
+    lines = text.splitlines()
+    if not ecsv:
+        _check_header(lines)
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
-        table = Table.read(text.splitlines(), format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "

@@ -542,3 +542,16 @@ def test_an_ecsv_header_without_a_datatype_says_so(client):
             b"period k1\n41.6 38.2\n")
     r = client.post("/v1/batch/sb2", data=body, content_type="text/csv", headers={"Accept": "application/json"})
     assert r.status_code == 400 and "lacks the key 'datatype'" in r.get_json()["detail"]
+
+
+@pytest.mark.parametrize("header, field, message", [
+    ("period,period,k1,k2,eccentricity", "period", "the column appears twice"),
+    ('"period",k1,k2,eccentricity,period ', "period", "the column appears twice"),
+    ("period,,k1,k2,eccentricity", "_body", "column 2 of the header has no name"),
+])
+def test_a_csv_header_is_judged_as_written(client, header, field, message):
+    # astropy would rename a second "period" to "period_1" and an empty name to "col2": names the caller
+    # never wrote; the 422 names the column as the header has it, as for an Arrow table
+    body = (header + "\n" + ",".join(["41.6", "3", "38.2", "51.7", "0.3"]) + "\n").encode()
+    r = client.post("/v1/batch/sb2", data=body, content_type="text/csv", headers={"Accept": "application/json"})
+    assert r.status_code == 422 and r.get_json()["errors"] == {field: [message]}
