@@ -119,6 +119,9 @@ def test_problem_details(client):
     assert r.status_code == 415
     assert client.get("/v1/spectroscopic/sb2").status_code == 405
     assert client.post("/v1/spectroscopic/nope", json=SB2).status_code == 404
+    # a doubled slash is no path of ours either: a problem, not werkzeug's HTML redirect (308) to another URL
+    r = client.post("/v1//spectroscopic/sb2", json=SB2)
+    assert r.status_code == 404 and r.content_type == "application/problem+json"
     status, body = post(client, "/v1/spectroscopic/sb2", {**SB2, "eccentricity": 1.0, "k1": -3, "extra": 1})
     assert status == 422
     assert body["errors"]["eccentricity"] == ["must be >= 0 and < 1"]

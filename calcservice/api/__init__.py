@@ -14,6 +14,7 @@ def create_app(config=None) -> Flask:
     """Build the calcservice application: configure, register blueprints, return the app."""
     keep_freed_memory()          # catalogue-sized arrays reuse freed heap instead of faulting pages in
     app = Flask(__name__, static_folder=None)
+    app.url_map.merge_slashes = False    # "/v1//spectroscopic/sb2" is no path of ours: a 404 problem, not an HTML redirect
     settings = load_settings(config)
     app.config.update(
         CALCSERVICE_SETTINGS=settings,
