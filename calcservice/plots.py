@@ -69,7 +69,7 @@ def figure_bytes(fig, fmt: str) -> bytes:
 
 
 def _label(name: str, unit: str) -> str:
-    return f"{name} [{unit}]" if unit else f"{name} [dimensionless]"
+    return f"{name} [{unit}]" if unit else name          # a phase or a ratio: no unit to show
 
 
 # --------------------------------------------------------------------------- histograms
@@ -323,7 +323,7 @@ def curve_figure(calc: Calculation, response: Mapping[str, Any], request: Mappin
     if mode == "phase":
         x_dense, x_points = _arr(dense["phase"]), _arr(points["phase"])
         order = np.argsort(x_dense)
-        ax.set_xlabel("orbital phase since periastron [dimensionless]")
+        ax.set_xlabel("orbital phase since periastron")
         ax.set_xlim(0.0, 1.0)
     else:
         offset = math.floor(float(np.min(grid)) / 1e4) * 1e4 if np.min(grid) > 1e5 else 0.0
