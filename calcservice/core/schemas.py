@@ -34,6 +34,8 @@ def number(x: Any, what: str = "value") -> float:
     """A finite float from a JSON number; booleans, strings and overflowing numbers are refused."""
     if type(x) is float and x - x == 0:          # the common case: a finite float
         return x
+    if isinstance(x, np.generic):               # a library caller's numpy scalar (np.float32, np.int64)
+        x = x.item()
     if x is None:
         raise ValidationError(f"{what} is missing (null or an empty cell): give a number")
     if isinstance(x, bool) or not isinstance(x, (int, float)):
@@ -171,6 +173,8 @@ class MeasuredField(_CheckedField):
         spec = self.spec
         if type(value) is dict:                 # the usual form first
             return self._from_object(value)
+        if isinstance(value, np.generic):       # a library caller's numpy scalar: the number it holds
+            value = value.item()
         one = np.zeros(1)
         if isinstance(value, (int, float)) and not isinstance(value, bool) and not spec.time:
             x = number(value)
