@@ -167,10 +167,6 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
             columns[name] = values.tolist() if isinstance(values, np.ndarray) else values
             continue
         entry: dict[str, Any] = {"value": _quantity_values(values)}
-        if isinstance(entry["value"], list) and spec.isotropic and all(v == "isotropic" for v in entry["value"]) \
-                and name not in sigmas:
-            columns[name] = "isotropic"           # random orientations for every system
-            continue
         for key, (sigma, sigma_unit, col) in sigmas.get(name, {}).items():
             sigma = _quantity_values(sigma)
             if sigma_unit and sigma_unit != (unit or spec.unit):
