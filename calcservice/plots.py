@@ -22,6 +22,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
+from .engine import MIN_DRAWS
 from .registry import Calculation
 from .units import factor
 
@@ -218,7 +219,7 @@ def nominal_body(calc: Calculation, response: Mapping[str, Any], request: Mappin
         body["time_format"] = "mjd"
     if isotropic:
         # random orientations need draws; the fewest a request may ask for serve the median curve
-        body["uncertainty"] = {"method": "monte_carlo", "samples": 100, "seed": 1}
+        body["uncertainty"] = {"method": "monte_carlo", "samples": MIN_DRAWS, "seed": 1}
     return body
 
 
