@@ -655,8 +655,8 @@ def _few_draws(s: int, sampled: list[str]) -> list[Warning]:
 
 def _few_kept(s: int, where) -> Warning:
     return Warning("few_draws", f"fewer than {MIN_DRAWS} of the {s} Monte Carlo draws were kept (inside the inputs' "
-                   "physical domains, with a finite result): the median, sigma and the 68.27 % interval (low, high) are rough, and whether "
-                   "sigma exists (sigma_undefined) is not tested", where)
+                   "physical domains, with a finite result): the median, sigma and the 68.27 % interval (low, "
+                   "high) are rough, and whether sigma exists (sigma_undefined) is not tested", where)
 
 
 def _no_budget(name: str) -> Warning:
