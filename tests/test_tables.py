@@ -537,7 +537,7 @@ def test_a_cell_neither_a_number_nor_isotropic_is_that_systems_error_naming_the_
 
 
 def test_an_ecsv_header_without_a_datatype_says_so(client):
-    # the ECSV standard (astropy APE 6) gives every column a name and a datatype; one without says which key
+    # the ECSV standard (astropy APE 6, from memory) gives every column a name and a datatype; one without says which key
     body = (b"# %ECSV 1.0\n# ---\n# datatype:\n# - {name: period, unit: d}\n# - {name: k1, datatype: float64}\n"
             b"period k1\n41.6 38.2\n")
     r = client.post("/v1/batch/sb2", data=body, content_type="text/csv", headers={"Accept": "application/json"})
