@@ -99,7 +99,7 @@ COMPONENTS: dict[str, dict] = {
     "Unit": {"type": "string", "maxLength": DEFAULTS.max_string_length,
              "description": "an astropy unit string (d, yr, km/s, deg, mas, solMass, ...); without it the input's "
                             "default unit applies"},
-    "IsoTime": {"type": "string", "maxLength": DEFAULTS.max_string_length, "description": "ISO 8601 time (UTC)"},
+    "IsoTime": {"type": "string", "maxLength": DEFAULTS.max_string_length, "description": "ISO 8601 time (UTC; a time with an offset such as +05:00 is the UTC instant it names)"},
     "MeasuredInput": _measured({"type": "number"}, "a measured number: exact, with a normal or asymmetric 1-sigma, "
                                                    "or as the caller's own draws, in the input's default unit "
                                                    "unless a unit is given"),

@@ -63,6 +63,17 @@ def test_calculate_with_contract_dicts_units_and_options(svc, client):
     assert r["results"]["semimajor_axis"]["unit"] == "solRad" and r["uncertainty"]["seed"] == 4
 
 
+def test_an_aware_datetime_is_the_utc_instant_it_names(svc):
+    # datetime (Python standard library): 12:00 at UTC+05:00 is 07:00 UTC; astropy.time gives its JD
+    import datetime as dt
+    from astropy.time import Time
+    local = dt.datetime(2024, 5, 1, 12, 0, tzinfo=dt.timezone(dt.timedelta(hours=5)))
+    r = svc.calculate("ephemeris", period=10.0, eccentricity=0.1, omega=30.0, t_periastron=local, k1=20.0,
+                      times=[local, dt.datetime(2024, 5, 1, 7, 0)])
+    jd = Time("2024-05-01T07:00:00", scale="utc").jd
+    assert r["results"]["series"]["time"]["value"] == pytest.approx([jd, jd], abs=1e-9)
+
+
 def test_asymmetric_samples_and_astropy_quantities(svc, client):
     from astropy import units as u
     draws = list(np.random.default_rng(3).normal(23.4, 0.3, 500))

@@ -1,5 +1,6 @@
 """Ephemeris series and event dates, against textbook formulas, hand calculations, scipy and astropy.time."""
 
+import sys
 import warnings
 
 import numpy as np
@@ -319,6 +320,27 @@ def test_http_time_formats_agree(client):
     for other in (by_iso, by_mjd):
         assert np.allclose(other["results"]["series"]["rv1"]["value"], by_jd["results"]["series"]["rv1"]["value"],
                            atol=1e-6)
+
+
+@pytest.mark.skipif(sys.version_info < (3, 11), reason="datetime.fromisoformat reads every ISO 8601 offset from 3.11")
+def test_iso_times_with_a_utc_offset_are_the_utc_instant_python_datetime_gives(client):
+    # Python's datetime (ISO 8601 offsets, what datetime.isoformat() writes for an aware time) converts the
+    # local time to UTC; astropy.time gives that UTC instant's JD
+    import datetime as dt
+    texts = ["2024-05-01T12:00:00+05:00", "2024-05-01T03:30:15.5-03:30", "2024-05-01 07:00:00+00:00",
+             "2024-05-01T09:45+0245", "2024-05-01T00:00:00-11"]
+    utc = [dt.datetime.fromisoformat(t).astimezone(dt.timezone.utc) for t in texts]     # Python >= 3.11 reads all
+    jd = [Time(u.replace(tzinfo=None), scale="utc").jd for u in utc]
+    status, body = post(client, PATH, _body(times=texts, t_periastron=texts[0]))
+    assert status == 200, body
+    assert body["results"]["series"]["time"]["value"] == pytest.approx(jd, abs=1e-9)
+    assert body["inputs"]["t_periastron"]["value"] == texts[0]
+    _, by_jd = post(client, PATH, _body(times=jd, t_periastron=jd[0]))
+    assert body["results"]["series"]["rv1"]["value"] == pytest.approx(by_jd["results"]["series"]["rv1"]["value"],
+                                                                      abs=1e-6)
+    for bad in ("2024-05-01T12:00:00+24:00", "2024-05-01T12:00:00+05:00Z", "2024-05-01T12:00:00+5:00"):
+        status, problem = post(client, PATH, _body(t_periastron=bad))
+        assert status == 422 and "t_periastron" in problem["errors"], (bad, problem)
 
 
 def test_provenance_names_the_speed_of_light_and_the_julian_year(client):

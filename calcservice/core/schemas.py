@@ -10,6 +10,7 @@ one system with them, a batch its N systems at once.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
@@ -83,10 +84,35 @@ def _calendar_jd(text: str, limits: Limits) -> float:
     if len(text) > limits.max_string_length:
         raise ValidationError("time string is too long")
     from astropy.time import Time
+    bare, minutes = _utc_offsets([text])
     try:
-        return float(Time(text, scale="utc").jd)
+        return float(_minus_minutes(Time(bare[0], scale="utc"), minutes[0]).jd)
     except Exception:
         raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
+
+
+# A time of day followed by a UTC offset, +hh:mm, +hhmm or +hh (ISO 8601; what Python's
+# datetime.isoformat() writes for an aware time), which astropy's ISO formats do not read.
+_OFFSET = re.compile(r"(.*\d[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d*)?)?)([+-])([01]\d|2[0-3])(?::?([0-5]\d))?")
+
+
+def _utc_offsets(texts: list[str]) -> tuple[list[str], np.ndarray]:
+    """The strings without their UTC offsets, and each offset in minutes (0 where none)."""
+    bare, minutes = list(texts), np.zeros(len(texts))
+    for k, text in enumerate(texts):
+        m = _OFFSET.fullmatch(text)
+        if m:
+            bare[k] = m[1]
+            minutes[k] = (1 if m[2] == "+" else -1) * (60 * int(m[3]) + int(m[4] or 0))
+    return bare, minutes
+
+
+def _minus_minutes(t, minutes):
+    """Local times given with an offset east of Greenwich, as UTC (astropy's arithmetic keeps leap seconds)."""
+    if not minutes.any():
+        return t
+    import astropy.units as u
+    return t - minutes * u.min
 
 
 MAX_TIME_PARSES = 64      # astropy calls for one list of time strings (each call parses many at once)
@@ -103,6 +129,7 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
     for k, text in enumerate(texts):
         if len(text) > limits.max_string_length:
             raise ValidationError(f"entry {positions[k]}: time string is too long")
+    texts, minutes = _utc_offsets(texts)
     out = np.empty(len(texts))
     calls = 0
     stack = [(0, len(texts))]
@@ -112,7 +139,7 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
         if calls > MAX_TIME_PARSES:
             raise ValidationError("the time strings mix too many formats: give them in one ISO 8601 form")
         try:
-            out[lo:hi] = Time(texts[lo:hi], scale="utc").jd
+            out[lo:hi] = _minus_minutes(Time(texts[lo:hi], scale="utc"), minutes[lo:hi]).jd
         except Exception:
             if hi - lo == 1:
                 raise ValidationError(f"entry {positions[lo]}: {texts[lo][:64]!r} is not an ISO 8601 time") from None
