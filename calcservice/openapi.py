@@ -260,12 +260,8 @@ def _column_schema(spec: Input) -> dict:
 
 def _domain_name(domain) -> str:
     """The component of a measured input on ``domain``, named after its bounds (e.g. MeasuredInput_gt0_lt180)."""
-    parts = []
-    if domain.low != -math.inf:
-        parts.append(f"{'gt' if domain.low_open else 'ge'}{domain.low:g}")
-    if domain.high != math.inf:
-        parts.append(f"{'lt' if domain.high_open else 'le'}{domain.high:g}")
-    return "_".join(["MeasuredInput", *parts])
+    words = {">": "gt", ">=": "ge", "<": "lt", "<=": "le"}
+    return "_".join(["MeasuredInput", *(f"{words[op]}{bound:g}" for op, bound in domain.bounds())])
 
 
 def _bounded(spec: Input, schemas: dict) -> dict:

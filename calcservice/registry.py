@@ -55,22 +55,26 @@ class Domain:
         """The 422 message for a value outside the domain, with the unit it is judged in."""
         return self.describe() + (f" (in {unit})" if unit else "")
 
-    def describe(self) -> str:
+    def bounds(self) -> list[tuple[str, float]]:
+        """The finite bounds as comparisons a value must pass, e.g. [(">", 0.0), ("<", 180.0)]: what
+        the message, the spec's keywords and the spec's component names are all written from."""
         parts = []
         if self.low != -math.inf:
-            parts.append(f"{'>' if self.low_open else '>='} {self.low:g}")
+            parts.append((">" if self.low_open else ">=", self.low))
         if self.high != math.inf:
-            parts.append(f"{'<' if self.high_open else '<='} {self.high:g}")
+            parts.append(("<" if self.high_open else "<=", self.high))
+        return parts
+
+    def describe(self) -> str:
+        parts = [f"{op} {bound:g}" for op, bound in self.bounds()]
         return "must be " + " and ".join(parts) if parts else "must be finite"
 
     def as_dict(self) -> dict:
-        d: dict[str, Any] = {}
-        if self.low != -math.inf:
-            d["exclusiveMinimum" if self.low_open else "minimum"] = self.low
-        if self.high != math.inf:
-            d["exclusiveMaximum" if self.high_open else "maximum"] = self.high
-        return d
+        """The bounds as JSON Schema keywords."""
+        return {_SCHEMA_KEYWORD[op]: bound for op, bound in self.bounds()}
 
+
+_SCHEMA_KEYWORD = {">": "exclusiveMinimum", ">=": "minimum", "<": "exclusiveMaximum", "<=": "maximum"}
 
 POSITIVE = Domain(0.0, math.inf, low_open=True)
 NON_NEGATIVE = Domain(0.0, math.inf)
