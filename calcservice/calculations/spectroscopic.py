@@ -46,7 +46,7 @@ register(Calculation(
     ),
     outputs=(
         Output("mass_function", "solMass", "spectroscopic mass function M2^3 sin^3 i / (M1+M2)^2",
-               "f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G)"),
+               "f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi GM_sun)"),
         Output("a1_sin_i", "au", "projected semi-major axis of the primary's orbit",
                "a1 sin i = K1 P (1 - e^2)^{1/2} / (2 pi)"),
         Output("m2_min", "solMass", "minimum companion mass (i = 90 deg)",
@@ -54,7 +54,7 @@ register(Calculation(
         Output("m2", "solMass", "companion mass at the given inclination",
                "positive root of M2^3 sin^3 i / (M1 + M2)^2 = f(M)"),
         Output("mass_ratio", "", "q = M2/M1 at the given inclination", "q = M2 / M1"),
-        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
         Output("a1", "au", "semi-major axis of the primary's orbit", "a1 = a1 sin i / sin i"),
     ),
     function=phys.sb1,
@@ -83,8 +83,8 @@ register(Calculation(
     ),
     outputs=(
         Output("mass_ratio", "", "mass ratio q = M2/M1", "q = K1 / K2"),
-        Output("m1_sin3i", "solMass", "M1 sin^3 i", "M1 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2 / (2 pi G)"),
-        Output("m2_sin3i", "solMass", "M2 sin^3 i", "M2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K1 / (2 pi G)"),
+        Output("m1_sin3i", "solMass", "M1 sin^3 i", "M1 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2 / (2 pi GM_sun)"),
+        Output("m2_sin3i", "solMass", "M2 sin^3 i", "M2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K1 / (2 pi GM_sun)"),
         Output("a_sin_i", "au", "projected relative semi-major axis", "a sin i = (K1 + K2) P (1 - e^2)^{1/2} / (2 pi)"),
         Output("a1_sin_i", "au", "projected semi-major axis of the primary's orbit",
                "a1 sin i = K1 P (1 - e^2)^{1/2} / (2 pi)"),

@@ -150,7 +150,7 @@ def _collision_outputs():
         Output("true_anomaly", "deg", "true anomaly at the given phase", "Kepler's equation M = E - e sin E, "
                "M = 2 pi phase", period=360.0),
         Output("semimajor_axis", "au", "relative semi-major axis (as given, or from Kepler's third law)",
-               "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+               "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
         Output("separation_periastron", "au", "separation at periastron", "a (1 - e)"),
         Output("separation_apastron", "au", "separation at apastron", "a (1 + e)"),
     ]
@@ -478,7 +478,7 @@ _RECIPE_CONSTRAINTS = (
     *(_needs(name, _recipe_missing(name, owner), f"is required by {owner}")
       for owner, names in _NEEDS.items() for name in names),
     Constraint(("luminosity", "mass"), "the star is at or above its Eddington limit (Gamma_e = sigma_e L / "
-               "(4 pi c G M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists there",
+               "(4 pi c GM_sun M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists there",
                lambda **kw:
                _rows(True) if _chosen_recipe(kw) != "vink-2001" or not (_given(kw.get("luminosity"))
                                                                       and _given(kw.get("mass")))
@@ -563,7 +563,7 @@ register(Calculation(
         Output("bistability_jump_temperature", "K", "temperature of the bi-stability jump (vink-2001)",
                "T_jump = 61.2 + 2.59 log <rho> kK, log <rho> = -14.94 + 3.1857 Gamma_e + 0.85 log(Z/Z_sun)"),
         Output("eddington_factor", "", "electron-scattering Eddington factor Gamma_e (vink-2001)",
-               "Gamma_e = sigma_e L / (4 pi c G M), sigma_e = 0.325 cm^2/g"),
+               "Gamma_e = sigma_e L / (4 pi c GM_sun M), sigma_e = 0.325 cm^2/g"),
     ),
     function=phys.recipe_mass_loss,
     references=(VINK_2001, NUGIS_LAMERS_2000, IAU_2015_B3),
@@ -603,7 +603,7 @@ register(Calculation(
     ),
     function=phys.shell_distance,
     references=(IAU_2012_B2,),
-    constants=("au", "julian_year", "au_per_julian_year"),
+    constants=("au", "julian_year", "au_per_julian_year", "day", "pc"),
     conventions={"shells": "one shell per orbit, expanding at constant speed; shell_spacing is the increase of a "
                            "shell's angular radius from one shell to the next, and the edge of a spherical shell "
                            "moves across the sky at the full expansion speed (for a cone or spiral the projection "
