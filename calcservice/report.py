@@ -351,23 +351,16 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
 
 
 def _references_of(calc: Calculation | None, output_name: str, references: list[str]) -> list[int]:
-    """1-based indices into ``references`` of the sources of one output (all of them unless declared)."""
-    declared = None
-    if calc is not None:
-        try:
-            declared = getattr(calc.output(output_name), "references", None)
-        except KeyError:
-            declared = None
-    if declared:
-        idx = []
-        for r in declared:
-            if isinstance(r, int):
-                idx.append(r + 1)
-            elif r in references:
-                idx.append(references.index(r) + 1)
-        if idx:
-            return idx
-    return list(range(1, len(references) + 1))
+    """1-based indices into ``references`` of the sources of one output's formula, as its declaration names
+    them (none for a definition that needs no source); all of them only for a calculation whose outputs
+    name no sources at all (or without the declaration)."""
+    if calc is None or not any(o.references for o in calc.outputs):
+        return list(range(1, len(references) + 1))
+    try:
+        declared = calc.output(output_name).references
+    except KeyError:
+        return []
+    return sorted(references.index(r) + 1 for r in declared if r in references)
 
 
 def _cite(indices: list[int], dash: str = "–") -> str:

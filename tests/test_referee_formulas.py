@@ -336,7 +336,8 @@ def test_radio_formulas():
     body = {"flux_density": 2.4, "frequency": 14.9, "distance": 1.7, "vinf": 1900.0, "mu": 1.4, "z_rms": 1.05,
             "gamma_e": 1.1, "temperature": 1.6e4, "clumping": 0.2, "stellar_radius": 12.0}
     v, f, c, _ = answer("mass-loss-radio", body)
-    assert f["mass_loss_rate"].startswith("Mdot = 0.095 mu v S^{3/4} D^{3/2} / (Z gamma^{1/2} g^{1/2} nu^{1/2}) f^{1/2}")
+    assert f["mass_loss_rate"].startswith(
+        "Mdot = 0.095 mu v S^{3/4} D^{3/2} / (Z gamma^{1/2} g^{1/2} nu^{1/2}) f^{1/2}")
     nu = body["frequency"] * 1e9
     g = 9.77 * (1 + 0.13 * math.log10(body["temperature"] ** 1.5 / (body["z_rms"] * nu)))
     close(v["gaunt_factor"], g)
@@ -413,5 +414,5 @@ def test_shell_formulas():
         R = (body["expansion_speed"] * u.km / u.s * age).to(u.au)
         close(v["radius"][k], R.value, 1e-12)
         close(v["age"][k], age.to_value(u.yr), 1e-12)
-        close(v["angular_radius"][k], (R / (body["distance"] * u.pc)).to_value(u.dimensionless_unscaled) * u.rad.to(u.mas),
-              1e-12)
+        angle = (R / (body["distance"] * u.pc)).to_value(u.dimensionless_unscaled) * u.rad.to(u.mas)
+        close(v["angular_radius"][k], angle, 1e-12)

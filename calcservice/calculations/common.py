@@ -1,5 +1,7 @@
 """Inputs, conventions and references shared by several declarations."""
 
+import dataclasses
+
 import numpy as np
 
 from ..constants import C_LIGHT_KM_S
@@ -19,6 +21,11 @@ VELOCITY = SpeedDomain(-C_LIGHT_KM_S, C_LIGHT_KM_S, low_open=True, high_open=Tru
 #: above this fraction of c the Newtonian formulas lose accuracy: their relative corrections are of
 #: order (v/c)^2, 1 % at 0.1 c (common practice for where special relativity starts to matter)
 RELATIVISTIC_FRACTION = 0.1
+
+def cited(outputs, sources, default=()):
+    """``outputs`` each with the references its formula comes from: ``sources[name]``, else ``default``."""
+    return tuple(dataclasses.replace(o, references=tuple(sources.get(o.name, default))) for o in outputs)
+
 
 HILDITCH_2001 = ("R. W. Hilditch (2001), An Introduction to Close Binary Stars, "
                  "Cambridge University Press, ch. 2")

@@ -10,13 +10,16 @@ import numpy as np
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, DATE, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity,
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, cited, eccentricity,
                      period, with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
 HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, Reidel, ch. 4"
 MURRAY_DERMOTT_1999 = "C. D. Murray & S. F. Dermott (1999), Solar System Dynamics, Cambridge University Press, ch. 2"
+#: the sources of Kepler's third law in solar units: Hilditch's formula with GM_sun (IAU 2015 B3) and the au
+KEPLER = (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)
+ROCHE_LOBES = ("roche_lobe1", "roche_lobe2", "roche_lobe1_apastron", "roche_lobe2_apastron")
 ASTROPY_TIME = "Astropy Collaboration (2022), ApJ 935, 167: astropy.time for calendar dates and leap seconds"
 
 #: The most events of each kind one request may ask for.
@@ -312,7 +315,7 @@ register(Calculation(
               "none", kind="choice", choices=LIGHT_TRAVEL_CHOICES, required=False, default="none",
               example="none"),
     ),
-    outputs=(
+    outputs=cited((
         Output("phase", "", "orbital phase since periastron", "phi = n(t) mod 1, n(t) = (t - T0)/P without "
                "a period derivative", period=1.0),
         Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi n(t), t = T0 + P (n + Pdot n^2 / 2)", period=360.0),
@@ -330,7 +333,9 @@ register(Calculation(
                "rho = a'' (r/a) sqrt(cos^2 u + sin^2 u cos^2 i), u = nu + omega + 180 deg"),
         Output("position_angle", "deg", "position angle of star 2 relative to star 1",
                "tan(theta - Omega) = tan u cos i, u = nu + omega + 180 deg", period=360.0),
-    ),
+    ), {"true_anomaly": (MIKKOLA_1987, MURRAY_DERMOTT_1999), "separation": (MURRAY_DERMOTT_1999,),
+        "separation_au": (MURRAY_DERMOTT_1999, *KEPLER), "projected_separation": (HEINTZ_1978,),
+        "position_angle": (HEINTZ_1978,)}, (HILDITCH_2001,)),
     function=phys.ephemeris,
     references=(MIKKOLA_1987, MURRAY_DERMOTT_1999, HILDITCH_2001, HEINTZ_1978, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
@@ -407,7 +412,7 @@ register(Calculation(
         Input("radius1", "solRad", "radius of star 1", POSITIVE, required=False, example=4.3),
         Input("radius2", "solRad", "radius of star 2", POSITIVE, required=False, example=2.9),
     ),
-    outputs=(
+    outputs=cited((
         Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
         Output("total_mass", "solMass", "total mass", "M1 + M2 = 4 pi^2 a^3 / (GM_sun P^2)"),
         Output("m1", "solMass", "mass of star 1", "M1 = (M1 + M2)/(1 + q)"),
@@ -429,7 +434,11 @@ register(Calculation(
                "r_L = a (1 + e) 0.49 q2^{2/3} / (0.6 q2^{2/3} + ln(1 + q2^{1/3})), q2 = M2/M1"),
         Output("fill_factor1", "", "radius of star 1 over its Roche lobe at periastron", "R1 / r_L1"),
         Output("fill_factor2", "", "radius of star 2 over its Roche lobe at periastron", "R2 / r_L2"),
-    ),
+    ), {"mass_ratio": (HILDITCH_2001,), "periastron_distance": (MURRAY_DERMOTT_1999,),
+        "apastron_distance": (MURRAY_DERMOTT_1999,), "speed_periastron": (MURRAY_DERMOTT_1999, *KEPLER[1:]),
+        "speed_apastron": (MURRAY_DERMOTT_1999, *KEPLER[1:]),
+        **dict.fromkeys(ROCHE_LOBES, (EGGLETON_1983, *KEPLER[1:])),
+        "fill_factor1": (EGGLETON_1983,), "fill_factor2": (EGGLETON_1983,)}, KEPLER),
     function=phys.geometry,
     references=(EGGLETON_1983, HILDITCH_2001, MURRAY_DERMOTT_1999, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "R_sun", "day"),
@@ -541,7 +550,7 @@ register(Calculation(
         Input("period_derivative", "s/yr", "rate of change of the period dP/dt (quadratic ephemeris; any "
               "time-per-time unit)", ANY, required=False, example=0.0),
     ),
-    outputs=(
+    outputs=cited((
         *(o for star, whom in (("1", "star 1 eclipsed, star 2 in front"), ("2", "star 2 eclipsed, star 1 in front"))
           for o in (
               Output(f"mid_eclipse_phase{star}", "", f"phase after periastron of mid-eclipse ({whom})",
@@ -558,7 +567,11 @@ register(Calculation(
           )),
         Output("semimajor_axis", "au", "relative semi-major axis (as given, or from Kepler's third law)",
                "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
-    ),
+    ), {**{f"{name}{star}": (HILDITCH_2001, MURRAY_DERMOTT_1999) for star in "12"
+           for name in ("mid_eclipse_phase", "conjunction_offset")},
+        **{f"minimum_separation{star}_over_a": (HILDITCH_2001, HEINTZ_1978) for star in "12"},
+        **{f"minimum_separation{star}": (HILDITCH_2001, HEINTZ_1978, *KEPLER[1:]) for star in "12"},
+        "semimajor_axis": KEPLER}, (HILDITCH_2001,)),
     function=phys.mid_eclipse,
     references=(HILDITCH_2001, HEINTZ_1978, MURRAY_DERMOTT_1999, MIKKOLA_1987, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),

@@ -4,7 +4,7 @@ import numpy as np
 
 from ..physics import winds as phys
 from ..registry import ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, with_speed_check
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, cited, with_speed_check
 
 EICHLER_USOV_1993 = "D. Eichler & V. Usov (1993), ApJ 402, 271 (shock-cone opening angle)"
 CANTO_RAGA_WILKIN_1996 = "J. Cantó, A. C. Raga & F. P. Wilkin (1996), ApJ 469, 729 (thin-shell colliding winds)"
@@ -157,7 +157,11 @@ def _collision_outputs():
     for suffix, where in (("", "at the separation"), ("_periastron", "at periastron"), ("_apastron", "at apastron")):
         for name, unit, description, formula in _SEPARATION_DEPENDENT:
             outs.append(Output(name + suffix, unit, f"{description}, {where}", formula))
-    return tuple(outs)
+    orbit = ("separation", "true_anomaly", "separation_periastron", "separation_apastron")
+    return cited(outs, {"opening_half_angle_eu93": (EICHLER_USOV_1993,),
+                        "opening_half_angle_crw96": (CANTO_RAGA_WILKIN_1996,),
+                        **dict.fromkeys(orbit, (HILDITCH_2001,)),
+                        "semimajor_axis": (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)}, (STEVENS_1992,))
 
 
 def _mdot(name, star, example, required=True, extra=""):
@@ -280,7 +284,7 @@ register(Calculation(
         Input("stellar_radius", "solRad", "radius of the star (to give the radio photosphere in stellar radii and "
               "warn when it lies in the accelerating wind)", POSITIVE, required=False, example=8.5),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_loss_rate", "solMass/yr", "mass-loss rate",
                "Mdot = 0.095 mu v S^{3/4} D^{3/2} / (Z gamma^{1/2} g^{1/2} nu^{1/2}) f^{1/2} "
                "(v km/s, S Jy, D kpc, nu Hz)"),
@@ -292,7 +296,8 @@ register(Calculation(
                "(cgs, Mdot the smooth-wind rate)"),
         Output("radio_photosphere_stellar_radii", "", "radius of the radio photosphere in stellar radii",
                "R(tau = 1) / R_star"),
-    ),
+    ), {"mass_loss_rate": (WRIGHT_BARLOW_1975, PANAGIA_FELLI_1975), "gaunt_factor": (LEITHERER_ROBERT_1991,)},
+        (RYBICKI_LIGHTMAN_1979, WRIGHT_BARLOW_1975)),
     function=phys.radio_mass_loss,
     references=(WRIGHT_BARLOW_1975, PANAGIA_FELLI_1975, LEITHERER_ROBERT_1991, RYBICKI_LIGHTMAN_1979),
     constants=("M_sun", "m_H", "R_sun", "julian_year"),
@@ -355,12 +360,12 @@ register(Calculation(
               "orbital angular momentum (Pdot/P = 3 (dM1/dt)(M1 - M2)/(M1 M2))", kind="choice",
               choices=("jeans", "conservative"), example="jeans"),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_loss_rate", "solMass/yr", "jeans: rate of mass loss from the system -dM/dt; conservative: rate "
                "of transfer from star 1 to star 2, -dM1/dt (both positive for the named direction)",
                "jeans: (M1 + M2) Pdot / (2 P); conservative: -M1 M2 Pdot / (3 P (M1 - M2))"),
         Output("relative_period_derivative", "1/yr", "Pdot / P", "Pdot / P"),
-    ),
+    ), {"mass_loss_rate": (JEANS_1924, HUANG_1963, HILDITCH_2001)}, ()),
     function=phys.period_change_mass_loss,
     references=(JEANS_1924, HUANG_1963, HILDITCH_2001),
     constants=("day", "julian_year"),
@@ -418,13 +423,13 @@ register(Calculation(
         _vinf("vinf1", "1", 2500.0),
         _vinf("vinf2", "2", 1500.0),
     ),
-    outputs=(
+    outputs=cited((
         Output("momentum_ratio", "", "wind-momentum ratio (as given, or from the opening angle)",
                "eu93: theta = 2.1 (1 - eta^{2/5}/4) eta^{1/3} inverted; crw96: eta = c / (pi + c), "
                "c = tan(psi) - psi"),
         Output("mdot2", "solMass/yr", "mass-loss rate of star 2", "Mdot2 = eta Mdot1 v1 / v2"),
         Output("mdot1", "solMass/yr", "mass-loss rate of star 1", "Mdot1 = Mdot2 v2 / (eta v1)"),
-    ),
+    ), {"momentum_ratio": (EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996)}, (STEVENS_1992,)),
     function=phys.mass_loss_from_momentum_ratio,
     references=(EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, STEVENS_1992),
     conventions={k: WIND_CONVENTIONS[k] for k in ("winds", "opening_half_angle", "mass_loss_rate")}
@@ -555,7 +560,7 @@ register(Calculation(
         Input("metal_fraction", "", "surface mass fraction Z of all elements heavier than helium, including C and O "
               "(nugis-lamers-2000)", POSITIVE_BELOW_ONE, required=False, example=0.12),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_loss_rate", "solMass/yr", "predicted mass-loss rate", "Mdot = 10^(log Mdot)"),
         Output("log_mass_loss_rate", "", "log10 of the mass-loss rate in solMass/yr",
                "vink-2001: eqs. 24 (hot) and 25 (cool side); nugis-lamers-2000: -11.00 + 1.29 log L + 1.73 log Y "
@@ -564,7 +569,8 @@ register(Calculation(
                "T_jump = 61.2 + 2.59 log <rho> kK, log <rho> = -14.94 + 3.1857 Gamma_e + 0.85 log(Z/Z_sun)"),
         Output("eddington_factor", "", "electron-scattering Eddington factor Gamma_e (vink-2001)",
                "Gamma_e = sigma_e L / (4 pi c GM_sun M), sigma_e = 0.325 cm^2/g"),
-    ),
+    ), {"eddington_factor": (VINK_2001, IAU_2015_B3), "bistability_jump_temperature": (VINK_2001,)},
+        (VINK_2001, NUGIS_LAMERS_2000)),
     function=phys.recipe_mass_loss,
     references=(VINK_2001, NUGIS_LAMERS_2000, IAU_2015_B3),
     constants=("L_sun", "GM_sun", "c"),
@@ -596,11 +602,11 @@ register(Calculation(
         Input("parallax", "mas", "parallax (give this, expansion_speed or distance)", POSITIVE, required=False,
               example=0.22),
     ),
-    outputs=(
+    outputs=cited((
         Output("distance", "pc", "distance", "D = v P / s; D (pc) = v (km/s) P (yr) / (4.74047 s (arcsec))"),
         Output("parallax", "mas", "parallax", "parallax (mas) = 1000 / D (pc)"),
         Output("expansion_speed", "km/s", "expansion speed of the shells", "v = 4.74047 s (arcsec) D (pc) / P (yr)"),
-    ),
+    ), {}, (IAU_2012_B2,)),
     function=phys.shell_distance,
     references=(IAU_2012_B2,),
     constants=("au", "julian_year", "au_per_julian_year", "day", "pc"),
@@ -649,12 +655,12 @@ register(Calculation(
               "one before, 1 the next); each must have formed by observation_date", ANY, kind="series",
               label="shell", example=[-3, -2, -1, 0, 1]),
     ),
-    outputs=(
+    outputs=cited((
         Output("angular_radius", "mas", "angular radius of the shell at observation_date",
                "theta = v (t_obs - t_n) / D; theta (arcsec) = v (km/s) age (yr) / (4.74047 D (pc))"),
         Output("radius", "au", "linear radius of the shell at observation_date", "R = v (t_obs - t_n)"),
         Output("age", "yr", "time since the shell formed", "t_obs - (formation_epoch + n P)"),
-    ),
+    ), {}, (IAU_2012_B2,)),
     function=phys.shell_forecast,
     references=(IAU_2012_B2,),
     constants=("au", "julian_year", "au_per_julian_year", "pc"),
