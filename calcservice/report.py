@@ -20,6 +20,7 @@ without extra code.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from decimal import ROUND_HALF_UP, Context, Decimal, localcontext
 from typing import Any, Iterable, Mapping
@@ -278,9 +279,11 @@ class Latex(Style):
             return ""
         try:
             from astropy import units as u
-            return u.Unit(unit).to_string("latex_inline")
+            latex = u.Unit(unit).to_string("latex_inline")
         except Exception:
             return self.text(unit)
+        # astropy writes the astronomical unit "AU"; its symbol is "au" (IAU 2012 Resolution B2)
+        return re.sub(r"(?<![A-Za-z])AU(?![A-Za-z])", "au", latex)
 
     def number(self, p):
         if p is None:
@@ -321,9 +324,11 @@ def _measured_cell(entry: Mapping[str, Any], style: Style) -> str:
     low, high = entry.get("low"), entry.get("high")
     if p is None or "sigma" not in entry or entry["sigma"] is not None or not (_finite(low) and _finite(high)):
         return style.number(p)
+    # the ends of the interval at the median's decimal place (set by the shorter half-width, PDG rule)
+    place = p.exponent - (len(p.value.split(".")[1]) if "." in p.value else 0)
+    ends = [Printed(_plain(round_at(x, place), p.exponent), exponent=p.exponent) for x in (low, high)]
     return (style.number(Printed(p.value, exponent=p.exponent)) + style.text(" (sigma undefined; 68.27 % interval ")
-            + style.number(printed(low, digits=3)) + style.text(" to ") + style.number(printed(high, digits=3))
-            + style.text(")"))
+            + style.number(ends[0]) + style.text(" to ") + style.number(ends[1]) + style.text(")"))
 
 
 def _given(entry: Mapping[str, Any], style: Style) -> str:
@@ -372,7 +377,7 @@ def _cite(indices: list[int], dash: str = "–") -> str:
 
 
 def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str, Any]] = (),
-                      calc: Calculation | None = None) -> list[str]:
+                      calc: Calculation | None = None, inputs: Mapping[str, Any] | None = None) -> list[str]:
     lines = []
     if unc.get("method") == "monte_carlo":
         lines.append(f"Monte Carlo with {unc.get('samples')} draws, seed {unc.get('seed')}; "
@@ -384,6 +389,12 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
                     else "a numerical (central-difference) Jacobian")
         lines.append(f"linear (first-order) propagation through {jacobian}, with the input covariance "
                      "built from the sigmas and correlations")
+    isotropic = [k for k, v in (inputs or {}).items() if isinstance(v, Mapping) and v.get("value") == "isotropic"]
+    if isotropic:
+        lines.append(", ".join(isotropic) + " isotropic: random orientations, cos i drawn uniform on [0, 1) (i from "
+                     "0 to 90 deg; what depends on sin i only is the same for the retrograde half): the results are "
+                     "the distribution over orientations for an inclination not known at all, not a measurement "
+                     "of it")
     corr = [c for c in correlations or () if isinstance(c, Mapping) and "between" in c]
     if corr:
         lines.append("correlations: " + ", ".join(f"rho({c['between'][0]}, {c['between'][1]}) = {c['rho']}"
@@ -638,7 +649,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
 
     doc.heading("Uncertainty")
     corr = (request or {}).get("correlations", ()) if isinstance(request, Mapping) else ()
-    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr, calc)])
+    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr, calc,
+                                                     response.get("inputs"))])
 
     _budget_section(doc, results, response.get("uncertainty", {}))
 
