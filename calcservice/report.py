@@ -440,6 +440,14 @@ def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]
     return out
 
 
+def event_field_units(results: Mapping[str, Any], label: str) -> Mapping[str, str]:
+    """The units of the fields of one list of :func:`event_lists` (the member's ``units``, e.g. km/s for an
+    event's velocity_separation), by field name."""
+    member = results.get(label.split(":")[0])
+    units = member.get("units") if isinstance(member, Mapping) else None
+    return units if isinstance(units, Mapping) else {}
+
+
 def _share(x: float) -> str:
     """A share of variance as a percentage: one decimal, or two significant digits below 0.1 %."""
     pct = 100.0 * x
@@ -614,7 +622,9 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                                               if k != "series" and not is_measured(v)}):
         doc.heading(label.replace("_", " ").capitalize())
         keys = [k for k in entries[0] if k not in ("value", "sigma", "low", "high")]
-        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [s.text(k) for k in keys]
+        fields = event_field_units(results, label)
+        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [
+            s.text(k) + (f" [{s.unit(fields[k])}]" if fields.get(k) else "") for k in keys]
         body = []
         for e in entries:
             v = e.get("value")

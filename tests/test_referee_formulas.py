@@ -416,3 +416,18 @@ def test_shell_formulas():
         close(v["age"][k], age.to_value(u.yr), 1e-12)
         angle = (R / (body["distance"] * u.pc)).to_value(u.dimensionless_unscaled) * u.rad.to(u.mas)
         close(v["angular_radius"][k], angle, 1e-12)
+
+
+def test_ephemeris_velocity_separation_at_the_dates_omega():
+    # |v1 - v2| at an RV extremum is (K1 + K2)(1 +- e cos omega) (Hilditch 2001, ch. 2: v = K [cos(nu + omega) +
+    # e cos omega]), with omega at that date when the apsides move: omega + omega_dot (t - T0) / Julian year
+    body = {"period": 31.4, "eccentricity": 0.42, "omega": 70.0, "t_periastron": 2450000.0, "k1": 40.0, "k2": 55.0,
+            "omega_dot": 2.5, "times": [2460000.0], "count": 2}
+    _, _, _, r = answer("ephemeris", body)
+    events = r["results"]["events"]
+    assert events["units"] == {"velocity_separation": "km/s"}
+    for x in events["max_velocity_separation"]:
+        w = math.radians(body["omega"] + body["omega_dot"] * (x["value"] - body["t_periastron"]) / 365.25)
+        sign = 1.0 if x["kind"] == "rv1_maximum" else -1.0
+        close(x["velocity_separation"], (body["k1"] + body["k2"]) * (1 + sign * body["eccentricity"] * math.cos(w)),
+              1e-9)

@@ -190,8 +190,11 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         separations = {}
         if k2 is not None:
             for kind, ev, _s in extrema:
-                vs = phys.velocity_separation(e, w, np.broadcast_to(k1, (n,)), np.broadcast_to(k2, (n,)), kind)
-                separations[kind] = np.broadcast_to(vs[:, None], ev["time"].shape)
+                # e cos omega at each date: with apsidal motion omega has moved since t_periastron
+                w_t = phys.omega_at(ev["time"], w[:, None], t0[:, None], None if w_dot is None else w_dot[:, None])
+                vs = phys.velocity_separation(e[:, None], w_t, np.broadcast_to(k1, (n,))[:, None],
+                                              np.broadcast_to(k2, (n,))[:, None], kind)
+                separations[kind] = np.broadcast_to(vs, ev["time"].shape)
     for i in range(n):
         events = per_system[i]["events"]
         for list_name, parts in kinds_all.items():
@@ -211,6 +214,8 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         mvs.sort(key=lambda r: r["value"])
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
+        if separations:
+            events["units"] = {"velocity_separation": "km/s"}      # the unit of a field of the entries
         events["time_format"] = time_format
         events["light_travel_time"] = {
             "applied": chosen if light is not None else "none",
