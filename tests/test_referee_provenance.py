@@ -11,6 +11,7 @@ assignments to the constants of calcservice.constants.
 from __future__ import annotations
 
 import ast
+import re
 import inspect
 import sys
 import types
@@ -128,3 +129,34 @@ def test_the_reasons_by_definition_still_hold():
             assert "pc" in units and "mas" in units, name
         if "julian_year" in extra:
             assert any("yr" in unit for unit in units), name
+
+
+#: a convention and what a calculation must have (inputs or outputs, any of) for it to apply
+CONVENTION_NEEDS = {
+    "radial_velocity": {"k1", "rv1"},
+    "time": {"t_periastron", "formation_epoch", "times", "observation_date"},
+    "light_travel_time": {"light_travel_time"},
+    "position_angle": {"position_angle"},
+    "node": {"node"},
+    "inclination": {"inclination"},
+    "parallax": {"parallax"},
+    "kepler": {"total_mass"},
+    "sky_axes": {"A", "node"},
+    "mass_ratio": {"mass_ratio"},
+    "phase": {"phase", "mid_eclipse_phase1"},
+}
+
+
+def test_each_calculation_states_only_the_conventions_that_apply_to_it():
+    stray = {}
+    for name, calc in calculations().items():
+        names = {i.name for i in calc.inputs} | {o.name for o in calc.outputs}
+        for key, text in calc.conventions.items():
+            needs = CONVENTION_NEEDS.get(key)
+            if needs is not None and not needs & names:
+                stray.setdefault(name, []).append(key)
+            # a semi-amplitude named in a convention is an input of the calculation
+            for k in ("k1", "k2"):
+                if re.search(rf"\b{k}\b", text, re.IGNORECASE) and k not in names:
+                    stray.setdefault(name, []).append(f"{key} names {k}")
+    assert stray == {}

@@ -4,7 +4,7 @@ import numpy as np
 
 from ..physics import astrometric as phys
 from ..registry import ANGLE, ANY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, cited, period
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, cited, period
 
 HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, D. Reidel, Dordrecht (Thiele–Innes constants, orbital parallax)"
 BINNENDIJK_1960 = "L. Binnendijk (1960), Properties of Double Stars, University of Pennsylvania Press, Philadelphia"
@@ -29,15 +29,15 @@ SKY = {
 }
 
 VISUAL_CONVENTIONS = {
-    **CONVENTIONS,
-    **SKY,
+    "mass_ratio": MASS_RATIO,
+    "parallax": SKY["parallax"],
+    "kepler": SKY["kepler"],
     "fractional_mass": "B = M2/(M1 + M2) = q/(1 + q), the fraction of the relative orbit described by the primary: "
                        "a1 = B a, a2 = (1 - B) a",
 }
 
 ORIENTATION_CONVENTIONS = {
-    **CONVENTIONS,
-    **SKY,
+    "sky_axes": SKY["sky_axes"],
     "omega": "argument of periastron of the RELATIVE orbit (secondary about primary), the visual-binary convention "
              "the Thiele–Innes constants use; omega_primary = omega - 180 deg is the spectroscopic omega of the "
              "primary's orbit (omega_relative = omega_primary + 180 deg)",
@@ -247,8 +247,9 @@ register(Calculation(
     references=(VAN_DE_KAMP_1967, HEINTZ_1978, HILDITCH_2001, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
     conventions={
-        **CONVENTIONS,
-        **SKY,
+        "mass_ratio": MASS_RATIO,
+        "parallax": SKY["parallax"],
+        "kepler": SKY["kepler"],
         "photocentre": "alpha = a (B - beta), B = M2/(M1 + M2), beta = L2/(L1 + L2): the photocentre moves with the "
                        "primary, so B > beta; for every beta < 1 exactly one such companion mass fits, and beta = 0 "
                        "(a dark companion) gives the smallest one. A companion with beta > B (photocentre moving "

@@ -6,8 +6,8 @@ from ..physics import astrometric as phys
 from ..physics.spectroscopic import companion_mass, mass_function
 from ..registry import ANGLE, INCLINATION, POSITIVE, Calculation, Constraint, Input, Output, Warning, register
 from .astrometric import HEINTZ_1978, IAU_2015_B2, LUMINOSITY_FRACTION, SKY, VAN_DE_KAMP_1967
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, cited, eccentricity, period,
-                     semi_amplitude, with_speed_check)
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, cited, conventions, eccentricity,
+                     period, semi_amplitude, with_speed_check)
 
 #: the sources of a mass: Hilditch's formulas with GM_sun (IAU 2015 B3)
 MASS = (HILDITCH_2001, IAU_2015_B3)
@@ -93,8 +93,9 @@ register(Calculation(
     references=(HILDITCH_2001, HEINTZ_1978, VAN_DE_KAMP_1967, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
     conventions={
-        **CONVENTIONS,
-        **SKY,
+        **conventions("radial_velocity", "omega", "inclination", "mass_ratio"),
+        "parallax": SKY["parallax"],
+        "kepler": SKY["kepler"],
         "combination": "period, eccentricity and inclination are shared by both orbits; the spectroscopic omega "
                        "is the primary's, the visual orbit's omega is the relative orbit's: omega_relative = "
                        "omega + 180 deg. A dark companion's photocentre is the primary, whose orbit has the "

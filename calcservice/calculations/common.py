@@ -41,6 +41,14 @@ CONVENTIONS = {
     "time": "Julian Date (days) unless another format is given",
 }
 
+#: q as a ratio of masses, where no semi-amplitudes are given (astrometry, geometry)
+MASS_RATIO = "q = M2/M1; star 1 is the primary"
+
+
+def conventions(*keys, **more) -> dict:
+    """The shared ``CONVENTIONS`` named by ``keys`` (only those that apply to a calculation), then ``more``."""
+    return {**{k: CONVENTIONS[k] for k in keys}, **more}
+
 
 def period(**kw) -> Input:
     return Input("period", "d", "orbital period", POSITIVE, example=kw.pop("example", 41.6), **kw)

@@ -10,8 +10,8 @@ import numpy as np
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, DATE, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, cited, eccentricity,
-                     period, with_speed_check)
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SPEED, VELOCITY, cited,
+                     eccentricity, period, with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
@@ -35,7 +35,7 @@ EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "omega_dot"
 LIGHT_TRAVEL_CHOICES = ("none", "star1", "star2")
 
 ORBIT_CONVENTIONS = {
-    **CONVENTIONS,
+    **{k: v for k, v in CONVENTIONS.items() if k != "mass_ratio"},
     "phase": "orbital phase (t - t_periastron)/period mod 1, zero at periastron",
     "position_angle": "of star 2 relative to star 1, from north through east; node is the position angle of the "
                       "ascending node, where star 2 recedes from the observer; the relative orbit has omega + 180 deg",
@@ -447,7 +447,7 @@ register(Calculation(
     function=phys.geometry,
     references=(EGGLETON_1983, HILDITCH_2001, MURRAY_DERMOTT_1999, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "R_sun", "day"),
-    conventions={**CONVENTIONS,
+    conventions={"mass_ratio": MASS_RATIO,
                  "roche_lobe": "Eggleton (1983) volume-equivalent radius with the instantaneous separation in place "
                                "of a (an approximation for eccentric orbits)",
                  "speeds": "relative orbital speed of the two stars (vis-viva), not of either star about the "
@@ -581,7 +581,7 @@ register(Calculation(
     references=(HILDITCH_2001, HEINTZ_1978, MURRAY_DERMOTT_1999, MIKKOLA_1987, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
     constants=("GM_sun", "au", "R_sun", "day", "julian_year"),
-    conventions={**ORBIT_CONVENTIONS,
+    conventions={**{k: ORBIT_CONVENTIONS[k] for k in ("omega", "inclination", "time", "phase", "iso")},
                  "mid_eclipse": "the time of minimum projected separation of the two centres near a conjunction "
                                 "(spherical stars, no light-travel time); eclipse_of_star1 is the conjunction with "
                                 "star 2 in front (nu + omega = 90 deg), eclipse_of_star2 the other; which one is the "
