@@ -161,3 +161,12 @@ def test_the_docs_page_is_well_formed_and_its_citations_resolve(docs_html):
     numbers = re.findall(r'href="#geometry-ref(\d+)"', row)
     refs = re.findall(r'<li id="geometry-ref(\d+)">([^<]*)</li>', section)
     assert numbers and all("Eggleton" in dict(refs)[n] or "IAU" in dict(refs)[n] for n in numbers)
+
+
+def test_the_json_answer_names_each_formulas_sources():
+    body = {"period": 118.3, "eccentricity": 0.62, "m1": 8.4, "m2": 5.1}
+    prov = compute("geometry", body)["provenance"]
+    refs = prov["references"]
+    assert [refs[k] for k in prov["formula_sources"]["roche_lobe1"]] == list(sources("geometry", "roche_lobe1"))
+    assert "Eggleton (1983)" in refs[prov["formula_sources"]["roche_lobe1"][0]]
+    assert set(prov["formula_sources"]) <= set(prov["formulas"])
