@@ -513,11 +513,14 @@ class _Doc:
                 self.lines.append(f"{k}. {e}" if numbered else f"- {e}")
             self.lines.append("")
 
-    def table(self, header: list[str], rows: list[list[str]], align: str | None = None):
+    def table(self, header: list[str], rows: list[list[str]], align: str | None = None, wrap_last: bool = False):
+        """A table; ``wrap_last``: the last column is prose (a description, a source), which LaTeX wraps in a
+        paragraph column instead of running it off the page."""
         s = self.style
         align = align or "l" * len(header)
         if s.name == "latex":
-            self.lines.append(rf"\begin{{tabular}}{{{align}}}")
+            spec = align[:-1] + r"p{0.4\linewidth}" if wrap_last else align
+            self.lines.append(rf"\begin{{tabular}}{{{spec}}}")
             self.lines.append(r"\hline")
             self.lines.append(" & ".join(header) + r" \\")
             self.lines.append(r"\hline")
@@ -581,7 +584,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
                      shown_unit, s.text(desc)])
-    doc.table(["input", "value", "unit", "description"], rows)
+    doc.table(["input", "value", "unit", "description"], rows, wrap_last=True)
 
     results = response.get("results", {})
     measured = {k: v for k, v in results.items() if is_measured(v)}
@@ -596,7 +599,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         rows.append([s.code(key), _measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
     if rows:
         doc.heading("Results")
-        doc.table(["result", "value", "unit", "description"], rows)
+        doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)
 
     series = results.get("series")
     if isinstance(series, dict):
@@ -650,7 +653,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         doc.heading("Constants")
         rows = [[s.code(c.get("symbol", k)), s.text(repr(c.get("value"))), s.unit(c.get("unit", "")),
                  s.text(c.get("source", ""))] for k, c in constants.items()]
-        doc.table(["constant", "value", "unit", "source"], rows)
+        doc.table(["constant", "value", "unit", "source"], rows, wrap_last=True)
 
     conventions = prov.get("conventions", {})
     if conventions:

@@ -93,3 +93,10 @@ def test_a_monte_carlo_interval_is_printed_at_the_medians_place():
         # the PDG rule on the shorter half-width sets the place
         shorter = min(entry["value"] - entry["low"], entry["high"] - entry["value"])
         assert decimals.pop() == max(0, -report.pdg_place(shorter)), row
+
+
+def test_prose_columns_wrap_in_latex():
+    # a description or a source runs to 200 characters: in an l column it would run off the printed page
+    tex = report.latex(compute("sb1", dict(get("sb1").example)), get("sb1"))
+    tables = [line for line in tex.splitlines() if line.startswith(r"\begin{tabular}")]
+    assert len(tables) == 3 and all(t.endswith(r"p{0.4\linewidth}}") for t in tables[:3]), tables
