@@ -455,3 +455,26 @@ def test_wright_barlow_coefficient_from_the_free_free_opacity():
     mdot = n_r2 * 4 * math.pi * body["vinf"] * 1e5 * body["mu"] * c["m_H"] * 1e3          # g/s
     mdot = mdot / (c["M_sun"] * 1e3) * c["julian_year"]
     assert abs(v["mass_loss_rate"] / mdot - 1) < 0.02
+
+
+def test_the_kepler_convention_states_the_right_difference():
+    # M = a^3 / P^2 (au, Julian years) against 4 pi^2 a^3 / (GM_sun P^2): the Gaussian year 2 pi / k
+    # (k = 0.01720209895, IAU 1976) is 365.2568983 d, so the two differ by (2 pi / (k 365.25))^2 - 1
+    v, _, c, r = answer("visual", {"period": 365.25, "angular_semimajor_axis": 100.0, "parallax": 100.0})
+    close(v["semimajor_axis"], 1.0)
+    difference = v["total_mass"] - 1.0           # the mass by GM_sun over a^3 / P^2 in Julian years
+    gaussian_year = 2 * math.pi / 0.01720209895
+    assert abs(difference - ((gaussian_year / 365.25) ** 2 - 1)) < 1e-8
+    stated = r["provenance"]["conventions"]["kepler"]
+    assert f"differs by {difference:.1e}" in stated and f"{gaussian_year:.7f} d" in stated
+
+
+def test_light_travel_amplitudes():
+    # a sin i / c = K P sqrt(1 - e^2) / (2 pi c) (Hilditch 2001, ch. 2), in days, with c exact (SI)
+    body = {"period": 812.0, "eccentricity": 0.33, "omega": 20.0, "t_periastron": 2459000.0, "k1": 21.0,
+            "k2": 34.0, "times": [2460000.0], "count": 1}
+    _, _, c, r = answer("ephemeris", body)
+    amp = r["results"]["events"]["light_travel_time"]
+    for star, k in (("star1", body["k1"]), ("star2", body["k2"])):
+        asini = (k * u.km / u.s * body["period"] * u.d * math.sqrt(1 - body["eccentricity"] ** 2) / (2 * math.pi))
+        close(amp[f"amplitude_{star}"], (asini / ac.c).to_value(u.d), 1e-12)

@@ -25,7 +25,7 @@ SKY = {
                 "Y = sqrt(1 - e^2) sin E (Thiele–Innes)",
     "parallax": "a [au] = a [mas] / parallax [mas] = a [mas] * distance [pc] / 1000 (definition of the parsec)",
     "kepler": "M1 + M2 = 4 pi^2 a^3 / (GM_sun P^2) with the IAU 2015 nominal GM_sun (not a^3/P^2 in years, "
-              "which differs by 4e-5 because a Julian year is not the Gaussian year)",
+              "which differs by 3.8e-5 because a Julian year is not the Gaussian year of 365.2568983 d)",
 }
 
 VISUAL_CONVENTIONS = {
