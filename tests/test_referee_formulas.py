@@ -466,7 +466,7 @@ def test_the_kepler_convention_states_the_right_difference():
     gaussian_year = 2 * math.pi / 0.01720209895
     assert abs(difference - ((gaussian_year / 365.25) ** 2 - 1)) < 1e-8
     stated = r["provenance"]["conventions"]["kepler"]
-    assert f"differs by {difference:.1e}" in stated and f"{gaussian_year:.7f} d" in stated
+    assert "differs by " + f"{difference:.1e}".replace("e-05", "e-5") in stated and f"{gaussian_year:.7f} d" in stated
 
 
 def test_light_travel_amplitudes():
