@@ -148,7 +148,7 @@ def thiele_innes_by_hand(a, i, w, n):
 def test_thiele_innes_and_campbell_formulas():
     el = {"angular_semimajor_axis": 214.6, "inclination": 118.4, "omega": 301.7, "node": 64.2}
     v, f, _, _ = answer("thiele-innes", el)
-    assert f["A"] == "A = a (cos w cos W - sin w sin W cos i)"
+    assert f["A"] == "A = a (cos w cos W - sin w sin W cos i), w = omega, W = node"
     A, B, F, G = thiele_innes_by_hand(*el.values())
     for k, x in zip("ABFG", (A, B, F, G)):
         close(v[k], x, 1e-13)

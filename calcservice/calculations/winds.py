@@ -483,7 +483,8 @@ _RECIPE_CONSTRAINTS = (
     *(_needs(name, _recipe_missing(name, owner), f"is required by {owner}")
       for owner, names in _NEEDS.items() for name in names),
     Constraint(("luminosity", "mass"), "the star is at or above its Eddington limit (Gamma_e = sigma_e L / "
-               "(4 pi c GM_sun M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists there",
+               "(4 pi c GM_sun M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists "
+               "there",
                lambda **kw:
                _rows(True) if _chosen_recipe(kw) != "vink-2001" or not (_given(kw.get("luminosity"))
                                                                       and _given(kw.get("mass")))
