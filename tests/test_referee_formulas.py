@@ -330,6 +330,7 @@ def test_collision_formulas():
     chi = (body["vinf1"] / 1e3) ** 4 * (r1 * c["au"] * 100 / 1e12) / (body["mdot1"] / 1e-7)
     close(v["cooling_parameter1"], chi, 1e-11)
     close(v["stagnation_distance1_periastron"], a * (1 - e) / (1 + math.sqrt(eta)))
+    assert f["stagnation_distance1"] == "r1 = D / (1 + eta^{1/2}), D the separation"
 
 
 def test_radio_formulas():

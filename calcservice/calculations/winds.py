@@ -124,8 +124,10 @@ def _collision_check(inputs, outputs):
 
 
 _SEPARATION_DEPENDENT = (
-    ("stagnation_distance1", "au", "distance of the stagnation point from star 1", "r1 = D / (1 + eta^{1/2})"),
-    ("stagnation_distance2", "au", "distance of the stagnation point from star 2", "r2 = D eta^{1/2} / (1 + eta^{1/2})"),
+    ("stagnation_distance1", "au", "distance of the stagnation point from star 1",
+     "r1 = D / (1 + eta^{1/2}), D the separation"),
+    ("stagnation_distance2", "au", "distance of the stagnation point from star 2",
+     "r2 = D eta^{1/2} / (1 + eta^{1/2}), D the separation"),
     ("cooling_parameter1", "", "cooling parameter chi of the shocked wind of star 1 (>~1 adiabatic, <~1 radiative)",
      "chi1 = (v1 / 1000 km/s)^4 (r1 / 1e12 cm) / (Mdot1 / 1e-7 solMass/yr)"),
     ("cooling_parameter2", "", "cooling parameter chi of the shocked wind of star 2 (>~1 adiabatic, <~1 radiative)",
