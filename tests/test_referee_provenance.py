@@ -160,3 +160,18 @@ def test_each_calculation_states_only_the_conventions_that_apply_to_it():
                 if re.search(rf"\b{k}\b", text, re.IGNORECASE) and k not in names:
                     stray.setdefault(name, []).append(f"{key} names {k}")
     assert stray == {}
+
+
+def test_each_calculation_defines_the_symbols_of_its_formulas():
+    # the formulas write P, K1, e, i, Mdot1, a''...: the "symbols" convention says which input or output each is
+    problems = {}
+    for name, calc in calculations().items():
+        text = calc.conventions.get("symbols", "")
+        names = {i.name for i in calc.inputs} | {o.name for o in calc.outputs}
+        named = set(re.findall(r"= ([a-z][a-z0-9_]*[a-z0-9])\b", text))
+        stale = {n for n in named if "_" in n or n in names} - names
+        words = set(re.findall(r"[A-Za-z][A-Za-z0-9_]*", text))
+        missing = {i.name for i in calc.inputs if i.required and i.kind == "quantity"} - words
+        if stale or missing or not text:
+            problems[name] = {"not inputs or outputs": sorted(stale), "required inputs not named": sorted(missing)}
+    assert problems == {}

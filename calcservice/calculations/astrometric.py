@@ -4,7 +4,7 @@ import numpy as np
 
 from ..physics import astrometric as phys
 from ..registry import ANGLE, ANY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, cited, period
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SYMBOLS, cited, period
 
 HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, D. Reidel, Dordrecht (Thiele–Innes constants, orbital parallax)"
 BINNENDIJK_1960 = "L. Binnendijk (1960), Properties of Double Stars, University of Pennsylvania Press, Philadelphia"
@@ -94,7 +94,8 @@ register(Calculation(
     function=phys.visual,
     references=(HILDITCH_2001, HEINTZ_1978, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
-    conventions=VISUAL_CONVENTIONS,
+    conventions=VISUAL_CONVENTIONS
+    | {"symbols": SYMBOLS["visual"]},
     exclusive=(("parallax", "distance"),),
     at_most_one=(("mass_ratio", "fractional_mass"),),
     check=_visual_check,
@@ -150,7 +151,8 @@ register(Calculation(
     ), {}, (HEINTZ_1978, BINNENDIJK_1960)),
     function=phys.campbell,
     references=(HEINTZ_1978, BINNENDIJK_1960),
-    conventions=ORIENTATION_CONVENTIONS,
+    conventions=ORIENTATION_CONVENTIONS
+    | {"symbols": SYMBOLS["campbell"]},
     constraints=(Constraint(("A", "B", "F", "G"), "the Thiele–Innes constants are all zero: they give a = 0",
                             _nonzero_orbit),),
     check=_campbell_check,
@@ -189,7 +191,8 @@ register(Calculation(
     ), {}, (HEINTZ_1978, BINNENDIJK_1960)),
     function=phys.thiele_innes,
     references=(HEINTZ_1978, BINNENDIJK_1960),
-    conventions=ORIENTATION_CONVENTIONS,
+    conventions=ORIENTATION_CONVENTIONS
+    | {"symbols": SYMBOLS["thiele-innes"]},
     exclusive=(("omega", "omega_primary"),),
     example={"angular_semimajor_axis": {"value": 327.0, "sigma": 2.0}, "inclination": {"value": 63.0, "sigma": 0.7},
              "omega": {"value": 212.0, "sigma": 1.5}, "node": {"value": 118.0, "sigma": 0.6}},
@@ -258,7 +261,8 @@ register(Calculation(
                        "primary, so B > beta; for every beta < 1 exactly one such companion mass fits, and beta = 0 "
                        "(a dark companion) gives the smallest one. A companion with beta > B (photocentre moving "
                        "with the secondary) is the other branch and is not solved here",
-    },
+    }
+    | {"symbols": SYMBOLS["photocentre"]},
     exclusive=(("parallax", "distance"),),
     check=_photocentre_check,
     example={"photocentre_semimajor_axis": {"value": 3.71, "sigma": 0.05}, "parallax": {"value": 21.4, "sigma": 0.03},

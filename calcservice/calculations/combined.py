@@ -6,7 +6,7 @@ from ..physics import astrometric as phys
 from ..physics.spectroscopic import companion_mass, mass_function
 from ..registry import ANGLE, INCLINATION, POSITIVE, Calculation, Constraint, Input, Output, Warning, register
 from .astrometric import HEINTZ_1978, IAU_2015_B2, LUMINOSITY_FRACTION, SKY, VAN_DE_KAMP_1967
-from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, cited, conventions, eccentricity,
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, conventions, eccentricity,
                      period, semi_amplitude, with_speed_check)
 
 #: the sources of a mass: Hilditch's formulas with GM_sun (IAU 2015 B3)
@@ -101,7 +101,8 @@ register(Calculation(
                        "omega + 180 deg. A dark companion's photocentre is the primary, whose orbit has the "
                        "spectroscopic omega itself",
         "photocentre": "alpha = a (B - beta) = a1 (1 - beta/B), B = M2/(M1 + M2): needs beta < B",
-    },
+    }
+    | {"symbols": SYMBOLS["orbital-parallax"]},
     constraints=(
         Constraint(("luminosity_fraction", "primary_mass"),
                    "a luminous companion's light fraction needs primary_mass (alpha = a1 (1 - beta/B)); "

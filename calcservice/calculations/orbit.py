@@ -10,8 +10,8 @@ import numpy as np
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, DATE, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SPEED, VELOCITY, cited,
-                     eccentricity, period, with_speed_check)
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SPEED, SYMBOLS, VELOCITY,
+                     cited, eccentricity, period, with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
@@ -345,7 +345,8 @@ register(Calculation(
     references=(MIKKOLA_1987, MURRAY_DERMOTT_1999, HILDITCH_2001, HEINTZ_1978, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
     constants=("GM_sun", "au", "day", "c", "julian_year"),
-    conventions=ORBIT_CONVENTIONS,
+    conventions=ORBIT_CONVENTIONS
+    | {"symbols": SYMBOLS["ephemeris"]},
     constraints=(
         Constraint(("m1", "m2"), "m1 and m2 go together (both give the physical separation)",
                    _ephemeris_consistent_masses),
@@ -451,7 +452,8 @@ register(Calculation(
                  "roche_lobe": "Eggleton (1983) volume-equivalent radius with the instantaneous separation in place "
                                "of a (an approximation for eccentric orbits)",
                  "speeds": "relative orbital speed of the two stars (vis-viva), not of either star about the "
-                           "centre of mass"},
+                           "centre of mass"}
+    | {"symbols": SYMBOLS["geometry"]},
     exclusive=(("m1", "semimajor_axis"),),
     at_most_one=(("m2", "mass_ratio"), ("m2", "semimajor_axis")),
     constraints=(
@@ -594,7 +596,8 @@ register(Calculation(
                  "eclipse_possible": "given with both radii: true where the discs overlap at the minimum separation",
                  "apsidal_motion": ORBIT_CONVENTIONS["apsidal_motion"] + "; the phases, offsets and separations "
                                    "are those at t_periastron, the event dates follow omega(t)",
-                 "period_derivative": ORBIT_CONVENTIONS["period_derivative"]},
+                 "period_derivative": ORBIT_CONVENTIONS["period_derivative"]}
+    | {"symbols": SYMBOLS["mid-eclipse"]},
     constraints=(Constraint(("radius1", "radius2"), "whether the discs overlap needs both radii and the orbit's size "
                             "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),
                  Constraint(("period_derivative",), "with this period derivative the period reaches zero before the "

@@ -4,7 +4,7 @@ import numpy as np
 
 from ..physics import winds as phys
 from ..registry import ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, cited, with_speed_check
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, with_speed_check
 
 EICHLER_USOV_1993 = "D. Eichler & V. Usov (1993), ApJ 402, 271 (shock-cone opening angle)"
 CANTO_RAGA_WILKIN_1996 = "J. Cantó, A. C. Raga & F. P. Wilkin (1996), ApJ 469, 729 (thin-shell colliding winds)"
@@ -216,7 +216,8 @@ register(Calculation(
     references=(STEVENS_1992, EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day", "m_H", "k_B", "R_sun"),
     conventions={**WIND_CONVENTIONS,
-                 "phase": "(t - T_periastron)/P, mean anomaly M = 2 pi phase; true anomaly counted from periastron"},
+                 "phase": "(t - T_periastron)/P, mean anomaly M = 2 pi phase; true anomaly counted from periastron"}
+    | {"symbols": SYMBOLS["collision"]},
     constraints=_COLLISION_CONSTRAINTS,
     # "exactly one of separation, eccentricity" is a constraint so that a phase given alone is named too
     at_most_one=(("separation", "eccentricity"), ("phase", "true_anomaly"), ("semimajor_axis", "period"), ("semimajor_axis", "m1"),
@@ -314,7 +315,8 @@ register(Calculation(
                              "density-squared diagnostic then overestimates the smooth-wind rate by f^-1/2",
                  "defaults": "wind_type defaults derive mu, Z and gamma from the stated composition "
                              "(mu = sum n_i A_i / sum n_i, Z^2 = sum n_i Z_i^2 / sum n_i, "
-                             "gamma = sum n_i Z_i / sum n_i); compositions and temperatures are common practice"},
+                             "gamma = sum n_i Z_i / sum n_i); compositions and temperatures are common practice"}
+    | {"symbols": SYMBOLS["mass-loss-radio"]},
     check=with_speed_check(_radio_check, ("vinf",)),
     example={"flux_density": {"value": 1.8, "sigma": 0.1}, "frequency": 8.4, "distance": {"value": 2.1, "sigma": 0.3},
              "vinf": {"value": 1700.0, "sigma": 100.0}, "wind_type": "wn", "stellar_radius": 8.5},
@@ -373,7 +375,8 @@ register(Calculation(
     constants=("day", "julian_year"),
     conventions={"mass_loss_rate": "jeans: mass leaving the system is positive (a lengthening period); "
                                    "conservative: transfer from star 1 to star 2 is positive",
-                 "period_derivative": "dP/dt, positive when the period lengthens; s/yr by default"},
+                 "period_derivative": "dP/dt, positive when the period lengthens; s/yr by default"}
+    | {"symbols": SYMBOLS["mass-loss-period-change"]},
     # the mode is a choice: this constraint acts where constraints are shown the choices; otherwise the
     # division by M1 - M2 = 0 gives no finite rate and the row is refused all the same
     constraints=(Constraint(("m1", "m2"), "the conservative mode needs m1 != m2: at equal masses the period "
@@ -436,7 +439,8 @@ register(Calculation(
     references=(EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, STEVENS_1992),
     conventions={k: WIND_CONVENTIONS[k] for k in ("winds", "opening_half_angle", "mass_loss_rate")}
     | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle always gives "
-                         "eta <= 1, the cone wrapping star 2"},
+                         "eta <= 1, the cone wrapping star 2"}
+    | {"symbols": SYMBOLS["mass-loss-momentum-ratio"]},
     exclusive=(("momentum_ratio", "opening_half_angle"), ("mdot1", "mdot2")),
     check=with_speed_check(_momentum_check, ("vinf1", "vinf2")),
     example={"opening_half_angle": {"value": 38.0, "sigma": 4.0}, "opening_angle_formula": "crw96",
@@ -579,7 +583,8 @@ register(Calculation(
     constants=("L_sun", "GM_sun", "c"),
     conventions={"mass_loss_rate": WIND_CONVENTIONS["mass_loss_rate"],
                  "vink-2001": "the hot-side formula at teff >= the jump temperature, the cool-side formula below it",
-                 "inputs": "inputs of the other recipe are refused"},
+                 "inputs": "inputs of the other recipe are refused"}
+    | {"symbols": SYMBOLS["mass-loss-recipe"]},
     constraints=_RECIPE_CONSTRAINTS,
     check=_recipe_check,
     example={"recipe": "vink-2001", "luminosity": {"value": 3.2e5, "sigma": 0.5e5},
@@ -617,7 +622,8 @@ register(Calculation(
                            "shell's angular radius from one shell to the next, and the edge of a spherical shell "
                            "moves across the sky at the full expansion speed (for a cone or spiral the projection "
                            "changes the result)",
-                 "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)"},
+                 "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)"}
+    | {"symbols": SYMBOLS["shell-distance"]},
     exclusive=(("expansion_speed", "distance", "parallax"),),
     check=with_speed_check(None, ("expansion_speed",)),
     example={"period": {"value": 2950.0, "sigma": 15.0}, "shell_spacing": {"value": 410.0, "sigma": 12.0},
@@ -671,7 +677,8 @@ register(Calculation(
                            "speed from the star; the edge of a spherical shell moves across the sky at the full "
                            "expansion speed (for a cone or spiral the projection changes the result)",
                  "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)",
-                 "time": "Julian Dates (days) unless another format is given; ages in Julian years"},
+                 "time": "Julian Dates (days) unless another format is given; ages in Julian years"}
+    | {"symbols": SYMBOLS["shell-forecast"]},
     exclusive=(("distance", "parallax"),),
     constraints=(
         Constraint(("shells",), "shell numbers are whole numbers", _whole_shells),
