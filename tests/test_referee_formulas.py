@@ -479,3 +479,19 @@ def test_light_travel_amplitudes():
     for star, k in (("star1", body["k1"]), ("star2", body["k2"])):
         asini = (k * u.km / u.s * body["period"] * u.d * math.sqrt(1 - body["eccentricity"] ** 2) / (2 * math.pi))
         close(amp[f"amplitude_{star}"], (asini / ac.c).to_value(u.d), 1e-12)
+
+
+def test_textbook_coefficients():
+    # Hilditch (2001), ch. 2 (from memory): f(M) = 1.0361e-7 (1 - e^2)^{3/2} K1^3 P solMass and
+    # a1 sin i = 1.3751e4 (1 - e^2)^{1/2} K1 P km, with K in km/s and P in days (rounded to 5 digits)
+    v, _, _, _ = answer("sb1", {"period": 1.0, "k1": 1.0, "eccentricity": 0.0})
+    assert abs(v["mass_function"] / 1.0361e-7 - 1) < 1e-4
+    assert abs(v["a1_sin_i"] * 149597870.7 / 1.3751e4 - 1) < 1e-4
+
+
+def test_a_published_visual_orbit():
+    # alpha Centauri AB (Pourbaix et al. 2002, A&A 386, 280; from memory): P = 79.91 yr, a = 17.57 arcsec,
+    # parallax 747.1 mas, M_A + M_B = 1.105 + 0.934 = 2.039 solMass (to the rounding of the inputs, 0.3 %)
+    v, _, _, _ = answer("visual", {"period": {"value": 79.91, "unit": "yr"}, "angular_semimajor_axis": 17570.0,
+                                   "parallax": 747.1})
+    assert abs(v["total_mass"] / 2.039 - 1) < 3e-3
