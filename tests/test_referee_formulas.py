@@ -495,3 +495,36 @@ def test_a_published_visual_orbit():
     v, _, _, _ = answer("visual", {"period": {"value": 79.91, "unit": "yr"}, "angular_semimajor_axis": 17570.0,
                                    "parallax": 747.1})
     assert abs(v["total_mass"] / 2.039 - 1) < 3e-3
+
+
+def test_orbital_parallax_single_lined_formulas():
+    body = {"period": 903.0, "k1": 9.7, "eccentricity": 0.18, "inclination": 64.0, "photocentre_semimajor_axis": 2.31,
+            "primary_mass": 1.12, "luminosity_fraction": 0.04}
+    v, f, c, _ = answer("orbital-parallax", body)
+    assert f["parallax"] == "parallax = a'' / a (double-lined); alpha'' / (a1 (1 - beta/B)) (single-lined)"
+    P, K1, e = body["period"] * c["day"], body["k1"] * 1e3, body["eccentricity"]
+    s = math.sin(math.radians(body["inclination"]))
+    a1 = K1 * P * math.sqrt(1 - e**2) / (2 * math.pi * s) / c["au"]
+    fm = P * K1**3 * (1 - e**2) ** 1.5 / (2 * math.pi * c["GM_sun"])
+    m1, beta = body["primary_mass"], body["luminosity_fraction"]
+    m2 = optimize.brentq(lambda m: m**3 * s**3 / (m1 + m) ** 2 - fm, 1e-6, 100.0, xtol=1e-15, rtol=1e-15)
+    B = m2 / (m1 + m2)
+    close(v["a1"], a1)
+    close(v["m2"], m2, 1e-11)
+    close(v["semimajor_axis"], a1 / B, 1e-11)
+    close(v["photocentre_semimajor_axis_au"], a1 * (1 - beta / B), 1e-11)
+    close(v["parallax"], body["photocentre_semimajor_axis"] / (a1 * (1 - beta / B)), 1e-11)
+    # and a dark companion: the photocentre is the primary, parallax = alpha'' / a1 without any mass
+    v, _, _, _ = answer("orbital-parallax", {k: body[k] for k in ("period", "k1", "eccentricity", "inclination",
+                                                                   "photocentre_semimajor_axis")})
+    close(v["parallax"], body["photocentre_semimajor_axis"] / a1)
+
+
+def test_geometry_from_a_semimajor_axis_and_mass_ratio():
+    body = {"period": 212.0, "eccentricity": 0.27, "semimajor_axis": 1.42, "mass_ratio": 0.55}
+    v, f, c, _ = answer("geometry", body)
+    assert f["m1"] == "M1 = (M1 + M2)/(1 + q)"
+    total = 4 * math.pi**2 * (body["semimajor_axis"] * c["au"]) ** 3 / (c["GM_sun"] * (body["period"] * c["day"]) ** 2)
+    close(v["total_mass"], total)
+    close(v["m1"], total / (1 + body["mass_ratio"]))
+    close(v["m2"], body["mass_ratio"] * total / (1 + body["mass_ratio"]))
