@@ -15,7 +15,7 @@ from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
-HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, Reidel, ch. 4"
+HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, D. Reidel, Dordrecht, ch. 4"
 MURRAY_DERMOTT_1999 = "C. D. Murray & S. F. Dermott (1999), Solar System Dynamics, Cambridge University Press, ch. 2"
 #: the sources of Kepler's third law in solar units: Hilditch's formula with GM_sun (IAU 2015 B3) and the au
 KEPLER = (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)
