@@ -448,6 +448,22 @@ def event_field_units(results: Mapping[str, Any], label: str) -> Mapping[str, st
     return units if isinstance(units, Mapping) else {}
 
 
+def event_notes(results: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, Any, str]]]]:
+    """The members of an extra answer (an ephemeris's events) that are small mappings of plain values, such as
+    the light-travel time applied and its amplitudes: [(label, [(name, value, unit), ...])]."""
+    out = []
+    for key, member in results.items():
+        if key == "series" or is_measured(member) or not isinstance(member, Mapping):
+            continue
+        units = member.get("units") if isinstance(member.get("units"), Mapping) else {}
+        for sub, values in member.items():
+            if sub != "units" and isinstance(values, Mapping) and values and all(
+                    isinstance(v, (str, int, float)) or v is None for v in values.values()):
+                out.append((f"{key}: {sub}".replace("_", " "),
+                            [(k, v, units.get(k, "")) for k, v in values.items()]))
+    return out
+
+
 def _share(x: float) -> str:
     """A share of variance as a percentage: one decimal, or two significant digits below 0.1 %."""
     pct = 100.0 * x
@@ -635,6 +651,12 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             p = printed(v, sigma=sig, digits=12) if _finite(v) else None
             body.append([s.number(p)] + [s.text(_short(e.get(k))) for k in keys])
         doc.table(header, body)
+    notes = event_notes(results)
+    if notes:
+        doc.heading("Notes on the events")
+        doc.items([s.text(f"{label}: ") + ", ".join(
+            s.text(f"{k} = {_short(v)}") + (f" {s.unit(u)}" if u else "") for k, v, u in values)
+            for label, values in notes])
 
     doc.heading("Formulas")
     entries = []

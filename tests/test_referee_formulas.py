@@ -426,7 +426,7 @@ def test_ephemeris_velocity_separation_at_the_dates_omega():
             "omega_dot": 2.5, "times": [2460000.0], "count": 2}
     _, _, _, r = answer("ephemeris", body)
     events = r["results"]["events"]
-    assert events["units"] == {"velocity_separation": "km/s"}
+    assert events["units"]["velocity_separation"] == "km/s"
     for x in events["max_velocity_separation"]:
         w = math.radians(body["omega"] + body["omega_dot"] * (x["value"] - body["t_periastron"]) / 365.25)
         sign = 1.0 if x["kind"] == "rv1_maximum" else -1.0

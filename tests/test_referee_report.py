@@ -100,3 +100,15 @@ def test_prose_columns_wrap_in_latex():
     tex = report.latex(compute("sb1", dict(get("sb1").example)), get("sb1"))
     tables = [line for line in tex.splitlines() if line.startswith(r"\begin{tabular}")]
     assert len(tables) == 3 and all(t.endswith(r"p{0.4\linewidth}}") for t in tables[:3]), tables
+
+
+def test_the_light_travel_amplitudes_are_printed_with_their_unit():
+    # the dates' light-travel correction is a referee's first question on an eclipse timing: applied or not,
+    # and a sin i / c of each star (days; K P sqrt(1 - e^2) / (2 pi c), Hilditch 2001, ch. 2)
+    body = {"period": 812.0, "eccentricity": 0.33, "omega": 20.0, "t_periastron": 2459000.0, "k1": 21.0,
+            "k2": 34.0, "times": [2460000.0], "count": 1, "light_travel_time": "star1"}
+    answer = compute("ephemeris", body)
+    text = report.markdown(answer, get("ephemeris"), body)
+    amp = answer["results"]["events"]["light_travel_time"]["amplitude_star1"]
+    assert "applied = star1" in text
+    assert f"amplitude\\_star1 = {amp:.6g} d" in text

@@ -214,8 +214,9 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         mvs.sort(key=lambda r: r["value"])
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
-        if separations:
-            events["units"] = {"velocity_separation": "km/s"}      # the unit of a field of the entries
+        # the units of the entries' fields and of the light-travel amplitudes
+        events["units"] = {**({"velocity_separation": "km/s"} if separations else {}),
+                           "amplitude_star1": "d", "amplitude_star2": "d"}
         events["time_format"] = time_format
         events["light_travel_time"] = {
             "applied": chosen if light is not None else "none",
