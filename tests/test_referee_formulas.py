@@ -10,6 +10,7 @@ the reverse) fails here.
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 import pytest
@@ -528,3 +529,22 @@ def test_geometry_from_a_semimajor_axis_and_mass_ratio():
     close(v["total_mass"], total)
     close(v["m1"], total / (1 + body["mass_ratio"]))
     close(v["m2"], body["mass_ratio"] * total / (1 + body["mass_ratio"]))
+
+
+def test_radio_defaults_are_stated_to_the_digits_used():
+    # a referee re-deriving a rate from the wind type needs the mu, Z, gamma and T the code used: the input's
+    # description gives them to 10 digits, from the compositions (mu = sum n A / sum n, Z^2 = sum n Z^2 / sum n,
+    # gamma = sum n Z / sum n; atomic weights 4.003 He, 12.011 C, from memory)
+    from calcservice.registry import get
+    text = get("mass-loss-radio").input("wind_type").description
+    wc = re.search(r"wc \(.*?mu ([\d.]+), Z ([\d.]+), gamma ([\d.]+), T (\d+) K\)", text)
+    mu, z, g, t = map(float, wc.groups())
+    assert abs(mu - (4.003 + 0.2 * 12.011) / 1.2) < 1e-8
+    assert abs(z - math.sqrt((1 + 0.2 * 4) / 1.2)) < 1e-8 and abs(g - 1.4 / 1.2) < 1e-8 and t == 1e4
+    body = {"flux_density": 3.1, "frequency": 22.5, "distance": 1.9, "vinf": 2100.0, "wind_type": "wc"}
+    v, _, _, _ = answer("mass-loss-radio", body)
+    nu = body["frequency"] * 1e9
+    gaunt = 9.77 * (1 + 0.13 * math.log10(t**1.5 / (z * nu)))
+    mdot = 0.095 * mu * body["vinf"] * (body["flux_density"] / 1e3) ** 0.75 * body["distance"] ** 1.5 / (
+        z * math.sqrt(g * gaunt * nu))
+    close(v["mass_loss_rate"], mdot, 1e-9)

@@ -233,6 +233,17 @@ register(Calculation(
 
 # ------------------------------------------------------------------------- radio mass loss
 
+#: the compositions behind the wind types' defaults (physics.winds.WIND_TYPES derives the numbers from them)
+WIND_COMPOSITIONS = {"o-star": "H and He, n(He)/n(H) = 0.1, H+ and He+", "wn": "He, He+",
+                     "wc": "He and C, n(C)/n(He) = 0.2, He+ and C2+"}
+
+
+def _wind_defaults(kind: str) -> str:
+    """The defaults of a wind type as used, to the digits a re-derivation needs (from the code, not retyped)."""
+    mu, z, gamma, t = phys.WIND_TYPES[kind]
+    return f"mu {mu:.10g}, Z {z:.10g}, gamma {gamma:.10g}, T {t:g} K"
+
+
 def _radio_check(inputs, outputs):
     n = np.shape(outputs["mass_loss_rate"])
     out = [Warning("possibly_non_thermal", "in a colliding-wind binary part of the radio flux may be non-thermal "
@@ -271,10 +282,8 @@ register(Calculation(
         Input("distance", "kpc", "distance", POSITIVE, example=2.1),
         Input("vinf", "km/s", "terminal wind speed", SPEED, example=1700.0),
         Input("wind_type", "", "composition whose defaults fill mu, z_rms, gamma_e and temperature when not given: "
-              "o-star (H and He, n(He)/n(H) = 0.1, H+ He+, mu 1.28, Z 1, gamma 1, T 2e4 K), wn (He+, mu 4.00, "
-              "Z 1, gamma 1, T 1e4 K), wc (He+ and C2+ with n(C)/n(He) = 0.2, mu 5.34, Z 1.22, gamma 1.17, "
-              "T 1e4 K)", kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star",
-              example="wn"),
+              + ", ".join(f"{kind} ({WIND_COMPOSITIONS[kind]}, {_wind_defaults(kind)})" for kind in phys.WIND_TYPES),
+              kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star", example="wn"),
         Input("mu", "", "mean atomic weight per ion (default from wind_type)", POSITIVE, required=False,
               example=4.0),
         Input("z_rms", "", "rms ionic charge (default from wind_type)", POSITIVE, required=False, example=1.0),
