@@ -391,10 +391,8 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
                      "built from the sigmas and correlations")
     isotropic = [k for k, v in (inputs or {}).items() if isinstance(v, Mapping) and v.get("value") == "isotropic"]
     if isotropic:
-        lines.append(", ".join(isotropic) + " isotropic: random orientations, cos i drawn uniform on [0, 1) (i from "
-                     "0 to 90 deg; what depends on sin i only is the same for the retrograde half): the results are "
-                     "the distribution over orientations for an inclination not known at all, not a measurement "
-                     "of it")
+        lines.append(", ".join(isotropic) + " isotropic: random orientations, cos i drawn uniform on [0, 1); the "
+                     "results are a distribution over orientations, not a measurement (see the conventions)")
     corr = [c for c in correlations or () if isinstance(c, Mapping) and "between" in c]
     if corr:
         lines.append("correlations: " + ", ".join(f"rho({c['between'][0]}, {c['between'][1]}) = {c['rho']}"

@@ -76,6 +76,8 @@ def test_an_isotropic_inclination_says_what_it_means():
     text = report.markdown(compute("sb2", body), get("sb2"), body)
     section = text.split("### Uncertainty\n")[1].split("###")[0]
     assert "cos i drawn uniform" in section and "not a measurement" in section
+    conventions = text.split("### Conventions\n")[1].split("###")[0]
+    assert "`isotropic`" in conventions and "not known at all" in conventions
 
 
 def test_a_monte_carlo_interval_is_printed_at_the_medians_place():

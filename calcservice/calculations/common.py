@@ -41,6 +41,11 @@ CONVENTIONS = {
     "time": "Julian Date (days) unless another format is given",
 }
 
+#: what an inclination given as "isotropic" means (the engine draws cos i uniform on [0, 1))
+ISOTROPIC = ("inclination \"isotropic\": random orientations, cos i drawn uniform on [0, 1) (i from 0 to 90 deg; what "
+             "depends on sin i only is the same for the retrograde half), by Monte Carlo: the results are the "
+             "distribution over orientations for an inclination not known at all, not a measurement of it")
+
 #: q as a ratio of masses, where no semi-amplitudes are given (astrometry, geometry)
 MASS_RATIO = "q = M2/M1; star 1 is the primary"
 

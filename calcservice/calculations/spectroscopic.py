@@ -4,8 +4,8 @@ import numpy as np
 
 from ..physics import spectroscopic as phys
 from ..registry import POSITIVE, Calculation, Input, Output, Warning, register
-from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SYMBOLS, cited, conventions, eccentricity, inclination,
-                     period, semi_amplitude, with_speed_check)
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, ISOTROPIC, SYMBOLS, cited, conventions, eccentricity,
+                     inclination, period, semi_amplitude, with_speed_check)
 
 #: the sources of a formula: Hilditch's, with GM_sun (IAU 2015 B3) in a mass, the au (IAU 2012 B2) in a length
 MASS = (HILDITCH_2001, IAU_2015_B3)
@@ -66,7 +66,7 @@ register(Calculation(
     jacobian=phys.sb1_jacobian,
     references=(HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day"),
-    conventions=conventions("radial_velocity", "omega", "inclination",
+    conventions=conventions("radial_velocity", "omega", "inclination", isotropic=ISOTROPIC,
                             mass_ratio="q = M2/M1, star 1 the primary (the star whose semi-amplitude is k1)")
     | {"symbols": SYMBOLS["sb1"]},
     check=with_speed_check(_sb1_check, ("k1",)),
@@ -109,7 +109,7 @@ register(Calculation(
     jacobian=phys.sb2_jacobian,
     references=(HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day"),
-    conventions=conventions("radial_velocity", "omega", "inclination", "mass_ratio")
+    conventions=conventions("radial_velocity", "omega", "inclination", "mass_ratio", isotropic=ISOTROPIC)
     | {"symbols": SYMBOLS["sb2"]},
     check=with_speed_check(_sb2_check, ("k1", "k2")),
     example={"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 38.2, "sigma": 0.4},
