@@ -164,6 +164,8 @@ COMPONENTS: dict[str, dict] = {
     "Provenance": {"type": "object", "properties": {
         "version": {"type": "string"}, "calculation": {"type": "string"},
         "formulas": {"type": "object", "additionalProperties": {"type": "string"}},
+        "formula_sources": {"type": "object", "description": "each formula's sources: 0-based indices into "
+                            "references", "additionalProperties": {"type": "array", "items": {"type": "integer"}}},
         "constants": {"type": "object", "additionalProperties": {"type": "object", "properties": {
             "symbol": {"type": "string"}, "value": {"type": "number"}, "unit": {"type": "string"},
             "description": {"type": "string"}, "source": {"type": "string"}}}},

@@ -140,10 +140,12 @@ class Input:
 
 @dataclass(frozen=True)
 class Output:
-    """One output: name, canonical unit, description, its formula and reference keys.
+    """One output: name, canonical unit, description, its formula and the references it comes from.
 
     ``period`` marks an angle that wraps (e.g. 360.0 for a position angle); the engine
-    then takes differences and intervals on the circle.
+    then takes differences and intervals on the circle.  ``references`` are those of the
+    calculation's references that are the sources of this output's formula (and of the
+    constants in it), so that a report cites each formula by its own sources.
     """
 
     name: str
@@ -151,11 +153,14 @@ class Output:
     description: str
     formula: str = ""
     period: float | None = None
+    references: tuple[str, ...] = ()
 
     def as_dict(self) -> dict:
         d = {"name": self.name, "unit": self.unit, "description": self.description, "formula": self.formula}
         if self.period is not None:
             d["period"] = self.period
+        if self.references:
+            d["references"] = list(self.references)
         return d
 
 
@@ -254,6 +259,9 @@ def register(calc: Calculation) -> Calculation:
     names = [i.name for i in calc.inputs]
     if len(set(names)) != len(names):
         raise ValueError(f"{calc.name}: duplicate input names")
+    uncited = sorted({r for o in calc.outputs for r in o.references} - set(calc.references))
+    if uncited:
+        raise ValueError(f"{calc.name}: outputs cite references the calculation does not list: {uncited}")
     if calc.jacobian is not None:
         # for a wrapping output or a series input the linear method does more than take first
         # derivatives (the two one-sided differences on the circle measure the curvature behind

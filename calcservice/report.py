@@ -20,6 +20,7 @@ without extra code.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from decimal import ROUND_HALF_UP, Context, Decimal, localcontext
 from typing import Any, Iterable, Mapping
@@ -278,9 +279,11 @@ class Latex(Style):
             return ""
         try:
             from astropy import units as u
-            return u.Unit(unit).to_string("latex_inline")
+            latex = u.Unit(unit).to_string("latex_inline")
         except Exception:
             return self.text(unit)
+        # astropy writes the astronomical unit "AU"; its symbol is "au" (IAU 2012 Resolution B2)
+        return re.sub(r"(?<![A-Za-z])AU(?![A-Za-z])", "au", latex)
 
     def number(self, p):
         if p is None:
@@ -321,9 +324,11 @@ def _measured_cell(entry: Mapping[str, Any], style: Style) -> str:
     low, high = entry.get("low"), entry.get("high")
     if p is None or "sigma" not in entry or entry["sigma"] is not None or not (_finite(low) and _finite(high)):
         return style.number(p)
+    # the ends of the interval at the median's decimal place (set by the shorter half-width, PDG rule)
+    place = p.exponent - (len(p.value.split(".")[1]) if "." in p.value else 0)
+    ends = [Printed(_plain(round_at(x, place), p.exponent), exponent=p.exponent) for x in (low, high)]
     return (style.number(Printed(p.value, exponent=p.exponent)) + style.text(" (sigma undefined; 68.27 % interval ")
-            + style.number(printed(low, digits=3)) + style.text(" to ") + style.number(printed(high, digits=3))
-            + style.text(")"))
+            + style.number(ends[0]) + style.text(" to ") + style.number(ends[1]) + style.text(")"))
 
 
 def _given(entry: Mapping[str, Any], style: Style) -> str:
@@ -351,23 +356,16 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
 
 
 def _references_of(calc: Calculation | None, output_name: str, references: list[str]) -> list[int]:
-    """1-based indices into ``references`` of the sources of one output (all of them unless declared)."""
-    declared = None
-    if calc is not None:
-        try:
-            declared = getattr(calc.output(output_name), "references", None)
-        except KeyError:
-            declared = None
-    if declared:
-        idx = []
-        for r in declared:
-            if isinstance(r, int):
-                idx.append(r + 1)
-            elif r in references:
-                idx.append(references.index(r) + 1)
-        if idx:
-            return idx
-    return list(range(1, len(references) + 1))
+    """1-based indices into ``references`` of the sources of one output's formula, as its declaration names
+    them (none for a definition that needs no source); all of them only for a calculation whose outputs
+    name no sources at all (or without the declaration)."""
+    if calc is None or not any(o.references for o in calc.outputs):
+        return list(range(1, len(references) + 1))
+    try:
+        declared = calc.output(output_name).references
+    except KeyError:
+        return []
+    return sorted(references.index(r) + 1 for r in declared if r in references)
 
 
 def _cite(indices: list[int], dash: str = "–") -> str:
@@ -379,7 +377,7 @@ def _cite(indices: list[int], dash: str = "–") -> str:
 
 
 def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str, Any]] = (),
-                      calc: Calculation | None = None) -> list[str]:
+                      calc: Calculation | None = None, inputs: Mapping[str, Any] | None = None) -> list[str]:
     lines = []
     if unc.get("method") == "monte_carlo":
         lines.append(f"Monte Carlo with {unc.get('samples')} draws, seed {unc.get('seed')}; "
@@ -391,6 +389,10 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
                     else "a numerical (central-difference) Jacobian")
         lines.append(f"linear (first-order) propagation through {jacobian}, with the input covariance "
                      "built from the sigmas and correlations")
+    isotropic = [k for k, v in (inputs or {}).items() if isinstance(v, Mapping) and v.get("value") == "isotropic"]
+    if isotropic:
+        lines.append(", ".join(isotropic) + " isotropic: random orientations, cos i drawn uniform on [0, 1); the "
+                     "results are a distribution over orientations, not a measurement (see the conventions)")
     corr = [c for c in correlations or () if isinstance(c, Mapping) and "between" in c]
     if corr:
         lines.append("correlations: " + ", ".join(f"rho({c['between'][0]}, {c['between'][1]}) = {c['rho']}"
@@ -433,6 +435,30 @@ def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]
                     out.append((f"{key}: {sub}", unit, entries))
         elif isinstance(member, list) and member and all(isinstance(e, dict) for e in member):
             out.append((key, "", member))
+    return out
+
+
+def event_field_units(results: Mapping[str, Any], label: str) -> Mapping[str, str]:
+    """The units of the fields of one list of :func:`event_lists` (the member's ``units``, e.g. km/s for an
+    event's velocity_separation), by field name."""
+    member = results.get(label.split(":")[0])
+    units = member.get("units") if isinstance(member, Mapping) else None
+    return units if isinstance(units, Mapping) else {}
+
+
+def event_notes(results: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, Any, str]]]]:
+    """The members of an extra answer (an ephemeris's events) that are small mappings of plain values, such as
+    the light-travel time applied and its amplitudes: [(label, [(name, value, unit), ...])]."""
+    out = []
+    for key, member in results.items():
+        if key == "series" or is_measured(member) or not isinstance(member, Mapping):
+            continue
+        units = member.get("units") if isinstance(member.get("units"), Mapping) else {}
+        for sub, values in member.items():
+            if sub != "units" and isinstance(values, Mapping) and values and all(
+                    isinstance(v, (str, int, float)) or v is None for v in values.values()):
+                out.append((f"{key}: {sub}".replace("_", " "),
+                            [(k, v, units.get(k, "")) for k, v in values.items()]))
     return out
 
 
@@ -501,11 +527,14 @@ class _Doc:
                 self.lines.append(f"{k}. {e}" if numbered else f"- {e}")
             self.lines.append("")
 
-    def table(self, header: list[str], rows: list[list[str]], align: str | None = None):
+    def table(self, header: list[str], rows: list[list[str]], align: str | None = None, wrap_last: bool = False):
+        """A table; ``wrap_last``: the last column is prose (a description, a source), which LaTeX wraps in a
+        paragraph column instead of running it off the page."""
         s = self.style
         align = align or "l" * len(header)
         if s.name == "latex":
-            self.lines.append(rf"\begin{{tabular}}{{{align}}}")
+            spec = align[:-1] + r"p{0.4\linewidth}" if wrap_last else align
+            self.lines.append(rf"\begin{{tabular}}{{{spec}}}")
             self.lines.append(r"\hline")
             self.lines.append(" & ".join(header) + r" \\")
             self.lines.append(r"\hline")
@@ -569,7 +598,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
                      shown_unit, s.text(desc)])
-    doc.table(["input", "value", "unit", "description"], rows)
+    doc.table(["input", "value", "unit", "description"], rows, wrap_last=True)
 
     results = response.get("results", {})
     measured = {k: v for k, v in results.items() if is_measured(v)}
@@ -584,7 +613,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         rows.append([s.code(key), _measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
     if rows:
         doc.heading("Results")
-        doc.table(["result", "value", "unit", "description"], rows)
+        doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)
 
     series = results.get("series")
     if isinstance(series, dict):
@@ -610,7 +639,9 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                                               if k != "series" and not is_measured(v)}):
         doc.heading(label.replace("_", " ").capitalize())
         keys = [k for k in entries[0] if k not in ("value", "sigma", "low", "high")]
-        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [s.text(k) for k in keys]
+        fields = event_field_units(results, label)
+        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [
+            s.text(k) + (f" [{s.unit(fields[k])}]" if fields.get(k) else "") for k in keys]
         body = []
         for e in entries:
             v = e.get("value")
@@ -618,6 +649,12 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             p = printed(v, sigma=sig, digits=12) if _finite(v) else None
             body.append([s.number(p)] + [s.text(_short(e.get(k))) for k in keys])
         doc.table(header, body)
+    notes = event_notes(results)
+    if notes:
+        doc.heading("Notes on the events")
+        doc.items([s.text(f"{label}: ") + ", ".join(
+            s.text(f"{k} = {_short(v)}") + (f" {s.unit(u)}" if u else "") for k, v, u in values)
+            for label, values in notes])
 
     doc.heading("Formulas")
     entries = []
@@ -636,7 +673,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         doc.heading("Constants")
         rows = [[s.code(c.get("symbol", k)), s.text(repr(c.get("value"))), s.unit(c.get("unit", "")),
                  s.text(c.get("source", ""))] for k, c in constants.items()]
-        doc.table(["constant", "value", "unit", "source"], rows)
+        doc.table(["constant", "value", "unit", "source"], rows, wrap_last=True)
 
     conventions = prov.get("conventions", {})
     if conventions:
@@ -645,7 +682,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
 
     doc.heading("Uncertainty")
     corr = (request or {}).get("correlations", ()) if isinstance(request, Mapping) else ()
-    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr, calc)])
+    doc.items([s.text(t) for t in _uncertainty_text(response.get("uncertainty", {}), corr, calc,
+                                                     response.get("inputs"))])
 
     _budget_section(doc, results, response.get("uncertainty", {}))
 

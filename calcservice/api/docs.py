@@ -99,18 +99,27 @@ def _input_row(spec: Input) -> str:
             f"<td>{escape(spec.description)}{'; ' if notes else ''}{'; '.join(notes)}</td></tr>")
 
 
+def _sources(calc: Calculation, cited: tuple[str, ...]) -> str:
+    """An output's sources as links to the numbered references of its calculation: [1, 3]."""
+    numbers = sorted(calc.references.index(r) + 1 for r in cited if r in calc.references)
+    return ("[" + ", ".join(f'<a href="#{escape(calc.name)}-ref{k}">{k}</a>' for k in numbers) + "]"
+            if numbers else "")
+
+
 def _section(calc: Calculation, base_url: str) -> str:
     key = escape(calc.name)
     inputs = "".join(_input_row(s) for s in calc.inputs)
     outputs = "".join(f"<tr><td><code>{escape(o.name)}</code></td><td>{escape(o.unit or 'dimensionless')}</td>"
-                      f"<td>{escape(o.description)}</td><td><code>{escape(o.formula)}</code></td></tr>"
+                      f"<td>{escape(o.description)}</td><td><code>{escape(o.formula)}</code></td>"
+                      f"<td>{_sources(calc, o.references)}</td></tr>"
                       for o in calc.outputs)
     rules = [f"exactly one of {', '.join(g)}" for g in calc.exclusive]
     rules += [f"at most one of {', '.join(g)}" for g in calc.at_most_one]
     rules += [c.message for c in calc.constraints]
     conventions = "".join(f"<dt>{escape(k.replace('_', ' '))}</dt><dd>{escape(v)}</dd>"
                           for k, v in calc.conventions.items())
-    references = "".join(f"<li>{escape(r)}</li>" for r in calc.references)
+    references = "".join(f'<li id="{escape(calc.name)}-ref{k}">{escape(r)}</li>'
+                         for k, r in enumerate(calc.references, 1))
     constants = "".join(f"<li><code>{escape(c.symbol)}</code> = {c.value:.10g} {escape(c.unit)}: "
                         f"{escape(c.description)} ({escape(c.source)})</li>"
                         for c in (CONSTANTS[n] for n in calc.constants if n in CONSTANTS))
@@ -127,13 +136,14 @@ def _section(calc: Calculation, base_url: str) -> str:
         parts.append("<p class=\"rules\">Refused with 422 unless: " + "; ".join(escape(r) for r in rules) + ".</p>")
     parts += [
         "<h3>Outputs</h3>",
-        '<table class="outputs"><thead><tr><th>name</th><th>unit</th><th>meaning</th><th>formula</th></tr></thead>'
+        '<table class="outputs"><thead><tr><th>name</th><th>unit</th><th>meaning</th><th>formula</th>'
+        '<th>sources</th></tr></thead>'
         f"<tbody>{outputs}</tbody></table>",
     ]
     if conventions:
         parts.append(f"<h3>Conventions</h3><dl>{conventions}</dl>")
     if references:
-        parts.append(f"<h3>References</h3><ul>{references}</ul>")
+        parts.append(f"<h3>References</h3><ol>{references}</ol>")
     if constants:
         parts.append(f"<h3>Constants</h3><ul>{constants}</ul>")
     if calc.example:

@@ -4,13 +4,16 @@ import numpy as np
 
 from ..physics import astrometric as phys
 from ..registry import ANGLE, ANY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, period
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SYMBOLS, cited, period
 
 HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, D. Reidel, Dordrecht (Thiele–Innes constants, orbital parallax)"
 BINNENDIJK_1960 = "L. Binnendijk (1960), Properties of Double Stars, University of Pennsylvania Press, Philadelphia"
 VAN_DE_KAMP_1967 = ("P. van de Kamp (1967), Principles of Astrometry, W. H. Freeman, San Francisco "
                     "(photocentric orbit, alpha = a (B - beta))")
 IAU_2015_B2 = "IAU 2015 Resolution B2 (bolometric magnitude scales; the parsec as 648000/pi au)"
+#: the sources of a formula: the parsec's definition for an angle to a length; Kepler's third law with GM_sun
+PARSEC = (IAU_2015_B2,)
+KEPLER = (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)
 
 FRACTION_OPEN = Domain(0.0, 1.0, low_open=True, high_open=True)
 LUMINOSITY_FRACTION = Domain(0.0, 1.0, high_open=True)
@@ -22,19 +25,19 @@ SKY = {
                 "Y = sqrt(1 - e^2) sin E (Thiele–Innes)",
     "parallax": "a [au] = a [mas] / parallax [mas] = a [mas] * distance [pc] / 1000 (definition of the parsec)",
     "kepler": "M1 + M2 = 4 pi^2 a^3 / (GM_sun P^2) with the IAU 2015 nominal GM_sun (not a^3/P^2 in years, "
-              "which differs by 4e-5 because a Julian year is not the Gaussian year)",
+              "which differs by 3.8e-5 because a Julian year is not the Gaussian year of 365.2568983 d)",
 }
 
 VISUAL_CONVENTIONS = {
-    **CONVENTIONS,
-    **SKY,
+    "mass_ratio": MASS_RATIO,
+    "parallax": SKY["parallax"],
+    "kepler": SKY["kepler"],
     "fractional_mass": "B = M2/(M1 + M2) = q/(1 + q), the fraction of the relative orbit described by the primary: "
                        "a1 = B a, a2 = (1 - B) a",
 }
 
 ORIENTATION_CONVENTIONS = {
-    **CONVENTIONS,
-    **SKY,
+    "sky_axes": SKY["sky_axes"],
     "omega": "argument of periastron of the RELATIVE orbit (secondary about primary), the visual-binary convention "
              "the Thiele–Innes constants use; omega_primary = omega - 180 deg is the spectroscopic omega of the "
              "primary's orbit (omega_relative = omega_primary + 180 deg)",
@@ -76,7 +79,7 @@ register(Calculation(
         Input("fractional_mass", "", "fractional mass B = M2/(M1 + M2), e.g. from the ratio of the absolute to "
               "the relative orbit (give this or mass_ratio)", FRACTION_OPEN, required=False, example=0.42),
     ),
-    outputs=(
+    outputs=cited((
         Output("semimajor_axis", "au", "relative semi-major axis", "a = a'' / parallax"),
         Output("total_mass", "solMass", "total (dynamical) mass", "M1 + M2 = 4 pi^2 a^3 / (GM_sun P^2)"),
         Output("parallax", "mas", "parallax used", "parallax = 1000 / distance[pc]"),
@@ -87,11 +90,12 @@ register(Calculation(
         Output("fractional_mass", "", "fractional mass B = M2/(M1 + M2)", "B = q / (1 + q)"),
         Output("a1", "au", "semi-major axis of the primary's orbit about the centre of mass", "a1 = B a"),
         Output("a2", "au", "semi-major axis of the secondary's orbit about the centre of mass", "a2 = (1 - B) a"),
-    ),
+    ), {"semimajor_axis": PARSEC, "total_mass": KEPLER, "parallax": PARSEC, "distance": PARSEC}, (HEINTZ_1978,)),
     function=phys.visual,
     references=(HILDITCH_2001, HEINTZ_1978, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
-    conventions=VISUAL_CONVENTIONS,
+    conventions=VISUAL_CONVENTIONS
+    | {"symbols": SYMBOLS["visual"]},
     exclusive=(("parallax", "distance"),),
     at_most_one=(("mass_ratio", "fractional_mass"),),
     check=_visual_check,
@@ -134,7 +138,7 @@ register(Calculation(
         _thiele_innes_input("F", -287.4),
         _thiele_innes_input("G", 93.6),
     ),
-    outputs=(
+    outputs=cited((
         Output("angular_semimajor_axis", "mas", "angular semi-major axis of the relative orbit",
                "a = (p + m)/2, p = |(A + G, B - F)|, m = |(A - G, B + F)|"),
         Output("inclination", "deg", "inclination, 0-180 deg (above 90 deg retrograde)", "tan^2(i/2) = m / p"),
@@ -144,10 +148,11 @@ register(Calculation(
                "node = [atan2(B - F, A + G) - atan2(-B - F, A - G)] / 2 (mod 180)", period=180.0),
         Output("omega_primary", "deg", "argument of periastron of the primary's orbit (spectroscopic omega)",
                "omega_primary = omega - 180 deg", period=360.0),
-    ),
+    ), {}, (HEINTZ_1978, BINNENDIJK_1960)),
     function=phys.campbell,
     references=(HEINTZ_1978, BINNENDIJK_1960),
-    conventions=ORIENTATION_CONVENTIONS,
+    conventions=ORIENTATION_CONVENTIONS
+    | {"symbols": SYMBOLS["campbell"]},
     constraints=(Constraint(("A", "B", "F", "G"), "the Thiele–Innes constants are all zero: they give a = 0",
                             _nonzero_orbit),),
     check=_campbell_check,
@@ -174,15 +179,20 @@ register(Calculation(
               example=32.0),
         Input("node", "deg", "position angle of the ascending node", ANGLE, example=118.0),
     ),
-    outputs=(
-        Output("A", "mas", "Thiele–Innes constant A", "A = a (cos w cos W - sin w sin W cos i)"),
-        Output("B", "mas", "Thiele–Innes constant B", "B = a (cos w sin W + sin w cos W cos i)"),
-        Output("F", "mas", "Thiele–Innes constant F", "F = a (-sin w cos W - cos w sin W cos i)"),
-        Output("G", "mas", "Thiele–Innes constant G", "G = a (-sin w sin W + cos w cos W cos i)"),
-    ),
+    outputs=cited((
+        Output("A", "mas", "Thiele–Innes constant A",
+               "A = a (cos w cos W - sin w sin W cos i), w = omega, W = node"),
+        Output("B", "mas", "Thiele–Innes constant B",
+               "B = a (cos w sin W + sin w cos W cos i), w = omega, W = node"),
+        Output("F", "mas", "Thiele–Innes constant F",
+               "F = a (-sin w cos W - cos w sin W cos i), w = omega, W = node"),
+        Output("G", "mas", "Thiele–Innes constant G",
+               "G = a (-sin w sin W + cos w cos W cos i), w = omega, W = node"),
+    ), {}, (HEINTZ_1978, BINNENDIJK_1960)),
     function=phys.thiele_innes,
     references=(HEINTZ_1978, BINNENDIJK_1960),
-    conventions=ORIENTATION_CONVENTIONS,
+    conventions=ORIENTATION_CONVENTIONS
+    | {"symbols": SYMBOLS["thiele-innes"]},
     exclusive=(("omega", "omega_primary"),),
     example={"angular_semimajor_axis": {"value": 327.0, "sigma": 2.0}, "inclination": {"value": 63.0, "sigma": 0.7},
              "omega": {"value": 212.0, "sigma": 1.5}, "node": {"value": 118.0, "sigma": 0.6}},
@@ -223,7 +233,7 @@ register(Calculation(
               "beta = L2/(L1 + L2); 0 for a dark companion", LUMINOSITY_FRACTION, required=False, default=0.0,
               example=0.0),
     ),
-    outputs=(
+    outputs=cited((
         Output("astrometric_mass_function", "solMass", "astrometric mass function",
                "f_ast = 4 pi^2 alpha^3 / (GM_sun P^2) = (M1 + M2) (B - beta)^3"),
         Output("m2", "solMass", "companion mass",
@@ -237,18 +247,22 @@ register(Calculation(
                "alpha = alpha'' / parallax = a (B - beta)"),
         Output("parallax", "mas", "parallax used", "parallax = 1000 / distance[pc]"),
         Output("distance", "pc", "distance used", "d = 1000 / parallax[mas]"),
-    ),
+    ), {"astrometric_mass_function": (VAN_DE_KAMP_1967, IAU_2015_B3, IAU_2012_B2), "semimajor_axis": KEPLER,
+        "a1": (HEINTZ_1978,), "photocentre_semimajor_axis_au": (VAN_DE_KAMP_1967, IAU_2015_B2), "parallax": PARSEC,
+        "distance": PARSEC}, (VAN_DE_KAMP_1967,)),
     function=phys.photocentre,
     references=(VAN_DE_KAMP_1967, HEINTZ_1978, HILDITCH_2001, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
     conventions={
-        **CONVENTIONS,
-        **SKY,
+        "mass_ratio": MASS_RATIO,
+        "parallax": SKY["parallax"],
+        "kepler": SKY["kepler"],
         "photocentre": "alpha = a (B - beta), B = M2/(M1 + M2), beta = L2/(L1 + L2): the photocentre moves with the "
                        "primary, so B > beta; for every beta < 1 exactly one such companion mass fits, and beta = 0 "
                        "(a dark companion) gives the smallest one. A companion with beta > B (photocentre moving "
                        "with the secondary) is the other branch and is not solved here",
-    },
+    }
+    | {"symbols": SYMBOLS["photocentre"]},
     exclusive=(("parallax", "distance"),),
     check=_photocentre_check,
     example={"photocentre_semimajor_axis": {"value": 3.71, "sigma": 0.05}, "parallax": {"value": 21.4, "sigma": 0.03},

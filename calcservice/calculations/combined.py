@@ -6,8 +6,11 @@ from ..physics import astrometric as phys
 from ..physics.spectroscopic import companion_mass, mass_function
 from ..registry import ANGLE, INCLINATION, POSITIVE, Calculation, Constraint, Input, Output, Warning, register
 from .astrometric import HEINTZ_1978, IAU_2015_B2, LUMINOSITY_FRACTION, SKY, VAN_DE_KAMP_1967
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, eccentricity, period,
-                     semi_amplitude, with_speed_check)
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, conventions, eccentricity,
+                     period, semi_amplitude, with_speed_check)
+
+#: the sources of a mass: Hilditch's formulas with GM_sun (IAU 2015 B3)
+MASS = (HILDITCH_2001, IAU_2015_B3)
 
 
 def _beta_needs_primary_mass(luminosity_fraction, primary_mass, **_):
@@ -64,7 +67,7 @@ register(Calculation(
               "(optional; returned as the relative orbit's omega to compare with the visual orbit)", ANGLE,
               required=False, example=37.0),
     ),
-    outputs=(
+    outputs=cited((
         Output("parallax", "mas", "orbital parallax",
                "parallax = a'' / a (double-lined); alpha'' / (a1 (1 - beta/B)) (single-lined)"),
         Output("distance", "pc", "distance", "d = 1000 / parallax[mas]"),
@@ -81,19 +84,25 @@ register(Calculation(
         Output("omega_relative", "deg", "argument of periastron of the relative orbit, to compare with the visual "
                "or photocentric orbit's (for the photocentre of a dark companion compare omega itself)",
                "omega_relative = omega + 180 deg", period=360.0),
-    ),
+    ), {"parallax": (HEINTZ_1978, VAN_DE_KAMP_1967, IAU_2015_B2), "distance": (IAU_2015_B2,), "m1": MASS,
+        "m2": MASS, "total_mass": MASS, "mass_ratio": (HILDITCH_2001,),
+        "semimajor_axis": (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
+        "photocentre_semimajor_axis_au": (VAN_DE_KAMP_1967, IAU_2012_B2), "omega_relative": (HEINTZ_1978,)},
+        (HILDITCH_2001, IAU_2012_B2)),
     function=phys.combined,
     references=(HILDITCH_2001, HEINTZ_1978, VAN_DE_KAMP_1967, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
     conventions={
-        **CONVENTIONS,
-        **SKY,
+        **conventions("radial_velocity", "omega", "inclination", "mass_ratio"),
+        "parallax": SKY["parallax"],
+        "kepler": SKY["kepler"],
         "combination": "period, eccentricity and inclination are shared by both orbits; the spectroscopic omega "
                        "is the primary's, the visual orbit's omega is the relative orbit's: omega_relative = "
                        "omega + 180 deg. A dark companion's photocentre is the primary, whose orbit has the "
                        "spectroscopic omega itself",
         "photocentre": "alpha = a (B - beta) = a1 (1 - beta/B), B = M2/(M1 + M2): needs beta < B",
-    },
+    }
+    | {"symbols": SYMBOLS["orbital-parallax"]},
     constraints=(
         Constraint(("luminosity_fraction", "primary_mass"),
                    "a luminous companion's light fraction needs primary_mass (alpha = a1 (1 - beta/B)); "

@@ -1,5 +1,7 @@
 """Inputs, conventions and references shared by several declarations."""
 
+import dataclasses
+
 import numpy as np
 
 from ..constants import C_LIGHT_KM_S
@@ -20,6 +22,11 @@ VELOCITY = SpeedDomain(-C_LIGHT_KM_S, C_LIGHT_KM_S, low_open=True, high_open=Tru
 #: order (v/c)^2, 1 % at 0.1 c (common practice for where special relativity starts to matter)
 RELATIVISTIC_FRACTION = 0.1
 
+def cited(outputs, sources, default=()):
+    """``outputs`` each with the references its formula comes from: ``sources[name]``, else ``default``."""
+    return tuple(dataclasses.replace(o, references=tuple(sources.get(o.name, default))) for o in outputs)
+
+
 HILDITCH_2001 = ("R. W. Hilditch (2001), An Introduction to Close Binary Stars, "
                  "Cambridge University Press, ch. 2")
 IAU_2015_B3 = "IAU 2015 Resolution B3 on nominal solar and planetary conversion constants (Prsa et al. 2016, AJ 152, 41)"
@@ -33,6 +40,68 @@ CONVENTIONS = {
     "mass_ratio": "q = M2/M1 = K1/K2; star 1 is the primary, the star whose semi-amplitude is k1",
     "time": "Julian Date (days) unless another format is given",
 }
+
+#: what an inclination given as "isotropic" means (the engine draws cos i uniform on [0, 1))
+ISOTROPIC = ("inclination \"isotropic\": random orientations, cos i drawn uniform on [0, 1) (i from 0 to 90 deg; what "
+             "depends on sin i only is the same for the retrograde half), by Monte Carlo: the results are the "
+             "distribution over orientations for an inclination not known at all, not a measurement of it")
+
+#: q as a ratio of masses, where no semi-amplitudes are given (astrometry, geometry)
+MASS_RATIO = "q = M2/M1; star 1 is the primary"
+
+
+#: the symbols of each calculation's formulas and the inputs and outputs they stand for, by calculation
+SYMBOLS = {
+    "sb1": ("P = period, K1 = k1, e = eccentricity, M1 = primary_mass, i = inclination, f(M) = mass_function, M2 = "
+            "m2, q = mass_ratio, a = semimajor_axis, a1 = a1 (primary's orbit about the centre of mass)"),
+    "sb2": ("P = period, K1 = k1, K2 = k2, e = eccentricity, i = inclination, q = mass_ratio, M1 = m1, M2 = m2, a = "
+            "semimajor_axis (relative orbit), a1, a2 = the stars' orbits about the centre of mass"),
+    "visual": ("P = period, a'' = angular_semimajor_axis, parallax in mas, d = distance, a = semimajor_axis (relative"
+               " orbit), M1 = m1, M2 = m2, q = mass_ratio, B = fractional_mass"),
+    "campbell": ("A, B, F, G = the Thiele-Innes constants, a = angular_semimajor_axis, i = inclination, omega, node"),
+    "thiele-innes": ("a = angular_semimajor_axis, i = inclination, w = omega, W = node"),
+    "photocentre": ("alpha'' = photocentre_semimajor_axis, alpha = photocentre_semimajor_axis_au, P = period, M1 = "
+                    "primary_mass, M2 = m2, beta = luminosity_fraction, B = fractional_mass, f_ast = "
+                    "astrometric_mass_function, a = semimajor_axis (relative orbit), q = mass_ratio"),
+    "orbital-parallax": ("P = period, K1 = k1, K2 = k2, e = eccentricity, i = inclination, a'' = "
+                         "angular_semimajor_axis, alpha'' = photocentre_semimajor_axis, alpha = "
+                         "photocentre_semimajor_axis_au, M1 = m1 (primary_mass), M2 = m2, beta = luminosity_fraction,"
+                         " B = M2/(M1 + M2), f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi GM_sun), a = semimajor_axis "
+                         "(relative orbit), a1, a2 = the stars' orbits about the centre of mass, omega"),
+    "ephemeris": ("t = a time of times, T0 = t_periastron, P = period, e = eccentricity, omega (omega0 at T0), "
+                  "omega_dot, Pdot = period_derivative, n(t) = cycles since T0, M = mean_anomaly, E = eccentric "
+                  "anomaly, nu = true_anomaly, r = separation_au, K1 = k1, K2 = k2, gamma, M1 = m1, M2 = m2, a = "
+                  "semimajor_axis, a'' = angular_semimajor_axis, i = inclination, Omega = node, u = argument of "
+                  "latitude of the relative orbit, rho = projected_separation, theta = position_angle"),
+    "geometry": ("P = period, e = eccentricity, M1 = m1, M2 = m2, q = mass_ratio, a = semimajor_axis, r = separation,"
+                 " v = speed, r_L = Roche-lobe radius, R1 = radius1, R2 = radius2"),
+    "mid-eclipse": ("P = period, e = eccentricity, omega, i = inclination, T0 = t_periastron, nu = true anomaly, M = "
+                    "mean anomaly, nu_min = nu at mid-eclipse, nu_conj = nu at conjunction, phi = phase, rho = "
+                    "projected separation, a = semimajor_axis, M1 + M2 = total_mass, R1 = radius1, R2 = radius2, "
+                    "omega_dot, Pdot = period_derivative; dates listed from after"),
+    "collision": ("Mdot1 = mdot1, Mdot2 = mdot2, v1 = vinf1, v2 = vinf2, eta = momentum_ratio, D = separation, e = "
+                  "eccentricity, a = semimajor_axis, P = period, M1 = m1, M2 = m2, E = eccentric anomaly, nu = "
+                  "true_anomaly, mu1 = mu1, mu2 = mu2, r1, r2 = stagnation distances, chi = cooling parameter, T = "
+                  "post-shock temperature, k = k_B, theta, psi = half-opening angles"),
+    "mass-loss-radio": ("S = flux_density, nu = frequency, D = distance, v = vinf, mu = mu, Z = z_rms, gamma = "
+                        "gamma_e, T = temperature, f = clumping, g = gaunt_factor, R_star = stellar_radius, Mdot = "
+                        "mass_loss_rate"),
+    "mass-loss-period-change": ("P = period, Pdot = period_derivative, M1 = m1, M2 = m2, dM/dt = the system's rate of"
+                                " mass change, dM1/dt = star 1's"),
+    "mass-loss-momentum-ratio": ("eta = momentum_ratio, psi, theta = opening_half_angle, Mdot1 = mdot1, Mdot2 = "
+                                 "mdot2, v1 = vinf1, v2 = vinf2"),
+    "mass-loss-recipe": ("L = luminosity, M = mass, Teff = teff, Z/Z_sun = metallicity (vink-2001), ratio = "
+                         "vinf_over_vesc, Y = helium_fraction, Z = metal_fraction (nugis-lamers-2000), Gamma_e = "
+                         "eddington_factor, Mdot = mass_loss_rate"),
+    "shell-distance": ("P = period, s = shell_spacing, v = expansion_speed, D = distance"),
+    "shell-forecast": ("P = period, n = shells, t_n = formation_epoch + n P, t_obs = observation_date, v = "
+                       "expansion_speed, D = distance (or 1000 / parallax), theta = angular_radius, R = radius"),
+}
+
+
+def conventions(*keys, **more) -> dict:
+    """The shared ``CONVENTIONS`` named by ``keys`` (only those that apply to a calculation), then ``more``."""
+    return {**{k: CONVENTIONS[k] for k in keys}, **more}
 
 
 def period(**kw) -> Input:

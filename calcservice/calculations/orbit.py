@@ -10,13 +10,16 @@ import numpy as np
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import ANGLE, ANY, DATE, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, VELOCITY, eccentricity,
-                     period, with_speed_check)
+from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SPEED, SYMBOLS, VELOCITY,
+                     cited, eccentricity, period, with_speed_check)
 
 EGGLETON_1983 = "P. P. Eggleton (1983), Approximations to the radii of Roche lobes, ApJ 268, 368"
 MIKKOLA_1987 = "S. Mikkola (1987), A cubic approximation for Kepler's equation, Celestial Mechanics 40, 329"
-HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, Reidel, ch. 4"
+HEINTZ_1978 = "W. D. Heintz (1978), Double Stars, D. Reidel, Dordrecht, ch. 4"
 MURRAY_DERMOTT_1999 = "C. D. Murray & S. F. Dermott (1999), Solar System Dynamics, Cambridge University Press, ch. 2"
+#: the sources of Kepler's third law in solar units: Hilditch's formula with GM_sun (IAU 2015 B3) and the au
+KEPLER = (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)
+ROCHE_LOBES = ("roche_lobe1", "roche_lobe2", "roche_lobe1_apastron", "roche_lobe2_apastron")
 ASTROPY_TIME = "Astropy Collaboration (2022), ApJ 935, 167: astropy.time for calendar dates and leap seconds"
 
 #: The most events of each kind one request may ask for.
@@ -32,7 +35,7 @@ EVENT_ELEMENTS = ("t_periastron", "period", "eccentricity", "omega", "omega_dot"
 LIGHT_TRAVEL_CHOICES = ("none", "star1", "star2")
 
 ORBIT_CONVENTIONS = {
-    **CONVENTIONS,
+    **{k: v for k, v in CONVENTIONS.items() if k != "mass_ratio"},
     "phase": "orbital phase (t - t_periastron)/period mod 1, zero at periastron",
     "position_angle": "of star 2 relative to star 1, from north through east; node is the position angle of the "
                       "ascending node, where star 2 recedes from the observer; the relative orbit has omega + 180 deg",
@@ -187,8 +190,11 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         separations = {}
         if k2 is not None:
             for kind, ev, _s in extrema:
-                vs = phys.velocity_separation(e, w, np.broadcast_to(k1, (n,)), np.broadcast_to(k2, (n,)), kind)
-                separations[kind] = np.broadcast_to(vs[:, None], ev["time"].shape)
+                # e cos omega at each date: with apsidal motion omega has moved since t_periastron
+                w_t = phys.omega_at(ev["time"], w[:, None], t0[:, None], None if w_dot is None else w_dot[:, None])
+                vs = phys.velocity_separation(e[:, None], w_t, np.broadcast_to(k1, (n,))[:, None],
+                                              np.broadcast_to(k2, (n,))[:, None], kind)
+                separations[kind] = np.broadcast_to(vs, ev["time"].shape)
     for i in range(n):
         events = per_system[i]["events"]
         for list_name, parts in kinds_all.items():
@@ -208,6 +214,9 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         mvs.sort(key=lambda r: r["value"])
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
+        # the units of the entries' fields and of the light-travel amplitudes
+        events["units"] = {**({"velocity_separation": "km/s"} if separations else {}),
+                           "amplitude_star1": "d", "amplitude_star2": "d"}
         events["time_format"] = time_format
         events["light_travel_time"] = {
             "applied": chosen if light is not None else "none",
@@ -312,7 +321,7 @@ register(Calculation(
               "none", kind="choice", choices=LIGHT_TRAVEL_CHOICES, required=False, default="none",
               example="none"),
     ),
-    outputs=(
+    outputs=cited((
         Output("phase", "", "orbital phase since periastron", "phi = n(t) mod 1, n(t) = (t - T0)/P without "
                "a period derivative", period=1.0),
         Output("mean_anomaly", "deg", "mean anomaly", "M = 2 pi n(t), t = T0 + P (n + Pdot n^2 / 2)", period=360.0),
@@ -325,17 +334,20 @@ register(Calculation(
         Output("rv2", "km/s", "radial velocity of star 2", "v2 = gamma - K2 [cos(nu + omega) + e cos omega], "
                "omega = omega0 + omega_dot (t - T0)"),
         Output("separation_au", "au", "separation of the stars",
-               "r = a (1 - e cos E), a given or a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+               "r = a (1 - e cos E), a given or a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
         Output("projected_separation", "mas", "angular separation of the stars on the sky",
                "rho = a'' (r/a) sqrt(cos^2 u + sin^2 u cos^2 i), u = nu + omega + 180 deg"),
         Output("position_angle", "deg", "position angle of star 2 relative to star 1",
                "tan(theta - Omega) = tan u cos i, u = nu + omega + 180 deg", period=360.0),
-    ),
+    ), {"true_anomaly": (MIKKOLA_1987, MURRAY_DERMOTT_1999), "separation": (MURRAY_DERMOTT_1999,),
+        "separation_au": (MURRAY_DERMOTT_1999, *KEPLER), "projected_separation": (HEINTZ_1978,),
+        "position_angle": (HEINTZ_1978,)}, (HILDITCH_2001,)),
     function=phys.ephemeris,
     references=(MIKKOLA_1987, MURRAY_DERMOTT_1999, HILDITCH_2001, HEINTZ_1978, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
     constants=("GM_sun", "au", "day", "c", "julian_year"),
-    conventions=ORBIT_CONVENTIONS,
+    conventions=ORBIT_CONVENTIONS
+    | {"symbols": SYMBOLS["ephemeris"]},
     constraints=(
         Constraint(("m1", "m2"), "m1 and m2 go together (both give the physical separation)",
                    _ephemeris_consistent_masses),
@@ -407,18 +419,18 @@ register(Calculation(
         Input("radius1", "solRad", "radius of star 1", POSITIVE, required=False, example=4.3),
         Input("radius2", "solRad", "radius of star 2", POSITIVE, required=False, example=2.9),
     ),
-    outputs=(
-        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
-        Output("total_mass", "solMass", "total mass", "M1 + M2 = 4 pi^2 a^3 / (G P^2)"),
+    outputs=cited((
+        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
+        Output("total_mass", "solMass", "total mass", "M1 + M2 = 4 pi^2 a^3 / (GM_sun P^2)"),
         Output("m1", "solMass", "mass of star 1", "M1 = (M1 + M2)/(1 + q)"),
         Output("m2", "solMass", "mass of star 2", "M2 = q M1"),
         Output("mass_ratio", "", "mass ratio q = M2/M1", "q = M2 / M1"),
         Output("periastron_distance", "au", "separation at periastron", "a (1 - e)"),
         Output("apastron_distance", "au", "separation at apastron", "a (1 + e)"),
         Output("speed_periastron", "km/s", "relative orbital speed at periastron",
-               "v^2 = G (M1 + M2) (2/r - 1/a), r = a (1 - e)"),
+               "v^2 = GM_sun (M1 + M2) (2/r - 1/a), r = a (1 - e)"),
         Output("speed_apastron", "km/s", "relative orbital speed at apastron",
-               "v^2 = G (M1 + M2) (2/r - 1/a), r = a (1 + e)"),
+               "v^2 = GM_sun (M1 + M2) (2/r - 1/a), r = a (1 + e)"),
         Output("roche_lobe1", "solRad", "Roche-lobe radius of star 1 at periastron",
                "r_L = a (1 - e) 0.49 q1^{2/3} / (0.6 q1^{2/3} + ln(1 + q1^{1/3})), q1 = M1/M2"),
         Output("roche_lobe2", "solRad", "Roche-lobe radius of star 2 at periastron",
@@ -429,15 +441,20 @@ register(Calculation(
                "r_L = a (1 + e) 0.49 q2^{2/3} / (0.6 q2^{2/3} + ln(1 + q2^{1/3})), q2 = M2/M1"),
         Output("fill_factor1", "", "radius of star 1 over its Roche lobe at periastron", "R1 / r_L1"),
         Output("fill_factor2", "", "radius of star 2 over its Roche lobe at periastron", "R2 / r_L2"),
-    ),
+    ), {"mass_ratio": (HILDITCH_2001,), "periastron_distance": (MURRAY_DERMOTT_1999,),
+        "apastron_distance": (MURRAY_DERMOTT_1999,), "speed_periastron": (MURRAY_DERMOTT_1999, *KEPLER[1:]),
+        "speed_apastron": (MURRAY_DERMOTT_1999, *KEPLER[1:]),
+        **dict.fromkeys(ROCHE_LOBES, (EGGLETON_1983, *KEPLER[1:])),
+        "fill_factor1": (EGGLETON_1983,), "fill_factor2": (EGGLETON_1983,)}, KEPLER),
     function=phys.geometry,
     references=(EGGLETON_1983, HILDITCH_2001, MURRAY_DERMOTT_1999, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "R_sun", "day"),
-    conventions={**CONVENTIONS,
+    conventions={"mass_ratio": MASS_RATIO,
                  "roche_lobe": "Eggleton (1983) volume-equivalent radius with the instantaneous separation in place "
                                "of a (an approximation for eccentric orbits)",
                  "speeds": "relative orbital speed of the two stars (vis-viva), not of either star about the "
-                           "centre of mass"},
+                           "centre of mass"}
+    | {"symbols": SYMBOLS["geometry"]},
     exclusive=(("m1", "semimajor_axis"),),
     at_most_one=(("m2", "mass_ratio"), ("m2", "semimajor_axis")),
     constraints=(
@@ -541,7 +558,7 @@ register(Calculation(
         Input("period_derivative", "s/yr", "rate of change of the period dP/dt (quadratic ephemeris; any "
               "time-per-time unit)", ANY, required=False, example=0.0),
     ),
-    outputs=(
+    outputs=cited((
         *(o for star, whom in (("1", "star 1 eclipsed, star 2 in front"), ("2", "star 2 eclipsed, star 1 in front"))
           for o in (
               Output(f"mid_eclipse_phase{star}", "", f"phase after periastron of mid-eclipse ({whom})",
@@ -557,13 +574,17 @@ register(Calculation(
                      "overlap, an eclipse happens, where it is below 1", "rho_min / (R1 + R2)"),
           )),
         Output("semimajor_axis", "au", "relative semi-major axis (as given, or from Kepler's third law)",
-               "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
-    ),
+               "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
+    ), {**{f"{name}{star}": (HILDITCH_2001, MURRAY_DERMOTT_1999) for star in "12"
+           for name in ("mid_eclipse_phase", "conjunction_offset")},
+        **{f"minimum_separation{star}_over_a": (HILDITCH_2001, HEINTZ_1978) for star in "12"},
+        **{f"minimum_separation{star}": (HILDITCH_2001, HEINTZ_1978, *KEPLER[1:]) for star in "12"},
+        "semimajor_axis": KEPLER}, (HILDITCH_2001,)),
     function=phys.mid_eclipse,
     references=(HILDITCH_2001, HEINTZ_1978, MURRAY_DERMOTT_1999, MIKKOLA_1987, ASTROPY_TIME, IAU_2015_B3,
                 IAU_2012_B2),
     constants=("GM_sun", "au", "R_sun", "day", "julian_year"),
-    conventions={**ORBIT_CONVENTIONS,
+    conventions={**{k: ORBIT_CONVENTIONS[k] for k in ("omega", "inclination", "time", "phase", "iso")},
                  "mid_eclipse": "the time of minimum projected separation of the two centres near a conjunction "
                                 "(spherical stars, no light-travel time); eclipse_of_star1 is the conjunction with "
                                 "star 2 in front (nu + omega = 90 deg), eclipse_of_star2 the other; which one is the "
@@ -576,7 +597,8 @@ register(Calculation(
                  "eclipse_possible": "given with both radii: true where the discs overlap at the minimum separation",
                  "apsidal_motion": ORBIT_CONVENTIONS["apsidal_motion"] + "; the phases, offsets and separations "
                                    "are those at t_periastron, the event dates follow omega(t)",
-                 "period_derivative": ORBIT_CONVENTIONS["period_derivative"]},
+                 "period_derivative": ORBIT_CONVENTIONS["period_derivative"]}
+    | {"symbols": SYMBOLS["mid-eclipse"]},
     constraints=(Constraint(("radius1", "radius2"), "whether the discs overlap needs both radii and the orbit's size "
                             "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),
                  Constraint(("period_derivative",), "with this period derivative the period reaches zero before the "

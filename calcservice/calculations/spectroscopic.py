@@ -4,8 +4,13 @@ import numpy as np
 
 from ..physics import spectroscopic as phys
 from ..registry import POSITIVE, Calculation, Input, Output, Warning, register
-from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, eccentricity, inclination, period,
-                     semi_amplitude, with_speed_check)
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, ISOTROPIC, SYMBOLS, cited, conventions, eccentricity,
+                     inclination, period, semi_amplitude, with_speed_check)
+
+#: the sources of a formula: Hilditch's, with GM_sun (IAU 2015 B3) in a mass, the au (IAU 2012 B2) in a length
+MASS = (HILDITCH_2001, IAU_2015_B3)
+LENGTH = (HILDITCH_2001, IAU_2012_B2)
+KEPLER = (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)
 
 
 def _sb1_check(inputs, outputs):
@@ -44,9 +49,9 @@ register(Calculation(
         Input("primary_mass", "solMass", "mass of the primary (star 1)", POSITIVE, required=False, example=1.9),
         inclination(),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_function", "solMass", "spectroscopic mass function M2^3 sin^3 i / (M1+M2)^2",
-               "f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G)"),
+               "f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi GM_sun)"),
         Output("a1_sin_i", "au", "projected semi-major axis of the primary's orbit",
                "a1 sin i = K1 P (1 - e^2)^{1/2} / (2 pi)"),
         Output("m2_min", "solMass", "minimum companion mass (i = 90 deg)",
@@ -54,14 +59,16 @@ register(Calculation(
         Output("m2", "solMass", "companion mass at the given inclination",
                "positive root of M2^3 sin^3 i / (M1 + M2)^2 = f(M)"),
         Output("mass_ratio", "", "q = M2/M1 at the given inclination", "q = M2 / M1"),
-        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+        Output("semimajor_axis", "au", "relative semi-major axis", "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
         Output("a1", "au", "semi-major axis of the primary's orbit", "a1 = a1 sin i / sin i"),
-    ),
+    ), {"mass_function": MASS, "m2_min": MASS, "m2": MASS, "mass_ratio": MASS, "semimajor_axis": KEPLER}, LENGTH),
     function=phys.sb1,
     jacobian=phys.sb1_jacobian,
     references=(HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day"),
-    conventions=CONVENTIONS,
+    conventions=conventions("radial_velocity", "omega", "inclination", isotropic=ISOTROPIC,
+                            mass_ratio="q = M2/M1, star 1 the primary (the star whose semi-amplitude is k1)")
+    | {"symbols": SYMBOLS["sb1"]},
     check=with_speed_check(_sb1_check, ("k1",)),
     example={"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma": 0.3},
              "eccentricity": {"value": 0.31, "sigma": 0.01}, "primary_mass": {"value": 1.9, "sigma": 0.1},
@@ -81,10 +88,10 @@ register(Calculation(
         eccentricity(),
         inclination(),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_ratio", "", "mass ratio q = M2/M1", "q = K1 / K2"),
-        Output("m1_sin3i", "solMass", "M1 sin^3 i", "M1 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2 / (2 pi G)"),
-        Output("m2_sin3i", "solMass", "M2 sin^3 i", "M2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K1 / (2 pi G)"),
+        Output("m1_sin3i", "solMass", "M1 sin^3 i", "M1 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2 / (2 pi GM_sun)"),
+        Output("m2_sin3i", "solMass", "M2 sin^3 i", "M2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K1 / (2 pi GM_sun)"),
         Output("a_sin_i", "au", "projected relative semi-major axis", "a sin i = (K1 + K2) P (1 - e^2)^{1/2} / (2 pi)"),
         Output("a1_sin_i", "au", "projected semi-major axis of the primary's orbit",
                "a1 sin i = K1 P (1 - e^2)^{1/2} / (2 pi)"),
@@ -96,12 +103,14 @@ register(Calculation(
         Output("semimajor_axis", "au", "relative semi-major axis", "a = a sin i / sin i"),
         Output("periastron_distance", "au", "separation at periastron", "a (1 - e)"),
         Output("apastron_distance", "au", "separation at apastron", "a (1 + e)"),
-    ),
+    ), {"mass_ratio": (HILDITCH_2001,), "m1_sin3i": MASS, "m2_sin3i": MASS, "m1": MASS, "m2": MASS,
+        "total_mass": MASS}, LENGTH),
     function=phys.sb2,
     jacobian=phys.sb2_jacobian,
     references=(HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day"),
-    conventions=CONVENTIONS,
+    conventions=conventions("radial_velocity", "omega", "inclination", "mass_ratio", isotropic=ISOTROPIC)
+    | {"symbols": SYMBOLS["sb2"]},
     check=with_speed_check(_sb2_check, ("k1", "k2")),
     example={"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 38.2, "sigma": 0.4},
              "k2": {"value": 51.7, "sigma": 0.6}, "eccentricity": {"value": 0.31, "sigma": 0.01},

@@ -4,7 +4,7 @@ import numpy as np
 
 from ..physics import winds as phys
 from ..registry import ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, with_speed_check
+from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, with_speed_check
 
 EICHLER_USOV_1993 = "D. Eichler & V. Usov (1993), ApJ 402, 271 (shock-cone opening angle)"
 CANTO_RAGA_WILKIN_1996 = "J. Cantó, A. C. Raga & F. P. Wilkin (1996), ApJ 469, 729 (thin-shell colliding winds)"
@@ -124,8 +124,10 @@ def _collision_check(inputs, outputs):
 
 
 _SEPARATION_DEPENDENT = (
-    ("stagnation_distance1", "au", "distance of the stagnation point from star 1", "r1 = D / (1 + eta^{1/2})"),
-    ("stagnation_distance2", "au", "distance of the stagnation point from star 2", "r2 = D eta^{1/2} / (1 + eta^{1/2})"),
+    ("stagnation_distance1", "au", "distance of the stagnation point from star 1",
+     "r1 = D / (1 + eta^{1/2}), D the separation"),
+    ("stagnation_distance2", "au", "distance of the stagnation point from star 2",
+     "r2 = D eta^{1/2} / (1 + eta^{1/2}), D the separation"),
     ("cooling_parameter1", "", "cooling parameter chi of the shocked wind of star 1 (>~1 adiabatic, <~1 radiative)",
      "chi1 = (v1 / 1000 km/s)^4 (r1 / 1e12 cm) / (Mdot1 / 1e-7 solMass/yr)"),
     ("cooling_parameter2", "", "cooling parameter chi of the shocked wind of star 2 (>~1 adiabatic, <~1 radiative)",
@@ -150,14 +152,18 @@ def _collision_outputs():
         Output("true_anomaly", "deg", "true anomaly at the given phase", "Kepler's equation M = E - e sin E, "
                "M = 2 pi phase", period=360.0),
         Output("semimajor_axis", "au", "relative semi-major axis (as given, or from Kepler's third law)",
-               "a^3 = G (M1 + M2) P^2 / (4 pi^2)"),
+               "a^3 = GM_sun (M1 + M2) P^2 / (4 pi^2)"),
         Output("separation_periastron", "au", "separation at periastron", "a (1 - e)"),
         Output("separation_apastron", "au", "separation at apastron", "a (1 + e)"),
     ]
     for suffix, where in (("", "at the separation"), ("_periastron", "at periastron"), ("_apastron", "at apastron")):
         for name, unit, description, formula in _SEPARATION_DEPENDENT:
             outs.append(Output(name + suffix, unit, f"{description}, {where}", formula))
-    return tuple(outs)
+    orbit = ("separation", "true_anomaly", "separation_periastron", "separation_apastron")
+    return cited(outs, {"opening_half_angle_eu93": (EICHLER_USOV_1993,),
+                        "opening_half_angle_crw96": (CANTO_RAGA_WILKIN_1996,),
+                        **dict.fromkeys(orbit, (HILDITCH_2001,)),
+                        "semimajor_axis": (HILDITCH_2001, IAU_2015_B3, IAU_2012_B2)}, (STEVENS_1992,))
 
 
 def _mdot(name, star, example, required=True, extra=""):
@@ -210,7 +216,8 @@ register(Calculation(
     references=(STEVENS_1992, EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, HILDITCH_2001, IAU_2015_B3, IAU_2012_B2),
     constants=("GM_sun", "au", "day", "m_H", "k_B", "R_sun"),
     conventions={**WIND_CONVENTIONS,
-                 "phase": "(t - T_periastron)/P, mean anomaly M = 2 pi phase; true anomaly counted from periastron"},
+                 "phase": "(t - T_periastron)/P, mean anomaly M = 2 pi phase; true anomaly counted from periastron"}
+    | {"symbols": SYMBOLS["collision"]},
     constraints=_COLLISION_CONSTRAINTS,
     # "exactly one of separation, eccentricity" is a constraint so that a phase given alone is named too
     at_most_one=(("separation", "eccentricity"), ("phase", "true_anomaly"), ("semimajor_axis", "period"), ("semimajor_axis", "m1"),
@@ -225,6 +232,17 @@ register(Calculation(
 
 
 # ------------------------------------------------------------------------- radio mass loss
+
+#: the compositions behind the wind types' defaults (physics.winds.WIND_TYPES derives the numbers from them)
+WIND_COMPOSITIONS = {"o-star": "H and He, n(He)/n(H) = 0.1, H+ and He+", "wn": "He, He+",
+                     "wc": "He and C, n(C)/n(He) = 0.2, He+ and C2+"}
+
+
+def _wind_defaults(kind: str) -> str:
+    """The defaults of a wind type as used, to the digits a re-derivation needs (from the code, not retyped)."""
+    mu, z, gamma, t = phys.WIND_TYPES[kind]
+    return f"mu {mu:.10g}, Z {z:.10g}, gamma {gamma:.10g}, T {t:g} K"
+
 
 def _radio_check(inputs, outputs):
     n = np.shape(outputs["mass_loss_rate"])
@@ -264,10 +282,8 @@ register(Calculation(
         Input("distance", "kpc", "distance", POSITIVE, example=2.1),
         Input("vinf", "km/s", "terminal wind speed", SPEED, example=1700.0),
         Input("wind_type", "", "composition whose defaults fill mu, z_rms, gamma_e and temperature when not given: "
-              "o-star (H and He, n(He)/n(H) = 0.1, H+ He+, mu 1.28, Z 1, gamma 1, T 2e4 K), wn (He+, mu 4.00, "
-              "Z 1, gamma 1, T 1e4 K), wc (He+ and C2+ with n(C)/n(He) = 0.2, mu 5.34, Z 1.22, gamma 1.17, "
-              "T 1e4 K)", kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star",
-              example="wn"),
+              + ", ".join(f"{kind} ({WIND_COMPOSITIONS[kind]}, {_wind_defaults(kind)})" for kind in phys.WIND_TYPES),
+              kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star", example="wn"),
         Input("mu", "", "mean atomic weight per ion (default from wind_type)", POSITIVE, required=False,
               example=4.0),
         Input("z_rms", "", "rms ionic charge (default from wind_type)", POSITIVE, required=False, example=1.0),
@@ -280,7 +296,7 @@ register(Calculation(
         Input("stellar_radius", "solRad", "radius of the star (to give the radio photosphere in stellar radii and "
               "warn when it lies in the accelerating wind)", POSITIVE, required=False, example=8.5),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_loss_rate", "solMass/yr", "mass-loss rate",
                "Mdot = 0.095 mu v S^{3/4} D^{3/2} / (Z gamma^{1/2} g^{1/2} nu^{1/2}) f^{1/2} "
                "(v km/s, S Jy, D kpc, nu Hz)"),
@@ -292,7 +308,8 @@ register(Calculation(
                "(cgs, Mdot the smooth-wind rate)"),
         Output("radio_photosphere_stellar_radii", "", "radius of the radio photosphere in stellar radii",
                "R(tau = 1) / R_star"),
-    ),
+    ), {"mass_loss_rate": (WRIGHT_BARLOW_1975, PANAGIA_FELLI_1975), "gaunt_factor": (LEITHERER_ROBERT_1991,)},
+        (RYBICKI_LIGHTMAN_1979, WRIGHT_BARLOW_1975)),
     function=phys.radio_mass_loss,
     references=(WRIGHT_BARLOW_1975, PANAGIA_FELLI_1975, LEITHERER_ROBERT_1991, RYBICKI_LIGHTMAN_1979),
     constants=("M_sun", "m_H", "R_sun", "julian_year"),
@@ -307,7 +324,8 @@ register(Calculation(
                              "density-squared diagnostic then overestimates the smooth-wind rate by f^-1/2",
                  "defaults": "wind_type defaults derive mu, Z and gamma from the stated composition "
                              "(mu = sum n_i A_i / sum n_i, Z^2 = sum n_i Z_i^2 / sum n_i, "
-                             "gamma = sum n_i Z_i / sum n_i); compositions and temperatures are common practice"},
+                             "gamma = sum n_i Z_i / sum n_i); compositions and temperatures are common practice"}
+    | {"symbols": SYMBOLS["mass-loss-radio"]},
     check=with_speed_check(_radio_check, ("vinf",)),
     example={"flux_density": {"value": 1.8, "sigma": 0.1}, "frequency": 8.4, "distance": {"value": 2.1, "sigma": 0.3},
              "vinf": {"value": 1700.0, "sigma": 100.0}, "wind_type": "wn", "stellar_radius": 8.5},
@@ -355,18 +373,19 @@ register(Calculation(
               "orbital angular momentum (Pdot/P = 3 (dM1/dt)(M1 - M2)/(M1 M2))", kind="choice",
               choices=("jeans", "conservative"), example="jeans"),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_loss_rate", "solMass/yr", "jeans: rate of mass loss from the system -dM/dt; conservative: rate "
                "of transfer from star 1 to star 2, -dM1/dt (both positive for the named direction)",
                "jeans: (M1 + M2) Pdot / (2 P); conservative: -M1 M2 Pdot / (3 P (M1 - M2))"),
         Output("relative_period_derivative", "1/yr", "Pdot / P", "Pdot / P"),
-    ),
+    ), {"mass_loss_rate": (JEANS_1924, HUANG_1963, HILDITCH_2001)}, ()),
     function=phys.period_change_mass_loss,
     references=(JEANS_1924, HUANG_1963, HILDITCH_2001),
     constants=("day", "julian_year"),
     conventions={"mass_loss_rate": "jeans: mass leaving the system is positive (a lengthening period); "
                                    "conservative: transfer from star 1 to star 2 is positive",
-                 "period_derivative": "dP/dt, positive when the period lengthens; s/yr by default"},
+                 "period_derivative": "dP/dt, positive when the period lengthens; s/yr by default"}
+    | {"symbols": SYMBOLS["mass-loss-period-change"]},
     # the mode is a choice: this constraint acts where constraints are shown the choices; otherwise the
     # division by M1 - M2 = 0 gives no finite rate and the row is refused all the same
     constraints=(Constraint(("m1", "m2"), "the conservative mode needs m1 != m2: at equal masses the period "
@@ -418,18 +437,19 @@ register(Calculation(
         _vinf("vinf1", "1", 2500.0),
         _vinf("vinf2", "2", 1500.0),
     ),
-    outputs=(
+    outputs=cited((
         Output("momentum_ratio", "", "wind-momentum ratio (as given, or from the opening angle)",
                "eu93: theta = 2.1 (1 - eta^{2/5}/4) eta^{1/3} inverted; crw96: eta = c / (pi + c), "
                "c = tan(psi) - psi"),
         Output("mdot2", "solMass/yr", "mass-loss rate of star 2", "Mdot2 = eta Mdot1 v1 / v2"),
         Output("mdot1", "solMass/yr", "mass-loss rate of star 1", "Mdot1 = Mdot2 v2 / (eta v1)"),
-    ),
+    ), {"momentum_ratio": (EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996)}, (STEVENS_1992,)),
     function=phys.mass_loss_from_momentum_ratio,
     references=(EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, STEVENS_1992),
     conventions={k: WIND_CONVENTIONS[k] for k in ("winds", "opening_half_angle", "mass_loss_rate")}
     | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle always gives "
-                         "eta <= 1, the cone wrapping star 2"},
+                         "eta <= 1, the cone wrapping star 2"}
+    | {"symbols": SYMBOLS["mass-loss-momentum-ratio"]},
     exclusive=(("momentum_ratio", "opening_half_angle"), ("mdot1", "mdot2")),
     check=with_speed_check(_momentum_check, ("vinf1", "vinf2")),
     example={"opening_half_angle": {"value": 38.0, "sigma": 4.0}, "opening_angle_formula": "crw96",
@@ -478,7 +498,8 @@ _RECIPE_CONSTRAINTS = (
     *(_needs(name, _recipe_missing(name, owner), f"is required by {owner}")
       for owner, names in _NEEDS.items() for name in names),
     Constraint(("luminosity", "mass"), "the star is at or above its Eddington limit (Gamma_e = sigma_e L / "
-               "(4 pi c G M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists there",
+               "(4 pi c GM_sun M) >= 1 with sigma_e = 0.325 cm^2/g): no line-driven wind of Vink et al. (2001) exists "
+               "there",
                lambda **kw:
                _rows(True) if _chosen_recipe(kw) != "vink-2001" or not (_given(kw.get("luminosity"))
                                                                       and _given(kw.get("mass")))
@@ -555,7 +576,7 @@ register(Calculation(
         Input("metal_fraction", "", "surface mass fraction Z of all elements heavier than helium, including C and O "
               "(nugis-lamers-2000)", POSITIVE_BELOW_ONE, required=False, example=0.12),
     ),
-    outputs=(
+    outputs=cited((
         Output("mass_loss_rate", "solMass/yr", "predicted mass-loss rate", "Mdot = 10^(log Mdot)"),
         Output("log_mass_loss_rate", "", "log10 of the mass-loss rate in solMass/yr",
                "vink-2001: eqs. 24 (hot) and 25 (cool side); nugis-lamers-2000: -11.00 + 1.29 log L + 1.73 log Y "
@@ -563,14 +584,16 @@ register(Calculation(
         Output("bistability_jump_temperature", "K", "temperature of the bi-stability jump (vink-2001)",
                "T_jump = 61.2 + 2.59 log <rho> kK, log <rho> = -14.94 + 3.1857 Gamma_e + 0.85 log(Z/Z_sun)"),
         Output("eddington_factor", "", "electron-scattering Eddington factor Gamma_e (vink-2001)",
-               "Gamma_e = sigma_e L / (4 pi c G M), sigma_e = 0.325 cm^2/g"),
-    ),
+               "Gamma_e = sigma_e L / (4 pi c GM_sun M), sigma_e = 0.325 cm^2/g"),
+    ), {"eddington_factor": (VINK_2001, IAU_2015_B3), "bistability_jump_temperature": (VINK_2001,)},
+        (VINK_2001, NUGIS_LAMERS_2000)),
     function=phys.recipe_mass_loss,
     references=(VINK_2001, NUGIS_LAMERS_2000, IAU_2015_B3),
     constants=("L_sun", "GM_sun", "c"),
     conventions={"mass_loss_rate": WIND_CONVENTIONS["mass_loss_rate"],
                  "vink-2001": "the hot-side formula at teff >= the jump temperature, the cool-side formula below it",
-                 "inputs": "inputs of the other recipe are refused"},
+                 "inputs": "inputs of the other recipe are refused"}
+    | {"symbols": SYMBOLS["mass-loss-recipe"]},
     constraints=_RECIPE_CONSTRAINTS,
     check=_recipe_check,
     example={"recipe": "vink-2001", "luminosity": {"value": 3.2e5, "sigma": 0.5e5},
@@ -596,19 +619,20 @@ register(Calculation(
         Input("parallax", "mas", "parallax (give this, expansion_speed or distance)", POSITIVE, required=False,
               example=0.22),
     ),
-    outputs=(
+    outputs=cited((
         Output("distance", "pc", "distance", "D = v P / s; D (pc) = v (km/s) P (yr) / (4.74047 s (arcsec))"),
         Output("parallax", "mas", "parallax", "parallax (mas) = 1000 / D (pc)"),
         Output("expansion_speed", "km/s", "expansion speed of the shells", "v = 4.74047 s (arcsec) D (pc) / P (yr)"),
-    ),
+    ), {}, (IAU_2012_B2,)),
     function=phys.shell_distance,
     references=(IAU_2012_B2,),
-    constants=("au", "julian_year", "au_per_julian_year"),
+    constants=("au", "julian_year", "au_per_julian_year", "day", "pc"),
     conventions={"shells": "one shell per orbit, expanding at constant speed; shell_spacing is the increase of a "
                            "shell's angular radius from one shell to the next, and the edge of a spherical shell "
                            "moves across the sky at the full expansion speed (for a cone or spiral the projection "
                            "changes the result)",
-                 "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)"},
+                 "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)"}
+    | {"symbols": SYMBOLS["shell-distance"]},
     exclusive=(("expansion_speed", "distance", "parallax"),),
     check=with_speed_check(None, ("expansion_speed",)),
     example={"period": {"value": 2950.0, "sigma": 15.0}, "shell_spacing": {"value": 410.0, "sigma": 12.0},
@@ -649,12 +673,12 @@ register(Calculation(
               "one before, 1 the next); each must have formed by observation_date", ANY, kind="series",
               label="shell", example=[-3, -2, -1, 0, 1]),
     ),
-    outputs=(
+    outputs=cited((
         Output("angular_radius", "mas", "angular radius of the shell at observation_date",
                "theta = v (t_obs - t_n) / D; theta (arcsec) = v (km/s) age (yr) / (4.74047 D (pc))"),
         Output("radius", "au", "linear radius of the shell at observation_date", "R = v (t_obs - t_n)"),
         Output("age", "yr", "time since the shell formed", "t_obs - (formation_epoch + n P)"),
-    ),
+    ), {}, (IAU_2012_B2,)),
     function=phys.shell_forecast,
     references=(IAU_2012_B2,),
     constants=("au", "julian_year", "au_per_julian_year", "pc"),
@@ -662,7 +686,8 @@ register(Calculation(
                            "speed from the star; the edge of a spherical shell moves across the sky at the full "
                            "expansion speed (for a cone or spiral the projection changes the result)",
                  "speed": "1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year)",
-                 "time": "Julian Dates (days) unless another format is given; ages in Julian years"},
+                 "time": "Julian Dates (days) unless another format is given; ages in Julian years"}
+    | {"symbols": SYMBOLS["shell-forecast"]},
     exclusive=(("distance", "parallax"),),
     constraints=(
         Constraint(("shells",), "shell numbers are whole numbers", _whole_shells),

@@ -19,11 +19,12 @@ from .parse import Parsed
 def provenance(calc: Calculation) -> dict:
     """Version, formulas, constants, references and conventions of a calculation: built from the
     declaration once, copied per answer (a caller may change its copy)."""
-    formulas, constants, references, conventions = _provenance_parts(calc)
+    formulas, constants, references, conventions, sources = _provenance_parts(calc)
     return {
         "version": __version__,
         "calculation": calc.name,
         "formulas": dict(formulas),
+        "formula_sources": {k: list(v) for k, v in sources.items()},
         "constants": {k: dict(v) for k, v in constants.items()},
         "references": list(references),
         "conventions": dict(conventions),
@@ -32,8 +33,10 @@ def provenance(calc: Calculation) -> dict:
 
 @lru_cache(maxsize=None)
 def _provenance_parts(calc: Calculation) -> tuple:
+    # each formula's sources as 0-based indices into the references
+    sources = {o.name: tuple(calc.references.index(r) for r in o.references) for o in calc.outputs if o.references}
     return ({o.name: o.formula for o in calc.outputs if o.formula}, constants_used(calc.constants),
-            tuple(calc.references), dict(calc.conventions))
+            tuple(calc.references), dict(calc.conventions), sources)
 
 
 def clean_array(a: np.ndarray) -> list:

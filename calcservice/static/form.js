@@ -742,7 +742,9 @@
     for (const [sub, entries] of Object.entries(member)) {
       if (!Array.isArray(entries) || !entries.length || typeof entries[0] !== "object") continue;
       const keys = Object.keys(entries[0]).filter((k) => !["value", "sigma", "low", "high"].includes(k));
-      const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(keys.map((k) => el("th", { text: k }))));
+      const fieldUnits = member.units || {};      // e.g. km/s for an event's velocity_separation
+      const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(
+        keys.map((k) => el("th", { text: fieldUnits[k] ? `${k} [${fieldUnits[k]}]` : k }))));
       const rows = entries.map((e) => el("tr", {}, [el("td", { class: "value", title: fullPrecision(e), text: measured(e, 12) })]
         .concat(keys.map((k) => el("td", { text: typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
       box.append(el("h3", { text: `${key}: ${sub.replace(/_/g, " ")}` }),
