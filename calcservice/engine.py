@@ -175,6 +175,15 @@ def _wrap(d: np.ndarray, period) -> np.ndarray:
     return (d + 0.5 * period) % period - 0.5 * period
 
 
+def _folds(y: np.ndarray, ref: np.ndarray, period: float) -> np.ndarray:
+    """How many periods the physics moved each of ``y`` by to bring it into its range, judged
+    against ``ref`` (the nominal value): y - ref less its reduction to half a period, in periods
+    (0 where either is not finite)."""
+    d = y - np.where(np.isfinite(ref), ref, 0.0)
+    k = np.rint((d - _wrap(d, period)) / period)
+    return np.where(np.isfinite(k), k, 0.0)
+
+
 def _arguments(calc: Calculation, arrays: Mapping[str, Any], statics: Mapping[str, Any]) -> dict[str, Any]:
     """The keyword arguments of the physics function (and of a declared Jacobian): every input,
     None where not given."""
@@ -303,6 +312,17 @@ class Plan:
             self._periods[key] = (period, wraps, bool(wraps.any()))
         return self._periods[key]
 
+    def links(self, given: tuple[str, ...]) -> list[tuple[int, int, float, float]]:
+        """The joint folds among the outputs ``given``: (row of the angle, row of the output it turns
+        with, that output's period, the turn), see :class:`~calcservice.registry.Output`."""
+        key = ("links", given)
+        if key not in self._periods:
+            self._periods[key] = [(k, given.index(o.turns_with[0]), self.calc.output(o.turns_with[0]).period,
+                                   o.turns_with[1])
+                                  for k, o in enumerate(self.calc.output(name) for name in given)
+                                  if o.turns_with is not None and o.turns_with[0] in given]
+        return self._periods[key]
+
 
 @lru_cache(maxsize=4096)
 def plan(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) -> Plan:
@@ -420,6 +440,51 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     return given, f0, terms, crosses
 
 
+def _stencil(pl: Plan, x, xj, h, statics, trail):
+    """The outputs given and their values (outputs, p, n) + trail on the stencil of steps ``h`` (m, n)
+    about ``x`` (a step that leaves its input's domain gives NaN there: one-sided), with any joint
+    fold between outputs (``Output.turns_with``) undone at each point."""
+    n = x.shape[1]
+    m = len(pl.rows)
+    p = 1 + WIDTH * m
+    cols = np.repeat(x[:, None, :], p, axis=1)                                      # (Q, p, n)
+    if m:
+        block = xj + np.array([-h, h])                                               # (2, m, n)
+        inside = pl.inside(block)
+        if not inside.all():
+            block[~inside] = np.nan          # a step that leaves the domain: one-sided there
+        cols[pl.fill_rows, pl.fill_cols, :] = block.reshape(WIDTH * m, n)
+    ones = (1,) * len(trail)
+    ys = _call(pl.calc, _arguments(pl.calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k]
+                                             for k, name in enumerate(pl.names)}, statics), (p, n) + trail)
+    given = tuple(ys)
+    if not given or not m:
+        return given, (np.array(list(ys.values())) if given else None)
+    y = np.array(list(ys.values()))                                                  # (outputs, p, n) + trail
+    for k, partner, partner_period, turn in pl.links(given):
+        # a stencil point where the physics folded the partner (a node stepped across 0) has this
+        # angle turned with it: undo the joint fold, so the pair is differenced on one branch
+        y[k, 1:] -= turn * _folds(y[partner, 1:], y[partner, :1], partner_period)
+    return given, y
+
+
+def _differences(pl: Plan, given, y, m: int):
+    """f(x + h) - f(x) and f(x) - f(x - h) over a stencil's values ``y`` (outputs, m, n) + trail each,
+    a wrapping output's on the circle at each step (so a branch cut between the points is no jump),
+    and the wrap periods of the outputs (see :meth:`Plan.periods`)."""
+    ahead, behind = y[:, 1 + m:], y[:, 1:1 + m]                                     # f(x + h), f(x - h)
+    period, wraps, any_wrap = pl.periods(given, ahead.ndim)
+    ref = y[:, :1]
+    up, down = ahead - ref, ref - behind
+    if any_wrap:
+        up = np.where(wraps, _wrap(up, period), up)
+        down = np.where(wraps, _wrap(down, period), down)
+    return up, down, period, wraps, any_wrap
+
+
+RESOLVED = 1e6       # a difference this many roundings of its output above them is a derivative to ~1e-6
+
+
 def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     """The outputs given, f0 (outputs, n) + trail, the terms df/dx_j sigma_j (outputs, m, n) + trail
     by central differences, a function that fills the terms a step outside the domain left
@@ -427,55 +492,52 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     :func:`_differentiate`) and ``crosses`` (m, n), for a block of systems.  The physics sees
     arrays of shape (points, n) + trail: the stencil's points first, so that each point is a
     contiguous row of systems; everything after it stays within the block, so a long catalogue's
-    (outputs x m x n) arrays are never held."""
+    (outputs x m x n) arrays are never held.
+
+    An input whose |x| is below its sigma is stepped by 1e-5 |x| (:func:`_steps`); where an
+    output's difference over that step is lost in the output's own rounding (within ``RESOLVED``
+    roundings: an x that is the rounding residue of 0, a sin 180 deg ~ 1e-14, stepped by ~1e-19),
+    the term is taken again over the step of 1e-5 sigma that x = 0 itself gets, in a second physics
+    call over the systems that need it, so the sigma is continuous in x through 0 instead of 0."""
     n = x.shape[1]
     m = len(pl.rows)
-    p = 1 + WIDTH * m
-    cols = np.repeat(x[:, None, :], p, axis=1)                                      # (Q, p, n)
-    crosses = None
+    crosses = xj = h = None
     if m:
         xj = x[pl.rows]                                                              # (m, n)
         h = _steps(xj, spread, pl)
-        # the stencil's points and the ends of the 1-sigma intervals, against the domains at once
-        points = xj + np.array([-h, h, -sm, sp])                                     # (4, m, n)
-        inside = pl.inside(points)
-        block = points[:WIDTH]
-        if not inside[:WIDTH].all():
-            block[~inside[:WIDTH]] = np.nan  # a step that leaves the domain: one-sided there
-        cols[pl.fill_rows, pl.fill_cols, :] = block.reshape(WIDTH * m, n)
-        crosses = ~inside[WIDTH:].all(axis=0)
-    ones = (1,) * len(trail)
-    ys = _call(pl.calc, _arguments(pl.calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k]
-                                             for k, name in enumerate(pl.names)}, statics), (p, n) + trail)
-    given = tuple(ys)
+        crosses = ~pl.inside(xj + np.array([-sm, sp])).all(axis=0)
+    given, y = _stencil(pl, x, xj, h, statics, trail)
     if not given:
         return given, None, None, None, None, crosses
-    y = np.array(list(ys.values()))                                                  # (outputs, p, n) + trail
     f0 = y[:, 0]
     if not m:
         return given, f0, None, None, None, crosses
-    ahead, behind = y[:, 1 + m:], y[:, 1:1 + m]                                     # f(x + h), f(x - h)
-    period, wraps, any_wrap = pl.periods(given, ahead.ndim)
+    ones = (1,) * len(trail)
     hh = h.reshape((1, m, n) + ones)
+    up, down, period, wraps, any_wrap = _differences(pl, given, y, m)
     # the Jacobian times each input's sigma in one product: (f(x+h) - f(x-h)) sigma / 2h
     scale = (spread / (2.0 * h)).reshape((1, m, n) + ones)
-    up = down = None
-    if any_wrap:
-        # on the circle at each step, so a branch cut between the points is no jump
-        ref = y[:, :1]
-        up = np.where(wraps, _wrap(ahead - ref, period), ahead - ref)
-        down = np.where(wraps, _wrap(ref - behind, period), ref - behind)
-        terms = (up + down) * scale
-    else:
-        terms = (ahead - behind) * scale
+    terms = (up + down) * scale
+
+    wide = RELATIVE_STEP * spread
+    narrow = (h < wide) & ~pl.time                                                   # (m, n): |x| < sigma
+    if narrow.any():
+        floor = RESOLVED * np.finfo(float).eps * (np.abs(y[:, :1]) + np.where(wraps, period, 0.0))
+        lost = narrow.reshape((1, m, n) + ones) & ~(np.abs(up + down) > floor)     # (outputs, m, n) + trail
+        need = lost.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))              # (n,)
+        if need.any():
+            h2 = np.where(narrow, wide, h)[:, need]
+            _, y2 = _stencil(pl, x[:, need], xj[:, need], h2, statics, trail)
+            up2, down2, _, _, _ = _differences(pl, given, y2, m)
+            terms2 = (up2 + down2) * (spread[:, need] / (2.0 * h2)).reshape((1, m, -1) + ones)
+            sub = terms[:, :, need]
+            terms[:, :, need] = np.where(lost[:, :, need] & np.isfinite(terms2), terms2, sub)
 
     def one_sided(terms):
         # one-sided differences where a step left the domain (first order in h, which is
         # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
-        ref = y[:, :1]
-        forward, backward = (ahead - ref, ref - behind) if up is None else (up, down)
         sig = spread.reshape((1, m, n) + ones)
-        return np.where(np.isfinite(terms), terms, np.where(np.isfinite(forward), forward / hh, backward / hh) * sig)
+        return np.where(np.isfinite(terms), terms, np.where(np.isfinite(up), up / hh, down / hh) * sig)
 
     curvature = None
     if any_wrap:
@@ -764,10 +826,17 @@ def _run(calc, quantities, draws, statics, n, s, trail) -> tuple[dict[str, np.nd
     return ys, valid
 
 
-def _draws_of(output, y: np.ndarray) -> np.ndarray:
-    """The draws of one output (n, s) + trail; a wrapping one unwrapped about its nominal value
-    (each draw within half a period of it), so that its spread is taken on the circle."""
+def _draws_of(calc: Calculation, name: str, ys: Mapping[str, np.ndarray]) -> np.ndarray:
+    """The draws of output ``name`` (n, s) + trail; a wrapping one unwrapped about its nominal value
+    (each draw within half a period of it), so that its spread is taken on the circle, after undoing
+    a joint fold with the output it turns with (``Output.turns_with``)."""
+    output = calc.output(name)
+    y = ys[name]
     d = y[:, 1:]
+    if output.turns_with is not None and output.turns_with[0] in ys:
+        partner, turn = output.turns_with
+        yp = ys[partner]
+        d = d - turn * _folds(yp[:, 1:], yp[:, :1], calc.output(partner).period)
     if output.period is not None:
         nominal = y[:, :1]
         ref = np.where(np.isfinite(nominal), nominal, 0.0)
@@ -836,21 +905,19 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
     for o in calc.outputs:
         if o.name not in ys:
             continue
-        d = _draws_of(o, ys[o.name])
+        d = _draws_of(calc, o.name, ys)
         med, low, high = quantiles(d, valid, (0.5, ONE_SIGMA_LOW, ONE_SIGMA_HIGH))
         _, var = _spread(d, mask)
         heavy = heavy_tailed(d, mask, med) & enough if s >= MIN_DRAWS else np.zeros(med.shape, dtype=bool)
         if heavy.any():
             var = np.where(heavy, np.nan, var)
             result.warnings.append(_no_sigma(o.name, heavy.reshape(n, -1).any(axis=1)))
-        if o.period is not None:
-            shift = np.floor(med / o.period) * o.period
-            med, low, high = med - shift, low - shift, high - shift
         result.outputs[o.name] = {"value": med, "sigma": np.sqrt(var), "low": low, "high": high}
         if options.keep_draws:
             kept[o.name] = np.where(mask, d, np.nan)
         if not trail:
             scalar[o.name] = (d, var)
+    _into_range(calc, result.outputs)
     if options.keep_draws:
         result.draws = kept
     if options.covariance and scalar:
@@ -868,6 +935,25 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
                                        "inputs' physical domains or gave no finite result; the summary describes "
                                        "the truncated distribution", heavy))
     return result
+
+
+def _into_range(calc: Calculation, outputs: dict[str, dict[str, np.ndarray]]) -> None:
+    """A wrapping output's median brought into [0, period), its interval moved with it (so ``low``
+    may lie below 0 or ``high`` above the period: the interval straddles the edge); an angle that
+    turns with another (``Output.turns_with``) turns with it by as many turns as that one was moved
+    by periods, so the pair stays one orbit."""
+    turns = {o.name: np.floor(outputs[o.name]["value"] / o.period) for o in calc.outputs
+             if o.name in outputs and o.period is not None and o.turns_with is None}
+    for o in calc.outputs:
+        if o.name not in outputs or o.period is None:
+            continue
+        entry = outputs[o.name]
+        shift = 0.0
+        if o.turns_with is not None and o.turns_with[0] in turns:
+            shift = turns[o.turns_with[0]] * o.turns_with[1]
+        shift = shift + np.floor((entry["value"] - shift) / o.period) * o.period
+        for key in ("value", "low", "high"):
+            entry[key] = entry[key] - shift
 
 
 def _draw_correlation(scalar: Mapping[str, tuple[np.ndarray, np.ndarray]], valid: np.ndarray):
@@ -918,7 +1004,7 @@ def _monte_carlo_budget(calc, quantities, statics, options, draws, valid, ys, sc
         both = valid & valid_held
         for name, (d, var) in scalar.items():
             _, full = _spread(d, both)
-            _, rest = _spread(_draws_of(calc.output(name), ys_held[name]), both)
+            _, rest = _spread(_draws_of(calc, name, ys_held), both)
             share = np.where(full > 0, (full - rest) / np.where(full > 0, full, 1.0), np.nan)
             budget[name][held] = np.where(np.isfinite(var), share, np.nan)
     return budget
