@@ -483,6 +483,7 @@ def _differences(pl: Plan, given, y, m: int):
 
 
 RESOLVED = 1e6       # a difference this many roundings of its output above them is a derivative to ~1e-6
+KINK_STEPS = 16      # the longer step that tells a kink from an extremum (see _stencil_terms)
 
 
 def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
@@ -519,10 +520,10 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     scale = (spread / (2.0 * h)).reshape((1, m, n) + ones)
     terms = (up + down) * scale
 
+    floor = RESOLVED * np.finfo(float).eps * (np.abs(y[:, :1]) + np.where(wraps, period, 0.0))
     wide = RELATIVE_STEP * spread
     narrow = (h < wide) & ~pl.time                                                   # (m, n): |x| < sigma
     if narrow.any():
-        floor = RESOLVED * np.finfo(float).eps * (np.abs(y[:, :1]) + np.where(wraps, period, 0.0))
         lost = narrow.reshape((1, m, n) + ones) & ~(np.abs(up + down) > floor)     # (outputs, m, n) + trail
         need = lost.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))              # (n,)
         if need.any():
@@ -533,11 +534,36 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
             sub = terms[:, :, need]
             terms[:, :, need] = np.where(lost[:, :, need] & np.isfinite(terms2), terms2, sub)
 
+    # an output that moves the same way on both sides of x (up and down of opposite signs, each
+    # well above rounding) sits at an extremum or a kink of the function between the steps: an
+    # extremum's one-sided differences grow with the square of the step, a kink's (|x|, or the
+    # (|x|)^(1/2) of an inclination at a face-on orbit) at most linearly.  Taken again over
+    # KINK_STEPS times the step, in a second physics call over the systems concerned, a growth below
+    # KINK_STEPS^2 / 4 is a kink: there f has no derivative, the term is NaN and the sigma
+    # undefined (sigma_undefined), not the central difference's meaningless ~0.
+    kink = None
+    turning = (up * down < 0) & (np.abs(up) > floor) & (np.abs(down) > floor)        # (outputs, m, n) + trail
+    if turning.any():
+        need = turning.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))
+        h3 = KINK_STEPS * h[:, need]
+        _, y3 = _stencil(pl, x[:, need], xj[:, need], h3, statics, trail)
+        up3, down3, _, _, _ = _differences(pl, given, y3, m)
+        slow = KINK_STEPS ** 2 / 4
+        sub = turning[:, :, need]
+        kink = np.zeros_like(turning)
+        kink[:, :, need] = sub & (np.abs(up3) < slow * np.abs(up[:, :, need])) & \
+            (np.abs(down3) < slow * np.abs(down[:, :, need]))
+        if kink.any():
+            terms = np.where(kink, np.nan, terms)
+        else:
+            kink = None
+
     def one_sided(terms):
         # one-sided differences where a step left the domain (first order in h, which is
-        # ~1e-5 of the input's scale there: far below what a linear sigma can resolve)
+        # ~1e-5 of the input's scale there: far below what a linear sigma can resolve); a kink stays NaN
         sig = spread.reshape((1, m, n) + ones)
-        return np.where(np.isfinite(terms), terms, np.where(np.isfinite(up), up / hh, down / hh) * sig)
+        filled = np.where(np.isfinite(up), up / hh, down / hh) * sig
+        return np.where(np.isfinite(terms) if kink is None else np.isfinite(terms) | kink, terms, filled)
 
     curvature = None
     if any_wrap:

@@ -167,10 +167,42 @@ def test_monte_carlo_inclination_near_face_on(client, inclination):
 
 @pytest.mark.parametrize("inclination", [0.0, 180.0])
 def test_linear_inclination_exactly_face_on_is_not_a_plain_zero(client, inclination):
-    # i = 0: i ~ (2 |(A - G, B + F)| / a)^(1/2) has an infinite slope; just inside (i = 0.01 deg) the
-    # linear sigma is huge and flagged.  At the edge it must not be a bare 0 without a word.
+    # i = 0: i ~ (2 |(A - G, B + F)| / a)^(1/2), a cone under a square root: no derivative in any
+    # direction, and just inside (i = 0.01 deg) the linear sigma is already meaningless.  At the edge
+    # it must not be a small number without a word: linear propagation has no answer there.
     status, answer = post(client, PATH, request(200.0, inclination, 30.0, 40.0)[0])
     assert status == 200
+    assert answer["results"]["inclination"]["sigma"] is None
+    assert "sigma_undefined" in codes(answer, "inclination")
+    # the Monte Carlo answers it: draws of a face-on orbit have i >= 0, summarised as brute force does
+    body, constants = request(200.0, inclination, 30.0, 40.0,
+                              uncertainty={"method": "monte_carlo", "samples": 20000, "seed": 9})
+    status, answer = post(client, PATH, body)
+    _, i, _, _ = _brute_force(constants, 20000, 10)
+    med, low, high = np.percentile(i, [50, 15.865525393145708, 84.13447460685429])
     got = answer["results"]["inclination"]
-    assert (got["sigma"] is None or got["sigma"] > 0
-            or codes(answer, "inclination") & {"linear_untrustworthy", "sigma_undefined"})
+    assert got["value"] == pytest.approx(med, abs=0.05) and got["sigma"] == pytest.approx(np.std(i), rel=0.03)
+    assert got["low"] == pytest.approx(low, abs=0.05) and got["high"] == pytest.approx(high, abs=0.05)
+
+
+def test_correlation_of_omega_and_node_at_the_node_edge(client):
+    # J Sigma J^T by `uncertainties` on the textbook inversion; the node's fold is no jump in it
+    body, constants = request(200.0, 60.0, 30.0, 0.0, covariance=True)
+    status, answer = post(client, PATH, body)
+    assert status == 200
+    x = [uncertainties.ufloat(v, SIGMA) for v in constants]
+    ref = campbell_reference(*x, atan2=umath.atan2, sqrt=umath.sqrt, acos=umath.acos, degrees=umath.degrees)
+    expected = np.array(uncertainties.correlation_matrix(list(ref)))
+    outputs = answer["correlation"]["outputs"]
+    index = [outputs.index(o) for o in ("angular_semimajor_axis", "inclination", "omega", "node")]
+    np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(index, index)], expected, atol=1e-5)
+    # and by Monte Carlo: np.corrcoef of brute-force draws unwrapped about the nominal pair
+    body["uncertainty"] = {"method": "monte_carlo", "samples": 20000, "seed": 4}
+    status, answer = post(client, PATH, body)
+    a, i, w, n = _brute_force(constants, 20000, 6)
+    n_on_branch = (n + 90.0) % 180.0 - 90.0
+    w_on_branch = (w + (n_on_branch - n) + 180.0 - 30.0) % 360.0 - 180.0 + 30.0
+    expected = np.corrcoef([a, i, w_on_branch, n_on_branch])
+    outputs = answer["correlation"]["outputs"]
+    index = [outputs.index(o) for o in ("angular_semimajor_axis", "inclination", "omega", "node")]
+    np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(index, index)], expected, atol=0.03)
