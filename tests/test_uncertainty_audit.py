@@ -424,3 +424,31 @@ def test_radio_mass_loss_linear(client):
               "mu": (1.3, 0.0), "z_rms": (1.0, 0.0), "gamma_e": (1.0, 0.0), "temperature": (20000.0, 3000.0)}
     linear_check(client, "/v1/winds/mass-loss/radio", values, radio_reference, ["mass_loss_rate", "gaunt_factor"],
                  rel_value=0.02)
+
+
+def sb1_companion_mass(period, k1, eccentricity, primary_mass, inclination):
+    """The root M2 of f(M) = (M2 sin i)^3 / (M1 + M2)^2 (Hilditch 2001, ch. 2), by numpy's polynomial
+    roots: (M2 sin i)^3 - f M2^2 - 2 f M1 M2 - f M1^2 = 0, its one positive real root."""
+    f = period * DAY * (k1 * 1e3) ** 3 * (1 - eccentricity ** 2) ** 1.5 / (2 * np.pi * GM_SUN)
+    s3 = np.sin(np.radians(inclination)) ** 3
+    roots = np.roots([s3, -f, -2 * f * primary_mass, -f * primary_mass ** 2])
+    return float(max(r.real for r in roots if abs(r.imag) < 1e-9 and r.real > 0)), f
+
+
+def test_sb1_companion_mass_linear_against_own_differences(client):
+    values = {"period": (3.4172, 0.0004), "k1": (61.4, 0.9), "eccentricity": (0.05, 0.01), "primary_mass": (1.2, 0.1),
+              "inclination": (63.0, 4.0)}
+    status, got = post(client, "/v1/spectroscopic/sb1", body(values, budget=True))
+    assert status == 200, got
+    x0 = {k: v for k, (v, _) in values.items()}
+    m2, f = sb1_companion_mass(**x0)
+    assert got["results"]["m2"]["value"] == pytest.approx(m2, rel=1e-9)
+    assert got["results"]["mass_function"]["value"] == pytest.approx(f, rel=1e-9)
+    terms = {}
+    for k, (v, s) in values.items():
+        h = 1e-4 * s
+        terms[k] = (sb1_companion_mass(**{**x0, k: v + h})[0] - sb1_companion_mass(**{**x0, k: v - h})[0]) / (2 * h) * s
+    sigma = np.sqrt(sum(t * t for t in terms.values()))
+    assert got["results"]["m2"]["sigma"] == pytest.approx(sigma, rel=1e-5)
+    for k, t in terms.items():
+        assert got["results"]["m2"]["budget"][k] == pytest.approx(t * t / sigma ** 2, rel=1e-4, abs=1e-10), k
