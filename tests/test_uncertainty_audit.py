@@ -452,3 +452,20 @@ def test_sb1_companion_mass_linear_against_own_differences(client):
     assert got["results"]["m2"]["sigma"] == pytest.approx(sigma, rel=1e-5)
     for k, t in terms.items():
         assert got["results"]["m2"]["budget"][k] == pytest.approx(t * t / sigma ** 2, rel=1e-4, abs=1e-10), k
+
+
+def test_monte_carlo_budget_estimates_the_linear_shares_of_a_nearly_linear_case(client):
+    # small errors: the function is nearly linear over them, so holding an input fixed removes its
+    # linear share (df/dx sigma)^2 / var, here by `uncertainties`' derivatives (its error_components)
+    b = body(SB2, budget=True, uncertainty={"method": "monte_carlo", "samples": 20000, "seed": 13})
+    status, got = post(client, "/v1/spectroscopic/sb2", b)
+    assert status == 200, got
+    x = {k: uncertainties.ufloat(v, sd) for k, (v, sd) in SB2.items()}
+    ref = sb2_reference(**x, sin=umath.sin, radians=umath.radians)
+    for name in ("m1", "semimajor_axis"):
+        components = ref[name].error_components()
+        var = ref[name].std_dev ** 2
+        for k, v in x.items():
+            share = components.get(v, 0.0) ** 2 / var
+            # 20,000 draws: a share's sampling error is ~ sqrt(2 / N) ~ 0.01 of the variance
+            assert got["results"][name]["budget"][k] == pytest.approx(share, abs=0.03), (name, k)
