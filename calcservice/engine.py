@@ -151,7 +151,8 @@ def _broadcast(a, shape) -> np.ndarray:
 
 
 def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], float]) -> np.ndarray:
-    """The correlation matrix over ``names``; 422 unless it is positive definite."""
+    """The correlation matrix over ``names``; 422 unless it is positive semi-definite (a correlation of
+    exactly +-1, one input a linear function of another, is a matrix some inputs do have)."""
     m = len(names)
     r = np.eye(m)
     index = {n: k for k, n in enumerate(names)}
@@ -161,11 +162,21 @@ def correlation_matrix(names: list[str], correlations: Mapping[tuple[str, str], 
             r[index[a], index[b]] = r[index[b], index[a]] = rho
             correlated = True
     if correlated:                      # the identity needs no test
-        try:
-            np.linalg.cholesky(r)
-        except np.linalg.LinAlgError:
-            raise EngineError({"correlations": ["the correlation matrix is not positive definite"]}) from None
+        # an eigenvalue below 0 by more than the rounding of the matrix's entries: no inputs have it
+        if np.linalg.eigvalsh(r)[0] < -64 * np.finfo(float).eps * m:
+            raise EngineError({"correlations": ["the correlation matrix is not positive definite, nor semi-definite: "
+                                                "no inputs can have these correlations"]})
     return r
+
+
+def correlation_factor(r: np.ndarray) -> np.ndarray:
+    """A matrix L with L L^T = r: Cholesky's where r is positive definite, else (a correlation of
+    +-1) V diag(lambda)^(1/2) from r's eigenvectors and eigenvalues (those a rounding below 0 as 0)."""
+    try:
+        return np.linalg.cholesky(r)
+    except np.linalg.LinAlgError:
+        w, v = np.linalg.eigh(r)
+        return v * np.sqrt(np.clip(w, 0.0, None))
 
 
 def _wrap(d: np.ndarray, period) -> np.ndarray:
@@ -773,7 +784,7 @@ def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
     r = correlation_matrix(drawn, options.correlations)
     z = rng.standard_normal((n, s, len(drawn)))
     if len(drawn) > 1 and not np.allclose(r, np.eye(len(drawn))):
-        z = z @ np.linalg.cholesky(r).T
+        z = z @ correlation_factor(r).T
     out = {}
     for name, q in quantities.items():
         x = _broadcast(q.value, (n,))[:, None]

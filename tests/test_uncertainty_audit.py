@@ -469,3 +469,40 @@ def test_monte_carlo_budget_estimates_the_linear_shares_of_a_nearly_linear_case(
             share = components.get(v, 0.0) ** 2 / var
             # 20,000 draws: a share's sampling error is ~ sqrt(2 / N) ~ 0.01 of the variance
             assert got["results"][name]["budget"][k] == pytest.approx(share, abs=0.03), (name, k)
+
+
+@pytest.mark.parametrize("rho", [1.0, -1.0])
+def test_a_perfect_correlation_is_one_input_driving_another(client, rho):
+    # rho = +-1: k2 = 51.7 + rho (0.6 / 0.4) (k1 - 38.2), a matrix inputs can have (positive
+    # semi-definite).  Linear: `uncertainties` with k2 a function of k1; Monte Carlo: brute force.
+    values = {k: v for k, v in SB2.items()}
+    b = body(values, correlations=[{"between": ["k1", "k2"], "rho": rho}])
+    status, got = post(client, "/v1/spectroscopic/sb2", b)
+    assert status == 200, got
+    x = {k: uncertainties.ufloat(v, s) for k, (v, s) in values.items()}
+    x["k2"] = 51.7 + rho * 0.6 / 0.4 * (x["k1"] - 38.2)
+    ref = sb2_reference(**x, sin=umath.sin, radians=umath.radians)
+    for name in ("m1", "m2", "mass_ratio", "semimajor_axis"):
+        assert got["results"][name]["sigma"] == pytest.approx(ref[name].std_dev, rel=1e-6), name
+    b["uncertainty"] = {"method": "monte_carlo", "samples": 20000, "seed": 3}
+    status, got = post(client, "/v1/spectroscopic/sb2", b)
+    assert status == 200, got
+    rng = np.random.default_rng(1)
+    n = 200_000
+    draws = {k: v + s * rng.standard_normal(n) for k, (v, s) in values.items()}
+    draws["k2"] = 51.7 + rho * 0.6 / 0.4 * (draws["k1"] - 38.2)
+    ref = sb2_reference(**draws)
+    for name in ("m1", "mass_ratio"):
+        med, low, high = np.percentile(ref[name], [50, LOW, HIGH])
+        width = high - low
+        assert got["results"][name]["value"] == pytest.approx(med, abs=0.03 * width), name
+        assert got["results"][name]["low"] == pytest.approx(low, abs=0.04 * width), name
+        assert got["results"][name]["high"] == pytest.approx(high, abs=0.04 * width), name
+
+
+def test_correlations_no_inputs_can_have_are_refused(client):
+    values = {**SB2}
+    b = body(values, correlations=[{"between": ["k1", "k2"], "rho": 0.9}, {"between": ["k1", "period"], "rho": 0.9},
+                                   {"between": ["k2", "period"], "rho": -0.9}])
+    status, got = post(client, "/v1/spectroscopic/sb2", b)
+    assert status == 422 and "correlations" in got["errors"]
