@@ -9,7 +9,8 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
   correlations, or
 * by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
   when correlated), the user's own samples paired index by index, isotropic
-  orientations (cos i uniform); draws outside an input's domain or giving a
+  orientations (cos i uniform), every system of a call from the same standard variates (so a
+  system's seeded answer is the same alone or anywhere in a batch); draws outside an input's domain or giving a
   non-finite output are rejected and counted; summaries are the median, the standard
   deviation (NaN where a few draws carry most of the spread: :func:`heavy_tailed`, tested from
   ``MIN_DRAWS`` draws on) and the central 68.27 % interval.
@@ -776,13 +777,18 @@ def _asymmetric(name: str) -> Warning:
 
 
 def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
-    """Draws of every quantity, shape (n, s); returns them and the seed used."""
+    """Draws of every quantity, shape (n, s); returns them and the seed used.
+
+    Every system of a call draws from the same standard variates (common random numbers, each
+    system's scaled by its own value and sigmas): a system's answer with a seed is the same alone
+    or in any batch, at any place in it, and a catalogue split into slices with one seed gives
+    the numbers one request would."""
     seed = options.seed if options.seed is not None else secrets.randbelow(2**31)
     rng = np.random.default_rng(seed)
     drawn = [name for name, q in quantities.items()
              if q.samples is None and not q.isotropic and q.uncertain]
     r = correlation_matrix(drawn, options.correlations)
-    z = rng.standard_normal((n, s, len(drawn)))
+    z = rng.standard_normal((1, s, len(drawn)))
     if len(drawn) > 1 and not np.allclose(r, np.eye(len(drawn))):
         z = z @ correlation_factor(r).T
     out = {}
@@ -791,8 +797,8 @@ def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
         if q.samples is not None:
             out[name] = _broadcast(q.samples, (n, s))
         elif q.isotropic:
-            cos_i = rng.uniform(0.0, 1.0, size=(n, s))
-            out[name] = np.degrees(np.arccos(cos_i))
+            cos_i = rng.uniform(0.0, 1.0, size=(1, s))
+            out[name] = _broadcast(np.degrees(np.arccos(cos_i)), (n, s))
         elif name in drawn:
             zj = z[:, :, drawn.index(name)]
             sm = _broadcast(q.sigma_minus, (n,))[:, None]

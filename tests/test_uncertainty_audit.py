@@ -269,6 +269,20 @@ def test_monte_carlo_is_reproducible_with_a_seed(client):
     assert batch["results"][0]["results"] == first["results"]
 
 
+def test_a_system_gets_the_same_monte_carlo_answer_alone_and_anywhere_in_a_batch(client):
+    # with one seed, a system's numbers do not depend on the other systems of the batch or its place
+    u = {"method": "monte_carlo", "samples": 2000, "seed": 5}
+    systems = [{"period": 41.6, "k1": {"value": 38.2, "sigma": 0.4}, "k2": 51.7, "eccentricity": 0.31},
+               {"period": 30.0, "k1": {"value": 30.0, "sigma": 0.4}, "k2": 40.0, "eccentricity": 0.1},
+               {"period": 12.0, "k1": {"value": 61.0, "sigma": 2.0}, "k2": 70.0, "eccentricity": 0.5}]
+    alone = [post(client, "/v1/spectroscopic/sb2", {**one, "uncertainty": u})[1]["results"] for one in systems]
+    status, batch = post(client, "/v1/batch/sb2", {"systems": systems, "uncertainty": u})
+    assert status == 200, batch
+    assert [row["results"] for row in batch["results"]] == alone
+    status, reverse = post(client, "/v1/batch/sb2", {"systems": systems[::-1], "uncertainty": u})
+    assert [row["results"] for row in reverse["results"]] == alone[::-1]
+
+
 def test_eccentricity_draws_crossing_zero_and_one_are_rejected_and_warned(client):
     for e, sigma in ((0.01, 0.02), (0.97, 0.03)):
         b = body({**SB2, "eccentricity": (e, sigma)}, uncertainty={"method": "monte_carlo", "samples": 20000,
