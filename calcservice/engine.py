@@ -10,8 +10,8 @@ and its inputs as :class:`Measured` arrays over N systems, it propagates uncerta
 * by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
   when correlated), the user's own samples paired index by index, isotropic
   orientations (cos i uniform), every system of a call from the same standard variates (so a
-  system's seeded answer is the same alone or anywhere in a batch); draws outside an input's domain or giving a
-  non-finite output are rejected and counted; summaries are the median, the standard
+  system's seeded answer is the same alone or anywhere in a batch); draws outside an input's
+  domain or giving a non-finite output are rejected and counted; summaries are the median, the standard
   deviation (NaN where a few draws carry most of the spread: :func:`heavy_tailed`, tested from
   ``MIN_DRAWS`` draws on) and the central 68.27 % interval.
 
@@ -846,9 +846,9 @@ TAIL_MARGIN_END = 1e6
 # within 7 % (1 / sqrt(2 (N - 1))).  The heavy-tail test needs them too: its top sqrt(s) draws are
 # then 10, which for a lognormal of sigma 1 hold more than 99 % of the squared deviations in 0.1 %
 # of runs, for 1/sin^3 i (isotropic orientations) in about 4 runs in 5 (see heavy_tailed); with
-# fewer, the skewed and the variance-free cannot be told apart.  A request may not ask for fewer; the user's own samples may be fewer (their
-# length is theirs), and so may the draws kept after rejection: these are answered with a few_draws
-# warning and without the heavy-tail test.
+# fewer, the skewed and the variance-free cannot be told apart.  A request may not ask for fewer;
+# the user's own samples may be fewer (their length is theirs), and so may the draws kept after
+# rejection: these are answered with a few_draws warning and without the heavy-tail test.
 MIN_DRAWS = 100
 
 
