@@ -555,6 +555,7 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     # undefined (sigma_undefined), not the central difference's meaningless ~0.
     kink = None
     turning = (up * down < 0) & (np.abs(up) > floor) & (np.abs(down) > floor)        # (outputs, m, n) + trail
+    turning &= (spread > 0).reshape((1, m, n) + ones)                                 # an exact input adds no term
     if turning.any():
         need = turning.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))
         h3 = KINK_STEPS * h[:, need]
