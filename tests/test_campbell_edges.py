@@ -206,3 +206,14 @@ def test_correlation_of_omega_and_node_at_the_node_edge(client):
     outputs = answer["correlation"]["outputs"]
     index = [outputs.index(o) for o in ("angular_semimajor_axis", "inclination", "omega", "node")]
     np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(index, index)], expected, atol=0.03)
+
+
+def test_an_angle_can_only_turn_with_a_wrapping_output():
+    from calcservice.registry import Calculation, Input, Output, register
+    calc = Calculation(name="turns-test", path="/v1/test/turns", title="t", summary="t",
+                       inputs=(Input("x", "deg", "an angle"),),
+                       outputs=(Output("w", "deg", "an angle", period=360.0, turns_with=("n", 180.0)),
+                                Output("n", "deg", "not wrapping")),
+                       function=lambda x, **_: {"w": x, "n": x})
+    with pytest.raises(ValueError, match="turns with n"):
+        register(calc)
