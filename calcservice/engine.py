@@ -267,6 +267,7 @@ def _evaluate(calc, quantities, statics, options) -> Result:
         result = _monte_carlo(calc, quantities, statics, options, n, trail)
     if switched:
         result.warnings.insert(0, Warning(*switched))
+    result.warnings.extend(_idle_correlations(quantities, options, n))
 
     result.nominal_inputs = nominal
     if calc.constraints or calc.check is not None:
@@ -742,6 +743,27 @@ def _no_sigma(name: str, where) -> Warning:
     return Warning("sigma_undefined", "{subject}: the standard deviation of the draws is dominated by a few extreme "
                    "draws (a distribution without a finite variance, e.g. masses from random orientations); "
                    "sigma is not given: use the median and the 68.27 % interval (low, high)", where, name)
+
+
+def _idle_correlations(quantities: Mapping[str, Measured], options: Options, n: int) -> list[Warning]:
+    """A warning for each correlation that cannot act in some systems: one of its inputs is exact
+    there (no sigma) or drawn from isotropic orientations, which no other input's draws follow."""
+    out = []
+    for (a, b), rho in options.correlations.items():
+        if rho == 0 or a not in quantities or b not in quantities:
+            continue
+        idle = np.zeros(n, dtype=bool)
+        for name in (a, b):
+            q = quantities[name]
+            if q.isotropic:
+                idle[:] = True
+            elif q.samples is None:
+                idle |= _broadcast((q.sigma_minus == 0) & (q.sigma_plus == 0), (n,))
+        if idle.any():
+            out.append(Warning("correlation_without_effect", f"the correlation of {a} and {b} has no effect: one of "
+                               "them is given without an uncertainty (or as isotropic orientations, drawn on their "
+                               "own)", idle, None))
+    return out
 
 
 def _few_draws(s: int, sampled: list[str]) -> list[Warning]:

@@ -520,3 +520,17 @@ def test_correlations_no_inputs_can_have_are_refused(client):
                                    {"between": ["k2", "period"], "rho": -0.9}])
     status, got = post(client, "/v1/spectroscopic/sb2", b)
     assert status == 422 and "correlations" in got["errors"]
+
+
+def test_a_correlation_with_an_exact_input_is_said_to_have_no_effect(client):
+    values = {k: v for k, v in SB2.items() if k != "inclination"}
+    b = body(values, correlations=[{"between": ["k1", "inclination"], "rho": 0.5}])
+    b["inclination"] = 71.0
+    status, got = post(client, "/v1/spectroscopic/sb2", b)
+    assert status == 200, got
+    assert "correlation_without_effect" in {w["code"] for w in got["warnings"]}
+    # and the numbers are those without it (`uncertainties`, inclination exact)
+    ref = sb2_uncertain({**values, "inclination": (71.0, 0.0)}, {})
+    assert got["results"]["m1"]["sigma"] == pytest.approx(ref["m1"].std_dev, rel=1e-6)
+    status, got = post(client, "/v1/spectroscopic/sb2", body(SB2, correlations=[{"between": ["k1", "k2"], "rho": 0.5}]))
+    assert "correlation_without_effect" not in {w["code"] for w in got["warnings"]}
