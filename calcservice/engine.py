@@ -189,10 +189,9 @@ def _wrap(d: np.ndarray, period) -> np.ndarray:
 
 def _folds(y: np.ndarray, ref: np.ndarray, period: float) -> np.ndarray:
     """How many periods the physics moved each of ``y`` by to bring it into its range, judged
-    against ``ref`` (the nominal value): y - ref less its reduction to half a period, in periods
-    (0 where either is not finite)."""
-    d = y - np.where(np.isfinite(ref), ref, 0.0)
-    k = np.rint((d - _wrap(d, period)) / period)
+    against ``ref`` (the nominal value): (y - ref) / period to the nearest whole number (0 where
+    either is not finite)."""
+    k = np.rint((y - ref) / period)
     return np.where(np.isfinite(k), k, 0.0)
 
 
@@ -508,11 +507,12 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     contiguous row of systems; everything after it stays within the block, so a long catalogue's
     (outputs x m x n) arrays are never held.
 
-    An input whose |x| is below its sigma is stepped by 1e-5 |x| (:func:`_steps`); where an
+    An input whose |x| is below its sigma is stepped by 1e-5 |x| (:func:`_steps`); where every
     output's difference over that step is lost in the output's own rounding (within ``RESOLVED``
     roundings: an x that is the rounding residue of 0, a sin 180 deg ~ 1e-14, stepped by ~1e-19),
-    the term is taken again over the step of 1e-5 sigma that x = 0 itself gets, in a second physics
-    call over the systems that need it, so the sigma is continuous in x through 0 instead of 0."""
+    its terms are taken again over the step of 1e-5 sigma that x = 0 itself gets, in a second
+    physics call over the systems that need it, so the sigma is continuous in x through 0 instead
+    of 0."""
     n = x.shape[1]
     m = len(pl.rows)
     crosses = xj = h = None
@@ -533,19 +533,25 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     scale = (spread / (2.0 * h)).reshape((1, m, n) + ones)
     terms = (up + down) * scale
 
-    floor = RESOLVED * np.finfo(float).eps * (np.abs(y[:, :1]) + np.where(wraps, period, 0.0))
+    def floor():
+        return RESOLVED * np.finfo(float).eps * (np.abs(y[:, :1]) + np.where(wraps, period, 0.0))
+
     wide = RELATIVE_STEP * spread
-    narrow = (h < wide) & ~pl.time                                                   # (m, n): |x| < sigma
+    # steps tied to |x| well below sigma (h is rounded to what x + h represents: not h < wide)
+    narrow = (h < 0.5 * wide) & ~pl.time                                             # (m, n): |x| < sigma / 2
     if narrow.any():
-        lost = narrow.reshape((1, m, n) + ones) & ~(np.abs(up + down) > floor)     # (outputs, m, n) + trail
-        need = lost.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))              # (n,)
+        # the step is lost where no output resolves it (an output that resolves it shows the step is
+        # one the formula sees; those that do not then do not depend on x to first order)
+        seen = (np.abs(up + down) > floor()).reshape(len(given), m, n, -1).any(axis=(0, 3))   # (m, n)
+        lost = narrow & ~seen
+        need = lost.any(axis=0)                                                      # (n,)
         if need.any():
-            h2 = np.where(narrow, wide, h)[:, need]
+            h2 = np.where(lost, wide, h)[:, need]
             _, y2 = _stencil(pl, x[:, need], xj[:, need], h2, statics, trail)
             up2, down2, _, _, _ = _differences(pl, given, y2, m)
             terms2 = (up2 + down2) * (spread[:, need] / (2.0 * h2)).reshape((1, m, -1) + ones)
-            sub = terms[:, :, need]
-            terms[:, :, need] = np.where(lost[:, :, need] & np.isfinite(terms2), terms2, sub)
+            again = lost[:, need].reshape((1, m, -1) + ones) & np.isfinite(terms2)
+            terms[:, :, need] = np.where(again, terms2, terms[:, :, need])
 
     # an output that moves the same way on both sides of x (up and down of opposite signs, each
     # well above rounding) sits at an extremum or a kink of the function between the steps: an
@@ -555,8 +561,11 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     # KINK_STEPS^2 / 4 is a kink: there f has no derivative, the term is NaN and the sigma
     # undefined (sigma_undefined), not the central difference's meaningless ~0.
     kink = None
-    turning = (up * down < 0) & (np.abs(up) > floor) & (np.abs(down) > floor)        # (outputs, m, n) + trail
-    turning &= (spread > 0).reshape((1, m, n) + ones)                                 # an exact input adds no term
+    turning = up * down < 0                                                          # (outputs, m, n) + trail
+    if turning.any():
+        least = floor()
+        turning &= (np.abs(up) > least) & (np.abs(down) > least)
+        turning &= (spread > 0).reshape((1, m, n) + ones)                             # an exact input adds no term
     if turning.any():
         need = turning.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))
         h3 = KINK_STEPS * h[:, need]
