@@ -143,9 +143,14 @@ class Output:
     """One output: name, canonical unit, description, its formula and the references it comes from.
 
     ``period`` marks an angle that wraps (e.g. 360.0 for a position angle); the engine
-    then takes differences and intervals on the circle.  ``references`` are those of the
-    calculation's references that are the sources of this output's formula (and of the
-    constants in it), so that a report cites each formula by its own sources.
+    then takes differences and intervals on the circle.  ``turns_with`` = (other output, turn)
+    marks an angle folded jointly with another: where the physics takes ``other`` one of its
+    periods on to bring it into its range, this angle turns by ``turn`` (the argument of
+    periastron by 180 deg when the node is folded into [0, 180) deg); the engine undoes the
+    joint fold before it differences or summarises, so the pair moves continuously.
+    ``references`` are those of the calculation's references that are the sources of this
+    output's formula (and of the constants in it), so that a report cites each formula by its
+    own sources.
     """
 
     name: str
@@ -153,12 +158,15 @@ class Output:
     description: str
     formula: str = ""
     period: float | None = None
+    turns_with: tuple[str, float] | None = None
     references: tuple[str, ...] = ()
 
     def as_dict(self) -> dict:
         d = {"name": self.name, "unit": self.unit, "description": self.description, "formula": self.formula}
         if self.period is not None:
             d["period"] = self.period
+        if self.turns_with is not None:
+            d["turns_with"] = {"output": self.turns_with[0], "turn": self.turns_with[1]}
         if self.references:
             d["references"] = list(self.references)
         return d
@@ -271,6 +279,10 @@ def register(calc: Calculation) -> Calculation:
         if wrapping or series:
             raise ValueError(f"{calc.name}: a declared jacobian needs outputs that do not wrap and no series "
                              f"inputs (wrapping: {wrapping}, series: {series}); leave it to finite differences")
+    periods = {o.name: o.period for o in calc.outputs}
+    for o in calc.outputs:
+        if o.turns_with is not None and (o.period is None or periods.get(o.turns_with[0]) is None):
+            raise ValueError(f"{calc.name}: {o.name} turns with {o.turns_with[0]}: both must be wrapping outputs")
     REGISTRY[calc.name] = calc
     return calc
 
