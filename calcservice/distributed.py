@@ -27,8 +27,9 @@ Example (a local cluster; ``Client("tcp://scheduler:8786")`` for a real one)::
 Inputs are in each input's canonical unit (the calculation's declaration says which: days,
 km/s, degrees, ...); a scalar means "the same for every system"; a ``(sigma_minus, sigma_plus)``
 pair of arrays gives asymmetric errors.  A system whose inputs fail a domain or a declared
-constraint has NaN in every output and True in ``failed``.  Monte Carlo chunks draw from seeds
-derived from ``seed`` and the chunk's position, so a result is reproducible for a given chunking.
+constraint has NaN in every output and True in ``failed``.  Monte Carlo chunks all draw with ``seed``: the engine
+draws every system of a call from the same standard variates, so a system's numbers are those of the
+in-process engine (or of one request) with that seed, whatever the chunking.
 Series inputs (e.g. ephemeris times) are not supported here: use the batch endpoint.
 """
 
@@ -142,10 +143,7 @@ def _block(*columns, calc: Calculation, layout, statics, options, seed, summarie
             quantities[nm] = Measured(v, p["sigma_minus"], p["sigma_plus"])
         else:
             quantities[nm] = Measured.exact(v)
-    where = 0 if block_info is None else block_info[0]["chunk-location"][0]
-    # each chunk its own stream of draws, reproducible from (seed, chunk position)
-    chunk_seed = int(np.random.SeedSequence([int(seed), int(where)]).generate_state(1)[0])
-    result = evaluate(calc, quantities, statics, Options(seed=chunk_seed, **options))
+    result = evaluate(calc, quantities, statics, Options(seed=seed, **options))
     if keys is None:
         return [(o.name, key) for o in calc.outputs if o.name in result.outputs for key in result.outputs[o.name]]
     n = len(next(iter(parts.values()))["value"])

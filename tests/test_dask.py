@@ -80,6 +80,24 @@ def test_monte_carlo_chunks_are_reproducible_and_agree_with_linear(client):
     assert np.median(ratio) == pytest.approx(1.0, abs=0.05)
 
 
+def test_monte_carlo_does_not_depend_on_the_chunking(client):
+    # the in-process engine with the same seed is the reference: each system's draws are its own
+    cat = {k: v[:300] for k, v in _catalogue(300).items()}
+    sig = {"period": 0.01, "k1": 0.3, "eccentricity": 0.01}
+    answers = []
+    for chunks in (300, 100, 70):
+        values = {k: da.from_array(cat[k], chunks=chunks) for k in sig}
+        got, failed = evaluate_dask("sb1", values, sig, method="monte_carlo", samples=400, seed=3).compute()
+        assert failed.nonzero()[0].tolist() == [7]             # e = 1.2, failed in place
+        answers.append(got["mass_function"])
+    ok = np.arange(300) != 7
+    ref = evaluate(get("sb1"), {k: Measured.normal(cat[k][ok], s) for k, s in sig.items()},
+                   options=Options(method="monte_carlo", samples=400, seed=3)).outputs["mass_function"]
+    for got in answers:
+        for key in ("value", "sigma", "low", "high"):
+            np.testing.assert_array_equal(got[key][ok], ref[key])
+
+
 def test_refuses_what_it_cannot_spread():
     with pytest.raises(ValueError, match="dask array"):
         evaluate_dask("sb2", {"period": 10.0, "k1": 3.0, "k2": 4.0, "eccentricity": 0.1})
