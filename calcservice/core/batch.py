@@ -127,6 +127,11 @@ class Evaluated:
     groups: list[Group] = field(default_factory=list)
     problems: dict[int, Problem] = field(default_factory=dict)    # system index -> its problem
     seed: int | None = None                                        # the Monte Carlo seed of the batch
+    # each system's form of each input (quantities: ABSENT...; choices: an index into ``levels``),
+    # from which the outputs a failed system would have had are found (:func:`expected_outputs`)
+    forms: dict[str, np.ndarray] = field(default_factory=dict)
+    levels: dict[str, list] = field(default_factory=dict)
+    shared: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -246,6 +251,8 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
         levels[name] = list(distinct)
         codes.append(np.array([distinct[v] for v in values]))
 
+    out.forms = dict(zip([*columns, *choices], codes))
+    out.levels, out.shared = levels, shared
     fast = np.flatnonzero(~slow)
     every = fast.size == n
     codes = [c if every else c[fast] for c in codes]
@@ -564,7 +571,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
         return row
 
     done = evaluate_groups(calc, n, columns, choices, shared, row_body, limits)
-    answer = columns_answer(calc, done)
+    answer = columns_answer(calc, done, limits)
     if shared.get("time_format") == "mjd":
         answer["time_format"] = "mjd"
     return answer
@@ -690,21 +697,83 @@ def _isotropic_entries(spec: Input, items: list, bad: np.ndarray) -> np.ndarray:
     return iso
 
 
-def columns_answer(calc: Calculation, done: Evaluated) -> dict:
+def expected_outputs(calc: Calculation, done: Evaluated, limits: Limits) -> dict[str, tuple]:
+    """The outputs (name -> trailing shape of a series) the failed systems would have had, from the
+    inputs each gave: a columns answer has the same columns whichever systems fail.  Each distinct
+    set of given inputs (a required input, or one of an exactly-one-of group, taken as given) runs
+    once through the engine with NaN for every number: the physics says which outputs it gives."""
+    failed = np.array(sorted(done.problems), dtype=np.int64)
+    if not failed.size:
+        return {}
+    names = list(done.forms)
+    if names:
+        keys = np.stack([np.asarray(done.forms[name])[failed] for name in names], axis=1)
+        keys = np.unique(keys, axis=0).tolist()
+    else:
+        keys = [[]]
+    shapes: dict[str, tuple] = {}
+    for key in keys:
+        form = dict(zip(names, key))
+        given = {name for name in names if name not in done.levels and form[name] != ABSENT}
+        given |= {spec.name for spec in calc.inputs if spec.kind == "quantity" and spec.required
+                  and spec.default is None}
+        for group in calc.exclusive:
+            present = [g for g in group if g in given]
+            given -= set(present[1:])
+            if not present:
+                given.add(group[0])
+        for group in calc.at_most_one:
+            given -= set([g for g in group if g in given][1:])
+        series = {spec.name for spec in calc.inputs if spec.kind == "series"}
+        data = {k: v for k, v in done.shared.items() if k == "time_format" or k in series}
+        nan = np.full(1, np.nan)
+        for name in given:
+            data[name] = RawQuantity(nan, np.zeros(1), np.zeros(1))
+        for name, levels in done.levels.items():
+            spec = calc.input(name)
+            value = levels[form[name]] if form[name] < len(levels) else None
+            if value is None and spec.default is None and spec.kind == "choice" and spec.required:
+                value = spec.choices[0]
+            if value is not None:
+                data[name] = value
+        try:
+            parsed = build(calc, data, limits)
+            result = run(parsed)
+        except Problem:
+            continue
+        for name, entry in result.outputs.items():
+            shapes.setdefault(name, entry["value"].shape[1:])
+        if calc.extra is not None:          # members per system (an ephemeris' events): null columns too
+            with np.errstate(all="ignore"):
+                for extra in calc.extra(parsed.quantities, parsed.statics, parsed.options,
+                                        time_format=parsed.time_format) or []:
+                    shapes.update(dict.fromkeys(set(extra) - set(shapes), None))
+    return shapes
+
+
+def columns_answer(calc: Calculation, done: Evaluated, limits: Limits) -> dict:
     """The columns response; its arrays are numpy float arrays, NaN where a system has no value
-    (null in JSON: the edge's encoder writes non-finite floats so)."""
+    (null in JSON: the edge's encoder writes non-finite floats so).  Its columns do not depend on
+    which systems failed: an output of a failed system is a column of nulls, in the batch's units."""
     n = done.n
     ok = [g for g in done.groups if g.problem is None]
-    units = ok[0].parsed.output_units if ok else {}
-    present = [o for o in calc.outputs if any(o.name in g.result.outputs for g in ok)]
+    units = output_units(calc, done.shared.get("units", {}), {})
+    expected = expected_outputs(calc, done, limits)
+    present = [o for o in calc.outputs if o.name in expected or any(o.name in g.result.outputs for g in ok)]
+    outputs = {o.name for o in calc.outputs}
+    batch_method = (done.shared.get("uncertainty") or {}).get("method", "linear")
+    drawn = batch_method == "monte_carlo" or any(g.result.method == "monte_carlo" for g in ok)
+    members = ("value", "sigma", "low", "high") if drawn else ("value", "sigma")
     # one engine call for the whole catalogue, in order (the usual case): its arrays need no scatter
     whole = ok[0] if len(ok) == 1 and len(ok[0].rows) == n and (ok[0].rows == np.arange(n)).all() else None
     columns: dict[str, dict] = {}
     for o in present:
         unit = units.get(o.name, o.unit)
         k = factor(o.unit, unit) if unit != o.unit else 1.0
-        keys = dict.fromkeys(key for g in ok if o.name in g.result.outputs for key in g.result.outputs[o.name])
-        trail = next(g.result.outputs[o.name]["value"].shape[1:] for g in ok if o.name in g.result.outputs)
+        keys = dict.fromkeys(key for g in ok if o.name in g.result.outputs for key in g.result.outputs[o.name]) \
+            or dict.fromkeys(members)
+        trail = next((g.result.outputs[o.name]["value"].shape[1:] for g in ok if o.name in g.result.outputs),
+                     expected.get(o.name, ()))
         entry: dict[str, Any] = {}
         for key in keys:
             if whole is not None and o.name in whole.result.outputs:
@@ -731,7 +800,7 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
                         values[i] = None
                     entry[key] = values
 
-    extras: dict[str, list] = {}
+    extras: dict[str, list] = {key: [None] * n for key in expected if key not in outputs}
     warned: dict[tuple[str, str, str | None], np.ndarray] = {}
     seeds, samples = set(), set()
     rejected = np.full(n, np.nan)
@@ -758,7 +827,7 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
     for g in ok:
         answered[g.rows] = True
     answered &= ~failed
-    methods = {g.result.method for g in ok if answered[g.rows].any()}
+    methods = {g.result.method for g in ok if answered[g.rows].any()} or {batch_method}
     if len(methods) == 1:
         uncertainty: dict[str, Any] = {"method": methods.pop()}
     else:                                       # a method per system (None where none answered)
@@ -767,9 +836,13 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
             method[g.rows] = g.result.method
         method[~answered] = None
         uncertainty = {"method": method.tolist()}
+    if not seeds and batch_method == "monte_carlo":      # no system answered: the batch's draws
+        unc = done.shared.get("uncertainty") or {}
+        seeds.add(unc.get("seed", done.seed))
+        samples.add(unc.get("samples", limits.default_samples))
     if seeds:
         uncertainty["samples"] = samples.pop() if len(samples) == 1 else sorted(samples)
-        uncertainty["seed"] = seeds.pop() if len(seeds) == 1 else sorted(seeds)
+        uncertainty["seed"] = seeds.pop() if len(seeds) == 1 else sorted(seeds, key=lambda s: (s is None, s))
         uncertainty["rejected_fraction"] = rejected
     response = {
         "calculation": calc.name,
