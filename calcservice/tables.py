@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import io
 import json
+import re
 from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
@@ -166,9 +167,17 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
         if spec.kind != "quantity":
             columns[name] = values.tolist() if isinstance(values, np.ndarray) else values
             continue
-        entry: dict[str, Any] = {"value": _quantity_values(values)}
+        try:
+            entry: dict[str, Any] = {"value": _quantity_values(values, name)}
+        except TableError as e:
+            errors.update(e.errors)
+            continue
         for key, (sigma, sigma_unit, col) in sigmas.get(name, {}).items():
-            sigma = _quantity_values(sigma)
+            try:
+                sigma = _quantity_values(sigma, col)
+            except TableError as e:
+                errors.update(e.errors)
+                continue
             if sigma_unit and sigma_unit != (unit or spec.unit):
                 try:
                     k = factor(sigma_unit, unit or spec.unit)
@@ -202,11 +211,19 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
     return {"columns": columns, **body}
 
 
-def _quantity_values(values):
+def _quantity_values(values, name: str):
     """A quantity's column as floats (NaN: not given) when it holds numbers only; else a list whose
-    numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word."""
+    numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word.
+    A string that Python reads as a number but no table writes as one (``4_1.6``, ``0x10``, non-ASCII
+    digits) is a :class:`TableError` naming the column and its rows: a typo, never silently a number."""
     if isinstance(values, np.ndarray):
         return values
+    texts = [k for k, v in enumerate(values) if type(v) is str]
+    if texts:
+        lenient = [k for k, bad in zip(texts, not_plain_numbers([values[k] for k in texts]).tolist())
+                   if bad and _reads_as_number(values[k])]
+        if lenient:
+            raise lenient_cells(name, lenient, [values[k] for k in lenient])
     if all(v is None or type(v) is str for v in values):      # not booleans: true is no number here
         try:
             return np.array([np.nan if v is None else v for v in values], dtype=float)
@@ -221,6 +238,51 @@ def _quantity_values(values):
                 pass
         out.append(v)
     return out
+
+
+def _reads_as_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+# A number as a table writes one: a sign, ASCII digits, a point, an exponent, ASCII spaces around it
+# (or nan, inf: a missing value, a number that is not finite, each answered in place).  Python's float()
+# and C's strtod read more (underscores between digits, hexadecimal, any script's digits and spaces):
+# in a lab's table those are typos or mangled cells, not numbers.
+_NUMBER_CHARACTERS = "0123456789+-.eE \t"
+_WORDS = np.array(["", "nan", "inf", "infinity"])
+_LENIENT = re.compile(r"0[xX]|[0-9]_|_[0-9]")
+
+
+def not_plain_numbers(texts) -> np.ndarray:
+    """Which cells are not written as plain decimal numbers (or nan, inf); vectorised: what is left
+    of a cell once the characters of a number are stripped from its ends must be empty or a word."""
+    rest = np.char.lower(np.char.strip(np.asarray(texts, dtype=str), _NUMBER_CHARACTERS))
+    return ~np.isin(rest, _WORDS)
+
+
+def lenient_cells(name: str, rows: Sequence[int], texts: Sequence[str]) -> TableError:
+    """The 422 for cells read as numbers only by lenient rules, naming the column and its rows."""
+    shown = "; ".join(f"row {k + 1} (system {k}): {str(t)[:40]!r}" for k, t in zip(rows[:3], texts[:3]))
+    more = f" and {len(rows) - 3} more rows" if len(rows) > 3 else ""
+    message = (f"{shown}{more} is not a number as a table writes one (digits, a point, an exponent): "
+               "an underscore, a hexadecimal prefix or a non-ASCII digit or space is read as a typo")
+    return TableError(422, f"column {name}: {message}", {name: [message]})
+
+
+def _has_lenient_text(lines: list[str], ecsv: bool) -> bool:
+    """Whether a table's data lines (after its header: ``k1_sigma`` is a name) hold anything a lenient
+    number reader would take, checked over the whole text at once before looking cell by cell."""
+    names = next((k for k, line in enumerate(lines) if line.strip() and not (ecsv and line.startswith("#"))),
+                 len(lines))
+    data = "\n".join(lines[names + 1:])
+    if not data.isascii():
+        return True
+    # the regular expression only where its rare characters occur: a substring search is far faster
+    return ("_" in data or "x" in data or "X" in data) and _LENIENT.search(data) is not None
 
 
 def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
@@ -293,12 +355,17 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "
                               "datatype)") from None
     except (InconsistentTableError, ValueError, TypeError, IndexError, AttributeError) as e:
+        failed = re.match(r"column '(.*)' failed to convert", str(e)) if ecsv else None
+        if failed:                  # a cell against its column's declared datatype: say which
+            _check_cells(_text_cells(lines, ecsv), [failed.group(1)], ecsv, declared=True)
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
         if type(e).__module__.startswith(("yaml", "astropy")):
             raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
         raise
     kinds = {spec.name: spec.kind for spec in calc.inputs}
+    if _has_lenient_text(lines, ecsv):
+        _check_numeric_cells(table, lines, ecsv, kinds, keep)
     out = []
     for name in table.colnames:
         col = table[name]
@@ -317,6 +384,51 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
             values = masked.tolist()            # masked entries become None
         out.append((name, values, unit or None))
     return out
+
+
+def _check_numeric_cells(table, lines: list[str], ecsv: bool, kinds: Mapping[str, str], keep: Container[str]) -> None:
+    """Raise the 422 of :func:`lenient_cells` for an input's column astropy read as numbers where a
+    cell is not written as one (CSV: ``0x10`` is 16 to C's strtod; ECSV: ``4_1.6`` is 41.6 to numpy)."""
+    numeric = [name for name in table.colnames if table[name].dtype.kind in "fiu" and name not in keep
+               and column_role((name if ecsv else split_unit(name)[0]), kinds) is not None]
+    if numeric:
+        _check_cells(_text_cells(lines, ecsv), numeric, ecsv)
+
+
+def _text_cells(lines: list[str], ecsv: bool):
+    """The table's cells as text, read again by astropy (only when a cell is in question)."""
+    from astropy.io import ascii
+    from astropy.table import Table
+
+    as_text = {"converters": {"*": [ascii.convert_numpy(str)]}, "guess": False}
+    if ecsv:
+        comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
+        return Table.read([line for line in lines if not line.startswith("#")], format="ascii.basic",
+                          delimiter="," if comma else " ", **as_text)
+    return Table.read(lines, format="ascii.csv", **as_text)
+
+
+def _check_cells(raw, names: Sequence[str], ecsv: bool, declared: bool = False) -> None:
+    """The 422 naming each column of ``names`` and its rows whose text is not a plain number;
+    ``declared``: the ECSV header declares the column numeric, so any other text is refused too."""
+    errors: dict[str, list[str]] = {}
+    for name in names:
+        if name not in raw.colnames:
+            continue
+        cells = np.ma.getdata(raw[name])
+        rows = np.flatnonzero(not_plain_numbers(cells)).tolist()
+        label = name if ecsv else split_unit(name)[0]
+        # astropy read every cell of a column it made numeric; a declared one may hold plain text
+        lenient = [k for k in rows if _reads_as_number(str(cells[k]))] if declared else rows
+        if lenient:
+            errors.update(lenient_cells(label, lenient, [str(cells[k]) for k in lenient[:3]]).errors)
+        elif rows and declared:
+            shown = "; ".join(f"row {k + 1} (system {k}): {str(cells[k])[:40]!r}" for k in rows[:3])
+            more = f" and {len(rows) - 3} more rows" if len(rows) > 3 else ""
+            errors[label] = [f"{shown}{more} is not a number, which the header's datatype for {label} declares"]
+    if errors:
+        raise TableError(422, "cells that are not numbers as written: " +
+                         "; ".join(f"{k}: {' '.join(v)}" for k, v in errors.items()), errors)
 
 
 # ----------------------------------------------------------------------------- request: columns body -> table

@@ -76,3 +76,80 @@ def test_a_failed_system_keeps_the_outputs_of_the_optional_inputs_it_gave(client
     assert r.get_data(as_text=True).splitlines()[0] == (
         "mass_function[solMass],mass_function_sigma[solMass],a1_sin_i[solRad],a1_sin_i_sigma[solRad],"
         "error_status,error,warnings")
+
+
+# ----------------------------------------------------------------------------- cells that are not numbers as written
+
+def _sb1_csv(k1: str, k1_sigma: str = "0.5") -> bytes:
+    # fictional single-lined systems; the first row's cells are the ones under test
+    return (f"period,k1,k1_sigma,eccentricity\n41.6,{k1},{k1_sigma},0.1\n12.5,38.2,0.4,0.31\n").encode()
+
+
+def _sb1_ecsv(k1: str) -> bytes:
+    header = ["# %ECSV 1.0", "# ---", "# datatype:", "# - {name: period, datatype: float64}",
+              "# - {name: k1, unit: km / s, datatype: float64}", "# - {name: eccentricity, datatype: float64}",
+              "# schema: astropy-2.0", "period k1 eccentricity"]
+    return "\n".join(header + [f'41.6 "{k1}" 0.1', "12.5 38.2 0.31"]).encode() + b"\n"
+
+
+def _arrow_strings(k1: str) -> bytes:
+    table = pa.table({"period": [41.6, 12.5], "k1": pa.array([k1, "38.2"], type=pa.string()),
+                      "eccentricity": [0.1, 0.31]})
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, table.schema) as w:
+        w.write_table(table)
+    return sink.getvalue().to_pybytes()
+
+
+@pytest.mark.parametrize("cell", ["0x10", "4_1.6", "1_000", "\uff11\uff12", "\u0661\u0662", "\u00a012"])
+def test_a_cell_python_reads_as_a_number_but_no_table_writes_so_is_refused_naming_column_and_row(client, cell):
+    # Python's float() reads 4_1.6 as 41.6 and C's strtod 0x10 as 16 (PEP 515; C99 7.20.1.3): a lab's
+    # table never means them so
+    bodies = [(tables.CSV, _sb1_csv(cell)), (tables.CSV, _sb1_csv("30", cell)), (tables.CSV, _sb1_ecsv(cell)),
+              (tables.ARROW, _arrow_strings(cell))]
+    for k, (fmt, data) in enumerate(bodies):
+        r = post_table(client, "sb1", data, fmt, accept="application/json")
+        if fmt == tables.ARROW and r.status_code == 200:
+            # a string Python's float() does not take either: that system's error, in place
+            assert [(e["index"], list(e["errors"])) for e in r.get_json()["errors"]] == [(0, ["k1"])]
+            continue
+        assert r.status_code == 422, (k, cell, r.get_json())
+        problem = r.get_json()
+        column = "k1_sigma" if k == 1 else "k1"
+        assert list(problem["errors"]) == [column], problem
+        assert "row 1 (system 0)" in problem["errors"][column][0] and repr(cell) in problem["errors"][column][0]
+
+
+def test_numbers_as_tables_write_them_are_the_numbers_of_a_single_request(client):
+    single = compute("sb1", {"period": 41.6, "k1": {"value": 12.0, "sigma": 0.5}, "eccentricity": 0.1})
+    for cell in (" 12 ", "+12", "12.", "1.2e1", "12.000"):
+        r = post_table(client, "sb1", _sb1_csv(cell), tables.CSV, accept="application/json")
+        assert r.status_code == 200, (cell, r.get_json())
+        got = r.get_json()["columns"]["mass_function"]
+        assert got["value"][0] == single["results"]["mass_function"]["value"], cell
+        assert got["sigma"][0] == single["results"]["mass_function"]["sigma"], cell
+
+
+@pytest.mark.filterwarnings("ignore:OverflowError converting to FloatType")
+@pytest.mark.parametrize("column", ["k1", "k1_sigma"])
+@pytest.mark.parametrize("cell, reason", [("inf", "too large"), ("-inf", "too large"), ("1e999", "too large"),
+                                          ("Infinity", "too large"), ("TRUE", "must be a number"),
+                                          ('"1,5"', "must be a number"), ("nan", None)])
+def test_a_cell_that_is_not_a_finite_number_is_that_systems_error_never_a_number(client, column, cell, reason):
+    data = _sb1_csv(cell) if column == "k1" else _sb1_csv("30", cell)
+    r = post_table(client, "sb1", data, tables.CSV, accept="application/json")
+    assert r.status_code == 200, r.get_json()
+    answer = r.get_json()
+    other = compute("sb1", {"period": 12.5, "k1": {"value": 38.2, "sigma": 0.4}, "eccentricity": 0.31})
+    assert answer["columns"]["mass_function"]["value"][1] == other["results"]["mass_function"]["value"]
+    if column == "k1_sigma" and cell == "nan":
+        # an empty or NaN sigma cell is no sigma given: that system is exact, as in a JSON null
+        exact = compute("sb1", {"period": 41.6, "k1": 30, "eccentricity": 0.1})
+        assert answer["columns"]["mass_function"]["value"][0] == exact["results"]["mass_function"]["value"]
+        assert answer["columns"]["mass_function"]["sigma"][0] == 0.0
+        return
+    assert [e["index"] for e in answer["errors"]] == [0]
+    assert list(answer["errors"][0]["errors"]) == ["k1"]
+    if reason:
+        assert reason in answer["errors"][0]["errors"]["k1"][0]
+    assert answer["columns"]["mass_function"]["value"][0] is None

@@ -652,10 +652,10 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     for _, b in sigmas.values():
         bad |= b
     if "sigma" in sigmas:
-        sm = sp = np.nan_to_num(sigmas["sigma"][0], nan=0.0)
+        sm = sp = np.where(np.isnan(sigmas["sigma"][0]), 0.0, sigmas["sigma"][0])
     elif sigmas:
-        sm = np.nan_to_num(sigmas["sigma_minus"][0], nan=0.0)
-        sp = np.nan_to_num(sigmas["sigma_plus"][0], nan=0.0)
+        sm = np.where(np.isnan(sigmas["sigma_minus"][0]), 0.0, sigmas["sigma_minus"][0])
+        sp = np.where(np.isnan(sigmas["sigma_plus"][0]), 0.0, sigmas["sigma_plus"][0])
         one_sided = np.isnan(sigmas["sigma_minus"][0]) != np.isnan(sigmas["sigma_plus"][0])
         bad |= one_sided
     else:
