@@ -747,7 +747,7 @@ def expected_outputs(calc: Calculation, done: Evaluated, limits: Limits) -> dict
             with np.errstate(all="ignore"):
                 for extra in calc.extra(parsed.quantities, parsed.statics, parsed.options,
                                         time_format=parsed.time_format) or []:
-                    shapes.update(dict.fromkeys(set(extra) - set(shapes), None))
+                    shapes.update(dict.fromkeys([key for key in extra if key not in shapes], None))
     return shapes
 
 
