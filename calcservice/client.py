@@ -37,7 +37,7 @@ import numpy as np
 import orjson
 
 from . import __version__
-from .columns import column_name, column_role, split_unit
+from .columns import column_name, column_role, lenient, lenient_message, split_unit
 
 USER_AGENT = f"calcservice-client/{__version__} (calcservice {__version__}; Python {platform.python_version()})"
 ARROW = "application/vnd.apache.arrow.stream"
@@ -662,8 +662,9 @@ def _unit_of(col) -> str | None:
     return unit.to_string() if hasattr(unit, "to_string") else str(unit)
 
 
-def _to_array(col) -> np.ndarray:
-    """A column as a float array with NaN where missing, or an object array (strings, None where missing)."""
+def _to_array(col, label: str = "column") -> np.ndarray:
+    """A column as a float array with NaN where missing, or an object array (strings, None where missing).
+    A text cell Python reads as a number though no table writes one so (``4_1.6``) is a ValueError."""
     mask = None
     if hasattr(col, "isot") and hasattr(col, "jd"):             # an astropy Time column: ISO 8601 in UTC
         mask = np.asarray(getattr(col, "mask", False))
@@ -672,10 +673,11 @@ def _to_array(col) -> np.ndarray:
             col[mask] = None
         return col
     if type(col).__module__.startswith("pandas"):              # a Series (nullable dtypes: pd.NA is missing)
-        try:
+        # numbers (nullable ones too) as floats; text cells are looked at below, as pandas would
+        # read "4_1.6" as 41.6
+        if getattr(col.dtype, "kind", "O") in "iuf":
             return col.to_numpy(dtype=float, na_value=np.nan)
-        except (TypeError, ValueError):
-            col = col.to_numpy(dtype=object)
+        col = col.to_numpy(dtype=object)
     if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
         mask = np.asarray(col.mask)
         col = col.unmasked
@@ -685,11 +687,18 @@ def _to_array(col) -> np.ndarray:
     if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, Mapping):
         col = col.value
     arr = np.asarray(col)
-    if arr.dtype.kind in "biuf":
+    if arr.dtype.kind == "b" or (arr.dtype.kind == "O" and any(isinstance(v, (bool, np.bool_)) for v in arr.tolist())):
+        raise ValueError(f"{label}: a column of true and false holds no numbers")
+    if arr.dtype.kind in "iuf":
         arr = arr.astype(float)
     elif arr.dtype.kind in "USO":
         # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
-        items = [_number_or_text(_missing_to_none(v)) for v in arr.tolist()]
+        cells = [_missing_to_none(v) for v in arr.tolist()]
+        texts = [k for k, v in enumerate(cells) if isinstance(v, str)]
+        refused = [texts[j] for j in lenient([cells[k] for k in texts])]
+        if refused:
+            raise ValueError(f"{label}: {lenient_message(refused, [cells[k] for k in refused[:3]])}")
+        items = [_number_or_text(v) for v in cells]
         if all(v is None or (isinstance(v, float)) for v in items):
             arr = np.array([np.nan if v is None else v for v in items], dtype=float)
         else:
@@ -882,11 +891,11 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         for member, extra in zip(("sigma", ) if len(parts) == 2 else ("sigma_minus", "sigma_plus"), parts[1:]):
             entry[member] = _sigma_array(label, extra, _unit_of(extra), unit)
     elif isinstance(col, Mapping):       # a contract column object
-        entry = {k: (_to_array(v) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
+        entry = {k: (_to_array(v, label) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
         if "value" not in entry:
             raise ValueError(f"{label}: a column object needs \"value\"")
         return entry
-    values = _to_array(col)
+    values = _to_array(col, label)
     if values.ndim != 1:
         raise ValueError(f"{label}: a column is one value per system (got shape {values.shape})")
     kind = spec.get("kind", "quantity")
@@ -907,7 +916,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
 
 
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
-    arr = _to_array(col)
+    arr = _to_array(col, label)
     if arr.dtype.kind != "f":
         raise ValueError(f"{label}: a sigma column holds numbers")
     arr = np.array(arr, dtype=float)

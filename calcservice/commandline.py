@@ -323,6 +323,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     options: dict[str, Any] = {}
     if fmt == "ascii.csv":
         options = {"encoding": "utf-8-sig", "delimiter": _delimiter(path)}
+        _check_csv_header(path, options["delimiter"])
     elif fmt == "ascii.ecsv" and _has("pandas"):
         # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
         fmt, options = "ecsv", {"engine": "pandas"}
@@ -352,6 +353,9 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
         if inputs[role[0]].kind == "series":
             raise UsageError(role[0], f"{role[0]} is a list for each system and cannot be a column; "
                                       f"give it as {role[0]}=v1,v2,... on the command line")
+    if fmt in ("ascii.csv", "ascii.ecsv", "ecsv"):
+        _check_number_cells(path, table, [name for name in table.colnames if name not in keep],
+                            options.get("delimiter", ","))
     try:
         return InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
     except ValueError as e:
@@ -362,6 +366,40 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
 def _has(module: str) -> bool:
     import importlib.util
     return importlib.util.find_spec(module) is not None
+
+
+def _check_csv_header(path: str, delimiter: str) -> None:
+    """The header check of a CSV body on the HTTP path (:func:`calcservice.tables.check_header`): a
+    column named twice or not at all is refused under the name written, not astropy's ``period_1``."""
+    from .tables import TableError, check_header
+    try:
+        with open(path, encoding="utf-8-sig", errors="replace") as fh:
+            header = next((line for line in fh if line.strip()), "")
+    except OSError:
+        return                      # the reader says what is wrong with the file
+    try:
+        check_header([header], delimiter)
+    except TableError as e:
+        field, messages = next(iter(e.errors.items()))
+        if field == "_body":
+            raise UsageError("--in", f"{' '.join(messages)} ({path})") from None
+        raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
+
+
+def _check_number_cells(path: str, table, names: list[str], delimiter: str) -> None:
+    """The HTTP path's check of a text table's numbers (:func:`calcservice.tables.check_number_cells`):
+    ``0x10`` or ``4_1.6`` in a column astropy read as numbers is refused, naming column and row."""
+    from .tables import TableError, check_number_cells, is_ecsv
+    try:
+        with open(path, encoding="utf-8-sig") as fh:
+            text = fh.read()
+    except (OSError, UnicodeDecodeError):
+        return                      # astropy read it; the numbers cannot be looked at again
+    try:
+        check_number_cells(table, text.splitlines(), is_ecsv(text), names, delimiter)
+    except TableError as e:
+        field, messages = next(iter(e.errors.items()))
+        raise UsageError(field, f"{' '.join(messages)} ({path})") from None
 
 
 def _delimiter(path: str) -> str:

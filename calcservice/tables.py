@@ -31,7 +31,7 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import MEMBERS, column_role, split_unit
+from .columns import MEMBERS, column_role, lenient, lenient_message, not_plain_numbers, split_unit
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -219,11 +219,9 @@ def _quantity_values(values, name: str):
     if isinstance(values, np.ndarray):
         return values
     texts = [k for k, v in enumerate(values) if type(v) is str]
-    if texts:
-        lenient = [k for k, bad in zip(texts, not_plain_numbers([values[k] for k in texts]).tolist())
-                   if bad and _reads_as_number(values[k])]
-        if lenient:
-            raise lenient_cells(name, lenient, [values[k] for k in lenient])
+    refused = [texts[j] for j in lenient([values[k] for k in texts])]
+    if refused:
+        raise lenient_cells(name, refused, [values[k] for k in refused[:3]])
     if all(v is None or type(v) is str for v in values):      # not booleans: true is no number here
         try:
             return np.array([np.nan if v is None else v for v in values], dtype=float)
@@ -240,36 +238,12 @@ def _quantity_values(values, name: str):
     return out
 
 
-def _reads_as_number(text: str) -> bool:
-    try:
-        float(text)
-    except ValueError:
-        return False
-    return True
-
-
-# A number as a table writes one: a sign, ASCII digits, a point, an exponent, ASCII spaces around it
-# (or nan, inf: a missing value, a number that is not finite, each answered in place).  Python's float()
-# and C's strtod read more (underscores between digits, hexadecimal, any script's digits and spaces):
-# in a lab's table those are typos or mangled cells, not numbers.
-_NUMBER_CHARACTERS = "0123456789+-.eE \t"
-_WORDS = np.array(["", "nan", "inf", "infinity"])
 _LENIENT = re.compile(r"0[xX]|[0-9]_|_[0-9]")
-
-
-def not_plain_numbers(texts) -> np.ndarray:
-    """Which cells are not written as plain decimal numbers (or nan, inf); vectorised: what is left
-    of a cell once the characters of a number are stripped from its ends must be empty or a word."""
-    rest = np.char.lower(np.char.strip(np.asarray(texts, dtype=str), _NUMBER_CHARACTERS))
-    return ~np.isin(rest, _WORDS)
 
 
 def lenient_cells(name: str, rows: Sequence[int], texts: Sequence[str]) -> TableError:
     """The 422 for cells read as numbers only by lenient rules, naming the column and its rows."""
-    shown = "; ".join(f"row {k + 1} (system {k}): {str(t)[:40]!r}" for k, t in zip(rows[:3], texts[:3]))
-    more = f" and {len(rows) - 3} more rows" if len(rows) > 3 else ""
-    message = (f"{shown}{more} is not a number as a table writes one (digits, a point, an exponent): "
-               "an underscore, a hexadecimal prefix or a non-ASCII digit or space is read as a typo")
+    message = lenient_message(rows, texts)
     return TableError(422, f"column {name}: {message}", {name: [message]})
 
 
@@ -314,14 +288,15 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     return out
 
 
-def _check_header(lines: list[str]) -> None:
-    """A CSV header's names as written: astropy would call a second ``period`` ``period_1`` and an empty
-    name ``col3``, names the caller never wrote."""
+def check_header(lines: Sequence[str], delimiter: str = ",") -> None:
+    """A CSV header's names as written (the first line that is not blank): astropy would call a second
+    ``period`` ``period_1`` and an empty name ``col3``, names the caller never wrote.  Raises
+    :class:`TableError` (422) naming the column; the HTTP edge and the command line both check so."""
     import csv
     header = next((line for line in lines if line.strip()), None)
     if header is None:
         return
-    names = [name.strip() for name in next(csv.reader([header]))]
+    names = [name.strip() for name in next(csv.reader([header], delimiter=delimiter))]
     errors: dict[str, list[str]] = {}
     for k, name in enumerate(names):
         if not name:
@@ -345,7 +320,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     ecsv = is_ecsv(text)
     lines = text.splitlines()
     if not ecsv:
-        _check_header(lines)
+        check_header(lines)
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
@@ -364,8 +339,8 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
             raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
         raise
     kinds = {spec.name: spec.kind for spec in calc.inputs}
-    if _has_lenient_text(lines, ecsv):
-        _check_numeric_cells(table, lines, ecsv, kinds, keep)
+    check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and
+                                            column_role(name if ecsv else split_unit(name)[0], kinds) is not None])
     out = []
     for name in table.colnames:
         col = table[name]
@@ -386,16 +361,17 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     return out
 
 
-def _check_numeric_cells(table, lines: list[str], ecsv: bool, kinds: Mapping[str, str], keep: Container[str]) -> None:
-    """Raise the 422 of :func:`lenient_cells` for an input's column astropy read as numbers where a
-    cell is not written as one (CSV: ``0x10`` is 16 to C's strtod; ECSV: ``4_1.6`` is 41.6 to numpy)."""
-    numeric = [name for name in table.colnames if table[name].dtype.kind in "fiu" and name not in keep
-               and column_role((name if ecsv else split_unit(name)[0]), kinds) is not None]
-    if numeric:
-        _check_cells(_text_cells(lines, ecsv), numeric, ecsv)
+def check_number_cells(table, lines: Sequence[str], ecsv: bool, names: Sequence[str], delimiter: str = ",") -> None:
+    """Raise a 422 :class:`TableError` naming the column and rows where a column of ``names`` that
+    astropy read as numbers holds a cell not written as one (CSV: ``0x10`` is 16 to C's strtod; ECSV:
+    ``4_1.6`` is 41.6 to numpy).  The text is looked at once for such characters, and the cells read
+    again as text only when it holds some; the HTTP edge and the command line both check so."""
+    numeric = [name for name in names if table[name].dtype.kind in "fiu"]
+    if numeric and _has_lenient_text(list(lines), ecsv):
+        _check_cells(_text_cells(lines, ecsv, delimiter), numeric, ecsv)
 
 
-def _text_cells(lines: list[str], ecsv: bool):
+def _text_cells(lines: Sequence[str], ecsv: bool, delimiter: str = ","):
     """The table's cells as text, read again by astropy (only when a cell is in question)."""
     from astropy.io import ascii
     from astropy.table import Table
@@ -405,7 +381,7 @@ def _text_cells(lines: list[str], ecsv: bool):
         comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
         return Table.read([line for line in lines if not line.startswith("#")], format="ascii.basic",
                           delimiter="," if comma else " ", **as_text)
-    return Table.read(lines, format="ascii.csv", **as_text)
+    return Table.read(list(lines), format="ascii.csv", delimiter=delimiter, **as_text)
 
 
 def _check_cells(raw, names: Sequence[str], ecsv: bool, declared: bool = False) -> None:
@@ -419,9 +395,9 @@ def _check_cells(raw, names: Sequence[str], ecsv: bool, declared: bool = False) 
         rows = np.flatnonzero(not_plain_numbers(cells)).tolist()
         label = name if ecsv else split_unit(name)[0]
         # astropy read every cell of a column it made numeric; a declared one may hold plain text
-        lenient = [k for k in rows if _reads_as_number(str(cells[k]))] if declared else rows
-        if lenient:
-            errors.update(lenient_cells(label, lenient, [str(cells[k]) for k in lenient[:3]]).errors)
+        taken = [rows[j] for j in lenient([str(cells[k]) for k in rows])] if declared else rows
+        if taken:
+            errors.update(lenient_cells(label, taken, [str(cells[k]) for k in taken[:3]]).errors)
         elif rows and declared:
             shown = "; ".join(f"row {k + 1} (system {k}): {str(cells[k])[:40]!r}" for k in rows[:3])
             more = f" and {len(rows) - 3} more rows" if len(rows) > 3 else ""

@@ -153,3 +153,49 @@ def test_a_cell_that_is_not_a_finite_number_is_that_systems_error_never_a_number
     if reason:
         assert reason in answer["errors"][0]["errors"]["k1"][0]
     assert answer["columns"]["mass_function"]["value"][0] is None
+
+
+# ----------------------------------------------------------------------------- the command line and the client read alike
+
+def _cli(capsys, *argv):
+    from calcservice.cli import main
+    code = main(["compute", *argv])
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+@pytest.mark.parametrize("header, field, says", [
+    ("period,k1,period,eccentricity", "period", "the column appears twice"),
+    ("period;k1;k1;eccentricity", "k1", "the column appears twice"),
+    ("period,k1,,eccentricity", "--in", "column 3 of the header has no name"),
+])
+def test_the_command_line_checks_a_csv_header_as_the_service_does(tmp_path, capsys, client, header, field, says):
+    sep = ";" if ";" in header else ","
+    path = tmp_path / "catalogue.csv"
+    path.write_text(header + "\n" + sep.join(["41.6", "30", "5", "0.1"]) + "\n")
+    code, out, err = _cli(capsys, "sb1", "--in", str(path), "--out", str(tmp_path / "out.csv"))
+    assert code != 0 and not out
+    assert err.strip().splitlines() == [f"calcservice compute: {field}: {err.split(': ', 2)[2].strip()}"]
+    assert says in err and str(path) in err
+    # the service says the same of the same header (as comma-separated text)
+    r = post_table(client, "sb1", (header.replace(";", ",") + "\n41.6,30,5,0.1\n").encode(), tables.CSV)
+    assert r.status_code == 422 and says in json.dumps(r.get_json()["errors"])
+
+
+def test_the_command_line_and_the_client_refuse_lenient_numbers_as_the_service_does(tmp_path, capsys):
+    import pandas as pd
+
+    from calcservice.client import Client
+    for sep in (",", ";"):
+        path = tmp_path / "catalogue.csv"
+        path.write_text(sep.join(["period", "k1", "eccentricity"]) + "\n" + sep.join(["41.6", "4_1.6", "0.1"]) +
+                        "\n" + sep.join(["12.5", "38.2", "0.31"]) + "\n")
+        code, out, err = _cli(capsys, "sb1", "--in", str(path), "--out", str(tmp_path / "out.csv"))
+        assert code == 2 and "k1: row 1 (system 0): '4_1.6'" in err, err
+    local = Client("local")
+    frame = pd.DataFrame({"period[d]": [41.6, 12.5], "k1[km/s]": ["4_1.6", "38.2"], "eccentricity": [0.1, 0.31]})
+    with pytest.raises(ValueError, match=r"k1\[km/s\]: row 1 \(system 0\): '4_1.6'"):
+        local.batch("sb1", frame)
+    frame = pd.DataFrame({"period[d]": [41.6, 12.5], "k1[km/s]": [30.0, 38.2], "eccentricity": [True, False]})
+    with pytest.raises(ValueError, match="eccentricity: a column of true and false"):
+        local.batch("sb1", frame)
