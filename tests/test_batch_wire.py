@@ -199,3 +199,72 @@ def test_the_command_line_and_the_client_refuse_lenient_numbers_as_the_service_d
     frame = pd.DataFrame({"period[d]": [41.6, 12.5], "k1[km/s]": [30.0, 38.2], "eccentricity": [True, False]})
     with pytest.raises(ValueError, match="eccentricity: a column of true and false"):
         local.batch("sb1", frame)
+
+
+# ----------------------------------------------------------------------------- the library's numpy columns
+
+def _reference_sb1() -> dict:
+    # fictional single-lined systems as JSON lists, the wire's own form
+    return compute_batch("sb1", {"columns": {"period": {"value": [3.0, 4.0, 7.5], "sigma": [0.1, 0.1, 0.2]},
+                                             "k1": {"value": [40.0, 50.0, 22.0], "sigma": [0.5, 0.4, 0.3]},
+                                             "eccentricity": [0.1, 0.0, 0.3]}})
+
+
+def test_the_library_takes_numpy_columns_as_the_json_lists_they_hold():
+    import pandas as pd
+    from astropy import units as u
+    from uncertainties import unumpy
+
+    reference = _reference_sb1()["columns"]["mass_function"]
+    period, period_sigma = np.array([3.0, 4.0, 7.5]), np.array([0.1, 0.1, 0.2])
+    k1 = np.array([40, 50, 22])                                         # integers
+    forms = [
+        {"period": {"value": period, "sigma": period_sigma}, "k1": {"value": k1, "sigma": np.array([0.5, 0.4, 0.3])},
+         "eccentricity": np.array([0.1, 0.0, 0.3])},
+        {"period": {"value": period * u.d, "sigma": period_sigma * 24 * u.h},   # a sigma in its own unit
+         "k1": {"value": k1 * 1000.0 * u.m / u.s, "sigma": pd.Series([0.5, 0.4, 0.3]), "unit": "km/s"},
+         "eccentricity": pd.Series([0.1, 0.0, 0.3])},
+        {"period": unumpy.uarray(period, period_sigma), "k1": unumpy.uarray(k1, [0.5, 0.4, 0.3]),
+         "eccentricity": [np.float64(0.1), 0.0, 0.3]},
+    ]
+    for k, columns in enumerate(forms):
+        got = compute_batch("sb1", {"columns": columns})
+        assert not got["errors"], (k, got["errors"])
+        # the same doubles (a unit conversion of the sigma: to 1e-15)
+        np.testing.assert_allclose(got["columns"]["mass_function"]["value"], reference["value"], rtol=1e-15, err_msg=k)
+        np.testing.assert_allclose(got["columns"]["mass_function"]["sigma"], reference["sigma"], rtol=1e-12, err_msg=k)
+    # masked entries are missing: that system's error in place, the others answered
+    got = compute_batch("sb1", {"columns": {"period": np.ma.array(period, mask=[0, 1, 0]), "k1": k1,
+                                            "eccentricity": np.array([0.1, 0.0, 0.3])}})
+    assert [(e["index"], list(e["errors"])) for e in got["errors"]] == [(1, ["period"])]
+    exact = compute("sb1", {"period": 7.5, "k1": 22, "eccentricity": 0.3})
+    assert got["columns"]["mass_function"]["value"][2] == exact["results"]["mass_function"]["value"]
+
+
+@pytest.mark.parametrize("column, kind", [(np.array(["3", "4"]), "text"), (np.array([True, False]), "booleans"),
+                                          (np.array([3 + 0j, 4]), "complex"),
+                                          (np.array(["3", None], dtype=object), "text or other objects"),
+                                          (np.array([[3.0, 4.0]]), "2 dimensions")])
+def test_the_library_refuses_an_array_that_holds_no_numbers_naming_the_column(column, kind):
+    with pytest.raises(Problem) as e:
+        compute_batch("sb1", {"columns": {"period": column, "k1": [40.0, 50.0], "eccentricity": 0.1}})
+    assert e.value.status == 422
+    assert list(e.value.errors) == ["columns.period"] and kind in e.value.errors["columns.period"][0]
+    with pytest.raises(Problem) as e:
+        compute_batch("sb1", {"columns": {"period": {"value": [3.0, 4.0], "sigma": column}, "k1": [40.0, 50.0],
+                                          "eccentricity": 0.1}})
+    assert list(e.value.errors) == ["columns.period.sigma"]
+
+
+def test_correlated_uncertainties_numbers_are_refused_not_taken_as_independent():
+    from uncertainties import correlated_values
+
+    from calcservice.client import Client
+    # k1 and k2 correlated with rho 0.5 (uncertainties' correlated_values): one batch-wide rho cannot carry it
+    k1, k2 = correlated_values([40.0, 50.0], np.array([[0.25, 0.1], [0.1, 0.16]]))
+    columns = {"period": [3.0], "k1": np.array([k1]), "k2": np.array([k2]), "eccentricity": 0.1}
+    with pytest.raises(Problem) as e:
+        compute_batch("sb2", {"columns": columns})
+    assert "correlated with those of k2" in e.value.errors["columns.k1"][0]
+    with pytest.raises(ValueError, match="k1: its uncertainties numbers are correlated with those of k2"):
+        Client("local").batch("sb2", columns)

@@ -29,6 +29,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from ..columns import column_array, correlated_columns, uncertain_parts, unit_of
 from ..config import Limits
 from ..engine import EngineError, Measured, Result, correlation_matrix
 from ..registry import Calculation, Input
@@ -519,6 +520,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
     unknown = [k for k in given if k not in {s.name for s in calc.inputs}]
     if unknown:
         raise invalid({f"columns.{k}": [f"{calc.name} has no input {k!r}"] for k in unknown})
+    given = array_columns(calc, given)
     lengths = {}
     for name, raw in given.items():
         if calc.input(name).kind != "series":
@@ -575,6 +577,91 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
     if shared.get("time_format") == "mjd":
         answer["time_format"] = "mjd"
     return answer
+
+
+def _is_array(v) -> bool:
+    """A library caller's array: numpy (masked too), an astropy Quantity or Column, a pandas Series."""
+    return not isinstance(v, (list, tuple, dict, str, bytes)) and hasattr(v, "__array__") and np.ndim(v) >= 1
+
+
+def _number_array(v, where: str) -> np.ndarray:
+    """A library caller's column of numbers as floats, NaN where missing (masked, NaN, None); a column of
+    text, booleans, complex numbers or other objects is refused naming ``where``."""
+    dtype = getattr(v, "dtype", None)
+    kind = getattr(dtype, "kind", "O")
+    why = {"U": "text", "S": "bytes", "b": "booleans", "c": "complex numbers", "M": "dates", "m": "durations"}.get(kind)
+    if why is None and kind == "O" and any(isinstance(x, (str, bytes, bool, np.bool_, complex))
+                                           for x in np.asarray(v).ravel().tolist()):
+        why = "text or other objects"
+    if why is None:
+        try:
+            arr = column_array(v, where)
+        except ValueError as e:
+            raise invalid({where: [str(e).partition(": ")[2] or str(e)]}) from None
+        if arr.dtype.kind == "f" and arr.ndim == 1:
+            return arr
+        why = "text or other objects" if arr.ndim == 1 else f"{arr.ndim} dimensions"
+    raise invalid({where: [f"an array of {why} ({dtype}) is no column of numbers: give floats or integers, one "
+                           "per system (NaN or a masked entry where a system lacks it); text such as "
+                           "'isotropic' goes in a list"]})
+
+
+def array_columns(calc: Calculation, given: dict) -> dict:
+    """A library caller's columns (numpy arrays, masked arrays, Quantities, pandas Series, arrays of
+    ``uncertainties`` numbers, numpy scalars) in the forms the JSON columns take, converted once by
+    the client's own column conversion (:func:`calcservice.columns.column_array`): numbers as float
+    arrays (NaN: not given), a Quantity's unit as the column's, a sigma Quantity in the value's unit."""
+    out: dict[str, Any] = {}
+    uncertain: dict[str, list] = {}
+    for name, raw in given.items():
+        spec = calc.input(name)
+        where = f"columns.{name}"
+        if isinstance(raw, np.generic):
+            raw = raw.item()
+        if spec.kind == "series" and _is_array(raw):
+            values = np.asarray(getattr(raw, "value", raw)).tolist()
+            raw = {"value": values, "unit": unit_of(raw)} if unit_of(raw) else values
+        elif spec.kind != "quantity" and _is_array(raw):
+            arr = np.ma.asarray(np.asarray(raw) if not np.ma.isMaskedArray(raw) else raw)
+            raw = [None if m else v for v, m in zip(arr.data.tolist(), np.ma.getmaskarray(arr).tolist())]
+        elif spec.kind == "quantity" and uncertain_parts(raw) is not None:
+            uncertain[name] = np.asarray(raw).tolist()
+            value, sigma = uncertain_parts(raw)
+            raw = {"value": value, "sigma": sigma}
+        elif _is_array(raw):
+            unit = unit_of(raw)
+            raw = {"value": _number_array(raw, where), **({"unit": unit} if unit else {})}
+        elif isinstance(raw, dict) and any(_is_array(v) or isinstance(v, np.generic) for v in raw.values()):
+            raw = dict(raw)
+            value = raw.get("value")
+            if _is_array(value):
+                own = unit_of(value)
+                arr = _number_array(value, f"{where}.value")
+                if own and raw.get("unit") is None:
+                    raw["unit"] = own
+                elif own:
+                    arr = arr * _factor(own, raw["unit"], f"{where}.value")
+                raw["value"] = arr
+            target = raw.get("unit") or spec.unit
+            for key, v in list(raw.items()):
+                if isinstance(v, np.generic):
+                    raw[key] = v.item()
+                elif key != "value" and _is_array(v):
+                    arr = _number_array(v, f"{where}.{key}")
+                    own = unit_of(v)
+                    raw[key] = arr * _factor(own, target, f"{where}.{key}") if own and own != target else arr
+        out[name] = raw
+    correlated = correlated_columns(uncertain)
+    if correlated:
+        raise invalid({f"columns.{correlated[0]}": [correlated[1]]})
+    return out
+
+
+def _factor(unit: str, target: str, where: str) -> float:
+    try:
+        return factor(unit, target)
+    except UnitError as e:
+        raise invalid({where: [str(e)]}) from None
 
 
 def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column, Callable[[int], Any]]:
