@@ -322,8 +322,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
     if fmt == "ascii.csv":
-        options = {"encoding": "utf-8-sig", "delimiter": _delimiter(path)}
-        _check_csv_header(path, options["delimiter"])
+        options = {"encoding": "utf-8-sig", "delimiter": _check_csv_header(path), "comment": "#"}
     elif fmt == "ascii.ecsv" and _has("pandas"):
         # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
         fmt, options = "ecsv", {"engine": "pandas"}
@@ -368,17 +367,22 @@ def _has(module: str) -> bool:
     return importlib.util.find_spec(module) is not None
 
 
-def _check_csv_header(path: str, delimiter: str) -> None:
-    """The header check of a CSV body on the HTTP path (:func:`calcservice.tables.check_header`): a
-    column named twice or not at all is refused under the name written, not astropy's ``period_1``."""
-    from .tables import TableError, check_header
+def _check_csv_header(path: str) -> str:
+    """A CSV file's delimiter, and its header checked as the HTTP path checks a CSV body
+    (:func:`calcservice.tables.check_csv_text`): a column named twice or not at all is refused under the
+    name written, not astropy's ``period_1``."""
+    from .tables import TableError, check_csv_text
     try:
         with open(path, encoding="utf-8-sig", errors="replace") as fh:
-            header = next((line for line in fh if line.strip()), "")
+            head = []
+            for line in fh:                 # up to the header: blank lines and # comments before it
+                head.append(line.rstrip("\r\n"))
+                if line.strip() and not line.lstrip().startswith("#"):
+                    break
     except OSError:
-        return                      # the reader says what is wrong with the file
+        return ","                  # the reader says what is wrong with the file
     try:
-        check_header([header], delimiter)
+        return check_csv_text(head)
     except TableError as e:
         field, messages = next(iter(e.errors.items()))
         if field == "_body":
@@ -400,16 +404,6 @@ def _check_number_cells(path: str, table, names: list[str], delimiter: str) -> N
     except TableError as e:
         field, messages = next(iter(e.errors.items()))
         raise UsageError(field, f"{' '.join(messages)} ({path})") from None
-
-
-def _delimiter(path: str) -> str:
-    """Comma, semicolon or tab: whichever the header line uses most."""
-    try:
-        with open(path, encoding="utf-8-sig", errors="replace") as fh:
-            header = fh.readline()
-    except OSError:
-        return ","
-    return max((",", ";", "\t"), key=header.count)
 
 
 def run_batch(name: str, body: dict, limits) -> dict:

@@ -250,7 +250,7 @@ def lenient_cells(name: str, rows: Sequence[int], texts: Sequence[str]) -> Table
 def _has_lenient_text(lines: list[str], ecsv: bool) -> bool:
     """Whether a table's data lines (after its header: ``k1_sigma`` is a name) hold anything a lenient
     number reader would take, checked over the whole text at once before looking cell by cell."""
-    names = next((k for k, line in enumerate(lines) if line.strip() and not (ecsv and line.startswith("#"))),
+    names = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")),
                  len(lines))
     data = "\n".join(lines[names + 1:])
     if not data.isascii():
@@ -275,9 +275,15 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
         t = field.type
         if pa.types.is_dictionary(t):
             column, t = column.cast(t.value_type), t.value_type
-        if (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
+        if getattr(pa.types, "is_string_view", lambda _: False)(t):
+            column, t = column.cast(pa.string()), pa.string()
+        if pa.types.is_null(t):             # every entry missing (pyarrow's type for a column of nulls)
+            values = np.full(len(column), np.nan) if kind == "quantity" and field.name not in keep \
+                else [None] * len(column)
+        elif (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
                 and field.name not in keep:
-            values = column.cast(pa.float64()).to_numpy()       # nulls become NaN
+            # nulls become NaN; an integer beyond 2**53 is the nearest double, as a JSON number is
+            values = column.cast(pa.float64(), safe=False).to_numpy()
         elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
                 or pa.types.is_large_string(t) or pa.types.is_boolean(t):
             values = column.to_pylist()
@@ -288,12 +294,23 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     return out
 
 
+def header_line(lines: Sequence[str]) -> str | None:
+    """A CSV table's header: its first line that is neither blank nor a ``#`` comment."""
+    return next((line for line in lines if line.strip() and not line.lstrip().startswith("#")), None)
+
+
+def delimiter(header: str | None) -> str:
+    """A CSV table's delimiter: comma, semicolon or tab, whichever its header uses most (a comma on a
+    tie): a spreadsheet set to a decimal comma writes semicolons."""
+    return max((",", ";", "\t"), key=(header or "").count)
+
+
 def check_header(lines: Sequence[str], delimiter: str = ",") -> None:
-    """A CSV header's names as written (the first line that is not blank): astropy would call a second
+    """A CSV header's names as written (see :func:`header_line`): astropy would call a second
     ``period`` ``period_1`` and an empty name ``col3``, names the caller never wrote.  Raises
     :class:`TableError` (422) naming the column; the HTTP edge and the command line both check so."""
     import csv
-    header = next((line for line in lines if line.strip()), None)
+    header = header_line(lines)
     if header is None:
         return
     names = [name.strip() for name in next(csv.reader([header], delimiter=delimiter))]
@@ -317,14 +334,18 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         text = data.decode("utf-8-sig")         # a spreadsheet's byte order mark is no part of a name
     except UnicodeDecodeError as e:
         raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
+    if "\x00" in text:         # C's reader ends a cell there: what follows would be silently lost
+        line = text.count("\n", 0, text.index("\x00")) + 1
+        raise TableError(400, f"the {'ECSV' if is_ecsv(text) else 'CSV'} body holds a NUL byte (line {line})",
+                         {"_body": [f"a NUL byte on line {line}"]})
     ecsv = is_ecsv(text)
     lines = text.splitlines()
-    if not ecsv:
-        check_header(lines)
+    # lines beginning with # are comments, as in astropy's other text tables (ECSV's header is one)
+    csv_options = {} if ecsv else {"delimiter": check_csv_text(lines), "comment": "#"}
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
-        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "
@@ -371,6 +392,13 @@ def check_number_cells(table, lines: Sequence[str], ecsv: bool, names: Sequence[
         _check_cells(_text_cells(lines, ecsv, delimiter), numeric, ecsv)
 
 
+def check_csv_text(lines: Sequence[str]) -> str:
+    """A CSV table's header checked (:func:`check_header`) and its delimiter (:func:`delimiter`)."""
+    sep = delimiter(header_line(lines))
+    check_header(lines, sep)
+    return sep
+
+
 def _text_cells(lines: Sequence[str], ecsv: bool, delimiter: str = ","):
     """The table's cells as text, read again by astropy (only when a cell is in question)."""
     from astropy.io import ascii
@@ -381,7 +409,7 @@ def _text_cells(lines: Sequence[str], ecsv: bool, delimiter: str = ","):
         comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
         return Table.read([line for line in lines if not line.startswith("#")], format="ascii.basic",
                           delimiter="," if comma else " ", **as_text)
-    return Table.read(list(lines), format="ascii.csv", delimiter=delimiter, **as_text)
+    return Table.read(list(lines), format="ascii.csv", delimiter=delimiter, comment="#", **as_text)
 
 
 def _check_cells(raw, names: Sequence[str], ecsv: bool, declared: bool = False) -> None:

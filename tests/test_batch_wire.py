@@ -268,3 +268,56 @@ def test_correlated_uncertainties_numbers_are_refused_not_taken_as_independent()
     assert "correlated with those of k2" in e.value.errors["columns.k1"][0]
     with pytest.raises(ValueError, match="k1: its uncertainties numbers are correlated with those of k2"):
         Client("local").batch("sb2", columns)
+
+
+# ----------------------------------------------------------------------------- Arrow and CSV bodies a lab sends
+
+def _arrow(table) -> bytes:
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, table.schema) as w:
+        w.write_table(table)
+    return sink.getvalue().to_pybytes()
+
+
+def _answer(client, data, fmt, **kw):
+    r = post_table(client, "sb1", data, fmt, accept="application/json", **kw)
+    assert r.status_code == 200, r.get_data()[:400]
+    return r.get_json()
+
+
+def test_arrow_columns_of_every_numeric_and_text_type_give_the_json_numbers(client):
+    reference = compute("sb1", {"period": 41.6, "k1": 30.0, "eccentricity": 0.1})["results"]["mass_function"]["value"]
+    base = {"period": [41.6, 3.2], "eccentricity": [0.1, 0.2]}
+    columns = [pa.array([30, 40], pa.uint64()), pa.array([30, 40], pa.int8()), pa.array(["30", "40"]).dictionary_encode(),
+               pa.array(["30", "40"], pa.large_string())]
+    if hasattr(pa, "string_view"):
+        columns.append(pa.array(["30", "40"], pa.string_view()))
+    for k1 in columns:
+        answer = _answer(client, _arrow(pa.table({**base, "k1": k1})), tables.ARROW)
+        assert answer["columns"]["mass_function"]["value"][0] == reference, k1.type
+    # an integer beyond 2**53 is the nearest double, as the JSON number would be: here out of k1's domain
+    answer = _answer(client, _arrow(pa.table({**base, "k1": pa.array([2**63 + 5, 40], pa.uint64())})), tables.ARROW)
+    assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["k1"])]
+    # a column of nulls only (pyarrow's null type) is missing in every system, as a float column of nulls
+    for k1 in (pa.array([None, None]), pa.array([None, None], pa.float64())):
+        answer = _answer(client, _arrow(pa.table({**base, "k1": k1})), tables.ARROW)
+        assert [(e["index"], e["errors"]) for e in answer["errors"]] == [(0, {"k1": ["is required"]}),
+                                                                         (1, {"k1": ["is required"]})]
+
+
+def test_csv_comment_lines_semicolons_and_tabs_are_read_as_a_lab_writes_them(client):
+    reference = client.post("/v1/batch/sb1", json={"columns": {"period": [41.6, 3.2], "k1": [30.0, 40.0],
+                                                               "eccentricity": [0.1, 0.2]}}).get_json()["columns"]
+    for text in ("# fictional catalogue, Lantern survey\nperiod,k1,eccentricity\n41.6,30,0.1\n# a note\n3.2,40,0.2\n",
+                 "period;k1;eccentricity\n41.6;30;0.1\n3.2;40;0.2\n",
+                 "period\tk1\teccentricity\r\n41.6\t30\t0.1\r\n3.2\t40\t0.2\r\n"):
+        answer = _answer(client, text.encode(), tables.CSV)
+        assert answer["columns"]["mass_function"] == reference["mass_function"], text
+    # a decimal comma beside semicolons is no number: that system's error, never 41 or 416
+    answer = _answer(client, b"period;k1;eccentricity\n41,6;30;0,1\n3.2;40;0.2\n", tables.CSV)
+    assert [(e["index"], sorted(e["errors"])) for e in answer["errors"]] == [(0, ["eccentricity", "period"])]
+
+
+def test_a_nul_byte_in_a_csv_body_is_refused_not_cut_short(client):
+    r = post_table(client, "sb1", b"period,k1,eccentricity\n41.6,30\x005,0.1\n", tables.CSV)
+    assert r.status_code == 400 and "line 2" in r.get_json()["detail"]
