@@ -342,6 +342,12 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     lines = text.splitlines()
     # lines beginning with # are comments, as in astropy's other text tables (ECSV's header is one)
     csv_options = {} if ecsv else {"delimiter": check_csv_text(lines), "comment": "#"}
+    if not ecsv and keep:
+        # the caller's own columns as written ("0012" is an identifier, not 12): see _kept_text
+        from astropy.io import ascii
+        import csv
+        written = [n.strip() for n in next(csv.reader([header_line(lines) or ""], delimiter=csv_options["delimiter"]))]
+        csv_options["converters"] = {n: [ascii.convert_numpy(str)] for n in written if split_unit(n)[0] in keep}
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
@@ -378,8 +384,25 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
         else:
             values = masked.tolist()            # masked entries become None
+            if not ecsv and name in keep:
+                values = _kept_text(values)
         out.append((name, values, unit or None))
     return out
+
+
+def _kept_text(cells: list) -> list:
+    """A kept CSV column read as text, as numbers where every cell is one written as Python writes it
+    (``101``, ``12.5``: the same text comes back), else as the text sent (``0012``, ``12.50``)."""
+    texts = [c for c in cells if c is not None and c != ""]
+    for kind in (int, float):
+        try:
+            numbers = [kind(t) for t in texts]
+        except ValueError:
+            continue
+        if [repr(x) for x in numbers] == texts:
+            it = iter(numbers)
+            return [None if c is None or c == "" else next(it) for c in cells]
+    return [None if c == "" else c for c in cells]
 
 
 def check_number_cells(table, lines: Sequence[str], ecsv: bool, names: Sequence[str], delimiter: str = ",") -> None:
