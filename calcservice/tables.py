@@ -504,9 +504,12 @@ def encode_answer(response: Mapping, media_type: str, kept: Sequence[tuple[str, 
             raise series_refused(series)
     cols: list[tuple[str, Any, str, str | None]] = [(name, *_kept_values(v), unit) for name, v, unit in kept]
     extras = []
+    budget = response.get("budget") or {}
     for name, entry in response["columns"].items():
         if isinstance(entry, dict) and "value" in entry:
             unit = entry.get("unit") or None
+            if name in budget:          # the shares of its variance by input: NAME_budget_<term> columns
+                entry = {**entry, "budget": budget[name]}
             for key, v in entry.items():
                 if key == "unit":
                     continue
@@ -737,6 +740,7 @@ def decode_answer(data: bytes, media_type: str) -> dict:
     values = {name: (v, unit) for name, v, unit in cols}
     n = len(cols[0][1]) if cols else 0
     columns: dict[str, Any] = {}
+    budget: dict[str, dict[str, Any]] = {}
     uncertainty = dict(meta.get("uncertainty") or {})
     taken = set(ERROR_COLUMNS)
     for name in names:
@@ -758,6 +762,9 @@ def decode_answer(data: bytes, media_type: str) -> dict:
             if other not in taken and other.startswith(name + "_") and (other[len(name) + 1:] in UNIT_KEYS):
                 entry[other[len(name) + 1:]] = values[other][0]
                 taken.add(other)
+            elif other not in taken and other.startswith(name + "_budget_"):
+                budget.setdefault(name, {})[other[len(name) + len("_budget_"):]] = values[other][0]
+                taken.add(other)
         entry["unit"] = unit or ""
         columns[name] = entry
     status = values.get("error_status", (None,))[0]
@@ -773,6 +780,8 @@ def decode_answer(data: bytes, media_type: str) -> dict:
            "warnings": warnings, "uncertainty": uncertainty}
     if "provenance" in meta:
         out["provenance"] = meta["provenance"]
+    if budget:
+        out["budget"] = budget
     return out
 
 

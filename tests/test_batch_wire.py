@@ -334,3 +334,20 @@ def test_a_kept_csv_column_comes_back_as_written(client):
     assert r.get_json()["kept"] == {"hip": [7, 101]}
     csv = client.post("/v1/batch/sb1?keep=hip,code", data=text, content_type="text/csv").get_data(as_text=True)
     assert [line.split(",")[:2] for line in csv.splitlines()[1:]] == [["0012", "12.50"], ["101", ""]]
+
+
+def test_a_variance_budget_asked_of_a_table_answer_comes_in_its_columns(client):
+    # the shares of each output's variance by input (and the k1,period correlation term): as the JSON answer's
+    text = b"period,period_sigma,k1,k1_sigma,eccentricity\n41.6,0.1,30,1,0.1\n3.2,0.01,40,1,0.2\n"
+    options = {"budget": True, "correlations": [{"between": ["k1", "period"], "rho": 0.2}]}
+    reference = _answer(client, text, tables.CSV, options=options)["budget"]
+    assert sorted(reference["mass_function"]) == ["k1", "period", "period,k1"]
+    for fmt in tables.TABLE_TYPES:
+        r = post_table(client, "sb1", text, tables.CSV, options, accept=fmt)
+        assert r.status_code == 200
+        budget = tables.decode_answer(r.data, fmt)["budget"]
+        assert budget.keys() == reference.keys(), fmt
+        for name, terms in reference.items():
+            assert budget[name].keys() == terms.keys(), (fmt, name)
+            for term, shares in terms.items():
+                assert np.array_equal(np.asarray(budget[name][term], dtype=float), np.asarray(shares, dtype=float))
