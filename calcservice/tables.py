@@ -139,9 +139,10 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
                 base, key = role
                 sigmas.setdefault(base, {})[key] = (values, unit, name)
             else:
-                errors[name] = [f"{calc.name} has no input {name!r} (columns: inputs, NAME_sigma, "
-                                f"NAME_sigma_minus, NAME_sigma_plus); a column of your own: ?keep={name} "
-                                "carries it into the answer"]
+                shown = _shown(name)
+                errors[shown] = [f"{calc.name} has no input {shown!r} (columns: inputs, NAME_sigma, "
+                                 f"NAME_sigma_minus, NAME_sigma_plus); a column of your own: ?keep={shown} "
+                                 "carries it into the answer"]
     for base, members in sigmas.items():
         spec = inputs[base]
         for key, (_, _, col) in members.items():
@@ -204,11 +205,22 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
         else:
             body[key] = value
     if errors:
+        listed = sorted(errors.items())
+        more = f"; and {len(listed) - MAX_LISTED} more columns" if len(listed) > MAX_LISTED else ""
         raise TableError(422, "the table's columns do not fit " + calc.name + ": " +
-                         "; ".join(f"{k}: {' '.join(v)}" for k, v in sorted(errors.items())), errors)
+                         "; ".join(f"{k}: {' '.join(v)}" for k, v in listed[:MAX_LISTED]) + more,
+                         dict(listed[:MAX_LISTED]))
     if not columns:
         raise TableError(422, "the table has no columns", {"_table": ["give one column per input"]})
     return {"columns": columns, **body}
+
+
+MAX_LISTED = 20         # a table of thousands of unknown columns is answered with the first few
+
+
+def _shown(name: str) -> str:
+    """A caller's column name as an error echoes it: at most 80 characters (as for JSON field names)."""
+    return name if len(name) <= 80 else name[:79] + "…"
 
 
 def _quantity_values(values, name: str):

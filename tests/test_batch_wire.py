@@ -351,3 +351,13 @@ def test_a_variance_budget_asked_of_a_table_answer_comes_in_its_columns(client):
             assert budget[name].keys() == terms.keys(), (fmt, name)
             for term, shares in terms.items():
                 assert np.array_equal(np.asarray(budget[name][term], dtype=float), np.asarray(shares, dtype=float))
+
+
+def test_unknown_columns_are_echoed_shortly_and_a_few_at_a_time(client):
+    # a caller's unknown name is echoed in at most 80 characters, as for a JSON field (README, Limits)
+    r = post_table(client, "sb1", ("period,k1,eccentricity," + "x" * 5000 + "\n41.6,30,0.1,1\n").encode(), tables.CSV)
+    assert r.status_code == 422 and len(r.data) < 2000
+    assert [len(k) for k in r.get_json()["errors"]] == [80]
+    header = ",".join(f"c{k}" for k in range(3000))
+    r = post_table(client, "sb1", (header + "\n" + ",".join("1" * 3000) + "\n").encode(), tables.CSV)
+    assert r.status_code == 422 and len(r.get_json()["errors"]) == 20 and "and 2980 more columns" in r.get_json()["detail"]
