@@ -241,6 +241,15 @@ def test_the_library_takes_numpy_columns_as_the_json_lists_they_hold():
     assert got["columns"]["mass_function"]["value"][2] == exact["results"]["mass_function"]["value"]
 
 
+def test_the_library_takes_each_systems_own_draws_as_a_numpy_array():
+    # an orbit fit's posterior draws, (systems, draws): the same answer as the JSON lists of lists
+    draws = np.random.default_rng(1).normal(40.0, 1.0, (2, 200))
+    columns = {"period": 3.0, "eccentricity": 0.1}
+    listed = compute_batch("sb1", {"columns": {**columns, "k1": {"samples": draws.tolist()}}})
+    arrays = compute_batch("sb1", {"columns": {**columns, "k1": {"samples": draws}}})
+    assert not arrays["errors"] and arrays["columns"]["mass_function"] == listed["columns"]["mass_function"]
+
+
 @pytest.mark.parametrize("column, kind", [(np.array(["3", "4"]), "text"), (np.array([True, False]), "booleans"),
                                           (np.array([3 + 0j, 4]), "complex"),
                                           (np.array(["3", None], dtype=object), "text or other objects"),

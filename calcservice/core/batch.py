@@ -646,6 +646,14 @@ def array_columns(calc: Calculation, given: dict) -> dict:
             for key, v in list(raw.items()):
                 if isinstance(v, np.generic):
                     raw[key] = v.item()
+                elif key == "samples" and _is_array(v):     # each system's draws, (systems, draws)
+                    own = unit_of(v)
+                    if own and raw.get("unit") is None:
+                        raw["unit"] = own
+                    draws = np.asarray(getattr(v, "value", v))
+                    if draws.dtype.kind not in "iuf":
+                        raise invalid({f"{where}.samples": [f"draws are numbers, not {draws.dtype}"]})
+                    raw[key] = draws.astype(float).tolist()
                 elif key != "value" and _is_array(v):
                     arr = _number_array(v, f"{where}.{key}")
                     own = unit_of(v)
