@@ -516,6 +516,8 @@ def encode_answer(response: Mapping, media_type: str, kept: Sequence[tuple[str, 
             raise series_refused(series)
     cols: list[tuple[str, Any, str, str | None]] = [(name, *_kept_values(v), unit) for name, v, unit in kept]
     extras = []
+    failed_rows = np.zeros(n, dtype=bool)
+    failed_rows[[int(p["index"]) for p in response.get("errors", [])]] = True
     budget = response.get("budget") or {}
     for name, entry in response["columns"].items():
         if isinstance(entry, dict) and "value" in entry:
@@ -529,7 +531,10 @@ def encode_answer(response: Mapping, media_type: str, kept: Sequence[tuple[str, 
                 if isinstance(v, dict):             # e.g. terms of a variance budget: a column each
                     cols.extend((f"{col}_{term}", *_answer_values(a), None) for term, a in v.items())
                 else:
-                    cols.append((col, *_answer_values(v), unit if key in UNIT_KEYS else None))
+                    values, kind = _answer_values(v)
+                    if kind == "series" and isinstance(values, np.ndarray):
+                        values = (values, failed_rows)      # a failed system's series is null
+                    cols.append((col, values, kind, unit if key in UNIT_KEYS else None))
         else:                                       # a member per system (an ephemeris' events): JSON text
             extras.append((name, [None if x is None else json.dumps(x, separators=(",", ":")) for x in entry],
                            "json", None))
@@ -680,6 +685,10 @@ def _arrow_array(pa, v, kind: str):
         null = np.isnan(v)
         return pa.array(v, mask=null) if null.any() else pa.array(v)
     if kind == "series":
+        if isinstance(v, tuple):                    # (systems, points) and the failed systems' rows
+            v, failed = v
+            flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
+            return pa.FixedSizeListArray.from_arrays(flat, v.shape[1], mask=pa.array(failed) if failed.any() else None)
         if isinstance(v, np.ndarray):
             flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
             return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
@@ -809,8 +818,12 @@ def _decode_arrow(data: bytes):
         t = field.type
         if pa.types.is_floating(t):
             v = column.to_numpy()
-        elif pa.types.is_fixed_size_list(t) and column.null_count == 0:
-            v = column.combine_chunks().flatten().to_numpy(zero_copy_only=False).reshape(len(column), t.list_size)
+        elif pa.types.is_fixed_size_list(t):
+            # (systems, points); a failed system's null series is a row of NaN, as null numbers are
+            whole = column.combine_chunks()
+            v = whole.values.to_numpy(zero_copy_only=False).astype(float).reshape(len(column), t.list_size)
+            if whole.null_count:
+                v[whole.is_null().to_numpy(zero_copy_only=False)] = np.nan
         else:
             v = column.to_pylist()
         cols.append((field.name, v, unit))

@@ -61,6 +61,21 @@ def test_a_batch_whose_every_system_fails_has_the_columns_of_one_that_succeeds(c
         schemas = [pa.ipc.open_stream(r.data).read_all().schema for r in answers]
         assert schemas[0].names == schemas[1].names
         assert [f.metadata for f in schemas[0]] == [f.metadata for f in schemas[1]]
+        assert schemas[0].types == schemas[1].types             # a series stays a list of its points
+
+
+def test_an_arrow_series_column_has_one_type_whichever_systems_fail(client):
+    body = {"columns": {"period": [10.0, 12.0], "omega": [30.0, 40.0], "t_periastron": [2460000.5, 2460001.5],
+                        "k1": [30.0, 40.0], "times": [2460400.5, 2460500.5, 2460600.5]}}
+    types = []
+    for eccentricity in ([0.1, 0.2], [0.1, 1.2], [1.1, 1.2]):
+        body["columns"]["eccentricity"] = eccentricity
+        r = client.post("/v1/batch/ephemeris", json=body, headers={"Accept": tables.ARROW})
+        table = pa.ipc.open_stream(r.data).read_all()
+        types.append(table.schema.field("rv1").type)
+        failed = [e >= 1 for e in eccentricity]
+        assert [x is None for x in table.column("rv1").to_pylist()] == failed
+    assert types == [pa.list_(pa.float64(), 3)] * 3
 
 
 def test_a_failed_system_keeps_the_outputs_of_the_optional_inputs_it_gave(client):

@@ -50,11 +50,14 @@ _BAD = object()
 ABSENT, EXACT, NORMAL, ASYMMETRIC, ISOTROPIC = 0, 1, 2, 3, 4
 
 
-def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False) -> dict:
+def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False,
+                  series_arrays: bool = False) -> dict:
     """A batch request (rows or columns) to its answer; raises :class:`Problem` only for the batch
     as a whole (unknown calculation, malformed body, a bad batch-wide option, limits).  ``for_json``:
     the answer goes straight to a numpy-aware encoder, so the columns of a columns answer stay numpy
-    float arrays, NaN where a system has no value; otherwise lists with None, as the JSON reads."""
+    float arrays, NaN where a system has no value; otherwise lists with None, as the JSON reads.
+    ``series_arrays``: a series output stays an array (systems, points), NaN in a failed system's row,
+    for a table whose list column has one type whichever systems fail (JSON gives that system null)."""
     calc = find(name)
     limits = limits or Limits()
     if not isinstance(body, dict):
@@ -67,7 +70,7 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: 
         raise invalid({k: ["unknown field"] for k in sorted(unknown)})
     if "systems" in body:
         return compute_rows(calc, body, limits)
-    response = compute_columns(calc, body, limits)
+    response = compute_columns(calc, body, limits, series_arrays)
     if not for_json:
         for entry in response["columns"].values():
             if isinstance(entry, dict):
@@ -512,7 +515,7 @@ def _column_length(name: str, raw) -> int | None:
     return None
 
 
-def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
+def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays: bool = False) -> dict:
     """``{"columns": {...}}`` to ``{"columns": {output: {"value": [...], ...}}, "errors": [...]}``."""
     given = body["columns"]
     if not isinstance(given, dict) or not given:
@@ -573,7 +576,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
         return row
 
     done = evaluate_groups(calc, n, columns, choices, shared, row_body, limits)
-    answer = columns_answer(calc, done, limits)
+    answer = columns_answer(calc, done, limits, series_arrays)
     if shared.get("time_format") == "mjd":
         answer["time_format"] = "mjd"
     return answer
@@ -846,7 +849,7 @@ def expected_outputs(calc: Calculation, done: Evaluated, limits: Limits) -> dict
     return shapes
 
 
-def columns_answer(calc: Calculation, done: Evaluated, limits: Limits) -> dict:
+def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_arrays: bool = False) -> dict:
     """The columns response; its arrays are numpy float arrays, NaN where a system has no value
     (null in JSON: the edge's encoder writes non-finite floats so).  Its columns do not depend on
     which systems failed: an output of a failed system is a column of nulls, in the batch's units."""
@@ -888,7 +891,7 @@ def columns_answer(calc: Calculation, done: Evaluated, limits: Limits) -> dict:
         for key, arr in entry.items():
             if key != "unit":
                 arr[failed] = np.nan            # numpy arrays: the JSON encoder writes NaN as null
-                if arr.ndim > 1 and done.problems:
+                if arr.ndim > 1 and done.problems and not series_arrays:
                     # a failed system's series is null, not a list of nulls
                     values = clean_array(arr)
                     for i in done.problems:
