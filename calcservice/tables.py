@@ -275,7 +275,10 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     import pyarrow as pa
 
     try:
-        table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
+        if data[:6] == b"ARROW1":       # the IPC file format (what Feather 2 writes): read as well
+            table = pa.ipc.open_file(pa.py_buffer(data)).read_all()
+        else:
+            table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
         raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
     kinds = {spec.name: spec.kind for spec in calc.inputs}

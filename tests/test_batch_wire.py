@@ -385,3 +385,14 @@ def test_unknown_columns_are_echoed_shortly_and_a_few_at_a_time(client):
     header = ",".join(f"c{k}" for k in range(3000))
     r = post_table(client, "sb1", (header + "\n" + ",".join("1" * 3000) + "\n").encode(), tables.CSV)
     assert r.status_code == 422 and len(r.get_json()["errors"]) == 20 and "and 2980 more columns" in r.get_json()["detail"]
+
+
+def test_an_arrow_ipc_file_is_read_as_the_stream_would_be(client):
+    # pyarrow.feather.write_feather writes the IPC file format (compressed by default), not the stream
+    import pyarrow.feather as feather
+    table = pa.table({"period": [41.6, 3.2], "k1": [30.0, 40.0], "eccentricity": [0.1, 0.2]})
+    sink = pa.BufferOutputStream()
+    feather.write_feather(table, sink)
+    as_file = _answer(client, sink.getvalue().to_pybytes(), tables.ARROW)
+    as_stream = _answer(client, _arrow(table), tables.ARROW)
+    assert as_file["columns"] == as_stream["columns"] and not as_file["errors"]
