@@ -85,6 +85,13 @@ def test_a_failed_system_keeps_the_outputs_of_the_optional_inputs_it_gave(client
     answer = client.post("/v1/batch/sb1", json=body).get_json()
     assert [e["index"] for e in answer["errors"]] == [1]
     assert answer["columns"]["m2_min"] == {"value": [None, None], "sigma": [None, None], "unit": "solMass"}
+    # an optional input given unreadably (a word, a sigma without its value) is given all the same
+    for primary_mass in (["heavy", "heavy"], {"value": [None, None], "sigma": [0.1, 0.1]}):
+        body = {"columns": {"period": [3.0, 4.0], "k1": [40.0, 50.0], "eccentricity": [0.1, 0.2],
+                            "primary_mass": primary_mass}}
+        answer = client.post("/v1/batch/sb1", json=body).get_json()
+        assert [e["index"] for e in answer["errors"]] == [0, 1]
+        assert sorted(answer["columns"]) == ["a1_sin_i", "m2_min", "mass_function"]
     text = "period,k1,eccentricity\n3,40,1.5\n4,50,2\n"
     r = post_table(client, "sb1", text.encode(), tables.CSV, {"units": {"a1_sin_i": "solRad"}})
     assert r.status_code == 200

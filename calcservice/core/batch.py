@@ -244,6 +244,8 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
             converted[name] = (x, sm, sp)
             code = np.where(sm != sp, ASYMMETRIC, np.where(sm > 0, NORMAL, EXACT))
             codes.append(np.where(given, np.where(iso, ISOTROPIC, code), ABSENT))
+            # given, even where unreadable: its outputs are columns of the answer all the same
+            out.forms[name] = np.where(given | c.slow, EXACT, ABSENT)
     levels: dict[str, list] = {}
     for name, ch in choices.items():
         spec = calc.input(name)
@@ -254,8 +256,8 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
         distinct = {v: j for j, v in enumerate(dict.fromkeys(values))}
         levels[name] = list(distinct)
         codes.append(np.array([distinct[v] for v in values]))
+        out.forms[name] = np.where(ch.slow, len(distinct), codes[-1])     # an unreadable choice: past the levels
 
-    out.forms = dict(zip([*columns, *choices], codes))
     out.levels, out.shared = levels, shared
     fast = np.flatnonzero(~slow)
     every = fast.size == n
