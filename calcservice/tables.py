@@ -250,7 +250,11 @@ def _quantity_values(values, name: str):
     return out
 
 
-_LENIENT = re.compile(r"0[xX]|[0-9]_|_[0-9]")
+# a literal first, so that the search runs at C speed over the text: "_" then a digit (is a digit before
+# it? 4_1.6, not HD_1234), "0x" (at a cell's start? 0x10, not 1.0x)
+_UNDERSCORE = re.compile(r"_[0-9]")
+_HEX = re.compile(r"0[xX]")
+_CELL_START = ',;\t "+-\n'
 
 
 def lenient_cells(name: str, rows: Sequence[int], texts: Sequence[str]) -> TableError:
@@ -260,15 +264,21 @@ def lenient_cells(name: str, rows: Sequence[int], texts: Sequence[str]) -> Table
 
 
 def _has_lenient_text(lines: list[str], ecsv: bool) -> bool:
-    """Whether a table's data lines (after its header: ``k1_sigma`` is a name) hold anything a lenient
-    number reader would take, checked over the whole text at once before looking cell by cell."""
+    """Whether a table's data lines (after its header: ``k1_sigma`` is a name) may hold a cell a lenient
+    number reader would take (``4_1.6``, ``0x10``, a non-ASCII digit or space), looked for over the whole
+    text at once before any cell is: names such as HD_1234 or α Cen do not count."""
     names = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")),
                  len(lines))
     data = "\n".join(lines[names + 1:])
     if not data.isascii():
+        # the characters outside ASCII, once each: their UTF-8 bytes in order decode to them
+        raw = np.frombuffer(data.encode("utf-8"), dtype=np.uint8)
+        if any(c.isdigit() or c.isspace() for c in set(raw[raw >= 0x80].tobytes().decode("utf-8", "ignore"))):
+            return True
+    if "_" in data and any(data[m.start() - 1].isdigit() for m in _UNDERSCORE.finditer(data) if m.start()):
         return True
-    # the regular expression only where its rare characters occur: a substring search is far faster
-    return ("_" in data or "x" in data or "X" in data) and _LENIENT.search(data) is not None
+    return ("x" in data or "X" in data) and \
+        any(m.start() == 0 or data[m.start() - 1] in _CELL_START for m in _HEX.finditer(data))
 
 
 def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
