@@ -384,7 +384,12 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     except (InconsistentTableError, ValueError, TypeError, IndexError, AttributeError) as e:
         failed = re.match(r"column '(.*)' failed to convert", str(e)) if ecsv else None
         if failed:                  # a cell against its column's declared datatype: say which
-            _check_cells(_text_cells(lines, ecsv), [failed.group(1)], ecsv, declared=True)
+            try:
+                cells = _text_cells(lines, ecsv)
+            except Exception:       # noqa: BLE001 - the first reader's error below says what is wrong
+                cells = None
+            if cells is not None:
+                _check_cells(cells, [failed.group(1)], ecsv, declared=True)
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
         if type(e).__module__.startswith(("yaml", "astropy")):
@@ -437,7 +442,11 @@ def check_number_cells(table, lines: Sequence[str], ecsv: bool, names: Sequence[
     again as text only when it holds some; the HTTP edge and the command line both check so."""
     numeric = [name for name in names if table[name].dtype.kind in "fiu"]
     if numeric and _has_lenient_text(list(lines), ecsv):
-        _check_cells(_text_cells(lines, ecsv, delimiter), numeric, ecsv)
+        try:
+            cells = _text_cells(lines, ecsv, delimiter)
+        except Exception as e:      # noqa: BLE001 - astropy's readers raise many kinds; the text is at fault
+            raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
+        _check_cells(cells, numeric, ecsv)
 
 
 def check_csv_text(lines: Sequence[str]) -> str:
