@@ -312,6 +312,12 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
         elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
                 or pa.types.is_large_string(t) or pa.types.is_boolean(t):
             values = column.to_pylist()
+        elif field.name in keep and not pa.types.is_nested(t):
+            # the caller's own column (an observation date, a decimal, bytes): as Arrow writes it as text
+            try:
+                values = column.cast(pa.string()).to_pylist()
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+                values = [None if x is None else str(x) for x in column.to_pylist()]
         else:
             raise TableError(422, f"column {field.name} is of type {t}; give numbers or strings, one per system",
                              {field.name: [f"a column of numbers or strings, not {t}"]})

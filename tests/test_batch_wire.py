@@ -477,3 +477,16 @@ def _answer_of(client, name, data, fmt, options):
                     query_string={"options": json.dumps(options)} if options else None)
     assert r.status_code == 200, r.get_data()[:300]
     return r.get_json()
+
+
+def test_a_kept_arrow_column_of_dates_or_decimals_comes_back_as_its_text(client):
+    # an observation date or a decimal magnitude of the caller's own: carried, not refused
+    import datetime
+    import decimal
+    table = pa.table({"period": [41.6, 3.2], "k1": [30.0, 40.0], "eccentricity": [0.1, 0.2],
+                      "observed": pa.array([datetime.datetime(2024, 3, 1, 12), None]),
+                      "vmag": pa.array([decimal.Decimal("7.50"), decimal.Decimal("11.25")], pa.decimal128(5, 2))})
+    r = client.post("/v1/batch/sb1?keep=observed,vmag", data=_arrow(table), content_type=tables.ARROW,
+                    headers={"Accept": "application/json"})
+    assert r.status_code == 200, r.get_json()
+    assert r.get_json()["kept"] == {"observed": ["2024-03-01 12:00:00.000000", None], "vmag": ["7.50", "11.25"]}
