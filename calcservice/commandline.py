@@ -323,6 +323,9 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     options: dict[str, Any] = {}
     if fmt == "ascii.csv":
         options = {"encoding": "utf-8-sig", "delimiter": _check_csv_header(path), "comment": "#"}
+        if keep:                    # the kept columns as written, as the service reads them (tables.kept_text)
+            from astropy.io import ascii
+            options["converters"] = {name: [ascii.convert_numpy(str)] for name in keep}
     elif fmt == "ascii.ecsv" and _has("pandas"):
         # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
         fmt, options = "ecsv", {"engine": "pandas"}
@@ -338,6 +341,8 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
                                  f"{reason}") from None
     if len(table) == 0:
         raise UsageError("--in", f"{path} has a header but no rows")
+    if fmt == "ascii.csv":
+        _kept_as_written(table, keep)
     absent = [name for name in keep if name not in table.colnames]
     if absent:
         raise UsageError("--keep", f"{path} has no column {absent[0]!r}")
@@ -388,6 +393,23 @@ def _check_csv_header(path: str) -> str:
         if field == "_body":
             raise UsageError("--in", f"{' '.join(messages)} ({path})") from None
         raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
+
+
+def _kept_as_written(table, keep) -> None:
+    """A CSV's kept columns, read as text, as the service gives them back (:func:`calcservice.tables.kept_text`):
+    ``0012`` stays text, ``101`` a whole number; masked where empty."""
+    from astropy.table import MaskedColumn
+
+    from .tables import kept_text
+    for name in keep:
+        if name not in table.colnames:
+            continue
+        cells = [None if c is np.ma.masked or c is None else str(c) for c in np.ma.asarray(table[name]).tolist()]
+        values = kept_text(cells)
+        missing = [v is None for v in values]
+        kinds = {type(v) for v in values} - {type(None)}
+        fill = 0 if kinds <= {int} else (0.0 if kinds <= {int, float} else "")
+        table[name] = MaskedColumn([fill if v is None else v for v in values], mask=missing)
 
 
 def _check_number_cells(path: str, table, names: list[str], delimiter: str) -> None:

@@ -374,7 +374,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     # lines beginning with # are comments, as in astropy's other text tables (ECSV's header is one)
     csv_options = {} if ecsv else {"delimiter": check_csv_text(lines), "comment": "#"}
     if not ecsv and keep:
-        # the caller's own columns as written ("0012" is an identifier, not 12): see _kept_text
+        # the caller's own columns as written ("0012" is an identifier, not 12): see kept_text
         from astropy.io import ascii
         import csv
         written = [n.strip() for n in next(csv.reader([header_line(lines) or ""], delimiter=csv_options["delimiter"]))]
@@ -421,12 +421,12 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         else:
             values = masked.tolist()            # masked entries become None
             if not ecsv and name in keep:
-                values = _kept_text(values)
+                values = kept_text(values)
         out.append((name, values, unit or None))
     return out
 
 
-def _kept_text(cells: list) -> list:
+def kept_text(cells: list) -> list:
     """A kept CSV column read as text, as numbers where every cell is one written as Python writes it
     (``101``, ``12.5``: the same text comes back), else as the text sent (``0012``, ``12.50``)."""
     texts = [c for c in cells if c is not None and c != ""]

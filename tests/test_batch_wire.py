@@ -490,3 +490,14 @@ def test_a_kept_arrow_column_of_dates_or_decimals_comes_back_as_its_text(client)
                     headers={"Accept": "application/json"})
     assert r.status_code == 200, r.get_json()
     assert r.get_json()["kept"] == {"observed": ["2024-03-01 12:00:00.000000", None], "vmag": ["7.50", "11.25"]}
+
+
+def test_the_command_line_keeps_a_csv_column_as_written_as_the_service_does(tmp_path, capsys, client):
+    text = "star,hip,period,k1,eccentricity\nA,0012,41.6,30,0.1\nB,101,3.2,40,0.2\n"
+    path = tmp_path / "catalogue.csv"
+    path.write_text(text)
+    code, out, err = _cli(capsys, "sb1", "--in", str(path), "--out", "-", "--keep", "star,hip")
+    assert code == 0, err
+    served = client.post("/v1/batch/sb1?keep=star,hip", data=text.encode(), content_type="text/csv").get_data(as_text=True)
+    assert [line.split(",")[:2] for line in out.splitlines()] == [line.split(",")[:2] for line in served.splitlines()]
+    assert out.splitlines()[1].startswith("A,0012,")
