@@ -7,7 +7,6 @@ pyarrow's, outside the project."""
 
 from __future__ import annotations
 
-import io
 import json
 
 import numpy as np
@@ -17,7 +16,7 @@ import pytest
 from calcservice import create_app, tables
 from calcservice.core import Problem, compute, compute_batch
 from calcservice.registry import calculations
-from tests.test_tables import OPTIONS, example_batch, json_answer, post_table
+from tests.test_tables import example_batch, json_answer, post_table
 
 
 @pytest.fixture(scope="module")
