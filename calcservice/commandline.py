@@ -321,16 +321,27 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     from .columns import column_role, split_unit
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
+    source: Any = path
     if fmt == "ascii.csv":
-        options = {"encoding": "utf-8-sig", "delimiter": _check_csv_header(path), "comment": "#"}
+        from .tables import table_lines
+        options = {"delimiter": _check_csv_header(path), "guess": False}
         if keep:                    # the kept columns as written, as the service reads them (tables.kept_text)
             from astropy.io import ascii
             options["converters"] = {name: [ascii.convert_numpy(str)] for name in keep}
+        try:                        # from the header on, as the service reads a CSV body (tables.table_lines)
+            with open(path, encoding="utf-8-sig") as fh:
+                source = table_lines(fh.read().splitlines())
+        except FileNotFoundError:
+            raise UsageError("--in", f"cannot read {path}: no such file") from None
+        except OSError as e:
+            raise UsageError("--in", f"cannot read {path}: {e.strerror or e}") from None
+        except UnicodeDecodeError as e:
+            raise UsageError("--in", f"{path} is not UTF-8 text (byte {e.start})") from None
     elif fmt == "ascii.ecsv" and _has("pandas"):
         # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
         fmt, options = "ecsv", {"engine": "pandas"}
     try:
-        table = Table.read(path, format=fmt, **options)
+        table = Table.read(source, format=fmt, **options)
     except FileNotFoundError:
         raise UsageError("--in", f"cannot read {path}: no such file") from None
     except OSError as e:

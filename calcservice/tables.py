@@ -330,6 +330,14 @@ def header_line(lines: Sequence[str]) -> str | None:
     return next((line for line in lines if line.strip() and not line.lstrip().startswith("#")), None)
 
 
+def table_lines(lines: Sequence[str]) -> list[str]:
+    """A CSV table's lines from its header on: ``#`` comments (and blank lines) before the header are
+    a description of the table; after it a line is a row, whatever its first cell (an identifier #12)."""
+    start = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")),
+                 len(lines))
+    return list(lines[start:])
+
+
 def delimiter(header: str | None) -> str:
     """A CSV table's delimiter: comma, semicolon or tab, whichever its header uses most (a comma on a
     tie): a spreadsheet set to a decimal comma writes semicolons."""
@@ -372,7 +380,9 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     ecsv = is_ecsv(text)
     lines = text.splitlines()
     # lines beginning with # are comments, as in astropy's other text tables (ECSV's header is one)
-    csv_options = {} if ecsv else {"delimiter": check_csv_text(lines), "comment": "#"}
+    if not ecsv:
+        lines = table_lines(lines)
+    csv_options = {} if ecsv else {"delimiter": check_csv_text(lines)}
     if not ecsv and keep:
         # the caller's own columns as written ("0012" is an identifier, not 12): see kept_text
         from astropy.io import ascii
@@ -472,7 +482,7 @@ def _text_cells(lines: Sequence[str], ecsv: bool, delimiter: str = ","):
         comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
         return Table.read([line for line in lines if not line.startswith("#")], format="ascii.basic",
                           delimiter="," if comma else " ", **as_text)
-    return Table.read(list(lines), format="ascii.csv", delimiter=delimiter, comment="#", **as_text)
+    return Table.read(table_lines(lines), format="ascii.csv", delimiter=delimiter, **as_text)
 
 
 def _check_cells(raw, names: Sequence[str], ecsv: bool, declared: bool = False) -> None:

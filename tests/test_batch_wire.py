@@ -338,11 +338,16 @@ def test_arrow_columns_of_every_numeric_and_text_type_give_the_json_numbers(clie
 def test_csv_comment_lines_semicolons_and_tabs_are_read_as_a_lab_writes_them(client):
     reference = client.post("/v1/batch/sb1", json={"columns": {"period": [41.6, 3.2], "k1": [30.0, 40.0],
                                                                "eccentricity": [0.1, 0.2]}}).get_json()["columns"]
-    for text in ("# fictional catalogue, Lantern survey\nperiod,k1,eccentricity\n41.6,30,0.1\n# a note\n3.2,40,0.2\n",
+    for text in ("# fictional catalogue, Lantern survey\n#\nperiod,k1,eccentricity\n41.6,30,0.1\n3.2,40,0.2\n",
                  "period;k1;eccentricity\n41.6;30;0.1\n3.2;40;0.2\n",
                  "period\tk1\teccentricity\r\n41.6\t30\t0.1\r\n3.2\t40\t0.2\r\n"):
         answer = _answer(client, text.encode(), tables.CSV)
         assert answer["columns"]["mass_function"] == reference["mass_function"], text
+    # after the header a line is a system whatever its first cell: an identifier #12 is never dropped
+    r = client.post("/v1/batch/sb1?keep=star", data=b"# survey\nstar,period,k1,eccentricity\n#12,41.6,30,0.1\nB,3.2,40,0.2\n",
+                    content_type="text/csv", headers={"Accept": "application/json"})
+    assert r.get_json()["kept"] == {"star": ["#12", "B"]}
+    assert r.get_json()["columns"]["mass_function"] == reference["mass_function"]
     # a decimal comma beside semicolons is no number: that system's error, never 41 or 416
     answer = _answer(client, b"period;k1;eccentricity\n41,6;30;0,1\n3.2;40;0.2\n", tables.CSV)
     assert [(e["index"], sorted(e["errors"])) for e in answer["errors"]] == [(0, ["eccentricity", "period"])]
