@@ -325,9 +325,6 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     if fmt == "ascii.csv":
         from .tables import table_lines
         options = {"delimiter": _check_csv_header(path), "guess": False}
-        if keep:                    # the kept columns as written, as the service reads them (tables.kept_text)
-            from astropy.io import ascii
-            options["converters"] = {name: [ascii.convert_numpy(str)] for name in keep}
         try:                        # from the header on, as the service reads a CSV body (tables.table_lines)
             with open(path, encoding="utf-8-sig") as fh:
                 source = table_lines(fh.read().splitlines())
@@ -353,7 +350,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     if len(table) == 0:
         raise UsageError("--in", f"{path} has a header but no rows")
     if fmt == "ascii.csv":
-        _kept_as_written(table, keep)
+        _kept_as_written(table, source, keep, options["delimiter"])
     absent = [name for name in keep if name not in table.colnames]
     if absent:
         raise UsageError("--keep", f"{path} has no column {absent[0]!r}")
@@ -406,17 +403,13 @@ def _check_csv_header(path: str) -> str:
         raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
 
 
-def _kept_as_written(table, keep) -> None:
-    """A CSV's kept columns, read as text, as the service gives them back (:func:`calcservice.tables.kept_text`):
-    ``0012`` stays text, ``101`` a whole number; masked where empty."""
+def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:
+    """A CSV's kept columns as the service gives them back (:func:`calcservice.tables.kept_as_written`):
+    ``0012`` stays text; masked where empty."""
     from astropy.table import MaskedColumn
 
-    from .tables import kept_text
-    for name in keep:
-        if name not in table.colnames:
-            continue
-        cells = [None if c is np.ma.masked or c is None else str(c) for c in np.ma.asarray(table[name]).tolist()]
-        values = kept_text(cells)
+    from .tables import kept_as_written
+    for name, values in kept_as_written(table, lines, keep, delimiter).items():
         missing = [v is None for v in values]
         kinds = {type(v) for v in values} - {type(None)}
         fill = 0 if kinds <= {int} else (0.0 if kinds <= {int, float} else "")

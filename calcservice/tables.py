@@ -383,12 +383,6 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     if not ecsv:
         lines = table_lines(lines)
     csv_options = {} if ecsv else {"delimiter": check_csv_text(lines)}
-    if not ecsv and keep:
-        # the caller's own columns as written ("0012" is an identifier, not 12): see kept_text
-        from astropy.io import ascii
-        import csv
-        written = [n.strip() for n in next(csv.reader([header_line(lines) or ""], delimiter=csv_options["delimiter"]))]
-        csv_options["converters"] = {n: [ascii.convert_numpy(str)] for n in written if split_unit(n)[0] in keep}
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
@@ -412,6 +406,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
             raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
         raise
     kinds = {spec.name: spec.kind for spec in calc.inputs}
+    written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
     check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and
                                             column_role(name if ecsv else split_unit(name)[0], kinds) is not None])
     out = []
@@ -429,11 +424,29 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
         else:
-            values = masked.tolist()            # masked entries become None
-            if not ecsv and name in keep:
-                values = kept_text(values)
+            values = written.get(name) or masked.tolist()       # masked entries become None
         out.append((name, values, unit or None))
     return out
+
+
+# a cell that begins with a zero and another digit: an identifier such as 0012, which a number loses
+_LEADING_ZERO = re.compile(r"(?:^|[,;\t\"])[ ]*[+-]?0[0-9]", re.MULTILINE)
+
+
+def kept_as_written(table, lines: Sequence[str], keep: Container[str], delimiter: str = ",") -> dict[str, list]:
+    """The kept columns (the caller's own) of a CSV table that astropy read as whole numbers though a
+    cell is written with a leading zero (``0012``), as :func:`kept_text` gives them from their text;
+    the text is read again only when such a cell may be there.  The service and the command line
+    both keep a CSV's columns so."""
+    whole = [name for name in table.colnames if split_unit(name)[0] in keep and table[name].dtype.kind in "iu"]
+    if not whole:
+        return {}
+    data = "\n".join(table_lines(lines)[1:])
+    if _LEADING_ZERO.search(data) is None:
+        return {}
+    raw = _text_cells(lines, False, delimiter)
+    return {split_unit(name)[0]: kept_text([None if c is None else str(c) for c in np.ma.asarray(raw[name]).tolist()])
+            for name in whole if name in raw.colnames}
 
 
 def kept_text(cells: list) -> list:

@@ -359,16 +359,16 @@ def test_a_nul_byte_in_a_csv_body_is_refused_not_cut_short(client):
 
 
 def test_a_kept_csv_column_comes_back_as_written(client):
-    # an identifier such as 0012 or 12.50 is text to its catalogue; 101 stays a whole number
+    # an identifier such as 0012 is text to its catalogue; 101 stays a whole number, 12.50 the number 12.5
     text = b"period,k1,eccentricity,hip,code\n41.6,30,0.1,0012,12.50\n3.2,40,0.2,101,\n"
     answer = client.post("/v1/batch/sb1?keep=hip,code", data=text, content_type="text/csv",
                          headers={"Accept": "application/json"}).get_json()
-    assert answer["kept"] == {"hip": ["0012", "101"], "code": ["12.50", None]}
+    assert answer["kept"] == {"hip": ["0012", "101"], "code": [12.5, None]}
     r = client.post("/v1/batch/sb1?keep=hip", data=b"period,k1,eccentricity,hip\n41.6,30,0.1,7\n3.2,40,0.2,101\n",
                     content_type="text/csv", headers={"Accept": "application/json"})
     assert r.get_json()["kept"] == {"hip": [7, 101]}
     csv = client.post("/v1/batch/sb1?keep=hip,code", data=text, content_type="text/csv").get_data(as_text=True)
-    assert [line.split(",")[:2] for line in csv.splitlines()[1:]] == [["0012", "12.50"], ["101", ""]]
+    assert [line.split(",")[:2] for line in csv.splitlines()[1:]] == [["0012", "12.5"], ["101", ""]]
 
 
 def test_a_variance_budget_asked_of_a_table_answer_comes_in_its_columns(client):
