@@ -37,7 +37,9 @@ import numpy as np
 import orjson
 
 from . import __version__
-from .columns import column_name, column_role, split_unit
+from .columns import column_array as _to_array
+from .columns import column_name, column_role, correlated_columns, split_unit, uncertain_parts
+from .columns import unit_of as _unit_of
 
 USER_AGENT = f"calcservice-client/{__version__} (calcservice {__version__}; Python {platform.python_version()})"
 ARROW = "application/vnd.apache.arrow.stream"
@@ -655,81 +657,6 @@ def _is_dataframe(data) -> bool:
     return hasattr(data, "columns") and hasattr(data, "dtypes") and hasattr(data, "to_numpy") and hasattr(data, "attrs")
 
 
-def _unit_of(col) -> str | None:
-    unit = getattr(col, "unit", None)
-    if unit is None:
-        return None
-    return unit.to_string() if hasattr(unit, "to_string") else str(unit)
-
-
-def _to_array(col) -> np.ndarray:
-    """A column as a float array with NaN where missing, or an object array (strings, None where missing)."""
-    mask = None
-    if hasattr(col, "isot") and hasattr(col, "jd"):             # an astropy Time column: ISO 8601 in UTC
-        mask = np.asarray(getattr(col, "mask", False))
-        col = np.asarray(col.utc.isot, dtype=object)
-        if mask.any():
-            col[mask] = None
-        return col
-    if type(col).__module__.startswith("pandas"):              # a Series (nullable dtypes: pd.NA is missing)
-        try:
-            return col.to_numpy(dtype=float, na_value=np.nan)
-        except (TypeError, ValueError):
-            col = col.to_numpy(dtype=object)
-    if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
-        mask = np.asarray(col.mask)
-        col = col.unmasked
-    elif hasattr(col, "mask") and not np.isscalar(getattr(col, "mask")):   # MaskedColumn, numpy masked array
-        mask = np.ma.getmaskarray(col)
-        col = np.ma.getdata(col)
-    if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, Mapping):
-        col = col.value
-    arr = np.asarray(col)
-    if arr.dtype.kind in "biuf":
-        arr = arr.astype(float)
-    elif arr.dtype.kind in "USO":
-        # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
-        items = [_number_or_text(_missing_to_none(v)) for v in arr.tolist()]
-        if all(v is None or (isinstance(v, float)) for v in items):
-            arr = np.array([np.nan if v is None else v for v in items], dtype=float)
-        else:
-            arr = np.array(items, dtype=object)
-    else:
-        arr = arr.astype(object)
-    if mask is not None and mask.any():
-        arr = arr.astype(float if arr.dtype.kind == "f" else object, copy=True)
-        arr[mask] = np.nan if arr.dtype.kind == "f" else None
-    return arr
-
-
-def _number_or_text(v):
-    if isinstance(v, str):
-        try:
-            x = float(v)
-        except ValueError:
-            return v
-        return x if math.isfinite(x) else v
-    if isinstance(v, (int, float)) and not isinstance(v, bool):
-        return float(v)
-    return v
-
-
-def _missing_to_none(v):
-    if v is None or (isinstance(v, float) and math.isnan(v)):
-        return None
-    if isinstance(v, bytes):
-        v = v.decode("utf-8")
-    if isinstance(v, str) and v.strip() == "":
-        return None
-    try:
-        import pandas as pd
-        if v is pd.NA or v is pd.NaT:
-            return None
-    except ImportError:
-        pass
-    return v
-
-
 class InputTable:
     """A catalogue in the service's columns, ready to be sent in slices.
 
@@ -801,6 +728,10 @@ class InputTable:
             raise ValueError(f"{unknown[0]}: {decl['name']} has no input {split_unit(unknown[0])[0]!r} "
                              f"(inputs: {', '.join(inputs)}; NAME_sigma for uncertainties; keep= to carry a column "
                              "along, strict=False to leave the others out)")
+        correlated = correlated_columns({base: list(members["value"][1]) for base, members in parts.items()
+                                         if "value" in members and uncertain_parts(members["value"][1]) is not None})
+        if correlated:
+            raise ValueError(f"{correlated[0]}: {correlated[1]}")
         count = None
         columns: dict[str, Any] = {}
         for base, members in parts.items():
@@ -871,6 +802,9 @@ def _is_missing(arr: np.ndarray) -> np.ndarray:
 
 def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | None, require_unit: bool) -> dict:
     entry: dict[str, Any] = {}
+    parts = uncertain_parts(col) if spec.get("kind", "quantity") == "quantity" else None
+    if parts is not None:               # uncertainties numbers: their nominal values and standard deviations
+        col = (parts[0], parts[1], unit) if unit else parts
     if isinstance(col, tuple):          # (values, sigmas[, sigma_plus][, unit])
         parts = list(col)
         if parts and isinstance(parts[-1], str):
@@ -882,11 +816,11 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         for member, extra in zip(("sigma", ) if len(parts) == 2 else ("sigma_minus", "sigma_plus"), parts[1:]):
             entry[member] = _sigma_array(label, extra, _unit_of(extra), unit)
     elif isinstance(col, Mapping):       # a contract column object
-        entry = {k: (_to_array(v) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
+        entry = {k: (_to_array(v, label) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
         if "value" not in entry:
             raise ValueError(f"{label}: a column object needs \"value\"")
         return entry
-    values = _to_array(col)
+    values = _to_array(col, label)
     if values.ndim != 1:
         raise ValueError(f"{label}: a column is one value per system (got shape {values.shape})")
     kind = spec.get("kind", "quantity")
@@ -907,7 +841,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
 
 
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
-    arr = _to_array(col)
+    arr = _to_array(col, label)
     if arr.dtype.kind != "f":
         raise ValueError(f"{label}: a sigma column holds numbers")
     arr = np.array(arr, dtype=float)

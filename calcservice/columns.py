@@ -3,13 +3,16 @@
 A column is named after an input (``period``), optionally with its unit in brackets
 (``period[yr]``); ``NAME_sigma`` holds the input's 1-sigma uncertainty, ``NAME_sigma_minus`` and
 ``NAME_sigma_plus`` an asymmetric one, in NAME's unit unless they carry a unit of their own.
-Standard library only, so the client can use it without the service's dependencies.
+The standard library and numpy only, so the client can use it without the service's dependencies.
 """
 
 from __future__ import annotations
 
+import math
 import re
 from typing import Container
+
+import numpy as np
 
 SIGMA_SUFFIXES = ("_sigma_minus", "_sigma_plus", "_sigma")
 MEMBERS = ("value",) + tuple(s[1:] for s in SIGMA_SUFFIXES)
@@ -47,4 +50,160 @@ def column_name(base: str, member: str, unit: str | None = None) -> str:
     return f"{name}[{unit}]" if unit else name
 
 
-__all__ = ["SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name"]
+# A number as a table writes one: a sign, ASCII digits, a point, an exponent, ASCII spaces around it
+# (or nan, inf: a missing value, a number that is not finite, each answered in place).  Python's float()
+# and C's strtod read more (underscores between digits, hexadecimal, any script's digits and spaces):
+# in a lab's table those are typos or mangled cells, not numbers.
+_NUMBER_CHARACTERS = "0123456789+-.eE \t"
+_WORDS = np.array(["", "nan", "inf", "infinity"])
+
+
+def not_plain_numbers(texts) -> np.ndarray:
+    """Which cells (strings) are not written as plain decimal numbers (nor nan, inf), vectorised: what is
+    left of a cell once the characters of a number are stripped from its ends must be empty or a word.
+    Meant for cells a reader took for numbers, or that Python's ``float()`` takes (see :func:`lenient`)."""
+    rest = np.char.lower(np.char.strip(np.asarray(texts, dtype=str), _NUMBER_CHARACTERS))
+    return ~np.isin(rest, _WORDS)
+
+
+def lenient(texts) -> list[int]:
+    """The indices of the cells Python's ``float()`` reads as numbers though no table writes them so
+    (``4_1.6`` is 41.6 to it, ``١٢`` 12): typos to refuse, never numbers."""
+    suspect = np.flatnonzero(not_plain_numbers(texts)).tolist() if len(texts) else []
+    out = []
+    for k in suspect:
+        try:
+            float(texts[k])
+        except ValueError:
+            continue
+        out.append(k)
+    return out
+
+
+def lenient_message(rows, texts) -> str:
+    """What is wrong with cells read as numbers only by lenient rules, naming their rows."""
+    shown = "; ".join(f"row {k + 1} (system {k}): {str(t)[:40]!r}" for k, t in zip(list(rows)[:3], list(texts)[:3]))
+    more = f" and {len(rows) - 3} more rows" if len(rows) > 3 else ""
+    return (f"{shown}{more} is not a number as a table writes one (digits, a point, an exponent): an "
+            "underscore, a hexadecimal prefix or a non-ASCII digit or space is read as a typo")
+
+
+def unit_of(col) -> str | None:
+    """The unit of an astropy Quantity or Column (None for plain numbers)."""
+    unit = getattr(col, "unit", None)
+    if unit is None:
+        return None
+    return unit.to_string() if hasattr(unit, "to_string") else str(unit)
+
+
+def column_array(col, label: str = "column") -> np.ndarray:
+    """A column of a caller's table (a list, numpy array, masked array, astropy Column, Quantity or Time,
+    pandas Series) as a float array with NaN where missing, or an object array (strings, None where
+    missing), for the client and the library alike.  A text cell Python reads as a number though no table
+    writes one so (``4_1.6``), or a column of booleans, is a ValueError naming ``label``."""
+    mask = None
+    if hasattr(col, "isot") and hasattr(col, "jd"):             # an astropy Time column: ISO 8601 in UTC
+        mask = np.asarray(getattr(col, "mask", False))
+        col = np.asarray(col.utc.isot, dtype=object)
+        if mask.any():
+            col[mask] = None
+        return col
+    if type(col).__module__.startswith("pandas"):              # a Series (nullable dtypes: pd.NA is missing)
+        # numbers (nullable ones too) as floats; text cells are looked at below, as pandas would
+        # read "4_1.6" as 41.6
+        if getattr(col.dtype, "kind", "O") in "iuf":
+            return col.to_numpy(dtype=float, na_value=np.nan)
+        col = col.to_numpy(dtype=object)
+    if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
+        mask = np.asarray(col.mask)
+        col = col.unmasked
+    elif hasattr(col, "mask") and not np.isscalar(getattr(col, "mask")):   # MaskedColumn, numpy masked array
+        mask = np.ma.getmaskarray(col)
+        col = np.ma.getdata(col)
+    if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, dict):
+        col = col.value
+    arr = np.asarray(col)
+    if arr.dtype.kind == "b" or (arr.dtype.kind == "O" and any(isinstance(v, (bool, np.bool_)) for v in arr.tolist())):
+        raise ValueError(f"{label}: a column of true and false holds no numbers")
+    if arr.dtype.kind in "iuf":
+        arr = arr.astype(float)
+    elif arr.dtype.kind in "USO":
+        # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
+        cells = [_missing_to_none(v) for v in arr.tolist()]
+        texts = [k for k, v in enumerate(cells) if isinstance(v, str)]
+        refused = [texts[j] for j in lenient([cells[k] for k in texts])]
+        if refused:
+            raise ValueError(f"{label}: {lenient_message(refused, [cells[k] for k in refused[:3]])}")
+        items = [_number_or_text(v) for v in cells]
+        if all(v is None or (isinstance(v, float)) for v in items):
+            arr = np.array([np.nan if v is None else v for v in items], dtype=float)
+        else:
+            arr = np.array(items, dtype=object)
+    else:
+        arr = arr.astype(object)
+    if mask is not None and mask.any():
+        arr = arr.astype(float if arr.dtype.kind == "f" else object, copy=True)
+        arr[mask] = np.nan if arr.dtype.kind == "f" else None
+    return arr
+
+
+def _number_or_text(v):
+    if isinstance(v, str):
+        try:
+            x = float(v)
+        except ValueError:
+            return v
+        return x if math.isfinite(x) else v
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return float(v)
+    return v
+
+
+def _missing_to_none(v):
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return None
+    if isinstance(v, bytes):
+        v = v.decode("utf-8")
+    if isinstance(v, str) and v.strip() == "":
+        return None
+    try:
+        import pandas as pd
+        if v is pd.NA or v is pd.NaT:
+            return None
+    except ImportError:
+        pass
+    return v
+
+
+def uncertain_parts(col) -> tuple[np.ndarray, np.ndarray] | None:
+    """An array (or list) of ``uncertainties`` numbers as their nominal values and standard deviations
+    (NaN where an entry is None); None for anything else."""
+    if isinstance(col, (str, bytes, dict)) or not (isinstance(col, list) or hasattr(col, "__array__")):
+        return None
+    items = np.asarray(col, dtype=object).ravel().tolist() if np.ndim(col) == 1 else []
+    if not items or not all(x is None or (hasattr(x, "nominal_value") and hasattr(x, "std_dev")) for x in items) \
+            or all(x is None for x in items):
+        return None
+    return (np.array([np.nan if x is None else x.nominal_value for x in items], dtype=float),
+            np.array([np.nan if x is None else x.std_dev for x in items], dtype=float))
+
+
+def correlated_columns(columns: dict[str, list]) -> tuple[str, str] | None:
+    """The first column of ``uncertainties`` numbers correlated with another (they share a variable in
+    some system) and why it is refused: a columns batch has one correlation for every system, so the
+    numbers would otherwise travel as if independent, with wrong sigmas."""
+    names = list(columns)
+    for a, name in enumerate(names):
+        for other in names[a + 1:]:
+            shared = [i for i, (x, y) in enumerate(zip(columns[name], columns[other]))
+                      if x is not None and y is not None and set(map(id, x.derivatives)) & set(map(id, y.derivatives))]
+            if shared:
+                more = f" and {len(shared) - 1} more" if len(shared) > 1 else ""
+                return name, (f"its uncertainties numbers are correlated with those of {other} (system {shared[0]}"
+                              f"{more}): a columns batch has one correlation for all systems (correlations); give "
+                              "each system with its own correlations as rows (systems)")
+    return None
+
+
+__all__ = ["unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
+           "lenient_message"]

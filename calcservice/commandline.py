@@ -321,13 +321,24 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     from .columns import column_role, split_unit
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
+    source: Any = path
     if fmt == "ascii.csv":
-        options = {"encoding": "utf-8-sig", "delimiter": _delimiter(path)}
+        from .tables import table_lines
+        options = {"delimiter": _check_csv_header(path), "guess": False}
+        try:                        # from the header on, as the service reads a CSV body (tables.table_lines)
+            with open(path, encoding="utf-8-sig") as fh:
+                source = table_lines(fh.read().splitlines())
+        except FileNotFoundError:
+            raise UsageError("--in", f"cannot read {path}: no such file") from None
+        except OSError as e:
+            raise UsageError("--in", f"cannot read {path}: {e.strerror or e}") from None
+        except UnicodeDecodeError as e:
+            raise UsageError("--in", f"{path} is not UTF-8 text (byte {e.start})") from None
     elif fmt == "ascii.ecsv" and _has("pandas"):
         # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
         fmt, options = "ecsv", {"engine": "pandas"}
     try:
-        table = Table.read(path, format=fmt, **options)
+        table = Table.read(source, format=fmt, **options)
     except FileNotFoundError:
         raise UsageError("--in", f"cannot read {path}: no such file") from None
     except OSError as e:
@@ -338,6 +349,8 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
                                  f"{reason}") from None
     if len(table) == 0:
         raise UsageError("--in", f"{path} has a header but no rows")
+    if fmt == "ascii.csv":
+        _kept_as_written(table, source, keep, options["delimiter"])
     absent = [name for name in keep if name not in table.colnames]
     if absent:
         raise UsageError("--keep", f"{path} has no column {absent[0]!r}")
@@ -352,6 +365,9 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
         if inputs[role[0]].kind == "series":
             raise UsageError(role[0], f"{role[0]} is a list for each system and cannot be a column; "
                                       f"give it as {role[0]}=v1,v2,... on the command line")
+    if fmt in ("ascii.csv", "ascii.ecsv", "ecsv"):
+        _check_number_cells(path, table, [name for name in table.colnames if name not in keep],
+                            options.get("delimiter", ","))
     try:
         return InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
     except ValueError as e:
@@ -364,14 +380,56 @@ def _has(module: str) -> bool:
     return importlib.util.find_spec(module) is not None
 
 
-def _delimiter(path: str) -> str:
-    """Comma, semicolon or tab: whichever the header line uses most."""
+def _check_csv_header(path: str) -> str:
+    """A CSV file's delimiter, and its header checked as the HTTP path checks a CSV body
+    (:func:`calcservice.tables.check_csv_text`): a column named twice or not at all is refused under the
+    name written, not astropy's ``period_1``."""
+    from .tables import TableError, check_csv_text
     try:
         with open(path, encoding="utf-8-sig", errors="replace") as fh:
-            header = fh.readline()
+            head = []
+            for line in fh:                 # up to the header: blank lines and # comments before it
+                head.append(line.rstrip("\r\n"))
+                if line.strip() and not line.lstrip().startswith("#"):
+                    break
     except OSError:
-        return ","
-    return max((",", ";", "\t"), key=header.count)
+        return ","                  # the reader says what is wrong with the file
+    try:
+        return check_csv_text(head)
+    except TableError as e:
+        field, messages = next(iter(e.errors.items()))
+        if field == "_body":
+            raise UsageError("--in", f"{' '.join(messages)} ({path})") from None
+        raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
+
+
+def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:
+    """A CSV's kept columns as the service gives them back (:func:`calcservice.tables.kept_as_written`):
+    ``0012`` stays text; masked where empty."""
+    from astropy.table import MaskedColumn
+
+    from .tables import kept_as_written
+    for name, values in kept_as_written(table, lines, keep, delimiter).items():
+        missing = [v is None for v in values]
+        kinds = {type(v) for v in values} - {type(None)}
+        fill = 0 if kinds <= {int} else (0.0 if kinds <= {int, float} else "")
+        table[name] = MaskedColumn([fill if v is None else v for v in values], mask=missing)
+
+
+def _check_number_cells(path: str, table, names: list[str], delimiter: str) -> None:
+    """The HTTP path's check of a text table's numbers (:func:`calcservice.tables.check_number_cells`):
+    ``0x10`` or ``4_1.6`` in a column astropy read as numbers is refused, naming column and row."""
+    from .tables import TableError, check_number_cells, is_ecsv
+    try:
+        with open(path, encoding="utf-8-sig") as fh:
+            text = fh.read()
+    except (OSError, UnicodeDecodeError):
+        return                      # astropy read it; the numbers cannot be looked at again
+    try:
+        check_number_cells(table, text.splitlines(), is_ecsv(text), names, delimiter)
+    except TableError as e:
+        field, messages = next(iter(e.errors.items()))
+        raise UsageError(field, f"{' '.join(messages)} ({path})") from None
 
 
 def run_batch(name: str, body: dict, limits) -> dict:

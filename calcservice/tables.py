@@ -26,11 +26,12 @@ from __future__ import annotations
 
 import io
 import json
+import re
 from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import MEMBERS, column_role, split_unit
+from .columns import MEMBERS, column_role, lenient, lenient_message, not_plain_numbers, split_unit
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -138,9 +139,10 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
                 base, key = role
                 sigmas.setdefault(base, {})[key] = (values, unit, name)
             else:
-                errors[name] = [f"{calc.name} has no input {name!r} (columns: inputs, NAME_sigma, "
-                                f"NAME_sigma_minus, NAME_sigma_plus); a column of your own: ?keep={name} "
-                                "carries it into the answer"]
+                shown = _shown(name)
+                errors[shown] = [f"{calc.name} has no input {shown!r} (columns: inputs, NAME_sigma, "
+                                 f"NAME_sigma_minus, NAME_sigma_plus); a column of your own: ?keep={shown} "
+                                 "carries it into the answer"]
     for base, members in sigmas.items():
         spec = inputs[base]
         for key, (_, _, col) in members.items():
@@ -166,9 +168,17 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
         if spec.kind != "quantity":
             columns[name] = values.tolist() if isinstance(values, np.ndarray) else values
             continue
-        entry: dict[str, Any] = {"value": _quantity_values(values)}
+        try:
+            entry: dict[str, Any] = {"value": _quantity_values(values, name)}
+        except TableError as e:
+            errors.update(e.errors)
+            continue
         for key, (sigma, sigma_unit, col) in sigmas.get(name, {}).items():
-            sigma = _quantity_values(sigma)
+            try:
+                sigma = _quantity_values(sigma, col)
+            except TableError as e:
+                errors.update(e.errors)
+                continue
             if sigma_unit and sigma_unit != (unit or spec.unit):
                 try:
                     k = factor(sigma_unit, unit or spec.unit)
@@ -195,18 +205,35 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
         else:
             body[key] = value
     if errors:
+        listed = sorted(errors.items())
+        more = f"; and {len(listed) - MAX_LISTED} more columns" if len(listed) > MAX_LISTED else ""
         raise TableError(422, "the table's columns do not fit " + calc.name + ": " +
-                         "; ".join(f"{k}: {' '.join(v)}" for k, v in sorted(errors.items())), errors)
+                         "; ".join(f"{k}: {' '.join(v)}" for k, v in listed[:MAX_LISTED]) + more,
+                         dict(listed[:MAX_LISTED]))
     if not columns:
         raise TableError(422, "the table has no columns", {"_table": ["give one column per input"]})
     return {"columns": columns, **body}
 
 
-def _quantity_values(values):
+MAX_LISTED = 20         # a table of thousands of unknown columns is answered with the first few
+
+
+def _shown(name: str) -> str:
+    """A caller's column name as an error echoes it: at most 80 characters (as for JSON field names)."""
+    return name if len(name) <= 80 else name[:79] + "…"
+
+
+def _quantity_values(values, name: str):
     """A quantity's column as floats (NaN: not given) when it holds numbers only; else a list whose
-    numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word."""
+    numeric strings are numbers (a text column with one bad cell), for the batch's own parser to word.
+    A string that Python reads as a number but no table writes as one (``4_1.6``, ``0x10``, non-ASCII
+    digits) is a :class:`TableError` naming the column and its rows: a typo, never silently a number."""
     if isinstance(values, np.ndarray):
         return values
+    texts = [k for k, v in enumerate(values) if type(v) is str]
+    refused = [texts[j] for j in lenient([values[k] for k in texts])]
+    if refused:
+        raise lenient_cells(name, refused, [values[k] for k in refused[:3]])
     if all(v is None or type(v) is str for v in values):      # not booleans: true is no number here
         try:
             return np.array([np.nan if v is None else v for v in values], dtype=float)
@@ -223,11 +250,45 @@ def _quantity_values(values):
     return out
 
 
+# a literal first, so that the search runs at C speed over the text: "_" then a digit (is a digit before
+# it? 4_1.6, not HD_1234), "0x" (at a cell's start? 0x10, not 1.0x)
+_UNDERSCORE = re.compile(r"_[0-9]")
+_HEX = re.compile(r"0[xX]")
+_CELL_START = ',;\t "+-\n'
+
+
+def lenient_cells(name: str, rows: Sequence[int], texts: Sequence[str]) -> TableError:
+    """The 422 for cells read as numbers only by lenient rules, naming the column and its rows."""
+    message = lenient_message(rows, texts)
+    return TableError(422, f"column {name}: {message}", {name: [message]})
+
+
+def _has_lenient_text(lines: list[str], ecsv: bool) -> bool:
+    """Whether a table's data lines (after its header: ``k1_sigma`` is a name) may hold a cell a lenient
+    number reader would take (``4_1.6``, ``0x10``, a non-ASCII digit or space), looked for over the whole
+    text at once before any cell is: names such as HD_1234 or α Cen do not count."""
+    names = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")),
+                 len(lines))
+    data = "\n".join(lines[names + 1:])
+    if not data.isascii():
+        # the characters outside ASCII, once each: their UTF-8 bytes in order decode to them
+        raw = np.frombuffer(data.encode("utf-8"), dtype=np.uint8)
+        if any(c.isdigit() or c.isspace() for c in set(raw[raw >= 0x80].tobytes().decode("utf-8", "ignore"))):
+            return True
+    if "_" in data and any(data[m.start() - 1].isdigit() for m in _UNDERSCORE.finditer(data) if m.start()):
+        return True
+    return ("x" in data or "X" in data) and \
+        any(m.start() == 0 or data[m.start() - 1] in _CELL_START for m in _HEX.finditer(data))
+
+
 def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
     import pyarrow as pa
 
     try:
-        table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
+        if data[:6] == b"ARROW1":       # the IPC file format (what Feather 2 writes): read as well
+            table = pa.ipc.open_file(pa.py_buffer(data)).read_all()
+        else:
+            table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
         raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
     kinds = {spec.name: spec.kind for spec in calc.inputs}
@@ -239,12 +300,24 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
         t = field.type
         if pa.types.is_dictionary(t):
             column, t = column.cast(t.value_type), t.value_type
-        if (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
+        if getattr(pa.types, "is_string_view", lambda _: False)(t):
+            column, t = column.cast(pa.string()), pa.string()
+        if pa.types.is_null(t):             # every entry missing (pyarrow's type for a column of nulls)
+            values = np.full(len(column), np.nan) if kind == "quantity" and field.name not in keep \
+                else [None] * len(column)
+        elif (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
                 and field.name not in keep:
-            values = column.cast(pa.float64()).to_numpy()       # nulls become NaN
+            # nulls become NaN; an integer beyond 2**53 is the nearest double, as a JSON number is
+            values = column.cast(pa.float64(), safe=False).to_numpy()
         elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
                 or pa.types.is_large_string(t) or pa.types.is_boolean(t):
             values = column.to_pylist()
+        elif field.name in keep and not pa.types.is_nested(t):
+            # the caller's own column (an observation date, a decimal, bytes): as Arrow writes it as text
+            try:
+                values = column.cast(pa.string()).to_pylist()
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+                values = [None if x is None else str(x) for x in column.to_pylist()]
         else:
             raise TableError(422, f"column {field.name} is of type {t}; give numbers or strings, one per system",
                              {field.name: [f"a column of numbers or strings, not {t}"]})
@@ -252,14 +325,34 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     return out
 
 
-def _check_header(lines: list[str]) -> None:
-    """A CSV header's names as written: astropy would call a second ``period`` ``period_1`` and an empty
-    name ``col3``, names the caller never wrote."""
+def header_line(lines: Sequence[str]) -> str | None:
+    """A CSV table's header: its first line that is neither blank nor a ``#`` comment."""
+    return next((line for line in lines if line.strip() and not line.lstrip().startswith("#")), None)
+
+
+def table_lines(lines: Sequence[str]) -> list[str]:
+    """A CSV table's lines from its header on: ``#`` comments (and blank lines) before the header are
+    a description of the table; after it a line is a row, whatever its first cell (an identifier #12)."""
+    start = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")),
+                 len(lines))
+    return list(lines[start:])
+
+
+def delimiter(header: str | None) -> str:
+    """A CSV table's delimiter: comma, semicolon or tab, whichever its header uses most (a comma on a
+    tie): a spreadsheet set to a decimal comma writes semicolons."""
+    return max((",", ";", "\t"), key=(header or "").count)
+
+
+def check_header(lines: Sequence[str], delimiter: str = ",") -> None:
+    """A CSV header's names as written (see :func:`header_line`): astropy would call a second
+    ``period`` ``period_1`` and an empty name ``col3``, names the caller never wrote.  Raises
+    :class:`TableError` (422) naming the column; the HTTP edge and the command line both check so."""
     import csv
-    header = next((line for line in lines if line.strip()), None)
+    header = header_line(lines)
     if header is None:
         return
-    names = [name.strip() for name in next(csv.reader([header]))]
+    names = [name.strip() for name in next(csv.reader([header], delimiter=delimiter))]
     errors: dict[str, list[str]] = {}
     for k, name in enumerate(names):
         if not name:
@@ -280,25 +373,42 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         text = data.decode("utf-8-sig")         # a spreadsheet's byte order mark is no part of a name
     except UnicodeDecodeError as e:
         raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
+    if "\x00" in text:         # C's reader ends a cell there: what follows would be silently lost
+        line = text.count("\n", 0, text.index("\x00")) + 1
+        raise TableError(400, f"the {'ECSV' if is_ecsv(text) else 'CSV'} body holds a NUL byte (line {line})",
+                         {"_body": [f"a NUL byte on line {line}"]})
     ecsv = is_ecsv(text)
     lines = text.splitlines()
+    # lines beginning with # are comments, as in astropy's other text tables (ECSV's header is one)
     if not ecsv:
-        _check_header(lines)
+        lines = table_lines(lines)
+    csv_options = {} if ecsv else {"delimiter": check_csv_text(lines)}
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
-        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)
+        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "
                               "datatype)") from None
     except (InconsistentTableError, ValueError, TypeError, IndexError, AttributeError) as e:
+        failed = re.match(r"column '(.*)' failed to convert", str(e)) if ecsv else None
+        if failed:                  # a cell against its column's declared datatype: say which
+            try:
+                cells = _text_cells(lines, ecsv)
+            except Exception:       # noqa: BLE001 - the first reader's error below says what is wrong
+                cells = None
+            if cells is not None:
+                _check_cells(cells, [failed.group(1)], ecsv, declared=True)
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
         if type(e).__module__.startswith(("yaml", "astropy")):
             raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
         raise
     kinds = {spec.name: spec.kind for spec in calc.inputs}
+    written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
+    check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and
+                                            column_role(name if ecsv else split_unit(name)[0], kinds) is not None])
     out = []
     for name in table.colnames:
         col = table[name]
@@ -314,9 +424,101 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
         else:
-            values = masked.tolist()            # masked entries become None
+            values = written.get(name) or masked.tolist()       # masked entries become None
         out.append((name, values, unit or None))
     return out
+
+
+# a cell that begins with a zero and another digit: an identifier such as 0012, which a number loses
+_LEADING_ZERO = re.compile(r"(?:^|[,;\t\"])[ ]*[+-]?0[0-9]", re.MULTILINE)
+
+
+def kept_as_written(table, lines: Sequence[str], keep: Container[str], delimiter: str = ",") -> dict[str, list]:
+    """The kept columns (the caller's own) of a CSV table that astropy read as whole numbers though a
+    cell is written with a leading zero (``0012``), as :func:`kept_text` gives them from their text;
+    the text is read again only when such a cell may be there.  The service and the command line
+    both keep a CSV's columns so."""
+    whole = [name for name in table.colnames if split_unit(name)[0] in keep and table[name].dtype.kind in "iu"]
+    if not whole:
+        return {}
+    data = "\n".join(table_lines(lines)[1:])
+    if _LEADING_ZERO.search(data) is None:
+        return {}
+    raw = _text_cells(lines, False, delimiter)
+    return {split_unit(name)[0]: kept_text([None if c is None else str(c) for c in np.ma.asarray(raw[name]).tolist()])
+            for name in whole if name in raw.colnames}
+
+
+def kept_text(cells: list) -> list:
+    """A kept CSV column read as text, as numbers where every cell is one written as Python writes it
+    (``101``, ``12.5``: the same text comes back), else as the text sent (``0012``, ``12.50``)."""
+    texts = [c for c in cells if c is not None and c != ""]
+    for kind in (int, float):
+        try:
+            numbers = [kind(t) for t in texts]
+        except ValueError:
+            continue
+        if [repr(x) for x in numbers] == texts:
+            it = iter(numbers)
+            return [None if c is None or c == "" else next(it) for c in cells]
+    return [None if c == "" else c for c in cells]
+
+
+def check_number_cells(table, lines: Sequence[str], ecsv: bool, names: Sequence[str], delimiter: str = ",") -> None:
+    """Raise a 422 :class:`TableError` naming the column and rows where a column of ``names`` that
+    astropy read as numbers holds a cell not written as one (CSV: ``0x10`` is 16 to C's strtod; ECSV:
+    ``4_1.6`` is 41.6 to numpy).  The text is looked at once for such characters, and the cells read
+    again as text only when it holds some; the HTTP edge and the command line both check so."""
+    numeric = [name for name in names if table[name].dtype.kind in "fiu"]
+    if numeric and _has_lenient_text(list(lines), ecsv):
+        try:
+            cells = _text_cells(lines, ecsv, delimiter)
+        except Exception as e:      # noqa: BLE001 - astropy's readers raise many kinds; the text is at fault
+            raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
+        _check_cells(cells, numeric, ecsv)
+
+
+def check_csv_text(lines: Sequence[str]) -> str:
+    """A CSV table's header checked (:func:`check_header`) and its delimiter (:func:`delimiter`)."""
+    sep = delimiter(header_line(lines))
+    check_header(lines, sep)
+    return sep
+
+
+def _text_cells(lines: Sequence[str], ecsv: bool, delimiter: str = ","):
+    """The table's cells as text, read again by astropy (only when a cell is in question)."""
+    from astropy.io import ascii
+    from astropy.table import Table
+
+    as_text = {"converters": {"*": [ascii.convert_numpy(str)]}, "guess": False}
+    if ecsv:
+        comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
+        return Table.read([line for line in lines if not line.startswith("#")], format="ascii.basic",
+                          delimiter="," if comma else " ", **as_text)
+    return Table.read(table_lines(lines), format="ascii.csv", delimiter=delimiter, **as_text)
+
+
+def _check_cells(raw, names: Sequence[str], ecsv: bool, declared: bool = False) -> None:
+    """The 422 naming each column of ``names`` and its rows whose text is not a plain number;
+    ``declared``: the ECSV header declares the column numeric, so any other text is refused too."""
+    errors: dict[str, list[str]] = {}
+    for name in names:
+        if name not in raw.colnames:
+            continue
+        cells = np.ma.getdata(raw[name])
+        rows = np.flatnonzero(not_plain_numbers(cells)).tolist()
+        label = name if ecsv else split_unit(name)[0]
+        # astropy read every cell of a column it made numeric; a declared one may hold plain text
+        taken = [rows[j] for j in lenient([str(cells[k]) for k in rows])] if declared else rows
+        if taken:
+            errors.update(lenient_cells(label, taken, [str(cells[k]) for k in taken[:3]]).errors)
+        elif rows and declared:
+            shown = "; ".join(f"row {k + 1} (system {k}): {str(cells[k])[:40]!r}" for k in rows[:3])
+            more = f" and {len(rows) - 3} more rows" if len(rows) > 3 else ""
+            errors[label] = [f"{shown}{more} is not a number, which the header's datatype for {label} declares"]
+    if errors:
+        raise TableError(422, "cells that are not numbers as written: " +
+                         "; ".join(f"{k}: {' '.join(v)}" for k, v in errors.items()), errors)
 
 
 # ----------------------------------------------------------------------------- request: columns body -> table
@@ -365,9 +567,14 @@ def encode_answer(response: Mapping, media_type: str, kept: Sequence[tuple[str, 
             raise series_refused(series)
     cols: list[tuple[str, Any, str, str | None]] = [(name, *_kept_values(v), unit) for name, v, unit in kept]
     extras = []
+    failed_rows = np.zeros(n, dtype=bool)
+    failed_rows[[int(p["index"]) for p in response.get("errors", [])]] = True
+    budget = response.get("budget") or {}
     for name, entry in response["columns"].items():
         if isinstance(entry, dict) and "value" in entry:
             unit = entry.get("unit") or None
+            if name in budget:          # the shares of its variance by input: NAME_budget_<term> columns
+                entry = {**entry, "budget": budget[name]}
             for key, v in entry.items():
                 if key == "unit":
                     continue
@@ -375,7 +582,10 @@ def encode_answer(response: Mapping, media_type: str, kept: Sequence[tuple[str, 
                 if isinstance(v, dict):             # e.g. terms of a variance budget: a column each
                     cols.extend((f"{col}_{term}", *_answer_values(a), None) for term, a in v.items())
                 else:
-                    cols.append((col, *_answer_values(v), unit if key in UNIT_KEYS else None))
+                    values, kind = _answer_values(v)
+                    if kind == "series" and isinstance(values, np.ndarray):
+                        values = (values, failed_rows)      # a failed system's series is null
+                    cols.append((col, values, kind, unit if key in UNIT_KEYS else None))
         else:                                       # a member per system (an ephemeris' events): JSON text
             extras.append((name, [None if x is None else json.dumps(x, separators=(",", ":")) for x in entry],
                            "json", None))
@@ -526,6 +736,10 @@ def _arrow_array(pa, v, kind: str):
         null = np.isnan(v)
         return pa.array(v, mask=null) if null.any() else pa.array(v)
     if kind == "series":
+        if isinstance(v, tuple):                    # (systems, points) and the failed systems' rows
+            v, failed = v
+            flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
+            return pa.FixedSizeListArray.from_arrays(flat, v.shape[1], mask=pa.array(failed) if failed.any() else None)
         if isinstance(v, np.ndarray):
             flat = pa.array(np.ascontiguousarray(v).reshape(-1), from_pandas=True)
             return pa.FixedSizeListArray.from_arrays(flat, v.shape[1])
@@ -598,6 +812,7 @@ def decode_answer(data: bytes, media_type: str) -> dict:
     values = {name: (v, unit) for name, v, unit in cols}
     n = len(cols[0][1]) if cols else 0
     columns: dict[str, Any] = {}
+    budget: dict[str, dict[str, Any]] = {}
     uncertainty = dict(meta.get("uncertainty") or {})
     taken = set(ERROR_COLUMNS)
     for name in names:
@@ -619,6 +834,9 @@ def decode_answer(data: bytes, media_type: str) -> dict:
             if other not in taken and other.startswith(name + "_") and (other[len(name) + 1:] in UNIT_KEYS):
                 entry[other[len(name) + 1:]] = values[other][0]
                 taken.add(other)
+            elif other not in taken and other.startswith(name + "_budget_"):
+                budget.setdefault(name, {})[other[len(name) + len("_budget_"):]] = values[other][0]
+                taken.add(other)
         entry["unit"] = unit or ""
         columns[name] = entry
     status = values.get("error_status", (None,))[0]
@@ -634,6 +852,8 @@ def decode_answer(data: bytes, media_type: str) -> dict:
            "warnings": warnings, "uncertainty": uncertainty}
     if "provenance" in meta:
         out["provenance"] = meta["provenance"]
+    if budget:
+        out["budget"] = budget
     return out
 
 
@@ -649,8 +869,12 @@ def _decode_arrow(data: bytes):
         t = field.type
         if pa.types.is_floating(t):
             v = column.to_numpy()
-        elif pa.types.is_fixed_size_list(t) and column.null_count == 0:
-            v = column.combine_chunks().flatten().to_numpy(zero_copy_only=False).reshape(len(column), t.list_size)
+        elif pa.types.is_fixed_size_list(t):
+            # (systems, points); a failed system's null series is a row of NaN, as null numbers are
+            whole = column.combine_chunks()
+            v = whole.values.to_numpy(zero_copy_only=False).astype(float).reshape(len(column), t.list_size)
+            if whole.null_count:
+                v[whole.is_null().to_numpy(zero_copy_only=False)] = np.nan
         else:
             v = column.to_pylist()
         cols.append((field.name, v, unit))

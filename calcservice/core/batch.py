@@ -29,6 +29,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from ..columns import column_array, correlated_columns, uncertain_parts, unit_of
 from ..config import Limits
 from ..engine import EngineError, Measured, Result, correlation_matrix
 from ..registry import Calculation, Input
@@ -49,11 +50,14 @@ _BAD = object()
 ABSENT, EXACT, NORMAL, ASYMMETRIC, ISOTROPIC = 0, 1, 2, 3, 4
 
 
-def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False) -> dict:
+def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False,
+                  series_arrays: bool = False) -> dict:
     """A batch request (rows or columns) to its answer; raises :class:`Problem` only for the batch
     as a whole (unknown calculation, malformed body, a bad batch-wide option, limits).  ``for_json``:
     the answer goes straight to a numpy-aware encoder, so the columns of a columns answer stay numpy
-    float arrays, NaN where a system has no value; otherwise lists with None, as the JSON reads."""
+    float arrays, NaN where a system has no value; otherwise lists with None, as the JSON reads.
+    ``series_arrays``: a series output stays an array (systems, points), NaN in a failed system's row,
+    for a table whose list column has one type whichever systems fail (JSON gives that system null)."""
     calc = find(name)
     limits = limits or Limits()
     if not isinstance(body, dict):
@@ -66,7 +70,7 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: 
         raise invalid({k: ["unknown field"] for k in sorted(unknown)})
     if "systems" in body:
         return compute_rows(calc, body, limits)
-    response = compute_columns(calc, body, limits)
+    response = compute_columns(calc, body, limits, series_arrays)
     if not for_json:
         for entry in response["columns"].values():
             if isinstance(entry, dict):
@@ -127,6 +131,11 @@ class Evaluated:
     groups: list[Group] = field(default_factory=list)
     problems: dict[int, Problem] = field(default_factory=dict)    # system index -> its problem
     seed: int | None = None                                        # the Monte Carlo seed of the batch
+    # each system's form of each input (quantities: ABSENT...; choices: an index into ``levels``),
+    # from which the outputs a failed system would have had are found (:func:`expected_outputs`)
+    forms: dict[str, np.ndarray] = field(default_factory=dict)
+    levels: dict[str, list] = field(default_factory=dict)
+    shared: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -235,6 +244,8 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
             converted[name] = (x, sm, sp)
             code = np.where(sm != sp, ASYMMETRIC, np.where(sm > 0, NORMAL, EXACT))
             codes.append(np.where(given, np.where(iso, ISOTROPIC, code), ABSENT))
+            # given, even where unreadable: its outputs are columns of the answer all the same
+            out.forms[name] = np.where(given | c.slow, EXACT, ABSENT)
     levels: dict[str, list] = {}
     for name, ch in choices.items():
         spec = calc.input(name)
@@ -245,7 +256,9 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
         distinct = {v: j for j, v in enumerate(dict.fromkeys(values))}
         levels[name] = list(distinct)
         codes.append(np.array([distinct[v] for v in values]))
+        out.forms[name] = np.where(ch.slow, len(distinct), codes[-1])     # an unreadable choice: past the levels
 
+    out.levels, out.shared = levels, shared
     fast = np.flatnonzero(~slow)
     every = fast.size == n
     codes = [c if every else c[fast] for c in codes]
@@ -504,7 +517,7 @@ def _column_length(name: str, raw) -> int | None:
     return None
 
 
-def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
+def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays: bool = False) -> dict:
     """``{"columns": {...}}`` to ``{"columns": {output: {"value": [...], ...}}, "errors": [...]}``."""
     given = body["columns"]
     if not isinstance(given, dict) or not given:
@@ -512,6 +525,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
     unknown = [k for k in given if k not in {s.name for s in calc.inputs}]
     if unknown:
         raise invalid({f"columns.{k}": [f"{calc.name} has no input {k!r}"] for k in unknown})
+    given = array_columns(calc, given)
     lengths = {}
     for name, raw in given.items():
         if calc.input(name).kind != "series":
@@ -564,10 +578,103 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits) -> dict:
         return row
 
     done = evaluate_groups(calc, n, columns, choices, shared, row_body, limits)
-    answer = columns_answer(calc, done)
+    answer = columns_answer(calc, done, limits, series_arrays)
     if shared.get("time_format") == "mjd":
         answer["time_format"] = "mjd"
     return answer
+
+
+def _is_array(v) -> bool:
+    """A library caller's array: numpy (masked too), an astropy Quantity or Column, a pandas Series."""
+    return not isinstance(v, (list, tuple, dict, str, bytes)) and hasattr(v, "__array__") and np.ndim(v) >= 1
+
+
+def _number_array(v, where: str) -> np.ndarray:
+    """A library caller's column of numbers as floats, NaN where missing (masked, NaN, None); a column of
+    text, booleans, complex numbers or other objects is refused naming ``where``."""
+    dtype = getattr(v, "dtype", None)
+    kind = getattr(dtype, "kind", "O")
+    why = {"U": "text", "S": "bytes", "b": "booleans", "c": "complex numbers", "M": "dates", "m": "durations"}.get(kind)
+    if why is None and kind == "O" and any(isinstance(x, (str, bytes, bool, np.bool_, complex))
+                                           for x in np.asarray(v).ravel().tolist()):
+        why = "text or other objects"
+    if why is None:
+        try:
+            arr = column_array(v, where)
+        except ValueError as e:
+            raise invalid({where: [str(e).partition(": ")[2] or str(e)]}) from None
+        if arr.dtype.kind == "f" and arr.ndim == 1:
+            return arr
+        why = "text or other objects" if arr.ndim == 1 else f"{arr.ndim} dimensions"
+    raise invalid({where: [f"an array of {why} ({dtype}) is no column of numbers: give floats or integers, one "
+                           "per system (NaN or a masked entry where a system lacks it); text such as "
+                           "'isotropic' goes in a list"]})
+
+
+def array_columns(calc: Calculation, given: dict) -> dict:
+    """A library caller's columns (numpy arrays, masked arrays, Quantities, pandas Series, arrays of
+    ``uncertainties`` numbers, numpy scalars) in the forms the JSON columns take, converted once by
+    the client's own column conversion (:func:`calcservice.columns.column_array`): numbers as float
+    arrays (NaN: not given), a Quantity's unit as the column's, a sigma Quantity in the value's unit."""
+    out: dict[str, Any] = {}
+    uncertain: dict[str, list] = {}
+    for name, raw in given.items():
+        spec = calc.input(name)
+        where = f"columns.{name}"
+        if isinstance(raw, np.generic):
+            raw = raw.item()
+        if spec.kind == "series" and _is_array(raw):
+            values = np.asarray(getattr(raw, "value", raw)).tolist()
+            raw = {"value": values, "unit": unit_of(raw)} if unit_of(raw) else values
+        elif spec.kind != "quantity" and _is_array(raw):
+            arr = np.ma.asarray(np.asarray(raw) if not np.ma.isMaskedArray(raw) else raw)
+            raw = [None if m else v for v, m in zip(arr.data.tolist(), np.ma.getmaskarray(arr).tolist())]
+        elif spec.kind == "quantity" and uncertain_parts(raw) is not None:
+            uncertain[name] = np.asarray(raw).tolist()
+            value, sigma = uncertain_parts(raw)
+            raw = {"value": value, "sigma": sigma}
+        elif _is_array(raw):
+            unit = unit_of(raw)
+            raw = {"value": _number_array(raw, where), **({"unit": unit} if unit else {})}
+        elif isinstance(raw, dict) and any(_is_array(v) or isinstance(v, np.generic) for v in raw.values()):
+            raw = dict(raw)
+            value = raw.get("value")
+            if _is_array(value):
+                own = unit_of(value)
+                arr = _number_array(value, f"{where}.value")
+                if own and raw.get("unit") is None:
+                    raw["unit"] = own
+                elif own:
+                    arr = arr * _factor(own, raw["unit"], f"{where}.value")
+                raw["value"] = arr
+            target = raw.get("unit") or spec.unit
+            for key, v in list(raw.items()):
+                if isinstance(v, np.generic):
+                    raw[key] = v.item()
+                elif key == "samples" and _is_array(v):     # each system's draws, (systems, draws)
+                    own = unit_of(v)
+                    if own and raw.get("unit") is None:
+                        raw["unit"] = own
+                    draws = np.asarray(getattr(v, "value", v))
+                    if draws.dtype.kind not in "iuf":
+                        raise invalid({f"{where}.samples": [f"draws are numbers, not {draws.dtype}"]})
+                    raw[key] = draws.astype(float).tolist()
+                elif key != "value" and _is_array(v):
+                    arr = _number_array(v, f"{where}.{key}")
+                    own = unit_of(v)
+                    raw[key] = arr * _factor(own, target, f"{where}.{key}") if own and own != target else arr
+        out[name] = raw
+    correlated = correlated_columns(uncertain)
+    if correlated:
+        raise invalid({f"columns.{correlated[0]}": [correlated[1]]})
+    return out
+
+
+def _factor(unit: str, target: str, where: str) -> float:
+    try:
+        return factor(unit, target)
+    except UnitError as e:
+        raise invalid({where: [str(e)]}) from None
 
 
 def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column, Callable[[int], Any]]:
@@ -645,10 +752,10 @@ def _quantity_column(spec: Input, raw, n: int, limits: Limits) -> tuple[_Column,
     for _, b in sigmas.values():
         bad |= b
     if "sigma" in sigmas:
-        sm = sp = np.nan_to_num(sigmas["sigma"][0], nan=0.0)
+        sm = sp = np.where(np.isnan(sigmas["sigma"][0]), 0.0, sigmas["sigma"][0])
     elif sigmas:
-        sm = np.nan_to_num(sigmas["sigma_minus"][0], nan=0.0)
-        sp = np.nan_to_num(sigmas["sigma_plus"][0], nan=0.0)
+        sm = np.where(np.isnan(sigmas["sigma_minus"][0]), 0.0, sigmas["sigma_minus"][0])
+        sp = np.where(np.isnan(sigmas["sigma_plus"][0]), 0.0, sigmas["sigma_plus"][0])
         one_sided = np.isnan(sigmas["sigma_minus"][0]) != np.isnan(sigmas["sigma_plus"][0])
         bad |= one_sided
     else:
@@ -690,21 +797,83 @@ def _isotropic_entries(spec: Input, items: list, bad: np.ndarray) -> np.ndarray:
     return iso
 
 
-def columns_answer(calc: Calculation, done: Evaluated) -> dict:
+def expected_outputs(calc: Calculation, done: Evaluated, limits: Limits) -> dict[str, tuple]:
+    """The outputs (name -> trailing shape of a series) the failed systems would have had, from the
+    inputs each gave: a columns answer has the same columns whichever systems fail.  Each distinct
+    set of given inputs (a required input, or one of an exactly-one-of group, taken as given) runs
+    once through the engine with NaN for every number: the physics says which outputs it gives."""
+    failed = np.array(sorted(done.problems), dtype=np.int64)
+    if not failed.size:
+        return {}
+    names = list(done.forms)
+    if names:
+        keys = np.stack([np.asarray(done.forms[name])[failed] for name in names], axis=1)
+        keys = np.unique(keys, axis=0).tolist()
+    else:
+        keys = [[]]
+    shapes: dict[str, tuple] = {}
+    for key in keys:
+        form = dict(zip(names, key))
+        given = {name for name in names if name not in done.levels and form[name] != ABSENT}
+        given |= {spec.name for spec in calc.inputs if spec.kind == "quantity" and spec.required
+                  and spec.default is None}
+        for group in calc.exclusive:
+            present = [g for g in group if g in given]
+            given -= set(present[1:])
+            if not present:
+                given.add(group[0])
+        for group in calc.at_most_one:
+            given -= set([g for g in group if g in given][1:])
+        series = {spec.name for spec in calc.inputs if spec.kind == "series"}
+        data = {k: v for k, v in done.shared.items() if k == "time_format" or k in series}
+        nan = np.full(1, np.nan)
+        for name in given:
+            data[name] = RawQuantity(nan, np.zeros(1), np.zeros(1))
+        for name, levels in done.levels.items():
+            spec = calc.input(name)
+            value = levels[form[name]] if form[name] < len(levels) else None
+            if value is None and spec.default is None and spec.kind == "choice" and spec.required:
+                value = spec.choices[0]
+            if value is not None:
+                data[name] = value
+        try:
+            parsed = build(calc, data, limits)
+            result = run(parsed)
+        except Problem:
+            continue
+        for name, entry in result.outputs.items():
+            shapes.setdefault(name, entry["value"].shape[1:])
+        if calc.extra is not None:          # members per system (an ephemeris' events): null columns too
+            with np.errstate(all="ignore"):
+                for extra in calc.extra(parsed.quantities, parsed.statics, parsed.options,
+                                        time_format=parsed.time_format) or []:
+                    shapes.update(dict.fromkeys([key for key in extra if key not in shapes], None))
+    return shapes
+
+
+def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_arrays: bool = False) -> dict:
     """The columns response; its arrays are numpy float arrays, NaN where a system has no value
-    (null in JSON: the edge's encoder writes non-finite floats so)."""
+    (null in JSON: the edge's encoder writes non-finite floats so).  Its columns do not depend on
+    which systems failed: an output of a failed system is a column of nulls, in the batch's units."""
     n = done.n
     ok = [g for g in done.groups if g.problem is None]
-    units = ok[0].parsed.output_units if ok else {}
-    present = [o for o in calc.outputs if any(o.name in g.result.outputs for g in ok)]
+    units = output_units(calc, done.shared.get("units", {}), {})
+    expected = expected_outputs(calc, done, limits)
+    present = [o for o in calc.outputs if o.name in expected or any(o.name in g.result.outputs for g in ok)]
+    outputs = {o.name for o in calc.outputs}
+    batch_method = (done.shared.get("uncertainty") or {}).get("method", "linear")
+    drawn = batch_method == "monte_carlo" or any(g.result.method == "monte_carlo" for g in ok)
+    members = ("value", "sigma", "low", "high") if drawn else ("value", "sigma")
     # one engine call for the whole catalogue, in order (the usual case): its arrays need no scatter
     whole = ok[0] if len(ok) == 1 and len(ok[0].rows) == n and (ok[0].rows == np.arange(n)).all() else None
     columns: dict[str, dict] = {}
     for o in present:
         unit = units.get(o.name, o.unit)
         k = factor(o.unit, unit) if unit != o.unit else 1.0
-        keys = dict.fromkeys(key for g in ok if o.name in g.result.outputs for key in g.result.outputs[o.name])
-        trail = next(g.result.outputs[o.name]["value"].shape[1:] for g in ok if o.name in g.result.outputs)
+        keys = dict.fromkeys(key for g in ok if o.name in g.result.outputs for key in g.result.outputs[o.name]) \
+            or dict.fromkeys(members)
+        trail = next((g.result.outputs[o.name]["value"].shape[1:] for g in ok if o.name in g.result.outputs),
+                     expected.get(o.name, ()))
         entry: dict[str, Any] = {}
         for key in keys:
             if whole is not None and o.name in whole.result.outputs:
@@ -724,14 +893,14 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
         for key, arr in entry.items():
             if key != "unit":
                 arr[failed] = np.nan            # numpy arrays: the JSON encoder writes NaN as null
-                if arr.ndim > 1 and done.problems:
+                if arr.ndim > 1 and done.problems and not series_arrays:
                     # a failed system's series is null, not a list of nulls
                     values = clean_array(arr)
                     for i in done.problems:
                         values[i] = None
                     entry[key] = values
 
-    extras: dict[str, list] = {}
+    extras: dict[str, list] = {key: [None] * n for key in expected if key not in outputs}
     warned: dict[tuple[str, str, str | None], np.ndarray] = {}
     seeds, samples = set(), set()
     rejected = np.full(n, np.nan)
@@ -758,7 +927,7 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
     for g in ok:
         answered[g.rows] = True
     answered &= ~failed
-    methods = {g.result.method for g in ok if answered[g.rows].any()}
+    methods = {g.result.method for g in ok if answered[g.rows].any()} or {batch_method}
     if len(methods) == 1:
         uncertainty: dict[str, Any] = {"method": methods.pop()}
     else:                                       # a method per system (None where none answered)
@@ -767,9 +936,13 @@ def columns_answer(calc: Calculation, done: Evaluated) -> dict:
             method[g.rows] = g.result.method
         method[~answered] = None
         uncertainty = {"method": method.tolist()}
+    if not seeds and batch_method == "monte_carlo":      # no system answered: the batch's draws
+        unc = done.shared.get("uncertainty") or {}
+        seeds.add(unc.get("seed", done.seed))
+        samples.add(unc.get("samples", limits.default_samples))
     if seeds:
         uncertainty["samples"] = samples.pop() if len(samples) == 1 else sorted(samples)
-        uncertainty["seed"] = seeds.pop() if len(seeds) == 1 else sorted(seeds)
+        uncertainty["seed"] = seeds.pop() if len(seeds) == 1 else sorted(seeds, key=lambda s: (s is None, s))
         uncertainty["rejected_fraction"] = rejected
     response = {
         "calculation": calc.name,

@@ -46,7 +46,7 @@ def number(x: Any, what: str = "value") -> float:
     except OverflowError:
         f = math.inf
     if math.isinf(f):
-        raise ValidationError(f"{what} is too large: it overflows a double (about 1.8e308)")
+        raise ValidationError(f"{what} is not finite: infinite, or beyond a double (about 1.8e308)")
     if not math.isfinite(f):
         raise ValidationError(f"{what} must be finite")
     return f
