@@ -257,6 +257,7 @@ def test_a_table_body_is_never_read_as_a_path_on_the_server(client, tmp_path, me
         r = client.post("/v1/batch/sb2", data=body.encode(), content_type=media_type)
         assert r.status_code == 422, (body, r.status_code)
         assert "confidential" not in r.get_data(as_text=True)
-        assert body in r.get_json()["errors"]           # the body's own text is the unknown column
+        # the body's own text is the unknown column (a long name shortened to 80 characters)
+        assert [k for k in r.get_json()["errors"] if body.startswith(k.rstrip("…"))], r.get_json()["errors"]
     r = client.post("/v1/batch/sb2", data=b"", content_type=media_type)
     assert r.status_code == 422 and r.is_json
