@@ -331,3 +331,23 @@ def test_the_library_takes_numpy_scalars_as_the_numbers_they_hold():
     with pytest.raises(Problem) as refused:                 # a numpy boolean is no number, as true is not
         compute("sb2", {**plain, "period": np.bool_(True)})
     assert "period" in refused.value.errors
+
+
+def test_library_arrays_of_samples_and_times_are_the_lists_they_hold():
+    # a 1-D numpy array is the JSON list numpy's own .tolist() gives; a Quantity (whose unit would be
+    # lost), a 2-D, text or boolean array is refused naming the input
+    import astropy.units as u
+    import numpy as np
+    from calcservice.core import Problem, compute
+    draws = np.random.default_rng(1).normal(30.0, 0.5, 300)
+    base = {"period": 41.6, "eccentricity": 0.1}
+    assert compute("sb1", {**base, "k1": {"samples": draws}})["results"] == \
+        compute("sb1", {**base, "k1": {"samples": draws.tolist()}})["results"]
+    times = np.array([2450001.0, 2450002.5])
+    orbit = {"period": 41.6, "k1": 30.0, "eccentricity": 0.1, "omega": 20.0, "t_periastron": 2450000.0}
+    assert compute("ephemeris", {**orbit, "times": times})["results"] == \
+        compute("ephemeris", {**orbit, "times": times.tolist()})["results"]
+    for bad in (draws * u.km / u.s, draws.reshape(10, 30), draws.astype(str), draws > 30.0):
+        with pytest.raises(Problem) as refused:
+            compute("sb1", {**base, "k1": {"samples": bad}})
+        assert "k1" in refused.value.errors and refused.value.status == 422

@@ -52,6 +52,19 @@ def number(x: Any, what: str = "value") -> float:
     return f
 
 
+def listed(x: Any, what: str) -> Any:
+    """A library caller's 1-D numpy array of numbers as the JSON list it stands for (anything else as
+    it is, for the list rules to judge); an astropy Quantity is refused, its unit would be lost."""
+    if not isinstance(x, np.ndarray):
+        return x
+    if hasattr(x, "unit"):
+        raise ValidationError(f"{what} is an astropy Quantity: give its numbers (q.value) "
+                              'and its unit ("unit": q.unit.to_string())')
+    if x.ndim != 1 or x.dtype.kind not in "iuf":
+        raise ValidationError(f"{what} must be a list of numbers (a 1-D numeric array)")
+    return x.tolist()
+
+
 def number_array(x: Any, what: str, limit: int) -> np.ndarray:
     if not isinstance(x, list):
         raise ValidationError(f"{what} must be a list of numbers")
@@ -238,8 +251,9 @@ class MeasuredField(_CheckedField):
         if "samples" in value:
             if set(value) - {"samples", "unit"}:
                 raise ValidationError("samples cannot be combined with value or sigma")
-            within(spec.name, "samples", value["samples"], self.limits, "max_sample_array")
-            s = number_array(value["samples"], "samples", self.limits.max_sample_array)
+            samples = listed(value["samples"], "samples")
+            within(spec.name, "samples", samples, self.limits, "max_sample_array")
+            s = number_array(samples, "samples", self.limits.max_sample_array)
             if len(s) < 2:
                 raise ValidationError("samples must hold at least 2 draws")
             with np.errstate(over="ignore", invalid="ignore"):
@@ -304,6 +318,7 @@ class SeriesField(_CheckedField):
                 raise ValidationError("unit must be a string")
         else:
             unit = None
+        value = listed(value, "the list")
         if not isinstance(value, list) or not value:
             raise ValidationError("must be a non-empty list")
         within(self.spec.name, "the list", value, self.limits, "max_series")
