@@ -14,6 +14,7 @@ from astropy import units as u
 from uncertainties import umath
 
 from tests.conftest import post
+from tests.engine_helpers import correlated_ufloats
 
 GM_SUN = const.GM_sun.si.value          # IAU 2015 Resolution B3 nominal, m^3 s^-2
 AU = const.au.si.value                  # IAU 2012 Resolution B2, m
@@ -46,17 +47,8 @@ def body(values, **options):
     return b
 
 
-def ufloats(values, correlations):
-    names = list(values)
-    cov = np.diag([values[n][1] ** 2 for n in names])
-    for (a, b), rho in correlations.items():
-        i, j = names.index(a), names.index(b)
-        cov[i, j] = cov[j, i] = rho * values[a][1] * values[b][1]
-    return dict(zip(names, uncertainties.correlated_values([values[n][0] for n in names], cov)))
-
-
 def sb2_uncertain(values, correlations):
-    x = ufloats(values, correlations)
+    x = correlated_ufloats(values, correlations)
     return sb2_reference(**x, sin=umath.sin, radians=umath.radians)
 
 
@@ -339,7 +331,7 @@ def linear_check(client, path, values, reference, outputs, correlations=None, re
         b["correlations"] = [{"between": list(pair), "rho": rho} for pair, rho in correlations.items()]
     status, got = post(client, path, b)
     assert status == 200, got
-    ref = reference(**ufloats(values, correlations))
+    ref = reference(**correlated_ufloats(values, correlations))
     for name in outputs:
         r = ref[name]
         assert got["results"][name]["value"] == pytest.approx(r.nominal_value, rel=rel_value), name
