@@ -34,6 +34,7 @@ PUBLISHED = {
     "Mikkola (1987)": "Celestial Mechanics 40, 329",
     "Jeans (1924)": "MNRAS 85, 2",
     "Huang (1963)": "ApJ 138, 471",
+    "van den Heuvel (1997)": "A&A 327, 620",           # Soberman, Phinney & van den Heuvel
     "Prsa et al. 2016": "AJ 152, 41",                   # IAU 2015 Resolution B3
 }
 

@@ -18,6 +18,8 @@ HUANG_1963 = "S.-S. Huang (1963), ApJ 138, 471 (modes of mass ejection and the o
 RYBICKI_LIGHTMAN_1979 = ("G. B. Rybicki & A. P. Lightman (1979), Radiative Processes in Astrophysics, Wiley, "
                          "eq. 5.19b (Rayleigh-Jeans free-free absorption coefficient)")
 JEANS_1924 = "J. H. Jeans (1924), MNRAS 85, 2 (secular change of an orbit losing mass)"
+SOBERMAN_1997 = ("G. E. Soberman, E. S. Phinney & E. P. J. van den Heuvel (1997), A&A 327, 620 (stability criteria "
+                 "for mass transfer; isotropic re-emission)")
 
 POSITIVE_BELOW_ONE = Domain(0.0, 1.0, low_open=True)
 HALF_ANGLE = Domain(0.0, 90.0, low_open=True, high_open=True)
@@ -353,6 +355,17 @@ def _period_change_check(inputs, outputs):
         if rate is not None and np.any(rate < 0):
             out.append(Warning("transfer_reversed", "the rate is negative: mass flows from star 2 to star 1",
                                rate < 0))
+    if mode == "isotropic-re-emission":
+        q = inputs["m1"] / inputs["m2"]
+        near = np.abs(q - phys.REEMISSION_STATIONARY_Q) < 0.03 * phys.REEMISSION_STATIONARY_Q
+        if np.any(near):
+            out.append(Warning("near_stationary_mass_ratio", "near q = M1/M2 = 1.387 isotropic re-emission barely "
+                               "changes the period for any transfer rate: the rate is poorly determined", near))
+        rate = outputs.get("mass_loss_rate")
+        if rate is not None and np.any(rate < 0):
+            out.append(Warning("transfer_reversed", "the rate is negative: re-emission of matter from star 1 cannot "
+                               "change the period this way at this mass ratio; another process dominates",
+                               rate < 0))
     return out
 
 
@@ -360,30 +373,36 @@ register(Calculation(
     name="mass-loss-period-change",
     path="/v1/winds/mass-loss/period-change",
     title="Mass-loss or transfer rate from the rate of change of the orbital period",
-    summary="The isotropic-wind (Jeans mode) mass-loss rate of the system, or the rate of conservative mass "
-            "transfer from star 1 to star 2, that explains a measured period derivative.",
+    summary="The isotropic-wind (Jeans mode) mass-loss rate of the system, the rate of conservative mass "
+            "transfer from star 1 to star 2, or the rate of transfer from star 1 that star 2 re-emits (isotropic "
+            "re-emission), that explains a measured period derivative.",
     inputs=(
         Input("period", "d", "orbital period", POSITIVE, example=6.3),
         Input("period_derivative", "s/yr", "rate of change of the period dP/dt (any time-per-time unit)", ANY,
               example=0.21),
-        Input("m1", "solMass", "mass of star 1 (the donor in the conservative mode)", POSITIVE, example=27.0),
+        Input("m1", "solMass", "mass of star 1 (the donor in the conservative and re-emission modes)", POSITIVE,
+              example=27.0),
         Input("m2", "solMass", "mass of star 2", POSITIVE, example=11.0),
         Input("mode", "", "jeans: isotropic fast wind carrying its star's specific orbital angular momentum "
               "(Pdot/P = -2 (dM/dt)/(M1 + M2)); conservative: transfer from star 1 to star 2 keeping total mass and "
-              "orbital angular momentum (Pdot/P = 3 (dM1/dt)(M1 - M2)/(M1 M2))", kind="choice",
-              choices=("jeans", "conservative"), example="jeans"),
+              "orbital angular momentum (Pdot/P = 3 (dM1/dt)(M1 - M2)/(M1 M2)); isotropic-re-emission: transfer "
+              "from star 1 that star 2 re-emits at once with its own specific orbital angular momentum "
+              "(Pdot/P = (dM1/dt) [3 M1/(M M2) - 3/M1 + 1/M], M = M1 + M2)", kind="choice",
+              choices=("jeans", "conservative", "isotropic-re-emission"), example="jeans"),
     ),
     outputs=cited((
-        Output("mass_loss_rate", "solMass/yr", "jeans: rate of mass loss from the system -dM/dt; conservative: rate "
-               "of transfer from star 1 to star 2, -dM1/dt (both positive for the named direction)",
-               "jeans: (M1 + M2) Pdot / (2 P); conservative: -M1 M2 Pdot / (3 P (M1 - M2))"),
+        Output("mass_loss_rate", "solMass/yr", "jeans: rate of mass loss from the system -dM/dt; conservative and "
+               "isotropic-re-emission: rate of transfer from star 1, -dM1/dt (all positive for the named direction)",
+               "jeans: (M1 + M2) Pdot / (2 P); conservative: -M1 M2 Pdot / (3 P (M1 - M2)); isotropic-re-emission: "
+               "-(Pdot / P) / [3 M1/(M M2) - 3/M1 + 1/M], M = M1 + M2"),
         Output("relative_period_derivative", "1/yr", "Pdot / P", "Pdot / P"),
-    ), {"mass_loss_rate": (JEANS_1924, HUANG_1963, HILDITCH_2001)}, ()),
+    ), {"mass_loss_rate": (JEANS_1924, HUANG_1963, HILDITCH_2001, SOBERMAN_1997)}, ()),
     function=phys.period_change_mass_loss,
-    references=(JEANS_1924, HUANG_1963, HILDITCH_2001),
+    references=(JEANS_1924, HUANG_1963, HILDITCH_2001, SOBERMAN_1997),
     constants=("day", "julian_year"),
     conventions={"mass_loss_rate": "jeans: mass leaving the system is positive (a lengthening period); "
-                                   "conservative: transfer from star 1 to star 2 is positive",
+                                   "conservative and isotropic-re-emission: transfer from star 1 is positive",
+                 "orbit": "each mode keeps the eccentricity constant (its rule is that of a circular orbit)",
                  "period_derivative": "dP/dt, positive when the period lengthens; s/yr by default"}
     | {"symbols": SYMBOLS["mass-loss-period-change"]},
     # the mode is a choice: this constraint acts where constraints are shown the choices; otherwise the

@@ -386,11 +386,38 @@ def conservative_transfer_rate(period, period_derivative, m1, m2):
     return -m1 * m2 * relative_period_change(period, period_derivative) / (3.0 * (m1 - m2))
 
 
+def reemission_factor(m1, m2):
+    """The bracket of isotropic re-emission, (Pdot/P) / (dM1/dt) = 3 M1/(M M2) - 3/M1 + 1/M in 1/solMass
+    (see :func:`reemission_transfer_rate`); 0 at q = M1/M2 = (1 + 10^{1/2})/3."""
+    m = m1 + m2
+    return 3.0 * m1 / (m * m2) - 3.0 / m1 + 1.0 / m
+
+
+def reemission_transfer_rate(period, period_derivative, m1, m2):
+    """Rate (solMass/yr) of transfer from star 1 that star 2 re-emits at once, -dM1/dt (isotropic re-emission).
+
+    Star 2 keeps its mass; the matter leaves the system from star 2's neighbourhood with star 2's
+    specific orbital angular momentum, (M1/M)^2 a^2 Omega (Soberman, Phinney & van den Heuvel 1997,
+    "isotropic re-emission").  For a circular orbit, J = M1 M2 (G a / M)^{1/2} and
+    dJ/dt = (dM1/dt) (M1/M)^2 a^2 Omega give da/a = 2 (dM1) [M1/(M M2) - 1/M1 + 1/(2M)] (the orbit
+    widens for q = M1/M2 < 1.28) and, with Kepler's third law,
+    Pdot/P = (dM1/dt) [3 M1/(M M2) - 3/M1 + 1/M], M = M1 + M2.  The result is
+    -dM1/dt = -(Pdot/P) / [3 M1/(M M2) - 3/M1 + 1/M]; the period does not change to first order at
+    3 q^2 - 2 q - 3 = 0, q = (1 + 10^{1/2})/3 = 1.387.
+    """
+    return -relative_period_change(period, period_derivative) / reemission_factor(m1, m2)
+
+
+REEMISSION_STATIONARY_Q = (1.0 + np.sqrt(10.0)) / 3.0     # the mass ratio M1/M2 at which Pdot = 0 in that mode
+
+
 def period_change_mass_loss(period, period_derivative, m1, m2, mode=None, **_):
-    """Mass-loss (or transfer) rate from Pdot in the chosen mode ("jeans" or "conservative")."""
+    """Mass-loss (or transfer) rate from Pdot in the chosen mode ("jeans", "conservative" or
+    "isotropic-re-emission")."""
     rate = np.where(mode == "jeans", jeans_mass_loss(period, period_derivative, m1, m2),
                     np.where(mode == "conservative", conservative_transfer_rate(period, period_derivative, m1, m2),
-                             np.nan))
+                             np.where(mode == "isotropic-re-emission",
+                                      reemission_transfer_rate(period, period_derivative, m1, m2), np.nan)))
     return {"mass_loss_rate": rate, "relative_period_derivative": relative_period_change(period, period_derivative)}
 
 
