@@ -372,7 +372,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     try:
         text = data.decode("utf-8-sig")         # a spreadsheet's byte order mark is no part of a name
     except UnicodeDecodeError as e:
-        raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start})") from None
+        raise TableError(400, f"the CSV body is not valid UTF-8 (byte {e.start}): save the table as UTF-8") from None
     if "\x00" in text:         # C's reader ends a cell there: what follows would be silently lost
         line = text.count("\n", 0, text.index("\x00")) + 1
         raise TableError(400, f"the {'ECSV' if is_ecsv(text) else 'CSV'} body holds a NUL byte (line {line})",

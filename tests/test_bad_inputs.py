@@ -343,3 +343,16 @@ def test_a_lone_surrogate_in_a_field_name_is_named_not_a_500(client, path, body,
     # in a batch the system's error comes back in place, the batch answered
     r = client.post("/v1/batch/sb2", data=b'{"systems": [' + body + b']}', content_type="application/json")
     assert r.status_code == 200 and "error" in r.get_json()["results"][0]
+
+
+def test_a_body_in_another_charset_is_refused_saying_json_is_utf8(client):
+    # RFC 8259 sect. 8.1: JSON exchanged between systems is UTF-8; a Latin-1 body (one byte 0xe9 for é) is
+    # malformed, whatever the Content-Type's charset says, and a CSV body the same
+    text = '{"period": 10, "k1": 20, "eccentricity": 0.1, "note": "café"}'
+    r = client.post("/v1/spectroscopic/sb1", data=text.encode("latin-1"),
+                    content_type="application/json; charset=latin-1")
+    assert r.status_code == 400 and "UTF-8" in r.get_json()["detail"] and "RFC 8259" in r.get_json()["detail"]
+    assert r.get_json()["detail"].startswith(f"the request body is not valid UTF-8 (byte {text.index('é')})")
+    r = client.post("/v1/batch/sb1", data="period,k1,eccentricity\n10,20,0.1 # café\n".encode("latin-1"),
+                    content_type="text/csv")
+    assert r.status_code == 400 and "UTF-8" in r.get_json()["detail"]

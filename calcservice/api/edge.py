@@ -202,7 +202,8 @@ def parse_json(data: bytes, limits):
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as e:
-        raise Problem(400, f"the request body is not valid UTF-8 (byte {e.start})") from None
+        raise Problem(400, f"the request body is not valid UTF-8 (byte {e.start}): JSON is exchanged in UTF-8 "
+                           "(RFC 8259), whatever charset the Content-Type names") from None
     try:
         body = _loads_checked(text)
     except RecursionError:
