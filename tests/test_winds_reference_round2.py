@@ -491,3 +491,22 @@ def test_shell_forecast_round_trip_and_sigma(client):
     d = ufloat(dist, 120.0)
     ref = (speed * (t_obs - t0) / 365.25 / (1 * u.au / u.yr).to_value(u.km / u.s)) * 1e3 / d
     assert series["angular_radius"]["sigma"][1] == pytest.approx(ref.std_dev, rel=1e-5)
+
+
+def test_radio_gaunt_factor_not_positive_is_refused_naming_frequency_and_temperature(client):
+    # 1 + 0.13 log10(T^{3/2} / (Z nu)) <= 0 for nu >= 10^{1/0.13} T^{3/2} / Z Hz (Leitherer & Robert 1991): about
+    # 49 THz at 1e4 K; there Wright & Barlow's rate has no value, and the refusal names the inputs that cause it
+    edge_ghz = 10 ** (1 / 0.13) * 1e4**1.5 / 1e9
+    base = {"flux_density": 2.0, "distance": 1.5, "vinf": 1800.0, "temperature": 1.0e4, "z_rms": 1.0}
+    status, doc = post(client, RADIO, {**base, "frequency": 1.01 * edge_ghz})
+    assert status == 422 and {"frequency", "temperature"} <= set(doc["errors"]), doc
+    assert "Gaunt" in doc["errors"]["frequency"][0]
+    # with the wind type's default temperature (wn: 1e4 K) the same
+    status, doc = post(client, RADIO, {"flux_density": 2.0, "distance": 1.5, "vinf": 1800.0, "wind_type": "wn",
+                                       "frequency": 1.01 * edge_ghz})
+    assert status == 422 and "frequency" in doc["errors"], doc
+    # just below the edge the rate is given, with the far-infrared warning
+    doc = answer(client, RADIO, {**base, "frequency": 0.99 * edge_ghz})
+    assert "gaunt_factor_out_of_range" in codes(doc)
+    assert doc["results"]["gaunt_factor"]["value"] == pytest.approx(gaunt(1e4, 0.99 * edge_ghz * 1e9, 1.0),
+                                                                   rel=1e-12)

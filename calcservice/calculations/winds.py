@@ -246,6 +246,16 @@ def _wind_defaults(kind: str) -> str:
     return f"mu {mu:.10g}, Z {z:.10g}, gamma {gamma:.10g}, T {t:g} K"
 
 
+def _radio_gaunt_positive(frequency=None, temperature=None, z_rms=None, wind_type=None, **_):
+    """Rows where the radio Gaunt factor of the nominal inputs (with the wind type's defaults) is positive."""
+    if frequency is None:
+        return _rows(True)
+    _, default_z, _, default_t = phys.WIND_TYPES.get(wind_type or "o-star", (np.nan,) * 4)
+    g = phys.radio_gaunt_factor(default_t if temperature is None else temperature, frequency * 1.0e9,
+                                default_z if z_rms is None else z_rms)
+    return ~(g <= 0.0)
+
+
 def _radio_check(inputs, outputs):
     n = np.shape(outputs["mass_loss_rate"])
     out = [Warning("possibly_non_thermal", "in a colliding-wind binary part of the radio flux may be non-thermal "
@@ -328,6 +338,11 @@ register(Calculation(
                              "(mu = sum n_i A_i / sum n_i, Z^2 = sum n_i Z_i^2 / sum n_i, "
                              "gamma = sum n_i Z_i / sum n_i); compositions and temperatures are common practice"}
     | {"symbols": SYMBOLS["mass-loss-radio"]},
+    # where 1 + 0.13 log10(T^{3/2} / (Z nu)) <= 0 the rate has no value: the refusal names the inputs that cause it
+    constraints=(Constraint(("frequency", "temperature"), "the radio Gaunt factor g = 9.77 (1 + 0.13 log10(T^{3/2} / "
+                            "(Z nu))) of Leitherer & Robert (1991) is not positive at this frequency and electron "
+                            "temperature (nu >= 10^7.69 T^{3/2} / Z Hz, about 49 THz at 1e4 K): the radio "
+                            "approximation does not hold and no rate can be given", _radio_gaunt_positive),),
     check=with_speed_check(_radio_check, ("vinf",)),
     example={"flux_density": {"value": 1.8, "sigma": 0.1}, "frequency": 8.4, "distance": {"value": 2.1, "sigma": 0.3},
              "vinf": {"value": 1700.0, "sigma": 100.0}, "wind_type": "wn", "stellar_radius": 8.5},
