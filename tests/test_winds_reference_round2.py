@@ -510,3 +510,37 @@ def test_radio_gaunt_factor_not_positive_is_refused_naming_frequency_and_tempera
     assert "gaunt_factor_out_of_range" in codes(doc)
     assert doc["results"]["gaunt_factor"]["value"] == pytest.approx(gaunt(1e4, 0.99 * edge_ghz * 1e9, 1.0),
                                                                    rel=1e-12)
+
+
+def test_recipe_inputs_say_what_the_papers_mean(client):
+    # Nugis & Lamers (2000): Y and Z are surface mass fractions (Z all elements heavier than He), L in L_sun, Mdot in
+    # solMass/yr; Vink et al. (2001): Z relative to the Sun (from memory)
+    doc = client.get("/v1/calculations/mass-loss-recipe").get_json()
+    inputs = {i["name"]: i for i in doc["inputs"]}
+    assert "mass fraction" in inputs["helium_fraction"]["description"]
+    assert "mass fraction" in inputs["metal_fraction"]["description"]
+    assert "heavier than helium" in inputs["metal_fraction"]["description"]
+    assert inputs["luminosity"]["unit"] == "solLum"
+    assert "Z/Z_sun" in inputs["metallicity"]["description"]
+    outputs = {o["name"]: o for o in doc["outputs"]} if isinstance(doc["outputs"], list) else doc["outputs"]
+    assert outputs["mass_loss_rate"]["unit"] == "solMass/yr"
+
+
+@pytest.mark.parametrize("phase", [0.0, 0.1, 0.37, 0.5, 0.93])
+def test_collision_around_an_orbit_against_kepler(client, phase):
+    # a from Kepler's third law with astropy's IAU 2015 GM_sun, E - e sin E = 2 pi phase by brentq, r = a (1 - e cos E)
+    mdot1, v1, mdot2, v2 = 2.4e-5, 2300.0, 1.1e-6, 1900.0
+    period, e, m1, m2 = 2950.0, 0.64, 18.0, 24.0
+    a = ((const.GM_sun * (m1 + m2) * (period * u.d) ** 2 / (4 * math.pi**2)) ** (1 / 3)).to_value(u.au)
+    mean = 2 * math.pi * phase
+    big_e = brentq(lambda x: x - e * math.sin(x) - mean, 0.0, 2 * math.pi, xtol=1e-15) if phase else 0.0
+    r = a * (1 - e * math.cos(big_e))
+    doc = answer(client, COLLISION, {"mdot1": mdot1, "vinf1": v1, "mdot2": mdot2, "vinf2": v2, "eccentricity": e,
+                                     "period": period, "m1": m1, "m2": m2, "phase": phase})
+    got = values(doc)
+    assert got["semimajor_axis"] == pytest.approx(a, rel=1e-12)
+    assert got["separation"] == pytest.approx(r, rel=1e-11)
+    for suffix, d in (("", r), ("_periastron", a * (1 - e)), ("_apastron", a * (1 + e))):
+        ref = collision_reference(mdot1, v1, mdot2, v2, d)
+        for stem in ("stagnation_distance1", "stagnation_distance2", "cooling_parameter1", "cooling_parameter2"):
+            assert got[stem + suffix] == pytest.approx(ref[stem], rel=1e-11), stem + suffix
