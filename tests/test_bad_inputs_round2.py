@@ -1,0 +1,57 @@
+"""Bad input, second round: what the first catalogue (test_bad_inputs.py) left -- repeated JSON
+names, the Python client's own refusals, the command line's argument errors.  Each case gets a
+4xx problem (or the client's CalcServiceError, or one line and a non-zero exit) naming the field."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from calcservice import create_app
+
+SB1 = "/v1/spectroscopic/sb1"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+def problem(r, status):
+    assert r.status_code == status, r.get_data()[:300]
+    assert r.headers["Content-Type"].startswith("application/problem+json")
+    return r.get_json()
+
+
+# RFC 8259 section 4: names SHOULD be unique, and a repeated one leaves the meaning to the parser
+# (orjson and the standard library both keep the last); the service refuses to guess.
+@pytest.mark.parametrize("raw, field", [
+    (b'{"period": 41.6, "period": 42, "k1": 23.4, "eccentricity": 0.31}', "period"),
+    (b'{"period": {"value": 41.6, "value": 42}, "k1": 23.4, "eccentricity": 0.31}', "value"),
+    (b'{"period": 41.6, "k1": 23.4, "eccentricity": 0.31, "uncertainty": {"samples": 200, "seed": 1, "seed": 2}}',
+     "seed"),
+    # the same name written once with an escape: the standard library's path
+    (b'{"p\\u0065riod": 41.6, "period": 42, "k1": 23.4, "eccentricity": 0.31}', "period"),
+    # an integer beyond 64 bits sends the body to the standard library too
+    (b'{"period": 41.6, "k1": 23.4, "eccentricity": 0.31, "period": 1' + b"0" * 30 + b"}", "period"),
+])
+def test_a_name_given_twice_in_one_object_is_refused_naming_it(client, raw, field):
+    body = problem(client.post(SB1, data=raw, content_type="application/json"), 400)
+    assert field in body["errors"] and field in body["detail"]
+
+
+def test_a_name_given_twice_in_a_batch_row_is_refused(client):
+    raw = b'{"systems": [{"period": 41.6, "k1": 23.4, "eccentricity": 0.31, "k1": 3}]}'
+    assert "k1" in problem(client.post("/v1/batch/sb1", data=raw, content_type="application/json"), 400)["errors"]
+
+
+def test_colons_inside_strings_do_not_look_like_repeated_names(client):
+    # ISO dates carry colons; an escaped colon too: neither is a second member
+    body = {"period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": "2019-08-20T19:12:00",
+            "k1": 61.2, "times": ["2024-03-30T00:00:00", "2024-07-08T12:30:00"]}
+    r = client.post("/v1/orbit/ephemeris", data=json.dumps(body), content_type="application/json")
+    assert r.status_code == 200, r.get_data()[:300]
+    raw = json.dumps(body).replace("T19:12:00", "T19\\u003a12:00").encode()
+    assert client.post("/v1/orbit/ephemeris", data=raw, content_type="application/json").status_code == 200
