@@ -55,3 +55,56 @@ def test_colons_inside_strings_do_not_look_like_repeated_names(client):
     assert r.status_code == 200, r.get_data()[:300]
     raw = json.dumps(body).replace("T19:12:00", "T19\\u003a12:00").encode()
     assert client.post("/v1/orbit/ephemeris", data=raw, content_type="application/json").status_code == 200
+
+
+# --------------------------------------------------------------------------- the Python client
+@pytest.fixture(scope="module")
+def local():
+    from calcservice.client import Client
+    return Client("local")
+
+
+@pytest.mark.parametrize("options, field", [
+    ({"seed": 2 ** 70}, "uncertainty.seed"),             # beyond 64 bits: orjson could not write it
+    ({"seed": -1}, "uncertainty.seed"),
+    ({"samples": "x"}, "uncertainty.samples"),           # int("x") raised a bare ValueError
+    ({"samples": 300.5}, "uncertainty.samples"),         # int(300.5) sent 300
+    ({"correlations": {"k1": 0.5}}, "correlations.0.between"),   # a name, not a pair: it went as ["k", "1"]
+    ({"correlations": 5}, "correlations"),
+    ({"units": "AU"}, "units"),
+    ({"covariance": "yes"}, "covariance"),               # sent as true
+])
+def test_the_clients_bad_options_are_the_services_problem_naming_them(local, options, field):
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as info:
+        local.calculate("sb1", **GOOD, **options)
+    assert info.value.status == 422 and field in info.value.errors, (info.value.status, info.value.errors)
+
+
+def test_a_whole_number_given_as_a_float_is_still_a_count(local):
+    # numpy's and Python's floats that are whole numbers go as integers (a column with a gap is float)
+    a = local.calculate("sb1", **GOOD, samples=300.0, seed=7.0, inclination="isotropic")
+    b = local.calculate("sb1", **GOOD, samples=300, seed=7, inclination="isotropic")
+    assert a["results"] == b["results"] and a["uncertainty"]["samples"] == 300
+
+
+def test_the_clients_own_refusals_are_its_error_naming_the_input(local):
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as info:
+        local.calculate("sb1", period=(41.6, 0.1, 0.2, 0.3), k1=23.4, eccentricity=0.31)
+    assert "period" in info.value.errors and isinstance(info.value, ValueError)
+    with pytest.raises(CalcServiceError) as info:
+        local.batch("sb1", {"period": [41.6, 42.0], "k1": [23.4, 23.5, 23.6], "eccentricity": 0.3})
+    assert "k1" in info.value.errors
+
+
+EPHEMERIS_COLUMNS = {"period": [2037.4, 2037.4], "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3,
+                     "k1": 61.2, "times": [2460400.5]}
+
+
+def test_a_count_column_of_fractions_is_refused_not_cut(local):
+    # int(3.5) sent 3 events for a count of 3.5; the service refuses a fraction naming count
+    out = local.batch("ephemeris", {**EPHEMERIS_COLUMNS, "count": [3.5, 2.0]})
+    assert list(out.failed) == [0] and "count" in out.error_text()[0]
+    whole = local.batch("ephemeris", {**EPHEMERIS_COLUMNS, "count": [3.0, 2.0]})
+    assert list(whole.failed) == []
