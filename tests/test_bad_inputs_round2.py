@@ -108,3 +108,17 @@ def test_a_count_column_of_fractions_is_refused_not_cut(local):
     assert list(out.failed) == [0] and "count" in out.error_text()[0]
     whole = local.batch("ephemeris", {**EPHEMERIS_COLUMNS, "count": [3.0, 2.0]})
     assert list(whole.failed) == []
+
+
+# --------------------------------------------------------------------------- the command line
+@pytest.mark.parametrize("argv, named", [
+    (["compute", "sb1", "period=41.6", "k1=23.4", "eccentricity=0.31", "--units", "a1_sin_i=km"], "--units"),
+    (["serve", "--port", "x"], "--port"),
+    (["--bogus"], "--bogus"),
+])
+def test_an_argument_the_command_does_not_know_is_one_line_naming_it(capsys, argv, named):
+    from calcservice.cli import main
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    err = capsys.readouterr().err
+    assert info.value.code == 2 and err.count("\n") == 1 and named in err and "usage:" not in err, err
