@@ -122,3 +122,32 @@ def test_an_argument_the_command_does_not_know_is_one_line_naming_it(capsys, arg
         main(argv)
     err = capsys.readouterr().err
     assert info.value.code == 2 and err.count("\n") == 1 and named in err and "usage:" not in err, err
+
+
+# --------------------------------------------------------------------------- times
+EPHEMERIS_ONE = {"period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+                 "count": 1}
+
+
+@pytest.mark.parametrize("text", [
+    "2015-12-31T23:59:60",      # leap seconds were inserted at 2015-06-30 and 2016-12-31, not here (IERS Bulletin C)
+    "2024-01-01T12:00:60",      # astropy read it as 12:01:00, silently
+    "2024-01-01T12:00:61",
+    "2015-06-30T23:59:60+02:00",  # a leap second in local time: 21:59:60 UTC is none
+])
+def test_a_60th_second_where_utc_had_no_leap_second_is_refused(client, text):
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS_ONE, "times": [2460400.5, text]})
+    assert "entry 1" in problem(r, 422)["errors"]["times"][0]
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS_ONE, "t_periastron": text, "times": [2460400.5]})
+    assert "second" in problem(r, 422)["errors"]["t_periastron"][0]
+
+
+def test_a_real_leap_second_is_read(client):
+    # 2016-12-31T23:59:60 UTC was a leap second (IERS Bulletin C 52): astropy's JD for it, one SI second
+    # before the JD of 2017-01-01T00:00:00
+    from astropy.time import Time
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS_ONE, "times": ["2016-12-31T23:59:60Z"]})
+    assert r.status_code == 200, r.get_data()[:300]
+    got = r.get_json()["results"]["series"]["time"]["value"][0]
+    assert got == Time("2016-12-31T23:59:60", scale="utc").jd
+    assert got == pytest.approx(2457754.5 - 1 / 86400, abs=1e-9)

@@ -99,9 +99,23 @@ def _calendar_jd(text: str, limits: Limits) -> float:
     from astropy.time import Time
     bare, minutes = _utc_offsets([text])
     try:
-        return float(_minus_minutes(Time(bare[0], scale="utc"), minutes[0]).jd)
+        t = Time(bare[0], scale="utc")
     except Exception:
         raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
+    if _LEAP_SECOND.fullmatch(bare[0]):
+        _leap_second_held(t.ymdhms["second"], minutes[0], repr(text))
+    return float(_minus_minutes(t, minutes[0]).jd)
+
+
+# A 60th second: astropy reads one where UTC had no leap second as the next minute, silently.
+_LEAP_SECOND = re.compile(r".*:6\d(?:\.\d*)?")
+
+
+def _leap_second_held(second: float, offset_minutes: float, what: str) -> None:
+    if offset_minutes:
+        raise ValidationError(f"{what} has a 60th second in local time: give a leap second in UTC (Z)")
+    if second < 60:
+        raise ValidationError(f"{what} has a 60th second where UTC had no leap second")
 
 
 # A time of day followed by a UTC offset, +hh:mm, +hhmm or +hh (ISO 8601; what Python's
@@ -152,12 +166,19 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
         if calls > MAX_TIME_PARSES:
             raise ValidationError("the time strings mix too many formats: give them in one ISO 8601 form")
         try:
-            out[lo:hi] = _minus_minutes(Time(texts[lo:hi], scale="utc"), minutes[lo:hi]).jd
+            t = Time(texts[lo:hi], scale="utc")
         except Exception:
             if hi - lo == 1:
                 raise ValidationError(f"entry {positions[lo]}: {texts[lo][:64]!r} is not an ISO 8601 time") from None
             mid = (lo + hi) // 2
             stack += [(mid, hi), (lo, mid)]
+            continue
+        sixty = [k for k in range(lo, hi) if _LEAP_SECOND.fullmatch(texts[k])]
+        if sixty:
+            seconds = np.atleast_1d(t.ymdhms["second"])[np.array(sixty) - lo]
+            for k, second in zip(sixty, seconds.tolist()):
+                _leap_second_held(second, minutes[k], f"entry {positions[k]}: {texts[k][:64]!r}")
+        out[lo:hi] = _minus_minutes(t, minutes[lo:hi]).jd
     return out
 
 
