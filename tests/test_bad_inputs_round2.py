@@ -151,3 +151,34 @@ def test_a_real_leap_second_is_read(client):
     got = r.get_json()["results"]["series"]["time"]["value"][0]
     assert got == Time("2016-12-31T23:59:60", scale="utc").jd
     assert got == pytest.approx(2457754.5 - 1 / 86400, abs=1e-9)
+
+
+# --------------------------------------------------------------------------- output units
+BIG_SB1 = {"period": 1e6, "k1": 2.0e5, "eccentricity": 0.31}       # a1 sin i of about 1.7e7 au
+
+
+@pytest.mark.parametrize("path, body", [
+    (SB1, {**GOOD, "units": {"a1_sin_i": "1e-320 au"}}),     # au in it is 1e320: the answer's factor was inf (a 500)
+    (SB1, {**BIG_SB1, "units": {"a1_sin_i": "1e-308 au"}}),  # a finite answer beyond a double there: was a bare null
+    ("/v1/batch/sb1", {"systems": [GOOD, BIG_SB1], "units": {"a1_sin_i": "1e-308 au"}}),
+    ("/v1/batch/sb1", {"columns": {"period": [41.6, 1e6], "k1": [23.4, 2e5], "eccentricity": 0.31},
+                       "units": {"a1_sin_i": "1e-308 au"}}),
+])
+def test_an_output_unit_the_answer_cannot_be_written_in_is_refused_naming_it(client, path, body):
+    assert "units.a1_sin_i" in problem(client.post(path, json=body), 422)["errors"]
+
+
+def test_a_series_in_a_unit_beyond_a_double_is_refused_naming_it(client):
+    body = {**EPHEMERIS_ONE, "times": [2460400.5, 2460500.5], "units": {"rv1": "1e-307 km/s"}}
+    assert "units.rv1" in problem(client.post("/v1/orbit/ephemeris", json=body), 422)["errors"]
+
+
+def test_a_small_unit_that_holds_the_answer_is_answered(client):
+    # 1e-300 au: the factor is 1e300, exact enough for a double (astropy's conversion, the reference)
+    from astropy import units as u
+    plain = client.post(SB1, json=GOOD).get_json()["results"]["a1_sin_i"]["value"]
+    r = client.post(SB1, json={**GOOD, "units": {"a1_sin_i": "1e-300 au"}})
+    assert r.status_code == 200
+    got = r.get_json()["results"]["a1_sin_i"]
+    assert got["unit"] == "1e-300 au"
+    assert got["value"] == pytest.approx((plain * u.au).to_value(u.Unit("1e-300 au")), rel=1e-14)
