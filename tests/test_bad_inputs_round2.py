@@ -182,3 +182,24 @@ def test_a_small_unit_that_holds_the_answer_is_answered(client):
     got = r.get_json()["results"]["a1_sin_i"]
     assert got["unit"] == "1e-300 au"
     assert got["value"] == pytest.approx((plain * u.au).to_value(u.Unit("1e-300 au")), rel=1e-14)
+
+
+# --------------------------------------------------------------------------- the problem itself
+@pytest.mark.parametrize("units, field", [
+    ({"a1_sin_i": 5}, "units.a1_sin_i"),              # was units.a1_sin_i.value, marshmallow's half of a Dict
+    ({"a1_sin_i": None}, "units.a1_sin_i"),
+    ({"a1_sin_i": "x" * 300}, "units.a1_sin_i"),
+])
+def test_a_bad_output_unit_is_named_by_its_output(client, units, field):
+    assert list(problem(client.post(SB1, json={**GOOD, "units": units}), 422)["errors"]) == [field]
+
+
+def test_a_body_of_many_unknown_names_is_answered_in_a_page(client):
+    # 20000 unknown keys were each named in the detail and the errors (an answer larger than the body)
+    body = {**GOOD, **{f"k{i}": 1 for i in range(20000)}}
+    r = client.post(SB1, data=json.dumps(body), content_type="application/json")
+    answer = problem(r, 422)
+    assert len(r.get_data()) < 20_000
+    # k1 of the 20000 is an input: 19999 unknown, 100 named
+    assert "_more" in answer["errors"] and "19899 more" in answer["errors"]["_more"][0]
+    assert len(answer["errors"]) == 101 and answer["errors"]["k0"] == ["unknown field"]

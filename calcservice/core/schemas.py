@@ -508,6 +508,8 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
                 key = f"{prefix}.{k}" if prefix else k
                 if k == "_schema":
                     key = prefix or "_schema"
+                elif k in ("key", "value") and prefix.startswith("units.") and not isinstance(v, dict):
+                    key = prefix        # marshmallow's Dict says which half of units.NAME: the name is enough
                 walk(key, v)
         elif isinstance(msg, list):
             for m in msg:
