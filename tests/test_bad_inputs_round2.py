@@ -203,3 +203,17 @@ def test_a_body_of_many_unknown_names_is_answered_in_a_page(client):
     # k1 of the 20000 is an input: 19999 unknown, 100 named
     assert "_more" in answer["errors"] and "19899 more" in answer["errors"]["_more"][0]
     assert len(answer["errors"]) == 101 and answer["errors"]["k0"] == ["unknown field"]
+
+
+def test_a_false_leap_second_on_the_command_line_is_one_line(capsys):
+    # ERFA's own warning of the 60th second went to stderr above the line: under "error" it shows
+    import warnings
+
+    from calcservice.cli import main
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        code = main(["compute", "ephemeris", "period=10", "eccentricity=0.1", "omega=10", "k1=10",
+                     "t_periastron=2015-12-31T23:59:60", "times=2460400.5"])
+    err = capsys.readouterr().err
+    assert code == 1 and err.count("\n") == 1 and "no leap second" in err, err
+    assert err.startswith("calcservice compute: t_periastron:")

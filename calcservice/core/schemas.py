@@ -9,8 +9,10 @@ one system with them, a batch its N systems at once.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import re
+import warnings
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
@@ -99,7 +101,8 @@ def _calendar_jd(text: str, limits: Limits) -> float:
     from astropy.time import Time
     bare, minutes = _utc_offsets([text])
     try:
-        t = Time(bare[0], scale="utc")
+        with _second_sixty_quiet():
+            t = Time(bare[0], scale="utc")
     except Exception:
         raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
     if _LEAP_SECOND.fullmatch(bare[0]):
@@ -109,6 +112,14 @@ def _calendar_jd(text: str, limits: Limits) -> float:
 
 # A 60th second: astropy reads one where UTC had no leap second as the next minute, silently.
 _LEAP_SECOND = re.compile(r".*:6\d(?:\.\d*)?")
+
+
+@contextlib.contextmanager
+def _second_sixty_quiet():
+    """Without ERFA's warning of a 60th second past the day's end: :func:`_leap_second_held` refuses it in words."""
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message='ERFA function "dtf2d" yielded .*time is after end of day')
+        yield
 
 
 def _leap_second_held(second: float, offset_minutes: float, what: str) -> None:
@@ -166,7 +177,8 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
         if calls > MAX_TIME_PARSES:
             raise ValidationError("the time strings mix too many formats: give them in one ISO 8601 form")
         try:
-            t = Time(texts[lo:hi], scale="utc")
+            with _second_sixty_quiet():
+                t = Time(texts[lo:hi], scale="utc")
         except Exception:
             if hi - lo == 1:
                 raise ValidationError(f"entry {positions[lo]}: {texts[lo][:64]!r} is not an ISO 8601 time") from None
