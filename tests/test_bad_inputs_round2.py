@@ -217,3 +217,18 @@ def test_a_false_leap_second_on_the_command_line_is_one_line(capsys):
     err = capsys.readouterr().err
     assert code == 1 and err.count("\n") == 1 and "no leap second" in err, err
     assert err.startswith("calcservice compute: t_periastron:")
+
+
+# --------------------------------------------------------------------------- query parameters
+@pytest.mark.parametrize("query, field", [
+    ("?format=latex&format=svg", "format"),     # the first was served silently
+    ("?format=json&format=markdown", "format"),
+    ("?format=svg&plot=mass_function&plot=a1_sin_i", "plot"),
+])
+def test_a_query_parameter_given_twice_with_different_values_is_refused(client, query, field):
+    assert field in problem(client.post(SB1 + query, json=GOOD), 400)["errors"]
+
+
+def test_a_query_parameter_repeated_with_one_value_is_that_value(client):
+    r = client.post(SB1 + "?format=markdown&format=markdown", json=GOOD)
+    assert r.status_code == 200 and r.headers["Content-Type"].startswith("text/markdown")
