@@ -14,9 +14,16 @@ def _serve(args) -> int:
     return 0
 
 
+class OneLineParser(argparse.ArgumentParser):
+    """A parser whose errors are one line naming the argument (the usage block buries it)."""
+
+    def error(self, message: str):
+        self.exit(2, f"{self.prog}: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
     from . import __version__
-    p = argparse.ArgumentParser(prog="calcservice", description="Binary-star orbital elements to physical "
+    p = OneLineParser(prog="calcservice", description="Binary-star orbital elements to physical "
                                 "numbers with honest uncertainties.")
     p.add_argument("--version", action="version", version=f"calcservice {__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")

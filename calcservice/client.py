@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import html
+import json
 import http.client
 import math
 import platform
@@ -73,6 +74,18 @@ class CalcServiceError(Exception):
         if self.errors:
             head += " (" + "; ".join(f"{k}: {' '.join(v)}" for k, v in self.errors.items()) + ")"
         return head
+
+
+class InvalidInput(CalcServiceError, ValueError):
+    """An input the client refuses before sending anything (a ValueError too); ``errors`` names it, as
+    the service's problem would: the message reads "FIELD: what is wrong"."""
+
+    def __init__(self, message: str):
+        field = message.split(": ", 1)[0] if ": " in message else "_inputs"
+        super().__init__(message, None, {"detail": message, "errors": {field: [message]}})
+
+    def __str__(self) -> str:
+        return str(self.args[0])
 
 
 class ServiceUnavailable(CalcServiceError):
@@ -536,7 +549,7 @@ class Client:
         show = self.progress if progress is None else progress
         if _is_rows(data):
             if units or keep:
-                raise ValueError("units= and keep= apply to a table of columns, not to a list of rows")
+                raise InvalidInput("keep: units= and keep= apply to a table of columns, not to a list of rows")
             return self._batch_rows(path, decl, list(data), opts, show)
         table = InputTable.from_data(data, decl, units=units, keep=keep, strict=strict)
         return self._batch_columns(path, table, opts, show)
@@ -692,7 +705,7 @@ class InputTable:
                             f"not {type(data).__name__}")
         for label in units:
             if split_unit(label)[0] not in inputs and column_role(split_unit(label)[0], inputs) is None:
-                raise ValueError(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
+                raise InvalidInput(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
                                  "ask for outputs in other units with output_units=")
         kept: dict[str, Any] = {}
         parts: dict[str, dict[str, tuple[str, Any, str | None]]] = {}
@@ -709,10 +722,10 @@ class InputTable:
                 continue
             base, member = role
             if member in parts.get(base, {}):
-                raise ValueError(f"{label}: the column {column_name(base, member)!r} is given twice")
+                raise InvalidInput(f"{label}: the column {column_name(base, member)!r} is given twice")
             spec = inputs[base]
             if member != "value" and spec.get("kind", "quantity") != "quantity":
-                raise ValueError(f"{label}: {base} takes no uncertainty")
+                raise InvalidInput(f"{label}: {base} takes no uncertainty")
             unit = _unit_of(col) or label_unit or units.get(label) or units.get(name)
             if member == "value" and unit is None:
                 unit = units.get(base)
@@ -723,28 +736,28 @@ class InputTable:
             parts.setdefault(base, {})[member] = (label, col, unit)
         missing_keep = [k for k in keep if k not in kept]
         if missing_keep:
-            raise ValueError(f"keep: the table has no column {missing_keep[0]!r}")
+            raise InvalidInput(f"keep: the table has no column {missing_keep[0]!r}")
         if unknown and strict:
-            raise ValueError(f"{unknown[0]}: {decl['name']} has no input {split_unit(unknown[0])[0]!r} "
+            raise InvalidInput(f"{unknown[0]}: {decl['name']} has no input {split_unit(unknown[0])[0]!r} "
                              f"(inputs: {', '.join(inputs)}; NAME_sigma for uncertainties; keep= to carry a column "
                              "along, strict=False to leave the others out)")
         correlated = correlated_columns({base: list(members["value"][1]) for base, members in parts.items()
                                          if "value" in members and uncertain_parts(members["value"][1]) is not None})
         if correlated:
-            raise ValueError(f"{correlated[0]}: {correlated[1]}")
+            raise InvalidInput(f"{correlated[0]}: {correlated[1]}")
         count = None
         columns: dict[str, Any] = {}
         for base, members in parts.items():
             if "value" not in members:
                 if base in scalars:
-                    raise ValueError(f"{base}: sigmas of a column need the column itself, not one value for all")
-                raise ValueError(f"{next(iter(members.values()))[0]}: sigmas given without the column {base}")
+                    raise InvalidInput(f"{base}: sigmas of a column need the column itself, not one value for all")
+                raise InvalidInput(f"{next(iter(members.values()))[0]}: sigmas given without the column {base}")
             label, col, unit = members["value"]
             spec = inputs[base]
             entry = _column_entry(spec, label, col, unit, require_units)
             n = len(entry["value"])
             if count is not None and n != count:
-                raise ValueError(f"{label}: {n} values where the other columns have {count}")
+                raise InvalidInput(f"{label}: {n} values where the other columns have {count}")
             count = n
             missing = _is_missing(entry["value"])
             for member in ("sigma", "sigma_minus", "sigma_plus"):
@@ -752,17 +765,17 @@ class InputTable:
                     s_label, s_col, s_unit = members[member]
                     sig = _sigma_array(s_label, s_col, s_unit, entry.get("unit"))
                     if len(sig) != n:
-                        raise ValueError(f"{s_label}: {len(sig)} values where {label} has {n}")
+                        raise InvalidInput(f"{s_label}: {len(sig)} values where {label} has {n}")
                     sig[missing] = np.nan     # no sigma without a value: the service then says the value is missing
                     entry[member] = sig
             columns[base] = entry
         for base, value in scalars.items():
             columns[base] = _encode(value, inputs[base])
         if count is None:
-            raise ValueError(f"no column of {decl['name']}'s inputs in the table ({', '.join(inputs)})")
+            raise InvalidInput(f"no column of {decl['name']}'s inputs in the table ({', '.join(inputs)})")
         for label, col in kept.items():
             if len(col) != count:
-                raise ValueError(f"{label}: {len(col)} values where the inputs have {count}")
+                raise InvalidInput(f"{label}: {len(col)} values where the inputs have {count}")
         return cls(count, columns, kept)
 
     def shared(self) -> dict:
@@ -810,7 +823,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         if parts and isinstance(parts[-1], str):
             unit = parts.pop()
         if len(parts) not in (1, 2, 3):
-            raise ValueError(f"{label}: a tuple column is (values, sigmas) or (values, sigma_minus, sigma_plus)")
+            raise InvalidInput(f"{label}: a tuple column is (values, sigmas) or (values, sigma_minus, sigma_plus)")
         col = parts[0]
         unit = _unit_of(col) or unit
         for member, extra in zip(("sigma", ) if len(parts) == 2 else ("sigma_minus", "sigma_plus"), parts[1:]):
@@ -818,20 +831,23 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
     elif isinstance(col, Mapping):       # a contract column object
         entry = {k: (_to_array(v, label) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
         if "value" not in entry:
-            raise ValueError(f"{label}: a column object needs \"value\"")
+            raise InvalidInput(f"{label}: a column object needs \"value\"")
         return entry
     values = _to_array(col, label)
     if values.ndim != 1:
-        raise ValueError(f"{label}: a column is one value per system (got shape {values.shape})")
+        raise InvalidInput(f"{label}: a column is one value per system (got shape {values.shape})")
     kind = spec.get("kind", "quantity")
     if kind == "series":
-        raise ValueError(f"{label}: {spec['name']} is a list for each system; give it as one value for all")
+        raise InvalidInput(f"{label}: {spec['name']} is a list for each system; give it as one value for all")
     if kind == "integer" and values.dtype.kind == "f":
-        values = np.array([None if math.isnan(v) else int(v) for v in values.tolist()], dtype=object)
+        # a whole count read as a float (a column with a missing entry) goes as the integer; 3.5 goes as it
+        # is, for the service to refuse naming the input, never cut to 3
+        values = np.array([None if math.isnan(v) else int(v) if v.is_integer() and abs(v) < 2 ** 53 else v
+                           for v in values.tolist()], dtype=object)
     # a time is a Julian Date (or MJD with time_format) without a unit: nothing to guess there
     if (require_unit and unit is None and kind == "quantity" and spec.get("unit") and not spec.get("time")
             and not (values.dtype == object and all(v is None or isinstance(v, str) for v in values.tolist()))):
-        raise ValueError(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
+        raise InvalidInput(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
                          "table gives it no unit: give the column a unit, name it "
                          f"{spec['name']}[{spec['unit']}], or pass units={{{spec['name']!r}: ...}}")
     entry["value"] = values
@@ -843,14 +859,14 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
     arr = _to_array(col, label)
     if arr.dtype.kind != "f":
-        raise ValueError(f"{label}: a sigma column holds numbers")
+        raise InvalidInput(f"{label}: a sigma column holds numbers")
     arr = np.array(arr, dtype=float)
     if unit is not None and unit != (value_unit or ""):
         from astropy import units as u
         try:
             arr = arr * u.Unit(unit).to(u.Unit(value_unit or ""))
         except u.UnitConversionError:
-            raise ValueError(f"{label}: its unit {unit!r} does not convert to the value's "
+            raise InvalidInput(f"{label}: its unit {unit!r} does not convert to the value's "
                              f"{value_unit or 'dimensionless'!r}") from None
     return arr
 
@@ -868,7 +884,13 @@ def _json_default(o):
 
 def dumps(body: Any) -> bytes:
     """A request body as JSON bytes: numpy arrays as lists, NaN as null (a missing value)."""
-    return orjson.dumps(body, default=_json_default, option=orjson.OPT_SERIALIZE_NUMPY | orjson.OPT_NON_STR_KEYS)
+    try:
+        return orjson.dumps(body, default=_json_default, option=orjson.OPT_SERIALIZE_NUMPY | orjson.OPT_NON_STR_KEYS)
+    except TypeError as e:
+        if "64-bit" not in str(e):
+            raise
+        # an integer beyond 64 bits (a seed of 2**70): sent exactly, for the service to name the field
+        return json.dumps(body, default=_json_default, separators=(",", ":")).encode()
 
 
 def _plain(x):
@@ -900,7 +922,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         elif len(parts) == 3:
             out = {"value": parts[0], "sigma_minus": parts[1], "sigma_plus": parts[2]}
         else:
-            raise ValueError(f"{decl.get('name') if decl else 'an input'}: a tuple is (value, sigma) or "
+            raise InvalidInput(f"{decl.get('name') if decl else 'an input'}: a tuple is (value, sigma) or "
                              "(value, sigma_minus, sigma_plus), optionally with a unit string last")
         if unit:
             out["unit"] = unit
@@ -919,25 +941,41 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     unc = dict(uncertainty or {})
     if method is not None:
         unc["method"] = method.replace("-", "_")
+    # what is not a whole number goes as it is: the service refuses it naming the option
     if samples is not None:
-        unc["samples"] = int(samples)
+        unc["samples"] = _whole(samples)
         unc.setdefault("method", "monte_carlo")
     if seed is not None:
-        unc["seed"] = int(seed)
+        unc["seed"] = _whole(seed)
         unc.setdefault("method", "monte_carlo")
     if unc:
         out["uncertainty"] = unc
-    if correlations:
+    if correlations is not None:
         if isinstance(correlations, Mapping):
-            correlations = [{"between": list(pair), "rho": float(rho)} for pair, rho in correlations.items()]
-        out["correlations"] = [dict(c) for c in correlations]
-    if units:
-        out["units"] = dict(units)
+            correlations = [{"between": list(pair) if isinstance(pair, (tuple, list)) else pair, "rho": _plain(rho)}
+                            for pair, rho in correlations.items()]
+        if isinstance(correlations, (list, tuple)):
+            correlations = [dict(c) if isinstance(c, Mapping) else c for c in correlations]
+        if correlations != []:
+            out["correlations"] = correlations
+    if units is not None:
+        out["units"] = dict(units) if isinstance(units, Mapping) else units
     if time_format:
         out["time_format"] = time_format
-    if covariance:
-        out["covariance"] = True
+    if covariance is not False and covariance is not None:
+        out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
     return out
+
+
+def _whole(x):
+    """A count or a seed as an int where it is one (numpy's, a float such as 1e4); anything else as it is."""
+    if isinstance(x, (bool, np.bool_)):
+        return x
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    if isinstance(x, (float, np.floating)) and float(x).is_integer() and abs(x) < 2 ** 63:
+        return int(x)
+    return x
 
 
 # --------------------------------------------------------------------------- decoding
@@ -1087,6 +1125,6 @@ def _problem_error(status: int, payload: bytes, method: str, path: str, sent: in
     return CalcServiceError(message, status, problem)
 
 
-__all__ = ["Client", "CalcServiceError", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
+__all__ = ["Client", "CalcServiceError", "InvalidInput", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
            "DEFAULT_LIMITS", "problem_text", "problem_reason", "dumps",
            "rows_per_request", "from_columns_answer", "merge_results"]

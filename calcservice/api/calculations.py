@@ -17,6 +17,11 @@ def _endpoint(name: str):
         settings = current_app.config["CALCSERVICE_SETTINGS"]
         body = json_body(settings.limits)
         if request.environ.get("QUERY_STRING"):
+            for key in ("format", "plot"):
+                given = request.args.getlist(key)
+                if len(set(given)) > 1:      # which one was meant is a guess: the first, the last?
+                    raise Problem(400, f"{key} is given {len(given)} times with different values",
+                                  {key: [f"give one {key}, not {', '.join(repr(v[:40]) for v in given[:4])}"]})
             fmt = request.args.get("format", "json")
             plot = request.args.get("plot")  # chooses the histogram of a figure; other formats ignore it
         else:

@@ -71,11 +71,32 @@ def _loads_checked(text: str):
         return x
 
     # an integer beyond a double parses exactly; the field it sits in refuses it (422)
-    body = json.loads(text, parse_constant=_reject_constant, parse_float=parse_float)
+    body = json.loads(text, parse_constant=_reject_constant, parse_float=parse_float,
+                      object_pairs_hook=_unique_members)
     if overflowed:
         raise Problem(400, "a number in the request body is beyond the range of a double (about 1.8e308)",
                       {path: ["the number overflows a double"] for path in _overflow_paths(body)})
     return body
+
+
+def _unique_members(pairs: list) -> dict:
+    """An object whose names are unique (RFC 8259 leaves a repeated name's meaning open, and parsers
+    keep the first or the last: either would be a silent guess at which number the caller meant)."""
+    out = dict(pairs)
+    if len(out) < len(pairs):
+        seen: set = set()
+        twice = next(k for k, _ in pairs if k in seen or seen.add(k))
+        raise Problem(400, f"the JSON body gives {str(twice)[:200]!r} more than once in one object: "
+                           "say which value is meant", {str(twice)[:200]: ["is given more than once in one object"]})
+    return out
+
+
+def _lost_members(data: bytes, body) -> bool:
+    """Whether orjson may have dropped a repeated name (it keeps the last silently): written back it has
+    a name separator per member it kept, the body one per member sent, and the strings' own colons in
+    both; an escape in the body could hide a colon, so a body with one is looked at by the standard
+    library too."""
+    return b"\\u" in data or orjson.dumps(body).count(b":") != data.count(b":")
 
 
 def _depth_exceeds(data: bytes, limit: int) -> bool:
@@ -194,6 +215,8 @@ def body_too_large(limit: int, verb: str = "is") -> Problem:
 def parse_json(data: bytes, limits):
     """Bytes to JSON: 400 unless well-formed, finite and not too deep."""
     body = _fast_loads(data)
+    if body is not _UNPARSED and isinstance(body, (dict, list)) and _lost_members(data, body):
+        body = _UNPARSED
     if body is not _UNPARSED:
         if _depth_exceeds(data, limits.max_json_depth) and \
                 _true_depth(body, limits.max_json_depth) > limits.max_json_depth:

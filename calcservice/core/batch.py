@@ -37,7 +37,7 @@ from ..units import UnitError, factor
 from .parse import (Parsed, build, draws_monte_carlo, draws_per_system, find, load, options_of,
                     output_units, parse, within_series_budget)
 from .problems import Problem, invalid, too_large
-from .render import Rendering, clean_array, provenance, warning_mask
+from .render import Rendering, clean_array, in_unit, provenance, warning_mask
 from .schemas import MEASURED_KEYS, RawQuantity, broken
 from .single import failure, run
 
@@ -884,7 +884,7 @@ def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_ar
                     # a linear group has no low/high where a Monte Carlo one has: null for its systems
                     if key in g.result.outputs.get(o.name, ()):
                         full[g.rows] = g.result.outputs[o.name][key]
-            entry[key] = full * k if k != 1.0 else full
+            entry[key] = in_unit(full, k, o.name, lambda _: unit) if k != 1.0 else full
         columns[o.name] = {"value": entry.pop("value"), **entry, "unit": unit}
 
     failed = np.zeros(n, dtype=bool)

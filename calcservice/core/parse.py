@@ -264,6 +264,7 @@ def output_units(calc: Calculation, units: Mapping[str, str], errors: dict[str, 
             continue
         try:
             factor(unit, calc.output(name).unit)      # this way round the error names the kind the output needs
+            factor(calc.output(name).unit, unit)      # and the way the answer converts ('1e-320 au' is 1e320 per au)
         except UnitError as e:
             errors.setdefault(f"units.{name}", []).append(str(e))
             continue

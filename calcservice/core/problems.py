@@ -46,10 +46,20 @@ class Problem(Exception):
 
 def invalid(errors: Mapping[str, list[str]], detail: str | None = None) -> Problem:
     """A 422 naming the offending fields."""
+    if len(errors) > MAX_FIELDS_NAMED:
+        # a body of a hundred thousand unknown keys is answered in a page, not in megabytes
+        kept = sorted(errors)[:MAX_FIELDS_NAMED]
+        errors = {**{k: errors[k] for k in kept},
+                  "_more": [f"{len(errors) - MAX_FIELDS_NAMED} more fields are at fault; the first "
+                            f"{MAX_FIELDS_NAMED} are named"]}
     if detail is None:
-        names = ", ".join(sorted(errors))
-        detail = f"invalid value for {names}" if names else "invalid input"
+        names = sorted(k for k in errors if k != "_more")
+        detail = (f"invalid value for {', '.join(names)}" + (" and more" if "_more" in errors else "")
+                  if names else "invalid input")
     return Problem(422, detail, errors)
+
+
+MAX_FIELDS_NAMED = 100
 
 
 def too_large(limit: str, value: int, detail: str, fields: Mapping[str, str]) -> Problem:

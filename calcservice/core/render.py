@@ -14,6 +14,7 @@ from ..engine import Result
 from ..registry import Calculation, Warning
 from ..units import factor
 from .parse import Parsed
+from .problems import invalid
 
 
 def provenance(calc: Calculation) -> dict:
@@ -50,6 +51,21 @@ def clean_array(a: np.ndarray) -> list:
     return obj.tolist()
 
 
+def in_unit(values: np.ndarray, k: float, names, unit_of) -> np.ndarray:
+    """``values`` times the factor ``k`` to the units asked for; a 422 naming ``units.NAME`` where a finite
+    number leaves a double there (an answer in '1e-308 au' of 1e10 au), never a silent null.
+    ``names`` gives the output of each leading row of ``values`` (one name for all, or one per row)."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        out = values * k
+    lost = np.isfinite(values) & ~np.isfinite(out)
+    if lost.any():
+        row = np.nonzero(lost.reshape(len(names), -1).any(axis=1))[0][0] if not isinstance(names, str) else None
+        name = names if row is None else names[row]
+        unit = unit_of(name)
+        raise invalid({f"units.{name}": [f"{name} in {unit!r} is beyond the range of a double: ask for a larger unit"]})
+    return out
+
+
 @lru_cache(maxsize=4096)
 def output_factors(calc: Calculation, names: tuple[str, ...], units: tuple) -> tuple[tuple, tuple]:
     """The unit of each output as asked for (else its canonical one) and the factor to it."""
@@ -78,13 +94,15 @@ def output_entries(calc: Calculation, result: Result, units: Mapping[str, str]) 
         block = np.concatenate([result.outputs[names[i]][key] for i in outputs for key in keys])
         scale = [factors[i] for i in outputs]
         if any(k != 1.0 for k in scale):                  # an output unit asked for
-            block = block * np.repeat(scale, len(keys) * n)
+            block = in_unit(block, np.repeat(scale, len(keys) * n), [names[i] for i in outputs],
+                            lambda name: out_units[names.index(name)])
         for i, columns in zip(outputs, clean_array(block.reshape(len(outputs), len(keys), n))):
             table[i] = (names[i], False, _entries(keys, columns, out_units[i]))
     for i, name in enumerate(names):
         if table[i] is None:                  # a series output: each system's entry holds lists
             members = result.outputs[name]
-            columns = [clean_array(np.multiply(members[key], factors[i], dtype=float)) for key in members]
+            columns = [clean_array(in_unit(np.asarray(members[key], dtype=float), factors[i], name,
+                                           lambda _: out_units[i])) for key in members]
             table[i] = (name, True, _entries(tuple(members), columns, out_units[i]))
     return table
 

@@ -9,8 +9,10 @@ one system with them, a batch its N systems at once.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import re
+import warnings
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
@@ -99,9 +101,32 @@ def _calendar_jd(text: str, limits: Limits) -> float:
     from astropy.time import Time
     bare, minutes = _utc_offsets([text])
     try:
-        return float(_minus_minutes(Time(bare[0], scale="utc"), minutes[0]).jd)
+        with _second_sixty_quiet():
+            t = Time(bare[0], scale="utc")
     except Exception:
         raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
+    if _LEAP_SECOND.fullmatch(bare[0]):
+        _leap_second_held(t.ymdhms["second"], minutes[0], repr(text))
+    return float(_minus_minutes(t, minutes[0]).jd)
+
+
+# A 60th second: astropy reads one where UTC had no leap second as the next minute, silently.
+_LEAP_SECOND = re.compile(r".*:6\d(?:\.\d*)?")
+
+
+@contextlib.contextmanager
+def _second_sixty_quiet():
+    """Without ERFA's warning of a 60th second past the day's end: :func:`_leap_second_held` refuses it in words."""
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message='ERFA function "dtf2d" yielded .*time is after end of day')
+        yield
+
+
+def _leap_second_held(second: float, offset_minutes: float, what: str) -> None:
+    if offset_minutes:
+        raise ValidationError(f"{what} has a 60th second in local time: give a leap second in UTC (Z)")
+    if second < 60:
+        raise ValidationError(f"{what} has a 60th second where UTC had no leap second")
 
 
 # A time of day followed by a UTC offset, +hh:mm, +hhmm or +hh (ISO 8601; what Python's
@@ -152,12 +177,20 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
         if calls > MAX_TIME_PARSES:
             raise ValidationError("the time strings mix too many formats: give them in one ISO 8601 form")
         try:
-            out[lo:hi] = _minus_minutes(Time(texts[lo:hi], scale="utc"), minutes[lo:hi]).jd
+            with _second_sixty_quiet():
+                t = Time(texts[lo:hi], scale="utc")
         except Exception:
             if hi - lo == 1:
                 raise ValidationError(f"entry {positions[lo]}: {texts[lo][:64]!r} is not an ISO 8601 time") from None
             mid = (lo + hi) // 2
             stack += [(mid, hi), (lo, mid)]
+            continue
+        sixty = [k for k in range(lo, hi) if _LEAP_SECOND.fullmatch(texts[k])]
+        if sixty:
+            seconds = np.atleast_1d(t.ymdhms["second"])[np.array(sixty) - lo]
+            for k, second in zip(sixty, seconds.tolist()):
+                _leap_second_held(second, minutes[k], f"entry {positions[k]}: {texts[k][:64]!r}")
+        out[lo:hi] = _minus_minutes(t, minutes[lo:hi]).jd
     return out
 
 
@@ -487,6 +520,8 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
                 key = f"{prefix}.{k}" if prefix else k
                 if k == "_schema":
                     key = prefix or "_schema"
+                elif k in ("key", "value") and prefix.startswith("units.") and not isinstance(v, dict):
+                    key = prefix        # marshmallow's Dict says which half of units.NAME: the name is enough
                 walk(key, v)
         elif isinstance(msg, list):
             for m in msg:
