@@ -159,6 +159,7 @@ class Output:
     formula: str = ""
     period: float | None = None
     turns_with: tuple[str, float] | None = None
+    logarithmic: bool = False         # a log10 of a quantity (its unit in the description): no unit may be asked
     references: tuple[str, ...] = ()
 
     def as_dict(self) -> dict:
@@ -167,6 +168,8 @@ class Output:
             d["period"] = self.period
         if self.turns_with is not None:
             d["turns_with"] = {"output": self.turns_with[0], "turn": self.turns_with[1]}
+        if self.logarithmic:
+            d["logarithmic"] = True
         if self.references:
             d["references"] = list(self.references)
         return d

@@ -232,3 +232,18 @@ def test_a_query_parameter_given_twice_with_different_values_is_refused(client, 
 def test_a_query_parameter_repeated_with_one_value_is_that_value(client):
     r = client.post(SB1 + "?format=markdown&format=markdown", json=GOOD)
     assert r.status_code == 200 and r.headers["Content-Type"].startswith("text/markdown")
+
+
+def test_a_log10_output_takes_no_unit(client):
+    # a log10 is a pure number whose unit sits inside the logarithm: "%" made log Mdot = -5.92 read -591.76 %
+    from calcservice.registry import get
+    body = dict(get("mass-loss-recipe").example)
+    for unit in ("%", "", "dex"):
+        r = client.post("/v1/winds/mass-loss/recipe", json={**body, "units": {"log_mass_loss_rate": unit}})
+        assert r.status_code == 422 and "units.log_mass_loss_rate" in r.get_json()["errors"], (unit, r.get_json())
+    # the rate itself converts (astropy: 1 solMass/yr = 1.98841e30 kg / 3.15576e7 s)
+    plain = client.post("/v1/winds/mass-loss/recipe", json=body).get_json()["results"]["mass_loss_rate"]
+    kg_s = client.post("/v1/winds/mass-loss/recipe", json={**body, "units": {"mass_loss_rate": "kg/s"}}).get_json()
+    import astropy.units as u
+    assert kg_s["results"]["mass_loss_rate"]["value"] == pytest.approx(
+        (plain["value"] * u.solMass / u.yr).to_value(u.kg / u.s), rel=1e-12)

@@ -614,7 +614,7 @@ register(Calculation(
         Output("mass_loss_rate", "solMass/yr", "predicted mass-loss rate", "Mdot = 10^(log Mdot)"),
         Output("log_mass_loss_rate", "", "log10 of the mass-loss rate in solMass/yr",
                "vink-2001: eqs. 24 (hot) and 25 (cool side); nugis-lamers-2000: -11.00 + 1.29 log L + 1.73 log Y "
-               "+ 0.47 log Z"),
+               "+ 0.47 log Z", logarithmic=True),
         Output("bistability_jump_temperature", "K", "temperature of the bi-stability jump (vink-2001)",
                "T_jump = 61.2 + 2.59 log <rho> kK, log <rho> = -14.94 + 3.1857 Gamma_e + 0.85 log(Z/Z_sun)"),
         Output("eddington_factor", "", "electron-scattering Eddington factor Gamma_e (vink-2001)",

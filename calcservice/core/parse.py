@@ -262,6 +262,10 @@ def output_units(calc: Calculation, units: Mapping[str, str], errors: dict[str, 
         if name not in {o.name for o in calc.outputs}:
             errors.setdefault(f"units.{name}", []).append(f"{calc.name} has no output {name!r}")
             continue
+        if calc.output(name).logarithmic:
+            errors.setdefault(f"units.{name}", []).append(
+                f"{name} is the {calc.output(name).description}: it takes no unit (ask for the quantity itself)")
+            continue
         try:
             factor(unit, calc.output(name).unit)      # this way round the error names the kind the output needs
             factor(calc.output(name).unit, unit)      # and the way the answer converts ('1e-320 au' is 1e320 per au)
