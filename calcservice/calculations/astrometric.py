@@ -44,8 +44,9 @@ ORIENTATION_CONVENTIONS = {
     "node": "position angle of the ascending node. The sky-projected orbit is the same for (omega, node) and "
             "(omega + 180, node + 180), so without radial velocities node is given in [0, 180) deg and omega "
             "follows; if radial velocities show that the secondary recedes at the other node, add 180 deg to both "
-            "node and omega. Near node = 0 or 180 deg the draws of omega therefore split between omega and "
-            "omega + 180: there the uncertainty of omega +- node is the meaningful one",
+            "node and omega. Near node = 0 or 180 deg a node folded across the edge turns omega by 180 deg with "
+            "it: the uncertainties (linear and Monte Carlo) are taken on the one orbit, the pair kept together, "
+            "and the value is then given in these ranges",
     "inclination": "0 to 180 deg from the sense of motion on the sky: below 90 deg the position angle increases "
                    "(counter-clockwise on the sky, north through east), above 90 deg it decreases",
 }
