@@ -884,7 +884,7 @@ def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_ar
                     # a linear group has no low/high where a Monte Carlo one has: null for its systems
                     if key in g.result.outputs.get(o.name, ()):
                         full[g.rows] = g.result.outputs[o.name][key]
-            entry[key] = in_unit(full, k, o.name, lambda _: unit) if k != 1.0 else full
+            entry[key] = in_unit(full, k, [o.name], [unit]) if k != 1.0 else full
         columns[o.name] = {"value": entry.pop("value"), **entry, "unit": unit}
 
     failed = np.zeros(n, dtype=bool)

@@ -51,17 +51,16 @@ def clean_array(a: np.ndarray) -> list:
     return obj.tolist()
 
 
-def in_unit(values: np.ndarray, k: float, names, unit_of) -> np.ndarray:
+def in_unit(values: np.ndarray, k, names: list[str], units: list[str]) -> np.ndarray:
     """``values`` times the factor ``k`` to the units asked for; a 422 naming ``units.NAME`` where a finite
     number leaves a double there (an answer in '1e-308 au' of 1e10 au), never a silent null.
-    ``names`` gives the output of each leading row of ``values`` (one name for all, or one per row)."""
+    ``names`` and ``units`` give the output and its unit of each leading row of ``values``."""
     with np.errstate(over="ignore", invalid="ignore"):
         out = values * k
     lost = np.isfinite(values) & ~np.isfinite(out)
     if lost.any():
-        row = np.nonzero(lost.reshape(len(names), -1).any(axis=1))[0][0] if not isinstance(names, str) else None
-        name = names if row is None else names[row]
-        unit = unit_of(name)
+        row = np.nonzero(lost.reshape(len(names), -1).any(axis=1))[0][0]
+        name, unit = names[row], units[row]
         raise invalid({f"units.{name}": [f"{name} in {unit!r} is beyond the range of a double: ask for a larger unit"]})
     return out
 
@@ -95,14 +94,14 @@ def output_entries(calc: Calculation, result: Result, units: Mapping[str, str]) 
         scale = [factors[i] for i in outputs]
         if any(k != 1.0 for k in scale):                  # an output unit asked for
             block = in_unit(block, np.repeat(scale, len(keys) * n), [names[i] for i in outputs],
-                            lambda name: out_units[names.index(name)])
+                            [out_units[i] for i in outputs])
         for i, columns in zip(outputs, clean_array(block.reshape(len(outputs), len(keys), n))):
             table[i] = (names[i], False, _entries(keys, columns, out_units[i]))
     for i, name in enumerate(names):
         if table[i] is None:                  # a series output: each system's entry holds lists
             members = result.outputs[name]
-            columns = [clean_array(in_unit(np.asarray(members[key], dtype=float), factors[i], name,
-                                           lambda _: out_units[i])) for key in members]
+            columns = [clean_array(in_unit(np.asarray(members[key], dtype=float), factors[i], [name],
+                                           [out_units[i]])) for key in members]
             table[i] = (name, True, _entries(tuple(members), columns, out_units[i]))
     return table
 
