@@ -105,9 +105,7 @@ def _calendar_jd(text: str, limits: Limits) -> float:
             t = Time(bare[0], scale="utc")
     except Exception:
         raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
-    if _LEAP_SECOND.fullmatch(bare[0]):
-        _leap_second_held(t.ymdhms["second"], minutes[0], repr(text))
-    return float(_minus_minutes(t, minutes[0]).jd)
+    return float(np.atleast_1d(_utc_jd(t, bare, minutes, lambda k: repr(text)))[0])
 
 
 # A 60th second: astropy reads one where UTC had no leap second as the next minute, silently.
@@ -132,6 +130,18 @@ def _leap_second_held(second: float, offset_minutes: float, what: str) -> None:
 # A time of day followed by a UTC offset, +hh:mm, +hhmm or +hh (ISO 8601; what Python's
 # datetime.isoformat() writes for an aware time), which astropy's ISO formats do not read.
 _OFFSET = re.compile(r"(.*\d[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d*)?)?)([+-])([01]\d|2[0-3])(?::?([0-5]\d))?")
+
+
+def _utc_jd(t, bare: list[str], minutes: np.ndarray, what) -> np.ndarray:
+    """The JDs in UTC of the times ``t`` that astropy read from ``bare`` (the texts without their UTC
+    offsets, ``minutes``): a 60th second held against the leap seconds UTC had (``what(k)`` names entry
+    k in the refusal), each offset taken off."""
+    sixty = [k for k, text in enumerate(bare) if _LEAP_SECOND.fullmatch(text)]
+    if sixty:
+        seconds = np.atleast_1d(t.ymdhms["second"])[sixty]
+        for k, second in zip(sixty, seconds.tolist()):
+            _leap_second_held(second, minutes[k], what(k))
+    return _minus_minutes(t, minutes).jd
 
 
 def _utc_offsets(texts: list[str]) -> tuple[list[str], np.ndarray]:
@@ -185,12 +195,8 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
             mid = (lo + hi) // 2
             stack += [(mid, hi), (lo, mid)]
             continue
-        sixty = [k for k in range(lo, hi) if _LEAP_SECOND.fullmatch(texts[k])]
-        if sixty:
-            seconds = np.atleast_1d(t.ymdhms["second"])[np.array(sixty) - lo]
-            for k, second in zip(sixty, seconds.tolist()):
-                _leap_second_held(second, minutes[k], f"entry {positions[k]}: {texts[k][:64]!r}")
-        out[lo:hi] = _minus_minutes(t, minutes[lo:hi]).jd
+        out[lo:hi] = _utc_jd(t, texts[lo:hi], minutes[lo:hi],
+                             lambda k, lo=lo: f"entry {positions[lo + k]}: {texts[lo + k][:64]!r}")
     return out
 
 
