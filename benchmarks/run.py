@@ -18,10 +18,13 @@ into numpy arrays of every output's value and sigma.  On the double-lined spectr
 * numpy    the bare vectorised numpy expression: values and first-order sigmas from hand-derived
            logarithmic derivatives, on arrays already in memory (the floor).
 
-Method: every subject is timed once per round, right after an untimed call of the same subject
-(so that no subject pays for what the one before it left in either process), the rounds one after
-another; each figure is the median over the rounds and each ratio the median of its per-round
-ratios, so a slow spell of the shared machine weighs on both sides of a ratio alike.  The gunicorn request rates (one sb2 request
+Method: the machine is shared and its speed drifts by a third over seconds (the same rows call
+took 60 to 100 us per system in consecutive calls), so the two sides of every target ratio are
+timed back to back, in blocks A B B A: each block gives the ratio (A1 + A2) / (B1 + B2), which a
+steady drift does not bias, and each ratio is the median over the rounds of its blocks.  Every timed
+call follows an untimed call of the same subject, so that no subject pays for what the one before
+it left in either process.  Each per-system figure is the median of all its timed calls; a ratio
+without a target is the ratio of those medians.  The gunicorn request rates (one sb2 request
 against ``GET /v1/health``, a bounded load generator of 4 threads) come from short alternating runs,
 the order swapped every round.  A Monte Carlo request of 10^5 draws is set against the same draws
 in bare numpy.  The benchmark checks that the lab loop, the bare numpy and every format agree with
@@ -87,22 +90,34 @@ def timed(fn) -> float:
     return time.perf_counter() - t0
 
 
-def rounds(subjects: dict, repeats: int) -> dict[str, list[float]]:
-    """Per-system seconds of each subject in each of ``repeats`` rounds.  A subject is (function,
-    systems); a function that returns a float has timed itself (a best of several short calls),
-    otherwise the call is timed.  Each timed call follows an untimed call of the same subject, as
-    a script going through a catalogue calls the same thing again and again: what the subject
-    before it left behind (a heap grown by another format's tables, caches filled by astropy's
-    ECSV reader, which slowed the next subject by up to a third) is not charged to it."""
-    out: dict[str, list[float]] = {k: [] for k in subjects}
+def per_system(subject) -> float:
+    """Per-system seconds of one timed call of ``subject`` = (function, systems), after an untimed
+    call of the same: a script going through a catalogue calls the same thing again and again, so
+    what another subject left behind (a heap grown by another format's tables, caches filled by
+    astropy's ECSV reader, which slowed the next subject by up to a third) is not charged to it.  A
+    function that returns a float has timed itself (a best of several short calls)."""
+    fn, systems = subject
+    fn()
+    t0 = time.perf_counter()
+    got = fn()
+    return (got if isinstance(got, float) else time.perf_counter() - t0) / systems
+
+
+def rounds(subjects: dict, pairs: list[tuple], alone: list, repeats: int) -> tuple[dict, dict]:
+    """``repeats`` rounds; in each, every pair (a, b) of ``pairs`` is timed in a block a b b a and
+    every subject of ``alone`` once.  Returns each subject's per-system seconds (every timed call)
+    and each pair's per-round ratios (a1 + a2) / (b1 + b2)."""
+    times: dict = {k: [] for k in subjects}
+    ratios: dict = {pair: [] for pair in pairs}
     for _ in range(repeats):
-        for k, (fn, systems) in subjects.items():
-            fn()
-            t0 = time.perf_counter()
-            got = fn()
-            elapsed = got if isinstance(got, float) else time.perf_counter() - t0
-            out[k].append(elapsed / systems)
-    return out
+        for a, b in pairs:
+            block = [per_system(subjects[k]) for k in (a, b, b, a)]
+            times[a] += [block[0], block[3]]
+            times[b] += [block[1], block[2]]
+            ratios[(a, b)].append((block[0] + block[3]) / (block[1] + block[2]))
+        for k in alone:
+            times[k].append(per_system(subjects[k]))
+    return times, ratios
 
 
 # ----------------------------------------------------------------------------- the caller's side, per format
@@ -413,6 +428,27 @@ def load(port: int, method: str, path: str, body: bytes | None, requests: int, t
 
 # ----------------------------------------------------------------------------- the run
 
+# (label, (a, b), op, target): a ratio of per-system costs a / b, on both transports where a side is
+# served; the sides of a ratio with a target are timed back to back (:func:`rounds`)
+RATIOS = [
+    ("rows batch cheaper than single requests", ("single", "rows"), ">=", 20),
+    ("rows batch cheaper than the lab loop", ("lab", "rows"), ">=", 10),
+    ("columns JSON cheaper than the lab loop", ("lab", "columns"), ">=", 30),
+    ("columns Arrow cheaper than the lab loop", ("lab", "arrow"), "", None),
+    ("columns ECSV cheaper than the lab loop", ("lab", "ecsv"), "", None),
+    ("columns Arrow / bare numpy (aim 5)", ("arrow", "numpy"), "<=", 10),
+    ("columns JSON / bare numpy", ("columns", "numpy"), "", None),
+    ("columns ECSV / bare numpy", ("ecsv", "numpy"), "", None),
+    ("rows batch / bare numpy", ("rows", "numpy"), "", None),
+]
+TRANSPORTS = ("test client", "gunicorn")
+
+
+def sides(pair: tuple[str, str], where: str) -> tuple[tuple[str, str], tuple[str, str]]:
+    """The subjects' keys of a ratio on one transport (the lab loop and bare numpy have none)."""
+    return tuple((k, "" if k in ("lab", "numpy") else where) for k in pair)
+
+
 def agreement(got: dict, reference: dict) -> float:
     """Largest relative difference of values and sigmas between two {output: (values, sigmas)}."""
     return max(float(np.max(np.abs(got[o][j] / reference[o][j] - 1))) for o in reference for j in (0, 1))
@@ -449,7 +485,9 @@ def main(argv=None) -> int:
         subjects[("lab", "")] = ((lambda: lab_loop(parts["lab"])), sizes["lab"])
         subjects[("numpy", "")] = ((lambda: min(timed(lambda: bare_numpy(parts["arrow"])) for _ in range(3))),
                                    sizes["arrow"])
-        per_round = rounds(subjects, repeats)
+        pairs = [sides(pair, where) for _, pair, _, target in RATIOS if target is not None for where in TRANSPORTS]
+        paired = {k for pair in pairs for k in pair}
+        times, per_pair = rounds(subjects, pairs, [k for k in subjects if k not in paired], repeats)
 
         # the compared computations agree (else the ratios would compare different work)
         lab_cat = parts["lab"]
@@ -481,19 +519,22 @@ def main(argv=None) -> int:
     mc_body = json.dumps({k: {"value": system[k], "sigma": SIGMAS[k]} for k in SIGMAS} |
                          {"uncertainty": {"method": "monte_carlo", "samples": samples, "seed": 5}}).encode()
     mc_client = FlaskClient(create_app({"MAX_SAMPLES": samples}))
-    mc_rounds = rounds({"service": (lambda: mc_client.post("/v1/spectroscopic/sb2", mc_body), 1),
-                        "numpy": (lambda: bare_monte_carlo(system, samples), 1)}, repeats)
-    t_mc, t_mc_numpy = statistics.median(mc_rounds["service"]), statistics.median(mc_rounds["numpy"])
-    mc_ratio = statistics.median(a / b for a, b in zip(mc_rounds["service"], mc_rounds["numpy"]))
+    mc_times, mc_pair = rounds({"service": (lambda: mc_client.post("/v1/spectroscopic/sb2", mc_body), 1),
+                                "numpy": (lambda: bare_monte_carlo(system, samples), 1)}, [("service", "numpy")], [],
+                               repeats)
+    t_mc, t_mc_numpy = statistics.median(mc_times["service"]), statistics.median(mc_times["numpy"])
+    mc_ratio = statistics.median(mc_pair[("service", "numpy")])
     mc = json.loads(mc_client.post("/v1/spectroscopic/sb2", mc_body))["results"]
     bare_mc = bare_monte_carlo(system, samples)
     diffs["Monte Carlo medians"] = max(abs(mc[k]["value"] / bare_mc[k][0][0] - 1) for k in bare_mc)
 
     def t(subject, where=""):
-        return statistics.median(per_round[(subject, where)])
+        return statistics.median(times[(subject, where)])
 
     def ratio(a, b) -> float:
-        return statistics.median(x / y for x, y in zip(per_round[a], per_round[b]))
+        if (a, b) in per_pair:
+            return statistics.median(per_pair[(a, b)])
+        return statistics.median(times[a]) / statistics.median(times[b])
 
     us = 1e6
     print()
@@ -512,17 +553,6 @@ def main(argv=None) -> int:
     print("agreement with the service's Arrow answer (largest relative difference of values and sigmas): " +
           ", ".join(f"{k} {v:.1e}" for k, v in diffs.items()))
     print()
-    targets = [
-        ("rows batch cheaper than single requests", ("single", "rows"), ">=", 20),
-        ("rows batch cheaper than the lab loop", ("lab", "rows"), ">=", 10),
-        ("columns JSON cheaper than the lab loop", ("lab", "columns"), ">=", 30),
-        ("columns Arrow cheaper than the lab loop", ("lab", "arrow"), "", None),
-        ("columns ECSV cheaper than the lab loop", ("lab", "ecsv"), "", None),
-        ("columns Arrow / bare numpy (aim 5)", ("arrow", "numpy"), "<=", 10),
-        ("columns JSON / bare numpy", ("columns", "numpy"), "", None),
-        ("columns ECSV / bare numpy", ("ecsv", "numpy"), "", None),
-        ("rows batch / bare numpy", ("rows", "numpy"), "", None),
-    ]
     print(f"{'ratio, per system':46s} {'test client':>12s} {'gunicorn':>10s}   {'target':>8s}   met")
     failed = 0
 
@@ -532,12 +562,8 @@ def main(argv=None) -> int:
         ok = all(v >= target if op == ">=" else v <= target for v in values)
         return f"{op} {target:<5g}   {'yes' if ok else 'NO'}"
 
-    for label, (a, b), op, target in targets:
-        values = []
-        for where in ("test client", "gunicorn"):
-            ka = (a, "" if a in ("lab", "numpy") else where)
-            kb = (b, "" if b in ("lab", "numpy") else where)
-            values.append(ratio(ka, kb))
+    for label, pair, op, target in RATIOS:
+        values = [ratio(*sides(pair, where)) for where in TRANSPORTS]
         text = verdict(values, op, target)
         failed += text.endswith("NO")
         print(f"{label:46s} {values[0]:12.2f} {values[1]:10.2f}   {text}")
