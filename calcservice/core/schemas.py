@@ -29,6 +29,10 @@ MEASURED_KEYS = {"value", "sigma", "sigma_minus", "sigma_plus", "samples", "unit
 FORM_HINT = ('must be a number, or an object such as {"value": 1.2, "sigma": 0.1}, '
              '{"value": 1.2, "sigma_minus": 0.1, "sigma_plus": 0.2} or {"samples": [...]}')
 
+# the smallest normal double: below it a number keeps fewer than 53 bits (1e-320 keeps 14), so a
+# measured value or sigma there has lost its precision before any formula sees it
+SMALLEST_NORMAL = float(np.finfo(float).tiny)
+
 ISOTROPIC_ALONE = ('"isotropic" (random orientations, cos i uniform) takes no sigma or unit: give the string '
                    '"isotropic" alone (in a table, leave that system\'s sigma empty)')
 
@@ -206,10 +210,21 @@ def faults(spec: Input, x, sigma_minus, sigma_plus) -> list[tuple[Any, str]]:
     one system (the rules then give booleans) or arrays over N systems (boolean arrays); a batch
     calls this under ``np.errstate(invalid="ignore")``.  A time's domain holds its number as given (JD or MJD)."""
     outside = not spec.domain.holds(x) if type(x) is float else ~spec.domain.contains(x)
+    unit = spec.unit or "dimensionless"
     return [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
             ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
-             f"overflows a double when converted to {spec.unit or 'dimensionless'}"),
-            (outside, spec.domain.message(spec.unit))]
+             f"overflows a double when converted to {unit}"),
+            (outside, spec.domain.message(spec.unit)),
+            ((abs(x) < SMALLEST_NORMAL) & (x != 0), subnormal_message("value", spec.unit)),
+            ((sigma_minus < SMALLEST_NORMAL) & (sigma_minus > 0) | (sigma_plus < SMALLEST_NORMAL) & (sigma_plus > 0),
+             subnormal_message("sigma", spec.unit))]
+
+
+def subnormal_message(what: str, unit: str) -> str:
+    """A value or sigma below the smallest normal double (in ``unit``, the input's canonical one)."""
+    where = f" in {unit}" if unit else ""
+    return (f"{what} is below the smallest normal double (about 2.2e-308){where}, where a number has lost "
+            "its precision: give 0 if it is 0, else a number within a double's normal range")
 
 
 def broken(spec: Input, x: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray) -> np.ndarray:
@@ -259,6 +274,8 @@ class MeasuredField(_CheckedField):
             x = number(value)
             if not spec.domain.holds(x):
                 raise ValidationError(spec.domain.message(spec.unit))
+            if abs(x) < SMALLEST_NORMAL and x != 0:
+                raise ValidationError(subnormal_message("value", spec.unit))
             return RawQuantity(np.array([x]), one, one)
         if isinstance(value, str):
             if spec.isotropic and value == "isotropic":
@@ -270,6 +287,8 @@ class MeasuredField(_CheckedField):
             x = number(value)
             if not spec.domain.holds(x):
                 raise ValidationError(spec.domain.message(spec.unit))
+            if abs(x) < SMALLEST_NORMAL and x != 0:
+                raise ValidationError(subnormal_message("value", spec.unit))
             return RawQuantity(np.array([x]), one, one)
         if not isinstance(value, dict):
             raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))

@@ -1,0 +1,124 @@
+"""Bad input, third round: the small defects an audit left -- numbers below a double's normal range,
+a non-finite output's error key, ragged catalogue rows, echo with table bodies, Accept on a single
+calculation, and the client's own refusals.  Each case gets a 4xx problem (or a warning, or the
+client's InvalidInput) that names the field, never a silent answer."""
+
+from __future__ import annotations
+
+import json
+
+import astropy.units as u
+import numpy as np
+import pytest
+
+from calcservice import create_app
+
+SB1 = "/v1/spectroscopic/sb1"
+SB2 = "/v1/spectroscopic/sb2"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+# IEEE 754 binary64: the smallest normal number is 2^-1022 = 2.2250738585072014e-308 (numpy's finfo.tiny);
+# below it a double is subnormal and keeps fewer significant bits (from memory: 1e-320 keeps about 14)
+SMALLEST_NORMAL = 2.2250738585072014e-308
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+def problem(r, status):
+    assert r.status_code == status, r.get_data()[:300]
+    assert r.headers["Content-Type"].startswith("application/problem+json")
+    return r.get_json()
+
+
+def test_the_smallest_normal_double_is_what_the_messages_say():
+    assert np.finfo(float).tiny == SMALLEST_NORMAL == 2.0 ** -1022
+
+
+# --- 1. numbers below a double's normal range -------------------------------------------------
+
+@pytest.mark.parametrize("k1, what", [
+    (1e-320, "value"),                                                # a bare subnormal
+    ({"value": 1e-320, "sigma": 1e-321}, "value"),
+    ({"value": 5e-324}, "value"),                                     # the smallest subnormal
+    ({"value": 23.4, "sigma": 1e-321}, "sigma"),
+    ({"value": 23.4, "sigma_minus": 1.0, "sigma_plus": 1e-310}, "sigma"),
+    ({"value": 1e-305, "unit": "mm/s"}, "value"),                     # normal as given, 1e-311 km/s converted
+])
+def test_a_subnormal_input_is_refused_naming_it(client, k1, what):
+    body = problem(client.post(SB1, json={**GOOD, "k1": k1}), 422)
+    assert list(body["errors"]) == ["k1"]
+    message = body["errors"]["k1"][0]
+    assert message.startswith(f"{what} is below the smallest normal double (about 2.2e-308) in km/s")
+
+
+def test_zero_and_the_smallest_normal_are_taken(client):
+    for k1 in (SMALLEST_NORMAL, 1e-300):
+        r = client.post(SB1, json={**GOOD, "k1": k1})
+        assert r.status_code == 200, r.get_json()
+    r = client.post(SB1, json={**GOOD, "eccentricity": 0})
+    assert r.status_code == 200
+
+
+def test_a_subnormal_input_in_a_batch_is_that_systems_error_in_every_body(client):
+    rows = client.post("/v1/batch/sb1", json={"systems": [{**GOOD, "k1": 1e-320}, GOOD]}).get_json()["results"]
+    assert list(rows[0]["error"]["errors"]) == ["k1"] and "smallest normal double" in rows[0]["error"]["errors"]["k1"][0]
+    assert "results" in rows[1]
+    columns = client.post("/v1/batch/sb1", json={"columns": {"period": 41.6, "k1": {"value": [1e-320, 23.4]},
+                                                             "eccentricity": 0.31}}).get_json()
+    assert [e["index"] for e in columns["errors"]] == [0] and list(columns["errors"][0]["errors"]) == ["k1"]
+    assert columns["columns"]["mass_function"]["value"][0] is None
+    assert columns["columns"]["mass_function"]["value"][1] > 0
+    text = client.post("/v1/batch/sb1", data="period,k1,eccentricity\n41.6,1e-320,0.31\n41.6,23.4,0.31\n",
+                       content_type="text/csv").get_data(as_text=True)
+    first, second = text.splitlines()[1:3]
+    assert "k1: value is below the smallest normal double" in first and first.startswith(",,,,422,")
+    assert second.split(",")[4] == ""
+
+
+def test_an_output_that_underflows_from_normal_inputs_is_warned_naming_it(client):
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2): K1 = 1e-110 km/s cubes to
+    # 1e-330 (km/s)^3, below every double; a1 sin i = K1 P / (2 pi) stays a normal 9.2e-118 au
+    r = client.post(SB1, json={"period": 1e-3, "k1": {"value": 1e-110, "sigma": 1e-111}, "eccentricity": 0})
+    assert r.status_code == 200
+    body = r.get_json()
+    assert body["results"]["mass_function"]["value"] == 0.0
+    underflow = [w for w in body["warnings"] if w["code"] == "underflow"]
+    assert [w["fields"] for w in underflow] == [["mass_function"]]
+    assert "mass_function: below the smallest normal double" in underflow[0]["message"]
+    # 1e-104 km/s: f(M) ~ 1e-322 solMass, a subnormal result (a few digits left), also named
+    r = client.post(SB1, json={"period": 1e-3, "k1": 1e-104, "eccentricity": 0}).get_json()
+    assert 0 < r["results"]["mass_function"]["value"] < SMALLEST_NORMAL
+    assert [w["fields"] for w in r["warnings"] if w["code"] == "underflow"] == [["mass_function"]]
+
+
+def test_an_output_that_is_zero_by_physics_is_not_an_underflow(client):
+    # Thiele-Innes B = a (cos w sin W + sin w cos W cos i) (Heintz 1978, Double Stars): 0 at w = W = 0
+    r = client.post("/v1/astrometric/thiele-innes", json={"angular_semimajor_axis": {"value": 10, "sigma": 0.1},
+                                                          "inclination": {"value": 60, "sigma": 1},
+                                                          "omega": 0, "node": 0}).get_json()
+    assert r["results"]["B"]["value"] == 0.0
+    assert not [w for w in r["warnings"] if w["code"] == "underflow"]
+
+
+def test_underflow_is_warned_per_system_in_a_batch(client):
+    rows = client.post("/v1/batch/sb1", json={"systems": [{"period": 1e-3, "k1": 1e-110, "eccentricity": 0},
+                                                          GOOD]}).get_json()["results"]
+    assert [w["code"] for w in rows[0]["warnings"]] == ["underflow"]
+    assert rows[1]["warnings"] == []
+
+
+def test_an_output_unit_that_takes_a_value_below_a_double_is_refused_naming_it(client):
+    # a1 sin i = K1 P / (2 pi) (Hilditch 2001, ch. 2) ~ 9.2e-104 au for K1 = 1e-100 km/s, P = 10 d;
+    # in units of 1e210 au it is ~9e-314, a subnormal
+    body = {"period": 10, "k1": {"value": 1e-100, "sigma": 1e-101}, "eccentricity": 0,
+            "units": {"a1_sin_i": "1e210 au"}}
+    errors = problem(client.post(SB1, json=body), 422)["errors"]
+    assert list(errors) == ["units.a1_sin_i"]
+    assert errors["units.a1_sin_i"][0] == ("a1_sin_i in '1e210 au' is below the smallest normal double (about "
+                                           "2.2e-308), where its digits are lost: ask for a smaller unit")
+    body["units"] = {"a1_sin_i": "1e100 au"}
+    r = client.post(SB1, json=body).get_json()
+    expected = (1e-100 * u.km / u.s * 10 * u.d / (2 * np.pi)).to_value(u.au) / 1e100     # astropy
+    assert r["results"]["a1_sin_i"]["value"] == pytest.approx(expected, rel=1e-12)
