@@ -122,3 +122,30 @@ def test_an_output_unit_that_takes_a_value_below_a_double_is_refused_naming_it(c
     r = client.post(SB1, json=body).get_json()
     expected = (1e-100 * u.km / u.s * 10 * u.d / (2 * np.pi)).to_value(u.au) / 1e100     # astropy
     assert r["results"]["a1_sin_i"]["value"] == pytest.approx(expected, rel=1e-12)
+
+
+# --- 2. a system whose inputs give an output beyond a double -----------------------------------
+
+def test_an_output_overflowing_because_of_one_input_is_keyed_by_that_input(client):
+    # a1 sin i = K1 P / (2 pi) (Hilditch 2001, ch. 2): P = 3e303 d, K1 = 10 km/s make ~4e309 km, beyond a
+    # double; the period alone put back to an ordinary one makes it finite, so the period is at fault
+    body = {"period": {"value": 3, "unit": "1e303 d"}, "k1": 10, "eccentricity": 0}
+    p = problem(client.post(SB1, json=body), 422)
+    assert p["errors"] == {"period": ["this value (with the others given) gives no finite value of a1_sin_i: "
+                                      "it, or a number in its computation, overflows a double (beyond about 1.8e308)"]}
+    assert p["detail"] == "these inputs give no finite result: invalid value for period"
+    # the same by Monte Carlo, and as a row of a batch (the others answered)
+    mc = problem(client.post(SB1, json={**body, "uncertainty": {"method": "monte_carlo", "samples": 100}}), 422)
+    assert mc["errors"] == p["errors"]
+    rows = client.post("/v1/batch/sb1", json={"systems": [body, GOOD]}).get_json()["results"]
+    assert rows[0]["error"]["errors"] == p["errors"] and "results" in rows[1]
+
+
+def test_an_output_overflowing_from_a_combination_names_the_inputs_under_inputs(client):
+    # K1 = 1e5 km/s, P = 1e300 d: K1 P is beyond a double in km, while an ordinary K1 or an ordinary
+    # P alone gives a finite a1 sin i: neither input alone is at fault
+    body = {"period": {"value": 1, "unit": "1e300 d"}, "k1": 1e5, "eccentricity": 0}
+    p = problem(client.post(SB1, json=body), 422)
+    assert p["errors"] == {"_inputs": ["these inputs (period, k1) give no finite value of a1_sin_i: it, or a "
+                                       "number in its computation, overflows a double (beyond about 1.8e308)"]}
+    assert p["detail"] == "these inputs give no finite result"
