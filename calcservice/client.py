@@ -681,6 +681,9 @@ class InputTable:
         self.count = count
         self.columns = columns
         self.kept = kept or {}
+        # rows a text file's reader could not read (more or fewer cells than the header), by index:
+        # answered with the reason in place (calcservice.tables.ragged_rows)
+        self.refused: dict[int, str] = {}
 
     @classmethod
     def from_data(cls, data: Any, decl: Mapping[str, Any], units: Mapping[str, str] | None = None,

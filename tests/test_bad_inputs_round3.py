@@ -149,3 +149,65 @@ def test_an_output_overflowing_from_a_combination_names_the_inputs_under_inputs(
     assert p["errors"] == {"_inputs": ["these inputs (period, k1) give no finite value of a1_sin_i: it, or a "
                                        "number in its computation, overflows a double (beyond about 1.8e308)"]}
     assert p["detail"] == "these inputs give no finite result"
+
+
+# --- 3. a catalogue row with more or fewer cells than the header --------------------------------
+
+RAGGED = "period,k1,eccentricity\n41.6,23.4\n41.6,23.4,0.31\n41.6,23.4,0.31,7\n"
+ECSV_HEAD = ("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: period, datatype: float64}\n"
+             "# - {name: k1, datatype: float64}\n# - {name: eccentricity, datatype: float64}\n"
+             "# schema: astropy-2.0\nperiod k1 eccentricity\n")
+
+
+def ragged_message(row: int, cells: int, header: int = 3) -> str:
+    return (f"row {row + 1} (system {row}) has {cells} cells where the header has {header}: a cell is missing or "
+            "one too many (a delimiter within a cell must be quoted), so its cells cannot be put under their columns")
+
+
+def test_a_ragged_csv_row_is_that_systems_error_in_place(client):
+    answer = client.post("/v1/batch/sb1", data=RAGGED, content_type="text/csv",
+                         headers={"Accept": "application/json"}).get_json()
+    assert [(e["index"], e["errors"]) for e in answer["errors"]] == [
+        (0, {"_row": [ragged_message(0, 2)]}), (2, {"_row": [ragged_message(2, 4)]})]
+    value = answer["columns"]["mass_function"]["value"]
+    assert value[0] is None and value[2] is None
+    # f(M) = P K^3 (1 - e^2)^1.5 / (2 pi G) (Hilditch 2001, ch. 2), with astropy's constants
+    import astropy.constants as const
+    expected = (41.6 * u.d * (23.4 * u.km / u.s) ** 3 * (1 - 0.31 ** 2) ** 1.5 / (2 * np.pi * const.G)).to_value(u.M_sun)
+    assert value[1] == pytest.approx(expected, rel=1e-6)
+    text = client.post("/v1/batch/sb1", data=RAGGED, content_type="text/csv").get_data(as_text=True).splitlines()
+    assert text[1].startswith(",,,,422,") and ragged_message(0, 2) in text[1]
+    assert text[2].split(",")[4] == "" and ragged_message(2, 4) in text[3]
+
+
+def test_a_ragged_ecsv_row_is_that_systems_error_in_place(client):
+    body = ECSV_HEAD + "41.6 23.4\n41.6 23.4 0.31\n"
+    answer = client.post("/v1/batch/sb1", data=body, content_type="text/csv",
+                         headers={"Accept": "application/json"}).get_json()
+    assert [(e["index"], e["errors"]) for e in answer["errors"]] == [(0, {"_row": [ragged_message(0, 2)]})]
+    assert answer["columns"]["mass_function"]["value"][1] > 0
+
+
+def test_quoted_delimiters_blank_lines_and_missing_cells_are_no_ragged_rows(client):
+    # a quoted comma is one cell (RFC 4180); a blank line is no row; an empty cell is a missing value
+    body = 'star,period,k1,eccentricity\n"Lantern-7, A",41.6,23.4,0.31\n\n"B",41.6,,0.31\n'
+    answer = client.post("/v1/batch/sb1?keep=star", data=body, content_type="text/csv",
+                         headers={"Accept": "application/json"}).get_json()
+    assert answer["count"] == 2 and answer["kept"]["star"] == ["Lantern-7, A", "B"]
+    assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(1, ["k1"])]
+
+
+def test_the_command_line_answers_a_ragged_row_in_place(tmp_path):
+    from calcservice.cli import main
+    src, out = tmp_path / "ragged.csv", tmp_path / "out.csv"
+    src.write_text(RAGGED)
+    assert main(["compute", "sb1", "--in", str(src), "--out", str(out)]) == 0
+    from astropy.table import Table
+    t = Table.read(out, format="ascii.csv")
+    assert list(t["error_status"].filled(0)) == [422, 0, 422]
+    assert ragged_message(0, 2) in t["error"][0] and ragged_message(2, 4) in t["error"][2]
+    ecsv = tmp_path / "ragged.ecsv"
+    ecsv.write_text(ECSV_HEAD + "41.6 23.4 0.31\n41.6 23.4 0.31 7\n")
+    assert main(["compute", "sb1", "--in", str(ecsv), "--out", str(out)]) == 0
+    t = Table.read(out, format="ascii.csv")
+    assert list(t["error_status"].filled(0)) == [0, 422] and ragged_message(1, 4) in t["error"][1]
