@@ -51,7 +51,9 @@ def _unit(spec) -> str:
 
 
 DEFAULTS = Limits()
-ECHO = {"type": "boolean", "default": False, "description": "rows: each answer repeats its inputs as understood"}
+ECHO = {"type": "boolean", "default": False,
+        "description": "rows: each answer repeats its inputs as understood; a columns batch (JSON or a table) "
+                       "refuses true (422 naming echo): its answer has no place for inputs, which are the columns sent"}
 NULLABLE_NUMBER = {"type": ["number", "null"]}
 STRING = {"type": "string", "maxLength": DEFAULTS.max_string_length}
 UNIT = _ref("Unit")
@@ -688,8 +690,10 @@ COMPONENTS["ExtraColumn"] = {"type": "array", "items": {"type": ["object", "null
 COMPONENTS["RowsOrColumns"] = {
     "description": "rows: systems, one request body per system (the top-level options apply to each unless it "
                    "gives its own); columns: one entry per input, every array with one entry per system. A system "
-                   "(or column entry) that is not valid is answered with its error in its place",
-    "oneOf": [{"title": "rows", "required": ["systems"]}, {"title": "columns", "required": ["columns"]}]}
+                   "(or column entry) that is not valid is answered with its error in its place; echo is for "
+                   "rows (a columns answer has no place for inputs)",
+    "oneOf": [{"title": "rows", "required": ["systems"]},
+              {"title": "columns", "required": ["columns"], "properties": {"echo": {"const": False}}}]}
 
 
 def _columns(calc: Calculation) -> dict:

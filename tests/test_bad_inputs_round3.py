@@ -211,3 +211,37 @@ def test_the_command_line_answers_a_ragged_row_in_place(tmp_path):
     assert main(["compute", "sb1", "--in", str(ecsv), "--out", str(out)]) == 0
     t = Table.read(out, format="ascii.csv")
     assert list(t["error_status"].filled(0)) == [0, 422] and ragged_message(1, 4) in t["error"][1]
+
+
+# --- 4. echo with a columns batch (a JSON columns body or a table) ------------------------------
+
+def test_echo_with_a_columns_batch_is_refused_not_ignored(client):
+    from urllib.parse import quote
+    columns = {"columns": {"period": [41.6], "k1": [23.4], "eccentricity": [0.31]}}
+    p = problem(client.post("/v1/batch/sb1", json={**columns, "echo": True}), 422)
+    assert list(p["errors"]) == ["echo"] and p["errors"]["echo"][0].startswith(
+        "echo repeats each system's inputs in a rows batch")
+    table = "period,k1,eccentricity\n41.6,23.4,0.31\n"
+    for accept in ("text/csv", "application/json"):
+        p = problem(client.post("/v1/batch/sb1?options=" + quote(json.dumps({"echo": True})), data=table,
+                                content_type="text/csv", headers={"Accept": accept}), 422)
+        assert list(p["errors"]) == ["echo"]
+    # echo false, or left out, is what a columns answer is; rows still echo
+    assert client.post("/v1/batch/sb1", json={**columns, "echo": False}).status_code == 200
+    assert client.post("/v1/batch/sb1?options=" + quote('{"echo": false}'), data=table,
+                       content_type="text/csv").status_code == 200
+    rows = client.post("/v1/batch/sb1", json={"systems": [GOOD], "echo": True}).get_json()["results"]
+    assert rows[0]["inputs"]["k1"] == {"value": 23.4, "sigma": 0.0, "unit": "km/s"}
+
+
+def test_the_spec_says_a_columns_batch_takes_no_echo():
+    import jsonschema
+    import yaml
+
+    from calcservice.openapi import spec_yaml
+    spec = yaml.safe_load(spec_yaml())
+    validator = jsonschema.Draft202012Validator({"$ref": "#/components/schemas/sb1_batch_request",
+                                                 "components": spec["components"]})
+    columns = {"columns": {"period": [41.6], "k1": [23.4], "eccentricity": [0.31]}}
+    assert validator.is_valid({**columns, "echo": False}) and validator.is_valid({"systems": [GOOD], "echo": True})
+    assert not validator.is_valid({**columns, "echo": True})

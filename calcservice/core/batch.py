@@ -149,12 +149,21 @@ class Shared:
     echo: bool = False
 
 
-def shared_options(calc: Calculation, body: dict, limits: Limits) -> Shared:
-    """The batch's options, checked once for the whole batch: a bad one is the batch's 422 (or 413)."""
+ECHO_IN_COLUMNS = ("echo repeats each system's inputs in a rows batch ({\"systems\": [...]}); a columns batch "
+                   "(a JSON columns body or a table) answers columns of outputs in the order of the columns sent, "
+                   "which are the inputs (a table's own columns come back with ?keep=NAME): send systems to have "
+                   "the inputs echoed, or leave echo out")
+
+
+def shared_options(calc: Calculation, body: dict, limits: Limits, columns: bool = False) -> Shared:
+    """The batch's options, checked once for the whole batch: a bad one is the batch's 422 (or 413).
+    ``columns``: a columns batch, whose answer has no place for an echo (refused, never ignored)."""
     echo = body.get("echo", False)
     errors: dict[str, list[str]] = {}
     if type(echo) is not bool:
         errors["echo"] = ["must be true or false"]
+    elif echo and columns:
+        errors["echo"] = [ECHO_IN_COLUMNS]
     raw = {k: body[k] for k in OPTION_KEYS if k in body and k != "echo"}
     data = load(calc, raw, limits, options_only=True)
     output_units(calc, data.get("units", {}), errors)
@@ -568,7 +577,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays
             columns[spec.name], views[spec.name] = _quantity_column(spec, raw, n, limits)
 
     # the columns' forms first, then the options of the whole batch (their limits among them)
-    options = shared_options(calc, body, limits)
+    options = shared_options(calc, body, limits, columns=True)
     raw_shared = {**options.raw, **series}
     shared = {**options.data, **(load(calc, series, limits, options_only=True) if series else {})}
 
