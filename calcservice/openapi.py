@@ -395,8 +395,9 @@ PROBLEM_TEXT = {
     400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot",
     404: "unknown path",
     405: "wrong method (the Allow header lists the right ones)",
-    406: "none of the media types in Accept can be answered (the problem lists those that can); a rows batch "
-         "answers in JSON only; series outputs need JSON or Arrow",
+    406: "none of the media types in Accept can be answered (the problem lists those that can): a calculation "
+         "answers application/json, or with format its report or figure type; a rows batch answers in JSON only; "
+         "series outputs need JSON or Arrow",
     413: "the body or the work is over a configured limit (GET /v1/limits; the problem names it)",
     415: "the body is not of a media type the route takes",
     422: "values that parse but are not physical or are inconsistent (the problem names the fields)",
@@ -590,7 +591,7 @@ def _calculation_path(calc: Calculation, ex: dict) -> dict:
                     "content": {media.JSON: {"schema": _ref(f"{key}_response"), "example": ex["response"]},
                                 **RENDERED}},
             "400": {"$ref": f"#/components/responses/{_malformed(calc)}"},
-            **_problems(413, 415),
+            **_problems(406, 413, 415),
             "422": {"description": _refusals(calc), "content": {media.PROBLEM: {
                 "schema": _ref("Problem"), **({"example": ex["422"]} if "422" in ex else {})}}}}}}
 

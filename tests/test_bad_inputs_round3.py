@@ -245,3 +245,47 @@ def test_the_spec_says_a_columns_batch_takes_no_echo():
     columns = {"columns": {"period": [41.6], "k1": [23.4], "eccentricity": [0.31]}}
     assert validator.is_valid({**columns, "echo": False}) and validator.is_valid({"systems": [GOOD], "echo": True})
     assert not validator.is_valid({**columns, "echo": True})
+
+
+# --- 5. Accept on a single calculation (RFC 9110 section 12.5.1) --------------------------------
+
+SB2_BODY = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31}
+
+
+@pytest.mark.parametrize("accept, query", [
+    ("text/html", ""),
+    ("application/problem+json", ""),                  # a problem is no answer to a calculation
+    ("application/json;q=0, */*", ""),                 # q=0 refuses a type (RFC 9110 section 12.4.2)
+    ("text/markdown", ""),                              # a report is asked for with format
+    ("image/*", "?format=latex"),
+])
+def test_an_accept_that_takes_no_answer_of_a_calculation_is_406_listing_them(client, accept, query):
+    p = problem(client.post(SB2 + query, json=SB2_BODY, headers={"Accept": accept}), 406)
+    assert list(p["errors"]) == ["Accept"]
+    assert ("a calculation answers application/json, text/x-tex (format=latex), text/markdown (format=markdown), "
+            "image/svg+xml (format=svg), image/png (format=png)") in p["detail"]
+    if accept == "text/markdown":
+        assert p["errors"]["Accept"] == ["must accept application/json (or give format=markdown)"]
+
+
+@pytest.mark.parametrize("accept, query, answered", [
+    (None, "", "application/json"),
+    ("*/*", "", "application/json"),                   # curl
+    ("application/*", "", "application/json"),
+    ("application/json, application/problem+json, */*", "", "application/json"),     # the web form's fetch
+    ("text/html,application/xhtml+xml,application/xml;q=0.9,*/*;q=0.8", "", "application/json"),   # a browser's
+    ("text/markdown", "?format=markdown", "text/markdown"),
+    ("text/*", "?format=latex", "text/x-tex"),          # the Python client's report
+])
+def test_accepts_that_take_the_answer_are_answered(client, accept, query, answered):
+    r = client.post(SB2 + query, json=SB2_BODY, headers={"Accept": accept} if accept else {})
+    assert r.status_code == 200 and r.mimetype == answered
+    if answered == "application/json":
+        # q = K1/K2 (Hilditch 2001, ch. 2)
+        assert r.get_json()["results"]["mass_ratio"]["value"] == pytest.approx(38.2 / 51.7, rel=1e-12)
+
+
+def test_a_bad_body_is_still_a_problem_whatever_accept_says(client):
+    # RFC 9110 allows an error in a type Accept does not list: a problem says what is wrong
+    p = problem(client.post(SB2, json={**SB2_BODY, "eccentricity": 1.5}, headers={"Accept": "application/json"}), 422)
+    assert list(p["errors"]) == ["eccentricity"]
