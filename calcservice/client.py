@@ -41,6 +41,7 @@ from . import __version__
 from .columns import column_array as _to_array
 from .columns import column_name, column_role, correlated_columns, split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
+from .media import FIGURES, REPORTS
 
 USER_AGENT = f"calcservice-client/{__version__} (calcservice {__version__}; Python {platform.python_version()})"
 ARROW = "application/vnd.apache.arrow.stream"
@@ -504,12 +505,14 @@ class Client:
 
     def report(self, name: str, /, format: str = "latex", **kwargs) -> str:
         """The derivation report (``format`` "latex" or "markdown") as text."""
+        _one_of("format", format, REPORTS, "report gives", "figure() draws svg and png")
         body, path = self._body_and_path(name, kwargs)
         _, _, payload = self._request("POST", path, body, {"format": format}, accept="text/*")
         return payload.decode("utf-8")
 
     def figure(self, name: str, /, format: str = "svg", plot: str | None = None, **kwargs) -> bytes:
         """A figure (``format`` "svg" or "png"): the time-series curve, or the histogram of output ``plot``."""
+        _one_of("format", format, FIGURES, "figure draws", "report() gives latex and markdown")
         body, path = self._body_and_path(name, kwargs)
         query = {"format": format, **({"plot": plot} if plot else {})}
         _, _, payload = self._request("POST", path, body, query, accept="image/*")
@@ -547,6 +550,11 @@ class Client:
                         time_format=time_format, method=method, samples=samples, seed=seed, covariance=covariance)
         path = "/v1/batch/" + name
         show = self.progress if progress is None else progress
+        if _is_list(data) and not _is_rows(data):
+            k, row = next((k, row) for k, row in enumerate(data) if not isinstance(row, Mapping))
+            raise InvalidInput(f"systems.{k}: a system of a list of rows is a mapping of inputs to values "
+                               f"({{\"period\": 41.6, \"k1\": (38.2, 0.4), ...}}), not {type(row).__name__}; a batch "
+                               "also takes an astropy Table or QTable, a pandas DataFrame or a mapping of columns")
         if _is_rows(data):
             if units or keep:
                 raise InvalidInput("keep: units= and keep= apply to a table of columns, not to a list of rows")
@@ -657,9 +665,19 @@ def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
 
 
 # --------------------------------------------------------------------------- tables in
+def _is_list(data) -> bool:
+    return isinstance(data, Sequence) and not isinstance(data, (str, bytes, Mapping))
+
+
 def _is_rows(data) -> bool:
-    return (isinstance(data, Sequence) and not isinstance(data, (str, bytes, Mapping))
-            and all(isinstance(r, Mapping) for r in data))
+    return _is_list(data) and all(isinstance(r, Mapping) for r in data)
+
+
+def _one_of(field: str, value: Any, allowed: Iterable[str], does: str, instead: str) -> None:
+    """:class:`InvalidInput` naming ``field`` unless ``value`` is one of ``allowed``."""
+    allowed = list(allowed)
+    if value not in allowed:
+        raise InvalidInput(f"{field}: {does} {' or '.join(allowed)}, not {str(value)[:40]!r} ({instead})")
 
 
 def _is_astropy_table(data) -> bool:

@@ -289,3 +289,41 @@ def test_a_bad_body_is_still_a_problem_whatever_accept_says(client):
     # RFC 9110 allows an error in a type Accept does not list: a problem says what is wrong
     p = problem(client.post(SB2, json={**SB2_BODY, "eccentricity": 1.5}, headers={"Accept": "application/json"}), 422)
     assert list(p["errors"]) == ["eccentricity"]
+
+
+# --- 6. the Python client's own refusals ----------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def local():
+    from calcservice.client import Client
+    return Client("local")
+
+
+@pytest.mark.parametrize("make, fmt, message", [
+    ("figure", "latex", "format: figure draws svg or png, not 'latex' (report() gives latex and markdown)"),
+    ("figure", "markdown", "format: figure draws svg or png, not 'markdown' (report() gives latex and markdown)"),
+    ("report", "svg", "format: report gives latex or markdown, not 'svg' (figure() draws svg and png)"),
+    ("report", "json", "format: report gives latex or markdown, not 'json' (figure() draws svg and png)"),
+])
+def test_the_client_refuses_a_format_the_call_does_not_make(local, make, fmt, message):
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        getattr(local, make)("sb1", format=fmt, **GOOD)
+    assert e.value.errors == {"format": [message]}
+
+
+def test_the_client_still_makes_its_reports_and_figures(local):
+    assert local.report("sb1", format="markdown", **GOOD).startswith("#")
+    assert local.figure("sb1", format="svg", plot="mass_function", period=41.6, k1=(23.4, 0.4),
+                        eccentricity=0.31, method="monte_carlo", samples=200, seed=1).lstrip().startswith(b"<?xml")
+
+
+@pytest.mark.parametrize("data, index, kind", [([1, 2, 3], 0, "int"), ([GOOD, 5.0], 1, "float"),
+                                               ([GOOD, GOOD, [41.6, 23.4, 0.31]], 2, "list")])
+def test_a_batch_row_that_is_not_a_mapping_is_named_by_its_index(local, data, index, kind):
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", data)
+    assert list(e.value.errors) == [f"systems.{index}"]
+    assert str(e.value).startswith(f"systems.{index}: a system of a list of rows is a mapping of inputs to values")
+    assert f"not {kind}; a batch also takes an astropy Table or QTable, a pandas DataFrame" in str(e.value)
