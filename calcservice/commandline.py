@@ -458,7 +458,7 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
 
     import orjson
 
-    from .client import dumps, from_columns_answer, merge_results, rows_per_request
+    from .client import dumps, from_columns_answer, merge_results, monte_carlo_options, rows_per_request
     n = data.count
     per = rows_per_request(asdict(limits), options)
     if progress is None:
@@ -475,16 +475,29 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
         except ImportError:
             pass
     parts = []
+    start, drawing = 0, False
     try:
-        for start in range(0, n, per):
+        while start < n:
             stop = min(n, start + per)
             # the JSON forms of the wire contract (NaN as null), as an HTTP body would bring them
             columns = orjson.loads(dumps(data.json(start, stop)))
             refused = {k - start: reason for k, reason in data.refused.items() if start <= k < stop}
-            answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits, refused)
+            try:
+                answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits, refused)
+            except Problem as p:
+                # systems that draw whatever the options say ("isotropic", samples): slices for Monte
+                # Carlo's draws, as the client cuts them (Client._sliced)
+                if drawing or p.status != 413 or (p.limit or {}).get("name") != "max_batch_draws":
+                    raise
+                drawing = True
+                per = min(per, rows_per_request(asdict(limits), monte_carlo_options(options)))
+                if per >= stop - start:
+                    raise
+                continue
             parts.append((start, stop, from_columns_answer(answer, stop - start)))
             if bar is not None:
                 bar.update(stop - start)
+            start = stop
     finally:
         if bar is not None:
             bar.close()

@@ -327,3 +327,53 @@ def test_a_batch_row_that_is_not_a_mapping_is_named_by_its_index(local, data, in
     assert list(e.value.errors) == [f"systems.{index}"]
     assert str(e.value).startswith(f"systems.{index}: a system of a list of rows is a mapping of inputs to values")
     assert f"not {kind}; a batch also takes an astropy Table or QTable, a pandas DataFrame" in str(e.value)
+
+
+# --- 7. a catalogue whose systems draw though the options ask for no Monte Carlo ----------------
+
+ISOTROPIC_ROWS = 7
+
+
+def _isotropic_catalogue():
+    n = ISOTROPIC_ROWS
+    return {"period": np.linspace(10.0, 70.0, n), "k1": np.full(n, 23.4), "eccentricity": np.full(n, 0.31),
+            "primary_mass": np.full(n, 1.2), "inclination": ["isotropic"] * (n - 1) + [80.0]}
+
+
+@pytest.mark.parametrize("transport", ["arrow", "json"])
+def test_the_client_splits_a_catalogue_that_draws_by_the_services_draw_limit(transport):
+    from calcservice.client import Client
+    # 3 systems of 1000 draws per request: "isotropic" inclinations draw though no method is asked for
+    svc = Client.local({"MAX_BATCH_DRAWS": 3000, "DEFAULT_SAMPLES": 1000}, transport=transport)
+    sizes = []
+    real = svc._request
+
+    def spy(method, path, body=None, query=None, **kw):
+        status, ctype, payload = real(method, path, body, query, **kw)
+        if path.startswith("/v1/batch/"):
+            sizes.append(status)
+        return status, ctype, payload
+    svc._request = spy
+    out = svc.batch("sb1", _isotropic_catalogue())
+    assert out.failed == []
+    assert sizes == [200, 200, 200]                # 7 systems in slices of 3 (the first refused on the server's side)
+    # m2_min depends on no draw: each system's is its single request's (the mass function's cubic,
+    # Hilditch 2001, ch. 2)
+    single = Client.local()
+    for k, period in enumerate(np.linspace(10.0, 70.0, ISOTROPIC_ROWS)):
+        expected = single.calculate("sb1", period=period, k1=23.4, eccentricity=0.31,
+                                    primary_mass=1.2)["results"]["m2_min"]["value"]
+        assert out["m2_min"][k] == pytest.approx(expected, rel=1e-12)
+
+
+def test_the_command_line_splits_a_catalogue_that_draws_by_the_draw_limit(tmp_path, monkeypatch):
+    from astropy.table import Table
+
+    from calcservice.cli import main
+    monkeypatch.setenv("CALCSERVICE_MAX_BATCH_DRAWS", "3000")
+    monkeypatch.setenv("CALCSERVICE_DEFAULT_SAMPLES", "1000")
+    src, out = tmp_path / "iso.csv", tmp_path / "out.csv"
+    Table(_isotropic_catalogue()).write(src, format="ascii.csv")
+    assert main(["compute", "sb1", "--in", str(src), "--out", str(out)]) == 0
+    t = Table.read(out, format="ascii.csv")
+    assert len(t) == ISOTROPIC_ROWS and not np.any(t["error_status"].filled(0))
