@@ -388,7 +388,8 @@ def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple
         start = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")), None)
     if start is None:
         return lines, {}
-    body = [line.strip() for line in lines[start:]] if ecsv else lines[start:]
+    # ECSV's reader takes a # line anywhere for a comment; a CSV's row may begin with # (an identifier)
+    body = [("" if line.startswith("#") else line.strip()) for line in lines[start:]] if ecsv else lines[start:]
     width = body[0].count(delimiter)
     if all(line.count(delimiter) == width or not line.strip() for line in body) and \
             not any('"' in line for line in body):

@@ -45,6 +45,7 @@ def test_the_smallest_normal_double_is_what_the_messages_say():
     ({"value": 23.4, "sigma": 1e-321}, "sigma"),
     ({"value": 23.4, "sigma_minus": 1.0, "sigma_plus": 1e-310}, "sigma"),
     ({"value": 1e-305, "unit": "mm/s"}, "value"),                     # normal as given, 1e-311 km/s converted
+    ({"samples": [23.4, 1e-320, 22.9]}, "a sample"),
 ])
 def test_a_subnormal_input_is_refused_naming_it(client, k1, what):
     body = problem(client.post(SB1, json={**GOOD, "k1": k1}), 422)
@@ -181,7 +182,8 @@ def test_a_ragged_csv_row_is_that_systems_error_in_place(client):
 
 
 def test_a_ragged_ecsv_row_is_that_systems_error_in_place(client):
-    body = ECSV_HEAD + "41.6 23.4\n41.6 23.4 0.31\n"
+    # a # line is an ECSV comment wherever it is, and cells may be apart by more than one space
+    body = ECSV_HEAD + "41.6 23.4\n# a comment, no row\n41.6  23.4 0.31\n"
     answer = client.post("/v1/batch/sb1", data=body, content_type="text/csv",
                          headers={"Accept": "application/json"}).get_json()
     assert [(e["index"], e["errors"]) for e in answer["errors"]] == [(0, {"_row": [ragged_message(0, 2)]})]

@@ -320,6 +320,8 @@ class MeasuredField(_CheckedField):
             med = np.median(s)
             if not np.isfinite(sd):
                 raise ValidationError("the samples (in the canonical unit) or their spread overflow a double")
+            if np.count_nonzero((np.abs(s) < SMALLEST_NORMAL) & (s != 0)):
+                raise ValidationError(subnormal_message("a sample", spec.unit))
             return RawQuantity(np.array([med]), np.array([sd]), np.array([sd]), samples=s[None, :], unit=unit)
         if "value" not in value:
             raise ValidationError("value is missing; " + FORM_HINT)
