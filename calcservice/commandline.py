@@ -319,7 +319,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
 
     from .client import InputTable
     from .columns import column_role, split_unit
-    from .tables import ragged_rows, table_lines
+    from .tables import quiet_range_warnings, ragged_rows, table_lines
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
     source: Any = path
@@ -347,7 +347,8 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
             # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
             fmt, options = "ecsv", {"engine": "pandas"}
     try:
-        table = Table.read(source, format=fmt, **options)
+        with quiet_range_warnings():
+            table = Table.read(source, format=fmt, **options)
     except FileNotFoundError:
         raise UsageError("--in", f"cannot read {path}: no such file") from None
     except OSError as e:

@@ -24,9 +24,11 @@ name, a catalogue number) named in ``keep`` come first, as they were sent (:func
 
 from __future__ import annotations
 
+import contextlib
 import io
 import json
 import re
+import warnings
 from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
@@ -369,6 +371,17 @@ def check_header(lines: Sequence[str], delimiter: str = ",") -> None:
         raise TableError(422, "the table's header has " + " and ".join(parts), errors)
 
 
+@contextlib.contextmanager
+def quiet_range_warnings():
+    """astropy's fast reader warns (to the log) of a cell beyond a double or below its normal range
+    ("OverflowError converting to FloatType"): the number is then that system's error, said in words
+    by the batch, so the warning is left out (the command line prints one line)."""
+    from astropy.utils.exceptions import AstropyWarning
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="OverflowError converting to FloatType", category=AstropyWarning)
+        yield
+
+
 def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple[list[str], dict[int, str]]:
     """A text table's rows whose number of cells is not its header's, as a message by system index,
     and the table's lines with each such row's cells emptied (a row of missing cells in its place).
@@ -444,7 +457,8 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
-        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
+        with quiet_range_warnings():
+            table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "

@@ -379,3 +379,19 @@ def test_the_command_line_splits_a_catalogue_that_draws_by_the_draw_limit(tmp_pa
     assert main(["compute", "sb1", "--in", str(src), "--out", str(out)]) == 0
     t = Table.read(out, format="ascii.csv")
     assert len(t) == ISOTROPIC_ROWS and not np.any(t["error_status"].filled(0))
+
+
+def test_a_cell_below_a_doubles_range_is_said_in_words_without_astropys_warning(client, tmp_path, capsys):
+    import warnings
+    table = "period,k1,eccentricity\n41.6,1e-320,0.31\n41.6,23.4,0.31\n"
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        answer = client.post("/v1/batch/sb1", data=table, content_type="text/csv",
+                             headers={"Accept": "application/json"}).get_json()
+    assert [e["index"] for e in answer["errors"]] == [0]
+    assert not [w for w in caught if "converting to FloatType" in str(w.message)]
+    from calcservice.cli import main
+    (tmp_path / "sub.csv").write_text(table)
+    assert main(["compute", "sb1", "--in", str(tmp_path / "sub.csv"), "--out", str(tmp_path / "o.csv")]) == 0
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith("1 of 2 systems computed; 1 failed: k1: value is below")
