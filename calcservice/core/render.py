@@ -15,8 +15,7 @@ from ..registry import Calculation, Warning
 from ..units import factor
 from .parse import Parsed
 from .problems import invalid
-
-_SMALLEST_NORMAL = np.finfo(float).tiny
+from .schemas import SMALLEST_NORMAL
 
 
 def provenance(calc: Calculation) -> dict:
@@ -61,7 +60,7 @@ def in_unit(values: np.ndarray, k, names: list[str], units: list[str]) -> np.nda
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         out = values * k
     lost = np.isfinite(values) & ~np.isfinite(out)
-    shrunk = (np.abs(out) < _SMALLEST_NORMAL) & (np.abs(values) >= _SMALLEST_NORMAL)
+    shrunk = (np.abs(out) < SMALLEST_NORMAL) & (np.abs(values) >= SMALLEST_NORMAL)
     if lost.any() or shrunk.any():
         over = lost.any()
         row = np.nonzero((lost if over else shrunk).reshape(len(names), -1).any(axis=1))[0][0]

@@ -13,9 +13,7 @@ from ..registry import Calculation, Warning
 from .parse import Parsed, find, parse
 from .problems import Problem, invalid
 from .render import Rendering
-
-
-SMALLEST_NORMAL = np.finfo(float).tiny
+from .schemas import SMALLEST_NORMAL
 
 
 def run(parsed: Parsed) -> Result:
@@ -47,14 +45,16 @@ def _name_what_fails(parsed: Parsed, result: Result) -> None:
     ``_inputs`` (the combination of inputs).  Here each such output is named with what it is: beyond
     a double (an overflow) or without a value (its formula undefined there); and where putting one
     input alone back to its value in the calculation's example makes every such output finite, that
-    input is the one at fault and the error is keyed by its name.  One physics call per input given,
-    over the failed systems only."""
+    input is the one at fault and the error is keyed by its name.  One physics call, and one more per
+    input given, over the failed systems only."""
     calc, n = parsed.calc, parsed.count
     rows = np.array([k for k, errs in result.failed.items() if "_inputs" in errs], dtype=int)
     if not rows.size:
         return
     nominal = {name: v[rows] for name, v in result.nominal_inputs.items()}
-    per_system = {k: v[rows] for k, v in parsed.statics.items() if isinstance(v, np.ndarray) and v.shape == (n,)}
+    # a choice given per system is an array over the systems; a series (times) is the same for all
+    per_system = {k: v[rows] for k, v in parsed.statics.items()
+                  if k not in parsed.series and isinstance(v, np.ndarray) and v.shape == (n,)}
 
     def outputs(changed: str | None = None, value: float = 0.0) -> dict[str, np.ndarray] | None:
         """The physics at the failed systems' nominal inputs (``changed`` put to ``value``), each
@@ -120,9 +120,9 @@ def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning
     physics reached by underflowing (1e-110 km/s cubed) is not the formula's value.
 
     Overflow needs no such test (the engine fails the system: no finite value); a 0 does, since
-    outputs may be exactly 0 by physics (a phase at periastron).  So the physics is called once more
-    at the nominal inputs of the systems with a 0, with numpy's underflow raised, only when there is
-    such a 0: a 0 is flagged where that call underflowed."""
+    outputs may be exactly 0 by physics (a phase at periastron).  So, only when some output is 0, the
+    physics is called once more at the nominal inputs of the call's systems with numpy's underflow
+    raised: a 0 is flagged where that call underflowed."""
     if not result.outputs:
         return []
     values = np.concatenate([o["value"].ravel() for o in result.outputs.values()])
