@@ -114,6 +114,13 @@ def _name_what_fails(parsed: Parsed, result: Result) -> None:
             errors["_inputs"] = [f"these inputs{which} give {m}" for m in named]
 
 
+def _small(v: np.ndarray) -> bool:
+    """Whether any of ``v`` lies below the smallest normal double in size (0 among them)."""
+    if v.size == 1:                          # a single request's output: a float's comparison
+        return -SMALLEST_NORMAL < v.item() < SMALLEST_NORMAL
+    return bool(np.count_nonzero(np.abs(v) < SMALLEST_NORMAL))
+
+
 def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning]:
     """An ``underflow`` warning for each output whose value lies below the smallest normal double
     (2.2e-308) in its canonical unit: a subnormal one has lost its digits, and a 0 that the
@@ -123,10 +130,7 @@ def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning
     outputs may be exactly 0 by physics (a phase at periastron).  So, only when some output is 0, the
     physics is called once more at the nominal inputs of the call's systems with numpy's underflow
     raised: a 0 is flagged where that call underflowed."""
-    if not result.outputs:
-        return []
-    values = np.concatenate([o["value"].ravel() for o in result.outputs.values()])
-    if not np.count_nonzero(np.abs(values) < SMALLEST_NORMAL):       # the usual case, in one test
+    if not any(_small(o["value"]) for o in result.outputs.values()):     # the usual case, at a few us
         return []
     small = {name: np.abs(o["value"]) < SMALLEST_NORMAL for name, o in result.outputs.items()}
     n = len(next(iter(small.values())))
