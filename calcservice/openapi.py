@@ -441,9 +441,10 @@ REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields
             "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
             "that are not ISO 8601 times (or mix too many formats); a value of an input whose domain excludes 0 "
             "below the smallest normal double (a subnormal, under 2.2e-308, once converted); correlations naming an "
-            "input not given, a pair correlated twice, an input given as samples (they carry their own correlations), or a correlation "
-            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output "
-            "has no finite value (not physically consistent); plot=NAME without the Monte Carlo method, or for an "
+            "input not given, a pair correlated twice, an input given as samples (they carry their own "
+            "correlations), or a correlation matrix that is not positive definite; samples inputs of different "
+            "lengths; inputs for which an output has no finite value (overflow, or no value: keyed by the one input "
+            "at fault where there is one); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 
 
