@@ -271,6 +271,8 @@ SB2_BODY = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31}
     ("application/json;q=0, */*", ""),                 # q=0 refuses a type (RFC 9110 section 12.4.2)
     ("text/markdown", ""),                              # a report is asked for with format
     ("image/*", "?format=latex"),
+    ("*/*;q=0", ""),
+    ("application/json;q=0, application/*", ""),         # the most specific range decides (RFC 9110 12.5.1)
 ])
 def test_an_accept_that_takes_no_answer_of_a_calculation_is_406_listing_them(client, accept, query):
     p = problem(client.post(SB2 + query, json=SB2_BODY, headers={"Accept": accept}), 406)
@@ -287,6 +289,10 @@ def test_an_accept_that_takes_no_answer_of_a_calculation_is_406_listing_them(cli
     ("application/*", "", "application/json"),
     ("application/json, application/problem+json, */*", "", "application/json"),     # the web form's fetch
     ("text/html,application/xhtml+xml,application/xml;q=0.9,*/*;q=0.8", "", "application/json"),   # a browser's
+    ("application/json; charset=utf-8", "", "application/json"),   # JSON is UTF-8 (RFC 8259): a charset narrows nothing
+    ("*", "", "application/json"),                      # an old client's */*
+    ("garbage", "", "application/json"),                # no readable media range: disregarded (RFC 9110 12.5.1)
+    ("text/*;q=0, application/json", "", "application/json"),
     ("text/markdown", "?format=markdown", "text/markdown"),
     ("text/*", "?format=latex", "text/x-tex"),          # the Python client's report
 ])
