@@ -289,7 +289,7 @@ def test_an_accept_that_takes_no_answer_of_a_calculation_is_406_listing_them(cli
     ("application/*", "", "application/json"),
     ("application/json, application/problem+json, */*", "", "application/json"),     # the web form's fetch
     ("text/html,application/xhtml+xml,application/xml;q=0.9,*/*;q=0.8", "", "application/json"),   # a browser's
-    ("application/json; charset=utf-8", "", "application/json"),   # JSON is UTF-8 (RFC 8259): a charset narrows nothing
+    ("application/json; charset=utf-8", "", "application/json"),   # JSON is UTF-8 (RFC 8259)
     ("*", "", "application/json"),                      # an old client's */*
     ("garbage", "", "application/json"),                # no readable media range: disregarded (RFC 9110 12.5.1)
     ("text/*;q=0, application/json", "", "application/json"),
