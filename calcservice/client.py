@@ -41,6 +41,7 @@ from . import __version__
 from .columns import column_array as _to_array
 from .columns import column_name, column_role, correlated_columns, split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
+from .media import FIGURES, REPORTS
 
 USER_AGENT = f"calcservice-client/{__version__} (calcservice {__version__}; Python {platform.python_version()})"
 ARROW = "application/vnd.apache.arrow.stream"
@@ -504,12 +505,14 @@ class Client:
 
     def report(self, name: str, /, format: str = "latex", **kwargs) -> str:
         """The derivation report (``format`` "latex" or "markdown") as text."""
+        _one_of("format", format, REPORTS, "report gives", "figure() draws svg and png")
         body, path = self._body_and_path(name, kwargs)
         _, _, payload = self._request("POST", path, body, {"format": format}, accept="text/*")
         return payload.decode("utf-8")
 
     def figure(self, name: str, /, format: str = "svg", plot: str | None = None, **kwargs) -> bytes:
         """A figure (``format`` "svg" or "png"): the time-series curve, or the histogram of output ``plot``."""
+        _one_of("format", format, FIGURES, "figure draws", "report() gives latex and markdown")
         body, path = self._body_and_path(name, kwargs)
         query = {"format": format, **({"plot": plot} if plot else {})}
         _, _, payload = self._request("POST", path, body, query, accept="image/*")
@@ -547,6 +550,11 @@ class Client:
                         time_format=time_format, method=method, samples=samples, seed=seed, covariance=covariance)
         path = "/v1/batch/" + name
         show = self.progress if progress is None else progress
+        if _is_list(data) and not _is_rows(data):
+            k, row = next((k, row) for k, row in enumerate(data) if not isinstance(row, Mapping))
+            raise InvalidInput(f"systems.{k}: a system of a list of rows is a mapping of inputs to values "
+                               f"({{\"period\": 41.6, \"k1\": (38.2, 0.4), ...}}), not {type(row).__name__}; a batch "
+                               "also takes an astropy Table or QTable, a pandas DataFrame or a mapping of columns")
         if _is_rows(data):
             if units or keep:
                 raise InvalidInput("keep: units= and keep= apply to a table of columns, not to a list of rows")
@@ -557,11 +565,18 @@ class Client:
     def _rows_per_request(self, opts: Mapping[str, Any]) -> int:
         return rows_per_request(self.limits(), opts)
 
-    def _chunks(self, n: int, encode, opts) -> Iterable[tuple[int, int, bytes]]:
-        """(start, stop, body) for consecutive slices of ``n`` systems, each within the row and body limits."""
+    def _sliced(self, n: int, encode, opts, post, bar) -> list[tuple[int, int, Any]]:
+        """Consecutive slices of ``n`` systems, each within the row and body limits, as (start, stop,
+        ``post(encode(start, stop))``).
+
+        The options say whether a request draws Monte Carlo (:func:`rows_per_request`); its systems may
+        too (an inclination "isotropic", inputs given as samples), which the service knows and the
+        client does not guess: where it refuses a slice for its draws (413, ``max_batch_draws``), the
+        slices are cut again for the draws of a Monte Carlo request and the slice is sent again."""
         per = self._rows_per_request(opts)
         max_bytes = self.limits()["max_body_bytes"]
-        start = 0
+        parts: list[tuple[int, int, Any]] = []
+        start, drawing = 0, False
         while start < n:
             stop = min(n, start + per)
             body = encode(start, stop)
@@ -570,8 +585,21 @@ class Client:
                 per = max(1, min(stop - start - 1, int((stop - start) * 0.9 * max_bytes / len(body))))
                 stop = start + per
                 body = encode(start, stop)
-            yield start, stop, body
+            try:
+                answer = post(body)
+            except CalcServiceError as e:
+                if drawing or e.status != 413 or (e.limit or {}).get("name") != "max_batch_draws":
+                    raise
+                drawing = True
+                per = min(per, self._rows_per_request(monte_carlo_options(opts)))
+                if per >= stop - start:
+                    raise
+                continue
+            parts.append((start, stop, answer))
+            if bar is not None:
+                bar.update(stop - start)
             start = stop
+        return parts
 
     def _bar(self, n: int, show: bool | None, opts: Mapping[str, Any]):
         """A tqdm bar when asked for, or by default on a terminal for a catalogue of several requests."""
@@ -601,47 +629,47 @@ class Client:
             query = {"options": dumps({**opts, **shared}).decode("utf-8")} if opts or shared else None
         else:
             encode = lambda a, b: dumps({"columns": table.json(a, b), **opts})  # noqa: E731
-        parts = []
+        sent = []
+
+        def post(body):
+            if not arrow:
+                return self._json("POST", path, body)
+            _, _, payload = self._request("POST", path, body, query, accept=ARROW, content_type=ARROW)
+            sent.append(True)
+            return decode_answer(payload, ARROW)
+
         bar = self._bar(n, show, opts)
         try:
-            for start, stop, body in self._chunks(n, encode, opts):
-                if arrow:
-                    try:
-                        _, _, payload = self._request("POST", path, body, query, accept=ARROW, content_type=ARROW)
-                    except CalcServiceError as e:
-                        if e.status not in (406, 415) or parts:
-                            raise
-                        # a service that does not take tables: the catalogue goes as JSON (a new request, not a retry)
-                        self.transport = "json"
-                        return self._batch_columns(path, table, opts, show)
-                    answer = decode_answer(payload, ARROW)
-                else:
-                    answer = self._json("POST", path, body)
-                parts.append((start, stop, from_columns_answer(answer, stop - start)))
-                if bar is not None:
-                    bar.update(stop - start)
+            parts = self._sliced(n, encode, opts, post, bar)
+        except CalcServiceError as e:
+            if not arrow or e.status not in (406, 415) or sent:
+                raise
+            # a service that does not take tables: the catalogue goes as JSON (a new request, not a retry)
+            self.transport = "json"
+            return self._batch_columns(path, table, opts, show)
         finally:
             if bar is not None:
                 bar.close()
-        out = merge_results(parts, n)
+        out = merge_results([(a, b, from_columns_answer(answer, b - a)) for a, b, answer in parts], n)
         out.kept = table.kept
         return out
 
     def _batch_rows(self, path: str, decl: Mapping, rows: list, opts: dict, show) -> BatchResult:
         kinds = {i["name"]: i for i in decl["inputs"]}
         encoded = [{k: _encode(v, kinds.get(k)) for k, v in row.items()} for row in rows]
-        parts = []
         bar = self._bar(len(rows), show, opts)
         try:
-            for start, stop, body in self._chunks(len(rows), lambda a, b: dumps({"systems": encoded[a:b], **opts}),
-                                                  opts):
-                parts.append((start, stop, _from_rows(self._json("POST", path, body), decl)))
-                if bar is not None:
-                    bar.update(stop - start)
+            parts = self._sliced(len(rows), lambda a, b: dumps({"systems": encoded[a:b], **opts}), opts,
+                                 lambda body: _from_rows(self._json("POST", path, body), decl), bar)
         finally:
             if bar is not None:
                 bar.close()
         return merge_results(parts, len(rows))
+
+
+def monte_carlo_options(opts: Mapping[str, Any]) -> dict:
+    """``opts`` with the Monte Carlo method: for systems that draw whatever the options say."""
+    return {**opts, "uncertainty": {**(opts.get("uncertainty") or {}), "method": "monte_carlo"}}
 
 
 def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
@@ -657,9 +685,19 @@ def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
 
 
 # --------------------------------------------------------------------------- tables in
+def _is_list(data) -> bool:
+    return isinstance(data, Sequence) and not isinstance(data, (str, bytes, Mapping))
+
+
 def _is_rows(data) -> bool:
-    return (isinstance(data, Sequence) and not isinstance(data, (str, bytes, Mapping))
-            and all(isinstance(r, Mapping) for r in data))
+    return _is_list(data) and all(isinstance(r, Mapping) for r in data)
+
+
+def _one_of(field: str, value: Any, allowed: Iterable[str], does: str, instead: str) -> None:
+    """:class:`InvalidInput` naming ``field`` unless ``value`` is one of ``allowed``."""
+    allowed = list(allowed)
+    if value not in allowed:
+        raise InvalidInput(f"{field}: {does} {' or '.join(allowed)}, not {str(value)[:40]!r} ({instead})")
 
 
 def _is_astropy_table(data) -> bool:
@@ -681,6 +719,9 @@ class InputTable:
         self.count = count
         self.columns = columns
         self.kept = kept or {}
+        # rows a text file's reader could not read (more or fewer cells than the header), by index:
+        # answered with the reason in place (calcservice.tables.ragged_rows)
+        self.refused: dict[int, str] = {}
 
     @classmethod
     def from_data(cls, data: Any, decl: Mapping[str, Any], units: Mapping[str, str] | None = None,
@@ -1127,4 +1168,4 @@ def _problem_error(status: int, payload: bytes, method: str, path: str, sent: in
 
 __all__ = ["Client", "CalcServiceError", "InvalidInput", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
            "DEFAULT_LIMITS", "problem_text", "problem_reason", "dumps",
-           "rows_per_request", "from_columns_answer", "merge_results"]
+           "rows_per_request", "monte_carlo_options", "from_columns_answer", "merge_results"]

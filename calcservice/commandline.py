@@ -319,26 +319,36 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
 
     from .client import InputTable
     from .columns import column_role, split_unit
+    from .tables import quiet_range_warnings, ragged_rows, table_lines
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
     source: Any = path
-    if fmt == "ascii.csv":
-        from .tables import table_lines
-        options = {"delimiter": _check_csv_header(path), "guess": False}
-        try:                        # from the header on, as the service reads a CSV body (tables.table_lines)
+    refused: dict[int, str] = {}
+    if fmt in ("ascii.csv", "ascii.ecsv"):
+        try:
             with open(path, encoding="utf-8-sig") as fh:
-                source = table_lines(fh.read().splitlines())
+                text = fh.read()
         except FileNotFoundError:
             raise UsageError("--in", f"cannot read {path}: no such file") from None
         except OSError as e:
             raise UsageError("--in", f"cannot read {path}: {e.strerror or e}") from None
         except UnicodeDecodeError as e:
             raise UsageError("--in", f"{path} is not UTF-8 text (byte {e.start})") from None
-    elif fmt == "ascii.ecsv" and _has("pandas"):
-        # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
-        fmt, options = "ecsv", {"engine": "pandas"}
+    if fmt == "ascii.csv":
+        options = {"delimiter": _check_csv_header(path), "guess": False}
+        # from the header on, as the service reads a CSV body (tables.table_lines); a ragged row is
+        # that system's error in place, as there (tables.ragged_rows)
+        source, refused = ragged_rows(table_lines(text.splitlines()), False, options["delimiter"])
+    elif fmt == "ascii.ecsv":
+        lines, refused = ragged_rows(text.splitlines(), True)
+        if refused:
+            source, options = lines, {"guess": False}
+        elif _has("pandas"):
+            # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
+            fmt, options = "ecsv", {"engine": "pandas"}
     try:
-        table = Table.read(source, format=fmt, **options)
+        with quiet_range_warnings():
+            table = Table.read(source, format=fmt, **options)
     except FileNotFoundError:
         raise UsageError("--in", f"cannot read {path}: no such file") from None
     except OSError as e:
@@ -367,12 +377,14 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
                                       f"give it as {role[0]}=v1,v2,... on the command line")
     if fmt in ("ascii.csv", "ascii.ecsv", "ecsv"):
         _check_number_cells(path, table, [name for name in table.colnames if name not in keep],
-                            options.get("delimiter", ","))
+                            options.get("delimiter", ","), source if isinstance(source, list) else None)
     try:
-        return InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
+        data = InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
     except ValueError as e:
         field, _, message = str(e).partition(": ")
         raise UsageError(field, f"{message} ({path})") from None
+    data.refused = refused
+    return data
 
 
 def _has(module: str) -> bool:
@@ -416,9 +428,10 @@ def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:
         table[name] = MaskedColumn([fill if v is None else v for v in values], mask=missing)
 
 
-def _check_number_cells(path: str, table, names: list[str], delimiter: str) -> None:
+def _check_number_cells(path: str, table, names: list[str], delimiter: str, lines: list[str] | None = None) -> None:
     """The HTTP path's check of a text table's numbers (:func:`calcservice.tables.check_number_cells`):
-    ``0x10`` or ``4_1.6`` in a column astropy read as numbers is refused, naming column and row."""
+    ``0x10`` or ``4_1.6`` in a column astropy read as numbers is refused, naming column and row.
+    ``lines``: the text astropy read (ragged rows emptied), else the file's."""
     from .tables import TableError, check_number_cells, is_ecsv
     try:
         with open(path, encoding="utf-8-sig") as fh:
@@ -426,16 +439,16 @@ def _check_number_cells(path: str, table, names: list[str], delimiter: str) -> N
     except (OSError, UnicodeDecodeError):
         return                      # astropy read it; the numbers cannot be looked at again
     try:
-        check_number_cells(table, text.splitlines(), is_ecsv(text), names, delimiter)
+        check_number_cells(table, lines if lines is not None else text.splitlines(), is_ecsv(text), names, delimiter)
     except TableError as e:
         field, messages = next(iter(e.errors.items()))
         raise UsageError(field, f"{' '.join(messages)} ({path})") from None
 
 
-def run_batch(name: str, body: dict, limits) -> dict:
+def run_batch(name: str, body: dict, limits, refused: dict[int, str] | None = None) -> dict:
     """A batch request through the core (:func:`calcservice.core.compute_batch`), the same
     code the HTTP path ``POST /v1/batch/<calculation>`` runs."""
-    return compute_batch(name, body, limits)
+    return compute_batch(name, body, limits, refused=refused)
 
 
 def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, progress: bool | None = None):
@@ -446,7 +459,7 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
 
     import orjson
 
-    from .client import dumps, from_columns_answer, merge_results, rows_per_request
+    from .client import dumps, from_columns_answer, merge_results, monte_carlo_options, rows_per_request
     n = data.count
     per = rows_per_request(asdict(limits), options)
     if progress is None:
@@ -463,15 +476,29 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
         except ImportError:
             pass
     parts = []
+    start, drawing = 0, False
     try:
-        for start in range(0, n, per):
+        while start < n:
             stop = min(n, start + per)
             # the JSON forms of the wire contract (NaN as null), as an HTTP body would bring them
             columns = orjson.loads(dumps(data.json(start, stop)))
-            answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits)
+            refused = {k - start: reason for k, reason in data.refused.items() if start <= k < stop}
+            try:
+                answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits, refused)
+            except Problem as p:
+                # systems that draw whatever the options say ("isotropic", samples): slices for Monte
+                # Carlo's draws, as the client cuts them (Client._sliced)
+                if drawing or p.status != 413 or (p.limit or {}).get("name") != "max_batch_draws":
+                    raise
+                drawing = True
+                per = min(per, rows_per_request(asdict(limits), monte_carlo_options(options)))
+                if per >= stop - start:
+                    raise
+                continue
             parts.append((start, stop, from_columns_answer(answer, stop - start)))
             if bar is not None:
                 bar.update(stop - start)
+            start = stop
     finally:
         if bar is not None:
             bar.close()

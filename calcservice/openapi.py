@@ -51,7 +51,9 @@ def _unit(spec) -> str:
 
 
 DEFAULTS = Limits()
-ECHO = {"type": "boolean", "default": False, "description": "rows: each answer repeats its inputs as understood"}
+ECHO = {"type": "boolean", "default": False,
+        "description": "rows: each answer repeats its inputs as understood; a columns batch (JSON or a table) "
+                       "refuses true (422 naming echo): its answer has no place for inputs, which are the columns sent"}
 NULLABLE_NUMBER = {"type": ["number", "null"]}
 STRING = {"type": "string", "maxLength": DEFAULTS.max_string_length}
 UNIT = _ref("Unit")
@@ -393,8 +395,9 @@ PROBLEM_TEXT = {
     400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot",
     404: "unknown path",
     405: "wrong method (the Allow header lists the right ones)",
-    406: "none of the media types in Accept can be answered (the problem lists those that can); a rows batch "
-         "answers in JSON only; series outputs need JSON or Arrow",
+    406: "none of the media types in Accept can be answered (the problem lists those that can): a calculation "
+         "answers application/json, or with format its report or figure type; a rows batch answers in JSON only; "
+         "series outputs need JSON or Arrow",
     413: "the body or the work is over a configured limit (GET /v1/limits; the problem names it)",
     415: "the body is not of a media type the route takes",
     422: "values that parse but are not physical or are inconsistent (the problem names the fields)",
@@ -436,10 +439,12 @@ BATCH_RESPONSES = {400: "BatchMalformed", 406: "NotAcceptable", 413: "TooLarge",
 REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields for: a value outside its domain "
             "once converted from the unit given; a unit that does not convert to the input's (or, in units, to the "
             "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
-            "that are not ISO 8601 times (or mix too many formats); correlations naming an input not given, a pair "
-            "correlated twice, an input given as samples (they carry their own correlations), or a correlation "
-            "matrix that is not positive definite; samples inputs of different lengths; inputs for which an output "
-            "has no finite value (not physically consistent); plot=NAME without the Monte Carlo method, or for an "
+            "that are not ISO 8601 times (or mix too many formats); a value of an input whose domain excludes 0 "
+            "below the smallest normal double (a subnormal, under 2.2e-308, once converted); correlations naming an "
+            "input not given, a pair correlated twice, an input given as samples (they carry their own "
+            "correlations), or a correlation matrix that is not positive definite; samples inputs of different "
+            "lengths; inputs for which an output has no finite value (overflow, or no value: keyed by the one input "
+            "at fault where there is one); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 
 
@@ -588,7 +593,7 @@ def _calculation_path(calc: Calculation, ex: dict) -> dict:
                     "content": {media.JSON: {"schema": _ref(f"{key}_response"), "example": ex["response"]},
                                 **RENDERED}},
             "400": {"$ref": f"#/components/responses/{_malformed(calc)}"},
-            **_problems(413, 415),
+            **_problems(406, 413, 415),
             "422": {"description": _refusals(calc), "content": {media.PROBLEM: {
                 "schema": _ref("Problem"), **({"example": ex["422"]} if "422" in ex else {})}}}}}}
 
@@ -688,8 +693,10 @@ COMPONENTS["ExtraColumn"] = {"type": "array", "items": {"type": ["object", "null
 COMPONENTS["RowsOrColumns"] = {
     "description": "rows: systems, one request body per system (the top-level options apply to each unless it "
                    "gives its own); columns: one entry per input, every array with one entry per system. A system "
-                   "(or column entry) that is not valid is answered with its error in its place",
-    "oneOf": [{"title": "rows", "required": ["systems"]}, {"title": "columns", "required": ["columns"]}]}
+                   "(or column entry) that is not valid is answered with its error in its place; echo is for "
+                   "rows (a columns answer has no place for inputs)",
+    "oneOf": [{"title": "rows", "required": ["systems"]},
+              {"title": "columns", "required": ["columns"], "properties": {"echo": {"const": False}}}]}
 
 
 def _columns(calc: Calculation) -> dict:

@@ -24,9 +24,11 @@ name, a catalogue number) named in ``keep`` come first, as they were sent (:func
 
 from __future__ import annotations
 
+import contextlib
 import io
 import json
 import re
+import warnings
 from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
@@ -77,14 +79,18 @@ def read_request(data: bytes, media_type: str, calc: Calculation, options: Mappi
     return request_body(calc, read_table(data, media_type, calc), options)
 
 
-def read_table(data: bytes, media_type: str, calc: Calculation, keep: Container[str] = ()) \
-        -> list[tuple[str, Any, str | None]]:
+def read_table(data: bytes, media_type: str, calc: Calculation, keep: Container[str] = (),
+               refused: dict[int, str] | None = None) -> list[tuple[str, Any, str | None]]:
     """A request table's columns as ``(name, values, unit)`` (see :func:`request_body`); those named
-    in ``keep`` as read (numbers stay numbers, text text), for :func:`kept_columns`."""
+    in ``keep`` as read (numbers stay numbers, text text), for :func:`kept_columns`.
+
+    ``refused``: where a text table's row has more or fewer cells than its header (:func:`ragged_rows`),
+    that row is read as missing cells and its message put here by system index, for the batch to answer
+    that system with it in place; without the mapping such a table is a 422 naming the rows."""
     if media_type == ARROW:
         return _read_arrow(data, calc, keep)
     if media_type in (CSV, ECSV):
-        return _read_text(data, calc, keep)
+        return _read_text(data, calc, keep, refused)
     raise TableError(415, f"a request table is one of {', '.join(TABLE_TYPES)}, not {media_type}")
 
 
@@ -365,7 +371,66 @@ def check_header(lines: Sequence[str], delimiter: str = ",") -> None:
         raise TableError(422, "the table's header has " + " and ".join(parts), errors)
 
 
-def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
+@contextlib.contextmanager
+def quiet_range_warnings():
+    """astropy's fast reader warns (to the log) of a cell beyond a double or below its normal range
+    ("OverflowError converting to FloatType"): the number is then that system's error, said in words
+    by the batch, so the warning is left out (the command line prints one line)."""
+    from astropy.utils.exceptions import AstropyWarning
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="OverflowError converting to FloatType", category=AstropyWarning)
+        yield
+
+
+def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple[list[str], dict[int, str]]:
+    """A text table's rows whose number of cells is not its header's, as a message by system index,
+    and the table's lines with each such row's cells emptied (a row of missing cells in its place).
+
+    astropy pads a short CSV row with missing cells and refuses a whole table for one long row; a
+    ragged row is a broken line of a file (a cell lost, a delimiter not quoted), whose cells cannot
+    be put under their columns, so that row alone is refused, in place.  Cells are counted as
+    Python's csv module splits them (quotes respected; ECSV: spaces, or the commas its header
+    declares); blank lines are no rows, as for astropy.  The lines are split again only when some
+    line's count of delimiters differs from the header's or a quote is there."""
+    lines = list(lines)
+    if ecsv:
+        comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
+        delimiter = "," if comma else " "
+        start = next((k for k, line in enumerate(lines) if line.strip() and not line.startswith("#")), None)
+    else:
+        start = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")), None)
+    if start is None:
+        return lines, {}
+    # ECSV's reader takes a # line anywhere for a comment; a CSV's row may begin with # (an identifier)
+    body = [("" if line.startswith("#") else line.strip()) for line in lines[start:]] if ecsv else lines[start:]
+    width = body[0].count(delimiter)
+    if all(line.count(delimiter) == width or not line.strip() for line in body) and \
+            not any('"' in line for line in body):
+        return lines, {}
+    import csv
+    reader = csv.reader(body, delimiter=delimiter, skipinitialspace=ecsv)
+    header = next(reader)
+    h = len(header)
+    refused: dict[int, str] = {}
+    system, done = 0, reader.line_num
+    empty = delimiter.join(['""'] * h)
+    for record in reader:
+        first, done = done, reader.line_num
+        if not record or (len(record) == 1 and not record[0].strip()):
+            continue                                    # a blank line: no row
+        if len(record) != h:
+            refused[system] = (f"row {system + 1} (system {system}) has {len(record)} cells where the header has "
+                               f"{h}: a cell is missing or one too many (a delimiter within a cell must be quoted), "
+                               "so its cells cannot be put under their columns")
+            lines[start + first] = empty
+            for k in range(start + first + 1, start + done):
+                lines[k] = ""
+        system += 1
+    return lines, refused
+
+
+def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
+               refused: dict[int, str] | None = None) -> list[tuple[str, Any, str | None]]:
     from astropy.io.ascii import InconsistentTableError
     from astropy.table import Table
 
@@ -383,10 +448,17 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = ()) -> lis
     if not ecsv:
         lines = table_lines(lines)
     csv_options = {} if ecsv else {"delimiter": check_csv_text(lines)}
+    lines, ragged = ragged_rows(lines, ecsv, csv_options.get("delimiter", ","))
+    if ragged:
+        if refused is None:
+            raise TableError(422, "rows whose cells do not match the header: " + "; ".join(list(ragged.values())[:3]),
+                             {"_rows": list(ragged.values())[:MAX_LISTED]})
+        refused.update(ragged)
     try:
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
-        table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
+        with quiet_range_warnings():
+            table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "

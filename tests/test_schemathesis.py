@@ -92,7 +92,7 @@ def _mode(case) -> str:
 
 GENERAL = ("cannot be converted", "unknown unit", "not a unit astropy can read", "is not an ISO 8601 time",
            "correlated twice", "carry their own correlations", "not an input given", "positive definite", "same length",
-           "no finite value", "Monte Carlo", "overflow", "mix too many formats")
+           "no finite value", "Monte Carlo", "overflow", "mix too many formats", "smallest normal double")
 
 
 def _refusal_is_documented(case, status: int, problem: dict) -> bool:

@@ -14,8 +14,8 @@ bp = Blueprint("batch", __name__)
 @bp.post("/v1/batch/<name>")
 def batch(name: str):
     limits = current_app.config["CALCSERVICE_SETTINGS"].limits
-    body, answer_type, kept = batch_body(find(name), limits)    # JSON, Arrow, CSV or ECSV
+    body, answer_type, kept, refused = batch_body(find(name), limits)    # JSON, Arrow, CSV or ECSV
     # numpy arrays straight to the encoder: no Python float per number on the way out; an Arrow
     # answer's series as arrays (systems, points), one list type whichever systems fail
-    answer = compute_batch(name, body, limits, for_json=True, series_arrays=answer_type == ARROW)
+    answer = compute_batch(name, body, limits, for_json=True, series_arrays=answer_type == ARROW, refused=refused)
     return batch_response(answer, answer_type, kept)

@@ -6,10 +6,59 @@ from flask import Blueprint, current_app, request
 
 from ..registry import calculations
 from ..core import Problem, compute
+from ..media import JSON, MIMETYPES
 from .edge import json_body, json_response
 from .render import FORMATS, render
 
 bp = Blueprint("calculations", __name__)
+
+# what a calculation answers, by ?format= (json, the default, first)
+ANSWER_TYPES = {"json": JSON, **{f: MIMETYPES[f].split(";")[0] for f in FORMATS}}
+OFFERED = ", ".join(f"{media} (format={f})" if f != "json" else media for f, media in ANSWER_TYPES.items())
+
+
+def quality(accept, media: str) -> float | None:
+    """The q that Accept (werkzeug's parse of it: (media range, q) pairs) gives ``media``: that of the
+    most specific media range matching it (RFC 9110 section 12.5.1; parameters other than q, such as
+    a charset, do not narrow a range here, and a lone ``*`` is ``*/*`` as old clients send it), 0 where
+    none matches; None where no range is readable (a malformed field, which a server may disregard)."""
+    kind, sub = media.split("/")
+    readable, best = False, None                # best: (specificity, q)
+    for value, q in accept:
+        rng = value.split(";", 1)[0].strip().lower()
+        t, slash, s = ("*/*" if rng == "*" else rng).partition("/")
+        if not slash or not t or not s or (t == "*" and s != "*"):
+            continue
+        readable = True
+        if t in ("*", kind) and s in ("*", sub):
+            specific = (t != "*") + (s != "*")
+            if best is None or specific > best[0]:
+                best = (specific, q)
+            elif specific == best[0]:
+                best = (specific, max(best[1], q))
+    if not readable:
+        return None
+    return 0.0 if best is None else best[1]
+
+
+def acceptable(fmt: str) -> None:
+    """A 406 naming Accept when it lists media types and the answer's is not among them (q=0 refuses
+    a type; ``*/*`` and ``application/*`` take JSON); the problem lists what this calculation can
+    answer, and which ``format`` gives a type that Accept does take.  No Accept, ``*/*`` (curl's, a
+    browser's fetch) or one that reads as no media range at all takes every answer."""
+    header = request.headers.get("Accept")
+    if not header or header == "*/*":
+        return
+    accept = request.accept_mimetypes
+    answer = ANSWER_TYPES[fmt]
+    q = quality(accept, answer)
+    if q is None or q > 0:
+        return
+    instead = [f for f, media in ANSWER_TYPES.items() if f != fmt and (quality(accept, media) or 0) > 0]
+    hint = f"; ask with format={instead[0]} for {ANSWER_TYPES[instead[0]]}" if instead else ""
+    raise Problem(406, f"this request is answered as {answer}, which Accept does not take; a calculation answers "
+                       f"{OFFERED}{hint}",
+                  {"Accept": [f"must accept {answer}" + (f" (or give format={instead[0]})" if instead else "")]})
 
 
 def _endpoint(name: str):
@@ -31,11 +80,12 @@ def _endpoint(name: str):
             if plot not in outputs:
                 raise Problem(400, f"plot must name an output of {name}",
                               {"plot": [f"{name} has no output {plot[:40]!r}; outputs are {', '.join(outputs)}"]})
-        if fmt == "json":
-            return json_response(compute(name, body, settings.limits))
-        if fmt not in FORMATS:
+        if fmt != "json" and fmt not in FORMATS:
             raise Problem(400, f"format must be one of: {', '.join(('json',) + tuple(FORMATS))}",
                           {"format": [f"unknown format {fmt[:40]!r}"]})
+        acceptable(fmt)
+        if fmt == "json":
+            return json_response(compute(name, body, settings.limits))
         return render(name, body, fmt, settings.limits, request.args)
     view.__name__ = f"calculate_{name.replace('-', '_')}"
     return view

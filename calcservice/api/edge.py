@@ -333,8 +333,9 @@ def answer_media_type(body_type: str) -> str:
 
 def batch_body(calc, limits):
     """A batch request in any media type as the JSON body :func:`compute_batch` takes, the answer's
-    media type, and the request table's columns the answer carries along (the ``keep`` query
-    parameter); a table's options come from the ``options`` query parameter."""
+    media type, the request table's columns the answer carries along (the ``keep`` query
+    parameter) and its ragged rows (index -> reason); a table's options come from the ``options``
+    query parameter."""
     body_type = body_media_type()
     answer_type = answer_media_type(body_type)
     options = request.args.get("options")
@@ -351,7 +352,7 @@ def batch_body(calc, limits):
             raise Problem(406, f"a rows batch (systems) answers in {tables.JSON}; send columns (a JSON columns "
                                f"body or a table) for an answer as {answer_type}",
                           {"Accept": [f"must accept {tables.JSON} for a rows batch"]})
-        return body, answer_type, []
+        return body, answer_type, [], {}
     names = [name.strip() for name in (keep or "").split(",") if name.strip()]
     if any(len(name) > limits.max_string_length for name in names):
         raise Problem(400, f"keep names columns of at most {limits.max_string_length} characters",
@@ -369,7 +370,8 @@ def batch_body(calc, limits):
     if not isinstance(parsed, dict):
         raise Problem(400, "the options query parameter must be a JSON object", {"options": ["must be a JSON object"]})
     try:
-        kept, read = tables.kept_columns(calc, tables.read_table(data, body_type, calc, names), names)
+        refused: dict[int, str] = {}        # ragged rows: answered with their reason in place
+        kept, read = tables.kept_columns(calc, tables.read_table(data, body_type, calc, names, refused), names)
         body = tables.request_body(calc, read, parsed)
     except tables.TableError as e:
         raise Problem(e.status, e.detail, e.errors) from None
@@ -377,7 +379,7 @@ def batch_body(calc, limits):
     if series and answer_type not in (tables.JSON, tables.ARROW):     # before the work, not after
         e = tables.series_refused([f"the outputs over {', '.join(series)}"])
         raise Problem(e.status, e.detail, e.errors)
-    return body, answer_type, kept
+    return body, answer_type, kept, refused
 
 
 def batch_response(response: dict, answer_type: str, kept=()) -> Response:

@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import secrets
 from dataclasses import dataclass, field, replace
-from typing import Any, Callable
+from typing import Any, Callable, Mapping
 
 import numpy as np
 
@@ -51,13 +51,15 @@ ABSENT, EXACT, NORMAL, ASYMMETRIC, ISOTROPIC = 0, 1, 2, 3, 4
 
 
 def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: bool = False,
-                  series_arrays: bool = False) -> dict:
+                  series_arrays: bool = False, refused: Mapping[int, str] | None = None) -> dict:
     """A batch request (rows or columns) to its answer; raises :class:`Problem` only for the batch
     as a whole (unknown calculation, malformed body, a bad batch-wide option, limits).  ``for_json``:
     the answer goes straight to a numpy-aware encoder, so the columns of a columns answer stay numpy
     float arrays, NaN where a system has no value; otherwise lists with None, as the JSON reads.
     ``series_arrays``: a series output stays an array (systems, points), NaN in a failed system's row,
-    for a table whose list column has one type whichever systems fail (JSON gives that system null)."""
+    for a table whose list column has one type whichever systems fail (JSON gives that system null).
+    ``refused``: systems of a columns body that a table reader could not read (a ragged row), by index,
+    with the reason; each is answered with a 422 keyed ``_row`` in place, whatever its cells hold."""
     calc = find(name)
     limits = limits or Limits()
     if not isinstance(body, dict):
@@ -70,7 +72,7 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: 
         raise invalid({k: ["unknown field"] for k in sorted(unknown)})
     if "systems" in body:
         return compute_rows(calc, body, limits)
-    response = compute_columns(calc, body, limits, series_arrays)
+    response = compute_columns(calc, body, limits, series_arrays, refused)
     if not for_json:
         for entry in response["columns"].values():
             if isinstance(entry, dict):
@@ -147,12 +149,21 @@ class Shared:
     echo: bool = False
 
 
-def shared_options(calc: Calculation, body: dict, limits: Limits) -> Shared:
-    """The batch's options, checked once for the whole batch: a bad one is the batch's 422 (or 413)."""
+ECHO_IN_COLUMNS = ("echo repeats each system's inputs in a rows batch ({\"systems\": [...]}); a columns batch "
+                   "(a JSON columns body or a table) answers columns of outputs in the order of the columns sent, "
+                   "which are the inputs (a table's own columns come back with ?keep=NAME): send systems to have "
+                   "the inputs echoed, or leave echo out")
+
+
+def shared_options(calc: Calculation, body: dict, limits: Limits, columns: bool = False) -> Shared:
+    """The batch's options, checked once for the whole batch: a bad one is the batch's 422 (or 413).
+    ``columns``: a columns batch, whose answer has no place for an echo (refused, never ignored)."""
     echo = body.get("echo", False)
     errors: dict[str, list[str]] = {}
     if type(echo) is not bool:
         errors["echo"] = ["must be true or false"]
+    elif echo and columns:
+        errors["echo"] = [ECHO_IN_COLUMNS]
     raw = {k: body[k] for k in OPTION_KEYS if k in body and k != "echo"}
     data = load(calc, raw, limits, options_only=True)
     output_units(calc, data.get("units", {}), errors)
@@ -517,7 +528,8 @@ def _column_length(name: str, raw) -> int | None:
     return None
 
 
-def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays: bool = False) -> dict:
+def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays: bool = False,
+                    refused: Mapping[int, str] | None = None) -> dict:
     """``{"columns": {...}}`` to ``{"columns": {output: {"value": [...], ...}}, "errors": [...]}``."""
     given = body["columns"]
     if not isinstance(given, dict) or not given:
@@ -565,7 +577,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays
             columns[spec.name], views[spec.name] = _quantity_column(spec, raw, n, limits)
 
     # the columns' forms first, then the options of the whole batch (their limits among them)
-    options = shared_options(calc, body, limits)
+    options = shared_options(calc, body, limits, columns=True)
     raw_shared = {**options.raw, **series}
     shared = {**options.data, **(load(calc, series, limits, options_only=True) if series else {})}
 
@@ -578,6 +590,9 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays
         return row
 
     done = evaluate_groups(calc, n, columns, choices, shared, row_body, limits)
+    for k, reason in (refused or {}).items():
+        if 0 <= k < n:
+            done.problems[k] = invalid({"_row": [reason]}, "a row whose cells do not match the table's header")
     answer = columns_answer(calc, done, limits, series_arrays)
     if shared.get("time_format") == "mjd":
         answer["time_format"] = "mjd"

@@ -15,6 +15,7 @@ from ..registry import Calculation, Warning
 from ..units import factor
 from .parse import Parsed
 from .problems import invalid
+from .schemas import SMALLEST_NORMAL
 
 
 def provenance(calc: Calculation) -> dict:
@@ -53,15 +54,22 @@ def clean_array(a: np.ndarray) -> list:
 
 def in_unit(values: np.ndarray, k, names: list[str], units: list[str]) -> np.ndarray:
     """``values`` times the factor ``k`` to the units asked for; a 422 naming ``units.NAME`` where a finite
-    number leaves a double there (an answer in '1e-308 au' of 1e10 au), never a silent null.
-    ``names`` and ``units`` give the output and its unit of each leading row of ``values``."""
-    with np.errstate(over="ignore", invalid="ignore"):
+    number leaves a double there (an answer in '1e-308 au' of 1e10 au), or a normal one falls below
+    the smallest normal double (1e-300 au in '1e10 au': 0 or a number that lost its digits), never a
+    silent null or 0.  ``names`` and ``units`` give the output and its unit of each leading row of ``values``."""
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         out = values * k
     lost = np.isfinite(values) & ~np.isfinite(out)
-    if lost.any():
-        row = np.nonzero(lost.reshape(len(names), -1).any(axis=1))[0][0]
+    shrunk = (np.abs(out) < SMALLEST_NORMAL) & (np.abs(values) >= SMALLEST_NORMAL)
+    if lost.any() or shrunk.any():
+        over = lost.any()
+        row = np.nonzero((lost if over else shrunk).reshape(len(names), -1).any(axis=1))[0][0]
         name, unit = names[row], units[row]
-        raise invalid({f"units.{name}": [f"{name} in {unit!r} is beyond the range of a double: ask for a larger unit"]})
+        if over:
+            raise invalid({f"units.{name}": [f"{name} in {unit!r} is beyond the range of a double: "
+                                             "ask for a larger unit"]})
+        raise invalid({f"units.{name}": [f"{name} in {unit!r} is below the smallest normal double (about "
+                                         "2.2e-308), where its digits are lost: ask for a smaller unit"]})
     return out
 
 

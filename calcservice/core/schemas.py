@@ -29,6 +29,12 @@ MEASURED_KEYS = {"value", "sigma", "sigma_minus", "sigma_plus", "samples", "unit
 FORM_HINT = ('must be a number, or an object such as {"value": 1.2, "sigma": 0.1}, '
              '{"value": 1.2, "sigma_minus": 0.1, "sigma_plus": 0.2} or {"samples": [...]}')
 
+# the smallest normal double: below it a number keeps fewer than 53 bits (1e-320 keeps 11), so a
+# scale (an input whose domain excludes 0: a period, a K, a mass) there has lost its digits before any
+# formula multiplies it into an answer; where 0 is in the domain (e, an angle, a time, a sigma) such a
+# number is 0 give or take a rounding, and taken
+SMALLEST_NORMAL = float(np.finfo(float).tiny)
+
 ISOTROPIC_ALONE = ('"isotropic" (random orientations, cos i uniform) takes no sigma or unit: give the string '
                    '"isotropic" alone (in a table, leave that system\'s sigma empty)')
 
@@ -206,10 +212,32 @@ def faults(spec: Input, x, sigma_minus, sigma_plus) -> list[tuple[Any, str]]:
     one system (the rules then give booleans) or arrays over N systems (boolean arrays); a batch
     calls this under ``np.errstate(invalid="ignore")``.  A time's domain holds its number as given (JD or MJD)."""
     outside = not spec.domain.holds(x) if type(x) is float else ~spec.domain.contains(x)
-    return [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
-            ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
-             f"overflows a double when converted to {spec.unit or 'dimensionless'}"),
-            (outside, spec.domain.message(spec.unit))]
+    rules = [((sigma_minus < 0) | (sigma_plus < 0), "sigma must be >= 0"),
+             ((x - x != 0) | (sigma_minus - sigma_minus != 0) | (sigma_plus - sigma_plus != 0),    # not finite
+              f"overflows a double when converted to {spec.unit or 'dimensionless'}"),
+             (outside, spec.domain.message(spec.unit))]
+    if is_scale(spec.domain):
+        rules.append(((abs(x) < SMALLEST_NORMAL) & (x != 0), subnormal_message("value", spec.unit)))
+    return rules
+
+
+@lru_cache(maxsize=None)
+def is_scale(domain) -> bool:
+    """Whether an input's domain excludes 0 (a period, a K, a mass: see SMALLEST_NORMAL)."""
+    return not domain.holds(0.0)
+
+
+def subnormal(spec: Input, x: float) -> bool:
+    """A scale's number below the smallest normal double (see SMALLEST_NORMAL)."""
+    return abs(x) < SMALLEST_NORMAL and x != 0 and is_scale(spec.domain)
+
+
+def subnormal_message(what: str, unit: str) -> str:
+    """A scale's value below the smallest normal double (in ``unit``, the input's canonical one)."""
+    where = f" in {unit}" if unit else ""
+    return (f"{what} is below the smallest normal double (about 2.2e-308){where}, where a number has lost its "
+            "digits (1e-320 keeps 11 of 53 bits) and an answer it is multiplied into with them: give a number "
+            "within a double's normal range")
 
 
 def broken(spec: Input, x: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray) -> np.ndarray:
@@ -259,6 +287,8 @@ class MeasuredField(_CheckedField):
             x = number(value)
             if not spec.domain.holds(x):
                 raise ValidationError(spec.domain.message(spec.unit))
+            if subnormal(spec, x):
+                raise ValidationError(subnormal_message("value", spec.unit))
             return RawQuantity(np.array([x]), one, one)
         if isinstance(value, str):
             if spec.isotropic and value == "isotropic":
@@ -270,6 +300,8 @@ class MeasuredField(_CheckedField):
             x = number(value)
             if not spec.domain.holds(x):
                 raise ValidationError(spec.domain.message(spec.unit))
+            if subnormal(spec, x):
+                raise ValidationError(subnormal_message("value", spec.unit))
             return RawQuantity(np.array([x]), one, one)
         if not isinstance(value, dict):
             raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
@@ -301,6 +333,8 @@ class MeasuredField(_CheckedField):
             med = np.median(s)
             if not np.isfinite(sd):
                 raise ValidationError("the samples (in the canonical unit) or their spread overflow a double")
+            if is_scale(spec.domain) and np.count_nonzero((np.abs(s) < SMALLEST_NORMAL) & (s != 0)):
+                raise ValidationError(subnormal_message("a sample", spec.unit))
             return RawQuantity(np.array([med]), np.array([sd]), np.array([sd]), samples=s[None, :], unit=unit)
         if "value" not in value:
             raise ValidationError("value is missing; " + FORM_HINT)

@@ -2,27 +2,170 @@
 
 from __future__ import annotations
 
+from functools import lru_cache
 from typing import Any
+
+import numpy as np
 
 from ..config import Limits
 from ..engine import EngineError, Result, evaluate
+from ..registry import Calculation, Warning
 from .parse import Parsed, find, parse
 from .problems import Problem, invalid
 from .render import Rendering
+from .schemas import SMALLEST_NORMAL
 
 
 def run(parsed: Parsed) -> Result:
     """The engine on parsed inputs; an input problem it finds becomes a 422."""
     try:
-        return evaluate(parsed.calc, parsed.quantities, parsed.statics, parsed.options)
+        result = evaluate(parsed.calc, parsed.quantities, parsed.statics, parsed.options)
     except EngineError as e:
         raise invalid(e.errors, e.detail) from None
+    result.warnings.extend(underflows(parsed.calc, result, parsed.statics))
+    if result.failed:
+        _name_what_fails(parsed, result)
+    return result
+
+
+@lru_cache(maxsize=None)
+def _ordinary(calc: Calculation) -> dict[str, float]:
+    """Each input's nominal value in the calculation's own (fictional, ordinary) example, canonical units."""
+    try:
+        example = parse(calc, calc.example, Limits())
+    except Problem:                          # an example is checked by the tests; no verdict without one
+        return {}
+    return {name: float(q.value[0]) for name, q in example.quantities.items() if not q.isotropic}
+
+
+def _name_what_fails(parsed: Parsed, result: Result) -> None:
+    """Say which output has no finite value in each failed system, and why, by the field at fault.
+
+    The engine fails a system whose nominal inputs give an output that is not finite, keyed
+    ``_inputs`` (the combination of inputs).  Here each such output is named with what it is: beyond
+    a double (an overflow) or without a value (its formula undefined there); and where putting one
+    input alone back to its value in the calculation's example makes every such output finite, that
+    input is the one at fault and the error is keyed by its name.  One physics call, and one more per
+    input given, over the failed systems only."""
+    calc, n = parsed.calc, parsed.count
+    rows = np.array([k for k, errs in result.failed.items() if "_inputs" in errs], dtype=int)
+    if not rows.size:
+        return
+    nominal = {name: v[rows] for name, v in result.nominal_inputs.items()}
+    # a choice given per system is an array over the systems; a series (times) is the same for all
+    per_system = {k: v[rows] for k, v in parsed.statics.items()
+                  if k not in parsed.series and isinstance(v, np.ndarray) and v.shape == (n,)}
+
+    def outputs(changed: str | None = None, value: float = 0.0) -> dict[str, np.ndarray] | None:
+        """The physics at the failed systems' nominal inputs (``changed`` put to ``value``), each
+        output as (systems, anything else)."""
+        arguments = {i.name: None for i in calc.inputs}
+        arguments.update(parsed.statics)
+        arguments.update(per_system)
+        arguments.update(nominal)
+        if changed is not None:
+            arguments[changed] = np.full(len(rows), value)
+        try:
+            with np.errstate(all="ignore"):
+                out = calc.function(**arguments)
+        except Exception:                  # such a mixture may be no system at all: no verdict from it
+            return None
+        return {o: np.asarray(y, dtype=float).reshape(len(rows), -1) if np.size(y) % len(rows) == 0
+                else np.broadcast_to(np.asarray(y, dtype=float), (len(rows),)).reshape(len(rows), 1)
+                for o, y in out.items() if y is not None and o in result.outputs}
+
+    at = outputs()
+    if at is None:
+        return
+    bad = {name: ~np.isfinite(y).all(axis=1) for name, y in at.items()}
+    if not any(b.any() for b in bad.values()):
+        return                              # a Monte Carlo system whose draws all failed: the engine's words
+    ordinary = _ordinary(calc) if calc.example and not parsed.series else {}
+    cleared: dict[str, np.ndarray] = {}     # input -> which failed systems it alone clears
+    for name in nominal:
+        if name not in ordinary or (nominal[name] == ordinary[name]).all():
+            continue
+        out = outputs(name, ordinary[name])
+        if out is None:
+            continue
+        fine = np.ones(len(rows), dtype=bool)
+        for output, b in bad.items():
+            if output in out:
+                fine &= ~b | np.isfinite(out[output]).all(axis=1)
+        cleared[name] = fine
+    for j, row in enumerate(rows.tolist()):
+        named = []
+        for output, b in bad.items():
+            if b[j]:
+                overflow = np.isinf(at[output][j]).any()
+                named.append(f"no finite value of {output}: " + (
+                    "it, or a number in its computation, overflows a double (beyond about 1.8e308)" if overflow
+                    else "its formula has no value there"))
+        if not named:
+            continue
+        errors = result.failed[row]
+        del errors["_inputs"]
+        culprits = [name for name, fine in cleared.items() if fine[j]]
+        if len(culprits) == 1:
+            errors.setdefault(culprits[0], []).extend(f"this value (with the others given) gives {m}" for m in named)
+        else:
+            # two or more: each alone put back clears it, so it is their combination
+            which = f" ({', '.join(culprits)})" if culprits else ""
+            errors["_inputs"] = [f"these inputs{which} give {m}" for m in named]
+
+
+def _small(v: np.ndarray) -> bool:
+    """Whether any of ``v`` lies below the smallest normal double in size (0 among them)."""
+    if v.size == 1:                          # a single request's output: a float's comparison
+        return -SMALLEST_NORMAL < v.item() < SMALLEST_NORMAL
+    return bool(np.count_nonzero(np.abs(v) < SMALLEST_NORMAL))
+
+
+def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning]:
+    """An ``underflow`` warning for each output whose value lies below the smallest normal double
+    (2.2e-308) in its canonical unit: a subnormal one has lost its digits, and a 0 that the
+    physics reached by underflowing (1e-110 km/s cubed) is not the formula's value.
+
+    Overflow needs no such test (the engine fails the system: no finite value); a 0 does, since
+    outputs may be exactly 0 by physics (a phase at periastron).  So, only when some output is 0, the
+    physics is called once more at the nominal inputs of the call's systems with numpy's underflow
+    raised: a 0 is flagged where that call underflowed."""
+    if not any(_small(o["value"]) for o in result.outputs.values()):     # the usual case, at a few us
+        return []
+    small = {name: np.abs(o["value"]) < SMALLEST_NORMAL for name, o in result.outputs.items()}
+    n = len(next(iter(small.values())))
+    hit = {name: s.reshape(n, -1).any(axis=1) for name, s in small.items()}
+    zero = {name: (result.outputs[name]["value"] == 0).reshape(n, -1).any(axis=1) for name in small}
+    if any((hit[name] & zero[name]).any() for name in small):
+        arguments = {i.name: None for i in calc.inputs}
+        arguments.update(statics)
+        arguments.update(result.nominal_inputs)
+        try:
+            with np.errstate(all="ignore", under="raise"):
+                calc.function(**arguments)
+            underflowed = False
+        except FloatingPointError:
+            underflowed = True
+        except Exception:                   # the engine already judged these inputs; no verdict here
+            underflowed = False
+        if not underflowed:
+            hit = {name: h & ~zero[name] for name, h in hit.items()}
+    return [Warning("underflow", "{subject}: below the smallest normal double (about 2.2e-308) in its unit at "
+                    "these inputs, where a number has lost its digits or underflowed to 0: the value given is "
+                    "not the formula's", where, name)
+            for name, where in hit.items() if where.any()]
 
 
 def failure(result: Result, index: int) -> Problem | None:
     """The 422 for system ``index`` if its inputs failed a constraint or gave no finite result."""
     errors = result.failed.get(index)
-    return None if errors is None else invalid(errors, "the inputs are not physically consistent")
+    if errors is None:
+        return None
+    if all("no finite value" in m for messages in errors.values() for m in messages):
+        names = sorted(k for k in errors if k != "_inputs")
+        return invalid(errors, "these inputs give no finite result" + (f": invalid value for {', '.join(names)}"
+                                                                       if names else ""))
+    return invalid(errors, "the inputs are not physically consistent")
 
 
 def compute(name: str, body: Any, limits: Limits | None = None, keep_draws: bool = False) -> dict:
