@@ -505,3 +505,20 @@ def test_the_command_line_keeps_a_csv_column_as_written_as_the_service_does(tmp_
     served = client.post("/v1/batch/sb1?keep=star,hip", data=text.encode(), content_type="text/csv").get_data(as_text=True)
     assert [line.split(",")[:2] for line in out.splitlines()] == [line.split(",")[:2] for line in served.splitlines()]
     assert out.splitlines()[1].startswith("A,0012,")
+
+
+@pytest.mark.parametrize("accept, answer", [
+    ("application/json; charset=utf-8", "application/json"),     # a parameter does not narrow the range
+    ("*", "application/json"),                                    # a lone * as old clients send it: */*
+    ("application/json;q=0, */*", tables.ARROW),                  # q=0 refuses JSON: the next type offered
+    ("text/*", "text/csv"),
+    ("text/html", None),                                          # none of the answer types: 406
+])
+def test_a_batch_answer_type_is_picked_by_the_same_accept_rule_as_a_calculation(client, accept, answer):
+    # RFC 9110 section 12.5.1: the most specific matching range gives a type its q
+    body = {"columns": {"period": [41.6], "k1": [23.4], "k2": [30.1], "eccentricity": [0.1]}}
+    r = client.post("/v1/batch/sb2", json=body, headers={"Accept": accept})
+    if answer is None:
+        assert r.status_code == 406 and "Accept" in r.get_json()["errors"]
+    else:
+        assert r.status_code == 200 and r.mimetype == answer

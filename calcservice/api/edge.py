@@ -16,6 +16,7 @@ from flask import Flask, Response, current_app, g, request
 from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from .. import tables
+from ..media import quality
 from ..core.problems import Problem
 
 try:    # optional: an order of magnitude faster at formatting floats, and numpy-aware
@@ -321,14 +322,15 @@ def answer_media_type(body_type: str) -> str:
     """The answer's media type from ``Accept`` (none, or a wildcard: the body's own type); 406
     with the list of types when none fits.  ``text/csv`` answers ECSV to an ECSV body."""
     accept = request.accept_mimetypes
-    if not accept:
-        return body_type
     offered = list(dict.fromkeys((body_type, *tables.MEDIA_TYPES)))
-    best = accept.best_match(offered)
-    if best is None:
+    qs = [quality(accept, media) for media in offered]
+    if not accept or None in qs:                # no Accept, or no media range readable in it
+        return body_type
+    best = max(range(len(offered)), key=qs.__getitem__)     # the first of the highest q: the body's own type first
+    if qs[best] <= 0:
         raise Problem(406, f"the answer can be given as {', '.join(tables.MEDIA_TYPES)}; Accept lists none of them",
                       {"Accept": [f"must accept one of {', '.join(tables.MEDIA_TYPES)}"]})
-    return best
+    return offered[best]
 
 
 def batch_body(calc, limits):
