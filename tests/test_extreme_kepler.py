@@ -85,3 +85,57 @@ def test_mean_anomaly_reduced_to_its_distance_from_periastron():
     m0, k = kepler.reduce_mean_anomaly(m)
     worst = max(relative_error(m0[i], mp.mpf(m[i]) - TWO_PI * int(k[i])) for i in range(len(m)))
     assert worst < 1e-15, worst
+
+
+def reference_ephemeris(time, period, t_periastron, eccentricity, omega, k1, gamma, inclination, node, axis):
+    """One date of the ephemeris at 50 digits: phase, true anomaly (deg), r/a, rv1 and the sky position.
+
+    Phase = frac((t - T0)/P); M = 2 pi phase; E from Kepler's equation; nu from tan(nu/2) (Murray & Dermott 1999,
+    eq. 2.46); rv1 = gamma + K1 (cos(nu + omega) + e cos omega) (Hilditch 2001, eq. 2.45); u = nu + omega + 180 deg,
+    rho = a'' (r/a) (cos^2 u + sin^2 u cos^2 i)^{1/2}, theta = node + atan2(sin u cos i, cos u) (Heintz 1978, ch. 4).
+    """
+    x = (mp.mpf(time) - mp.mpf(t_periastron)) / mp.mpf(period)
+    phase = x - mp.floor(x)
+    mean = TWO_PI * phase
+    big_e = reference_eccentric_anomaly(mean, eccentricity)
+    nu = reference_true_anomaly(big_e, eccentricity)
+    e, w = mp.mpf(eccentricity), mp.radians(mp.mpf(omega))
+    r = 1 - e * mp.cos(big_e)
+    rv1 = mp.mpf(gamma) + mp.mpf(k1) * (mp.cos(nu + w) + e * mp.cos(w))
+    u = nu + w + mp.pi
+    cos_i = mp.cos(mp.radians(mp.mpf(inclination)))
+    rho = mp.mpf(axis) * r * mp.sqrt(mp.cos(u) ** 2 + mp.sin(u) ** 2 * cos_i ** 2)
+    theta = mp.mpf(node) + mp.degrees(mp.atan2(mp.sin(u) * cos_i, mp.cos(u)))
+    return {"phase": phase, "true_anomaly": mp.degrees(nu) % 360, "separation": r, "rv1": rv1,
+            "projected_separation": rho, "position_angle": theta % 360}
+
+
+def angle_error(value, reference):
+    """|value - reference| in degrees on the circle, relative to the angle's distance from 0 (mod 360) or 1 deg."""
+    d = (mp.mpf(float(value)) - reference + 180) % 360 - 180
+    scale = min(reference % 360, 360 - reference % 360)
+    return float(abs(d) / max(scale, mp.mpf(1)))
+
+
+@pytest.mark.parametrize("eccentricity", [0.0, 0.9, 0.99999, 1 - 1e-9])
+def test_ephemeris_dates_just_before_and_after_periastron(eccentricity):
+    # a date a microsecond to an hour from a periastron passage, 1 to 40000 cycles after T0, the orbit seen edge-on
+    # to within 1e-7 deg and oriented so that the projected separation near periastron rests on cos i
+    period, t0, omega, k1, gamma, inclination, node, axis = 37.3, 2451234.5, 270.0, 61.2, -7.4, 89.9999999, 112.0, 8.3
+    offsets = np.array([1e-8, 1e-6, 1e-4, 0.04, -1e-8, -1e-6, -1e-4, -0.04])
+    cycles = np.array([1.0, 7.0, 40000.0])
+    times = (t0 + period * cycles[:, None] + offsets[None, :]).ravel()
+    body = {"period": period, "eccentricity": eccentricity, "omega": omega, "t_periastron": t0, "k1": k1,
+            "gamma": gamma, "inclination": inclination, "node": node, "angular_semimajor_axis": axis,
+            "times": times.tolist()}
+    series = compute("ephemeris", body)["results"]["series"]
+    worst = {}
+    for j, t in enumerate(times):
+        ref = reference_ephemeris(t, period, t0, eccentricity, omega, k1, gamma, inclination, node, axis)
+        for name in ("separation", "rv1", "projected_separation"):
+            worst[name] = max(worst.get(name, 0.0), relative_error(series[name]["value"][j], ref[name]))
+        # the phase in [0, 1): a double just below 1 resolves 1.1e-16 of a cycle, no better
+        worst["phase"] = max(worst.get("phase", 0.0), float(abs(series["phase"]["value"][j] - ref["phase"])) * 1e4)
+        for name in ("true_anomaly", "position_angle"):
+            worst[name] = max(worst.get(name, 0.0), angle_error(series[name]["value"][j], ref[name]))
+    assert max(worst.values()) < 1e-12, worst
