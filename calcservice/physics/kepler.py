@@ -144,6 +144,22 @@ def true_from_eccentric(eccentric, eccentricity):
     return _keep_revolutions(nu, big_e)
 
 
+def true_anomaly_cosine_sine(eccentric, eccentricity):
+    """cos nu and sin nu (and r/a) straight from E, never through nu in radians, whose rounding near
+    apastron (nu ~ pi) is large beside sin nu at e -> 1.
+
+    cos nu = (cos E - e) / (1 - e cos E), sin nu = (1 - e^2)^{1/2} sin E / (1 - e cos E) (Murray & Dermott
+    1999, eq. 2.41-2.42), with cos E - e = (1 - e) - 2 sin^2(E/2) and 1 - e cos E = (1 - e) + 2 e sin^2(E/2).
+    Returns (cos nu, sin nu, r/a).
+    """
+    big_e = np.asarray(eccentric, dtype=float)
+    e = np.asarray(eccentricity, dtype=float)
+    half = np.sin(0.5 * big_e)
+    square = 2.0 * half * half
+    r = (1.0 - e) + e * square
+    return ((1.0 - e) - square) / r, np.sqrt((1.0 - e) * (1.0 + e)) * np.sin(big_e) / r, r
+
+
 def eccentric_from_true(true_anomaly, eccentricity):
     """Eccentric anomaly E (rad) from the true anomaly nu: E = 2 atan2(sqrt(1 - e) sin(nu/2), sqrt(1 + e) cos(nu/2)),
     with the revolution count of nu (the inverse of :func:`true_from_eccentric`)."""
@@ -181,9 +197,14 @@ def separation(true_anomaly, eccentricity):
     Written (1 - e)(1 + e) / ((1 - e) + 2 e cos^2(nu/2)), which keeps its digits at e -> 1 both at
     periastron (1 - e^2) and at apastron (1 + e cos nu).
     """
+    return separation_from_half_angle_cosine(np.cos(0.5 * np.asarray(true_anomaly, dtype=float)), eccentricity)
+
+
+def separation_from_half_angle_cosine(cosine, eccentricity):
+    """r/a = (1 - e)(1 + e) / ((1 - e) + 2 e c^2) from c = cos(nu/2) (:func:`separation`), for a caller that has
+    c more exactly than from nu in radians (a true anomaly given in degrees)."""
     e = np.asarray(eccentricity, dtype=float)
-    half = np.cos(0.5 * np.asarray(true_anomaly, dtype=float))
-    return (1.0 - e) * (1.0 + e) / ((1.0 - e) + 2.0 * e * half * half)
+    return (1.0 - e) * (1.0 + e) / ((1.0 - e) + 2.0 * e * cosine * cosine)
 
 
 def separation_from_eccentric(eccentric, eccentricity):

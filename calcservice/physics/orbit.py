@@ -20,6 +20,7 @@ import numpy as np
 from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, R_SUN, TWO_PI
 from . import kepler
 from .angles import cos_degrees, sin_degrees, wrap_degrees
+from .exact import two_product, two_sum
 from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
 AU_IN_SOLAR_RADII = AU / R_SUN
@@ -49,39 +50,20 @@ def elapsed_cycles(time, period, t_periastron, period_derivative=None):
     return 2.0 * x / (1.0 + np.sqrt(1.0 + 2.0 * rate * x))
 
 
-def _two_sum(a, b):
-    """a + b = s + err exactly (Knuth 1969, *The Art of Computer Programming* vol. 2, sect. 4.2.2)."""
-    s = a + b
-    bb = s - a
-    return s, (a - (s - bb)) + (b - bb)
-
-
-def _two_product(a, b):
-    """a b = p + err exactly, by Dekker's (1971, Numer. Math. 18, 224) splitting of each factor in halves."""
-    p = a * b
-    a_split = 134217729.0 * a         # 2^27 + 1
-    a_high = a_split - (a_split - a)
-    a_low = a - a_high
-    b_split = 134217729.0 * b
-    b_high = b_split - (b_split - b)
-    b_low = b - b_high
-    return p, ((a_high * b_high - p) + a_high * b_low + a_low * b_high) + a_low * b_low
-
-
 def period_fraction(time, period, t_periastron):
     """(t - T0)/P split into the nearest whole number of periods n and the signed rest f in [-1/2, 1/2].
 
-    f = (t - T0 - n P) / P with t - T0 and n P carried as exact sums of two doubles (:func:`_two_sum`,
-    :func:`_two_product`), so a date just before or after a periastron passage keeps its distance to
+    f = (t - T0 - n P) / P with t - T0 and n P carried as exact sums of two doubles (:func:`.exact.two_sum`,
+    :func:`.exact.two_product`), so a date just before or after a periastron passage keeps its distance to
     it as exactly as the doubles given (frac((t - T0)/P) rounds the quotient first, after 1000 cycles at
     1e-13 of a cycle, and a phase just below 1 keeps only 1e-16 of a cycle).
     """
     t = np.asarray(time, dtype=float)
     p = np.asarray(period, dtype=float)
-    d, d_low = _two_sum(t, -np.asarray(t_periastron, dtype=float))
+    d, d_low = two_sum(t, -np.asarray(t_periastron, dtype=float))
     with np.errstate(invalid="ignore"):
         n = np.round(d / p)
-        whole, whole_low = _two_product(n, p)
+        whole, whole_low = two_product(n, p)
         f = (((d - whole) - whole_low) + d_low) / p
     return n, f
 
@@ -142,37 +124,39 @@ def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
     return amplitude * kepler.separation(true_anomaly_rad, eccentricity) * np.sin(true_anomaly_rad + omega_rad)
 
 
-def argument_of_latitude(true_anomaly_rad, omega_deg):
+def argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu=None):
     """cos(nu + omega) and sin(nu + omega) by the addition theorem, omega's sine and cosine taken in degrees
-    (:mod:`.angles`), so that omega = 90 or 270 deg adds no rounding of pi/2 to a small nu."""
-    cos_nu, sin_nu = np.cos(true_anomaly_rad), np.sin(true_anomaly_rad)
+    (:mod:`.angles`), so that omega = 90 or 270 deg adds no rounding of pi/2 to a small nu.  ``cos_sin_nu``:
+    (cos nu, sin nu) when the caller has them more exactly than from nu (:func:`.kepler.true_anomaly_cosine_sine`)."""
+    cos_nu, sin_nu = (np.cos(true_anomaly_rad), np.sin(true_anomaly_rad)) if cos_sin_nu is None else cos_sin_nu
     cos_w, sin_w = cos_degrees(omega_deg), sin_degrees(omega_deg)
     return cos_nu * cos_w - sin_nu * sin_w, sin_nu * cos_w + cos_nu * sin_w
 
 
-def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0):
+def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0, cos_sin_nu=None):
     """Radial velocities (km/s) of both stars of a Keplerian orbit.
 
     v1 = gamma + K1 [cos(nu + omega) + e cos omega],
     v2 = gamma - K2 [cos(nu + omega) + e cos omega]   (Hilditch 2001, eq. 2.45),
     with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign.
-    Returns (v1, v2), v2 None without K2.
+    Returns (v1, v2), v2 None without K2.  ``cos_sin_nu`` as in :func:`argument_of_latitude`.
     """
-    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
+    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu)
     shape = cos_u + eccentricity * cos_degrees(omega_deg)
     v1 = gamma + k1 * shape
     v2 = None if k2 is None else gamma - k2 * shape
     return v1, v2
 
 
-def sky_position(true_anomaly_rad, separation_over_a, omega_deg, inclination_deg, node_deg, angular_semimajor_axis=None):
+def sky_position(true_anomaly_rad, separation_over_a, omega_deg, inclination_deg, node_deg, angular_semimajor_axis=None,
+                 cos_sin_nu=None):
     """Projected separation (mas, or None) and position angle (deg) of star 2 relative to star 1.
 
     With u = nu + omega_2 the argument of latitude of the relative orbit (omega_2 = omega + 180 deg),
     rho = a'' (r/a) sqrt(cos^2 u + sin^2 u cos^2 i) and tan(theta - Omega) = tan u cos i
     (W. D. Heintz 1978, *Double Stars*, ch. 4; the quadrant from atan2); cos i from degrees, exact near 90 deg.
     """
-    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)     # u - 180 deg: both signs turn
+    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu)   # u - 180 deg: both signs turn
     cos_i = cos_degrees(inclination_deg)
     position_angle = wrap_degrees(node_deg + np.degrees(np.arctan2(-sin_u * cos_i, -cos_u)))
     rho = None
@@ -200,8 +184,8 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     mean = TWO_PI * signed
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
-    r_over_a = kepler.separation_from_eccentric(ecc, e)
-    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma)
+    cos_nu, sin_nu, r_over_a = kepler.true_anomaly_cosine_sine(ecc, e)
+    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma, (cos_nu, sin_nu))
     out = {
         "phase": phase,
         "mean_anomaly": wrap_degrees(np.degrees(mean)),
@@ -217,12 +201,12 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     if a is not None:
         out["separation_au"] = a * r_over_a
     if inclination is not None and node is not None:
-        rho, pa = sky_position(nu, r_over_a, omega_deg, inclination, node, angular_semimajor_axis)
+        rho, pa = sky_position(nu, r_over_a, omega_deg, inclination, node, angular_semimajor_axis, (cos_nu, sin_nu))
         out["position_angle"] = pa
         if rho is not None:
             out["projected_separation"] = rho
     elif inclination is not None and angular_semimajor_axis is not None:
-        rho, _pa = sky_position(nu, r_over_a, omega_deg, inclination, 0.0, angular_semimajor_axis)
+        rho, _pa = sky_position(nu, r_over_a, omega_deg, inclination, 0.0, angular_semimajor_axis, (cos_nu, sin_nu))
         out["projected_separation"] = rho
     return out
 
