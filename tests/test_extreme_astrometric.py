@@ -198,3 +198,30 @@ def test_orbital_parallax_at_extreme_semi_amplitude_ratios_and_inclinations():
                      "m1": total * k2 / (k1 + k2), "m2": total * k1 / (k1 + k2)}
         worst = max(worst, *(relative_error(got["results"][k]["value"], v) for k, v in reference.items()))
     assert worst < 1e-13, worst
+
+
+def test_orbital_parallax_single_lined_with_a_photocentre_at_the_edges():
+    # SB1 + photocentre: a1 = a1 sin i / sin i; with M1, M2 from the mass function at i (Hilditch 2001, eq. 2.51),
+    # B = M2/(M1 + M2) and alpha = a1 (1 - beta / B) (van de Kamp 1967); parallax = alpha'' / alpha
+    systems = [(41.6, 24.6, 0.99999, 179.9999, 2.12, 1.31, 0.0), (41.6, 24.6, 0.3, 1e-4, 2.12, 1.31, 0.2),
+               (41.6, 1e-3, 0.3, 58.0, 2.12, 100.0, 0.0), (41.6, 300.0, 0.3, 89.9999999, 2.12, 0.05, 0.5)]
+    names = ("period", "k1", "eccentricity", "inclination", "photocentre_semimajor_axis", "primary_mass",
+             "luminosity_fraction")
+    answer = compute_batch("orbital-parallax", {"systems": [dict(zip(names, s)) for s in systems]})["results"]
+    worst = 0.0
+    for s, got in zip(systems, answer):
+        period, k1, e, inc, alpha, m1, beta = (mp.mpf(x) for x in s)
+        sin_i = mp.sin(mp.radians(inc))
+        a1 = k1 * period * DAY * mp.sqrt(1 - e * e) / (2 * mp.pi) / (AU / 1000) / sin_i
+        f = period * DAY * (k1 * 1000) ** 3 * (1 - e * e) ** mp.mpf(1.5) / (2 * mp.pi * GM)
+        lo, hi = mp.mpf(-700), mp.mpf(700)       # M2^3 sin^3 i = f (M1 + M2)^2, bisected in ln M2
+        for _ in range(200):
+            mid = (lo + hi) / 2
+            m2 = mp.exp(mid)
+            lo, hi = (mid, hi) if m2 ** 3 * sin_i ** 3 < f * (m1 + m2) ** 2 else (lo, mid)
+        m2 = mp.exp((lo + hi) / 2)
+        b = m2 / (m1 + m2)
+        alpha_au = a1 * (1 - beta / b)
+        reference = {"m2": m2, "parallax": alpha / alpha_au, "semimajor_axis": a1 / b, "a1": a1}
+        worst = max(worst, *(relative_error(got["results"][k]["value"], v) for k, v in reference.items()))
+    assert worst < 1e-13, worst

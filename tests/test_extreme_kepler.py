@@ -139,3 +139,18 @@ def test_ephemeris_dates_just_before_and_after_periastron(eccentricity):
         for name in ("true_anomaly", "position_angle"):
             worst[name] = max(worst.get(name, 0.0), angle_error(series[name]["value"][j], ref[name]))
     assert max(worst.values()) < 1e-12, worst
+
+
+def test_eccentric_anomaly_at_random_across_the_domain():
+    # 1 - e log-uniform from 1e-12 to 1, M uniform on (-pi, pi] and log-uniform from 1e-15 to 1 of either sign
+    rng = np.random.default_rng(2026)
+    n = 150
+    e = 1 - 10 ** rng.uniform(-12, 0, n)
+    m = np.where(rng.uniform(size=n) < 0.5, rng.uniform(-np.pi, np.pi, n),
+                 rng.choice([-1.0, 1.0], n) * 10 ** rng.uniform(-15, 0, n))
+    big_e = kepler.eccentric_anomaly(m, e)
+    nu = kepler.true_anomaly(m, e)
+    worst_e = max(relative_error(big_e[i], reference_eccentric_anomaly(m[i], e[i])) for i in range(n))
+    worst_nu = max(relative_error(nu[i], reference_true_anomaly(reference_eccentric_anomaly(m[i], e[i]), e[i]))
+                   for i in range(n))
+    assert worst_e < 1e-14 and worst_nu < 1e-14, (worst_e, worst_nu)

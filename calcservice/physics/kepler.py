@@ -108,15 +108,21 @@ def eccentric_anomaly(mean_anomaly, eccentricity):
     with np.errstate(invalid="ignore", divide="ignore"):
         hi = np.minimum(np.minimum(m + e, _PI), np.where(e < 1.0, m / (1.0 - e), np.inf))
     big_e = np.clip(_mikkola_start(m, e), lo, hi)
-    for _ in range(_HALLEY_STEPS):
-        f = _kepler_residual(big_e, e) - m
-        d1 = _one_minus_e_cos(big_e, e)
-        d2 = e * np.sin(big_e)
+    for step_number in range(_HALLEY_STEPS):
+        sin_e = np.sin(big_e)
+        if step_number < _HALLEY_STEPS - 1:
+            # the plain residual brings E within ~1e-11 of the root at e -> 1 (its rounding error, e sin E, is
+            # that much bigger than M near periastron), at a third of the cost
+            f = big_e - e * sin_e - m
+            d1 = 1.0 - e * np.cos(big_e)
+        else:
+            f = _kepler_residual(big_e, e) - m
+            d1 = _one_minus_e_cos(big_e, e)
         with np.errstate(invalid="ignore", divide="ignore"):
-            step = f / (d1 - 0.5 * f * d2 / d1)
+            step = f / (d1 - 0.5 * f * e * sin_e / d1)
             step = np.where(np.isfinite(step), step, 0.0)
         big_e = np.clip(big_e - step, lo, hi)
-    # a final Newton step polishes the last bit (Halley's correction term is then ~0)
+    # a final Newton step on the exact residual polishes the last bit (Halley's correction term is then ~0)
     with np.errstate(invalid="ignore", divide="ignore"):
         step = (_kepler_residual(big_e, e) - m) / _one_minus_e_cos(big_e, e)
         step = np.where(np.isfinite(step), step, 0.0)
