@@ -238,3 +238,26 @@ def test_vink_recipe_on_both_sides_of_the_bistability_jump():
                     relative_error(answer["bistability_jump_temperature"]["value"][j], jump),
                     relative_error(answer["eddington_factor"]["value"][j], gamma))
     assert worst < 1e-13, worst
+
+
+def test_shell_forecast_of_a_shell_just_formed_after_many_periods():
+    # age = t_obs - (t0 + n P), theta = v age / D (the expansion parallax read backwards, IAU 2012 au, Julian year):
+    # a shell a day (or a second) old, thousands of days after the epoch, keeps the digits of its age
+    period, epoch, speed, distance = 2950.123, 2451234.5678, 1200.0, 2400.0
+    constants = compute("shell-distance", {"period": 2950.0, "shell_spacing": 100.0, "expansion_speed": 1e3})[
+        "provenance"]["constants"]
+    au_km, year = mp.mpf(constants["au"]["value"]) / 1000, mp.mpf("365.25") * 86400
+    worst = 0.0
+    for after in (1.0, 1e-5, 137.25):
+        observation = float(mp.mpf(epoch) + 3 * mp.mpf(period) + after)
+        body = {"period": period, "formation_epoch": epoch, "expansion_speed": speed, "observation_date": observation,
+                "distance": distance, "shells": [-2, 0, 3]}
+        results = compute("shell-forecast", body)["results"]["series"]
+        for j, n in enumerate((-2, 0, 3)):
+            age_days = mp.mpf(observation) - (mp.mpf(epoch) + n * mp.mpf(period))
+            radius_au = mp.mpf(speed) * age_days * 86400 / au_km
+            reference = {"age": age_days * 86400 / year, "radius": radius_au,
+                         "angular_radius": 1000 * radius_au / mp.mpf(distance)}
+            for name, ref in reference.items():
+                worst = max(worst, relative_error(results[name]["value"][j], ref))
+    assert worst < 1e-13, worst
