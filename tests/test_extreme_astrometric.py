@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 
 from calcservice.core import compute, compute_batch
+from calcservice.physics import astrometric
 
 mp.mp.dps = 50
 
@@ -225,3 +226,13 @@ def test_orbital_parallax_single_lined_with_a_photocentre_at_the_edges():
         reference = {"m2": m2, "parallax": alpha / alpha_au, "semimajor_axis": a1 / b, "a1": a1}
         worst = max(worst, *(relative_error(got["results"][k]["value"], v) for k, v in reference.items()))
     assert worst < 1e-13, worst
+
+
+def test_campbell_omega_a_hair_below_zero_wraps_into_the_half_open_circle():
+    # omega is given in [0, 360) deg (the declared convention) by the physics function itself, for library callers:
+    # -1e-14 deg is 0 to within rounding, never 360.0, which np.mod returns for it (360 - 1e-14 rounds to 360)
+    ti = reference_thiele_innes(10.0, 30.0, mp.mpf("-1e-14"), 20.0)
+    out = astrometric.campbell(*(np.array([float(ti[k])]) for k in "ABFG"))
+    for name in ("omega", "omega_primary"):
+        assert 0.0 <= out[name][0] < 360.0, (name, out[name])
+    assert degrees_error(out["omega"][0], mp.mpf("-1e-14")) < 1e-12

@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .angles import cos_degrees, sin_degrees
+from .angles import cos_degrees, sin_degrees, wrap_degrees
 from .spectroscopic import (companion_mass, kepler_semimajor_axis, kepler_total_mass, mass_function,
                             projected_semimajor_axis)
 
@@ -133,7 +133,7 @@ def campbell_elements(A, B, F, G):
     node = node - 180.0 * turns
     over = node >= 180.0
     node = np.where(over, node - 180.0, node)
-    omega = (omega - 180.0 * (turns + over)) % 360.0
+    omega = wrap_degrees(omega - 180.0 * (turns + over))      # [0, 360): -1e-14 deg is 0, not 360.0
     finite = np.isfinite(a)
     return (a, np.where(finite, inclination, np.nan), np.where(finite, omega, np.nan),
             np.where(finite, node, np.nan))
@@ -141,12 +141,12 @@ def campbell_elements(A, B, F, G):
 
 def relative_omega(omega_primary):
     """omega of the relative orbit (secondary about primary) from the primary's: omega + 180 deg."""
-    return (omega_primary + 180.0) % 360.0
+    return wrap_degrees(omega_primary + 180.0)
 
 
 def primary_omega(omega_relative):
     """omega of the primary's orbit about the centre of mass from the relative orbit's: omega - 180 deg."""
-    return (omega_relative + 180.0) % 360.0
+    return wrap_degrees(omega_relative + 180.0)
 
 
 def thiele_innes(angular_semimajor_axis, inclination, node, omega=None, omega_primary=None, **_):
