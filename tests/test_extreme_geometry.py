@@ -110,3 +110,44 @@ def test_conjunction_and_rv_extremum_dates_near_periastron_at_e_to_1(eccentricit
         sigma = mp.sqrt((d_e * mp.mpf(1e-12)) ** 2 + (d_w * mp.mpf(1e-7)) ** 2)
         worst_sigma = max(worst_sigma, relative_error(event["sigma"], sigma))
     assert worst_days <= 1.0 and worst_sigma < 1e-9, (worst_days, worst_sigma)
+
+
+def reference_mid_eclipse(star, eccentricity, omega, inclination):
+    """Phase and rho/a at the minimum of rho^2 = r^2 (1 - sin^2 i sin^2(nu + omega)) near the conjunction that
+    eclipses ``star`` (nu + omega = 90 or 270 deg), by a grid over +-30 deg (0.5 deg steps) then golden-section search at 50 digits
+    (rho from Heintz 1978, ch. 4; the minimum in nu is the minimum in time, nu rising with t)."""
+    e, w, s2 = mp.mpf(eccentricity), mp.radians(mp.mpf(omega)), mp.sin(mp.radians(mp.mpf(inclination))) ** 2
+
+    def rho2(nu):
+        r = (1 - e * e) / (1 + e * mp.cos(nu))
+        return r * r * (1 - s2 * mp.sin(nu + w) ** 2)
+
+    conjunction = (mp.pi / 2 if star == 1 else 3 * mp.pi / 2) - w
+    grid = [conjunction + mp.radians(mp.mpf(k - 60) / 2) for k in range(121)]
+    k = min(range(121), key=lambda j: rho2(grid[j]))
+    lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, 120)]
+    golden = (mp.sqrt(5) - 1) / 2
+    for _ in range(160):
+        a, b = hi - golden * (hi - lo), lo + golden * (hi - lo)
+        lo, hi = (lo, b) if rho2(a) < rho2(b) else (a, hi)
+    nu = (lo + hi) / 2
+    big_e = 2 * mp.atan2(mp.sqrt(1 - e) * mp.sin(nu / 2), mp.sqrt(1 + e) * mp.cos(nu / 2))
+    return ((big_e - e * mp.sin(big_e)) / (2 * mp.pi)) % 1, mp.sqrt(rho2(nu))
+
+
+@pytest.mark.parametrize("eccentricity", [0.0, 0.28, 0.9, 0.999])
+def test_mid_eclipse_of_an_edge_on_orbit(eccentricity):
+    # within 0.01 deg and 1e-4 deg of edge-on, where rho/a = r (cos^2 u + cos^2 i sin^2 u)^{1/2} at the minimum is a
+    # few 1e-7 and 1 - sin^2 i sin^2 u, taken through radians, lost 3e-9 of it
+    worst_phase, worst_rho = 0.0, 0.0
+    for omega in (0.0, 61.0, 200.0):
+        for inclination in (89.99, 89.9999):
+            body = {"period": 9.73, "eccentricity": eccentricity, "omega": omega, "t_periastron": 2450000.0,
+                    "inclination": inclination, "after": 2450000.0}
+            results = compute("mid-eclipse", body)["results"]
+            for star in (1, 2):
+                phase, rho = reference_mid_eclipse(star, eccentricity, omega, inclination)
+                got = results[f"mid_eclipse_phase{star}"]["value"]
+                worst_phase = max(worst_phase, float(abs((mp.mpf(got) - phase + mp.mpf(0.5)) % 1 - mp.mpf(0.5))))
+                worst_rho = max(worst_rho, relative_error(results[f"minimum_separation{star}_over_a"]["value"], rho))
+    assert worst_phase < 1e-13 and worst_rho < 1e-12, (worst_phase, worst_rho)

@@ -468,15 +468,16 @@ _HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
 _MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
 
 
-def projected_separation(true_anomaly_rad, eccentricity, omega_rad, inclination_rad):
+def projected_separation(true_anomaly_rad, eccentricity, omega_deg, inclination_deg):
     """Separation of the stars on the sky in units of a: rho/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega)).
 
     From rho = r sqrt(cos^2 u + sin^2 u cos^2 i) with u = nu + omega (+ 180 deg for the relative orbit, which
-    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2).
+    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2), in that
+    form (not 1 - sin^2 i sin^2 u, which cancels at mid-eclipse of an edge-on orbit), with omega's and i's sines
+    and cosines in degrees (:mod:`.angles`).
     """
-    s2 = np.sin(inclination_rad) ** 2
-    return kepler.separation(true_anomaly_rad, eccentricity) * np.sqrt(
-        np.maximum(1.0 - s2 * np.sin(true_anomaly_rad + omega_rad) ** 2, 0.0))
+    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
+    return kepler.separation(true_anomaly_rad, eccentricity) * np.hypot(cos_u, sin_u * cos_degrees(inclination_deg))
 
 
 def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
@@ -547,7 +548,7 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
     for star in (1, 2):
         phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination,
                                                                 apsidal_rate_per_mean_anomaly(omega_dot, period))
-        rho = projected_separation(nu, eccentricity, np.radians(omega), np.radians(inclination))
+        rho = projected_separation(nu, eccentricity, omega, inclination)
         out[f"mid_eclipse_phase{star}"] = phase
         out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
         out[f"minimum_separation{star}_over_a"] = rho
