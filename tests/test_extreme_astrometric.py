@@ -236,3 +236,13 @@ def test_campbell_omega_a_hair_below_zero_wraps_into_the_half_open_circle():
     for name in ("omega", "omega_primary"):
         assert 0.0 <= out[name][0] < 360.0, (name, out[name])
     assert degrees_error(out["omega"][0], mp.mpf("-1e-14")) < 1e-12
+
+
+def test_thiele_innes_from_a_tiny_primary_omega():
+    # omega of the relative orbit = omega_primary + 180 deg (the spectroscopic convention): with omega_primary
+    # = 1e-20 deg and node 0, B = a sin(omega) cos i is -a sin(1e-20 deg) cos i, not 0 (180 + 1e-20 rounds to 180)
+    body = {"angular_semimajor_axis": 10.0, "inclination": 30.0, "omega_primary": 1e-20, "node": 0.0}
+    results = compute("thiele-innes", body)["results"]
+    reference = reference_thiele_innes(10.0, 30.0, mp.mpf(1e-20) + 180, 0.0)
+    worst = max(relative_error(results[k]["value"], reference[k]) for k in "ABFG")
+    assert worst < 1e-14, worst

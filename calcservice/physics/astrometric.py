@@ -150,9 +150,15 @@ def primary_omega(omega_relative):
 
 
 def thiele_innes(angular_semimajor_axis, inclination, node, omega=None, omega_primary=None, **_):
-    """Campbell elements -> Thiele–Innes constants (omega of the relative orbit, or the primary's + 180)."""
-    w = omega if omega is not None else relative_omega(omega_primary)
-    A, B, F, G = thiele_innes_constants(angular_semimajor_axis, inclination, w, node)
+    """Campbell elements -> Thiele–Innes constants (omega of the relative orbit, or the primary's + 180).
+
+    The constants are linear in (cos omega, sin omega), so omega_primary + 180 deg negates all four: taken so,
+    rather than through omega_primary + 180 rounded (which loses a small omega_primary whole).
+    """
+    if omega is not None:
+        A, B, F, G = thiele_innes_constants(angular_semimajor_axis, inclination, omega, node)
+    else:
+        A, B, F, G = (-x for x in thiele_innes_constants(angular_semimajor_axis, inclination, omega_primary, node))
     return {"A": A, "B": B, "F": F, "G": G}
 
 
