@@ -84,9 +84,13 @@ def cycle_phase(time, period, t_periastron, period_derivative=None, signed=False
         root = 1.0 + np.sqrt(1.0 + 2.0 * rate * x)
         fraction = fraction - 2.0 * rate * x * x / (root * root)
         fraction = fraction - np.round(fraction)
-    if signed:
-        return fraction
-    return np.where(fraction < 0.0, fraction + 1.0, fraction)
+    return fraction if signed else unsigned_fraction(fraction)
+
+
+def unsigned_fraction(fraction):
+    """A fraction of a cycle in [-1/2, 1/2] moved into [0, 1): -1e-17 is 0 (adding 1 would round it to 1.0)."""
+    f = np.where(fraction < 0.0, fraction + 1.0, fraction)
+    return np.where(f >= 1.0, 0.0, f)
 
 
 def cycle_time(cycles, period, t_periastron, period_derivative=None):
@@ -180,7 +184,7 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     omega_deg = omega_at(times, omega, t_periastron, omega_dot)
     # the signed distance to the nearest periastron, so that a date just before one keeps its digits
     signed = cycle_phase(times, period, t_periastron, period_derivative, signed=True)
-    phase = np.where(signed < 0.0, signed + 1.0, signed)
+    phase = unsigned_fraction(signed)
     mean = TWO_PI * signed
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
