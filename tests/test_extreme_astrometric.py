@@ -18,7 +18,13 @@ import pytest
 from calcservice.core import compute, compute_batch
 from calcservice.physics import astrometric
 
-mp.mp.dps = 50
+
+@pytest.fixture(autouse=True)
+def working_precision():
+    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
+    with mp.workdps(50):
+        yield
+
 
 CONSTANTS = compute("visual", {"period": 1.0, "angular_semimajor_axis": 1.0, "parallax": 1.0})["provenance"][
     "constants"]

@@ -14,7 +14,13 @@ import pytest
 
 from calcservice.core import compute, compute_batch
 
-mp.mp.dps = 50
+
+@pytest.fixture(autouse=True)
+def working_precision():
+    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
+    with mp.workdps(50):
+        yield
+
 
 CONSTANTS = compute("geometry", {"period": 1.0, "eccentricity": 0.1, "m1": 1.0, "m2": 1.0})["provenance"]["constants"]
 GM = mp.mpf(CONSTANTS["GM_sun"]["value"])

@@ -15,18 +15,22 @@ import pytest
 from calcservice.core import compute
 from calcservice.physics import kepler
 
-mp.mp.dps = 50
-TWO_PI = 2 * mp.pi
+
+@pytest.fixture(autouse=True)
+def working_precision():
+    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
+    with mp.workdps(50):
+        yield
 
 
 def reference_eccentric_anomaly(mean_anomaly, eccentricity):
     """E of M = E - e sin E, at 50 digits; M and e taken as the exact values of the doubles given."""
     m, e = mp.mpf(mean_anomaly), mp.mpf(eccentricity)
-    k = mp.floor(m / TWO_PI + mp.mpf(1) / 2)
-    m0 = m - TWO_PI * k
+    k = mp.floor(m / (2 * mp.pi) + mp.mpf(1) / 2)
+    m0 = m - (2 * mp.pi) * k
     sign, m0 = (-1 if m0 < 0 else 1), abs(m0)
     if m0 == 0:
-        return TWO_PI * k
+        return (2 * mp.pi) * k
     # upper bounds of the root: E <= M + e, E <= pi, and E (1 - e) <= E - e sin E = M
     big_e = min(m0 + e, mp.pi, m0 / (1 - e) if e < 1 else mp.inf)
     for _ in range(2000):
@@ -34,14 +38,14 @@ def reference_eccentric_anomaly(mean_anomaly, eccentricity):
         big_e -= step
         if abs(step) <= abs(big_e) * mp.mpf(10) ** -45:
             break
-    return sign * big_e + TWO_PI * k
+    return sign * big_e + (2 * mp.pi) * k
 
 
 def reference_true_anomaly(big_e, eccentricity):
     e = mp.mpf(eccentricity)
-    k = mp.floor(big_e / TWO_PI + mp.mpf(1) / 2)
-    half = (big_e - TWO_PI * k) / 2
-    return 2 * mp.atan2(mp.sqrt(1 + e) * mp.sin(half), mp.sqrt(1 - e) * mp.cos(half)) + TWO_PI * k
+    k = mp.floor(big_e / (2 * mp.pi) + mp.mpf(1) / 2)
+    half = (big_e - (2 * mp.pi) * k) / 2
+    return 2 * mp.atan2(mp.sqrt(1 + e) * mp.sin(half), mp.sqrt(1 - e) * mp.cos(half)) + (2 * mp.pi) * k
 
 
 def relative_error(value, reference):
@@ -83,7 +87,7 @@ def test_mean_anomaly_reduced_to_its_distance_from_periastron():
     m = np.array([np.nextafter(2 * np.pi, 0), 2 * np.pi - 1e-12, 2 * np.pi + 1e-9, 200 * np.pi + 1e-7,
                   -20 * np.pi - 0.3, 2e6 * np.pi + 3e-9, 1e-300])
     m0, k = kepler.reduce_mean_anomaly(m)
-    worst = max(relative_error(m0[i], mp.mpf(m[i]) - TWO_PI * int(k[i])) for i in range(len(m)))
+    worst = max(relative_error(m0[i], mp.mpf(m[i]) - (2 * mp.pi) * int(k[i])) for i in range(len(m)))
     assert worst < 1e-15, worst
 
 
@@ -96,7 +100,7 @@ def reference_ephemeris(time, period, t_periastron, eccentricity, omega, k1, gam
     """
     x = (mp.mpf(time) - mp.mpf(t_periastron)) / mp.mpf(period)
     phase = x - mp.floor(x)
-    mean = TWO_PI * phase
+    mean = (2 * mp.pi) * phase
     big_e = reference_eccentric_anomaly(mean, eccentricity)
     nu = reference_true_anomaly(big_e, eccentricity)
     e, w = mp.mpf(eccentricity), mp.radians(mp.mpf(omega))

@@ -15,11 +15,19 @@ import pytest
 
 from calcservice.core import compute, compute_batch
 
-mp.mp.dps = 80      # 50 digits and more: the derivatives below difference roots found to 1e-70
+
+@pytest.fixture(autouse=True)
+def working_precision():
+    """80 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
+    # 50 digits and more: the derivatives below difference roots found to 1e-70
+    with mp.workdps(80):
+        yield
+
 
 CONSTANTS = compute("sb2", {"period": 1.0, "k1": 1.0, "k2": 1.0, "eccentricity": 0.0})["provenance"]["constants"]
 GM = mp.mpf(CONSTANTS["GM_sun"]["value"])      # m^3 s^-2
-AU_KM = mp.mpf(CONSTANTS["au"]["value"]) / 1000
+with mp.workdps(80):
+    AU_KM = mp.mpf(CONSTANTS["au"]["value"]) / 1000
 DAY = mp.mpf(CONSTANTS["day"]["value"])        # s
 
 
@@ -51,7 +59,9 @@ def reference_companion_mass(f, m1, sin_i):
         lo /= 2
     while g(hi) < 0:
         hi *= 2
-    while hi / lo - 1 > mp.mpf(10) ** -70:
+    for _ in range(1000):
+        if hi / lo - 1 <= mp.mpf(10) ** -70:
+            break
         mid = mp.sqrt(lo * hi)
         lo, hi = (mid, hi) if g(mid) < 0 else (lo, mid)
     return mp.sqrt(lo * hi)

@@ -19,7 +19,12 @@ import pytest
 
 from calcservice.core import compute, compute_batch
 
-mp.mp.dps = 50
+
+@pytest.fixture(autouse=True)
+def working_precision():
+    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
+    with mp.workdps(50):
+        yield
 
 
 def relative_error(value, reference):

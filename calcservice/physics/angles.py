@@ -20,6 +20,15 @@ def _reduced(degrees):
     return np.radians(x - 90.0 * n), np.mod(n, 4.0)
 
 
+def sin_cos_degrees(degrees):
+    """(sin x, cos x) for x in degrees, both exact to rounding near multiples of 90 deg, from one reduction."""
+    r, quadrant = _reduced(degrees)
+    s, c = np.sin(r), np.cos(r)
+    sine = np.where(quadrant == 0.0, s, np.where(quadrant == 1.0, c, np.where(quadrant == 2.0, -s, -c)))
+    cosine = np.where(quadrant == 0.0, c, np.where(quadrant == 1.0, -s, np.where(quadrant == 2.0, -c, s)))
+    return sine, cosine
+
+
 def sin_degrees(degrees):
     """sin x for x in degrees, exact to rounding near multiples of 90 deg (sin 180 deg = 0)."""
     r, quadrant = _reduced(degrees)

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, R_SUN, TWO_PI
 from . import kepler
-from .angles import cos_degrees, sin_degrees, wrap_degrees
+from .angles import cos_degrees, sin_cos_degrees, wrap_degrees
 from .exact import two_product, two_sum
 from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
@@ -128,12 +128,13 @@ def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
     return amplitude * kepler.separation(true_anomaly_rad, eccentricity) * np.sin(true_anomaly_rad + omega_rad)
 
 
-def argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu=None):
+def argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu=None, sin_cos_omega=None):
     """cos(nu + omega) and sin(nu + omega) by the addition theorem, omega's sine and cosine taken in degrees
     (:mod:`.angles`), so that omega = 90 or 270 deg adds no rounding of pi/2 to a small nu.  ``cos_sin_nu``:
-    (cos nu, sin nu) when the caller has them more exactly than from nu (:func:`.kepler.true_anomaly_cosine_sine`)."""
+    (cos nu, sin nu) when the caller has them more exactly than from nu (:func:`.kepler.true_anomaly_cosine_sine`);
+    ``sin_cos_omega``: (sin omega, cos omega) when the caller has them already."""
     cos_nu, sin_nu = (np.cos(true_anomaly_rad), np.sin(true_anomaly_rad)) if cos_sin_nu is None else cos_sin_nu
-    cos_w, sin_w = cos_degrees(omega_deg), sin_degrees(omega_deg)
+    sin_w, cos_w = sin_cos_degrees(omega_deg) if sin_cos_omega is None else sin_cos_omega
     return cos_nu * cos_w - sin_nu * sin_w, sin_nu * cos_w + cos_nu * sin_w
 
 
@@ -145,8 +146,9 @@ def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, ga
     with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign.
     Returns (v1, v2), v2 None without K2.  ``cos_sin_nu`` as in :func:`argument_of_latitude`.
     """
-    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu)
-    shape = cos_u + eccentricity * cos_degrees(omega_deg)
+    sin_cos_omega = sin_cos_degrees(omega_deg)
+    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu, sin_cos_omega)
+    shape = cos_u + eccentricity * sin_cos_omega[1]
     v1 = gamma + k1 * shape
     v2 = None if k2 is None else gamma - k2 * shape
     return v1, v2
