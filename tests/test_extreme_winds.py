@@ -266,3 +266,33 @@ def test_shell_forecast_of_a_shell_just_formed_after_many_periods():
             for name, ref in reference.items():
                 worst = max(worst, relative_error(results[name]["value"][j], ref))
     assert worst < 1e-13, worst
+
+
+def test_radio_photosphere_radius_across_the_range():
+    # tau = 1 at the impact parameter p = (pi C / 2)^{1/3}, C = 0.018 T^{-3/2} Z^2 gamma n^2 r^4 g / nu^2 in cgs with
+    # n r^2 = Mdot / (4 pi v mu m_H) (Rybicki & Lightman 1979, eq. 5.19b; Wright & Barlow 1975): flux densities
+    # from 1 uJy to 10 Jy, frequencies from 0.1 to 1000 GHz
+    rng = np.random.default_rng(31)
+    n = 10
+    columns = {"flux_density": list(10 ** rng.uniform(-3, 4, n)), "frequency": list(10 ** rng.uniform(-1, 3, n)),
+               "distance": list(10 ** rng.uniform(-2, 2, n)), "vinf": list(10 ** rng.uniform(1, 4.5, n)),
+               "temperature": list(10 ** rng.uniform(3.5, 5, n)), "mu": 1.3, "z_rms": 1.2, "gamma_e": 1.1}
+    answer = compute_batch("mass-loss-radio", {"columns": columns})
+    got = answer["columns"]["radio_photosphere_radius"]["value"]
+    constants = compute("mass-loss-radio", {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700.0})[
+        "provenance"]["constants"]
+    m_sun_g, m_h_g = (mp.mpf(constants[k]["value"]) * 1000 for k in ("M_sun", "m_H"))
+    r_sun_cm, year = mp.mpf(constants["R_sun"]["value"]) * 100, mp.mpf(constants["julian_year"]["value"])
+    worst = 0.0
+    for j in range(n):
+        s, nu, d, v, t = (mp.mpf(columns[k][j]) for k in ("flux_density", "frequency", "distance", "vinf",
+                                                         "temperature"))
+        mu, z, gamma = mp.mpf(1.3), mp.mpf(1.2), mp.mpf(1.1)
+        nu_hz = nu * mp.mpf(10) ** 9
+        gaunt = mp.mpf("9.77") * (1 + mp.mpf("0.13") * mp.log10(t ** mp.mpf(1.5) / (z * nu_hz)))
+        mdot = (mp.mpf("0.095") * mu * v * (s / 1000) ** mp.mpf(0.75) * d ** mp.mpf(1.5)
+                / (z * mp.sqrt(gamma * gaunt * nu_hz)))                       # Wright & Barlow (1975), eq. 8
+        n_r2 = mdot * m_sun_g / year / (4 * mp.pi * v * 10 ** 5 * mu * m_h_g)
+        c = mp.mpf("0.018") * t ** mp.mpf(-1.5) * z * z * gamma * n_r2 ** 2 * gaunt / nu_hz ** 2
+        worst = max(worst, relative_error(got[j], mp.cbrt(mp.pi * c / 2) / r_sun_cm))
+    assert worst < 1e-13, worst
