@@ -3,6 +3,7 @@
 import numpy as np
 
 from ..physics import astrometric as phys
+from ..physics.angles import sin_degrees
 from ..physics.spectroscopic import companion_mass, mass_function
 from ..registry import ANGLE, INCLINATION, POSITIVE, Calculation, Constraint, Input, Output, Warning, register
 from .astrometric import HEINTZ_1978, IAU_2015_B2, LUMINOSITY_FRACTION, SKY, VAN_DE_KAMP_1967
@@ -22,7 +23,7 @@ def _beta_below_fractional_mass(period, k1, eccentricity, inclination, primary_m
     """beta < B, with B from the mass function at the given i (where beta and M1 are given)."""
     if luminosity_fraction is None or primary_mass is None or k2 is not None:
         return np.asarray(True)
-    sin_i = np.sin(np.radians(inclination))
+    sin_i = sin_degrees(inclination)     # as the physics takes it, so that the two agree at the boundary
     m2 = companion_mass(mass_function(period, k1, eccentricity), primary_mass, sin_i)
     return np.asarray(luminosity_fraction) < m2 / (primary_mass + m2)
 

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .angles import cos_degrees, sin_degrees, wrap_degrees
 from .spectroscopic import (companion_mass, kepler_semimajor_axis, kepler_total_mass, mass_function,
                             projected_semimajor_axis)
 
@@ -50,10 +51,16 @@ def linear_size(angle, parallax):
 def individual_masses(total_mass, mass_ratio=None, fractional_mass=None):
     """M1 and M2 from the total mass and q = M2/M1 or B = M2/(M1 + M2).
 
-    M2 = B M, M1 = (1 - B) M, with B = q / (1 + q).  Returns (m1, m2, B).
+    M2 = B M, M1 = (1 - B) M, with B = q / (1 + q) and 1 - B = 1 / (1 + q) (not 1 - B, which cancels for a
+    large q).  Returns (m1, m2, B, 1 - B).
     """
-    b = fractional_mass if fractional_mass is not None else mass_ratio / (1.0 + mass_ratio)
-    return (1.0 - b) * total_mass, b * total_mass, b
+    if fractional_mass is not None:
+        b = fractional_mass
+        rest = 1.0 - b
+    else:
+        b = mass_ratio / (1.0 + mass_ratio)
+        rest = 1.0 / (1.0 + mass_ratio)
+    return rest * total_mass, b * total_mass, b, rest
 
 
 def visual(period, angular_semimajor_axis, parallax=None, distance=None, mass_ratio=None,
@@ -69,9 +76,10 @@ def visual(period, angular_semimajor_axis, parallax=None, distance=None, mass_ra
         "distance": distance_from_parallax(plx),
     }
     if mass_ratio is not None or fractional_mass is not None:
-        m1, m2, b = individual_masses(total, mass_ratio, fractional_mass)
-        out.update({"m1": m1, "m2": m2, "fractional_mass": b, "mass_ratio": m2 / m1,
-                    "a1": b * a, "a2": (1.0 - b) * a})
+        m1, m2, b, rest = individual_masses(total, mass_ratio, fractional_mass)
+        out.update({"m1": m1, "m2": m2, "fractional_mass": b,
+                    "mass_ratio": b / rest,
+                    "a1": b * a, "a2": rest * a})
     return out
 
 
@@ -84,13 +92,12 @@ def thiele_innes_constants(angular_semimajor_axis, inclination, omega, node):
     B = a ( cos w sin W + sin w cos W cos i)
     F = a (-sin w cos W - cos w sin W cos i)
     G = a (-sin w sin W + cos w cos W cos i)
-    with w = omega of the relative orbit, W = node (Heintz 1978; Binnendijk 1960).
+    with w = omega of the relative orbit, W = node (Heintz 1978; Binnendijk 1960).  Sines and cosines
+    of the angles in degrees (:mod:`.angles`): cos 90 deg is 0, and cos i near 90 deg keeps its digits.
     """
     a = angular_semimajor_axis
-    w = np.radians(omega)
-    n = np.radians(node)
-    cos_i = np.cos(np.radians(inclination))
-    cw, sw, cn, sn = np.cos(w), np.sin(w), np.cos(n), np.sin(n)
+    cos_i = cos_degrees(inclination)
+    cw, sw, cn, sn = cos_degrees(omega), sin_degrees(omega), cos_degrees(node), sin_degrees(node)
     return (a * (cw * cn - sw * sn * cos_i),
             a * (cw * sn + sw * cn * cos_i),
             a * (-sw * cn - cw * sn * cos_i),
@@ -126,7 +133,7 @@ def campbell_elements(A, B, F, G):
     node = node - 180.0 * turns
     over = node >= 180.0
     node = np.where(over, node - 180.0, node)
-    omega = (omega - 180.0 * (turns + over)) % 360.0
+    omega = wrap_degrees(omega - 180.0 * (turns + over))      # [0, 360): -1e-14 deg is 0, not 360.0
     finite = np.isfinite(a)
     return (a, np.where(finite, inclination, np.nan), np.where(finite, omega, np.nan),
             np.where(finite, node, np.nan))
@@ -134,18 +141,24 @@ def campbell_elements(A, B, F, G):
 
 def relative_omega(omega_primary):
     """omega of the relative orbit (secondary about primary) from the primary's: omega + 180 deg."""
-    return (omega_primary + 180.0) % 360.0
+    return wrap_degrees(omega_primary + 180.0)
 
 
 def primary_omega(omega_relative):
     """omega of the primary's orbit about the centre of mass from the relative orbit's: omega - 180 deg."""
-    return (omega_relative + 180.0) % 360.0
+    return wrap_degrees(omega_relative + 180.0)
 
 
 def thiele_innes(angular_semimajor_axis, inclination, node, omega=None, omega_primary=None, **_):
-    """Campbell elements -> Thiele–Innes constants (omega of the relative orbit, or the primary's + 180)."""
-    w = omega if omega is not None else relative_omega(omega_primary)
-    A, B, F, G = thiele_innes_constants(angular_semimajor_axis, inclination, w, node)
+    """Campbell elements -> Thiele–Innes constants (omega of the relative orbit, or the primary's + 180).
+
+    The constants are linear in (cos omega, sin omega), so omega_primary + 180 deg negates all four: taken so,
+    rather than through omega_primary + 180 rounded (which loses a small omega_primary whole).
+    """
+    if omega is not None:
+        A, B, F, G = thiele_innes_constants(angular_semimajor_axis, inclination, omega, node)
+    else:
+        A, B, F, G = (-x for x in thiele_innes_constants(angular_semimajor_axis, inclination, omega_primary, node))
     return {"A": A, "B": B, "F": F, "G": G}
 
 
@@ -247,7 +260,7 @@ def combined(period, k1, eccentricity, inclination, k2=None, angular_semimajor_a
     luminous one (beta > 0) has alpha = a (B - beta) = a1 (1 - beta / B), which needs B
     and hence M1: M2 solves the mass function at the given i.  NaN where beta >= B.
     """
-    sin_i = np.sin(np.radians(inclination))
+    sin_i = sin_degrees(inclination)
     a1 = projected_semimajor_axis(period, k1, eccentricity) / sin_i
     out = {}
     if k2 is not None:
@@ -256,7 +269,7 @@ def combined(period, k1, eccentricity, inclination, k2=None, angular_semimajor_a
         total = kepler_total_mass(a, period)
         m1 = total * k2 / (k1 + k2)
         plx = orbital_parallax(angular_semimajor_axis, a)
-        out.update({"m1": m1, "m2": total - m1, "total_mass": total, "mass_ratio": k1 / k2,
+        out.update({"m1": m1, "m2": total * k1 / (k1 + k2), "total_mass": total, "mass_ratio": k1 / k2,
                     "semimajor_axis": a, "a1": a1, "a2": a2})
     else:
         beta = 0.0 if luminosity_fraction is None else luminosity_fraction

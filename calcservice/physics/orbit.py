@@ -19,6 +19,8 @@ import numpy as np
 
 from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, R_SUN, TWO_PI
 from . import kepler
+from .angles import cos_degrees, sin_cos_degrees, wrap_degrees
+from .exact import two_product, two_sum
 from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
 AU_IN_SOLAR_RADII = AU / R_SUN
@@ -48,19 +50,47 @@ def elapsed_cycles(time, period, t_periastron, period_derivative=None):
     return 2.0 * x / (1.0 + np.sqrt(1.0 + 2.0 * rate * x))
 
 
-def cycle_phase(time, period, t_periastron, period_derivative=None):
+def period_fraction(time, period, t_periastron):
+    """(t - T0)/P split into the nearest whole number of periods n and the signed rest f in [-1/2, 1/2].
+
+    f = (t - T0 - n P) / P with t - T0 and n P carried as exact sums of two doubles (:func:`.exact.two_sum`,
+    :func:`.exact.two_product`), so a date just before or after a periastron passage keeps its distance to
+    it as exactly as the doubles given (frac((t - T0)/P) rounds the quotient first, after 1000 cycles at
+    1e-13 of a cycle, and a phase just below 1 keeps only 1e-16 of a cycle).
+    """
+    t = np.asarray(time, dtype=float)
+    p = np.asarray(period, dtype=float)
+    d, d_low = two_sum(t, -np.asarray(t_periastron, dtype=float))
+    with np.errstate(invalid="ignore"):
+        n = np.round(d / p)
+        whole, whole_low = two_product(n, p)
+        f = (((d - whole) - whole_low) + d_low) / p
+    return n, f
+
+
+def cycle_phase(time, period, t_periastron, period_derivative=None, signed=False):
     """The fraction of a cycle since the last periastron, n(t) mod 1, of :func:`elapsed_cycles`' n.
 
     Taken as frac(x) - d with d = x - n = 2 Pdot x^2 / (1 + sqrt(1 + 2 Pdot x))^2 (the same n, no
     cancellation), so that what Pdot adds keeps its own digits beside the whole cycles elapsed: after
-    a thousand cycles n itself rounds at 1e-13, where Pdot's share of the phase may be 1e-8.
+    a thousand cycles n itself rounds at 1e-13, where Pdot's share of the phase may be 1e-8.  frac(x)
+    is :func:`period_fraction`'s, exact to the last digit near a periastron passage.  ``signed``: the
+    fraction from the nearest periastron, in [-1/2, 1/2], which keeps its digits just before one too.
     """
-    x = (np.asarray(time, dtype=float) - t_periastron) / period
-    if period_derivative is None:
-        return np.mod(x, 1.0)
-    rate = period_change_rate(period_derivative)
-    root = 1.0 + np.sqrt(1.0 + 2.0 * rate * x)
-    return np.mod(np.mod(x, 1.0) - 2.0 * rate * x * x / (root * root), 1.0)
+    _whole, fraction = period_fraction(time, period, t_periastron)
+    if period_derivative is not None:
+        x = (np.asarray(time, dtype=float) - t_periastron) / period
+        rate = period_change_rate(period_derivative)
+        root = 1.0 + np.sqrt(1.0 + 2.0 * rate * x)
+        fraction = fraction - 2.0 * rate * x * x / (root * root)
+        fraction = fraction - np.round(fraction)
+    return fraction if signed else unsigned_fraction(fraction)
+
+
+def unsigned_fraction(fraction):
+    """A fraction of a cycle in [-1/2, 1/2] moved into [0, 1): -1e-17 is 0 (adding 1 would round it to 1.0)."""
+    f = np.where(fraction < 0.0, fraction + 1.0, fraction)
+    return np.where(f >= 1.0, 0.0, f)
 
 
 def cycle_time(cycles, period, t_periastron, period_derivative=None):
@@ -82,9 +112,10 @@ def omega_at(time, omega, t_periastron, omega_dot=None):
 def light_travel_amplitude(k, period, eccentricity):
     """a sin i / c in days of a star's orbit about the centre of mass: K P sqrt(1 - e^2) / (2 pi c).
 
-    From a sin i = K P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, eq. 2.50), K in km/s, P in days.
+    From a sin i = K P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, eq. 2.50), K in km/s, P in days;
+    1 - e^2 as (1 - e)(1 + e), exact at e -> 1.
     """
-    return k * period * np.sqrt(1.0 - eccentricity * eccentricity) / (TWO_PI * C_LIGHT_KM_S)
+    return k * period * np.sqrt((1.0 - eccentricity) * (1.0 + eccentricity)) / (TWO_PI * C_LIGHT_KM_S)
 
 
 def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
@@ -94,37 +125,49 @@ def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
     (positive receding, the sign of the radial velocity, whose time derivative it is; Hilditch 2001,
     ch. 2), so an event seen in that star's light is observed z / c after the centre of mass would show it.
     """
-    return amplitude * (1.0 - eccentricity * eccentricity) * np.sin(true_anomaly_rad + omega_rad) / (
-        1.0 + eccentricity * np.cos(true_anomaly_rad))
+    return amplitude * kepler.separation(true_anomaly_rad, eccentricity) * np.sin(true_anomaly_rad + omega_rad)
 
 
-def radial_velocities(true_anomaly_rad, eccentricity, omega_rad, k1, k2=None, gamma=0.0):
+def argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu=None, sin_cos_omega=None):
+    """cos(nu + omega) and sin(nu + omega) by the addition theorem, omega's sine and cosine taken in degrees
+    (:mod:`.angles`), so that omega = 90 or 270 deg adds no rounding of pi/2 to a small nu.  ``cos_sin_nu``:
+    (cos nu, sin nu) when the caller has them more exactly than from nu (:func:`.kepler.true_anomaly_cosine_sine`);
+    ``sin_cos_omega``: (sin omega, cos omega) when the caller has them already."""
+    cos_nu, sin_nu = (np.cos(true_anomaly_rad), np.sin(true_anomaly_rad)) if cos_sin_nu is None else cos_sin_nu
+    sin_w, cos_w = sin_cos_degrees(omega_deg) if sin_cos_omega is None else sin_cos_omega
+    return cos_nu * cos_w - sin_nu * sin_w, sin_nu * cos_w + cos_nu * sin_w
+
+
+def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0, cos_sin_nu=None):
     """Radial velocities (km/s) of both stars of a Keplerian orbit.
 
     v1 = gamma + K1 [cos(nu + omega) + e cos omega],
     v2 = gamma - K2 [cos(nu + omega) + e cos omega]   (Hilditch 2001, eq. 2.45),
-    with omega the primary's argument of periastron; star 2 has omega + 180 deg, hence the sign.
-    Returns (v1, v2), v2 None without K2.
+    with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign.
+    Returns (v1, v2), v2 None without K2.  ``cos_sin_nu`` as in :func:`argument_of_latitude`.
     """
-    shape = np.cos(true_anomaly_rad + omega_rad) + eccentricity * np.cos(omega_rad)
+    sin_cos_omega = sin_cos_degrees(omega_deg)
+    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu, sin_cos_omega)
+    shape = cos_u + eccentricity * sin_cos_omega[1]
     v1 = gamma + k1 * shape
     v2 = None if k2 is None else gamma - k2 * shape
     return v1, v2
 
 
-def sky_position(true_anomaly_rad, separation_over_a, omega_rad, inclination_rad, node_deg, angular_semimajor_axis=None):
+def sky_position(true_anomaly_rad, separation_over_a, omega_deg, inclination_deg, node_deg, angular_semimajor_axis=None,
+                 cos_sin_nu=None):
     """Projected separation (mas, or None) and position angle (deg) of star 2 relative to star 1.
 
     With u = nu + omega_2 the argument of latitude of the relative orbit (omega_2 = omega + 180 deg),
     rho = a'' (r/a) sqrt(cos^2 u + sin^2 u cos^2 i) and tan(theta - Omega) = tan u cos i
-    (W. D. Heintz 1978, *Double Stars*, ch. 4; the quadrant from atan2).
+    (W. D. Heintz 1978, *Double Stars*, ch. 4; the quadrant from atan2); cos i from degrees, exact near 90 deg.
     """
-    u = true_anomaly_rad + omega_rad + np.pi
-    cos_i = np.cos(inclination_rad)
-    position_angle = np.mod(node_deg + np.degrees(np.arctan2(np.sin(u) * cos_i, np.cos(u))), 360.0)
+    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu)   # u - 180 deg: both signs turn
+    cos_i = cos_degrees(inclination_deg)
+    position_angle = wrap_degrees(node_deg + np.degrees(np.arctan2(-sin_u * cos_i, -cos_u)))
     rho = None
     if angular_semimajor_axis is not None:
-        rho = angular_semimajor_axis * separation_over_a * np.hypot(np.cos(u), np.sin(u) * cos_i)
+        rho = angular_semimajor_axis * separation_over_a * np.hypot(cos_u, sin_u * cos_i)
     return rho, position_angle
 
 
@@ -140,17 +183,19 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     projected separation and position angle (:func:`sky_position`).
     """
     e = eccentricity
-    omega_rad = np.radians(omega_at(times, omega, t_periastron, omega_dot))
-    phase = cycle_phase(times, period, t_periastron, period_derivative)
-    mean = TWO_PI * phase
+    omega_deg = omega_at(times, omega, t_periastron, omega_dot)
+    # the signed distance to the nearest periastron, so that a date just before one keeps its digits
+    signed = cycle_phase(times, period, t_periastron, period_derivative, signed=True)
+    phase = unsigned_fraction(signed)
+    mean = TWO_PI * signed
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
-    r_over_a = kepler.separation_from_eccentric(ecc, e)
-    v1, v2 = radial_velocities(nu, e, omega_rad, k1, k2, 0.0 if gamma is None else gamma)
+    cos_nu, sin_nu, r_over_a = kepler.true_anomaly_cosine_sine(ecc, e)
+    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma, (cos_nu, sin_nu))
     out = {
         "phase": phase,
-        "mean_anomaly": np.mod(np.degrees(mean), 360.0),
-        "true_anomaly": np.mod(np.degrees(nu), 360.0),
+        "mean_anomaly": wrap_degrees(np.degrees(mean)),
+        "true_anomaly": wrap_degrees(np.degrees(nu)),
         "separation": r_over_a,
         "rv1": v1,
     }
@@ -162,12 +207,12 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     if a is not None:
         out["separation_au"] = a * r_over_a
     if inclination is not None and node is not None:
-        rho, pa = sky_position(nu, r_over_a, omega_rad, np.radians(inclination), node, angular_semimajor_axis)
+        rho, pa = sky_position(nu, r_over_a, omega_deg, inclination, node, angular_semimajor_axis, (cos_nu, sin_nu))
         out["position_angle"] = pa
         if rho is not None:
             out["projected_separation"] = rho
     elif inclination is not None and angular_semimajor_axis is not None:
-        rho, _pa = sky_position(nu, r_over_a, omega_rad, np.radians(inclination), 0.0, angular_semimajor_axis)
+        rho, _pa = sky_position(nu, r_over_a, omega_deg, inclination, 0.0, angular_semimajor_axis, (cos_nu, sin_nu))
         out["projected_separation"] = rho
     return out
 
@@ -192,12 +237,15 @@ def mean_anomaly_derivatives(true_anomaly_rad, eccentricity):
 
     dM/dnu = (1 - e^2)^{3/2} / (1 + e cos nu)^2 (Kepler's second law, r^2 dnu = n a^2 sqrt(1 - e^2) dt);
     dM/de = -sqrt(1 - e^2) sin nu (2 + e cos nu) / (1 + e cos nu)^2, from cos E = (e + cos nu)/(1 + e cos nu)
-    and M = E - e sin E (e.g. Murray & Dermott 1999, *Solar System Dynamics*, ch. 2).
+    and M = E - e sin E (e.g. Murray & Dermott 1999, *Solar System Dynamics*, ch. 2).  1 - e^2 as
+    (1 - e)(1 + e) and 1 + e cos nu as (1 - e) + 2 e cos^2(nu/2), exact at e -> 1.
     """
     e = np.asarray(eccentricity, dtype=float)
-    c = 1.0 + e * np.cos(true_anomaly_rad)
-    d_nu = (1.0 - e * e) ** 1.5 / c**2
-    d_e = -np.sqrt(1.0 - e * e) * np.sin(true_anomaly_rad) * (2.0 + e * np.cos(true_anomaly_rad)) / c**2
+    half = np.cos(0.5 * np.asarray(true_anomaly_rad, dtype=float))
+    c = (1.0 - e) + 2.0 * e * half * half
+    s = (1.0 - e) * (1.0 + e)
+    d_nu = s * np.sqrt(s) / c**2
+    d_e = -np.sqrt(s) * np.sin(true_anomaly_rad) * (2.0 + e * np.cos(true_anomaly_rad)) / c**2
     return d_nu, d_e
 
 
@@ -349,10 +397,16 @@ def roche_lobe_fraction(mass_ratio):
     return 0.49 * q23 / (0.6 * q23 + np.log1p(q13))
 
 
-def vis_viva_speed(total_mass, distance, semimajor_axis):
-    """Relative orbital speed (km/s) at distance r: v^2 = G M (2/r - 1/a) (vis-viva equation)."""
-    gm = GM_SUN * np.asarray(total_mass, dtype=float)
-    return np.sqrt(gm * (2.0 / (distance * AU) - 1.0 / (semimajor_axis * AU))) / 1e3
+def apsidal_speeds(total_mass, semimajor_axis, eccentricity):
+    """Relative orbital speeds (km/s) at periastron and apastron: v^2 = G M (2/r - 1/a) (vis-viva equation).
+
+    At r = a (1 -+ e), 2/r - 1/a = (1 +- e) / (a (1 -+ e)), so v = (G M / a)^{1/2} ((1 +- e)/(1 -+ e))^{1/2}:
+    the difference 2/r - 1/a, which cancels at apastron when e -> 1, is never formed.
+    """
+    e = np.asarray(eccentricity, dtype=float)
+    circular = np.sqrt(GM_SUN * np.asarray(total_mass, dtype=float) / (np.asarray(semimajor_axis, dtype=float) * AU))
+    ratio = np.sqrt((1.0 + e) / (1.0 - e))
+    return circular * ratio / 1e3, circular / ratio / 1e3
 
 
 def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_ratio=None,
@@ -370,8 +424,9 @@ def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_r
         a = semimajor_axis
         total = kepler_total_mass(a, period)
         if mass_ratio is not None:
+            # both from the ratio: total - m1 would cancel for a small q
             m1 = total / (1.0 + mass_ratio)
-            m2 = total - m1
+            m2 = total * mass_ratio / (1.0 + mass_ratio)
     elif m1 is not None and (m2 is not None or mass_ratio is not None):
         if m2 is None:
             m2 = mass_ratio * m1
@@ -381,13 +436,14 @@ def geometry(period, eccentricity, m1=None, m2=None, semimajor_axis=None, mass_r
         return out
     peri = a * (1.0 - e)
     apo = a * (1.0 + e)
+    speed_periastron, speed_apastron = apsidal_speeds(total, a, e)
     out.update({
         "semimajor_axis": a,
         "total_mass": total,
         "periastron_distance": peri,
         "apastron_distance": apo,
-        "speed_periastron": vis_viva_speed(total, peri, a),
-        "speed_apastron": vis_viva_speed(total, apo, a),
+        "speed_periastron": speed_periastron,
+        "speed_apastron": speed_apastron,
     })
     if m1 is None or m2 is None:
         return out
@@ -418,15 +474,16 @@ _HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
 _MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
 
 
-def projected_separation(true_anomaly_rad, eccentricity, omega_rad, inclination_rad):
+def projected_separation(true_anomaly_rad, eccentricity, omega_deg, inclination_deg):
     """Separation of the stars on the sky in units of a: rho/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega)).
 
     From rho = r sqrt(cos^2 u + sin^2 u cos^2 i) with u = nu + omega (+ 180 deg for the relative orbit, which
-    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2).
+    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2), in that
+    form (not 1 - sin^2 i sin^2 u, which cancels at mid-eclipse of an edge-on orbit), with omega's and i's sines
+    and cosines in degrees (:mod:`.angles`).
     """
-    s2 = np.sin(inclination_rad) ** 2
-    return kepler.separation(true_anomaly_rad, eccentricity) * np.sqrt(
-        np.maximum(1.0 - s2 * np.sin(true_anomaly_rad + omega_rad) ** 2, 0.0))
+    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
+    return kepler.separation(true_anomaly_rad, eccentricity) * np.hypot(cos_u, sin_u * cos_degrees(inclination_deg))
 
 
 def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
@@ -497,7 +554,7 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
     for star in (1, 2):
         phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination,
                                                                 apsidal_rate_per_mean_anomaly(omega_dot, period))
-        rho = projected_separation(nu, eccentricity, np.radians(omega), np.radians(inclination))
+        rho = projected_separation(nu, eccentricity, omega, inclination)
         out[f"mid_eclipse_phase{star}"] = phase
         out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
         out[f"minimum_separation{star}_over_a"] = rho

@@ -12,19 +12,31 @@ from __future__ import annotations
 import numpy as np
 
 from ..constants import AU, AU_KM, GM_SUN, SECONDS_PER_DAY, TWO_PI
+from .angles import cos_degrees, sin_degrees
 
 #: f(M) = MASS_FUNCTION_COEFFICIENT * (1 - e^2)^{3/2} K^3 P  [solMass, K in km/s, P in d]
 MASS_FUNCTION_COEFFICIENT = SECONDS_PER_DAY * 1e9 / (TWO_PI * GM_SUN)
 #: a sin i = PROJECTED_AXIS_COEFFICIENT_KM * (1 - e^2)^{1/2} K P  [km]
 PROJECTED_AXIS_COEFFICIENT_KM = SECONDS_PER_DAY / TWO_PI
+#: a = KEPLER_AXIS_COEFFICIENT * M^{1/3} (P / 1 d)^{2/3} [au]: (GM_sun (1 d)^2 / (4 pi^2))^{1/3} / au
+KEPLER_AXIS_COEFFICIENT = float(np.cbrt(GM_SUN * SECONDS_PER_DAY**2 / TWO_PI**2) / AU)
+
+
+def one_minus_e_squared(eccentricity):
+    """1 - e^2 as (1 - e)(1 + e): 1 - e is exact for e >= 1/2, so no digit is lost as e -> 1
+    (1 - e*e rounds e^2 first: 5e-12 relative error at e = 0.99999)."""
+    e = np.asarray(eccentricity, dtype=float)
+    return (1.0 - e) * (1.0 + e)
 
 
 def mass_function(period, k1, eccentricity):
     """Spectroscopic mass function f(M) = M2^3 sin^3 i / (M1 + M2)^2 (solMass).
 
-    f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G)   (Hilditch 2001, eq. 2.51).
+    f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G)   (Hilditch 2001, eq. 2.51), the period first so that
+    no partial product leaves the range of a double before the result does.
     """
-    return MASS_FUNCTION_COEFFICIENT * (1.0 - eccentricity**2) ** 1.5 * k1**3 * period
+    s = one_minus_e_squared(eccentricity)
+    return MASS_FUNCTION_COEFFICIENT * period * s * np.sqrt(s) * k1 * k1 * k1
 
 
 def projected_semimajor_axis(period, k, eccentricity):
@@ -32,7 +44,7 @@ def projected_semimajor_axis(period, k, eccentricity):
 
     a1 sin i = K1 P (1 - e^2)^{1/2} / (2 pi)   (Hilditch 2001, eq. 2.49).
     """
-    return PROJECTED_AXIS_COEFFICIENT_KM * np.sqrt(1.0 - eccentricity**2) * k * period / AU_KM
+    return PROJECTED_AXIS_COEFFICIENT_KM * np.sqrt(one_minus_e_squared(eccentricity)) * k * period / AU_KM
 
 
 def minimum_masses(period, k1, k2, eccentricity):
@@ -40,7 +52,8 @@ def minimum_masses(period, k1, k2, eccentricity):
 
     M1,2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2,1 / (2 pi G)   (Hilditch 2001, eq. 2.52-2.53).
     """
-    common = MASS_FUNCTION_COEFFICIENT * (1.0 - eccentricity**2) ** 1.5 * (k1 + k2) ** 2 * period
+    s = one_minus_e_squared(eccentricity)
+    common = MASS_FUNCTION_COEFFICIENT * period * s * np.sqrt(s) * (k1 + k2) * (k1 + k2)
     return common * k2, common * k1
 
 
@@ -53,6 +66,8 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
     first step the iterates approach the root monotonically from below: convergence is
     guaranteed for every f > 0, M1 > 0, 0 < sin i <= 1, vectorised over all systems.  A system
     stops at its own convergence, so its M2 does not depend on the other systems of the call.
+    A last Newton step in ln M2 on the residual written without logarithms, h = M2^3 sin^3 i / (f (M1 + M2)^2) - 1,
+    takes off the rounding that exp(y) multiplies by |y| (up to 5e-15 relative where M2 is far from 1 solMass).
     """
     f = np.asarray(mass_function_value, dtype=float)
     m1 = np.asarray(primary_mass, dtype=float)
@@ -70,13 +85,23 @@ def companion_mass(mass_function_value, primary_mass, sin_i=1.0, iterations=60):
         done |= ~np.isfinite(step) | (np.abs(step) < 1e-15)
         if done.all():
             break
-    return np.exp(y)
+    m2 = np.exp(y)
+    total = m1 + m2
+    projected = m2 * s
+    share = projected / total
+    residual = share * share * (projected / f) - 1.0         # M2^3 sin^3 i / (f (M1 + M2)^2) - 1, no power or log
+    polished = m2 * (1.0 - residual / (3.0 - 2.0 * m2 / total))
+    return np.where(np.isfinite(polished), polished, m2)
 
 
 def kepler_semimajor_axis(period, total_mass):
-    """Relative semi-major axis a (au) from Kepler's third law, a^3 = GM_sun M P^2 / (4 pi^2)."""
-    seconds = period * SECONDS_PER_DAY
-    return np.cbrt(GM_SUN * total_mass * seconds**2 / TWO_PI**2) / AU
+    """Relative semi-major axis a (au) from Kepler's third law, a^3 = GM_sun M P^2 / (4 pi^2).
+
+    Taken as a = (GM_sun (1 d)^2 / 4 pi^2)^{1/3} M^{1/3} (P/d)^{2/3}: M P^2 itself would leave the range of
+    a double for P beyond 1e150 d or below 1e-150 d.
+    """
+    root = np.cbrt(period)
+    return KEPLER_AXIS_COEFFICIENT * np.cbrt(total_mass) * root * root
 
 
 def kepler_total_mass(semimajor_axis, period):
@@ -85,9 +110,8 @@ def kepler_total_mass(semimajor_axis, period):
     a in au, P in days (Hilditch 2001, *An Introduction to Close Binary Stars*, ch. 2,
     with the IAU 2015 nominal GM_sun).
     """
-    a = semimajor_axis * AU
-    seconds = period * SECONDS_PER_DAY
-    return TWO_PI**2 * a**3 / (GM_SUN * seconds**2)
+    x = semimajor_axis / (KEPLER_AXIS_COEFFICIENT * np.cbrt(period) ** 2)    # (M / solMass)^{1/3}, never out of range
+    return x * x * x
 
 
 def sb1(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
@@ -100,7 +124,7 @@ def sb1(period, k1, eccentricity, primary_mass=None, inclination=None, **_):
         f = out["mass_function"]
         out["m2_min"] = companion_mass(f, primary_mass, 1.0)
         if inclination is not None:
-            sin_i = np.sin(np.radians(inclination))
+            sin_i = sin_degrees(inclination)
             m2 = companion_mass(f, primary_mass, sin_i)
             out["m2"] = m2
             out["mass_ratio"] = m2 / primary_mass
@@ -115,13 +139,13 @@ def sb2(period, k1, k2, eccentricity, inclination=None, **_):
     The formulas of :func:`projected_semimajor_axis` and :func:`minimum_masses`, sharing
     (1 - e^2)^{1/2} and (1 - e^2)^{3/2} = (1 - e^2)(1 - e^2)^{1/2} (catalogues: no pow per element).
     """
-    one_minus_e2 = 1.0 - eccentricity**2
+    one_minus_e2 = one_minus_e_squared(eccentricity)
     root = np.sqrt(one_minus_e2)
     axis_per_k = (PROJECTED_AXIS_COEFFICIENT_KM / AU_KM) * root * period
     a1 = axis_per_k * k1
     a2 = axis_per_k * k2
     ksum = k1 + k2
-    common = MASS_FUNCTION_COEFFICIENT * one_minus_e2 * root * ksum * ksum * period
+    common = MASS_FUNCTION_COEFFICIENT * period * one_minus_e2 * root * ksum * ksum
     m1s, m2s = common * k2, common * k1
     out = {
         "mass_ratio": k1 / k2,
@@ -132,7 +156,7 @@ def sb2(period, k1, k2, eccentricity, inclination=None, **_):
         "a2_sin_i": a2,
     }
     if inclination is not None:
-        sin_i = np.sin(np.radians(inclination))
+        sin_i = sin_degrees(inclination)
         sin3 = sin_i * sin_i * sin_i
         a = (a1 + a2) / sin_i
         out.update({
@@ -162,7 +186,7 @@ def sb2_jacobian(outputs, period, k1, k2, eccentricity, inclination=None, **_):
         d ln (a (1 - e)) / de = -e/s - 1/(1 - e)      d ln (a (1 + e)) / de = -e/s + 1/(1 + e)
 
     an input absent from an output's mapping being one it does not depend on."""
-    half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
+    half = -eccentricity / one_minus_e_squared(eccentricity)   # d ln (1 - e^2)^{1/2} / de
     per_p, per_k1, per_k2 = 1.0 / period, 1.0 / k1, 1.0 / k2
     per_sum = 1.0 / (k1 + k2)
     three_halves = 3.0 * half                                # d ln (1 - e^2)^{3/2} / de
@@ -179,7 +203,7 @@ def sb2_jacobian(outputs, period, k1, k2, eccentricity, inclination=None, **_):
         "a2_sin_i": {"period": per_p, "k2": per_k2, "eccentricity": half},
     }
     if inclination is not None:
-        cot = np.radians(1.0) / np.tan(np.radians(inclination))     # d ln sin i / di, per degree
+        cot = np.radians(1.0) * cos_degrees(inclination) / sin_degrees(inclination)   # d ln sin i / di, per deg
         per_sin3 = -3.0 * cot                                        # d ln (1 / sin^3 i) / di
         sum_cubed = 3.0 * per_sum                                   # d ln (K1 + K2)^3 / dK1,2
         a = {**asi, "inclination": -cot}
@@ -217,7 +241,7 @@ def sb1_jacobian(outputs, period, k1, eccentricity, primary_mass=None, inclinati
     a = (G (M1 + M2) P^2 / 4 pi^2)^{1/3} (Kepler's third law) has
     d ln a / dx = (1/3)(M2 d ln M2/dx + [x = M1]) / (M1 + M2) + (2/3)[x = P] / P;
     a1 = a1 sin i / sin i adds -cot i (pi / 180) per degree."""
-    half = -eccentricity / (1.0 - eccentricity**2)          # d ln (1 - e^2)^{1/2} / de
+    half = -eccentricity / one_minus_e_squared(eccentricity)   # d ln (1 - e^2)^{1/2} / de
     per_p = 1.0 / period
     ln_f = {"period": per_p, "k1": 3.0 / k1, "eccentricity": 3.0 * half}
     logarithmic = {
@@ -237,7 +261,7 @@ def sb1_jacobian(outputs, period, k1, eccentricity, primary_mass=None, inclinati
 
         logarithmic["m2_min"] = companion(outputs["m2_min"])
         if inclination is not None:
-            cot = np.radians(1.0) / np.tan(np.radians(inclination))     # d ln sin i / di, per degree
+            cot = np.radians(1.0) * cos_degrees(inclination) / sin_degrees(inclination)   # d ln sin i / di, per deg
             m2 = outputs["m2"]
             total = primary_mass + m2
             ln_m2 = companion(m2, cot)
