@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from calcservice import create_app
+from tests.test_bad_inputs_round2 import problem
 
 SB1 = "/v1/spectroscopic/sb1"
 SB2 = "/v1/spectroscopic/sb2"
@@ -24,12 +25,6 @@ SMALLEST_NORMAL = 2.2250738585072014e-308
 @pytest.fixture(scope="module")
 def client():
     return create_app().test_client()
-
-
-def problem(r, status):
-    assert r.status_code == status, r.get_data()[:300]
-    assert r.headers["Content-Type"].startswith("application/problem+json")
-    return r.get_json()
 
 
 def test_the_smallest_normal_double_is_what_the_messages_say():
