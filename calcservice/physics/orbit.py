@@ -20,7 +20,7 @@ import numpy as np
 from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR, R_SUN, TWO_PI
 from . import kepler
 from .angles import cos_degrees, sin_cos_degrees, wrap_degrees
-from .exact import two_product, two_sum
+from .exact import elapsed
 from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
 
 AU_IN_SOLAR_RADII = AU / R_SUN
@@ -53,19 +53,14 @@ def elapsed_cycles(time, period, t_periastron, period_derivative=None):
 def period_fraction(time, period, t_periastron):
     """(t - T0)/P split into the nearest whole number of periods n and the signed rest f in [-1/2, 1/2].
 
-    f = (t - T0 - n P) / P with t - T0 and n P carried as exact sums of two doubles (:func:`.exact.two_sum`,
-    :func:`.exact.two_product`), so a date just before or after a periastron passage keeps its distance to
-    it as exactly as the doubles given (frac((t - T0)/P) rounds the quotient first, after 1000 cycles at
-    1e-13 of a cycle, and a phase just below 1 keeps only 1e-16 of a cycle).
+    f = (t - T0 - n P) / P with t - T0 and n P carried as exact sums of two doubles (:func:`.exact.elapsed`),
+    so a date just before or after a periastron passage keeps its distance to it as exactly as the
+    doubles given (frac((t - T0)/P) rounds the quotient first, after 1000 cycles at 1e-13 of a cycle,
+    and a phase just below 1 keeps only 1e-16 of a cycle).
     """
-    t = np.asarray(time, dtype=float)
-    p = np.asarray(period, dtype=float)
-    d, d_low = two_sum(t, -np.asarray(t_periastron, dtype=float))
+    n, rest = elapsed(time, t_periastron, period)
     with np.errstate(invalid="ignore"):
-        n = np.round(d / p)
-        whole, whole_low = two_product(n, p)
-        f = (((d - whole) - whole_low) + d_low) / p
-    return n, f
+        return n, rest / period
 
 
 def cycle_phase(time, period, t_periastron, period_derivative=None, signed=False):

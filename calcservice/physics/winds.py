@@ -21,7 +21,7 @@ from ..constants import (AU, C_LIGHT, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_YEAR,
                          M_SUN, R_SUN, SECONDS_PER_DAY, TWO_PI)
 from . import kepler
 from .angles import cos_degrees, wrap_degrees
-from .exact import two_product, two_sum
+from .exact import elapsed, two_product
 from .spectroscopic import kepler_semimajor_axis
 
 _PI = math.pi
@@ -585,12 +585,11 @@ def shell_forecast(period, formation_epoch, expansion_speed, observation_date, s
     R = v (t - t_n) and its angular radius theta = R / D, i.e.
     theta (arcsec) = v (km/s) (t - t_n) (yr) / (4.74047 D (pc)) with 1 au/yr = 4.74047 km/s (IAU 2012 au,
     Julian year).  Times in JD (days), ``shells`` the whole numbers n (an extra trailing axis).  The age
-    t - t_n = (t - t0) - n P is summed from the exact t - t0 and n P (:func:`.exact.two_sum`,
-    :func:`.exact.two_product`): t0 + n P rounded to a Julian Date first loses 1e-12 of a 100-day age.
+    t - t_n = (t - t0) - n P is summed from the exact t - t0 and n P (:func:`.exact.elapsed`): t0 + n P
+    rounded to a Julian Date first loses 1e-12 of a 100-day age.
     """
     d = distance if distance is not None else 1.0e3 / parallax
-    since, since_low = two_sum(observation_date, -np.asarray(formation_epoch, dtype=float))
-    made, made_low = two_product(shells, period)
-    years = (((since - made) - made_low) + since_low) / DAYS_PER_JULIAN_YEAR
+    _n, age = elapsed(observation_date, formation_epoch, period, shells)
+    years = age / DAYS_PER_JULIAN_YEAR
     radius = expansion_speed * years / KM_S_PER_AU_PER_YEAR
     return {"angular_radius": 1.0e3 * radius / d, "radius": radius, "age": years}
