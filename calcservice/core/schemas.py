@@ -283,7 +283,7 @@ class MeasuredField(_CheckedField):
         if isinstance(value, np.generic):       # a library caller's numpy scalar: the number it holds
             value = value.item()
         one = np.zeros(1)
-        if isinstance(value, (int, float)) and not isinstance(value, bool) and not spec.time:
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
             x = number(value)
             if not spec.domain.holds(x):
                 raise ValidationError(spec.domain.message(spec.unit))
@@ -296,13 +296,6 @@ class MeasuredField(_CheckedField):
             if spec.time:
                 return RawQuantity(np.array([_calendar_jd(value, self.limits)]), one, one, calendar=True, text=value)
             raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
-        if isinstance(value, (int, float)) and not isinstance(value, bool):
-            x = number(value)
-            if not spec.domain.holds(x):
-                raise ValidationError(spec.domain.message(spec.unit))
-            if subnormal(spec, x):
-                raise ValidationError(subnormal_message("value", spec.unit))
-            return RawQuantity(np.array([x]), one, one)
         if not isinstance(value, dict):
             raise ValidationError(FORM_HINT + (' or "isotropic"' if spec.isotropic else ""))
         return self._from_object(value)
