@@ -53,6 +53,14 @@ def reference_canto_raga_wilkin(eta):
 MOMENTUM_RATIOS = [1e-30, 1e-12, 1e-9, 1e-6, 3e-5, 1e-4, 2e-3, 0.01, 0.1, 0.5, 0.9, 0.999999, 1.0]
 
 
+def radio_catalogue(rng: np.random.Generator, n: int, z_rms: float, gamma_e: float) -> dict:
+    """Radio mass-loss columns drawn log-uniform: flux densities from 1 uJy to 10 Jy, frequencies from 0.1 to
+    1000 GHz, distances from 10 pc to 100 kpc, vinf from 10 to 3e4 km/s, temperatures from 3e3 to 1e5 K."""
+    return {"flux_density": list(10 ** rng.uniform(-3, 4, n)), "frequency": list(10 ** rng.uniform(-1, 3, n)),
+            "distance": list(10 ** rng.uniform(-2, 2, n)), "vinf": list(10 ** rng.uniform(1, 4.5, n)),
+            "temperature": list(10 ** rng.uniform(3.5, 5, n)), "mu": 1.3, "z_rms": z_rms, "gamma_e": gamma_e}
+
+
 def test_collision_opening_angles_and_stagnation_point_from_eta_tiny_to_huge():
     rng = np.random.default_rng(5)
     etas = MOMENTUM_RATIOS + [1 / x for x in MOMENTUM_RATIOS[:-1]] + list(10 ** rng.uniform(-12, 12, 20))
@@ -140,9 +148,7 @@ def test_period_change_rates_across_mass_ratios():
 def test_radio_rate_recipes_and_shell_distance_across_their_ranges():
     rng = np.random.default_rng(3)
     n = 12
-    radio = {"flux_density": list(10 ** rng.uniform(-3, 4, n)), "frequency": list(10 ** rng.uniform(-1, 3, n)),
-             "distance": list(10 ** rng.uniform(-2, 2, n)), "vinf": list(10 ** rng.uniform(1, 4.5, n)),
-             "temperature": list(10 ** rng.uniform(3.5, 5, n)), "mu": 1.3, "z_rms": 1.0, "gamma_e": 1.0}
+    radio = radio_catalogue(rng, n, z_rms=1.0, gamma_e=1.0)
     got = compute_batch("mass-loss-radio", {"columns": radio})["columns"]["mass_loss_rate"]["value"]
     worst = 0.0
     for j in range(n):
@@ -272,11 +278,8 @@ def test_radio_photosphere_radius_across_the_range():
     # tau = 1 at the impact parameter p = (pi C / 2)^{1/3}, C = 0.018 T^{-3/2} Z^2 gamma n^2 r^4 g / nu^2 in cgs with
     # n r^2 = Mdot / (4 pi v mu m_H) (Rybicki & Lightman 1979, eq. 5.19b; Wright & Barlow 1975): flux densities
     # from 1 uJy to 10 Jy, frequencies from 0.1 to 1000 GHz
-    rng = np.random.default_rng(31)
     n = 10
-    columns = {"flux_density": list(10 ** rng.uniform(-3, 4, n)), "frequency": list(10 ** rng.uniform(-1, 3, n)),
-               "distance": list(10 ** rng.uniform(-2, 2, n)), "vinf": list(10 ** rng.uniform(1, 4.5, n)),
-               "temperature": list(10 ** rng.uniform(3.5, 5, n)), "mu": 1.3, "z_rms": 1.2, "gamma_e": 1.1}
+    columns = radio_catalogue(np.random.default_rng(31), n, z_rms=1.2, gamma_e=1.1)
     answer = compute_batch("mass-loss-radio", {"columns": columns})
     got = answer["columns"]["radio_photosphere_radius"]["value"]
     constants = compute("mass-loss-radio", {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700.0})[
