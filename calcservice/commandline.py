@@ -319,7 +319,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
 
     from .client import InputTable
     from .columns import column_role, split_unit
-    from .tables import quiet_range_warnings, ragged_rows, table_lines
+    from .tables import is_ecsv, quiet_range_warnings, ragged_rows, table_lines
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
     source: Any = path
@@ -377,7 +377,8 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
                                       f"give it as {role[0]}=v1,v2,... on the command line")
     if fmt in ("ascii.csv", "ascii.ecsv", "ecsv"):
         _check_number_cells(path, table, [name for name in table.colnames if name not in keep],
-                            options.get("delimiter", ","), source if isinstance(source, list) else None)
+                            options.get("delimiter", ","), source if isinstance(source, list) else text.splitlines(),
+                            is_ecsv(text))
     try:
         data = InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
     except ValueError as e:
@@ -428,18 +429,13 @@ def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:
         table[name] = MaskedColumn([fill if v is None else v for v in values], mask=missing)
 
 
-def _check_number_cells(path: str, table, names: list[str], delimiter: str, lines: list[str] | None = None) -> None:
+def _check_number_cells(path: str, table, names: list[str], delimiter: str, lines: list[str], ecsv: bool) -> None:
     """The HTTP path's check of a text table's numbers (:func:`calcservice.tables.check_number_cells`):
     ``0x10`` or ``4_1.6`` in a column astropy read as numbers is refused, naming column and row.
-    ``lines``: the text astropy read (ragged rows emptied), else the file's."""
-    from .tables import TableError, check_number_cells, is_ecsv
+    ``lines``: the text astropy read (ragged rows emptied)."""
+    from .tables import TableError, check_number_cells
     try:
-        with open(path, encoding="utf-8-sig") as fh:
-            text = fh.read()
-    except (OSError, UnicodeDecodeError):
-        return                      # astropy read it; the numbers cannot be looked at again
-    try:
-        check_number_cells(table, lines if lines is not None else text.splitlines(), is_ecsv(text), names, delimiter)
+        check_number_cells(table, lines, ecsv, names, delimiter)
     except TableError as e:
         field, messages = next(iter(e.errors.items()))
         raise UsageError(field, f"{' '.join(messages)} ({path})") from None
