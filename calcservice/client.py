@@ -576,7 +576,7 @@ class Client:
         per = self._rows_per_request(opts)
         max_bytes = self.limits()["max_body_bytes"]
         parts: list[tuple[int, int, Any]] = []
-        start, drawing = 0, False
+        start = 0
         while start < n:
             stop = min(n, start + per)
             body = encode(start, stop)
@@ -588,11 +588,8 @@ class Client:
             try:
                 answer = post(body)
             except CalcServiceError as e:
-                if drawing or e.status != 413 or (e.limit or {}).get("name") != "max_batch_draws":
-                    raise
-                drawing = True
-                per = min(per, self._rows_per_request(monte_carlo_options(opts)))
-                if per >= stop - start:
+                per = slice_for_draws(e, stop - start, self.limits(), opts)
+                if per is None:
                     raise
                 continue
             parts.append((start, stop, answer))
@@ -667,9 +664,17 @@ class Client:
         return merge_results(parts, len(rows))
 
 
-def monte_carlo_options(opts: Mapping[str, Any]) -> dict:
-    """``opts`` with the Monte Carlo method: for systems that draw whatever the options say."""
-    return {**opts, "uncertainty": {**(opts.get("uncertainty") or {}), "method": "monte_carlo"}}
+def slice_for_draws(error, sent: int, limits: Mapping[str, int], opts: Mapping[str, Any]) -> int | None:
+    """The smaller slice to send again after ``error`` refused a slice of ``sent`` systems for its
+    Monte Carlo draws (413, ``max_batch_draws``): systems may draw whatever the options say (an
+    inclination "isotropic", inputs given as samples), which the service knows and a caller does not
+    guess, so the slices are cut for the draws of a Monte Carlo request.  None for any other error, or
+    where such a slice is no smaller (the refusal stands)."""
+    if error.status != 413 or (error.limit or {}).get("name") != "max_batch_draws":
+        return None
+    mc = {**opts, "uncertainty": {**(opts.get("uncertainty") or {}), "method": "monte_carlo"}}
+    per = rows_per_request(limits, mc)
+    return per if per < sent else None
 
 
 def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
@@ -1168,4 +1173,4 @@ def _problem_error(status: int, payload: bytes, method: str, path: str, sent: in
 
 __all__ = ["Client", "CalcServiceError", "InvalidInput", "ServiceUnavailable", "Result", "BatchResult", "InputTable", "USER_AGENT",
            "DEFAULT_LIMITS", "problem_text", "problem_reason", "dumps",
-           "rows_per_request", "monte_carlo_options", "from_columns_answer", "merge_results"]
+           "rows_per_request", "slice_for_draws", "from_columns_answer", "merge_results"]

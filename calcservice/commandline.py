@@ -455,7 +455,7 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
 
     import orjson
 
-    from .client import dumps, from_columns_answer, merge_results, monte_carlo_options, rows_per_request
+    from .client import dumps, from_columns_answer, merge_results, rows_per_request, slice_for_draws
     n = data.count
     per = rows_per_request(asdict(limits), options)
     if progress is None:
@@ -472,7 +472,7 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
         except ImportError:
             pass
     parts = []
-    start, drawing = 0, False
+    start = 0
     try:
         while start < n:
             stop = min(n, start + per)
@@ -482,13 +482,8 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
             try:
                 answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits, refused)
             except Problem as p:
-                # systems that draw whatever the options say ("isotropic", samples): slices for Monte
-                # Carlo's draws, as the client cuts them (Client._sliced)
-                if drawing or p.status != 413 or (p.limit or {}).get("name") != "max_batch_draws":
-                    raise
-                drawing = True
-                per = min(per, rows_per_request(asdict(limits), monte_carlo_options(options)))
-                if per >= stop - start:
+                per = slice_for_draws(p, stop - start, asdict(limits), options)     # as the client cuts them
+                if per is None:
                     raise
                 continue
             parts.append((start, stop, from_columns_answer(answer, stop - start)))
