@@ -84,7 +84,7 @@ def test_a_subnormal_input_in_a_batch_is_that_systems_error_in_every_body(client
 
 
 def test_an_output_that_underflows_from_normal_inputs_is_warned_naming_it(client):
-    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2): K1 = 1e-110 km/s cubes to
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2, from memory): K1 = 1e-110 km/s cubes to
     # 1e-330 (km/s)^3, below every double; a1 sin i = K1 P / (2 pi) stays a normal 9.2e-118 au
     r = client.post(SB1, json={"period": 1e-3, "k1": {"value": 1e-110, "sigma": 1e-111}, "eccentricity": 0})
     assert r.status_code == 200
@@ -116,7 +116,7 @@ def test_underflow_is_warned_per_system_in_a_batch(client):
 
 
 def test_an_output_unit_that_takes_a_value_below_a_double_is_refused_naming_it(client):
-    # a1 sin i = K1 P / (2 pi) (Hilditch 2001, ch. 2) ~ 9.2e-104 au for K1 = 1e-100 km/s, P = 10 d;
+    # a1 sin i = K1 P / (2 pi) (Hilditch 2001, ch. 2, from memory) ~ 9.2e-104 au for K1 = 1e-100 km/s, P = 10 d;
     # in units of 1e210 au it is ~9e-314, a subnormal
     body = {"period": 10, "k1": {"value": 1e-100, "sigma": 1e-101}, "eccentricity": 0,
             "units": {"a1_sin_i": "1e210 au"}}
@@ -133,7 +133,7 @@ def test_an_output_unit_that_takes_a_value_below_a_double_is_refused_naming_it(c
 # --- 2. a system whose inputs give an output beyond a double -----------------------------------
 
 def test_an_output_overflowing_because_of_one_input_is_keyed_by_that_input(client):
-    # a1 sin i = K1 P / (2 pi) (Hilditch 2001, ch. 2): P = 3e303 d, K1 = 10 km/s make ~4e309 km, beyond a
+    # a1 sin i = K1 P / (2 pi) (Hilditch 2001, ch. 2, from memory): P = 3e303 d, K1 = 10 km/s make ~4e309 km, beyond a
     # double; the period alone put back to an ordinary one makes it finite, so the period is at fault
     body = {"period": {"value": 3, "unit": "1e303 d"}, "k1": 10, "eccentricity": 0}
     p = problem(client.post(SB1, json=body), 422)
@@ -177,7 +177,7 @@ def test_a_ragged_csv_row_is_that_systems_error_in_place(client):
         (0, {"_row": [ragged_message(0, 2)]}), (2, {"_row": [ragged_message(2, 4)]})]
     value = answer["columns"]["mass_function"]["value"]
     assert value[0] is None and value[2] is None
-    # f(M) = P K^3 (1 - e^2)^1.5 / (2 pi G) (Hilditch 2001, ch. 2), with astropy's constants
+    # f(M) = P K^3 (1 - e^2)^1.5 / (2 pi G) (Hilditch 2001, ch. 2, from memory), with astropy's constants
     import astropy.constants as const
     expected = (41.6 * u.d * (23.4 * u.km / u.s) ** 3 * (1 - 0.31 ** 2) ** 1.5
                 / (2 * np.pi * const.G)).to_value(u.M_sun)
@@ -295,7 +295,7 @@ def test_accepts_that_take_the_answer_are_answered(client, accept, query, answer
     r = client.post(SB2 + query, json=SB2_BODY, headers={"Accept": accept} if accept else {})
     assert r.status_code == 200 and r.mimetype == answered
     if answered == "application/json":
-        # q = K1/K2 (Hilditch 2001, ch. 2)
+        # q = K1/K2 (Hilditch 2001, ch. 2, from memory)
         assert r.get_json()["results"]["mass_ratio"]["value"] == pytest.approx(38.2 / 51.7, rel=1e-12)
 
 

@@ -9,6 +9,7 @@ G^2)/2, v = AG - BF, a^2 = u + (u^2 - v^2)^{1/2}, cos i = v / a^2, w + W = atan2
 F, A - G) (W. D. Heintz 1978, *Double Stars*, ch. 4; from memory); the astrometric mass function
 f = 4 pi^2 alpha^3 / (G M_sun P^2) = (M1 + M2)(B - beta)^3, B = M2/(M1 + M2) (P. van de Kamp 1967, *Principles of
 Astrometry*); the mass function of an SB1 (Hilditch 2001, eq. 2.51).  Constants from provenance.constants.
+The formulas, papers and equation numbers cited here are from memory.
 """
 
 import mpmath as mp

@@ -6,6 +6,7 @@ true anomaly of each event, t = T0 + P (n + M(nu)/2 pi) with M = E - e sin E, ta
 tan(nu/2) (Murray & Dermott 1999, eq. 2.46, 2.52); conjunctions at nu + omega = 90 and 270 deg, RV extrema at
 nu + omega = 0 and 180 deg (Hilditch 2001, *An Introduction to Close Binary Stars*, eq. 2.45).
 Constants from provenance.constants.
+The formulas, papers and equation numbers cited here are from memory.
 """
 
 import mpmath as mp

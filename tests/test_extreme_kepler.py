@@ -6,6 +6,7 @@ eq. 2.52), solved by Newton's method from an upper bound of the root (E - e sin 
 so the iterates fall monotonically onto it); tan(nu/2) = sqrt((1 + e)/(1 - e)) tan(E/2) (their eq. 2.46);
 r/a = 1 - e cos E = (1 - e^2)/(1 + e cos nu); v = K (cos(nu + omega) + e cos omega) (Hilditch 2001,
 *An Introduction to Close Binary Stars*, eq. 2.45).
+The formulas, papers and equation numbers cited here are from memory.
 """
 
 import mpmath as mp

@@ -7,6 +7,7 @@ M1,2 sin^3 i = P (1 - e^2)^{3/2} (K1 + K2)^2 K2,1 / (2 pi G M_sun) (eqs. 2.52-2.
 M2^3 sin^3 i / (M1 + M2)^2 = f(M) (found here by bisection at 50 digits), and Kepler's third law
 a^3 = G M_sun (M1 + M2) P^2 / (4 pi^2).  Constants: the values the service states in provenance.constants
 (IAU 2015 Resolution B3 GM_sun, IAU 2012 Resolution B2 au), so that a difference is a formula difference.
+The formulas, papers and equation numbers cited here are from memory.
 """
 
 import mpmath as mp

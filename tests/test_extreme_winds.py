@@ -11,6 +11,7 @@ from the published formulas:
 - Wright & Barlow (1975), MNRAS 170, 41, eq. 8 with the Gaunt factor of Leitherer & Robert (1991), ApJ 377, 629;
 - the expansion parallax D = v P / s with 1 au/yr in km/s from the au (IAU 2012 B2) and the Julian year.
 Constants from provenance.constants.
+The formulas, papers and equation numbers cited here are from memory.
 """
 
 import mpmath as mp
