@@ -39,6 +39,11 @@ def needed(unit: u.UnitBase) -> str:
     return f"a {name} unit"
 
 
+def _unscaled(unit: u.UnitBase) -> u.UnitBase:
+    """``unit`` without its numeric scale ('1e305 d' -> 'd')."""
+    return u.CompositeUnit(1, unit.bases, unit.powers)
+
+
 @lru_cache(maxsize=4096)
 def factor(from_unit: str, to_unit: str) -> float:
     """The number that turns a value in ``from_unit`` into ``to_unit`` (a plain scale factor).
@@ -51,8 +56,13 @@ def factor(from_unit: str, to_unit: str) -> float:
     except u.UnitConversionError:
         raise UnitError(f"unit {from_unit!r} cannot be converted to {to_unit or 'dimensionless'!r} "
                         f"({needed(b)} is needed)") from None
+    if k in (0.0, float("inf")) and a.scale != 0:
+        # astropy goes through SI: '1e305 d' is 8.64e309 s on the way, though 2.7e302 yr; so the
+        # units' own scales are applied last
+        k = float(a.scale / b.scale * _unscaled(a).to(_unscaled(b)))
     if not 0.0 < k < float("inf"):
         # '-1*au' would flip signs, '1e400*au' is infinite: no unit a measurement is given in
-        raise UnitError(f"unit {from_unit!r} is {k:g} {to_unit or 'dimensionless'!r}: a unit must be a positive, "
-                        "finite multiple of another")
+        size = {0.0: "below the smallest double", float("inf"): "beyond the largest double"}.get(k, f"{k:g}")
+        raise UnitError(f"unit {from_unit!r} is {size} in {to_unit or 'dimensionless'!r}: a unit must be a "
+                        "positive, finite multiple of another")
     return k

@@ -82,6 +82,23 @@ def test_a_unit_must_be_a_positive_finite_multiple(text):
         factor("au", text)
 
 
+def test_a_scale_beyond_si_but_within_a_double_is_taken(client):
+    # astropy converts through SI, where 1e305 d is 8.64e309 s (beyond a double), though it is
+    # 1e305 / 365.25 Julian years (IAU: 1 a = 365.25 d of 86400 s) and 1e300 au is 1.495978707e308 km
+    # (IAU 2012 Resolution B2: 1 au = 149 597 870 700 m)
+    assert factor("1e305 d", "d") == 1e305
+    assert factor("1e305 d", "yr") == pytest.approx(1e305 / 365.25, rel=1e-15)
+    assert factor("1e300 au", "km") == pytest.approx(1.495978707e308, rel=1e-15)
+    with pytest.raises(UnitError, match="beyond the largest double in 's'"):
+        factor("1e305 d", "s")
+    # over HTTP, a period of 1e-300 in units of 1e305 d is one of 1e5 d
+    scaled = post(client, "/v1/spectroscopic/sb1", {**SB1, "period": {"value": 1e-300, "unit": "1e305 d"}})
+    plain = post(client, "/v1/spectroscopic/sb1", {**SB1, "period": 1e5})
+    assert scaled[0] == 200
+    assert scaled[1]["results"]["mass_function"]["value"] == pytest.approx(
+        plain[1]["results"]["mass_function"]["value"], rel=1e-14)
+
+
 def test_logarithmic_and_negative_units_over_http_name_the_field(client):
     body = {"period": 41.6, "k1": {"value": 1.58, "unit": "dex(km/s)"}, "k2": 51.7, "eccentricity": 0.31}
     status, doc = post(client, "/v1/spectroscopic/sb2", body)
