@@ -281,7 +281,8 @@ class BatchResult(dict):
         df.attrs["units"] = units
         return df
 
-    def _repr_html_(self, limit: int = 20) -> str:
+    def _summary(self, limit: int) -> tuple[str, list[str], list[list[str]]]:
+        """Title, header and the first ``limit`` rows (value ± sigma per scalar output, then the error) of both reprs."""
         names = [n for n in self if np.ndim(self[n]) == 1]
         rows = []
         errors = self.error_text()
@@ -292,7 +293,19 @@ class BatchResult(dict):
         more = f", first {limit} shown" if self.count > limit else ""
         title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
                  f"{len(self.failed)} failed{more}")
-        return _html_table(title, header, rows)
+        return title, header, rows
+
+    def _repr_html_(self, limit: int = 20) -> str:
+        return _html_table(*self._summary(limit))
+
+    def __repr__(self) -> str:
+        """The first systems as a text table, value ± sigma (the arrays are the mapping's values)."""
+        title, header, rows = self._summary(10)
+        if not any(r[-1] for r in rows):
+            header, rows = header[:-1], [r[:-1] for r in rows]        # no error column when none failed
+        widths = [max(len(c) for c in column) for column in zip(header, *rows)]
+        lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in [header, *rows]]
+        return "\n".join([f"<BatchResult {title}>", *lines])
 
 
 def _json_text(x) -> str:

@@ -232,6 +232,18 @@ def test_batch_repr_html_is_a_small_table(svc):
     assert html.count("<tr>") == 5 and "eccentricity" in html and "1 failed" in html
 
 
+def test_batch_repr_is_a_text_table_of_values_and_sigmas(svc):
+    # at a terminal a batch reads as value ± sigma per system, not as bare arrays of values
+    out = svc.batch("sb1", {"period": {"value": PERIOD, "sigma": [0.02] * 4}, "k1": K1,
+                            "eccentricity": [0.3, 0.1, 2.0, 0.2]})
+    lines = repr(out).splitlines()
+    assert lines[0] == "<BatchResult sb1: 4 systems, 1 failed>" and len(lines) == 6
+    assert lines[1].split()[:3] == ["#", "mass_function", "[solMass]"] and lines[1].endswith("error")
+    mf, sigma = out["mass_function"][0], out.sigma["mass_function"][0]
+    assert f"{mf:.6g} ± {sigma:.2g}" in lines[2]
+    assert "eccentricity" in lines[4] and "—" in lines[4]
+
+
 def test_correlated_outputs_agree_with_uncertainties(svc):
     """Needs the service's output correlation (``covariance: true``, WIRE.md)."""
     from uncertainties import correlation_matrix, ufloat
