@@ -125,6 +125,16 @@ def test_a_gigabyte_bomb_is_413_without_the_memory(client):
     assert elapsed < 20
 
 
+@pytest.mark.parametrize("offered, zipped", [("*", True), ("identity, *;q=0.5", True), ("gzip;q=0", False),
+                                              ("GZIP", True), ("br", False), ("gzip;q=0, *", False)])
+def test_accept_encoding_is_read_as_rfc_9110_says(client, offered, zipped):
+    # RFC 9110 sec. 12.5.3: codings are case-insensitive, "*" takes any coding not listed, q=0 refuses one
+    r = client.post("/v1/batch/sb2", json=columns(200), headers={"Accept-Encoding": offered})
+    assert r.status_code == 200 and (r.headers.get("Content-Encoding") == "gzip") is zipped
+    # one Vary field naming both headers the answer depends on
+    assert [v.strip() for v in r.headers["Vary"].split(",")] == ["Accept", "Accept-Encoding"]
+
+
 def test_answers_are_gzipped_above_the_threshold_when_accepted(client):
     big = client.post("/v1/batch/sb2", json=columns(200))
     assert big.status_code == 200 and "Content-Encoding" not in big.headers
