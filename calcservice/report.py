@@ -343,16 +343,32 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     if entry.get("samples"):
         p = printed(v, sigma=entry.get("sigma"))
         return style.number(p) + style.text(f" (median and sd of {entry['samples']} samples)")
-    full = 10
     if "sigma_minus" in entry:
-        p = Printed(_exact(v, full).value, plus=_exact(entry["sigma_plus"], full).value,
-                    minus=_exact(entry["sigma_minus"], full).value)
-        return style.number(p)
+        return style.number(as_given(v, minus=entry["sigma_minus"], plus=entry["sigma_plus"]))
     s = entry.get("sigma")
     if _finite(s) and s > 0:
-        return style.number(Printed(format(v, ".12g"), sigma=format(s, ".12g")))
-    text = style.number(Printed(format(v, ".12g")))
-    return text + (style.text(" (default)") if entry.get("default") else "")
+        return style.number(as_given(v, sigma=s))
+    return style.number(as_given(v)) + (style.text(" (default)") if entry.get("default") else "")
+
+
+def as_given(value: float, sigma: float | None = None, minus: float | None = None,
+             plus: float | None = None) -> Printed:
+    """An input's numbers as the caller gave them (every digit, never rounded), over one power of ten
+    as a result's are, the value padded with zeros to the decimals of its errors: 41.6 and 0.02
+    print as 41.60 ± 0.02, 2e-05 +3e-06 -1e-06 as (2.0 +0.3 -0.1) x 10^-5."""
+    given = {k: x for k, x in (("value", value), ("sigma", sigma), ("minus", minus), ("plus", plus))
+             if _finite(x)}
+    exponent = _exponent_for(max(abs(x) for x in given.values()))
+    with localcontext(_CONTEXT):
+        digits = {k: _decimal(abs(x) if x == 0 else x).normalize().scaleb(-exponent) for k, x in given.items()}
+        places = max(max(0, -d.as_tuple().exponent) for d in digits.values())
+        value = digits.pop("value").quantize(Decimal(1).scaleb(-places))
+        text = {k: format(d, "f") for k, d in digits.items()}
+    if "minus" in text and text["minus"] == text.get("plus"):
+        text["sigma"] = text.pop("plus")
+        del text["minus"]
+    return Printed(format(value, "f"), sigma=text.get("sigma"), plus=text.get("plus"), minus=text.get("minus"),
+                   exponent=exponent)
 
 
 def _references_of(calc: Calculation | None, output_name: str, references: list[str]) -> list[int]:

@@ -174,3 +174,23 @@ def test_report_of_a_time_series_lists_events():
     response = compute("ephemeris", calc.example)
     text = report(response, calc, "text")
     assert "Series" in text and "events: periastron" in text.lower()
+
+
+def test_inputs_print_every_digit_given_over_one_power_of_ten(client):
+    # an input is the caller's own numbers: not rounded, but written as a result is, one power of ten
+    # for value and errors and the value's decimals padded to its errors' (41.6 ± 0.02 is 41.60 ± 0.02)
+    body = {"mdot1": {"value": 2e-5, "sigma_minus": 1e-6, "sigma_plus": 3e-6}, "mdot2": {"value": 1e-6, "sigma": 2e-7},
+            "vinf1": {"value": 2800, "sigma_minus": 100, "sigma_plus": 150}, "vinf2": {"value": 1000.5, "sigma": 0.25},
+            "separation": {"value": 41.6, "sigma": 0.02}}
+    md = client.post("/v1/winds/collision?format=markdown", json=body).get_data(as_text=True)
+    inputs = md.split("### Inputs")[1].split("###")[0]
+    rows = {line.split("|")[1].strip(" `"): line.split("|")[2].strip() for line in inputs.splitlines()
+            if line.startswith("| `")}
+    # the asymmetric errors used to lose their power of ten: "2 +3 / −1"
+    assert rows["mdot1"] == "(2.0 +0.3 / −0.1) × 10<sup>-5</sup>"
+    assert rows["mdot2"] == "(1.0 ± 0.2) × 10<sup>-6</sup>"
+    assert rows["vinf1"] == "2800 +150 / −100"
+    assert rows["vinf2"] == "1000.50 ± 0.25"
+    assert rows["separation"] == "41.60 ± 0.02"
+    latex = client.post("/v1/winds/collision?format=latex", json=body).get_data(as_text=True)
+    assert r"$(2.0^{+0.3}_{-0.1}) \times 10^{-5}$" in latex

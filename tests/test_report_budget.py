@@ -135,11 +135,12 @@ def test_a_bad_budget_flag_is_still_refused(client):
 def _mjd_example():
     calc = calculations()["mid-eclipse"]
     body = dict(calc.example)
-    # the example's dates as MJD = JD - 2400000.5 (IAU 1973; astropy.time's "mjd" format)
+    # the example's dates as MJD = JD - 2400000.5 (IAU 1973; astropy.time's "mjd" format), to the
+    # example's own decimals, as a caller types them (the subtraction's last bits are not a date's)
     for name in ("t_periastron", "after"):
         entry = body[name]
-        body[name] = ({**entry, "value": entry["value"] - 2400000.5} if isinstance(entry, dict)
-                      else entry - 2400000.5)
+        body[name] = ({**entry, "value": round(entry["value"] - 2400000.5, 6)} if isinstance(entry, dict)
+                      else round(entry - 2400000.5, 6))
     return calc, body
 
 
