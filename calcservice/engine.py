@@ -538,23 +538,31 @@ def _differences(pl: Plan, given, y, m: int, flips=None):
 
 RESOLVED = 1e6       # a difference this many roundings of its output above them is a derivative to ~1e-6
 KINK_STEPS = 16      # the longer step that tells a kink from an extremum (see _stencil_terms)
-BEND = 2e-5          # the bend over a step above which it is shortened (see _refine)
+BEND = 1e-4          # the bend over a step above which it is shortened (see _refine)
+BENT = 1e-5          # the bend it is shortened to
 REFINEMENTS = 2      # how many times at most
 SHORTEST = 1.0 / 4096    # the most a step is shortened at once
 
 
-def _bend(up, down, f0, period, wraps, m: int, n: int) -> np.ndarray:
-    """The largest bend of any output over each input's step (m, n): |up - down| / |up + down|, the
-    second difference over the first, ~ h |f''| / 2 |f'|.  Counted only where the output moves the
-    same way on both sides by more than BEND of its own scale (|f|, or period / 2 pi for an angle)
-    and the bend stands above the rounding of the three values: near an extremum the bend is large
-    because f' is small, not because the step is long, and a shorter step there only adds rounding."""
-    scale = np.where(wraps, period / (2.0 * np.pi), np.abs(f0))
+def _bend(up, down, f0, period, wraps, m: int, n: int) -> tuple[np.ndarray, np.ndarray | None]:
+    """Where some output bends by more than BEND over an input's step (m, n), and by how much at most
+    there (None where none does).  The bend is |up - down| / |up + down|, the second difference over the
+    first, ~ h |f''| / 2 |f'|.  It counts only where the output moves the same way on both sides by
+    more than BEND of its own scale (|f|, or period / 2 pi for an angle) and stands above the rounding
+    of the three values: near an extremum the bend is large because f' is small, not because the step
+    is long, and a shorter step there only adds rounding."""
     first = np.abs(up + down)
     second = np.abs(up - down)
-    counted = (up * down > 0) & (first > BEND * scale) & (second > 1024 * np.finfo(float).eps * scale)
-    ratio = np.where(counted, second / np.where(counted, first, 1.0), 0.0)
-    return ratio.reshape(ratio.shape[0], m, n, -1).max(axis=(0, 3))
+    bent = second > BEND * first
+    if not bent.any():                  # the common case, a function that varies on the scale of its inputs
+        return None, None
+    scale = np.where(wraps, period / (2.0 * np.pi), np.abs(f0)) if wraps.any() else np.abs(f0)
+    bent &= (first > BEND * scale) & (up * down > 0) & (second > 1024 * np.finfo(float).eps * scale)
+    need = bent.reshape(bent.shape[0], m, n, -1).any(axis=(0, 3))
+    if not need.any():
+        return need, None
+    ratio = np.where(bent, second / np.where(bent, first, 1.0), 0.0)
+    return need, ratio.reshape(ratio.shape[0], m, n, -1).max(axis=(0, 3))
 
 
 def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
@@ -565,21 +573,20 @@ def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
     shows.  The first step, 1e-5 of the input's scale (:func:`_steps`), has a bend ~1e-5 for a
     power law of that input; a period stepped by 1e-5 of itself moves the phase after N cycles by
     1e-5 N, and the stencil bends by as much.  Where some output bends by more than BEND (a
-    truncation of ~ BEND^2 of the derivative), the input's step is shortened to bend by about
-    BEND / 2, in another physics call over the systems and inputs concerned, at most REFINEMENTS
-    times.  Near an extremum of one output (f' ~ 0) the bend says nothing of the step, and is not
+    truncation of ~ BEND^2 of the derivative; a power law x^p bends by 1e-5 |p - 1| / 2), the
+    input's step is shortened to bend by about BENT, in another physics call over the systems and
+    inputs concerned (1 + 2 of them points), at most REFINEMENTS times.  Near an extremum of one output (f' ~ 0) the bend says nothing of the step, and is not
     counted (see :func:`_bend`)."""
     up, down, far_up, far_down, period, wraps, _ = diffs
     m, n = h.shape
     for _ in range(REFINEMENTS):
-        bend = _bend(up, down, f0, period, wraps, m, n)
-        need = bend > BEND
-        if not need.any():
+        need, bend = _bend(up, down, f0, period, wraps, m, n)
+        if bend is None:
             break
         sel = np.flatnonzero(need.any(axis=1))
         systems = np.flatnonzero(need.any(axis=0))
         where = np.ix_(sel, systems)
-        shrink = np.clip(0.5 * BEND / np.where(need, bend, 1.0), SHORTEST, 1.0)
+        shrink = np.clip(BENT / np.where(need, bend, 1.0), SHORTEST, 1.0)
         short = _representable(xj, h * shrink)[where]
         _, y2, flips2 = _stencil(pl, x[:, systems], xj[where], short, statics, trail, sel)
         up2, down2, far_up2, far_down2, _, _, _ = _differences(pl, given, y2, len(sel), flips2)
