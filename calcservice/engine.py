@@ -49,6 +49,7 @@ TIME_STEP = 1e-4                     # days per day of a time input's sigma (at 
 LINEAR_TRUST_LIMIT = 0.2             # relative sigma (an angle: second-order over first-order term)
                                      # above which linear propagation is suspect
 _FLOAT = np.dtype(float)
+DEGREES_PER_RADIAN = 180.0 / np.pi     # the scale on which an angle's sines and cosines vary
 
 
 class EngineError(ValueError):
@@ -307,6 +308,7 @@ class Plan:
     fill_cols: np.ndarray       # (WIDTH m,) its column
     open_low: np.ndarray        # (m, 1) the open domain bounds (-inf, inf where a bound is closed or absent)
     open_high: np.ndarray
+    angle: np.ndarray           # (m, 1) which are angles in degrees
     _periods: dict = field(default_factory=dict, repr=False)
 
     def inside(self, values: np.ndarray) -> np.ndarray:
@@ -348,9 +350,10 @@ def plan(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) 
     high = np.array([np.nextafter(d.high, -np.inf) if d.high_open else d.high for d in doms], dtype=float)[:, None]
     open_low = np.array([d.low if d.low_open else -np.inf for d in doms], dtype=float)[:, None]
     open_high = np.array([d.high if d.high_open else np.inf for d in doms], dtype=float)[:, None]
+    angle = np.array([calc.input(name).unit == "deg" for name in perturbed], dtype=bool)[:, None]
     p = Plan(calc, names, perturbed, rows, time, bool(time.any()), low, high, np.tile(rows, WIDTH),
-             1 + np.arange(WIDTH * len(perturbed)), open_low, open_high)
-    for a in (p.rows, p.time, p.low, p.high, p.fill_rows, p.fill_cols, p.open_low, p.open_high):
+             1 + np.arange(WIDTH * len(perturbed)), open_low, open_high, angle)
+    for a in (p.rows, p.time, p.low, p.high, p.fill_rows, p.fill_cols, p.open_low, p.open_high, p.angle):
         a.flags.writeable = False
     return p
 
@@ -362,11 +365,14 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     A central difference errs by its truncation, ~ h^2 |f'''| / 6, and by the rounding of the
     function values over 2h, ~ eps |f| / h: for a function that varies on the scale of its input
     both are ~1e-10 of the derivative at h ~ eps^(1/3) |x| ~ 1e-5 |x| (Press et al., Numerical
-    Recipes, sec. 5.7).  So the step is 1e-5 of the input's scale: |x|, or its sigma where that is
-    larger (an angle of 0.01 deg or a Thiele-Innes constant near 0, whose zero means nothing to the
-    formula), but no more than the distance to an open bound of the domain, where the formula has
-    no value and varies on the scale of that distance (e -> 1, i -> 0 or 180 deg, v -> c, x -> 0 of
-    a mass or a distance).  A step tied to a small sigma drowns in rounding: a period known to 1e-5
+    Recipes, sec. 5.7).  So the step is 1e-5 of the input's scale.  Where its domain has an open
+    bound, where the formula has no value, that is the distance to the nearest one: the formula
+    varies on that scale (e -> 1, i -> 0 or 180 deg, v -> c, x -> 0 of a mass or a distance), and a
+    closed bound is an ordinary point of it (e = 0, a luminosity fraction of 0, stepped from by 1e-5
+    of their distance to 1, on one side, :func:`_stencil`).  Elsewhere it is |x|, or the sigma where
+    that is larger (a Thiele-Innes constant near 0, whose zero means nothing to the formula), and for
+    an angle in degrees a radian, the scale of its sines and cosines, whatever its value (a node of
+    0.01 deg is an ordinary point).  A step tied to a small sigma drowns in rounding: a period known to 1e-5
     of itself stepped by 1e-10 of it moves f by 1e-10 |f| beside a rounding of 1e-16 |f|.  Where the
     formula amplifies the step (a period by the cycles elapsed) :func:`_refine` sees the bend in
     the stencil and shortens it.
@@ -377,7 +383,7 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     sec. 5.7); it matters for dates, where ulp(JD) ~ 5e-10 d."""
     ax = np.abs(x)
     edge = np.minimum(x - pl.open_low, pl.open_high - x)                         # inf without open bounds
-    scale = np.minimum(np.maximum(spread, ax), edge)
+    scale = np.where(edge < np.inf, edge, np.maximum(spread, np.where(pl.angle, DEGREES_PER_RADIAN, ax)))
     # a subnormal scale (x = 5e-324 with no sigma) is 0 for this purpose: a step tied to it would underflow
     scale = np.where(scale >= _TINY, scale, 0.0)
     h = RELATIVE_STEP * np.where(scale > 0, scale, np.where(spread > 0, spread, 1.0))
