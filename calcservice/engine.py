@@ -557,18 +557,33 @@ def _bend(up, down, f0, period, wraps, m: int, n: int) -> tuple[np.ndarray, np.n
     more than BEND of its own scale (|f|, or period / 2 pi for an angle) and stands above the rounding
     of the three values: near an extremum the bend is large because f' is small, not because the step
     is long, and a shorter step there only adds rounding."""
-    first = np.abs(up + down)
-    second = np.abs(up - down)
-    bent = second > BEND * first
-    if not bent.any():                  # the common case, a function that varies on the scale of its inputs
+    # one cheap pass over all the differences (a function that varies on the scale of its inputs has
+    # none above it): a bend above BEND with up and down of one sign has |up / down - 1| > BEND;
+    # then the few candidates alone
+    t = up / down
+    t -= 1.0
+    np.abs(t, out=t)
+    candidates = t > BEND
+    if not candidates.any():
         return None, None
-    scale = np.where(wraps, period / (2.0 * np.pi), np.abs(f0)) if wraps.any() else np.abs(f0)
-    bent &= (first > BEND * scale) & (up * down > 0) & (second > 1024 * np.finfo(float).eps * scale)
-    need = bent.reshape(bent.shape[0], m, n, -1).any(axis=(0, 3))
-    if not need.any():
-        return need, None
-    ratio = np.where(bent, second / np.where(bent, first, 1.0), 0.0)
-    return need, ratio.reshape(ratio.shape[0], m, n, -1).max(axis=(0, 3))
+    flat = np.flatnonzero(candidates)
+    shape = (up.shape[0], m, n, up[0, 0, 0].size)                 # (outputs, m, n, series points)
+    o, j, k, s = np.unravel_index(flat, shape)
+    u, d = up.reshape(-1)[flat], down.reshape(-1)[flat]
+    size = np.abs(np.broadcast_to(f0, (shape[0], 1) + up.shape[2:]).reshape(shape[0], n, shape[3])[o, k, s])
+    angular = np.broadcast_to(wraps, shape[:1] + (1,) * (up.ndim - 1)).reshape(-1)[o]
+    scale = np.where(angular, np.broadcast_to(period, shape[:1] + (1,) * (up.ndim - 1)).reshape(-1)[o]
+                     / (2.0 * np.pi), size)
+    first, second = np.abs(u + d), np.abs(u - d)
+    bent = (second > BEND * first) & (first > BEND * scale) & (u * d > 0)
+    bent &= second > 1024 * np.finfo(float).eps * scale
+    if not bent.any():
+        return None, None
+    need = np.zeros((m, n), dtype=bool)
+    need[j[bent], k[bent]] = True
+    bend = np.zeros((m, n))
+    np.maximum.at(bend, (j[bent], k[bent]), second[bent] / first[bent])
+    return need, bend
 
 
 def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
@@ -587,7 +602,7 @@ def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
     m, n = h.shape
     for _ in range(REFINEMENTS):
         need, bend = _bend(up, down, f0, period, wraps, m, n)
-        if bend is None:
+        if need is None:
             break
         sel = np.flatnonzero(need.any(axis=1))
         systems = np.flatnonzero(need.any(axis=0))
