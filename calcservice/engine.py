@@ -591,13 +591,15 @@ def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
 
     A central difference is exact for a parabola: its truncation, h^2 |f'''| / 6, is ~ (h / L)^2 of
     the derivative for a function that varies on a scale L, which the bend (:func:`_bend`, ~ h / 2L)
-    shows.  The first step, 1e-5 of the input's scale (:func:`_steps`), has a bend ~1e-5 for a
-    power law of that input; a period stepped by 1e-5 of itself moves the phase after N cycles by
-    1e-5 N, and the stencil bends by as much.  Where some output bends by more than BEND (a
-    truncation of ~ BEND^2 of the derivative; a power law x^p bends by 1e-5 |p - 1| / 2), the
-    input's step is shortened to bend by about BENT, in another physics call over the systems and
-    inputs concerned (1 + 2 of them points), at most REFINEMENTS times.  Near an extremum of one output (f' ~ 0) the bend says nothing of the step, and is not
-    counted (see :func:`_bend`)."""
+    shows.  The first step, 1e-5 of the input's scale (:func:`_steps`), bends by ~1e-5 |p - 1| / 2
+    for a power x^p; a period stepped by 1e-5 of itself moves the phase after N cycles by 1e-5 N,
+    and the stencil bends by as much.  Where some output bends by more than BEND (a truncation of
+    ~ BEND^2 of the derivative), the input's step is shortened to bend by about BENT, in another
+    physics call over the systems and inputs concerned (1 + 2 of them points), at most REFINEMENTS
+    times.  Near an extremum of one output (f' ~ 0) the bend says nothing of the step and is not
+    counted (see :func:`_bend`).  The bend is the largest over all the outputs and series points,
+    so an output at an inflection of its own (f'' = 0, where it cannot show the bend) is shortened
+    with the others; one that is alone at an inflection keeps the first step, ~(h / L)^2 off."""
     up, down, far_up, far_down, period, wraps, _ = diffs
     m, n = h.shape
     for _ in range(REFINEMENTS):
