@@ -544,46 +544,58 @@ def _differences(pl: Plan, given, y, m: int, flips=None):
 
 RESOLVED = 1e6       # a difference this many roundings of its output above them is a derivative to ~1e-6
 KINK_STEPS = 16      # the longer step that tells a kink from an extremum (see _stencil_terms)
-BEND = 1e-4          # the bend over a step above which it is shortened (see _refine)
-BENT = 1e-5          # the bend it is shortened to
+BEND = 1e-4          # the bend (or an angle's turn in rad) over a step above which it is shortened (see _refine)
+BENT = 1e-5          # the bend (or turn) it is shortened to
 REFINEMENTS = 2      # how many times at most
 SHORTEST = 1.0 / 4096    # the most a step is shortened at once
 
 
-def _bend(up, down, f0, period, wraps, m: int, n: int) -> tuple[np.ndarray, np.ndarray | None]:
-    """Where some output bends by more than BEND over an input's step (m, n), and by how much at most
-    there (None where none does).  The bend is |up - down| / |up + down|, the second difference over the
-    first, ~ h |f''| / 2 |f'|.  It counts only where the output moves the same way on both sides by
-    more than BEND of its own scale (|f|, or period / 2 pi for an angle) and stands above the rounding
-    of the three values: near an extremum the bend is large because f' is small, not because the step
-    is long, and a shorter step there only adds rounding."""
+def _bend(up, down, f0, period, wraps, m: int, n: int) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """Where some output bends, or some angle turns, by more than BEND over an input's step (m, n),
+    and by how many times BEND at most there (None, None where none does).
+
+    The bend is |up - down| / |up + down|, the second difference over the first, ~ h |f''| / 2 |f'|.
+    It counts only where the output moves the same way on both sides by more than BEND of its own
+    scale (|f|, or period / 2 pi for an angle) and stands above the rounding of the three values:
+    near an extremum the bend is large because f' is small, not because the step is long, and a
+    shorter step there only adds rounding.  The turn of an angle output is |up + down| / 2 in radians:
+    a step that turns a phase, an anomaly or a position angle by more than BEND rad is long beside the
+    radian on which it varies, even where the output itself does not show it (rv = K cos(nu + w) at
+    a quadrature, f'' = 0, stepped in a period after many cycles)."""
     # one cheap pass over all the differences (a function that varies on the scale of its inputs has
-    # none above it): a bend above BEND with up and down of one sign has |up / down - 1| > BEND;
+    # no bend above BEND): a bend above BEND with up and down of one sign has |up / down - 1| > BEND;
     # then the few candidates alone
+    excess = None
     t = up / down
     t -= 1.0
     np.abs(t, out=t)
     candidates = t > BEND
-    if not candidates.any():
+    if candidates.any():
+        flat = np.flatnonzero(candidates)
+        shape = (up.shape[0], m, n, up[0, 0, 0].size)                 # (outputs, m, n, series points)
+        o, j, k, s = np.unravel_index(flat, shape)
+        u, d = up.reshape(-1)[flat], down.reshape(-1)[flat]
+        size = np.abs(np.broadcast_to(f0, (shape[0], 1) + up.shape[2:]).reshape(shape[0], n, shape[3])[o, k, s])
+        ones = (1,) * (up.ndim - 1)
+        angular = np.broadcast_to(wraps, shape[:1] + ones).reshape(-1)[o]
+        scale = np.where(angular, np.broadcast_to(period, shape[:1] + ones).reshape(-1)[o] / (2.0 * np.pi), size)
+        first, second = np.abs(u + d), np.abs(u - d)
+        bent = (second > BEND * first) & (first > BEND * scale) & (u * d > 0)
+        bent &= second > 1024 * np.finfo(float).eps * scale
+        if bent.any():
+            excess = np.zeros((m, n))
+            np.maximum.at(excess, (j[bent], k[bent]), second[bent] / (BEND * first[bent]))
+    turning = np.flatnonzero(np.broadcast_to(wraps, up.shape[:1] + (1,) * (up.ndim - 1)).reshape(-1))
+    if len(turning):
+        radians = 2.0 * np.pi / np.broadcast_to(period, up.shape[:1] + (1,) * (up.ndim - 1))[turning]
+        turn = np.abs(up[turning] + down[turning]) * (0.5 * radians / BEND)         # (angles, m, n) + trail
+        turn = np.where(np.isfinite(turn), turn, 0.0).reshape(len(turning), m, n, -1).max(axis=(0, 3))
+        if (turn > 1.0).any():
+            excess = turn if excess is None else np.maximum(excess, turn)
+    if excess is None:
         return None, None
-    flat = np.flatnonzero(candidates)
-    shape = (up.shape[0], m, n, up[0, 0, 0].size)                 # (outputs, m, n, series points)
-    o, j, k, s = np.unravel_index(flat, shape)
-    u, d = up.reshape(-1)[flat], down.reshape(-1)[flat]
-    size = np.abs(np.broadcast_to(f0, (shape[0], 1) + up.shape[2:]).reshape(shape[0], n, shape[3])[o, k, s])
-    angular = np.broadcast_to(wraps, shape[:1] + (1,) * (up.ndim - 1)).reshape(-1)[o]
-    scale = np.where(angular, np.broadcast_to(period, shape[:1] + (1,) * (up.ndim - 1)).reshape(-1)[o]
-                     / (2.0 * np.pi), size)
-    first, second = np.abs(u + d), np.abs(u - d)
-    bent = (second > BEND * first) & (first > BEND * scale) & (u * d > 0)
-    bent &= second > 1024 * np.finfo(float).eps * scale
-    if not bent.any():
-        return None, None
-    need = np.zeros((m, n), dtype=bool)
-    need[j[bent], k[bent]] = True
-    bend = np.zeros((m, n))
-    np.maximum.at(bend, (j[bent], k[bent]), second[bent] / first[bent])
-    return need, bend
+    need = excess > 1.0
+    return (need, excess) if need.any() else (None, None)
 
 
 def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
@@ -598,8 +610,9 @@ def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
     physics call over the systems and inputs concerned (1 + 2 of them points), at most REFINEMENTS
     times.  Near an extremum of one output (f' ~ 0) the bend says nothing of the step and is not
     counted (see :func:`_bend`).  The bend is the largest over all the outputs and series points,
-    so an output at an inflection of its own (f'' = 0, where it cannot show the bend) is shortened
-    with the others; one that is alone at an inflection keeps the first step, ~(h / L)^2 off."""
+    and an angle output that turns by more than BEND rad over the step counts as bent: so an output
+    at an inflection of its own (f'' = 0, where it cannot show the bend) is shortened with the others;
+    one alone at an inflection, beside no angle, keeps the first step, ~(h / L)^2 off."""
     up, down, far_up, far_down, period, wraps, _ = diffs
     m, n = h.shape
     for _ in range(REFINEMENTS):
@@ -609,7 +622,7 @@ def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
         sel = np.flatnonzero(need.any(axis=1))
         systems = np.flatnonzero(need.any(axis=0))
         where = np.ix_(sel, systems)
-        shrink = np.clip(BENT / np.where(need, bend, 1.0), SHORTEST, 1.0)
+        shrink = np.clip(BENT / (BEND * np.where(need, bend, 1.0)), SHORTEST, 1.0)
         short = _representable(xj, h * shrink)[where]
         _, y2, flips2 = _stencil(pl, x[:, systems], xj[where], short, statics, trail, sel)
         up2, down2, far_up2, far_down2, _, _, _ = _differences(pl, given, y2, len(sel), flips2)

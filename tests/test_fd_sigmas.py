@@ -226,3 +226,20 @@ def test_campbell_elements_sigmas_from_thiele_innes_constants():
                 d = mp.diff(lambda z: elements(*(x[:j] + [z] + x[j + 1:]))[output], x[j])
                 var += (d * mp.mpf(sig[names[j]][k])) ** 2
             assert _relative(got[output][k], mp.sqrt(var)) < 1e-8, (output, k)
+
+
+def test_ephemeris_radial_velocity_at_a_quadrature_many_cycles_on():
+    # e = 0: rv1 = K1 cos(M + w), M = 2 pi (t - T0) / P (Hilditch 2001, ch. 2; from memory), so
+    # |d rv1 / dP| = K1 2 pi (t - T0) / P^2 at a quadrature (M + w = 90 deg), exactly; mpmath at 50 digits.
+    # There rv1 has no curvature (f'' = 0) to show that a step of 1e-5 P turns the phase by 1e-5 N
+    # after N cycles; the turn of the phase and the anomalies shows it, and the step is shortened.
+    calc = get("ephemeris")
+    period, t0, k1 = 2.7, 2455000.0, 40.0
+    for cycles in (50, 3000):
+        t = t0 + (cycles + 0.25) * period
+        sp = period * 1e-9
+        quantities = {"period": Measured.normal(period, sp), "eccentricity": Measured.exact(0.0),
+                      "omega": Measured.exact(0.0), "t_periastron": Measured.exact(t0), "k1": Measured.exact(k1)}
+        result = evaluate(calc, quantities, {"times": np.array([t]), "count": 1}, Options())
+        want = k1 * 2 * mp.pi * (mp.mpf(t) - mp.mpf(t0)) / mp.mpf(period) ** 2 * mp.mpf(sp)
+        assert _relative(result.outputs["rv1"]["sigma"][0, 0], want) < 1e-8
