@@ -478,11 +478,12 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     return given, f0, terms, crosses
 
 
-def _stencil(pl: Plan, x, xj, h, statics, trail, sel=None):
+def _stencil(pl: Plan, x, xj, h, statics, trail, sel=None, centre=None):
     """The outputs given, their values (outputs, p, n) + trail on the stencil of steps ``h`` about
     ``x`` of the perturbed inputs ``sel`` (indices among them; all by default: ``xj`` and ``h`` are
     then (len(sel), n)), with any joint fold between outputs (``Output.turns_with``) undone at each
-    point, and ``flips`` (2, len(sel), n) or None.
+    point, and ``flips`` (2, len(sel), n) or None.  ``centre``, the outputs at ``x`` (outputs, 1, n) +
+    trail where a stencil is taken again, spares the physics that point.
 
     A step that leaves its input's domain is taken on the other side at twice the length instead
     (x - h -> x + 2h, x + h -> x - 2h; ``flips`` marks them) for a one-sided difference of second
@@ -490,7 +491,8 @@ def _stencil(pl: Plan, x, xj, h, statics, trail, sel=None):
     n = x.shape[1]
     rows = pl.rows if sel is None else pl.rows[sel]
     m = len(rows)
-    p = 1 + WIDTH * m
+    first = 0 if centre is not None and m else 1          # the column of the first stepped point
+    p = first + WIDTH * m
     cols = np.repeat(x[:, None, :], p, axis=1)                                      # (Q, p, n)
     flips = None
     if m:
@@ -502,7 +504,7 @@ def _stencil(pl: Plan, x, xj, h, statics, trail, sel=None):
             flips = ~inside & inside[::-1] & np.isfinite(far) & (far >= low) & (far <= high)
             block = np.where(inside, block, np.where(flips, far, np.nan))
         fill_rows = pl.fill_rows if sel is None else np.tile(rows, WIDTH)
-        fill_cols = pl.fill_cols if sel is None else 1 + np.arange(WIDTH * m)
+        fill_cols = pl.fill_cols if sel is None and first else first + np.arange(WIDTH * m)
         cols[fill_rows, fill_cols, :] = block.reshape(WIDTH * m, n)
     ones = (1,) * len(trail)
     ys = _call(pl.calc, _arguments(pl.calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k]
@@ -511,6 +513,8 @@ def _stencil(pl: Plan, x, xj, h, statics, trail, sel=None):
     if not given or not m:
         return given, (np.array(list(ys.values())) if given else None), flips
     y = np.array(list(ys.values()))                                                  # (outputs, p, n) + trail
+    if not first:
+        y = np.concatenate([centre, y], axis=1)
     for k, partner, partner_period, turn in pl.links(given):
         # a stencil point where the physics folded the partner (a node stepped across 0) has this
         # angle turned with it: undo the joint fold, so the pair is differenced on one branch
@@ -624,7 +628,8 @@ def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
         where = np.ix_(sel, systems)
         shrink = np.clip(BENT / (BEND * np.where(need, bend, 1.0)), SHORTEST, 1.0)
         short = _representable(xj, h * shrink)[where]
-        _, y2, flips2 = _stencil(pl, x[:, systems], xj[where], short, statics, trail, sel)
+        centre = np.take(f0, systems, axis=2)
+        _, y2, flips2 = _stencil(pl, x[:, systems], xj[where], short, statics, trail, sel, centre)
         up2, down2, far_up2, far_down2, _, _, _ = _differences(pl, given, y2, len(sel), flips2)
         take = need[where]
         mask = take.reshape((1,) + take.shape + (1,) * len(trail))
