@@ -4,9 +4,9 @@ It knows nothing about binaries.  Given a :class:`~calcservice.registry.Calculat
 and its inputs as :class:`Measured` arrays over N systems, it propagates uncertainty
 
 * linearly, through the calculation's declared Jacobian (``Calculation.jacobian``) or else a
-  Jacobian taken by central differences with a step of ~1e-5 of each input's scale (one-sided
-  where a step would leave an input's domain), and the input covariance built from sigmas and
-  correlations, or
+  Jacobian taken by central differences with a step of ~1e-5 of each input's scale, shortened
+  where the function bends within it (one-sided, of second order, where a step would leave an
+  input's domain), and the input covariance built from sigmas and correlations, or
 * by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
   when correlated), the user's own samples paired index by index, isotropic
   orientations (cos i uniform), every system of a call from the same standard variates (so a
