@@ -50,6 +50,7 @@ LINEAR_TRUST_LIMIT = 0.2             # relative sigma (an angle: second-order ov
                                      # above which linear propagation is suspect
 _FLOAT = np.dtype(float)
 DEGREES_PER_RADIAN = 180.0 / np.pi     # the scale on which an angle's sines and cosines vary
+FINEST = 1024                          # the shortest step, in roundings (ulps) of the input
 
 
 class EngineError(ValueError):
@@ -393,7 +394,10 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
 
 
 def _representable(x: np.ndarray, h: np.ndarray) -> np.ndarray:
-    """The step nearest ``h`` that x + h represents exactly (``h`` itself where x + h overflows)."""
+    """The step nearest ``h`` that x + h represents exactly (``h`` itself where x + h overflows), at
+    least FINEST roundings of x: within 1e-10 of an open bound (e = 1 - 1e-12) 1e-5 of the distance
+    to it is below the rounding of x, and a step of 0 would difference nothing."""
+    h = np.maximum(h, FINEST * np.spacing(np.abs(x)))
     exact = (x + h) - x                  # > 0: h is far above the rounding of x, even for a date
     return np.where(exact < np.inf, exact, h)
 

@@ -243,3 +243,16 @@ def test_ephemeris_radial_velocity_at_a_quadrature_many_cycles_on():
         result = evaluate(calc, quantities, {"times": np.array([t]), "count": 1}, Options())
         want = k1 * 2 * mp.pi * (mp.mpf(t) - mp.mpf(t0)) / mp.mpf(period) ** 2 * mp.mpf(sp)
         assert _relative(result.outputs["rv1"]["sigma"][0, 0], want) < 1e-8
+
+
+def test_geometry_within_a_rounding_of_e_one_keeps_a_step():
+    # periastron distance a (1 - e): its relative sigma from e alone is s_e / (1 - e) exactly (1 - e is
+    # exact in doubles this near 1).  1e-5 of the distance to e = 1 is below the rounding of e there: the
+    # step is held at 1024 roundings of e, not left to round to 0 (which gave a sigma of 0, or NaN).
+    e = np.array([1 - 1e-12, 1 - 1e-15, np.nextafter(1.0, 0.0)])
+    values = {"period": np.full(3, 118.3), "eccentricity": e, "m1": np.full(3, 8.4), "m2": np.full(3, 5.1)}
+    for se in (1e-17, 1e-3):
+        sig, val, _ = _sigmas("geometry", values, {"eccentricity": np.full(3, se)})
+        for k in range(3):
+            want = mp.mpf(se) / (1 - mp.mpf(e[k]))
+            assert _relative(sig["periastron_distance"][k] / val["periastron_distance"][k], want) < 1e-9
