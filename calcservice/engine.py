@@ -4,9 +4,9 @@ It knows nothing about binaries.  Given a :class:`~calcservice.registry.Calculat
 and its inputs as :class:`Measured` arrays over N systems, it propagates uncertainty
 
 * linearly, through the calculation's declared Jacobian (``Calculation.jacobian``) or else a
-  Jacobian taken by central differences with a step of ~1e-5 of each input's scale (one-sided
-  where a step would leave an input's domain), and the input covariance built from sigmas and
-  correlations, or
+  Jacobian taken by central differences with a step of ~1e-5 of each input's scale, shortened
+  where the function bends within it (one-sided, of second order, where a step would leave an
+  input's domain), and the input covariance built from sigmas and correlations, or
 * by Monte Carlo: normal draws (split-normal for asymmetric errors, a Gaussian copula
   when correlated), the user's own samples paired index by index, isotropic
   orientations (cos i uniform), every system of a call from the same standard variates (so a
@@ -49,6 +49,8 @@ TIME_STEP = 1e-4                     # days per day of a time input's sigma (at 
 LINEAR_TRUST_LIMIT = 0.2             # relative sigma (an angle: second-order over first-order term)
                                      # above which linear propagation is suspect
 _FLOAT = np.dtype(float)
+DEGREES_PER_RADIAN = 180.0 / np.pi     # the scale on which an angle's sines and cosines vary
+FINEST = 1024                          # the shortest step, in roundings (ulps) of the input
 
 
 class EngineError(ValueError):
@@ -305,6 +307,9 @@ class Plan:
     high: np.ndarray
     fill_rows: np.ndarray       # (WIDTH m,) input row of each stepped column
     fill_cols: np.ndarray       # (WIDTH m,) its column
+    open_low: np.ndarray        # (m, 1) the open domain bounds (-inf, inf where a bound is closed or absent)
+    open_high: np.ndarray
+    angle: np.ndarray           # (m, 1) which are angles in degrees
     _periods: dict = field(default_factory=dict, repr=False)
 
     def inside(self, values: np.ndarray) -> np.ndarray:
@@ -344,30 +349,55 @@ def plan(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) 
     doms = [calc.input(name).domain for name in perturbed]
     low = np.array([np.nextafter(d.low, np.inf) if d.low_open else d.low for d in doms], dtype=float)[:, None]
     high = np.array([np.nextafter(d.high, -np.inf) if d.high_open else d.high for d in doms], dtype=float)[:, None]
+    open_low = np.array([d.low if d.low_open else -np.inf for d in doms], dtype=float)[:, None]
+    open_high = np.array([d.high if d.high_open else np.inf for d in doms], dtype=float)[:, None]
+    angle = np.array([calc.input(name).unit == "deg" for name in perturbed], dtype=bool)[:, None]
     p = Plan(calc, names, perturbed, rows, time, bool(time.any()), low, high, np.tile(rows, WIDTH),
-             1 + np.arange(WIDTH * len(perturbed)))
-    for a in (p.rows, p.time, p.low, p.high, p.fill_rows, p.fill_cols):
+             1 + np.arange(WIDTH * len(perturbed)), open_low, open_high, angle)
+    for a in (p.rows, p.time, p.low, p.high, p.fill_rows, p.fill_cols, p.open_low, p.open_high, p.angle):
         a.flags.writeable = False
     return p
 
 
 def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
-    """The difference step of each perturbed input (m, n).
+    """The first difference step of each perturbed input (m, n), which :func:`_refine` then
+    shortens where the function bends within it.
 
-    A date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it
-    varies: a time input is stepped by its sigma (at least 1 d).  Other inputs are stepped by
-    their sigma held within [1e-3 |x|, |x|]: a step tied to |x| alone is far too coarse where a
-    function amplifies it (a period's step grows by the number of elapsed cycles), one tied to a
-    tiny sigma alone would drown in rounding.  The step is then one that x + h represents
-    exactly, so rounding does not bias the difference quotient (Press et al., Numerical Recipes,
+    A central difference errs by its truncation, ~ h^2 |f'''| / 6, and by the rounding of the
+    function values over 2h, ~ eps |f| / h: for a function that varies on the scale of its input
+    both are ~1e-10 of the derivative at h ~ eps^(1/3) |x| ~ 1e-5 |x| (Press et al., Numerical
+    Recipes, sec. 5.7).  So the step is 1e-5 of the input's scale.  Where its domain has an open
+    bound, where the formula has no value, that is the distance to the nearest one: the formula
+    varies on that scale (e -> 1, i -> 0 or 180 deg, v -> c, x -> 0 of a mass or a distance), and a
+    closed bound is an ordinary point of it (e = 0, a luminosity fraction of 0, stepped from by 1e-5
+    of their distance to 1, on one side, :func:`_stencil`).  Elsewhere it is |x|, or the sigma where
+    that is larger (a Thiele-Innes constant near 0, whose zero means nothing to the formula), and for
+    an angle in degrees a radian, the scale of its sines and cosines, whatever its value (a node of
+    0.01 deg is an ordinary point).  A step tied to a small sigma drowns in rounding: a period known to 1e-5
+    of itself stepped by 1e-10 of it moves f by 1e-10 |f| beside a rounding of 1e-16 |f|.  Where the
+    formula amplifies the step (a period by the cycles elapsed) :func:`_refine` sees the bend in
+    the stencil and shortens it.
+
+    A date's size (a JD ~ 2.5e6 d) says nothing about the scale on which a function of it varies:
+    a time input is stepped by its sigma (at least 1 d) times 1e-4.  The step is then one that
+    x + h represents exactly, so rounding does not bias the difference quotient (Numerical Recipes,
     sec. 5.7); it matters for dates, where ulp(JD) ~ 5e-10 d."""
     ax = np.abs(x)
-    scale = np.minimum(np.maximum(spread, 1e-3 * ax), ax)                       # 0 where x = 0
-    # a subnormal x (5e-324) is x = 0 for this purpose: a step tied to it would underflow to 0
+    edge = np.minimum(x - pl.open_low, pl.open_high - x)                         # inf without open bounds
+    scale = np.where(edge < np.inf, edge, np.maximum(spread, np.where(pl.angle, DEGREES_PER_RADIAN, ax)))
+    # a subnormal scale (x = 5e-324 with no sigma) is 0 for this purpose: a step tied to it would underflow
     scale = np.where(scale >= _TINY, scale, 0.0)
     h = RELATIVE_STEP * np.where(scale > 0, scale, np.where(spread > 0, spread, 1.0))
     if pl.any_time:
         h = np.where(pl.time, TIME_STEP * np.maximum(spread, 1.0), h)
+    return _representable(x, h)
+
+
+def _representable(x: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """The step nearest ``h`` that x + h represents exactly (``h`` itself where x + h overflows), at
+    least FINEST roundings of x: within 1e-10 of an open bound (e = 1 - 1e-12) 1e-5 of the distance
+    to it is below the rounding of x, and a step of 0 would difference nothing."""
+    h = np.maximum(h, FINEST * np.spacing(np.abs(x)))
     exact = (x + h) - x                  # > 0: h is far above the rounding of x, even for a date
     return np.where(exact < np.inf, exact, h)
 
@@ -452,38 +482,56 @@ def _declared_terms(pl: Plan, x, sm, sp, spread, statics):
     return given, f0, terms, crosses
 
 
-def _stencil(pl: Plan, x, xj, h, statics, trail):
-    """The outputs given and their values (outputs, p, n) + trail on the stencil of steps ``h`` (m, n)
-    about ``x`` (a step that leaves its input's domain gives NaN there: one-sided), with any joint
-    fold between outputs (``Output.turns_with``) undone at each point."""
+def _stencil(pl: Plan, x, xj, h, statics, trail, sel=None, centre=None):
+    """The outputs given, their values (outputs, p, n) + trail on the stencil of steps ``h`` about
+    ``x`` of the perturbed inputs ``sel`` (indices among them; all by default: ``xj`` and ``h`` are
+    then (len(sel), n)), with any joint fold between outputs (``Output.turns_with``) undone at each
+    point, and ``flips`` (2, len(sel), n) or None.  ``centre``, the outputs at ``x`` (outputs, 1, n) +
+    trail where a stencil is taken again, spares the physics that point.
+
+    A step that leaves its input's domain is taken on the other side at twice the length instead
+    (x - h -> x + 2h, x + h -> x - 2h; ``flips`` marks them) for a one-sided difference of second
+    order (see :func:`_differences`); NaN where that too leaves it."""
     n = x.shape[1]
-    m = len(pl.rows)
-    p = 1 + WIDTH * m
+    rows = pl.rows if sel is None else pl.rows[sel]
+    m = len(rows)
+    first = 0 if centre is not None and m else 1          # the column of the first stepped point
+    p = first + WIDTH * m
     cols = np.repeat(x[:, None, :], p, axis=1)                                      # (Q, p, n)
+    flips = None
     if m:
+        low, high = (pl.low, pl.high) if sel is None else (pl.low[sel], pl.high[sel])
         block = xj + np.array([-h, h])                                               # (2, m, n)
-        inside = pl.inside(block)
+        inside = np.isfinite(block) & (block >= low) & (block <= high)
         if not inside.all():
-            block[~inside] = np.nan          # a step that leaves the domain: one-sided there
-        cols[pl.fill_rows, pl.fill_cols, :] = block.reshape(WIDTH * m, n)
+            far = xj + np.array([2.0 * h, -2.0 * h])
+            flips = ~inside & inside[::-1] & np.isfinite(far) & (far >= low) & (far <= high)
+            block = np.where(inside, block, np.where(flips, far, np.nan))
+        fill_rows = pl.fill_rows if sel is None else np.tile(rows, WIDTH)
+        fill_cols = pl.fill_cols if sel is None and first else first + np.arange(WIDTH * m)
+        cols[fill_rows, fill_cols, :] = block.reshape(WIDTH * m, n)
     ones = (1,) * len(trail)
     ys = _call(pl.calc, _arguments(pl.calc, {name: cols[k].reshape((p, n) + ones) if trail else cols[k]
                                              for k, name in enumerate(pl.names)}, statics), (p, n) + trail)
     given = tuple(ys)
     if not given or not m:
-        return given, (np.array(list(ys.values())) if given else None)
+        return given, (np.array(list(ys.values())) if given else None), flips
     y = np.array(list(ys.values()))                                                  # (outputs, p, n) + trail
+    if not first:
+        y = np.concatenate([centre, y], axis=1)
     for k, partner, partner_period, turn in pl.links(given):
         # a stencil point where the physics folded the partner (a node stepped across 0) has this
         # angle turned with it: undo the joint fold, so the pair is differenced on one branch
         y[k, 1:] -= turn * _folds(y[partner, 1:], y[partner, :1], partner_period)
-    return given, y
+    return given, y, flips
 
 
-def _differences(pl: Plan, given, y, m: int):
+def _differences(pl: Plan, given, y, m: int, flips=None):
     """f(x + h) - f(x) and f(x) - f(x - h) over a stencil's values ``y`` (outputs, m, n) + trail each,
     a wrapping output's on the circle at each step (so a branch cut between the points is no jump),
-    and the wrap periods of the outputs (see :meth:`Plan.periods`)."""
+    f(x + 2h) - f(x) and f(x) - f(x - 2h) where the stencil took the point beyond the domain's edge
+    on the other side (``flips``; NaN elsewhere, None when there are none), and the wrap periods of
+    the outputs (see :meth:`Plan.periods`).  Where a side was flipped its near difference is NaN."""
     ahead, behind = y[:, 1 + m:], y[:, 1:1 + m]                                     # f(x + h), f(x - h)
     period, wraps, any_wrap = pl.periods(given, ahead.ndim)
     ref = y[:, :1]
@@ -491,11 +539,115 @@ def _differences(pl: Plan, given, y, m: int):
     if any_wrap:
         up = np.where(wraps, _wrap(up, period), up)
         down = np.where(wraps, _wrap(down, period), down)
-    return up, down, period, wraps, any_wrap
+    far_up = far_down = None
+    if flips is not None:
+        shape = (2, 1, m, y.shape[2]) + (1,) * (y.ndim - 3)
+        low_edge, high_edge = flips.reshape(shape)       # x - h left the domain / x + h left it
+        far_up = np.where(low_edge, -down, np.nan)         # the x - h column holds f(x + 2h)
+        far_down = np.where(high_edge, -up, np.nan)        # the x + h column holds f(x - 2h)
+        down = np.where(low_edge, np.nan, down)
+        up = np.where(high_edge, np.nan, up)
+    return up, down, far_up, far_down, period, wraps, any_wrap
 
 
 RESOLVED = 1e6       # a difference this many roundings of its output above them is a derivative to ~1e-6
 KINK_STEPS = 16      # the longer step that tells a kink from an extremum (see _stencil_terms)
+BEND = 1e-4          # the bend (or an angle's turn in rad) over a step above which it is shortened (see _refine)
+BENT = 1e-5          # the bend (or turn) it is shortened to
+REFINEMENTS = 2      # how many times at most
+SHORTEST = 1.0 / 4096    # the most a step is shortened at once
+
+
+def _bend(up, down, f0, period, wraps, m: int, n: int) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """Where some output bends, or some angle turns, by more than BEND over an input's step (m, n),
+    and by how many times BEND at most there (None, None where none does).
+
+    The bend is |up - down| / |up + down|, the second difference over the first, ~ h |f''| / 2 |f'|.
+    It counts only where the output moves the same way on both sides by more than BEND of its own
+    scale (|f|, or period / 2 pi for an angle) and stands above the rounding of the three values:
+    near an extremum the bend is large because f' is small, not because the step is long, and a
+    shorter step there only adds rounding.  The turn of an angle output is |up + down| / 2 in radians:
+    a step that turns a phase, an anomaly or a position angle by more than BEND rad is long beside the
+    radian on which it varies, even where the output itself does not show it (rv = K cos(nu + w) at
+    a quadrature, f'' = 0, stepped in a period after many cycles)."""
+    # one cheap pass over all the differences (a function that varies on the scale of its inputs has
+    # no bend above BEND): a bend above BEND with up and down of one sign has |up / down - 1| > BEND;
+    # then the few candidates alone
+    excess = None
+    t = up / down
+    t -= 1.0
+    np.abs(t, out=t)
+    candidates = t > BEND
+    if candidates.any():
+        flat = np.flatnonzero(candidates)
+        shape = (up.shape[0], m, n, up[0, 0, 0].size)                 # (outputs, m, n, series points)
+        o, j, k, s = np.unravel_index(flat, shape)
+        u, d = up.reshape(-1)[flat], down.reshape(-1)[flat]
+        size = np.abs(np.broadcast_to(f0, (shape[0], 1) + up.shape[2:]).reshape(shape[0], n, shape[3])[o, k, s])
+        ones = (1,) * (up.ndim - 1)
+        angular = np.broadcast_to(wraps, shape[:1] + ones).reshape(-1)[o]
+        scale = np.where(angular, np.broadcast_to(period, shape[:1] + ones).reshape(-1)[o] / (2.0 * np.pi), size)
+        first, second = np.abs(u + d), np.abs(u - d)
+        bent = (second > BEND * first) & (first > BEND * scale) & (u * d > 0)
+        bent &= second > 1024 * np.finfo(float).eps * scale
+        if bent.any():
+            excess = np.zeros((m, n))
+            np.maximum.at(excess, (j[bent], k[bent]), second[bent] / (BEND * first[bent]))
+    turning = np.flatnonzero(np.broadcast_to(wraps, up.shape[:1] + (1,) * (up.ndim - 1)).reshape(-1))
+    if len(turning):
+        radians = 2.0 * np.pi / np.broadcast_to(period, up.shape[:1] + (1,) * (up.ndim - 1))[turning]
+        turn = np.abs(up[turning] + down[turning]) * (0.5 * radians / BEND)         # (angles, m, n) + trail
+        turn = np.where(np.isfinite(turn), turn, 0.0).reshape(len(turning), m, n, -1).max(axis=(0, 3))
+        if (turn > 1.0).any():
+            excess = turn if excess is None else np.maximum(excess, turn)
+    if excess is None:
+        return None, None
+    need = excess > 1.0
+    return (need, excess) if need.any() else (None, None)
+
+
+def _refine(pl: Plan, given, x, xj, h, diffs, f0, statics, trail):
+    """The steps, shortened where the function bends within them, and the differences over them.
+
+    A central difference is exact for a parabola: its truncation, h^2 |f'''| / 6, is ~ (h / L)^2 of
+    the derivative for a function that varies on a scale L, which the bend (:func:`_bend`, ~ h / 2L)
+    shows.  The first step, 1e-5 of the input's scale (:func:`_steps`), bends by ~1e-5 |p - 1| / 2
+    for a power x^p; a period stepped by 1e-5 of itself moves the phase after N cycles by 1e-5 N,
+    and the stencil bends by as much.  Where some output bends by more than BEND (a truncation of
+    ~ BEND^2 of the derivative), the input's step is shortened to bend by about BENT, in another
+    physics call over the systems and inputs concerned (1 + 2 of them points), at most REFINEMENTS
+    times.  Near an extremum of one output (f' ~ 0) the bend says nothing of the step and is not
+    counted (see :func:`_bend`).  The bend is the largest over all the outputs and series points,
+    and an angle output that turns by more than BEND rad over the step counts as bent: so an output
+    at an inflection of its own (f'' = 0, where it cannot show the bend) is shortened with the others;
+    one alone at an inflection, beside no angle, keeps the first step, ~(h / L)^2 off."""
+    up, down, far_up, far_down, period, wraps, _ = diffs
+    m, n = h.shape
+    for _ in range(REFINEMENTS):
+        need, bend = _bend(up, down, f0, period, wraps, m, n)
+        if need is None:
+            break
+        sel = np.flatnonzero(need.any(axis=1))
+        systems = np.flatnonzero(need.any(axis=0))
+        where = np.ix_(sel, systems)
+        shrink = np.clip(BENT / (BEND * np.where(need, bend, 1.0)), SHORTEST, 1.0)
+        short = _representable(xj, h * shrink)[where]
+        centre = np.take(f0, systems, axis=2)
+        _, y2, flips2 = _stencil(pl, x[:, systems], xj[where], short, statics, trail, sel, centre)
+        up2, down2, far_up2, far_down2, _, _, _ = _differences(pl, given, y2, len(sel), flips2)
+        take = need[where]
+        mask = take.reshape((1,) + take.shape + (1,) * len(trail))
+        at = (slice(None), sel[:, None], systems[None, :])
+        up[at] = np.where(mask, up2, up[at])
+        down[at] = np.where(mask, down2, down[at])
+        if far_up2 is not None or far_up is not None:
+            if far_up is None:
+                far_up, far_down = np.full_like(up, np.nan), np.full_like(up, np.nan)
+            far_up[at] = np.where(mask, np.nan if far_up2 is None else far_up2, far_up[at])
+            far_down[at] = np.where(mask, np.nan if far_down2 is None else far_down2, far_down[at])
+        h = h.copy()
+        h[where] = np.where(take, short, h[where])
+    return h, (up, down, far_up, far_down) + diffs[4:]
 
 
 def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
@@ -505,14 +657,14 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     :func:`_differentiate`) and ``crosses`` (m, n), for a block of systems.  The physics sees
     arrays of shape (points, n) + trail: the stencil's points first, so that each point is a
     contiguous row of systems; everything after it stays within the block, so a long catalogue's
-    (outputs x m x n) arrays are never held.
+    (outputs x m x n) arrays are never held.  The steps are :func:`_steps`', shortened where the
+    function bends within them by :func:`_refine`.
 
-    An input whose |x| is below its sigma is stepped by 1e-5 |x| (:func:`_steps`); where every
-    output's difference over that step is lost in the output's own rounding (within ``RESOLVED``
-    roundings: an x that is the rounding residue of 0, a sin 180 deg ~ 1e-14, stepped by ~1e-19),
-    its terms are taken again over the step of 1e-5 sigma that x = 0 itself gets, in a second
-    physics call over the systems that need it, so the sigma is continuous in x through 0 instead
-    of 0."""
+    An input within its sigma of an open bound of its domain (x > 0 below its sigma) is stepped by
+    1e-5 of its distance to the bound (:func:`_steps`); where every output's difference over that
+    step is lost in the output's own rounding (within ``RESOLVED`` roundings: an x of 1e-300 that
+    no output sees), its terms are taken again over the step of 1e-5 sigma, in a second physics call
+    over the systems that need it, so the sigma is continuous in x through the bound instead of 0."""
     n = x.shape[1]
     m = len(pl.rows)
     crosses = xj = h = None
@@ -520,15 +672,16 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
         xj = x[pl.rows]                                                              # (m, n)
         h = _steps(xj, spread, pl)
         crosses = ~pl.inside(xj + np.array([-sm, sp])).all(axis=0)
-    given, y = _stencil(pl, x, xj, h, statics, trail)
+    given, y, flips = _stencil(pl, x, xj, h, statics, trail)
     if not given:
         return given, None, None, None, None, crosses
     f0 = y[:, 0]
     if not m:
         return given, f0, None, None, None, crosses
     ones = (1,) * len(trail)
+    h, diffs = _refine(pl, given, x, xj, h, _differences(pl, given, y, m, flips), y[:, :1], statics, trail)
+    up, down, far_up, far_down, period, wraps, any_wrap = diffs
     hh = h.reshape((1, m, n) + ones)
-    up, down, period, wraps, any_wrap = _differences(pl, given, y, m)
     # the Jacobian times each input's sigma in one product: (f(x+h) - f(x-h)) sigma / 2h
     scale = (spread / (2.0 * h)).reshape((1, m, n) + ones)
     terms = (up + down) * scale
@@ -537,8 +690,8 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
         return RESOLVED * np.finfo(float).eps * (np.abs(y[:, :1]) + np.where(wraps, period, 0.0))
 
     wide = RELATIVE_STEP * spread
-    # steps tied to |x| well below sigma (h is rounded to what x + h represents: not h < wide)
-    narrow = (h < 0.5 * wide) & ~pl.time                                             # (m, n): |x| < sigma / 2
+    # steps held by an open bound well below sigma (h is rounded to what x + h represents: not h < wide)
+    narrow = (h < 0.5 * wide) & ~pl.time                                             # (m, n): within sigma / 2
     if narrow.any():
         # the step is lost where no output resolves it (an output that resolves it shows the step is
         # one the formula sees; those that do not then do not depend on x to first order)
@@ -547,8 +700,8 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
         need = lost.any(axis=0)                                                      # (n,)
         if need.any():
             h2 = np.where(lost, wide, h)[:, need]
-            _, y2 = _stencil(pl, x[:, need], xj[:, need], h2, statics, trail)
-            up2, down2, _, _, _ = _differences(pl, given, y2, m)
+            _, y2, flips2 = _stencil(pl, x[:, need], xj[:, need], h2, statics, trail)
+            up2, down2 = _differences(pl, given, y2, m, flips2)[:2]
             terms2 = (up2 + down2) * (spread[:, need] / (2.0 * h2)).reshape((1, m, -1) + ones)
             again = lost[:, need].reshape((1, m, -1) + ones) & np.isfinite(terms2)
             terms[:, :, need] = np.where(again, terms2, terms[:, :, need])
@@ -569,8 +722,8 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     if turning.any():
         need = turning.reshape(len(given), m, n, -1).any(axis=(0, 1, 3))
         h3 = KINK_STEPS * h[:, need]
-        _, y3 = _stencil(pl, x[:, need], xj[:, need], h3, statics, trail)
-        up3, down3, _, _, _ = _differences(pl, given, y3, m)
+        _, y3, flips3 = _stencil(pl, x[:, need], xj[:, need], h3, statics, trail)
+        up3, down3 = _differences(pl, given, y3, m, flips3)[:2]
         slow = KINK_STEPS ** 2 / 4
         sub = turning[:, :, need]
         kink = np.zeros_like(turning)
@@ -582,10 +735,16 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
             kink = None
 
     def one_sided(terms):
-        # one-sided differences where a step left the domain (first order in h, which is
-        # ~1e-5 of the input's scale there: far below what a linear sigma can resolve); a kink stays NaN
+        # one-sided differences where a step left the domain: of second order, (4 (f(x+h) - f(x)) -
+        # (f(x+2h) - f(x))) / 2h, where the point beyond the edge was taken twice as far on the other
+        # side (:func:`_stencil`), so that an edge that is an ordinary point of the formula (e = 0)
+        # gets its derivative to ~ (h / L)^2, as inside; else of first order; a kink stays NaN
         sig = spread.reshape((1, m, n) + ones)
-        filled = np.where(np.isfinite(up), up / hh, down / hh) * sig
+        filled = np.where(np.isfinite(up), up, down)
+        if far_up is not None:
+            filled = np.where(np.isfinite(far_up), 2.0 * up - 0.5 * far_up,
+                              np.where(np.isfinite(far_down), 2.0 * down - 0.5 * far_down, filled))
+        filled = filled / hh * sig
         return np.where(np.isfinite(terms) if kink is None else np.isfinite(terms) | kink, terms, filled)
 
     curvature = None

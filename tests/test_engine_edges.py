@@ -64,9 +64,9 @@ def test_omega_near_its_own_branch_is_smooth_and_right():
 def test_a_fast_turning_angle_is_differenced_on_the_circle_at_each_step():
     # y = k x (mod 360) turns by 120 deg per step h on either side: f(x + h) - f(x - h) = 240 deg, which
     # wrapped as a whole reads -120 deg (the wrong sign and half the size); taken step by step on
-    # the circle it is +240 deg, and the sigma is k sigma_x (here with h = 1e-5 sigma_x exactly)
-    x0, sx = 10.0, 1.0
-    h = 1e-5 * sx
+    # the circle it is +240 deg, and the sigma is k sigma_x (here with h = 1e-5 rad, an angle's step)
+    x0, sx = 1.0, 1.0
+    h = 1e-5 * np.degrees(1.0)
     h = (x0 + h) - x0
     k = 120.0 / h
     calc = _angle("turning", lambda x: np.mod(k * (x - x0), 360.0))

@@ -8,8 +8,10 @@ budgets and correlation matrices to within the error of the differences, and the
 failed rows.
 
 How close the differences come (the tolerance of the comparison).  The engine's step is
-h = 1e-5 clamp(sigma, 1e-3 |x|, |x|) (1e-5 sigma at x = 0; the rule the engine's step function
-documents, rebuilt here).  A central difference is then wrong by
+h = 1e-5 of the distance to the nearest open bound of the input's domain (every input here has
+one: 1 - e for e, x for a period, min(i, 180 deg - i); the rule the engine's step function
+documents, rebuilt here), shortened where the stencil bends by more than 1e-4 (never for these
+powers and roots).  A central difference is then wrong by
 
 * truncation, f''' h^2 / 6 relative to f' h: (h / L)^2 where L is the distance over which the
   function changes by its own size; L >= |x| for powers, L = 1 - e or 180 deg - i near those
@@ -19,9 +21,8 @@ documents, rebuilt here).  A central difference is then wrong by
   (in ``_allowance`` below; it matters where a term is exactly or nearly zero, i = 90 deg, and
   where the sigmas are tiny);
 * at e = 0 exactly, the only point of these domains where a step leaves the domain, a one-sided
-  difference, first order in h: the slope of (1 - e^2)^{n/2} there is 0, and the forward quotient
-  gives f'' h / 2 = -(n/2) h f, so the e-term is off by at most 1.5 h_e sigma_e |f|
-  (plus (h/2) |f| sigma_e for a (1 -+ e), whose slope is -+ a).
+  difference of second order over e = 0, h, 2h (h = 1e-5): exact for a (1 -+ e), and for the even
+  (1 - e^2)^{n/2}, whose slope is 0 there, off by ~ h^3 f'''' sigma_e, allowed as 2 h^2 sigma_e |f|.
 
 Sigmas must agree to RTOL = 1e-6 of the sigma plus those absolute allowances (the errors of
 the terms add, ||t + d|| <= ||t|| + ||d|| for the input correlation's norm); budgets and correlation
@@ -131,11 +132,12 @@ def sb1_systems(rng, n, primary_mass=True, inclination=True):
 # the comparison
 
 
-def _ratio_of_sigma_to_step(q: Measured) -> np.ndarray:
+def _ratio_of_sigma_to_step(q: Measured, domain) -> np.ndarray:
     """sigma / h for the engine's step rule (module docstring); 0 for an exact input."""
-    x, s = np.abs(q.value), q.sigma
-    scale = np.minimum(np.maximum(s, 1e-3 * x), x)
-    h = RELATIVE_STEP * np.where(scale > 0, scale, np.where(s > 0, s, 1.0))
+    x, s = q.value, q.sigma
+    low = domain.low if domain.low_open else -np.inf
+    high = domain.high if domain.high_open else np.inf
+    h = RELATIVE_STEP * np.minimum(x - low, high - x)
     with np.errstate(all="ignore"):
         return np.where(s > 0, s / h, 0.0)
 
@@ -143,11 +145,11 @@ def _ratio_of_sigma_to_step(q: Measured) -> np.ndarray:
 def _allowance(quantities, f0: np.ndarray) -> np.ndarray:
     """The absolute error of the central-difference sigma beyond RTOL (module docstring)."""
     f = np.abs(f0)
-    allow = sum(64 * EPS * f * _ratio_of_sigma_to_step(q) for q in quantities.values())
+    domains = {i.name: i.domain for name in ("sb1", "sb2") for i in get(name).inputs}
+    allow = sum(64 * EPS * f * _ratio_of_sigma_to_step(q, domains[name]) for name, q in quantities.items())
     e = quantities["eccentricity"]
     at_zero = (e.value == 0) & (e.sigma > 0)
-    h = RELATIVE_STEP * e.sigma
-    return allow + np.where(at_zero, 2.0 * h * e.sigma * f, 0.0)
+    return allow + np.where(at_zero, 2.0 * RELATIVE_STEP ** 2 * e.sigma * f, 0.0)
 
 
 def _warnings(result, ambiguous):
