@@ -392,7 +392,8 @@ def _response_schema(calc: Calculation) -> dict:
 # ----------------------------------------------------------------------------- problems
 
 PROBLEM_TEXT = {
-    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot",
+    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot, a "
+         "query parameter the route does not take (named in errors) or one given twice with different values",
     404: "unknown path",
     405: "wrong method (the Allow header lists the right ones)",
     406: "none of the media types in Accept can be answered (the problem lists those that can): a calculation "
