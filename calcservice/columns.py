@@ -180,7 +180,10 @@ def uncertain_parts(col) -> tuple[np.ndarray, np.ndarray] | None:
     (NaN where an entry is None); None for anything else."""
     if isinstance(col, (str, bytes, dict)) or not (isinstance(col, list) or hasattr(col, "__array__")):
         return None
-    items = np.asarray(col, dtype=object).ravel().tolist() if np.ndim(col) == 1 else []
+    if isinstance(col, list):        # a JSON column may be ragged ([[41.6], 41.7]): numpy cannot shape it
+        items = col
+    else:
+        items = np.asarray(col, dtype=object).ravel().tolist() if np.ndim(col) == 1 else []
     if not items or not all(x is None or (hasattr(x, "nominal_value") and hasattr(x, "std_dev")) for x in items) \
             or all(x is None for x in items):
         return None
