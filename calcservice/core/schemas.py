@@ -84,7 +84,8 @@ def number_array(x: Any, what: str, limit: int) -> np.ndarray:
         arr = np.array(x, dtype=float)
     except (TypeError, ValueError, OverflowError):
         arr = None
-    if arr is None or arr.ndim != 1 or any(isinstance(v, bool) for v in x):
+    # numpy reads "23.4" as 23.4 and True as 1.0: a list of numbers holds neither (as a single value does not)
+    if arr is None or arr.ndim != 1 or any(isinstance(v, (bool, str)) for v in x):
         for v in x:
             number(v, f"each entry of {what}")
         raise ValidationError(f"{what} must be a list of numbers")
