@@ -48,6 +48,15 @@ def _name_what_fails(parsed: Parsed, result: Result) -> None:
     input is the one at fault and the error is keyed by its name.  One physics call, and one more per
     input given, over the failed systems only."""
     calc, n = parsed.calc, parsed.count
+    for errs in result.failed.values():
+        if "_inputs" in errs and len(errs) > 1:
+            # a system that broke a rule of the calculation (an input its recipe requires missing) has no
+            # finite outputs because of it: that they are not finite says nothing more, and misleads
+            kept = [m for m in errs["_inputs"] if not m.startswith("these inputs give no finite value of ")]
+            if kept:
+                errs["_inputs"] = kept
+            else:
+                del errs["_inputs"]
     rows = np.array([k for k, errs in result.failed.items() if "_inputs" in errs], dtype=int)
     if not rows.size:
         return
