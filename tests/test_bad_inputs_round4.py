@@ -1,0 +1,151 @@
+"""Bad input, fourth round: query parameters an endpoint does not take, the options parameter's own
+JSON, ragged JSON columns, numbers written as strings inside lists, and a recipe's missing input
+said once.  Each case gets a 4xx problem naming the field (or the parameter), never a 500 and never
+an answer to a question that was not asked."""
+
+from __future__ import annotations
+
+import json
+from urllib.parse import quote
+
+import astropy.constants as const
+import astropy.units as u
+import numpy as np
+import pytest
+
+from calcservice import create_app
+from tests.test_bad_inputs_round2 import problem
+
+SB1 = "/v1/spectroscopic/sb1"
+SB2 = "/v1/spectroscopic/sb2"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+SB2_BODY = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31}
+TABLE = "period,k1,eccentricity\n41.6,23.4,0.31\n"
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+def mass_function(period_d: float, k1_kms: float, e: float) -> float:
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2, from memory), with astropy's constants
+    return (period_d * u.d * (k1_kms * u.km / u.s) ** 3 * (1 - e ** 2) ** 1.5 / (2 * np.pi * const.G)).to_value(u.M_sun)
+
+
+# --- 1. query parameters an endpoint does not take ------------------------------------------------
+
+@pytest.mark.parametrize("query, name", [
+    ("?fromat=latex", "fromat"),                          # a misspelt format was answered as JSON
+    ("?options=" + quote('{"uncertainty": {"method": "monte_carlo"}}'), "options"),   # was answered linearly
+    ("?keep=star", "keep"),
+    ("?format=markdown&seed=3", "seed"),
+])
+def test_a_query_parameter_a_calculation_does_not_take_is_refused_naming_it(client, query, name):
+    p = problem(client.post(SB2 + query, json=SB2_BODY), 400)
+    assert list(p["errors"]) == [name]
+    assert p["detail"].startswith(f"a calculation takes no query parameter '{name}': it takes format")
+
+
+@pytest.mark.parametrize("query, body, name", [
+    ("?format=latex", {"systems": [GOOD]}, "format"),     # a batch's answer type is Accept's: was ignored
+    ("?plot=mass_function", {"systems": [GOOD]}, "plot"),
+    ("?opitons=%7B%7D", TABLE, "opitons"),
+])
+def test_a_query_parameter_a_batch_does_not_take_is_refused_naming_it(client, query, body, name):
+    if isinstance(body, str):
+        r = client.post("/v1/batch/sb1" + query, data=body, content_type="text/csv")
+    else:
+        r = client.post("/v1/batch/sb1" + query, json=body)
+    p = problem(r, 400)
+    assert list(p["errors"]) == [name] and p["errors"][name][0].startswith("is not a query parameter of a batch")
+
+
+@pytest.mark.parametrize("query, name", [
+    ("?options=" + quote('{"uncertainty": {"method": "monte_carlo", "seed": 1}}') + "&options=" + quote("{}"),
+     "options"),                                          # the first was taken, the second dropped
+    ("?keep=star&keep=hip", "keep"),
+])
+def test_options_or_keep_given_twice_with_different_values_is_refused(client, query, name):
+    table = "star,hip,period,k1,eccentricity\nA,12,41.6,23.4,0.31\n"
+    p = problem(client.post("/v1/batch/sb1" + query, data=table, content_type="text/csv"), 400)
+    assert list(p["errors"]) == [name] and p["detail"] == f"{name} is given 2 times with different values"
+
+
+def test_the_parameters_an_endpoint_takes_still_work(client):
+    r = client.post(SB2 + "?format=markdown&format=markdown", json=SB2_BODY)
+    assert r.status_code == 200 and r.mimetype == "text/markdown"
+    r = client.post(SB2 + "?format=json", json=SB2_BODY)
+    # q = K1/K2 (Hilditch 2001, ch. 2, from memory)
+    assert r.get_json()["results"]["mass_ratio"]["value"] == pytest.approx(38.2 / 51.7, rel=1e-12)
+    table = "star,period,k1,eccentricity\nA,41.6,23.4,0.31\n"
+    r = client.post("/v1/batch/sb1?keep=star&keep=star&options=" + quote('{"units": {"a1_sin_i": "km"}}'),
+                    data=table, content_type="text/csv", headers={"Accept": "application/json"})
+    answer = r.get_json()
+    assert r.status_code == 200 and answer["kept"] == {"star": ["A"]}
+    assert answer["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-6)
+
+
+# --- 2. the options query parameter is JSON under the body's rules --------------------------------
+
+def test_options_nested_deeper_than_the_json_limit_is_a_400_naming_options(client):
+    # a RecursionError in the JSON parser was a 500; the body's depth limit applies to the parameter too
+    for depth in (40, 5000):
+        options = '{"units": ' + "[" * depth + "]" * depth + "}"
+        p = problem(client.post("/v1/batch/sb1?options=" + quote(options), data=TABLE, content_type="text/csv"), 400)
+        assert list(p["errors"]) == ["options"] and "nested deeper than" in p["detail"]
+
+
+def test_options_with_a_repeated_name_is_said_of_the_parameter(client):
+    options = '{"units": {}, "units": {"a1_sin_i": "km"}}'
+    p = problem(client.post("/v1/batch/sb1?options=" + quote(options), data=TABLE, content_type="text/csv"), 400)
+    assert list(p["errors"]) == ["units"] and p["detail"].startswith("the options query parameter gives 'units'")
+
+
+# --- 3. a JSON column that numpy cannot shape ------------------------------------------------------
+
+@pytest.mark.parametrize("column", [[[41.6], 41.7], [[[41.6]], 41.7], [[41.6, 1.0], 41.7]])
+def test_a_ragged_column_is_that_systems_error_not_a_500(client, column):
+    r = client.post("/v1/batch/sb1", json={"columns": {"period": column, "k1": [23.4, 23.5], "eccentricity": 0.31}})
+    assert r.status_code == 200, r.get_data()[:300]
+    answer = r.get_json()
+    assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["period"])]
+    assert answer["columns"]["mass_function"]["value"][0] is None
+    assert answer["columns"]["mass_function"]["value"][1] == pytest.approx(mass_function(41.7, 23.5, 0.31), rel=1e-6)
+
+
+# --- 4. a number written as a string inside a list ---------------------------------------------------
+
+@pytest.mark.parametrize("path, body, field", [
+    (SB1, {**GOOD, "k1": {"samples": ["23.4", "23.5", "23.6"]}}, "k1"),     # numpy read them as numbers
+    (SB1, {**GOOD, "k1": {"samples": [23.4, " 23.5", 23.6]}}, "k1"),
+    ("/v1/winds/shell-forecast", {"period": 3120.0, "formation_epoch": 2457310.0, "expansion_speed": 980.0,
+                                  "distance": 1850.0, "observation_date": 2461400.5, "shells": ["-1", "0"]}, "shells"),
+])
+def test_a_number_as_a_string_inside_a_list_is_refused_as_a_single_one_is(client, path, body, field):
+    p = problem(client.post(path, json=body), 422)
+    assert list(p["errors"]) == [field] and "must be a number" in p["errors"][field][0]
+
+
+def test_the_same_lists_of_numbers_are_answered(client):
+    r = client.post(SB1, json={**GOOD, "k1": {"samples": [23.4, 23.5, 23.6]}})
+    # the draws are the user's own three: the median of f(M) is f(M) at the median K1 (f rises with K1)
+    assert r.get_json()["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.5, 0.31),
+                                                                               rel=1e-6)
+
+
+# --- 5. a system that breaks a rule is told the rule, not its consequences ----------------------------
+
+@pytest.mark.parametrize("body, fields", [
+    ({"recipe": "vink-2001", "luminosity": 3.2e5, "mass": 38.0}, ["teff"]),
+    ({"recipe": "vink-2001", "luminosity": 3.2e5}, ["mass", "teff"]),
+    ({"recipe": "nugis-lamers-2000", "luminosity": 3.2e5}, ["helium_fraction", "metal_fraction"]),
+])
+def test_a_recipes_missing_input_is_named_without_outputs_said_to_have_no_value(client, body, fields):
+    # the missing input made every output NaN, and the answer added "_inputs: these inputs give no finite
+    # value of mass_loss_rate", as if the numbers given were at fault
+    p = problem(client.post("/v1/winds/mass-loss/recipe", json=body), 422)
+    assert sorted(p["errors"]) == fields
+    assert all(m[0].startswith("is required by") for m in p["errors"].values())
+    rows = client.post("/v1/batch/mass-loss-recipe", json={"systems": [body]}).get_json()["results"]
+    assert sorted(rows[0]["error"]["errors"]) == fields
