@@ -378,7 +378,7 @@ def quiet_range_warnings():
     by the batch, so the warning is left out (the command line prints one line)."""
     from astropy.utils.exceptions import AstropyWarning
     with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="OverflowError converting to FloatType", category=AstropyWarning)
+        warnings.filterwarnings("ignore", message="OverflowError converting to (Float|Int)Type", category=AstropyWarning)
         yield
 
 
@@ -432,6 +432,7 @@ def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple
 def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
                refused: dict[int, str] | None = None) -> list[tuple[str, Any, str | None]]:
     from astropy.io.ascii import InconsistentTableError
+    from astropy.io.ascii.ecsv import InvalidEcsvDatatypeWarning
     from astropy.table import Table
 
     try:
@@ -458,7 +459,16 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
         with quiet_range_warnings():
+            # a datatype ECSV does not define (complex128) is read "anyway" by astropy, into what no input takes
+            warnings.simplefilter("error", InvalidEcsvDatatypeWarning)
             table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
+    except InvalidEcsvDatatypeWarning as e:
+        found = re.search(r"datatype '(.*?)' of column '(.*?)'", str(e))
+        datatype, name = found.groups() if found else ("?", "_body")
+        raise TableError(400, f"the body is not ECSV text: column {name[:80]!r} has the datatype {datatype[:40]!r}, "
+                              "which ECSV does not define", {name[:80]: [
+                                  f"datatype {datatype[:40]!r} is not an ECSV datatype (bool, int8 to int64, uint8 to "
+                                  "uint64, float16 to float128, string)"]}) from None
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "
@@ -472,6 +482,10 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
                 cells = None
             if cells is not None:
                 _check_cells(cells, [failed.group(1)], ecsv, declared=True)
+            # a number the datatype cannot hold (300 in an int8): the column is named as every refusal does
+            raise TableError(400, f"the body is not ECSV text: {str(e)[:200]}",
+                             {failed.group(1)[:80]: [f"its cells cannot be read as its declared datatype: "
+                                                     f"{str(e)[:200]}"]}) from None
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
         if type(e).__module__.startswith(("yaml", "astropy")):
