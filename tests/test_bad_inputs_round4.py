@@ -149,3 +149,56 @@ def test_a_recipes_missing_input_is_named_without_outputs_said_to_have_no_value(
     assert all(m[0].startswith("is required by") for m in p["errors"].values())
     rows = client.post("/v1/batch/mass-loss-recipe", json={"systems": [body]}).get_json()["results"]
     assert sorted(rows[0]["error"]["errors"]) == fields
+
+
+# --- 6. half of a pair that determines nothing ---------------------------------------------------
+
+EPHEMERIS = {"period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+             "times": [2460400.5, 2460500.5], "count": 1}
+
+
+def test_an_ephemeris_inclination_without_node_or_angular_axis_is_said_to_be_unused(client):
+    # the reverse half (node or angular_semimajor_axis without an inclination) is a 422; an inclination alone
+    # changed no number and was answered without a word
+    plain = client.post("/v1/orbit/ephemeris", json=EPHEMERIS).get_json()
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "inclination": 58.0}).get_json()
+    assert r["results"] == plain["results"]
+    unused = [w for w in r["warnings"] if w["code"] == "inclination_unused"]
+    assert len(unused) == 1 and "angular_semimajor_axis" in unused[0]["message"]
+    # with node it gives the position angle, tan(theta - node) = tan(nu + omega + 180) cos i (Heintz 1978,
+    # Double Stars, ch. 4, from memory): no such warning
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "inclination": 58.0, "node": 112.0}).get_json()
+    assert "position_angle" in r["results"]["series"]
+    assert not [w for w in r["warnings"] if w["code"] == "inclination_unused"]
+    rows = client.post("/v1/batch/ephemeris", json={"systems": [{**EPHEMERIS, "inclination": 58.0}, EPHEMERIS]})
+    codes = [[w["code"] for w in row["warnings"]] for row in rows.get_json()["results"]]
+    assert "inclination_unused" in codes[0] and "inclination_unused" not in codes[1]
+
+
+# --- 7. an ECSV column's datatype ---------------------------------------------------------------
+
+def _ecsv(datatype: str, cell: str) -> str:
+    return ("# %ECSV 1.0\n# ---\n# datatype:\n"
+            f"# - {{name: period, datatype: {datatype}}}\n# - {{name: k1, datatype: float64}}\n"
+            "# - {name: eccentricity, datatype: float64}\n# schema: astropy-2.0\n"
+            f"period k1 eccentricity\n{cell} 23.4 0.31\n")
+
+
+@pytest.mark.parametrize("datatype, cell, message", [
+    ("complex128", "41.6", "datatype 'complex128' is not an ECSV datatype"),   # read "anyway" by astropy, no column
+    ("float99", "41.6", "datatype 'float99' is not an ECSV datatype"),       # a 400 that named no column
+    ("int8", "300", "its cells cannot be read as its declared datatype"),      # 300 is beyond an int8
+    ("uint8", "-5", "its cells cannot be read as its declared datatype"),
+])
+def test_an_ecsv_datatype_that_cannot_hold_the_column_is_refused_naming_it(client, datatype, cell, message):
+    # ECSV 1.0 datatypes (astropy's ECSV standard, APE 6, from memory): bool, int8..int64, uint8..uint64,
+    # float16..float128, string
+    p = problem(client.post("/v1/batch/sb1", data=_ecsv(datatype, cell), content_type="text/csv"), 400)
+    assert list(p["errors"]) == ["period"] and p["errors"]["period"][0].startswith(message)
+
+
+def test_an_ecsv_numeric_datatype_is_read(client):
+    r = client.post("/v1/batch/sb1", data=_ecsv("int16", "41"), content_type="text/csv",
+                    headers={"Accept": "application/json"})
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.0, 23.4, 0.31),
+                                                                                  rel=1e-6)
