@@ -228,6 +228,13 @@ def is_scale(domain) -> bool:
     return not domain.holds(0.0)
 
 
+def date_unit_message(unit: str | None) -> str:
+    """Why a date given as a number takes no unit but days."""
+    return (f"a date given as a number is a Julian Date in days (an MJD with time_format mjd) and is not "
+            f"converted from {str(unit)[:40]!r}: give it in d, or as an ISO 8601 string (whose sigma may then be "
+            "in another unit)")
+
+
 def subnormal(spec: Input, x: float) -> bool:
     """A scale's number below the smallest normal double (see SMALLEST_NORMAL)."""
     return abs(x) < SMALLEST_NORMAL and x != 0 and is_scale(spec.domain)
@@ -313,6 +320,10 @@ class MeasuredField(_CheckedField):
         if unit is not None and len(unit) > self.limits.max_string_length:
             raise ValidationError("unit is too long")
         k = self._factor(unit)
+        if spec.time and k != 1.0 and not isinstance(value.get("value"), str):
+            # the unit of a time applies to its sigma only: a number with it stays a day count, so 2019.6 "yr"
+            # (a Julian epoch, meant) would be read as JD 2019.6, 4707 BC
+            raise ValidationError(date_unit_message(unit))
         if "samples" in value:
             if set(value) - {"samples", "unit"}:
                 raise ValidationError("samples cannot be combined with value or sigma")
