@@ -202,3 +202,34 @@ def test_an_ecsv_numeric_datatype_is_read(client):
                     headers={"Accept": "application/json"})
     assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.0, 23.4, 0.31),
                                                                                   rel=1e-6)
+
+
+# --- 8. a date given as a number in a unit other than days --------------------------------------
+
+@pytest.mark.parametrize("t_periastron", [
+    {"value": 2019.63, "unit": "yr"},                      # a Julian epoch, meant; read as JD 2019.63 (4707 BC)
+    {"value": 2458712.3, "sigma": 5, "unit": "h"},         # the number stayed a JD, only the sigma was in hours
+    {"samples": [2458712.3, 2458712.8], "unit": "yr"},     # the unit was dropped without a word
+])
+def test_a_dates_number_with_a_unit_other_than_days_is_refused_naming_it(client, t_periastron):
+    p = problem(client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": t_periastron}), 422)
+    assert list(p["errors"]) == ["t_periastron"]
+    assert p["errors"]["t_periastron"][0].startswith("a date given as a number is a Julian Date in days")
+
+
+def test_a_dates_unit_in_a_table_is_that_systems_error(client):
+    table = "period,eccentricity,omega,t_periastron[yr],k1\n2037.4,0.3,243.6,2019.63,61.2\n"
+    answer = client.post("/v1/batch/ephemeris?options=" + quote('{"times": [2460400.5]}'), data=table,
+                         content_type="text/csv", headers={"Accept": "application/json"}).get_json()
+    assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["t_periastron"])]
+
+
+def test_a_date_in_days_and_an_iso_date_with_a_sigma_in_hours_are_taken(client):
+    from astropy.time import Time
+    iso = {"value": "2019-08-20T12:00:00", "sigma": 12, "unit": "h"}
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": iso}).get_json()
+    assert r["inputs"]["t_periastron"]["sigma"] == pytest.approx(0.5, rel=1e-15)      # 12 h = 0.5 d
+    days = {"value": Time("2019-08-20T12:00:00", scale="utc").jd, "sigma": 0.5, "unit": "d"}   # astropy's JD
+    same = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": days}).get_json()
+    assert same["results"]["series"]["phase"]["value"] == pytest.approx(r["results"]["series"]["phase"]["value"],
+                                                                       abs=1e-12)
