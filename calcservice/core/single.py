@@ -10,7 +10,7 @@ import numpy as np
 from ..config import Limits
 from ..engine import EngineError, Result, evaluate
 from ..registry import Calculation, Warning
-from .parse import Parsed, find, parse
+from .parse import MJD_OFFSET, Parsed, find, parse
 from .problems import Problem, invalid
 from .render import Rendering
 from .schemas import SMALLEST_NORMAL
@@ -23,6 +23,7 @@ def run(parsed: Parsed) -> Result:
     except EngineError as e:
         raise invalid(e.errors, e.detail) from None
     result.warnings.extend(underflows(parsed.calc, result, parsed.statics))
+    result.warnings.extend(misread_dates(parsed))
     if result.failed:
         _name_what_fails(parsed, result)
     return result
@@ -163,6 +164,40 @@ def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning
                     "these inputs, where a number has lost its digits or underflowed to 0: the value given is "
                     "not the formula's", where, name)
             for name, where in hit.items() if where.any()]
+
+
+#: A Julian Date below this is before 4439 BC, while every MJD of 1858 to 2132 is: an MJD given as a JD.
+JD_LOOKS_LIKE_MJD = 1e5
+#: An MJD above this is after AD 7334, while every JD since AD 763 is: a JD given with time_format mjd.
+MJD_LOOKS_LIKE_JD = 2e6
+
+
+def misread_dates(parsed: Parsed) -> list[Warning]:
+    """A warning for each date given as a number that reads as the other time format: an MJD (58711.8)
+    sent as a JD is a date in 4553 BC, a JD sent with ``time_format: mjd`` one in AD 8596, and either is
+    answered without an error (the DATE domain holds both), every phase and event shifted by 2400000.5 d.
+    Judged on the Julian Dates the request became (an ISO 8601 date cannot fall in either range)."""
+    out = []
+    mjd = parsed.time_format == "mjd"
+    for spec in parsed.calc.inputs:
+        if not spec.time or spec.name not in parsed.given:
+            continue
+        name = spec.name
+        jd = parsed.series[name] if name in parsed.series else parsed.quantities[name].value
+        with np.errstate(invalid="ignore"):
+            where = jd - MJD_OFFSET >= MJD_LOOKS_LIKE_JD if mjd else (jd >= 0) & (jd < JD_LOOKS_LIKE_MJD)
+        if not where.any():
+            continue
+        if name in parsed.series:                 # one list for every system
+            where = None
+        if mjd:
+            message = ("{subject}: an MJD of 2000000 or more is a date after AD 7334: if it is a Julian Date, leave "
+                       "time_format out (or give jd)")
+        else:
+            message = ("{subject}: a Julian Date below 100000 is a date before 4439 BC: if it is an MJD (JD - "
+                       "2400000.5), give time_format mjd")
+        out.append(Warning("date_format_suspect", message, where, name))
+    return out
 
 
 def failure(result: Result, index: int) -> Problem | None:
