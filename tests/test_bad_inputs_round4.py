@@ -233,3 +233,36 @@ def test_a_date_in_days_and_an_iso_date_with_a_sigma_in_hours_are_taken(client):
     same = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": days}).get_json()
     assert same["results"]["series"]["phase"]["value"] == pytest.approx(r["results"]["series"]["phase"]["value"],
                                                                        abs=1e-12)
+
+
+# --- 9. a JD sent as an MJD, or an MJD as a JD --------------------------------------------------
+
+# MJD = JD - 2400000.5 (IAU 1973 / Smithsonian convention, from memory); astropy.time gives the calendar dates
+@pytest.mark.parametrize("body, fields", [
+    ({**EPHEMERIS, "t_periastron": 58711.8, "times": [60400.0]}, ["t_periastron", "times"]),   # MJDs as JDs
+    ({**EPHEMERIS, "time_format": "mjd"}, ["t_periastron", "times"]),                           # JDs as MJDs
+    ({**EPHEMERIS, "time_format": "mjd", "t_periastron": 58711.8}, ["times"]),
+])
+def test_a_date_that_reads_as_the_other_time_format_is_warned_naming_it(client, body, fields):
+    from astropy.time import Time
+    r = client.post("/v1/orbit/ephemeris", json=body)
+    assert r.status_code == 200
+    suspect = [w for w in r.get_json()["warnings"] if w["code"] == "date_format_suspect"]
+    assert len(suspect) == 1 and suspect[0]["fields"] == fields
+    # what the answer is otherwise silent about: JD 58711.8 is in 4553 BC, MJD 2460400.5 in AD 8596
+    assert Time(58711.8, format="jd").jyear < -4400 and Time(2460400.5, format="mjd").jyear > 8500
+
+
+def test_dates_in_their_format_and_iso_dates_are_not_warned(client):
+    for body in (EPHEMERIS, {**EPHEMERIS, "time_format": "mjd", "t_periastron": 58711.8, "times": [60400.0]},
+                 {**EPHEMERIS, "time_format": "mjd", "t_periastron": "2019-08-20T12:00:00", "times": ["2024-03-30"]}):
+        r = client.post("/v1/orbit/ephemeris", json=body).get_json()
+        assert not [w for w in r["warnings"] if w["code"] == "date_format_suspect"], body
+
+
+def test_a_misread_date_is_warned_for_its_own_system_in_a_batch(client):
+    answer = client.post("/v1/batch/ephemeris", json={"columns": {**{k: v for k, v in EPHEMERIS.items()
+                                                                       if k != "t_periastron"},
+                                                                    "t_periastron": [2458712.3, 58711.8]}}).get_json()
+    suspect = [w for w in answer["warnings"] if w["code"] == "date_format_suspect"]
+    assert [(w["rows"], w["fields"]) for w in suspect] == [([1], ["t_periastron"])]
