@@ -33,7 +33,8 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import MEMBERS, column_role, lenient, lenient_message, not_plain_numbers, split_unit
+from .columns import (MEMBERS, column_role, lenient, lenient_message, may_underflow, not_plain_numbers,
+                      read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -495,6 +496,10 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
     written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
     check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and
                                             column_role(name if ecsv else split_unit(name)[0], kinds) is not None])
+    # a cell written nonzero that astropy read as 0 (1e-400): the cells read again as text, only then
+    tiny = may_underflow(text) and [name for name in table.colnames if table[name].dtype.kind == "f"
+                                    and np.any(np.ma.getdata(table[name]) == 0)]
+    texts = _text_cells(lines, ecsv, csv_options.get("delimiter", ",")) if tiny else None
     out = []
     for name in table.colnames:
         col = table[name]
@@ -509,6 +514,10 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         masked = np.ma.asarray(col)
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
+            if texts is not None and col.name in tiny:
+                cells = np.ma.getdata(texts[col.name])
+                for k in np.flatnonzero(values == 0).tolist():
+                    values[k] = read_number(str(cells[k]), values[k])
         else:
             values = written.get(name) or masked.tolist()       # masked entries become None
         out.append((name, values, unit or None))

@@ -16,6 +16,7 @@ from flask import Flask, Response, current_app, g, request
 from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from .. import tables
+from ..columns import read_number
 from ..media import quality
 from ..core.problems import Problem
 
@@ -41,6 +42,10 @@ def _reject_constant(name: str):
 
 
 DOUBLE_MAX = 1.7976931348623157e308
+# a literal that may underflow to 0 (an exponent of -100 or beyond, or hundreds of digits): orjson reads it as
+# 0 without a word, so such bodies are read by the standard library, whose parse_float sees the text
+_TINY_EXPONENT = b"e ddd"
+_MANY_DIGITS = b"d" * 300
 
 
 def _overflows(x) -> bool:
@@ -69,6 +74,8 @@ def _loads_checked(text: str):
         x = float(s)
         if x in (math.inf, -math.inf):
             overflowed.append(s)
+        elif x == 0.0:
+            x = read_number(s, x)       # 1e-400 is no 0: the smallest subnormal, refused or taken as 0 by field
         return x
 
     # an integer beyond a double parses exactly; the field it sits in refuses it (422)
@@ -250,7 +257,8 @@ def _fast_loads(data: bytes):
     if orjson is None:
         return _UNPARSED
     digits = data.translate(_DIGIT_RUNS)
-    if _LONG_INTEGER in digits or digits.startswith(_LONG_INTEGER[1:]):
+    if _LONG_INTEGER in digits or digits.startswith(_LONG_INTEGER[1:]) or _TINY_EXPONENT in digits \
+            or _MANY_DIGITS in digits:
         return _UNPARSED
     try:
         return orjson.loads(data)
