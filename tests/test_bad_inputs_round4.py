@@ -266,3 +266,41 @@ def test_a_misread_date_is_warned_for_its_own_system_in_a_batch(client):
                                                                     "t_periastron": [2458712.3, 58711.8]}}).get_json()
     suspect = [w for w in answer["warnings"] if w["code"] == "date_format_suspect"]
     assert [(w["rows"], w["fields"]) for w in suspect] == [([1], ["t_periastron"])]
+
+
+# --- 10. a number written nonzero beyond a double's range (1e-400) ----------------------------------
+
+# IEEE 754 binary64: the smallest subnormal is 2^-1074 ~ 4.9e-324, so 1e-400 has no double and parsers
+# read it as 0 (numpy's finfo.smallest_subnormal); round 3 answers 1e-320 by the field's rule
+@pytest.mark.parametrize("raw", [
+    b'{"period": 1e-400, "k1": 23.4, "eccentricity": 0.31}',                  # was "must be > 0": it is > 0
+    b'{"period": 41.6, "k1": {"samples": [23.4, 1e-400, 23.5]}, "eccentricity": 0.31}',   # was a rejected draw
+])
+def test_a_scale_written_below_every_double_is_refused_as_a_subnormal_is(client, raw):
+    assert np.finfo(float).smallest_subnormal == 2.0 ** -1074
+    p = problem(client.post(SB1, data=raw, content_type="application/json"), 422)
+    (field,) = p["errors"]
+    assert "below the smallest normal double" in p["errors"][field][0]
+
+
+def test_a_negative_scale_below_every_double_is_still_negative(client):
+    p = problem(client.post(SB1, data=b'{"period": -1e-400, "k1": 23.4, "eccentricity": 0.31}',
+                            content_type="application/json"), 422)
+    assert p["errors"] == {"period": ["must be > 0 (in d)"]}
+
+
+def test_where_0_is_allowed_a_number_below_every_double_is_the_0_it_rounds_to(client):
+    zero = client.post(SB1, json={**GOOD, "eccentricity": 0}).get_json()["results"]["mass_function"]["value"]
+    r = client.post(SB1, data=b'{"period": 41.6, "k1": 23.4, "eccentricity": 1e-400}', content_type="application/json")
+    assert r.status_code == 200 and r.get_json()["results"]["mass_function"]["value"] == zero
+    assert zero == pytest.approx(mass_function(41.6, 23.4, 0.0), rel=1e-6)
+
+
+@pytest.mark.parametrize("cell", ["1e-400", "0." + "0" * 400 + "1"])
+def test_a_table_cell_below_every_double_is_that_systems_error_as_in_json(client, cell):
+    table = f"period,k1,eccentricity\n{cell},23.4,0.31\n41.6,23.4,{cell}\n"
+    answer = client.post("/v1/batch/sb1", data=table, content_type="text/csv",
+                         headers={"Accept": "application/json"}).get_json()
+    assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["period"])]
+    assert "below the smallest normal double" in answer["errors"][0]["errors"]["period"][0]
+    assert answer["columns"]["mass_function"]["value"][1] == pytest.approx(mass_function(41.6, 23.4, 0.0), rel=1e-6)
