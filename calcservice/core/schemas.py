@@ -558,14 +558,15 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
     """marshmallow's nested messages flattened to {"field": ["message", ...]}."""
     out: dict[str, list[str]] = {}
 
-    def walk(prefix: str, msg):
+    # the root's prefix is None: an unknown top-level name "" is named "", as "uncertainty." names one inside
+    def walk(prefix: str | None, msg):
         if isinstance(msg, dict):
             for k, v in msg.items():
                 k = _short(str(k))
-                key = f"{prefix}.{k}" if prefix else k
+                key = f"{prefix}.{k}" if prefix is not None else k
                 if k == "_schema":
-                    key = prefix or "_schema"
-                elif k in ("key", "value") and prefix.startswith("units.") and not isinstance(v, dict):
+                    key = "_schema" if prefix is None else prefix
+                elif k in ("key", "value") and (prefix or "").startswith("units.") and not isinstance(v, dict):
                     key = prefix        # marshmallow's Dict says which half of units.NAME: the name is enough
                 walk(key, v)
         elif isinstance(msg, list):
@@ -573,11 +574,11 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
                 if isinstance(m, (dict, list)):
                     walk(prefix, m)
                 else:
-                    out.setdefault(prefix or "_schema", []).append(str(m))
+                    out.setdefault("_schema" if prefix is None else prefix, []).append(str(m))
         else:
-            out.setdefault(prefix or "_schema", []).append(str(msg))
+            out.setdefault("_schema" if prefix is None else prefix, []).append(str(msg))
 
-    walk("", err.messages)
+    walk(None, err.messages)
     return {k: [m.replace("Unknown field.", "unknown field").replace("Missing data for required field.",
                                                                       "is required") for m in v]
             for k, v in out.items()}
