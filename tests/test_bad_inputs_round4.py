@@ -304,3 +304,16 @@ def test_a_table_cell_below_every_double_is_that_systems_error_as_in_json(client
     assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["period"])]
     assert "below the smallest normal double" in answer["errors"][0]["errors"]["period"][0]
     assert answer["columns"]["mass_function"]["value"][1] == pytest.approx(mass_function(41.6, 23.4, 0.0), rel=1e-6)
+
+
+# --- 11. an unknown name that is the empty string ---------------------------------------------------
+
+def test_an_unknown_empty_name_is_named_as_itself_not_as_schema(client):
+    # marshmallow keys errors of a whole object "_schema"; the unknown name "" was reported so, as if the
+    # body itself were at fault ("uncertainty": {"": 1} is already named "uncertainty.")
+    p = problem(client.post(SB1, json={**GOOD, "": 1}), 422)
+    assert p["errors"] == {"": ["unknown field"]} and p["detail"] == "invalid value for ''"
+    p = problem(client.post(SB1, json={**GOOD, "uncertainty": {"": 1}}), 422)
+    assert p["errors"] == {"uncertainty.": ["unknown field"]}
+    rows = client.post("/v1/batch/sb1", json={"systems": [{**GOOD, "": 1}, GOOD]}).get_json()["results"]
+    assert rows[0]["error"]["errors"] == {"": ["unknown field"]} and "results" in rows[1]
