@@ -317,3 +317,19 @@ def test_an_unknown_empty_name_is_named_as_itself_not_as_schema(client):
     assert p["errors"] == {"uncertainty.": ["unknown field"]}
     rows = client.post("/v1/batch/sb1", json={"systems": [{**GOOD, "": 1}, GOOD]}).get_json()["results"]
     assert rows[0]["error"]["errors"] == {"": ["unknown field"]} and "results" in rows[1]
+
+
+# --- 12. a histogram of draws near the largest double ------------------------------------------------
+
+def test_a_histogram_of_draws_near_the_largest_double_is_a_422_naming_plot(client):
+    # pi = a / (a1 sin i + a2 sin i) (as the calculation's formula): an angular semi-major axis of 1 +- 1e308
+    # mas draws parallaxes up to ~1.5e308 mas; the span fit a double, matplotlib's padded axes did not (a 500)
+    from calcservice.registry import get
+    body = {**get("orbital-parallax").example, "angular_semimajor_axis": {"value": 1, "sigma": 1e308},
+            "uncertainty": {"method": "monte_carlo", "samples": 100, "seed": 1}}
+    p = problem(client.post("/v1/combined/orbital-parallax?format=svg&plot=parallax", json=body), 422)
+    assert list(p["errors"]) == ["plot"] and "span more than a floating-point number holds" in p["errors"]["plot"][0]
+    # ordinary draws are still drawn
+    body["angular_semimajor_axis"] = {"value": 9.84, "sigma": 0.07}
+    r = client.post("/v1/combined/orbital-parallax?format=svg&plot=parallax", json=body)
+    assert r.status_code == 200 and r.mimetype == "image/svg+xml"
