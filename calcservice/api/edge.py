@@ -164,14 +164,20 @@ def read_body(limits=None) -> bytes:
             raise Problem(415, f"Content-Encoding {coding} is not supported: send the body as it is or with gzip",
                           {"Content-Encoding": ["must be gzip or identity"]})
         return gunzip(request.stream, limits.max_body_bytes)
-    length = environ.get("CONTENT_LENGTH", "")
+    length = environ.get("CONTENT_LENGTH", "").strip()      # optional whitespace around a field value
     declared = int(length) if length.isdigit() else None
+    if length and declared is None and "HTTP_TRANSFER_ENCODING" not in environ:
+        # RFC 9110 section 8.6: 1*DIGIT; werkzeug reads "abc" or "-1" as no body at all, and the JSON then
+        # looked empty
+        raise Problem(400, f"Content-Length {length[:40]!r} is not a number of bytes (RFC 9110 section 8.6)",
+                      {"Content-Length": ["must be a whole number of bytes, digits only"]})
     if declared is not None and declared <= limits.max_body_bytes and "HTTP_TRANSFER_ENCODING" not in environ:
         # a declared length within the limit: read exactly that (what werkzeug's stream would do,
         # without its wrappers, a good part of a small request's cost)
         data = environ["wsgi.input"].read(declared)
         if len(data) < declared:
-            raise Problem(400, f"the request body ended after {len(data)} of its declared {declared} bytes")
+            raise Problem(400, f"the request body ended after {len(data)} of its declared {declared} bytes",
+                          {"Content-Length": [f"declares {declared} bytes; the body has {len(data)}"]})
     else:
         data = request.get_data(cache=False)   # 413 before reading when Content-Length is over the limit
     if len(data) > limits.max_body_bytes or (len(data) == limits.max_body_bytes and request.content_length is None
