@@ -333,3 +333,26 @@ def test_a_histogram_of_draws_near_the_largest_double_is_a_422_naming_plot(clien
     body["angular_semimajor_axis"] = {"value": 9.84, "sigma": 0.07}
     r = client.post("/v1/combined/orbital-parallax?format=svg&plot=parallax", json=body)
     assert r.status_code == 200 and r.mimetype == "image/svg+xml"
+
+
+# --- 13. a Content-Length that is no number of bytes, or more than the body ------------------------
+
+@pytest.mark.parametrize("length", ["abc", "-1", "+50", "50.0"])
+def test_a_content_length_that_is_no_number_is_a_400_naming_it(client, length):
+    # RFC 9110 section 8.6: Content-Length = 1*DIGIT; werkzeug read such a body as empty, and the answer
+    # blamed the JSON ("Expecting value")
+    body = json.dumps(GOOD).encode()
+    assert len(body) == 50
+    r = client.post(SB1, data=body, content_type="application/json", environ_overrides={"CONTENT_LENGTH": length})
+    p = problem(r, 400)
+    assert list(p["errors"]) == ["Content-Length"] and p["detail"].startswith(f"Content-Length {length!r}")
+
+
+def test_a_content_length_beyond_the_body_names_it_and_one_that_fits_is_read(client):
+    body = json.dumps(GOOD).encode()
+    p = problem(client.post(SB1, data=body, content_type="application/json",
+                            environ_overrides={"CONTENT_LENGTH": "9999"}), 400)
+    assert p["errors"] == {"Content-Length": ["declares 9999 bytes; the body has 50"]}
+    r = client.post(SB1, data=body, content_type="application/json", environ_overrides={"CONTENT_LENGTH": " 50 "})
+    assert r.status_code == 200
+    assert r.get_json()["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-6)
