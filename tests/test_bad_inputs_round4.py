@@ -356,3 +356,24 @@ def test_a_content_length_beyond_the_body_names_it_and_one_that_fits_is_read(cli
     r = client.post(SB1, data=body, content_type="application/json", environ_overrides={"CONTENT_LENGTH": " 50 "})
     assert r.status_code == 200
     assert r.get_json()["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-6)
+
+
+# --- 14. samples of which none lies in the input's domain ------------------------------------------
+
+@pytest.mark.parametrize("field, samples, message", [
+    ("k1", [-1.0, -2.0], "must be > 0 and < 299792.458"),          # K < c: c = 299792.458 km/s (SI definition)
+    ("eccentricity", [1.0, 1.2], "must be >= 0 and < 1"),
+])
+def test_samples_all_outside_the_domain_name_the_input(client, field, samples, message):
+    # every draw was rejected and the answer said "_inputs: every Monte Carlo draw fell outside the inputs'
+    # physical domains", though one input alone was at fault; the same value alone is refused naming it
+    p = problem(client.post(SB1, json={**GOOD, field: {"samples": samples}}), 422)
+    assert list(p["errors"]) == [field] and message in p["errors"][field][0]
+    rows = client.post("/v1/batch/sb1", json={"systems": [{**GOOD, field: {"samples": samples}}]}).get_json()
+    assert list(rows["results"][0]["error"]["errors"]) == [field]
+
+
+def test_samples_partly_outside_the_domain_are_truncated_and_reported(client):
+    # the Monte Carlo truncation of DESIGN.md: the one draw below 0 is rejected, its fraction reported
+    r = client.post(SB1, json={**GOOD, "k1": {"samples": [-1.0, 23.4, 23.5]}}).get_json()
+    assert r["uncertainty"]["rejected_fraction"] == pytest.approx(1 / 3, rel=1e-12)
