@@ -26,7 +26,57 @@ def run(parsed: Parsed) -> Result:
     result.warnings.extend(misread_dates(parsed))
     if result.failed:
         _name_what_fails(parsed, result)
+        _name_draws_out_of_domain(parsed, result)
     return result
+
+
+NO_DRAW_KEPT = "every Monte Carlo draw fell outside"
+
+
+def _within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray, low: float, high: float) -> np.ndarray:
+    """The probability that a draw of a split normal (mode ``value``, half-widths ``sigma_minus`` and
+    ``sigma_plus``, each half weighted by its width: the engine's draw) lies in [low, high]; a normal
+    where the two are equal."""
+    from scipy.special import ndtr
+    total = sigma_minus + sigma_plus
+
+    def cdf(x: float) -> np.ndarray:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            left = 2 * sigma_minus / total * ndtr((x - value) / sigma_minus)
+            right = sigma_minus / total + 2 * sigma_plus / total * (ndtr((x - value) / sigma_plus) - 0.5)
+        return np.where(x < value, left, right)
+
+    return cdf(high) - cdf(low)
+
+
+def _name_draws_out_of_domain(parsed: Parsed, result: Result) -> None:
+    """A Monte Carlo system none of whose draws stayed within the inputs' domains is failed by the engine
+    under ``_inputs``; where an input's own sigma puts it there (a draw within its domain is less than
+    one in the number drawn: e = 0.5 +- 1e6), the error is keyed by that input and says so."""
+    rows = [k for k, errs in result.failed.items() if list(errs) == ["_inputs"]
+            and all(m.startswith(NO_DRAW_KEPT) for m in errs["_inputs"])]
+    if not rows or result.samples is None:
+        return
+    at = np.array(rows)
+    blamed: dict[str, np.ndarray] = {}
+    for name, q in parsed.quantities.items():
+        if q.samples is not None or q.isotropic or not q.uncertain:
+            continue
+        domain = parsed.calc.input(name).domain
+        pick = (lambda a: np.broadcast_to(a, (parsed.count,))[at])
+        p = _within(pick(q.value), pick(q.sigma_minus), pick(q.sigma_plus), domain.low, domain.high)
+        blamed[name] = p
+    for j, row in enumerate(rows):
+        names = [name for name, p in blamed.items() if p[j] * result.samples < 1]
+        if not names:
+            continue
+        errors = result.failed[row]
+        del errors["_inputs"]
+        for name in names:
+            spec = parsed.calc.input(name)
+            errors[name] = [f"its draws fall within its domain ({spec.domain.message(spec.unit)}) with probability "
+                            f"{blamed[name][j]:.1e}: none of the {result.samples} Monte Carlo draws is expected to; "
+                            "give a smaller sigma, or the draws themselves as samples"]
 
 
 @lru_cache(maxsize=None)
