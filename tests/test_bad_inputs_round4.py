@@ -377,3 +377,23 @@ def test_samples_partly_outside_the_domain_are_truncated_and_reported(client):
     # the Monte Carlo truncation of DESIGN.md: the one draw below 0 is rejected, its fraction reported
     r = client.post(SB1, json={**GOOD, "k1": {"samples": [-1.0, 23.4, 23.5]}}).get_json()
     assert r["uncertainty"]["rejected_fraction"] == pytest.approx(1 / 3, rel=1e-12)
+
+
+# --- 15. a sigma that leaves no Monte Carlo draw within the input's domain ----------------------------
+
+def test_a_sigma_that_leaves_no_draw_in_the_domain_names_the_input(client):
+    # e = 0.5 +- 1e6: a normal draw lands in [0, 1) with probability Phi(0.5e-6) - Phi(-0.5e-6) ~ 4.0e-7
+    # (scipy.special.ndtr, the reference); all 200 draws were rejected and the answer blamed "_inputs"
+    from scipy.special import ndtr
+    expected = ndtr(0.5 / 1e6) - ndtr(-0.5 / 1e6)
+    body = {**GOOD, "eccentricity": {"value": 0.5, "sigma": 1e6},
+            "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}}
+    p = problem(client.post(SB1, json=body), 422)
+    assert list(p["errors"]) == ["eccentricity"]
+    assert f"with probability {expected:.1e}: none of the 200 Monte Carlo draws" in p["errors"]["eccentricity"][0]
+    # in a columns batch, that system alone; the other answered
+    answer = client.post("/v1/batch/sb1", json={"columns": {
+        "period": 41.6, "k1": 23.4, "eccentricity": {"value": [0.5, 0.31], "sigma": [1e6, 0.01]}},
+        "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}}).get_json()
+    assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["eccentricity"])]
+    assert answer["columns"]["mass_function"]["value"][1] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=0.02)
