@@ -230,8 +230,8 @@ def is_scale(domain) -> bool:
 
 def date_unit_message(unit: str | None) -> str:
     """Why a date given as a number takes no unit but days."""
-    return (f"a date given as a number is a Julian Date in days (an MJD with time_format mjd) and is not "
-            f"converted from {str(unit)[:40]!r}: give it in d, or as an ISO 8601 string (whose sigma may then be "
+    return (f"a date given as a number is a Julian Date in days (an MJD with time_format mjd): its number cannot "
+            f"be converted from {str(unit)[:40]!r}; give it in d, or as an ISO 8601 string (whose sigma may then be "
             "in another unit)")
 
 
@@ -340,7 +340,8 @@ class MeasuredField(_CheckedField):
                 raise ValidationError("the samples (in the canonical unit) or their spread overflow a double")
             if not spec.domain.contains(s).any():
                 # Monte Carlo keeps the draws within the domain: with none left, this input alone is at fault
-                raise ValidationError(f"every sample lies outside the input's domain: {spec.domain.message(spec.unit)}")
+                raise ValidationError(f"every sample lies outside the input's domain ({spec.domain.message(spec.unit)}): "
+                                      "no Monte Carlo draw is left")
             if is_scale(spec.domain) and np.count_nonzero((np.abs(s) < SMALLEST_NORMAL) & (s != 0)):
                 raise ValidationError(subnormal_message("a sample", spec.unit))
             return RawQuantity(np.array([med]), np.array([sd]), np.array([sd]), samples=s[None, :], unit=unit)
