@@ -447,7 +447,8 @@ REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields
             "input not given, a pair correlated twice, an input given as samples (they carry their own "
             "correlations), or a correlation matrix that is not positive definite; samples inputs of different "
             "lengths, or samples of an input none of which lies in its domain (or a sigma that leaves no Monte Carlo "
-            "draw within it, keyed by that input); inputs for which an output has no finite value (overflow, or no value: keyed by the one input "
+            "draw within it, keyed by that input); inputs for which an output has no finite value (overflow, or no "
+            "value: keyed by the one input "
             "at fault where there is one); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 

@@ -379,7 +379,8 @@ def quiet_range_warnings():
     by the batch, so the warning is left out (the command line prints one line)."""
     from astropy.utils.exceptions import AstropyWarning
     with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="OverflowError converting to (Float|Int)Type", category=AstropyWarning)
+        warnings.filterwarnings("ignore", message="OverflowError converting to (Float|Int)Type",
+                                category=AstropyWarning)
         yield
 
 

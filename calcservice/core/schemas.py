@@ -340,8 +340,9 @@ class MeasuredField(_CheckedField):
                 raise ValidationError("the samples (in the canonical unit) or their spread overflow a double")
             if not spec.domain.contains(s).any():
                 # Monte Carlo keeps the draws within the domain: with none left, this input alone is at fault
-                raise ValidationError(f"every sample lies outside the input's domain ({spec.domain.message(spec.unit)}): "
-                                      "no Monte Carlo draw is left")
+                domain = spec.domain.message(spec.unit)
+                raise ValidationError(f"every sample lies outside the input's domain ({domain}): no Monte Carlo "
+                                      "draw is left")
             if is_scale(spec.domain) and np.count_nonzero((np.abs(s) < SMALLEST_NORMAL) & (s != 0)):
                 raise ValidationError(subnormal_message("a sample", spec.unit))
             return RawQuantity(np.array([med]), np.array([sd]), np.array([sd]), samples=s[None, :], unit=unit)
