@@ -80,6 +80,29 @@ def lenient(texts) -> list[int]:
     return out
 
 
+#: The smallest subnormal double, which stands for a number written nonzero that a double cannot hold.
+SMALLEST_SUBNORMAL = 5e-324
+# a nonzero digit before any exponent: "1e-400" is no zero, "0.0e-400" is
+_NONZERO = re.compile(r"^\s*[-+]?0*\.?0*[1-9]")
+# what may be written so: an exponent of -100 or beyond, or a run of 300 digits
+_TINY = re.compile(r"[eE]-0*[1-9][0-9]{2}|[0-9]{300}")
+
+
+def read_number(text: str, x: float) -> float:
+    """``x``, the float a number's ``text`` was read as, save that a number written nonzero and read as 0
+    (1e-400, beyond a double's range) is the smallest subnormal of its sign: the caller's number is not 0,
+    and as a subnormal it meets the rule of such numbers (refused naming its field where the input must be
+    > 0, taken as the 0 it rounds to elsewhere) in JSON bodies, table cells and text columns alike."""
+    if x == 0.0 and _NONZERO.match(text):
+        return math.copysign(SMALLEST_SUBNORMAL, x)
+    return x
+
+
+def may_underflow(text: str) -> bool:
+    """Whether a text holds a number written so that it may be read as 0 though it is not (see read_number)."""
+    return _TINY.search(text) is not None
+
+
 def lenient_message(rows, texts) -> str:
     """What is wrong with cells read as numbers only by lenient rules, naming their rows."""
     shown = "; ".join(f"row {k + 1} (system {k}): {str(t)[:40]!r}" for k, t in zip(list(rows)[:3], list(texts)[:3]))
@@ -150,7 +173,7 @@ def column_array(col, label: str = "column") -> np.ndarray:
 def _number_or_text(v):
     if isinstance(v, str):
         try:
-            x = float(v)
+            x = read_number(v, float(v))
         except ValueError:
             return v
         return x if math.isfinite(x) else v
@@ -180,7 +203,10 @@ def uncertain_parts(col) -> tuple[np.ndarray, np.ndarray] | None:
     (NaN where an entry is None); None for anything else."""
     if isinstance(col, (str, bytes, dict)) or not (isinstance(col, list) or hasattr(col, "__array__")):
         return None
-    items = np.asarray(col, dtype=object).ravel().tolist() if np.ndim(col) == 1 else []
+    if isinstance(col, list):        # a JSON column may be ragged ([[41.6], 41.7]): numpy cannot shape it
+        items = col
+    else:
+        items = np.asarray(col, dtype=object).ravel().tolist() if np.ndim(col) == 1 else []
     if not items or not all(x is None or (hasattr(x, "nominal_value") and hasattr(x, "std_dev")) for x in items) \
             or all(x is None for x in items):
         return None

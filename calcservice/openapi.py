@@ -392,7 +392,8 @@ def _response_schema(calc: Calculation) -> dict:
 # ----------------------------------------------------------------------------- problems
 
 PROBLEM_TEXT = {
-    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot",
+    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot, a "
+         "query parameter the route does not take (named in errors) or one given twice with different values",
     404: "unknown path",
     405: "wrong method (the Allow header lists the right ones)",
     406: "none of the media types in Accept can be answered (the problem lists those that can): a calculation "
@@ -439,11 +440,15 @@ BATCH_RESPONSES = {400: "BatchMalformed", 406: "NotAcceptable", 413: "TooLarge",
 REFUSALS = ("Besides the schema, a request is refused with 422 naming the fields for: a value outside its domain "
             "once converted from the unit given; a unit that does not convert to the input's (or, in units, to the "
             "output's); a number that overflows a double once converted (or samples whose spread does); time strings "
-            "that are not ISO 8601 times (or mix too many formats); a value of an input whose domain excludes 0 "
+            "that are not ISO 8601 times (or mix too many formats); a date given as a number (a Julian Date, or an "
+            "MJD with time_format mjd) with a unit other than days (the unit of an ISO date applies to its sigma); "
+            "a value of an input whose domain excludes 0 "
             "below the smallest normal double (a subnormal, under 2.2e-308, once converted); correlations naming an "
             "input not given, a pair correlated twice, an input given as samples (they carry their own "
             "correlations), or a correlation matrix that is not positive definite; samples inputs of different "
-            "lengths; inputs for which an output has no finite value (overflow, or no value: keyed by the one input "
+            "lengths, or samples of an input none of which lies in its domain (or a sigma that leaves no Monte Carlo "
+            "draw within it, keyed by that input); inputs for which an output has no finite value (overflow, or no "
+            "value: keyed by the one input "
             "at fault where there is one); plot=NAME without the Monte Carlo method, or for an "
             "output the inputs do not determine; and each calculation's own physical conditions (its 422 response).")
 

@@ -33,7 +33,8 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import MEMBERS, column_role, lenient, lenient_message, not_plain_numbers, split_unit
+from .columns import (MEMBERS, column_role, lenient, lenient_message, may_underflow, not_plain_numbers,
+                      read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -378,7 +379,8 @@ def quiet_range_warnings():
     by the batch, so the warning is left out (the command line prints one line)."""
     from astropy.utils.exceptions import AstropyWarning
     with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="OverflowError converting to FloatType", category=AstropyWarning)
+        warnings.filterwarnings("ignore", message="OverflowError converting to (Float|Int)Type",
+                                category=AstropyWarning)
         yield
 
 
@@ -432,6 +434,7 @@ def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple
 def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
                refused: dict[int, str] | None = None) -> list[tuple[str, Any, str | None]]:
     from astropy.io.ascii import InconsistentTableError
+    from astropy.io.ascii.ecsv import InvalidEcsvDatatypeWarning
     from astropy.table import Table
 
     try:
@@ -458,7 +461,16 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         # the lines, split as astropy splits a table's text: a string without a line break it would
         # take for the name of a file on the server's disk
         with quiet_range_warnings():
+            # a datatype ECSV does not define (complex128) is read "anyway" by astropy, into what no input takes
+            warnings.simplefilter("error", InvalidEcsvDatatypeWarning)
             table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False, **csv_options)
+    except InvalidEcsvDatatypeWarning as e:
+        found = re.search(r"datatype '(.*?)' of column '(.*?)'", str(e))
+        datatype, name = found.groups() if found else ("?", "_body")
+        raise TableError(400, f"the body is not ECSV text: column {name[:80]!r} has the datatype {datatype[:40]!r}, "
+                              "which ECSV does not define", {name[:80]: [
+                                  f"datatype {datatype[:40]!r} is not an ECSV datatype (bool, int8 to int64, uint8 to "
+                                  "uint64, float16 to float128, string)"]}) from None
     except KeyError as e:           # astropy's ECSV reader looks up each column's keys
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: its header lacks the key "
                               f"{str(e.args[0] if e.args else '')[:64]!r} (ECSV gives each column a name and a "
@@ -472,6 +484,10 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
                 cells = None
             if cells is not None:
                 _check_cells(cells, [failed.group(1)], ecsv, declared=True)
+            # a number the datatype cannot hold (300 in an int8): the column is named as every refusal does
+            raise TableError(400, f"the body is not ECSV text: {str(e)[:200]}",
+                             {failed.group(1)[:80]: [f"its cells cannot be read as its declared datatype: "
+                                                     f"{str(e)[:200]}"]}) from None
         raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
     except Exception as e:          # the YAML header of ECSV raises its own errors
         if type(e).__module__.startswith(("yaml", "astropy")):
@@ -481,6 +497,10 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
     written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
     check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and
                                             column_role(name if ecsv else split_unit(name)[0], kinds) is not None])
+    # a cell written nonzero that astropy read as 0 (1e-400): the cells read again as text, only then
+    tiny = may_underflow(text) and [name for name in table.colnames if table[name].dtype.kind == "f"
+                                    and np.any(np.ma.getdata(table[name]) == 0)]
+    texts = _text_cells(lines, ecsv, csv_options.get("delimiter", ",")) if tiny else None
     out = []
     for name in table.colnames:
         col = table[name]
@@ -495,6 +515,10 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         masked = np.ma.asarray(col)
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
+            if texts is not None and col.name in tiny:
+                cells = np.ma.getdata(texts[col.name])
+                for k in np.flatnonzero(values == 0).tolist():
+                    values[k] = read_number(str(cells[k]), values[k])
         else:
             values = written.get(name) or masked.tolist()       # masked entries become None
         out.append((name, values, unit or None))

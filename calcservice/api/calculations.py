@@ -7,13 +7,15 @@ from flask import Blueprint, current_app, request
 from ..registry import calculations
 from ..core import Problem, compute
 from ..media import JSON, MIMETYPES, quality
-from .edge import json_body, json_response
+from .edge import json_body, json_response, query_parameters
 from .render import FORMATS, render
 
 bp = Blueprint("calculations", __name__)
 
 # what a calculation answers, by ?format= (json, the default, first)
 ANSWER_TYPES = {"json": JSON, **{f: MIMETYPES[f].split(";")[0] for f in FORMATS}}
+CALCULATION_QUERY = {"format": f"the answer's form: {', '.join(ANSWER_TYPES)}",
+                     "plot": "with format=svg or png, the output whose Monte Carlo histogram is drawn"}
 OFFERED = ", ".join(f"{media} (format={f})" if f != "json" else media for f, media in ANSWER_TYPES.items())
 
 
@@ -41,16 +43,9 @@ def _endpoint(name: str):
     def view():
         settings = current_app.config["CALCSERVICE_SETTINGS"]
         body = json_body(settings.limits)
-        if request.environ.get("QUERY_STRING"):
-            for key in ("format", "plot"):
-                given = request.args.getlist(key)
-                if len(set(given)) > 1:      # which one was meant is a guess: the first, the last?
-                    raise Problem(400, f"{key} is given {len(given)} times with different values",
-                                  {key: [f"give one {key}, not {', '.join(repr(v[:40]) for v in given[:4])}"]})
-            fmt = request.args.get("format", "json")
-            plot = request.args.get("plot")  # chooses the histogram of a figure; other formats ignore it
-        else:
-            fmt, plot = "json", None
+        query = query_parameters(CALCULATION_QUERY, "a calculation")
+        fmt = query.get("format", "json")
+        plot = query.get("plot")      # chooses the histogram of a figure; other formats ignore it
         if plot is not None:
             outputs = [o.name for o in calculations()[name].outputs]
             if plot not in outputs:

@@ -16,6 +16,7 @@ from flask import Flask, Response, current_app, g, request
 from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from .. import tables
+from ..columns import read_number
 from ..media import quality
 from ..core.problems import Problem
 
@@ -41,6 +42,10 @@ def _reject_constant(name: str):
 
 
 DOUBLE_MAX = 1.7976931348623157e308
+# a literal that may underflow to 0 (an exponent of -100 or beyond, or hundreds of digits): orjson reads it as
+# 0 without a word, so such bodies are read by the standard library, whose parse_float sees the text
+_TINY_EXPONENT = b"e ddd"
+_MANY_DIGITS = b"d" * 300
 
 
 def _overflows(x) -> bool:
@@ -69,6 +74,8 @@ def _loads_checked(text: str):
         x = float(s)
         if x in (math.inf, -math.inf):
             overflowed.append(s)
+        elif x == 0.0:
+            x = read_number(s, x)       # 1e-400 is no 0: the smallest subnormal, refused or taken as 0 by field
         return x
 
     # an integer beyond a double parses exactly; the field it sits in refuses it (422)
@@ -157,14 +164,20 @@ def read_body(limits=None) -> bytes:
             raise Problem(415, f"Content-Encoding {coding} is not supported: send the body as it is or with gzip",
                           {"Content-Encoding": ["must be gzip or identity"]})
         return gunzip(request.stream, limits.max_body_bytes)
-    length = environ.get("CONTENT_LENGTH", "")
+    length = environ.get("CONTENT_LENGTH", "").strip()      # optional whitespace around a field value
     declared = int(length) if length.isdigit() else None
+    if length and declared is None and "HTTP_TRANSFER_ENCODING" not in environ:
+        # RFC 9110 section 8.6: 1*DIGIT; werkzeug reads "abc" or "-1" as no body at all, and the JSON then
+        # looked empty
+        raise Problem(400, f"Content-Length {length[:40]!r} is not a number of bytes (RFC 9110 section 8.6)",
+                      {"Content-Length": ["must be a whole number of bytes, digits only"]})
     if declared is not None and declared <= limits.max_body_bytes and "HTTP_TRANSFER_ENCODING" not in environ:
         # a declared length within the limit: read exactly that (what werkzeug's stream would do,
         # without its wrappers, a good part of a small request's cost)
         data = environ["wsgi.input"].read(declared)
         if len(data) < declared:
-            raise Problem(400, f"the request body ended after {len(data)} of its declared {declared} bytes")
+            raise Problem(400, f"the request body ended after {len(data)} of its declared {declared} bytes",
+                          {"Content-Length": [f"declares {declared} bytes; the body has {len(data)}"]})
     else:
         data = request.get_data(cache=False)   # 413 before reading when Content-Length is over the limit
     if len(data) > limits.max_body_bytes or (len(data) == limits.max_body_bytes and request.content_length is None
@@ -250,7 +263,8 @@ def _fast_loads(data: bytes):
     if orjson is None:
         return _UNPARSED
     digits = data.translate(_DIGIT_RUNS)
-    if _LONG_INTEGER in digits or digits.startswith(_LONG_INTEGER[1:]):
+    if _LONG_INTEGER in digits or digits.startswith(_LONG_INTEGER[1:]) or _TINY_EXPONENT in digits \
+            or _MANY_DIGITS in digits:
         return _UNPARSED
     try:
         return orjson.loads(data)
@@ -303,6 +317,9 @@ def _numpy_default(o):
 
 # ----------------------------------------------------------------------------- tables and negotiation
 
+BATCH_QUERY = {"options": "a table body's batch options, a URL-encoded JSON object",
+               "keep": "a table body's own columns carried into the answer, comma-separated"}
+
 ECSV_AS_CSV = "text/csv+ecsv"      # an ECSV answer to an ECSV body that asked for text/csv: labelled text/csv
 
 def body_media_type() -> str:
@@ -333,15 +350,47 @@ def answer_media_type(body_type: str) -> str:
     return offered[best]
 
 
+def query_parameters(takes: dict[str, str], where: str) -> dict[str, str]:
+    """The query string's parameters, each given once (or repeated with one value), among the names
+    this endpoint ``takes`` (name -> what it is for).  A parameter it does not take is a 400 naming
+    it: a misspelt ``format`` or an ``options`` sent to a single calculation would otherwise be
+    answered as if absent, a silently different answer from the one asked for."""
+    if not request.environ.get("QUERY_STRING"):
+        return {}
+    args = request.args
+    taken = "; ".join(f"{name} ({what})" for name, what in takes.items())
+    unknown = [name for name in args if name not in takes]
+    if unknown:
+        shown = [name if len(name) <= 80 else name[:80] + "..." for name in unknown]
+        elsewhere = {"options": "the options of a batch with a table body (a JSON body carries its own)",
+                     "keep": "columns of a batch's request table carried into its answer",
+                     "format": "a single calculation's report or figure (a batch's answer type is chosen by Accept)",
+                     "plot": "a single calculation's histogram figure"}
+        raise Problem(400, f"{where} takes no query parameter {', '.join(repr(n) for n in shown[:4])}: it takes "
+                           f"{taken}", {name: [f"is not a query parameter of {where}" + (
+                               f"; {name} is for {elsewhere[name]}" if name in elsewhere else "")]
+                                           for name in shown[:20]})
+    out = {}
+    for name in takes:
+        given = args.getlist(name)
+        if len(set(given)) > 1:      # which one was meant is a guess: the first, the last?
+            raise Problem(400, f"{name} is given {len(given)} times with different values",
+                          {name: [f"give one {name}, not {', '.join(repr(v[:40]) for v in given[:4])}"]})
+        if given:
+            out[name] = given[0]
+    return out
+
+
 def batch_body(calc, limits):
     """A batch request in any media type as the JSON body :func:`compute_batch` takes, the answer's
     media type, the request table's columns the answer carries along (the ``keep`` query
     parameter) and its ragged rows (index -> reason); a table's options come from the ``options``
     query parameter."""
+    query = query_parameters(BATCH_QUERY, "a batch")
     body_type = body_media_type()
     answer_type = answer_media_type(body_type)
-    options = request.args.get("options")
-    keep = request.args.get("keep")
+    options = query.get("options")
+    keep = query.get("keep")
     if body_type == tables.JSON:
         if options is not None:
             raise Problem(400, "a JSON body carries its options itself: the options query parameter is for tables",
@@ -364,13 +413,7 @@ def batch_body(calc, limits):
         body_type = tables.ECSV
         if answer_type == tables.CSV:
             answer_type = ECSV_AS_CSV
-    try:
-        parsed = {} if options is None else _loads_checked(options)
-    except ValueError as e:
-        raise Problem(400, f"the options query parameter is not JSON: {str(e)[:200]}",
-                      {"options": ["must be a URL-encoded JSON object"]}) from None
-    if not isinstance(parsed, dict):
-        raise Problem(400, "the options query parameter must be a JSON object", {"options": ["must be a JSON object"]})
+    parsed = {} if options is None else options_object(options, limits)
     try:
         refused: dict[int, str] = {}        # ragged rows: answered with their reason in place
         kept, read = tables.kept_columns(calc, tables.read_table(data, body_type, calc, names, refused), names)
@@ -382,6 +425,31 @@ def batch_body(calc, limits):
         e = tables.series_refused([f"the outputs over {', '.join(series)}"])
         raise Problem(e.status, e.detail, e.errors)
     return body, answer_type, kept, refused
+
+
+def options_object(text: str, limits) -> dict:
+    """The ``options`` query parameter as the JSON object it must be, under the body's rules (finite
+    numbers, names given once, nesting within ``max_json_depth``): 400 naming ``options`` otherwise."""
+    try:
+        parsed = _loads_checked(text)
+    except Problem as p:        # a repeated name, or a number beyond a double: said of the parameter
+        raise Problem(400, p.detail.replace("the JSON body", "the options query parameter")
+                      .replace("the request body", "the options query parameter"), p.errors) from None
+    except RecursionError:
+        parsed = None
+        depth = limits.max_json_depth + 1
+    except ValueError as e:
+        raise Problem(400, f"the options query parameter is not JSON: {str(e)[:200]}",
+                      {"options": ["must be a URL-encoded JSON object"]}) from None
+    else:
+        encoded = text.encode("utf-8", "surrogatepass")
+        depth = _true_depth(parsed, limits.max_json_depth) if _depth_exceeds(encoded, limits.max_json_depth) else 0
+    if depth > limits.max_json_depth:
+        raise Problem(400, f"the options query parameter is nested deeper than {limits.max_json_depth} levels",
+                      {"options": [f"must be nested at most {limits.max_json_depth} levels deep"]})
+    if not isinstance(parsed, dict):
+        raise Problem(400, "the options query parameter must be a JSON object", {"options": ["must be a JSON object"]})
+    return parsed
 
 
 def batch_response(response: dict, answer_type: str, kept=()) -> Response:

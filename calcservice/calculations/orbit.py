@@ -227,6 +227,12 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
 
 def _ephemeris_check(inputs, outputs):
     out = []
+    if inputs.get("inclination") is not None and inputs.get("angular_semimajor_axis") is None \
+            and inputs.get("node") is None:
+        # the reverse half (node or angular_semimajor_axis without an inclination) is a constraint: a 422
+        out.append(Warning("inclination_unused", "an inclination without angular_semimajor_axis or node determines "
+                           "no output (the radial velocities, phases and separations do not depend on it); give "
+                           "angular_semimajor_axis for the projected separation, node for the position angle"))
     times = inputs.get("times")
     p, t0 = inputs.get("period"), inputs.get("t_periastron")
     if p is None or t0 is None:

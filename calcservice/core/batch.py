@@ -249,6 +249,8 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
             sm, sp = c.sigma_minus * k, c.sigma_plus * k
             # an isotropic system's value is a stand-in, not in the column's unit: no rule applies to it
             bad = c.slow | (given & ~iso & broken(spec, x, sm, sp))
+            if spec.time:
+                bad |= given & (k != 1.0)       # a date's number in a unit other than days: see MeasuredField
             if spec.required and spec.default is None:
                 bad |= ~given
             slow |= bad

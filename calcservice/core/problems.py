@@ -54,8 +54,9 @@ def invalid(errors: Mapping[str, list[str]], detail: str | None = None) -> Probl
                             f"{MAX_FIELDS_NAMED} are named"]}
     if detail is None:
         names = sorted(k for k in errors if k != "_more")
-        detail = (f"invalid value for {', '.join(names)}" + (" and more" if "_more" in errors else "")
-                  if names else "invalid input")
+        shown = ", ".join(k or repr(k) for k in names)          # a name "" is shown as ''
+        detail = (f"invalid value for {shown}" + (" and more" if "_more" in errors else "") if names
+                  else "invalid input")
     return Problem(422, detail, errors)
 
 

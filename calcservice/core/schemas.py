@@ -84,7 +84,8 @@ def number_array(x: Any, what: str, limit: int) -> np.ndarray:
         arr = np.array(x, dtype=float)
     except (TypeError, ValueError, OverflowError):
         arr = None
-    if arr is None or arr.ndim != 1 or any(isinstance(v, bool) for v in x):
+    # numpy reads "23.4" as 23.4 and True as 1.0: a list of numbers holds neither (as a single value does not)
+    if arr is None or arr.ndim != 1 or any(isinstance(v, (bool, str)) for v in x):
         for v in x:
             number(v, f"each entry of {what}")
         raise ValidationError(f"{what} must be a list of numbers")
@@ -227,6 +228,13 @@ def is_scale(domain) -> bool:
     return not domain.holds(0.0)
 
 
+def date_unit_message(unit: str | None) -> str:
+    """Why a date given as a number takes no unit but days."""
+    return (f"a date given as a number is a Julian Date in days (an MJD with time_format mjd): its number cannot "
+            f"be converted from {str(unit)[:40]!r}; give it in d, or as an ISO 8601 string (whose sigma may then be "
+            "in another unit)")
+
+
 def subnormal(spec: Input, x: float) -> bool:
     """A scale's number below the smallest normal double (see SMALLEST_NORMAL)."""
     return abs(x) < SMALLEST_NORMAL and x != 0 and is_scale(spec.domain)
@@ -312,6 +320,10 @@ class MeasuredField(_CheckedField):
         if unit is not None and len(unit) > self.limits.max_string_length:
             raise ValidationError("unit is too long")
         k = self._factor(unit)
+        if spec.time and k != 1.0 and not isinstance(value.get("value"), str):
+            # the unit of a time applies to its sigma only: a number with it stays a day count, so 2019.6 "yr"
+            # (a Julian epoch, meant) would be read as JD 2019.6, 4707 BC
+            raise ValidationError(date_unit_message(unit))
         if "samples" in value:
             if set(value) - {"samples", "unit"}:
                 raise ValidationError("samples cannot be combined with value or sigma")
@@ -326,6 +338,11 @@ class MeasuredField(_CheckedField):
             med = np.median(s)
             if not np.isfinite(sd):
                 raise ValidationError("the samples (in the canonical unit) or their spread overflow a double")
+            if not spec.domain.contains(s).any():
+                # Monte Carlo keeps the draws within the domain: with none left, this input alone is at fault
+                domain = spec.domain.message(spec.unit)
+                raise ValidationError(f"every sample lies outside the input's domain ({domain}): no Monte Carlo "
+                                      "draw is left")
             if is_scale(spec.domain) and np.count_nonzero((np.abs(s) < SMALLEST_NORMAL) & (s != 0)):
                 raise ValidationError(subnormal_message("a sample", spec.unit))
             return RawQuantity(np.array([med]), np.array([sd]), np.array([sd]), samples=s[None, :], unit=unit)
@@ -546,14 +563,15 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
     """marshmallow's nested messages flattened to {"field": ["message", ...]}."""
     out: dict[str, list[str]] = {}
 
-    def walk(prefix: str, msg):
+    # the root's prefix is None: an unknown top-level name "" is named "", as "uncertainty." names one inside
+    def walk(prefix: str | None, msg):
         if isinstance(msg, dict):
             for k, v in msg.items():
                 k = _short(str(k))
-                key = f"{prefix}.{k}" if prefix else k
+                key = f"{prefix}.{k}" if prefix is not None else k
                 if k == "_schema":
-                    key = prefix or "_schema"
-                elif k in ("key", "value") and prefix.startswith("units.") and not isinstance(v, dict):
+                    key = "_schema" if prefix is None else prefix
+                elif k in ("key", "value") and (prefix or "").startswith("units.") and not isinstance(v, dict):
                     key = prefix        # marshmallow's Dict says which half of units.NAME: the name is enough
                 walk(key, v)
         elif isinstance(msg, list):
@@ -561,11 +579,11 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
                 if isinstance(m, (dict, list)):
                     walk(prefix, m)
                 else:
-                    out.setdefault(prefix or "_schema", []).append(str(m))
+                    out.setdefault("_schema" if prefix is None else prefix, []).append(str(m))
         else:
-            out.setdefault(prefix or "_schema", []).append(str(msg))
+            out.setdefault("_schema" if prefix is None else prefix, []).append(str(msg))
 
-    walk("", err.messages)
+    walk(None, err.messages)
     return {k: [m.replace("Unknown field.", "unknown field").replace("Missing data for required field.",
                                                                       "is required") for m in v]
             for k, v in out.items()}

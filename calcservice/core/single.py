@@ -10,7 +10,7 @@ import numpy as np
 from ..config import Limits
 from ..engine import EngineError, Result, evaluate
 from ..registry import Calculation, Warning
-from .parse import Parsed, find, parse
+from .parse import MJD_OFFSET, Parsed, find, parse
 from .problems import Problem, invalid
 from .render import Rendering
 from .schemas import SMALLEST_NORMAL
@@ -23,9 +23,60 @@ def run(parsed: Parsed) -> Result:
     except EngineError as e:
         raise invalid(e.errors, e.detail) from None
     result.warnings.extend(underflows(parsed.calc, result, parsed.statics))
+    result.warnings.extend(misread_dates(parsed))
     if result.failed:
         _name_what_fails(parsed, result)
+        _name_draws_out_of_domain(parsed, result)
     return result
+
+
+NO_DRAW_KEPT = "every Monte Carlo draw fell outside"
+
+
+def _within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray, low: float, high: float) -> np.ndarray:
+    """The probability that a draw of a split normal (mode ``value``, half-widths ``sigma_minus`` and
+    ``sigma_plus``, each half weighted by its width: the engine's draw) lies in [low, high]; a normal
+    where the two are equal."""
+    from scipy.special import ndtr
+    total = sigma_minus + sigma_plus
+
+    def cdf(x: float) -> np.ndarray:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            left = 2 * sigma_minus / total * ndtr((x - value) / sigma_minus)
+            right = sigma_minus / total + 2 * sigma_plus / total * (ndtr((x - value) / sigma_plus) - 0.5)
+        return np.where(x < value, left, right)
+
+    return cdf(high) - cdf(low)
+
+
+def _name_draws_out_of_domain(parsed: Parsed, result: Result) -> None:
+    """A Monte Carlo system none of whose draws stayed within the inputs' domains is failed by the engine
+    under ``_inputs``; where an input's own sigma puts it there (a draw within its domain is less than
+    one in the number drawn: e = 0.5 +- 1e6), the error is keyed by that input and says so."""
+    rows = [k for k, errs in result.failed.items() if list(errs) == ["_inputs"]
+            and all(m.startswith(NO_DRAW_KEPT) for m in errs["_inputs"])]
+    if not rows or result.samples is None:
+        return
+    at = np.array(rows)
+    blamed: dict[str, np.ndarray] = {}
+    for name, q in parsed.quantities.items():
+        if q.samples is not None or q.isotropic or not q.uncertain:
+            continue
+        domain = parsed.calc.input(name).domain
+        pick = (lambda a: np.broadcast_to(a, (parsed.count,))[at])
+        p = _within(pick(q.value), pick(q.sigma_minus), pick(q.sigma_plus), domain.low, domain.high)
+        blamed[name] = p
+    for j, row in enumerate(rows):
+        names = [name for name, p in blamed.items() if p[j] * result.samples < 1]
+        if not names:
+            continue
+        errors = result.failed[row]
+        del errors["_inputs"]
+        for name in names:
+            spec = parsed.calc.input(name)
+            errors[name] = [f"its draws fall within its domain ({spec.domain.message(spec.unit)}) with probability "
+                            f"{blamed[name][j]:.1e}: none of the {result.samples} Monte Carlo draws is expected to; "
+                            "give a smaller sigma, or the draws themselves as samples"]
 
 
 @lru_cache(maxsize=None)
@@ -48,6 +99,15 @@ def _name_what_fails(parsed: Parsed, result: Result) -> None:
     input is the one at fault and the error is keyed by its name.  One physics call, and one more per
     input given, over the failed systems only."""
     calc, n = parsed.calc, parsed.count
+    for errs in result.failed.values():
+        if "_inputs" in errs and len(errs) > 1:
+            # a system that broke a rule of the calculation (an input its recipe requires missing) has no
+            # finite outputs because of it: that they are not finite says nothing more, and misleads
+            kept = [m for m in errs["_inputs"] if not m.startswith("these inputs give no finite value of ")]
+            if kept:
+                errs["_inputs"] = kept
+            else:
+                del errs["_inputs"]
     rows = np.array([k for k, errs in result.failed.items() if "_inputs" in errs], dtype=int)
     if not rows.size:
         return
@@ -154,6 +214,40 @@ def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning
                     "these inputs, where a number has lost its digits or underflowed to 0: the value given is "
                     "not the formula's", where, name)
             for name, where in hit.items() if where.any()]
+
+
+#: A Julian Date below this is before 4439 BC, while every MJD of 1858 to 2132 is: an MJD given as a JD.
+JD_LOOKS_LIKE_MJD = 1e5
+#: An MJD above this is after AD 7334, while every JD since AD 763 is: a JD given with time_format mjd.
+MJD_LOOKS_LIKE_JD = 2e6
+
+
+def misread_dates(parsed: Parsed) -> list[Warning]:
+    """A warning for each date given as a number that reads as the other time format: an MJD (58711.8)
+    sent as a JD is a date in 4553 BC, a JD sent with ``time_format: mjd`` one in AD 8596, and either is
+    answered without an error (the DATE domain holds both), every phase and event shifted by 2400000.5 d.
+    Judged on the Julian Dates the request became (an ISO 8601 date cannot fall in either range)."""
+    out = []
+    mjd = parsed.time_format == "mjd"
+    for spec in parsed.calc.inputs:
+        if not spec.time or spec.name not in parsed.given:
+            continue
+        name = spec.name
+        jd = parsed.series[name] if name in parsed.series else parsed.quantities[name].value
+        with np.errstate(invalid="ignore"):
+            where = jd - MJD_OFFSET >= MJD_LOOKS_LIKE_JD if mjd else (jd >= 0) & (jd < JD_LOOKS_LIKE_MJD)
+        if not where.any():
+            continue
+        if name in parsed.series:                 # one list for every system
+            where = None
+        if mjd:
+            message = ("{subject}: an MJD of 2000000 or more is a date after AD 7334: if it is a Julian Date, leave "
+                       "time_format out (or give jd)")
+        else:
+            message = ("{subject}: a Julian Date below 100000 is a date before 4439 BC: if it is an MJD (JD - "
+                       "2400000.5), give time_format mjd")
+        out.append(Warning("date_format_suspect", message, where, name))
+    return out
 
 
 def failure(result: Result, index: int) -> Problem | None:
