@@ -116,6 +116,7 @@ class Measured:
 class Options:
     method: str = "linear"          # "linear" | "monte_carlo"
     samples: int = 10000
+    samples_asked: bool = False     # samples was given (not the default): a caller told it is unused hears why
     seed: int | None = None
     correlations: Mapping[tuple[str, str], float] = field(default_factory=dict)
     keep_draws: bool = False
@@ -1161,6 +1162,10 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
     rejected = 1.0 - nvalid / s
 
     result = Result(outputs={}, method="monte_carlo", samples=s, seed=seed, rejected_fraction=rejected)
+    if options.samples_asked and s != options.samples and any(q.samples is not None for q in quantities.values()):
+        result.warnings.append(Warning(
+            "samples_from_inputs", f"uncertainty.samples = {options.samples} is not used: the inputs given as "
+                                   f"samples hold {s} draws each, which are used as they are, index by index"))
     for k in np.flatnonzero(nvalid == 0):
         result.failed[int(k)] = {"_inputs": ["every Monte Carlo draw fell outside the inputs' physical domains or "
                                              "gave a non-finite result"]}

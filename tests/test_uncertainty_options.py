@@ -237,3 +237,24 @@ def test_the_client_splits_implied_monte_carlo_by_draws():
     assert rows_per_request(limits, {"uncertainty": {"samples": 1000}}) == 5000
     assert rows_per_request(limits, {"uncertainty": {"seed": 1}}) == 500
     assert rows_per_request(limits, {"uncertainty": {"method": "linear"}}) == 100_000
+
+
+def test_a_samples_count_the_inputs_samples_override_is_warned(client):
+    # the contract: inputs given as samples are paired index by index, so their length is the number of
+    # draws; an uncertainty.samples that asks for another number is not used, and the answer says so
+    rng = np.random.default_rng(3)
+    period = rng.normal(41.6, 0.02, 400).tolist()
+    body = {"period": {"samples": period}, "k1": {"value": 23.4, "sigma": 0.3}, "eccentricity": 0.31}
+    for asked, warned in ((None, False), (400, False), (20000, True)):
+        options = {} if asked is None else {"uncertainty": {"method": "monte_carlo", "samples": asked, "seed": 1}}
+        status, doc = post(client, "/v1/spectroscopic/sb1", {**body, **options})
+        assert status == 200 and doc["uncertainty"]["samples"] == 400
+        codes = [w["code"] for w in doc["warnings"]]
+        assert ("samples_from_inputs" in codes) is warned, (asked, codes)
+    message = next(w["message"] for w in doc["warnings"] if w["code"] == "samples_from_inputs")
+    assert "20000" in message and "400" in message
+    # in a batch, the rows that bring their own samples are told, the others not
+    status, doc = post(client, "/v1/batch/sb1", {"systems": [body, {**body, "period": 41.6}],
+                                                 "uncertainty": {"method": "monte_carlo", "samples": 2000, "seed": 1}})
+    assert status == 200
+    assert [any(w["code"] == "samples_from_inputs" for w in row["warnings"]) for row in doc["results"]] == [True, False]

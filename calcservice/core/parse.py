@@ -251,7 +251,8 @@ def options_of(calc: Calculation, data: Mapping[str, Any], quantities: Mapping[s
         if key in correlations:
             errors.setdefault(f"correlations.{k}.between", []).append(f"{a} and {b} are correlated twice")
         correlations[key] = c["rho"]
-    return Options(method=method, samples=samples, seed=unc.get("seed"), correlations=correlations,
+    return Options(method=method, samples=samples, samples_asked="samples" in unc, seed=unc.get("seed"),
+                   correlations=correlations,
                    covariance=data.get("covariance", False), budget=data.get("budget", False))
 
 
