@@ -319,7 +319,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
 
     from .client import InputTable
     from .columns import column_role, split_unit
-    from .tables import is_ecsv, quiet_range_warnings, ragged_rows, table_lines
+    from .tables import is_ecsv, quiet_range_warnings, ragged_rows, restore_underflows, table_lines
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
     source: Any = path
@@ -376,9 +376,10 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
             raise UsageError(role[0], f"{role[0]} is a list for each system and cannot be a column; "
                                       f"give it as {role[0]}=v1,v2,... on the command line")
     if fmt in ("ascii.csv", "ascii.ecsv", "ecsv"):
+        lines = source if isinstance(source, list) else text.splitlines()
         _check_number_cells(path, table, [name for name in table.colnames if name not in keep],
-                            options.get("delimiter", ","), source if isinstance(source, list) else text.splitlines(),
-                            is_ecsv(text))
+                            options.get("delimiter", ","), lines, is_ecsv(text))
+        restore_underflows(table, text, lines, is_ecsv(text), options.get("delimiter", ","))
     try:
         data = InputTable.from_data(table, declaration(calc), keep=keep, require_units=False)
     except ValueError as e:

@@ -497,10 +497,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
     written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
     check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and
                                             column_role(name if ecsv else split_unit(name)[0], kinds) is not None])
-    # a cell written nonzero that astropy read as 0 (1e-400): the cells read again as text, only then
-    tiny = may_underflow(text) and [name for name in table.colnames if table[name].dtype.kind == "f"
-                                    and np.any(np.ma.getdata(table[name]) == 0)]
-    texts = _text_cells(lines, ecsv, csv_options.get("delimiter", ",")) if tiny else None
+    restore_underflows(table, text, lines, ecsv, csv_options.get("delimiter", ","))
     out = []
     for name in table.colnames:
         col = table[name]
@@ -515,10 +512,6 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         masked = np.ma.asarray(col)
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
-            if texts is not None and col.name in tiny:
-                cells = np.ma.getdata(texts[col.name])
-                for k in np.flatnonzero(values == 0).tolist():
-                    values[k] = read_number(str(cells[k]), values[k])
         else:
             values = written.get(name) or masked.tolist()       # masked entries become None
         out.append((name, values, unit or None))
@@ -579,6 +572,21 @@ def check_csv_text(lines: Sequence[str]) -> str:
     sep = delimiter(header_line(lines))
     check_header(lines, sep)
     return sep
+
+
+def restore_underflows(table, text: str, lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> None:
+    """Cells written nonzero that astropy read as 0 (1e-400, beyond a double's range) put back, in place, as
+    what :func:`calcservice.columns.read_number` makes of them; the cells are read again as text only then.
+    The service's table bodies and the command line's catalogue files both pass here."""
+    tiny = may_underflow(text) and [name for name in table.colnames if table[name].dtype.kind == "f"
+                                    and np.any(np.ma.getdata(table[name]) == 0)]
+    if not tiny:
+        return
+    texts = _text_cells(lines, ecsv, delimiter)
+    for name in tiny:
+        data, cells = np.ma.getdata(table[name]), np.ma.getdata(texts[name])
+        for k in np.flatnonzero(data == 0).tolist():
+            data[k] = read_number(str(cells[k]), data[k])
 
 
 def _text_cells(lines: Sequence[str], ecsv: bool, delimiter: str = ","):

@@ -141,6 +141,24 @@ def test_a_fits_table_is_read(tmp_path, capsys):
     assert code == 0 and "5 of 5 systems computed" in err
 
 
+@pytest.mark.parametrize("ext", ["csv", "ecsv"])
+def test_a_cell_beyond_a_double_is_read_as_the_service_reads_it(tmp_path, capsys, ext):
+    # 1e-400 is no 0 (astropy's reader makes it one): a period of it is refused as below the smallest
+    # normal double, an eccentricity of it is the 0 it rounds to, as in a table sent to the service
+    src = tmp_path / f"tiny.{ext}"
+    Table({"period": ["1e-400", "41.6"], "k1": [23.4, 23.4], "eccentricity": ["0.3", "1e-400"]}).write(src)
+    if ext == "csv":
+        src.write_text(src.read_text().replace('"', ""))
+    else:
+        src.write_text(src.read_text().replace("string", "float64").replace('"', ""))
+    code, _, err = run(capsys, "sb1", "--in", str(src), "--out", str(tmp_path / "o.csv"))
+    assert code == 0, err
+    out = Table.read(tmp_path / "o.csv", format="ascii.csv")
+    assert "below the smallest normal double" in out["error"][0]
+    plain = Client("local").calculate("sb1", period=41.6, k1=23.4, eccentricity=0.0)
+    assert out["mass_function[solMass]"][1] == plain["results"]["mass_function"]["value"]
+
+
 def test_summary_groups_failures_by_reason(tmp_path, capsys):
     src = tmp_path / "cat.csv"
     src.write_text("period,k1,eccentricity\n41.6,23.4,0.3\n-1,23.4,0.3\n-2,23.4,0.3\n12.0,23.4,\n")
