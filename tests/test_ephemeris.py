@@ -419,3 +419,18 @@ def test_a_date_beyond_any_epoch_is_refused_naming_it(client, field, value):
     status, doc = post(client, "/v1/orbit/ephemeris", body)
     assert status == 422 and list(doc["errors"]) == [field]
     assert float(np.spacing(1e8)) < 2e-8 and float(np.spacing(1e20)) == 16384.0        # numpy's own spacing
+
+
+def test_iso_times_with_a_lower_case_t_and_z_are_read(client):
+    # RFC 3339 sec. 5.6: "T" and "Z" may be written in lower case; Python's datetime.fromisoformat
+    # (3.11) reads "2024-05-01t12:00:00z" as 12:00 UTC, and astropy.time gives that instant's JD
+    import datetime as dt
+    texts = ["2024-05-01t12:00:00z", "2024-05-02t03:30:15.5+05:30", "2024-05-03T00:00:00z"]
+    utc = [dt.datetime.fromisoformat(t.upper()).astimezone(dt.timezone.utc) for t in texts]
+    jd = [Time(u.replace(tzinfo=None), scale="utc").jd for u in utc]
+    status, body = post(client, PATH, _body(times=texts, t_periastron={"value": texts[0], "sigma": 0.5}))
+    assert status == 200, body
+    assert body["results"]["series"]["time"]["value"] == pytest.approx(jd, abs=1e-9)
+    assert body["inputs"]["t_periastron"]["value"] == texts[0]            # echoed as given
+    status, problem = post(client, PATH, _body(t_periastron="2024-05-01x12:00:00"))
+    assert status == 422 and "t_periastron" in problem["errors"]

@@ -151,10 +151,14 @@ def _utc_jd(t, bare: list[str], minutes: np.ndarray, what) -> np.ndarray:
     return _minus_minutes(t, minutes).jd
 
 
+# RFC 3339 sec. 5.6 allows a lower-case "t" between date and time and "z" for UTC; astropy reads upper case
+_LOWER_T_Z = re.compile(r"(?<=\d)t(?=\d)|(?<=\d)z$")
+
+
 def _utc_offsets(texts: list[str]) -> tuple[list[str], np.ndarray]:
     """The strings without their UTC offsets, and each offset in minutes (0 where none)."""
-    bare, minutes = list(texts), np.zeros(len(texts))
-    for k, text in enumerate(texts):
+    bare, minutes = [_LOWER_T_Z.sub(lambda m: m[0].upper(), t) for t in texts], np.zeros(len(texts))
+    for k, text in enumerate(bare):
         m = _OFFSET.fullmatch(text)
         if m:
             bare[k] = m[1]
