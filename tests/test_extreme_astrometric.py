@@ -19,12 +19,10 @@ import pytest
 from calcservice.core import compute, compute_batch
 from calcservice.physics import astrometric
 
+from .mpmath_helpers import precision, relative_error
 
-@pytest.fixture(autouse=True)
-def working_precision():
-    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
-    with mp.workdps(50):
-        yield
+
+working_precision = precision(50)
 
 
 CONSTANTS = compute("visual", {"period": 1.0, "angular_semimajor_axis": 1.0, "parallax": 1.0})["provenance"][
@@ -36,10 +34,6 @@ DAY = mp.mpf(86400)
 
 def kepler_mass(a_au, period):
     return 4 * mp.pi ** 2 * (a_au * AU) ** 3 / (GM * (mp.mpf(period) * DAY) ** 2)
-
-
-def relative_error(value, reference):
-    return float(abs((mp.mpf(float(value)) - reference) / reference))
 
 
 def degrees_error(value, reference, period=360):

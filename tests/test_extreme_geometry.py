@@ -15,12 +15,10 @@ import pytest
 
 from calcservice.core import compute, compute_batch
 
+from .mpmath_helpers import precision, relative_error
 
-@pytest.fixture(autouse=True)
-def working_precision():
-    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
-    with mp.workdps(50):
-        yield
+
+working_precision = precision(50)
 
 
 CONSTANTS = compute("geometry", {"period": 1.0, "eccentricity": 0.1, "m1": 1.0, "m2": 1.0})["provenance"]["constants"]
@@ -28,10 +26,6 @@ GM = mp.mpf(CONSTANTS["GM_sun"]["value"])
 AU = mp.mpf(CONSTANTS["au"]["value"])
 R_SUN = mp.mpf(CONSTANTS["R_sun"]["value"])
 DAY = mp.mpf(CONSTANTS["day"]["value"])
-
-
-def relative_error(value, reference):
-    return float(abs((mp.mpf(float(value)) - reference) / reference))
 
 
 def eggleton(q):

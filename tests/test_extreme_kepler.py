@@ -16,12 +16,10 @@ import pytest
 from calcservice.core import compute
 from calcservice.physics import kepler
 
+from .mpmath_helpers import precision, relative_error
 
-@pytest.fixture(autouse=True)
-def working_precision():
-    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
-    with mp.workdps(50):
-        yield
+
+working_precision = precision(50)
 
 
 def reference_eccentric_anomaly(mean_anomaly, eccentricity):
@@ -47,11 +45,6 @@ def reference_true_anomaly(big_e, eccentricity):
     k = mp.floor(big_e / (2 * mp.pi) + mp.mpf(1) / 2)
     half = (big_e - (2 * mp.pi) * k) / 2
     return 2 * mp.atan2(mp.sqrt(1 + e) * mp.sin(half), mp.sqrt(1 - e) * mp.cos(half)) + (2 * mp.pi) * k
-
-
-def relative_error(value, reference):
-    reference = mp.mpf(reference)
-    return float(abs((mp.mpf(float(value)) - reference) / reference)) if reference != 0 else abs(float(value))
 
 
 ECCENTRICITIES = [0.0, 0.3, 0.9, 0.99, 0.999, 0.9999, 0.99999, 1 - 1e-8, 1 - 1e-12]

@@ -16,13 +16,11 @@ import pytest
 
 from calcservice.core import compute, compute_batch
 
+from .mpmath_helpers import precision, relative_error
 
-@pytest.fixture(autouse=True)
-def working_precision():
-    """80 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
-    # 50 digits and more: the derivatives below difference roots found to 1e-70
-    with mp.workdps(80):
-        yield
+
+# 50 digits and more: the derivatives below difference roots found to 1e-70
+working_precision = precision(80)
 
 
 CONSTANTS = compute("sb2", {"period": 1.0, "k1": 1.0, "k2": 1.0, "eccentricity": 0.0})["provenance"]["constants"]
@@ -96,10 +94,6 @@ def reference_sb2(period, k1, k2, eccentricity, inclination):
     return {"mass_ratio": k1_ / k2_, "m1_sin3i": common * k2_, "m2_sin3i": common * k1_, "a_sin_i": a1 + a2,
             "a1_sin_i": a1, "a2_sin_i": a2, "m1": m1, "m2": m2, "total_mass": m1 + m2, "semimajor_axis": a,
             "periastron_distance": a * (1 - e), "apastron_distance": a * (1 + e)}
-
-
-def relative_error(value, reference):
-    return float(abs((mp.mpf(float(value)) - reference) / reference))
 
 
 #: the corners: e from 0 to 1 - 1e-10; i from 1e-6 deg to 180 - 1e-6 deg and within 1e-7 deg of 90; K from

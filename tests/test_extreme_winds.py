@@ -20,16 +20,10 @@ import pytest
 
 from calcservice.core import compute, compute_batch
 
-
-@pytest.fixture(autouse=True)
-def working_precision():
-    """50 significant digits for every reference here, whatever another module set (mpmath's precision is global)."""
-    with mp.workdps(50):
-        yield
+from .mpmath_helpers import precision, relative_error
 
 
-def relative_error(value, reference):
-    return float(abs((mp.mpf(float(value)) - reference) / reference))
+working_precision = precision(50)
 
 
 def reference_eichler_usov(eta):
