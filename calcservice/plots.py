@@ -121,7 +121,6 @@ def histogram_bins(draws: np.ndarray) -> np.ndarray | int:
     d = np.asarray(draws, dtype=float)
     with np.errstate(over="ignore"):
         spread = np.ptp(d) if d.size else 0.0
-    with np.errstate(over="ignore"):
         # the axes pad the span and step their ticks over it: draws within 1/16 of the largest double
         # overflow matplotlib's arithmetic where the span itself did not
         roomy = np.isfinite(16.0 * np.max(np.abs(d))) if d.size else True

@@ -364,9 +364,6 @@ def as_given(value: float, sigma: float | None = None, minus: float | None = Non
         places = max(max(0, -d.as_tuple().exponent) for d in digits.values())
         value = digits.pop("value").quantize(Decimal(1).scaleb(-places))
         text = {k: format(d, "f") for k, d in digits.items()}
-    if "minus" in text and text["minus"] == text.get("plus"):
-        text["sigma"] = text.pop("plus")
-        del text["minus"]
     return Printed(format(value, "f"), sigma=text.get("sigma"), plus=text.get("plus"), minus=text.get("minus"),
                    exponent=exponent)
 
