@@ -115,6 +115,7 @@ class Input:
     time: bool = False
     example: Any = None
     label: str | None = None       # key of a series input's values in the response (default: its name)
+    unused_with: tuple[str, ...] = ()   # given beside all of these it changes nothing (warning input_unused)
 
     def as_dict(self) -> dict:
         d: dict[str, Any] = {"name": self.name, "kind": self.kind, "description": self.description,
@@ -270,6 +271,9 @@ def register(calc: Calculation) -> Calculation:
     names = [i.name for i in calc.inputs]
     if len(set(names)) != len(names):
         raise ValueError(f"{calc.name}: duplicate input names")
+    idle = {i.name: sorted(set(i.unused_with) - set(names)) for i in calc.inputs if set(i.unused_with) - set(names)}
+    if idle:
+        raise ValueError(f"{calc.name}: unused_with names inputs the calculation does not have: {idle}")
     uncited = sorted({r for o in calc.outputs for r in o.references} - set(calc.references))
     if uncited:
         raise ValueError(f"{calc.name}: outputs cite references the calculation does not list: {uncited}")

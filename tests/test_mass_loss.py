@@ -696,3 +696,56 @@ def test_systemic_velocity_is_held_to_c(client):
     assert status == 422 and "gamma" in doc["errors"] and "-299792.458" in doc["errors"]["gamma"][0]
     status, doc = post(client, "/v1/orbit/ephemeris", {**body, "gamma": -3000.0})
     assert status == 200
+
+
+# --- a choice given where the answer does not depend on it -------------------------------------------------
+
+MOMENTUM = "/v1/winds/mass-loss/momentum-ratio"
+RADIO = "/v1/winds/mass-loss/radio"
+
+
+def _unused(doc):
+    return [w["fields"] for w in doc["warnings"] if w["code"] == "input_unused"]
+
+
+def test_opening_angle_formula_beside_a_momentum_ratio_is_said_unused(client):
+    body = {"momentum_ratio": 0.05, "opening_angle_formula": "eu93", "mdot1": 2e-5, "vinf1": 2500.0, "vinf2": 1500.0}
+    status, doc = post(client, MOMENTUM, body)
+    assert status == 200
+    assert _unused(doc) == [["opening_angle_formula"]]
+    # eta = Mdot2 v2 / (Mdot1 v1) (Stevens, Blondin & Pollock 1992, ApJ 386, 265; from memory)
+    assert doc["results"]["mdot2"]["value"] == pytest.approx(0.05 * 2e-5 * 2500.0 / 1500.0, rel=1e-15)
+    # where the formula is used, or not chosen, nothing is said
+    angle = {**body, "opening_half_angle": 38.0}
+    del angle["momentum_ratio"]
+    assert _unused(post(client, MOMENTUM, angle)[1]) == []
+    del body["opening_angle_formula"]
+    assert _unused(post(client, MOMENTUM, body)[1]) == []
+
+
+def test_wind_type_beside_every_value_it_fills_is_said_unused(client):
+    own = {"mu": 4.0, "z_rms": 1.0, "gamma_e": 1.0, "temperature": 1.0e4}
+    body = {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700.0, **own}
+    status, plain = post(client, RADIO, body)
+    status_wn, wn = post(client, RADIO, {**body, "wind_type": "wn"})
+    assert status == status_wn == 200
+    assert _unused(plain) == [] and _unused(wn) == [["wind_type"]]
+    # and indeed the rate is the same: every value the type would fill was given
+    assert wn["results"]["mass_loss_rate"] == plain["results"]["mass_loss_rate"]
+    # one value left to the type: the type is used (a WN wind's mu differs from an O star's)
+    partial = {k: v for k, v in body.items() if k != "mu"}
+    o_star = post(client, RADIO, partial)[1]
+    wn_partial = post(client, RADIO, {**partial, "wind_type": "wn"})[1]
+    assert _unused(wn_partial) == []
+    assert wn_partial["results"]["mass_loss_rate"]["value"] != o_star["results"]["mass_loss_rate"]["value"]
+
+
+def test_unused_choice_is_said_per_system_in_a_batch(client):
+    common = {"opening_angle_formula": "eu93", "mdot1": 2e-5, "vinf1": 2500.0, "vinf2": 1500.0}
+    rows = post(client, "/v1/batch/mass-loss-momentum-ratio",
+                {"systems": [{**common, "momentum_ratio": 0.05}, {**common, "opening_half_angle": 38.0}]})[1]
+    assert [_unused(r) for r in rows["results"]] == [[["opening_angle_formula"]], []]
+    columns = post(client, "/v1/batch/mass-loss-momentum-ratio",
+                   {"columns": {**common, "momentum_ratio": [0.05, None], "opening_half_angle": [None, 38.0]}})[1]
+    said = [w for w in columns["warnings"] if w["code"] == "input_unused"]
+    assert [(w["fields"], w["rows"]) for w in said] == [(["opening_angle_formula"], [0])]

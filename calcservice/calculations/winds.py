@@ -295,7 +295,8 @@ register(Calculation(
         Input("vinf", "km/s", "terminal wind speed", SPEED, example=1700.0),
         Input("wind_type", "", "composition whose defaults fill mu, z_rms, gamma_e and temperature when not given: "
               + ", ".join(f"{kind} ({WIND_COMPOSITIONS[kind]}, {_wind_defaults(kind)})" for kind in phys.WIND_TYPES),
-              kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star", example="wn"),
+              kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star", example="wn",
+              unused_with=("mu", "z_rms", "gamma_e", "temperature")),
         Input("mu", "", "mean atomic weight per ion (default from wind_type)", POSITIVE, required=False,
               example=4.0),
         Input("z_rms", "", "rms ionic charge (default from wind_type)", POSITIVE, required=False, example=1.0),
@@ -465,7 +466,8 @@ register(Calculation(
               "the weaker wind (or give momentum_ratio)", HALF_ANGLE, required=False, example=38.0),
         Input("opening_angle_formula", "", "formula inverted for an opening_half_angle (not used with "
               "momentum_ratio): eu93 (Eichler & Usov 1993) or crw96 (Cantó, Raga & Wilkin 1996)", kind="choice",
-              choices=("eu93", "crw96"), required=False, default="crw96", example="crw96"),
+              choices=("eu93", "crw96"), required=False, default="crw96", example="crw96",
+              unused_with=("momentum_ratio",)),
         _mdot("mdot1", "1", 2.0e-5, required=False, extra=" (give this or mdot2)"),
         _mdot("mdot2", "2", 1.0e-6, required=False, extra=" (give this or mdot1)"),
         _vinf("vinf1", "1", 2500.0),

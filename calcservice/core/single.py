@@ -24,6 +24,7 @@ def run(parsed: Parsed) -> Result:
         raise invalid(e.errors, e.detail) from None
     result.warnings.extend(underflows(parsed.calc, result, parsed.statics))
     result.warnings.extend(misread_dates(parsed))
+    result.warnings.extend(unused_inputs(parsed))
     if result.failed:
         _name_what_fails(parsed, result)
         _name_draws_out_of_domain(parsed, result)
@@ -214,6 +215,22 @@ def underflows(calc: Calculation, result: Result, statics: dict) -> list[Warning
                     "these inputs, where a number has lost its digits or underflowed to 0: the value given is "
                     "not the formula's", where, name)
             for name, where in hit.items() if where.any()]
+
+
+def unused_inputs(parsed: Parsed) -> list[Warning]:
+    """An ``input_unused`` warning for each input given beside every input that makes it idle
+    (:attr:`Input.unused_with`): an answer that does not depend on a choice the caller made should
+    say so, or the caller believes it did (an opening-angle formula beside a momentum ratio)."""
+    given = parsed.given
+    out = []
+    for spec in parsed.calc.inputs:
+        if spec.unused_with and spec.name in given and given.issuperset(spec.unused_with):
+            idle = spec.unused_with
+            because = (f"{idle[0]} is given" if len(idle) == 1 else
+                       f"{', '.join(idle[:-1])} and {idle[-1]} are all given")
+            out.append(Warning("input_unused", f"{{subject}} is not used when {because}: the answer does not "
+                               "depend on it", None, spec.name))
+    return out
 
 
 #: A Julian Date below this is before 4439 BC, while every MJD of 1858 to 2132 is: an MJD given as a JD.
