@@ -97,3 +97,18 @@ def test_bad_inputs_name_the_field(client, change):
     field = next(iter(change))
     status, doc = post(client, PATH, _body(**change))
     assert status == 422 and field in doc["errors"], doc
+
+
+def test_a_shell_formed_before_the_earliest_date_read_is_refused(client):
+    # shell n forms at T + n P: n = -32000 gives JD 2457310 - 99840000 = -97382690, a date the service
+    # reads (within 1e8 d of JD 0); n = -33000 gives JD -100502690, before any date it reads, and n = -2**60
+    # an age of 1e19 yr, which was answered
+    assert T_FORM - 32000 * P == -97382690.0 and T_FORM - 33000 * P == -100502690.0
+    status, doc = post(client, PATH, _body(shells=[-32000, 0]))
+    assert status == 200
+    # age = t_obs - t_n in Julian years of 365.25 d (IAU)
+    assert doc["results"]["series"]["age"]["value"][0] == pytest.approx((T_OBS + 97382690.0) / 365.25, rel=1e-12)
+    for shells in ([-33000, 0], [-2**60], [-1e300]):
+        status, doc = post(client, PATH, _body(shells=shells))
+        assert status == 422 and list(doc["errors"]) == ["shells"], doc
+        assert "formed on or after JD -1e+08" in doc["errors"]["shells"][0]

@@ -689,6 +689,15 @@ def _shells_formed(shells=None, period=None, formation_epoch=None, observation_d
     return np.asarray(observation_date) >= np.asarray(formation_epoch) + last * np.asarray(period)
 
 
+def _shells_dated(shells=None, period=None, formation_epoch=None, **_):
+    """The earliest shell's formation date is a date the service reads (the DATE domain): a shell
+    numbered -1e15 would have formed long before the Universe, an answer to nothing asked."""
+    if shells is None or period is None or formation_epoch is None:
+        return _rows(True)
+    first = np.asarray(formation_epoch) + np.min(shells) * np.asarray(period)
+    return first >= DATE.low
+
+
 register(Calculation(
     name="shell-forecast",
     path="/v1/winds/shell-forecast",
@@ -729,6 +738,8 @@ register(Calculation(
         Constraint(("shells",), "shell numbers are whole numbers", _whole_shells),
         Constraint(("shells",), "every listed shell must have formed by observation_date (shell n forms at "
                    "formation_epoch + n period)", _shells_formed),
+        Constraint(("shells",), f"every listed shell must have formed on or after JD {DATE.low:g}, the earliest date "
+                   "read here (shell n forms at formation_epoch + n period)", _shells_dated),
     ),
     check=with_speed_check(None, ("expansion_speed",)),
     example={"period": {"value": 3120.0, "sigma": 20.0}, "formation_epoch": {"value": 2457310.0, "sigma": 15.0},
