@@ -282,17 +282,21 @@ class BatchResult(dict):
         return df
 
     def _summary(self, limit: int) -> tuple[str, list[str], list[list[str]]]:
-        """Title, header and the first ``limit`` rows (value ± sigma per scalar output, then the error) of both reprs."""
+        """Title, header and the first ``limit`` rows of both reprs: value ± sigma per scalar output, then
+        the warnings' codes where some system has any, then the error."""
         names = [n for n in self if np.ndim(self[n]) == 1]
         rows = []
         errors = self.error_text()
+        codes = [", ".join(c) for c in self.warning_codes()]
+        warned = sum(1 for c in codes if c)
         for i in range(min(self.count, limit)):
             rows.append([str(i)] + [_pm(self[n][i], self.sigma.get(n, [None] * self.count)[i]) for n in names]
-                        + [errors[i]])
-        header = ["#"] + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names] + ["error"]
+                        + ([codes[i]] if warned else []) + [errors[i]])
+        header = (["#"] + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
+                  + (["warnings"] if warned else []) + ["error"])
         more = f", first {limit} shown" if self.count > limit else ""
         title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
-                 f"{len(self.failed)} failed{more}")
+                 f"{len(self.failed)} failed" + (f", {warned} with warnings" if warned else "") + more)
         return title, header, rows
 
     def _repr_html_(self, limit: int = 20) -> str:

@@ -463,3 +463,15 @@ def test_an_inclination_column_mixing_isotropic_and_angles_in_a_table_and_a_data
                 values = np.where(np.ma.getmaskarray(column), np.nan, np.ma.getdata(column.value))
                 # the same floats as the JSON rows form of the same systems (NaN: not given there)
                 np.testing.assert_array_equal(values, want, err_msg=f"{transport} {type(data).__name__} {key}")
+
+
+def test_batch_repr_names_each_systems_warnings(svc):
+    # q = K1/K2 > 1 for the second system only: star 1 is then the less massive (Hilditch 2001, ch. 2: q = M2/M1 =
+    # K1/K2), which the service warns of; at a terminal the warning is seen beside that system
+    out = svc.batch("sb2", {"period": [41.6, 12.3], "k1": [38.2, 60.0], "k2": [51.7, 40.0], "eccentricity": [0.31, 0.0]})
+    assert out.warning_codes() == [[], ["primary_less_massive"]]
+    lines = repr(out).splitlines()
+    assert lines[0] == "<BatchResult sb2: 2 systems, 0 failed, 1 with warnings>"
+    assert lines[1].split()[-1] == "warnings" and lines[3].endswith("primary_less_massive")
+    assert not lines[2].rstrip().endswith("primary_less_massive")
+    assert "1 with warnings" in out._repr_html_() and "primary_less_massive" in out._repr_html_()
