@@ -397,3 +397,17 @@ def test_a_sigma_that_leaves_no_draw_in_the_domain_names_the_input(client):
         "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}}).get_json()
     assert [(e["index"], list(e["errors"])) for e in answer["errors"]] == [(0, ["eccentricity"])]
     assert answer["columns"]["mass_function"]["value"][1] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=0.02)
+
+
+def test_times_counted_from_zero_are_not_taken_for_mjds(client):
+    # days since an arbitrary T0 = 0 are no date in either format: as JDs they fall in 4713 BC, as MJDs in
+    # 1858 (astropy.time), where nobody observed; an MJD of the plate era on (MJD 10000 = 1886-04-04) is
+    from astropy.time import Time
+    assert Time(10000.0, format="mjd", scale="tt").iso.startswith("1886-04-04")
+    relative = {**EPHEMERIS, "t_periastron": 0.0, "times": [0.0, 12.5, 250.0, 9999.0]}
+    r = client.post("/v1/orbit/ephemeris", json=relative).get_json()
+    assert not [w for w in r["warnings"] if w["code"] == "date_format_suspect"]
+    # the phase of t days after T0 = 0 is t/P mod 1, as for any T0 (no period derivative here)
+    assert r["results"]["series"]["phase"]["value"][2] == pytest.approx((250.0 / EPHEMERIS["period"]) % 1.0, rel=1e-12)
+    r = client.post("/v1/orbit/ephemeris", json={**relative, "times": [10000.0]}).get_json()
+    assert [w["fields"] for w in r["warnings"] if w["code"] == "date_format_suspect"] == [["times"]]

@@ -233,8 +233,10 @@ def unused_inputs(parsed: Parsed) -> list[Warning]:
     return out
 
 
-#: A Julian Date below this is before 4439 BC, while every MJD of 1858 to 2132 is: an MJD given as a JD.
-JD_LOOKS_LIKE_MJD = 1e5
+#: Julian Dates from 10000 to 100000 are in 4685 to 4439 BC, while as MJDs they are the dates of 1886 to 2132: an
+#: MJD given as a JD.  Smaller day counts are no observing date in either format: times counted from an
+#: arbitrary zero (T0 = 0 and days since), which are read as given without a word.
+JD_LOOKS_LIKE_MJD = (1e4, 1e5)
 #: An MJD above this is after AD 7334, while every JD since AD 763 is: a JD given with time_format mjd.
 MJD_LOOKS_LIKE_JD = 2e6
 
@@ -252,7 +254,8 @@ def misread_dates(parsed: Parsed) -> list[Warning]:
         name = spec.name
         jd = parsed.series[name] if name in parsed.series else parsed.quantities[name].value
         with np.errstate(invalid="ignore"):
-            where = jd - MJD_OFFSET >= MJD_LOOKS_LIKE_JD if mjd else (jd >= 0) & (jd < JD_LOOKS_LIKE_MJD)
+            low, high = JD_LOOKS_LIKE_MJD
+            where = jd - MJD_OFFSET >= MJD_LOOKS_LIKE_JD if mjd else (jd >= low) & (jd < high)
         if not where.any():
             continue
         if name in parsed.series:                 # one list for every system
@@ -261,8 +264,8 @@ def misread_dates(parsed: Parsed) -> list[Warning]:
             message = ("{subject}: an MJD of 2000000 or more is a date after AD 7334: if it is a Julian Date, leave "
                        "time_format out (or give jd)")
         else:
-            message = ("{subject}: a Julian Date below 100000 is a date before 4439 BC: if it is an MJD (JD - "
-                       "2400000.5), give time_format mjd")
+            message = ("{subject}: a Julian Date from 10000 to 100000 is a date in 4685 to 4439 BC: if it is an MJD "
+                       "(JD - 2400000.5), give time_format mjd")
         out.append(Warning("date_format_suspect", message, where, name))
     return out
 
