@@ -1011,6 +1011,22 @@ def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
     return out, seed
 
 
+def split_normal_within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray, low: float,
+                        high: float) -> np.ndarray:
+    """The probability that a draw of :func:`_draw`'s split normal (mode ``value``, half-widths
+    ``sigma_minus`` and ``sigma_plus``, each half weighted by its width) lies in [low, high]: the CDF
+    whose inverse :func:`_draw` takes; a normal's where the two are equal."""
+    total = sigma_minus + sigma_plus
+
+    def cdf(x: float) -> np.ndarray:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            left = 2 * sigma_minus / total * ndtr((x - value) / sigma_minus)
+            right = sigma_minus / total + 2 * sigma_plus / total * (ndtr((x - value) / sigma_plus) - 0.5)
+        return np.where(x < value, left, right)
+
+    return cdf(high) - cdf(low)
+
+
 def quantiles(y: np.ndarray, valid: np.ndarray, qs) -> list[np.ndarray]:
     """Linear-interpolation quantiles along axis 1 over the valid draws only."""
     ys = np.sort(np.where(valid.reshape(valid.shape + (1,) * (y.ndim - 2)), y, np.nan), axis=1)

@@ -263,3 +263,17 @@ def test_each_system_of_a_batch_gets_what_it_gets_alone(calc, quantities, static
         # a warning about an input that is not asymmetric in this row may still be listed for the batch
         assert {c for c in codes_alone if c[0] != "asymmetric_linearised"} == \
                {c for c in codes_here if c[0] != "asymmetric_linearised"}, r
+
+
+def test_split_normal_within_against_scipy():
+    from calcservice.engine import split_normal_within
+    v, sm, sp = np.array([2.0]), np.array([1.0]), np.array([3.0])
+    # a split normal puts sm / (sm + sp) of its weight below its mode (its halves weighted by their widths)
+    assert split_normal_within(v, sm, sp, -np.inf, 2.0)[0] == pytest.approx(0.25, rel=1e-15)
+    assert split_normal_within(v, sm, sp, -np.inf, np.inf)[0] == pytest.approx(1.0, rel=1e-15)
+    # each half is a normal of its own width scaled to its weight: scipy's normal CDF
+    above = 2 * 0.75 * (stats.norm.cdf(5.0, 2.0, 3.0) - 0.5)
+    assert split_normal_within(v, sm, sp, 2.0, 5.0)[0] == pytest.approx(above, rel=1e-14)
+    # equal halves: a normal
+    assert split_normal_within(v, sp, sp, 0.0, 3.0)[0] == pytest.approx(
+        stats.norm.cdf(3.0, 2.0, 3.0) - stats.norm.cdf(0.0, 2.0, 3.0), rel=1e-14)

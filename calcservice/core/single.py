@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 
 from ..config import Limits
-from ..engine import EngineError, Result, evaluate
+from ..engine import EngineError, Result, evaluate, split_normal_within
 from ..registry import Calculation, Warning
 from .parse import MJD_OFFSET, Parsed, find, parse
 from .problems import Problem, invalid
@@ -34,22 +34,6 @@ def run(parsed: Parsed) -> Result:
 NO_DRAW_KEPT = "every Monte Carlo draw fell outside"
 
 
-def _within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: np.ndarray, low: float, high: float) -> np.ndarray:
-    """The probability that a draw of a split normal (mode ``value``, half-widths ``sigma_minus`` and
-    ``sigma_plus``, each half weighted by its width: the engine's draw) lies in [low, high]; a normal
-    where the two are equal."""
-    from scipy.special import ndtr
-    total = sigma_minus + sigma_plus
-
-    def cdf(x: float) -> np.ndarray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            left = 2 * sigma_minus / total * ndtr((x - value) / sigma_minus)
-            right = sigma_minus / total + 2 * sigma_plus / total * (ndtr((x - value) / sigma_plus) - 0.5)
-        return np.where(x < value, left, right)
-
-    return cdf(high) - cdf(low)
-
-
 def _name_draws_out_of_domain(parsed: Parsed, result: Result) -> None:
     """A Monte Carlo system none of whose draws stayed within the inputs' domains is failed by the engine
     under ``_inputs``; where an input's own sigma puts it there (a draw within its domain is less than
@@ -65,7 +49,7 @@ def _name_draws_out_of_domain(parsed: Parsed, result: Result) -> None:
             continue
         domain = parsed.calc.input(name).domain
         pick = (lambda a: np.broadcast_to(a, (parsed.count,))[at])
-        p = _within(pick(q.value), pick(q.sigma_minus), pick(q.sigma_plus), domain.low, domain.high)
+        p = split_normal_within(pick(q.value), pick(q.sigma_minus), pick(q.sigma_plus), domain.low, domain.high)
         blamed[name] = p
     for j, row in enumerate(rows):
         names = [name for name, p in blamed.items() if p[j] * result.samples < 1]
