@@ -225,9 +225,9 @@ def table(response: dict, calc: Calculation) -> str:
         lines += [""] + _columns(header, body, right=True)
     for label, unit, entries in report.event_lists({k: v for k, v in results.items()
                                                     if k != "series" and not report.is_measured(v)}):
-        keys = [k for k in entries[0] if k not in ("value", "sigma", "low", "high")]
+        keys = report.event_keys(entries)
         body = [[style.number(report.printed(e.get("value"), sigma=e.get("sigma"), digits=12))]
-                + [report._short(e.get(k)) for k in keys] for e in entries]
+                + [report.short_text(e.get(k)) for k in keys] for e in entries]
         lines += ["", label.replace("_", " ")] + _columns([f"date [{unit}]" if unit else "date"] + keys, body)
     warnings = response.get("warnings", [])
     if warnings:

@@ -82,6 +82,9 @@ ANY = Domain()
 # a date as a Julian Date (MJD converted): within about 270,000 years of JD 0, where a double still
 # resolves 15 ms; far beyond it a date is a typing slip and its cycles count would be rounding noise
 DATE = Domain(-1e8, 1e8)
+#: a time below JD 10000 (4685 BC) is no observing date in any format: a count of days from an
+#: arbitrary zero (T0 = 0 and days since), read as given, with no calendar date and no date warning
+DAY_COUNTS_BELOW = 1e4
 ECCENTRICITY = Domain(0.0, 1.0, high_open=True)
 INCLINATION = Domain(0.0, 180.0, low_open=True, high_open=True)
 ANGLE = Domain(-360.0, 360.0)

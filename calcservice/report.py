@@ -434,6 +434,13 @@ def series_rows(series: Mapping[str, Any]) -> tuple[list[str], list[str], list[l
     return names, units, rows
 
 
+def event_keys(entries: list[dict]) -> list[str]:
+    """The members of an event list shown beside its dates: those some entry has (an ISO date is none for
+    a day count from an arbitrary zero: no column of blanks)."""
+    return [k for k in entries[0] if k not in ("value", "sigma", "low", "high")
+            and any(e.get(k) is not None for e in entries)]
+
+
 def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]:
     """Extra members of the results made of lists of dated/measured entries (e.g. an ephemeris's events)."""
     out = []
@@ -651,7 +658,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     for label, unit, entries in event_lists({k: v for k, v in results.items()
                                               if k != "series" and not is_measured(v)}):
         doc.heading(label.replace("_", " ").capitalize())
-        keys = [k for k in entries[0] if k not in ("value", "sigma", "low", "high")]
+        keys = event_keys(entries)
         fields = event_field_units(results, label)
         header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [
             s.text(k) + (f" [{s.unit(fields[k])}]" if fields.get(k) else "") for k in keys]
@@ -660,13 +667,13 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             v = e.get("value")
             sig = e.get("sigma")
             p = printed(v, sigma=sig, digits=12) if _finite(v) else None
-            body.append([s.number(p)] + [s.text(_short(e.get(k))) for k in keys])
+            body.append([s.number(p)] + [s.text(short_text(e.get(k))) for k in keys])
         doc.table(header, body)
     notes = event_notes(results)
     if notes:
         doc.heading("Notes on the events")
         doc.items([s.text(f"{label}: ") + ", ".join(
-            s.text(f"{k} = {_short(v)}") + (f" {s.unit(u)}" if u else "") for k, v, u in values)
+            s.text(f"{k} = {short_text(v)}") + (f" {s.unit(u)}" if u else "") for k, v, u in values)
             for label, values in notes])
 
     doc.heading("Formulas")
@@ -749,7 +756,8 @@ def _budget_section(doc: _Doc, results: Mapping[str, Any], unc: Mapping[str, Any
         doc.para(s.text("Uncertainty budget not given for " + "; and for ".join(parts) + "."))
 
 
-def _short(x: Any) -> str:
+def short_text(x: Any) -> str:
+    """A cell of an event table: a float to 6 significant digits, nothing for None."""
     if isinstance(x, float):
         return format(x, ".6g")
     if x is None:

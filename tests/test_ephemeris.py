@@ -434,3 +434,21 @@ def test_iso_times_with_a_lower_case_t_and_z_are_read(client):
     assert body["inputs"]["t_periastron"]["value"] == texts[0]            # echoed as given
     status, problem = post(client, PATH, _body(t_periastron="2024-05-01x12:00:00"))
     assert status == 422 and "t_periastron" in problem["errors"]
+
+
+def test_days_counted_from_zero_have_no_calendar_date_and_no_leap_second_warning(client):
+    # a time below JD 10000 (4685 BC by astropy.time) is no observing date: days since T0 = 0, whose calendar
+    # date and leap seconds mean nothing; from JD 10000 on a date is a date
+    assert Time(1e4, format="jd", scale="tt").jyear < -4684
+    assert iso_dates(np.array([9999.5, -500.0]))[0] is None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")             # ERFA: a "dubious year" for UTC before 1960
+        assert iso_dates(np.array([1e4]))[0] == Time(1e4, format="jd", scale="utc", precision=0).isot
+    status, body = post(client, PATH, _body(t_periastron={"value": 0.0, "sigma": 0.9}, times=[-10.0, 0.0, 100.0],
+                                            count=2))
+    assert status == 200, body
+    assert not [w for w in body["warnings"] if w["code"] in ("leap_seconds_unknown", "date_format_suspect")]
+    periastra = body["results"]["events"]["periastron"]
+    assert [e["iso"] for e in periastra] == [None, None]
+    # listed from the earliest time (-10 d): periastron at T0 + k P = 0 and P (no apsidal motion, no Pdot)
+    assert [e["value"] for e in periastra] == pytest.approx([0.0, P], rel=1e-14, abs=1e-12)

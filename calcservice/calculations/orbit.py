@@ -9,7 +9,8 @@ import numpy as np
 
 from ..constants import MJD_ZERO_JD
 from ..physics import orbit as phys
-from ..registry import ANGLE, ANY, DATE, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
+from ..registry import (ANGLE, ANY, DATE, DAY_COUNTS_BELOW, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input,
+                        Output, Warning, register)
 from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SPEED, SYMBOLS, VELOCITY,
                      cited, eccentricity, period, with_speed_check)
 
@@ -60,7 +61,8 @@ ORBIT_CONVENTIONS = {
                          "both stars are always given in events.light_travel_time (days); the correction's own "
                          "uncertainty is not propagated",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
-           "for leap seconds",
+           "for leap seconds; none for a number below JD 10000 (4685 BC), a count of days from an arbitrary zero "
+           "(T0 = 0)",
 }
 
 
@@ -75,12 +77,12 @@ def leap_second_span() -> tuple[float, float]:
 
 
 def iso_dates(jd: np.ndarray) -> np.ndarray:
-    """ISO 8601 strings of Julian Dates (None where not finite), by astropy.time."""
+    """ISO 8601 strings of Julian Dates, by astropy.time; None where not finite, beyond year 9999 (the ISO
+    form's last), or a day count from an arbitrary zero (below DAY_COUNTS_BELOW: no calendar date)."""
     from astropy.time import Time
     jd = np.asarray(jd, dtype=float)
     out = np.full(jd.shape, None, dtype=object)
-    # astropy.time calendar dates run from year -4712 to 9999 in ISO form
-    ok = np.isfinite(jd) & (jd > 0.0) & (jd < 5373484.5)
+    ok = np.isfinite(jd) & (jd >= DAY_COUNTS_BELOW) & (jd < 5373484.5)
     if np.any(ok):
         with _warnings.catch_warnings():
             # dates without known leap seconds get our own warning (see _ephemeris_check)
@@ -90,9 +92,10 @@ def iso_dates(jd: np.ndarray) -> np.ndarray:
 
 
 def _outside_leap_seconds(jd: np.ndarray) -> np.ndarray:
+    """Dates (not day counts from an arbitrary zero) outside the span of known leap seconds."""
     lo, hi = leap_second_span()
     jd = np.asarray(jd, dtype=float)
-    return np.isfinite(jd) & ((jd < lo) | (jd > hi))
+    return np.isfinite(jd) & (jd >= DAY_COUNTS_BELOW) & ((jd < lo) | (jd > hi))
 
 
 # --------------------------------------------------------------------------- ephemeris

@@ -9,7 +9,7 @@ import numpy as np
 
 from ..config import Limits
 from ..engine import EngineError, Result, evaluate, split_normal_within
-from ..registry import Calculation, Warning
+from ..registry import DAY_COUNTS_BELOW, Calculation, Warning
 from .parse import MJD_OFFSET, Parsed, find, parse
 from .problems import Problem, invalid
 from .render import Rendering
@@ -218,9 +218,8 @@ def unused_inputs(parsed: Parsed) -> list[Warning]:
 
 
 #: Julian Dates from 10000 to 100000 are in 4685 to 4439 BC, while as MJDs they are the dates of 1886 to 2132: an
-#: MJD given as a JD.  Smaller day counts are no observing date in either format: times counted from an
-#: arbitrary zero (T0 = 0 and days since), which are read as given without a word.
-JD_LOOKS_LIKE_MJD = (1e4, 1e5)
+#: MJD given as a JD.  Smaller numbers are day counts from an arbitrary zero (registry.DAY_COUNTS_BELOW).
+JD_LOOKS_LIKE_MJD = (DAY_COUNTS_BELOW, 1e5)
 #: An MJD above this is after AD 7334, while every JD since AD 763 is: a JD given with time_format mjd.
 MJD_LOOKS_LIKE_JD = 2e6
 
