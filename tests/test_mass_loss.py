@@ -749,3 +749,17 @@ def test_unused_choice_is_said_per_system_in_a_batch(client):
                    {"columns": {**common, "momentum_ratio": [0.05, None], "opening_half_angle": [None, 38.0]}})[1]
     said = [w for w in columns["warnings"] if w["code"] == "input_unused"]
     assert [(w["fields"], w["rows"]) for w in said] == [(["opening_angle_formula"], [0])]
+
+
+def test_unused_choice_is_said_per_system_where_rows_are_parsed_one_by_one(client):
+    # rows with options of their own go through the single-request parser and are grouped by what they
+    # share: the row that gave wind_type and the row that did not must not share its warning
+    own = {"mu": 4.0, "z_rms": 1.0, "gamma_e": 1.0, "temperature": 1.0e4, "units": {"mass_loss_rate": "solMass/yr"}}
+    base = {"flux_density": 1.8, "frequency": 8.4, "vinf": 1700.0, **own}
+    rows = [{**base, "wind_type": "o-star", "distance": {"value": 2.1, "unit": "kpc"}},
+            {**base, "distance": {"value": 2100.0, "unit": "pc"}}]
+    doc = post(client, "/v1/batch/mass-loss-radio", {"systems": rows})[1]
+    assert [_unused(r) for r in doc["results"]] == [[["wind_type"]], []]
+    # 2.1 kpc = 2100 pc (astropy): the same rate for both
+    assert doc["results"][0]["results"]["mass_loss_rate"]["value"] == pytest.approx(
+        doc["results"][1]["results"]["mass_loss_rate"]["value"], rel=1e-14)

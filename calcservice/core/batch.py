@@ -380,7 +380,7 @@ def _signature(p: Parsed) -> tuple:
     o = p.options
     return (tuple((name, None if q.samples is None else q.samples.shape[1], _form(q))
                   for name, q in p.quantities.items()),
-            tuple((k, _frozen(v)) for k, v in p.statics.items()), p.time_format,
+            tuple((k, _frozen(v)) for k, v in p.statics.items()), p.time_format, p.given,
             o.method, o.samples, o.seed, tuple(sorted(o.correlations.items())), tuple(sorted(p.output_units.items())))
 
 
