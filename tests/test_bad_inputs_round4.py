@@ -411,3 +411,31 @@ def test_times_counted_from_zero_are_not_taken_for_mjds(client):
     assert r["results"]["series"]["phase"]["value"][2] == pytest.approx((250.0 / EPHEMERIS["period"]) % 1.0, rel=1e-12)
     r = client.post("/v1/orbit/ephemeris", json={**relative, "times": [10000.0]}).get_json()
     assert [w["fields"] for w in r["warnings"] if w["code"] == "date_format_suspect"] == [["times"]]
+
+
+# --- 11. a body nested beyond what orjson writes back, and bodies that are not well-formed ---------
+
+@pytest.mark.parametrize("depth", [255, 300, 600])
+@pytest.mark.parametrize("shape", ["array", "object"])
+def test_a_body_nested_hundreds_deep_is_a_400_naming_the_body(client, depth, shape):
+    # orjson writes at most 254 levels (its documented recursion limit, from memory): the check for
+    # repeated names wrote such a parsed body back and failed with a 500
+    body = b"[" * depth + b"]" * depth if shape == "array" else b'{"a":' * depth + b"1" + b"}" * depth
+    for path in (SB2, "/v1/batch/sb2"):
+        r = client.post(path, data=body, content_type="application/json")
+        assert r.status_code == 400, (path, r.get_json())
+        assert r.get_json()["errors"] == {"_body": ["must be nested at most 32 levels deep"]}
+
+
+def test_a_body_that_is_not_well_formed_names_the_body_or_the_header(client):
+    import gzip
+    r = client.post(SB2, data=b'{"period": 4', content_type="application/json")
+    assert r.status_code == 400 and list(r.get_json()["errors"]) == ["_body"]
+    assert "not valid JSON" in r.get_json()["errors"]["_body"][0]
+    r = client.post(SB2, data=b"\xff\xfe", content_type="application/json")
+    assert r.status_code == 400 and r.get_json()["errors"] == {"_body": ["must be UTF-8 text"]}
+    r = client.post(SB2, data=gzip.compress(b"{}")[:-5], content_type="application/json",
+                    headers={"Content-Encoding": "gzip"})
+    assert r.status_code == 400 and r.get_json()["errors"] == {"_body": ["is a gzip stream cut short"]}
+    r = client.post(SB2, data=b"{}", content_type="text/plain")
+    assert r.status_code == 415 and r.get_json()["errors"] == {"Content-Type": ["must be application/json"]}

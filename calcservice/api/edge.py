@@ -104,7 +104,10 @@ def _lost_members(data: bytes, body) -> bool:
     a name separator per member it kept, the body one per member sent, and the strings' own colons in
     both; an escape in the body could hide a colon, so a body with one is looked at by the standard
     library too."""
-    return b"\\u" in data or orjson.dumps(body).count(b":") != data.count(b":")
+    try:
+        return b"\\u" in data or orjson.dumps(body).count(b":") != data.count(b":")
+    except orjson.JSONEncodeError:      # deeper than orjson writes (a max_json_depth set above 254)
+        return True
 
 
 def _depth_exceeds(data: bytes, limit: int) -> bool:
@@ -147,7 +150,8 @@ def json_body(limits=None):
     if environ.get("CONTENT_TYPE") != "application/json":          # the usual header needs no parsing
         mimetype = request.mimetype or ""
         if not (mimetype == "application/json" or (mimetype.startswith("application/") and mimetype.endswith("+json"))):
-            raise Problem(415, "send the request body as JSON with Content-Type: application/json")
+            raise Problem(415, "send the request body as JSON with Content-Type: application/json",
+                          {"Content-Type": ["must be application/json"]})
     limits = limits or current_app.config["CALCSERVICE_SETTINGS"].limits
     data = read_body(limits)
     return parse_json(data, limits)
@@ -204,7 +208,7 @@ def gunzip(stream, limit: int) -> bytes:
         try:
             piece = inflate.decompress(pending, limit + 1 - total)
         except zlib.error as e:
-            raise Problem(400, f"the gzip request body is corrupt ({e})") from None
+            raise malformed(f"the gzip request body is corrupt ({e})", "is not a valid gzip stream") from None
         fed = True
         total += len(piece)
         if total > limit:
@@ -216,7 +220,7 @@ def gunzip(stream, limit: int) -> bytes:
         else:
             pending = inflate.unconsumed_tail
     if fed and not inflate.eof:
-        raise Problem(400, "the gzip request body ends before its end")
+        raise malformed("the gzip request body ends before its end", "is a gzip stream cut short")
     return b"".join(out)
 
 
@@ -229,29 +233,41 @@ def body_too_large(limit: int, verb: str = "is") -> Problem:
 def parse_json(data: bytes, limits):
     """Bytes to JSON: 400 unless well-formed, finite and not too deep."""
     body = _fast_loads(data)
-    if body is not _UNPARSED and isinstance(body, (dict, list)) and _lost_members(data, body):
-        body = _UNPARSED
     if body is not _UNPARSED:
+        # the depth first: orjson writes back (for the check of repeated names) at most 254 levels
         if _depth_exceeds(data, limits.max_json_depth) and \
                 _true_depth(body, limits.max_json_depth) > limits.max_json_depth:
-            raise Problem(400, f"the JSON body is nested deeper than {limits.max_json_depth} levels")
-        return body
+            raise too_deep(limits)
+        if not isinstance(body, (dict, list)) or not _lost_members(data, body):
+            return body
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as e:
-        raise Problem(400, f"the request body is not valid UTF-8 (byte {e.start}): JSON is exchanged in UTF-8 "
-                           "(RFC 8259), whatever charset the Content-Type names") from None
+        raise malformed(f"the request body is not valid UTF-8 (byte {e.start}): JSON is exchanged in UTF-8 "
+                        "(RFC 8259), whatever charset the Content-Type names", "must be UTF-8 text") from None
     try:
         body = _loads_checked(text)
     except RecursionError:
-        raise Problem(400, "the JSON body is nested too deeply") from None
+        raise too_deep(limits) from None
     except ValueError as e:
         if "integer string conversion" in str(e):      # Python's guard against quadratic int parsing
-            raise Problem(400, "the request body holds an integer of more than 4300 digits") from None
-        raise Problem(400, f"the request body is not valid JSON: {str(e)[:200]}") from None
+            raise malformed("the request body holds an integer of more than 4300 digits",
+                            "holds an integer of more than 4300 digits") from None
+        raise malformed(f"the request body is not valid JSON: {str(e)[:200]}", f"is not valid JSON: {str(e)[:200]}") \
+            from None
     if _depth_exceeds(data, limits.max_json_depth) and _true_depth(body, limits.max_json_depth) > limits.max_json_depth:
-        raise Problem(400, f"the JSON body is nested deeper than {limits.max_json_depth} levels")
+        raise too_deep(limits)
     return body
+
+
+def malformed(detail: str, why: str) -> Problem:
+    """A 400 for a request body that is not well-formed, naming the body (``_body``) as a 422 names its field."""
+    return Problem(400, detail, {"_body": [why]})
+
+
+def too_deep(limits) -> Problem:
+    return malformed(f"the JSON body is nested deeper than {limits.max_json_depth} levels",
+                     f"must be nested at most {limits.max_json_depth} levels deep")
 
 
 _UNPARSED = object()
