@@ -571,7 +571,8 @@ register(Calculation(
                      "phi = M(nu_min) / 2 pi, nu_min: d rho^2/d nu = 0 next to nu + omega = "
                      + ("90" if star == "1" else "270") + " deg", period=1.0),
               Output(f"conjunction_offset{star}", "d", f"mid-eclipse minus conjunction ({whom})",
-                     "(M(nu_min) - M(nu_conj)) P / 2 pi"),
+                     "(M(nu_min) - M(nu_conj)) P / 2 pi, nu_conj + omega(t_conj) = "
+                     + ("90" if star == "1" else "270") + " deg (omega at the conjunction under apsidal motion)"),
               Output(f"minimum_separation{star}_over_a", "", f"projected separation at mid-eclipse over a ({whom})",
                      "rho/a = (1 - e^2)/(1 + e cos nu) sqrt(1 - sin^2 i sin^2(nu + omega))"),
               Output(f"minimum_separation{star}", "solRad", f"projected separation at mid-eclipse ({whom})",

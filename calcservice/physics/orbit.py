@@ -520,14 +520,49 @@ def apsidal_rate_per_mean_anomaly(omega_dot, period):
     return 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR * period / 360.0
 
 
+#: Newton steps for the conjunction under apsidal motion: each squares the error, from a start off by omega_rate
+#: times the mid-eclipse offset (a few 1e-5 rad at most for a real binary)
+_CONJUNCTION_STEPS = 6
+
+
+def conjunction_true_anomaly(star, eccentricity, omega_rad, mid_mean_anomaly, omega_rate=0.0):
+    """True anomaly nu_c (rad) of the conjunction next to a mid-eclipse at mean anomaly ``mid_mean_anomaly`` (rad),
+    omega (rad) being the argument of periastron at the mid-eclipse.
+
+    The conjunction is where nu + omega(t) = 90 deg (star 2 in front) or 270 deg, and under apsidal motion omega has
+    moved since the mid-eclipse by omega_rate (M_c - M_mid) (``omega_rate`` = d omega / dM,
+    :func:`apsidal_rate_per_mean_anomaly`), so nu_c = nu_0 + d with nu_0 = 90 deg - omega (or 270 deg - omega) and
+    d + omega_rate (M(nu_0 + d) - M_mid) = 0, solved by Newton's method (dM/dnu from
+    :func:`mean_anomaly_derivatives`); d = 0 without apsidal motion.
+    """
+    start = CONJUNCTION_ARGUMENT[star] - omega_rad
+    rate = np.asarray(omega_rate, dtype=float)
+    if not np.any(rate != 0.0):
+        return start
+    shift = np.zeros(np.broadcast(start, rate, eccentricity, mid_mean_anomaly).shape)
+    for _ in range(_CONJUNCTION_STEPS):
+        nu = start + shift
+        residual = shift + rate * (kepler.mean_from_true(nu, eccentricity) - mid_mean_anomaly)
+        slope = 1.0 + rate * mean_anomaly_derivatives(nu, eccentricity)[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = shift - residual / slope
+    return start + shift
+
+
 def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate=0.0):
     """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, its offset from the conjunction (cycles),
-    and its true anomaly (rad)."""
+    and its true anomaly (rad).
+
+    The offset is (M(nu_min) - M(nu_c)) / 2 pi with nu_c the conjunction's true anomaly
+    (:func:`conjunction_true_anomaly`: under apsidal motion omega at the conjunction is not omega at the mid-eclipse).
+    """
     w = np.radians(omega_deg)
     nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg), omega_rate)
-    mid = kepler.mean_from_true(nu, eccentricity) / TWO_PI
-    conjunction = kepler.mean_from_true(CONJUNCTION_ARGUMENT[star] - w, eccentricity) / TWO_PI
-    return np.mod(mid, 1.0), mid - conjunction, nu
+    mid_mean = kepler.mean_from_true(nu, eccentricity)
+    conjunction = kepler.mean_from_true(conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate),
+                                        eccentricity)
+    mid = mid_mean / TWO_PI
+    return np.mod(mid, 1.0), (mid_mean - conjunction) / TWO_PI, nu
 
 
 def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,

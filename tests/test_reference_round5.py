@@ -1,0 +1,57 @@
+"""Fifth round of independent reference computations: each check value from a computation written here from the
+published formula (scipy root finders on Kepler's equation, astropy units and constants, `uncertainties`), not from
+calcservice's physics."""
+
+import math
+
+import pytest
+from scipy.optimize import brentq, minimize_scalar
+
+from calcservice.core import compute
+
+JULIAN_YEAR_DAYS = 365.25     # IAU 1976 (astropy.units.yr)
+
+
+def _true_anomaly(t, period, eccentricity, t_periastron):
+    """nu (rad, continuous over revolutions) at t: brentq on Kepler's equation M = E - e sin E, then
+    tan(nu/2) = sqrt((1 + e)/(1 - e)) tan(E/2) (Murray & Dermott 1999, eq. 2.46)."""
+    m = 2.0 * math.pi * (t - t_periastron) / period
+    turns = math.floor(m / (2.0 * math.pi) + 0.5)
+    m0 = m - 2.0 * math.pi * turns
+    big_e = brentq(lambda x: x - eccentricity * math.sin(x) - m0, -math.pi - 1, math.pi + 1, xtol=1e-15)
+    nu = 2.0 * math.atan2(math.sqrt(1 + eccentricity) * math.sin(big_e / 2),
+                          math.sqrt(1 - eccentricity) * math.cos(big_e / 2))
+    return nu + 2.0 * math.pi * turns
+
+
+# --------------------------------------------------------------------------- mid-eclipse under apsidal motion
+def test_conjunction_offset_under_apsidal_motion_takes_omega_at_the_conjunction():
+    # A fictional eccentric pair with fast apsidal motion.  With omega(t) = omega_ref + omega_dot t, the
+    # mid-eclipse is the minimum of the projected separation rho(t)/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega(t)))
+    # (Heintz 1978, ch. 4) and the conjunction the date where nu + omega(t) = 90 deg, both solved here in time
+    # (scipy minimize_scalar and brentq).  The service's conjunction_offset1 for omega = omega(t_mid) must be
+    # t_mid - t_conj: it took omega at the conjunction equal to omega at the mid-eclipse, off by omega_dot times
+    # the offset (0.26 % of it here).
+    period, e, inc, omega_dot, omega_ref = 35.2, 0.2, 82.8, 6.7, 290.0
+    s2 = math.sin(math.radians(inc)) ** 2
+
+    def omega(t):
+        return math.radians(omega_ref + omega_dot * t / JULIAN_YEAR_DAYS)
+
+    def rho2(t):
+        nu = _true_anomaly(t, period, e, 0.0)
+        r = (1 - e * e) / (1 + e * math.cos(nu))
+        return r * r * (1 - s2 * math.sin(nu + omega(t)) ** 2)
+
+    def argument(t):
+        return _true_anomaly(t, period, e, 0.0) + omega(t) - math.pi / 2
+
+    # the conjunction of the first orbit: nu + omega crosses 90 deg once on it
+    turns = math.ceil(argument(0.0) / (2 * math.pi))
+    t_conj = brentq(lambda t: argument(t) - 2 * math.pi * turns, 0.0, period * 0.999, xtol=1e-13)
+    t_mid = minimize_scalar(rho2, bracket=(t_conj - 0.3, t_conj + 0.3), tol=1e-12).x
+    r = compute("mid-eclipse", {"period": period, "eccentricity": e, "inclination": inc, "omega_dot": omega_dot,
+                                "omega": omega_ref + omega_dot * t_mid / JULIAN_YEAR_DAYS, "t_periastron": 0.0,
+                                "after": 0.0, "count": 1})["results"]
+    assert r["conjunction_offset1"]["value"] == pytest.approx(t_mid - t_conj, rel=2e-6)
+    assert r["mid_eclipse_phase1"]["value"] == pytest.approx(t_mid / period, abs=1e-9)
