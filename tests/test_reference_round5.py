@@ -55,3 +55,51 @@ def test_conjunction_offset_under_apsidal_motion_takes_omega_at_the_conjunction(
                                 "after": 0.0, "count": 1})["results"]
     assert r["conjunction_offset1"]["value"] == pytest.approx(t_mid - t_conj, rel=2e-6)
     assert r["mid_eclipse_phase1"]["value"] == pytest.approx(t_mid / period, abs=1e-9)
+
+
+# --------------------------------------------------------------------------- RV extrema under apsidal motion
+def test_rv_extrema_under_apsidal_motion_are_the_extrema_in_time():
+    # v1 = gamma + K1 [cos(nu + omega(t)) + e cos omega(t)] (Hilditch 2001, eq. 2.45) with omega(t) = omega0 +
+    # omega_dot (t - T0) / Julian year: its largest and smallest values in time, the roots of dv1/dt found by
+    # brentq on a central difference of v1 from a direct Kepler solve.  The service took nu + omega(t) = 0 and
+    # 180 deg, which is the extremum only for a fixed omega: 4e-4 d early here (a fictional pair, P = 24.4 d,
+    # omega_dot = 8 deg/yr).
+    period, e, omega0, t0, omega_dot = 24.42, 0.19, 31.0, 2450000.0, 8.1
+
+    def v1(t):
+        nu = _true_anomaly(t, period, e, t0)
+        w = math.radians(omega0 + omega_dot * (t - t0) / JULIAN_YEAR_DAYS)
+        return math.cos(nu + w) + e * math.cos(w)
+
+    def slope(t, h=1e-4):
+        return (v1(t + h) - v1(t - h)) / (2 * h)
+
+    after = t0 + 10 * period
+    events = compute("ephemeris", {"period": period, "eccentricity": e, "omega": omega0, "t_periastron": t0,
+                                   "k1": 40.0, "omega_dot": omega_dot, "times": [after], "after": after,
+                                   "count": 1})["results"]["events"]["rv_extrema"]
+    assert len(events) == 2
+    for x in events:
+        t = x["value"]
+        root = brentq(slope, t - 0.05 * period, t + 0.05 * period, xtol=1e-12)
+        assert t == pytest.approx(root, abs=2e-8)
+        assert (slope(root - 0.01) > 0) == (x["kind"] == "rv1_maximum")
+
+
+# --------------------------------------------------------------------------- sigmas through omega_dot P / 360 deg
+def test_mid_eclipse_date_sigma_follows_omega_dot_and_the_period_through_the_apsidal_rate():
+    # The linear sigma of a date is |dt/dx| sigma_x (the definition of linear propagation); dt/dx by a central
+    # difference of the service's own dates over x.  The mid-eclipse moves with omega_dot P / 360 deg (the apsidal
+    # rate per radian of mean anomaly), so with P and omega_dot themselves: the derivatives left that out
+    # (1.4e-5 of dt/d omega_dot and 1.2e-8 of dt/dP here).
+    body = {"period": 21.3, "eccentricity": 0.35, "omega": 133.0, "t_periastron": 2450000.0, "inclination": 84.0,
+            "omega_dot": 9.0, "after": 2450000.0 + 15 * 21.3, "count": 1}
+
+    def date(**change):
+        return compute("mid-eclipse", {**body, **change})["results"]["events"]["eclipse_of_star1"][0]["value"]
+
+    for name, sigma, h in (("omega_dot", 0.5, 1e-2), ("period", 1e-4, 1e-5)):
+        got = compute("mid-eclipse", {**body, name: {"value": body[name], "sigma": sigma}}
+                      )["results"]["events"]["eclipse_of_star1"][0]["sigma"]
+        slope = (date(**{name: body[name] + h}) - date(**{name: body[name] - h})) / (2 * h)
+        assert got == pytest.approx(abs(slope) * sigma, rel=2e-7 if name == "omega_dot" else 1e-5)
