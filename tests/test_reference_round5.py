@@ -103,3 +103,20 @@ def test_mid_eclipse_date_sigma_follows_omega_dot_and_the_period_through_the_aps
                       )["results"]["events"]["eclipse_of_star1"][0]["sigma"]
         slope = (date(**{name: body[name] + h}) - date(**{name: body[name] - h})) / (2 * h)
         assert got == pytest.approx(abs(slope) * sigma, rel=2e-7 if name == "omega_dot" else 1e-5)
+
+
+# --------------------------------------------------------------------------- ISO 8601 dates with UTC offsets
+def test_utc_offsets_across_a_leap_second_shift_the_clock_not_si_seconds():
+    # ISO 8601 / RFC 3339 sec. 4.2: a local time with an offset names the UTC clock reading minus the offset, so
+    # 2017-01-01T00:30:00+01:00 is 2016-12-31T23:30:00Z, before the leap second of 2016-12-31T23:59:60Z (IERS
+    # Bulletin C 52); its JD is astropy.time's for that UTC reading.  Subtracting the hour in SI seconds (astropy's
+    # UTC arithmetic) counted the leap second and gave 23:30:01.
+    from astropy.time import Time
+
+    local = ["2017-01-01T00:30:00+01:00", "2016-12-31T20:00:00-05:00", "2017-01-01T05:29:59.5+05:30"]
+    utc = ["2016-12-31T23:30:00", "2017-01-01T01:00:00", "2016-12-31T23:59:59.5"]
+    r = compute("ephemeris", {"period": 10.0, "eccentricity": 0.1, "omega": 10.0, "t_periastron": 2457750.0,
+                              "k1": 10.0, "times": local, "count": 1})["results"]["series"]
+    want = Time(utc, scale="utc").jd
+    for got, jd in zip(r["time"]["value"], want):
+        assert got == pytest.approx(jd, abs=1e-9)
