@@ -41,7 +41,10 @@ ORBIT_CONVENTIONS = {
     "position_angle": "of star 2 relative to star 1, from north through east; node is the position angle of the "
                       "ascending node, where star 2 recedes from the observer; the relative orbit has omega + 180 deg",
     "events": "the first `count` events of each kind at or after `after` (default: the earliest of `times`), in time "
-              "order; conjunctions and rv_extrema list `count` of each of their two kinds; an event's sigma is the "
+              "order; conjunctions and rv_extrema list `count` of each of their two kinds; conjunctions are where "
+              "nu + omega(t) = 90 deg (star 2 in front) or 270 deg, rv_extrema where rv1 is largest or smallest in "
+              "time (dv1/dt = 0: nu + omega = 0 or 180 deg without apsidal motion, and off it by about "
+              "e sin omega omega_dot / nu_dot rad with it); an event's sigma is the "
               "linear propagation of the uncertainties of t_periastron, period (with their correlation), "
               "eccentricity, omega, omega_dot and period_derivative, through the cycles elapsed since "
               "t_periastron; event dates are in the "
@@ -193,10 +196,9 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         separations = {}
         if k2 is not None:
             for kind, ev, _s in extrema:
-                # e cos omega at each date: with apsidal motion omega has moved since t_periastron
-                w_t = phys.omega_at(ev["time"], w[:, None], t0[:, None], None if w_dot is None else w_dot[:, None])
-                vs = phys.velocity_separation(e[:, None], w_t, np.broadcast_to(k1, (n,))[:, None],
-                                              np.broadcast_to(k2, (n,))[:, None], kind)
+                # at the extremum's own true anomaly and omega (apsidal motion moves omega from t_periastron on)
+                vs = phys.velocity_separation(e[:, None], ev["omega"], np.broadcast_to(k1, (n,))[:, None],
+                                              np.broadcast_to(k2, (n,))[:, None], ev["true_anomaly"])
                 separations[kind] = np.broadcast_to(vs, ev["time"].shape)
     for i in range(n):
         events = per_system[i]["events"]
@@ -574,7 +576,8 @@ register(Calculation(
                      "phi = M(nu_min) / 2 pi, nu_min: d rho^2/d nu = 0 next to nu + omega = "
                      + ("90" if star == "1" else "270") + " deg", period=1.0),
               Output(f"conjunction_offset{star}", "d", f"mid-eclipse minus conjunction ({whom})",
-                     "(M(nu_min) - M(nu_conj)) P / 2 pi"),
+                     "(M(nu_min) - M(nu_conj)) P / 2 pi, nu_conj + omega(t_conj) = "
+                     + ("90" if star == "1" else "270") + " deg (omega at the conjunction under apsidal motion)"),
               Output(f"minimum_separation{star}_over_a", "", f"projected separation at mid-eclipse over a ({whom})",
                      "rho/a = (1 - e^2)/(1 + e cos nu) sqrt(1 - sin^2 i sin^2(nu + omega))"),
               Output(f"minimum_separation{star}", "solRad", f"projected separation at mid-eclipse ({whom})",

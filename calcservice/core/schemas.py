@@ -167,11 +167,17 @@ def _utc_offsets(texts: list[str]) -> tuple[list[str], np.ndarray]:
 
 
 def _minus_minutes(t, minutes):
-    """Local times given with an offset east of Greenwich, as UTC (astropy's arithmetic keeps leap seconds)."""
+    """Local times given with an offset east of Greenwich, as UTC.
+
+    An offset shifts the clock's labels (ISO 8601; RFC 3339 sec. 4.2: 00:30+01:00 is 23:30Z the day before), so the
+    minutes are taken off the labels in a scale without leap seconds (TAI read as labels) and the result read as UTC
+    again: astropy's UTC arithmetic counts SI seconds, and across a leap second gave the UTC time one second late."""
     if not minutes.any():
         return t
     import astropy.units as u
-    return t - minutes * u.min
+    from astropy.time import Time
+    labels = Time(t.ymdhms, format="ymdhms", scale="tai") - minutes * u.min
+    return Time(labels.ymdhms, format="ymdhms", scale="utc")
 
 
 MAX_TIME_PARSES = 64      # astropy calls for one list of time strings (each call parses many at once)

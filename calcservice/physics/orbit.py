@@ -244,6 +244,60 @@ def mean_anomaly_derivatives(true_anomaly_rad, eccentricity):
     return d_nu, d_e
 
 
+#: Newton steps for a radial-velocity extremum under apsidal motion: the start is off by about e kappa (kappa the
+#: apsidal rate over the orbital one, ~1e-3 at most for a real binary), and each step squares the error
+_EXTREMUM_STEPS = 6
+
+
+def rv_extremum_true_anomaly(kind, eccentricity, omega_rad, omega_rate=0.0):
+    """True anomaly nu (rad) of a radial-velocity extremum of star 1 and its derivatives dnu/de, dnu/domega (per rad)
+    and dnu/d omega_rate.
+
+    v1 = gamma + K1 [cos(u) + e cos omega], u = nu + omega (Hilditch 2001, eq. 2.45), is extreme in time where
+    dv1/dt = 0: -sin u (dnu/dt + domega/dt) - e sin omega domega/dt = 0, i.e.
+    h(nu) = sin u (1 + kappa) + e sin omega kappa = 0, kappa = (domega/dt)/(dnu/dt)
+    = omega_rate (1 - e^2)^{3/2} / (1 + e cos nu)^2 (Kepler's second law; ``omega_rate`` = d omega / dM,
+    :func:`apsidal_rate_per_mean_anomaly`).  Without apsidal motion u = 0 (maximum) or pi (minimum); with it Newton's
+    method from there, and the derivatives by the implicit function theorem, dnu/dx = -h_x / h_nu.
+    """
+    start = EVENT_TRUE_ANOMALY[kind](omega_rad)
+    rate = np.asarray(omega_rate, dtype=float)
+    e = np.asarray(eccentricity, dtype=float)
+    s = (1.0 - e) * (1.0 + e)
+    sin_w, cos_w = np.sin(omega_rad), np.cos(omega_rad)
+
+    def terms(nu):
+        c = 1.0 + e * np.cos(nu)
+        kappa_per_rate = s * np.sqrt(s) / c**2
+        kappa = rate * kappa_per_rate
+        kappa_nu = 2.0 * kappa * e * np.sin(nu) / c
+        kappa_e = -kappa * (3.0 * e / s + 2.0 * np.cos(nu) / c)
+        sin_u, cos_u = np.sin(nu + omega_rad), np.cos(nu + omega_rad)
+        h = sin_u * (1.0 + kappa) + e * sin_w * kappa
+        h_nu = cos_u * (1.0 + kappa) + (sin_u + e * sin_w) * kappa_nu
+        return h, h_nu, kappa, kappa_e, sin_u, cos_u, kappa_per_rate
+
+    nu = start + np.zeros(np.broadcast(start, rate, e).shape)
+    for _ in range(_EXTREMUM_STEPS if np.any(rate != 0.0) else 0):
+        h, h_nu = terms(nu)[:2]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            nu = nu - h / h_nu
+    h, h_nu, kappa, kappa_e, sin_u, cos_u, kappa_per_rate = terms(nu)
+    h_w = cos_u * (1.0 + kappa) + e * cos_w * kappa
+    h_e = (sin_u + e * sin_w) * kappa_e + sin_w * kappa
+    h_rate = (sin_u + e * sin_w) * kappa_per_rate
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return nu, -h_e / h_nu, -h_w / h_nu, -h_rate / h_nu
+
+
+def event_true_anomaly(kind, eccentricity, omega_rad, omega_rate=0.0):
+    """True anomaly (rad) of an event kind at omega (rad): ``EVENT_TRUE_ANOMALY``, and for the radial-velocity extrema
+    under apsidal motion the extremum in time (:func:`rv_extremum_true_anomaly`)."""
+    if kind in ("rv1_maximum", "rv1_minimum"):
+        return rv_extremum_true_anomaly(kind, eccentricity, omega_rad, omega_rate)[0]
+    return EVENT_TRUE_ANOMALY[kind](omega_rad)
+
+
 def event_phase(kind, eccentricity, omega_deg):
     """Phase (0 <= phase < 1 after periastron) of an event and its derivatives d phase/de, d phase/d omega (per deg)."""
     w = np.radians(np.asarray(omega_deg, dtype=float))
@@ -302,7 +356,9 @@ def date_derivatives(time, cycles, period, t_periastron, dphi, omega_dot=None, p
     differentiation, since t enters omega(t) = omega + omega_dot (t - T0): with D = dt/dc = P (1 + Pdot c)
     and F = 1 / (1 - D dphi/domega omega_dot), dt/dx = F D dphi/dx for each element x, dt/dP =
     F (c + Pdot c^2/2), dt/d omega_dot = F D dphi/domega (t - T0) (per deg/yr), dt/dPdot = F P c^2 / 2
-    (per s/yr) and dt/dT0 = 1 (omega is omega(T0): the whole ephemeris moves with T0).
+    (per s/yr) and dt/dT0 = 1 (omega is omega(T0): the whole ephemeris moves with T0).  A phase that depends on
+    the period or omega_dot itself (an extremum or mid-eclipse under apsidal motion, through omega_dot P / 360 deg)
+    gives ``dphi["period"]`` or ``dphi["omega_dot"]``, added as F D dphi/dx to the terms above.
     """
     rate = period_change_rate(period_derivative)
     slope = period * (1.0 + rate * cycles)
@@ -317,7 +373,9 @@ def date_derivatives(time, cycles, period, t_periastron, dphi, omega_dot=None, p
         "d_period_derivative": feedback * 0.5 * period * cycles * cycles / JULIAN_YEAR,
     }
     for name, d in dphi.items():
-        out["d_" + name] = np.broadcast_to(feedback * slope * d, time.shape)
+        # a phase that moves with the period or omega_dot adds to the terms above
+        term = np.broadcast_to(feedback * slope * d, time.shape)
+        out["d_" + name] = out["d_" + name] + term if "d_" + name in out else term
     return out
 
 
@@ -341,17 +399,30 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
     wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
 
+    rate = apsidal_rate_per_mean_anomaly(wdot, p)
+
     def raw_phase(w):
-        return kepler.mean_from_true(EVENT_TRUE_ANOMALY[kind](np.radians(w)), e) / TWO_PI
+        return kepler.mean_from_true(event_true_anomaly(kind, e, np.radians(w), rate), e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
-    nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
     if kind in ("periastron", "apastron"):
+        nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
         dphi = {"eccentricity": np.zeros_like(time), "omega": np.zeros_like(time)}
     else:
+        if kind in ("rv1_maximum", "rv1_minimum"):
+            nu, dnu_de, dnu_dw, dnu_drate = rv_extremum_true_anomaly(kind, e, np.radians(w_t), rate)
+        else:
+            nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
+            dnu_de, dnu_dw, dnu_drate = 0.0, -1.0, 0.0                  # nu = 90 deg - omega or 270 deg - omega
         d_nu, d_e = mean_anomaly_derivatives(nu, e)
-        dphi = {"eccentricity": d_e / TWO_PI, "omega": -d_nu * np.radians(1.0) / TWO_PI}   # d nu / d omega = -1
-    out = {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
+        dphi = {"eccentricity": (d_e + d_nu * dnu_de) / TWO_PI, "omega": d_nu * dnu_dw * np.radians(1.0) / TWO_PI}
+        if wdot is not None:
+            # the extremum moves with omega_rate = omega_dot P / 360 deg, so with P and omega_dot themselves
+            dphi_drate = d_nu * dnu_drate / TWO_PI
+            dphi["period"] = dphi_drate * wdot / (DAYS_PER_JULIAN_YEAR * 360.0)
+            dphi["omega_dot"] = dphi_drate * p / (DAYS_PER_JULIAN_YEAR * 360.0)
+    out = {"time": time, "cycle": cycles, "true_anomaly": nu, "omega": w_t,
+           **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
     if light_travel is not None:
         amplitude, star = light_travel
         w_star = np.radians(w_t) + (np.pi if star == 2 else 0.0)
@@ -373,10 +444,11 @@ def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccen
     return np.sqrt(np.maximum(var, 0.0))
 
 
-def velocity_separation(eccentricity, omega_deg, k1, k2, kind):
-    """|v1 - v2| (km/s) at a radial-velocity extremum: (K1 + K2)(1 + e cos omega) or (K1 + K2)(1 - e cos omega)."""
-    ecw = eccentricity * np.cos(np.radians(omega_deg))
-    return (k1 + k2) * (1.0 + ecw if kind == "rv1_maximum" else 1.0 - ecw)
+def velocity_separation(eccentricity, omega_deg, k1, k2, true_anomaly_rad):
+    """|v1 - v2| (km/s) at a true anomaly: (K1 + K2) |cos(nu + omega) + e cos omega| (Hilditch 2001, eq. 2.45); at a
+    radial-velocity extremum without apsidal motion (K1 + K2)(1 + e cos omega) or (K1 + K2)(1 - e cos omega)."""
+    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
+    return (k1 + k2) * np.abs(cos_u + eccentricity * cos_degrees(omega_deg))
 
 
 # --------------------------------------------------------------------------- geometry
@@ -520,14 +592,49 @@ def apsidal_rate_per_mean_anomaly(omega_dot, period):
     return 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR * period / 360.0
 
 
+#: Newton steps for the conjunction under apsidal motion: each squares the error, from a start off by omega_rate
+#: times the mid-eclipse offset (a few 1e-5 rad at most for a real binary)
+_CONJUNCTION_STEPS = 6
+
+
+def conjunction_true_anomaly(star, eccentricity, omega_rad, mid_mean_anomaly, omega_rate=0.0):
+    """True anomaly nu_c (rad) of the conjunction next to a mid-eclipse at mean anomaly ``mid_mean_anomaly`` (rad),
+    omega (rad) being the argument of periastron at the mid-eclipse.
+
+    The conjunction is where nu + omega(t) = 90 deg (star 2 in front) or 270 deg, and under apsidal motion omega has
+    moved since the mid-eclipse by omega_rate (M_c - M_mid) (``omega_rate`` = d omega / dM,
+    :func:`apsidal_rate_per_mean_anomaly`), so nu_c = nu_0 + d with nu_0 = 90 deg - omega (or 270 deg - omega) and
+    d + omega_rate (M(nu_0 + d) - M_mid) = 0, solved by Newton's method (dM/dnu from
+    :func:`mean_anomaly_derivatives`); d = 0 without apsidal motion.
+    """
+    start = CONJUNCTION_ARGUMENT[star] - omega_rad
+    rate = np.asarray(omega_rate, dtype=float)
+    if not np.any(rate != 0.0):
+        return start
+    shift = np.zeros(np.broadcast(start, rate, eccentricity, mid_mean_anomaly).shape)
+    for _ in range(_CONJUNCTION_STEPS):
+        nu = start + shift
+        residual = shift + rate * (kepler.mean_from_true(nu, eccentricity) - mid_mean_anomaly)
+        slope = 1.0 + rate * mean_anomaly_derivatives(nu, eccentricity)[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = shift - residual / slope
+    return start + shift
+
+
 def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate=0.0):
     """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, its offset from the conjunction (cycles),
-    and its true anomaly (rad)."""
+    and its true anomaly (rad).
+
+    The offset is (M(nu_min) - M(nu_c)) / 2 pi with nu_c the conjunction's true anomaly
+    (:func:`conjunction_true_anomaly`: under apsidal motion omega at the conjunction is not omega at the mid-eclipse).
+    """
     w = np.radians(omega_deg)
     nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg), omega_rate)
-    mid = kepler.mean_from_true(nu, eccentricity) / TWO_PI
-    conjunction = kepler.mean_from_true(CONJUNCTION_ARGUMENT[star] - w, eccentricity) / TWO_PI
-    return np.mod(mid, 1.0), mid - conjunction, nu
+    mid_mean = kepler.mean_from_true(nu, eccentricity)
+    conjunction = kepler.mean_from_true(conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate),
+                                        eccentricity)
+    mid = mid_mean / TWO_PI
+    return np.mod(mid, 1.0), (mid_mean - conjunction) / TWO_PI, nu
 
 
 def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,
@@ -563,6 +670,8 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
 #: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
 #: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
 MID_ECLIPSE_PHASE_STEPS = {"eccentricity": 1e-6, "omega": 1e-4, "inclination": 1e-4}
+#: the step in omega_rate = d omega / dM (dimensionless): the phase is nearly linear in it
+MID_ECLIPSE_RATE_STEP = 1e-6
 
 
 def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclination, after, count, omega_dot=None,
@@ -586,17 +695,25 @@ def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclinati
 
     rate = apsidal_rate_per_mean_anomaly(wdot, p)
 
-    def raw_phase(w, e=e, inc=inc):     # continuous in its arguments (no reduction mod 1)
+    def raw_phase(w, e=e, inc=inc, rate=rate):     # continuous in its arguments (no reduction mod 1)
         nu = mid_eclipse_true_anomaly(star, e, np.radians(w), np.radians(inc), rate)
         return kepler.mean_from_true(nu, e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
     dphi = {}
-    for name, h in MID_ECLIPSE_PHASE_STEPS.items():
-        args = {"w": w_t, "e": e, "inc": inc}
-        key = {"eccentricity": "e", "omega": "w", "inclination": "inc"}[name]
+    steps = dict(MID_ECLIPSE_PHASE_STEPS)
+    if wdot is not None:
+        steps["omega_rate"] = MID_ECLIPSE_RATE_STEP
+    for name, h in steps.items():
+        args = {"w": w_t, "e": e, "inc": inc, "rate": rate + np.zeros_like(w_t)}
+        key = {"eccentricity": "e", "omega": "w", "inclination": "inc", "omega_rate": "rate"}[name]
         up, down = dict(args), dict(args)
         up[key] = args[key] + h
         down[key] = args[key] - h
         dphi[name] = (raw_phase(**up) - raw_phase(**down)) / (2.0 * h)
+    if wdot is not None:
+        # the minimum moves with omega_rate = omega_dot P / 360 deg, so with P and omega_dot themselves
+        dphi_drate = dphi.pop("omega_rate")
+        dphi["period"] = dphi_drate * wdot / (DAYS_PER_JULIAN_YEAR * 360.0)
+        dphi["omega_dot"] = dphi_drate * p / (DAYS_PER_JULIAN_YEAR * 360.0)
     return {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
