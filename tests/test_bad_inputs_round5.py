@@ -77,3 +77,30 @@ def test_an_arrow_unit_under_another_key_is_refused_naming_the_column(client, ke
     # 0.1 Julian year = 36.525 d (IAU: a Julian year is 365.25 d)
     assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(36.525, 23.4, 0.31),
                                                                                  rel=1e-6)
+
+
+# --- 2. plot where no figure is drawn --------------------------------------------------------------
+
+MC_SB1 = {"period": 41.6, "k1": {"value": 23.4, "sigma": 0.4}, "eccentricity": 0.31,
+          "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}}
+
+
+@pytest.mark.parametrize("query, fmt", [
+    ("?plot=mass_function", "json"),                       # answered as JSON, the histogram asked for left out
+    ("?format=json&plot=mass_function", "json"),
+    ("?format=latex&plot=mass_function", "latex"),
+    ("?format=markdown&plot=a1_sin_i", "markdown"),
+])
+def test_plot_with_a_format_that_draws_no_figure_is_refused_naming_plot(client, query, fmt):
+    p = problem(client.post(SB1 + query, json=MC_SB1), 400)
+    assert p["errors"] == {"plot": [f"draws a histogram with format=svg or png; format={fmt} draws none"]}
+
+
+def test_plot_with_a_figure_format_is_drawn_and_an_unknown_format_is_named_first(client):
+    r = client.post(SB1 + "?format=svg&plot=mass_function", json=MC_SB1)
+    assert r.status_code == 200 and r.mimetype == "image/svg+xml"
+    assert list(problem(client.post(SB1 + "?format=pdf&plot=mass_function", json=MC_SB1), 400)["errors"]) == ["format"]
+    r = client.post("/v1/orbit/ephemeris?format=latex&plot=rv1", json={
+        "period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+        "times": [2460400.5]})
+    assert list(problem(r, 400)["errors"]) == ["plot"]
