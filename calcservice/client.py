@@ -39,7 +39,7 @@ import orjson
 
 from . import __version__
 from .columns import column_array as _to_array
-from .columns import column_name, column_role, correlated_columns, split_unit, uncertain_parts
+from .columns import column_name, column_role, correlated_columns, kept_name_errors, split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
 from .media import FIGURES, REPORTS
 
@@ -748,6 +748,12 @@ class InputTable:
         ``/v1/calculations``).  ``require_units``: refuse a dimensional column with no unit (default: for
         Tables and DataFrames; a file read by the command line takes the input's default unit instead)."""
         inputs = {i["name"]: i for i in decl["inputs"]}
+        if isinstance(keep, str):
+            keep = [name.strip() for name in keep.split(",")]      # as the service's ?keep=star,hip
+        refused = kept_name_errors(decl["name"], inputs, [o["name"] for o in decl.get("outputs", ())], keep)
+        if refused:
+            # an input's column kept would go unread; one named like an answer's column would be overwritten
+            raise InvalidInput("keep: " + "; ".join(refused))
         units = dict(units or {})
         is_table = _is_astropy_table(data) or _is_dataframe(data)
         if require_units is None:

@@ -303,7 +303,8 @@ def table_format(path: str, option: str) -> str:
 def declaration(calc: Calculation) -> dict:
     """The calculation's inputs as ``/v1/calculations`` declares them (what the client reads tables by)."""
     return {"name": calc.name, "inputs": [{"name": i.name, "kind": i.kind, "unit": i.unit, "time": bool(i.time)}
-                                          for i in calc.inputs]}
+                                          for i in calc.inputs],
+            "outputs": [{"name": o.name} for o in calc.outputs]}
 
 
 def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):

@@ -33,8 +33,8 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import (MEMBERS, column_role, lenient, lenient_message, may_underflow, not_plain_numbers,
-                      read_number, split_unit)
+from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, kept_name_errors, lenient,
+                      lenient_message, may_underflow, not_plain_numbers, read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -46,9 +46,6 @@ TABLE_TYPES = (ARROW, CSV, ECSV)
 MEDIA_TYPES = (JSON, *TABLE_TYPES)
 
 UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
-ANSWER_MEMBERS = frozenset({"sigma", "low", "high", "budget"})     # an output's columns NAME_<member>...
-ERROR_COLUMNS = ("error_status", "error", "warnings")
-UNCERTAINTY_PREFIX = "uncertainty_"
 _ECSV_SIGNATURE = "# %ECSV"
 
 
@@ -102,7 +99,8 @@ def kept_columns(calc: Calculation, read: list[tuple[str, Any, str | None]], kee
     :class:`TableError` (422) when ``keep`` names a column the table lacks, an input's, or one named
     like a column of the answer."""
     keep = list(dict.fromkeys(keep))
-    refused = kept_name_errors(calc, keep)
+    refused = kept_name_errors(calc.name, [spec.name for spec in calc.inputs], [o.name for o in calc.outputs],
+                               keep)
     names = {name for name, _, _ in read}
     absent = [name for name in keep if name not in names]
     if absent:
@@ -110,22 +108,6 @@ def kept_columns(calc: Calculation, read: list[tuple[str, Any, str | None]], kee
     if refused:
         raise TableError(422, "keep: " + " ".join(refused), {"keep": refused})
     return [c for c in read if c[0] in keep], [c for c in read if c[0] not in keep]
-
-
-def kept_name_errors(calc: Calculation, keep: Sequence[str]) -> list[str]:
-    """Why columns named in ``keep`` cannot be carried (an input's column, or one whose name an
-    answer column has: an output's, ``error``, ``warnings``...); empty when they can."""
-    inputs = {spec.name for spec in calc.inputs}
-    outputs = [o.name for o in calc.outputs]
-    errors = []
-    for name in keep:
-        if column_role(name, inputs) is not None:
-            errors.append(f"{name!r} is a column of an input of {calc.name}, not one of your own")
-        elif name in ERROR_COLUMNS or name.startswith(UNCERTAINTY_PREFIX) or \
-                any(name == o or (name.startswith(o + "_") and name[len(o) + 1:].split("_")[0] in ANSWER_MEMBERS)
-                    for o in outputs):
-            errors.append(f"{name!r} is the name of a column of the answer: rename it")
-    return errors
 
 
 def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], options: Mapping | None = None) -> dict:

@@ -104,3 +104,47 @@ def test_plot_with_a_figure_format_is_drawn_and_an_unknown_format_is_named_first
         "period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
         "times": [2460400.5]})
     assert list(problem(r, 400)["errors"]) == ["plot"]
+
+
+# --- 3. a kept column named like an input's or an answer's column (client and command line) ------
+
+@pytest.fixture(scope="module")
+def local():
+    from calcservice.client import Client
+    return Client("local")
+
+
+CATALOGUE = {"period": [41.6, 12.0], "k1": [23.4, 30.0], "eccentricity": [0.31, 0.1]}
+
+
+@pytest.mark.parametrize("kept, message", [
+    ("mass_function", "'mass_function' is the name of a column of the answer: rename it"),   # its 5.0 was overwritten
+    ("error", "'error' is the name of a column of the answer: rename it"),
+    ("a1_sin_i_sigma", "'a1_sin_i_sigma' is the name of a column of the answer: rename it"),
+    ("period", "'period' is a column of an input of sb1, not one of your own"),   # was sent without it: "is required"
+])
+def test_the_client_refuses_to_keep_a_column_named_like_an_input_or_an_answer_column(local, kept, message):
+    from calcservice.client import InvalidInput
+    data = {**CATALOGUE, kept: [5.0, 6.0]} if kept not in CATALOGUE else CATALOGUE
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", data, keep=[kept])
+    assert e.value.errors == {"keep": [f"keep: {message}"]}
+
+
+def test_the_client_keeps_a_column_of_its_own_and_reads_keep_as_the_services_list(local):
+    out = local.batch("sb1", {**CATALOGUE, "star": ["A", "B"], "hip": [12, 13]}, keep="star, hip")
+    table = out.to_table()
+    assert list(table["star"]) == ["A", "B"] and list(table["hip"]) == [12, 13]
+    assert out["mass_function"][1] == pytest.approx(mass_function(12.0, 30.0, 0.1), rel=1e-6)
+
+
+@pytest.mark.parametrize("kept", ["mass_function", "error", "period"])
+def test_the_command_line_refuses_to_keep_a_column_named_like_an_input_or_an_answer_column(tmp_path, capsys, kept):
+    from calcservice.cli import main
+    src = tmp_path / "cat.csv"
+    src.write_text("period,k1,eccentricity" + ("" if kept == "period" else f",{kept}") + "\n41.6,23.4,0.31"
+                   + ("" if kept == "period" else ",5") + "\n")
+    assert main(["compute", "sb1", "--in", str(src), "--out", str(tmp_path / "out.csv"), "--keep", kept]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith(f"calcservice compute: keep: '{kept}' is ")
+    assert not (tmp_path / "out.csv").exists()
