@@ -148,3 +148,54 @@ def test_the_command_line_refuses_to_keep_a_column_named_like_an_input_or_an_ans
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and err.startswith(f"calcservice compute: keep: '{kept}' is ")
     assert not (tmp_path / "out.csv").exists()
+
+
+# --- 4. the command line: a samples file, a repeated --unit, the server's numbers, an empty file -----
+
+def test_a_samples_file_that_is_not_text_is_one_line_naming_the_input(tmp_path, capsys):
+    # a UnicodeDecodeError escaped as a traceback
+    from calcservice.cli import main
+    draws = tmp_path / "draws.bin"
+    draws.write_bytes(b"\xff\xfe4\x001\x00")
+    assert main(["compute", "sb1", f"period=@{draws}", "k1=23.4", "eccentricity=0.31"]) == 2
+    err = capsys.readouterr().err
+    assert err == f"calcservice compute: period: {draws} is not UTF-8 text (byte 0): samples are numbers written as text\n"
+
+
+def test_an_output_unit_given_twice_on_the_command_line_is_refused(capsys):
+    # the last --unit was taken silently, where an input given twice is refused
+    from calcservice.cli import main
+    args = ["compute", "sb1", "period=41.6", "k1=23.4", "eccentricity=0.31", "--unit", "a1_sin_i=km", "--json"]
+    assert main(args + ["--unit", "a1_sin_i=m"]) == 2
+    assert capsys.readouterr().err == "calcservice compute: --unit: a1_sin_i is given twice, as 'km' and 'm'\n"
+    assert main(args + ["--unit", "a1_sin_i=km"]) == 0
+    import json
+    answer = json.loads(capsys.readouterr().out)["results"]["a1_sin_i"]
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory), in km with astropy
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert answer["unit"] == "km" and answer["value"] == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["serve", "--port", "99999999"], "argument --port: 99999999 is not between 0 and 65535"),   # a traceback
+    (["serve", "--port", "-1"], "argument --port: -1 is not between 0 and 65535"),
+    (["serve", "--workers", "0"], "argument --workers: 0 is not at least 1"),   # a master with no worker, silent
+    (["serve", "--workers", "-3"], "argument --workers: -3 is not at least 1"),  # gunicorn's line named no option
+    (["serve", "--timeout", "0"], "argument --timeout: 0 is not at least 1"),    # gunicorn reads 0 as "never"
+])
+def test_a_server_number_out_of_range_is_one_line_naming_it(capsys, argv, message):
+    from calcservice.cli import main
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    err = capsys.readouterr().err
+    assert info.value.code == 2 and err == f"calcservice serve: {message} (see calcservice serve --help)\n"
+
+
+def test_an_empty_catalogue_file_is_said_to_be_empty(tmp_path, capsys):
+    from calcservice.cli import main
+    (tmp_path / "empty.csv").write_text("")
+    (tmp_path / "header.csv").write_text("period,k1,eccentricity\n")
+    assert main(["compute", "sb1", "--in", str(tmp_path / "empty.csv"), "--out", str(tmp_path / "o.csv")]) == 2
+    assert capsys.readouterr().err == f"calcservice compute: --in: {tmp_path / 'empty.csv'} is empty\n"
+    assert main(["compute", "sb1", "--in", str(tmp_path / "header.csv"), "--out", str(tmp_path / "o.csv")]) == 2
+    assert capsys.readouterr().err.endswith("header.csv has a header but no rows\n")
