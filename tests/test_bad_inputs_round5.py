@@ -183,8 +183,13 @@ def test_an_output_unit_given_twice_on_the_command_line_is_refused(capsys):
     (["serve", "--workers", "-3"], "argument --workers: -3 is not at least 1"),  # gunicorn's line named no option
     (["serve", "--timeout", "0"], "argument --timeout: 0 is not at least 1"),    # gunicorn reads 0 as "never"
 ])
-def test_a_server_number_out_of_range_is_one_line_naming_it(capsys, argv, message):
+def test_a_server_number_out_of_range_is_one_line_naming_it(capsys, monkeypatch, argv, message):
+    import calcservice.server
     from calcservice.cli import main
+
+    def no_server(*args, **kwargs):
+        raise AssertionError("the server was started")
+    monkeypatch.setattr(calcservice.server, "serve", no_server)
     with pytest.raises(SystemExit) as info:
         main(argv)
     err = capsys.readouterr().err
