@@ -768,7 +768,12 @@ class InputTable:
         else:
             raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
                             f"not {type(data).__name__}")
-        for label in units:
+        for label, unit in units.items():
+            if hasattr(unit, "to_string") and not isinstance(unit, str):      # an astropy unit
+                units[label] = unit.to_string()
+            elif not isinstance(unit, str):
+                raise InvalidInput(f"units: the unit of {label!r} is a string such as 'd' or an astropy unit, "
+                                   f"not {type(unit).__name__}")
             if split_unit(label)[0] not in inputs and column_role(split_unit(label)[0], inputs) is None:
                 raise InvalidInput(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
                                  "ask for outputs in other units with output_units=")
@@ -821,6 +826,12 @@ class InputTable:
             spec = inputs[base]
             entry = _column_entry(spec, label, col, unit, require_units)
             n = len(entry["value"])
+            for member in ("sigma", "sigma_minus", "sigma_plus"):
+                # a tuple's or a column object's sigmas: one for every system, or one per system
+                if member in entry and np.ndim(entry[member]) == 0:
+                    entry[member] = np.full(n, entry[member], dtype=float)
+                elif member in entry and len(entry[member]) != n:
+                    raise InvalidInput(f"{label}: {len(entry[member])} values of {member} where it has {n} values")
             if count is not None and n != count:
                 raise InvalidInput(f"{label}: {n} values where the other columns have {count}")
             count = n
@@ -997,6 +1008,10 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return None
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
+    if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
+        # a complex number, a set: JSON has no such value (the encoder's TypeError named no input)
+        raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
+                           "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
 
 

@@ -204,3 +204,48 @@ def test_an_empty_catalogue_file_is_said_to_be_empty(tmp_path, capsys):
     assert capsys.readouterr().err == f"calcservice compute: --in: {tmp_path / 'empty.csv'} is empty\n"
     assert main(["compute", "sb1", "--in", str(tmp_path / "header.csv"), "--out", str(tmp_path / "o.csv")]) == 2
     assert capsys.readouterr().err.endswith("header.csv has a header but no rows\n")
+
+
+# --- 5. the client: sigmas of another length, a unit that is no string, a value JSON has not -------
+
+@pytest.mark.parametrize("period, message", [
+    (([41.6], [0.1, 0.2]), "period: 2 values of sigma where it has 1 values"),      # sent with the first sigma
+    (([41.6, 42.0], [0.1]), "period: 1 values of sigma where it has 2 values"),      # pyarrow's ArrowInvalid
+    (([41.6, 42.0], [0.1, 0.2], [0.1]), "period: 1 values of sigma_plus where it has 2 values"),
+    ({"value": [41.6, 42.0], "sigma": [0.1]}, "period: 1 values of sigma where it has 2 values"),
+])
+def test_the_clients_sigmas_of_another_length_than_the_values_are_refused(local, period, message):
+    from calcservice.client import InvalidInput
+    n = len(period[0] if isinstance(period, tuple) else period["value"])
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", {"period": period, "k1": [23.4] * n, "eccentricity": 0.1})
+    assert e.value.errors == {"period": [message]}
+
+
+def test_one_sigma_for_every_system_is_taken(local):
+    # an IndexError before; sigma(f) = f sigma(P) / P, f being proportional to P (Hilditch 2001, ch. 2)
+    out = local.batch("sb1", {"period": ([41.6, 42.0], 0.1), "k1": [23.4, 23.4], "eccentricity": 0.1})
+    for k, p in enumerate((41.6, 42.0)):
+        assert out["mass_function"][k] == pytest.approx(mass_function(p, 23.4, 0.1), rel=1e-6)
+        assert out.sigma["mass_function"][k] == pytest.approx(mass_function(p, 23.4, 0.1) * 0.1 / p, rel=1e-5)
+
+
+def test_a_column_unit_that_is_no_string_is_refused_and_an_astropy_unit_is_taken(local):
+    from calcservice.client import InvalidInput
+    table = {"period": [0.1], "k1": [23.4], "eccentricity": [0.1]}
+    with pytest.raises(InvalidInput) as e:       # pyarrow's TypeError "expected bytes, int found"
+        local.batch("sb1", table, units={"period": 5})
+    assert e.value.errors == {"units": ["units: the unit of 'period' is a string such as 'd' or an astropy unit, "
+                                        "not int"]}
+    # 0.1 Julian year = 36.525 d (IAU: a Julian year is 365.25 d)
+    out = local.batch("sb1", table, units={"period": u.yr})
+    assert out["mass_function"][0] == pytest.approx(mass_function(36.525, 23.4, 0.1), rel=1e-6)
+
+
+@pytest.mark.parametrize("value, kind", [(1 + 2j, "complex"), ({41.6}, "set")])
+def test_a_value_json_cannot_hold_is_refused_naming_the_input(local, value, kind):
+    # the encoder's TypeError ("Type is not JSON serializable: complex") named no input
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.calculate("sb1", **{**GOOD, "period": value})
+    assert list(e.value.errors) == ["period"] and f"a {kind} is no value of the wire contract" in str(e.value)
