@@ -39,7 +39,7 @@ import orjson
 
 from . import __version__
 from .columns import column_array as _to_array
-from .columns import column_name, column_role, correlated_columns, split_unit, uncertain_parts
+from .columns import column_name, column_role, correlated_columns, kept_name_errors, split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
 from .media import FIGURES, REPORTS
 
@@ -752,6 +752,12 @@ class InputTable:
         ``/v1/calculations``).  ``require_units``: refuse a dimensional column with no unit (default: for
         Tables and DataFrames; a file read by the command line takes the input's default unit instead)."""
         inputs = {i["name"]: i for i in decl["inputs"]}
+        if isinstance(keep, str):
+            keep = [name.strip() for name in keep.split(",")]      # as the service's ?keep=star,hip
+        refused = kept_name_errors(decl["name"], inputs, [o["name"] for o in decl.get("outputs", ())], keep)
+        if refused:
+            # an input's column kept would go unread; one named like an answer's column would be overwritten
+            raise InvalidInput("keep: " + "; ".join(refused))
         units = dict(units or {})
         is_table = _is_astropy_table(data) or _is_dataframe(data)
         if require_units is None:
@@ -766,7 +772,12 @@ class InputTable:
         else:
             raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
                             f"not {type(data).__name__}")
-        for label in units:
+        for label, unit in units.items():
+            if hasattr(unit, "to_string") and not isinstance(unit, str):      # an astropy unit
+                units[label] = unit.to_string()
+            elif not isinstance(unit, str):
+                raise InvalidInput(f"units: the unit of {label!r} is a string such as 'd' or an astropy unit, "
+                                   f"not {type(unit).__name__}")
             if split_unit(label)[0] not in inputs and column_role(split_unit(label)[0], inputs) is None:
                 raise InvalidInput(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
                                  "ask for outputs in other units with output_units=")
@@ -819,6 +830,12 @@ class InputTable:
             spec = inputs[base]
             entry = _column_entry(spec, label, col, unit, require_units)
             n = len(entry["value"])
+            for member in ("sigma", "sigma_minus", "sigma_plus"):
+                # a tuple's or a column object's sigmas: one for every system, or one per system
+                if member in entry and np.ndim(entry[member]) == 0:
+                    entry[member] = np.full(n, entry[member], dtype=float)
+                elif member in entry and len(entry[member]) != n:
+                    raise InvalidInput(f"{label}: {len(entry[member])} values of {member} where it has {n} values")
             if count is not None and n != count:
                 raise InvalidInput(f"{label}: {n} values where the other columns have {count}")
             count = n
@@ -995,6 +1012,10 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return None
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
+    if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
+        # a complex number, a set: JSON has no such value (the encoder's TypeError named no input)
+        raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
+                           "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
 
 

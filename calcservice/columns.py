@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 import re
-from typing import Container
+from typing import Container, Iterable
 
 import numpy as np
 
@@ -42,6 +42,29 @@ def column_role(name: str, inputs: Container[str]) -> tuple[str, str] | None:
         if name.endswith(suffix) and name[: -len(suffix)] in inputs:
             return name[: -len(suffix)], suffix[1:]
     return None
+
+
+# the columns of an answer table beside each output's NAME and NAME_<member>
+ERROR_COLUMNS = ("error_status", "error", "warnings")
+UNCERTAINTY_PREFIX = "uncertainty_"
+ANSWER_MEMBERS = frozenset({"sigma", "low", "high", "budget"})     # an output's columns NAME_<member>...
+
+
+def kept_name_errors(calculation: str, inputs: Container[str], outputs: Iterable[str],
+                     keep: Iterable[str]) -> list[str]:
+    """Why columns named in ``keep`` cannot be carried into an answer (an input's column, or one whose
+    name an answer column has: an output's, ``error``, ``warnings``...); empty when they can.  The one
+    rule of the service's ``?keep=``, the client's ``keep=`` and the command line's ``--keep``."""
+    outputs = list(outputs)
+    errors = []
+    for name in keep:
+        if column_role(name, inputs) is not None:
+            errors.append(f"{name!r} is a column of an input of {calculation}, not one of your own")
+        elif name in ERROR_COLUMNS or name.startswith(UNCERTAINTY_PREFIX) or \
+                any(name == o or (name.startswith(o + "_") and name[len(o) + 1:].split("_")[0] in ANSWER_MEMBERS)
+                    for o in outputs):
+            errors.append(f"{name!r} is the name of a column of the answer: rename it")
+    return errors
 
 
 def column_name(base: str, member: str, unit: str | None = None) -> str:

@@ -101,6 +101,9 @@ def _samples(path: str, field: str) -> dict:
         raw = Path(path).read_text()
     except OSError as e:
         raise UsageError(field, f"cannot read samples from {path}: {e.strerror}") from None
+    except UnicodeDecodeError as e:
+        raise UsageError(field, f"{path} is not UTF-8 text (byte {e.start}): samples are numbers written as text") \
+            from None
     try:
         values = [float(t) for t in re.split(r"[\s,;]+", raw.strip()) if t]
     except ValueError:
@@ -184,7 +187,14 @@ def build_body(calc: Calculation, args) -> dict:
                 raise UsageError("--correlation", f"{rho!r} is not a number") from None
         body["correlations"] = corr
     if args.unit:
-        body["units"] = dict(_pair(t, "--unit") for t in args.unit)
+        units: dict[str, str] = {}
+        for text in args.unit:
+            name, unit = _pair(text, "--unit")
+            if units.get(name, unit) != unit:
+                # a dict would keep the last silently, as a repeated input is refused
+                raise UsageError("--unit", f"{name} is given twice, as {units[name]!r} and {unit!r}")
+            units[name] = unit
+        body["units"] = units
     if args.time_format:
         body["time_format"] = args.time_format
     return body
@@ -303,7 +313,8 @@ def table_format(path: str, option: str) -> str:
 def declaration(calc: Calculation) -> dict:
     """The calculation's inputs as ``/v1/calculations`` declares them (what the client reads tables by)."""
     return {"name": calc.name, "inputs": [{"name": i.name, "kind": i.kind, "unit": i.unit, "time": bool(i.time)}
-                                          for i in calc.inputs]}
+                                          for i in calc.inputs],
+            "outputs": [{"name": o.name} for o in calc.outputs]}
 
 
 def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
@@ -358,7 +369,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
         raise UsageError("--in", f"{path} is not a readable {FORMAT_NAMES[table_format(path, '--in')]} table: "
                                  f"{reason}") from None
     if len(table) == 0:
-        raise UsageError("--in", f"{path} has a header but no rows")
+        raise UsageError("--in", f"{path} has a header but no rows" if table.colnames else f"{path} is empty")
     if fmt == "ascii.csv":
         _kept_as_written(table, source, keep, options["delimiter"])
     absent = [name for name in keep if name not in table.colnames]

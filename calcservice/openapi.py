@@ -392,8 +392,9 @@ def _response_schema(calc: Calculation) -> dict:
 # ----------------------------------------------------------------------------- problems
 
 PROBLEM_TEXT = {
-    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot, a "
-         "query parameter the route does not take (named in errors) or one given twice with different values",
+    400: "malformed request: not JSON, a number beyond a double, nested too deep, an unknown format or plot, plot "
+         "with a format that draws no figure, a query parameter the route does not take (named in errors) or one "
+         "given twice with different values",
     404: "unknown path",
     405: "wrong method (the Allow header lists the right ones)",
     406: "none of the media types in Accept can be answered (the problem lists those that can): a calculation "
@@ -565,7 +566,7 @@ FORMAT = {"name": "format", "in": "query", "required": False,
                          "says how many were drawn: a figure's size and cost do not grow with the number of times. "
                          "plot needs the Monte Carlo method (\"uncertainty\": "
                          "{\"method\": \"monte_carlo\"}, or samples inputs): without it the answer is a 422 naming "
-                         "plot. Other formats ignore plot.",
+                         "plot. With another format, plot is a 400 naming it (no figure is drawn to use it).",
           "schema": {"type": "string", "enum": ["json", *media.FORMATS], "default": "json"}}
 
 

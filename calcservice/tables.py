@@ -33,8 +33,8 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import (MEMBERS, column_role, lenient, lenient_message, may_underflow, not_plain_numbers,
-                      read_number, split_unit)
+from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, kept_name_errors, lenient,
+                      lenient_message, may_underflow, not_plain_numbers, read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -46,9 +46,6 @@ TABLE_TYPES = (ARROW, CSV, ECSV)
 MEDIA_TYPES = (JSON, *TABLE_TYPES)
 
 UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
-ANSWER_MEMBERS = frozenset({"sigma", "low", "high", "budget"})     # an output's columns NAME_<member>...
-ERROR_COLUMNS = ("error_status", "error", "warnings")
-UNCERTAINTY_PREFIX = "uncertainty_"
 _ECSV_SIGNATURE = "# %ECSV"
 
 
@@ -102,7 +99,8 @@ def kept_columns(calc: Calculation, read: list[tuple[str, Any, str | None]], kee
     :class:`TableError` (422) when ``keep`` names a column the table lacks, an input's, or one named
     like a column of the answer."""
     keep = list(dict.fromkeys(keep))
-    refused = kept_name_errors(calc, keep)
+    refused = kept_name_errors(calc.name, [spec.name for spec in calc.inputs], [o.name for o in calc.outputs],
+                               keep)
     names = {name for name, _, _ in read}
     absent = [name for name in keep if name not in names]
     if absent:
@@ -110,22 +108,6 @@ def kept_columns(calc: Calculation, read: list[tuple[str, Any, str | None]], kee
     if refused:
         raise TableError(422, "keep: " + " ".join(refused), {"keep": refused})
     return [c for c in read if c[0] in keep], [c for c in read if c[0] not in keep]
-
-
-def kept_name_errors(calc: Calculation, keep: Sequence[str]) -> list[str]:
-    """Why columns named in ``keep`` cannot be carried (an input's column, or one whose name an
-    answer column has: an output's, ``error``, ``warnings``...); empty when they can."""
-    inputs = {spec.name for spec in calc.inputs}
-    outputs = [o.name for o in calc.outputs]
-    errors = []
-    for name in keep:
-        if column_role(name, inputs) is not None:
-            errors.append(f"{name!r} is a column of an input of {calc.name}, not one of your own")
-        elif name in ERROR_COLUMNS or name.startswith(UNCERTAINTY_PREFIX) or \
-                any(name == o or (name.startswith(o + "_") and name[len(o) + 1:].split("_")[0] in ANSWER_MEMBERS)
-                    for o in outputs):
-            errors.append(f"{name!r} is the name of a column of the answer: rename it")
-    return errors
 
 
 def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], options: Mapping | None = None) -> dict:
@@ -291,18 +273,18 @@ def _has_lenient_text(lines: list[str], ecsv: bool) -> bool:
 def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> list[tuple[str, Any, str | None]]:
     import pyarrow as pa
 
-    try:
-        if data[:6] == b"ARROW1":       # the IPC file format (what Feather 2 writes): read as well
-            table = pa.ipc.open_file(pa.py_buffer(data)).read_all()
-        else:
-            table = pa.ipc.open_stream(pa.py_buffer(data)).read_all()
-    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
-        raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
+    table = _arrow_table(data)
     kinds = {spec.name: spec.kind for spec in calc.inputs}
     out = []
     for field, column in zip(table.schema, table.columns):
         meta = field.metadata or {}
         unit = meta.get(b"unit", b"").decode("utf-8", "replace").strip() or None
+        misspelt = [key.decode("utf-8", "replace") for key in meta
+                    if key != b"unit" and key.strip().lower() in (b"unit", b"units")]
+        if misspelt:
+            # read under "unit" only, so a unit under another spelling would leave the default unit silently
+            message = f"its unit is under the metadata key {misspelt[0]!r}: the key is 'unit'"
+            raise TableError(422, f"column {field.name}: {message}", {field.name: [message]})
         kind = kinds.get((column_role(field.name, kinds) or (field.name,))[0], "quantity")
         t = field.type
         if pa.types.is_dictionary(t):
@@ -330,6 +312,32 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
                              {field.name: [f"a column of numbers or strings, not {t}"]})
         out.append((field.name, values, unit))
     return out
+
+
+def _arrow_table(data: bytes):
+    """An Arrow IPC stream, or an IPC file (what Feather 2 writes: magic, the stream, its footer, the
+    footer's length, magic), as a pyarrow Table; bytes after its end (a second stream or file
+    concatenated to it, which pyarrow leaves unread) are refused."""
+    import pyarrow as pa
+
+    source = pa.BufferReader(pa.py_buffer(data))
+    is_file = data[:6] == b"ARROW1"
+    try:
+        if is_file:
+            source.seek(8)
+        table = pa.ipc.open_stream(source).read_all()
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as e:
+        raise TableError(400, f"the body is not an Apache Arrow IPC stream: {str(e)[:200]}") from None
+    end = source.tell() + (10 + int.from_bytes(data[-10:-6], "little") if is_file else 0)
+    if is_file and (data[-6:] != b"ARROW1" or end > len(data)):
+        raise TableError(400, "the body is not an Apache Arrow IPC file: it does not end with its footer, the "
+                              "footer's length and ARROW1")
+    if end != len(data):
+        kind = "file" if is_file else "stream"
+        message = (f"{len(data) - end} bytes follow the end of the Arrow IPC {kind} (its first {end} bytes) and would "
+                   "be left unread (a second stream concatenated to a first is): send one stream")
+        raise TableError(400, f"the body has bytes after its Arrow IPC {kind}: {message}", {"_body": [message]})
+    return table
 
 
 def header_line(lines: Sequence[str]) -> str | None:

@@ -45,7 +45,7 @@ def _endpoint(name: str):
         body = json_body(settings.limits)
         query = query_parameters(CALCULATION_QUERY, "a calculation")
         fmt = query.get("format", "json")
-        plot = query.get("plot")      # chooses the histogram of a figure; other formats ignore it
+        plot = query.get("plot")      # chooses the histogram of a figure
         if plot is not None:
             outputs = [o.name for o in calculations()[name].outputs]
             if plot not in outputs:
@@ -54,6 +54,11 @@ def _endpoint(name: str):
         if fmt != "json" and fmt not in FORMATS:
             raise Problem(400, f"format must be one of: {', '.join(('json',) + tuple(FORMATS))}",
                           {"format": [f"unknown format {fmt[:40]!r}"]})
+        if plot is not None and fmt not in ("svg", "png"):
+            # no other answer draws one: answering without it would leave the parameter unused
+            raise Problem(400, f"plot chooses the histogram of a figure: give it with format=svg or format=png, "
+                               f"not format={fmt[:40]}",
+                          {"plot": [f"draws a histogram with format=svg or png; format={fmt[:40]} draws none"]})
         acceptable(fmt)
         if fmt == "json":
             return json_response(compute(name, body, settings.limits))

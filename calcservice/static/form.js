@@ -1239,7 +1239,7 @@
 
   function answerColumn(name) {
     // a column named like one of the answer's, which the service will not carry along (keep): the
-    // rule of calcservice.tables.kept_name_errors; a name with a comma cannot be listed in keep
+    // rule of calcservice.columns.kept_name_errors; a name with a comma cannot be listed in keep
     return name.includes(",") || ["error_status", "error", "warnings"].includes(name) || name.startsWith("uncertainty_") ||
       state.calc.outputs.some((o) => name === o.name || (name.startsWith(o.name + "_") &&
         ["sigma", "low", "high", "budget"].includes(name.slice(o.name.length + 1).split("_")[0])));

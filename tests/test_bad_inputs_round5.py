@@ -1,0 +1,251 @@
+"""Bad input, fifth round: an Arrow body with bytes after its stream or its unit under another key,
+a plot asked for where no figure is drawn, columns kept under an input's or an answer's name by the
+client and the command line, the command line's samples files, repeated options and server arguments,
+and the client's sigmas and units.  Each case gets a 4xx problem (or the client's InvalidInput, or one
+line and a non-zero exit) naming the field, never a traceback and never an answer that left an input
+out."""
+
+from __future__ import annotations
+
+import io
+
+import astropy.constants as const
+import astropy.units as u
+import numpy as np
+import pytest
+
+from calcservice import create_app
+from tests.test_bad_inputs_round2 import problem
+
+SB1 = "/v1/spectroscopic/sb1"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+ARROW = "application/vnd.apache.arrow.stream"
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+def mass_function(period_d: float, k1_kms: float, e: float) -> float:
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2, from memory), with astropy's constants
+    return (period_d * u.d * (k1_kms * u.km / u.s) ** 3 * (1 - e ** 2) ** 1.5 / (2 * np.pi * const.G)).to_value(u.M_sun)
+
+
+# --- 1. an Arrow body: bytes after the stream, a unit under another key ----------------------------
+
+def _arrow(table, file: bool = False) -> bytes:
+    import pyarrow as pa
+    sink = io.BytesIO()
+    with (pa.ipc.new_file if file else pa.ipc.new_stream)(sink, table.schema) as writer:
+        writer.write_table(table)
+    return sink.getvalue()
+
+
+def _systems(periods, unit: str | None = None, key: str = "unit"):
+    import pyarrow as pa
+    n = len(periods)
+    fields = [pa.field("period", pa.float64(), metadata={key: unit} if unit else None),
+              pa.field("k1", pa.float64()), pa.field("eccentricity", pa.float64())]
+    return pa.Table.from_arrays([pa.array(periods, pa.float64()), pa.array([23.4] * n), pa.array([0.31] * n)],
+                                schema=pa.schema(fields))
+
+
+@pytest.mark.parametrize("file", [False, True])
+def test_a_second_arrow_stream_after_the_first_is_refused_not_left_unread(client, file):
+    # pyarrow stops at the first stream's end-of-stream marker (Arrow columnar format, IPC streaming format):
+    # the systems of a second stream concatenated to it (cat a.arrows b.arrows) were answered as absent
+    first, second = _arrow(_systems([41.6]), file), _arrow(_systems([12.0, 13.0]), file)
+    p = problem(client.post("/v1/batch/sb1", data=first + second, content_type=ARROW), 400)
+    assert list(p["errors"]) == ["_body"]
+    assert p["errors"]["_body"][0].startswith(f"{len(second)} bytes follow the end of the Arrow IPC "
+                                              f"{'file' if file else 'stream'} (its first {len(first)} bytes)")
+    # one stream (or one file) alone is read
+    r = client.post("/v1/batch/sb1", data=first, content_type=ARROW, headers={"Accept": "application/json"})
+    assert r.status_code == 200
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                 rel=1e-6)
+
+
+@pytest.mark.parametrize("key", ["units", "Unit", "UNIT"])
+def test_an_arrow_unit_under_another_key_is_refused_naming_the_column(client, key):
+    # the unit is read from the field metadata key "unit": 0.1 "yr" under "units" was read as 0.1 d
+    p = problem(client.post("/v1/batch/sb1", data=_arrow(_systems([0.1], "yr", key)), content_type=ARROW), 422)
+    assert p["errors"] == {"period": [f"its unit is under the metadata key {key!r}: the key is 'unit'"]}
+    r = client.post("/v1/batch/sb1", data=_arrow(_systems([0.1], "yr")), content_type=ARROW,
+                    headers={"Accept": "application/json"})
+    # 0.1 Julian year = 36.525 d (IAU: a Julian year is 365.25 d)
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(36.525, 23.4, 0.31),
+                                                                                 rel=1e-6)
+
+
+# --- 2. plot where no figure is drawn --------------------------------------------------------------
+
+MC_SB1 = {"period": 41.6, "k1": {"value": 23.4, "sigma": 0.4}, "eccentricity": 0.31,
+          "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}}
+
+
+@pytest.mark.parametrize("query, fmt", [
+    ("?plot=mass_function", "json"),                       # answered as JSON, the histogram asked for left out
+    ("?format=json&plot=mass_function", "json"),
+    ("?format=latex&plot=mass_function", "latex"),
+    ("?format=markdown&plot=a1_sin_i", "markdown"),
+])
+def test_plot_with_a_format_that_draws_no_figure_is_refused_naming_plot(client, query, fmt):
+    p = problem(client.post(SB1 + query, json=MC_SB1), 400)
+    assert p["errors"] == {"plot": [f"draws a histogram with format=svg or png; format={fmt} draws none"]}
+
+
+def test_plot_with_a_figure_format_is_drawn_and_an_unknown_format_is_named_first(client):
+    r = client.post(SB1 + "?format=svg&plot=mass_function", json=MC_SB1)
+    assert r.status_code == 200 and r.mimetype == "image/svg+xml"
+    assert list(problem(client.post(SB1 + "?format=pdf&plot=mass_function", json=MC_SB1), 400)["errors"]) == ["format"]
+    r = client.post("/v1/orbit/ephemeris?format=latex&plot=rv1", json={
+        "period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+        "times": [2460400.5]})
+    assert list(problem(r, 400)["errors"]) == ["plot"]
+
+
+# --- 3. a kept column named like an input's or an answer's column (client and command line) ------
+
+@pytest.fixture(scope="module")
+def local():
+    from calcservice.client import Client
+    return Client("local")
+
+
+CATALOGUE = {"period": [41.6, 12.0], "k1": [23.4, 30.0], "eccentricity": [0.31, 0.1]}
+
+
+@pytest.mark.parametrize("kept, message", [
+    ("mass_function", "'mass_function' is the name of a column of the answer: rename it"),   # its 5.0 was overwritten
+    ("error", "'error' is the name of a column of the answer: rename it"),
+    ("a1_sin_i_sigma", "'a1_sin_i_sigma' is the name of a column of the answer: rename it"),
+    ("period", "'period' is a column of an input of sb1, not one of your own"),   # was sent without it: "is required"
+])
+def test_the_client_refuses_to_keep_a_column_named_like_an_input_or_an_answer_column(local, kept, message):
+    from calcservice.client import InvalidInput
+    data = {**CATALOGUE, kept: [5.0, 6.0]} if kept not in CATALOGUE else CATALOGUE
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", data, keep=[kept])
+    assert e.value.errors == {"keep": [f"keep: {message}"]}
+
+
+def test_the_client_keeps_a_column_of_its_own_and_reads_keep_as_the_services_list(local):
+    out = local.batch("sb1", {**CATALOGUE, "star": ["A", "B"], "hip": [12, 13]}, keep="star, hip")
+    table = out.to_table()
+    assert list(table["star"]) == ["A", "B"] and list(table["hip"]) == [12, 13]
+    assert out["mass_function"][1] == pytest.approx(mass_function(12.0, 30.0, 0.1), rel=1e-6)
+
+
+@pytest.mark.parametrize("kept", ["mass_function", "error", "period"])
+def test_the_command_line_refuses_to_keep_a_column_named_like_an_input_or_an_answer_column(tmp_path, capsys, kept):
+    from calcservice.cli import main
+    src = tmp_path / "cat.csv"
+    src.write_text("period,k1,eccentricity" + ("" if kept == "period" else f",{kept}") + "\n41.6,23.4,0.31"
+                   + ("" if kept == "period" else ",5") + "\n")
+    assert main(["compute", "sb1", "--in", str(src), "--out", str(tmp_path / "out.csv"), "--keep", kept]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith(f"calcservice compute: keep: '{kept}' is ")
+    assert not (tmp_path / "out.csv").exists()
+
+
+# --- 4. the command line: a samples file, a repeated --unit, the server's numbers, an empty file -----
+
+def test_a_samples_file_that_is_not_text_is_one_line_naming_the_input(tmp_path, capsys):
+    # a UnicodeDecodeError escaped as a traceback
+    from calcservice.cli import main
+    draws = tmp_path / "draws.bin"
+    draws.write_bytes(b"\xff\xfe4\x001\x00")
+    assert main(["compute", "sb1", f"period=@{draws}", "k1=23.4", "eccentricity=0.31"]) == 2
+    err = capsys.readouterr().err
+    assert err == f"calcservice compute: period: {draws} is not UTF-8 text (byte 0): samples are numbers written as text\n"
+
+
+def test_an_output_unit_given_twice_on_the_command_line_is_refused(capsys):
+    # the last --unit was taken silently, where an input given twice is refused
+    from calcservice.cli import main
+    args = ["compute", "sb1", "period=41.6", "k1=23.4", "eccentricity=0.31", "--unit", "a1_sin_i=km", "--json"]
+    assert main(args + ["--unit", "a1_sin_i=m"]) == 2
+    assert capsys.readouterr().err == "calcservice compute: --unit: a1_sin_i is given twice, as 'km' and 'm'\n"
+    assert main(args + ["--unit", "a1_sin_i=km"]) == 0
+    import json
+    answer = json.loads(capsys.readouterr().out)["results"]["a1_sin_i"]
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory), in km with astropy
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert answer["unit"] == "km" and answer["value"] == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["serve", "--port", "99999999"], "argument --port: 99999999 is not between 0 and 65535"),   # a traceback
+    (["serve", "--port", "-1"], "argument --port: -1 is not between 0 and 65535"),
+    (["serve", "--workers", "0"], "argument --workers: 0 is not at least 1"),   # a master with no worker, silent
+    (["serve", "--workers", "-3"], "argument --workers: -3 is not at least 1"),  # gunicorn's line named no option
+    (["serve", "--timeout", "0"], "argument --timeout: 0 is not at least 1"),    # gunicorn reads 0 as "never"
+])
+def test_a_server_number_out_of_range_is_one_line_naming_it(capsys, monkeypatch, argv, message):
+    import calcservice.server
+    from calcservice.cli import main
+
+    def no_server(*args, **kwargs):
+        raise AssertionError("the server was started")
+    monkeypatch.setattr(calcservice.server, "serve", no_server)
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    err = capsys.readouterr().err
+    assert info.value.code == 2 and err == f"calcservice serve: {message} (see calcservice serve --help)\n"
+
+
+def test_an_empty_catalogue_file_is_said_to_be_empty(tmp_path, capsys):
+    from calcservice.cli import main
+    (tmp_path / "empty.csv").write_text("")
+    (tmp_path / "header.csv").write_text("period,k1,eccentricity\n")
+    assert main(["compute", "sb1", "--in", str(tmp_path / "empty.csv"), "--out", str(tmp_path / "o.csv")]) == 2
+    assert capsys.readouterr().err == f"calcservice compute: --in: {tmp_path / 'empty.csv'} is empty\n"
+    assert main(["compute", "sb1", "--in", str(tmp_path / "header.csv"), "--out", str(tmp_path / "o.csv")]) == 2
+    assert capsys.readouterr().err.endswith("header.csv has a header but no rows\n")
+
+
+# --- 5. the client: sigmas of another length, a unit that is no string, a value JSON has not -------
+
+@pytest.mark.parametrize("period, message", [
+    (([41.6], [0.1, 0.2]), "period: 2 values of sigma where it has 1 values"),      # sent with the first sigma
+    (([41.6, 42.0], [0.1]), "period: 1 values of sigma where it has 2 values"),      # pyarrow's ArrowInvalid
+    (([41.6, 42.0], [0.1, 0.2], [0.1]), "period: 1 values of sigma_plus where it has 2 values"),
+    ({"value": [41.6, 42.0], "sigma": [0.1]}, "period: 1 values of sigma where it has 2 values"),
+])
+def test_the_clients_sigmas_of_another_length_than_the_values_are_refused(local, period, message):
+    from calcservice.client import InvalidInput
+    n = len(period[0] if isinstance(period, tuple) else period["value"])
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", {"period": period, "k1": [23.4] * n, "eccentricity": 0.1})
+    assert e.value.errors == {"period": [message]}
+
+
+def test_one_sigma_for_every_system_is_taken(local):
+    # an IndexError before; sigma(f) = f sigma(P) / P, f being proportional to P (Hilditch 2001, ch. 2)
+    out = local.batch("sb1", {"period": ([41.6, 42.0], 0.1), "k1": [23.4, 23.4], "eccentricity": 0.1})
+    for k, p in enumerate((41.6, 42.0)):
+        assert out["mass_function"][k] == pytest.approx(mass_function(p, 23.4, 0.1), rel=1e-6)
+        assert out.sigma["mass_function"][k] == pytest.approx(mass_function(p, 23.4, 0.1) * 0.1 / p, rel=1e-5)
+
+
+def test_a_column_unit_that_is_no_string_is_refused_and_an_astropy_unit_is_taken(local):
+    from calcservice.client import InvalidInput
+    table = {"period": [0.1], "k1": [23.4], "eccentricity": [0.1]}
+    with pytest.raises(InvalidInput) as e:       # pyarrow's TypeError "expected bytes, int found"
+        local.batch("sb1", table, units={"period": 5})
+    assert e.value.errors == {"units": ["units: the unit of 'period' is a string such as 'd' or an astropy unit, "
+                                        "not int"]}
+    # 0.1 Julian year = 36.525 d (IAU: a Julian year is 365.25 d)
+    out = local.batch("sb1", table, units={"period": u.yr})
+    assert out["mass_function"][0] == pytest.approx(mass_function(36.525, 23.4, 0.1), rel=1e-6)
+
+
+@pytest.mark.parametrize("value, kind", [(1 + 2j, "complex"), ({41.6}, "set")])
+def test_a_value_json_cannot_hold_is_refused_naming_the_input(local, value, kind):
+    # the encoder's TypeError ("Type is not JSON serializable: complex") named no input
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.calculate("sb1", **{**GOOD, "period": value})
+    assert list(e.value.errors) == ["period"] and f"a {kind} is no value of the wire contract" in str(e.value)
