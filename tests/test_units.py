@@ -109,3 +109,21 @@ def test_logarithmic_and_negative_units_over_http_name_the_field(client):
     rows = {"systems": [{"period": {"value": 1.6, "unit": "dex(d)"}, "k1": 38.2, "k2": 51.7, "eccentricity": 0.3}]}
     status, doc = post(client, "/v1/batch/sb2", rows)
     assert status == 200 and "logarithmic" in doc["results"][0]["error"]["errors"]["period"][0]
+
+
+def test_a_unit_for_an_output_the_inputs_do_not_determine_is_said_unused(client):
+    # sb2 without an inclination gives no m1 or m2 (only M sin^3 i): their units go unused, and the answer says so
+    body = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31,
+            "units": {"m1": "kg", "m2": "kg", "a_sin_i": "km"}}
+    status, doc = post(client, "/v1/spectroscopic/sb2", body)
+    assert status == 200 and "m1" not in doc["results"]
+    said = [w for w in doc["warnings"] if w["code"] == "unit_unused"]
+    assert [w["fields"] for w in said] == [["units.m1", "units.m2"]]
+    # the unit that is used is: a sin i in km is its value in au times the IAU 2012 au, 149597870.7 km
+    plain = post(client, "/v1/spectroscopic/sb2", {k: v for k, v in body.items() if k != "units"})[1]
+    assert doc["results"]["a_sin_i"]["value"] == pytest.approx(plain["results"]["a_sin_i"]["value"] * 149597870.7,
+                                                               rel=1e-15)
+    # with an inclination every unit asked for is used
+    status, doc = post(client, "/v1/spectroscopic/sb2", {**body, "inclination": 71.0})
+    assert status == 200 and not [w for w in doc["warnings"] if w["code"] == "unit_unused"]
+    assert doc["results"]["m1"]["unit"] == "kg"

@@ -25,6 +25,9 @@ def run(parsed: Parsed) -> Result:
     result.warnings.extend(underflows(parsed.calc, result, parsed.statics))
     result.warnings.extend(misread_dates(parsed))
     result.warnings.extend(unused_inputs(parsed))
+    result.warnings.extend(Warning("unit_unused", "{subject}: a unit asked for an output that the inputs given do not "
+                                   "determine; it is not used", None, f"units.{name}")
+                           for name in parsed.output_units if name not in result.outputs)
     if result.failed:
         _name_what_fails(parsed, result)
         _name_draws_out_of_domain(parsed, result)
