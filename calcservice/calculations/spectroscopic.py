@@ -30,7 +30,7 @@ def _sb1_check(inputs, outputs):
 def _sb2_check(inputs, outputs):
     q = outputs["mass_ratio"]
     above = q > 1
-    if above.any():
+    if np.count_nonzero(above):
         return [Warning("primary_less_massive", "q = K1/K2 > 1: star 1 (the star of k1) is the less massive star",
                         above)]
     return []
