@@ -120,3 +120,17 @@ def test_utc_offsets_across_a_leap_second_shift_the_clock_not_si_seconds():
     want = Time(utc, scale="utc").jd
     for got, jd in zip(r["time"]["value"], want):
         assert got == pytest.approx(jd, abs=1e-9)
+
+
+def test_series_times_in_mjd_give_calendar_dates_as_mjd_too():
+    # with time_format mjd every time of the series is an MJD = JD - 2400000.5 (IAU 1973; astropy.time's "mjd"),
+    # the calendar dates among them too: 2023-03-01T00:00:00 is MJD 60004 (astropy.time); it came back as its JD
+    from astropy.time import Time
+
+    r = compute("ephemeris", {"period": 10.0, "eccentricity": 0.3, "omega": 40.0, "t_periastron": 60000.1, "k1": 30.0,
+                              "times": [60001.0, "2023-03-01T00:00:00", "2023-03-01T06:00:00+02:00"],
+                              "time_format": "mjd", "count": 1})["results"]["series"]
+    want = [60001.0, *Time(["2023-03-01T00:00:00", "2023-03-01T04:00:00"], scale="utc").mjd]
+    assert r["time"]["value"] == pytest.approx(want, abs=1e-9)
+    # the phase of that date (an MJD becomes a JD double, 4.7e-10 d apart, in the canonical unit)
+    assert r["phase"]["value"][1] == pytest.approx((want[1] - 60000.1) / 10.0, abs=1e-10)
