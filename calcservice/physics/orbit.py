@@ -216,7 +216,8 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
 #: Event kinds and the true anomaly nu(omega) (rad) at which each happens.
 #: Conjunctions: nu + omega = 90 deg puts star 1 farthest from us (z = r1 sin(nu + omega) sin i,
 #: z positive away from the observer), so star 2 is in front; 270 deg puts star 1 in front.
-#: Radial-velocity extrema: cos(nu + omega) = +1 (star 1 recedes fastest) or -1.
+#: Radial-velocity extrema: cos(nu + omega) = +1 (star 1 recedes fastest) or -1, for a fixed omega (under apsidal
+#: motion the extremum in time lies off it: :func:`rv_extremum_true_anomaly`).
 EVENT_TRUE_ANOMALY = {
     "periastron": lambda w: np.zeros_like(w),
     "apastron": lambda w: np.full_like(w, np.pi),
@@ -383,7 +384,7 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
                 period_derivative=None, light_travel=None):
     """The first ``count`` dates (JD) of an event at or after ``after``, and the partial derivatives.
 
-    The event's phase is that of its true anomaly nu(omega) (``EVENT_TRUE_ANOMALY``) at omega(t),
+    The event's phase is that of its true anomaly nu(omega) (:func:`event_true_anomaly`) at omega(t),
     the dates those of :func:`dated_events`, their derivatives those of :func:`date_derivatives`
     (``d_t_periastron``, ``d_period``, ``d_eccentricity``, ``d_omega`` per deg, ``d_omega_dot`` per
     deg/yr, ``d_period_derivative`` per s/yr).  ``light_travel`` = (amplitude in days, star 1 or 2):
