@@ -58,26 +58,33 @@ def test_conjunction_offset_under_apsidal_motion_takes_omega_at_the_conjunction(
 
 
 # --------------------------------------------------------------------------- RV extrema under apsidal motion
-def test_rv_extrema_under_apsidal_motion_are_the_extrema_in_time():
+@pytest.mark.parametrize("period_derivative, cycles", [(None, 10), (40.0, 1000)])
+def test_rv_extrema_under_apsidal_motion_are_the_extrema_in_time(period_derivative, cycles):
     # v1 = gamma + K1 [cos(nu + omega(t)) + e cos omega(t)] (Hilditch 2001, eq. 2.45) with omega(t) = omega0 +
     # omega_dot (t - T0) / Julian year: its largest and smallest values in time, the roots of dv1/dt found by
-    # brentq on a central difference of v1 from a direct Kepler solve.  The service took nu + omega(t) = 0 and
-    # 180 deg, which is the extremum only for a fixed omega: 4e-4 d early here (a fictional pair, P = 24.4 d,
-    # omega_dot = 8 deg/yr).
+    # brentq on a central difference of v1 from a direct Kepler solve, the mean anomaly 2 pi n(t) of the quadratic
+    # ephemeris t = T0 + P (n + Pdot n^2 / 2) with a period derivative (Pdot in s per Julian year).  The service
+    # took nu + omega(t) = 0 and 180 deg, the extremum only for a fixed omega: 4e-4 d early here (a fictional pair,
+    # P = 24.4 d, omega_dot = 8 deg/yr); and the apsidal rate per orbit must be that of the cycle's own period.
     period, e, omega0, t0, omega_dot = 24.42, 0.19, 31.0, 2450000.0, 8.1
+    rate = 0.0 if period_derivative is None else period_derivative / (JULIAN_YEAR_DAYS * 86400.0)
 
     def v1(t):
-        nu = _true_anomaly(t, period, e, t0)
+        x = (t - t0) / period
+        n = 2 * x / (1 + math.sqrt(1 + 2 * rate * x))
+        nu = _true_anomaly(t0 + n * period, period, e, t0)
         w = math.radians(omega0 + omega_dot * (t - t0) / JULIAN_YEAR_DAYS)
         return math.cos(nu + w) + e * math.cos(w)
 
     def slope(t, h=1e-4):
         return (v1(t + h) - v1(t - h)) / (2 * h)
 
-    after = t0 + 10 * period
-    events = compute("ephemeris", {"period": period, "eccentricity": e, "omega": omega0, "t_periastron": t0,
-                                   "k1": 40.0, "omega_dot": omega_dot, "times": [after], "after": after,
-                                   "count": 1})["results"]["events"]["rv_extrema"]
+    after = t0 + cycles * period
+    body = {"period": period, "eccentricity": e, "omega": omega0, "t_periastron": t0, "k1": 40.0,
+            "omega_dot": omega_dot, "times": [after], "after": after, "count": 1}
+    if period_derivative is not None:
+        body["period_derivative"] = period_derivative
+    events = compute("ephemeris", body)["results"]["events"]["rv_extrema"]
     assert len(events) == 2
     for x in events:
         t = x["value"]
@@ -120,3 +127,17 @@ def test_utc_offsets_across_a_leap_second_shift_the_clock_not_si_seconds():
     want = Time(utc, scale="utc").jd
     for got, jd in zip(r["time"]["value"], want):
         assert got == pytest.approx(jd, abs=1e-9)
+
+
+def test_series_times_in_mjd_give_calendar_dates_as_mjd_too():
+    # with time_format mjd every time of the series is an MJD = JD - 2400000.5 (IAU 1973; astropy.time's "mjd"),
+    # the calendar dates among them too: 2023-03-01T00:00:00 is MJD 60004 (astropy.time); it came back as its JD
+    from astropy.time import Time
+
+    r = compute("ephemeris", {"period": 10.0, "eccentricity": 0.3, "omega": 40.0, "t_periastron": 60000.1, "k1": 30.0,
+                              "times": [60001.0, "2023-03-01T00:00:00", "2023-03-01T06:00:00+02:00"],
+                              "time_format": "mjd", "count": 1})["results"]["series"]
+    want = [60001.0, *Time(["2023-03-01T00:00:00", "2023-03-01T04:00:00"], scale="utc").mjd]
+    assert r["time"]["value"] == pytest.approx(want, abs=1e-9)
+    # the phase of that date (an MJD becomes a JD double, 4.7e-10 d apart, in the canonical unit)
+    assert r["phase"]["value"][1] == pytest.approx((want[1] - 60000.1) / 10.0, abs=1e-10)

@@ -161,7 +161,10 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
             statics[spec.name] = raw
             continue
         m = measured(spec, raw, time_format)
-        if spec.time:
+        if spec.time and spec.kind == "series" and time_format == "mjd":
+            # the series' times in the request's format: its calendar dates (read as JDs) as MJDs too
+            times[spec.name] = np.where(raw.calendar, raw.value - MJD_OFFSET, raw.value)
+        elif spec.time:
             times[spec.name] = raw.text if raw.text is not None else raw.value
         if spec.kind == "series":
             statics[spec.name] = m.value

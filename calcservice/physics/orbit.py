@@ -216,7 +216,8 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
 #: Event kinds and the true anomaly nu(omega) (rad) at which each happens.
 #: Conjunctions: nu + omega = 90 deg puts star 1 farthest from us (z = r1 sin(nu + omega) sin i,
 #: z positive away from the observer), so star 2 is in front; 270 deg puts star 1 in front.
-#: Radial-velocity extrema: cos(nu + omega) = +1 (star 1 recedes fastest) or -1.
+#: Radial-velocity extrema: cos(nu + omega) = +1 (star 1 recedes fastest) or -1, for a fixed omega (under apsidal
+#: motion the extremum in time lies off it: :func:`rv_extremum_true_anomaly`).
 EVENT_TRUE_ANOMALY = {
     "periastron": lambda w: np.zeros_like(w),
     "apastron": lambda w: np.full_like(w, np.pi),
@@ -318,19 +319,20 @@ def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot
     """The first ``count`` dates (JD) at or after ``after`` of an event whose phase depends on omega.
 
     t = T0 + P (c + Pdot c^2 / 2) with c = n + phi the cycles since T0 (:func:`cycle_time`);
-    phi = raw_phase(omega(t)) - floor(raw_phase(omega)), continuous in omega, at omega(t) of the
+    phi = raw_phase(omega(t), c) - floor(raw_phase(omega, 0)), continuous in omega, at omega(t) of the
     apsidal motion (:func:`omega_at`), found by fixed-point iteration to the last digit since the
     date moves omega; n is the whole number of cycles, the smallest with t >= after.  Arrays over N
     systems with a trailing axis of 1 in, (N, count) arrays out: (time, cycles, omega at each date in deg).
     """
     wdot, pdot = omega_dot, period_derivative
-    base = np.floor(raw_phase(omega))
-    phi = raw_phase(omega) - base
+    base = np.floor(raw_phase(omega, 0.0))
+    phi = raw_phase(omega, 0.0) - base
     # n from the phase at omega(after): apsidal motion since T0 may have moved the event by many
     # cycles, but by less than one between `after` and the event.  One cycle early, since rounding
     # can put the estimate one past the event that falls on `after` itself; the passes below move on.
-    phi_after = raw_phase(omega_at(after, omega, t_periastron, wdot)) - base
-    n = np.ceil(elapsed_cycles(after, period, t_periastron, pdot) - phi_after) - 1.0 + np.arange(count)
+    cycles_after = elapsed_cycles(after, period, t_periastron, pdot)
+    phi_after = raw_phase(omega_at(after, omega, t_periastron, wdot), cycles_after) - base
+    n = np.ceil(cycles_after - phi_after) - 1.0 + np.arange(count)
     for _ in range(3):
         cycles = n + phi
         time = cycle_time(cycles, period, t_periastron, pdot)
@@ -338,7 +340,7 @@ def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot
         if wdot is not None:
             for _ in range(_APSIDAL_PASSES):
                 w_t = omega_at(time, omega, t_periastron, wdot)
-                cycles = n + raw_phase(w_t) - base
+                cycles = n + raw_phase(w_t, cycles) - base
                 last, time = time, cycle_time(cycles, period, t_periastron, pdot)
                 if not np.any(np.abs(time - last) > 2.0 * np.spacing(np.abs(time))):    # NaN: a failed system
                     break
@@ -383,7 +385,7 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
                 period_derivative=None, light_travel=None):
     """The first ``count`` dates (JD) of an event at or after ``after``, and the partial derivatives.
 
-    The event's phase is that of its true anomaly nu(omega) (``EVENT_TRUE_ANOMALY``) at omega(t),
+    The event's phase is that of its true anomaly nu(omega) (:func:`event_true_anomaly`) at omega(t),
     the dates those of :func:`dated_events`, their derivatives those of :func:`date_derivatives`
     (``d_t_periastron``, ``d_period``, ``d_eccentricity``, ``d_omega`` per deg, ``d_omega_dot`` per
     deg/yr, ``d_period_derivative`` per s/yr).  ``light_travel`` = (amplitude in days, star 1 or 2):
@@ -399,12 +401,12 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
     wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
 
-    rate = apsidal_rate_per_mean_anomaly(wdot, p)
-
-    def raw_phase(w):
-        return kepler.mean_from_true(event_true_anomaly(kind, e, np.radians(w), rate), e) / TWO_PI
+    def raw_phase(w, cycles):
+        return kepler.mean_from_true(event_true_anomaly(kind, e, np.radians(w), apsidal_rate(wdot, p, pdot, cycles)),
+                                     e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
+    rate = apsidal_rate(wdot, p, pdot, cycles)
     if kind in ("periastron", "apastron"):
         nu = EVENT_TRUE_ANOMALY[kind](np.radians(w_t))
         dphi = {"eccentricity": np.zeros_like(time), "omega": np.zeros_like(time)}
@@ -417,10 +419,8 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
         d_nu, d_e = mean_anomaly_derivatives(nu, e)
         dphi = {"eccentricity": (d_e + d_nu * dnu_de) / TWO_PI, "omega": d_nu * dnu_dw * np.radians(1.0) / TWO_PI}
         if wdot is not None:
-            # the extremum moves with omega_rate = omega_dot P / 360 deg, so with P and omega_dot themselves
-            dphi_drate = d_nu * dnu_drate / TWO_PI
-            dphi["period"] = dphi_drate * wdot / (DAYS_PER_JULIAN_YEAR * 360.0)
-            dphi["omega_dot"] = dphi_drate * p / (DAYS_PER_JULIAN_YEAR * 360.0)
+            # the extremum moves with the apsidal rate, so with P, omega_dot and Pdot themselves
+            dphi.update(apsidal_rate_terms(d_nu * dnu_drate / TWO_PI, wdot, p, pdot, cycles))
     out = {"time": time, "cycle": cycles, "true_anomaly": nu, "omega": w_t,
            **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
     if light_travel is not None:
@@ -592,6 +592,26 @@ def apsidal_rate_per_mean_anomaly(omega_dot, period):
     return 0.0 if omega_dot is None else omega_dot / DAYS_PER_JULIAN_YEAR * period / 360.0
 
 
+def apsidal_rate(omega_dot, period, period_derivative, cycles):
+    """d omega / dM at ``cycles`` cycles after T0: omega_dot P (1 + Pdot c) / 360 deg, the period of that cycle being
+    dt/dc = P (1 + Pdot c) in the quadratic ephemeris (:func:`cycle_time`); 0 without apsidal motion."""
+    if omega_dot is None:
+        return 0.0
+    return apsidal_rate_per_mean_anomaly(omega_dot, period) * (1.0 + period_change_rate(period_derivative) * cycles)
+
+
+def apsidal_rate_terms(dphi_drate, omega_dot, period, period_derivative, cycles):
+    """d phi / dx for x = period, omega_dot and period_derivative (per s/yr) of a phase that moves with
+    :func:`apsidal_rate` (``dphi_drate`` = d phi / d rate), for :func:`date_derivatives`."""
+    scale = DAYS_PER_JULIAN_YEAR * 360.0
+    stretch = 1.0 + period_change_rate(period_derivative) * cycles
+    out = {"period": dphi_drate * omega_dot * stretch / scale,
+           "omega_dot": dphi_drate * period * stretch / scale}
+    if period_derivative is not None:
+        out["period_derivative"] = dphi_drate * omega_dot * period * cycles / (scale * JULIAN_YEAR)
+    return out
+
+
 #: Newton steps for the conjunction under apsidal motion: each squares the error, from a start off by omega_rate
 #: times the mid-eclipse offset (a few 1e-5 rad at most for a real binary)
 _CONJUNCTION_STEPS = 6
@@ -693,27 +713,25 @@ def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclinati
     wdot = None if omega_dot is None else np.asarray(omega_dot, dtype=float)[..., None]
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
 
-    rate = apsidal_rate_per_mean_anomaly(wdot, p)
-
-    def raw_phase(w, e=e, inc=inc, rate=rate):     # continuous in its arguments (no reduction mod 1)
+    def raw_phase(w, cycles, e=e, inc=inc, rate=None):     # continuous in its arguments (no reduction mod 1)
+        rate = apsidal_rate(wdot, p, pdot, cycles) if rate is None else rate
         nu = mid_eclipse_true_anomaly(star, e, np.radians(w), np.radians(inc), rate)
         return kepler.mean_from_true(nu, e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
+    rate = apsidal_rate(wdot, p, pdot, cycles)
     dphi = {}
     steps = dict(MID_ECLIPSE_PHASE_STEPS)
     if wdot is not None:
         steps["omega_rate"] = MID_ECLIPSE_RATE_STEP
     for name, h in steps.items():
-        args = {"w": w_t, "e": e, "inc": inc, "rate": rate + np.zeros_like(w_t)}
+        args = {"w": w_t, "cycles": cycles, "e": e, "inc": inc, "rate": rate + np.zeros_like(w_t)}
         key = {"eccentricity": "e", "omega": "w", "inclination": "inc", "omega_rate": "rate"}[name]
         up, down = dict(args), dict(args)
         up[key] = args[key] + h
         down[key] = args[key] - h
         dphi[name] = (raw_phase(**up) - raw_phase(**down)) / (2.0 * h)
     if wdot is not None:
-        # the minimum moves with omega_rate = omega_dot P / 360 deg, so with P and omega_dot themselves
-        dphi_drate = dphi.pop("omega_rate")
-        dphi["period"] = dphi_drate * wdot / (DAYS_PER_JULIAN_YEAR * 360.0)
-        dphi["omega_dot"] = dphi_drate * p / (DAYS_PER_JULIAN_YEAR * 360.0)
+        # the minimum moves with the apsidal rate, so with P, omega_dot and Pdot themselves
+        dphi.update(apsidal_rate_terms(dphi.pop("omega_rate"), wdot, p, pdot, cycles))
     return {"time": time, "cycle": cycles, **date_derivatives(time, cycles, p, t0, dphi, wdot, pdot)}
