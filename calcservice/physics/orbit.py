@@ -299,19 +299,6 @@ def event_true_anomaly(kind, eccentricity, omega_rad, omega_rate=0.0):
     return EVENT_TRUE_ANOMALY[kind](omega_rad)
 
 
-def event_phase(kind, eccentricity, omega_deg):
-    """Phase (0 <= phase < 1 after periastron) of an event and its derivatives d phase/de, d phase/d omega (per deg)."""
-    w = np.radians(np.asarray(omega_deg, dtype=float))
-    nu = EVENT_TRUE_ANOMALY[kind](w)
-    phase = np.mod(kepler.mean_from_true(nu, eccentricity) / TWO_PI, 1.0)
-    if kind in ("periastron", "apastron"):
-        zero = np.zeros_like(phase)
-        return phase, zero, zero
-    d_nu, d_e = mean_anomaly_derivatives(nu, eccentricity)
-    # every nu(omega) above has d nu / d omega = -1
-    return phase, d_e / TWO_PI, -d_nu * np.radians(1.0) / TWO_PI
-
-
 _APSIDAL_PASSES = 200   # each pass gains about the factor P omega_dot dphi/domega (~ omega_dot P / 360 deg) in accuracy
 
 
