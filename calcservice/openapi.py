@@ -433,7 +433,8 @@ PLOT_400 = {"MalformedSeriesPlot": "plot naming a series output (without plot th
                                 "output to draw)"}
 BATCH_400 = PROBLEM_TEXT[400] + ", a table that cannot be read, or the options or keep parameter with a JSON body"
 BATCH_422 = PROBLEM_TEXT[422] + (", for the batch as a whole: neither or both of systems and columns, columns of "
-                                 "different lengths, a bad option")
+                                 "different lengths, a bad option, an option in a request table's metadata (options "
+                                 "go in the options parameter)")
 BATCH_RESPONSES = {400: "BatchMalformed", 406: "NotAcceptable", 413: "TooLarge", 415: "UnsupportedMediaType",
                    422: "BatchInvalid"}
 

@@ -274,6 +274,7 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     import pyarrow as pa
 
     table = _arrow_table(data)
+    options_in_metadata(calc, [k.decode("utf-8", "replace") for k in table.schema.metadata or {}], "schema metadata")
     kinds = {spec.name: spec.kind for spec in calc.inputs}
     out = []
     for field, column in zip(table.schema, table.columns):
@@ -338,6 +339,20 @@ def _arrow_table(data: bytes):
                    "be left unread (a second stream concatenated to a first is): send one stream")
         raise TableError(400, f"the body has bytes after its Arrow IPC {kind}: {message}", {"_body": [message]})
     return table
+
+
+def options_in_metadata(calc: Calculation, keys, where: str) -> None:
+    """A table's metadata that names a batch option (an ECSV header's meta, Arrow schema metadata) is
+    refused: a request table's options ride in the query parameter, and the metadata's would go unread
+    (an answer table's metadata says what its numbers were computed with, so it reads as though they did)."""
+    from .core.batch import OPTION_KEYS
+    series = [spec.name for spec in calc.inputs if spec.kind == "series"]
+    found = [key for key in keys if key in OPTION_KEYS or key in series]
+    if found:
+        def message(name: str) -> str:
+            return (f"the table's {where} gives {name!r}, which is not read there: a table's options go in the query "
+                    f'parameter options (?options={{"{name}": ...}}, URL-encoded JSON)')
+        raise TableError(422, message(found[0]), {name: [message(name)] for name in found})
 
 
 def header_line(lines: Sequence[str]) -> str | None:
@@ -501,6 +516,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         if type(e).__module__.startswith(("yaml", "astropy")):
             raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
         raise
+    options_in_metadata(calc, table.meta, "meta")
     kinds = {spec.name: spec.kind for spec in calc.inputs}
     written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
     check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and

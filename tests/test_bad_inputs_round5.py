@@ -249,3 +249,39 @@ def test_a_value_json_cannot_hold_is_refused_naming_the_input(local, value, kind
     with pytest.raises(InvalidInput) as e:
         local.calculate("sb1", **{**GOOD, "period": value})
     assert list(e.value.errors) == ["period"] and f"a {kind} is no value of the wire contract" in str(e.value)
+
+
+# --- 6. options in a request table's metadata -----------------------------------------------------
+
+ECSV_META = ("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: period, unit: d, datatype: float64}\n"
+             "# - {name: k1, unit: km / s, datatype: float64}\n# - {name: eccentricity, datatype: float64}\n"
+             "# meta: {META}\n# schema: astropy-2.0\nperiod k1 eccentricity\n41.6 23.4 0.31\n")
+
+
+def _options_message(where: str, name: str) -> str:
+    return (f"the table's {where} gives {name!r}, which is not read there: a table's options go in the query "
+            f'parameter options (?options={{"{name}": ...}}, URL-encoded JSON)')
+
+
+def test_options_in_an_ecsv_header_are_refused_not_left_unread(client):
+    # an answer table's meta says its uncertainty method: a request's was read as nothing (answered linearly)
+    meta = "{uncertainty: {method: monte_carlo, samples: 500, seed: 1}, units: {a1_sin_i: km}, observer: K. Lund}"
+    p = problem(client.post("/v1/batch/sb1", data=ECSV_META.replace("{META}", meta), content_type="text/csv"), 422)
+    assert p["errors"] == {"uncertainty": [_options_message("meta", "uncertainty")],
+                           "units": [_options_message("meta", "units")]}
+    # meta of the caller's own is no option, and the same options in the query are taken
+    from urllib.parse import quote
+    r = client.post("/v1/batch/sb1?options=" + quote('{"units": {"a1_sin_i": "km"}}'),
+                    data=ECSV_META.replace("{META}", "{observer: K. Lund}"), content_type="text/csv",
+                    headers={"Accept": "application/json"})
+    a1 = r.get_json()["columns"]["a1_sin_i"]
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory), in km with astropy
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert a1["unit"] == "km" and a1["value"][0] == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize("calc, key", [("sb1", "uncertainty"), ("sb1", "correlations"), ("ephemeris", "times")])
+def test_options_in_arrow_schema_metadata_are_refused(client, calc, key):
+    table = _systems([41.6]).replace_schema_metadata({key: "{}", "source": "lab notebook"})
+    p = problem(client.post(f"/v1/batch/{calc}", data=_arrow(table), content_type=ARROW), 422)
+    assert p["errors"] == {key: [_options_message("schema metadata", key)]}
