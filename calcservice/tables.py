@@ -47,6 +47,7 @@ MEDIA_TYPES = (JSON, *TABLE_TYPES)
 
 UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
 _ECSV_SIGNATURE = "# %ECSV"
+KIND_WORDS = {"choice": "a choice", "integer": "a whole number", "series": "a series"}
 
 
 class TableError(ValueError):
@@ -138,7 +139,7 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
             if base not in given:
                 errors[col] = [f"a sigma column needs the column {base}"]
             elif spec.kind != "quantity":
-                errors[col] = [f"{base} is a {spec.kind}: it has no uncertainty"]
+                errors[col] = [f"{base} is {KIND_WORDS[spec.kind]}: it has no uncertainty"]
         if "sigma" in members and len(members) > 1:
             errors[members["sigma"][2]] = [f"give either {base}_sigma or {base}_sigma_minus and {base}_sigma_plus"]
         elif ("sigma_minus" in members) != ("sigma_plus" in members):
@@ -148,7 +149,7 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
             errors[name] = [f"{name} is a series, the same for every system: give it in the options "
                             f'(?options={{"{name}": [...]}})']
         elif inputs[name].kind != "quantity" and unit:
-            errors[name] = [f"{name} is a {inputs[name].kind}: it has no unit"]
+            errors[name] = [f"{name} is {KIND_WORDS[inputs[name].kind]}: it has no unit"]
     columns: dict[str, Any] = {}
     for name, (values, unit) in given.items():
         if name in errors:

@@ -285,3 +285,18 @@ def test_options_in_arrow_schema_metadata_are_refused(client, calc, key):
     table = _systems([41.6]).replace_schema_metadata({key: "{}", "source": "lab notebook"})
     p = problem(client.post(f"/v1/batch/{calc}", data=_arrow(table), content_type=ARROW), 422)
     assert p["errors"] == {key: [_options_message("schema metadata", key)]}
+
+
+# --- 7. a whole-number input's sigma or unit column --------------------------------------------------
+
+@pytest.mark.parametrize("header, cell, column, message", [
+    ("count_sigma", ",1", "count_sigma", "count is a whole number: it has no uncertainty"),   # was "is a integer"
+    ("count[d]", "", "count", "count is a whole number: it has no unit"),
+])
+def test_a_whole_number_inputs_sigma_or_unit_column_is_refused_in_words(client, header, cell, column, message):
+    from urllib.parse import quote
+    head = "period,eccentricity,omega,t_periastron,k1," + ("count," + header if header.endswith("sigma") else header)
+    table = f"{head}\n2037.4,0.3,243.6,2458712.3,61.2,2{cell}\n"
+    p = problem(client.post("/v1/batch/ephemeris?options=" + quote('{"times": [2460400.5]}'), data=table,
+                            content_type="text/csv"), 422)
+    assert p["errors"] == {column: [message]}
