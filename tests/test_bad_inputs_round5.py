@@ -300,3 +300,38 @@ def test_a_whole_number_inputs_sigma_or_unit_column_is_refused_in_words(client, 
     p = problem(client.post("/v1/batch/ephemeris?options=" + quote('{"times": [2460400.5]}'), data=table,
                             content_type="text/csv"), 422)
     assert p["errors"] == {column: [message]}
+
+
+# --- 8. an apsidal motion of a turn or more per orbit --------------------------------------------------
+
+EPHEMERIS = {"period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+             "times": [2460400.5, 2450000.5], "count": 1}
+APSIDAL = ("the apsides must turn by less than 360 deg per orbit (|omega_dot| P < 360 deg: apsidal motion is slow "
+           "beside the orbit)")
+
+
+@pytest.mark.parametrize("omega_dot", [1e300, -64.6, {"value": 65.0, "sigma": 0.1}])
+def test_an_apsidal_motion_of_a_turn_per_orbit_or_more_is_refused_naming_omega_dot(client, omega_dot):
+    # 1e300 deg/yr was answered: omega(t) = omega + omega_dot (t - T0) kept no digit of the angle, and the
+    # conjunctions went missing without a word; 64.6 deg/yr over P = 2037.4 d = 5.578 Julian yr is 360.3 deg
+    p = problem(client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "omega_dot": omega_dot}), 422)
+    assert p["errors"] == {"omega_dot": [APSIDAL]}
+    rows = client.post("/v1/batch/ephemeris", json={"systems": [{**EPHEMERIS, "omega_dot": omega_dot}, EPHEMERIS]})
+    answers = rows.get_json()["results"]
+    assert answers[0]["error"]["errors"] == {"omega_dot": [APSIDAL]} and "results" in answers[1]
+
+
+def test_an_apsidal_motion_under_a_turn_per_orbit_is_answered(client):
+    # 64.4 deg/yr x 5.578 Julian yr (2037.4 d / 365.25) = 359.2 deg per orbit; at T0 omega is as given, so the
+    # velocity at a time one period after T0 is rv1 = K1 [cos(nu + omega) + e cos omega] at nu = 0 with omega
+    # advanced by 359.2 deg (Hilditch 2001, ch. 2, from memory)
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "omega_dot": 64.4, "times": [2458712.3 + 2037.4]})
+    assert r.status_code == 200
+    omega = np.radians(243.6 + 64.4 * 2037.4 / 365.25)
+    rv1 = r.get_json()["results"]["series"]["rv1"]["value"][0]
+    assert rv1 == pytest.approx(61.2 * (np.cos(omega) + 0.3 * np.cos(omega)), rel=1e-6)
+    from calcservice.registry import get
+    r = client.post("/v1/orbit/mid-eclipse", json={**get("mid-eclipse").example, "omega_dot": 13000.0})
+    assert r.status_code == 200     # P = 9.73 d: 13000 deg/yr is 346 deg per orbit
+    p = problem(client.post("/v1/orbit/mid-eclipse", json={**get("mid-eclipse").example, "omega_dot": 14000.0}), 422)
+    assert p["errors"] == {"omega_dot": [APSIDAL]}
