@@ -265,7 +265,8 @@ def _column_schema(spec: Input) -> dict:
 def _domain_name(domain) -> str:
     """The component of a measured input on ``domain``, named after its bounds (e.g. MeasuredInput_gt0_lt180)."""
     words = {">": "gt", ">=": "ge", "<": "lt", "<=": "le"}
-    return "_".join(["MeasuredInput", *(f"{words[op]}{bound:g}" for op, bound in domain.bounds())])
+    # a component name takes letters, digits, ".", "_" and "-" (OpenAPI 3.1): 1e+08 is written 1e08
+    return "_".join(["MeasuredInput", *(f"{words[op]}{bound:g}".replace("+", "") for op, bound in domain.bounds())])
 
 
 def _bounded(spec: Input, schemas: dict) -> dict:

@@ -335,3 +335,27 @@ def test_an_apsidal_motion_under_a_turn_per_orbit_is_answered(client):
     assert r.status_code == 200     # P = 9.73 d: 13000 deg/yr is 346 deg per orbit
     p = problem(client.post("/v1/orbit/mid-eclipse", json={**get("mid-eclipse").example, "omega_dot": 14000.0}), 422)
     assert p["errors"] == {"omega_dot": [APSIDAL]}
+
+
+# --- 9. a colliding-wind phase or true anomaly beyond where its angle has digits -------------------------
+
+@pytest.mark.parametrize("field, value, message", [
+    ("phase", 1e17, "must be >= -1e+08 and <= 1e+08"),        # answered as phase 0: the fraction was lost
+    ("phase", -1e300, "must be >= -1e+08 and <= 1e+08"),
+    ("true_anomaly", 1e300, "must be >= -360 and <= 360 (in deg)"),   # answered as 0 deg
+    ("true_anomaly", 7200.0, "must be >= -360 and <= 360 (in deg)"),  # as omega and node elsewhere
+])
+def test_a_phase_or_true_anomaly_without_digits_left_is_refused(client, field, value, message):
+    from calcservice.registry import get
+    body = {k: v for k, v in get("collision").example.items() if k != "phase"}
+    p = problem(client.post("/v1/winds/collision", json={**body, field: value}), 422)
+    assert p["errors"] == {field: [message]}
+
+
+def test_a_phase_many_cycles_on_is_the_phase_of_its_fraction(client):
+    # phase 1000000.1 is the orbit's place at phase 0.1 (M = 2 pi phase, Hilditch 2001, ch. 2, from memory)
+    from calcservice.registry import get
+    body = dict(get("collision").example)
+    near = client.post("/v1/winds/collision", json={**body, "phase": 0.1}).get_json()["results"]["separation"]
+    far = client.post("/v1/winds/collision", json={**body, "phase": 1e6 + 0.1}).get_json()["results"]["separation"]
+    assert far["value"] == pytest.approx(near["value"], rel=1e-8)
