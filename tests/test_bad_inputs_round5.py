@@ -359,3 +359,42 @@ def test_a_phase_many_cycles_on_is_the_phase_of_its_fraction(client):
     near = client.post("/v1/winds/collision", json={**body, "phase": 0.1}).get_json()["results"]["separation"]
     far = client.post("/v1/winds/collision", json={**body, "phase": 1e6 + 0.1}).get_json()["results"]["separation"]
     assert far["value"] == pytest.approx(near["value"], rel=1e-8)
+
+
+# --- 10. the client's address and timeout, a list of rows with units= or keep=, an infinite value -------
+
+@pytest.mark.parametrize("base_url", ["notaurl", "ftp://calc.example", "http://", None, 5])
+def test_a_client_address_that_is_no_http_url_is_refused_naming_it(base_url):
+    # "notaurl" raised AttributeError at the first request; ftp:// was spoken to in HTTP
+    from calcservice.client import Client, InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        Client(base_url)
+    assert list(e.value.errors) == ["base_url"] and str(e.value).startswith(f"base_url: {base_url!r} is not the ")
+
+
+@pytest.mark.parametrize("timeout", [-1, 0, "5", True])
+def test_a_client_timeout_that_is_no_positive_number_is_refused_naming_it(timeout):
+    # socket's "Timeout value out of range" named nothing, at the first request
+    from calcservice.client import Client, InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        Client("http://127.0.0.1:8000", timeout=timeout)
+    assert list(e.value.errors) == ["timeout"]
+    assert Client("https://calc.example:8443/", timeout=0.5).base_url == "https://calc.example:8443"
+
+
+@pytest.mark.parametrize("option", ["units", "keep"])
+def test_units_or_keep_with_a_list_of_rows_is_refused_naming_that_option(local, option):
+    # units= alone was refused under "keep"
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", [GOOD], **{option: {"period": "yr"} if option == "units" else ["star"]})
+    assert list(e.value.errors) == [option]
+
+
+@pytest.mark.parametrize("period", [float("inf"), np.float64(-np.inf), (41.6, float("inf"))])
+def test_an_infinite_value_is_refused_by_the_client_naming_the_input(local, period):
+    # JSON has no infinity: the encoder wrote null and the answer said the value (or sigma) was missing
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.calculate("sb1", **{**GOOD, "period": period})
+    assert list(e.value.errors) == ["period"] and "is not a finite number" in str(e.value)
