@@ -398,3 +398,31 @@ def test_an_infinite_value_is_refused_by_the_client_naming_the_input(local, peri
     with pytest.raises(InvalidInput) as e:
         local.calculate("sb1", **{**GOOD, "period": period})
     assert list(e.value.errors) == ["period"] and "is not a finite number" in str(e.value)
+
+
+# --- 11. covariance or budget asked of exact inputs ----------------------------------------------------
+
+@pytest.mark.parametrize("options, fields", [
+    ({"covariance": True}, ["covariance"]),            # answered without a correlation, without a word
+    ({"budget": True}, ["budget"]),
+    ({"covariance": True, "budget": True, "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}},
+     ["covariance", "budget"]),
+])
+def test_covariance_or_budget_of_exact_inputs_is_warned_naming_the_option(client, options, fields):
+    r = client.post(SB1, json={**GOOD, **options}).get_json()
+    assert "correlation" not in r and not any(v.get("budget") for v in r["results"].values())     # none, or {}
+    assert [w["fields"] for w in r["warnings"] if w["code"] == "no_uncertainty"] == [fields]
+    # f(M) itself is answered, exact (Hilditch 2001, ch. 2, from memory)
+    assert r["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-6)
+
+
+def test_covariance_is_warned_only_for_the_exact_systems_of_a_batch(client):
+    answer = client.post("/v1/batch/sb1", json={"columns": {
+        "period": 41.6, "k1": {"value": [23.4, 23.4], "sigma": [0.0, 0.3]}, "eccentricity": 0.31},
+        "covariance": True}).get_json()
+    assert [(w["fields"], w["rows"]) for w in answer["warnings"] if w["code"] == "no_uncertainty"] == [(["covariance"],
+                                                                                                       [0])]
+    # mass_function and a1_sin_i both scale with k1 alone here: correlation 1 (K1^3 and K1, linearised)
+    assert answer["correlation"]["matrix"][1] == [[1.0, 1.0], [1.0, 1.0]]
+    plain = client.post(SB1, json={**GOOD, "k1": {"value": 23.4, "sigma": 0.3}, "covariance": True}).get_json()
+    assert not [w for w in plain["warnings"] if w["code"] == "no_uncertainty"] and "correlation" in plain
