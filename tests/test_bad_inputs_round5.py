@@ -426,3 +426,27 @@ def test_covariance_is_warned_only_for_the_exact_systems_of_a_batch(client):
     assert answer["correlation"]["matrix"][1] == [[1.0, 1.0], [1.0, 1.0]]
     plain = client.post(SB1, json={**GOOD, "k1": {"value": 23.4, "sigma": 0.3}, "covariance": True}).get_json()
     assert not [w for w in plain["warnings"] if w["code"] == "no_uncertainty"] and "correlation" in plain
+
+
+# --- 12. an output unit for an output the inputs do not give ------------------------------------------
+
+UNUSED = "not among the results these inputs give (the output needs other inputs), so its unit is not used"
+
+
+def test_a_unit_for_an_output_these_inputs_do_not_give_is_warned_naming_it(client):
+    # m2 of sb1 needs primary_mass and inclination: its unit went unused without a word
+    r = client.post(SB1, json={**GOOD, "units": {"m2": "kg", "a1_sin_i": "km"}}).get_json()
+    assert [(w["fields"], w["message"]) for w in r["warnings"] if w["code"] == "unit_unused"] == [
+        (["units.m2"], f"units.m2: {UNUSED}")]
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory), in km with astropy
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert r["results"]["a1_sin_i"] == {"value": pytest.approx(expected, rel=1e-9), "sigma": 0.0, "unit": "km"}
+
+
+def test_an_unused_unit_is_warned_for_the_systems_that_lack_the_output(client):
+    answer = client.post("/v1/batch/sb1", json={"columns": {
+        "period": [41.6, 41.6], "k1": 23.4, "eccentricity": 0.31, "primary_mass": [None, 1.2],
+        "inclination": [None, 80.0]}, "units": {"m2": "kg"}}).get_json()
+    assert [(w["fields"], w["rows"]) for w in answer["warnings"] if w["code"] == "unit_unused"] == [(["units.m2"],
+                                                                                                     [0])]
+    assert answer["columns"]["m2"]["unit"] == "kg" and answer["columns"]["m2"]["value"][1] > 1e29   # solar masses
