@@ -1,9 +1,11 @@
 """Bad input, fifth round: an Arrow body with bytes after its stream or its unit under another key,
-a plot asked for where no figure is drawn, columns kept under an input's or an answer's name by the
-client and the command line, the command line's samples files, repeated options and server arguments,
-and the client's sigmas and units.  Each case gets a 4xx problem (or the client's InvalidInput, or one
-line and a non-zero exit) naming the field, never a traceback and never an answer that left an input
-out."""
+options in a table's metadata, a plot asked for where no figure is drawn, columns kept under an input's or
+an answer's name by the client and the command line, the command line's samples files, repeated units and
+server numbers, the client's address, timeout, sigmas, units and infinities, an apsidal motion, a phase or
+a true anomaly with no digits left, and options (covariance, budget, an output's unit) that had nothing to
+act on.  Each case gets a 4xx problem (or the client's InvalidInput, one line and a non-zero exit, or a
+warning naming the option) that names the field, never a traceback and never an answer that left an
+input out without a word."""
 
 from __future__ import annotations
 
@@ -159,7 +161,8 @@ def test_a_samples_file_that_is_not_text_is_one_line_naming_the_input(tmp_path, 
     draws.write_bytes(b"\xff\xfe4\x001\x00")
     assert main(["compute", "sb1", f"period=@{draws}", "k1=23.4", "eccentricity=0.31"]) == 2
     err = capsys.readouterr().err
-    assert err == f"calcservice compute: period: {draws} is not UTF-8 text (byte 0): samples are numbers written as text\n"
+    assert err == (f"calcservice compute: period: {draws} is not UTF-8 text (byte 0): samples are numbers "
+                   "written as text\n")
 
 
 def test_an_output_unit_given_twice_on_the_command_line_is_refused(capsys):
