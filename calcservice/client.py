@@ -367,7 +367,16 @@ class Client:
             from . import create_app
             app = create_app()
         self.app = app
+        if app is None:
+            url = urllib.parse.urlsplit(base_url) if isinstance(base_url, str) else None
+            # "notaurl" failed at the first request with an AttributeError; "ftp://" was spoken to in HTTP
+            if url is None or url.scheme not in ("http", "https") or not url.hostname:
+                raise InvalidInput(f"base_url: {base_url!r} is not the service's address: give http://HOST[:PORT] "
+                                   "or https://HOST[:PORT], or \"local\" for the service in this process")
         self.base_url = "local" if app is not None else base_url.rstrip("/")
+        if timeout is not None and (isinstance(timeout, bool) or not isinstance(timeout, (int, float))
+                                    or not timeout > 0):
+            raise InvalidInput(f"timeout: {timeout!r} is not a number of seconds above 0 (None: wait without end)")
         self.timeout = timeout
         self.retries = max(0, int(retries))
         self.backoff = backoff
@@ -573,8 +582,11 @@ class Client:
                                f"({{\"period\": 41.6, \"k1\": (38.2, 0.4), ...}}), not {type(row).__name__}; a batch "
                                "also takes an astropy Table or QTable, a pandas DataFrame or a mapping of columns")
         if _is_rows(data):
-            if units or keep:
-                raise InvalidInput("keep: units= and keep= apply to a table of columns, not to a list of rows")
+            if units:
+                raise InvalidInput("units: units= gives the units of a table's columns; a list of rows gives each "
+                                   "input's unit in its row (output_units= asks for outputs in other units)")
+            if keep:
+                raise InvalidInput("keep: keep= carries columns of a table into the answer; a list of rows has none")
             return self._batch_rows(path, decl, list(data), opts, show)
         table = InputTable.from_data(data, decl, units=units, keep=keep, strict=strict)
         return self._batch_columns(path, table, opts, show)
@@ -994,6 +1006,8 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return value.isoformat()
     if isinstance(value, tuple):
         parts = [_plain(p) for p in value]
+        for p in parts:
+            _finite(p, decl)
         unit = None
         if parts and isinstance(parts[-1], str):
             unit = parts.pop()
@@ -1010,6 +1024,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     value = _plain(value)
     if isinstance(value, float) and math.isnan(value):
         return None
+    _finite(value, decl)
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
@@ -1017,6 +1032,12 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
                            "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
+
+
+def _finite(x: Any, decl: Mapping[str, Any] | None) -> None:
+    """JSON has no infinity: the encoder writes null, and the service would say the number was missing."""
+    if isinstance(x, float) and math.isinf(x):
+        raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: {x} is not a finite number")
 
 
 def _options(uncertainty=None, correlations=None, units=None, time_format=None, method=None, samples=None,

@@ -270,6 +270,7 @@ def _evaluate(calc, quantities, statics, options) -> Result:
     if switched:
         result.warnings.insert(0, Warning(*switched))
     result.warnings.extend(_idle_correlations(quantities, options, n))
+    result.warnings.extend(_nothing_to_correlate(quantities, options, n))
 
     result.nominal_inputs = nominal
     if calc.constraints or calc.check is not None:
@@ -933,6 +934,23 @@ def _idle_correlations(quantities: Mapping[str, Measured], options: Options, n: 
                                "them is given without an uncertainty (or as isotropic orientations, drawn on their "
                                "own)", idle, None))
     return out
+
+
+def _nothing_to_correlate(quantities: Mapping[str, Measured], options: Options, n: int) -> list[Warning]:
+    """covariance or budget asked for in systems whose inputs are all exact: no output has an uncertainty,
+    so the answer has no correlation or budget there, which says so rather than leave the option unanswered."""
+    asked = [name for name, on in (("covariance", options.covariance), ("budget", options.budget)) if on]
+    if not asked:
+        return []
+    exact = np.ones(n, dtype=bool)
+    for q in quantities.values():
+        if q.isotropic or q.samples is not None:
+            return []
+        exact &= _broadcast((q.sigma_minus == 0) & (q.sigma_plus == 0), (n,))
+    if not exact.any():
+        return []
+    return [Warning("no_uncertainty", "{subject}: every input is given without an uncertainty, so no output has one "
+                    "and there is no correlation matrix or uncertainty budget to give", exact, name) for name in asked]
 
 
 def _few_draws(s: int, sampled: list[str]) -> list[Warning]:

@@ -265,7 +265,8 @@ def _column_schema(spec: Input) -> dict:
 def _domain_name(domain) -> str:
     """The component of a measured input on ``domain``, named after its bounds (e.g. MeasuredInput_gt0_lt180)."""
     words = {">": "gt", ">=": "ge", "<": "lt", "<=": "le"}
-    return "_".join(["MeasuredInput", *(f"{words[op]}{bound:g}" for op, bound in domain.bounds())])
+    # a component name takes letters, digits, ".", "_" and "-" (OpenAPI 3.1): 1e+08 is written 1e08
+    return "_".join(["MeasuredInput", *(f"{words[op]}{bound:g}".replace("+", "") for op, bound in domain.bounds())])
 
 
 def _bounded(spec: Input, schemas: dict) -> dict:
@@ -433,7 +434,8 @@ PLOT_400 = {"MalformedSeriesPlot": "plot naming a series output (without plot th
                                 "output to draw)"}
 BATCH_400 = PROBLEM_TEXT[400] + ", a table that cannot be read, or the options or keep parameter with a JSON body"
 BATCH_422 = PROBLEM_TEXT[422] + (", for the batch as a whole: neither or both of systems and columns, columns of "
-                                 "different lengths, a bad option")
+                                 "different lengths, a bad option, an option in a request table's metadata (options "
+                                 "go in the options parameter)")
 BATCH_RESPONSES = {400: "BatchMalformed", 406: "NotAcceptable", 413: "TooLarge", 415: "UnsupportedMediaType",
                    422: "BatchInvalid"}
 

@@ -47,6 +47,7 @@ MEDIA_TYPES = (JSON, *TABLE_TYPES)
 
 UNIT_KEYS = frozenset({"value", "sigma", "sigma_minus", "sigma_plus", "low", "high"})
 _ECSV_SIGNATURE = "# %ECSV"
+KIND_WORDS = {"choice": "a choice", "integer": "a whole number", "series": "a series"}
 
 
 class TableError(ValueError):
@@ -138,7 +139,7 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
             if base not in given:
                 errors[col] = [f"a sigma column needs the column {base}"]
             elif spec.kind != "quantity":
-                errors[col] = [f"{base} is a {spec.kind}: it has no uncertainty"]
+                errors[col] = [f"{base} is {KIND_WORDS[spec.kind]}: it has no uncertainty"]
         if "sigma" in members and len(members) > 1:
             errors[members["sigma"][2]] = [f"give either {base}_sigma or {base}_sigma_minus and {base}_sigma_plus"]
         elif ("sigma_minus" in members) != ("sigma_plus" in members):
@@ -148,7 +149,7 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
             errors[name] = [f"{name} is a series, the same for every system: give it in the options "
                             f'(?options={{"{name}": [...]}})']
         elif inputs[name].kind != "quantity" and unit:
-            errors[name] = [f"{name} is a {inputs[name].kind}: it has no unit"]
+            errors[name] = [f"{name} is {KIND_WORDS[inputs[name].kind]}: it has no unit"]
     columns: dict[str, Any] = {}
     for name, (values, unit) in given.items():
         if name in errors:
@@ -274,6 +275,7 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     import pyarrow as pa
 
     table = _arrow_table(data)
+    options_in_metadata(calc, [k.decode("utf-8", "replace") for k in table.schema.metadata or {}], "schema metadata")
     kinds = {spec.name: spec.kind for spec in calc.inputs}
     out = []
     for field, column in zip(table.schema, table.columns):
@@ -338,6 +340,20 @@ def _arrow_table(data: bytes):
                    "be left unread (a second stream concatenated to a first is): send one stream")
         raise TableError(400, f"the body has bytes after its Arrow IPC {kind}: {message}", {"_body": [message]})
     return table
+
+
+def options_in_metadata(calc: Calculation, keys, where: str) -> None:
+    """A table's metadata that names a batch option (an ECSV header's meta, Arrow schema metadata) is
+    refused: a request table's options ride in the query parameter, and the metadata's would go unread
+    (an answer table's metadata says what its numbers were computed with, so it reads as though they did)."""
+    from .core.batch import OPTION_KEYS
+    series = [spec.name for spec in calc.inputs if spec.kind == "series"]
+    found = [key for key in keys if key in OPTION_KEYS or key in series]
+    if found:
+        def message(name: str) -> str:
+            return (f"the table's {where} gives {name!r}, which is not read there: a table's options go in the query "
+                    f'parameter options (?options={{"{name}": ...}}, URL-encoded JSON)')
+        raise TableError(422, message(found[0]), {name: [message(name)] for name in found})
 
 
 def header_line(lines: Sequence[str]) -> str | None:
@@ -501,6 +517,7 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         if type(e).__module__.startswith(("yaml", "astropy")):
             raise TableError(400, f"the body is not {'ECSV' if ecsv else 'CSV'} text: {str(e)[:200]}") from None
         raise
+    options_in_metadata(calc, table.meta, "meta")
     kinds = {spec.name: spec.kind for spec in calc.inputs}
     written = {} if ecsv else kept_as_written(table, lines, keep, csv_options["delimiter"])
     check_number_cells(table, lines, ecsv, [name for name in table.colnames if name not in keep and

@@ -1,9 +1,11 @@
 """Bad input, fifth round: an Arrow body with bytes after its stream or its unit under another key,
-a plot asked for where no figure is drawn, columns kept under an input's or an answer's name by the
-client and the command line, the command line's samples files, repeated options and server arguments,
-and the client's sigmas and units.  Each case gets a 4xx problem (or the client's InvalidInput, or one
-line and a non-zero exit) naming the field, never a traceback and never an answer that left an input
-out."""
+options in a table's metadata, a plot asked for where no figure is drawn, columns kept under an input's or
+an answer's name by the client and the command line, the command line's samples files, repeated units and
+server numbers, the client's address, timeout, sigmas, units and infinities, an apsidal motion, a phase or
+a true anomaly with no digits left, and options (covariance, budget, an output's unit) that had nothing to
+act on.  Each case gets a 4xx problem (or the client's InvalidInput, one line and a non-zero exit, or a
+warning naming the option) that names the field, never a traceback and never an answer that left an
+input out without a word."""
 
 from __future__ import annotations
 
@@ -159,7 +161,8 @@ def test_a_samples_file_that_is_not_text_is_one_line_naming_the_input(tmp_path, 
     draws.write_bytes(b"\xff\xfe4\x001\x00")
     assert main(["compute", "sb1", f"period=@{draws}", "k1=23.4", "eccentricity=0.31"]) == 2
     err = capsys.readouterr().err
-    assert err == f"calcservice compute: period: {draws} is not UTF-8 text (byte 0): samples are numbers written as text\n"
+    assert err == (f"calcservice compute: period: {draws} is not UTF-8 text (byte 0): samples are numbers "
+                   "written as text\n")
 
 
 def test_an_output_unit_given_twice_on_the_command_line_is_refused(capsys):
@@ -249,3 +252,204 @@ def test_a_value_json_cannot_hold_is_refused_naming_the_input(local, value, kind
     with pytest.raises(InvalidInput) as e:
         local.calculate("sb1", **{**GOOD, "period": value})
     assert list(e.value.errors) == ["period"] and f"a {kind} is no value of the wire contract" in str(e.value)
+
+
+# --- 6. options in a request table's metadata -----------------------------------------------------
+
+ECSV_META = ("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: period, unit: d, datatype: float64}\n"
+             "# - {name: k1, unit: km / s, datatype: float64}\n# - {name: eccentricity, datatype: float64}\n"
+             "# meta: {META}\n# schema: astropy-2.0\nperiod k1 eccentricity\n41.6 23.4 0.31\n")
+
+
+def _options_message(where: str, name: str) -> str:
+    return (f"the table's {where} gives {name!r}, which is not read there: a table's options go in the query "
+            f'parameter options (?options={{"{name}": ...}}, URL-encoded JSON)')
+
+
+def test_options_in_an_ecsv_header_are_refused_not_left_unread(client):
+    # an answer table's meta says its uncertainty method: a request's was read as nothing (answered linearly)
+    meta = "{uncertainty: {method: monte_carlo, samples: 500, seed: 1}, units: {a1_sin_i: km}, observer: K. Lund}"
+    p = problem(client.post("/v1/batch/sb1", data=ECSV_META.replace("{META}", meta), content_type="text/csv"), 422)
+    assert p["errors"] == {"uncertainty": [_options_message("meta", "uncertainty")],
+                           "units": [_options_message("meta", "units")]}
+    # meta of the caller's own is no option, and the same options in the query are taken
+    from urllib.parse import quote
+    r = client.post("/v1/batch/sb1?options=" + quote('{"units": {"a1_sin_i": "km"}}'),
+                    data=ECSV_META.replace("{META}", "{observer: K. Lund}"), content_type="text/csv",
+                    headers={"Accept": "application/json"})
+    a1 = r.get_json()["columns"]["a1_sin_i"]
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory), in km with astropy
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert a1["unit"] == "km" and a1["value"][0] == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize("calc, key", [("sb1", "uncertainty"), ("sb1", "correlations"), ("ephemeris", "times")])
+def test_options_in_arrow_schema_metadata_are_refused(client, calc, key):
+    table = _systems([41.6]).replace_schema_metadata({key: "{}", "source": "lab notebook"})
+    p = problem(client.post(f"/v1/batch/{calc}", data=_arrow(table), content_type=ARROW), 422)
+    assert p["errors"] == {key: [_options_message("schema metadata", key)]}
+
+
+# --- 7. a whole-number input's sigma or unit column --------------------------------------------------
+
+@pytest.mark.parametrize("header, cell, column, message", [
+    ("count_sigma", ",1", "count_sigma", "count is a whole number: it has no uncertainty"),   # was "is a integer"
+    ("count[d]", "", "count", "count is a whole number: it has no unit"),
+])
+def test_a_whole_number_inputs_sigma_or_unit_column_is_refused_in_words(client, header, cell, column, message):
+    from urllib.parse import quote
+    head = "period,eccentricity,omega,t_periastron,k1," + ("count," + header if header.endswith("sigma") else header)
+    table = f"{head}\n2037.4,0.3,243.6,2458712.3,61.2,2{cell}\n"
+    p = problem(client.post("/v1/batch/ephemeris?options=" + quote('{"times": [2460400.5]}'), data=table,
+                            content_type="text/csv"), 422)
+    assert p["errors"] == {column: [message]}
+
+
+# --- 8. an apsidal motion of a turn or more per orbit --------------------------------------------------
+
+EPHEMERIS = {"period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+             "times": [2460400.5, 2450000.5], "count": 1}
+APSIDAL = ("the apsides must turn by less than 360 deg per orbit (|omega_dot| P < 360 deg: apsidal motion is slow "
+           "beside the orbit)")
+
+
+@pytest.mark.parametrize("omega_dot", [1e300, -64.6, {"value": 65.0, "sigma": 0.1}])
+def test_an_apsidal_motion_of_a_turn_per_orbit_or_more_is_refused_naming_omega_dot(client, omega_dot):
+    # 1e300 deg/yr was answered: omega(t) = omega + omega_dot (t - T0) kept no digit of the angle, and the
+    # conjunctions went missing without a word; 64.6 deg/yr over P = 2037.4 d = 5.578 Julian yr is 360.3 deg
+    p = problem(client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "omega_dot": omega_dot}), 422)
+    assert p["errors"] == {"omega_dot": [APSIDAL]}
+    rows = client.post("/v1/batch/ephemeris", json={"systems": [{**EPHEMERIS, "omega_dot": omega_dot}, EPHEMERIS]})
+    answers = rows.get_json()["results"]
+    assert answers[0]["error"]["errors"] == {"omega_dot": [APSIDAL]} and "results" in answers[1]
+
+
+def test_an_apsidal_motion_under_a_turn_per_orbit_is_answered(client):
+    # 64.4 deg/yr x 5.578 Julian yr (2037.4 d / 365.25) = 359.2 deg per orbit; at T0 omega is as given, so the
+    # velocity at a time one period after T0 is rv1 = K1 [cos(nu + omega) + e cos omega] at nu = 0 with omega
+    # advanced by 359.2 deg (Hilditch 2001, ch. 2, from memory)
+    r = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "omega_dot": 64.4, "times": [2458712.3 + 2037.4]})
+    assert r.status_code == 200
+    omega = np.radians(243.6 + 64.4 * 2037.4 / 365.25)
+    rv1 = r.get_json()["results"]["series"]["rv1"]["value"][0]
+    assert rv1 == pytest.approx(61.2 * (np.cos(omega) + 0.3 * np.cos(omega)), rel=1e-6)
+    from calcservice.registry import get
+    r = client.post("/v1/orbit/mid-eclipse", json={**get("mid-eclipse").example, "omega_dot": 13000.0})
+    assert r.status_code == 200     # P = 9.73 d: 13000 deg/yr is 346 deg per orbit
+    p = problem(client.post("/v1/orbit/mid-eclipse", json={**get("mid-eclipse").example, "omega_dot": 14000.0}), 422)
+    assert p["errors"] == {"omega_dot": [APSIDAL]}
+
+
+# --- 9. a colliding-wind phase or true anomaly beyond where its angle has digits -------------------------
+
+@pytest.mark.parametrize("field, value, message", [
+    ("phase", 1e17, "must be >= -1e+08 and <= 1e+08"),        # answered as phase 0: the fraction was lost
+    ("phase", -1e300, "must be >= -1e+08 and <= 1e+08"),
+    ("true_anomaly", 1e300, "must be >= -360 and <= 360 (in deg)"),   # answered as 0 deg
+    ("true_anomaly", 7200.0, "must be >= -360 and <= 360 (in deg)"),  # as omega and node elsewhere
+])
+def test_a_phase_or_true_anomaly_without_digits_left_is_refused(client, field, value, message):
+    from calcservice.registry import get
+    body = {k: v for k, v in get("collision").example.items() if k != "phase"}
+    p = problem(client.post("/v1/winds/collision", json={**body, field: value}), 422)
+    assert p["errors"] == {field: [message]}
+
+
+def test_a_phase_many_cycles_on_is_the_phase_of_its_fraction(client):
+    # phase 1000000.1 is the orbit's place at phase 0.1 (M = 2 pi phase, Hilditch 2001, ch. 2, from memory)
+    from calcservice.registry import get
+    body = dict(get("collision").example)
+    near = client.post("/v1/winds/collision", json={**body, "phase": 0.1}).get_json()["results"]["separation"]
+    far = client.post("/v1/winds/collision", json={**body, "phase": 1e6 + 0.1}).get_json()["results"]["separation"]
+    assert far["value"] == pytest.approx(near["value"], rel=1e-8)
+
+
+# --- 10. the client's address and timeout, a list of rows with units= or keep=, an infinite value -------
+
+@pytest.mark.parametrize("base_url", ["notaurl", "ftp://calc.example", "http://", None, 5])
+def test_a_client_address_that_is_no_http_url_is_refused_naming_it(base_url):
+    # "notaurl" raised AttributeError at the first request; ftp:// was spoken to in HTTP
+    from calcservice.client import Client, InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        Client(base_url)
+    assert list(e.value.errors) == ["base_url"] and str(e.value).startswith(f"base_url: {base_url!r} is not the ")
+
+
+@pytest.mark.parametrize("timeout", [-1, 0, "5", True])
+def test_a_client_timeout_that_is_no_positive_number_is_refused_naming_it(timeout):
+    # socket's "Timeout value out of range" named nothing, at the first request
+    from calcservice.client import Client, InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        Client("http://127.0.0.1:8000", timeout=timeout)
+    assert list(e.value.errors) == ["timeout"]
+    assert Client("https://calc.example:8443/", timeout=0.5).base_url == "https://calc.example:8443"
+
+
+@pytest.mark.parametrize("option", ["units", "keep"])
+def test_units_or_keep_with_a_list_of_rows_is_refused_naming_that_option(local, option):
+    # units= alone was refused under "keep"
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", [GOOD], **{option: {"period": "yr"} if option == "units" else ["star"]})
+    assert list(e.value.errors) == [option]
+
+
+@pytest.mark.parametrize("period", [float("inf"), np.float64(-np.inf), (41.6, float("inf"))])
+def test_an_infinite_value_is_refused_by_the_client_naming_the_input(local, period):
+    # JSON has no infinity: the encoder wrote null and the answer said the value (or sigma) was missing
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.calculate("sb1", **{**GOOD, "period": period})
+    assert list(e.value.errors) == ["period"] and "is not a finite number" in str(e.value)
+
+
+# --- 11. covariance or budget asked of exact inputs ----------------------------------------------------
+
+@pytest.mark.parametrize("options, fields", [
+    ({"covariance": True}, ["covariance"]),            # answered without a correlation, without a word
+    ({"budget": True}, ["budget"]),
+    ({"covariance": True, "budget": True, "uncertainty": {"method": "monte_carlo", "samples": 200, "seed": 1}},
+     ["covariance", "budget"]),
+])
+def test_covariance_or_budget_of_exact_inputs_is_warned_naming_the_option(client, options, fields):
+    r = client.post(SB1, json={**GOOD, **options}).get_json()
+    assert "correlation" not in r and not any(v.get("budget") for v in r["results"].values())     # none, or {}
+    assert [w["fields"] for w in r["warnings"] if w["code"] == "no_uncertainty"] == [fields]
+    # f(M) itself is answered, exact (Hilditch 2001, ch. 2, from memory)
+    assert r["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-6)
+
+
+def test_covariance_is_warned_only_for_the_exact_systems_of_a_batch(client):
+    answer = client.post("/v1/batch/sb1", json={"columns": {
+        "period": 41.6, "k1": {"value": [23.4, 23.4], "sigma": [0.0, 0.3]}, "eccentricity": 0.31},
+        "covariance": True}).get_json()
+    assert [(w["fields"], w["rows"]) for w in answer["warnings"] if w["code"] == "no_uncertainty"] == [(["covariance"],
+                                                                                                       [0])]
+    # mass_function and a1_sin_i both scale with k1 alone here: correlation 1 (K1^3 and K1, linearised)
+    assert answer["correlation"]["matrix"][1] == [[1.0, 1.0], [1.0, 1.0]]
+    plain = client.post(SB1, json={**GOOD, "k1": {"value": 23.4, "sigma": 0.3}, "covariance": True}).get_json()
+    assert not [w for w in plain["warnings"] if w["code"] == "no_uncertainty"] and "correlation" in plain
+
+
+# --- 12. an output unit for an output the inputs do not give ------------------------------------------
+
+UNUSED = "not among the results these inputs give (the output needs other inputs), so its unit is not used"
+
+
+def test_a_unit_for_an_output_these_inputs_do_not_give_is_warned_naming_it(client):
+    # m2 of sb1 needs primary_mass and inclination: its unit went unused without a word
+    r = client.post(SB1, json={**GOOD, "units": {"m2": "kg", "a1_sin_i": "km"}}).get_json()
+    assert [(w["fields"], w["message"]) for w in r["warnings"] if w["code"] == "unit_unused"] == [
+        (["units.m2"], f"units.m2: {UNUSED}")]
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory), in km with astropy
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert r["results"]["a1_sin_i"] == {"value": pytest.approx(expected, rel=1e-9), "sigma": 0.0, "unit": "km"}
+
+
+def test_an_unused_unit_is_warned_for_the_systems_that_lack_the_output(client):
+    answer = client.post("/v1/batch/sb1", json={"columns": {
+        "period": [41.6, 41.6], "k1": 23.4, "eccentricity": 0.31, "primary_mass": [None, 1.2],
+        "inclination": [None, 80.0]}, "units": {"m2": "kg"}}).get_json()
+    assert [(w["fields"], w["rows"]) for w in answer["warnings"] if w["code"] == "unit_unused"] == [(["units.m2"],
+                                                                                                     [0])]
+    assert answer["columns"]["m2"]["unit"] == "kg" and answer["columns"]["m2"]["value"][1] > 1e29   # solar masses

@@ -7,7 +7,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from ..constants import MJD_ZERO_JD
+from ..constants import DAYS_PER_JULIAN_YEAR, MJD_ZERO_JD
 from ..physics import orbit as phys
 from ..registry import (ANGLE, ANY, DATE, DAY_COUNTS_BELOW, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input,
                         Output, Warning, register)
@@ -282,6 +282,20 @@ def _quadratic_ephemeris_defined(period=None, t_periastron=None, period_derivati
     return ok
 
 
+def _apsides_slower_than_the_orbit(omega_dot=None, period=None, **_):
+    """Apsidal motion advances omega by less than a turn per orbit (apsidal period U = 360 deg / omega_dot
+    longer than P, in practice by far): beyond it omega(t) is no slow drift, and at 1e300 deg/yr its turns
+    over the times asked for kept no digit of the angle."""
+    if omega_dot is None or period is None:
+        return np.asarray(True)
+    return np.asarray(np.abs(omega_dot) * np.asarray(period, dtype=float) / DAYS_PER_JULIAN_YEAR < 360.0)
+
+
+APSIDAL_CONSTRAINT = Constraint(("omega_dot",), "the apsides must turn by less than 360 deg per orbit "
+                                "(|omega_dot| P < 360 deg: apsidal motion is slow beside the orbit)",
+                                _apsides_slower_than_the_orbit)
+
+
 def _ephemeris_consistent_masses(m1=None, m2=None, **_):
     return np.asarray((m1 is None) == (m2 is None))
 
@@ -367,6 +381,7 @@ register(Calculation(
         Constraint(("period_derivative",), "with this period derivative the period reaches zero before some of the "
                    "times (or event dates) asked for: the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2) has no "
                    "date there", _quadratic_ephemeris_defined),
+        APSIDAL_CONSTRAINT,
         Constraint(("k2",), "light_travel_time star2 needs k2 (its a sin i comes from k2)",
                    lambda k2=None, light_travel_time=None, **_: np.asarray(light_travel_time != "star2"
                                                                            or k2 is not None)),
@@ -615,7 +630,8 @@ register(Calculation(
                             "(semimajor_axis or total_mass)", _mid_eclipse_radii_need_size),
                  Constraint(("period_derivative",), "with this period derivative the period reaches zero before the "
                             "mid-eclipses asked for: the quadratic ephemeris t = T0 + P (n + Pdot n^2 / 2) has no "
-                            "date there", _quadratic_ephemeris_defined)),
+                            "date there", _quadratic_ephemeris_defined),
+                 APSIDAL_CONSTRAINT),
     at_most_one=(("semimajor_axis", "total_mass"),),
     check=_mid_eclipse_check,
     extra=mid_eclipse_events,

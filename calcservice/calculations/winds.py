@@ -3,8 +3,12 @@
 import numpy as np
 
 from ..physics import winds as phys
-from ..registry import ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
+from ..registry import ANGLE, ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
 from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, with_speed_check
+
+# a phase counts cycles from periastron: within 1e8 of them a double still resolves 1.5e-8 of a cycle, beyond
+# (1e17) the fraction that places the stars on the orbit is lost and the answer is that of phase 0
+ORBITAL_PHASE = Domain(-1e8, 1e8)
 
 EICHLER_USOV_1993 = "D. Eichler & V. Usov (1993), ApJ 402, 271 (shock-cone opening angle)"
 CANTO_RAGA_WILKIN_1996 = "J. Cantó, A. C. Raga & F. P. Wilkin (1996), ApJ 469, 729 (thin-shell colliding winds)"
@@ -199,9 +203,9 @@ register(Calculation(
               example=2950.0),
         Input("m1", "solMass", "mass of star 1 (with period and m2)", POSITIVE, required=False, example=18.0),
         Input("m2", "solMass", "mass of star 2 (with period and m1)", POSITIVE, required=False, example=24.0),
-        Input("phase", "", "orbital phase (t - T_periastron)/P, 0 at periastron (needs an orbit)", ANY,
+        Input("phase", "", "orbital phase (t - T_periastron)/P, 0 at periastron (needs an orbit)", ORBITAL_PHASE,
               required=False, example=0.1),
-        Input("true_anomaly", "deg", "true anomaly, 0 at periastron (needs an orbit)", ANY, required=False,
+        Input("true_anomaly", "deg", "true anomaly, 0 at periastron (needs an orbit)", ANGLE, required=False,
               example=120.0),
         Input("mu1", "", "mean mass per particle of the shocked wind of star 1 in units of m_H (default: fully "
               "ionised solar gas, 0.617; fully ionised helium is 1.33)", POSITIVE, required=False,

@@ -25,13 +25,19 @@ def run(parsed: Parsed) -> Result:
     result.warnings.extend(underflows(parsed.calc, result, parsed.statics))
     result.warnings.extend(misread_dates(parsed))
     result.warnings.extend(unused_inputs(parsed))
-    result.warnings.extend(Warning("unit_unused", "{subject}: a unit asked for an output that the inputs given do not "
-                                   "determine; it is not used", None, f"units.{name}")
-                           for name in parsed.output_units if name not in result.outputs)
+    result.warnings.extend(unused_units(parsed, result))
     if result.failed:
         _name_what_fails(parsed, result)
         _name_draws_out_of_domain(parsed, result)
     return result
+
+
+def unused_units(parsed: Parsed, result: Result) -> list[Warning]:
+    """A unit asked for an output these inputs do not give (m2 of sb1 without primary_mass): said, where
+    the answer would leave it out without a word."""
+    return [Warning("unit_unused", "{subject}: not among the results these inputs give (the output needs other "
+                    "inputs), so its unit is not used", None, f"units.{name}")
+            for name in parsed.output_units if name not in result.outputs]
 
 
 NO_DRAW_KEPT = "every Monte Carlo draw fell outside"
