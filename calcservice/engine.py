@@ -311,7 +311,7 @@ class Plan:
     fill_cols: np.ndarray       # (WIDTH m,) its column
     open_low: np.ndarray        # (m, 1) the open domain bounds (-inf, inf where a bound is closed or absent)
     open_high: np.ndarray
-    angle: np.ndarray           # (m, 1) which are angles in degrees
+    radian: np.ndarray          # (m, 1) a radian in the unit of each angle or cyclic input (0 for others)
     _periods: dict = field(default_factory=dict, repr=False)
 
     def inside(self, values: np.ndarray) -> np.ndarray:
@@ -353,10 +353,12 @@ def plan(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) 
     high = np.array([np.nextafter(d.high, -np.inf) if d.high_open else d.high for d in doms], dtype=float)[:, None]
     open_low = np.array([d.low if d.low_open else -np.inf for d in doms], dtype=float)[:, None]
     open_high = np.array([d.high if d.high_open else np.inf for d in doms], dtype=float)[:, None]
-    angle = np.array([calc.input(name).unit == "deg" for name in perturbed], dtype=bool)[:, None]
+    # an angle in degrees or a cyclic input (a phase in cycles) varies on the scale of a radian of its turn
+    radian = np.array([DEGREES_PER_RADIAN if calc.input(name).unit == "deg" else
+                       (calc.input(name).period or 0.0) / (2.0 * np.pi) for name in perturbed], dtype=float)[:, None]
     p = Plan(calc, names, perturbed, rows, time, bool(time.any()), low, high, np.tile(rows, WIDTH),
-             1 + np.arange(WIDTH * len(perturbed)), open_low, open_high, angle)
-    for a in (p.rows, p.time, p.low, p.high, p.fill_rows, p.fill_cols, p.open_low, p.open_high, p.angle):
+             1 + np.arange(WIDTH * len(perturbed)), open_low, open_high, radian)
+    for a in (p.rows, p.time, p.low, p.high, p.fill_rows, p.fill_cols, p.open_low, p.open_high, p.radian):
         a.flags.writeable = False
     return p
 
@@ -375,7 +377,8 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     of their distance to 1, on one side, :func:`_stencil`).  Elsewhere it is |x|, or the sigma where
     that is larger (a Thiele-Innes constant near 0, whose zero means nothing to the formula), and for
     an angle in degrees a radian, the scale of its sines and cosines, whatever its value (a node of
-    0.01 deg is an ordinary point).  A step tied to a small sigma drowns in rounding: a period known to 1e-5
+    0.01 deg is an ordinary point), as for a cyclic input a radian of its turn (a phase 1e5 cycles on
+    varies as one near 0).  A step tied to a small sigma drowns in rounding: a period known to 1e-5
     of itself stepped by 1e-10 of it moves f by 1e-10 |f| beside a rounding of 1e-16 |f|.  Where the
     formula amplifies the step (a period by the cycles elapsed) :func:`_refine` sees the bend in
     the stencil and shortens it.
@@ -386,7 +389,7 @@ def _steps(x: np.ndarray, spread: np.ndarray, pl: Plan) -> np.ndarray:
     sec. 5.7); it matters for dates, where ulp(JD) ~ 5e-10 d."""
     ax = np.abs(x)
     edge = np.minimum(x - pl.open_low, pl.open_high - x)                         # inf without open bounds
-    scale = np.where(edge < np.inf, edge, np.maximum(spread, np.where(pl.angle, DEGREES_PER_RADIAN, ax)))
+    scale = np.where(edge < np.inf, edge, np.maximum(spread, np.where(pl.radian > 0, pl.radian, ax)))
     # a subnormal scale (x = 5e-324 with no sigma) is 0 for this purpose: a step tied to it would underflow
     scale = np.where(scale >= _TINY, scale, 0.0)
     h = RELATIVE_STEP * np.where(scale > 0, scale, np.where(spread > 0, spread, 1.0))

@@ -119,6 +119,7 @@ class Input:
     example: Any = None
     label: str | None = None       # key of a series input's values in the response (default: its name)
     unused_with: tuple[str, ...] = ()   # given beside all of these it changes nothing (warning input_unused)
+    period: float | None = None    # a cyclic input, meaning the same modulo this (a phase in cycles: 1.0)
 
     def as_dict(self) -> dict:
         d: dict[str, Any] = {"name": self.name, "kind": self.kind, "description": self.description,
@@ -277,6 +278,9 @@ def register(calc: Calculation) -> Calculation:
     idle = {i.name: sorted(set(i.unused_with) - set(names)) for i in calc.inputs if set(i.unused_with) - set(names)}
     if idle:
         raise ValueError(f"{calc.name}: unused_with names inputs the calculation does not have: {idle}")
+    turns = [i.name for i in calc.inputs if i.period is not None and not i.period > 0]
+    if turns:
+        raise ValueError(f"{calc.name}: a cyclic input's period must be > 0: {turns}")
     uncited = sorted({r for o in calc.outputs for r in o.references} - set(calc.references))
     if uncited:
         raise ValueError(f"{calc.name}: outputs cite references the calculation does not list: {uncited}")

@@ -253,3 +253,17 @@ def test_geometry_within_a_rounding_of_e_one_keeps_a_step():
         for k in range(3):
             want = mp.mpf(se) / (1 - mp.mpf(e[k]))
             assert relative_error(sig["periastron_distance"][k] / val["periastron_distance"][k], want) < 1e-9
+
+
+def test_collision_true_anomaly_sigma_from_a_phase_many_cycles_on_is_that_of_its_fraction():
+    # nu from the phase by Kepler's equation; d nu / dM = (1 + e cos nu)^2 / (1 - e^2)^(3/2) (Murray &
+    # Dermott 1999, ch. 2; from memory) and M = 2 pi phase.  A phase is a cyclic input: stepped by 1e-5 of
+    # |x| a phase of 1e5 cycles was differenced over a whole cycle, and its sigma was not the fraction's
+    e, sigma_phase = 0.64, 0.005
+    common = {"mdot1": 2.4e-5, "mdot2": 1.1e-6, "vinf1": 2300.0, "vinf2": 1900.0, "eccentricity": e,
+              "semimajor_axis": 14.0}
+    for phase in (0.1, 7.1, -3.9, 1e5 + 0.1):
+        got, val, _ = _sigmas("collision", {**common, "phase": np.array([phase])}, {"phase": sigma_phase})
+        nu = np.radians(val["true_anomaly"][0])
+        want = np.degrees(2 * np.pi * (1 + e * np.cos(nu)) ** 2 / (1 - e * e) ** 1.5) * sigma_phase
+        assert relative_error(got["true_anomaly"][0], want) < 1e-8, phase

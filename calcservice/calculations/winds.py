@@ -204,7 +204,7 @@ register(Calculation(
         Input("m1", "solMass", "mass of star 1 (with period and m2)", POSITIVE, required=False, example=18.0),
         Input("m2", "solMass", "mass of star 2 (with period and m1)", POSITIVE, required=False, example=24.0),
         Input("phase", "", "orbital phase (t - T_periastron)/P, 0 at periastron (needs an orbit)", ORBITAL_PHASE,
-              required=False, example=0.1),
+              required=False, example=0.1, period=1.0),
         Input("true_anomaly", "deg", "true anomaly, 0 at periastron (needs an orbit)", ANGLE, required=False,
               example=120.0),
         Input("mu1", "", "mean mass per particle of the shocked wind of star 1 in units of m_H (default: fully "
