@@ -453,3 +453,20 @@ def test_an_unused_unit_is_warned_for_the_systems_that_lack_the_output(client):
     assert [(w["fields"], w["rows"]) for w in answer["warnings"] if w["code"] == "unit_unused"] == [(["units.m2"],
                                                                                                      [0])]
     assert answer["columns"]["m2"]["unit"] == "kg" and answer["columns"]["m2"]["value"][1] > 1e29   # solar masses
+
+
+@pytest.mark.parametrize("text", [" 2019-08-20T12:00:00", "2019-08-20T12:00:00 ", "2019-08-20T12:00:00\t",
+                                  "\n2019-08-20T12:00:00Z\n", "2019-08-20t12:00:00z "])
+def test_white_space_around_an_iso_date_is_no_part_of_it(client, text):
+    # astropy took a date with a final newline and refused one with a space on either side; both now read as
+    # the date itself (JD 2458716.0 for 2019-08-20T12:00 UTC, astropy.time)
+    from astropy.time import Time
+    jd = Time("2019-08-20T12:00:00", scale="utc").jd
+    for body in ({**EPHEMERIS, "t_periastron": text}, {**EPHEMERIS, "times": [text, "2024-01-01"]}):
+        r = client.post("/v1/orbit/ephemeris", json=body)
+        assert r.status_code == 200, r.get_json()
+        if body["t_periastron"] == text:
+            same = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": jd}).get_json()
+            assert r.get_json()["results"]["series"]["phase"]["value"] == same["results"]["series"]["phase"]["value"]
+        else:
+            assert r.get_json()["results"]["series"]["time"]["value"][0] == pytest.approx(jd, abs=1e-9)

@@ -156,8 +156,9 @@ _LOWER_T_Z = re.compile(r"(?<=\d)t(?=\d)|(?<=\d)z$")
 
 
 def _utc_offsets(texts: list[str]) -> tuple[list[str], np.ndarray]:
-    """The strings without their UTC offsets, and each offset in minutes (0 where none)."""
-    bare, minutes = [_LOWER_T_Z.sub(lambda m: m[0].upper(), t) for t in texts], np.zeros(len(texts))
+    """The strings without their UTC offsets, and each offset in minutes (0 where none); white space around a
+    date is no part of it (astropy took a final newline and refused a space, either side)."""
+    bare, minutes = [_LOWER_T_Z.sub(lambda m: m[0].upper(), t.strip()) for t in texts], np.zeros(len(texts))
     for k, text in enumerate(bare):
         m = _OFFSET.fullmatch(text)
         if m:
