@@ -11,13 +11,13 @@ from __future__ import annotations
 
 import io
 
-import astropy.constants as const
 import astropy.units as u
 import numpy as np
 import pytest
 
 from calcservice import create_app
 from tests.test_bad_inputs_round2 import problem
+from tests.test_bad_inputs_round4 import mass_function
 
 SB1 = "/v1/spectroscopic/sb1"
 GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
@@ -27,11 +27,6 @@ ARROW = "application/vnd.apache.arrow.stream"
 @pytest.fixture(scope="module")
 def client():
     return create_app().test_client()
-
-
-def mass_function(period_d: float, k1_kms: float, e: float) -> float:
-    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, ch. 2, from memory), with astropy's constants
-    return (period_d * u.d * (k1_kms * u.km / u.s) ** 3 * (1 - e ** 2) ** 1.5 / (2 * np.pi * const.G)).to_value(u.M_sun)
 
 
 # --- 1. an Arrow body: bytes after the stream, a unit under another key ----------------------------
