@@ -740,6 +740,18 @@
     ]);
   }
 
+  // An event's calendar date to the resolution its sigma supports: the day for a sigma of a day or more, the
+  // minute for one of a minute or more (the date itself is rounded by the PDG rule beside it); the full
+  // string stays in the cell's title.
+  function isoShown(iso, e, unit) {
+    const sigma = typeof e.sigma === "number" ? e.sigma
+      : typeof e.low === "number" && typeof e.high === "number" ? (e.high - e.low) / 2 : null;
+    const t = typeof iso === "string" && /^\d{4}-/.test(iso) ? Date.parse(/[zZ]|[+-]\d\d:\d\d$/.test(iso) ? iso : iso + "Z") : NaN;
+    if (unit !== "d" || !(sigma >= 1 / 1440) || isNaN(t)) return iso;
+    const [step, length] = sigma >= 1 ? [86400000, 10] : [60000, 16];
+    return new Date(Math.round(t / step) * step).toISOString().slice(0, length);
+  }
+
   function eventLists(key, member) {
     const box = el("div", { class: "events", "data-member": key });
     const unit = member.unit || "";
@@ -750,7 +762,9 @@
       const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(
         keys.map((k) => el("th", { text: fieldUnits[k] ? `${k} [${fieldUnits[k]}]` : k }))));
       const rows = entries.map((e) => el("tr", {}, [el("td", { class: "value", title: fullPrecision(e), text: measured(e, 12) })]
-        .concat(keys.map((k) => el("td", { text: typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
+        .concat(keys.map((k) => k === "iso" && e[k]
+          ? el("td", { "data-field": k, title: e[k], text: isoShown(e[k], e, unit) })
+          : el("td", { "data-field": k, text: typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
       box.append(el("h3", { text: `${key}: ${sub.replace(/_/g, " ")}` }),
         el("table", { class: "results" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
