@@ -144,13 +144,22 @@ class Result(dict):
         return _correlated(names, [_float(self._entry(n).get("value")) for n in names],
                            [_float(self._entry(n).get("sigma")) for n in names], corr["matrix"])
 
-    def _repr_html_(self) -> str:
+    def _summary(self) -> tuple[str, tuple[str, ...], list[tuple[str, str, str]]]:
         rows = []
         for name, e in (self.get("results") or {}).items():
             if isinstance(e, Mapping) and isinstance(e.get("value"), (int, float)):
                 rows.append((name, _pm(e.get("value"), e.get("sigma")), e.get("unit", "")))
         title = f"{self.get('calculation', '')} ({(self.get('uncertainty') or {}).get('method', '')})"
-        return _html_table(title, ("output", "value ± sigma", "unit"), rows)
+        return title, ("output", "value ± sigma", "unit"), rows
+
+    def _repr_html_(self) -> str:
+        return _html_table(*self._summary())
+
+    def __str__(self) -> str:
+        """``print(result)``: the outputs as a text table, value ± sigma rounded as the reports round them
+        (``repr`` stays the mapping's, every digit)."""
+        title, header, rows = self._summary()
+        return "\n".join([title, *_text_rows([header, *rows])])
 
 
 def _float(x) -> float:
@@ -289,10 +298,13 @@ class BatchResult(dict):
         errors = self.error_text()
         codes = [", ".join(c) for c in self.warning_codes()]
         warned = sum(1 for c in codes if c)
+        kept = list(self.kept)          # the caller's own columns (a star's name) say which system a row is
         for i in range(min(self.count, limit)):
-            rows.append([str(i)] + [_pm(self[n][i], self.sigma.get(n, [None] * self.count)[i]) for n in names]
+            rows.append([str(i)] + [_json_text(self.kept[k][i]) if not isinstance(self.kept[k][i], str)
+                                    else self.kept[k][i] for k in kept]
+                        + [_pm(self[n][i], self.sigma.get(n, [None] * self.count)[i]) for n in names]
                         + ([codes[i]] if warned else []) + [errors[i]])
-        header = (["#"] + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
+        header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
                   + (["warnings"] if warned else []) + ["error"])
         more = f", first {limit} shown" if self.count > limit else ""
         title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
@@ -307,9 +319,12 @@ class BatchResult(dict):
         title, header, rows = self._summary(10)
         if not any(r[-1] for r in rows):
             header, rows = header[:-1], [r[:-1] for r in rows]        # no error column when none failed
-        widths = [max(len(c) for c in column) for column in zip(header, *rows)]
-        lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in [header, *rows]]
-        return "\n".join([f"<BatchResult {title}>", *lines])
+        return "\n".join([f"<BatchResult {title}>", *_text_rows([header, *rows])])
+
+
+def _text_rows(rows: Sequence[Sequence[str]]) -> list[str]:
+    widths = [max(len(c) for c in column) for column in zip(*rows)]
+    return ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
 
 
 def _json_text(x) -> str:
@@ -333,11 +348,13 @@ def problem_reason(problem: Mapping[str, Any]) -> str:
 
 
 def _pm(value, sigma) -> str:
+    """value ± sigma as the reports and the command line print it (Particle Data Group rounding)."""
+    from .report import STYLES, printed
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
-    if sigma is None or (isinstance(sigma, float) and math.isnan(sigma)) or sigma == 0:
-        return f"{value:.6g}"
-    return f"{value:.6g} ± {sigma:.2g}"
+    if sigma is None or (isinstance(sigma, float) and math.isnan(sigma)):
+        sigma = None
+    return STYLES["text"].number(printed(float(value), sigma=None if sigma is None else float(sigma)))
 
 
 def _html_table(title: str, header: Sequence[str], rows: Iterable[Sequence[str]]) -> str:

@@ -348,7 +348,10 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     s = entry.get("sigma")
     if _finite(s) and s > 0:
         return style.number(as_given(v, sigma=s))
-    return style.number(as_given(v)) + (style.text(" (default)") if entry.get("default") else "")
+    if entry.get("default"):
+        # the declaration's number, not the caller's: six significant digits as any exact number (0.617284)
+        return style.number(_exact(v)) + style.text(" (default)")
+    return style.number(as_given(v))
 
 
 def as_given(value: float, sigma: float | None = None, minus: float | None = None,

@@ -50,7 +50,14 @@ def factor(from_unit: str, to_unit: str) -> float:
 
     The error names the kind of unit ``to_unit`` is: callers put the unit they need there.
     """
-    a, b = parse_unit(from_unit), parse_unit(to_unit)
+    b = parse_unit(to_unit)
+    try:
+        a = parse_unit(from_unit)
+    except UnitError as e:
+        if not str(e).startswith("unknown unit") or not to_unit:
+            raise
+        # say what to write instead: the kind of unit needed and the input's own unit as astropy spells it
+        raise UnitError(f"{e}: give {needed(b)} as astropy writes it, such as {to_unit!r}") from None
     try:
         k = float(a.to(b))
     except u.UnitConversionError:

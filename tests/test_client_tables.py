@@ -15,6 +15,7 @@ from calcservice import create_app
 from calcservice.client import CalcServiceError, Client, rows_per_request
 
 from .conftest import post
+from .test_form_browser import _pdg
 
 # Fictional systems of our own demo scenario.
 PERIOD = [41.6, 12.3, 5.07, 230.0]
@@ -240,8 +241,25 @@ def test_batch_repr_is_a_text_table_of_values_and_sigmas(svc):
     assert lines[0] == "<BatchResult sb1: 4 systems, 1 failed>" and len(lines) == 6
     assert lines[1].split()[:3] == ["#", "mass_function", "[solMass]"] and lines[1].endswith("error")
     mf, sigma = out["mass_function"][0], out.sigma["mass_function"][0]
-    assert f"{mf:.6g} ± {sigma:.2g}" in lines[2]
+    # rounded as the reports and the command line round it (Particle Data Group rule), not 6 digits beside 2
+    assert _pdg(mf, sigma) in lines[2]
     assert "eccentricity" in lines[4] and "—" in lines[4]
+
+
+def test_printed_results_round_by_the_pdg_rule_and_name_their_systems(svc):
+    # a fictional double-lined binary; sigma(m1 sin^3 i) = 0.0998 rounds up to 0.10 (PDG: 950-999 -> 1000, two
+    # digits), where "%.6g ± %.2g" printed 4.55743 ± 0.1
+    r = svc.calculate("sb2", period=(17.384, 0.003), k1=(72.4, 0.6), k2=(94.1, 0.9), eccentricity=(0.142, 0.008))
+    m = r["results"]["m1_sin3i"]
+    assert 0.0995 < m["sigma"] < 0.1
+    lines = str(r).splitlines()
+    assert lines[0] == "sb2 (linear)"
+    assert [x for x in lines if x.startswith("m1_sin3i ")][0].split() == ["m1_sin3i", "4.56", "±", "0.10", "solMass"]
+    assert repr(r) == repr(dict(r))         # repr keeps every digit
+    out = svc.batch("sb2", {"star": ["HG-1", "HG-2"], "period": [17.384, 4.2716], "k1": [72.4, 118.3],
+                            "k2": [94.1, 131.9], "eccentricity": [0.142, 0.0]}, keep=["star"])
+    lines = repr(out).splitlines()
+    assert lines[1].split()[:2] == ["#", "star"] and lines[2].split()[:2] == ["0", "HG-1"]
 
 
 def test_correlated_outputs_agree_with_uncertainties(svc):

@@ -394,3 +394,22 @@ def test_results_download_as_csv_and_json(browser, base_url, client, tmp_path):
     for r in rows:
         e = expected["results"][r["output"]]
         assert float(r["value"]) == e["value"] and float(r["sigma"]) == e["sigma"] and r["unit"] == e["unit"]
+
+
+@pytest.mark.browser
+def test_event_dates_are_shown_to_what_their_sigma_supports(browser, base_url, client):
+    # the ephemeris example's periastron passages have sigmas of a day or two: their calendar dates are shown to
+    # the day (the seconds were false precision), the full ISO string on hover
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+    _open(browser, base_url + "/")
+    Select(browser.find_element(By.ID, "calculation")).select_by_value("ephemeris")
+    browser.find_element(By.ID, "example").click()
+    browser.find_element(By.ID, "compute").click()
+    cells = _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, '.events[data-member="events"] td[data-field="iso"]'))
+    example = client.get("/v1/calculations/ephemeris").get_json()["example"]
+    first = post(client, "/v1/orbit/ephemeris", example)[1]["results"]["events"]["periastron"][0]
+    assert first["sigma"] >= 1 and cells[0].get_attribute("title") == first["iso"]
+    # astropy.time: the ISO date of the JD rounded to the nearest day boundary (JD x.5 is 00:00 UTC)
+    from astropy.time import Time
+    assert cells[0].text == Time(round(first["value"] - 0.5) + 0.5, format="jd", scale="utc").isot[:10]

@@ -234,3 +234,23 @@ def test_budget_asked_from_the_page_matches_the_uncertainties_package(browser, b
     reference = _sb2_budget_reference(_example(client, "sb2"))
     assert {k: v for k, v in shown.items() if abs(v) >= 0.0005} == pytest.approx(
         {k: v for k, v in reference.items() if abs(v) >= 0.0005}, abs=0.0006)
+
+
+def test_sigma_column_unit_and_the_docs_link(browser, base_url, tmp_path):  # noqa: F811
+    # a sigma column without a unit of its own is read in its value column's unit (WIRE.md): period[yr] makes
+    # period_sigma years, not the input's default days; the form also links the calculation's reference section,
+    # and prints a declared default with six significant digits (mu1 = 50/81 = 0.617284)
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb2")
+    link = browser.find_element(By.ID, "docs-link")
+    assert link.get_attribute("href").endswith("/docs#sb2")
+    path = tmp_path / "yr.csv"
+    path.write_text("name,period[yr],period_sigma,k1,k1_sigma,k2,k2_sigma,eccentricity\nVale-9,0.58,0.0025,19.6,0.4,23.8,0.5,0.6\n")
+    _load(browser, path)
+    headers = _headers(browser, "catalogue-preview-table")
+    assert headers["period_sigma"] == "period_sigma [yr] (as period)" and headers["k1_sigma"] == "k1_sigma [km/s] (default)"
+    assert browser.find_element(By.ID, "catalogue-status").text.startswith("1 system, CSV.")
+    _open(browser, f"{base_url}/#collision")
+    assert browser.find_element(By.ID, "in-mu1").get_attribute("placeholder") == "default 0.617284"
+    assert browser.find_element(By.ID, "desc-mu1").text.endswith("default 0.617284")

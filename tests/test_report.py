@@ -194,3 +194,14 @@ def test_inputs_print_every_digit_given_over_one_power_of_ten(client):
     assert rows["separation"] == "41.60 ± 0.02"
     latex = client.post("/v1/winds/collision?format=latex", json=body).get_data(as_text=True)
     assert r"$(2.0^{+0.3}_{-0.1}) \times 10^{-5}$" in latex
+
+
+def test_a_default_input_prints_six_significant_digits(client):
+    # mu = 50/81 = 0.617284 (fully ionised gas of solar composition, the collision declaration's default); the report
+    # printed the double's 15 digits (0.617283950617284) beside the caller's own numbers
+    body = {"mdot1": {"value": 2.4e-5, "sigma": 6e-6}, "mdot2": 1.1e-6, "vinf1": 2300.0, "vinf2": 1900.0,
+            "separation": 10.0}
+    r = client.post("/v1/winds/collision?format=markdown", json=body)
+    assert r.status_code == 200
+    row = [line for line in r.get_data(as_text=True).splitlines() if line.startswith("| `mu1` |")][0]
+    assert row.split("|")[2].strip() == f"{50 / 81:.6g} (default)" == "0.617284 (default)"

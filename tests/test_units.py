@@ -127,3 +127,13 @@ def test_a_unit_for_an_output_the_inputs_do_not_determine_is_said_unused(client)
     status, doc = post(client, "/v1/spectroscopic/sb2", {**body, "inclination": 71.0})
     assert status == 200 and not [w for w in doc["warnings"] if w["code"] == "unit_unused"]
     assert doc["results"]["m1"]["unit"] == "kg"
+
+
+def test_unknown_unit_says_what_to_write_instead(client):
+    # "kms" is no unit astropy reads (astropy: "km/s" is); the answer names the kind needed and the input's own unit
+    with pytest.raises(ValueError):
+        u.Unit("kms", parse_strict="raise")
+    status, body = post(client, "/v1/spectroscopic/sb1", {**SB1, "k1": {"value": 23.4, "unit": "kms"}})
+    message = " ".join(body["errors"]["k1"])
+    assert status == 422 and message.startswith("unknown unit 'kms'")
+    assert "a speed/velocity unit" in message and "'km/s'" in message

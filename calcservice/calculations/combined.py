@@ -47,7 +47,7 @@ register(Calculation(
             "whose companion is dark (a_phot = a1) or of known light fraction.",
     inputs=(
         period(),
-        semi_amplitude("k1", "1 (the primary)", 24.6),
+        semi_amplitude("k1", "1 (the primary), from the spectroscopic orbit", 24.6),
         Input("k2", "km/s", "radial-velocity semi-amplitude of star 2 (double-lined case: give this with "
               "angular_semimajor_axis, or photocentre_semimajor_axis instead)", SPEED, required=False,
               example=31.9),

@@ -119,7 +119,7 @@ def inclination(required=False, isotropic=True, **kw) -> Input:
 
 
 def semi_amplitude(name: str, star: str, example: float) -> Input:
-    return Input(name, "km/s", f"radial-velocity semi-amplitude of star {star} (below the speed of light)", SPEED,
+    return Input(name, "km/s", f"radial-velocity semi-amplitude of star {star}", SPEED,
                  example=example)
 
 

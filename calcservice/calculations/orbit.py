@@ -261,7 +261,8 @@ def _ephemeris_check(inputs, outputs):
         span = f"{Time(lo, format='jd', scale='utc').iso[:10]} to {Time(hi, format='jd', scale='utc').iso[:10]}"
         out.append(Warning("leap_seconds_unknown",
                            f"some times or event dates lie outside {span}, where UTC leap seconds are not known; "
-                           "their ISO dates (as UTC) may be off by the leap seconds yet to be announced",
+                           "their ISO dates (as UTC) may be off by one second for each leap second announced later, "
+                           "which matters only where a date's sigma is a few seconds",
                            bad))
     return out
 

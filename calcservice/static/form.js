@@ -236,18 +236,21 @@
     for (const c of state.calcs) (groups[groupOf(c)] = groups[groupOf(c)] || []).push(c);
     for (const [g, list] of Object.entries(groups)) {
       const og = el("optgroup", { label: g });
-      for (const c of list) og.append(el("option", { value: c.name, text: `${c.title} (${c.name})` }));
+      for (const c of list) og.append(el("option", { value: c.name, text: `${c.name}: ${c.title}` }));
       select.append(og);
     }
   }
+
+  // a declared default as a person reads it: six significant digits (the JSON keeps every digit)
+  function defaultText(v) { return typeof v === "number" ? String(Number(v.toPrecision(6))) : String(v); }
 
   function domainText(spec) {
     const parts = [];
     if (spec.kind === "choice") parts.push("one of " + spec.choices.join(", "));
     else if (spec.domain && spec.domain !== "must be finite") parts.push(spec.domain);
     if (spec.accepts && spec.accepts.includes("isotropic") && !spec.description.includes("isotropic")) parts.push('or "isotropic"');
-    if (spec.time) parts.push("JD, or an ISO 8601 date");
-    if (spec.default !== undefined) parts.push(`default ${spec.default}`);
+    if (spec.time && !spec.description.includes("ISO 8601")) parts.push("JD, or an ISO 8601 date");
+    if (spec.default !== undefined) parts.push(`default ${defaultText(spec.default)}`);
     return parts.join("; ");
   }
 
@@ -256,7 +259,7 @@
     const required = spec.required && spec.default === undefined;
     const wide = spec.kind !== "quantity";
     const row = el("div", { class: "input-row" + (wide ? " wide" : ""), "data-input": name });
-    const label = el("label", { class: "name", for: `in-${name}`, text: name });
+    const label = el("label", { class: "name", for: `in-${name}` }, breakable(name));
     if (required) label.append(el("span", { class: "req", title: "required", text: "*" }));
     row.append(label);
     const described = `desc-${name} error-${name}`;
@@ -270,12 +273,12 @@
         placeholder: spec.time ? "2460400.5, 2460500.5, 2024-06-01T00:00 …" : "1.0, 2.0, …" });
     } else if (spec.kind === "integer") {
       control = el("input", { id: `in-${name}`, class: "value", name, type: "number", step: 1, inputmode: "numeric",
-        "aria-describedby": described, placeholder: spec.default !== undefined ? String(spec.default) : "" });
+        "aria-describedby": described, placeholder: spec.default !== undefined ? defaultText(spec.default) : "" });
     } else {
       control = el("input", { id: `in-${name}`, class: "value", name, type: "text", inputmode: "decimal",
         autocomplete: "off", spellcheck: "false", "aria-describedby": described,
         placeholder: spec.time ? "JD or ISO date" : (spec.accepts ? "value or isotropic" :
-          (spec.default !== undefined ? `default ${spec.default}` : "value")) });
+          (spec.default !== undefined ? `default ${defaultText(spec.default)}` : "value")) });
     }
     row.append(control);
     if (spec.kind === "quantity") {
@@ -300,7 +303,8 @@
   function buildForm(calc) {
     state.calc = calc;
     clear($("summary"));
-    $("summary").append(math(calc.summary));
+    $("summary").append(math(calc.summary), " ",
+      el("a", { id: "docs-link", href: `docs#${encodeURIComponent(calc.name)}`, text: "Formulas, units and references" }));
     const groups = [];
     for (const g of calc.exactly_one_of || []) groups.push("give exactly one of " + g.join(", "));
     for (const g of calc.at_most_one_of || []) groups.push("at most one of " + g.join(", "));
@@ -736,6 +740,18 @@
     ]);
   }
 
+  // An event's calendar date to the resolution its sigma supports: the day for a sigma of a day or more, the
+  // minute for one of a minute or more (the date itself is rounded by the PDG rule beside it); the full
+  // string stays in the cell's title.
+  function isoShown(iso, e, unit) {
+    const sigma = typeof e.sigma === "number" ? e.sigma
+      : typeof e.low === "number" && typeof e.high === "number" ? (e.high - e.low) / 2 : null;
+    const t = typeof iso === "string" && /^\d{4}-/.test(iso) ? Date.parse(/[zZ]|[+-]\d\d:\d\d$/.test(iso) ? iso : iso + "Z") : NaN;
+    if (unit !== "d" || !(sigma >= 1 / 1440) || isNaN(t)) return iso;
+    const [step, length] = sigma >= 1 ? [86400000, 10] : [60000, 16];
+    return new Date(Math.round(t / step) * step).toISOString().slice(0, length);
+  }
+
   function eventLists(key, member) {
     const box = el("div", { class: "events", "data-member": key });
     const unit = member.unit || "";
@@ -746,7 +762,9 @@
       const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(
         keys.map((k) => el("th", { text: fieldUnits[k] ? `${k} [${fieldUnits[k]}]` : k }))));
       const rows = entries.map((e) => el("tr", {}, [el("td", { class: "value", title: fullPrecision(e), text: measured(e, 12) })]
-        .concat(keys.map((k) => el("td", { text: typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
+        .concat(keys.map((k) => k === "iso" && e[k]
+          ? el("td", { "data-field": k, title: e[k], text: isoShown(e[k], e, unit) })
+          : el("td", { "data-field": k, text: typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
       box.append(el("h3", { text: `${key}: ${sub.replace(/_/g, " ")}` }),
         el("table", { class: "results" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
@@ -1227,9 +1245,10 @@
     $("catalogue-compute").disabled = true;
     $("catalogue-download").disabled = true;
     if (!keepFile) $("catalogue-file").value = "";
-    $("catalogue-status").textContent = state.calc ? `For ${state.calc.title} (${state.calc.name}): its inputs are ${state.calc.inputs.map((i) => i.name).join(", ")}.` : "";
+    $("catalogue-status").textContent = state.calc ? `Columns the file may have for ${state.calc.name}: ${state.calc.inputs.map((i) => i.name).join(", ")} (and their sigma columns).` : "";
   }
 
+  function systems(n) { return `${n} system${n === 1 ? "" : "s"}`; }
   function unitLabel(unit) { return unit === undefined ? "" : ` [${unit || "dimensionless"}]`; }
 
   function inputColumn(inputs, name) {
@@ -1260,15 +1279,20 @@
     state.catalogue = { file: file.name, table, kept, text: withoutColumns(text, table, new Set(dropped)) };
     const head = el("tr", {}, [el("th", { text: "#" })].concat(table.columns.map((c) => {
       const stem = inputColumn(inputs, c.name);
-      const unit = c.unit !== undefined ? c.unit : stem ? inputs[stem].unit : undefined;
+      // a sigma column without a unit of its own is read in its value column's unit (NAME[yr] -> NAME_sigma in yr)
+      const valueColumn = stem && stem !== c.name ? table.columns.find((v) => v.name === stem) : undefined;
+      let unit, note = "";
+      if (c.unit !== undefined) unit = c.unit;
+      else if (valueColumn && valueColumn.unit !== undefined) [unit, note] = [valueColumn.unit, ` (as ${stem})`];
+      else if (stem) [unit, note] = [inputs[stem].unit, " (default)"];
       return el("th", { "data-column": c.name }, [document.createTextNode(c.name),
-        el("span", { class: "unit", text: unitLabel(unit) + (c.unit === undefined && unit !== undefined ? " (default)" : "") })]);
+        el("span", { class: "unit", text: unitLabel(unit) + note })]);
     })));
     const rows = table.rows.slice(0, PREVIEW_ROWS).map((r, i) => el("tr", {}, [el("td", { text: String(i + 1) })]
       .concat(r.map((x) => el("td", { text: x === null ? "—" : x })))));
     $("catalogue-preview").append(el("h3", { text: `${file.name}: the first ${Math.min(PREVIEW_ROWS, table.rows.length)} of ${table.rows.length} rows, as read` }),
       el("table", { class: "catalogue", id: "catalogue-preview-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
-    const notes = [`${table.rows.length} systems, ${table.ecsv ? "ECSV (units from its header)" : "CSV"}.`];
+    const notes = [`${systems(table.rows.length)}, ${table.ecsv ? "ECSV (units from its header)" : "CSV"}.`];
     if (kept.length) notes.push(`Columns of your own, carried into the results: ${kept.join(", ")}.`);
     if (dropped.length) notes.push(`Columns named like columns of the results, left out: ${dropped.join(", ")}.`);
     $("catalogue-status").textContent = notes.join(" ");
@@ -1283,7 +1307,7 @@
     clear($("catalogue-results"));
     $("catalogue-compute").disabled = true;
     $("catalogue-download").disabled = true;
-    $("catalogue-status").textContent = `Computing ${cat.table.rows.length} systems…`;
+    $("catalogue-status").textContent = `Computing ${systems(cat.table.rows.length)}…`;
     try {
       const options = catalogueOptions();
       const params = [];
@@ -1339,11 +1363,11 @@
       rows.push(el("tr", { class: error || status ? "failed" : "", "data-row": i }, cells));
     });
     const count = table.rows.length;
-    $("catalogue-results").append(el("h3", { text: `Results: ${count - failed} of ${count} systems answered` + (failed ? `, ${failed} refused (their reasons in the error column)` : "") }),
+    $("catalogue-results").append(el("h3", { text: `Results: ${count - failed} of ${systems(count)} answered` + (failed ? `, ${failed} refused (their reasons in the error column)` : "") }),
       el("table", { class: "catalogue", id: "catalogue-results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     if (count > SHOWN_ROWS) $("catalogue-results").append(el("p", { class: "hint", text: `The first ${SHOWN_ROWS} rows are shown; the download has them all.` }));
     const unc = cat.answer.options.uncertainty || {};
-    $("catalogue-status").textContent = `${cat.file}: ${count} systems, ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples || "default"} draws${unc.seed !== undefined ? `, seed ${unc.seed}` : ""})` : "linear propagation"}.`;
+    $("catalogue-status").textContent = `${cat.file}: ${systems(count)}, ${unc.method === "monte_carlo" ? `Monte Carlo (${unc.samples || "default"} draws${unc.seed !== undefined ? `, seed ${unc.seed}` : ""})` : "linear propagation"}.`;
     $("catalogue-download").disabled = false;
     $("catalogue-download").textContent = `Download the results (${cat.table.ecsv ? "ECSV" : "CSV"})`;
   }
