@@ -148,3 +148,17 @@ def test_the_image_runs_the_same_command_behind_its_health_check():
     for needle in ("/v1/health", "/v1/ready", "CALCSERVICE_MAX_BATCH_ROWS", "CALCSERVICE_MAX_BATCH_DRAWS",
                    "evaluate_dask", "workers"):
         assert needle in doc, needle
+
+
+def test_the_master_imports_what_a_first_table_or_figure_request_would():
+    # astropy's table I/O, pyarrow and matplotlib cost a worker ~0.9 s on its first such request when it
+    # imports them itself; the master imports them before it forks, and a fresh interpreter shows it
+    code = ("import json, sys\nfrom calcservice.server import PRELOADED, Server\n"
+            "before = [m for m in PRELOADED if m in sys.modules]\n"
+            "Server({'bind': '127.0.0.1:0', 'loglevel': 'warning'}).load()\n"
+            "print(json.dumps([before, [m for m in PRELOADED if m not in sys.modules]]))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]
+    before, missing = json.loads(done.stdout.strip().splitlines()[-1])
+    assert "matplotlib.figure" not in before and "pyarrow.compute" not in before      # the app alone leaves them
+    assert missing == []
