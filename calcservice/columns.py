@@ -8,6 +8,7 @@ The standard library and numpy only, so the client can use it without the servic
 
 from __future__ import annotations
 
+import difflib
 import math
 import re
 from typing import Container, Iterable
@@ -255,4 +256,13 @@ def correlated_columns(columns: dict[str, list]) -> tuple[str, str] | None:
 
 
 __all__ = ["unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
-           "lenient_message"]
+           "lenient_message", "meant"]
+
+
+def meant(name: str, known) -> str:
+    """"; did you mean X?" where ``name`` plainly means one of ``known``: the one known name it begins ("ecc":
+    eccentricity) or one close to it ("inclinaton": inclination); else ""."""
+    name = str(name)
+    starts = [k for k in known if len(name) >= 3 and k.startswith(name)]
+    close = starts if len(starts) == 1 else difflib.get_close_matches(name, list(known), n=1, cutoff=0.75)
+    return f"; did you mean {close[0]}?" if close else ""

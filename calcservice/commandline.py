@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 
 from . import report
+from .columns import meant
 from .core import Problem, compute, compute_batch
 from .registry import Calculation, calculations
 
@@ -120,7 +121,9 @@ def parse_assignment(calc: Calculation, text: str) -> tuple[str, Any]:
     try:
         spec = calc.input(name)
     except KeyError:
-        raise UsageError(name, f"{calc.name} has no input {name!r}; its inputs are {_input_names(calc)}") from None
+        hint = meant(name, [i.name for i in calc.inputs])
+        raise UsageError(name, f"{calc.name} has no input {name!r}{hint or f'; its inputs are {_input_names(calc)}'}") \
+            from None
     raw = raw.strip()
     if spec.kind == "choice":
         return name, raw

@@ -465,3 +465,22 @@ def test_white_space_around_an_iso_date_is_no_part_of_it(client, text):
             assert r.get_json()["results"]["series"]["phase"]["value"] == same["results"]["series"]["phase"]["value"]
         else:
             assert r.get_json()["results"]["series"]["time"]["value"][0] == pytest.approx(jd, abs=1e-9)
+
+
+def test_an_unknown_name_says_which_input_it_seems_to_mean(client, capsys):
+    from calcservice import cli
+    # the one input a name begins, or one within a letter or two of it; none where it is not plain ("k": k1 or k2)
+    body = {"period": 41.6, "k": 38.2, "k2": 51.7, "ecc": 0.31, "inclinaton": 80.0, "uncertanty": {}}
+    errors = client.post("/v1/spectroscopic/sb2", json=body).get_json()["errors"]
+    assert errors["ecc"] == ["unknown field; did you mean eccentricity?"]
+    assert errors["inclinaton"] == ["unknown field; did you mean inclination?"]
+    assert errors["uncertanty"] == ["unknown field; did you mean uncertainty?"]
+    assert errors["k"] == ["unknown field"]
+    columns = {"period": [41.6], "k1": 38.2, "k2": 51.7, "eccentricty": 0.31}
+    errors = client.post("/v1/batch/sb2", json={"columns": columns}).get_json()["errors"]
+    assert errors == {"columns.eccentricty": ["sb2 has no input 'eccentricty'; did you mean eccentricity?"]}
+    table = client.post("/v1/batch/sb2", data="period,k1,k2,eccentricty\n41.6,38.2,51.7,0.31\n",
+                        content_type="text/csv").get_json()["errors"]
+    assert "did you mean eccentricity?" in table["eccentricty"][0]
+    assert cli.main(["compute", "sb2", "period=41.6", "k1=38.2", "k2=51.7", "ecc=0.3"]) == 2
+    assert "ecc: sb2 has no input 'ecc'; did you mean eccentricity?" in capsys.readouterr().err

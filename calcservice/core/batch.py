@@ -29,7 +29,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from ..columns import column_array, correlated_columns, uncertain_parts, unit_of
+from ..columns import column_array, correlated_columns, meant, uncertain_parts, unit_of
 from ..config import Limits
 from ..engine import EngineError, Measured, Result, correlation_matrix
 from ..registry import Calculation, Input
@@ -38,7 +38,7 @@ from .parse import (Parsed, build, draws_monte_carlo, draws_per_system, find, lo
                     output_units, parse, within_series_budget)
 from .problems import Problem, invalid, too_large
 from .render import Rendering, clean_array, in_unit, provenance, warning_mask
-from .schemas import MEASURED_KEYS, RawQuantity, broken
+from .schemas import MEASURED_KEYS, RawQuantity, broken, unknown_field
 from .single import failure, run
 
 OPTION_KEYS = ("correlations", "uncertainty", "units", "time_format", "echo", "covariance", "budget")
@@ -69,7 +69,7 @@ def compute_batch(name: str, body: Any, limits: Limits | None = None, for_json: 
                       {"systems": ["give systems or columns"], "columns": ["give systems or columns"]})
     unknown = set(body) - {"systems", "columns", *OPTION_KEYS}
     if unknown:
-        raise invalid({k: ["unknown field"] for k in sorted(unknown)})
+        raise invalid({k: [unknown_field(k, ("systems", "columns", *OPTION_KEYS))] for k in sorted(unknown)})
     if "systems" in body:
         return compute_rows(calc, body, limits)
     response = compute_columns(calc, body, limits, series_arrays, refused)
@@ -538,7 +538,8 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays
         raise invalid({"columns": ["must be an object with one member per input"]})
     unknown = [k for k in given if k not in {s.name for s in calc.inputs}]
     if unknown:
-        raise invalid({f"columns.{k}": [f"{calc.name} has no input {k!r}"] for k in unknown})
+        names = [s.name for s in calc.inputs]
+        raise invalid({f"columns.{k}": [f"{calc.name} has no input {k!r}" + meant(k, names)] for k in unknown})
     given = array_columns(calc, given)
     lengths = {}
     for name, raw in given.items():

@@ -132,9 +132,10 @@ def load(calc: Calculation, body: Any, limits: Limits, options_only: bool = Fals
         # partial for the inputs only: marshmallow's partial=True would also waive the required
         # members of nested options (a correlation without "between" would then crash the service)
         names = tuple(spec.name for spec in calc.inputs) if options_only else False
-        return request_schema(calc, limits).load(body, partial=names)
+        schema = request_schema(calc, limits)
+        return schema.load(body, partial=names)
     except ValidationError as err:
-        raise invalid(error_messages(err)) from None
+        raise invalid(error_messages(err, tuple(schema.fields))) from None
 
 
 def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:

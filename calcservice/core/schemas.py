@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 from marshmallow import RAISE, Schema, ValidationError, fields, post_load, validate, validates_schema
 
+from ..columns import meant
 from ..config import Limits
 from ..registry import Calculation, Input
 from ..units import UnitError, factor
@@ -570,8 +571,13 @@ def _short(name: str, limit: int = 80) -> str:
     return name if len(name) <= limit else name[:limit] + "..."
 
 
-def error_messages(err: ValidationError) -> dict[str, list[str]]:
-    """marshmallow's nested messages flattened to {"field": ["message", ...]}."""
+def unknown_field(name: str, known) -> str:
+    return "unknown field" + meant(name, known)
+
+
+def error_messages(err: ValidationError, known=()) -> dict[str, list[str]]:
+    """marshmallow's nested messages flattened to {"field": ["message", ...]}; an unknown top-level name is
+    answered with the one of ``known`` it seems to mean."""
     out: dict[str, list[str]] = {}
 
     # the root's prefix is None: an unknown top-level name "" is named "", as "uncertainty." names one inside
@@ -595,6 +601,6 @@ def error_messages(err: ValidationError) -> dict[str, list[str]]:
             out.setdefault("_schema" if prefix is None else prefix, []).append(str(msg))
 
     walk(None, err.messages)
-    return {k: [m.replace("Unknown field.", "unknown field").replace("Missing data for required field.",
-                                                                      "is required") for m in v]
+    plain = {"Unknown field.": "unknown field", "Missing data for required field.": "is required"}
+    return {k: [unknown_field(k, known) if m == "Unknown field." and "." not in k else plain.get(m, m) for m in v]
             for k, v in out.items()}
