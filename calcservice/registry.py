@@ -81,7 +81,18 @@ NON_NEGATIVE = Domain(0.0, math.inf)
 ANY = Domain()
 # a date as a Julian Date (MJD converted): within about 270,000 years of JD 0, where a double still
 # resolves 15 ms; far beyond it a date is a typing slip and its cycles count would be rounding noise
-DATE = Domain(-1e8, 1e8)
+class DateDomain(Domain):
+    """A date as a day number, said as one (a bare "-1e+08 to 1e+08 (in d)" reads as no date at all)."""
+
+    def describe(self) -> str:
+        return (f"must be a Julian Date (an MJD with time_format mjd) from {self.low:g} to {self.high:g}: within "
+                "about 270,000 years of JD 0")
+
+    def message(self, unit: str = "") -> str:
+        return self.describe()
+
+
+DATE = DateDomain(-1e8, 1e8)
 #: a time below JD 10000 (4685 BC) is no observing date in any format: a count of days from an
 #: arbitrary zero (T0 = 0 and days since), read as given, with no calendar date and no date warning
 DAY_COUNTS_BELOW = 1e4

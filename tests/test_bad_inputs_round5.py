@@ -484,3 +484,11 @@ def test_an_unknown_name_says_which_input_it_seems_to_mean(client, capsys):
     assert "did you mean eccentricity?" in table["eccentricty"][0]
     assert cli.main(["compute", "sb2", "period=41.6", "k1=38.2", "k2=51.7", "ecc=0.3"]) == 2
     assert "ecc: sb2 has no input 'ecc'; did you mean eccentricity?" in capsys.readouterr().err
+
+
+def test_a_date_out_of_range_is_said_as_a_date(client):
+    # JD 3e8 is 8e5 years after JD 0 (3e8 / 365.25); the domain is within 1e8 d of JD 0, about 270,000 years
+    assert 1e8 / 365.25 == pytest.approx(273785, rel=1e-5)
+    errors = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": 3e8}).get_json()["errors"]
+    assert errors == {"t_periastron": ["must be a Julian Date (an MJD with time_format mjd) from -1e+08 to 1e+08: "
+                                       "within about 270,000 years of JD 0"]}
