@@ -492,3 +492,12 @@ def test_a_date_out_of_range_is_said_as_a_date(client):
     errors = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "t_periastron": 3e8}).get_json()["errors"]
     assert errors == {"t_periastron": ["must be a Julian Date (an MJD with time_format mjd) from -1e+08 to 1e+08: "
                                        "within about 270,000 years of JD 0"]}
+
+
+def test_a_series_entry_out_of_range_is_named_by_its_place(client):
+    # a list of times names its first entry outside the domain, and how many are, as other list errors do
+    errors = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "times": [2460400.5, "2024-01-01", 3e9]}).get_json()
+    assert errors["errors"]["times"][0].startswith("entry 2: must be a Julian Date")
+    errors = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "times": [5e8, 6e8, 2460400.5]}).get_json()
+    assert errors["errors"]["times"][0].startswith("entry 0: ") and errors["errors"]["times"][0].endswith(
+        "(2 entries are outside)")

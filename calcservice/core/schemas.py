@@ -437,8 +437,10 @@ class SeriesField(_CheckedField):
                 out = out * factor(unit, self.spec.unit)
             except UnitError as e:
                 raise ValidationError(str(e)) from None
-        if not np.all(self.spec.domain.contains(out)):
-            raise ValidationError(self.spec.domain.describe())
+        outside = np.flatnonzero(~self.spec.domain.contains(out))
+        if outside.size:
+            raise ValidationError(f"entry {int(outside[0])}: {self.spec.domain.describe()}"
+                                  + (f" ({outside.size} entries are outside)" if outside.size > 1 else ""))
         z = np.zeros(1)
         raw = RawQuantity(out, z, z, unit=unit)
         raw.calendar = calendar
