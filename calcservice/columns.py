@@ -11,7 +11,7 @@ from __future__ import annotations
 import difflib
 import math
 import re
-from typing import Container, Iterable
+from typing import Container, Iterable, Mapping
 
 import numpy as np
 
@@ -256,13 +256,32 @@ def correlated_columns(columns: dict[str, list]) -> tuple[str, str] | None:
 
 
 __all__ = ["unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
-           "lenient_message", "meant"]
+           "lenient_message", "meant", "symbol_names"]
 
 
-def meant(name: str, known) -> str:
-    """"; did you mean X?" where ``name`` plainly means one of ``known``: the one known name it begins ("ecc":
-    eccentricity) or one close to it ("inclinaton": inclination); else ""."""
+def meant(name: str, known, symbols: Mapping[str, str] | None = None) -> str:
+    """"; did you mean X?" where ``name`` plainly means one of ``known``: its symbol in the formulas
+    (``symbols``: "e" eccentricity, "K1" k1), the one known name it begins ("ecc": eccentricity) or one close
+    to it ("inclinaton": inclination); else ""."""
     name = str(name)
+    if symbols and symbols.get(name) in known:
+        return f"; did you mean {symbols[name]}?"
     starts = [k for k in known if len(name) >= 3 and k.startswith(name)]
     close = starts if len(starts) == 1 else difflib.get_close_matches(name, list(known), n=1, cutoff=0.75)
     return f"; did you mean {close[0]}?" if close else ""
+
+
+def symbol_names(text: str, names: Iterable[str]) -> dict[str, str]:
+    """The symbols of a calculation's formulas that stand for one of ``names``, from its symbols convention
+    ("P = period, K1 = k1, e = eccentricity, a = semimajor_axis (relative orbit), ..."): {"P": "period", ...}."""
+    names = set(names)
+    out: dict[str, str] = {}
+    for part in re.split(r",\s*(?![^()]*\))", text):
+        left, eq, right = part.partition("=")
+        words = right.split()
+        meaning = words[0].strip("(),;") if eq and words else ""
+        if meaning in names:
+            for symbol in left.split(","):
+                if symbol.strip() and symbol.strip() != meaning:
+                    out[symbol.strip()] = meaning
+    return out

@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 
 from . import report
-from .columns import meant
+from .columns import meant, symbol_names
 from .core import Problem, compute, compute_batch
 from .registry import Calculation, calculations
 
@@ -121,7 +121,8 @@ def parse_assignment(calc: Calculation, text: str) -> tuple[str, Any]:
     try:
         spec = calc.input(name)
     except KeyError:
-        hint = meant(name, [i.name for i in calc.inputs])
+        names = [i.name for i in calc.inputs]
+        hint = meant(name, names, symbol_names(calc.conventions.get("symbols", ""), names))
         raise UsageError(name, f"{calc.name} has no input {name!r}{hint or f'; its inputs are {_input_names(calc)}'}") \
             from None
     raw = raw.strip()

@@ -501,3 +501,25 @@ def test_a_series_entry_out_of_range_is_named_by_its_place(client):
     errors = client.post("/v1/orbit/ephemeris", json={**EPHEMERIS, "times": [5e8, 6e8, 2460400.5]}).get_json()
     assert errors["errors"]["times"][0].startswith("entry 0: ") and errors["errors"]["times"][0].endswith(
         "(2 entries are outside)")
+
+
+def test_a_formula_symbol_given_for_an_input_says_which_input_it_stands_for(client, capsys):
+    from calcservice import cli
+    from calcservice.columns import symbol_names
+    from calcservice.registry import get
+    # the symbols of the declaration's own formulas (its symbols convention): P = period, K1 = k1, e = eccentricity
+    sb2 = get("sb2")
+    assert symbol_names(sb2.conventions["symbols"], [i.name for i in sb2.inputs]) == {
+        "P": "period", "K1": "k1", "K2": "k2", "e": "eccentricity", "i": "inclination"}
+    body = {"P": 41.6, "K1": 38.2, "k2": 51.7, "e": 0.31}
+    errors = client.post("/v1/spectroscopic/sb2", json=body).get_json()["errors"]
+    assert errors["P"] == ["unknown field; did you mean period?"]
+    assert errors["e"] == ["unknown field; did you mean eccentricity?"]
+    assert errors["K1"] == ["unknown field; did you mean k1?"]
+    errors = client.post("/v1/orbit/ephemeris", json={**{k: v for k, v in EPHEMERIS.items() if k != "t_periastron"},
+                                                      "T0": 2458712.3}).get_json()["errors"]
+    assert errors["T0"] == ["unknown field; did you mean t_periastron?"]
+    table = client.post("/v1/batch/sb2", data="P,k1,k2,e\n41.6,38.2,51.7,0.31\n", content_type="text/csv").get_json()
+    assert "did you mean period?" in table["errors"]["P"][0] and "did you mean eccentricity?" in table["errors"]["e"][0]
+    assert cli.main(["compute", "sb2", "period=41.6", "k1=38.2", "k2=51.7", "e=0.3"]) == 2
+    assert "did you mean eccentricity?" in capsys.readouterr().err

@@ -573,11 +573,11 @@ def _short(name: str, limit: int = 80) -> str:
     return name if len(name) <= limit else name[:limit] + "..."
 
 
-def unknown_field(name: str, known) -> str:
-    return "unknown field" + meant(name, known)
+def unknown_field(name: str, known, symbols=None) -> str:
+    return "unknown field" + meant(name, known, symbols)
 
 
-def error_messages(err: ValidationError, known=()) -> dict[str, list[str]]:
+def error_messages(err: ValidationError, known=(), symbols=None) -> dict[str, list[str]]:
     """marshmallow's nested messages flattened to {"field": ["message", ...]}; an unknown top-level name is
     answered with the one of ``known`` it seems to mean."""
     out: dict[str, list[str]] = {}
@@ -604,5 +604,6 @@ def error_messages(err: ValidationError, known=()) -> dict[str, list[str]]:
 
     walk(None, err.messages)
     plain = {"Unknown field.": "unknown field", "Missing data for required field.": "is required"}
-    return {k: [unknown_field(k, known) if m == "Unknown field." and "." not in k else plain.get(m, m) for m in v]
+    return {k: [unknown_field(k, known, symbols) if m == "Unknown field." and "." not in k else plain.get(m, m)
+                for m in v]
             for k, v in out.items()}
