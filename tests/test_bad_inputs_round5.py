@@ -523,3 +523,14 @@ def test_a_formula_symbol_given_for_an_input_says_which_input_it_stands_for(clie
     assert "did you mean period?" in table["errors"]["P"][0] and "did you mean eccentricity?" in table["errors"]["e"][0]
     assert cli.main(["compute", "sb2", "period=41.6", "k1=38.2", "k2=51.7", "e=0.3"]) == 2
     assert "did you mean eccentricity?" in capsys.readouterr().err
+
+
+def test_an_unknown_option_member_or_output_says_which_it_seems_to_mean(client):
+    body = {"period": 41.6, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31, "inclination": 71.0,
+            "uncertainty": {"metod": "linear"}, "correlations": [{"between": ["k1", "k2"], "rh": 0.3}]}
+    errors = client.post("/v1/spectroscopic/sb2", json=body).get_json()["errors"]
+    assert errors["uncertainty.metod"] == ["unknown field; did you mean method?"]
+    assert errors["correlations.0.rh"] == ["unknown field; did you mean rho?"]
+    body = {k: v for k, v in body.items() if k not in ("uncertainty", "correlations")} | {"units": {"semimajor": "km"}}
+    errors = client.post("/v1/spectroscopic/sb2", json=body).get_json()["errors"]
+    assert errors == {"units.semimajor": ["sb2 has no output 'semimajor'; did you mean semimajor_axis?"]}

@@ -11,7 +11,7 @@ from typing import Any, Mapping
 import numpy as np
 from marshmallow import ValidationError
 
-from ..columns import symbol_names
+from ..columns import meant, symbol_names
 from ..config import Limits
 from ..engine import MIN_DRAWS, Measured, Options
 from ..registry import Calculation, Input, calculations
@@ -272,7 +272,8 @@ def output_units(calc: Calculation, units: Mapping[str, str], errors: dict[str, 
     out: dict[str, str] = {}
     for name, unit in units.items():
         if name not in {o.name for o in calc.outputs}:
-            errors.setdefault(f"units.{name}", []).append(f"{calc.name} has no output {name!r}")
+            outputs = [o.name for o in calc.outputs]
+            errors.setdefault(f"units.{name}", []).append(f"{calc.name} has no output {name!r}" + meant(name, outputs))
             continue
         if calc.output(name).logarithmic:
             errors.setdefault(f"units.{name}", []).append(

@@ -552,6 +552,11 @@ class RequestSchema(Schema):
         unknown = RAISE
 
 
+#: the members of the nested options, for the name a caller meant by an unknown one
+NESTED_NAMES = {"uncertainty": tuple(UncertaintySchema._declared_fields),
+                "correlations": tuple(CorrelationSchema._declared_fields)}
+
+
 @lru_cache(maxsize=None)
 def request_schema(calc: Calculation, limits: Limits) -> Schema:
     """The marshmallow schema of one calculation's request body (built once)."""
@@ -604,6 +609,11 @@ def error_messages(err: ValidationError, known=(), symbols=None) -> dict[str, li
 
     walk(None, err.messages)
     plain = {"Unknown field.": "unknown field", "Missing data for required field.": "is required"}
-    return {k: [unknown_field(k, known, symbols) if m == "Unknown field." and "." not in k else plain.get(m, m)
-                for m in v]
-            for k, v in out.items()}
+
+    def unknown(key: str) -> str:
+        if "." not in key:
+            return unknown_field(key, known, symbols)
+        outer, name = key.split(".", 1)[0], key.rsplit(".", 1)[1]       # uncertainty.metod, correlations.0.rh
+        return unknown_field(name, NESTED_NAMES.get(outer, ()))
+
+    return {k: [unknown(k) if m == "Unknown field." else plain.get(m, m) for m in v] for k, v in out.items()}
