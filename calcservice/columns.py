@@ -255,10 +255,6 @@ def correlated_columns(columns: dict[str, list]) -> tuple[str, str] | None:
     return None
 
 
-__all__ = ["unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
-           "lenient_message", "meant", "symbol_names"]
-
-
 def meant(name: str, known, symbols: Mapping[str, str] | None = None) -> str:
     """"; did you mean X?" where ``name`` plainly means one of ``known``: its symbol in the formulas
     (``symbols``: "e" eccentricity, "K1" k1), the one known name it begins ("ecc": eccentricity) or one close
@@ -271,17 +267,5 @@ def meant(name: str, known, symbols: Mapping[str, str] | None = None) -> str:
     return f"; did you mean {close[0]}?" if close else ""
 
 
-def symbol_names(text: str, names: Iterable[str]) -> dict[str, str]:
-    """The symbols of a calculation's formulas that stand for one of ``names``, from its symbols convention
-    ("P = period, K1 = k1, e = eccentricity, a = semimajor_axis (relative orbit), ..."): {"P": "period", ...}."""
-    names = set(names)
-    out: dict[str, str] = {}
-    for part in re.split(r",\s*(?![^()]*\))", text):
-        left, eq, right = part.partition("=")
-        words = right.split()
-        meaning = words[0].strip("(),;") if eq and words else ""
-        if meaning in names:
-            for symbol in left.split(","):
-                if symbol.strip() and symbol.strip() != meaning:
-                    out[symbol.strip()] = meaning
-    return out
+__all__ = ["unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
+           "lenient_message", "meant"]

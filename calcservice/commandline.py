@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 
 from . import report
-from .columns import meant, symbol_names
+from .columns import meant
 from .core import Problem, compute, compute_batch
 from .registry import Calculation, calculations
 
@@ -121,8 +121,7 @@ def parse_assignment(calc: Calculation, text: str) -> tuple[str, Any]:
     try:
         spec = calc.input(name)
     except KeyError:
-        names = [i.name for i in calc.inputs]
-        hint = meant(name, names, symbol_names(calc.conventions.get("symbols", ""), names))
+        hint = meant(name, [i.name for i in calc.inputs], calc.symbols)
         raise UsageError(name, f"{calc.name} has no input {name!r}{hint or f'; its inputs are {_input_names(calc)}'}") \
             from None
     raw = raw.strip()

@@ -11,6 +11,7 @@ outputs that the given inputs do not determine.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
 from typing import Any, Callable, Mapping, Sequence
@@ -79,8 +80,6 @@ _SCHEMA_KEYWORD = {">": "exclusiveMinimum", ">=": "minimum", "<": "exclusiveMaxi
 POSITIVE = Domain(0.0, math.inf, low_open=True)
 NON_NEGATIVE = Domain(0.0, math.inf)
 ANY = Domain()
-# a date as a Julian Date (MJD converted): within about 270,000 years of JD 0, where a double still
-# resolves 15 ms; far beyond it a date is a typing slip and its cycles count would be rounding noise
 class DateDomain(Domain):
     """A date as a day number, said as one (a bare "-1e+08 to 1e+08 (in d)" reads as no date at all)."""
 
@@ -92,6 +91,8 @@ class DateDomain(Domain):
         return self.describe()
 
 
+# a date as a Julian Date (MJD converted): within about 270,000 years of JD 0, where a double still
+# resolves 15 ms; far beyond it a date is a typing slip and its cycles count would be rounding noise
 DATE = DateDomain(-1e8, 1e8)
 #: a time below JD 10000 (4685 BC) is no observing date in any format: a count of days from an
 #: arbitrary zero (T0 = 0 and days since), read as given, with no calendar date and no date warning
@@ -214,6 +215,22 @@ class Constraint:
     test: Callable[..., np.ndarray]
 
 
+def symbol_names(text: str, names) -> dict[str, str]:
+    """The symbols of a calculation's formulas that stand for one of ``names``, from its symbols convention
+    ("P = period, K1 = k1, e = eccentricity, a = semimajor_axis (relative orbit), ..."): {"P": "period", ...}."""
+    names = set(names)
+    out: dict[str, str] = {}
+    for part in re.split(r",\s*(?![^()]*\))", text):
+        left, eq, right = part.partition("=")
+        words = right.split()
+        meaning = words[0].strip("(),;") if eq and words else ""
+        if meaning in names:
+            for symbol in left.split(","):
+                if symbol.strip() and symbol.strip() != meaning:
+                    out[symbol.strip()] = meaning
+    return out
+
+
 @dataclass(frozen=True, eq=False)
 class Calculation:
     """The single declaration from which a calculation's every surface is derived."""
@@ -256,6 +273,12 @@ class Calculation:
     @cached_property
     def _outputs(self) -> dict[str, Output]:
         return {o.name: o for o in self.outputs}
+
+    @cached_property
+    def symbols(self) -> dict[str, str]:
+        """The symbols of the formulas that stand for an input ("e": eccentricity), from the symbols
+        convention: what a caller who writes one means."""
+        return symbol_names(self.conventions.get("symbols", ""), self._inputs)
 
     def as_dict(self) -> dict:
         return {

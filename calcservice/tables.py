@@ -34,7 +34,7 @@ from typing import Any, Container, Mapping, Sequence
 import numpy as np
 
 from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, kept_name_errors, lenient,
-                      lenient_message, may_underflow, meant, not_plain_numbers, symbol_names, read_number, split_unit)
+                      lenient_message, may_underflow, meant, not_plain_numbers, read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
 
@@ -130,8 +130,7 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
                 sigmas.setdefault(base, {})[key] = (values, unit, name)
             else:
                 shown = _shown(name)
-                names = [i.name for i in calc.inputs]
-                hint = meant(shown, names, symbol_names(calc.conventions.get("symbols", ""), names))
+                hint = meant(shown, [i.name for i in calc.inputs], calc.symbols)
                 errors[shown] = [f"{calc.name} has no input {shown!r}{hint} (columns: inputs, NAME_sigma, "
                                  f"NAME_sigma_minus, NAME_sigma_plus); a column of your own: ?keep={shown} "
                                  "carries it into the answer"]

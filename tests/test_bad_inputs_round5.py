@@ -505,11 +505,10 @@ def test_a_series_entry_out_of_range_is_named_by_its_place(client):
 
 def test_a_formula_symbol_given_for_an_input_says_which_input_it_stands_for(client, capsys):
     from calcservice import cli
-    from calcservice.columns import symbol_names
     from calcservice.registry import get
     # the symbols of the declaration's own formulas (its symbols convention): P = period, K1 = k1, e = eccentricity
     sb2 = get("sb2")
-    assert symbol_names(sb2.conventions["symbols"], [i.name for i in sb2.inputs]) == {
+    assert sb2.symbols == {
         "P": "period", "K1": "k1", "K2": "k2", "e": "eccentricity", "i": "inclination"}
     body = {"P": 41.6, "K1": 38.2, "k2": 51.7, "e": 0.31}
     errors = client.post("/v1/spectroscopic/sb2", json=body).get_json()["errors"]

@@ -34,7 +34,7 @@ from ..config import Limits
 from ..engine import EngineError, Measured, Result, correlation_matrix
 from ..registry import Calculation, Input
 from ..units import UnitError, factor
-from .parse import (Parsed, build, draws_monte_carlo, draws_per_system, find, formula_symbols, load, options_of,
+from .parse import (Parsed, build, draws_monte_carlo, draws_per_system, find, load, options_of,
                     output_units, parse, within_series_budget)
 from .problems import Problem, invalid, too_large
 from .render import Rendering, clean_array, in_unit, provenance, warning_mask
@@ -538,8 +538,8 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays
         raise invalid({"columns": ["must be an object with one member per input"]})
     unknown = [k for k in given if k not in {s.name for s in calc.inputs}]
     if unknown:
-        names, symbols = [s.name for s in calc.inputs], formula_symbols(calc)
-        raise invalid({f"columns.{k}": [f"{calc.name} has no input {k!r}" + meant(k, names, symbols)]
+        names = [s.name for s in calc.inputs]
+        raise invalid({f"columns.{k}": [f"{calc.name} has no input {k!r}" + meant(k, names, calc.symbols)]
                        for k in unknown})
     given = array_columns(calc, given)
     lengths = {}

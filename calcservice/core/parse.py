@@ -11,7 +11,7 @@ from typing import Any, Mapping
 import numpy as np
 from marshmallow import ValidationError
 
-from ..columns import meant, symbol_names
+from ..columns import meant
 from ..config import Limits
 from ..engine import MIN_DRAWS, Measured, Options
 from ..registry import Calculation, Input, calculations
@@ -136,13 +136,7 @@ def load(calc: Calculation, body: Any, limits: Limits, options_only: bool = Fals
         schema = request_schema(calc, limits)
         return schema.load(body, partial=names)
     except ValidationError as err:
-        raise invalid(error_messages(err, tuple(schema.fields), formula_symbols(calc))) from None
-
-
-def formula_symbols(calc: Calculation) -> dict[str, str]:
-    """The symbols of the calculation's formulas that stand for its inputs ("e": eccentricity), for the
-    name a caller meant by one."""
-    return symbol_names(calc.conventions.get("symbols", ""), (spec.name for spec in calc.inputs))
+        raise invalid(error_messages(err, tuple(schema.fields), calc.symbols)) from None
 
 
 def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:

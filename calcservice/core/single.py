@@ -245,8 +245,8 @@ def misread_dates(parsed: Parsed) -> list[Warning]:
             continue
         name = spec.name
         jd = parsed.series[name] if name in parsed.series else parsed.quantities[name].value
+        low, high = JD_LOOKS_LIKE_MJD
         with np.errstate(invalid="ignore"):
-            low, high = JD_LOOKS_LIKE_MJD
             where = jd - MJD_OFFSET >= MJD_LOOKS_LIKE_JD if mjd else (jd >= low) & (jd < high)
         if not where.any():
             continue
