@@ -8,7 +8,7 @@ import pytest
 from astropy.time import Time
 from scipy.optimize import brentq
 
-from calcservice.calculations.orbit import ephemeris_events, iso_dates, leap_second_span
+from calcservice.calculations.orbit import ephemeris_events, iso_dates
 from calcservice.engine import Measured, Options, evaluate
 from calcservice.physics import orbit
 from calcservice.registry import get
@@ -273,21 +273,6 @@ def test_iso_dates_match_astropy_time():
     assert iso_dates(np.array([np.nan]))[0] is None
 
 
-def test_leap_second_span_is_astropy_table():
-    lo, hi = leap_second_span()
-    assert lo == pytest.approx(Time("1960-01-01", scale="utc").jd)
-    # the table ends no earlier than the last leap second so far (2016-12-31, IERS Bulletin C 52, from memory)
-    assert hi > Time("2017-01-01", scale="utc").jd
-
-
-def test_check_flags_dates_without_known_leap_seconds():
-    _, hi = leap_second_span()
-    r, _, _ = run([T0], statics={"count": 2})
-    assert not any(w.code == "leap_seconds_unknown" for w in r.warnings)
-    r, _, _ = run([hi + 4000.0])
-    assert any(w.code == "leap_seconds_unknown" for w in r.warnings)
-
-
 # ------------------------------------------------------------------ HTTP
 def _body(**kw):
     b = {"period": {"value": P, "sigma": 0.3}, "eccentricity": {"value": E, "sigma": 0.01}, "omega": W,
@@ -447,8 +432,36 @@ def test_days_counted_from_zero_have_no_calendar_date_and_no_leap_second_warning
     status, body = post(client, PATH, _body(t_periastron={"value": 0.0, "sigma": 0.9}, times=[-10.0, 0.0, 100.0],
                                             count=2))
     assert status == 200, body
-    assert not [w for w in body["warnings"] if w["code"] in ("leap_seconds_unknown", "date_format_suspect")]
+    assert not [w for w in body["warnings"] if w["code"] == "date_format_suspect"]
     periastra = body["results"]["events"]["periastron"]
     assert [e["iso"] for e in periastra] == [None, None]
     # listed from the earliest time (-10 d): periastron at T0 + k P = 0 and P (no apsidal motion, no Pdot)
     assert [e["value"] for e in periastra] == pytest.approx([0.0, P], rel=1e-14, abs=1e-12)
+
+
+def test_a_leap_second_announced_later_moves_a_date_only_within_its_own_day(client):
+    # A UTC Julian Date counts every day as one (ERFA's quasi-JD, as astropy.time uses it), so a leap second
+    # moves the clock reading only on the day that has it, by under a second.  A forecast past astropy's
+    # leap-second table is therefore answered without a warning, and its ISO dates are those astropy gives
+    # with a (hypothetical) leap second added at the end of 2028-12-31 in ERFA's table, but on that day.
+    import erfa
+    jd0 = Time("2029-01-01T00:00:00", scale="utc").jd
+    status, body = post(client, PATH, _body(t_periastron={"value": jd0 - 0.25, "sigma": 0.0001},
+                                            period={"value": 200.125, "sigma": 0.0001}, times=[jd0 - 1.0], count=4))
+    assert status == 200, body
+    assert not [w for w in body["warnings"] if "leap" in w["code"]], body["warnings"]
+    periastra = body["results"]["events"]["periastron"]
+    dates = np.array([e["value"] for e in periastra])
+    assert dates[0] == pytest.approx(jd0 - 0.25, abs=1e-9) and np.all(dates[1:] > jd0 + 1)
+    assert [e["iso"] for e in periastra] == list(iso_dates(dates))
+    table, expires = erfa.leap_seconds.get().copy(), erfa.leap_seconds.expires
+    try:
+        added = np.array([(2029, 1, table["tai_utc"][-1] + 1.0)], dtype=table.dtype)
+        erfa.leap_seconds.set(np.concatenate([table, added]))
+        later = iso_dates(dates)
+    finally:
+        erfa.leap_seconds.set(table)
+        erfa.leap_seconds.expires = expires
+    assert list(later[1:]) == [e["iso"] for e in periastra[1:]]
+    # 18:00 on the leap day: 0.75 of 86401 s against 86400 s, 0.75 s later, rounded to the next second
+    assert (periastra[0]["iso"], later[0]) == ("2028-12-31T18:00:00", "2028-12-31T18:00:01")

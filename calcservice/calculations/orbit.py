@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import warnings as _warnings
-from functools import lru_cache
 
 import numpy as np
 
@@ -64,21 +63,14 @@ ORBIT_CONVENTIONS = {
                          "both stars are always given in events.light_travel_time (days); the correction's own "
                          "uncertainty is not propagated",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
-           "for leap seconds; none for a number below JD 10000 (4685 BC), a count of days from an arbitrary zero "
-           "(T0 = 0)",
+           "for leap seconds: a UTC Julian Date counts every day as one, so a leap second moves the clock reading "
+           "only within the day that has it (by under a second), and one announced after astropy's table was "
+           "issued leaves every other date as it is; none for a number below JD 10000 (4685 BC), a count of days "
+           "from an arbitrary zero (T0 = 0)",
 }
 
 
 # --------------------------------------------------------------------------- time helpers
-@lru_cache(maxsize=1)
-def leap_second_span() -> tuple[float, float]:
-    """JDs between which leap seconds are known: the start of UTC (1960) to the expiry of astropy's table."""
-    from astropy.time import Time
-    from astropy.utils import iers
-    table = iers.LeapSeconds.open(iers.IERS_LEAP_SECOND_FILE)
-    return float(Time("1960-01-01", scale="utc").jd), float(Time(table.expires, scale="utc").jd)
-
-
 def iso_dates(jd: np.ndarray) -> np.ndarray:
     """ISO 8601 strings of Julian Dates, by astropy.time; None where not finite, beyond year 9999 (the ISO
     form's last), or a day count from an arbitrary zero (below DAY_COUNTS_BELOW: no calendar date)."""
@@ -88,17 +80,11 @@ def iso_dates(jd: np.ndarray) -> np.ndarray:
     ok = np.isfinite(jd) & (jd >= DAY_COUNTS_BELOW) & (jd < 5373484.5)
     if np.any(ok):
         with _warnings.catch_warnings():
-            # dates without known leap seconds get our own warning (see _ephemeris_check)
+            # astropy's "dubious year" past its leap-second table: such a date is right but on a day that
+            # later gets a leap second, where its clock reading moves by under a second (the 'iso' convention)
             _warnings.simplefilter("ignore")
             out[ok] = Time(jd[ok], format="jd", scale="utc", precision=0).isot
     return out
-
-
-def _outside_leap_seconds(jd: np.ndarray) -> np.ndarray:
-    """Dates (not day counts from an arbitrary zero) outside the span of known leap seconds."""
-    lo, hi = leap_second_span()
-    jd = np.asarray(jd, dtype=float)
-    return np.isfinite(jd) & (jd >= DAY_COUNTS_BELOW) & ((jd < lo) | (jd > hi))
 
 
 # --------------------------------------------------------------------------- ephemeris
@@ -231,40 +217,13 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
 
 
 def _ephemeris_check(inputs, outputs):
-    out = []
     if inputs.get("inclination") is not None and inputs.get("angular_semimajor_axis") is None \
             and inputs.get("node") is None:
         # the reverse half (node or angular_semimajor_axis without an inclination) is a constraint: a 422
-        out.append(Warning("inclination_unused", "an inclination without angular_semimajor_axis or node determines "
-                           "no output (the radial velocities, phases and separations do not depend on it); give "
-                           "angular_semimajor_axis for the projected separation, node for the position angle"))
-    times = inputs.get("times")
-    p, t0 = inputs.get("period"), inputs.get("t_periastron")
-    if p is None or t0 is None:
-        return out
-    n = np.size(p)
-    count = int(inputs.get("count") or 3)
-    after = inputs.get("after")
-    if after is None:
-        after = np.full(n, float(np.min(times)) if times is not None and len(times) else np.nan)
-    after = np.broadcast_to(np.asarray(after, dtype=float), (n,))
-    # the last event listed is at most count + 1 periods after `after`
-    dates = [after, after + (count + 1) * np.asarray(p, dtype=float)]
-    bad = np.zeros(n, dtype=bool)
-    for d in dates:
-        bad |= _outside_leap_seconds(d)
-    if times is not None and np.any(_outside_leap_seconds(times)):
-        bad |= True
-    if np.any(bad):
-        lo, hi = leap_second_span()
-        from astropy.time import Time
-        span = f"{Time(lo, format='jd', scale='utc').iso[:10]} to {Time(hi, format='jd', scale='utc').iso[:10]}"
-        out.append(Warning("leap_seconds_unknown",
-                           f"some times or event dates lie outside {span}, where UTC leap seconds are not known; "
-                           "their ISO dates (as UTC) may be off by one second for each leap second announced later, "
-                           "which matters only where a date's sigma is a few seconds",
-                           bad))
-    return out
+        return [Warning("inclination_unused", "an inclination without angular_semimajor_axis or node determines "
+                        "no output (the radial velocities, phases and separations do not depend on it); give "
+                        "angular_semimajor_axis for the projected separation, node for the position angle")]
+    return []
 
 
 def _quadratic_ephemeris_defined(period=None, t_periastron=None, period_derivative=None, times=None, after=None,
