@@ -240,8 +240,11 @@ def table(response: dict, calc: Calculation) -> str:
                                                     if k != "series" and not report.is_measured(v)}):
         keys = report.event_keys(entries)
         body = [[style.number(report.printed(e.get("value"), sigma=e.get("sigma"), digits=12))]
-                + [report.short_text(e.get(k)) for k in keys] for e in entries]
-        lines += ["", label.replace("_", " ")] + _columns([f"date [{unit}]" if unit else "date"] + keys, body)
+                + [style.number(f) if isinstance(f, report.Printed) else f
+                   for f in (report.event_field(e, k) for k in keys)] for e in entries]
+        fields = report.event_field_units(results, label)
+        header = [f"{k} [{fields[k]}]" if fields.get(k) else k for k in keys]
+        lines += ["", label.replace("_", " ")] + _columns([f"date [{unit}]" if unit else "date"] + header, body)
     warnings = response.get("warnings", [])
     if warnings:
         lines.append("")

@@ -439,9 +439,19 @@ def series_rows(series: Mapping[str, Any]) -> tuple[list[str], list[str], list[l
 
 def event_keys(entries: list[dict]) -> list[str]:
     """The members of an event list shown beside its dates: those some entry has (an ISO date is none for
-    a day count from an arbitrary zero: no column of blanks)."""
-    return [k for k in entries[0] if k not in ("value", "sigma", "low", "high")
+    a day count from an arbitrary zero: no column of blanks); a member's sigma (``NAME_sigma``) is printed
+    with it (:func:`event_field`), not in a column of its own."""
+    keys = [k for k in entries[0] if k not in ("value", "sigma", "low", "high")
             and any(e.get(k) is not None for e in entries)]
+    return [k for k in keys if not (k.endswith("_sigma") and k[:-len("_sigma")] in entries[0])]
+
+
+def event_field(entry: Mapping[str, Any], key: str) -> Printed | str:
+    """An event's member as printed: value ± sigma rounded together where its sigma is beside it
+    (``NAME_sigma``, as an SB2's velocity_separation has), else its short text."""
+    if key + "_sigma" in entry and _finite(entry.get(key)):
+        return printed(entry[key], sigma=entry[key + "_sigma"])
+    return short_text(entry.get(key))
 
 
 def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]:
@@ -670,7 +680,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             v = e.get("value")
             sig = e.get("sigma")
             p = printed(v, sigma=sig, digits=12) if _finite(v) else None
-            body.append([s.number(p)] + [s.text(short_text(e.get(k))) for k in keys])
+            body.append([s.number(p)] + [s.number(f) if isinstance(f, Printed) else s.text(f)
+                                         for f in (event_field(e, k) for k in keys)])
         doc.table(header, body)
     notes = event_notes(results)
     if notes:

@@ -465,3 +465,78 @@ def test_a_leap_second_announced_later_moves_a_date_only_within_its_own_day(clie
     assert list(later[1:]) == [e["iso"] for e in periastra[1:]]
     # 18:00 on the leap day: 0.75 of 86401 s against 86400 s, 0.75 s later, rounded to the next second
     assert (periastra[0]["iso"], later[0]) == ("2028-12-31T18:00:00", "2028-12-31T18:00:01")
+
+
+def test_velocity_separation_sigma_without_apsidal_motion_is_that_of_uncertainties(client):
+    # At the extrema of rv1, |v1 - v2| = (K1 + K2)(1 +- e cos omega) (Hilditch 2001, eq. 2.45 at u = 0, pi);
+    # the reference is the `uncertainties` package with the same correlations.
+    from uncertainties import correlated_values, umath
+    body = {"period": {"value": 2037.4, "sigma": 1.2}, "eccentricity": {"value": 0.873, "sigma": 0.004},
+            "omega": {"value": 243.6, "sigma": 1.5}, "t_periastron": {"value": 2458712.3, "sigma": 0.8},
+            "k1": {"value": 61.2, "sigma": 1.1}, "k2": {"value": 142.8, "sigma": 3.0}, "times": [2460400.5],
+            "count": 2, "correlations": [{"between": ["k1", "eccentricity"], "rho": 0.3},
+                                         {"between": ["k2", "omega"], "rho": -0.2},
+                                         {"between": ["period", "t_periastron"], "rho": -0.4}]}
+    status, answer = post(client, PATH, body)
+    assert status == 200, answer
+    sig = np.array([1.1, 3.0, 0.004, 1.5])
+    corr = np.eye(4)
+    corr[0, 2] = corr[2, 0] = 0.3
+    corr[1, 3] = corr[3, 1] = -0.2
+    k1, k2, e, w = correlated_values([61.2, 142.8, 0.873, 243.6], corr * np.outer(sig, sig))
+    expected = {kind: (k1 + k2) * (1.0 + sign * e * umath.cos(umath.radians(w)))
+                for kind, sign in (("rv1_maximum", 1.0), ("rv1_minimum", -1.0))}
+    events = answer["results"]["events"]
+    entries = events["max_velocity_separation"]
+    assert len(entries) == 4 and events["units"]["velocity_separation_sigma"] == "km/s"
+    for entry in entries:
+        want = expected[entry["kind"]]
+        assert entry["velocity_separation"] == pytest.approx(want.n, rel=1e-14)
+        assert entry["velocity_separation_sigma"] == pytest.approx(want.s, rel=1e-12)
+
+
+def test_velocity_separation_sigma_with_apsidal_motion_and_period_change_is_that_of_the_extremum():
+    # With apsidal motion the extremum of rv1 in time is off u = 0, pi; the reference finds it by scipy's bounded
+    # minimisation of -|v1 - v2|(t) (v1 - v2 = (K1 + K2)(cos u + e cos omega), Hilditch 2001, eq. 2.45, Kepler's
+    # equation by brentq), differences that extremum over each input, and propagates J C J^T.
+    from scipy.optimize import minimize_scalar
+    names = ("t_periastron", "period", "eccentricity", "omega", "omega_dot", "period_derivative", "k1", "k2")
+    x0 = np.array([2460000.2, 30.0, 0.4, 100.0, 5.0, 40.0, 40.0, 55.0])
+    sig = np.array([0.01, 0.002, 0.01, 1.5, 0.5, 10.0, 0.8, 1.2])
+    corr = np.eye(8)
+    corr[0, 1] = corr[1, 0] = -0.4
+    corr[2, 6] = corr[6, 2] = 0.3
+    cov = corr * np.outer(sig, sig)
+    after = 2460500.5
+
+    def separation(t, x):
+        t0, p, e, w0, wdot, pdot, k1, k2 = x
+        rate = pdot / (365.25 * 86400.0)
+        xx = (t - t0) / p
+        cycles = 2.0 * xx / (1.0 + np.sqrt(1.0 + 2.0 * rate * xx))      # t = T0 + P (c + rate c^2 / 2)
+        m = 2.0 * np.pi * (cycles - np.floor(cycles))
+        ecc = brentq(lambda big_e: big_e - e * np.sin(big_e) - m, 0.0, 2.0 * np.pi, xtol=1e-15)
+        nu = 2.0 * np.arctan2(np.sqrt(1.0 + e) * np.sin(ecc / 2.0), np.sqrt(1.0 - e) * np.cos(ecc / 2.0))
+        w = np.radians(w0 + wdot * (t - t0) / 365.25)
+        return (k1 + k2) * abs(np.cos(nu + w) + e * np.cos(w))
+
+    def extreme(date, x, kind):
+        # rv1's maximum or minimum is where |v1 - v2| is largest nearby (it has one sign there)
+        found = minimize_scalar(lambda s: -separation(date + s, x), bounds=(-0.3, 0.3), method="bounded",
+                                options={"xatol": 1e-9})
+        return -found.fun
+
+    q = {name: Measured(np.array([v]), np.array([s]), np.array([s])) for name, v, s in zip(names, x0, sig)}
+    options = Options(correlations={("period", "t_periastron"): -0.4, ("eccentricity", "k1"): 0.3})
+    entries = ephemeris_events(q, {"after": after, "count": 2}, options)[0]["events"]["max_velocity_separation"]
+    assert len(entries) == 4
+    for entry in entries:
+        date = entry["value"]
+        assert entry["velocity_separation"] == pytest.approx(extreme(date, x0, entry["kind"]), rel=1e-12)
+        jac = []
+        for j in range(len(names)):
+            h = np.zeros(len(names))
+            h[j] = 1e-4 * sig[j]
+            jac.append((extreme(date, x0 + h, entry["kind"]) - extreme(date, x0 - h, entry["kind"])) / (2 * h[j]))
+        jac = np.array(jac)
+        assert entry["velocity_separation_sigma"] == pytest.approx(np.sqrt(jac @ cov @ jac), rel=1e-8)

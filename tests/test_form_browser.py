@@ -413,3 +413,25 @@ def test_event_dates_are_shown_to_what_their_sigma_supports(browser, base_url, c
     # astropy.time: the ISO date of the JD rounded to the nearest day boundary (JD x.5 is 00:00 UTC)
     from astropy.time import Time
     assert cells[0].text == Time(round(first["value"] - 0.5) + 0.5, format="jd", scale="utc").isot[:10]
+
+
+@pytest.mark.browser
+def test_an_event_field_with_its_sigma_is_shown_as_one_rounded_number(browser, base_url, client):
+    # an SB2's velocity separation at the RV extrema comes with velocity_separation_sigma: one cell, value ± sigma
+    # rounded together by the PDG rule (as the reports print it), no column of bare sigmas
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+
+    from calcservice.report import printed
+    _open(browser, base_url + "/")
+    Select(browser.find_element(By.ID, "calculation")).select_by_value("ephemeris")
+    browser.find_element(By.ID, "example").click()
+    browser.find_element(By.ID, "compute").click()
+    selector = '.events[data-member="events"] td[data-field^="velocity_separation"]'
+    cells = _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, selector))
+    example = client.get("/v1/calculations/ephemeris").get_json()["example"]
+    entries = post(client, "/v1/orbit/ephemeris", example)[1]["results"]["events"]["max_velocity_separation"]
+    assert [c.get_attribute("data-field") for c in cells] == ["velocity_separation"] * len(entries)
+    shown = [printed(e["velocity_separation"], sigma=e["velocity_separation_sigma"]) for e in entries]
+    assert all(p.exponent == 0 for p in shown)
+    assert [c.text for c in cells] == [f"{p.value} ± {p.sigma}" for p in shown]

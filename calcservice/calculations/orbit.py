@@ -48,7 +48,9 @@ ORBIT_CONVENTIONS = {
               "eccentricity, omega, omega_dot and period_derivative, through the cycles elapsed since "
               "t_periastron; event dates are in the "
               "request's time_format (JD by default, MJD = JD - 2400000.5 with time_format mjd), which the events' "
-              "time_format member names, each with its ISO 8601 date",
+              "time_format member names, each with its ISO 8601 date; with k2, max_velocity_separation lists the "
+              "rv_extrema with |v1 - v2| (km/s) and its sigma, propagated linearly from k1, k2 and the elements "
+              "(the extremum's date moves with them, which changes |v1 - v2| only to second order)",
     "apsidal_motion": "omega(t) = omega + omega_dot (t - t_periastron), omega_dot in deg per Julian year; period is "
                       "the anomalistic period (periastron to periastron), t_periastron the epoch of omega; "
                       "conjunctions then recur with the sidereal period, about P (1 - omega_dot P / 360 deg)",
@@ -181,11 +183,15 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         extrema = kinds_all["rv_extrema"]
         separations = {}
         if k2 is not None:
+            k1n, k2n = np.broadcast_to(k1, (n,)), np.broadcast_to(k2, (n,))
+            with_speeds = EVENT_ELEMENTS + ("k1", "k2")
+            cov_speeds = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, with_speeds)
             for kind, ev, _s in extrema:
                 # at the extremum's own true anomaly and omega (apsidal motion moves omega from t_periastron on)
-                vs = phys.velocity_separation(e[:, None], ev["omega"], np.broadcast_to(k1, (n,))[:, None],
-                                              np.broadcast_to(k2, (n,))[:, None], ev["true_anomaly"])
-                separations[kind] = np.broadcast_to(vs, ev["time"].shape)
+                vs = phys.velocity_separation(e[:, None], ev["omega"], k1n[:, None], k2n[:, None], ev["true_anomaly"])
+                terms = phys.velocity_separation_derivatives(ev, k1n, k2n, e, p, t0, w_dot, p_dot)
+                separations[kind] = (np.broadcast_to(vs, ev["time"].shape),
+                                     phys.event_sigma(terms, cov_speeds, with_speeds))
     for i in range(n):
         events = per_system[i]["events"]
         for list_name, parts in kinds_all.items():
@@ -200,13 +206,16 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         for kind, ev, sigma in extrema:
             fields = {"kind": np.full(count, kind, dtype=object)}
             if kind in separations:
-                fields["velocity_separation"] = [float(x) for x in separations[kind][i]]
+                value, spread = separations[kind]
+                fields["velocity_separation"] = [float(x) for x in value[i]]
+                fields["velocity_separation_sigma"] = [float(x) if np.isfinite(x) else None for x in spread[i]]
             mvs.extend(_event_entries(ev["time"][i], sigma[i], ev["cycle"][i], fields, offset))
         mvs.sort(key=lambda r: r["value"])
         events["max_velocity_separation"] = mvs
         events["unit"] = "d"
         # the units of the entries' fields and of the light-travel amplitudes
-        events["units"] = {**({"velocity_separation": "km/s"} if separations else {}),
+        events["units"] = {**({"velocity_separation": "km/s", "velocity_separation_sigma": "km/s"}
+                              if separations else {}),
                            "amplitude_star1": "d", "amplitude_star2": "d"}
         events["time_format"] = time_format
         events["light_travel_time"] = {

@@ -438,6 +438,53 @@ def velocity_separation(eccentricity, omega_deg, k1, k2, true_anomaly_rad):
     return (k1 + k2) * np.abs(cos_u + eccentricity * cos_degrees(omega_deg))
 
 
+
+def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_periastron, omega_dot=None,
+                                    period_derivative=None):
+    """Partial derivatives of |v1 - v2| (km/s) at the radial-velocity extrema ``event`` of :func:`event_times`:
+    ``d_k1``, ``d_k2``, ``d_eccentricity``, ``d_omega`` (per deg), ``d_t_periastron``, ``d_period`` (per d),
+    ``d_omega_dot`` (per deg/yr), ``d_period_derivative`` (per s/yr), each (N, count).
+
+    The separation vs = (K1 + K2) |cos u + e cos omega|, u = nu + omega (:func:`velocity_separation`), is
+    extreme in time at the event (v1 is, and v1 - v2 is proportional to v1 - gamma), so its derivative by an
+    element x is its partial at the event's date held fixed (the envelope theorem):
+    dvs/dx = (K1 + K2) s [-sin u (dnu/dx + domega/dx) - e sin omega domega/dx + cos omega de/dx] + |...| dK/dx,
+    s the sign of cos u + e cos omega.  At a fixed date, nu(M, e) has dnu/de = -(dM/de)/(dM/dnu)
+    (:func:`mean_anomaly_derivatives`) and dnu/dx = 2 pi (dc/dx)/(dM/dnu) for x = T0, P, Pdot, the cycles c of
+    t = T0 + P (c + Pdot c^2/2) changing by dc/dx = -(dt/dx at fixed c)/(dt/dc); omega(t) = omega + omega_dot
+    (t - T0) (:func:`omega_at`).  Without apsidal motion sin u = 0 and this is the derivative of
+    (K1 + K2)(1 +- e cos omega)."""
+    e = np.asarray(eccentricity, dtype=float)[..., None]
+    p = np.asarray(period, dtype=float)[..., None]
+    t0 = np.asarray(t_periastron, dtype=float)[..., None]
+    k = (np.asarray(k1, dtype=float) + np.asarray(k2, dtype=float))[..., None]
+    nu, cycles = event["true_anomaly"], event["cycle"]
+    time = event["time"] - event.get("light_time", 0.0)            # the extremum itself, not when it is seen
+    w = np.radians(event["omega"])
+    u = nu + w
+    level = np.cos(u) + e * np.cos(w)
+    side = np.sign(level)
+    d_nu, d_m_de = mean_anomaly_derivatives(nu, e)
+    rate = 0.0 if period_derivative is None else period_change_rate(np.asarray(period_derivative)[..., None])
+    slope = p * (1.0 + rate * cycles)                                                 # dt/dc
+    w_rate = 0.0 if omega_dot is None else np.radians(np.asarray(omega_dot, dtype=float)[..., None]) / \
+        DAYS_PER_JULIAN_YEAR                                                          # rad per day
+    at_fixed_cycles = {"t_periastron": 1.0, "period": cycles + 0.5 * rate * cycles * cycles,
+                       "period_derivative": 0.5 * p * cycles * cycles / JULIAN_YEAR}
+    dnu = {x: -TWO_PI * dt / slope / d_nu for x, dt in at_fixed_cycles.items()}
+    dnu["eccentricity"] = -d_m_de / d_nu
+    dw = {"omega": np.radians(1.0), "t_periastron": -w_rate,
+          "omega_dot": np.radians(1.0) * (time - t0) / DAYS_PER_JULIAN_YEAR}
+    sin_u, e_sin_w = np.sin(u), e * np.sin(w)
+    out = {"d_k1": np.abs(level), "d_k2": np.abs(level)}
+    for x in ("eccentricity", "omega", "t_periastron", "period", "omega_dot", "period_derivative"):
+        term = -sin_u * (dnu.get(x, 0.0) + dw.get(x, 0.0)) - e_sin_w * dw.get(x, 0.0)
+        if x == "eccentricity":
+            term = term + np.cos(w)
+        out["d_" + x] = np.broadcast_to(k * side * term, nu.shape)
+    out["d_k1"] = out["d_k2"] = np.broadcast_to(out["d_k1"], nu.shape)
+    return out
+
 # --------------------------------------------------------------------------- geometry
 def roche_lobe_fraction(mass_ratio):
     """Eggleton (1983, ApJ 268, 368) Roche-lobe radius over the separation.

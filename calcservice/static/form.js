@@ -757,14 +757,17 @@
     const unit = member.unit || "";
     for (const [sub, entries] of Object.entries(member)) {
       if (!Array.isArray(entries) || !entries.length || typeof entries[0] !== "object") continue;
-      const keys = Object.keys(entries[0]).filter((k) => !["value", "sigma", "low", "high"].includes(k));
+      // a member's sigma (NAME_sigma, as an SB2's velocity_separation has) is printed with it, not apart
+      const keys = Object.keys(entries[0]).filter((k) => !["value", "sigma", "low", "high"].includes(k)
+        && !(k.endsWith("_sigma") && k.slice(0, -6) in entries[0]));
       const fieldUnits = member.units || {};      // e.g. km/s for an event's velocity_separation
       const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(
         keys.map((k) => el("th", { text: fieldUnits[k] ? `${k} [${fieldUnits[k]}]` : k }))));
       const rows = entries.map((e) => el("tr", {}, [el("td", { class: "value", title: fullPrecision(e), text: measured(e, 12) })]
         .concat(keys.map((k) => k === "iso" && e[k]
           ? el("td", { "data-field": k, title: e[k], text: isoShown(e[k], e, unit) })
-          : el("td", { "data-field": k, text: typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
+          : el("td", { "data-field": k, text: (k + "_sigma") in e ? measured({ value: e[k], sigma: e[k + "_sigma"] }, 6)
+            : typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
       box.append(el("h3", { text: `${key}: ${sub.replace(/_/g, " ")}` }),
         el("table", { class: "results" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
