@@ -22,6 +22,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from datetime import datetime, timedelta
 from decimal import ROUND_HALF_UP, Context, Decimal, localcontext
 from typing import Any, Iterable, Mapping
 
@@ -337,7 +338,11 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     if v == "isotropic":
         return style.text("isotropic (cos i uniform)")
     if "count" in entry and "value" not in entry:
-        return style.text(f"{entry['count']} values")
+        return style.text(f"{entry['count']} value{'' if entry['count'] == 1 else 's'}")
+    if isinstance(v, str) and _finite(entry.get("sigma")) and entry["sigma"] > 0:
+        # an ISO 8601 date with its sigma (in the unit column's unit): the sigma is part of the input
+        pm = r" $\pm$ " if style.name == "latex" else " ± "
+        return style.code(v) + pm + style.number(as_given(entry["sigma"]))
     if not _finite(v):
         return style.code(str(v))
     if entry.get("samples"):
@@ -617,7 +622,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 pass
         unit = entry.get("unit", "") if isinstance(entry, dict) else ""
         shown_unit = s.unit(unit)
-        if key in dates:                            # a date: say whether the numbers are JD or MJD
+        # a date given as a number: say whether it is a JD or an MJD (an ISO 8601 string says what it is)
+        if key in dates and not (isinstance(entry, dict) and isinstance(entry.get("value"), str)):
             shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
                      shown_unit, s.text(desc)])
@@ -670,7 +676,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             v = e.get("value")
             sig = e.get("sigma")
             p = printed(v, sigma=sig, digits=12) if _finite(v) else None
-            body.append([s.number(p)] + [s.text(short_text(e.get(k))) for k in keys])
+            body.append([s.number(p)] + [s.text(iso_shown(e[k], e, unit) if k == "iso" and e.get(k)
+                                                 else short_text(e.get(k))) for k in keys])
         doc.table(header, body)
     notes = event_notes(results)
     if notes:
@@ -757,6 +764,24 @@ def _budget_section(doc: _Doc, results: Mapping[str, Any], unc: Mapping[str, Any
         parts.append(", ".join(series_out) + " (series outputs)")
     if parts:
         doc.para(s.text("Uncertainty budget not given for " + "; and for ".join(parts) + "."))
+
+
+def iso_shown(iso: str, entry: Mapping[str, Any], unit: str) -> str:
+    """An event's calendar date to the resolution its sigma supports, as the web form shows it: the day for
+    a sigma of a day or more, the minute for one of a minute or more (to the nearest, not cut), else as given.
+    A date the calendar cannot hold (a leap second's :60) stays as given."""
+    sigma = entry.get("sigma")
+    if not _finite(sigma) and _finite(entry.get("low")) and _finite(entry.get("high")):
+        sigma = (entry["high"] - entry["low"]) / 2
+    if not unit.startswith("d") or not _finite(sigma) or sigma < 1 / 1440:
+        return iso
+    try:
+        t = datetime.fromisoformat(iso.replace("Z", "+00:00"))
+    except ValueError:
+        return iso
+    if sigma >= 1:
+        return (t + timedelta(hours=12)).date().isoformat()
+    return (t + timedelta(seconds=30)).replace(second=0, microsecond=0).isoformat(timespec="minutes")[:16]
 
 
 def short_text(x: Any) -> str:

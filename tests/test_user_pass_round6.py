@@ -1,0 +1,78 @@
+"""What a working astronomer tripped on when using the service as its users do (round 6): the report of
+a date given as ISO 8601 with its sigma, event dates printed to what their sigma supports, the client
+taking ``uncertainties`` numbers with their correlations, and the web form's unit fields and example
+numbers.  Every system here is fictional."""
+
+import warnings
+
+import pytest
+from erfa import ErfaWarning
+import astropy.units as u
+from astropy.time import Time
+
+from calcservice.client import Client
+
+from .conftest import post
+
+# a fictional dusty colliding-wind binary, "Ember-3": a shell formed on 2024-08-10 (± 10 d)
+EMBER_SHELLS = {"period": {"value": 2410, "sigma": 12}, "formation_epoch": {"value": "2024-08-10", "sigma": 10},
+                "expansion_speed": {"value": 1200, "sigma": 80}, "distance": {"value": 2.4, "sigma": 0.2, "unit": "kpc"},
+                "observation_date": "2027-06-01", "shells": [-2, -1, 0]}
+# its orbit, for the dates of the coming periastron passages
+EMBER_ORBIT = {"period": {"value": 2410, "sigma": 12}, "eccentricity": {"value": 0.71, "sigma": 0.03},
+               "omega": {"value": 205, "sigma": 4}, "t_periastron": {"value": 2458120.4, "sigma": 6},
+               "k1": {"value": 38, "sigma": 3}, "k2": {"value": 15, "sigma": 2},
+               "times": [2461378.5], "after": "2026-12-04", "count": 2}
+
+
+LATEX_ROW = r"\texttt{formation\_epoch} & \texttt{2024-08-10} $\pm$ $10$ & $\mathrm{d}$ &"
+
+
+def _report(client, path, body, fmt="markdown"):
+    r = client.post(f"{path}?format={fmt}", json=body)
+    assert r.status_code == 200, r.get_data(as_text=True)
+    return r.get_data(as_text=True)
+
+
+def _input_row(text, name):
+    return next(line for line in text.splitlines() if line.startswith(f"| `{name}` |"))
+
+
+def test_an_iso_date_input_keeps_its_sigma_in_the_report(client):
+    # the sigma of the formation epoch is a third of the age's error budget: a referee must see it
+    text = _report(client, "/v1/winds/shell-forecast", EMBER_SHELLS)
+    row = _input_row(text, "formation_epoch")
+    assert "`2024-08-10` ± 10 |" in row
+    # an ISO date is no JD: the unit column says the sigma's unit only
+    assert "| d |" in row and "JD" not in row.split("|")[3]
+    # a date given as a number still says it is a JD
+    text = _report(client, "/v1/orbit/ephemeris", EMBER_ORBIT)
+    assert "| d (JD) |" in _input_row(text, "t_periastron")
+    latex = _report(client, "/v1/winds/shell-forecast", EMBER_SHELLS, "latex")
+    assert LATEX_ROW in latex
+
+
+def test_a_list_of_one_is_one_value(client):
+    text = _report(client, "/v1/orbit/ephemeris", EMBER_ORBIT)
+    assert "| 1 value |" in _input_row(text, "times")
+    assert "| 3 values |" in _input_row(_report(client, "/v1/winds/shell-forecast", EMBER_SHELLS), "shells")
+
+
+def test_event_dates_in_the_report_are_shown_to_what_their_sigma_supports(client):
+    status, answer = post(client, "/v1/orbit/ephemeris", EMBER_ORBIT)
+    assert status == 200
+    first = answer["results"]["events"]["periastron"][0]
+    assert first["sigma"] > 1                     # about 25 d: the time of day means nothing
+    # the calendar day by astropy, to the nearest day (not cut): T0 + 2 P = JD 2462940.4 is 2031-03-14 21:36 UTC
+    with warnings.catch_warnings():             # 2031 is past the known leap seconds: no matter for a day
+        warnings.simplefilter("ignore", ErfaWarning)
+        expected = (Time(first["value"], format="jd", scale="utc") + 0.5 * u.day).iso[:10]   # half a day on, then the day
+    assert expected == "2031-03-15"
+    text = _report(client, "/v1/orbit/ephemeris", EMBER_ORBIT)
+    section = text.split("### Events: periastron")[1].split("###")[0]
+    assert f"| {expected} |" in section and "T21:36" not in section
+    # the same rule as the web form's: a sigma of minutes keeps the minute
+    from calcservice.report import iso_shown
+    assert iso_shown("2031-03-14T21:36:40", {"sigma": 0.01}, "d") == "2031-03-14T21:37"
+    assert iso_shown("2031-03-14T21:36:40", {"sigma": 1e-5}, "d") == "2031-03-14T21:36:40"
+    assert iso_shown("2016-12-31T23:59:60", {"sigma": 3.0}, "d") == "2016-12-31T23:59:60"
