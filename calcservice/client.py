@@ -9,7 +9,9 @@
 
 Inputs of one system may be numbers, ``(value, sigma)`` or ``(value, sigma_minus, sigma_plus)``
 tuples, objects of the wire contract (``{"value": 1.2, "sigma": 0.1, "unit": "yr"}``), astropy
-quantities, strings ("isotropic", ISO 8601 dates, choices), ``datetime`` objects for times, and
+quantities, ``uncertainties`` numbers (those correlated with one another, as ``correlated_values`` of a
+fit's covariance gives them, are sent with their correlations), strings ("isotropic", ISO 8601 dates,
+choices), ``datetime`` objects for times, and
 lists or arrays: the user's own draws for a measured input, the list itself for a series input.
 
 A catalogue is split to the service's published limits (``GET /v1/limits``) and put back
@@ -528,6 +530,9 @@ class Client:
         kinds = {i["name"]: i for i in decl["inputs"]}
         body = {k: _encode(v, kinds.get(k)) for k, v in inputs.items()}
         body.update(_options(**options))
+        implied = _ufloat_correlations(inputs, body.get("correlations"))
+        if implied:
+            body["correlations"] = [*(body.get("correlations") or []), *implied]
         return body
 
     def calculate(self, name: str, /, *, uncertainty: Any = None, correlations: Any = None,
@@ -1021,6 +1026,11 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return {"samples": v, "unit": unit} if isinstance(v, list) else {"value": v, "unit": unit}
     if isinstance(value, (_dt.datetime, _dt.date)):
         return value.isoformat()
+    if _is_ufloat(value) and kind == "quantity":
+        # an uncertainties number (a fit's result): its nominal value and standard deviation
+        _finite(value.nominal_value, decl)
+        _finite(value.std_dev, decl)
+        return {"value": float(value.nominal_value), "sigma": float(value.std_dev)}
     if isinstance(value, tuple):
         parts = [_plain(p) for p in value]
         for p in parts:
@@ -1049,6 +1059,30 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
                            "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
+
+
+def _is_ufloat(x: Any) -> bool:
+    return hasattr(x, "nominal_value") and hasattr(x, "std_dev") and hasattr(x, "derivatives")
+
+
+def _ufloat_correlations(inputs: Mapping[str, Any], given: Any) -> list[dict]:
+    """The correlations between the ``uncertainties`` numbers among one system's inputs (K1 and K2 of one
+    orbit fit, from ``correlated_values``), so that they travel with their numbers rather than be
+    dropped; a pair the caller's ``correlations`` already names is left to the caller's value."""
+    names = [k for k, v in inputs.items() if _is_ufloat(v) and v.std_dev > 0]
+    if len(names) < 2:
+        return []
+    from uncertainties import correlation_matrix
+    named = {frozenset(c.get("between", ())) for c in (given or []) if isinstance(c, Mapping)
+             and isinstance(c.get("between"), (list, tuple))}
+    rho = correlation_matrix([inputs[k] for k in names])
+    out = []
+    for a in range(len(names)):
+        for b in range(a + 1, len(names)):
+            r = float(rho[a, b])
+            if abs(r) > 1e-12 and frozenset((names[a], names[b])) not in named:
+                out.append({"between": [names[a], names[b]], "rho": max(-1.0, min(1.0, r))})
+    return out
 
 
 def _finite(x: Any, decl: Mapping[str, Any] | None) -> None:

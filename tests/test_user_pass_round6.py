@@ -76,3 +76,29 @@ def test_event_dates_in_the_report_are_shown_to_what_their_sigma_supports(client
     assert iso_shown("2031-03-14T21:36:40", {"sigma": 0.01}, "d") == "2031-03-14T21:37"
     assert iso_shown("2031-03-14T21:36:40", {"sigma": 1e-5}, "d") == "2031-03-14T21:36:40"
     assert iso_shown("2016-12-31T23:59:60", {"sigma": 3.0}, "d") == "2016-12-31T23:59:60"
+
+
+@pytest.fixture(scope="module")
+def local():
+    return Client("local")
+
+
+def test_uncertainties_numbers_go_in_with_their_correlation(local):
+    from uncertainties import correlated_values
+    # K1 and K2 of one fictional SB2 fit ("Quill-1"), anti-correlated as a joint fit makes them
+    cov = [[0.5 ** 2, -0.3 * 0.5 * 0.7], [-0.3 * 0.5 * 0.7, 0.7 ** 2]]
+    k1, k2 = correlated_values([72.4, 88.1], cov)
+    r = local.calculate("sb2", period=(12.83, 0.004), k1=k1, k2=k2, eccentricity=(0.142, 0.006))
+    # the uncertainties package's own first-order propagation of q = K1/K2 (reference library)
+    q = k1 / k2
+    assert r["results"]["mass_ratio"]["value"] == pytest.approx(q.nominal_value, rel=1e-12)
+    assert r["results"]["mass_ratio"]["sigma"] == pytest.approx(q.std_dev, rel=1e-9)
+    # the same as saying the correlation by hand
+    by_hand = local.calculate("sb2", period=(12.83, 0.004), k1=(72.4, 0.5), k2=(88.1, 0.7),
+                              eccentricity=(0.142, 0.006), correlations={("k1", "k2"): -0.3})
+    assert r["results"]["m1_sin3i"]["sigma"] == pytest.approx(by_hand["results"]["m1_sin3i"]["sigma"], rel=1e-9)
+    # a correlation the caller names wins over the numbers' own
+    body = local.request_body("sb2", {"k1": k1, "k2": k2, "period": 12.83},
+                              correlations=[{"between": ["k2", "k1"], "rho": 0.1}])
+    assert body["correlations"] == [{"between": ["k2", "k1"], "rho": 0.1}]
+    assert body["k1"] == {"value": 72.4, "sigma": pytest.approx(0.5)}
