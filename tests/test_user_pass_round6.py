@@ -13,6 +13,7 @@ from astropy.time import Time
 from calcservice.client import Client
 
 from .conftest import post
+from .test_form_browser import _open, _shot, base_url, browser  # noqa: F401  (fixtures)
 
 # a fictional dusty colliding-wind binary, "Ember-3": a shell formed on 2024-08-10 (± 10 d)
 EMBER_SHELLS = {"period": {"value": 2410, "sigma": 12}, "formation_epoch": {"value": "2024-08-10", "sigma": 10},
@@ -102,3 +103,40 @@ def test_uncertainties_numbers_go_in_with_their_correlation(local):
                               correlations=[{"between": ["k2", "k1"], "rho": 0.1}])
     assert body["correlations"] == [{"between": ["k2", "k1"], "rho": 0.1}]
     assert body["k1"] == {"value": 72.4, "sigma": pytest.approx(0.5)}
+
+
+# ----------------------------------------------------------------------------- the web form
+# a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
+# desktop width and on a phone
+UNIT_CLIPPED = """
+const out = [];
+for (const e of document.querySelectorAll('#input-rows input.unit')) {
+  const before = e.value; e.value = e.placeholder;
+  if (e.scrollWidth > e.clientWidth) out.push(e.id + ': ' + e.placeholder);
+  e.value = before;
+}
+return out;"""
+
+
+@pytest.mark.browser
+def test_unit_fields_show_their_unit_whole_and_small_example_numbers_read_as_written(browser, base_url):
+    from selenium.webdriver.common.by import By
+
+    from calcservice.registry import calculations
+    clipped = []
+    for width in (1280, 390):
+        browser.set_window_size(width, 1200)
+        for name in ("collision", "mass-loss-period-change", "mass-loss-momentum-ratio", "ephemeris"):
+            _open(browser, f"{base_url}/#{name}")
+            clipped += [f"{width} px {name}: {c}" for c in browser.execute_script(UNIT_CLIPPED)]
+    assert not clipped, clipped
+    # "Fill the example" writes a mass-loss rate as an astronomer does, 2.4e-5, not 0.000024
+    browser.set_window_size(1280, 1200)
+    _open(browser, f"{base_url}/#collision")
+    browser.find_element(By.ID, "example").click()
+    example = calculations()["collision"].example
+    shown = browser.find_element(By.ID, "in-mdot1").get_attribute("value")
+    assert shown == "2.4e-5" and float(shown) == example["mdot1"]["value"]
+    assert browser.find_element(By.ID, "sigma-mdot2").get_attribute("value") == "4e-7"
+    assert browser.find_element(By.ID, "in-vinf1").get_attribute("value") == "2300"
+    _shot(browser, "form-collision-example")

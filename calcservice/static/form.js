@@ -1466,6 +1466,11 @@
   }
 
   // ------------------------------------------------------------------ example and wiring
+  // an example's number as an astronomer writes it: 2.4e-5 rather than JavaScript's 0.000024
+  function exampleText(x) {
+    return typeof x === "number" && x !== 0 && Math.abs(x) < 1e-3 ? x.toExponential() : String(x);
+  }
+
   function fillExample() {
     const calc = state.calc;
     buildForm(calc);
@@ -1487,12 +1492,12 @@
       if (!input) continue;
       if (Array.isArray(v)) input.value = v.join(", ");
       else if (v && typeof v === "object") {
-        input.value = v.value !== undefined ? String(v.value) : "";
+        input.value = v.value !== undefined ? exampleText(v.value) : "";
         const sig = $(`sigma-${name}`), unit = $(`unit-${name}`);
-        if (sig && v.sigma !== undefined) sig.value = String(v.sigma);
-        if (sig && v.sigma_plus !== undefined) sig.value = `+${v.sigma_plus} -${v.sigma_minus}`;
+        if (sig && v.sigma !== undefined) sig.value = exampleText(v.sigma);
+        if (sig && v.sigma_plus !== undefined) sig.value = `+${exampleText(v.sigma_plus)} -${exampleText(v.sigma_minus)}`;
         if (unit && v.unit) unit.value = v.unit;
-      } else input.value = String(v);
+      } else input.value = exampleText(v);
     }
     $("status").textContent = "Example filled in (a fictional system). Press Compute.";
   }
