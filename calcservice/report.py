@@ -359,6 +359,23 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     return style.number(as_given(v))
 
 
+def _as_requested(entry: Any, given: Any) -> Any:
+    """An input's echo as the caller wrote it where the caller gave it in a unit of their own (a period
+    of 27.4 ± 0.3 yr, which the answer echoes converted as 10007.850 ± 109.575 d): the report shows what
+    was given, in the unit it was given in.  Anything else (samples, a symbol for the name) as echoed."""
+    if not (isinstance(entry, dict) and isinstance(given, Mapping) and isinstance(given.get("unit"), str)
+            and given["unit"] != entry.get("unit") and "samples" not in given and "samples" not in entry):
+        return entry
+    members = ("value", "sigma", "sigma_minus", "sigma_plus")
+    if not all(isinstance(given.get(k), (int, float, str, type(None))) and not isinstance(given.get(k), bool)
+               for k in members) or "value" not in given:
+        return entry
+    out = {k: given[k] for k in members if given.get(k) is not None}
+    if isinstance(out.get("value"), str) != isinstance(entry.get("value"), str):
+        return entry
+    return {**out, "unit": given["unit"]}
+
+
 def as_given(value: float, sigma: float | None = None, minus: float | None = None,
              plus: float | None = None) -> Printed:
     """An input's numbers as the caller gave them (every digit, never rounded), over one power of ten
@@ -620,6 +637,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.input(key).description
             except KeyError:
                 pass
+        entry = _as_requested(entry, request.get(key) if isinstance(request, Mapping) else None)
         unit = entry.get("unit", "") if isinstance(entry, dict) else ""
         shown_unit = s.unit(unit)
         # a date given as a number: say whether it is a JD or an MJD (an ISO 8601 string says what it is)

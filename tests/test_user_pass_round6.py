@@ -5,6 +5,7 @@ numbers.  Every system here is fictional."""
 
 import warnings
 
+import numpy as np
 import pytest
 from erfa import ErfaWarning
 import astropy.units as u
@@ -77,6 +78,32 @@ def test_event_dates_in_the_report_are_shown_to_what_their_sigma_supports(client
     assert iso_shown("2031-03-14T21:36:40", {"sigma": 0.01}, "d") == "2031-03-14T21:37"
     assert iso_shown("2031-03-14T21:36:40", {"sigma": 1e-5}, "d") == "2031-03-14T21:36:40"
     assert iso_shown("2016-12-31T23:59:60", {"sigma": 3.0}, "d") == "2016-12-31T23:59:60"
+
+
+# a fictional visual binary, "Tern-9": its period given in years, as the orbit paper gives it
+TERN_VISUAL = {"period": {"value": 27.4, "sigma": 0.3, "unit": "yr"},
+               "angular_semimajor_axis": {"value": 412.0, "sigma": 5.0},
+               "parallax": {"value": 38.6, "sigma": 0.4}, "mass_ratio": {"value": 0.78, "sigma": 0.04}}
+
+
+def test_an_input_given_in_a_unit_of_its_own_is_reported_as_given(client):
+    # the answer echoes the period in days (27.4 yr = 10007.85 d, Julian years); the report said
+    # "10007.850 ± 109.575 d", digits nobody gave
+    status, answer = post(client, "/v1/astrometric/visual", TERN_VISUAL)
+    assert status == 200 and answer["inputs"]["period"]["unit"] == "d"
+    assert answer["inputs"]["period"]["value"] == pytest.approx((27.4 * u.year).to_value(u.day), rel=1e-12)
+    text = _report(client, "/v1/astrometric/visual", TERN_VISUAL)
+    assert "| `period` | 27.4 ± 0.3 | yr |" in text and "10007" not in text
+    # the distance of the shell forecast given in kpc, likewise
+    assert "| `distance` | 2.4 ± 0.2 | kpc |" in _report(client, "/v1/winds/shell-forecast", EMBER_SHELLS)
+    # a by-hand check of the result beside it: a = a''/parallax = 10.67 au, M = 4 pi^2 a^3 / (GM_sun P^2)
+    # = 1.6197 solMass with astropy's IAU 2015 GM_sun, the IAU 2012 au and the Julian year (a^3/P^2 alone,
+    # 1.61968, is 38 ppm low: GM_sun (1 yr)^2 / (4 pi^2 au^3) is not exactly 1)
+    from astropy import constants
+    a = 412.0 / 38.6 * u.au
+    m = (4 * np.pi ** 2 * a ** 3 / (constants.GM_sun * (27.4 * u.year) ** 2)).to_value(u.one)
+    assert answer["results"]["semimajor_axis"]["value"] == pytest.approx(a.value, rel=1e-9)
+    assert answer["results"]["total_mass"]["value"] == pytest.approx(m, rel=1e-9)
 
 
 @pytest.fixture(scope="module")
