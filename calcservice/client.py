@@ -91,6 +91,16 @@ class InvalidInput(CalcServiceError, ValueError):
         return str(self.args[0])
 
 
+class _NoUnit(InvalidInput):
+    """A dimensional column a table gives no unit (collected, so that every such column is named at once)."""
+
+    def __init__(self, label: str, spec: Mapping[str, Any]):
+        self.label, self.spec = label, spec
+        super().__init__(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
+                         "table gives it no unit: give the column a unit, name it "
+                         f"{spec['name']}[{spec['unit']}], or pass units={{{spec['name']!r}: ...}}")
+
+
 class ServiceUnavailable(CalcServiceError):
     """No answer: the connection was refused or reset on every try, or the request timed out."""
 
@@ -855,6 +865,7 @@ class InputTable:
             raise InvalidInput(f"{correlated[0]}: {correlated[1]}")
         count = None
         columns: dict[str, Any] = {}
+        no_unit: list[_NoUnit] = []
         for base, members in parts.items():
             if "value" not in members:
                 if base in scalars:
@@ -862,7 +873,11 @@ class InputTable:
                 raise InvalidInput(f"{next(iter(members.values()))[0]}: sigmas given without the column {base}")
             label, col, unit = members["value"]
             spec = inputs[base]
-            entry = _column_entry(spec, label, col, unit, require_units)
+            try:
+                entry = _column_entry(spec, label, col, unit, require_units)
+            except _NoUnit as e:
+                no_unit.append(e)          # every such column is named at once, not one per try
+                continue
             n = len(entry["value"])
             for member in ("sigma", "sigma_minus", "sigma_plus"):
                 # a tuple's or a column object's sigmas: one for every system, or one per system
@@ -883,6 +898,19 @@ class InputTable:
                     sig[missing] = np.nan     # no sigma without a value: the service then says the value is missing
                     entry[member] = sig
             columns[base] = entry
+        if len(no_unit) == 1:
+            raise no_unit[0]
+        if no_unit:
+            names = [e.spec["name"] for e in no_unit]
+            message = (f"{no_unit[0].label}: the table gives no unit to {len(no_unit)} dimensional inputs, "
+                       + ", ".join(f"{e.spec['name']} (default unit {e.spec['unit']!r})" for e in no_unit)
+                       + ": give the columns units, name them " + ", ".join(f"{e.spec['name']}[{e.spec['unit']}]"
+                                                                          for e in no_unit)
+                       + ", or pass units={" + ", ".join(f"{n!r}: ..." for n in names) + "}")
+            error = InvalidInput(message)
+            error.errors = {e.label: [str(e)] for e in no_unit}
+            error.problem["errors"] = error.errors
+            raise error
         for base, value in scalars.items():
             columns[base] = _encode(value, inputs[base])
         if count is None:
@@ -961,9 +989,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
     # a time is a Julian Date (or MJD with time_format) without a unit: nothing to guess there
     if (require_unit and unit is None and kind == "quantity" and spec.get("unit") and not spec.get("time")
             and not (values.dtype == object and all(v is None or isinstance(v, str) for v in values.tolist()))):
-        raise InvalidInput(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
-                         "table gives it no unit: give the column a unit, name it "
-                         f"{spec['name']}[{spec['unit']}], or pass units={{{spec['name']!r}: ...}}")
+        raise _NoUnit(label, spec)
     entry["value"] = values
     if unit is not None and kind == "quantity":
         entry["unit"] = unit

@@ -132,6 +132,24 @@ def test_uncertainties_numbers_go_in_with_their_correlation(local):
     assert body["k1"] == {"value": 72.4, "sigma": pytest.approx(0.5)}
 
 
+
+def test_a_dataframe_without_units_names_every_unitless_column_at_once(local):
+    import pandas as pd
+    from calcservice.client import InvalidInput
+    # a lab's fictional catalogue read from CSV: units on period and k1 in the header, none on k2 nor inclination
+    df = pd.DataFrame({"star": ["Quill-1", "Quill-2"], "period[d]": [12.83, 5.117], "k1[km/s]": [72.4, 101.3],
+                       "k2": [88.1, 120.9], "eccentricity": [0.142, 0.0], "inclination": [84.2, 79.5]})
+    with pytest.raises(InvalidInput) as caught:
+        local.batch("sb2", df, keep=["star"])
+    # one try tells both, where the first try named k2 and the second inclination
+    assert set(caught.value.errors) == {"k2", "inclination"}
+    assert "k2[km/s], inclination[deg]" in str(caught.value)
+    with pytest.raises(InvalidInput) as caught:
+        local.batch("sb2", df, keep=["star"], units={"k2": "km/s"})
+    assert set(caught.value.errors) == {"inclination"}
+    out = local.batch("sb2", df, keep=["star"], units={"k2": "km/s", "inclination": "deg"})
+    assert out.failed == []
+
 # ----------------------------------------------------------------------------- the web form
 # a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
 # desktop width and on a phone
