@@ -150,6 +150,20 @@ def test_a_dataframe_without_units_names_every_unitless_column_at_once(local):
     out = local.batch("sb2", df, keep=["star"], units={"k2": "km/s", "inclination": "deg"})
     assert out.failed == []
 
+
+def test_the_reference_page_says_each_thing_once_and_heads_every_column(client):
+    import re
+    page = client.get("/docs").get_data(as_text=True)
+    # the date inputs' descriptions already say "(JD, or ISO 8601)"; inclination's already offers "isotropic"
+    assert "ISO 8601); Julian Date or ISO 8601" not in page
+    assert not re.search(r'"isotropic" for random orientations[^<]*; or <code>', page.replace("&quot;", '"'))
+    # a date input whose description does not say so still gets the note
+    row = re.search(r"<tr><td><code>after</code>.*?</tr>", page).group(0)
+    assert "Julian Date or ISO 8601" in row
+    # every column of an inputs table has a heading (the required/optional column had none)
+    heads = re.findall(r'<table class="inputs"><thead><tr>(.*?)</tr>', page)
+    assert heads and all("<th></th>" not in h for h in heads)
+
 # ----------------------------------------------------------------------------- the web form
 # a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
 # desktop width and on a phone
