@@ -199,3 +199,24 @@ def test_unit_fields_show_their_unit_whole_and_small_example_numbers_read_as_wri
     assert browser.find_element(By.ID, "sigma-mdot2").get_attribute("value") == "4e-7"
     assert browser.find_element(By.ID, "in-vinf1").get_attribute("value") == "2300"
     _shot(browser, "form-collision-example")
+
+
+@pytest.mark.browser
+def test_a_catalogue_of_a_calculation_over_a_list_is_pointed_to_json_before_a_file_is_chosen(browser, base_url,
+                                                                                           client):
+    from selenium.webdriver.common.by import By
+    # the service cannot answer a shell forecast's catalogue in CSV (a series per system): 406 naming Accept
+    csv_body = "period,formation_epoch,expansion_speed,distance,observation_date\n2410,2460533.5,1200,2400,2461557.5\n"
+    r = client.post("/v1/batch/shell-forecast?options=%7B%22shells%22%3A%5B0%5D%7D", data=csv_body,
+                    headers={"Content-Type": "text/csv", "Accept": "text/csv"})
+    assert r.status_code == 406 and "Accept" in r.get_json()["errors"]
+    browser.set_window_size(1280, 1200)
+    _open(browser, f"{base_url}/#shell-forecast")
+    status = browser.find_element(By.ID, "catalogue-status").text
+    assert "cannot hold" in status and "v1/batch/shell-forecast as JSON or Apache Arrow" in status
+    assert not browser.find_element(By.ID, "catalogue-file").is_enabled()
+    assert not browser.find_element(By.ID, "catalogue-compute").is_enabled()
+    # a calculation of plain numbers takes its file again
+    _open(browser, f"{base_url}/#sb2")
+    assert browser.find_element(By.ID, "catalogue-file").is_enabled()
+    assert "Columns the file may have for sb2" in browser.find_element(By.ID, "catalogue-status").text

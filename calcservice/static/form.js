@@ -1245,7 +1245,15 @@
     $("catalogue-compute").disabled = true;
     $("catalogue-download").disabled = true;
     if (!keepFile) $("catalogue-file").value = "";
-    $("catalogue-status").textContent = state.calc ? `Columns the file may have for ${state.calc.name}: ${state.calc.inputs.map((i) => i.name).join(", ")} (and their sigma columns).` : "";
+    // a calculation over a list (an ephemeris' times, a forecast's shells) answers a series per system,
+    // which no CSV or ECSV cell can hold (the service's 406): said before a file is chosen, not after
+    const lists = state.calc ? state.calc.inputs.filter((i) => i.kind === "series").map((i) => i.name) : [];
+    $("catalogue-file").disabled = lists.length > 0;
+    $("catalogue-status").textContent = !state.calc ? "" : lists.length
+      ? `${state.calc.name} answers a series for each system (over its ${lists.join(", ")}), which a CSV or ECSV ` +
+        `table cannot hold: send its catalogue to POST v1/batch/${state.calc.name} as JSON or Apache Arrow ` +
+        "(the Python client's batch does), or compute one system at a time above."
+      : `Columns the file may have for ${state.calc.name}: ${state.calc.inputs.map((i) => i.name).join(", ")} (and their sigma columns).`;
   }
 
   function systems(n) { return `${n} system${n === 1 ? "" : "s"}`; }
@@ -1266,6 +1274,7 @@
 
   async function readCatalogue(file) {
     resetCatalogue(true);
+    if ($("catalogue-file").disabled) return;          // a file dropped where no table can carry the answer
     const text = await file.text();
     const table = parseTable(text);
     if (table.error) {
