@@ -164,6 +164,25 @@ def test_the_reference_page_says_each_thing_once_and_heads_every_column(client):
     heads = re.findall(r'<table class="inputs"><thead><tr>(.*?)</tr>', page)
     assert heads and all("<th></th>" not in h for h in heads)
 
+
+def test_the_command_line_takes_an_iso_date_with_its_sigma(capsys, client):
+    import json
+
+    from calcservice.cli import main
+    from calcservice.commandline import parse_measured
+    assert parse_measured("2024-08-10+-10") == {"value": "2024-08-10", "sigma": 10.0}
+    assert parse_measured("2024-08-10T06:00:00±6h") == {"value": "2024-08-10T06:00:00", "sigma": 6.0, "unit": "h"}
+    # an offset's "+" is the date's, not a sigma
+    assert parse_measured("2024-05-01T12:00:00+05:00+/-0.5") == {"value": "2024-05-01T12:00:00+05:00", "sigma": 0.5}
+    assert parse_measured("2024-08-10") == "2024-08-10"
+    code = main(["compute", "shell-forecast", "period=2410+-12", "formation_epoch=2024-08-10+-10",
+                 "expansion_speed=1200+-80", "distance=2.4+-0.2kpc", "observation_date=2027-06-01", "shells=-2,-1,0",
+                 "--json"])
+    assert code == 0
+    answer = json.loads(capsys.readouterr().out)
+    status, http = post(client, "/v1/winds/shell-forecast", EMBER_SHELLS)
+    assert answer["results"] == http["results"]
+
 # ----------------------------------------------------------------------------- the web form
 # a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
 # desktop width and on a phone
