@@ -243,12 +243,13 @@ def table(response: dict, calc: Calculation) -> str:
         header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
         body = [[style.number(report.printed_entry(e, digits=12) if n in ("times", "time") else
                               report.printed_entry(e)) for n, e in zip(names, row)] for row in srows]
-        lines += [""] + _columns(header, body, right=True)
+        lines += ([""] if rows else []) + _columns(header, body, right=True)
     for label, unit, entries in report.event_lists({k: v for k, v in results.items()
                                                     if k != "series" and not report.is_measured(v)}):
         keys = report.event_keys(entries)
         body = [[style.number(report.printed(e.get("value"), sigma=e.get("sigma"), digits=12))]
-                + [report.short_text(e.get(k)) for k in keys] for e in entries]
+                + [report.iso_shown(e[k], e, unit) if k == "iso" and e.get(k) else report.short_text(e.get(k))
+                   for k in keys] for e in entries]
         lines += ["", label.replace("_", " ")] + _columns([f"date [{unit}]" if unit else "date"] + keys, body)
     warnings = response.get("warnings", [])
     if warnings:

@@ -183,6 +183,20 @@ def test_the_command_line_takes_an_iso_date_with_its_sigma(capsys, client):
     status, http = post(client, "/v1/winds/shell-forecast", EMBER_SHELLS)
     assert answer["results"] == http["results"]
 
+
+def test_the_command_line_table_prints_event_dates_as_the_report_does(capsys):
+    from calcservice.cli import main
+    code = main(["compute", "ephemeris", "period=2410+-12", "eccentricity=0.71+-0.03", "omega=205+-4",
+                 "t_periastron=2458120.4+-6", "k1=38+-3", "k2=15+-2", "times=2461378.5", "after=2026-12-04",
+                 "count=2"])
+    assert code == 0
+    out = capsys.readouterr().out
+    # T0 + 2P = JD 2462940.4 = 2031-03-14T21:36 UTC, sigma 25 d: the nearest day
+    section = out.split("events: periastron")[1].split("events:")[0]
+    assert "2031-03-15" in section and "T21:36" not in section
+    # one blank line between the title and the series, not two
+    assert "\n\n\n" not in out
+
 # ----------------------------------------------------------------------------- the web form
 # a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
 # desktop width and on a phone
