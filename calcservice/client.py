@@ -160,7 +160,8 @@ class Result(dict):
         rows = []
         for name, e in (self.get("results") or {}).items():
             if isinstance(e, Mapping) and isinstance(e.get("value"), (int, float)):
-                rows.append((name, _pm(e.get("value"), e.get("sigma")), e.get("unit", "")))
+                rows.append((name, _pm(e.get("value"), e.get("sigma"), e.get("low"), e.get("high")),
+                             e.get("unit", "")))
         title = f"{self.get('calculation', '')} ({(self.get('uncertainty') or {}).get('method', '')})"
         return title, ("output", "value ± sigma", "unit"), rows
 
@@ -171,7 +172,35 @@ class Result(dict):
         """``print(result)``: the outputs as a text table, value ± sigma rounded as the reports round them
         (``repr`` stays the mapping's, every digit)."""
         title, header, rows = self._summary()
-        return "\n".join([title, *_text_rows([header, *rows])])
+        lines = [title, *_text_rows([header, *rows])] if rows else [title]
+        warnings = [f"warning [{w.get('code')}]: {w.get('message')}" for w in self.get("warnings") or []
+                    if isinstance(w, Mapping)]
+        return "\n".join(lines + _series_and_events_text(self.get("results") or {}) + ([""] if warnings else [])
+                         + warnings)
+
+
+def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
+    """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as text
+    tables, printed as the reports print them (dates to what their sigma supports)."""
+    from .report import STYLES, event_field_units, event_keys, event_lists, is_measured, iso_shown, printed, \
+        printed_entry, series_rows, short_text
+    style, lines = STYLES["text"], []
+    if isinstance(results.get("series"), Mapping):
+        names, units, srows = series_rows(results["series"])
+        header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
+        body = [[style.number(printed_entry(e, digits=12) if n in ("times", "time") else printed_entry(e))
+                 for n, e in zip(names, row)] for row in srows]
+        lines += ["", *_text_rows([header, *body])]
+    for label, unit, entries in event_lists({k: v for k, v in results.items()
+                                             if k != "series" and not is_measured(v)}):
+        keys = event_keys(entries)
+        body = [[style.number(printed(e.get("value"), sigma=e.get("sigma"), digits=12))]
+                + [iso_shown(e[k], e, unit) if k == "iso" and e.get(k) else short_text(e.get(k)) for k in keys]
+                for e in entries]
+        fields = event_field_units(results, label)
+        header = [f"date [{unit}]" if unit else "date"] + [f"{k} [{fields[k]}]" if fields.get(k) else k for k in keys]
+        lines += ["", label.replace("_", " "), *_text_rows([header, *body])]
+    return lines
 
 
 def _float(x) -> float:
@@ -314,7 +343,9 @@ class BatchResult(dict):
         for i in range(min(self.count, limit)):
             rows.append([str(i)] + [_json_text(self.kept[k][i]) if not isinstance(self.kept[k][i], str)
                                     else self.kept[k][i] for k in kept]
-                        + [_pm(self[n][i], self.sigma.get(n, [None] * self.count)[i]) for n in names]
+                        + [_pm(self[n][i], *(part.get(n, [None] * self.count)[i]
+                                             for part in (self.sigma, self.low or {}, self.high or {})))
+                           for n in names]
                         + ([codes[i]] if warned else []) + [errors[i]])
         header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
                   + (["warnings"] if warned else []) + ["error"])
@@ -359,14 +390,21 @@ def problem_reason(problem: Mapping[str, Any]) -> str:
     return str(problem.get("detail", ""))
 
 
-def _pm(value, sigma) -> str:
-    """value ± sigma as the reports and the command line print it (Particle Data Group rounding)."""
-    from .report import STYLES, printed
+def _pm(value, sigma, low=None, high=None) -> str:
+    """value ± sigma as the reports and the command line print it (Particle Data Group rounding); a Monte
+    Carlo value with its interval's ends, and where its sigma is undefined (masses from isotropic
+    inclinations) the 68.27 % interval written out, never a bare median that reads as exact."""
+    from .report import STYLES, measured_cell
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
-    if sigma is None or (isinstance(sigma, float) and math.isnan(sigma)):
-        sigma = None
-    return STYLES["text"].number(printed(float(value), sigma=None if sigma is None else float(sigma)))
+    entry: dict[str, Any] = {"value": float(value), "sigma": _or_none(sigma)}
+    if _or_none(low) is not None and _or_none(high) is not None:
+        entry.update(low=float(low), high=float(high))
+    return measured_cell(entry, STYLES["text"])
+
+
+def _or_none(x):
+    return None if x is None or (isinstance(x, (float, np.floating)) and math.isnan(x)) else float(x)
 
 
 def _html_table(title: str, header: Sequence[str], rows: Iterable[Sequence[str]]) -> str:

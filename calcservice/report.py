@@ -318,7 +318,7 @@ def is_measured(x: Any) -> bool:
     return isinstance(x, dict) and "value" in x and "unit" in x and not isinstance(x.get("value"), (list, dict))
 
 
-def _measured_cell(entry: Mapping[str, Any], style: Style) -> str:
+def measured_cell(entry: Mapping[str, Any], style: Style) -> str:
     """An output's value for the results table; where its sigma is undefined (null: a Monte Carlo
     distribution without a finite variance) the 68.27 % interval is written out as such."""
     p = printed_entry(entry)
@@ -657,7 +657,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.output(key).description
             except KeyError:
                 pass
-        rows.append([s.code(key), _measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
+        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)

@@ -197,6 +197,34 @@ def test_the_command_line_table_prints_event_dates_as_the_report_does(capsys):
     # one blank line between the title and the series, not two
     assert "\n\n\n" not in out
 
+
+def test_printing_a_result_never_shows_a_bare_median_and_shows_series_events_and_warnings(local):
+    # masses for an inclination not known at all: the draws have no finite sigma; print() gave "4.51937 solMass",
+    # which reads as an exact mass
+    r = local.calculate("sb2", period=12.83, k1=(72.4, 0.5), k2=(88.1, 0.7), eccentricity=(0.142, 0.006),
+                        inclination="isotropic", samples=2000, seed=11)
+    m1 = r["results"]["m1"]
+    assert m1["sigma"] is None
+    line = next(x for x in str(r).splitlines() if x.startswith("m1 "))
+    assert "sigma undefined; 68.27 % interval" in line
+    # the interval's ends as the report prints them (PDG place of the shorter half-width)
+    from calcservice.report import STYLES, measured_cell
+    assert measured_cell(m1, STYLES["text"]) in line
+    # a Monte Carlo batch likewise, per system
+    out = local.batch("sb2", {"period": [12.83, 5.1], "k1": [72.4, 101.3], "k2": [88.1, 120.9],
+                              "eccentricity": [0.142, 0.0], "inclination": ["isotropic", "isotropic"]},
+                      samples=2000, seed=11)
+    assert np.isnan(out.sigma["m1"]).all()      # m1, m2 and the total of both systems at least
+    assert repr(out).count("sigma undefined; 68.27 % interval") >= 2 * 3
+    # an ephemeris printed its (empty) table of scalar outputs only: now its series and its events too
+    text = str(local.calculate("ephemeris", **EMBER_ORBIT))
+    assert "2461378.5" in text and "events: periastron" in text and "2031-03-15" in text
+    assert "velocity_separation [km/s]" in text
+    # and a warning is said where the numbers are
+    text = str(local.calculate("mass-loss-radio", flux_density=(1.8, 0.1), frequency=8.4, distance=(2.1, 0.5),
+                               vinf=(1700, 100), wind_type="wn"))
+    assert "warning [linear_untrustworthy]" in text
+
 # ----------------------------------------------------------------------------- the web form
 # a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
 # desktop width and on a phone
