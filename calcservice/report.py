@@ -376,6 +376,9 @@ def _as_requested(entry: Any, given: Any) -> Any:
     return {**out, "unit": given["unit"]}
 
 
+DOUBLE_DIGITS = 15          # significant decimal digits a double always keeps (DBL_DIG, C99 5.2.4.2.2)
+
+
 def as_given(value: float, sigma: float | None = None, minus: float | None = None,
              plus: float | None = None) -> Printed:
     """An input's numbers as the caller gave them (every digit, never rounded), over one power of ten
@@ -387,7 +390,13 @@ def as_given(value: float, sigma: float | None = None, minus: float | None = Non
     with localcontext(_CONTEXT):
         digits = {k: _decimal(abs(x) if x == 0 else x).normalize().scaleb(-exponent) for k, x in given.items()}
         places = max(max(0, -d.as_tuple().exponent) for d in digits.values())
-        value = digits.pop("value").quantize(Decimal(1).scaleb(-places))
+        own = digits.pop("value")
+        own_places = max(0, -own.as_tuple().exponent)
+        # zeros past a double's 15 significant digits are digits nobody gave (a machine-written
+        # -5.948421176462592 beside a 16-decimal sigma is not -5.9484211764625920)
+        if places > own_places and len(own.as_tuple().digits) + places - own_places > DOUBLE_DIGITS:
+            places = own_places
+        value = own.quantize(Decimal(1).scaleb(-places))
         text = {k: format(d, "f") for k, d in digits.items()}
     return Printed(format(value, "f"), sigma=text.get("sigma"), plus=text.get("plus"), minus=text.get("minus"),
                    exponent=exponent)

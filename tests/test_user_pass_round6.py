@@ -225,6 +225,27 @@ def test_printing_a_result_never_shows_a_bare_median_and_shows_series_events_and
                                vinf=(1700, 100), wind_type="wn"))
     assert "warning [linear_untrustworthy]" in text
 
+
+def test_inputs_pasted_from_a_machine_are_not_padded_past_a_doubles_digits(client):
+    # the Thiele-Innes constants of a fictional visual orbit, as the service's thiele-innes answer gives them
+    # (every digit of the double), sent back to campbell: the report printed -5.9484211764625920, a zero
+    # nobody wrote
+    status, ti = post(client, "/v1/astrometric/thiele-innes", {
+        "angular_semimajor_axis": {"value": 86.4, "sigma": 0.6}, "inclination": {"value": 62.3, "sigma": 0.5},
+        "omega": {"value": 118.0, "sigma": 1.2}, "node": {"value": 47.5, "sigma": 0.8}})
+    assert status == 200
+    body = {k: {"value": ti["results"][k]["value"], "sigma": ti["results"][k]["sigma"]} for k in "ABFG"}
+    text = _report(client, "/v1/astrometric/campbell", body)
+    for k in "ABFG":
+        value = body[k]["value"]
+        cell = _input_row(text, k).split("|")[2].strip()
+        shown = cell.split(" ± ")[0]
+        # the double's own shortest digits (Python's repr), not one more
+        assert shown == repr(value), (k, cell)
+    # a short number is still padded to its sigma's decimals: 41.6 and 0.02 read 41.60 ± 0.02
+    from calcservice.report import STYLES, as_given
+    assert STYLES["markdown"].number(as_given(41.6, sigma=0.02)) == "41.60 ± 0.02"
+
 # ----------------------------------------------------------------------------- the web form
 # a unit field's default unit shows whole (a field with a list of units keeps room for its arrow), at a
 # desktop width and on a phone
