@@ -302,3 +302,28 @@ def test_a_catalogue_of_a_calculation_over_a_list_is_pointed_to_json_before_a_fi
     _open(browser, f"{base_url}/#sb2")
     assert browser.find_element(By.ID, "catalogue-file").is_enabled()
     assert "Columns the file may have for sb2" in browser.find_element(By.ID, "catalogue-status").text
+
+
+@pytest.mark.browser
+def test_an_undefined_sigma_is_shown_to_the_digits_the_report_prints(browser, base_url, client):
+    import re
+
+    from selenium.webdriver.common.by import By
+
+    from calcservice.report import STYLES, measured_cell
+    # masses of a fictional SB2 for an inclination not known at all: the page printed 2.362 (… 1.618 … 9.889),
+    # four digits where the shorter half-width (0.74) gives one decimal by the PDG rule, as the report has it
+    body = {"period": 12.83, "k1": {"value": 72.4, "sigma": 0.5}, "k2": {"value": 88.1, "sigma": 0.7},
+            "eccentricity": {"value": 0.142, "sigma": 0.006}, "inclination": "isotropic",
+            "uncertainty": {"method": "monte_carlo", "samples": 2000, "seed": 7}}
+    status, response = post(client, "/v1/spectroscopic/sb2", body)
+    assert status == 200 and response["results"]["m1"]["sigma"] is None
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb2")
+    browser.execute_script("window.calcserviceForm.show(arguments[0])", response)
+    numbers = re.compile(r"-?\d+(?:\.\d+)?")
+    for name in ("m1", "total_mass"):
+        shown = browser.find_element(By.CSS_SELECTOR, f'tr[data-output="{name}"] td.value').text
+        printed = measured_cell(response["results"][name], STYLES["text"])
+        assert numbers.findall(shown.replace("68.27", "")) == numbers.findall(printed.replace("68.27", "")), \
+            (shown, printed)

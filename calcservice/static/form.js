@@ -553,8 +553,16 @@
     // a null sigma (heavy-tailed Monte Carlo draws): the median and its central 68.27 % interval
     const td = el("td", { class: "value", title: fullPrecision(entry) });
     if (entry.sigma === null && finiteNumber(entry.low) && finiteNumber(entry.high)) {
-      td.append(document.createTextNode(exact(entry.value, 4) + " "),
-        el("span", { class: "interval", text: `(68.27 % interval ${exact(entry.low, 4)} … ${exact(entry.high, 4)}; sigma undefined)` }));
+      // the median and the ends at the decimal place the shorter half-width gives by the PDG rule, as the
+      // report prints them (4.5 (… 3.0 … 18.7), not 4.519 (… 2.981 … 18.69))
+      const [v, low, high] = [entry.value, entry.low, entry.high];
+      const halves = [v - low, high - v].filter((h) => h > 0);
+      const place = halves.length ? pdgPlace(Math.min(...halves)) : null;
+      const shift = exponentFor(Math.max(Math.abs(v), Math.abs(low), Math.abs(high)));
+      const at = (x) => (place === null ? exact(x, 4) : atPlace(x, place, shift));
+      const times = place !== null && shift ? ` × 10${superscript(shift)}` : "";
+      td.append(document.createTextNode(at(v) + times + " "),
+        el("span", { class: "interval", text: `(68.27 % interval ${at(low)} … ${at(high)}${times}; sigma undefined)` }));
       td.dataset.interval = "true";
     } else td.textContent = measured(entry);
     return td;
