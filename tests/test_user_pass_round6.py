@@ -1,15 +1,22 @@
-"""What a working astronomer tripped on when using the service as its users do (round 6): the report of
-a date given as ISO 8601 with its sigma, event dates printed to what their sigma supports, the client
-taking ``uncertainties`` numbers with their correlations, and the web form's unit fields and example
-numbers.  Every system here is fictional."""
+"""What a working astronomer tripped on when using the service as its users do (round 6).
+
+The report: a date given as ISO 8601 keeps its sigma, an input given in a unit of its own is shown as
+given, machine-written inputs are not padded past a double's digits, event dates are printed to what
+their sigma supports (as the form and the command line print them).  The client: ``uncertainties``
+numbers go in with their correlations, every unit-less column is named at once, print() shows series,
+events, warnings and never a bare median.  The command line: ISO dates with a sigma.  /docs: no note
+said twice.  The web form: unit fields show their unit whole, example numbers read as written, an
+undefined sigma to the report's digits, a catalogue over a list pointed to JSON.  Every system here is
+fictional; by-hand checks use astropy and the ``uncertainties`` package.
+"""
 
 import warnings
 
+import astropy.units as u
 import numpy as np
 import pytest
-from erfa import ErfaWarning
-import astropy.units as u
 from astropy.time import Time
+from erfa import ErfaWarning
 
 from calcservice.client import Client
 
@@ -18,7 +25,8 @@ from .test_form_browser import _open, _shot, base_url, browser  # noqa: F401  (f
 
 # a fictional dusty colliding-wind binary, "Ember-3": a shell formed on 2024-08-10 (± 10 d)
 EMBER_SHELLS = {"period": {"value": 2410, "sigma": 12}, "formation_epoch": {"value": "2024-08-10", "sigma": 10},
-                "expansion_speed": {"value": 1200, "sigma": 80}, "distance": {"value": 2.4, "sigma": 0.2, "unit": "kpc"},
+                "expansion_speed": {"value": 1200, "sigma": 80},
+                "distance": {"value": 2.4, "sigma": 0.2, "unit": "kpc"},
                 "observation_date": "2027-06-01", "shells": [-2, -1, 0]}
 # its orbit, for the dates of the coming periastron passages
 EMBER_ORBIT = {"period": {"value": 2410, "sigma": 12}, "eccentricity": {"value": 0.71, "sigma": 0.03},
@@ -68,7 +76,8 @@ def test_event_dates_in_the_report_are_shown_to_what_their_sigma_supports(client
     # the calendar day by astropy, to the nearest day (not cut): T0 + 2 P = JD 2462940.4 is 2031-03-14 21:36 UTC
     with warnings.catch_warnings():             # 2031 is past the known leap seconds: no matter for a day
         warnings.simplefilter("ignore", ErfaWarning)
-        expected = (Time(first["value"], format="jd", scale="utc") + 0.5 * u.day).iso[:10]   # half a day on, then the day
+        # half a day on, then the day
+        expected = (Time(first["value"], format="jd", scale="utc") + 0.5 * u.day).iso[:10]
     assert expected == "2031-03-15"
     text = _report(client, "/v1/orbit/ephemeris", EMBER_ORBIT)
     section = text.split("### Events: periastron")[1].split("###")[0]
@@ -260,7 +269,7 @@ return out;"""
 
 
 @pytest.mark.browser
-def test_unit_fields_show_their_unit_whole_and_small_example_numbers_read_as_written(browser, base_url):
+def test_unit_fields_show_their_unit_whole_and_small_example_numbers_read_as_written(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
 
     from calcservice.registry import calculations
@@ -284,8 +293,7 @@ def test_unit_fields_show_their_unit_whole_and_small_example_numbers_read_as_wri
 
 
 @pytest.mark.browser
-def test_a_catalogue_of_a_calculation_over_a_list_is_pointed_to_json_before_a_file_is_chosen(browser, base_url,
-                                                                                           client):
+def test_a_catalogue_over_a_list_is_pointed_to_json_before_a_file_is_chosen(browser, base_url, client):  # noqa: F811
     from selenium.webdriver.common.by import By
     # the service cannot answer a shell forecast's catalogue in CSV (a series per system): 406 naming Accept
     csv_body = "period,formation_epoch,expansion_speed,distance,observation_date\n2410,2460533.5,1200,2400,2461557.5\n"
@@ -305,7 +313,7 @@ def test_a_catalogue_of_a_calculation_over_a_list_is_pointed_to_json_before_a_fi
 
 
 @pytest.mark.browser
-def test_an_undefined_sigma_is_shown_to_the_digits_the_report_prints(browser, base_url, client):
+def test_an_undefined_sigma_is_shown_to_the_digits_the_report_prints(browser, base_url, client):  # noqa: F811
     import re
 
     from selenium.webdriver.common.by import By
