@@ -1094,7 +1094,9 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         # an uncertainties number (a fit's result): its nominal value and standard deviation
         _finite(value.nominal_value, decl)
         _finite(value.std_dev, decl)
-        return {"value": float(value.nominal_value), "sigma": float(value.std_dev)}
+        # to 15 significant digits: a sigma of sqrt(0.25) arrives as 0.49999999999999994, binary noise the
+        # report would print as the caller's own digits
+        return {"value": _digits15(value.nominal_value), "sigma": _digits15(value.std_dev)}
     if isinstance(value, tuple):
         parts = [_plain(p) for p in value]
         for p in parts:
@@ -1125,6 +1127,11 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     return value
 
 
+def _digits15(x: float) -> float:
+    """A double to the 15 significant digits every double keeps (DBL_DIG): 0.49999999999999994 is 0.5."""
+    return float(f"{float(x):.15g}")
+
+
 def _is_ufloat(x: Any) -> bool:
     return hasattr(x, "nominal_value") and hasattr(x, "std_dev") and hasattr(x, "derivatives")
 
@@ -1145,7 +1152,7 @@ def _ufloat_correlations(inputs: Mapping[str, Any], given: Any) -> list[dict]:
         for b in range(a + 1, len(names)):
             r = float(rho[a, b])
             if abs(r) > 1e-12 and frozenset((names[a], names[b])) not in named:
-                out.append({"between": [names[a], names[b]], "rho": max(-1.0, min(1.0, r))})
+                out.append({"between": [names[a], names[b]], "rho": max(-1.0, min(1.0, _digits15(r)))})
     return out
 
 

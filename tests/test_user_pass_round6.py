@@ -139,6 +139,10 @@ def test_uncertainties_numbers_go_in_with_their_correlation(local):
                               correlations=[{"between": ["k2", "k1"], "rho": 0.1}])
     assert body["correlations"] == [{"between": ["k2", "k1"], "rho": 0.1}]
     assert body["k1"] == {"value": 72.4, "sigma": pytest.approx(0.5)}
+    # a covariance's square roots and ratios come without binary noise: the report reads 72.4 ± 0.5 and
+    # rho -0.3, not 0.49999999999999994 and -0.30000000000000004
+    text = local.report("sb2", format="markdown", period=12.83, k1=k1, k2=k2, eccentricity=0.142)
+    assert "| `k1` | 72.4 ± 0.5 | km/s |" in text and "rho(k1, k2) = -0.3\n" in text
 
 
 
