@@ -76,7 +76,7 @@ def python_call(calc: Calculation, base_url: str) -> str:
     return ("from calcservice.client import Client\n\n"
             f"answer = Client({base_url.rstrip('/')!r}).calculate(\n    {joined},\n)\n"
             "print(answer)                  # value ± sigma per output, as the report rounds it\n"
-            "results = answer[\"results\"]   # every digit, as the service sent it")
+            "results = answer[\"results\"]    # every digit, as the service sent it")
 
 
 def _input_row(spec: Input) -> str:
