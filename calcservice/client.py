@@ -166,7 +166,11 @@ class Result(dict):
         return title, ("output", "value ± sigma", "unit"), rows
 
     def _repr_html_(self) -> str:
-        return _html_table(*self._summary())
+        title, header, rows = self._summary()
+        return "".join([_html_table(title, header, rows) if rows else f"<p>{html.escape(title)}</p>"]
+                       + [_html_table(*table) for table in _series_and_events(self.get("results") or {})]
+                       + [f"<p>warning [{html.escape(str(w.get('code')))}]: {html.escape(str(w.get('message')))}</p>"
+                          for w in self.get("warnings") or [] if isinstance(w, Mapping)])
 
     def __str__(self) -> str:
         """``print(result)``: the outputs as a text table, value ± sigma rounded as the reports round them
@@ -179,18 +183,18 @@ class Result(dict):
                          + warnings)
 
 
-def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
-    """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as text
-    tables, printed as the reports print them (dates to what their sigma supports)."""
+def _series_and_events(results: Mapping[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]:
+    """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as
+    (title, header, rows) tables, printed as the reports print them (dates to what their sigma supports)."""
     from .report import STYLES, event_field_units, event_keys, event_lists, is_measured, iso_shown, printed, \
         printed_entry, series_rows, short_text
-    style, lines = STYLES["text"], []
+    style, tables = STYLES["text"], []
     if isinstance(results.get("series"), Mapping):
         names, units, srows = series_rows(results["series"])
         header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
         body = [[style.number(printed_entry(e, digits=12) if n in ("times", "time") else printed_entry(e))
                  for n, e in zip(names, row)] for row in srows]
-        lines += ["", *_text_rows([header, *body])]
+        tables.append(("series", header, body))
     for label, unit, entries in event_lists({k: v for k, v in results.items()
                                              if k != "series" and not is_measured(v)}):
         keys = event_keys(entries)
@@ -199,7 +203,14 @@ def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
                 for e in entries]
         fields = event_field_units(results, label)
         header = [f"date [{unit}]" if unit else "date"] + [f"{k} [{fields[k]}]" if fields.get(k) else k for k in keys]
-        lines += ["", label.replace("_", " "), *_text_rows([header, *body])]
+        tables.append((label.replace("_", " "), header, body))
+    return tables
+
+
+def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
+    lines: list[str] = []
+    for title, header, body in _series_and_events(results):
+        lines += [""] + ([] if title == "series" else [title]) + _text_rows([header, *body])
     return lines
 
 

@@ -233,6 +233,9 @@ def test_printing_a_result_never_shows_a_bare_median_and_shows_series_events_and
     text = str(local.calculate("ephemeris", **EMBER_ORBIT))
     assert "2461378.5" in text and "events: periastron" in text and "2031-03-15" in text
     assert "velocity_separation [km/s]" in text
+    # in Jupyter, the same tables
+    shown = local.calculate("ephemeris", **EMBER_ORBIT)._repr_html_()
+    assert "<caption>events: periastron</caption>" in shown and "<td>2031-03-15</td>" in shown
     # and a warning is said where the numbers are
     text = str(local.calculate("mass-loss-radio", flux_density=(1.8, 0.1), frequency=8.4, distance=(2.1, 0.5),
                                vinf=(1700, 100), wind_type="wn"))
