@@ -29,6 +29,7 @@ import html
 import json
 import http.client
 import math
+import os
 import platform
 import socket
 import sys
@@ -863,8 +864,11 @@ class InputTable:
         elif isinstance(data, Mapping):
             items = [(str(k), v) for k, v in data.items()]
         else:
+            # a file name: the table is one line away, and astropy reads its units, which a guess would not
+            hint = (f": read the file first, QTable.read({str(data)!r}) (astropy.table; its units come along)"
+                    if isinstance(data, (str, os.PathLike)) else "")
             raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
-                            f"not {type(data).__name__}")
+                            f"not {type(data).__name__}{hint}")
         for label, unit in units.items():
             if hasattr(unit, "to_string") and not isinstance(unit, str):      # an astropy unit
                 units[label] = unit.to_string()

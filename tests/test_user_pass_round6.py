@@ -162,6 +162,9 @@ def test_a_dataframe_without_units_names_every_unitless_column_at_once(local):
     assert set(caught.value.errors) == {"inclination"}
     out = local.batch("sb2", df, keep=["star"], units={"k2": "km/s", "inclination": "deg"})
     assert out.failed == []
+    # a file name is not a table: the error says how to make one
+    with pytest.raises(TypeError, match=r"QTable\.read\('catalogue\.ecsv'\)"):
+        local.batch("sb2", "catalogue.ecsv")
 
 
 def test_the_reference_page_says_each_thing_once_and_heads_every_column(client):
