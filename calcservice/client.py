@@ -9,7 +9,9 @@
 
 Inputs of one system may be numbers, ``(value, sigma)`` or ``(value, sigma_minus, sigma_plus)``
 tuples, objects of the wire contract (``{"value": 1.2, "sigma": 0.1, "unit": "yr"}``), astropy
-quantities, strings ("isotropic", ISO 8601 dates, choices), ``datetime`` objects for times, and
+quantities, ``uncertainties`` numbers (those correlated with one another, as ``correlated_values`` of a
+fit's covariance gives them, are sent with their correlations), strings ("isotropic", ISO 8601 dates,
+choices), ``datetime`` objects for times, and
 lists or arrays: the user's own draws for a measured input, the list itself for a series input.
 
 A catalogue is split to the service's published limits (``GET /v1/limits``) and put back
@@ -27,6 +29,7 @@ import html
 import json
 import http.client
 import math
+import os
 import platform
 import socket
 import sys
@@ -89,6 +92,16 @@ class InvalidInput(CalcServiceError, ValueError):
         return str(self.args[0])
 
 
+class _NoUnit(InvalidInput):
+    """A dimensional column a table gives no unit (collected, so that every such column is named at once)."""
+
+    def __init__(self, label: str, spec: Mapping[str, Any]):
+        self.label, self.spec = label, spec
+        super().__init__(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
+                         "table gives it no unit: give the column a unit, name it "
+                         f"{spec['name']}[{spec['unit']}], or pass units={{{spec['name']!r}: ...}}")
+
+
 class ServiceUnavailable(CalcServiceError):
     """No answer: the connection was refused or reset on every try, or the request timed out."""
 
@@ -148,18 +161,49 @@ class Result(dict):
         rows = []
         for name, e in (self.get("results") or {}).items():
             if isinstance(e, Mapping) and isinstance(e.get("value"), (int, float)):
-                rows.append((name, _pm(e.get("value"), e.get("sigma")), e.get("unit", "")))
+                rows.append((name, _pm(e.get("value"), e.get("sigma"), e.get("low"), e.get("high")),
+                             e.get("unit", "")))
         title = f"{self.get('calculation', '')} ({(self.get('uncertainty') or {}).get('method', '')})"
         return title, ("output", "value ± sigma", "unit"), rows
 
     def _repr_html_(self) -> str:
-        return _html_table(*self._summary())
+        title, header, rows = self._summary()
+        return "".join([_html_table(title, header, rows) if rows else f"<p>{html.escape(title)}</p>"]
+                       + [_html_table(*table) for table in _series_and_events(self.get("results") or {})]
+                       + [f"<p>warning [{html.escape(str(w.get('code')))}]: {html.escape(str(w.get('message')))}</p>"
+                          for w in self.get("warnings") or [] if isinstance(w, Mapping)])
 
     def __str__(self) -> str:
         """``print(result)``: the outputs as a text table, value ± sigma rounded as the reports round them
         (``repr`` stays the mapping's, every digit)."""
         title, header, rows = self._summary()
-        return "\n".join([title, *_text_rows([header, *rows])])
+        lines = [title, *_text_rows([header, *rows])] if rows else [title]
+        warnings = [f"warning [{w.get('code')}]: {w.get('message')}" for w in self.get("warnings") or []
+                    if isinstance(w, Mapping)]
+        return "\n".join(lines + _series_and_events_text(self.get("results") or {}) + ([""] if warnings else [])
+                         + warnings)
+
+
+def _series_and_events(results: Mapping[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]:
+    """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as
+    (title, header, rows) tables, printed as the reports print them (dates to what their sigma supports)."""
+    from .report import STYLES, event_tables, printed_entry, series_rows
+    style, tables = STYLES["text"], []
+    if isinstance(results.get("series"), Mapping):
+        names, units, srows = series_rows(results["series"])
+        header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
+        body = [[style.number(printed_entry(e, digits=12) if n in ("times", "time") else printed_entry(e))
+                 for n, e in zip(names, row)] for row in srows]
+        tables.append(("series", header, body))
+    tables += [(label.replace("_", " "), header, body) for label, header, body in event_tables(results, style)]
+    return tables
+
+
+def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
+    lines: list[str] = []
+    for title, header, body in _series_and_events(results):
+        lines += [""] + ([] if title == "series" else [title]) + _text_rows([header, *body])
+    return lines
 
 
 def _float(x) -> float:
@@ -302,7 +346,9 @@ class BatchResult(dict):
         for i in range(min(self.count, limit)):
             rows.append([str(i)] + [_json_text(self.kept[k][i]) if not isinstance(self.kept[k][i], str)
                                     else self.kept[k][i] for k in kept]
-                        + [_pm(self[n][i], self.sigma.get(n, [None] * self.count)[i]) for n in names]
+                        + [_pm(self[n][i], *(part.get(n, [None] * self.count)[i]
+                                             for part in (self.sigma, self.low or {}, self.high or {})))
+                           for n in names]
                         + ([codes[i]] if warned else []) + [errors[i]])
         header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
                   + (["warnings"] if warned else []) + ["error"])
@@ -347,14 +393,21 @@ def problem_reason(problem: Mapping[str, Any]) -> str:
     return str(problem.get("detail", ""))
 
 
-def _pm(value, sigma) -> str:
-    """value ± sigma as the reports and the command line print it (Particle Data Group rounding)."""
-    from .report import STYLES, printed
+def _pm(value, sigma, low=None, high=None) -> str:
+    """value ± sigma as the reports and the command line print it (Particle Data Group rounding); a Monte
+    Carlo value with its interval's ends, and where its sigma is undefined (masses from isotropic
+    inclinations) the 68.27 % interval written out, never a bare median that reads as exact."""
+    from .report import STYLES, measured_cell
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
-    if sigma is None or (isinstance(sigma, float) and math.isnan(sigma)):
-        sigma = None
-    return STYLES["text"].number(printed(float(value), sigma=None if sigma is None else float(sigma)))
+    entry: dict[str, Any] = {"value": float(value), "sigma": _or_none(sigma)}
+    if _or_none(low) is not None and _or_none(high) is not None:
+        entry.update(low=float(low), high=float(high))
+    return measured_cell(entry, STYLES["text"])
+
+
+def _or_none(x):
+    return None if x is None or (isinstance(x, (float, np.floating)) and math.isnan(x)) else float(x)
 
 
 def _html_table(title: str, header: Sequence[str], rows: Iterable[Sequence[str]]) -> str:
@@ -528,6 +581,9 @@ class Client:
         kinds = {i["name"]: i for i in decl["inputs"]}
         body = {k: _encode(v, kinds.get(k)) for k, v in inputs.items()}
         body.update(_options(**options))
+        implied = _ufloat_correlations(inputs, body.get("correlations"))
+        if implied:
+            body["correlations"] = [*(body.get("correlations") or []), *implied]
         return body
 
     def calculate(self, name: str, /, *, uncertainty: Any = None, correlations: Any = None,
@@ -799,8 +855,11 @@ class InputTable:
         elif isinstance(data, Mapping):
             items = [(str(k), v) for k, v in data.items()]
         else:
+            # a file name: the table is one line away, and astropy reads its units, which a guess would not
+            hint = (f": read the file first, QTable.read({str(data)!r}) (astropy.table; its units come along)"
+                    if isinstance(data, (str, os.PathLike)) else "")
             raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
-                            f"not {type(data).__name__}")
+                            f"not {type(data).__name__}{hint}")
         for label, unit in units.items():
             if hasattr(unit, "to_string") and not isinstance(unit, str):      # an astropy unit
                 units[label] = unit.to_string()
@@ -850,6 +909,7 @@ class InputTable:
             raise InvalidInput(f"{correlated[0]}: {correlated[1]}")
         count = None
         columns: dict[str, Any] = {}
+        no_unit: list[_NoUnit] = []
         for base, members in parts.items():
             if "value" not in members:
                 if base in scalars:
@@ -857,7 +917,11 @@ class InputTable:
                 raise InvalidInput(f"{next(iter(members.values()))[0]}: sigmas given without the column {base}")
             label, col, unit = members["value"]
             spec = inputs[base]
-            entry = _column_entry(spec, label, col, unit, require_units)
+            try:
+                entry = _column_entry(spec, label, col, unit, require_units)
+            except _NoUnit as e:
+                no_unit.append(e)          # every such column is named at once, not one per try
+                continue
             n = len(entry["value"])
             for member in ("sigma", "sigma_minus", "sigma_plus"):
                 # a tuple's or a column object's sigmas: one for every system, or one per system
@@ -878,6 +942,19 @@ class InputTable:
                     sig[missing] = np.nan     # no sigma without a value: the service then says the value is missing
                     entry[member] = sig
             columns[base] = entry
+        if len(no_unit) == 1:
+            raise no_unit[0]
+        if no_unit:
+            names = [e.spec["name"] for e in no_unit]
+            message = (f"{no_unit[0].label}: the table gives no unit to {len(no_unit)} dimensional inputs, "
+                       + ", ".join(f"{e.spec['name']} (default unit {e.spec['unit']!r})" for e in no_unit)
+                       + ": give the columns units, name them " + ", ".join(f"{e.spec['name']}[{e.spec['unit']}]"
+                                                                          for e in no_unit)
+                       + ", or pass units={" + ", ".join(f"{n!r}: ..." for n in names) + "}")
+            error = InvalidInput(message)
+            error.errors = {e.label: [str(e)] for e in no_unit}
+            error.problem["errors"] = error.errors
+            raise error
         for base, value in scalars.items():
             columns[base] = _encode(value, inputs[base])
         if count is None:
@@ -956,9 +1033,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
     # a time is a Julian Date (or MJD with time_format) without a unit: nothing to guess there
     if (require_unit and unit is None and kind == "quantity" and spec.get("unit") and not spec.get("time")
             and not (values.dtype == object and all(v is None or isinstance(v, str) for v in values.tolist()))):
-        raise InvalidInput(f"{label}: {spec['name']} is a dimensional input (default unit {spec['unit']!r}) and the "
-                         "table gives it no unit: give the column a unit, name it "
-                         f"{spec['name']}[{spec['unit']}], or pass units={{{spec['name']!r}: ...}}")
+        raise _NoUnit(label, spec)
     entry["value"] = values
     if unit is not None and kind == "quantity":
         entry["unit"] = unit
@@ -1021,6 +1096,13 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return {"samples": v, "unit": unit} if isinstance(v, list) else {"value": v, "unit": unit}
     if isinstance(value, (_dt.datetime, _dt.date)):
         return value.isoformat()
+    if _is_ufloat(value) and kind == "quantity":
+        # an uncertainties number (a fit's result): its nominal value and standard deviation
+        _finite(value.nominal_value, decl)
+        _finite(value.std_dev, decl)
+        # to 15 significant digits: a sigma of sqrt(0.25) arrives as 0.49999999999999994, binary noise the
+        # report would print as the caller's own digits
+        return {"value": _digits15(value.nominal_value), "sigma": _digits15(value.std_dev)}
     if isinstance(value, tuple):
         parts = [_plain(p) for p in value]
         for p in parts:
@@ -1049,6 +1131,35 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
                            "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
+
+
+def _digits15(x: float) -> float:
+    """A double to the 15 significant digits every double keeps (DBL_DIG): 0.49999999999999994 is 0.5."""
+    return float(f"{float(x):.15g}")
+
+
+def _is_ufloat(x: Any) -> bool:
+    return hasattr(x, "nominal_value") and hasattr(x, "std_dev") and hasattr(x, "derivatives")
+
+
+def _ufloat_correlations(inputs: Mapping[str, Any], given: Any) -> list[dict]:
+    """The correlations between the ``uncertainties`` numbers among one system's inputs (K1 and K2 of one
+    orbit fit, from ``correlated_values``), so that they travel with their numbers rather than be
+    dropped; a pair the caller's ``correlations`` already names is left to the caller's value."""
+    names = [k for k, v in inputs.items() if _is_ufloat(v) and v.std_dev > 0]
+    if len(names) < 2:
+        return []
+    from uncertainties import correlation_matrix
+    named = {frozenset(c.get("between", ())) for c in (given or []) if isinstance(c, Mapping)
+             and isinstance(c.get("between"), (list, tuple))}
+    rho = correlation_matrix([inputs[k] for k in names])
+    out = []
+    for a in range(len(names)):
+        for b in range(a + 1, len(names)):
+            r = float(rho[a, b])
+            if abs(r) > 1e-12 and frozenset((names[a], names[b])) not in named:
+                out.append({"between": [names[a], names[b]], "rho": max(-1.0, min(1.0, _digits15(r)))})
+    return out
 
 
 def _finite(x: Any, decl: Mapping[str, Any] | None) -> None:

@@ -6,7 +6,8 @@
     calcservice compute sb1 --in catalogue.ecsv --out results.fits --keep star,hip
 
 Values are ``NAME=VALUE[+-SIGMA][UNIT]`` (``±`` and ``+/-`` also work), asymmetric
-``NAME=VALUE+PLUS-MINUS[UNIT]``, ``inclination=isotropic``, ISO 8601 dates for times,
+``NAME=VALUE+PLUS-MINUS[UNIT]``, ``inclination=isotropic``, ISO 8601 dates for times (with a
+sigma in days, or in the unit that follows it: ``2024-03-01+-3``, ``2024-03-01T12:00±6h``),
 comma-separated lists for series (``times=2460400.5,2460500.5``) and ``NAME=@FILE`` for
 the caller's own draws (numbers separated by spaces, commas or new lines).
 
@@ -42,6 +43,9 @@ _MINUS_PLUS = re.compile(rf"^\s*(?P<value>{_NUM})\s*-\s*(?P<minus>{_UNUM})\s*\+\
 # a unit is any text astropy may read ("km/s", "°", "%", "µas"), judged by the service; it cannot begin like
 # a number, a sign or a date's next field, so that "2024-03-01" stays a date and "1.2+0.3-0.1" asymmetric
 _UNIT = re.compile(r"^[^\d\s+\-.,±=][^=]*$")
+# an ISO 8601 date with its sigma (2024-08-10+-10, 2024-08-10T06:00±6h): the date as the string the service
+# reads, the sigma in days unless a unit follows
+_DATE_PM = re.compile(rf"^\s*(?P<value>\d{{4}}-\d\d\S*?)\s*{_PM}\s*(?P<sigma>{_UNUM})\s*(?P<unit>.*?)\s*$")
 EXAMPLE_FORMS = "e.g. 61.4, 61.4+-0.9, 61.4±0.9km/s, 2.5yr or 1.2+0.3-0.1"
 
 EXIT_REJECTED = 1     # the inputs parse but the calculation refuses them (the API's 4xx)
@@ -85,6 +89,10 @@ def parse_measured(text: str, field: str = "value") -> Any:
         if unit:
             out["unit"] = unit
         return out
+    m = _DATE_PM.match(text)
+    if m and (not m.group("unit") or _UNIT.match(m.group("unit"))):
+        out = {"value": m.group("value"), "sigma": _number(m.group("sigma"), field)}
+        return {**out, "unit": m.group("unit")} if m.group("unit") else out
     if re.match(r"^[+-]?[\d.]", text) and not re.match(r"^\d{4}-\d\d", text):
         raise UsageError(field, f"{text!r} is not a measured value ({EXAMPLE_FORMS})")
     return text
@@ -235,16 +243,9 @@ def table(response: dict, calc: Calculation) -> str:
         header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
         body = [[style.number(report.printed_entry(e, digits=12) if n in ("times", "time") else
                               report.printed_entry(e)) for n, e in zip(names, row)] for row in srows]
-        lines += [""] + _columns(header, body, right=True)
-    for label, unit, entries in report.event_lists({k: v for k, v in results.items()
-                                                    if k != "series" and not report.is_measured(v)}):
-        keys = report.event_keys(entries)
-        body = [[style.number(report.printed(e.get("value"), sigma=e.get("sigma"), digits=12))]
-                + [style.number(f) if isinstance(f, report.Printed) else f
-                   for f in (report.event_field(e, k) for k in keys)] for e in entries]
-        fields = report.event_field_units(results, label)
-        header = [f"{k} [{fields[k]}]" if fields.get(k) else k for k in keys]
-        lines += ["", label.replace("_", " ")] + _columns([f"date [{unit}]" if unit else "date"] + header, body)
+        lines += ([""] if rows else []) + _columns(header, body, right=True)
+    for label, header, body in report.event_tables(results, style):
+        lines += ["", label.replace("_", " ")] + _columns(header, body)
     warnings = response.get("warnings", [])
     if warnings:
         lines.append("")
@@ -669,6 +670,7 @@ def add_compute(subparsers) -> argparse.ArgumentParser:
     epilog = "calculations:\n" + "\n".join(f"  {n:<26}{c.title}" for n, c in calcs.items()) + (
         "\n\nvalues: NAME=VALUE[+-SIGMA][UNIT], e.g. k1=61.4+-0.9km/s, period=2.5yr, e=0.3±0.01, "
         "x=1.2+0.3-0.1 (asymmetric), inclination=isotropic, t_periastron=2024-03-01T12:00, "
+        "t_periastron=2024-03-01+-3 (a date ± days, or ±6h), "
         "times=2460400.5,2460500.5 (series), k1=@draws.txt (your own samples)."
         "\n\nexit status: 0 done, 1 the calculation refused the inputs, 2 the command line is wrong.")
     p = subparsers.add_parser(

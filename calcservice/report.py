@@ -22,6 +22,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from datetime import datetime, timedelta
 from decimal import ROUND_HALF_UP, Context, Decimal, localcontext
 from typing import Any, Iterable, Mapping
 
@@ -317,7 +318,7 @@ def is_measured(x: Any) -> bool:
     return isinstance(x, dict) and "value" in x and "unit" in x and not isinstance(x.get("value"), (list, dict))
 
 
-def _measured_cell(entry: Mapping[str, Any], style: Style) -> str:
+def measured_cell(entry: Mapping[str, Any], style: Style) -> str:
     """An output's value for the results table; where its sigma is undefined (null: a Monte Carlo
     distribution without a finite variance) the 68.27 % interval is written out as such."""
     p = printed_entry(entry)
@@ -337,7 +338,11 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     if v == "isotropic":
         return style.text("isotropic (cos i uniform)")
     if "count" in entry and "value" not in entry:
-        return style.text(f"{entry['count']} values")
+        return style.text(f"{entry['count']} value{'' if entry['count'] == 1 else 's'}")
+    if isinstance(v, str) and _finite(entry.get("sigma")) and entry["sigma"] > 0:
+        # an ISO 8601 date with its sigma (in the unit column's unit): the sigma is part of the input
+        pm = r" $\pm$ " if style.name == "latex" else " ± "
+        return style.code(v) + pm + style.number(as_given(entry["sigma"]))
     if not _finite(v):
         return style.code(str(v))
     if entry.get("samples"):
@@ -354,6 +359,26 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     return style.number(as_given(v))
 
 
+def _as_requested(entry: Any, given: Any) -> Any:
+    """An input's echo as the caller wrote it where the caller gave it in a unit of their own (a period
+    of 27.4 ± 0.3 yr, which the answer echoes converted as 10007.850 ± 109.575 d): the report shows what
+    was given, in the unit it was given in.  Anything else (samples, a symbol for the name) as echoed."""
+    if not (isinstance(entry, dict) and isinstance(given, Mapping) and isinstance(given.get("unit"), str)
+            and given["unit"] != entry.get("unit") and "samples" not in given and "samples" not in entry):
+        return entry
+    members = ("value", "sigma", "sigma_minus", "sigma_plus")
+    if not all(isinstance(given.get(k), (int, float, str, type(None))) and not isinstance(given.get(k), bool)
+               for k in members) or "value" not in given:
+        return entry
+    out = {k: given[k] for k in members if given.get(k) is not None}
+    if isinstance(out.get("value"), str) != isinstance(entry.get("value"), str):
+        return entry
+    return {**out, "unit": given["unit"]}
+
+
+DOUBLE_DIGITS = 15          # significant decimal digits a double always keeps (DBL_DIG, C99 5.2.4.2.2)
+
+
 def as_given(value: float, sigma: float | None = None, minus: float | None = None,
              plus: float | None = None) -> Printed:
     """An input's numbers as the caller gave them (every digit, never rounded), over one power of ten
@@ -365,7 +390,13 @@ def as_given(value: float, sigma: float | None = None, minus: float | None = Non
     with localcontext(_CONTEXT):
         digits = {k: _decimal(abs(x) if x == 0 else x).normalize().scaleb(-exponent) for k, x in given.items()}
         places = max(max(0, -d.as_tuple().exponent) for d in digits.values())
-        value = digits.pop("value").quantize(Decimal(1).scaleb(-places))
+        own = digits.pop("value")
+        own_places = max(0, -own.as_tuple().exponent)
+        # zeros past a double's 15 significant digits are digits nobody gave (a machine-written
+        # -5.948421176462592 beside a 16-decimal sigma is not -5.9484211764625920)
+        if places > own_places and len(own.as_tuple().digits) + places - own_places > DOUBLE_DIGITS:
+            places = own_places
+        value = own.quantize(Decimal(1).scaleb(-places))
         text = {k: format(d, "f") for k, d in digits.items()}
     return Printed(format(value, "f"), sigma=text.get("sigma"), plus=text.get("plus"), minus=text.get("minus"),
                    exponent=exponent)
@@ -446,12 +477,33 @@ def event_keys(entries: list[dict]) -> list[str]:
     return [k for k in keys if not (k.endswith("_sigma") and k[:-len("_sigma")] in entries[0])]
 
 
-def event_field(entry: Mapping[str, Any], key: str) -> Printed | str:
-    """An event's member as printed: value ± sigma rounded together where its sigma is beside it
-    (``NAME_sigma``, as an SB2's velocity_separation has), else its short text."""
+def event_field(entry: Mapping[str, Any], key: str, unit: str) -> Printed | str:
+    """An event's member as printed: its calendar date to what the date's sigma supports (:func:`iso_shown`,
+    ``unit`` the dates'), value ± sigma rounded together where its sigma is beside it (``NAME_sigma``, as an
+    SB2's velocity_separation has), else its short text."""
+    if key == "iso" and entry.get(key):
+        return iso_shown(entry[key], entry, unit)
     if key + "_sigma" in entry and _finite(entry.get(key)):
         return printed(entry[key], sigma=entry[key + "_sigma"])
     return short_text(entry.get(key))
+
+
+def event_tables(results: Mapping[str, Any], s: Style) -> list[tuple[str, list[str], list[list[str]]]]:
+    """The dated events of an answer's ``results`` as (label, header, rows) tables in style ``s``: each date
+    with its sigma, then the members beside it (:func:`event_keys`, :func:`event_field`) with their units;
+    one writer for the reports, the command line and the client's print."""
+    tables = []
+    for label, unit, entries in event_lists({k: v for k, v in results.items()
+                                             if k != "series" and not is_measured(v)}):
+        keys = event_keys(entries)
+        fields = event_field_units(results, label)
+        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [
+            s.text(k) + (f" [{s.unit(fields[k])}]" if fields.get(k) else "") for k in keys]
+        body = [[s.number(printed(e.get("value"), sigma=e.get("sigma"), digits=12))]
+                + [s.number(f) if isinstance(f, Printed) else s.text(f) for f in (event_field(e, k, unit) for k in keys)]
+                for e in entries]
+        tables.append((label, header, body))
+    return tables
 
 
 def event_lists(members: Mapping[str, Any]) -> list[tuple[str, str, list[dict]]]:
@@ -625,9 +677,11 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.input(key).description
             except KeyError:
                 pass
+        entry = _as_requested(entry, request.get(key) if isinstance(request, Mapping) else None)
         unit = entry.get("unit", "") if isinstance(entry, dict) else ""
         shown_unit = s.unit(unit)
-        if key in dates:                            # a date: say whether the numbers are JD or MJD
+        # a date given as a number: say whether it is a JD or an MJD (an ISO 8601 string says what it is)
+        if key in dates and not (isinstance(entry, dict) and isinstance(entry.get("value"), str)):
             shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
                      shown_unit, s.text(desc)])
@@ -643,7 +697,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.output(key).description
             except KeyError:
                 pass
-        rows.append([s.code(key), _measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
+        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)
@@ -668,20 +722,8 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 body.append(cells)
             doc.table(header, body, "r" * len(header))
 
-    for label, unit, entries in event_lists({k: v for k, v in results.items()
-                                              if k != "series" and not is_measured(v)}):
+    for label, header, body in event_tables(results, s):
         doc.heading(label.replace("_", " ").capitalize())
-        keys = event_keys(entries)
-        fields = event_field_units(results, label)
-        header = ["date" + (f" [{s.unit(unit)}]" if unit else "")] + [
-            s.text(k) + (f" [{s.unit(fields[k])}]" if fields.get(k) else "") for k in keys]
-        body = []
-        for e in entries:
-            v = e.get("value")
-            sig = e.get("sigma")
-            p = printed(v, sigma=sig, digits=12) if _finite(v) else None
-            body.append([s.number(p)] + [s.number(f) if isinstance(f, Printed) else s.text(f)
-                                         for f in (event_field(e, k) for k in keys)])
         doc.table(header, body)
     notes = event_notes(results)
     if notes:
@@ -768,6 +810,24 @@ def _budget_section(doc: _Doc, results: Mapping[str, Any], unc: Mapping[str, Any
         parts.append(", ".join(series_out) + " (series outputs)")
     if parts:
         doc.para(s.text("Uncertainty budget not given for " + "; and for ".join(parts) + "."))
+
+
+def iso_shown(iso: str, entry: Mapping[str, Any], unit: str) -> str:
+    """An event's calendar date to the resolution its sigma supports, as the web form shows it: the day for
+    a sigma of a day or more, the minute for one of a minute or more (to the nearest, not cut), else as given.
+    A date the calendar cannot hold (a leap second's :60) stays as given."""
+    sigma = entry.get("sigma")
+    if not _finite(sigma) and _finite(entry.get("low")) and _finite(entry.get("high")):
+        sigma = (entry["high"] - entry["low"]) / 2
+    if not unit.startswith("d") or not _finite(sigma) or sigma < 1 / 1440:
+        return iso
+    try:
+        t = datetime.fromisoformat(iso.replace("Z", "+00:00"))
+    except ValueError:
+        return iso
+    if sigma >= 1:
+        return (t + timedelta(hours=12)).date().isoformat()
+    return (t + timedelta(seconds=30)).replace(second=0, microsecond=0).isoformat(timespec="minutes")[:16]
 
 
 def short_text(x: Any) -> str:

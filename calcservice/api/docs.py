@@ -75,7 +75,8 @@ def python_call(calc: Calculation, base_url: str) -> str:
     joined = ",\n    ".join(args)
     return ("from calcservice.client import Client\n\n"
             f"answer = Client({base_url.rstrip('/')!r}).calculate(\n    {joined},\n)\n"
-            "print(answer[\"results\"])")
+            "print(answer)                  # value ± sigma per output, as the report rounds it\n"
+            "results = answer[\"results\"]    # every digit, as the service sent it")
 
 
 def _input_row(spec: Input) -> str:
@@ -88,9 +89,10 @@ def _input_row(spec: Input) -> str:
     notes = []
     if spec.kind == "series":
         notes.append("a list")
-    if spec.time:
+    # what the description already says is not said again ("(JD, or ISO 8601); Julian Date or ISO 8601")
+    if spec.time and "ISO 8601" not in spec.description:
         notes.append("Julian Date or ISO 8601")
-    if spec.isotropic:
+    if spec.isotropic and '"isotropic"' not in spec.description:
         notes.append('or <code>"isotropic"</code>')
     if spec.default is not None:
         notes.append(f"default {escape(str(spec.default))}")
@@ -129,7 +131,7 @@ def _section(calc: Calculation, base_url: str) -> str:
         f'<p class="endpoint"><code>POST {escape(calc.path)}</code> · <code>POST /v1/batch/{key}</code></p>',
         f"<p>{escape(calc.summary)}</p>",
         "<h3>Inputs</h3>",
-        '<table class="inputs"><thead><tr><th>name</th><th>default unit</th><th>domain</th><th></th>'
+        '<table class="inputs"><thead><tr><th>name</th><th>default unit</th><th>domain</th><th>needed</th>'
         f"<th>meaning</th></tr></thead><tbody>{inputs}</tbody></table>",
     ]
     if rules:

@@ -553,8 +553,16 @@
     // a null sigma (heavy-tailed Monte Carlo draws): the median and its central 68.27 % interval
     const td = el("td", { class: "value", title: fullPrecision(entry) });
     if (entry.sigma === null && finiteNumber(entry.low) && finiteNumber(entry.high)) {
-      td.append(document.createTextNode(exact(entry.value, 4) + " "),
-        el("span", { class: "interval", text: `(68.27 % interval ${exact(entry.low, 4)} … ${exact(entry.high, 4)}; sigma undefined)` }));
+      // the median and the ends at the decimal place the shorter half-width gives by the PDG rule, as the
+      // report prints them (4.5 (… 3.0 … 18.7), not 4.519 (… 2.981 … 18.69))
+      const [v, low, high] = [entry.value, entry.low, entry.high];
+      const halves = [v - low, high - v].filter((h) => h > 0);
+      const place = halves.length ? pdgPlace(Math.min(...halves)) : null;
+      const shift = exponentFor(Math.max(Math.abs(v), Math.abs(low), Math.abs(high)));
+      const at = (x) => (place === null ? exact(x, 4) : atPlace(x, place, shift));
+      const times = place !== null && shift ? ` × 10${superscript(shift)}` : "";
+      td.append(document.createTextNode(at(v) + times + " "),
+        el("span", { class: "interval", text: `(68.27 % interval ${at(low)} … ${at(high)}${times}; sigma undefined)` }));
       td.dataset.interval = "true";
     } else td.textContent = measured(entry);
     return td;
@@ -1248,7 +1256,15 @@
     $("catalogue-compute").disabled = true;
     $("catalogue-download").disabled = true;
     if (!keepFile) $("catalogue-file").value = "";
-    $("catalogue-status").textContent = state.calc ? `Columns the file may have for ${state.calc.name}: ${state.calc.inputs.map((i) => i.name).join(", ")} (and their sigma columns).` : "";
+    // a calculation over a list (an ephemeris' times, a forecast's shells) answers a series per system,
+    // which no CSV or ECSV cell can hold (the service's 406): said before a file is chosen, not after
+    const lists = state.calc ? state.calc.inputs.filter((i) => i.kind === "series").map((i) => i.name) : [];
+    $("catalogue-file").disabled = lists.length > 0;
+    $("catalogue-status").textContent = !state.calc ? "" : lists.length
+      ? `${state.calc.name} answers a series for each system (over its ${lists.join(", ")}), which a CSV or ECSV ` +
+        `table cannot hold: send its catalogue to POST v1/batch/${state.calc.name} as JSON or Apache Arrow ` +
+        "(the Python client's batch does), or compute one system at a time above."
+      : `Columns the file may have for ${state.calc.name}: ${state.calc.inputs.map((i) => i.name).join(", ")} (and their sigma columns).`;
   }
 
   function systems(n) { return `${n} system${n === 1 ? "" : "s"}`; }
@@ -1269,6 +1285,7 @@
 
   async function readCatalogue(file) {
     resetCatalogue(true);
+    if ($("catalogue-file").disabled) return;          // a file dropped where no table can carry the answer
     const text = await file.text();
     const table = parseTable(text);
     if (table.error) {
@@ -1469,6 +1486,11 @@
   }
 
   // ------------------------------------------------------------------ example and wiring
+  // an example's number as an astronomer writes it: 2.4e-5 rather than JavaScript's 0.000024
+  function exampleText(x) {
+    return typeof x === "number" && x !== 0 && Math.abs(x) < 1e-3 ? x.toExponential() : String(x);
+  }
+
   function fillExample() {
     const calc = state.calc;
     buildForm(calc);
@@ -1490,12 +1512,12 @@
       if (!input) continue;
       if (Array.isArray(v)) input.value = v.join(", ");
       else if (v && typeof v === "object") {
-        input.value = v.value !== undefined ? String(v.value) : "";
+        input.value = v.value !== undefined ? exampleText(v.value) : "";
         const sig = $(`sigma-${name}`), unit = $(`unit-${name}`);
-        if (sig && v.sigma !== undefined) sig.value = String(v.sigma);
-        if (sig && v.sigma_plus !== undefined) sig.value = `+${v.sigma_plus} -${v.sigma_minus}`;
+        if (sig && v.sigma !== undefined) sig.value = exampleText(v.sigma);
+        if (sig && v.sigma_plus !== undefined) sig.value = `+${exampleText(v.sigma_plus)} -${exampleText(v.sigma_minus)}`;
         if (unit && v.unit) unit.value = v.unit;
-      } else input.value = String(v);
+      } else input.value = exampleText(v);
     }
     $("status").textContent = "Example filled in (a fictional system). Press Compute.";
   }
