@@ -763,12 +763,46 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     return given, f0, terms, one_sided, curvature, crosses
 
 
+def _ordered_sum(parts) -> np.ndarray:
+    """The sum of the arrays ``parts`` added one after another, in their order.
+
+    numpy's reductions (``sum`` over an axis, ``einsum``) add in an order that depends on the
+    array's shape and strides: pairwise in blocks of 8 along a contiguous axis, one by one along a
+    strided one, so a system's sigma alone (n = 1) and in a batch differed in its last bits once a
+    calculation had 8 or more uncertain inputs.  A loop over the inputs (never over systems) keeps
+    one order whatever n is."""
+    parts = iter(parts)
+    total = np.array(next(parts), dtype=float, copy=True)
+    for part in parts:
+        total += part
+    return total
+
+
+def _correlated(terms: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """The terms t (outputs, m, n) + trail times the inputs' correlation R: (t R)_k = sum_j t_j R_jk,
+    summed over j in order (:func:`_ordered_sum`)."""
+    m = terms.shape[1]
+    return np.stack([_ordered_sum(terms[:, j] * r[j, k] for j in range(m)) for k in range(m)], axis=1)
+
+
 def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
-    """sigma_f^2 = t R t^T over the inputs' first-order terms t (outputs, m, n) + trail."""
+    """sigma_f^2 = t R t^T over the inputs' first-order terms t (outputs, m, n) + trail, summed in the
+    order of the inputs whatever n is, so that a system gets the same sigma alone or in a batch."""
+    m = terms.shape[1]
     if r is None:
-        # summed in the order of the inputs whatever n is, so a system gets the same sigma alone or in a batch
-        return (terms * terms).sum(axis=1)
-    return np.maximum(np.einsum("ojn...,jk,okn...->on...", terms, r, terms), 0.0)
+        return _ordered_sum(terms[:, j] * terms[:, j] for j in range(m))
+    tr = _correlated(terms, r)
+    return np.maximum(_ordered_sum(terms[:, k] * tr[:, k] for k in range(m)), 0.0)
+
+
+def _output_covariance(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
+    """The outputs' covariance J C J^T (n, outputs, outputs) from the terms t (outputs, m, n), summed
+    over the inputs in their order (:func:`_ordered_sum`), as each sigma is by :func:`_quadratic`."""
+    m = terms.shape[1]
+    if not m:
+        return np.zeros((terms.shape[2], terms.shape[0], terms.shape[0]))
+    tr = terms if r is None else _correlated(terms, r)
+    return _ordered_sum(terms[:, j].T[:, :, None] * tr[:, j].T[:, None, :] for j in range(m))
 
 
 def _linear(calc, quantities, statics, options, n, trail) -> Result:
@@ -837,9 +871,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
             if undefined[k].any():
                 warnings.append(_not_linear(name, undefined[k]))
         if options.covariance and not trail:         # over scalar outputs only: a series has no single value
-            cov = (np.einsum("ojn,pjn->nop", terms, terms) if r is None
-                   else np.einsum("ojn,jk,pkn->nop", terms, r, terms))                # (n, outputs, outputs)
-            result.correlation = _correlation(list(given), cov)
+            result.correlation = _correlation(list(given), _output_covariance(terms, r))   # (n, outputs, outputs)
         if options.budget:
             result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
 
