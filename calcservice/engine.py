@@ -780,9 +780,10 @@ def _ordered_sum(parts) -> np.ndarray:
 
 def _correlated(terms: np.ndarray, r: np.ndarray) -> np.ndarray:
     """The terms t (outputs, m, n) + trail times the inputs' correlation R: (t R)_k = sum_j t_j R_jk,
-    summed over j in order (:func:`_ordered_sum`)."""
+    summed over j in order (:func:`_ordered_sum`), over the pairs that are correlated (R_kk = 1 among them)."""
     m = terms.shape[1]
-    return np.stack([_ordered_sum(terms[:, j] * r[j, k] for j in range(m)) for k in range(m)], axis=1)
+    return np.stack([_ordered_sum(terms[:, j] * r[j, k] for j in range(m) if r[j, k] != 0) for k in range(m)],
+                    axis=1)
 
 
 def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
