@@ -461,3 +461,26 @@ def test_visual_output_correlation_and_budget_against_uncertainties():
         assert set(got["budget"]) == set(want)
         for term, share in want.items():
             assert got["budget"][term] == pytest.approx(share, abs=1e-9), (name, term)
+
+
+def test_a_systems_warning_codes_in_a_table_come_in_its_single_requests_order(client):
+    # Three systems of the orbital-parallax example with an output unit the inputs do not determine (unit_unused),
+    # the third with asymmetric errors (asymmetric_linearised, which the engine gives first): the third system's
+    # cell read 'unit_unused;asymmetric_linearised', the order of the first group's warnings, where its single
+    # request says asymmetric_linearised, then unit_unused.
+    calc = calculations()["orbital-parallax"]
+    options = {"units": {"photocentre_semimajor_axis_au": "km"}}
+    systems = [copy.deepcopy(calc.example) for _ in range(3)]
+    systems[2]["k1"] = {"value": 24.6, "sigma_minus": 0.2, "sigma_plus": 0.4}
+    codes = [[w["code"] for w in compute("orbital-parallax", {**body, **options})["warnings"]] for body in systems]
+    assert codes[2] == ["asymmetric_linearised", "unit_unused"]        # the reference order, as the engine gives it
+    columns = {name: {"value": [b[name]["value"] for b in systems],
+                      "sigma_minus": [b[name].get("sigma_minus", b[name].get("sigma")) for b in systems],
+                      "sigma_plus": [b[name].get("sigma_plus", b[name].get("sigma")) for b in systems]}
+               for name in systems[0]}
+    for media_type in (ARROW, CSV, ECSV):
+        r = client.post("/v1/batch/orbital-parallax", json={"columns": columns, **options},
+                        headers={"Accept": media_type})
+        assert r.status_code == 200
+        cells = _table_answer(r.data, media_type)["warnings"]
+        assert [str(cell).split(";") for cell in cells] == codes, media_type
