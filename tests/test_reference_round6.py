@@ -484,3 +484,19 @@ def test_a_systems_warning_codes_in_a_table_come_in_its_single_requests_order(cl
         assert r.status_code == 200
         cells = _table_answer(r.data, media_type)["warnings"]
         assert [str(cell).split(";") for cell in cells] == codes, media_type
+
+
+def test_a_jeans_mode_mass_loss_rate_in_grams_per_second_by_hand():
+    # Jeans-mode (fast isotropic wind) mass loss: Pdot / P = 2 Mdot / (M1 + M2) (Huang 1963, from memory), so
+    # Mdot = (M1 + M2) Pdot / (2 P); in g/s and the relative rate in 1/s by astropy (IAU 2015 B3 solar mass with
+    # CODATA G, Julian year).
+    period, pdot, m1, m2 = 6.3, 0.21, 27.0, 11.0
+    r = compute("mass-loss-period-change", {"period": period, "period_derivative": {"value": pdot, "sigma": 0.04},
+                                            "m1": m1, "m2": m2, "mode": "jeans",
+                                            "units": {"mass_loss_rate": "g/s", "relative_period_derivative": "1/s"}})
+    relative = pdot / (period * DAY) / u.yr                                   # (s/yr) / s
+    mdot = ((m1 + m2) / 2 * relative * u.solMass).to_value(u.g / u.s)
+    assert r["results"]["mass_loss_rate"]["value"] == pytest.approx(mdot, rel=1e-15)
+    # the linear sigma by central differences, to their rounding (~1e-10)
+    assert r["results"]["mass_loss_rate"]["sigma"] == pytest.approx(mdot * 0.04 / pdot, rel=1e-9)
+    assert r["results"]["relative_period_derivative"]["value"] == pytest.approx(relative.to_value(1 / u.s), rel=1e-15)
