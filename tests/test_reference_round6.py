@@ -21,7 +21,7 @@ from scipy.special import ndtr, ndtri
 from uncertainties import correlated_values, correlation_matrix, ufloat, umath
 
 from calcservice import create_app
-from calcservice.core import compute, compute_batch
+from calcservice.core import Problem, compute, compute_batch
 from calcservice.registry import calculations
 
 GM_SUN = const.GM_sun.si.value      # IAU 2015 Resolution B3 nominal GM_sun, m^3 s^-2 (astropy.constants)
@@ -500,3 +500,31 @@ def test_a_jeans_mode_mass_loss_rate_in_grams_per_second_by_hand():
     # the linear sigma by central differences, to their rounding (~1e-10)
     assert r["results"]["mass_loss_rate"]["sigma"] == pytest.approx(mdot * 0.04 / pdot, rel=1e-9)
     assert r["results"]["relative_period_derivative"]["value"] == pytest.approx(relative.to_value(1 / u.s), rel=1e-15)
+
+
+@pytest.mark.parametrize("shape", ["systems", "columns"])
+def test_an_output_unit_one_systems_answer_cannot_hold_fails_that_system_in_place(shape):
+    # Asked in '1e300 solMass', a mass function of 4.7e-2 solMass is 4.7e-302 of the unit (a normal double) and one
+    # of ~1e-11 solMass would be ~1e-311, below the smallest normal double (2.2e-308, IEEE 754 binary64): alone, that
+    # system is a 422 naming units.mass_function and the other is answered.  In a batch the whole request was the
+    # 422; each system must get its single request's answer, the second an error in place.
+    units = {"units": {"mass_function": "1e300 solMass"}}
+    systems = [{"period": 41.6, "k1": {"value": 23.4, "sigma": 0.3}, "eccentricity": 0.31},
+               {"period": 1.0, "k1": {"value": 1e-4, "sigma": 1e-5}, "eccentricity": 0.31}]
+    first = compute("sb1", {**systems[0], **units})["results"]["mass_function"]
+    f_solar = 41.6 * DAY * 23.4e3 ** 3 * (1 - 0.31 ** 2) ** 1.5 / (2 * math.pi * GM_SUN)    # Hilditch (2001), ch. 2
+    assert first["value"] == pytest.approx(f_solar * 1e-300, rel=1e-14)
+    with pytest.raises(Problem) as refused:
+        compute("sb1", {**systems[1], **units})
+    assert refused.value.status == 422 and list(refused.value.errors) == ["units.mass_function"]
+    if shape == "systems":
+        answer = compute_batch("sb1", {"systems": systems, **units})["results"]
+        assert answer[0]["results"]["mass_function"] == first
+        assert answer[1]["error"] == refused.value.as_dict()
+    else:
+        answer = compute_batch("sb1", {"columns": {"period": [41.6, 1.0],
+                                                   "k1": {"value": [23.4, 1e-4], "sigma": [0.3, 1e-5]},
+                                                   "eccentricity": [0.31, 0.31]}, **units})
+        assert answer["columns"]["mass_function"]["value"] == [first["value"], None]
+        assert answer["columns"]["mass_function"]["sigma"] == [first["sigma"], None]
+        assert answer["errors"] == [{"index": 1, **refused.value.as_dict()}]
