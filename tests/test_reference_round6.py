@@ -528,3 +528,21 @@ def test_an_output_unit_one_systems_answer_cannot_hold_fails_that_system_in_plac
         assert answer["columns"]["mass_function"]["value"] == [first["value"], None]
         assert answer["columns"]["mass_function"]["sigma"] == [first["sigma"], None]
         assert answer["errors"] == [{"index": 1, **refused.value.as_dict()}]
+
+
+def test_an_apastron_is_half_a_cycle_exactly():
+    # nu = pi is E = pi and M = pi for every eccentricity (Kepler's equation M = E - e sin E): apastron n falls
+    # n + 1/2 cycles after t_periastron, T0 + P (n + 1/2) (Murray & Dermott 1999, eq. 2.52).  The cycle came out as
+    # 1.4999999999999998 (cos(pi/2) = 6e-17 in E), and the date's sigma a few ulp off the hand formula
+    # sigma^2 = sigma_T0^2 + (c sigma_P)^2 + 2 c rho sigma_T0 sigma_P (c = 1.5 cycles; 50-digit mpmath:
+    # 1.651665825765006254947...).
+    from calcservice.registry import get
+    body = copy.deepcopy(get("ephemeris").example)            # P = 2037.4 +- 1.2, T0 +- 0.8, rho(P, T0) = -0.4
+    events = compute("ephemeris", body)["results"]["events"]["apastron"]
+    assert [e["cycle"] for e in events] == [1.5, 2.5]
+    assert events[0]["value"] == 2458712.3 + 1.5 * 2037.4
+    import mpmath as mp
+    with mp.workdps(50):
+        c, st, sp, rho = mp.mpf(1.5), mp.mpf("0.8"), mp.mpf("1.2"), mp.mpf("-0.4")
+        sigma = float(mp.sqrt(st ** 2 + (c * sp) ** 2 + 2 * c * rho * st * sp))
+    assert abs(events[0]["sigma"] - sigma) <= np.spacing(sigma)          # within one rounding
