@@ -763,47 +763,60 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     return given, f0, terms, one_sided, curvature, crosses
 
 
-def _ordered_sum(parts) -> np.ndarray:
-    """The sum of the arrays ``parts`` added one after another, in their order.
+def _ordered_sum(parts: np.ndarray) -> np.ndarray:
+    """The sum of ``parts`` over its first axis, added one after another in their order.
 
     numpy's reductions (``sum`` over an axis, ``einsum``) add in an order that depends on the
     array's shape and strides: pairwise in blocks of 8 along a contiguous axis, one by one along a
     strided one, so a system's sigma alone (n = 1) and in a batch differed in its last bits once a
     calculation had 8 or more uncertain inputs.  A loop over the inputs (never over systems) keeps
-    one order whatever n is."""
-    parts = iter(parts)
-    total = np.array(next(parts), dtype=float, copy=True)
-    for part in parts:
+    one order whatever n is; each addition is elementwise, so exact to rounding whatever the layout."""
+    if not len(parts):
+        return np.zeros(parts.shape[1:])
+    total = np.array(parts[0], dtype=float, copy=True)
+    for part in parts[1:]:
         total += part
     return total
 
 
-def _correlated(terms: np.ndarray, r: np.ndarray) -> np.ndarray:
-    """The terms t (outputs, m, n) + trail times the inputs' correlation R: (t R)_k = sum_j t_j R_jk,
-    summed over j in order (:func:`_ordered_sum`), over the pairs that are correlated (R_kk = 1 among them)."""
-    m = terms.shape[1]
-    return np.stack([_ordered_sum(terms[:, j] * r[j, k] for j in range(m) if r[j, k] != 0) for k in range(m)],
-                    axis=1)
+def _pairs(r: np.ndarray | None) -> list[tuple[int, int, float]]:
+    """The correlated pairs (j < k) of the inputs' correlation matrix, in order, with their rho."""
+    if r is None:
+        return []
+    return [(j, k, float(r[j, k])) for j in range(len(r)) for k in range(j + 1, len(r)) if r[j, k] != 0]
 
 
 def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
-    """sigma_f^2 = t R t^T over the inputs' first-order terms t (outputs, m, n) + trail, summed in the
-    order of the inputs whatever n is, so that a system gets the same sigma alone or in a batch."""
-    m = terms.shape[1]
-    if r is None:
-        return _ordered_sum(terms[:, j] * terms[:, j] for j in range(m))
-    tr = _correlated(terms, r)
-    return np.maximum(_ordered_sum(terms[:, k] * tr[:, k] for k in range(m)), 0.0)
+    """sigma_f^2 = t R t^T = sum_j t_j^2 + sum_{j<k} 2 rho_jk t_j t_k over the inputs' first-order terms
+    t (outputs, m, n) + trail, summed in the order of the inputs whatever n is (:func:`_ordered_sum`),
+    so that a system gets the same sigma alone or in a batch."""
+    var = _ordered_sum(np.moveaxis(terms * terms, 1, 0))
+    pairs = _pairs(r)
+    for j, k, rho in pairs:
+        product = terms[:, j] * terms[:, k]
+        var += rho * (product + product)
+    return np.maximum(var, 0.0) if pairs else var
 
 
 def _output_covariance(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
-    """The outputs' covariance J C J^T (n, outputs, outputs) from the terms t (outputs, m, n), summed
-    over the inputs in their order (:func:`_ordered_sum`), as each sigma is by :func:`_quadratic`."""
-    m = terms.shape[1]
+    """The outputs' covariance J C J^T (n, outputs, outputs) from the terms t (outputs, m, n): the
+    products t_j t_j^T, then the correlated pairs' rho_jk (t_j t_k^T + t_k t_j^T), added in order as
+    each sigma is by :func:`_quadratic` (the diagonal is its variance, bit for bit).  Built a row of
+    outputs at a time, which keeps the working arrays (n, outputs) small."""
+    t = np.ascontiguousarray(np.moveaxis(terms, (1, 2), (0, 1)))                    # (m, n, outputs)
+    m, n, k = t.shape
     if not m:
-        return np.zeros((terms.shape[2], terms.shape[0], terms.shape[0]))
-    tr = terms if r is None else _correlated(terms, r)
-    return _ordered_sum(terms[:, j].T[:, :, None] * tr[:, j].T[:, None, :] for j in range(m))
+        return np.zeros((n, k, k))
+    pairs = _pairs(r)
+    cov = np.empty((n, k, k))
+    for o in range(k):
+        row = t[0] * t[0][:, o:o + 1]
+        for j in range(1, m):
+            row += t[j] * t[j][:, o:o + 1]
+        for j, i, rho in pairs:
+            row += rho * (t[j] * t[i][:, o:o + 1] + t[i] * t[j][:, o:o + 1])
+        cov[:, o, :] = row
+    return cov
 
 
 def _linear(calc, quantities, statics, options, n, trail) -> Result:
