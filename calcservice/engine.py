@@ -1242,7 +1242,7 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
     draws, seed = _draw(calc, quantities, options, n, s)
     ys, valid = _run(calc, quantities, draws, statics, n, s, trail)
     nvalid = valid.sum(axis=1)
-    rejected = 1.0 - nvalid / s
+    rejected = (s - nvalid) / s          # a count over the draws, one rounding: 33 of 500 is 0.066 (1 - 0.934 is not)
 
     result = Result(outputs={}, method="monte_carlo", samples=s, seed=seed, rejected_fraction=rejected)
     if options.samples_asked and s != options.samples and any(q.samples is not None for q in quantities.values()):

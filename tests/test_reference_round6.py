@@ -546,3 +546,17 @@ def test_an_apastron_is_half_a_cycle_exactly():
         c, st, sp, rho = mp.mpf(1.5), mp.mpf("0.8"), mp.mpf("1.2"), mp.mpf("-0.4")
         sigma = float(mp.sqrt(st ** 2 + (c * sp) ** 2 + 2 * c * rho * st * sp))
     assert abs(events[0]["sigma"] - sigma) <= np.spacing(sigma)          # within one rounding
+
+
+def test_the_rejected_fraction_is_the_count_of_draws_left_out_over_the_draws():
+    # Draws of e = 0.01 +- 0.02 below 0 leave the domain 0 <= e < 1 and are rejected: the fraction is their count
+    # over the 500 draws (numpy on the documented draws: the second standard normal of each draw, k1's first).
+    # 1 - kept / 500 gave 0.28800000000000003 and 0.06599999999999995 for 144 and 33 of 500.
+    draws, seed = 500, 4
+    for e in (0.01, 0.03):
+        answer = compute("sb2", {"period": 41.6, "k1": {"value": 38.2, "sigma": 0.4}, "k2": 51.7,
+                                 "eccentricity": {"value": e, "sigma": 0.02},
+                                 "uncertainty": {"method": "monte_carlo", "samples": draws, "seed": seed}})
+        z = np.random.default_rng(seed).standard_normal((draws, 2))
+        left_out = int(np.count_nonzero(e + 0.02 * z[:, 1] < 0))
+        assert answer["uncertainty"]["rejected_fraction"] == left_out / draws, (e, left_out)
