@@ -1095,19 +1095,27 @@ def split_normal_within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: 
 
 
 def quantiles(y: np.ndarray, valid: np.ndarray, qs) -> list[np.ndarray]:
-    """Linear-interpolation quantiles along axis 1 over the valid draws only."""
+    """Linear-interpolation quantiles along axis 1 over the valid draws only, with numpy's arithmetic to
+    the last bit: ``np.percentile``'s default (Hyndman & Fan 1996, method 7: position q (n - 1), and the
+    interpolation a + (b - a) t written b - (b - a)(1 - t) from t = 1/2 on), and for q = 1/2 ``np.median``'s
+    mean of the two middle draws of an even count, so that a caller's numpy on the same draws gives the
+    same numbers."""
     ys = np.sort(np.where(valid.reshape(valid.shape + (1,) * (y.ndim - 2)), y, np.nan), axis=1)
     count = valid.sum(axis=1).reshape((-1, 1) + (1,) * (y.ndim - 2))
     res = []
     for q in qs:
-        pos = q * np.maximum(count - 1, 0)
+        pos = np.maximum(count - 1, 0) * q
         lo = np.floor(pos).astype(np.intp)
         hi = np.minimum(lo + 1, np.maximum(count - 1, 0)).astype(np.intp)
-        frac = pos - lo
+        t = pos - lo
         a = np.take_along_axis(ys, lo, axis=1)
         b = np.take_along_axis(ys, hi, axis=1)
-        v = (a + (b - a) * frac)[:, 0]
-        res.append(np.where(count[:, 0] > 0, v, np.nan))
+        with np.errstate(over="ignore", invalid="ignore"):
+            v = np.where(t >= 0.5, b - (b - a) * (1 - t), a + (b - a) * t)
+            if q == 0.5:
+                middle = (a + b) / 2
+                v = np.where((t == 0.5) & np.isfinite(middle), middle, v)
+        res.append(np.where(count[:, 0] > 0, v[:, 0], np.nan))
     return res
 
 

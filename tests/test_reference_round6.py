@@ -560,3 +560,17 @@ def test_the_rejected_fraction_is_the_count_of_draws_left_out_over_the_draws():
         z = np.random.default_rng(seed).standard_normal((draws, 2))
         left_out = int(np.count_nonzero(e + 0.02 * z[:, 1] < 0))
         assert answer["uncertainty"]["rejected_fraction"] == left_out / draws, (e, left_out)
+
+
+@pytest.mark.parametrize("seed", [316, 882])
+def test_the_median_and_interval_of_draws_are_numpys_to_the_last_bit(seed):
+    # A visual orbit's parallax given as the user's own draws comes back as its own output: its median and
+    # 68.27 % interval are np.median and np.percentile (linear, Hyndman & Fan 1996 method 7) of the draws.  numpy
+    # interpolates as b - (b - a)(1 - t) from t = 1/2 on; a + (b - a) t put the 15.87th percentile of these
+    # lognormal draws one rounding off numpy's.
+    draws = np.exp(2.0 * np.random.default_rng(seed).standard_normal(200))
+    answer = compute("visual", {"period": 7305.0, "angular_semimajor_axis": 412.0, "parallax": {"samples": list(draws)}})
+    got = answer["results"]["parallax"]
+    assert got["value"] == np.median(draws)
+    assert got["low"] == np.percentile(draws, 100 * ndtr(-1.0))
+    assert got["high"] == np.percentile(draws, 100 * ndtr(1.0))
