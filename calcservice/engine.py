@@ -763,12 +763,60 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     return given, f0, terms, one_sided, curvature, crosses
 
 
-def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
-    """sigma_f^2 = t R t^T over the inputs' first-order terms t (outputs, m, n) + trail."""
+def _ordered_sum(parts: np.ndarray) -> np.ndarray:
+    """The sum of ``parts`` over its first axis, added one after another in their order.
+
+    numpy's reductions (``sum`` over an axis, ``einsum``) add in an order that depends on the
+    array's shape and strides: pairwise in blocks of 8 along a contiguous axis, one by one along a
+    strided one, so a system's sigma alone (n = 1) and in a batch differed in its last bits once a
+    calculation had 8 or more uncertain inputs.  A loop over the inputs (never over systems) keeps
+    one order whatever n is; each addition is elementwise, so exact to rounding whatever the layout."""
+    if not len(parts):
+        return np.zeros(parts.shape[1:])
+    total = np.array(parts[0], dtype=float, copy=True)
+    for part in parts[1:]:
+        total += part
+    return total
+
+
+def _pairs(r: np.ndarray | None) -> list[tuple[int, int, float]]:
+    """The correlated pairs (j < k) of the inputs' correlation matrix, in order, with their rho."""
     if r is None:
-        # summed in the order of the inputs whatever n is, so a system gets the same sigma alone or in a batch
-        return (terms * terms).sum(axis=1)
-    return np.maximum(np.einsum("ojn...,jk,okn...->on...", terms, r, terms), 0.0)
+        return []
+    return [(j, k, float(r[j, k])) for j in range(len(r)) for k in range(j + 1, len(r)) if r[j, k] != 0]
+
+
+def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
+    """sigma_f^2 = t R t^T = sum_j t_j^2 + sum_{j<k} 2 rho_jk t_j t_k over the inputs' first-order terms
+    t (outputs, m, n) + trail, summed in the order of the inputs whatever n is (:func:`_ordered_sum`),
+    so that a system gets the same sigma alone or in a batch."""
+    var = _ordered_sum(np.moveaxis(terms * terms, 1, 0))
+    pairs = _pairs(r)
+    for j, k, rho in pairs:
+        product = terms[:, j] * terms[:, k]
+        var += rho * (product + product)
+    return np.maximum(var, 0.0) if pairs else var
+
+
+def _output_covariance(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
+    """The outputs' covariance J C J^T (n, outputs, outputs) from the terms t (outputs, m, n): the
+    products t_j t_j^T, then the correlated pairs' rho_jk (t_j t_k^T + t_k t_j^T), added in order as
+    each sigma is by :func:`_quadratic` (the diagonal is its variance, bit for bit).  Built a row of
+    outputs at a time, which keeps the working arrays (n, outputs) small."""
+    t = np.ascontiguousarray(np.moveaxis(terms, (1, 2), (0, 1)))                    # (m, n, outputs)
+    m, n, k = t.shape
+    if not m:
+        return np.zeros((n, k, k))
+    pairs = _pairs(r)
+    cov = np.empty((n, k, k))
+    for o in range(k):
+        row = t[0] * t[0][:, o:o + 1]
+        for j in range(1, m):
+            row += t[j] * t[j][:, o:o + 1]
+        for j, i, rho in pairs:
+            row += rho * (t[j] * t[i][:, o:o + 1] + t[i] * t[j][:, o:o + 1])
+        cov[:, o, :] = row
+    return cov
 
 
 def _linear(calc, quantities, statics, options, n, trail) -> Result:
@@ -837,9 +885,7 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
             if undefined[k].any():
                 warnings.append(_not_linear(name, undefined[k]))
         if options.covariance and not trail:         # over scalar outputs only: a series has no single value
-            cov = (np.einsum("ojn,pjn->nop", terms, terms) if r is None
-                   else np.einsum("ojn,jk,pkn->nop", terms, r, terms))                # (n, outputs, outputs)
-            result.correlation = _correlation(list(given), cov)
+            result.correlation = _correlation(list(given), _output_covariance(terms, r))   # (n, outputs, outputs)
         if options.budget:
             result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
 
@@ -1049,19 +1095,27 @@ def split_normal_within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: 
 
 
 def quantiles(y: np.ndarray, valid: np.ndarray, qs) -> list[np.ndarray]:
-    """Linear-interpolation quantiles along axis 1 over the valid draws only."""
+    """Linear-interpolation quantiles along axis 1 over the valid draws only, with numpy's arithmetic to
+    the last bit: ``np.percentile``'s default (Hyndman & Fan 1996, method 7: position q (n - 1), and the
+    interpolation a + (b - a) t written b - (b - a)(1 - t) from t = 1/2 on), and for q = 1/2 ``np.median``'s
+    mean of the two middle draws of an even count, so that a caller's numpy on the same draws gives the
+    same numbers."""
     ys = np.sort(np.where(valid.reshape(valid.shape + (1,) * (y.ndim - 2)), y, np.nan), axis=1)
     count = valid.sum(axis=1).reshape((-1, 1) + (1,) * (y.ndim - 2))
     res = []
     for q in qs:
-        pos = q * np.maximum(count - 1, 0)
+        pos = np.maximum(count - 1, 0) * q
         lo = np.floor(pos).astype(np.intp)
         hi = np.minimum(lo + 1, np.maximum(count - 1, 0)).astype(np.intp)
-        frac = pos - lo
+        t = pos - lo
         a = np.take_along_axis(ys, lo, axis=1)
         b = np.take_along_axis(ys, hi, axis=1)
-        v = (a + (b - a) * frac)[:, 0]
-        res.append(np.where(count[:, 0] > 0, v, np.nan))
+        with np.errstate(over="ignore", invalid="ignore"):
+            v = np.where(t >= 0.5, b - (b - a) * (1 - t), a + (b - a) * t)
+            if q == 0.5:
+                middle = (a + b) / 2
+                v = np.where((t == 0.5) & np.isfinite(middle), middle, v)
+        res.append(np.where(count[:, 0] > 0, v[:, 0], np.nan))
     return res
 
 
@@ -1196,7 +1250,7 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
     draws, seed = _draw(calc, quantities, options, n, s)
     ys, valid = _run(calc, quantities, draws, statics, n, s, trail)
     nvalid = valid.sum(axis=1)
-    rejected = 1.0 - nvalid / s
+    rejected = (s - nvalid) / s          # a count over the draws, one rounding: 33 of 500 is 0.066 (1 - 0.934 is not)
 
     result = Result(outputs={}, method="monte_carlo", samples=s, seed=seed, rejected_fraction=rejected)
     if options.samples_asked and s != options.samples and any(q.samples is not None for q in quantities.values()):

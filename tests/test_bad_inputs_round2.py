@@ -160,12 +160,23 @@ BIG_SB1 = {"period": 1e6, "k1": 2.0e5, "eccentricity": 0.31}       # a1 sin i of
 @pytest.mark.parametrize("path, body", [
     (SB1, {**GOOD, "units": {"a1_sin_i": "1e-320 au"}}),     # au in it is 1e320: the answer's factor was inf (a 500)
     (SB1, {**BIG_SB1, "units": {"a1_sin_i": "1e-308 au"}}),  # a finite answer beyond a double there: was a bare null
-    ("/v1/batch/sb1", {"systems": [GOOD, BIG_SB1], "units": {"a1_sin_i": "1e-308 au"}}),
-    ("/v1/batch/sb1", {"columns": {"period": [41.6, 1e6], "k1": [23.4, 2e5], "eccentricity": 0.31},
-                       "units": {"a1_sin_i": "1e-308 au"}}),
 ])
 def test_an_output_unit_the_answer_cannot_be_written_in_is_refused_naming_it(client, path, body):
     assert "units.a1_sin_i" in problem(client.post(path, json=body), 422)["errors"]
+
+
+@pytest.mark.parametrize("body", [
+    {"systems": [GOOD, BIG_SB1], "units": {"a1_sin_i": "1e-308 au"}},
+    {"columns": {"period": [41.6, 1e6], "k1": [23.4, 2e5], "eccentricity": 0.31}, "units": {"a1_sin_i": "1e-308 au"}},
+])
+def test_in_a_batch_the_system_an_output_unit_cannot_hold_is_its_error_in_place(client, body):
+    # the unit holds GOOD's answer, as its single request shows: only BIG_SB1's system is refused
+    r = client.post("/v1/batch/sb1", json=body)
+    assert r.status_code == 200, r.get_data()[:300]
+    got = r.get_json()
+    errors = [row.get("error") for row in got["results"]] if "results" in got else \
+        [next((e for e in got["errors"] if e["index"] == i), None) for i in range(2)]
+    assert errors[0] is None and "units.a1_sin_i" in errors[1]["errors"]
 
 
 def test_a_series_in_a_unit_beyond_a_double_is_refused_naming_it(client):

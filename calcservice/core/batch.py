@@ -921,6 +921,7 @@ def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_ar
 
     extras: dict[str, list] = {key: [None] * n for key in expected if key not in outputs}
     warned: dict[tuple[str, str, str | None], np.ndarray] = {}
+    order: list[tuple[str, str, str | None]] = []          # the warnings in each group's own order
     seeds, samples = set(), set()
     rejected = np.full(n, np.nan)
     for g in ok:
@@ -932,11 +933,14 @@ def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_ar
                 if i not in done.problems and k < len(per_system):
                     for key, v in per_system[k].items():
                         extras.setdefault(key, [None] * n)[i] = v
+        keys = []
         for w in g.result.warnings:
             hit = rows[warning_mask(w, len(rows))]
             hit = hit[~failed[hit]]
             if len(hit):
-                warned.setdefault((w.code, w.message, w.subject), np.zeros(n, dtype=bool))[hit] = True
+                keys.append((w.code, w.message, w.subject))
+                warned.setdefault(keys[-1], np.zeros(n, dtype=bool))[hit] = True
+        _keep_order(order, keys)
         if g.result.method == "monte_carlo":
             seeds.add(g.result.seed)
             samples.add(g.result.samples)
@@ -970,7 +974,7 @@ def columns_answer(calc: Calculation, done: Evaluated, limits: Limits, series_ar
         "errors": [{"index": i, **done.problems[i].as_dict()} for i in sorted(done.problems)],
         "uncertainty": uncertainty,
         "warnings": [_columns_warning(code, message, subject, np.flatnonzero(rows).tolist())
-                     for (code, message, subject), rows in warned.items()],
+                     for (code, message, subject), rows in ((key, warned[key]) for key in order)],
         "provenance": provenance(calc),
     }
     if any(g.result.correlation is not None for g in ok):
@@ -1008,6 +1012,17 @@ def _columns_budget(ok: list, n: int, failed: np.ndarray) -> dict:
         for shares in terms.values():
             shares[failed] = np.nan
     return budget
+
+
+def _keep_order(order: list, keys: list) -> None:
+    """Put into ``order`` each of ``keys`` (one engine group's warnings, in the order a single request gives
+    them) it lacks, before the first of those that follow it in ``keys``: each system's codes in a table's
+    ``warnings`` cell then come in its single request's order, whatever the warnings of other groups."""
+    for k, key in enumerate(keys):
+        if key in order:
+            continue
+        later = [order.index(other) for other in keys[k + 1:] if other in order]
+        order.insert(min(later) if later else len(order), key)
 
 
 def _columns_warning(code: str, message: str, subject: str | None, rows: list[int]) -> dict:

@@ -59,18 +59,27 @@ def in_unit(values: np.ndarray, k, names: list[str], units: list[str]) -> np.nda
     silent null or 0.  ``names`` and ``units`` give the output and its unit of each leading row of ``values``."""
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         out = values * k
-    lost = np.isfinite(values) & ~np.isfinite(out)
-    shrunk = (np.abs(out) < SMALLEST_NORMAL) & (np.abs(values) >= SMALLEST_NORMAL)
+        lost, shrunk = beyond_range(values, out)
     if lost.any() or shrunk.any():
         over = lost.any()
         row = np.nonzero((lost if over else shrunk).reshape(len(names), -1).any(axis=1))[0][0]
-        name, unit = names[row], units[row]
-        if over:
-            raise invalid({f"units.{name}": [f"{name} in {unit!r} is beyond the range of a double: "
-                                             "ask for a larger unit"]})
-        raise invalid({f"units.{name}": [f"{name} in {unit!r} is below the smallest normal double (about "
-                                         "2.2e-308), where its digits are lost: ask for a smaller unit"]})
+        raise invalid(unit_range_error(names[row], units[row], over))
     return out
+
+
+def beyond_range(values: np.ndarray, out: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Where ``out`` (``values`` in another unit) left a double: a finite number beyond its range, and a
+    normal one below the smallest normal double."""
+    return (np.isfinite(values) & ~np.isfinite(out),
+            (np.abs(out) < SMALLEST_NORMAL) & (np.abs(values) >= SMALLEST_NORMAL))
+
+
+def unit_range_error(name: str, unit: str, over: bool) -> dict[str, list[str]]:
+    """The field error of an output whose answer leaves a double in the unit asked for it."""
+    if over:
+        return {f"units.{name}": [f"{name} in {unit!r} is beyond the range of a double: ask for a larger unit"]}
+    return {f"units.{name}": [f"{name} in {unit!r} is below the smallest normal double (about 2.2e-308), where "
+                              "its digits are lost: ask for a smaller unit"]}
 
 
 @lru_cache(maxsize=4096)

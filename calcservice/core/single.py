@@ -12,7 +12,7 @@ from ..engine import EngineError, Result, evaluate, split_normal_within
 from ..registry import DAY_COUNTS_BELOW, Calculation, Warning
 from .parse import MJD_OFFSET, Parsed, find, parse
 from .problems import Problem, invalid
-from .render import Rendering
+from .render import Rendering, beyond_range, output_factors, unit_range_error
 from .schemas import SMALLEST_NORMAL
 
 
@@ -29,7 +29,38 @@ def run(parsed: Parsed) -> Result:
     if result.failed:
         _name_what_fails(parsed, result)
         _name_draws_out_of_domain(parsed, result)
+    if parsed.output_units:
+        _beyond_unit_range(parsed, result)
     return result
+
+
+def _beyond_unit_range(parsed: Parsed, result: Result) -> None:
+    """A system whose answer leaves a double's range in an output unit it asked for (a finite number beyond
+    it, a normal one below the smallest normal double) fails with the 422 naming ``units.NAME`` that
+    :func:`render.in_unit` would raise: as a system of its own, so that in a batch it is that row's error,
+    as it is its single request's, and the other systems are answered.  Its outputs become NaN, which
+    converts without a word."""
+    names = tuple(name for name in parsed.output_units if name in result.outputs)
+    units, factors = output_factors(parsed.calc, names, tuple(sorted(parsed.output_units.items())))
+    failed = np.zeros(parsed.count, dtype=bool)
+    for name, unit, k in zip(names, units, factors):
+        if k == 1.0:
+            continue
+        over = np.zeros(parsed.count, dtype=bool)
+        under = np.zeros(parsed.count, dtype=bool)
+        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+            for values in result.outputs[name].values():
+                values = np.asarray(values, dtype=float)
+                lost, shrunk = beyond_range(values, values * k)
+                over |= lost.reshape(parsed.count, -1).any(axis=1)
+                under |= shrunk.reshape(parsed.count, -1).any(axis=1)
+        for row in np.flatnonzero(over | under).tolist():
+            result.failed.setdefault(row, {}).update(unit_range_error(name, unit, bool(over[row])))
+        failed |= over | under
+    if failed.any():
+        for members in result.outputs.values():
+            for key, values in members.items():
+                members[key] = np.where(failed.reshape((-1,) + (1,) * (np.ndim(values) - 1)), np.nan, values)
 
 
 def unused_units(parsed: Parsed, result: Result) -> list[Warning]:
@@ -267,6 +298,8 @@ def failure(result: Result, index: int) -> Problem | None:
     errors = result.failed.get(index)
     if errors is None:
         return None
+    if all(k.startswith("units.") for k in errors):       # an output unit the answer leaves a double in
+        return invalid(errors)
     if all("no finite value" in m for messages in errors.values() for m in messages):
         names = sorted(k for k in errors if k != "_inputs")
         return invalid(errors, "these inputs give no finite result" + (f": invalid value for {', '.join(names)}"

@@ -389,6 +389,8 @@ def event_times(kind, period, t_periastron, eccentricity, omega, after, count, o
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
 
     def raw_phase(w, cycles):
+        if kind == "apastron":      # nu = E = M = pi for every e: half a cycle, not the rounding of cos(pi/2) in E
+            return 0.5 + 0.0 * (e + w)
         return kepler.mean_from_true(event_true_anomaly(kind, e, np.radians(w), apsidal_rate(wdot, p, pdot, cycles)),
                                      e) / TWO_PI
 
