@@ -763,20 +763,17 @@ def _stencil_terms(pl: Plan, x, sm, sp, spread, statics, trail):
     return given, f0, terms, one_sided, curvature, crosses
 
 
-def _ordered_sum(parts: np.ndarray) -> np.ndarray:
-    """The sum of ``parts`` over its first axis, added one after another in their order.
+def _ordered_sum(parts: np.ndarray, axis: int = 0) -> np.ndarray:
+    """The sum of ``parts`` over ``axis``, added one after another in their order.
 
     numpy's reductions (``sum`` over an axis, ``einsum``) add in an order that depends on the
     array's shape and strides: pairwise in blocks of 8 along a contiguous axis, one by one along a
     strided one, so a system's sigma alone (n = 1) and in a batch differed in its last bits once a
-    calculation had 8 or more uncertain inputs.  A loop over the inputs (never over systems) keeps
-    one order whatever n is; each addition is elementwise, so exact to rounding whatever the layout."""
-    if not len(parts):
-        return np.zeros(parts.shape[1:])
-    total = np.array(parts[0], dtype=float, copy=True)
-    for part in parts[1:]:
-        total += part
-    return total
+    calculation had 8 or more uncertain inputs.  An accumulation (``np.add.accumulate``) is a running
+    sum, whose last term is the sum in order whatever the layout."""
+    if not parts.shape[axis]:
+        return np.zeros(parts.shape[:axis] + parts.shape[axis + 1:])
+    return np.add.accumulate(parts, axis=axis).take(-1, axis=axis)
 
 
 def _pairs(r: np.ndarray | None) -> list[tuple[int, int, float]]:
@@ -790,7 +787,7 @@ def _quadratic(terms: np.ndarray, r: np.ndarray | None) -> np.ndarray:
     """sigma_f^2 = t R t^T = sum_j t_j^2 + sum_{j<k} 2 rho_jk t_j t_k over the inputs' first-order terms
     t (outputs, m, n) + trail, summed in the order of the inputs whatever n is (:func:`_ordered_sum`),
     so that a system gets the same sigma alone or in a batch."""
-    var = _ordered_sum(np.moveaxis(terms * terms, 1, 0))
+    var = _ordered_sum(terms * terms, axis=1)
     pairs = _pairs(r)
     for j, k, rho in pairs:
         product = terms[:, j] * terms[:, k]
