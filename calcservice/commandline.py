@@ -19,6 +19,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import re
 import sys
 import types
@@ -354,11 +355,13 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
         # that system's error in place, as there (tables.ragged_rows)
         source, refused = ragged_rows(table_lines(text.splitlines()), False, options["delimiter"])
     elif fmt == "ascii.ecsv":
+        _check_ecsv_header(path, text.splitlines())
         lines, refused = ragged_rows(text.splitlines(), True)
         if refused:
             source, options = lines, {"guess": False}
-        elif _has("pandas"):
+        elif _has("pandas") and not _ALIGNED.search(text):
             # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
+            # (pandas splits at each space, so cells aligned by several are read by astropy's own reader)
             fmt, options = "ecsv", {"engine": "pandas"}
     try:
         with quiet_range_warnings():
@@ -403,6 +406,10 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     return data
 
 
+# a line of an ECSV table (not a # line) with cells apart by more than one space
+_ALIGNED = re.compile(r"^(?!#)[^\n]*?\S[ \t]{2,}\S", re.MULTILINE)
+
+
 def _has(module: str) -> bool:
     import importlib.util
     return importlib.util.find_spec(module) is not None
@@ -429,6 +436,18 @@ def _check_csv_header(path: str) -> str:
         if field == "_body":
             raise UsageError("--in", f"{' '.join(messages)} ({path})") from None
         raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
+
+
+def _check_ecsv_header(path: str, lines: list[str]) -> None:
+    """An ECSV file's line of names checked as the HTTP path checks an ECSV body: a column named twice is
+    refused under the name written, not astropy's complaint of two lists of names."""
+    from .tables import TableError, check_header, ecsv_delimiter
+    try:
+        check_header(lines, ecsv_delimiter(lines), ecsv=True)
+    except TableError as e:
+        field, messages = next(iter(e.errors.items()))
+        raise UsageError("--in" if field == "_body" else field, f"{' '.join(messages)} in the header of {path}") \
+            from None
 
 
 def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:
@@ -584,6 +603,14 @@ def _compute(args) -> int:
         return EXIT_REJECTED
 
 
+def _same_file(a: str, b: str) -> bool:
+    """Whether two paths name one file (through links and ./ too); a file not yet there is no other."""
+    try:
+        return os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
 def _compute_or_raise(args, limits) -> int:
     calcs = calculations()
     if args.list:
@@ -601,9 +628,16 @@ def _compute_or_raise(args, limits) -> int:
     fmt = "json" if args.json else (args.format or "table")
     body = build_body(calc, args)
 
+    if args.keep and not args.input:
+        # the columns to keep are a catalogue's: for one system they would be dropped without a word
+        raise UsageError("--keep", "--keep names columns of a catalogue to copy into its results: give it with "
+                                   "--in FILE and --out FILE")
     if args.input or args.out:
         if not (args.input and args.out):
             raise UsageError("--out" if args.input else "--in", "--in FILE and --out FILE go together")
+        if args.out != "-" and _same_file(args.input, args.out):
+            # the results would be written over the catalogue they were computed from
+            raise UsageError("--out", f"{args.out} is the --in file: write the results to another file")
         if fmt not in ("table", "json"):
             raise UsageError("--format", "a catalogue is written in the format of --out's extension; "
                                          "--format applies to one system")

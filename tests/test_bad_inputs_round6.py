@@ -1,0 +1,141 @@
+"""Bad input, sixth round: table bodies that are no table at all (a problem without an errors member), an
+ECSV header naming a column twice (refused under astropy's name period_1), the command line writing its
+results over the catalogue it read, keeping columns of no catalogue, and refusing an ECSV file whose
+cells are aligned by several spaces, and the Python client's options of the wrong type (a traceback
+of AttributeError or TypeError, a time_format dropped, an astropy unit refused, an infinite Quantity
+said to be missing).  Each case gets a 4xx problem naming the field (or the client's InvalidInput, or
+one line and a non-zero exit of the command line), never a traceback and never a value left out
+without a word."""
+
+from __future__ import annotations
+
+import io
+
+import astropy.units as u
+import numpy as np
+import pytest
+
+from calcservice import create_app
+from tests.test_bad_inputs_round2 import problem
+from tests.test_bad_inputs_round4 import mass_function
+
+SB1 = "/v1/spectroscopic/sb1"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+ARROW = "application/vnd.apache.arrow.stream"
+CATALOGUE = "period,k1,eccentricity\n41.6,23.4,0.31\n"
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+@pytest.fixture(scope="module")
+def local():
+    from calcservice.client import Client
+    return Client("local")
+
+
+def _ecsv(names: str, row: str, columns=("period", "k1", "eccentricity")) -> str:
+    header = "".join(f"# - {{name: {name}, datatype: float64}}\n" for name in columns)
+    return f"# %ECSV 1.0\n# ---\n# datatype:\n{header}# schema: astropy-2.0\n{names}\n{row}\n"
+
+
+# --- 1. a table body that is no table: the problem names the body ------------------------------------
+
+def _arrow_stream() -> bytes:
+    import pyarrow as pa
+    table = pa.table({name: pa.array([value]) for name, value in GOOD.items()})
+    sink = io.BytesIO()
+    with pa.ipc.new_stream(sink, table.schema) as writer:
+        writer.write_table(table)
+    return sink.getvalue()
+
+
+@pytest.mark.parametrize("body, content_type, says", [
+    (b"ARROW1\x00\x00garbage", ARROW, "the body is not an Apache Arrow IPC stream"),
+    (b"", ARROW, "the body is not an Apache Arrow IPC stream"),
+    (b"ARROW1\x00\x00" + _arrow_stream(), ARROW, "the body is not an Apache Arrow IPC file"),    # no footer
+    (b"# %ECSV 1.0\n# ---\n# datatype: [\n", "text/csv", "the body is not ECSV text"),                # YAML cut short
+    (b"# %ECSV 1.0\n# ---\n# datatype:\n# - {datatype: float64}\nperiod\n1\n", "text/csv",
+     "the body is not ECSV text"),                                                                 # no name key
+])
+def test_a_table_body_that_is_no_table_is_a_400_naming_the_body(client, body, content_type, says):
+    # RFC 9457 problems of this service name the field at fault in "errors"; a JSON body that is not JSON
+    # names "_body", and these table bodies named nothing
+    p = problem(client.post("/v1/batch/sb1", data=body, content_type=content_type), 400)
+    assert p["detail"].startswith(says)
+    assert list(p["errors"]) == ["_body"] and p["errors"]["_body"][0].startswith(says)
+
+
+def test_a_table_body_that_reads_is_still_answered(client):
+    r = client.post("/v1/batch/sb1", data=_arrow_stream(), content_type=ARROW, headers={"Accept": "application/json"})
+    assert r.status_code == 200
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                 rel=1e-12)
+
+
+# --- 2. an ECSV header naming a column twice --------------------------------------------------------
+
+@pytest.mark.parametrize("names", ["period period k1 eccentricity", "period  period   k1 eccentricity "])
+def test_an_ecsv_column_named_twice_is_refused_under_the_name_written(client, names):
+    # astropy renames the second "period" to "period_1", and the refusal named a column the caller never wrote
+    text = _ecsv(names, "41.6 41.6 23.4 0.31", ("period", "period", "k1", "eccentricity"))
+    p = problem(client.post("/v1/batch/sb1", data=text, content_type="text/csv"), 422)
+    assert p["errors"] == {"period": ["the column appears twice"]}
+    assert "period_1" not in p["detail"]
+
+
+def test_an_ecsv_header_aligned_by_spaces_is_read(client):
+    # cells apart by several spaces are one delimiter in ECSV (astropy's reader), in the header too
+    text = _ecsv("period   k1  eccentricity", "41.6   23.4  0.31")
+    r = client.post("/v1/batch/sb1", data=text, content_type="text/csv", headers={"Accept": "application/json"})
+    assert r.status_code == 200, r.get_data()[:300]
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                 rel=1e-12)
+
+
+# --- 3. the command line: --out over --in, --keep without a catalogue, an aligned ECSV file -----------
+
+@pytest.mark.parametrize("same", ["cat.csv", "./cat.csv", "link.csv"])
+def test_the_results_are_not_written_over_the_catalogue_they_come_from(tmp_path, capsys, monkeypatch, same):
+    # --out naming the --in file replaced the catalogue by its results, the systems' inputs lost
+    from calcservice.cli import main
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "cat.csv").write_text(CATALOGUE)
+    (tmp_path / "link.csv").symlink_to(tmp_path / "cat.csv")
+    assert main(["compute", "sb1", "--in", "cat.csv", "--out", same]) == 2
+    err = capsys.readouterr().err
+    assert err == f"calcservice compute: --out: {same} is the --in file: write the results to another file\n"
+    assert (tmp_path / "cat.csv").read_text() == CATALOGUE
+    # another file is written, as before
+    assert main(["compute", "sb1", "--in", "cat.csv", "--out", "results.csv"]) == 0
+    assert (tmp_path / "results.csv").read_text().startswith("mass_function[solMass],")
+
+
+def test_keep_without_a_catalogue_is_refused_not_dropped(capsys):
+    # --keep of one system computed on the command line was left out without a word
+    from calcservice.cli import main
+    assert main(["compute", "sb1", "period=41.6", "k1=23.4", "eccentricity=0.31", "--keep", "star"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith("calcservice compute: --keep: --keep names columns of a catalogue")
+
+
+def test_the_command_line_reads_an_ecsv_file_aligned_by_spaces_as_the_service_does(tmp_path, capsys):
+    # pandas, which parses an ECSV file's lines, split at each space and refused the file naming columns
+    # "Unnamed: 1"; the service reads the same text
+    from calcservice.cli import main
+    src = tmp_path / "cat.ecsv"
+    src.write_text(_ecsv("period   k1  eccentricity", "41.6   23.4  0.31"))
+    assert main(["compute", "sb1", "--in", str(src), "--out", "-"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[0].startswith("mass_function[solMass],")
+    assert float(out[1].split(",")[0]) == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+
+
+def test_the_command_line_refuses_an_ecsv_column_named_twice_under_its_name(tmp_path, capsys):
+    from calcservice.cli import main
+    src = tmp_path / "cat.ecsv"
+    src.write_text(_ecsv("period period k1 eccentricity", "41.6 41.6 23.4 0.31", ("period", "period", "k1", "eccentricity")))
+    assert main(["compute", "sb1", "--in", str(src), "--out", "-"]) == 2
+    assert capsys.readouterr().err == f"calcservice compute: period: the column appears twice in the header of {src}\n"
