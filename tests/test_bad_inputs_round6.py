@@ -139,3 +139,62 @@ def test_the_command_line_refuses_an_ecsv_column_named_twice_under_its_name(tmp_
     src.write_text(_ecsv("period period k1 eccentricity", "41.6 41.6 23.4 0.31", ("period", "period", "k1", "eccentricity")))
     assert main(["compute", "sb1", "--in", str(src), "--out", "-"]) == 2
     assert capsys.readouterr().err == f"calcservice compute: period: the column appears twice in the header of {src}\n"
+
+
+# --- 4. the Python client: options of the wrong type, an astropy unit, an infinite Quantity -----------
+
+@pytest.mark.parametrize("options, field, says", [
+    ({"method": 5}, "uncertainty.method", "Not a valid string."),            # AttributeError: 'int' has no 'replace'
+    ({"uncertainty": "monte_carlo"}, "uncertainty", "is a mapping"),         # ValueError of dict()
+    ({"uncertainty": 5}, "uncertainty", "is a mapping"),                     # TypeError: 'int' is not iterable
+    ({"uncertainty": [("method", "linear")]}, "uncertainty", "is a mapping"),  # taken by dict() as a mapping
+])
+def test_the_clients_uncertainty_of_the_wrong_type_is_refused_naming_it(local, options, field, says):
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as info:
+        local.calculate("sb1", **GOOD, **options)
+    assert list(info.value.errors) == [field] and says in info.value.errors[field][0], info.value.errors
+
+
+@pytest.mark.parametrize("time_format", ["", 0])
+def test_a_time_format_that_is_falsy_is_sent_not_dropped(local, time_format):
+    # "" and 0 were dropped, the times read as JDs without a word
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as info:
+        local.calculate("ephemeris", period=100.0, eccentricity=0.1, omega=10.0, t_periastron=2450000.0, k1=10.0,
+                        times=[2450001.0], time_format=time_format)
+    assert info.value.status == 422 and list(info.value.errors) == ["time_format"]
+
+
+def test_an_output_unit_given_as_an_astropy_unit_is_taken(local):
+    # calculate(units={"a1_sin_i": u.km}) raised "Type is not JSON serializable: PrefixUnit", where a batch's
+    # units= takes astropy units; a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2, from memory)
+    r = local.calculate("sb1", **GOOD, units={"a1_sin_i": u.km})
+    expected = (23.4 * u.km / u.s * 41.6 * u.d * np.sqrt(1 - 0.31 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert r["results"]["a1_sin_i"]["unit"] == "km"
+    assert r["results"]["a1_sin_i"]["value"] == pytest.approx(expected, rel=1e-12)
+
+
+@pytest.mark.parametrize("period", [np.inf * u.yr, {"value": np.inf}, {"value": 41.6, "sigma": -np.inf}])
+def test_an_infinite_quantity_or_contract_object_is_refused_by_the_client_naming_it(local, period):
+    # JSON has no infinity: the encoder wrote null and the answer said the value was missing
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as info:
+        local.calculate("sb1", period=period, k1=23.4, eccentricity=0.31)
+    assert list(info.value.errors) == ["period"] and "is not a finite number" in str(info.value)
+
+
+def test_a_correlation_keyed_by_a_set_of_two_names_is_taken(local):
+    # a frozenset key raised "Type is not JSON serializable"; a correlation is symmetric, so the pair's order
+    # is no matter; with one input exact it has no effect, which the answer says
+    r = local.calculate("sb1", period=41.6, k1=(23.4, 0.3), eccentricity=0.31,
+                        correlations={frozenset(["k1", "period"]): 0.5})
+    assert [w["code"] for w in r["warnings"]] == ["correlation_without_effect"]
+
+
+def test_a_batchs_column_units_that_are_no_mapping_are_refused_naming_units(local):
+    # units=["d"] raised "dictionary update sequence element #0 has length 1; 2 is required"
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as info:
+        local.batch("sb1", {"period": [41.6], "k1": [23.4], "eccentricity": [0.31]}, units=["d"])
+    assert list(info.value.errors) == ["units"]
