@@ -198,3 +198,49 @@ def test_a_batchs_column_units_that_are_no_mapping_are_refused_naming_units(loca
     with pytest.raises(InvalidInput) as info:
         local.batch("sb1", {"period": [41.6], "k1": [23.4], "eccentricity": [0.31]}, units=["d"])
     assert list(info.value.errors) == ["units"]
+
+
+# --- 5. a CSV body sent as having no header line -----------------------------------------------------
+
+def test_a_csv_body_said_to_have_no_header_is_refused_naming_the_content_type(client):
+    # RFC 4180 section 3: header=absent says the first line is a row; it was read as the column names all
+    # the same, the parameter left unread
+    p = problem(client.post("/v1/batch/sb1", data=CATALOGUE, content_type="text/csv; header=absent"), 415)
+    assert list(p["errors"]) == ["Content-Type"] and "header=absent" in p["errors"]["Content-Type"][0]
+    # header=present, or none, is what a request table is
+    r = client.post("/v1/batch/sb1", data=CATALOGUE, content_type="text/csv; header=present",
+                    headers={"Accept": "application/json"})
+    assert r.status_code == 200
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                 rel=1e-12)
+
+
+# --- 6. an uncertainty on a bound: where a list of events begins ---------------------------------------
+
+ECLIPSES = {"period": 9.73, "eccentricity": 0.28, "omega": 61.0, "t_periastron": 2460811.42, "inclination": 84.6,
+            "after": 2461000.5, "count": 2, "total_mass": 3.9, "radius1": 2.1, "radius2": 1.6}
+
+
+@pytest.mark.parametrize("after", [{"value": 2461000.5, "sigma": 30.0},
+                                   {"value": 2461000.5, "sigma_minus": 1.0, "sigma_plus": 2.0}])
+def test_a_sigma_on_where_a_list_begins_is_warned_not_dropped(client, after):
+    # "after" is where the list of mid-eclipses begins: its sigma was read and left out without a word
+    exact = client.post("/v1/orbit/mid-eclipse", json=ECLIPSES).get_json()
+    r = client.post("/v1/orbit/mid-eclipse", json={**ECLIPSES, "after": after}).get_json()
+    assert [w for w in r["warnings"] if w["code"] == "uncertainty_unused"] == [
+        {"code": "uncertainty_unused", "fields": ["after"],
+         "message": "after: a bound taken as given (where the list begins), so its uncertainty is not used: the "
+                    "answer does not depend on it"}]
+    assert r["results"] == exact["results"]         # as the warning says
+    # the first mid-eclipse of star 1 listed follows after: the phase of conjunction is the calculation's own
+    assert r["results"]["events"]["eclipse_of_star1"][0]["value"] >= 2461000.5
+
+
+def test_a_sigma_on_where_the_ephemeris_events_begin_is_warned_for_the_rows_that_give_one(client):
+    body = {"period": 2037.4, "eccentricity": 0.873, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+            "times": [2460400.5]}
+    r = client.post("/v1/batch/ephemeris", json={"systems": [{**body, "after": 2460400.5},
+                                                             {**body, "after": {"value": 2460400.5, "sigma": 2.0}},
+                                                             {**body, "after": {"value": 2460400.5, "sigma": 0.0}}]})
+    codes = [[w["code"] for w in row["warnings"]] for row in r.get_json()["results"]]
+    assert ["uncertainty_unused" in c for c in codes] == [False, True, False]

@@ -345,6 +345,11 @@ def body_media_type() -> str:
     if mimetype == tables.JSON or (mimetype.startswith("application/") and mimetype.endswith("+json")):
         return tables.JSON
     if mimetype in tables.TABLE_TYPES:
+        if mimetype == tables.CSV and request.mimetype_params.get("header", "").strip().lower() == "absent":
+            # RFC 4180's header=absent says the first line is a system: read as names, it would be lost
+            raise Problem(415, "a CSV body's first line names its columns (inputs, NAME_sigma): send it with a header "
+                               "line, and header=present or no header parameter",
+                          {"Content-Type": ["header=absent is not taken: the table's columns are named by its header"]})
         return mimetype
     raise Problem(415, f"send the request body as one of {', '.join(tables.MEDIA_TYPES)} "
                        f"(Content-Type{': ' + mimetype if mimetype else ' is missing'})",
