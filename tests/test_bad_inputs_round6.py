@@ -244,3 +244,37 @@ def test_a_sigma_on_where_the_ephemeris_events_begin_is_warned_for_the_rows_that
                                                              {**body, "after": {"value": 2460400.5, "sigma": 0.0}}]})
     codes = [[w["code"] for w in row["warnings"]] for row in r.get_json()["results"]]
     assert ["uncertainty_unused" in c for c in codes] == [False, True, False]
+
+
+# --- 7. the outputs' correlation asked of a table answer --------------------------------------------
+
+UNCERTAIN = {"period": {"value": [41.6, 42.0], "sigma": [0.1, 0.1]}, "k1": {"value": [23.4, 23.4], "sigma": [0.3, 0.3]},
+             "eccentricity": 0.31}
+
+
+@pytest.mark.parametrize("accept", ["text/csv", "text/x-ecsv", ARROW])
+def test_covariance_asked_of_a_table_answer_is_406_naming_it(client, accept):
+    # a table has no place for an m x m matrix per system: the CSV, ECSV and Arrow answers left it out without a word
+    p = problem(client.post("/v1/batch/sb1", json={"columns": UNCERTAIN, "covariance": True},
+                            headers={"Accept": accept}), 406)
+    assert set(p["errors"]) == {"covariance", "Accept"}
+    # a table body's options the same
+    p = problem(client.post("/v1/batch/sb1?options=%7B%22covariance%22%3Atrue%7D",
+                            data="period,period_sigma,k1,eccentricity\n41.6,0.1,23.4,0.31\n", content_type="text/csv",
+                            headers={"Accept": accept}), 406)
+    assert set(p["errors"]) == {"covariance", "Accept"}
+
+
+def test_covariance_answered_in_json_whatever_the_body(client):
+    # mass_function and a1_sin_i with k1 and period alone uncertain: f ~ P K^3 and a ~ P K, so linearised
+    # rho = (s_P^2/P^2 + 3 s_K^2/K^2) / sqrt((s_P^2/P^2 + 9 s_K^2/K^2)(s_P^2/P^2 + s_K^2/K^2)) (first-order
+    # propagation, from memory)
+    r = client.post("/v1/batch/sb1?options=%7B%22covariance%22%3Atrue%7D",
+                    data="period,period_sigma,k1,k1_sigma,eccentricity\n41.6,0.1,23.4,0.3,0.31\n",
+                    content_type="text/csv", headers={"Accept": "application/json"})
+    assert r.status_code == 200
+    c = r.get_json()["correlation"]
+    p, k = (0.1 / 41.6) ** 2, (0.3 / 23.4) ** 2
+    rho = (p + 3 * k) / np.sqrt((p + 9 * k) * (p + k))
+    assert c["outputs"] == ["mass_function", "a1_sin_i"]
+    assert c["matrix"][0][0][1] == pytest.approx(rho, rel=1e-6)

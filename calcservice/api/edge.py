@@ -424,6 +424,7 @@ def batch_body(calc, limits):
             raise Problem(406, f"a rows batch (systems) answers in {tables.JSON}; send columns (a JSON columns "
                                f"body or a table) for an answer as {answer_type}",
                           {"Accept": [f"must accept {tables.JSON} for a rows batch"]})
+        correlation_in_json(body, answer_type)
         return body, answer_type, [], {}
     names = [name.strip() for name in (keep or "").split(",") if name.strip()]
     if any(len(name) > limits.max_string_length for name in names):
@@ -445,7 +446,18 @@ def batch_body(calc, limits):
     if series and answer_type not in (tables.JSON, tables.ARROW):     # before the work, not after
         e = tables.series_refused([f"the outputs over {', '.join(series)}"])
         raise Problem(e.status, e.detail, e.errors)
+    correlation_in_json(body, answer_type)
     return body, answer_type, kept, refused
+
+
+def correlation_in_json(body, answer_type: str) -> None:
+    """A 406 for the outputs' correlation asked of a table answer: Arrow, CSV and ECSV have no place for an
+    m x m matrix per system, so the answer would leave it out without a word."""
+    if answer_type != tables.JSON and isinstance(body, dict) and body.get("covariance") is True:
+        raise Problem(406, f"the outputs' correlation (covariance: true) is answered in {tables.JSON} only: a table "
+                           f"answer ({answer_type}) does not carry it",
+                      {"covariance": [f"is answered in {tables.JSON} only: ask for {tables.JSON}, or drop it"],
+                       "Accept": [f"must accept {tables.JSON} with covariance"]})
 
 
 def options_object(text: str, limits) -> dict:
