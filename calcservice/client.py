@@ -671,6 +671,7 @@ class Client:
                                       ARROW)
             query = {"options": dumps({**opts, **shared}).decode("utf-8")} if opts or shared else None
         else:
+            _no_infinity(table)
             encode = lambda a, b: dumps({"columns": table.json(a, b), **opts})  # noqa: E731
         sent = []
 
@@ -906,6 +907,21 @@ class InputTable:
                 col["value"] = col["value"].tolist()
             out[name] = col
         return out
+
+
+def _no_infinity(table: "InputTable") -> None:
+    """An infinite cell refused before a JSON body is sent, naming its column and system: JSON has no infinity,
+    the encoder writes null, and the service would say the value was not given (an Arrow body carries it, and the
+    service answers that system as not finite)."""
+    for name, entry in table.columns.items():
+        if not isinstance(entry, dict):
+            continue
+        for member, v in entry.items():
+            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
+                k = int(np.flatnonzero(np.isinf(v))[0])
+                label = name if member == "value" else f"{name}_{member}"
+                raise InvalidInput(f"{name}: {label} of system {k} is {v[k]}, not a finite number (JSON has no "
+                                   "infinity): give a finite number, or NaN for a value not given")
 
 
 def _is_column(col) -> bool:

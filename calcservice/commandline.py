@@ -481,6 +481,21 @@ def run_batch(name: str, body: dict, limits, refused: dict[int, str] | None = No
     return compute_batch(name, body, limits, refused=refused)
 
 
+def _infinities_back(arrays: dict, columns: dict) -> dict:
+    """The JSON form of a slice of a catalogue (``columns``) with the infinite cells of its arrays put back: JSON
+    writes them null, which the batch would answer as a value not given, where the service says of an infinite
+    table cell that it is not finite."""
+    for name, entry in arrays.items():
+        if not isinstance(entry, dict):
+            continue
+        for member, v in entry.items():
+            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
+                cells = columns[name][member]
+                for k in np.flatnonzero(np.isinf(v)).tolist():
+                    cells[k] = float(v[k])
+    return columns
+
+
 def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, progress: bool | None = None):
     """Every system of ``data`` (an InputTable) through :func:`run_batch`, in slices the limits allow,
     as one :class:`~calcservice.client.BatchResult` in input order.  ``shared`` holds inputs given once
@@ -511,7 +526,8 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
         while start < n:
             stop = min(n, start + per)
             # the JSON forms of the wire contract (NaN as null), as an HTTP body would bring them
-            columns = orjson.loads(dumps(data.json(start, stop)))
+            chunk = data.json(start, stop)
+            columns = _infinities_back(chunk, orjson.loads(dumps(chunk)))
             refused = {k - start: reason for k, reason in data.refused.items() if start <= k < stop}
             try:
                 answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits, refused)

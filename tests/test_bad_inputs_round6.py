@@ -278,3 +278,36 @@ def test_covariance_answered_in_json_whatever_the_body(client):
     rho = (p + 3 * k) / np.sqrt((p + 9 * k) * (p + k))
     assert c["outputs"] == ["mass_function", "a1_sin_i"]
     assert c["matrix"][0][0][1] == pytest.approx(rho, rel=1e-6)
+
+
+# --- 8. an infinite cell of a catalogue: not finite, not "not given" ------------------------------------
+
+def test_an_infinite_catalogue_cell_is_that_systems_error_as_not_finite(tmp_path, capsys):
+    # the command line sent its catalogue through JSON, where an infinity is written null: the system was
+    # answered "period: is required", where the service says of the same CSV or Arrow cell "not finite"
+    from astropy.table import Table
+
+    from calcservice.cli import main
+    src = tmp_path / "cat.fits"
+    Table({"period": [41.6, np.inf, 41.6] * u.d, "period_sigma": [0.1, 0.1, -np.inf] * u.d,
+           "k1": [23.4, 23.4, 23.4] * u.km / u.s, "eccentricity": [0.31, 0.31, 0.31]}).write(src)
+    assert main(["compute", "sb1", "--in", str(src), "--out", "-"]) == 0
+    rows = capsys.readouterr().out.splitlines()[1:]
+    assert "period: value is not finite" in rows[1] and "period: sigma is not finite" in rows[2]
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G): the first system is answered
+    assert float(rows[0].split(",")[0]) == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+
+
+@pytest.mark.parametrize("period, label", [(np.array([41.6, -np.inf]), "period"),
+                                           ((np.array([41.6, 41.6]), np.array([0.1, np.inf])), "period_sigma")])
+def test_the_clients_json_catalogue_refuses_an_infinite_cell_naming_it(period, label):
+    # a JSON body (the client's transport without pyarrow, or with covariance) wrote it null: "is required"
+    from calcservice.client import Client, InvalidInput
+    client = Client("local")
+    with pytest.raises(InvalidInput) as info:
+        client.batch("sb1", {"period": period, "k1": 23.4, "eccentricity": 0.31}, covariance=True)
+    assert list(info.value.errors) == ["period"]
+    assert str(info.value).startswith(f"period: {label} of system 1 is ")
+    # a NaN is a value not given, that system's error in place
+    r = client.batch("sb1", {"period": np.array([41.6, np.nan]), "k1": 23.4, "eccentricity": 0.31}, covariance=True)
+    assert r.error_text() == ["", "invalid value for period; period: is required"]
