@@ -311,3 +311,28 @@ def test_the_clients_json_catalogue_refuses_an_infinite_cell_naming_it(period, l
     # a NaN is a value not given, that system's error in place
     r = client.batch("sb1", {"period": np.array([41.6, np.nan]), "k1": 23.4, "eccentricity": 0.31}, covariance=True)
     assert r.error_text() == ["", "invalid value for period; period: is required"]
+
+
+# --- 9. a date string that is no ISO 8601 date -------------------------------------------------------
+
+@pytest.mark.parametrize("text", ["J2000", "J2000.5", "B1950.0", "2020:001", "2020:001:12:00:00",
+                                  "\uff12\uff10\uff12\uff10-01-01"])
+def test_a_date_string_astropy_guesses_but_iso_8601_has_not_is_refused(client, text):
+    # astropy's format guess read a Julian epoch (in UTC: J2000.0 is 2000-01-01T12:00 TT, 64.184 s earlier in
+    # UTC, IAU 1976 / IERS), a Besselian epoch, a day of year and full-width digits; the contract is ISO 8601
+    p = problem(client.post("/v1/orbit/mid-eclipse", json={**ECLIPSES, "after": text}), 422)
+    assert p["errors"] == {"after": [f"{text!r} is not an ISO 8601 time or a Julian Date"]}
+    p = problem(client.post("/v1/orbit/ephemeris", json={
+        "period": 2037.4, "eccentricity": 0.873, "omega": 243.6, "t_periastron": 2458712.3, "k1": 61.2,
+        "times": ["2020-01-01", text]}), 422)
+    assert p["errors"] == {"times": [f"entry 1: {text!r} is not an ISO 8601 time"]}
+
+
+@pytest.mark.parametrize("text", ["2000-01-01T12:00:00Z", "2000-01-01 12:00", "2000-1-1T12:00:00", "2000-01-01T12:00:00.000",
+                                  "2000-01-01t12:00:00z", "2000-01-01T13:00:00+01:00"])
+def test_iso_8601_dates_are_still_read(client, text):
+    # each is 2000-01-01T12:00 UTC, JD 2451545.0 in UTC (astropy.time); the mid-eclipse list begins there
+    r = client.post("/v1/orbit/mid-eclipse", json={**ECLIPSES, "after": text})
+    assert r.status_code == 200, r.get_data()[:300]
+    jd = client.post("/v1/orbit/mid-eclipse", json={**ECLIPSES, "after": 2451545.0}).get_json()
+    assert r.get_json()["results"]["events"] == jd["results"]["events"]
