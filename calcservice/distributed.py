@@ -27,7 +27,7 @@ Example (a local cluster; ``Client("tcp://scheduler:8786")`` for a real one)::
 Inputs are in each input's canonical unit (the calculation's declaration says which: days,
 km/s, degrees, ...); a scalar means "the same for every system"; a ``(sigma_minus, sigma_plus)``
 pair of arrays gives asymmetric errors.  A system whose inputs fail a domain or a declared
-constraint has NaN in every output and True in ``failed``.  Monte Carlo chunks all draw with ``seed``: the engine
+constraint, or whose sigma is below 0 or not finite, has NaN in every output and True in ``failed``.  Monte Carlo chunks all draw with ``seed``: the engine
 draws every system of a call from the same standard variates, so a system's numbers are those of the
 in-process engine (or of one request) with that seed, whatever the chunking.
 Series inputs (e.g. ephemeris times) are not supported here: use the batch endpoint.
@@ -40,7 +40,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .engine import Measured, Options, evaluate
+from .engine import MIN_DRAWS, Measured, Options, evaluate
 from .registry import Calculation, get
 
 
@@ -82,9 +82,18 @@ def evaluate_dask(name: str | Calculation, values: Mapping[str, Any], sigmas: Ma
     calc = get(name) if isinstance(name, str) else calc_or_raise(name)
     sigmas = dict(sigmas or {})
     statics = dict(statics or {})
-    unknown = (set(values) | set(sigmas)) - {i.name for i in calc.inputs}
+    unknown = (set(values) | set(sigmas) | set(statics)) - {i.name for i in calc.inputs}
     if unknown:
         raise ValueError(f"{calc.name} has no input(s) {', '.join(sorted(unknown))}")
+    # what the engine would take without a word: another method drew Monte Carlo, a correlation of an
+    # input not given had no effect, no draws failed deep inside numpy
+    if method not in ("linear", "monte_carlo"):
+        raise ValueError(f"method must be 'linear' or 'monte_carlo', not {method!r}")
+    if method == "monte_carlo" and not (isinstance(samples, (int, np.integer)) and samples >= MIN_DRAWS):
+        raise ValueError(f"samples must be a whole number >= {MIN_DRAWS}, not {samples!r}")
+    absent = sorted({nm for pair in (correlations or {}) for nm in pair} - set(values))
+    if absent:
+        raise ValueError(f"correlations name {', '.join(absent)}, not among the inputs given in values")
     if any(i.kind == "series" for i in calc.inputs if i.name in values or i.name in statics):
         raise ValueError("series inputs are not supported on dask arrays; use the batch endpoint")
     arrays = [v for v in values.values() if isinstance(v, da.Array)]
@@ -134,6 +143,14 @@ def _block(*columns, calc: Calculation, layout, statics, options, seed, summarie
     parts: dict[str, dict[str, np.ndarray]] = {}
     for (nm, part), col in zip(layout, columns):
         parts.setdefault(nm, {})[part] = np.asarray(col, dtype=float)
+    # a sigma below 0 or not finite (NaN, a missing entry) is no error bar: that system fails, as one whose
+    # value is outside its domain does, where the engine took it for an exact value
+    odd = np.zeros(len(next(iter(parts.values()))["value"]), dtype=bool)
+    for p in parts.values():
+        for key in ("sigma", "sigma_minus", "sigma_plus"):
+            if key in p:
+                odd |= ~(np.isfinite(p[key]) & (p[key] >= 0))
+                p[key] = np.where(odd, 0.0, p[key])
     quantities = {}
     for nm, p in parts.items():
         v = p["value"]
@@ -151,7 +168,7 @@ def _block(*columns, calc: Calculation, layout, statics, options, seed, summarie
     for j, (o, key) in enumerate(keys):
         if o in result.outputs:
             out[:, j] = result.outputs[o][key]
-    failed = np.zeros(n, dtype=bool)
+    failed = odd.copy()
     failed[list(result.failed)] = True
     out[failed, :-1] = np.nan
     out[:, -1] = failed

@@ -336,3 +336,34 @@ def test_iso_8601_dates_are_still_read(client, text):
     assert r.status_code == 200, r.get_data()[:300]
     jd = client.post("/v1/orbit/mid-eclipse", json={**ECLIPSES, "after": 2451545.0}).get_json()
     assert r.get_json()["results"]["events"] == jd["results"]["events"]
+
+
+# --- 10. the engine over dask arrays (calcservice.distributed) ---------------------------------------
+
+@pytest.mark.parametrize("options, says", [
+    ({"method": "bogus", "sigmas": {"k1": 0.3}}, "method must be"),                      # drew Monte Carlo
+    ({"method": "monte_carlo", "samples": 0, "sigmas": {"k1": 0.3}}, "samples must be"),  # numpy's reshape error
+    ({"sigmas": {"k1": 0.3}, "correlations": {("k1", "nope"): 0.5}}, "correlations name nope"),   # no effect
+    ({"statics": {"nope": 1}}, "has no input(s) nope"),                                   # left unread
+])
+def test_evaluate_dask_refuses_options_it_would_take_without_a_word(options, says):
+    da = pytest.importorskip("dask.array")
+    from calcservice.distributed import evaluate_dask
+    with pytest.raises(ValueError, match=says.replace("(", r"\(").replace(")", r"\)")):
+        evaluate_dask("sb1", {"period": da.from_array(np.array([41.6, 42.0]), chunks=1), "k1": 23.4,
+                              "eccentricity": 0.31}, **options)
+
+
+def test_evaluate_dask_fails_a_system_whose_sigma_is_negative_or_not_finite():
+    # the engine took sigma -1 (or NaN) for an exact value: sigma 0 in the answer, no word of it
+    da = pytest.importorskip("dask.array")
+    from calcservice.distributed import evaluate_dask
+    out = evaluate_dask("sb1", {"period": da.from_array(np.array([41.6, 41.6, 41.6]), chunks=2), "k1": 23.4,
+                                "eccentricity": 0.31}, {"k1": np.array([0.3, -1.0, np.nan])})
+    got, failed = out.compute(scheduler="synchronous")
+    assert failed.tolist() == [False, True, True]
+    assert np.isnan(got["mass_function"]["sigma"][1:]).all()
+    # sigma(f) = 3 f sigma(K1) / K1 for f proportional to K1^3 (first-order propagation)
+    f = mass_function(41.6, 23.4, 0.31)
+    assert got["mass_function"]["value"][0] == pytest.approx(f, rel=1e-12)
+    assert got["mass_function"]["sigma"][0] == pytest.approx(3 * f * 0.3 / 23.4, rel=1e-6)
