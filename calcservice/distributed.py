@@ -40,7 +40,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .engine import MIN_DRAWS, Measured, Options, evaluate
+from .engine import Measured, Options, evaluate
 from .registry import Calculation, get
 
 
@@ -85,12 +85,8 @@ def evaluate_dask(name: str | Calculation, values: Mapping[str, Any], sigmas: Ma
     unknown = (set(values) | set(sigmas) | set(statics)) - {i.name for i in calc.inputs}
     if unknown:
         raise ValueError(f"{calc.name} has no input(s) {', '.join(sorted(unknown))}")
-    # what the engine would take without a word: another method drew Monte Carlo, a correlation of an
-    # input not given had no effect, no draws failed deep inside numpy
-    if method not in ("linear", "monte_carlo"):
-        raise ValueError(f"method must be 'linear' or 'monte_carlo', not {method!r}")
-    if method == "monte_carlo" and not (isinstance(samples, (int, np.integer)) and samples >= MIN_DRAWS):
-        raise ValueError(f"samples must be a whole number >= {MIN_DRAWS}, not {samples!r}")
+    # a correlation of an input not given would have no effect, without a word (the engine refuses a method or a
+    # count of draws it does not take)
     absent = sorted({nm for pair in (correlations or {}) for nm in pair} - set(values))
     if absent:
         raise ValueError(f"correlations name {', '.join(absent)}, not among the inputs given in values")
@@ -115,7 +111,7 @@ def evaluate_dask(name: str | Calculation, values: Mapping[str, Any], sigmas: Ma
         else:
             columns.append(_as_dask(s, chunks))
             layout.append((nm, "sigma"))
-    options = dict(method=method, samples=int(samples), correlations=dict(correlations or {}))
+    options = dict(method=method, samples=samples, correlations=dict(correlations or {}))
 
     # which outputs (and summaries) the inputs determine: one system, computed here
     probe = _block(*[np.asarray(c[:1].compute()) for c in columns], calc=calc, layout=layout, statics=statics,
@@ -143,14 +139,6 @@ def _block(*columns, calc: Calculation, layout, statics, options, seed, summarie
     parts: dict[str, dict[str, np.ndarray]] = {}
     for (nm, part), col in zip(layout, columns):
         parts.setdefault(nm, {})[part] = np.asarray(col, dtype=float)
-    # a sigma below 0 or not finite (NaN, a missing entry) is no error bar: that system fails, as one whose
-    # value is outside its domain does, where the engine took it for an exact value
-    odd = np.zeros(len(next(iter(parts.values()))["value"]), dtype=bool)
-    for p in parts.values():
-        for key in ("sigma", "sigma_minus", "sigma_plus"):
-            if key in p:
-                odd |= ~(np.isfinite(p[key]) & (p[key] >= 0))
-                p[key] = np.where(odd, 0.0, p[key])
     quantities = {}
     for nm, p in parts.items():
         v = p["value"]
@@ -168,7 +156,7 @@ def _block(*columns, calc: Calculation, layout, statics, options, seed, summarie
     for j, (o, key) in enumerate(keys):
         if o in result.outputs:
             out[:, j] = result.outputs[o][key]
-    failed = odd.copy()
+    failed = np.zeros(n, dtype=bool)
     failed[list(result.failed)] = True
     out[failed, :-1] = np.nan
     out[:, -1] = failed

@@ -338,11 +338,11 @@ def test_iso_8601_dates_are_still_read(client, text):
     assert r.get_json()["results"]["events"] == jd["results"]["events"]
 
 
-# --- 10. the engine over dask arrays (calcservice.distributed) ---------------------------------------
+# --- 10. the engine as a library, and over dask arrays (calcservice.distributed) -----------------------
 
 @pytest.mark.parametrize("options, says", [
-    ({"method": "bogus", "sigmas": {"k1": 0.3}}, "method must be"),                      # drew Monte Carlo
-    ({"method": "monte_carlo", "samples": 0, "sigmas": {"k1": 0.3}}, "samples must be"),  # numpy's reshape error
+    ({"method": "bogus", "sigmas": {"k1": 0.3}}, "uncertainty.method: must be"),         # drew Monte Carlo
+    ({"method": "monte_carlo", "samples": 0, "sigmas": {"k1": 0.3}}, "uncertainty.samples: must be"),  # numpy's error
     ({"sigmas": {"k1": 0.3}, "correlations": {("k1", "nope"): 0.5}}, "correlations name nope"),   # no effect
     ({"statics": {"nope": 1}}, "has no input(s) nope"),                                   # left unread
 ])
@@ -367,3 +367,18 @@ def test_evaluate_dask_fails_a_system_whose_sigma_is_negative_or_not_finite():
     f = mass_function(41.6, 23.4, 0.31)
     assert got["mass_function"]["value"][0] == pytest.approx(f, rel=1e-12)
     assert got["mass_function"]["sigma"][0] == pytest.approx(3 * f * 0.3 / 23.4, rel=1e-6)
+
+
+def test_the_engine_fails_a_system_whose_sigma_is_negative_or_not_finite():
+    # calcservice.engine.evaluate, the README's library entry: a sigma of -0.3 or NaN was taken for an exact value
+    from calcservice.engine import Measured, Options, evaluate
+    from calcservice.registry import get
+    k1 = Measured(np.full(4, 23.4), np.array([0.3, -0.3, np.nan, 0.3]), np.array([0.3, -0.3, np.nan, np.inf]))
+    for method in ("linear", "monte_carlo"):
+        r = evaluate(get("sb1"), {"period": Measured.exact([41.6]), "eccentricity": Measured.exact([0.31]), "k1": k1},
+                     {}, Options(method=method, samples=400, seed=1))
+        assert r.failed == {k: {"k1": ["sigma must be >= 0 and finite"]} for k in (1, 2, 3)}
+        # the good system: sigma(f) = 3 f sigma(K1) / K1, f proportional to K1^3 (first-order propagation)
+        f = mass_function(41.6, 23.4, 0.31)
+        assert r.outputs["mass_function"]["sigma"][0] == pytest.approx(3 * f * 0.3 / 23.4,
+                                                                       rel=1e-6 if method == "linear" else 0.15)
