@@ -418,3 +418,17 @@ def test_fuzzed_table_bodies_are_answered_or_refused_naming_a_field(client):
         if r.status_code >= 400:
             assert r.mimetype == "application/problem+json" and r.get_json().get("errors"), r.get_data()[:300]
     one()
+
+
+# --- 12. a body over the size limit names the body -----------------------------------------------------
+
+@pytest.mark.parametrize("gzipped", [False, True])
+def test_a_body_over_the_limit_names_the_body_beside_the_limit(gzipped):
+    # the 413 named its limit and no field, where every other problem of a body names "_body"
+    import gzip
+    small = create_app({"TESTING": True, "MAX_BODY_BYTES": 1000}).test_client()
+    body = b'{"period": 41.6, "k1": 23.4, "eccentricity": 0.31}' + b" " * 2000
+    p = problem(small.post(SB1, data=gzip.compress(body) if gzipped else body, content_type="application/json",
+                           headers={"Content-Encoding": "gzip"} if gzipped else {}), 413)
+    assert p["limit"] == {"name": "max_body_bytes", "value": 1000}
+    assert list(p["errors"]) == ["_body"] and "over 1000 bytes" in p["errors"]["_body"][0]

@@ -227,7 +227,9 @@ def gunzip(stream, limit: int) -> bytes:
 def body_too_large(limit: int, verb: str = "is") -> Problem:
     """The 413 of a body (or what it inflates to) over ``max_body_bytes``, naming the limit as every 413 does."""
     return Problem(413, f"the request body {verb} over {limit} bytes (limit max_body_bytes = {limit}, "
-                        "CALCSERVICE_MAX_BODY_BYTES)", limit={"name": "max_body_bytes", "value": limit})
+                        "CALCSERVICE_MAX_BODY_BYTES)", {"_body": [f"{verb} over {limit} bytes: send fewer systems "
+                                                                  "per request"]},
+                   limit={"name": "max_body_bytes", "value": limit})
 
 
 def parse_json(data: bytes, limits):
