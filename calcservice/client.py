@@ -727,6 +727,7 @@ class Client:
                                       ARROW)
             query = {"options": dumps({**opts, **shared}).decode("utf-8")} if opts or shared else None
         else:
+            _no_infinity(table)
             encode = lambda a, b: dumps({"columns": table.json(a, b), **opts})  # noqa: E731
         sent = []
 
@@ -843,6 +844,8 @@ class InputTable:
         if refused:
             # an input's column kept would go unread; one named like an answer's column would be overwritten
             raise InvalidInput("keep: " + "; ".join(refused))
+        if units is not None and not isinstance(units, Mapping):
+            raise InvalidInput(f"units: units= maps a column to its unit ({{'period': 'd'}}), not {type(units).__name__}")
         units = dict(units or {})
         is_table = _is_astropy_table(data) or _is_dataframe(data)
         if require_units is None:
@@ -983,6 +986,21 @@ class InputTable:
         return out
 
 
+def _no_infinity(table: "InputTable") -> None:
+    """An infinite cell refused before a JSON body is sent, naming its column and system: JSON has no infinity,
+    the encoder writes null, and the service would say the value was not given (an Arrow body carries it, and the
+    service answers that system as not finite)."""
+    for name, entry in table.columns.items():
+        if not isinstance(entry, dict):
+            continue
+        for member, v in entry.items():
+            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
+                k = int(np.flatnonzero(np.isinf(v))[0])
+                label = name if member == "value" else f"{name}_{member}"
+                raise InvalidInput(f"{name}: {label} of system {k} is {v[k]}, not a finite number (JSON has no "
+                                   "infinity): give a finite number, or NaN for a value not given")
+
+
 def _is_column(col) -> bool:
     if isinstance(col, (str, bytes, Mapping)):
         return isinstance(col, Mapping) and isinstance(col.get("value"), (list, np.ndarray))
@@ -1090,6 +1108,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     if hasattr(value, "unit") and hasattr(value, "value") and not isinstance(value, Mapping):
         # an astropy Quantity: its number in its own unit
         v = _plain(value.value)
+        _finite(v, decl)            # an infinite Quantity would be written as null, said to be missing
         unit = value.unit.to_string()
         if kind == "series":
             return {"value": v, "unit": unit}
@@ -1124,6 +1143,9 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     if isinstance(value, float) and math.isnan(value):
         return None
     _finite(value, decl)
+    if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
+        for member in ("value", "sigma", "sigma_minus", "sigma_plus"):
+            _finite(_plain(value.get(member)), decl)
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
@@ -1171,9 +1193,13 @@ def _finite(x: Any, decl: Mapping[str, Any] | None) -> None:
 def _options(uncertainty=None, correlations=None, units=None, time_format=None, method=None, samples=None,
              seed=None, covariance=False) -> dict:
     out: dict[str, Any] = {}
+    if uncertainty is not None and not isinstance(uncertainty, Mapping):
+        raise InvalidInput(f"uncertainty: the uncertainty option is a mapping such as {{\"method\": \"monte_carlo\", "
+                           f"\"samples\": 20000}} (or give method=, samples=, seed=), not {type(uncertainty).__name__}")
     unc = dict(uncertainty or {})
     if method is not None:
-        unc["method"] = method.replace("-", "_")
+        # a method that is no string goes as it is: the service refuses it naming uncertainty.method
+        unc["method"] = method.replace("-", "_") if isinstance(method, str) else method
     # what is not a whole number goes as it is: the service refuses it naming the option
     if samples is not None:
         unc["samples"] = _whole(samples)
@@ -1185,19 +1211,28 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
         out["uncertainty"] = unc
     if correlations is not None:
         if isinstance(correlations, Mapping):
-            correlations = [{"between": list(pair) if isinstance(pair, (tuple, list)) else pair, "rho": _plain(rho)}
+            correlations = [{"between": list(pair) if isinstance(pair, (tuple, list, set, frozenset)) else pair,
+                             "rho": _plain(rho)}
                             for pair, rho in correlations.items()]
         if isinstance(correlations, (list, tuple)):
             correlations = [dict(c) if isinstance(c, Mapping) else c for c in correlations]
         if correlations != []:
             out["correlations"] = correlations
     if units is not None:
-        out["units"] = dict(units) if isinstance(units, Mapping) else units
-    if time_format:
+        # an astropy unit is sent as its string, as a batch's column units= takes it
+        out["units"] = {k: _unit_text(v) for k, v in units.items()} if isinstance(units, Mapping) else units
+    if time_format is not None:             # "" or "MJD" go as they are, for the service to refuse naming them
         out["time_format"] = time_format
     if covariance is not False and covariance is not None:
         out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
     return out
+
+
+def _unit_text(unit: Any) -> Any:
+    """An astropy unit as the string astropy writes for it; anything else as it is."""
+    if not isinstance(unit, str) and hasattr(unit, "to_string") and hasattr(unit, "physical_type"):
+        return unit.to_string()
+    return unit
 
 
 def _whole(x):

@@ -20,6 +20,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import re
 import sys
 import types
@@ -358,11 +359,13 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
         # that system's error in place, as there (tables.ragged_rows)
         source, refused = ragged_rows(table_lines(text.splitlines()), False, options["delimiter"])
     elif fmt == "ascii.ecsv":
+        _check_ecsv_header(path, text.splitlines())
         lines, refused = ragged_rows(text.splitlines(), True)
         if refused:
             source, options = lines, {"guess": False}
-        elif _has("pandas"):
+        elif _has("pandas") and not _ALIGNED.search(text):
             # astropy's ECSV reader with pandas parsing the data lines: the same table, several times sooner
+            # (pandas splits at each space, so cells aligned by several are read by astropy's own reader)
             fmt, options = "ecsv", {"engine": "pandas"}
     try:
         with quiet_range_warnings():
@@ -407,6 +410,10 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
     return data
 
 
+# a line of an ECSV table (not a # line) with cells apart by more than one space
+_ALIGNED = re.compile(r"^(?!#)[^\n]*?\S[ \t]{2,}\S", re.MULTILINE)
+
+
 def _has(module: str) -> bool:
     import importlib.util
     return importlib.util.find_spec(module) is not None
@@ -433,6 +440,18 @@ def _check_csv_header(path: str) -> str:
         if field == "_body":
             raise UsageError("--in", f"{' '.join(messages)} ({path})") from None
         raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
+
+
+def _check_ecsv_header(path: str, lines: list[str]) -> None:
+    """An ECSV file's line of names checked as the HTTP path checks an ECSV body: a column named twice is
+    refused under the name written, not astropy's complaint of two lists of names."""
+    from .tables import TableError, check_header, ecsv_delimiter
+    try:
+        check_header(lines, ecsv_delimiter(lines), ecsv=True)
+    except TableError as e:
+        field, messages = next(iter(e.errors.items()))
+        raise UsageError("--in" if field == "_body" else field, f"{' '.join(messages)} in the header of {path}") \
+            from None
 
 
 def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:
@@ -466,6 +485,21 @@ def run_batch(name: str, body: dict, limits, refused: dict[int, str] | None = No
     return compute_batch(name, body, limits, refused=refused)
 
 
+def _infinities_back(arrays: dict, columns: dict) -> dict:
+    """The JSON form of a slice of a catalogue (``columns``) with the infinite cells of its arrays put back: JSON
+    writes them null, which the batch would answer as a value not given, where the service says of an infinite
+    table cell that it is not finite."""
+    for name, entry in arrays.items():
+        if not isinstance(entry, dict):
+            continue
+        for member, v in entry.items():
+            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
+                cells = columns[name][member]
+                for k in np.flatnonzero(np.isinf(v)).tolist():
+                    cells[k] = float(v[k])
+    return columns
+
+
 def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, progress: bool | None = None):
     """Every system of ``data`` (an InputTable) through :func:`run_batch`, in slices the limits allow,
     as one :class:`~calcservice.client.BatchResult` in input order.  ``shared`` holds inputs given once
@@ -496,7 +530,8 @@ def run_catalogue(calc: Calculation, data, shared: dict, options: dict, limits, 
         while start < n:
             stop = min(n, start + per)
             # the JSON forms of the wire contract (NaN as null), as an HTTP body would bring them
-            columns = orjson.loads(dumps(data.json(start, stop)))
+            chunk = data.json(start, stop)
+            columns = _infinities_back(chunk, orjson.loads(dumps(chunk)))
             refused = {k - start: reason for k, reason in data.refused.items() if start <= k < stop}
             try:
                 answer = run_batch(calc.name, {"columns": {**columns, **shared}, **options}, limits, refused)
@@ -588,6 +623,14 @@ def _compute(args) -> int:
         return EXIT_REJECTED
 
 
+def _same_file(a: str, b: str) -> bool:
+    """Whether two paths name one file (through links and ./ too); a file not yet there is no other."""
+    try:
+        return os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
 def _compute_or_raise(args, limits) -> int:
     calcs = calculations()
     if args.list:
@@ -605,9 +648,16 @@ def _compute_or_raise(args, limits) -> int:
     fmt = "json" if args.json else (args.format or "table")
     body = build_body(calc, args)
 
+    if args.keep and not args.input:
+        # the columns to keep are a catalogue's: for one system they would be dropped without a word
+        raise UsageError("--keep", "--keep names columns of a catalogue to copy into its results: give it with "
+                                   "--in FILE and --out FILE")
     if args.input or args.out:
         if not (args.input and args.out):
             raise UsageError("--out" if args.input else "--in", "--in FILE and --out FILE go together")
+        if args.out != "-" and _same_file(args.input, args.out):
+            # the results would be written over the catalogue they were computed from
+            raise UsageError("--out", f"{args.out} is the --in file: write the results to another file")
         if fmt not in ("table", "json"):
             raise UsageError("--format", "a catalogue is written in the format of --out's extension; "
                                          "--format applies to one system")

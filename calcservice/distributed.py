@@ -27,7 +27,7 @@ Example (a local cluster; ``Client("tcp://scheduler:8786")`` for a real one)::
 Inputs are in each input's canonical unit (the calculation's declaration says which: days,
 km/s, degrees, ...); a scalar means "the same for every system"; a ``(sigma_minus, sigma_plus)``
 pair of arrays gives asymmetric errors.  A system whose inputs fail a domain or a declared
-constraint has NaN in every output and True in ``failed``.  Monte Carlo chunks all draw with ``seed``: the engine
+constraint, or whose sigma is below 0 or not finite, has NaN in every output and True in ``failed``.  Monte Carlo chunks all draw with ``seed``: the engine
 draws every system of a call from the same standard variates, so a system's numbers are those of the
 in-process engine (or of one request) with that seed, whatever the chunking.
 Series inputs (e.g. ephemeris times) are not supported here: use the batch endpoint.
@@ -82,9 +82,14 @@ def evaluate_dask(name: str | Calculation, values: Mapping[str, Any], sigmas: Ma
     calc = get(name) if isinstance(name, str) else calc_or_raise(name)
     sigmas = dict(sigmas or {})
     statics = dict(statics or {})
-    unknown = (set(values) | set(sigmas)) - {i.name for i in calc.inputs}
+    unknown = (set(values) | set(sigmas) | set(statics)) - {i.name for i in calc.inputs}
     if unknown:
         raise ValueError(f"{calc.name} has no input(s) {', '.join(sorted(unknown))}")
+    # a correlation of an input not given would have no effect, without a word (the engine refuses a method or a
+    # count of draws it does not take)
+    absent = sorted({nm for pair in (correlations or {}) for nm in pair} - set(values))
+    if absent:
+        raise ValueError(f"correlations name {', '.join(absent)}, not among the inputs given in values")
     if any(i.kind == "series" for i in calc.inputs if i.name in values or i.name in statics):
         raise ValueError("series inputs are not supported on dask arrays; use the batch endpoint")
     arrays = [v for v in values.values() if isinstance(v, da.Array)]
@@ -106,7 +111,7 @@ def evaluate_dask(name: str | Calculation, values: Mapping[str, Any], sigmas: Ma
         else:
             columns.append(_as_dask(s, chunks))
             layout.append((nm, "sigma"))
-    options = dict(method=method, samples=int(samples), correlations=dict(correlations or {}))
+    options = dict(method=method, samples=samples, correlations=dict(correlations or {}))
 
     # which outputs (and summaries) the inputs determine: one system, computed here
     probe = _block(*[np.asarray(c[:1].compute()) for c in columns], calc=calc, layout=layout, statics=statics,

@@ -254,6 +254,10 @@ def evaluate(calc: Calculation, quantities: Mapping[str, Measured], statics: Map
 
 def _evaluate(calc, quantities, statics, options) -> Result:
     n = max((len(q.value) for q in quantities.values()), default=1)
+    if options.method not in ("linear", "monte_carlo"):
+        # another word would draw Monte Carlo without a word (the request schema admits these two only)
+        raise EngineError({"uncertainty.method": [f"must be 'linear' or 'monte_carlo', not {options.method!r}"]})
+    quantities, unsure = _sigmas_checked(quantities, n)
     trail = _series_shape(calc, statics)
     nominal = {k: _broadcast(q.value, (n,)) for k, q in quantities.items()}
 
@@ -266,6 +270,10 @@ def _evaluate(calc, quantities, statics, options) -> Result:
     if method == "linear":
         result = _linear(calc, quantities, statics, options, n, trail)
     else:
+        drawn = all(q.samples is None for q in quantities.values())
+        if drawn and not (isinstance(options.samples, (int, np.integer)) and options.samples >= 2):
+            # no spread from fewer (the request schema asks for MIN_DRAWS); numpy's own error named nothing
+            raise EngineError({"uncertainty.samples": [f"must be a whole number >= 2, not {options.samples!r}"]})
         result = _monte_carlo(calc, quantities, statics, options, n, trail)
     if switched:
         result.warnings.insert(0, Warning(*switched))
@@ -273,6 +281,8 @@ def _evaluate(calc, quantities, statics, options) -> Result:
     result.warnings.extend(_nothing_to_correlate(quantities, options, n))
 
     result.nominal_inputs = nominal
+    for k, errs in unsure.items():
+        result.failed.setdefault(k, {}).update(errs)
     if calc.constraints or calc.check is not None:
         args = {i.name: statics.get(i.name, nominal.get(i.name)) for i in calc.inputs}
         if calc.constraints:
@@ -282,6 +292,27 @@ def _evaluate(calc, quantities, statics, options) -> Result:
             nominal_out = {name: o["value"] for name, o in result.outputs.items()}
             result.warnings.extend(calc.check(inputs=args, outputs=nominal_out))
     return result
+
+
+def _sigmas_checked(quantities: Mapping[str, Measured], n: int):
+    """The quantities with each sigma below 0 or not finite set to 0, and those systems' errors by field: such a
+    sigma is no error bar (a library caller's; the request schema refuses it), which the methods would otherwise
+    take for an exact value or spread as NaN."""
+    failed: dict[int, dict[str, list[str]]] = {}
+    out = None
+    for name, q in quantities.items():
+        if q.sigma_minus.size == 1 and q.sigma_plus.size == 1:      # one system: a float's comparison, ~0.2 us
+            if 0 <= q.sigma_minus.item() < np.inf and 0 <= q.sigma_plus.item() < np.inf:
+                continue
+        elif 0 <= min(q.sigma_minus.min(), q.sigma_plus.min()) and max(q.sigma_minus.max(), q.sigma_plus.max()) < np.inf:
+            continue                                                # NaN fails both comparisons
+        ok = (q.sigma_minus >= 0) & (q.sigma_minus < np.inf) & (q.sigma_plus >= 0) & (q.sigma_plus < np.inf)
+        for k in np.flatnonzero(_broadcast(~ok, (n,))).tolist():
+            failed.setdefault(k, {}).setdefault(name, []).append("sigma must be >= 0 and finite")
+        out = dict(quantities) if out is None else out
+        out[name] = Measured(q.value, np.where(ok, q.sigma_minus, 0.0), np.where(ok, q.sigma_plus, 0.0),
+                             q.samples, q.isotropic)
+    return (quantities if out is None else out), failed
 
 
 WIDTH = 2                           # the central three-point stencil: x - h and x + h beside x

@@ -624,8 +624,8 @@ BATCH = ("Rows ({\"systems\": [...]}) are answered with one entry per system, in
          "string isotropic; a missing value (Arrow null, empty CSV cell, masked ECSV entry) means not given for that "
          "system. The options of a table body go in the query parameter options. An answer table has, per output, "
          "NAME, NAME_sigma (Monte Carlo also NAME_low, NAME_high), then error_status, error and warnings; "
-         "calculation, uncertainty and provenance in the table metadata. Tables carry no correlation. Series outputs "
-         "need JSON or Arrow (CSV/ECSV: 406).\n\n"
+         "calculation, uncertainty and provenance in the table metadata. Tables carry no correlation (covariance: true "
+         "asked of a table answer: 406). Series outputs need JSON or Arrow (CSV/ECSV: 406).\n\n"
          "The example of each batch route: the calculation's fictional system, and a copy with an input out of its "
          "domain, answered in its place.")
 TABLES = {media.ARROW: {"schema": _ref("ArrowStream")}, media.CSV: {"schema": TEXT}, media.ECSV: {"schema": TEXT}}

@@ -132,6 +132,7 @@ class Input:
     label: str | None = None       # key of a series input's values in the response (default: its name)
     unused_with: tuple[str, ...] = ()   # given beside all of these it changes nothing (warning input_unused)
     period: float | None = None    # a cyclic input, meaning the same modulo this (a phase in cycles: 1.0)
+    exact: bool = False            # a bound taken as given (where a list begins): a sigma is not used (warned)
 
     def as_dict(self) -> dict:
         d: dict[str, Any] = {"name": self.name, "kind": self.kind, "description": self.description,

@@ -57,7 +57,8 @@ class TableError(ValueError):
         super().__init__(detail)
         self.status = status
         self.detail = detail
-        self.errors = {k: list(v) for k, v in (errors or {}).items()}
+        # a body that is no table at all is named as the body, as a malformed JSON body is (RFC 9457 errors member)
+        self.errors = {k: list(v) for k, v in (errors or {"_body": [detail]}).items()}
 
 
 def is_ecsv(data: bytes | str) -> bool:
@@ -376,15 +377,23 @@ def delimiter(header: str | None) -> str:
     return max((",", ";", "\t"), key=(header or "").count)
 
 
-def check_header(lines: Sequence[str], delimiter: str = ",") -> None:
+def ecsv_delimiter(lines: Sequence[str]) -> str:
+    """An ECSV table's delimiter: a space, or the comma its header declares."""
+    comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
+    return "," if comma else " "
+
+
+def check_header(lines: Sequence[str], delimiter: str = ",", ecsv: bool = False) -> None:
     """A CSV header's names as written (see :func:`header_line`): astropy would call a second
     ``period`` ``period_1`` and an empty name ``col3``, names the caller never wrote.  Raises
-    :class:`TableError` (422) naming the column; the HTTP edge and the command line both check so."""
+    :class:`TableError` (422) naming the column; the HTTP edge and the command line both check so.
+    ``ecsv``: the line of names under an ECSV header, whose cells may be apart by more than one space."""
     import csv
     header = header_line(lines)
     if header is None:
         return
-    names = [name.strip() for name in next(csv.reader([header], delimiter=delimiter))]
+    names = [name.strip() for name in next(csv.reader([header.strip() if ecsv else header], delimiter=delimiter,
+                                                      skipinitialspace=ecsv))]
     errors: dict[str, list[str]] = {}
     for k, name in enumerate(names):
         if not name:
@@ -421,8 +430,7 @@ def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple
     line's count of delimiters differs from the header's or a quote is there."""
     lines = list(lines)
     if ecsv:
-        comma = any(re.match(r"#\s*delimiter:\s*['\"]?,", line) for line in lines if line.startswith("#"))
-        delimiter = "," if comma else " "
+        delimiter = ecsv_delimiter(lines)
         start = next((k for k, line in enumerate(lines) if line.strip() and not line.startswith("#")), None)
     else:
         start = next((k for k, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")), None)
@@ -476,6 +484,8 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
     if not ecsv:
         lines = table_lines(lines)
     csv_options = {} if ecsv else {"delimiter": check_csv_text(lines)}
+    if ecsv:                    # a name given twice, as the caller wrote it (astropy's reader says period_1)
+        check_header(lines, ecsv_delimiter(lines), ecsv=True)
     lines, ragged = ragged_rows(lines, ecsv, csv_options.get("delimiter", ","))
     if ragged:
         if refused is None:

@@ -227,7 +227,9 @@ def gunzip(stream, limit: int) -> bytes:
 def body_too_large(limit: int, verb: str = "is") -> Problem:
     """The 413 of a body (or what it inflates to) over ``max_body_bytes``, naming the limit as every 413 does."""
     return Problem(413, f"the request body {verb} over {limit} bytes (limit max_body_bytes = {limit}, "
-                        "CALCSERVICE_MAX_BODY_BYTES)", limit={"name": "max_body_bytes", "value": limit})
+                        "CALCSERVICE_MAX_BODY_BYTES)", {"_body": [f"{verb} over {limit} bytes: send fewer systems "
+                                                                  "per request"]},
+                   limit={"name": "max_body_bytes", "value": limit})
 
 
 def parse_json(data: bytes, limits):
@@ -345,6 +347,11 @@ def body_media_type() -> str:
     if mimetype == tables.JSON or (mimetype.startswith("application/") and mimetype.endswith("+json")):
         return tables.JSON
     if mimetype in tables.TABLE_TYPES:
+        if mimetype == tables.CSV and request.mimetype_params.get("header", "").strip().lower() == "absent":
+            # RFC 4180's header=absent says the first line is a system: read as names, it would be lost
+            raise Problem(415, "a CSV body's first line names its columns (inputs, NAME_sigma): send it with a header "
+                               "line, and header=present or no header parameter",
+                          {"Content-Type": ["header=absent is not taken: the table's columns are named by its header"]})
         return mimetype
     raise Problem(415, f"send the request body as one of {', '.join(tables.MEDIA_TYPES)} "
                        f"(Content-Type{': ' + mimetype if mimetype else ' is missing'})",
@@ -419,6 +426,7 @@ def batch_body(calc, limits):
             raise Problem(406, f"a rows batch (systems) answers in {tables.JSON}; send columns (a JSON columns "
                                f"body or a table) for an answer as {answer_type}",
                           {"Accept": [f"must accept {tables.JSON} for a rows batch"]})
+        correlation_in_json(body, answer_type)
         return body, answer_type, [], {}
     names = [name.strip() for name in (keep or "").split(",") if name.strip()]
     if any(len(name) > limits.max_string_length for name in names):
@@ -440,7 +448,18 @@ def batch_body(calc, limits):
     if series and answer_type not in (tables.JSON, tables.ARROW):     # before the work, not after
         e = tables.series_refused([f"the outputs over {', '.join(series)}"])
         raise Problem(e.status, e.detail, e.errors)
+    correlation_in_json(body, answer_type)
     return body, answer_type, kept, refused
+
+
+def correlation_in_json(body, answer_type: str) -> None:
+    """A 406 for the outputs' correlation asked of a table answer: Arrow, CSV and ECSV have no place for an
+    m x m matrix per system, so the answer would leave it out without a word."""
+    if answer_type != tables.JSON and isinstance(body, dict) and body.get("covariance") is True:
+        raise Problem(406, f"the outputs' correlation (covariance: true) is answered in {tables.JSON} only: a table "
+                           f"answer ({answer_type}) does not carry it",
+                      {"covariance": [f"is answered in {tables.JSON} only: ask for {tables.JSON}, or drop it"],
+                       "Accept": [f"must accept {tables.JSON} with covariance"]})
 
 
 def options_object(text: str, limits) -> dict:

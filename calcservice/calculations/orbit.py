@@ -303,7 +303,7 @@ register(Calculation(
         Input("semimajor_axis", "au", "relative semi-major axis (for the physical separation)", POSITIVE,
               required=False, example=16.4),
         Input("after", "d", "list events at or after this time (default: the earliest of times)", DATE,
-              required=False, time=True, example=2460400.5),
+              required=False, time=True, exact=True, example=2460400.5),
         Input("count", "", "how many events of each kind to list", Domain(1, MAX_EVENT_COUNT), default=3,
               kind="integer", example=3),
         Input("omega_dot", "deg/yr", "apsidal motion: rate of advance of omega (omega is its value at t_periastron; "
@@ -538,7 +538,7 @@ register(Calculation(
               example=2460811.42),
         Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, example=84.6),
         Input("after", "d", "list mid-eclipses at or after this time (JD, or ISO 8601)", DATE, time=True,
-              example=2461000.5),
+              exact=True, example=2461000.5),
         Input("count", "", "how many mid-eclipses of each star to list", Domain(1, MAX_EVENT_COUNT), default=3,
               kind="integer", example=3),
         Input("semimajor_axis", "au", "relative semi-major axis (for the separation in solar radii; or give "

@@ -109,12 +109,19 @@ def _calendar_jd(text: str, limits: Limits) -> float:
     from astropy.time import Time
     bare, minutes = _utc_offsets([text])
     try:
+        if not _ISO_DATE.fullmatch(bare[0]):
+            raise ValueError(bare[0])
         with _second_sixty_quiet():
             t = Time(bare[0], scale="utc")
     except Exception:
         raise ValidationError(f"{text!r} is not an ISO 8601 time or a Julian Date") from None
     return float(np.atleast_1d(_utc_jd(t, bare, minutes, lambda k: repr(text)))[0])
 
+
+# An ISO 8601 calendar date, with a time of day or not, in ASCII digits (its UTC offset already taken off):
+# astropy's guess also reads a Julian epoch "J2000" (in UTC, not TT: 64 s off the standard epoch), a Besselian one
+# "B1950.0", a day of year "2020:001" and full-width digits, none of which is ISO 8601
+_ISO_DATE = re.compile(r"\d{4}-\d{1,2}-\d{1,2}(?:[T ]\d{1,2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?Z?", re.ASCII)
 
 # A 60th second: astropy reads one where UTC had no leap second as the next minute, silently.
 _LEAP_SECOND = re.compile(r".*:6\d(?:\.\d*)?")
@@ -197,6 +204,9 @@ def _calendar_jds(texts: list[str], limits: Limits, positions: list[int] | None 
         if len(text) > limits.max_string_length:
             raise ValidationError(f"entry {positions[k]}: time string is too long")
     texts, minutes = _utc_offsets(texts)
+    for k, text in enumerate(texts):
+        if not _ISO_DATE.fullmatch(text):
+            raise ValidationError(f"entry {positions[k]}: {text[:64]!r} is not an ISO 8601 time")
     out = np.empty(len(texts))
     calls = 0
     stack = [(0, len(texts))]

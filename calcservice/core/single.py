@@ -254,6 +254,14 @@ def unused_inputs(parsed: Parsed) -> list[Warning]:
                        f"{', '.join(idle[:-1])} and {idle[-1]} are all given")
             out.append(Warning("input_unused", f"{{subject}} is not used when {because}: the answer does not "
                                "depend on it", None, spec.name))
+        q = parsed.quantities.get(spec.name) if spec.exact and spec.name in given else None
+        if q is not None:
+            # a bound (where a list of events begins) is taken as given: its sigma or draws would go unread
+            where = (q.sigma_minus > 0) | (q.sigma_plus > 0) if q.samples is None else np.ones(len(q.value), bool)
+            if where.any():
+                out.append(Warning("uncertainty_unused", "{subject}: a bound taken as given (where the list "
+                                   "begins), so its uncertainty is not used: the answer does not depend on it",
+                                   where, spec.name))
     return out
 
 
