@@ -24,7 +24,7 @@ class Limits:
     max_sample_array: int = _limit(1_000_000, "length of a user's samples array")
     max_series: int = _limit(100_000, "e.g. ephemeris times per request")
     max_batch_rows: int = _limit(100_000, "systems in one batch")
-    max_batch_draws: int = _limit(5_000_000, "systems x draws in one batch (~25 s for the slowest physics)")
+    max_batch_draws: int = _limit(5_000_000, "systems x draws in one batch (~20 s for the slowest physics on one core)")
     max_series_evaluations: int = _limit(4_000_000, "systems x draws (or linear perturbations) x series points")
     max_json_depth: int = _limit(32, "nesting of the JSON body")
     max_string_length: int = _limit(256, "any string value (units, times, choices)")

@@ -601,26 +601,38 @@ def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, ome
     angle of the root whenever an eclipse is possible; the root is the conjunction itself when e = 0
     or i = 90 deg.
     """
-    e = np.asarray(eccentricity, dtype=float)
     s2 = np.sin(inclination_rad) ** 2
     start = CONJUNCTION_ARGUMENT[star] - omega_rad
-    nu = start + np.zeros_like(e * s2)
+    shape = np.broadcast(start, eccentricity, s2, omega_rate).shape
+    flat = [np.broadcast_to(np.asarray(a, dtype=float), shape).ravel()
+            for a in (eccentricity, s2, omega_rad, omega_rate, start)]
+    nu = flat[4].copy()
+    # each system's iterate is left once a step moves it by no more than two roundings (at the root, where
+    # further steps only turn between neighbouring doubles): the steps go on for the others only, and a
+    # system's answer is the same alone or in a batch
+    live = np.arange(nu.size)
     for _ in range(_MID_ECLIPSE_STEPS):
-        sin_nu, cos_nu = np.sin(nu), np.cos(nu)
+        if not live.size:
+            break
+        e, s2, w, rate, first = (a[live] for a in flat)
+        old = nu[live]
+        sin_nu, cos_nu = np.sin(old), np.cos(old)
         c = 1.0 + e * cos_nu
-        u = nu + omega_rad
-        shape = 1.0 - s2 * np.sin(u) ** 2
+        u = old + w
+        shape_factor = 1.0 - s2 * np.sin(u) ** 2
         h = 2.0 * e * sin_nu / c
-        kappa = omega_rate * (1.0 - e * e) ** 1.5 / c**2
-        g = h * shape - s2 * np.sin(2.0 * u) * (1.0 + kappa)
-        dg = (2.0 * e * (cos_nu + e) / c**2 * shape - h * s2 * np.sin(2.0 * u)
+        kappa = rate * (1.0 - e * e) ** 1.5 / c**2
+        g = h * shape_factor - s2 * np.sin(2.0 * u) * (1.0 + kappa)
+        dg = (2.0 * e * (cos_nu + e) / c**2 * shape_factor - h * s2 * np.sin(2.0 * u)
               - 2.0 * s2 * np.cos(2.0 * u) * (1.0 + kappa) - s2 * np.sin(2.0 * u) * kappa * h)
         with np.errstate(invalid="ignore", divide="ignore"):
             step = np.where(dg > 0.0, g / dg, 0.0)
         # kept within the half-orbit where ``star`` is the farther one: beyond it the other star is in front
-        nu = np.clip(nu - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), start - _HALF_ORBIT,
-                     start + _HALF_ORBIT)
-    return nu
+        new = np.clip(old - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), first - _HALF_ORBIT,
+                      first + _HALF_ORBIT)
+        nu[live] = new
+        live = live[np.abs(new - old) > 2.0 * np.spacing(np.abs(old))]
+    return nu.reshape(shape)
 
 
 def apsidal_rate_per_mean_anomaly(omega_dot, period):
