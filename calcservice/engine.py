@@ -800,11 +800,16 @@ def _ordered_sum(parts: np.ndarray, axis: int = 0) -> np.ndarray:
     numpy's reductions (``sum`` over an axis, ``einsum``) add in an order that depends on the
     array's shape and strides: pairwise in blocks of 8 along a contiguous axis, one by one along a
     strided one, so a system's sigma alone (n = 1) and in a batch differed in its last bits once a
-    calculation had 8 or more uncertain inputs.  An accumulation (``np.add.accumulate``) is a running
-    sum, whose last term is the sum in order whatever the layout."""
-    if not parts.shape[axis]:
+    calculation had 8 or more uncertain inputs.  A loop over the inputs (never over systems) keeps
+    one order whatever n is (``np.add.accumulate`` would too, but runs a strided loop over a batch)."""
+    count = parts.shape[axis]
+    if not count:
         return np.zeros(parts.shape[:axis] + parts.shape[axis + 1:])
-    return np.add.accumulate(parts, axis=axis).take(-1, axis=axis)
+    lead = (slice(None),) * axis
+    total = parts[lead + (0,)].copy()
+    for j in range(1, count):
+        total += parts[lead + (j,)]
+    return total
 
 
 def _pairs(r: np.ndarray | None) -> list[tuple[int, int, float]]:
