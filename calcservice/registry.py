@@ -91,7 +91,7 @@ class DateDomain(Domain):
         return self.describe()
 
 
-# a date as a Julian Date (MJD converted): within about 270,000 years of JD 0, where a double still
+# a date as a Julian Date (or an MJD, as given): within about 270,000 years of JD 0, where a double still
 # resolves 15 ms; far beyond it a date is a typing slip and its cycles count would be rounding noise
 DATE = DateDomain(-1e8, 1e8)
 #: a time below JD 10000 (4685 BC) is no observing date in any format: a count of days from an

@@ -133,14 +133,15 @@ def _element_covariance(quantities, correlations, n, elements=EVENT_ELEMENTS) ->
     return cov
 
 
-def _event_entries(jd, sigma, cycle, extra_fields=None, offset=0.0):
-    """One entry per finite date: its value in the caller's format (JD - ``offset``), sigma, ISO date, cycle."""
-    iso = iso_dates(jd)
+def _event_entries(day, sigma, cycle, extra_fields=None, offset=0.0):
+    """One entry per finite date ``day``, in the caller's time format (JD, or MJD with ``offset`` its zero's
+    JD): the date, sigma, ISO date, cycle."""
+    iso = iso_dates(day + offset)
     entries = []
-    for k in range(len(jd)):
-        if not np.isfinite(jd[k]):
+    for k in range(len(day)):
+        if not np.isfinite(day[k]):
             continue
-        e = {"value": float(jd[k] - offset), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
+        e = {"value": float(day[k]), "sigma": float(sigma[k]) if np.isfinite(sigma[k]) else None,
              "iso": iso[k], "cycle": float(cycle[k])}
         if extra_fields:
             e.update({key: v[k] for key, v in extra_fields.items()})

@@ -188,13 +188,15 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
 def measured(spec: Input, raw: RawQuantity, time_format: str) -> Measured:
     """A parsed quantity (already in canonical units) as the engine's Measured.
 
-    Times are dates: an MJD given with ``time_format: mjd`` becomes a JD here; the unit
-    of a time applies to its sigma only.
+    Times are dates held in the request's time format: an MJD given with ``time_format: mjd`` stays
+    one (as a JD its double would keep 5e-10 d where the MJD keeps 1e-11 d), and an ISO 8601 date, read
+    as a JD, becomes one (JD - 2400000.5 is exact for every JD from 1200000.25 to 4800001); the unit of
+    a time applies to its sigma only.
     """
     offset = MJD_OFFSET if spec.time and time_format == "mjd" else 0.0
-    value = raw.value + np.where(raw.calendar, 0.0, offset) if spec.time else raw.value
+    value = raw.value - np.where(raw.calendar, offset, 0.0) if spec.time else raw.value
     if raw.samples is not None:
-        return Measured(value, raw.sigma_minus, raw.sigma_plus, samples=raw.samples + offset)
+        return Measured(value, raw.sigma_minus, raw.sigma_plus, samples=raw.samples)
     return Measured(value, raw.sigma_minus, raw.sigma_plus, isotropic=raw.isotropic)
 
 

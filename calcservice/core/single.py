@@ -10,7 +10,7 @@ import numpy as np
 from ..config import Limits
 from ..engine import EngineError, Result, evaluate, split_normal_within
 from ..registry import DAY_COUNTS_BELOW, Calculation, Warning
-from .parse import MJD_OFFSET, Parsed, find, parse
+from .parse import Parsed, find, parse
 from .problems import Problem, invalid
 from .render import Rendering, beyond_range, output_factors, unit_range_error
 from .schemas import SMALLEST_NORMAL
@@ -276,17 +276,17 @@ def misread_dates(parsed: Parsed) -> list[Warning]:
     """A warning for each date given as a number that reads as the other time format: an MJD (58711.8)
     sent as a JD is a date in 4553 BC, a JD sent with ``time_format: mjd`` one in AD 8596, and either is
     answered without an error (the DATE domain holds both), every phase and event shifted by 2400000.5 d.
-    Judged on the Julian Dates the request became (an ISO 8601 date cannot fall in either range)."""
+    Judged on the dates the request became, in its time format (an ISO 8601 date falls in neither range)."""
     out = []
     mjd = parsed.time_format == "mjd"
     for spec in parsed.calc.inputs:
         if not spec.time or spec.name not in parsed.given:
             continue
         name = spec.name
-        jd = parsed.series[name] if name in parsed.series else parsed.quantities[name].value
+        day = parsed.series[name] if name in parsed.series else parsed.quantities[name].value
         low, high = JD_LOOKS_LIKE_MJD
         with np.errstate(invalid="ignore"):
-            where = jd - MJD_OFFSET >= MJD_LOOKS_LIKE_JD if mjd else (jd >= low) & (jd < high)
+            where = day >= MJD_LOOKS_LIKE_JD if mjd else (day >= low) & (day < high)
         if not where.any():
             continue
         if name in parsed.series:                 # one list for every system
