@@ -42,7 +42,8 @@ import orjson
 
 from . import __version__
 from .columns import column_array as _to_array
-from .columns import column_name, column_role, correlated_columns, kept_name_errors, split_unit, uncertain_parts
+from .columns import column_name, column_role, correlated_columns, error_text, kept_name_errors, split_unit, \
+    uncertain_parts
 from .columns import unit_of as _unit_of
 from .media import FIGURES, REPORTS
 
@@ -378,11 +379,8 @@ def _json_text(x) -> str:
 
 
 def problem_text(problem: Mapping[str, Any]) -> str:
-    """A problem as the ``error`` column of the service's answer tables: ``detail; field: message; ...``."""
-    parts = [str(problem.get("detail", ""))] if problem.get("detail") else []
-    parts += [f"{k}: {' '.join(map(str, v)) if isinstance(v, list) else v}"
-              for k, v in (problem.get("errors") or {}).items()]
-    return "; ".join(parts)
+    """A problem as the ``error`` column of the service's answer tables (:func:`calcservice.columns.error_text`)."""
+    return error_text(problem)
 
 
 def problem_reason(problem: Mapping[str, Any]) -> str:

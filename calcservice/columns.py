@@ -267,5 +267,23 @@ def meant(name: str, known, symbols: Mapping[str, str] | None = None) -> str:
     return f"; did you mean {close[0]}?" if close else ""
 
 
-__all__ = ["unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
+def naming(errors: Mapping[str, list[str]]) -> str:
+    """The detail of a 422 that says no more than which fields are at fault ("invalid value for k2"): a table's
+    error cell leaves it out before the field errors, which say it and why (:func:`error_text`)."""
+    names = sorted(k for k in errors if k != "_more")
+    shown = ", ".join(k or repr(k) for k in names)          # a name "" is shown as ''
+    return (f"invalid value for {shown}" + (" and more" if "_more" in errors else "")) if names else "invalid input"
+
+
+def error_text(problem: Mapping) -> str:
+    """A problem as one cell of an answer table: ``detail; field: message; ...``, without a detail that only
+    names the fields (``k2: is required``, not ``invalid value for k2; k2: is required``)."""
+    errors = problem.get("errors") or {}
+    detail = str(problem.get("detail") or "")
+    parts = [detail] if detail and not (errors and detail == naming(errors)) else []
+    parts += [f"{k}: {' '.join(map(str, v)) if isinstance(v, list) else v}" for k, v in errors.items()]
+    return "; ".join(parts)
+
+
+__all__ = ["naming", "error_text", "unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
            "lenient_message", "meant"]

@@ -970,7 +970,8 @@ def _linear_budget(given, perturbed, terms, var, r, trail, warnings) -> dict[str
         t = terms[o]
         entry = {a: t[j] * t[j] * inv for j, a in enumerate(perturbed)}
         for j, k in pairs:
-            entry[f"{perturbed[j]},{perturbed[k]}"] = 2.0 * r[j, k] * t[j] * t[k] * inv
+            # + 0.0: a pair whose term is 0 (one input does not move the output) reads 0.0, not -0.0
+            entry[f"{perturbed[j]},{perturbed[k]}"] = 2.0 * r[j, k] * t[j] * t[k] * inv + 0.0
         budget[name] = entry
     return budget
 

@@ -33,7 +33,7 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, kept_name_errors, lenient,
+from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, error_text, kept_name_errors, lenient,
                       lenient_message, may_underflow, meant, not_plain_numbers, read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
@@ -762,14 +762,6 @@ def _is_series(v) -> bool:
     if isinstance(v, np.ndarray):
         return v.ndim > 1
     return isinstance(v, list) and any(isinstance(x, (list, np.ndarray)) for x in v)
-
-
-def error_text(problem: Mapping) -> str:
-    """A problem's detail and its field errors, ``detail; field: message; ...``."""
-    parts = [str(problem.get("detail", ""))]
-    for field, messages in (problem.get("errors") or {}).items():
-        parts.append(f"{field}: {' '.join(map(str, messages))}")
-    return "; ".join(parts)
 
 
 def warning_index(warnings: list[Mapping], n: int) -> tuple[list[str], np.ndarray]:

@@ -178,3 +178,15 @@ def test_wind_momentum_ratio_budget_matches_uncertainties_error_components(clien
     assert set(table) == set(expected)
     for term, share in expected.items():
         assert table[term] == pytest.approx(share, abs=0.06, rel=0.02), term
+
+
+def test_a_correlated_pair_that_moves_no_output_has_a_budget_share_of_plus_zero(client):
+    # mass_ratio = K1/K2 does not depend on the period (Hilditch 2001, eq. 2.48): the share of the pair
+    # (period, k1) is 2 rho (dq/dP sigma_P)(dq/dK1 sigma_K1) / var = 0, written 0.0 and not -0.0 for rho < 0
+    body = {"period": {"value": 12.3, "sigma": 0.01}, "k1": {"value": 50, "sigma": 1}, "k2": {"value": 70, "sigma": 1},
+            "eccentricity": {"value": 0.3, "sigma": 0.01}, "inclination": {"value": 80, "sigma": 2}, "budget": True,
+            "correlations": [{"between": ["period", "k1"], "rho": -0.3}]}
+    status, answer = post(client, "/v1/spectroscopic/sb2", body)
+    assert status == 200, answer
+    share = answer["results"]["mass_ratio"]["budget"]["period,k1"]
+    assert share == 0.0 and math.copysign(1.0, share) == 1.0

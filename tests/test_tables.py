@@ -256,7 +256,8 @@ def test_answer_tables_carry_units_metadata_and_error_columns(client):
     assert meta["uncertainty"] == {"method": "monte_carlo", "samples": 2000, "seed": 11}
     assert meta["provenance"]["references"]
     assert t.column("error_status").to_pylist() == [None, 422, None]
-    assert t.column("error").to_pylist()[1].startswith("invalid value for eccentricity")
+    # the field errors alone: "invalid value for eccentricity; eccentricity: ..." said the field twice
+    assert t.column("error").to_pylist()[1].startswith("eccentricity: ")
     assert t.column("m1").null_count == 1
     reference = json_answer(client, "sb2", columns, mc)
     assert_same_answer(tables.decode_answer(r.data, tables.ARROW), reference)
@@ -555,3 +556,15 @@ def test_a_csv_header_is_judged_as_written(client, header, field, message):
     body = (header + "\n" + ",".join(["41.6", "3", "38.2", "51.7", "0.3"]) + "\n").encode()
     r = client.post("/v1/batch/sb2", data=body, content_type="text/csv", headers={"Accept": "application/json"})
     assert r.status_code == 422 and r.get_json()["errors"] == {field: [message]}
+
+
+def test_an_error_cell_keeps_a_detail_that_says_more_than_the_fields(client):
+    # a detail that only names the fields is left out of the cell (the field errors say it, and why); one that
+    # says more stays before them
+    from calcservice.columns import error_text
+    assert error_text({"detail": "invalid value for k2", "errors": {"k2": ["is required"]}}) == "k2: is required"
+    kept = {"detail": "these inputs give no finite result: invalid value for period",
+            "errors": {"period": ["gives no finite value of m1"]}}
+    assert error_text(kept) == "these inputs give no finite result: invalid value for period; period: gives no " \
+                               "finite value of m1"
+    assert error_text({"detail": "the body is no table"}) == "the body is no table"

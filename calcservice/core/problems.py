@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from typing import Mapping
 
+from ..columns import naming
+
 PROBLEM_TYPES = {
     400: ("malformed-request", "Malformed request"),
     403: ("forbidden", "Forbidden"),
@@ -52,12 +54,7 @@ def invalid(errors: Mapping[str, list[str]], detail: str | None = None) -> Probl
         errors = {**{k: errors[k] for k in kept},
                   "_more": [f"{len(errors) - MAX_FIELDS_NAMED} more fields are at fault; the first "
                             f"{MAX_FIELDS_NAMED} are named"]}
-    if detail is None:
-        names = sorted(k for k in errors if k != "_more")
-        shown = ", ".join(k or repr(k) for k in names)          # a name "" is shown as ''
-        detail = (f"invalid value for {shown}" + (" and more" if "_more" in errors else "") if names
-                  else "invalid input")
-    return Problem(422, detail, errors)
+    return Problem(422, naming(errors) if detail is None else detail, errors)
 
 
 MAX_FIELDS_NAMED = 100
