@@ -396,19 +396,25 @@ def test_results_download_as_csv_and_json(browser, base_url, client, tmp_path):
         assert float(r["value"]) == e["value"] and float(r["sigma"]) == e["sigma"] and r["unit"] == e["unit"]
 
 
-@pytest.mark.browser
-def test_event_dates_are_shown_to_what_their_sigma_supports(browser, base_url, client):
-    # the ephemeris example's periastron passages have sigmas of a day or two: their calendar dates are shown to
-    # the day (the seconds were false precision), the full ISO string on hover
+def _ephemeris_example_events(browser, base_url, client, cell: str):
+    """The ephemeris example computed in the form: its event cells matching ``cell``, and the service's events."""
     from selenium.webdriver.common.by import By
     from selenium.webdriver.support.ui import Select
     _open(browser, base_url + "/")
     Select(browser.find_element(By.ID, "calculation")).select_by_value("ephemeris")
     browser.find_element(By.ID, "example").click()
     browser.find_element(By.ID, "compute").click()
-    cells = _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, '.events[data-member="events"] td[data-field="iso"]'))
+    cells = _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, '.events[data-member="events"] td' + cell))
     example = client.get("/v1/calculations/ephemeris").get_json()["example"]
-    first = post(client, "/v1/orbit/ephemeris", example)[1]["results"]["events"]["periastron"][0]
+    return cells, post(client, "/v1/orbit/ephemeris", example)[1]["results"]["events"]
+
+
+@pytest.mark.browser
+def test_event_dates_are_shown_to_what_their_sigma_supports(browser, base_url, client):
+    # the ephemeris example's periastron passages have sigmas of a day or two: their calendar dates are shown to
+    # the day (the seconds were false precision), the full ISO string on hover
+    cells, events = _ephemeris_example_events(browser, base_url, client, '[data-field="iso"]')
+    first = events["periastron"][0]
     assert first["sigma"] >= 1 and cells[0].get_attribute("title") == first["iso"]
     # astropy.time: the ISO date of the JD rounded to the nearest day boundary (JD x.5 is 00:00 UTC)
     from astropy.time import Time
@@ -419,18 +425,9 @@ def test_event_dates_are_shown_to_what_their_sigma_supports(browser, base_url, c
 def test_an_event_field_with_its_sigma_is_shown_as_one_rounded_number(browser, base_url, client):
     # an SB2's velocity separation at the RV extrema comes with velocity_separation_sigma: one cell, value ± sigma
     # rounded together by the PDG rule (as the reports print it), no column of bare sigmas
-    from selenium.webdriver.common.by import By
-    from selenium.webdriver.support.ui import Select
-
     from calcservice.report import printed
-    _open(browser, base_url + "/")
-    Select(browser.find_element(By.ID, "calculation")).select_by_value("ephemeris")
-    browser.find_element(By.ID, "example").click()
-    browser.find_element(By.ID, "compute").click()
-    selector = '.events[data-member="events"] td[data-field^="velocity_separation"]'
-    cells = _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, selector))
-    example = client.get("/v1/calculations/ephemeris").get_json()["example"]
-    entries = post(client, "/v1/orbit/ephemeris", example)[1]["results"]["events"]["max_velocity_separation"]
+    cells, events = _ephemeris_example_events(browser, base_url, client, '[data-field^="velocity_separation"]')
+    entries = events["max_velocity_separation"]
     assert [c.get_attribute("data-field") for c in cells] == ["velocity_separation"] * len(entries)
     shown = [printed(e["velocity_separation"], sigma=e["velocity_separation_sigma"]) for e in entries]
     assert all(p.exponent == 0 for p in shown)

@@ -397,33 +397,40 @@ def _correlation(names, rho):
     return r
 
 
+def _against_uncertainties(name, given, rho, model, correlation, sigma, budget, value=None):
+    """A calculation's output correlation matrix, sigmas and budget (and values, to ``value``) against `uncertainties`
+    through ``model`` on the inputs ``given`` {input: (value, sigma)} with the correlations ``rho``."""
+    r = _correlation(list(given), rho)
+    sigmas = {n: sd for n, (_, sd) in given.items()}
+    s = np.array(list(sigmas.values()))
+    ref = model(*correlated_values([v for v, _ in given.values()], r * np.outer(s, s)))
+    independent = {n: ufloat(v, sd) for n, (v, sd) in given.items()}
+    ref_independent = model(*independent.values())
+    answer = compute(name, {**{n: {"value": v, "sigma": sd} for n, (v, sd) in given.items()},
+                            "correlations": [{"between": list(k), "rho": v} for k, v in rho.items()],
+                            "covariance": True, "budget": True})
+    outputs = answer["correlation"]["outputs"]
+    k = [outputs.index(n) for n in ref]
+    np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(k, k)],
+                               correlation_matrix(list(ref.values())), atol=correlation)
+    for out, f in ref.items():
+        got = answer["results"][out]
+        if value is not None:
+            assert got["value"] == pytest.approx(f.nominal_value, rel=value), out
+        assert got["sigma"] == pytest.approx(f.std_dev, rel=sigma), out
+        want = _budget(ref_independent[out], independent, sigmas, r, rho)
+        assert set(got["budget"]) == set(want)
+        for term, share in want.items():
+            assert got["budget"][term] == pytest.approx(share, abs=budget), (out, term)
+
+
 def test_sb2_output_correlation_and_budget_against_uncertainties():
     # sb2 has a declared Jacobian: the output correlation matrix J C J^T and the budget match `uncertainties`'
     # correlated_values through Hilditch's formulas to rounding.
     given = {"period": (41.6, 0.02), "k1": (38.2, 0.4), "k2": (51.7, 0.6), "eccentricity": (0.31, 0.01),
              "inclination": (71.0, 2.0)}
     rho = {("period", "eccentricity"): -0.2, ("k1", "k2"): 0.3, ("k2", "inclination"): 0.1}
-    names = list(given)
-    r = _correlation(names, rho)
-    sigmas = {n: s for n, (_, s) in given.items()}
-    s = np.array(list(sigmas.values()))
-    ref = _sb2_reference(*correlated_values([v for v, _ in given.values()], r * np.outer(s, s)))
-    independent = {n: ufloat(v, sd) for n, (v, sd) in given.items()}
-    ref_independent = _sb2_reference(*independent.values())
-    answer = compute("sb2", {**{n: {"value": v, "sigma": sd} for n, (v, sd) in given.items()},
-                             "correlations": [{"between": list(k), "rho": v} for k, v in rho.items()],
-                             "covariance": True, "budget": True})
-    outputs = answer["correlation"]["outputs"]
-    k = [outputs.index(n) for n in ref]
-    np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(k, k)],
-                               correlation_matrix(list(ref.values())), atol=2e-15)
-    for name, f in ref.items():
-        got = answer["results"][name]
-        assert got["sigma"] == pytest.approx(f.std_dev, rel=4e-15), name
-        want = _budget(ref_independent[name], independent, sigmas, r, rho)
-        assert set(got["budget"]) == set(want)
-        for term, share in want.items():
-            assert got["budget"][term] == pytest.approx(share, abs=4e-15), (name, term)
+    _against_uncertainties("sb2", given, rho, _sb2_reference, correlation=2e-15, sigma=4e-15, budget=4e-15)
 
 
 def test_visual_output_correlation_and_budget_against_uncertainties():
@@ -433,34 +440,13 @@ def test_visual_output_correlation_and_budget_against_uncertainties():
     given = {"period": (7305.0, 12.0), "angular_semimajor_axis": (412.0, 3.0), "parallax": (48.3, 0.4),
              "mass_ratio": (0.72, 0.03)}
     rho = {("period", "angular_semimajor_axis"): 0.5, ("parallax", "mass_ratio"): -0.25}
-    names = list(given)
-    r = _correlation(names, rho)
-    sigmas = {n: s for n, (_, s) in given.items()}
-    s = np.array(list(sigmas.values()))
 
     def visual(period, alpha, parallax, q):
         a = alpha / parallax
         total = 4 * math.pi ** 2 * (a * AU) ** 3 / (GM_SUN * (period * DAY) ** 2)
         return {"semimajor_axis": a, "total_mass": total, "m1": total / (1 + q), "m2": total * q / (1 + q)}
 
-    ref = visual(*correlated_values([v for v, _ in given.values()], r * np.outer(s, s)))
-    independent = {n: ufloat(v, sd) for n, (v, sd) in given.items()}
-    ref_independent = visual(*independent.values())
-    answer = compute("visual", {**{n: {"value": v, "sigma": sd} for n, (v, sd) in given.items()},
-                                "correlations": [{"between": list(k), "rho": v} for k, v in rho.items()],
-                                "covariance": True, "budget": True})
-    outputs = answer["correlation"]["outputs"]
-    k = [outputs.index(n) for n in ref]
-    np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(k, k)],
-                               correlation_matrix(list(ref.values())), atol=1e-9)
-    for name, f in ref.items():
-        got = answer["results"][name]
-        assert got["value"] == pytest.approx(f.nominal_value, rel=1e-14), name
-        assert got["sigma"] == pytest.approx(f.std_dev, rel=1e-9), name
-        want = _budget(ref_independent[name], independent, sigmas, r, rho)
-        assert set(got["budget"]) == set(want)
-        for term, share in want.items():
-            assert got["budget"][term] == pytest.approx(share, abs=1e-9), (name, term)
+    _against_uncertainties("visual", given, rho, visual, correlation=1e-9, sigma=1e-9, budget=1e-9, value=1e-14)
 
 
 def test_a_systems_warning_codes_in_a_table_come_in_its_single_requests_order(client):
