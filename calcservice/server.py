@@ -23,6 +23,7 @@ from collections import deque
 
 from gunicorn import arbiter, http
 from gunicorn.app.base import BaseApplication
+from gunicorn.http import errors as http_errors
 from gunicorn.http.errors import ChunkMissingTerminator, InvalidChunkSize, LimitRequestLine
 from gunicorn.workers.sync import SyncWorker
 
@@ -57,6 +58,25 @@ PRELOADED = ("astropy.table", "astropy.io.ascii", "astropy.io.ascii.ecsv", "astr
              "pyarrow.compute", "matplotlib.figure", "matplotlib.backends.backend_svg", "matplotlib.backends.backend_agg")
 LINGER_SECONDS = 2.0                 # after an answer, unread request bytes are drained this long before closing
 CONTINUE = b"HTTP/1.1 100 Continue\r\n\r\n"
+
+
+#: what a request the worker refuses before the application sees it has wrong, by gunicorn's error: the
+#: request line, a header (named where gunicorn names it), or the body's framing
+_LINE_ERRORS = (http_errors.InvalidRequestLine, http_errors.InvalidRequestMethod, http_errors.InvalidHTTPVersion,
+                http_errors.LimitRequestLine, http_errors.InvalidProxyLine, http_errors.ForbiddenProxyRequest)
+_BODY_ERRORS = (http_errors.InvalidChunkSize, http_errors.ChunkMissingTerminator, http_errors.InvalidChunkExtension,
+                http_errors.NoMoreData)
+
+
+def _field_of(exc: Exception) -> str:
+    """The field a malformed request's problem names: ``_request_line``, ``_body``, the header gunicorn
+    found at fault (``Content-Length``), or ``_headers``."""
+    if isinstance(exc, _LINE_ERRORS):
+        return "_request_line"
+    if isinstance(exc, _BODY_ERRORS):
+        return "_body"
+    header = getattr(exc, "hdr", None)
+    return header.title() if isinstance(header, str) and header else "_headers"
 
 
 def problem_bytes(problem: Problem) -> bytes:
@@ -422,8 +442,9 @@ class BufferingWorker(SyncWorker):
                            else self.limits.body_timeout_seconds)
                 self.log.warning("Request timeout from ip=%s: %s not complete within %d s",
                                  conn.addr[0] if conn.addr else "", what, seconds)
+                detail = f"the request {what} did not arrive within {seconds} s"
                 self.refuse(conn, problem_bytes(Problem(
-                    408, f"the request {what} did not arrive within {seconds} s",
+                    408, detail, {"_headers" if conn.head_end < 0 else "_body": [detail]},
                     limit={"name": f"{'header' if conn.head_end < 0 else 'body'}_timeout_seconds", "value": seconds})))
             else:
                 self.close(conn)        # idle, or an answer not taken in time
@@ -458,8 +479,9 @@ class BufferingWorker(SyncWorker):
         elif status < 500:
             detail = str(exc) or reason
         else:
-            detail = "the server failed on this request; it has been logged"
-        client.sendall(problem_bytes(Problem(status, detail)))
+            client.sendall(problem_bytes(Problem(status, "the server failed on this request; it has been logged")))
+            return
+        client.sendall(problem_bytes(Problem(status, detail, {_field_of(exc): [detail]})))
 
     def refuse_before_app(self, conn: _Conn, exc: Exception):
         out = _Output()
@@ -469,9 +491,9 @@ class BufferingWorker(SyncWorker):
     def refuse_head(self, conn: _Conn):
         limit = self.limits.max_header_bytes
         # the limit is named as in a 413 problem, so that a client can tell which one it met
-        self.refuse(conn, problem_bytes(Problem(
-            431, f"the request line and headers are over the limit of {limit} bytes",
-            limit={"name": "max_header_bytes", "value": limit})))
+        detail = f"the request line and headers are over the limit of {limit} bytes"
+        self.refuse(conn, problem_bytes(Problem(431, detail, {"_headers": [detail]},
+                                                limit={"name": "max_header_bytes", "value": limit})))
 
     def refuse(self, conn: _Conn, answer: bytes):
         if conn.state == _Conn.QUEUED:
