@@ -133,6 +133,9 @@ class Input:
     unused_with: tuple[str, ...] = ()   # given beside all of these it changes nothing (warning input_unused)
     period: float | None = None    # a cyclic input, meaning the same modulo this (a phase in cycles: 1.0)
     exact: bool = False            # a bound taken as given (where a list begins): a sigma is not used (warned)
+    # a default that a choice picks, (choice input, {choice: value}), as the physics function applies it when
+    # the input is not given: echoed with the inputs as the value used, so a report shows it
+    default_by: tuple[str, Mapping[str, float]] | None = None
 
     def as_dict(self) -> dict:
         d: dict[str, Any] = {"name": self.name, "kind": self.kind, "description": self.description,
@@ -143,6 +146,8 @@ class Input:
             d["bounds"] = self.domain.as_dict()
         if self.default is not None:
             d["default"] = self.default
+        if self.default_by is not None:
+            d["default_by"] = {"input": self.default_by[0], "values": dict(self.default_by[1])}
         if self.choices:
             d["choices"] = list(self.choices)
         if self.isotropic:

@@ -763,3 +763,24 @@ def test_unused_choice_is_said_per_system_where_rows_are_parsed_one_by_one(clien
     # 2.1 kpc = 2100 pc (astropy): the same rate for both
     assert doc["results"][0]["results"]["mass_loss_rate"]["value"] == pytest.approx(
         doc["results"][1]["results"]["mass_loss_rate"]["value"], rel=1e-14)
+
+
+def test_the_values_a_wind_type_fills_in_are_echoed_and_give_the_same_answer_when_sent(client):
+    # a referee re-checking a radio mass-loss rate needs the mu, Z, gamma and T the wind type stood for: they are
+    # echoed as defaults, and the request that gives them explicitly (with no wind type) is answered the same
+    from calcservice.registry import get
+    example = dict(get("mass-loss-radio").example)
+    assert example["wind_type"] == "wn" and not {"mu", "z_rms", "gamma_e", "temperature"} & set(example)
+    status, answer = post(client, "/v1/winds/mass-loss/radio", example)
+    assert status == 200, answer
+    filled = {k: answer["inputs"][k] for k in ("mu", "z_rms", "gamma_e", "temperature")}
+    assert all(e["default"] and e["default_by"] == "wind_type" and e["sigma"] == 0.0 for e in filled.values())
+    # a WN wind of singly ionised helium: one free electron per ion, rms charge 1; mu about helium's atomic
+    # weight, 4.0026 (IUPAC standard atomic weight; from memory)
+    assert filled["gamma_e"]["value"] == 1.0 and filled["z_rms"]["value"] == 1.0
+    assert filled["mu"]["value"] == pytest.approx(4.0026, abs=1e-3)
+    explicit = {**{k: v for k, v in example.items() if k != "wind_type"},
+                **{k: {"value": e["value"], "unit": e["unit"]} if e["unit"] else e["value"] for k, e in filled.items()}}
+    status, again = post(client, "/v1/winds/mass-loss/radio", explicit)
+    assert status == 200, again
+    assert again["results"] == answer["results"]

@@ -250,6 +250,12 @@ def _wind_defaults(kind: str) -> str:
     return f"mu {mu:.10g}, Z {z:.10g}, gamma {gamma:.10g}, T {t:g} K"
 
 
+def _by_wind_type(k: int) -> tuple[str, dict[str, float]]:
+    """Input.default_by for member ``k`` of physics.winds.WIND_TYPES (mu, Z, gamma, T): the value the physics
+    takes for each wind type when the input is not given."""
+    return ("wind_type", {kind: float(values[k]) for kind, values in phys.WIND_TYPES.items()})
+
+
 def _radio_gaunt_positive(frequency=None, temperature=None, z_rms=None, wind_type=None, **_):
     """Rows where the radio Gaunt factor of the nominal inputs (with the wind type's defaults) is positive."""
     if frequency is None:
@@ -302,12 +308,13 @@ register(Calculation(
               kind="choice", choices=tuple(phys.WIND_TYPES), required=False, default="o-star", example="wn",
               unused_with=("mu", "z_rms", "gamma_e", "temperature")),
         Input("mu", "", "mean atomic weight per ion (default from wind_type)", POSITIVE, required=False,
-              example=4.0),
-        Input("z_rms", "", "rms ionic charge (default from wind_type)", POSITIVE, required=False, example=1.0),
+              example=4.0, default_by=_by_wind_type(0)),
+        Input("z_rms", "", "rms ionic charge (default from wind_type)", POSITIVE, required=False, example=1.0,
+              default_by=_by_wind_type(1)),
         Input("gamma_e", "", "mean number of free electrons per ion (default from wind_type)", POSITIVE,
-              required=False, example=1.0),
+              required=False, example=1.0, default_by=_by_wind_type(2)),
         Input("temperature", "K", "electron temperature of the radio-emitting wind (default from wind_type)",
-              POSITIVE, required=False, example=1.0e4),
+              POSITIVE, required=False, example=1.0e4, default_by=_by_wind_type(3)),
         Input("clumping", "", "volume filling factor f of a clumped wind (1 = smooth); the rate scales as f^{1/2}",
               POSITIVE_BELOW_ONE, required=False, default=1.0, example=0.25),
         Input("stellar_radius", "solRad", "radius of the star (to give the radio photosphere in stellar radii and "

@@ -73,6 +73,12 @@ def echo_systems(parsed: Parsed) -> list[dict]:
                 columns[name] = [{"value": spec.default, "sigma": 0.0, "unit": spec.unit, "default": True}] * n
             else:
                 columns[name] = _echo_column(spec, m, n, parsed.times.get(name))
+        elif spec.default_by is not None and name not in parsed.given:
+            # the value the physics takes from a choice (mu of a WN wind): said, as a default is
+            choice, values = spec.default_by
+            if parsed.statics.get(choice) in values:
+                columns[name] = [{"value": values[parsed.statics[choice]], "sigma": 0.0, "unit": spec.unit,
+                                  "default": True, "default_by": choice}] * n
     return [{name: column[k] for name, column in columns.items()} for k in range(n)]
 
 
