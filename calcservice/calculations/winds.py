@@ -615,7 +615,7 @@ register(Calculation(
         Input("mass", "solMass", "stellar mass (vink-2001)", POSITIVE, required=False, example=38.0),
         Input("teff", "K", "effective temperature (vink-2001)", POSITIVE, required=False, example=36500.0),
         Input("metallicity", "", "metallicity Z/Z_sun (vink-2001; 1 when not given)", POSITIVE, required=False,
-              example=1.0),
+              example=1.0, default_by=("recipe", {"vink-2001": 1.0})),
         Input("vinf_over_vesc", "", "ratio of terminal to escape speed (vink-2001; 2.6 above and 1.3 below the "
               "bi-stability jump when not given)", POSITIVE, required=False, example=2.6),
         Input("helium_fraction", "", "surface helium mass fraction Y (nugis-lamers-2000)", POSITIVE_BELOW_ONE,
