@@ -8,8 +8,8 @@ import numpy as np
 
 from ..constants import DAYS_PER_JULIAN_YEAR, MJD_ZERO_JD
 from ..physics import orbit as phys
-from ..registry import (ANGLE, ANY, DATE, DAY_COUNTS_BELOW, INCLINATION, POSITIVE, Calculation, Constraint, Domain, Input,
-                        Output, Warning, register)
+from ..registry import (ANGLE, ANY, DATE, DAY_COUNTS_BELOW, INCLINATION, POSITIVE, Calculation, Constraint, Domain,
+                        Input, Output, Warning, register)
 from .common import (CONVENTIONS, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, MASS_RATIO, SPEED, SYMBOLS, VELOCITY,
                      cited, eccentricity, period, with_speed_check)
 
@@ -164,8 +164,11 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
     offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
     k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
+    # the elements' covariance, with K1 and K2 for the velocity separations where k2 is given
+    elements = EVENT_ELEMENTS + (("k1", "k2") if k2 is not None else ())
     with np.errstate(all="ignore"):     # an infinite sigma or element gives a null date, not a warning
-        cov = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n)
+        cov_all = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, elements)
+        cov = cov_all[:, :len(EVENT_ELEMENTS), :len(EVENT_ELEMENTS)]
         amplitudes = {star: None if k is None else np.broadcast_to(phys.light_travel_amplitude(k, p, e), (n,))
                       for star, k in (("star1", k1), ("star2", k2))}
     chosen = statics.get("light_travel_time") or "none"
@@ -185,14 +188,12 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         separations = {}
         if k2 is not None:
             k1n, k2n = np.broadcast_to(k1, (n,)), np.broadcast_to(k2, (n,))
-            with_speeds = EVENT_ELEMENTS + ("k1", "k2")
-            cov_speeds = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, with_speeds)
             for kind, ev, _s in extrema:
                 # at the extremum's own true anomaly and omega (apsidal motion moves omega from t_periastron on)
                 vs = phys.velocity_separation(e[:, None], ev["omega"], k1n[:, None], k2n[:, None], ev["true_anomaly"])
                 terms = phys.velocity_separation_derivatives(ev, k1n, k2n, e, p, t0, w_dot, p_dot)
                 separations[kind] = (np.broadcast_to(vs, ev["time"].shape),
-                                     phys.event_sigma(terms, cov_speeds, with_speeds))
+                                     phys.event_sigma(terms, cov_all, elements))
     for i in range(n):
         events = per_system[i]["events"]
         for list_name, parts in kinds_all.items():

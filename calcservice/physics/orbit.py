@@ -440,7 +440,6 @@ def velocity_separation(eccentricity, omega_deg, k1, k2, true_anomaly_rad):
     return (k1 + k2) * np.abs(cos_u + eccentricity * cos_degrees(omega_deg))
 
 
-
 def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_periastron, omega_dot=None,
                                     period_derivative=None):
     """Partial derivatives of |v1 - v2| (km/s) at the radial-velocity extrema ``event`` of :func:`event_times`:
@@ -467,13 +466,14 @@ def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_peria
     level = np.cos(u) + e * np.cos(w)
     side = np.sign(level)
     d_nu, d_m_de = mean_anomaly_derivatives(nu, e)
-    rate = 0.0 if period_derivative is None else period_change_rate(np.asarray(period_derivative)[..., None])
-    slope = p * (1.0 + rate * cycles)                                                 # dt/dc
+    pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
+    slope = p * (1.0 + period_change_rate(pdot) * cycles)                             # dt/dc
     w_rate = 0.0 if omega_dot is None else np.radians(np.asarray(omega_dot, dtype=float)[..., None]) / \
         DAYS_PER_JULIAN_YEAR                                                          # rad per day
-    at_fixed_cycles = {"t_periastron": 1.0, "period": cycles + 0.5 * rate * cycles * cycles,
-                       "period_derivative": 0.5 * p * cycles * cycles / JULIAN_YEAR}
-    dnu = {x: -TWO_PI * dt / slope / d_nu for x, dt in at_fixed_cycles.items()}
+    # dt/dx with the cycles held: the date derivatives of a phase that moves with nothing
+    at_fixed_cycles = date_derivatives(time, cycles, p, t0, {}, None, pdot)
+    dnu = {x: -TWO_PI * at_fixed_cycles["d_" + x] / slope / d_nu
+           for x in ("t_periastron", "period", "period_derivative")}
     dnu["eccentricity"] = -d_m_de / d_nu
     dw = {"omega": np.radians(1.0), "t_periastron": -w_rate,
           "omega_dot": np.radians(1.0) * (time - t0) / DAYS_PER_JULIAN_YEAR}
