@@ -42,8 +42,8 @@ import orjson
 
 from . import __version__
 from .columns import column_array as _to_array
-from .columns import column_name, column_role, correlated_columns, error_text, kept_name_errors, split_unit, \
-    uncertain_parts
+from .columns import column_name, column_role, correlated_columns, error_text, infinite_cells, kept_name_errors, \
+    split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
 from .media import FIGURES, REPORTS
 
@@ -188,14 +188,11 @@ class Result(dict):
 def _series_and_events(results: Mapping[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]:
     """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as
     (title, header, rows) tables, printed as the reports print them (dates to what their sigma supports)."""
-    from .report import STYLES, event_tables, printed_entry, series_rows
+    from .report import STYLES, event_tables, series_table
     style, tables = STYLES["text"], []
     if isinstance(results.get("series"), Mapping):
-        names, units, srows = series_rows(results["series"])
-        header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
-        body = [[style.number(printed_entry(e, digits=12) if n in ("times", "time") else printed_entry(e))
-                 for n, e in zip(names, row)] for row in srows]
-        tables.append(("series", header, body))
+        names, units, body = series_table(results["series"], style)
+        tables.append(("series", [f"{n} [{u}]" if u else n for n, u in zip(names, units)], body))
     tables += [(label.replace("_", " "), header, body) for label, header, body in event_tables(results, style)]
     return tables
 
@@ -988,15 +985,11 @@ def _no_infinity(table: "InputTable") -> None:
     """An infinite cell refused before a JSON body is sent, naming its column and system: JSON has no infinity,
     the encoder writes null, and the service would say the value was not given (an Arrow body carries it, and the
     service answers that system as not finite)."""
-    for name, entry in table.columns.items():
-        if not isinstance(entry, dict):
-            continue
-        for member, v in entry.items():
-            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
-                k = int(np.flatnonzero(np.isinf(v))[0])
-                label = name if member == "value" else f"{name}_{member}"
-                raise InvalidInput(f"{name}: {label} of system {k} is {v[k]}, not a finite number (JSON has no "
-                                   "infinity): give a finite number, or NaN for a value not given")
+    for name, member, v, where in infinite_cells(table.columns):
+        k = int(where[0])
+        label = name if member == "value" else f"{name}_{member}"
+        raise InvalidInput(f"{name}: {label} of system {k} is {v[k]}, not a finite number (JSON has no "
+                           "infinity): give a finite number, or NaN for a value not given")
 
 
 def _is_column(col) -> bool:

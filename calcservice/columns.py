@@ -11,7 +11,7 @@ from __future__ import annotations
 import difflib
 import math
 import re
-from typing import Container, Iterable, Mapping
+from typing import Container, Iterable, Iterator, Mapping
 
 import numpy as np
 
@@ -255,6 +255,19 @@ def correlated_columns(columns: dict[str, list]) -> tuple[str, str] | None:
     return None
 
 
+def infinite_cells(columns: Mapping[str, object]) -> Iterator[tuple[str, str, np.ndarray, np.ndarray]]:
+    """The infinite cells of a catalogue's columns (``{input: {member: array}}``, as a columns batch holds
+    them): (input, member, its array, the systems where it is infinite), for the members that have any.
+    JSON has no infinity (an encoder writes null, read as a value not given), so a caller of the JSON
+    path puts them back or refuses them."""
+    for name, entry in columns.items():
+        if not isinstance(entry, Mapping):
+            continue
+        for member, v in entry.items():
+            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
+                yield name, member, v, np.flatnonzero(np.isinf(v))
+
+
 def meant(name: str, known, symbols: Mapping[str, str] | None = None) -> str:
     """"; did you mean X?" where ``name`` plainly means one of ``known``: its symbol in the formulas
     (``symbols``: "e" eccentricity, "K1" k1), the one known name it begins ("ecc": eccentricity) or one close
@@ -286,4 +299,4 @@ def error_text(problem: Mapping) -> str:
 
 
 __all__ = ["naming", "error_text", "unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
-           "lenient_message", "meant"]
+           "lenient_message", "meant", "infinite_cells"]

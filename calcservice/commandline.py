@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from . import report
-from .columns import meant
+from .columns import infinite_cells, meant
 from .core import Problem, compute, compute_batch
 from .registry import Calculation, calculations
 
@@ -240,10 +240,8 @@ def table(response: dict, calc: Calculation) -> str:
         lines += _columns(["result", "value", "unit", "description"], rows)
     series = results.get("series")
     if isinstance(series, dict):
-        names, units, srows = report.series_rows(series)
+        names, units, body = report.series_table(series, style)
         header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
-        body = [[style.number(report.printed_entry(e, digits=12) if n in ("times", "time") else
-                              report.printed_entry(e)) for n, e in zip(names, row)] for row in srows]
         lines += ([""] if rows else []) + _columns(header, body, right=True)
     for label, header, body in report.event_tables(results, style):
         lines += ["", label.replace("_", " ")] + _columns(header, body)
@@ -489,14 +487,10 @@ def _infinities_back(arrays: dict, columns: dict) -> dict:
     """The JSON form of a slice of a catalogue (``columns``) with the infinite cells of its arrays put back: JSON
     writes them null, which the batch would answer as a value not given, where the service says of an infinite
     table cell that it is not finite."""
-    for name, entry in arrays.items():
-        if not isinstance(entry, dict):
-            continue
-        for member, v in entry.items():
-            if isinstance(v, np.ndarray) and v.dtype.kind == "f" and np.isinf(v).any():
-                cells = columns[name][member]
-                for k in np.flatnonzero(np.isinf(v)).tolist():
-                    cells[k] = float(v[k])
+    for name, member, v, where in infinite_cells(arrays):
+        cells = columns[name][member]
+        for k in where.tolist():
+            cells[k] = float(v[k])
     return columns
 
 

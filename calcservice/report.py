@@ -468,6 +468,16 @@ def series_rows(series: Mapping[str, Any]) -> tuple[list[str], list[str], list[l
     return names, units, rows
 
 
+def series_table(series: Mapping[str, Any], s: Style) -> tuple[list[str], list[str], list[list[str]]]:
+    """A series' names, units and rows printed in style ``s``: each entry rounded by its sigma, the times
+    to 12 significant digits (a JD needs them); one writer for the reports, the command line and the
+    client's print."""
+    names, units, rows = series_rows(series)
+    body = [[s.number(printed_entry(e, digits=12) if k in ("times", "time") else printed_entry(e))
+             for k, e in zip(names, row)] for row in rows]
+    return names, units, body
+
+
 def event_keys(entries: list[dict]) -> list[str]:
     """The members of an event list shown beside its dates: those some entry has (an ISO date is none for
     a day count from an arbitrary zero: no column of blanks); a member's sigma (``NAME_sigma``) is printed
@@ -710,16 +720,9 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             doc.para(s.text(f"{length} rows: too many to print here; the JSON response (or the CSV batch path) "
                             "has them all."))
         else:
-            srows = series_rows(series)[2]
+            body = series_table(series, s)[2]
             header = [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in dates else ''}]" if u else "")
                       for k, u in zip(names, units)]
-            body = []
-            for row in srows:
-                cells = []
-                for k, entry in zip(names, row):
-                    p = printed_entry(entry, digits=12) if k in ("times", "time") else printed_entry(entry)
-                    cells.append(s.number(p))
-                body.append(cells)
             doc.table(header, body, "r" * len(header))
 
     for label, header, body in event_tables(results, s):
