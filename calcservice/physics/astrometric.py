@@ -204,16 +204,29 @@ def fractional_mass_from_photocentre(astrometric_mass_function_value, primary_ma
         log_r = np.log(np.where(ok, f, np.nan)) - np.log(np.where(ok, m1, np.nan)) - 2.0 * np.log(dark)
         # s ~ r^(1/3) for a light companion, 1 - s ~ 1/r for a heavy one
         y = np.maximum(log_r / 3.0, log_r)
+        # each system stops at its own convergence, so that its root does not depend on the other systems of
+        # the call (alone or in a batch, at the nominal point or a step of the stencil)
+        done = np.zeros(y.shape, dtype=bool)
         for _ in range(iterations):
             log_s = -np.logaddexp(0.0, -y)
             log_1ms = -np.logaddexp(0.0, y)
             s = np.exp(log_s)
             step = (3.0 * log_s - log_1ms - log_r) / (3.0 - 2.0 * s)
-            y = y - step
-            if np.all(~np.isfinite(step) | (np.abs(step) < 1e-14)):
+            y = np.where(done, y, y - step)
+            done |= ~np.isfinite(step) | (np.abs(step) < 1e-14)
+            if done.all():
                 break
         s = np.exp(-np.logaddexp(0.0, -y))
         one_minus_s = np.exp(-np.logaddexp(0.0, y))
+        # exp(y) multiplies the rounding of y by |y| (up to 6e-15 relative in 1 - s where the companion is far
+        # heavier than M1 (1 - beta)^2): a last Newton step in y on the residual written without logarithms,
+        # h = s^3 M1 (1 - beta)^2 / ((1 - s) f_ast) - 1, moves s and 1 - s by their own factors
+        # (ds = s (1 - s) dy), kept where it is finite
+        residual = (s / one_minus_s) * (s * s) * (m1 * dark / f) * dark - 1.0
+        dy = -residual / (3.0 - 2.0 * s)
+        polished_s, polished_rest = s * (1.0 + one_minus_s * dy), one_minus_s * (1.0 - s * dy)
+        good = np.isfinite(polished_s) & np.isfinite(polished_rest)
+        s, one_minus_s = np.where(good, polished_s, s), np.where(good, polished_rest, one_minus_s)
         return beta + dark * s, dark * one_minus_s
 
 
