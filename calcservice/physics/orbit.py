@@ -325,11 +325,18 @@ def dated_events(raw_phase, period, t_periastron, omega, after, count, omega_dot
         time = cycle_time(cycles, period, t_periastron, pdot)
         w_t = omega + np.zeros_like(time)
         if wdot is not None:
+            # each date leaves the passes once one moves it by two roundings or less (NaN: a failed system), so
+            # that its value follows its own trajectory only: the same alone or in a batch
+            settled = np.zeros(time.shape, dtype=bool)
             for _ in range(_APSIDAL_PASSES):
-                w_t = omega_at(time, omega, t_periastron, wdot)
-                cycles = n + raw_phase(w_t, cycles) - base
-                last, time = time, cycle_time(cycles, period, t_periastron, pdot)
-                if not np.any(np.abs(time - last) > 2.0 * np.spacing(np.abs(time))):    # NaN: a failed system
+                w_next = omega_at(time, omega, t_periastron, wdot)
+                c_next = n + raw_phase(w_next, cycles) - base
+                t_next = cycle_time(c_next, period, t_periastron, pdot)
+                moved = np.abs(t_next - time) > 2.0 * np.spacing(np.abs(t_next))
+                w_t, cycles, time = (np.where(settled, old, new) for old, new in
+                                     ((w_t, w_next), (cycles, c_next), (time, t_next)))
+                settled |= ~moved
+                if settled.all():
                     break
         early = time < after
         if not np.any(early):
