@@ -110,3 +110,36 @@ def test_mid_eclipse_dates_under_apsidal_motion_in_a_batch_are_the_single_answer
     for body, row in zip(systems, rows):
         single = _post(client, "/v1/orbit/mid-eclipse", body)
         assert row["results"] == single["results"]
+
+
+# --------------------------------------------------------------------------- speeds the calculation derives
+def _vis_viva_periastron_km_s(period_d, eccentricity, total_mass):
+    """v^2 = GM (2/r - 1/a) at r = a (1 - e) (the vis-viva equation), a from Kepler's third law, by astropy."""
+    from astropy import units as u
+    gm = const.GM_sun * total_mass
+    a = (gm * (period_d * u.d) ** 2 / (4 * math.pi ** 2)) ** (1 / 3)
+    return np.sqrt(gm * (2 / (a * (1 - eccentricity)) - 1 / a)).to_value(u.km / u.s)
+
+
+@pytest.mark.parametrize("period, eccentricity, warned", [(0.1, 0.999, True), (118.3, 0.62, False)])
+def test_a_periastron_speed_above_a_tenth_of_c_is_warned_as_a_given_speed_is(client, period, eccentricity, warned):
+    # The service warns relativistic_speed for a speed above 0.1 c (c exact, SI; CHANGELOG: "warned above
+    # 0.1 c"), where the Newtonian formulas are off by order (v/c)^2.  It did so for the speeds one gives (k1,
+    # vinf1, ...) but not for those it derives: 20 + 20 solMass in 0.1 d at e = 0.999 pass periastron at 0.23 c
+    # and were answered without a word.
+    answer = _post(client, "/v1/orbit/geometry", {"period": period, "eccentricity": eccentricity, "m1": 20.0,
+                                                  "m2": 20.0})
+    want = _vis_viva_periastron_km_s(period, eccentricity, 40.0)
+    assert answer["results"]["speed_periastron"]["value"] == pytest.approx(want, rel=1e-13)
+    assert (want > 0.1 * const.c.to_value("km/s")) == warned
+    codes = [(w["code"], w.get("fields")) for w in answer["warnings"]]
+    assert (("relativistic_speed", ["speed_periastron"]) in codes) == warned
+
+
+def test_an_expansion_speed_derived_from_a_distance_is_warned_above_a_tenth_of_c(client):
+    # v = 4.74047 s D / P (1 au per Julian year in km/s, IAU 2012 au): 1 mas per 100 d at 10 Mpc is 1.7e5 km/s
+    answer = _post(client, "/v1/winds/shell-distance", {"period": 100.0, "shell_spacing": 1.0, "distance": 1e7})
+    from astropy import units as u
+    want = (1e-3 * u.arcsec * 1e7 * u.pc / (100 * u.d)).to_value(u.km / u.s, equivalencies=u.dimensionless_angles())
+    assert answer["results"]["expansion_speed"]["value"] == pytest.approx(want, rel=1e-14)
+    assert "relativistic_speed" in [w["code"] for w in answer["warnings"]]

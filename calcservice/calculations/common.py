@@ -123,11 +123,14 @@ def semi_amplitude(name: str, star: str, example: float) -> Input:
                  example=example)
 
 
-def relativistic_speeds(inputs, names) -> list:
-    """A warning for each speed input of ``names`` above 0.1 c in some system."""
+def relativistic_speeds(inputs, names, outputs=None) -> list:
+    """A warning for each speed of ``names`` above 0.1 c in some system: an input as given, or else the output of
+    that name (a speed the calculation derives, such as a periastron speed, is as Newtonian as one given)."""
     out = []
     for name in names:
         v = inputs.get(name)
+        if v is None and outputs is not None:
+            v = outputs.get(name)
         if v is None:
             continue
         fast = np.asarray(v) > RELATIVISTIC_FRACTION * C_LIGHT_KM_S
@@ -139,7 +142,7 @@ def relativistic_speeds(inputs, names) -> list:
 
 
 def with_speed_check(check, names):
-    """``check`` followed by the relativistic-speed warnings on the inputs ``names``."""
+    """``check`` followed by the relativistic-speed warnings on the speeds ``names`` (inputs, or outputs)."""
     def combined(inputs, outputs):
-        return [*(check(inputs, outputs) if check is not None else ()), *relativistic_speeds(inputs, names)]
+        return [*(check(inputs, outputs) if check is not None else ()), *relativistic_speeds(inputs, names, outputs)]
     return combined

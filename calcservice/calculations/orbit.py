@@ -459,7 +459,7 @@ register(Calculation(
         Constraint(("radius1", "radius2"), "Roche-lobe fill factors need the masses of both stars: give m1 with m2 "
                    "(or mass_ratio), or semimajor_axis with mass_ratio", _geometry_radii_need_masses),
     ),
-    check=_geometry_check,
+    check=with_speed_check(_geometry_check, ("speed_periastron",)),
     example={"period": {"value": 118.3, "sigma": 0.2}, "eccentricity": {"value": 0.62, "sigma": 0.02},
              "m1": {"value": 8.4, "sigma": 0.5}, "m2": {"value": 5.1, "sigma": 0.3},
              "radius1": {"value": 4.3, "sigma": 0.3}, "radius2": {"value": 2.9, "sigma": 0.2}},
