@@ -148,8 +148,8 @@ def test_an_expansion_speed_derived_from_a_distance_is_warned_above_a_tenth_of_c
 # --------------------------------------------------------------------------- linear sigmas against mpmath derivatives
 def _linear_against_mpmath(client, path, reference, given, extra=None, value=4e-15, sigma=1e-8, angles=()):
     """Each output's value against ``reference`` at 40 digits, and its linear sigma against
-    (sum_i (df/dx_i sigma_i)^2)^{1/2} with df/dx_i by a 40-digit central difference (the definition of linear propagation without
-    correlations).  ``sigma``: the service differentiates by central differences, steps 1e-5 of the scale
+    (sum_i (df/dx_i sigma_i)^2)^{1/2} with df/dx_i by a 40-digit central difference (the definition of linear
+    propagation without correlations).  ``sigma``: the service differentiates by central differences, steps 1e-5 of the scale
     (DEVELOPERS), whose truncation and rounding leave ~1e-10 to 1e-9; the values of ``angles`` are the caller's to
     compare (their ranges are conventions).  Returns the answer."""
     body = {name: {"value": v, "sigma": s} for name, (v, s) in given.items()}
@@ -450,3 +450,135 @@ def test_mid_eclipse_dates_with_a_period_derivative_are_the_minima_in_time(clien
                 c, d = b - golden * (b - a), a + golden * (b - a)
                 a, b = (a, d) if rho2(c) < rho2(d) else (c, b)
             assert abs(float(t - (a + b) / 2)) < 1e-11, kind
+
+
+# --------------------------------------------------------------------------- Monte Carlo on the documented draw model
+def _split_normal(mode, minus, plus, z):
+    """A split normal (mode, half-widths minus and plus, each half weighted by its width: Wallis 2014, Statistical
+    Science 29, 106) from standard normal z by its inverse CDF, which keeps any correlation of the z."""
+    from scipy.special import ndtr, ndtri
+    p = ndtr(z)
+    total = minus + plus
+    left = mode + minus * ndtri(np.clip(p * total / (2 * minus), 0, 1))
+    right = mode + plus * ndtri(np.clip(0.5 + (p - minus / total) * total / (2 * plus), 0, 1))
+    return np.where(p < minus / total, left, right)
+
+
+def _photocentre_numpy(alpha_mas, parallax, period, m1, beta):
+    """The photocentre reference above in numpy over draws (the root bisected 200 times in s)."""
+    gm, au = const.GM_sun.si.value, const.au.si.value
+    f = 4 * math.pi ** 2 * (alpha_mas / parallax * au) ** 3 / (gm * (period * 86400.0) ** 2)
+    r = f / (m1 * (1 - beta) ** 2)
+    lo, hi = np.zeros_like(r), np.ones_like(r)
+    for _ in range(200):
+        mid = (lo + hi) / 2
+        below = mid ** 3 < r * (1 - mid)
+        lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+    s = (lo + hi) / 2
+    m2 = m1 * (beta + (1 - beta) * s) / ((1 - beta) * (1 - s))
+    return {"astrometric_mass_function": f, "m2": m2, "total_mass": m1 + m2, "fractional_mass": beta + (1 - beta) * s}
+
+
+def test_photocentre_monte_carlo_with_split_normals_correlations_and_paired_samples(client):
+    # The documented draw model (README, engine): the caller's parallax draws used index by index; the other
+    # uncertain inputs standard normal variates from the seeded numpy Generator in the order of the declaration,
+    # correlated by the Cholesky factor of the correlation matrix (a Gaussian copula), normal or split normal;
+    # draws outside a domain (luminosity_fraction below 0) rejected with their whole index; median, standard
+    # deviation, central 68.27 % interval and the outputs' Pearson correlation over the kept draws.  Agreed to
+    # 7e-16 relative and the correlations to 1e-15.
+    from scipy.special import ndtr
+    n, seed = 800, 31
+    parallax = 21.4 + 0.3 * np.random.default_rng(77).standard_normal(n)
+    answer = _post(client, "/v1/astrometric/photocentre", {
+        "photocentre_semimajor_axis": {"value": 3.71, "sigma": 0.05}, "parallax": {"samples": list(parallax)},
+        "period": {"value": 612.0, "sigma": 4.0},
+        "primary_mass": {"value": 1.08, "sigma_minus": 0.03, "sigma_plus": 0.08},
+        "luminosity_fraction": {"value": 0.02, "sigma_minus": 0.02, "sigma_plus": 0.05},
+        "correlations": [{"between": ["photocentre_semimajor_axis", "period"], "rho": 0.6},
+                         {"between": ["primary_mass", "luminosity_fraction"], "rho": -0.3}],
+        "uncertainty": {"method": "monte_carlo", "seed": seed}, "covariance": True})
+    r = np.eye(4)
+    r[0, 1] = r[1, 0] = 0.6
+    r[2, 3] = r[3, 2] = -0.3
+    z = np.random.default_rng(seed).standard_normal((n, 4)) @ np.linalg.cholesky(r).T
+    alpha, period = 3.71 + 0.05 * z[:, 0], 612.0 + 4.0 * z[:, 1]
+    m1, beta = _split_normal(1.08, 0.03, 0.08, z[:, 2]), _split_normal(0.02, 0.02, 0.05, z[:, 3])
+    kept = (beta >= 0) & (beta < 1)
+    assert answer["uncertainty"]["rejected_fraction"] == (n - kept.sum()) / n
+    ref = _photocentre_numpy(alpha[kept], parallax[kept], period[kept], m1[kept], beta[kept])
+    for name, y in ref.items():
+        got = answer["results"][name]
+        want = (np.median(y), np.std(y, ddof=1), np.percentile(y, 100 * ndtr(-1.0)), np.percentile(y, 100 * ndtr(1.0)))
+        np.testing.assert_allclose([got["value"], got["sigma"], got["low"], got["high"]], want, rtol=2e-15,
+                                   err_msg=name)
+    outputs = answer["correlation"]["outputs"]
+    k = [outputs.index(name) for name in ref]
+    np.testing.assert_allclose(np.array(answer["correlation"]["matrix"])[np.ix_(k, k)],
+                               np.corrcoef([ref[name] for name in ref]), atol=1e-14)
+
+
+# --------------------------------------------------------------------------- every output in other units; budgets
+#: other units for each canonical output unit, converted by astropy
+OTHER_UNITS = {"solMass": ("kg", "jupiterMass"), "au": ("km", "solRad", "pc"), "km/s": ("m/s", "au/yr"),
+               "deg": ("rad", "arcsec"), "mas": ("arcsec", "uas"), "pc": ("kpc", "lyr"), "solRad": ("km", "au"),
+               "d": ("s", "h"), "solMass/yr": ("kg/s", "solMass/Myr"), "1/yr": ("1/s",), "yr": ("d",),
+               "K": ("mK",)}
+
+
+def _example_body(name):
+    from calcservice.registry import calculations
+    return copy.deepcopy(calculations()[name].example)
+
+
+def _path(name):
+    from calcservice.registry import calculations
+    return calculations()[name].path
+
+
+def _scalar_outputs(results):
+    return {k: v for k, v in results.items() if isinstance(v, dict) and "unit" in v and "value" in v}
+
+
+@pytest.mark.parametrize("name", ["sb1", "sb2", "visual", "campbell", "photocentre", "orbital-parallax", "geometry",
+                                  "mid-eclipse", "collision", "mass-loss-radio", "mass-loss-period-change",
+                                  "mass-loss-momentum-ratio", "mass-loss-recipe", "shell-distance"])
+def test_every_scalar_output_in_other_units_is_astropys_conversion(client, name):
+    # Each calculation's example, each output asked for in two other units: value, sigma (and the linear budget,
+    # which is a fraction) are astropy's conversion of the answer in the canonical unit, to 4 roundings.  Agreed:
+    # exact to 2 roundings everywhere.
+    from astropy import units as u
+    path = _path(name)
+    body = _example_body(name)
+    base = _scalar_outputs(_post(client, path, {**body, "budget": True})["results"])
+    units = {}
+    for output, entry in base.items():
+        for k, other in enumerate(OTHER_UNITS.get(entry["unit"], ())):
+            units.setdefault(k, {})[output] = other
+    assert units, name
+    for asked in units.values():
+        got = _scalar_outputs(_post(client, path, {**body, "budget": True, "units": asked})["results"])
+        for output, other in asked.items():
+            factor = (1 * u.Unit(base[output]["unit"])).to_value(other)
+            assert u.Unit(got[output]["unit"]) == u.Unit(other)
+            for key in ("value", "sigma"):
+                if base[output].get(key) is not None:
+                    assert got[output][key] == pytest.approx(base[output][key] * factor, rel=1e-15), (output, key)
+            assert got[output].get("budget") == base[output].get("budget"), output
+
+
+@pytest.mark.parametrize("name", ["sb2", "visual", "campbell", "geometry", "collision", "mass-loss-radio",
+                                  "thiele-innes", "orbital-parallax"])
+def test_linear_budget_shares_with_correlations_sum_to_one(client, name):
+    # The linear budget: (df/dx_i sigma_i)^2 / var for each input and 2 rho_ij (df/dx_i sigma_i)(df/dx_j sigma_j) / var
+    # for each correlated pair sum to var / var = 1 (the definition, J C J^T expanded).  Each example with two
+    # correlations added among its uncertain inputs.  Agreed to 1e-14.
+    body = _example_body(name)
+    uncertain = [k for k, v in body.items() if isinstance(v, dict) and v.get("sigma")]
+    body["correlations"] = [{"between": [uncertain[0], uncertain[1]], "rho": 0.45},
+                            {"between": [uncertain[1], uncertain[-1]], "rho": -0.3}]
+    results = _post(client, _path(name), {**body, "budget": True})["results"]
+    shares = [entry["budget"] for entry in _scalar_outputs(results).values() if entry.get("budget")]
+    assert shares, name
+    for budget in shares:
+        assert f"{uncertain[0]},{uncertain[1]}" in budget
+        assert sum(budget.values()) == pytest.approx(1.0, abs=1e-14)
