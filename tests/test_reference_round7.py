@@ -149,9 +149,9 @@ def test_an_expansion_speed_derived_from_a_distance_is_warned_above_a_tenth_of_c
 def _linear_against_mpmath(client, path, reference, given, extra=None, value=4e-15, sigma=1e-8, angles=()):
     """Each output's value against ``reference`` at 40 digits, and its linear sigma against
     (sum_i (df/dx_i sigma_i)^2)^{1/2} with df/dx_i by a 40-digit central difference (the definition of linear
-    propagation without correlations).  ``sigma``: the service differentiates by central differences, steps 1e-5 of the scale
-    (DEVELOPERS), whose truncation and rounding leave ~1e-10 to 1e-9; the values of ``angles`` are the caller's to
-    compare (their ranges are conventions).  Returns the answer."""
+    propagation without correlations).  ``sigma``: the service differentiates by central differences, steps 1e-5
+    of the scale (DEVELOPERS), whose truncation and rounding leave ~1e-10 to 1e-9; the values of ``angles`` are the
+    caller's to compare (their ranges are conventions).  Returns the answer."""
     body = {name: {"value": v, "sigma": s} for name, (v, s) in given.items()}
     got = _post(client, path, {**body, **(extra or {})})["results"]
     with mp.workdps(40):
