@@ -582,3 +582,36 @@ def test_linear_budget_shares_with_correlations_sum_to_one(client, name):
     for budget in shares:
         assert f"{uncertain[0]},{uncertain[1]}" in budget
         assert sum(budget.values()) == pytest.approx(1.0, abs=1e-14)
+
+
+# --------------------------------------------------------------------------- the bi-stability jump
+def _vink_jump_kelvin(luminosity, mass, metallicity):
+    """Vink, de Koter & Lamers (2001), A&A 369, 574, eqs. 14-15 (from memory): T_jump = 61.2 + 2.59 log <rho> kK,
+    log <rho> = -14.94 + 3.1857 Gamma_e + 0.85 log Z/Z_sun (3.2 printed; the service's 3.1857, test_winds_reference_
+    round2), Gamma_e = kappa_e L / (4 pi c G M), kappa_e = 0.325 cm^2/g, IAU 2015 B3 L_sun and GM_sun (astropy)."""
+    from astropy import units as u
+    gamma = (0.325 * u.cm ** 2 / u.g * luminosity * const.L_sun
+             / (4 * math.pi * const.c * const.GM_sun * mass)).to_value(u.one)
+    return 1e3 * (61.2 + 2.59 * (-14.94 + 3.1857 * gamma + 0.85 * math.log10(metallicity)))
+
+
+@pytest.mark.parametrize("luminosity, mass, metallicity, offset, near", [
+    (1e6, 40.0, 3.0, 110.0, True),        # the jump at 28.7 kK, above the 22.5-27.5 kK band
+    (1e5, 30.0, 1 / 30, -240.0, True),    # the jump at 19.9 kK, below it
+    (1e6, 40.0, 3.0, 4000.0, False),
+    (3.2e5, 38.0, 1.0, 12266.0, False),   # 36.5 kK, the example's star
+])
+def test_a_teff_next_to_this_stars_jump_is_warned_wherever_the_jump_falls(client, luminosity, mass, metallicity,
+                                                                           offset, near):
+    # Across the jump the rate changes tenfold (1.75e-5 solMass/yr 110 K above the jump of a metal-rich
+    # 1e6 L_sun, 40 solMass star, 1.68e-4 just below it), so a teff 110 K from it with a 500 K sigma is a rate
+    # that the linear sigma (3e-6) cannot describe.  The near-jump warning fired only for teff in 22.5-27.5 kK,
+    # where the jump falls for solar metallicity and small Gamma_e; at Z = 3 Z_sun and Gamma_e = 0.62 it lies at
+    # 28.7 kK, at Z = Z_sun/30 at 19.9 kK, and there nothing was said.
+    jump = _vink_jump_kelvin(luminosity, mass, metallicity)
+    answer = _post(client, "/v1/winds/mass-loss/recipe", {
+        "recipe": "vink-2001", "luminosity": luminosity, "mass": mass, "metallicity": metallicity,
+        "teff": {"value": jump + offset, "sigma": 500.0}})
+    assert answer["results"]["bistability_jump_temperature"]["value"] == pytest.approx(jump, rel=1e-12)
+    messages = [w["message"] for w in answer["warnings"] if w["code"] == "outside_calibration"]
+    assert any("bi-stability jump" in m for m in messages) == near

@@ -558,6 +558,10 @@ _RECIPE_CONSTRAINTS = (
 )
 
 
+#: half the width of the 22.5-27.5 kK band between the Vink et al. (2001) fits, taken about the jump temperature
+VINK_JUMP_HALF_WIDTH = 2.5e3
+
+
 def _out_of(x, low, high):
     return (x < low) | (x > high)
 
@@ -570,7 +574,8 @@ def _recipe_check(inputs, outputs):
         teff = inputs["teff"]
         z = inputs.get("metallicity")
         z = np.ones_like(teff) if z is None else z
-        hot = teff >= phys.vink_jump_temperature(lum, inputs["mass"], z)
+        jump = phys.vink_jump_temperature(lum, inputs["mass"], z)
+        hot = teff >= jump
         for fit, low, high, which in ((hot, *phys.VINK_HOT_RANGE, "hot-side fit (their eq. 24)"),
                                       (~hot, *phys.VINK_COOL_RANGE, "cool-side fit (their eq. 25)")):
             bad = fit & _out_of(teff, low, high)
@@ -583,9 +588,12 @@ def _recipe_check(inputs, outputs):
                                           "models"),
             (_out_of(lum, 10**4.5, 10**6.25), "luminosity is outside log L/L_sun = 4.5-6.25, about the range of the "
                                               "Vink et al. (2001) model grid"),
-            ((teff > 22.5e3) & (teff < 27.5e3), "teff lies in 22.5-27.5 kK, where the bi-stability jump falls: the "
-                                                "rate changes by about an order of magnitude across the jump "
-                                                "temperature, which is itself uncertain by a few kK"),
+            # the jump falls in 22.5-27.5 kK for most stars but moves with Gamma_e and Z beyond it (about 19-29 kK
+            # over the grid): a teff as close to this star's jump as the band's half-width is as near it
+            (((teff > 22.5e3) & (teff < 27.5e3)) | (np.abs(teff - jump) < VINK_JUMP_HALF_WIDTH),
+             "teff lies in 22.5-27.5 kK, or within 2.5 kK of this star's bi-stability jump temperature, where the "
+             "rate changes by about an order of magnitude across the jump temperature, which is itself uncertain by "
+             "a few kK"),
         ):
             if np.any(bad):
                 out.append(Warning("outside_calibration", message, bad))
