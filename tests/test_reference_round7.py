@@ -615,3 +615,39 @@ def test_a_teff_next_to_this_stars_jump_is_warned_wherever_the_jump_falls(client
     assert answer["results"]["bistability_jump_temperature"]["value"] == pytest.approx(jump, rel=1e-12)
     messages = [w["message"] for w in answer["warnings"] if w["code"] == "outside_calibration"]
     assert any("bi-stability jump" in m for m in messages) == near
+
+
+def test_eclipse_possible_under_apsidal_motion_agrees_with_the_minimum_separation(client):
+    # The minimum in time of the projected separation rho = r (1 - sin^2 i sin^2(nu + omega(t)))^{1/2} (Heintz 1978,
+    # ch. 4), omega(t) moving at omega_dot and equal to the given omega at the minimum itself, by golden section at 40
+    # digits: 2.9139681063469456 solRad for the eclipse of star 2 of this fictional pair (the service's
+    # minimum_separation2 agrees to 1e-15).  With R1 + R2 1e-9 below it the discs just miss: eclipse_parameter2 > 1
+    # and no_eclipse_of_star2.  events.eclipse_possible was worked out without the apsidal motion (2.91396810135
+    # solRad, 1.7e-9 smaller) and said the discs overlap, against the answer's own warning.
+    period, e, omega, inc, omega_dot, a = mp.mpf("9.73"), mp.mpf("0.28"), mp.mpf(61), mp.mpf("84.6"), 30, 0.118
+    with mp.workdps(40):
+        s2 = mp.sin(inc * mp.pi / 180) ** 2
+        nu0 = (270 - omega) * mp.pi / 180
+        big_e = 2 * mp.atan2(mp.sqrt(1 - e) * mp.sin(nu0 / 2), mp.sqrt(1 + e) * mp.cos(nu0 / 2))
+        t_min = (big_e - e * mp.sin(big_e)) / (2 * mp.pi) * period          # the conjunction, to start
+        for _ in range(4):                                                   # omega(t_min) = omega, self-consistently
+            def rho2(t, anchor=t_min):
+                nu = _true_anomaly_at(t, period, e, 0)
+                r = (1 - e * e) / (1 + e * mp.cos(nu))
+                w = (omega + omega_dot * (t - anchor) / JULIAN_YEAR_DAYS) * mp.pi / 180
+                return r * r * (1 - s2 * mp.sin(nu + w) ** 2)
+            lo, hi, golden = t_min - mp.mpf("0.3"), t_min + mp.mpf("0.3"), (mp.sqrt(5) - 1) / 2
+            for _ in range(120):
+                c, d = hi - golden * (hi - lo), lo + golden * (hi - lo)
+                lo, hi = (lo, d) if rho2(c) < rho2(d) else (c, hi)
+            t_min = (lo + hi) / 2
+        separation = float(mp.sqrt(rho2(t_min)) * a * AU / R_SUN)
+    radius2 = separation * (1 - 1e-9) - 1.3
+    answer = _post(client, "/v1/orbit/mid-eclipse", {
+        "period": float(period), "eccentricity": float(e), "omega": float(omega), "t_periastron": 0.0,
+        "inclination": float(inc), "after": 0.0, "count": 1, "semimajor_axis": a, "omega_dot": omega_dot,
+        "radius1": 1.3, "radius2": radius2})
+    assert answer["results"]["minimum_separation2"]["value"] == pytest.approx(separation, rel=1e-14)
+    assert answer["results"]["eclipse_parameter2"]["value"] > 1.0
+    assert "no_eclipse_of_star2" in [w["code"] for w in answer["warnings"]]
+    assert answer["results"]["eclipse_possible"] == {"star1": True, "star2": False}

@@ -495,7 +495,8 @@ def mid_eclipse_events(quantities, statics, options, time_format="jd") -> list[d
                                                                                    ev["cycle"][k], None, offset)
         sizes = {name: _value(quantities, name) for name in ("semimajor_axis", "total_mass", "radius1", "radius2")}
         if sizes["radius1"] is not None and sizes["radius2"] is not None:
-            geometry = phys.mid_eclipse(p, e, w, i, **sizes)
+            # with the apsidal motion, as the outputs eclipse_parameter1,2 and their no_eclipse warnings have it
+            geometry = phys.mid_eclipse(p, e, w, i, omega_dot=w_dot, **sizes)
             for star in (1, 2):
                 overlap = np.broadcast_to(geometry.get(f"eclipse_parameter{star}", np.nan), (n,))
                 for k in range(n):
