@@ -651,3 +651,20 @@ def test_eclipse_possible_under_apsidal_motion_agrees_with_the_minimum_separatio
     assert answer["results"]["eclipse_parameter2"]["value"] > 1.0
     assert "no_eclipse_of_star2" in [w["code"] for w in answer["warnings"]]
     assert answer["results"]["eclipse_possible"] == {"star1": True, "star2": False}
+
+
+@pytest.mark.parametrize("factor, warned", [(1 + 1e-6, True), (1 - 1e-6, False)])
+def test_a_minimum_companion_mass_above_the_primarys_is_warned_without_an_inclination(client, factor, warned):
+    # f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) = M2^3 sin^3 i / (M1 + M2)^2 (Hilditch 2001, eq. 2.51; GM_sun of IAU
+    # 2015 B3 by astropy): M2,min = M1 exactly where f(M) = M1 / 4, so
+    # K1 = (2 pi GM_sun M1 / (4 P (1 - e^2)^{3/2}))^{1/3}; a K1 a millionth above it gives a companion heavier
+    # than the primary at every inclination.  The warning companion_more_massive came only with an inclination
+    # (from m2), never from m2_min: a 1.2 solMass star with K1 = 220 km/s in 5.6 d (M2,min = 8.0 solMass, a black-hole candidate's signature) was answered without it.
+    from astropy import units as u
+    period, e, m1 = 5.6, 0.1, 1.2
+    k1 = (2 * math.pi * const.GM_sun * m1 / (4 * period * u.d * (1 - e * e) ** 1.5)) ** (1 / 3)
+    k1 = k1.to_value(u.km / u.s) * factor
+    answer = _post(client, "/v1/spectroscopic/sb1", {"period": period, "k1": k1, "eccentricity": e, "primary_mass": m1})
+    # d ln M2 = (3/2) d ln K1 there (d ln f / d ln M2 = 3 - 2 M2 / (M1 + M2) = 2), to second order in 1e-6
+    assert answer["results"]["m2_min"]["value"] == pytest.approx(m1 * factor ** 1.5, rel=1e-11)
+    assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned

@@ -18,10 +18,12 @@ def _sb1_check(inputs, outputs):
     if inputs.get("inclination") is not None and inputs.get("primary_mass") is None:
         out.append(Warning("inclination_unused", "an inclination without a primary_mass determines no companion "
                            "mass; give primary_mass to get m2 and the semi-major axis"))
-    m2 = outputs.get("m2")
     m1 = inputs.get("primary_mass")
+    # without an inclination the minimum mass tells it already: M2 >= M2,min at every inclination
+    m2 = outputs.get("m2", outputs.get("m2_min"))
     if m2 is not None and m1 is not None and np.any(m2 > m1):
-        out.append(Warning("companion_more_massive", "the companion comes out more massive than the primary; "
+        out.append(Warning("companion_more_massive", "the companion comes out more massive than the primary"
+                           + ("" if "m2" in outputs else " at any inclination (its minimum mass is)") + "; "
                            "if it is not seen in the spectrum it may be a compact object or a hidden binary",
                            np.broadcast_to(m2 > m1, np.shape(m2))))
     return out
