@@ -659,7 +659,8 @@ def test_a_minimum_companion_mass_above_the_primarys_is_warned_without_an_inclin
     # 2015 B3 by astropy): M2,min = M1 exactly where f(M) = M1 / 4, so
     # K1 = (2 pi GM_sun M1 / (4 P (1 - e^2)^{3/2}))^{1/3}; a K1 a millionth above it gives a companion heavier
     # than the primary at every inclination.  The warning companion_more_massive came only with an inclination
-    # (from m2), never from m2_min: a 1.2 solMass star with K1 = 220 km/s in 5.6 d (M2,min = 8.0 solMass, a black-hole candidate's signature) was answered without it.
+    # (from m2), never from m2_min: a 1.2 solMass star with K1 = 220 km/s in 5.6 d (M2,min = 8.0 solMass, a
+    # black-hole candidate's signature) was answered without it.
     from astropy import units as u
     period, e, m1 = 5.6, 0.1, 1.2
     k1 = (2 * math.pi * const.GM_sun * m1 / (4 * period * u.d * (1 - e * e) ** 1.5)) ** (1 / 3)
