@@ -669,3 +669,17 @@ def test_a_minimum_companion_mass_above_the_primarys_is_warned_without_an_inclin
     # d ln M2 = (3/2) d ln K1 there (d ln f / d ln M2 = 3 - 2 M2 / (M1 + M2) = 2), to second order in 1e-6
     assert answer["results"]["m2_min"]["value"] == pytest.approx(m1 * factor ** 1.5, rel=1e-11)
     assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned
+
+
+@pytest.mark.parametrize("gamma, warned", [(-50000.0, True), (50000.0, True), (-29000.0, False)])
+def test_a_systemic_velocity_beyond_a_tenth_of_c_is_warned_either_way(client, gamma, warned):
+    # 0.1 c = 29979.2458 km/s (c exact, SI).  gamma was refused at c, as every speed is, but never warned above
+    # 0.1 c, where k1 and k2 are; and a speed's sign is its direction: approaching at 0.17 c is as relativistic as
+    # receding.  The radial velocity itself is gamma + K1 (cos(nu + omega) + e cos omega) (Hilditch 2001, eq. 2.45)
+    answer = _post(client, "/v1/orbit/ephemeris", {"period": 10.0, "eccentricity": 0.1, "omega": 10.0,
+                                                   "t_periastron": 0.0, "k1": 10.0, "gamma": gamma, "times": [0.0],
+                                                   "count": 1})
+    assert answer["results"]["series"]["rv1"]["value"][0] == pytest.approx(gamma + 10.0 * 1.1 * math.cos(
+        math.radians(10.0)), rel=1e-15)
+    codes = [(w["code"], w.get("fields")) for w in answer["warnings"]]
+    assert (("relativistic_speed", ["gamma"]) in codes) == warned

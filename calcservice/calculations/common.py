@@ -124,8 +124,8 @@ def semi_amplitude(name: str, star: str, example: float) -> Input:
 
 
 def relativistic_speeds(inputs, names, outputs=None) -> list:
-    """A warning for each speed of ``names`` above 0.1 c in some system: an input as given, or else the output of
-    that name (a speed the calculation derives, such as a periastron speed, is as Newtonian as one given)."""
+    """A warning for each speed of ``names`` above 0.1 c in size in some system: an input as given, or else the
+    output of that name (a speed the calculation derives, such as a periastron speed, is as Newtonian as one given)."""
     out = []
     for name in names:
         v = inputs.get(name)
@@ -133,7 +133,8 @@ def relativistic_speeds(inputs, names, outputs=None) -> list:
             v = outputs.get(name)
         if v is None:
             continue
-        fast = np.asarray(v) > RELATIVISTIC_FRACTION * C_LIGHT_KM_S
+        # a velocity (gamma) may be negative: approaching at 0.1 c is as relativistic as receding
+        fast = np.abs(np.asarray(v)) > RELATIVISTIC_FRACTION * C_LIGHT_KM_S
         if np.count_nonzero(fast):      # np.any costs a few us more on the one system of a request
             out.append(Warning("relativistic_speed", f"{name} above 0.1 c: the Newtonian formulas used here lose "
                                "accuracy (relative corrections of order (v/c)^2, 1 % at 0.1 c and growing)",

@@ -358,7 +358,7 @@ register(Calculation(
                                                                            or k2 is not None)),
     ),
     at_most_one=(("semimajor_axis", "m1"), ("semimajor_axis", "m2")),
-    check=with_speed_check(_ephemeris_check, ("k1", "k2")),
+    check=with_speed_check(_ephemeris_check, ("k1", "k2", "gamma")),
     extra=ephemeris_events,
     example={"period": {"value": 2037.4, "sigma": 1.2}, "eccentricity": {"value": 0.873, "sigma": 0.004},
              "omega": {"value": 243.6, "sigma": 1.5}, "t_periastron": {"value": 2458712.3, "sigma": 0.8},
