@@ -683,3 +683,26 @@ def test_a_systemic_velocity_beyond_a_tenth_of_c_is_warned_either_way(client, ga
         math.radians(10.0)), rel=1e-15)
     codes = [(w["code"], w.get("fields")) for w in answer["warnings"]]
     assert (("relativistic_speed", ["gamma"]) in codes) == warned
+
+
+@pytest.mark.parametrize("k1, warned", [(40.0, True), (9.5, False)])
+def test_a_single_lined_orbital_parallax_warns_of_a_heavier_companion_as_sb1_does(client, k1, warned):
+    # M2 solves M2^3 sin^3 i / (M1 + M2)^2 = f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi G) (Hilditch 2001, eq. 2.51),
+    # bisected here at 40 digits (GM_sun of IAU 2015 B3): 7.18 solMass beside 1.08 for K1 = 40 km/s, P = 612 d,
+    # e = 0.3, i = 60 deg.  sb1 warned companion_more_massive for that M2, the orbital parallax of the same
+    # single-lined orbit with a photocentric one did not.
+    body = {"period": 612.0, "k1": k1, "eccentricity": 0.3, "inclination": 60.0, "primary_mass": 1.08}
+    with mp.workdps(40):
+        f = (mp.mpf(612) * DAY * (mp.mpf(k1) * 1000) ** 3 * (1 - mp.mpf("0.3") ** 2) ** mp.mpf(1.5)
+             / (2 * mp.pi * GM_SUN))
+        s3 = mp.sin(mp.pi / 3) ** 3
+        lo, hi = mp.mpf(0), mp.mpf(1000)
+        for _ in range(200):
+            mid = (lo + hi) / 2
+            lo, hi = (mid, hi) if mid ** 3 * s3 < f * (mp.mpf("1.08") + mid) ** 2 else (lo, mid)
+        m2 = float((lo + hi) / 2)
+    for path, extra in (("/v1/spectroscopic/sb1", {}),
+                        ("/v1/combined/orbital-parallax", {"photocentre_semimajor_axis": 3.71})):
+        answer = _post(client, path, {**body, **extra})
+        assert answer["results"]["m2"]["value"] == pytest.approx(m2, rel=1e-14), path
+        assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned, path

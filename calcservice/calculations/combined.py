@@ -35,6 +35,12 @@ def _check(inputs, outputs):
     if k2 is not None and q is not None and np.any(q > 1):
         out.append(Warning("primary_less_massive", "q = K1/K2 > 1: star 1 (the star of k1) is the less massive star",
                            q > 1))
+    # a single-lined orbit: the companion's mass from the mass function at i, as sb1 gives it and warns of it
+    m2, m1 = outputs.get("m2"), inputs.get("primary_mass")
+    if k2 is None and m2 is not None and m1 is not None and np.any(m2 > m1):
+        out.append(Warning("companion_more_massive", "the companion comes out more massive than the primary; "
+                           "if it is not seen in the spectrum it may be a compact object or a hidden binary",
+                           np.broadcast_to(m2 > m1, np.shape(m2))))
     return out
 
 
