@@ -221,11 +221,13 @@ def fractional_mass_from_photocentre(astrometric_mass_function_value, primary_ma
         # exp(y) multiplies the rounding of y by |y| (up to 6e-15 relative in 1 - s where the companion is far
         # heavier than M1 (1 - beta)^2): a last Newton step in y on the residual written without logarithms,
         # h = s^3 M1 (1 - beta)^2 / ((1 - s) f_ast) - 1, moves s and 1 - s by their own factors
-        # (ds = s (1 - s) dy), kept where it is finite
-        residual = (s / one_minus_s) * (s * s) * (m1 * dark / f) * dark - 1.0
+        # (ds = s (1 - s) dy).  The factors are taken in an order whose partial products stay near 1/s^2, 1/s and 1
+        # (no underflow for any normal f_ast); the step is kept where it is finite and the residual is that of a
+        # converged root (an f_ast below the normal range has lost the digits a residual would need)
+        residual = (s / one_minus_s) * (s * (m1 * dark / f)) * (s * dark) - 1.0
         dy = -residual / (3.0 - 2.0 * s)
         polished_s, polished_rest = s * (1.0 + one_minus_s * dy), one_minus_s * (1.0 - s * dy)
-        good = np.isfinite(polished_s) & np.isfinite(polished_rest)
+        good = np.isfinite(polished_s) & np.isfinite(polished_rest) & (np.abs(residual) < 1e-10)
         s, one_minus_s = np.where(good, polished_s, s), np.where(good, polished_rest, one_minus_s)
         return beta + dark * s, dark * one_minus_s
 
