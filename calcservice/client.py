@@ -859,11 +859,7 @@ class InputTable:
             raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
                             f"not {type(data).__name__}{hint}")
         for label, unit in units.items():
-            if hasattr(unit, "to_string") and not isinstance(unit, str):      # an astropy unit
-                units[label] = unit.to_string()
-            elif not isinstance(unit, str):
-                raise InvalidInput(f"units: the unit of {label!r} is a string such as 'd' or an astropy unit, "
-                                   f"not {type(unit).__name__}")
+            units[label] = unit_text(unit, "units", f"the unit of {label!r}")
             if split_unit(label)[0] not in inputs and column_role(split_unit(label)[0], inputs) is None:
                 raise InvalidInput(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
                                  "ask for outputs in other units with output_units=")
@@ -1100,7 +1096,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         # an astropy Quantity: its number in its own unit
         v = _plain(value.value)
         _finite(v, decl)            # an infinite Quantity would be written as null, said to be missing
-        unit = value.unit.to_string()
+        unit = unit_text(value.unit, (decl or {}).get("name", "an input"))
         if kind == "series":
             return {"value": v, "unit": unit}
         return {"samples": v, "unit": unit} if isinstance(v, list) else {"value": v, "unit": unit}
@@ -1211,7 +1207,8 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
             out["correlations"] = correlations
     if units is not None:
         # an astropy unit is sent as its string, as a batch's column units= takes it
-        out["units"] = {k: _unit_text(v) for k, v in units.items()} if isinstance(units, Mapping) else units
+        out["units"] = ({k: unit_text(v, f"units.{k}", f"the unit of {k!r}") for k, v in units.items()}
+                        if isinstance(units, Mapping) else units)
     if time_format is not None:             # "" or "MJD" go as they are, for the service to refuse naming them
         out["time_format"] = time_format
     if covariance is not False and covariance is not None:
@@ -1219,11 +1216,18 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     return out
 
 
-def _unit_text(unit: Any) -> Any:
-    """An astropy unit as the string astropy writes for it; anything else as it is."""
-    if not isinstance(unit, str) and hasattr(unit, "to_string") and hasattr(unit, "physical_type"):
+def unit_text(unit: Any, field: str, what: str = "a unit") -> str:
+    """A unit as the service reads it: a string as it is, an astropy unit (``u.km``, ``u.km / u.s``, ``u.dex``) as
+    the string astropy writes for it.  Anything else is refused naming ``field``: a number, or a Quantity such
+    as ``1000 * u.km``, whose string "1000.0 km" would be read as a unit 1000 times larger."""
+    if isinstance(unit, str):
+        return unit
+    units = sys.modules.get("astropy.units")        # an astropy unit comes with astropy already imported
+    if units is not None and isinstance(unit, (units.UnitBase, units.FunctionUnitBase)):
         return unit.to_string()
-    return unit
+    hint = f" (its unit alone is {unit.unit.to_string()!r})" if units is not None and isinstance(unit, units.Quantity) \
+        else ""
+    raise InvalidInput(f"{field}: {what} is a string such as 'd' or an astropy unit, not {type(unit).__name__}{hint}")
 
 
 def _whole(x):
