@@ -1,0 +1,174 @@
+"""What a working astronomer tripped on when using the service as its users do (round 7).
+
+ECSV headers spell each unit as the JSON answer does (``au``, ``km/s``), and astropy reads them back to the same
+unit; the command line refuses a catalogue of series in CSV or ECSV as the service does (406), naming the
+formats that hold them; the client has one rule for an astropy unit given as a unit; plot subtitles set the
+declarations' maths as maths.  Every system here is fictional; by-hand checks use astropy.
+"""
+
+import io
+import json
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.table import Table
+
+from calcservice.client import Client, InvalidInput
+
+# a fictional catalogue of two double-lined systems ("Tern-1", "Tern-2"), periods in years as an orbit paper gives
+TERN_ECSV = """# %ECSV 1.0
+# ---
+# datatype:
+# - {name: star, datatype: string}
+# - {name: period, unit: yr, datatype: float64}
+# - {name: k1, unit: km/s, datatype: float64}
+# - {name: k1_sigma, unit: m/s, datatype: float64}
+# - {name: k2, unit: km/s, datatype: float64}
+# - {name: eccentricity, datatype: float64}
+# schema: astropy-2.0
+star period k1 k1_sigma k2 eccentricity
+Tern-1 0.5 30.1 300 40.2 0.2
+Tern-2 1.25 22.0 500 25.5 0.45
+"""
+
+
+def _header_units(text: str) -> dict:
+    """Each column's unit as the ECSV header writes it (the YAML text, not astropy's reading of it)."""
+    from astropy.table.meta import get_header_from_yaml
+    head = [line[2:] for line in text.splitlines() if line.startswith("# ")]
+    return {c["name"]: c["unit"] for c in get_header_from_yaml(head)["datatype"] if "unit" in c}
+
+
+@pytest.fixture(scope="module")
+def local():
+    return Client("local")
+
+
+# ----------------------------------------------------------------------------- ECSV units as JSON spells them
+def test_the_batch_ecsv_answer_spells_units_as_the_json_answer(client):
+    r = client.post("/v1/batch/sb2?keep=star&options=%7B%22units%22%3A%7B%22a1_sin_i%22%3A%22km%22%7D%7D",
+                    data=TERN_ECSV, headers={"Content-Type": "text/csv", "Accept": "text/csv"})
+    assert r.status_code == 200, r.get_data(as_text=True)
+    text = r.get_data(as_text=True)
+    json_answer = client.post("/v1/batch/sb2", json={
+        "columns": {"period": {"value": [0.5, 1.25], "unit": "yr"}, "k1": {"value": [30.1, 22.0], "sigma": [0.3, 0.5]},
+                    "k2": [40.2, 25.5], "eccentricity": [0.2, 0.45]},
+        "units": {"a1_sin_i": "km"}}).get_json()
+    written = _header_units(text)
+    for name, entry in json_answer["columns"].items():
+        if entry["unit"]:
+            # the header said AU where the JSON says au (IAU 2012 Resolution B2: the symbol is au)
+            assert written[name] == entry["unit"] and written[f"{name}_sigma"] == entry["unit"], name
+    assert written["a_sin_i"] == "au" and written["a1_sin_i"] == "km"
+    # astropy reads the header back to the same unit, and the numbers are the JSON answer's
+    back = Table.read(text, format="ascii.ecsv")
+    assert back["a_sin_i"].unit == u.au and back["m1_sin3i"].unit == u.solMass
+    np.testing.assert_array_equal(np.asarray(back["a_sin_i"]), json_answer["columns"]["a_sin_i"]["value"])
+    # and the library's reading of the answer gives the JSON spelling too
+    from calcservice.tables import decode_answer
+    assert decode_answer(text.encode(), "text/x-ecsv")["columns"]["a_sin_i"]["unit"] == "au"
+
+
+def test_every_output_unit_spelled_in_an_ecsv_header_reads_back_as_that_unit():
+    # each canonical unit of the registry, written as the JSON answer spells it, read back by astropy's ECSV reader
+    from calcservice.registry import calculations
+    from calcservice.tables import spelled_unit
+    units = sorted({o.unit for c in calculations().values() for o in c.outputs if o.unit} | {"km/s", "1/yr", "mas"})
+    table = Table()
+    for k, unit in enumerate(units):
+        table[f"c{k}"] = [1.5]
+        table[f"c{k}"].unit = spelled_unit(unit)
+    out = io.StringIO()
+    table.write(out, format="ascii.ecsv")
+    written = _header_units(out.getvalue())
+    back = Table.read(out.getvalue(), format="ascii.ecsv")
+    for k, unit in enumerate(units):
+        assert written[f"c{k}"] == unit
+        assert back[f"c{k}"].unit == u.Unit(unit) and (1.5 * back[f"c{k}"].unit).to_value(u.Unit(unit)) == 1.5, unit
+
+
+def test_the_command_lines_ecsv_spells_units_as_the_json_answer_and_carries_the_provenance(tmp_path, capsys):
+    from calcservice.cli import main
+    src = tmp_path / "tern.ecsv"
+    src.write_text(TERN_ECSV)
+    assert main(["compute", "sb2", "--in", str(src), "--out", str(tmp_path / "out.ecsv"), "--keep", "star"]) == 0
+    text = (tmp_path / "out.ecsv").read_text()
+    written = _header_units(text)
+    assert written["a_sin_i"] == "au" and written["a_sin_i_sigma"] == "au" and written["m1_sin3i"] == "solMass"
+    back = Table.read(tmp_path / "out.ecsv", format="ascii.ecsv")
+    assert back["a_sin_i"].unit == u.au
+    # no astropy mixin serialisation in the header: plain columns, as the service writes them
+    assert "__serialized_columns__" not in text
+    assert back.meta["uncertainty"] == {"method": "linear"}
+    assert back.meta["provenance"]["constants"]["GM_sun"]["value"] == pytest.approx(1.3271244e20)  # IAU 2015 B3
+    # a by-hand check of the first system: a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2)
+    a1 = (30.1 * u.km / u.s * 0.5 * u.yr * np.sqrt(1 - 0.2 ** 2) / (2 * np.pi)).to_value(u.au)
+    assert back["a1_sin_i"][0] == pytest.approx(a1, rel=1e-12)
+    assert back["star"][0] == "Tern-1"
+
+
+# ----------------------------------------------------------------------------- series in CSV / ECSV: refused alike
+ORBITS = ("star,period,eccentricity,omega,t_periastron,k1\n"
+          "Lantern-7,41.6,0.31,122,2460310.4,38.2\nEmber-3,2410,0.71,205,2458120.4,38\n")
+
+
+@pytest.mark.parametrize("ext", ["csv", "ecsv"])
+def test_the_command_line_refuses_series_in_csv_or_ecsv_as_the_service_does(tmp_path, capsys, client, ext):
+    from calcservice.cli import main
+    src = tmp_path / "orbits.csv"
+    src.write_text(ORBITS)
+    out = tmp_path / f"eph.{ext}"
+    code = main(["compute", "ephemeris", "times=2461000.5,2461010.5", "--in", str(src), "--out", str(out),
+                 "--keep", "star"])
+    err = capsys.readouterr().err
+    # one line naming --out and the formats that hold an array per cell, before any work (no file written)
+    assert code == 2 and len(err.strip().splitlines()) == 1, err
+    assert "--out" in err and "CSV and ECSV cannot carry" in err and ".fits or .vot" in err
+    assert not out.exists()
+    # the service refuses the same catalogue asked for as CSV, 406 naming Accept
+    r = client.post("/v1/batch/ephemeris?keep=star&options=%7B%22times%22%3A%5B2461000.5%5D%7D", data=ORBITS,
+                    headers={"Content-Type": "text/csv", "Accept": "text/csv"})
+    assert r.status_code == 406 and "Accept" in r.get_json()["errors"]
+    assert "CSV and ECSV cannot carry" in r.get_json()["detail"]
+
+
+def test_a_series_catalogue_written_as_fits_holds_an_array_per_system(tmp_path, capsys, local):
+    from calcservice.cli import main
+    src = tmp_path / "orbits.csv"
+    src.write_text(ORBITS)
+    assert main(["compute", "ephemeris", "times=2461000.5,2461010.5", "--in", str(src),
+                 "--out", str(tmp_path / "eph.fits"), "--keep", "star"]) == 0
+    back = Table.read(tmp_path / "eph.fits")
+    one = local.calculate("ephemeris", period=2410, eccentricity=0.71, omega=205, t_periastron=2458120.4, k1=38,
+                          times=[2461000.5, 2461010.5])
+    np.testing.assert_allclose(back["rv1"][1], one["results"]["series"]["rv1"]["value"], rtol=1e-12)
+
+
+# ----------------------------------------------------------------------------- one rule for a unit in the client
+def test_the_client_turns_an_astropy_unit_into_a_string_by_one_rule(local):
+    from calcservice.client import unit_text
+    assert unit_text(u.km / u.s, "units.x") == (u.km / u.s).to_string() == "km / s"
+    assert unit_text("km/s", "units.x") == "km/s"
+    # the same unit object is taken for the outputs and for a batch's columns
+    r = local.calculate("sb1", period=41.6, k1=23.4, eccentricity=0.31, units={"a1_sin_i": u.km})
+    out = local.batch("sb1", {"period": [0.1], "k1": [23.4], "eccentricity": [0.1]}, units={"period": u.yr},
+                      output_units={"a1_sin_i": u.km})
+    assert r["results"]["a1_sin_i"]["unit"] == out.unit["a1_sin_i"] == "km"
+    # a1 sin i = K1 P sqrt(1 - e^2) / (2 pi) (Hilditch 2001, ch. 2), P = 0.1 Julian year = 36.525 d
+    expected = (23.4 * u.km / u.s * 0.1 * u.yr * np.sqrt(1 - 0.1 ** 2) / (2 * np.pi)).to_value(u.km)
+    assert out["a1_sin_i"][0] == pytest.approx(expected, rel=1e-12)
+
+
+@pytest.mark.parametrize("bad, kind", [(1000 * u.km, "Quantity"), (5, "int"), (None, "NoneType")])
+def test_a_unit_that_is_no_unit_is_refused_alike_for_outputs_and_columns(local, bad, kind):
+    # a Quantity went to the encoder as it was (TypeError "Type is not JSON serializable: Quantity") for the outputs,
+    # and as its string "1000.0 km", a unit a thousand times a km, for a batch's columns
+    with pytest.raises(InvalidInput) as info:
+        local.calculate("sb1", period=41.6, k1=23.4, eccentricity=0.31, units={"a1_sin_i": bad})
+    assert list(info.value.errors) == ["units.a1_sin_i"] and f"not {kind}" in str(info.value)
+    with pytest.raises(InvalidInput) as info:
+        local.batch("sb1", {"period": [0.1], "k1": [23.4], "eccentricity": [0.1]}, units={"period": bad})
+    assert list(info.value.errors) == ["units"] and f"not {kind}" in str(info.value)
+    if kind == "Quantity":
+        assert "its unit alone is 'km'" in str(info.value)
