@@ -304,6 +304,147 @@ class Latex(Style):
 STYLES = {"text": Text(), "markdown": Markdown(), "latex": Latex()}
 
 
+# --------------------------------------------------------------------------- plain-text maths as TeX
+# The declarations write maths as plain text ("M1 sin^3 i", "(1 - e^2)^{3/2}", "Mdot2", "Gamma_e", "GM_sun"), read by
+# the same rules as the web form's (static/form.js, mathNodes): here they become TeX for matplotlib's mathtext and LaTeX.
+_GREEK = frozenset("alpha beta gamma Gamma delta Delta epsilon zeta eta theta kappa lambda mu nu xi pi rho sigma "
+                   "tau phi chi psi omega Omega".split())
+_WORDS = {"Mdot": r"\dot{M}", "Pdot": r"\dot{P}", "sun": r"\odot"}
+_FUNCTIONS = frozenset({"sin", "cos", "tan", "arctan", "log", "exp", "ln"})      # set upright, as TeX sets them
+_MATH_SYMBOLS = (("<=", r"\leq"), (">=", r"\geq"), (">~", r"\gtrsim"), ("<~", r"\lesssim"), ("''", r"^{\prime\prime}"),
+                 ("+-", r"\pm"))
+# characters that read the same in text and in maths: between two maths tokens they join them into one formula
+_NEUTRAL = frozenset(" 0123456789.,()[]+-/*=:")
+_LETTERS = re.compile(r"([A-Za-z]+)(\d*)(?![A-Za-z])")
+_POWER = re.compile(r"(\d+(?:\.\d+)?)e([+-]?\d+)(?![\w.])")
+_BASE = re.compile(r"(?:^|[^A-Za-z])([A-Za-z]+)$")
+_ARTICLE = re.compile(r" (?!(?:sin|cos|tan|log|exp|ln)\b)[A-Za-z]{2,}")
+
+
+def _symbol(letters: str) -> str | None:
+    """A run of letters as a maths symbol (a Greek letter, a function, a dotted rate, a one-letter variable), or
+    None for a word."""
+    if letters in _GREEK or letters in _FUNCTIONS:
+        return "\\" + letters
+    if letters in _WORDS:
+        return _WORDS[letters]
+    return letters if len(letters) == 1 else None
+
+
+def _group(text: str, start: int) -> tuple[str, int] | None:
+    """The argument of ^ or _ at ``start``: {...} or (...) balanced, else a number or a word; (inner, end)."""
+    if text.startswith(("{", "("), start):
+        open_, close = text[start], "}" if text[start] == "{" else ")"
+        depth = 0
+        for j in range(start, len(text)):
+            depth += (text[j] == open_) - (text[j] == close)
+            if depth == 0:
+                return text[start + 1:j], j + 1
+        return None
+    m = re.compile(r"-?[0-9.]+|[A-Za-z]+").match(text, start)
+    return (m.group(0), m.end()) if m else None
+
+
+def _maths_tokens(text: str) -> list[tuple[str, str]]:
+    """``text`` as (kind, content) tokens: "math" (TeX), "text" (words, as written) or "neutral" (as written)."""
+    out: list[tuple[str, str]] = []
+    i = 0
+    while i < len(text):
+        c, prev = text[i], text[i - 1] if i else " "
+        if c in "^_" and i:
+            base = _BASE.search(text[:i])
+            if c == "^" or (base and (len(base.group(1)) <= 2 or _symbol(base.group(1)) is not None)):
+                g = _group(text, i + 1)
+                if g:
+                    out.append(("math", c + "{" + _inner_tex(g[0]) + "}"))
+                    i = g[1]
+                    continue
+        if c.isdigit() and not (prev.isalnum() or prev in "_."):
+            m = _POWER.match(text, i)
+            if m:                   # 1e12 -> 10^{12}, 2.5e-7 -> 2.5 x 10^{-7}
+                out.append(("math", ("" if m.group(1) == "1" else m.group(1) + r" \times ")
+                            + "10^{" + m.group(2).lstrip("+") + "}"))
+                i = m.end()
+                continue
+        symbol = next(((a, t) for a, t in _MATH_SYMBOLS if text.startswith(a, i)), None)
+        if symbol:
+            out.append(("math", symbol[1]))
+            i += len(symbol[0])
+            continue
+        if c.isascii() and c.isalpha():
+            m = _LETTERS.match(text, i)
+            # a word begins here: not within one, nor the s of a possessive ("the primary's orbit")
+            starts = not (prev.isascii() and (prev.isalnum() or prev == "_")) and not (
+                prev == "'" and i > 1 and text[i - 2].isalpha())
+            if m and starts:
+                letters, digits = m.groups()
+                tex = _symbol(letters)
+                if len(letters) == 2 and not digits and text.startswith("_", m.end()):
+                    tex = letters                   # a two-letter symbol with a subscript: GM_sun
+                if letters == "a" and not digits and _ARTICLE.match(text, m.end()):
+                    tex = None                      # the article ("a dark companion"), not the semi-major axis
+                if letters == "sqrt" and not digits and (g := _group(text, m.end())) and text[m.end()] == "(":
+                    out.append(("math", r"\sqrt{" + _inner_tex(g[0]) + "}"))
+                    i = g[1]
+                    continue
+                if tex is not None:
+                    before = next((kind for kind, t in reversed(out) if t != " "), None)
+                    if letters in _FUNCTIONS and before == "math" and out[-1][1] == " ":
+                        tex = r"\," + tex      # mathtext sets no space before sin after a symbol (M1 sin^3 i)
+                    out.append(("math", tex + (f"_{{{digits}}}" if digits else "")))
+                    i = m.end()
+                    continue
+            word = re.compile(r"[A-Za-z0-9]+").match(text, i).group(0)     # a word, digits run into it kept
+            out.append(("text", word))
+            i += len(word)
+            continue
+        out.append(("neutral" if c in _NEUTRAL else "text", c))
+        i += 1
+    return out
+
+
+def _inner_tex(text: str) -> str:
+    """A superscript's or subscript's argument, all of it maths (its words upright)."""
+    return "".join(s if kind != "text" else (r"\mathrm{" + s + "}" if s.isalnum() else s)
+                   for kind, s in _maths_tokens(text))
+
+
+def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$")) -> str:
+    """A declaration's text with its maths set as TeX between ``$`` signs and its words left as words (through
+    ``plain``, which escapes them for the target): "spectroscopic mass function M2^3 sin^3 i / (M1+M2)^2" becomes
+    "spectroscopic mass function $M_{2}^{3}\\sin^{3} i / (M_{1}+M_{2})^{2}$", for matplotlib's mathtext and LaTeX
+    alike; one-letter variables are italic, functions upright, Greek letters by name."""
+    tokens = _maths_tokens(text)
+    out, k = [], 0
+    while k < len(tokens):
+        kind, s = tokens[k]
+        if kind != "math":
+            out.append(plain(s))
+            k += 1
+            continue
+        # the formula runs on through neutral tokens up to the next word (its closing brackets, "= 90"), and takes
+        # an opening bracket or sign written against it; spaces at its ends stay outside
+        j = k + 1
+        while j < len(tokens) and tokens[j][0] != "text":
+            j += 1
+        start = k
+        while start > 0 and tokens[start - 1][0] == "neutral" and tokens[start - 1][1] in "([-" and out \
+                and out[-1] == tokens[start - 1][1]:
+            out.pop()
+            start -= 1
+        formula = "".join(t for _, t in tokens[start:j])
+        if start < k and formula.count(tokens[start][1]) > formula.count(")]"["([".index(tokens[start][1])]) \
+                and tokens[start][1] != "-":
+            out.append(tokens[start][1])    # a bracket whose partner is beyond the formula stays beside it
+            formula = formula[1:]
+        tex = formula.rstrip(" ([-")
+        while tex and tex[-1] in ")]" and tex.count(tex[-1]) > tex.count("(["[")]".index(tex[-1])]):
+            tex = tex[:-1]                  # likewise a closing bracket whose partner is before it
+        out.append("$" + tex.rstrip() + "$" + formula[len(tex.rstrip()):])
+        k = j
+    return "".join(out)
+
+
 # --------------------------------------------------------------------------- the report's content
 def asking_budget(body: Any) -> Any:
     """The request ``body`` with the uncertainty budget asked for, since the report always shows it.

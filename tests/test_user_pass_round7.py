@@ -172,3 +172,57 @@ def test_a_unit_that_is_no_unit_is_refused_alike_for_outputs_and_columns(local, 
     assert list(info.value.errors) == ["units"] and f"not {kind}" in str(info.value)
     if kind == "Quantity":
         assert "its unit alone is 'km'" in str(info.value)
+
+
+# ----------------------------------------------------------------------------- plot subtitles: maths set as maths
+def _svg_text(data: bytes) -> str:
+    import re
+    return " ".join(re.findall(r">([^<>]+)</text>", data.decode()))
+
+
+def test_a_histograms_subtitle_sets_the_descriptions_maths_as_maths(client):
+    from calcservice.plots import histogram_figure
+    from calcservice.report import tex_maths
+    # a fictional SB2 ("Lantern-7"), Monte Carlo: the subtitle read "M1 sin^3 i", the declaration's plain text
+    body = {"period": 41.6, "k1": {"value": 38.2, "sigma": 0.4}, "k2": {"value": 51.7, "sigma": 0.6},
+            "eccentricity": {"value": 0.31, "sigma": 0.01}, "uncertainty": {"method": "monte_carlo", "samples": 500,
+                                                                             "seed": 7}}
+    r = client.post("/v1/spectroscopic/sb2?format=svg&plot=m1_sin3i", json=body)
+    assert r.status_code == 200
+    text = _svg_text(r.data)
+    assert "sin^3" not in text and "M1 sin" not in text and "m1_sin3i [solMass]" in text
+    # from the declaration's one description, set by mathtext: M with a subscript 1, sin upright with a cube
+    assert tex_maths("M1 sin^3 i") == r"$M_{1} \,\sin^{3} i$"
+    fig = histogram_figure("m1_sin3i", np.linspace(1.4, 1.7, 100), {"value": 1.55, "sigma": 0.04, "unit": "solMass"},
+                           "M1 sin^3 i")
+    assert fig.axes[0].get_title().splitlines()[1] == r"$M_{1} \,\sin^{3} i$"
+    # words stay words, Greek letters and rates become symbols, an identifier keeps its underscore
+    assert tex_maths("mass ratio q = M2/M1") == r"mass ratio $q = M_{2}/M_{1}$"
+    assert tex_maths("electron-scattering Eddington factor Gamma_e (vink-2001)") == \
+        r"electron-scattering Eddington factor $\Gamma_{e}$ (vink-2001)"
+    assert tex_maths("Pdot / P") == r"$\dot{P} / P$"
+    assert tex_maths("log10 of the mass-loss rate in solMass/yr") == r"$\log_{10}$ of the mass-loss rate in solMass/yr"
+    assert tex_maths("the semi-major axis of the primary's orbit") == "the semi-major axis of the primary's orbit"
+    assert tex_maths("for the photocentre of a dark companion compare omega itself") == \
+        r"for the photocentre of a dark companion compare $\omega$ itself"
+    assert tex_maths("radius of the shell at observation_date") == "radius of the shell at observation_date"
+
+
+def test_every_outputs_description_draws_as_a_subtitle():
+    import re
+
+    from calcservice.plots import SUBTITLE_WIDTH, figure_bytes, histogram_figure
+    from calcservice.registry import calculations
+    done = set()
+    for calc in calculations().values():
+        for out in calc.outputs:
+            if out.description in done:
+                continue
+            done.add(out.description)
+            fig = histogram_figure(out.name, np.array([1.0, 2.0, 2.5, 3.0]), {"value": 2.0, "unit": out.unit},
+                                   out.description, out.unit)
+            figure_bytes(fig, "png")                # mathtext parses every line, or raises
+            for line in fig.axes[0].get_title().splitlines()[1:]:
+                words = re.sub(r"\$[^$]*\$", " ", line)         # what is set as text
+                assert "^" not in words and not re.search(r"\b(?:chi|omega|Gamma|Mdot|Pdot|sin)\b", words), line
+                assert len(words) <= SUBTITLE_WIDTH + 10, line
