@@ -706,10 +706,15 @@ def _share(x: float) -> str:
     return format(pct, ".1f")
 
 
+#: A share of variance smaller than this is the rounding of the doubles it is a difference of (a Monte Carlo share
+#: of an input the output does not depend on came out as -2.6e-16), printed as no share at all.
+BUDGET_ROUNDING = 1e-12
+
+
 def budget_rows(results: Mapping[str, Any]) -> tuple[list[tuple[str, list[tuple[str, float]]]], list[str]]:
     """Each output with a sigma and its uncertainty budget: [(output, [(term, share), ...])], inputs
-    by decreasing share then the correlation terms ("a,b") on their own lines, terms of exactly zero
-    (an input the output does not depend on) left out; and the outputs with a sigma but no budget."""
+    by decreasing share then the correlation terms ("a,b") on their own lines, terms of zero (an input
+    the output does not depend on, to :data:`BUDGET_ROUNDING`) left out; and the outputs with a sigma but no budget."""
     shown, missing = [], []
     for name, entry in results.items():
         if not is_measured(entry) or not (_finite(entry.get("sigma")) and entry["sigma"] > 0):
@@ -719,8 +724,9 @@ def budget_rows(results: Mapping[str, Any]) -> tuple[list[tuple[str, list[tuple[
         if not finite:
             missing.append(name)
             continue
-        inputs = sorted(((k, v) for k, v in finite.items() if "," not in k and v != 0), key=lambda kv: -kv[1])
-        pairs = [(k, v) for k, v in finite.items() if "," in k and v != 0]
+        inputs = sorted(((k, v) for k, v in finite.items() if "," not in k and abs(v) >= BUDGET_ROUNDING),
+                        key=lambda kv: -kv[1])
+        pairs = [(k, v) for k, v in finite.items() if "," in k and abs(v) >= BUDGET_ROUNDING]
         shown.append((name, inputs + pairs))
     return shown, missing
 

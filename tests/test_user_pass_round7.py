@@ -16,6 +16,8 @@ from astropy.table import Table
 
 from calcservice.client import Client, InvalidInput
 
+from .test_form_browser import base_url, browser  # noqa: F401  (fixtures)
+
 # a fictional catalogue of two double-lined systems ("Tern-1", "Tern-2"), periods in years as an orbit paper gives
 TERN_ECSV = """# %ECSV 1.0
 # ---
@@ -226,3 +228,48 @@ def test_every_outputs_description_draws_as_a_subtitle():
                 words = re.sub(r"\$[^$]*\$", " ", line)         # what is set as text
                 assert "^" not in words and not re.search(r"\b(?:chi|omega|Gamma|Mdot|Pdot|sin)\b", words), line
                 assert len(words) <= SUBTITLE_WIDTH + 10, line
+
+
+# ----------------------------------------------------------------------------- budget shares that are rounding noise
+def _radio_mc(client):
+    from calcservice.registry import calculations
+    # the fictional example of the radio mass-loss rate, by Monte Carlo with its budget
+    body = {**calculations()["mass-loss-radio"].example, "budget": True,
+            "uncertainty": {"method": "monte_carlo", "samples": 2000, "seed": 7}}
+    r = client.post("/v1/winds/mass-loss/radio", json=body)
+    assert r.status_code == 200
+    return body, r.get_json()
+
+
+def test_a_budget_share_that_is_rounding_noise_is_no_share_in_the_report(client):
+    body, answer = _radio_mc(client)
+    # Wright & Barlow (1975): Mdot is proportional to v, so Mdot / v, and with it the radius of the radio photosphere,
+    # does not depend on v: its Monte Carlo share comes out as a difference of equal doubles, about 1e-16
+    share = answer["results"]["radio_photosphere_radius"]["budget"]["vinf"]
+    assert abs(share) < 1e-12
+    text = client.post("/v1/winds/mass-loss/radio?format=markdown", json=body).get_data(as_text=True)
+    table = text.split("| `radio_photosphere_radius` | share of variance [%] |")[1].split("\n\n")[0]
+    assert "`vinf`" not in table and "e-1" not in table        # it printed "| `vinf` | -2.6e-14 |"
+    assert "`distance`" in table and "`flux_density`" in table
+    # a share that is small but real is still printed: the period's share of an SB2's m1 sin^3 i, 0.025 %
+    sb2 = client.post("/v1/spectroscopic/sb2?format=markdown", json={
+        "period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 38.2, "sigma": 0.4},
+        "k2": {"value": 51.7, "sigma": 0.6}, "eccentricity": {"value": 0.31, "sigma": 0.01}}).get_data(as_text=True)
+    assert "| `period` | 0.02" in sb2.split("| `m1_sin3i` | share of variance [%] |")[1].split("\n\n")[0]
+
+
+@pytest.mark.browser
+def test_the_form_shows_no_noise_share_and_no_empty_budget(browser, base_url, client):  # noqa: F811
+    from selenium.webdriver.common.by import By
+
+    from .test_form_browser import _open, _shot
+    _, answer = _radio_mc(client)
+    browser.set_window_size(1280, 1600)
+    _open(browser, f"{base_url}/#mass-loss-radio")
+    browser.execute_script("window.calcserviceForm.show(arguments[0])", answer)
+    radius = browser.find_element(By.CSS_SELECTOR, 'table[data-budget="radio_photosphere_radius"]')
+    terms = [tr.get_attribute("data-term") for tr in radius.find_elements(By.CSS_SELECTOR, "tr[data-term]")]
+    assert terms == ["distance", "flux_density"], terms
+    # the Gaunt factor has no spread (its inputs are exact): no table captioned with no rows under it
+    assert not browser.find_elements(By.CSS_SELECTOR, 'table[data-budget="gaunt_factor"]')
+    _shot(browser, "form-radio-budget")
