@@ -897,7 +897,10 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     constants = prov.get("constants", {})
     if constants:
         doc.heading("Constants")
-        rows = [[s.code(c.get("symbol", k)), s.text(repr(c.get("value"))), s.unit(c.get("unit", "")),
+        # every digit of the constant (a nominal value is exact), over a power of ten as a result's: 1.3271244e+20
+        # read as code in a LaTeX table
+        rows = [[s.code(c.get("symbol", k)), s.number(as_given(c["value"])) if _finite(c.get("value"))
+                 else s.text(str(c.get("value"))), s.unit(c.get("unit", "")),
                  s.text(c.get("source", ""))] for k, c in constants.items()]
         doc.table(["constant", "value", "unit", "source"], rows, wrap_last=True)
 

@@ -273,3 +273,21 @@ def test_the_form_shows_no_noise_share_and_no_empty_budget(browser, base_url, cl
     # the Gaunt factor has no spread (its inputs are exact): no table captioned with no rows under it
     assert not browser.find_elements(By.CSS_SELECTOR, 'table[data-budget="gaunt_factor"]')
     _shot(browser, "form-radio-budget")
+
+
+def test_a_constant_in_the_report_is_a_number_with_every_digit_not_code(client):
+    from astropy import constants
+    from .test_referee_report import latex_problems
+    body = {"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 38.2, "sigma": 0.4},
+            "k2": {"value": 51.7, "sigma": 0.6}, "eccentricity": {"value": 0.31, "sigma": 0.01}}
+    tex = client.post("/v1/spectroscopic/sb2?format=latex", json=body).get_data(as_text=True)
+    # "1.3271244e+20" in a LaTeX table: a number a referee must retype; IAU 2015 Resolution B3: GM_sun =
+    # 1.3271244e20 m^3 s^-2 (nominal, exact); IAU 2012 Resolution B2: au = 149 597 870 700 m (exact)
+    row = next(line for line in tex.splitlines() if line.startswith(r"\texttt{GM\_sun}"))
+    assert r"& $1.3271244 \times 10^{20}$ &" in row and "e+20" not in tex
+    row = next(line for line in tex.splitlines() if line.startswith(r"\texttt{au}"))
+    assert r"& $1.495978707 \times 10^{11}$ &" in row
+    assert 1.495978707e11 == constants.au.value and 1.3271244e20 == constants.GM_sun.value
+    assert latex_problems(tex) == []
+    md = client.post("/v1/spectroscopic/sb2?format=markdown", json=body).get_data(as_text=True)
+    assert "| `GM_sun` | 1.3271244 × 10<sup>20</sup> | m3 / s2 |" in md and "| `day` | 86400 | s |" in md
