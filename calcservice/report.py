@@ -345,7 +345,7 @@ def _group(text: str, start: int) -> tuple[str, int] | None:
     return (m.group(0), m.end()) if m else None
 
 
-def _maths_tokens(text: str) -> list[tuple[str, str]]:
+def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, str]]:
     """``text`` as (kind, content) tokens: "math" (TeX), "text" (words, as written) or "neutral" (as written)."""
     out: list[tuple[str, str]] = []
     i = 0
@@ -356,7 +356,7 @@ def _maths_tokens(text: str) -> list[tuple[str, str]]:
             if c == "^" or (base and (len(base.group(1)) <= 2 or _symbol(base.group(1)) is not None)):
                 g = _group(text, i + 1)
                 if g:
-                    out.append(("math", c + "{" + _inner_tex(g[0]) + "}"))
+                    out.append(("math", c + "{" + _inner_tex(g[0], symbols) + "}"))
                     i = g[1]
                     continue
         if c.isdigit() and not (prev.isalnum() or prev in "_."):
@@ -366,7 +366,7 @@ def _maths_tokens(text: str) -> list[tuple[str, str]]:
                             + "10^{" + m.group(2).lstrip("+") + "}"))
                 i = m.end()
                 continue
-        symbol = next(((a, t) for a, t in _MATH_SYMBOLS if text.startswith(a, i)), None)
+        symbol = next(((a, t) for a, t in symbols if text.startswith(a, i)), None)
         if symbol:
             out.append(("math", symbol[1]))
             i += len(symbol[0])
@@ -384,7 +384,7 @@ def _maths_tokens(text: str) -> list[tuple[str, str]]:
                 if letters == "a" and not digits and _ARTICLE.match(text, m.end()):
                     tex = None                      # the article ("a dark companion"), not the semi-major axis
                 if letters == "sqrt" and not digits and (g := _group(text, m.end())) and text[m.end()] == "(":
-                    out.append(("math", r"\sqrt{" + _inner_tex(g[0]) + "}"))
+                    out.append(("math", r"\sqrt{" + _inner_tex(g[0], symbols) + "}"))
                     i = g[1]
                     continue
                 if tex is not None:
@@ -403,18 +403,22 @@ def _maths_tokens(text: str) -> list[tuple[str, str]]:
     return out
 
 
-def _inner_tex(text: str) -> str:
+def _inner_tex(text: str, symbols: tuple = _MATH_SYMBOLS) -> str:
     """A superscript's or subscript's argument, all of it maths (its words upright)."""
     return "".join(s if kind != "text" else (r"\mathrm{" + s + "}" if s.isalnum() else s)
-                   for kind, s in _maths_tokens(text))
+                   for kind, s in _maths_tokens(text, symbols))
 
 
-def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$")) -> str:
+#: the symbols for plain LaTeX, which has no \gtrsim nor \lesssim without a package (amssymb)
+LATEX_SYMBOLS = tuple((a, {">~": r"\stackrel{>}{\sim}", "<~": r"\stackrel{<}{\sim}"}.get(a, t)) for a, t in _MATH_SYMBOLS)
+
+
+def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple = _MATH_SYMBOLS) -> str:
     """A declaration's text with its maths set as TeX between ``$`` signs and its words left as words (through
     ``plain``, which escapes them for the target): "spectroscopic mass function M2^3 sin^3 i / (M1+M2)^2" becomes
     "spectroscopic mass function $M_{2}^{3}\\sin^{3} i / (M_{1}+M_{2})^{2}$", for matplotlib's mathtext and LaTeX
     alike; one-letter variables are italic, functions upright, Greek letters by name."""
-    tokens = _maths_tokens(text)
+    tokens = _maths_tokens(text, symbols)
     out, k = [], 0
     while k < len(tokens):
         kind, s = tokens[k]
@@ -854,7 +858,9 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.output(key).description
             except KeyError:
                 pass
-        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
+        # an output's description set with its maths as maths in LaTeX (M1 sin^3 i read as code), as a figure sets it
+        shown = tex_maths(desc, s.text, LATEX_SYMBOLS) if s.name == "latex" else s.text(desc)
+        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), shown])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)

@@ -291,3 +291,21 @@ def test_a_constant_in_the_report_is_a_number_with_every_digit_not_code(client):
     assert latex_problems(tex) == []
     md = client.post("/v1/spectroscopic/sb2?format=markdown", json=body).get_data(as_text=True)
     assert "| `GM_sun` | 1.3271244 × 10<sup>20</sup> | m3 / s2 |" in md and "| `day` | 86400 | s |" in md
+
+
+def test_the_latex_reports_result_descriptions_set_their_maths_as_maths(client):
+    from .test_referee_report import latex_problems
+    body = {"period": 41.6, "k1": {"value": 38.2, "sigma": 0.4}, "k2": {"value": 51.7, "sigma": 0.6},
+            "eccentricity": {"value": 0.31, "sigma": 0.01}}
+    tex = client.post("/v1/spectroscopic/sb2?format=latex", json=body).get_data(as_text=True)
+    # the description read "M1 sin\textasciicircum{}3 i" as text; the same declaration a histogram's subtitle sets
+    row = next(line for line in tex.splitlines() if line.startswith(r"\texttt{m1\_sin3i}"))
+    assert row.endswith(r"& $M_{1} \,\sin^{3} i$ \\")
+    row = next(line for line in tex.splitlines() if line.startswith(r"\texttt{mass\_ratio}"))
+    assert row.endswith(r"& mass ratio $q = M_{2}/M_{1}$ \\")
+    # plain LaTeX: no \gtrsim (a package's), "about or above 1" written with the kernel's \stackrel
+    from calcservice.registry import calculations
+    collision = client.post("/v1/winds/collision?format=latex", json=calculations()["collision"].example)
+    tex = collision.get_data(as_text=True)
+    assert r"($\stackrel{>}{\sim}1$ adiabatic, $\stackrel{<}{\sim}1$ radiative)" in tex and r"\gtrsim" not in tex
+    assert latex_problems(tex) == []
