@@ -235,7 +235,8 @@ def table(response: dict, calc: Calculation) -> str:
     for key, entry in results.items():
         if report.is_measured(entry):
             desc = calc.output(key).description if key in {o.name for o in calc.outputs} else ""
-            rows.append([key, style.number(report.printed_entry(entry)), entry.get("unit", ""), desc])
+            # an undefined sigma said as such, with the interval's ends, as the report and the client's print say it
+            rows.append([key, report.measured_cell(entry, style), entry.get("unit", ""), desc])
     if rows:
         lines += _columns(["result", "value", "unit", "description"], rows)
     series = results.get("series")

@@ -309,3 +309,20 @@ def test_the_latex_reports_result_descriptions_set_their_maths_as_maths(client):
     tex = collision.get_data(as_text=True)
     assert r"($\stackrel{>}{\sim}1$ adiabatic, $\stackrel{<}{\sim}1$ radiative)" in tex and r"\gtrsim" not in tex
     assert latex_problems(tex) == []
+
+
+def test_the_command_line_table_says_an_undefined_sigma_as_the_report_does(capsys, local):
+    from calcservice.cli import main
+    from calcservice.report import STYLES, measured_cell
+    # a fictional single-lined orbit ("Wick-2") with an inclination not known at all: the companion's mass
+    # has no finite sigma; the table printed "0.80 +0.84 -0.13", as if the interval were a measured error
+    args = ["period=3.4172d", "k1=61.4+-0.9km/s", "eccentricity=0", "primary_mass=1.2+-0.1", "inclination=isotropic"]
+    assert main(["compute", "sb1", *args, "--seed", "7", "--samples", "2000"]) == 0
+    out = capsys.readouterr().out
+    r = local.calculate("sb1", period={"value": 3.4172, "unit": "d"}, k1={"value": 61.4, "sigma": 0.9, "unit": "km/s"},
+                        eccentricity=0, primary_mass=(1.2, 0.1), inclination="isotropic", seed=7, samples=2000)
+    assert r["results"]["m2"]["sigma"] is None
+    line = next(x for x in out.splitlines() if x.startswith("m2 "))
+    assert measured_cell(r["results"]["m2"], STYLES["text"]) in line and "sigma undefined; 68.27 % interval" in line
+    # a defined sigma is printed as before: the minimum mass (i = 90 deg) has one
+    assert measured_cell(r["results"]["m2_min"], STYLES["text"]) in out
