@@ -326,3 +326,19 @@ def test_the_command_line_table_says_an_undefined_sigma_as_the_report_does(capsy
     assert measured_cell(r["results"]["m2"], STYLES["text"]) in line and "sigma undefined; 68.27 % interval" in line
     # a defined sigma is printed as before: the minimum mass (i = 90 deg) has one
     assert measured_cell(r["results"]["m2_min"], STYLES["text"]) in out
+
+
+def test_the_reference_page_says_each_rule_once_naming_its_inputs(client):
+    import html
+    import re
+    page = client.get("/docs").get_data(as_text=True)
+    section = page.split('id="collision"')[1].split("<section")[0]
+    rules = html.unescape(re.search(r'<p class="rules">(.*?)</p>', section).group(1))
+    # "belongs to an orbit and is not used with separation" was said four times, naming no input
+    said = rules.split(": ", 1)[1].rstrip(".").split("; ")
+    assert len(said) == len(set(said)), said
+    assert rules.count("belongs to an orbit") == 1 and rules.count("Kepler's third law needs") == 1
+    assert "semimajor_axis, period, m1, m2: belongs to an orbit and is not used with separation" in rules
+    # each constraint's message is still there, as the 422 would say it
+    from calcservice.registry import calculations
+    assert all(c.message in rules for c in calculations()["collision"].constraints)
