@@ -564,8 +564,10 @@ class Client:
         if name not in calcs:
             calcs = self.calculations(refresh=True)
         if name not in calcs:
-            raise CalcServiceError(f"the service has no calculation {name!r}; it has {', '.join(calcs)}", 404,
-                                   {"status": 404, "detail": f"there is no calculation {name!r}",
+            # the names it has are said where str() shows them (the detail), not only in an unprinted message
+            known = f"the service has {', '.join(calcs)}"
+            raise CalcServiceError(f"the service has no calculation {name!r}; {known}", 404,
+                                   {"status": 404, "detail": f"there is no calculation {name!r}; {known}",
                                     "errors": {"calculation": [f"unknown: {name!r}"]}})
         return calcs[name]
 

@@ -342,3 +342,12 @@ def test_the_reference_page_says_each_rule_once_naming_its_inputs(client):
     # each constraint's message is still there, as the 422 would say it
     from calcservice.registry import calculations
     assert all(c.message in rules for c in calculations()["collision"].constraints)
+
+
+def test_an_unknown_calculation_in_the_client_says_which_there_are(local):
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as info:
+        local.calculate("sb3", period=41.6)
+    # str() gave "404 there is no calculation 'sb3' (calculation: unknown: 'sb3')": the names were in no printed part
+    assert info.value.status == 404 and list(info.value.errors) == ["calculation"]
+    assert "sb1, sb2" in str(info.value) and "shell-forecast" in str(info.value)
