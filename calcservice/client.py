@@ -336,6 +336,7 @@ class BatchResult(dict):
         """Title, header and the first ``limit`` rows of both reprs: value ± sigma per scalar output, then
         the warnings' codes where some system has any, then the error."""
         names = [n for n in self if np.ndim(self[n]) == 1]
+        series = [n for n in self if np.ndim(self[n]) == 2]      # an ephemeris' curves: a row of values per system
         rows = []
         errors = self.error_text()
         codes = [", ".join(c) for c in self.warning_codes()]
@@ -347,13 +348,24 @@ class BatchResult(dict):
                         + [_pm(self[n][i], *(part.get(n, [None] * self.count)[i]
                                              for part in (self.sigma, self.low or {}, self.high or {})))
                            for n in names]
+                        + [self._series_cell(n, i) for n in series]
                         + ([codes[i]] if warned else []) + [errors[i]])
-        header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
+        header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names + series]
                   + (["warnings"] if warned else []) + ["error"])
         more = f", first {limit} shown" if self.count > limit else ""
         title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
                  f"{len(self.failed)} failed" + (f", {warned} with warnings" if warned else "") + more)
         return title, header, rows
+
+    def _series_cell(self, name: str, i: int) -> str:
+        """System ``i``'s series ``name`` in one cell: its first and last values (value ± sigma) and their count,
+        so that a printed batch of ephemerides shows its curves, where it showed no column at all."""
+        parts = [np.asarray(self[name])[i]] + [np.asarray(part[name])[i] if part and name in part else None
+                                               for part in (self.sigma, self.low, self.high)]
+        cells = [_pm(*(None if p is None else p[k] for p in parts)) for k in range(len(parts[0]))]
+        if all(c == "—" for c in cells):
+            return "—"
+        return "; ".join(cells) if len(cells) <= 2 else f"{cells[0]} … {cells[-1]} ({len(cells)} values)"
 
     def _repr_html_(self, limit: int = 20) -> str:
         return _html_table(*self._summary(limit))

@@ -351,3 +351,23 @@ def test_an_unknown_calculation_in_the_client_says_which_there_are(local):
     # str() gave "404 there is no calculation 'sb3' (calculation: unknown: 'sb3')": the names were in no printed part
     assert info.value.status == 404 and list(info.value.errors) == ["calculation"]
     assert "sb1, sb2" in str(info.value) and "shell-forecast" in str(info.value)
+
+
+def test_printing_a_batch_of_ephemerides_shows_their_curves(local):
+    from calcservice.report import STYLES, measured_cell
+    # two fictional orbits ("Lantern-7", "Ember-3"), the second with a period that is no period: print(out) showed
+    # an empty table ("#", "0", "1"), the series outputs being left out
+    out = local.batch("ephemeris", {"period": ([41.6, -2410.0], 0.1), "eccentricity": [0.31, 0.71],
+                                    "omega": [122.0, 205.0], "t_periastron": [2460310.4, 2458120.4],
+                                    "k1": [38.2, 38.0], "times": [2461000.5, 2461010.5, 2461020.5]})
+    text = repr(out)
+    header = text.splitlines()[1]
+    assert "rv1 [km/s]" in header and "phase" in header
+    row = next(line for line in text.splitlines() if line.startswith("0 "))
+    one = local.calculate("ephemeris", period=(41.6, 0.1), eccentricity=0.31, omega=122.0, t_periastron=2460310.4,
+                          k1=38.2, times=[2461000.5, 2461010.5, 2461020.5])["results"]["series"]["rv1"]
+    first, last = ({"value": one["value"][k], "sigma": one["sigma"][k]} for k in (0, -1))
+    assert f"{measured_cell(first, STYLES['text'])} … {measured_cell(last, STYLES['text'])} (3 values)" in row
+    failed = next(line for line in text.splitlines() if line.startswith("1 "))
+    assert "period: must be > 0" in failed and "—" in failed
+    assert "<td>" in out._repr_html_() and "(3 values)" in out._repr_html_()
