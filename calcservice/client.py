@@ -167,10 +167,15 @@ class Result(dict):
         title = f"{self.get('calculation', '')} ({(self.get('uncertainty') or {}).get('method', '')})"
         return title, ("output", "value ± sigma", "unit"), rows
 
+    @property
+    def _scale(self) -> str:
+        """What the answer's date numbers are: MJD where the request said so, else JD."""
+        return "MJD" if self.get("time_format") == "mjd" else "JD"
+
     def _repr_html_(self) -> str:
         title, header, rows = self._summary()
         return "".join([_html_table(title, header, rows) if rows else f"<p>{html.escape(title)}</p>"]
-                       + [_html_table(*table) for table in _series_and_events(self.get("results") or {})]
+                       + [_html_table(*table) for table in _series_and_events(self.get("results") or {}, self._scale)]
                        + [f"<p>warning [{html.escape(str(w.get('code')))}]: {html.escape(str(w.get('message')))}</p>"
                           for w in self.get("warnings") or [] if isinstance(w, Mapping)])
 
@@ -181,25 +186,25 @@ class Result(dict):
         lines = [title, *_text_rows([header, *rows])] if rows else [title]
         warnings = [f"warning [{w.get('code')}]: {w.get('message')}" for w in self.get("warnings") or []
                     if isinstance(w, Mapping)]
-        return "\n".join(lines + _series_and_events_text(self.get("results") or {}) + ([""] if warnings else [])
+        return "\n".join(lines + _series_and_events_text(self.get("results") or {}, self._scale) + ([""] if warnings else [])
                          + warnings)
 
 
-def _series_and_events(results: Mapping[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]:
+def _series_and_events(results: Mapping[str, Any], scale: str = "JD") -> list[tuple[str, list[str], list[list[str]]]]:
     """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as
     (title, header, rows) tables, printed as the reports print them (dates to what their sigma supports)."""
-    from .report import STYLES, event_tables, series_table
+    from .report import STYLES, event_tables, series_header, series_table
     style, tables = STYLES["text"], []
     if isinstance(results.get("series"), Mapping):
         names, units, body = series_table(results["series"], style)
-        tables.append(("series", [f"{n} [{u}]" if u else n for n, u in zip(names, units)], body))
+        tables.append(("series", series_header(names, units, style, scale), body))
     tables += [(label.replace("_", " "), header, body) for label, header, body in event_tables(results, style)]
     return tables
 
 
-def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
+def _series_and_events_text(results: Mapping[str, Any], scale: str = "JD") -> list[str]:
     lines: list[str] = []
-    for title, header, body in _series_and_events(results):
+    for title, header, body in _series_and_events(results, scale):
         lines += [""] + ([] if title == "series" else [title]) + _text_rows([header, *body])
     return lines
 

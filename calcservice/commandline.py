@@ -242,7 +242,7 @@ def table(response: dict, calc: Calculation) -> str:
     series = results.get("series")
     if isinstance(series, dict):
         names, units, body = report.series_table(series, style)
-        header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
+        header = report.series_header(names, units, style, "MJD" if response.get("time_format") == "mjd" else "JD")
         lines += ([""] if rows else []) + _columns(header, body, right=True)
     for label, header, body in report.event_tables(results, style):
         lines += ["", label.replace("_", " ")] + _columns(header, body)

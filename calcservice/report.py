@@ -618,9 +618,20 @@ def series_table(series: Mapping[str, Any], s: Style) -> tuple[list[str], list[s
     to 12 significant digits (a JD needs them); one writer for the reports, the command line and the
     client's print."""
     names, units, rows = series_rows(series)
-    body = [[s.number(printed_entry(e, digits=12) if k in ("times", "time") else printed_entry(e))
+    body = [[s.number(printed_entry(e, digits=12) if k in SERIES_DATES else printed_entry(e))
              for k, e in zip(names, row)] for row in rows]
     return names, units, body
+
+
+#: the names under which a series holds its dates (an ephemeris' times)
+SERIES_DATES = ("times", "time")
+
+
+def series_header(names: list[str], units: list[str], s: Style, scale: str = "JD") -> list[str]:
+    """A series' column headings, ``name [unit]``, the dates' saying their scale (``time [d, JD]``) as the event
+    tables' do; one writer for the reports, the command line and the client's print."""
+    return [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in SERIES_DATES else ''}]" if u else "")
+            for k, u in zip(names, units)]
 
 
 def event_keys(entries: list[dict]) -> list[str]:
@@ -874,8 +885,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                             "has them all."))
         else:
             body = series_table(series, s)[2]
-            header = [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in dates else ''}]" if u else "")
-                      for k, u in zip(names, units)]
+            header = series_header(names, units, s, scale)
             doc.table(header, body, "r" * len(header))
 
     for label, header, body in event_tables(results, s):

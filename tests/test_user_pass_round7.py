@@ -371,3 +371,18 @@ def test_printing_a_batch_of_ephemerides_shows_their_curves(local):
     failed = next(line for line in text.splitlines() if line.startswith("1 "))
     assert "period: must be > 0" in failed and "—" in failed
     assert "<td>" in out._repr_html_() and "(3 values)" in out._repr_html_()
+
+
+def test_a_printed_series_says_its_dates_are_jd_or_mjd_as_the_event_tables_do(capsys, local):
+    from calcservice.cli import main
+    from calcservice.registry import calculations
+    # the fictional ephemeris example: the series said "time [d]" where the events beside it said "date [d, JD]"
+    text = str(local.calculate("ephemeris", **calculations()["ephemeris"].example))
+    assert "time [d, JD]" in text and "date [d, JD]" in text
+    assert main(["compute", "ephemeris", "period=2037.4", "eccentricity=0.873", "omega=243.6",
+                 "t_periastron=58711.8", "k1=61.2", "times=60400,60500", "--time-format", "mjd"]) == 0
+    out = capsys.readouterr().out
+    assert "time [d, MJD]" in out and "date [d, MJD]" in out and "JD]" not in out.replace("MJD]", "")
+    # the report's own series heading, as it was
+    md = local.report("ephemeris", format="markdown", **calculations()["ephemeris"].example)
+    assert "| `time` [d, JD] |" in md
