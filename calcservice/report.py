@@ -572,9 +572,13 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
                       calc: Calculation | None = None, inputs: Mapping[str, Any] | None = None) -> list[str]:
     lines = []
     if unc.get("method") == "monte_carlo":
+        # inputs given as samples were not drawn: they are the caller's own draws, as given
+        sampled = [k for k, v in (inputs or {}).items() if isinstance(v, Mapping) and v.get("samples")]
+        drawn = (f"{', '.join(sampled)}: the caller's own draws, paired index by index; the other inputs drawn "
+                 if sampled else "inputs drawn ")
         lines.append(f"Monte Carlo with {unc.get('samples')} draws, seed {unc.get('seed')}; "
                      f"rejected fraction {unc.get('rejected_fraction', 0):.4g}; results are the median with the "
-                     "central 68.27 % interval, inputs drawn normal (split normal when asymmetric), "
+                     f"central 68.27 % interval, {drawn}normal (split normal when asymmetric), "
                      "truncated to their physical domains")
     else:
         jacobian = ("the calculation's analytic Jacobian" if calc is not None and calc.jacobian is not None

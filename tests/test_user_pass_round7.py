@@ -386,3 +386,16 @@ def test_a_printed_series_says_its_dates_are_jd_or_mjd_as_the_event_tables_do(ca
     # the report's own series heading, as it was
     md = local.report("ephemeris", format="markdown", **calculations()["ephemeris"].example)
     assert "| `time` [d, JD] |" in md
+
+
+def test_the_report_says_which_inputs_were_the_callers_own_draws(local):
+    # a fictional SB1's posterior ("Wick-2"): period and k1 as draws, the primary's mass as value +- sigma; the
+    # report said "inputs drawn normal", of draws the service never made
+    rng = np.random.default_rng(1)
+    text = local.report("sb1", format="markdown", period={"samples": rng.normal(3.4172, 0.0002, 400).tolist()},
+                        k1={"samples": rng.normal(61.4, 0.9, 400).tolist()}, eccentricity=0, primary_mass=(1.2, 0.1))
+    line = next(x for x in text.splitlines() if x.startswith("- Monte Carlo with 400 draws"))
+    assert "period, k1: the caller's own draws, paired index by index; the other inputs drawn normal" in line
+    # without samples, as before
+    text = local.report("sb1", format="markdown", period=3.4172, k1=(61.4, 0.9), eccentricity=0, samples=500, seed=1)
+    assert "results are the median with the central 68.27 % interval, inputs drawn normal" in text
