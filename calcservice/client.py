@@ -167,10 +167,15 @@ class Result(dict):
         title = f"{self.get('calculation', '')} ({(self.get('uncertainty') or {}).get('method', '')})"
         return title, ("output", "value ± sigma", "unit"), rows
 
+    @property
+    def _scale(self) -> str:
+        """What the answer's date numbers are: MJD where the request said so, else JD."""
+        return "MJD" if self.get("time_format") == "mjd" else "JD"
+
     def _repr_html_(self) -> str:
         title, header, rows = self._summary()
         return "".join([_html_table(title, header, rows) if rows else f"<p>{html.escape(title)}</p>"]
-                       + [_html_table(*table) for table in _series_and_events(self.get("results") or {})]
+                       + [_html_table(*table) for table in _series_and_events(self.get("results") or {}, self._scale)]
                        + [f"<p>warning [{html.escape(str(w.get('code')))}]: {html.escape(str(w.get('message')))}</p>"
                           for w in self.get("warnings") or [] if isinstance(w, Mapping)])
 
@@ -181,25 +186,25 @@ class Result(dict):
         lines = [title, *_text_rows([header, *rows])] if rows else [title]
         warnings = [f"warning [{w.get('code')}]: {w.get('message')}" for w in self.get("warnings") or []
                     if isinstance(w, Mapping)]
-        return "\n".join(lines + _series_and_events_text(self.get("results") or {}) + ([""] if warnings else [])
+        return "\n".join(lines + _series_and_events_text(self.get("results") or {}, self._scale) + ([""] if warnings else [])
                          + warnings)
 
 
-def _series_and_events(results: Mapping[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]:
+def _series_and_events(results: Mapping[str, Any], scale: str = "JD") -> list[tuple[str, list[str], list[list[str]]]]:
     """An answer's series (an ephemeris' times, a shell forecast's shells) and its dated events as
     (title, header, rows) tables, printed as the reports print them (dates to what their sigma supports)."""
-    from .report import STYLES, event_tables, series_table
+    from .report import STYLES, event_tables, series_header, series_table
     style, tables = STYLES["text"], []
     if isinstance(results.get("series"), Mapping):
         names, units, body = series_table(results["series"], style)
-        tables.append(("series", [f"{n} [{u}]" if u else n for n, u in zip(names, units)], body))
+        tables.append(("series", series_header(names, units, style, scale), body))
     tables += [(label.replace("_", " "), header, body) for label, header, body in event_tables(results, style)]
     return tables
 
 
-def _series_and_events_text(results: Mapping[str, Any]) -> list[str]:
+def _series_and_events_text(results: Mapping[str, Any], scale: str = "JD") -> list[str]:
     lines: list[str] = []
-    for title, header, body in _series_and_events(results):
+    for title, header, body in _series_and_events(results, scale):
         lines += [""] + ([] if title == "series" else [title]) + _text_rows([header, *body])
     return lines
 
@@ -336,6 +341,7 @@ class BatchResult(dict):
         """Title, header and the first ``limit`` rows of both reprs: value ± sigma per scalar output, then
         the warnings' codes where some system has any, then the error."""
         names = [n for n in self if np.ndim(self[n]) == 1]
+        series = [n for n in self if np.ndim(self[n]) == 2]      # an ephemeris' curves: a row of values per system
         rows = []
         errors = self.error_text()
         codes = [", ".join(c) for c in self.warning_codes()]
@@ -347,13 +353,24 @@ class BatchResult(dict):
                         + [_pm(self[n][i], *(part.get(n, [None] * self.count)[i]
                                              for part in (self.sigma, self.low or {}, self.high or {})))
                            for n in names]
+                        + [self._series_cell(n, i) for n in series]
                         + ([codes[i]] if warned else []) + [errors[i]])
-        header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names]
+        header = (["#"] + kept + [f"{n} [{self.unit.get(n)}]" if self.unit.get(n) else n for n in names + series]
                   + (["warnings"] if warned else []) + ["error"])
         more = f", first {limit} shown" if self.count > limit else ""
         title = (f"{(self.response or {}).get('calculation', '')}: {self.count} systems, "
                  f"{len(self.failed)} failed" + (f", {warned} with warnings" if warned else "") + more)
         return title, header, rows
+
+    def _series_cell(self, name: str, i: int) -> str:
+        """System ``i``'s series ``name`` in one cell: its first and last values (value ± sigma) and their count,
+        so that a printed batch of ephemerides shows its curves, where it showed no column at all."""
+        parts = [np.asarray(self[name])[i]] + [np.asarray(part[name])[i] if part and name in part else None
+                                               for part in (self.sigma, self.low, self.high)]
+        cells = [_pm(*(None if p is None else p[k] for p in parts)) for k in range(len(parts[0]))]
+        if all(c == "—" for c in cells):
+            return "—"
+        return "; ".join(cells) if len(cells) <= 2 else f"{cells[0]} … {cells[-1]} ({len(cells)} values)"
 
     def _repr_html_(self, limit: int = 20) -> str:
         return _html_table(*self._summary(limit))
@@ -564,8 +581,10 @@ class Client:
         if name not in calcs:
             calcs = self.calculations(refresh=True)
         if name not in calcs:
-            raise CalcServiceError(f"the service has no calculation {name!r}; it has {', '.join(calcs)}", 404,
-                                   {"status": 404, "detail": f"there is no calculation {name!r}",
+            # the names it has are said where str() shows them (the detail), not only in an unprinted message
+            known = f"the service has {', '.join(calcs)}"
+            raise CalcServiceError(f"the service has no calculation {name!r}; {known}", 404,
+                                   {"status": 404, "detail": f"there is no calculation {name!r}; {known}",
                                     "errors": {"calculation": [f"unknown: {name!r}"]}})
         return calcs[name]
 
@@ -859,11 +878,7 @@ class InputTable:
             raise TypeError(f"a batch takes a Table, a DataFrame, a mapping of columns or a list of rows, "
                             f"not {type(data).__name__}{hint}")
         for label, unit in units.items():
-            if hasattr(unit, "to_string") and not isinstance(unit, str):      # an astropy unit
-                units[label] = unit.to_string()
-            elif not isinstance(unit, str):
-                raise InvalidInput(f"units: the unit of {label!r} is a string such as 'd' or an astropy unit, "
-                                   f"not {type(unit).__name__}")
+            units[label] = unit_text(unit, "units", f"the unit of {label!r}")
             if split_unit(label)[0] not in inputs and column_role(split_unit(label)[0], inputs) is None:
                 raise InvalidInput(f"units: {label!r} is no input of {decl['name']} (inputs: {', '.join(inputs)}); "
                                  "ask for outputs in other units with output_units=")
@@ -1100,7 +1115,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         # an astropy Quantity: its number in its own unit
         v = _plain(value.value)
         _finite(v, decl)            # an infinite Quantity would be written as null, said to be missing
-        unit = value.unit.to_string()
+        unit = unit_text(value.unit, (decl or {}).get("name", "an input"))
         if kind == "series":
             return {"value": v, "unit": unit}
         return {"samples": v, "unit": unit} if isinstance(v, list) else {"value": v, "unit": unit}
@@ -1211,7 +1226,8 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
             out["correlations"] = correlations
     if units is not None:
         # an astropy unit is sent as its string, as a batch's column units= takes it
-        out["units"] = {k: _unit_text(v) for k, v in units.items()} if isinstance(units, Mapping) else units
+        out["units"] = ({k: unit_text(v, f"units.{k}", f"the unit of {k!r}") for k, v in units.items()}
+                        if isinstance(units, Mapping) else units)
     if time_format is not None:             # "" or "MJD" go as they are, for the service to refuse naming them
         out["time_format"] = time_format
     if covariance is not False and covariance is not None:
@@ -1219,11 +1235,18 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     return out
 
 
-def _unit_text(unit: Any) -> Any:
-    """An astropy unit as the string astropy writes for it; anything else as it is."""
-    if not isinstance(unit, str) and hasattr(unit, "to_string") and hasattr(unit, "physical_type"):
+def unit_text(unit: Any, field: str, what: str = "a unit") -> str:
+    """A unit as the service reads it: a string as it is, an astropy unit (``u.km``, ``u.km / u.s``, ``u.dex``) as
+    the string astropy writes for it.  Anything else is refused naming ``field``: a number, or a Quantity such
+    as ``1000 * u.km``, whose string "1000.0 km" would be read as a unit 1000 times larger."""
+    if isinstance(unit, str):
+        return unit
+    units = sys.modules.get("astropy.units")        # an astropy unit comes with astropy already imported
+    if units is not None and isinstance(unit, (units.UnitBase, units.FunctionUnitBase)):
         return unit.to_string()
-    return unit
+    hint = f" (its unit alone is {unit.unit.to_string()!r})" if units is not None and isinstance(unit, units.Quantity) \
+        else ""
+    raise InvalidInput(f"{field}: {what} is a string such as 'd' or an astropy unit, not {type(unit).__name__}{hint}")
 
 
 def _whole(x):

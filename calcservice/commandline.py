@@ -235,13 +235,14 @@ def table(response: dict, calc: Calculation) -> str:
     for key, entry in results.items():
         if report.is_measured(entry):
             desc = calc.output(key).description if key in {o.name for o in calc.outputs} else ""
-            rows.append([key, style.number(report.printed_entry(entry)), entry.get("unit", ""), desc])
+            # an undefined sigma said as such, with the interval's ends, as the report and the client's print say it
+            rows.append([key, report.measured_cell(entry, style), entry.get("unit", ""), desc])
     if rows:
         lines += _columns(["result", "value", "unit", "description"], rows)
     series = results.get("series")
     if isinstance(series, dict):
         names, units, body = report.series_table(series, style)
-        header = [f"{n} [{u}]" if u else n for n, u in zip(names, units)]
+        header = report.series_header(names, units, style, "MJD" if response.get("time_format") == "mjd" else "JD")
         lines += ([""] if rows else []) + _columns(header, body, right=True)
     for label, header, body in report.event_tables(results, style):
         lines += ["", label.replace("_", " ")] + _columns(header, body)
@@ -572,23 +573,32 @@ def write_catalogue(path: str, result, calc: Calculation) -> int:
             status[e["index"]] = int(e.get("status") or 422)
     table.add_column(MaskedColumn(status, mask=status == 0), name="error_status", index=table.colnames.index("error"))
     table.meta = {"calculation": calc.name}
-    if fmt == "ascii.csv":
-        # plain CSV has no unit metadata: the unit goes into the header, as the reader takes it
-        # (in the service's own spelling of the unit: "au", not astropy's "AU")
+    if fmt in ("ascii.csv", "ascii.ecsv"):
+        # plain columns, each unit in the service's own spelling ("au", "km/s", not astropy's "AU", "km / s"): in
+        # a CSV header, as the reader takes it; in the ECSV header, as the service's ECSV answer writes it
         from .columns import column_name
+        from .tables import spelled_unit
         spelled = {column_name(name, member): result.unit.get(name) or ""
                    for name in result for member in ("value", "sigma", "low", "high")}
         plain = Table(masked=True)
         for name in table.colnames:
             col = table[name]
-            if name in spelled and hasattr(col, "unmasked") and col.ndim > 1:
-                # a series per system: one JSON list per cell, as CSV has no arrays
-                plain[column_name(name, "value", spelled[name])] = [
-                    "" if np.isnan(row).all() else json.dumps(row.tolist()) for row in col.unmasked.value]
-            elif name in spelled and hasattr(col, "unmasked"):
-                plain[column_name(name, "value", spelled[name])] = MaskedColumn(col.unmasked.value, mask=col.mask)
+            if name in spelled and hasattr(col, "unmasked"):
+                unit = spelled[name]
+                values = MaskedColumn(col.unmasked.value, mask=col.mask)
+                if fmt == "ascii.csv":
+                    plain[column_name(name, "value", unit)] = values
+                else:
+                    values.unit = spelled_unit(unit) if unit else None
+                    plain[name] = values
             else:
                 plain[name] = col
+        if fmt == "ascii.ecsv":
+            # the answer's calculation, method and provenance as the service's ECSV header has them
+            answer = result.response or {}
+            unc = {k: v for k, v in (answer.get("uncertainty") or {}).items() if isinstance(v, (str, int, float))}
+            plain.meta = {"calculation": calc.name, "uncertainty": unc,
+                          **({"provenance": answer["provenance"]} if "provenance" in answer else {})}
         table = plain
     elif fmt == "fits":
         table.meta = {"CALC": calc.name}
@@ -655,8 +665,13 @@ def _compute_or_raise(args, limits) -> int:
         if fmt not in ("table", "json"):
             raise UsageError("--format", "a catalogue is written in the format of --out's extension; "
                                          "--format applies to one system")
-        if args.out != "-":
-            table_format(args.out, "--out")          # refused before any work
+        out_format = "ascii.csv" if args.out == "-" else table_format(args.out, "--out")   # refused before any work
+        series = [i.name for i in calc.inputs if i.kind == "series" and i.name in body]
+        if series and out_format in ("ascii.csv", "ascii.ecsv"):
+            # as the service refuses a CSV or ECSV answer over a series (406), before the work
+            raise UsageError("--out", f"the outputs over {', '.join(series)} hold a series per system, which CSV "
+                                      f"and ECSV cannot carry: write --out as .fits or .vot (VOTable), which hold "
+                                      "an array per cell (--json prints the JSON answer too)")
         data = read_catalogue(calc, args.input, [name for names in args.keep or () for name in names])
         rows = data.count
         shared = {}

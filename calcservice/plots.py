@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import io
 import math
+import textwrap
 from typing import Any, Callable, Mapping
 
 import numpy as np
@@ -39,6 +40,8 @@ MARKER_SIZE = 5.0
 #: is a marker's radius, and a layer still larger is rasterized in SVG.
 MAX_MARKERS = 1000
 STAR_COLOURS = ("#1f5aa6", "#c8501e")
+#: Characters of a histogram's subtitle (the output's description) per line: a 7-inch figure holds about 100 at 10 pt.
+SUBTITLE_WIDTH = 90
 
 
 class PlotError(ValueError):
@@ -79,8 +82,16 @@ def histogram(name: str, draws: np.ndarray, entry: Mapping[str, Any], fmt: str, 
     """Histogram of the Monte Carlo draws of one output, with the median and the 68.27 % interval marked.
 
     ``draws`` are in the output's canonical unit; ``entry`` is the response's result (in the
-    unit the response gives, which may differ when the request asked for other units).
+    unit the response gives, which may differ when the request asked for other units);
+    ``description`` the output's, as declared (its maths set by matplotlib's mathtext).
     """
+    return figure_bytes(histogram_figure(name, draws, entry, description, canonical_unit), fmt)
+
+
+def histogram_figure(name: str, draws: np.ndarray, entry: Mapping[str, Any], description: str = "",
+                     canonical_unit: str | None = None):
+    """The matplotlib Figure drawn by :func:`histogram`."""
+    from .report import tex_maths
     unit = entry.get("unit", "")
     d = np.asarray(draws, dtype=float).reshape(-1)
     if canonical_unit is not None and unit != canonical_unit:
@@ -101,14 +112,19 @@ def histogram(name: str, draws: np.ndarray, entry: Mapping[str, Any], fmt: str, 
         ax.axvline(high, color="#b87a1e", linestyle="--", linewidth=1.0)
     if isinstance(median, (int, float)) and math.isfinite(median):
         from .report import STYLES, printed_entry
+        shown = printed_entry(entry)
+        # a power of ten set as one (mathtext), else as text the SVG keeps searchable
         ax.axvline(median, color="#7a1e1e", linewidth=1.6,
-                   label=f"median {STYLES['text'].number(printed_entry(entry))}")
+                   label=f"median {STYLES['latex' if shown and shown.exponent else 'text'].number(shown)}")
     ax.set_xlabel(_label(name, unit))
     ax.set_ylabel("number of draws")
-    title = f"{name}: {d.size} Monte Carlo draws"
-    ax.set_title(title + (f"\n{description}" if description else ""), fontsize=10)
+    # the name is an identifier ("m1_sin3i"), set as written; the description's maths as maths ("M1 sin^3 i")
+    # (wrapped first, so that a long one is not cut at the figure's edge)
+    title = f"{name}: {d.size} Monte Carlo draws".replace("$", r"\$")
+    lines = [tex_maths(line) for line in textwrap.wrap(description, SUBTITLE_WIDTH, break_long_words=False)]
+    ax.set_title("\n".join([title, *lines]), fontsize=10)
     ax.legend(loc="best", fontsize=8, frameon=False)
-    return figure_bytes(fig, fmt)
+    return fig
 
 
 def histogram_bins(draws: np.ndarray) -> np.ndarray | int:

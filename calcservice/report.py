@@ -304,6 +304,151 @@ class Latex(Style):
 STYLES = {"text": Text(), "markdown": Markdown(), "latex": Latex()}
 
 
+# --------------------------------------------------------------------------- plain-text maths as TeX
+# The declarations write maths as plain text ("M1 sin^3 i", "(1 - e^2)^{3/2}", "Mdot2", "Gamma_e", "GM_sun"), read by
+# the same rules as the web form's (static/form.js, mathNodes): here they become TeX for matplotlib's mathtext and LaTeX.
+_GREEK = frozenset("alpha beta gamma Gamma delta Delta epsilon zeta eta theta kappa lambda mu nu xi pi rho sigma "
+                   "tau phi chi psi omega Omega".split())
+_WORDS = {"Mdot": r"\dot{M}", "Pdot": r"\dot{P}", "sun": r"\odot"}
+_FUNCTIONS = frozenset({"sin", "cos", "tan", "arctan", "log", "exp", "ln"})      # set upright, as TeX sets them
+_MATH_SYMBOLS = (("<=", r"\leq"), (">=", r"\geq"), (">~", r"\gtrsim"), ("<~", r"\lesssim"), ("''", r"^{\prime\prime}"),
+                 ("+-", r"\pm"))
+# characters that read the same in text and in maths: between two maths tokens they join them into one formula
+_NEUTRAL = frozenset(" 0123456789.,()[]+-/*=:")
+_LETTERS = re.compile(r"([A-Za-z]+)(\d*)(?![A-Za-z])")
+_POWER = re.compile(r"(\d+(?:\.\d+)?)e([+-]?\d+)(?![\w.])")
+_BASE = re.compile(r"(?:^|[^A-Za-z])([A-Za-z]+)$")
+_ARTICLE = re.compile(r" (?!(?:sin|cos|tan|log|exp|ln)\b)[A-Za-z]{2,}")
+
+
+def _symbol(letters: str) -> str | None:
+    """A run of letters as a maths symbol (a Greek letter, a function, a dotted rate, a one-letter variable), or
+    None for a word."""
+    if letters in _GREEK or letters in _FUNCTIONS:
+        return "\\" + letters
+    if letters in _WORDS:
+        return _WORDS[letters]
+    return letters if len(letters) == 1 else None
+
+
+def _group(text: str, start: int) -> tuple[str, int] | None:
+    """The argument of ^ or _ at ``start``: {...} or (...) balanced, else a number or a word; (inner, end)."""
+    if text.startswith(("{", "("), start):
+        open_, close = text[start], "}" if text[start] == "{" else ")"
+        depth = 0
+        for j in range(start, len(text)):
+            depth += (text[j] == open_) - (text[j] == close)
+            if depth == 0:
+                return text[start + 1:j], j + 1
+        return None
+    m = re.compile(r"-?[0-9.]+|[A-Za-z]+").match(text, start)
+    return (m.group(0), m.end()) if m else None
+
+
+def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, str]]:
+    """``text`` as (kind, content) tokens: "math" (TeX), "text" (words, as written) or "neutral" (as written)."""
+    out: list[tuple[str, str]] = []
+    i = 0
+    while i < len(text):
+        c, prev = text[i], text[i - 1] if i else " "
+        if c in "^_" and i:
+            base = _BASE.search(text[:i])
+            if c == "^" or (base and (len(base.group(1)) <= 2 or _symbol(base.group(1)) is not None)):
+                g = _group(text, i + 1)
+                if g:
+                    out.append(("math", c + "{" + _inner_tex(g[0], symbols) + "}"))
+                    i = g[1]
+                    continue
+        if c.isdigit() and not (prev.isalnum() or prev in "_."):
+            m = _POWER.match(text, i)
+            if m:                   # 1e12 -> 10^{12}, 2.5e-7 -> 2.5 x 10^{-7}
+                out.append(("math", ("" if m.group(1) == "1" else m.group(1) + r" \times ")
+                            + "10^{" + m.group(2).lstrip("+") + "}"))
+                i = m.end()
+                continue
+        symbol = next(((a, t) for a, t in symbols if text.startswith(a, i)), None)
+        if symbol:
+            out.append(("math", symbol[1]))
+            i += len(symbol[0])
+            continue
+        if c.isascii() and c.isalpha():
+            m = _LETTERS.match(text, i)
+            # a word begins here: not within one, nor the s of a possessive ("the primary's orbit")
+            starts = not (prev.isascii() and (prev.isalnum() or prev == "_")) and not (
+                prev == "'" and i > 1 and text[i - 2].isalpha())
+            if m and starts:
+                letters, digits = m.groups()
+                tex = _symbol(letters)
+                if len(letters) == 2 and not digits and text.startswith("_", m.end()):
+                    tex = letters                   # a two-letter symbol with a subscript: GM_sun
+                if letters == "a" and not digits and _ARTICLE.match(text, m.end()):
+                    tex = None                      # the article ("a dark companion"), not the semi-major axis
+                if letters == "sqrt" and not digits and (g := _group(text, m.end())) and text[m.end()] == "(":
+                    out.append(("math", r"\sqrt{" + _inner_tex(g[0], symbols) + "}"))
+                    i = g[1]
+                    continue
+                if tex is not None:
+                    before = next((kind for kind, t in reversed(out) if t != " "), None)
+                    if letters in _FUNCTIONS and before == "math" and out[-1][1] == " ":
+                        tex = r"\," + tex      # mathtext sets no space before sin after a symbol (M1 sin^3 i)
+                    out.append(("math", tex + (f"_{{{digits}}}" if digits else "")))
+                    i = m.end()
+                    continue
+            word = re.compile(r"[A-Za-z0-9]+").match(text, i).group(0)     # a word, digits run into it kept
+            out.append(("text", word))
+            i += len(word)
+            continue
+        out.append(("neutral" if c in _NEUTRAL else "text", c))
+        i += 1
+    return out
+
+
+def _inner_tex(text: str, symbols: tuple = _MATH_SYMBOLS) -> str:
+    """A superscript's or subscript's argument, all of it maths (its words upright)."""
+    return "".join(s if kind != "text" else (r"\mathrm{" + s + "}" if s.isalnum() else s)
+                   for kind, s in _maths_tokens(text, symbols))
+
+
+#: the symbols for plain LaTeX, which has no \gtrsim nor \lesssim without a package (amssymb)
+LATEX_SYMBOLS = tuple((a, {">~": r"\stackrel{>}{\sim}", "<~": r"\stackrel{<}{\sim}"}.get(a, t)) for a, t in _MATH_SYMBOLS)
+
+
+def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple = _MATH_SYMBOLS) -> str:
+    """A declaration's text with its maths set as TeX between ``$`` signs and its words left as words (through
+    ``plain``, which escapes them for the target): "spectroscopic mass function M2^3 sin^3 i / (M1+M2)^2" becomes
+    "spectroscopic mass function $M_{2}^{3}\\sin^{3} i / (M_{1}+M_{2})^{2}$", for matplotlib's mathtext and LaTeX
+    alike; one-letter variables are italic, functions upright, Greek letters by name."""
+    tokens = _maths_tokens(text, symbols)
+    out, k = [], 0
+    while k < len(tokens):
+        kind, s = tokens[k]
+        if kind != "math":
+            out.append(plain(s))
+            k += 1
+            continue
+        # the formula runs on through neutral tokens up to the next word (its closing brackets, "= 90"), and takes
+        # an opening bracket or sign written against it; spaces at its ends stay outside
+        j = k + 1
+        while j < len(tokens) and tokens[j][0] != "text":
+            j += 1
+        start = k
+        while start > 0 and tokens[start - 1][0] == "neutral" and tokens[start - 1][1] in "([-" and out \
+                and out[-1] == tokens[start - 1][1]:
+            out.pop()
+            start -= 1
+        formula = "".join(t for _, t in tokens[start:j])
+        if start < k and formula.count(tokens[start][1]) > formula.count(")]"["([".index(tokens[start][1])]) \
+                and tokens[start][1] != "-":
+            out.append(tokens[start][1])    # a bracket whose partner is beyond the formula stays beside it
+            formula = formula[1:]
+        tex = formula.rstrip(" ([-")
+        while tex and tex[-1] in ")]" and tex.count(tex[-1]) > tex.count("(["[")]".index(tex[-1])]):
+            tex = tex[:-1]                  # likewise a closing bracket whose partner is before it
+        out.append("$" + tex.rstrip() + "$" + formula[len(tex.rstrip()):])
+        k = j
+    return "".join(out)
+
+
 # --------------------------------------------------------------------------- the report's content
 def asking_budget(body: Any) -> Any:
     """The request ``body`` with the uncertainty budget asked for, since the report always shows it.
@@ -427,9 +572,13 @@ def _uncertainty_text(unc: Mapping[str, Any], correlations: Iterable[Mapping[str
                       calc: Calculation | None = None, inputs: Mapping[str, Any] | None = None) -> list[str]:
     lines = []
     if unc.get("method") == "monte_carlo":
+        # inputs given as samples were not drawn: they are the caller's own draws, as given
+        sampled = [k for k, v in (inputs or {}).items() if isinstance(v, Mapping) and v.get("samples")]
+        drawn = (f"{', '.join(sampled)}: the caller's own draws, paired index by index; the other inputs drawn "
+                 if sampled else "inputs drawn ")
         lines.append(f"Monte Carlo with {unc.get('samples')} draws, seed {unc.get('seed')}; "
                      f"rejected fraction {unc.get('rejected_fraction', 0):.4g}; results are the median with the "
-                     "central 68.27 % interval, inputs drawn normal (split normal when asymmetric), "
+                     f"central 68.27 % interval, {drawn}normal (split normal when asymmetric), "
                      "truncated to their physical domains")
     else:
         jacobian = ("the calculation's analytic Jacobian" if calc is not None and calc.jacobian is not None
@@ -473,9 +622,20 @@ def series_table(series: Mapping[str, Any], s: Style) -> tuple[list[str], list[s
     to 12 significant digits (a JD needs them); one writer for the reports, the command line and the
     client's print."""
     names, units, rows = series_rows(series)
-    body = [[s.number(printed_entry(e, digits=12) if k in ("times", "time") else printed_entry(e))
+    body = [[s.number(printed_entry(e, digits=12) if k in SERIES_DATES else printed_entry(e))
              for k, e in zip(names, row)] for row in rows]
     return names, units, body
+
+
+#: the names under which a series holds its dates (an ephemeris' times)
+SERIES_DATES = ("times", "time")
+
+
+def series_header(names: list[str], units: list[str], s: Style, scale: str = "JD") -> list[str]:
+    """A series' column headings, ``name [unit]``, the dates' saying their scale (``time [d, JD]``) as the event
+    tables' do; one writer for the reports, the command line and the client's print."""
+    return [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in SERIES_DATES else ''}]" if u else "")
+            for k, u in zip(names, units)]
 
 
 def event_keys(entries: list[dict]) -> list[str]:
@@ -565,10 +725,15 @@ def _share(x: float) -> str:
     return format(pct, ".1f")
 
 
+#: A share of variance smaller than this is the rounding of the doubles it is a difference of (a Monte Carlo share
+#: of an input the output does not depend on came out as -2.6e-16), printed as no share at all.
+BUDGET_ROUNDING = 1e-12
+
+
 def budget_rows(results: Mapping[str, Any]) -> tuple[list[tuple[str, list[tuple[str, float]]]], list[str]]:
     """Each output with a sigma and its uncertainty budget: [(output, [(term, share), ...])], inputs
-    by decreasing share then the correlation terms ("a,b") on their own lines, terms of exactly zero
-    (an input the output does not depend on) left out; and the outputs with a sigma but no budget."""
+    by decreasing share then the correlation terms ("a,b") on their own lines, terms of zero (an input
+    the output does not depend on, to :data:`BUDGET_ROUNDING`) left out; and the outputs with a sigma but no budget."""
     shown, missing = [], []
     for name, entry in results.items():
         if not is_measured(entry) or not (_finite(entry.get("sigma")) and entry["sigma"] > 0):
@@ -578,8 +743,9 @@ def budget_rows(results: Mapping[str, Any]) -> tuple[list[tuple[str, list[tuple[
         if not finite:
             missing.append(name)
             continue
-        inputs = sorted(((k, v) for k, v in finite.items() if "," not in k and v != 0), key=lambda kv: -kv[1])
-        pairs = [(k, v) for k, v in finite.items() if "," in k and v != 0]
+        inputs = sorted(((k, v) for k, v in finite.items() if "," not in k and abs(v) >= BUDGET_ROUNDING),
+                        key=lambda kv: -kv[1])
+        pairs = [(k, v) for k, v in finite.items() if "," in k and abs(v) >= BUDGET_ROUNDING]
         shown.append((name, inputs + pairs))
     return shown, missing
 
@@ -707,7 +873,9 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                 desc = calc.output(key).description
             except KeyError:
                 pass
-        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), s.text(desc)])
+        # an output's description set with its maths as maths in LaTeX (M1 sin^3 i read as code), as a figure sets it
+        shown = tex_maths(desc, s.text, LATEX_SYMBOLS) if s.name == "latex" else s.text(desc)
+        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), shown])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)
@@ -721,8 +889,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
                             "has them all."))
         else:
             body = series_table(series, s)[2]
-            header = [s.code(k) + (f" [{s.unit(u)}{', ' + scale if k in dates else ''}]" if u else "")
-                      for k, u in zip(names, units)]
+            header = series_header(names, units, s, scale)
             doc.table(header, body, "r" * len(header))
 
     for label, header, body in event_tables(results, s):
@@ -750,7 +917,10 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     constants = prov.get("constants", {})
     if constants:
         doc.heading("Constants")
-        rows = [[s.code(c.get("symbol", k)), s.text(repr(c.get("value"))), s.unit(c.get("unit", "")),
+        # every digit of the constant (a nominal value is exact), over a power of ten as a result's: 1.3271244e+20
+        # read as code in a LaTeX table
+        rows = [[s.code(c.get("symbol", k)), s.number(as_given(c["value"])) if _finite(c.get("value"))
+                 else s.text(str(c.get("value"))), s.unit(c.get("unit", "")),
                  s.text(c.get("source", ""))] for k, c in constants.items()]
         doc.table(["constant", "value", "unit", "source"], rows, wrap_last=True)
 

@@ -29,6 +29,7 @@ import io
 import json
 import re
 import warnings
+from functools import lru_cache
 from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
@@ -888,8 +889,29 @@ def _json_default(o):
     raise TypeError(f"{type(o).__name__} is not JSON serialisable")
 
 
-def _text(cols, meta: dict, ecsv: bool) -> bytes:
+@lru_cache(maxsize=256)
+def spelled_unit(text: str):
+    """The astropy unit ``text`` names, written in an ECSV header as ``text``: as the JSON answer spells it
+    (``au``, ``km/s``), where astropy's own string is ``AU`` and ``km / s``.  An ECSV reader parses it to the same
+    unit (the header holds ``str(unit)``, so the unit is an alias named ``text``)."""
     from astropy import units as u
+    unit = u.Unit(text)
+    return unit if unit.to_string() == text else u.def_unit(text, unit)
+
+
+def header_units(lines: Sequence[str]) -> dict[str, str]:
+    """Each column's unit as an ECSV header writes it (astropy's reader gives it back in its own spelling)."""
+    from astropy.table.meta import get_header_from_yaml
+    head = []
+    for line in lines:
+        if not line.startswith("#"):
+            break
+        head.append(line[2:] if line.startswith("# ") else line[1:])
+    return {c["name"]: str(c["unit"]) for c in get_header_from_yaml(head).get("datatype", ())
+            if c.get("unit") is not None}
+
+
+def _text(cols, meta: dict, ecsv: bool) -> bytes:
     from astropy.table import Column, MaskedColumn, Table
 
     table = Table()
@@ -913,7 +935,7 @@ def _text(cols, meta: dict, ecsv: bool) -> bytes:
         else:
             col = Column(data, name=header)
         if ecsv and unit:
-            col.unit = u.Unit(unit)
+            col.unit = spelled_unit(unit)
         if ecsv and kind == "json":
             col.description = JSON_TEXT
         table.add_column(col)
@@ -1021,12 +1043,14 @@ def _decode_text(data: bytes):
 
     text = data.decode("utf-8")
     ecsv = is_ecsv(text)
-    table = Table.read(text.splitlines(), format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)    # never a path
+    lines = text.splitlines()
+    table = Table.read(lines, format="ascii.ecsv" if ecsv else "ascii.csv", guess=False)    # never a path
+    written = header_units(lines) if ecsv else {}
     cols = []
     for name in table.colnames:
         col = table[name]
         masked = np.ma.asarray(col)
-        unit = col.unit.to_string() if ecsv and col.unit is not None else None
+        unit = written.get(name, col.unit.to_string()) if ecsv and col.unit is not None else None
         if ecsv and col.description == JSON_TEXT:
             unit = "json"
         if not ecsv:

@@ -123,7 +123,8 @@ def test_units_come_from_the_file(tmp_path, capsys):
     assert code == 0, err
     ours = QTable.read(tmp_path / "o.ecsv")["mass_function"][0]
     plain = Client("local").calculate("sb1", period=41.6, k1=23.4, eccentricity=0.31).quantity("mass_function")
-    assert ours.unmasked.to_value(u.solMass) == pytest.approx(plain.to_value(u.solMass), rel=1e-12)
+    # plain columns (a masked one only where a system failed), as the service's ECSV answer has them
+    assert ours.to_value(u.solMass) == pytest.approx(plain.to_value(u.solMass), rel=1e-12)
 
 
 def test_unknown_output_format_is_one_line_and_nothing_is_computed(tmp_path, capsys):
@@ -192,8 +193,9 @@ def test_an_unreadable_file_is_one_line(tmp_path, capsys):
     assert code == 2 and len(err.strip().splitlines()) == 1 and "--in" in err and "bad.fits" in err
 
 
-@pytest.mark.parametrize("fmt", ["csv", "ecsv"])
+@pytest.mark.parametrize("fmt", ["fits", "vot"])
 def test_a_catalogue_of_ephemerides_keeps_its_series_and_events(tmp_path, capsys, fmt):
+    # FITS and VOTable hold an array per cell (CSV and ECSV are refused, as the service refuses them)
     src = tmp_path / "eph.csv"
     src.write_text("period,eccentricity,omega,t_periastron,k1\n812.5,0.64,131,2459870.4,22.5\n"
                    "300,0.2,40,2459000.5,10\n")
@@ -203,6 +205,6 @@ def test_a_catalogue_of_ephemerides_keeps_its_series_and_events(tmp_path, capsys
     back = Table.read(tmp_path / f"o.{fmt}", format=FORMATS[fmt])
     one = Client("local").calculate("ephemeris", period=812.5, eccentricity=0.64, omega=131.0,
                                     t_periastron=2459870.4, k1=22.5, times=[2460100.5, 2460180.5])
-    rv1 = json.loads(back["rv1[km/s]"][0]) if fmt == "csv" else list(back["rv1"][0])
+    rv1 = list(back["rv1"][0])
     np.testing.assert_allclose(rv1, one["results"]["series"]["rv1"]["value"], rtol=1e-12)
     assert json.loads(back["events"][0])

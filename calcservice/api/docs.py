@@ -117,7 +117,13 @@ def _section(calc: Calculation, base_url: str) -> str:
                       for o in calc.outputs)
     rules = [f"exactly one of {', '.join(g)}" for g in calc.exclusive]
     rules += [f"at most one of {', '.join(g)}" for g in calc.at_most_one]
-    rules += [c.message for c in calc.constraints]
+    # one rule per message, naming every input it is said of: a rule declared for each of four inputs was said
+    # four times, and "belongs to an orbit" named none of them
+    said: dict[str, list[str]] = {}
+    for c in calc.constraints:
+        fields = said.setdefault(c.message, [])
+        fields += [f for f in c.fields if f not in fields and not f.startswith("_")]
+    rules += [f"{', '.join(fields)}: {message}" if fields else message for message, fields in said.items()]
     conventions = "".join(f"<dt>{escape(k.replace('_', ' '))}</dt><dd>{escape(v)}</dd>"
                           for k, v in calc.conventions.items())
     references = "".join(f'<li id="{escape(calc.name)}-ref{k}">{escape(r)}</li>'
@@ -135,7 +141,8 @@ def _section(calc: Calculation, base_url: str) -> str:
         f"<th>meaning</th></tr></thead><tbody>{inputs}</tbody></table>",
     ]
     if rules:
-        parts.append("<p class=\"rules\">Refused with 422 unless: " + "; ".join(escape(r) for r in rules) + ".</p>")
+        parts.append("<p class=\"rules\">Rules of the inputs (a request that breaks one is refused with 422 naming "
+                     "them): " + "; ".join(escape(r) for r in rules) + ".</p>")
     parts += [
         "<h3>Outputs</h3>",
         '<table class="outputs"><thead><tr><th>name</th><th>unit</th><th>meaning</th><th>formula</th>'

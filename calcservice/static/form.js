@@ -571,6 +571,7 @@
   // a long output name may wrap after its underscores (a <wbr> adds no text)
   function breakable(name) { return name.split(/(?<=_)/).flatMap((part, i) => (i ? [el("wbr"), part] : [part])); }
 
+  const BUDGET_ROUNDING = 1e-12;
   function budgetShare(share) {
     // one decimal, or two significant digits below 0.1 % (as the derivation report prints it)
     const pct = 100 * share;
@@ -579,8 +580,10 @@
 
   function budgetTable(name, budget) {
     // the shares of the output's variance: inputs largest first, then each correlation term ("k1,k2",
-    // which may be negative) on its own line; an exact zero (an input the output does not depend on) is left out
-    const finite = Object.entries(budget).filter(([, v]) => finiteNumber(v) && v !== 0);
+    // which may be negative) on its own line; a zero (an input the output does not depend on, or a share within
+    // the rounding of the doubles it is the difference of: report.BUDGET_ROUNDING) is left out; none: no table
+    const finite = Object.entries(budget).filter(([, v]) => finiteNumber(v) && Math.abs(v) >= BUDGET_ROUNDING);
+    if (!finite.length) return null;
     const terms = finite.filter(([t]) => !t.includes(",")).sort((a, b) => b[1] - a[1])
       .concat(finite.filter(([t]) => t.includes(",")));
     const rows = terms.map(([term, share]) => {
@@ -617,7 +620,8 @@
         el("td", { class: "name" }, breakable(name)), valueCell(entry), el("td", { class: "unit", text: entry.unit || "" }), desc]);
       rows.push(tr);
       const extra = [];
-      if (entry.budget && typeof entry.budget === "object") extra.push(budgetTable(name, entry.budget));
+      const budget = entry.budget && typeof entry.budget === "object" ? budgetTable(name, entry.budget) : null;
+      if (budget) extra.push(budget);
       const holder = el("tr", { class: "extra", "data-extra": name, hidden: true }, el("td", { colspan: columns }, extra));
       if (mc) {
         const b = el("button", { type: "button", class: "histogram", text: "histogram", "aria-expanded": "false",
