@@ -41,7 +41,7 @@ import numpy as np
 import orjson
 
 from . import __version__
-from .columns import column_array as _to_array
+from .columns import column_array
 from .columns import column_name, column_role, correlated_columns, error_text, infinite_cells, kept_name_errors, \
     split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
@@ -1000,6 +1000,17 @@ def _is_column(col) -> bool:
     if hasattr(col, "shape"):
         return len(getattr(col, "shape")) >= 1
     return isinstance(col, (list, Sequence))
+
+
+def _to_array(col: Any, label: str) -> np.ndarray:
+    """A caller's column as :func:`calcservice.columns.column_array` reads it; what it refuses (booleans, a
+    number only lenient readers take) is the client's InvalidInput, named by ``label``."""
+    try:
+        return column_array(col, label)
+    except InvalidInput:
+        raise
+    except ValueError as e:
+        raise InvalidInput(str(e)) from None
 
 
 def _is_missing(arr: np.ndarray) -> np.ndarray:

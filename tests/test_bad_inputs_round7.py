@@ -59,3 +59,42 @@ def test_the_library_names_an_unknown_calculation():
     with pytest.raises(Problem) as e:
         compute("sb3", GOOD)
     assert e.value.status == 404 and list(e.value.errors) == ["calculation"]
+
+
+# --- 2. a column of integers beyond a double: that system's error, no OverflowError ------------------
+
+def test_a_library_column_with_an_integer_beyond_a_double_is_that_systems_error():
+    from calcservice.core import compute_batch
+    period = np.array([10 ** 400, 41.6], dtype=object)        # what numpy makes of Python integers past 64 bits
+    answer = compute_batch("sb1", {"columns": {"period": period, "k1": [23.4, 23.4], "eccentricity": [0.31, 0.31]}})
+    assert [e["index"] for e in answer["errors"]] == [0]
+    assert "not finite" in answer["errors"][0]["errors"]["period"][0]
+    assert answer["columns"]["mass_function"]["value"][1] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+
+
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_the_clients_column_with_an_integer_beyond_a_double_is_refused_or_that_systems_error(transport):
+    from calcservice.client import Client, InvalidInput
+    c = Client("local", transport=transport)
+    data = {"period": [10 ** 400, 41.6], "k1": [23.4, 23.4], "eccentricity": [0.31, 0.31]}
+    if transport == "json":
+        # JSON has no number beyond a double: refused before sending, naming the column and the system
+        with pytest.raises(InvalidInput, match=r"^period: .*system 0"):
+            c.batch("sb1", data)
+        return
+    out = c.batch("sb1", data)
+    assert out.failed == [0] and "not finite" in out.error_text()[0]
+    assert float(out.to_table()["mass_function"].unmasked[1].value) == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+
+
+# --- 3. the client's refusal of a column is its InvalidInput (a CalcServiceError), naming it ----------
+
+@pytest.mark.parametrize("column, says", [
+    ([True, False], "eccentricity: a column of true and false"),
+    (["0.31", "0_1"], "eccentricity: row 2 (system 1): '0_1'"),
+])
+def test_the_clients_refusal_of_a_column_is_an_invalid_input(local, column, says):
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as e:
+        local.batch("sb1", {"period": [41.6, 12.5], "k1": [23.4, 38.2], "eccentricity": column})
+    assert str(e.value).startswith(says) and list(e.value.errors) == ["eccentricity"]
