@@ -1026,8 +1026,8 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         col = (parts[0], parts[1], unit) if unit else parts
     if isinstance(col, tuple):          # (values, sigmas[, sigma_plus][, unit])
         parts = list(col)
-        if parts and isinstance(parts[-1], str):
-            unit = parts.pop()
+        if parts and (isinstance(parts[-1], str) or _is_unit(parts[-1])):
+            unit = _unit_text(parts.pop())
         if len(parts) not in (1, 2, 3):
             raise InvalidInput(f"{label}: a tuple column is (values, sigmas) or (values, sigma_minus, sigma_plus)")
         col = parts[0]
@@ -1125,12 +1125,9 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         # report would print as the caller's own digits
         return {"value": _digits15(value.nominal_value), "sigma": _digits15(value.std_dev)}
     if isinstance(value, tuple):
-        parts = [_plain(p) for p in value]
+        parts, unit = _tuple_parts(value, decl)
         for p in parts:
             _finite(p, decl)
-        unit = None
-        if parts and isinstance(parts[-1], str):
-            unit = parts.pop()
         if len(parts) == 2:
             out = {"value": parts[0], "sigma": parts[1]}
         elif len(parts) == 3:
@@ -1155,6 +1152,33 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
                            "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
+
+
+def _tuple_parts(value: tuple, decl: Mapping[str, Any] | None) -> tuple[list, str | None]:
+    """A (value, sigma[, sigma_plus][, unit]) tuple's numbers and unit: the unit a string or an astropy unit,
+    or the parts all Quantities (each sigma in the value's unit)."""
+    name = (decl or {}).get("name", "an input")
+    parts, unit = list(value), None
+    if parts and (isinstance(parts[-1], str) or _is_unit(parts[-1])):
+        unit = _unit_text(parts.pop())
+    quantities = [hasattr(p, "unit") and hasattr(p, "value") for p in parts]
+    if any(quantities):
+        if not all(quantities) or unit is not None:
+            raise InvalidInput(f"{name}: a tuple of Quantities carries its units: give each part as a Quantity "
+                               "(value, sigma), or plain numbers and a unit last")
+        from astropy import units as u
+        first = parts[0].unit
+        try:
+            parts = [parts[0].value] + [p.to_value(first) for p in parts[1:]]
+        except u.UnitConversionError:
+            raise InvalidInput(f"{name}: the sigma's unit does not convert to the value's {first.to_string()!r}") from None
+        unit = first.to_string()
+    return [_plain(p) for p in parts], unit
+
+
+def _is_unit(x: Any) -> bool:
+    """An astropy unit (not a Quantity, which has a unit of its own)."""
+    return not isinstance(x, str) and hasattr(x, "to_string") and hasattr(x, "physical_type") and not hasattr(x, "unit")
 
 
 def _digits15(x: float) -> float:

@@ -98,3 +98,48 @@ def test_the_clients_refusal_of_a_column_is_an_invalid_input(local, column, says
     with pytest.raises(CalcServiceError) as e:
         local.batch("sb1", {"period": [41.6, 12.5], "k1": [23.4, 38.2], "eccentricity": column})
     assert str(e.value).startswith(says) and list(e.value.errors) == ["eccentricity"]
+
+
+# --- 4. a (value, sigma) tuple with an astropy unit, or of two Quantities ----------------------------
+
+@pytest.mark.parametrize("k1", [
+    (23.4, 0.1, u.km / u.s),
+    (23400.0, 100.0, u.m / u.s),
+    (23.4 * u.km / u.s, 0.1 * u.km / u.s),
+    (23.4 * u.km / u.s, 100.0 * u.m / u.s),          # the sigma in its own unit, converted to the value's
+    (23400.0 * u.m / u.s, 0.1 * u.km / u.s),
+])
+def test_a_tuple_with_an_astropy_unit_or_of_quantities_is_taken(local, k1):
+    r = local.calculate("sb1", period=41.6, eccentricity=0.31, k1=k1)
+    assert r["inputs"]["k1"]["value"] == pytest.approx(23.4, rel=1e-12)
+    assert r["inputs"]["k1"]["sigma"] == pytest.approx(0.1, rel=1e-12)
+    # f(M) goes as K1^3: its relative sigma is three times K1's (first order)
+    f = r["results"]["mass_function"]
+    assert f["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+    assert f["sigma"] / f["value"] == pytest.approx(3 * 0.1 / 23.4, rel=1e-6)
+
+
+@pytest.mark.parametrize("k1, says", [
+    ((23.4 * u.km / u.s, 0.1 * u.s), "k1: "),                   # a sigma that is no speed
+    ((23.4 * u.km / u.s, 0.1, "km/s"), "k1: "),                  # a Quantity and a unit besides
+    ((23.4, 0.1 * u.km / u.s), "k1: "),                         # a bare value beside a sigma Quantity
+])
+def test_a_tuple_whose_parts_do_not_agree_is_refused_naming_the_input(local, k1, says):
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput, match="^" + says):
+        local.calculate("sb1", period=41.6, eccentricity=0.31, k1=k1)
+
+
+@pytest.mark.parametrize("k1", [
+    ([23.4, 20.0], [0.1, 0.2], u.km / u.s),
+    ([23400.0, 20000.0], [100.0, 200.0], u.m / u.s),
+    ([23.4, 20.0] * u.km / u.s, [100.0, 200.0] * u.m / u.s),
+])
+def test_a_tuple_column_with_an_astropy_unit_is_taken(local, k1):
+    out = local.batch("sb1", {"period": [41.6, 20.0], "eccentricity": [0.31, 0.1], "k1": k1})
+    table = out.to_table()
+    for k, (period, k1_kms, e, sigma) in enumerate([(41.6, 23.4, 0.31, 0.1), (20.0, 20.0, 0.1, 0.2)]):
+        f = float(table["mass_function"].unmasked[k].value)
+        assert f == pytest.approx(mass_function(period, k1_kms, e), rel=1e-12)
+        # f(M) goes as K1^3: its relative sigma is three times K1's (first order)
+        assert float(table["mass_function_sigma"].unmasked[k].value) / f == pytest.approx(3 * sigma / k1_kms, rel=1e-6)
