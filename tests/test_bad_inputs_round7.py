@@ -143,3 +143,18 @@ def test_a_tuple_column_with_an_astropy_unit_is_taken(local, k1):
         assert f == pytest.approx(mass_function(period, k1_kms, e), rel=1e-12)
         # f(M) goes as K1^3: its relative sigma is three times K1's (first order)
         assert float(table["mass_function_sigma"].unmasked[k].value) / f == pytest.approx(3 * sigma / k1_kms, rel=1e-6)
+
+
+# --- 5. the figure of a long orbit: the curve's own grid stays within the dates a request may give ----
+
+@pytest.mark.parametrize("period, t_periastron, times", [
+    (3.6525e8, 2460400.5, [2460400.5, 2460500.5]),     # a million-year orbit (a wide pair), observed twice
+    (2037.4, 9.9999e7, [9.9999e7]),                    # a date near the end of the range, a period's curve around it
+    (1e6, 9.99e7, [2.4e6, 9.9e7]),                     # many periods (drawn by phase) from a periastron near the end
+])
+def test_the_figure_of_an_orbit_whose_curve_would_leave_the_date_range_is_drawn(client, period, t_periastron, times):
+    body = {"period": period, "eccentricity": 0.3, "omega": 243.6, "t_periastron": t_periastron, "k1": 61.2,
+            "times": times}
+    assert client.post(EPHEMERIS, json=body).status_code == 200
+    r = client.post(EPHEMERIS + "?format=svg", json=body)
+    assert r.status_code == 200 and r.mimetype == "image/svg+xml", r.get_data()[:300]
