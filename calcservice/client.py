@@ -835,6 +835,10 @@ class InputTable:
         inputs = {i["name"]: i for i in decl["inputs"]}
         if isinstance(keep, str):
             keep = [name.strip() for name in keep.split(",")]      # as the service's ?keep=star,hip
+        keep = list(keep) if isinstance(keep, (list, tuple, set, frozenset)) else [] if keep is None else keep
+        if not isinstance(keep, list) or not all(isinstance(name, str) for name in keep):
+            raise InvalidInput(f"keep: keep= names columns of the table, as a list of names or 'star,hip', not "
+                               f"{keep!r:.60}")
         refused = kept_name_errors(decl["name"], inputs, [o["name"] for o in decl.get("outputs", ())], keep)
         if refused:
             # an input's column kept would go unread; one named like an answer's column would be overwritten
@@ -849,7 +853,11 @@ class InputTable:
             items = [(str(k), data[k]) for k in data.colnames]
         elif _is_dataframe(data):
             items = [(str(k), data[k]) for k in data.columns]
-            units = {**dict(data.attrs.get("units") or {}), **units}
+            given = data.attrs.get("units") or {}
+            if not isinstance(given, Mapping):
+                raise InvalidInput(f"units: the DataFrame's attrs['units'] maps a column to its unit ({{'period': 'd'}}), "
+                                   f"not {type(given).__name__}")
+            units = {**given, **units}
         elif isinstance(data, Mapping):
             items = [(str(k), v) for k, v in data.items()]
         else:

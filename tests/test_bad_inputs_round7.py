@@ -158,3 +158,30 @@ def test_the_figure_of_an_orbit_whose_curve_would_leave_the_date_range_is_drawn(
     assert client.post(EPHEMERIS, json=body).status_code == 200
     r = client.post(EPHEMERIS + "?format=svg", json=body)
     assert r.status_code == 200 and r.mimetype == "image/svg+xml", r.get_data()[:300]
+
+
+# --- 6. the client's keep= and a DataFrame's attrs["units"] of the wrong type -------------------------
+
+def test_keep_none_is_no_kept_column(local):
+    out = local.batch("sb1", {"period": [41.6], "k1": [23.4], "eccentricity": [0.31]}, keep=None)
+    assert float(out.to_table()["mass_function"].unmasked[0].value) == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                     rel=1e-12)
+
+
+@pytest.mark.parametrize("keep", [5, [5], ["star", None], b"star"])
+def test_keep_that_names_no_columns_is_refused_naming_keep(local, keep):
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput, match="^keep: ") as e:
+        local.batch("sb1", {"period": [41.6], "k1": [23.4], "eccentricity": [0.31], "star": ["a"]}, keep=keep)
+    assert list(e.value.errors) == ["keep"]
+
+
+@pytest.mark.parametrize("attrs", ["d", ["d"], 5])
+def test_a_dataframes_units_attribute_that_is_no_mapping_is_refused_naming_units(local, attrs):
+    import pandas as pd
+    from calcservice.client import InvalidInput
+    frame = pd.DataFrame({"period": [41.6], "k1[km/s]": [23.4], "eccentricity": [0.31]})
+    frame.attrs["units"] = attrs
+    with pytest.raises(InvalidInput, match="^units: ") as e:
+        local.batch("sb1", frame)
+    assert list(e.value.errors) == ["units"]
