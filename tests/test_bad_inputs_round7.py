@@ -185,3 +185,66 @@ def test_a_dataframes_units_attribute_that_is_no_mapping_is_refused_naming_units
     with pytest.raises(InvalidInput, match="^units: ") as e:
         local.batch("sb1", frame)
     assert list(e.value.errors) == ["units"]
+
+
+# --- 7. a table's unit or options where the reader does not look: refused, not left unread -----------
+
+ARROW = "application/vnd.apache.arrow.stream"
+
+
+def _ecsv_with(period_entry: str, meta: str = "") -> bytes:
+    return ("# %ECSV 1.0\n# ---\n# datatype:\n"
+            f"# - {{name: period, datatype: float64{period_entry}}}\n"
+            "# - {name: k1, unit: km / s, datatype: float64}\n# - {name: eccentricity, datatype: float64}\n"
+            f"{meta}period k1 eccentricity\n0.1139 23.4 0.31\n").encode()
+
+
+@pytest.mark.parametrize("entry", [", units: yr", ", Unit: yr", ", unit_: yr", ", meta: {unit: yr}",
+                                   ", meta: {units: yr}"])
+def test_an_ecsv_columns_unit_under_another_key_is_refused_naming_the_column(client, entry):
+    # astropy's ECSV reader drops a column's keys it does not know: the period of 0.1139 yr was read as 0.1139 d
+    r = client.post("/v1/batch/sb1", data=_ecsv_with(entry), content_type="text/csv")
+    doc = problem(r, 422)
+    assert list(doc["errors"]) == ["period"] and "'unit'" in doc["errors"]["period"][0], doc
+
+
+def test_an_ecsv_columns_unit_is_read_and_other_keys_are_left_alone(client):
+    r = client.post("/v1/batch/sb1", data=_ecsv_with(", unit: yr, description: orbital period, meta: {ref: fit 3}"),
+                    content_type="text/csv", headers={"Accept": "application/json"})
+    assert r.status_code == 200, r.get_data()[:300]
+    # 0.1139 Julian years of 365.25 d (IAU) = 41.600475 d
+    assert r.get_json()["columns"]["mass_function"]["value"][0] == pytest.approx(
+        mass_function(0.1139 * 365.25, 23.4, 0.31), rel=1e-12)
+
+
+@pytest.mark.parametrize("key, value", [("seed", "7"), ("samples", "500"), ("method", "monte_carlo"), ("unit", "yr")])
+def test_an_option_member_or_a_unit_in_a_tables_metadata_is_refused_naming_it(client, key, value):
+    import io
+
+    import pyarrow as pa
+    # the uncertainty option's members and a table-wide unit were left unread: a linear answer, a period in days
+    r = client.post("/v1/batch/sb1", data=_ecsv_with(", unit: d", f"# meta: {{{key}: {value}}}\n"),
+                    content_type="text/csv")
+    assert list(problem(r, 422)["errors"]) == [key]
+    table = pa.table({"period": [41.6], "k1": [23.4], "eccentricity": [0.31]})
+    table = table.replace_schema_metadata({key: value})
+    sink = io.BytesIO()
+    with pa.ipc.new_stream(sink, table.schema) as writer:
+        writer.write_table(table)
+    r = client.post("/v1/batch/sb1?options=" + '{"units":{}}', data=sink.getvalue(), content_type=ARROW)
+    assert list(problem(r, 422)["errors"]) == [key]
+
+
+@pytest.mark.parametrize("entry, meta, field", [
+    (", units: yr", "", "period"),
+    (", unit: d", "# meta: {seed: 7}\n", "seed"),
+    (", unit: d", "# meta: {uncertainty: {method: monte_carlo}}\n", "uncertainty"),   # answered linearly before
+])
+def test_the_command_line_refuses_an_ecsv_unit_or_options_it_would_not_read(tmp_path, capsys, entry, meta, field):
+    from calcservice.cli import main
+    src = tmp_path / "cat.ecsv"
+    src.write_bytes(_ecsv_with(entry, meta))
+    assert main(["compute", "sb1", "--in", str(src), "--out", str(tmp_path / "out.csv")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith(f"calcservice compute: {field}: ") and str(src) in err and err.count("\n") == 1, err
+    assert not (tmp_path / "out.csv").exists()
