@@ -248,3 +248,26 @@ def test_the_command_line_refuses_an_ecsv_unit_or_options_it_would_not_read(tmp_
     err = capsys.readouterr().err
     assert err.startswith(f"calcservice compute: {field}: ") and str(src) in err and err.count("\n") == 1, err
     assert not (tmp_path / "out.csv").exists()
+
+
+# --- 8. a query parameter a GET endpoint does not take -------------------------------------------------
+
+@pytest.mark.parametrize("path, query", [
+    ("/v1/calculations", "?name=sb1"),             # answered every calculation, as though no filter was asked for
+    ("/v1/calculations/sb1", "?format=yaml"),
+    ("/v1/constants", "?name=G"),
+    ("/v1/limits", "?refresh=1"),
+    ("/v1/health", "?verbose"),
+    ("/openapi.yaml", "?format=json"),             # answered YAML
+])
+def test_a_query_parameter_a_get_endpoint_does_not_take_is_refused_naming_it(client, path, query):
+    name = query[1:].split("=")[0]
+    doc = problem(client.get(path + query), 400)
+    assert list(doc["errors"]) == [name] and "takes no query parameter" in doc["detail"], doc
+    assert client.get(path).status_code == 200
+
+
+def test_the_pages_for_people_take_any_query(client):
+    # a browser's link may carry a tracking or cache-busting parameter; the form reads its state from the hash
+    for path in ("/", "/docs", "/static/form.js"):
+        assert client.get(path + "?utm_source=mail").status_code == 200

@@ -381,7 +381,7 @@ def query_parameters(takes: dict[str, str], where: str) -> dict[str, str]:
     if not request.environ.get("QUERY_STRING"):
         return {}
     args = request.args
-    taken = "; ".join(f"{name} ({what})" for name, what in takes.items())
+    taken = "; ".join(f"{name} ({what})" for name, what in takes.items()) or "none"
     unknown = [name for name in args if name not in takes]
     if unknown:
         shown = [name if len(name) <= 80 else name[:80] + "..." for name in unknown]
