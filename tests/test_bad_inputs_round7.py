@@ -271,3 +271,20 @@ def test_the_pages_for_people_take_any_query(client):
     # a browser's link may carry a tracking or cache-busting parameter; the form reads its state from the hash
     for path in ("/", "/docs", "/static/form.js"):
         assert client.get(path + "?utm_source=mail").status_code == 200
+
+
+# --- 9. a list of dates with the unit days, as a single date takes it ----------------------------------
+
+def test_a_list_of_dates_in_days_is_taken_as_a_single_date_is(client, local):
+    body = {"period": 2037.4, "eccentricity": 0.3, "omega": 243.6, "t_periastron": {"value": 2458712.3, "unit": "d"},
+            "k1": 61.2, "times": {"value": [2460400.5, 2460500.5], "unit": "d"}}
+    r = client.post(EPHEMERIS, json=body)
+    assert r.status_code == 200, r.get_data()[:300]
+    assert r.get_json()["results"]["series"]["time"]["value"] == [2460400.5, 2460500.5]
+    # a Quantity of dates in days from the client, as its single date in days is taken
+    q = local.calculate("ephemeris", period=2037.4, eccentricity=0.3, omega=243.6, t_periastron=2458712.3 * u.d,
+                        k1=61.2, times=[2460400.5, 2460500.5] * u.d)
+    assert q["results"]["series"]["rv1"]["value"] == r.get_json()["results"]["series"]["rv1"]["value"]
+    # another unit is refused, as for a single date: a day count cannot be converted
+    r = client.post(EPHEMERIS, json={**body, "times": {"value": [6736.4], "unit": "yr"}})
+    assert "Julian Date in days" in problem(r, 422)["errors"]["times"][0]
