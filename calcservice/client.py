@@ -1080,6 +1080,9 @@ def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None)
         except u.UnitConversionError:
             raise InvalidInput(f"{label}: its unit {unit!r} does not convert to the value's "
                              f"{value_unit or 'dimensionless'!r}") from None
+        except (ValueError, TypeError):         # a unit astropy cannot read (a file's 'blah'), the sigma's or the value's
+            raise InvalidInput(f"{label}: its unit {unit!r} or its value's {value_unit!r} is not a unit astropy "
+                               "can read") from None
     return arr
 
 

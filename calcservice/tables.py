@@ -456,11 +456,14 @@ def check_header(lines: Sequence[str], delimiter: str = ",", ecsv: bool = False)
 def quiet_range_warnings():
     """astropy's fast reader warns (to the log) of a cell beyond a double or below its normal range
     ("OverflowError converting to FloatType"): the number is then that system's error, said in words
-    by the batch, so the warning is left out (the command line prints one line)."""
+    by the batch, so the warning is left out (the command line prints one line); so is its warning of a
+    file's unit it cannot parse ('yrs' in a FITS header), which is then refused in words naming the column."""
+    from astropy.units import UnitsWarning
     from astropy.utils.exceptions import AstropyWarning
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="OverflowError converting to (Float|Int)Type",
                                 category=AstropyWarning)
+        warnings.filterwarnings("ignore", message=".* did not parse as .*unit", category=UnitsWarning)
         yield
 
 

@@ -7,6 +7,8 @@ or the answer it should have had, never a traceback."""
 
 from __future__ import annotations
 
+import warnings
+
 import astropy.units as u
 import numpy as np
 import pytest
@@ -288,3 +290,49 @@ def test_a_list_of_dates_in_days_is_taken_as_a_single_date_is(client, local):
     # another unit is refused, as for a single date: a day count cannot be converted
     r = client.post(EPHEMERIS, json={**body, "times": {"value": [6736.4], "unit": "yr"}})
     assert "Julian Date in days" in problem(r, 422)["errors"]["times"][0]
+
+
+# --- 10. a catalogue file's unit astropy cannot parse: one line naming the column ---------------------
+
+@pytest.mark.parametrize("unit", ["blah", "yrs", "dex(d)"])
+def test_a_fits_catalogues_unit_astropy_cannot_read_is_one_line_naming_the_column(tmp_path, capsys, unit):
+    from astropy.io import fits
+
+    from calcservice.cli import main
+    src = tmp_path / "cat.fits"
+    fits.BinTableHDU.from_columns([
+        fits.Column(name="period", format="D", unit=unit, array=np.array([41.6])),
+        fits.Column(name="k1", format="D", unit="km/s", array=np.array([23.4])),
+        fits.Column(name="eccentricity", format="D", array=np.array([0.31]))]).writeto(src)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        assert main(["compute", "sb1", "--in", str(src), "--out", str(tmp_path / "out.csv")]) == 1
+    err = capsys.readouterr().err
+    assert err.startswith("calcservice compute: columns.period.unit: ") and err.count("\n") == 1, err
+    # astropy's UnitsWarning was printed before that line (a terminal shows it): a second line naming no field of ours
+    assert not [w for w in caught if "did not parse" in str(w.message)], [str(w.message) for w in caught]
+
+
+@pytest.mark.parametrize("sigma_unit, value_unit", [("blah", "km/s"), ("m/s", "blah")])
+def test_a_sigma_columns_unit_astropy_cannot_read_is_refused_naming_the_column(local, tmp_path, capsys, sigma_unit,
+                                                                                value_unit):
+    from astropy.io import fits
+    from astropy.table import Table
+
+    from calcservice.cli import main
+    from calcservice.client import InvalidInput
+    src = tmp_path / "cat.fits"
+    fits.BinTableHDU.from_columns([
+        fits.Column(name="period", format="D", unit="d", array=np.array([41.6])),
+        fits.Column(name="k1", format="D", unit=value_unit, array=np.array([23.4])),
+        fits.Column(name="eccentricity", format="D", array=np.array([0.31])),
+        fits.Column(name="k1_sigma", format="D", unit=sigma_unit, array=np.array([0.1]))]).writeto(src)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        table = Table.read(src)
+    # a ValueError of astropy's that named no column
+    with pytest.raises(InvalidInput, match="^k1_sigma: .*'blah'"):
+        local.batch("sb1", table)
+    assert main(["compute", "sb1", "--in", str(src), "--out", str(tmp_path / "out.csv")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("calcservice compute: k1_sigma: ") and "'blah'" in err and err.count("\n") == 1, err
