@@ -336,3 +336,146 @@ def test_a_sigma_columns_unit_astropy_cannot_read_is_refused_naming_the_column(l
     assert main(["compute", "sb1", "--in", str(src), "--out", str(tmp_path / "out.csv")]) == 2
     err = capsys.readouterr().err
     assert err.startswith("calcservice compute: k1_sigma: ") and "'blah'" in err and err.count("\n") == 1, err
+
+
+# --- 11. fuzzed bodies: every calculation, single and batch, JSON and table bodies ---------------------
+
+def _fuzz_strategies():
+    from hypothesis import strategies as st
+    units = ["d", "yr", "km/s", "m/s", "deg", "rad", "mas", "solMass", "kg", "au", "pc", "%", "dex", "mag", "AU2/AU",
+             "", " ", "km s-1", "1e300 d", "solRad", "K", "GHz", "mJy", "cycle", "µas", "-1 d"]
+    numbers = st.one_of(st.floats(allow_nan=False, allow_infinity=False),
+                        st.sampled_from([0.0, -0.0, 1e308, -1e308, 1e-320, 5e-324, 1.0, 0.5, 90.0, 2460400.5, 1e8]),
+                        st.integers(-10 ** 30, 10 ** 30))
+    scalars = st.one_of(numbers, st.booleans(), st.none(), st.text(max_size=6),
+                        st.sampled_from(["isotropic", "2024-05-01", "vink-2001", "jeans", "wr"]))
+    measured = st.one_of(
+        scalars, st.lists(scalars, max_size=4),
+        st.fixed_dictionaries({"value": numbers}, optional={"sigma": numbers, "unit": st.sampled_from(units)}),
+        st.fixed_dictionaries({"value": numbers, "sigma_minus": numbers, "sigma_plus": numbers}),
+        st.fixed_dictionaries({"samples": st.lists(numbers, max_size=5)}, optional={"unit": st.sampled_from(units)}),
+        st.dictionaries(st.sampled_from(["value", "sigma", "samples", "unit", "x"]), scalars, max_size=3))
+    options = st.fixed_dictionaries({}, optional={
+        "uncertainty": st.one_of(st.fixed_dictionaries({}, optional={
+            "method": st.sampled_from(["linear", "monte_carlo", "x"]), "samples": st.integers(-5, 300),
+            "seed": st.integers(-2, 2 ** 64)}), scalars),
+        "correlations": st.lists(st.fixed_dictionaries({
+            "between": st.lists(st.sampled_from(["period", "k1", "k2", "eccentricity", "x"]), max_size=3),
+            "rho": st.one_of(numbers, scalars)}), max_size=2),
+        "units": st.dictionaries(st.sampled_from(["m1", "mass_function", "distance", "x", "rv1"]),
+                                 st.one_of(st.sampled_from(units), scalars), max_size=2),
+        "covariance": st.one_of(st.booleans(), scalars), "budget": st.one_of(st.booleans(), scalars),
+        "time_format": st.sampled_from(["jd", "mjd", "iso"])})
+    return st, measured, options
+
+
+def _answered_or_named(r) -> None:
+    assert r.status_code < 500, r.get_data()[:500]
+    if r.status_code >= 400:
+        assert r.mimetype == "application/problem+json", r.get_data()[:300]
+        doc = r.get_json()
+        assert doc["errors"] and all(isinstance(v, list) and v for v in doc["errors"].values()), doc
+
+
+def test_fuzzed_json_bodies_are_answered_or_refused_naming_a_field(client):
+    import json
+
+    from hypothesis import HealthCheck, given, settings
+
+    from calcservice.registry import calculations
+    st, measured, options = _fuzz_strategies()
+    calcs = list(calculations().values())
+
+    @st.composite
+    def bodies(draw):
+        calc = draw(st.sampled_from(calcs))
+        body = json.loads(json.dumps(calc.example))
+        for _ in range(draw(st.integers(1, 3))):
+            name = draw(st.sampled_from([spec.name for spec in calc.inputs] + ["extra"]))
+            if name in body and draw(st.booleans()):
+                del body[name]
+            else:
+                body[name] = draw(measured)
+        return calc, {**body, **draw(options)}, draw(st.sampled_from(["single", "rows", "columns"]))
+
+    @settings(max_examples=50, derandomize=True, deadline=None, suppress_health_check=list(HealthCheck))
+    @given(bodies())
+    def check(case):
+        calc, body, mode = case
+        if mode == "single":
+            r = client.post(calc.path, data=json.dumps(body), content_type="application/json")
+        elif mode == "rows":
+            r = client.post(f"/v1/batch/{calc.name}", data=json.dumps({"systems": [body, calc.example]}),
+                            content_type="application/json")
+        else:
+            columns = {k: ({m: ([x, x] if m != "unit" else x) for m, x in v.items()} if isinstance(v, dict) else [v, v])
+                       for k, v in body.items() if k not in ("uncertainty", "correlations", "units", "covariance",
+                                                             "budget", "time_format")}
+            r = client.post(f"/v1/batch/{calc.name}", content_type="application/json",
+                            data=json.dumps({"columns": columns, **{k: v for k, v in body.items() if k not in columns}}))
+        _answered_or_named(r)
+
+    check()
+
+
+def test_fuzzed_catalogue_tables_are_answered_or_refused_naming_a_field(client):
+    import io
+    import json
+
+    import pyarrow as pa
+    from hypothesis import HealthCheck, given, settings
+
+    from calcservice.registry import calculations
+    st, _, _ = _fuzz_strategies()
+    calcs = list(calculations().values())
+    cells = st.one_of(st.floats(0.01, 100), st.floats(width=64), st.integers(-2 ** 63, 2 ** 63 - 1), st.none(),
+                      st.sampled_from(["isotropic", "nan", "inf", "1e999", "1e-320", "4_1", "٤", " 1.5 ", "x"]))
+
+    @st.composite
+    def tables(draw):
+        calc = draw(st.sampled_from(calcs))
+        names = [spec.name for spec in calc.inputs]
+        pool = names + [n + "_sigma" for n in names] + ["star", "period[yr]", "error"]
+        columns = draw(st.lists(st.sampled_from(pool), min_size=1, max_size=len(names) + 1, unique=True))
+        rows = draw(st.integers(1, 3))
+        data = {name: draw(st.lists(cells, min_size=rows, max_size=rows)) for name in columns}
+        units = {name: draw(st.sampled_from(["d", "yr", "km/s", "%", "dex", "blah", ""])) for name in columns
+                 if draw(st.booleans())}
+        return calc, data, units, draw(st.sampled_from(["arrow", "csv", "ecsv"])), \
+            draw(st.sampled_from([None, "application/json", "text/csv", "application/vnd.apache.arrow.stream"]))
+
+    def text(data, units, ecsv):
+        def cell(v):
+            s = "" if v is None else str(v)
+            return '"' + s.replace('"', '""') + '"' if any(ch in s for ch in ', "') else s
+        n = len(next(iter(data.values())))
+        if ecsv:
+            head = "# %ECSV 1.0\n# ---\n# datatype:\n" + "".join(
+                f"# - {{name: {json.dumps(k)}, " + (f"unit: {json.dumps(units[k])}, " if k in units else "")
+                + "datatype: string}\n" for k in data)
+            return head + " ".join(data) + "\n" + "".join(
+                " ".join(cell(data[k][i]) or '""' for k in data) + "\n" for i in range(n))
+        return ",".join(f"{k}[{units[k]}]" if k in units else k for k in data) + "\n" + "".join(
+            ",".join(cell(data[k][i]) for k in data) + "\n" for i in range(n))
+
+    @settings(max_examples=50, derandomize=True, deadline=None, suppress_health_check=list(HealthCheck))
+    @given(tables())
+    def check(case):
+        calc, data, units, kind, accept = case
+        if kind == "arrow":
+            arrays = [pa.array([None if v is None else str(v) for v in vals]) if any(isinstance(v, str) for v in vals)
+                      else pa.array([None if v is None else float(v) for v in vals], pa.float64())
+                      for vals in data.values()]
+            schema = pa.schema([pa.field(k, a.type, metadata={"unit": units[k]} if k in units else None)
+                                for k, a in zip(data, arrays)])
+            sink = io.BytesIO()
+            with pa.ipc.new_stream(sink, schema) as writer:
+                writer.write_table(pa.Table.from_arrays(arrays, schema=schema))
+            body, media = sink.getvalue(), ARROW
+        else:
+            body, media = text(data, units, kind == "ecsv").encode(), "text/csv"
+        r = client.post(f"/v1/batch/{calc.name}", data=body,
+                        headers={"Content-Type": media, **({"Accept": accept} if accept else {})})
+        _answered_or_named(r)
+
+    check()
