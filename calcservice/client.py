@@ -1244,6 +1244,8 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     if seed is not None:
         unc["seed"] = _whole(seed)
         unc.setdefault("method", "monte_carlo")
+    for key in ("samples", "seed"):
+        _finite_option(unc.get(key), f"uncertainty.{key}")
     if unc:
         out["uncertainty"] = unc
     if correlations is not None:
@@ -1253,6 +1255,8 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
                             for pair, rho in correlations.items()]
         if isinstance(correlations, (list, tuple)):
             correlations = [dict(c) if isinstance(c, Mapping) else c for c in correlations]
+            for k, c in enumerate(correlations):
+                _finite_option(_plain(c.get("rho")) if isinstance(c, Mapping) else None, f"correlations.{k}.rho")
         if correlations != []:
             out["correlations"] = correlations
     if units is not None:
@@ -1263,6 +1267,13 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     if covariance is not False and covariance is not None:
         out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
     return out
+
+
+def _finite_option(x: Any, field: str) -> None:
+    """An option's NaN or infinity, which JSON has not (the encoder writes null, which the service would say
+    was null), refused naming the option."""
+    if isinstance(x, (float, np.floating)) and not math.isfinite(x):
+        raise InvalidInput(f"{field}: {float(x)} is not a finite number")
 
 
 def _unit_text(unit: Any) -> Any:

@@ -479,3 +479,24 @@ def test_fuzzed_catalogue_tables_are_answered_or_refused_naming_a_field(client):
         _answered_or_named(r)
 
     check()
+
+
+# --- 12. the client's options that are NaN or infinite -------------------------------------------------
+
+@pytest.mark.parametrize("options, field", [
+    ({"samples": float("nan")}, "uncertainty.samples"),
+    ({"seed": float("inf")}, "uncertainty.seed"),
+    ({"uncertainty": {"samples": float("nan")}}, "uncertainty.samples"),
+    ({"correlations": {("k1", "period"): float("nan")}}, "correlations.0.rho"),
+    ({"correlations": [{"between": ["k1", "period"], "rho": np.float64("-inf")}]}, "correlations.0.rho"),
+])
+@pytest.mark.parametrize("call", ["calculate", "batch"])
+def test_the_clients_nan_or_infinite_option_is_refused_naming_it(local, options, field, call):
+    from calcservice.client import InvalidInput
+    # JSON has no NaN: sent as null, the service said the option "may not be null"; a batch failed on int(nan)
+    with pytest.raises(InvalidInput, match=f"^{field}: ") as e:
+        if call == "calculate":
+            local.calculate("sb1", period=(41.6, 0.1), k1=(23.4, 0.1), eccentricity=0.31, **options)
+        else:
+            local.batch("sb1", {"period": ([41.6], [0.1]), "k1": ([23.4], [0.1]), "eccentricity": [0.31]}, **options)
+    assert list(e.value.errors) == [field]
