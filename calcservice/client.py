@@ -1139,6 +1139,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         parts, unit = _tuple_parts(value, decl)
         for p in parts:
             _finite(p, decl)
+            _json_number(p, decl)
         if len(parts) == 2:
             out = {"value": parts[0], "sigma": parts[1]}
         elif len(parts) == 3:
@@ -1154,8 +1155,14 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return None
     _finite(value, decl)
     if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
-        for member in ("value", "sigma", "sigma_minus", "sigma_plus"):
-            _finite(_plain(value.get(member)), decl)
+        for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
+            if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
+                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity inside "
+                                   "the contract's object: give the Quantity as the input itself, a (value, sigma) "
+                                   'tuple of Quantities, or plain numbers with "unit"')
+            if member != "samples":
+                _finite(_plain(value.get(member)), decl)
+                _json_number(_plain(value.get(member)), decl)
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
@@ -1267,6 +1274,14 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     if covariance is not False and covariance is not None:
         out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
     return out
+
+
+def _json_number(x: Any, decl: Mapping[str, Any] | None) -> None:
+    """A part of a tuple or a member of the contract's object that JSON cannot carry (pandas' NA, a Decimal)
+    refused naming the input, as the same given alone is (the encoder's TypeError named none)."""
+    if x is not None and not isinstance(x, (str, int, float, list, np.generic)):
+        raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(x).__name__} is no number of the wire "
+                           "contract (give a float, or NaN or None for a value not given)")
 
 
 def _finite_option(x: Any, field: str) -> None:

@@ -500,3 +500,27 @@ def test_the_clients_nan_or_infinite_option_is_refused_naming_it(local, options,
         else:
             local.batch("sb1", {"period": ([41.6], [0.1]), "k1": ([23.4], [0.1]), "eccentricity": [0.31]}, **options)
     assert list(e.value.errors) == [field]
+
+
+# --- 13. the client's tuple or contract object holding what JSON cannot carry --------------------------
+
+@pytest.mark.parametrize("k1", [
+    lambda pd, Decimal: (23.4, pd.NA),
+    lambda pd, Decimal: (pd.NA, 0.1),
+    lambda pd, Decimal: (Decimal("23.4"), 0.1),
+    lambda pd, Decimal: {"value": pd.NA},
+    lambda pd, Decimal: {"value": 23.4, "sigma": Decimal("0.1")},
+    lambda pd, Decimal: {"value": 23.4 * u.km / u.s},                # a NotImplementedError of Quantity.tolist
+    lambda pd, Decimal: {"value": 23.4, "sigma": 0.1 * u.km / u.s},
+    lambda pd, Decimal: {"samples": [23.3, 23.5] * u.km / u.s},      # a TypeError of the encoder
+])
+def test_a_tuple_or_object_holding_no_json_value_is_refused_naming_the_input(local, k1):
+    from decimal import Decimal
+
+    import pandas as pd
+
+    from calcservice.client import InvalidInput
+    # a TypeError of the JSON encoder ("Type is not JSON serializable: NAType") named no input; alone, each is refused
+    with pytest.raises(InvalidInput, match="^k1: ") as e:
+        local.calculate("sb1", period=41.6, eccentricity=0.31, k1=k1(pd, Decimal))
+    assert list(e.value.errors) == ["k1"]
