@@ -41,7 +41,7 @@ import numpy as np
 import orjson
 
 from . import __version__
-from .columns import column_array as _to_array
+from .columns import column_array
 from .columns import column_name, column_role, correlated_columns, error_text, infinite_cells, kept_name_errors, \
     split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
@@ -854,6 +854,10 @@ class InputTable:
         inputs = {i["name"]: i for i in decl["inputs"]}
         if isinstance(keep, str):
             keep = [name.strip() for name in keep.split(",")]      # as the service's ?keep=star,hip
+        keep = list(keep) if isinstance(keep, (list, tuple, set, frozenset)) else [] if keep is None else keep
+        if not isinstance(keep, list) or not all(isinstance(name, str) for name in keep):
+            raise InvalidInput(f"keep: keep= names columns of the table, as a list of names or 'star,hip', not "
+                               f"{keep!r:.60}")
         refused = kept_name_errors(decl["name"], inputs, [o["name"] for o in decl.get("outputs", ())], keep)
         if refused:
             # an input's column kept would go unread; one named like an answer's column would be overwritten
@@ -868,7 +872,11 @@ class InputTable:
             items = [(str(k), data[k]) for k in data.colnames]
         elif _is_dataframe(data):
             items = [(str(k), data[k]) for k in data.columns]
-            units = {**dict(data.attrs.get("units") or {}), **units}
+            given = data.attrs.get("units") or {}
+            if not isinstance(given, Mapping):
+                raise InvalidInput(f"units: the DataFrame's attrs['units'] maps a column to its unit ({{'period': 'd'}}), "
+                                   f"not {type(given).__name__}")
+            units = {**given, **units}
         elif isinstance(data, Mapping):
             items = [(str(k), v) for k, v in data.items()]
         else:
@@ -1017,6 +1025,17 @@ def _is_column(col) -> bool:
     return isinstance(col, (list, Sequence))
 
 
+def _to_array(col: Any, label: str) -> np.ndarray:
+    """A caller's column as :func:`calcservice.columns.column_array` reads it; what it refuses (booleans, a
+    number only lenient readers take) is the client's InvalidInput, named by ``label``."""
+    try:
+        return column_array(col, label)
+    except InvalidInput:
+        raise
+    except ValueError as e:
+        raise InvalidInput(str(e)) from None
+
+
 def _is_missing(arr: np.ndarray) -> np.ndarray:
     if arr.dtype.kind == "f":
         return np.isnan(arr)
@@ -1030,8 +1049,8 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         col = (parts[0], parts[1], unit) if unit else parts
     if isinstance(col, tuple):          # (values, sigmas[, sigma_plus][, unit])
         parts = list(col)
-        if parts and isinstance(parts[-1], str):
-            unit = parts.pop()
+        if parts and (isinstance(parts[-1], str) or _is_unit(parts[-1])):
+            unit = unit_text(parts.pop(), label)
         if len(parts) not in (1, 2, 3):
             raise InvalidInput(f"{label}: a tuple column is (values, sigmas) or (values, sigma_minus, sigma_plus)")
         col = parts[0]
@@ -1076,6 +1095,9 @@ def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None)
         except u.UnitConversionError:
             raise InvalidInput(f"{label}: its unit {unit!r} does not convert to the value's "
                              f"{value_unit or 'dimensionless'!r}") from None
+        except (ValueError, TypeError):         # a unit astropy cannot read (a file's 'blah'), the sigma's or the value's
+            raise InvalidInput(f"{label}: its unit {unit!r} or its value's {value_unit!r} is not a unit astropy "
+                               "can read") from None
     return arr
 
 
@@ -1129,12 +1151,10 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         # report would print as the caller's own digits
         return {"value": _digits15(value.nominal_value), "sigma": _digits15(value.std_dev)}
     if isinstance(value, tuple):
-        parts = [_plain(p) for p in value]
+        parts, unit = _tuple_parts(value, decl)
         for p in parts:
             _finite(p, decl)
-        unit = None
-        if parts and isinstance(parts[-1], str):
-            unit = parts.pop()
+            _json_number(p, decl)
         if len(parts) == 2:
             out = {"value": parts[0], "sigma": parts[1]}
         elif len(parts) == 3:
@@ -1150,8 +1170,14 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return None
     _finite(value, decl)
     if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
-        for member in ("value", "sigma", "sigma_minus", "sigma_plus"):
-            _finite(_plain(value.get(member)), decl)
+        for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
+            if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
+                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity inside "
+                                   "the contract's object: give the Quantity as the input itself, a (value, sigma) "
+                                   'tuple of Quantities, or plain numbers with "unit"')
+            if member != "samples":
+                _finite(_plain(value.get(member)), decl)
+                _json_number(_plain(value.get(member)), decl)
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
@@ -1159,6 +1185,33 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(value).__name__} is no value of the wire "
                            "contract (a number, a (value, sigma) tuple, a Quantity, a list of samples or a string)")
     return value
+
+
+def _tuple_parts(value: tuple, decl: Mapping[str, Any] | None) -> tuple[list, str | None]:
+    """A (value, sigma[, sigma_plus][, unit]) tuple's numbers and unit: the unit a string or an astropy unit,
+    or the parts all Quantities (each sigma in the value's unit)."""
+    name = (decl or {}).get("name", "an input")
+    parts, unit = list(value), None
+    if parts and (isinstance(parts[-1], str) or _is_unit(parts[-1])):
+        unit = unit_text(parts.pop(), name)
+    quantities = [hasattr(p, "unit") and hasattr(p, "value") for p in parts]
+    if any(quantities):
+        if not all(quantities) or unit is not None:
+            raise InvalidInput(f"{name}: a tuple of Quantities carries its units: give each part as a Quantity "
+                               "(value, sigma), or plain numbers and a unit last")
+        from astropy import units as u
+        first = parts[0].unit
+        try:
+            parts = [parts[0].value] + [p.to_value(first) for p in parts[1:]]
+        except u.UnitConversionError:
+            raise InvalidInput(f"{name}: the sigma's unit does not convert to the value's {first.to_string()!r}") from None
+        unit = first.to_string()
+    return [_plain(p) for p in parts], unit
+
+
+def _is_unit(x: Any) -> bool:
+    """An astropy unit (not a Quantity, which has a unit of its own)."""
+    return not isinstance(x, str) and hasattr(x, "to_string") and hasattr(x, "physical_type") and not hasattr(x, "unit")
 
 
 def _digits15(x: float) -> float:
@@ -1213,6 +1266,8 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     if seed is not None:
         unc["seed"] = _whole(seed)
         unc.setdefault("method", "monte_carlo")
+    for key in ("samples", "seed"):
+        _finite_option(unc.get(key), f"uncertainty.{key}")
     if unc:
         out["uncertainty"] = unc
     if correlations is not None:
@@ -1222,6 +1277,8 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
                             for pair, rho in correlations.items()]
         if isinstance(correlations, (list, tuple)):
             correlations = [dict(c) if isinstance(c, Mapping) else c for c in correlations]
+            for k, c in enumerate(correlations):
+                _finite_option(_plain(c.get("rho")) if isinstance(c, Mapping) else None, f"correlations.{k}.rho")
         if correlations != []:
             out["correlations"] = correlations
     if units is not None:
@@ -1233,6 +1290,21 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
     if covariance is not False and covariance is not None:
         out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
     return out
+
+
+def _json_number(x: Any, decl: Mapping[str, Any] | None) -> None:
+    """A part of a tuple or a member of the contract's object that JSON cannot carry (pandas' NA, a Decimal)
+    refused naming the input, as the same given alone is (the encoder's TypeError named none)."""
+    if x is not None and not isinstance(x, (str, int, float, list, np.generic)):
+        raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(x).__name__} is no number of the wire "
+                           "contract (give a float, or NaN or None for a value not given)")
+
+
+def _finite_option(x: Any, field: str) -> None:
+    """An option's NaN or infinity, which JSON has not (the encoder writes null, which the service would say
+    was null), refused naming the option."""
+    if isinstance(x, (float, np.floating)) and not math.isfinite(x):
+        raise InvalidInput(f"{field}: {float(x)} is not a finite number")
 
 
 def unit_text(unit: Any, field: str, what: str = "a unit") -> str:

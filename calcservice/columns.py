@@ -202,7 +202,10 @@ def _number_or_text(v):
             return v
         return x if math.isfinite(x) else v
     if isinstance(v, (int, float)) and not isinstance(v, bool):
-        return float(v)
+        try:
+            return float(v)
+        except OverflowError:       # an integer beyond a double: infinite, that system's error as 1e999 is
+            return math.inf if v > 0 else -math.inf
     return v
 
 

@@ -379,6 +379,8 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
                                  f"{reason}") from None
     if len(table) == 0:
         raise UsageError("--in", f"{path} has a header but no rows" if table.colnames else f"{path} is empty")
+    if fmt in ("ascii.ecsv", "ecsv"):
+        _check_ecsv_meta(calc, path, table.meta)
     if fmt == "ascii.csv":
         _kept_as_written(table, source, keep, options["delimiter"])
     absent = [name for name in keep if name not in table.colnames]
@@ -451,6 +453,20 @@ def _check_ecsv_header(path: str, lines: list[str]) -> None:
         field, messages = next(iter(e.errors.items()))
         raise UsageError("--in" if field == "_body" else field, f"{' '.join(messages)} in the header of {path}") \
             from None
+
+
+def _check_ecsv_meta(calc: Calculation, path: str, meta) -> None:
+    """An ECSV file's meta naming an option or a unit, refused as the HTTP path refuses it
+    (:func:`calcservice.tables.options_in_metadata`): it would go unread."""
+    from .tables import TableError, is_unit_key, options_in_metadata
+    try:
+        options_in_metadata(calc, list(meta), "meta")
+    except TableError as e:
+        field = next(iter(e.errors))
+        where = ("give each column its unit in its header entry" if is_unit_key(field) and field != "units" else
+                 "give the options on the command line (--method, --samples, --seed, --correlation, --unit, "
+                 "--time-format)")
+        raise UsageError(field, f"the meta of {path} gives {field!r}, which is not read there: {where}") from None
 
 
 def _kept_as_written(table, lines: list[str], keep, delimiter: str) -> None:

@@ -409,7 +409,8 @@ EDGE_EXAMPLES = {
     400: {"type": "/problems/malformed-request", "title": "Malformed request", "status": 400,
           "detail": "the request body is not valid JSON: Expecting value: line 1 column 1 (char 0)"},
     404: {"type": "/problems/not-found", "title": "Not found", "status": 404,
-          "detail": "there is nothing at /v1/nothing; GET /v1/calculations lists the calculations"},
+          "detail": "there is nothing at /v1/nothing; GET /v1/calculations lists the calculations",
+          "errors": {"_path": ["no resource at /v1/nothing"]}},
     406: {"type": "/problems/not-acceptable", "title": "Not acceptable", "status": 406,
           "detail": f"the answer can be given as {', '.join(media.ANSWERS)}; Accept lists none of them",
           "errors": {"Accept": [f"must accept one of {', '.join(media.ANSWERS)}"]}},
@@ -739,8 +740,10 @@ def _get(summary: str, schema: dict, example: Any = None, content_type: str = me
     content = {"schema": schema}
     if example is not None:
         content["example"] = Example(example) if isinstance(example, dict) else example
+    # the service's own routes take no query parameter (400 naming one given); the pages take any
     return {"get": {"summary": summary, "tags": [tag], "responses": {
-        "200": {"description": "the answer", "content": {content_type: content}}}}}
+        "200": {"description": "the answer", "content": {content_type: content}},
+        **(_problems(400) if tag == "service" else {})}}}
 
 
 def _limits_example() -> dict:
@@ -783,7 +786,7 @@ def _service_paths() -> dict:
                             "schema": {"type": "string", "enum": list(calculations())}, "example": sb.name}],
             "responses": {"200": {"description": "the declaration", "content": {media.JSON: {
                 "schema": declaration, "example": _plain(sb.as_dict())}}},
-                          **_problems(404)}}},
+                          **_problems(400, 404)}}},
         "/openapi.yaml": _get("this document", {"type": "object", "required": ["openapi", "paths"]},
                               content_type="application/yaml"),
         "/docs": _get("the reference page: every calculation with its inputs, outputs, formulas, references, "

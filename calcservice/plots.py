@@ -24,7 +24,7 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from .engine import MIN_DRAWS
-from .registry import Calculation
+from .registry import DATE, Calculation
 from .units import factor
 
 MIMETYPES = {"svg": "image/svg+xml", "png": "image/png"}
@@ -260,13 +260,18 @@ def dense_times(times: np.ndarray, period: float | None, t_periastron: float | N
     span = hi - lo
     if span > MAX_CYCLES_IN_TIME * period:
         ecc = np.linspace(0.0, 2.0 * np.pi, POINTS_PER_PERIOD + 1)
-        return t0 + period * (ecc - e * np.sin(ecc)) / (2.0 * np.pi), "phase"
+        if t0 + period > DATE.high:         # the cycle before: the same phases, dates a request may give
+            t0 -= period * math.ceil((t0 + period - DATE.high) / period)
+        grid = t0 + period * (ecc - e * np.sin(ecc)) / (2.0 * np.pi)
+        return grid[(grid >= DATE.low) & (grid <= DATE.high)], "phase"
     if span < period:
         mid = 0.5 * (lo + hi)
         lo, hi = mid - 0.5 * period, mid + 0.5 * period
     else:
         pad = 0.03 * span
         lo, hi = lo - pad, hi + pad
+    # the curve is computed by a request of its own, whose times are dates within the range a request may give
+    lo, hi = max(lo, DATE.low), min(hi, DATE.high)
     first, last = math.floor((lo - t0) / period), math.ceil((hi - t0) / period)
     ecc = np.linspace(0.0, 2.0 * np.pi, POINTS_PER_PERIOD, endpoint=False)
     cycles = np.arange(first, last + 1)[:, None]

@@ -346,17 +346,60 @@ def _arrow_table(data: bytes):
 
 
 def options_in_metadata(calc: Calculation, keys, where: str) -> None:
-    """A table's metadata that names a batch option (an ECSV header's meta, Arrow schema metadata) is
-    refused: a request table's options ride in the query parameter, and the metadata's would go unread
-    (an answer table's metadata says what its numbers were computed with, so it reads as though they did)."""
+    """A table's metadata that names a batch option (an ECSV header's meta, Arrow schema metadata), a member of
+    the uncertainty option (seed, samples, method) or a unit is refused: a request table's options ride in the
+    query parameter and its units with its columns, and the metadata's would go unread (an answer table's
+    metadata says what its numbers were computed with, so it reads as though they did)."""
     from .core.batch import OPTION_KEYS
+    from .core.schemas import NESTED_NAMES
     series = [spec.name for spec in calc.inputs if spec.kind == "series"]
-    found = [key for key in keys if key in OPTION_KEYS or key in series]
+    members = NESTED_NAMES["uncertainty"]
+    found = [key for key in keys if key in OPTION_KEYS or key in series or key in members or is_unit_key(key)]
     if found:
         def message(name: str) -> str:
+            if is_unit_key(name) and name not in OPTION_KEYS:       # "units" is the option of the outputs' units
+                return (f"the table's {where} gives {name!r}, which is not read there: a column's unit goes with the "
+                        "column (its ECSV header entry's unit, its Arrow field metadata's unit, NAME[unit] in CSV)")
+            option = f'{{"uncertainty": {{"{name}": ...}}}}' if name in members else f'{{"{name}": ...}}'
             return (f"the table's {where} gives {name!r}, which is not read there: a table's options go in the query "
-                    f'parameter options (?options={{"{name}": ...}}, URL-encoded JSON)')
+                    f"parameter options (?options={option}, URL-encoded JSON)")
         raise TableError(422, message(found[0]), {name: [message(name)] for name in found})
+
+
+def is_unit_key(key) -> bool:
+    """A metadata key that means a unit ("units", "Unit", "unit_"), as a caller may write the one key read."""
+    return isinstance(key, str) and re.sub(r"[\s_-]", "", key).lower() in ("unit", "units")
+
+
+def ecsv_column_entries(lines: Sequence[str]) -> list[dict]:
+    """The column entries of an ECSV header (its YAML datatype list); none where the header does not parse
+    (the reader then says why)."""
+    from astropy.table.meta import get_header_from_yaml
+    head = []
+    for line in lines:
+        if not line.startswith("#"):
+            break
+        head.append(line[2:] if line.startswith("# ") else line[1:])
+    if len(head) < 2 or not head[0].lstrip().startswith("%ECSV") or head[1].strip() != "---":
+        return []
+    try:
+        entries = get_header_from_yaml(head[2:]).get("datatype")
+    except Exception:       # noqa: BLE001 - the YAML's own errors: astropy's reader refuses the header
+        return []
+    return [entry for entry in entries if isinstance(entry, dict)] if isinstance(entries, list) else []
+
+
+def check_ecsv_units(lines: Sequence[str]) -> None:
+    """An ECSV column whose unit is under a key the reader does not read (``units``, ``Unit``, or its meta's
+    ``unit``), which astropy drops, leaving the column in the input's default unit: refused naming it."""
+    for entry in ecsv_column_entries(lines):
+        meta = entry.get("meta") if isinstance(entry.get("meta"), dict) else {}
+        keys = [repr(k) for k in entry if k != "unit" and is_unit_key(k)] + \
+               [f"meta: {k!r}" for k in meta if is_unit_key(k)]
+        if keys:
+            name = str(entry.get("name", ""))[:80]
+            message = f"its unit is under the key {keys[0]}, which the ECSV reader does not read: the key is 'unit'"
+            raise TableError(422, f"column {name}: {message}", {name: [message]})
 
 
 def header_line(lines: Sequence[str]) -> str | None:
@@ -388,8 +431,11 @@ def check_header(lines: Sequence[str], delimiter: str = ",", ecsv: bool = False)
     """A CSV header's names as written (see :func:`header_line`): astropy would call a second
     ``period`` ``period_1`` and an empty name ``col3``, names the caller never wrote.  Raises
     :class:`TableError` (422) naming the column; the HTTP edge and the command line both check so.
-    ``ecsv``: the line of names under an ECSV header, whose cells may be apart by more than one space."""
+    ``ecsv``: the line of names under an ECSV header, whose cells may be apart by more than one space; the
+    header's column entries are checked for a unit under another key (:func:`check_ecsv_units`) too."""
     import csv
+    if ecsv:
+        check_ecsv_units(lines)
     header = header_line(lines)
     if header is None:
         return
@@ -411,11 +457,14 @@ def check_header(lines: Sequence[str], delimiter: str = ",", ecsv: bool = False)
 def quiet_range_warnings():
     """astropy's fast reader warns (to the log) of a cell beyond a double or below its normal range
     ("OverflowError converting to FloatType"): the number is then that system's error, said in words
-    by the batch, so the warning is left out (the command line prints one line)."""
+    by the batch, so the warning is left out (the command line prints one line); so is its warning of a
+    file's unit it cannot parse ('yrs' in a FITS header), which is then refused in words naming the column."""
+    from astropy.units import UnitsWarning
     from astropy.utils.exceptions import AstropyWarning
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="OverflowError converting to (Float|Int)Type",
                                 category=AstropyWarning)
+        warnings.filterwarnings("ignore", message=".* did not parse as .*unit", category=UnitsWarning)
         yield
 
 

@@ -381,7 +381,7 @@ def query_parameters(takes: dict[str, str], where: str) -> dict[str, str]:
     if not request.environ.get("QUERY_STRING"):
         return {}
     args = request.args
-    taken = "; ".join(f"{name} ({what})" for name, what in takes.items())
+    taken = "; ".join(f"{name} ({what})" for name, what in takes.items()) or "none"
     unknown = [name for name in args if name not in takes]
     if unknown:
         shown = [name if len(name) <= 80 else name[:80] + "..." for name in unknown]
@@ -560,12 +560,17 @@ def install(app: Flask) -> None:
 
     @app.errorhandler(HTTPException)
     def _http(e: HTTPException):
+        # every 4xx names what is at fault, as a field would be: the path, or the method
+        allowed = [m for m in getattr(e, "valid_methods", None) or () if m != "OPTIONS"]
         if e.code == 404:
-            p = Problem(404, f"there is nothing at {request.path}; GET /v1/calculations lists the calculations")
+            p = Problem(404, f"there is nothing at {request.path}; GET /v1/calculations lists the calculations",
+                        {"_path": [f"no resource at {request.path[:200]}"]})
         elif e.code == 405:
-            p = Problem(405, f"{request.method} is not allowed on {request.path}")
+            p = Problem(405, f"{request.method} is not allowed on {request.path}",
+                        {"_method": [f"{request.method} is not allowed here; use {' or '.join(allowed)}"]})
         else:
-            p = Problem(e.code or 500, e.description or "error")
+            code = e.code or 500
+            p = Problem(code, e.description or "error", {"_request": [e.description or "error"]} if code < 500 else None)
         r = problem_response(p)
         if e.code == 405 and hasattr(e, "valid_methods") and e.valid_methods:
             r.headers["Allow"] = ", ".join(e.valid_methods)

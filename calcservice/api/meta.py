@@ -7,9 +7,15 @@ from flask import Blueprint, Response, current_app, request
 from .. import __version__
 from ..constants import CONSTANTS
 from ..registry import calculations
-from .edge import json_response
+from .edge import json_response, query_parameters
 
 bp = Blueprint("meta", __name__)
+
+
+@bp.before_request
+def _no_query():
+    # none of these takes a parameter: one given (?name=sb1, ?format=json) would be answered as if absent
+    query_parameters({}, f"{request.method} {request.path[:80]}")
 
 
 @bp.get("/v1/health")

@@ -52,7 +52,8 @@ class Parsed:
 def find(name: str) -> Calculation:
     calcs = calculations()
     if name not in calcs:
-        raise Problem(404, f"there is no calculation {name!r}; GET /v1/calculations lists them")
+        raise Problem(404, f"there is no calculation {name!r}; GET /v1/calculations lists them",
+                      {"calculation": [f"no calculation {str(name)[:80]!r}"]})
     return calcs[name]
 
 

@@ -442,7 +442,13 @@ class SeriesField(_CheckedField):
             out = number_array(value, "the list", self.limits.max_series)
         if unit is not None:
             if self.spec.time:
-                raise ValidationError("times take no unit: give Julian Dates, or MJD with time_format")
+                # days, as a single date given as a number takes them; any other unit cannot turn a day count into one
+                try:
+                    days = factor(unit, self.spec.unit) == 1.0
+                except UnitError:
+                    days = False
+                if not days:
+                    raise ValidationError(date_unit_message(unit))
             try:
                 out = out * factor(unit, self.spec.unit)
             except UnitError as e:
