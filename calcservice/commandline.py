@@ -265,7 +265,7 @@ def describe(calc: Calculation) -> str:
     rows = []
     for i in calc.inputs:
         need = "required" if i.required and i.default is None else (
-            f"default {i.default}" if i.default is not None else "optional")
+            f"default {report.default_text(i.default)}" if i.default is not None else "optional")
         if i.kind == "choice":
             what = "one of " + ", ".join(i.choices)
         else:
