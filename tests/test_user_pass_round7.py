@@ -133,6 +133,10 @@ def test_the_command_line_refuses_series_in_csv_or_ecsv_as_the_service_does(tmp_
                     headers={"Content-Type": "text/csv", "Accept": "text/csv"})
     assert r.status_code == 406 and "Accept" in r.get_json()["errors"]
     assert "CSV and ECSV cannot carry" in r.get_json()["detail"]
+    # and the command line's help says so where --out is described
+    with pytest.raises(SystemExit):
+        main(["compute", "--help"])
+    assert "outputs over a series such as times need .fits or .vot" in " ".join(capsys.readouterr().out.split())
 
 
 def test_a_series_catalogue_written_as_fits_holds_an_array_per_system(tmp_path, capsys, local):
