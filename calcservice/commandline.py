@@ -265,7 +265,7 @@ def describe(calc: Calculation) -> str:
     rows = []
     for i in calc.inputs:
         need = "required" if i.required and i.default is None else (
-            f"default {i.default}" if i.default is not None else "optional")
+            f"default {report.default_text(i.default)}" if i.default is not None else "optional")
         if i.kind == "choice":
             what = "one of " + ", ".join(i.choices)
         else:
@@ -773,7 +773,8 @@ def add_compute(subparsers) -> argparse.ArgumentParser:
                    "system per row, columns named after inputs (units from the file, or period[yr] in a CSV "
                    "header), NAME_sigma for sigmas, empty or masked cells missing")
     p.add_argument("--out", metavar="FILE", help="where to write the catalogue's results, in the format its "
-                   "extension names (.csv, .ecsv, .fits, .vot; '-' for CSV on stdout)")
+                   "extension names (.csv, .ecsv, .fits, .vot; '-' for CSV on stdout; outputs over a series such "
+                   "as times need .fits or .vot)")
     p.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                    help="a progress bar for the catalogue (default: on a terminal, from 20000 systems)")
     p.add_argument("--keep", "--id", dest="keep", action="append", type=_names, metavar="COLUMN[,COLUMN]",

@@ -504,6 +504,14 @@ def _given(entry: Mapping[str, Any], style: Style) -> str:
     return style.number(as_given(v))
 
 
+def default_text(value: Any) -> str:
+    """A declared default as the report prints it beside an input (six significant digits, 0.617284 for 50/81), for
+    the reference page and the command line's description, which printed every digit of the double."""
+    if _finite(value) and not isinstance(value, int):
+        return Text().number(_exact(value))
+    return str(value)
+
+
 def _as_requested(entry: Any, given: Any) -> Any:
     """An input's echo as the caller wrote it where the caller gave it in a unit of their own (a period
     of 27.4 ± 0.3 yr, which the answer echoes converted as 10007.850 ± 109.575 d): the report shows what

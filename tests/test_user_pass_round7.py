@@ -133,6 +133,10 @@ def test_the_command_line_refuses_series_in_csv_or_ecsv_as_the_service_does(tmp_
                     headers={"Content-Type": "text/csv", "Accept": "text/csv"})
     assert r.status_code == 406 and "Accept" in r.get_json()["errors"]
     assert "CSV and ECSV cannot carry" in r.get_json()["detail"]
+    # and the command line's help says so where --out is described
+    with pytest.raises(SystemExit):
+        main(["compute", "--help"])
+    assert "outputs over a series such as times need .fits or .vot" in " ".join(capsys.readouterr().out.split())
 
 
 def test_a_series_catalogue_written_as_fits_holds_an_array_per_system(tmp_path, capsys, local):
@@ -399,3 +403,20 @@ def test_the_report_says_which_inputs_were_the_callers_own_draws(local):
     # without samples, as before
     text = local.report("sb1", format="markdown", period=3.4172, k1=(61.4, 0.9), eccentricity=0, samples=500, seed=1)
     assert "results are the median with the central 68.27 % interval, inputs drawn normal" in text
+
+
+def test_a_default_is_shown_to_six_digits_as_the_report_and_the_form_show_it(client, capsys):
+    import re
+
+    from calcservice.cli import main
+    # the mean mass per particle of fully ionised solar gas, 50/81 = 0.617283950617284 (from memory: X = 0.7,
+    # Y = 0.28, fully ionised: 1/mu = 2X + 3Y/4 + Z/2 gives about 0.617): /docs and --describe printed every digit
+    page = client.get("/docs").get_data(as_text=True)
+    row = re.search(r"<tr><td><code>mu1</code>.*?</tr>", page).group(0)
+    assert "default 0.617284" in row and "0.617283950617284" not in row
+    assert "default 1<" in re.search(r"<tr><td><code>clumping</code>.*?</tr>", page).group(0)
+    assert main(["compute", "collision", "--describe"]) == 0
+    out = capsys.readouterr().out
+    assert "default 0.617284 " in out and "0.617283950617284" not in out
+    assert main(["compute", "ephemeris", "--describe"]) == 0
+    assert "default none" in capsys.readouterr().out            # a choice's default as it is

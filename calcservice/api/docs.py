@@ -20,6 +20,7 @@ from flask import Blueprint, Response, request
 from .. import __version__
 from ..constants import CONSTANTS
 from ..registry import Calculation, Input, calculations
+from ..report import default_text
 from .form import secure
 
 bp = Blueprint("docs", __name__)
@@ -95,7 +96,7 @@ def _input_row(spec: Input) -> str:
     if spec.isotropic and '"isotropic"' not in spec.description:
         notes.append('or <code>"isotropic"</code>')
     if spec.default is not None:
-        notes.append(f"default {escape(str(spec.default))}")
+        notes.append(f"default {escape(default_text(spec.default))}")
     need = "required" if spec.required and spec.default is None else "optional"
     return (f"<tr><td><code>{escape(spec.name)}</code></td><td>{unit}</td><td>{domain}</td><td>{need}</td>"
             f"<td>{escape(spec.description)}{'; ' if notes else ''}{'; '.join(notes)}</td></tr>")
