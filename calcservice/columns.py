@@ -284,11 +284,17 @@ def meant(name: str, known, symbols: Mapping[str, str] | None = None) -> str:
 
 
 def naming(errors: Mapping[str, list[str]]) -> str:
-    """The detail of a 422 that says no more than which fields are at fault ("invalid value for k2"): a table's
-    error cell leaves it out before the field errors, which say it and why (:func:`error_text`)."""
+    """The detail of a 422 that says no more than which fields are at fault: "missing k2" for those only
+    missing, "invalid value for period" for the others, both where both are.  A table's error cell leaves it
+    out before the field errors, which say it and why (:func:`error_text`)."""
     names = sorted(k for k in errors if k != "_more")
-    shown = ", ".join(k or repr(k) for k in names)          # a name "" is shown as ''
-    return (f"invalid value for {shown}" + (" and more" if "_more" in errors else "")) if names else "invalid input"
+    if not names:
+        return "invalid input"
+    missing = [k for k in names if errors[k] == ["is required"]]
+    invalid = [k for k in names if k not in missing]
+    parts = [f"{word} {', '.join(k or repr(k) for k in group)}"          # a name "" is shown as ''
+             for word, group in (("missing", missing), ("invalid value for", invalid)) if group]
+    return "; ".join(parts) + (" and more" if "_more" in errors else "")
 
 
 def error_text(problem: Mapping) -> str:

@@ -288,3 +288,13 @@ def test_a_figure_of_an_mjd_request_asks_for_its_curve_in_mjd(client):
     assert nominal["time_format"] == "mjd" and nominal["t_periastron"] == 58711.8
     r = client.post(calc.path + "?format=svg", json=body)
     assert r.status_code == 200 and r.mimetype == "image/svg+xml"
+
+
+def test_a_missing_input_is_said_missing_in_the_detail(client):
+    # the detail said "invalid value for eccentricity" of an input never sent; its errors entry said "is required"
+    status, body = post(client, "/v1/spectroscopic/sb2", {"period": -10, "k1": 30})
+    assert status == 422
+    assert body["errors"]["k2"] == ["is required"] and body["errors"]["eccentricity"] == ["is required"]
+    assert body["detail"] == "missing eccentricity, k2; invalid value for period"
+    status, body = post(client, "/v1/spectroscopic/sb2", {"period": 10, "k1": 30, "k2": 40})
+    assert body["detail"] == "missing eccentricity"

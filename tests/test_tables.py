@@ -562,7 +562,7 @@ def test_an_error_cell_keeps_a_detail_that_says_more_than_the_fields(client):
     # a detail that only names the fields is left out of the cell (the field errors say it, and why); one that
     # says more stays before them
     from calcservice.columns import error_text
-    assert error_text({"detail": "invalid value for k2", "errors": {"k2": ["is required"]}}) == "k2: is required"
+    assert error_text({"detail": "missing k2", "errors": {"k2": ["is required"]}}) == "k2: is required"
     kept = {"detail": "these inputs give no finite result: invalid value for period",
             "errors": {"period": ["gives no finite value of m1"]}}
     assert error_text(kept) == "these inputs give no finite result: invalid value for period; period: gives no " \
