@@ -36,7 +36,7 @@ def needed(unit: u.UnitBase) -> str:
     if name == "unknown":
         # astropy has no word for many composite units (solMass / yr): name the unit itself
         return f"a unit convertible to {unit.to_string()!r}"
-    return f"a {name} unit"
+    return f"{'an' if name[0] in 'aeiou' else 'a'} {name} unit"           # an angle unit, an energy unit
 
 
 def _unscaled(unit: u.UnitBase) -> u.UnitBase:

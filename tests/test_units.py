@@ -137,3 +137,10 @@ def test_unknown_unit_says_what_to_write_instead(client):
     message = " ".join(body["errors"]["k1"])
     assert status == 422 and message.startswith("unknown unit 'kms'")
     assert "a speed/velocity unit" in message and "'km/s'" in message
+
+
+def test_the_kind_of_unit_needed_takes_its_article():
+    # "a angle unit is needed" was the detail for a Thiele-Innes constant given in kg
+    from calcservice.units import needed
+    assert needed(u.deg) == "an angle unit" and needed(u.erg).startswith("an energy")
+    assert needed(u.d) == "a time unit"
