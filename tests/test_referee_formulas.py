@@ -17,6 +17,7 @@ import pytest
 from astropy import constants as ac
 from astropy import units as u
 from scipy import optimize
+from uncertainties import correlated_values, umath
 
 from calcservice.core import compute
 
@@ -484,6 +485,29 @@ def test_light_travel_amplitudes():
     for star, k in (("star1", body["k1"]), ("star2", body["k2"])):
         asini = (k * u.km / u.s * body["period"] * u.d * math.sqrt(1 - body["eccentricity"] ** 2) / (2 * math.pi))
         close(amp[f"amplitude_{star}"], (asini / ac.c).to_value(u.d), 1e-12)
+
+
+def test_light_travel_amplitude_sigmas_against_uncertainties():
+    # the amplitudes' sigmas: K P sqrt(1 - e^2) / (2 pi c) propagated by `uncertainties` (a reference library),
+    # with K1 and P correlated (rho = 0.5) and the other elements' sigmas not entering
+    body = {"period": {"value": 41.6, "sigma": 0.02}, "eccentricity": {"value": 0.31, "sigma": 0.01},
+            "omega": {"value": 120.0, "sigma": 2.0}, "t_periastron": {"value": 2460000.5, "sigma": 0.1},
+            "k1": {"value": 38.2, "sigma": 0.4}, "k2": {"value": 51.7, "sigma": 0.6}, "times": [2460001.0],
+            "correlations": [{"between": ["k1", "period"], "rho": 0.5}]}
+    _, _, _, r = answer("ephemeris", body)
+    amp = r["results"]["events"]["light_travel_time"]
+    c_km_s = ac.c.to_value(u.km / u.s)
+    k1, p, e, k2 = correlated_values([38.2, 41.6, 0.31, 51.7], np.diag([0.4, 0.02, 0.01, 0.6]) @ np.array(
+        [[1, 0.5, 0, 0], [0.5, 1, 0, 0], [0, 0, 1, 0], [0, 0, 0, 1]]) @ np.diag([0.4, 0.02, 0.01, 0.6]))
+    for star, k in (("star1", k1), ("star2", k2)):
+        a = k * p * umath.sqrt(1 - e ** 2) / (2 * math.pi * c_km_s)
+        close(amp[f"amplitude_{star}"], a.nominal_value, 1e-12)
+        close(amp[f"amplitude_{star}_sigma"], a.std_dev, 1e-12)
+    assert r["results"]["events"]["units"]["amplitude_star1_sigma"] == "d"
+    # without k2 the second star has neither
+    body.pop("k2")
+    amp = answer("ephemeris", body)[3]["results"]["events"]["light_travel_time"]
+    assert amp["amplitude_star2"] is None and amp["amplitude_star2_sigma"] is None
 
 
 def test_textbook_coefficients():

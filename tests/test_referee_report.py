@@ -114,3 +114,12 @@ def test_the_light_travel_amplitudes_are_printed_with_their_unit():
     amp = answer["results"]["events"]["light_travel_time"]["amplitude_star1"]
     assert "applied = star1" in text
     assert f"amplitude\\_star1 = {amp:.6g} d" in text
+    # with a sigma, value and sigma are rounded together (PDG rule), and a star without k2 is not printed as empty
+    body.update(k1={"value": 21.0, "sigma": 0.5})
+    body.pop("k2")
+    answer = compute("ephemeris", body)
+    text = report.markdown(answer, get("ephemeris"), body)
+    amp = answer["results"]["events"]["light_travel_time"]
+    # only K1 is uncertain: sigma_A / A = sigma_K1 / K1 = 0.5 / 21, 2.03e-4 d of 8.55e-3 d
+    assert abs(amp["amplitude_star1_sigma"] / (amp["amplitude_star1"] * 0.5 / 21.0) - 1) < 1e-12
+    assert "amplitude\\_star1 = 0.00855 ± 0.00020 d" in text and "amplitude\\_star2" not in text

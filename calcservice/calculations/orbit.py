@@ -62,8 +62,9 @@ ORBIT_CONVENTIONS = {
                          "the series are not corrected, nor are the other light-travel terms of eclipse timing "
                          "(the motion of the front star while the light crosses the orbit). The amplitudes "
                          "a sin i / c = K P sqrt(1 - e^2)/(2 pi c) of "
-                         "both stars are always given in events.light_travel_time (days); the correction's own "
-                         "uncertainty is not propagated",
+                         "both stars are always given in events.light_travel_time (days), each with its sigma "
+                         "(amplitude_star1_sigma) propagated linearly from K, P and e with their correlations; the "
+                         "correction's own uncertainty is not propagated into the event dates",
     "iso": "calendar dates of the same time scale as the Julian Dates (no scale conversion), treated as UTC "
            "for leap seconds: a UTC Julian Date counts every day as one, so a leap second moves the clock reading "
            "only within the day that has it (by under a second), and one announced after astropy's table was "
@@ -164,13 +165,22 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
     offset = MJD_ZERO_JD if time_format == "mjd" else 0.0
     after = _after(quantities, statics, n)
     k1, k2 = _value(quantities, "k1"), _value(quantities, "k2")
-    # the elements' covariance, with K1 and K2 for the velocity separations where k2 is given
-    elements = EVENT_ELEMENTS + (("k1", "k2") if k2 is not None else ())
+    # the elements' covariance, with K1 and K2 for the light-travel amplitudes and the velocity separations
+    elements = EVENT_ELEMENTS + ("k1", "k2")
     with np.errstate(all="ignore"):     # an infinite sigma or element gives a null date, not a warning
         cov_all = _element_covariance(quantities, getattr(options, "correlations", {}) or {}, n, elements)
         cov = cov_all[:, :len(EVENT_ELEMENTS), :len(EVENT_ELEMENTS)]
         amplitudes = {star: None if k is None else np.broadcast_to(phys.light_travel_amplitude(k, p, e), (n,))
                       for star, k in (("star1", k1), ("star2", k2))}
+        # a sin i / c is a product of powers of K, P and (1 - e^2): its partials are A/K, A/P and -A e/(1 - e^2)
+        amplitude_sigmas = {
+            star: None if a is None else phys.event_sigma(
+                {"d_" + name: np.zeros((n, 1)) for name in elements} | {
+                    "d_" + k_name: (a / np.broadcast_to(_value(quantities, k_name), (n,)))[:, None],
+                    "d_period": (a / p)[:, None],
+                    "d_eccentricity": (-a * e / ((1.0 - e) * (1.0 + e)))[:, None]},
+                cov_all, elements)[:, 0]
+            for (star, a), k_name in zip(amplitudes.items(), ("k1", "k2"))}
     chosen = statics.get("light_travel_time") or "none"
     light = None if chosen == "none" or amplitudes.get(chosen) is None else (amplitudes[chosen], int(chosen[-1]))
 
@@ -218,12 +228,13 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         # the units of the entries' fields and of the light-travel amplitudes
         events["units"] = {**({"velocity_separation": "km/s", "velocity_separation_sigma": "km/s"}
                               if separations else {}),
-                           "amplitude_star1": "d", "amplitude_star2": "d"}
+                           "amplitude_star1": "d", "amplitude_star1_sigma": "d",
+                           "amplitude_star2": "d", "amplitude_star2_sigma": "d"}
         events["time_format"] = time_format
         events["light_travel_time"] = {
             "applied": chosen if light is not None else "none",
-            **{f"amplitude_{star}": (float(a[i]) if a is not None and np.isfinite(a[i]) else None)
-               for star, a in amplitudes.items()}}
+            **{f"amplitude_{star}{part}": (float(a[i]) if a is not None and np.isfinite(a[i]) else None)
+               for star in amplitudes for part, a in (("", amplitudes[star]), ("_sigma", amplitude_sigmas[star]))}}
     return per_system
 
 
