@@ -706,3 +706,19 @@ def test_a_single_lined_orbital_parallax_warns_of_a_heavier_companion_as_sb1_doe
         answer = _post(client, path, {**body, **extra})
         assert answer["results"]["m2"]["value"] == pytest.approx(m2, rel=1e-14), path
         assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned, path
+
+
+@pytest.mark.parametrize("given", [{"omega": 0.0}, {"omega_primary": 0.0}, {"omega": 90.0}, {"omega_primary": 270.0}])
+def test_thiele_innes_constants_that_vanish_are_positive_zeros(client, given):
+    # Heintz (1978): with node = 0 and i = 90 deg, A = a cos w, B = a sin w cos i = 0, F = -a sin w, G = a cos w cos i
+    # = 0 (w the relative orbit's omega, omega_primary + 180 deg): the vanishing constants are 0 exactly, and a
+    # report or table prints them as 0, not -0 (IEEE 754 negative zero from -0.0 * 0 or from negating the
+    # constants of omega_primary), as the budget's zero shares already are.
+    w = given.get("omega", given.get("omega_primary", 0.0) + 180.0)
+    got = _post(client, "/v1/astrometric/thiele-innes", {"angular_semimajor_axis": 327.0, "inclination": 90.0,
+                                                         "node": 0.0, **given})["results"]
+    want = {"A": 327.0 * round(math.cos(math.radians(w))), "B": 0.0, "F": -327.0 * round(math.sin(math.radians(w))),
+            "G": 0.0}
+    for name, value in want.items():
+        assert got[name]["value"] == value, name
+        assert math.copysign(1.0, got[name]["value"]) == math.copysign(1.0, value + 0.0), name
