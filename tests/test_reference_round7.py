@@ -722,3 +722,13 @@ def test_thiele_innes_constants_that_vanish_are_positive_zeros(client, given):
     for name, value in want.items():
         assert got[name]["value"] == value, name
         assert math.copysign(1.0, got[name]["value"]) == math.copysign(1.0, value + 0.0), name
+
+
+@pytest.mark.parametrize("mode", ["jeans", "conservative", "isotropic-re-emission"])
+def test_a_period_that_does_not_change_gives_a_rate_of_positive_zero(client, mode):
+    # Pdot = 0 gives Mdot = 0 in every mode (each rate is proportional to Pdot/P, Hilditch 2001, sect. 4.3): it read
+    # -0.0 in the conservative and re-emission modes at M1 > M2 (-M1 M2 0 / (3 P (M1 - M2)) in IEEE 754)
+    got = _post(client, "/v1/winds/mass-loss/period-change", {"period": 6.3, "period_derivative": 0.0, "m1": 27.0,
+                                                                "m2": 11.0, "mode": mode})["results"]
+    assert got["mass_loss_rate"]["value"] == 0.0
+    assert math.copysign(1.0, got["mass_loss_rate"]["value"]) == 1.0
