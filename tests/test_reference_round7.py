@@ -732,3 +732,27 @@ def test_a_period_that_does_not_change_gives_a_rate_of_positive_zero(client, mod
                                                                 "m2": 11.0, "mode": mode})["results"]
     assert got["mass_loss_rate"]["value"] == 0.0
     assert math.copysign(1.0, got["mass_loss_rate"]["value"]) == 1.0
+
+
+def test_a_periastron_ten_thousand_cycles_on_with_a_period_derivative_by_hand(client):
+    # Quadratic ephemeris t = T0 + P (c + Pdot c^2 / 2), Pdot in s per Julian year (IAU 1976) made days per day
+    # (Hilditch 2001, ch. 4 on O - C); its linear sigma^2 = s_T0^2 + (dt/dP s_P)^2 + (dt/dPdot s_Pdot)^2
+    # + 2 rho s_T0 (dt/dP s_P), dt/dP = c + Pdot c^2 / 2, dt/dPdot = P c^2 / 2, at 40 digits.  Agreed: the date to
+    # its rounding, the sigma to 2e-16.
+    period, t0 = 3.7, 2451234.5
+    event = _post(client, "/v1/orbit/ephemeris", {
+        "period": {"value": period, "sigma": 1e-6}, "eccentricity": 0.3, "omega": 40.0,
+        "t_periastron": {"value": t0, "sigma": 1e-3}, "k1": 10.0, "times": [t0 + period * 10000.2], "count": 1,
+        "period_derivative": {"value": 0.5, "sigma": 0.05},
+        "correlations": [{"between": ["period", "t_periastron"], "rho": -0.6}]})["results"]["events"]["periastron"][0]
+    assert event["cycle"] == 10000.0
+    with mp.workdps(40):
+        c, year = mp.mpf(10000), JULIAN_YEAR_DAYS * DAY
+        rate = mp.mpf("0.5") / year
+        d_period, d_pdot = c + rate * c * c / 2, mp.mpf(period) * c * c / 2 / year
+        s_t0, s_p, s_pdot = mp.mpf("1e-3"), mp.mpf("1e-6"), mp.mpf("0.05")
+        sigma = mp.sqrt(s_t0 ** 2 + (d_period * s_p) ** 2 + (d_pdot * s_pdot) ** 2
+                        - 2 * mp.mpf("0.6") * s_t0 * d_period * s_p)
+        date = mp.mpf(t0) + mp.mpf(period) * (c + rate * c * c / 2)
+    assert abs(event["value"] - float(date)) <= 2 * np.spacing(float(date))
+    assert event["sigma"] == pytest.approx(float(sigma), rel=1e-15)
