@@ -706,3 +706,53 @@ def test_a_single_lined_orbital_parallax_warns_of_a_heavier_companion_as_sb1_doe
         answer = _post(client, path, {**body, **extra})
         assert answer["results"]["m2"]["value"] == pytest.approx(m2, rel=1e-14), path
         assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned, path
+
+
+@pytest.mark.parametrize("given", [{"omega": 0.0}, {"omega_primary": 0.0}, {"omega": 90.0}, {"omega_primary": 270.0}])
+def test_thiele_innes_constants_that_vanish_are_positive_zeros(client, given):
+    # Heintz (1978): with node = 0 and i = 90 deg, A = a cos w, B = a sin w cos i = 0, F = -a sin w, G = a cos w cos i
+    # = 0 (w the relative orbit's omega, omega_primary + 180 deg): the vanishing constants are 0 exactly, and a
+    # report or table prints them as 0, not -0 (IEEE 754 negative zero from -0.0 * 0 or from negating the
+    # constants of omega_primary), as the budget's zero shares already are.
+    w = given.get("omega", given.get("omega_primary", 0.0) + 180.0)
+    got = _post(client, "/v1/astrometric/thiele-innes", {"angular_semimajor_axis": 327.0, "inclination": 90.0,
+                                                         "node": 0.0, **given})["results"]
+    want = {"A": 327.0 * round(math.cos(math.radians(w))), "B": 0.0, "F": -327.0 * round(math.sin(math.radians(w))),
+            "G": 0.0}
+    for name, value in want.items():
+        assert got[name]["value"] == value, name
+        assert math.copysign(1.0, got[name]["value"]) == math.copysign(1.0, value + 0.0), name
+
+
+@pytest.mark.parametrize("mode", ["jeans", "conservative", "isotropic-re-emission"])
+def test_a_period_that_does_not_change_gives_a_rate_of_positive_zero(client, mode):
+    # Pdot = 0 gives Mdot = 0 in every mode (each rate is proportional to Pdot/P, Hilditch 2001, sect. 4.3): it read
+    # -0.0 in the conservative and re-emission modes at M1 > M2 (-M1 M2 0 / (3 P (M1 - M2)) in IEEE 754)
+    got = _post(client, "/v1/winds/mass-loss/period-change", {"period": 6.3, "period_derivative": 0.0, "m1": 27.0,
+                                                                "m2": 11.0, "mode": mode})["results"]
+    assert got["mass_loss_rate"]["value"] == 0.0
+    assert math.copysign(1.0, got["mass_loss_rate"]["value"]) == 1.0
+
+
+def test_a_periastron_ten_thousand_cycles_on_with_a_period_derivative_by_hand(client):
+    # Quadratic ephemeris t = T0 + P (c + Pdot c^2 / 2), Pdot in s per Julian year (IAU 1976) made days per day
+    # (Hilditch 2001, ch. 4 on O - C); its linear sigma^2 = s_T0^2 + (dt/dP s_P)^2 + (dt/dPdot s_Pdot)^2
+    # + 2 rho s_T0 (dt/dP s_P), dt/dP = c + Pdot c^2 / 2, dt/dPdot = P c^2 / 2, at 40 digits.  Agreed: the date to
+    # its rounding, the sigma to 2e-16.
+    period, t0 = 3.7, 2451234.5
+    event = _post(client, "/v1/orbit/ephemeris", {
+        "period": {"value": period, "sigma": 1e-6}, "eccentricity": 0.3, "omega": 40.0,
+        "t_periastron": {"value": t0, "sigma": 1e-3}, "k1": 10.0, "times": [t0 + period * 10000.2], "count": 1,
+        "period_derivative": {"value": 0.5, "sigma": 0.05},
+        "correlations": [{"between": ["period", "t_periastron"], "rho": -0.6}]})["results"]["events"]["periastron"][0]
+    assert event["cycle"] == 10000.0
+    with mp.workdps(40):
+        c, year = mp.mpf(10000), JULIAN_YEAR_DAYS * DAY
+        rate = mp.mpf("0.5") / year
+        d_period, d_pdot = c + rate * c * c / 2, mp.mpf(period) * c * c / 2 / year
+        s_t0, s_p, s_pdot = mp.mpf("1e-3"), mp.mpf("1e-6"), mp.mpf("0.05")
+        sigma = mp.sqrt(s_t0 ** 2 + (d_period * s_p) ** 2 + (d_pdot * s_pdot) ** 2
+                        - 2 * mp.mpf("0.6") * s_t0 * d_period * s_p)
+        date = mp.mpf(t0) + mp.mpf(period) * (c + rate * c * c / 2)
+    assert abs(event["value"] - float(date)) <= 2 * np.spacing(float(date))
+    assert event["sigma"] == pytest.approx(float(sigma), rel=1e-15)

@@ -159,7 +159,9 @@ def thiele_innes(angular_semimajor_axis, inclination, node, omega=None, omega_pr
         A, B, F, G = thiele_innes_constants(angular_semimajor_axis, inclination, omega, node)
     else:
         A, B, F, G = (-x for x in thiele_innes_constants(angular_semimajor_axis, inclination, omega_primary, node))
-    return {"A": A, "B": B, "F": F, "G": G}
+    # + 0.0: a constant that vanishes (omega, node or i on a quadrant point) reads 0.0, not the -0.0 of a product
+    # with a negative zero or of the negation above
+    return {"A": A + 0.0, "B": B + 0.0, "F": F + 0.0, "G": G + 0.0}
 
 
 def campbell(A, B, F, G, **_):

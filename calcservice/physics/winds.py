@@ -447,7 +447,9 @@ def period_change_mass_loss(period, period_derivative, m1, m2, mode=None, **_):
                     np.where(mode == "conservative", conservative_transfer_rate(period, period_derivative, m1, m2),
                              np.where(mode == "isotropic-re-emission",
                                       reemission_transfer_rate(period, period_derivative, m1, m2), np.nan)))
-    return {"mass_loss_rate": rate, "relative_period_derivative": relative_period_change(period, period_derivative)}
+    # + 0.0: a period that does not change gives a rate of 0.0, not the -0.0 of -M1 M2 0 / (...)
+    return {"mass_loss_rate": rate + 0.0,
+            "relative_period_derivative": relative_period_change(period, period_derivative)}
 
 
 # ---------------------------------------------------------------------------------------
