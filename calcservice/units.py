@@ -36,6 +36,8 @@ def needed(unit: u.UnitBase) -> str:
     if name == "unknown":
         # astropy has no word for many composite units (solMass / yr): name the unit itself
         return f"a unit convertible to {unit.to_string()!r}"
+    if name == "temperature":
+        return "a temperature unit, or an energy unit for kT,"
     return f"{'an' if name[0] in 'aeiou' else 'a'} {name} unit"           # an angle unit, an energy unit
 
 
@@ -58,15 +60,19 @@ def factor(from_unit: str, to_unit: str) -> float:
             raise
         # say what to write instead: the kind of unit needed and the input's own unit as astropy spells it
         raise UnitError(f"{e}: give {needed(b)} as astropy writes it, such as {to_unit!r}") from None
+    # a temperature may be given or asked for as the energy kT (keV, as X-ray spectra give it): E = k_B T,
+    # astropy's temperature_energy equivalency (k_B of CODATA); no other unit converts across kinds
+    kinds = {str(a.physical_type), str(b.physical_type)}
+    equivalencies = u.temperature_energy() if "temperature" in kinds else []
     try:
-        k = float(a.to(b))
+        k = float(a.to(b, equivalencies=equivalencies))
     except u.UnitConversionError:
         raise UnitError(f"unit {from_unit!r} cannot be converted to {to_unit or 'dimensionless'!r} "
                         f"({needed(b)} is needed)") from None
     if k in (0.0, float("inf")) and a.scale != 0:
         # astropy goes through SI: '1e305 d' is 8.64e309 s on the way, though 2.7e302 yr; so the
         # units' own scales are applied last
-        k = float(a.scale / b.scale * _unscaled(a).to(_unscaled(b)))
+        k = float(a.scale / b.scale * _unscaled(a).to(_unscaled(b), equivalencies=equivalencies))
     if not 0.0 < k < float("inf"):
         # '-1*au' would flip signs, '1e400*au' is infinite: no unit a measurement is given in
         size = {0.0: "below the smallest double", float("inf"): "beyond the largest double"}.get(k, f"{k:g}")

@@ -144,3 +144,26 @@ def test_the_kind_of_unit_needed_takes_its_article():
     from calcservice.units import needed
     assert needed(u.deg) == "an angle unit" and needed(u.erg).startswith("an energy")
     assert needed(u.d) == "a time unit"
+
+
+def test_a_temperature_is_given_and_asked_for_as_kt(client):
+    # X-ray spectra give a plasma's kT in keV: E = k_B T (astropy's temperature_energy equivalency, k_B of CODATA)
+    from calcservice.registry import get
+    body = dict(get("collision").example)
+    _, in_k = post(client, "/v1/winds/collision", body)
+    status, in_kev = post(client, "/v1/winds/collision", {**body, "units": {"post_shock_temperature1": "keV"}})
+    assert status == 200
+    kelvin, kev = in_k["results"]["post_shock_temperature1"], in_kev["results"]["post_shock_temperature1"]
+    per_k = (1 * u.K).to_value(u.keV, equivalencies=u.temperature_energy())
+    assert kev["unit"] == "keV" and abs(kev["value"] / (kelvin["value"] * per_k) - 1) < 4e-16
+    assert abs(kev["sigma"] / (kelvin["sigma"] * per_k) - 1) < 4e-16
+    # an electron temperature given as kT is the same input as in kelvin
+    radio = dict(get("mass-loss-radio").example)
+    t_k = 1.2e4
+    _, a = post(client, "/v1/winds/mass-loss/radio", {**radio, "temperature": t_k})
+    t_ev = (t_k * u.K).to_value(u.eV, equivalencies=u.temperature_energy())
+    _, b = post(client, "/v1/winds/mass-loss/radio", {**radio, "temperature": {"value": t_ev, "unit": "eV"}})
+    assert abs(b["results"]["mass_loss_rate"]["value"] / a["results"]["mass_loss_rate"]["value"] - 1) < 1e-14
+    # a Celsius temperature is no scale factor of a kelvin: still refused, naming the field and what it needs
+    status, p = post(client, "/v1/winds/mass-loss/radio", {**radio, "temperature": {"value": 20, "unit": "deg_C"}})
+    assert status == 422 and "an energy unit for kT" in p["errors"]["temperature"][0]
