@@ -167,6 +167,14 @@ def test_stagnation_inside_star_warning():
     assert nominal(r, "stagnation_distance2") < (10 * u.R_sun).to_value(u.au)
     assert "stagnation_inside_star2" in codes(r)
     assert "stagnation_inside_star2" not in codes(run("collision", {**base, "radius2": 0.3}))
+    message = next(w.message for w in r.warnings if w.code == "stagnation_inside_star2")
+    assert message.startswith("at the given separation")
+    # placed by an orbital phase, the warning says so (it said "at the given separation", which was not given)
+    orbit = {**base, "separation": None, "semimajor_axis": 0.1, "eccentricity": 0.0, "phase": 0.3, "radius2": 10.0}
+    orbit.pop("separation")
+    r = run("collision", orbit)
+    message = next(w.message for w in r.warnings if w.code == "stagnation_inside_star2")
+    assert message.startswith("at the given orbital phase"), message
 
 
 def test_orbit_periastron_apastron_and_phase():

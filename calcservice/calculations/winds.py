@@ -109,7 +109,10 @@ def _collision_check(inputs, outputs):
         out.append(Warning("eu93_out_of_range", f"the momentum ratio is below {EU93_LOWEST_ETA:g}, outside the range "
                            "of the Eichler & Usov (1993) fit (1e-4 <= eta <= 1); prefer opening_half_angle_crw96",
                            low))
-    places = (("", "at the given separation"), ("_periastron", "at periastron"), ("_apastron", "at apastron"))
+    # the separation is the one given, or the orbit's at the phase or true anomaly given
+    here = "at the given separation" if inputs.get("separation") is not None else \
+        "at the given true anomaly" if inputs.get("true_anomaly") is not None else "at the given orbital phase"
+    places = (("", here), ("_periastron", "at periastron"), ("_apastron", "at apastron"))
     for star in ("1", "2"):
         radius = inputs.get("radius" + star)
         if radius is None:
