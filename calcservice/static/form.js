@@ -15,7 +15,7 @@
     "solMass": ["solMass", "jupiterMass", "earthMass", "kg"], "au": ["au", "solRad", "km", "pc"],
     "mas": ["mas", "arcsec", "uas"], "pc": ["pc", "kpc", "lyr"], "kpc": ["kpc", "pc"],
     "solRad": ["solRad", "au", "km"], "solMass/yr": ["solMass/yr"], "mJy": ["mJy", "Jy", "uJy"],
-    "GHz": ["GHz", "MHz"], "K": ["K"], "s/yr": ["s/yr", "d/yr"],
+    "GHz": ["GHz", "MHz"], "K": ["K", "keV", "eV"], "s/yr": ["s/yr", "d/yr"],
   };
   const state = { calcs: [], byName: {}, calc: null, body: null, response: null, reportText: "" };
 
