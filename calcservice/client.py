@@ -1043,6 +1043,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         for member, extra in zip(("sigma", ) if len(parts) == 2 else ("sigma_minus", "sigma_plus"), parts[1:]):
             entry[member] = _sigma_array(label, extra, _unit_of(extra), unit)
     elif isinstance(col, Mapping):       # a contract column object
+        col = _object_quantities(col, label, spec)
         entry = {k: (_to_array(v, label) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
         if "value" not in entry:
             raise InvalidInput(f"{label}: a column object needs \"value\"")
@@ -1066,6 +1067,26 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
     if unit is not None and kind == "quantity":
         entry["unit"] = unit
     return entry
+
+
+def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, Any]) -> dict:
+    """A contract column object's Quantity members in numbers of the object's unit: the value's (its own unit
+    where the object gives none), each sigma's converted to the value's (the input's default unit without one)."""
+    col = dict(col)
+    value = col.get("value")
+    if _unit_of(value) is not None:
+        from astropy import units as u
+        col.setdefault("unit", _unit_of(value))
+        try:
+            col["value"] = value.to(u.Unit(col["unit"]))
+        except (u.UnitConversionError, ValueError, TypeError):
+            raise InvalidInput(f"{label}: its value's unit {_unit_of(value)!r} does not convert to its unit "
+                               f"{col['unit']!r}") from None
+    for member in ("sigma", "sigma_minus", "sigma_plus"):
+        if _unit_of(col.get(member)) is not None:
+            target = col.get("unit") if col.get("unit") is not None else spec.get("unit")
+            col[member] = _sigma_array(label, col[member], _unit_of(col[member]), target)
+    return col
 
 
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:

@@ -524,3 +524,34 @@ def test_a_tuple_or_object_holding_no_json_value_is_refused_naming_the_input(loc
     with pytest.raises(InvalidInput, match="^k1: ") as e:
         local.calculate("sb1", period=41.6, eccentricity=0.31, k1=k1(pd, Decimal))
     assert list(e.value.errors) == ["k1"]
+
+
+# --- 14. the client's contract column object holding Quantities: their units, not the default ----------
+
+@pytest.mark.parametrize("k1", [
+    {"value": [23400.0, 20000.0] * u.m / u.s},                                   # was read as 23400 km/s
+    {"value": [23400.0, 20000.0] * u.m / u.s, "sigma": [100.0, 200.0] * u.m / u.s},
+    {"value": [23.4, 20.0], "sigma": [100.0, 200.0] * u.m / u.s},                 # sigma was read as 100 km/s
+    {"value": [23.4, 20.0], "sigma": [0.1, 0.2] * u.km / u.s, "unit": "km/s"},
+    {"value": [23400.0, 20000.0] * u.m / u.s, "sigma": [0.1, 0.2], "unit": "km/s"},   # the object's unit: sigma's
+])
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_a_column_object_of_quantities_is_read_in_their_units(k1, transport):
+    from calcservice.client import Client
+    out = Client("local", transport=transport).batch("sb1", {"period": [41.6, 20.0], "eccentricity": [0.31, 0.1],
+                                                             "k1": k1})
+    table = out.to_table()
+    sigmas = [0.1, 0.2] if "sigma" in k1 else [0.0, 0.0]
+    for k, (period, k1_kms, e) in enumerate([(41.6, 23.4, 0.31), (20.0, 20.0, 0.1)]):
+        f = float(table["mass_function"].unmasked[k].value)
+        assert f == pytest.approx(mass_function(period, k1_kms, e), rel=1e-12)
+        # f(M) goes as K1^3: its relative sigma is three times K1's (first order)
+        assert float(table["mass_function_sigma"].unmasked[k].value) / f == pytest.approx(3 * sigmas[k] / k1_kms,
+                                                                                          rel=1e-6, abs=1e-15)
+
+
+def test_a_column_objects_quantity_of_the_wrong_kind_is_refused_naming_it(local):
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput, match="^k1"):
+        local.batch("sb1", {"period": [41.6], "eccentricity": [0.31],
+                            "k1": {"value": [23.4] * u.km / u.s, "sigma": [0.1] * u.s}})
