@@ -8,6 +8,7 @@ or the answer it should have had, never a traceback."""
 from __future__ import annotations
 
 import warnings
+from pathlib import Path
 
 import astropy.units as u
 import numpy as np
@@ -555,3 +556,32 @@ def test_a_column_objects_quantity_of_the_wrong_kind_is_refused_naming_it(local)
     with pytest.raises(InvalidInput, match="^k1"):
         local.batch("sb1", {"period": [41.6], "eccentricity": [0.31],
                             "k1": {"value": [23.4] * u.km / u.s, "sigma": [0.1] * u.s}})
+
+
+# --- 15. the server: a transfer coding it does not take ------------------------------------------------
+
+@pytest.mark.server
+@pytest.mark.parametrize("coding", ["foo", "compress, chunked"])
+def test_a_transfer_coding_the_server_does_not_take_is_a_4xx_naming_the_header(coding):
+    from tests.test_public import Served, assert_problem, exchange
+    import tempfile
+    # gunicorn's 501 was answered "the server failed on this request; it has been logged", naming nothing
+    served = Served(Path(tempfile.mkdtemp()), {})
+    try:
+        body = b'{"period": 41.6, "k1": 23.4, "eccentricity": 0.31}'
+        status, headers, reply, _ = exchange(served.port, b"POST /v1/spectroscopic/sb1 HTTP/1.1\r\nHost: localhost\r\n"
+                                             b"Content-Type: application/json\r\nTransfer-Encoding: " + coding.encode()
+                                             + b"\r\nConnection: close\r\n\r\n" + b"%x\r\n" % len(body) + body
+                                             + b"\r\n0\r\n\r\n")
+        doc = assert_problem(status, headers, reply, 400)
+        assert list(doc["errors"]) == ["Transfer-Encoding"] and "chunked" in doc["detail"], doc
+    finally:
+        served.stop()
+
+
+@pytest.mark.parametrize("coding", ["gzip, chunked", "compress, chunked", "deflate"])
+def test_a_transfer_coding_other_than_chunked_is_refused_naming_it(client, coding):
+    # gunicorn passes a body "gzip, chunked" de-chunked but not inflated: its bytes were read as they came
+    r = client.post(SB1, data=b'{"period": 41.6, "k1": 23.4, "eccentricity": 0.31}',
+                    headers={"Content-Type": "application/json", "Transfer-Encoding": coding})
+    assert list(problem(r, 400)["errors"]) == ["Transfer-Encoding"]
