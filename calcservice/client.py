@@ -855,7 +855,8 @@ class InputTable:
             items = [(str(k), data[k]) for k in data.columns]
             given = data.attrs.get("units") or {}
             if not isinstance(given, Mapping):
-                raise InvalidInput(f"units: the DataFrame's attrs['units'] maps a column to its unit ({{'period': 'd'}}), "
+                raise InvalidInput("units: the DataFrame's attrs['units'] maps a column to its unit "
+                                   f"({{'period': 'd'}}), "
                                    f"not {type(given).__name__}")
             units = {**given, **units}
         elif isinstance(data, Mapping):
@@ -1101,7 +1102,7 @@ def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None)
         except u.UnitConversionError:
             raise InvalidInput(f"{label}: its unit {unit!r} does not convert to the value's "
                              f"{value_unit or 'dimensionless'!r}") from None
-        except (ValueError, TypeError):         # a unit astropy cannot read (a file's 'blah'), the sigma's or the value's
+        except (ValueError, TypeError):         # a unit astropy cannot read ('blah' in a file), either one
             raise InvalidInput(f"{label}: its unit {unit!r} or its value's {value_unit!r} is not a unit astropy "
                                "can read") from None
     return arr
@@ -1178,8 +1179,8 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
         for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
             if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
-                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity inside "
-                                   "the contract's object: give the Quantity as the input itself, a (value, sigma) "
+                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity "
+                                   "inside the contract's object: give the Quantity as the input itself, a (value, sigma) "
                                    'tuple of Quantities, or plain numbers with "unit"')
             if member != "samples":
                 _finite(_plain(value.get(member)), decl)
@@ -1210,7 +1211,8 @@ def _tuple_parts(value: tuple, decl: Mapping[str, Any] | None) -> tuple[list, st
         try:
             parts = [parts[0].value] + [p.to_value(first) for p in parts[1:]]
         except u.UnitConversionError:
-            raise InvalidInput(f"{name}: the sigma's unit does not convert to the value's {first.to_string()!r}") from None
+            raise InvalidInput(f"{name}: the sigma's unit does not convert to the value's "
+                               f"{first.to_string()!r}") from None
         unit = first.to_string()
     return [_plain(p) for p in parts], unit
 

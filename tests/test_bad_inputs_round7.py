@@ -87,7 +87,8 @@ def test_the_clients_column_with_an_integer_beyond_a_double_is_refused_or_that_s
         return
     out = c.batch("sb1", data)
     assert out.failed == [0] and "not finite" in out.error_text()[0]
-    assert float(out.to_table()["mass_function"].unmasked[1].value) == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+    f = float(out.to_table()["mass_function"].unmasked[1].value)
+    assert f == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
 
 
 # --- 3. the client's refusal of a column is its InvalidInput (a CalcServiceError), naming it ----------
@@ -413,7 +414,8 @@ def test_fuzzed_json_bodies_are_answered_or_refused_naming_a_field(client):
                        for k, v in body.items() if k not in ("uncertainty", "correlations", "units", "covariance",
                                                              "budget", "time_format")}
             r = client.post(f"/v1/batch/{calc.name}", content_type="application/json",
-                            data=json.dumps({"columns": columns, **{k: v for k, v in body.items() if k not in columns}}))
+                            data=json.dumps({"columns": columns,
+                                             **{k: v for k, v in body.items() if k not in columns}}))
         _answered_or_named(r)
 
     check()

@@ -168,7 +168,8 @@ def read_body(limits=None) -> bytes:
             # gunicorn takes gzip, deflate and compress before chunked and decodes none of them
             raise Problem(400, f"Transfer-Encoding {transfer[:60]!r} is not decoded here: send the body as it is or "
                                "chunked, and a compressed one with Content-Encoding: gzip",
-                          {"Transfer-Encoding": ["only chunked is taken (Content-Encoding: gzip for a compressed body)"]})
+                          {"Transfer-Encoding": ["only chunked is taken (Content-Encoding: gzip for a compressed "
+                                                 "body)"]})
     coding = environ.get("HTTP_CONTENT_ENCODING", "").strip().lower()
     if coding and coding != "identity":
         if coding not in ("gzip", "x-gzip"):
