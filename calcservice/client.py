@@ -650,6 +650,8 @@ class Client:
                                f"({{\"period\": 41.6, \"k1\": (38.2, 0.4), ...}}), not {type(row).__name__}; a batch "
                                "also takes an astropy Table or QTable, a pandas DataFrame or a mapping of columns")
         if _is_rows(data):
+            if not data:        # as the service refuses it: nothing would be sent, nor any option checked
+                raise InvalidInput("systems: the list of rows is empty: give at least one system")
             if units:
                 raise InvalidInput("units: units= gives the units of a table's columns; a list of rows gives each "
                                    "input's unit in its row (output_units= asks for outputs in other units)")
@@ -657,6 +659,8 @@ class Client:
                 raise InvalidInput("keep: keep= carries columns of a table into the answer; a list of rows has none")
             return self._batch_rows(path, decl, list(data), opts, show)
         table = InputTable.from_data(data, decl, units=units, keep=keep, strict=strict)
+        if table.count == 0:
+            raise InvalidInput("columns: the table has no rows: give at least one system")
         return self._batch_columns(path, table, opts, show)
 
     def _rows_per_request(self, opts: Mapping[str, Any]) -> int:

@@ -587,3 +587,26 @@ def test_a_transfer_coding_other_than_chunked_is_refused_naming_it(client, codin
     r = client.post(SB1, data=b'{"period": 41.6, "k1": 23.4, "eccentricity": 0.31}',
                     headers={"Content-Type": "application/json", "Transfer-Encoding": coding})
     assert list(problem(r, 400)["errors"]) == ["Transfer-Encoding"]
+
+
+# --- 16. the client's catalogue of no systems ------------------------------------------------------------
+
+@pytest.mark.parametrize("data, field", [
+    ([], "systems"),
+    ({"period": [], "k1": [], "eccentricity": []}, "columns"),
+    ("empty frame", "columns"),
+])
+def test_a_catalogue_of_no_systems_is_refused_as_the_service_refuses_it(local, data, field):
+    import pandas as pd
+
+    from calcservice.client import InvalidInput
+    if data == "empty frame":
+        data = pd.DataFrame({"period[d]": [], "k1[km/s]": [], "eccentricity": []})
+    # nothing was sent: an empty answer came back without its outputs' columns, and bad options were never checked
+    with pytest.raises(InvalidInput, match=f"^{field}: ") as e:
+        local.batch("sb1", data, method="bootstrap")
+    assert list(e.value.errors) == [field]
+    # the service says the same of the same batch
+    r = create_app().test_client().post("/v1/batch/sb1", json={"systems": []} if field == "systems" else
+                                        {"columns": {"period": [], "k1": [], "eccentricity": []}})
+    assert list(problem(r, 422)["errors"]) == [field]
