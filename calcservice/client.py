@@ -1144,6 +1144,10 @@ def _plain(x):
 def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     """One input in a form of the wire contract."""
     kind = (decl or {}).get("kind", "quantity")
+    if isinstance(value, (_dt.datetime, _dt.date)):          # pandas' Timestamp too, whose unit is no astropy unit
+        return value.isoformat()
+    if isinstance(value, np.datetime64):        # numpy's date: its ISO text (NaT: not given); its tolist() counts ns
+        return None if np.isnat(value) else str(np.datetime_as_string(value))
     if hasattr(value, "unit") and hasattr(value, "value") and not isinstance(value, Mapping):
         # an astropy Quantity: its number in its own unit
         v = _plain(value.value)
@@ -1152,8 +1156,6 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         if kind == "series":
             return {"value": v, "unit": unit}
         return {"samples": v, "unit": unit} if isinstance(v, list) else {"value": v, "unit": unit}
-    if isinstance(value, (_dt.datetime, _dt.date)):
-        return value.isoformat()
     if _is_ufloat(value) and kind == "quantity":
         # an uncertainties number (a fit's result): its nominal value and standard deviation
         _finite(value.nominal_value, decl)

@@ -610,3 +610,28 @@ def test_a_catalogue_of_no_systems_is_refused_as_the_service_refuses_it(local, d
     r = create_app().test_client().post("/v1/batch/sb1", json={"systems": []} if field == "systems" else
                                         {"columns": {"period": [], "k1": [], "eccentricity": []}})
     assert list(problem(r, 422)["errors"]) == [field]
+
+
+# --- 17. the client's dates from numpy and pandas -------------------------------------------------------
+
+@pytest.mark.parametrize("t_periastron", [
+    lambda np, pd: pd.Timestamp("2019-08-20T12:00"),                   # an AttributeError: taken for a Quantity
+    lambda np, pd: pd.Timestamp("2019-08-20T14:00", tz="Europe/Paris"),  # the same instant, two hours east
+    lambda np, pd: np.datetime64("2019-08-20T12:00"),                  # refused: "a datetime is no value"
+    lambda np, pd: np.datetime64("2019-08-20T12:00:00.000000000"),     # sent as an integer of nanoseconds
+])
+def test_a_date_from_numpy_or_pandas_is_taken_as_the_datetime_it_holds(local, t_periastron):
+    import datetime as dt
+    G = dict(period=2037.4, eccentricity=0.3, omega=243.6, k1=61.2, times=[2460400.5])
+    expected = local.calculate("ephemeris", **G, t_periastron=dt.datetime(2019, 8, 20, 12))
+    r = local.calculate("ephemeris", **G, t_periastron=t_periastron(np, __import__("pandas")))
+    assert r["results"]["series"]["rv1"]["value"] == pytest.approx(expected["results"]["series"]["rv1"]["value"],
+                                                                   rel=1e-12)
+
+
+def test_a_missing_numpy_date_is_said_to_be_missing(local):
+    from calcservice.client import CalcServiceError
+    with pytest.raises(CalcServiceError) as e:
+        local.calculate("ephemeris", period=2037.4, eccentricity=0.3, omega=243.6, k1=61.2, times=[2460400.5],
+                        t_periastron=np.datetime64("NaT"))
+    assert list(e.value.errors) == ["t_periastron"]
