@@ -131,6 +131,9 @@ class Result(dict):
         results = self.get("results") or {}
         if name not in results or not isinstance(results[name], Mapping):
             raise KeyError(f"no output {name!r}; this answer has {', '.join(results)}")
+        if isinstance(results[name].get("value"), (list, Mapping)) or "value" not in results[name]:
+            # a series or a list of events: read as one number, its missing value was NaN
+            raise KeyError(f"{name!r} is no one number (a series or events): read it from result['results'][{name!r}]")
         return results[name]
 
     def quantity(self, name: str):

@@ -635,3 +635,15 @@ def test_a_missing_numpy_date_is_said_to_be_missing(local):
         local.calculate("ephemeris", period=2037.4, eccentricity=0.3, omega=243.6, k1=61.2, times=[2460400.5],
                         t_periastron=np.datetime64("NaT"))
     assert list(e.value.errors) == ["t_periastron"]
+
+
+# --- 18. the client's one-number conversions of what is no one number -----------------------------------
+
+@pytest.mark.parametrize("name", ["series", "events"])
+@pytest.mark.parametrize("convert", ["quantity", "ufloat"])
+def test_a_series_or_events_asked_for_as_one_number_is_refused_naming_it(local, name, convert):
+    r = local.calculate("ephemeris", period=2037.4, eccentricity=0.3, omega=243.6, t_periastron=2458712.3,
+                        k1=(61.2, 1.0), times=[2460400.5, 2460401.5])
+    # a NaN (nan+/-0 for ufloat) came back, as though the service had answered one
+    with pytest.raises(KeyError, match=name):
+        getattr(r, convert)(name)
