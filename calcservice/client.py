@@ -786,10 +786,14 @@ def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
     """How many systems one batch request may hold under ``limits`` with these options (rows, and for
     Monte Carlo systems x draws)."""
     rows = int(limits.get("max_batch_rows", DEFAULT_LIMITS["max_batch_rows"]))
-    unc = opts.get("uncertainty") or {}
+    unc = opts.get("uncertainty") if isinstance(opts.get("uncertainty"), Mapping) else {}
     implied = "monte_carlo" if "samples" in unc or "seed" in unc else "linear"     # as the service reads it
-    if unc.get("method", implied).replace("-", "_") == "monte_carlo":
-        draws = int(unc.get("samples") or limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
+    method = unc.get("method", implied)
+    if isinstance(method, str) and method.replace("-", "_") == "monte_carlo":
+        # a count that is no whole number is the service's to refuse, naming it: the default here
+        samples = unc.get("samples")
+        draws = samples if type(samples) is int and samples > 0 else \
+            int(limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
         rows = min(rows, int(limits.get("max_batch_draws", DEFAULT_LIMITS["max_batch_draws"])) // max(1, draws))
     return max(1, rows)
 
@@ -888,6 +892,7 @@ class InputTable:
         scalars: dict[str, Any] = {}
         unknown = []
         for label, col in items:
+            col = _quantity_list(col, label)
             if label in keep:
                 kept[label] = col
                 continue
@@ -1027,6 +1032,8 @@ def _to_array(col: Any, label: str) -> np.ndarray:
         raise
     except ValueError as e:
         raise InvalidInput(str(e)) from None
+    except TypeError:           # numpy's, of entries it cannot hold (lists of Quantities in a list)
+        raise InvalidInput(f"{label}: a column is one number (or text) per system") from None
 
 
 def _is_missing(arr: np.ndarray) -> np.ndarray:
@@ -1081,6 +1088,11 @@ def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, An
     """A contract column object's Quantity members in numbers of the object's unit: the value's (its own unit
     where the object gives none), each sigma's converted to the value's (the input's default unit without one)."""
     col = dict(col)
+    if col.get("unit") is not None and not isinstance(col["unit"], str):
+        if not _is_unit(col["unit"]):
+            raise InvalidInput(f"{label}: its unit is a string such as 'd' or an astropy unit, not "
+                               f"{type(col['unit']).__name__}")
+        col["unit"] = _unit_text(col["unit"])
     value = col.get("value")
     if _unit_of(value) is not None:
         from astropy import units as u
@@ -1138,15 +1150,36 @@ def dumps(body: Any) -> bytes:
 
 
 def _plain(x):
-    """numpy scalars and arrays as Python numbers and lists."""
-    if hasattr(x, "tolist") and not isinstance(x, (str, bytes)):
+    """numpy scalars and arrays as Python numbers and lists (an astropy Quantity as it is: its numbers alone
+    would lose its unit)."""
+    if hasattr(x, "tolist") and not isinstance(x, (str, bytes)) and not _is_quantity(x):
         return x.tolist()
     return x
+
+
+def _is_quantity(x: Any) -> bool:
+    return hasattr(x, "unit") and hasattr(x, "value") and hasattr(getattr(x, "unit"), "to_string")
+
+
+def _quantity_list(col: Any, label: str) -> Any:
+    """A list of astropy Quantities (one per system, or a system's samples) as one Quantity array, in the
+    first one's unit (what astropy makes of it); one that mixes Quantities with plain numbers, or units of
+    different kinds, is refused naming ``label``.  Anything else as it is."""
+    if not isinstance(col, list) or not any(_is_quantity(v) and np.ndim(v) == 0 for v in col):
+        return col
+    from astropy import units as u
+    try:
+        return u.Quantity(list(col))
+    except (u.UnitsError, TypeError, ValueError):
+        raise InvalidInput(f"{label}: a list of Quantities must give each entry as a Quantity of one kind of unit "
+                           "(or give one Quantity array)") from None
 
 
 def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     """One input in a form of the wire contract."""
     kind = (decl or {}).get("kind", "quantity")
+    if isinstance(value, list) and kind != "series":
+        value = _quantity_list(value, (decl or {}).get("name", "an input"))
     if isinstance(value, (_dt.datetime, _dt.date)):          # pandas' Timestamp too, whose unit is no astropy unit
         return value.isoformat()
     if isinstance(value, np.datetime64):        # numpy's date: its ISO text (NaT: not given); its tolist() counts ns
@@ -1186,6 +1219,11 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return None
     _finite(value, decl)
     if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
+        if value.get("unit") is not None and not isinstance(value["unit"], str):
+            if not _is_unit(value["unit"]):
+                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its unit is a string such as 'd' or an "
+                                   f"astropy unit, not {type(value['unit']).__name__}")
+            value = {**value, "unit": _unit_text(value["unit"])}
         for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
             if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
                 raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity "
@@ -1194,6 +1232,10 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
             if member != "samples":
                 _finite(_plain(value.get(member)), decl)
                 _json_number(_plain(value.get(member)), decl)
+        _json_values({k: _plain(v) for k, v in value.items()}, (decl or {}).get("name", "an input"))
+    if isinstance(value, list):
+        for v in value:
+            _json_number(_plain(v), decl)
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
@@ -1296,7 +1338,7 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
             correlations = [dict(c) if isinstance(c, Mapping) else c for c in correlations]
             for k, c in enumerate(correlations):
                 _finite_option(_plain(c.get("rho")) if isinstance(c, Mapping) else None, f"correlations.{k}.rho")
-        if correlations != []:
+        if not (isinstance(correlations, list) and not correlations):
             out["correlations"] = correlations
     if units is not None:
         # an astropy unit is sent as its string, as a batch's column units= takes it
@@ -1305,13 +1347,28 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
         out["time_format"] = time_format
     if covariance is not False and covariance is not None:
         out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
+    _json_values(out, "")
     return out
+
+
+def _json_values(x: Any, where: str) -> None:
+    """An option's value JSON cannot carry (a Quantity, a Decimal, a date), refused naming it (``where``): the
+    encoder's TypeError named none; what JSON carries goes as it is, for the service to judge."""
+    if isinstance(x, Mapping):
+        for k, v in x.items():
+            _json_values(v, f"{where}.{k}" if where else str(k))
+    elif isinstance(x, (list, tuple)):
+        for k, v in enumerate(x):
+            _json_values(v, f"{where}.{k}")
+    elif x is not None and not isinstance(x, (str, int, float, np.bool_, np.integer, np.floating, _dt.date)):
+        raise InvalidInput(f"{where}: a {type(x).__name__} is no value of this option (give a number, a string, "
+                           "true or false, a list or a mapping, as the request's JSON takes them)")
 
 
 def _json_number(x: Any, decl: Mapping[str, Any] | None) -> None:
     """A part of a tuple or a member of the contract's object that JSON cannot carry (pandas' NA, a Decimal)
     refused naming the input, as the same given alone is (the encoder's TypeError named none)."""
-    if x is not None and not isinstance(x, (str, int, float, list, np.generic)):
+    if x is not None and not isinstance(x, (str, int, float, list, np.generic, _dt.date)):   # a date: its ISO text
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(x).__name__} is no number of the wire "
                            "contract (give a float, or NaN or None for a value not given)")
 

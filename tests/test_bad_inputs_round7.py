@@ -649,3 +649,49 @@ def test_a_series_or_events_asked_for_as_one_number_is_refused_naming_it(local, 
     # a NaN (nan+/-0 for ufloat) came back, as though the service had answered one
     with pytest.raises(KeyError, match=name):
         getattr(r, convert)(name)
+
+
+# --- 19. the client's lists of Quantities and options JSON cannot carry ---------------------------------
+
+def test_a_list_of_quantities_is_read_in_their_units(local):
+    # a TypeError of numpy ("only dimensionless scalar quantities can be converted") and of the JSON encoder
+    out = local.batch("sb1", {"period": [0.1139 * u.yr, 20.0 * u.d], "k1": [23.4, 20.0], "eccentricity": [0.31, 0.1]})
+    # 0.1139 Julian years of 365.25 d (IAU)
+    assert list(out["mass_function"]) == pytest.approx([mass_function(0.1139 * 365.25, 23.4, 0.31),
+                                                        mass_function(20.0, 20.0, 0.1)], rel=1e-12)
+    r = local.calculate("sb1", period=41.6, eccentricity=0.31, k1=[23.4 * u.km / u.s, 23500.0 * u.m / u.s])
+    assert r["inputs"]["k1"]["samples"] == 2 and r["inputs"]["k1"]["value"] == pytest.approx(23.45, rel=1e-12)
+
+
+@pytest.mark.parametrize("call, kwargs, field", [
+    ("batch", {"period": [41.6 * u.d, 20.0]}, "period"),                   # a Quantity beside a plain number
+    ("batch", {"period": [41.6 * u.d, 20.0 * u.km]}, "period"),
+    ("calculate", {"seed": 3 * u.s}, "uncertainty.seed"),                  # a TypeError of the encoder
+    ("calculate", {"correlations": {("k1", "period"): 0.5 * u.km}}, "correlations.0.rho"),  # a NotImplementedError
+    ("batch", {"samples": 200 * u.d}, "uncertainty.samples"),              # a TypeError of int() on the Quantity
+    ("batch", {"method": 5}, "uncertainty.method"),                       # an AttributeError ('int' has no replace)
+    ("calculate", {"k1": [23.4, 1 + 2j]}, "k1"),                           # samples: a TypeError of the encoder
+])
+def test_the_clients_quantity_or_value_of_the_wrong_kind_is_refused_naming_it(local, call, kwargs, field):
+    from calcservice.client import CalcServiceError
+    inputs = {"period": [41.6, 20.0], "k1": ([23.4, 20.0], [0.1, 0.1]), "eccentricity": [0.31, 0.1]}
+    options = {k: v for k, v in kwargs.items() if k not in inputs}
+    with pytest.raises(CalcServiceError) as e:
+        if call == "batch":
+            local.batch("sb1", {**inputs, **{k: v for k, v in kwargs.items() if k in inputs}}, **options)
+        else:
+            local.calculate("sb1", **{"period": (41.6, 0.1), "k1": (23.4, 0.1), "eccentricity": 0.31, **kwargs})
+    assert list(e.value.errors) == [field], e.value.errors
+
+
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_a_column_of_decimals_or_fractions_is_read_as_the_numbers_they_are(transport):
+    from decimal import Decimal
+    from fractions import Fraction
+
+    from calcservice.client import Client
+    # the JSON transport failed with the encoder's TypeError (Arrow read them)
+    out = Client("local", transport=transport).batch(
+        "sb1", {"period": [Decimal("41.6"), Fraction(20)], "k1": [23.4, 20.0], "eccentricity": [0.31, 0.1]})
+    assert list(out["mass_function"]) == pytest.approx([mass_function(41.6, 23.4, 0.31), mass_function(20.0, 20.0, 0.1)],
+                                                       rel=1e-12)
