@@ -695,3 +695,45 @@ def test_a_column_of_decimals_or_fractions_is_read_as_the_numbers_they_are(trans
         "sb1", {"period": [Decimal("41.6"), Fraction(20)], "k1": [23.4, 20.0], "eccentricity": [0.31, 0.1]})
     assert list(out["mass_function"]) == pytest.approx([mass_function(41.6, 23.4, 0.31), mass_function(20.0, 20.0, 0.1)],
                                                        rel=1e-12)
+
+
+def test_fuzzed_client_inputs_are_answered_or_refused_as_its_errors(local):
+    import datetime as dt
+    import decimal
+
+    import pandas as pd
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+    from uncertainties import ufloat
+
+    from calcservice.client import CalcServiceError
+    from calcservice.registry import calculations
+    calcs = list(calculations().values())
+    units = [u.d, u.km / u.s, u.m / u.s, u.deg, u.kg, u.percent, u.mas, u.yr]
+    atoms = st.one_of(
+        st.floats(), st.integers(-10 ** 30, 10 ** 30), st.booleans(), st.none(), st.text(max_size=4),
+        st.sampled_from([np.nan, np.float32(1.5), np.int64(3), decimal.Decimal("1.5"), pd.NA, pd.NaT, 1 + 2j,
+                         np.datetime64("2020-01-01"), pd.Timestamp("2020-01-01"), dt.date(2020, 1, 1), b"x",
+                         np.array(1.5), np.array([1.5, 2.5]), "isotropic", ufloat(1.5, 0.1)]),
+        st.builds(lambda v, unit: v * unit, st.floats(-1e3, 1e3), st.sampled_from(units)))
+    values = st.one_of(atoms, st.tuples(atoms, atoms), st.tuples(atoms, atoms, st.sampled_from(["km/s", u.d])),
+                       st.lists(atoms, max_size=3),
+                       st.dictionaries(st.sampled_from(["value", "sigma", "unit", "samples", "x"]), atoms, max_size=3))
+    options = st.fixed_dictionaries({}, optional={"samples": atoms, "seed": atoms, "method": atoms, "covariance": atoms,
+                                                  "time_format": atoms, "correlations": atoms})
+
+    @settings(max_examples=50, derandomize=True, deadline=None, suppress_health_check=list(HealthCheck))
+    @given(st.sampled_from(calcs), st.data())
+    def check(calc, data):
+        body = {k: v for k, v in calc.example.items() if k != "correlations"}
+        name = data.draw(st.sampled_from([spec.name for spec in calc.inputs]))
+        body[name] = data.draw(values)
+        opts = data.draw(options)
+        try:
+            if data.draw(st.booleans()):
+                local.calculate(calc.name, **opts, **body)
+            else:
+                local.batch(calc.name, [body, dict(body)], **opts)
+        except CalcServiceError as e:       # the service's problem, or the client's InvalidInput: named
+            assert e.errors, e
+    check()
