@@ -131,6 +131,9 @@ class Result(dict):
         results = self.get("results") or {}
         if name not in results or not isinstance(results[name], Mapping):
             raise KeyError(f"no output {name!r}; this answer has {', '.join(results)}")
+        if isinstance(results[name].get("value"), (list, Mapping)) or "value" not in results[name]:
+            # a series or a list of events: read as one number, its missing value was NaN
+            raise KeyError(f"{name!r} is no one number (a series or events): read it from result['results'][{name!r}]")
         return results[name]
 
     def quantity(self, name: str):
@@ -669,6 +672,8 @@ class Client:
                                f"({{\"period\": 41.6, \"k1\": (38.2, 0.4), ...}}), not {type(row).__name__}; a batch "
                                "also takes an astropy Table or QTable, a pandas DataFrame or a mapping of columns")
         if _is_rows(data):
+            if not data:        # as the service refuses it: nothing would be sent, nor any option checked
+                raise InvalidInput("systems: the list of rows is empty: give at least one system")
             if units:
                 raise InvalidInput("units: units= gives the units of a table's columns; a list of rows gives each "
                                    "input's unit in its row (output_units= asks for outputs in other units)")
@@ -676,6 +681,8 @@ class Client:
                 raise InvalidInput("keep: keep= carries columns of a table into the answer; a list of rows has none")
             return self._batch_rows(path, decl, list(data), opts, show)
         table = InputTable.from_data(data, decl, units=units, keep=keep, strict=strict)
+        if table.count == 0:
+            raise InvalidInput("columns: the table has no rows: give at least one system")
         return self._batch_columns(path, table, opts, show)
 
     def _rows_per_request(self, opts: Mapping[str, Any]) -> int:
@@ -798,10 +805,14 @@ def rows_per_request(limits: Mapping[str, int], opts: Mapping[str, Any]) -> int:
     """How many systems one batch request may hold under ``limits`` with these options (rows, and for
     Monte Carlo systems x draws)."""
     rows = int(limits.get("max_batch_rows", DEFAULT_LIMITS["max_batch_rows"]))
-    unc = opts.get("uncertainty") or {}
+    unc = opts.get("uncertainty") if isinstance(opts.get("uncertainty"), Mapping) else {}
     implied = "monte_carlo" if "samples" in unc or "seed" in unc else "linear"     # as the service reads it
-    if unc.get("method", implied).replace("-", "_") == "monte_carlo":
-        draws = int(unc.get("samples") or limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
+    method = unc.get("method", implied)
+    if isinstance(method, str) and method.replace("-", "_") == "monte_carlo":
+        # a count that is no whole number is the service's to refuse, naming it: the default here
+        samples = unc.get("samples")
+        draws = samples if type(samples) is int and samples > 0 else \
+            int(limits.get("default_samples", DEFAULT_LIMITS["default_samples"]))
         rows = min(rows, int(limits.get("max_batch_draws", DEFAULT_LIMITS["max_batch_draws"])) // max(1, draws))
     return max(1, rows)
 
@@ -874,7 +885,8 @@ class InputTable:
             items = [(str(k), data[k]) for k in data.columns]
             given = data.attrs.get("units") or {}
             if not isinstance(given, Mapping):
-                raise InvalidInput(f"units: the DataFrame's attrs['units'] maps a column to its unit ({{'period': 'd'}}), "
+                raise InvalidInput("units: the DataFrame's attrs['units'] maps a column to its unit "
+                                   f"({{'period': 'd'}}), "
                                    f"not {type(given).__name__}")
             units = {**given, **units}
         elif isinstance(data, Mapping):
@@ -895,6 +907,7 @@ class InputTable:
         scalars: dict[str, Any] = {}
         unknown = []
         for label, col in items:
+            col = _quantity_list(col, label)
             if label in keep:
                 kept[label] = col
                 continue
@@ -1034,6 +1047,8 @@ def _to_array(col: Any, label: str) -> np.ndarray:
         raise
     except ValueError as e:
         raise InvalidInput(str(e)) from None
+    except TypeError:           # numpy's, of entries it cannot hold (lists of Quantities in a list)
+        raise InvalidInput(f"{label}: a column is one number (or text) per system") from None
 
 
 def _is_missing(arr: np.ndarray) -> np.ndarray:
@@ -1058,6 +1073,7 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
         for member, extra in zip(("sigma", ) if len(parts) == 2 else ("sigma_minus", "sigma_plus"), parts[1:]):
             entry[member] = _sigma_array(label, extra, _unit_of(extra), unit)
     elif isinstance(col, Mapping):       # a contract column object
+        col = _object_quantities(col, label, spec)
         entry = {k: (_to_array(v, label) if isinstance(v, (list, np.ndarray)) else v) for k, v in col.items()}
         if "value" not in entry:
             raise InvalidInput(f"{label}: a column object needs \"value\"")
@@ -1083,6 +1099,31 @@ def _column_entry(spec: Mapping[str, Any], label: str, col: Any, unit: str | Non
     return entry
 
 
+def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, Any]) -> dict:
+    """A contract column object's Quantity members in numbers of the object's unit: the value's (its own unit
+    where the object gives none), each sigma's converted to the value's (the input's default unit without one)."""
+    col = dict(col)
+    if col.get("unit") is not None and not isinstance(col["unit"], str):
+        if not _is_unit(col["unit"]):
+            raise InvalidInput(f"{label}: its unit is a string such as 'd' or an astropy unit, not "
+                               f"{type(col['unit']).__name__}")
+        col["unit"] = _unit_text(col["unit"])
+    value = col.get("value")
+    if _unit_of(value) is not None:
+        from astropy import units as u
+        col.setdefault("unit", _unit_of(value))
+        try:
+            col["value"] = value.to(u.Unit(col["unit"]))
+        except (u.UnitConversionError, ValueError, TypeError):
+            raise InvalidInput(f"{label}: its value's unit {_unit_of(value)!r} does not convert to its unit "
+                               f"{col['unit']!r}") from None
+    for member in ("sigma", "sigma_minus", "sigma_plus"):
+        if _unit_of(col.get(member)) is not None:
+            target = col.get("unit") if col.get("unit") is not None else spec.get("unit")
+            col[member] = _sigma_array(label, col[member], _unit_of(col[member]), target)
+    return col
+
+
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
     arr = _to_array(col, label)
     if arr.dtype.kind != "f":
@@ -1095,7 +1136,7 @@ def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None)
         except u.UnitConversionError:
             raise InvalidInput(f"{label}: its unit {unit!r} does not convert to the value's "
                              f"{value_unit or 'dimensionless'!r}") from None
-        except (ValueError, TypeError):         # a unit astropy cannot read (a file's 'blah'), the sigma's or the value's
+        except (ValueError, TypeError):         # a unit astropy cannot read ('blah' in a file), either one
             raise InvalidInput(f"{label}: its unit {unit!r} or its value's {value_unit!r} is not a unit astropy "
                                "can read") from None
     return arr
@@ -1124,15 +1165,40 @@ def dumps(body: Any) -> bytes:
 
 
 def _plain(x):
-    """numpy scalars and arrays as Python numbers and lists."""
-    if hasattr(x, "tolist") and not isinstance(x, (str, bytes)):
+    """numpy scalars and arrays as Python numbers and lists (an astropy Quantity as it is: its numbers alone
+    would lose its unit)."""
+    if hasattr(x, "tolist") and not isinstance(x, (str, bytes)) and not _is_quantity(x):
         return x.tolist()
     return x
+
+
+def _is_quantity(x: Any) -> bool:
+    return hasattr(x, "unit") and hasattr(x, "value") and hasattr(getattr(x, "unit"), "to_string")
+
+
+def _quantity_list(col: Any, label: str) -> Any:
+    """A list of astropy Quantities (one per system, or a system's samples) as one Quantity array, in the
+    first one's unit (what astropy makes of it); one that mixes Quantities with plain numbers, or units of
+    different kinds, is refused naming ``label``.  Anything else as it is."""
+    if not isinstance(col, list) or not any(_is_quantity(v) and np.ndim(v) == 0 for v in col):
+        return col
+    from astropy import units as u
+    try:
+        return u.Quantity(list(col))
+    except (u.UnitsError, TypeError, ValueError):
+        raise InvalidInput(f"{label}: a list of Quantities must give each entry as a Quantity of one kind of unit "
+                           "(or give one Quantity array)") from None
 
 
 def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     """One input in a form of the wire contract."""
     kind = (decl or {}).get("kind", "quantity")
+    if isinstance(value, list) and kind != "series":
+        value = _quantity_list(value, (decl or {}).get("name", "an input"))
+    if isinstance(value, (_dt.datetime, _dt.date)):          # pandas' Timestamp too, whose unit is no astropy unit
+        return value.isoformat()
+    if isinstance(value, np.datetime64):        # numpy's date: its ISO text (NaT: not given); its tolist() counts ns
+        return None if np.isnat(value) else str(np.datetime_as_string(value))
     if hasattr(value, "unit") and hasattr(value, "value") and not isinstance(value, Mapping):
         # an astropy Quantity: its number in its own unit
         v = _plain(value.value)
@@ -1141,8 +1207,6 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         if kind == "series":
             return {"value": v, "unit": unit}
         return {"samples": v, "unit": unit} if isinstance(v, list) else {"value": v, "unit": unit}
-    if isinstance(value, (_dt.datetime, _dt.date)):
-        return value.isoformat()
     if _is_ufloat(value) and kind == "quantity":
         # an uncertainties number (a fit's result): its nominal value and standard deviation
         _finite(value.nominal_value, decl)
@@ -1170,14 +1234,23 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
         return None
     _finite(value, decl)
     if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
+        if value.get("unit") is not None and not isinstance(value["unit"], str):
+            if not _is_unit(value["unit"]):
+                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its unit is a string such as 'd' or an "
+                                   f"astropy unit, not {type(value['unit']).__name__}")
+            value = {**value, "unit": _unit_text(value["unit"])}
         for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
             if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
-                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity inside "
-                                   "the contract's object: give the Quantity as the input itself, a (value, sigma) "
+                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity "
+                                   "inside the contract's object: give the Quantity as the input itself, a (value, sigma) "
                                    'tuple of Quantities, or plain numbers with "unit"')
             if member != "samples":
                 _finite(_plain(value.get(member)), decl)
                 _json_number(_plain(value.get(member)), decl)
+        _json_values({k: _plain(v) for k, v in value.items()}, (decl or {}).get("name", "an input"))
+    if isinstance(value, list):
+        for v in value:
+            _json_number(_plain(v), decl)
     if isinstance(value, list) and kind == "quantity":
         return {"samples": value}
     if value is not None and not isinstance(value, (str, int, float, list, Mapping)):
@@ -1204,7 +1277,8 @@ def _tuple_parts(value: tuple, decl: Mapping[str, Any] | None) -> tuple[list, st
         try:
             parts = [parts[0].value] + [p.to_value(first) for p in parts[1:]]
         except u.UnitConversionError:
-            raise InvalidInput(f"{name}: the sigma's unit does not convert to the value's {first.to_string()!r}") from None
+            raise InvalidInput(f"{name}: the sigma's unit does not convert to the value's "
+                               f"{first.to_string()!r}") from None
         unit = first.to_string()
     return [_plain(p) for p in parts], unit
 
@@ -1279,7 +1353,7 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
             correlations = [dict(c) if isinstance(c, Mapping) else c for c in correlations]
             for k, c in enumerate(correlations):
                 _finite_option(_plain(c.get("rho")) if isinstance(c, Mapping) else None, f"correlations.{k}.rho")
-        if correlations != []:
+        if not (isinstance(correlations, list) and not correlations):
             out["correlations"] = correlations
     if units is not None:
         # an astropy unit is sent as its string, as a batch's column units= takes it
@@ -1289,13 +1363,28 @@ def _options(uncertainty=None, correlations=None, units=None, time_format=None, 
         out["time_format"] = time_format
     if covariance is not False and covariance is not None:
         out["covariance"] = True if isinstance(covariance, (bool, np.bool_)) and covariance else covariance
+    _json_values(out, "")
     return out
+
+
+def _json_values(x: Any, where: str) -> None:
+    """An option's value JSON cannot carry (a Quantity, a Decimal, a date), refused naming it (``where``): the
+    encoder's TypeError named none; what JSON carries goes as it is, for the service to judge."""
+    if isinstance(x, Mapping):
+        for k, v in x.items():
+            _json_values(v, f"{where}.{k}" if where else str(k))
+    elif isinstance(x, (list, tuple)):
+        for k, v in enumerate(x):
+            _json_values(v, f"{where}.{k}")
+    elif x is not None and not isinstance(x, (str, int, float, np.bool_, np.integer, np.floating, _dt.date)):
+        raise InvalidInput(f"{where}: a {type(x).__name__} is no value of this option (give a number, a string, "
+                           "true or false, a list or a mapping, as the request's JSON takes them)")
 
 
 def _json_number(x: Any, decl: Mapping[str, Any] | None) -> None:
     """A part of a tuple or a member of the contract's object that JSON cannot carry (pandas' NA, a Decimal)
     refused naming the input, as the same given alone is (the encoder's TypeError named none)."""
-    if x is not None and not isinstance(x, (str, int, float, list, np.generic)):
+    if x is not None and not isinstance(x, (str, int, float, list, np.generic, _dt.date)):   # a date: its ISO text
         raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: a {type(x).__name__} is no number of the wire "
                            "contract (give a float, or NaN or None for a value not given)")
 

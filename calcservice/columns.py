@@ -8,8 +8,10 @@ The standard library and numpy only, so the client can use it without the servic
 
 from __future__ import annotations
 
+import decimal
 import difflib
 import math
+import numbers
 import re
 from typing import Container, Iterable, Iterator, Mapping
 
@@ -201,7 +203,7 @@ def _number_or_text(v):
         except ValueError:
             return v
         return x if math.isfinite(x) else v
-    if isinstance(v, (int, float)) and not isinstance(v, bool):
+    if isinstance(v, (numbers.Real, decimal.Decimal)) and not isinstance(v, bool):     # a Decimal, a Fraction too
         try:
             return float(v)
         except OverflowError:       # an integer beyond a double: infinite, that system's error as 1e999 is

@@ -24,7 +24,7 @@ from collections import deque
 from gunicorn import arbiter, http
 from gunicorn.app.base import BaseApplication
 from gunicorn.http import errors as http_errors
-from gunicorn.http.errors import ChunkMissingTerminator, InvalidChunkSize, LimitRequestLine
+from gunicorn.http.errors import ChunkMissingTerminator, InvalidChunkSize, LimitRequestLine, UnsupportedTransferCoding
 from gunicorn.workers.sync import SyncWorker
 
 from .core.problems import Problem
@@ -474,6 +474,12 @@ class BufferingWorker(SyncWorker):
         status_line = b"".join(page.chunks).split(b"\r\n", 1)[0].decode("latin-1")
         _, status, reason = (status_line.split(" ", 2) + ["", ""])[:3]
         status = int(status) if status.isdigit() else 500
+        if isinstance(exc, UnsupportedTransferCoding):
+            # gunicorn's 501 (RFC 9112 sec. 6.1 says SHOULD): the caller's coding to change, a 4xx naming the header
+            detail = (f"Transfer-Encoding {str(exc.hdr)[:60]!r} is not taken: send the body with Content-Length or "
+                      "chunked, and a compressed one with Content-Encoding: gzip")
+            client.sendall(problem_bytes(Problem(400, detail, {"Transfer-Encoding": [detail]})))
+            return
         if isinstance(exc, LimitRequestLine) and exc.max_size:
             detail = f"the request line is over the limit of {exc.max_size} bytes"
         elif status < 500:

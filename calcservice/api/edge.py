@@ -162,6 +162,14 @@ def read_body(limits=None) -> bytes:
     413 when the body, or what it decompresses to, is over ``max_body_bytes``."""
     environ = request.environ
     limits = limits or current_app.config["CALCSERVICE_SETTINGS"].limits
+    if "HTTP_TRANSFER_ENCODING" in environ:
+        transfer = environ["HTTP_TRANSFER_ENCODING"]
+        if any(c.strip().lower() not in ("chunked", "identity", "") for c in transfer.split(",")):
+            # gunicorn takes gzip, deflate and compress before chunked and decodes none of them
+            raise Problem(400, f"Transfer-Encoding {transfer[:60]!r} is not decoded here: send the body as it is or "
+                               "chunked, and a compressed one with Content-Encoding: gzip",
+                          {"Transfer-Encoding": ["only chunked is taken (Content-Encoding: gzip for a compressed "
+                                                 "body)"]})
     coding = environ.get("HTTP_CONTENT_ENCODING", "").strip().lower()
     if coding and coding != "identity":
         if coding not in ("gzip", "x-gzip"):
