@@ -1107,7 +1107,7 @@ def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, An
         if not _is_unit(col["unit"]):
             raise InvalidInput(f"{label}: its unit is a string such as 'd' or an astropy unit, not "
                                f"{type(col['unit']).__name__}")
-        col["unit"] = _unit_text(col["unit"])
+        col["unit"] = unit_text(col["unit"], label)
     value = col.get("value")
     if _unit_of(value) is not None:
         from astropy import units as u
@@ -1238,7 +1238,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
             if not _is_unit(value["unit"]):
                 raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its unit is a string such as 'd' or an "
                                    f"astropy unit, not {type(value['unit']).__name__}")
-            value = {**value, "unit": _unit_text(value["unit"])}
+            value = {**value, "unit": unit_text(value["unit"], (decl or {}).get("name", "an input"))}
         for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
             if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
                 raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity "
