@@ -12,9 +12,11 @@ holds sb1 and sb2 to it; its comparison is used here).
 same published formulas: Kepler's third law with GM_sun, Hilditch 2001 ch. 2; a = a'' / parallax, the parsec
 of IAU 2015 Resolution B2; the photocentre's alpha = a (B - beta), van de Kamp 1967, whose root is found here by
 Newton's method carried out on ufloats, so that no implicit function theorem enters the reference).  Both sides
-are exact derivatives evaluated in doubles: they differ by the rounding of a few dozen operations, ~1e-15
-relative, amplified at most ~100-fold near beta -> 1 (d ln M2 / d beta ~ 1 / (1 - beta)).  So 1e-12 holds them
-with room, where central differences (truncation and rounding, ~1e-11..1e-9 of a sigma) fail it.
+are exact derivatives evaluated in doubles, each written so that no difference cancels (M1 = M / (1 + q), not
+(1 - B) M; 1 - B = (1 - beta)(1 - s) in the reference, M1 / (M1 + M2) in the declaration): they differ by the
+rounding of a few dozen operations, ~1e-15 relative (seen: below 1e-14, beta within 1e-9 of 1 included).  So
+1e-12 holds them with room, where central differences (truncation and rounding, ~1e-11..1e-9 of a sigma, and
+far worse where an output is differenced next to 1.0) fail it.
 """
 
 import dataclasses
@@ -217,8 +219,9 @@ def _photocentre_root(f, m1, beta):
         y = y - g / (3 - 2 * s)
         if hasattr(y, "derivatives"):
             y.derivatives        # expands y's linear combination in place: else each step nests the last ones
-    s = 1 / (1 + umath.exp(-y))
-    return beta + (1 - beta) * s
+    s, rest = 1 / (1 + umath.exp(-y)), 1 / (1 + umath.exp(y))
+    # 1 - B as (1 - beta)(1 - s), not 1 - B, which loses the digits of a companion that outweighs M1
+    return beta + (1 - beta) * s, (1 - beta) * rest
 
 
 def _photocentre_reference(v):
@@ -226,8 +229,8 @@ def _photocentre_reference(v):
     alpha = v["photocentre_semimajor_axis"] / plx
     f = _kepler_mass(alpha, v["period"])
     m1, beta = v["primary_mass"], v.get("luminosity_fraction", 0.0)
-    b = _photocentre_root(f, m1, beta)
-    m2 = m1 * b / (1 - b)
+    b, rest = _photocentre_root(f, m1, beta)
+    m2 = m1 * b / rest
     total = m1 + m2
     a = _kepler_axis(total, v["period"])
     return {"astrometric_mass_function": f, "m2": m2, "semimajor_axis": a, "total_mass": total,
@@ -265,6 +268,10 @@ PHOTOCENTRE_POINTS = [
      "primary_mass": (1.08, 0.05), "luminosity_fraction": (0.999, 1e-4)},
     {"photocentre_semimajor_axis": (3.71, 0.05), "parallax": (21.4, 0.03), "period": (612.0, 4.0),
      "primary_mass": (1.08, 0.05), "luminosity_fraction": (0.0, 0.01)},
+    # beta within 1e-9 of 1: M2 ~ beta M1 / (1 - beta), d ln M2 / d beta ~ 1e9; the stencil's fractional_mass,
+    # differenced next to 1.0, is off by 3e-4 here
+    {"photocentre_semimajor_axis": (1e-6, 1e-8), "parallax": (21.4, 0.03), "period": (612.0, 4.0),
+     "primary_mass": (30.0, 2.0), "luminosity_fraction": (1 - 1e-9, 1e-10)},
 ]
 
 
