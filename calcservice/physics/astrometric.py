@@ -348,7 +348,7 @@ def photocentre_jacobian(outputs, photocentre_semimajor_axis, period, primary_ma
     per_p = 1.0 / period
     alpha = {"photocentre_semimajor_axis": per_axis, name: per_parallax}
     ln_f = {"photocentre_semimajor_axis": 3.0 * per_axis, name: 3.0 * per_parallax, "period": -2.0 * per_p}
-    m1, m2, total = primary_mass, outputs["m2"], outputs["total_mass"]
+    m1, total = primary_mass, outputs["total_mass"]
     b, rest = outputs["fractional_mass"], m1 / total
     beta = 0.0 if luminosity_fraction is None else luminosity_fraction
     dark = 1.0 - beta
