@@ -1,5 +1,6 @@
 """Declared analytic Jacobians (sb2, sb1) against the engine's own central differences and against
-automatic differentiation by the ``uncertainties`` package.
+automatic differentiation by the ``uncertainties`` package.  ``tests/test_jacobian_astrometric.py`` holds
+visual's and photocentre's to the same comparison (``assert_agree``).
 
 The engine's linear method is one path whichever way its first-order terms are obtained, so the
 same request evaluated with the declared Jacobian and with ``dataclasses.replace(calc,
