@@ -1,7 +1,9 @@
-"""The linear sigmas of calculations without a declared Jacobian (central differences in the engine)
-held to exact derivatives: mpmath at 50 digits of each formula, at ordinary points and at the edges
+"""The linear sigmas of the engine's central differences (its general path; a declared Jacobian, as visual's,
+is set aside here) held to exact derivatives: mpmath at 50 digits of each formula, at ordinary points and at the edges
 of the domains.  A good central difference gives ~1e-10 of the sigma; the tolerances here (1e-8,
 1e-7 after thousands of cycles) leave room for the rounding of the physics, not for the step."""
+
+import dataclasses
 
 import mpmath as mp
 import numpy as np
@@ -17,7 +19,8 @@ working_precision = precision(50)
 def _sigmas(name, values, sigmas, statics=None):
     """The engine's linear sigmas of ``name`` at ``values`` (N systems) with ``sigmas`` on some inputs."""
     quantities = {k: Measured.normal(v, sigmas.get(k, 0.0)) for k, v in values.items()}
-    result = evaluate(get(name), quantities, statics or {}, Options())
+    # the central differences themselves, also for a calculation that declares its Jacobian (visual)
+    result = evaluate(dataclasses.replace(get(name), jacobian=None), quantities, statics or {}, Options())
     return {k: o["sigma"] for k, o in result.outputs.items()}, {k: o["value"] for k, o in result.outputs.items()}, \
         result
 

@@ -434,7 +434,7 @@ def test_sb2_output_correlation_and_budget_against_uncertainties():
 
 
 def test_visual_output_correlation_and_budget_against_uncertainties():
-    # The visual orbit by central differences: a = alpha / parallax (au; the parsec, IAU 2015 Resolution B2),
+    # The visual orbit (a declared Jacobian, as sb2): a = alpha / parallax (au; the parsec, IAU 2015 Resolution B2),
     # M = 4 pi^2 a^3 / (GM_sun P^2) (Kepler's third law with IAU 2015 B3 GM_sun and the IAU 2012 au), M1 = M / (1 + q),
     # M2 = M q / (1 + q); correlated period and angular size, parallax and q.
     given = {"period": (7305.0, 12.0), "angular_semimajor_axis": (412.0, 3.0), "parallax": (48.3, 0.4),
@@ -446,7 +446,7 @@ def test_visual_output_correlation_and_budget_against_uncertainties():
         total = 4 * math.pi ** 2 * (a * AU) ** 3 / (GM_SUN * (period * DAY) ** 2)
         return {"semimajor_axis": a, "total_mass": total, "m1": total / (1 + q), "m2": total * q / (1 + q)}
 
-    _against_uncertainties("visual", given, rho, visual, correlation=1e-9, sigma=1e-9, budget=1e-9, value=1e-14)
+    _against_uncertainties("visual", given, rho, visual, correlation=2e-15, sigma=4e-15, budget=4e-15, value=1e-14)
 
 
 def test_a_systems_warning_codes_in_a_table_come_in_its_single_requests_order(client):

@@ -93,6 +93,7 @@ register(Calculation(
         Output("a2", "au", "semi-major axis of the secondary's orbit about the centre of mass", "a2 = (1 - B) a"),
     ), {"semimajor_axis": PARSEC, "total_mass": KEPLER, "parallax": PARSEC, "distance": PARSEC}, (HEINTZ_1978,)),
     function=phys.visual,
+    jacobian=phys.visual_jacobian,
     references=(HILDITCH_2001, HEINTZ_1978, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
     conventions=VISUAL_CONVENTIONS
@@ -253,6 +254,7 @@ register(Calculation(
         "a1": (HEINTZ_1978,), "photocentre_semimajor_axis_au": (VAN_DE_KAMP_1967, IAU_2015_B2), "parallax": PARSEC,
         "distance": PARSEC}, (VAN_DE_KAMP_1967,)),
     function=phys.photocentre,
+    jacobian=phys.photocentre_jacobian,
     references=(VAN_DE_KAMP_1967, HEINTZ_1978, HILDITCH_2001, IAU_2015_B3, IAU_2012_B2, IAU_2015_B2),
     constants=("GM_sun", "au", "pc", "day"),
     conventions={

@@ -83,6 +83,60 @@ def visual(period, angular_semimajor_axis, parallax=None, distance=None, mass_ra
     return out
 
 
+def _per_parallax(parallax, distance):
+    """The input that gave the parallax and d ln (1 / parallax) / d that input: a length a'' / parallax grows
+    as 1 / parallax (-1 / parallax) or as the distance (+1 / d, parallax = 1000 / d)."""
+    if parallax is not None:
+        return "parallax", -1.0 / parallax
+    return "distance", 1.0 / distance
+
+
+def visual_jacobian(outputs, period, angular_semimajor_axis, parallax=None, distance=None, mass_ratio=None,
+                    fractional_mass=None, **_):
+    """The logarithmic derivatives of :func:`visual`'s ``outputs`` with respect to its inputs,
+    {output: {input: d ln f / dx}} (canonical units: d, mas, pc).
+
+    Every output is a product of powers (Hilditch 2001, ch. 2, Kepler's third law with GM_sun; the parsec,
+    IAU 2015 Resolution B2): with a'' the angular semi-major axis and varpi the parallax (varpi = 1000 / d
+    when the distance d is given, so d ln varpi / dd = -1/d),
+
+        a = a'' / varpi                       d ln a / da'' = 1/a'',  d ln a / dvarpi = -1/varpi  (/dd = 1/d)
+        M1 + M2 = 4 pi^2 a^3 / (GM_sun P^2)   d ln M / dP = -2/P,  d ln M / da'' = 3/a'',  / dvarpi = -3/varpi
+        varpi, d = 1000 / varpi               d ln varpi / dvarpi = 1/varpi,  d ln d / dvarpi = -1/varpi
+
+    With q = M2/M1: B = q / (1 + q) and 1 - B = 1 / (1 + q), so d ln (1 - B) / dq = -1/(1 + q),
+    d ln B / dq = 1/q - 1/(1 + q) = 1 / (q (1 + q)), d ln q / dq = 1/q; with B = M2/(M1 + M2) given,
+    d ln B / dB = 1/B, d ln (1 - B) / dB = -1/(1 - B), d ln (B / (1 - B)) / dB = 1 / (B (1 - B)).  Then
+    M1 = (1 - B) M, M2 = B M, a1 = B a and a2 = (1 - B) a add those to the derivatives of M and a.  An input
+    absent from an output's mapping is one it does not depend on."""
+    per_axis = 1.0 / angular_semimajor_axis
+    name, per_parallax = _per_parallax(parallax, distance)
+    a = {"angular_semimajor_axis": per_axis, name: per_parallax}
+    total = {"period": -2.0 / period, "angular_semimajor_axis": 3.0 * per_axis, name: 3.0 * per_parallax}
+    logarithmic = {
+        "semimajor_axis": a,
+        "total_mass": total,
+        "parallax": {name: -per_parallax},
+        "distance": {name: per_parallax},
+    }
+    if mass_ratio is not None or fractional_mass is not None:
+        if fractional_mass is not None:
+            given, per_b, per_rest = "fractional_mass", 1.0 / fractional_mass, -1.0 / (1.0 - fractional_mass)
+        else:
+            # 1 / q and then / (1 + q): q (1 + q) would overflow beyond q ~ 1e154
+            given, per_rest = "mass_ratio", -1.0 / (1.0 + mass_ratio)
+            per_b = (1.0 / mass_ratio) / (1.0 + mass_ratio)
+        logarithmic.update({
+            "m1": {**total, given: per_rest},
+            "m2": {**total, given: per_b},
+            "fractional_mass": {given: per_b},
+            "mass_ratio": {given: per_b - per_rest},
+            "a1": {**a, given: per_b},
+            "a2": {**a, given: per_rest},
+        })
+    return logarithmic
+
+
 # ----------------------------------------------------------------------------- Thiele–Innes
 
 def thiele_innes_constants(angular_semimajor_axis, inclination, omega, node):
@@ -256,6 +310,72 @@ def photocentre(photocentre_semimajor_axis, period, primary_mass, parallax=None,
         "a1": b * a,
         "parallax": plx,
         "distance": distance_from_parallax(plx),
+    }
+
+
+def photocentre_jacobian(outputs, photocentre_semimajor_axis, period, primary_mass, parallax=None, distance=None,
+                         luminosity_fraction=None, **_):
+    """The logarithmic derivatives of :func:`photocentre`'s ``outputs`` with respect to its inputs,
+    {output: {input: d ln f / dx}} (canonical units: mas, d, solMass, pc; beta dimensionless).
+
+    alpha = alpha'' / varpi and f_ast = 4 pi^2 alpha^3 / (GM_sun P^2) are products of powers (van de Kamp 1967;
+    the parsec, IAU 2015 Resolution B2; varpi = 1000 / d when the distance is given):
+    d ln alpha / dalpha'' = 1/alpha'', / dvarpi = -1/varpi (/dd = 1/d); d ln f_ast = 3 d ln alpha - 2 dP / P.
+
+    M2 is defined implicitly (:func:`fractional_mass_from_photocentre`) by (M1 + M2)(B - beta)^3 = f_ast with
+    B = M2 / (M1 + M2), i.e. by G = 3 ln D - 2 ln T - ln f_ast = 0 with T = M1 + M2 and
+    D = (1 - beta) M2 - beta M1 = (B - beta) T > 0.  By the implicit function theorem
+    d ln M2 / dx = -(dG/dx) / (M2 dG/dM2), where, with u = B - beta and s = u / (1 - beta) in (0, 1),
+
+        M2 dG/dM2 = 3 (1 - beta) M2 / D - 2 M2 / T = B (3 - 2 s) / s  > 0,
+        dG/d ln f_ast = -1,   dG/dM1 = -3 beta / D - 2 / T,   dG/dbeta = -3 T / D = -3 / u,
+
+    so that, with W = 1 / ((1 - beta) B (3 - 2 s)),
+
+        d ln M2 / dx    = u W d ln f_ast / dx   for x = alpha'', varpi (or d), P,
+        d ln M2 / dM1   = (3 beta + 2 u) W / T,
+        d ln M2 / dbeta = 3 W.
+
+    (3 - 2 s lies in (1, 3): no singularity; beta = 0 gives sb1's companion mass at sin i = 1, d ln M2 / d ln f
+    = 1 / (3 - 2 B), d ln M2 / dM1 = 2 / (T (3 - 2 B)).)  u is taken as (f_ast / T)^{1/3}, which the root
+    satisfies, rather than B - beta, which loses the digits of a light companion beside a bright one.  The
+    derived outputs follow by the chain rule: d ln T = B d ln M2 + [x = M1] / T; d ln q = d ln M2 - [x = M1] / M1;
+    d ln B = (1 - B) d ln M2 - [x = M1] / T (1 - B = M1 / T, which keeps its digits for M2 >> M1);
+    a = (GM_sun T P^2 / 4 pi^2)^{1/3} (Kepler's third law): d ln a = d ln T / 3 + (2/3) [x = P] / P;
+    a1 = B a: d ln B + d ln a.  An input absent from an output's mapping is one it does not depend on."""
+    per_axis = 1.0 / photocentre_semimajor_axis
+    name, per_parallax = _per_parallax(parallax, distance)
+    per_p = 1.0 / period
+    alpha = {"photocentre_semimajor_axis": per_axis, name: per_parallax}
+    ln_f = {"photocentre_semimajor_axis": 3.0 * per_axis, name: 3.0 * per_parallax, "period": -2.0 * per_p}
+    m1, total = primary_mass, outputs["total_mass"]
+    b, rest = outputs["fractional_mass"], m1 / total
+    beta = 0.0 if luminosity_fraction is None else luminosity_fraction
+    dark = 1.0 - beta
+    u = np.cbrt(outputs["astrometric_mass_function"] / total)                      # B - beta
+    w = 1.0 / (dark * b * (3.0 - 2.0 * u / dark))
+    per_f = u * w                                                                  # d ln M2 / d ln f_ast
+    ln_m2 = {x: per_f * d for x, d in ln_f.items()}
+    ln_m2["primary_mass"] = (3.0 * beta + 2.0 * u) * w / total
+    if luminosity_fraction is not None:
+        ln_m2["luminosity_fraction"] = 3.0 * w
+    ln_total = {x: b * d for x, d in ln_m2.items()}
+    ln_total["primary_mass"] = ln_total["primary_mass"] + 1.0 / total
+    ln_b = {x: rest * d for x, d in ln_m2.items()}
+    ln_b["primary_mass"] = ln_b["primary_mass"] - 1.0 / total
+    ln_a = {x: d / 3.0 for x, d in ln_total.items()}
+    ln_a["period"] = ln_a["period"] + 2.0 / 3.0 * per_p
+    return {
+        "astrometric_mass_function": ln_f,
+        "m2": ln_m2,
+        "semimajor_axis": ln_a,
+        "total_mass": ln_total,
+        "mass_ratio": {**ln_m2, "primary_mass": ln_m2["primary_mass"] - 1.0 / m1},
+        "fractional_mass": ln_b,
+        "a1": {x: ln_b[x] + ln_a[x] for x in ln_a},
+        "photocentre_semimajor_axis_au": alpha,
+        "parallax": {name: -per_parallax},
+        "distance": {name: per_parallax},
     }
 
 
