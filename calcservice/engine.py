@@ -1402,4 +1402,6 @@ def _monte_carlo_budget(calc, quantities, statics, options, draws, valid, ys, sc
             _, rest = _spread(_draws_of(calc, name, ys_held), both)
             share = np.where(full > 0, (full - rest) / np.where(full > 0, full, 1.0), np.nan)
             budget[name][held] = np.where(np.isfinite(var), share, np.nan)
-    return budget
+    # an output with no spread in any system (an input it does not depend on) has no budget, as in the linear method
+    return {name: shares for name, shares in budget.items()
+            if any(np.isfinite(share).any() for share in shares.values())}

@@ -11,6 +11,7 @@ from calcservice.physics.spectroscopic import MASS_FUNCTION_COEFFICIENT, PROJECT
 from calcservice.registry import get
 
 from .engine_helpers import correlated_ufloats
+from .conftest import post
 
 C_F = MASS_FUNCTION_COEFFICIENT
 C_A = PROJECTED_AXIS_COEFFICIENT_KM / AU_KM
@@ -222,3 +223,14 @@ def test_monte_carlo_correlation_summed_in_blocks_of_systems(monkeypatch):
                    options=Options(**options, keep_draws=True))
     draws = np.array([one.draws[name][0] for name in whole[0]])
     np.testing.assert_allclose(one.correlation[1][0], np.corrcoef(draws), atol=1e-12)
+
+
+def test_an_output_with_no_spread_has_no_budget_in_either_method(client):
+    # q = K1/K2 does not depend on the period, the only uncertain input: its variance is 0, and no share of it is
+    # defined. The linear method gives no budget; Monte Carlo gave {"period": null}
+    body = {"period": {"value": 41.6, "sigma": 0.02}, "k1": 38.2, "k2": 51.7, "eccentricity": 0.31, "budget": True}
+    for uncertainty in ({"method": "linear"}, {"method": "monte_carlo", "samples": 1000, "seed": 1}):
+        status, r = post(client, "/v1/spectroscopic/sb2", {**body, "uncertainty": uncertainty})
+        assert status == 200
+        assert "budget" not in r["results"]["mass_ratio"], uncertainty
+        assert r["results"]["m1_sin3i"]["budget"] == {"period": 1.0}          # M sin^3 i is proportional to P
