@@ -922,7 +922,8 @@ class InputTable:
             spec = inputs[base]
             if member != "value" and spec.get("kind", "quantity") != "quantity":
                 raise InvalidInput(f"{label}: {base} takes no uncertainty")
-            unit = _unit_of(col) or label_unit or units.get(label) or units.get(name)
+            # a header's empty brackets (period[]) say dimensionless, as a unit of "" does, not "no unit given"
+            unit = _unit_of(col) or (label_unit if label_unit is not None else units.get(label) or units.get(name))
             if member == "value" and unit is None:
                 unit = units.get(base)
             # in a mapping, a series input's list is the series, the same for every system

@@ -172,9 +172,9 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
             except TableError as e:
                 errors.update(e.errors)
                 continue
-            if sigma_unit and sigma_unit != (unit or spec.unit):
+            if sigma_unit and sigma_unit != (spec.unit if unit is None else unit):
                 try:
-                    k = factor(sigma_unit, unit or spec.unit)
+                    k = factor(sigma_unit, spec.unit if unit is None else unit)
                 except UnitError as e:
                     errors[col] = [str(e)]
                     continue
@@ -184,7 +184,7 @@ def request_body(calc: Calculation, read: list[tuple[str, Any, str | None]], opt
                     errors[col] = ["a sigma column with a unit of its own must hold numbers only"]
                     continue
             entry[key] = sigma
-        if unit:
+        if unit is not None:
             entry["unit"] = unit
         columns[name] = entry
     body: dict[str, Any] = {}
@@ -283,7 +283,8 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
     out = []
     for field, column in zip(table.schema, table.columns):
         meta = field.metadata or {}
-        unit = meta.get(b"unit", b"").decode("utf-8", "replace").strip() or None
+        # an empty unit says dimensionless, as a JSON unit of "" does (refused for a period), not "no unit given"
+        unit = None if b"unit" not in meta else meta[b"unit"].decode("utf-8", "replace").strip()
         misspelt = [key.decode("utf-8", "replace") for key in meta
                     if key != b"unit" and key.strip().lower() in (b"unit", b"units")]
         if misspelt:
@@ -600,7 +601,8 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
             values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
         else:
             values = written.get(name) or masked.tolist()       # masked entries become None
-        out.append((name, values, unit or None))
+        # a CSV header's empty brackets (period[]) say dimensionless, as a JSON unit of "" does: refused for a period
+        out.append((name, values, unit if not ecsv else unit or None))
     return out
 
 
@@ -888,7 +890,7 @@ def _arrow(cols, meta: dict) -> bytes:
     arrays, fields = [], []
     for name, v, kind, unit in cols:
         field_meta = {"content": "application/json"} if kind == "json" else {}
-        if unit:
+        if unit is not None:
             field_meta["unit"] = unit
         arr = _arrow_array(pa, v, kind)
         arrays.append(arr)
