@@ -444,11 +444,22 @@
     "pc": "length", "kpc": "length", "solRad": "length", "solMass/yr": "mass per time", "mJy": "spectral flux density",
     "GHz": "frequency", "K": "temperature", "s/yr": "time per time",
   };
+  // only a unit the service could not read or convert: a message that merely says the word (a sigma or a unit
+  // without a value, a date's number that takes no unit but days) gets no list of units
+  const UNIT_REFUSED = /\bunit '|unknown unit|not a unit astropy can read|is a logarithmic unit/;
   function unitHint(spec, text) {
-    if (!spec || !spec.unit || !/unit/i.test(text)) return "";
+    if (!spec || !spec.unit || !UNIT_REFUSED.test(text)) return "";
     const kind = UNIT_KINDS[spec.unit];
     const fits = (UNIT_SUGGESTIONS[spec.unit] || [spec.unit]).join(", ");
     return ` Units that fit${kind ? ` (a ${kind})` : ""}: ${fits}, or any astropy unit convertible to ${spec.unit}.`;
+  }
+
+  // a correlation's error key ("0.between", "1.rho") as the visitor typed that pair ("period,k9=0.4"): the field
+  // holds text, not a list they can count in
+  function pairTyped(base, rest) {
+    const m = base === "correlations" ? rest.match(/^(\d+)\.(between|rho)$/) : null;
+    const pair = m && state.body && Array.isArray(state.body.correlations) ? state.body.correlations[Number(m[1])] : null;
+    return pair && Array.isArray(pair.between) ? `${pair.between.join(",")}=${pair.rho}` : rest;
   }
 
   function showProblem(problem, target) {
@@ -463,7 +474,7 @@
       const spec = calc ? calc.inputs.find((i) => i.name === base) : null;
       let text = [].concat(messages).map((m) => (typeof m === "string" ? m : JSON.stringify(m))).join("; ");
       text += unitHint(spec, text);
-      const where = key === base ? "" : `${key.slice(base.length + 1)}: `;
+      const where = key === base ? "" : `${pairTyped(base, key.slice(base.length + 1))}: `;
       const box = $(`error-${base}`);
       let control = null;
       if (box && (spec || ["uncertainty", "correlations", "budget", "obs-rv1", "obs-rv2"].includes(base))) {
@@ -476,7 +487,7 @@
         } else if (control) control.setAttribute("aria-invalid", "true");
         first = first || control;
       }
-      listed.push({ key, text, control });
+      listed.push(base === "correlations" && where ? { key: base, text: where + text, control } : { key, text, control });
     }
     const box = target || $("problem");
     clear(box);
@@ -511,6 +522,7 @@
     const { body, local, observed } = collect();
     if (Object.keys(local).length) {
       showProblem({ title: "Invalid input", detail: "fix the marked fields", errors: local });
+      forgetResults();        // the last answer is not this form's: leave none shown under the new inputs
       $("status").textContent = "Not sent: some fields need fixing.";
       return;
     }
@@ -637,7 +649,7 @@
         .concat(mc ? [["hist", ""]] : []).map(([cls, h]) => el("th", { class: cls, text: h })));
       out.append(el("table", { class: "results cards", id: "results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
-    if (results.series) out.append(seriesTable(results.series));
+    if (results.series) out.append(seriesTable(results.series, outputs));
     for (const [key, member] of Object.entries(results)) {
       if (key === "series" || isMeasured(member) || !member || typeof member !== "object") continue;
       out.append(eventLists(key, member));
@@ -733,10 +745,12 @@
     else saveBlob(new Blob([resultsCsv(state.response)], { type: "text/csv" }), `${name}-results.csv`);
   }
 
-  function seriesTable(series) {
+  function seriesTable(series, outputs) {
     const names = Object.keys(series).filter((k) => series[k] && Array.isArray(series[k].value));
     const n = Math.max(0, ...names.map((k) => series[k].value.length));
-    const head = el("tr", {}, names.map((k) => el("th", { text: series[k].unit ? `${k} [${series[k].unit}]` : k })));
+    const described = names.filter((k) => outputs && outputs[k] && outputs[k].description);
+    const head = el("tr", {}, names.map((k) => el("th", { text: series[k].unit ? `${k} [${series[k].unit}]` : k,
+      title: described.includes(k) ? outputs[k].description : "" })));
     const body = [];
     for (let i = 0; i < n; i++) {
       body.push(el("tr", {}, names.map((k) => {
@@ -746,9 +760,15 @@
         return el("td", { title: fullPrecision(entry), text: measured(entry, k === "times" || k === "time" ? 12 : 6) });
       })));
     }
-    return el("div", { class: "scroll" }, [
+    // what each column is, as the results table says it beside each output: a column without a unit (a
+    // separation in units of a, a phase) cannot be read from its header alone
+    const notes = el("ul", { class: "series-notes", id: "series-notes" }, described.map((k) =>
+      el("li", { "data-column": k }, [el("code", { text: k }), document.createTextNode(": "), math(outputs[k].description)])));
+    return el("div", { class: "series-box" }, [
       el("h3", { text: "Series" }),
-      el("table", { class: "results series", id: "series-table" }, [el("thead", {}, head), el("tbody", {}, body)]),
+      el("div", { class: "scroll" }, [
+        el("table", { class: "results series", id: "series-table" }, [el("thead", {}, head), el("tbody", {}, body)])]),
+      notes,
     ]);
   }
 

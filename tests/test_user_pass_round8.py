@@ -1,0 +1,97 @@
+"""What a working astronomer tripped on in the web form, every calculation used as its users use it (round 8).
+
+A form the page refuses before sending leaves no earlier answer under the new inputs; the list of units that fit
+follows only a unit the service refused (not a message that merely says "unit", such as a date's number, which
+takes days only); a series column without a unit says what it is; a correlation's error names the pair as it
+was typed, not its place in a list.  Every system here is fictional.
+"""
+
+import pytest
+
+from .test_form_browser import _open, _shot, _type, _wait, base_url, browser  # noqa: F401  (fixtures)
+
+pytestmark = pytest.mark.browser
+
+
+def _press_compute(driver):
+    from selenium.webdriver.common.by import By
+    driver.execute_script("document.body.dataset.computed = 'pending'; document.getElementById('status').textContent = ''")
+    driver.find_element(By.ID, "compute").click()
+    _wait(driver, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-computed") == "true"
+          or d.find_element(By.ID, "status").text.startswith("Not sent"))
+
+
+def _field_error(driver, name):
+    from selenium.webdriver.common.by import By
+    return _wait(driver, lambda d: d.find_element(By.ID, f"error-{name}")
+                 if d.find_element(By.ID, f"error-{name}").is_displayed() else None)
+
+
+def test_a_form_refused_before_sending_shows_no_earlier_answer(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb1")
+    browser.find_element(By.ID, "example").click()
+    _press_compute(browser)
+    assert browser.find_elements(By.CSS_SELECTOR, '#results-table tr[data-output="mass_function"]')
+    # the period's value rubbed out, its sigma and unit left: the page refuses to send the form
+    _type(browser, "in-period", "")
+    _type(browser, "unit-period", "yr")
+    _press_compute(browser)
+    assert browser.find_element(By.ID, "status").text.startswith("Not sent")
+    # the mass function of the earlier period is no answer to this form: nothing of it is left to copy or download
+    assert not browser.find_elements(By.CSS_SELECTOR, "#results-table"), "the earlier answer is still shown"
+    assert not browser.find_element(By.ID, "downloads").is_displayed()
+    assert not browser.find_element(By.ID, "report-tools").is_displayed()
+    # the message is about the missing value: no list of units, which the unit given (yr) already fits
+    error = _field_error(browser, "period").text
+    assert "needs a value" in error and "Units that fit" not in error, error
+    _shot(browser, "round8-sb1-not-sent")
+
+
+def test_a_dates_number_in_years_gets_no_list_of_units_that_includes_years(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#ephemeris")
+    browser.find_element(By.ID, "example").click()
+    # a Julian epoch typed as a number in yr: the service refuses it (a date's number is a JD, in days)
+    _type(browser, "in-t_periastron", "2019.6")
+    _type(browser, "unit-t_periastron", "yr")
+    _press_compute(browser)
+    error = _field_error(browser, "t_periastron").text
+    assert "Julian Date in days" in error, error
+    assert "Units that fit" not in error, error      # the hint listed yr among the units that fit, beside the refusal
+    # a unit the service cannot read still gets the list
+    browser.find_element(By.ID, "example").click()
+    _type(browser, "unit-period", "fortnights")
+    _press_compute(browser)
+    assert "Units that fit (a time)" in _field_error(browser, "period").text
+
+
+def test_a_series_column_without_a_unit_says_what_it_is(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#ephemeris")
+    browser.find_element(By.ID, "example").click()
+    _press_compute(browser)
+    heads = {th.text: th.get_attribute("title") for th in browser.find_elements(By.CSS_SELECTOR, "#series-table th")}
+    # the separation of the stars has no unit: it is r/a (the declaration's description), not au
+    assert "separation" in heads and "semi-major axis" in heads["separation"], heads
+    note = browser.find_element(By.CSS_SELECTOR, '#series-notes li[data-column="separation"]')
+    assert note.is_displayed() and "in units of the semi-major axis" in note.text, note.text
+    assert browser.find_element(By.CSS_SELECTOR, '#series-notes li[data-column="phase"]').text.startswith("phase:")
+    _shot(browser, "round8-ephemeris-series-notes")
+
+
+def test_a_correlations_error_names_the_pair_as_typed(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb1")
+    browser.find_element(By.ID, "example").click()
+    _type(browser, "correlations", "period,k1=0.4; period,k9=0.2")
+    _press_compute(browser)
+    error = _field_error(browser, "correlations").text
+    # the second pair names an input sb1 does not have; the field is text, so the pair is named as typed
+    assert error.startswith("period,k9=0.2:") and "'k9'" in error and "1.between" not in error, error
+    banner = browser.find_element(By.ID, "problem").text
+    assert "period,k9=0.2: 'k9'" in banner, banner
