@@ -95,3 +95,19 @@ def test_a_correlations_error_names_the_pair_as_typed(browser, base_url):  # noq
     assert error.startswith("period,k9=0.2:") and "'k9'" in error and "1.between" not in error, error
     banner = browser.find_element(By.ID, "problem").text
     assert "period,k9=0.2: 'k9'" in banner, banner
+
+
+def test_a_warning_names_its_field_as_the_form_labels_it(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#ephemeris")
+    browser.find_element(By.ID, "example").click()
+    # the example's dates are Julian Dates: read as MJDs they are after AD 7334, and the service says which field
+    Select(browser.find_element(By.ID, "time_format")).select_by_value("mjd")
+    _press_compute(browser)
+    item = browser.find_element(By.CSS_SELECTOR, '#warnings li[data-code="date_format_suspect"]')
+    assert "t_periastron" in [c.text for c in item.find_elements(By.TAG_NAME, "code")], item.text
+    # not typeset as t with a subscript "periastron", a name found nowhere in the form
+    assert "periastron" not in [s.text for s in item.find_elements(By.TAG_NAME, "sub")]
+    assert "MJD" in item.text and "AD 7334" in item.text

@@ -135,6 +135,16 @@
     flush();
     return out;
   }
+  // a message naming fields ("t_periastron: an MJD of ..."): each name as code, as the form labels it (typeset,
+  // t_periastron would read "t" with a subscript, a field the visitor cannot find), the rest typeset
+  function namedMath(text, names) {
+    const list = (Array.isArray(names) ? names : []).filter((n) => typeof n === "string" && n)
+      .sort((a, b) => b.length - a.length).map((n) => n.replace(/[.*+?^${}()|[\]\\]/g, "\\$&"));
+    if (!list.length) return math(text);
+    const parts = text.split(new RegExp(`(?<![\\w])(${list.join("|")})(?![\\w])`));
+    return el("span", { class: "math", title: text },
+      parts.flatMap((p, i) => (i % 2 ? [el("code", { text: p })] : p ? mathNodes(p) : [])));
+  }
   function math(text, cls) { return el("span", { class: "math" + (cls ? " " + cls : ""), title: text }, mathNodes(text)); }
 
   // ------------------------------------------------------------------ numbers for print (PDG rule)
@@ -657,7 +667,8 @@
     const warnings = $("warnings");
     clear(warnings);
     for (const w of response.warnings || []) {
-      warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" "), math(w.message)]));
+      warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" "),
+        namedMath(w.message, w.fields)]));
     }
     show(warnings, (response.warnings || []).length > 0);
     show($("downloads"), true);
