@@ -111,3 +111,28 @@ def test_a_warning_names_its_field_as_the_form_labels_it(browser, base_url):  # 
     # not typeset as t with a subscript "periastron", a name found nowhere in the form
     assert "periastron" not in [s.text for s in item.find_elements(By.TAG_NAME, "sub")]
     assert "MJD" in item.text and "AD 7334" in item.text
+
+
+def test_the_pages_date_columns_say_jd_or_mjd_as_the_report_does(browser, base_url, client):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import Select
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}#ephemeris")
+    browser.find_element(By.ID, "example").click()
+    # a fictional orbit with its dates typed as MJDs
+    _type(browser, "in-t_periastron", "58712.3")
+    _type(browser, "in-times", "60400.5, 60500.5")
+    Select(browser.find_element(By.ID, "time_format")).select_by_value("mjd")
+    _press_compute(browser)
+    heads = [th.text for th in browser.find_elements(By.CSS_SELECTOR, "#series-table th")]
+    assert heads[0] == "time [d, MJD]", heads
+    dates = {th.text for th in browser.find_elements(By.CSS_SELECTOR, ".events th") if th.text.startswith("date")}
+    assert dates == {"date [d, MJD]"}, dates
+    # the report headings the same table so
+    report = client.post("/v1/orbit/ephemeris?format=markdown", json={
+        "period": 2037.4, "eccentricity": 0.873, "omega": 243.6, "t_periastron": 58712.3, "k1": 61.2,
+        "times": [60400.5, 60500.5], "time_format": "mjd"}).get_data(as_text=True)
+    assert "`time` [d, MJD]" in report and "[d, MJD]" in report
+    # the calendar date is still shown to what its sigma supports (a day here), not to the second
+    iso = browser.find_element(By.CSS_SELECTOR, '.events td[data-field="iso"]').text
+    assert len(iso) == 10 and iso.startswith("20"), iso

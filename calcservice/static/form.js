@@ -659,7 +659,7 @@
         .concat(mc ? [["hist", ""]] : []).map(([cls, h]) => el("th", { class: cls, text: h })));
       out.append(el("table", { class: "results cards", id: "results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
-    if (results.series) out.append(seriesTable(results.series, outputs));
+    if (results.series) out.append(seriesTable(results.series, outputs, response.time_format === "mjd" ? "MJD" : "JD"));
     for (const [key, member] of Object.entries(results)) {
       if (key === "series" || isMeasured(member) || !member || typeof member !== "object") continue;
       out.append(eventLists(key, member));
@@ -756,11 +756,14 @@
     else saveBlob(new Blob([resultsCsv(state.response)], { type: "text/csv" }), `${name}-results.csv`);
   }
 
-  function seriesTable(series, outputs) {
+  // a date column's heading says its scale, "time [d, MJD]", as the report's does (report.series_header)
+  const SERIES_DATES = ["times", "time"];
+  function seriesTable(series, outputs, scale) {
     const names = Object.keys(series).filter((k) => series[k] && Array.isArray(series[k].value));
     const n = Math.max(0, ...names.map((k) => series[k].value.length));
     const described = names.filter((k) => outputs && outputs[k] && outputs[k].description);
-    const head = el("tr", {}, names.map((k) => el("th", { text: series[k].unit ? `${k} [${series[k].unit}]` : k,
+    const unitOf = (k) => series[k].unit + (SERIES_DATES.includes(k) ? `, ${scale}` : "");
+    const head = el("tr", {}, names.map((k) => el("th", { text: series[k].unit ? `${k} [${unitOf(k)}]` : k,
       title: described.includes(k) ? outputs[k].description : "" })));
     const body = [];
     for (let i = 0; i < n; i++) {
@@ -797,14 +800,16 @@
 
   function eventLists(key, member) {
     const box = el("div", { class: "events", "data-member": key });
+    // dates given back in the caller's format say which, as the report's event tables do (report.event_lists)
     const unit = member.unit || "";
+    const dateUnit = unit + (unit && member.time_format ? `, ${member.time_format === "mjd" ? "MJD" : "JD"}` : "");
     for (const [sub, entries] of Object.entries(member)) {
       if (!Array.isArray(entries) || !entries.length || typeof entries[0] !== "object") continue;
       // a member's sigma (NAME_sigma, as an SB2's velocity_separation has) is printed with it, not apart
       const keys = Object.keys(entries[0]).filter((k) => !["value", "sigma", "low", "high"].includes(k)
         && !(k.endsWith("_sigma") && k.slice(0, -6) in entries[0]));
       const fieldUnits = member.units || {};      // e.g. km/s for an event's velocity_separation
-      const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(
+      const head = el("tr", {}, [el("th", { text: dateUnit ? `date [${dateUnit}]` : "date" })].concat(
         keys.map((k) => el("th", { text: fieldUnits[k] ? `${k} [${fieldUnits[k]}]` : k }))));
       const rows = entries.map((e) => el("tr", {}, [el("td", { class: "value", title: fullPrecision(e), text: measured(e, 12) })]
         .concat(keys.map((k) => k === "iso" && e[k]
