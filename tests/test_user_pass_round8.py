@@ -136,3 +136,19 @@ def test_the_pages_date_columns_say_jd_or_mjd_as_the_report_does(browser, base_u
     # the calendar date is still shown to what its sigma supports (a day here), not to the second
     iso = browser.find_element(By.CSS_SELECTOR, '.events td[data-field="iso"]').text
     assert len(iso) == 10 and iso.startswith("20"), iso
+
+
+@pytest.mark.parametrize("width", [1000, 1280])
+def test_an_asymmetric_sigma_is_seen_whole_in_its_field(browser, base_url, width):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(width, 1000)
+    _open(browser, f"{base_url}/#sb1")
+    # the legend invites "+plus −minus": what was typed is seen, not "+0.02 -0.0"
+    _type(browser, "sigma-period", "+0.02 -0.01")
+    seen, needed = browser.execute_script(
+        "const e = document.getElementById('sigma-period'); return [e.clientWidth, e.scrollWidth]")
+    assert needed <= seen, (seen, needed)
+    # and the page is still no wider than the window
+    assert browser.execute_script(
+        "return document.documentElement.scrollWidth - document.documentElement.clientWidth") <= 0
+    assert browser.find_element(By.ID, "in-period").size["width"] >= 80      # the value keeps its room
