@@ -152,3 +152,18 @@ def test_an_asymmetric_sigma_is_seen_whole_in_its_field(browser, base_url, width
     assert browser.execute_script(
         "return document.documentElement.scrollWidth - document.documentElement.clientWidth") <= 0
     assert browser.find_element(By.ID, "in-period").size["width"] >= 80      # the value keeps its room
+
+
+def test_the_reference_page_on_a_phone_is_no_wider_than_the_window(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(360, 900)
+    browser.get(f"{base_url}/docs#mass-loss-radio")
+    _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, "table.inputs"))
+    excess = browser.execute_script("return document.documentElement.scrollWidth - document.documentElement.clientWidth")
+    assert excess <= 0, f"the reference page is {excess} px wider than the window"
+    # the inputs' table scrolls in its own box: its last column is still there to be scrolled to
+    table = browser.find_element(By.CSS_SELECTOR, "section#mass-loss-radio table.inputs")
+    assert browser.execute_script("return arguments[0].scrollWidth > arguments[0].clientWidth", table)
+    assert "meaning" in table.text
+    _shot(browser, "round8-docs-phone")
+    browser.set_window_size(1280, 1400)
