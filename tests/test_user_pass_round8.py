@@ -10,9 +10,6 @@ import pytest
 
 from .test_form_browser import _open, _shot, _type, _wait, base_url, browser  # noqa: F401  (fixtures)
 
-pytestmark = pytest.mark.browser
-
-
 def _press_compute(driver):
     from selenium.webdriver.common.by import By
     driver.execute_script("document.body.dataset.computed = 'pending'; document.getElementById('status').textContent = ''")
@@ -27,6 +24,7 @@ def _field_error(driver, name):
                  if d.find_element(By.ID, f"error-{name}").is_displayed() else None)
 
 
+@pytest.mark.browser
 def test_a_form_refused_before_sending_shows_no_earlier_answer(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
@@ -49,6 +47,7 @@ def test_a_form_refused_before_sending_shows_no_earlier_answer(browser, base_url
     _shot(browser, "round8-sb1-not-sent")
 
 
+@pytest.mark.browser
 def test_a_dates_number_in_years_gets_no_list_of_units_that_includes_years(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
@@ -68,6 +67,7 @@ def test_a_dates_number_in_years_gets_no_list_of_units_that_includes_years(brows
     assert "Units that fit (a time)" in _field_error(browser, "period").text
 
 
+@pytest.mark.browser
 def test_a_series_column_without_a_unit_says_what_it_is(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
@@ -83,6 +83,7 @@ def test_a_series_column_without_a_unit_says_what_it_is(browser, base_url):  # n
     _shot(browser, "round8-ephemeris-series-notes")
 
 
+@pytest.mark.browser
 def test_a_correlations_error_names_the_pair_as_typed(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
@@ -97,6 +98,7 @@ def test_a_correlations_error_names_the_pair_as_typed(browser, base_url):  # noq
     assert "period,k9=0.2: 'k9'" in banner, banner
 
 
+@pytest.mark.browser
 def test_a_warning_names_its_field_as_the_form_labels_it(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     from selenium.webdriver.support.ui import Select
@@ -113,6 +115,7 @@ def test_a_warning_names_its_field_as_the_form_labels_it(browser, base_url):  # 
     assert "MJD" in item.text and "AD 7334" in item.text
 
 
+@pytest.mark.browser
 def test_the_pages_date_columns_say_jd_or_mjd_as_the_report_does(browser, base_url, client):  # noqa: F811
     from selenium.webdriver.common.by import By
     from selenium.webdriver.support.ui import Select
@@ -138,6 +141,7 @@ def test_the_pages_date_columns_say_jd_or_mjd_as_the_report_does(browser, base_u
     assert len(iso) == 10 and iso.startswith("20"), iso
 
 
+@pytest.mark.browser
 @pytest.mark.parametrize("width", [1000, 1280])
 def test_an_asymmetric_sigma_is_seen_whole_in_its_field(browser, base_url, width):  # noqa: F811
     from selenium.webdriver.common.by import By
@@ -154,6 +158,7 @@ def test_an_asymmetric_sigma_is_seen_whole_in_its_field(browser, base_url, width
     assert browser.find_element(By.ID, "in-period").size["width"] >= 80      # the value keeps its room
 
 
+@pytest.mark.browser
 def test_the_reference_page_on_a_phone_is_no_wider_than_the_window(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(360, 900)
@@ -167,3 +172,38 @@ def test_the_reference_page_on_a_phone_is_no_wider_than_the_window(browser, base
     assert "meaning" in table.text
     _shot(browser, "round8-docs-phone")
     browser.set_window_size(1280, 1400)
+
+
+# ----------------------------------------------------------------------------- without a browser
+@pytest.mark.parametrize("seed", [1, 2])
+def test_a_heavy_tailed_histogram_shows_its_bulk_and_says_what_it_leaves_out(client, seed):
+    """A companion's mass from a random orientation (cos i uniform) has a tail to ~1/sin^3 i: drawn over its
+    whole range, every draw fell in one bar of 80 and the form's histogram showed nothing."""
+    import numpy as np
+
+    from calcservice.plots import histogram_figure
+
+    # the sb1 fictional example with an isotropic inclination, by Monte Carlo, as the form sends it
+    body = {"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma": 0.3},
+            "eccentricity": {"value": 0.31, "sigma": 0.01}, "primary_mass": {"value": 1.9, "sigma": 0.1},
+            "inclination": "isotropic", "uncertainty": {"method": "monte_carlo", "samples": 3000, "seed": seed}}
+    r = client.post("/v1/spectroscopic/sb1?format=svg&plot=m2", json=body)
+    assert r.status_code == 200 and r.mimetype == "image/svg+xml"
+    entry = client.post("/v1/spectroscopic/sb1", json=body).get_json()["results"]["m2"]
+    assert entry["sigma"] is None                                   # sigma_undefined: a heavy tail
+    # the same draws by hand (numpy): m2 ~ m2_min / sin i for a small companion, cos i uniform on [0, 1)
+    rng = np.random.default_rng(seed)
+    draws = entry["value"] / np.sqrt(1.0 - rng.uniform(0.0, 1.0, 3000) ** 2)
+    fig = histogram_figure("m2", draws, entry)
+    ax = fig.axes[0]
+    shown = np.percentile(draws, [2.5, 97.5])                       # numpy's percentiles, the central 95 %
+    assert ax.get_xlim()[1] < draws.max() / 2 and ax.get_xlim()[1] >= shown[1]
+    # the bars: more than a handful hold draws (was 1 of 80)
+    heights = [p.get_height() for p in ax.patches if p.get_height() > 0]
+    assert len(heights) > 20, len(heights)
+    left_out = int(np.count_nonzero((draws < shown[0]) | (draws > shown[1])))
+    assert f"the {left_out} outside" in ax.get_title(), ax.get_title()
+    # normal draws are drawn whole, with no note (100000 of them span about 9 sigma, 2.3 times their central 95 %)
+    normal = np.random.default_rng(seed).normal(5.0, 1.0, 100000)
+    ax = histogram_figure("x", normal, {"value": 5.0, "sigma": 1.0, "low": 4.0, "high": 6.0, "unit": ""}).axes[0]
+    assert ax.get_xlim()[0] <= normal.min() and ax.get_xlim()[1] >= normal.max() and "outside" not in ax.get_title()
