@@ -174,6 +174,30 @@ def test_the_reference_page_on_a_phone_is_no_wider_than_the_window(browser, base
     browser.set_window_size(1280, 1400)
 
 
+
+@pytest.mark.browser
+def test_a_link_to_monte_carlo_draws_gives_the_same_numbers(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb1")
+    browser.find_element(By.ID, "example").click()
+    # the fictional example with an isotropic inclination: the service switches to Monte Carlo with a seed of its own
+    _type(browser, "in-inclination", "isotropic")
+    _type(browser, "sigma-inclination", "")
+    browser.find_element(By.ID, "method-linear").click()
+    _press_compute(browser)
+    status = browser.find_element(By.ID, "status").text
+    seed = status.split("seed ")[1].split(",")[0]
+    shown = browser.find_element(By.CSS_SELECTOR, '#results-table tr[data-output="m2"] td.value').text
+    link = browser.current_url
+    assert f"seed={seed}" in link and "uncertainty=monte_carlo" in link, link
+    browser.get("about:blank")
+    _open(browser, link)
+    _wait(browser, lambda d: d.find_elements(By.CSS_SELECTOR, '#results-table tr[data-output="m2"] td.value'))
+    assert browser.find_element(By.CSS_SELECTOR, '#results-table tr[data-output="m2"] td.value').text == shown
+    assert f"seed {seed}," in browser.find_element(By.ID, "status").text
+
+
 # ----------------------------------------------------------------------------- without a browser
 @pytest.mark.parametrize("seed", [1, 2])
 def test_a_heavy_tailed_histogram_shows_its_bulk_and_says_what_it_leaves_out(client, seed):

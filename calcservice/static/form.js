@@ -553,6 +553,7 @@
         return;
       }
       state.response = r.data;
+      rememberInAddress(r.data.uncertainty);
       renderResponse(state.calc, r.data);
       await drawPlots(state.calc, r.data, body, observed);
     } catch (err) {
@@ -1455,7 +1456,9 @@
   // ------------------------------------------------------------------ the computation in the address
   // "#sb2?period=41.6&period.sigma=0.02&period.unit=d&uncertainty=monte_carlo&samples=400&seed=3": the
   // fields as typed (a link reproduces the form and, opened, computes it again)
-  function formState() {
+  // `drawn`: the uncertainty of the answer shown; Monte Carlo draws with a seed the service picked (none given, or
+  // the method switched for an isotropic inclination) put that seed in the link, which then gives the same numbers
+  function formState(drawn) {
     const q = new URLSearchParams();
     for (const spec of state.calc.inputs) {
       const v = $(`in-${spec.name}`).value.trim();
@@ -1470,6 +1473,11 @@
       if ($("samples").value.trim()) q.set("samples", $("samples").value.trim());
       if ($("seed").value.trim()) q.set("seed", $("seed").value.trim());
     }
+    if (drawn && drawn.method === "monte_carlo" && Number.isInteger(drawn.seed) && !q.has("seed")) {
+      q.set("uncertainty", "monte_carlo");
+      if (!q.has("samples") && Number.isInteger(drawn.samples)) q.set("samples", String(drawn.samples));
+      q.set("seed", String(drawn.seed));
+    }
     if ($("correlations").value.trim()) q.set("correlations", $("correlations").value.trim());
     if (!$("time-format-row").hidden && $("time_format").value !== "jd") q.set("time_format", $("time_format").value);
     if ($("budget").checked) q.set("budget", "1");
@@ -1477,8 +1485,8 @@
     return q;
   }
 
-  function rememberInAddress() {
-    const hash = `#${state.calc.name}?${formState().toString()}`;
+  function rememberInAddress(drawn) {
+    const hash = `#${state.calc.name}?${formState(drawn).toString()}`;
     if (location.hash !== hash) history.replaceState(null, "", hash);
   }
 
@@ -1513,7 +1521,7 @@
   }
 
   async function copyLink() {
-    rememberInAddress();
+    rememberInAddress(state.response && state.response.uncertainty);
     const link = location.href;
     let done = false;
     try {
