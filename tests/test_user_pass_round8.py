@@ -198,6 +198,21 @@ def test_a_link_to_monte_carlo_draws_gives_the_same_numbers(browser, base_url): 
     assert f"seed {seed}," in browser.find_element(By.ID, "status").text
 
 
+
+@pytest.mark.browser
+def test_a_measured_velocitys_error_is_named_by_its_label(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#ephemeris")
+    browser.find_element(By.ID, "example").click()
+    _type(browser, "obs-rv1", "12.4 +- 0.6, x")
+    _press_compute(browser)
+    assert "x: write a value" in _field_error(browser, "obs-rv1").text
+    banner = browser.find_element(By.ID, "problem").text
+    # the banner names the field as the page labels it (legend "Measured radial velocities", label rv1)
+    assert "measured rv1: x: write a value" in banner and "obs-rv1" not in banner, banner
+
+
 # ----------------------------------------------------------------------------- without a browser
 @pytest.mark.parametrize("seed", [1, 2])
 def test_a_heavy_tailed_histogram_shows_its_bulk_and_says_what_it_leaves_out(client, seed):

@@ -505,9 +505,11 @@
     box.append(el("strong", { text: problem.title || "Error" }), document.createTextNode(detail ? ": " + detail : ""));
     if (listed.length) {
       box.append(el("ul", {}, listed.map(({ key, text, control }) => {
+        // the measured velocities' fields by their labels ("measured rv1"), not their element ids ("obs-rv1")
+        const label = key.startsWith("obs-") ? `measured ${key.slice(4)}` : key;
         const name = control
-          ? el("button", { type: "button", class: "link", text: key, title: `go to ${key}` })
-          : el("code", { text: key });
+          ? el("button", { type: "button", class: "link", text: label, title: `go to ${label}` })
+          : el("code", { text: label });
         if (control) name.addEventListener("click", () => control.focus());
         return el("li", {}, [name, document.createTextNode(": " + text)]);
       })));
