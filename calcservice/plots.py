@@ -42,6 +42,11 @@ MAX_MARKERS = 1000
 STAR_COLOURS = ("#1f5aa6", "#c8501e")
 #: Characters of a histogram's subtitle (the output's description) per line: a 7-inch figure holds about 100 at 10 pt.
 SUBTITLE_WIDTH = 90
+#: Heavy-tailed draws (a mass from an isotropic inclination) are drawn over their central 95 %, with the count of
+#: those beyond said, when all of them span more than 4 times as much (normal draws: 2 to 3 times): drawn whole,
+#: every draw fell in one bar and the histogram showed nothing.
+HISTOGRAM_SHOWN = (2.5, 97.5)
+HISTOGRAM_TAIL = 4.0
 
 
 class PlotError(ValueError):
@@ -99,6 +104,12 @@ def histogram_figure(name: str, draws: np.ndarray, entry: Mapping[str, Any], des
     d = d[np.isfinite(d)]
     if d.size == 0:
         raise PlotError("plot", f"{name} has no finite Monte Carlo draws to plot")
+    total = d.size
+    lo, hi = np.percentile(d, HISTOGRAM_SHOWN)
+    with np.errstate(over="ignore", invalid="ignore"):
+        tailed = bool(np.ptp(d) > HISTOGRAM_TAIL * (hi - lo) > 0)
+    if tailed:
+        d = d[(d >= lo) & (d <= hi)]
     fig = _new_figure(7.0, 4.4)
     ax = fig.add_subplot()
     edges = histogram_bins(d)
@@ -120,7 +131,9 @@ def histogram_figure(name: str, draws: np.ndarray, entry: Mapping[str, Any], des
     ax.set_ylabel("number of draws")
     # the name is an identifier ("m1_sin3i"), set as written; the description's maths as maths ("M1 sin^3 i")
     # (wrapped first, so that a long one is not cut at the figure's edge)
-    title = f"{name}: {d.size} Monte Carlo draws".replace("$", r"\$")
+    title = f"{name}: {total} Monte Carlo draws".replace("$", r"\$")
+    if tailed:
+        title += f", the {total - d.size} outside {lo:.4g} to {hi:.4g} not shown"
     lines = [tex_maths(line) for line in textwrap.wrap(description, SUBTITLE_WIDTH, break_long_words=False)]
     ax.set_title("\n".join([title, *lines]), fontsize=10)
     ax.legend(loc="best", fontsize=8, frameon=False)

@@ -135,6 +135,16 @@
     flush();
     return out;
   }
+  // a message naming fields ("t_periastron: an MJD of ..."): each name as code, as the form labels it (typeset,
+  // t_periastron would read "t" with a subscript, a field the visitor cannot find), the rest typeset
+  function namedMath(text, names) {
+    const list = (Array.isArray(names) ? names : []).filter((n) => typeof n === "string" && n)
+      .sort((a, b) => b.length - a.length).map((n) => n.replace(/[.*+?^${}()|[\]\\]/g, "\\$&"));
+    if (!list.length) return math(text);
+    const parts = text.split(new RegExp(`(?<![\\w])(${list.join("|")})(?![\\w])`));
+    return el("span", { class: "math", title: text },
+      parts.flatMap((p, i) => (i % 2 ? [el("code", { text: p })] : p ? mathNodes(p) : [])));
+  }
   function math(text, cls) { return el("span", { class: "math" + (cls ? " " + cls : ""), title: text }, mathNodes(text)); }
 
   // ------------------------------------------------------------------ numbers for print (PDG rule)
@@ -444,11 +454,22 @@
     "pc": "length", "kpc": "length", "solRad": "length", "solMass/yr": "mass per time", "mJy": "spectral flux density",
     "GHz": "frequency", "K": "temperature", "s/yr": "time per time",
   };
+  // only a unit the service could not read or convert: a message that merely says the word (a sigma or a unit
+  // without a value, a date's number that takes no unit but days) gets no list of units
+  const UNIT_REFUSED = /\bunit '|unknown unit|not a unit astropy can read|is a logarithmic unit/;
   function unitHint(spec, text) {
-    if (!spec || !spec.unit || !/unit/i.test(text)) return "";
+    if (!spec || !spec.unit || !UNIT_REFUSED.test(text)) return "";
     const kind = UNIT_KINDS[spec.unit];
     const fits = (UNIT_SUGGESTIONS[spec.unit] || [spec.unit]).join(", ");
     return ` Units that fit${kind ? ` (a ${kind})` : ""}: ${fits}, or any astropy unit convertible to ${spec.unit}.`;
+  }
+
+  // a correlation's error key ("0.between", "1.rho") as the visitor typed that pair ("period,k9=0.4"): the field
+  // holds text, not a list they can count in
+  function pairTyped(base, rest) {
+    const m = base === "correlations" ? rest.match(/^(\d+)\.(between|rho)$/) : null;
+    const pair = m && state.body && Array.isArray(state.body.correlations) ? state.body.correlations[Number(m[1])] : null;
+    return pair && Array.isArray(pair.between) ? `${pair.between.join(",")}=${pair.rho}` : rest;
   }
 
   function showProblem(problem, target) {
@@ -463,7 +484,7 @@
       const spec = calc ? calc.inputs.find((i) => i.name === base) : null;
       let text = [].concat(messages).map((m) => (typeof m === "string" ? m : JSON.stringify(m))).join("; ");
       text += unitHint(spec, text);
-      const where = key === base ? "" : `${key.slice(base.length + 1)}: `;
+      const where = key === base ? "" : `${pairTyped(base, key.slice(base.length + 1))}: `;
       const box = $(`error-${base}`);
       let control = null;
       if (box && (spec || ["uncertainty", "correlations", "budget", "obs-rv1", "obs-rv2"].includes(base))) {
@@ -476,7 +497,7 @@
         } else if (control) control.setAttribute("aria-invalid", "true");
         first = first || control;
       }
-      listed.push({ key, text, control });
+      listed.push(base === "correlations" && where ? { key: base, text: where + text, control } : { key, text, control });
     }
     const box = target || $("problem");
     clear(box);
@@ -484,9 +505,11 @@
     box.append(el("strong", { text: problem.title || "Error" }), document.createTextNode(detail ? ": " + detail : ""));
     if (listed.length) {
       box.append(el("ul", {}, listed.map(({ key, text, control }) => {
+        // the measured velocities' fields by their labels ("measured rv1"), not their element ids ("obs-rv1")
+        const label = key.startsWith("obs-") ? `measured ${key.slice(4)}` : key;
         const name = control
-          ? el("button", { type: "button", class: "link", text: key, title: `go to ${key}` })
-          : el("code", { text: key });
+          ? el("button", { type: "button", class: "link", text: label, title: `go to ${label}` })
+          : el("code", { text: label });
         if (control) name.addEventListener("click", () => control.focus());
         return el("li", {}, [name, document.createTextNode(": " + text)]);
       })));
@@ -511,6 +534,7 @@
     const { body, local, observed } = collect();
     if (Object.keys(local).length) {
       showProblem({ title: "Invalid input", detail: "fix the marked fields", errors: local });
+      forgetResults();        // the last answer is not this form's: leave none shown under the new inputs
       $("status").textContent = "Not sent: some fields need fixing.";
       return;
     }
@@ -531,6 +555,7 @@
         return;
       }
       state.response = r.data;
+      rememberInAddress(r.data.uncertainty);
       renderResponse(state.calc, r.data);
       await drawPlots(state.calc, r.data, body, observed);
     } catch (err) {
@@ -637,7 +662,7 @@
         .concat(mc ? [["hist", ""]] : []).map(([cls, h]) => el("th", { class: cls, text: h })));
       out.append(el("table", { class: "results cards", id: "results-table" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
-    if (results.series) out.append(seriesTable(results.series));
+    if (results.series) out.append(seriesTable(results.series, outputs, response.time_format === "mjd" ? "MJD" : "JD"));
     for (const [key, member] of Object.entries(results)) {
       if (key === "series" || isMeasured(member) || !member || typeof member !== "object") continue;
       out.append(eventLists(key, member));
@@ -645,7 +670,8 @@
     const warnings = $("warnings");
     clear(warnings);
     for (const w of response.warnings || []) {
-      warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" "), math(w.message)]));
+      warnings.append(el("li", { "data-code": w.code }, [el("code", { text: w.code }), document.createTextNode(" "),
+        namedMath(w.message, w.fields)]));
     }
     show(warnings, (response.warnings || []).length > 0);
     show($("downloads"), true);
@@ -733,10 +759,15 @@
     else saveBlob(new Blob([resultsCsv(state.response)], { type: "text/csv" }), `${name}-results.csv`);
   }
 
-  function seriesTable(series) {
+  // a date column's heading says its scale, "time [d, MJD]", as the report's does (report.series_header)
+  const SERIES_DATES = ["times", "time"];
+  function seriesTable(series, outputs, scale) {
     const names = Object.keys(series).filter((k) => series[k] && Array.isArray(series[k].value));
     const n = Math.max(0, ...names.map((k) => series[k].value.length));
-    const head = el("tr", {}, names.map((k) => el("th", { text: series[k].unit ? `${k} [${series[k].unit}]` : k })));
+    const described = names.filter((k) => outputs && outputs[k] && outputs[k].description);
+    const unitOf = (k) => series[k].unit + (SERIES_DATES.includes(k) ? `, ${scale}` : "");
+    const head = el("tr", {}, names.map((k) => el("th", { text: series[k].unit ? `${k} [${unitOf(k)}]` : k,
+      title: described.includes(k) ? outputs[k].description : "" })));
     const body = [];
     for (let i = 0; i < n; i++) {
       body.push(el("tr", {}, names.map((k) => {
@@ -746,9 +777,15 @@
         return el("td", { title: fullPrecision(entry), text: measured(entry, k === "times" || k === "time" ? 12 : 6) });
       })));
     }
-    return el("div", { class: "scroll" }, [
+    // what each column is, as the results table says it beside each output: a column without a unit (a
+    // separation in units of a, a phase) cannot be read from its header alone
+    const notes = el("ul", { class: "series-notes", id: "series-notes" }, described.map((k) =>
+      el("li", { "data-column": k }, [el("code", { text: k }), document.createTextNode(": "), math(outputs[k].description)])));
+    return el("div", { class: "series-box" }, [
       el("h3", { text: "Series" }),
-      el("table", { class: "results series", id: "series-table" }, [el("thead", {}, head), el("tbody", {}, body)]),
+      el("div", { class: "scroll" }, [
+        el("table", { class: "results series", id: "series-table" }, [el("thead", {}, head), el("tbody", {}, body)])]),
+      notes,
     ]);
   }
 
@@ -766,14 +803,16 @@
 
   function eventLists(key, member) {
     const box = el("div", { class: "events", "data-member": key });
+    // dates given back in the caller's format say which, as the report's event tables do (report.event_lists)
     const unit = member.unit || "";
+    const dateUnit = unit + (unit && member.time_format ? `, ${member.time_format === "mjd" ? "MJD" : "JD"}` : "");
     for (const [sub, entries] of Object.entries(member)) {
       if (!Array.isArray(entries) || !entries.length || typeof entries[0] !== "object") continue;
       // a member's sigma (NAME_sigma, as an SB2's velocity_separation has) is printed with it, not apart
       const keys = Object.keys(entries[0]).filter((k) => !["value", "sigma", "low", "high"].includes(k)
         && !(k.endsWith("_sigma") && k.slice(0, -6) in entries[0]));
       const fieldUnits = member.units || {};      // e.g. km/s for an event's velocity_separation
-      const head = el("tr", {}, [el("th", { text: unit ? `date [${unit}]` : "date" })].concat(
+      const head = el("tr", {}, [el("th", { text: dateUnit ? `date [${dateUnit}]` : "date" })].concat(
         keys.map((k) => el("th", { text: fieldUnits[k] ? `${k} [${fieldUnits[k]}]` : k }))));
       const rows = entries.map((e) => el("tr", {}, [el("td", { class: "value", title: fullPrecision(e), text: measured(e, 12) })]
         .concat(keys.map((k) => k === "iso" && e[k]
@@ -1419,7 +1458,9 @@
   // ------------------------------------------------------------------ the computation in the address
   // "#sb2?period=41.6&period.sigma=0.02&period.unit=d&uncertainty=monte_carlo&samples=400&seed=3": the
   // fields as typed (a link reproduces the form and, opened, computes it again)
-  function formState() {
+  // `drawn`: the uncertainty of the answer shown; Monte Carlo draws with a seed the service picked (none given, or
+  // the method switched for an isotropic inclination) put that seed in the link, which then gives the same numbers
+  function formState(drawn) {
     const q = new URLSearchParams();
     for (const spec of state.calc.inputs) {
       const v = $(`in-${spec.name}`).value.trim();
@@ -1434,6 +1475,11 @@
       if ($("samples").value.trim()) q.set("samples", $("samples").value.trim());
       if ($("seed").value.trim()) q.set("seed", $("seed").value.trim());
     }
+    if (drawn && drawn.method === "monte_carlo" && Number.isInteger(drawn.seed) && !q.has("seed")) {
+      q.set("uncertainty", "monte_carlo");
+      if (!q.has("samples") && Number.isInteger(drawn.samples)) q.set("samples", String(drawn.samples));
+      q.set("seed", String(drawn.seed));
+    }
     if ($("correlations").value.trim()) q.set("correlations", $("correlations").value.trim());
     if (!$("time-format-row").hidden && $("time_format").value !== "jd") q.set("time_format", $("time_format").value);
     if ($("budget").checked) q.set("budget", "1");
@@ -1441,8 +1487,8 @@
     return q;
   }
 
-  function rememberInAddress() {
-    const hash = `#${state.calc.name}?${formState().toString()}`;
+  function rememberInAddress(drawn) {
+    const hash = `#${state.calc.name}?${formState(drawn).toString()}`;
     if (location.hash !== hash) history.replaceState(null, "", hash);
   }
 
@@ -1477,7 +1523,7 @@
   }
 
   async function copyLink() {
-    rememberInAddress();
+    rememberInAddress(state.response && state.response.uncertainty);
     const link = location.href;
     let done = false;
     try {
