@@ -13,6 +13,13 @@ def client(app):
     return app.test_client()
 
 
+@pytest.fixture(scope="module")
+def local():
+    """The Python client on the service in this process (Client("local"))."""
+    from calcservice.client import Client
+    return Client("local")
+
+
 def post(client, path, body, **kw):
     """POST JSON and return (status, parsed body)."""
     r = client.post(path, json=body, **kw)

@@ -26,3 +26,15 @@ def correlated_ufloats(values, corr):
         i, j = names.index(a), names.index(b)
         cov[i, j] = cov[j, i] = rho * values[a][1] * values[b][1]
     return dict(zip(names, uncertainties.correlated_values([values[n][0] for n in names], cov)))
+
+
+def split_normal(mode, minus, plus, z):
+    """A split normal (mode, half-widths minus and plus, each half weighted by its width: Wallis 2014, Statistical
+    Science 29, 106) from standard normal z by its inverse CDF, which keeps any correlation of the z: the test
+    rounds' reference for the service's documented draw model of asymmetric errors."""
+    from scipy.special import ndtr, ndtri
+    p = ndtr(z)
+    total = minus + plus
+    left = mode + minus * ndtri(np.clip(p * total / (2 * minus), 0, 1))
+    right = mode + plus * ndtri(np.clip(0.5 + (p - minus / total) * total / (2 * plus), 0, 1))
+    return np.where(p < minus / total, left, right)

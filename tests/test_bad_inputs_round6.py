@@ -30,12 +30,6 @@ def client():
     return create_app().test_client()
 
 
-@pytest.fixture(scope="module")
-def local():
-    from calcservice.client import Client
-    return Client("local")
-
-
 def _ecsv(names: str, row: str, columns=("period", "k1", "eccentricity")) -> str:
     header = "".join(f"# - {{name: {name}, datatype: float64}}\n" for name in columns)
     return f"# %ECSV 1.0\n# ---\n# datatype:\n{header}# schema: astropy-2.0\n{names}\n{row}\n"

@@ -28,12 +28,6 @@ def client():
     return create_app().test_client()
 
 
-@pytest.fixture(scope="module")
-def local():
-    from calcservice.client import Client
-    return Client("local")
-
-
 # --- 1. every 4xx of the service names what is at fault, a wrong path or method too ---------------
 
 @pytest.mark.parametrize("method, path, field", [

@@ -17,12 +17,14 @@ import pytest
 from astropy import constants as const
 from astropy import units as u
 from astropy.table import Table
-from scipy.special import ndtr, ndtri
+from scipy.special import ndtr
 from uncertainties import correlated_values, correlation_matrix, ufloat, umath
 
 from calcservice import create_app
 from calcservice.core import Problem, compute, compute_batch
 from calcservice.registry import calculations
+
+from .engine_helpers import split_normal
 
 GM_SUN = const.GM_sun.si.value      # IAU 2015 Resolution B3 nominal GM_sun, m^3 s^-2 (astropy.constants)
 AU = const.au.si.value              # IAU 2012 Resolution B2, m (astropy.constants)
@@ -280,16 +282,6 @@ def _summary(y):
     return (np.median(y), np.std(y, ddof=1), np.percentile(y, 100 * ndtr(-1.0)), np.percentile(y, 100 * ndtr(1.0)))
 
 
-def _split_normal(mode, minus, plus, z):
-    """A split normal (mode, half-widths minus and plus, each half weighted by its width: Wallis 2014, Statistical
-    Science 29, 106) from standard normal z by its inverse CDF, which keeps any correlation of the z."""
-    p = ndtr(z)
-    total = minus + plus
-    left = mode + minus * ndtri(np.clip(p * total / (2 * minus), 0, 1))
-    right = mode + plus * ndtri(np.clip(0.5 + (p - minus / total) * total / (2 * plus), 0, 1))
-    return np.where(p < minus / total, left, right)
-
-
 def test_monte_carlo_is_numpy_on_the_documented_draw_model():
     # The documented model (README, engine docstring): seeded numpy Generator, standard normal variates in the
     # order of the inputs, correlated by the Cholesky factor of the requested correlation matrix (a Gaussian
@@ -305,7 +297,7 @@ def test_monte_carlo_is_numpy_on_the_documented_draw_model():
         r[names.index(a), names.index(b)] = r[names.index(b), names.index(a)] = v
     z = np.random.default_rng(seed).standard_normal((draws, len(names))) @ np.linalg.cholesky(r).T
     x = {n: (given[n][0] + given[n][1] * z[:, j] if given[n][1] == given[n][2]
-             else _split_normal(*given[n], z[:, j])) for j, n in enumerate(names)}
+             else split_normal(*given[n], z[:, j])) for j, n in enumerate(names)}
     ref = _sb2_reference(x["period"], x["k1"], x["k2"], x["eccentricity"], x["inclination"])
     body = {n: {"value": v, "sigma_minus": a, "sigma_plus": b} for n, (v, a, b) in given.items()}
     body.update({"correlations": [{"between": list(k), "rho": v} for k, v in rho.items()], "covariance": True,

@@ -14,6 +14,8 @@ from astropy import constants as const
 
 from calcservice import create_app
 
+from .engine_helpers import split_normal
+
 GM_SUN = mp.mpf(const.GM_sun.si.value)     # IAU 2015 Resolution B3 nominal GM_sun, m^3 s^-2 (astropy.constants)
 AU = mp.mpf(const.au.si.value)             # IAU 2012 Resolution B2, m (astropy.constants)
 DAY = mp.mpf(86400)                        # s (SI day)
@@ -453,17 +455,6 @@ def test_mid_eclipse_dates_with_a_period_derivative_are_the_minima_in_time(clien
 
 
 # --------------------------------------------------------------------------- Monte Carlo on the documented draw model
-def _split_normal(mode, minus, plus, z):
-    """A split normal (mode, half-widths minus and plus, each half weighted by its width: Wallis 2014, Statistical
-    Science 29, 106) from standard normal z by its inverse CDF, which keeps any correlation of the z."""
-    from scipy.special import ndtr, ndtri
-    p = ndtr(z)
-    total = minus + plus
-    left = mode + minus * ndtri(np.clip(p * total / (2 * minus), 0, 1))
-    right = mode + plus * ndtri(np.clip(0.5 + (p - minus / total) * total / (2 * plus), 0, 1))
-    return np.where(p < minus / total, left, right)
-
-
 def _photocentre_numpy(alpha_mas, parallax, period, m1, beta):
     """The photocentre reference above in numpy over draws (the root bisected 200 times in s)."""
     gm, au = const.GM_sun.si.value, const.au.si.value
@@ -502,7 +493,7 @@ def test_photocentre_monte_carlo_with_split_normals_correlations_and_paired_samp
     r[2, 3] = r[3, 2] = -0.3
     z = np.random.default_rng(seed).standard_normal((n, 4)) @ np.linalg.cholesky(r).T
     alpha, period = 3.71 + 0.05 * z[:, 0], 612.0 + 4.0 * z[:, 1]
-    m1, beta = _split_normal(1.08, 0.03, 0.08, z[:, 2]), _split_normal(0.02, 0.02, 0.05, z[:, 3])
+    m1, beta = split_normal(1.08, 0.03, 0.08, z[:, 2]), split_normal(0.02, 0.02, 0.05, z[:, 3])
     kept = (beta >= 0) & (beta < 1)
     assert answer["uncertainty"]["rejected_fraction"] == (n - kept.sum()) / n
     ref = _photocentre_numpy(alpha[kept], parallax[kept], period[kept], m1[kept], beta[kept])
