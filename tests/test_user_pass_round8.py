@@ -10,12 +10,21 @@ import pytest
 
 from .test_form_browser import _open, _shot, _type, _wait, base_url, browser  # noqa: F401  (fixtures)
 
+
 def _press_compute(driver):
     from selenium.webdriver.common.by import By
     driver.execute_script("document.body.dataset.computed = 'pending'; document.getElementById('status').textContent = ''")
     driver.find_element(By.ID, "compute").click()
     _wait(driver, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-computed") == "true"
           or d.find_element(By.ID, "status").text.startswith("Not sent"))
+
+
+def _example(driver, base_url, name):
+    """The form of calculation ``name`` at desktop width, filled with its example."""
+    from selenium.webdriver.common.by import By
+    driver.set_window_size(1280, 1400)
+    _open(driver, f"{base_url}/#{name}")
+    driver.find_element(By.ID, "example").click()
 
 
 def _field_error(driver, name):
@@ -27,9 +36,7 @@ def _field_error(driver, name):
 @pytest.mark.browser
 def test_a_form_refused_before_sending_shows_no_earlier_answer(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#sb1")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "sb1")
     _press_compute(browser)
     assert browser.find_elements(By.CSS_SELECTOR, '#results-table tr[data-output="mass_function"]')
     # the period's value rubbed out, its sigma and unit left: the page refuses to send the form
@@ -50,9 +57,7 @@ def test_a_form_refused_before_sending_shows_no_earlier_answer(browser, base_url
 @pytest.mark.browser
 def test_a_dates_number_in_years_gets_no_list_of_units_that_includes_years(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#ephemeris")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "ephemeris")
     # a Julian epoch typed as a number in yr: the service refuses it (a date's number is a JD, in days)
     _type(browser, "in-t_periastron", "2019.6")
     _type(browser, "unit-t_periastron", "yr")
@@ -70,9 +75,7 @@ def test_a_dates_number_in_years_gets_no_list_of_units_that_includes_years(brows
 @pytest.mark.browser
 def test_a_series_column_without_a_unit_says_what_it_is(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#ephemeris")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "ephemeris")
     _press_compute(browser)
     heads = {th.text: th.get_attribute("title") for th in browser.find_elements(By.CSS_SELECTOR, "#series-table th")}
     # the separation of the stars has no unit: it is r/a (the declaration's description), not au
@@ -86,9 +89,7 @@ def test_a_series_column_without_a_unit_says_what_it_is(browser, base_url):  # n
 @pytest.mark.browser
 def test_a_correlations_error_names_the_pair_as_typed(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#sb1")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "sb1")
     _type(browser, "correlations", "period,k1=0.4; period,k9=0.2")
     _press_compute(browser)
     error = _field_error(browser, "correlations").text
@@ -102,9 +103,7 @@ def test_a_correlations_error_names_the_pair_as_typed(browser, base_url):  # noq
 def test_a_warning_names_its_field_as_the_form_labels_it(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     from selenium.webdriver.support.ui import Select
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#ephemeris")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "ephemeris")
     # the example's dates are Julian Dates: read as MJDs they are after AD 7334, and the service says which field
     Select(browser.find_element(By.ID, "time_format")).select_by_value("mjd")
     _press_compute(browser)
@@ -119,9 +118,7 @@ def test_a_warning_names_its_field_as_the_form_labels_it(browser, base_url):  # 
 def test_the_pages_date_columns_say_jd_or_mjd_as_the_report_does(browser, base_url, client):  # noqa: F811
     from selenium.webdriver.common.by import By
     from selenium.webdriver.support.ui import Select
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}#ephemeris")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "ephemeris")
     # a fictional orbit with its dates typed as MJDs
     _type(browser, "in-t_periastron", "58712.3")
     _type(browser, "in-times", "60400.5, 60500.5")
@@ -178,9 +175,7 @@ def test_the_reference_page_on_a_phone_is_no_wider_than_the_window(browser, base
 @pytest.mark.browser
 def test_a_link_to_monte_carlo_draws_gives_the_same_numbers(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#sb1")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "sb1")
     # the fictional example with an isotropic inclination: the service switches to Monte Carlo with a seed of its own
     _type(browser, "in-inclination", "isotropic")
     _type(browser, "sigma-inclination", "")
@@ -202,9 +197,7 @@ def test_a_link_to_monte_carlo_draws_gives_the_same_numbers(browser, base_url): 
 @pytest.mark.browser
 def test_a_measured_velocitys_error_is_named_by_its_label(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
-    browser.set_window_size(1280, 1400)
-    _open(browser, f"{base_url}/#ephemeris")
-    browser.find_element(By.ID, "example").click()
+    _example(browser, base_url, "ephemeris")
     _type(browser, "obs-rv1", "12.4 +- 0.6, x")
     _press_compute(browser)
     assert "x: write a value" in _field_error(browser, "obs-rv1").text
