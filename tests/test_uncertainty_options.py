@@ -258,3 +258,13 @@ def test_a_samples_count_the_inputs_samples_override_is_warned(client):
                                                  "uncertainty": {"method": "monte_carlo", "samples": 2000, "seed": 1}})
     assert status == 200
     assert [any(w["code"] == "samples_from_inputs" for w in row["warnings"]) for row in doc["results"]] == [True, False]
+
+
+def test_a_seed_out_of_range_is_said_in_words():
+    # marshmallow's "Must be greater than or equal to 0 and less than 9223372036854775808." was the message
+    c = create_app().test_client()
+    body = {"period": 3.4, "k1": {"value": 61.0, "sigma": 1.0}, "eccentricity": 0.0,
+            "uncertainty": {"method": "monte_carlo", "seed": -3}}
+    r = c.post("/v1/spectroscopic/sb1", json=body)
+    assert r.status_code == 422
+    assert r.get_json()["errors"] == {"uncertainty.seed": ["must be a whole number from 0 to 2^63 - 1, not -3"]}

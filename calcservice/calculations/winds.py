@@ -211,9 +211,10 @@ register(Calculation(
         Input("true_anomaly", "deg", "true anomaly, 0 at periastron (needs an orbit)", ANGLE, required=False,
               example=120.0),
         Input("mu1", "", "mean mass per particle of the shocked wind of star 1 in units of m_H (default: fully "
-              "ionised solar gas, 0.617; fully ionised helium is 1.33)", POSITIVE, required=False,
+              "ionised solar gas; fully ionised helium is 1.33)", POSITIVE, required=False,
               default=phys.SOLAR_IONISED_MU, example=1.33),
-        Input("mu2", "", "mean mass per particle of the shocked wind of star 2 in units of m_H (default 0.617)",
+        Input("mu2", "", "mean mass per particle of the shocked wind of star 2 in units of m_H (default: fully "
+              "ionised solar gas)",
               POSITIVE, required=False, default=phys.SOLAR_IONISED_MU, example=0.617),
         Input("radius1", "solRad", "radius of star 1 (to warn when the stagnation point lies inside it)", POSITIVE,
               required=False, example=9.0),

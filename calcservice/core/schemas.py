@@ -533,7 +533,8 @@ class UncertaintySchema(Schema):
 
     method = fields.String(validate=validate.OneOf(("linear", "monte_carlo", "monte-carlo")))
     samples = WholeNumber(strict=True)
-    seed = WholeNumber(strict=True, validate=validate.Range(0, 2**63, max_inclusive=False))
+    seed = WholeNumber(strict=True, validate=validate.Range(
+        0, 2**63, max_inclusive=False, error="must be a whole number from 0 to 2^63 - 1, not {input}"))
 
     @validates_schema
     def _check(self, data, **kwargs):
