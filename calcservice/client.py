@@ -1104,11 +1104,8 @@ def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, An
     """A contract column object's Quantity members in numbers of the object's unit: the value's (its own unit
     where the object gives none), each sigma's converted to the value's (the input's default unit without one)."""
     col = dict(col)
-    if col.get("unit") is not None and not isinstance(col["unit"], str):
-        if not _is_unit(col["unit"]):
-            raise InvalidInput(f"{label}: its unit is a string such as 'd' or an astropy unit, not "
-                               f"{type(col['unit']).__name__}")
-        col["unit"] = unit_text(col["unit"], label)
+    if col.get("unit") is not None:
+        col["unit"] = unit_text(col["unit"], label, "its unit")
     value = col.get("value")
     if _unit_of(value) is not None:
         from astropy import units as u
@@ -1236,10 +1233,7 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     _finite(value, decl)
     if isinstance(value, Mapping):          # the contract's object: its numbers are no more infinite than a bare one
         if value.get("unit") is not None and not isinstance(value["unit"], str):
-            if not _is_unit(value["unit"]):
-                raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its unit is a string such as 'd' or an "
-                                   f"astropy unit, not {type(value['unit']).__name__}")
-            value = {**value, "unit": unit_text(value["unit"], (decl or {}).get("name", "an input"))}
+            value = {**value, "unit": unit_text(value["unit"], (decl or {}).get("name", "an input"), "its unit")}
         for member in ("value", "sigma", "sigma_minus", "sigma_plus", "samples"):
             if hasattr(value.get(member), "unit") and hasattr(value.get(member), "value"):
                 raise InvalidInput(f"{(decl or {}).get('name', 'an input')}: its {member} is an astropy Quantity "
