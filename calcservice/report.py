@@ -725,17 +725,13 @@ def event_notes(results: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, A
     return out
 
 
-def _folded(key: str, values) -> bool:
-    """Whether ``key`` is the sigma of another note of ``values`` (printed beside it, as value ± sigma)."""
-    return key.endswith("_sigma") and any(k == key[:-len("_sigma")] for k, _v, _u in values)
-
-
-def _note(key: str, value: Any, unit: str, values: Mapping[str, Any], s: Style) -> str:
-    """One note on the events, ``key = value unit``: value ± sigma rounded together where its sigma is a note too
-    (a light-travel amplitude's), else its short text."""
-    sigma = values.get(key + "_sigma")
-    shown = s.number(printed(value, sigma=sigma)) if _finite(value) and _finite(sigma) else s.text(short_text(value))
-    return s.text(f"{key} = ") + shown + (f" {s.unit(unit)}" if unit else "")
+def _notes_line(values: list[tuple[str, Any, str]], s: Style) -> str:
+    """One mapping of notes on the events as ``key = value unit, ...``: its members and their sigmas as an event's
+    (:func:`event_keys`, :func:`event_field`: a light-travel amplitude as value ± sigma, none left blank)."""
+    entry, units = {k: v for k, v, _u in values}, {k: u for k, _v, u in values}
+    fields = ((k, event_field(entry, k, "")) for k in event_keys([entry]))
+    return ", ".join(s.text(f"{k} = ") + (s.number(f) if isinstance(f, Printed) else s.text(f))
+                     + (f" {s.unit(units[k])}" if units[k] else "") for k, f in fields)
 
 
 def _share(x: float) -> str:
@@ -919,9 +915,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     notes = event_notes(results)
     if notes:
         doc.heading("Notes on the events")
-        doc.items([s.text(f"{label}: ") + ", ".join(_note(k, v, u, dict((key, x) for key, x, _u in values), s)
-                                                    for k, v, u in values if v is not None and not _folded(k, values))
-                   for label, values in notes])
+        doc.items([s.text(f"{label}: ") + _notes_line(values, s) for label, values in notes])
 
     doc.heading("Formulas")
     entries = []
