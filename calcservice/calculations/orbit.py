@@ -172,15 +172,15 @@ def ephemeris_events(quantities, statics, options, time_format="jd") -> list[dic
         cov = cov_all[:, :len(EVENT_ELEMENTS), :len(EVENT_ELEMENTS)]
         amplitudes = {star: None if k is None else np.broadcast_to(phys.light_travel_amplitude(k, p, e), (n,))
                       for star, k in (("star1", k1), ("star2", k2))}
-        # a sin i / c is a product of powers of K, P and (1 - e^2): its partials are A/K, A/P and -A e/(1 - e^2)
-        amplitude_sigmas = {
-            star: None if a is None else phys.event_sigma(
-                {"d_" + name: np.zeros((n, 1)) for name in elements} | {
-                    "d_" + k_name: (a / np.broadcast_to(_value(quantities, k_name), (n,)))[:, None],
-                    "d_period": (a / p)[:, None],
-                    "d_eccentricity": (-a * e / ((1.0 - e) * (1.0 + e)))[:, None]},
-                cov_all, elements)[:, 0]
-            for (star, a), k_name in zip(amplitudes.items(), ("k1", "k2"))}
+        amplitude_sigmas = {}
+        for (star, a), k_name in zip(amplitudes.items(), ("k1", "k2")):
+            if a is None:
+                amplitude_sigmas[star] = None
+                continue
+            partials = phys.light_travel_amplitude_derivatives(a, np.broadcast_to(_value(quantities, k_name), (n,)), p, e)
+            partials["d_" + k_name] = partials.pop("d_k")
+            terms = {"d_" + name: partials.get("d_" + name, np.zeros(n))[:, None] for name in elements}
+            amplitude_sigmas[star] = phys.event_sigma(terms, cov_all, elements)[:, 0]
     chosen = statics.get("light_travel_time") or "none"
     light = None if chosen == "none" or amplitudes.get(chosen) is None else (amplitudes[chosen], int(chosen[-1]))
 

@@ -21,7 +21,7 @@ from ..constants import AU, C_LIGHT_KM_S, DAYS_PER_JULIAN_YEAR, GM_SUN, JULIAN_Y
 from . import kepler
 from .angles import cos_degrees, sin_cos_degrees, wrap_degrees
 from .exact import elapsed
-from .spectroscopic import kepler_semimajor_axis, kepler_total_mass
+from .spectroscopic import kepler_semimajor_axis, kepler_total_mass, one_minus_e_squared
 
 AU_IN_SOLAR_RADII = AU / R_SUN
 
@@ -111,6 +111,13 @@ def light_travel_amplitude(k, period, eccentricity):
     1 - e^2 as (1 - e)(1 + e), exact at e -> 1.
     """
     return k * period * np.sqrt((1.0 - eccentricity) * (1.0 + eccentricity)) / (TWO_PI * C_LIGHT_KM_S)
+
+
+def light_travel_amplitude_derivatives(amplitude, k, period, eccentricity):
+    """Partial derivatives of :func:`light_travel_amplitude` A = K P sqrt(1 - e^2) / (2 pi c), a product of powers:
+    ``d_k`` = A/K, ``d_period`` = A/P, ``d_eccentricity`` = -A e/(1 - e^2) (days per km/s, per day, per unit e)."""
+    return {"d_k": amplitude / k, "d_period": amplitude / period,
+            "d_eccentricity": -amplitude * eccentricity / one_minus_e_squared(eccentricity)}
 
 
 def light_travel_delay(amplitude, true_anomaly_rad, eccentricity, omega_rad):
