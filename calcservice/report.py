@@ -371,6 +371,10 @@ def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, 
             out.append(("math", symbol[1]))
             i += len(symbol[0])
             continue
+        if text.startswith(("e.g.", "i.e."), i) and not (prev.isascii() and prev.isalnum()):
+            out.append(("text", text[i:i + 4]))      # the abbreviations are words, not e times g
+            i += 4
+            continue
         if c.isascii() and c.isalpha():
             m = _LETTERS.match(text, i)
             # a word begins here: not within one, nor the s of a possessive ("the primary's orbit")
@@ -379,7 +383,7 @@ def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, 
             if m and starts:
                 letters, digits = m.groups()
                 tex = _symbol(letters)
-                if len(letters) == 2 and not digits and text.startswith("_", m.end()):
+                if len(letters) == 2 and not digits and tex is None and text.startswith("_", m.end()):
                     tex = letters                   # a two-letter symbol with a subscript: GM_sun
                 if letters == "a" and not digits and _ARTICLE.match(text, m.end()):
                     tex = None                      # the article ("a dark companion"), not the semi-major axis
@@ -409,8 +413,11 @@ def _inner_tex(text: str, symbols: tuple = _MATH_SYMBOLS) -> str:
                    for kind, s in _maths_tokens(text, symbols))
 
 
-#: the symbols for plain LaTeX, which has no \gtrsim nor \lesssim without a package (amssymb)
-LATEX_SYMBOLS = tuple((a, {">~": r"\stackrel{>}{\sim}", "<~": r"\stackrel{<}{\sim}"}.get(a, t)) for a, t in _MATH_SYMBOLS)
+#: the symbols for plain LaTeX, which has no \gtrsim nor \lesssim without a package (amssymb), and whose text
+#: fonts have no < nor > (OT1 sets them as inverted marks): they are set as maths too
+LATEX_SYMBOLS = tuple((a, {">~": r"\stackrel{>}{\sim}", "<~": r"\stackrel{<}{\sim}"}.get(a, t))
+                      for a, t in _MATH_SYMBOLS) + (("<", "<"), (">", ">"))
+_RELATIONS = frozenset({"<", ">", r"\leq", r"\geq"})
 
 
 def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple = _MATH_SYMBOLS) -> str:
@@ -431,14 +438,18 @@ def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple =
         j = k + 1
         while j < len(tokens) and tokens[j][0] != "text":
             j += 1
-        start = k
-        while start > 0 and tokens[start - 1][0] == "neutral" and tokens[start - 1][1] in "([-" and out \
+        # a relation takes the number written before it too ("0 < i < 180"), set as one formula
+        start, back = k, "([-" + (" 0123456789." if s in _RELATIONS else "")
+        while start > 0 and tokens[start - 1][0] == "neutral" and tokens[start - 1][1] in back and out \
                 and out[-1] == tokens[start - 1][1]:
             out.pop()
             start -= 1
+        while start < k and tokens[start][1] == " ":
+            out.append(" ")
+            start += 1
         formula = "".join(t for _, t in tokens[start:j])
-        if start < k and formula.count(tokens[start][1]) > formula.count(")]"["([".index(tokens[start][1])]) \
-                and tokens[start][1] != "-":
+        if start < k and tokens[start][1] in "([" \
+                and formula.count(tokens[start][1]) > formula.count(")]"["([".index(tokens[start][1])]):
             out.append(tokens[start][1])    # a bracket whose partner is beyond the formula stays beside it
             formula = formula[1:]
         tex = formula.rstrip(" ([-")
@@ -447,6 +458,19 @@ def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple =
         out.append("$" + tex.rstrip() + "$" + formula[len(tex.rstrip()):])
         k = j
     return "".join(out)
+
+
+def latex_text(text: str, names: Iterable[str] = ()) -> str:
+    """A declaration's text (a description, a formula) for the LaTeX report: the calculation's field ``names``
+    that hold an underscore as code, as the inputs' table writes them (set as maths, ``omega_primary`` would
+    read omega with a subscript, a field the reader cannot find), and the rest with its maths set as maths."""
+    style = STYLES["latex"]
+    fields = sorted((n for n in names if "_" in n), key=len, reverse=True)
+    if not fields:
+        return tex_maths(text, style.text, LATEX_SYMBOLS)
+    parts = re.split(r"(?<![\w])(" + "|".join(map(re.escape, fields)) + r")(?![\w])", text)
+    return "".join(style.code(p) if k % 2 else tex_maths(p, style.text, LATEX_SYMBOLS) if p else ""
+                   for k, p in enumerate(parts))
 
 
 # --------------------------------------------------------------------------- the report's content
@@ -861,6 +885,10 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     scale = "MJD" if response.get("time_format") == "mjd" else "JD"
     dates = ({n for i in calc.inputs if getattr(i, "time", False) for n in (i.name, i.label) if n}
              if calc is not None else set())
+    fields = [f.name for f in (*calc.inputs, *calc.outputs)] if calc is not None else []
+    # a declaration's text in LaTeX: its maths set as maths, its field names as code (an input's description read
+    # "0 \textless{} i ... cos i uniform", a formula "P K1\textasciicircum{}3" in typewriter type)
+    declared = (lambda t: latex_text(t, fields)) if s.name == "latex" else s.text
     doc.heading("Inputs")
     rows = []
     for key, entry in response.get("inputs", {}).items():
@@ -877,7 +905,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         if key in dates and not (isinstance(entry, dict) and isinstance(entry.get("value"), str)):
             shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
-                     shown_unit, s.text(desc)])
+                     shown_unit, declared(desc)])
     doc.table(["input", "value", "unit", "description"], rows, wrap_last=True)
 
     results = response.get("results", {})
@@ -891,8 +919,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             except KeyError:
                 pass
         # an output's description set with its maths as maths in LaTeX (M1 sin^3 i read as code), as a figure sets it
-        shown = tex_maths(desc, s.text, LATEX_SYMBOLS) if s.name == "latex" else s.text(desc)
-        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), shown])
+        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), declared(desc)])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)
@@ -923,7 +950,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         f = formulas.get(key)
         if f:
             cite = _cite(_references_of(calc, key, references), "--" if s.name == "latex" else "–")
-            entries.append(f"{s.code(key)}: {s.code(f)} {cite}")
+            entries.append(f"{s.code(key)}: {declared(f) if s.name == 'latex' else s.code(f)} {cite}")
     doc.items(entries)
 
     doc.heading("References")

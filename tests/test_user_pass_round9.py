@@ -1,0 +1,71 @@
+"""What a referee, a command-line user and a Python user tripped on (round 9).
+
+The LaTeX report set its results' descriptions as maths but left the inputs' descriptions and the formulas
+as text ("cos i uniform", "P K1\\textasciicircum{}3" in typewriter type); the command line counted the
+entries of a list from 0 where its user counts them from 1; the web form kept its method on "linear" after
+the service answered by Monte Carlo.  Every system here is fictional.
+"""
+
+import re
+
+import numpy as np
+import pytest
+
+from .test_referee_report import latex_problems
+
+
+def _row(tex: str, name: str) -> str:
+    return next(line for line in tex.splitlines() if line.startswith(r"\texttt{" + name.replace("_", r"\_") + "}"))
+
+
+# ----------------------------------------------------------------------------- the referee's LaTeX report
+def test_the_latex_reports_inputs_and_formulas_set_their_maths_as_maths(client):
+    from calcservice.registry import calculations
+    # a fictional SB1 with a primary mass and an inclination
+    body = {"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma": 0.3},
+            "eccentricity": {"value": 0.31, "sigma": 0.01}, "primary_mass": {"value": 1.9, "sigma": 0.1},
+            "inclination": {"value": 71.0, "sigma": 2.0}}
+    tex = client.post("/v1/spectroscopic/sb1?format=latex", json=body).get_data(as_text=True)
+    # the input read "(0 \textless{} i \textless{} 180 deg) ... (cos i uniform, ...)" in text
+    row = _row(tex, "inclination")
+    assert r"$\cos i$ uniform" in row and "$0 < i < 180$ deg" in row and "textless" not in row, row
+    # the formula was \texttt{f(M) = P K1\textasciicircum{}3 ...}; now set as the description's maths is
+    item = next(line for line in tex.splitlines() if r"\item \texttt{mass\_function}:" in line)
+    assert "textasciicircum" not in item and r"P K_{1}^{3} (1 - e^{2})^{3/2} / (2 \pi GM_{\odot})" in item, item
+    item = next(line for line in tex.splitlines() if r"\item \texttt{m2\_min}:" in line)
+    assert r"positive root of $M_{2}^{3} / (M_{1} + M_{2})^{2} = f(M)$" in item, item
+    assert latex_problems(tex) == []
+    # a field named in a description stays its name as the inputs' table writes it, not a symbol with a subscript
+    ti = calculations()["thiele-innes"]
+    tex = client.post(ti.path + "?format=latex", json=ti.example).get_data(as_text=True)
+    assert r"\texttt{omega\_primary}" in tex and r"\omega_{\mathrm{primary}}" not in tex
+    assert latex_problems(tex) == []
+
+
+def test_every_input_description_and_formula_sets_as_latex_maths_mathtext_parses():
+    """Each input's description and each formula, as the LaTeX report sets it, parses as maths (matplotlib's
+    mathtext, a subset of TeX, draws each $...$), with no ^ left in the words and no "e.g." set in italics."""
+    from matplotlib.mathtext import MathTextParser
+
+    from calcservice.registry import calculations
+    from calcservice.report import latex_text
+    parser = MathTextParser("path")
+    seen = set()
+    for calc in calculations().values():
+        names = calc_names(calc)
+        texts = [i.description for i in calc.inputs] + [o.formula for o in calc.outputs if o.formula]
+        for text in texts:
+            if (text, names) in seen:
+                continue
+            seen.add((text, names))
+            tex = latex_text(text, names)
+            assert latex_problems(tex) == [], (text, tex)
+            for maths in re.findall(r"\$[^$]*\$", tex):
+                parser.parse(maths.replace(r"\stackrel{>}{\sim}", ">").replace(r"\stackrel{<}{\sim}", "<"), 72)
+            words = re.sub(r"\$[^$]*\$", " ", tex)
+            assert "^" not in words.replace(r"\textasciicircum{}", "^") or "^" not in text, (text, tex)
+            assert "$e.g" not in tex and "e.g.$" not in tex, tex
+
+
+def calc_names(calc):
+    return tuple(sorted({i.name for i in calc.inputs} | {o.name for o in calc.outputs}))
