@@ -69,3 +69,33 @@ def test_every_input_description_and_formula_sets_as_latex_maths_mathtext_parses
 
 def calc_names(calc):
     return tuple(sorted({i.name for i in calc.inputs} | {o.name for o in calc.outputs}))
+
+
+# ----------------------------------------------------------------------------- the web form
+from .test_form_browser import _open, _shot, _type, _wait, base_url, browser  # noqa: E402,F401  (fixtures)
+
+
+@pytest.mark.browser
+def test_a_switch_to_monte_carlo_shows_in_the_form_and_its_report_and_histogram_draw_the_same(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#sb1")
+    browser.find_element(By.ID, "example").click()
+    # a fictional SB1 whose inclination is not known: the service answers by Monte Carlo, with a seed of its own
+    _type(browser, "in-inclination", "isotropic")
+    _type(browser, "sigma-inclination", "")
+    browser.execute_script("document.body.dataset.computed = 'pending'")
+    browser.find_element(By.ID, "compute").click()
+    _wait(browser, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-computed") == "true")
+    status = browser.find_element(By.ID, "status").text
+    seed = re.search(r"seed (\d+)", status).group(1)
+    # the method read "linear" beside Monte Carlo numbers (a warning said the service switched)
+    assert browser.find_element(By.ID, "method-mc").is_selected(), "the form still says linear"
+    assert browser.find_element(By.ID, "mc-options").is_displayed()
+    # the report was asked for again without a seed, and drew other numbers than the table shows
+    browser.find_element(By.ID, "report-markdown").click()
+    report = _wait(browser, lambda d: d.find_element(By.ID, "report").get_attribute("value") or None)
+    assert f"seed {seed}" in report, (seed, report[-1500:])
+    shown = browser.find_element(By.CSS_SELECTOR, '#results-table tr[data-output="m2"] td.value').text.split()[0]
+    assert re.search(r"\| `m2` \| " + re.escape(shown) + " ", report), (shown, report)
+    _shot(browser, "round9-sb1-isotropic-switched")

@@ -555,7 +555,15 @@
         return;
       }
       state.response = r.data;
-      rememberInAddress(r.data.uncertainty);
+      const drawn = r.data.uncertainty || {};
+      if (drawn.method === "monte_carlo" && Number.isInteger(drawn.seed)) {
+        // the report and the histograms ask again: with the seed drawn they show the numbers of this answer,
+        // where a seed of their own drew others
+        if (!(body.uncertainty && body.uncertainty.seed !== undefined)) body.uncertainty = { ...(body.uncertainty || {}), seed: drawn.seed };
+        // the service switched to Monte Carlo (an isotropic inclination, samples): the form says what was done
+        if ($("method-linear").checked) { $("method-mc").checked = true; toggleMethod(); }
+      }
+      rememberInAddress(drawn);
       renderResponse(state.calc, r.data);
       await drawPlots(state.calc, r.data, body, observed);
     } catch (err) {
