@@ -154,7 +154,12 @@ def parse_assignment(calc: Calculation, text: str) -> tuple[str, Any]:
         return name, out
     if raw.startswith("@"):
         return name, _samples(raw[1:], name)
-    return name, parse_measured(raw, name)
+    value = parse_measured(raw, name)
+    if isinstance(value, str) and not spec.time and not (spec.isotropic and value == "isotropic"):
+        # a word where a number goes: said in the command line's own forms, not the JSON objects the service lists
+        raise UsageError(name, f"{value!r} is not a number ({EXAMPLE_FORMS}"
+                               + (", or isotropic for random orientations)" if spec.isotropic else ")"))
+    return name, value
 
 
 def _input_names(calc: Calculation) -> str:
@@ -213,10 +218,20 @@ def build_body(calc: Calculation, args) -> dict:
 
 
 # --------------------------------------------------------------------------- output
+_ENTRY = re.compile(r"^entry (\d+): ")
+
+
+def ordinal(n: int) -> str:
+    """1st, 2nd, 3rd, 4th, 11th, 12th, 13th, 21st ..."""
+    return f"{n}{'th' if n % 100 in (11, 12, 13) else {1: 'st', 2: 'nd', 3: 'rd'}.get(n % 10, 'th')}"
+
+
 def _problem_line(p) -> str:
     errors = getattr(p, "errors", None) or {}
     if errors:
-        return "; ".join(f"{k}: {' '.join(v)}" for k, v in errors.items())
+        # a list's entry is counted from 1, as its user typed it (the JSON answer's "entry 1" is its index)
+        counted = lambda m: f"the {ordinal(int(m.group(1)) + 1)} entry: "      # noqa: E731
+        return "; ".join(f"{k}: {' '.join(_ENTRY.sub(counted, m) for m in v)}" for k, v in errors.items())
     return getattr(p, "detail", str(p))
 
 

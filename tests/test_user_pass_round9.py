@@ -99,3 +99,53 @@ def test_a_switch_to_monte_carlo_shows_in_the_form_and_its_report_and_histogram_
     shown = browser.find_element(By.CSS_SELECTOR, '#results-table tr[data-output="m2"] td.value').text.split()[0]
     assert re.search(r"\| `m2` \| " + re.escape(shown) + " ", report), (shown, report)
     _shot(browser, "round9-sb1-isotropic-switched")
+
+
+# ----------------------------------------------------------------------------- the command line
+def _run(capsys, *argv):
+    from calcservice.cli import main
+    code = main(["compute", *argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_the_command_line_counts_a_lists_entries_from_one_as_its_user_does(capsys):
+    # a fictional orbit; the second of the three times typed is no date
+    code, _, err = _run(capsys, "ephemeris", "period=10", "eccentricity=0.1", "omega=30", "t_periastron=2450000",
+                        "k1=20", "times=2450001,abc,2450003")
+    # the line read "times: entry 1: 'abc' ..." (the JSON answer's index, counted from 0)
+    assert code == 1 and err.strip() == "calcservice compute: times: the 2nd entry: 'abc' is not an ISO 8601 time", err
+    code, _, err = _run(capsys, "ephemeris", "period=10", "eccentricity=0.1", "omega=30", "t_periastron=2450000",
+                        "k1=20", "times=2450001,2450002,2450003,1e9")
+    assert code == 1 and err.startswith("calcservice compute: times: the 4th entry: must be a Julian Date"), err
+
+
+def test_the_command_line_says_a_word_for_a_number_in_its_own_forms(capsys):
+    code, _, err = _run(capsys, "sb2", "period=abc", "k1=1", "k2=2", "eccentricity=0")
+    # it read "must be a number, or an object such as {"value": 1.2, "sigma": 0.1}, ...": the JSON forms
+    assert code == 2 and "{" not in err and err.startswith("calcservice compute: period: 'abc' is not a number"), err
+    assert "61.4+-0.9" in err
+    # an inclination may be the word isotropic, and a date an ISO 8601 string: both still go through
+    code, out, _ = _run(capsys, "sb1", "period=3.4", "k1=30+-1", "eccentricity=0", "primary_mass=1.2",
+                        "inclination=isotropic", "--seed", "3", "--samples", "200")
+    assert code == 0 and "Monte Carlo" in out
+    code, _, err = _run(capsys, "sb1", "period=3.4", "k1=30", "eccentricity=0", "primary_mass=1.2",
+                        "inclination=isotropc")
+    assert code == 2 and "'isotropc' is not a number" in err and "isotropic" in err.split("number", 1)[1], err
+
+
+@pytest.mark.browser
+def test_the_form_counts_a_lists_entries_from_one(browser, base_url):  # noqa: F811
+    from selenium.webdriver.common.by import By
+    browser.set_window_size(1280, 1400)
+    _open(browser, f"{base_url}/#ephemeris")
+    browser.find_element(By.ID, "example").click()
+    # the example's fictional orbit, the second of three times no date
+    _type(browser, "in-times", "2460400.5, abc, 2460600.5")
+    browser.execute_script("document.body.dataset.computed = 'pending'")
+    browser.find_element(By.ID, "compute").click()
+    _wait(browser, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-computed") == "true")
+    error = _wait(browser, lambda d: d.find_element(By.ID, "error-times").text or None)
+    # it read "entry 1: 'abc' is not an ISO 8601 time", the JSON index
+    assert error.startswith("the 2nd entry: 'abc' is not an ISO 8601 time"), error
+    _shot(browser, "round9-ephemeris-times-entry")

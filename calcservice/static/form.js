@@ -472,6 +472,9 @@
     return pair && Array.isArray(pair.between) ? `${pair.between.join(",")}=${pair.rho}` : rest;
   }
 
+  function ordinal(n) {
+    return n + (n % 100 >= 11 && n % 100 <= 13 ? "th" : ({ 1: "st", 2: "nd", 3: "rd" }[n % 10] || "th"));
+  }
   function showProblem(problem, target) {
     // the reason in the banner (the problem's detail and each field's message), and each message
     // again beside its field
@@ -483,6 +486,8 @@
       const base = key.split(".")[0];
       const spec = calc ? calc.inputs.find((i) => i.name === base) : null;
       let text = [].concat(messages).map((m) => (typeof m === "string" ? m : JSON.stringify(m))).join("; ");
+      // a list's entry counted from 1, as the visitor typed it (the answer's "entry 1" is its JSON index)
+      if (spec && spec.kind === "series") text = text.replace(/(^|; )entry (\d+): /g, (_, sep, k) => `${sep}the ${ordinal(Number(k) + 1)} entry: `);
       text += unitHint(spec, text);
       const where = key === base ? "" : `${pairTyped(base, key.slice(base.length + 1))}: `;
       const box = $(`error-${base}`);
