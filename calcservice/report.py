@@ -387,6 +387,8 @@ def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, 
                     tex = letters                   # a two-letter symbol with a subscript: GM_sun
                 if letters == "a" and not digits and _ARTICLE.match(text, m.end()):
                     tex = None                      # the article ("a dark companion"), not the semi-major axis
+                if len(letters) == 1 and not digits and re.compile(r"-[A-Za-z]").match(text, m.end()):
+                    tex = None                      # a hyphenated word ("o-star"), not a variable
                 if letters == "sqrt" and not digits and (g := _group(text, m.end())) and text[m.end()] == "(":
                     out.append(("math", r"\sqrt{" + _inner_tex(g[0], symbols) + "}"))
                     i = g[1]
@@ -460,17 +462,24 @@ def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple =
     return "".join(out)
 
 
-def latex_text(text: str, names: Iterable[str] = ()) -> str:
-    """A declaration's text (a description, a formula) for the LaTeX report: the calculation's field ``names``
-    that hold an underscore as code, as the inputs' table writes them (set as maths, ``omega_primary`` would
-    read omega with a subscript, a field the reader cannot find), and the rest with its maths set as maths."""
-    style = STYLES["latex"]
-    fields = sorted((n for n in names if "_" in n), key=len, reverse=True)
+def field_parts(text: str, names: Iterable[str] = (), formula: bool = False) -> list[str]:
+    """``text`` split around the calculation's field names it mentions (odd items), which a reader finds in the
+    inputs' table as written: set as maths, ``omega_primary`` would read omega with a subscript and ``m1`` as
+    M with a subscript.  Names that are words (period, inclination) stay words; a formula is written in symbols
+    (a1 sin i, K1), so there only a name with an underscore is a field's."""
+    fields = sorted((n for n in names if "_" in n or (not formula and any(c.isdigit() for c in n))),
+                    key=len, reverse=True)
     if not fields:
-        return tex_maths(text, style.text, LATEX_SYMBOLS)
-    parts = re.split(r"(?<![\w])(" + "|".join(map(re.escape, fields)) + r")(?![\w])", text)
+        return [text]
+    return re.split(r"(?<![\w])(" + "|".join(map(re.escape, fields)) + r")(?![\w])", text)
+
+
+def latex_text(text: str, names: Iterable[str] = (), formula: bool = False) -> str:
+    """A declaration's text (a description, a formula) for the LaTeX report: the field names it mentions as code
+    (``field_parts``), the rest with its maths set as maths."""
+    style = STYLES["latex"]
     return "".join(style.code(p) if k % 2 else tex_maths(p, style.text, LATEX_SYMBOLS) if p else ""
-                   for k, p in enumerate(parts))
+                   for k, p in enumerate(field_parts(text, names, formula)))
 
 
 # --------------------------------------------------------------------------- the report's content
@@ -888,7 +897,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     fields = [f.name for f in (*calc.inputs, *calc.outputs)] if calc is not None else []
     # a declaration's text in LaTeX: its maths set as maths, its field names as code (an input's description read
     # "0 \textless{} i ... cos i uniform", a formula "P K1\textasciicircum{}3" in typewriter type)
-    declared = (lambda t: latex_text(t, fields)) if s.name == "latex" else s.text
+    declared = (lambda t, formula=False: latex_text(t, fields, formula)) if s.name == "latex" else s.text
     doc.heading("Inputs")
     rows = []
     for key, entry in response.get("inputs", {}).items():
@@ -950,7 +959,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         f = formulas.get(key)
         if f:
             cite = _cite(_references_of(calc, key, references), "--" if s.name == "latex" else "–")
-            entries.append(f"{s.code(key)}: {declared(f) if s.name == 'latex' else s.code(f)} {cite}")
+            entries.append(f"{s.code(key)}: {declared(f, True) if s.name == 'latex' else s.code(f)} {cite}")
     doc.items(entries)
 
     doc.heading("References")

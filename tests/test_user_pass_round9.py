@@ -53,12 +53,12 @@ def test_every_input_description_and_formula_sets_as_latex_maths_mathtext_parses
     seen = set()
     for calc in calculations().values():
         names = calc_names(calc)
-        texts = [i.description for i in calc.inputs] + [o.formula for o in calc.outputs if o.formula]
-        for text in texts:
+        texts = [(i.description, False) for i in calc.inputs] + [(o.formula, True) for o in calc.outputs if o.formula]
+        for text, formula in texts:
             if (text, names) in seen:
                 continue
             seen.add((text, names))
-            tex = latex_text(text, names)
+            tex = latex_text(text, names, formula)
             assert latex_problems(tex) == [], (text, tex)
             for maths in re.findall(r"\$[^$]*\$", tex):
                 parser.parse(maths.replace(r"\stackrel{>}{\sim}", ">").replace(r"\stackrel{<}{\sim}", "<"), 72)
@@ -149,3 +149,32 @@ def test_the_form_counts_a_lists_entries_from_one(browser, base_url):  # noqa: F
     # it read "entry 1: 'abc' is not an ISO 8601 time", the JSON index
     assert error.startswith("the 2nd entry: 'abc' is not an ISO 8601 time"), error
     _shot(browser, "round9-ephemeris-times-entry")
+
+
+# ----------------------------------------------------------------------------- the reference page
+def test_the_reference_page_sets_descriptions_and_formulas_as_maths(client):
+    page = client.get("/docs").get_data(as_text=True)
+    sb1 = page[page.index('<section class="calculation" id="sb1"'):]
+    sb1 = sb1[:sb1.index("</section>")]
+    row = next(r for r in sb1.split("<tr>") if r.startswith("<td><code>mass_function</code>"))
+    # it read "M2^3 sin^3 i / (M1+M2)^2" and the formula "f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi GM_sun)" as code
+    assert "^" not in re.sub(r'title="[^"]*"', "", row), row
+    assert "<i>M</i><sub>2</sub><sup>3</sup>" in row and "sin" in row
+    assert "(2 π <i>GM</i><sub>⊙</sub>)" in row and "(1 − <i>e</i><sup>2</sup>)<sup>3/2</sup>" in row, row
+    # the declaration's own text stays there to copy (as the span's title), as the form keeps it
+    assert 'title="f(M) = P K1^3 (1 - e^2)^{3/2} / (2 pi GM_sun)"' in row
+    row = next(r for r in sb1.split("<tr>") if r.startswith("<td><code>inclination</code>"))
+    assert "<i>i</i>" in row and "^" not in row
+    # a field's name stays a name: omega_primary is no omega with a subscript
+    ti = page[page.index('<section class="calculation" id="thiele-innes"'):]
+    ti = ti[:ti.index("</section>")]
+    assert "<code>omega_primary</code>" in ti and "<sub>primary</sub>" not in ti
+    # and m1 is the input m1 (M1 is the symbol), while a formula's a1 sin i is written in symbols
+    collision = page[page.index('<section class="calculation" id="collision"'):]
+    row = next(r for r in collision.split("<tr>") if r.startswith("<td><code>m1</code>"))
+    assert "with period and <code>m2</code>" in row, row
+    # a rate is the letter with a dot over it: eta = Mdot2 v2 / (Mdot1 v1) read "M" where "Ṁ" was meant
+    row = next(r for r in collision.split("<tr>") if r.startswith("<td><code>momentum_ratio</code>"))
+    assert "<i>η</i> = <i>Ṁ</i><sub>2</sub> <i>v</i><sub>2</sub>" in row.replace("η", "<i>η</i>", 1) or \
+        "η = <i>Ṁ</i><sub>2</sub> <i>v</i><sub>2</sub>" in row, row
+    assert "<i>a</i><sub>1</sub> sin <i>i</i> = <i>K</i><sub>1</sub>" in sb1
