@@ -261,6 +261,10 @@ def table(response: dict, calc: Calculation) -> str:
         lines += ([""] if rows else []) + _columns(header, body, right=True)
     for label, header, body in report.event_tables(results, style):
         lines += ["", label.replace("_", " ")] + _columns(header, body)
+    # what the events say of themselves (the light-travel amplitudes), as the report's notes on the events
+    notes = report.event_notes(results)
+    if notes:
+        lines += [""] + [f"{label}: {report.notes_line(values, style)}" for label, values in notes]
     warnings = response.get("warnings", [])
     if warnings:
         lines.append("")

@@ -758,7 +758,7 @@ def event_notes(results: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, A
     return out
 
 
-def _notes_line(values: list[tuple[str, Any, str]], s: Style) -> str:
+def notes_line(values: list[tuple[str, Any, str]], s: Style) -> str:
     """One mapping of notes on the events as ``key = value unit, ...``: its members and their sigmas as an event's
     (:func:`event_keys`, :func:`event_field`: a light-travel amplitude as value ± sigma, none left blank)."""
     entry, units = {k: v for k, v, _u in values}, {k: u for k, _v, u in values}
@@ -951,7 +951,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     notes = event_notes(results)
     if notes:
         doc.heading("Notes on the events")
-        doc.items([s.text(f"{label}: ") + _notes_line(values, s) for label, values in notes])
+        doc.items([s.text(f"{label}: ") + notes_line(values, s) for label, values in notes])
 
     doc.heading("Formulas")
     entries = []

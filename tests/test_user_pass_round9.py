@@ -178,3 +178,22 @@ def test_the_reference_page_sets_descriptions_and_formulas_as_maths(client):
     assert "<i>η</i> = <i>Ṁ</i><sub>2</sub> <i>v</i><sub>2</sub>" in row.replace("η", "<i>η</i>", 1) or \
         "η = <i>Ṁ</i><sub>2</sub> <i>v</i><sub>2</sub>" in row, row
     assert "<i>a</i><sub>1</sub> sin <i>i</i> = <i>K</i><sub>1</sub>" in sb1
+
+
+def test_the_command_line_table_gives_the_notes_on_the_events_as_the_report_does(capsys, client):
+    from calcservice.registry import calculations
+    from calcservice.report import STYLES, event_notes, notes_line
+    calc = calculations()["ephemeris"]
+    args = [f"{k}={v['value']}+-{v['sigma']}" if isinstance(v, dict) else
+            f"{k}={','.join(map(str, v))}" if isinstance(v, list) else f"{k}={v}"
+            for k, v in calc.example.items() if k != "correlations"]
+    code, out, _ = _run(capsys, "ephemeris", *args)
+    # the fictional example's orbit: the light-travel amplitudes a sin i / c of both stars were in the report only
+    body = {k: v for k, v in calc.example.items() if k != "correlations"}
+    answer = client.post(calc.path, json=body).get_json()
+    notes = event_notes(answer["results"])
+    assert code == 0 and notes
+    for label, values in notes:
+        # the same words as the report's "Notes on the events", from the answer's own numbers
+        assert f"{label}: {notes_line(values, STYLES['text'])}" in out, out[-800:]
+    assert "amplitude_star1 = 0.0323 ± 0.0007 d" in out
