@@ -179,6 +179,7 @@ class Result(dict):
         title, header, rows = self._summary()
         return "".join([_html_table(title, header, rows) if rows else f"<p>{html.escape(title)}</p>"]
                        + [_html_table(*table) for table in _series_and_events(self.get("results") or {}, self._scale)]
+                       + [f"<p>{html.escape(note)}</p>" for note in _event_notes(self.get("results") or {})]
                        + [f"<p>warning [{html.escape(str(w.get('code')))}]: {html.escape(str(w.get('message')))}</p>"
                           for w in self.get("warnings") or [] if isinstance(w, Mapping)])
 
@@ -209,7 +210,14 @@ def _series_and_events_text(results: Mapping[str, Any], scale: str = "JD") -> li
     lines: list[str] = []
     for title, header, body in _series_and_events(results, scale):
         lines += [""] + ([] if title == "series" else [title]) + _text_rows([header, *body])
-    return lines
+    notes = _event_notes(results)
+    return lines + ([""] + notes if notes else [])
+
+
+def _event_notes(results: Mapping[str, Any]) -> list[str]:
+    """What the events say of themselves (the light-travel amplitudes), a line each, as the report's notes."""
+    from .report import STYLES, event_notes, notes_line
+    return [f"{label}: {notes_line(values, STYLES['text'])}" for label, values in event_notes(results)]
 
 
 def _float(x) -> float:

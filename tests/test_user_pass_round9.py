@@ -197,3 +197,12 @@ def test_the_command_line_table_gives_the_notes_on_the_events_as_the_report_does
         # the same words as the report's "Notes on the events", from the answer's own numbers
         assert f"{label}: {notes_line(values, STYLES['text'])}" in out, out[-800:]
     assert "amplitude_star1 = 0.0323 ± 0.0007 d" in out
+
+
+def test_a_printed_ephemeris_gives_the_notes_on_the_events(local):
+    from calcservice.registry import calculations
+    calc = calculations()["ephemeris"]
+    r = local.calculate("ephemeris", **{k: v for k, v in calc.example.items() if k != "correlations"})
+    # the light-travel amplitudes were in the answer's mapping only, not in print(result) nor in Jupyter's table
+    line = "events: light travel time: applied = none, amplitude_star1 = 0.0323 ± 0.0007 d"
+    assert line in str(r) and line in r._repr_html_()
