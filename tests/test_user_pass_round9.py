@@ -139,6 +139,10 @@ def test_the_form_counts_a_lists_entries_from_one(browser, base_url):  # noqa: F
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
     _open(browser, f"{base_url}/#ephemeris")
+    # the hint "mass of star 1 (with m2, ...)" showed the field m2 as m with a subscript 2, which no field is called
+    hint = browser.find_element(By.ID, "desc-m1")
+    assert [c.text for c in hint.find_elements(By.TAG_NAME, "code")] == ["m2"], hint.get_attribute("innerHTML")
+    assert not hint.find_elements(By.TAG_NAME, "sub")
     browser.find_element(By.ID, "example").click()
     # the example's fictional orbit, the second of three times no date
     _type(browser, "in-times", "2460400.5, abc, 2460600.5")

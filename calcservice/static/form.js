@@ -137,13 +137,21 @@
   }
   // a message naming fields ("t_periastron: an MJD of ..."): each name as code, as the form labels it (typeset,
   // t_periastron would read "t" with a subscript, a field the visitor cannot find), the rest typeset
-  function namedMath(text, names) {
+  function namedMath(text, names, cls) {
     const list = (Array.isArray(names) ? names : []).filter((n) => typeof n === "string" && n)
       .sort((a, b) => b.length - a.length).map((n) => n.replace(/[.*+?^${}()|[\]\\]/g, "\\$&"));
-    if (!list.length) return math(text);
+    if (!list.length) return math(text, cls);
     const parts = text.split(new RegExp(`(?<![\\w])(${list.join("|")})(?![\\w])`));
-    return el("span", { class: "math", title: text },
+    return el("span", { class: "math" + (cls ? " " + cls : ""), title: text },
       parts.flatMap((p, i) => (i % 2 ? [el("code", { text: p })] : p ? mathNodes(p) : [])));
+  }
+  // a declaration's text naming the calculation's fields, by the rule of the LaTeX report and /docs
+  // (report.field_parts): a name with an underscore or a digit (m2, omega_primary) is the field's name in a
+  // description, only one with an underscore in a formula (written in symbols: a1 sin i, K1)
+  function declared(calc, text, formula, cls) {
+    const names = calc ? [...calc.inputs, ...calc.outputs].map((f) => f.name)
+      .filter((n) => n.includes("_") || (!formula && /\d/.test(n))) : [];
+    return namedMath(text, names, cls);
   }
   function math(text, cls) { return el("span", { class: "math" + (cls ? " " + cls : ""), title: text }, mathNodes(text)); }
 
@@ -305,7 +313,7 @@
     const unitNote = spec.kind === "choice" || !spec.unit ? "" : ` [${spec.unit}]`;
     const domain = domainText(spec);
     row.append(el("p", { class: "desc", id: `desc-${name}` },
-      [math(spec.description), document.createTextNode(`${unitNote}${domain ? " · " + domain : ""}`)]));
+      [declared(state.calc, spec.description), document.createTextNode(`${unitNote}${domain ? " · " + domain : ""}`)]));
     row.append(el("p", { class: "field-error", id: `error-${name}`, hidden: true }));
     return row;
   }
@@ -652,8 +660,8 @@
     for (const [name, entry] of Object.entries(results)) {
       if (!isMeasured(entry)) continue;
       const spec = outputs[name];
-      const desc = el("td", { class: "desc" }, spec ? [math(spec.description)] : []);
-      if (spec && spec.formula) desc.append(math(spec.formula, "formula"));
+      const desc = el("td", { class: "desc" }, spec ? [declared(calc, spec.description)] : []);
+      if (spec && spec.formula) desc.append(declared(calc, spec.formula, true, "formula"));
       const tr = el("tr", { "data-output": name }, [
         el("td", { class: "name" }, breakable(name)), valueCell(entry), el("td", { class: "unit", text: entry.unit || "" }), desc]);
       rows.push(tr);
