@@ -608,6 +608,13 @@ def write_catalogue(path: str, result, calc: Calculation) -> int:
             status[e["index"]] = int(e.get("status") or 422)
     table.add_column(MaskedColumn(status, mask=status == 0), name="error_status", index=table.colnames.index("error"))
     table.meta = {"calculation": calc.name}
+    answer = result.response or {}
+    unc = {k: v for k, v in (answer.get("uncertainty") or {}).items() if isinstance(v, (str, int, float))}
+    # what a FITS header or a VOTable INFO can hold of how the numbers were made: the method, draws and seed
+    # redraw them, the version names the code
+    described = {"CALC": calc.name, **{k.upper(): unc[k] for k in ("method", "samples", "seed") if k in unc},
+                 "VERSION": (answer.get("provenance") or {}).get("version")}
+    described = {k: v for k, v in described.items() if v is not None}
     if fmt in ("ascii.csv", "ascii.ecsv"):
         # plain columns, each unit in the service's own spelling ("au", "km/s", not astropy's "AU", "km / s"): in
         # a CSV header, as the reader takes it; in the ECSV header, as the service's ECSV answer writes it
@@ -630,16 +637,21 @@ def write_catalogue(path: str, result, calc: Calculation) -> int:
                 plain[name] = col
         if fmt == "ascii.ecsv":
             # the answer's calculation, method and provenance as the service's ECSV header has them
-            answer = result.response or {}
-            unc = {k: v for k, v in (answer.get("uncertainty") or {}).items() if isinstance(v, (str, int, float))}
             plain.meta = {"calculation": calc.name, "uncertainty": unc,
                           **({"provenance": answer["provenance"]} if "provenance" in answer else {})}
         table = plain
     elif fmt == "fits":
-        table.meta = {"CALC": calc.name}
+        table.meta = described
     try:
         if path == "-":
             table.write(sys.stdout, format=fmt)
+        elif fmt == "votable":
+            # astropy's VOTable writer drops a table's meta: the same keys as INFO elements of the table
+            from astropy.io.votable import from_table
+            from astropy.io.votable.tree import Info
+            document = from_table(table)
+            document.get_first_table().infos.extend(Info(name=k.lower(), value=str(v)) for k, v in described.items())
+            document.to_xml(path)
         else:
             table.write(path, format=fmt, overwrite=True)
     except OSError as e:

@@ -210,3 +210,27 @@ def test_a_printed_ephemeris_gives_the_notes_on_the_events(local):
     # the light-travel amplitudes were in the answer's mapping only, not in print(result) nor in Jupyter's table
     line = "events: light travel time: applied = none, amplitude_star1 = 0.0323 ± 0.0007 d"
     assert line in str(r) and line in r._repr_html_()
+
+
+@pytest.mark.parametrize("ext", [".fits", ".vot"])
+def test_a_catalogue_written_as_fits_or_votable_says_how_its_sigmas_were_drawn(tmp_path, capsys, ext):
+    from astropy.io import fits, votable
+
+    from calcservice import __version__
+    cat = tmp_path / "cat.csv"
+    # two fictional single-lined systems
+    cat.write_text("star,period,k1,k1_sigma,eccentricity\nA,182.6,20.0,0.3,0.1\nB,547.9,18.0,0.4,0.2\n")
+    out = tmp_path / f"out{ext}"
+    code, _, _ = _run(capsys, "sb1", "--in", str(cat), "--out", str(out), "--keep", "star", "--seed", "3",
+                      "--samples", "200")
+    assert code == 0
+    # the FITS header said CALC only, the VOTable nothing at all: a referee handed the file could not tell the
+    # method nor redraw its numbers
+    if ext == ".fits":
+        header = fits.getheader(out, 1)
+        said = {k: header.get(k) for k in ("CALC", "METHOD", "SAMPLES", "SEED", "VERSION")}
+    else:
+        infos = votable.parse(str(out)).get_first_table().infos
+        said = {i.name.upper(): i.value for i in infos}
+        said = {**said, "SAMPLES": int(said["SAMPLES"]), "SEED": int(said["SEED"])}
+    assert said == {"CALC": "sb1", "METHOD": "monte_carlo", "SAMPLES": 200, "SEED": 3, "VERSION": __version__}, said
