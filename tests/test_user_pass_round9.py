@@ -234,3 +234,24 @@ def test_a_catalogue_written_as_fits_or_votable_says_how_its_sigmas_were_drawn(t
         said = {i.name.upper(): i.value for i in infos}
         said = {**said, "SAMPLES": int(said["SAMPLES"]), "SEED": int(said["SEED"])}
     assert said == {"CALC": "sb1", "METHOD": "monte_carlo", "SAMPLES": 200, "SEED": 3, "VERSION": __version__}, said
+
+
+# ----------------------------------------------------------------------------- the Python client's help
+def test_the_clients_help_says_what_its_calls_do(local):
+    from calcservice.client import Client, Result
+    # budget=True works (it goes into the body) but calculate's help named no such option
+    assert "budget=True" in Client.calculate.__doc__
+    r = local.calculate("sb1", period=3.4, k1=(30, 1), eccentricity=0, primary_mass=(1.2, 0.1), budget=True)
+    # a circular fictional SB1: m2_min's variance from k1 and the primary mass only, shares summing to 1
+    assert set(r["results"]["m2_min"]["budget"]) == {"k1", "primary_mass"}
+    assert sum(r["results"]["m2_min"]["budget"].values()) == pytest.approx(1.0, abs=1e-9)
+    # an undefined sigma comes out as nan, which the help now says, with what to use instead
+    assert "nan" in Result.ufloat.__doc__ and "low" in Result.ufloat.__doc__
+    r = local.calculate("sb1", period=3.4, k1=(30, 1), eccentricity=0, primary_mass=1.2, inclination="isotropic",
+                        samples=500, seed=2)
+    assert np.isnan(r.ufloat("m2").std_dev) and r["results"]["m2"]["sigma"] is None
+    # the report draws again: with the answer's seed it gives the answer's numbers, as its help says
+    assert "seed=" in Client.report.__doc__
+    md = local.report("sb1", period=3.4, k1=(30, 1), eccentricity=0, primary_mass=1.2, inclination="isotropic",
+                      samples=500, seed=r["uncertainty"]["seed"], format="markdown")
+    assert f"seed {r['uncertainty']['seed']}" in md
