@@ -389,6 +389,9 @@ def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, 
                     tex = None                      # the article ("a dark companion"), not the semi-major axis
                 if len(letters) == 1 and not digits and re.compile(r"-[A-Za-z]").match(text, m.end()):
                     tex = None                      # a hyphenated word ("o-star"), not a variable
+                if len(letters) == 1 and not digits and out[-1:] == [("neutral", "/")] and len(out) > 1 \
+                        and out[-2][0] == "text":
+                    tex = None                      # a unit's denominator ("1000 km/s"), not a variable
                 if letters == "sqrt" and not digits and (g := _group(text, m.end())) and text[m.end()] == "(":
                     out.append(("math", r"\sqrt{" + _inner_tex(g[0], symbols) + "}"))
                     i = g[1]

@@ -65,6 +65,7 @@ def test_every_input_description_and_formula_sets_as_latex_maths_mathtext_parses
             words = re.sub(r"\$[^$]*\$", " ", tex)
             assert "^" not in words.replace(r"\textasciicircum{}", "^") or "^" not in text, (text, tex)
             assert "$e.g" not in tex and "e.g.$" not in tex, tex
+            assert "km/$s" not in tex and "o-$" not in tex, tex          # units and words are no variables
 
 
 def calc_names(calc):
