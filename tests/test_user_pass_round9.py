@@ -136,7 +136,7 @@ def test_the_command_line_says_a_word_for_a_number_in_its_own_forms(capsys):
 
 
 @pytest.mark.browser
-def test_the_form_counts_a_lists_entries_from_one(browser, base_url):  # noqa: F811
+def test_the_form_counts_a_lists_entries_from_one_and_gives_the_notes_on_the_events(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
     _open(browser, f"{base_url}/#ephemeris")
@@ -145,6 +145,13 @@ def test_the_form_counts_a_lists_entries_from_one(browser, base_url):  # noqa: F
     assert [c.text for c in hint.find_elements(By.TAG_NAME, "code")] == ["m2"], hint.get_attribute("innerHTML")
     assert not hint.find_elements(By.TAG_NAME, "sub")
     browser.find_element(By.ID, "example").click()
+    browser.execute_script("document.body.dataset.computed = 'pending'")
+    browser.find_element(By.ID, "compute").click()
+    _wait(browser, lambda d: d.find_element(By.TAG_NAME, "body").get_attribute("data-computed") == "true")
+    # the light-travel amplitudes of the events were in the report and the JSON, not on the page
+    note = browser.find_element(By.CSS_SELECTOR, '#results [data-notes="light_travel_time"]').text
+    assert note == ("events: light travel time: applied = none, amplitude_star1 = 0.0323 ± 0.0007 d, "
+                    "amplitude_star2 = 0.0753 ± 0.0019 d"), note
     # the example's fictional orbit, the second of three times no date
     _type(browser, "in-times", "2460400.5, abc, 2460600.5")
     browser.execute_script("document.body.dataset.computed = 'pending'")

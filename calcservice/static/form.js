@@ -843,6 +843,21 @@
       box.append(el("h3", { text: `${key}: ${sub.replace(/_/g, " ")}` }),
         el("table", { class: "results" }, [el("thead", {}, head), el("tbody", {}, rows)]));
     }
+    // what the events say of themselves (the light-travel time applied, both amplitudes with their sigmas), a line
+    // each, as the report's notes on the events (report.event_notes)
+    const fieldUnits = member.units || {};
+    for (const [sub, values] of Object.entries(member)) {
+      if (sub === "units" || !values || typeof values !== "object" || Array.isArray(values)) continue;
+      const vals = Object.values(values);
+      if (!vals.length || !vals.every((v) => v === null || typeof v === "string" || typeof v === "number")) continue;
+      const parts = Object.keys(values).filter((k) => !(k.endsWith("_sigma") && k.slice(0, -6) in values)).map((k) => {
+        const v = values[k];
+        const shown = (k + "_sigma") in values ? measured({ value: v, sigma: values[k + "_sigma"] }, 6)
+          : typeof v === "number" ? exact(v, 6) : String(v ?? "");
+        return `${k} = ${shown}${fieldUnits[k] ? " " + fieldUnits[k] : ""}`;
+      });
+      box.append(el("p", { class: "event-notes", "data-notes": sub, text: `${key}: ${sub.replace(/_/g, " ")}: ${parts.join(", ")}` }));
+    }
     return box;
   }
 
