@@ -77,7 +77,7 @@ from .test_form_browser import _open, _shot, _type, _wait, base_url, browser  # 
 
 
 @pytest.mark.browser
-def test_a_switch_to_monte_carlo_shows_in_the_form_and_its_report_and_histogram_draw_the_same(browser, base_url):  # noqa: F811
+def test_a_switch_to_monte_carlo_shows_in_the_form_and_its_report_draws_the_numbers_shown(browser, base_url):  # noqa: F811
     from selenium.webdriver.common.by import By
     browser.set_window_size(1280, 1400)
     _open(browser, f"{base_url}/#sb1")
