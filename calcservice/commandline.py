@@ -226,12 +226,31 @@ def ordinal(n: int) -> str:
     return f"{n}{'th' if n % 100 in (11, 12, 13) else {1: 'st', 2: 'nd', 3: 'rd'}.get(n % 10, 'th')}"
 
 
-def _problem_line(p) -> str:
+_OPTIONS = {"uncertainty.samples": "--samples", "uncertainty.seed": "--seed", "uncertainty.method": "--method",
+            "uncertainty": "--method", "time_format": "--time-format"}
+
+
+def _field(key: str, args=None) -> str:
+    """The service's name of a member (``uncertainty.samples``, ``units.m1``, ``correlations.1.rho``) as the command
+    line's option that gave it (``--samples``, ``--unit m1``, ``--correlation A,B=RHO`` as typed); an input as is."""
+    if key in _OPTIONS:
+        return _OPTIONS[key]
+    head, _, rest = key.partition(".")
+    if head == "units" and rest:
+        return f"--unit {rest}"
+    typed = list(getattr(args, "correlation", None) or [])
+    index = rest.partition(".")[0]
+    if head == "correlations" and index.isdigit() and int(index) < len(typed):
+        return f"--correlation {typed[int(index)]}"
+    return key
+
+
+def _problem_line(p, args=None) -> str:
     errors = getattr(p, "errors", None) or {}
     if errors:
         # a list's entry is counted from 1, as its user typed it (the JSON answer's "entry 1" is its index)
         counted = lambda m: f"the {ordinal(int(m.group(1)) + 1)} entry: "      # noqa: E731
-        return "; ".join(f"{k}: {' '.join(_ENTRY.sub(counted, m) for m in v)}" for k, v in errors.items())
+        return "; ".join(f"{_field(k, args)}: {' '.join(_ENTRY.sub(counted, m) for m in v)}" for k, v in errors.items())
     return getattr(p, "detail", str(p))
 
 
@@ -670,7 +689,7 @@ def _compute(args) -> int:
     except BrokenPipeError:
         return 0
     except Problem as e:
-        print(f"calcservice compute: {_problem_line(e)}", file=sys.stderr)
+        print(f"calcservice compute: {_problem_line(e, args)}", file=sys.stderr)
         return EXIT_REJECTED
 
 

@@ -263,3 +263,15 @@ def test_the_clients_help_says_what_its_calls_do(local):
     md = local.report("sb1", period=3.4, k1=(30, 1), eccentricity=0, primary_mass=1.2, inclination="isotropic",
                       samples=500, seed=r["uncertainty"]["seed"], format="markdown")
     assert f"seed {r['uncertainty']['seed']}" in md
+
+
+def test_the_command_line_names_its_own_options_where_the_service_names_a_member(capsys):
+    base = ["sb1", "period=3", "k1=30+-1", "eccentricity=0"]
+    # a fictional SB1; the second --correlation typed is out of range: it read "correlations.1.rho: ...",
+    # the JSON path, counted from 0
+    code, _, err = _run(capsys, *base, "--correlation", "k1,period=0.2", "--correlation", "k1,eccentricity=2")
+    assert code == 1 and err.startswith("calcservice compute: --correlation k1,eccentricity=2: rho must be"), err
+    code, _, err = _run(capsys, *base, "--samples", "50")
+    assert code == 1 and err.startswith("calcservice compute: --samples: must be >= 100"), err
+    code, _, err = _run(capsys, *base, "--unit", "mass_function=kms")
+    assert code == 1 and err.startswith("calcservice compute: --unit mass_function: unknown unit 'kms'"), err
