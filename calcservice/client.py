@@ -143,7 +143,11 @@ class Result(dict):
         return _float(e.get("value")) * u.Unit(e.get("unit") or "")
 
     def ufloat(self, name: str):
-        """Output ``name`` as ``uncertainties.ufloat(value, sigma)`` (independent of the other outputs)."""
+        """Output ``name`` as ``uncertainties.ufloat(value, sigma)`` (independent of the other outputs).
+
+        Where the service gives no sigma (a Monte Carlo distribution without a finite variance, warned as
+        ``sigma_undefined``) the standard deviation is nan: the median and ``low``/``high`` are the answer.
+        """
         from uncertainties import ufloat
         e = self._entry(name)
         return ufloat(_float(e.get("value")), _float(e.get("sigma", 0.0)), name)
@@ -179,6 +183,7 @@ class Result(dict):
         title, header, rows = self._summary()
         return "".join([_html_table(title, header, rows) if rows else f"<p>{html.escape(title)}</p>"]
                        + [_html_table(*table) for table in _series_and_events(self.get("results") or {}, self._scale)]
+                       + [f"<p>{html.escape(note)}</p>" for note in _event_notes(self.get("results") or {})]
                        + [f"<p>warning [{html.escape(str(w.get('code')))}]: {html.escape(str(w.get('message')))}</p>"
                           for w in self.get("warnings") or [] if isinstance(w, Mapping)])
 
@@ -209,7 +214,14 @@ def _series_and_events_text(results: Mapping[str, Any], scale: str = "JD") -> li
     lines: list[str] = []
     for title, header, body in _series_and_events(results, scale):
         lines += [""] + ([] if title == "series" else [title]) + _text_rows([header, *body])
-    return lines
+    notes = _event_notes(results)
+    return lines + ([""] + notes if notes else [])
+
+
+def _event_notes(results: Mapping[str, Any]) -> list[str]:
+    """What the events say of themselves (the light-travel amplitudes), a line each, as the report's notes."""
+    from .report import STYLES, event_notes, notes_line
+    return [f"{label}: {notes_line(values, STYLES['text'])}" for label, values in event_notes(results)]
 
 
 def _float(x) -> float:
@@ -612,7 +624,9 @@ class Client:
         ``uncertainty`` is the contract's object (or give ``method``/``samples``/``seed``);
         ``correlations`` a list of {"between": [a, b], "rho": r} or a mapping {(a, b): r};
         ``units`` asks for outputs in other units; ``covariance=True`` for the outputs'
-        correlation (then ``.ufloats()`` gives correlated values).
+        correlation (then ``.ufloats()`` gives correlated values); ``budget=True`` adds to each output
+        its ``budget``, the share of its variance from each input (any other top-level member of the
+        wire contract goes into the body as given).
         """
         body = self.request_body(name, inputs, uncertainty=uncertainty, correlations=correlations, units=units,
                                  time_format=time_format, method=method, samples=samples, seed=seed,
@@ -620,7 +634,11 @@ class Client:
         return Result(self._json("POST", self.declaration(name)["path"], body))
 
     def report(self, name: str, /, format: str = "latex", **kwargs) -> str:
-        """The derivation report (``format`` "latex" or "markdown") as text."""
+        """The derivation report (``format`` "latex" or "markdown") as text, computed again from the inputs.
+
+        Monte Carlo draws again: give ``seed=`` (an earlier answer's ``["uncertainty"]["seed"]``) for the
+        numbers of that answer.
+        """
         _one_of("format", format, REPORTS, "report gives", "figure() draws svg and png")
         body, path = self._body_and_path(name, kwargs)
         _, _, payload = self._request("POST", path, body, {"format": format}, accept="text/*")

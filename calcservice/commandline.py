@@ -154,7 +154,12 @@ def parse_assignment(calc: Calculation, text: str) -> tuple[str, Any]:
         return name, out
     if raw.startswith("@"):
         return name, _samples(raw[1:], name)
-    return name, parse_measured(raw, name)
+    value = parse_measured(raw, name)
+    if isinstance(value, str) and not spec.time and not (spec.isotropic and value == "isotropic"):
+        # a word where a number goes: said in the command line's own forms, not the JSON objects the service lists
+        raise UsageError(name, f"{value!r} is not a number ({EXAMPLE_FORMS}"
+                               + (", or isotropic for random orientations)" if spec.isotropic else ")"))
+    return name, value
 
 
 def _input_names(calc: Calculation) -> str:
@@ -213,10 +218,39 @@ def build_body(calc: Calculation, args) -> dict:
 
 
 # --------------------------------------------------------------------------- output
-def _problem_line(p) -> str:
+_ENTRY = re.compile(r"^entry (\d+): ")
+
+
+def ordinal(n: int) -> str:
+    """1st, 2nd, 3rd, 4th, 11th, 12th, 13th, 21st ..."""
+    return f"{n}{'th' if n % 100 in (11, 12, 13) else {1: 'st', 2: 'nd', 3: 'rd'}.get(n % 10, 'th')}"
+
+
+_OPTIONS = {"uncertainty.samples": "--samples", "uncertainty.seed": "--seed", "uncertainty.method": "--method",
+            "uncertainty": "--method", "time_format": "--time-format"}
+
+
+def _field(key: str, args=None) -> str:
+    """The service's name of a member (``uncertainty.samples``, ``units.m1``, ``correlations.1.rho``) as the command
+    line's option that gave it (``--samples``, ``--unit m1``, ``--correlation A,B=RHO`` as typed); an input as is."""
+    if key in _OPTIONS:
+        return _OPTIONS[key]
+    head, _, rest = key.partition(".")
+    if head == "units" and rest:
+        return f"--unit {rest}"
+    typed = list(getattr(args, "correlation", None) or [])
+    index = rest.partition(".")[0]
+    if head == "correlations" and index.isdigit() and int(index) < len(typed):
+        return f"--correlation {typed[int(index)]}"
+    return key
+
+
+def _problem_line(p, args=None) -> str:
     errors = getattr(p, "errors", None) or {}
     if errors:
-        return "; ".join(f"{k}: {' '.join(v)}" for k, v in errors.items())
+        # a list's entry is counted from 1, as its user typed it (the JSON answer's "entry 1" is its index)
+        counted = lambda m: f"the {ordinal(int(m.group(1)) + 1)} entry: "      # noqa: E731
+        return "; ".join(f"{_field(k, args)}: {' '.join(_ENTRY.sub(counted, m) for m in v)}" for k, v in errors.items())
     return getattr(p, "detail", str(p))
 
 
@@ -246,6 +280,10 @@ def table(response: dict, calc: Calculation) -> str:
         lines += ([""] if rows else []) + _columns(header, body, right=True)
     for label, header, body in report.event_tables(results, style):
         lines += ["", label.replace("_", " ")] + _columns(header, body)
+    # what the events say of themselves (the light-travel amplitudes), as the report's notes on the events
+    notes = report.event_notes(results)
+    if notes:
+        lines += [""] + [f"{label}: {report.notes_line(values, style)}" for label, values in notes]
     warnings = response.get("warnings", [])
     if warnings:
         lines.append("")
@@ -589,6 +627,13 @@ def write_catalogue(path: str, result, calc: Calculation) -> int:
             status[e["index"]] = int(e.get("status") or 422)
     table.add_column(MaskedColumn(status, mask=status == 0), name="error_status", index=table.colnames.index("error"))
     table.meta = {"calculation": calc.name}
+    answer = result.response or {}
+    unc = {k: v for k, v in (answer.get("uncertainty") or {}).items() if isinstance(v, (str, int, float))}
+    # what a FITS header or a VOTable INFO can hold of how the numbers were made: the method, draws and seed
+    # redraw them, the version names the code
+    described = {"CALC": calc.name, **{k.upper(): unc[k] for k in ("method", "samples", "seed") if k in unc},
+                 "VERSION": (answer.get("provenance") or {}).get("version")}
+    described = {k: v for k, v in described.items() if v is not None}
     if fmt in ("ascii.csv", "ascii.ecsv"):
         # plain columns, each unit in the service's own spelling ("au", "km/s", not astropy's "AU", "km / s"): in
         # a CSV header, as the reader takes it; in the ECSV header, as the service's ECSV answer writes it
@@ -611,16 +656,21 @@ def write_catalogue(path: str, result, calc: Calculation) -> int:
                 plain[name] = col
         if fmt == "ascii.ecsv":
             # the answer's calculation, method and provenance as the service's ECSV header has them
-            answer = result.response or {}
-            unc = {k: v for k, v in (answer.get("uncertainty") or {}).items() if isinstance(v, (str, int, float))}
             plain.meta = {"calculation": calc.name, "uncertainty": unc,
                           **({"provenance": answer["provenance"]} if "provenance" in answer else {})}
         table = plain
     elif fmt == "fits":
-        table.meta = {"CALC": calc.name}
+        table.meta = described
     try:
         if path == "-":
             table.write(sys.stdout, format=fmt)
+        elif fmt == "votable":
+            # astropy's VOTable writer drops a table's meta: the same keys as INFO elements of the table
+            from astropy.io.votable import from_table
+            from astropy.io.votable.tree import Info
+            document = from_table(table)
+            document.get_first_table().infos.extend(Info(name=k.lower(), value=str(v)) for k, v in described.items())
+            document.to_xml(path)
         else:
             table.write(path, format=fmt, overwrite=True)
     except OSError as e:
@@ -639,7 +689,7 @@ def _compute(args) -> int:
     except BrokenPipeError:
         return 0
     except Problem as e:
-        print(f"calcservice compute: {_problem_line(e)}", file=sys.stderr)
+        print(f"calcservice compute: {_problem_line(e, args)}", file=sys.stderr)
         return EXIT_REJECTED
 
 

@@ -371,6 +371,10 @@ def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, 
             out.append(("math", symbol[1]))
             i += len(symbol[0])
             continue
+        if text.startswith(("e.g.", "i.e."), i) and not (prev.isascii() and prev.isalnum()):
+            out.append(("text", text[i:i + 4]))      # the abbreviations are words, not e times g
+            i += 4
+            continue
         if c.isascii() and c.isalpha():
             m = _LETTERS.match(text, i)
             # a word begins here: not within one, nor the s of a possessive ("the primary's orbit")
@@ -379,10 +383,15 @@ def _maths_tokens(text: str, symbols: tuple = _MATH_SYMBOLS) -> list[tuple[str, 
             if m and starts:
                 letters, digits = m.groups()
                 tex = _symbol(letters)
-                if len(letters) == 2 and not digits and text.startswith("_", m.end()):
+                if len(letters) == 2 and not digits and tex is None and text.startswith("_", m.end()):
                     tex = letters                   # a two-letter symbol with a subscript: GM_sun
                 if letters == "a" and not digits and _ARTICLE.match(text, m.end()):
                     tex = None                      # the article ("a dark companion"), not the semi-major axis
+                if len(letters) == 1 and not digits and re.compile(r"-[A-Za-z]").match(text, m.end()):
+                    tex = None                      # a hyphenated word ("o-star"), not a variable
+                if len(letters) == 1 and not digits and out[-1:] == [("neutral", "/")] and len(out) > 1 \
+                        and out[-2][0] == "text":
+                    tex = None                      # a unit's denominator ("1000 km/s"), not a variable
                 if letters == "sqrt" and not digits and (g := _group(text, m.end())) and text[m.end()] == "(":
                     out.append(("math", r"\sqrt{" + _inner_tex(g[0], symbols) + "}"))
                     i = g[1]
@@ -409,8 +418,11 @@ def _inner_tex(text: str, symbols: tuple = _MATH_SYMBOLS) -> str:
                    for kind, s in _maths_tokens(text, symbols))
 
 
-#: the symbols for plain LaTeX, which has no \gtrsim nor \lesssim without a package (amssymb)
-LATEX_SYMBOLS = tuple((a, {">~": r"\stackrel{>}{\sim}", "<~": r"\stackrel{<}{\sim}"}.get(a, t)) for a, t in _MATH_SYMBOLS)
+#: the symbols for plain LaTeX, which has no \gtrsim nor \lesssim without a package (amssymb), and whose text
+#: fonts have no < nor > (OT1 sets them as inverted marks): they are set as maths too
+LATEX_SYMBOLS = tuple((a, {">~": r"\stackrel{>}{\sim}", "<~": r"\stackrel{<}{\sim}"}.get(a, t))
+                      for a, t in _MATH_SYMBOLS) + (("<", "<"), (">", ">"))
+_RELATIONS = frozenset({"<", ">", r"\leq", r"\geq"})
 
 
 def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple = _MATH_SYMBOLS) -> str:
@@ -431,14 +443,18 @@ def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple =
         j = k + 1
         while j < len(tokens) and tokens[j][0] != "text":
             j += 1
-        start = k
-        while start > 0 and tokens[start - 1][0] == "neutral" and tokens[start - 1][1] in "([-" and out \
+        # a relation takes the number written before it too ("0 < i < 180"), set as one formula
+        start, back = k, "([-" + (" 0123456789." if s in _RELATIONS else "")
+        while start > 0 and tokens[start - 1][0] == "neutral" and tokens[start - 1][1] in back and out \
                 and out[-1] == tokens[start - 1][1]:
             out.pop()
             start -= 1
+        while start < k and tokens[start][1] == " ":
+            out.append(" ")
+            start += 1
         formula = "".join(t for _, t in tokens[start:j])
-        if start < k and formula.count(tokens[start][1]) > formula.count(")]"["([".index(tokens[start][1])]) \
-                and tokens[start][1] != "-":
+        if start < k and tokens[start][1] in "([" \
+                and formula.count(tokens[start][1]) > formula.count(")]"["([".index(tokens[start][1])]):
             out.append(tokens[start][1])    # a bracket whose partner is beyond the formula stays beside it
             formula = formula[1:]
         tex = formula.rstrip(" ([-")
@@ -447,6 +463,26 @@ def tex_maths(text: str, plain=lambda s: s.replace("$", r"\$"), symbols: tuple =
         out.append("$" + tex.rstrip() + "$" + formula[len(tex.rstrip()):])
         k = j
     return "".join(out)
+
+
+def field_parts(text: str, names: Iterable[str] = (), formula: bool = False) -> list[str]:
+    """``text`` split around the calculation's field names it mentions (odd items), which a reader finds in the
+    inputs' table as written: set as maths, ``omega_primary`` would read omega with a subscript and ``m1`` as
+    M with a subscript.  Names that are words (period, inclination) stay words; a formula is written in symbols
+    (a1 sin i, K1), so there only a name with an underscore is a field's."""
+    fields = sorted((n for n in names if "_" in n or (not formula and any(c.isdigit() for c in n))),
+                    key=len, reverse=True)
+    if not fields:
+        return [text]
+    return re.split(r"(?<![\w])(" + "|".join(map(re.escape, fields)) + r")(?![\w])", text)
+
+
+def latex_text(text: str, names: Iterable[str] = (), formula: bool = False) -> str:
+    """A declaration's text (a description, a formula) for the LaTeX report: the field names it mentions as code
+    (``field_parts``), the rest with its maths set as maths."""
+    style = STYLES["latex"]
+    return "".join(style.code(p) if k % 2 else tex_maths(p, style.text, LATEX_SYMBOLS) if p else ""
+                   for k, p in enumerate(field_parts(text, names, formula)))
 
 
 # --------------------------------------------------------------------------- the report's content
@@ -725,7 +761,7 @@ def event_notes(results: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, A
     return out
 
 
-def _notes_line(values: list[tuple[str, Any, str]], s: Style) -> str:
+def notes_line(values: list[tuple[str, Any, str]], s: Style) -> str:
     """One mapping of notes on the events as ``key = value unit, ...``: its members and their sigmas as an event's
     (:func:`event_keys`, :func:`event_field`: a light-travel amplitude as value ± sigma, none left blank)."""
     entry, units = {k: v for k, v, _u in values}, {k: u for k, _v, u in values}
@@ -861,6 +897,10 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     scale = "MJD" if response.get("time_format") == "mjd" else "JD"
     dates = ({n for i in calc.inputs if getattr(i, "time", False) for n in (i.name, i.label) if n}
              if calc is not None else set())
+    fields = [f.name for f in (*calc.inputs, *calc.outputs)] if calc is not None else []
+    # a declaration's text in LaTeX: its maths set as maths, its field names as code (an input's description read
+    # "0 \textless{} i ... cos i uniform", a formula "P K1\textasciicircum{}3" in typewriter type)
+    declared = (lambda t, formula=False: latex_text(t, fields, formula)) if s.name == "latex" else s.text
     doc.heading("Inputs")
     rows = []
     for key, entry in response.get("inputs", {}).items():
@@ -877,7 +917,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         if key in dates and not (isinstance(entry, dict) and isinstance(entry.get("value"), str)):
             shown_unit = (shown_unit + " " if shown_unit else "") + s.text(f"({scale})")
         rows.append([s.code(key), _given(entry, s) if isinstance(entry, dict) else s.text(str(entry)),
-                     shown_unit, s.text(desc)])
+                     shown_unit, declared(desc)])
     doc.table(["input", "value", "unit", "description"], rows, wrap_last=True)
 
     results = response.get("results", {})
@@ -891,8 +931,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
             except KeyError:
                 pass
         # an output's description set with its maths as maths in LaTeX (M1 sin^3 i read as code), as a figure sets it
-        shown = tex_maths(desc, s.text, LATEX_SYMBOLS) if s.name == "latex" else s.text(desc)
-        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), shown])
+        rows.append([s.code(key), measured_cell(entry, s), s.unit(entry.get("unit", "")), declared(desc)])
     if rows:
         doc.heading("Results")
         doc.table(["result", "value", "unit", "description"], rows, wrap_last=True)
@@ -915,7 +954,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
     notes = event_notes(results)
     if notes:
         doc.heading("Notes on the events")
-        doc.items([s.text(f"{label}: ") + _notes_line(values, s) for label, values in notes])
+        doc.items([s.text(f"{label}: ") + notes_line(values, s) for label, values in notes])
 
     doc.heading("Formulas")
     entries = []
@@ -923,7 +962,7 @@ def report(response: Mapping[str, Any], calc: Calculation | None = None, style: 
         f = formulas.get(key)
         if f:
             cite = _cite(_references_of(calc, key, references), "--" if s.name == "latex" else "–")
-            entries.append(f"{s.code(key)}: {s.code(f)} {cite}")
+            entries.append(f"{s.code(key)}: {declared(f, True) if s.name == 'latex' else s.code(f)} {cite}")
     doc.items(entries)
 
     doc.heading("References")

@@ -110,7 +110,7 @@ def test_latex_report_of_sb2(client):
     assert f"${v} \\pm {s}$" in tex
     assert r"\texttt{m1\_sin3i}" in tex                       # names escaped for LaTeX
     assert r"$\mathrm{M_{\odot}}$" in tex                      # astropy's LaTeX form of solMass
-    assert "M1 sin\\textasciicircum{}3 i" in tex               # formulas and descriptions escaped
+    assert r"$M_{1} \,\sin^{3} i = P (1 - e^{2})^{3/2}" in tex  # formulas and descriptions set as maths
     assert "Hilditch" in tex and "IAU 2015 Resolution B3" in tex
     assert "positive when receding" in tex                     # conventions
     assert "linear" in tex and f"calcservice {__version__}" in tex

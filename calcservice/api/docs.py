@@ -10,6 +10,8 @@ nothing from elsewhere, the form's Content-Security-Policy.
 from __future__ import annotations
 
 import json
+import re
+import unicodedata
 from functools import lru_cache
 from html import escape
 from importlib import resources
@@ -20,7 +22,7 @@ from flask import Blueprint, Response, request
 from .. import __version__
 from ..constants import CONSTANTS
 from ..registry import Calculation, Input, calculations
-from ..report import default_text
+from ..report import default_text, field_parts, tex_maths
 from .form import secure
 
 bp = Blueprint("docs", __name__)
@@ -80,7 +82,75 @@ def python_call(calc: Calculation, base_url: str) -> str:
             "results = answer[\"results\"]    # every digit, as the service sent it")
 
 
-def _input_row(spec: Input) -> str:
+# --------------------------------------------------------------------------- a declaration's maths as HTML
+# The page has no script: the maths the LaTeX report and the figures set from a declaration's plain text
+# (report.tex_maths) is written here as HTML, from the same TeX, so that the three agree.
+_TEX_NAMES = {"alpha": "α", "beta": "β", "gamma": "γ", "Gamma": "Γ", "delta": "δ", "Delta": "Δ", "epsilon": "ε",
+              "zeta": "ζ", "eta": "η", "theta": "θ", "kappa": "κ", "lambda": "λ", "mu": "μ", "nu": "ν", "xi": "ξ",
+              "pi": "π", "rho": "ρ", "sigma": "σ", "tau": "τ", "phi": "φ", "chi": "χ", "psi": "ψ", "omega": "ω",
+              "Omega": "Ω", "odot": "⊙", "leq": "≤", "geq": "≥", "gtrsim": "≳", "lesssim": "≲", "prime": "′",
+              "pm": "±", "times": "×", ",": ""}   # TeX's thin space before a function: HTML keeps the space
+
+
+def _braced(tex: str, start: int) -> tuple[str, int]:
+    """The group at ``start`` ({...} balanced, else one character) and the index after it."""
+    if tex[start:start + 1] != "{":
+        return tex[start:start + 1], start + 1
+    depth = 0
+    for j in range(start, len(tex)):
+        depth += (tex[j] == "{") - (tex[j] == "}")
+        if depth == 0:
+            return tex[start + 1:j], j + 1
+    return tex[start + 1:], len(tex)
+
+
+def tex_html(tex: str) -> str:
+    """The TeX that ``report.tex_maths`` writes (symbols, ^ and _ groups, \\dot, \\sqrt, \\mathrm, functions) as HTML:
+    variables in italics, functions and Greek letters upright, sub- and superscripts as such, minus signs."""
+    out, i = [], 0
+    while i < len(tex):
+        c = tex[i]
+        if c == "\\":
+            m = re.compile(r"\\([A-Za-z]+|.)").match(tex, i)
+            name, i = m.group(1), m.end()
+            if name in ("mathrm", "dot", "sqrt"):
+                group, i = _braced(tex, i)
+                if name == "dot" and group.isalpha():
+                    # a rate: the letter with its dot over it, in one italic (Ṁ, Ṗ), as the form writes it
+                    out.append(f"<i>{unicodedata.normalize('NFC', group + chr(0x307))}</i>")
+                    continue
+                inner = escape(group) if name == "mathrm" else tex_html(group)
+                out.append({"mathrm": inner, "dot": inner + chr(0x307), "sqrt": f"√({inner})"}[name])
+            else:
+                out.append(_TEX_NAMES.get(name, name))      # a function (sin, log) upright, by its name
+        elif c in "^_":
+            group, i = _braced(tex, i + 1)
+            tag = "sup" if c == "^" else "sub"
+            out.append(f"<{tag}>{tex_html(group)}</{tag}>")
+        elif c.isalpha():
+            m = re.compile(r"[A-Za-z]+").match(tex, i)
+            out.append(f"<i>{m.group(0)}</i>")
+            i = m.end()
+        else:
+            out.append("−" if c == "-" else escape(c))
+            i += 1
+    return "".join(out)
+
+
+def maths_html(text: str, names=(), formula: bool = False) -> str:
+    """A declaration's text (a description, a formula) as HTML with its maths set, the field names it mentions as
+    code (``report.field_parts``), in a span whose title keeps the text itself to copy."""
+    html = []
+    for k, part in enumerate(field_parts(text, names, formula)):
+        if k % 2:
+            html.append(f"<code>{escape(part)}</code>")
+            continue
+        pieces = tex_maths(part, lambda w: escape(w).replace("$", "&#36;")).split("$")
+        html += [tex_html(p) if j % 2 else p for j, p in enumerate(pieces)]
+    return f'<span class="math" title="{escape(text)}">{"".join(html)}</span>'
+
+
+def _input_row(spec: Input, names=()) -> str:
     if spec.kind == "choice":
         domain = "one of " + ", ".join(f"<code>{escape(c)}</code>" for c in spec.choices)
         unit = ""
@@ -99,7 +169,7 @@ def _input_row(spec: Input) -> str:
         notes.append(f"default {escape(default_text(spec.default))}")
     need = "required" if spec.required and spec.default is None else "optional"
     return (f"<tr><td><code>{escape(spec.name)}</code></td><td>{unit}</td><td>{domain}</td><td>{need}</td>"
-            f"<td>{escape(spec.description)}{'; ' if notes else ''}{'; '.join(notes)}</td></tr>")
+            f"<td>{maths_html(spec.description, names)}{'; ' if notes else ''}{'; '.join(notes)}</td></tr>")
 
 
 def _sources(calc: Calculation, cited: tuple[str, ...]) -> str:
@@ -111,9 +181,11 @@ def _sources(calc: Calculation, cited: tuple[str, ...]) -> str:
 
 def _section(calc: Calculation, base_url: str) -> str:
     key = escape(calc.name)
-    inputs = "".join(_input_row(s) for s in calc.inputs)
+    names = [f.name for f in (*calc.inputs, *calc.outputs)]
+    inputs = "".join(_input_row(s, names) for s in calc.inputs)
     outputs = "".join(f"<tr><td><code>{escape(o.name)}</code></td><td>{escape(o.unit or 'dimensionless')}</td>"
-                      f"<td>{escape(o.description)}</td><td><code>{escape(o.formula)}</code></td>"
+                      f"<td>{maths_html(o.description, names)}</td>"
+                      f"<td class=\"formula\">{maths_html(o.formula, names, formula=True)}</td>"
                       f"<td>{_sources(calc, o.references)}</td></tr>"
                       for o in calc.outputs)
     rules = [f"exactly one of {', '.join(g)}" for g in calc.exclusive]
@@ -124,6 +196,7 @@ def _section(calc: Calculation, base_url: str) -> str:
     for c in calc.constraints:
         fields = said.setdefault(c.message, [])
         fields += [f for f in c.fields if f not in fields and not f.startswith("_")]
+    # the messages as the 422 says them (the maths as typed), so that a refusal can be found here
     rules += [f"{', '.join(fields)}: {message}" if fields else message for message, fields in said.items()]
     conventions = "".join(f"<dt>{escape(k.replace('_', ' '))}</dt><dd>{escape(v)}</dd>"
                           for k, v in calc.conventions.items())

@@ -137,13 +137,21 @@
   }
   // a message naming fields ("t_periastron: an MJD of ..."): each name as code, as the form labels it (typeset,
   // t_periastron would read "t" with a subscript, a field the visitor cannot find), the rest typeset
-  function namedMath(text, names) {
+  function namedMath(text, names, cls) {
     const list = (Array.isArray(names) ? names : []).filter((n) => typeof n === "string" && n)
       .sort((a, b) => b.length - a.length).map((n) => n.replace(/[.*+?^${}()|[\]\\]/g, "\\$&"));
-    if (!list.length) return math(text);
+    if (!list.length) return math(text, cls);
     const parts = text.split(new RegExp(`(?<![\\w])(${list.join("|")})(?![\\w])`));
-    return el("span", { class: "math", title: text },
+    return el("span", { class: "math" + (cls ? " " + cls : ""), title: text },
       parts.flatMap((p, i) => (i % 2 ? [el("code", { text: p })] : p ? mathNodes(p) : [])));
+  }
+  // a declaration's text naming the calculation's fields, by the rule of the LaTeX report and /docs
+  // (report.field_parts): a name with an underscore or a digit (m2, omega_primary) is the field's name in a
+  // description, only one with an underscore in a formula (written in symbols: a1 sin i, K1)
+  function declared(calc, text, formula, cls) {
+    const names = calc ? [...calc.inputs, ...calc.outputs].map((f) => f.name)
+      .filter((n) => n.includes("_") || (!formula && /\d/.test(n))) : [];
+    return namedMath(text, names, cls);
   }
   function math(text, cls) { return el("span", { class: "math" + (cls ? " " + cls : ""), title: text }, mathNodes(text)); }
 
@@ -305,7 +313,7 @@
     const unitNote = spec.kind === "choice" || !spec.unit ? "" : ` [${spec.unit}]`;
     const domain = domainText(spec);
     row.append(el("p", { class: "desc", id: `desc-${name}` },
-      [math(spec.description), document.createTextNode(`${unitNote}${domain ? " · " + domain : ""}`)]));
+      [declared(state.calc, spec.description), document.createTextNode(`${unitNote}${domain ? " · " + domain : ""}`)]));
     row.append(el("p", { class: "field-error", id: `error-${name}`, hidden: true }));
     return row;
   }
@@ -472,6 +480,9 @@
     return pair && Array.isArray(pair.between) ? `${pair.between.join(",")}=${pair.rho}` : rest;
   }
 
+  function ordinal(n) {
+    return n + (n % 100 >= 11 && n % 100 <= 13 ? "th" : ({ 1: "st", 2: "nd", 3: "rd" }[n % 10] || "th"));
+  }
   function showProblem(problem, target) {
     // the reason in the banner (the problem's detail and each field's message), and each message
     // again beside its field
@@ -483,6 +494,8 @@
       const base = key.split(".")[0];
       const spec = calc ? calc.inputs.find((i) => i.name === base) : null;
       let text = [].concat(messages).map((m) => (typeof m === "string" ? m : JSON.stringify(m))).join("; ");
+      // a list's entry counted from 1, as the visitor typed it (the answer's "entry 1" is its JSON index)
+      if (spec && spec.kind === "series") text = text.replace(/(^|; )entry (\d+): /g, (_, sep, k) => `${sep}the ${ordinal(Number(k) + 1)} entry: `);
       text += unitHint(spec, text);
       const where = key === base ? "" : `${pairTyped(base, key.slice(base.length + 1))}: `;
       const box = $(`error-${base}`);
@@ -555,7 +568,15 @@
         return;
       }
       state.response = r.data;
-      rememberInAddress(r.data.uncertainty);
+      const drawn = r.data.uncertainty || {};
+      if (drawn.method === "monte_carlo" && Number.isInteger(drawn.seed)) {
+        // the report and the histograms ask again: with the seed drawn they show the numbers of this answer,
+        // where a seed of their own drew others
+        if (!(body.uncertainty && body.uncertainty.seed !== undefined)) body.uncertainty = { ...(body.uncertainty || {}), seed: drawn.seed };
+        // the service switched to Monte Carlo (an isotropic inclination, samples): the form says what was done
+        if ($("method-linear").checked) { $("method-mc").checked = true; toggleMethod(); }
+      }
+      rememberInAddress(drawn);
       renderResponse(state.calc, r.data);
       await drawPlots(state.calc, r.data, body, observed);
     } catch (err) {
@@ -639,8 +660,8 @@
     for (const [name, entry] of Object.entries(results)) {
       if (!isMeasured(entry)) continue;
       const spec = outputs[name];
-      const desc = el("td", { class: "desc" }, spec ? [math(spec.description)] : []);
-      if (spec && spec.formula) desc.append(math(spec.formula, "formula"));
+      const desc = el("td", { class: "desc" }, spec ? [declared(calc, spec.description)] : []);
+      if (spec && spec.formula) desc.append(declared(calc, spec.formula, true, "formula"));
       const tr = el("tr", { "data-output": name }, [
         el("td", { class: "name" }, breakable(name)), valueCell(entry), el("td", { class: "unit", text: entry.unit || "" }), desc]);
       rows.push(tr);
@@ -821,6 +842,21 @@
             : typeof e[k] === "number" ? exact(e[k], 6) : String(e[k] ?? "") })))));
       box.append(el("h3", { text: `${key}: ${sub.replace(/_/g, " ")}` }),
         el("table", { class: "results" }, [el("thead", {}, head), el("tbody", {}, rows)]));
+    }
+    // what the events say of themselves (the light-travel time applied, both amplitudes with their sigmas), a line
+    // each, as the report's notes on the events (report.event_notes)
+    const fieldUnits = member.units || {};
+    for (const [sub, values] of Object.entries(member)) {
+      if (sub === "units" || !values || typeof values !== "object" || Array.isArray(values)) continue;
+      const vals = Object.values(values);
+      if (!vals.length || !vals.every((v) => v === null || typeof v === "string" || typeof v === "number")) continue;
+      const parts = Object.keys(values).filter((k) => !(k.endsWith("_sigma") && k.slice(0, -6) in values)).map((k) => {
+        const v = values[k];
+        const shown = (k + "_sigma") in values ? measured({ value: v, sigma: values[k + "_sigma"] }, 6)
+          : typeof v === "number" ? exact(v, 6) : String(v ?? "");
+        return `${k} = ${shown}${fieldUnits[k] ? " " + fieldUnits[k] : ""}`;
+      });
+      box.append(el("p", { class: "event-notes", "data-notes": sub, text: `${key}: ${sub.replace(/_/g, " ")}: ${parts.join(", ")}` }));
     }
     return box;
   }
