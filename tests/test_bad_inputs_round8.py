@@ -1,0 +1,65 @@
+"""Bad input, eighth round: a split normal whose upper width is near the largest double (every Monte Carlo
+draw put at the mode: a sigma silently dropped), an HTTP/1.1 request without a Host field (answered 200),
+and numbers of less than double precision (a float32 catalogue column: 41.6 read as 41.599998474121094).
+Each case gets a 4xx problem naming the field, or the answer it should have had, never a traceback."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from calcservice import create_app
+from tests.test_bad_inputs_round2 import problem
+
+SB1 = "/v1/spectroscopic/sb1"
+GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
+
+
+@pytest.fixture(scope="module")
+def client():
+    return create_app().test_client()
+
+
+# --- 1. a split normal's width near the largest double -------------------------------------------------
+
+@pytest.mark.parametrize("k1", [
+    {"value": 23.4, "sigma_minus": 1.0, "sigma_plus": 1e308},     # 2 sigma_plus overflowed: every draw at 23.4
+    {"value": 23.4, "sigma_minus": 1e308, "sigma_plus": 1.0},
+    {"value": 23.4, "sigma": 1e308},                              # keyed _inputs: the blame's sum overflowed
+])
+def test_a_sigma_near_the_largest_double_leaves_no_draw_and_names_the_input(client, k1):
+    # k1 must lie in (0, c): a half-width of 1e308 km/s puts (almost) every draw beyond the speed of light,
+    # and the other half weighs sigma / (sigma_minus + sigma_plus) = 1e-308 of the draws
+    r = client.post(SB1, json={**GOOD, "k1": k1, "uncertainty": {"method": "monte_carlo", "samples": 500,
+                                                                  "seed": 3}})
+    doc = problem(r, 422)
+    assert list(doc["errors"]) == ["k1"], doc
+    assert "probability" in doc["errors"]["k1"][0], doc
+
+
+def test_the_split_normal_probability_of_a_half_width_near_the_largest_double_is_its_halfs_weight():
+    from calcservice.engine import split_normal_within
+    # a split normal puts sigma_plus / (sigma_minus + sigma_plus) of its draws above the mode (each half weighted
+    # by its width; Wallis 2014, "Two-piece normal distribution"), here 1 - 1e-308, i.e. 1.0 in a double
+    p = split_normal_within(np.array([0.0]), np.array([1.0]), np.array([1e308]), 0.0, np.inf)
+    assert p[0] == pytest.approx(1.0, rel=1e-12)
+    p = split_normal_within(np.array([0.0]), np.array([1.0]), np.array([1e308]), -np.inf, 0.0)
+    assert p[0] == pytest.approx(1e-308, rel=1e-12)
+    # a split normal of equal widths is the normal: within one sigma 68.27 % (scipy.stats.norm.cdf(1) - cdf(-1))
+    p = split_normal_within(np.array([5.0]), np.array([1.5e308]), np.array([1.5e308]), -1.5e308, 1.5e308)
+    assert p[0] == pytest.approx(0.6826894921370859, rel=1e-12)
+
+
+def test_a_split_normal_of_ordinary_widths_is_still_drawn_as_one(client):
+    from scipy.stats import norm
+
+    from tests.test_bad_inputs_round4 import mass_function
+    body = {**GOOD, "k1": {"value": 23.4, "sigma_minus": 0.3, "sigma_plus": 0.9},
+            "uncertainty": {"method": "monte_carlo", "samples": 4000, "seed": 11}}
+    mf = client.post(SB1, json=body).get_json()["results"]["mass_function"]
+    # the split normal's median: P(below the mode) = 0.3 / 1.2 = 0.25, so the median lies in the upper half where
+    # 0.25 + (2 * 0.9 / 1.2) (Phi(z) - 0.5) = 0.5 (Wallis 2014); f(M) goes as K1^3 (Hilditch 2001, eq. 2.51),
+    # monotonic, so its median is f at K1's median; 4000 draws place a median within about 0.3 % of f
+    k1_median = 23.4 + 0.9 * norm.ppf(0.5 + 0.25 * 1.2 / (2 * 0.9))
+    assert mf["value"] == pytest.approx(mass_function(41.6, k1_median, 0.31), rel=0.01)
+    assert mf["low"] < mf["value"] < mf["high"]
