@@ -63,3 +63,60 @@ def test_a_split_normal_of_ordinary_widths_is_still_drawn_as_one(client):
     k1_median = 23.4 + 0.9 * norm.ppf(0.5 + 0.25 * 1.2 / (2 * 0.9))
     assert mf["value"] == pytest.approx(mass_function(41.6, k1_median, 0.31), rel=0.01)
     assert mf["low"] < mf["value"] < mf["high"]
+
+
+# --- 2. an HTTP/1.1 request without a Host field, or with one that names no host ----------------------
+
+def _without_host(app, host, protocol="HTTP/1.1"):
+    from werkzeug.test import EnvironBuilder, run_wsgi_app
+    environ = EnvironBuilder(path=SB1, method="POST", json=GOOD).get_environ()
+    environ["SERVER_PROTOCOL"] = protocol
+    if host is None:
+        del environ["HTTP_HOST"]
+    else:
+        environ["HTTP_HOST"] = host
+    body, status, headers = run_wsgi_app(app, environ, buffered=True)
+    return int(status.split()[0]), dict(headers), b"".join(body)
+
+
+@pytest.mark.parametrize("host", [None, "a b", "example.org/v1", "user@example.org", "ex\u00e4mple.org"])
+def test_an_http_11_request_without_a_host_or_with_no_host_in_it_is_400_naming_host(host):
+    import json
+    # RFC 9112 section 3.2: "A server MUST respond with a 400 (Bad Request) status code to any HTTP/1.1 request
+    # message that lacks a Host header field ... or a Host header field with an invalid field value"
+    status, headers, body = _without_host(create_app(), host)
+    assert status == 400 and headers["Content-Type"] == "application/problem+json", body
+    assert list(json.loads(body)["errors"]) == ["Host"]
+
+
+@pytest.mark.parametrize("host, protocol", [("localhost", "HTTP/1.1"), ("127.0.0.1:8000", "HTTP/1.1"),
+                                            ("[::1]:8000", "HTTP/1.1"), ("", "HTTP/1.1"),   # RFC 9110 7.2: empty
+                                            (None, "HTTP/1.0")])                          # 1.0 has no Host rule
+def test_a_request_with_a_host_or_of_http_10_is_answered(host, protocol):
+    import json
+
+    from tests.test_bad_inputs_round4 import mass_function
+    status, _, body = _without_host(create_app(), host, protocol)
+    assert status == 200, body
+    assert json.loads(body)["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31),
+                                                                                  rel=1e-12)
+
+
+@pytest.mark.server
+def test_gunicorn_answers_an_http_11_request_without_host_400_naming_it():
+    import json
+    import tempfile
+    from pathlib import Path
+
+    from tests.test_public import Served, assert_problem, exchange
+    served = Served(Path(tempfile.mkdtemp()), {})
+    try:
+        for head in (b"GET /v1/health HTTP/1.1\r\n", b"GET /v1/health HTTP/1.1\r\nHost: a b\r\n"):
+            # gunicorn passed both on, and the service answered 200
+            status, headers, reply, _ = exchange(served.port, head + b"Connection: close\r\n\r\n")
+            assert list(assert_problem(status, headers, reply, 400)["errors"]) == ["Host"]
+        status, _, reply, _ = exchange(served.port, b"GET /v1/health HTTP/1.1\r\nHost: 127.0.0.1\r\n"
+                                                    b"Connection: close\r\n\r\n")
+        assert status == 200 and json.loads(reply)["status"] == "ok"
+    finally:
+        served.stop()
