@@ -41,7 +41,7 @@ import numpy as np
 import orjson
 
 from . import __version__
-from .columns import column_array
+from .columns import as_doubles, column_array, plain_number
 from .columns import column_name, column_role, correlated_columns, error_text, infinite_cells, kept_name_errors, \
     split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
@@ -1165,7 +1165,14 @@ def dumps(body: Any) -> bytes:
 def _plain(x):
     """numpy scalars and arrays as Python numbers and lists (an astropy Quantity as it is: its numbers alone
     would lose its unit)."""
+    if isinstance(x, np.generic):
+        return plain_number(x)
     if hasattr(x, "tolist") and not isinstance(x, (str, bytes)) and not _is_quantity(x):
+        dtype = getattr(x, "dtype", None)
+        if isinstance(dtype, np.dtype) and dtype.kind == "f" and dtype.itemsize < 8:     # float16, float32
+            if np.ma.isMaskedArray(x):
+                return np.ma.masked_array(as_doubles(np.ma.getdata(x)), mask=np.ma.getmaskarray(x)).tolist()
+            return as_doubles(x).tolist()
         return x.tolist()
     return x
 

@@ -137,6 +137,25 @@ def lenient_message(rows, texts) -> str:
             "underscore, a hexadecimal prefix or a non-ASCII digit or space is read as a typo")
 
 
+def as_doubles(values) -> np.ndarray:
+    """Numbers as a float64 array; those of less precision (float16, float32: a FITS, Arrow or ECSV catalogue's
+    column) as the doubles of the decimals they print, their shortest round-trip text, which is what their
+    writer put in: 41.6 written as a float32 is 41.599998474121094 as a double, a number nobody wrote, and the
+    one every answer and echo would carry."""
+    arr = np.asarray(values)
+    if arr.dtype.kind == "f" and arr.dtype.itemsize < 8:
+        return arr.astype(str).astype(float)
+    return arr.astype(float)
+
+
+def plain_number(x):
+    """A numpy scalar as the Python number it stands for (a float32's by :func:`as_doubles`); anything else
+    as it is."""
+    if isinstance(x, np.floating) and x.dtype.itemsize < 8:
+        return float(as_doubles(x))
+    return x.item() if isinstance(x, np.generic) else x
+
+
 def unit_of(col) -> str | None:
     """The unit of an astropy Quantity or Column (None for plain numbers)."""
     unit = getattr(col, "unit", None)
@@ -161,7 +180,9 @@ def column_array(col, label: str = "column") -> np.ndarray:
         # numbers (nullable ones too) as floats; text cells are looked at below, as pandas would
         # read "4_1.6" as 41.6
         if getattr(col.dtype, "kind", "O") in "iuf":
-            return col.to_numpy(dtype=float, na_value=np.nan)
+            # a float32 column (nullable Float32 too) in its own type first, for as_doubles to read its decimals
+            own = np.dtype(getattr(col.dtype, "numpy_dtype", col.dtype))
+            return as_doubles(col.to_numpy(dtype=own if own.kind == "f" else float, na_value=np.nan))
         col = col.to_numpy(dtype=object)
     if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
         mask = np.asarray(col.mask)
@@ -175,7 +196,7 @@ def column_array(col, label: str = "column") -> np.ndarray:
     if arr.dtype.kind == "b" or (arr.dtype.kind == "O" and any(isinstance(v, (bool, np.bool_)) for v in arr.tolist())):
         raise ValueError(f"{label}: a column of true and false holds no numbers")
     if arr.dtype.kind in "iuf":
-        arr = arr.astype(float)
+        arr = as_doubles(arr)
     elif arr.dtype.kind in "USO":
         # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
         cells = [_missing_to_none(v) for v in arr.tolist()]
@@ -309,5 +330,5 @@ def error_text(problem: Mapping) -> str:
     return "; ".join(parts)
 
 
-__all__ = ["naming", "error_text", "unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
+__all__ = ["as_doubles", "plain_number", "naming", "error_text", "unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
            "lenient_message", "meant", "infinite_cells"]

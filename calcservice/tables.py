@@ -34,7 +34,7 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, error_text, kept_name_errors, lenient,
+from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, as_doubles, column_role, error_text, kept_name_errors, lenient,
                       lenient_message, may_underflow, meant, not_plain_numbers, read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
@@ -302,8 +302,10 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
                 else [None] * len(column)
         elif (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
                 and field.name not in keep:
-            # nulls become NaN; an integer beyond 2**53 is the nearest double, as a JSON number is
-            values = column.cast(pa.float64(), safe=False).to_numpy()
+            # nulls become NaN; an integer beyond 2**53 is the nearest double, as a JSON number is; a float32's
+            # the decimal it prints (as_doubles)
+            values = as_doubles(column.to_numpy(zero_copy_only=False)) if pa.types.is_floating(t) and \
+                t.bit_width < 64 else column.cast(pa.float64(), safe=False).to_numpy()
         elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
                 or pa.types.is_large_string(t) or pa.types.is_boolean(t):
             values = column.to_pylist()
@@ -598,7 +600,8 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         kind = kinds.get((column_role(name, kinds) or (name,))[0], "quantity")
         masked = np.ma.asarray(col)
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
-            values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
+            # an ECSV float32 column's cells are the decimals written, not the float32 nearest them (as_doubles)
+            values = np.where(np.ma.getmaskarray(masked), np.nan, as_doubles(np.ma.getdata(masked)))
         else:
             values = written.get(name) or masked.tolist()       # masked entries become None
         # a CSV header's empty brackets (period[]) say dimensionless, as a JSON unit of "" does: refused for a period

@@ -120,3 +120,106 @@ def test_gunicorn_answers_an_http_11_request_without_host_400_naming_it():
         assert status == 200 and json.loads(reply)["status"] == "ok"
     finally:
         served.stop()
+
+
+# --- 3. numbers of less than double precision: the decimals they print, not their binary values -------
+
+def _f64():
+    # 41.6, 23.4 and 0.31 written in float32 are 41.599998474121094, 23.399999618530273 and 0.3100000023841858 as
+    # doubles: a relative change of 4e-8 in f(M), far above the 1e-12 the checks allow
+    from tests.test_bad_inputs_round4 import mass_function
+    return mass_function(41.6, 23.4, 0.31)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float16])
+def test_the_clients_float32_scalars_are_sent_as_the_decimals_they_print(local, dtype):
+    period, k1, e = dtype(41.6), dtype(23.4), dtype(0.31)
+    r = local.calculate("sb1", period=(period, dtype(0.02)), k1=k1, eccentricity=e)
+    # numpy prints them 41.6 (41.59 for float16, 23.4, 0.31): what the caller (or the catalogue's writer) wrote
+    assert r["inputs"]["period"]["value"] == float(str(period)) and r["inputs"]["k1"]["value"] == float(str(k1))
+    assert r["inputs"]["period"]["sigma"] == float(str(dtype(0.02)))
+    if dtype is np.float32:
+        assert r["results"]["mass_function"]["value"] == pytest.approx(_f64(), rel=1e-12)
+    r = local.calculate("sb1", period=41.6, eccentricity=0.31, k1=np.array([23.3, 23.5], np.float32))
+    assert r["inputs"]["k1"]["value"] == pytest.approx(23.4, rel=1e-12)       # the mean of the samples 23.3, 23.5
+
+
+def _catalogues():
+    import astropy.units as u
+    import pandas as pd
+    from astropy.table import MaskedColumn, QTable, Table
+    f32 = np.float32
+    masked = Table({"period": MaskedColumn(np.array([41.6, 1.0], f32), mask=[False, True], unit="d"),
+                    "k1": MaskedColumn(np.array([23.4, 1.0], f32), unit="km/s"),
+                    "eccentricity": np.array([0.31, 0.1], f32)})
+    return {
+        "mapping": {"period": np.array([41.6, 20.0], f32), "k1": np.array([23.4, 20.0], f32),
+                    "eccentricity": np.array([0.31, 0.1], f32)},
+        "quantities": {"period": np.array([41.6, 20.0], f32) * u.d, "k1": np.array([23.4, 20.0], f32) * u.km / u.s,
+                       "eccentricity": np.array([0.31, 0.1], f32)},
+        "qtable": QTable({"period": np.array([41.6, 20.0], f32) * u.d, "k1": np.array([23.4, 20.0], f32) * u.km / u.s,
+                          "eccentricity": np.array([0.31, 0.1], f32)}),
+        "masked table": masked,
+        "numpy masked": {"period": np.ma.masked_array(np.array([41.6, 20.0], f32), mask=[False, True]),
+                         "k1": np.array([23.4, 20.0], f32), "eccentricity": np.array([0.31, 0.1], f32)},
+        "pandas": pd.DataFrame({"period[d]": np.array([41.6, 20.0], f32), "k1[km/s]": np.array([23.4, 20.0], f32),
+                                "eccentricity": np.array([0.31, 0.1], f32)}),
+        "pandas nullable": pd.DataFrame({"period[d]": pd.array([41.6, None], dtype="Float32"),
+                                         "k1[km/s]": pd.array([23.4, 20.0], dtype="Float32"),
+                                         "eccentricity": np.array([0.31, 0.1], f32)}),
+    }
+
+
+@pytest.mark.parametrize("kind", ["mapping", "quantities", "qtable", "masked table", "numpy masked", "pandas",
+                                  "pandas nullable"])
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_a_float32_catalogue_column_is_read_as_the_decimals_it_prints(kind, transport):
+    from calcservice.client import Client
+    out = Client("local", transport=transport).batch("sb1", _catalogues()[kind])
+    assert float(out["mass_function"][0]) == pytest.approx(_f64(), rel=1e-12)
+
+
+def test_a_float32_column_of_an_ecsv_or_arrow_body_is_read_as_its_decimals(client):
+    import io
+    import json
+
+    import pyarrow as pa
+    ecsv = ("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: period, unit: d, datatype: float32}\n"
+            "# - {name: k1, unit: km / s, datatype: float32}\n# - {name: eccentricity, datatype: float16}\n"
+            "period k1 eccentricity\n41.6 23.4 0.31\n\"\" 23.4 0.31\n")
+    r = client.post("/v1/batch/sb1", data=ecsv, headers={"Content-Type": "text/csv", "Accept": "application/json"})
+    doc = r.get_json()
+    # the text says 41.6: read into float32 by its datatype, it was answered for 41.599998474121094
+    assert doc["columns"]["mass_function"]["value"][0] == pytest.approx(_f64(), rel=1e-12)
+    assert [e["index"] for e in doc["errors"]] == [1]                   # the masked cell: that system's error
+    table = pa.table({"period": pa.array([41.6, None], pa.float32()), "k1": pa.array([23.4, 23.4], pa.float32()),
+                      "eccentricity": pa.array(np.array([0.31, 0.31], np.float16))})
+    sink = io.BytesIO()
+    with pa.ipc.new_stream(sink, table.schema) as writer:
+        writer.write_table(table)
+    r = client.post("/v1/batch/sb1", data=sink.getvalue(),
+                    headers={"Content-Type": "application/vnd.apache.arrow.stream", "Accept": "application/json"})
+    doc = json.loads(r.get_data())
+    assert doc["columns"]["mass_function"]["value"][0] == pytest.approx(_f64(), rel=1e-12)
+    assert [e["index"] for e in doc["errors"]] == [1]
+
+
+def test_the_library_reads_float32_numbers_as_their_decimals():
+    from calcservice.core import compute, compute_batch
+    r = compute("sb1", {"period": np.float32(41.6), "k1": {"samples": np.array([23.3, 23.5], np.float32)},
+                        "eccentricity": np.float32(0.31)})
+    assert r["inputs"]["period"]["value"] == 41.6 and r["inputs"]["k1"]["value"] == pytest.approx(23.4, rel=1e-12)
+    out = compute_batch("sb1", {"columns": {"period": np.array([41.6], np.float32), "k1": np.float32(23.4),
+                                            "eccentricity": {"value": np.array([0.31], np.float32)}}})
+    assert out["columns"]["mass_function"]["value"][0] == pytest.approx(_f64(), rel=1e-12)
+
+
+def test_the_command_line_reads_a_fits_catalogues_float32_columns_as_their_decimals(tmp_path):
+    import astropy.units as u
+    from astropy.table import QTable, Table
+
+    from calcservice.cli import main
+    QTable({"period": np.array([41.6], np.float32) * u.d, "k1": np.array([23.4], np.float32) * u.km / u.s,
+            "eccentricity": np.array([0.31], np.float32)}).write(tmp_path / "cat.fits")
+    assert main(["compute", "sb1", "--in", str(tmp_path / "cat.fits"), "--out", str(tmp_path / "out.ecsv")]) == 0
+    assert float(Table.read(tmp_path / "out.ecsv")["mass_function"][0]) == pytest.approx(_f64(), rel=1e-12)

@@ -29,7 +29,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from ..columns import column_array, correlated_columns, meant, uncertain_parts, unit_of
+from ..columns import as_doubles, column_array, correlated_columns, meant, plain_number, uncertain_parts, unit_of
 from ..config import Limits
 from ..engine import EngineError, Measured, Result, correlation_matrix
 from ..registry import Calculation, Input
@@ -641,7 +641,7 @@ def array_columns(calc: Calculation, given: dict) -> dict:
         spec = calc.input(name)
         where = f"columns.{name}"
         if isinstance(raw, np.generic):
-            raw = raw.item()
+            raw = plain_number(raw)
         if spec.kind == "series" and _is_array(raw):
             values = np.asarray(getattr(raw, "value", raw)).tolist()
             raw = {"value": values, "unit": unit_of(raw)} if unit_of(raw) else values
@@ -669,7 +669,7 @@ def array_columns(calc: Calculation, given: dict) -> dict:
             target = raw.get("unit") or spec.unit
             for key, v in list(raw.items()):
                 if isinstance(v, np.generic):
-                    raw[key] = v.item()
+                    raw[key] = plain_number(v)
                 elif key == "samples" and _is_array(v):     # each system's draws, (systems, draws)
                     own = unit_of(v)
                     if own and raw.get("unit") is None:
@@ -677,7 +677,7 @@ def array_columns(calc: Calculation, given: dict) -> dict:
                     draws = np.asarray(getattr(v, "value", v))
                     if draws.dtype.kind not in "iuf":
                         raise invalid({f"{where}.samples": [f"draws are numbers, not {draws.dtype}"]})
-                    raw[key] = draws.astype(float).tolist()
+                    raw[key] = as_doubles(draws).tolist()
                 elif key != "value" and _is_array(v):
                     arr = _number_array(v, f"{where}.{key}")
                     own = unit_of(v)
