@@ -1205,8 +1205,12 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     if isinstance(value, np.datetime64):        # numpy's date: its ISO text (NaT: not given); its tolist() counts ns
         return None if np.isnat(value) else str(np.datetime_as_string(value))
     if hasattr(value, "unit") and hasattr(value, "value") and not isinstance(value, Mapping):
-        # an astropy Quantity: its number in its own unit
-        v = _plain(value.value)
+        # an astropy Quantity: its number in its own unit; a Masked one's masked entries are missing (null), as a
+        # numpy masked array's are, not the numbers under the mask
+        numbers = value.value
+        if hasattr(value, "unmasked") and hasattr(value, "mask"):
+            numbers = np.ma.masked_array(value.unmasked.value, mask=np.asarray(value.mask))
+        v = _plain(numbers)
         _finite(v, decl)            # an infinite Quantity would be written as null, said to be missing
         unit = unit_text(value.unit, (decl or {}).get("name", "an input"))
         if kind == "series":

@@ -223,3 +223,32 @@ def test_the_command_line_reads_a_fits_catalogues_float32_columns_as_their_decim
             "eccentricity": np.array([0.31], np.float32)}).write(tmp_path / "cat.fits")
     assert main(["compute", "sb1", "--in", str(tmp_path / "cat.fits"), "--out", str(tmp_path / "out.ecsv")]) == 0
     assert float(Table.read(tmp_path / "out.ecsv")["mass_function"][0]) == pytest.approx(_f64(), rel=1e-12)
+
+
+# --- 4. the client's astropy Masked Quantity: a masked entry is missing, not the number under the mask --
+
+@pytest.mark.parametrize("k1", [
+    lambda Masked, u: Masked([23.3, 99.0] * u.km / u.s, mask=[False, True]),     # sent as the samples 23.3, 99
+    lambda Masked, u: Masked(23.4 * u.km / u.s, mask=True),                      # sent as 23.4
+])
+def test_a_masked_quantitys_masked_entry_is_refused_as_missing_naming_the_input(local, k1):
+    import astropy.units as u
+    from astropy.utils.masked import Masked
+
+    from calcservice.client import CalcServiceError
+    # a numpy masked array's masked entry goes as null, which the service refuses naming the input
+    with pytest.raises(CalcServiceError) as e:
+        local.calculate("sb1", period=41.6, eccentricity=0.31, k1=k1(Masked, u))
+    assert list(e.value.errors) == ["k1"], e.value.errors
+
+
+def test_a_masked_quantity_with_nothing_masked_is_read_in_its_unit(local):
+    import astropy.units as u
+    from astropy.utils.masked import Masked
+
+    from tests.test_bad_inputs_round4 import mass_function
+    r = local.calculate("sb1", period=Masked(41.6 * u.d, mask=False), eccentricity=0.31,
+                        k1=Masked([23300.0, 23500.0] * u.m / u.s, mask=[False, False]))
+    assert r["inputs"]["k1"]["value"] == pytest.approx(23.4, rel=1e-12) and r["inputs"]["k1"]["samples"] == 2
+    r = local.calculate("sb1", period=Masked(41.6 * u.d, mask=False), eccentricity=0.31, k1=23.4)
+    assert r["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
