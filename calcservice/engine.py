@@ -1003,7 +1003,12 @@ def _idle_correlations(quantities: Mapping[str, Measured], options: Options, n: 
     there (no sigma) or drawn from isotropic orientations, which no other input's draws follow."""
     out = []
     for (a, b), rho in options.correlations.items():
-        if rho == 0 or a not in quantities or b not in quantities:
+        absent = [name for name in (a, b) if name not in quantities]
+        if absent and rho != 0:         # a batch's correlation, for systems that lack one of its inputs
+            out.append(Warning("correlation_without_effect", f"the correlation of {a} and {b} has no effect: "
+                               f"{' and '.join(absent)} {'is' if len(absent) == 1 else 'are'} not given",
+                               np.ones(n, dtype=bool), None))
+        if rho == 0 or absent:
             continue
         idle = np.zeros(n, dtype=bool)
         for name in (a, b):

@@ -252,3 +252,59 @@ def test_a_masked_quantity_with_nothing_masked_is_read_in_its_unit(local):
     assert r["inputs"]["k1"]["value"] == pytest.approx(23.4, rel=1e-12) and r["inputs"]["k1"]["samples"] == 2
     r = local.calculate("sb1", period=Masked(41.6 * u.d, mask=False), eccentricity=0.31, k1=23.4)
     assert r["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+
+
+# --- 5. a batch's correlation naming an input some of its systems lack --------------------------------
+
+SB1_A = {"period": {"value": 41.6, "sigma": 0.1}, "k1": {"value": 23.4, "sigma": 0.2}, "eccentricity": 0.31}
+SB1_B = {**SB1_A, "primary_mass": {"value": 1.2, "sigma": 0.1}}
+K1_M1 = [{"between": ["k1", "primary_mass"], "rho": 0.5}]
+
+
+def _answered_alone(client, body):
+    return client.post(SB1, json=body).get_json()["results"]
+
+
+def _idle(warnings):
+    return [w for w in warnings if w["code"] == "correlation_without_effect"]
+
+
+def test_a_batch_correlation_of_an_input_a_system_lacks_leaves_that_system_answered_and_warned(client):
+    # the systems without primary_mass failed ("'primary_mass' is not an input given in this request"): a
+    # catalogue whose optional column is partly empty could not be sent with its correlation at all
+    doc = client.post("/v1/batch/sb1", json={"systems": [SB1_A, SB1_B], "correlations": K1_M1}).get_json()
+    a, b = doc["results"]
+    assert a["results"] == _answered_alone(client, SB1_A)
+    assert "primary_mass is not given" in _idle(a["warnings"])[0]["message"]
+    # the system that gives both inputs is answered with the correlation, as alone
+    assert b["results"] == _answered_alone(client, {**SB1_B, "correlations": K1_M1}) and not _idle(b["warnings"])
+    assert b["results"]["m2_min"]["sigma"] != _answered_alone(client, SB1_B)["m2_min"]["sigma"]
+
+
+def test_a_columns_or_table_batch_correlation_of_an_input_some_systems_lack_is_warned_for_those_rows(client):
+    import json
+    body = {"columns": {"period": {"value": [41.6, 41.6], "sigma": [0.1, 0.1]},
+                        "k1": {"value": [23.4, 23.4], "sigma": [0.2, 0.2]}, "eccentricity": 0.31,
+                        "primary_mass": {"value": [None, 1.2], "sigma": [None, 0.1]}}, "correlations": K1_M1}
+    csv = ("period,period_sigma,k1,k1_sigma,eccentricity,primary_mass,primary_mass_sigma\n"
+           "41.6,0.1,23.4,0.2,0.31,,\n41.6,0.1,23.4,0.2,0.31,1.2,0.1\n")
+    for r in (client.post("/v1/batch/sb1", json=body),
+              client.post("/v1/batch/sb1", data=csv, query_string={"options": json.dumps({"correlations": K1_M1})},
+                          headers={"Content-Type": "text/csv", "Accept": "application/json"})):
+        doc = r.get_json()
+        assert r.status_code == 200 and doc["errors"] == [], doc.get("errors")
+        assert [w["rows"] for w in _idle(doc["warnings"])] == [[0]]
+        alone = _answered_alone(client, {**SB1_B, "correlations": K1_M1})["m2_min"]
+        assert doc["columns"]["m2_min"]["sigma"] == [None, alone["sigma"]]
+        assert doc["columns"]["mass_function"]["sigma"][0] == _answered_alone(client, SB1_A)["mass_function"]["sigma"]
+
+
+def test_a_systems_own_correlation_or_a_single_requests_still_names_the_input_it_lacks(client):
+    doc = client.post("/v1/batch/sb1", json={"systems": [{**SB1_A, "correlations": K1_M1}, SB1_B],
+                                             "correlations": K1_M1}).get_json()
+    assert list(doc["results"][0]["error"]["errors"]) == ["correlations.0.between"]
+    assert list(problem(client.post(SB1, json={**SB1_A, "correlations": K1_M1}), 422)["errors"]) == \
+        ["correlations.0.between"]
+    # an input the calculation does not have is still the whole batch's 422
+    r = client.post("/v1/batch/sb1", json={"systems": [SB1_A], "correlations": [{"between": ["k1", "k3"], "rho": 0.5}]})
+    assert list(problem(r, 422)["errors"]) == ["correlations.0.between"]
