@@ -504,6 +504,13 @@ def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple
     empty = delimiter.join(['""'] * h)
     for record in reader:
         first, done = done, reader.line_num
+        if done == len(body) and done - first > 1 and sum(line.count('"') for line in body[first:done]) % 2:
+            # a quote never closed: the reader took every line after it for one cell, and those systems were lost
+            where = f"line {start + first + 1}"
+            raise TableError(400, f"the {'ECSV' if ecsv else 'CSV'} text has a quote on {where} that is never "
+                                  f"closed: the {done - first} lines from there would be read as one cell",
+                             {"_body": [f"a quote opened on {where} is not closed (a quote within a cell is written "
+                                        "twice, inside a quoted cell)"]})
         if not record or (len(record) == 1 and not record[0].strip()):
             continue                                    # a blank line: no row
         if len(record) != h:

@@ -308,3 +308,36 @@ def test_a_systems_own_correlation_or_a_single_requests_still_names_the_input_it
     # an input the calculation does not have is still the whole batch's 422
     r = client.post("/v1/batch/sb1", json={"systems": [SB1_A], "correlations": [{"between": ["k1", "k3"], "rho": 0.5}]})
     assert list(problem(r, 422)["errors"]) == ["correlations.0.between"]
+
+
+# --- 6. a CSV quote never closed ------------------------------------------------------------------------
+
+UNCLOSED = 'star,period,k1,eccentricity\nA,41.6,23.4,0.31\n"B,41.6,23.4,0.31\nC,20.0,20.0,0.1\nD,20.0,20.0,0.1\n'
+
+
+def test_a_csv_quote_never_closed_is_a_400_naming_the_body_and_its_line(client):
+    # the quote swallowed every later line into one cell: three systems became one failed row, and the
+    # answer counted 2 systems of the 4 sent
+    r = client.post("/v1/batch/sb1", data=UNCLOSED, query_string={"keep": "star"},
+                    headers={"Content-Type": "text/csv", "Accept": "application/json"})
+    doc = problem(r, 400)
+    assert list(doc["errors"]) == ["_body"] and "line 3" in doc["errors"]["_body"][0], doc
+
+
+def test_a_quoted_cell_over_two_lines_or_a_quote_within_a_cell_is_still_read(client):
+    text = 'star,period,k1,eccentricity\n"A\nsecond line",41.6,23.4,0.31\n5"x,20.0,20.0,0.1\n"B ""b""",20.0,20.0,0.1\n'
+    r = client.post("/v1/batch/sb1", data=text, query_string={"keep": "star"},
+                    headers={"Content-Type": "text/csv", "Accept": "application/json"})
+    doc = r.get_json()
+    assert r.status_code == 200 and doc["count"] == 3 and doc["errors"] == [], doc
+    assert doc["kept"]["star"] == ["A\nsecond line", '5"x', 'B "b"']
+
+
+def test_the_command_line_says_a_csv_quote_never_closed_in_one_line(tmp_path, capsys):
+    from calcservice.cli import main
+    (tmp_path / "cat.csv").write_text(UNCLOSED)
+    assert main(["compute", "sb1", "--in", str(tmp_path / "cat.csv"), "--keep", "star",
+                 "--out", str(tmp_path / "out.csv")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("calcservice compute: --in: ") and "line 3" in err and err.count("\n") == 1, err
+    assert not (tmp_path / "out.csv").exists()
