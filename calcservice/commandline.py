@@ -107,8 +107,16 @@ def _number(text: str, field: str) -> float:
 
 
 def _samples(path: str, field: str) -> dict:
+    from .config import load_settings
+    # read no more than a request body may hold: /dev/zero (or a file of gigabytes) was read without end
+    limit = load_settings().limits.max_body_bytes
     try:
-        raw = Path(path).read_text()
+        with open(path, "rb") as fh:
+            data = fh.read(limit + 1)
+        if len(data) > limit:
+            raise UsageError(field, f"{path} holds more than {limit} bytes of samples (limit max_body_bytes, "
+                                    "CALCSERVICE_MAX_BODY_BYTES): give fewer draws")
+        raw = data.decode("utf-8")
     except OSError as e:
         raise UsageError(field, f"cannot read samples from {path}: {e.strerror}") from None
     except UnicodeDecodeError as e:

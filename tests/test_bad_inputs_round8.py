@@ -341,3 +341,26 @@ def test_the_command_line_says_a_csv_quote_never_closed_in_one_line(tmp_path, ca
     err = capsys.readouterr().err
     assert err.startswith("calcservice compute: --in: ") and "line 3" in err and err.count("\n") == 1, err
     assert not (tmp_path / "out.csv").exists()
+
+
+# --- 7. the command line's samples file without end ------------------------------------------------------
+
+def test_a_samples_file_without_end_is_one_line_naming_the_input_not_a_hang(tmp_path, capsys, monkeypatch):
+    import os
+
+    from calcservice.cli import main
+    if not os.path.exists("/dev/zero"):
+        pytest.skip("no /dev/zero")
+    # /dev/zero was read to the end, which never comes; more than a request body may hold is refused
+    assert main(["compute", "sb1", "period=@/dev/zero", "k1=23.4", "eccentricity=0.31"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("calcservice compute: period: ") and "max_body_bytes" in err and err.count("\n") == 1, err
+    monkeypatch.setenv("CALCSERVICE_MAX_BODY_BYTES", "100")
+    (tmp_path / "draws.txt").write_text("41.6\n" * 30)            # 150 bytes
+    assert main(["compute", "sb1", f"period=@{tmp_path / 'draws.txt'}", "k1=23.4", "eccentricity=0.31"]) == 2
+    assert "more than 100 bytes" in capsys.readouterr().err
+    (tmp_path / "draws.txt").write_text("41.5 41.7\n")
+    assert main(["compute", "sb1", f"period=@{tmp_path / 'draws.txt'}", "k1=23.4", "eccentricity=0.31",
+                 "--format", "json"]) == 0
+    import json
+    assert json.loads(capsys.readouterr().out)["inputs"]["period"]["value"] == pytest.approx(41.6, rel=1e-12)
