@@ -8,6 +8,7 @@ The standard library and numpy only, so the client can use it without the servic
 
 from __future__ import annotations
 
+import datetime
 import decimal
 import difflib
 import math
@@ -195,6 +196,10 @@ def column_array(col, label: str = "column") -> np.ndarray:
     arr = np.asarray(col)
     if arr.dtype.kind == "b" or (arr.dtype.kind == "O" and any(isinstance(v, (bool, np.bool_)) for v in arr.tolist())):
         raise ValueError(f"{label}: a column of true and false holds no numbers")
+    if arr.dtype.kind in "cm" or (arr.dtype.kind == "O" and any(isinstance(v, _NO_NUMBERS) for v in arr.tolist())):
+        # JSON has neither (the encoder's TypeError named no column), and a duration's unit is the table's to say
+        raise ValueError(f"{label}: a column of complex numbers or durations holds no real numbers: give floats (a "
+                         "duration as its number in a unit, e.g. days)")
     if arr.dtype.kind in "iuf":
         arr = as_doubles(arr)
     elif arr.dtype.kind in "USO":
@@ -215,6 +220,9 @@ def column_array(col, label: str = "column") -> np.ndarray:
         arr = arr.astype(float if arr.dtype.kind == "f" else object, copy=True)
         arr[mask] = np.nan if arr.dtype.kind == "f" else None
     return arr
+
+
+_NO_NUMBERS = (complex, np.complexfloating, datetime.timedelta, np.timedelta64)
 
 
 def _number_or_text(v):

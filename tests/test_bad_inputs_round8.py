@@ -364,3 +364,27 @@ def test_a_samples_file_without_end_is_one_line_naming_the_input_not_a_hang(tmp_
                  "--format", "json"]) == 0
     import json
     assert json.loads(capsys.readouterr().out)["inputs"]["period"]["value"] == pytest.approx(41.6, rel=1e-12)
+
+
+# --- 8. the client's column of complex numbers or durations ----------------------------------------------
+
+@pytest.mark.parametrize("period", [
+    lambda pd, dt: np.array([41.6 + 0j, 20.0]),
+    lambda pd, dt: [41.6 + 0j, 20.0],
+    lambda pd, dt: np.array([41, 20], dtype="timedelta64[D]"),
+    lambda pd, dt: [dt.timedelta(days=41.6), dt.timedelta(days=20)],
+    lambda pd, dt: pd.Series(pd.to_timedelta([41.6, 20.0], unit="D")),
+])
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_a_column_of_complex_numbers_or_durations_is_refused_naming_it(period, transport):
+    import datetime as dt
+
+    import pandas as pd
+
+    from calcservice.client import Client, InvalidInput
+    # JSON: a TypeError of the encoder ("Type is not JSON serializable: complex") named no column;
+    # Arrow: every system failed with "value must be a number"
+    with pytest.raises(InvalidInput) as e:
+        Client("local", transport=transport).batch("sb1", {"period": period(pd, dt), "k1": [23.4, 20.0],
+                                                           "eccentricity": [0.31, 0.1]}, units={"period": "d"})
+    assert list(e.value.errors) == ["period"]
