@@ -193,7 +193,10 @@ def column_array(col, label: str = "column") -> np.ndarray:
         col = np.ma.getdata(col)
     if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, dict):
         col = col.value
-    arr = np.asarray(col)
+    try:
+        arr = np.asarray(col)
+    except ValueError:          # numpy's "inhomogeneous shape": a list in some cells, which named no column
+        raise ValueError(f"{label}: a column is one number (or text) per system, not a list in some cells") from None
     if arr.dtype.kind == "b" or (arr.dtype.kind == "O" and any(isinstance(v, (bool, np.bool_)) for v in arr.tolist())):
         raise ValueError(f"{label}: a column of true and false holds no numbers")
     if arr.dtype.kind in "cm" or (arr.dtype.kind == "O" and any(isinstance(v, _NO_NUMBERS) for v in arr.tolist())):

@@ -388,3 +388,11 @@ def test_a_column_of_complex_numbers_or_durations_is_refused_naming_it(period, t
         Client("local", transport=transport).batch("sb1", {"period": period(pd, dt), "k1": [23.4, 20.0],
                                                            "eccentricity": [0.31, 0.1]}, units={"period": "d"})
     assert list(e.value.errors) == ["period"]
+
+
+def test_a_column_with_a_list_in_some_cells_is_refused_naming_it(local):
+    from calcservice.client import InvalidInput
+    # numpy's "setting an array element with a sequence ... inhomogeneous shape", keyed _inputs
+    with pytest.raises(InvalidInput) as e:
+        local.batch("sb1", {"period": [[41.6], 20.0], "k1": [23.4, 20.0], "eccentricity": [0.31, 0.1]})
+    assert list(e.value.errors) == ["period"]
