@@ -1124,8 +1124,8 @@ def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, An
 
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
     arr = _to_array(col, label)
-    if arr.dtype.kind != "f":
-        raise InvalidInput(f"{label}: a sigma column holds numbers")
+    if arr.dtype.kind != "f" or arr.ndim > 1:       # a 2-D one was a pyarrow ArrowInvalid, or a sigma per cell refused
+        raise InvalidInput(f"{label}: a sigma column holds numbers, one per system")
     arr = np.array(arr, dtype=float)
     if unit is not None and unit != (value_unit or ""):
         from astropy import units as u
@@ -1145,7 +1145,7 @@ def _json_default(o):
     if isinstance(o, np.ndarray):
         return o.tolist()
     if isinstance(o, np.generic):
-        return o.item()
+        return plain_number(o)
     if isinstance(o, (_dt.datetime, _dt.date)):
         return o.isoformat()
     raise TypeError(f"cannot send {type(o).__name__} as JSON")

@@ -152,8 +152,8 @@ def as_doubles(values) -> np.ndarray:
 def plain_number(x):
     """A numpy scalar as the Python number it stands for (a float32's by :func:`as_doubles`); anything else
     as it is."""
-    if isinstance(x, np.floating) and x.dtype.itemsize < 8:
-        return float(as_doubles(x))
+    if isinstance(x, np.floating):      # a longdouble's item() is itself: the double nearest it
+        return float(as_doubles(x)) if x.dtype.itemsize < 8 else float(x)
     return x.item() if isinstance(x, np.generic) else x
 
 
@@ -213,6 +213,13 @@ def column_array(col, label: str = "column") -> np.ndarray:
         if refused:
             raise ValueError(f"{label}: {lenient_message(refused, [cells[k] for k in refused[:3]])}")
         items = [_number_or_text(v) for v in cells]
+        odd = next((v for v in items if v is not None and not isinstance(v, (float, str, datetime.date, np.datetime64))),
+                   None)
+        if odd is not None:
+            # a Quantity, an uncertainties number or a masked entry among plain numbers: JSON has no such value
+            # (the encoder's TypeError named no column), and read alone each would lose its unit or sigma
+            raise ValueError(f"{label}: a column holds one number (or text) per system, not a {type(odd).__name__} "
+                             "among them: give a Quantity column, or numbers and a unit")
         if all(v is None or (isinstance(v, float)) for v in items):
             arr = np.array([np.nan if v is None else v for v in items], dtype=float)
         else:

@@ -396,3 +396,34 @@ def test_a_column_with_a_list_in_some_cells_is_refused_naming_it(local):
     with pytest.raises(InvalidInput) as e:
         local.batch("sb1", {"period": [[41.6], 20.0], "k1": [23.4, 20.0], "eccentricity": [0.31, 0.1]})
     assert list(e.value.errors) == ["period"]
+
+
+# --- 9. the client's odd objects in a column, a 2-D sigma, a longdouble -----------------------------------
+
+@pytest.mark.parametrize("column, field", [
+    (lambda pd, u, Masked, ufloat: pd.Series([Masked(41.6 * u.d, mask=True), 20.0]), "period"),   # TypeError
+    (lambda pd, u, Masked, ufloat: pd.Series([ufloat(41.6, 0.1), 20]), "period"),               # TypeError
+    (lambda pd, u, Masked, ufloat: pd.Series([41.6 * u.d, 20.0]), "period"),
+    (lambda pd, u, Masked, ufloat: ([41.6, 20.0], [np.array([0.1, 0.2]), (0.1, 0.2)]), "period"),  # ArrowInvalid
+])
+@pytest.mark.parametrize("transport", ["json", "arrow"])
+def test_a_column_holding_objects_that_are_no_numbers_is_refused_naming_it(column, field, transport):
+    import astropy.units as u
+    import pandas as pd
+    from astropy.utils.masked import Masked
+    from uncertainties import ufloat
+
+    from calcservice.client import Client, InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        Client("local", transport=transport).batch("sb1", {"period": column(pd, u, Masked, ufloat), "k1": [23.4, 20.0],
+                                                           "eccentricity": [0.31, 0.1]}, units={"period": "d"})
+    assert list(e.value.errors) == [field]
+
+
+@pytest.mark.parametrize("period", [lambda: np.longdouble("41.6"), lambda: (np.longdouble("41.6"), 0.1),
+                                   lambda: {"value": np.longdouble("41.6")}])
+def test_a_longdouble_is_the_double_nearest_it(local, period):
+    from tests.test_bad_inputs_round4 import mass_function
+    # refused as "no value of the wire contract", or the encoder's "default serializer exceeds recursion limit"
+    r = local.calculate("sb1", period=period(), k1=23.4, eccentricity=0.31)
+    assert r["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
