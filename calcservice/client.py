@@ -1189,10 +1189,13 @@ def _quantity_list(col: Any, label: str) -> Any:
         return col
     from astropy import units as u
     try:
-        return u.Quantity(list(col))
-    except (u.UnitsError, TypeError, ValueError):
+        out = u.Quantity(list(col))
+    except (u.UnitsError, TypeError, ValueError, OverflowError):     # an integer beyond a double among them too
+        out = None
+    if out is None or np.iscomplexobj(out):       # a complex number among them: no JSON value (the encoder's TypeError)
         raise InvalidInput(f"{label}: a list of Quantities must give each entry as a Quantity of one kind of unit "
-                           "(or give one Quantity array)") from None
+                           "(or give one Quantity array)")
+    return out
 
 
 def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:

@@ -427,3 +427,16 @@ def test_a_longdouble_is_the_double_nearest_it(local, period):
     # refused as "no value of the wire contract", or the encoder's "default serializer exceeds recursion limit"
     r = local.calculate("sb1", period=period(), k1=23.4, eccentricity=0.31)
     assert r["results"]["mass_function"]["value"] == pytest.approx(mass_function(41.6, 23.4, 0.31), rel=1e-12)
+
+
+@pytest.mark.parametrize("eccentricity", [
+    lambda u: [0.3 * u.one, np.complex128(1 + 1j)],      # a complex Quantity: the encoder's TypeError
+    lambda u: [10 ** 400, 0.3 * u.one],                  # astropy's OverflowError
+])
+def test_a_list_of_quantities_with_a_complex_or_a_huge_integer_is_refused_naming_the_input(local, eccentricity):
+    import astropy.units as u
+
+    from calcservice.client import InvalidInput
+    with pytest.raises(InvalidInput) as e:
+        local.calculate("sb1", period=41.6, k1=23.4, eccentricity=eccentricity(u))
+    assert list(e.value.errors) == ["eccentricity"]
