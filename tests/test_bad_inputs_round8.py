@@ -440,3 +440,63 @@ def test_a_list_of_quantities_with_a_complex_or_a_huge_integer_is_refused_naming
     with pytest.raises(InvalidInput) as e:
         local.calculate("sb1", period=41.6, k1=23.4, eccentricity=eccentricity(u))
     assert list(e.value.errors) == ["eccentricity"]
+
+
+# --- 10. a bounded sample of the hand fuzz: every input read in another unit gives the same answer ----------
+
+_OTHER_UNITS = {"d": ["yr", "h"], "km/s": ["m/s", "au/yr"], "deg": ["rad", "arcsec"], "mas": ["arcsec", "uas"],
+                "solMass": ["kg", "jupiterMass"], "au": ["solRad", "km"], "pc": ["kpc", "lyr"], "": ["%"],
+                "kpc": ["pc"], "solMass/yr": ["kg/s"], "GHz": ["MHz"], "mJy": ["Jy", "W/(m2 Hz)"], "solRad": ["km"],
+                "s/yr": ["d/yr"], "deg/yr": ["rad/yr"], "solLum": ["W"]}
+
+
+def _unit_cases():
+    import random
+
+    from calcservice.registry import calculations
+    cases = [(calc.name, spec.name, unit) for calc in calculations().values() for spec in calc.inputs
+             if spec.kind == "quantity" and not spec.time and spec.name in calc.example
+             for unit in _OTHER_UNITS.get(spec.unit, [])]
+    return random.Random(8).sample(cases, 24)
+
+
+@pytest.mark.parametrize("name, field, unit", _unit_cases())
+def test_an_input_in_another_unit_is_read_as_the_same_quantity_in_json_and_in_a_csv_header(client, name, field, unit):
+    import json
+
+    import astropy.units as u
+
+    from calcservice.registry import calculations
+    # the conversion factor is astropy's (a unit read wrongly, or not at all, changes every answer)
+    calc = calculations()[name]
+    ex = json.loads(json.dumps(calc.example))
+    f = float((1 * u.Unit(calc.input(field).unit or "")).to_value(u.Unit(unit)))
+    entry = ex[field] if isinstance(ex[field], dict) else {"value": ex[field]}
+    entry = {k: (v * f if k in ("value", "sigma", "sigma_minus", "sigma_plus") else v) for k, v in entry.items()}
+    ref = client.post(calc.path, json=ex).get_json()["results"]
+    got = client.post(calc.path, json={**ex, field: {**entry, "unit": unit}}).get_json()["results"]
+    scalar = {o: e for o, e in ref.items() if isinstance(e, dict) and isinstance(e.get("value"), float)}
+    for o, e in scalar.items():
+        assert got[o]["value"] == pytest.approx(e["value"], rel=1e-9), o
+    if any(calc.input(k).kind != "quantity" and k not in ("recipe", "wind_type", "mode", "opening_angle_formula")
+           for k in ex if k != "correlations"):
+        return
+    head, cells = [], []
+    for k, v in {**ex, field: {**entry, "unit": unit}}.items():
+        if k == "correlations":
+            continue
+        v = v if isinstance(v, dict) else {"value": v}
+        head.append(f"{k}[{v['unit']}]" if "unit" in v else k)
+        cells.append(str(v["value"]))
+        if "sigma" in v:
+            head.append(f"{k}_sigma")
+            cells.append(repr(v["sigma"]))
+    options = {"correlations": ex["correlations"]} if "correlations" in ex else {}
+    r = client.post(f"/v1/batch/{name}", data=",".join(head) + "\n" + ",".join(cells) + "\n",
+                    query_string={"options": json.dumps(options)} if options else None,
+                    headers={"Content-Type": "text/csv", "Accept": "application/json"})
+    doc = r.get_json()
+    assert r.status_code == 200 and doc["errors"] == [], doc.get("errors")
+    for o, e in scalar.items():
+        assert doc["columns"][o]["value"][0] == pytest.approx(e["value"], rel=1e-9), o
+        assert doc["columns"][o]["sigma"][0] == pytest.approx(e["sigma"], rel=1e-6, abs=1e-300), o
