@@ -41,7 +41,7 @@ import numpy as np
 import orjson
 
 from . import __version__
-from .columns import column_array
+from .columns import as_doubles, column_array, plain_number
 from .columns import column_name, column_role, correlated_columns, error_text, infinite_cells, kept_name_errors, \
     split_unit, uncertain_parts
 from .columns import unit_of as _unit_of
@@ -1142,8 +1142,8 @@ def _object_quantities(col: Mapping[str, Any], label: str, spec: Mapping[str, An
 
 def _sigma_array(label: str, col: Any, unit: str | None, value_unit: str | None) -> np.ndarray:
     arr = _to_array(col, label)
-    if arr.dtype.kind != "f":
-        raise InvalidInput(f"{label}: a sigma column holds numbers")
+    if arr.dtype.kind != "f" or arr.ndim > 1:       # a 2-D one was a pyarrow ArrowInvalid, or a sigma per cell refused
+        raise InvalidInput(f"{label}: a sigma column holds numbers, one per system")
     arr = np.array(arr, dtype=float)
     if unit is not None and unit != (value_unit or ""):
         from astropy import units as u
@@ -1163,7 +1163,7 @@ def _json_default(o):
     if isinstance(o, np.ndarray):
         return o.tolist()
     if isinstance(o, np.generic):
-        return o.item()
+        return plain_number(o)
     if isinstance(o, (_dt.datetime, _dt.date)):
         return o.isoformat()
     raise TypeError(f"cannot send {type(o).__name__} as JSON")
@@ -1183,7 +1183,14 @@ def dumps(body: Any) -> bytes:
 def _plain(x):
     """numpy scalars and arrays as Python numbers and lists (an astropy Quantity as it is: its numbers alone
     would lose its unit)."""
+    if isinstance(x, np.generic):
+        return plain_number(x)
     if hasattr(x, "tolist") and not isinstance(x, (str, bytes)) and not _is_quantity(x):
+        dtype = getattr(x, "dtype", None)
+        if isinstance(dtype, np.dtype) and dtype.kind == "f" and dtype.itemsize < 8:     # float16, float32
+            if np.ma.isMaskedArray(x):
+                return np.ma.masked_array(as_doubles(np.ma.getdata(x)), mask=np.ma.getmaskarray(x)).tolist()
+            return as_doubles(x).tolist()
         return x.tolist()
     return x
 
@@ -1200,10 +1207,13 @@ def _quantity_list(col: Any, label: str) -> Any:
         return col
     from astropy import units as u
     try:
-        return u.Quantity(list(col))
-    except (u.UnitsError, TypeError, ValueError):
+        out = u.Quantity(list(col))
+    except (u.UnitsError, TypeError, ValueError, OverflowError):     # an integer beyond a double among them too
+        out = None
+    if out is None or np.iscomplexobj(out):       # a complex number among them: no JSON value (the encoder's TypeError)
         raise InvalidInput(f"{label}: a list of Quantities must give each entry as a Quantity of one kind of unit "
-                           "(or give one Quantity array)") from None
+                           "(or give one Quantity array)")
+    return out
 
 
 def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
@@ -1216,8 +1226,12 @@ def _encode(value: Any, decl: Mapping[str, Any] | None) -> Any:
     if isinstance(value, np.datetime64):        # numpy's date: its ISO text (NaT: not given); its tolist() counts ns
         return None if np.isnat(value) else str(np.datetime_as_string(value))
     if hasattr(value, "unit") and hasattr(value, "value") and not isinstance(value, Mapping):
-        # an astropy Quantity: its number in its own unit
-        v = _plain(value.value)
+        # an astropy Quantity: its number in its own unit; a Masked one's masked entries are missing (null), as a
+        # numpy masked array's are, not the numbers under the mask
+        numbers = value.value
+        if hasattr(value, "unmasked") and hasattr(value, "mask"):
+            numbers = np.ma.masked_array(value.unmasked.value, mask=np.asarray(value.mask))
+        v = _plain(numbers)
         _finite(v, decl)            # an infinite Quantity would be written as null, said to be missing
         unit = unit_text(value.unit, (decl or {}).get("name", "an input"))
         if kind == "series":

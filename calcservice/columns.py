@@ -8,6 +8,7 @@ The standard library and numpy only, so the client can use it without the servic
 
 from __future__ import annotations
 
+import datetime
 import decimal
 import difflib
 import math
@@ -137,6 +138,25 @@ def lenient_message(rows, texts) -> str:
             "underscore, a hexadecimal prefix or a non-ASCII digit or space is read as a typo")
 
 
+def as_doubles(values) -> np.ndarray:
+    """Numbers as a float64 array; those of less precision (float16, float32: a FITS, Arrow or ECSV catalogue's
+    column) as the doubles of the decimals they print, their shortest round-trip text, which is what their
+    writer put in: 41.6 written as a float32 is 41.599998474121094 as a double, a number nobody wrote, and the
+    one every answer and echo would carry."""
+    arr = np.asarray(values)
+    if arr.dtype.kind == "f" and arr.dtype.itemsize < 8:
+        return arr.astype(str).astype(float)
+    return arr.astype(float)
+
+
+def plain_number(x):
+    """A numpy scalar as the Python number it stands for (a float32's by :func:`as_doubles`); anything else
+    as it is."""
+    if isinstance(x, np.floating):      # a longdouble's item() is itself: the double nearest it
+        return float(as_doubles(x)) if x.dtype.itemsize < 8 else float(x)
+    return x.item() if isinstance(x, np.generic) else x
+
+
 def unit_of(col) -> str | None:
     """The unit of an astropy Quantity or Column (None for plain numbers)."""
     unit = getattr(col, "unit", None)
@@ -161,7 +181,9 @@ def column_array(col, label: str = "column") -> np.ndarray:
         # numbers (nullable ones too) as floats; text cells are looked at below, as pandas would
         # read "4_1.6" as 41.6
         if getattr(col.dtype, "kind", "O") in "iuf":
-            return col.to_numpy(dtype=float, na_value=np.nan)
+            # a float32 column (nullable Float32 too) in its own type first, for as_doubles to read its decimals
+            own = np.dtype(getattr(col.dtype, "numpy_dtype", col.dtype))
+            return as_doubles(col.to_numpy(dtype=own if own.kind == "f" else float, na_value=np.nan))
         col = col.to_numpy(dtype=object)
     if hasattr(col, "unmasked") and hasattr(col, "mask"):      # astropy Masked (a masked Quantity)
         mask = np.asarray(col.mask)
@@ -171,11 +193,18 @@ def column_array(col, label: str = "column") -> np.ndarray:
         col = np.ma.getdata(col)
     if hasattr(col, "unit") and hasattr(col, "value") and not isinstance(col, dict):
         col = col.value
-    arr = np.asarray(col)
+    try:
+        arr = np.asarray(col)
+    except ValueError:          # numpy's "inhomogeneous shape": a list in some cells, which named no column
+        raise ValueError(f"{label}: a column is one number (or text) per system, not a list in some cells") from None
     if arr.dtype.kind == "b" or (arr.dtype.kind == "O" and any(isinstance(v, (bool, np.bool_)) for v in arr.tolist())):
         raise ValueError(f"{label}: a column of true and false holds no numbers")
+    if arr.dtype.kind in "cm" or (arr.dtype.kind == "O" and any(isinstance(v, _NO_NUMBERS) for v in arr.tolist())):
+        # JSON has neither (the encoder's TypeError named no column), and a duration's unit is the table's to say
+        raise ValueError(f"{label}: a column of complex numbers or durations holds no real numbers: give floats (a "
+                         "duration as its number in a unit, e.g. days)")
     if arr.dtype.kind in "iuf":
-        arr = arr.astype(float)
+        arr = as_doubles(arr)
     elif arr.dtype.kind in "USO":
         # text cells that are numbers are numbers (a column mixing "isotropic" and angles)
         cells = [_missing_to_none(v) for v in arr.tolist()]
@@ -184,6 +213,13 @@ def column_array(col, label: str = "column") -> np.ndarray:
         if refused:
             raise ValueError(f"{label}: {lenient_message(refused, [cells[k] for k in refused[:3]])}")
         items = [_number_or_text(v) for v in cells]
+        odd = next((v for v in items if v is not None and not isinstance(v, (float, str, datetime.date, np.datetime64))),
+                   None)
+        if odd is not None:
+            # a Quantity, an uncertainties number or a masked entry among plain numbers: JSON has no such value
+            # (the encoder's TypeError named no column), and read alone each would lose its unit or sigma
+            raise ValueError(f"{label}: a column holds one number (or text) per system, not a {type(odd).__name__} "
+                             "among them: give a Quantity column, or numbers and a unit")
         if all(v is None or (isinstance(v, float)) for v in items):
             arr = np.array([np.nan if v is None else v for v in items], dtype=float)
         else:
@@ -194,6 +230,9 @@ def column_array(col, label: str = "column") -> np.ndarray:
         arr = arr.astype(float if arr.dtype.kind == "f" else object, copy=True)
         arr[mask] = np.nan if arr.dtype.kind == "f" else None
     return arr
+
+
+_NO_NUMBERS = (complex, np.complexfloating, datetime.timedelta, np.timedelta64)
 
 
 def _number_or_text(v):
@@ -309,5 +348,5 @@ def error_text(problem: Mapping) -> str:
     return "; ".join(parts)
 
 
-__all__ = ["naming", "error_text", "unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
+__all__ = ["as_doubles", "plain_number", "naming", "error_text", "unit_of", "column_array", "uncertain_parts", "correlated_columns", "SIGMA_SUFFIXES", "MEMBERS", "split_unit", "column_role", "column_name", "not_plain_numbers", "lenient",
            "lenient_message", "meant", "infinite_cells"]

@@ -107,8 +107,16 @@ def _number(text: str, field: str) -> float:
 
 
 def _samples(path: str, field: str) -> dict:
+    from .config import load_settings
+    # read no more than a request body may hold: /dev/zero (or a file of gigabytes) was read without end
+    limit = load_settings().limits.max_body_bytes
     try:
-        raw = Path(path).read_text()
+        with open(path, "rb") as fh:
+            data = fh.read(limit + 1)
+        if len(data) > limit:
+            raise UsageError(field, f"{path} holds more than {limit} bytes of samples (limit max_body_bytes, "
+                                    "CALCSERVICE_MAX_BODY_BYTES): give fewer draws")
+        raw = data.decode("utf-8")
     except OSError as e:
         raise UsageError(field, f"cannot read samples from {path}: {e.strerror}") from None
     except UnicodeDecodeError as e:
@@ -375,7 +383,7 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
 
     from .client import InputTable
     from .columns import column_role, split_unit
-    from .tables import is_ecsv, quiet_range_warnings, ragged_rows, restore_underflows, table_lines
+    from .tables import is_ecsv, quiet_range_warnings, restore_underflows, table_lines
     fmt = table_format(path, "--in")
     options: dict[str, Any] = {}
     source: Any = path
@@ -394,10 +402,10 @@ def read_catalogue(calc: Calculation, path: str, keep: Sequence[str] = ()):
         options = {"delimiter": _check_csv_header(path), "guess": False}
         # from the header on, as the service reads a CSV body (tables.table_lines); a ragged row is
         # that system's error in place, as there (tables.ragged_rows)
-        source, refused = ragged_rows(table_lines(text.splitlines()), False, options["delimiter"])
+        source, refused = _ragged_rows(path, table_lines(text.splitlines()), False, options["delimiter"])
     elif fmt == "ascii.ecsv":
         _check_ecsv_header(path, text.splitlines())
-        lines, refused = ragged_rows(text.splitlines(), True)
+        lines, refused = _ragged_rows(path, text.splitlines(), True)
         if refused:
             source, options = lines, {"guess": False}
         elif _has("pandas") and not _ALIGNED.search(text):
@@ -479,6 +487,16 @@ def _check_csv_header(path: str) -> str:
         if field == "_body":
             raise UsageError("--in", f"{' '.join(messages)} ({path})") from None
         raise UsageError(field, f"{' '.join(messages)} in the header of {path}") from None
+
+
+def _ragged_rows(path: str, lines: list[str], ecsv: bool, delimiter: str = ","):
+    """:func:`calcservice.tables.ragged_rows`, its refusal of a text that is no table (a quote never closed) one
+    line naming the file."""
+    from .tables import TableError, ragged_rows
+    try:
+        return ragged_rows(lines, ecsv, delimiter)
+    except TableError as e:
+        raise UsageError("--in", f"{' '.join(next(iter(e.errors.values())))} ({path})") from None
 
 
 def _check_ecsv_header(path: str, lines: list[str]) -> None:

@@ -1003,7 +1003,12 @@ def _idle_correlations(quantities: Mapping[str, Measured], options: Options, n: 
     there (no sigma) or drawn from isotropic orientations, which no other input's draws follow."""
     out = []
     for (a, b), rho in options.correlations.items():
-        if rho == 0 or a not in quantities or b not in quantities:
+        absent = [name for name in (a, b) if name not in quantities]
+        if absent and rho != 0:         # a batch's correlation, for systems that lack one of its inputs
+            out.append(Warning("correlation_without_effect", f"the correlation of {a} and {b} has no effect: "
+                               f"{' and '.join(absent)} {'is' if len(absent) == 1 else 'are'} not given",
+                               np.ones(n, dtype=bool), None))
+        if rho == 0 or absent:
             continue
         idle = np.zeros(n, dtype=bool)
         for name in (a, b):
@@ -1101,10 +1106,11 @@ def _draw(calc, quantities, options, n, s) -> tuple[dict[str, np.ndarray], int]:
             else:
                 # split normal by its inverse CDF; z keeps any correlation (Gaussian copula)
                 u = ndtr(zj)
-                tot = sm + sp
-                pl = np.where(tot > 0, sm / np.where(tot > 0, tot, 1.0), 0.5)
-                low = x + sm * ndtri(np.clip(u * tot / (2 * sm), 0, 1))
-                high = x + sp * ndtri(np.clip(0.5 + (u - pl) * tot / (2 * sp), 0, 1))
+                wm, wp = _scaled_halves(sm, sp)
+                tot = wm + wp
+                pl = np.where(tot > 0, wm / np.where(tot > 0, tot, 1.0), 0.5)
+                low = x + sm * ndtri(np.clip(u * tot / (2 * wm), 0, 1))
+                high = x + sp * ndtri(np.clip(0.5 + (u - pl) * tot / (2 * wp), 0, 1))
                 out[name] = np.where(u < pl, low, high)
                 out[name] = np.where(tot > 0, out[name], x)
         else:
@@ -1117,15 +1123,29 @@ def split_normal_within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: 
     """The probability that a draw of :func:`_draw`'s split normal (mode ``value``, half-widths
     ``sigma_minus`` and ``sigma_plus``, each half weighted by its width) lies in [low, high]: the CDF
     whose inverse :func:`_draw` takes; a normal's where the two are equal."""
-    total = sigma_minus + sigma_plus
+    sm, sp = _scaled_halves(sigma_minus, sigma_plus)
+    total = sm + sp
 
     def cdf(x: float) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
-            left = 2 * sigma_minus / total * ndtr((x - value) / sigma_minus)
-            right = sigma_minus / total + 2 * sigma_plus / total * (ndtr((x - value) / sigma_plus) - 0.5)
+            left = 2 * sm / total * ndtr((x - value) / sigma_minus)
+            right = sm / total + 2 * sp / total * (ndtr((x - value) / sigma_plus) - 0.5)
         return np.where(x < value, left, right)
 
     return cdf(high) - cdf(low)
+
+
+def _halves_scale(sigma_minus, sigma_plus) -> np.ndarray:
+    """A power of two near the larger half-width of a split normal: the halves' weights and the inverse CDF's
+    ratios are formed from the widths divided by it, exactly the same numbers where nothing overflows, and
+    finite where 2 sigma_plus or their sum would overflow (a sigma_plus of 1e308 drew every draw at the mode)."""
+    _, exponent = np.frexp(np.maximum(sigma_minus, sigma_plus))
+    return np.ldexp(1.0, exponent - 1)
+
+
+def _scaled_halves(sigma_minus, sigma_plus) -> tuple[np.ndarray, np.ndarray]:
+    scale = _halves_scale(sigma_minus, sigma_plus)
+    return sigma_minus / scale, sigma_plus / scale
 
 
 def quantiles(y: np.ndarray, valid: np.ndarray, qs) -> list[np.ndarray]:

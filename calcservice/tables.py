@@ -34,7 +34,7 @@ from typing import Any, Container, Mapping, Sequence
 
 import numpy as np
 
-from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, column_role, error_text, kept_name_errors, lenient,
+from .columns import (ERROR_COLUMNS, MEMBERS, UNCERTAINTY_PREFIX, as_doubles, column_role, error_text, kept_name_errors, lenient,
                       lenient_message, may_underflow, meant, not_plain_numbers, read_number, split_unit)
 from .registry import Calculation
 from .units import UnitError, factor
@@ -302,8 +302,10 @@ def _read_arrow(data: bytes, calc: Calculation, keep: Container[str] = ()) -> li
                 else [None] * len(column)
         elif (pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_decimal(t)) and kind == "quantity" \
                 and field.name not in keep:
-            # nulls become NaN; an integer beyond 2**53 is the nearest double, as a JSON number is
-            values = column.cast(pa.float64(), safe=False).to_numpy()
+            # nulls become NaN; an integer beyond 2**53 is the nearest double, as a JSON number is; a float32's
+            # the decimal it prints (as_doubles)
+            values = as_doubles(column.to_numpy(zero_copy_only=False)) if pa.types.is_floating(t) and \
+                t.bit_width < 64 else column.cast(pa.float64(), safe=False).to_numpy()
         elif pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_string(t) \
                 or pa.types.is_large_string(t) or pa.types.is_boolean(t):
             values = column.to_pylist()
@@ -502,6 +504,13 @@ def ragged_rows(lines: Sequence[str], ecsv: bool, delimiter: str = ",") -> tuple
     empty = delimiter.join(['""'] * h)
     for record in reader:
         first, done = done, reader.line_num
+        if done == len(body) and done - first > 1 and sum(line.count('"') for line in body[first:done]) % 2:
+            # a quote never closed: the reader took every line after it for one cell, and those systems were lost
+            where = f"line {start + first + 1}"
+            raise TableError(400, f"the {'ECSV' if ecsv else 'CSV'} text has a quote on {where} that is never "
+                                  f"closed: the {done - first} lines from there would be read as one cell",
+                             {"_body": [f"a quote opened on {where} is not closed (a quote within a cell is written "
+                                        "twice, inside a quoted cell)"]})
         if not record or (len(record) == 1 and not record[0].strip()):
             continue                                    # a blank line: no row
         if len(record) != h:
@@ -598,7 +607,8 @@ def _read_text(data: bytes, calc: Calculation, keep: Container[str] = (),
         kind = kinds.get((column_role(name, kinds) or (name,))[0], "quantity")
         masked = np.ma.asarray(col)
         if masked.dtype.kind in "fiu" and kind == "quantity" and name not in keep:
-            values = np.asarray(masked.astype(float).filled(np.nan), dtype=float).view(np.ndarray)
+            # an ECSV float32 column's cells are the decimals written, not the float32 nearest them (as_doubles)
+            values = np.where(np.ma.getmaskarray(masked), np.nan, as_doubles(np.ma.getdata(masked)))
         else:
             values = written.get(name) or masked.tolist()       # masked entries become None
         # a CSV header's empty brackets (period[]) say dimensionless, as a JSON unit of "" does: refused for a period

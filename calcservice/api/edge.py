@@ -35,6 +35,9 @@ _LONG_INTEGER = b" " + b"d" * 19
 
 log = logging.getLogger("calcservice.access")
 _REQUEST_ID = re.compile(r"^[A-Za-z0-9._\-]{1,64}$")
+# RFC 9112 section 3.2: Host = uri-host [ ":" port ] (RFC 3986: an IP literal in brackets, or a reg-name of
+# unreserved, percent-encoded and sub-delimiter characters, which covers IPv4 addresses; empty is allowed)
+_HOST = re.compile(r"^(?:\[[0-9A-Za-z.:_~!$&'()*+,;=-]+\]|[0-9A-Za-z._~%!$&'()*+,;=-]*)(?::[0-9]*)?$")
 
 
 def _reject_constant(name: str):
@@ -553,6 +556,18 @@ def compress(response: Response, threshold: int) -> None:
     response.headers["Content-Encoding"] = "gzip"
 
 
+def host_field(environ) -> None:
+    """RFC 9112 section 3.2: a server MUST answer 400 to an HTTP/1.1 request without a Host field or with one
+    whose value is no host (gunicorn refuses two Host lines itself, and passes these on)."""
+    host = environ.get("HTTP_HOST")
+    if host is None and environ.get("SERVER_PROTOCOL") == "HTTP/1.1":
+        raise Problem(400, "an HTTP/1.1 request must carry a Host header field (RFC 9112 section 3.2)",
+                      {"Host": ["is required in an HTTP/1.1 request"]})
+    if host is not None and not _HOST.match(host):
+        raise Problem(400, f"the Host header field {host[:80]!r} is not a host[:port] (RFC 9112 section 3.2)",
+                      {"Host": ["must be a host name or address, optionally with :port"]})
+
+
 def install(app: Flask) -> None:
     """Error handlers, request ids, CORS, security headers and the access log."""
     settings = app.config["CALCSERVICE_SETTINGS"]
@@ -595,6 +610,7 @@ def install(app: Flask) -> None:
         g.t0 = time.perf_counter()
         rid = request.headers.get("X-Request-ID", "")
         g.request_id = rid if settings.trust_request_id and _REQUEST_ID.match(rid) else uuid.uuid4().hex
+        host_field(request.environ)
 
     @app.after_request
     def _headers(response: Response):

@@ -29,7 +29,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from ..columns import column_array, correlated_columns, meant, uncertain_parts, unit_of
+from ..columns import as_doubles, column_array, correlated_columns, meant, plain_number, uncertain_parts, unit_of
 from ..config import Limits
 from ..engine import EngineError, Measured, Result, correlation_matrix
 from ..registry import Calculation, Input
@@ -233,8 +233,10 @@ def _unit_factors(spec: Input, units: list, limits: Limits) -> np.ndarray:
 
 
 def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choices: dict[str, _Choice],
-                    shared: dict, row_body: Callable[[int], dict], limits: Limits) -> Evaluated:
-    """Check N systems as arrays, group them by shape and run one engine call per group."""
+                    shared: dict, row_body: Callable[[int], dict], limits: Limits,
+                    correlations: Any = None) -> Evaluated:
+    """Check N systems as arrays, group them by shape and run one engine call per group.  ``correlations``:
+    the batch's own (as given), which a system that lacks an input they name answers without them, warned."""
     out = Evaluated(n)
     slow = np.zeros(n, dtype=bool)
     codes = []
@@ -312,7 +314,7 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
                 data[name] = value
         group = Group(rows)
         try:
-            group.parsed = build(calc, data, limits)
+            group.parsed = build(calc, data, limits, batch_correlations=True)
         except Problem as p:
             group.problem = p
         out.groups.append(group)
@@ -321,7 +323,10 @@ def evaluate_groups(calc: Calculation, n: int, columns: dict[str, _Column], choi
     alike: dict[tuple, list[tuple[int, Parsed]]] = {}
     for i in np.flatnonzero(slow).tolist():
         try:
-            parsed = parse(calc, row_body(i), limits)
+            body = row_body(i)
+            # a system's own correlations must name its inputs, as a single request's must
+            shared_ones = correlations is not None and isinstance(body, dict) and body.get("correlations") is correlations
+            parsed = parse(calc, body, limits, batch_correlations=shared_ones)
         except Problem as p:
             out.problems[i] = p
             continue
@@ -445,7 +450,7 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
         row = systems[i]
         return {**shared.raw, **row} if isinstance(row, dict) else row
 
-    done = evaluate_groups(calc, n, columns, choices, shared.data, row_body, limits)
+    done = evaluate_groups(calc, n, columns, choices, shared.data, row_body, limits, shared.raw.get("correlations"))
     unc = shared.data.get("uncertainty", {})
     uncertainty: dict[str, Any] = {"method": unc.get("method", "linear").replace("-", "_")}
     if uncertainty["method"] == "monte_carlo":
@@ -593,7 +598,7 @@ def compute_columns(calc: Calculation, body: dict, limits: Limits, series_arrays
                 row[name] = v
         return row
 
-    done = evaluate_groups(calc, n, columns, choices, shared, row_body, limits)
+    done = evaluate_groups(calc, n, columns, choices, shared, row_body, limits, raw_shared.get("correlations"))
     for k, reason in (refused or {}).items():
         if 0 <= k < n:
             done.problems[k] = invalid({"_row": [reason]}, "a row whose cells do not match the table's header")
@@ -641,7 +646,7 @@ def array_columns(calc: Calculation, given: dict) -> dict:
         spec = calc.input(name)
         where = f"columns.{name}"
         if isinstance(raw, np.generic):
-            raw = raw.item()
+            raw = plain_number(raw)
         if spec.kind == "series" and _is_array(raw):
             values = np.asarray(getattr(raw, "value", raw)).tolist()
             raw = {"value": values, "unit": unit_of(raw)} if unit_of(raw) else values
@@ -669,7 +674,7 @@ def array_columns(calc: Calculation, given: dict) -> dict:
             target = raw.get("unit") or spec.unit
             for key, v in list(raw.items()):
                 if isinstance(v, np.generic):
-                    raw[key] = v.item()
+                    raw[key] = plain_number(v)
                 elif key == "samples" and _is_array(v):     # each system's draws, (systems, draws)
                     own = unit_of(v)
                     if own and raw.get("unit") is None:
@@ -677,7 +682,7 @@ def array_columns(calc: Calculation, given: dict) -> dict:
                     draws = np.asarray(getattr(v, "value", v))
                     if draws.dtype.kind not in "iuf":
                         raise invalid({f"{where}.samples": [f"draws are numbers, not {draws.dtype}"]})
-                    raw[key] = draws.astype(float).tolist()
+                    raw[key] = as_doubles(draws).tolist()
                 elif key != "value" and _is_array(v):
                     arr = _number_array(v, f"{where}.{key}")
                     own = unit_of(v)

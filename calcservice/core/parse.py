@@ -124,9 +124,10 @@ def check_groups(calc: Calculation, given: set[str]) -> dict[str, list[str]]:
     return errors
 
 
-def parse(calc: Calculation, body: Any, limits: Limits) -> Parsed:
-    """Validate a request body against the calculation's schema and convert it."""
-    return build(calc, load(calc, body, limits), limits)
+def parse(calc: Calculation, body: Any, limits: Limits, batch_correlations: bool = False) -> Parsed:
+    """Validate a request body against the calculation's schema and convert it (``batch_correlations``: see
+    :func:`build`)."""
+    return build(calc, load(calc, body, limits), limits, batch_correlations)
 
 
 def load(calc: Calculation, body: Any, limits: Limits, options_only: bool = False) -> dict:
@@ -146,11 +147,13 @@ def load(calc: Calculation, body: Any, limits: Limits, options_only: bool = Fals
         raise invalid(error_messages(err, tuple(schema.fields), calc.symbols)) from None
 
 
-def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
+def build(calc: Calculation, data: Mapping[str, Any], limits: Limits, batch_correlations: bool = False) -> Parsed:
     """Loaded request data to canonical-unit :class:`Measured` inputs, options and output units.
 
     The quantities may hold N systems at once (a batch group sharing one form): the rules are
-    the same for one system or many."""
+    the same for one system or many.  ``batch_correlations``: the correlations are a batch's, for all its
+    systems (checked once), so that one naming an input these systems lack is no error of theirs: it has
+    no effect there, and the engine says so (``correlation_without_effect``)."""
     errors = check_groups(calc, set(data))
     time_format = data.get("time_format", "jd")
     quantities: dict[str, Measured] = {}
@@ -181,7 +184,7 @@ def build(calc: Calculation, data: Mapping[str, Any], limits: Limits) -> Parsed:
             continue
         quantities[spec.name] = m
 
-    options = options_of(calc, data, quantities, limits, errors)
+    options = options_of(calc, data, quantities, limits, errors, batch_correlations)
     units = output_units(calc, data.get("units", {}), errors)
     if errors:
         raise invalid(errors)
@@ -246,7 +249,7 @@ def within_draw_limit(samples: int, limits: Limits) -> None:
 
 
 def options_of(calc: Calculation, data: Mapping[str, Any], quantities: Mapping[str, Measured], limits: Limits,
-               errors: dict[str, list[str]]) -> Options:
+               errors: dict[str, list[str]], batch_correlations: bool = False) -> Options:
     unc = data.get("uncertainty", {})
     method = unc.get("method", "linear")        # the schema implies monte_carlo from samples or a seed
     samples = unc.get("samples", limits.default_samples)
@@ -258,7 +261,7 @@ def options_of(calc: Calculation, data: Mapping[str, Any], quantities: Mapping[s
     for k, c in enumerate(data.get("correlations", [])):
         a, b = c["between"]
         for name in (a, b):
-            if name not in quantities:
+            if name not in quantities and not batch_correlations:
                 errors.setdefault(f"correlations.{k}.between", []).append(
                     f"{name!r} is not an input given in this request")
         key = tuple(sorted((a, b)))

@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 from marshmallow import RAISE, Schema, ValidationError, fields, post_load, validate, validates_schema
 
-from ..columns import meant
+from ..columns import as_doubles, meant, plain_number
 from ..config import Limits
 from ..registry import Calculation, Input
 from ..units import UnitError, factor
@@ -45,7 +45,7 @@ def number(x: Any, what: str = "value") -> float:
     if type(x) is float and x - x == 0:          # the common case: a finite float
         return x
     if isinstance(x, np.generic):               # a library caller's numpy scalar (np.float32, np.int64)
-        x = x.item()
+        x = plain_number(x)
     if x is None:
         raise ValidationError(f"{what} is missing (null or an empty cell): give a number")
     if isinstance(x, bool) or not isinstance(x, (int, float)):
@@ -71,7 +71,7 @@ def listed(x: Any, what: str) -> Any:
                               'and its unit ("unit": q.unit.to_string())')
     if x.ndim != 1 or x.dtype.kind not in "iuf":
         raise ValidationError(f"{what} must be a list of numbers (a 1-D numeric array)")
-    return x.tolist()
+    return as_doubles(x).tolist() if x.dtype.kind == "f" else x.tolist()
 
 
 def number_array(x: Any, what: str, limit: int) -> np.ndarray:
@@ -311,7 +311,7 @@ class MeasuredField(_CheckedField):
         if type(value) is dict:                 # the usual form first
             return self._from_object(value)
         if isinstance(value, np.generic):       # a library caller's numpy scalar: the number it holds
-            value = value.item()
+            value = plain_number(value)
         one = np.zeros(1)
         if isinstance(value, (int, float)) and not isinstance(value, bool):
             x = number(value)
