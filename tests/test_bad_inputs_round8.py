@@ -500,3 +500,15 @@ def test_an_input_in_another_unit_is_read_as_the_same_quantity_in_json_and_in_a_
     for o, e in scalar.items():
         assert doc["columns"][o]["value"][0] == pytest.approx(e["value"], rel=1e-9), o
         assert doc["columns"][o]["sigma"][0] == pytest.approx(e["sigma"], rel=1e-6, abs=1e-300), o
+
+
+def test_a_member_given_as_null_is_refused_in_a_rows_batch_as_in_its_single_request(client):
+    # a system of a rows batch is answered as its single request is: the optional primary_mass given as
+    # null was refused alone (422) but taken as not given in a batch (a mass function without m2_min)
+    system = {"period": 41.6, "k1": 23.4, "eccentricity": 0.3, "primary_mass": None}
+    single = client.post("/v1/spectroscopic/sb1", json=system)
+    assert single.status_code == 422
+    assert "may not be null" in single.get_json()["errors"]["primary_mass"][0]
+    rows = client.post("/v1/batch/sb1", json={"systems": [system, {**system, "primary_mass": 1.2}]}).get_json()
+    assert rows["results"][0]["error"]["errors"] == single.get_json()["errors"]
+    assert "m2_min" in rows["results"][1]["results"]

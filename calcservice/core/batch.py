@@ -423,7 +423,8 @@ def compute_rows(calc: Calculation, body: dict, limits: Limits) -> dict:
 
     # gather the systems' JSON into columns, one pass per input and member: the only per-system
     # Python work before the arrays.  A system that is not an object of inputs is parsed on its own.
-    plain = [type(row) is dict and row.keys() <= fast_keys for row in systems]
+    # a member given as null is parsed on its own too, to be refused as its single request is (absent is not given)
+    plain = [type(row) is dict and row.keys() <= fast_keys and None not in row.values() for row in systems]
     slow = ~np.array(plain, dtype=bool)
     rows = systems if not slow.any() else [row if ok else {} for row, ok in zip(systems, plain)]
     chosen = {name: [row.get(name) for row in rows] for name in choice}

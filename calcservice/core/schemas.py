@@ -625,7 +625,8 @@ def error_messages(err: ValidationError, known=(), symbols=None) -> dict[str, li
             out.setdefault("_schema" if prefix is None else prefix, []).append(str(msg))
 
     walk(None, err.messages)
-    plain = {"Unknown field.": "unknown field", "Missing data for required field.": "is required"}
+    plain = {"Unknown field.": "unknown field", "Missing data for required field.": "is required",
+             "Field may not be null.": "may not be null: give a value (an optional field may be left out)"}
 
     def unknown(key: str) -> str:
         if "." not in key:
