@@ -672,7 +672,8 @@ class Client:
         or a list of rows (one mapping per system).  ``NAME_sigma`` (``NAME_sigma_minus`` and
         ``NAME_sigma_plus``) columns hold uncertainties, in NAME's unit unless they carry their own.
         A table that gives no unit for a dimensional input is refused before anything is sent.
-        Missing values (NaN, masked, None) are sent as missing: that system's error comes back in place.
+        Missing values (NaN, masked, None) are not given: a system missing a required input gets its error
+        in place, one missing an optional input is answered without it.
 
         ``units`` gives the unit of a table's columns ({column: unit}); ``output_units`` asks
         for outputs in other units (the contract's ``units`` option).  ``keep`` names columns of
@@ -795,7 +796,8 @@ class Client:
 
     def _batch_rows(self, path: str, decl: Mapping, rows: list, opts: dict, show) -> BatchResult:
         kinds = {i["name"]: i for i in decl["inputs"]}
-        encoded = [{k: _encode(v, kinds.get(k)) for k, v in row.items()} for row in rows]
+        # a missing value (None, NaN, masked) is not given, as a table's missing cell is: the service refuses null
+        encoded = [{k: e for k, v in row.items() if (e := _encode(v, kinds.get(k))) is not None} for row in rows]
         bar = self._bar(len(rows), show, opts)
         try:
             parts = self._sliced(len(rows), lambda a, b: dumps({"systems": encoded[a:b], **opts}), opts,

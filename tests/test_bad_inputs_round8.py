@@ -512,3 +512,16 @@ def test_a_member_given_as_null_is_refused_in_a_rows_batch_as_in_its_single_requ
     rows = client.post("/v1/batch/sb1", json={"systems": [system, {**system, "primary_mass": 1.2}]}).get_json()
     assert rows["results"][0]["error"]["errors"] == single.get_json()["errors"]
     assert "m2_min" in rows["results"][1]["results"]
+
+
+def test_the_client_gives_a_list_of_rows_missing_values_as_a_table_missing_cells(local):
+    # None or NaN in a row is "not given", as a table's missing cell: the service refuses a null member, so
+    # the client leaves it out (an optional input is answered without it, a required one is that row's error)
+    sb1 = {"period": 41.6, "k1": 23.4, "eccentricity": 0.3}
+    rows = local.batch("sb1", [{**sb1, "primary_mass": None}, {**sb1, "primary_mass": float("nan")},
+                               {**sb1, "period": None}, {**sb1, "primary_mass": 1.2}])
+    table = local.batch("sb1", {"period": [41.6, 41.6, float("nan"), 41.6], "k1": 23.4, "eccentricity": 0.3,
+                                "primary_mass": [float("nan"), float("nan"), float("nan"), 1.2]})
+    assert [e["index"] for e in rows.errors] == [e["index"] for e in table.errors] == [2]
+    assert rows.errors[0]["errors"] == {"period": ["is required"]}
+    assert rows.quantity("mass_function")[:2].value.tolist() == table.quantity("mass_function")[:2].value.tolist()
