@@ -15,11 +15,6 @@ SB1 = "/v1/spectroscopic/sb1"
 GOOD = {"period": 41.6, "k1": 23.4, "eccentricity": 0.31}
 
 
-@pytest.fixture(scope="module")
-def client():
-    return create_app().test_client()
-
-
 # --- 1. a split normal's width near the largest double -------------------------------------------------
 
 @pytest.mark.parametrize("k1", [
