@@ -237,6 +237,20 @@ def test_isotropic_re_emission_sigma_and_warnings():
     assert "near_stationary_mass_ratio" not in codes(reversed_)
 
 
+@pytest.mark.parametrize("mode", ["jeans", "conservative", "isotropic-re-emission"])
+def test_a_period_changing_by_more_than_a_percent_per_orbit_is_warned_not_secular(mode):
+    # the modes' relations are orbit-averaged: they hold for a change slow against the orbit (common practice:
+    # a measured secular |dP/dt| is 1e-10 to 1e-5); |dP/dt| = 0.01 s/s is 0.01 of a Julian year per year,
+    # 315,576 s/yr (IAU: the Julian year of 365.25 d of 86,400 s, astropy's u.yr)
+    per_year = (0.01 * u.yr / u.yr).to(u.s / u.yr).value
+    assert per_year == pytest.approx(315576.0, rel=1e-15)
+    for pdot, warned in ((1.001 * per_year, True), (0.999 * per_year, False), (-1.001 * per_year, True),
+                         (0.21, False), (1e300, True)):
+        r = run("mass-loss-period-change", {"period": 6.3, "period_derivative": pdot, "m1": 27.0, "m2": 11.0},
+                {"mode": mode})
+        assert ("not_secular" in codes(r)) is warned, (pdot, codes(r))
+
+
 def test_period_change_rule_of_thumb_and_warnings():
     # common practice: a 40 solMass WR+O binary losing 2e-5 solMass/yr has Pdot/P = 2 Mdot / M = 1e-6 per yr,
     # about 0.9 s/yr at P = 10 d

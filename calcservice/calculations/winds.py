@@ -371,6 +371,11 @@ def _period_change_check(inputs, outputs):
     out = []
     mode = inputs.get("mode")
     pdot = inputs["period_derivative"]
+    fast = phys.period_change_per_orbit(pdot) > phys.SECULAR_CHANGE_PER_ORBIT
+    if np.any(fast):
+        out.append(Warning("not_secular", "the period changes by more than 1 % of itself per orbit (|dP/dt| > 0.01): "
+                           "every mode's relation is orbit-averaged and holds for a change slow against the orbit; "
+                           "a measured secular change is a few orders of magnitude slower", fast))
     if mode == "jeans" and np.any(pdot < 0):
         out.append(Warning("period_decreasing", "the period decreases, which an isotropic wind cannot do (it widens "
                            "the orbit); another process dominates the period change (mass transfer, a third body, "
