@@ -52,3 +52,58 @@ def test_crw96_opening_angle_of_a_very_weak_wind_keeps_its_digits(client, eta):
     results = _post(client, "/v1/winds/collision", body)["results"]
     assert results["momentum_ratio"]["value"] == eta
     assert relative_error(results["opening_half_angle_crw96"]["value"], _crw96_half_angle_degrees(eta)) < 1e-15
+
+
+# --------------------------------------------------------------------------- mid-eclipse of a nearly edge-on orbit
+def _conjunction_offset_days(period, e, omega, inclination, star):
+    """The mid-eclipse's offset from its conjunction (days) by hand at 40 digits: the minimum in time of the projected
+    separation rho^2 = r^2 (1 - sin^2 i sin^2(nu + omega)), r = a (1 - e^2)/(1 + e cos nu) (Heintz 1978, Double Stars,
+    ch. 4; Hilditch 2001, ch. 2), is where d rho^2 / d nu = 0 (nu increases with time), found by mpmath's root finder
+    from the conjunction nu_c = 90 deg - omega (star 1 eclipsed) or 270 deg - omega; the offset is
+    (M(nu) - M(nu_c)) P / 2 pi with M = E - e sin E, tan(E/2) = ((1 - e)/(1 + e))^{1/2} tan(nu/2) (Murray &
+    Dermott 1999, ch. 2), the 40 digits absorbing the cancellation of the two mean anomalies.  Returns the offset and
+    rho / a there."""
+    w, s2 = mp.radians(omega), mp.sin(mp.radians(inclination)) ** 2
+    nu_c = (mp.pi / 2 if star == 1 else 3 * mp.pi / 2) - w
+
+    def slope(nu):     # d rho^2 / d nu / a^2, by hand
+        r = (1 - e ** 2) / (1 + e * mp.cos(nu))
+        dr = r * e * mp.sin(nu) / (1 + e * mp.cos(nu))
+        return 2 * r * dr * (1 - s2 * mp.sin(nu + w) ** 2) - r ** 2 * s2 * mp.sin(2 * (nu + w))
+
+    def mean(nu):
+        big_e = 2 * mp.atan(mp.sqrt((1 - e) / (1 + e)) * mp.tan(nu / 2))
+        return big_e - e * mp.sin(big_e)
+
+    nu = mp.findroot(slope, nu_c)
+    rho = (1 - e ** 2) / (1 + e * mp.cos(nu)) * mp.sqrt(1 - s2 * mp.sin(nu + w) ** 2)
+    return (mean(nu) - mean(nu_c)) * period / (2 * mp.pi), rho
+
+
+@pytest.mark.parametrize("inclination", [89.9, 89.999, 89.99999, 95.0])
+def test_the_offset_of_mid_eclipse_from_conjunction_near_an_edge_on_orbit(client, inclination):
+    # The offset is of order e cos^2 i of a cycle; the service took it as M(nu_min) - M(nu_c), two mean anomalies of
+    # ~1 rad, and found nu_min from 1 - sin^2 i sin^2 u, which near mid-eclipse of an edge-on orbit is cos^2 i left
+    # of 1: at i = 89.999 deg the offset was 1e-6 wrong and its linear sigma 1.65e-12 d where the derivatives give
+    # 2.35e-8 d (the stencil differenced rounding noise); at 89.99999 deg the offset was 3 % wrong; at 89.99 the
+    # sigma was 3e-4 wrong, at 89.9 3e-6.  The reference sigma is sqrt(sum (d offset / dx sigma_x)^2) over P, e,
+    # omega and i by mpmath's numerical derivatives of the reference offset.  The minimum separation over a there:
+    # to 2e-15.  Agreed after the fix: values to 1e-15, sigmas to 1e-9.
+    sigmas = {"period": 0.0004, "eccentricity": 0.01, "omega": 2.0, "inclination": 0.4}
+    values = {"period": 9.73, "eccentricity": 0.28, "omega": 61.0, "inclination": inclination}
+    body = {k: {"value": values[k], "sigma": sigmas[k]} for k in values}
+    body.update({"t_periastron": 2460811.42, "after": 2461000.5, "count": 1})
+    results = _post(client, "/v1/orbit/mid-eclipse", body)["results"]
+    with mp.workdps(40):
+        x = {k: mp.mpf(v) for k, v in values.items()}
+        for star in (1, 2):
+            def offset(**changed):
+                y = {**x, **changed}
+                return _conjunction_offset_days(y["period"], y["eccentricity"], y["omega"], y["inclination"], star)[0]
+
+            want, rho = _conjunction_offset_days(x["period"], x["eccentricity"], x["omega"], x["inclination"], star)
+            variance = sum((mp.diff(lambda t, k=k: offset(**{k: t}), x[k]) * sigmas[k]) ** 2 for k in x)
+            got = results[f"conjunction_offset{star}"]
+            assert relative_error(got["value"], want) < 1e-15, star
+            assert relative_error(got["sigma"], mp.sqrt(variance)) < 1e-9, star
+            assert relative_error(results[f"minimum_separation{star}_over_a"]["value"], rho) < 2e-15, star

@@ -591,62 +591,64 @@ _HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
 _MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
 
 
-def projected_separation(true_anomaly_rad, eccentricity, omega_deg, inclination_deg):
-    """Separation of the stars on the sky in units of a: rho/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega)).
-
-    From rho = r sqrt(cos^2 u + sin^2 u cos^2 i) with u = nu + omega (+ 180 deg for the relative orbit, which
-    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2), in that
-    form (not 1 - sin^2 i sin^2 u, which cancels at mid-eclipse of an edge-on orbit), with omega's and i's sines
-    and cosines in degrees (:mod:`.angles`).
-    """
-    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
-    return kepler.separation(true_anomaly_rad, eccentricity) * np.hypot(cos_u, sin_u * cos_degrees(inclination_deg))
-
-
-def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
-    """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``.
+def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_cosine, omega_rate=0.0):
+    """delta = nu_min - nu_c (rad): how far in true anomaly the minimum projected separation near the conjunction that
+    eclipses ``star`` lies from that conjunction, nu_c = 90 deg - omega (star 1 eclipsed) or 270 deg - omega.
 
     Minimising rho^2 = r^2 (1 - sin^2 i sin^2 u), u = nu + omega, in time sets its derivative to zero:
     g(nu) = 2 e sin nu (1 - sin^2 i sin^2 u) / (1 + e cos nu) - sin^2 i sin 2u (1 + kappa) = 0
     (with r'/r = e sin nu / (1 + e cos nu) from the ellipse; e.g. Hilditch 2001, ch. 2 on eclipse
     timing in eccentric orbits), kappa = (d omega/dt)/(d nu/dt) = omega_rate (1 - e^2)^{3/2} / (1 + e cos nu)^2
-    for apsidal motion, ``omega_rate`` = d omega / dM = omega_dot P / 360 deg (0 without).  Newton's
-    method on g from the conjunction (nu + omega = 90 deg or 270 deg), where it starts within a small
-    angle of the root whenever an eclipse is possible; the root is the conjunction itself when e = 0
-    or i = 90 deg.
+    for apsidal motion, ``omega_rate`` = d omega / dM = omega_dot P / 360 deg (0 without).  Written in delta,
+    u = 90 deg + delta or 270 deg + delta, so sin^2 u = cos^2 delta, sin 2u = -sin 2 delta, cos 2u = -cos 2 delta and
+    1 - sin^2 i sin^2 u = cos^2 i + sin^2 i sin^2 delta: no cancellation near an edge-on orbit's mid-eclipse, where
+    1 - sin^2 i sin^2 u with u from nu kept only 1e-16 / cos^2 i of itself (the offset from the conjunction, which
+    is of order cos^2 i, then lost 1e-6 of itself at i = 89.999 deg and its linear sigma all of it).  Newton's method
+    on g from delta = 0, where it starts within a small angle of the root whenever an eclipse is possible; the root
+    is delta = 0 when e = 0 or i = 90 deg.  ``inclination_cosine`` cos i, taken from degrees by the caller.
     """
-    s2 = np.sin(inclination_rad) ** 2
+    cos_i = np.asarray(inclination_cosine, dtype=float)
+    c2 = cos_i * cos_i
+    s2 = 1.0 - c2
     start = CONJUNCTION_ARGUMENT[star] - omega_rad
-    shape = np.broadcast(start, eccentricity, s2, omega_rate).shape
+    shape = np.broadcast(start, eccentricity, c2, omega_rate).shape
     flat = [np.broadcast_to(np.asarray(a, dtype=float), shape).ravel()
-            for a in (eccentricity, s2, omega_rad, omega_rate, start)]
-    nu = flat[4].copy()
+            for a in (eccentricity, c2, s2, omega_rate, start)]
+    delta = np.zeros(flat[0].size)
     # each system's iterate is left once a step moves it by no more than two roundings (at the root, where
     # further steps only turn between neighbouring doubles): the steps go on for the others only, and a
     # system's answer is the same alone or in a batch
-    live = np.arange(nu.size)
+    live = np.arange(delta.size)
     for _ in range(_MID_ECLIPSE_STEPS):
         if not live.size:
             break
-        e, s2, w, rate, first = (a[live] for a in flat)
-        old = nu[live]
-        sin_nu, cos_nu = np.sin(old), np.cos(old)
+        e, c2, s2, rate, first = (a[live] for a in flat)
+        old = delta[live]
+        nu = first + old
+        sin_nu, cos_nu = np.sin(nu), np.cos(nu)
         c = 1.0 + e * cos_nu
-        u = old + w
-        shape_factor = 1.0 - s2 * np.sin(u) ** 2
+        sin_d = np.sin(old)
+        sin_2d, cos_2d = np.sin(2.0 * old), np.cos(2.0 * old)
+        shape_factor = c2 + s2 * sin_d * sin_d
         h = 2.0 * e * sin_nu / c
         kappa = rate * (1.0 - e * e) ** 1.5 / c**2
-        g = h * shape_factor - s2 * np.sin(2.0 * u) * (1.0 + kappa)
-        dg = (2.0 * e * (cos_nu + e) / c**2 * shape_factor - h * s2 * np.sin(2.0 * u)
-              - 2.0 * s2 * np.cos(2.0 * u) * (1.0 + kappa) - s2 * np.sin(2.0 * u) * kappa * h)
+        g = h * shape_factor + s2 * sin_2d * (1.0 + kappa)
+        dg = (2.0 * e * (cos_nu + e) / c**2 * shape_factor + h * s2 * sin_2d
+              + 2.0 * s2 * cos_2d * (1.0 + kappa) + s2 * sin_2d * kappa * h)
         with np.errstate(invalid="ignore", divide="ignore"):
             step = np.where(dg > 0.0, g / dg, 0.0)
         # kept within the half-orbit where ``star`` is the farther one: beyond it the other star is in front
-        new = np.clip(old - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), first - _HALF_ORBIT,
-                      first + _HALF_ORBIT)
-        nu[live] = new
+        new = np.clip(old - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), -_HALF_ORBIT, _HALF_ORBIT)
+        delta[live] = new
         live = live[np.abs(new - old) > 2.0 * np.spacing(np.abs(old))]
-    return nu.reshape(shape)
+    return delta.reshape(shape)
+
+
+def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
+    """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``:
+    the conjunction's, 90 deg - omega or 270 deg - omega, plus :func:`mid_eclipse_offset`."""
+    offset = mid_eclipse_offset(star, eccentricity, omega_rad, np.cos(inclination_rad), omega_rate)
+    return CONJUNCTION_ARGUMENT[star] - omega_rad + offset
 
 
 def apsidal_rate_per_mean_anomaly(omega_dot, period):
@@ -705,18 +707,22 @@ def conjunction_true_anomaly(star, eccentricity, omega_rad, mid_mean_anomaly, om
 
 def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate=0.0):
     """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, its offset from the conjunction (cycles),
-    and its true anomaly (rad).
+    its true anomaly (rad) and its distance from the conjunction at omega, delta = nu - (90 deg or 270 deg - omega).
 
     The offset is (M(nu_min) - M(nu_c)) / 2 pi with nu_c the conjunction's true anomaly
-    (:func:`conjunction_true_anomaly`: under apsidal motion omega at the conjunction is not omega at the mid-eclipse).
+    (:func:`conjunction_true_anomaly`: under apsidal motion omega at the conjunction is not omega at the mid-eclipse),
+    taken from nu_min - nu_c by :func:`.kepler.mean_anomaly_difference`, not as the difference of two mean anomalies
+    of ~1 rad (which kept 1e-16 rad of an offset of order cos^2 i near an edge-on orbit).
     """
     w = np.radians(omega_deg)
-    nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg), omega_rate)
+    start = CONJUNCTION_ARGUMENT[star] - w
+    delta = mid_eclipse_offset(star, eccentricity, w, cos_degrees(inclination_deg), omega_rate)
+    nu = start + delta
     mid_mean = kepler.mean_from_true(nu, eccentricity)
-    conjunction = kepler.mean_from_true(conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate),
-                                        eccentricity)
+    shift = conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate) - start
+    offset = kepler.mean_anomaly_difference(start + shift, delta - shift, eccentricity)
     mid = mid_mean / TWO_PI
-    return np.mod(mid, 1.0), (mid_mean - conjunction) / TWO_PI, nu
+    return np.mod(mid, 1.0), offset / TWO_PI, nu, delta
 
 
 def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,
@@ -736,9 +742,12 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
     if a is not None:
         out["semimajor_axis"] = a
     for star in (1, 2):
-        phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination,
-                                                                apsidal_rate_per_mean_anomaly(omega_dot, period))
-        rho = projected_separation(nu, eccentricity, omega, inclination)
+        phase, cycles_after_conjunction, nu, delta = mid_eclipse_phase(star, eccentricity, omega, inclination,
+                                                                       apsidal_rate_per_mean_anomaly(omega_dot, period))
+        # rho / a = (r/a) (cos^2 u + sin^2 u cos^2 i)^{1/2}, u = nu + omega (+ 180 deg for the relative orbit, which
+        # changes no square; Heintz 1978, ch. 4), with u = 90 or 270 deg + delta: cos^2 u = sin^2 delta, exact at
+        # mid-eclipse of an edge-on orbit (from nu and omega, cos u kept only 1e-16 absolute)
+        rho = kepler.separation(nu, eccentricity) * np.hypot(np.sin(delta), np.cos(delta) * cos_degrees(inclination))
         out[f"mid_eclipse_phase{star}"] = phase
         out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
         out[f"minimum_separation{star}_over_a"] = rho
