@@ -55,14 +55,32 @@ def test_crw96_opening_angle_of_a_very_weak_wind_keeps_its_digits(client, eta):
 
 
 # --------------------------------------------------------------------------- mid-eclipse of a nearly edge-on orbit
-def _conjunction_offset_days(period, e, omega, inclination, star):
+def _minimum_near(slope, nu_c, start=None):
+    """The minimum of the projected separation nearest the conjunction nu_c: where d rho^2 / d nu (``slope``) turns
+    from negative to positive, located on a grid of 801 points over nu_c +- 85 deg (in doubles), bisected there
+    (120 halvings) and polished by mpmath's root finder from the bisected point; from ``start`` (the root at
+    nominal elements, for the derivatives) by the root finder alone."""
+    if start is not None:
+        return mp.findroot(slope, start)
+    grid = [nu_c + mp.radians(85) * (k / 400.0 - 1) for k in range(801)]
+    signs = [float(slope(x)) for x in grid]
+    turns = [k for k in range(800) if signs[k] < 0 <= signs[k + 1]]
+    k = min(turns, key=lambda j: abs(grid[j] - nu_c))
+    lo, hi = grid[k], grid[k + 1]
+    for _ in range(120):
+        mid = (lo + hi) / 2
+        lo, hi = (mid, hi) if slope(mid) < 0 else (lo, mid)
+    return mp.findroot(slope, (lo + hi) / 2)
+
+
+def _conjunction_offset_days(period, e, omega, inclination, star, start=None):
     """The mid-eclipse's offset from its conjunction (days) by hand at 40 digits: the minimum in time of the projected
     separation rho^2 = r^2 (1 - sin^2 i sin^2(nu + omega)), r = a (1 - e^2)/(1 + e cos nu) (Heintz 1978, Double Stars,
-    ch. 4; Hilditch 2001, ch. 2), is where d rho^2 / d nu = 0 (nu increases with time), found by mpmath's root finder
-    from the conjunction nu_c = 90 deg - omega (star 1 eclipsed) or 270 deg - omega; the offset is
+    ch. 4; Hilditch 2001, ch. 2), is where d rho^2 / d nu = 0 (nu increases with time), the root nearest the conjunction
+    nu_c = 90 deg - omega (star 1 eclipsed) or 270 deg - omega (:func:`_minimum_near`); the offset is
     (M(nu) - M(nu_c)) P / 2 pi with M = E - e sin E, tan(E/2) = ((1 - e)/(1 + e))^{1/2} tan(nu/2) (Murray &
     Dermott 1999, ch. 2), the 40 digits absorbing the cancellation of the two mean anomalies.  Returns the offset and
-    rho / a there."""
+    rho / a there, and the true anomaly of the minimum."""
     w, s2 = mp.radians(omega), mp.sin(mp.radians(inclination)) ** 2
     nu_c = (mp.pi / 2 if star == 1 else 3 * mp.pi / 2) - w
 
@@ -75,9 +93,9 @@ def _conjunction_offset_days(period, e, omega, inclination, star):
         big_e = 2 * mp.atan(mp.sqrt((1 - e) / (1 + e)) * mp.tan(nu / 2))
         return big_e - e * mp.sin(big_e)
 
-    nu = mp.findroot(slope, nu_c)
+    nu = _minimum_near(slope, nu_c, start)
     rho = (1 - e ** 2) / (1 + e * mp.cos(nu)) * mp.sqrt(1 - s2 * mp.sin(nu + w) ** 2)
-    return (mean(nu) - mean(nu_c)) * period / (2 * mp.pi), rho
+    return (mean(nu) - mean(nu_c)) * period / (2 * mp.pi), rho, nu
 
 
 @pytest.mark.parametrize("inclination", [89.9, 89.999, 89.99999, 95.0])
@@ -97,13 +115,63 @@ def test_the_offset_of_mid_eclipse_from_conjunction_near_an_edge_on_orbit(client
     with mp.workdps(40):
         x = {k: mp.mpf(v) for k, v in values.items()}
         for star in (1, 2):
-            def offset(**changed):
-                y = {**x, **changed}
-                return _conjunction_offset_days(y["period"], y["eccentricity"], y["omega"], y["inclination"], star)[0]
+            want, rho, nu = _conjunction_offset_days(x["period"], x["eccentricity"], x["omega"], x["inclination"], star)
 
-            want, rho = _conjunction_offset_days(x["period"], x["eccentricity"], x["omega"], x["inclination"], star)
+            def offset(nu=nu, **changed):
+                y = {**x, **changed}
+                return _conjunction_offset_days(y["period"], y["eccentricity"], y["omega"], y["inclination"], star,
+                                                nu)[0]
+
             variance = sum((mp.diff(lambda t, k=k: offset(**{k: t}), x[k]) * sigmas[k]) ** 2 for k in x)
             got = results[f"conjunction_offset{star}"]
             assert relative_error(got["value"], want) < 1e-15, star
             assert relative_error(got["sigma"], mp.sqrt(variance)) < 1e-9, star
             assert relative_error(results[f"minimum_separation{star}_over_a"]["value"], rho) < 2e-15, star
+
+
+def _mid_eclipse_phase(e, omega, inclination, star, start=None):
+    """The phase after periastron, M(nu) / 2 pi mod 1, of the minimum projected separation that :func:`_conjunction_
+    offset_days` finds (the same sources), and its true anomaly."""
+    w, s2 = mp.radians(omega), mp.sin(mp.radians(inclination)) ** 2
+    nu_c = (mp.pi / 2 if star == 1 else 3 * mp.pi / 2) - w
+
+    def slope(nu):
+        r = (1 - e ** 2) / (1 + e * mp.cos(nu))
+        dr = r * e * mp.sin(nu) / (1 + e * mp.cos(nu))
+        return 2 * r * dr * (1 - s2 * mp.sin(nu + w) ** 2) - r ** 2 * s2 * mp.sin(2 * (nu + w))
+
+    nu = _minimum_near(slope, nu_c, start)
+    big_e = 2 * mp.atan2(mp.sqrt(1 - e) * mp.sin(nu / 2), mp.sqrt(1 + e) * mp.cos(nu / 2))
+    return ((big_e - e * mp.sin(big_e)) / (2 * mp.pi)) % 1, nu
+
+
+@pytest.mark.parametrize("eccentricity", [0.9999995, 1 - 1e-9])
+def test_mid_eclipse_date_sigmas_of_an_orbit_within_a_millionth_of_e_one(client, eccentricity):
+    # The date of mid-eclipse is T0 + P (n + phi(e, omega, i)); its linear sigma is sqrt(sigma_T0^2 + (n + phi)^2
+    # sigma_P^2 + P^2 sum (d phi / dx sigma_x)^2) over x = e, omega, i (independent inputs), with d phi / dx here by
+    # mpmath's numerical derivatives of the reference phase.  The service differenced the phase in e over a fixed
+    # step of 1e-6, which for e > 1 - 1e-6 left the orbits (e + 1e-6 >= 1): every mid-eclipse date had a null sigma.
+    # Agreed after the fix: the dates to 1e-15 relative, their sigmas to 1e-7.
+    sigmas = {"period": 0.0004, "t_periastron": 0.05, "eccentricity": 1e-10, "omega": 2.0, "inclination": 0.4}
+    values = {"period": 9.73, "t_periastron": 2460811.42, "eccentricity": eccentricity, "omega": 61.0,
+              "inclination": 84.6}
+    body = {k: {"value": values[k], "sigma": sigmas[k]} for k in values}
+    body.update({"after": 2461000.5, "count": 1})
+    events = _post(client, "/v1/orbit/mid-eclipse", body)["results"]["events"]
+    with mp.workdps(40):
+        x = {k: mp.mpf(v) for k, v in values.items()}
+        for star in (1, 2):
+            phi, nu = _mid_eclipse_phase(x["eccentricity"], x["omega"], x["inclination"], star)
+
+            def phase(nu=nu, **changed):
+                y = {**x, **changed}
+                return _mid_eclipse_phase(y["eccentricity"], y["omega"], y["inclination"], star, nu)[0]
+
+            cycles = mp.ceil((mp.mpf(2461000.5) - x["t_periastron"]) / x["period"] - phi) + phi
+            variance = (sigmas["t_periastron"] ** 2 + (cycles * sigmas["period"]) ** 2
+                        + sum((x["period"] * mp.diff(lambda t, k=k: phase(**{k: t}), x[k]) * sigmas[k]) ** 2
+                              for k in ("eccentricity", "omega", "inclination")))
+            got = events[f"eclipse_of_star{star}"][0]
+            assert relative_error(got["value"], x["t_periastron"] + x["period"] * cycles) < 1e-15, star
+            assert got["sigma"] is not None, star
+            assert relative_error(got["sigma"], mp.sqrt(variance)) < 1e-7, star

@@ -759,8 +759,11 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
 
 
 #: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
-#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
+#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle; the step in e is at most
+#: MID_ECLIPSE_ECCENTRICITY_SHARE of 1 - e, so that e + step stays an orbit and the phase, which goes as
+#: (1 - e)^{3/2} there, is differenced over a step that its curvature does not bend (1e-7 relative)
 MID_ECLIPSE_PHASE_STEPS = {"eccentricity": 1e-6, "omega": 1e-4, "inclination": 1e-4}
+MID_ECLIPSE_ECCENTRICITY_SHARE = 1e-3
 #: the step in omega_rate = d omega / dM (dimensionless): the phase is nearly linear in it
 MID_ECLIPSE_RATE_STEP = 1e-6
 
@@ -793,6 +796,7 @@ def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclinati
     rate = apsidal_rate(wdot, p, pdot, cycles)
     dphi = {}
     steps = dict(MID_ECLIPSE_PHASE_STEPS)
+    steps["eccentricity"] = np.minimum(steps["eccentricity"], MID_ECLIPSE_ECCENTRICITY_SHARE * (1.0 - e))
     if wdot is not None:
         steps["omega_rate"] = MID_ECLIPSE_RATE_STEP
     for name, h in steps.items():
