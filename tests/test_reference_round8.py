@@ -175,3 +175,31 @@ def test_mid_eclipse_date_sigmas_of_an_orbit_within_a_millionth_of_e_one(client,
             assert relative_error(got["value"], x["t_periastron"] + x["period"] * cycles) < 1e-15, star
             assert got["sigma"] is not None, star
             assert relative_error(got["sigma"], mp.sqrt(variance)) < 1e-7, star
+
+
+# --------------------------------------------------------------------------- |v1 - v2| at the extrema, e -> 1
+@pytest.mark.parametrize("eccentricity, omega", [(0.9999999, 0.01), (1 - 1e-9, 0.001), (0.9999999, 180.0),
+                                                 (0.99999, 359.999), (0.3, 47.0)])
+def test_velocity_separation_at_the_extrema_of_a_nearly_parabolic_orbit(client, eccentricity, omega):
+    # Without apsidal motion the extrema of v1 are at nu + omega = 0 and 180 deg, where |v1 - v2| = (K1 + K2)
+    # (1 +- e cos omega) (Hilditch 2001, eq. 2.45), and its linear sigma is that of this formula in K1, K2, e and omega
+    # (independent inputs; per radian for omega).  Near the minimum of v1 of an orbit with e -> 1 and omega -> 0 (or the
+    # maximum with omega -> 180 deg) the service's cos(nu + omega) + e cos omega kept 1e-16 of its -1: |v1 - v2| was
+    # 7e-10 wrong at e = 0.9999999, omega = 0.01 deg, 1e-8 at e = 1 - 1e-9, omega = 0.001 deg, and its sigma 2.5e-10.
+    # Agreed after the fix: to 1e-15 and 1e-11.
+    sig = {"k1": 0.1, "k2": 0.1, "eccentricity": 1e-10, "omega": 1e-4}
+    body = {"period": {"value": 100.0, "sigma": 0.01},
+            "eccentricity": {"value": eccentricity, "sigma": sig["eccentricity"]},
+            "omega": {"value": omega, "sigma": sig["omega"]}, "t_periastron": 2460000.5,
+            "k1": {"value": 30.0, "sigma": sig["k1"]}, "k2": {"value": 40.0, "sigma": sig["k2"]},
+            "times": [2460001.0], "count": 1}
+    events = _post(client, "/v1/orbit/ephemeris", body)["results"]["events"]["max_velocity_separation"]
+    assert {x["kind"] for x in events} == {"rv1_maximum", "rv1_minimum"}
+    e, w, k = mp.mpf(eccentricity), mp.radians(omega), mp.mpf(70)
+    for x in events:
+        sign = 1 if x["kind"] == "rv1_maximum" else -1
+        level = 1 + sign * e * mp.cos(w)
+        sigma = mp.sqrt(2 * (level * sig["k1"]) ** 2 + (k * mp.cos(w) * sig["eccentricity"]) ** 2
+                        + (k * e * mp.sin(w) * mp.radians(sig["omega"])) ** 2)
+        assert relative_error(x["velocity_separation"], k * level) < 1e-15, x["kind"]
+        assert relative_error(x["velocity_separation_sigma"], sigma) < 1e-11, x["kind"]

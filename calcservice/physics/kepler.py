@@ -227,8 +227,8 @@ def mean_anomaly_difference(true_anomaly, step, eccentricity):
     """M(nu + d) - M(nu) (rad) for a small step d in true anomaly, without the cancellation of two mean anomalies.
 
     With E = 2 atan(((1 - e)/(1 + e))^{1/2} tan(nu/2)) (Murray & Dermott 1999, eq. 2.46), the difference of two
-    arctangents gives tan(dE/2) = (1 - e^2)^{1/2} sin(d/2) / ((1 + e) cos(nu/2) cos(nu'/2) + (1 - e) sin(nu/2) sin(nu'/2)),
-    nu' = nu + d, and Kepler's equation dM = dE - e (sin E' - sin E) = dE - 2 e cos(E + dE/2) sin(dE/2): both
+    arctangents gives, with nu' = nu + d,
+    tan(dE/2) = (1 - e^2)^{1/2} sin(d/2) / ((1 + e) cos(nu/2) cos(nu'/2) + (1 - e) sin(nu/2) sin(nu'/2)), and Kepler's equation dM = dE - e (sin E' - sin E) = dE - 2 e cos(E + dE/2) sin(dE/2): both
     proportional to d, so the difference keeps the relative precision of d (M(nu') - M(nu) loses 1e-16 rad whatever
     d is).  For |dE| < pi.
     """

@@ -447,11 +447,29 @@ def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccen
     return np.sqrt(np.maximum(var, 0.0))
 
 
+def velocity_level(true_anomaly_rad, eccentricity, omega_deg):
+    """cos(nu + omega) + e cos omega, the shape of the radial-velocity curve (Hilditch 2001, eq. 2.45), u = nu + omega.
+
+    Written 2 cos^2(u/2) - [(1 - e) + 2 e sin^2(omega/2)] where cos u < 0 and [(1 - e) + 2 e cos^2(omega/2)]
+    - 2 sin^2(u/2) elsewhere (omega/2 in degrees), so that at an extremum of v1 of an orbit with e -> 1, where the
+    level is 1 -+ e cos omega (near its minimum with omega -> 0, near its maximum with omega -> 180 deg), the bracket
+    keeps its digits and the other term is a square of a small number: cos u + e cos omega kept only 1e-16 of its
+    +-1 there (1e-9 of the level at e = 1 - 1e-9, omega = 0.001 deg)."""
+    e = np.asarray(eccentricity, dtype=float)
+    w_half = 0.5 * np.asarray(omega_deg, dtype=float)
+    u_half = 0.5 * (np.asarray(true_anomaly_rad, dtype=float) + np.radians(omega_deg))
+    cos_u_half, sin_u_half = np.cos(u_half), np.sin(u_half)
+    sin_w_half, cos_w_half = sin_cos_degrees(w_half)
+    below = 2.0 * cos_u_half * cos_u_half - ((1.0 - e) + 2.0 * e * sin_w_half * sin_w_half)
+    above = ((1.0 - e) + 2.0 * e * cos_w_half * cos_w_half) - 2.0 * sin_u_half * sin_u_half
+    return np.where(np.abs(cos_u_half) < np.abs(sin_u_half), below, above)
+
+
 def velocity_separation(eccentricity, omega_deg, k1, k2, true_anomaly_rad):
-    """|v1 - v2| (km/s) at a true anomaly: (K1 + K2) |cos(nu + omega) + e cos omega| (Hilditch 2001, eq. 2.45); at a
-    radial-velocity extremum without apsidal motion (K1 + K2)(1 + e cos omega) or (K1 + K2)(1 - e cos omega)."""
-    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
-    return (k1 + k2) * np.abs(cos_u + eccentricity * cos_degrees(omega_deg))
+    """|v1 - v2| (km/s) at a true anomaly: (K1 + K2) |cos(nu + omega) + e cos omega| (Hilditch 2001, eq. 2.45,
+    :func:`velocity_level`); at a radial-velocity extremum without apsidal motion (K1 + K2)(1 + e cos omega) or
+    (K1 + K2)(1 - e cos omega)."""
+    return (k1 + k2) * np.abs(velocity_level(true_anomaly_rad, eccentricity, omega_deg))
 
 
 def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_periastron, omega_dot=None,
@@ -477,7 +495,7 @@ def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_peria
     time = event["time"] - event.get("light_time", 0.0)            # the extremum itself, not when it is seen
     w = np.radians(event["omega"])
     u = nu + w
-    level = np.cos(u) + e * np.cos(w)
+    level = velocity_level(nu, e, event["omega"])
     side = np.sign(level)
     d_nu, d_m_de = mean_anomaly_derivatives(nu, e)
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
