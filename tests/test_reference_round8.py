@@ -129,6 +129,20 @@ def test_the_offset_of_mid_eclipse_from_conjunction_near_an_edge_on_orbit(client
             assert relative_error(results[f"minimum_separation{star}_over_a"]["value"], rho) < 2e-15, star
 
 
+
+@pytest.mark.parametrize("inclination", [1.0, 179.0, 170.0])
+def test_the_offset_of_mid_eclipse_from_conjunction_of_a_nearly_face_on_orbit(client, inclination):
+    # Far from edge-on the offset is of order e / sin^2 i of a cycle and needs sin^2 i with its own digits: taken as
+    # 1 - cos^2 i it lost 1e-16 / sin^2 i of itself (2.3e-13 of the offset at i = 1 and 179 deg, 2.7e-15 at 170 deg).
+    # The reference as above (:func:`_conjunction_offset_days`).  Agreed to 1e-15.
+    body = {"period": 9.73, "eccentricity": 1e-6, "omega": 61.0, "inclination": inclination,
+            "t_periastron": 2460811.42, "after": 2461000.5, "count": 1}
+    results = _post(client, "/v1/orbit/mid-eclipse", body)["results"]
+    with mp.workdps(40):
+        for star in (1, 2):
+            want = _conjunction_offset_days(mp.mpf(9.73), mp.mpf(1e-6), mp.mpf(61), mp.mpf(inclination), star)[0]
+            assert relative_error(results[f"conjunction_offset{star}"]["value"], want) < 1e-15, star
+
 def _mid_eclipse_phase(e, omega, inclination, star, start=None):
     """The phase after periastron, M(nu) / 2 pi mod 1, of the minimum projected separation that :func:`_conjunction_
     offset_days` finds (the same sources), and its true anomaly."""

@@ -609,7 +609,7 @@ _HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
 _MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
 
 
-def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_cosine, omega_rate=0.0):
+def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_deg, omega_rate=0.0):
     """delta = nu_min - nu_c (rad): how far in true anomaly the minimum projected separation near the conjunction that
     eclipses ``star`` lies from that conjunction, nu_c = 90 deg - omega (star 1 eclipsed) or 270 deg - omega.
 
@@ -623,11 +623,12 @@ def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_cosine, omega_
     1 - sin^2 i sin^2 u with u from nu kept only 1e-16 / cos^2 i of itself (the offset from the conjunction, which
     is of order cos^2 i, then lost 1e-6 of itself at i = 89.999 deg and its linear sigma all of it).  Newton's method
     on g from delta = 0, where it starts within a small angle of the root whenever an eclipse is possible; the root
-    is delta = 0 when e = 0 or i = 90 deg.  ``inclination_cosine`` cos i, taken from degrees by the caller.
+    is delta = 0 when e = 0 or i = 90 deg.  sin i and cos i from the inclination in degrees (:mod:`.angles`), each
+    with its own relative precision (sin^2 i as 1 - cos^2 i lost 3e-13 of itself at i = 179 deg).
     """
-    cos_i = np.asarray(inclination_cosine, dtype=float)
+    sin_i, cos_i = sin_cos_degrees(np.asarray(inclination_deg, dtype=float))
     c2 = cos_i * cos_i
-    s2 = 1.0 - c2
+    s2 = sin_i * sin_i
     start = CONJUNCTION_ARGUMENT[star] - omega_rad
     shape = np.broadcast(start, eccentricity, c2, omega_rate).shape
     flat = [np.broadcast_to(np.asarray(a, dtype=float), shape).ravel()
@@ -665,7 +666,7 @@ def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_cosine, omega_
 def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
     """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``:
     the conjunction's, 90 deg - omega or 270 deg - omega, plus :func:`mid_eclipse_offset`."""
-    offset = mid_eclipse_offset(star, eccentricity, omega_rad, np.cos(inclination_rad), omega_rate)
+    offset = mid_eclipse_offset(star, eccentricity, omega_rad, np.degrees(inclination_rad), omega_rate)
     return CONJUNCTION_ARGUMENT[star] - omega_rad + offset
 
 
@@ -734,7 +735,7 @@ def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate
     """
     w = np.radians(omega_deg)
     start = CONJUNCTION_ARGUMENT[star] - w
-    delta = mid_eclipse_offset(star, eccentricity, w, cos_degrees(inclination_deg), omega_rate)
+    delta = mid_eclipse_offset(star, eccentricity, w, inclination_deg, omega_rate)
     nu = start + delta
     mid_mean = kepler.mean_from_true(nu, eccentricity)
     shift = conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate) - start
@@ -807,7 +808,8 @@ def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclinati
 
     def raw_phase(w, cycles, e=e, inc=inc, rate=None):     # continuous in its arguments (no reduction mod 1)
         rate = apsidal_rate(wdot, p, pdot, cycles) if rate is None else rate
-        nu = mid_eclipse_true_anomaly(star, e, np.radians(w), np.radians(inc), rate)
+        w_rad = np.radians(w)
+        nu = CONJUNCTION_ARGUMENT[star] - w_rad + mid_eclipse_offset(star, e, w_rad, inc, rate)
         return kepler.mean_from_true(nu, e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
