@@ -143,6 +143,20 @@ def test_the_offset_of_mid_eclipse_from_conjunction_of_a_nearly_face_on_orbit(cl
             want = _conjunction_offset_days(mp.mpf(9.73), mp.mpf(1e-6), mp.mpf(61), mp.mpf(inclination), star)[0]
             assert relative_error(results[f"conjunction_offset{star}"]["value"], want) < 1e-15, star
 
+
+def test_the_offset_of_mid_eclipse_from_a_conjunction_next_to_periastron_at_e_near_one(client):
+    # A conjunction 10.8 deg before periastron of an orbit with e = 1 - 2e-6 (a face-on one, i = 9.3 deg, where the
+    # offset is 5.4e-10 d): M(nu') - M(nu) = dE - e (sin E' - sin E) cancels there (1 - e cos E ~ 2e-6), and was
+    # 6e-11 wrong until each term was taken positive, 2 (x - sin x) + 2 sin x ((1 - e) + 2 e sin^2(E/2 + x/2)),
+    # x = dE/2.  The reference as above (:func:`_conjunction_offset_days`).  Agreed to 1e-15.
+    e, omega, inclination = 0.9999980406489765, 100.80760198872719, 9.282909969324923
+    body = {"period": 9.73, "eccentricity": e, "omega": omega, "inclination": inclination,
+            "t_periastron": 2460811.42, "after": 2461000.5, "count": 1}
+    got = _post(client, "/v1/orbit/mid-eclipse", body)["results"]["conjunction_offset1"]["value"]
+    with mp.workdps(40):
+        want = _conjunction_offset_days(mp.mpf(9.73), mp.mpf(e), mp.mpf(omega), mp.mpf(inclination), 1)[0]
+        assert relative_error(got, want) < 1e-15
+
 def _mid_eclipse_phase(e, omega, inclination, star, start=None):
     """The phase after periastron, M(nu) / 2 pi mod 1, of the minimum projected separation that :func:`_conjunction_
     offset_days` finds (the same sources), and its true anomaly."""

@@ -228,15 +228,17 @@ def mean_anomaly_difference(true_anomaly, step, eccentricity):
 
     With E = 2 atan(((1 - e)/(1 + e))^{1/2} tan(nu/2)) (Murray & Dermott 1999, eq. 2.46), the difference of two
     arctangents gives, with nu' = nu + d,
-    tan(dE/2) = (1 - e^2)^{1/2} sin(d/2) / ((1 + e) cos(nu/2) cos(nu'/2) + (1 - e) sin(nu/2) sin(nu'/2)), and Kepler's equation dM = dE - e (sin E' - sin E) = dE - 2 e cos(E + dE/2) sin(dE/2): both
-    proportional to d, so the difference keeps the relative precision of d (M(nu') - M(nu) loses 1e-16 rad whatever
-    d is).  For |dE| < pi.
+    tan(dE/2) = (1 - e^2)^{1/2} sin(d/2) / ((1 + e) cos(nu/2) cos(nu'/2) + (1 - e) sin(nu/2) sin(nu'/2)), and
+    Kepler's equation dM = dE - e (sin E' - sin E) = dE - 2 e cos(E + dE/2) sin(dE/2), taken as
+    2 (x - sin x) + 2 sin x ((1 - e) + 2 e sin^2(E/2 + x/2)), x = dE/2 (:func:`angle_minus_sine`): every term
+    positive for a positive step, so the difference keeps the relative precision of d, also near periastron at
+    e -> 1, where 1 - e cos E is small (M(nu') - M(nu) loses 1e-16 rad whatever d is).  For |dE| < pi.
     """
     nu = np.asarray(true_anomaly, dtype=float)
     d = np.asarray(step, dtype=float)
     e = np.asarray(eccentricity, dtype=float)
     half, half_next = 0.5 * nu, 0.5 * (nu + d)
-    half_step = np.arctan2(np.sqrt((1.0 - e) * (1.0 + e)) * np.sin(0.5 * d),
-                           (1.0 + e) * np.cos(half) * np.cos(half_next) + (1.0 - e) * np.sin(half) * np.sin(half_next))
-    big_e = eccentric_from_true(nu, e)
-    return 2.0 * half_step - 2.0 * e * np.cos(big_e + half_step) * np.sin(half_step)
+    x = np.arctan2(np.sqrt((1.0 - e) * (1.0 + e)) * np.sin(0.5 * d),
+                   (1.0 + e) * np.cos(half) * np.cos(half_next) + (1.0 - e) * np.sin(half) * np.sin(half_next))
+    middle = np.sin(0.5 * eccentric_from_true(nu, e) + 0.5 * x)      # sin of the half of E + dE/2
+    return 2.0 * angle_minus_sine(x) + 2.0 * np.sin(x) * ((1.0 - e) + 2.0 * e * middle * middle)
