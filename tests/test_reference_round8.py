@@ -1,6 +1,9 @@
 """Eighth round of independent reference computations: each check value from a computation written here from the
-published formula (mpmath at 60 digits, bisected roots, astropy constants and units, numpy on the documented draw
-model), never from calcservice's physics."""
+published formula (mpmath at 40 to 400 digits, bisected and bracketed roots, mpmath's numerical derivatives for the
+linear sigmas, astropy constants, numpy on the documented draw model), never from calcservice's physics.  Aimed at
+the corners the earlier rounds left: a very weak wind's shock cone, mid-eclipses of nearly edge-on, nearly face-on
+and nearly parabolic orbits, |v1 - v2| at the extrema of a nearly parabolic orbit, and a companion mass drawn over
+random orientations."""
 
 from __future__ import annotations
 
