@@ -269,3 +269,30 @@ def test_single_lined_companion_mass_for_random_orientations_is_numpy_on_the_doc
         got = answer["results"][name]
         want = (np.median(y[kept]), np.percentile(y[kept], 100 * ndtr(-1.0)), np.percentile(y[kept], 100 * ndtr(1.0)))
         np.testing.assert_allclose([got["value"], got["low"], got["high"]], want, rtol=4e-16, err_msg=name)
+
+
+@pytest.mark.parametrize("eccentricity, omega", [(1 - 1e-9, 0.001), (0.9999999, 0.01), (0.9999999, 180.0)])
+def test_radial_velocity_at_the_extrema_of_a_nearly_parabolic_orbit(client, eccentricity, omega):
+    # At the dates of the service's own rv extrema, v1 - gamma = K1 [cos(nu + omega) + e cos omega] (Hilditch 2001,
+    # eq. 2.45) with nu from Kepler's equation bisected at 60 digits (Murray & Dermott 1999, ch. 2).  There v1 is
+    # K1 (1 -+ e cos omega), 3.5e-8 km/s at e = 1 - 1e-9, omega = 0.001 deg, and stationary in time (the date's
+    # rounding moves it to second order only): the series kept 1e-16 of K1 of it, 1.8e-7 of the velocity there
+    # (7e-10 at e = 0.9999999, omega = 0.01 deg).  Agreed after the fix to 1e-15.
+    base = {"period": 100.0, "eccentricity": eccentricity, "omega": omega, "t_periastron": 2460000.5,
+            "k1": 30.0, "k2": 40.0, "count": 1}
+    extrema = _post(client, "/v1/orbit/ephemeris", {**base, "times": [2460001.0]})["results"]["events"]["rv_extrema"]
+    times = [x["value"] for x in extrema]
+    series = _post(client, "/v1/orbit/ephemeris", {**base, "times": times})["results"]["series"]
+    e, w = mp.mpf(eccentricity), mp.radians(omega)
+    for k, t in enumerate(times):
+        mean = 2 * mp.pi * (mp.mpf(t) - mp.mpf(2460000.5)) / 100
+        mean -= 2 * mp.pi * mp.nint(mean / (2 * mp.pi))
+        lo, hi = -mp.pi, mp.pi
+        for _ in range(300):
+            mid = (lo + hi) / 2
+            lo, hi = (mid, hi) if mid - e * mp.sin(mid) < mean else (lo, mid)
+        big_e = (lo + hi) / 2
+        nu = 2 * mp.atan2(mp.sqrt(1 + e) * mp.sin(big_e / 2), mp.sqrt(1 - e) * mp.cos(big_e / 2))
+        level = mp.cos(nu + w) + e * mp.cos(w)
+        assert relative_error(series["rv1"]["value"][k], 30 * level) < 1e-15, extrema[k]["kind"]
+        assert relative_error(series["rv2"]["value"][k], -40 * level) < 1e-15, extrema[k]["kind"]

@@ -166,6 +166,18 @@ def true_anomaly_cosine_sine(eccentric, eccentricity):
     return ((1.0 - e) - square) / r, np.sqrt((1.0 - e) * (1.0 + e)) * np.sin(big_e) / r, r
 
 
+def true_anomaly_half_cosine_sine(eccentric, eccentricity):
+    """cos(nu/2) and sin(nu/2) straight from E: tan(nu/2) = ((1 + e)/(1 - e))^{1/2} tan(E/2) (Murray & Dermott 1999,
+    eq. 2.46), so (cos(nu/2), sin(nu/2)) is the unit vector along ((1 - e)^{1/2} cos(E/2), (1 + e)^{1/2} sin(E/2)),
+    the half-angle of :func:`true_from_eccentric` without nu in radians (up to a turn of nu, which changes only
+    their signs together)."""
+    half = 0.5 * np.asarray(eccentric, dtype=float)
+    e = np.asarray(eccentricity, dtype=float)
+    x, y = np.sqrt(1.0 - e) * np.cos(half), np.sqrt(1.0 + e) * np.sin(half)
+    norm = np.hypot(x, y)
+    return x / norm, y / norm
+
+
 def eccentric_from_true(true_anomaly, eccentricity):
     """Eccentric anomaly E (rad) from the true anomaly nu: E = 2 atan2(sqrt(1 - e) sin(nu/2), sqrt(1 + e) cos(nu/2)),
     with the revolution count of nu (the inverse of :func:`true_from_eccentric`)."""

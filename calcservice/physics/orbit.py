@@ -140,17 +140,16 @@ def argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu=None, sin_cos_o
     return cos_nu * cos_w - sin_nu * sin_w, sin_nu * cos_w + cos_nu * sin_w
 
 
-def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0, cos_sin_nu=None):
+def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0, half_cos_sin_nu=None):
     """Radial velocities (km/s) of both stars of a Keplerian orbit.
 
     v1 = gamma + K1 [cos(nu + omega) + e cos omega],
     v2 = gamma - K2 [cos(nu + omega) + e cos omega]   (Hilditch 2001, eq. 2.45),
-    with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign.
-    Returns (v1, v2), v2 None without K2.  ``cos_sin_nu`` as in :func:`argument_of_latitude`.
+    with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign; the bracket
+    by :func:`velocity_level`, which keeps its digits at the extrema of an orbit with e -> 1.  Returns (v1, v2), v2
+    None without K2.  ``half_cos_sin_nu`` as in :func:`velocity_level`.
     """
-    sin_cos_omega = sin_cos_degrees(omega_deg)
-    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu, sin_cos_omega)
-    shape = cos_u + eccentricity * sin_cos_omega[1]
+    shape = velocity_level(true_anomaly_rad, eccentricity, omega_deg, half_cos_sin_nu)
     v1 = gamma + k1 * shape
     v2 = None if k2 is None else gamma - k2 * shape
     return v1, v2
@@ -193,7 +192,8 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
     cos_nu, sin_nu, r_over_a = kepler.true_anomaly_cosine_sine(ecc, e)
-    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma, (cos_nu, sin_nu))
+    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma,
+                               kepler.true_anomaly_half_cosine_sine(ecc, e))
     out = {
         "phase": phase,
         "mean_anomaly": wrap_degrees(np.degrees(mean)),
@@ -447,19 +447,24 @@ def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccen
     return np.sqrt(np.maximum(var, 0.0))
 
 
-def velocity_level(true_anomaly_rad, eccentricity, omega_deg):
+def velocity_level(true_anomaly_rad, eccentricity, omega_deg, half_cos_sin_nu=None):
     """cos(nu + omega) + e cos omega, the shape of the radial-velocity curve (Hilditch 2001, eq. 2.45), u = nu + omega.
 
     Written 2 cos^2(u/2) - [(1 - e) + 2 e sin^2(omega/2)] where cos u < 0 and [(1 - e) + 2 e cos^2(omega/2)]
-    - 2 sin^2(u/2) elsewhere (omega/2 in degrees), so that at an extremum of v1 of an orbit with e -> 1, where the
-    level is 1 -+ e cos omega (near its minimum with omega -> 0, near its maximum with omega -> 180 deg), the bracket
-    keeps its digits and the other term is a square of a small number: cos u + e cos omega kept only 1e-16 of its
-    +-1 there (1e-9 of the level at e = 1 - 1e-9, omega = 0.001 deg)."""
+    - 2 sin^2(u/2) elsewhere, cos(u/2) and sin(u/2) by the addition theorem with omega/2 in degrees, so that at an
+    extremum of v1 of an orbit with e -> 1, where the level is 1 -+ e cos omega (near its minimum with omega -> 0,
+    near its maximum with omega -> 180 deg), the bracket keeps its digits and the other term is a square of a small
+    number: cos u + e cos omega kept only 1e-16 of its +-1 there (1e-9 of the level at e = 1 - 1e-9,
+    omega = 0.001 deg).  ``half_cos_sin_nu``: (cos(nu/2), sin(nu/2)) when the caller has them more exactly than
+    from nu (:func:`.kepler.true_anomaly_half_cosine_sine`)."""
     e = np.asarray(eccentricity, dtype=float)
-    w_half = 0.5 * np.asarray(omega_deg, dtype=float)
-    u_half = 0.5 * (np.asarray(true_anomaly_rad, dtype=float) + np.radians(omega_deg))
-    cos_u_half, sin_u_half = np.cos(u_half), np.sin(u_half)
-    sin_w_half, cos_w_half = sin_cos_degrees(w_half)
+    if half_cos_sin_nu is None:
+        half = 0.5 * np.asarray(true_anomaly_rad, dtype=float)
+        half_cos_sin_nu = (np.cos(half), np.sin(half))
+    cos_nu_half, sin_nu_half = half_cos_sin_nu
+    sin_w_half, cos_w_half = sin_cos_degrees(0.5 * np.asarray(omega_deg, dtype=float))
+    cos_u_half = cos_nu_half * cos_w_half - sin_nu_half * sin_w_half
+    sin_u_half = sin_nu_half * cos_w_half + cos_nu_half * sin_w_half
     below = 2.0 * cos_u_half * cos_u_half - ((1.0 - e) + 2.0 * e * sin_w_half * sin_w_half)
     above = ((1.0 - e) + 2.0 * e * cos_w_half * cos_w_half) - 2.0 * sin_u_half * sin_u_half
     return np.where(np.abs(cos_u_half) < np.abs(sin_u_half), below, above)
