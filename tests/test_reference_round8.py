@@ -296,3 +296,23 @@ def test_radial_velocity_at_the_extrema_of_a_nearly_parabolic_orbit(client, ecce
         level = mp.cos(nu + w) + e * mp.cos(w)
         assert relative_error(series["rv1"]["value"][k], 30 * level) < 1e-15, extrema[k]["kind"]
         assert relative_error(series["rv2"]["value"][k], -40 * level) < 1e-15, extrema[k]["kind"]
+
+
+# --------------------------------------------------------------------------- a momentum ratio from a shock cone
+@pytest.mark.parametrize("angle", [4.168693834703363e-12, 1e-9, 3e-6, 0.01, 1.0, 17.0, 38.0, 60.0])
+def test_momentum_ratio_from_an_eichler_usov_opening_angle(client, angle):
+    # Eichler & Usov (1993), ApJ 402, 271, eq. 1: theta = 2.1 (1 - eta^{2/5} / 4) eta^{1/3} (radians), inverted here
+    # for eta by bisection at 60 digits in u = eta^{1/15} (theta / 2.1 = u^5 - u^11 / 4 rises on [0, 1]).  The
+    # service took eta = u^15 of its bisected u, which multiplied u's rounding by 15: 3.3e-15 off at small cones
+    # (2.6e-15 or more at most angles below a degree).  Agreed after a last Newton step in ln eta: to 1.4e-15 up to
+    # 60 deg, the rounding of theta to radians and of theta / 2.1 being 3 roundings of eta each (eta ~ theta^3),
+    # and nearer 90.24 deg 5 (the slope d ln theta / d ln eta falls to 1/5 there).
+    body = {"opening_half_angle": angle, "opening_angle_formula": "eu93", "mdot1": 1e-5, "vinf1": 2000.0,
+            "vinf2": 1500.0}
+    eta = _post(client, "/v1/winds/mass-loss/momentum-ratio", body)["results"]["momentum_ratio"]["value"]
+    target = mp.radians(mp.mpf(angle)) / mp.mpf("2.1")
+    lo, hi = mp.mpf(0), mp.mpf(1)
+    for _ in range(220):
+        mid = (lo + hi) / 2
+        lo, hi = (mid, hi) if mid ** 5 - mid ** 11 / 4 < target else (lo, mid)
+    assert relative_error(eta, ((lo + hi) / 2) ** 15) < 2e-15

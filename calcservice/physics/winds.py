@@ -129,7 +129,10 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
     derivative 5 u^4 - 11 u^10 / 4 > 0 there) from 0 to 3/4: theta above 2.1 * 3/4 rad
     (90.24 deg) has no solution (NaN).  Since (3/4) u^5 <= u^5 - u^11/4 <= u^5 there, the root lies in
     [t^{1/5}, min(1, (4 t / 3)^{1/5})], t = theta / 2.1, a bracket 6 % wide at any t (from [0, 1] a tiny
-    cone's u, ~1e-7, kept only a few digits), bisected for a fixed number of steps.
+    cone's u, ~1e-7, kept only a few digits), bisected for a fixed number of steps.  eta = u^15 multiplies the
+    rounding of u by 15, so a last Newton step is taken in ln eta on the residual written without logarithms,
+    r = eta^{1/3} (1 - eta^{2/5} / 4) / t - 1, whose slope d ln(theta) / d ln(eta) = 1/3 - (1/10) eta^{2/5} /
+    (1 - eta^{2/5} / 4) lies in [1/5, 1/3]: eta to a few roundings (u^15 alone was 3e-15 off at small cones).
     """
     target = np.asarray(half_angle, dtype=float) / 2.1
     lo = target ** 0.2
@@ -140,8 +143,15 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
         lo = np.where(below, mid, lo)
         hi = np.where(below, hi, mid)
     u = 0.5 * (lo + hi)
+    eta = u**15
+    with np.errstate(divide="ignore", invalid="ignore"):
+        power = eta**0.4
+        bracket = 1.0 - 0.25 * power
+        residual = np.cbrt(eta) * bracket / target - 1.0
+        polished = eta * (1.0 - residual / (1.0 / 3.0 - 0.1 * power / bracket))
+    eta = np.where(np.isfinite(polished) & (polished > 0.0), polished, eta)
     ok = np.isfinite(target) & (target >= 0.0) & (target <= 0.75)
-    return np.where(ok, u**15, np.nan)
+    return np.where(ok, eta, np.nan)
 
 
 def momentum_ratio_from_canto_raga_wilkin(half_angle):
