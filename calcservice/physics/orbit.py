@@ -140,17 +140,16 @@ def argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu=None, sin_cos_o
     return cos_nu * cos_w - sin_nu * sin_w, sin_nu * cos_w + cos_nu * sin_w
 
 
-def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0, cos_sin_nu=None):
+def radial_velocities(true_anomaly_rad, eccentricity, omega_deg, k1, k2=None, gamma=0.0, half_cos_sin_nu=None):
     """Radial velocities (km/s) of both stars of a Keplerian orbit.
 
     v1 = gamma + K1 [cos(nu + omega) + e cos omega],
     v2 = gamma - K2 [cos(nu + omega) + e cos omega]   (Hilditch 2001, eq. 2.45),
-    with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign.
-    Returns (v1, v2), v2 None without K2.  ``cos_sin_nu`` as in :func:`argument_of_latitude`.
+    with omega the primary's argument of periastron (deg); star 2 has omega + 180 deg, hence the sign; the bracket
+    by :func:`velocity_level`, which keeps its digits at the extrema of an orbit with e -> 1.  Returns (v1, v2), v2
+    None without K2.  ``half_cos_sin_nu`` as in :func:`velocity_level`.
     """
-    sin_cos_omega = sin_cos_degrees(omega_deg)
-    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg, cos_sin_nu, sin_cos_omega)
-    shape = cos_u + eccentricity * sin_cos_omega[1]
+    shape = velocity_level(true_anomaly_rad, eccentricity, omega_deg, half_cos_sin_nu)
     v1 = gamma + k1 * shape
     v2 = None if k2 is None else gamma - k2 * shape
     return v1, v2
@@ -193,7 +192,8 @@ def ephemeris(period, eccentricity, omega, t_periastron, k1, times, k2=None, gam
     ecc = kepler.eccentric_anomaly(mean, e)
     nu = kepler.true_from_eccentric(ecc, e)
     cos_nu, sin_nu, r_over_a = kepler.true_anomaly_cosine_sine(ecc, e)
-    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma, (cos_nu, sin_nu))
+    v1, v2 = radial_velocities(nu, e, omega_deg, k1, k2, 0.0 if gamma is None else gamma,
+                               kepler.true_anomaly_half_cosine_sine(ecc, e))
     out = {
         "phase": phase,
         "mean_anomaly": wrap_degrees(np.degrees(mean)),
@@ -447,11 +447,34 @@ def event_sigma(derivatives, covariance, names=("t_periastron", "period", "eccen
     return np.sqrt(np.maximum(var, 0.0))
 
 
+def velocity_level(true_anomaly_rad, eccentricity, omega_deg, half_cos_sin_nu=None):
+    """cos(nu + omega) + e cos omega, the shape of the radial-velocity curve (Hilditch 2001, eq. 2.45), u = nu + omega.
+
+    Written 2 cos^2(u/2) - [(1 - e) + 2 e sin^2(omega/2)] where cos u < 0 and [(1 - e) + 2 e cos^2(omega/2)]
+    - 2 sin^2(u/2) elsewhere, cos(u/2) and sin(u/2) by the addition theorem with omega/2 in degrees, so that at an
+    extremum of v1 of an orbit with e -> 1, where the level is 1 -+ e cos omega (near its minimum with omega -> 0,
+    near its maximum with omega -> 180 deg), the bracket keeps its digits and the other term is a square of a small
+    number: cos u + e cos omega kept only 1e-16 of its +-1 there (1e-9 of the level at e = 1 - 1e-9,
+    omega = 0.001 deg).  ``half_cos_sin_nu``: (cos(nu/2), sin(nu/2)) when the caller has them more exactly than
+    from nu (:func:`.kepler.true_anomaly_half_cosine_sine`)."""
+    e = np.asarray(eccentricity, dtype=float)
+    if half_cos_sin_nu is None:
+        half = 0.5 * np.asarray(true_anomaly_rad, dtype=float)
+        half_cos_sin_nu = (np.cos(half), np.sin(half))
+    cos_nu_half, sin_nu_half = half_cos_sin_nu
+    sin_w_half, cos_w_half = sin_cos_degrees(0.5 * np.asarray(omega_deg, dtype=float))
+    cos_u_half = cos_nu_half * cos_w_half - sin_nu_half * sin_w_half
+    sin_u_half = sin_nu_half * cos_w_half + cos_nu_half * sin_w_half
+    below = 2.0 * cos_u_half * cos_u_half - ((1.0 - e) + 2.0 * e * sin_w_half * sin_w_half)
+    above = ((1.0 - e) + 2.0 * e * cos_w_half * cos_w_half) - 2.0 * sin_u_half * sin_u_half
+    return np.where(np.abs(cos_u_half) < np.abs(sin_u_half), below, above)
+
+
 def velocity_separation(eccentricity, omega_deg, k1, k2, true_anomaly_rad):
-    """|v1 - v2| (km/s) at a true anomaly: (K1 + K2) |cos(nu + omega) + e cos omega| (Hilditch 2001, eq. 2.45); at a
-    radial-velocity extremum without apsidal motion (K1 + K2)(1 + e cos omega) or (K1 + K2)(1 - e cos omega)."""
-    cos_u, _sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
-    return (k1 + k2) * np.abs(cos_u + eccentricity * cos_degrees(omega_deg))
+    """|v1 - v2| (km/s) at a true anomaly: (K1 + K2) |cos(nu + omega) + e cos omega| (Hilditch 2001, eq. 2.45,
+    :func:`velocity_level`); at a radial-velocity extremum without apsidal motion (K1 + K2)(1 + e cos omega) or
+    (K1 + K2)(1 - e cos omega)."""
+    return (k1 + k2) * np.abs(velocity_level(true_anomaly_rad, eccentricity, omega_deg))
 
 
 def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_periastron, omega_dot=None,
@@ -477,7 +500,7 @@ def velocity_separation_derivatives(event, k1, k2, eccentricity, period, t_peria
     time = event["time"] - event.get("light_time", 0.0)            # the extremum itself, not when it is seen
     w = np.radians(event["omega"])
     u = nu + w
-    level = np.cos(u) + e * np.cos(w)
+    level = velocity_level(nu, e, event["omega"])
     side = np.sign(level)
     d_nu, d_m_de = mean_anomaly_derivatives(nu, e)
     pdot = None if period_derivative is None else np.asarray(period_derivative, dtype=float)[..., None]
@@ -591,62 +614,65 @@ _HALF_ORBIT = 0.5 * np.pi * (1.0 - 1e-9)
 _MID_ECLIPSE_MAX_STEP = 0.2   # rad: Newton's steps kept short so that no iterate leaves the conjunction's half-orbit
 
 
-def projected_separation(true_anomaly_rad, eccentricity, omega_deg, inclination_deg):
-    """Separation of the stars on the sky in units of a: rho/a = (r/a) sqrt(1 - sin^2 i sin^2(nu + omega)).
-
-    From rho = r sqrt(cos^2 u + sin^2 u cos^2 i) with u = nu + omega (+ 180 deg for the relative orbit, which
-    leaves sin^2 u unchanged) and r/a = (1 - e^2)/(1 + e cos nu) (Heintz 1978, ch. 4; Hilditch 2001, ch. 2), in that
-    form (not 1 - sin^2 i sin^2 u, which cancels at mid-eclipse of an edge-on orbit), with omega's and i's sines
-    and cosines in degrees (:mod:`.angles`).
-    """
-    cos_u, sin_u = argument_of_latitude(true_anomaly_rad, omega_deg)
-    return kepler.separation(true_anomaly_rad, eccentricity) * np.hypot(cos_u, sin_u * cos_degrees(inclination_deg))
-
-
-def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
-    """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``.
+def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_deg, omega_rate=0.0):
+    """delta = nu_min - nu_c (rad): how far in true anomaly the minimum projected separation near the conjunction that
+    eclipses ``star`` lies from that conjunction, nu_c = 90 deg - omega (star 1 eclipsed) or 270 deg - omega.
 
     Minimising rho^2 = r^2 (1 - sin^2 i sin^2 u), u = nu + omega, in time sets its derivative to zero:
     g(nu) = 2 e sin nu (1 - sin^2 i sin^2 u) / (1 + e cos nu) - sin^2 i sin 2u (1 + kappa) = 0
     (with r'/r = e sin nu / (1 + e cos nu) from the ellipse; e.g. Hilditch 2001, ch. 2 on eclipse
     timing in eccentric orbits), kappa = (d omega/dt)/(d nu/dt) = omega_rate (1 - e^2)^{3/2} / (1 + e cos nu)^2
-    for apsidal motion, ``omega_rate`` = d omega / dM = omega_dot P / 360 deg (0 without).  Newton's
-    method on g from the conjunction (nu + omega = 90 deg or 270 deg), where it starts within a small
-    angle of the root whenever an eclipse is possible; the root is the conjunction itself when e = 0
-    or i = 90 deg.
+    for apsidal motion, ``omega_rate`` = d omega / dM = omega_dot P / 360 deg (0 without).  Written in delta,
+    u = 90 deg + delta or 270 deg + delta, so sin^2 u = cos^2 delta, sin 2u = -sin 2 delta, cos 2u = -cos 2 delta and
+    1 - sin^2 i sin^2 u = cos^2 i + sin^2 i sin^2 delta: no cancellation near an edge-on orbit's mid-eclipse, where
+    1 - sin^2 i sin^2 u with u from nu kept only 1e-16 / cos^2 i of itself (the offset from the conjunction, which
+    is of order cos^2 i, then lost 1e-6 of itself at i = 89.999 deg and its linear sigma all of it).  Newton's method
+    on g from delta = 0, where it starts within a small angle of the root whenever an eclipse is possible; the root
+    is delta = 0 when e = 0 or i = 90 deg.  sin i and cos i from the inclination in degrees (:mod:`.angles`), each
+    with its own relative precision (sin^2 i as 1 - cos^2 i lost 3e-13 of itself at i = 179 deg).
     """
-    s2 = np.sin(inclination_rad) ** 2
+    sin_i, cos_i = sin_cos_degrees(np.asarray(inclination_deg, dtype=float))
+    c2 = cos_i * cos_i
+    s2 = sin_i * sin_i
     start = CONJUNCTION_ARGUMENT[star] - omega_rad
-    shape = np.broadcast(start, eccentricity, s2, omega_rate).shape
+    shape = np.broadcast(start, eccentricity, c2, omega_rate).shape
     flat = [np.broadcast_to(np.asarray(a, dtype=float), shape).ravel()
-            for a in (eccentricity, s2, omega_rad, omega_rate, start)]
-    nu = flat[4].copy()
+            for a in (eccentricity, c2, s2, omega_rate, start)]
+    delta = np.zeros(flat[0].size)
     # each system's iterate is left once a step moves it by no more than two roundings (at the root, where
     # further steps only turn between neighbouring doubles): the steps go on for the others only, and a
     # system's answer is the same alone or in a batch
-    live = np.arange(nu.size)
+    live = np.arange(delta.size)
     for _ in range(_MID_ECLIPSE_STEPS):
         if not live.size:
             break
-        e, s2, w, rate, first = (a[live] for a in flat)
-        old = nu[live]
-        sin_nu, cos_nu = np.sin(old), np.cos(old)
+        e, c2, s2, rate, first = (a[live] for a in flat)
+        old = delta[live]
+        nu = first + old
+        sin_nu, cos_nu = np.sin(nu), np.cos(nu)
         c = 1.0 + e * cos_nu
-        u = old + w
-        shape_factor = 1.0 - s2 * np.sin(u) ** 2
+        sin_d = np.sin(old)
+        sin_2d, cos_2d = np.sin(2.0 * old), np.cos(2.0 * old)
+        shape_factor = c2 + s2 * sin_d * sin_d
         h = 2.0 * e * sin_nu / c
         kappa = rate * (1.0 - e * e) ** 1.5 / c**2
-        g = h * shape_factor - s2 * np.sin(2.0 * u) * (1.0 + kappa)
-        dg = (2.0 * e * (cos_nu + e) / c**2 * shape_factor - h * s2 * np.sin(2.0 * u)
-              - 2.0 * s2 * np.cos(2.0 * u) * (1.0 + kappa) - s2 * np.sin(2.0 * u) * kappa * h)
+        g = h * shape_factor + s2 * sin_2d * (1.0 + kappa)
+        dg = (2.0 * e * (cos_nu + e) / c**2 * shape_factor + h * s2 * sin_2d
+              + 2.0 * s2 * cos_2d * (1.0 + kappa) + s2 * sin_2d * kappa * h)
         with np.errstate(invalid="ignore", divide="ignore"):
             step = np.where(dg > 0.0, g / dg, 0.0)
         # kept within the half-orbit where ``star`` is the farther one: beyond it the other star is in front
-        new = np.clip(old - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), first - _HALF_ORBIT,
-                      first + _HALF_ORBIT)
-        nu[live] = new
+        new = np.clip(old - np.clip(step, -_MID_ECLIPSE_MAX_STEP, _MID_ECLIPSE_MAX_STEP), -_HALF_ORBIT, _HALF_ORBIT)
+        delta[live] = new
         live = live[np.abs(new - old) > 2.0 * np.spacing(np.abs(old))]
-    return nu.reshape(shape)
+    return delta.reshape(shape)
+
+
+def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
+    """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``:
+    the conjunction's, 90 deg - omega or 270 deg - omega, plus :func:`mid_eclipse_offset`."""
+    offset = mid_eclipse_offset(star, eccentricity, omega_rad, np.degrees(inclination_rad), omega_rate)
+    return CONJUNCTION_ARGUMENT[star] - omega_rad + offset
 
 
 def apsidal_rate_per_mean_anomaly(omega_dot, period):
@@ -705,18 +731,22 @@ def conjunction_true_anomaly(star, eccentricity, omega_rad, mid_mean_anomaly, om
 
 def mid_eclipse_phase(star, eccentricity, omega_deg, inclination_deg, omega_rate=0.0):
     """Phase after periastron (0 to 1) of the mid-eclipse of ``star``, its offset from the conjunction (cycles),
-    and its true anomaly (rad).
+    its true anomaly (rad) and its distance from the conjunction at omega, delta = nu - (90 deg or 270 deg - omega).
 
     The offset is (M(nu_min) - M(nu_c)) / 2 pi with nu_c the conjunction's true anomaly
-    (:func:`conjunction_true_anomaly`: under apsidal motion omega at the conjunction is not omega at the mid-eclipse).
+    (:func:`conjunction_true_anomaly`: under apsidal motion omega at the conjunction is not omega at the mid-eclipse),
+    taken from nu_min - nu_c by :func:`.kepler.mean_anomaly_difference`, not as the difference of two mean anomalies
+    of ~1 rad (which kept 1e-16 rad of an offset of order cos^2 i near an edge-on orbit).
     """
     w = np.radians(omega_deg)
-    nu = mid_eclipse_true_anomaly(star, eccentricity, w, np.radians(inclination_deg), omega_rate)
+    start = CONJUNCTION_ARGUMENT[star] - w
+    delta = mid_eclipse_offset(star, eccentricity, w, inclination_deg, omega_rate)
+    nu = start + delta
     mid_mean = kepler.mean_from_true(nu, eccentricity)
-    conjunction = kepler.mean_from_true(conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate),
-                                        eccentricity)
+    shift = conjunction_true_anomaly(star, eccentricity, w, mid_mean, omega_rate) - start
+    offset = kepler.mean_anomaly_difference(start + shift, delta - shift, eccentricity)
     mid = mid_mean / TWO_PI
-    return np.mod(mid, 1.0), (mid_mean - conjunction) / TWO_PI, nu
+    return np.mod(mid, 1.0), offset / TWO_PI, nu, delta
 
 
 def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, semimajor_axis=None, total_mass=None,
@@ -736,9 +766,12 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
     if a is not None:
         out["semimajor_axis"] = a
     for star in (1, 2):
-        phase, cycles_after_conjunction, nu = mid_eclipse_phase(star, eccentricity, omega, inclination,
-                                                                apsidal_rate_per_mean_anomaly(omega_dot, period))
-        rho = projected_separation(nu, eccentricity, omega, inclination)
+        phase, cycles_after_conjunction, nu, delta = mid_eclipse_phase(star, eccentricity, omega, inclination,
+                                                                       apsidal_rate_per_mean_anomaly(omega_dot, period))
+        # rho / a = (r/a) (cos^2 u + sin^2 u cos^2 i)^{1/2}, u = nu + omega (+ 180 deg for the relative orbit, which
+        # changes no square; Heintz 1978, ch. 4), with u = 90 or 270 deg + delta: cos^2 u = sin^2 delta, exact at
+        # mid-eclipse of an edge-on orbit (from nu and omega, cos u kept only 1e-16 absolute)
+        rho = kepler.separation(nu, eccentricity) * np.hypot(np.sin(delta), np.cos(delta) * cos_degrees(inclination))
         out[f"mid_eclipse_phase{star}"] = phase
         out[f"conjunction_offset{star}"] = cycles_after_conjunction * period
         out[f"minimum_separation{star}_over_a"] = rho
@@ -750,8 +783,11 @@ def mid_eclipse(period, eccentricity, omega, inclination, t_periastron=None, sem
 
 
 #: central-difference steps for the derivatives of a mid-eclipse phase (e; omega and i in deg): the phase is
-#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle
+#: smooth, and these steps keep truncation and rounding errors near 1e-9 of a cycle; the step in e is at most
+#: MID_ECLIPSE_ECCENTRICITY_SHARE of 1 - e, so that e + step stays an orbit and the phase, which goes as
+#: (1 - e)^{3/2} there, is differenced over a step that its curvature does not bend (1e-7 relative)
 MID_ECLIPSE_PHASE_STEPS = {"eccentricity": 1e-6, "omega": 1e-4, "inclination": 1e-4}
+MID_ECLIPSE_ECCENTRICITY_SHARE = 1e-3
 #: the step in omega_rate = d omega / dM (dimensionless): the phase is nearly linear in it
 MID_ECLIPSE_RATE_STEP = 1e-6
 
@@ -777,13 +813,15 @@ def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclinati
 
     def raw_phase(w, cycles, e=e, inc=inc, rate=None):     # continuous in its arguments (no reduction mod 1)
         rate = apsidal_rate(wdot, p, pdot, cycles) if rate is None else rate
-        nu = mid_eclipse_true_anomaly(star, e, np.radians(w), np.radians(inc), rate)
+        w_rad = np.radians(w)
+        nu = CONJUNCTION_ARGUMENT[star] - w_rad + mid_eclipse_offset(star, e, w_rad, inc, rate)
         return kepler.mean_from_true(nu, e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
     rate = apsidal_rate(wdot, p, pdot, cycles)
     dphi = {}
     steps = dict(MID_ECLIPSE_PHASE_STEPS)
+    steps["eccentricity"] = np.minimum(steps["eccentricity"], MID_ECLIPSE_ECCENTRICITY_SHARE * (1.0 - e))
     if wdot is not None:
         steps["omega_rate"] = MID_ECLIPSE_RATE_STEP
     for name, h in steps.items():

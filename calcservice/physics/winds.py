@@ -97,14 +97,18 @@ def opening_half_angle_canto_raga_wilkin(eta, iterations=64):
     with theta_inf in (pi/2, pi] the asymptotic angle seen from the stronger-wind star and the
     half-angle psi = pi - theta_inf.  Substituting gives tan(psi) - psi = pi eta / (1 - eta),
     whose left side increases from 0 at psi = 0 to infinity at psi = pi/2: one root, found by
-    bisection on [0, pi/2] for a fixed number of steps (2^-64 of the bracket, below rounding)
-    and polished by one Newton step kept inside the final bracket.  eta = 1 gives pi/2.
+    bisection on [0, min(pi/2, (3 c)^{1/3})], c = pi eta / (1 - eta), for a fixed number of steps
+    (2^-64 of the bracket, below rounding) and polished by one Newton step kept inside the final
+    bracket.  eta = 1 gives pi/2.  Since tan psi - psi >= psi^3 / 3 on [0, pi/2), the root lies below
+    (3 c)^{1/3}, and above 0.7 of that bound: the bracket is relative, so a tiny cone keeps its digits
+    (from [0, pi/2] a root below ~1e-11 rad, eta below ~1e-38, kept only 2^-64 pi/2 of absolute precision:
+    5e-15 relative at eta = 1e-38, 40 % at eta = 1e-60).
     """
     eta = np.asarray(eta, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         target = np.where(eta < 1.0, _PI * eta / (1.0 - eta), np.inf)
     lo = np.zeros_like(target)
-    hi = np.full_like(target, _HALF_PI)
+    hi = np.minimum(_HALF_PI, np.cbrt(3.0 * target))
     for _ in range(iterations):
         mid = 0.5 * (lo + hi)
         below = _tan_minus_angle(mid) < target
@@ -125,7 +129,10 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
     derivative 5 u^4 - 11 u^10 / 4 > 0 there) from 0 to 3/4: theta above 2.1 * 3/4 rad
     (90.24 deg) has no solution (NaN).  Since (3/4) u^5 <= u^5 - u^11/4 <= u^5 there, the root lies in
     [t^{1/5}, min(1, (4 t / 3)^{1/5})], t = theta / 2.1, a bracket 6 % wide at any t (from [0, 1] a tiny
-    cone's u, ~1e-7, kept only a few digits), bisected for a fixed number of steps.
+    cone's u, ~1e-7, kept only a few digits), bisected for a fixed number of steps.  eta = u^15 multiplies the
+    rounding of u by 15, so a last Newton step is taken in ln eta on the residual written without logarithms,
+    r = eta^{1/3} (1 - eta^{2/5} / 4) / t - 1, whose slope d ln(theta) / d ln(eta) = 1/3 - (1/10) eta^{2/5} /
+    (1 - eta^{2/5} / 4) lies in [1/5, 1/3]: eta to a few roundings (u^15 alone was 3e-15 off at small cones).
     """
     target = np.asarray(half_angle, dtype=float) / 2.1
     lo = target ** 0.2
@@ -136,8 +143,15 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
         lo = np.where(below, mid, lo)
         hi = np.where(below, hi, mid)
     u = 0.5 * (lo + hi)
+    eta = u**15
+    with np.errstate(divide="ignore", invalid="ignore"):
+        power = eta**0.4
+        bracket = 1.0 - 0.25 * power
+        residual = np.cbrt(eta) * bracket / target - 1.0
+        polished = eta * (1.0 - residual / (1.0 / 3.0 - 0.1 * power / bracket))
+    eta = np.where(np.isfinite(polished) & (polished > 0.0), polished, eta)
     ok = np.isfinite(target) & (target >= 0.0) & (target <= 0.75)
-    return np.where(ok, u**15, np.nan)
+    return np.where(ok, eta, np.nan)
 
 
 def momentum_ratio_from_canto_raga_wilkin(half_angle):
