@@ -27,11 +27,6 @@ AU_IN_SOLAR_RADII = AU / R_SUN
 
 
 # --------------------------------------------------------------------------- phases
-def orbital_phase(time, period, t_periastron):
-    """Orbital phase (t - T0)/P mod 1, zero at periastron passage."""
-    return np.mod((np.asarray(time, dtype=float) - t_periastron) / period, 1.0)
-
-
 def period_change_rate(period_derivative):
     """dP/dt as a pure number (days per day) from dP/dt in s/yr (the unit of the period-change calculation)."""
     return 0.0 if period_derivative is None else np.asarray(period_derivative, dtype=float) / JULIAN_YEAR
