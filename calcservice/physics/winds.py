@@ -396,9 +396,10 @@ def relative_period_change(period, period_derivative):
     return period_derivative / (period * SECONDS_PER_DAY)
 
 
-#: the largest change of the period over one orbit, |dP/dt| (dimensionless, :func:`.orbit.period_change_rate`), for which the modes' orbit-averaged
-#: relations are used without a warning: they hold for a change slow against the orbit (adiabatic), and a
-#: measured secular change is 1e-10 to 1e-5 of the period per orbit (common practice, a rule of thumb)
+#: the largest change of the period over one orbit, |dP/dt| as a pure number (:func:`.orbit.period_change_rate`),
+#: for which the modes' orbit-averaged relations are used without a warning: they hold for a change slow against
+#: the orbit (adiabatic), and a measured secular change is 1e-10 to 1e-5 of the period per orbit (common
+#: practice, a rule of thumb)
 SECULAR_CHANGE_PER_ORBIT = 0.01
 
 
