@@ -39,7 +39,7 @@ from typing import Any, Mapping
 import numpy as np
 from scipy.special import ndtr, ndtri
 
-from .registry import Calculation, Warning
+from .registry import ANY, Calculation, Warning
 
 ONE_SIGMA_LOW = float(ndtr(-1.0))    # 0.158655...
 ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
@@ -379,7 +379,8 @@ def plan(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) 
     """The compiled linear method of ``calc`` for inputs ``names`` of which ``perturbed`` are uncertain."""
     rows = np.array([names.index(name) for name in perturbed], dtype=np.intp)
     time = np.array([calc.input(name).time for name in perturbed], dtype=bool)[:, None]
-    doms = [calc.input(name).domain for name in perturbed]
+    # a cyclic input (an angle) has no edge: a step or a sigma beyond a full turn is the same angle
+    doms = [ANY if calc.input(name).period is not None else calc.input(name).domain for name in perturbed]
     low = np.array([np.nextafter(d.low, np.inf) if d.low_open else d.low for d in doms], dtype=float)[:, None]
     high = np.array([np.nextafter(d.high, -np.inf) if d.high_open else d.high for d in doms], dtype=float)[:, None]
     open_low = np.array([d.low if d.low_open else -np.inf for d in doms], dtype=float)[:, None]
@@ -1196,7 +1197,12 @@ def _run(calc, quantities, draws, statics, n, s, trail) -> tuple[dict[str, np.nd
     arrays = {}
     for name, q in quantities.items():
         d = draws[name]
-        inside = calc.input(name).domain.contains(d)
+        spec = calc.input(name)
+        inside = spec.domain.contains(d)
+        if spec.period is not None and not inside.all():
+            # a cyclic input (an angle) drawn past its range is the same angle a whole number of turns back
+            d = np.where(inside, d, spec.domain.low + np.mod(d - spec.domain.low, spec.period))
+            inside = spec.domain.contains(d)
         valid &= inside
         d = np.where(inside, d, np.nan)
         col0 = _broadcast(q.value, (n,))[:, None]
