@@ -114,3 +114,28 @@ def test_linear_sigma_of_an_angle_near_a_full_turn_is_not_said_to_cross_a_domain
     for name, f in ref.items():
         # uncertainties differentiates exactly; the service's central differences agree to ~1e-10 (DESIGN: 1e-6)
         assert got["results"][name]["sigma"] == pytest.approx(f.std_dev, rel=1e-6), name
+
+
+# ----------------------------------------------------------------------------- correlations no inputs can have
+IMPOSSIBLE = [{"between": ["k1", "k2"], "rho": 0.9}, {"between": ["k2", "period"], "rho": 0.9},
+              {"between": ["k1", "period"], "rho": -0.9}]     # eigenvalues -0.56, 1.78, 1.78 (numpy.linalg.eigvalsh)
+
+
+@pytest.mark.parametrize("uncertainty", [{"method": "linear"}, {"method": "monte_carlo", "samples": 100, "seed": 1}])
+def test_correlations_no_inputs_can_have_are_refused_even_where_one_of_them_is_exact(client, uncertainty):
+    # k1 ~ k2 (0.9), k2 ~ P (0.9) and k1 ~ P (-0.9) is no correlation matrix at all (an eigenvalue of -0.56).  A
+    # batch refused it whole; the same system alone, with the period given exactly, was answered 200 (the
+    # contradiction was judged over the uncertain inputs only), so a system's answer depended on being alone.
+    assert np.linalg.eigvalsh(np.array([[1, .9, -.9], [.9, 1, .9], [-.9, .9, 1]]))[0] < -0.5
+    system = {"period": 41.6, "k1": {"value": 38.2, "sigma": 0.4}, "k2": {"value": 51.7, "sigma": 0.6},
+              "eccentricity": 0.31}
+    status, alone = post(client, "/v1/spectroscopic/sb2", {**system, "correlations": IMPOSSIBLE,
+                                                           "uncertainty": uncertainty})
+    batch_status, batch = post(client, "/v1/batch/sb2", {"systems": [system], "correlations": IMPOSSIBLE,
+                                                         "uncertainty": uncertainty})
+    assert (status, batch_status) == (422, 422)
+    assert list(alone["errors"]) == list(batch["errors"]) == ["correlations"]
+    # a possible matrix (determinant 1 - 0.81 - 0.09 = 0.1 > 0) with the same exact period is answered, its pairs with the period said to do nothing
+    status, fine = post(client, "/v1/spectroscopic/sb2", {**system, "uncertainty": uncertainty, "correlations": [
+        {"between": ["k1", "k2"], "rho": 0.9}, {"between": ["k2", "period"], "rho": 0.3}]})
+    assert status == 200 and "correlation_without_effect" in _codes(fine)
