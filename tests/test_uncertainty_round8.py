@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import optimize, stats
-from uncertainties import umath
+from uncertainties import correlation_matrix, ufloat, umath
 
 from tests.conftest import post
 from tests.engine_helpers import correlated_ufloats, split_normal
@@ -139,3 +139,227 @@ def test_correlations_no_inputs_can_have_are_refused_even_where_one_of_them_is_e
     status, fine = post(client, "/v1/spectroscopic/sb2", {**system, "uncertainty": uncertainty, "correlations": [
         {"between": ["k1", "k2"], "rho": 0.9}, {"between": ["k2", "period"], "rho": 0.3}]})
     assert status == 200 and "correlation_without_effect" in _codes(fine)
+
+
+# ----------------------------------------------------------------------------- linear, 4 correlated inputs
+GM_SUN = 1.3271244e20          # m^3 s^-2, IAU 2015 Resolution B3 nominal GM_sun (also astropy.constants.GM_sun)
+AU = 1.495978707e11            # m, IAU 2012 Resolution B2
+DAY = 86400.0
+SB1 = {"period": (41.6, 0.02), "k1": (23.4, 0.3), "eccentricity": (0.31, 0.01), "primary_mass": (1.9, 0.1),
+       "inclination": (71.0, 2.0)}
+
+
+def _sb1_reference(x):
+    """Hilditch (2001) ch. 2 with `uncertainties` values: f = P K^3 (1 - e^2)^{3/2} / (2 pi G); m2 the root of
+    (m2 sin i)^3 / (m1 + m2)^2 = f, to first order about the nominal root m2_0 by the implicit function theorem
+    (m2 = m2_0 - F(m2_0; f, m1, sin i) / F'(m2_0), exact in the derivatives); a = (G (m1 + m2) P^2 / 4 pi^2)^{1/3}."""
+    p, k, e, m1, s = (x["period"] * DAY, x["k1"] * 1e3, x["eccentricity"], x["primary_mass"],
+                      umath.sin(umath.radians(x["inclination"])))
+    f_sun = p * k ** 3 * (1 - e ** 2) ** 1.5 / (2 * np.pi * GM_SUN)
+    n = {key: v.nominal_value for key, v in (("f", f_sun), ("m1", m1), ("s", s))}
+    m2_0 = optimize.brentq(lambda m: (m * n["s"]) ** 3 / (n["m1"] + m) ** 2 - n["f"], 1e-6, 1e3, xtol=1e-15,
+                           rtol=1e-15)
+    slope = 3 * m2_0 ** 2 * n["s"] ** 3 / (n["m1"] + m2_0) ** 2 - 2 * (m2_0 * n["s"]) ** 3 / (n["m1"] + m2_0) ** 3
+    m2 = m2_0 - ((m2_0 * s) ** 3 / (m1 + m2_0) ** 2 - f_sun) / slope
+    a = (GM_SUN * (m1 + m2) * p ** 2 / (4 * np.pi ** 2)) ** (1 / 3) / AU
+    return {"mass_function": f_sun, "a1_sin_i": p * k * (1 - e ** 2) ** 0.5 / (2 * np.pi) / AU, "m2": m2,
+            "semimajor_axis": a}
+
+
+@pytest.mark.parametrize("rho", [
+    {("k1", "eccentricity"): 0.5, ("primary_mass", "inclination"): -0.4, ("period", "k1"): 0.2},
+    {("k1", "primary_mass"): 1.0, ("period", "inclination"): 0.3},
+    {("k1", "eccentricity"): -1.0, ("eccentricity", "primary_mass"): 1.0, ("k1", "primary_mass"): -1.0},
+])
+def test_sb1_with_primary_mass_and_inclination_and_correlations_up_to_one_against_uncertainties(client, rho):
+    # Linear J C J^T with four correlated inputs (rho = +-1 included: a singular C whose factor is not Cholesky's):
+    # sigmas, the output correlation matrix and the budget (its terms summing to the variance) against
+    # `uncertainties`.correlated_values through Hilditch's formulas.
+    body = {k: {"value": v, "sigma": s} for k, (v, s) in SB1.items()}
+    body.update(correlations=[{"between": list(p), "rho": r} for p, r in rho.items()], covariance=True, budget=True)
+    status, got = post(client, "/v1/spectroscopic/sb1", body)
+    assert status == 200
+    ref = _sb1_reference(correlated_ufloats(SB1, rho))
+    independent = {k: ufloat(v, sd) for k, (v, sd) in SB1.items()}
+    partials = _sb1_reference(independent)
+    for name, f in ref.items():
+        entry = got["results"][name]
+        assert entry["value"] == pytest.approx(f.nominal_value, rel=1e-9), name     # brentq to 1e-15
+        assert entry["sigma"] == pytest.approx(f.std_dev, rel=1e-6), name           # DESIGN: 1e-6 of uncertainties
+        assert sum(entry["budget"].values()) == pytest.approx(1.0, abs=1e-12), name
+        # the budget by hand from the partial derivatives of the same formulas on independent inputs:
+        # (df/dx_i s_i)^2 / var and 2 rho_ij (df/dx_i s_i)(df/dx_j s_j) / var, var = t R t
+        t = {i: partials[name].derivatives.get(independent[i], 0.0) * SB1[i][1] for i in SB1}
+        var = sum(v * v for v in t.values()) + sum(2 * r * t[a] * t[b] for (a, b), r in rho.items())
+        want = {**{i: t[i] ** 2 / var for i in SB1}, **{f"{a},{b}": 2 * r * t[a] * t[b] / var for (a, b), r in rho.items()}}
+        assert set(entry["budget"]) == set(want), name
+        for term, share in want.items():
+            assert entry["budget"][term] == pytest.approx(share, abs=1e-6), (name, term)
+    matrix = np.array(got["correlation"]["matrix"])
+    outputs = got["correlation"]["outputs"]
+    assert np.allclose(matrix, matrix.T, atol=0) and np.allclose(np.diag(matrix), 1.0, atol=0)
+    assert np.linalg.eigvalsh(matrix)[0] > -1e-12                     # positive semi-definite up to rounding
+    names = list(ref)
+    k = [outputs.index(n) for n in names]
+    np.testing.assert_allclose(matrix[np.ix_(k, k)], correlation_matrix([ref[n] for n in names]), atol=1e-6)
+
+
+# ----------------------------------------------------------------------------- split normals and truncation
+def _split_normal_cdf(x, mode, minus, plus):
+    """The split normal's CDF (Wallis 2014, Statistical Science 29, 106: each half a normal of its own width, weighted
+    by it) from scipy.stats.norm."""
+    total = minus + plus
+    return np.where(x < mode, 2 * minus / total * stats.norm.cdf((x - mode) / minus),
+                    minus / total + 2 * plus / total * (stats.norm.cdf((x - mode) / plus) - 0.5))
+
+
+def _split_normal_ppf(q, mode, minus, plus):
+    return optimize.brentq(lambda x: _split_normal_cdf(x, mode, minus, plus) - q, mode - 40 * minus,
+                           mode + 40 * plus, xtol=1e-13)
+
+
+@pytest.mark.parametrize("mode, minus, plus", [(48.3, 0.4, 1.2), (1.0, 0.8, 0.3), (0.5, 1.0, 1.0)])
+def test_split_normal_draws_truncated_to_the_domain_against_scipy(client, mode, minus, plus):
+    # A visual orbit's parallax output is its parallax input, so its summary is that of the input's draws: a split
+    # normal (mode at the value, median toward the wider side) cut to parallax > 0.  Rejected fraction against the
+    # split normal's mass below 0, median and interval against the quantiles of the truncated distribution.
+    draws = 4000
+    status, got = post(client, "/v1/astrometric/visual",
+                       {"period": 7305.0, "angular_semimajor_axis": 412.0,
+                        "parallax": {"value": mode, "sigma_minus": minus, "sigma_plus": plus},
+                        "uncertainty": {"method": "monte_carlo", "samples": draws, "seed": 5}})
+    assert status == 200
+    outside = float(_split_normal_cdf(0.0, mode, minus, plus))
+    # a binomial fraction: standard error sqrt(p (1 - p) / N) <= 0.0073 at N = 4000; 4.5 of them
+    assert got["uncertainty"]["rejected_fraction"] == pytest.approx(outside, abs=4.5 * np.sqrt(
+        max(outside, 1e-3) * (1 - outside) / draws) + 1e-12)
+    entry = got["results"]["parallax"]
+    kept = draws * (1 - outside)
+    for key, q in (("value", 0.5), ("low", LOW / 100), ("high", HIGH / 100)):
+        want = _split_normal_ppf(outside + q * (1 - outside), mode, minus, plus)
+        density = (_split_normal_cdf(want + 1e-6, mode, minus, plus) - _split_normal_cdf(want - 1e-6, mode, minus,
+                                                                                          plus)) / 2e-6 / (1 - outside)
+        # a quantile's standard error sqrt(q (1 - q) / N) / f(x_q) over the kept draws; 4.5 of them
+        assert entry[key] == pytest.approx(want, abs=4.5 * np.sqrt(q * (1 - q) / kept) / density), key
+    if mode > 20 * minus:      # untruncated: the median lies toward the wider side, above the mode
+        assert entry["value"] > mode
+
+
+def test_monte_carlo_correlation_of_truncated_correlated_split_normal_draws_is_numpys_corrcoef(client):
+    # Eccentricity 0.04 (-0.05, +0.08) correlated 0.6 with an asymmetric K1: 16 % of the draws fall below e = 0 and
+    # are dropped with their whole index; the summaries and the correlation matrix are numpy's on the kept draws of
+    # the documented model (numpy.corrcoef), the rejected fraction their count.
+    draws, seed = 4000, 9
+    given = {"period": (41.6, 0.02, 0.02), "k1": (23.4, 0.2, 0.5), "eccentricity": (0.04, 0.05, 0.08)}
+    r = np.eye(3)
+    r[1, 2] = r[2, 1] = 0.6
+    z = np.random.default_rng(seed).standard_normal((draws, 3)) @ np.linalg.cholesky(r).T
+    x = {n: (v + a * z[:, j] if a == b else split_normal(v, a, b, z[:, j])) for j, (n, (v, a, b)) in
+         enumerate(given.items())}
+    keep = (x["eccentricity"] >= 0) & (x["eccentricity"] < 1)
+    p, k, e = x["period"][keep] * DAY, x["k1"][keep] * 1e3, x["eccentricity"][keep]
+    ref = {"mass_function": p * k ** 3 * (1 - e ** 2) ** 1.5 / (2 * np.pi * GM_SUN),
+           "a1_sin_i": p * k * np.sqrt(1 - e ** 2) / (2 * np.pi) / AU}
+    body = {n: {"value": v, "sigma_minus": a, "sigma_plus": b} for n, (v, a, b) in given.items()}
+    body.update(correlations=[{"between": ["k1", "eccentricity"], "rho": 0.6}], covariance=True,
+                uncertainty={"method": "monte_carlo", "samples": draws, "seed": seed})
+    status, got = post(client, "/v1/spectroscopic/sb1", body)
+    assert status == 200
+    assert got["uncertainty"]["rejected_fraction"] == pytest.approx(1 - keep.mean(), abs=1e-15)
+    for name, y in ref.items():
+        # constants as written here (GM_sun, au) against astropy's in the service: the same to ~1e-9
+        np.testing.assert_allclose(_got(got["results"][name]), _summary(y), rtol=1e-8, err_msg=name)
+    assert got["correlation"]["outputs"] == list(ref)
+    np.testing.assert_allclose(got["correlation"]["matrix"], np.corrcoef(list(ref.values())), atol=1e-12)
+
+
+# ----------------------------------------------------------------------------- the user's own draws
+def test_a_correlated_posterior_in_other_units_keeps_its_pairing_and_covariance(client):
+    # K1 and K2 drawn correlated 0.9 (an SB2 fit's posterior), given in m/s and km/s, the period in years: the mass
+    # ratio's spread is that of the pairs (3.7e-3), not of independent draws (1.3e-2), and the output correlation is
+    # numpy.corrcoef of the formulas on the pairs; the same posterior with K2 reversed (the pairing broken) gives the
+    # independent spread.  150 draws: no few_draws warning (that is below 100); no budget (warned).
+    rng = np.random.default_rng(4)
+    s = 150
+    k = rng.multivariate_normal([38.2, 51.7], [[0.16, 0.9 * 0.24], [0.9 * 0.24, 0.36]], size=s)
+    period = 41.6 + 0.02 * rng.standard_normal(s)
+    e = 0.2 + 0.01 * rng.standard_normal(s)
+    bodies = [{"period": {"samples": list(period / 365.25), "unit": "yr"},
+               "k1": {"samples": list(k[:, 0] * 1000), "unit": "m/s"}, "k2": {"samples": list(k2)},
+               "eccentricity": {"samples": list(e)}, "covariance": True, "budget": True,
+               "units": {"a_sin_i": "km"}} for k2 in (k[:, 1], k[::-1, 1])]
+    spreads = []
+    for body, k2 in zip(bodies, (k[:, 1], k[::-1, 1])):
+        status, got = post(client, "/v1/spectroscopic/sb2", body)
+        spreads.append(got["results"]["mass_ratio"]["sigma"])
+        assert status == 200
+        assert {"budget_not_given", "few_draws"} & _codes(got) == {"budget_not_given"}
+        pp, k1 = period * DAY, k[:, 0] * 1e3
+        ref = {"mass_ratio": k1 / (k2 * 1e3), "a_sin_i": pp * (1 - e ** 2) ** 0.5 * (k1 + k2 * 1e3) / (2 * np.pi) / 1e3}
+        for name, y in ref.items():
+            np.testing.assert_allclose(_got(got["results"][name]), _summary(y), rtol=1e-12, err_msg=name)
+        outputs = got["correlation"]["outputs"]
+        kk = [outputs.index(n) for n in ref]
+        np.testing.assert_allclose(np.array(got["correlation"]["matrix"])[np.ix_(kk, kk)],
+                                   np.corrcoef(list(ref.values())), atol=1e-12)
+    assert spreads[0] < 0.5 * spreads[1]           # the pairs' correlation survives: 3.7e-3 against 1.3e-2
+
+
+# ----------------------------------------------------------------------------- reproducibility across shapes
+def test_seeded_monte_carlo_is_the_same_alone_in_rows_in_columns_and_in_arrow(client):
+    # Split normals, truncation (e = 0.05 +- 0.06 loses 20 % of its draws), a correlation and output units: each
+    # system's seeded answer alone is its answer in a rows batch, a columns batch and an Arrow table, to the bit.
+    import io
+    import json
+    import urllib.parse
+
+    import pyarrow as pa
+    mc = {"method": "monte_carlo", "samples": 300, "seed": 7}
+    options = {"uncertainty": mc, "correlations": [{"between": ["k1", "eccentricity"], "rho": -0.5}],
+               "units": {"a1_sin_i": "km", "m2": "kg"}}
+    systems = [{"period": {"value": 41.6, "sigma": 0.02}, "k1": {"value": 23.4, "sigma_minus": 0.3, "sigma_plus": 0.9},
+                "eccentricity": {"value": 0.05, "sigma": 0.06}, "primary_mass": {"value": 1.9, "sigma": 0.1},
+                "inclination": {"value": 71.0, "sigma": 2.0}},
+               {"period": {"value": 12.6, "sigma": 0.01}, "k1": {"value": 33.4, "sigma_minus": 0.5, "sigma_plus": 0.2},
+                "eccentricity": {"value": 0.5, "sigma": 0.3}, "primary_mass": {"value": 1.2, "sigma": 0.2},
+                "inclination": {"value": 40.0, "sigma": 5.0}}]
+    alone = [post(client, "/v1/spectroscopic/sb1", {**s, **options})[1] for s in systems]
+    rows = post(client, "/v1/batch/sb1", {"systems": systems, **options})[1]
+    columns = {name: {key: [s[name][key] for s in systems] for key in systems[0][name]} for name in systems[0]}
+    cols = post(client, "/v1/batch/sb1", {"columns": columns, **options})[1]
+    names, arrays = [], []
+    for name, parts in columns.items():
+        for key, values in parts.items():
+            names.append(name if key == "value" else f"{name}_{key}")
+            arrays.append(pa.array(values, pa.float64()))
+    table = pa.Table.from_arrays(arrays, names=names)
+    sink = io.BytesIO()
+    with pa.ipc.new_stream(sink, table.schema) as writer:
+        writer.write_table(table)
+    arrow = "application/vnd.apache.arrow.stream"
+    r = client.post("/v1/batch/sb1?options=" + urllib.parse.quote(json.dumps(options)), data=sink.getvalue(),
+                    headers={"Content-Type": arrow, "Accept": arrow})
+    assert r.status_code == 200
+    answer = pa.ipc.open_stream(r.data).read_all().to_pydict()
+    assert alone[0]["uncertainty"]["rejected_fraction"] > 0.1
+    keys = ("value", "sigma", "low", "high")
+    for i, single in enumerate(alone):
+        assert rows["results"][i]["uncertainty"]["rejected_fraction"] == single["uncertainty"]["rejected_fraction"]
+        assert cols["uncertainty"]["rejected_fraction"][i] == single["uncertainty"]["rejected_fraction"]
+        for name in ("mass_function", "m2", "a1_sin_i", "semimajor_axis"):
+            want = [single["results"][name][k] for k in keys]
+            assert [rows["results"][i]["results"][name][k] for k in keys] == want, (i, name)
+            assert [cols["columns"][name][k][i] for k in keys] == want, (i, name)
+            assert [answer[name + suffix][i] for suffix in ("", "_sigma", "_low", "_high")] == want, (i, name)
+
+
+def test_two_inputs_alike_are_drawn_independently(client):
+    # K1 = K2 = 40 +- 1 km/s: were they drawn from one variate the mass ratio would not spread at all; drawn
+    # independently its sigma is sqrt(2) / 40 = 0.0354 (to first order; 0.0357 with the second-order term of a
+    # ratio).  300 draws place a standard deviation within 1/sqrt(2 (N - 1)) = 4 % of itself; 5 of those.
+    status, got = post(client, "/v1/spectroscopic/sb2", {"period": 41.6, "k1": {"value": 40.0, "sigma": 1.0},
+                                                         "k2": {"value": 40.0, "sigma": 1.0}, "eccentricity": 0.2,
+                                                         "uncertainty": {"method": "monte_carlo", "samples": 300,
+                                                                         "seed": 3}})
+    assert status == 200
+    assert got["results"]["mass_ratio"]["sigma"] == pytest.approx(np.sqrt(2) / 40, rel=0.2)
