@@ -363,3 +363,25 @@ def test_two_inputs_alike_are_drawn_independently(client):
                                                                          "seed": 3}})
     assert status == 200
     assert got["results"]["mass_ratio"]["sigma"] == pytest.approx(np.sqrt(2) / 40, rel=0.2)
+
+
+@pytest.mark.parametrize("e, sigma", [(0.95, 0.1), (0.5, 0.5), (0.02, 0.3), (0.999, 0.01)])
+def test_eccentricity_draws_cut_at_zero_and_one_against_the_truncated_normal(client, e, sigma):
+    # The rejected fraction is the normal's mass outside 0 <= e < 1, Phi(-e/s) + Phi(-(1 - e)/s) (scipy.stats.norm),
+    # within 4.5 binomial standard errors; the median mass function is f at the median of the truncated normal
+    # (f falls monotonically with e on [0, 1)), checked distribution-free: it lies between f at the truncated
+    # normal's quantiles 0.5 -+ 4.5 sqrt(0.25 / N_kept) (scipy.stats.truncnorm), the order statistic's spread.
+    draws = 4000
+    status, got = post(client, "/v1/spectroscopic/sb1", {"period": 41.6, "k1": 23.4,
+                                                         "eccentricity": {"value": e, "sigma": sigma},
+                                                         "uncertainty": {"method": "monte_carlo", "samples": draws,
+                                                                         "seed": 2}})
+    assert status == 200
+    outside = stats.norm.cdf(-e / sigma) + stats.norm.sf((1 - e) / sigma)
+    rejected = got["uncertainty"]["rejected_fraction"]
+    assert rejected == pytest.approx(outside, abs=4.5 * np.sqrt(outside * (1 - outside) / draws))
+    assert "draws_rejected" in _codes(got)
+    spread = 4.5 * np.sqrt(0.25 / (draws * (1 - rejected)))
+    low_e, high_e = stats.truncnorm.ppf([0.5 - spread, 0.5 + spread], -e / sigma, (1 - e) / sigma, loc=e, scale=sigma)
+    f = 41.6 * DAY * 23.4e3 ** 3 / (2 * np.pi * GM_SUN) * (1 - np.array([high_e, low_e]) ** 2) ** 1.5
+    assert f[0] <= got["results"]["mass_function"]["value"] <= f[1]
