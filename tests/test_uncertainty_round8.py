@@ -385,3 +385,34 @@ def test_eccentricity_draws_cut_at_zero_and_one_against_the_truncated_normal(cli
     low_e, high_e = stats.truncnorm.ppf([0.5 - spread, 0.5 + spread], -e / sigma, (1 - e) / sigma, loc=e, scale=sigma)
     f = 41.6 * DAY * 23.4e3 ** 3 / (2 * np.pi * GM_SUN) * (1 - np.array([high_e, low_e]) ** 2) ** 1.5
     assert f[0] <= got["results"]["mass_function"]["value"] <= f[1]
+
+
+def test_campbell_elements_drawn_across_the_node_fold_are_numpy_on_continuous_branches(client):
+    # Node 1 +- 3 deg: a third of the draws fold to node ~ 179 deg with omega turned by 180 deg.  The service's
+    # medians, sigmas, intervals and correlation matrix are those of the draws on one continuous branch.  Reference:
+    # Heintz (1978): omega + node = atan2(B - F, A + G), omega - node = atan2(-B - F, A - G), each unwrapped about its
+    # nominal value (so neither folds), tan^2(i/2) = m / p, a = (p + m) / 2; numpy.percentile and numpy.corrcoef.
+    draws, seed, sigma = 3000, 3, 8.0
+    constants = _thiele_innes(300.0, 50.0, 100.0, 1.0)
+    status, got = post(client, "/v1/astrometric/campbell",
+                       {**{k: {"value": v, "sigma": sigma} for k, v in constants.items()}, "covariance": True,
+                        "uncertainty": {"method": "monte_carlo", "samples": draws, "seed": seed}})
+    assert status == 200
+    z = np.random.default_rng(seed).standard_normal((draws, 4))
+    a, b, f, g = (constants[k] + sigma * z[:, j] for j, k in enumerate("ABFG"))
+
+    def branch(y, y0):
+        return y0 + (y - y0 + np.pi) % (2 * np.pi) - np.pi
+    A, B, F, G = constants.values()
+    total = branch(np.arctan2(b - f, a + g), np.arctan2(B - F, A + G))
+    difference = branch(np.arctan2(-b - f, a - g), np.arctan2(-B - F, A - G))
+    p, m = np.hypot(a + g, b - f), np.hypot(a - g, b + f)
+    ref = {"angular_semimajor_axis": (p + m) / 2, "inclination": np.degrees(2 * np.arctan2(np.sqrt(m), np.sqrt(p))),
+           "omega": np.degrees((total + difference) / 2), "node": np.degrees((total - difference) / 2)}
+    assert np.mean(ref["node"] < 0) > 0.3          # the fold is crossed by a third of the draws
+    for name, y in ref.items():
+        np.testing.assert_allclose(_got(got["results"][name]), _summary(y), rtol=1e-12, atol=1e-12, err_msg=name)
+    outputs = got["correlation"]["outputs"]
+    k = [outputs.index(n) for n in ref]
+    np.testing.assert_allclose(np.array(got["correlation"]["matrix"])[np.ix_(k, k)], np.corrcoef(list(ref.values())),
+                               atol=1e-12)
