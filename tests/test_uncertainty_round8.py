@@ -98,6 +98,21 @@ def test_thiele_innes_constants_from_an_orbit_whose_angles_straddle_a_full_turn(
                                np.corrcoef([ref[n] for n in ref]), atol=1e-12)
 
 
+def test_posterior_samples_of_an_angle_across_a_full_turn_are_kept_whole(client):
+    # A fit's omega posterior about 359 deg (a sampler that does not wrap gives draws of 361 deg): 37 % of the
+    # pairs were dropped as out of domain.  Each draw is an angle: the answer is that of the same draws a turn back,
+    # and numpy's on the Thiele-Innes formulas (Heintz 1978) of every draw.
+    omega = 359.0 + 3.0 * np.random.default_rng(3).standard_normal(400)
+    answers = [post(client, "/v1/astrometric/thiele-innes",
+                    {"angular_semimajor_axis": 327.0, "inclination": 63.0, "node": 118.0,
+                     "omega": {"samples": list(draws)}})[1] for draws in (omega, omega - 360.0)]
+    ref = _thiele_innes(327.0, 63.0, omega, 118.0)
+    for got in answers:
+        assert got["uncertainty"]["rejected_fraction"] == 0.0
+        for name, y in ref.items():
+            np.testing.assert_allclose(_got(got["results"][name]), _summary(y), rtol=1e-12, err_msg=name)
+
+
 def test_linear_sigma_of_an_angle_near_a_full_turn_is_not_said_to_cross_a_domain(client):
     # Linear propagation at omega = 358 +- 5 deg: the sigmas match `uncertainties` as they did, but the answer
     # warned interval_crosses_domain ("consider the Monte Carlo method, which truncates draws to the domain"),
