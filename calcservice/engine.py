@@ -920,6 +920,8 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
                 warnings.append(_not_linear(name, undefined[k]))
         if options.covariance and not trail:         # over scalar outputs only: a series has no single value
             result.correlation = _correlation(list(given), _output_covariance(terms, r))   # (n, outputs, outputs)
+        elif options.covariance:
+            warnings.extend(_no_covariance(name) for name in given)
         if options.budget:
             result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
 
@@ -1056,6 +1058,11 @@ def _few_kept(s: int, where) -> Warning:
     return Warning("few_draws", f"fewer than {MIN_DRAWS} of the {s} Monte Carlo draws were kept (inside the inputs' "
                    "physical domains, with a finite result): the median, sigma and the 68.27 % interval (low, "
                    "high) are rough, and whether sigma exists (sigma_undefined) is not tested", where)
+
+
+def _no_covariance(name: str) -> Warning:
+    return Warning("covariance_not_given", "{subject}: no correlation with the other outputs is given for this output "
+                   "(a series output, a value at each point, as for the budget)", None, name)
 
 
 def _no_budget(name: str) -> Warning:
@@ -1343,6 +1350,8 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
         result.draws = kept
     if options.covariance and scalar:
         result.correlation = _draw_correlation(scalar, valid)
+    elif options.covariance and trail:
+        result.warnings.extend(_no_covariance(o.name) for o in calc.outputs if o.name in ys)
     if options.budget:
         result.budget = _monte_carlo_budget(calc, quantities, statics, options, draws, valid, ys, scalar,
                                             n, s, trail, result.warnings)

@@ -431,3 +431,19 @@ def test_campbell_elements_drawn_across_the_node_fold_are_numpy_on_continuous_br
     k = [outputs.index(n) for n in ref]
     np.testing.assert_allclose(np.array(got["correlation"]["matrix"])[np.ix_(k, k)], np.corrcoef(list(ref.values())),
                                atol=1e-12)
+
+
+# ----------------------------------------------------------------------------- an option never silently dropped
+@pytest.mark.parametrize("uncertainty", [{"method": "linear"}, {"method": "monte_carlo", "samples": 100, "seed": 1}])
+def test_covariance_asked_of_series_outputs_is_said_not_to_be_given(client, uncertainty):
+    # An ephemeris has series outputs only (a value at each time), which have no single correlation with each other:
+    # "covariance": true was answered without a correlation and without a word, where "budget": true beside it says
+    # budget_not_given.  Now a covariance_not_given warning names the outputs, as the budget's does.
+    body = {"period": {"value": 2037.4, "sigma": 1.2}, "eccentricity": {"value": 0.873, "sigma": 0.004},
+            "omega": {"value": 243.6, "sigma": 1.5}, "t_periastron": {"value": 2458712.3, "sigma": 0.8},
+            "k1": {"value": 61.2, "sigma": 1.1}, "times": [2460400.5, 2460500.5], "covariance": True,
+            "uncertainty": uncertainty}
+    status, got = post(client, "/v1/orbit/ephemeris", body)
+    assert status == 200 and "correlation" not in got
+    said = [w for w in got["warnings"] if w["code"] == "covariance_not_given"]
+    assert len(said) == 1 and said[0]["message"].startswith("phase, mean_anomaly, true_anomaly, separation, rv1")
