@@ -39,7 +39,7 @@ from typing import Any, Mapping
 import numpy as np
 from scipy.special import ndtr, ndtri
 
-from .registry import Calculation, Warning
+from .registry import ANY, Calculation, Warning
 
 ONE_SIGMA_LOW = float(ndtr(-1.0))    # 0.158655...
 ONE_SIGMA_HIGH = float(ndtr(1.0))    # 0.841344...
@@ -379,7 +379,8 @@ def plan(calc: Calculation, names: tuple[str, ...], perturbed: tuple[str, ...]) 
     """The compiled linear method of ``calc`` for inputs ``names`` of which ``perturbed`` are uncertain."""
     rows = np.array([names.index(name) for name in perturbed], dtype=np.intp)
     time = np.array([calc.input(name).time for name in perturbed], dtype=bool)[:, None]
-    doms = [calc.input(name).domain for name in perturbed]
+    # a cyclic input (an angle) has no edge: a step or a sigma beyond a full turn is the same angle
+    doms = [ANY if calc.input(name).period is not None else calc.input(name).domain for name in perturbed]
     low = np.array([np.nextafter(d.low, np.inf) if d.low_open else d.low for d in doms], dtype=float)[:, None]
     high = np.array([np.nextafter(d.high, -np.inf) if d.high_open else d.high for d in doms], dtype=float)[:, None]
     open_low = np.array([d.low if d.low_open else -np.inf for d in doms], dtype=float)[:, None]
@@ -919,6 +920,8 @@ def _linear(calc, quantities, statics, options, n, trail) -> Result:
                 warnings.append(_not_linear(name, undefined[k]))
         if options.covariance and not trail:         # over scalar outputs only: a series has no single value
             result.correlation = _correlation(list(given), _output_covariance(terms, r))   # (n, outputs, outputs)
+        elif options.covariance:
+            warnings.extend(_no_covariance(name) for name in given)
         if options.budget:
             result.budget = _linear_budget(given, perturbed, terms, var, r, trail, warnings)
 
@@ -1055,6 +1058,11 @@ def _few_kept(s: int, where) -> Warning:
     return Warning("few_draws", f"fewer than {MIN_DRAWS} of the {s} Monte Carlo draws were kept (inside the inputs' "
                    "physical domains, with a finite result): the median, sigma and the 68.27 % interval (low, "
                    "high) are rough, and whether sigma exists (sigma_undefined) is not tested", where)
+
+
+def _no_covariance(name: str) -> Warning:
+    return Warning("covariance_not_given", "{subject}: no correlation with the other outputs is given for this output "
+                   "(a series output, a value at each point, as for the budget)", None, name)
 
 
 def _no_budget(name: str) -> Warning:
@@ -1196,7 +1204,12 @@ def _run(calc, quantities, draws, statics, n, s, trail) -> tuple[dict[str, np.nd
     arrays = {}
     for name, q in quantities.items():
         d = draws[name]
-        inside = calc.input(name).domain.contains(d)
+        spec = calc.input(name)
+        inside = spec.domain.contains(d)
+        if spec.period is not None and not inside.all():
+            # a cyclic input (an angle) drawn past its range is the same angle a whole number of turns back
+            d = np.where(inside, d, spec.domain.low + np.mod(d - spec.domain.low, spec.period))
+            inside = spec.domain.contains(d)
         valid &= inside
         d = np.where(inside, d, np.nan)
         col0 = _broadcast(q.value, (n,))[:, None]
@@ -1337,6 +1350,8 @@ def _monte_carlo(calc, quantities, statics, options, n, trail) -> Result:
         result.draws = kept
     if options.covariance and scalar:
         result.correlation = _draw_correlation(scalar, valid)
+    elif options.covariance and trail:
+        result.warnings.extend(_no_covariance(o.name) for o in calc.outputs if o.name in ys)
     if options.budget:
         result.budget = _monte_carlo_budget(calc, quantities, statics, options, draws, valid, ys, scalar,
                                             n, s, trail, result.warnings)

@@ -157,7 +157,8 @@ COMPONENTS: dict[str, dict] = {
                               "negative. Monte Carlo: an estimate, or absent with a budget_not_given warning"},
     "OutputCorrelation": {"type": "object", "required": ["outputs", "matrix"],
                           "description": "with \"covariance\": true: the correlation matrix of the scalar outputs "
-                                         "that have a sigma (linear: from J Σ Jᵀ; Monte Carlo: from the draws)",
+                                         "that have a sigma (linear: from J Σ Jᵀ; Monte Carlo: from the draws); "
+                                         "absent for series outputs, with a covariance_not_given warning",
                           "properties": {"outputs": {"type": "array", "items": {"type": "string"}},
                                          "matrix": {"type": "array", "items": NULLABLE_NUMBERS}}},
     "Warning": {"type": "object", "required": ["code", "message"], "properties": {

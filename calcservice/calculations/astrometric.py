@@ -176,11 +176,11 @@ register(Calculation(
         Input("inclination", "deg", "orbital inclination (0 to 180 deg, above 90 deg retrograde)",
               CLOSED_INCLINATION, example=63.0),
         Input("omega", "deg", "argument of periastron of the relative orbit (give this or omega_primary)", ANGLE,
-              required=False, example=212.0),
+              required=False, example=212.0, period=360.0),
         Input("omega_primary", "deg", "argument of periastron of the primary's orbit, the spectroscopic omega "
               "(give this or omega); converted with omega = omega_primary + 180 deg", ANGLE, required=False,
-              example=32.0),
-        Input("node", "deg", "position angle of the ascending node", ANGLE, example=118.0),
+              example=32.0, period=360.0),
+        Input("node", "deg", "position angle of the ascending node", ANGLE, example=118.0, period=360.0),
     ),
     outputs=cited((
         Output("A", "mas", "Thiele–Innes constant A",

@@ -72,7 +72,7 @@ register(Calculation(
               required=False, example=0.0),
         Input("omega", "deg", "argument of periastron of the primary's orbit from the radial velocities "
               "(optional; returned as the relative orbit's omega to compare with the visual orbit)", ANGLE,
-              required=False, example=37.0),
+              required=False, example=37.0, period=360.0),
     ),
     outputs=cited((
         Output("parallax", "mas", "orbital parallax",

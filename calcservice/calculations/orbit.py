@@ -296,7 +296,7 @@ register(Calculation(
     inputs=(
         period(example=2037.4),
         eccentricity(example=0.873),
-        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=243.6),
+        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=243.6, period=360.0),
         Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", DATE, time=True,
               example=2458712.3),
         Input("k1", "km/s", "radial-velocity semi-amplitude of star 1 (the primary)", SPEED, example=61.2),
@@ -308,7 +308,8 @@ register(Calculation(
               required=False, example=11.8),
         Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, required=False,
               example=58.0),
-        Input("node", "deg", "position angle of the ascending node", ANGLE, required=False, example=112.0),
+        Input("node", "deg", "position angle of the ascending node", ANGLE, required=False, example=112.0,
+              period=360.0),
         Input("m1", "solMass", "mass of star 1 (with m2, for the physical separation)", POSITIVE, required=False,
               example=31.0),
         Input("m2", "solMass", "mass of star 2 (with m1, for the physical separation)", POSITIVE, required=False,
@@ -547,7 +548,7 @@ register(Calculation(
     inputs=(
         period(example=9.73),
         eccentricity(example=0.28),
-        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=61.0),
+        Input("omega", "deg", "argument of periastron of the primary's orbit", ANGLE, example=61.0, period=360.0),
         Input("t_periastron", "d", "a time of periastron passage (JD, or ISO 8601)", DATE, time=True,
               example=2460811.42),
         Input("inclination", "deg", "orbital inclination (0 < i < 180 deg)", INCLINATION, example=84.6),

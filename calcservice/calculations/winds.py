@@ -210,7 +210,7 @@ register(Calculation(
         Input("phase", "", "orbital phase (t - T_periastron)/P, 0 at periastron (needs an orbit)", ORBITAL_PHASE,
               required=False, example=0.1, period=1.0),
         Input("true_anomaly", "deg", "true anomaly, 0 at periastron (needs an orbit)", ANGLE, required=False,
-              example=120.0),
+              example=120.0, period=360.0),
         Input("mu1", "", "mean mass per particle of the shocked wind of star 1 in units of m_H (default: fully "
               "ionised solar gas; fully ionised helium is 1.33)", POSITIVE, required=False,
               default=phys.SOLAR_IONISED_MU, example=1.33),

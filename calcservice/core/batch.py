@@ -31,7 +31,7 @@ import numpy as np
 
 from ..columns import as_doubles, column_array, correlated_columns, meant, plain_number, uncertain_parts, unit_of
 from ..config import Limits
-from ..engine import EngineError, Measured, Result, correlation_matrix
+from ..engine import Measured, Result
 from ..registry import Calculation, Input
 from ..units import UnitError, factor
 from .parse import (Parsed, build, draws_monte_carlo, draws_per_system, find, load, options_of,
@@ -174,13 +174,8 @@ def shared_options(calc: Calculation, body: dict, limits: Limits, columns: bool 
             errors.setdefault(f"correlations.{k}.between", []).append(
                 f"{', '.join(map(repr, unknown))} is not a measured input of {calc.name}")
     if not errors:
-        # the rest as a single request states it (draws, pairs correlated twice), and the matrix whole
-        options = options_of(calc, data, dict.fromkeys(quantities), limits, errors)
-        if options.correlations and not errors:
-            try:
-                correlation_matrix(sorted({n for pair in options.correlations for n in pair}), options.correlations)
-            except EngineError as e:
-                errors.update(e.errors)
+        # the rest as a single request states it (draws, pairs correlated twice, the matrix whole)
+        options_of(calc, data, dict.fromkeys(quantities), limits, errors)
     if errors:
         raise invalid(errors)
     return Shared(raw, data, echo)

@@ -13,7 +13,7 @@ from marshmallow import ValidationError
 
 from ..columns import meant
 from ..config import Limits
-from ..engine import MIN_DRAWS, Measured, Options
+from ..engine import MIN_DRAWS, EngineError, Measured, Options, correlation_matrix
 from ..registry import Calculation, Input, calculations
 from ..units import UnitError, factor
 from .problems import Problem, invalid, too_large
@@ -268,6 +268,13 @@ def options_of(calc: Calculation, data: Mapping[str, Any], quantities: Mapping[s
         if key in correlations:
             errors.setdefault(f"correlations.{k}.between", []).append(f"{a} and {b} are correlated twice")
         correlations[key] = c["rho"]
+    if correlations and not errors:
+        # the matrix as stated, whichever of its inputs a system gives exactly: a set no inputs can have is
+        # refused alone as in a batch, not answered where an exact input happens to leave out its contradiction
+        try:
+            correlation_matrix(sorted({n for pair in correlations for n in pair}), correlations)
+        except EngineError as e:
+            errors.update(e.errors)
     return Options(method=method, samples=samples, samples_asked="samples" in unc, seed=unc.get("seed"),
                    correlations=correlations,
                    covariance=data.get("covariance", False), budget=data.get("budget", False))

@@ -85,8 +85,8 @@ def _name_draws_out_of_domain(parsed: Parsed, result: Result) -> None:
     at = np.array(rows)
     blamed: dict[str, np.ndarray] = {}
     for name, q in parsed.quantities.items():
-        if q.samples is not None or q.isotropic or not q.uncertain:
-            continue
+        if q.samples is not None or q.isotropic or not q.uncertain or parsed.calc.input(name).period is not None:
+            continue                    # a cyclic input's draws are brought into its range, never out of it
         domain = parsed.calc.input(name).domain
         pick = (lambda a: np.broadcast_to(a, (parsed.count,))[at])
         p = split_normal_within(pick(q.value), pick(q.sigma_minus), pick(q.sigma_plus), domain.low, domain.high)
