@@ -572,8 +572,9 @@ _RECIPE_CONSTRAINTS = (
 VINK_JUMP_HALF_WIDTH = 2.5e3
 
 
-def _out_of(x, low, high):
-    return (x < low) | (x > high)
+def _out_of(x, low, high, low_open=False):
+    """Where x is outside [low, high] (outside (low, high] with ``low_open``)."""
+    return ((x <= low) if low_open else (x < low)) | (x > high)
 
 
 def _recipe_check(inputs, outputs):
@@ -586,9 +587,11 @@ def _recipe_check(inputs, outputs):
         z = np.ones_like(teff) if z is None else z
         jump = phys.vink_jump_temperature(lum, inputs["mass"], z)
         hot = teff >= jump
-        for fit, low, high, which in ((hot, *phys.VINK_HOT_RANGE, "hot-side fit (their eq. 24)"),
-                                      (~hot, *phys.VINK_COOL_RANGE, "cool-side fit (their eq. 25)")):
-            bad = fit & _out_of(teff, low, high)
+        # eq. 24 holds for 27.5 kK < Teff <= 50 kK, eq. 25 for 12.5 kK <= Teff <= 22.5 kK: the hot side's lower bound
+        # is open
+        for fit, low, high, low_open, which in ((hot, *phys.VINK_HOT_RANGE, True, "hot-side fit (their eq. 24)"),
+                                                (~hot, *phys.VINK_COOL_RANGE, False, "cool-side fit (their eq. 25)")):
+            bad = fit & _out_of(teff, low, high, low_open)
             if np.any(bad):
                 out.append(Warning("vink_fit_out_of_range", f"teff is outside {low / 1e3:g}-{high / 1e3:g} kK, the "
                                    f"range of the Vink et al. (2001) {which} used at this temperature: the rate is "

@@ -484,7 +484,7 @@ VINK_ELECTRON_OPACITY = 0.325
 VINK_RATIO_HOT = 2.6
 VINK_RATIO_COOL = 1.3
 #: Teff ranges (K) of the model grids behind each fit (Vink, de Koter & Lamers 2001, eqs. 24-25; from memory):
-#: hot side 27.5-50 kK, cool side 12.5-22.5 kK; between them lies the bi-stability jump
+#: hot side 27.5 kK < Teff <= 50 kK (open below), cool side 12.5-22.5 kK (closed); between them lies the jump
 VINK_HOT_RANGE = (27.5e3, 50.0e3)
 VINK_COOL_RANGE = (12.5e3, 22.5e3)
 
