@@ -339,3 +339,28 @@ def test_orbital_parallax_of_sb2_and_visual_orbits(client, period, k1, k2, e, i,
     assert relative_error(r["distance"]["value"], 1000 * a / angular) < 1e-15
     assert relative_error(r["m1"]["value"], mass * k2 / (k1 + k2)) < 1.5e-15
     assert relative_error(r["m2"]["value"], mass * k1 / (k1 + k2)) < 1.5e-15
+
+
+# --------------------------------------------------------------------------- equal winds
+@pytest.mark.parametrize("mdot1, vinf1, mdot2, vinf2", [(7.5e-6, 3000, 2.25e-5, 1000), (8.2e-6, 7400, 6.068e-5, 1000),
+                                                        (5.6e-6, 3400, 1.904e-5, 1000)])
+def test_winds_of_equal_momentum_are_not_reported_swapped(client, mdot1, vinf1, mdot2, vinf2):
+    # Mdot1 v1 = Mdot2 v2 in the decimals given (7.5e-6 * 3000 = 2.25e-5 * 1000 = 0.0225), so eta = 1 exactly
+    # (Stevens, Blondin & Pollock 1992): the winds are equal, and neither is the stronger.  The four inputs rounded
+    # to doubles and the two products and their ratio rounded made eta 1 + 2.2e-16, and the answer warned
+    # roles_swapped ("star 2 has the stronger wind") over a difference the inputs do not carry.
+    exact = mp.mpf(mp.mpf(str(mdot2)) * vinf2 / (mp.mpf(str(mdot1)) * vinf1))
+    assert exact == 1
+    answer = _ok(client, "/v1/winds/collision", {"mdot1": mdot1, "mdot2": mdot2, "vinf1": vinf1, "vinf2": vinf2,
+                                                  "separation": 1.0})
+    assert "roles_swapped" not in _codes(answer)
+    assert relative_error(answer["results"]["momentum_ratio"]["value"], exact) < 5e-16
+    assert relative_error(answer["results"]["opening_half_angle_crw96"]["value"], 90) < 5e-16
+
+
+def test_a_second_wind_stronger_by_a_part_in_1e12_is_reported_swapped(client):
+    # eta = 1 + 1e-12, far above the roundings of the inputs: star 2's wind is the stronger, and the answer says so
+    answer = _ok(client, "/v1/winds/collision", {"mdot1": 1e-6, "mdot2": 1.000000000001e-6, "vinf1": 1000,
+                                                  "vinf2": 1000, "separation": 1.0})
+    assert "roles_swapped" in _codes(answer)
+    assert relative_error(answer["results"]["momentum_ratio"]["value"], 1 / mp.mpf("1.000000000001")) < 5e-16
