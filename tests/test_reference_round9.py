@@ -364,3 +364,19 @@ def test_a_second_wind_stronger_by_a_part_in_1e12_is_reported_swapped(client):
                                                   "vinf2": 1000, "separation": 1.0})
     assert "roles_swapped" in _codes(answer)
     assert relative_error(answer["results"]["momentum_ratio"]["value"], 1 / mp.mpf("1.000000000001")) < 5e-16
+
+
+# --------------------------------------------------------------------------- a temperature in Celsius
+def test_a_celsius_temperature_is_refused_for_what_it_is(client):
+    # astropy converts deg_C to K only with its temperature equivalency (T_K = T_C + 273.15): an offset, which no
+    # scale factor of a value and its sigma can carry.  The refusal said deg_C "cannot be converted to 'K' (a
+    # temperature unit, or an energy unit for kT, is needed)", as if deg_C were no temperature unit.
+    from astropy import units as u
+    assert (20 * u.deg_C).to_value(u.K, equivalencies=u.temperature()) == pytest.approx(293.15)   # astropy
+    body = {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700,
+            "temperature": {"value": 9726.85, "unit": "deg_C"}}
+    status, answer = post(client, "/v1/winds/mass-loss/radio", body)
+    assert status == 422
+    message = answer["errors"]["temperature"][0]
+    assert "zero is not 0 K" in message and "'K'" in message and "energy unit for kT" in message
+    assert "a temperature unit" not in message
