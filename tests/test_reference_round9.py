@@ -10,6 +10,8 @@ published validity."""
 
 from __future__ import annotations
 
+from fractions import Fraction
+
 import mpmath as mp
 import pytest
 from astropy import constants as ac
@@ -349,12 +351,12 @@ def test_winds_of_equal_momentum_are_not_reported_swapped(client, mdot1, vinf1, 
     # (Stevens, Blondin & Pollock 1992): the winds are equal, and neither is the stronger.  The four inputs rounded
     # to doubles and the two products and their ratio rounded made eta 1 + 2.2e-16, and the answer warned
     # roles_swapped ("star 2 has the stronger wind") over a difference the inputs do not carry.
-    exact = mp.mpf(mp.mpf(str(mdot2)) * vinf2 / (mp.mpf(str(mdot1)) * vinf1))
+    exact = Fraction(str(mdot2)) * vinf2 / (Fraction(str(mdot1)) * vinf1)
     assert exact == 1
     answer = _ok(client, "/v1/winds/collision", {"mdot1": mdot1, "mdot2": mdot2, "vinf1": vinf1, "vinf2": vinf2,
                                                   "separation": 1.0})
     assert "roles_swapped" not in _codes(answer)
-    assert relative_error(answer["results"]["momentum_ratio"]["value"], exact) < 5e-16
+    assert relative_error(answer["results"]["momentum_ratio"]["value"], 1) < 5e-16
     assert relative_error(answer["results"]["opening_half_angle_crw96"]["value"], 90) < 5e-16
 
 
@@ -380,3 +382,25 @@ def test_a_celsius_temperature_is_refused_for_what_it_is(client):
     message = answer["errors"]["temperature"][0]
     assert "zero is not 0 K" in message and "'K'" in message and "energy unit for kT" in message
     assert "a temperature unit" not in message
+
+
+@pytest.mark.parametrize("mdot1, vinf1, mdot2, vinf2", [(8.4e-4, 4900, 4.116e-7, 1000), (1e-5, 1000, 1e-9, 1000),
+                                                        (2e-6, 1000, 1e-10, 2000)])
+def test_a_momentum_ratio_of_exactly_1e_4_is_inside_the_eichler_usov_range(client, mdot1, vinf1, mdot2, vinf2):
+    # Eichler & Usov (1993) give their fit for 1e-4 <= eta <= 1, a closed range (# from memory).  8.4e-4 solMass/yr at
+    # 4900 km/s against 4.116e-7 at 1000 km/s is eta = 1e-4 exactly in the decimals given; the roundings made it
+    # 9.999999999999999e-05 and the answer warned eu93_out_of_range, inside the range (four pairs in ten of those
+    # sampled).
+    exact = Fraction(str(mdot2)) * vinf2 / (Fraction(str(mdot1)) * vinf1)
+    assert exact == Fraction(1, 10000)
+    answer = _ok(client, "/v1/winds/collision", {"mdot1": mdot1, "mdot2": mdot2, "vinf1": vinf1, "vinf2": vinf2,
+                                                  "separation": 1.0})
+    assert "eu93_out_of_range" not in _codes(answer)
+    assert relative_error(answer["results"]["momentum_ratio"]["value"], mp.mpf("1e-4")) < 5e-16
+
+
+def test_a_momentum_ratio_just_below_1e_4_is_outside_the_eichler_usov_range(client):
+    # eta = 0.99999999999 1e-4, far below the roundings of the inputs: outside the fit's range, and said so
+    answer = _ok(client, "/v1/winds/collision", {"mdot1": 1e-5, "mdot2": 0.99999999999e-9, "vinf1": 1000,
+                                                  "vinf2": 1000, "separation": 1.0})
+    assert "eu93_out_of_range" in _codes(answer)
