@@ -404,3 +404,13 @@ def test_a_momentum_ratio_just_below_1e_4_is_outside_the_eichler_usov_range(clie
     answer = _ok(client, "/v1/winds/collision", {"mdot1": 1e-5, "mdot2": 0.99999999999e-9, "vinf1": 1000,
                                                   "vinf2": 1000, "separation": 1.0})
     assert "eu93_out_of_range" in _codes(answer)
+
+
+@pytest.mark.parametrize("value, unit, warns", [(0.01, "", False), (0.01, "yr/yr", False), (315576, "s/yr", False),
+                                                (0.0100000001, "", True), (-0.0100000001, "", True)])
+def test_a_period_changing_by_exactly_one_percent_per_orbit_is_not_warned_faster(client, value, unit, warns):
+    # not_secular says "the period changes by more than 1 % of itself per orbit (|dP/dt| > 0.01)" (a rule of thumb,
+    # common practice).  dP/dt = 0.01 given as a pure number is held as 0.01 x 31557600 s/yr (astropy's Julian
+    # year) and read back as 0.010000000000000002: warned at exactly 1 %.
+    body = {"period": 6.3, "period_derivative": {"value": value, "unit": unit}, "m1": 27, "m2": 11, "mode": "jeans"}
+    assert ("not_secular" in _codes(_ok(client, "/v1/winds/mass-loss/period-change", body))) == warns

@@ -29,12 +29,12 @@ SOBERMAN_1997 = ("G. E. Soberman, E. S. Phinney & E. P. J. van den Heuvel (1997)
 POSITIVE_BELOW_ONE = Domain(0.0, 1.0, low_open=True)
 HALF_ANGLE = Domain(0.0, 90.0, low_open=True, high_open=True)
 EU93_LOWEST_ETA = 1.0e-4
-#: the relative error a momentum ratio (Mdot2 v2) / (Mdot1 v1) can carry from its four decimal inputs rounded to
-#: doubles (half a unit of 2^-52 each), its two products, its quotient and, with the roles swapped, its reciprocal
-#: (half a unit each): up to 4 units of 2^-52.  A ratio compared with an edge (1 for the stronger wind, 1e-4 for
-#: Eichler & Usov's range) is taken as on the edge within it, as its decimals put it (the ratio itself is
-#: min(eta, 1/eta) always)
-MOMENTUM_RATIO_ROUNDING = 4.0 * np.finfo(float).eps
+#: the relative error a number derived from a few decimal inputs can carry from their rounding to doubles and a few
+#: roundings of the arithmetic (half a unit of 2^-52 each): up to 4 units for a momentum ratio (Mdot2 v2) / (Mdot1 v1)
+#: with the roles swapped, 1.5 for a dP/dt given as a pure number and held in s/yr.  Such a number compared with an
+#: edge (1 for the stronger wind, 1e-4 for Eichler & Usov's range, 0.01 per orbit for a secular change) is taken as
+#: on the edge within it, where the decimals given put it (the outputs themselves are not changed)
+EDGE_ROUNDING = 4.0 * np.finfo(float).eps
 
 WIND_CONVENTIONS = {
     "momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1) with star 1 the stronger wind; when the inputs make eta > 1 "
@@ -105,13 +105,13 @@ _COLLISION_CONSTRAINTS = (
 def _collision_check(inputs, outputs):
     out = []
     raw = phys.momentum_ratio(inputs["mdot1"], inputs["vinf1"], inputs["mdot2"], inputs["vinf2"])
-    swapped = raw > 1.0 + MOMENTUM_RATIO_ROUNDING
+    swapped = raw > 1.0 + EDGE_ROUNDING
     if np.any(swapped):
         out.append(Warning("roles_swapped", "Mdot2 v2 > Mdot1 v1: star 2 has the stronger wind. momentum_ratio is "
                            "given as Mdot1 v1 / (Mdot2 v2) <= 1 and the shock cone wraps star 1; outputs numbered 1 "
                            "and 2 keep your numbering", swapped))
     eta = outputs["momentum_ratio"]
-    low = eta < EU93_LOWEST_ETA * (1.0 - MOMENTUM_RATIO_ROUNDING)
+    low = eta < EU93_LOWEST_ETA * (1.0 - EDGE_ROUNDING)
     if np.any(low):
         out.append(Warning("eu93_out_of_range", f"the momentum ratio is below {EU93_LOWEST_ETA:g}, outside the range "
                            "of the Eichler & Usov (1993) fit (1e-4 <= eta <= 1); prefer opening_half_angle_crw96",
@@ -378,7 +378,7 @@ def _period_change_check(inputs, outputs):
     out = []
     mode = inputs.get("mode")
     pdot = inputs["period_derivative"]
-    fast = np.abs(period_change_rate(pdot)) > phys.SECULAR_CHANGE_PER_ORBIT
+    fast = np.abs(period_change_rate(pdot)) > phys.SECULAR_CHANGE_PER_ORBIT * (1.0 + EDGE_ROUNDING)
     if np.any(fast):
         out.append(Warning("not_secular", "the period changes by more than 1 % of itself per orbit (|dP/dt| > 0.01): "
                            "every mode's relation is orbit-averaged and holds for a change slow against the orbit; "
