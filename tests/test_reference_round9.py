@@ -414,3 +414,23 @@ def test_a_period_changing_by_exactly_one_percent_per_orbit_is_not_warned_faster
     # year) and read back as 0.010000000000000002: warned at exactly 1 %.
     body = {"period": 6.3, "period_derivative": {"value": value, "unit": unit}, "m1": 27, "m2": 11, "mode": "jeans"}
     assert ("not_secular" in _codes(_ok(client, "/v1/winds/mass-loss/period-change", body))) == warns
+
+
+@pytest.mark.parametrize("metres_per_second, kilometres_per_second", [(519502, 519.502), (495186, 495.186),
+                                                                      (279268, 279.268)])
+def test_equal_semi_amplitudes_in_two_units_are_equal_masses(client, metres_per_second, kilometres_per_second):
+    # q = K1/K2 = 1 (Hilditch 2001, ch. 2) for K1 = 519502 m/s and K2 = 519.502 km/s; astropy's conversion, x 0.001,
+    # gives 519.5020000000001 km/s (checked here), so q came out 1.0000000000000002 and the answer warned
+    # primary_less_massive ("star 1 is the less massive star") for a pair of equal masses
+    from astropy import units as u
+    assert (metres_per_second * u.m / u.s).to_value(u.km / u.s) > kilometres_per_second        # astropy
+    answer = _ok(client, "/v1/spectroscopic/sb2", {"period": 10, "k1": {"value": metres_per_second, "unit": "m/s"},
+                                                    "k2": kilometres_per_second, "eccentricity": 0.1})
+    assert "primary_less_massive" not in _codes(answer)
+    assert relative_error(answer["results"]["mass_ratio"]["value"], 1) < 5e-16
+
+
+def test_a_primary_lighter_by_a_part_in_1e12_is_warned(client):
+    answer = _ok(client, "/v1/spectroscopic/sb2", {"period": 10, "k1": 45.300000000045, "k2": 45.3,
+                                                    "eccentricity": 0.1})
+    assert "primary_less_massive" in _codes(answer)

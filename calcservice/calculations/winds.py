@@ -5,7 +5,8 @@ import numpy as np
 from ..physics import winds as phys
 from ..physics.orbit import period_change_rate
 from ..registry import ANGLE, ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, with_speed_check
+from .common import (EDGE_ROUNDING, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited,
+                     with_speed_check)
 
 # a phase counts cycles from periastron: within 1e8 of them a double still resolves 1.5e-8 of a cycle, beyond
 # (1e17) the fraction that places the stars on the orbit is lost and the answer is that of phase 0
@@ -29,12 +30,6 @@ SOBERMAN_1997 = ("G. E. Soberman, E. S. Phinney & E. P. J. van den Heuvel (1997)
 POSITIVE_BELOW_ONE = Domain(0.0, 1.0, low_open=True)
 HALF_ANGLE = Domain(0.0, 90.0, low_open=True, high_open=True)
 EU93_LOWEST_ETA = 1.0e-4
-#: the relative error a number derived from a few decimal inputs can carry from their rounding to doubles and a few
-#: roundings of the arithmetic (half a unit of 2^-52 each): up to 4 units for a momentum ratio (Mdot2 v2) / (Mdot1 v1)
-#: with the roles swapped, 1.5 for a dP/dt given as a pure number and held in s/yr.  Such a number compared with an
-#: edge (1 for the stronger wind, 1e-4 for Eichler & Usov's range, 0.01 per orbit for a secular change) is taken as
-#: on the edge within it, where the decimals given put it (the outputs themselves are not changed)
-EDGE_ROUNDING = 4.0 * np.finfo(float).eps
 
 WIND_CONVENTIONS = {
     "momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1) with star 1 the stronger wind; when the inputs make eta > 1 "
