@@ -434,3 +434,37 @@ def test_a_primary_lighter_by_a_part_in_1e12_is_warned(client):
     answer = _ok(client, "/v1/spectroscopic/sb2", {"period": 10, "k1": 45.300000000045, "k2": 45.3,
                                                     "eccentricity": 0.1})
     assert "primary_less_massive" in _codes(answer)
+
+
+# --------------------------------------------------------------------------- shell forecast: dates through astropy
+@pytest.mark.parametrize("epoch, observed, time_format", [
+    (2457754.0, 2457755.0, None), (57753.5, 57754.5, "mjd"), (57753.123456789, 57754.987654321, "mjd"),
+    ("2016-12-31T12:00:00Z", "2017-01-01T12:00:00Z", None),           # across the leap second of 2016-12-31
+    ("2016-12-31T23:59:60Z", "2017-06-01T05:00:00+05:00", None)])
+def test_shell_ages_and_radii_against_astropy_time(client, epoch, observed, time_format):
+    # Ages t - (t0 + n P) in Julian years from astropy.time's UTC Julian Dates (jd1 + jd2 summed at 50 digits: a day
+    # holding a leap second counts 86401 s as one day, the documented iso convention), numbers as JD or MJD as the
+    # time_format says; theta = v age / D with 1 au/yr = 4.74047 km/s (IAU 2012 au, Julian year).  An ISO date is
+    # held as one JD double (2.3e-10 d of rounding): agreed to 5e-10 d in the age; numbers to 2e-16 relative.
+    from astropy.time import Time
+
+    def jd(x):
+        if isinstance(x, str):
+            t = Time(x.replace("Z", "").replace("+05:00", ""), scale="utc")
+            return mp.mpf(t.jd1) + mp.mpf(t.jd2) - (mp.mpf(5) / 24 if "+05:00" in x else 0)
+        return mp.mpf(str(x)) + (mp.mpf("2400000.5") if time_format == "mjd" else 0)
+
+    body = {"period": 1.0, "formation_epoch": epoch, "observation_date": observed, "expansion_speed": 1000,
+            "distance": 1000, "shells": [0, -3]}
+    if time_format:
+        body["time_format"] = time_format
+    series = _ok(client, "/v1/winds/shell-forecast", body)["results"]["series"]
+    for k, n in enumerate((0, -3)):
+        days = jd(observed) - jd(epoch) - n
+        age = days / mp.mpf("365.25")
+        angular = 1000 * mp.mpf(1000) * age / (AU / JULIAN_YEAR / 1000) / 1000
+        if isinstance(epoch, str):
+            assert abs(mp.mpf(series["age"]["value"][k]) * mp.mpf("365.25") - days) < 5e-10
+        else:
+            assert relative_error(series["age"]["value"][k], age) < 2e-16 + 1e-11 / days
+            assert relative_error(series["angular_radius"]["value"][k], angular) < 4e-16 + 1e-11 / days
