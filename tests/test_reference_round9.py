@@ -468,3 +468,14 @@ def test_shell_ages_and_radii_against_astropy_time(client, epoch, observed, time
         else:
             assert relative_error(series["age"]["value"][k], age) < 2e-16 + 1e-11 / days
             assert relative_error(series["angular_radius"]["value"][k], angular) < 4e-16 + 1e-11 / days
+
+
+def test_equal_semi_amplitudes_in_two_units_give_an_orbital_parallax_of_equal_masses(client):
+    # as test_equal_semi_amplitudes_in_two_units_are_equal_masses, for the combined orbit (q = K1/K2 = 1)
+    body = {"period": 100, "k1": {"value": 519502, "unit": "m/s"}, "k2": 519.502, "eccentricity": 0.3,
+            "inclination": 60, "angular_semimajor_axis": 20}
+    answer = _ok(client, "/v1/combined/orbital-parallax", body)
+    assert "primary_less_massive" not in _codes(answer)
+    assert relative_error(answer["results"]["mass_ratio"]["value"], 1) < 5e-16
+    body["k1"] = 519.502000001
+    assert "primary_less_massive" in _codes(_ok(client, "/v1/combined/orbital-parallax", body))
