@@ -479,3 +479,15 @@ def test_equal_semi_amplitudes_in_two_units_give_an_orbital_parallax_of_equal_ma
     assert relative_error(answer["results"]["mass_ratio"]["value"], 1) < 5e-16
     body["k1"] = 519.502000001
     assert "primary_less_massive" in _codes(_ok(client, "/v1/combined/orbital-parallax", body))
+
+
+@pytest.mark.parametrize("frequency, warns", [({"value": 1e12, "unit": "Hz"}, False),
+                                              ({"value": 1, "unit": "THz"}, False),
+                                              ({"value": 1.000000001e12, "unit": "Hz"}, True)])
+def test_a_frequency_of_1000_ghz_in_hertz_is_not_beyond_the_gaunt_factors_range(client, frequency, warns):
+    # gaunt_factor_out_of_range warns "frequency above 1000 GHz"; 1e12 Hz is 1000 GHz, which astropy's conversion
+    # (x 1e-9, checked here) makes 1000.0000000000001
+    from astropy import units as u
+    assert (1e12 * u.Hz).to_value(u.GHz) > 1000                                                  # astropy
+    body = {"flux_density": 1.8, "frequency": frequency, "distance": 2.1, "vinf": 1700}
+    assert ("gaunt_factor_out_of_range" in _codes(_ok(client, "/v1/winds/mass-loss/radio", body))) == warns

@@ -289,7 +289,8 @@ def _radio_check(inputs, outputs):
                                "observe at a lower frequency)", close))
     g = outputs.get("gaunt_factor")
     if g is not None:
-        bad = (g < 1.0) | (inputs["frequency"] > 1000.0)
+        # 1e12 Hz is 1000 GHz, though astropy's conversion (x 1e-9) gives 1000.0000000000001
+        bad = (g < 1.0) | (inputs["frequency"] > 1000.0 * (1.0 + EDGE_ROUNDING))
         if np.any(bad):
             out.append(Warning("gaunt_factor_out_of_range", "the radio approximation of the Gaunt factor (Leitherer "
                                "& Robert 1991) fails towards the far infrared (frequency above 1000 GHz or g < 1): "
