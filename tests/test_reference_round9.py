@@ -491,3 +491,74 @@ def test_a_frequency_of_1000_ghz_in_hertz_is_not_beyond_the_gaunt_factors_range(
     assert (1e12 * u.Hz).to_value(u.GHz) > 1000                                                  # astropy
     body = {"flux_density": 1.8, "frequency": frequency, "distance": 2.1, "vinf": 1700}
     assert ("gaunt_factor_out_of_range" in _codes(_ok(client, "/v1/winds/mass-loss/radio", body))) == warns
+
+
+# --------------------------------------------------------------------------- sb2 at extreme q and e, in other units
+@pytest.mark.parametrize("period, k1, k2, e, inclination", [
+    (10, 1e-6, 100, 0.0, 90), (10, 100, 1e-6, 0.5, 90), (1e4, 30, 30, 1 - 1e-12, 30), (0.01, 500, 400, 1e-12, 0.001),
+    (3.5, {"value": 80000, "unit": "m/s"}, {"value": 0.1, "unit": "km/s"}, 0.999999, {"value": 1.2, "unit": "rad"}),
+    ({"value": 3e6, "unit": "s"}, 40, 60, 0.3, {"value": 300000, "unit": "arcsec"})])
+def test_sb2_at_extreme_mass_ratios_and_eccentricities(client, period, k1, k2, e, inclination):
+    # Hilditch (2001), ch. 2: a_j sin i = K_j P (1 - e^2)^{1/2} / (2 pi), M_1,2 sin^3 i = P (K1 + K2)^2 K_2,1
+    # (1 - e^2)^{3/2} / (2 pi G), with GM_sun; units through their definitions (astropy's).  Agreed to 4.4e-16.
+    def value(x, scale):
+        return mp.mpf(x["value"]) * scale[x["unit"]] if isinstance(x, dict) else mp.mpf(x) * scale[None]
+    seconds = value(period, {None: DAY, "s": 1})
+    speeds = [value(k, {None: 1000, "m/s": 1, "km/s": 1000}) for k in (k1, k2)]
+    sin_i = mp.sin(value(inclination, {None: mp.pi / 180, "rad": 1, "arcsec": mp.pi / 648000}))
+    e = mp.mpf(e)
+    root = mp.sqrt(1 - e ** 2)
+    a1, a2 = (k * seconds * root / (2 * mp.pi) for k in speeds)
+    m1 = seconds * (speeds[0] + speeds[1]) ** 2 * speeds[1] * root ** 3 / (2 * mp.pi * GM_SUN)
+    m2 = m1 * speeds[0] / speeds[1]
+    a = (a1 + a2) / sin_i / AU
+    expected = {"mass_ratio": speeds[0] / speeds[1], "m1_sin3i": m1, "m2_sin3i": m2, "a_sin_i": (a1 + a2) / AU,
+                "a1_sin_i": a1 / AU, "a2_sin_i": a2 / AU, "m1": m1 / sin_i ** 3, "m2": m2 / sin_i ** 3,
+                "semimajor_axis": a, "periastron_distance": a * (1 - e), "apastron_distance": a * (1 + e)}
+    r = _ok(client, "/v1/spectroscopic/sb2", {"period": period, "k1": k1, "k2": k2, "eccentricity": float(e),
+                                               "inclination": inclination})["results"]
+    for name, reference in expected.items():
+        assert relative_error(r[name]["value"], reference) < 1.5e-15, name
+
+
+# --------------------------------------------------------------------------- colliding winds around an orbit
+@pytest.mark.parametrize("e, phase, period, m1, m2", [(0.64, 0.1, 2950, 18, 24), (0.9, 0.49, 2000, 30, 20),
+                                                      (0.0, 0.3, 100, 10, 10), (0.99, -0.001, 5000, 40, 30),
+                                                      (0.5, 3.75, 100, 1, 1)])
+def test_collision_around_an_orbit_at_a_phase(client, e, phase, period, m1, m2):
+    # Kepler's equation M = E - e sin E solved by mpmath's root finder at M = 2 pi (phase - nearest whole number),
+    # r = a (1 - e cos E), tan(nu/2) = ((1 + e)/(1 - e))^{1/2} tan(E/2); a by Kepler's third law with GM_sun
+    # (Hilditch 2001); r1 = r / (1 + eta^{1/2}) (Stevens, Blondin & Pollock 1992).  Agreed to 3.3e-16 in r and
+    # 1.7e-14 deg in nu.
+    body = {"mdot1": 2.4e-5, "mdot2": 1.1e-6, "vinf1": 2300, "vinf2": 1900, "eccentricity": e, "period": period,
+            "m1": m1, "m2": m2, "phase": phase}
+    r = _ok(client, "/v1/winds/collision", body)["results"]
+    e = mp.mpf(e)
+    a = (GM_SUN * (m1 + m2) * (mp.mpf(period) * DAY) ** 2 / (4 * mp.pi ** 2)) ** (mp.mpf(1) / 3) / AU
+    mean = 2 * mp.pi * (mp.mpf(phase) - mp.nint(phase))
+    big_e = mp.findroot(lambda x: x - e * mp.sin(x) - mean, mean)
+    separation = a * (1 - e * mp.cos(big_e))
+    nu = mp.degrees(2 * mp.atan2(mp.sqrt(1 + e) * mp.sin(big_e / 2), mp.sqrt(1 - e) * mp.cos(big_e / 2))) % 360
+    eta = mp.mpf(1.1e-6) * 1900 / (mp.mpf(2.4e-5) * 2300)
+    assert relative_error(r["semimajor_axis"]["value"], a) < 1e-15
+    assert relative_error(r["separation"]["value"], separation) < 1e-15
+    assert _angle_apart(r["true_anomaly"]["value"], nu) < 3e-14
+    assert relative_error(r["stagnation_distance1"]["value"], separation / (1 + mp.sqrt(eta))) < 1e-15
+    assert relative_error(r["stagnation_distance1_apastron"]["value"], a * (1 + e) / (1 + mp.sqrt(eta))) < 1e-15
+
+
+def test_radio_photosphere_against_the_free_free_optical_depth(client):
+    # tau(p) = pi C / (2 p^3), C = 0.018 T^{-3/2} Z^2 gamma g nu^{-2} (Mdot / (4 pi v mu m_H))^2 (Rybicki & Lightman
+    # 1979, eq. 5.19b; Wright & Barlow 1975), M_sun = GM_sun / G (IAU 2015 B3, CODATA G via astropy), cgs.
+    # Agreed to 3.7e-16.
+    body = {"flux_density": 0.3, "frequency": 43, "distance": 1.5, "vinf": 2500, "mu": 1.4, "z_rms": 1.1,
+            "gamma_e": 1.05, "temperature": 3e4, "stellar_radius": 20}
+    r = _ok(client, "/v1/winds/mass-loss/radio", body)["results"]
+    mu, z, gamma, temperature, nu = mp.mpf(1.4), mp.mpf(1.1), mp.mpf(1.05), mp.mpf(3e4), mp.mpf(43e9)
+    rate, gaunt = _wright_barlow(0.3, 43, 1.5, 2500, mu, z, gamma, temperature)
+    grams_per_second = rate * GM_SUN / mp.mpf(ac.G.si.value) * 1000 / JULIAN_YEAR
+    n_r2 = grams_per_second / (4 * mp.pi * 2500e5 * mu * M_H * 1000)
+    c = mp.mpf("0.018") * temperature ** -1.5 * z ** 2 * gamma * n_r2 ** 2 * gaunt / nu ** 2
+    radius = mp.cbrt(mp.pi * c / 2) / (R_SUN * 100)
+    assert relative_error(r["radio_photosphere_radius"]["value"], radius) < 1e-15
+    assert relative_error(r["radio_photosphere_stellar_radii"]["value"], radius / 20) < 1e-15
