@@ -562,3 +562,39 @@ def test_radio_photosphere_against_the_free_free_optical_depth(client):
     radius = mp.cbrt(mp.pi * c / 2) / (R_SUN * 100)
     assert relative_error(r["radio_photosphere_radius"]["value"], radius) < 1e-15
     assert relative_error(r["radio_photosphere_stellar_radii"]["value"], radius / 20) < 1e-15
+
+
+# --------------------------------------------------------------------------- the widest cones, both ways
+@pytest.mark.parametrize("eta", [0.99, 0.999, 0.9999999, 1.0])
+def test_an_eichler_usov_angle_of_a_wind_ratio_near_one_inverts_back(client, eta):
+    # Eichler & Usov (1993): theta = 2.1 (1 - eta^{2/5} / 4) eta^{1/3} rises to 2.1 x 3/4 rad = 90.24 deg at eta = 1,
+    # and the collision gives that angle; the inversion refused every angle from 90 deg (eta = 0.9868) up, so the
+    # collision's own answer for eta > 0.9868 could not be taken back to eta.  Agreed to 3.3e-16.
+    theta = mp.degrees(2.1 * (1 - mp.mpf(eta) ** mp.mpf(0.4) / 4) * mp.cbrt(mp.mpf(eta)))
+    body = {"mdot1": 1e-6, "mdot2": eta * 1e-6, "vinf1": 1000, "vinf2": 1000, "separation": 1.0}
+    angle = _ok(client, "/v1/winds/collision", body)["results"]["opening_half_angle_eu93"]["value"]
+    assert relative_error(angle, theta) < 5e-16
+    back = _ok(client, "/v1/winds/mass-loss/momentum-ratio", {"opening_half_angle": angle, "mdot1": 1e-6,
+                                                               "opening_angle_formula": "eu93", "vinf1": 1000,
+                                                               "vinf2": 1000})
+    assert abs(back["results"]["momentum_ratio"]["value"] - eta) < 1e-15
+    assert not {"star2_stronger", "eu93_out_of_range"} & _codes(back)
+
+
+@pytest.mark.parametrize("degrees", [90.0, 90.1, 90.24085273310467])
+def test_canto_raga_wilkin_at_and_beyond_a_plane_shock(client, degrees):
+    # Cantó, Raga & Wilkin (1996), eq. 28: eta = c / (pi + c), c = tan psi - psi; psi = 90 deg is the plane shock of
+    # equal winds, eta = 1 exactly (refused before, as the domain was open at 90 deg); beyond it the cone about
+    # star 2 is wider than a plane and star 2 the stronger: the same eq. 28 with the roles swapped, eta > 1, warned.
+    psi = mp.radians(mp.mpf(degrees))
+    eta = mp.mpf(1) if degrees == 90.0 else (mp.tan(psi) - psi) / (mp.pi + mp.tan(psi) - psi)
+    answer = _ok(client, "/v1/winds/mass-loss/momentum-ratio", {"opening_half_angle": degrees, "mdot1": 1e-6,
+                                                                 "vinf1": 1000, "vinf2": 1000})
+    assert relative_error(answer["results"]["momentum_ratio"]["value"], eta) < 1e-15
+    assert ("star2_stronger" in _codes(answer)) == (degrees > 90)
+
+
+def test_a_half_angle_beyond_the_widest_eichler_usov_cone_is_refused_naming_the_bound(client):
+    status, answer = post(client, "/v1/winds/mass-loss/momentum-ratio", {"opening_half_angle": 90.2409, "mdot1": 1e-6,
+                                                                         "vinf1": 1000, "vinf2": 1000})
+    assert status == 422 and "90.24085273310467 deg" in answer["errors"]["opening_half_angle"][0]

@@ -28,7 +28,20 @@ SOBERMAN_1997 = ("G. E. Soberman, E. S. Phinney & E. P. J. van den Heuvel (1997)
                  "for mass transfer; isotropic re-emission)")
 
 POSITIVE_BELOW_ONE = Domain(0.0, 1.0, low_open=True)
-HALF_ANGLE = Domain(0.0, 90.0, low_open=True, high_open=True)
+class HalfAngleDomain(Domain):
+    """A measured half-opening angle, its upper bound said in full and what it is (not rounded to 6 digits)."""
+
+    def describe(self, unit: str = "deg") -> str:
+        return (f"must be > 0 and <= {self.high!r} {unit} (2.1 x 3/4 rad, the widest cone of the Eichler & Usov "
+                "(1993) fit, at eta = 1)")
+
+    def message(self, unit: str = "") -> str:
+        return self.describe(unit or "deg")
+
+
+#: a measured half-opening angle: up to the widest cone of the Eichler & Usov (1993) fit, 2.1 x 3/4 rad (90.24 deg,
+#: eta = 1), which the collision gives for eta near 1; Cantó, Raga & Wilkin (1996) have eta = 1 at 90 deg
+HALF_ANGLE = HalfAngleDomain(0.0, float(np.degrees(phys.EICHLER_USOV_WIDEST)), low_open=True)
 EU93_LOWEST_ETA = 1.0e-4
 
 WIND_CONVENTIONS = {
@@ -506,8 +519,10 @@ register(Calculation(
     function=phys.mass_loss_from_momentum_ratio,
     references=(EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, STEVENS_1992),
     conventions={k: WIND_CONVENTIONS[k] for k in ("winds", "opening_half_angle", "mass_loss_rate")}
-    | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle always gives "
-                         "eta <= 1, the cone wrapping star 2"}
+    | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle gives eta <= 1, "
+                         "the cone wrapping star 2, up to 90 deg (crw96, a plane shock at eta = 1) or 2.1 x 3/4 rad = "
+                         "90.24 deg (eu93, its widest cone, at eta = 1); crw96 beyond 90 deg gives eta > 1 (star 2 the "
+                         "stronger, warned)"}
     | {"symbols": SYMBOLS["mass-loss-momentum-ratio"]},
     exclusive=(("momentum_ratio", "opening_half_angle"), ("mdot1", "mdot2")),
     check=with_speed_check(_momentum_check, ("vinf1", "vinf2")),

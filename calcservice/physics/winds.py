@@ -122,6 +122,10 @@ def opening_half_angle_canto_raga_wilkin(eta, iterations=64):
     return np.where(np.isfinite(eta) & (eta >= 0.0), psi, np.nan)
 
 
+#: the widest half-angle of the Eichler & Usov (1993) fit, 2.1 x 3/4 rad (90.24 deg), at eta = 1
+EICHLER_USOV_WIDEST = 2.1 * 0.75
+
+
 def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
     """Invert Eichler & Usov (1993): the eta <= 1 whose half-opening angle is ``half_angle`` (rad).
 
@@ -135,6 +139,8 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
     (1 - eta^{2/5} / 4) lies in [1/5, 1/3]: eta to a few roundings (u^15 alone was 3e-15 off at small cones).
     """
     target = np.asarray(half_angle, dtype=float) / 2.1
+    # the widest angle, given in degrees (90.24085273310467), comes back as 0.7500000000000001 of 2.1 rad
+    target = np.where((target > 0.75) & (target <= 0.75 * (1.0 + 4.0 * np.finfo(float).eps)), 0.75, target)
     lo = target ** 0.2
     hi = np.minimum(1.0, (target / 0.75) ** 0.2)
     for _ in range(iterations):
@@ -157,12 +163,16 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
 def momentum_ratio_from_canto_raga_wilkin(half_angle):
     """Invert Cantó, Raga & Wilkin (1996) in closed form: with c = tan(psi) - psi, eta = c / (pi + c).
 
-    ``half_angle`` psi in radians, 0 <= psi < pi/2.
+    ``half_angle`` psi in radians, 0 <= psi < pi.  psi = pi/2 (a plane shock) is eta = 1.  Beyond it the cone
+    about star 2 opens wider than a plane: star 2 has the stronger wind, and their eq. 28 for the roles swapped,
+    tan(psi1) - psi1 = pi / (eta - 1) about star 1 with psi1 = pi - psi, is again eta = c / (pi + c) (c < -pi there).
     """
     psi = np.asarray(half_angle, dtype=float)
-    c = _tan_minus_angle(psi)
-    ok = (psi >= 0.0) & (psi < _HALF_PI)
-    return np.where(ok, c / (_PI + c), np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        c = _tan_minus_angle(psi)
+        eta = np.where(psi == _HALF_PI, 1.0, c / (_PI + c))
+    ok = (psi >= 0.0) & (psi < _PI)
+    return np.where(ok, eta, np.nan)
 
 
 def cooling_parameter(vinf, distance_au, mdot):
