@@ -598,3 +598,22 @@ def test_a_half_angle_beyond_the_widest_eichler_usov_cone_is_refused_naming_the_
     status, answer = post(client, "/v1/winds/mass-loss/momentum-ratio", {"opening_half_angle": 90.2409, "mdot1": 1e-6,
                                                                          "vinf1": 1000, "vinf2": 1000})
     assert status == 422 and "90.24085273310467 deg" in answer["errors"]["opening_half_angle"][0]
+
+
+@pytest.mark.parametrize("epoch, period, shell, observed", [(2459453.1, 5191.3, 4, 2480218.3),
+                                                            (2450000.5, 3120.7, 1, 2453121.2),
+                                                            (2457310.0, 2950.3, -2, 2451409.4)])
+def test_a_shell_formed_at_the_observation_date_has_radius_zero(client, epoch, period, shell, observed):
+    # shell n forms at t0 + n P: observed = t0 + n P in the decimals given (2459453.1 + 4 x 5191.3 = 2480218.3), so the
+    # shell is formed, of age and radius 0 (to the roundings of the dates to doubles, 5e-10 d, and never below 0).
+    # t0 + n P summed in doubles lay above the observation date's double and the request was refused ("every listed
+    # shell must have formed by observation_date"): one in ten sampled.
+    assert Fraction(str(epoch)) + shell * Fraction(str(period)) == Fraction(str(observed))
+    body = {"period": period, "formation_epoch": epoch, "observation_date": observed, "expansion_speed": 1000,
+            "distance": 1000, "shells": [shell - 1, shell]}
+    series = _ok(client, "/v1/winds/shell-forecast", body)["results"]["series"]
+    assert 0.0 <= series["age"]["value"][1] * 365.25 < 5e-10 and series["angular_radius"]["value"][1] >= 0.0
+    assert relative_error(series["age"]["value"][0], mp.mpf(str(period)) / mp.mpf("365.25")) < 1e-9
+    body["observation_date"] = observed - 1e-6         # a tenth of a second before it formed: refused
+    status, answer = post(client, "/v1/winds/shell-forecast", body)
+    assert status == 422 and "shells" in answer["errors"]

@@ -735,7 +735,9 @@ def _shells_formed(shells=None, period=None, formation_epoch=None, observation_d
     if shells is None or period is None or formation_epoch is None or observation_date is None:
         return _rows(True)
     last = np.max(shells)
-    return np.asarray(observation_date) >= np.asarray(formation_epoch) + last * np.asarray(period)
+    # the physics' own age: a shell formed at the observation date (age 0 in the decimals given) is formed by then
+    return phys.shell_age_days(np.asarray(period), np.asarray(formation_epoch), np.asarray(observation_date),
+                               last) >= 0.0
 
 
 def _shells_dated(shells=None, period=None, formation_epoch=None, **_):

@@ -610,6 +610,19 @@ def shell_distance(period, shell_spacing, expansion_speed=None, distance=None, p
     return {"distance": distance, "parallax": 1.0e3 / distance, "expansion_speed": speed}
 
 
+def shell_age_days(period, formation_epoch, observation_date, shells):
+    """Days since shell n formed, t - (t0 + n P), from the exact t - t0 and n P (:func:`.exact.elapsed`).
+
+    A shell that forms at the observation date in the decimals given (age 0) can come out below 0 by the rounding of
+    t, t0 and P to doubles (half a unit of 2^-52 of each of t, t0 and n P): within 4 units of their sizes the age is
+    0, so that such a shell is one formed by then, of radius 0.
+    """
+    _n, age = elapsed(observation_date, formation_epoch, period, shells)
+    slack = 4.0 * np.finfo(float).eps * (np.abs(observation_date) + np.abs(formation_epoch)
+                                         + np.abs(np.multiply(shells, period)))
+    return np.where((age < 0.0) & (age >= -slack), 0.0, age)
+
+
 def shell_forecast(period, formation_epoch, expansion_speed, observation_date, shells, distance=None, parallax=None,
                    **_):
     """Angular radius at ``observation_date`` of each shell made once per orbit: the inverse of :func:`shell_distance`.
@@ -622,7 +635,6 @@ def shell_forecast(period, formation_epoch, expansion_speed, observation_date, s
     rounded to a Julian Date first loses 1e-12 of a 100-day age.
     """
     d = distance if distance is not None else 1.0e3 / parallax
-    _n, age = elapsed(observation_date, formation_epoch, period, shells)
-    years = age / DAYS_PER_JULIAN_YEAR
+    years = shell_age_days(period, formation_epoch, observation_date, shells) / DAYS_PER_JULIAN_YEAR
     radius = expansion_speed * years / KM_S_PER_AU_PER_YEAR
     return {"angular_radius": 1.0e3 * radius / d, "radius": radius, "age": years}
