@@ -617,3 +617,65 @@ def test_a_shell_formed_at_the_observation_date_has_radius_zero(client, epoch, p
     body["observation_date"] = observed - 1e-6         # a tenth of a second before it formed: refused
     status, answer = post(client, "/v1/winds/shell-forecast", body)
     assert status == 422 and "shells" in answer["errors"]
+
+
+# --------------------------------------------------------------------------- visual orbits, other units
+@pytest.mark.parametrize("q", [1e-12, 1.0, 1e12])
+def test_visual_orbit_with_the_distance_in_light_years_and_extreme_mass_ratios(client, q):
+    # a = a'' d (the parsec, IAU 2015 B2), M = 4 pi^2 a^3 / (GM_sun P^2) (Hilditch 2001), M1 = M / (1 + q),
+    # M2 = M q / (1 + q); the period in Julian years and the distance in light years (astropy's yr and lyr).
+    # Agreed to 4.7e-16.
+    body = {"period": {"value": 50.1, "unit": "yr"}, "angular_semimajor_axis": {"value": 7.5, "unit": "arcsec"},
+            "distance": {"value": 8.6, "unit": "lyr"}, "mass_ratio": q}
+    r = _ok(client, "/v1/astrometric/visual", body)["results"]
+    distance = mp.mpf(8.6) * LIGHT_YEAR / PARSEC
+    a = mp.mpf(7.5) * distance
+    mass = 4 * mp.pi ** 2 * (a * AU) ** 3 / (GM_SUN * (mp.mpf(50.1) * JULIAN_YEAR) ** 2)
+    q = mp.mpf(q)
+    expected = {"semimajor_axis": a, "total_mass": mass, "m1": mass / (1 + q), "m2": mass * q / (1 + q),
+                "a1": a * q / (1 + q), "a2": a / (1 + q), "distance": distance, "parallax": 1000 / distance}
+    for name, value in expected.items():
+        assert relative_error(r[name]["value"], value) < 1.5e-15, name
+
+
+@pytest.mark.parametrize("beta", [0.0, 0.1])
+def test_orbital_parallax_of_an_sb1_and_a_photocentric_orbit(client, beta):
+    # M2 from the mass function f = P K1^3 (1 - e^2)^{3/2} / (2 pi G) = (M2 sin i)^3 / (M1 + M2)^2 solved by mpmath;
+    # alpha = a1 (1 - beta / B), B = M2 / (M1 + M2) (van de Kamp 1967), parallax = alpha'' / alpha.  Agreed to 2e-16.
+    body = {"period": 800, "k1": 5, "eccentricity": 0.2, "inclination": 70, "photocentre_semimajor_axis": 3.0,
+            "primary_mass": 1.0}
+    if beta:
+        body["luminosity_fraction"] = beta
+    r = _ok(client, "/v1/combined/orbital-parallax", body)["results"]
+    seconds, e, sin_i = mp.mpf(800) * DAY, mp.mpf(0.2), mp.sin(mp.radians(70))
+    a1 = 5000 * seconds * mp.sqrt(1 - e ** 2) / (2 * mp.pi) / sin_i / AU
+    f = seconds * mp.mpf(5000) ** 3 * (1 - e ** 2) ** 1.5 / (2 * mp.pi * GM_SUN)
+    m2 = mp.findroot(lambda x: (x * sin_i) ** 3 / (1 + x) ** 2 - f, 0.5)
+    alpha = a1 * (1 - mp.mpf(beta) / (m2 / (1 + m2)))
+    assert relative_error(r["m2"]["value"], m2) < 1e-15
+    assert relative_error(r["parallax"]["value"], 3 / alpha) < 1e-15
+
+
+# --------------------------------------------------------------------------- outputs asked in other units
+def test_outputs_in_other_units_against_astropy(client):
+    # each output converted by astropy from the same answer in its own unit (temperature_energy for kT)
+    from astropy import units as u
+    cases = [("/v1/winds/mass-loss/radio", {"flux_density": 1.8, "frequency": 8.4, "distance": 2.1, "vinf": 1700,
+                                             "stellar_radius": 8.5},
+              {"mass_loss_rate": "kg/s", "radio_photosphere_radius": "au"}),
+             ("/v1/winds/shell-distance", {"period": 2950, "shell_spacing": 410, "expansion_speed": 1100},
+              {"distance": "lyr", "parallax": "uas"}),
+             ("/v1/winds/mass-loss/recipe", {"recipe": "vink-2001", "luminosity": 3.2e5, "mass": 38, "teff": 36500},
+              {"mass_loss_rate": "earthMass/yr", "bistability_jump_temperature": "eV"}),
+             ("/v1/astrometric/campbell", {"A": 12.0, "B": -7.5, "F": 3.25, "G": 9.0},
+              {"inclination": "rad", "node": "arcsec", "angular_semimajor_axis": "arcsec"}),
+             ("/v1/orbit/geometry", {"period": 118.3, "eccentricity": 0.62, "m1": 8.4, "m2": 5.1},
+              {"speed_periastron": "au/yr", "roche_lobe1": "km", "semimajor_axis": "pc"})]
+    for path, body, units in cases:
+        plain = _ok(client, path, body)["results"]
+        asked = _ok(client, path, {**body, "units": units})["results"]
+        for name, unit in units.items():
+            expected = (plain[name]["value"] * u.Unit(plain[name]["unit"])).to_value(
+                u.Unit(unit), equivalencies=u.temperature_energy())
+            assert asked[name]["unit"] == unit
+            assert relative_error(asked[name]["value"], expected) < 4e-16, (path, name)
