@@ -67,6 +67,11 @@ def factor(from_unit: str, to_unit: str) -> float:
     try:
         k = float(a.to(b, equivalencies=equivalencies))
     except u.UnitConversionError:
+        if kinds == {"temperature"}:
+            # deg_C and deg_F are temperatures whose zero is not 0 K: no scale factor turns them into kelvin
+            raise UnitError(f"unit {from_unit!r} is a temperature scale whose zero is not 0 K, and a unit here only "
+                            f"scales a value (and its sigma): give it in {to_unit!r}, or in an energy unit for kT "
+                            "such as 'keV'") from None
         raise UnitError(f"unit {from_unit!r} cannot be converted to {to_unit or 'dimensionless'!r} "
                         f"({needed(b)} is needed)") from None
     if k in (0.0, float("inf")) and a.scale != 0:

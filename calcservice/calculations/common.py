@@ -21,6 +21,13 @@ VELOCITY = SpeedDomain(-C_LIGHT_KM_S, C_LIGHT_KM_S, low_open=True, high_open=Tru
 #: above this fraction of c the Newtonian formulas lose accuracy: their relative corrections are of
 #: order (v/c)^2, 1 % at 0.1 c (common practice for where special relativity starts to matter)
 RELATIVISTIC_FRACTION = 0.1
+#: the relative error a number derived from a few decimal inputs can carry from their rounding to doubles, their
+#: conversion to canonical units and a few roundings of the arithmetic (half a unit of 2^-52 each): up to 4 units for
+#: a momentum ratio (Mdot2 v2) / (Mdot1 v1) with the roles swapped.  Such a number compared with an edge at which a
+#: warning starts (1 for the stronger wind or the heavier star, 1e-4 for Eichler & Usov's range, 0.01 per orbit for a
+#: secular change, 1000 GHz for the radio Gaunt factor) is taken as on the edge within it, where the decimals given
+#: put it (outputs are not changed)
+EDGE_ROUNDING = 4.0 * np.finfo(float).eps
 
 def cited(outputs, sources, default=()):
     """``outputs`` each with the references its formula comes from: ``sources[name]``, else ``default``."""

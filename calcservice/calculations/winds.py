@@ -5,7 +5,8 @@ import numpy as np
 from ..physics import winds as phys
 from ..physics.orbit import period_change_rate
 from ..registry import ANGLE, ANY, DATE, ECCENTRICITY, POSITIVE, Calculation, Constraint, Domain, Input, Output, Warning, register
-from .common import HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, with_speed_check
+from .common import (EDGE_ROUNDING, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited,
+                     with_speed_check)
 
 # a phase counts cycles from periastron: within 1e8 of them a double still resolves 1.5e-8 of a cycle, beyond
 # (1e17) the fraction that places the stars on the orbit is lost and the answer is that of phase 0
@@ -27,7 +28,20 @@ SOBERMAN_1997 = ("G. E. Soberman, E. S. Phinney & E. P. J. van den Heuvel (1997)
                  "for mass transfer; isotropic re-emission)")
 
 POSITIVE_BELOW_ONE = Domain(0.0, 1.0, low_open=True)
-HALF_ANGLE = Domain(0.0, 90.0, low_open=True, high_open=True)
+class HalfAngleDomain(Domain):
+    """A measured half-opening angle, its upper bound said in full and what it is (not rounded to 6 digits)."""
+
+    def describe(self, unit: str = "deg") -> str:
+        return (f"must be > 0 and <= {self.high!r} {unit} (2.1 x 3/4 rad, the widest cone of the Eichler & Usov "
+                "(1993) fit, at eta = 1)")
+
+    def message(self, unit: str = "") -> str:
+        return self.describe(unit or "deg")
+
+
+#: a measured half-opening angle: up to the widest cone of the Eichler & Usov (1993) fit, 2.1 x 3/4 rad (90.24 deg,
+#: eta = 1), which the collision gives for eta near 1; Cantó, Raga & Wilkin (1996) have eta = 1 at 90 deg
+HALF_ANGLE = HalfAngleDomain(0.0, float(np.degrees(phys.EICHLER_USOV_WIDEST)), low_open=True)
 EU93_LOWEST_ETA = 1.0e-4
 
 WIND_CONVENTIONS = {
@@ -99,13 +113,13 @@ _COLLISION_CONSTRAINTS = (
 def _collision_check(inputs, outputs):
     out = []
     raw = phys.momentum_ratio(inputs["mdot1"], inputs["vinf1"], inputs["mdot2"], inputs["vinf2"])
-    swapped = raw > 1.0
+    swapped = raw > 1.0 + EDGE_ROUNDING
     if np.any(swapped):
         out.append(Warning("roles_swapped", "Mdot2 v2 > Mdot1 v1: star 2 has the stronger wind. momentum_ratio is "
                            "given as Mdot1 v1 / (Mdot2 v2) <= 1 and the shock cone wraps star 1; outputs numbered 1 "
                            "and 2 keep your numbering", swapped))
     eta = outputs["momentum_ratio"]
-    low = eta < EU93_LOWEST_ETA
+    low = eta < EU93_LOWEST_ETA * (1.0 - EDGE_ROUNDING)
     if np.any(low):
         out.append(Warning("eu93_out_of_range", f"the momentum ratio is below {EU93_LOWEST_ETA:g}, outside the range "
                            "of the Eichler & Usov (1993) fit (1e-4 <= eta <= 1); prefer opening_half_angle_crw96",
@@ -288,7 +302,8 @@ def _radio_check(inputs, outputs):
                                "observe at a lower frequency)", close))
     g = outputs.get("gaunt_factor")
     if g is not None:
-        bad = (g < 1.0) | (inputs["frequency"] > 1000.0)
+        # 1e12 Hz is 1000 GHz, though astropy's conversion (x 1e-9) gives 1000.0000000000001
+        bad = (g < 1.0) | (inputs["frequency"] > 1000.0 * (1.0 + EDGE_ROUNDING))
         if np.any(bad):
             out.append(Warning("gaunt_factor_out_of_range", "the radio approximation of the Gaunt factor (Leitherer "
                                "& Robert 1991) fails towards the far infrared (frequency above 1000 GHz or g < 1): "
@@ -372,7 +387,7 @@ def _period_change_check(inputs, outputs):
     out = []
     mode = inputs.get("mode")
     pdot = inputs["period_derivative"]
-    fast = np.abs(period_change_rate(pdot)) > phys.SECULAR_CHANGE_PER_ORBIT
+    fast = np.abs(period_change_rate(pdot)) > phys.SECULAR_CHANGE_PER_ORBIT * (1.0 + EDGE_ROUNDING)
     if np.any(fast):
         out.append(Warning("not_secular", "the period changes by more than 1 % of itself per orbit (|dP/dt| > 0.01): "
                            "every mode's relation is orbit-averaged and holds for a change slow against the orbit; "
@@ -504,8 +519,10 @@ register(Calculation(
     function=phys.mass_loss_from_momentum_ratio,
     references=(EICHLER_USOV_1993, CANTO_RAGA_WILKIN_1996, STEVENS_1992),
     conventions={k: WIND_CONVENTIONS[k] for k in ("winds", "opening_half_angle", "mass_loss_rate")}
-    | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle always gives "
-                         "eta <= 1, the cone wrapping star 2"}
+    | {"momentum_ratio": "eta = (Mdot2 v2)/(Mdot1 v1), star 1 the stronger wind; an opening angle gives eta <= 1, "
+                         "the cone wrapping star 2, up to 90 deg (crw96, a plane shock at eta = 1) or 2.1 x 3/4 rad = "
+                         "90.24 deg (eu93, its widest cone, at eta = 1); crw96 beyond 90 deg gives eta > 1 (star 2 the "
+                         "stronger, warned)"}
     | {"symbols": SYMBOLS["mass-loss-momentum-ratio"]},
     exclusive=(("momentum_ratio", "opening_half_angle"), ("mdot1", "mdot2")),
     check=with_speed_check(_momentum_check, ("vinf1", "vinf2")),
@@ -572,8 +589,9 @@ _RECIPE_CONSTRAINTS = (
 VINK_JUMP_HALF_WIDTH = 2.5e3
 
 
-def _out_of(x, low, high):
-    return (x < low) | (x > high)
+def _out_of(x, low, high, low_open=False):
+    """Where x is outside [low, high] (outside (low, high] with ``low_open``)."""
+    return ((x <= low) if low_open else (x < low)) | (x > high)
 
 
 def _recipe_check(inputs, outputs):
@@ -586,9 +604,11 @@ def _recipe_check(inputs, outputs):
         z = np.ones_like(teff) if z is None else z
         jump = phys.vink_jump_temperature(lum, inputs["mass"], z)
         hot = teff >= jump
-        for fit, low, high, which in ((hot, *phys.VINK_HOT_RANGE, "hot-side fit (their eq. 24)"),
-                                      (~hot, *phys.VINK_COOL_RANGE, "cool-side fit (their eq. 25)")):
-            bad = fit & _out_of(teff, low, high)
+        # eq. 24 holds for 27.5 kK < Teff <= 50 kK, eq. 25 for 12.5 kK <= Teff <= 22.5 kK: the hot side's lower bound
+        # is open
+        for fit, low, high, low_open, which in ((hot, *phys.VINK_HOT_RANGE, True, "hot-side fit (their eq. 24)"),
+                                                (~hot, *phys.VINK_COOL_RANGE, False, "cool-side fit (their eq. 25)")):
+            bad = fit & _out_of(teff, low, high, low_open)
             if np.any(bad):
                 out.append(Warning("vink_fit_out_of_range", f"teff is outside {low / 1e3:g}-{high / 1e3:g} kK, the "
                                    f"range of the Vink et al. (2001) {which} used at this temperature: the rate is "
@@ -715,7 +735,9 @@ def _shells_formed(shells=None, period=None, formation_epoch=None, observation_d
     if shells is None or period is None or formation_epoch is None or observation_date is None:
         return _rows(True)
     last = np.max(shells)
-    return np.asarray(observation_date) >= np.asarray(formation_epoch) + last * np.asarray(period)
+    # the physics' own age: a shell formed at the observation date (age 0 in the decimals given) is formed by then
+    return phys.shell_age_days(np.asarray(period), np.asarray(formation_epoch), np.asarray(observation_date),
+                               last) >= 0.0
 
 
 def _shells_dated(shells=None, period=None, formation_epoch=None, **_):

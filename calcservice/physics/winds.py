@@ -122,6 +122,10 @@ def opening_half_angle_canto_raga_wilkin(eta, iterations=64):
     return np.where(np.isfinite(eta) & (eta >= 0.0), psi, np.nan)
 
 
+#: the widest half-angle of the Eichler & Usov (1993) fit, 2.1 x 3/4 rad (90.24 deg), at eta = 1
+EICHLER_USOV_WIDEST = 2.1 * 0.75
+
+
 def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
     """Invert Eichler & Usov (1993): the eta <= 1 whose half-opening angle is ``half_angle`` (rad).
 
@@ -135,6 +139,8 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
     (1 - eta^{2/5} / 4) lies in [1/5, 1/3]: eta to a few roundings (u^15 alone was 3e-15 off at small cones).
     """
     target = np.asarray(half_angle, dtype=float) / 2.1
+    # the widest angle, given in degrees (90.24085273310467), comes back as 0.7500000000000001 of 2.1 rad
+    target = np.where((target > 0.75) & (target <= 0.75 * (1.0 + 4.0 * np.finfo(float).eps)), 0.75, target)
     lo = target ** 0.2
     hi = np.minimum(1.0, (target / 0.75) ** 0.2)
     for _ in range(iterations):
@@ -157,12 +163,16 @@ def momentum_ratio_from_eichler_usov(half_angle, iterations=64):
 def momentum_ratio_from_canto_raga_wilkin(half_angle):
     """Invert Cantó, Raga & Wilkin (1996) in closed form: with c = tan(psi) - psi, eta = c / (pi + c).
 
-    ``half_angle`` psi in radians, 0 <= psi < pi/2.
+    ``half_angle`` psi in radians, 0 <= psi < pi.  psi = pi/2 (a plane shock) is eta = 1.  Beyond it the cone
+    about star 2 opens wider than a plane: star 2 has the stronger wind, and their eq. 28 for the roles swapped,
+    tan(psi1) - psi1 = pi / (eta - 1) about star 1 with psi1 = pi - psi, is again eta = c / (pi + c) (c < -pi there).
     """
     psi = np.asarray(half_angle, dtype=float)
-    c = _tan_minus_angle(psi)
-    ok = (psi >= 0.0) & (psi < _HALF_PI)
-    return np.where(ok, c / (_PI + c), np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        c = _tan_minus_angle(psi)
+        eta = np.where(psi == _HALF_PI, 1.0, c / (_PI + c))
+    ok = (psi >= 0.0) & (psi < _PI)
+    return np.where(ok, eta, np.nan)
 
 
 def cooling_parameter(vinf, distance_au, mdot):
@@ -484,7 +494,7 @@ VINK_ELECTRON_OPACITY = 0.325
 VINK_RATIO_HOT = 2.6
 VINK_RATIO_COOL = 1.3
 #: Teff ranges (K) of the model grids behind each fit (Vink, de Koter & Lamers 2001, eqs. 24-25; from memory):
-#: hot side 27.5-50 kK, cool side 12.5-22.5 kK; between them lies the bi-stability jump
+#: hot side 27.5 kK < Teff <= 50 kK (open below), cool side 12.5-22.5 kK (closed); between them lies the jump
 VINK_HOT_RANGE = (27.5e3, 50.0e3)
 VINK_COOL_RANGE = (12.5e3, 22.5e3)
 
@@ -600,6 +610,19 @@ def shell_distance(period, shell_spacing, expansion_speed=None, distance=None, p
     return {"distance": distance, "parallax": 1.0e3 / distance, "expansion_speed": speed}
 
 
+def shell_age_days(period, formation_epoch, observation_date, shells):
+    """Days since shell n formed, t - (t0 + n P), from the exact t - t0 and n P (:func:`.exact.elapsed`).
+
+    A shell that forms at the observation date in the decimals given (age 0) can come out below 0 by the rounding of
+    t, t0 and P to doubles (half a unit of 2^-52 of each of t, t0 and n P): within 4 units of their sizes the age is
+    0, so that such a shell is one formed by then, of radius 0.
+    """
+    _n, age = elapsed(observation_date, formation_epoch, period, shells)
+    slack = 4.0 * np.finfo(float).eps * (np.abs(observation_date) + np.abs(formation_epoch)
+                                         + np.abs(np.multiply(shells, period)))
+    return np.where((age < 0.0) & (age >= -slack), 0.0, age)
+
+
 def shell_forecast(period, formation_epoch, expansion_speed, observation_date, shells, distance=None, parallax=None,
                    **_):
     """Angular radius at ``observation_date`` of each shell made once per orbit: the inverse of :func:`shell_distance`.
@@ -612,7 +635,6 @@ def shell_forecast(period, formation_epoch, expansion_speed, observation_date, s
     rounded to a Julian Date first loses 1e-12 of a 100-day age.
     """
     d = distance if distance is not None else 1.0e3 / parallax
-    _n, age = elapsed(observation_date, formation_epoch, period, shells)
-    years = age / DAYS_PER_JULIAN_YEAR
+    years = shell_age_days(period, formation_epoch, observation_date, shells) / DAYS_PER_JULIAN_YEAR
     radius = expansion_speed * years / KM_S_PER_AU_PER_YEAR
     return {"angular_radius": 1.0e3 * radius / d, "radius": radius, "age": years}
