@@ -24,3 +24,10 @@ def post(client, path, body, **kw):
     """POST JSON and return (status, parsed body)."""
     r = client.post(path, json=body, **kw)
     return r.status_code, r.get_json(silent=True)
+
+
+def answered(client, path, body):
+    """POST JSON that must be answered (200) and return the answer."""
+    r = client.post(path, json=body)
+    assert r.status_code == 200, r.get_json()
+    return r.get_json()

@@ -12,24 +12,13 @@ import numpy as np
 import pytest
 from astropy import constants as const
 
-from calcservice import create_app
+from .conftest import answered
 
 from .engine_helpers import split_normal
 
 GM_SUN = mp.mpf(const.GM_sun.si.value)     # IAU 2015 Resolution B3 nominal GM_sun, m^3 s^-2 (astropy.constants)
 AU = mp.mpf(const.au.si.value)             # IAU 2012 Resolution B2, m (astropy.constants)
 DAY = mp.mpf(86400)                        # s (SI day)
-
-
-@pytest.fixture(scope="module")
-def client():
-    return create_app({"TESTING": True}).test_client()
-
-
-def _post(client, path, body):
-    r = client.post(path, json=body)
-    assert r.status_code == 200, r.get_json()
-    return r.get_json()
 
 
 # --------------------------------------------------------------------------- photocentre
@@ -62,7 +51,7 @@ def test_photocentre_companion_mass_against_a_bisected_root(client, beta, alpha,
     # Tolerance 2e-15: f_ast itself carries ~1e-15 (a cube of a quotient), and M2 is as well conditioned in f_ast.
     # The root was taken as 1 - s = exp(-log(1 + e^y)), whose rounding exp multiplies by |y|: 5.9e-15 in M2 at
     # beta = 0.999999, alpha = 300 mas (26 roundings).
-    got = _post(client, "/v1/astrometric/photocentre", {
+    got = answered(client, "/v1/astrometric/photocentre", {
         "photocentre_semimajor_axis": alpha, "parallax": parallax, "period": 612.0, "primary_mass": 1.08,
         "luminosity_fraction": beta})["results"]
     for name, want in _photocentre_reference(alpha, parallax, 612.0, 1.08, beta).items():
@@ -83,9 +72,9 @@ def test_a_photocentre_in_a_batch_is_its_single_answer(client):
     # steps in a batch: 4 of these 40 systems had sigmas differing at 1e-11 (m2 0.004275059481283348 alone,
     # 0.004275059481449376 in a batch).
     systems = _random_photocentres(40, 3)
-    rows = _post(client, "/v1/batch/photocentre", {"systems": systems})["results"]
+    rows = answered(client, "/v1/batch/photocentre", {"systems": systems})["results"]
     for body, row in zip(systems, rows):
-        assert row["results"] == _post(client, "/v1/astrometric/photocentre", body)["results"]
+        assert row["results"] == answered(client, "/v1/astrometric/photocentre", body)["results"]
 
 
 # --------------------------------------------------------------------------- mid-eclipse under apsidal motion
@@ -108,9 +97,9 @@ def test_mid_eclipse_dates_under_apsidal_motion_in_a_batch_are_the_single_answer
         if rng.uniform() < 0.5:
             body["period_derivative"] = {"value": float(rng.uniform(-1, 1)), "sigma": 0.1}
         systems.append(body)
-    rows = _post(client, "/v1/batch/mid-eclipse", {"systems": systems})["results"]
+    rows = answered(client, "/v1/batch/mid-eclipse", {"systems": systems})["results"]
     for body, row in zip(systems, rows):
-        single = _post(client, "/v1/orbit/mid-eclipse", body)
+        single = answered(client, "/v1/orbit/mid-eclipse", body)
         assert row["results"] == single["results"]
 
 
@@ -129,7 +118,7 @@ def test_a_periastron_speed_above_a_tenth_of_c_is_warned_as_a_given_speed_is(cli
     # 0.1 c"), where the Newtonian formulas are off by order (v/c)^2.  It did so for the speeds one gives (k1,
     # vinf1, ...) but not for those it derives: 20 + 20 solMass in 0.1 d at e = 0.999 pass periastron at 0.23 c
     # and were answered without a word.
-    answer = _post(client, "/v1/orbit/geometry", {"period": period, "eccentricity": eccentricity, "m1": 20.0,
+    answer = answered(client, "/v1/orbit/geometry", {"period": period, "eccentricity": eccentricity, "m1": 20.0,
                                                   "m2": 20.0})
     want = _vis_viva_periastron_km_s(period, eccentricity, 40.0)
     assert answer["results"]["speed_periastron"]["value"] == pytest.approx(want, rel=1e-13)
@@ -140,7 +129,7 @@ def test_a_periastron_speed_above_a_tenth_of_c_is_warned_as_a_given_speed_is(cli
 
 def test_an_expansion_speed_derived_from_a_distance_is_warned_above_a_tenth_of_c(client):
     # v = 4.74047 s D / P (1 au per Julian year in km/s, IAU 2012 au): 1 mas per 100 d at 10 Mpc is 1.7e5 km/s
-    answer = _post(client, "/v1/winds/shell-distance", {"period": 100.0, "shell_spacing": 1.0, "distance": 1e7})
+    answer = answered(client, "/v1/winds/shell-distance", {"period": 100.0, "shell_spacing": 1.0, "distance": 1e7})
     from astropy import units as u
     want = (1e-3 * u.arcsec * 1e7 * u.pc / (100 * u.d)).to_value(u.km / u.s, equivalencies=u.dimensionless_angles())
     assert answer["results"]["expansion_speed"]["value"] == pytest.approx(want, rel=1e-14)
@@ -155,7 +144,7 @@ def _linear_against_mpmath(client, path, reference, given, extra=None, value=4e-
     of the scale (DEVELOPERS), whose truncation and rounding leave ~1e-10 to 1e-9; the values of ``angles`` are the
     caller's to compare (their ranges are conventions).  Returns the answer."""
     body = {name: {"value": v, "sigma": s} for name, (v, s) in given.items()}
-    got = _post(client, path, {**body, **(extra or {})})["results"]
+    got = answered(client, path, {**body, **(extra or {})})["results"]
     with mp.workdps(40):
         x0 = [mp.mpf(v) for v, _ in given.values()]
         nominal = reference(*x0)
@@ -394,7 +383,7 @@ def test_conjunctions_and_rv_extrema_at_e_0999_seen_in_each_stars_light(client, 
     # (SI).  Agreed to 5e-11 d, the rounding of the dates.
     period, e, omega, t0, k1, k2 = mp.mpf("3.7"), mp.mpf("0.999"), mp.mpf(200), mp.mpf(0), mp.mpf(50), mp.mpf(70)
     after = t0 + period * mp.mpf("12345.3")
-    events = _post(client, "/v1/orbit/ephemeris", {
+    events = answered(client, "/v1/orbit/ephemeris", {
         "period": float(period), "eccentricity": float(e), "omega": float(omega), "t_periastron": float(t0),
         "k1": float(k1), "k2": float(k2), "times": [float(after)], "after": float(after), "count": 1,
         "light_travel_time": light})["results"]["events"]
@@ -435,7 +424,7 @@ def test_mid_eclipse_dates_with_a_period_derivative_are_the_minima_in_time(clien
         body["omega_dot"] = omega_dot
     if pdot:
         body["period_derivative"] = pdot
-    events = _post(client, "/v1/orbit/mid-eclipse", body)["results"]["events"]
+    events = answered(client, "/v1/orbit/mid-eclipse", body)["results"]["events"]
     with mp.workdps(40):
         s2 = mp.sin(inc * mp.pi / 180) ** 2
 
@@ -480,7 +469,7 @@ def test_photocentre_monte_carlo_with_split_normals_correlations_and_paired_samp
     from scipy.special import ndtr
     n, seed = 800, 31
     parallax = 21.4 + 0.3 * np.random.default_rng(77).standard_normal(n)
-    answer = _post(client, "/v1/astrometric/photocentre", {
+    answer = answered(client, "/v1/astrometric/photocentre", {
         "photocentre_semimajor_axis": {"value": 3.71, "sigma": 0.05}, "parallax": {"samples": list(parallax)},
         "period": {"value": 612.0, "sigma": 4.0},
         "primary_mass": {"value": 1.08, "sigma_minus": 0.03, "sigma_plus": 0.08},
@@ -540,14 +529,14 @@ def test_every_scalar_output_in_other_units_is_astropys_conversion(client, name)
     from astropy import units as u
     path = _path(name)
     body = _example_body(name)
-    base = _scalar_outputs(_post(client, path, {**body, "budget": True})["results"])
+    base = _scalar_outputs(answered(client, path, {**body, "budget": True})["results"])
     units = {}
     for output, entry in base.items():
         for k, other in enumerate(OTHER_UNITS.get(entry["unit"], ())):
             units.setdefault(k, {})[output] = other
     assert units, name
     for asked in units.values():
-        got = _scalar_outputs(_post(client, path, {**body, "budget": True, "units": asked})["results"])
+        got = _scalar_outputs(answered(client, path, {**body, "budget": True, "units": asked})["results"])
         for output, other in asked.items():
             factor = (1 * u.Unit(base[output]["unit"])).to_value(other)
             assert u.Unit(got[output]["unit"]) == u.Unit(other)
@@ -567,7 +556,7 @@ def test_linear_budget_shares_with_correlations_sum_to_one(client, name):
     uncertain = [k for k, v in body.items() if isinstance(v, dict) and v.get("sigma")]
     body["correlations"] = [{"between": [uncertain[0], uncertain[1]], "rho": 0.45},
                             {"between": [uncertain[1], uncertain[-1]], "rho": -0.3}]
-    results = _post(client, _path(name), {**body, "budget": True})["results"]
+    results = answered(client, _path(name), {**body, "budget": True})["results"]
     shares = [entry["budget"] for entry in _scalar_outputs(results).values() if entry.get("budget")]
     assert shares, name
     for budget in shares:
@@ -600,7 +589,7 @@ def test_a_teff_next_to_this_stars_jump_is_warned_wherever_the_jump_falls(client
     # where the jump falls for solar metallicity and small Gamma_e; at Z = 3 Z_sun and Gamma_e = 0.62 it lies at
     # 28.7 kK, at Z = Z_sun/30 at 19.9 kK, and there nothing was said.
     jump = _vink_jump_kelvin(luminosity, mass, metallicity)
-    answer = _post(client, "/v1/winds/mass-loss/recipe", {
+    answer = answered(client, "/v1/winds/mass-loss/recipe", {
         "recipe": "vink-2001", "luminosity": luminosity, "mass": mass, "metallicity": metallicity,
         "teff": {"value": jump + offset, "sigma": 500.0}})
     assert answer["results"]["bistability_jump_temperature"]["value"] == pytest.approx(jump, rel=1e-12)
@@ -634,7 +623,7 @@ def test_eclipse_possible_under_apsidal_motion_agrees_with_the_minimum_separatio
             t_min = (lo + hi) / 2
         separation = float(mp.sqrt(rho2(t_min)) * a * AU / R_SUN)
     radius2 = separation * (1 - 1e-9) - 1.3
-    answer = _post(client, "/v1/orbit/mid-eclipse", {
+    answer = answered(client, "/v1/orbit/mid-eclipse", {
         "period": float(period), "eccentricity": float(e), "omega": float(omega), "t_periastron": 0.0,
         "inclination": float(inc), "after": 0.0, "count": 1, "semimajor_axis": a, "omega_dot": omega_dot,
         "radius1": 1.3, "radius2": radius2})
@@ -656,7 +645,7 @@ def test_a_minimum_companion_mass_above_the_primarys_is_warned_without_an_inclin
     period, e, m1 = 5.6, 0.1, 1.2
     k1 = (2 * math.pi * const.GM_sun * m1 / (4 * period * u.d * (1 - e * e) ** 1.5)) ** (1 / 3)
     k1 = k1.to_value(u.km / u.s) * factor
-    answer = _post(client, "/v1/spectroscopic/sb1", {"period": period, "k1": k1, "eccentricity": e, "primary_mass": m1})
+    answer = answered(client, "/v1/spectroscopic/sb1", {"period": period, "k1": k1, "eccentricity": e, "primary_mass": m1})
     # d ln M2 = (3/2) d ln K1 there (d ln f / d ln M2 = 3 - 2 M2 / (M1 + M2) = 2), to second order in 1e-6
     assert answer["results"]["m2_min"]["value"] == pytest.approx(m1 * factor ** 1.5, rel=1e-11)
     assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned
@@ -667,7 +656,7 @@ def test_a_systemic_velocity_beyond_a_tenth_of_c_is_warned_either_way(client, ga
     # 0.1 c = 29979.2458 km/s (c exact, SI).  gamma was refused at c, as every speed is, but never warned above
     # 0.1 c, where k1 and k2 are; and a speed's sign is its direction: approaching at 0.17 c is as relativistic as
     # receding.  The radial velocity itself is gamma + K1 (cos(nu + omega) + e cos omega) (Hilditch 2001, eq. 2.45)
-    answer = _post(client, "/v1/orbit/ephemeris", {"period": 10.0, "eccentricity": 0.1, "omega": 10.0,
+    answer = answered(client, "/v1/orbit/ephemeris", {"period": 10.0, "eccentricity": 0.1, "omega": 10.0,
                                                    "t_periastron": 0.0, "k1": 10.0, "gamma": gamma, "times": [0.0],
                                                    "count": 1})
     assert answer["results"]["series"]["rv1"]["value"][0] == pytest.approx(gamma + 10.0 * 1.1 * math.cos(
@@ -694,7 +683,7 @@ def test_a_single_lined_orbital_parallax_warns_of_a_heavier_companion_as_sb1_doe
         m2 = float((lo + hi) / 2)
     for path, extra in (("/v1/spectroscopic/sb1", {}),
                         ("/v1/combined/orbital-parallax", {"photocentre_semimajor_axis": 3.71})):
-        answer = _post(client, path, {**body, **extra})
+        answer = answered(client, path, {**body, **extra})
         assert answer["results"]["m2"]["value"] == pytest.approx(m2, rel=1e-14), path
         assert ("companion_more_massive" in [w["code"] for w in answer["warnings"]]) == warned, path
 
@@ -706,7 +695,7 @@ def test_thiele_innes_constants_that_vanish_are_positive_zeros(client, given):
     # report or table prints them as 0, not -0 (IEEE 754 negative zero from -0.0 * 0 or from negating the
     # constants of omega_primary), as the budget's zero shares already are.
     w = given.get("omega", given.get("omega_primary", 0.0) + 180.0)
-    got = _post(client, "/v1/astrometric/thiele-innes", {"angular_semimajor_axis": 327.0, "inclination": 90.0,
+    got = answered(client, "/v1/astrometric/thiele-innes", {"angular_semimajor_axis": 327.0, "inclination": 90.0,
                                                          "node": 0.0, **given})["results"]
     want = {"A": 327.0 * round(math.cos(math.radians(w))), "B": 0.0, "F": -327.0 * round(math.sin(math.radians(w))),
             "G": 0.0}
@@ -719,7 +708,7 @@ def test_thiele_innes_constants_that_vanish_are_positive_zeros(client, given):
 def test_a_period_that_does_not_change_gives_a_rate_of_positive_zero(client, mode):
     # Pdot = 0 gives Mdot = 0 in every mode (each rate is proportional to Pdot/P, Hilditch 2001, sect. 4.3): it read
     # -0.0 in the conservative and re-emission modes at M1 > M2 (-M1 M2 0 / (3 P (M1 - M2)) in IEEE 754)
-    got = _post(client, "/v1/winds/mass-loss/period-change", {"period": 6.3, "period_derivative": 0.0, "m1": 27.0,
+    got = answered(client, "/v1/winds/mass-loss/period-change", {"period": 6.3, "period_derivative": 0.0, "m1": 27.0,
                                                                 "m2": 11.0, "mode": mode})["results"]
     assert got["mass_loss_rate"]["value"] == 0.0
     assert math.copysign(1.0, got["mass_loss_rate"]["value"]) == 1.0
@@ -731,7 +720,7 @@ def test_a_periastron_ten_thousand_cycles_on_with_a_period_derivative_by_hand(cl
     # + 2 rho s_T0 (dt/dP s_P), dt/dP = c + Pdot c^2 / 2, dt/dPdot = P c^2 / 2, at 40 digits.  Agreed: the date to
     # its rounding, the sigma to 2e-16.
     period, t0 = 3.7, 2451234.5
-    event = _post(client, "/v1/orbit/ephemeris", {
+    event = answered(client, "/v1/orbit/ephemeris", {
         "period": {"value": period, "sigma": 1e-6}, "eccentricity": 0.3, "omega": 40.0,
         "t_periastron": {"value": t0, "sigma": 1e-3}, "k1": 10.0, "times": [t0 + period * 10000.2], "count": 1,
         "period_derivative": {"value": 0.5, "sigma": 0.05},

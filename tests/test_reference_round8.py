@@ -11,22 +11,11 @@ import mpmath as mp
 import numpy as np
 import pytest
 
-from calcservice import create_app
+from .conftest import answered
 
 from .mpmath_helpers import precision, relative_error
 
 working_precision = precision(60)
-
-
-@pytest.fixture(scope="module")
-def client():
-    return create_app({"TESTING": True}).test_client()
-
-
-def _post(client, path, body):
-    r = client.post(path, json=body)
-    assert r.status_code == 200, r.get_json()
-    return r.get_json()
 
 
 # --------------------------------------------------------------------------- colliding winds: a tiny cone
@@ -52,7 +41,7 @@ def test_crw96_opening_angle_of_a_very_weak_wind_keeps_its_digits(client, eta):
     # 1.5e-6 at 1e-55, 40 % at 1e-60 and a factor 6e6 at 1e-80 (the half-angle stuck at 1.6e-18 deg).  The winds
     # here have equal speeds, so eta is Mdot2 / Mdot1 exactly.  Agreed to 2e-16 after the fix.
     body = {"mdot1": 1.0, "mdot2": eta, "vinf1": 1000.0, "vinf2": 1000.0, "separation": 1.0}
-    results = _post(client, "/v1/winds/collision", body)["results"]
+    results = answered(client, "/v1/winds/collision", body)["results"]
     assert results["momentum_ratio"]["value"] == eta
     assert relative_error(results["opening_half_angle_crw96"]["value"], _crw96_half_angle_degrees(eta)) < 1e-15
 
@@ -114,7 +103,7 @@ def test_the_offset_of_mid_eclipse_from_conjunction_near_an_edge_on_orbit(client
     values = {"period": 9.73, "eccentricity": 0.28, "omega": 61.0, "inclination": inclination}
     body = {k: {"value": values[k], "sigma": sigmas[k]} for k in values}
     body.update({"t_periastron": 2460811.42, "after": 2461000.5, "count": 1})
-    results = _post(client, "/v1/orbit/mid-eclipse", body)["results"]
+    results = answered(client, "/v1/orbit/mid-eclipse", body)["results"]
     with mp.workdps(40):
         x = {k: mp.mpf(v) for k, v in values.items()}
         for star in (1, 2):
@@ -140,7 +129,7 @@ def test_the_offset_of_mid_eclipse_from_conjunction_of_a_nearly_face_on_orbit(cl
     # The reference as above (:func:`_conjunction_offset_days`).  Agreed to 1e-15.
     body = {"period": 9.73, "eccentricity": 1e-6, "omega": 61.0, "inclination": inclination,
             "t_periastron": 2460811.42, "after": 2461000.5, "count": 1}
-    results = _post(client, "/v1/orbit/mid-eclipse", body)["results"]
+    results = answered(client, "/v1/orbit/mid-eclipse", body)["results"]
     with mp.workdps(40):
         for star in (1, 2):
             want = _conjunction_offset_days(mp.mpf(9.73), mp.mpf(1e-6), mp.mpf(61), mp.mpf(inclination), star)[0]
@@ -155,7 +144,7 @@ def test_the_offset_of_mid_eclipse_from_a_conjunction_next_to_periastron_at_e_ne
     e, omega, inclination = 0.9999980406489765, 100.80760198872719, 9.282909969324923
     body = {"period": 9.73, "eccentricity": e, "omega": omega, "inclination": inclination,
             "t_periastron": 2460811.42, "after": 2461000.5, "count": 1}
-    got = _post(client, "/v1/orbit/mid-eclipse", body)["results"]["conjunction_offset1"]["value"]
+    got = answered(client, "/v1/orbit/mid-eclipse", body)["results"]["conjunction_offset1"]["value"]
     with mp.workdps(40):
         want = _conjunction_offset_days(mp.mpf(9.73), mp.mpf(e), mp.mpf(omega), mp.mpf(inclination), 1)[0]
         assert relative_error(got, want) < 1e-15
@@ -188,7 +177,7 @@ def test_mid_eclipse_date_sigmas_of_an_orbit_within_a_millionth_of_e_one(client,
               "inclination": 84.6}
     body = {k: {"value": values[k], "sigma": sigmas[k]} for k in values}
     body.update({"after": 2461000.5, "count": 1})
-    events = _post(client, "/v1/orbit/mid-eclipse", body)["results"]["events"]
+    events = answered(client, "/v1/orbit/mid-eclipse", body)["results"]["events"]
     with mp.workdps(40):
         x = {k: mp.mpf(v) for k, v in values.items()}
         for star in (1, 2):
@@ -224,7 +213,7 @@ def test_velocity_separation_at_the_extrema_of_a_nearly_parabolic_orbit(client, 
             "omega": {"value": omega, "sigma": sig["omega"]}, "t_periastron": 2460000.5,
             "k1": {"value": 30.0, "sigma": sig["k1"]}, "k2": {"value": 40.0, "sigma": sig["k2"]},
             "times": [2460001.0], "count": 1}
-    events = _post(client, "/v1/orbit/ephemeris", body)["results"]["events"]["max_velocity_separation"]
+    events = answered(client, "/v1/orbit/ephemeris", body)["results"]["events"]["max_velocity_separation"]
     assert {x["kind"] for x in events} == {"rv1_maximum", "rv1_minimum"}
     e, w, k = mp.mpf(eccentricity), mp.radians(omega), mp.mpf(70)
     for x in events:
@@ -280,9 +269,9 @@ def test_radial_velocity_at_the_extrema_of_a_nearly_parabolic_orbit(client, ecce
     # (7e-10 at e = 0.9999999, omega = 0.01 deg).  Agreed after the fix to 1e-15.
     base = {"period": 100.0, "eccentricity": eccentricity, "omega": omega, "t_periastron": 2460000.5,
             "k1": 30.0, "k2": 40.0, "count": 1}
-    extrema = _post(client, "/v1/orbit/ephemeris", {**base, "times": [2460001.0]})["results"]["events"]["rv_extrema"]
+    extrema = answered(client, "/v1/orbit/ephemeris", {**base, "times": [2460001.0]})["results"]["events"]["rv_extrema"]
     times = [x["value"] for x in extrema]
-    series = _post(client, "/v1/orbit/ephemeris", {**base, "times": times})["results"]["series"]
+    series = answered(client, "/v1/orbit/ephemeris", {**base, "times": times})["results"]["series"]
     e, w = mp.mpf(eccentricity), mp.radians(omega)
     for k, t in enumerate(times):
         mean = 2 * mp.pi * (mp.mpf(t) - mp.mpf(2460000.5)) / 100
@@ -309,7 +298,7 @@ def test_momentum_ratio_from_an_eichler_usov_opening_angle(client, angle):
     # and nearer 90.24 deg 5 (the slope d ln theta / d ln eta falls to 1/5 there).
     body = {"opening_half_angle": angle, "opening_angle_formula": "eu93", "mdot1": 1e-5, "vinf1": 2000.0,
             "vinf2": 1500.0}
-    eta = _post(client, "/v1/winds/mass-loss/momentum-ratio", body)["results"]["momentum_ratio"]["value"]
+    eta = answered(client, "/v1/winds/mass-loss/momentum-ratio", body)["results"]["momentum_ratio"]["value"]
     target = mp.radians(mp.mpf(angle)) / mp.mpf("2.1")
     lo, hi = mp.mpf(0), mp.mpf(1)
     for _ in range(220):
