@@ -7,8 +7,8 @@ from ..physics.angles import sin_degrees
 from ..physics.spectroscopic import companion_mass, mass_function
 from ..registry import ANGLE, INCLINATION, POSITIVE, Calculation, Constraint, Input, Output, Warning, register
 from .astrometric import HEINTZ_1978, IAU_2015_B2, LUMINOSITY_FRACTION, SKY, VAN_DE_KAMP_1967
-from .common import (EDGE_ROUNDING, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, conventions,
-                     eccentricity, period, semi_amplitude, with_speed_check)
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, SPEED, SYMBOLS, cited, conventions, eccentricity,
+                     period, primary_less_massive, semi_amplitude, with_speed_check)
 
 #: the sources of a mass: Hilditch's formulas with GM_sun (IAU 2015 B3)
 MASS = (HILDITCH_2001, IAU_2015_B3)
@@ -29,14 +29,9 @@ def _beta_below_fractional_mass(period, k1, eccentricity, inclination, primary_m
 
 
 def _check(inputs, outputs):
-    out = []
     k2 = inputs.get("k2")
     q = outputs.get("mass_ratio")
-    # as sb2: K1 = K2 in two units is q = 1, though the conversion's rounding may put it just above
-    above = None if k2 is None or q is None else q > 1.0 + EDGE_ROUNDING
-    if above is not None and np.any(above):
-        out.append(Warning("primary_less_massive", "q = K1/K2 > 1: star 1 (the star of k1) is the less massive star",
-                           above))
+    out = [] if k2 is None or q is None else primary_less_massive(q)
     # a single-lined orbit: the companion's mass from the mass function at i, as sb1 gives it and warns of it
     m2, m1 = outputs.get("m2"), inputs.get("primary_mass")
     if k2 is None and m2 is not None and m1 is not None and np.any(m2 > m1):

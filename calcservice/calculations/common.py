@@ -149,6 +149,16 @@ def relativistic_speeds(inputs, names, outputs=None) -> list:
     return out
 
 
+def primary_less_massive(q) -> list[Warning]:
+    """The warning of a double-lined orbit (sb2, the combined orbit) whose star 1 is the lighter, q = K1/K2 > 1;
+    K1 = K2 in two units (45300 m/s and 45.3 km/s) is q = 1, though the conversion's rounding may put it just above."""
+    above = q > 1.0 + EDGE_ROUNDING
+    if np.any(above):
+        return [Warning("primary_less_massive", "q = K1/K2 > 1: star 1 (the star of k1) is the less massive star",
+                        above)]
+    return []
+
+
 def with_speed_check(check, names):
     """``check`` followed by the relativistic-speed warnings on the speeds ``names`` (inputs, or outputs)."""
     def combined(inputs, outputs):

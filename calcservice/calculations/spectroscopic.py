@@ -4,8 +4,8 @@ import numpy as np
 
 from ..physics import spectroscopic as phys
 from ..registry import POSITIVE, Calculation, Input, Output, Warning, register
-from .common import (EDGE_ROUNDING, HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, ISOTROPIC, SYMBOLS, cited, conventions,
-                     eccentricity, inclination, period, semi_amplitude, with_speed_check)
+from .common import (HILDITCH_2001, IAU_2012_B2, IAU_2015_B3, ISOTROPIC, SYMBOLS, cited, conventions,
+                     eccentricity, inclination, period, primary_less_massive, semi_amplitude, with_speed_check)
 
 #: the sources of a formula: Hilditch's, with GM_sun (IAU 2015 B3) in a mass, the au (IAU 2012 B2) in a length
 MASS = (HILDITCH_2001, IAU_2015_B3)
@@ -30,13 +30,7 @@ def _sb1_check(inputs, outputs):
 
 
 def _sb2_check(inputs, outputs):
-    q = outputs["mass_ratio"]
-    # K1 = K2 in two units (45300 m/s and 45.3 km/s) is q = 1, though the conversion's rounding may put it just above
-    above = q > 1.0 + EDGE_ROUNDING
-    if np.count_nonzero(above):
-        return [Warning("primary_less_massive", "q = K1/K2 > 1: star 1 (the star of k1) is the less massive star",
-                        above)]
-    return []
+    return primary_less_massive(outputs["mass_ratio"])
 
 
 register(Calculation(
