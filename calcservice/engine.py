@@ -1143,16 +1143,12 @@ def split_normal_within(value: np.ndarray, sigma_minus: np.ndarray, sigma_plus: 
     return cdf(high) - cdf(low)
 
 
-def _halves_scale(sigma_minus, sigma_plus) -> np.ndarray:
-    """A power of two near the larger half-width of a split normal: the halves' weights and the inverse CDF's
-    ratios are formed from the widths divided by it, exactly the same numbers where nothing overflows, and
-    finite where 2 sigma_plus or their sum would overflow (a sigma_plus of 1e308 drew every draw at the mode)."""
-    _, exponent = np.frexp(np.maximum(sigma_minus, sigma_plus))
-    return np.ldexp(1.0, exponent - 1)
-
-
 def _scaled_halves(sigma_minus, sigma_plus) -> tuple[np.ndarray, np.ndarray]:
-    scale = _halves_scale(sigma_minus, sigma_plus)
+    """A split normal's half-widths divided by a power of two near the larger: the halves' weights and the inverse
+    CDF's ratios are formed from these, exactly the same numbers where nothing overflows, and finite where
+    2 sigma_plus or their sum would overflow (a sigma_plus of 1e308 drew every draw at the mode)."""
+    _, exponent = np.frexp(np.maximum(sigma_minus, sigma_plus))
+    scale = np.ldexp(1.0, exponent - 1)
     return sigma_minus / scale, sigma_plus / scale
 
 
