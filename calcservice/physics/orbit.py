@@ -663,10 +663,10 @@ def mid_eclipse_offset(star, eccentricity, omega_rad, inclination_deg, omega_rat
     return delta.reshape(shape)
 
 
-def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_rad, omega_rate=0.0):
+def mid_eclipse_true_anomaly(star, eccentricity, omega_rad, inclination_deg, omega_rate=0.0):
     """True anomaly (rad) of the minimum projected separation near the conjunction that eclipses ``star``:
     the conjunction's, 90 deg - omega or 270 deg - omega, plus :func:`mid_eclipse_offset`."""
-    offset = mid_eclipse_offset(star, eccentricity, omega_rad, np.degrees(inclination_rad), omega_rate)
+    offset = mid_eclipse_offset(star, eccentricity, omega_rad, inclination_deg, omega_rate)
     return CONJUNCTION_ARGUMENT[star] - omega_rad + offset
 
 
@@ -808,8 +808,7 @@ def mid_eclipse_dates(star, period, t_periastron, eccentricity, omega, inclinati
 
     def raw_phase(w, cycles, e=e, inc=inc, rate=None):     # continuous in its arguments (no reduction mod 1)
         rate = apsidal_rate(wdot, p, pdot, cycles) if rate is None else rate
-        w_rad = np.radians(w)
-        nu = CONJUNCTION_ARGUMENT[star] - w_rad + mid_eclipse_offset(star, e, w_rad, inc, rate)
+        nu = mid_eclipse_true_anomaly(star, e, np.radians(w), inc, rate)
         return kepler.mean_from_true(nu, e) / TWO_PI
 
     time, cycles, w_t = dated_events(raw_phase, p, t0, w0, start, count, wdot, pdot)
